@@ -1,0 +1,1 @@
+"""Comparison of realizations: frequency grids, errors between responses, loop checks, verdicts."""

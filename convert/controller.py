@@ -1,0 +1,331 @@
+"""The canonical controller: one SISO linear controller, analog or digital.
+
+Conventions
+-----------
+* ``num`` and ``den`` are real coefficients in **descending** powers of the variable (``s``
+  for analog, ``z`` for digital), as numpy and python-control write them. ``den`` is monic.
+* A digital controller also offers ``b`` and ``a``: the firmware convention, ascending powers
+  of z^-1 with ``a[0] == 1`` (both padded to the same length).
+* The domain is explicit (``"analog"`` or ``"digital"``); a digital controller carries its
+  sample period ``sample_period_s`` (seconds) — never a magic value.
+* Sign: the transfer function is from error (setpoint − measurement) to output.
+* Frequencies at every interface are in Hz; angular frequency ``w`` is rad/s.
+
+The object is immutable. Heavy libraries are not imported here: python-control is loaded only
+by :meth:`Controller.to_control` / :meth:`Controller.from_control`.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Literal, Sequence
+
+import numpy as np
+
+from convert.errors import InputError
+
+Domain = Literal["analog", "digital"]
+
+# A pole counts as "at the origin" (analog) or "at z = 1" (digital) within this distance,
+# relative to the scale of the polynomial's roots. Common practice for root comparisons.
+_ROOT_ATOL = 1e-9
+
+
+def _as_coefficients(values: Sequence[float], what: str) -> tuple[float, ...]:
+    arr = np.atleast_1d(np.asarray(values, dtype=float))
+    if arr.ndim != 1 or arr.size == 0:
+        raise InputError(f"expected a non-empty list of numbers, found {values!r}", key=what)
+    if not np.all(np.isfinite(arr)):
+        raise InputError(f"coefficients must be finite numbers, found {list(arr)}", key=what)
+    nz = np.flatnonzero(arr)
+    if nz.size == 0:
+        raise InputError("the polynomial is identically zero", key=what)
+    return tuple(float(x) for x in arr[nz[0]:])
+
+
+@dataclass(frozen=True)
+class Controller:
+    """A SISO linear controller, continuous (``analog``) or sampled (``digital``).
+
+    Build one with :meth:`analog`, :meth:`digital`, :meth:`from_b_a`, :meth:`from_zpk` or
+    :meth:`from_control` rather than the raw constructor; they validate and normalise.
+    """
+
+    num: tuple[float, ...]
+    den: tuple[float, ...]
+    domain: Domain = "analog"
+    sample_period_s: float | None = None
+    name: str = field(default="", compare=False)
+
+    # ------------------------------------------------------------------ construction
+    def __post_init__(self) -> None:
+        if self.domain not in ("analog", "digital"):
+            raise InputError(f"domain must be 'analog' or 'digital', found {self.domain!r}", key="domain")
+        if self.domain == "digital":
+            t = self.sample_period_s
+            if t is None or not (isinstance(t, (int, float)) and math.isfinite(t) and t > 0):
+                raise InputError(f"a digital controller needs a positive sample period, found {t!r}", key="sample period")
+        elif self.sample_period_s is not None:
+            raise InputError("an analog controller has no sample period", key="sample period")
+        num = _as_coefficients(self.num, "numerator")
+        den = _as_coefficients(self.den, "denominator")
+        lead = den[0]
+        object.__setattr__(self, "num", tuple(c / lead for c in num))
+        object.__setattr__(self, "den", tuple(c / lead for c in den))
+
+    @classmethod
+    def analog(cls, num: Sequence[float], den: Sequence[float], name: str = "") -> "Controller":
+        """Analog controller from coefficients in descending powers of s."""
+        return cls(tuple(num), tuple(den), "analog", None, name)
+
+    @classmethod
+    def digital(cls, num: Sequence[float], den: Sequence[float], sample_period_s: float, name: str = "") -> "Controller":
+        """Digital controller from coefficients in descending powers of z."""
+        return cls(tuple(num), tuple(den), "digital", float(sample_period_s), name)
+
+    @classmethod
+    def from_b_a(cls, b: Sequence[float], a: Sequence[float], sample_period_s: float, name: str = "") -> "Controller":
+        """Digital controller from firmware coefficients: ascending powers of z^-1.
+
+        ``C(z) = (b0 + b1 z^-1 + ...) / (a0 + a1 z^-1 + ...)``. Multiplying through by z^n
+        (n = the longer length − 1) gives the descending-z form.
+        """
+        b_arr = np.asarray(b, dtype=float).ravel()
+        a_arr = np.asarray(a, dtype=float).ravel()
+        if a_arr.size == 0 or a_arr[0] == 0:
+            raise InputError("a[0] must be non-zero (the coefficient of the newest output)", key="a")
+        n = max(b_arr.size, a_arr.size)
+        b_full = np.concatenate([b_arr, np.zeros(n - b_arr.size)])
+        a_full = np.concatenate([a_arr, np.zeros(n - a_arr.size)])
+        return cls.digital(tuple(b_full), tuple(a_full), sample_period_s, name)
+
+    @classmethod
+    def from_zpk(cls, zeros: Sequence[complex], poles: Sequence[complex], gain: float,
+                 domain: Domain = "analog", sample_period_s: float | None = None, name: str = "") -> "Controller":
+        """Controller from zeros, poles (complex pairs must be conjugate) and the zpk gain k."""
+        num = np.real_if_close(gain * np.poly(np.asarray(zeros, dtype=complex)), tol=1e6)
+        den = np.real_if_close(np.poly(np.asarray(poles, dtype=complex)), tol=1e6)
+        if np.iscomplexobj(num) or np.iscomplexobj(den):
+            raise InputError("complex zeros and poles must come in conjugate pairs", key="zeros/poles")
+        return cls(tuple(np.atleast_1d(num)), tuple(np.atleast_1d(den)), domain, sample_period_s, name)
+
+    # ------------------------------------------------------------------ basic properties
+    @property
+    def is_digital(self) -> bool:
+        return self.domain == "digital"
+
+    @property
+    def fs_hz(self) -> float | None:
+        """Sample rate in Hz (digital only)."""
+        return None if self.sample_period_s is None else 1.0 / self.sample_period_s
+
+    @property
+    def variable(self) -> str:
+        return "z" if self.is_digital else "s"
+
+    @property
+    def relative_degree(self) -> int:
+        """Number of poles minus number of zeros (negative: improper)."""
+        return (len(self.den) - 1) - (len(self.num) - 1)
+
+    @property
+    def is_proper(self) -> bool:
+        return self.relative_degree >= 0
+
+    @property
+    def is_strictly_proper(self) -> bool:
+        return self.relative_degree > 0
+
+    @property
+    def order(self) -> int:
+        return len(self.den) - 1
+
+    def zeros(self) -> np.ndarray:
+        """Finite zeros (s or z plane), as a complex array."""
+        return np.roots(self.num).astype(complex) if len(self.num) > 1 else np.zeros(0, complex)
+
+    def poles(self) -> np.ndarray:
+        """Poles (s or z plane), as a complex array."""
+        return np.roots(self.den).astype(complex) if len(self.den) > 1 else np.zeros(0, complex)
+
+    @property
+    def gain(self) -> float:
+        """The zpk gain k: ratio of the leading coefficients (num[0] / den[0], den is monic)."""
+        return self.num[0]
+
+    def integrator_count(self) -> int:
+        """Poles at s = 0 (analog) or z = 1 (digital), counted with multiplicity."""
+        p = np.array(self.den)
+        count = 0
+        point = 1.0 if self.is_digital else 0.0
+        scale = max(1.0, float(np.max(np.abs(p))))
+        while len(p) > 1 and abs(np.polyval(p, point)) <= _ROOT_ATOL * scale:
+            p, _ = np.polydiv(p, [1.0, -point])
+            count += 1
+        return count
+
+    @property
+    def is_integrating(self) -> bool:
+        return self.integrator_count() > 0
+
+    def dc_gain(self) -> float | None:
+        """Gain at zero frequency, or ``None`` for an integrating controller (infinite)."""
+        if self.is_integrating:
+            return None
+        point = 1.0 if self.is_digital else 0.0
+        return float(np.polyval(self.num, point) / np.polyval(self.den, point))
+
+    def high_frequency_gain(self) -> float | None:
+        """Gain as f -> infinity (analog, proper only): num[0]/den[0] when degrees match, 0 when
+        strictly proper, ``None`` when improper (it grows without bound)."""
+        if self.is_digital:
+            raise InputError("high-frequency gain is defined here for analog controllers only")
+        if not self.is_proper:
+            return None
+        if self.relative_degree > 0:
+            return 0.0
+        return float(self.num[0])
+
+    # ------------------------------------------------------------------ firmware form
+    @property
+    def b(self) -> tuple[float, ...]:
+        """Numerator in ascending powers of z^-1 (digital only), normalised so a[0] = 1."""
+        return self._b_a()[0]
+
+    @property
+    def a(self) -> tuple[float, ...]:
+        """Denominator in ascending powers of z^-1 (digital only), a[0] = 1."""
+        return self._b_a()[1]
+
+    def _b_a(self) -> tuple[tuple[float, ...], tuple[float, ...]]:
+        if not self.is_digital:
+            raise InputError("b/a coefficients exist for a digital controller only; convert it first")
+        if not self.is_proper:
+            raise InputError("this digital controller is improper (non-causal): it needs future inputs")
+        n = len(self.den)
+        b = (0.0,) * (n - len(self.num)) + self.num
+        return tuple(b), tuple(self.den)
+
+    # ------------------------------------------------------------------ responses
+    def frequency_response(self, f_hz: Sequence[float] | float, *, via: Literal["poly", "zpk"] = "poly") -> np.ndarray:
+        """Complex response at the frequencies ``f_hz`` (Hz).
+
+        Analog: C(j 2π f). Digital: C(e^{j 2π f T}). ``via="zpk"`` evaluates the factored form,
+        which stays accurate when coefficients span many decades (high fs / corner ratios).
+        """
+        f = np.asarray(f_hz, dtype=float)
+        w = 2.0 * np.pi * f
+        x = np.exp(1j * w * self.sample_period_s) if self.is_digital else 1j * w
+        if via == "zpk":
+            zeros, poles = self.zeros(), self.poles()
+            resp = np.full(x.shape, self.gain, dtype=complex)
+            for zr in zeros:
+                resp = resp * (x - zr)
+            for pl in poles:
+                resp = resp / (x - pl)
+            return resp
+        return np.polyval(self.num, x) / np.polyval(self.den, x)
+
+    def corner_frequencies_hz(self) -> dict[str, list[float]]:
+        """Corner frequencies in Hz of the non-integrating zeros and poles.
+
+        Analog: |root| / 2π. Digital: |ln(root)| / (2π T) (the equivalent analog corner).
+        Roots at the origin (analog) or at z = 1 (digital) and at z = 0 are left out. Complex
+        pairs are listed once.
+        """
+        out: dict[str, list[float]] = {}
+        for label, roots in (("zeros", self.zeros()), ("poles", self.poles())):
+            values: list[float] = []
+            for r in roots:
+                if r.imag < -1e-12 * max(1.0, abs(r)):
+                    continue
+                if self.is_digital:
+                    if abs(r) < 1e-12:
+                        continue
+                    s_equiv = np.log(complex(r)) / self.sample_period_s
+                    if abs(r - 1.0) < 1e-9:
+                        continue
+                    values.append(float(abs(s_equiv) / (2 * np.pi)))
+                else:
+                    if abs(r) < 1e-12:
+                        continue
+                    values.append(float(abs(r) / (2 * np.pi)))
+            out[label] = sorted(values)
+        return out
+
+    # ------------------------------------------------------------------ python-control adapters
+    def to_control(self):
+        """The same controller as a python-control ``TransferFunction`` (dt = sample period
+        for digital, 0 for analog)."""
+        import control  # lazy: costs about a second
+
+        dt = self.sample_period_s if self.is_digital else 0
+        return control.tf(list(self.num), list(self.den), dt)
+
+    @classmethod
+    def from_control(cls, system, name: str = "") -> "Controller":
+        """Build from a python-control SISO ``TransferFunction`` (or anything with ``num``/``den``
+        lists and ``dt``). ``dt = 0`` is analog; a positive ``dt`` is digital; ``dt = True``
+        (unspecified period) is refused because the sample period matters."""
+        try:
+            num = np.asarray(system.num[0][0], dtype=float)
+            den = np.asarray(system.den[0][0], dtype=float)
+            dt = system.dt
+        except (AttributeError, IndexError, TypeError) as exc:
+            raise InputError(f"expected a SISO python-control TransferFunction, found {type(system).__name__}") from exc
+        if getattr(system, "ninputs", 1) != 1 or getattr(system, "noutputs", 1) != 1:
+            raise InputError("only single-input single-output systems are controllers here")
+        if dt is None or dt == 0:
+            return cls.analog(num, den, name)
+        if dt is True:
+            raise InputError("the system is discrete with an unspecified sample period (dt=True); give dt in seconds")
+        return cls.digital(num, den, float(dt), name)
+
+    # ------------------------------------------------------------------ small conveniences
+    def with_name(self, name: str) -> "Controller":
+        return Controller(self.num, self.den, self.domain, self.sample_period_s, name)
+
+    def scaled(self, factor: float) -> "Controller":
+        """The controller multiplied by a constant (e.g. -1 for the action sign)."""
+        return Controller(tuple(factor * c for c in self.num), self.den, self.domain, self.sample_period_s, self.name)
+
+    def series(self, other: "Controller") -> "Controller":
+        """Product C·other (same domain and sample period)."""
+        self._same_domain(other)
+        return Controller(tuple(np.polymul(self.num, other.num)), tuple(np.polymul(self.den, other.den)),
+                          self.domain, self.sample_period_s, self.name)
+
+    def _same_domain(self, other: "Controller") -> None:
+        if self.domain != other.domain or self.sample_period_s != other.sample_period_s:
+            raise InputError("both controllers must share a domain and sample period")
+
+    def expression(self, digits: int = 6) -> str:
+        """The transfer function as text the expression grammar reads back."""
+        from convert.expr import format_polynomial
+
+        num = format_polynomial(self.num, self.variable, digits)
+        den = format_polynomial(self.den, self.variable, digits)
+        if den == "1":
+            return num
+        return f"({num}) / ({den})"
+
+
+def from_expression(text: str, *, fs_hz: float | None = None, label: str = "expression", name: str = "") -> Controller:
+    """Read a controller from an expression in ``s`` or in ``z`` / ``z^-1``.
+
+    A ``z`` expression needs ``fs_hz`` (the sample rate in Hz). A constant expression is analog
+    unless ``fs_hz`` is given.
+    """
+    from convert.expr import parse_rational
+
+    parsed = parse_rational(text, label=label)
+    num = [float(c) for c in parsed.num]
+    den = [float(c) for c in parsed.den]
+    if parsed.variable == "z" or (parsed.variable is None and fs_hz is not None):
+        if fs_hz is None:
+            raise InputError("an expression in z needs a sample rate; give it with --fs (Hz)", where=label)
+        if not (math.isfinite(fs_hz) and fs_hz > 0):
+            raise InputError(f"the sample rate must be positive, found {fs_hz!r}", key="fs")
+        return Controller.digital(num, den, 1.0 / fs_hz, name)
+    return Controller.analog(num, den, name)

@@ -1,0 +1,52 @@
+"""One error hierarchy for the whole package.
+
+Every error the user can cause is a :class:`LoopshiftError`. Its ``str()`` is a single line
+that names *where* (file and line, expression and column, or the option/field) and *what*
+was expected versus found. The CLI prints that line and exits with code 2.
+
+Subclasses also inherit the matching builtin so library users can catch them naturally
+(``InputError`` is a ``ValueError``).
+"""
+
+from __future__ import annotations
+
+
+class LoopshiftError(Exception):
+    """Base class for every error loopshift raises on purpose.
+
+    Parameters
+    ----------
+    message:
+        What was expected and what was found, in plain words.
+    where:
+        Location prefix, e.g. ``"case.toml:12"``, ``"expression column 7"``, ``"--pid"``.
+    key:
+        The field or option involved, e.g. ``"ti"`` or ``"target.digital.fs"``.
+    """
+
+    def __init__(self, message: str, *, where: str | None = None, key: str | None = None):
+        self.message = message
+        self.where = where
+        self.key = key
+        super().__init__(self.one_line())
+
+    def one_line(self) -> str:
+        parts = []
+        if self.where:
+            parts.append(self.where)
+        if self.key:
+            parts.append(self.key)
+        prefix = ": ".join(parts)
+        text = f"{prefix}: {self.message}" if prefix else self.message
+        return " ".join(text.split())  # guarantee one line
+
+    def __str__(self) -> str:  # pragma: no cover - trivial
+        return self.one_line()
+
+
+class InputError(LoopshiftError, ValueError):
+    """A value, expression, file or option the user gave is malformed or out of range."""
+
+
+class UnrealizableError(LoopshiftError, ValueError):
+    """A request that cannot be honoured (e.g. no real continuous equivalent, no topology)."""

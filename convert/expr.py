@@ -1,0 +1,362 @@
+"""Transfer-function expressions: a small grammar of our own, read into exact polynomials.
+
+Grammar (whitespace is free)::
+
+    expression := term (("+" | "-") term)*
+    term       := factor (("*" | "/")? factor)*        # juxtaposition multiplies: 0.02s, 2(s+1)
+    factor     := ("+" | "-") factor | power
+    power      := atom (("^" | "**") exponent)?
+    exponent   := ["+" | "-"] integer | "(" ["+" | "-"] integer ")"
+    atom       := number | "s" | "z" | "(" expression ")"
+    number     := digits ["." digits] [("e" | "E") ["+" | "-"] digits]
+
+``s`` makes the expression analog; ``z`` (including ``z^-1``) makes it digital and needs a
+sample rate. Numbers are read exactly (``0.1`` is the fraction 1/10), arithmetic is done on
+exact rational polynomials, common factors of numerator and denominator are cancelled
+exactly, and only the final coefficients become floats. Nothing is ever passed to ``eval``.
+
+Errors name the column (1-based) of the offending character.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+from fractions import Fraction
+
+from convert.errors import InputError
+
+Poly = tuple[Fraction, ...]  # ascending powers of the variable, no trailing zeros (zero poly = ())
+
+_TOKEN_RE = re.compile(
+    r"(?P<ws>\s+)|(?P<num>(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)|(?P<name>[A-Za-z_µ][A-Za-z_0-9µ]*)"
+    r"|(?P<op>\*\*|[-+*/^()])"
+)
+
+
+@dataclass(frozen=True)
+class _Token:
+    kind: str  # "num", "name", "op", "end"
+    text: str
+    column: int  # 1-based
+
+
+# ----------------------------------------------------------------------------- polynomials
+def _trim(p: list[Fraction]) -> Poly:
+    while p and p[-1] == 0:
+        p.pop()
+    return tuple(p)
+
+
+def _padd(a: Poly, b: Poly) -> Poly:
+    n = max(len(a), len(b))
+    return _trim([(a[i] if i < len(a) else 0) + (b[i] if i < len(b) else 0) for i in range(n)])
+
+
+def _pneg(a: Poly) -> Poly:
+    return tuple(-c for c in a)
+
+
+def _pmul(a: Poly, b: Poly) -> Poly:
+    if not a or not b:
+        return ()
+    out = [Fraction(0)] * (len(a) + len(b) - 1)
+    for i, ca in enumerate(a):
+        if ca:
+            for j, cb in enumerate(b):
+                out[i + j] += ca * cb
+    return _trim(out)
+
+
+def _pdivmod(a: Poly, b: Poly) -> tuple[Poly, Poly]:
+    rem = list(a)
+    quot = [Fraction(0)] * max(len(a) - len(b) + 1, 0)
+    lead = b[-1]
+    for shift in range(len(a) - len(b), -1, -1):
+        coef = rem[shift + len(b) - 1] / lead
+        quot[shift] = coef
+        if coef:
+            for j, cb in enumerate(b):
+                rem[shift + j] -= coef * cb
+    return _trim(quot), _trim(rem[: len(b) - 1])
+
+
+def _pgcd(a: Poly, b: Poly) -> Poly:
+    while b:
+        a, b = b, _pdivmod(a, b)[1]
+    if not a:
+        return (Fraction(1),)
+    lead = a[-1]
+    return tuple(c / lead for c in a)
+
+
+ONE: Poly = (Fraction(1),)
+VAR: Poly = (Fraction(0), Fraction(1))
+
+
+@dataclass(frozen=True)
+class Rational:
+    """An exact rational function num/den in one variable; coefficients ascending."""
+
+    num: Poly
+    den: Poly
+
+    def __add__(self, o: "Rational") -> "Rational":
+        return Rational(_padd(_pmul(self.num, o.den), _pmul(o.num, self.den)), _pmul(self.den, o.den))
+
+    def __neg__(self) -> "Rational":
+        return Rational(_pneg(self.num), self.den)
+
+    def __sub__(self, o: "Rational") -> "Rational":
+        return self + (-o)
+
+    def __mul__(self, o: "Rational") -> "Rational":
+        return Rational(_pmul(self.num, o.num), _pmul(self.den, o.den))
+
+    def reduced(self) -> "Rational":
+        """Cancel common factors exactly and make the denominator monic."""
+        if not self.num:
+            return Rational((), ONE)
+        g = _pgcd(self.num, self.den)
+        num, den = self.num, self.den
+        if len(g) > 1:
+            num = _pdivmod(num, g)[0]
+            den = _pdivmod(den, g)[0]
+        lead = den[-1]
+        return Rational(tuple(c / lead for c in num), tuple(c / lead for c in den))
+
+
+def _const(value: Fraction) -> Rational:
+    return Rational(_trim([value]), ONE)
+
+
+# ----------------------------------------------------------------------------- parser
+@dataclass(frozen=True)
+class ParsedExpression:
+    """Result of :func:`parse_rational`.
+
+    ``num`` and ``den`` are exact coefficients in *descending* powers of ``variable``
+    (``"s"``, ``"z"``, or ``None`` for a constant); ``den`` is monic. ``cancelled`` is the
+    exact common factor removed from both (descending, monic), or ``None``.
+    """
+
+    num: tuple[Fraction, ...]
+    den: tuple[Fraction, ...]
+    variable: str | None
+    cancelled: tuple[Fraction, ...] | None
+
+
+class _Parser:
+    def __init__(self, text: str, label: str):
+        self.text = text
+        self.label = label
+        self.tokens = self._tokenize()
+        self.pos = 0
+        self.variables: set[str] = set()
+        self.first_var_column: dict[str, int] = {}
+
+    # -- errors
+    def error(self, column: int, message: str) -> InputError:
+        return InputError(f"{message} (in {self.text.strip()!r})", where=f"{self.label} column {column}")
+
+    # -- lexing
+    def _tokenize(self) -> list[_Token]:
+        out: list[_Token] = []
+        i = 0
+        while i < len(self.text):
+            m = _TOKEN_RE.match(self.text, i)
+            if not m:
+                ch = self.text[i]
+                raise self.error(i + 1, f"unexpected character {ch!r}; allowed: numbers, s, z, + - * / ^ ( )")
+            kind = m.lastgroup
+            if kind != "ws":
+                out.append(_Token(kind, m.group(), i + 1))
+            i = m.end()
+        out.append(_Token("end", "", len(self.text) + 1))
+        return out
+
+    def peek(self) -> _Token:
+        return self.tokens[self.pos]
+
+    def take(self) -> _Token:
+        tok = self.tokens[self.pos]
+        self.pos += 1
+        return tok
+
+    def describe(self, tok: _Token) -> str:
+        return "the end of the expression" if tok.kind == "end" else repr(tok.text)
+
+    # -- grammar
+    def parse(self) -> Rational:
+        if self.peek().kind == "end":
+            raise self.error(1, "expected an expression, found nothing")
+        value = self.expression()
+        tok = self.peek()
+        if tok.kind != "end":
+            raise self.error(tok.column, f"expected an operator or the end, found {self.describe(tok)}")
+        return value
+
+    def expression(self) -> Rational:
+        value = self.term()
+        while self.peek().kind == "op" and self.peek().text in "+-":
+            op = self.take()
+            rhs = self.term()
+            value = value + rhs if op.text == "+" else value - rhs
+        return value
+
+    def _starts_factor(self, tok: _Token) -> bool:
+        # Juxtaposition multiplies only before a name or "(": "0.02s", "2(s+1)", "s(s+1)".
+        # Two numbers side by side ("3 4") are refused as an error instead.
+        return tok.kind == "name" or (tok.kind == "op" and tok.text == "(")
+
+    def term(self) -> Rational:
+        value = self.factor()
+        while True:
+            tok = self.peek()
+            if tok.kind == "op" and tok.text in ("*", "/"):
+                self.take()
+                rhs = self.factor()
+                if tok.text == "*":
+                    value = value * rhs
+                else:
+                    if not rhs.num:
+                        raise self.error(tok.column, "division by zero (the divisor is identically 0)")
+                    value = value * Rational(rhs.den, rhs.num)
+            elif self._starts_factor(tok):
+                value = value * self.factor()
+            else:
+                return value
+
+    def factor(self) -> Rational:
+        tok = self.peek()
+        if tok.kind == "op" and tok.text in "+-":
+            self.take()
+            inner = self.factor()
+            return -inner if tok.text == "-" else inner
+        return self.power()
+
+    def power(self) -> Rational:
+        base = self.atom()
+        tok = self.peek()
+        if tok.kind == "op" and tok.text in ("^", "**"):
+            self.take()
+            exponent = self.exponent()
+            if exponent < 0:
+                if not base.num:
+                    raise self.error(tok.column, "zero raised to a negative power")
+                base = Rational(base.den, base.num)
+                exponent = -exponent
+            result = _const(Fraction(1))
+            for _ in range(exponent):
+                result = result * base
+            return result
+        return base
+
+    def exponent(self) -> int:
+        tok = self.peek()
+        paren = tok.kind == "op" and tok.text == "("
+        if paren:
+            self.take()
+        sign = 1
+        tok = self.peek()
+        if tok.kind == "op" and tok.text in "+-":
+            self.take()
+            sign = -1 if tok.text == "-" else 1
+        tok = self.take()
+        if tok.kind != "num" or not tok.text.isdigit():
+            raise self.error(tok.column, f"expected a whole-number power, found {self.describe(tok)}")
+        value = int(tok.text)
+        if value > 64:
+            raise self.error(tok.column, f"power {value} is too large (64 at most)")
+        if paren:
+            close = self.take()
+            if not (close.kind == "op" and close.text == ")"):
+                raise self.error(close.column, f"expected ')', found {self.describe(close)}")
+        return sign * value
+
+    def atom(self) -> Rational:
+        tok = self.take()
+        if tok.kind == "num":
+            return _const(Fraction(tok.text))
+        if tok.kind == "name":
+            name = tok.text
+            if name in ("s", "z"):
+                self.variables.add(name)
+                self.first_var_column.setdefault(name, tok.column)
+                return Rational(VAR, ONE)
+            hint = ""
+            if len(name) > 1 and name[0] in "sz" and all(c in "sz" for c in name):
+                hint = f"; write products with '*' (e.g. {'*'.join(name)})"
+            elif name.startswith("s") or name.startswith("z"):
+                hint = "; put '*' or a space between a variable and what follows"
+            raise self.error(tok.column, f"unknown name {name!r}; use s (analog) or z / z^-1 (digital){hint}")
+        if tok.kind == "op" and tok.text == "(":
+            inner = self.expression()
+            close = self.take()
+            if not (close.kind == "op" and close.text == ")"):
+                raise self.error(close.column, f"expected ')' to close the '(' at column {tok.column}, found {self.describe(close)}")
+            return inner
+        raise self.error(tok.column, f"expected a number, s, z or '(', found {self.describe(tok)}")
+
+
+def parse_rational(text: str, *, label: str = "expression") -> ParsedExpression:
+    """Parse ``text`` into exact num/den coefficients (descending powers), cancelling common factors.
+
+    ``label`` names the source in errors, e.g. ``"expression"`` or ``"case.toml:7: source.expression"``.
+    """
+    if not isinstance(text, str):
+        raise InputError(f"expected an expression as text, found {type(text).__name__}", where=label)
+    parser = _Parser(text, label)
+    value = parser.parse()
+    if len(parser.variables) > 1:
+        col = max(parser.first_var_column.values())
+        raise parser.error(col, "an expression uses s (analog) or z (digital), not both")
+    if not value.den:
+        raise parser.error(1, "division by zero")
+    if not value.num:
+        raise parser.error(1, "the expression is identically zero; a controller needs a non-zero gain")
+    raw = value
+    reduced = raw.reduced()
+    cancelled = None
+    if len(reduced.den) < len(raw.den):
+        g = _pgcd(raw.num, raw.den)
+        cancelled = tuple(reversed(g))
+    variable = next(iter(parser.variables)) if parser.variables else None
+    return ParsedExpression(tuple(reversed(reduced.num)), tuple(reversed(reduced.den)), variable, cancelled)
+
+
+def format_polynomial(coefs_desc, variable: str = "s", digits: int = 6) -> str:
+    """Write coefficients (descending powers) as text this grammar reads back, e.g. ``0.5*s^2 + 3*s + 1``.
+
+    Coefficients that are :class:`fractions.Fraction` are written exactly; floats with
+    ``digits`` significant digits (``repr`` when ``digits`` is ``None``).
+    """
+    coefs = list(coefs_desc)
+    degree = len(coefs) - 1
+    terms: list[tuple[str, str]] = []
+    for i, c in enumerate(coefs):
+        if c == 0:
+            continue
+        power = degree - i
+        if isinstance(c, Fraction):
+            mag = abs(c)
+            mag_text = str(mag.numerator) if mag.denominator == 1 else f"({mag.numerator}/{mag.denominator})"
+        else:
+            mag = abs(float(c))
+            mag_text = repr(mag) if digits is None else f"{mag:.{digits}g}"
+        var = "" if power == 0 else (variable if power == 1 else f"{variable}^{power}")
+        if var and mag == 1:
+            body = var
+        elif var:
+            body = f"{mag_text}*{var}"
+        else:
+            body = mag_text
+        sign = "-" if c < 0 else "+"
+        terms.append((sign, body))
+    if not terms:
+        return "0"
+    first_sign, first = terms[0]
+    text = ("-" if first_sign == "-" else "") + first
+    for sign, body in terms[1:]:
+        text += f" {sign} {body}"
+    return text
