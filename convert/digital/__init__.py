@@ -1,0 +1,2 @@
+"""Digital (sampled) controllers: analog -> digital methods, digital -> analog, structures,
+word formats and code emission."""

@@ -1,0 +1,1 @@
+"""Report writers: figures, HTML, Markdown and JSON. The only package that imports matplotlib."""

@@ -1,0 +1,60 @@
+"""Run ngspice (the independent reference simulator) in batch mode and read an AC sweep back.
+
+Used by tests only. Tests that need ngspice call :func:`require_ngspice` first, which skips
+with a clear reason where ngspice is not installed (``.ci/run`` installs it).
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import subprocess
+import tempfile
+
+import numpy as np
+import pytest
+
+
+def require_ngspice() -> str:
+    path = shutil.which("ngspice")
+    if path is None:
+        pytest.skip("ngspice is not installed (Debian package 'ngspice'; .ci/run installs it)")
+    return path
+
+
+def ac_sweep(netlist: str, output_node: str = "out", f_start_hz: float = 0.01, f_stop_hz: float = 100.0,
+             points_per_decade: int = 20) -> tuple[np.ndarray, np.ndarray]:
+    """Simulate ``netlist`` (no analysis lines, no .end) with an AC sweep; return (f_hz, V(out)).
+
+    The netlist must contain an AC 1 source. The sweep is logarithmic (``dec``). ngspice pitfalls
+    respected: batch mode ends with ``quit 0``; values should be in exponent form.
+    """
+    exe = require_ngspice()
+    with tempfile.TemporaryDirectory() as tmp:
+        data = os.path.join(tmp, "ac.txt")
+        body = netlist.rstrip()
+        if body.lower().endswith(".end"):
+            body = body[: -len(".end")].rstrip()
+        deck = (
+            f"{body}\n"
+            ".control\n"
+            "set noaskquit\n"
+            "set wr_singlescale\n"
+            "set wr_vecnames\n"
+            "option numdgt=15\n"
+            f"ac dec {points_per_decade} {f_start_hz:.9e} {f_stop_hz:.9e}\n"
+            f"wrdata {data} v({output_node})\n"
+            "quit 0\n"
+            ".endc\n"
+            ".end\n"
+        )
+        cir = os.path.join(tmp, "deck.cir")
+        with open(cir, "w") as fh:
+            fh.write(deck)
+        proc = subprocess.run([exe, "-b", cir], capture_output=True, text=True, timeout=120, cwd=tmp)
+        if not os.path.exists(data):
+            raise AssertionError(f"ngspice produced no data (exit {proc.returncode}):\n{proc.stdout[-2000:]}\n{proc.stderr[-2000:]}")
+        rows = np.loadtxt(data, skiprows=1, ndmin=2)
+    f = rows[:, 0]
+    v = rows[:, 1] + 1j * rows[:, 2]
+    return f, v
