@@ -1,0 +1,703 @@
+"""Case files: one job written as TOML — load, validate, explain errors.
+
+A case names the controller that exists now (the **source**), the forms to produce (the
+**targets**), optionally the **plant** and the **signals** of the loop, and the acceptance
+**criteria**. The schema is documented in ``docs/case-files.md``.
+
+Every error is one line ``file:line: key: what was expected, what was found``. ``tomllib``
+gives no line numbers, so :func:`key_lines` scans the text for the line of each key itself.
+Unknown keys are refused with a did-you-mean suggestion.
+
+Values go through :func:`convert.values.parse_value` (``M`` is mega, ``m`` is milli);
+expressions through :func:`convert.controller.from_expression`. Building the source controller
+(:func:`source_controller`) imports the PID, circuit and netlist modules lazily, so loading a
+case needs only the standard library and numpy.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from convert.errors import InputError, LoopshiftError
+
+SOURCE_FORMS = ("expression", "pid", "digital", "card", "netlist")
+WORD_FORMATS = ("float64", "float32")
+
+# Each table's allowed keys. A value of dict means a sub-table with its own keys;
+# None means "any key" (e.g. part names, PID keys checked by convert.pid).
+SCHEMA: dict[str, Any] = {
+    "case": {"title": 1, "description": 1, "author": 1},
+    "source": {
+        "expression": 1,
+        "pid": None,
+        "digital": {"b": 1, "a": 1, "fs": 1},
+        "card": {"topology": 1, "parts": None, "tolerances": None},
+        "netlist": {"file": 1, "input": 1, "output": 1, "setpoint": 1, "measurement": 1},
+    },
+    "target": {
+        "digital": {
+            "fs": 1, "methods": 1, "prewarp": 1, "delay": 1, "delay_samples": 1, "output_limits": 1,
+            "derivative_filter": 1, "word_format": 1, "structure": 1,
+        },
+        "circuit": {
+            "topology": 1, "resistors": 1, "capacitors": 1, "tolerances": None, "resistor_range": 1,
+            "capacitor_range": 1, "draws": 1, "seed": 1, "opamp_gbw": 1,
+        },
+    },
+    "plant": {"model": 1, "dead_time": 1},
+    "signals": {"setpoint_step": 1, "disturbance_step": 1, "duration": 1, "output_range": 1},
+    "criteria": {
+        "band": 1, "max_gain_error_db": 1, "max_phase_error_deg": 1, "max_phase_margin_change_deg": 1,
+        "max_gain_margin_change_db": 1, "max_sensitivity_peak_change_db": 1, "max_step_deviation": 1,
+        "max_disturbance_deviation": 1,
+    },
+}
+
+
+# ----------------------------------------------------------------------------- data model
+@dataclass(frozen=True)
+class Source:
+    """The controller that exists now. ``form`` is one of :data:`SOURCE_FORMS`; ``data`` holds
+    the parsed fields of that form (values in SI units); ``where`` is ``file:line`` of it."""
+
+    form: str
+    data: dict
+    where: str
+
+
+@dataclass(frozen=True)
+class DigitalTarget:
+    """Firmware target. ``fs_hz`` sample rates (Hz); ``methods`` discretization method names;
+    ``delay_s`` computation delay (s) between sampling and output update (``delay_samples`` is
+    resolved per rate: ``delay_samples / fs``); ``output_limits`` (low, high) clamp in controller
+    output units or ``None``; ``derivative_filter`` N added to an improper source (the filter
+    time constant is Td/N) or ``None``; ``word_format`` coefficient storage."""
+
+    fs_hz: tuple[float, ...]
+    methods: tuple[str, ...]
+    prewarp_hz: float | None = None
+    delay_s: float = 0.0
+    delay_samples: float | None = None
+    output_limits: tuple[float, float] | None = None
+    derivative_filter: float | None = None
+    word_format: str = "float64"
+    structure: str = "direct"
+    where: str = ""
+
+    def delay_for(self, fs_hz: float) -> float:
+        """Computation delay in seconds at the sample rate ``fs_hz``."""
+        if self.delay_samples is not None:
+            return self.delay_samples / fs_hz
+        return self.delay_s
+
+
+@dataclass(frozen=True)
+class CircuitTarget:
+    """Op-amp circuit target. Ranges are (min, max) in ohms / farads; ``tolerances`` maps a
+    part class letter (``R``, ``C``) to a fraction (0.01 = 1 %); ``opamp_gbw_hz`` the op-amp
+    gain-bandwidth product (Hz) or ``None`` for an ideal op-amp."""
+
+    topology: str = "auto"
+    resistors: str = "E96"
+    capacitors: str = "E12"
+    tolerances: dict = field(default_factory=lambda: {"R": 0.01, "C": 0.05})
+    resistor_range: tuple[float, float] = (1e3, 1e6)
+    capacitor_range: tuple[float, float] = (100e-12, 10e-6)
+    draws: int = 2000
+    seed: int = 1
+    opamp_gbw_hz: float | None = None
+    where: str = ""
+
+
+@dataclass(frozen=True)
+class Plant:
+    """The process the controller drives: ``model`` (analog Controller object, from the
+    controller input to the measurement) followed by a pure ``dead_time_s`` (seconds)."""
+
+    model: Any
+    expression: str
+    dead_time_s: float = 0.0
+
+
+@dataclass(frozen=True)
+class Signals:
+    """Test signals: setpoint step size, load-disturbance step (added at the plant input, in
+    controller output units), simulation duration (s, ``None`` = automatic) and the actuator
+    range (low, high) that clamps every form's output."""
+
+    setpoint_step: float = 1.0
+    disturbance_step: float = 1.0
+    duration_s: float | None = None
+    output_range: tuple[float, float] | None = None
+
+
+@dataclass(frozen=True)
+class Criteria:
+    """Acceptance criteria; ``None`` means the criterion is not set (not checked).
+
+    ``band_hz`` (low, high) in Hz; gain errors in dB, phase errors in degrees; step and
+    disturbance deviations as fractions (of the setpoint step / of the analog loop's peak
+    disturbance deviation)."""
+
+    band_hz: tuple[float, float]
+    max_gain_error_db: float | None = None
+    max_phase_error_deg: float | None = None
+    max_phase_margin_change_deg: float | None = None
+    max_gain_margin_change_db: float | None = None
+    max_sensitivity_peak_change_db: float | None = None
+    max_step_deviation: float | None = None
+    max_disturbance_deviation: float | None = None
+
+    def as_dict(self) -> dict:
+        return {k: getattr(self, k) for k in self.__dataclass_fields__}
+
+
+@dataclass(frozen=True)
+class Case:
+    path: Path
+    name: str
+    title: str
+    description: str
+    source: Source
+    digital: DigitalTarget | None
+    circuit: CircuitTarget | None
+    plant: Plant | None
+    signals: Signals
+    criteria: Criteria
+    lines: dict = field(default_factory=dict, compare=False, repr=False)
+
+    @property
+    def base_dir(self) -> Path:
+        return self.path.parent
+
+    def where(self, key: str) -> str:
+        """``file:line`` of a dotted key (or of its nearest enclosing table)."""
+        return _where(self.path.name, self.lines, key)
+
+
+# ----------------------------------------------------------------------------- line finder
+_HEADER_RE = re.compile(r"^\s*(\[\[?)\s*([^\]]+?)\s*\]\]?\s*(#.*)?$")
+_KEY_RE = re.compile(r"""^\s*((?:[A-Za-z0-9_\-]+|"[^"]*"|'[^']*')(?:\s*\.\s*(?:[A-Za-z0-9_\-]+|"[^"]*"|'[^']*'))*)\s*=""")
+_INLINE_KEY_RE = re.compile(r"""[{,]\s*([A-Za-z0-9_\-]+|"[^"]*"|'[^']*')\s*=""")
+
+
+def _split_dotted(text: str) -> list[str]:
+    parts = re.findall(r"""[A-Za-z0-9_\-]+|"[^"]*"|'[^']*'""", text)
+    return [p[1:-1] if p[:1] in "\"'" else p for p in parts]
+
+
+def key_lines(text: str) -> dict[str, int]:
+    """Map each dotted key path (``"target.digital.fs"``) and table header to its 1-based line.
+
+    A small scanner, not a TOML parser: it understands table headers, dotted keys, inline
+    tables on one line, and skips multi-line strings. Good enough to point at a line.
+    """
+    lines: dict[str, int] = {}
+    prefix: list[str] = []
+    in_multiline: str | None = None
+    for number, raw in enumerate(text.splitlines(), start=1):
+        line = raw
+        if in_multiline:
+            if line.count(in_multiline) % 2 == 1:
+                in_multiline = None
+            continue
+        header = _HEADER_RE.match(line)
+        if header and "=" not in header.group(2):
+            prefix = _split_dotted(header.group(2))
+            for i in range(1, len(prefix) + 1):
+                lines.setdefault(".".join(prefix[:i]), number)
+            continue
+        m = _KEY_RE.match(line)
+        if not m:
+            continue
+        path = prefix + _split_dotted(m.group(1))
+        key = ".".join(path)
+        lines.setdefault(key, number)
+        for i in range(1, len(path)):
+            lines.setdefault(".".join(path[:i]), number)
+        rest = line[m.end():]
+        for inner in _INLINE_KEY_RE.finditer(rest):
+            name = inner.group(1).strip("\"'")
+            lines.setdefault(f"{key}.{name}", number)
+        for quote in ('"""', "'''"):
+            if rest.count(quote) % 2 == 1:
+                in_multiline = quote
+    return lines
+
+
+def _where(file_name: str, lines: dict, key: str) -> str:
+    probe = key
+    while probe:
+        if probe in lines:
+            return f"{file_name}:{lines[probe]}"
+        probe = probe.rpartition(".")[0]
+    return f"{file_name}:1"
+
+
+# ----------------------------------------------------------------------------- loading
+class _Ctx:
+    """Carries the file name and line map so every check can name file, line and key."""
+
+    def __init__(self, path: Path, text: str):
+        self.path = path
+        self.name = path.name
+        self.lines = key_lines(text)
+
+    def where(self, key: str) -> str:
+        return _where(self.name, self.lines, key)
+
+    def error(self, key: str, message: str) -> InputError:
+        return InputError(message, where=self.where(key), key=key)
+
+    # -- typed readers -------------------------------------------------------------
+    def value(self, table: dict, key: str, dotted: str, kind: str, default=None, *, positive=False,
+              allow_zero=True):
+        from convert.values import parse_value
+
+        if key not in table:
+            return default
+        raw = table[key]
+        if isinstance(raw, str) and kind == "number":
+            raw = re.sub(r"\s*(dB|deg|°)\s*$", "", raw)
+        try:
+            value = parse_value(raw, kind, field=dotted)
+        except InputError as exc:
+            raise InputError(exc.message, where=self.where(dotted), key=dotted) from None
+        if positive and not (value > 0 or (allow_zero and value == 0)):
+            need = "zero or positive" if allow_zero else "positive"
+            raise self.error(dotted, f"expected a {need} value, found {raw!r}")
+        return value
+
+    def pair(self, table: dict, key: str, dotted: str, kind: str, default=None, *, ordered=True, positive=False):
+        if key not in table:
+            return default
+        raw = table[key]
+        if not isinstance(raw, list) or len(raw) != 2:
+            raise self.error(dotted, f"expected a list of two values [low, high], found {raw!r}")
+        low = self.value({"v": raw[0]}, "v", dotted, kind)
+        high = self.value({"v": raw[1]}, "v", dotted, kind)
+        if positive and not (low > 0 and high > 0):
+            raise self.error(dotted, f"expected two positive values, found {raw!r}")
+        if ordered and not low < high:
+            raise self.error(dotted, f"expected low < high, found {raw!r}")
+        return (low, high)
+
+    def text(self, table: dict, key: str, dotted: str, default=None, choices=None):
+        if key not in table:
+            return default
+        raw = table[key]
+        if not isinstance(raw, str) or not raw.strip():
+            raise self.error(dotted, f"expected text, found {raw!r}")
+        if choices is not None and raw not in choices:
+            hint = _did_you_mean(raw, choices)
+            raise self.error(dotted, f"expected one of {', '.join(choices)}, found {raw!r}{hint}")
+        return raw
+
+    def table(self, parent: dict, key: str, dotted: str) -> dict | None:
+        if key not in parent:
+            return None
+        raw = parent[key]
+        if not isinstance(raw, dict):
+            raise self.error(dotted, f"expected a table ([{dotted}] or {{ ... }}), found {raw!r}")
+        return raw
+
+    def check_keys(self, table: dict, allowed: dict, dotted: str) -> None:
+        for key in table:
+            if key not in allowed:
+                full = f"{dotted}.{key}" if dotted else key
+                hint = _did_you_mean(key, list(allowed))
+                where = f"[{dotted}]" if dotted else "the top level"
+                raise InputError(f"unknown key {key!r} in {where}{hint}", where=self.where(full), key=full)
+
+
+def _did_you_mean(word: str, choices) -> str:
+    close = difflib.get_close_matches(str(word), [str(c) for c in choices], n=1, cutoff=0.6)
+    if not close:
+        lowered = {str(c).lower(): str(c) for c in choices}
+        if str(word).lower() in lowered:
+            close = [lowered[str(word).lower()]]
+    return f" (did you mean {close[0]!r}?)" if close else ""
+
+
+def load_case(path: str | Path) -> Case:
+    """Read and validate the case file at ``path``. Raises :class:`InputError` naming
+    ``file:line`` and the key for anything wrong."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise InputError("no such case file", where=str(path)) from None
+    except IsADirectoryError:
+        raise InputError("expected a case file (TOML), found a folder", where=str(path)) from None
+    except UnicodeDecodeError as exc:
+        raise InputError(f"the file is not UTF-8 text ({exc.reason})", where=str(path)) from None
+    except OSError as exc:
+        raise InputError(f"cannot read the case file ({exc.strerror})", where=str(path)) from None
+    return parse_case(text, path)
+
+
+def parse_case(text: str, path: str | Path = "case.toml") -> Case:
+    """Validate case-file ``text``; ``path`` names it in errors and anchors relative file names."""
+    import tomllib
+
+    path = Path(path)
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        message = str(exc)
+        m = re.search(r"\(at line (\d+), column (\d+)\)", message)
+        where = f"{path.name}:{m.group(1)}" if m else path.name
+        message = re.sub(r"\s*\(at line \d+, column \d+\)", "", message)
+        raise InputError(f"not valid TOML: {message}", where=where) from None
+    ctx = _Ctx(path, text)
+    ctx.check_keys(data, SCHEMA, "")
+
+    case_table = ctx.table(data, "case", "case") or {}
+    ctx.check_keys(case_table, SCHEMA["case"], "case")
+    title = ctx.text(case_table, "title", "case.title", default=path.stem)
+    description = ctx.text(case_table, "description", "case.description", default="")
+
+    source = _read_source(ctx, data)
+    digital, circuit = _read_targets(ctx, data, source)
+    plant = _read_plant(ctx, data)
+    signals = _read_signals(ctx, data)
+    criteria = _read_criteria(ctx, data)
+    return Case(path=path, name=path.stem, title=title, description=description, source=source,
+                digital=digital, circuit=circuit, plant=plant, signals=signals, criteria=criteria,
+                lines=ctx.lines)
+
+
+def _read_source(ctx: _Ctx, data: dict) -> Source:
+    table = ctx.table(data, "source", "source")
+    if table is None:
+        raise InputError("missing [source]: the controller that exists now (expression, pid, digital, card or "
+                         "netlist)", where=f"{ctx.name}:1", key="source")
+    ctx.check_keys(table, SCHEMA["source"], "source")
+    given = [k for k in SOURCE_FORMS if k in table]
+    if len(given) != 1:
+        found = ", ".join(given) if given else "none"
+        raise ctx.error("source", f"give exactly one of {', '.join(SOURCE_FORMS)}; found {found}")
+    form = given[0]
+    key = f"source.{form}"
+    where = ctx.where(key)
+    if form == "expression":
+        text = ctx.text(table, "expression", key)
+        from convert.controller import from_expression
+
+        controller = from_expression(text, label=f"{where}: {key}")
+        if controller.is_digital:
+            raise ctx.error(key, "a source expression is in s; give a digital source as [source.digital] "
+                                 "with b, a and fs")
+        return Source(form, {"expression": text, "controller": controller}, where)
+    if form == "pid":
+        pid = ctx.table(table, "pid", key)
+        if not pid:
+            raise ctx.error(key, "expected PID settings, e.g. pid = { kc = 2, ti = \"30 s\" }")
+        return Source(form, {"settings": dict(pid)}, where)
+    if form == "digital":
+        dig = ctx.table(table, "digital", key)
+        ctx.check_keys(dig, SCHEMA["source"]["digital"], key)
+        out = {}
+        for coef in ("b", "a"):
+            raw = dig.get(coef)
+            if not isinstance(raw, list) or not raw:
+                raise ctx.error(f"{key}.{coef}", f"expected a list of numbers (ascending powers of z^-1), found {raw!r}")
+            out[coef] = [ctx.value({"v": v}, "v", f"{key}.{coef}", "number") for v in raw]
+        if out["a"][0] == 0:
+            raise ctx.error(f"{key}.a", "a[0] must be non-zero (it multiplies the newest output)")
+        if "fs" not in dig:
+            raise ctx.error(key, "missing fs: the sample rate of these coefficients, e.g. fs = \"1 kHz\"")
+        out["fs_hz"] = ctx.value(dig, "fs", f"{key}.fs", "hz", positive=True, allow_zero=False)
+        return Source(form, out, where)
+    if form == "card":
+        card = ctx.table(table, "card", key)
+        ctx.check_keys(card, SCHEMA["source"]["card"], key)
+        topology = ctx.text(card, "topology", f"{key}.topology")
+        if topology is None:
+            raise ctx.error(key, "missing topology: the card's stage topology (see `loopshift card --help`)")
+        parts_raw = ctx.table(card, "parts", f"{key}.parts") or {}
+        if not parts_raw:
+            raise ctx.error(key, "missing parts: e.g. parts = { R1 = \"47k\", C1 = \"1 uF\" }")
+        parts = {}
+        for name, value in parts_raw.items():
+            kind = {"R": "ohm", "C": "farad", "L": "henry"}.get(name[:1].upper(), "number")
+            parts[name] = ctx.value(parts_raw, name, f"{key}.parts.{name}", kind, positive=True, allow_zero=False)
+        tols = _read_tolerances(ctx, card, f"{key}.tolerances", default={})
+        return Source(form, {"topology": topology, "parts": parts, "tolerances": tols}, where)
+    # netlist: a table, or a plain file name
+    raw = table["netlist"]
+    net = {"file": raw} if isinstance(raw, str) else ctx.table(table, "netlist", key)
+    ctx.check_keys(net, SCHEMA["source"]["netlist"], key)
+    file_name = ctx.text(net, "file", f"{key}.file")
+    if file_name is None:
+        raise ctx.error(key, "missing file: the netlist's path, relative to the case file")
+    file_path = (ctx.path.parent / file_name)
+    if not file_path.is_file():
+        raise ctx.error(f"{key}.file", f"no such netlist file {str(file_path)!r} (paths are relative to the case file)")
+    out = {
+        "file": file_path,
+        "input": ctx.text(net, "input", f"{key}.input", default="VIN"),
+        "output": ctx.text(net, "output", f"{key}.output", default="out"),
+        "setpoint": ctx.text(net, "setpoint", f"{key}.setpoint"),
+        "measurement": ctx.text(net, "measurement", f"{key}.measurement"),
+    }
+    if (out["setpoint"] is None) != (out["measurement"] is None):
+        raise ctx.error(key, "give both setpoint and measurement source names, or neither")
+    return Source("netlist", out, where)
+
+
+def _read_tolerances(ctx: _Ctx, table: dict, dotted: str, default) -> dict:
+    raw = ctx.table(table, "tolerances", dotted)
+    if raw is None:
+        return dict(default)
+    out = {}
+    for name in raw:
+        value = ctx.value(raw, name, f"{dotted}.{name}", "ratio", positive=True)
+        if value >= 1:
+            raise ctx.error(f"{dotted}.{name}", f"a tolerance is a fraction below 100 %, found {raw[name]!r}")
+        out[name] = value
+    return out
+
+
+def _method_names() -> tuple[str, ...]:
+    try:
+        from convert.digital import METHODS
+    except ImportError:  # the digital package not built yet: accept the documented names
+        return ("zoh", "foh", "tustin", "matched", "impulse", "forward-euler", "backward-euler")
+    return tuple(METHODS)
+
+
+def _read_targets(ctx: _Ctx, data: dict, source: Source):
+    table = ctx.table(data, "target", "target")
+    if not table:
+        raise InputError("missing [target.digital] or [target.circuit]: the form(s) to produce",
+                         where=f"{ctx.name}:1", key="target")
+    ctx.check_keys(table, SCHEMA["target"], "target")
+    digital = circuit = None
+    dig = ctx.table(table, "digital", "target.digital")
+    if dig is not None:
+        ctx.check_keys(dig, SCHEMA["target"]["digital"], "target.digital")
+        key = "target.digital"
+        if "fs" not in dig:
+            raise ctx.error(key, "missing fs: the sample rate(s), e.g. fs = \"1 kHz\" or fs = [\"500 Hz\", \"2 kHz\"]")
+        raw_fs = dig["fs"] if isinstance(dig["fs"], list) else [dig["fs"]]
+        if not raw_fs:
+            raise ctx.error(f"{key}.fs", "expected at least one sample rate")
+        fs = tuple(ctx.value({"v": v}, "v", f"{key}.fs", "hz", positive=True, allow_zero=False) for v in raw_fs)
+        raw_methods = dig.get("methods", ["tustin"])
+        if isinstance(raw_methods, str):
+            raw_methods = [raw_methods]
+        if not isinstance(raw_methods, list) or not raw_methods:
+            raise ctx.error(f"{key}.methods", f"expected a list of method names, found {raw_methods!r}")
+        known = _method_names()
+        methods = tuple(ctx.text({"v": m}, "v", f"{key}.methods", choices=known) for m in raw_methods)
+        if "delay" in dig and "delay_samples" in dig:
+            raise ctx.error(f"{key}.delay_samples", "give delay (seconds) or delay_samples, not both")
+        delay_s = ctx.value(dig, "delay", f"{key}.delay", "second", 0.0, positive=True)
+        delay_samples = ctx.value(dig, "delay_samples", f"{key}.delay_samples", "number", None, positive=True)
+        limits = ctx.pair(dig, "output_limits", f"{key}.output_limits", "number")
+        n_filter = ctx.value(dig, "derivative_filter", f"{key}.derivative_filter", "number", None,
+                             positive=True, allow_zero=False)
+        word = ctx.text(dig, "word_format", f"{key}.word_format", default="float64", choices=WORD_FORMATS)
+        structure = ctx.text(dig, "structure", f"{key}.structure", default="direct", choices=("direct",))
+        digital = DigitalTarget(fs_hz=fs, methods=methods, prewarp_hz=ctx.value(dig, "prewarp", f"{key}.prewarp", "hz",
+                                                                                None, positive=True, allow_zero=False),
+                                delay_s=delay_s, delay_samples=delay_samples, output_limits=limits,
+                                derivative_filter=n_filter, word_format=word, structure=structure,
+                                where=ctx.where(key))
+    cir = ctx.table(table, "circuit", "target.circuit")
+    if cir is not None:
+        key = "target.circuit"
+        ctx.check_keys(cir, SCHEMA["target"]["circuit"], key)
+        series = ("E6", "E12", "E24", "E48", "E96", "E192")
+        draws = ctx.value(cir, "draws", f"{key}.draws", "number", 2000.0, positive=True)
+        seed = ctx.value(cir, "seed", f"{key}.seed", "number", 1.0, positive=True)
+        for name, v in (("draws", draws), ("seed", seed)):
+            if v != int(v):
+                raise ctx.error(f"{key}.{name}", f"expected a whole number, found {cir[name]!r}")
+        circuit = CircuitTarget(
+            topology=ctx.text(cir, "topology", f"{key}.topology", default="auto"),
+            resistors=ctx.text(cir, "resistors", f"{key}.resistors", default="E96", choices=series),
+            capacitors=ctx.text(cir, "capacitors", f"{key}.capacitors", default="E12", choices=series),
+            tolerances=_read_tolerances(ctx, cir, f"{key}.tolerances", default={"R": 0.01, "C": 0.05}),
+            resistor_range=ctx.pair(cir, "resistor_range", f"{key}.resistor_range", "ohm", (1e3, 1e6), positive=True),
+            capacitor_range=ctx.pair(cir, "capacitor_range", f"{key}.capacitor_range", "farad", (100e-12, 10e-6),
+                                     positive=True),
+            draws=int(draws), seed=int(seed),
+            opamp_gbw_hz=ctx.value(cir, "opamp_gbw", f"{key}.opamp_gbw", "hz", None, positive=True, allow_zero=False),
+            where=ctx.where(key),
+        )
+    if digital is None and circuit is None:
+        raise ctx.error("target", "give [target.digital] and/or [target.circuit]")
+    if source.form == "digital" and digital is not None and circuit is None:
+        pass  # a digital source moved to another rate or method is allowed
+    return digital, circuit
+
+
+def _read_plant(ctx: _Ctx, data: dict) -> Plant | None:
+    table = ctx.table(data, "plant", "plant")
+    if table is None:
+        return None
+    ctx.check_keys(table, SCHEMA["plant"], "plant")
+    text = ctx.text(table, "model", "plant.model")
+    if text is None:
+        raise ctx.error("plant", "missing model: the plant's transfer function in s, e.g. model = \"2/((10s+1)(2s+1))\"")
+    from convert.controller import from_expression
+
+    model = from_expression(text, label=f"{ctx.where('plant.model')}: plant.model")
+    if model.is_digital:
+        raise ctx.error("plant.model", "the plant is a continuous process: write its model in s")
+    if not model.is_proper:
+        raise ctx.error("plant.model", f"the plant model must be proper (no more zeros than poles), found {text!r}")
+    dead = ctx.value(table, "dead_time", "plant.dead_time", "second", 0.0, positive=True)
+    return Plant(model=model, expression=text, dead_time_s=dead)
+
+
+def _read_signals(ctx: _Ctx, data: dict) -> Signals:
+    table = ctx.table(data, "signals", "signals") or {}
+    ctx.check_keys(table, SCHEMA["signals"], "signals")
+    step = ctx.value(table, "setpoint_step", "signals.setpoint_step", "number", 1.0)
+    dist = ctx.value(table, "disturbance_step", "signals.disturbance_step", "number", 1.0)
+    for name, v in (("setpoint_step", step), ("disturbance_step", dist)):
+        if v == 0:
+            raise ctx.error(f"signals.{name}", "a step of size zero tests nothing; give a non-zero size")
+    duration = ctx.value(table, "duration", "signals.duration", "second", None, positive=True, allow_zero=False)
+    out_range = ctx.pair(table, "output_range", "signals.output_range", "number")
+    return Signals(setpoint_step=step, disturbance_step=dist, duration_s=duration, output_range=out_range)
+
+
+def _read_criteria(ctx: _Ctx, data: dict) -> Criteria:
+    table = ctx.table(data, "criteria", "criteria")
+    if table is None:
+        raise InputError("missing [criteria]: at least band = [\"low Hz\", \"high Hz\"] and one limit",
+                         where=f"{ctx.name}:1", key="criteria")
+    ctx.check_keys(table, SCHEMA["criteria"], "criteria")
+    if "band" not in table:
+        raise ctx.error("criteria", "missing band: the frequency range compared, e.g. band = [\"10 mHz\", \"1 Hz\"]")
+    band = ctx.pair(table, "band", "criteria.band", "hz", positive=True)
+    values = {}
+    for key in SCHEMA["criteria"]:
+        if key == "band":
+            continue
+        kind = "ratio" if key.endswith("deviation") else "number"
+        values[key] = ctx.value(table, key, f"criteria.{key}", kind, None, positive=True)
+    return Criteria(band_hz=band, **values)
+
+
+# ----------------------------------------------------------------------------- source controller
+@dataclass(frozen=True)
+class SourceInfo:
+    """The built source: the ``controller`` (error -> output), PID settings where known, and
+    notes (e.g. clamps found in a netlist, the card's part list)."""
+
+    controller: Any
+    pid: Any = None
+    parts: dict | None = None
+    tolerances: dict | None = None
+    topology: str | None = None
+    notes: tuple[str, ...] = ()
+    extra: dict = field(default_factory=dict)
+
+
+def source_controller(case: Case) -> SourceInfo:
+    """Build the source controller of ``case`` (imports PID, circuit or netlist code lazily).
+
+    Errors from those modules are re-raised with the case file's line of the source."""
+    src = case.source
+    try:
+        return _build_source(case, src)
+    except LoopshiftError as exc:
+        if exc.where and (exc.where.startswith(case.path.name) or exc.where.startswith(str(src.data.get("file", "")))):
+            raise
+        key = f"source.{src.form}" + (f".{exc.key}" if exc.key and not str(exc.key).startswith("source") else "")
+        raise type(exc)(exc.message, where=case.where(key), key=key) from None
+
+
+def _build_source(case: Case, src: Source) -> SourceInfo:
+    if src.form == "expression":
+        return SourceInfo(controller=src.data["controller"])
+    if src.form == "pid":
+        from convert.pid import pid_from_mapping, pid_from_controller  # noqa: F401
+
+        settings = pid_from_mapping(src.data["settings"], where=src.where)
+        return SourceInfo(controller=settings.to_controller(), pid=settings)
+    if src.form == "digital":
+        from convert.controller import Controller
+
+        ctrl = Controller.from_b_a(src.data["b"], src.data["a"], 1.0 / src.data["fs_hz"], name="firmware")
+        return SourceInfo(controller=ctrl)
+    if src.form == "card":
+        from convert.circuit.topologies import get_topology
+
+        topo = get_topology(src.data["topology"])
+        ctrl = topo.controller_from_parts(dict(src.data["parts"]))
+        return SourceInfo(controller=ctrl, parts=dict(src.data["parts"]), tolerances=src.data["tolerances"],
+                          topology=src.data["topology"])
+    # netlist
+    from convert.circuit import netlist as netlist_mod
+
+    file_path: Path = src.data["file"]
+    text = file_path.read_text(encoding="utf-8")
+    net = netlist_mod.read_netlist(text, source=str(file_path.name))
+    notes: list[str] = []
+    extra: dict = {"netlist_file": str(file_path)}
+    if src.data["setpoint"]:
+        ctrl, notes2, extra2 = _two_input_card(net, src.data)
+        notes += notes2
+        extra.update(extra2)
+    else:
+        from convert.circuit.mna import transfer_function
+
+        ctrl = transfer_function(net, input=src.data["input"], output=src.data["output"])
+    for attr in ("notes", "clamps", "warnings"):
+        items = getattr(net, attr, None)
+        if items:
+            notes += [str(x) for x in items]
+    return SourceInfo(controller=ctrl, notes=tuple(notes), extra=extra)
+
+
+def _two_input_card(net, data) -> tuple[Any, list[str], dict]:
+    """Feedback controller of a card with separate setpoint and measurement inputs: the
+    transfer function from the measurement, sign-flipped (error = setpoint − measurement)."""
+    from convert.circuit.mna import transfer_function
+
+    from_meas = transfer_function(net, input=data["measurement"], output=data["output"])
+    from_sp = transfer_function(net, input=data["setpoint"], output=data["output"])
+    ctrl = from_meas.scaled(-1.0)
+    notes = ["feedback controller taken from the measurement input (sign reversed: error = setpoint − measurement)"]
+    return ctrl, notes, {"setpoint_path": from_sp}
+
+
+def case_summary(case: Case) -> dict:
+    """Plain data describing the case (for results.json)."""
+    src = {"form": case.source.form}
+    for k, v in case.source.data.items():
+        if k == "controller":
+            continue
+        src[k] = str(v) if isinstance(v, Path) else v
+    out = {
+        "file": str(case.path),
+        "title": case.title,
+        "description": case.description,
+        "source": src,
+        "targets": {},
+        "plant": None,
+        "signals": case.signals.__dict__.copy(),
+        "criteria": case.criteria.as_dict(),
+    }
+    if case.digital:
+        out["targets"]["digital"] = {k: v for k, v in case.digital.__dict__.items() if k != "where"}
+    if case.circuit:
+        out["targets"]["circuit"] = {k: v for k, v in case.circuit.__dict__.items() if k != "where"}
+    if case.plant:
+        out["plant"] = {"model": case.plant.expression, "dead_time_s": case.plant.dead_time_s}
+    return out
+
+
+def _finite(x: float) -> bool:
+    return x is not None and math.isfinite(x)
