@@ -35,7 +35,7 @@ SCHEMA: dict[str, Any] = {
     "source": {
         "expression": 1,
         "pid": None,
-        "digital": {"b": 1, "a": 1, "fs": 1},
+        "digital": {"b": 1, "a": 1, "fs": 1, "method": 1},
         "card": {"topology": 1, "parts": None, "tolerances": None},
         "netlist": {"file": 1, "input": 1, "output": 1, "setpoint": 1, "measurement": 1},
     },
@@ -413,6 +413,7 @@ def _read_source(ctx: _Ctx, data: dict) -> Source:
         if "fs" not in dig:
             raise ctx.error(key, "missing fs: the sample rate of these coefficients, e.g. fs = \"1 kHz\"")
         out["fs_hz"] = ctx.value(dig, "fs", f"{key}.fs", "hz", positive=True, allow_zero=False)
+        out["method"] = ctx.text(dig, "method", f"{key}.method", default="tustin", choices=_method_names())
         return Source(form, out, where)
     if form == "card":
         card = ctx.table(table, "card", key)
@@ -612,10 +613,11 @@ def source_controller(case: Case) -> SourceInfo:
     try:
         return _build_source(case, src)
     except LoopshiftError as exc:
-        if exc.where and (exc.where.startswith(case.path.name) or exc.where.startswith(str(src.data.get("file", "")))):
-            raise
-        key = f"source.{src.form}" + (f".{exc.key}" if exc.key and not str(exc.key).startswith("source") else "")
-        raise type(exc)(exc.message, where=case.where(key), key=key) from None
+        if exc.where and not exc.where.startswith(case.path.name):
+            raise  # e.g. a netlist error already names the netlist file and its line
+        key = str(exc.key or "")
+        full = key if key.startswith("source") else f"source.{src.form}" + (f".{key}" if key else "")
+        raise type(exc)(exc.message, where=case.where(full), key=full) from None
 
 
 def _build_source(case: Case, src: Source) -> SourceInfo:

@@ -1,0 +1,139 @@
+"""The error budget: each error source's own contribution, then the total.
+
+A row compares a *candidate* response (the row's source switched on) with the row's *reference*
+response (everything else the same), over the case's band:
+
+* max |gain error| (dB) and max |phase error| (deg) over the band (via
+  :func:`convert.compare.frequency.compare_responses`);
+* where a plant is given, the change the source causes in the loop: phase margin (deg), gain
+  margin (dB) and sensitivity peak (dB), candidate minus reference.
+
+Rows with many candidate responses (Monte Carlo draws, shape (N, F)) report a percentile of the
+per-draw figures (absolute values for errors; the signed change of largest magnitude at that
+percentile for loop figures). What "alone" means for each row is documented in docs/report.md
+and repeated in each row's ``note``.
+
+Pure functions over plain arrays: the caller evaluates the responses.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Sequence
+
+import numpy as np
+
+from convert.compare.frequency import compare_responses
+
+#: Row keys in table order, with their labels.
+ROWS: tuple[tuple[str, str], ...] = (
+    ("discretization", "Discretization method"),
+    ("hold_and_delay", "Sample-and-hold and computation delay"),
+    ("word_format", "Coefficient word format"),
+    ("series_rounding", "Rounding to series values"),
+    ("tolerances", "Part tolerances"),
+    ("derivative_filter", "Derivative filter"),
+    ("opamp_gbw", "Op-amp gain-bandwidth"),
+    ("total", "Total (everything on)"),
+)
+ROW_LABELS = dict(ROWS)
+DIGITAL_ROWS = ("discretization", "hold_and_delay", "word_format", "derivative_filter")
+CIRCUIT_ROWS = ("series_rounding", "tolerances", "derivative_filter", "opamp_gbw")
+
+
+@dataclass(frozen=True)
+class BudgetRow:
+    """One line of the budget. ``applicable`` False rows carry only ``note`` (why not)."""
+
+    key: str
+    label: str
+    applicable: bool
+    note: str
+    max_gain_error_db: float | None = None
+    max_gain_error_at_hz: float | None = None
+    max_phase_error_deg: float | None = None
+    max_phase_error_at_hz: float | None = None
+    delta_phase_margin_deg: float | None = None
+    delta_gain_margin_db: float | None = None
+    delta_sensitivity_peak_db: float | None = None
+    percentile: float | None = None
+
+    def as_dict(self) -> dict:
+        return dict(self.__dict__)
+
+
+@dataclass(frozen=True)
+class LoopSpec:
+    """What a row needs for its loop figures: a dense grid (Hz) and the margins function
+    ``margins(responses (N, F)) -> dict of arrays`` (see
+    :func:`convert.compare.loop.margins_of_responses`)."""
+
+    f_hz: np.ndarray
+    margins: object
+
+
+def not_applicable(key: str, why: str) -> BudgetRow:
+    return BudgetRow(key=key, label=ROW_LABELS[key], applicable=False, note=f"not applicable: {why}")
+
+
+def _pick(values: np.ndarray, percentile: float | None) -> float | None:
+    """The percentile of |values| (or the single value), keeping the sign of the draw nearest it."""
+    v = np.asarray(values, dtype=float).ravel()
+    v = v[np.isfinite(v)]
+    if v.size == 0:
+        return None
+    if v.size == 1 or percentile is None:
+        return float(v[np.argmax(np.abs(v))])
+    level = np.percentile(np.abs(v), percentile)
+    i = int(np.argmin(np.abs(np.abs(v) - level)))
+    return float(v[i])
+
+
+def error_row(key: str, band_f_hz: Sequence[float], reference: np.ndarray, candidate: np.ndarray, *, note: str,
+              loop: LoopSpec | None = None, loop_reference: np.ndarray | None = None,
+              loop_candidate: np.ndarray | None = None, percentile: float | None = None) -> BudgetRow:
+    """A budget row from responses on the band grid (``reference`` (F,), ``candidate`` (F,) or
+    (N, F)) and, optionally, on the loop grid (``loop_reference`` (F2,), ``loop_candidate``
+    (F2,) or (N, F2)) for the margin changes."""
+    f = np.asarray(band_f_hz, dtype=float)
+    cand = np.atleast_2d(candidate)
+    ref = np.asarray(reference, dtype=complex)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = cand / ref[None, :]
+        gain = np.abs(20 * np.log10(np.abs(ratio)))
+    phase = np.abs(np.degrees(np.angle(ratio)))
+    gain = np.nan_to_num(gain, nan=np.inf)
+    phase = np.nan_to_num(phase, nan=180.0)
+    if cand.shape[0] == 1:
+        err = compare_responses(ref, cand[0], f)
+        g, g_at, p, p_at = err.max_gain_error_db, err.max_gain_error_at_hz, err.max_phase_error_deg, err.max_phase_error_at_hz
+        pct = None
+    else:
+        pct = 99.0 if percentile is None else percentile
+        g_draw, p_draw = gain.max(axis=1), phase.max(axis=1)
+        g = float(np.percentile(g_draw, pct))
+        p = float(np.percentile(p_draw, pct))
+        g_at = float(f[int(np.argmax(np.percentile(gain, pct, axis=0)))])
+        p_at = float(f[int(np.argmax(np.percentile(phase, pct, axis=0)))])
+    row = dict(key=key, label=ROW_LABELS[key], applicable=True, note=note, max_gain_error_db=g,
+               max_gain_error_at_hz=g_at, max_phase_error_deg=p, max_phase_error_at_hz=p_at, percentile=pct)
+    if loop is not None and loop_reference is not None and loop_candidate is not None:
+        m_ref = loop.margins(np.atleast_2d(loop_reference))
+        m_cand = loop.margins(np.atleast_2d(loop_candidate))
+        for name, field in (("phase_margin_deg", "delta_phase_margin_deg"), ("gain_margin_db", "delta_gain_margin_db"),
+                            ("sensitivity_peak_db", "delta_sensitivity_peak_db")):
+            row[field] = _pick(m_cand[name] - m_ref[name][0], pct)
+    return BudgetRow(**row)
+
+
+def assemble(rows: dict[str, BudgetRow], applicable_keys: Sequence[str], form: str) -> list[BudgetRow]:
+    """All rows in table order: the given ones, and "not applicable" for the rest."""
+    out = []
+    for key, _ in ROWS:
+        if key in rows:
+            out.append(rows[key])
+        elif key in applicable_keys:
+            out.append(not_applicable(key, "not switched on in this case"))
+        else:
+            out.append(not_applicable(key, f"does not arise in a {form} target"))
+    return out

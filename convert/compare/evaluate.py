@@ -1,0 +1,355 @@
+"""Run everything a case asks for: build the source, realize each target, and compare.
+
+:func:`evaluate_case` returns :class:`CaseResults` — plain data (numbers, arrays, controllers)
+that the report writers render. No drawing and no printing here.
+
+Reference: every realization is compared with the **source as the loop sees it** (an analog
+source as is; a digital source through its own zero-order hold).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any, Callable
+
+import numpy as np
+
+from convert.compare import budget as bud
+from convert.compare.frequency import hold_and_delay_factor, log_grid, response_seen_from_loop
+from convert.compare.loop import (LoopResponse, Margins, default_duration, loop_margins, margin_grid,
+                                  margins_of_responses, response_deviation, simulate_loop)
+from convert.compare.rate import RateAdvice, advise
+from convert.compare.verdict import Verdict, judge
+from convert.controller import Controller
+from convert.errors import InputError, LoopshiftError, UnrealizableError
+
+CAUTIONS = (
+    "Verify the new form on a bench or in simulation before a live swap.",
+    "Plan a bumpless transfer: match the new controller's output and state to the running one at switch-over.",
+    "Keep safety interlocks and safety functions independent of this controller.",
+    "Follow the site's change procedure, local codes and licensed practice.",
+    "This tool computes; it does not certify.",
+)
+
+
+@dataclass
+class Realization:
+    """One target form built from the source, with everything measured about it."""
+
+    name: str
+    form: str  # "digital" or "circuit"
+    controller: Controller
+    details: dict
+    budget: list
+    seen: Callable[[np.ndarray], np.ndarray]
+    warnings: list[str] = field(default_factory=list)
+    margins: Margins | None = None
+    step: LoopResponse | None = None
+    disturbance: LoopResponse | None = None
+    figures: dict = field(default_factory=dict)
+    band: dict | None = None  # Monte Carlo band for circuits
+    files: dict = field(default_factory=dict)  # name -> bytes or text
+
+
+@dataclass
+class CaseResults:
+    case: Any
+    source: Any  # convert.case.SourceInfo
+    reference: Controller  # the source as a controller (digital or analog)
+    band_f_hz: np.ndarray
+    realizations: list[Realization]
+    rate_advice: list[RateAdvice]
+    verdict: Verdict
+    source_margins: Margins | None = None
+    source_step: LoopResponse | None = None
+    source_disturbance: LoopResponse | None = None
+    duration_s: float | None = None
+    skipped: list[str] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+    draws: int | None = None
+    seed: int | None = None
+
+    @property
+    def exit_code(self) -> int:
+        return 0 if self.verdict.overall == "pass" else 1
+
+
+class _Progress:
+    def __init__(self, callback):
+        self.callback = callback
+
+    def __call__(self, text: str) -> None:
+        if self.callback is not None:
+            self.callback(text)
+
+
+def planned_steps(case) -> int:
+    """How many progress steps :func:`evaluate_case` will report (for a progress bar)."""
+    n = 2
+    if case.digital:
+        n += len(case.digital.fs_hz) * len(case.digital.methods) + 1
+    if case.circuit:
+        n += 3
+    return n + 1
+
+
+def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], None] | None = None) -> CaseResults:
+    """Evaluate ``case`` (a :class:`convert.case.Case`). ``draws`` overrides the Monte Carlo
+    draw count of a circuit target. ``progress(text)`` is called once per finished step."""
+    from convert.case import source_controller
+
+    tick = _Progress(progress)
+    info = source_controller(case)
+    src: Controller = info.controller
+    crit = case.criteria
+    band = log_grid(crit.band_hz[0], crit.band_hz[1], 100)
+    if src.is_digital and src.fs_hz / 2 <= crit.band_hz[1]:
+        raise InputError(f"the band's top ({crit.band_hz[1]:g} Hz) must lie below the source's Nyquist frequency "
+                         f"({src.fs_hz / 2:g} Hz)", where=case.where("criteria.band"), key="criteria.band")
+    skipped: list[str] = []
+    notes: list[str] = list(info.notes)
+    analog_src = _analog_reference(case, src, notes)
+
+    plant = case.plant
+    src_margins = duration = src_step = src_dist = None
+    sim_src = None
+    if plant is not None:
+        src_margins = loop_margins(src, plant.model, plant.dead_time_s)
+        sim_src = _simulable(case, src, analog_src, notes)
+        duration = case.signals.duration_s or default_duration(analog_src if analog_src.is_proper else sim_src,
+                                                               plant.model, plant.dead_time_s)
+        if sim_src is not None:
+            src_step, src_dist = _simulate_pair(case, sim_src, duration, 0.0, case.signals.output_range)
+    else:
+        skipped += ["loop margins (gain margin, phase margin, crossover, sensitivity peak)",
+                    "closed-loop step and load-disturbance simulations",
+                    "phase-margin, gain-margin, sensitivity, step and disturbance criteria",
+                    "sample-rate rule of thumb (needs the crossover frequency)"]
+    tick("source and reference loop")
+
+    realizations: list[Realization] = []
+    advice: list[RateAdvice] = []
+    if case.digital:
+        realizations += _digital_realizations(case, src, analog_src, band, src_margins, duration, src_step,
+                                              src_dist, tick)
+        if not src.is_digital or True:
+            advice = _rate_advice(case, analog_src, src_margins)
+        tick("sample-rate advice")
+    if case.circuit:
+        from convert.compare.circuitwork import circuit_realization
+
+        realizations.append(circuit_realization(case, src, analog_src, band, src_margins, duration, src_step,
+                                                src_dist, draws=draws, tick=tick))
+
+    figures = {}
+    for r in realizations:
+        total = next(row for row in r.budget if row.key == "total")
+        f = {"max_gain_error_db": total.max_gain_error_db, "max_phase_error_deg": total.max_phase_error_deg}
+        if plant is not None:
+            f.update(_loop_figures(src_margins, r, src_step, src_dist, case))
+        figures[r.name] = f
+    verdict = judge(crit.as_dict(), figures, has_plant=plant is not None)
+    tick("verdict")
+    circuit_draws = None
+    if case.circuit:
+        circuit_draws = draws if draws is not None else case.circuit.draws
+    return CaseResults(case=case, source=info, reference=src, band_f_hz=band, realizations=realizations,
+                       rate_advice=advice, verdict=verdict, source_margins=src_margins, source_step=src_step,
+                       source_disturbance=src_dist, duration_s=duration, skipped=skipped, notes=notes,
+                       draws=circuit_draws, seed=case.circuit.seed if case.circuit else None)
+
+
+# ----------------------------------------------------------------------------- helpers
+def _analog_reference(case, src: Controller, notes: list[str]) -> Controller:
+    """The analog controller the targets are built from (a digital source mapped back)."""
+    if not src.is_digital:
+        return src
+    from convert.digital import to_analog  # type: ignore[attr-defined]
+
+    method = case.source.data.get("method", "tustin")
+    analog = to_analog(src, method)
+    notes.append(f"the firmware source was mapped back to an analog equivalent by the {method} inverse; "
+                 "the targets are built from that equivalent and compared with the firmware as it runs")
+    return analog
+
+
+def _filtered(case, analog: Controller) -> tuple[Controller, str | None]:
+    """The analog controller with the derivative filter a digital target adds (if any)."""
+    if analog.is_proper:
+        return analog, None
+    n = case.digital.derivative_filter if case.digital else None
+    if n is None:
+        raise UnrealizableError("the source controller is improper (a pure derivative) and cannot be sampled or "
+                                "simulated; add derivative_filter = 10 (N) to [target.digital]",
+                                where=case.where("target.digital"), key="target.digital.derivative_filter")
+    from convert.digital import add_derivative_filter  # type: ignore[attr-defined]
+
+    return add_derivative_filter(analog, n), f"derivative filter N = {n:g} added (filter time constant Td/N)"
+
+
+def _simulable(case, src: Controller, analog_src: Controller, notes: list[str]) -> Controller | None:
+    if src.is_proper:
+        return src
+    if case.digital and case.digital.derivative_filter:
+        filt, _ = _filtered(case, analog_src)
+        notes.append("the source is improper; its loop was simulated with the target's derivative filter added")
+        return filt
+    notes.append("the source is improper (pure derivative): its loop cannot be simulated; give a filtered source")
+    return None
+
+
+def _simulate_pair(case, controller: Controller, duration: float, delay_s: float, limits):
+    plant = case.plant
+    common = dict(duration_s=duration, delay_s=delay_s, output_limits=limits)
+    step = simulate_loop(controller, plant.model, plant.dead_time_s, kind="setpoint", step=case.signals.setpoint_step,
+                         **common)
+    dist = simulate_loop(controller, plant.model, plant.dead_time_s, kind="disturbance",
+                         step=case.signals.disturbance_step, **common)
+    return step, dist
+
+
+def _loop_spec(case, f_hz: np.ndarray) -> bud.LoopSpec | None:
+    if case.plant is None:
+        return None
+    plant = case.plant
+    return bud.LoopSpec(f_hz=f_hz, margins=lambda r: margins_of_responses(f_hz, r, plant.model, plant.dead_time_s))
+
+
+def _digital_realizations(case, src, analog_src, band, src_margins, duration, src_step, src_dist, tick):
+    from convert.digital import discretize
+
+    tgt = case.digital
+    out = []
+    filtered, filter_note = _filtered(case, analog_src)
+    ref_band = response_seen_from_loop(src, band, via="zpk")
+    for fs in tgt.fs_hz:
+        if fs / 2 <= case.criteria.band_hz[1]:
+            raise InputError(f"the sample rate {fs:g} Hz puts the Nyquist frequency at or below the band's top "
+                             f"({case.criteria.band_hz[1]:g} Hz); raise fs or lower the band",
+                             where=case.where("target.digital.fs"), key="target.digital.fs")
+        delay = tgt.delay_for(fs)
+        for method in tgt.methods:
+            try:
+                real = discretize(filtered, fs, method, prewarp_hz=tgt.prewarp_hz)
+            except LoopshiftError as exc:
+                raise type(exc)(exc.message, where=case.where("target.digital.methods"),
+                                key="target.digital.methods") from None
+            cd = real.controller
+            t = 1.0 / fs
+            warnings = list(real.warnings)
+            if tgt.word_format == "float32":
+                b32 = np.asarray(cd.b, dtype=np.float32).astype(float)
+                a32 = np.asarray(cd.a, dtype=np.float32).astype(float)
+                cq = Controller.from_b_a(b32, a32 / a32[0], t)
+            else:
+                cq = cd
+            name = f"{method} @ {_fmt_hz(fs)}"
+            loop_f = margin_grid(cq, case.plant.model) if case.plant else None
+            spec = _loop_spec(case, loop_f) if loop_f is not None else None
+
+            def lr(ctrl, delay_s=0.0, hold="none", f=loop_f):
+                return None if f is None else response_seen_from_loop(ctrl, f, delay_s=delay_s, hold=hold, via="zpk")
+
+            rows = {}
+            rows["discretization"] = bud.error_row(
+                "discretization", band, filtered.frequency_response(band, via="zpk"),
+                cd.frequency_response(band, via="zpk"),
+                note=f"{method} at {_fmt_hz(fs)} alone: C(e^jωT) against the analog controller it was made from; "
+                     "no hold, no delay, float64 coefficients",
+                loop=spec, loop_reference=lr(filtered), loop_candidate=lr(cd))
+            hold = hold_and_delay_factor
+            rows["hold_and_delay"] = bud.error_row(
+                "hold_and_delay", band, filtered.frequency_response(band, via="zpk"),
+                filtered.frequency_response(band, via="zpk") * hold(band, t, delay),
+                note=f"zero-order hold at {_fmt_hz(fs)} and {delay * 1e3:g} ms computation delay alone, applied to "
+                     "the analog controller",
+                loop=spec, loop_reference=lr(filtered),
+                loop_candidate=None if loop_f is None else filtered.frequency_response(loop_f, via="zpk") * hold(loop_f, t, delay))
+            if tgt.word_format != "float64":
+                rows["word_format"] = bud.error_row(
+                    "word_format", band, cd.frequency_response(band, via="poly"), cq.frequency_response(band, via="poly"),
+                    note=f"coefficients stored as {tgt.word_format} alone, against float64 (both in z, no hold)",
+                    loop=spec, loop_reference=lr(cd), loop_candidate=lr(cq))
+            else:
+                rows["word_format"] = bud.not_applicable("word_format", "float64 coefficients (the reference)")
+            if filter_note:
+                rows["derivative_filter"] = bud.error_row(
+                    "derivative_filter", band, analog_src.frequency_response(band, via="zpk"),
+                    filtered.frequency_response(band, via="zpk"), note=f"{filter_note}, alone, in the analog controller",
+                    loop=spec, loop_reference=lr(analog_src), loop_candidate=lr(filtered))
+            else:
+                rows["derivative_filter"] = bud.not_applicable("derivative_filter", "the source is proper; no filter added")
+            rows["total"] = bud.error_row(
+                "total", band, ref_band, response_seen_from_loop(cq, band, delay_s=delay, via="zpk"),
+                note="everything on: method, hold, delay, word format, filter; against the source as the loop sees it",
+                loop=spec, loop_reference=lr(src, hold="zoh"), loop_candidate=lr(cq, delay, "zoh"))
+            budget = bud.assemble(rows, bud.DIGITAL_ROWS, "digital")
+            details = {"method": method, "fs_hz": fs, "delay_s": delay, "prewarp_hz": tgt.prewarp_hz,
+                       "b": list(cq.b), "a": list(cq.a), "word_format": tgt.word_format,
+                       "difference_equation": getattr(real, "difference_equation", ""),
+                       "notes": list(getattr(real, "notes", ()))}
+            r = Realization(name=name, form="digital", controller=cq, details=details, budget=budget,
+                            seen=lambda f, c=cq, d=delay: response_seen_from_loop(c, f, delay_s=d, via="zpk"),
+                            warnings=warnings)
+            if case.plant is not None:
+                r.margins = loop_margins(cq, case.plant.model, case.plant.dead_time_s, delay_s=delay)
+                limits = tgt.output_limits or case.signals.output_range
+                try:
+                    r.step, r.disturbance = _simulate_pair(case, cq, duration, delay, limits)
+                except InputError as exc:
+                    r.warnings.append(f"time simulation skipped: {exc.message}")
+            out.append(r)
+            tick(f"digital {name}")
+    return out
+
+
+def _rate_advice(case, analog_src, src_margins) -> list[RateAdvice]:
+    from convert.digital import discretize
+
+    tgt = case.digital
+    crit = case.criteria
+    filtered, _ = _filtered(case, analog_src)
+    lag = crit.max_phase_margin_change_deg if crit.max_phase_margin_change_deg is not None else crit.max_phase_error_deg
+    fc = src_margins.crossover_hz if src_margins else None
+
+    def conv(c, fs, m):
+        return discretize(c, fs, m, prewarp_hz=tgt.prewarp_hz).controller
+
+    return [advise(filtered, m, conv, band_hz=crit.band_hz, max_gain_error_db=crit.max_gain_error_db,
+                   max_phase_error_deg=crit.max_phase_error_deg, max_lag_deg=lag if fc else None, crossover_hz=fc,
+                   delay_s=tgt.delay_s, delay_samples=tgt.delay_samples)
+            for m in tgt.methods]
+
+
+def _loop_figures(src_m: Margins, r: Realization, src_step, src_dist, case) -> dict:
+    f: dict = {}
+    m = r.margins
+    if m is None:
+        return f
+    for key, attr in (("max_phase_margin_change_deg", "phase_margin_deg"), ("max_gain_margin_change_db", "gain_margin_db"),
+                      ("max_sensitivity_peak_change_db", "sensitivity_peak_db")):
+        a, b = getattr(src_m, attr), getattr(m, attr)
+        if a is None and b is None:
+            f[key], f[f"{key}_note"] = 0.0, "neither loop has this figure"
+        elif a is None or b is None:
+            f[key] = None
+            f[f"{key}_note"] = f"{'source' if a is None else 'new'} loop has no {attr.replace('_', ' ')}"
+        else:
+            f[key] = b - a
+    if r.step is not None and src_step is not None:
+        f["max_step_deviation"] = response_deviation(src_step, r.step) / abs(case.signals.setpoint_step)
+    if r.disturbance is not None and src_dist is not None:
+        peak = float(np.max(np.abs(src_dist.y))) or 1.0
+        f["max_disturbance_deviation"] = response_deviation(src_dist, r.disturbance) / peak
+    return f
+
+
+def _fmt_hz(f: float) -> str:
+    from convert.values import format_value
+
+    return format_value(f, "hz")
+
+
+def _finite(x) -> bool:
+    return x is not None and math.isfinite(x)
