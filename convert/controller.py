@@ -320,8 +320,16 @@ def from_expression(text: str, *, fs_hz: float | None = None, label: str = "expr
     from convert.expr import parse_rational
 
     parsed = parse_rational(text, label=label)
-    num = [float(c) for c in parsed.num]
-    den = [float(c) for c in parsed.den]
+    try:
+        num = [float(c) for c in parsed.num]
+        den = [float(c) for c in parsed.den]
+    except OverflowError:
+        num = den = [math.inf]
+    if not all(math.isfinite(c) for c in num + den):
+        raise InputError("a coefficient is too large for a floating-point number (beyond about 1e308)", where=label)
+    if not any(num):
+        raise InputError("every numerator coefficient is too small for a floating-point number (below about 1e-308)",
+                         where=label)
     if parsed.variable == "z" or (parsed.variable is None and fs_hz is not None):
         if fs_hz is None:
             raise InputError("an expression in z needs a sample rate; give it with --fs (Hz)", where=label)

@@ -274,10 +274,17 @@ class _Parser:
                 raise self.error(close.column, f"expected ')', found {self.describe(close)}")
         return sign * value
 
+    def _number(self, tok: _Token) -> Fraction:
+        # Bound the size so a typo such as 1e999999999 is an error, not a huge exact integer.
+        mantissa, _, exp = tok.text.lower().partition("e")
+        if len(mantissa) > 200 or (exp and abs(int(exp)) > 400):
+            raise self.error(tok.column, f"the number {tok.text[:20]!r} is out of range (at most 200 digits, exponent ±400)")
+        return Fraction(tok.text)
+
     def atom(self) -> Rational:
         tok = self.take()
         if tok.kind == "num":
-            return _const(Fraction(tok.text))
+            return _const(self._number(tok))
         if tok.kind == "name":
             name = tok.text
             if name in ("s", "z"):
@@ -288,7 +295,7 @@ class _Parser:
             if len(name) > 1 and name[0] in "sz" and all(c in "sz" for c in name):
                 hint = f"; write products with '*' (e.g. {'*'.join(name)})"
             elif name.startswith("s") or name.startswith("z"):
-                hint = "; put '*' or a space between a variable and what follows"
+                hint = "; put '*' between a variable and what follows (e.g. s*2)"
             raise self.error(tok.column, f"unknown name {name!r}; use s (analog) or z / z^-1 (digital){hint}")
         if tok.kind == "op" and tok.text == "(":
             inner = self.expression()
