@@ -137,3 +137,82 @@ def compare_controllers(reference: Controller, candidate: Controller, f_hz: Sequ
     ref = response_seen_from_loop(reference, f_hz, hold=hold, via=via)
     cand = response_seen_from_loop(candidate, f_hz, delay_s=delay_s, hold=hold, via=via)
     return compare_responses(ref, cand, f_hz, gain_limit_db=gain_limit_db, phase_limit_deg=phase_limit_deg)
+
+
+# ---------------------------------------------------------------------------------------------
+# Added for the analog <-> digital conversions (helper "digital"): delay in seconds or samples,
+# the default band, and analog and digital responses on one grid.
+
+def delay_in_seconds(*, delay_s: float | None = None, delay_samples: float | None = None,
+                     fs_hz: float | None = None) -> float:
+    """The computation delay in seconds, given either in seconds or in samples (× 1/fs_hz).
+
+    Zero when neither is given. A negative delay, or both forms at once, is refused.
+    """
+    if delay_s is not None and delay_samples is not None:
+        raise InputError("give the delay in seconds or in samples, not both", key="delay")
+    if delay_samples is not None:
+        if fs_hz is None or not fs_hz > 0:
+            raise InputError("a delay in samples needs the sample rate (fs, Hz)", key="delay")
+        value = float(delay_samples) / float(fs_hz)
+    else:
+        value = 0.0 if delay_s is None else float(delay_s)
+    if not (np.isfinite(value) and value >= 0):
+        raise InputError(f"the delay must be zero or positive, found {value!r} s", key="delay")
+    return value
+
+
+def default_band_hz(controller: Controller, fs_hz: float) -> tuple[float, float]:
+    """The band a digital form is judged over: a decade below the controller's lowest corner
+    (zeros and poles other than s = 0; fs/1000 when it has none) up to fs/2 (Hz)."""
+    corners = controller.corner_frequencies_hz()
+    every = [f for f in corners.get("zeros", []) + corners.get("poles", []) if f > 0]
+    high = fs_hz / 2
+    low = min(every) / 10 if every else fs_hz / 1000
+    if not low < high / 10:
+        low = high / 100
+    return float(low), float(high)
+
+
+def comparison_grid(band_hz: tuple[float, float], fs_hz: float | None = None,
+                    points_per_decade: int = 100) -> np.ndarray:
+    """The log grid for a band; when the band reaches the Nyquist frequency fs/2, its top point is
+    set a hair below it (fs/2 · 0.999) so a digital zero at z = −1 (Tustin, matched) gives a finite
+    error figure instead of −∞ dB."""
+    low, high = band_hz
+    if fs_hz is not None and high >= fs_hz / 2:
+        high = fs_hz / 2 * 0.999
+    return log_grid(low, high, points_per_decade)
+
+
+@dataclass(frozen=True)
+class GridResponses:
+    """Analog and digital forms evaluated on one grid (Hz).
+
+    ``analog``: C(j2πf). ``digital``: C_d(e^{j2πfT}) alone (the discretization method's effect).
+    ``digital_seen``: the digital form as the analog loop sees it — times the zero-order hold of
+    the output and the computation delay ``delay_s`` (see :func:`hold_and_delay_factor`).
+    """
+
+    f_hz: np.ndarray
+    analog: np.ndarray
+    digital: np.ndarray
+    digital_seen: np.ndarray
+    delay_s: float
+
+
+def responses_on_grid(analog: Controller, digital: Controller, f_hz: Sequence[float], *, delay_s: float = 0.0,
+                      hold: str = "zoh", digital_response: np.ndarray | None = None,
+                      via: str = "poly") -> GridResponses:
+    """Evaluate an analog controller and a digital one on the same grid.
+
+    ``digital_response`` may carry a more accurate evaluation of the digital form (for example
+    from its directly mapped zeros and poles); otherwise the controller is evaluated ``via``.
+    """
+    if analog.is_digital or not digital.is_digital:
+        raise InputError("responses_on_grid takes an analog controller then a digital one")
+    f = np.asarray(f_hz, dtype=float)
+    ana = analog.frequency_response(f, via=via)
+    dig = digital.frequency_response(f, via=via) if digital_response is None else np.asarray(digital_response, complex)
+    seen = dig * hold_and_delay_factor(f, digital.sample_period_s, delay_s, hold)
+    return GridResponses(f, ana, dig, seen, float(delay_s))

@@ -1,0 +1,95 @@
+"""Zeros/poles/gain form of a controller, kept beside the polynomial form.
+
+The conversions compute roots directly (a pole p maps to e^{pT}, not to a root of a rounded
+polynomial), so this form stays accurate where the direct-form coefficients lose digits at
+high fs / corner ratios. Convention: ``C(x) = gain · Π(x − zeros) / Π(x − poles)`` with ``x``
+= s (analog, ``sample_period_s is None``) or z (digital).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from convert.controller import Controller
+
+
+@dataclass(frozen=True)
+class RootForm:
+    zeros: tuple[complex, ...]
+    poles: tuple[complex, ...]
+    gain: float
+    sample_period_s: float | None = None
+
+    @classmethod
+    def of(cls, controller: Controller) -> "RootForm":
+        """Roots of the controller's polynomials. Roots at s = 0 (analog) or z = 1 (digital) —
+        integrators and washouts — are divided out first and kept exact, since a repeated root
+        found numerically scatters by about the square root of the rounding error."""
+        point = 1.0 if controller.is_digital else 0.0
+        return cls(_roots(controller.num, point), _roots(controller.den, point), float(controller.gain),
+                   controller.sample_period_s)
+
+    @property
+    def relative_degree(self) -> int:
+        return len(self.poles) - len(self.zeros)
+
+    def at(self, points) -> np.ndarray:
+        """Value at complex points x (s or z)."""
+        x = np.asarray(points, dtype=complex)
+        out = np.full(x.shape, self.gain, dtype=complex)
+        for r in self.zeros:
+            out = out * (x - r)
+        for r in self.poles:
+            out = out / (x - r)
+        return out
+
+    def unit_gain_at(self, points) -> np.ndarray:
+        """Π(x − zeros) / Π(x − poles) (the value with gain 1)."""
+        return RootForm(self.zeros, self.poles, 1.0, self.sample_period_s).at(points)
+
+    def frequency_response(self, f_hz) -> np.ndarray:
+        """Response at f_hz (Hz): x = j2πf (analog) or e^{j2πfT} (digital)."""
+        w = 2 * np.pi * np.asarray(f_hz, dtype=float)
+        x = np.exp(1j * w * self.sample_period_s) if self.sample_period_s else 1j * w
+        return self.at(x)
+
+    def to_controller(self, name: str = "") -> Controller:
+        domain = "digital" if self.sample_period_s else "analog"
+        return Controller.from_zpk(_pairs(self.zeros), _pairs(self.poles), self.gain, domain,
+                                   self.sample_period_s, name)
+
+
+def _roots(coefficients, point: float) -> tuple[complex, ...]:
+    p = np.asarray(coefficients, dtype=float)
+    exact: list[complex] = []
+    scale = float(np.sum(np.abs(p)))
+    while p.size > 1 and abs(np.polyval(p, point)) <= 1e-13 * scale:
+        p, _ = np.polydiv(p, [1.0, -point])
+        exact.append(complex(point))
+    rest = np.roots(p).astype(complex) if p.size > 1 else np.zeros(0, complex)
+    return tuple(exact) + tuple(complex(r) for r in rest)
+
+
+def _pairs(roots) -> np.ndarray:
+    """Roots with each complex root's partner made the exact conjugate, so the polynomial is real."""
+    r = np.asarray(roots, dtype=complex)
+    out = []
+    used = np.zeros(r.size, bool)
+    for i, x in enumerate(r):
+        if used[i]:
+            continue
+        used[i] = True
+        if abs(x.imag) <= 1e-12 * max(abs(x), 1e-300):
+            out.append(complex(x.real))
+            continue
+        cand = [j for j in range(r.size) if not used[j]]
+        if cand:
+            j = min(cand, key=lambda k: abs(r[k] - np.conj(x)))
+            used[j] = True
+            mid = (x + np.conj(r[j])) / 2
+            out.extend([mid, np.conj(mid)])
+        else:
+            out.append(complex(x.real))
+    return np.array(out, dtype=complex)
