@@ -1,0 +1,432 @@
+"""Design an op-amp circuit from a controller: topology, parts from IEC 60063 series, part search.
+
+Steps (:func:`design_circuit`):
+
+1. Read the target. A digital controller is brought back to analog with
+   ``convert.digital.to_analog`` (method ``options.inverse_method``). An improper target (ideal
+   PID or PD) gets the derivative filter every circuit has: one pole at N times the highest zero
+   (N = ``options.derivative_filter_n``); its effect is reported as its own error row.
+2. Pick the topology: the one named, or with ``auto`` the simplest in
+   :data:`~convert.circuit.topologies.AUTO_ORDER` whose :meth:`fit` realizes the target exactly
+   (PID settings with setpoint weights b ≠ 1 or c ≠ 1 pick ``pid-two-input``).
+3. Search. Every free part (usually a capacitor) takes every value of its series in range; the
+   other parts follow from the design equations and are rounded **down or up** to their series
+   (log space, see :mod:`convert.circuit.series`); every combination in range is scored and the best
+   kept. When the combinations would exceed ``options.search_budget`` evaluations, the search runs
+   in two passes: nearest rounding for every free choice, then all rounding directions for the
+   best ``options.refine`` free choices.
+
+Error metric (the score): the largest, over the band, of ``|ln(H_built / H_target)|`` — the complex
+log of the response ratio, which is ``sqrt((ΔdB/8.686)² + (Δφ in rad)²)``: 1 dB of gain error
+weighs as much as 6.6° of phase error. The band is ``options.band_hz`` or, by default, a decade
+below the lowest corner to a decade above the highest.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from dataclasses import dataclass, field
+from typing import Mapping
+
+import numpy as np
+
+from convert.circuit import series as es
+from convert.circuit.topologies import (AUTO_ORDER, TargetShape, Topology, analyse_target, get_topology)
+from convert.controller import Controller
+from convert.errors import InputError, UnrealizableError
+
+
+@dataclass(frozen=True)
+class DesignOptions:
+    """Everything a design run is told. Resistances in ohms, capacitances in farads, Hz."""
+
+    topology: str = "auto"
+    resistors: str = "E96"
+    capacitors: str = "E12"
+    r_min: float = 1e3
+    r_max: float = 1e6
+    c_min: float = 100e-12
+    c_max: float = 10e-6
+    band_hz: tuple[float, float] | None = None
+    points: int = 61
+    derivative_filter_n: float = 10.0
+    inverse_method: str = "tustin"
+    top: int = 5
+    search_budget: int = 4_000_000
+    refine: int = 12
+
+    def __post_init__(self):
+        object.__setattr__(self, "resistors", es.normalize_name(self.resistors, key="--resistors"))
+        object.__setattr__(self, "capacitors", es.normalize_name(self.capacitors, key="--capacitors"))
+        for lo, hi, what in ((self.r_min, self.r_max, "resistor"), (self.c_min, self.c_max, "capacitor")):
+            if not (lo > 0 and hi > 0 and math.isfinite(lo) and math.isfinite(hi)):
+                raise InputError(f"the {what} range needs positive finite limits, found {lo!r} .. {hi!r}",
+                                 key=f"{what} range")
+            if lo > hi:
+                raise InputError(f"the {what} range minimum {lo:g} is above its maximum {hi:g}", key=f"{what} range")
+        if self.band_hz is not None and not (0 < self.band_hz[0] < self.band_hz[1]):
+            raise InputError(f"a band needs 0 < low < high, found {self.band_hz!r}", key="--band")
+        if not self.derivative_filter_n > 0:
+            raise InputError(f"the derivative filter ratio N must be positive, found {self.derivative_filter_n!r}",
+                             key="--derivative-filter")
+
+    def series_for(self, kind: str) -> str:
+        return self.resistors if kind == "R" else self.capacitors
+
+    def range_for(self, kind: str) -> tuple[float, float]:
+        return (self.r_min, self.r_max) if kind == "R" else (self.c_min, self.c_max)
+
+
+@dataclass(frozen=True)
+class Candidate:
+    """One scored part set."""
+
+    parts: dict
+    score: float
+    max_gain_error_db: float
+    max_phase_error_deg: float
+
+    def summary(self) -> dict:
+        return {"parts": self.parts, "score": self.score, "max_gain_error_db": self.max_gain_error_db,
+                "max_phase_error_deg": self.max_phase_error_deg}
+
+
+@dataclass(frozen=True)
+class CircuitDesign:
+    """The result of :func:`design_circuit` (plain data; rendering lives elsewhere).
+
+    ``target`` is the analog controller the circuit aims at (after any inverse conversion and the
+    derivative filter); ``sign`` is the target's sign (−1 for direct action / negative gain);
+    ``needs_inverter`` is True when the stage's own sign differs from it, so a unity inverter
+    follows the stage to realize +C(s). ``realized`` is the controller of the rounded parts
+    including that correction.
+    """
+
+    topology: Topology
+    source: Controller
+    target: Controller
+    sign: int
+    needs_inverter: bool
+    params: dict
+    nominal: dict
+    rounded: dict
+    realized: Controller
+    band_hz: tuple[float, float]
+    candidates: list
+    options: DesignOptions
+    notes: list = field(default_factory=list)
+    filter_added: Controller | None = None
+    settings: object = None
+
+    @property
+    def part_series(self) -> dict:
+        out = {}
+        for p in self.topology.parts:
+            if self.topology.check_parts(self.rounded)[p.name].item() in (math.inf, 0.0):
+                continue
+            out[p.name] = self.options.series_for(p.kind)
+        return out
+
+    def fitted_parts(self) -> dict:
+        """Rounded parts that are fitted (optional parts left open are omitted)."""
+        return {k: v for k, v in self.rounded.items() if v not in (math.inf, 0.0)}
+
+    def f_grid(self, points_per_decade: int = 50) -> np.ndarray:
+        from convert.compare.frequency import log_grid
+
+        return log_grid(self.band_hz[0], self.band_hz[1], points_per_decade)
+
+    def realized_parameters(self) -> dict:
+        p = {k: np.asarray(v) for k, v in self.rounded.items()}
+        return {k: float(v) for k, v in self.topology.parameters(p).items()}
+
+
+# ----------------------------------------------------------------------------------- target prep
+
+
+def prepare_target(controller: Controller, options: DesignOptions) -> tuple[Controller, Controller | None, list[str]]:
+    """(analog proper target, the filtered-in version or None, notes)."""
+    notes: list[str] = []
+    c = controller
+    if c.is_digital:
+        try:
+            from convert.digital import to_analog
+        except ImportError:
+            raise UnrealizableError("a digital target needs convert.digital.to_analog, which is not available in "
+                                    "this build; give the analog controller instead", key="target") from None
+        c = to_analog(c, options.inverse_method)
+        notes.append(f"digital target brought back to analog with the inverse {options.inverse_method} method")
+    filtered = None
+    if not c.is_proper:
+        if c.relative_degree < -1:
+            raise UnrealizableError(f"the target has {-c.relative_degree} more zeros than poles; an op-amp stage "
+                                    "realizes at most one extra zero (with a derivative filter)", key="target")
+        filtered = add_derivative_filter(c, options.derivative_filter_n)
+        notes.append(f"the target is improper (ideal derivative); the circuit adds a derivative filter pole at "
+                     f"N = {options.derivative_filter_n:g} times its highest zero")
+    return (filtered or c), (filtered if filtered is not None else None), notes
+
+
+def add_derivative_filter(controller: Controller, n: float) -> Controller:
+    """C(s)/(tf·s + 1) with tf = 1/(n·|highest zero|) — the circuit's derivative limit.
+
+    Uses ``convert.digital.add_derivative_filter`` when that module provides it (one owner of the
+    rule); the local rule is the same idea for targets it does not take.
+    """
+    try:
+        from convert.digital import add_derivative_filter as shared
+    except ImportError:
+        shared = None
+    if shared is not None:
+        try:
+            return shared(controller, n)
+        except Exception:  # noqa: BLE001 - fall back to the local rule below
+            pass
+    zeros = controller.zeros()
+    top = float(np.max(np.abs(zeros))) if zeros.size else 1.0
+    tf = 1.0 / (n * top)
+    return Controller.analog(controller.num, np.polymul(controller.den, [tf, 1.0]), controller.name)
+
+
+def default_band(target: Controller) -> tuple[float, float]:
+    """A decade below the lowest corner to a decade above the highest (Hz)."""
+    corners = target.corner_frequencies_hz()
+    freqs = corners["zeros"] + corners["poles"]
+    if not freqs:
+        if target.is_integrating:
+            f0 = abs(target.gain) / (2 * math.pi)  # where |k/s| = 1
+            return f0 / 100, f0 * 100
+        return 1.0, 1e3
+    return min(freqs) / 10, max(freqs) * 10
+
+
+# ----------------------------------------------------------------------------------- choose
+
+
+def choose_topology(target: Controller, options: DesignOptions, settings=None) -> tuple[Topology, list[dict]]:
+    """The topology to use and its fitted design quantities."""
+    if options.topology.lower() != "auto":
+        topo = get_topology(options.topology)
+        return topo, topo.fit(target, settings=settings)
+    if settings is not None and (settings.b != 1 or settings.c != 1):
+        topo = get_topology("pid-two-input")
+        return topo, topo.fit(target, settings=settings)
+    reasons = []
+    for name in AUTO_ORDER:
+        topo = get_topology(name)
+        try:
+            return topo, topo.fit(target, settings=settings)
+        except UnrealizableError as exc:
+            reasons.append(exc.message)
+    shape = analyse_target(target)
+    raise UnrealizableError(f"no catalog topology realizes this target exactly ({shape.describe()}); "
+                            "the catalog covers P, I, PI, first-order lag, lead/lag, PD and PID with a derivative "
+                            "filter", key="--topology")
+
+
+# ----------------------------------------------------------------------------------- search
+
+
+def _free_grid(topo: Topology, options: DesignOptions) -> dict[str, np.ndarray]:
+    grids = []
+    for name in topo.free_parts:
+        kind = topo.part(name).kind
+        lo, hi = options.range_for(kind)
+        grids.append(es.values_in_range(options.series_for(kind), lo, hi))
+    mesh = np.meshgrid(*grids, indexing="ij")
+    return {name: m.ravel() for name, m in zip(topo.free_parts, mesh)}
+
+
+def _is_open(topo: Topology, name: str, values: np.ndarray) -> bool:
+    kind = topo.part(name).kind
+    return bool(np.all(values == (math.inf if kind == "R" else 0.0)))
+
+
+def rounded_names(topo: Topology, nominal: Mapping[str, np.ndarray]) -> list[str]:
+    """Parts the search rounds: neither free, fixed, a copy, nor left open."""
+    copies = {c for c, _ in topo.equal_parts}
+    return [p.name for p in topo.parts
+            if p.name not in topo.free_parts and p.name not in topo.fixed_parts and p.name not in copies
+            and not _is_open(topo, p.name, nominal[p.name])]
+
+
+def _in_range(topo: Topology, parts: Mapping[str, np.ndarray], options: DesignOptions) -> np.ndarray:
+    ok = None
+    for p in topo.parts:
+        v = np.asarray(parts[p.name])
+        if _is_open(topo, p.name, v):
+            continue
+        lo, hi = options.range_for(p.kind)
+        m = (v >= lo * (1 - 1e-9)) & (v <= hi * (1 + 1e-9)) & np.isfinite(v)
+        ok = m if ok is None else ok & m
+    return ok
+
+
+def score_parts(topo: Topology, parts: Mapping[str, np.ndarray], f_hz: np.ndarray, reference: np.ndarray,
+                chunk: int = 20000) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(score, max |gain error| dB, max |phase error| deg) per part set; reference = F target over f_hz."""
+    n = np.broadcast_shapes(*[np.shape(v) for v in parts.values()])[0] if parts else 1
+    scores = np.empty(n)
+    gdb = np.empty(n)
+    pdeg = np.empty(n)
+    for i in range(0, n, chunk):
+        sl = slice(i, min(n, i + chunk))
+        sub = {k: (np.asarray(v)[sl] if np.ndim(v) else np.full(sl.stop - sl.start, float(v))) for k, v in parts.items()}
+        with np.errstate(divide="ignore", invalid="ignore"):
+            logr = np.log(topo.response(sub, f_hz) / reference)
+        logr = np.nan_to_num(logr, nan=1e3, posinf=1e3, neginf=-1e3)
+        scores[sl] = np.max(np.abs(logr), axis=1)
+        gdb[sl] = np.max(np.abs(logr.real), axis=1) * 20 / math.log(10)
+        pdeg[sl] = np.degrees(np.max(np.abs(logr.imag), axis=1))
+    return scores, gdb, pdeg
+
+
+def expand_roundings(topo: Topology, nominal: Mapping[str, np.ndarray], options: DesignOptions,
+                     names: list[str] | None = None) -> dict[str, np.ndarray]:
+    """Every down/up rounding of ``names`` for every row of ``nominal`` -> flat candidate arrays."""
+    names = rounded_names(topo, nominal) if names is None else names
+    m = np.broadcast_shapes(*[np.shape(v) for v in nominal.values()])[0]
+    combos = np.array(list(itertools.product((0, 1), repeat=len(names))), dtype=int).reshape(-1, len(names))
+    out = {}
+    for k, v in nominal.items():
+        out[k] = np.repeat(np.broadcast_to(np.asarray(v, dtype=float), (m,)), combos.shape[0])
+    for j, name in enumerate(names):
+        lo, hi = es.neighbours(np.broadcast_to(nominal[name], (m,)), options.series_for(topo.part(name).kind), key=name)
+        choice = np.where(combos[:, j][None, :] == 1, hi[:, None], lo[:, None])
+        out[name] = choice.ravel()
+    for copy, original in topo.equal_parts:
+        out[copy] = out[original]
+    return out
+
+
+def search_parts(topo: Topology, params: Mapping[str, float], options: DesignOptions, f_hz: np.ndarray,
+                 reference: np.ndarray) -> tuple[list[Candidate], dict]:
+    """Best part sets for one set of design quantities: (candidates sorted by score, diagnostics).
+
+    Raises UnrealizableError naming the part that is out of range when no choice is in range.
+    """
+    free = _free_grid(topo, options)
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        nominal = topo.solve(params, free)
+    m = free[topo.free_parts[0]].size
+    nominal = {k: np.broadcast_to(v, (m,)).astype(float) for k, v in nominal.items()}
+    ok = _in_range(topo, nominal, options)
+    if not np.any(ok):
+        raise _out_of_range(topo, nominal, options)
+    nominal = {k: v[ok] for k, v in nominal.items()}
+    names = rounded_names(topo, nominal)
+    m = int(np.sum(ok))
+    n_eval = m * (2 ** len(names)) * f_hz.size
+    if n_eval > options.search_budget and m > options.refine:
+        near = {k: v.copy() for k, v in nominal.items()}
+        for name in names:
+            near[name] = es.round_to_series(nominal[name], options.series_for(topo.part(name).kind))
+        for copy, original in topo.equal_parts:
+            near[copy] = near[original]
+        sc, _, _ = score_parts(topo, near, f_hz, reference)
+        sc = np.where(_in_range(topo, near, options), sc, np.inf)
+        keep = np.argsort(sc, kind="stable")[: options.refine]
+        nominal = {k: v[keep] for k, v in nominal.items()}
+    cands = expand_roundings(topo, nominal, options, names)
+    rows = np.arange(np.broadcast_shapes(*[np.shape(v) for v in nominal.values()])[0]).repeat(2 ** len(names))
+    ok2 = _in_range(topo, cands, options)
+    if not np.any(ok2):
+        raise _out_of_range(topo, cands, options)
+    cands = {k: v[ok2] for k, v in cands.items()}
+    rows = rows[ok2]
+    sc, gdb, pdeg = score_parts(topo, cands, f_hz, reference)
+    order = np.lexsort((rows, sc))  # by score, ties by the earlier (smaller) free choice
+    out: list[Candidate] = []
+    seen = set()
+    best_nominal = {k: float(v[rows[order[0]]]) for k, v in nominal.items()}
+    for i in order:
+        parts = {k: float(v[i]) for k, v in cands.items()}
+        key = tuple(sorted(parts.items()))
+        if key in seen:
+            continue
+        seen.add(key)
+        out.append(Candidate(parts, float(sc[i]), float(gdb[i]), float(pdeg[i])))
+        if len(out) >= max(options.top, 1):
+            break
+    return out, {"nominal": best_nominal, "free_choices": int(m), "evaluated": int(sc.size)}
+
+
+def _out_of_range(topo: Topology, parts: Mapping[str, np.ndarray], options: DesignOptions) -> UnrealizableError:
+    """Name the part that keeps every choice out of range, and what to change."""
+    worst = None
+    n = np.broadcast_shapes(*[np.shape(v) for v in parts.values()])[0]
+    violation = np.zeros(n)
+    per_part = {}
+    for p in topo.parts:
+        v = np.broadcast_to(np.asarray(parts[p.name], dtype=float), (n,))
+        if _is_open(topo, p.name, v):
+            continue
+        lo, hi = options.range_for(p.kind)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            d = np.where(v > hi, np.log(v / hi), np.where(v < lo, np.log(lo / v), 0.0))
+        d = np.nan_to_num(d, nan=1e9, posinf=1e9)
+        per_part[p.name] = d
+        violation = np.maximum(violation, d)
+    best = int(np.argmin(violation))
+    worst = max(per_part, key=lambda k: per_part[k][best])
+    part = topo.part(worst)
+    value = float(np.broadcast_to(parts[worst], (n,))[best])
+    lo, hi = options.range_for(part.kind)
+    from convert.values import format_value
+
+    kind = part.unit_kind
+    above = value > hi
+    limit = format_value(hi if above else lo, kind)
+    shown = format_value(value, kind) if math.isfinite(value) and value > 0 else repr(value)
+    free = ", ".join(f"{k} = {format_value(float(np.broadcast_to(parts[k], (n,))[best]), topo.part(k).unit_kind)}"
+                     for k in topo.free_parts)
+    flag = "--r-max" if part.kind == "R" and above else "--r-min" if part.kind == "R" else "--c-max" if above else "--c-min"
+    return UnrealizableError(
+        f"{topo.name}: {worst} ({part.role}) would be {shown}, {'above' if above else 'below'} the "
+        f"{'resistor' if part.kind == 'R' else 'capacitor'} {'maximum' if above else 'minimum'} {limit} even with the "
+        f"best choice ({free}); widen the range with {flag}, or widen the capacitor range (--c-min/--c-max), "
+        f"or rescale the target (its gain or time constants)", key=worst)
+
+
+# ----------------------------------------------------------------------------------- design
+
+
+def design_circuit(controller: Controller, options: DesignOptions | None = None, *, settings=None) -> CircuitDesign:
+    """Design the circuit for ``controller`` (see the module docstring). ``settings``: the
+    :class:`convert.pid.PidSettings` it came from, if any (needed for setpoint weights)."""
+    options = options or DesignOptions()
+    target, filtered, notes = prepare_target(controller, options)
+    topo, alternatives = choose_topology(target, options, settings)
+    shape: TargetShape = analyse_target(target)
+    sign = shape.sign
+    band = options.band_hz or default_band(target)
+    f = np.logspace(math.log10(band[0]), math.log10(band[1]), max(options.points, 2))
+    if topo.two_input:
+        ref = target.frequency_response(f) * sign  # the error path Cy
+    else:
+        ref = target.frequency_response(f) * sign
+    best: list[Candidate] = []
+    best_nominal = None
+    best_params = None
+    last_error = None
+    for params in alternatives:
+        try:
+            cands, diag = search_parts(topo, params, options, f, ref)
+        except UnrealizableError as exc:
+            last_error = exc
+            continue
+        if not best or cands[0].score < best[0].score:
+            best, best_nominal, best_params = cands, diag["nominal"], params
+    if not best:
+        raise last_error
+    rounded = dict(best[0].parts)
+    realized = topo.controller_from_parts(rounded).scaled(sign).with_name(f"{topo.name} (rounded parts)")
+    needs_inverter = topo.sign != sign
+    if needs_inverter:
+        notes.append(f"{topo.name} is {'inverting' if topo.inverting else 'non-inverting'}; a unity inverter after it "
+                     "gives the target's sign")
+    return CircuitDesign(topology=topo, source=controller, target=target, sign=sign, needs_inverter=needs_inverter,
+                         params=dict(best_params), nominal=best_nominal, rounded=rounded, realized=realized,
+                         band_hz=(float(band[0]), float(band[1])), candidates=best, options=options, notes=notes,
+                         filter_added=filtered, settings=settings)
