@@ -1,0 +1,147 @@
+"""Diode and zener clamps of a card: recognized, left out of the linear analysis, limits reported.
+
+A diode only conducts outside the linear range (forward above about 0.6–0.7 V, a zener in
+reverse above its BV), so the small-signal transfer function is computed without it. The
+firmware has to reproduce what it does as output limits and anti-windup; this module says
+where each clamp sits and at roughly which voltage it starts to conduct.
+
+Diodes in series (joined through nodes that nothing else touches) form one chain; the chain's
+threshold in each direction is the sum of its diodes' thresholds: a diode conducting forward
+adds its forward drop (default 0.65 V), a zener in reverse adds its BV, a plain diode in
+reverse blocks. Approximate by nature (common practice; real knees are soft and depend on
+current and temperature).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from convert.circuit.netlist import GROUND, Element, Netlist
+
+
+@dataclass(frozen=True)
+class Clamp:
+    """One diode chain between ``node_a`` and ``node_b``.
+
+    ``positive_v``: V(node_a) − V(node_b) at which it starts to conduct (inf: never);
+    ``negative_v``: the same for V(node_b) − V(node_a). ``role`` says what it limits.
+    """
+
+    diodes: tuple[str, ...]
+    node_a: str
+    node_b: str
+    positive_v: float
+    negative_v: float
+    role: str
+    where: str
+
+    def describe(self) -> str:
+        a, b, up, down = self.node_a, self.node_b, self.positive_v, self.negative_v
+        if a == GROUND:
+            a, b, up, down = b, a, down, up
+        limits = []
+        if not math.isinf(up):
+            limits.append(f"V({a}) − V({b}) rises above ≈ +{up:.2f} V")
+        if not math.isinf(down):
+            limits.append(f"falls below ≈ −{down:.2f} V")
+        if not limits:
+            when = "never (the chain blocks both ways)"
+        elif len(limits) == 2:
+            when = f"when {limits[0]} or {limits[1]}"
+        elif math.isinf(up):
+            when = f"when V({a}) − V({b}) {limits[0]} (blocks the other way)"
+        else:
+            when = f"when {limits[0]} (blocks the other way)"
+        return f"{', '.join(self.diodes)} ({self.where}): {self.role}; conducts {when}"
+
+
+def _thresholds(d: Element, from_node: str) -> tuple[float, float]:
+    """(threshold going from ``from_node`` to the other end, threshold the other way)."""
+    vf = d.param("vf", 0.65)
+    bv = d.param("bv")
+    reverse = bv if bv is not None else math.inf
+    forward_first = d.nodes[0] == from_node  # anode at from_node: positive direction is forward
+    return (vf, reverse) if forward_first else (reverse, vf)
+
+
+def find_clamps(netlist: Netlist) -> tuple[Clamp, ...]:
+    """Group the netlist's diodes into chains and describe each one's limits and role."""
+    diodes = netlist.diodes
+    if not diodes:
+        return ()
+    touched: dict[str, int] = {}
+    for e in netlist.elements:
+        for n in e.nodes:
+            touched[n] = touched.get(n, 0) + (0 if e.kind == "D" else 1)
+    diode_ends: dict[str, list[Element]] = {}
+    for d in diodes:
+        for n in d.nodes:
+            diode_ends.setdefault(n, []).append(d)
+
+    def internal(n: str) -> bool:
+        return n != GROUND and touched.get(n, 0) == 0 and len(diode_ends.get(n, [])) == 2
+
+    used: set[str] = set()
+    clamps: list[Clamp] = []
+    opamps = netlist.of_kind("OPAMP")
+    for start in diodes:
+        if start.name in used:
+            continue
+        # Walk to one end of the chain.
+        chain = [start]
+        node = start.nodes[0]
+        while internal(node):
+            nxt = next(d for d in diode_ends[node] if d is not chain[0])
+            if nxt in chain:
+                break
+            chain.insert(0, nxt)
+            node = nxt.nodes[1] if nxt.nodes[0] == node else nxt.nodes[0]
+        end_a = node
+        # Walk along to the other end, summing thresholds.
+        pos = neg = 0.0
+        current = end_a
+        ordered: list[Element] = []
+        prev = None
+        d = chain[0]
+        while True:
+            ordered.append(d)
+            used.add(d.name)
+            fwd, back = _thresholds(d, current)
+            pos += fwd
+            neg += back
+            current = d.nodes[1] if d.nodes[0] == current else d.nodes[0]
+            if not internal(current):
+                break
+            prev = d
+            d = next(x for x in diode_ends[current] if x is not prev)
+            if d.name in used:
+                break
+        end_b = current
+        clamps.append(Clamp(tuple(x.name for x in ordered), end_a, end_b, pos, neg,
+                            _role(end_a, end_b, opamps), ordered[0].where))
+    return tuple(clamps)
+
+
+def _role(a: str, b: str, opamps) -> str:
+    for op in opamps:
+        if {a, b} == {op.nodes[2], op.nodes[1]}:
+            return (f"across the feedback of {op.name} (output {op.nodes[2]} to inverting input {op.nodes[1]}): "
+                    "limits that stage's output swing, so its integrator cannot wind up beyond it")
+    if GROUND in (a, b):
+        other = b if a == GROUND else a
+        return f"from node {other} to ground: limits V({other})"
+    return f"between nodes {a} and {b}: limits their difference"
+
+
+def clamp_notes(netlist: Netlist) -> list[str]:
+    """One line per clamp, plus the instruction for the firmware."""
+    clamps = find_clamps(netlist)
+    if not clamps:
+        return []
+    names = ", ".join(d.name for d in netlist.diodes)
+    lines = [f"diodes {names} are left out of the linear analysis (they conduct only at the limits)"]
+    lines += [c.describe() for c in clamps]
+    lines.append("the firmware must reproduce these limits as output limits with anti-windup "
+                 "(forward drop taken as 0.65 V, range 0.6–0.7 V; zener voltage from the model's BV)")
+    return lines

@@ -1,0 +1,425 @@
+"""Modified nodal analysis in s: from a read netlist to an exact rational transfer function.
+
+The circuit equations are ``(G + s·C) x = b·u``: ``x`` holds the node voltages (ground left
+out) and the branch currents of voltage sources, E sources, inductors and op-amp outputs; ``u``
+is the input source's voltage. Every entry is linear in s, so det(G + sC) is a polynomial of
+degree ≤ the number of reactive parts (capacitors, inductors, single-pole op-amps), and by
+Cramer's rule so is the numerator N(s) = H(s)·det(G + sC).
+
+How the polynomials are found (numerically sound, no symbolic algebra):
+
+1. Row equilibration (constant factors; they cancel in N/D).
+2. Frequency scaling: det and H are evaluated on circles |s| = ρ_j for a ladder of radii
+   spanning the circuit's natural frequencies (from its R·C, R/L and op-amp gain-bandwidth
+   products), at M points per circle offset from the real axis. The FFT of the samples gives
+   the coefficients of p(ρ_j·z). For each coefficient the radius where it is best conditioned
+   (smallest error bound ε·Σ|samples-coefficients| / ρ_j^k) is kept.
+3. Coefficients below their error bound are zero (this finds the true degree and exact
+   integrators).
+4. Verification: N/D is re-evaluated against a direct complex solve at test frequencies off
+   the sample circles; a disagreement raises :class:`~convert.errors.UnrealizableError`.
+5. Common pole/zero pairs are cancelled and reported.
+
+Ideal op-amps are nullors: the output current is a free unknown and the inputs are forced to
+the same voltage (no gain limit, no approximation). A single-pole op-amp adds the row
+``(s/(2π·gbw) + 1/a0)·v_out − (v_+ − v_−) = 0``.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Sequence
+
+import numpy as np
+
+from convert.circuit.netlist import GROUND, Element, Netlist
+from convert.controller import Controller
+from convert.errors import InputError, UnrealizableError
+
+_FIT_RTOL = 1e-6  # allowed relative disagreement between fit and direct solve
+_ZERO_FACTOR = 1e3  # a coefficient below this many error bounds is zero
+_CANCEL_RTOL = 1e-5  # a zero and a pole this close (relative) cancel
+
+
+@dataclass(frozen=True)
+class MnaSystem:
+    """The assembled equations ``(G + s·C) x = Σ b_input·u_input``.
+
+    ``unknowns`` names each entry of x (``V(node)`` or ``I(element)``); ``rhs`` maps an input
+    source's name to its column b; ``output`` is the index of the output node's voltage.
+    """
+
+    unknowns: tuple[str, ...]
+    G: np.ndarray
+    C: np.ndarray
+    rhs: dict[str, np.ndarray]
+    output: int
+    reactive_count: int
+    rates: tuple[float, float]  # (lowest, highest) natural-frequency estimate in rad/s
+    notes: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class RationalResult:
+    """A transfer function from one input, with what was cancelled and how well it checked."""
+
+    controller: Controller
+    cancelled: tuple[tuple[complex, complex], ...]  # (zero, pole) pairs removed
+    max_fit_error: float  # relative, at the verification frequencies
+    notes: tuple[str, ...] = field(default=())
+
+
+# ----------------------------------------------------------------------------- structure
+class _UnionFind:
+    def __init__(self):
+        self.parent: dict[str, str] = {}
+
+    def find(self, a: str) -> str:
+        self.parent.setdefault(a, a)
+        while self.parent[a] != a:
+            self.parent[a] = self.parent[self.parent[a]]
+            a = self.parent[a]
+        return a
+
+    def join(self, a: str, b: str) -> None:
+        self.parent[self.find(a)] = self.find(b)
+
+
+def _connections(elements: Sequence[Element], *, dc: bool) -> _UnionFind:
+    """Nodes joined by a conducting path (DC: capacitors left out). Op-amp and E/G outputs
+    drive their node from ground; their inputs do not conduct."""
+    uf = _UnionFind()
+    uf.find(GROUND)
+    for e in elements:
+        if e.kind in ("R", "L", "V") or (e.kind == "C" and not dc):
+            uf.join(e.nodes[0], e.nodes[1])
+        elif e.kind == "E":
+            uf.join(e.nodes[0], e.nodes[1])
+        elif e.kind == "OPAMP":
+            uf.join(e.nodes[2], GROUND)
+        for n in e.nodes:
+            uf.find(n)
+    return uf
+
+
+def _first_use(elements: Sequence[Element], node: str) -> Element:
+    return next(e for e in elements if node in e.nodes)
+
+
+def _check_structure(netlist: Netlist, elements: Sequence[Element], inputs: Sequence[str], output: str) -> None:
+    for name in inputs:
+        e = netlist.element(name)
+        if e is None or e.kind != "V":
+            found = ", ".join(s.name for s in netlist.sources) or "none"
+            raise InputError(f"input source {name!r} not found; voltage sources in the file: {found}",
+                             where=netlist.source, key="input")
+        if e.nodes[0] == e.nodes[1]:
+            raise InputError(f"input source {e.name} has both ends on node {e.nodes[0]}", where=e.where, key=e.name)
+    all_nodes = {n for e in elements for n in e.nodes}
+    if output.lower() in ("0", "gnd"):
+        raise InputError("the output cannot be ground (0)", where=netlist.source, key="output")
+    if output.lower() not in all_nodes:
+        shown = ", ".join(sorted(n for n in all_nodes if n != GROUND)[:20])
+        raise InputError(f"output node {output!r} not found; nodes: {shown}", where=netlist.source, key="output")
+    ac = _connections(elements, dc=False)
+    ground = ac.find(GROUND)
+    for n in sorted(all_nodes):
+        if ac.find(n) != ground:
+            e = _first_use(elements, n)
+            raise InputError(f"node {n!r} is floating: no element connects it to ground (0), directly or through "
+                             "other parts", where=e.where, key=e.name)
+    dcu = _connections(elements, dc=True)
+    ground = dcu.find(GROUND)
+    for e in elements:
+        if e.kind == "OPAMP":
+            for pin, label in ((e.nodes[0], "non-inverting"), (e.nodes[1], "inverting")):
+                if dcu.find(pin) != ground:
+                    raise InputError(f"the op-amp's {label} input (node {pin!r}) has no DC path to ground; a real "
+                                     "op-amp would drift to a rail (add a resistor to bias it)", where=e.where,
+                                     key=e.name)
+
+
+# ----------------------------------------------------------------------------- assembly
+def build_system(netlist: Netlist, inputs: Sequence[str] = ("VIN",), output: str = "out") -> MnaSystem:
+    """Check the circuit and assemble its MNA matrices (diodes left out; other sources zeroed)."""
+    elements = netlist.linear_elements
+    _check_structure(netlist, elements, inputs, output)
+    input_names = [netlist.element(n).name for n in inputs]
+    if len(set(input_names)) != len(input_names):
+        raise InputError("the same source is named twice as an input", where=netlist.source, key="input")
+    nodes = [n for n in dict.fromkeys(n for e in elements for n in e.nodes) if n != GROUND]
+    index = {n: i for i, n in enumerate(nodes)}
+    unknowns = [f"V({n})" for n in nodes]
+    branch: dict[str, int] = {}
+    for e in elements:
+        if e.kind in ("V", "E", "L", "OPAMP"):
+            branch[e.name] = len(unknowns)
+            unknowns.append(f"I({e.name})")
+    size = len(unknowns)
+    G = np.zeros((size, size))
+    C = np.zeros((size, size))
+
+    def add(mat, r, c, v):
+        if r is not None and c is not None:
+            mat[r, c] += v
+
+    def idx(node):
+        return None if node == GROUND else index[node]
+
+    reactive = 0
+    r_values, c_values, l_values, op_rates = [], [], [], []
+    for e in elements:
+        if e.kind in ("R", "C"):
+            a, b = idx(e.nodes[0]), idx(e.nodes[1])
+            mat = G if e.kind == "R" else C
+            v = 1.0 / e.value if e.kind == "R" else e.value
+            add(mat, a, a, v); add(mat, b, b, v); add(mat, a, b, -v); add(mat, b, a, -v)
+            (r_values if e.kind == "R" else c_values).append(e.value)
+            reactive += e.kind == "C"
+        elif e.kind in ("V", "E", "L"):
+            k = branch[e.name]
+            a, b = idx(e.nodes[0]), idx(e.nodes[1])
+            add(G, a, k, 1.0); add(G, b, k, -1.0)
+            add(G, k, a, 1.0); add(G, k, b, -1.0)
+            if e.kind == "E":
+                add(G, k, idx(e.nodes[2]), -e.value); add(G, k, idx(e.nodes[3]), e.value)
+            elif e.kind == "L":
+                C[k, k] -= e.value
+                l_values.append(e.value)
+                reactive += 1
+        elif e.kind == "G":
+            a, b, cp, cm = (idx(n) for n in e.nodes)
+            add(G, a, cp, e.value); add(G, a, cm, -e.value); add(G, b, cp, -e.value); add(G, b, cm, e.value)
+        elif e.kind == "OPAMP":
+            k = branch[e.name]
+            p, n, o = (idx(x) for x in e.nodes)
+            add(G, o, k, 1.0)
+            add(G, k, p, 1.0); add(G, k, n, -1.0)
+            gbw = e.param("gbw")
+            if gbw is not None:
+                a0 = e.param("a0")
+                add(C, k, o, -1.0 / (2 * np.pi * gbw)); add(G, k, o, -1.0 / a0)
+                op_rates += [2 * np.pi * gbw, 2 * np.pi * gbw / a0]
+                reactive += 1
+        else:  # pragma: no cover - the reader admits no other kind
+            raise InputError(f"element kind {e.kind} is not supported in the analysis", where=e.where, key=e.name)
+    rhs = {}
+    for name in input_names:
+        b = np.zeros(size)
+        b[branch[name]] = 1.0
+        rhs[name] = b
+    rates = [1.0 / (r * c) for r in r_values for c in c_values] + [r / l for r in r_values for l in l_values]
+    rates += op_rates
+    if l_values and c_values:
+        rates += [1.0 / np.sqrt(l * c) for l in l_values for c in c_values]
+    if not rates:
+        rates = [1.0]
+    notes = []
+    zeroed = [s.name for s in netlist.sources if s.name not in input_names]
+    if zeroed:
+        notes.append(f"source(s) {', '.join(zeroed)} set to zero (shorted): only the input(s) drive the circuit")
+    return MnaSystem(tuple(unknowns), G, C, rhs, index[output.lower()], reactive,
+                     (float(min(rates)), float(max(rates))), tuple(notes))
+
+
+# ----------------------------------------------------------------------------- numerics
+def _equilibrate(system: MnaSystem) -> tuple[np.ndarray, np.ndarray, dict[str, np.ndarray]]:
+    rho = np.sqrt(system.rates[0] * system.rates[1])
+    scale = np.abs(system.G).max(axis=1) + rho * np.abs(system.C).max(axis=1)
+    scale[scale == 0] = 1.0
+    inv = 1.0 / scale
+    return system.G * inv[:, None], system.C * inv[:, None], {k: v * inv for k, v in system.rhs.items()}
+
+
+def _solve_many(G, C, B, s: np.ndarray):
+    """(log|det|, det phase factor, solutions) of (G + sC) X = B at each s (batched)."""
+    Y = G[None, :, :] + s[:, None, None] * C[None, :, :]
+    sign, logdet = np.linalg.slogdet(Y)
+    with np.errstate(all="ignore"):
+        X = np.linalg.solve(Y, np.broadcast_to(B, (len(s),) + B.shape))
+    return sign, logdet, X
+
+
+def _singular_message(system: MnaSystem, G, C) -> str:
+    s0 = np.sqrt(system.rates[0] * system.rates[1]) * np.exp(0.7j)
+    Y = G + s0 * C
+    _, _, vh = np.linalg.svd(Y)
+    null = np.abs(vh[-1].conj())
+    worst = [system.unknowns[i] for i in np.argsort(null)[::-1][:3] if null[i] > 0.1 * null.max()]
+    return ("the circuit equations are singular (voltage sources, E sources or op-amp outputs in a loop, an op-amp "
+            f"without feedback, or parallel sources); involved: {', '.join(worst)}")
+
+
+def transfer_functions(netlist: Netlist, inputs: Sequence[str] = ("VIN",), output: str = "out", *,
+                       system: MnaSystem | None = None) -> dict[str, RationalResult]:
+    """Exact rational transfer functions V(output)/V(input) for each input source (others zeroed).
+
+    Returns ``{source name: RationalResult}`` (names upper-case as in the netlist).
+    """
+    if system is None:
+        system = build_system(netlist, inputs, output)
+    G, C, rhs = _equilibrate(system)
+    names = list(rhs)
+    B = np.stack([rhs[n] for n in names], axis=1)
+    n = system.reactive_count
+    m = n + 4
+    lo, hi = system.rates
+    radii = np.logspace(np.log10(lo) - 1.0, np.log10(hi) + 1.0,
+                        max(2, int(np.ceil(2 * (np.log10(hi / lo) + 2.0))) + 1))
+    angles = np.exp(2j * np.pi * (np.arange(m) + 0.5) / m)
+    s_all = (radii[:, None] * angles[None, :]).ravel()
+    sign, logdet, X = _solve_many(G, C, B, s_all)
+    if np.any(sign == 0) or not np.all(np.isfinite(logdet)):
+        raise InputError(_singular_message(system, G, C), where=netlist.source)
+    logdet = logdet.reshape(len(radii), m)
+    sign = sign.reshape(len(radii), m)
+    H = X[:, system.output, :].reshape(len(radii), m, len(names))
+    # Common scale per radius (in logs) so nothing overflows; the same for D and every N.
+    offset = logdet.max(axis=1)
+    dvals = sign * np.exp(logdet - offset[:, None])
+    if np.any(np.abs(dvals).max(axis=1) < 1e-300):  # pragma: no cover - guarded by slogdet above
+        raise InputError(_singular_message(system, G, C), where=netlist.source)
+    cond_bad = _conditioning_check(G, C, radii)
+    if cond_bad:
+        raise InputError(_singular_message(system, G, C), where=netlist.source)
+    den = _coefficients(dvals, radii, offset, n)
+    results: dict[str, RationalResult] = {}
+    for j, name in enumerate(names):
+        nvals = dvals * H[:, :, j]
+        num = _coefficients(nvals, radii, offset, n)
+        results[name] = _finish(netlist, system, G, C, B[:, j], num, den, name, radii)
+    return results
+
+
+def _conditioning_check(G, C, radii) -> bool:
+    """True when G + sC is numerically singular at a generic point (all radii)."""
+    for rho in (radii[len(radii) // 2],):
+        Y = G + rho * np.exp(0.7j) * C
+        sv = np.linalg.svd(Y, compute_uv=False)
+        if sv[-1] <= 1e-13 * sv[0]:
+            return True
+    return False
+
+
+def _coefficients(values: np.ndarray, radii: np.ndarray, offset: np.ndarray, degree: int) -> np.ndarray:
+    """Polynomial coefficients (ascending powers of s, up to ``degree``) from samples on circles.
+
+    ``values[j, i]`` = p(ρ_j e^{jθ_i}) / exp(offset_j) with θ_i = 2π(i + ½)/M. Returns the
+    coefficients scaled by exp(−offset_max) (a common factor) with insignificant ones set to 0.
+    """
+    m = values.shape[1]
+    k = np.arange(m)
+    # Undo the half-step rotation: p(ρ e^{jθ_i}) = Σ c_k ρ^k e^{jπk/M} e^{j2πik/M}.
+    fft = np.fft.fft(values, axis=1) / m  # index k -> c_k ρ^k e^{jπk/M}
+    fft = fft * np.exp(-1j * np.pi * k / m)[None, :]
+    base = offset.max()
+    log_rho = np.log(radii)
+    scale_log = (offset - base)[:, None] - k[None, :] * log_rho[:, None]  # log of factor to c_k
+    size = np.abs(fft).sum(axis=1)  # error scale of each radius
+    with np.errstate(divide="ignore"):
+        err_log = np.log(np.finfo(float).eps * size)[:, None] + scale_log
+    best = np.argmin(err_log, axis=0)
+    coef = np.empty(m, dtype=complex)
+    err = np.empty(m)
+    for kk in range(m):
+        j = best[kk]
+        coef[kk] = fft[j, kk] * np.exp(scale_log[j, kk])
+        err[kk] = np.exp(err_log[j, kk])
+    out = coef.real[: degree + 1].copy()
+    out[np.abs(coef[: degree + 1]) <= _ZERO_FACTOR * err[: degree + 1]] = 0.0
+    return out
+
+
+def _roots_asc(c: np.ndarray) -> tuple[np.ndarray, float]:
+    """Roots and leading coefficient of an ascending-order coefficient vector."""
+    nz = np.flatnonzero(c)
+    if nz.size == 0:
+        return np.zeros(0, complex), 0.0
+    top = nz[-1]
+    desc = c[: top + 1][::-1]
+    return np.roots(desc).astype(complex), float(desc[0])
+
+
+def _cancel(zeros: np.ndarray, poles: np.ndarray, scale: float):
+    zeros, poles = list(zeros), list(poles)
+    pairs = []
+    for z in list(zeros):
+        best, best_d = None, None
+        for i, p in enumerate(poles):
+            d = abs(z - p)
+            if d <= _CANCEL_RTOL * max(abs(p), abs(z), 1e-9 * scale) and (best_d is None or d < best_d):
+                best, best_d = i, d
+        if best is not None:
+            pairs.append((complex(z), complex(poles.pop(best))))
+            zeros.remove(z)
+    return np.array(zeros, complex), np.array(poles, complex), pairs
+
+
+def _poly_from_roots(roots: np.ndarray, lead: float) -> np.ndarray:
+    p = np.real_if_close(np.poly(roots), tol=1e6) if len(roots) else np.array([1.0])
+    return lead * np.real(np.atleast_1d(p))
+
+
+def _finish(netlist, system, G, C, b, num_asc, den_asc, name, radii) -> RationalResult:
+    if not np.any(num_asc):
+        raise InputError(f"the output node does not depend on {name} (the transfer function is zero)",
+                         where=netlist.source, key="output")
+    if not np.any(den_asc):  # pragma: no cover - singular systems are refused before
+        raise InputError(_singular_message(system, G, C), where=netlist.source)
+    zeros, nlead = _roots_asc(num_asc)
+    poles, dlead = _roots_asc(den_asc)
+    scale = float(radii[-1])
+    z2, p2, pairs = _cancel(zeros, poles, scale)
+    if pairs:
+        num_desc = _poly_from_roots(z2, nlead)
+        den_desc = _poly_from_roots(p2, dlead)
+    else:
+        num_desc = np.trim_zeros(num_asc[::-1], "f")
+        den_desc = np.trim_zeros(den_asc[::-1], "f")
+    label = netlist.title or netlist.source
+    try:
+        controller = Controller.analog(num_desc, den_desc, name=label)
+    except InputError as exc:  # pragma: no cover - coefficients are finite by construction
+        raise UnrealizableError(f"could not form the transfer function: {exc.message}", where=netlist.source) from None
+    err = _verify(controller, G, C, b, system.output, radii)
+    if not err <= _FIT_RTOL:
+        raise UnrealizableError(
+            f"the rational transfer function from {name} disagrees with a direct solve by {err:.2g} (relative); the "
+            "circuit's time constants may span too many decades for double precision", where=netlist.source)
+    notes = []
+    for z, p in pairs:
+        notes.append(f"a pole at s = {_fmt_root(p)} rad/s ({abs(p) / (2 * np.pi):.4g} Hz) is cancelled by a zero in "
+                     f"the path from {name}: that part of the circuit is not seen from this input")
+    return RationalResult(controller, tuple(pairs), float(err), tuple(notes))
+
+
+def _fmt_root(r: complex) -> str:
+    if abs(r.imag) <= 1e-12 * max(1.0, abs(r)):
+        return f"{r.real:.6g}"
+    return f"{r.real:.6g}{r.imag:+.6g}j"
+
+
+def _verify(controller: Controller, G, C, b, out: int, radii: np.ndarray) -> float:
+    w = np.geomspace(radii[0], radii[-1], 4 * len(radii) + 3) * 1.0137
+    s = 1j * w
+    Y = G[None, :, :] + s[:, None, None] * C[None, :, :]
+    with np.errstate(all="ignore"):
+        x = np.linalg.solve(Y, np.broadcast_to(b[:, None], (len(s), len(b), 1)))[:, out, 0]
+    fit = controller.frequency_response(w / (2 * np.pi), via="zpk")
+    peak = np.max(np.abs(x))
+    err = np.abs(fit - x) / (np.abs(x) + 1e-9 * peak)
+    return float(np.max(err)) if np.all(np.isfinite(err)) else float("inf")
+
+
+# ----------------------------------------------------------------------------- public API
+def transfer_function(netlist: Netlist, input: str = "VIN", output: str = "out") -> Controller:  # noqa: A002
+    """The controller V(output)/V(input) of a read netlist (descending powers of s).
+
+    Every other voltage source is zeroed; diodes are left out (see :mod:`convert.circuit.clamps`).
+    """
+    return transfer_functions(netlist, (input,), output)[netlist.element(input).name].controller
+
+
+def transfer_function_result(netlist: Netlist, input: str = "VIN", output: str = "out") -> RationalResult:  # noqa: A002
+    """Like :func:`transfer_function` but with the cancelled pairs and the fit check."""
+    return transfer_functions(netlist, (input,), output)[netlist.element(input).name]
