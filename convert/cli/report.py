@@ -1,0 +1,120 @@
+"""``loopshift report CASE``: run every conversion a case file asks for and write a report folder.
+
+Exit codes: 0 every criterion passes, 1 a criterion fails, 2 bad input (the case file, an
+option, an existing report folder without --force).
+"""
+
+from __future__ import annotations
+
+import argparse
+
+HELP = "run a case file: convert, compare, check the loop, write the report folder"
+
+EPILOG = """\
+examples:
+  loopshift report cases/pi_card_to_firmware.toml
+  loopshift report cases/pi_card_to_firmware.toml --out reports/pi-swap --force
+  loopshift report cases/firmware_pid_to_opamp.toml --draws 500
+
+The report folder holds report.html (self-contained), report.md with figures/ beside it,
+results.json, and the files the targets produce (BOM, netlist, schematic). It is written to
+a temporary folder first and renamed into place; an existing folder is replaced only with
+--force. Exit code 0 pass, 1 fail, 2 bad input.
+
+The tool computes; it does not certify. Verify on a bench or in simulation before a live swap."""
+
+
+def add_parser(subparsers) -> argparse.ArgumentParser:
+    p = subparsers.add_parser("report", help=HELP, description=HELP + ".", epilog=EPILOG,
+                              formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("case", metavar="CASE", help="the case file (TOML), e.g. cases/pi_card_to_firmware.toml; "
+                                                "see docs/case-files.md")
+    p.add_argument("--out", metavar="DIR", help="report folder to write (default: reports/<case name> in the "
+                                                "current folder), e.g. --out reports/pump-7")
+    p.add_argument("--force", action="store_true", help="replace the report folder if it exists "
+                                                        "(default: refuse, so an earlier report is never lost)")
+    p.add_argument("--draws", metavar="N", type=_positive_int,
+                   help="Monte Carlo draws for a circuit target, overriding the case file, e.g. --draws 10000")
+    return p
+
+
+def _positive_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number of draws, found {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"expected at least 1 draw, found {text!r}")
+    return value
+
+
+def run(args, console) -> int:
+    from pathlib import Path
+
+    from convert.case import load_case
+    from convert.compare.evaluate import evaluate_case, planned_steps
+    from convert.report import write_report
+    from convert.report.folder import check_destination
+
+    case = load_case(args.case)
+    out_dir = Path(args.out) if args.out else Path("reports") / case.name
+    protected = [case.path] + [p for p in [case.source.data.get("file")] if p]
+    check_destination(out_dir, force=args.force, protected=protected)  # fail before the long work
+
+    from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
+
+    with Progress(TextColumn("{task.description}"), BarColumn(), TimeElapsedColumn(), console=console,
+                  transient=True, disable=not console.is_terminal) as progress:
+        task = progress.add_task(f"evaluating {case.name}", total=planned_steps(case) + 1)
+
+        def tick(text: str) -> None:
+            progress.update(task, advance=1, description=text)
+
+        results = evaluate_case(case, draws=args.draws, progress=tick)
+        progress.update(task, description="writing the report")
+        folder = write_report(results, out_dir, force=args.force)
+        progress.update(task, advance=1)
+    _summary(console, results, folder)
+    return results.exit_code
+
+
+def _summary(console, results, folder) -> None:
+    from rich.panel import Panel
+    from rich.table import Table
+
+    from convert.compare.evaluate import CAUTIONS
+    from convert.report.tables import all_tables
+
+    case = results.case
+    verdict = results.verdict.overall
+    style = "bold green" if verdict == "pass" else "bold red"
+    console.print(f"[bold]{case.title}[/bold]  ({case.path})")
+    for title, header, rows in all_tables(results):
+        if title.startswith("New forms"):
+            continue
+        table = Table(title=title, title_justify="left", show_lines=False)
+        keep = [i for i, h in enumerate(header) if h not in ("what was switched on", "note", "scanned")]
+        for i in keep:
+            table.add_column(header[i], overflow="fold")
+        for row in rows:
+            cells = []
+            for i in keep:
+                c = row[i]
+                if c == "FAIL":
+                    c = "[bold red]FAIL[/bold red]"
+                elif c == "pass":
+                    c = "[green]pass[/green]"
+                cells.append(c)
+            table.add_row(*cells)
+        console.print(table)
+    for s in results.skipped:
+        console.print(f"[yellow]skipped:[/yellow] {s}")
+    for r in results.realizations:
+        for w in r.warnings:
+            console.print(f"[yellow]warning ({r.name}):[/yellow] {w}")
+    console.print(Panel("\n".join(CAUTIONS), title="cautions", border_style="yellow"))
+    failures = results.verdict.failures
+    if failures:
+        for j in failures:
+            console.print(f"[red]fails:[/red] {j.realization}: {j.label} {j.value:.3g} {j.unit} > limit {j.limit:g} {j.unit}")
+    console.print(f"verdict: [{style}]{verdict.upper()}[/{style}]   report: {folder}/report.html")

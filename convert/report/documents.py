@@ -1,0 +1,141 @@
+"""``report.html`` (self-contained: figures embedded as base64 PNG) and ``report.md`` (figures
+as files beside it), both built from the same tables and figures."""
+
+from __future__ import annotations
+
+import base64
+import html
+
+from convert.compare.evaluate import CAUTIONS
+from convert.report.tables import all_tables, hz, num
+
+FIGURE_CAPTIONS = {
+    "bode.png": "Bode overlay of all forms as the loop sees them, with the error of each against the source.",
+    "loop.png": "Closed-loop setpoint step and load disturbance, every form overlaid.",
+    "polezero.png": "Pole-zero maps: analog forms in s, digital forms in z.",
+}
+
+
+def _caption(name: str) -> str:
+    if name.startswith("montecarlo-"):
+        return "Monte Carlo band of the circuit's response across part tolerances."
+    return FIGURE_CAPTIONS.get(name, name)
+
+
+def _header_facts(results) -> list[tuple[str, str]]:
+    case = results.case
+    facts = [("case file", str(case.path)), ("source", f"{case.source.form}: {results.reference.expression()}"
+                                             + (f" (fs {hz(results.reference.fs_hz)})" if results.reference.is_digital else ""))]
+    if case.plant:
+        facts.append(("plant", f"{case.plant.expression}, dead time {num(case.plant.dead_time_s, 4, 's')}"))
+    facts.append(("band", f"{hz(case.criteria.band_hz[0])} – {hz(case.criteria.band_hz[1])}"))
+    if results.duration_s:
+        facts.append(("simulated time", num(results.duration_s, 4, "s")))
+    if results.draws:
+        facts.append(("Monte Carlo", f"{results.draws} draws, seed {results.seed}"))
+    return facts
+
+
+# ----------------------------------------------------------------------------- HTML
+_CSS = """
+body{font-family:system-ui,-apple-system,Segoe UI,sans-serif;margin:2em auto;max-width:1100px;color:#1c2833;padding:0 1em}
+h1{font-size:1.5em}h2{font-size:1.2em;margin-top:1.6em;border-bottom:1px solid #d5d8dc}
+table{border-collapse:collapse;margin:.6em 0;font-size:.88em}td,th{border:1px solid #d5d8dc;padding:.25em .5em;vertical-align:top}
+th{background:#eaf2f8;text-align:left}.pass{color:#1e8449;font-weight:600}.fail{color:#c0392b;font-weight:700}
+.verdict{font-size:1.3em;padding:.4em .8em;display:inline-block;border-radius:4px}
+.verdict.pass{background:#d5f5e3}.verdict.fail{background:#fadbd8}
+.caution{background:#fef9e7;border-left:4px solid #b7950b;padding:.5em 1em}
+figure{margin:1em 0}figcaption{font-size:.85em;color:#555}img{max-width:100%}
+"""
+
+
+def _html_table(title: str, header: list[str], rows: list[list[str]]) -> str:
+    out = [f"<h2>{html.escape(title)}</h2>", "<table>", "<tr>" + "".join(f"<th>{html.escape(h)}</th>" for h in header) + "</tr>"]
+    for row in rows:
+        cells = []
+        for cell in row:
+            cls = ""
+            if cell in ("pass", "FAIL"):
+                cls = f' class="{"pass" if cell == "pass" else "fail"}"'
+            cells.append(f"<td{cls}>{html.escape(cell)}</td>")
+        out.append("<tr>" + "".join(cells) + "</tr>")
+    out.append("</table>")
+    return "\n".join(out)
+
+
+def html_report(results, figures: dict[str, bytes]) -> str:
+    """The whole report as one HTML document with every figure embedded (data: URIs)."""
+    case = results.case
+    v = results.verdict.overall
+    parts = ["<!DOCTYPE html>", '<html lang="en"><head><meta charset="utf-8">',
+             f"<title>loopshift report — {html.escape(case.title)}</title>", f"<style>{_CSS}</style></head><body>",
+             f"<h1>Equivalence report — {html.escape(case.title)}</h1>"]
+    if case.description:
+        parts.append(f"<p>{html.escape(case.description)}</p>")
+    parts.append(f'<p class="verdict {v}">Verdict: {v.upper()}</p>')
+    parts.append('<div class="caution"><strong>Cautions.</strong><ul>'
+                 + "".join(f"<li>{html.escape(c)}</li>" for c in CAUTIONS) + "</ul></div>")
+    parts.append("<table>" + "".join(f"<tr><th>{html.escape(k)}</th><td>{html.escape(val)}</td></tr>"
+                                     for k, val in _header_facts(results)) + "</table>")
+    tables = all_tables(results)
+    for title, header, rows in tables:
+        parts.append(_html_table(title, header, rows))
+    if results.skipped:
+        parts.append("<h2>Checks skipped</h2><ul>" + "".join(f"<li>{html.escape(s)}</li>" for s in results.skipped)
+                     + "</ul>")
+    if results.notes:
+        parts.append("<h2>Notes</h2><ul>" + "".join(f"<li>{html.escape(s)}</li>" for s in results.notes) + "</ul>")
+    if results.rate_advice:
+        parts.append(f"<p>Rule used: {html.escape(results.rate_advice[0].rule)}.</p>")
+    parts.append("<h2>Figures</h2>")
+    for name, data in figures.items():
+        b64 = base64.b64encode(data).decode("ascii")
+        parts.append(f'<figure><img alt="{html.escape(_caption(name))}" src="data:image/png;base64,{b64}">'
+                     f"<figcaption>{html.escape(_caption(name))}</figcaption></figure>")
+    files = sorted({f for r in results.realizations for f in r.files})
+    if files:
+        parts.append("<h2>Files beside this report</h2><ul>" + "".join(f"<li>{html.escape(f)}</li>" for f in files)
+                     + "</ul>")
+    parts.append("<p><small>Written by loopshift. The tool computes; it does not certify.</small></p></body></html>")
+    return "\n".join(parts)
+
+
+# ----------------------------------------------------------------------------- Markdown
+def _md_cell(text: str) -> str:
+    return text.replace("|", "\\|").replace("\n", " ")
+
+
+def markdown_report(results, figure_names=()) -> str:
+    """The report as Markdown; figures are referenced as ``figures/<name>.png`` files."""
+    case = results.case
+    lines = [f"# Equivalence report — {case.title}", ""]
+    if case.description:
+        lines += [case.description, ""]
+    lines += [f"**Verdict: {results.verdict.overall.upper()}**", "", "> **Cautions.**"]
+    lines += [f"> - {c}" for c in CAUTIONS]
+    lines.append("")
+    lines += [f"- **{k}**: {_md_cell(val)}" for k, val in _header_facts(results)]
+    lines.append("")
+    for title, header, rows in all_tables(results):
+        lines += [f"## {title}", "", "| " + " | ".join(header) + " |", "|" + "---|" * len(header)]
+        lines += ["| " + " | ".join(_md_cell(c) for c in row) + " |" for row in rows]
+        lines.append("")
+    if results.skipped:
+        lines += ["## Checks skipped", ""] + [f"- {s}" for s in results.skipped] + [""]
+    if results.notes:
+        lines += ["## Notes", ""] + [f"- {s}" for s in results.notes] + [""]
+    if results.rate_advice:
+        lines += [f"Rule used: {results.rate_advice[0].rule}.", ""]
+    if figure_names:
+        lines.append(markdown_figures(figure_names))
+    files = sorted({f for r in results.realizations for f in r.files})
+    if files:
+        lines += ["## Files beside this report", ""] + [f"- [{f}]({f})" for f in files] + [""]
+    return "\n".join(lines)
+
+
+def markdown_figures(names) -> str:
+    lines = ["## Figures", ""]
+    for name in names:
+        lines += [f"![{_caption(name)}](figures/{name})", "", f"*{_caption(name)}*", ""]
+    return "\n".join(lines)
