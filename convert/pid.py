@@ -653,7 +653,7 @@ def _settings_from(data: dict[str, Any], where: str) -> PidSettings:
     try:
         return builder(kc, ti, td, n=n, tf_s=tf if n is None else None, b=b, c=c, action=action)
     except (InputError, UnrealizableError) as exc:
-        raise type(exc)(exc.message, where=where, key=exc.key) from None
+        raise InputError(exc.message, where=where, key=exc.key) from None
 
 
 def describe_keys() -> str:
