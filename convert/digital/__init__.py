@@ -8,3 +8,5 @@ Exports (helper "digital"): ``METHODS``, ``discretize``, ``DigitalRealization``,
 
 from convert.digital.realization import METHODS, DigitalRealization, difference_equation, discretize  # noqa: F401
 from convert.digital.inverse import INVERSE_METHODS, to_analog  # noqa: F401
+from convert.digital.derivative_filter import add_derivative_filter, derivative_filter_time_constant  # noqa: F401
+from convert.digital.survey import MethodRow, MethodSurvey, survey_methods  # noqa: F401

@@ -1,0 +1,113 @@
+"""``loopshift analog``: a digital controller (an expression in z or z^-1) mapped back to the
+analog controller it corresponds to under a named method. Only argparse at module level."""
+
+from __future__ import annotations
+
+import argparse
+
+INVERSE_NAMES = ("tustin", "zoh", "matched", "backward-euler")
+
+DESCRIPTION = """\
+Map a digital controller back to an analog one: the continuous transfer function whose
+discretization by --method is the given digital controller. Methods: tustin (with the same
+--prewarp used going forward), zoh (through the matrix logarithm of a state-space form),
+matched, backward-euler.
+
+Some digital controllers have no real continuous equivalent: a pole on the negative real
+axis (zoh, matched), a pole at z = 0 or a pure delay (b0 = 0 with more than the method allows),
+a pole at z = -1 (tustin). Those are refused with the pole named and what you can do.
+
+The result is checked by discretizing it again with the same method; the largest relative
+coefficient difference is printed."""
+
+EPILOG = """\
+examples:
+  loopshift analog "(0.2 - 0.18 z^-1)/(1 - z^-1)" --fs 100Hz --method tustin
+  loopshift analog "0.0952/(z - 0.9048)" --fs 1kHz --method zoh
+  loopshift analog "(1.1 - 0.9z^-1)/(1 - 0.8z^-1)" --fs 500Hz --method tustin --prewarp 20Hz --json
+
+In values, M is mega and m is milli (1MHz, 250ms). Details: docs/digital.md"""
+
+
+def add_parser(subparsers) -> argparse.ArgumentParser:
+    parser = subparsers.add_parser(
+        "analog",
+        help="digital controller (in z) -> the analog controller it corresponds to under a method",
+        description=DESCRIPTION,
+        epilog=EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    parser.add_argument("expression", metavar="EXPR_IN_Z",
+                        help='digital transfer function in z or z^-1, e.g. "(0.2 - 0.18 z^-1)/(1 - z^-1)"')
+    parser.add_argument("--fs", metavar="HZ", required=True, help="sample rate of the digital controller, e.g. --fs 1kHz")
+    parser.add_argument("--method", metavar="M", required=True,
+                        help="the method the digital controller was made with: " + ", ".join(INVERSE_NAMES)
+                        + ", e.g. --method tustin")
+    parser.add_argument("--prewarp", metavar="HZ",
+                        help="tustin only: the prewarp frequency used going forward, e.g. --prewarp 20Hz")
+    parser.add_argument("--match-at", metavar="HZ",
+                        help="matched only: the gain-match frequency used going forward, e.g. --match-at 1Hz")
+    parser.add_argument("--json", action="store_true",
+                        help="print a JSON list with one result: method, fs_hz, num, den (descending powers of s), e.g. --json")
+    return parser
+
+
+def run(args, console) -> int:
+    import numpy as np
+
+    from convert.cli.common import emit_json
+    from convert.cli.digital import _positive
+    from convert.controller import from_expression
+    from convert.digital import discretize, to_analog
+    from convert.errors import InputError
+    from convert.values import format_value
+
+    fs = _positive(args.fs, "hz", "--fs")
+    if args.method not in INVERSE_NAMES:
+        raise InputError(f"no inverse for method {args.method!r}; expected one of {', '.join(INVERSE_NAMES)}",
+                         key="--method")
+    prewarp = _positive(args.prewarp, "hz", "--prewarp") if args.prewarp is not None else None
+    match_at = _positive(args.match_at, "hz", "--match-at") if args.match_at is not None else None
+    if prewarp is not None and args.method != "tustin":
+        raise InputError("--prewarp applies to --method tustin only", key="--prewarp")
+    if match_at is not None and args.method != "matched":
+        raise InputError("--match-at applies to --method matched only", key="--match-at")
+    digital = from_expression(args.expression, fs_hz=fs, label="EXPR_IN_Z")
+    if not digital.is_digital:
+        raise InputError("the expression is analog (in s); `loopshift analog` takes an expression in z", key="EXPR_IN_Z")
+    analog = to_analog(digital, args.method, prewarp, match_at_hz=match_at)
+    again = discretize(analog, fs, args.method, prewarp_hz=prewarp, match_at_hz=match_at).controller
+    b0, a0 = np.array(digital.b), np.array(digital.a)
+    b1, a1 = np.array(again.b), np.array(again.a)
+    if b0.size == b1.size and a0.size == a1.size:
+        scale = max(np.max(np.abs(b0)), np.max(np.abs(a0)))
+        check = float(max(np.max(np.abs(b1 - b0)), np.max(np.abs(a1 - a0))) / scale)
+    else:
+        check = None
+    result = {"method": args.method, "fs_hz": fs, "num": list(analog.num), "den": list(analog.den),
+              "expression": analog.expression(), "zeros_s": list(analog.zeros()), "poles_s": list(analog.poles()),
+              "gain": analog.gain, "round_trip_max_relative_difference": check}
+    if prewarp is not None:
+        result["prewarp_hz"] = prewarp
+    if match_at is not None:
+        result["match_at_hz"] = match_at
+    if args.json:
+        emit_json(console, [result])
+        return 0
+    console.print(f"digital controller at {format_value(fs, 'hz', 6)}: {digital.expression()}", markup=False)
+    console.print(f"analog equivalent under {args.method}"
+                  + (f" (prewarp {format_value(prewarp, 'hz', 4)})" if prewarp else "") + ":", markup=False)
+    console.print(f"  C(s) = {analog.expression(8)}", markup=False)
+    console.print(f"  num (descending powers of s): {[float(format(x, '.10g')) for x in analog.num]}", markup=False)
+    console.print(f"  den (descending powers of s): {[float(format(x, '.10g')) for x in analog.den]}", markup=False)
+    corners = analog.corner_frequencies_hz()
+    for kind in ("zeros", "poles"):
+        if corners.get(kind):
+            console.print(f"  {kind[:-1]} corners: " + ", ".join(format_value(f, 'hz', 4) for f in corners[kind]),
+                          markup=False)
+    if analog.integrator_count():
+        console.print(f"  integrators: {analog.integrator_count()}", markup=False)
+    if check is not None:
+        console.print(f"check: discretizing it again by {args.method} reproduces the coefficients to {check:.2g} "
+                      "(largest difference relative to the largest coefficient)", markup=False)
+    return 0

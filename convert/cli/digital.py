@@ -1,0 +1,241 @@
+"""``loopshift digital``: an analog controller turned into firmware coefficients by one or more
+discretization methods, side by side, with each method's error against the analog controller.
+
+Only argparse is imported at module level; the computation loads when the command runs.
+"""
+
+from __future__ import annotations
+
+import argparse
+
+METHOD_NAMES = ("zoh", "foh", "tustin", "matched", "impulse", "forward-euler", "backward-euler")
+
+DESCRIPTION = """\
+Sample an analog controller at --fs with one or more methods and print, per method, the
+coefficients b/a (ascending powers of z^-1, a0 = 1), the difference equation, and the errors
+against the analog controller over a band (default: a decade below the lowest corner up to
+fs/2), side by side, with the best method marked and why.
+
+Two error figures per method: "method" compares C(e^jwT) with C(jw) (what the method alone
+changes); "seen from loop" adds the zero-order hold of the output and the computation delay
+(--delay). The best method is picked on the method figures: the highest frequency where both
+errors stay within the agreement limits (--agreement), then the smallest errors. A method
+that makes a stable analog controller unstable is never picked.
+
+Methods: zoh (step invariant), foh (triangle hold), tustin (bilinear; --prewarp HZ makes it
+exact at that frequency), matched (matched pole-zero; zeros at infinity to z = -1), impulse
+(impulse invariant, T-scaled), forward-euler, backward-euler, or all.
+
+The tool computes; it does not certify. Verify on a bench or in simulation before a live
+swap, plan a bumpless transfer, keep safety functions independent of this controller."""
+
+EPILOG = """\
+examples:
+  loopshift digital "(s+2)/(s+20)" --fs 1kHz --method tustin --method zoh
+  loopshift digital "2*(1 + 1/(0.5*s))" --fs 200Hz --method all
+  loopshift digital "(0.5s+1)/(0.05s+1)" --fs 500Hz --method tustin --prewarp 10Hz
+  loopshift digital "2*(1 + 1/(0.1*s) + 0.01*s)" --fs 1kHz --filter 10 --method all
+  loopshift digital --pid kc=2 ti=30s td=5s n=10 --fs 10Hz --method all --delay 1sample
+  loopshift digital "(s+2)/(s+20)" --fs 1kHz --method all --band 0.1Hz 100Hz --json
+
+delay: seconds with a unit ("--delay 250us") or samples ("--delay 1sample", "--delay 0.5samples").
+In values, M is mega and m is milli (1MHz, 250ms). Details: docs/digital.md"""
+
+
+def add_parser(subparsers) -> argparse.ArgumentParser:
+    from convert.cli.common import add_controller_input
+
+    parser = subparsers.add_parser(
+        "digital",
+        help="analog controller -> digital coefficients by each method, with the error each method adds",
+        description=DESCRIPTION,
+        epilog=EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    add_controller_input(parser)
+    parser.add_argument("--fs", metavar="HZ", required=True, help="sample rate, e.g. --fs 1kHz or --fs 100Hz")
+    parser.add_argument("--method", metavar="M", action="append",
+                        help="discretization method, repeatable: " + ", ".join(METHOD_NAMES)
+                        + ", or all (the default), e.g. --method tustin --method zoh")
+    parser.add_argument("--prewarp", metavar="HZ",
+                        help="tustin only: frequency where digital and analog responses are made equal, e.g. --prewarp 50Hz")
+    parser.add_argument("--delay", metavar="S", default=None,
+                        help="computation delay for the loop-seen figures, in seconds or samples, "
+                             "e.g. --delay 200us or --delay 1sample (default 0)")
+    parser.add_argument("--band", nargs=2, metavar=("LO", "HI"),
+                        help="band for the error figures, e.g. --band 0.1Hz 200Hz "
+                             "(default: a decade below the lowest corner up to fs/2)")
+    parser.add_argument("--filter", metavar="N", dest="filter_n",
+                        help="add a derivative filter with ratio N to an improper controller (ideal PD/PID): "
+                             "the derivative part gets the pole N/Td, e.g. --filter 10")
+    parser.add_argument("--match-at", metavar="HZ",
+                        help="matched only: frequency where gain is matched instead of DC, e.g. --match-at 1Hz "
+                             "(default for an integrating controller: a decade below its lowest corner, at most fs/100)")
+    parser.add_argument("--keep-delay", action="store_true",
+                        help="matched only: keep one zero at infinity as a one-sample delay instead of mapping it to z = -1")
+    parser.add_argument("--agreement", nargs=2, metavar=("DB", "DEG"), default=None,
+                        help="agreement limits for the 'agrees up to' figure, e.g. --agreement 0.5 3 (default 1 dB, 5 deg)")
+    parser.add_argument("--json", action="store_true",
+                        help="print a JSON list of results (method, fs_hz, b, a, prewarp_hz, errors), e.g. --json")
+    return parser
+
+
+def parse_delay(text: str | None, fs_hz: float):
+    """(seconds) from "250us" / "0.25ms" or from "1sample" / "2 samples"."""
+    import re
+
+    from convert.compare.frequency import delay_in_seconds
+    from convert.errors import InputError
+    from convert.values import parse_value
+
+    if text is None:
+        return 0.0
+    m = re.fullmatch(r"\s*(.*?)\s*(samples?|smp)\s*", text)
+    if m:
+        count = parse_value(m.group(1), "number", field="--delay")
+        if count < 0:
+            raise InputError(f"the delay must be zero or positive, found {text!r}", key="--delay")
+        return delay_in_seconds(delay_samples=count, fs_hz=fs_hz)
+    try:
+        seconds = parse_value(text, "second", field="--delay")
+    except InputError as exc:
+        raise InputError(f"{exc.message} (seconds such as 200us, or samples such as 1sample)", key="--delay") from None
+    if seconds < 0:
+        raise InputError(f"the delay must be zero or positive, found {text!r}", key="--delay")
+    return delay_in_seconds(delay_s=seconds)
+
+
+def _methods(args) -> list[str]:
+    from convert.errors import InputError
+
+    wanted = args.method or ["all"]
+    out: list[str] = []
+    for m in wanted:
+        if m == "all":
+            out.extend(METHOD_NAMES)
+        elif m in METHOD_NAMES:
+            out.append(m)
+        else:
+            raise InputError(f"unknown method {m!r}; expected one of {', '.join(METHOD_NAMES)} or all", key="--method")
+    return list(dict.fromkeys(out))
+
+
+def _positive(text, kind: str, field: str) -> float:
+    from convert.errors import InputError
+    from convert.values import parse_value
+
+    value = parse_value(text, kind, field=field)
+    if not value > 0:
+        raise InputError(f"expected a positive value, found {text!r}", key=field)
+    return value
+
+
+def run(args, console) -> int:
+    from convert.cli.common import controller_from_args, emit_json
+    from convert.digital import survey_methods
+    from convert.errors import InputError
+
+    fs = _positive(args.fs, "hz", "--fs")
+    prewarp = _positive(args.prewarp, "hz", "--prewarp") if args.prewarp is not None else None
+    match_at = _positive(args.match_at, "hz", "--match-at") if args.match_at is not None else None
+    filter_n = _positive(args.filter_n, "number", "--filter") if args.filter_n is not None else None
+    delay = parse_delay(args.delay, fs)
+    band = None
+    if args.band:
+        band = (_positive(args.band[0], "hz", "--band"), _positive(args.band[1], "hz", "--band"))
+        if not band[0] < band[1]:
+            raise InputError(f"the band's low end must be below its high end, found {args.band[0]} .. {args.band[1]}",
+                             key="--band")
+        if band[1] > fs / 2:
+            raise InputError(f"the band's top {args.band[1]} is above fs/2 = {fs / 2:g} Hz", key="--band")
+    limits = (1.0, 5.0)
+    if args.agreement:
+        limits = (_positive(args.agreement[0], "number", "--agreement"),
+                  _positive(args.agreement[1], "number", "--agreement"))
+    methods = _methods(args)
+    if prewarp is not None and "tustin" not in methods:
+        raise InputError("--prewarp applies to tustin only; add --method tustin", key="--prewarp")
+    controller, _pid = controller_from_args(args)
+    if controller.is_digital:
+        raise InputError("the controller is already digital; use `loopshift analog` to go back", key="EXPR")
+    survey = survey_methods(controller, fs, methods, prewarp_hz=prewarp, delay_s=delay, band_hz=band,
+                            match_at_hz=match_at, keep_delay=args.keep_delay, filter_n=filter_n,
+                            gain_limit_db=limits[0], phase_limit_deg=limits[1])
+    if args.json:
+        out = []
+        for row in survey.rows:
+            item = row.summary()
+            item["best"] = row.realization.method == survey.best
+            item["delay_s"] = survey.delay_s
+            if survey.filter_error is not None:
+                item["derivative_filter"] = {"n": survey.filter_n, "tau_s": survey.filter_tau_s,
+                                             "error": survey.filter_error.summary()}
+            out.append(item)
+        emit_json(console, out)
+        return 0
+    _render(console, survey, controller)
+    return 0
+
+
+def _hz(x) -> str:
+    from convert.values import format_value
+
+    return "whole band" if x is None else format_value(x, "hz", 4)
+
+
+def _coefs(values) -> str:
+    return "\n".join(format(float(v), ".6g") for v in values)
+
+
+def _render(console, survey, source) -> None:
+    from rich.table import Table
+
+    from convert.values import format_value
+
+    fs = survey.rows[0].realization.fs_hz
+    console.print(f"analog controller: {survey.analog.expression()}", markup=False)
+    if survey.filter_error is not None:
+        fe = survey.filter_error
+        console.print(f"derivative filter N = {survey.filter_n:g} added (tau = Td/N = {format_value(survey.filter_tau_s, 'second', 4)}); "
+                      f"its own error over the band: {fe.max_gain_error_db:.3g} dB, {fe.max_phase_error_deg:.3g} deg, "
+                      f"agrees up to {_hz(fe.agreement_limit_hz)}", markup=False)
+    console.print(f"sample rate {format_value(fs, 'hz', 6)}, band {_hz(survey.band_hz[0])} .. {_hz(survey.band_hz[1])}, "
+                  f"computation delay {format_value(survey.delay_s, 'second', 4)}", markup=False)
+    first = survey.rows[0]
+    lim = f"{first.method_error.gain_limit_db:g} dB / {first.method_error.phase_limit_deg:g} deg"
+    table = Table(show_lines=True)
+    table.add_column("")
+    for row in survey.rows:
+        m = row.realization.method
+        label = m + (" (best)" if m == survey.best else "")
+        if m == "tustin" and row.realization.prewarp_hz is not None:
+            label += f"\nprewarp {_hz(row.realization.prewarp_hz)}"
+        table.add_column(label)
+
+    def add(name, fn):
+        table.add_row(name, *[fn(r) for r in survey.rows])
+
+    add("b (z^-1 ascending)", lambda r: _coefs(r.realization.b))
+    add("a (a0 = 1)", lambda r: _coefs(r.realization.a))
+    add("method: max gain error", lambda r: f"{r.method_error.max_gain_error_db:.3g} dB\nat {_hz(r.method_error.max_gain_error_at_hz)}")
+    add("method: max phase error", lambda r: f"{r.method_error.max_phase_error_deg:.3g} deg\nat {_hz(r.method_error.max_phase_error_at_hz)}")
+    add(f"method: agrees ({lim}) up to", lambda r: _hz(r.method_error.agreement_limit_hz))
+    add("seen from loop (hold + delay): max gain / phase error",
+        lambda r: f"{r.loop_error.max_gain_error_db:.3g} dB\n{r.loop_error.max_phase_error_deg:.3g} deg")
+    add("seen from loop: agrees up to", lambda r: _hz(r.loop_error.agreement_limit_hz))
+    add("warnings", lambda r: str(len(r.realization.warnings)) if r.realization.warnings else "none")
+    console.print(table)
+    if survey.best:
+        console.print(f"best: {survey.best} — {survey.best_reason}", markup=False)
+    else:
+        console.print(f"no method picked: {survey.best_reason}", markup=False)
+    console.print("difference equations (e = error input, u = output):", markup=False)
+    for row in survey.rows:
+        console.print(f"  {row.realization.method}: {row.realization.difference_equation}", markup=False, soft_wrap=True)
+    for row in survey.rows:
+        for note in row.realization.notes:
+            console.print(f"note: {note}", markup=False, soft_wrap=True)
+        for w in row.realization.warnings:
+            console.print(f"warning: {w}", markup=False, soft_wrap=True)
+    console.print("The tool computes; it does not certify. Verify on a bench or in simulation before a live swap.",
+                  markup=False)
