@@ -185,6 +185,19 @@ def analyze_card(netlist: Netlist, *, input: str = "VIN", output: str = "out",  
     return replace(analysis, sensitivities=tuple(card_sensitivities(netlist, inputs, output, two=setpoint is not None)))
 
 
+def setpoint_quantities(st: SetpointStructure) -> dict[str, float]:
+    """Quantities of the setpoint side: the filter's DC gain and the setpoint path's
+    high-frequency gain (positive numbers; absent where they do not exist)."""
+    out = {}
+    f0 = st.setpoint_filter.dc_gain()
+    if f0 is not None and f0 != 0:
+        out["setpoint filter DC gain"] = abs(f0)
+    hf = st.setpoint_path.high_frequency_gain()
+    if hf:
+        out["setpoint high-frequency gain"] = abs(hf)
+    return out
+
+
 def card_sensitivities(netlist: Netlist, inputs, output: str, *, two: bool):
     """Sensitivity rows for a card (see :mod:`convert.circuit.sensitivity`)."""
     from convert.circuit.sensitivity import controller_quantities, sensitivities
@@ -195,7 +208,9 @@ def card_sensitivities(netlist: Netlist, inputs, output: str, *, two: bool):
         keys = [nl.element(n).name for n in inputs]
         if two:
             st = setpoint_structure(res[keys[0]].controller, res[keys[1]].controller)
-            return controller_quantities(st.feedback, st.pid or pid_from_controller(st.feedback))
+            out = controller_quantities(st.feedback, st.pid or pid_from_controller(st.feedback))
+            out.update(setpoint_quantities(st))
+            return out
         c = res[keys[0]].controller
         return controller_quantities(c, pid_from_controller(c))
 

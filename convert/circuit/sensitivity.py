@@ -134,3 +134,25 @@ def sensitivities(netlist: Netlist, evaluate: Callable[[Netlist], dict[str, floa
 def ranked_parts(rows: list[PartSensitivity]) -> list[PartSensitivity]:
     """Rows sorted by their largest effect, biggest first."""
     return sorted(rows, key=lambda r: -max((abs(v) for v in r.effects.values()), default=0.0))
+
+
+def value_sensitivities(values: dict[str, float], evaluate: Callable[[dict[str, float]], dict[str, float]],
+                        kinds: dict[str, str] | None = None) -> list[PartSensitivity]:
+    """Elasticities for a plain part mapping (name -> SI value), e.g. a catalog topology's parts.
+
+    ``evaluate`` maps a part mapping to named positive quantities.
+    """
+    nominal = evaluate(values)
+    rows = []
+    for name, v in values.items():
+        if not (v > 0 and math.isfinite(v)):
+            continue
+        q_up = evaluate({**values, name: v * math.exp(_STEP)})
+        q_dn = evaluate({**values, name: v * math.exp(-_STEP)})
+        effects = {}
+        for key, q0 in nominal.items():
+            if key in q_up and key in q_dn and q_up[key] > 0 and q_dn[key] > 0 and q0 > 0:
+                e = (math.log(q_up[key]) - math.log(q_dn[key])) / (2 * _STEP)
+                effects[key] = 0.0 if abs(e) < 1e-7 else e
+        rows.append(PartSensitivity(name, (kinds or {}).get(name, name[:1].upper()), v, effects))
+    return rows
