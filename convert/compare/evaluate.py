@@ -133,7 +133,7 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
     if case.digital:
         realizations += _digital_realizations(case, src, analog_src, band, src_margins, duration, src_step,
                                               src_dist, tick)
-        if not src.is_digital or True:
+        if True:
             advice = _rate_advice(case, analog_src, src_margins)
         tick("sample-rate advice")
     if case.circuit:
@@ -327,8 +327,18 @@ def _loop_figures(src_m: Margins, r: Realization, src_step, src_dist, case) -> d
     m = r.margins
     if m is None:
         return f
+    total = next(row for row in r.budget if row.key == "total")
+    if total.percentile is not None:  # Monte Carlo: the percentile of the change over the draws
+        for key, attr in (("max_phase_margin_change_deg", "delta_phase_margin_deg"),
+                          ("max_gain_margin_change_db", "delta_gain_margin_db"),
+                          ("max_sensitivity_peak_change_db", "delta_sensitivity_peak_db")):
+            f[key] = getattr(total, attr)
+            f[f"{key}_note"] = f"p{total.percentile:g} over the Monte Carlo draws"
+        m = None
     for key, attr in (("max_phase_margin_change_deg", "phase_margin_deg"), ("max_gain_margin_change_db", "gain_margin_db"),
                       ("max_sensitivity_peak_change_db", "sensitivity_peak_db")):
+        if m is None:
+            break
         a, b = getattr(src_m, attr), getattr(m, attr)
         if a is None and b is None:
             f[key], f[f"{key}_note"] = 0.0, "neither loop has this figure"
