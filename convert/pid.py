@@ -223,13 +223,14 @@ class PidSettings:
         import numpy as np
 
         integral = self.ki > 0
-        filt = [self.tf, 1.0] if (self.kd > 0 and self.tf > 0) else [1.0]
+        has_d = self.kd * d_weight != 0
+        filt = [self.tf, 1.0] if (has_d and self.tf > 0) else [1.0]
         s_i = [1.0, 0.0] if integral else [1.0]
         den = np.polymul(s_i, filt)
         num = np.polymul([self.kp * p_weight], den)
         if integral:
             num = np.polyadd(num, np.polymul([self.ki], filt))
-        if self.kd > 0:
+        if has_d:
             num = np.polyadd(num, np.polymul([self.kd * d_weight, 0.0], s_i))
         num = self.sign * np.asarray(num, dtype=float)
         return list(num), list(den)
