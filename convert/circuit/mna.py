@@ -235,19 +235,41 @@ def _solve_many(G, C, B, s: np.ndarray):
     """(log|det|, det phase factor, solutions) of (G + sC) X = B at each s (batched)."""
     Y = G[None, :, :] + s[:, None, None] * C[None, :, :]
     sign, logdet = np.linalg.slogdet(Y)
-    with np.errstate(all="ignore"):
-        X = np.linalg.solve(Y, np.broadcast_to(B, (len(s),) + B.shape))
+    if np.any(sign == 0) or not np.all(np.isfinite(logdet)):
+        return sign, logdet, None
+    try:
+        with np.errstate(all="ignore"):
+            X = np.linalg.solve(Y, np.broadcast_to(B, (len(s),) + B.shape))
+    except np.linalg.LinAlgError:
+        return np.zeros_like(sign), logdet, None
     return sign, logdet, X
 
 
-def _singular_message(system: MnaSystem, G, C) -> str:
+def _singular_error(netlist: Netlist, system: MnaSystem, G, C) -> InputError:
+    """An InputError naming the element most involved in the singularity (from the null vector)."""
     s0 = np.sqrt(system.rates[0] * system.rates[1]) * np.exp(0.7j)
     Y = G + s0 * C
-    _, _, vh = np.linalg.svd(Y)
-    null = np.abs(vh[-1].conj())
-    worst = [system.unknowns[i] for i in np.argsort(null)[::-1][:3] if null[i] > 0.1 * null.max()]
-    return ("the circuit equations are singular (voltage sources, E sources or op-amp outputs in a loop, an op-amp "
-            f"without feedback, or parallel sources); involved: {', '.join(worst)}")
+    try:
+        _, _, vh = np.linalg.svd(Y)
+        null = np.abs(vh[-1].conj())
+        order = [i for i in np.argsort(null)[::-1][:3] if null[i] > 0.1 * null.max()]
+    except np.linalg.LinAlgError:  # pragma: no cover - SVD of a finite matrix converges
+        order = []
+    involved = [system.unknowns[i] for i in order]
+    element = None
+    for u in involved:
+        if u.startswith("I("):
+            element = netlist.element(u[2:-1])
+        else:
+            node = u[2:-1]
+            element = next((e for e in netlist.linear_elements if node in e.nodes), None)
+        if element is not None:
+            break
+    text = ("the circuit equations are singular (voltage sources, E sources or op-amp outputs in a loop, an op-amp "
+            f"without feedback, or a node only current sources reach); involved: {', '.join(involved) or 'unknown'}")
+    if element is None:
+        return InputError(text, where=netlist.source)
+    return InputError(text, where=element.where, key=element.name)
 
 
 def transfer_functions(netlist: Netlist, inputs: Sequence[str] = ("VIN",), output: str = "out", *,
@@ -269,8 +291,8 @@ def transfer_functions(netlist: Netlist, inputs: Sequence[str] = ("VIN",), outpu
     angles = np.exp(2j * np.pi * (np.arange(m) + 0.5) / m)
     s_all = (radii[:, None] * angles[None, :]).ravel()
     sign, logdet, X = _solve_many(G, C, B, s_all)
-    if np.any(sign == 0) or not np.all(np.isfinite(logdet)):
-        raise InputError(_singular_message(system, G, C), where=netlist.source)
+    if X is None or not np.all(np.isfinite(X)):
+        raise _singular_error(netlist, system, G, C)
     logdet = logdet.reshape(len(radii), m)
     sign = sign.reshape(len(radii), m)
     H = X[:, system.output, :].reshape(len(radii), m, len(names))
@@ -278,10 +300,10 @@ def transfer_functions(netlist: Netlist, inputs: Sequence[str] = ("VIN",), outpu
     offset = logdet.max(axis=1)
     dvals = sign * np.exp(logdet - offset[:, None])
     if np.any(np.abs(dvals).max(axis=1) < 1e-300):  # pragma: no cover - guarded by slogdet above
-        raise InputError(_singular_message(system, G, C), where=netlist.source)
+        raise _singular_error(netlist, system, G, C)
     cond_bad = _conditioning_check(G, C, radii)
     if cond_bad:
-        raise InputError(_singular_message(system, G, C), where=netlist.source)
+        raise _singular_error(netlist, system, G, C)
     den = _coefficients(dvals, radii, offset, n)
     results: dict[str, RationalResult] = {}
     for j, name in enumerate(names):
@@ -365,7 +387,7 @@ def _finish(netlist, system, G, C, b, num_asc, den_asc, name, radii) -> Rational
         raise InputError(f"the output node does not depend on {name} (the transfer function is zero)",
                          where=netlist.source, key="output")
     if not np.any(den_asc):  # pragma: no cover - singular systems are refused before
-        raise InputError(_singular_message(system, G, C), where=netlist.source)
+        raise _singular_error(netlist, system, G, C)
     zeros, nlead = _roots_asc(num_asc)
     poles, dlead = _roots_asc(den_asc)
     scale = float(radii[-1])
@@ -403,8 +425,11 @@ def _verify(controller: Controller, G, C, b, out: int, radii: np.ndarray) -> flo
     w = np.geomspace(radii[0], radii[-1], 4 * len(radii) + 3) * 1.0137
     s = 1j * w
     Y = G[None, :, :] + s[:, None, None] * C[None, :, :]
-    with np.errstate(all="ignore"):
-        x = np.linalg.solve(Y, np.broadcast_to(b[:, None], (len(s), len(b), 1)))[:, out, 0]
+    try:
+        with np.errstate(all="ignore"):
+            x = np.linalg.solve(Y, np.broadcast_to(b[:, None], (len(s), len(b), 1)))[:, out, 0]
+    except np.linalg.LinAlgError:
+        return float("inf")
     fit = controller.frequency_response(w / (2 * np.pi), via="zpk")
     peak = np.max(np.abs(x))
     err = np.abs(fit - x) / (np.abs(x) + 1e-9 * peak)

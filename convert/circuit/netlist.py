@@ -246,7 +246,7 @@ class _Scope:
             if key in self.values:
                 return self.values[key]
             if key in self.busy:
-                raise InputError(f"parameter {name!r} is defined in terms of itself", where=where)
+                raise InputError(f"parameter {name!r} is defined in terms of itself", where=where, key=".param")
             self.busy.add(key)
             try:
                 text, pwhere = self.raw[key]
@@ -566,7 +566,7 @@ class _Reader:
             return GROUND
         if n in nodemap:
             return nodemap[n]
-        return f"{prefix}{n}"
+        return f"{prefix.lower()}{n}"
 
     def element(self, line: _Line, scope: _Scope, prefix: str, nodemap: dict[str, str], depth: int,
                 local_names: set[str]) -> None:
@@ -616,6 +616,9 @@ class _Reader:
             self.notes.append(f"{where}: {tokens[0]}: ic= is ignored (initial conditions do not change the transfer"
                               " function)")
         value = evaluate(plain[2], scope, where, tokens[0])
+        if re.fullmatch(r"[+-]?[\d.]+(?:[eE][+-]?\d+)?M(?!EG|eg|Eg|IL|il)[A-Za-z]*", plain[2]):
+            self.notes.append(f"{where}: {tokens[0]}: {plain[2]!r} is read as milli ({value:g}), as every SPICE does; "
+                              "write meg for mega")
         if not value > 0:
             raise InputError(f"expected a positive value in {unit}, found {plain[2]!r} = {value:g}", where=where,
                              key=tokens[0])
