@@ -641,38 +641,21 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
         return SourceInfo(controller=ctrl, parts=dict(src.data["parts"]), tolerances=src.data["tolerances"],
                           topology=src.data["topology"])
     # netlist
-    from convert.circuit import netlist as netlist_mod
+    from convert.circuit.card import analyze_card
+    from convert.circuit.netlist import read_netlist
 
     file_path: Path = src.data["file"]
-    text = file_path.read_text(encoding="utf-8")
-    net = netlist_mod.read_netlist(text, source=str(file_path.name))
-    notes: list[str] = []
+    try:
+        text = file_path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot read the netlist {str(file_path)!r}: {exc}", key="file") from None
+    net = read_netlist(text, source=file_path.name)
+    card = analyze_card(net, input=src.data["input"], output=src.data["output"], setpoint=src.data["setpoint"],
+                        measurement=src.data["measurement"], with_sensitivities=False)
     extra: dict = {"netlist_file": str(file_path)}
-    if src.data["setpoint"]:
-        ctrl, notes2, extra2 = _two_input_card(net, src.data)
-        notes += notes2
-        extra.update(extra2)
-    else:
-        from convert.circuit.mna import transfer_function
-
-        ctrl = transfer_function(net, input=src.data["input"], output=src.data["output"])
-    for attr in ("notes", "clamps", "warnings"):
-        items = getattr(net, attr, None)
-        if items:
-            notes += [str(x) for x in items]
-    return SourceInfo(controller=ctrl, notes=tuple(notes), extra=extra)
-
-
-def _two_input_card(net, data) -> tuple[Any, list[str], dict]:
-    """Feedback controller of a card with separate setpoint and measurement inputs: the
-    transfer function from the measurement, sign-flipped (error = setpoint − measurement)."""
-    from convert.circuit.mna import transfer_function
-
-    from_meas = transfer_function(net, input=data["measurement"], output=data["output"])
-    from_sp = transfer_function(net, input=data["setpoint"], output=data["output"])
-    ctrl = from_meas.scaled(-1.0)
-    notes = ["feedback controller taken from the measurement input (sign reversed: error = setpoint − measurement)"]
-    return ctrl, notes, {"setpoint_path": from_sp}
+    if card.structure is not None:
+        extra["setpoint_structure"] = card.structure.description
+    return SourceInfo(controller=card.controller.with_name("card"), pid=card.pid, notes=tuple(card.notes), extra=extra)
 
 
 def case_summary(case: Case) -> dict:
