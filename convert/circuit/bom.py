@@ -1,0 +1,62 @@
+"""Bill of materials: CSV with reference, value, series, tolerance, role.
+
+Values are written with SI prefixes (``49.9 kΩ``, ``1.5 µF``); series is the IEC 60063 series the
+value was taken from (empty for op-amps and potentiometers); tolerance is a percentage.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+from typing import Mapping
+
+from convert.values import format_value
+
+COLUMNS = ("reference", "value", "series", "tolerance", "role")
+
+
+def bom_rows(design, tolerances: Mapping[str, float] | None = None, trims=()) -> list[dict]:
+    """Rows for a :class:`~convert.circuit.design.CircuitDesign` (rounded parts, the inverter if
+    the design needs one, op-amps, and any trimmer potentiometers from :mod:`convert.circuit.trim`)."""
+    from convert.circuit.netlist_out import INVERTER_PARTS
+    from convert.circuit.tolerance import DEFAULT_TOLERANCES, tolerance_of
+
+    tolerances = dict(DEFAULT_TOLERANCES if tolerances is None else tolerances)
+    topo = design.topology
+    opts = design.options
+    trimmed = {t.part: t for t in trims}
+    rows = []
+    for p in topo.parts:
+        value = design.rounded[p.name]
+        if (p.kind == "R" and math.isinf(value)) or (p.kind == "C" and value == 0):
+            continue
+        tol = f"{tolerance_of(p, tolerances) * 100:g}%"
+        if p.name in trimmed:
+            t = trimmed[p.name]
+            rows.append({"reference": f"{p.name}A", "value": format_value(t.fixed_ohm, "ohm", 4),
+                         "series": opts.resistors, "tolerance": tol, "role": f"{p.role}; fixed part of the trim"})
+            rows.append({"reference": f"{p.name}B", "value": format_value(t.pot_ohm, "ohm", 4), "series": "",
+                         "tolerance": "", "role": f"trimmer potentiometer (rheostat) setting {t.parameter}"})
+            continue
+        rows.append({"reference": p.name, "value": format_value(value, p.unit_kind, 4),
+                     "series": opts.series_for(p.kind), "tolerance": tol, "role": p.role})
+    if design.needs_inverter:
+        for name, value in INVERTER_PARTS.items():
+            rows.append({"reference": name, "value": format_value(value, "ohm", 4), "series": opts.resistors,
+                         "tolerance": f"{tolerances.get('R', 0) * 100:g}%", "role": "unity inverter resistor"})
+    for st in topo.stages:
+        rows.append({"reference": st.amp, "value": "op-amp", "series": "", "tolerance": "",
+                     "role": f"amplifier: {st.role}"})
+    if design.needs_inverter:
+        rows.append({"reference": "UINV", "value": "op-amp", "series": "", "tolerance": "", "role": "unity inverter"})
+    return rows
+
+
+def bom_csv(rows: list[dict]) -> str:
+    buf = io.StringIO()
+    writer = csv.DictWriter(buf, fieldnames=COLUMNS, lineterminator="\n")
+    writer.writeheader()
+    for row in rows:
+        writer.writerow({k: row.get(k, "") for k in COLUMNS})
+    return buf.getvalue()
