@@ -148,6 +148,12 @@ def _split_prefix_unit(rest: str, kind: str, field: str, original: str) -> tuple
             f"'meg' is SPICE spelling; in loopshift values write M for mega (e.g. 1M), found {original.strip()!r}",
             key=field,
         )
+    elif rest == "m" and kind == "second":
+        # A plant user may mean minutes; a bare milli prefix on a time is refused, not guessed.
+        raise InputError(
+            f"'{original.strip()}' is ambiguous for a time: write ms for milliseconds or min for minutes",
+            key=field,
+        )
     elif rest in SI_PREFIXES and len(rest) == 1:
         return SI_PREFIXES[rest], None
     elif rest.lower() in {"kohm", "mohm"}:
@@ -185,6 +191,10 @@ def format_value(value: float, kind: str = "number", digits: int = 4) -> str:
     ``digits`` is the number of significant digits. Zero, NaN and infinities are written plainly.
     """
     unit = _UNIT_SYMBOL.get(kind, "")
+    if kind == "percent":
+        return f"{value:.{digits}g} %"
+    if kind == "ratio":
+        return f"{value:.{digits}g}"
     if value == 0 or not math.isfinite(value):
         return f"{value:g} {unit}".strip()
     magnitude = abs(value)

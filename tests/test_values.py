@@ -62,6 +62,7 @@ def test_mega_and_milli_differ():
         ("1e999", "number", "finite"),
         ("abc", "number", "expected"),
         ("4.7 xF", "farad", "prefix/unit"),
+        ("5m", "second", "ambiguous"),
         ("", "number", "expected"),
     ],
 )
@@ -86,7 +87,7 @@ def test_booleans_and_non_finite_numbers_refused():
 
 @given(
     st.floats(min_value=1e-14, max_value=1e14, allow_nan=False, allow_infinity=False),
-    st.sampled_from(["ohm", "farad", "hz", "second", "volt", "henry", "number"]),
+    st.sampled_from(["ohm", "farad", "hz", "second", "volt", "henry", "number", "percent", "ratio"]),
 )
 @settings(max_examples=EXAMPLES, deadline=None)
 def test_format_then_parse_round_trip(value, kind):
@@ -134,3 +135,18 @@ def test_spice_m_is_milli_in_ngspice():
         expected = r2 / (1e3 + r2)
         assert abs(v[0]) == pytest.approx(expected, rel=1e-6)
     assert not math.isclose(parse_spice_number("1M"), parse_spice_number("1meg"))
+
+
+def test_json_helper_handles_numpy_scalars():
+    """to_jsonable turns numpy scalars, bools, complex numbers and non-finite floats into JSON
+    values (json module of the standard library as the reference)."""
+    import json
+
+    import numpy as np
+
+    from convert.cli.common import to_jsonable
+
+    data = {"b": np.bool_(True), "x": np.float64(1.5), "n": np.int64(3), "z": 1 + 2j, "nan": float("nan"),
+            "arr": np.array([1.0, 2.0])}
+    assert json.loads(json.dumps(to_jsonable(data))) == {
+        "b": True, "x": 1.5, "n": 3, "z": {"re": 1.0, "im": 2.0}, "nan": None, "arr": [1.0, 2.0]}

@@ -63,6 +63,8 @@ def to_jsonable(value):
         return [to_jsonable(v) for v in value]
     if isinstance(value, np.ndarray):
         return [to_jsonable(v) for v in value.tolist()]
+    if isinstance(value, np.bool_):
+        return bool(value)
     if isinstance(value, (np.floating, np.integer)):
         value = value.item()
     if isinstance(value, (complex, np.complexfloating)):
