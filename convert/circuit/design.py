@@ -179,9 +179,11 @@ def add_derivative_filter(controller: Controller, n: float) -> Controller:
     except ImportError:
         shared = None
     if shared is not None:
+        from convert.errors import LoopshiftError
+
         try:
             return shared(controller, n)
-        except Exception:  # noqa: BLE001 - fall back to the local rule below
+        except LoopshiftError:  # a target the shared rule does not take: the local rule below
             pass
     zeros = controller.zeros()
     top = float(np.max(np.abs(zeros))) if zeros.size else 1.0
@@ -396,7 +398,19 @@ def design_circuit(controller: Controller, options: DesignOptions | None = None,
     """Design the circuit for ``controller`` (see the module docstring). ``settings``: the
     :class:`convert.pid.PidSettings` it came from, if any (needed for setpoint weights)."""
     options = options or DesignOptions()
+    pre_notes = []
+    source = controller
+    if settings is not None and settings.kd > 0 and settings.tf == 0 and settings.kp > 0:
+        import dataclasses
+
+        settings = dataclasses.replace(settings, tf=settings.kd / settings.kp / options.derivative_filter_n)
+        controller = settings.to_controller()
+        pre_notes.append(f"the PID has no derivative filter; the circuit adds tf = td/N with N = "
+                         f"{options.derivative_filter_n:g} (tf = {settings.tf:.4g} s)")
     target, filtered, notes = prepare_target(controller, options)
+    notes = pre_notes + notes
+    if pre_notes:
+        filtered = controller
     topo, alternatives = choose_topology(target, options, settings)
     shape: TargetShape = analyse_target(target)
     sign = shape.sign
@@ -426,7 +440,72 @@ def design_circuit(controller: Controller, options: DesignOptions | None = None,
     if needs_inverter:
         notes.append(f"{topo.name} is {'inverting' if topo.inverting else 'non-inverting'}; a unity inverter after it "
                      "gives the target's sign")
-    return CircuitDesign(topology=topo, source=controller, target=target, sign=sign, needs_inverter=needs_inverter,
+    return CircuitDesign(topology=topo, source=source, target=target, sign=sign, needs_inverter=needs_inverter,
                          params=dict(best_params), nominal=best_nominal, rounded=rounded, realized=realized,
                          band_hz=(float(band[0]), float(band[1])), candidates=best, options=options, notes=notes,
                          filter_added=filtered, settings=settings)
+
+
+# ----------------------------------------------------------------------------------- error sources
+
+
+def error_sources(design: CircuitDesign, *, tolerances: Mapping[str, float] | None = None, draws: int = 10000,
+                  seed: int = 1, distribution: str = "uniform", opamp=None, amplitude_v: float | None = None,
+                  rail_v: float | None = None, points_per_decade: int = 50) -> dict:
+    """Each error source alone, over the design's band, as plain numbers (dB, degrees, Hz).
+
+    Rows: ``rounding`` (series values: response error, design quantities, corners),
+    ``derivative_filter`` (the filter the circuit adds, if any), ``tolerance`` (Monte Carlo
+    percentiles and worst-case corners), ``opamp`` (finite gain-bandwidth; output swing when an
+    amplitude and rail are given), and for two-input stages ``setpoint_path``.
+    """
+    from convert.circuit.opamp import OpAmpModel, gbw_response, swing_check
+    from convert.circuit.tolerance import DEFAULT_TOLERANCES, monte_carlo, worst_case
+    from convert.compare.frequency import compare_controllers, compare_responses
+
+    f = design.f_grid(points_per_decade)
+    topo = design.topology
+    out: dict = {"band_hz": list(design.band_hz)}
+    rounding = compare_controllers(design.target, design.realized, f).summary()
+    realized_q = design.realized_parameters()
+    qerr = {}
+    for k, v in design.params.items():
+        if k in realized_q and v not in (0, None) and math.isfinite(realized_q[k]):
+            qerr[k] = {"target": v, "realized": realized_q[k], "relative_error": realized_q[k] / v - 1}
+    corners = {}
+    for label in ("zeros", "poles"):
+        t = design.target.corner_frequencies_hz()[label]
+        r = design.realized.corner_frequencies_hz()[label]
+        if len(t) == len(r) and t:
+            corners[label] = [{"target_hz": a, "realized_hz": b, "relative_error": b / a - 1} for a, b in zip(t, r)]
+    dc_t, dc_r = design.target.dc_gain(), design.realized.dc_gain()
+    gain = {"dc_gain_target": dc_t, "dc_gain_realized": dc_r}
+    if design.target.is_proper and design.realized.is_proper:
+        hf_t, hf_r = design.target.high_frequency_gain(), design.realized.high_frequency_gain()
+        gain.update({"hf_gain_target": hf_t, "hf_gain_realized": hf_r})
+    out["rounding"] = {"response": rounding, "quantities": qerr, "corners": corners, "gains": gain}
+    if design.filter_added is not None:
+        fe = compare_controllers(design.source, design.target, f).summary()
+        out["derivative_filter"] = {"response": fe, "note": "the target as given vs the target with the circuit's filter"}
+    if design.topology.two_input and design.settings is not None:
+        sp_t = design.settings.setpoint_controller()
+        sp_r = topo.paths_from_parts(design.rounded)["setpoint"].scaled(design.sign)
+        out["setpoint_path"] = {"response": compare_controllers(sp_t, sp_r, f).summary(),
+                                "target": {"num": list(sp_t.num), "den": list(sp_t.den)},
+                                "realized": {"num": list(sp_r.num), "den": list(sp_r.den)}}
+    tol = dict(DEFAULT_TOLERANCES if tolerances is None else tolerances)
+    if draws:
+        mc = monte_carlo(topo, design.rounded, tol, f, draws=draws, seed=seed, distribution=distribution)
+        wc = worst_case(topo, design.rounded, tol, f)
+        out["tolerance"] = {"monte_carlo": mc.summary(), "worst_case": wc.summary()}
+    if opamp is not None and not opamp.ideal:
+        parts = {k: np.asarray(v) for k, v in design.rounded.items()}
+        real = gbw_response(topo, parts, f, opamp)
+        ideal = topo.response({k: np.asarray([v]) for k, v in design.rounded.items()}, f)[0]
+        out["opamp"] = {"gbw_hz": opamp.gbw_hz, "a0": opamp.a0,
+                        "response": compare_responses(ideal, np.asarray(real).reshape(-1), f).summary()}
+    if amplitude_v is not None and rail_v is not None:
+        sw = swing_check(topo, {k: np.asarray(v) for k, v in design.rounded.items()}, f, amplitude_v, rail_v,
+                         opamp or OpAmpModel())
+        out.setdefault("opamp", {})["swing"] = sw.summary()
+    return out

@@ -524,7 +524,7 @@ def _fit_pid_single(topo, shape, settings):
     for a, b in ((0, 1), (1, 0)):
         ti, td = 1.0 / shape.zeros[a], 1.0 / shape.zeros[b]
         if td > tf * (1 + 1e-9):
-            out.append({"k": kint * ti, "ti": ti, "td": td, "tf": tf})
+            out.append({"k": kint * ti, "ti_series": ti, "td_series": td, "tf": tf})
     if not out:
         raise UnrealizableError(f"{topo.name} needs one zero below the filter pole ({1 / tf / 2 / math.pi:.4g} Hz)",
                                 key="topology")
@@ -606,7 +606,7 @@ def _catalog() -> dict[str, Topology]:
         inverting=True,
         represents="k/s (pure integral action)",
         free_parts=("C1",),
-        tunable={"ti": ("R1", 1), "ki": ("R1", -1)},
+        tunable={"ti": ("R1", 1)},
         equations=("F = 1/(R1·C1·s)", "R1 = ti/C1"),
         _coefficients=lambda p: ([np.ones_like(_pos(p["R1"]))], [p["R1"] * p["C1"], 0 * _pos(p["R1"])]),
         _parameters=lambda p: {"ti": p["R1"] * p["C1"]},
@@ -624,7 +624,7 @@ def _catalog() -> dict[str, Topology]:
         inverting=True,
         represents="k/(tau·s + 1) (a first-order lag / low-pass)",
         free_parts=("C1",),
-        tunable={"k": ("R1", -1)},
+        tunable={"k": ("R1", -1), "kp": ("R1", -1), "kc": ("R1", -1)},
         equations=("F = (R2/R1)/(R2·C1·s + 1)", "R2 = tau/C1", "R1 = R2/k"),
         _coefficients=lambda p: ([p["R2"] / p["R1"]], [p["R2"] * p["C1"], np.ones_like(_pos(p["R1"]))]),
         _parameters=lambda p: {"k": p["R2"] / p["R1"], "tau": p["R2"] * p["C1"]},
@@ -704,9 +704,9 @@ def _catalog() -> dict[str, Topology]:
 
     def pid1_solve(q, f):
         c1 = f["C1"]
-        r1 = (q["td"] - q["tf"]) / c1
+        r1 = (q["td_series"] - q["tf"]) / c1
         r2 = q["k"] * r1
-        return {"C1": c1, "R1": r1, "R3": q["tf"] / c1, "R2": r2, "C2": q["ti"] / r2}
+        return {"C1": c1, "R1": r1, "R3": q["tf"] / c1, "R2": r2, "C2": q["ti_series"] / r2}
 
     T.append(Topology(
         name="pid-single-amp",
@@ -717,11 +717,11 @@ def _catalog() -> dict[str, Topology]:
         stages=(Stage("U1", "out", Series(R("R2"), C("C2")), (("in", Parallel(R("R1"), Series(R("R3"), C("C1")))),),
                       role="PID"),),
         inverting=True,
-        represents="k·(1 + 1/(ti·s))·(1 + td·s)/(1 + tf·s): PID with real zeros and derivative filter (td > tf)",
+        represents="k·(1 + 1/(ti'·s))·(1 + td'·s)/(1 + tf·s): PID with real zeros and derivative filter (td' > tf)",
         free_parts=("C1",),
         equations=("F = (1 + R2·C2·s)(1 + (R1+R3)·C1·s) / (R1·C2·s·(1 + R3·C1·s))",
-                   "k = R2/R1, ti = R2·C2, td = (R1+R3)·C1, tf = R3·C1",
-                   "R1 = (td − tf)/C1", "R3 = tf/C1", "R2 = k·R1", "C2 = ti/R2"),
+                   "k = R2/R1, ti' = R2·C2, td' = (R1+R3)·C1, tf = R3·C1 (series-form times)",
+                   "R1 = (td' − tf)/C1", "R3 = tf/C1", "R2 = k·R1", "C2 = ti'/R2"),
         _coefficients=pid1_coef,
         _parameters=lambda p: {**{"k": p["R2"] / p["R1"], "ti_series": p["R2"] * p["C2"],
                                   "td_series": (p["R1"] + p["R3"]) * p["C1"]},

@@ -44,7 +44,9 @@ def size_trim(design, parameter: str, low: float, high: float) -> Trim:
         raise InputError(f"a trim range needs 0 < low < high, found {low!r} .. {high!r}", key="--trim")
     part, exponent = topo.tunable[key]
     params = design.realized_parameters()
-    pname = key if key in params else next(iter(params))
+    pname = key if key in params else ("kp" if key == "kc" and "kp" in params else "k" if "k" in params and key in ("kp", "kc") else None)
+    if pname is None:
+        raise UnrealizableError(f"{topo.name} does not report {parameter!r}", key="--trim")
     nominal_param = params[pname]
     r = design.rounded[part]
     lo_r = r * (low / nominal_param) ** (1 / exponent)

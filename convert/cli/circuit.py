@@ -1,0 +1,323 @@
+"""``loopshift circuit``: design an op-amp circuit from standard parts for a controller, and say
+how far the built circuit is from it (rounding, tolerances, derivative filter, op-amp).
+
+Only argparse is imported at module level; the computation loads when the command runs.
+"""
+
+from __future__ import annotations
+
+import argparse
+
+DESCRIPTION = """\
+Design an op-amp circuit that realizes a controller with parts you can buy: pick a topology
+from the catalog (or the simplest that realizes the controller exactly), choose capacitors
+from a preferred series, compute resistors, round every part to an IEC 60063 series (in log
+space), and search the capacitor choices and rounding directions for the smallest error.
+Then report each error source alone: rounding, part tolerances (Monte Carlo and worst case),
+the derivative filter the circuit adds, and the op-amp's gain-bandwidth and output swing.
+
+The tool computes; it does not certify. Verify the circuit on a bench or in simulation before
+a live swap, plan a bumpless transfer, keep safety interlocks independent of this controller,
+and follow your site's change procedure, local codes and licensed practice."""
+
+EPILOG = """\
+examples:
+  loopshift circuit "2*(1 + 1/(0.3*s))"                         a PI: picks pi-rc-feedback
+  loopshift circuit --pid kc=2 ti=3s td=0.5s n=10 --resistors E24 --capacitors E6
+  loopshift circuit --pid kp=2 ki=1/s kd=0.5s tf=0.05s b=0.5 c=0  setpoint weights: two-input stage
+  loopshift circuit "(0.5s+1)/(0.05s+1)" --topology lead-lag-rc --netlist lead.cir --bom lead.csv
+  loopshift circuit "(0.2 - 0.18 z^-1)/(1 - z^-1)" --fs 100Hz   a digital PI brought back to analog
+  loopshift circuit "2*(1+1/(0.3*s))" --tolerance R=1% C=10% --draws 20000 --seed 7
+  loopshift circuit "2*(1+1/(0.3*s))" --opamp-gbw 1MHz --amplitude 1V --rail 12V
+  loopshift circuit "2*(1+1/(0.3*s))" --trim kp=1..4 --schematic pi.svg
+  loopshift circuit --catalog                                    list the topologies
+
+Rounding is to the nearest series value in log space (geometric midpoint). The search score is
+the largest |ln(H_built/H_target)| over the band (1 dB weighs as 6.6 degrees). See docs/circuits.md."""
+
+
+def add_parser(subparsers) -> argparse.ArgumentParser:
+    from convert.cli.common import add_controller_input
+
+    p = subparsers.add_parser("circuit", help="design an op-amp circuit from standard parts and report its errors",
+                              description=DESCRIPTION, epilog=EPILOG,
+                              formatter_class=argparse.RawDescriptionHelpFormatter)
+    add_controller_input(p, allow_z=True)
+    p.add_argument("--fs", metavar="HZ", help="sample rate of an expression in z, e.g. --fs 100Hz")
+    p.add_argument("--inverse-method", default="tustin", metavar="METHOD",
+                   help="method bringing a digital controller back to analog (default tustin), e.g. --inverse-method zoh")
+    p.add_argument("--topology", default="auto", metavar="NAME",
+                   help="catalog topology, or auto for the simplest that realizes the controller exactly "
+                        "(default auto), e.g. --topology pid-parallel; see --catalog")
+    p.add_argument("--catalog", action="store_true", help="list the catalog of topologies and exit, e.g. --catalog")
+    p.add_argument("--resistors", default="E96", metavar="SERIES",
+                   help="IEC 60063 series for resistors (E3 E6 E12 E24 E48 E96 E192; default E96), e.g. --resistors E24")
+    p.add_argument("--capacitors", default="E12", metavar="SERIES",
+                   help="IEC 60063 series for capacitors (default E12), e.g. --capacitors E6")
+    p.add_argument("--r-min", default="1k", metavar="OHMS", help="smallest resistor (default 1k), e.g. --r-min 2.2k")
+    p.add_argument("--r-max", default="1M", metavar="OHMS", help="largest resistor (default 1M; M is mega), e.g. --r-max 4.7M")
+    p.add_argument("--c-min", default="100p", metavar="FARADS", help="smallest capacitor (default 100p), e.g. --c-min 1n")
+    p.add_argument("--c-max", default="10u", metavar="FARADS",
+                   help="largest capacitor, non-polarized (default 10u), e.g. --c-max 22u")
+    p.add_argument("--band", nargs=2, metavar=("LOW", "HIGH"),
+                   help="band for the search and the error figures (default: a decade around the corners), "
+                        "e.g. --band 10mHz 100Hz")
+    p.add_argument("--derivative-filter", default="10", metavar="N",
+                   help="for an ideal derivative: filter pole at N times the highest zero (default 10), e.g. --derivative-filter 8")
+    p.add_argument("--tolerance", nargs="+", metavar="PART=PCT",
+                   help="part tolerances by kind or part (default R=1%% C=5%%), e.g. --tolerance R=1%% C=10%% R3=0.1%%")
+    p.add_argument("--distribution", default="uniform", choices=("uniform", "normal"),
+                   help="Monte Carlo spread inside the tolerance: uniform, or normal with the tolerance as 3 sigma")
+    p.add_argument("--draws", type=int, default=10000, metavar="N",
+                   help="Monte Carlo draws (default 10000; 0 skips the tolerance analysis), e.g. --draws 100000")
+    p.add_argument("--seed", type=int, default=1, metavar="S", help="Monte Carlo seed (default 1), e.g. --seed 7")
+    p.add_argument("--opamp-gbw", metavar="HZ",
+                   help="op-amp gain-bandwidth for the single-pole model in the errors and the netlist, e.g. --opamp-gbw 1MHz")
+    p.add_argument("--amplitude", metavar="VOLTS", help="input amplitude for the output-swing check, e.g. --amplitude 1V")
+    p.add_argument("--rail", metavar="VOLTS", help="largest output peak of the op-amps, e.g. --rail 12V")
+    p.add_argument("--trim", nargs="+", metavar="PARAM=LOW..HIGH",
+                   help="size a trimmer pot so a design quantity covers a range, e.g. --trim kp=1..4")
+    p.add_argument("--top", type=int, default=5, metavar="N", help="candidate part sets to list (default 5), e.g. --top 3")
+    p.add_argument("--netlist", metavar="FILE", help="write a SPICE netlist realizing +C(s) from in to out, e.g. --netlist pid.cir")
+    p.add_argument("--bom", metavar="FILE", help="write the bill of materials as CSV, e.g. --bom pid.csv")
+    p.add_argument("--schematic", metavar="FILE", help="draw the schematic (.png or .svg), e.g. --schematic pid.svg")
+    p.add_argument("--force", action="store_true", help="allow overwriting existing output files, e.g. --force")
+    p.add_argument("--json", action="store_true", help="print the result as JSON, e.g. --json")
+    return p
+
+
+def _value(text, kind, field):
+    from convert.values import parse_value
+
+    return parse_value(text, kind, field=field)
+
+
+def _check_outputs(args) -> list[str]:
+    import os
+
+    from convert.errors import InputError
+
+    paths = [x for x in (args.netlist, args.bom, args.schematic) if x]
+    for path in paths:
+        if os.path.exists(path) and not args.force:
+            raise InputError(f"{path} exists; choose another name or add --force to overwrite it", key="output")
+    if args.schematic and not args.schematic.lower().endswith((".png", ".svg")):
+        raise InputError(f"a schematic is written as .png or .svg, found {args.schematic!r}", key="--schematic")
+    return paths
+
+
+def _write(path: str, text: str) -> None:
+    import os
+    import tempfile
+
+    folder = os.path.dirname(os.path.abspath(path))
+    fd, tmp = tempfile.mkstemp(dir=folder, prefix=".loopshift-")
+    with os.fdopen(fd, "w", newline="") as fh:
+        fh.write(text)
+    os.replace(tmp, path)
+
+
+def _trims(args, design):
+    from convert.circuit.trim import size_trim
+    from convert.errors import InputError
+
+    out = []
+    for word in args.trim or ():
+        name, sep, rng = word.partition("=")
+        lo, sep2, hi = rng.partition("..")
+        if not sep or not sep2:
+            raise InputError(f"expected PARAM=LOW..HIGH such as kp=1..4, found {word!r}", key="--trim")
+        out.append(size_trim(design, name.strip(), _value(lo, "number", "--trim"), _value(hi, "number", "--trim")))
+    return out
+
+
+def _catalog(console, as_json: bool) -> int:
+    from convert.circuit.topologies import TOPOLOGIES
+    from convert.cli.common import emit_json
+
+    if as_json:
+        emit_json(console, {name: t.summary() for name, t in TOPOLOGIES.items()})
+        return 0
+    from rich.table import Table
+
+    table = Table(title="op-amp stage catalog", show_lines=True)
+    for col in ("name", "amps", "sign", "realizes", "parts"):
+        table.add_column(col)
+    for t in TOPOLOGIES.values():
+        table.add_row(t.name, str(t.amplifiers), "inverting" if t.inverting else "non-inverting", t.represents,
+                      ", ".join(p.name for p in t.parts))
+    console.print(table)
+    return 0
+
+
+def run(args, console) -> int:
+    if args.catalog:
+        return _catalog(console, args.json)
+    import math
+    import os
+
+    from convert.circuit.design import DesignOptions, design_circuit, error_sources
+    from convert.circuit.opamp import OpAmpModel
+    from convert.circuit.tolerance import parse_tolerances
+    from convert.cli.common import controller_from_args, emit_json
+    from convert.errors import InputError
+
+    fs = _value(args.fs, "hz", "--fs") if args.fs else None
+    controller, settings = controller_from_args(args, fs_hz=fs)
+    band = None
+    if args.band:
+        band = (_value(args.band[0], "hz", "--band"), _value(args.band[1], "hz", "--band"))
+    if args.draws < 0:
+        raise InputError(f"the number of draws must be 0 or more, found {args.draws}", key="--draws")
+    options = DesignOptions(topology=args.topology, resistors=args.resistors, capacitors=args.capacitors,
+                            r_min=_value(args.r_min, "ohm", "--r-min"), r_max=_value(args.r_max, "ohm", "--r-max"),
+                            c_min=_value(args.c_min, "farad", "--c-min"), c_max=_value(args.c_max, "farad", "--c-max"),
+                            band_hz=band, derivative_filter_n=_value(args.derivative_filter, "number", "--derivative-filter"),
+                            inverse_method=args.inverse_method, top=max(args.top, 1))
+    _check_outputs(args)
+    opamp = OpAmpModel(_value(args.opamp_gbw, "hz", "--opamp-gbw")) if args.opamp_gbw else None
+    amplitude = _value(args.amplitude, "volt", "--amplitude") if args.amplitude else None
+    rail = _value(args.rail, "volt", "--rail") if args.rail else None
+    if (amplitude is None) != (rail is None):
+        raise InputError("the output-swing check needs both --amplitude and --rail", key="--amplitude/--rail")
+    design = design_circuit(controller, options, settings=settings)
+    tolerances = parse_tolerances(args.tolerance, part_names=design.topology.part_names)
+    errors = error_sources(design, tolerances=tolerances, draws=args.draws, seed=args.seed,
+                           distribution=args.distribution, opamp=opamp, amplitude_v=amplitude, rail_v=rail)
+    trims = _trims(args, design)
+    written = []
+    if args.netlist:
+        from convert.circuit.netlist_out import design_netlist
+
+        _write(args.netlist, design_netlist(design, opamp=opamp))
+        written.append(args.netlist)
+    if args.bom:
+        from convert.circuit.bom import bom_csv, bom_rows
+
+        _write(args.bom, bom_csv(bom_rows(design, tolerances, trims)))
+        written.append(args.bom)
+    if args.schematic:
+        import tempfile
+
+        from convert.circuit.schematic import design_schematic
+
+        ext = os.path.splitext(args.schematic)[1]
+        folder = os.path.dirname(os.path.abspath(args.schematic))
+        fd, tmp = tempfile.mkstemp(dir=folder, prefix=".loopshift-", suffix=ext)
+        os.close(fd)
+        design_schematic(design, tmp)
+        os.replace(tmp, args.schematic)
+        written.append(args.schematic)
+
+    parts = {}
+    for p in design.topology.parts:
+        nominal = design.nominal.get(p.name)
+        rounded = design.rounded[p.name]
+        if (p.kind == "R" and math.isinf(rounded)) or (p.kind == "C" and rounded == 0):
+            parts[p.name] = {"nominal": None, "rounded": None, "fitted": False, "role": p.role}
+            continue
+        parts[p.name] = {"nominal": nominal, "rounded": rounded, "fitted": True, "role": p.role,
+                         "series": options.series_for(p.kind), "unit": "ohm" if p.kind == "R" else "farad"}
+    data = {
+        "topology": design.topology.name,
+        "inverting": design.topology.inverting,
+        "needs_inverter": design.needs_inverter,
+        "target": {"num": list(design.target.num), "den": list(design.target.den)},
+        "num": list(design.realized.num),
+        "den": list(design.realized.den),
+        "design_quantities": design.params,
+        "parts": parts,
+        "candidates": [c.summary() for c in design.candidates],
+        "errors": errors,
+        "trims": [t.summary() for t in trims],
+        "notes": design.notes,
+        "written": written,
+        "seed": args.seed,
+        "series": {"resistors": options.resistors, "capacitors": options.capacitors},
+    }
+    if args.json:
+        emit_json(console, data)
+        return 0
+    _render(console, design, data)
+    return 0
+
+
+def _render(console, design, data) -> None:
+    from rich.table import Table
+
+    from convert.values import format_value
+
+    topo = design.topology
+    console.print(f"[bold]{topo.name}[/bold]: {topo.description}")
+    console.print(f"target  C(s) = {design.target.expression(6)}")
+    console.print(f"built   C(s) = {design.realized.expression(6)}")
+    for note in design.notes:
+        console.print(f"note: {note}")
+    table = Table(title="parts")
+    for col in ("part", "computed", "rounded", "series", "role"):
+        table.add_column(col)
+    for name, row in data["parts"].items():
+        kind = "ohm" if topo.part(name).kind == "R" else "farad"
+        if not row["fitted"]:
+            table.add_row(name, "-", "not fitted", "", row["role"])
+            continue
+        table.add_row(name, format_value(row["nominal"], kind, 4), format_value(row["rounded"], kind, 4),
+                      row["series"], row["role"])
+    console.print(table)
+    err = data["errors"]
+    t2 = Table(title=f"error by source, {err['band_hz'][0]:.4g} Hz to {err['band_hz'][1]:.4g} Hz")
+    for col in ("source", "max gain error (dB)", "max phase error (deg)", "detail"):
+        t2.add_column(col)
+    r = err["rounding"]["response"]
+    t2.add_row("rounding to series", f"{r['max_gain_error_db']:.3f}", f"{r['max_phase_error_deg']:.2f}",
+               ", ".join(f"{k} {v['relative_error'] * 100:+.2f}%" for k, v in err["rounding"]["quantities"].items()))
+    if "derivative_filter" in err:
+        r = err["derivative_filter"]["response"]
+        t2.add_row("derivative filter added", f"{r['max_gain_error_db']:.3f}", f"{r['max_phase_error_deg']:.2f}", "")
+    if "setpoint_path" in err:
+        r = err["setpoint_path"]["response"]
+        t2.add_row("setpoint path (rounding)", f"{r['max_gain_error_db']:.3f}", f"{r['max_phase_error_deg']:.2f}", "")
+    if "tolerance" in err:
+        mc = err["tolerance"]["monte_carlo"]
+        wc = err["tolerance"]["worst_case"]
+        t2.add_row(f"tolerances, Monte Carlo {mc['percentiles'][0]:g}-{mc['percentiles'][-1]:g} %",
+                   f"{mc['spread']['gain_db']:.3f}", f"{mc['spread']['phase_deg']:.2f}",
+                   f"{mc['draws']} draws, seed {mc['seed']}, {mc['distribution']}")
+        t2.add_row("tolerances, worst case", f"{wc['spread']['gain_db']:.3f}", f"{wc['spread']['phase_deg']:.2f}", "")
+    op = err.get("opamp", {})
+    if "response" in op:
+        r = op["response"]
+        t2.add_row(f"op-amp GBW {format_value(op['gbw_hz'], 'hz', 3)}", f"{r['max_gain_error_db']:.3f}",
+                   f"{r['max_phase_error_deg']:.2f}", "")
+    if "swing" in op:
+        sw = op["swing"]
+        detail = "within the rails" if sw["ok"] else "; ".join(
+            f"{amp} exceeds {sw['rail_v']:g} V from {rng[0][0]:.4g} Hz" for amp, rng in sw["exceeded_hz"].items())
+        t2.add_row(f"output swing at {sw['amplitude_v']:g} V in", "", "", detail)
+    console.print(t2)
+    if "tolerance" in err:
+        t3 = Table(title="design quantities across tolerances (Monte Carlo percentiles; worst case)")
+        for col in ("quantity", "nominal", "low %", "median", "high %", "worst low", "worst high"):
+            t3.add_column(col)
+        wcp = err["tolerance"]["worst_case"]["parameters"]
+        for k, v in err["tolerance"]["monte_carlo"]["parameters"].items():
+            w = wcp.get(k, [float("nan"), float("nan")])
+            t3.add_row(k, f"{v['nominal']:.5g}", *(f"{x:.5g}" for x in v["percentiles"]), f"{w[0]:.5g}", f"{w[1]:.5g}")
+        console.print(t3)
+    t4 = Table(title="best part sets")
+    t4.add_column("#")
+    t4.add_column("score")
+    t4.add_column("gain dB")
+    t4.add_column("phase deg")
+    t4.add_column("parts")
+    for i, c in enumerate(data["candidates"], 1):
+        t4.add_row(str(i), f"{c['score']:.4g}", f"{c['max_gain_error_db']:.3f}", f"{c['max_phase_error_deg']:.2f}",
+                   " ".join(f"{k}={format_value(v, 'ohm' if k.startswith('R') else 'farad', 3)}"
+                            for k, v in c["parts"].items() if v not in (0.0, float('inf'))))
+    console.print(t4)
+    for t in data["trims"]:
+        console.print(f"trim {t['parameter']}: {t['part']} = {format_value(t['fixed_ohm'], 'ohm', 3)} fixed + "
+                      f"{format_value(t['pot_ohm'], 'ohm', 3)} pot covers {t['covered'][0]:.4g} .. {t['covered'][1]:.4g}")
+    for path in data["written"]:
+        console.print(f"wrote {path}")
+    console.print("Verify on a bench or in simulation before a live swap; the tool computes, it does not certify.")
