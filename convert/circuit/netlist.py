@@ -572,6 +572,8 @@ class _Reader:
                 local_names: set[str]) -> None:
         where = self.where(line)
         tokens = _tokens(line.text, where)
+        if not tokens:
+            raise InputError(f"expected an element line such as 'R1 in out 10k', found {line.text!r}", where=where)
         raw_name = tokens[0]
         if not re.fullmatch(r"[A-Za-z][A-Za-z0-9_.\-+#]*", raw_name):
             raise InputError(f"expected an element name such as R1 or C2, found {raw_name!r}", where=where)
