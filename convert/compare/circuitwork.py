@@ -1,8 +1,7 @@
 """The circuit target of a case: design, budget rows, Monte Carlo band, loop figures, files.
 
 Monte Carlo: each part is drawn independently and uniformly within ±its tolerance around its
-rounded (series) value (uniform is the conservative reading of a ± tolerance band; common
-practice), from ``numpy.random.default_rng(seed)``. Percentile rows report the 99th percentile
+rounded (series) value, by :func:`convert.circuit.tolerance.draw_parts` (seeded). Percentile rows report the 99th percentile
 of the per-draw figures.
 """
 
@@ -19,19 +18,12 @@ from convert.errors import LoopshiftError
 PERCENTILE = 99.0
 
 
-def draw_parts(rounded: dict, tolerances: dict, draws: int, seed: int) -> dict[str, np.ndarray]:
-    """Part sets (name -> array of ``draws`` values): uniform within ±tolerance of each value.
-    The tolerance of a part is looked up by its full name, then by its first letter (R, C)."""
-    rng = np.random.default_rng(seed)
-    out = {}
-    for name in sorted(rounded):
-        value = float(rounded[name])
-        tol = tolerances.get(name, tolerances.get(name[:1].upper(), 0.0))
-        if not np.isfinite(value) or value == 0.0 or tol == 0.0:
-            out[name] = np.full(draws, value)
-        else:
-            out[name] = value * (1.0 + tol * rng.uniform(-1.0, 1.0, draws))
-    return out
+def draw_parts(topology, rounded: dict, tolerances: dict, draws: int, seed: int) -> dict[str, np.ndarray]:
+    """Part sets (name -> array of ``draws`` values) from the circuit package's Monte Carlo
+    (uniform within ±tolerance; tolerance by part name, then by kind R/C)."""
+    from convert.circuit.tolerance import draw_parts as _draw
+
+    return _draw(topology, rounded, tolerances, int(draws), int(seed))
 
 
 def circuit_realization(case, src: Controller, analog_src: Controller, band, src_margins, duration, src_step,
@@ -89,7 +81,7 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
         note=f"parts rounded to {tgt.resistors}/{tgt.capacitors} alone: rounded against computed values, ideal op-amp",
         loop=spec, loop_reference=nom_l, loop_candidate=rnd_l)
     tols = dict(tgt.tolerances)
-    drawn = draw_parts(rounded, tols, n_draws, tgt.seed)
+    drawn = draw_parts(topo, rounded, tols, n_draws, tgt.seed)
     d_b, d_l = both(lambda f: resp(drawn, f))
     rows["tolerances"] = bud.error_row(
         "tolerances", band, rnd_b, d_b, percentile=PERCENTILE,
@@ -135,33 +127,26 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
     if case.plant is not None:
         r.margins = loop_margins(realized, case.plant.model, case.plant.dead_time_s)
         r.step, r.disturbance = _simulate_pair(case, realized, duration, 0.0, case.signals.output_range)
-    r.files = circuit_files(design, model)
+    r.files = circuit_files(design, model, tols)
     tick("circuit files")
     return r
 
 
-def circuit_files(design, model) -> dict:
-    """BOM (CSV), SPICE netlist and schematic of the design, from the circuit package's writers
-    where they exist; a missing writer is skipped (listed in the realization's warnings)."""
-    files: dict = {}
-    try:
-        from convert.circuit.netlist_out import design_netlist
+def circuit_files(design, model, tolerances=None) -> dict:
+    """BOM (CSV), SPICE netlist and schematic (PNG, SVG) of the design, from the circuit
+    package's writers."""
+    import tempfile
+    from pathlib import Path
 
-        files["circuit.cir"] = design_netlist(design, opamp=model)
-    except ImportError:
-        pass
-    try:
-        from convert.circuit import bom
+    from convert.circuit.bom import bom_csv, bom_rows
+    from convert.circuit.netlist_out import design_netlist
+    from convert.circuit.schematic import design_schematic
 
-        files["bom.csv"] = bom.bom_csv(design)
-    except (ImportError, AttributeError):
-        pass
-    try:
-        from convert.circuit import schematic
-
-        drawn = schematic.draw(design)
-        for ext, content in drawn.items():
-            files[f"schematic.{ext}"] = content
-    except (ImportError, AttributeError):
-        pass
+    files: dict = {"circuit.cir": design_netlist(design, opamp=model),
+                   "bom.csv": bom_csv(bom_rows(design, tolerances))}
+    with tempfile.TemporaryDirectory() as tmp:
+        for ext in ("png", "svg"):
+            path = Path(tmp) / f"schematic.{ext}"
+            design_schematic(design, str(path))
+            files[f"schematic.{ext}"] = path.read_bytes()
     return files

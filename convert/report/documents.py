@@ -17,6 +17,8 @@ FIGURE_CAPTIONS = {
 
 
 def _caption(name: str) -> str:
+    if name.startswith("schematic-"):
+        return "Schematic of the designed circuit (rounded parts)."
     if name.startswith("montecarlo-"):
         return "Monte Carlo band of the circuit's response across part tolerances."
     return FIGURE_CAPTIONS.get(name, name)

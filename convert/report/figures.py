@@ -183,6 +183,9 @@ def all_figures(results) -> dict[str, bytes]:
     if results.source_step is not None:
         out["loop.png"] = loop_responses(results)
     out["polezero.png"] = pole_zero(results)
+    for r in results.realizations:
+        if "schematic.png" in r.files:
+            out[f"schematic-{_slug(r.name)}.png"] = r.files["schematic.png"]
     return out
 
 
