@@ -104,12 +104,8 @@ def _from_tustin(dz: RootForm, t: float, prewarp_hz: float | None) -> RootForm:
         if abs(p + 1) <= _TOL:
             raise UnrealizableError("the pole at z = -1 maps to s = infinity under tustin: no proper continuous "
                                     "equivalent; remove it or use another method", key="controller")
-    c2 = 2.0 / tw
-    s_of = lambda z: c2 * (z - 1) / (z + 1)  # noqa: E731
-    zeros = [s_of(z) for z in dz.zeros if abs(z + 1) > _TOL]
-    poles = [s_of(p) for p in dz.poles]
-    shape = RootForm(tuple(zeros), tuple(poles), 1.0, None)
-    return RootForm(shape.zeros, shape.poles, _gain_by_point(shape, dz, s_of), None)
+    half = tw / 2
+    return _substituted(dz, -1.0, 2.0, np.array([half, 1.0]), np.array([-half, 1.0]))
 
 
 def _from_backward(dz: RootForm, t: float) -> RootForm:
@@ -120,11 +116,33 @@ def _from_backward(dz: RootForm, t: float) -> RootForm:
             raise UnrealizableError("the pole at z = 0 maps to s = infinity under backward-euler: no proper "
                                     "continuous equivalent; keep that part digital or use another method",
                                     key="controller")
-    s_of = lambda z: (z - 1) / (z * t)  # noqa: E731
-    zeros = [s_of(z) for z in dz.zeros if abs(z) > _TOL]
-    poles = [s_of(p) for p in dz.poles]
-    shape = RootForm(tuple(zeros), tuple(poles), 1.0, None)
-    return RootForm(shape.zeros, shape.poles, _gain_by_point(shape, dz, s_of), None)
+    return _substituted(dz, 0.0, 1.0, np.array([1.0]), np.array([-t, 1.0]))
+
+
+def _substituted(dz: RootForm, special: float, factor: float, n_s, d_s) -> RootForm:
+    """Substitute z = N(s)/D(s) into the digital controller's polynomials directly (a linear map on
+    the coefficients: no root finding, so repeated poles stay accurate). Zeros at z = ``special``
+    (where N + ... makes (z − special) = factor/D) are taken out first: they go to s = infinity."""
+    k = sum(1 for z in dz.zeros if z == special)
+    rest_zeros = [z for z in dz.zeros if z != special]
+    num_z = np.real(dz.gain * np.poly(np.asarray(rest_zeros, complex))) if rest_zeros else np.array([dz.gain])
+    den_z = np.real(np.poly(np.asarray(dz.poles, complex))) if dz.poles else np.array([1.0])
+    m_n, m_d = len(num_z) - 1, len(den_z) - 1
+
+    def subst(coeffs, m, extra):
+        out = np.zeros(1)
+        for i, c in enumerate(coeffs):
+            term = np.array([c])
+            for _ in range(m - i):
+                term = np.polymul(term, n_s)
+            for _ in range(i + extra):
+                term = np.polymul(term, d_s)
+            out = np.polyadd(out, term)
+        return out
+
+    num_s = subst(num_z, m_n, m_d - m_n - k) * factor ** k
+    den_s = subst(den_z, m_d, 0)
+    return RootForm.of(Controller.analog(np.trim_zeros(num_s, "f") if np.any(num_s) else [0.0], den_s))
 
 
 def _from_matched(dz: RootForm, t: float, match_at_hz: float | None) -> RootForm:
@@ -157,12 +175,21 @@ def _from_zoh(digital: Controller, dz: RootForm, t: float) -> RootForm:
     rd = dz.relative_degree
     if rd > 1:
         raise _delay_refusal(rd - 1, "zoh", " (a held analog controller gives at most one sample of lag)")
-    phi, gam, c, d = ss.realize(digital.num, digital.den)
+    phi, gam, c, d = ss.cascade(dz.zeros, dz.poles, dz.gain)
     n = phi.shape[0]
     if n == 0:
         return RootForm((), (), d, None)
-    log_phi, _err = logm(phi, disp=False)
-    a = np.real(log_phi) / t
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # accuracy is checked just below
+        log_phi = np.real(logm(phi))
+    err = np.linalg.norm(expm(log_phi) - phi, 1) / np.linalg.norm(phi, 1)
+    if not err <= 1e-8:
+        raise UnrealizableError(f"the matrix logarithm of the sampled state matrix is inaccurate (relative error "
+                                f"{err:.2g}); poles too close together or too near z = 0 for a trustworthy zoh "
+                                "inverse; try --method tustin", key="controller")
+    a = log_phi / t
     em = np.zeros((2 * n, 2 * n))
     em[:n, :n] = a * t
     em[:n, n:] = np.eye(n) * t
@@ -173,22 +200,18 @@ def _from_zoh(digital: Controller, dz: RootForm, t: float) -> RootForm:
         raise UnrealizableError("the sampled controller's input matrix cannot be traced back to a continuous one "
                                 "(singular hold integral); no zoh equivalent", key="controller") from None
     poles = np.array([np.log(complex(p)) / t for p in dz.poles])
-    # relative degree of the continuous system from its Markov parameters C A^k B
-    count = n
-    if d == 0.0:
-        count = n - 1
-        ak = np.eye(n)
-        for _ in range(n - 1):
-            markov = abs((c @ ak @ b)[0, 0])
-            scale = np.linalg.norm(c) * np.linalg.norm(ak) * np.linalg.norm(b)
-            if markov > 1e-9 * scale:
-                break
-            count -= 1
-            ak = ak @ a
-    zeros = ss.transmission_zeros(a, b, c, d, count)
-    shape = RootForm(tuple(zeros), tuple(poles), 1.0, None)
-    # read the gain well away from s = 0, where a repeated pole's rounding scatter matters
-    cands = 1j * np.logspace(np.log10(1.0 / t) - 3, np.log10(1.0 / t) - 0.5, 41)
-    s0 = ss.quiet_point(np.concatenate([zeros, poles]), cands)
-    value = ss.evaluate(a, b, c, d, [s0])[0]
-    return RootForm(shape.zeros, shape.poles, float(np.real(value / shape.unit_gain_at(s0))), None)
+    # The numerator follows from C(s)·den(s) sampled on a circle |s| = rho and transformed by an
+    # FFT (a unitary, well-conditioned interpolation); its degree (the continuous relative degree
+    # is not known beforehand) is where the scaled coefficients (x = s/rho) fall below 1e-6 of the largest.
+    mags = np.abs(poles[np.abs(poles) > 0])
+    rho = float(np.exp(np.mean(np.log(mags)))) if mags.size else 2 * math.pi / t / 100
+    count = 2 * n + 2
+    x = np.exp(2j * math.pi * (np.arange(count) + 0.5) / count)
+    sk = rho * x
+    vals = ss.evaluate(a, b, c, d, sk) * np.prod(sk[:, None] - poles[None, :], axis=1)
+    coef = np.array([np.mean(vals * x ** (-k)) for k in range(n + 1)])  # ascending powers of s/rho
+    coef = np.real(coef)
+    keep = np.flatnonzero(np.abs(coef) > 1e-6 * np.max(np.abs(coef)))  # below: rounding noise of logm
+    top = int(keep[-1]) if keep.size else 0
+    num = coef[: top + 1] / rho ** np.arange(top + 1)
+    return RootForm.of(Controller.analog(num[::-1], np.real(np.poly(poles))))

@@ -24,11 +24,11 @@ class RootForm:
 
     @classmethod
     def of(cls, controller: Controller) -> "RootForm":
-        """Roots of the controller's polynomials. Roots at s = 0 (analog) or z = 1 (digital) —
-        integrators and washouts — are divided out first and kept exact, since a repeated root
+        """Roots of the controller's polynomials. Roots at s = 0 (analog) or z = ±1 (digital) —
+        integrators, washouts, Nyquist zeros — are divided out first and kept exact, since a repeated root
         found numerically scatters by about the square root of the rounding error."""
-        point = 1.0 if controller.is_digital else 0.0
-        return cls(_roots(controller.num, point), _roots(controller.den, point), float(controller.gain),
+        points = (1.0, -1.0) if controller.is_digital else (0.0,)
+        return cls(_roots(controller.num, points), _roots(controller.den, points), float(controller.gain),
                    controller.sample_period_s)
 
     @property
@@ -61,13 +61,14 @@ class RootForm:
                                    self.sample_period_s, name)
 
 
-def _roots(coefficients, point: float) -> tuple[complex, ...]:
+def _roots(coefficients, points) -> tuple[complex, ...]:
     p = np.asarray(coefficients, dtype=float)
     exact: list[complex] = []
-    scale = float(np.sum(np.abs(p)))
-    while p.size > 1 and abs(np.polyval(p, point)) <= 1e-13 * scale:
-        p, _ = np.polydiv(p, [1.0, -point])
-        exact.append(complex(point))
+    for point in points:
+        scale = float(np.sum(np.abs(p)))
+        while p.size > 1 and abs(np.polyval(p, point)) <= 1e-13 * scale:
+            p, _ = np.polydiv(p, [1.0, -point])
+            exact.append(complex(point))
     rest = np.roots(p).astype(complex) if p.size > 1 else np.zeros(0, complex)
     return tuple(exact) + tuple(complex(r) for r in rest)
 

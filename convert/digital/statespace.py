@@ -52,10 +52,12 @@ def evaluate(a, b, c, d, points) -> np.ndarray:
     return out
 
 
-def transmission_zeros(a, b, c, d, count: int) -> np.ndarray:
+def transmission_zeros(a, b, c, d, count: int, bound: float | None = None) -> np.ndarray:
     """The ``count`` finite zeros of a SISO system from the generalized eigenvalues of its
     system pencil [[A, B], [C, D]] − x·[[I, 0], [0, 0]]. The caller states how many finite zeros
-    the system has (states minus relative degree); the most finite eigenvalues are kept."""
+    the system has (states minus relative degree); the most finite eigenvalues are kept. With
+    ``bound``, of those only the ones with magnitude below ``bound`` are kept (for when the
+    relative degree is not known beforehand: numerically infinite eigenvalues come out huge)."""
     from scipy.linalg import eig
 
     n = a.shape[0]
@@ -69,7 +71,10 @@ def transmission_zeros(a, b, c, d, count: int) -> np.ndarray:
     # finiteness measure: |beta| / |alpha| large means finite and moderate
     score = np.abs(beta) / np.maximum(np.abs(alpha), 1e-300)
     order = np.argsort(-score)[:count]
-    zeros = alpha[order] / beta[order]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        zeros = alpha[order] / beta[order]
+    if bound is not None:
+        zeros = zeros[np.isfinite(zeros) & (np.abs(zeros) < bound)]
     return _conjugate_clean(zeros)
 
 
@@ -90,3 +95,79 @@ def quiet_point(roots: np.ndarray, candidates: np.ndarray) -> complex:
         return complex(cands[len(cands) // 2])
     dist = np.min(np.abs(cands[:, None] - roots[None, :]) / np.maximum(np.abs(cands[:, None]), 1e-300), axis=1)
     return complex(cands[int(np.argmax(dist))])
+
+
+def cascade(zeros, poles, gain) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
+    """A state-space realization as a chain of first-order (real pole) and second-order (complex
+    pair) sections built from the roots, so repeated or clustered poles stay explicit (a Jordan
+    chain instead of a companion matrix) and the matrix logarithm stays accurate.
+
+    Needs as many poles as zeros or more (a proper system)."""
+    zeros = list(np.asarray(zeros, complex))
+    poles = list(np.asarray(poles, complex))
+    sections: list[list] = []  # [num (descending), den (descending)]
+    used = [False] * len(poles)
+    for i, p in enumerate(poles):
+        if used[i]:
+            continue
+        used[i] = True
+        if abs(p.imag) > 1e-12 * max(abs(p), 1e-300):
+            j = min((k for k in range(len(poles)) if not used[k]), key=lambda k: abs(poles[k] - np.conj(p)))
+            used[j] = True
+            sections.append([np.array([1.0]), np.array([1.0, -2 * p.real, abs(p) ** 2])])
+        else:
+            sections.append([np.array([1.0]), np.array([1.0, -p.real])])
+    z_used = [False] * len(zeros)
+    pairs, singles = [], []
+    for i, z in enumerate(zeros):
+        if z_used[i]:
+            continue
+        z_used[i] = True
+        if abs(z.imag) > 1e-12 * max(abs(z), 1e-300):
+            j = min((k for k in range(len(zeros)) if not z_used[k]), key=lambda k: abs(zeros[k] - np.conj(z)))
+            z_used[j] = True
+            pairs.append(np.array([1.0, -2 * z.real, abs(z) ** 2]))
+        else:
+            singles.append(np.array([1.0, -z.real]))
+
+    def spare(sec):
+        return (len(sec[1]) - 1) - (len(sec[0]) - 1)
+
+    for q in pairs:
+        target = next((s for s in sections if spare(s) >= 2), None)
+        if target is None:  # merge two first-order sections into one second-order section
+            firsts = [s for s in sections if len(s[1]) == 2 and len(s[0]) == 1]
+            a, b = firsts[0], firsts[1]
+            sections.remove(b)
+            a[1] = np.polymul(a[1], b[1])
+            target = a
+        target[0] = np.polymul(target[0], q)
+    for q in singles:
+        target = max(sections, key=spare)
+        target[0] = np.polymul(target[0], q)
+    if not sections:
+        return np.zeros((0, 0)), np.zeros((0, 1)), np.zeros((1, 0)), float(gain)
+    sections[0][0] = sections[0][0] * gain
+    a, b, c, d = _section(*sections[0])
+    for num, den in sections[1:]:
+        a2, b2, c2, d2 = _section(num, den)
+        n1, n2 = a.shape[0], a2.shape[0]
+        a = np.block([[a, np.zeros((n1, n2))], [b2 @ c, a2]])
+        b = np.vstack([b, b2 * d])
+        c = np.hstack([d2 * c, c2])
+        d = d2 * d
+    return a, b, c, d
+
+
+def _section(num, den):
+    den = np.asarray(den, float)
+    n = den.size - 1
+    num = np.concatenate([np.zeros(n + 1 - len(num)), np.asarray(num, float)])
+    d = float(num[0])
+    rest = num[1:] - d * den[1:]
+    a = np.zeros((n, n))
+    a[0, :] = -den[1:]
+    a[1:, :-1] = np.eye(n - 1)
+    b = np.zeros((n, 1))
+    b[0, 0] = 1.0
+    return a, b, rest.reshape(1, n), d
