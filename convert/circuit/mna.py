@@ -9,7 +9,7 @@ Cramer's rule so is the numerator N(s) = H(s)·det(G + sC).
 How the polynomials are found (numerically sound, no symbolic algebra):
 
 1. Row equilibration (constant factors; they cancel in N/D).
-2. Frequency scaling: det and H are evaluated on circles |s| = ρ_j for a ladder of radii
+2. Frequency scaling: det and H are evaluated on circles |s| = ρ_j, one per decade,
    spanning the circuit's natural frequencies (from its R·C, R/L and op-amp gain-bandwidth
    products), at M points per circle offset from the real axis. The FFT of the samples gives
    the coefficients of p(ρ_j·z). For each coefficient the radius where it is best conditioned
@@ -39,6 +39,7 @@ from convert.errors import InputError, UnrealizableError
 _FIT_RTOL = 1e-6  # allowed relative disagreement between fit and direct solve
 _ZERO_FACTOR = 1e3  # a coefficient below this many error bounds is zero
 _CANCEL_RTOL = 1e-5  # a zero and a pole this close (relative) cancel
+_CIRCLES_PER_DECADE = 1.0
 
 
 @dataclass(frozen=True)
@@ -286,8 +287,9 @@ def transfer_functions(netlist: Netlist, inputs: Sequence[str] = ("VIN",), outpu
     n = system.reactive_count
     m = n + 4
     lo, hi = system.rates
+    # One circle per decade: a coefficient's best radius is then within half a decade of ideal.
     radii = np.logspace(np.log10(lo) - 1.0, np.log10(hi) + 1.0,
-                        max(2, int(np.ceil(2 * (np.log10(hi / lo) + 2.0))) + 1))
+                        max(2, int(np.ceil(_CIRCLES_PER_DECADE * (np.log10(hi / lo) + 2.0))) + 1))
     angles = np.exp(2j * np.pi * (np.arange(m) + 0.5) / m)
     s_all = (radii[:, None] * angles[None, :]).ravel()
     sign, logdet, X = _solve_many(G, C, B, s_all)
