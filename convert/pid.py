@@ -44,9 +44,7 @@ repeats per minute (Ti = 1/reset), derivative time in s or min. See docs/pid.md.
 
 from __future__ import annotations
 
-import difflib
 import math
-import re
 from dataclasses import dataclass
 from typing import Any, Mapping, Sequence
 
@@ -520,6 +518,8 @@ def pid_from_mapping(mapping: Mapping[str, Any], where: str = "pid") -> PidSetti
     for raw_key, value in mapping.items():
         key = str(raw_key).strip().lower()
         if key not in PID_KEYS:
+            import difflib
+
             close = difflib.get_close_matches(key, PID_KEYS, n=1, cutoff=0.5)
             hint = f"; did you mean {close[0]}?" if close else ""
             raise InputError(f"unknown key{hint} (keys: {', '.join(PID_KEYS)})", where=where, key=key)
@@ -549,6 +549,8 @@ def _value(data: Mapping[str, Any], key: str, kind: str, where: str) -> float:
 
 def _rate(data: Mapping[str, Any], key: str, bare_per_s: float, where: str) -> float:
     """A rate in 1/s from ``"2/min"``, ``"0.1/s"``, ``"2 repeats/min"`` or a bare number (× bare_per_s)."""
+    import re
+
     from convert.values import parse_value
 
     text = data[key]
@@ -583,6 +585,8 @@ def _settings_from(data: dict[str, Any], where: str) -> PidSettings:
         text = str(data["form"]).strip().lower()
         text = FORM_ALIASES.get(text, text)
         if text not in FORMS:
+            import difflib
+
             close = difflib.get_close_matches(text, list(FORMS) + list(FORM_ALIASES), n=1)
             hint = f"; did you mean {close[0]}?" if close else ""
             raise InputError(f"expected parallel, ideal or series, found {data['form']!r}{hint}", where=where, key="form")
