@@ -175,7 +175,9 @@ def analyze_card(netlist: Netlist, *, input: str = "VIN", output: str = "out",  
     zeroed = [s.name for s in netlist.sources if s.name not in names]
     if zeroed:
         notes.append(f"source(s) {', '.join(zeroed)} set to zero (shorted) in the analysis")
-    notes += clamp_notes(netlist)
+    clamp_lines = clamp_notes(netlist)
+    if clamp_lines:  # the per-clamp lines live in ``clamps``; the notes keep the summary and the instruction
+        notes += [clamp_lines[0], clamp_lines[-1]]
     analysis = CardAnalysis(netlist, tuple(names), output, results, controller, pid, reason, structure,
                             find_clamps(netlist), tuple(notes))
     if not with_sensitivities:
