@@ -79,7 +79,7 @@ def _check_positive(values: np.ndarray, key: str) -> None:
 def neighbours(values, series: str, *, key: str = "value") -> tuple[np.ndarray, np.ndarray]:
     """The series values just below-or-equal and just above-or-equal each value.
 
-    A value already in the series (to 1e-9 relative) is its own lower and upper neighbour.
+    A value already in the series (to 1e-12 relative) is its own lower and upper neighbour.
     """
     x = np.asarray(values, dtype=float)
     _check_positive(x, key)
@@ -95,7 +95,7 @@ def neighbours(values, series: str, *, key: str = "value") -> tuple[np.ndarray, 
     idx = np.clip(idx, 0, n + 1)
     lo = ext[idx] * 10.0 ** decade
     hi = ext[np.minimum(idx + 1, n + 1)] * 10.0 ** decade
-    tol = 1e-9
+    tol = 1e-12  # float noise from computing a value (e.g. 4.7e3·(1 + 1e-16)) counts as that value
     same_lo = np.abs(x / lo - 1.0) <= tol
     same_hi = np.abs(x / hi - 1.0) <= tol
     lo = np.where(same_hi, hi, lo)
@@ -143,6 +143,6 @@ def values_in_range(series: str, low: float, high: float) -> np.ndarray:
 
 
 def in_series(value: float, series: str) -> bool:
-    """True when ``value`` is a value of the series (to 1e-9 relative)."""
+    """True when ``value`` is a value of the series (to 1e-12 relative)."""
     lo, hi = neighbours(value, series)
     return bool(np.all(lo == hi))

@@ -1,0 +1,128 @@
+"""Topology catalog: design equations against lcapy's symbolic analysis of the same stage, the
+stage-by-stage circuit solution against the hand-written transfer functions, and the API the
+`card` command uses."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from convert.circuit.topologies import TOPOLOGIES, get_topology, node_responses, output_node
+from convert.controller import Controller, from_expression
+from convert.errors import InputError, UnrealizableError
+
+# lcapy netlists written by hand for the stage (op-amp: E element with gain Ad -> infinity).
+LCAPY = {
+    "pi-rc-feedback": ("R1 1 2\nR2 3 2\nC1 4 3\nE1 4 0 opamp 0 2 Ad", "2*(1+1/(0.3*s))"),
+    "pd-limited": ("R1 1 2\nR3 1 3\nC1 3 2\nR2 4 2\nE1 4 0 opamp 0 2 Ad", "(0.5*s+1)/(0.05*s+1)"),
+    "pid-single-amp": ("R1 1 2\nR3 1 3\nC1 3 2\nR2 5 2\nC2 4 5\nE1 4 0 opamp 0 2 Ad",
+                       "2*(1+1/(3*s))*(1+0.5*s)/(1+0.05*s)"),
+    "lead-lag-rc": ("R1 1 2\nC1 1 2\nR2 4 2\nC2 4 2\nE1 4 0 opamp 0 2 Ad", "0.5*(s+10)/(s+1)"),
+}
+
+
+@pytest.mark.filterwarnings("ignore::UserWarning")
+@pytest.mark.parametrize("name", sorted(LCAPY))
+def test_design_equations_against_lcapy(name):
+    """Source: lcapy symbolic nodal analysis (transfer from node 1 to the op-amp output, open-loop
+    gain Ad -> oo), evaluated at the parts our design equations compute for a target: the result
+    must be the target times the stage sign."""
+    lcapy = pytest.importorskip("lcapy")
+    import sympy
+
+    text, expr = LCAPY[name]
+    topo = get_topology(name)
+    target = from_expression(expr)
+    params = topo.fit(target)[0]
+    free = {k: np.asarray(1e-6) for k in topo.free_parts}
+    parts = {k: float(v) for k, v in topo.solve(params, free).items()}
+    circuit = lcapy.Circuit(text)
+    h = circuit.transfer(1, 0, 4, 0).limit("Ad", "oo")
+    subs = {sympy.Symbol(k, positive=True): v for k, v in parts.items()}
+    s = lcapy.s.sympy
+    expr_s = h.sympy
+    expr_s = expr_s.subs({sym: parts[str(sym)] for sym in expr_s.free_symbols if str(sym) in parts})
+    num, den = sympy.fraction(sympy.together(expr_s))
+    num_c = [float(c) for c in sympy.Poly(num, s).all_coeffs()]
+    den_c = [float(c) for c in sympy.Poly(den, s).all_coeffs()]
+    built = Controller.analog(num_c, den_c)
+    f = np.logspace(-3, 3, 61)
+    assert np.allclose(built.frequency_response(f), topo.sign * target.frequency_response(f), rtol=1e-9)
+    assert subs  # parts were substituted by name
+
+
+def test_stage_solution_matches_formulas():
+    """Internal consistency: the stage-by-stage node solution (ideal op-amps) equals sign·F(s)
+    from the hand-written coefficients for random part sets of every topology."""
+    rng = np.random.default_rng(5)
+    f = np.logspace(-2, 4, 40)
+    for topo in TOPOLOGIES.values():
+        parts = {p.name: (rng.uniform(1e3, 1e6, 4) if p.kind == "R" else rng.uniform(1e-9, 1e-5, 4)) for p in topo.parts}
+        out = node_responses(topo, parts, f)[output_node(topo)]
+        assert np.allclose(out, topo.sign * topo.response(parts, f), rtol=1e-10), topo.name
+
+
+def test_fit_solve_round_trip_for_every_auto_topology():
+    """The parts from the design equations give back the design quantities (parameters())."""
+    cases = {"inverting-gain": "3", "integrator-rc": "1/(0.1*s)", "first-order-lag": "2/(0.01*s+1)",
+             "pi-rc-feedback": "2*(1+1/(0.3*s))", "lead-lag-rc": "(0.5*s+1)/(0.05*s+1)",
+             "pid-single-amp": "2*(1+1/(3*s))*(1+0.5*s)/(1+0.05*s)",
+             "pid-parallel": "(s^2+0.2*s+1)/(s*(0.01*s+1))", "pd-limited": "(0.5*s+1)/(0.05*s+1)",
+             "difference-error": "4.7"}
+    for name, expr in cases.items():
+        topo = get_topology(name)
+        target = from_expression(expr)
+        params = topo.fit(target)[0]
+        free = {k: np.asarray(1e-6 if topo.part(k).kind == "C" else 1e4) for k in topo.free_parts}
+        parts = {k: float(v) for k, v in topo.solve(params, free).items()}
+        got = topo.parameters({k: np.asarray(v) for k, v in parts.items()})
+        for k, v in params.items():
+            assert np.isclose(float(got[k]), v, rtol=1e-12), (name, k)
+        assert np.allclose(topo.controller_from_parts(parts).frequency_response([0.1, 1, 10]),
+                           abs(1) * target.frequency_response([0.1, 1, 10]), rtol=1e-9), name
+
+
+def test_card_api():
+    """The `card` command's entry: controller_from_parts returns +C(s); the sign is stated."""
+    topo = get_topology("pi-rc-feedback")
+    c = topo.controller_from_parts({"R1": "10k", "R2": 47e3, "C1": "1u"})
+    assert topo.inverting and topo.sign == -1
+    assert np.allclose(c.num, [47e3 * 1e-6 / (10e3 * 1e-6), 1 / (10e3 * 1e-6)])
+    assert topo.stage_controller_from_parts({"R1": 10e3, "R2": 47e3, "C1": 1e-6}).num[0] < 0
+    assert {"name", "description", "parts", "inverting"} <= set(vars(topo))
+
+
+@pytest.mark.parametrize("parts, match", [
+    ({"R1": 0, "R2": 1e3, "C1": 1e-6}, "positive finite"),
+    ({"R1": -5, "R2": 1e3, "C1": 1e-6}, "positive finite"),
+    ({"R1": 1e3, "C1": 1e-6}, "needs a value for R2"),
+    ({"R1": 1e3, "R2": 1e3, "C1": 1e-6, "R9": 1}, "no part 'R9'"),
+])
+def test_bad_parts(parts, match):
+    with pytest.raises(InputError, match=match):
+        get_topology("pi-rc-feedback").controller_from_parts(parts)
+
+
+def test_unknown_topology_and_unrealizable_target():
+    with pytest.raises(InputError, match="unknown topology"):
+        get_topology("pid-magic")
+    with pytest.raises(UnrealizableError, match="complex zeros"):
+        get_topology("pid-single-amp").fit(from_expression("(s^2+0.2*s+1)/(s*(0.01*s+1))"))
+    with pytest.raises(UnrealizableError, match="zero .* below the pole"):
+        get_topology("pd-limited").fit(from_expression("(0.05*s+1)/(0.5*s+1)"))
+
+
+def test_two_input_paths_reproduce_setpoint_weights():
+    """Source: the 2-DOF PID structure u = kp(b r - y) + ki/s (r - y) + kd s/(tf s+1)(c r - y)
+    as convert.pid.PidSettings defines it: both paths of the designed stage equal its
+    to_controller() and setpoint_controller() exactly (before rounding)."""
+    from convert.pid import PidSettings
+
+    s = PidSettings(kp=2, ki=1, kd=0.5, tf=0.05, b=0.4, c=0.0)
+    topo = get_topology("pid-two-input")
+    params = topo.fit(s.to_controller(), settings=s)[0]
+    parts = topo.solve(params, {"C1": np.asarray(1e-6), "C3": np.asarray(1e-6)})
+    paths = topo.paths_from_parts({k: float(v) for k, v in parts.items() if np.isfinite(v) and v > 0})
+    f = np.logspace(-2, 2, 30)
+    assert np.allclose(paths["measurement"].frequency_response(f), s.to_controller().frequency_response(f))
+    assert np.allclose(paths["setpoint"].frequency_response(f), s.setpoint_controller().frequency_response(f))
