@@ -138,7 +138,7 @@ def cascade(zeros, poles, gain) -> tuple[np.ndarray, np.ndarray, np.ndarray, flo
         if target is None:  # merge two first-order sections into one second-order section
             firsts = [s for s in sections if len(s[1]) == 2 and len(s[0]) == 1]
             a, b = firsts[0], firsts[1]
-            sections.remove(b)
+            sections = [s for s in sections if s is not b]
             a[1] = np.polymul(a[1], b[1])
             target = a
         target[0] = np.polymul(target[0], q)
