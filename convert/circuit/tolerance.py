@@ -244,8 +244,10 @@ def response_ratio_parts(num: list, den: list, w: np.ndarray, h_nominal: np.ndar
 
 def monte_carlo(topology, parts: Mapping[str, float], tolerances: Mapping[str, float], f_hz, *, draws: int = 10000,
                 seed: int = 1, distribution: str = "uniform", q: Sequence[float] = (0.5, 50.0, 99.5),
-                path: str = "controller") -> MonteCarloResult:
-    """Monte Carlo of the topology's F(j2πf) with part tolerances (see the module docstring)."""
+                path: str = "controller", dtype=np.float32) -> MonteCarloResult:
+    """Monte Carlo of the topology's F(j2πf) with part tolerances (see the module docstring).
+
+    ``dtype``: arithmetic of the per-draw response ratios (float32 default; np.float64 exact)."""
     f = np.asarray(f_hz, dtype=float)
     drawn = draw_parts(topology, parts, tolerances, draws, seed, distribution)
     checked = {k: np.asarray([float(v)]) for k, v in topology.check_parts(parts).items()}
@@ -255,7 +257,7 @@ def monte_carlo(topology, parts: Mapping[str, float], tolerances: Mapping[str, f
     with np.errstate(invalid="ignore"):
         num, den = (topology.setpoint_coefficients(drawn) if path == "setpoint" else topology.coefficients(drawn))
     w = 2 * np.pi * f
-    gain, tan, ok = response_ratio_parts(num, den, w, h_nom)
+    gain, tan, ok = response_ratio_parts(num, den, w, h_nom, dtype=dtype)
     g_pct = percentiles(gain, q, transform=lambda v: 10 * np.log10(v.astype(float))) + nom_db
     if ok:
         p_pct = percentiles(tan, q, transform=lambda v: np.degrees(np.arctan(v.astype(float)))) + nom_deg
