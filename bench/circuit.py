@@ -10,7 +10,7 @@
 2. Part search (design_circuit) with E96 resistors and E12 capacitors over the default ranges
    (1 kOhm-1 MOhm, 100 pF-10 uF). Target <= 0.5 s.
 
-Run: /work/venv/bin/python bench/circuit.py [--draws 100000] [--sample 2000]
+Run: /work/venv/bin/python bench/circuit.py [--draws 100000] [--sample 2000]   (exit 1 when a target is missed)
 """
 
 from __future__ import annotations
@@ -83,6 +83,13 @@ def main() -> None:
     print(f"                                   loop/ours = {t_loop / t_ours:6.1f}x (target >= 10)")
     print(f"  float32 vs float64 bands: max {err_db:.2e} dB, {err_deg:.2e} deg (limit 0.01 dB)")
 
+    missed = []
+    if t_ours / t_floor > 1.5:
+        missed.append("Monte Carlo vs floor")
+    if t_loop / t_ours < 10:
+        missed.append("Monte Carlo vs python-control loop")
+    if err_db > 0.01:
+        missed.append("float32 accuracy")
     for label, expr in (("pid-single-amp", "2*(1+1/(3*s))*(1+0.5*s)/(1+0.05*s)"),
                         ("pid-parallel", "(s^2+0.2*s+1)/(s*(0.01*s+1))"),
                         ("pi-rc-feedback", "2*(1+1/(0.3*s))")):
@@ -94,6 +101,12 @@ def main() -> None:
         t = time.perf_counter() - t0
         print(f"part search E96/E12 default ranges, {label:15s} {t:6.3f} s (target <= 0.5 s); "
               f"best score {d.candidates[0].score:.3g}")
+        if t > 0.5:
+            missed.append(f"part search {label}")
+    if missed:
+        print("targets missed: " + ", ".join(missed))
+        raise SystemExit(1)
+    print("all targets met")
 
 
 if __name__ == "__main__":
