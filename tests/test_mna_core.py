@@ -200,3 +200,15 @@ def test_result_is_a_controller_other_commands_use():
     np.testing.assert_allclose(np.sort_complex(p), np.sort_complex(r.controller.poles()), rtol=1e-9, atol=1e-9)
     np.testing.assert_allclose(np.sort_complex(z), np.sort_complex(r.controller.zeros()), rtol=1e-9)
     assert k == pytest.approx(r.controller.gain)
+
+
+def test_regression_zero_near_origin_not_cancelled_against_integrator():
+    """Regression (found by a random-card run): a zero at −1.738e-3 rad/s was cancelled against a pole
+    at 0 because the cancellation floor scaled with the highest frequency. Reference: the built-in
+    check against a direct complex solve (numpy LU) at 60+ frequencies, plus the closed-form fact
+    that two integrating stages give two poles at the origin (common practice)."""
+    r = transfer_function_result(read_netlist((HERE / "regression_spread_integrators.cir").read_text()))
+    assert not r.cancelled
+    assert r.controller.integrator_count() == 2
+    assert np.min(np.abs(r.controller.zeros())) == pytest.approx(1.738e-3, rel=1e-3)
+    assert r.max_fit_error < 1e-6

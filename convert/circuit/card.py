@@ -63,8 +63,8 @@ def _ratio(a: Controller, b: Controller, name: str) -> Controller:
 
     zeros = np.concatenate([a.zeros(), b.poles()])
     poles = np.concatenate([a.poles(), b.zeros()])
-    scale = max([1.0] + [abs(x) for x in np.concatenate([zeros, poles])])
-    z2, p2, _ = _cancel(zeros, poles, scale)
+    sizes = [abs(x) for x in np.concatenate([zeros, poles]) if abs(x) > 0]
+    z2, p2, _ = _cancel(zeros, poles, 1e-6 * min(sizes, default=1.0))
     return Controller.from_zpk(z2, p2, a.gain / b.gain, name=name)
 
 

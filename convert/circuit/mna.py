@@ -9,7 +9,8 @@ Cramer's rule so is the numerator N(s) = H(s)·det(G + sC).
 How the polynomials are found (numerically sound, no symbolic algebra):
 
 1. Row equilibration (constant factors; they cancel in N/D).
-2. Frequency scaling: det and H are evaluated on circles |s| = ρ_j, one per decade,
+2. Frequency scaling: det and H are evaluated on circles |s| = ρ_j, one per decade (three on a
+   retry),
    spanning the circuit's natural frequencies (from its R·C, R/L and op-amp gain-bandwidth
    products), at M points per circle offset from the real axis. The FFT of the samples gives
    the coefficients of p(ρ_j·z). For each coefficient the radius where it is best conditioned
@@ -39,7 +40,7 @@ from convert.errors import InputError, UnrealizableError
 _FIT_RTOL = 1e-6  # allowed relative disagreement between fit and direct solve
 _ZERO_FACTOR = 1e3  # a coefficient below this many error bounds is zero
 _CANCEL_RTOL = 1e-5  # a zero and a pole this close (relative) cancel
-_CIRCLES_PER_DECADE = 1.0
+_ATTEMPTS = ((1.0, 4), (3.0, 12))  # (sample circles per decade, points per circle beyond the degree)
 
 
 @dataclass(frozen=True)
@@ -284,12 +285,25 @@ def transfer_functions(netlist: Netlist, inputs: Sequence[str] = ("VIN",), outpu
     G, C, rhs = _equilibrate(system)
     names = list(rhs)
     B = np.stack([rhs[n] for n in names], axis=1)
+    if _conditioning_check(G, C, system.rates):
+        raise _singular_error(netlist, system, G, C)
+    # First try one circle per decade; if the check against a direct solve fails (time constants
+    # spread over very many decades), retry with three per decade and more points per circle.
+    last: UnrealizableError | None = None
+    for per_decade, extra in _ATTEMPTS:
+        try:
+            return _fit_all(netlist, system, G, C, B, names, per_decade, extra)
+        except UnrealizableError as exc:
+            last = exc
+    raise last
+
+
+def _fit_all(netlist, system, G, C, B, names, per_decade: float, extra: int) -> dict[str, RationalResult]:
     n = system.reactive_count
-    m = n + 4
+    m = n + extra
     lo, hi = system.rates
-    # One circle per decade: a coefficient's best radius is then within half a decade of ideal.
     radii = np.logspace(np.log10(lo) - 1.0, np.log10(hi) + 1.0,
-                        max(2, int(np.ceil(_CIRCLES_PER_DECADE * (np.log10(hi / lo) + 2.0))) + 1))
+                        max(2, int(np.ceil(per_decade * (np.log10(hi / lo) + 2.0))) + 1))
     angles = np.exp(2j * np.pi * (np.arange(m) + 0.5) / m)
     s_all = (radii[:, None] * angles[None, :]).ravel()
     sign, logdet, X = _solve_many(G, C, B, s_all)
@@ -301,11 +315,6 @@ def transfer_functions(netlist: Netlist, inputs: Sequence[str] = ("VIN",), outpu
     # Common scale per radius (in logs) so nothing overflows; the same for D and every N.
     offset = logdet.max(axis=1)
     dvals = sign * np.exp(logdet - offset[:, None])
-    if np.any(np.abs(dvals).max(axis=1) < 1e-300):  # pragma: no cover - guarded by slogdet above
-        raise _singular_error(netlist, system, G, C)
-    cond_bad = _conditioning_check(G, C, radii)
-    if cond_bad:
-        raise _singular_error(netlist, system, G, C)
     den = _coefficients(dvals, radii, offset, n)
     results: dict[str, RationalResult] = {}
     for j, name in enumerate(names):
@@ -315,14 +324,21 @@ def transfer_functions(netlist: Netlist, inputs: Sequence[str] = ("VIN",), outpu
     return results
 
 
-def _conditioning_check(G, C, radii) -> bool:
-    """True when G + sC is numerically singular at a generic point (all radii)."""
-    for rho in (radii[len(radii) // 2],):
+def _conditioning_check(G, C, rates) -> bool:
+    """True when G + sC is numerically singular at generic points across the circuit's range.
+
+    A singular pencil (sources in a loop, an op-amp without feedback) is singular at every s, so
+    it must fail at all three test points; columns are scaled first so that a wide spread of part
+    values is not mistaken for singularity."""
+    lo, hi = rates
+    for rho in (lo, np.sqrt(lo * hi), hi):
         Y = G + rho * np.exp(0.7j) * C
-        sv = np.linalg.svd(Y, compute_uv=False)
-        if sv[-1] <= 1e-13 * sv[0]:
-            return True
-    return False
+        col = np.abs(Y).max(axis=0)
+        col[col == 0] = 1.0
+        sv = np.linalg.svd(Y / col[None, :], compute_uv=False)
+        if sv[-1] > 1e-12 * sv[0]:
+            return False
+    return True
 
 
 def _coefficients(values: np.ndarray, radii: np.ndarray, offset: np.ndarray, degree: int) -> np.ndarray:
@@ -364,14 +380,16 @@ def _roots_asc(c: np.ndarray) -> tuple[np.ndarray, float]:
     return np.roots(desc).astype(complex), float(desc[0])
 
 
-def _cancel(zeros: np.ndarray, poles: np.ndarray, scale: float):
+def _cancel(zeros: np.ndarray, poles: np.ndarray, floor: float):
+    """Remove zero/pole pairs closer than _CANCEL_RTOL relative; ``floor`` (rad/s) is the magnitude
+    below which the relative test is taken against ``floor`` instead (roots near the origin)."""
     zeros, poles = list(zeros), list(poles)
     pairs = []
     for z in list(zeros):
         best, best_d = None, None
         for i, p in enumerate(poles):
             d = abs(z - p)
-            if d <= _CANCEL_RTOL * max(abs(p), abs(z), 1e-9 * scale) and (best_d is None or d < best_d):
+            if d <= _CANCEL_RTOL * max(abs(p), abs(z), floor) and (best_d is None or d < best_d):
                 best, best_d = i, d
         if best is not None:
             pairs.append((complex(z), complex(poles.pop(best))))
@@ -392,8 +410,8 @@ def _finish(netlist, system, G, C, b, num_asc, den_asc, name, radii) -> Rational
         raise _singular_error(netlist, system, G, C)
     zeros, nlead = _roots_asc(num_asc)
     poles, dlead = _roots_asc(den_asc)
-    scale = float(radii[-1])
-    z2, p2, pairs = _cancel(zeros, poles, scale)
+    # Below a millionth of the lowest sample circle a root counts as at the origin.
+    z2, p2, pairs = _cancel(zeros, poles, 1e-6 * float(radii[0]))
     if pairs:
         num_desc = _poly_from_roots(z2, nlead)
         den_desc = _poly_from_roots(p2, dlead)
