@@ -11,7 +11,7 @@ import numpy as np
 
 from convert.compare import budget as bud
 from convert.compare.frequency import response_seen_from_loop
-from convert.compare.loop import loop_margins, margin_grid, margins_of_responses
+from convert.compare.loop import loop_margins, margins_of_responses
 from convert.controller import Controller
 from convert.errors import LoopshiftError
 
@@ -57,12 +57,21 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
         return sign * np.atleast_2d(r)
 
     nominal, rounded = design.nominal, design.rounded
-    loop_f = margin_grid(src, case.plant.model, points_per_decade=80) if case.plant else None
+    loop_f = None
+    if case.plant is not None:
+        # around the source loop's crossovers: the draws move them by a few per cent at most
+        lo = (src_margins.crossover_hz or src_margins.sensitivity_peak_hz) / 30
+        hi = max(src_margins.phase_crossover_hz or 0.0, src_margins.crossover_hz or 0.0,
+                 src_margins.sensitivity_peak_hz) * 30
+        loop_f = np.logspace(np.log10(lo), np.log10(hi), 320)
     spec = bud.LoopSpec(loop_f, lambda r: margins_of_responses(loop_f, r, case.plant.model, case.plant.dead_time_s)) \
         if case.plant else None
 
     def both(fn):
-        return fn(band), (fn(loop_f) if loop_f is not None else None)
+        if loop_f is None:
+            return fn(band), None
+        out = fn(np.concatenate([band, loop_f]))  # one evaluation over both grids
+        return out[..., :band.size], out[..., band.size:]
 
     src_b, src_l = both(lambda f: response_seen_from_loop(src, f, via="zpk"))
     an_b, an_l = both(lambda f: analog_src.frequency_response(f, via="zpk"))
@@ -118,7 +127,7 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
     r = Realization(name=name, form="circuit", controller=realized, details=details, budget=budget,
                     seen=lambda f: resp(rounded, f, model)[0], warnings=list(design.notes))
     # Monte Carlo band for the figure
-    f_disp = np.logspace(np.log10(band[0] / 30), np.log10(band[-1] * 30), 300)
+    f_disp = np.logspace(np.log10(band[0] / 30), np.log10(band[-1] * 30), 200)
     mc = resp(drawn, f_disp, model)
     gain_db = 20 * np.log10(np.abs(mc))
     phase = np.degrees(np.unwrap(np.angle(mc), axis=1))
@@ -133,7 +142,7 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
 
 
 def circuit_files(design, model, tolerances=None) -> dict:
-    """BOM (CSV), SPICE netlist and schematic (PNG, SVG) of the design, from the circuit
+    """BOM (CSV), SPICE netlist and schematic (PNG) of the design, from the circuit
     package's writers."""
     import tempfile
     from pathlib import Path
@@ -145,8 +154,7 @@ def circuit_files(design, model, tolerances=None) -> dict:
     files: dict = {"circuit.cir": design_netlist(design, opamp=model),
                    "bom.csv": bom_csv(bom_rows(design, tolerances))}
     with tempfile.TemporaryDirectory() as tmp:
-        for ext in ("png", "svg"):
-            path = Path(tmp) / f"schematic.{ext}"
-            design_schematic(design, str(path))
-            files[f"schematic.{ext}"] = path.read_bytes()
+        path = Path(tmp) / "schematic.png"  # PNG only: each drawing costs about a second
+        design_schematic(design, str(path))
+        files["schematic.png"] = path.read_bytes()
     return files

@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from operator import mul
 from typing import Sequence
 
 import numpy as np
@@ -107,8 +108,10 @@ def margins_from_response(f_hz: np.ndarray, magnitude: np.ndarray, phase_rad: np
                    sensitivity_peak_hz=float(res["sensitivity_peak_hz"][0]), ms=float(res["ms"][0]))
 
 
-def margins_many(f_hz: np.ndarray, magnitude: np.ndarray, phase_rad: np.ndarray) -> dict[str, np.ndarray]:
-    """Vectorized margins for many loops at once: ``magnitude``/``phase_rad`` have shape (N, F).
+def margins_many(f_hz: np.ndarray, magnitude: np.ndarray, phase_rad: np.ndarray,
+                 loop: np.ndarray | None = None) -> dict[str, np.ndarray]:
+    """Vectorized margins for many loops at once: ``magnitude``/``phase_rad`` have shape (N, F);
+    ``loop`` (optional) the complex L itself, which saves rebuilding it from magnitude and phase.
 
     Returns arrays of length N (NaN where a figure does not exist). Crossings are located by
     linear interpolation in log-frequency between grid points.
@@ -149,8 +152,9 @@ def margins_many(f_hz: np.ndarray, magnitude: np.ndarray, phase_rad: np.ndarray)
     hasg = np.isfinite(gm)
     gm = np.where(hasg, gm, np.nan)
     fp = np.where(hasg, 10 ** (logf[:-1] + pfrac * np.diff(logf))[rows, pidx], np.nan)
-    loop = mag * np.exp(1j * ph)
-    sens = np.abs(1.0 / (1.0 + loop))
+    if loop is None:
+        loop = mag * np.exp(1j * ph)
+    sens = 1.0 / np.abs(1.0 + loop)
     si = np.argmax(sens, axis=1)
     ms = sens[rows, si]
     return {
@@ -183,7 +187,8 @@ def margins_of_responses(f_hz: np.ndarray, controller_responses: np.ndarray, pla
     f = np.asarray(f_hz, dtype=float)
     rational = np.atleast_2d(controller_responses) * plant.frequency_response(f, via="zpk")[None, :]
     phase = np.unwrap(np.angle(rational), axis=1) - 2 * np.pi * f[None, :] * dead_time_s
-    return margins_many(f, np.abs(rational), phase)
+    loop = rational * np.exp(-2j * np.pi * f * dead_time_s)[None, :]
+    return margins_many(f, np.abs(rational), phase, loop)
 
 
 # ----------------------------------------------------------------------------- time domain
@@ -200,15 +205,37 @@ class LoopResponse:
 
 
 def _state_space(controller: Controller):
-    """A state-space realization (A, B, C, D) as numpy arrays of a proper controller."""
-    from scipy.signal import tf2ss
-
+    """A state-space realization (A, B, C, D) of a proper controller (controllable canonical
+    form; works the same for polynomials in s or in z)."""
     if not controller.is_proper:
         raise InputError("an improper controller (more zeros than poles) cannot run in a loop simulation; "
                          "add a derivative filter", key="controller")
-    a, b, c, d = tf2ss(np.asarray(controller.num), np.asarray(controller.den))
-    return (np.atleast_2d(a).astype(float), np.atleast_2d(b).astype(float), np.atleast_2d(c).astype(float),
-            np.atleast_2d(d).astype(float))
+    den = np.asarray(controller.den, dtype=float)
+    n = den.size - 1
+    num = np.concatenate([np.zeros(n + 1 - len(controller.num)), np.asarray(controller.num, dtype=float)])
+    d = num[0]
+    rest = num[1:] - d * den[1:]
+    a = np.zeros((n, n))
+    if n:
+        a[0, :] = -den[1:]
+        a[1:, :-1] = np.eye(n - 1)
+    b = np.zeros((n, 1))
+    if n:
+        b[0, 0] = 1.0
+    return a, b, rest.reshape(1, n), np.array([[d]])
+
+
+def _bilinear(a, b, c, d, h: float):
+    """The bilinear (Tustin) map of a continuous state-space model at step ``h``."""
+    n = a.shape[0]
+    if n == 0:
+        return a, b, c, d
+    m = np.linalg.inv(np.eye(n) - a * h / 2)
+    ad = m @ (np.eye(n) + a * h / 2)
+    bd = m @ b * h
+    cd = c @ m
+    dd = d + c @ bd / 2
+    return ad, bd, cd, dd
 
 
 def _phi_gamma(a: np.ndarray, b: np.ndarray, t: float) -> tuple[np.ndarray, np.ndarray]:
@@ -265,10 +292,9 @@ def simulate_loop(controller: Controller, plant: Controller, dead_time_s: float 
         if steps > MAX_SIM_STEPS:
             raise InputError(f"the sampled-data simulation would need {steps} steps (sample period {t_s:g} s over "
                              f"{duration_s:g} s); shorten signals.duration", key="signals.duration")
-        ctrl_d = controller
+        ac, bc, cc, dc = _state_space(controller)
     else:
-        ctrl_d = _tustin(controller, h)
-    ac, bc, cc, dc = _state_space(ctrl_d)
+        ac, bc, cc, dc = _bilinear(*_state_space(controller), h)
     ap, bp, cp, dp = _state_space(plant)
     phi, _ = _phi_gamma(ap, bp, h)
     n_u, g0_u, g1_u = _delay_taps(ap, bp, h, dead_time_s + (delay_s if controller.is_digital else 0.0))
@@ -288,46 +314,36 @@ def simulate_loop(controller: Controller, plant: Controller, dead_time_s: float 
     x = [0.0] * npl
     xc = [0.0] * nct
     u_hist: list[float] = []  # controller output (held) per sub-step
-    y_out = np.empty(steps + 1)
-    u_out = np.empty(steps + 1)
+    y_out = [0.0] * (steps + 1)
+    u_out = [0.0] * (steps + 1)
     u_now = 0.0
     u_prev_input = 0.0
+    rows_p = list(zip(PHI, G0U, G1U, G0D, G1D))
+    rows_c = list(zip(AC, BC))
     for k in range(steps + 1):
-        y = sum(CP[i] * x[i] for i in range(npl)) + DP * u_prev_input
+        y = sum(map(mul, CP, x)) + DP * u_prev_input
         if k % every == 0:
             e = r - y
-            v = sum(CC[i] * xc[i] for i in range(nct)) + DC * e
-            xc = [sum(AC[i][j] * xc[j] for j in range(nct)) + BC[i] * e for i in range(nct)]
+            v = sum(map(mul, CC, xc)) + DC * e
+            xc = [sum(map(mul, row, xc)) + b * e for row, b in rows_c]
             u_now = lo if v < lo else hi if v > hi else v
         u_hist.append(u_now)
         y_out[k] = y
         u_out[k] = u_now
         if k == steps:
             break
-        wu0 = u_hist[k - n_u] if k - n_u >= 0 else 0.0
-        wu1 = u_hist[k - n_u - 1] if k - n_u - 1 >= 0 else 0.0
-        wd0 = dist if k - n_d >= 0 else 0.0
-        wd1 = dist if k - n_d - 1 >= 0 else 0.0
-        x = [sum(PHI[i][j] * x[j] for j in range(npl)) + G0U[i] * wu0 + G1U[i] * wu1 + G0D[i] * wd0 + G1D[i] * wd1
-             for i in range(npl)]
+        j = k - n_u
+        wu0 = u_hist[j] if j >= 0 else 0.0
+        wu1 = u_hist[j - 1] if j >= 1 else 0.0
+        wd0 = dist if k >= n_d else 0.0
+        wd1 = dist if k >= n_d + 1 else 0.0
+        x = [sum(map(mul, row, x)) + g0u * wu0 + g1u * wu1 + g0d * wd0 + g1d * wd1
+             for row, g0u, g1u, g0d, g1d in rows_p]
         u_prev_input = wu0 + wd0
+    y_out = np.asarray(y_out)
+    u_out = np.asarray(u_out)
     t = np.arange(steps + 1) * h
     return LoopResponse(t=t, y=y_out, u=u_out, kind=kind, sub_step_s=h)
-
-
-def _tustin(controller: Controller, h: float) -> Controller:
-    """The analog controller at the simulation sub-step h (bilinear map, state-space form).
-
-    This is a simulation device, not a conversion offered to users; it keeps the analog loop's
-    error of order h² in the controller and order h from the hold."""
-    from scipy.signal import cont2discrete, ss2tf
-
-    a, b, c, d = _state_space(controller)
-    if controller.order == 0:
-        return Controller.digital([controller.num[0]], [1.0], h)
-    ad, bd, cd, dd, _ = cont2discrete((a, b, c, d), h, method="bilinear")
-    num, den = ss2tf(ad, bd, cd, dd)
-    return Controller.digital(np.atleast_1d(num[0]), den, h)
 
 
 def response_deviation(reference: LoopResponse, candidate: LoopResponse) -> float:
