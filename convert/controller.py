@@ -27,9 +27,11 @@ from convert.errors import InputError
 
 Domain = Literal["analog", "digital"]
 
-# A pole counts as "at the origin" (analog) or "at z = 1" (digital) within this distance,
-# relative to the scale of the polynomial's roots. Common practice for root comparisons.
-_ROOT_ATOL = 1e-9
+# A pole counts as "at the origin" (analog) or "at z = 1" (digital) when the denominator
+# vanishes there to within this many rounding errors of its evaluation (relative to the sum of
+# the absolute coefficients, the natural bound for |x| <= 1). Poles merely close to z = 1
+# (fs far above a corner) leave a residue well above this and are not integrators.
+_ROOT_RTOL = 1e-12
 
 
 def _as_coefficients(values: Sequence[float], what: str) -> tuple[float, ...]:
@@ -159,8 +161,7 @@ class Controller:
         p = np.array(self.den)
         count = 0
         point = 1.0 if self.is_digital else 0.0
-        scale = max(1.0, float(np.max(np.abs(p))))
-        while len(p) > 1 and abs(np.polyval(p, point)) <= _ROOT_ATOL * scale:
+        while len(p) > 1 and abs(np.polyval(p, point)) <= _ROOT_RTOL * float(np.sum(np.abs(p))):
             p, _ = np.polydiv(p, [1.0, -point])
             count += 1
         return count

@@ -1,11 +1,22 @@
-"""Shared fixtures: run the CLI in-process with a recording console."""
+"""Shared fixtures: run the CLI in-process with a recording console; hypothesis profiles."""
 
 from __future__ import annotations
 
 import io
+import os
 from dataclasses import dataclass
 
 import pytest
+from hypothesis import HealthCheck, settings
+
+# The default run is reproducible (the same examples every time, so CI cannot flake on a lucky
+# draw); LOOPSHIFT_HYPOTHESIS_PROFILE=explore draws fresh examples, for the big opt-in fuzz runs
+# together with LOOPSHIFT_FUZZ_EXAMPLES=N.
+settings.register_profile("default", derandomize=True, deadline=None,
+                          suppress_health_check=[HealthCheck.too_slow])
+settings.register_profile("explore", derandomize=False, deadline=None,
+                          suppress_health_check=[HealthCheck.too_slow])
+settings.load_profile(os.environ.get("LOOPSHIFT_HYPOTHESIS_PROFILE", "default"))
 
 
 @dataclass
