@@ -653,9 +653,12 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
     card = analyze_card(net, input=src.data["input"], output=src.data["output"], setpoint=src.data["setpoint"],
                         measurement=src.data["measurement"], with_sensitivities=False)
     extra: dict = {"netlist_file": str(file_path)}
+    notes = list(card.notes)
     if card.structure is not None:
         extra["setpoint_structure"] = card.structure.description
-    return SourceInfo(controller=card.controller.with_name("card"), pid=card.pid, notes=tuple(card.notes), extra=extra)
+        notes.append("two-input card: the loop checks use its feedback controller on the error, u = C·(r − y); "
+                     f"its setpoint path differs ({card.structure.description}) and the firmware must reproduce it")
+    return SourceInfo(controller=card.controller.with_name("card"), pid=card.pid, notes=tuple(notes), extra=extra)
 
 
 def case_summary(case: Case) -> dict:

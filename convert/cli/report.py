@@ -97,6 +97,8 @@ def _summary(console, results, folder) -> None:
         for i in keep:
             table.add_column(header[i], overflow="fold")
         for row in rows:
+            if len(row) > 1 and row[1] == "not applicable":
+                continue  # the report folder lists them; the terminal keeps to what applies
             cells = []
             for i in keep:
                 c = row[i]
