@@ -184,7 +184,7 @@ def _hz(x) -> str:
 
 
 def _coefs(values) -> str:
-    return "\n".join(format(float(v), ".6g") for v in values)
+    return ", ".join(format(float(v), ".12g") for v in values)
 
 
 def _render(console, survey, source) -> None:
@@ -203,35 +203,41 @@ def _render(console, survey, source) -> None:
                   f"computation delay {format_value(survey.delay_s, 'second', 4)}", markup=False)
     first = survey.rows[0]
     lim = f"{first.method_error.gain_limit_db:g} dB / {first.method_error.phase_limit_deg:g} deg"
-    table = Table(show_lines=True)
-    table.add_column("")
-    for row in survey.rows:
-        m = row.realization.method
-        label = m + (" (best)" if m == survey.best else "")
-        if m == "tustin" and row.realization.prewarp_hz is not None:
-            label += f"\nprewarp {_hz(row.realization.prewarp_hz)}"
-        table.add_column(label)
-
-    def add(name, fn):
-        table.add_row(name, *[fn(r) for r in survey.rows])
-
-    add("b (z^-1 ascending)", lambda r: _coefs(r.realization.b))
-    add("a (a0 = 1)", lambda r: _coefs(r.realization.a))
-    add("method: max gain error", lambda r: f"{r.method_error.max_gain_error_db:.3g} dB\nat {_hz(r.method_error.max_gain_error_at_hz)}")
-    add("method: max phase error", lambda r: f"{r.method_error.max_phase_error_deg:.3g} deg\nat {_hz(r.method_error.max_phase_error_at_hz)}")
-    add(f"method: agrees ({lim}) up to", lambda r: _hz(r.method_error.agreement_limit_hz))
-    add("seen from loop (hold + delay): max gain / phase error",
-        lambda r: f"{r.loop_error.max_gain_error_db:.3g} dB\n{r.loop_error.max_phase_error_deg:.3g} deg")
-    add("seen from loop: agrees up to", lambda r: _hz(r.loop_error.agreement_limit_hz))
-    add("warnings", lambda r: str(len(r.realization.warnings)) if r.realization.warnings else "none")
+    # One row per method and no coefficients in the table, so it stays readable in an 80-column
+    # terminal; the coefficients follow below it in full precision.
+    table = Table(title="errors against the analog controller", title_justify="left")
+    table.add_column("method", overflow="fold")
+    table.add_column("max gain\nerror", justify="right")
+    table.add_column("max phase\nerror", justify="right")
+    table.add_column(f"agrees\n({lim})\nup to", justify="right")
+    table.add_column("with hold\n+ delay:\ngain, phase", justify="right")
+    table.add_column("with hold\n+ delay:\nagrees to", justify="right")
+    table.add_column("warn-\nings", justify="right")
+    for r in survey.rows:
+        m = r.realization.method
+        label = m + ("\n(best)" if m == survey.best else "")
+        if m == "tustin" and r.realization.prewarp_hz is not None:
+            label += f"\nprewarp {_hz(r.realization.prewarp_hz)}"
+        table.add_row(
+            label,
+            f"{r.method_error.max_gain_error_db:.3g} dB\n@ {_hz(r.method_error.max_gain_error_at_hz)}",
+            f"{r.method_error.max_phase_error_deg:.3g}°\n@ {_hz(r.method_error.max_phase_error_at_hz)}",
+            _hz(r.method_error.agreement_limit_hz),
+            f"{r.loop_error.max_gain_error_db:.3g} dB\n{r.loop_error.max_phase_error_deg:.3g}°",
+            _hz(r.loop_error.agreement_limit_hz),
+            str(len(r.realization.warnings)) if r.realization.warnings else "none",
+        )
     console.print(table)
     if survey.best:
         console.print(f"best: {survey.best} — {survey.best_reason}", markup=False)
     else:
         console.print(f"no method picked: {survey.best_reason}", markup=False)
-    console.print("difference equations (e = error input, u = output):", markup=False)
+    console.print("coefficients (b, a in ascending powers of z^-1, a0 = 1) and difference equations "
+                  "(e = error input, u = output):", markup=False)
     for row in survey.rows:
-        console.print(f"  {row.realization.method}: {row.realization.difference_equation}", markup=False, soft_wrap=True)
+        real = row.realization
+        console.print(f"  {real.method}: b = [{_coefs(real.b)}]  a = [{_coefs(real.a)}]", markup=False, soft_wrap=True)
+        console.print(f"  {' ' * len(real.method)}  {real.difference_equation}", markup=False, soft_wrap=True)
     for row in survey.rows:
         for note in row.realization.notes:
             console.print(f"note: {note}", markup=False, soft_wrap=True)
