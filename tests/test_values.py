@@ -144,7 +144,7 @@ def test_json_helper_handles_numpy_scalars():
 
     import numpy as np
 
-    from convert.cli.common import to_jsonable
+    from convert.jsonable import to_jsonable
 
     data = {"b": np.bool_(True), "x": np.float64(1.5), "n": np.int64(3), "z": 1 + 2j, "nan": float("nan"),
             "arr": np.array([1.0, 2.0])}

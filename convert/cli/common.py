@@ -7,7 +7,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import math
 
 PID_HELP = (
     "PID settings as KEY=VALUE words, e.g. --pid kc=2 ti=30s td=5s n=10 "
@@ -50,31 +49,9 @@ def controller_from_args(args, *, fs_hz: float | None = None):
     return settings.to_controller(), settings
 
 
-def to_jsonable(value):
-    """Convert numpy scalars/arrays, complex numbers and tuples into JSON-ready Python values.
-
-    Complex numbers become ``{"re": x, "im": y}``; NaN and infinities become ``None``.
-    """
-    import numpy as np
-
-    if isinstance(value, dict):
-        return {str(k): to_jsonable(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [to_jsonable(v) for v in value]
-    if isinstance(value, np.ndarray):
-        return [to_jsonable(v) for v in value.tolist()]
-    if isinstance(value, np.bool_):
-        return bool(value)
-    if isinstance(value, (np.floating, np.integer)):
-        value = value.item()
-    if isinstance(value, (complex, np.complexfloating)):
-        return {"re": to_jsonable(float(value.real)), "im": to_jsonable(float(value.imag))}
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
-
-
 def emit_json(console, data) -> None:
     """Write ``data`` as indented JSON to the console's stream (no colour, no wrapping)."""
+    from convert.jsonable import to_jsonable
+
     text = json.dumps(to_jsonable(data), indent=2)
     console.file.write(text + "\n")

@@ -55,12 +55,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"loopshift {_version()}")
     subparsers = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     for name in COMMANDS:
-        try:
-            module = importlib.import_module(f"convert.cli.{name}")
-        except ModuleNotFoundError as exc:  # TEMPORARY while sub-commands are being written
-            if exc.name == f"convert.cli.{name}":
-                continue
-            raise
+        module = importlib.import_module(f"convert.cli.{name}")
         module.add_parser(subparsers)
     return parser
 

@@ -13,7 +13,7 @@ def build_report(results) -> dict[str, bytes | str]:
     """Every file of the report folder: relative path -> content."""
     import json
 
-    from convert.cli.common import to_jsonable  # the one JSON helper (pure function)
+    from convert.jsonable import to_jsonable
     from convert.report.documents import html_report, markdown_report
     from convert.report.figures import all_figures
     from convert.report.results import results_dict

@@ -1,0 +1,29 @@
+"""Plain JSON-ready values from numpy and complex results (used by the CLI and the report)."""
+
+from __future__ import annotations
+
+import math
+
+
+def to_jsonable(value):
+    """Convert numpy scalars/arrays, complex numbers and tuples into JSON-ready Python values.
+
+    Complex numbers become ``{"re": x, "im": y}``; NaN and infinities become ``None``.
+    """
+    import numpy as np
+
+    if isinstance(value, dict):
+        return {str(k): to_jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [to_jsonable(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return [to_jsonable(v) for v in value.tolist()]
+    if isinstance(value, np.bool_):
+        return bool(value)
+    if isinstance(value, (np.floating, np.integer)):
+        value = value.item()
+    if isinstance(value, (complex, np.complexfloating)):
+        return {"re": to_jsonable(float(value.real)), "im": to_jsonable(float(value.imag))}
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
