@@ -419,11 +419,42 @@ def why_not_pid(controller) -> str | None:
     return _fit(controller)[1]
 
 
+#: A real pole closer to the origin than this fraction of every other corner (rad/s) is read as
+#: the PID's integrator: an integrator that leaks (an op-amp's finite open-loop gain puts the pole
+#: at about ω_i/A; the high-gain amplifier our netlists write, A = 1e9, puts it ~9 decades down).
+LEAK_RATIO = 1e-6
+
+
+def leaky_integrator_pole(controller) -> float | None:
+    """The pole (s, rad/s) of an integrator that leaks, or ``None``: an analog controller without
+    a pole at s = 0 whose smallest pole is real and at most :data:`LEAK_RATIO` times the size of
+    every other non-zero pole and zero. :func:`pid_from_controller` reads it as the integrator."""
+    import numpy as np
+
+    if controller.is_digital or controller.integrator_count() > 0 or controller.order < 1:
+        return None
+    poles = controller.poles()
+    i = int(np.argmin(np.abs(poles)))
+    p = poles[i]
+    others = np.abs(np.concatenate([np.delete(poles, i), controller.zeros()]))
+    others = others[others > 0]
+    if abs(p.imag) > 0 or others.size == 0 or not abs(p) <= LEAK_RATIO * others.min():
+        return None
+    return float(p.real)
+
+
 def _fit(controller) -> tuple[PidSettings | None, str | None]:
     import numpy as np
 
     if controller.is_digital:
         return None, "PID forms are read from analog controllers; this one is digital"
+    leak = leaky_integrator_pole(controller)
+    if leak is not None:  # read the leaking integrator as an integrator (see LEAK_RATIO)
+        from convert.controller import Controller
+
+        rest = np.delete(controller.poles(), int(np.argmin(np.abs(controller.poles()))))
+        den = np.real(np.poly(np.concatenate([rest, [0.0]])))
+        controller = Controller.analog(controller.num, den, controller.name)
     den = np.asarray(controller.den, dtype=float)
     num = np.asarray(controller.num, dtype=float)
     integrators = controller.integrator_count()
@@ -471,7 +502,7 @@ def _fit(controller) -> tuple[PidSettings | None, str | None]:
         action = "reverse"
     elif all(g <= 0 for g in gains.values()):
         action = "direct"
-        gains = {k: -g for k, g in gains.items()}
+        gains = {k: abs(g) for k, g in gains.items()}  # abs, not negation: no -0.0 in the settings
     elif tf > 0 and kd < 0 <= min(kp, ki) and kp + ki > 0:
         return None, (f"its derivative gain would be negative (kd = {kd:.6g} s): a P or PI followed by a low-pass "
                       f"(tf = {tf:.6g} s), not a PID with a derivative filter")

@@ -11,7 +11,7 @@ written as a feedback controller on the error plus what the setpoint sees::
     F(s)  = H_sp(s) / C(s)     setpoint filter: u = C·(F·r − y)
 
 Where C is a PID, the setpoint path H_sp is matched to ``sign·(kp·b + ki/s + kd·c·s/(tf·s+1))``
-(least squares over the corners, then checked to 1e-6): the weights ``b`` and ``c`` of
+(least squares over the corners, then checked to 1e-4, see _WEIGHT_RTOL): the weights ``b`` and ``c`` of
 :class:`convert.pid.PidSettings`. Otherwise F is given as a general setpoint filter. Either
 way the firmware must reproduce the same structure, not just C.
 """
@@ -28,7 +28,12 @@ from convert.circuit.netlist import Netlist
 from convert.controller import Controller
 from convert.errors import InputError
 
-_WEIGHT_RTOL = 1e-6
+# The weighted-PID reading must match the setpoint path to 1e-4 (0.01 %, far inside any part
+# tolerance): a card's op-amps have finite gain (the high-gain amplifier loopshift's own netlists
+# use, 1e9, already leaves ~3e-6), so an exact-arithmetic threshold would call a weighted PID a
+# general filter. Weights within 1e-6 of 0 or 1 are those values.
+_WEIGHT_RTOL = 1e-4
+_WEIGHT_SNAP = 1e-6
 
 
 @dataclass(frozen=True)
@@ -94,22 +99,36 @@ def _weights(pid, sp: Controller, f_hz: np.ndarray):
     if not err <= _WEIGHT_RTOL:
         return None
     for k in weights:
-        if abs(weights[k]) < 1e-9:
+        if abs(weights[k]) < _WEIGHT_SNAP:
             weights[k] = 0.0
-        if abs(weights[k] - 1.0) < 1e-9:
+        if abs(weights[k] - 1.0) < _WEIGHT_SNAP:
             weights[k] = 1.0
     if weights["b"] < 0 or weights["c"] < 0:
         return None
     return weights
 
 
-def _band(*controllers: Controller) -> np.ndarray:
+def _band(*controllers: Controller, floor_hz: float = 0.0) -> np.ndarray:
+    """Two decades around the corners of ``controllers`` (Hz); corners below ``floor_hz`` (the
+    pole of an integrator that leaks, far below the rest) are left out."""
     corners = []
     for c in controllers:
         cf = c.corner_frequencies_hz()
-        corners += cf["zeros"] + cf["poles"]
+        corners += [f for f in cf["zeros"] + cf["poles"] if f >= floor_hz]
     lo, hi = (min(corners), max(corners)) if corners else (1.0, 1.0)
     return np.geomspace(lo / 100, hi * 100, 60)
+
+
+def _leak_floor_hz(pid) -> float:
+    """Frequencies below this are where a leaking integrator (see convert.pid.LEAK_RATIO) departs
+    from the PID read from it; the weights are fitted above it."""
+    from convert.pid import LEAK_RATIO
+
+    cf = pid.to_controller().corner_frequencies_hz() if pid.kd == 0 or pid.tf > 0 else {"zeros": [], "poles": []}
+    corners = cf["zeros"] + cf["poles"]
+    if pid.ki > 0 and pid.kp > 0:
+        corners.append(pid.ki / pid.kp / (2 * np.pi))
+    return 10 * LEAK_RATIO * min(corners) if corners else 0.0
 
 
 def setpoint_structure(h_sp: Controller, h_pv: Controller) -> SetpointStructure:
@@ -121,7 +140,7 @@ def setpoint_structure(h_sp: Controller, h_pv: Controller) -> SetpointStructure:
     pid = pid_from_controller(feedback)
     weighted = None
     if pid is not None:
-        w = _weights(pid, h_sp, _band(h_sp, feedback))
+        w = _weights(pid, h_sp, _band(h_sp, feedback, floor_hz=_leak_floor_hz(pid)))
         if w is not None:
             weighted = PidSettings(pid.kp, pid.ki, pid.kd, pid.tf, w["b"], w["c"], pid.action)
     if weighted is not None:
@@ -172,6 +191,9 @@ def analyze_card(netlist: Netlist, *, input: str = "VIN", output: str = "out",  
         if controller.gain < 0:
             notes.append("the card inverts (negative gain): fed with the measurement, it acts on the error "
                          "(setpoint − measurement) as −1 × this controller")
+    leak_note = _leak_note(controller, pid)
+    if leak_note:
+        notes.append(leak_note)
     zeroed = [s.name for s in netlist.sources if s.name not in names]
     if zeroed:
         notes.append(f"source(s) {', '.join(zeroed)} set to zero (shorted) in the analysis")
@@ -185,6 +207,17 @@ def analyze_card(netlist: Netlist, *, input: str = "VIN", output: str = "out",  
     from dataclasses import replace
 
     return replace(analysis, sensitivities=tuple(card_sensitivities(netlist, inputs, output, two=setpoint is not None)))
+
+
+def _leak_note(controller: Controller, pid) -> str | None:
+    """A note when the PID read from the card has an integrator that leaks (finite op-amp gain)."""
+    from convert.pid import leaky_integrator_pole
+
+    p = leaky_integrator_pole(controller)
+    if pid is None or p is None:
+        return None
+    return (f"the integrator leaks (pole at s = {p:.3g} rad/s, {abs(p) / (2 * np.pi):.3g} Hz, far below every "
+            "other corner; an op-amp's finite gain does this): the PID values treat it as an integrator")
 
 
 def setpoint_quantities(st: SetpointStructure) -> dict[str, float]:
