@@ -30,7 +30,7 @@ import pytest
         (["show", "--pid", "kc=2", "ti=30s", "td=20s", "form=series", "n=0.2"], "n:"),
         (["show", "2*s", "--pid", "kc=2"], "not both"),
         (["show"], "give a controller"),
-        (["show", "--frobnicate"], "unrecognized arguments"),
+        (["show", "--frobnicate"], "unknown option --frobnicate"),
     ],
 )
 def test_bad_input_is_one_line_exit_2(run_cli, argv, fragment):

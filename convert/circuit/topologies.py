@@ -302,7 +302,7 @@ class Topology:
             if not open_ok and (not np.all(np.isfinite(arr)) or np.any(arr <= 0)):
                 bad = arr.ravel()[0] if arr.size else arr
                 raise InputError(f"{p.name} must be a positive finite {'resistance' if p.kind == 'R' else 'capacitance'}"
-                                 f", found {bad!r}", where=where, key=p.name)
+                                 f", found {float(bad):g}", where=where, key=p.name)
             out[p.name] = arr
         return out
 

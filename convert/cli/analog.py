@@ -55,8 +55,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 def run(args, console) -> int:
     import numpy as np
 
-    from convert.cli.common import emit_json
-    from convert.cli.digital import _positive
+    from convert.cli.common import at, emit_json
+    from convert.cli.digital import _positive, below_nyquist
     from convert.controller import from_expression
     from convert.digital import discretize, to_analog
     from convert.errors import InputError
@@ -69,14 +69,19 @@ def run(args, console) -> int:
     prewarp = _positive(args.prewarp, "hz", "--prewarp") if args.prewarp is not None else None
     match_at = _positive(args.match_at, "hz", "--match-at") if args.match_at is not None else None
     if prewarp is not None and args.method != "tustin":
-        raise InputError("--prewarp applies to --method tustin only", key="--prewarp")
+        raise InputError("applies to --method tustin only", key="--prewarp")
     if match_at is not None and args.method != "matched":
-        raise InputError("--match-at applies to --method matched only", key="--match-at")
+        raise InputError("applies to --method matched only", key="--match-at")
+    if prewarp is not None:
+        below_nyquist(prewarp, args.prewarp, fs, "--prewarp")
+    if match_at is not None:
+        below_nyquist(match_at, args.match_at, fs, "--match-at")
     digital = from_expression(args.expression, fs_hz=fs, label="EXPR_IN_Z")
     if not digital.is_digital:
         raise InputError("the expression is analog (in s); `loopshift analog` takes an expression in z", key="EXPR_IN_Z")
-    analog = to_analog(digital, args.method, prewarp, match_at_hz=match_at)
-    again = discretize(analog, fs, args.method, prewarp_hz=prewarp, match_at_hz=match_at).controller
+    with at(None, rename={"prewarp": "--prewarp", "match_at_hz": "--match-at", "method": "--method"}):
+        analog = to_analog(digital, args.method, prewarp, match_at_hz=match_at)
+        again = discretize(analog, fs, args.method, prewarp_hz=prewarp, match_at_hz=match_at).controller
     b0, a0 = np.array(digital.b), np.array(digital.a)
     b1, a1 = np.array(again.b), np.array(again.a)
     if b0.size == b1.size and a0.size == a1.size:

@@ -187,7 +187,10 @@ def _from_topology(args) -> dict:
     if not raw:
         raise InputError(f"{topo.name} needs part values: --part " + " ".join(f"{p}=..." for p in topo.part_names),
                          key="--part")
-    checked = topo.check_parts(raw, where="--part")
+    from convert.cli.common import at
+
+    with at("--part"):
+        checked = topo.check_parts(raw, where="--part")
     values = {k: float(np.asarray(v).ravel()[0]) for k, v in checked.items()}
 
     def analyse(vals: dict[str, float]):

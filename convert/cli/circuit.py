@@ -8,6 +8,8 @@ from __future__ import annotations
 
 import argparse
 
+MAX_DRAWS = 1_000_000  # beyond this a run needs gigabytes; 1e5 draws already resolve 0.5 % percentiles
+
 DESCRIPTION = """\
 Design an op-amp circuit that realizes a controller with parts you can buy: pick a topology
 from the catalog (or the simplest that realizes the controller exactly), choose capacitors
@@ -45,7 +47,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     add_controller_input(p, allow_z=True)
     p.add_argument("--fs", metavar="HZ", help="sample rate of an expression in z, e.g. --fs 100Hz")
     p.add_argument("--inverse-method", default="tustin", metavar="METHOD",
-                   help="method bringing a digital controller back to analog (default tustin), e.g. --inverse-method zoh")
+                   help="method bringing a digital controller back to analog: tustin (default), zoh, matched or "
+                        "backward-euler, e.g. --inverse-method zoh")
     p.add_argument("--topology", default="auto", metavar="NAME",
                    help="catalog topology, or auto for the simplest that realizes the controller exactly "
                         "(default auto), e.g. --topology pid-parallel; see --catalog")
@@ -67,9 +70,11 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--tolerance", nargs="+", metavar="PART=PCT",
                    help="part tolerances by kind or part (default R=1%% C=5%%), e.g. --tolerance R=1%% C=10%% R3=0.1%%")
     p.add_argument("--distribution", default="uniform", choices=("uniform", "normal"),
-                   help="Monte Carlo spread inside the tolerance: uniform, or normal with the tolerance as 3 sigma")
+                   help="Monte Carlo spread inside the tolerance: uniform (default), or normal with the tolerance "
+                        "as 3 sigma, e.g. --distribution normal")
     p.add_argument("--draws", type=int, default=10000, metavar="N",
-                   help="Monte Carlo draws (default 10000; 0 skips the tolerance analysis), e.g. --draws 100000")
+                   help=f"Monte Carlo draws (default 10000, at most {MAX_DRAWS:,}; 0 skips the tolerance analysis), "
+                        "e.g. --draws 100000")
     p.add_argument("--seed", type=int, default=1, metavar="S", help="Monte Carlo seed (default 1), e.g. --seed 7")
     p.add_argument("--opamp-gbw", metavar="HZ",
                    help="op-amp gain-bandwidth for the single-pole model in the errors and the netlist, e.g. --opamp-gbw 1MHz")
@@ -77,7 +82,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--rail", metavar="VOLTS", help="largest output peak of the op-amps, e.g. --rail 12V")
     p.add_argument("--trim", nargs="+", metavar="PARAM=LOW..HIGH",
                    help="size a trimmer pot so a design quantity covers a range, e.g. --trim kp=1..4")
-    p.add_argument("--top", type=int, default=5, metavar="N", help="candidate part sets to list (default 5), e.g. --top 3")
+    p.add_argument("--top", type=int, default=5, metavar="N",
+                   help="candidate part sets to list (default 5, 1 to 100), e.g. --top 3")
     p.add_argument("--netlist", metavar="FILE", help="write a SPICE netlist realizing +C(s) from in to out, e.g. --netlist pid.cir")
     p.add_argument("--bom", metavar="FILE", help="write the bill of materials as CSV, e.g. --bom pid.csv")
     p.add_argument("--schematic", metavar="FILE", help="draw the schematic (.png or .svg), e.g. --schematic pid.svg")
@@ -93,32 +99,24 @@ def _value(text, kind, field):
 
 
 def _check_outputs(args) -> list[str]:
-    import os
-
+    from convert.cli.common import check_output_files
     from convert.errors import InputError
 
-    paths = [x for x in (args.netlist, args.bom, args.schematic) if x]
-    for path in paths:
-        if os.path.exists(path) and not args.force:
-            raise InputError(f"{path} exists; choose another name or add --force to overwrite it", key="output")
     if args.schematic and not args.schematic.lower().endswith((".png", ".svg")):
         raise InputError(f"a schematic is written as .png or .svg, found {args.schematic!r}", key="--schematic")
-    return paths
+    return check_output_files({"--netlist": args.netlist, "--bom": args.bom, "--schematic": args.schematic},
+                              force=args.force)
 
 
 def _write(path: str, text: str) -> None:
-    import os
-    import tempfile
+    from convert.cli.common import write_text_atomic
 
-    folder = os.path.dirname(os.path.abspath(path))
-    fd, tmp = tempfile.mkstemp(dir=folder, prefix=".loopshift-")
-    with os.fdopen(fd, "w", newline="") as fh:
-        fh.write(text)
-    os.replace(tmp, path)
+    write_text_atomic(path, text)
 
 
 def _trims(args, design):
     from convert.circuit.trim import size_trim
+    from convert.cli.common import at
     from convert.errors import InputError
 
     out = []
@@ -127,7 +125,9 @@ def _trims(args, design):
         lo, sep2, hi = rng.partition("..")
         if not sep or not sep2:
             raise InputError(f"expected PARAM=LOW..HIGH such as kp=1..4, found {word!r}", key="--trim")
-        out.append(size_trim(design, name.strip(), _value(lo, "number", "--trim"), _value(hi, "number", "--trim")))
+        with at("--trim"):
+            out.append(size_trim(design, name.strip(), _value(lo, "number", "--trim"),
+                                 _value(hi, "number", "--trim")))
     return out
 
 
@@ -159,29 +159,45 @@ def run(args, console) -> int:
     from convert.circuit.design import DesignOptions, design_circuit, error_sources
     from convert.circuit.opamp import OpAmpModel
     from convert.circuit.tolerance import parse_tolerances
-    from convert.cli.common import controller_from_args, emit_json
+    from convert.cli.analog import INVERSE_NAMES
+    from convert.cli.common import at, controller_from_args, count, emit_json, positive_value
     from convert.errors import InputError
 
-    fs = _value(args.fs, "hz", "--fs") if args.fs else None
+    count(args.draws, "--draws", low=0, high=MAX_DRAWS)
+    count(args.seed, "--seed", low=0, high=2**32 - 1)
+    count(args.top, "--top", low=1, high=100)
+    if args.inverse_method not in INVERSE_NAMES:
+        raise InputError(f"no inverse for method {args.inverse_method!r}; expected one of {', '.join(INVERSE_NAMES)}",
+                         key="--inverse-method")
+    fs = positive_value(args.fs, "hz", "--fs") if args.fs else None
     controller, settings = controller_from_args(args, fs_hz=fs)
     band = None
     if args.band:
-        band = (_value(args.band[0], "hz", "--band"), _value(args.band[1], "hz", "--band"))
-    if args.draws < 0:
-        raise InputError(f"the number of draws must be 0 or more, found {args.draws}", key="--draws")
-    options = DesignOptions(topology=args.topology, resistors=args.resistors, capacitors=args.capacitors,
-                            r_min=_value(args.r_min, "ohm", "--r-min"), r_max=_value(args.r_max, "ohm", "--r-max"),
-                            c_min=_value(args.c_min, "farad", "--c-min"), c_max=_value(args.c_max, "farad", "--c-max"),
-                            band_hz=band, derivative_filter_n=_value(args.derivative_filter, "number", "--derivative-filter"),
-                            inverse_method=args.inverse_method, top=max(args.top, 1))
+        band = (positive_value(args.band[0], "hz", "--band"), positive_value(args.band[1], "hz", "--band"))
+        if not band[0] < band[1]:
+            raise InputError(f"the band's low end must be below its high end, found {args.band[0]} .. {args.band[1]}",
+                             key="--band")
+    renames = {"resistor range": "--r-min/--r-max", "capacitor range": "--c-min/--c-max", "topology": "--topology",
+               "method": "--inverse-method"}
+    with at(None, rename=renames):
+        options = DesignOptions(topology=args.topology, resistors=args.resistors, capacitors=args.capacitors,
+                                r_min=positive_value(args.r_min, "ohm", "--r-min"),
+                                r_max=positive_value(args.r_max, "ohm", "--r-max"),
+                                c_min=positive_value(args.c_min, "farad", "--c-min"),
+                                c_max=positive_value(args.c_max, "farad", "--c-max"),
+                                band_hz=band,
+                                derivative_filter_n=positive_value(args.derivative_filter, "number", "--derivative-filter"),
+                                inverse_method=args.inverse_method, top=args.top)
     _check_outputs(args)
-    opamp = OpAmpModel(_value(args.opamp_gbw, "hz", "--opamp-gbw")) if args.opamp_gbw else None
-    amplitude = _value(args.amplitude, "volt", "--amplitude") if args.amplitude else None
-    rail = _value(args.rail, "volt", "--rail") if args.rail else None
+    opamp = OpAmpModel(positive_value(args.opamp_gbw, "hz", "--opamp-gbw")) if args.opamp_gbw else None
+    amplitude = positive_value(args.amplitude, "volt", "--amplitude") if args.amplitude else None
+    rail = positive_value(args.rail, "volt", "--rail") if args.rail else None
     if (amplitude is None) != (rail is None):
         raise InputError("the output-swing check needs both --amplitude and --rail", key="--amplitude/--rail")
-    design = design_circuit(controller, options, settings=settings)
-    tolerances = parse_tolerances(args.tolerance, part_names=design.topology.part_names)
+    with at(None, rename=renames):
+        design = design_circuit(controller, options, settings=settings)
+    with at("--tolerance"):
+        tolerances = parse_tolerances(args.tolerance, part_names=design.topology.part_names)
     errors = error_sources(design, tolerances=tolerances, draws=args.draws, seed=args.seed,
                            distribution=args.distribution, opamp=opamp, amplitude_v=amplitude, rail_v=rail)
     trims = _trims(args, design)
@@ -248,11 +264,11 @@ def _render(console, design, data) -> None:
     from convert.values import format_value
 
     topo = design.topology
-    console.print(f"[bold]{topo.name}[/bold]: {topo.description}")
-    console.print(f"target  C(s) = {design.target.expression(6)}")
-    console.print(f"built   C(s) = {design.realized.expression(6)}")
+    console.print(f"{topo.name}: {topo.description}", markup=False)
+    console.print(f"target  C(s) = {design.target.expression(6)}", markup=False)
+    console.print(f"built   C(s) = {design.realized.expression(6)}", markup=False)
     for note in design.notes:
-        console.print(f"note: {note}")
+        console.print(f"note: {note}", markup=False)
     table = Table(title="parts")
     for col in ("part", "computed", "rounded", "series", "role"):
         table.add_column(col)
@@ -302,7 +318,7 @@ def _render(console, design, data) -> None:
         wcp = err["tolerance"]["worst_case"]["parameters"]
         for k, v in err["tolerance"]["monte_carlo"]["parameters"].items():
             w = wcp.get(k, [float("nan"), float("nan")])
-            t3.add_row(k, f"{v['nominal']:.5g}", *(f"{x:.5g}" for x in v["percentiles"]), f"{w[0]:.5g}", f"{w[1]:.5g}")
+            t3.add_row(k, _g5(v["nominal"]), *(_g5(x) for x in v["percentiles"]), _g5(w[0]), _g5(w[1]))
         console.print(t3)
     t4 = Table(title="best part sets")
     t4.add_column("#")
@@ -317,7 +333,15 @@ def _render(console, design, data) -> None:
     console.print(t4)
     for t in data["trims"]:
         console.print(f"trim {t['parameter']}: {t['part']} = {format_value(t['fixed_ohm'], 'ohm', 3)} fixed + "
-                      f"{format_value(t['pot_ohm'], 'ohm', 3)} pot covers {t['covered'][0]:.4g} .. {t['covered'][1]:.4g}")
+                      f"{format_value(t['pot_ohm'], 'ohm', 3)} pot covers {t['covered'][0]:.4g} .. {t['covered'][1]:.4g}",
+                      markup=False)
     for path in data["written"]:
-        console.print(f"wrote {path}")
+        console.print(f"wrote {path}", markup=False)
     console.print("Verify on a bench or in simulation before a live swap; the tool computes, it does not certify.")
+
+
+def _g5(x) -> str:
+    """Five significant digits; "—" where a quantity has no value (NaN: not defined for this design)."""
+    import math
+
+    return "—" if x is None or (isinstance(x, float) and math.isnan(x)) else f"{x:.5g}"

@@ -55,3 +55,107 @@ def emit_json(console, data) -> None:
 
     text = json.dumps(to_jsonable(data), indent=2)
     console.file.write(text + "\n")
+
+
+def positive_value(text, kind: str, field: str) -> float:
+    """A value that must be above zero (a sample rate, a frequency, a ratio), read with units."""
+    from convert.errors import InputError
+    from convert.values import parse_value
+
+    value = parse_value(text, kind, field=field)
+    if not value > 0:
+        raise InputError(f"expected a positive value, found {text!r}", key=field)
+    return value
+
+
+def count(value: int, field: str, *, low: int, high: int) -> int:
+    """A whole number from argparse (``type=int``) checked against ``low .. high``."""
+    from convert.errors import InputError
+
+    if not low <= value <= high:
+        raise InputError(f"expected a whole number from {low:,} to {high:,}, found {value:,}", key=field)
+    return value
+
+
+class at:  # noqa: N801 - used as a context manager: ``with at("--part"): ...``
+    """Give errors raised inside the block a location when they have none, e.g. ``--tolerance``.
+
+    Library functions name the field (``R1``) but not the option it came from; the command line
+    knows the option, so errors read ``--part: R1: ...`` instead of a bare ``R1: ...``. ``rename``
+    maps a library key to the option that sets it (``{"prewarp": "--prewarp"}``).
+    """
+
+    def __init__(self, where: str | None, rename: dict[str, str] | None = None):
+        self.where = where
+        self.rename = rename or {}
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, kind, exc, tb):
+        from convert.errors import LoopshiftError
+
+        if isinstance(exc, LoopshiftError):
+            if exc.key in self.rename:
+                exc.key = self.rename[exc.key]
+            elif exc.where is None and self.where and exc.key != self.where:
+                exc.where = self.where
+            exc.args = (exc.one_line(),)
+        return False
+
+
+def check_output_files(named: dict[str, str | None], *, force: bool) -> list[str]:
+    """Check files a command will write before any long work starts.
+
+    ``named`` maps the option (``--netlist``) to the path given (or None). Refuses a folder,
+    a folder that does not exist, a folder that cannot be written, the same file for two
+    outputs, and an existing file unless ``force``. Returns the paths that will be written.
+    """
+    import os
+
+    from convert.errors import InputError
+
+    seen: dict[str, str] = {}
+    out = []
+    for option, path in named.items():
+        if not path:
+            continue
+        if path.endswith(("/", os.sep)) or os.path.isdir(path):
+            raise InputError(f"{path!r} is a folder; give a file name such as {os.path.join(path, 'out' + _ext(option))}",
+                             key=option)
+        real = os.path.realpath(path)
+        if real in seen:
+            raise InputError(f"{path!r} is also the file for {seen[real]}; give each output its own file", key=option)
+        seen[real] = option
+        folder = os.path.dirname(os.path.abspath(path))
+        if not os.path.isdir(folder):
+            raise InputError(f"the folder {os.path.dirname(path) or '.'!r} does not exist; create it first or "
+                             "choose another place", key=option)
+        if not os.access(folder, os.W_OK):
+            raise InputError(f"cannot write in the folder {os.path.dirname(path) or '.'!r} (permission denied)",
+                             key=option)
+        if os.path.exists(path) and not force:
+            raise InputError(f"{path} exists; choose another name or add --force to overwrite it", key=option)
+        out.append(path)
+    return out
+
+
+def _ext(option: str) -> str:
+    return {"--netlist": ".cir", "--bom": ".csv", "--schematic": ".svg"}.get(option, "")
+
+
+def write_text_atomic(path: str, text: str) -> None:
+    """Write ``text`` to ``path`` through a temporary file in the same folder, then rename."""
+    import os
+    import tempfile
+
+    folder = os.path.dirname(os.path.abspath(path))
+    fd, tmp = tempfile.mkstemp(dir=folder, prefix=".loopshift-")
+    try:
+        with os.fdopen(fd, "w", newline="") as fh:
+            fh.write(text)
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise

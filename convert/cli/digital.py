@@ -34,7 +34,7 @@ examples:
   loopshift digital "(s+2)/(s+20)" --fs 1kHz --method tustin --method zoh
   loopshift digital "2*(1 + 1/(0.5*s))" --fs 200Hz --method all
   loopshift digital "(0.5s+1)/(0.05s+1)" --fs 500Hz --method tustin --prewarp 10Hz
-  loopshift digital "2*(1 + 1/(0.1*s) + 0.01*s)" --fs 1kHz --filter 10 --method all
+  loopshift digital "2*(1 + 1/(0.1*s) + 0.01*s)" --fs 1kHz --derivative-filter 10 --method all
   loopshift digital --pid kc=2 ti=30s td=5s n=10 --fs 10Hz --method all --delay 1sample
   loopshift digital "(s+2)/(s+20)" --fs 1kHz --method all --band 0.1Hz 100Hz --json
 
@@ -62,12 +62,15 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     parser.add_argument("--delay", metavar="S", default=None,
                         help="computation delay for the loop-seen figures, in seconds or samples, "
                              "e.g. --delay 200us or --delay 1sample (default 0)")
-    parser.add_argument("--band", nargs=2, metavar=("LO", "HI"),
+    parser.add_argument("--band", nargs=2, metavar=("LOW", "HIGH"),
                         help="band for the error figures, e.g. --band 0.1Hz 200Hz "
                              "(default: a decade below the lowest corner up to fs/2)")
-    parser.add_argument("--filter", metavar="N", dest="filter_n",
+    parser.add_argument("--derivative-filter", metavar="N", dest="filter_n",
                         help="add a derivative filter with ratio N to an improper controller (ideal PD/PID): "
-                             "the derivative part gets the pole N/Td, e.g. --filter 10")
+                             "the derivative part gets the pole N/Td, e.g. --derivative-filter 10 "
+                             "(the same name as in `loopshift circuit` and in case files)")
+    # The earlier spelling keeps working in scripts; help shows one name only.
+    parser.add_argument("--filter", metavar="N", dest="filter_n", help=argparse.SUPPRESS)
     parser.add_argument("--match-at", metavar="HZ",
                         help="matched only: frequency where gain is matched instead of DC, e.g. --match-at 1Hz "
                              "(default for an integrating controller: a decade below its lowest corner, at most fs/100)")
@@ -121,23 +124,32 @@ def _methods(args) -> list[str]:
 
 
 def _positive(text, kind: str, field: str) -> float:
-    from convert.errors import InputError
-    from convert.values import parse_value
+    from convert.cli.common import positive_value
 
-    value = parse_value(text, kind, field=field)
-    if not value > 0:
-        raise InputError(f"expected a positive value, found {text!r}", key=field)
+    return positive_value(text, kind, field)
+
+
+def below_nyquist(value: float, text: str, fs: float, field: str) -> float:
+    """Refuse a frequency option at or above fs/2 with the option's own name."""
+    from convert.errors import InputError
+
+    if value >= fs / 2:
+        raise InputError(f"must be below fs/2 = {fs / 2:g} Hz, found {text}", key=field)
     return value
 
 
 def run(args, console) -> int:
-    from convert.cli.common import controller_from_args, emit_json
+    from convert.cli.common import at, controller_from_args, emit_json
     from convert.digital import survey_methods
     from convert.errors import InputError
 
     fs = _positive(args.fs, "hz", "--fs")
     prewarp = _positive(args.prewarp, "hz", "--prewarp") if args.prewarp is not None else None
+    if prewarp is not None:
+        below_nyquist(prewarp, args.prewarp, fs, "--prewarp")
     match_at = _positive(args.match_at, "hz", "--match-at") if args.match_at is not None else None
+    if match_at is not None:
+        below_nyquist(match_at, args.match_at, fs, "--match-at")
     filter_n = _positive(args.filter_n, "number", "--filter") if args.filter_n is not None else None
     delay = parse_delay(args.delay, fs)
     band = None
@@ -154,13 +166,19 @@ def run(args, console) -> int:
                   _positive(args.agreement[1], "number", "--agreement"))
     methods = _methods(args)
     if prewarp is not None and "tustin" not in methods:
-        raise InputError("--prewarp applies to tustin only; add --method tustin", key="--prewarp")
+        raise InputError("applies to tustin only; add --method tustin", key="--prewarp")
+    if match_at is not None and "matched" not in methods:
+        raise InputError("applies to matched only; add --method matched", key="--match-at")
+    if args.keep_delay and "matched" not in methods:
+        raise InputError("applies to matched only; add --method matched", key="--keep-delay")
     controller, _pid = controller_from_args(args)
     if controller.is_digital:
         raise InputError("the controller is already digital; use `loopshift analog` to go back", key="EXPR")
-    survey = survey_methods(controller, fs, methods, prewarp_hz=prewarp, delay_s=delay, band_hz=band,
-                            match_at_hz=match_at, keep_delay=args.keep_delay, filter_n=filter_n,
-                            gain_limit_db=limits[0], phase_limit_deg=limits[1])
+    with at(None, rename={"prewarp": "--prewarp", "match_at_hz": "--match-at",
+                                         "filter_n": "--derivative-filter"}):
+        survey = survey_methods(controller, fs, methods, prewarp_hz=prewarp, delay_s=delay, band_hz=band,
+                                match_at_hz=match_at, keep_delay=args.keep_delay, filter_n=filter_n,
+                                gain_limit_db=limits[0], phase_limit_deg=limits[1])
     if args.json:
         out = []
         for row in survey.rows:

@@ -11,6 +11,7 @@ from __future__ import annotations
 import argparse
 import importlib
 import os
+import re
 import sys
 
 # Sub-command modules, in the order `loopshift --help` lists them.
@@ -34,8 +35,19 @@ examples:
 run `loopshift COMMAND --help` for the options of each command."""
 
 
+# A word that starts with "-" but is a value, not an option: a negative number with or without a
+# unit ("-1kHz", "-.5"), or an expression ("-2*(1+1/s)", "-(s+1)", "-s/(s+1)", "- 2/s").
+# argparse's own test only knows bare numbers, so "--fs -1kHz" or a negated expression used to
+# read as an unknown option; now they reach the value checks and get a clear message.
+_VALUE_STARTING_WITH_MINUS = re.compile(r"^-(?:[\d.(\s]|[sz](?![A-Za-z-]))")
+
+
 class _Parser(argparse.ArgumentParser):
     """argparse that raises instead of exiting, so usage errors become our one-line errors."""
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        self._negative_number_matcher = _VALUE_STARTING_WITH_MINUS
 
     def error(self, message):  # noqa: D401 - argparse API
         raise _UsageError(f"{self.prog}: {message}")
@@ -52,12 +64,34 @@ def build_parser() -> argparse.ArgumentParser:
         epilog=EPILOG,
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
-    parser.add_argument("--version", action="version", version=f"loopshift {_version()}")
-    subparsers = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    parser.add_argument("--version", action="version", version=f"loopshift {_version()}",
+                        help="print the version and exit, e.g. loopshift --version")
+    subparsers = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser,
+                                       help="one of the commands below; `loopshift COMMAND --help` for its options")
     for name in COMMANDS:
         module = importlib.import_module(f"convert.cli.{name}")
         module.add_parser(subparsers)
     return parser
+
+
+def _unknown_arguments(parser, args, extras: list[str]) -> str:
+    """One line for words argparse could not place, naming the command and a near option."""
+    import difflib
+
+    sub = parser
+    if getattr(args, "command", None):
+        for action in parser._actions:
+            if isinstance(action, argparse._SubParsersAction):
+                sub = action.choices[args.command]
+    options = [s for a in sub._actions for s in a.option_strings]
+    word = extras[0]
+    if word.startswith("-"):
+        name = word.split("=", 1)[0]
+        close = difflib.get_close_matches(name, options, n=1, cutoff=0.6)
+        hint = f" (did you mean {close[0]}?)" if close else f"; `{sub.prog} --help` lists the options"
+        return f"{sub.prog}: unknown option {name}{hint}"
+    return (f"{sub.prog}: unexpected word {word!r}; an expression with spaces or parentheses needs quotes, "
+            f"e.g. \"(s+2)/(s+20)\"")
 
 
 def _version() -> str:
@@ -81,14 +115,17 @@ def main(argv: list[str] | None = None, console=None) -> int:
 
     parser = build_parser()
     try:
-        args = parser.parse_args(argv)
+        args, extras = parser.parse_known_args(argv)
+        if extras:
+            raise _UsageError(_unknown_arguments(parser, args, extras))
     except _UsageError as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 2
     except SystemExit as exc:  # --help / --version
         return int(exc.code or 0)
     if not args.command:
-        parser.print_help()
+        print("error: loopshift: give a command: " + ", ".join(COMMANDS)
+              + " (`loopshift --help` describes each)", file=sys.stderr)
         return 2
     module = importlib.import_module(f"convert.cli.{args.command}")
     err_console = None
@@ -102,6 +139,14 @@ def main(argv: list[str] | None = None, console=None) -> int:
     except KeyboardInterrupt:
         print("interrupted", file=sys.stderr)
         return 130
+    except OSError as exc:  # a file or folder the system refused (permission, disk full, ...)
+        name = exc.filename if exc.filename is not None else "file"
+        _print_error(f"{name}: {exc.strerror or exc}", console, err_console)
+        return 2
+    except MemoryError:
+        _print_error("not enough memory for this run; ask for less (fewer --draws, a narrower --band)",
+                     console, err_console)
+        return 2
     except Exception as exc:  # an internal error: one line, not a traceback
         if os.environ.get("LOOPSHIFT_DEBUG"):
             raise
@@ -118,6 +163,14 @@ def _print_error(line: str, console, err_console) -> None:
     print(f"error: {line}", file=stream)
 
 
+def _one_line_warning(message, category, filename, lineno, line=None) -> str:
+    where = os.path.basename(filename)
+    return f"warning: {' '.join(str(message).split())} ({category.__name__} in {where}:{lineno})\n"
+
+
 def entry_point() -> None:
-    """Console-script entry: ``loopshift``."""
+    """Console-script entry: ``loopshift``. Library warnings print as one line each."""
+    import warnings
+
+    warnings.formatwarning = _one_line_warning
     sys.exit(main())

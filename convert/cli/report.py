@@ -34,7 +34,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--force", action="store_true", help="replace the report folder if it exists "
                                                         "(default: refuse, so an earlier report is never lost)")
     p.add_argument("--draws", metavar="N", type=_positive_int,
-                   help="Monte Carlo draws for a circuit target, overriding the case file, e.g. --draws 10000")
+                   help="Monte Carlo draws for a circuit target, overriding the case file (1 to 1,000,000), "
+                        "e.g. --draws 10000")
     return p
 
 
@@ -43,8 +44,10 @@ def _positive_int(text: str) -> int:
         value = int(text)
     except ValueError:
         raise argparse.ArgumentTypeError(f"expected a whole number of draws, found {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"expected at least 1 draw, found {text!r}")
+    from convert.cli.circuit import MAX_DRAWS
+
+    if not 1 <= value <= MAX_DRAWS:
+        raise argparse.ArgumentTypeError(f"expected 1 to {MAX_DRAWS:,} draws, found {text!r}")
     return value
 
 
@@ -60,6 +63,7 @@ def run(args, console) -> int:
     out_dir = Path(args.out) if args.out else Path("reports") / case.name
     protected = [case.path] + [p for p in [case.source.data.get("file")] if p]
     check_destination(out_dir, force=args.force, protected=protected)  # fail before the long work
+    _check_writable(out_dir, explicit=bool(args.out))
 
     from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
@@ -72,13 +76,45 @@ def run(args, console) -> int:
 
         results = evaluate_case(case, draws=args.draws, progress=tick)
         progress.update(task, description="writing the report")
-        folder = write_report(results, out_dir, force=args.force)
+        try:
+            folder = write_report(results, out_dir, force=args.force)
+        except OSError as exc:
+            from convert.errors import InputError
+
+            raise InputError(f"cannot write the report folder {str(out_dir)!r}: {exc.strerror or exc}",
+                             key="--out") from None
         progress.update(task, advance=1)
     _summary(console, results, folder)
     return results.exit_code
 
 
+def _check_writable(out_dir, *, explicit: bool) -> None:
+    """Refuse, before the long work, a report folder that cannot be created.
+
+    A folder named with --out must sit in a folder that exists (a typo should not scatter new
+    folders); the default ``reports/<case>`` may create ``reports/``.
+    """
+    import os
+    import tempfile
+
+    from convert.errors import InputError
+
+    parent = out_dir.absolute().parent
+    if not parent.is_dir():
+        if explicit:
+            where = str(out_dir.parent)
+            raise InputError(f"the folder {where!r} does not exist (or is not a folder); create it first or "
+                             "choose another place", key="--out")
+        while not parent.is_dir():
+            parent = parent.parent
+    try:
+        os.rmdir(tempfile.mkdtemp(prefix=".loopshift-check-", dir=parent))
+    except OSError as exc:
+        raise InputError(f"cannot write in the folder {str(parent)!r} ({exc.strerror or exc})", key="--out") from None
+
+
 def _summary(console, results, folder) -> None:
+    from rich.markup import escape
     from rich.panel import Panel
     from rich.table import Table
 
@@ -88,14 +124,14 @@ def _summary(console, results, folder) -> None:
     case = results.case
     verdict = results.verdict.overall
     style = "bold green" if verdict == "pass" else "bold red"
-    console.print(f"[bold]{case.title}[/bold]  ({case.path})")
+    console.print(f"[bold]{escape(case.title)}[/bold]  ({escape(str(case.path))})")
     for title, header, rows in all_tables(results):
         if title.startswith("New forms"):
             continue
-        table = Table(title=title, title_justify="left", show_lines=False)
+        table = Table(title=escape(title), title_justify="left", show_lines=False)
         keep = [i for i, h in enumerate(header) if h not in ("what was switched on", "note", "scanned")]
         for i in keep:
-            table.add_column(header[i], overflow="fold")
+            table.add_column(escape(header[i]), overflow="fold")
         for row in rows:
             if len(row) > 1 and row[1] == "not applicable":
                 continue  # the report folder lists them; the terminal keeps to what applies
@@ -106,17 +142,19 @@ def _summary(console, results, folder) -> None:
                     c = "[bold red]FAIL[/bold red]"
                 elif c == "pass":
                     c = "[green]pass[/green]"
+                else:
+                    c = escape(str(c))
                 cells.append(c)
             table.add_row(*cells)
         console.print(table)
     for s in results.skipped:
-        console.print(f"[yellow]skipped:[/yellow] {s}")
+        console.print(f"[yellow]skipped:[/yellow] {escape(str(s))}")
     for r in results.realizations:
         for w in r.warnings:
-            console.print(f"[yellow]warning ({r.name}):[/yellow] {w}")
+            console.print(f"[yellow]warning ({escape(r.name)}):[/yellow] {escape(str(w))}")
     console.print(Panel("\n".join(CAUTIONS), title="cautions", border_style="yellow"))
     failures = results.verdict.failures
     if failures:
         for j in failures:
-            console.print(f"[red]fails:[/red] {j.realization}: {j.label} {j.value:.3g} {j.unit} > limit {j.limit:g} {j.unit}")
-    console.print(f"verdict: [{style}]{verdict.upper()}[/{style}]   report: {folder}/report.html")
+            console.print(f"[red]fails:[/red] {escape(f'{j.realization}: {j.label} {j.value:.3g} {j.unit} > limit {j.limit:g} {j.unit}')}")
+    console.print(f"verdict: [{style}]{verdict.upper()}[/{style}]   report: {escape(str(folder))}/report.html")
