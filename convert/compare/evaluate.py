@@ -262,7 +262,7 @@ def _digital_realizations(case, src, analog_src, band, src_margins, duration, sr
             rows["hold_and_delay"] = bud.error_row(
                 "hold_and_delay", band, filtered.frequency_response(band, via="zpk"),
                 filtered.frequency_response(band, via="zpk") * hold(band, t, delay),
-                note=f"zero-order hold at {_fmt_hz(fs)} and {delay * 1e3:g} ms computation delay alone, applied to "
+                note=f"zero-order hold at {_fmt_hz(fs)} and {_fmt_s(delay)} computation delay alone, applied to "
                      "the analog controller",
                 loop=spec, loop_reference=lr(filtered),
                 loop_candidate=None if loop_f is None else filtered.frequency_response(loop_f, via="zpk") * hold(loop_f, t, delay))
@@ -359,6 +359,14 @@ def _fmt_hz(f: float) -> str:
     from convert.values import format_value
 
     return format_value(f, "hz")
+
+
+def _fmt_s(t: float) -> str:
+    if t >= 1:
+        return f"{t:.4g} s"
+    from convert.values import format_value
+
+    return format_value(t, "second") if t > 0 else "0 s"
 
 
 def _finite(x) -> bool:

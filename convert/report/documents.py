@@ -7,7 +7,7 @@ import base64
 import html
 
 from convert.compare.evaluate import CAUTIONS
-from convert.report.tables import all_tables, hz, num
+from convert.report.tables import all_tables, input_tables, table_note
 
 FIGURE_CAPTIONS = {
     "bode.png": "Bode overlay of all forms as the loop sees them, with the error of each against the source.",
@@ -24,20 +24,6 @@ def _caption(name: str) -> str:
     return FIGURE_CAPTIONS.get(name, name)
 
 
-def _header_facts(results) -> list[tuple[str, str]]:
-    case = results.case
-    facts = [("case file", str(case.path)), ("source", f"{case.source.form}: {results.reference.expression()}"
-                                             + (f" (fs {hz(results.reference.fs_hz)})" if results.reference.is_digital else ""))]
-    if case.plant:
-        facts.append(("plant", f"{case.plant.expression}, dead time {num(case.plant.dead_time_s, 4, 's')}"))
-    facts.append(("band", f"{hz(case.criteria.band_hz[0])} – {hz(case.criteria.band_hz[1])}"))
-    if results.duration_s:
-        facts.append(("simulated time", num(results.duration_s, 4, "s")))
-    if results.draws:
-        facts.append(("Monte Carlo", f"{results.draws} draws, seed {results.seed}"))
-    return facts
-
-
 # ----------------------------------------------------------------------------- HTML
 _CSS = """
 body{font-family:system-ui,-apple-system,Segoe UI,sans-serif;margin:2em auto;max-width:1100px;color:#1c2833;padding:0 1em}
@@ -47,12 +33,17 @@ th{background:#eaf2f8;text-align:left}.pass{color:#1e8449;font-weight:600}.fail{
 .verdict{font-size:1.3em;padding:.4em .8em;display:inline-block;border-radius:4px}
 .verdict.pass{background:#d5f5e3}.verdict.fail{background:#fadbd8}
 .caution{background:#fef9e7;border-left:4px solid #b7950b;padding:.5em 1em}
+p.note{font-size:.85em;color:#444;max-width:60em}
 figure{margin:1em 0}figcaption{font-size:.85em;color:#555}img{max-width:100%}
 """
 
 
 def _html_table(title: str, header: list[str], rows: list[list[str]]) -> str:
-    out = [f"<h2>{html.escape(title)}</h2>", "<table>", "<tr>" + "".join(f"<th>{html.escape(h)}</th>" for h in header) + "</tr>"]
+    out = [f"<h2>{html.escape(title)}</h2>"]
+    note = table_note(title)
+    if note:
+        out.append(f'<p class="note">{html.escape(note)}</p>')
+    out += ["<table>", "<tr>" + "".join(f"<th>{html.escape(h)}</th>" for h in header) + "</tr>"]
     for row in rows:
         cells = []
         for cell in row:
@@ -77,8 +68,8 @@ def html_report(results, figures: dict[str, bytes]) -> str:
     parts.append(f'<p class="verdict {v}">Verdict: {v.upper()}</p>')
     parts.append('<div class="caution"><strong>Cautions.</strong><ul>'
                  + "".join(f"<li>{html.escape(c)}</li>" for c in CAUTIONS) + "</ul></div>")
-    parts.append("<table>" + "".join(f"<tr><th>{html.escape(k)}</th><td>{html.escape(val)}</td></tr>"
-                                     for k, val in _header_facts(results)) + "</table>")
+    for title, header, rows in input_tables(results):
+        parts.append(_html_table(title, header, rows))
     tables = all_tables(results)
     for title, header, rows in tables:
         parts.append(_html_table(title, header, rows))
@@ -116,10 +107,12 @@ def markdown_report(results, figure_names=()) -> str:
     lines += [f"**Verdict: {results.verdict.overall.upper()}**", "", "> **Cautions.**"]
     lines += [f"> - {c}" for c in CAUTIONS]
     lines.append("")
-    lines += [f"- **{k}**: {_md_cell(val)}" for k, val in _header_facts(results)]
-    lines.append("")
-    for title, header, rows in all_tables(results):
-        lines += [f"## {title}", "", "| " + " | ".join(header) + " |", "|" + "---|" * len(header)]
+    for title, header, rows in input_tables(results) + all_tables(results):
+        lines += [f"## {title}", ""]
+        note = table_note(title)
+        if note:
+            lines += [note, ""]
+        lines += ["| " + " | ".join(header) + " |", "|" + "---|" * len(header)]
         lines += ["| " + " | ".join(_md_cell(c) for c in row) + " |" for row in rows]
         lines.append("")
     if results.skipped:

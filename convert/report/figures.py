@@ -33,12 +33,20 @@ def _png(fig) -> bytes:
 
 
 def display_grid(results) -> np.ndarray:
+    """Frequencies (Hz) for the Bode figure: the band with a factor of 3 either side, widened to
+    take in the source loop's sensitivity peak, and stopped below the lowest Nyquist frequency
+    of the digital forms (their response above it is not defined)."""
     lo, hi = results.case.criteria.band_hz
-    fmax = hi * 30
-    for r in results.realizations:
-        if r.form == "digital":
-            fmax = max(fmax, 0.0)
-    return np.logspace(np.log10(lo / 30), np.log10(fmax), 300)
+    f_lo, f_hi = lo / 3, hi * 3
+    m = results.source_margins
+    if m is not None and m.sensitivity_peak_hz:
+        f_hi = max(f_hi, 2 * m.sensitivity_peak_hz)
+    nyquist = [0.5 * c.fs_hz for c in [results.reference] + [r.controller for r in results.realizations]
+               if c.is_digital]
+    if nyquist:
+        f_hi = min(f_hi, 0.98 * min(nyquist))
+    f_hi = max(f_hi, hi)
+    return np.logspace(np.log10(f_lo), np.log10(f_hi), 300)
 
 
 def bode(results) -> bytes:
@@ -84,7 +92,10 @@ def bode(results) -> bytes:
     ax[3].set_ylabel("phase error (deg)")
     ax[3].set_xlabel("frequency (Hz)  —  shaded: the band of the criteria")
     ax[0].legend(fontsize=8, loc="best")
-    ax[0].set_title("Controller as the loop sees it: source and new forms")
+    ax[2].legend(fontsize=8, loc="best")
+    for a in ax:
+        a.set_xlim(f[0], f[-1])
+    ax[0].set_title("Controller as the loop sees it (hold and delay included): source and new forms")
     return _png(fig)
 
 
@@ -132,45 +143,89 @@ def loop_responses(results) -> bytes:
             t, y, u = resp.t[::every], resp.y[::every], resp.u[::every]
             ax[0, col].plot(t, y, style, color=color, lw=2 if i == 0 else 1.2, label=name)
             ax[1, col].step(t, u, style, where="post", color=color, lw=2 if i == 0 else 1.2)
-    ax[0, 0].set_title("setpoint step")
-    ax[0, 1].set_title("load disturbance at the plant input")
-    ax[0, 0].set_ylabel("measurement")
-    ax[1, 0].set_ylabel("controller output")
+    sig = results.case.signals
+    ax[0, 0].axhline(sig.setpoint_step, color="#555", ls=":", lw=1, label="setpoint")
+    ax[0, 1].axhline(0.0, color="#555", ls=":", lw=1)
+    limits = [results.case.digital.output_limits if results.case.digital else None, sig.output_range]
+    for lim in limits:
+        if lim:
+            for a in ax[1]:
+                for v in lim:
+                    a.axhline(v, color="#a04000", ls=":", lw=1)
+    ax[0, 0].set_title(f"setpoint step of {sig.setpoint_step:g}")
+    ax[0, 1].set_title(f"load step of {sig.disturbance_step:g} at the plant input")
+    ax[0, 0].set_ylabel("measurement (plant output units)")
+    ax[0, 1].set_ylabel("measurement deviation")
+    ax[1, 0].set_ylabel("controller output (deviation)")
     for a in ax[1]:
         a.set_xlabel("time (s)")
     for a in ax.ravel():
         a.grid(True, alpha=0.3)
-    ax[0, 0].legend(fontsize=8)
+    ax[0, 0].legend(fontsize=8, loc="lower right")
+    if any(limits):
+        ax[1, 0].text(0.98, 0.02, "dotted: output limits", transform=ax[1, 0].transAxes, ha="right", va="bottom",
+                      fontsize=7, color="#a04000")
     return _png(fig)
 
 
+def _zoom_near_one(points: np.ndarray) -> float | None:
+    """Half-width of a window around z = 1 holding every point, when they all crowd there
+    (a slow controller at a fast rate); None when the whole unit circle reads well."""
+    pts = points[np.isfinite(points)]
+    if pts.size == 0:
+        return None
+    reach = float(np.max(np.abs(pts - 1.0)))
+    return None if reach > 0.2 else max(reach * 1.3, 1e-6)
+
+
 def pole_zero(results) -> bytes:
-    """Pole-zero maps: analog forms in the s-plane (rad/s), digital forms in the z-plane."""
-    fig, ax = _figure(9.0, 4.2, 1, 2)
+    """Pole-zero maps: analog forms in the s-plane (rad/s, symmetric-log real axis when the
+    corners span decades), digital forms in the z-plane (zoomed near z = 1 when they crowd there)."""
+    from matplotlib.ticker import MaxNLocator
+
+    fig, ax = _figure(9.5, 4.4, 1, 2)
+    fig.subplots_adjust(bottom=0.14, top=0.9)
     s_ax, z_ax = ax[0, 0], ax[0, 1]
     forms = [("source", results.reference)] + [(r.name, r.controller) for r in results.realizations]
+    s_points, z_points = [], []
     for i, (name, c) in enumerate(forms):
         color = COLORS[i % len(COLORS)]
         target = z_ax if c.is_digital else s_ax
         z, p = c.zeros(), c.poles()
+        (z_points if c.is_digital else s_points).extend(list(z) + list(p))
         target.plot(z.real, z.imag, "o", mfc="none", color=color, ms=8, label=f"{name} zeros")
         target.plot(p.real, p.imag, "x", color=color, ms=8, label=f"{name} poles")
-    theta = np.linspace(0, 2 * np.pi, 400)
+    theta = np.linspace(0, 2 * np.pi, 2000)
     z_ax.plot(np.cos(theta), np.sin(theta), color="#999", lw=0.8)
-    z_ax.set_aspect("equal", adjustable="datalim")
     s_ax.axvline(0, color="#999", lw=0.8)
     s_ax.axhline(0, color="#999", lw=0.8)
     z_ax.axhline(0, color="#999", lw=0.8)
     s_ax.set_title("s-plane (rad/s)")
-    z_ax.set_title("z-plane")
-    s_ax.set_xlabel("real")
-    s_ax.set_ylabel("imaginary")
+    zoom = _zoom_near_one(np.asarray(z_points, dtype=complex))
+    if zoom is not None:
+        z_ax.set_xlim(1 - zoom, 1 + 0.3 * zoom)
+        z_ax.set_ylim(-0.65 * zoom, 0.65 * zoom)
+        z_ax.set_title("z-plane, zoomed near z = 1")
+        z_ax.xaxis.set_major_locator(MaxNLocator(4))
+        z_ax.text(0.98, 0.02, f"window ±{zoom:.2g} around z = 1", transform=z_ax.transAxes, ha="right",
+                  va="bottom", fontsize=7, color="#555")
+    else:
+        z_ax.set_aspect("equal", adjustable="datalim")
+        z_ax.set_title("z-plane (circle: |z| = 1)")
+    s_real = np.array([abs(v.real) for v in s_points if v.real != 0 and np.isfinite(v.real)])
+    if s_real.size and s_real.max() / s_real.min() > 100:
+        s_ax.set_xscale("symlog", linthresh=float(s_real.min()) / 2)
+        s_ax.set_xlabel("real (rad/s, symmetric log scale)")
+    else:
+        s_ax.set_xlabel("real (rad/s)")
+    s_ax.set_ylabel("imaginary (rad/s)")
     z_ax.set_xlabel("real")
+    z_ax.set_ylabel("imaginary")
     for a in (s_ax, z_ax):
         a.grid(True, alpha=0.3)
         handles, labels = a.get_legend_handles_labels()
         if handles:
-            a.legend(fontsize=7, loc="best")
+            a.legend(fontsize=7, loc="upper left")
         else:
             a.text(0.5, 0.5, "no forms in this plane", transform=a.transAxes, ha="center", color="#777")
     return _png(fig)

@@ -1,6 +1,10 @@
 """The report's tables as plain rows of text, shared by the HTML, Markdown and terminal writers.
 
 A table is ``(title, header, rows)`` with every cell already formatted as text.
+:func:`all_tables` holds the result tables (verdict, budgets, loop checks, rate advice) that the
+terminal summary repeats; :func:`input_tables` the echo of the case's inputs (source, targets,
+plant, signals, criteria) that the report files print first. :func:`table_note` gives the
+sentence printed under a table to say how to read it.
 """
 
 from __future__ import annotations
@@ -11,13 +15,37 @@ from convert.compare.evaluate import CAUTIONS  # noqa: F401  (re-exported for wr
 
 Table = tuple[str, list[str], list[list[str]]]
 
+#: Below this magnitude an error or change (dB or degrees) is written as "< 0.001".
+FLOOR = 1e-3
+
 
 def num(x, digits: int = 3, unit: str = "") -> str:
+    """``x`` to ``digits`` significant digits with ``unit``; "—" for None."""
     if x is None:
         return "—"
     if isinstance(x, float) and not math.isfinite(x):
         return "∞" if x > 0 else "−∞"
     text = f"{x:.{digits}g}"
+    return f"{text} {unit}".strip()
+
+
+def fixed(x, unit: str = "", digits: int = 3, floor: float = FLOOR) -> str:
+    """A figure for a reader: ``digits`` significant digits without exponent notation, and
+    "< floor" (with the sign kept) where it is smaller than ``floor`` in magnitude."""
+    if x is None:
+        return "—"
+    x = float(x)
+    if not math.isfinite(x):
+        return "∞" if x > 0 else "−∞"
+    if x == 0:
+        return f"0 {unit}".strip()
+    if abs(x) < floor:
+        return f"{'−' if x < 0 else ''}< {floor:g} {unit}".strip()
+    exp = math.floor(math.log10(abs(x)))
+    decimals = max(0, digits - 1 - exp)
+    text = f"{x:.{decimals}f}"
+    if x < 0:
+        text = "−" + text[1:]
     return f"{text} {unit}".strip()
 
 
@@ -29,26 +57,64 @@ def hz(x) -> str:
     return format_value(x, "hz")
 
 
+def seconds(x) -> str:
+    """A time: plain seconds from 1 s up (no "ks"), SI prefixes below."""
+    if x is None:
+        return "—"
+    if abs(x) >= 1:
+        return f"{x:.4g} s"
+    from convert.values import format_value
+
+    return format_value(x, "second")
+
+
+def _measured(value, unit: str) -> str:
+    """A judged figure in the criterion's unit; fractions of a step or peak as percentages."""
+    if unit in ("of step", "of peak"):
+        return fixed(None if value is None else 100 * value, f"% {unit}")
+    return fixed(value, unit)
+
+
+def _against_limit(value, limit, status: str) -> str:
+    """How the figure stands against its limit: the excess for a failure, the share used for a pass."""
+    if value is None or limit is None or status not in ("pass", "fail"):
+        return ""
+    if limit == 0:
+        return "over the limit" if value > 0 else "at the limit"
+    ratio = value / limit
+    if status == "fail":
+        return f"over by {ratio - 1:.0%} ({ratio:.2g}× the limit)"
+    return f"{ratio:.0%} of the limit used" if ratio >= 0.005 else "< 1 % of the limit used"
+
+
 def verdict_table(results) -> Table:
     rows = []
     for j in results.verdict.judgements:
         if j.status == "not set":
             continue
-        rows.append([j.realization, j.label, num(j.value, 3, j.unit), num(j.limit, 3, j.unit), j.status.upper()
-                     if j.status == "fail" else j.status, j.note])
-    return ("Verdict per criterion", ["form", "criterion", "measured", "limit", "result", "note"], rows)
+        unit = j.unit
+        limit = fixed(100 * j.limit, f"% {unit}") if unit in ("of step", "of peak") else fixed(j.limit, unit)
+        rows.append([j.realization, j.label, _measured(j.value, unit), limit,
+                     j.status.upper() if j.status == "fail" else j.status,
+                     _against_limit(j.value, j.limit, j.status), j.note])
+    return ("Verdict per criterion", ["form", "criterion", "measured", "limit", "result", "against the limit", "note"],
+            rows)
 
 
 def budget_table(realization) -> Table:
+    """The budget of one realization. Rows that cannot arise in this kind of target are left
+    out (:func:`table_note` says which); rows that could arise but were not switched on stay."""
     rows = []
     for row in realization.budget:
         if not row.applicable:
+            if "does not arise" in row.note:
+                continue
             rows.append([row.label, "not applicable", "", "", "", "", row.note.replace("not applicable: ", "")])
             continue
-        pct = f" (p{row.percentile:g})" if row.percentile else ""
-        rows.append([row.label + pct, num(row.max_gain_error_db, 3, "dB"), num(row.max_phase_error_deg, 3, "°"),
-                     num(row.delta_phase_margin_deg, 3, "°"), num(row.delta_gain_margin_db, 3, "dB"),
-                     num(row.delta_sensitivity_peak_db, 3, "dB"), row.note])
+        pct = f" (p{row.percentile:g} of draws)" if row.percentile else ""
+        rows.append([row.label + pct, fixed(row.max_gain_error_db, "dB"), fixed(row.max_phase_error_deg, "°"),
+                     fixed(row.delta_phase_margin_deg, "°"), fixed(row.delta_gain_margin_db, "dB"),
+                     fixed(row.delta_sensitivity_peak_db, "dB"), row.note])
     return (f"Error budget — {realization.name}",
             ["source of error", "max gain error", "max phase error", "Δ phase margin", "Δ gain margin",
              "Δ sensitivity peak", "what was switched on"], rows)
@@ -61,19 +127,22 @@ def margins_table(results) -> Table | None:
     rows = []
     for name, m in items:
         if m is None:
-            rows.append([name, "—", "—", "—", "—", "—"])
+            rows.append([name, "—", "—", "—", "—", "—", "—"])
             continue
-        rows.append([name, num(m.gain_margin_db, 3, "dB"), hz(m.phase_crossover_hz), num(m.phase_margin_deg, 3, "°"),
-                     hz(m.crossover_hz), num(m.sensitivity_peak_db, 3, "dB")])
+        rows.append([name, fixed(m.gain_margin_db, "dB", floor=0.01), hz(m.phase_crossover_hz),
+                     fixed(m.phase_margin_deg, "°", floor=0.01), hz(m.crossover_hz),
+                     fixed(m.sensitivity_peak_db, "dB", floor=0.01), f"{m.ms:.2f}"])
     return ("Loop checks (margins with the plant, dead time exact)",
-            ["form", "gain margin", "at", "phase margin", "crossover", "sensitivity peak"], rows)
+            ["form", "gain margin", "at (phase −180°)", "phase margin", "crossover (|L| = 1)",
+             "sensitivity peak", "Ms = max |S|"], rows)
 
 
 def rate_table(results) -> Table | None:
     if not results.rate_advice:
         return None
-    rows = [[a.method, hz(a.checked_fs_hz) if a.checked_fs_hz else "none in scan", hz(a.rule_fs_hz),
-             a.limiting, f"{hz(a.scanned_hz[0])} – {hz(a.scanned_hz[1])}"] for a in results.rate_advice]
+    rows = [[a.method, hz(a.checked_fs_hz) if a.checked_fs_hz else "none in scan",
+             hz(a.rule_fs_hz) if a.rule_fs_hz else "—", a.limiting,
+             f"{hz(a.scanned_hz[0])} – {hz(a.scanned_hz[1])}"] for a in results.rate_advice]
     return ("Sample-rate advice", ["method", "lowest rate within criteria (checked)", "rule of thumb",
                                    "limiting criterion below it", "scanned"], rows)
 
@@ -84,7 +153,7 @@ def realization_table(results) -> Table:
         d = r.details
         if r.form == "digital":
             what = (f"b = [{', '.join(f'{x:.10g}' for x in d['b'])}]; a = [{', '.join(f'{x:.10g}' for x in d['a'])}]; "
-                    f"delay {d['delay_s'] * 1e3:g} ms; {d['word_format']}")
+                    f"delay {seconds(d['delay_s'])}; {d['word_format']}")
         else:
             what = "; ".join(f"{k} = {v}" for k, v in d.get("parts_text", {}).items()) or d.get("topology", "")
         rows.append([r.name, r.form, what, "; ".join(r.warnings)])
@@ -98,3 +167,141 @@ def all_tables(results) -> list[Table]:
         if t is not None:
             out.append(t)
     return out
+
+
+# ----------------------------------------------------------------------------- the case's inputs
+def _pid_text(pid) -> str:
+    """PID settings in the ideal (standard) form, plant-neutral SI units."""
+    try:
+        ideal = pid.table()["ideal"]
+    except Exception:  # a settings object without the ideal form: say nothing rather than guess
+        return ""
+    if "unavailable" in ideal:
+        return ""
+    parts = [f"Kc = {ideal['kc']:.4g}"]
+    parts.append(f"Ti = {seconds(ideal['ti_s'])}" if ideal.get("ti_s") else "no integral")
+    if ideal.get("td_s"):
+        parts.append(f"Td = {seconds(ideal['td_s'])}")
+        if ideal.get("n"):
+            parts.append(f"N = {ideal['n']:.4g} (filter Td/N = {seconds(ideal['tf_s'])})")
+    action = pid.table().get("action")
+    if action:
+        parts.append(f"{action} action")
+    return ", ".join(parts)
+
+
+def _source_as_given(case) -> str:
+    src = case.source
+    d = src.data
+    if src.form == "expression":
+        return f"expression {d['expression']}"
+    if src.form == "pid":
+        return "PID settings " + ", ".join(f"{k} = {v}" for k, v in d["settings"].items())
+    if src.form == "digital":
+        return (f"firmware coefficients b = {list(d['b'])}, a = {list(d['a'])} at {hz(d['fs_hz'])} "
+                f"(inverse for the analog equivalent: {d['method']})")
+    if src.form == "card":
+        from convert.values import format_value
+
+        parts = ", ".join(f"{k} = {format_value(v, 'ohm' if k[:1].upper() == 'R' else 'farad')}"
+                          for k, v in d["parts"].items())
+        return f"card topology {d['topology']}: {parts}"
+    rel = d["file"]
+    try:
+        rel = d["file"].relative_to(case.base_dir)
+    except ValueError:
+        pass
+    how = (f"setpoint {d['setpoint']}, measurement {d['measurement']}" if d.get("setpoint")
+           else f"input {d['input']}")
+    return f"netlist {rel} ({how}, output {d['output']})"
+
+
+def input_tables(results) -> list[Table]:
+    """The case's inputs echoed for the reader: what was compared, with what, against what."""
+    case = results.case
+    ref = results.reference
+    rows = [["case file", str(case.path)], ["source as given", _source_as_given(case)],
+            ["source controller" + (" C(z)" if ref.is_digital else " C(s)"),
+             ref.expression(digits=5) + (f" at {hz(ref.fs_hz)}" if ref.is_digital else "")
+             + " (error → output)"]]
+    if results.source.pid is not None:
+        text = _pid_text(results.source.pid)
+        if text:
+            rows.append(["source as PID (ideal form)", text])
+    if case.digital:
+        t = case.digital
+        delay = (f"{t.delay_samples:g} sample(s)" if t.delay_samples is not None else seconds(t.delay_s))
+        lim = t.output_limits or case.signals.output_range
+        text = (f"sample rate {', '.join(hz(f) for f in t.fs_hz)}; methods {', '.join(t.methods)}; "
+                f"computation delay {delay}; coefficients {t.word_format}")
+        if t.prewarp_hz:
+            text += f"; prewarp {hz(t.prewarp_hz)}"
+        if t.derivative_filter:
+            text += f"; derivative filter N = {t.derivative_filter:g}"
+        text += f"; output limits {lim[0]:g} … {lim[1]:g}" if lim else "; no output limits"
+        rows.append(["target: firmware", text])
+    if case.circuit:
+        t = case.circuit
+        tol = ", ".join(f"{k} {v:.3g}" if not isinstance(v, float) else f"{k} {100 * v:g} %" for k, v in t.tolerances.items())
+        gbw = f"op-amp gain-bandwidth {hz(t.opamp_gbw_hz)}" if t.opamp_gbw_hz else "ideal op-amps"
+        rows.append(["target: op-amp circuit",
+                     f"topology {t.topology}; resistors {t.resistors}, capacitors {t.capacitors}; tolerances {tol}; "
+                     f"{gbw}; Monte Carlo {results.draws or t.draws} draws, seed {t.seed}"])
+    if case.plant:
+        rows.append(["plant", f"{case.plant.expression}, dead time {seconds(case.plant.dead_time_s)} "
+                              "(controller output → measurement)"])
+        s = case.signals
+        text = (f"setpoint step {s.setpoint_step:g}; load step {s.disturbance_step:g} at the plant input; "
+                f"simulated time {seconds(results.duration_s)}")
+        if s.output_range:
+            text += f"; actuator range {s.output_range[0]:g} … {s.output_range[1]:g} (every form)"
+        rows.append(["test signals", text])
+    else:
+        rows.append(["plant", "none given: the loop checks are skipped (listed below)"])
+    rows.append(["band of comparison", f"{hz(case.criteria.band_hz[0])} – {hz(case.criteria.band_hz[1])}"])
+    out = [("Case inputs", ["item", "as used"], rows)]
+
+    crit = case.criteria.as_dict()
+    from convert.compare.verdict import CRITERIA
+
+    crows = []
+    for key, label, unit in CRITERIA:
+        limit = crit.get(key)
+        if limit is None:
+            crows.append([label, "not set (not checked)"])
+        elif unit in ("of step", "of peak"):
+            crows.append([label, f"≤ {fixed(100 * limit, '%')} {unit}"])
+        else:
+            crows.append([label, f"≤ {fixed(limit, unit)}"])
+    out.append(("Acceptance criteria", ["criterion", "limit"], crows))
+    return out
+
+
+_NOTES = {
+    "Verdict per criterion": (
+        "Each figure is compared with its limit as an absolute value. Gain and phase errors are the largest over the "
+        "band with every source of error on (the budget's total row); margin and sensitivity changes are new form "
+        "minus source; step and disturbance deviations are the largest |y_new − y_source| after the step, as a "
+        "percentage of the setpoint step or of the source loop's peak disturbance deviation."),
+    "Error budget": (
+        "Each row switches on one source of error alone and compares with the controller it was made from; the "
+        "total has everything on and compares with the source as the loop sees it. Errors are the largest over the "
+        "band; the Δ columns are the change in the loop figure, new minus source (a negative Δ phase margin means "
+        "less margin). The rows need not add up to the total. Rows that cannot arise in this kind of target are "
+        "left out."),
+    "Loop checks": (
+        "Gain margin at the frequency where the loop's phase crosses −180°; phase margin at the crossover where "
+        "|L| = 1; sensitivity peak Ms = max |1/(1 + L)| (6 dB, Ms = 2, is a common upper bound for a robust loop)."),
+    "Sample-rate advice": (
+        "The checked rate is the lowest scanned rate from which every higher rate keeps the method, hold and "
+        "computation delay within the gain and phase error limits over the band and the phase lag added at "
+        "crossover within the phase-margin limit; the rule of thumb uses the lag estimate below."),
+}
+
+
+def table_note(title: str) -> str | None:
+    """How to read the table called ``title`` (None when it needs no note)."""
+    for prefix, text in _NOTES.items():
+        if title.startswith(prefix):
+            return text
+    return None
