@@ -443,18 +443,27 @@ def leaky_integrator_pole(controller) -> float | None:
     return float(p.real)
 
 
+def without_leak(controller):
+    """``controller`` with the pole of a leaking integrator (:func:`leaky_integrator_pole`) moved
+    to s = 0; the controller itself when it has none."""
+    import numpy as np
+
+    if leaky_integrator_pole(controller) is None:
+        return controller
+    from convert.controller import Controller
+
+    poles = controller.poles()
+    rest = np.delete(poles, int(np.argmin(np.abs(poles))))
+    den = np.real(np.poly(np.concatenate([rest, [0.0]])))
+    return Controller.analog(controller.num, den, controller.name)
+
+
 def _fit(controller) -> tuple[PidSettings | None, str | None]:
     import numpy as np
 
     if controller.is_digital:
         return None, "PID forms are read from analog controllers; this one is digital"
-    leak = leaky_integrator_pole(controller)
-    if leak is not None:  # read the leaking integrator as an integrator (see LEAK_RATIO)
-        from convert.controller import Controller
-
-        rest = np.delete(controller.poles(), int(np.argmin(np.abs(controller.poles()))))
-        den = np.real(np.poly(np.concatenate([rest, [0.0]])))
-        controller = Controller.analog(controller.num, den, controller.name)
+    controller = without_leak(controller)  # a leaking integrator is read as the integrator
     den = np.asarray(controller.den, dtype=float)
     num = np.asarray(controller.num, dtype=float)
     integrators = controller.integrator_count()

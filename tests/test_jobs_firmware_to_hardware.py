@@ -231,3 +231,21 @@ def test_two_input_design_read_back_as_a_card_keeps_the_weights():
     assert abs(st.pid.b / settings.b - 1) <= abs(q["b"]["relative_error"]) + 1e-5
     for k in ("kp", "ki", "kd", "tf"):
         assert getattr(st.pid, k) == pytest.approx(q[k]["realized"], rel=1e-6), k
+
+
+def test_regression_sensitivity_of_a_leaking_integrator_tracks_the_integrator():
+    """Bug: the sensitivity table of a designed PID netlist read back (integrator leaking at
+    ~1e-9 of its corner) listed a "DC gain" and the leak as "pole 1", quantities of the leak, not
+    of the PID the card reports. Now it tracks the integral gain (gain × s at low frequency) and
+    the filter pole, as for an ideal card. Reference: the catalog topology's own sensitivity
+    (common practice: ki = 1/(R·C) moves −1 % per +1 % of R or C)."""
+    from convert.circuit.card import analyze_card
+    from convert.circuit.netlist import read_netlist
+
+    words = SINGLE_INPUT[0][1]
+    card = analyze_card(read_netlist(_netlist(words), "designed.cir"))
+    keys = set().union(*(row.effects for row in card.sensitivities))
+    assert "DC gain" not in keys
+    assert "gain ×s^1 (low frequency)" in keys
+    c2 = next(row for row in card.sensitivities if row.part == "C2")  # integral capacitor (ti' = R2·C2)
+    assert c2.effects["ki (1/s)"] == pytest.approx(-1.0, abs=0.02)

@@ -40,6 +40,10 @@ class PartSensitivity:
 def controller_quantities(controller: Controller, pid=None) -> dict[str, float]:
     """The quantities a sensitivity table tracks, as positive numbers (units in the keys)."""
     out: dict[str, float] = {}
+    if pid is not None:  # the PID read through a leaking integrator: track the integrator, not the leak
+        from convert.pid import without_leak
+
+        controller = without_leak(controller)
     num = np.asarray(controller.num)
     den = np.asarray(controller.den)
     m = controller.integrator_count()
