@@ -22,13 +22,14 @@ The netlist subset (elements R C L V E G D X, built-in op-amps OPAMP and OPAMP1P
 The tool computes; it does not certify: check the card on a bench before a live swap."""
 
 EPILOG = """\
-examples:
-  loopshift card pid_card.cir                                  input source VIN, output node out
-  loopshift card card.cir --input VERR --output u1             other names
-  loopshift card card.cir --setpoint VSP --measurement VPV     two-input card: feedback + setpoint weights
-  loopshift card card.cir --json                               num/den (descending s), zeros, poles, gain, sensitivities
+examples (netlists from the loopshift source tree; run from its top folder):
+  loopshift card tests/netlists/pi_card.cir                    input source VIN, output node out
+  loopshift card tests/netlists/pi_card.cir --input VIN --output a    another source or node
+  loopshift card cases/cards/flow_pi_card.cir --setpoint VSP --measurement VPV
+                                                               two-input card: feedback + setpoint path
+  loopshift card tests/netlists/pi_card.cir --json             num/den (descending s), zeros, poles, sensitivities
   loopshift card --topology pi-rc-feedback --part R1=100k R2=470k C1=1u
-  loopshift card --topology pid-single-amp --part R1=100k --part C1=1u ...
+  loopshift card --topology lead-lag-rc --part R1=100k C1=1u --part R2=100k C2=100n
 
 in --part values M is mega and m is milli (loopshift notation, e.g. 4.7k, 2.2n, 1M); inside a
 netlist the SPICE rule holds (1meg, 4.7k; 4k7 is refused)."""
@@ -260,13 +261,11 @@ def _render(console, data: dict, d: int) -> None:
     if data.get("clamps"):
         console.print()
         console.print("Clamps (left out of the linear analysis)", style="bold")
-        for c in data["clamps"]:
-            console.print(f"  {c['text']}", markup=False, highlight=False)
+        console.print(_bullets([c["text"] for c in data["clamps"]], mark=""))
     if data.get("notes"):
         console.print()
         console.print("Notes", style="bold")
-        for n in data["notes"]:
-            console.print(f"  - {n}", markup=False, highlight=False)
+        console.print(_bullets(data["notes"], mark="-"))
     rows = data.get("sensitivities")
     if rows:
         t = Table(title="Sensitivity: % change per +1 % of the part (pots: per 1 % of travel), largest first",
@@ -281,6 +280,19 @@ def _render(console, data: dict, d: int) -> None:
         console.print(t)
     console.print("The tool computes; it does not certify. Verify on a bench before a live swap and follow the "
                   "site's change procedure.", markup=False, highlight=False)
+
+
+def _bullets(items, mark: str):
+    """A list whose wrapped lines line up under the text, not at the left margin."""
+    from rich.table import Table
+    from rich.text import Text
+
+    grid = Table.grid(padding=(0, 1))
+    grid.add_column(no_wrap=True)
+    grid.add_column()
+    for item in items:
+        grid.add_row(" " + mark, Text(str(item)))
+    return grid
 
 
 def _value(row: dict) -> str:

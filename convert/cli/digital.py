@@ -198,7 +198,7 @@ def run(args, console) -> int:
 def _hz(x) -> str:
     from convert.values import format_value
 
-    return "whole band" if x is None else format_value(x, "hz", 4)
+    return "full band" if x is None else format_value(x, "hz", 4)
 
 
 def _coefs(values) -> str:
@@ -206,6 +206,7 @@ def _coefs(values) -> str:
 
 
 def _render(console, survey, source) -> None:
+    from rich import box
     from rich.table import Table
 
     from convert.values import format_value
@@ -223,19 +224,24 @@ def _render(console, survey, source) -> None:
     lim = f"{first.method_error.gain_limit_db:g} dB / {first.method_error.phase_limit_deg:g} deg"
     # One row per method and no coefficients in the table, so it stays readable in an 80-column
     # terminal; the coefficients follow below it in full precision.
-    table = Table(title="errors against the analog controller", title_justify="left")
-    table.add_column("method", overflow="fold")
-    table.add_column("max gain\nerror", justify="right")
-    table.add_column("max phase\nerror", justify="right")
-    table.add_column(f"agrees\n({lim})\nup to", justify="right")
-    table.add_column("with hold\n+ delay:\ngain, phase", justify="right")
-    table.add_column("with hold\n+ delay:\nagrees to", justify="right")
-    table.add_column("warn-\nings", justify="right")
+    table = Table(title=f"errors against the analog controller (agrees: within {lim})", title_justify="left",
+                  box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False, padding=(0, 1, 0, 0), leading=1,
+                  caption="hold, delay: as the plant sees it, with the output's zero-order hold and the "
+                          "computation delay (--delay)", caption_justify="left")
+    # Every column keeps its words whole (no_wrap): the widths add up to less than 80 columns
+    # with the longest method name, so a frequency never breaks between its number and its unit.
+    table.add_column("method", no_wrap=True)
+    table.add_column("max gain\nerror, at", justify="right", no_wrap=True)
+    table.add_column("max phase\nerror, at", justify="right", no_wrap=True)
+    table.add_column("agrees\nup to", justify="right", no_wrap=True)
+    table.add_column("hold,\ndelay:\ngain,\nphase", justify="right", no_wrap=True)
+    table.add_column("hold,\ndelay:\nagrees\nup to", justify="right", no_wrap=True)
+    table.add_column("warn", justify="right", no_wrap=True)
     for r in survey.rows:
         m = r.realization.method
         label = m + ("\n(best)" if m == survey.best else "")
         if m == "tustin" and r.realization.prewarp_hz is not None:
-            label += f"\nprewarp {_hz(r.realization.prewarp_hz)}"
+            label += f"\nprewarp\n{_hz(r.realization.prewarp_hz)}"
         table.add_row(
             label,
             f"{r.method_error.max_gain_error_db:.3g} dB\n@ {_hz(r.method_error.max_gain_error_at_hz)}",

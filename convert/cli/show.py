@@ -259,10 +259,10 @@ def _render_pid(console, pid: dict, data: dict, d: int) -> None:
     from rich.table import Table
 
     t = Table(title=f"PID forms ({pid['kind']}, {pid['action']} action)", box=box.SIMPLE_HEAD, title_justify="left")
-    t.add_column("", style="bold")
+    t.add_column("", style="bold", no_wrap=True)
     t.add_column("parallel")
-    t.add_column("ideal (standard)")
-    t.add_column("series (interacting)")
+    t.add_column("ideal\n(standard)")
+    t.add_column("series\n(interacting)")
     par = pid["parallel"]
     forms = [pid["ideal"], pid["series"]]
 
@@ -276,20 +276,20 @@ def _render_pid(console, pid: dict, data: dict, d: int) -> None:
     t.add_row("proportional band", "", *cells(lambda f: f"{_n(f['pb_percent'], d)} %"))
     t.add_row("integral", f"ki = {_n(par['ki_per_s'], d)} /s",
               *cells(lambda f: "none" if f["ti_s"] is None else f"Ti = {_n(f['ti_s'], d)} s"))
-    t.add_row("  Ti in min/repeat", "",
+    t.add_row("  min/repeat", "",
               *cells(lambda f: "" if f["ti_s"] is None else f"{_n(f['ti_min'], d)} min"))
     t.add_row("  reset rate", "", *cells(lambda f: "" if f["ti_s"] is None else f"{_n(f['reset_per_min'], d)} /min"))
     t.add_row("derivative", f"kd = {_n(par['kd_s'], d)} s",
               *cells(lambda f: "none" if not f["td_s"] else f"Td = {_n(f['td_s'], d)} s"))
     t.add_row("  in minutes", "", *cells(lambda f: "" if not f["td_s"] else f"{_n(f['td_min'], d)} min"))
     t.add_row("derivative filter", f"tf = {secs(par['tf_s'])}" if par["tf_s"] else "none",
-              *cells(lambda f: "none" if f["n"] is None else f"N = {_n(f['n'], d)} (Tf = {secs(f['tf_s'])})"))
+              *cells(lambda f: "none" if f["n"] is None else f"N = {_n(f['n'], d)}"))
+    if par["tf_s"]:
+        t.add_row("  time constant", "", *cells(lambda f: "" if f["n"] is None else f"Tf = {secs(f['tf_s'])}"))
     console.print(t)
-    console.print(
-        "parallel: kp + ki/s + kd·s/(tf·s+1); ideal: Kc·(1 + 1/(Ti·s) + Td·s/((Td/N)·s+1)); "
-        "series: Kc·(1 + 1/(Ti·s))·(1 + Td·s)/((Td/N)·s+1)",
-        highlight=False, markup=False,
-    )
+    for line in ("parallel: kp + ki/s + kd·s/(tf·s+1)", "ideal:    Kc·(1 + 1/(Ti·s) + Td·s/((Td/N)·s+1))",
+                 "series:   Kc·(1 + 1/(Ti·s))·(1 + Td·s)/((Td/N)·s+1)"):
+        console.print(line, highlight=False, markup=False)
     for label, form in (("ideal", pid["ideal"]), ("series", pid["series"])):
         if "unavailable" in form:
             console.print(f"{label}: {form['unavailable']}", highlight=False, markup=False)
