@@ -22,7 +22,8 @@ The netlist subset (elements R C L V E G D X, built-in op-amps OPAMP and OPAMP1P
 The tool computes; it does not certify: check the card on a bench before a live swap."""
 
 EPILOG = """\
-examples (netlists from the loopshift source tree; run from its top folder):
+examples:
+  (the netlists named here ship with the loopshift source; run these from its top folder)
   loopshift card tests/netlists/pi_card.cir                    input source VIN, output node out
   loopshift card tests/netlists/pi_card.cir --input VIN --output a    another source or node
   loopshift card cases/cards/flow_pi_card.cir --setpoint VSP --measurement VPV

@@ -261,8 +261,8 @@ def _render_pid(console, pid: dict, data: dict, d: int) -> None:
     t = Table(title=f"PID forms ({pid['kind']}, {pid['action']} action)", box=box.SIMPLE_HEAD, title_justify="left")
     t.add_column("", style="bold", no_wrap=True)
     t.add_column("parallel")
-    t.add_column("ideal\n(standard)")
-    t.add_column("series\n(interacting)")
+    t.add_column("ideal (standard)")
+    t.add_column("series (interacting)")
     par = pid["parallel"]
     forms = [pid["ideal"], pid["series"]]
 
