@@ -105,7 +105,7 @@ def _from_tustin(dz: RootForm, t: float, prewarp_hz: float | None) -> RootForm:
             raise UnrealizableError("the pole at z = -1 maps to s = infinity under tustin: no proper continuous "
                                     "equivalent; remove it or use another method", key="controller")
     half = tw / 2
-    return _substituted(dz, -1.0, 2.0, np.array([half, 1.0]), np.array([-half, 1.0]))
+    return _substituted(dz, -1.0, np.array([half, 1.0]), np.array([-half, 1.0]))
 
 
 def _from_backward(dz: RootForm, t: float) -> RootForm:
@@ -116,18 +116,29 @@ def _from_backward(dz: RootForm, t: float) -> RootForm:
             raise UnrealizableError("the pole at z = 0 maps to s = infinity under backward-euler: no proper "
                                     "continuous equivalent; keep that part digital or use another method",
                                     key="controller")
-    return _substituted(dz, 0.0, 1.0, np.array([1.0]), np.array([-t, 1.0]))
+    return _substituted(dz, 0.0, np.array([1.0]), np.array([-t, 1.0]))
 
 
-def _substituted(dz: RootForm, special: float, factor: float, n_s, d_s) -> RootForm:
-    """Substitute z = N(s)/D(s) into the digital controller's polynomials directly (a linear map on
-    the coefficients: no root finding, so repeated poles stay accurate). Zeros at z = ``special``
-    (where N + ... makes (z − special) = factor/D) are taken out first: they go to s = infinity."""
-    k = sum(1 for z in dz.zeros if z == special)
-    rest_zeros = [z for z in dz.zeros if z != special]
+def _substituted(dz: RootForm, special: float, n_s, d_s) -> RootForm:
+    """Substitute z = N(s)/D(s) (N, D of degree <= 1, descending powers of s) into the digital
+    controller. Roots exactly at z = 1 (integrators, washouts) and at z = ``special`` are taken out
+    first and mapped by their exact images: (z − c) = (N − c·D)/D, where N − D is a multiple of s
+    (z = 1 goes to s = 0 exactly, so an integrator stays an integrator) and N − special·D a
+    constant (z = ``special`` goes to s = infinity). The rest is substituted into the coefficients
+    directly (a linear map: no root finding in s, so repeated poles stay accurate)."""
+    exact = (1.0, special)
+
+    def split(roots):
+        rest = [r for r in roots if not any(r == e for e in exact)]
+        counts = [sum(1 for r in roots if r == e) for e in exact]
+        return rest, counts
+
+    rest_zeros, k_zeros = split(dz.zeros)
+    rest_poles, k_poles = split(dz.poles)
     num_z = np.real(dz.gain * np.poly(np.asarray(rest_zeros, complex))) if rest_zeros else np.array([dz.gain])
-    den_z = np.real(np.poly(np.asarray(dz.poles, complex))) if dz.poles else np.array([1.0])
+    den_z = np.real(np.poly(np.asarray(rest_poles, complex))) if rest_poles else np.array([1.0])
     m_n, m_d = len(num_z) - 1, len(den_z) - 1
+    images = [np.trim_zeros(np.polysub(n_s, e * np.asarray(d_s)), "f") for e in exact]
 
     def subst(coeffs, m, extra):
         out = np.zeros(1)
@@ -140,8 +151,13 @@ def _substituted(dz: RootForm, special: float, factor: float, n_s, d_s) -> RootF
             out = np.polyadd(out, term)
         return out
 
-    num_s = subst(num_z, m_n, m_d - m_n - k) * factor ** k
+    num_s = subst(num_z, m_n, dz.relative_degree)
     den_s = subst(den_z, m_d, 0)
+    for image, kz, kp in zip(images, k_zeros, k_poles):
+        for _ in range(kz):
+            num_s = np.polymul(num_s, image)
+        for _ in range(kp):
+            den_s = np.polymul(den_s, image)
     return RootForm.of(Controller.analog(np.trim_zeros(num_s, "f") if np.any(num_s) else [0.0], den_s))
 
 
@@ -169,37 +185,52 @@ def _from_matched(dz: RootForm, t: float, match_at_hz: float | None) -> RootForm
 
 
 def _from_zoh(digital: Controller, dz: RootForm, t: float) -> RootForm:
-    from scipy.linalg import expm, logm
+    """ZOH inverse, root-wise: the poles of a step-invariant equivalent are exactly e^{pT}, so the
+    analog poles are ln(z)/T; the analog numerator is the one whose ZOH equivalent matches the
+    digital response. For fixed poles that map is linear in the numerator: with an all-pole
+    cascade realization (A, B) of 1/den(s) and Φ = e^{AT}, Γ = ∫₀ᵀ e^{Aσ}dσ·B, the analog
+    controller C(sI − A)⁻¹B + D samples to C(zI − Φ)⁻¹Γ + D, so (C, D) come from a linear
+    least-squares fit (relative weights) of the digital response on the unit circle.
+
+    Why not A = logm(Φ) of a realization of the digital controller: a double pole makes that Φ
+    nearly defective; the logarithm is backward stable but splits the pair by ~sqrt(eps), its
+    eigenvalues then disagree with ln(z)/T, and the numerator lost ~1e-8 relative (measured)."""
+    from scipy.linalg import expm
 
     _refuse_negative_axis(dz.poles, "pole", "zoh")
     rd = dz.relative_degree
     if rd > 1:
         raise _delay_refusal(rd - 1, "zoh", " (a held analog controller gives at most one sample of lag)")
-    phi, gam, c, d = ss.cascade(dz.zeros, dz.poles, dz.gain)
-    n = phi.shape[0]
+    n = len(dz.poles)
     if n == 0:
-        return RootForm((), (), d, None)
-    import warnings
-
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)  # accuracy is checked just below
-        log_phi = np.real(logm(phi))
-    err = np.linalg.norm(expm(log_phi) - phi, 1) / np.linalg.norm(phi, 1)
-    if not err <= 1e-8:
-        raise UnrealizableError(f"the matrix logarithm of the sampled state matrix is inaccurate (relative error "
-                                f"{err:.2g}); poles too close together or too near z = 0 for a trustworthy zoh "
-                                "inverse; try --method tustin", key="controller")
-    a = log_phi / t
-    em = np.zeros((2 * n, 2 * n))
-    em[:n, :n] = a * t
-    em[:n, n:] = np.eye(n) * t
-    m = expm(em)[:n, n:]
-    try:
-        b = np.linalg.solve(m, gam)
-    except np.linalg.LinAlgError:
-        raise UnrealizableError("the sampled controller's input matrix cannot be traced back to a continuous one "
-                                "(singular hold integral); no zoh equivalent", key="controller") from None
+        return RootForm((), (), dz.gain, None)
     poles = np.array([np.log(complex(p)) / t for p in dz.poles])
+    a, b, _, _ = ss.cascade((), poles, 1.0)
+    em = np.zeros((n + 1, n + 1))
+    em[:n, :n] = a * t
+    em[:n, n:] = b * t
+    e = expm(em)
+    phi, gam = e[:n, :n], e[:n, n:]
+    # Fit points: the unit circle from well below the lowest pole angle up to just below fs/2.
+    roots = np.asarray([r for r in dz.zeros + dz.poles if r != 0], complex)
+    logs = np.abs(np.log(roots))
+    low = float(np.min(np.concatenate([logs[logs > 0], [1.0]]))) / 10
+    theta = np.geomspace(min(low, 0.1), 0.999 * math.pi, 8 * n + 16)
+    zk = np.exp(1j * theta)
+    target = dz.at(zk)
+    basis = np.empty((zk.size, n + 1), dtype=complex)
+    for i, z in enumerate(zk):
+        basis[i, :n] = np.linalg.solve(z * np.eye(n) - phi, gam)[:, 0]
+    basis[:, n] = 1.0
+    weight = 1.0 / np.maximum(np.abs(target), 1e-300 + 1e-12 * np.max(np.abs(target)))
+    lhs = basis * weight[:, None]
+    rhs = target * weight
+    lhs = np.vstack([lhs.real, lhs.imag])
+    rhs = np.concatenate([rhs.real, rhs.imag])
+    scale = np.maximum(np.linalg.norm(lhs, axis=0), 1e-300)
+    sol = np.linalg.lstsq(lhs / scale, rhs, rcond=None)[0] / scale
+    c = sol[:n].reshape(1, n)
+    d = float(sol[n])
     # The numerator follows from C(s)·den(s) sampled on a circle |s| = rho and transformed by an
     # FFT (a unitary, well-conditioned interpolation); its degree (the continuous relative degree
     # is not known beforehand) is where the scaled coefficients (x = s/rho) fall below 1e-6 of the largest.
@@ -211,7 +242,7 @@ def _from_zoh(digital: Controller, dz: RootForm, t: float) -> RootForm:
     vals = ss.evaluate(a, b, c, d, sk) * np.prod(sk[:, None] - poles[None, :], axis=1)
     coef = np.array([np.mean(vals * x ** (-k)) for k in range(n + 1)])  # ascending powers of s/rho
     coef = np.real(coef)
-    keep = np.flatnonzero(np.abs(coef) > 1e-6 * np.max(np.abs(coef)))  # below: rounding noise of logm
+    keep = np.flatnonzero(np.abs(coef) > 1e-6 * np.max(np.abs(coef)))  # below: rounding noise of the fit
     top = int(keep[-1]) if keep.size else 0
     num = coef[: top + 1] / rho ** np.arange(top + 1)
     return RootForm.of(Controller.analog(num[::-1], np.real(np.poly(poles))))
