@@ -37,14 +37,39 @@ def _main(*argv: str) -> tuple[int, str]:
 
 @pytest.fixture(scope="module")
 def reports(tmp_path_factory):
-    """Each demo report built once (200 Monte Carlo draws to stay quick)."""
+    """Each demo report built once through the CLI (200 Monte Carlo draws to stay quick);
+    the evaluated results are kept too (see :func:`evaluated`), so the reference checks below
+    need no second run."""
+    import convert.compare.evaluate as ev
+
     root = tmp_path_factory.mktemp("reports")
     out = {}
-    for name in EXPECTED:
-        folder = root / name
-        code, text = _main("report", str(CASES / f"{name}.toml"), "--out", str(folder), "--draws", "200")
-        out[name] = (code, text, folder)
+    kept = {}
+    real = ev.evaluate_case
+
+    def keep(case, **kw):
+        res = real(case, **kw)
+        kept[case.name] = res
+        return res
+
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(ev, "evaluate_case", keep)
+        for name in EXPECTED:
+            folder = root / name
+            code, text = _main("report", str(CASES / f"{name}.toml"), "--out", str(folder), "--draws", "200")
+            out[name] = (code, text, folder)
+    _EVALUATED.update(kept)
     return out
+
+
+_EVALUATED: dict = {}
+
+
+@pytest.fixture(scope="module")
+def evaluated(reports):
+    """name -> CaseResults of the demo reports built by :func:`reports`."""
+    assert set(_EVALUATED) >= set(EXPECTED)
+    return _EVALUATED
 
 
 def test_every_demo_case_is_covered():
@@ -199,3 +224,208 @@ def test_html_opens_in_chromium_with_every_image(reports):
     seen, console = _chromium_probe(html)
     assert seen["images"] >= 4 and seen["loaded"] == seen["images"]
     assert seen["errors"] == 0 and not console
+
+
+# ----------------------------------------------------------------------------- demo realism
+@pytest.mark.parametrize("name", list(EXPECTED))
+def test_demo_source_loops_are_sensibly_tuned(reports, name):
+    """Common practice: a reference loop worth filing has a phase margin of roughly 40–65° and
+    a sensitivity peak Ms ≤ 2 (6 dB). Every demo's source loop is tuned so; the built-to-fail
+    case fails because of its target, not because of its source."""
+    m = json.loads((reports[name][2] / "results.json").read_text())["loop_check"]["source_margins"]
+    assert 40.0 <= m["phase_margin_deg"] <= 65.0
+    assert m["sensitivity_peak_db"] <= 6.0
+    assert m["gain_margin_db"] is None or m["gain_margin_db"] >= 6.0
+
+
+def test_flow_card_has_no_setpoint_offset(evaluated):
+    """Common practice: a PI card whose setpoint and measurement reach the summing node through
+    equal DC resistance settles at y = r. The card's setpoint path and feedback controller have
+    the same integral gain (the s⁰ coefficient of H_sp·s and of C·s)."""
+    from convert.case import source_controller
+    from convert.circuit.card import analyze_card
+    from convert.circuit.netlist import read_netlist
+
+    path = CASES / "cards" / "flow_pi_card.cir"
+    card = analyze_card(read_netlist(path.read_text(), source=path.name), input="VIN", output="out",
+                        setpoint="VSP", measurement="VPV", with_sensitivities=False)
+    c = evaluated["netlist_card_to_firmware"].reference
+    assert c.num[-1] / c.den[-2] == pytest.approx(card.controller.num[-1] / card.controller.den[-2])
+    sim = evaluated["netlist_card_to_firmware"].source_step
+    assert sim.y[-1] == pytest.approx(1.0, abs=0.01)  # settles on the setpoint
+    assert source_controller(evaluated["netlist_card_to_firmware"].case).controller.integrator_count() == 1
+
+
+# ----------------------------------------------------------------------------- outside references
+@pytest.mark.parametrize("name", list(EXPECTED))
+def test_source_margins_match_python_control_with_pade(evaluated, name):
+    """Reference: python-control ``stability_margins`` of C·P·Padé(θ) (9th-order ``control.pade``
+    for the dead time; accurate where ωθ is small, as at these crossovers). Ours adds −ωθ exactly."""
+    import control
+    import numpy as np
+
+    res = evaluated[name]
+    plant = res.case.plant
+    num, den = control.pade(plant.dead_time_s, 9)
+    loop = res.reference.to_control() * plant.model.to_control() * control.tf(num, den)
+    with np.errstate(over="ignore", invalid="ignore"):  # python-control's polynomial search far above the band
+        gm, pm, _, wpc, wgc, _ = control.stability_margins(loop)
+    m = res.source_margins
+    assert m.phase_margin_deg == pytest.approx(pm, abs=0.05)
+    assert m.crossover_hz == pytest.approx(wgc / (2 * np.pi), rel=1e-3)
+    assert m.gain_margin_db == pytest.approx(20 * np.log10(gm), abs=0.05)
+    assert m.phase_crossover_hz == pytest.approx(wpc / (2 * np.pi), rel=2e-3)
+
+
+def _sampled_loop(res, realization):
+    """The digital loop as python-control sees it at the sample instants: C(z)·z^-d·P_zoh(z)·z^-m,
+    with the plant sampled by ``control.sample_system(..., 'zoh')`` and the computation delay d and
+    dead time m whole numbers of samples."""
+    import control
+
+    t = realization.controller.sample_period_s
+    d = realization.details["delay_s"] / t
+    m = res.case.plant.dead_time_s / t
+    assert abs(d - round(d)) < 1e-9 and abs(m - round(m)) < 1e-9, "the check needs whole-sample delays"
+    z = control.tf([1, 0], [1], t)
+    pz = control.sample_system(res.case.plant.model.to_control(), t, method="zoh")
+    cz = realization.controller.to_control()
+    return cz, pz, 1 / z ** int(round(d)), 1 / z ** int(round(m))
+
+
+@pytest.mark.parametrize("which", [0, 1])
+def test_digital_step_and_load_match_python_control_sampled_loop(evaluated, which):
+    """Reference: python-control ``forced_response`` of the sampled-data loop (plant by
+    ``sample_system`` with zoh, 60 samples of dead time and one of computation delay as z^-61)
+    for the netlist case at 200 Hz: our simulation runs the plant between samples, so at the
+    sample instants the two must agree to rounding (no clamp is reached: steps of 1, limits ±10)."""
+    import control
+    import numpy as np
+
+    res = evaluated["netlist_card_to_firmware"]
+    r = res.realizations[which]
+    cz, pz, comp, dead = _sampled_loop(res, r)
+    t = cz.dt
+    # the load enters at the plant input: it sees the dead time but not the computation delay
+    for resp, closed, size in ((r.step, control.feedback(cz * comp * dead * pz, 1), res.case.signals.setpoint_step),
+                               (r.disturbance, control.feedback(dead * pz, cz * comp), res.case.signals.disturbance_step)):
+        every = int(round(t / resp.sub_step_s))
+        y_ours = resp.y[::every]
+        n = y_ours.size
+        k = np.arange(n) * t
+        _, y_ref = control.forced_response(closed, T=k, U=np.full(n, size))
+        assert np.max(np.abs(y_ours - y_ref)) < 1e-6 * np.max(np.abs(y_ref))
+        assert np.max(np.abs(resp.u)) < 10  # the ±10 limits never act, so the linear reference holds
+
+
+def test_digital_margins_match_python_control_sampled_loop(evaluated):
+    """Reference: python-control ``stability_margins`` of the discrete loop C(z)·z^-61·P_zoh(z)
+    (netlist case, 200 Hz, crossover near 0.26 Hz). Ours sees the hold as sinc·e^{-sT/2} in the
+    continuous loop; at fs ≈ 770 × crossover the two agree within a few hundredths of a degree."""
+    import control
+    import numpy as np
+
+    res = evaluated["netlist_card_to_firmware"]
+    r = res.realizations[0]
+    cz, pz, comp, dead = _sampled_loop(res, r)
+    loop = cz * comp * dead * pz
+    # z^-61 makes the polynomial search ill-conditioned; python-control's frequency-response method
+    # on a dense grid up to Nyquist is its own advice for such a loop
+    w = np.logspace(-2, np.log10(0.999 * np.pi / cz.dt), 20000)
+    gm, pm, _, wpc, wgc, _ = control.stability_margins(control.frd(loop, w), method="frd")
+    assert r.margins.phase_margin_deg == pytest.approx(pm, abs=0.05)
+    assert r.margins.crossover_hz == pytest.approx(wgc / (2 * np.pi), rel=2e-3)
+    assert r.margins.gain_margin_db == pytest.approx(20 * np.log10(gm), abs=0.05)
+
+
+# ----------------------------------------------------------------------------- what a reader sees
+def test_report_echoes_inputs_criteria_and_how_far_from_the_limit(reports):
+    html = (reports["slow_firmware_fails"][2] / "report.html").read_text()
+    md = (reports["slow_firmware_fails"][2] / "report.md").read_text()
+    for doc in (html, md):
+        assert "Case inputs" in doc and "Acceptance criteria" in doc
+        assert "Kc = 8, Ti = 20 s, Td = 2 s" in doc  # the source PID, readable
+        assert "0.5/((30s + 1)(5s + 1))" in doc and "sample rate 1 Hz" in doc
+        assert "over by" in doc and "FAIL" in doc  # which criterion failed, and by how much
+        assert "e-0" not in doc.split("## Figures")[0]  # no exponent notation in the tables
+    for c in ("bench or in simulation", "bumpless", "interlocks", "change procedure"):
+        assert c in html and c in md
+
+
+@pytest.mark.parametrize("name", list(EXPECTED))
+def test_markdown_figures_are_relative_and_exist(reports, name):
+    folder = reports[name][2]
+    import re
+
+    targets = re.findall(r"!\[[^\]]*\]\(([^)]+)\)", (folder / "report.md").read_text())
+    assert targets
+    for target in targets:
+        assert not target.startswith(("/", "http")) and (folder / target).is_file()
+
+
+# ----------------------------------------------------------------------------- never half-written
+def test_failure_while_drawing_leaves_no_folder(evaluated, tmp_path, monkeypatch):
+    """A figure that raises mid-run leaves neither the report folder nor a temporary one, and an
+    existing folder replaced with force survives untouched."""
+    import convert.report.figures as figs
+    from convert.report import write_report
+
+    def broken(results):
+        raise RuntimeError("drawing failed")
+
+    monkeypatch.setattr(figs, "loop_responses", broken)
+    res = evaluated["pi_card_to_firmware"]
+    out = tmp_path / "new"
+    with pytest.raises(RuntimeError):
+        write_report(res, out)
+    assert list(tmp_path.iterdir()) == []
+    old = tmp_path / "old"
+    old.mkdir()
+    (old / "report.md").write_text("earlier report")
+    with pytest.raises(RuntimeError):
+        write_report(res, old, force=True)
+    assert [p.name for p in tmp_path.iterdir()] == ["old"]
+    assert (old / "report.md").read_text() == "earlier report"
+
+
+def test_failure_while_writing_leaves_no_folder(evaluated, tmp_path, monkeypatch):
+    """A write that fails half-way (here: the disk refuses results.json) removes the temporary
+    folder; the destination never appears and an existing one is kept."""
+    from pathlib import Path as P
+
+    from convert.report import write_report
+
+    real = P.write_text
+
+    def flaky(self, *a, **kw):
+        if self.name == "results.json":
+            raise OSError("no space left on device")
+        return real(self, *a, **kw)
+
+    monkeypatch.setattr(P, "write_text", flaky)
+    res = evaluated["pi_card_to_firmware"]
+    with pytest.raises(OSError):
+        write_report(res, tmp_path / "r")
+    assert list(tmp_path.iterdir()) == []
+    keep = tmp_path / "keep"
+    keep.mkdir()
+    (keep / "results.json").write_bytes(b"{}")
+    with pytest.raises(OSError):
+        write_report(res, keep, force=True)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["keep"]
+    assert (keep / "results.json").read_bytes() == b"{}"
+
+
+def test_existing_folder_refused_before_any_work(tmp_path, capsys, monkeypatch):
+    """Without --force the CLI refuses an existing folder before evaluating anything."""
+    import convert.compare.evaluate as ev
+
+    def never(*a, **kw):
+        raise AssertionError("evaluated although the folder exists")
+
+    monkeypatch.setattr(ev, "evaluate_case", never)
+    (tmp_path / "r").mkdir()
+    (tmp_path / "r" / "mine.txt").write_text("x")
+    code, _ = _main("report", str(CASES / "pi_card_to_firmware.toml"), "--out", str(tmp_path / "r"))
+    assert code == 2 and "--force" in capsys.readouterr().err
+    assert (tmp_path / "r" / "mine.txt").read_text() == "x"
