@@ -75,7 +75,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                         help="matched only: frequency where gain is matched instead of DC, e.g. --match-at 1Hz "
                              "(default for an integrating controller: a decade below its lowest corner, at most fs/100)")
     parser.add_argument("--keep-delay", action="store_true",
-                        help="matched only: keep one zero at infinity as a one-sample delay instead of mapping it to z = -1")
+                        help="matched only: keep one zero at infinity as a one-sample delay instead of mapping it to z = -1, "
+                             "e.g. --method matched --keep-delay")
     parser.add_argument("--agreement", nargs=2, metavar=("DB", "DEG"), default=None,
                         help="agreement limits for the 'agrees up to' figure, e.g. --agreement 0.5 3 (default 1 dB, 5 deg)")
     parser.add_argument("--json", action="store_true",
@@ -150,7 +151,7 @@ def run(args, console) -> int:
     match_at = _positive(args.match_at, "hz", "--match-at") if args.match_at is not None else None
     if match_at is not None:
         below_nyquist(match_at, args.match_at, fs, "--match-at")
-    filter_n = _positive(args.filter_n, "number", "--filter") if args.filter_n is not None else None
+    filter_n = _positive(args.filter_n, "number", "--derivative-filter") if args.filter_n is not None else None
     delay = parse_delay(args.delay, fs)
     band = None
     if args.band:
@@ -171,7 +172,7 @@ def run(args, console) -> int:
         raise InputError("applies to matched only; add --method matched", key="--match-at")
     if args.keep_delay and "matched" not in methods:
         raise InputError("applies to matched only; add --method matched", key="--keep-delay")
-    controller, _pid = controller_from_args(args)
+    controller, _pid = controller_from_args(args, fs_hz=fs)
     if controller.is_digital:
         raise InputError("the controller is already digital; use `loopshift analog` to go back", key="EXPR")
     with at(None, rename={"prewarp": "--prewarp", "match_at_hz": "--match-at",
@@ -199,6 +200,30 @@ def _hz(x) -> str:
     from convert.values import format_value
 
     return "full band" if x is None else format_value(x, "hz", 4)
+
+
+def _wrap_terms(text: str, width: int, sep: str) -> list[str]:
+    """Break ``text`` into lines of at most ``width`` only after ``sep`` (", " between coefficients,
+    " " between the terms of a difference equation), never inside a number; continuation lines
+    are indented under the first "[" or "=" so the list or equation reads as one block."""
+    if len(text) <= width:
+        return [text]
+    mark = max(text.find("["), text.find("= ") + 1)
+    indent = " " * (mark + 1 if mark > 0 else 6)
+    import re
+
+    # Terms of an equation break before their sign, so "+ 1.99*u[n-1]" stays together.
+    pieces = re.split(r" (?=[-+] )", text) if sep == " " else text.split(sep)
+    lines, current = [], pieces[0]
+    for piece in pieces[1:]:
+        candidate = current + sep + piece
+        if len(candidate.rstrip()) <= width or current.strip() == "":
+            current = candidate
+        else:
+            lines.append(current + sep.rstrip())  # "," stays at the line's end; a space goes
+            current = indent + piece
+    lines.append(current)
+    return lines
 
 
 def _coefs(values) -> str:
@@ -258,14 +283,20 @@ def _render(console, survey, source) -> None:
         console.print(f"no method picked: {survey.best_reason}", markup=False)
     console.print("coefficients (b, a in ascending powers of z^-1, a0 = 1) and difference equations "
                   "(e = error input, u = output):", markup=False)
+    width = max(console.width, 40)
     for row in survey.rows:
         real = row.realization
-        console.print(f"  {real.method}: b = [{_coefs(real.b)}]  a = [{_coefs(real.a)}]", markup=False, soft_wrap=True)
-        console.print(f"  {' ' * len(real.method)}  {real.difference_equation}", markup=False, soft_wrap=True)
+        console.print(f"  {real.method}:", markup=False)
+        for line in _wrap_terms(f"    b = [{_coefs(real.b)}]", width, ", "):
+            console.print(line, markup=False, soft_wrap=True)
+        for line in _wrap_terms(f"    a = [{_coefs(real.a)}]", width, ", "):
+            console.print(line, markup=False, soft_wrap=True)
+        for line in _wrap_terms(f"    {real.difference_equation}", width, " "):
+            console.print(line, markup=False, soft_wrap=True)
     for row in survey.rows:
         for note in row.realization.notes:
-            console.print(f"note: {note}", markup=False, soft_wrap=True)
+            console.print(f"note: {note}", markup=False)
         for w in row.realization.warnings:
-            console.print(f"warning: {w}", markup=False, soft_wrap=True)
+            console.print(f"warning: {w}", markup=False)
     console.print("The tool computes; it does not certify. Verify on a bench or in simulation before a live swap.",
                   markup=False)

@@ -32,7 +32,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--out", metavar="DIR", help="report folder to write (default: reports/<case name> in the "
                                                 "current folder), e.g. --out reports/pump-7")
     p.add_argument("--force", action="store_true", help="replace the report folder if it exists "
-                                                        "(default: refuse, so an earlier report is never lost)")
+                                                        "(default: refuse, so an earlier report is never lost), "
+                                                        "e.g. --out reports/pump-7 --force")
     p.add_argument("--draws", metavar="N", type=_positive_int,
                    help="Monte Carlo draws for a circuit target, overriding the case file (1 to 1,000,000), "
                         "e.g. --draws 10000")
