@@ -16,7 +16,7 @@ def test_fixed_keeps_three_significant_digits_without_exponent():
 
 def test_fixed_writes_negligible_figures_as_below_the_floor():
     assert fixed(5.02e-07, "dB") == "< 0.001 dB"
-    assert fixed(-3e-6, "dB") == "−< 0.001 dB"
+    assert fixed(-3e-6, "dB") == "< 0.001 dB"
     assert fixed(0.0, "dB") == "0 dB"
     assert fixed(None) == "—"
 

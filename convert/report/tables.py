@@ -40,7 +40,7 @@ def fixed(x, unit: str = "", digits: int = 3, floor: float = FLOOR) -> str:
     if x == 0:
         return f"0 {unit}".strip()
     if abs(x) < floor:
-        return f"{'−' if x < 0 else ''}< {floor:g} {unit}".strip()
+        return f"< {floor:g} {unit}".strip()  # magnitude below the floor; the sign says nothing
     exp = math.floor(math.log10(abs(x)))
     decimals = max(0, digits - 1 - exp)
     text = f"{x:.{decimals}f}"
