@@ -286,13 +286,11 @@ def _render(console, survey, source) -> None:
     width = max(console.width, 40)
     for row in survey.rows:
         real = row.realization
-        console.print(f"  {real.method}:", markup=False)
-        for line in _wrap_terms(f"    b = [{_coefs(real.b)}]", width, ", "):
-            console.print(line, markup=False, soft_wrap=True)
-        for line in _wrap_terms(f"    a = [{_coefs(real.a)}]", width, ", "):
-            console.print(line, markup=False, soft_wrap=True)
-        for line in _wrap_terms(f"    {real.difference_equation}", width, " "):
-            console.print(line, markup=False, soft_wrap=True)
+        pad = " " * (len(real.method) + 4)
+        for text, sep in ((f"  {real.method}: b = [{_coefs(real.b)}]", ", "), (f"{pad}a = [{_coefs(real.a)}]", ", "),
+                          (f"{pad}{real.difference_equation}", " ")):
+            for line in _wrap_terms(text, width, sep):
+                console.print(line, markup=False, soft_wrap=True)
     for row in survey.rows:
         for note in row.realization.notes:
             console.print(f"note: {note}", markup=False)
