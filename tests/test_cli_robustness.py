@@ -114,6 +114,8 @@ BAD_INPUT = [
     (["circuit", PI, "--trim", "zz=1..4", "--draws", "0"], "--trim: pi-rc-feedback has no single resistor"),
     (["circuit", ZPI, "--fs", "100Hz", "--inverse-method", "foo"], "--inverse-method: no inverse for method"),
     (["circuit", "1/(s^2+s+1)", "--draws", "0"], "no catalog topology"),
+    # found by the fuzz test below: a pure differentiator divided by zero in the filter rule
+    (["circuit", "s", "--draws", "0"], "target: a pure differentiator"),
     # --- circuit output files: exists, folder, missing folder, the same file twice, wrong type
     (["circuit", PI, "--netlist", "taken.cir", "--draws", "0"], "--netlist: taken.cir exists"),
     (["circuit", PI, "--netlist", "a folder", "--draws", "0"], "--netlist: 'a folder' is a folder"),

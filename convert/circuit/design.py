@@ -187,6 +187,12 @@ def add_derivative_filter(controller: Controller, n: float) -> Controller:
             pass
     zeros = controller.zeros()
     top = float(np.max(np.abs(zeros))) if zeros.size else 1.0
+    if not top > 0:
+        from convert.errors import UnrealizableError
+
+        raise UnrealizableError("a pure differentiator (its zeros all at s = 0) has no corner to place the derivative "
+                                "filter pole from; write the filter into the controller, e.g. 2*s/(0.01*s + 1)",
+                                key="target")
     tf = 1.0 / (n * top)
     return Controller.analog(controller.num, np.polymul(controller.den, [tf, 1.0]), controller.name)
 

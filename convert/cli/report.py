@@ -115,6 +115,7 @@ def _check_writable(out_dir, *, explicit: bool) -> None:
 
 
 def _summary(console, results, folder) -> None:
+    from rich import box
     from rich.markup import escape
     from rich.panel import Panel
     from rich.table import Table
@@ -129,13 +130,15 @@ def _summary(console, results, folder) -> None:
     for title, header, rows in all_tables(results):
         if title.startswith("New forms"):
             continue
-        table = Table(title=escape(title), title_justify="left", show_lines=False)
+        # No side borders and one space of padding: at 80 columns the width goes to the words.
+        table = Table(title=escape(title), title_justify="left", box=box.SIMPLE_HEAD, show_edge=False,
+                      pad_edge=False, padding=(0, 1, 0, 0))
         keep = [i for i, h in enumerate(header) if h not in ("what was switched on", "note", "scanned")]
+        # the report folder lists the rows that do not apply; the terminal keeps to what applies
+        rows = [row for row in rows if not (len(row) > 1 and row[1] == "not applicable")]
         for i in keep:
             table.add_column(escape(header[i]), overflow="fold")
         for row in rows:
-            if len(row) > 1 and row[1] == "not applicable":
-                continue  # the report folder lists them; the terminal keeps to what applies
             cells = []
             for i in keep:
                 c = row[i]
