@@ -218,15 +218,18 @@ class Controller:
         f = np.asarray(f_hz, dtype=float)
         w = 2.0 * np.pi * f
         x = np.exp(1j * w * self.sample_period_s) if self.is_digital else 1j * w
-        if via == "zpk":
-            zeros, poles = self.zeros(), self.poles()
-            resp = np.full(x.shape, self.gain, dtype=complex)
-            for zr in zeros:
-                resp = resp * (x - zr)
-            for pl in poles:
-                resp = resp / (x - pl)
-            return resp
-        return np.polyval(self.num, x) / np.polyval(self.den, x)
+        # Exactly at a pole on the axis (an integrator at f = 0) the response is infinite: inf is
+        # the right answer there, not a warning.
+        with np.errstate(divide="ignore", invalid="ignore"):
+            if via == "zpk":
+                zeros, poles = self.zeros(), self.poles()
+                resp = np.full(x.shape, self.gain, dtype=complex)
+                for zr in zeros:
+                    resp = resp * (x - zr)
+                for pl in poles:
+                    resp = resp / (x - pl)
+                return resp
+            return np.polyval(self.num, x) / np.polyval(self.den, x)
 
     def corner_frequencies_hz(self) -> dict[str, list[float]]:
         """Corner frequencies in Hz of the non-integrating zeros and poles.

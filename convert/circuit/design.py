@@ -4,8 +4,10 @@ Steps (:func:`design_circuit`):
 
 1. Read the target. A digital controller is brought back to analog with
    ``convert.digital.to_analog`` (method ``options.inverse_method``). An improper target (ideal
-   PID or PD) gets the derivative filter every circuit has: one pole at N times the highest zero
-   (N = ``options.derivative_filter_n``); its effect is reported as its own error row.
+   PID or PD) gets the derivative filter every circuit has, by the same rule as
+   ``loopshift digital --derivative-filter``: the derivative part divided by (τs + 1) with
+   τ = Td/N (N = ``options.derivative_filter_n``; see :mod:`convert.digital.derivative_filter`);
+   its effect is reported as its own error row.
 2. Pick the topology: the one named, or with ``auto`` the simplest in
    :data:`~convert.circuit.topologies.AUTO_ORDER` whose :meth:`fit` realizes the target exactly
    (PID settings with setpoint weights b ≠ 1 or c ≠ 1 pick ``pid-two-input``).
@@ -163,33 +165,28 @@ def prepare_target(controller: Controller, options: DesignOptions) -> tuple[Cont
             raise UnrealizableError(f"the target has {-c.relative_degree} more zeros than poles; an op-amp stage "
                                     "realizes at most one extra zero (with a derivative filter)", key="target")
         filtered = add_derivative_filter(c, options.derivative_filter_n)
-        notes.append(f"the target is improper (ideal derivative); the circuit adds a derivative filter pole at "
-                     f"N = {options.derivative_filter_n:g} times its highest zero")
+        notes.append(f"the target is improper (ideal derivative); the circuit adds a derivative filter with "
+                     f"time constant Td/N, N = {options.derivative_filter_n:g}")
     return (filtered or c), (filtered if filtered is not None else None), notes
 
 
 def add_derivative_filter(controller: Controller, n: float) -> Controller:
-    """C(s)/(tf·s + 1) with tf = 1/(n·|highest zero|) — the circuit's derivative limit.
+    """The target with the circuit's derivative limit.
 
-    Uses ``convert.digital.add_derivative_filter`` when that module provides it (one owner of the
-    rule); the local rule is the same idea for targets it does not take.
+    The rule is :func:`convert.digital.add_derivative_filter` (τ = Td/N on the derivative part).
+    A target with no proportional term (a pure differentiator, where Td is undefined) gets one pole
+    at N times its highest zero instead: C(s)/(tf·s + 1) with tf = 1/(N·|highest zero|).
     """
-    try:
-        from convert.digital import add_derivative_filter as shared
-    except ImportError:
-        shared = None
-    if shared is not None:
-        from convert.errors import LoopshiftError
+    from convert.digital import add_derivative_filter as shared
+    from convert.errors import LoopshiftError
 
-        try:
-            return shared(controller, n)
-        except LoopshiftError:  # a target the shared rule does not take: the local rule below
-            pass
+    try:
+        return shared(controller, n)
+    except LoopshiftError:
+        pass
     zeros = controller.zeros()
     top = float(np.max(np.abs(zeros))) if zeros.size else 1.0
     if not top > 0:
-        from convert.errors import UnrealizableError
-
         raise UnrealizableError("a pure differentiator (its zeros all at s = 0) has no corner to place the derivative "
                                 "filter pole from; write the filter into the controller, e.g. 2*s/(0.01*s + 1)",
                                 key="target")

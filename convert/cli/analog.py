@@ -10,7 +10,7 @@ INVERSE_NAMES = ("tustin", "zoh", "matched", "backward-euler")
 DESCRIPTION = """\
 Map a digital controller back to an analog one: the continuous transfer function whose
 discretization by --method is the given digital controller. Methods: tustin (with the same
---prewarp used going forward), zoh (through the matrix logarithm of a state-space form),
+--prewarp used going forward), zoh (poles by z = e^(sT) inverted exactly, numerator fitted on the unit circle),
 matched, backward-euler.
 
 Some digital controllers have no real continuous equivalent: a pole on the negative real

@@ -66,7 +66,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    help="band for the search and the error figures (default: a decade around the corners), "
                         "e.g. --band 10mHz 100Hz")
     p.add_argument("--derivative-filter", default="10", metavar="N",
-                   help="for an ideal derivative: filter pole at N times the highest zero (default 10), e.g. --derivative-filter 8")
+                   help="for an ideal derivative: a derivative filter with time constant Td/N (default N = 10), "
+                        "the same rule as `loopshift digital`, e.g. --derivative-filter 8")
     p.add_argument("--tolerance", nargs="+", metavar="PART=PCT",
                    help="part tolerances by kind or part (default R=1%% C=5%%), e.g. --tolerance R=1%% C=10%% R3=0.1%%")
     p.add_argument("--distribution", default="uniform", choices=("uniform", "normal"),

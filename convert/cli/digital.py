@@ -80,7 +80,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     parser.add_argument("--agreement", nargs=2, metavar=("DB", "DEG"), default=None,
                         help="agreement limits for the 'agrees up to' figure, e.g. --agreement 0.5 3 (default 1 dB, 5 deg)")
     parser.add_argument("--json", action="store_true",
-                        help="print a JSON list of results (method, fs_hz, b, a, prewarp_hz, errors), e.g. --json")
+                        help="print a JSON list of results (method, fs_hz, b, a, prewarp_hz, errors, and the analog "
+                             "num/den they came from), e.g. --json")
     return parser
 
 
@@ -186,6 +187,8 @@ def run(args, console) -> int:
             item = row.summary()
             item["best"] = row.realization.method == survey.best
             item["delay_s"] = survey.delay_s
+            # the analog controller the coefficients came from (after any derivative filter)
+            item["analog"] = {"num": list(survey.analog.num), "den": list(survey.analog.den)}
             if survey.filter_error is not None:
                 item["derivative_filter"] = {"n": survey.filter_n, "tau_s": survey.filter_tau_s,
                                              "error": survey.filter_error.summary()}

@@ -176,7 +176,7 @@ def matched(analog: Controller, src: RootForm, t: float, match_at_hz: float | No
     if match_at_hz is None:
         match_at_hz, why = default_match_frequency_hz(src, fs)
         notes.append(f"matched: the controller has a pole or zero at s = 0, so gain is matched at "
-                     f"{match_at_hz:.6g} Hz ({why}); pass match_at_hz to choose")
+                     f"{match_at_hz:.6g} Hz ({why}); choose it with --match-at (API: match_at_hz)")
     else:
         notes.append(f"matched: gain matched at {match_at_hz:.6g} Hz as asked")
     w = 2 * math.pi * match_at_hz

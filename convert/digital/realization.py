@@ -128,6 +128,20 @@ def _check_rate(value, key: str) -> float:
     return v
 
 
+# e^x overflows a double for x > 709.78; a pole whose sampled image e^{pT} is near that has no
+# finite digital form (and is far outside any sensible controller at this rate).
+_MAX_EXPONENT = 700.0
+
+
+def _refuse_overflowing_poles(controller: Controller, t: float) -> None:
+    for p in controller.poles():
+        if p.real * t > _MAX_EXPONENT:
+            raise UnrealizableError(
+                f"the pole at s = {p.real:.6g}{p.imag:+.6g}j rad/s grows by e^{p.real * t:.4g} per sample at this "
+                "sample rate, beyond any finite number; check the expression (a sign?) or raise the sample rate",
+                key="controller")
+
+
 def discretize(controller: Controller, fs_hz: float, method: str, *, prewarp_hz: float | None = None,
                match_at_hz: float | None = None, keep_delay: bool = False) -> DigitalRealization:
     """The digital form of an analog ``controller`` at sample rate ``fs_hz`` (Hz) by ``method``
@@ -148,9 +162,10 @@ def discretize(controller: Controller, fs_hz: float, method: str, *, prewarp_hz:
         extra = -controller.relative_degree
         raise UnrealizableError(
             f"the controller is improper ({extra} more zero{'s' if extra > 1 else ''} than poles, e.g. an ideal PD/PID) "
-            "and has no causal sampled form; add a derivative filter (CLI: --filter 10; "
+            "and has no causal sampled form; add a derivative filter (CLI: --derivative-filter 10; "
             "API: add_derivative_filter(controller, 10))", key="controller")
     t = 1.0 / fs
+    _refuse_overflowing_poles(controller, t)
     warnings: list[str] = []
     if prewarp_hz is not None:
         prewarp_hz = _check_rate(prewarp_hz, "prewarp")
@@ -234,9 +249,10 @@ def _accuracy_warnings(controller: Controller, digital: Controller, roots: RootF
     worst = int(np.argmax(rel))
     if rel[worst] <= POLY_ACCURACY_LIMIT:
         return []
-    ratio = poly[worst] / exact[worst]
-    db = 20 * np.log10(abs(ratio)) if abs(ratio) > 0 else -np.inf
-    deg = np.degrees(np.angle(ratio))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = poly[worst] / exact[worst]
+        db = 20 * np.log10(abs(ratio)) if abs(ratio) > 0 else -np.inf
+        deg = np.degrees(np.angle(ratio))
     return [f"direct-form coefficients lose accuracy at this fs/corner ratio: evaluated from b/a the response departs "
             f"from the zeros/poles form by {db:.3g} dB, {deg:.3g} deg near {f[worst]:.4g} Hz (relative {rel[worst]:.2g}); "
             "implement it as cascaded first/second-order sections or lower fs"]

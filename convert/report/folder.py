@@ -20,11 +20,12 @@ def check_destination(out_dir: Path, *, force: bool, protected: list[Path]) -> N
         if rp == out or out in rp.parents:
             raise InputError(f"the report folder {str(out_dir)!r} contains the input {str(p)!r}; choose another "
                              "folder with --out", where="--out")
+    if out_dir.exists() and not out_dir.is_dir():
+        raise InputError(f"{str(out_dir)!r} exists and is not a folder; choose a folder name with --out",
+                         where="--out")
     if out_dir.exists() and not force:
         raise InputError(f"the report folder {str(out_dir)!r} already exists; rerun with --force to replace it, or "
                          "choose another folder with --out", where="--out")
-    if out_dir.exists() and not out_dir.is_dir():
-        raise InputError(f"{str(out_dir)!r} exists and is not a folder", where="--out")
 
 
 def write_folder(out_dir: Path, files: dict[str, bytes | str], *, force: bool, protected: list[Path]) -> Path:

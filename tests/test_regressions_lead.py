@@ -1,0 +1,66 @@
+"""Regression tests for defects found in review; each is named after the bug it pins."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+
+from convert.controller import Controller, from_expression
+
+
+def test_pole_far_in_the_right_half_plane_is_refused_not_overflowed(run_cli):
+    """Bug: `digital "1/(s-2e6)" --fs 1kHz --method zoh` overflowed e^{pT} and ended with a NaN
+    coefficient error plus runtime warnings. Now one line naming the pole, exit 2.
+    Reference: e^x overflows IEEE double precision for x > 709.78 (IEEE 754 binary64 range)."""
+    r = run_cli("digital", "1/(s-2e6)", "--fs", "1kHz", "--method", "zoh")
+    assert r.code == 2
+    assert r.err.count("\n") == 1 and "pole at s = 2e+06" in r.err and "per sample" in r.err
+
+
+def test_integrator_is_not_found_in_poles_merely_close_to_z_equal_1():
+    """Bug: two poles within 1e-5 of z = 1 (fs = 100 kHz, corners near 1.6 Hz) were counted as an
+    integrator, so dc_gain() returned None. Reference: the DC gain is num(1)/den(1), here finite;
+    numpy.polyval evaluates it (common practice)."""
+    t = 1e-5
+    p = np.exp(-2 * np.pi * 1.0 * t)
+    c = Controller.from_zpk([0.5], [p, p * 0.99999], 1.0, "digital", t)
+    assert c.integrator_count() == 0
+    assert c.dc_gain() == pytest.approx(np.polyval(c.num, 1.0) / np.polyval(c.den, 1.0), rel=1e-9)
+    exact = Controller.from_zpk([0.5], [1.0, 1.0, 0.3], 1.0, "digital", t)
+    assert exact.integrator_count() == 2
+
+
+def test_report_out_naming_an_existing_file_says_it_is_not_a_folder(run_cli, tmp_path):
+    """Bug: `report CASE --out existing_file` said "the report folder already exists"."""
+    target = tmp_path / "a_file"
+    target.write_text("keep me")
+    r = run_cli("report", "cases/pi_card_to_firmware.toml", "--out", str(target))
+    assert r.code == 2 and "is not a folder" in r.err
+    assert target.read_text() == "keep me"
+
+
+def test_digital_json_names_the_analog_controller_it_came_from(run_cli):
+    """Bug: `digital --json` carried no num/den of the analog source. Reference: the parsed
+    expression (s+2)/(s+20)."""
+    r = run_cli("digital", "(s+2)/(s+20)", "--fs", "1kHz", "--method", "tustin", "--json")
+    data = json.loads(r.out)
+    assert data[0]["analog"] == {"num": [1.0, 2.0], "den": [1.0, 20.0]}
+
+
+def test_circuit_and_digital_add_the_same_derivative_filter():
+    """Bug: `circuit --derivative-filter N` was documented as a pole at N times the highest zero
+    while `digital --derivative-filter N` uses tau = Td/N; one option name had two meanings. Both now
+    use the ideal-form rule Kc·Td·s/((Td/N)·s + 1) (Åström & Hägglund, PID Controllers, 2nd ed.,
+    derivative filter; from memory)."""
+    from convert.circuit.design import DesignOptions, prepare_target
+    from convert.digital import add_derivative_filter
+
+    ideal_pid = from_expression("2*(1 + 1/(3*s) + 0.5*s)")
+    target, filtered, notes = prepare_target(ideal_pid, DesignOptions(derivative_filter_n=8))
+    expected = add_derivative_filter(ideal_pid, 8)
+    assert np.allclose(filtered.num, expected.num, rtol=1e-12) and np.allclose(filtered.den, expected.den, rtol=1e-12)
+    # tau = Td/N = 0.5/8: the filter pole of the ideal form
+    assert np.any(np.isclose(filtered.poles(), -8 / 0.5, rtol=1e-9))
+    assert any("Td/N" in n for n in notes)
