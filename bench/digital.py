@@ -39,8 +39,13 @@ def main() -> None:
     tf = c.to_control()
     names = ["zoh", "foh", "tustin", "matched", "impulse", "euler", "backward_diff"]
 
+    from convert.controller import Controller
+    from convert.digital.roots import _root_form_of
+
     def ours():
-        survey_methods(c, FS, METHODS)
+        # a fresh controller object and empty root cache each time: no work carried between repeats
+        _root_form_of.cache_clear()
+        survey_methods(Controller.analog(c.num, c.den), FS, METHODS)
 
     def theirs():
         with warnings.catch_warnings():

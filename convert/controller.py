@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from functools import cached_property
 from typing import Literal, Sequence
 
 import numpy as np
@@ -144,11 +145,20 @@ class Controller:
         return len(self.den) - 1
 
     def zeros(self) -> np.ndarray:
-        """Finite zeros (s or z plane), as a complex array."""
-        return np.roots(self.num).astype(complex) if len(self.num) > 1 else np.zeros(0, complex)
+        """Finite zeros (s or z plane), as a complex array (a fresh copy each call)."""
+        return self._roots_of_num.copy()
 
     def poles(self) -> np.ndarray:
-        """Poles (s or z plane), as a complex array."""
+        """Poles (s or z plane), as a complex array (a fresh copy each call)."""
+        return self._roots_of_den.copy()
+
+    # The object is immutable, so its roots are computed once (conversions ask for them often).
+    @cached_property
+    def _roots_of_num(self) -> np.ndarray:
+        return np.roots(self.num).astype(complex) if len(self.num) > 1 else np.zeros(0, complex)
+
+    @cached_property
+    def _roots_of_den(self) -> np.ndarray:
         return np.roots(self.den).astype(complex) if len(self.den) > 1 else np.zeros(0, complex)
 
     @property
@@ -238,6 +248,10 @@ class Controller:
         Roots at the origin (analog) or at z = 1 (digital) and at z = 0 are left out. Complex
         pairs are listed once.
         """
+        return {label: list(values) for label, values in self._corners.items()}
+
+    @cached_property
+    def _corners(self) -> dict[str, list[float]]:
         out: dict[str, list[float]] = {}
         for label, roots in (("zeros", self.zeros()), ("poles", self.poles())):
             values: list[float] = []

@@ -9,6 +9,7 @@ high fs / corner ratios. Convention: ``C(x) = gain · Π(x − zeros) / Π(x −
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 
@@ -27,9 +28,7 @@ class RootForm:
         """Roots of the controller's polynomials. Roots at s = 0 (analog) or z = ±1 (digital) —
         integrators, washouts, Nyquist zeros — are divided out first and kept exact, since a repeated root
         found numerically scatters by about the square root of the rounding error."""
-        points = (1.0, -1.0) if controller.is_digital else (0.0,)
-        return cls(_roots(controller.num, points), _roots(controller.den, points), float(controller.gain),
-                   controller.sample_period_s)
+        return _root_form_of(controller)
 
     @property
     def relative_degree(self) -> int:
@@ -59,6 +58,14 @@ class RootForm:
         domain = "digital" if self.sample_period_s else "analog"
         return Controller.from_zpk(_pairs(self.zeros), _pairs(self.poles), self.gain, domain,
                                    self.sample_period_s, name)
+
+
+@lru_cache(maxsize=512)
+def _root_form_of(controller: Controller) -> RootForm:
+    # Controllers are immutable and hashable: a survey asks for the same roots many times.
+    points = (1.0, -1.0) if controller.is_digital else (0.0,)
+    return RootForm(_roots(controller.num, points), _roots(controller.den, points), float(controller.gain),
+                    controller.sample_period_s)
 
 
 def _roots(coefficients, points) -> tuple[complex, ...]:
