@@ -624,7 +624,7 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
     if src.form == "expression":
         return SourceInfo(controller=src.data["controller"])
     if src.form == "pid":
-        from convert.pid import pid_from_mapping, pid_from_controller  # noqa: F401
+        from convert.pid import pid_from_mapping
 
         settings = pid_from_mapping(src.data["settings"], where=src.where)
         return SourceInfo(controller=settings.to_controller(), pid=settings)

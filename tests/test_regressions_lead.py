@@ -64,3 +64,20 @@ def test_circuit_and_digital_add_the_same_derivative_filter():
     # tau = Td/N = 0.5/8: the filter pole of the ideal form
     assert np.any(np.isclose(filtered.poles(), -8 / 0.5, rtol=1e-9))
     assert any("Td/N" in n for n in notes)
+
+
+def test_written_files_get_ordinary_permissions_not_private_temp_ones(run_cli, tmp_path):
+    """Bug: the netlist, BOM and schematic were written through mkstemp and kept its private mode
+    0600, unreadable by colleagues. Reference: POSIX open(2) creates files with 0666 & ~umask."""
+    import os
+
+    umask = os.umask(0o022)
+    try:
+        r = run_cli("circuit", "--pid", "kc=2", "ti=3s", "--netlist", str(tmp_path / "pi.cir"),
+                    "--bom", str(tmp_path / "pi.csv"), "--schematic", str(tmp_path / "pi.svg"))
+    finally:
+        os.umask(umask)
+    assert r.code == 0, r.err
+    for name in ("pi.cir", "pi.csv", "pi.svg"):
+        assert (os.stat(tmp_path / name).st_mode & 0o777) == 0o644, name
+    assert not [p for p in os.listdir(tmp_path) if p.startswith(".loopshift-")]

@@ -146,7 +146,7 @@ def setpoint_structure(h_sp: Controller, h_pv: Controller) -> SetpointStructure:
     if weighted is not None:
         if weighted.b == 1 and weighted.c == 1:
             text = ("setpoint and measurement meet as a plain error (setpoint − measurement): "
-                    f"b = 1, c = 1")
+                    "b = 1, c = 1")
         else:
             d_on = "the measurement only" if weighted.c == 0 else f"the error weighted by c = {weighted.c:.6g}"
             text = (f"a {weighted.kind} with setpoint weight b = {weighted.b:.6g} on the proportional part"

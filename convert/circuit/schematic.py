@@ -10,7 +10,7 @@ from __future__ import annotations
 import math
 from typing import Mapping
 
-from convert.circuit.topologies import C, Parallel, R, Series, Topology
+from convert.circuit.topologies import C, R, Series, Topology
 from convert.values import format_value
 
 UNIT = 2.0   # width of one element

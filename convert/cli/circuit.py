@@ -155,7 +155,6 @@ def run(args, console) -> int:
     if args.catalog:
         return _catalog(console, args.json)
     import math
-    import os
 
     from convert.circuit.design import DesignOptions, design_circuit, error_sources
     from convert.circuit.opamp import OpAmpModel
@@ -214,16 +213,10 @@ def run(args, console) -> int:
         _write(args.bom, bom_csv(bom_rows(design, tolerances, trims)))
         written.append(args.bom)
     if args.schematic:
-        import tempfile
-
         from convert.circuit.schematic import design_schematic
+        from convert.cli.common import write_file_atomic
 
-        ext = os.path.splitext(args.schematic)[1]
-        folder = os.path.dirname(os.path.abspath(args.schematic))
-        fd, tmp = tempfile.mkstemp(dir=folder, prefix=".loopshift-", suffix=ext)
-        os.close(fd)
-        design_schematic(design, tmp)
-        os.replace(tmp, args.schematic)
+        write_file_atomic(args.schematic, lambda tmp: design_schematic(design, tmp))
         written.append(args.schematic)
 
     parts = {}

@@ -144,18 +144,36 @@ def _ext(option: str) -> str:
     return {"--netlist": ".cir", "--bom": ".csv", "--schematic": ".svg"}.get(option, "")
 
 
-def write_text_atomic(path: str, text: str) -> None:
-    """Write ``text`` to ``path`` through a temporary file in the same folder, then rename."""
+def write_file_atomic(path: str, write) -> None:
+    """Create ``path`` through a temporary file in the same folder, then rename it into place.
+
+    ``write(tmp_path)`` writes the content. The file gets the permissions a plain ``open`` would
+    give it (0666 less the umask), not the private 0600 of a temporary file, so a BOM or netlist
+    written for colleagues is readable by them. Nothing is left behind when ``write`` fails.
+    """
     import os
     import tempfile
 
     folder = os.path.dirname(os.path.abspath(path))
-    fd, tmp = tempfile.mkstemp(dir=folder, prefix=".loopshift-")
+    fd, tmp = tempfile.mkstemp(dir=folder, prefix=".loopshift-", suffix=os.path.splitext(path)[1])
+    os.close(fd)
     try:
-        with os.fdopen(fd, "w", newline="") as fh:
-            fh.write(text)
+        write(tmp)
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)
         os.replace(tmp, path)
     except BaseException:
         if os.path.exists(tmp):
             os.unlink(tmp)
         raise
+
+
+def write_text_atomic(path: str, text: str) -> None:
+    """Write ``text`` to ``path`` atomically (see :func:`write_file_atomic`)."""
+
+    def _write(tmp: str) -> None:
+        with open(tmp, "w", newline="") as fh:
+            fh.write(text)
+
+    write_file_atomic(path, _write)

@@ -1,7 +1,7 @@
 """Digital (sampled) controllers: analog -> digital methods, digital -> analog, structures,
 word formats and code emission.
 
-Exports (helper "digital"): ``METHODS``, ``discretize``, ``DigitalRealization``,
+Exports: ``METHODS``, ``discretize``, ``DigitalRealization``,
 ``difference_equation``, ``INVERSE_METHODS``, ``to_analog``, ``add_derivative_filter``,
 ``survey_methods``.
 """

@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import math
 
-from convert.compare.evaluate import CAUTIONS  # noqa: F401  (re-exported for writers)
 
 Table = tuple[str, list[str], list[list[str]]]
 
