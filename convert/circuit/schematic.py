@@ -153,5 +153,9 @@ def draw_schematic(topology: Topology, parts: Mapping[str, float], path: str, *,
 
 
 def design_schematic(design, path: str) -> str:
-    return draw_schematic(design.topology, design.rounded, path, add_inverter=design.needs_inverter,
-                          title=f"{design.topology.name}: {design.topology.description}")
+    """Draw the designed circuit (rounded parts) to ``path`` (.png or .svg)."""
+    import textwrap
+
+    # wrapped so a long description stays inside the drawing
+    title = "\n".join(textwrap.wrap(f"{design.topology.name}: {design.topology.description}", 70))
+    return draw_schematic(design.topology, design.rounded, path, add_inverter=design.needs_inverter, title=title)
