@@ -22,27 +22,25 @@ def require_ngspice() -> str:
     return path
 
 
-def ac_sweep(netlist: str, output_node: str = "out", f_start_hz: float = 0.01, f_stop_hz: float = 100.0,
-             points_per_decade: int = 20) -> tuple[np.ndarray, np.ndarray]:
-    """Simulate ``netlist`` (no analysis lines, no .end) with an AC sweep; return (f_hz, V(out)).
-
-    The netlist must contain an AC 1 source. The sweep is logarithmic (``dec``). ngspice pitfalls
-    respected: batch mode ends with ``quit 0``; values should be in exponent form.
-    """
+def _run_deck(netlist: str, analysis: str, output_node: str, options: str = "") -> np.ndarray:
+    """Run ``netlist`` (no analysis lines; a trailing .end is removed) with one ``analysis``
+    command in batch mode and return the rows ``wrdata`` wrote for ``v(output_node)``.
+    ngspice pitfalls respected: batch mode ends with ``quit 0``; values in exponent form."""
     exe = require_ngspice()
     with tempfile.TemporaryDirectory() as tmp:
-        data = os.path.join(tmp, "ac.txt")
+        data = os.path.join(tmp, "out.txt")
         body = netlist.rstrip()
         if body.lower().endswith(".end"):
             body = body[: -len(".end")].rstrip()
         deck = (
             f"{body}\n"
+            f"{options}"
             ".control\n"
             "set noaskquit\n"
             "set wr_singlescale\n"
             "set wr_vecnames\n"
             "option numdgt=15\n"
-            f"ac dec {points_per_decade} {f_start_hz:.9e} {f_stop_hz:.9e}\n"
+            f"{analysis}\n"
             f"wrdata {data} v({output_node})\n"
             "quit 0\n"
             ".endc\n"
@@ -54,10 +52,17 @@ def ac_sweep(netlist: str, output_node: str = "out", f_start_hz: float = 0.01, f
         proc = subprocess.run([exe, "-b", cir], capture_output=True, text=True, timeout=120, cwd=tmp)
         if not os.path.exists(data):
             raise AssertionError(f"ngspice produced no data (exit {proc.returncode}):\n{proc.stdout[-2000:]}\n{proc.stderr[-2000:]}")
-        rows = np.loadtxt(data, skiprows=1, ndmin=2)
-    f = rows[:, 0]
-    v = rows[:, 1] + 1j * rows[:, 2]
-    return f, v
+        return np.loadtxt(data, skiprows=1, ndmin=2)
+
+
+def ac_sweep(netlist: str, output_node: str = "out", f_start_hz: float = 0.01, f_stop_hz: float = 100.0,
+             points_per_decade: int = 20) -> tuple[np.ndarray, np.ndarray]:
+    """Simulate ``netlist`` (no analysis lines, no .end) with an AC sweep; return (f_hz, V(out)).
+
+    The netlist must contain an AC 1 source. The sweep is logarithmic (``dec``).
+    """
+    rows = _run_deck(netlist, f"ac dec {points_per_decade} {f_start_hz:.9e} {f_stop_hz:.9e}", output_node)
+    return rows[:, 0], rows[:, 1] + 1j * rows[:, 2]
 
 
 def pwl_source(name: str, node: str, times_s, values_v) -> str:
@@ -81,31 +86,6 @@ def transient(netlist: str, t_stop_s: float, max_step_s: float, output_node: str
     than the tolerances it checks. The simulation starts from zero (``uic``: capacitors
     uncharged, as a card switched on with its integrator reset).
     """
-    exe = require_ngspice()
-    with tempfile.TemporaryDirectory() as tmp:
-        data = os.path.join(tmp, "tran.txt")
-        body = netlist.rstrip()
-        if body.lower().endswith(".end"):
-            body = body[: -len(".end")].rstrip()
-        deck = (
-            f"{body}\n"
-            f".options reltol={reltol:g} abstol=1e-15 vntol=1e-12\n"
-            ".control\n"
-            "set noaskquit\n"
-            "set wr_singlescale\n"
-            "set wr_vecnames\n"
-            "option numdgt=15\n"
-            f"tran {max_step_s:.9e} {t_stop_s:.9e} 0 {max_step_s:.9e} uic\n"
-            f"wrdata {data} v({output_node})\n"
-            "quit 0\n"
-            ".endc\n"
-            ".end\n"
-        )
-        cir = os.path.join(tmp, "deck.cir")
-        with open(cir, "w") as fh:
-            fh.write(deck)
-        proc = subprocess.run([exe, "-b", cir], capture_output=True, text=True, timeout=120, cwd=tmp)
-        if not os.path.exists(data):
-            raise AssertionError(f"ngspice produced no data (exit {proc.returncode}):\n{proc.stdout[-2000:]}\n{proc.stderr[-2000:]}")
-        rows = np.loadtxt(data, skiprows=1, ndmin=2)
+    rows = _run_deck(netlist, f"tran {max_step_s:.9e} {t_stop_s:.9e} 0 {max_step_s:.9e} uic", output_node,
+                     options=f".options reltol={reltol:g} abstol=1e-15 vntol=1e-12\n")
     return rows[:, 0], rows[:, 1]

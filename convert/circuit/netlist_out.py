@@ -22,20 +22,10 @@ import math
 from typing import Mapping
 
 from convert.circuit.opamp import HIGH_GAIN, OpAmpModel
-from convert.circuit.topologies import C, Parallel, R, Series, Topology
+from convert.circuit.topologies import C, Parallel, R, Series, Topology, is_open
 from convert.values import format_spice_number
 
 INVERTER_PARTS = {"RINV1": 10e3, "RINV2": 10e3}
-
-
-def _open(net, parts: Mapping[str, float]) -> bool:
-    if isinstance(net, R):
-        return math.isinf(parts[net.name])
-    if isinstance(net, C):
-        return parts[net.name] == 0
-    if isinstance(net, Series):
-        return any(_open(i, parts) for i in net.items)
-    return all(_open(i, parts) for i in net.items)
 
 
 class _Writer:
@@ -49,7 +39,7 @@ class _Writer:
         return f"{hint}_{self.counter}"
 
     def emit(self, net, a: str, b: str, hint: str) -> None:
-        if _open(net, self.parts):
+        if is_open(net, self.parts):
             return
         if isinstance(net, (R, C)):
             self.lines.append(f"{net.name} {a} {b} {format_spice_number(self.parts[net.name])}")

@@ -7,10 +7,9 @@ here only, lazily, with matplotlib's Agg backend (no display needed).
 
 from __future__ import annotations
 
-import math
 from typing import Mapping
 
-from convert.circuit.topologies import C, R, Series, Topology
+from convert.circuit.topologies import C, R, Series, Topology, is_open
 from convert.values import format_value
 
 UNIT = 2.0   # width of one element
@@ -33,16 +32,6 @@ def _height(net) -> float:
     return sum(_height(i) for i in net.items)
 
 
-def _is_open(net, parts) -> bool:
-    if isinstance(net, R):
-        return math.isinf(parts[net.name])
-    if isinstance(net, C):
-        return parts[net.name] == 0
-    if isinstance(net, Series):
-        return any(_is_open(i, parts) for i in net.items)
-    return all(_is_open(i, parts) for i in net.items)
-
-
 def _draw_net(d, elm, net, start, parts, width=None):
     """Draw ``net`` rightwards from ``start``; return the end point (same y)."""
     x, y = start
@@ -63,7 +52,7 @@ def _draw_net(d, elm, net, start, parts, width=None):
         if total > used:
             d.add(elm.Line().at(pos).to((x + total, y)))
         return (x + total, y)
-    branches = [i for i in net.items if not _is_open(i, parts)]
+    branches = [i for i in net.items if not is_open(i, parts)]
     offset = 0.0
     for i, item in enumerate(branches):
         yy = y - offset
@@ -98,7 +87,7 @@ def draw_schematic(topology: Topology, parts: Mapping[str, float], path: str, *,
         if title:
             d.add(elm.Label().at((0, 3.5)).label(title, loc="right", fontsize=10))
         for st in stages:
-            inputs = [(src, net) for src, net in st.inputs if not _is_open(net, checked)]
+            inputs = [(src, net) for src, net in st.inputs if not is_open(net, checked)]
             in_w = max([_width(net) for _, net in inputs] + [UNIT]) + 1.5
             x_in = 1.5 + in_w
             op = d.add(elm.Opamp(leads=True).anchor("in1").at((x_in + 1.0, y0)).label(st.amp, loc="center", fontsize=8))

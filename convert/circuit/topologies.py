@@ -83,6 +83,18 @@ def network_parts(net) -> list[str]:
     return out
 
 
+def is_open(net, parts: Mapping[str, float]) -> bool:
+    """True when ``net`` conducts nothing with these part values: a resistor of ``inf`` ohms or a
+    capacitor of 0 F (a part left off the board), through series and parallel combinations."""
+    if isinstance(net, R):
+        return math.isinf(parts[net.name])
+    if isinstance(net, C):
+        return parts[net.name] == 0
+    if isinstance(net, Series):
+        return any(is_open(i, parts) for i in net.items)
+    return all(is_open(i, parts) for i in net.items)
+
+
 def impedance(net, parts: Mapping[str, np.ndarray], s: np.ndarray) -> np.ndarray:
     """Impedance of ``net`` at complex frequencies ``s`` (rad/s); parts broadcast against s.
 
