@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -36,7 +37,8 @@ def test_report_out_naming_an_existing_file_says_it_is_not_a_folder(run_cli, tmp
     """Bug: `report CASE --out existing_file` said "the report folder already exists"."""
     target = tmp_path / "a_file"
     target.write_text("keep me")
-    r = run_cli("report", "cases/pi_card_to_firmware.toml", "--out", str(target))
+    case = Path(__file__).resolve().parent.parent / "cases" / "pi_card_to_firmware.toml"
+    r = run_cli("report", str(case), "--out", str(target))
     assert r.code == 2 and "is not a folder" in r.err
     assert target.read_text() == "keep me"
 

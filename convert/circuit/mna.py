@@ -142,13 +142,50 @@ def _check_structure(netlist: Netlist, elements: Sequence[Element], inputs: Sequ
 
 
 # ----------------------------------------------------------------------------- assembly
-def build_system(netlist: Netlist, inputs: Sequence[str] = ("VIN",), output: str = "out") -> MnaSystem:
-    """Check the circuit and assemble its MNA matrices (diodes left out; other sources zeroed)."""
-    elements = netlist.linear_elements
-    _check_structure(netlist, elements, inputs, output)
-    input_names = [netlist.element(n).name for n in inputs]
-    if len(set(input_names)) != len(input_names):
-        raise InputError("the same source is named twice as an input", where=netlist.source, key="input")
+def _stamps(e: Element, index: dict[str, int], branch: dict[str, int]) -> list[tuple[int, int, int, float]]:
+    """The entries element ``e`` adds to the equations: ``(matrix, row, column, value)`` with
+    matrix 0 = G, 1 = C (ground rows and columns left out). Entries add up (``+=``)."""
+    out: list[tuple[int, int, int, float]] = []
+
+    def add(m, r, c, v):
+        if r is not None and c is not None:
+            out.append((m, r, c, v))
+
+    def idx(node):
+        return None if node == GROUND else index[node]
+
+    if e.kind in ("R", "C"):
+        a, b = idx(e.nodes[0]), idx(e.nodes[1])
+        m = 0 if e.kind == "R" else 1
+        v = 1.0 / e.value if e.kind == "R" else e.value
+        add(m, a, a, v); add(m, b, b, v); add(m, a, b, -v); add(m, b, a, -v)
+    elif e.kind in ("V", "E", "L"):
+        k = branch[e.name]
+        a, b = idx(e.nodes[0]), idx(e.nodes[1])
+        add(0, a, k, 1.0); add(0, b, k, -1.0)
+        add(0, k, a, 1.0); add(0, k, b, -1.0)
+        if e.kind == "E":
+            add(0, k, idx(e.nodes[2]), -e.value); add(0, k, idx(e.nodes[3]), e.value)
+        elif e.kind == "L":
+            add(1, k, k, -e.value)
+    elif e.kind == "G":
+        a, b, cp, cm = (idx(n) for n in e.nodes)
+        add(0, a, cp, e.value); add(0, a, cm, -e.value); add(0, b, cp, -e.value); add(0, b, cm, e.value)
+    elif e.kind == "OPAMP":
+        k = branch[e.name]
+        p, n, o = (idx(x) for x in e.nodes)
+        add(0, o, k, 1.0)
+        add(0, k, p, 1.0); add(0, k, n, -1.0)
+        gbw = e.param("gbw")
+        if gbw is not None:
+            add(1, k, o, -1.0 / (2 * np.pi * gbw)); add(0, k, o, -1.0 / e.param("a0"))
+    else:  # pragma: no cover - the reader admits no other kind
+        raise InputError(f"element kind {e.kind} is not supported in the analysis", where=e.where, key=e.name)
+    return out
+
+
+def _numbering(elements: Sequence[Element]) -> tuple[dict[str, int], dict[str, int], list[str]]:
+    """(node -> unknown index, element -> branch-current index, unknown names)."""
     nodes = [n for n in dict.fromkeys(n for e in elements for n in e.nodes) if n != GROUND]
     index = {n: i for i, n in enumerate(nodes)}
     unknowns = [f"V({n})" for n in nodes]
@@ -157,54 +194,36 @@ def build_system(netlist: Netlist, inputs: Sequence[str] = ("VIN",), output: str
         if e.kind in ("V", "E", "L", "OPAMP"):
             branch[e.name] = len(unknowns)
             unknowns.append(f"I({e.name})")
+    return index, branch, unknowns
+
+
+def build_system(netlist: Netlist, inputs: Sequence[str] = ("VIN",), output: str = "out") -> MnaSystem:
+    """Check the circuit and assemble its MNA matrices (diodes left out; other sources zeroed)."""
+    elements = netlist.linear_elements
+    _check_structure(netlist, elements, inputs, output)
+    input_names = [netlist.element(n).name for n in inputs]
+    if len(set(input_names)) != len(input_names):
+        raise InputError("the same source is named twice as an input", where=netlist.source, key="input")
+    index, branch, unknowns = _numbering(elements)
     size = len(unknowns)
     G = np.zeros((size, size))
     C = np.zeros((size, size))
-
-    def add(mat, r, c, v):
-        if r is not None and c is not None:
-            mat[r, c] += v
-
-    def idx(node):
-        return None if node == GROUND else index[node]
-
+    mats = (G, C)
     reactive = 0
     r_values, c_values, l_values, op_rates = [], [], [], []
     for e in elements:
+        for m, r, c, v in _stamps(e, index, branch):
+            mats[m][r, c] += v
         if e.kind in ("R", "C"):
-            a, b = idx(e.nodes[0]), idx(e.nodes[1])
-            mat = G if e.kind == "R" else C
-            v = 1.0 / e.value if e.kind == "R" else e.value
-            add(mat, a, a, v); add(mat, b, b, v); add(mat, a, b, -v); add(mat, b, a, -v)
             (r_values if e.kind == "R" else c_values).append(e.value)
             reactive += e.kind == "C"
-        elif e.kind in ("V", "E", "L"):
-            k = branch[e.name]
-            a, b = idx(e.nodes[0]), idx(e.nodes[1])
-            add(G, a, k, 1.0); add(G, b, k, -1.0)
-            add(G, k, a, 1.0); add(G, k, b, -1.0)
-            if e.kind == "E":
-                add(G, k, idx(e.nodes[2]), -e.value); add(G, k, idx(e.nodes[3]), e.value)
-            elif e.kind == "L":
-                C[k, k] -= e.value
-                l_values.append(e.value)
-                reactive += 1
-        elif e.kind == "G":
-            a, b, cp, cm = (idx(n) for n in e.nodes)
-            add(G, a, cp, e.value); add(G, a, cm, -e.value); add(G, b, cp, -e.value); add(G, b, cm, e.value)
-        elif e.kind == "OPAMP":
-            k = branch[e.name]
-            p, n, o = (idx(x) for x in e.nodes)
-            add(G, o, k, 1.0)
-            add(G, k, p, 1.0); add(G, k, n, -1.0)
+        elif e.kind == "L":
+            l_values.append(e.value)
+            reactive += 1
+        elif e.kind == "OPAMP" and e.param("gbw") is not None:
             gbw = e.param("gbw")
-            if gbw is not None:
-                a0 = e.param("a0")
-                add(C, k, o, -1.0 / (2 * np.pi * gbw)); add(G, k, o, -1.0 / a0)
-                op_rates += [2 * np.pi * gbw, 2 * np.pi * gbw / a0]
-                reactive += 1
-        else:  # pragma: no cover - the reader admits no other kind
-            raise InputError(f"element kind {e.kind} is not supported in the analysis", where=e.where, key=e.name)
+            op_rates += [2 * np.pi * gbw, 2 * np.pi * gbw / e.param("a0")]
+            reactive += 1
     rhs = {}
     for name in input_names:
         b = np.zeros(size)
@@ -280,6 +299,15 @@ def transfer_functions(netlist: Netlist, inputs: Sequence[str] = ("VIN",), outpu
 
     Returns ``{source name: RationalResult}`` (names upper-case as in the netlist).
     """
+    reuse = _REUSE.get() if system is None else None
+    key = None
+    if reuse is not None:
+        key = (tuple(e.name for e in (netlist.element(n) for n in inputs) if e is not None), output.lower())
+        base = reuse.bases.get(key)
+        if base is not None and netlist is not reuse.netlist:
+            fast = _perturbed(base, netlist)
+            if fast is not None:
+                return fast
     if system is None:
         system = build_system(netlist, inputs, output)
     G, C, rhs = _equilibrate(system)
@@ -292,20 +320,18 @@ def transfer_functions(netlist: Netlist, inputs: Sequence[str] = ("VIN",), outpu
     last: UnrealizableError | None = None
     for per_decade, extra in _ATTEMPTS:
         try:
-            return _fit_all(netlist, system, G, C, B, names, per_decade, extra)
+            results = _fit_all(netlist, system, G, C, B, names, per_decade, extra)
         except UnrealizableError as exc:
             last = exc
+            continue
+        if reuse is not None and netlist is reuse.netlist and key not in reuse.bases:
+            reuse.bases[key] = _prepare(netlist, system, G, C, B, names, per_decade, extra)
+        return results
     raise last
 
 
 def _fit_all(netlist, system, G, C, B, names, per_decade: float, extra: int) -> dict[str, RationalResult]:
-    n = system.reactive_count
-    m = n + extra
-    lo, hi = system.rates
-    radii = np.logspace(np.log10(lo) - 1.0, np.log10(hi) + 1.0,
-                        max(2, int(np.ceil(per_decade * (np.log10(hi / lo) + 2.0))) + 1))
-    angles = np.exp(2j * np.pi * (np.arange(m) + 0.5) / m)
-    s_all = (radii[:, None] * angles[None, :]).ravel()
+    radii, m, s_all = _sample_points(system, per_decade, extra)
     sign, logdet, X = _solve_many(G, C, B, s_all)
     if X is None or not np.all(np.isfinite(X)):
         raise _singular_error(netlist, system, G, C)
@@ -315,13 +341,23 @@ def _fit_all(netlist, system, G, C, B, names, per_decade: float, extra: int) -> 
     # Common scale per radius (in logs) so nothing overflows; the same for D and every N.
     offset = logdet.max(axis=1)
     dvals = sign * np.exp(logdet - offset[:, None])
-    den = _coefficients(dvals, radii, offset, n)
+    den = _coefficients(dvals, radii, offset, system.reactive_count)
     results: dict[str, RationalResult] = {}
     for j, name in enumerate(names):
         nvals = dvals * H[:, :, j]
-        num = _coefficients(nvals, radii, offset, n)
+        num = _coefficients(nvals, radii, offset, system.reactive_count)
         results[name] = _finish(netlist, system, G, C, B[:, j], num, den, name, radii)
     return results
+
+
+def _sample_points(system: MnaSystem, per_decade: float, extra: int) -> tuple[np.ndarray, int, np.ndarray]:
+    """(circle radii in rad/s, points per circle M, every sample point s, radius-major)."""
+    m = system.reactive_count + extra
+    lo, hi = system.rates
+    radii = np.logspace(np.log10(lo) - 1.0, np.log10(hi) + 1.0,
+                        max(2, int(np.ceil(per_decade * (np.log10(hi / lo) + 2.0))) + 1))
+    angles = np.exp(2j * np.pi * (np.arange(m) + 0.5) / m)
+    return radii, m, (radii[:, None] * angles[None, :]).ravel()
 
 
 def _conditioning_check(G, C, rates) -> bool:
@@ -402,7 +438,9 @@ def _poly_from_roots(roots: np.ndarray, lead: float) -> np.ndarray:
     return lead * np.real(np.atleast_1d(p))
 
 
-def _finish(netlist, system, G, C, b, num_asc, den_asc, name, radii) -> RationalResult:
+def _finish(netlist, system, G, C, b, num_asc, den_asc, name, radii, check=None) -> RationalResult:
+    """The RationalResult from fitted coefficients: cancellation, then the check against the circuit
+    (``check(controller) -> relative error``; default: a direct solve at the verification points)."""
     if not np.any(num_asc):
         raise InputError(f"the output node does not depend on {name} (the transfer function is zero)",
                          where=netlist.source, key="output")
@@ -423,7 +461,7 @@ def _finish(netlist, system, G, C, b, num_asc, den_asc, name, radii) -> Rational
         controller = Controller.analog(num_desc, den_desc, name=label)
     except InputError as exc:  # pragma: no cover - coefficients are finite by construction
         raise UnrealizableError(f"could not form the transfer function: {exc.message}", where=netlist.source) from None
-    err = _verify(controller, G, C, b, system.output, radii)
+    err = check(controller) if check is not None else _verify(controller, G, C, b, system.output, radii)
     if not err <= _FIT_RTOL:
         raise UnrealizableError(
             f"the rational transfer function from {name} disagrees with a direct solve by {err:.2g} (relative); the "
@@ -441,19 +479,35 @@ def _fmt_root(r: complex) -> str:
     return f"{r.real:.6g}{r.imag:+.6g}j"
 
 
-def _verify(controller: Controller, G, C, b, out: int, radii: np.ndarray) -> float:
-    w = np.geomspace(radii[0], radii[-1], 4 * len(radii) + 3) * 1.0137
+def _verify_points(radii: np.ndarray) -> np.ndarray:
+    """Test frequencies (rad/s) on the imaginary axis, off the sample circles."""
+    return np.geomspace(radii[0], radii[-1], 4 * len(radii) + 3) * 1.0137
+
+
+def _direct_output(G, C, b, out: int, w: np.ndarray) -> np.ndarray | None:
+    """V(out) from a direct complex solve of (G + jωC) x = b at each ω (None if singular)."""
     s = 1j * w
     Y = G[None, :, :] + s[:, None, None] * C[None, :, :]
     try:
         with np.errstate(all="ignore"):
-            x = np.linalg.solve(Y, np.broadcast_to(b[:, None], (len(s), len(b), 1)))[:, out, 0]
+            return np.linalg.solve(Y, np.broadcast_to(b[:, None], (len(s), len(b), 1)))[:, out, 0]
     except np.linalg.LinAlgError:
-        return float("inf")
+        return None
+
+
+def _fit_error(controller: Controller, w: np.ndarray, x: np.ndarray, peak: float | None = None) -> float:
+    """Largest relative disagreement of the controller with solved values ``x`` at ω = ``w`` (values
+    below 1e-9 of ``peak``, default max |x|, are compared against that floor)."""
     fit = controller.frequency_response(w / (2 * np.pi), via="zpk")
-    peak = np.max(np.abs(x))
+    peak = np.max(np.abs(x)) if peak is None else peak
     err = np.abs(fit - x) / (np.abs(x) + 1e-9 * peak)
     return float(np.max(err)) if np.all(np.isfinite(err)) else float("inf")
+
+
+def _verify(controller: Controller, G, C, b, out: int, radii: np.ndarray) -> float:
+    w = _verify_points(radii)
+    x = _direct_output(G, C, b, out, w)
+    return float("inf") if x is None else _fit_error(controller, w, x)
 
 
 # ----------------------------------------------------------------------------- public API
