@@ -21,6 +21,11 @@ How the polynomials are found (numerically sound, no symbolic algebra):
    the sample circles; a disagreement raises :class:`~convert.errors.UnrealizableError`.
 5. Common pole/zero pairs are cancelled and reported.
 
+Part changes (sensitivity tables): inside :func:`reusing_nominal`, a copy of the circuit with
+changed values is not factored afresh; the nominal inverses at the sample points are updated
+(matrix determinant lemma, Woodbury identity) and the samples go through steps 2–5 as above, the
+check including a direct solve of the changed circuit at a few frequencies.
+
 Ideal op-amps are nullors: the output current is a free unknown and the inputs are forced to
 the same voltage (no gain limit, no approximation). A single-pole op-amp adds the row
 ``(s/(2π·gbw) + 1/a0)·v_out − (v_+ − v_−) = 0``.
@@ -28,6 +33,8 @@ the same voltage (no gain limit, no approximation). A single-pole op-amp adds th
 
 from __future__ import annotations
 
+from contextlib import contextmanager
+from contextvars import ContextVar
 from dataclasses import dataclass, field
 from typing import Sequence
 
@@ -244,11 +251,16 @@ def build_system(netlist: Netlist, inputs: Sequence[str] = ("VIN",), output: str
 
 
 # ----------------------------------------------------------------------------- numerics
-def _equilibrate(system: MnaSystem) -> tuple[np.ndarray, np.ndarray, dict[str, np.ndarray]]:
+def _row_factors(system: MnaSystem) -> np.ndarray:
+    """The factor each equation (row) is multiplied by in equilibration."""
     rho = np.sqrt(system.rates[0] * system.rates[1])
     scale = np.abs(system.G).max(axis=1) + rho * np.abs(system.C).max(axis=1)
     scale[scale == 0] = 1.0
-    inv = 1.0 / scale
+    return 1.0 / scale
+
+
+def _equilibrate(system: MnaSystem) -> tuple[np.ndarray, np.ndarray, dict[str, np.ndarray]]:
+    inv = _row_factors(system)
     return system.G * inv[:, None], system.C * inv[:, None], {k: v * inv for k, v in system.rhs.items()}
 
 
@@ -508,6 +520,181 @@ def _verify(controller: Controller, G, C, b, out: int, radii: np.ndarray) -> flo
     w = _verify_points(radii)
     x = _direct_output(G, C, b, out, w)
     return float("inf") if x is None else _fit_error(controller, w, x)
+
+
+# ----------------------------------------------------------------------------- part changes
+# A part's value change alters only the few matrix entries its stamp touches: ΔY(s) = P_R M(s) P_Kᵀ
+# with M(s) = ΔG + s·ΔC restricted to the touched rows R and columns K (2×2 for a resistor or a
+# capacitor, 4×4 for a pot's two halves). With the nominal inverse Y⁻¹ at every sample point the
+# changed determinant and solution follow exactly (matrix determinant lemma and Woodbury identity):
+#   det(Y + ΔY) = det(Y)·det(I + Y⁻¹[K, R] M),
+#   x' = x − Y⁻¹[:, R] M (I + Y⁻¹[K, R] M)⁻¹ x[K],
+# a few small solves per sample point instead of a fresh factorization. The samples then go
+# through the same circle fit, cancellation and check as a fresh solve.
+_MAX_INVERSE_BYTES = 256e6  # beyond this the nominal inverses are not kept (plain re-solves instead)
+_UPDATE_RATIO_FLOOR = 1e-6  # |det ratio| below this: the change nearly singularizes Y; solve afresh
+_DIRECT_CHECKS = 3  # verification frequencies per changed circuit solved directly as well
+
+
+@dataclass
+class _Reuse:
+    netlist: Netlist
+    bases: dict = field(default_factory=dict)  # (input names, output) -> _Nominal | None
+
+
+_REUSE: ContextVar[_Reuse | None] = ContextVar("loopshift_mna_reuse", default=None)
+
+
+@contextmanager
+def reusing_nominal(netlist: Netlist):
+    """Within this block, :func:`transfer_functions` on ``netlist`` keeps its factorization at every
+    sample point, and on a copy of it with changed part values (``netlist.with_values(...)``: same
+    elements and nodes) updates that factorization instead of solving afresh.
+
+    Each updated result is checked as a fresh one is: its fit against the (updated) solution at every
+    verification frequency, and against a direct solve of the changed circuit at a few of them; a
+    result that fails, or a change that nearly singularizes the equations, is solved afresh.
+    """
+    token = _REUSE.set(_Reuse(netlist))
+    try:
+        yield
+    finally:
+        _REUSE.reset(token)
+
+
+@dataclass(frozen=True)
+class _Nominal:
+    """The nominal circuit's equations and their inverses at the sample and verification points."""
+
+    netlist: Netlist
+    system: MnaSystem
+    elements: tuple[Element, ...]
+    index: dict
+    branch: dict
+    row_scale: np.ndarray  # equilibration factor of each row (G, C and b are already scaled)
+    G: np.ndarray
+    C: np.ndarray
+    B: np.ndarray
+    names: tuple[str, ...]
+    radii: np.ndarray
+    m: int
+    s: np.ndarray  # sample points (radius-major)
+    sign: np.ndarray
+    logdet: np.ndarray
+    inv: np.ndarray  # (points, n, n)
+    X: np.ndarray  # (points, n, inputs)
+    w_check: np.ndarray  # verification frequencies (rad/s)
+    inv_check: np.ndarray
+    X_check: np.ndarray
+
+
+def _prepare(netlist, system, G, C, B, names, per_decade, extra) -> _Nominal | None:
+    radii, m, s_all = _sample_points(system, per_decade, extra)
+    w = _verify_points(radii)
+    n = G.shape[0]
+    if (len(s_all) + len(w)) * n * n * 16 > _MAX_INVERSE_BYTES:
+        return None
+    Y = G[None, :, :] + s_all[:, None, None] * C[None, :, :]
+    Yc = G[None, :, :] + 1j * w[:, None, None] * C[None, :, :]
+    try:
+        with np.errstate(all="ignore"):
+            sign, logdet = np.linalg.slogdet(Y)
+            inv = np.linalg.inv(Y)
+            inv_check = np.linalg.inv(Yc)
+    except np.linalg.LinAlgError:
+        return None
+    if not (np.all(np.isfinite(inv)) and np.all(np.isfinite(inv_check)) and np.all(sign != 0)):
+        return None
+    elements = netlist.linear_elements
+    index, branch, _ = _numbering(elements)
+    return _Nominal(netlist, system, elements, index, branch, _row_factors(system), G, C, B, tuple(names), radii, m,
+                    s_all, sign, logdet, inv, inv @ B, w, inv_check, inv_check @ B)
+
+
+def _changed_stamps(base: _Nominal, netlist: Netlist) -> dict | None:
+    """{(matrix, row, column): Δvalue} (rows equilibrated) from ``base`` to ``netlist``; None when the
+    two differ in anything but values (elements, kinds, nodes)."""
+    new = netlist.linear_elements
+    if len(new) != len(base.elements):
+        return None
+    delta: dict[tuple[int, int, int], float] = {}
+    for old, e in zip(base.elements, new):
+        if old is e:
+            continue
+        if old.name != e.name or old.kind != e.kind or old.nodes != e.nodes:
+            return None
+        if old == e:
+            continue
+        for sign, el in ((1.0, e), (-1.0, old)):
+            for m, r, c, v in _stamps(el, base.index, base.branch):
+                delta[(m, r, c)] = delta.get((m, r, c), 0.0) + sign * v
+    return {k: v * base.row_scale[k[1]] for k, v in delta.items() if v != 0.0}
+
+
+def _updated(inv, X, s, rows, cols, MG, MC, out):
+    """(det ratio, V(out) per input) at each point s after the change P_R (MG + s·MC) P_Kᵀ."""
+    M = MG[None, :, :] + s[:, None, None] * MC[None, :, :]  # (points, |R|, |K|)
+    A = inv[:, cols][:, :, rows]  # Y⁻¹[K, R]
+    W = np.eye(len(cols))[None, :, :] + A @ M
+    with np.errstate(all="ignore"):
+        ratio = np.linalg.det(W)
+        Z = np.linalg.solve(W, X[:, cols, :])
+    x_out = X[:, out, :] - (inv[:, out, :][:, None, rows] @ M @ Z)[:, 0, :]
+    return ratio, x_out
+
+
+def _perturbed(base: _Nominal, netlist: Netlist) -> dict[str, RationalResult] | None:
+    """Transfer functions of ``netlist`` (``base`` with changed values) by updating the nominal
+    factorization; None when the update does not apply or its result does not check."""
+    delta = _changed_stamps(base, netlist)
+    if not delta:
+        return None
+    rows = sorted({r for _, r, _ in delta})
+    cols = sorted({c for _, _, c in delta})
+    MG = np.zeros((len(rows), len(cols)))
+    MC = np.zeros((len(rows), len(cols)))
+    ri = {r: i for i, r in enumerate(rows)}
+    ci = {c: i for i, c in enumerate(cols)}
+    for (m, r, c), v in delta.items():
+        (MG if m == 0 else MC)[ri[r], ci[c]] += v
+    out = base.system.output
+    try:
+        ratio, H = _updated(base.inv, base.X, base.s, rows, cols, MG, MC, out)
+        _, H_check = _updated(base.inv_check, base.X_check, 1j * base.w_check, rows, cols, MG, MC, out)
+    except np.linalg.LinAlgError:
+        return None
+    if not (np.all(np.isfinite(ratio)) and np.all(np.isfinite(H)) and np.all(np.isfinite(H_check))
+            and np.min(np.abs(ratio)) > _UPDATE_RATIO_FLOOR):
+        return None
+    G, C = base.G.copy(), base.C.copy()
+    for (m, r, c), v in delta.items():
+        (G if m == 0 else C)[r, c] += v
+    # The changed circuit's determinant is the nominal one times the ratio: same scale per radius.
+    nr, m_ = len(base.radii), base.m
+    logdet = base.logdet.reshape(nr, m_)
+    offset = logdet.max(axis=1)
+    dvals = base.sign.reshape(nr, m_) * np.exp(logdet - offset[:, None]) * ratio.reshape(nr, m_)
+    n = base.system.reactive_count
+    den = _coefficients(dvals, base.radii, offset, n)
+    pick = np.unique(np.linspace(0, len(base.w_check) - 1, _DIRECT_CHECKS).round().astype(int))
+    results: dict[str, RationalResult] = {}
+    for j, name in enumerate(base.names):
+        num = _coefficients(dvals * H[:, j].reshape(nr, m_), base.radii, offset, n)
+        x_all = H_check[:, j]
+        peak = float(np.max(np.abs(x_all)))
+
+        def check(controller, j=j, x_all=x_all, peak=peak):
+            x_direct = _direct_output(G, C, base.B[:, j], out, base.w_check[pick])
+            if x_direct is None:
+                return float("inf")
+            return max(_fit_error(controller, base.w_check, x_all, peak),
+                       _fit_error(controller, base.w_check[pick], x_direct, peak))
+
+        try:
+            results[name] = _finish(netlist, base.system, G, C, base.B[:, j], num, den, name, base.radii, check)
+        except (InputError, UnrealizableError):
+            return None
+    return results
 
 
 # ----------------------------------------------------------------------------- public API

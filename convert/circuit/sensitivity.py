@@ -4,6 +4,7 @@ For each part value p and each controller quantity q (the low-frequency gain, th
 gain, every corner frequency, and the PID parameters where the controller is a PID) the table
 gives the elasticity ``d ln q / d ln p``: the percent change of q for a +1 % change of p
 (central finite differences in log space, step ±0.1 %; the truncation error is about 1e-6).
+The changed circuits are not factored afresh: see :func:`sensitivities` (``method``).
 
 A pot is recognised from two resistors named ``<base>A`` and ``<base>B`` (e.g. ``RP1A``,
 ``RP1B``) that share one node (the wiper); its row moves the wiper by +1 % of the travel
@@ -90,12 +91,32 @@ def _pots(netlist: Netlist) -> list[tuple[str, str, str]]:
     return pots
 
 
-def sensitivities(netlist: Netlist, evaluate: Callable[[Netlist], dict[str, float]]) -> list[PartSensitivity]:
+METHODS = ("update", "resolve")
+
+
+def sensitivities(netlist: Netlist, evaluate: Callable[[Netlist], dict[str, float]], *,
+                  method: str = "update") -> list[PartSensitivity]:
     """Elasticities of the quantities ``evaluate(netlist)`` returns, to each part and pot.
 
     ``evaluate`` maps a netlist to named positive quantities (see :func:`controller_quantities`);
     quantities that vanish or change their count under a perturbation are left out of that row.
+
+    ``method``: "update" (default) runs the loop inside :func:`convert.circuit.mna.reusing_nominal`,
+    so transfer functions of the changed netlists are low-rank updates of the nominal factorization
+    (each still checked against a direct solve); "resolve" solves every changed netlist afresh
+    (the reference). Both give the same finite differences.
     """
+    if method not in METHODS:
+        raise ValueError(f"method must be one of {METHODS}, not {method!r}")
+    if method == "update":
+        from convert.circuit.mna import reusing_nominal
+
+        with reusing_nominal(netlist):
+            return _sensitivities(netlist, evaluate)
+    return _sensitivities(netlist, evaluate)
+
+
+def _sensitivities(netlist: Netlist, evaluate: Callable[[Netlist], dict[str, float]]) -> list[PartSensitivity]:
     nominal = evaluate(netlist)
     rows: list[PartSensitivity] = []
     pot_members = set()
