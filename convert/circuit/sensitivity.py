@@ -157,8 +157,10 @@ def _sensitivities(netlist: Netlist, evaluate: Callable[[Netlist], dict[str, flo
 
 
 def ranked_parts(rows: list[PartSensitivity]) -> list[PartSensitivity]:
-    """Rows sorted by their largest effect, biggest first."""
-    return sorted(rows, key=lambda r: -max((abs(v) for v in r.effects.values()), default=0.0))
+    """Rows sorted by their largest effect, biggest first. Effects are compared to 1e-6 (the finite
+    differences' accuracy), so equal effects (symmetric stages) keep the netlist order instead of
+    an order set by rounding noise."""
+    return sorted(rows, key=lambda r: -round(max((abs(v) for v in r.effects.values()), default=0.0), 6))
 
 
 def value_sensitivities(values: dict[str, float], evaluate: Callable[[dict[str, float]], dict[str, float]],
