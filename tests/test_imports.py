@@ -79,3 +79,16 @@ def test_show_loads_no_scipy_or_control():
         """
     )
     assert not loaded & {"matplotlib", "control", "scipy"}, loaded & {"matplotlib", "control", "scipy"}
+
+
+def test_computation_packages_load_no_plotting_terminal_or_control_library():
+    """The computation (digital/, circuit/, compare/, case files) loads neither matplotlib nor rich
+    nor python-control nor schemdraw at import (DESIGN: compute here, render in report/ and cli/)."""
+    loaded = _loaded_after(
+        """
+        import convert.digital, convert.circuit.design, convert.circuit.tolerance, convert.circuit.netlist
+        import convert.circuit.mna, convert.circuit.card, convert.circuit.netlist_out, convert.circuit.bom
+        import convert.compare.evaluate, convert.compare.loop, convert.compare.budget, convert.case
+        """
+    )
+    assert not loaded & {"matplotlib", "rich", "control", "schemdraw", "sympy", "lcapy"}
