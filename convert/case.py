@@ -273,6 +273,18 @@ class _Ctx:
             raise self.error(dotted, f"expected a {need} value, found {raw!r}")
         return value
 
+    def delay(self, table: dict, key: str, dotted: str) -> tuple[float, float | None]:
+        """(delay_s, delay_samples) from a time ("20 ms") or a count of samples ("1 sample")."""
+        from convert.values import parse_delay
+
+        if key not in table:
+            return 0.0, None
+        try:
+            delay_s, delay_samples = parse_delay(table[key], field=dotted)
+        except InputError as exc:
+            raise InputError(exc.message, where=self.where(dotted), key=dotted) from None
+        return (0.0 if delay_s is None else delay_s), delay_samples
+
     def pair(self, table: dict, key: str, dotted: str, kind: str, default=None, *, ordered=True, positive=False):
         if key not in table:
             return default
@@ -499,8 +511,9 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
         methods = tuple(ctx.text({"v": m}, "v", f"{key}.methods", choices=known) for m in raw_methods)
         if "delay" in dig and "delay_samples" in dig:
             raise ctx.error(f"{key}.delay_samples", "give delay (seconds) or delay_samples, not both")
-        delay_s = ctx.value(dig, "delay", f"{key}.delay", "second", 0.0, positive=True)
-        delay_samples = ctx.value(dig, "delay_samples", f"{key}.delay_samples", "number", None, positive=True)
+        delay_s, delay_samples = ctx.delay(dig, "delay", f"{key}.delay")
+        if "delay_samples" in dig:
+            delay_samples = ctx.value(dig, "delay_samples", f"{key}.delay_samples", "number", None, positive=True)
         limits = ctx.pair(dig, "output_limits", f"{key}.output_limits", "number")
         n_filter = ctx.value(dig, "derivative_filter", f"{key}.derivative_filter", "number", None,
                              positive=True, allow_zero=False)

@@ -207,6 +207,31 @@ def format_value(value: float, kind: str = "number", digits: int = 4) -> str:
     return f"{text} {prefix}{unit}".rstrip()
 
 
+_SAMPLES_RE = re.compile(r"^\s*(?P<count>.*?)\s*(?:samples?|smp)\s*$")
+
+
+def parse_delay(text: str | float | int, *, field: str = "delay") -> tuple[float | None, float | None]:
+    """Read a computation delay given in seconds or in samples.
+
+    Returns ``(delay_s, None)`` for a time (``"250 us"``, ``"0.5 ms"``, a plain number is
+    seconds) and ``(None, delay_samples)`` for a count of samples (``"1 sample"``,
+    ``"2 samples"``, ``"0.5sample"``). Negative delays are refused naming ``field``.
+    """
+    m = _SAMPLES_RE.match(text) if isinstance(text, str) else None
+    if m:
+        count = parse_value(m.group("count"), "number", field=field)
+        if count < 0:
+            raise InputError(f"the delay must be zero or positive, found {text.strip()!r}", key=field)
+        return None, count
+    try:
+        seconds = parse_value(text, "second", field=field)
+    except InputError as exc:
+        raise InputError(f"{exc.message} (a time such as 200 us, or samples such as 1 sample)", key=field) from None
+    if seconds < 0:
+        raise InputError(f"the delay must be zero or positive, found {str(text).strip()!r}", key=field)
+    return seconds, None
+
+
 # ---------------------------------------------------------------------------------------
 # SPICE dialect
 # ---------------------------------------------------------------------------------------

@@ -120,3 +120,20 @@ def test_report_cli_bad_case_exit_2(run_cli, tmp_path):
     assert "bad.toml:6: target.digital.metods" in res.err
     assert "Traceback" not in res.err
     assert not (tmp_path / "r").exists()
+
+
+@pytest.mark.parametrize("written, seconds_at_10_hz", [
+    ('"20 ms"', 0.02), ('"1 sample"', 0.1), ('"2 samples"', 0.2), ('"0.5sample"', 0.05), ("0.003", 0.003),
+])
+def test_delay_in_seconds_or_samples(written, seconds_at_10_hz):
+    """A computation delay reads as a time or as a count of samples (the same words as
+    `loopshift digital --delay`); samples are resolved per rate as count / fs (definition)."""
+    case = parse_case(MINIMAL.replace('methods = ["tustin"]', f'methods = ["tustin"]\ndelay = {written}'), "m.toml")
+    assert case.digital.delay_for(10.0) == pytest.approx(seconds_at_10_hz, rel=1e-12)
+
+
+def test_bad_delay_names_line_key_and_both_forms():
+    msg = _error(MINIMAL.replace('methods = ["tustin"]', 'methods = ["tustin"]\ndelay = "one tick"'))
+    assert msg.startswith("job.toml:7: target.digital.delay:") and "1 sample" in msg
+    msg = _error(MINIMAL.replace('methods = ["tustin"]', 'methods = ["tustin"]\ndelay = "-1 sample"'))
+    assert "zero or positive" in msg

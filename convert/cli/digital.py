@@ -87,27 +87,13 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 def parse_delay(text: str | None, fs_hz: float):
     """(seconds) from "250us" / "0.25ms" or from "1sample" / "2 samples"."""
-    import re
-
     from convert.compare.frequency import delay_in_seconds
-    from convert.errors import InputError
-    from convert.values import parse_value
+    from convert.values import parse_delay as read_delay
 
     if text is None:
         return 0.0
-    m = re.fullmatch(r"\s*(.*?)\s*(samples?|smp)\s*", text)
-    if m:
-        count = parse_value(m.group(1), "number", field="--delay")
-        if count < 0:
-            raise InputError(f"the delay must be zero or positive, found {text!r}", key="--delay")
-        return delay_in_seconds(delay_samples=count, fs_hz=fs_hz)
-    try:
-        seconds = parse_value(text, "second", field="--delay")
-    except InputError as exc:
-        raise InputError(f"{exc.message} (seconds such as 200us, or samples such as 1sample)", key="--delay") from None
-    if seconds < 0:
-        raise InputError(f"the delay must be zero or positive, found {text!r}", key="--delay")
-    return delay_in_seconds(delay_s=seconds)
+    delay_s, delay_samples = read_delay(text, field="--delay")
+    return delay_in_seconds(delay_s=delay_s, delay_samples=delay_samples, fs_hz=fs_hz)
 
 
 def _methods(args) -> list[str]:
