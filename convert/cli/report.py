@@ -136,8 +136,9 @@ def _summary(console, results, folder) -> None:
         keep = [i for i, h in enumerate(header) if h not in ("what was switched on", "note", "scanned")]
         # the report folder lists the rows that do not apply; the terminal keeps to what applies
         rows = [row for row in rows if not (len(row) > 1 and row[1] == "not applicable")]
-        for i in keep:
-            table.add_column(escape(header[i]), overflow="fold")
+        for n, i in enumerate(keep):
+            text, options = _column_layout(header[i], [str(r[i]) for r in rows], first=(n == 0))
+            table.add_column(text, **options)
         for row in rows:
             cells = []
             for i in keep:
@@ -162,3 +163,19 @@ def _summary(console, results, folder) -> None:
         for j in failures:
             console.print(f"[red]fails:[/red] {escape(f'{j.realization}: {j.label} {j.value:.3g} {j.unit} > limit {j.limit:g} {j.unit}')}")
     console.print(f"verdict: [{style}]{verdict.upper()}[/{style}]   report: {escape(str(folder))}/report.html")
+
+
+def _column_layout(header: str, cells: list[str], *, first: bool) -> tuple[str, dict]:
+    """(header text, column options) for an 80-column terminal: short cells (numbers with units)
+    never wrap and the header is wrapped to fit above them; text columns are at least as wide as
+    their longest word (up to 16 for the label column, 13 for the others), so text breaks between
+    words."""
+    import textwrap
+
+    from rich.markup import escape
+
+    longest_word = max(len(w) for text in [header, *cells] for w in (text.split() or [""]))
+    short = not first and all(len(c) <= 12 for c in cells)
+    width = max(longest_word, max((len(c) for c in cells), default=0) if short else 0, 10)
+    text = "\n".join(textwrap.wrap(header, width)) or header
+    return escape(text), {"overflow": "fold", "no_wrap": short, "min_width": None if short else min(longest_word, 16 if first else 13)}
