@@ -13,7 +13,9 @@ Conventions
   approximation enters the margins.
 * Margins: gain margin in dB (positive = stable margin), phase margin in degrees, crossover
   frequency in Hz (where |L| = 1), sensitivity peak ``max |1/(1+L)|`` in dB. Where a loop has
-  several crossings, the smallest margin is reported.
+  several crossings, the smallest margin in size is reported (for the gain margin the phase
+  crossing whose |L| is nearest 1, as python-control's ``stability_margins`` does; a
+  conditionally stable loop reports its upward margin when that is the smaller change).
 
 The time simulation (:func:`simulate_loop`) is a sampled-data simulation: the plant is
 discretized exactly (matrix exponential, zero-order hold on its input) at a fine sub-step ``h``;
@@ -95,8 +97,39 @@ def margin_grid(controller: Controller, plant: Controller, *, f_low_hz: float | 
     if controller.is_digital:
         hi = min(hi, 0.499 * controller.fs_hz)
         lo = min(lo, hi / 1e3)
+    lo, hi = _cover_crossovers(controller, plant, lo, hi)
     n = int(math.ceil(math.log10(hi / lo) * points_per_decade)) + 1
     return np.logspace(math.log10(lo), math.log10(hi), n)
+
+
+#: At most this many decades are added at each end of the margin grid to reach the crossovers.
+EXTRA_DECADES = 8
+
+
+def _cover_crossovers(controller: Controller, plant: Controller, lo: float, hi: float) -> tuple[float, float]:
+    """Widen [lo, hi] (Hz) by decades until the gain crossovers lie inside: the corner rule alone
+    misses the crossover of a loop whose gain is large or small (a crossover far above or below
+    every corner, e.g. 50/(2s+1) under a PI with kp = 30 crosses at 119 Hz, 1500 times its corner).
+    The top end grows while |L(hi)| ≥ 0.05 (analog controllers; a digital one stops at Nyquist),
+    the bottom end while |L(lo)| < 2 and |L| still rises toward low frequencies (an integrating
+    loop of low gain)."""
+    def gain(f: float) -> float:
+        fa = np.array([f])
+        return float(np.abs(controller.frequency_response(fa, via="zpk")[0] * plant.frequency_response(fa, via="zpk")[0]))
+
+    with np.errstate(all="ignore"):
+        if not controller.is_digital:
+            for _ in range(EXTRA_DECADES):
+                g = gain(hi)
+                if not (math.isfinite(g) and g >= 0.05):
+                    break
+                hi *= 10.0
+        for _ in range(EXTRA_DECADES):
+            g, g_up = gain(lo), gain(10.0 * lo)
+            if not (math.isfinite(g) and g < 2.0 and g > 1.5 * g_up):
+                break
+            lo /= 10.0
+    return lo, hi
 
 
 def margins_from_response(f_hz: np.ndarray, magnitude: np.ndarray, phase_rad: np.ndarray) -> Margins:
@@ -147,7 +180,10 @@ def margins_many(f_hz: np.ndarray, magnitude: np.ndarray, phase_rad: np.ndarray,
         pfrac = np.where(pcross, (target - psi[:, :-1]) / (psi[:, 1:] - psi[:, :-1]), 0.0)
     lg_p = s0 + pfrac * (s1 - s0)
     gm_all = np.where(pcross, -20.0 * lg_p, np.inf)
-    pidx = np.argmin(gm_all, axis=1)
+    # The crossing nearest 0 dB either way (python-control's stability_margins rule): a
+    # conditionally stable loop's low-frequency crossing (|L| > 1, a negative figure) is a gain
+    # *decrease* margin and must not hide the upward margin that is the smaller change.
+    pidx = np.argmin(np.abs(gm_all), axis=1)
     gm = gm_all[rows, pidx]
     hasg = np.isfinite(gm)
     gm = np.where(hasg, gm, np.nan)
