@@ -58,3 +58,35 @@ def test_margin_grid_reaches_a_crossover_far_from_the_corners(controller, plant)
     assert m.crossover_hz == pytest.approx(wgc / (2 * np.pi), rel=1e-3)
     assert m.phase_margin_deg == pytest.approx(pm, abs=0.05)
     assert m.sensitivity_peak_db > -0.01
+
+
+def test_phase_error_past_180_degrees_is_not_wrapped():
+    """Bug: the phase error was the wrapped angle of cand/ref, so a zero-order hold plus a
+    1.5-sample computation delay reported a maximum of 178° (at 25 Hz) instead of 324° (at the
+    band's top, 45 Hz, fs = 100 Hz). Reference, by hand: the lag of ZOH + delay is
+    ω·(T/2 + t_d) = 360°·45 Hz·(0.005 s + 0.015 s) = 324°, and sinc(fT) > 0 below fs."""
+    from convert.compare.frequency import compare_responses, hold_and_delay_factor, log_grid
+
+    c = from_expression("2*(1 + 1/(5*s))")
+    t = 0.01
+    f = log_grid(0.1, 45.0, 100)
+    ref = c.frequency_response(f, via="zpk")
+    err = compare_responses(ref, ref * hold_and_delay_factor(f, t, 1.5 * t), f)
+    assert err.max_phase_error_deg == pytest.approx(360.0 * 45.0 * 0.02, rel=1e-9)
+    assert err.max_phase_error_at_hz == pytest.approx(45.0)
+    assert np.allclose(err.phase_error_deg, -360.0 * f * 0.02)
+
+
+def test_budget_row_of_many_draws_reports_phase_error_past_180_degrees():
+    """Same bug in the error budget's many-draw path (Monte Carlo rows): each draw's phase error
+    is unwrapped along frequency. Reference, by hand: a pure delay τ has phase error 360°·f·τ;
+    draws with τ = 2, 3, 4 ms over a band to 200 Hz give 144°, 216°, 288°; the 100th percentile
+    is 288°."""
+    from convert.compare.budget import error_row
+    from convert.compare.frequency import log_grid
+
+    f = log_grid(1.0, 200.0, 100)
+    ref = np.ones_like(f, dtype=complex)
+    cand = np.array([np.exp(-2j * np.pi * f * tau) for tau in (0.002, 0.003, 0.004)])
+    row = error_row("tolerances", f, ref, cand, note="test", percentile=100.0)
+    assert row.max_phase_error_deg == pytest.approx(288.0, rel=1e-9)

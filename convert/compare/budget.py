@@ -23,7 +23,7 @@ from typing import Sequence
 
 import numpy as np
 
-from convert.compare.frequency import compare_responses
+from convert.compare.frequency import compare_responses, unwrapped_phase_error_deg
 
 #: Row keys in table order, with their labels.
 ROWS: tuple[tuple[str, str], ...] = (
@@ -101,7 +101,7 @@ def error_row(key: str, band_f_hz: Sequence[float], reference: np.ndarray, candi
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = cand / ref[None, :]
         gain = np.abs(20 * np.log10(np.abs(ratio)))
-    phase = np.abs(np.degrees(np.angle(ratio)))
+    phase = np.abs(unwrapped_phase_error_deg(ratio))
     gain = np.nan_to_num(gain, nan=np.inf)
     phase = np.nan_to_num(phase, nan=180.0)
     if cand.shape[0] == 1:

@@ -95,11 +95,28 @@ class ResponseError:
         }
 
 
+def unwrapped_phase_error_deg(ratio: np.ndarray) -> np.ndarray:
+    """Phase (degrees) of ``ratio`` = candidate/reference, unwrapped along the last (frequency)
+    axis from the first finite point, so an error that grows past ±180° (a hold and delay near
+    Nyquist) is reported in full instead of wrapping back toward 0. Non-finite points stay NaN."""
+    ang = np.angle(np.asarray(ratio, dtype=complex))
+    ok = np.isfinite(ang)
+    if ok.all():
+        return np.degrees(np.unwrap(ang, axis=-1))
+    out = np.full(ang.shape, np.nan)
+    for idx in np.ndindex(ang.shape[:-1]):
+        row, good = ang[idx], ok[idx]
+        if good.any():
+            out[idx + (good,)] = np.unwrap(row[good])
+    return np.degrees(out)
+
+
 def compare_responses(reference: np.ndarray, candidate: np.ndarray, f_hz: Sequence[float], *,
                       gain_limit_db: float = 1.0, phase_limit_deg: float = 5.0) -> ResponseError:
     """Errors of ``candidate`` against ``reference`` (complex arrays over ``f_hz``).
 
-    Signed errors: gain in dB (20·log10|cand/ref|), phase in degrees (angle of cand/ref).
+    Signed errors: gain in dB (20·log10|cand/ref|), phase in degrees (angle of cand/ref,
+    unwrapped along frequency: :func:`unwrapped_phase_error_deg`).
     """
     f = np.asarray(f_hz, dtype=float)
     ref = np.asarray(reference, dtype=complex)
@@ -109,7 +126,7 @@ def compare_responses(reference: np.ndarray, candidate: np.ndarray, f_hz: Sequen
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = cand / ref
         gain_err = 20 * np.log10(np.abs(ratio))
-    phase_err = np.degrees(np.angle(ratio))
+    phase_err = unwrapped_phase_error_deg(ratio)
     abs_gain = np.abs(np.nan_to_num(gain_err, nan=np.inf, posinf=np.inf, neginf=np.inf))
     abs_phase = np.abs(np.nan_to_num(phase_err, nan=180.0))
     ig = int(np.argmax(abs_gain))
