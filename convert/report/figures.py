@@ -53,7 +53,7 @@ def bode(results) -> bytes:
     """Bode overlay of the source and every realization as the loop sees them, plus the error
     of each against the source (gain error dB, phase error deg); the band is shaded."""
     f = display_grid(results)
-    from convert.compare.frequency import response_seen_from_loop
+    from convert.compare.frequency import response_seen_from_loop, unwrapped_phase_error_deg
 
     ref = response_seen_from_loop(results.reference, f, via="zpk")
     fig, ax = _figure(8.0, 9.0, 4, 1, sharex=True)
@@ -75,7 +75,7 @@ def bode(results) -> bytes:
             with np.errstate(divide="ignore", invalid="ignore"):
                 ratio = resp / ref
             ax[2].semilogx(f, 20 * np.log10(np.abs(ratio)), color=color, lw=1.3, label=name)
-            ax[3].semilogx(f, np.degrees(np.angle(ratio)), color=color, lw=1.3)
+            ax[3].semilogx(f, unwrapped_phase_error_deg(ratio), color=color, lw=1.3)
     crit = results.case.criteria
     for a in ax:
         a.axvspan(lo, hi, color="#d6eaf8", alpha=0.5, lw=0)
