@@ -336,8 +336,10 @@ class PidSettings:
                     tf_s: float | None = None, b: float = 1.0, c: float = 1.0, action: str = "reverse") -> "PidSettings":
         """From the series form (K', Ti', Td', filter N' = Td'/Tf or ``tf_s``); exact.
 
-        Raises :class:`UnrealizableError` when the filter is slower than the derivative or the
-        integral time (Tf > Td' or Tf > Ti'), which makes the parallel derivative gain negative.
+        Raises :class:`UnrealizableError` when the parallel gains would be negative: kd < 0 when
+        Tf lies between Td' and Ti' (kd = K'·(Td' − Tf)·(Ti' − Tf)/Ti'), kp < 0 when
+        Tf > Ti' + Td'. A filter slower than both Td' and Ti' but faster than their sum still gives
+        a PID (all gains ≥ 0), e.g. K' = 1, Ti' = Td' = 1 s, Tf = 1.5 s -> kp 0.5, ki 1, kd 0.25.
         """
         k = _check_number(kc, "kc", strict=True)
         td = _check_number(td_s, "td")
