@@ -599,6 +599,10 @@ def _rate(data: Mapping[str, Any], key: str, bare_per_s: float, where: str) -> f
     try:
         if isinstance(text, str) and "/" in text:
             left, _, right = text.partition("/")
+            if key != "reset" and re.search(r"repeats?\s*$", left.strip()):
+                # repeats per minute is a reset rate (1/Ti); as ki it would silently drop the gain
+                raise InputError(f"'repeats' belong to a reset rate; write reset={text.strip()} (Ti = 1/reset) "
+                                 f"or ki as a gain per time, e.g. ki=6/min", key=key)
             left = re.sub(r"\s*repeats?\s*$", "", left.strip())
             count = parse_value(left, "number", field=key)
             right = right.strip()

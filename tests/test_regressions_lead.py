@@ -83,3 +83,13 @@ def test_written_files_get_ordinary_permissions_not_private_temp_ones(run_cli, t
     for name in ("pi.cir", "pi.csv", "pi.svg"):
         assert (os.stat(tmp_path / name).st_mode & 0o777) == 0o644, name
     assert not [p for p in os.listdir(tmp_path) if p.startswith(".loopshift-")]
+
+
+def test_repeats_per_minute_are_refused_on_ki(run_cli):
+    """Bug: `--pid kp=2 "ki=2 repeats/min"` was read as ki = 2/min, dropping the gain that a reset
+    rate implies (ki = kp·reset). Repeats per minute is a reset rate, 1/Ti (common practice);
+    the tool now points at reset= instead of guessing."""
+    r = run_cli("show", "--pid", "kp=2", "ki=2 repeats/min")
+    assert r.code == 2 and "reset=" in r.err
+    ok = run_cli("show", "--pid", "kc=2", "reset=2 repeats/min", "--json")
+    assert ok.code == 0
