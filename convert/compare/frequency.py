@@ -157,7 +157,7 @@ def compare_controllers(reference: Controller, candidate: Controller, f_hz: Sequ
 
 
 # ---------------------------------------------------------------------------------------------
-# Added for the analog <-> digital conversions (helper "digital"): delay in seconds or samples,
+# For the analog <-> digital conversions: delay in seconds or samples,
 # the default band, and analog and digital responses on one grid.
 
 def delay_in_seconds(*, delay_s: float | None = None, delay_samples: float | None = None,
