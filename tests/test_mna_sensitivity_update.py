@@ -16,11 +16,10 @@ import numpy as np
 import pytest
 
 from convert.circuit import mna
-from convert.circuit.card import setpoint_quantities, setpoint_structure
+from convert.circuit.card import card_quantities
 from convert.circuit.mna import reusing_nominal, transfer_functions
 from convert.circuit.netlist import read_netlist
-from convert.circuit.sensitivity import controller_quantities, sensitivities
-from convert.pid import pid_from_controller
+from convert.circuit.sensitivity import sensitivities
 
 HERE = pathlib.Path(__file__).parent / "netlists"
 CARDS = sorted(HERE.glob("*.cir"))
@@ -33,18 +32,8 @@ def _inputs(netlist):
 
 
 def _evaluate(inputs):
-    """The quantities ``loopshift card`` tracks (as in convert.circuit.card.card_sensitivities)."""
-    def evaluate(nl):
-        res = transfer_functions(nl, inputs, "out")
-        keys = [nl.element(n).name for n in inputs]
-        if len(keys) == 2:
-            st = setpoint_structure(res[keys[0]].controller, res[keys[1]].controller)
-            out = controller_quantities(st.feedback, st.pid or pid_from_controller(st.feedback))
-            out.update(setpoint_quantities(st))
-            return out
-        c = res[keys[0]].controller
-        return controller_quantities(c, pid_from_controller(c))
-    return evaluate
+    """The quantities ``loopshift card`` tracks (convert.circuit.card.card_quantities)."""
+    return lambda nl: card_quantities(nl, inputs, "out")
 
 
 @pytest.fixture

@@ -206,7 +206,7 @@ def analyze_card(netlist: Netlist, *, input: str = "VIN", output: str = "out",  
         return analysis
     from dataclasses import replace
 
-    return replace(analysis, sensitivities=tuple(card_sensitivities(netlist, inputs, output, two=setpoint is not None)))
+    return replace(analysis, sensitivities=tuple(card_sensitivities(netlist, inputs, output)))
 
 
 def _leak_note(controller: Controller, pid) -> str | None:
@@ -233,20 +233,26 @@ def setpoint_quantities(st: SetpointStructure) -> dict[str, float]:
     return out
 
 
-def card_sensitivities(netlist: Netlist, inputs, output: str, *, two: bool):
-    """Sensitivity rows for a card (see :mod:`convert.circuit.sensitivity`)."""
-    from convert.circuit.sensitivity import controller_quantities, sensitivities
+def card_quantities(netlist: Netlist, inputs, output: str) -> dict[str, float]:
+    """The quantities ``loopshift card`` tracks for a card: gains, corners and PID parameters of the
+    controller (the feedback controller of a two-input card, plus its setpoint quantities)."""
+    from convert.circuit.sensitivity import controller_quantities
     from convert.pid import pid_from_controller
 
-    def evaluate(nl: Netlist) -> dict[str, float]:
-        res = transfer_functions(nl, inputs, output)
-        keys = [nl.element(n).name for n in inputs]
-        if two:
-            st = setpoint_structure(res[keys[0]].controller, res[keys[1]].controller)
-            out = controller_quantities(st.feedback, st.pid or pid_from_controller(st.feedback))
-            out.update(setpoint_quantities(st))
-            return out
-        c = res[keys[0]].controller
-        return controller_quantities(c, pid_from_controller(c))
+    res = transfer_functions(netlist, inputs, output)
+    keys = [netlist.element(n).name for n in inputs]
+    if len(keys) == 2:
+        st = setpoint_structure(res[keys[0]].controller, res[keys[1]].controller)
+        out = controller_quantities(st.feedback, st.pid or pid_from_controller(st.feedback))
+        out.update(setpoint_quantities(st))
+        return out
+    c = res[keys[0]].controller
+    return controller_quantities(c, pid_from_controller(c))
 
-    return sensitivities(netlist, evaluate)
+
+def card_sensitivities(netlist: Netlist, inputs, output: str):
+    """Sensitivity rows for a card (see :mod:`convert.circuit.sensitivity`); two ``inputs``
+    (setpoint, measurement) make it a two-input card."""
+    from convert.circuit.sensitivity import sensitivities
+
+    return sensitivities(netlist, lambda nl: card_quantities(nl, inputs, output))
