@@ -160,7 +160,7 @@ def run(args, console) -> int:
     from convert.circuit.opamp import OpAmpModel
     from convert.circuit.tolerance import parse_tolerances
     from convert.cli.analog import INVERSE_NAMES
-    from convert.cli.common import at, controller_from_args, count, emit_json, positive_value
+    from convert.cli.common import at, band_from_args, controller_from_args, count, emit_json, positive_value
     from convert.errors import InputError
 
     count(args.draws, "--draws", low=0, high=MAX_DRAWS)
@@ -171,12 +171,7 @@ def run(args, console) -> int:
                          key="--inverse-method")
     fs = positive_value(args.fs, "hz", "--fs") if args.fs else None
     controller, settings = controller_from_args(args, fs_hz=fs)
-    band = None
-    if args.band:
-        band = (positive_value(args.band[0], "hz", "--band"), positive_value(args.band[1], "hz", "--band"))
-        if not band[0] < band[1]:
-            raise InputError(f"the band's low end must be below its high end, found {args.band[0]} .. {args.band[1]}",
-                             key="--band")
+    band = band_from_args(args.band)
     renames = {"resistor range": "--r-min/--r-max", "capacitor range": "--c-min/--c-max", "topology": "--topology",
                "method": "--inverse-method"}
     with at(None, rename=renames):

@@ -68,6 +68,19 @@ def positive_value(text, kind: str, field: str) -> float:
     return value
 
 
+def band_from_args(words) -> tuple[float, float] | None:
+    """``--band LOW HIGH`` as (low, high) in Hz, or None when not given; low < high."""
+    from convert.errors import InputError
+
+    if not words:
+        return None
+    band = (positive_value(words[0], "hz", "--band"), positive_value(words[1], "hz", "--band"))
+    if not band[0] < band[1]:
+        raise InputError(f"the band's low end must be below its high end, found {words[0]} .. {words[1]}",
+                         key="--band")
+    return band
+
+
 def count(value: int, field: str, *, low: int, high: int) -> int:
     """A whole number from argparse (``type=int``) checked against ``low .. high``."""
     from convert.errors import InputError

@@ -127,7 +127,7 @@ def below_nyquist(value: float, text: str, fs: float, field: str) -> float:
 
 
 def run(args, console) -> int:
-    from convert.cli.common import at, controller_from_args, emit_json
+    from convert.cli.common import at, band_from_args, controller_from_args, emit_json
     from convert.digital import survey_methods
     from convert.errors import InputError
 
@@ -140,12 +140,8 @@ def run(args, console) -> int:
         below_nyquist(match_at, args.match_at, fs, "--match-at")
     filter_n = _positive(args.filter_n, "number", "--derivative-filter") if args.filter_n is not None else None
     delay = parse_delay(args.delay, fs)
-    band = None
-    if args.band:
-        band = (_positive(args.band[0], "hz", "--band"), _positive(args.band[1], "hz", "--band"))
-        if not band[0] < band[1]:
-            raise InputError(f"the band's low end must be below its high end, found {args.band[0]} .. {args.band[1]}",
-                             key="--band")
+    band = band_from_args(args.band)
+    if band is not None:
         if band[1] > fs / 2:
             raise InputError(f"the band's top {args.band[1]} is above fs/2 = {fs / 2:g} Hz", key="--band")
     limits = (1.0, 5.0)
