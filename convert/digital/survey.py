@@ -23,7 +23,7 @@ from typing import Sequence
 import numpy as np
 
 from convert.compare.frequency import (ResponseError, comparison_grid, compare_responses, default_band_hz,
-                                       responses_on_grid)
+                                       hold_and_delay_factor)
 from convert.controller import Controller
 from convert.digital.derivative_filter import add_derivative_filter, derivative_filter_time_constant
 from convert.digital.realization import METHODS, DigitalRealization, discretize
@@ -113,17 +113,19 @@ def survey_methods(controller: Controller, fs_hz: float, methods: Sequence[str] 
     if band_hz is None:
         band_hz = default_band_hz(controller, fs_hz)
     f = comparison_grid(band_hz, fs_hz, points_per_decade)
+    # the analog response and the hold-and-delay factor are the same for every method: once
+    analog = controller.frequency_response(f)
+    hold = hold_and_delay_factor(f, 1.0 / fs_hz, delay_s)
     rows = []
     for m in methods:
         real = discretize(controller, fs_hz, m, prewarp_hz=prewarp_hz if m == "tustin" else None,
                           match_at_hz=match_at_hz if m == "matched" else None,
                           keep_delay=keep_delay if m == "matched" else False)
-        grid = responses_on_grid(controller, real.controller, f, delay_s=delay_s,
-                                 digital_response=real.frequency_response(f))
+        digital = real.frequency_response(f)
         rows.append(MethodRow(
             real,
-            compare_responses(grid.analog, grid.digital, f, gain_limit_db=gain_limit_db, phase_limit_deg=phase_limit_deg),
-            compare_responses(grid.analog, grid.digital_seen, f, gain_limit_db=gain_limit_db,
+            compare_responses(analog, digital, f, gain_limit_db=gain_limit_db, phase_limit_deg=phase_limit_deg),
+            compare_responses(analog, digital * hold, f, gain_limit_db=gain_limit_db,
                               phase_limit_deg=phase_limit_deg)))
     candidates = [r for r in rows if not r.unstable]
     if candidates:
