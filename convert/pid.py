@@ -92,8 +92,8 @@ def _fmt(x: float | None) -> str:
 
 # ============================================================================ other forms
 @dataclass(frozen=True)
-class IdealForm:
-    """Ideal (standard, non-interacting) PID: ``Kc·(1 + 1/(Ti·s) + Td·s/((Td/N)·s + 1))``.
+class _GainTimesForm:
+    """Fields and plant-unit views shared by the ideal and the series forms (Kc, Ti, Td, Tf).
 
     ``ti_s`` is ``None`` when there is no integral action; ``td_s`` is 0 without derivative;
     ``tf_s`` is the derivative filter time constant (0: none), ``N = Td/Tf``. Times in seconds.
@@ -123,9 +123,6 @@ class IdealForm:
         """Reset rate in repeats per minute (60/Ti with Ti in s); 0 without integral action."""
         return 0.0 if self.ti_s is None else 60.0 / self.ti_s
 
-    def to_settings(self) -> "PidSettings":
-        return PidSettings.from_ideal(self.kc, self.ti_s, self.td_s, tf_s=self.tf_s, b=self.b, c=self.c, action=self.action)
-
     def as_dict(self) -> dict[str, Any]:
         return {
             "kc": self.kc,
@@ -141,26 +138,22 @@ class IdealForm:
 
 
 @dataclass(frozen=True)
-class SeriesForm:
+class IdealForm(_GainTimesForm):
+    """Ideal (standard, non-interacting) PID: ``Kc·(1 + 1/(Ti·s) + Td·s/((Td/N)·s + 1))``
+    (fields: see :class:`_GainTimesForm`)."""
+
+    def to_settings(self) -> "PidSettings":
+        return PidSettings.from_ideal(self.kc, self.ti_s, self.td_s, tf_s=self.tf_s, b=self.b, c=self.c, action=self.action)
+
+
+@dataclass(frozen=True)
+class SeriesForm(_GainTimesForm):
     """Series (interacting) PID: ``K'·(1 + 1/(Ti'·s))·(1 + Td'·s)/((Td'/N')·s + 1)``.
 
     Same field meanings as :class:`IdealForm` but for the series parameters; the filter pole
     (time constant ``tf_s``) multiplies the whole controller and ``N' = Td'/Tf``. Conventionally
     ``Ti' ≥ Td'``.
     """
-
-    kc: float
-    ti_s: float | None
-    td_s: float
-    tf_s: float = 0.0
-    b: float = 1.0
-    c: float = 1.0
-    action: str = "reverse"
-
-    n = IdealForm.n
-    pb_percent = IdealForm.pb_percent
-    reset_per_min = IdealForm.reset_per_min
-    as_dict = IdealForm.as_dict
 
     def to_settings(self) -> "PidSettings":
         return PidSettings.from_series(self.kc, self.ti_s, self.td_s, tf_s=self.tf_s, b=self.b, c=self.c, action=self.action)
