@@ -107,32 +107,10 @@ def cascade(zeros, poles, gain) -> tuple[np.ndarray, np.ndarray, np.ndarray, flo
     chain instead of a companion matrix) and the sampled system keeps its zeros to rounding.
 
     Needs as many poles as zeros or more (a proper system)."""
-    zeros = list(np.asarray(zeros, complex))
-    poles = list(np.asarray(poles, complex))
-    sections: list[list] = []  # [num (descending), den (descending)]
-    used = [False] * len(poles)
-    for i, p in enumerate(poles):
-        if used[i]:
-            continue
-        used[i] = True
-        if abs(p.imag) > 1e-12 * max(abs(p), 1e-300):
-            j = min((k for k in range(len(poles)) if not used[k]), key=lambda k: abs(poles[k] - np.conj(p)))
-            used[j] = True
-            sections.append([np.array([1.0]), np.array([1.0, -2 * p.real, abs(p) ** 2])])
-        else:
-            sections.append([np.array([1.0]), np.array([1.0, -p.real])])
-    z_used = [False] * len(zeros)
-    pairs, singles = [], []
-    for i, z in enumerate(zeros):
-        if z_used[i]:
-            continue
-        z_used[i] = True
-        if abs(z.imag) > 1e-12 * max(abs(z), 1e-300):
-            j = min((k for k in range(len(zeros)) if not z_used[k]), key=lambda k: abs(zeros[k] - np.conj(z)))
-            z_used[j] = True
-            pairs.append(np.array([1.0, -2 * z.real, abs(z) ** 2]))
-        else:
-            singles.append(np.array([1.0, -z.real]))
+    sections: list[list] = [[np.array([1.0]), q] for q in _real_factors(poles)]  # [num, den], descending
+    factors = _real_factors(zeros)
+    pairs = [q for q in factors if len(q) == 3]
+    singles = [q for q in factors if len(q) == 2]
 
     def spare(sec):
         return (len(sec[1]) - 1) - (len(sec[0]) - 1)
@@ -161,6 +139,25 @@ def cascade(zeros, poles, gain) -> tuple[np.ndarray, np.ndarray, np.ndarray, flo
         c = np.hstack([d2 * c, c2])
         d = d2 * d
     return a, b, c, d
+
+
+def _real_factors(roots) -> list[np.ndarray]:
+    """Monic real factors (descending) of Π(x − r): [1, −r] for a real root, [1, −2 Re r, |r|²]
+    for a complex root and its nearest conjugate partner."""
+    roots = list(np.asarray(roots, complex))
+    used = [False] * len(roots)
+    out = []
+    for i, r in enumerate(roots):
+        if used[i]:
+            continue
+        used[i] = True
+        if abs(r.imag) > 1e-12 * max(abs(r), 1e-300):
+            j = min((k for k in range(len(roots)) if not used[k]), key=lambda k: abs(roots[k] - np.conj(r)))
+            used[j] = True
+            out.append(np.array([1.0, -2 * r.real, abs(r) ** 2]))
+        else:
+            out.append(np.array([1.0, -r.real]))
+    return out
 
 
 def _section(num, den):
