@@ -1,0 +1,93 @@
+"""Benchmark: `loopshift batch` throughput with 2 workers against 1, and what a broken case costs.
+
+Copies of the demo cases (cases/*.toml, round-robin) are run as one batch twice in fresh
+processes, first with --workers 1, then with --workers 2; the ratio of throughputs is printed
+(target >= 1.7 on a 2-core machine). Then one broken case (a syntax error in its expression) is
+added to a batch of the same copies and its own time is compared with the time to parse one
+good case file (target: no more than its own parse time, i.e. ratio <= 1, allowing 2x for the
+noise of timing a few milliseconds).
+
+    python bench/batch.py              # 200 cases, as the target is stated (about 10 minutes here)
+    python bench/batch.py --cases 40   # a quicker look
+
+Exit code 1 when a target is missed.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+
+
+def make_cases(folder: Path, n: int) -> None:
+    demos = sorted((ROOT / "cases").glob("*.toml"))
+    shutil.copytree(ROOT / "cases" / "cards", folder / "cards")
+    for i in range(n):
+        src = demos[i % len(demos)]
+        shutil.copy(src, folder / f"{i:04d}-{src.name}")
+
+
+def run_batch(folder: Path, out: Path, workers: int) -> float:
+    # One BLAS thread in both runs: the pool's workers run with one (so two workers do not fight
+    # over two cores), and a single in-process worker is fastest with one too (small matrices),
+    # so the ratio compares the best of each, not thread overhead.
+    env = {**os.environ, "OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
+    start = time.perf_counter()
+    proc = subprocess.run([sys.executable, "-m", "convert", "batch", str(folder), "--out", str(out),
+                           "--workers", str(workers)], capture_output=True, text=True, env=env)
+    seconds = time.perf_counter() - start
+    if proc.returncode not in (0, 1, 2):
+        raise SystemExit(f"batch failed ({proc.returncode}): {proc.stderr.strip()}")
+    return seconds
+
+
+def parse_time(case_file: Path, repeats: int = 20) -> float:
+    code = ("import time,sys; from convert.case import load_case; load_case(sys.argv[1]); "
+            f"t=time.perf_counter(); [load_case(sys.argv[1]) for _ in range({repeats})]; "
+            f"print((time.perf_counter()-t)/{repeats})")
+    out = subprocess.run([sys.executable, "-c", code, str(case_file)], capture_output=True, text=True, check=True)
+    return float(out.stdout.strip())
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    ap.add_argument("--cases", type=int, default=200)
+    args = ap.parse_args(argv)
+    ok = True
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(tmp) / "cases"
+        folder.mkdir()
+        make_cases(folder, args.cases)
+        t1 = run_batch(folder, Path(tmp) / "one", 1)
+        t2 = run_batch(folder, Path(tmp) / "two", 2)
+        speedup = t1 / t2
+        meets = speedup >= 1.7
+        ok &= meets
+        print(f"batch of {args.cases} cases: 1 worker {t1:.1f} s, 2 workers {t2:.1f} s -> throughput x{speedup:.2f} "
+              f"(target >= 1.7) {'meets' if meets else 'MISSES'}")
+
+        (folder / "zzzz-broken.toml").write_text('[source]\nexpression = "1/(s"\n')
+        run_batch(folder, Path(tmp) / "three", 2)
+        data = json.loads((Path(tmp) / "three" / "batch.json").read_text())
+        broken = next(c for c in data["cases"] if c["status"] == "unreadable")
+        good = parse_time(folder / f"0000-{sorted((ROOT / 'cases').glob('*.toml'))[0].name}")
+        ratio = broken["seconds"] / good
+        meets = ratio <= 2.0
+        ok &= meets
+        print(f"broken case: {1e3 * broken['seconds']:.1f} ms in the batch; parsing one good case "
+              f"{1e3 * good:.1f} ms -> x{ratio:.2f} (target <= 1, 2 allowed for timing noise) "
+              f"{'meets' if meets else 'MISSES'}")
+    return 0 if ok else 1
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
