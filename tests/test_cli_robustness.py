@@ -148,6 +148,10 @@ BAD_INPUT = [
     (["report", str(CASE), "--out", "taken.cir", "--force"], "--out: 'taken.cir' exists and is not a folder"),
     (["report", str(CASE), "--out", "no/such/folder/report"], "--out: the folder 'no/such/folder' does not exist"),
     (["report", str(CASE), "--draws", "0"], "--draws: expected 1 to 1,000,000 draws"),
+    # --- batch: the case list and the batch folder
+    (["batch", "missing.toml"], "no such case file or folder: 'missing.toml'"),
+    (["batch", str(CASE), "--workers", "0"], "--workers: expected 1 to 256 workers"),
+    (["batch", str(CASE), "--out", "."], "--out: the folder '.' holds files that are not an earlier batch"),
     # --- usage
     ([], "give a command"),
     (["bogus"], "invalid choice: 'bogus'"),

@@ -48,7 +48,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                         "e.g. --scheduler tcp://10.0.0.5:8786")
     p.add_argument("--draws", metavar="N", type=_draws,
                    help="Monte Carlo draws for every circuit target, overriding the case files, e.g. --draws 2000")
-    p.add_argument("--json", action="store_true", help="print batch.json to standard output instead of the table")
+    p.add_argument("--json", action="store_true", help="print batch.json to standard output instead of the table, e.g. loopshift batch cases/ --json")
     return p
 
 
