@@ -169,7 +169,7 @@ class Case:
     plant: Plant | None
     signals: Signals
     criteria: Criteria
-    lines: dict = field(default_factory=dict, compare=False, repr=False)
+    lines: dict | None = field(default_factory=dict, compare=False, repr=False)  # None: built in Python
 
     @property
     def base_dir(self) -> Path:
@@ -230,7 +230,9 @@ def key_lines(text: str) -> dict[str, int]:
     return lines
 
 
-def _where(file_name: str, lines: dict, key: str) -> str:
+def _where(file_name: str, lines: dict | None, key: str) -> str:
+    if lines is None:  # a case built in Python: no text to point into
+        return file_name
     probe = key
     while probe:
         if probe in lines:
@@ -243,10 +245,10 @@ def _where(file_name: str, lines: dict, key: str) -> str:
 class _Ctx:
     """Carries the file name and line map so every check can name file, line and key."""
 
-    def __init__(self, path: Path, text: str):
+    def __init__(self, path: Path, text: str | None):
         self.path = path
         self.name = path.name
-        self.lines = key_lines(text)
+        self.lines = key_lines(text) if text is not None else None
 
     def where(self, key: str) -> str:
         return _where(self.name, self.lines, key)
@@ -366,7 +368,31 @@ def parse_case(text: str, path: str | Path = "case.toml") -> Case:
         where = f"{path.name}:{m.group(1)}" if m else path.name
         message = re.sub(r"\s*\(at line \d+, column \d+\)", "", message)
         raise InputError(f"not valid TOML: {message}", where=where) from None
-    ctx = _Ctx(path, text)
+    return _case_from_data(data, _Ctx(path, text))
+
+
+def case_from_dict(data: dict, *, name: str = "case", base_dir: str | Path = ".") -> Case:
+    """Build a :class:`Case` from a dict shaped like a case file (the same keys and checks as
+    the TOML file, see docs/case-files.md); ``name`` names it in errors and the report folder,
+    ``base_dir`` anchors relative file names (a netlist source).
+
+    Examples
+    --------
+    >>> from convert.case import case_from_dict
+    >>> case = case_from_dict({"source": {"expression": "2*(1 + 1/(30*s))"},
+    ...                        "target": {"digital": {"fs": "10 Hz", "methods": ["tustin"]}},
+    ...                        "criteria": {"band": ["1 mHz", "1 Hz"], "max_gain_error_db": 0.5}},
+    ...                       name="tank-level")
+    >>> case.name, case.digital.fs_hz
+    ('tank-level', (10.0,))
+    """
+    if not isinstance(data, dict):
+        raise InputError(f"expected a dict shaped like a case file, found {type(data).__name__}", where=name)
+    return _case_from_data(data, _Ctx(Path(base_dir) / name, None))
+
+
+def _case_from_data(data: dict, ctx: _Ctx) -> Case:
+    path = ctx.path
     ctx.check_keys(data, SCHEMA, "")
 
     case_table = ctx.table(data, "case", "case") or {}
@@ -388,7 +414,7 @@ def _read_source(ctx: _Ctx, data: dict) -> Source:
     table = ctx.table(data, "source", "source")
     if table is None:
         raise InputError("missing [source]: the controller that exists now (expression, pid, digital, card or "
-                         "netlist)", where=f"{ctx.name}:1", key="source")
+                         "netlist)", where=ctx.where(""), key="source")
     ctx.check_keys(table, SCHEMA["source"], "source")
     given = [k for k in SOURCE_FORMS if k in table]
     if len(given) != 1:
@@ -489,7 +515,7 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
     table = ctx.table(data, "target", "target")
     if not table:
         raise InputError("missing [target.digital] or [target.circuit]: the form(s) to produce",
-                         where=f"{ctx.name}:1", key="target")
+                         where=ctx.where(""), key="target")
     ctx.check_keys(table, SCHEMA["target"], "target")
     digital = circuit = None
     dig = ctx.table(table, "digital", "target.digital")
@@ -589,7 +615,7 @@ def _read_criteria(ctx: _Ctx, data: dict) -> Criteria:
     table = ctx.table(data, "criteria", "criteria")
     if table is None:
         raise InputError("missing [criteria]: at least band = [\"low Hz\", \"high Hz\"] and one limit",
-                         where=f"{ctx.name}:1", key="criteria")
+                         where=ctx.where(""), key="criteria")
     ctx.check_keys(table, SCHEMA["criteria"], "criteria")
     if "band" not in table:
         raise ctx.error("criteria", "missing band: the frequency range compared, e.g. band = [\"10 mHz\", \"1 Hz\"]")
