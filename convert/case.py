@@ -691,12 +691,21 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
     net = read_netlist(text, source=file_path.name)
     card = analyze_card(net, input=src.data["input"], output=src.data["output"], setpoint=src.data["setpoint"],
                         measurement=src.data["measurement"], with_sensitivities=False)
-    extra: dict = {"netlist_file": str(file_path)}
+    extra: dict = {"netlist_file": str(file_path), "output_limits": card.output_limits}
     notes = list(card.notes)
+    if card.output_limits is not None:
+        lo, hi = card.output_limits
+        notes.append(f"the card's clamps hold its output to {lo:.3g} … {hi:.3g} V: the source loop is simulated "
+                     "with these limits, and they are the firmware's output limits unless "
+                     "target.digital.output_limits says otherwise")
     if card.structure is not None:
         extra["setpoint_structure"] = card.structure.description
-        notes.append("two-input card: the loop checks use its feedback controller on the error, u = C·(r − y); "
-                     f"its setpoint path differs ({card.structure.description}) and the firmware must reproduce it")
+        text = "two-input card: the loop checks use its feedback controller on the error, u = C·(r − y); "
+        if card.structure.plain_error:
+            text += f"its setpoint path is the same ({card.structure.description})"
+        else:
+            text += f"its setpoint path differs ({card.structure.description}) and the firmware must reproduce it"
+        notes.append(text)
     return SourceInfo(controller=card.controller.with_name("card"), pid=card.pid, notes=tuple(notes), extra=extra)
 
 

@@ -22,7 +22,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from convert.circuit.clamps import Clamp, clamp_notes, find_clamps
+from convert.circuit.clamps import Clamp, clamp_notes, find_clamps, output_limits
 from convert.circuit.mna import RationalResult, transfer_functions
 from convert.circuit.netlist import Netlist
 from convert.controller import Controller
@@ -46,6 +46,14 @@ class SetpointStructure:
     pid: object | None  # PidSettings with b, c when the pair is a weighted PID
     description: str
 
+    @property
+    def plain_error(self) -> bool:
+        """True when setpoint and measurement meet as a plain error (b = c = 1): u = C·(r − y)."""
+        if self.pid is not None:
+            return self.pid.b == 1 and self.pid.c == 1
+        f = self.setpoint_filter
+        return f.order == 0 and len(f.num) == 1 and abs(f.num[0] - 1.0) <= _WEIGHT_RTOL
+
 
 @dataclass(frozen=True)
 class CardAnalysis:
@@ -60,6 +68,7 @@ class CardAnalysis:
     clamps: tuple[Clamp, ...]
     notes: tuple[str, ...]
     sensitivities: tuple = field(default=())
+    output_limits: tuple[float, float] | None = None  # V(output) range the clamps hold (see clamps.output_limits)
 
 
 def _ratio(a: Controller, b: Controller, name: str) -> Controller:
@@ -151,6 +160,8 @@ def setpoint_structure(h_sp: Controller, h_pv: Controller) -> SetpointStructure:
             d_on = "the measurement only" if weighted.c == 0 else f"the error weighted by c = {weighted.c:.6g}"
             text = (f"a {weighted.kind} with setpoint weight b = {weighted.b:.6g} on the proportional part"
                     + (f"; the derivative acts on {d_on}" if weighted.kd > 0 else ""))
+    elif filt.order == 0 and len(filt.num) == 1 and abs(filt.num[0] - 1.0) <= _WEIGHT_RTOL:
+        text = "setpoint and measurement meet as a plain error (setpoint − measurement): F(s) = 1"
     else:
         text = ("the setpoint path is not a weighted form of the feedback PID; the setpoint passes through the "
                 f"general filter F(s) = {filt.expression()} before the error is formed")
@@ -201,7 +212,7 @@ def analyze_card(netlist: Netlist, *, input: str = "VIN", output: str = "out",  
     if clamp_lines:  # the per-clamp lines live in ``clamps``; the notes keep the summary and the instruction
         notes += [clamp_lines[0], clamp_lines[-1]]
     analysis = CardAnalysis(netlist, tuple(names), output, results, controller, pid, reason, structure,
-                            find_clamps(netlist), tuple(notes))
+                            find_clamps(netlist), tuple(notes), output_limits=output_limits(netlist, output))
     if not with_sensitivities:
         return analysis
     from dataclasses import replace

@@ -145,3 +145,28 @@ def clamp_notes(netlist: Netlist) -> list[str]:
     lines.append("the firmware must reproduce these limits as output limits with anti-windup "
                  "(forward drop taken as 0.65 V, range 0.6–0.7 V; zener voltage from the model's BV)")
     return lines
+
+
+def output_limits(netlist: Netlist, output: str) -> tuple[float, float] | None:
+    """The range (low, high) in volts that the card's clamps hold V(``output``) to, or ``None``
+    when no clamp bounds it. A clamp counts when it runs from the output node to ground, or
+    across the feedback of the op-amp that drives the output with its non-inverting input at
+    ground (the inverting input is then a virtual ground). A side no clamp bounds is ±inf.
+    Approximate like the thresholds themselves (knees are soft)."""
+    out = output.lower()
+    grounds = {GROUND}
+    for op in netlist.of_kind("OPAMP"):
+        if op.nodes[2] == out and op.nodes[0] == GROUND:
+            grounds.add(op.nodes[1])
+    lo, hi = -math.inf, math.inf
+    for c in find_clamps(netlist):
+        if c.node_a == out and c.node_b in grounds:
+            up, down = c.positive_v, c.negative_v
+        elif c.node_b == out and c.node_a in grounds:
+            up, down = c.negative_v, c.positive_v
+        else:
+            continue
+        hi, lo = min(hi, up), max(lo, -down)
+    if math.isinf(lo) and math.isinf(hi):
+        return None
+    return lo, hi

@@ -148,6 +148,7 @@ def _from_netlist(args) -> dict:
     data["clamps"] = [{"diodes": list(c.diodes), "node_a": c.node_a, "node_b": c.node_b,
                        "conducts_above_v": c.positive_v, "conducts_below_v": -c.negative_v, "role": c.role,
                        "where": c.where, "text": c.describe()} for c in analysis.clamps]
+    data["output_limits"] = None if analysis.output_limits is None else list(analysis.output_limits)
     data["notes"] = list(analysis.notes)
     data["sensitivities"] = None if args.no_sensitivity else _rows(analysis.sensitivities)
     return data
@@ -263,6 +264,10 @@ def _render(console, data: dict, d: int) -> None:
         console.print()
         console.print("Clamps (left out of the linear analysis)", style="bold")
         console.print(_bullets([c["text"] for c in data["clamps"]], mark=""))
+        lim = data.get("output_limits")
+        if lim:
+            console.print(f"output limits for the firmware: {lim[0]:.3g} … {lim[1]:.3g} V (what the clamps hold "
+                          f"V({data['card']['output']}) to)", markup=False, highlight=False)
     if data.get("notes"):
         console.print()
         console.print("Notes", style="bold")

@@ -110,6 +110,7 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
     skipped: list[str] = []
     notes: list[str] = list(info.notes)
     analog_src = _analog_reference(case, src, notes)
+    card_limits = info.extra.get("output_limits")  # a card's clamps, read from its netlist
 
     plant = case.plant
     src_margins = duration = src_step = src_dist = None
@@ -120,7 +121,8 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
         duration = case.signals.duration_s or default_duration(analog_src if analog_src.is_proper else sim_src,
                                                                plant.model, plant.dead_time_s)
         if sim_src is not None:
-            src_step, src_dist = _simulate_pair(case, sim_src, duration, 0.0, case.signals.output_range)
+            src_step, src_dist = _simulate_pair(case, sim_src, duration, 0.0,
+                                                _within(case.signals.output_range, card_limits))
     else:
         skipped += ["loop margins (gain margin, phase margin, crossover, sensitivity peak)",
                     "closed-loop step and load-disturbance simulations",
@@ -132,7 +134,7 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
     advice: list[RateAdvice] = []
     if case.digital:
         realizations += _digital_realizations(case, src, analog_src, band, src_margins, duration, src_step,
-                                              src_dist, tick)
+                                              src_dist, tick, card_limits=card_limits)
         if True:
             advice = _rate_advice(case, analog_src, src_margins)
         tick("sample-rate advice")
@@ -216,7 +218,25 @@ def _loop_spec(case, f_hz: np.ndarray) -> bud.LoopSpec | None:
     return bud.LoopSpec(f_hz=f_hz, margins=lambda r: margins_of_responses(f_hz, r, plant.model, plant.dead_time_s))
 
 
-def _digital_realizations(case, src, analog_src, band, src_margins, duration, src_step, src_dist, tick):
+def _within(limits, clamp):
+    """The tighter of two (low, high) ranges, either of which may be None."""
+    if clamp is None:
+        return limits
+    if limits is None:
+        return tuple(clamp)
+    return max(limits[0], clamp[0]), min(limits[1], clamp[1])
+
+
+def firmware_output_limits(case, card_limits=None):
+    """The firmware's output limits: the target's own, else a card's clamp limits (within the
+    actuator range), else the actuator range; ``None`` when none is given."""
+    if case.digital and case.digital.output_limits:
+        return case.digital.output_limits
+    return _within(case.signals.output_range, card_limits)
+
+
+def _digital_realizations(case, src, analog_src, band, src_margins, duration, src_step, src_dist, tick, *,
+                          card_limits=None):
     from convert.digital import discretize
 
     tgt = case.digital
@@ -294,7 +314,7 @@ def _digital_realizations(case, src, analog_src, band, src_margins, duration, sr
                             warnings=warnings)
             if case.plant is not None:
                 r.margins = loop_margins(cq, case.plant.model, case.plant.dead_time_s, delay_s=delay)
-                limits = tgt.output_limits or case.signals.output_range
+                limits = firmware_output_limits(case, card_limits)
                 try:
                     r.step, r.disturbance = _simulate_pair(case, cq, duration, delay, limits)
                 except InputError as exc:

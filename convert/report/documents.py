@@ -7,7 +7,7 @@ import base64
 import html
 
 from convert.compare.evaluate import CAUTIONS
-from convert.report.tables import all_tables, input_tables, table_note
+from convert.report.tables import all_tables, failing_criteria, input_tables, table_note
 
 FIGURE_CAPTIONS = {
     "bode.png": "Bode overlay of all forms as the loop sees them, with the error of each against the source.",
@@ -32,6 +32,7 @@ table{border-collapse:collapse;margin:.6em 0;font-size:.88em}td,th{border:1px so
 th{background:#eaf2f8;text-align:left}.pass{color:#1e8449;font-weight:600}.fail{color:#c0392b;font-weight:700}
 .verdict{font-size:1.3em;padding:.4em .8em;display:inline-block;border-radius:4px}
 .verdict.pass{background:#d5f5e3}.verdict.fail{background:#fadbd8}
+ul.failed{color:#c0392b;margin:.3em 0 1em}
 .caution{background:#fef9e7;border-left:4px solid #b7950b;padding:.5em 1em}
 p.note{font-size:.85em;color:#444;max-width:60em}
 figure{margin:1em 0}figcaption{font-size:.85em;color:#555}img{max-width:100%}
@@ -66,6 +67,9 @@ def html_report(results, figures: dict[str, bytes]) -> str:
     if case.description:
         parts.append(f"<p>{html.escape(case.description)}</p>")
     parts.append(f'<p class="verdict {v}">Verdict: {v.upper()}</p>')
+    failed = failing_criteria(results)
+    if failed:
+        parts.append('<ul class="failed">' + "".join(f"<li>{html.escape(t)}</li>" for t in failed) + "</ul>")
     parts.append('<div class="caution"><strong>Cautions.</strong><ul>'
                  + "".join(f"<li>{html.escape(c)}</li>" for c in CAUTIONS) + "</ul></div>")
     for title, header, rows in input_tables(results):
@@ -104,7 +108,11 @@ def markdown_report(results, figure_names=()) -> str:
     lines = [f"# Equivalence report — {case.title}", ""]
     if case.description:
         lines += [case.description, ""]
-    lines += [f"**Verdict: {results.verdict.overall.upper()}**", "", "> **Cautions.**"]
+    lines += [f"**Verdict: {results.verdict.overall.upper()}**", ""]
+    failed = failing_criteria(results)
+    if failed:
+        lines += [f"- failed: {_md_cell(t)}" for t in failed] + [""]
+    lines += ["> **Cautions.**"]
     lines += [f"> - {c}" for c in CAUTIONS]
     lines.append("")
     for title, header, rows in input_tables(results) + all_tables(results):

@@ -95,7 +95,7 @@ def bode(results) -> bytes:
     ax[2].legend(fontsize=8, loc="best")
     for a in ax:
         a.set_xlim(f[0], f[-1])
-    ax[0].set_title("Controller as the loop sees it (hold and delay included): source and new forms")
+    ax[0].set_title(bode_title(results))
     return _png(fig)
 
 
@@ -146,12 +146,16 @@ def loop_responses(results) -> bytes:
     sig = results.case.signals
     ax[0, 0].axhline(sig.setpoint_step, color="#555", ls=":", lw=1, label="setpoint")
     ax[0, 1].axhline(0.0, color="#555", ls=":", lw=1)
-    limits = [results.case.digital.output_limits if results.case.digital else None, sig.output_range]
+    from convert.compare.evaluate import firmware_output_limits
+
+    limits = [firmware_output_limits(results.case, results.source.extra.get("output_limits"))
+              if results.case.digital else None, sig.output_range]
     for lim in limits:
         if lim:
             for a in ax[1]:
                 for v in lim:
-                    a.axhline(v, color="#a04000", ls=":", lw=1)
+                    if np.isfinite(v):
+                        a.axhline(v, color="#a04000", ls=":", lw=1)
     ax[0, 0].set_title(f"setpoint step of {sig.setpoint_step:g}")
     ax[0, 1].set_title(f"load step of {sig.disturbance_step:g} at the plant input")
     ax[0, 0].set_ylabel("measurement (plant output units)")
@@ -179,14 +183,22 @@ def _zoom_near_one(points: np.ndarray) -> float | None:
 
 
 def pole_zero(results) -> bytes:
+    """The pole-zero figure (:func:`pole_zero_figure`) as PNG bytes."""
+    return _png(pole_zero_figure(results))
+
+
+def pole_zero_figure(results):
     """Pole-zero maps: analog forms in the s-plane (rad/s, symmetric-log real axis when the
-    corners span decades), digital forms in the z-plane (zoomed near z = 1 when they crowd there)."""
+    corners span decades), digital forms in the z-plane (zoomed near z = 1 when they crowd there).
+    A plane that no form lives in gets no panel (a circuit-only case has no z-plane)."""
     from matplotlib.ticker import MaxNLocator
 
-    fig, ax = _figure(9.5, 4.4, 1, 2)
-    fig.subplots_adjust(bottom=0.14, top=0.9)
-    s_ax, z_ax = ax[0, 0], ax[0, 1]
     forms = [("source", results.reference)] + [(r.name, r.controller) for r in results.realizations]
+    planes = [p for p in ("s", "z") if any(c.is_digital == (p == "z") for _, c in forms)]
+    fig, ax = _figure(9.5 if len(planes) == 2 else 5.6, 4.4, 1, len(planes))
+    fig.subplots_adjust(bottom=0.14, top=0.9, left=0.1 if len(planes) == 2 else 0.16)
+    axes = dict(zip(planes, ax[0]))
+    s_ax, z_ax = axes.get("s"), axes.get("z")
     s_points, z_points = [], []
     for i, (name, c) in enumerate(forms):
         color = COLORS[i % len(COLORS)]
@@ -195,40 +207,50 @@ def pole_zero(results) -> bytes:
         (z_points if c.is_digital else s_points).extend(list(z) + list(p))
         target.plot(z.real, z.imag, "o", mfc="none", color=color, ms=8, label=f"{name} zeros")
         target.plot(p.real, p.imag, "x", color=color, ms=8, label=f"{name} poles")
-    theta = np.linspace(0, 2 * np.pi, 2000)
-    z_ax.plot(np.cos(theta), np.sin(theta), color="#999", lw=0.8)
-    s_ax.axvline(0, color="#999", lw=0.8)
-    s_ax.axhline(0, color="#999", lw=0.8)
-    z_ax.axhline(0, color="#999", lw=0.8)
-    s_ax.set_title("s-plane (rad/s)")
-    zoom = _zoom_near_one(np.asarray(z_points, dtype=complex))
-    if zoom is not None:
-        z_ax.set_xlim(1 - zoom, 1 + 0.3 * zoom)
-        z_ax.set_ylim(-0.65 * zoom, 0.65 * zoom)
-        z_ax.set_title("z-plane, zoomed near z = 1")
-        z_ax.xaxis.set_major_locator(MaxNLocator(4))
-        z_ax.text(0.98, 0.02, f"window ±{zoom:.2g} around z = 1", transform=z_ax.transAxes, ha="right",
-                  va="bottom", fontsize=7, color="#555")
-    else:
-        z_ax.set_aspect("equal", adjustable="datalim")
-        z_ax.set_title("z-plane (circle: |z| = 1)")
-    s_real = np.array([abs(v.real) for v in s_points if v.real != 0 and np.isfinite(v.real)])
-    if s_real.size and s_real.max() / s_real.min() > 100:
-        s_ax.set_xscale("symlog", linthresh=float(s_real.min()) / 2)
-        s_ax.set_xlabel("real (rad/s, symmetric log scale)")
-    else:
-        s_ax.set_xlabel("real (rad/s)")
-    s_ax.set_ylabel("imaginary (rad/s)")
-    z_ax.set_xlabel("real")
-    z_ax.set_ylabel("imaginary")
-    for a in (s_ax, z_ax):
+    if z_ax is not None:
+        theta = np.linspace(0, 2 * np.pi, 2000)
+        z_ax.plot(np.cos(theta), np.sin(theta), color="#999", lw=0.8)
+        z_ax.axhline(0, color="#999", lw=0.8)
+        zoom = _zoom_near_one(np.asarray(z_points, dtype=complex))
+        if zoom is not None:
+            z_ax.set_xlim(1 - zoom, 1 + 0.3 * zoom)
+            z_ax.set_ylim(-0.65 * zoom, 0.65 * zoom)
+            z_ax.set_title("z-plane, zoomed near z = 1")
+            z_ax.xaxis.set_major_locator(MaxNLocator(4))
+            z_ax.text(0.98, 0.02, f"window ±{zoom:.2g} around z = 1", transform=z_ax.transAxes, ha="right",
+                      va="bottom", fontsize=7, color="#555")
+        else:
+            z_ax.set_aspect("equal", adjustable="datalim")
+            z_ax.set_title("z-plane (circle: |z| = 1)")
+        z_ax.set_xlabel("real")
+        z_ax.set_ylabel("imaginary")
+    if s_ax is not None:
+        s_ax.axvline(0, color="#999", lw=0.8)
+        s_ax.axhline(0, color="#999", lw=0.8)
+        s_ax.set_title("s-plane (rad/s)")
+        s_real = np.array([abs(v.real) for v in s_points if v.real != 0 and np.isfinite(v.real)])
+        if s_real.size and s_real.max() / s_real.min() > 100:
+            s_ax.set_xscale("symlog", linthresh=float(s_real.min()) / 2)
+            s_ax.set_xlabel("real (rad/s, symmetric log scale)")
+        else:
+            s_ax.set_xlabel("real (rad/s)")
+        s_ax.set_ylabel("imaginary (rad/s)")
+    for a in axes.values():
         a.grid(True, alpha=0.3)
-        handles, labels = a.get_legend_handles_labels()
+        handles, _ = a.get_legend_handles_labels()
         if handles:
             a.legend(fontsize=7, loc="upper left")
-        else:
-            a.text(0.5, 0.5, "no forms in this plane", transform=a.transAxes, ha="center", color="#777")
-    return _png(fig)
+        else:  # a form with no finite roots (a pure gain) still owns its plane
+            a.text(0.5, 0.5, "no finite poles or zeros", transform=a.transAxes, ha="center", color="#777")
+    return fig
+
+
+def bode_title(results) -> str:
+    """The Bode figure's title: it claims a hold and a delay only where a digital form has them."""
+    digital = results.reference.is_digital or any(r.controller.is_digital for r in results.realizations)
+    if digital:
+        return "Controller as the loop sees it (hold and delay included): source and new forms"
+    return "Controller frequency response (every form analog): source and new forms"
 
 
 def all_figures(results) -> dict[str, bytes]:

@@ -86,6 +86,18 @@ def _against_limit(value, limit, status: str) -> str:
     return f"{ratio:.0%} of the limit used" if ratio >= 0.005 else "< 1 % of the limit used"
 
 
+def failing_criteria(results) -> list[str]:
+    """One line per failed criterion (form, criterion, measured against limit), for the lines
+    printed beside a FAIL banner; empty when nothing failed."""
+    out = []
+    for j in results.verdict.failures:
+        unit = j.unit
+        limit = fixed(100 * j.limit, f"% {unit}") if unit in ("of step", "of peak") else fixed(j.limit, unit)
+        out.append(f"{j.realization}: {j.label} {_measured(j.value, unit)} > limit {limit}"
+                   + (f" ({j.note})" if j.note else ""))
+    return out
+
+
 def verdict_table(results) -> Table:
     rows = []
     for j in results.verdict.judgements:
@@ -230,14 +242,19 @@ def input_tables(results) -> list[Table]:
     if case.digital:
         t = case.digital
         delay = (f"{t.delay_samples:g} sample(s)" if t.delay_samples is not None else seconds(t.delay_s))
-        lim = t.output_limits or case.signals.output_range
+        from convert.compare.evaluate import firmware_output_limits
+
+        card_lim = results.source.extra.get("output_limits")
+        lim = firmware_output_limits(case, card_lim)
         text = (f"sample rate {', '.join(hz(f) for f in t.fs_hz)}; methods {', '.join(t.methods)}; "
                 f"computation delay {delay}; coefficients {t.word_format}")
         if t.prewarp_hz:
             text += f"; prewarp {hz(t.prewarp_hz)}"
         if t.derivative_filter:
             text += f"; derivative filter N = {t.derivative_filter:g}"
-        text += f"; output limits {lim[0]:g} … {lim[1]:g}" if lim else "; no output limits"
+        text += f"; output limits {lim[0]:.3g} … {lim[1]:.3g}" if lim else "; no output limits"
+        if lim and card_lim is not None and not t.output_limits:
+            text += " (from the card's clamps)"
         rows.append(["target: firmware", text])
     if case.circuit:
         t = case.circuit
@@ -246,6 +263,9 @@ def input_tables(results) -> list[Table]:
         rows.append(["target: op-amp circuit",
                      f"topology {t.topology}; resistors {t.resistors}, capacitors {t.capacitors}; tolerances {tol}; "
                      f"{gbw}; Monte Carlo {results.draws or t.draws} draws, seed {t.seed}"])
+    if results.source.extra.get("output_limits") is not None:
+        lo, hi = results.source.extra["output_limits"]
+        rows.append(["card clamps", f"output held to {lo:.3g} … {hi:.3g} V by the card's diodes (approximate knees)"])
     if case.plant:
         rows.append(["plant", f"{case.plant.expression}, dead time {seconds(case.plant.dead_time_s)} "
                               "(controller output → measurement)"])
