@@ -689,9 +689,11 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"cannot read the netlist {str(file_path)!r}: {exc}", key="file") from None
     net = read_netlist(text, source=file_path.name)
+    fs = min(case.digital.fs_hz) if case.digital else None
     card = analyze_card(net, input=src.data["input"], output=src.data["output"], setpoint=src.data["setpoint"],
-                        measurement=src.data["measurement"], with_sensitivities=False)
-    extra: dict = {"netlist_file": str(file_path), "output_limits": card.output_limits}
+                        measurement=src.data["measurement"], with_sensitivities=False,
+                        band_hz=tuple(case.criteria.band_hz), fs_hz=fs)
+    extra: dict = {"netlist_file": str(file_path), "output_limits": card.output_limits, "reduction": card.reduction}
     notes = list(card.notes)
     if card.output_limits is not None:
         lo, hi = card.output_limits
@@ -706,7 +708,8 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
         else:
             text += f"its setpoint path differs ({card.structure.description}) and the firmware must reproduce it"
         notes.append(text)
-    return SourceInfo(controller=card.controller.with_name("card"), pid=card.pid, notes=tuple(notes), extra=extra)
+    running = card.full_controller or card.controller  # the card as it runs, parasitics and all
+    return SourceInfo(controller=running.with_name("card"), pid=card.pid, notes=tuple(notes), extra=extra)
 
 
 def case_summary(case: Case) -> dict:

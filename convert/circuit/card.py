@@ -18,7 +18,7 @@ way the firmware must reproduce the same structure, not just C.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -69,6 +69,164 @@ class CardAnalysis:
     notes: tuple[str, ...]
     sensitivities: tuple = field(default=())
     output_limits: tuple[float, float] | None = None  # V(output) range the clamps hold (see clamps.output_limits)
+    reduction: CardReduction | None = None  # the feedback controller's, where the op-amps are not ideal
+    full_controller: Controller | None = None  # the controller before the reduction (None: no reduction)
+
+
+# ----------------------------------------------------------------------------- reduction
+#: A root more than this factor above the band's top (or below its bottom, for a leak) is far
+#: outside the band: one decade, so that leaving out a single real pole there costs at most
+#: 20·log10(√1.01) ≈ 0.043 dB and atan(0.1) ≈ 5.7° at the band's edge (common practice: a decade).
+DECADE = 10.0
+#: |gain| from which an E element is an op-amp's gain stage (idealized for the default band).
+_E_OPAMP_GAIN = 1e3
+
+
+@dataclass(frozen=True)
+class CardReduction:
+    """A card's controller separated from its op-amps' parasitics (issue 10 item 4).
+
+    Rule: with the band of interest (low, high) in Hz and, where a digital target exists, its
+    sample rate fs, the cut is ``min(DECADE · high, fs / 2)``. Every pole and zero above the cut
+    is the op-amps' (or another parasitic's) and is left out, the gain kept at low frequency
+    (each dropped factor (1 − s/r) counts as 1). Where the card has no integrator, a real pole
+    below ``low / DECADE`` is a leaking integrator: it is read as an integrator (moved to s = 0,
+    gain kept in the band) and the leak is stated. ``full`` is the card as computed;
+    ``reduced`` is the controller handed to firmware or a new circuit.
+    """
+
+    full: Controller
+    reduced: Controller
+    band_hz: tuple[float, float]
+    band_origin: str
+    fs_hz: float | None
+    cut_hz: float
+    floor_hz: float
+    dropped_poles: tuple[complex, ...]
+    dropped_zeros: tuple[complex, ...]
+    leaks: tuple[float, ...]  # poles (s, rad/s) read as integrators
+
+    @property
+    def changed(self) -> bool:
+        return bool(self.dropped_poles or self.dropped_zeros or self.leaks)
+
+    @property
+    def rule(self) -> str:
+        top = f"{DECADE:g} × the band's top ({self.band_hz[1]:.4g} Hz, {self.band_origin})"
+        cut = f"above {self.cut_hz:.4g} Hz ({top}"
+        cut += f", or fs/2 = {self.fs_hz / 2:.4g} Hz, whichever is lower)" if self.fs_hz else ")"
+        return (f"poles and zeros {cut} are the op-amps' or parasitic and are left out; a real pole below "
+                f"{self.floor_hz:.4g} Hz (the band's bottom / {DECADE:g}) on a card without an integrator is a "
+                "leaking integrator, read as the integrator")
+
+    def error(self, f_hz) -> tuple[float, float]:
+        """(max |gain error| dB, max |phase error| deg) of the reduced controller against the full
+        card over ``f_hz`` (Hz): the cost of leaving the parasitics out."""
+        from convert.compare.frequency import compare_controllers
+
+        e = compare_controllers(self.full, self.reduced, f_hz)
+        return e.max_gain_error_db, e.max_phase_error_deg
+
+    def notes(self) -> list[str]:
+        if not self.changed:
+            return [f"op-amp parasitics: nothing to leave out ({self.rule})"]
+        out = [f"the controller handed on is the card without its op-amp parasitics: {self.rule}"]
+        if self.dropped_poles or self.dropped_zeros:
+            roots = [f"pole at {_hz_of(p)}" for p in _one_of_pair(self.dropped_poles)]
+            roots += [f"zero at {_hz_of(z)}" for z in _one_of_pair(self.dropped_zeros)]
+            out.append("left out as the op-amps' (far above the band): " + ", ".join(roots))
+        for p in self.leaks:
+            out.append(f"the integrator leaks: pole at s = {p:.3g} rad/s ({abs(p) / (2 * np.pi):.3g} Hz; finite op-amp "
+                       f"gain); read as an integrator, so the DC gain {abs(self.full.dc_gain() or 0):.4g} becomes "
+                       "unbounded in the reduced controller")
+        return out
+
+
+def _hz_of(r: complex) -> str:
+    f = abs(r) / (2 * np.pi)
+    kind = "" if abs(r.imag) == 0 else f" (pair, ζ = {-r.real / abs(r):.2g})"
+    return f"{f:.4g} Hz{kind}"
+
+
+def _one_of_pair(roots) -> list[complex]:
+    return [r for r in roots if r.imag >= 0]
+
+
+def reduce_controller(full: Controller, band_hz: tuple[float, float], *, fs_hz: float | None = None,
+                      band_origin: str = "given") -> CardReduction:
+    """Separate ``full`` (an analog card controller) from its parasitics by the rule of
+    :class:`CardReduction` (band in Hz; ``fs_hz`` the target's sample rate, if any)."""
+    lo, hi = float(band_hz[0]), float(band_hz[1])
+    cut = DECADE * hi if fs_hz is None else min(DECADE * hi, fs_hz / 2)
+    floor = lo / DECADE
+    zeros, poles = full.zeros(), full.poles()
+    w_cut, w_floor = 2 * np.pi * cut, 2 * np.pi * floor
+    drop_z, drop_p = np.abs(zeros) > w_cut, np.abs(poles) > w_cut
+    k = full.gain * np.prod(-zeros[drop_z]).real / np.prod(-poles[drop_p]).real
+    kz, kp = zeros[~drop_z], poles[~drop_p]
+    leaks: list[float] = []
+    if full.integrator_count() == 0 and not np.any((np.abs(kz) < w_floor)):
+        slow = (np.abs(kp) < w_floor) & (kp.imag == 0) & (np.abs(kp) > 0)
+        leaks = sorted(float(p.real) for p in kp[slow])
+        kp = np.where(slow, 0.0, kp)
+    if not (drop_z.any() or drop_p.any() or leaks):
+        reduced = full
+    else:
+        reduced = Controller.from_zpk(kz, kp, float(k), name=full.name)
+    return CardReduction(full, reduced, (lo, hi), band_origin, fs_hz, cut, floor,
+                         tuple(complex(p) for p in poles[drop_p]), tuple(complex(z) for z in zeros[drop_z]),
+                         tuple(leaks))
+
+
+def ideal_opamp_netlist(netlist: Netlist) -> Netlist | None:
+    """A copy of ``netlist`` with every op-amp ideal: single-pole built-ins become nullors, and so
+    does an E element of |gain| ≥ 1000 with its output referred to ground (an op-amp's gain stage,
+    as in a subcircuit model). ``None`` when the card has no such element (already ideal)."""
+    from convert.circuit.netlist import GROUND
+
+    out, changed = [], False
+    for e in netlist.elements:
+        if e.kind == "OPAMP" and e.param("gbw") is not None:
+            e, changed = replace(e, params=()), True
+        elif e.kind == "E" and e.nodes[1] == GROUND and e.value is not None and abs(e.value) >= _E_OPAMP_GAIN:
+            e, changed = replace(e, kind="OPAMP", nodes=(e.nodes[2], e.nodes[3], e.nodes[0]), value=None,
+                                 params=()), True
+        out.append(e)
+    return Netlist(netlist.title, netlist.source, tuple(out), netlist.notes) if changed else None
+
+
+def default_band(netlist: Netlist, inputs, output: str) -> tuple[float, float] | None:
+    """The band of interest of a card with finite-gain op-amps when none is given: from its
+    lowest to its highest corner with ideal op-amps (Hz). ``None`` when the card has no finite-gain
+    op-amp, the ideal card cannot be solved, or it has no corner (a pure gain)."""
+    ideal = ideal_opamp_netlist(netlist)
+    if ideal is None:
+        return None
+    try:
+        res = transfer_functions(ideal, inputs, output)
+    except (InputError, ValueError, ArithmeticError):
+        return None
+    corners = []
+    for r in res.values():
+        cf = r.controller.corner_frequencies_hz()
+        corners += [f for f in cf["zeros"] + cf["poles"] if f > 0]
+    return (min(corners), max(corners)) if corners else None
+
+
+def _reduce_paths(netlist: Netlist, inputs, output: str, results: dict, band_hz, fs_hz):
+    """(reductions by path name, None) for a card whose op-amps are not ideal; ({}, None) for one
+    whose op-amps are; ({}, reason) when no band was given and none was found."""
+    if ideal_opamp_netlist(netlist) is None:
+        return {}, None  # ideal op-amps: the card is its controller
+    origin = "given"
+    if band_hz is None:
+        band_hz = default_band(netlist, inputs, output)
+        if band_hz is None:
+            return {}, ("the op-amps have finite gain or bandwidth, but no band of interest was found (the card has no "
+                        "corner with ideal op-amps): give the band to separate the controller from their poles")
+        origin = "the card's corners with ideal op-amps"
+    return {name: reduce_controller(r.controller, band_hz, fs_hz=fs_hz, band_origin=origin)
+            for name, r in results.items()}, None
 
 
 def _ratio(a: Controller, b: Controller, name: str) -> Controller:
@@ -171,10 +329,16 @@ def setpoint_structure(h_sp: Controller, h_pv: Controller) -> SetpointStructure:
 
 def analyze_card(netlist: Netlist, *, input: str = "VIN", output: str = "out",  # noqa: A002
                  setpoint: str | None = None, measurement: str | None = None,
-                 with_sensitivities: bool = True) -> CardAnalysis:
+                 with_sensitivities: bool = True, band_hz: tuple[float, float] | None = None,
+                 fs_hz: float | None = None) -> CardAnalysis:
     """Everything ``loopshift card`` reports about a netlist (names case-insensitive).
 
-    Give either ``input`` (one input) or both ``setpoint`` and ``measurement``.
+    Give either ``input`` (one input) or both ``setpoint`` and ``measurement``. ``band_hz``
+    (low, high) is the band of interest and ``fs_hz`` a digital target's sample rate: they set
+    where the op-amps' parasitic roots are cut off (:class:`CardReduction`). Without a band, a
+    card whose op-amps are not ideal is cut at a decade above its highest corner with ideal
+    op-amps (:func:`default_band`); a card with ideal op-amps is taken as it is.
+    ``controller`` is the reduced controller; ``full_controller`` the card as computed.
     """
     from convert.pid import pid_from_controller, why_not_pid
 
@@ -187,21 +351,33 @@ def analyze_card(netlist: Netlist, *, input: str = "VIN", output: str = "out",  
     notes: list[str] = list(netlist.notes)
     for r in results.values():
         notes += r.notes
+    reductions, why_not_reduced = _reduce_paths(netlist, inputs, output, results, band_hz, fs_hz)
+    if why_not_reduced:
+        notes.append(why_not_reduced)
+    paths = {n: (reductions[n].reduced if n in reductions else results[n].controller) for n in names}
     structure = None
+    reduction = reductions.get(names[-1])
     if setpoint is not None:
-        structure = setpoint_structure(results[names[0]].controller, results[names[1]].controller)
+        structure = setpoint_structure(paths[names[0]], paths[names[1]])
         controller = structure.feedback.with_name(netlist.title or netlist.source)
+        if reduction is not None:  # the feedback controller is −H_pv
+            reduction = replace(reduction, full=reduction.full.scaled(-1.0), reduced=reduction.reduced.scaled(-1.0))
         pid = structure.pid
         if pid is None:
             pid = pid_from_controller(controller)
         reason = None if pid is not None else why_not_pid(controller)
     else:
-        controller = results[names[0]].controller
+        controller = paths[names[0]]
         pid = pid_from_controller(controller)
         reason = None if pid is not None else why_not_pid(controller)
         if controller.gain < 0:
             notes.append("the card inverts (negative gain): fed with the measurement, it acts on the error "
                          "(setpoint − measurement) as −1 × this controller")
+    if reduction is not None:
+        notes += reduction.notes()
+        sp = reductions.get(names[0]) if setpoint is not None else None
+        if sp is not None and sp.changed:
+            notes += [f"setpoint path: {n}" for n in sp.notes()[1:]]
     leak_note = _leak_note(controller, pid)
     if leak_note:
         notes.append(leak_note)
@@ -212,12 +388,14 @@ def analyze_card(netlist: Netlist, *, input: str = "VIN", output: str = "out",  
     if clamp_lines:  # the per-clamp lines live in ``clamps``; the notes keep the summary and the instruction
         notes += [clamp_lines[0], clamp_lines[-1]]
     analysis = CardAnalysis(netlist, tuple(names), output, results, controller, pid, reason, structure,
-                            find_clamps(netlist), tuple(notes), output_limits=output_limits(netlist, output))
+                            find_clamps(netlist), tuple(notes), output_limits=output_limits(netlist, output),
+                            reduction=reduction,
+                            full_controller=None if reduction is None else reduction.full.with_name(controller.name))
     if not with_sensitivities:
         return analysis
-    from dataclasses import replace
-
-    return replace(analysis, sensitivities=tuple(card_sensitivities(netlist, inputs, output)))
+    band = None if reduction is None else reduction.band_hz
+    return replace(analysis, sensitivities=tuple(card_sensitivities(netlist, inputs, output, band_hz=band,
+                                                                    fs_hz=fs_hz)))
 
 
 def _leak_note(controller: Controller, pid) -> str | None:
@@ -244,26 +422,33 @@ def setpoint_quantities(st: SetpointStructure) -> dict[str, float]:
     return out
 
 
-def card_quantities(netlist: Netlist, inputs, output: str) -> dict[str, float]:
+def card_quantities(netlist: Netlist, inputs, output: str, *, band_hz: tuple[float, float] | None = None,
+                    fs_hz: float | None = None) -> dict[str, float]:
     """The quantities ``loopshift card`` tracks for a card: gains, corners and PID parameters of the
-    controller (the feedback controller of a two-input card, plus its setpoint quantities)."""
+    controller (the feedback controller of a two-input card, plus its setpoint quantities). With
+    ``band_hz`` the op-amps' parasitics are left out first (:func:`reduce_controller`)."""
     from convert.circuit.sensitivity import controller_quantities
     from convert.pid import pid_from_controller
 
     res = transfer_functions(netlist, inputs, output)
     keys = [netlist.element(n).name for n in inputs]
+    paths = {k: res[k].controller for k in keys}
+    if band_hz is not None:
+        paths = {k: reduce_controller(c, band_hz, fs_hz=fs_hz).reduced for k, c in paths.items()}
     if len(keys) == 2:
-        st = setpoint_structure(res[keys[0]].controller, res[keys[1]].controller)
+        st = setpoint_structure(paths[keys[0]], paths[keys[1]])
         out = controller_quantities(st.feedback, st.pid or pid_from_controller(st.feedback))
         out.update(setpoint_quantities(st))
         return out
-    c = res[keys[0]].controller
+    c = paths[keys[0]]
     return controller_quantities(c, pid_from_controller(c))
 
 
-def card_sensitivities(netlist: Netlist, inputs, output: str):
+def card_sensitivities(netlist: Netlist, inputs, output: str, *, band_hz: tuple[float, float] | None = None,
+                       fs_hz: float | None = None):
     """Sensitivity rows for a card (see :mod:`convert.circuit.sensitivity`); two ``inputs``
-    (setpoint, measurement) make it a two-input card."""
+    (setpoint, measurement) make it a two-input card; ``band_hz``/``fs_hz`` as in
+    :func:`card_quantities`."""
     from convert.circuit.sensitivity import sensitivities
 
-    return sensitivities(netlist, lambda nl: card_quantities(nl, inputs, output))
+    return sensitivities(netlist, lambda nl: card_quantities(nl, inputs, output, band_hz=band_hz, fs_hz=fs_hz))

@@ -60,6 +60,11 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     parser.add_argument("--part", action="extend", nargs="+", metavar="NAME=VALUE", default=None,
                         help="part values for --topology, e.g. --part R1=47k C1=1u (loopshift notation: "
                              "M mega, m milli)")
+    parser.add_argument("--band", nargs=2, metavar=("LOW", "HIGH"),
+                        help="band of interest: op-amp poles and zeros above 10x HIGH are left out of the controller "
+                             "(default: the card's corners with ideal op-amps), e.g. --band 10mHz 5Hz")
+    parser.add_argument("--fs", metavar="RATE",
+                        help="sample rate of the planned firmware: roots above fs/2 are left out too, e.g. --fs 200Hz")
     parser.add_argument("--no-sensitivity", action="store_true",
                         help="skip the sensitivity table (faster on large cards), e.g. --no-sensitivity")
     parser.add_argument("--json", action="store_true", help="print the results as JSON, e.g. --json")
@@ -124,8 +129,12 @@ def _from_netlist(args) -> dict:
 
         raise InputError("give both --setpoint and --measurement, or neither", where="command line",
                          key="--setpoint" if args.setpoint is None else "--measurement")
+    from convert.cli.common import band_from_args, positive_value
+
+    fs = None if args.fs is None else positive_value(args.fs, "hz", "--fs")
     analysis = analyze_card(netlist, input=args.input, output=args.output, setpoint=args.setpoint,
-                            measurement=args.measurement, with_sensitivities=not args.no_sensitivity)
+                            measurement=args.measurement, with_sensitivities=not args.no_sensitivity,
+                            band_hz=band_from_args(args.band), fs_hz=fs)
     data = _controller_block(analysis.controller, analysis.pid, analysis.not_pid_reason,
                              f"{netlist.source} — {netlist.title}" if netlist.title else netlist.source)
     data["card"] = {"file": args.netlist, "title": netlist.title, "inputs": list(analysis.inputs),
@@ -149,9 +158,27 @@ def _from_netlist(args) -> dict:
                        "conducts_above_v": c.positive_v, "conducts_below_v": -c.negative_v, "role": c.role,
                        "where": c.where, "text": c.describe()} for c in analysis.clamps]
     data["output_limits"] = None if analysis.output_limits is None else list(analysis.output_limits)
+    data["reduction"] = _reduction_block(analysis.reduction)
     data["notes"] = list(analysis.notes)
     data["sensitivities"] = None if args.no_sensitivity else _rows(analysis.sensitivities)
     return data
+
+
+def _reduction_block(red) -> dict | None:
+    """The separation of a card's controller from its op-amps' parasitics, as plain data."""
+    if red is None:
+        return None
+    from convert.compare.frequency import log_grid
+
+    gain_db, phase_deg = red.error(log_grid(*red.band_hz))
+    full = red.full
+    return {"rule": red.rule, "band_hz": list(red.band_hz), "band_origin": red.band_origin, "cut_hz": red.cut_hz,
+            "leak_floor_hz": red.floor_hz, "fs_hz": red.fs_hz, "changed": red.changed,
+            "full_card": {"expression": full.expression(12), "num": list(full.num), "den": list(full.den)},
+            "dropped_poles": [{"re": p.real, "im": p.imag} for p in red.dropped_poles],
+            "dropped_zeros": [{"re": z.real, "im": z.imag} for z in red.dropped_zeros],
+            "leaks_rad_s": list(red.leaks),
+            "error_over_band": {"max_gain_error_db": gain_db, "max_phase_error_deg": phase_deg}}
 
 
 def _parse_parts(words) -> dict[str, str]:
@@ -256,6 +283,15 @@ def _render(console, data: dict, d: int) -> None:
         if "setpoint_filter" in st:
             console.print(f"setpoint filter F(s) = H_sp / C = {st['setpoint_filter']['expression']}", markup=False,
                           highlight=False)
+    red = data.get("reduction")
+    if red and red["changed"]:
+        console.print()
+        console.print("Op-amp parasitics left out (the controller above is the reduced one)", style="bold")
+        console.print(f"full card C(s) = {red['full_card']['expression']}", markup=False, highlight=False)
+        e = red["error_over_band"]
+        console.print(f"error of leaving them out, {red['band_hz'][0]:.4g} Hz to {red['band_hz'][1]:.4g} Hz: "
+                      f"{e['max_gain_error_db']:.3g} dB, {e['max_phase_error_deg']:.3g}° (reduced against full card)",
+                      markup=False, highlight=False)
     paths = data.get("paths") or {}
     if len(paths) > 1:
         for name, p in paths.items():

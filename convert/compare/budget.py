@@ -34,6 +34,7 @@ ROWS: tuple[tuple[str, str], ...] = (
     ("tolerances", "Part tolerances"),
     ("derivative_filter", "Derivative filter"),
     ("opamp_gbw", "Op-amp gain-bandwidth"),
+    ("card_parasitics", "Op-amp / parasitic poles left out of the card"),
     ("total", "Total (everything on)"),
 )
 ROW_LABELS = dict(ROWS)

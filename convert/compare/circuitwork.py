@@ -27,7 +27,7 @@ def draw_parts(topology, rounded: dict, tolerances: dict, draws: int, seed: int)
 
 
 def circuit_realization(case, src: Controller, analog_src: Controller, band, src_margins, duration, src_step,
-                        src_dist, *, draws=None, tick=lambda text: None):
+                        src_dist, *, draws=None, tick=lambda text: None, case_reduction=None):
     from convert.circuit.design import DesignOptions, design_circuit
     from convert.circuit.opamp import OpAmpModel, gbw_response
     from convert.compare.evaluate import Realization, _fmt_hz, _simulate_pair
@@ -107,6 +107,9 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
     else:
         rows["opamp_gbw"] = bud.not_applicable("opamp_gbw", "ideal op-amp (set target.circuit.opamp_gbw to check it)")
         t_b, t_l = d_b, d_l
+    from convert.compare.evaluate import card_parasitics_row
+
+    rows.update(card_parasitics_row(case_reduction, band, spec, loop_f))
     rows["total"] = bud.error_row(
         "total", band, src_b, t_b, percentile=PERCENTILE,
         note="everything on: filter, rounding, tolerances" + (", op-amp GBW" if not model.ideal else "")

@@ -111,6 +111,9 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
     notes: list[str] = list(info.notes)
     analog_src = _analog_reference(case, src, notes)
     card_limits = info.extra.get("output_limits")  # a card's clamps, read from its netlist
+    reduction = info.extra.get("reduction")  # a card read with its op-amps' parasitics
+    if reduction is not None and reduction.changed:
+        analog_src = reduction.reduced  # the targets are built from the card without its parasitics
 
     plant = case.plant
     src_margins = duration = src_step = src_dist = None
@@ -134,7 +137,7 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
     advice: list[RateAdvice] = []
     if case.digital:
         realizations += _digital_realizations(case, src, analog_src, band, src_margins, duration, src_step,
-                                              src_dist, tick, card_limits=card_limits)
+                                              src_dist, tick, card_limits=card_limits, reduction=reduction)
         if True:
             advice = _rate_advice(case, analog_src, src_margins)
         tick("sample-rate advice")
@@ -142,7 +145,7 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
         from convert.compare.circuitwork import circuit_realization
 
         realizations.append(circuit_realization(case, src, analog_src, band, src_margins, duration, src_step,
-                                                src_dist, draws=draws, tick=tick))
+                                                src_dist, draws=draws, tick=tick, case_reduction=reduction))
 
     figures = {}
     for r in realizations:
@@ -235,8 +238,28 @@ def firmware_output_limits(case, card_limits=None):
     return _within(case.signals.output_range, card_limits)
 
 
+def card_parasitics_row(reduction, band, spec=None, loop_f=None) -> dict:
+    """The budget row of a card's op-amp / parasitic roots left out of the controller handed on
+    (reduced controller against the full card), keyed for :func:`convert.compare.budget.assemble`;
+    empty when the source is not a card read from a netlist."""
+    if reduction is None:
+        return {}
+    if not reduction.changed:
+        return {"card_parasitics": bud.not_applicable("card_parasitics", "nothing of the card lies beyond the cut "
+                                                                          f"({reduction.cut_hz:.4g} Hz)")}
+    full, red = reduction.full, reduction.reduced
+
+    def lr(c):
+        return None if loop_f is None else c.frequency_response(loop_f, via="zpk")
+
+    return {"card_parasitics": bud.error_row(
+        "card_parasitics", band, full.frequency_response(band, via="zpk"), red.frequency_response(band, via="zpk"),
+        note=f"the controller handed on against the full card, analog, alone: {reduction.rule}",
+        loop=spec, loop_reference=lr(full), loop_candidate=lr(red))}
+
+
 def _digital_realizations(case, src, analog_src, band, src_margins, duration, src_step, src_dist, tick, *,
-                          card_limits=None):
+                          card_limits=None, reduction=None):
     from convert.digital import discretize
 
     tgt = case.digital
@@ -300,9 +323,12 @@ def _digital_realizations(case, src, analog_src, band, src_margins, duration, sr
                     loop=spec, loop_reference=lr(analog_src), loop_candidate=lr(filtered))
             else:
                 rows["derivative_filter"] = bud.not_applicable("derivative_filter", "the source is proper; no filter added")
+            rows.update(card_parasitics_row(reduction, band, spec, loop_f))
             rows["total"] = bud.error_row(
                 "total", band, ref_band, response_seen_from_loop(cq, band, delay_s=delay, via="zpk"),
-                note="everything on: method, hold, delay, word format, filter; against the source as the loop sees it",
+                note="everything on: method, hold, delay, word format, filter"
+                     + (", card parasitics left out" if reduction is not None and reduction.changed else "")
+                     + "; against the source as the loop sees it",
                 loop=spec, loop_reference=lr(src, hold="zoh"), loop_candidate=lr(cq, delay, "zoh"))
             budget = bud.assemble(rows, bud.DIGITAL_ROWS, "digital")
             details = {"method": method, "fs_hz": fs, "delay_s": delay, "prewarp_hz": tgt.prewarp_hz,

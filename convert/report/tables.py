@@ -235,10 +235,15 @@ def input_tables(results) -> list[Table]:
             ["source controller" + (" C(z)" if ref.is_digital else " C(s)"),
              ref.expression(digits=5) + (f" at {hz(ref.fs_hz)}" if ref.is_digital else "")
              + " (error → output)"]]
+    red = results.source.extra.get("reduction")
+    if red is not None and red.changed:
+        rows.append(["controller handed on (card without its op-amp parasitics)",
+                     red.reduced.expression(digits=5) + f" (error → output); {red.rule}"])
     if results.source.pid is not None:
         text = _pid_text(results.source.pid)
         if text:
-            rows.append(["source as PID (ideal form)", text])
+            rows.append(["source as PID (ideal form)" if red is None or not red.changed
+                         else "controller handed on, as PID (ideal form)", text])
     if case.digital:
         t = case.digital
         delay = (f"{t.delay_samples:g} sample(s)" if t.delay_samples is not None else seconds(t.delay_s))
