@@ -629,6 +629,22 @@ def _read_criteria(ctx: _Ctx, data: dict) -> Criteria:
     return Criteria(band_hz=band, **values)
 
 
+def circuit_key(neutral: str | None) -> str:
+    """The case-file key of ``[target.circuit]`` that sets a neutral setting an error names
+    ("resistor maximum" -> ``target.circuit.resistor_range``); ``target.circuit`` otherwise."""
+    if not neutral:
+        return "target.circuit"
+    word = str(neutral)
+    if word.startswith("target."):
+        return word
+    for part in ("resistor", "capacitor"):
+        if word.startswith(part):
+            return f"target.circuit.{part}_range"
+    if word in SCHEMA["target"]["circuit"]:
+        return f"target.circuit.{word}"
+    return "target.circuit"
+
+
 # ----------------------------------------------------------------------------- source controller
 @dataclass(frozen=True)
 class SourceInfo:

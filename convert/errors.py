@@ -24,11 +24,26 @@ class LoopshiftError(Exception):
         The field or option involved, e.g. ``"ti"`` or ``"target.digital.fs"``.
     """
 
-    def __init__(self, message: str, *, where: str | None = None, key: str | None = None):
+    def __init__(self, message: str, *, where: str | None = None, key: str | None = None,
+                 settings: tuple[str, ...] = ()):
         self.message = message
         self.where = where
         self.key = key
+        #: neutral names of settings the message tells the user to change ("resistor maximum");
+        #: each front end says how its user sets them (:meth:`name_settings`)
+        self.settings = tuple(settings)
         super().__init__(self.one_line())
+
+    def name_settings(self, names) -> "LoopshiftError":
+        """Follow each neutral setting the message names with the front end's own name for it,
+        e.g. ``{"resistor maximum": "--r-max"}`` on the command line or
+        ``{"resistor maximum": "target.circuit.resistor_range"}`` in a case file."""
+        for neutral in self.settings:
+            if neutral in names:
+                self.message = self.message.replace(neutral, f"{neutral} ({names[neutral]})", 1)
+        self.settings = ()
+        self.args = (self.one_line(),)
+        return self
 
     def one_line(self) -> str:
         parts = []

@@ -45,7 +45,7 @@ repeats per minute (Ti = 1/reset), derivative time in s or min. See docs/pid.md.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any, Mapping, Sequence
 
 from convert.errors import InputError, UnrealizableError
@@ -176,6 +176,9 @@ class PidSettings:
     b: float = 1.0
     c: float = 1.0
     action: str = "reverse"
+    #: (Ti′, Td′) in seconds as given in the series form; :meth:`series` keeps that assignment of
+    #: the two zeros (the other one is the same transfer function) while it still fits this set.
+    given_series: tuple[float, float] | None = field(default=None, compare=False, repr=False)
 
     def __post_init__(self) -> None:
         for name in ("kp", "ki", "kd", "tf", "b", "c"):
@@ -281,10 +284,14 @@ class PidSettings:
         root = math.sqrt(disc)
         ti_series = (lin + root) / (2.0 * self.ki)
         td_series = 2.0 * quad / (lin + root)
+        if self.given_series is not None and td_series > 0:
+            g_ti, g_td = self.given_series
+            if math.isclose(g_ti, td_series, rel_tol=1e-6) and math.isclose(g_td, ti_series, rel_tol=1e-6):
+                ti_series, td_series = td_series, ti_series  # the assignment the user gave (Ti′ < Td′)
         return SeriesForm(self.ki * ti_series, ti_series, td_series, tf, self.b, self.c, self.action)
 
     def with_action(self, action: str) -> "PidSettings":
-        return PidSettings(self.kp, self.ki, self.kd, self.tf, self.b, self.c, action)
+        return PidSettings(self.kp, self.ki, self.kd, self.tf, self.b, self.c, action, given_series=self.given_series)
 
     def table(self) -> dict[str, Any]:
         """All forms as plain numbers (JSON-ready; ``None`` where a value does not exist).
@@ -350,7 +357,7 @@ class PidSettings:
                 "(N' ≥ 1); otherwise it is not a PID",
                 key="n",
             )
-        return cls(kp, ki, kd, tf, b, c, action)
+        return cls(kp, ki, kd, tf, b, c, action, given_series=None if ti is None else (ti, td))
 
 
 def _filter_time(td: float, n: float | None, tf_s: float | None) -> float:

@@ -173,7 +173,7 @@ def test_pid_read_back_is_within_the_reported_rounding_errors(case):
         series = None
     read = {"kp": pid.kp, "ki": pid.ki, "kd": pid.kd, "tf": pid.tf}
     if series is not None:
-        read.update({"k": series.kc, "ti_series": series.ti_s, "td_series": series.td_s, "ti": series.ti_s})
+        read.update({"kc'": series.kc, "ti'": series.ti_s, "td'": series.td_s, "ti": series.ti_s})
     if design.topology.name == "pi-rc-feedback":
         read["ti"] = pid.kp / pid.ki  # the PI's quantities are kp and ti
     quantities = errors["rounding"]["quantities"]

@@ -292,7 +292,7 @@ def expand_roundings(topo: Topology, nominal: Mapping[str, np.ndarray], options:
     """Every down/up rounding of ``names`` for every row of ``nominal`` -> flat candidate arrays."""
     names = rounded_names(topo, nominal) if names is None else names
     m = np.broadcast_shapes(*[np.shape(v) for v in nominal.values()])[0]
-    combos = np.array(list(itertools.product((0, 1), repeat=len(names))), dtype=int).reshape(-1, len(names))
+    combos = np.array(list(itertools.product((0, 1), repeat=len(names))), dtype=int).reshape(2 ** len(names), len(names))
     out = {}
     for k, v in nominal.items():
         out[k] = np.repeat(np.broadcast_to(np.asarray(v, dtype=float), (m,)), combos.shape[0])
@@ -386,12 +386,14 @@ def _out_of_range(topo: Topology, parts: Mapping[str, np.ndarray], options: Desi
     shown = format_value(value, kind) if math.isfinite(value) and value > 0 else repr(value)
     free = ", ".join(f"{k} = {format_value(float(np.broadcast_to(parts[k], (n,))[best]), topo.part(k).unit_kind)}"
                      for k in topo.free_parts)
-    flag = "--r-max" if part.kind == "R" and above else "--r-min" if part.kind == "R" else "--c-max" if above else "--c-min"
+    what = "resistor" if part.kind == "R" else "capacitor"
+    bound = f"{what} {'maximum' if above else 'minimum'}"
+    change = f"{'raise' if above else 'lower'} the {bound}"
+    other = "capacitor range" if part.kind == "R" else "resistor range"
     return UnrealizableError(
-        f"{topo.name}: {worst} ({part.role}) would be {shown}, {'above' if above else 'below'} the "
-        f"{'resistor' if part.kind == 'R' else 'capacitor'} {'maximum' if above else 'minimum'} {limit} even with the "
-        f"best choice ({free}); widen the range with {flag}, or widen the capacitor range (--c-min/--c-max), "
-        f"or rescale the target (its gain or time constants)", key=worst)
+        f"{topo.name}: {worst} ({part.role}) would be {shown}, {'above' if above else 'below'} the {bound} {limit} "
+        f"even with the best choice ({free}); {change}, or widen the {other}, or rescale the target (its gain or "
+        "time constants)", key=f"{what} range", settings=(bound, other))
 
 
 # ----------------------------------------------------------------------------------- design
@@ -403,6 +405,7 @@ def design_circuit(controller: Controller, options: DesignOptions | None = None,
     options = options or DesignOptions()
     pre_notes = []
     source = controller
+    given_settings = settings
     if settings is not None and settings.kd > 0 and settings.tf == 0 and settings.kp > 0:
         import dataclasses
 
@@ -423,20 +426,22 @@ def design_circuit(controller: Controller, options: DesignOptions | None = None,
         ref = target.frequency_response(f) * sign  # the error path Cy
     else:
         ref = target.frequency_response(f) * sign
-    best: list[Candidate] = []
-    best_nominal = None
-    best_params = None
+    alternatives, wanted = _preferred_first(alternatives, given_settings)
+    found = []
     last_error = None
     for params in alternatives:
         try:
             cands, diag = search_parts(topo, params, options, f, ref)
         except UnrealizableError as exc:
-            last_error = exc
+            last_error = last_error or exc  # the first alternative's reason (the one the user reads)
             continue
-        if not best or cands[0].score < best[0].score:
-            best, best_nominal, best_params = cands, diag["nominal"], params
-    if not best:
+        found.append((params, cands, diag))
+    if not found:
         raise last_error
+    best_params, best, diag = found[0]
+    best_nominal = diag["nominal"]
+    if wanted is not None:
+        notes += _assignment_notes(alternatives[0], found, wanted)
     rounded = dict(best[0].parts)
     realized = topo.controller_from_parts(rounded).scaled(sign).with_name(f"{topo.name} (rounded parts)")
     needs_inverter = topo.sign != sign
@@ -447,6 +452,54 @@ def design_circuit(controller: Controller, options: DesignOptions | None = None,
                          params=dict(best_params), nominal=best_nominal, rounded=rounded, realized=realized,
                          band_hz=(float(band[0]), float(band[1])), candidates=best, options=options, notes=notes,
                          filter_added=filtered, settings=settings)
+
+
+def _series_text(q: Mapping[str, float]) -> str:
+    k, ti, td = q["kc'"], q["ti'"], q["td'"]
+    return f"K′ = {k:.4g}, Ti′ = {ti:.4g} s, Td′ = {td:.4g} s"
+
+
+def _preferred_first(alternatives: list[dict], settings) -> tuple[list[dict], str | None]:
+    """Order the design alternatives of a series (interacting) PID — its two assignments of the
+    zeros to Ti′ and Td′, the same transfer function — so that the one the user reads comes
+    first: the assignment of the input's series settings (the one ``loopshift show`` prints, see
+    :meth:`convert.pid.PidSettings.series`), else Ti′ ≥ Td′ (what ``show`` prints for any other
+    input). Returns (alternatives, how the first was chosen) or (alternatives, None) when there is
+    no such choice."""
+    if len(alternatives) < 2 or "ti'" not in alternatives[0]:
+        return alternatives, None
+    want = None
+    if settings is not None:
+        from convert.errors import LoopshiftError
+
+        try:
+            want = settings.series().ti_s
+        except LoopshiftError:
+            want = None
+    if want:
+        ordered = sorted(alternatives, key=lambda a: abs(math.log(a["ti'"] / want)))
+        how = ("the series settings as given" if settings.given_series is not None
+               else "the series form `loopshift show` prints for these settings (Ti′ ≥ Td′)")
+    else:
+        ordered = sorted(alternatives, key=lambda a: -a["ti'"])
+        how = "the series form `loopshift show` prints (Ti′ ≥ Td′)"
+    return ordered, how
+
+
+def _assignment_notes(wanted_params: dict, found: list, how: str) -> list[str]:
+    """Say which assignment of Ti′/Td′ the parts realize, and when the other one gives better parts."""
+    chosen_params, chosen, _ = found[0]
+    if chosen_params is not wanted_params:
+        return [f"the series times as in {how} ({_series_text(wanted_params)}) need parts out of range; the other "
+                f"assignment of the same transfer function is built: {_series_text(chosen_params)}"]
+    notes = [f"series PID: the parts set {_series_text(chosen_params)}, as in {how}"]
+    for params, cands, _ in found[1:]:
+        if cands[0].score < chosen[0].score:
+            notes.append(f"the other assignment of the same transfer function ({_series_text(params)}) gives better "
+                         f"parts: {cands[0].max_gain_error_db:.3g} dB / {cands[0].max_phase_error_deg:.3g}° against "
+                         f"{chosen[0].max_gain_error_db:.3g} dB / {chosen[0].max_phase_error_deg:.3g}° after rounding; "
+                         "give the settings in that assignment to build it")
+    return notes
 
 
 # ----------------------------------------------------------------------------------- error sources

@@ -461,8 +461,9 @@ def pid_parameters_from_coefficients(num: list, den: list) -> dict[str, np.ndarr
 
 
 def _pid_fit_numbers(shape: TargetShape) -> dict[str, float]:
-    """kp, ki, kd, tf of a target with one integrator and one real pole (any zeros)."""
-    c = shape.controller
+    """kp, ki, kd, tf of a target with one integrator and one real pole (any zeros), in the
+    positive form (a direct-acting target's sign is taken out: the design adds the inverter)."""
+    c = shape.controller.scaled(shape.sign)
     num = np.array(c.num)
     den = np.array(c.den)
     if shape.integrators != 1 or len(shape.poles) != 1 or len(den) != 3 or len(num) > 3:
@@ -536,7 +537,7 @@ def _fit_pid_single(topo, shape, settings):
     for a, b in ((0, 1), (1, 0)):
         ti, td = 1.0 / shape.zeros[a], 1.0 / shape.zeros[b]
         if td > tf * (1 + 1e-9):
-            out.append({"k": kint * ti, "ti_series": ti, "td_series": td, "tf": tf})
+            out.append({"kc'": kint * ti, "ti'": ti, "td'": td, "tf": tf})
     if not out:
         raise UnrealizableError(f"{topo.name} needs one zero below the filter pole ({1 / tf / 2 / math.pi:.4g} Hz)",
                                 key="topology")
@@ -560,7 +561,11 @@ def _fit_two_input(topo, shape, settings):
                                 key="topology")
     if settings.ki <= 0:
         raise UnrealizableError(f"{topo.name} needs integral action (ki > 0)", key="topology")
-    if settings.kd > 0 and settings.tf <= 0:
+    if settings.kd <= 0:
+        raise UnrealizableError(f"{topo.name} builds its D amplifier from kd and tf; this {settings.kind} has no "
+                                "derivative action (kd = 0), which the catalog has no weighted stage for: give kd and "
+                                "tf, or b = 1 for a single-input PI", key="topology")
+    if settings.tf <= 0:
         raise UnrealizableError(f"{topo.name} needs a derivative filter (tf > 0 or n=...) with kd > 0",
                                 key="topology")
     if settings.kp <= 0:
@@ -716,27 +721,30 @@ def _catalog() -> dict[str, Topology]:
 
     def pid1_solve(q, f):
         c1 = f["C1"]
-        r1 = (q["td_series"] - q["tf"]) / c1
-        r2 = q["k"] * r1
-        return {"C1": c1, "R1": r1, "R3": q["tf"] / c1, "R2": r2, "C2": q["ti_series"] / r2}
+        r1 = (q["td'"] - q["tf"]) / c1
+        r2 = q["kc'"] * r1
+        return {"C1": c1, "R1": r1, "R3": q["tf"] / c1, "R2": r2, "C2": q["ti'"] / r2}
 
     T.append(Topology(
         name="pid-single-amp",
         description="PID on one amplifier (series/interacting form): input R1 parallel (R3 + C1), feedback R2 + C2",
-        parts=(Part("R1", "R", "input resistor (k = R2/R1)"), Part("C1", "C", "derivative capacitor (td = (R1+R3)·C1)"),
-               Part("R3", "R", "derivative-limiting resistor (tf = R3·C1)"), Part("R2", "R", "feedback resistor"),
-               Part("C2", "C", "integral capacitor (ti = R2·C2)")),
+        parts=(Part("R1", "R", "input resistor (K′ = R2/R1, series gain)"),
+               Part("C1", "C", "derivative capacitor (Td′ = (R1+R3)·C1, series derivative time)"),
+               Part("R3", "R", "derivative-limiting resistor (Tf = R3·C1 = Td′/N′)"),
+               Part("R2", "R", "feedback resistor (K′ = R2/R1)"),
+               Part("C2", "C", "integral capacitor (Ti′ = R2·C2, series integral time)")),
         stages=(Stage("U1", "out", Series(R("R2"), C("C2")), (("in", Parallel(R("R1"), Series(R("R3"), C("C1")))),),
                       role="PID"),),
         inverting=True,
-        represents="k·(1 + 1/(ti'·s))·(1 + td'·s)/(1 + tf·s): PID with real zeros and derivative filter (td' > tf)",
+        represents="K′·(1 + 1/(Ti′·s))·(1 + Td′·s)/(1 + Tf·s): series PID with real zeros and derivative filter "
+                   "(Td′ > Tf); quantities kc', ti', td', tf",
         free_parts=("C1",),
         equations=("F = (1 + R2·C2·s)(1 + (R1+R3)·C1·s) / (R1·C2·s·(1 + R3·C1·s))",
-                   "k = R2/R1, ti' = R2·C2, td' = (R1+R3)·C1, tf = R3·C1 (series-form times)",
-                   "R1 = (td' − tf)/C1", "R3 = tf/C1", "R2 = k·R1", "C2 = ti'/R2"),
+                   "kc' = R2/R1, ti' = R2·C2, td' = (R1+R3)·C1, tf = R3·C1 (series form: K′, Ti′, Td′)",
+                   "R1 = (td' − tf)/C1", "R3 = tf/C1", "R2 = kc'·R1", "C2 = ti'/R2"),
         _coefficients=pid1_coef,
-        _parameters=lambda p: {**{"k": p["R2"] / p["R1"], "ti_series": p["R2"] * p["C2"],
-                                  "td_series": (p["R1"] + p["R3"]) * p["C1"]},
+        _parameters=lambda p: {**{"kc'": p["R2"] / p["R1"], "ti'": p["R2"] * p["C2"],
+                                  "td'": (p["R1"] + p["R3"]) * p["C1"]},
                                **pid_parameters_from_coefficients(*pid1_coef(p))},
         _fit=_fit_pid_single,
         _solve=pid1_solve,

@@ -63,7 +63,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     parser.add_argument("--band", nargs=2, metavar=("LOW", "HIGH"),
                         help="band of interest: op-amp poles and zeros above 10x HIGH are left out of the controller "
                              "(default: the card's corners with ideal op-amps), e.g. --band 10mHz 5Hz")
-    parser.add_argument("--fs", metavar="RATE",
+    parser.add_argument("--fs", metavar="HZ",
                         help="sample rate of the planned firmware: roots above fs/2 are left out too, e.g. --fs 200Hz")
     parser.add_argument("--no-sensitivity", action="store_true",
                         help="skip the sensitivity table (faster on large cards), e.g. --no-sensitivity")

@@ -173,7 +173,8 @@ def run(args, console) -> int:
     controller, settings = controller_from_args(args, fs_hz=fs)
     band = band_from_args(args.band)
     renames = {"resistor range": "--r-min/--r-max", "capacitor range": "--c-min/--c-max", "topology": "--topology",
-               "method": "--inverse-method"}
+               "method": "--inverse-method", "resistor maximum": "--r-max", "resistor minimum": "--r-min",
+               "capacitor maximum": "--c-max", "capacitor minimum": "--c-min"}
     with at(None, rename=renames):
         options = DesignOptions(topology=args.topology, resistors=args.resistors, capacitors=args.capacitors,
                                 r_min=positive_value(args.r_min, "ohm", "--r-min"),

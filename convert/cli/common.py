@@ -109,6 +109,7 @@ class at:  # noqa: N801 - used as a context manager: ``with at("--part"): ...``
         from convert.errors import LoopshiftError
 
         if isinstance(exc, LoopshiftError):
+            exc.name_settings(self.rename)
             if exc.key in self.rename:
                 exc.key = self.rename[exc.key]
             elif exc.where is None and self.where and exc.key != self.where:

@@ -40,8 +40,11 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
     try:
         design = design_circuit(analog_src, options, settings=settings)
     except LoopshiftError as exc:
-        key = f"target.circuit.{exc.key}" if exc.key and not str(exc.key).startswith("target") else "target.circuit"
-        raise type(exc)(exc.message, where=case.where("target.circuit"), key=key) from None
+        from convert.case import circuit_key
+
+        exc.name_settings({k: circuit_key(k) for k in exc.settings})
+        key = circuit_key(exc.key)
+        raise type(exc)(exc.message, where=case.where(key), key=key) from None
     tick("circuit design")
     topo = design.topology
     sign = design.sign
