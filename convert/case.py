@@ -712,8 +712,9 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
     extra: dict = {"netlist_file": str(file_path), "output_limits": card.output_limits, "reduction": card.reduction}
     notes = list(card.notes)
     if card.output_limits is not None:
-        lo, hi = card.output_limits
-        notes.append(f"the card's clamps hold its output to {lo:.3g} … {hi:.3g} V: the source loop is simulated "
+        from convert.circuit.clamps import limits_text
+
+        notes.append(f"the card's clamps hold its output to {limits_text(card.output_limits)}: the source loop is simulated "
                      "with these limits, and they are the firmware's output limits unless "
                      "target.digital.output_limits says otherwise")
     if card.structure is not None:

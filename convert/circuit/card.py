@@ -127,6 +127,25 @@ class CardReduction:
         e = compare_controllers(self.full, self.reduced, f_hz)
         return e.max_gain_error_db, e.max_phase_error_deg
 
+    def as_dict(self) -> dict:
+        """Plain data (JSON-ready): the rule and its numbers, the full card and the reduced
+        controller (num/den descending s), the roots left out ({re, im}), the leaks (rad/s) and
+        the error of leaving them out over the band (a log grid of 100 points per decade)."""
+        from convert.compare.frequency import log_grid
+
+        gain_db, phase_deg = self.error(log_grid(*self.band_hz))
+
+        def tf(c):
+            return {"expression": c.expression(12), "num": list(c.num), "den": list(c.den)}
+
+        return {"rule": self.rule, "band_hz": list(self.band_hz), "band_origin": self.band_origin,
+                "cut_hz": self.cut_hz, "leak_floor_hz": self.floor_hz, "fs_hz": self.fs_hz, "changed": self.changed,
+                "full_card": tf(self.full), "reduced": tf(self.reduced),
+                "dropped_poles": [{"re": p.real, "im": p.imag} for p in self.dropped_poles],
+                "dropped_zeros": [{"re": z.real, "im": z.imag} for z in self.dropped_zeros],
+                "leaks_rad_s": list(self.leaks),
+                "error_over_band": {"max_gain_error_db": gain_db, "max_phase_error_deg": phase_deg}}
+
     def notes(self) -> list[str]:
         if not self.changed:
             return [f"op-amp parasitics: nothing to leave out ({self.rule})"]

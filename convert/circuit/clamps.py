@@ -170,3 +170,14 @@ def output_limits(netlist: Netlist, output: str) -> tuple[float, float] | None:
     if math.isinf(lo) and math.isinf(hi):
         return None
     return lo, hi
+
+
+def limits_text(limits: tuple[float, float]) -> str:
+    """``(low, high)`` volts as text: "−0.65 … 5.35 V", or one side ("at least −0.65 V") when the
+    other is unbounded."""
+    lo, hi = limits
+    if math.isinf(hi):
+        return f"at least {lo:.3g} V (no upper clamp)"
+    if math.isinf(lo):
+        return f"at most {hi:.3g} V (no lower clamp)"
+    return f"{lo:.3g} … {hi:.3g} V"

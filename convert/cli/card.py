@@ -158,27 +158,10 @@ def _from_netlist(args) -> dict:
                        "conducts_above_v": c.positive_v, "conducts_below_v": -c.negative_v, "role": c.role,
                        "where": c.where, "text": c.describe()} for c in analysis.clamps]
     data["output_limits"] = None if analysis.output_limits is None else list(analysis.output_limits)
-    data["reduction"] = _reduction_block(analysis.reduction)
+    data["reduction"] = None if analysis.reduction is None else analysis.reduction.as_dict()
     data["notes"] = list(analysis.notes)
     data["sensitivities"] = None if args.no_sensitivity else _rows(analysis.sensitivities)
     return data
-
-
-def _reduction_block(red) -> dict | None:
-    """The separation of a card's controller from its op-amps' parasitics, as plain data."""
-    if red is None:
-        return None
-    from convert.compare.frequency import log_grid
-
-    gain_db, phase_deg = red.error(log_grid(*red.band_hz))
-    full = red.full
-    return {"rule": red.rule, "band_hz": list(red.band_hz), "band_origin": red.band_origin, "cut_hz": red.cut_hz,
-            "leak_floor_hz": red.floor_hz, "fs_hz": red.fs_hz, "changed": red.changed,
-            "full_card": {"expression": full.expression(12), "num": list(full.num), "den": list(full.den)},
-            "dropped_poles": [{"re": p.real, "im": p.imag} for p in red.dropped_poles],
-            "dropped_zeros": [{"re": z.real, "im": z.imag} for z in red.dropped_zeros],
-            "leaks_rad_s": list(red.leaks),
-            "error_over_band": {"max_gain_error_db": gain_db, "max_phase_error_deg": phase_deg}}
 
 
 def _parse_parts(words) -> dict[str, str]:
@@ -302,7 +285,9 @@ def _render(console, data: dict, d: int) -> None:
         console.print(_bullets([c["text"] for c in data["clamps"]], mark=""))
         lim = data.get("output_limits")
         if lim:
-            console.print(f"output limits for the firmware: {lim[0]:.3g} … {lim[1]:.3g} V (what the clamps hold "
+            from convert.circuit.clamps import limits_text
+
+            console.print(f"output limits for the firmware: {limits_text(tuple(lim))} (what the clamps hold "
                           f"V({data['card']['output']}) to)", markup=False, highlight=False)
     if data.get("notes"):
         console.print()

@@ -46,7 +46,10 @@ def results_dict(results) -> dict:
         "case": case_summary(results.case),
         "source": {"num": list(ref.num), "den": list(ref.den), "domain": ref.domain,
                    "sample_period_s": ref.sample_period_s, "expression": ref.expression(),
-                   "notes": list(results.source.notes)},
+                   "notes": list(results.source.notes),
+                   "card_reduction": (None if results.source.extra.get("reduction") is None
+                                      else results.source.extra["reduction"].as_dict()),
+                   "card_output_limits": results.source.extra.get("output_limits")},
         "loop_check": {
             "plant": None if results.case.plant is None else {"model": results.case.plant.expression,
                                                               "dead_time_s": results.case.plant.dead_time_s},

@@ -269,8 +269,10 @@ def input_tables(results) -> list[Table]:
                      f"topology {t.topology}; resistors {t.resistors}, capacitors {t.capacitors}; tolerances {tol}; "
                      f"{gbw}; Monte Carlo {results.draws or t.draws} draws, seed {t.seed}"])
     if results.source.extra.get("output_limits") is not None:
-        lo, hi = results.source.extra["output_limits"]
-        rows.append(["card clamps", f"output held to {lo:.3g} … {hi:.3g} V by the card's diodes (approximate knees)"])
+        from convert.circuit.clamps import limits_text
+
+        rows.append(["card clamps", f"output held to {limits_text(results.source.extra['output_limits'])} by the card's "
+                                    "diodes (approximate knees)"])
     if case.plant:
         rows.append(["plant", f"{case.plant.expression}, dead time {seconds(case.plant.dead_time_s)} "
                               "(controller output → measurement)"])
