@@ -190,3 +190,23 @@ def test_card_command_shows_the_reduction(run_cli, tmp_path):
     assert j["reduction"]["error_over_band"]["max_phase_error_deg"] < 0.05
     bad = run_cli("card", str(path), "--fs", "-3Hz")
     assert bad.code == 2 and "--fs" in bad.err
+
+
+def test_a_designed_circuit_on_real_opamps_reads_back_as_its_pid():
+    """`loopshift circuit --opamp-gbw 1MHz` writes its op-amps as a transconductance single-pole
+    model (G into R ∥ C, then a buffer). Reading that netlist back with the card reader gives the
+    designed PID (the rounded design with ideal op-amps) within 0.01 dB and 0.05° over its band,
+    not the 4-pole card; the op-amp poles are named as left out."""
+    from convert.circuit.design import design_circuit
+    from convert.circuit.netlist_out import design_netlist
+    from convert.circuit.opamp import OpAmpModel
+    from convert.compare.frequency import compare_controllers, log_grid
+    from convert.pid import pid_from_words
+
+    st = pid_from_words(["kc=2", "ti=5s", "td=0.5s", "n=10"])
+    design = design_circuit(st.to_controller(), settings=st)
+    a = _analyze(design_netlist(design, opamp=OpAmpModel(1e6)))
+    assert a.reduction is not None and a.reduction.changed and a.controller.order == 2
+    assert a.pid is not None and a.pid.kp == pytest.approx(design.realized_parameters()["kp"], rel=1e-3)
+    e = compare_controllers(design.realized, a.controller, log_grid(*a.reduction.band_hz))
+    assert e.max_gain_error_db < 0.01 and e.max_phase_error_deg < 0.05

@@ -198,18 +198,31 @@ def reduce_controller(full: Controller, band_hz: tuple[float, float], *, fs_hz: 
 
 
 def ideal_opamp_netlist(netlist: Netlist) -> Netlist | None:
-    """A copy of ``netlist`` with every op-amp ideal: single-pole built-ins become nullors, and so
-    does an E element of |gain| ≥ 1000 with its output referred to ground (an op-amp's gain stage,
-    as in a subcircuit model). ``None`` when the card has no such element (already ideal)."""
+    """A copy of ``netlist`` with every op-amp ideal (a nullor), or ``None`` when the card has no
+    op-amp of finite gain. Recognized as an op-amp's gain stage (as in subcircuit models): a
+    single-pole built-in; an E element of |gain| ≥ 1000 with its output referred to ground; a G
+    element from ground into a node with a resistor R to ground and |gm|·R ≥ 1000 (the
+    transconductance single-pole model ``loopshift circuit --opamp-gbw`` writes)."""
     from convert.circuit.netlist import GROUND
+
+    to_ground: dict[str, list[float]] = {}
+    for e in netlist.of_kind("R"):
+        if GROUND in e.nodes and e.nodes[0] != e.nodes[1]:
+            to_ground.setdefault(e.nodes[1] if e.nodes[0] == GROUND else e.nodes[0], []).append(e.value)
+
+    def nullor(e, out):
+        return replace(e, kind="OPAMP", nodes=(e.nodes[2], e.nodes[3], out), value=None, params=())
 
     out, changed = [], False
     for e in netlist.elements:
         if e.kind == "OPAMP" and e.param("gbw") is not None:
             e, changed = replace(e, params=()), True
         elif e.kind == "E" and e.nodes[1] == GROUND and e.value is not None and abs(e.value) >= _E_OPAMP_GAIN:
-            e, changed = replace(e, kind="OPAMP", nodes=(e.nodes[2], e.nodes[3], e.nodes[0]), value=None,
-                                 params=()), True
+            e, changed = nullor(e, e.nodes[0]), True
+        elif e.kind == "G" and GROUND in e.nodes[:2] and e.value is not None:
+            node = e.nodes[1] if e.nodes[0] == GROUND else e.nodes[0]
+            if node != GROUND and any(abs(e.value) * r >= _E_OPAMP_GAIN for r in to_ground.get(node, [])):
+                e, changed = nullor(e, node), True
         out.append(e)
     return Netlist(netlist.title, netlist.source, tuple(out), netlist.notes) if changed else None
 
