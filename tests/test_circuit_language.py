@@ -153,3 +153,29 @@ def test_out_of_range_in_a_case_names_the_case_key(run_cli, tmp_path):
     assert "--r-" not in r.err and "--c-" not in r.err
     cli = run_cli("circuit", "--pid", "kc=50", "ti=100s", "--topology", "pi-rc-feedback", "--r-max", "100k")
     assert cli.code == 2 and "resistor maximum (--r-max)" in cli.err and "target.circuit" not in cli.err
+
+
+def test_case_file_series_pid_keeps_the_assignment_given(tmp_path):
+    """A case whose source is a series PID with Ti′ < Td′ (kc = 0.5, ti = 0.7 s, td = 4 s) gets a
+    circuit whose parts set those series times, and its notes say so."""
+    from convert.case import load_case
+    from convert.compare.evaluate import evaluate_case
+
+    path = tmp_path / "series.toml"
+    path.write_text("""
+[source.pid]
+kc = 0.5
+ti = "0.7 s"
+td = "4 s"
+tf = "0.02 s"
+form = "series"
+[target.circuit]
+topology = "pid-single-amp"
+draws = 50
+[criteria]
+band = ["10 mHz", "5 Hz"]
+max_gain_error_db = 3
+""")
+    res = evaluate_case(load_case(path))
+    (r,) = res.realizations
+    assert any("Ti′ = 0.7 s, Td′ = 4 s, as in the series settings as given" in n for n in r.details["notes"])

@@ -399,9 +399,12 @@ def _out_of_range(topo: Topology, parts: Mapping[str, np.ndarray], options: Desi
 # ----------------------------------------------------------------------------------- design
 
 
-def design_circuit(controller: Controller, options: DesignOptions | None = None, *, settings=None) -> CircuitDesign:
+def design_circuit(controller: Controller, options: DesignOptions | None = None, *, settings=None,
+                   series_times: tuple[float, float] | None = None) -> CircuitDesign:
     """Design the circuit for ``controller`` (see the module docstring). ``settings``: the
-    :class:`convert.pid.PidSettings` it came from, if any (needed for setpoint weights)."""
+    :class:`convert.pid.PidSettings` it came from, if any (needed for setpoint weights).
+    ``series_times``: (Ti′, Td′) in seconds as the user gave a series PID, when ``settings`` is
+    not passed (a case file's source); the parts then set that assignment of the zeros."""
     options = options or DesignOptions()
     pre_notes = []
     source = controller
@@ -426,7 +429,7 @@ def design_circuit(controller: Controller, options: DesignOptions | None = None,
         ref = target.frequency_response(f) * sign  # the error path Cy
     else:
         ref = target.frequency_response(f) * sign
-    alternatives, wanted = _preferred_first(alternatives, given_settings)
+    alternatives, wanted = _preferred_first(alternatives, given_settings, series_times)
     found = []
     last_error = None
     for params in alternatives:
@@ -459,7 +462,7 @@ def _series_text(q: Mapping[str, float]) -> str:
     return f"K′ = {k:.4g}, Ti′ = {ti:.4g} s, Td′ = {td:.4g} s"
 
 
-def _preferred_first(alternatives: list[dict], settings) -> tuple[list[dict], str | None]:
+def _preferred_first(alternatives: list[dict], settings, series_times=None) -> tuple[list[dict], str | None]:
     """Order the design alternatives of a series (interacting) PID — its two assignments of the
     zeros to Ti′ and Td′, the same transfer function — so that the one the user reads comes
     first: the assignment of the input's series settings (the one ``loopshift show`` prints, see
@@ -476,9 +479,12 @@ def _preferred_first(alternatives: list[dict], settings) -> tuple[list[dict], st
             want = settings.series().ti_s
         except LoopshiftError:
             want = None
+    given = settings is not None and settings.given_series is not None
+    if want is None and series_times is not None:
+        want, given = series_times[0], True
     if want:
         ordered = sorted(alternatives, key=lambda a: abs(math.log(a["ti'"] / want)))
-        how = ("the series settings as given" if settings.given_series is not None
+        how = ("the series settings as given" if given
                else "the series form `loopshift show` prints for these settings (Ti′ ≥ Td′)")
     else:
         ordered = sorted(alternatives, key=lambda a: -a["ti'"])

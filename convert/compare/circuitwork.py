@@ -27,7 +27,7 @@ def draw_parts(topology, rounded: dict, tolerances: dict, draws: int, seed: int)
 
 
 def circuit_realization(case, src: Controller, analog_src: Controller, band, src_margins, duration, src_step,
-                        src_dist, *, draws=None, tick=lambda text: None, case_reduction=None):
+                        src_dist, *, draws=None, tick=lambda text: None, case_reduction=None, source_pid=None):
     from convert.circuit.design import DesignOptions, design_circuit
     from convert.circuit.opamp import OpAmpModel, gbw_response
     from convert.compare.evaluate import Realization, _fmt_hz, _simulate_pair
@@ -38,7 +38,8 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
                             c_max=tgt.capacitor_range[1], band_hz=tuple(case.criteria.band_hz))
     settings = None
     try:
-        design = design_circuit(analog_src, options, settings=settings)
+        design = design_circuit(analog_src, options, settings=settings,
+                                series_times=getattr(source_pid, "given_series", None))
     except LoopshiftError as exc:
         from convert.case import circuit_key
 

@@ -145,7 +145,8 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
         from convert.compare.circuitwork import circuit_realization
 
         realizations.append(circuit_realization(case, src, analog_src, band, src_margins, duration, src_step,
-                                                src_dist, draws=draws, tick=tick, case_reduction=reduction))
+                                                src_dist, draws=draws, tick=tick, case_reduction=reduction,
+                                                source_pid=info.pid))
 
     figures = {}
     for r in realizations:
