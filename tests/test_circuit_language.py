@@ -179,3 +179,14 @@ max_gain_error_db = 3
     res = evaluate_case(load_case(path))
     (r,) = res.realizations
     assert any("Ti′ = 0.7 s, Td′ = 4 s, as in the series settings as given" in n for n in r.details["notes"])
+
+
+def test_direct_acting_pid_with_complex_zeros_on_auto(run_cli):
+    """Before: `circuit --pid kc=2 ti=1s td=1s n=10 action=direct` (Ti < 4·Td: complex zeros, only
+    pid-parallel realizes them) said 'no catalog topology realizes this target exactly'. Now
+    pid-parallel with the inverter after it."""
+    r = run_cli("circuit", "--pid", "kc=2", "ti=1s", "td=1s", "n=10", "action=direct", "--draws", "0", "--json")
+    assert r.code == 0, r.err
+    data = json.loads(r.out)
+    assert data["topology"] == "pid-parallel" and data["needs_inverter"] is True
+    assert data["num"][0] < 0  # direct action: the built controller carries the minus sign
