@@ -94,6 +94,7 @@ def test_card_clamps_become_the_firmware_output_limits(tmp_path):
     assert "from the card's clamps" in rows["target: firmware"]
     assert "-0.65 … 5.35" in rows["card clamps"]
     (r,) = res.realizations
+    assert r.details["output_limits"] == (lo, hi)  # what the firmware is given (results.json, code)
     u = np.concatenate([r.step.u, r.disturbance.u])
     assert u.min() >= lo - 1e-9 and u.max() <= hi + 1e-9
     assert u.min() == pytest.approx(lo) or u.max() == pytest.approx(hi)  # the limit was reached

@@ -335,7 +335,8 @@ def _digital_realizations(case, src, analog_src, band, src_margins, duration, sr
             details = {"method": method, "fs_hz": fs, "delay_s": delay, "prewarp_hz": tgt.prewarp_hz,
                        "b": list(cq.b), "a": list(cq.a), "word_format": tgt.word_format,
                        "difference_equation": getattr(real, "difference_equation", ""),
-                       "notes": list(getattr(real, "notes", ()))}
+                       "notes": list(getattr(real, "notes", ())),
+                       "output_limits": firmware_output_limits(case, card_limits)}
             r = Realization(name=name, form="digital", controller=cq, details=details, budget=budget,
                             seen=lambda f, c=cq, d=delay: response_seen_from_loop(c, f, delay_s=d, via="zpk"),
                             warnings=warnings)
