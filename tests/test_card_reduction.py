@@ -210,3 +210,21 @@ def test_a_designed_circuit_on_real_opamps_reads_back_as_its_pid():
     assert a.pid is not None and a.pid.kp == pytest.approx(design.realized_parameters()["kp"], rel=1e-3)
     e = compare_controllers(design.realized, a.controller, log_grid(*a.reduction.band_hz))
     assert e.max_gain_error_db < 0.01 and e.max_phase_error_deg < 0.05
+
+
+def test_single_corner_card_gets_a_decade_band(run_cli, tmp_path):
+    """A PI card (one corner, 0.34 Hz) on single-pole op-amps: the default band is the decade
+    centred on the corner, and `card --json` reports the reduction (it refused before the band
+    was widened: 'a band needs 0 < low < high')."""
+    text = (HERE / "pi_card.cir").read_text().replace("X1 0 n1 out OPAMP", "X1 0 n1 out OPAMP1P gbw=1meg a0=100k")
+    path = tmp_path / "pi.cir"
+    path.write_text(text)
+    r = run_cli("card", str(path), "--no-sensitivity", "--json")
+    assert r.code == 0, r.err
+    import json
+
+    red = json.loads(r.out)["reduction"]
+    lo, hi = red["band_hz"]
+    fz = 1 / (2 * np.pi * 470e3 * 1e-6)  # the PI zero, 1/(R2·C1)
+    assert hi / lo == pytest.approx(10) and np.sqrt(lo * hi) == pytest.approx(fz, rel=1e-6)
+    assert red["leaks_rad_s"] and len(red["dropped_poles"]) == 1

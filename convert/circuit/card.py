@@ -18,6 +18,7 @@ way the firmware must reproduce the same structure, not just C.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field, replace
 
 import numpy as np
@@ -229,8 +230,9 @@ def ideal_opamp_netlist(netlist: Netlist) -> Netlist | None:
 
 def default_band(netlist: Netlist, inputs, output: str) -> tuple[float, float] | None:
     """The band of interest of a card with finite-gain op-amps when none is given: from its
-    lowest to its highest corner with ideal op-amps (Hz). ``None`` when the card has no finite-gain
-    op-amp, the ideal card cannot be solved, or it has no corner (a pure gain)."""
+    lowest to its highest corner with ideal op-amps (Hz), widened about its geometric centre to
+    span at least one decade (a PI has a single corner). ``None`` when the card has no
+    finite-gain op-amp, the ideal card cannot be solved, or it has no corner (a pure gain)."""
     ideal = ideal_opamp_netlist(netlist)
     if ideal is None:
         return None
@@ -242,7 +244,13 @@ def default_band(netlist: Netlist, inputs, output: str) -> tuple[float, float] |
     for r in res.values():
         cf = r.controller.corner_frequencies_hz()
         corners += [f for f in cf["zeros"] + cf["poles"] if f > 0]
-    return (min(corners), max(corners)) if corners else None
+    if not corners:
+        return None
+    lo, hi = min(corners), max(corners)
+    if hi < DECADE * lo:
+        centre = math.sqrt(lo * hi)
+        lo, hi = centre / math.sqrt(DECADE), centre * math.sqrt(DECADE)
+    return lo, hi
 
 
 def _reduce_paths(netlist: Netlist, inputs, output: str, results: dict, band_hz, fs_hz):
