@@ -15,7 +15,8 @@ from pathlib import Path
 
 def read_card(netlist: str | Path, *, input: str = "VIN", output: str = "out",  # noqa: A002
               setpoint: str | None = None, measurement: str | None = None,
-              sensitivities: bool = False):
+              sensitivities: bool = False, band_hz: tuple[float, float] | None = None,
+              fs_hz: float | None = None):
     """Read the controller an op-amp card implements from its SPICE netlist.
 
     Parameters
@@ -29,6 +30,11 @@ def read_card(netlist: str | Path, *, input: str = "VIN", output: str = "out",  
         The two input sources of a two-input card (give both or neither).
     sensitivities : bool
         Also compute the sensitivity of the gain, corners and PID parameters to each part.
+    band_hz, fs_hz : optional
+        The band of interest (low, high) in Hz and the planned firmware's sample rate in Hz: on a
+        card with real op-amps, poles and zeros above min(10 × high, fs/2) are the op-amps' and
+        are left out of ``.controller`` (``.full_controller`` keeps them, ``.reduction`` says
+        what was cut). Without a band, the card's corners with ideal op-amps set it.
 
     Returns
     -------
@@ -59,7 +65,7 @@ def read_card(netlist: str | Path, *, input: str = "VIN", output: str = "out",  
     else:
         parsed = read_netlist_file(str(netlist))
     return analyze_card(parsed, input=input, output=output, setpoint=setpoint, measurement=measurement,
-                        with_sensitivities=sensitivities)
+                        with_sensitivities=sensitivities, band_hz=band_hz, fs_hz=fs_hz)
 
 
 def evaluate(case, *, draws: int | None = None):
