@@ -190,3 +190,17 @@ def test_direct_acting_pid_with_complex_zeros_on_auto(run_cli):
     data = json.loads(r.out)
     assert data["topology"] == "pid-parallel" and data["needs_inverter"] is True
     assert data["num"][0] < 0  # direct action: the built controller carries the minus sign
+
+
+@pytest.mark.parametrize("action", ["reverse", "direct"])
+def test_two_input_stage_takes_either_action(action):
+    """pid-two-input (inverting) realizes both actions: the feedback path and the setpoint path
+    each match the PID settings' (sign included) within the rounding (0.1°)."""
+    st = pid_from_words(["kp=2", "ki=1/s", "kd=0.5s", "tf=0.05s", "b=0.5", "c=0", f"action={action}"])
+    d = design_circuit(st.to_controller(), DesignOptions(topology="pid-two-input"), settings=st)
+    assert d.needs_inverter == (action == "reverse")
+    f = np.geomspace(0.01, 100, 20)
+    fb = d.realized.frequency_response(f) / st.to_controller().frequency_response(f)
+    sp = d.topology.paths_from_parts(d.rounded)["setpoint"].scaled(d.sign)
+    sp_ratio = sp.frequency_response(f) / st.setpoint_controller().frequency_response(f)
+    assert np.max(np.abs(np.angle(fb, deg=True))) < 0.1 and np.max(np.abs(np.angle(sp_ratio, deg=True))) < 0.1
