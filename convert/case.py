@@ -560,6 +560,8 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
         for name, v in (("draws", draws), ("seed", seed)):
             if v != int(v):
                 raise ctx.error(f"{key}.{name}", f"expected a whole number, found {cir[name]!r}")
+        if draws < 1:
+            raise ctx.error(f"{key}.draws", f"expected at least 1 Monte Carlo draw, found {cir['draws']!r}")
         circuit = CircuitTarget(
             topology=ctx.text(cir, "topology", f"{key}.topology", default="auto"),
             resistors=ctx.text(cir, "resistors", f"{key}.resistors", default="E96", choices=series),
@@ -638,8 +640,9 @@ def circuit_key(neutral: str | None) -> str:
     if word.startswith("target."):
         return word
     for part in ("resistor", "capacitor"):
-        if word.startswith(part):
+        if word.startswith(f"{part} m") or word.startswith(f"{part} range"):
             return f"target.circuit.{part}_range"
+    word = word.replace(" ", "_")
     if word in SCHEMA["target"]["circuit"]:
         return f"target.circuit.{word}"
     return "target.circuit"

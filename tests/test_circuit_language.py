@@ -204,3 +204,28 @@ def test_two_input_stage_takes_either_action(action):
     sp = d.topology.paths_from_parts(d.rounded)["setpoint"].scaled(d.sign)
     sp_ratio = sp.frequency_response(f) / st.setpoint_controller().frequency_response(f)
     assert np.max(np.abs(np.angle(fb, deg=True))) < 0.1 and np.max(np.abs(np.angle(sp_ratio, deg=True))) < 0.1
+
+
+@pytest.mark.parametrize("line,expected", [
+    ('topology = "pid-foo"', "k.toml:6: target.circuit.topology: unknown topology 'pid-foo'"),
+    ("draws = 0", "k.toml:6: target.circuit.draws: expected at least 1 Monte Carlo draw"),
+])
+def test_circuit_target_errors_name_the_case_key(run_cli, tmp_path, line, expected):
+    """Before: an unknown topology in [target.circuit] was reported at 'target.circuit' (the
+    library's key was the option --topology), and draws = 0 as '--draws: ...' with no file or
+    line. Now the case key and its line; the command line still says --topology."""
+    path = tmp_path / "k.toml"
+    path.write_text(f"""
+[source.pid]
+kc = 2
+ti = "10 s"
+[target.circuit]
+{line}
+[criteria]
+band = ["1 mHz", "1 Hz"]
+max_gain_error_db = 1
+""")
+    r = run_cli("report", str(path), "--out", str(tmp_path / "out"))
+    assert r.code == 2 and expected in r.err and "--topology" not in r.err and "--draws" not in r.err
+    cli = run_cli("circuit", "2*(1 + 1/s)", "--topology", "pid-foo")
+    assert cli.code == 2 and "--topology: unknown topology" in cli.err

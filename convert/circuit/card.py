@@ -383,8 +383,7 @@ def analyze_card(netlist: Netlist, *, input: str = "VIN", output: str = "out",  
     from convert.pid import pid_from_controller, why_not_pid
 
     if (setpoint is None) != (measurement is None):
-        raise InputError("give both the setpoint and the measurement source, or neither", where="command line",
-                         key="--setpoint/--measurement")
+        raise InputError("give both the setpoint and the measurement source, or neither", key="setpoint/measurement")
     inputs = (setpoint, measurement) if setpoint is not None else (input,)
     results = transfer_functions(netlist, inputs, output)
     names = [netlist.element(n).name for n in inputs]

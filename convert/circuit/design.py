@@ -59,8 +59,8 @@ class DesignOptions:
     refine: int = 12
 
     def __post_init__(self):
-        object.__setattr__(self, "resistors", es.normalize_name(self.resistors, key="--resistors"))
-        object.__setattr__(self, "capacitors", es.normalize_name(self.capacitors, key="--capacitors"))
+        object.__setattr__(self, "resistors", es.normalize_name(self.resistors, key="resistors"))
+        object.__setattr__(self, "capacitors", es.normalize_name(self.capacitors, key="capacitors"))
         for lo, hi, what in ((self.r_min, self.r_max, "resistor"), (self.c_min, self.c_max, "capacitor")):
             if not (lo > 0 and hi > 0 and math.isfinite(lo) and math.isfinite(hi)):
                 raise InputError(f"the {what} range needs positive finite limits, found {lo!r} .. {hi!r}",
@@ -68,10 +68,10 @@ class DesignOptions:
             if lo > hi:
                 raise InputError(f"the {what} range minimum {lo:g} is above its maximum {hi:g}", key=f"{what} range")
         if self.band_hz is not None and not (0 < self.band_hz[0] < self.band_hz[1]):
-            raise InputError(f"a band needs 0 < low < high, found {self.band_hz!r}", key="--band")
+            raise InputError(f"a band needs 0 < low < high, found {self.band_hz!r}", key="band")
         if not self.derivative_filter_n > 0:
             raise InputError(f"the derivative filter ratio N must be positive, found {self.derivative_filter_n!r}",
-                             key="--derivative-filter")
+                             key="derivative filter")
 
     def series_for(self, kind: str) -> str:
         return self.resistors if kind == "R" else self.capacitors
@@ -227,7 +227,7 @@ def choose_topology(target: Controller, options: DesignOptions, settings=None) -
     shape = analyse_target(target)
     raise UnrealizableError(f"no catalog topology realizes this target exactly ({shape.describe()}); "
                             "the catalog covers P, I, PI, first-order lag, lead/lag, PD and PID with a derivative "
-                            "filter", key="--topology")
+                            "filter", key="topology")
 
 
 # ----------------------------------------------------------------------------------- search

@@ -29,7 +29,7 @@ class OpAmpModel:
     def __post_init__(self):
         if self.gbw_hz is not None and not (math.isfinite(self.gbw_hz) and self.gbw_hz > 0):
             raise InputError(f"the gain-bandwidth must be a positive frequency, found {self.gbw_hz!r}",
-                             key="--opamp-gbw")
+                             key="opamp gbw")
         if not (math.isfinite(self.a0) and self.a0 > 1):
             raise InputError(f"the open-loop gain must be above 1, found {self.a0!r}", key="opamp a0")
 

@@ -65,7 +65,7 @@ def draw_parts(topology, parts: Mapping[str, float], tolerances: Mapping[str, fl
                distribution: str = "uniform") -> dict[str, np.ndarray]:
     """``draws`` part sets around ``parts`` -> name -> array (draws,). Open parts stay open."""
     if not (isinstance(draws, (int, np.integer)) and draws >= 1):
-        raise InputError(f"the number of draws must be a positive integer, found {draws!r}", key="--draws")
+        raise InputError(f"the number of draws must be a positive integer, found {draws!r}", key="draws")
     if distribution not in ("uniform", "normal"):
         raise InputError(f"unknown distribution {distribution!r}; expected uniform or normal", key="distribution")
     checked = topology.check_parts(parts)

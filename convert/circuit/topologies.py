@@ -894,7 +894,7 @@ AUTO_ORDER = ("inverting-gain", "integrator-rc", "first-order-lag", "pi-rc-feedb
               "pid-single-amp", "pid-parallel")
 
 
-def get_topology(name: str, *, key: str = "--topology") -> Topology:
+def get_topology(name: str, *, key: str = "topology") -> Topology:
     """The catalog entry ``name``; an unknown name is an InputError listing the catalog."""
     if isinstance(name, str) and name.strip().lower() in TOPOLOGIES:
         return TOPOLOGIES[name.strip().lower()]

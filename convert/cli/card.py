@@ -195,7 +195,7 @@ def _from_topology(args) -> dict:
     from convert.circuit.sensitivity import controller_quantities, value_sensitivities
     from convert.pid import pid_from_controller, why_not_pid
 
-    topo = get_topology(args.topology)
+    topo = get_topology(args.topology, key="--topology")
     raw = _parse_parts(args.part)
     if not raw:
         raise InputError(f"{topo.name} needs part values: --part " + " ".join(f"{p}=..." for p in topo.part_names),

@@ -174,7 +174,9 @@ def run(args, console) -> int:
     band = band_from_args(args.band)
     renames = {"resistor range": "--r-min/--r-max", "capacitor range": "--c-min/--c-max", "topology": "--topology",
                "method": "--inverse-method", "resistor maximum": "--r-max", "resistor minimum": "--r-min",
-               "capacitor maximum": "--c-max", "capacitor minimum": "--c-min"}
+               "capacitor maximum": "--c-max", "capacitor minimum": "--c-min", "resistors": "--resistors",
+               "capacitors": "--capacitors", "band": "--band", "derivative filter": "--derivative-filter",
+               "draws": "--draws", "opamp gbw": "--opamp-gbw"}
     with at(None, rename=renames):
         options = DesignOptions(topology=args.topology, resistors=args.resistors, capacitors=args.capacitors,
                                 r_min=positive_value(args.r_min, "ohm", "--r-min"),
