@@ -275,6 +275,21 @@ class _Ctx:
             raise self.error(dotted, f"expected a {need} value, found {raw!r}")
         return value
 
+    def fraction(self, table: dict, key: str, dotted: str, *, allow_one: bool = True) -> float | None:
+        """A zero-or-positive percentage field ("3 %" or a fraction; a bare number above 1 is
+        refused with both readings, see :func:`convert.values.parse_fraction`)."""
+        from convert.values import parse_fraction
+
+        if key not in table:
+            return None
+        try:
+            value = parse_fraction(table[key], field=dotted, allow_one=allow_one)
+        except InputError as exc:
+            raise InputError(exc.message, where=self.where(dotted), key=dotted) from None
+        if value < 0:
+            raise self.error(dotted, f"expected a zero or positive value, found {table[key]!r}")
+        return value
+
     def delay(self, table: dict, key: str, dotted: str) -> tuple[float, float | None]:
         """(delay_s, delay_samples) from a time ("20 ms") or a count of samples ("1 sample")."""
         from convert.values import parse_delay
@@ -496,7 +511,7 @@ def _read_tolerances(ctx: _Ctx, table: dict, dotted: str, default) -> dict:
         return dict(default)
     out = {}
     for name in raw:
-        value = ctx.value(raw, name, f"{dotted}.{name}", "ratio", positive=True)
+        value = ctx.fraction(raw, name, f"{dotted}.{name}", allow_one=False)
         if value >= 1:
             raise ctx.error(f"{dotted}.{name}", f"a tolerance is a fraction below 100 %, found {raw[name]!r}")
         out[name] = value
@@ -626,8 +641,10 @@ def _read_criteria(ctx: _Ctx, data: dict) -> Criteria:
     for key in SCHEMA["criteria"]:
         if key == "band":
             continue
-        kind = "ratio" if key.endswith("deviation") else "number"
-        values[key] = ctx.value(table, key, f"criteria.{key}", kind, None, positive=True)
+        if key.endswith("deviation"):  # percentage fields: "3 %" or a fraction below 1
+            values[key] = ctx.fraction(table, key, f"criteria.{key}", allow_one=False)
+            continue
+        values[key] = ctx.value(table, key, f"criteria.{key}", "number", None, positive=True)
     return Criteria(band_hz=band, **values)
 
 

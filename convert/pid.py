@@ -584,7 +584,16 @@ def _value(data: Mapping[str, Any], key: str, kind: str, where: str) -> float:
     from convert.values import parse_value
 
     try:
-        return parse_value(data[key], kind, field=key)
+        if kind == "fraction":  # a percentage field: "50 %" or a fraction; a bare 50 is refused (both readings)
+            from convert.values import parse_fraction
+
+            return parse_fraction(data[key], field=key)
+        value = parse_value(data[key], kind, field=key)
+        if kind == "percent" and not str(data[key]).strip().endswith("%") and 0 < value <= 1:
+            # a bare number is a percentage here; at or below 1 it may be a fraction meant as 100x that
+            raise InputError(f"{str(data[key]).strip()} is ambiguous: as a percentage it is {value:g} %, as a fraction "
+                             f"{value * 100:g} %; write {key}={value:g}% or {key}={value * 100:g}%", key=key)
+        return value
     except InputError as exc:
         raise InputError(exc.message, where=where, key=key) from None
 
@@ -660,8 +669,8 @@ def _settings_from(data: dict[str, Any], where: str) -> PidSettings:
         if a in data and b_ in data:
             raise InputError(f"conflicting: give {a} or {b_}, not both", where=where, key=b_)
 
-    b = _positive(_value(data, "b", "ratio", where), "b", where, allow_zero=True) if "b" in data else 1.0
-    c = _positive(_value(data, "c", "ratio", where), "c", where, allow_zero=True) if "c" in data else 1.0
+    b = _positive(_value(data, "b", "fraction", where), "b", where, allow_zero=True) if "b" in data else 1.0
+    c = _positive(_value(data, "c", "fraction", where), "c", where, allow_zero=True) if "c" in data else 1.0
     n = _positive(_value(data, "n", "number", where), "n", where) if "n" in data else None
     tf = _positive(_value(data, "tf", "second", where), "tf", where, allow_zero=True) if "tf" in data else None
 

@@ -118,6 +118,28 @@ def parse_value(text: str | float | int, kind: str = "number", *, field: str = "
     return value
 
 
+def parse_fraction(text: str | float | int, *, field: str = "value", allow_one: bool = True) -> float:
+    """Read a percentage field: ``"5 %"`` or a fraction (``0.05``); returns the fraction.
+
+    A bare number (no ``%``) above 1 is refused naming ``field`` and both readings (``5`` is
+    500 % as a fraction or 5 % as a percentage), because taking either silently moves the
+    value by a factor of 100. ``allow_one=False`` refuses a bare 1 as well, for limits where
+    100 % means nothing and "1" is most likely 1 %. Fields that use this rule are listed in
+    docs/values.md.
+    """
+    value = parse_value(text, "ratio", field=field)
+    if isinstance(text, str) and text.strip().endswith("%"):
+        return value
+    if abs(value) > 1 or (abs(value) == 1 and not allow_one):
+        shown = text.strip() if isinstance(text, str) else f"{value:g}"
+        raise InputError(
+            f"{shown} is ambiguous in a percentage field: as a fraction it is {value * 100:g} %, as a percentage "
+            f"it is {value:g} % (= {value / 100:g}); write \"{value:g} %\" or \"{value * 100:g} %\"",
+            key=field,
+        )
+    return value
+
+
 def _scaled(number_text: str, multiplier: float) -> float:
     """number × multiplier rounded once (so "2.2" × 1e-9 is exactly the float nearest 2.2e-9)."""
     try:

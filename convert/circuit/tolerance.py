@@ -34,7 +34,7 @@ DEFAULT_TOLERANCES = {"R": 0.01, "C": 0.05}
 def parse_tolerances(words: Sequence[str] | None, *, part_names: Sequence[str] = (), where: str = "--tolerance"
                      ) -> dict[str, float]:
     """Read ``["R=1%", "C=5%", "R3=0.1%"]`` into fractions; defaults R 1 %, C 5 %."""
-    from convert.values import parse_value
+    from convert.values import parse_fraction
 
     out = dict(DEFAULT_TOLERANCES)
     for word in words or ():
@@ -47,10 +47,10 @@ def parse_tolerances(words: Sequence[str] | None, *, part_names: Sequence[str] =
         elif part_names and key not in part_names:
             raise InputError(f"unknown part {key!r}; give R, C or one of {', '.join(part_names)}", where=where, key=key)
         text = value.strip()
-        frac = parse_value(text, "ratio", field=key) if text.endswith("%") else parse_value(text, "ratio", field=key)
-        if not text.endswith("%") and frac >= 1:
-            raise InputError(f"write a tolerance as a percentage (e.g. 1%) or a fraction below 1, found {text!r}",
-                             where=where, key=key)
+        try:
+            frac = parse_fraction(text, field=key, allow_one=False)
+        except InputError as exc:
+            raise InputError(exc.message, where=where, key=key) from None
         if not (0 <= frac < 1):
             raise InputError(f"a tolerance must be from 0 % to below 100 %, found {text!r}", where=where, key=key)
         out[key] = frac
