@@ -749,6 +749,24 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
     return SourceInfo(controller=running.with_name("card"), pid=card.pid, notes=tuple(notes), extra=extra)
 
 
+def parsed_transfer_functions(case: Case) -> list[tuple[str, str, Any]]:
+    """Every transfer function the case gave as text or coefficients, as ``(what, as given,
+    Controller as read)``: the source (an expression, or firmware b/a) and the plant. The report
+    and the terminal print each beside its canonical form, so a misreading shows at a glance."""
+    out: list[tuple[str, str, Any]] = []
+    src = case.source
+    if src.form == "expression":
+        out.append(("source", src.data["expression"], src.data["controller"]))
+    elif src.form == "digital":
+        from convert.controller import Controller
+
+        given = f"b = {list(src.data['b'])}, a = {list(src.data['a'])}"
+        out.append(("source", given, Controller.from_b_a(src.data["b"], src.data["a"], 1.0 / src.data["fs_hz"])))
+    if case.plant is not None:
+        out.append(("plant", case.plant.expression, case.plant.model))
+    return out
+
+
 def case_summary(case: Case) -> dict:
     """Plain data describing the case (for results.json)."""
     src = {"form": case.source.form}

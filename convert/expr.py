@@ -4,6 +4,7 @@ Grammar (whitespace is free)::
 
     expression := term (("+" | "-") term)*
     term       := factor (("*" | "/")? factor)*        # juxtaposition multiplies: 0.02s, 2(s+1)
+                                                    # but not right after a divisor: 1/30s is refused
     factor     := ("+" | "-") factor | power
     power      := atom (("^" | "**") exponent)?
     exponent   := ["+" | "-"] integer | "(" ["+" | "-"] integer ")"
@@ -210,12 +211,16 @@ class _Parser:
         return tok.kind == "name" or (tok.kind == "op" and tok.text == "(")
 
     def term(self) -> Rational:
+        start = self.peek().column
         value = self.factor()
+        divided = None  # (column of '/', first column of its divisor) while the divisor is the last factor
         while True:
             tok = self.peek()
             if tok.kind == "op" and tok.text in ("*", "/"):
                 self.take()
+                divisor_column = self.peek().column
                 rhs = self.factor()
+                divided = (tok.column, divisor_column) if tok.text == "/" else None
                 if tok.text == "*":
                     value = value * rhs
                 else:
@@ -223,9 +228,24 @@ class _Parser:
                         raise self.error(tok.column, "division by zero (the divisor is identically 0)")
                     value = value * Rational(rhs.den, rhs.num)
             elif self._starts_factor(tok):
+                if divided is not None:
+                    self._refuse_ambiguous(start, *divided, tok.column)
                 value = value * self.factor()
             else:
                 return value
+
+    def _refuse_ambiguous(self, start: int, slash: int, divisor: int, after: int) -> None:
+        """Juxtaposition right after a divisor (``1/30s``, ``0.2/(40s+1)(8s+1)``) reads two ways:
+        left to right (``(1/30)*s``) or as one product under the bar (``1/(30*s)``). Refused with both."""
+        self.factor()
+        end = self.peek().column
+        text = self.text
+        head, under, extra = (text[start - 1:slash - 1].strip(), text[divisor - 1:after - 1].strip(),
+                              text[after - 1:end - 1].strip())
+        written = text[start - 1:end - 1].strip()
+        raise self.error(after, f"{written!r} is ambiguous: a product written without '*' after a division reads "
+                                f"as ({head}/{under})*{extra} or as {head}/({under}*{extra}); write the one you "
+                                "mean with '*' and parentheses")
 
     def factor(self) -> Rational:
         tok = self.peek()

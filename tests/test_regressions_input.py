@@ -75,3 +75,78 @@ def test_pid_percentage_keys_refuse_the_hidden_factor_of_100(run_cli, words, rea
                                    ("ti=10s", "pb=50"), ("ti=10s", "pb=0.5%")])
 def test_pid_percentage_keys_written_plainly_stay_valid(run_cli, words):
     assert run_cli("show", "--pid", *words).code == 0
+
+
+# ----------------------------------------------------------------------------- item 3: expressions
+@pytest.mark.parametrize("text, column, readings", [
+    ("1/30s", 5, ("(1/30)*s", "1/(30*s)")),
+    ("2(1+1/30s)", 9, ("(1/30)*s", "1/(30*s)")),
+    ("0.2/(40s+1)(8s+1)", 12, ("(0.2/(40s+1))*(8s+1)", "0.2/((40s+1)*(8s+1))")),
+    ("2/s(s+1)", 4, ("(2/s)*(s+1)", "2/(s*(s+1))")),
+])
+def test_product_after_a_division_is_refused_with_both_readings(text, column, readings):
+    """Before: ``2(1+1/30s)`` was read left to right as 2(1 + s/30), a PD, where a PI was meant.
+    Now refused naming the column and writing each reading the way it has to be typed; each
+    written reading parses, and the two differ (so the refusal is not about a harmless case)."""
+    from convert.expr import parse_rational
+
+    with pytest.raises(InputError) as info:
+        parse_rational(text)
+    msg = str(info.value)
+    assert msg.startswith(f"expression column {column}:") and "ambiguous" in msg
+    assert all(r in msg for r in readings), msg
+    left, right = (parse_rational(r) for r in readings)
+    assert (left.num, left.den) != (right.num, right.den)
+
+
+@pytest.mark.parametrize("text", ["2*(1 + 1/(30*s))", "1/(30s)", "(1/30)s", "0.2/((40s+1)(8s+1))", "0.02s/(0.5s+1)",
+                                  "1/(s+1)*2s", "10s/(0.5s+1)", "2 + 0.1/s + 10s/(0.5s+1)"])
+def test_unambiguous_products_still_parse(text):
+    from convert.expr import parse_rational
+
+    parse_rational(text)
+
+
+def test_bundled_examples_use_no_refused_form():
+    """Every quoted expression in the docs, README, cases and CLI help parses without the
+    ambiguity refusal (the docs must not teach the refused form)."""
+    import re
+    from pathlib import Path
+
+    from convert.expr import parse_rational
+
+    root = Path(__file__).resolve().parent.parent
+    files = [*root.glob("docs/*.md"), root / "README.md", *root.glob("cases/**/*.toml"), *root.glob("convert/**/*.py")]
+    quoted = re.compile(r'"([^"\n]*)"|`([^`\n]*)`')
+    bad, seen = [], 0
+    for path in files:
+        for n, line in enumerate(path.read_text(encoding="utf-8").splitlines(), 1):
+            for m in quoted.finditer(line):
+                text = m.group(1) if m.group(1) is not None else m.group(2)
+                if "/" not in text or not re.search(r"[sz]", text):
+                    continue
+                try:
+                    parse_rational(text)
+                    seen += 1
+                except InputError as exc:
+                    if "ambiguous" in str(exc):
+                        bad.append(f"{path.name}:{n}: {text}")
+    assert seen > 10 and not bad, bad
+
+
+def test_report_prints_each_parsed_transfer_function_beside_its_canonical_form(run_cli, tmp_path):
+    """The report (HTML, Markdown, terminal) shows the plant and the source as given and as read."""
+    case = tmp_path / "job.toml"
+    case.write_text(CASE.replace('expression = "2*(1 + 1/(30*s))"', 'expression = "2*(1 + 1/(30s))"')
+                    + 'max_step_deviation = "5 %"\n\n[plant]\nmodel = "0.2/((40s+1)(8s+1))"\ndead_time = "2 s"\n',
+                    encoding="utf-8")
+    res = run_cli("report", str(case), "--out", str(tmp_path / "rep"))
+    assert res.code in (0, 1), res.err
+    canonical_plant = "(0.000625) / (s^2 + 0.15*s + 0.003125)"
+    canonical_source = "(2*s + 0.0666667) / (s)"
+    for text in (res.out, (tmp_path / "rep" / "report.md").read_text(encoding="utf-8"),
+                 (tmp_path / "rep" / "report.html").read_text(encoding="utf-8")):
+        flat = " ".join(text.split())
+        assert "Transfer functions as read" in flat
+        assert "0.2/((40s+1)(8s+1))" in flat and canonical_plant in flat
+        assert "2*(1 + 1/(30s))" in flat and canonical_source in flat

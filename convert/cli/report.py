@@ -121,13 +121,14 @@ def _summary(console, results, folder) -> None:
     from rich.table import Table
 
     from convert.compare.evaluate import CAUTIONS
-    from convert.report.tables import all_tables
+    from convert.report.tables import all_tables, parsed_table
 
     case = results.case
     verdict = results.verdict.overall
     style = "bold green" if verdict == "pass" else "bold red"
     console.print(f"[bold]{escape(case.title)}[/bold]  ({escape(str(case.path))})")
-    for title, header, rows in all_tables(results):
+    parsed = parsed_table(results)
+    for title, header, rows in ([parsed] if parsed else []) + all_tables(results):
         if title.startswith("New forms"):
             continue
         # No side borders and one space of padding: at 80 columns the width goes to the words.

@@ -227,6 +227,20 @@ def _source_as_given(case) -> str:
     return f"netlist {rel} ({how}, output {d['output']})"
 
 
+def parsed_table(results) -> Table | None:
+    """Each transfer function the case gave, beside its canonical form (monic denominator,
+    descending powers): how the text was read, so a misreading is seen before the verdict."""
+    from convert.case import parsed_transfer_functions
+
+    rows = []
+    for what, given, ctrl in parsed_transfer_functions(results.case):
+        read = ctrl.expression(digits=6) + (f" at {hz(ctrl.fs_hz)}" if ctrl.is_digital else "")
+        rows.append([what, given, read])
+    if not rows:
+        return None
+    return ("Transfer functions as read", ["what", "as given", "as read (canonical form)"], rows)
+
+
 def input_tables(results) -> list[Table]:
     """The case's inputs echoed for the reader: what was compared, with what, against what."""
     case = results.case
@@ -300,6 +314,9 @@ def input_tables(results) -> list[Table]:
         else:
             crows.append([label, f"≤ {fixed(limit, unit)}"])
     out.append(("Acceptance criteria", ["criterion", "limit"], crows))
+    parsed = parsed_table(results)
+    if parsed is not None:
+        out.insert(1, parsed)
     return out
 
 
