@@ -730,7 +730,7 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
                         measurement=src.data["measurement"], with_sensitivities=False,
                         band_hz=tuple(case.criteria.band_hz), fs_hz=fs)
     extra: dict = {"netlist_file": str(file_path), "output_limits": card.output_limits, "reduction": card.reduction}
-    notes = list(card.notes)
+    notes = [f"warning: {w}" for w in net.warnings] + list(card.notes)
     if card.output_limits is not None:
         from convert.circuit.clamps import limits_text
 

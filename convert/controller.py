@@ -36,7 +36,19 @@ _ROOT_RTOL = 1e-12
 
 
 def _as_coefficients(values: Sequence[float], what: str) -> tuple[float, ...]:
-    arr = np.atleast_1d(np.asarray(values, dtype=float))
+    try:
+        raw = np.atleast_1d(np.asarray(values))
+    except (TypeError, ValueError):  # ragged nesting and the like
+        raise InputError(f"expected a flat list of real numbers, found {values!r}", key=what) from None
+    if np.iscomplexobj(raw):
+        if np.any(raw.imag != 0):
+            raise InputError(f"coefficients must be real numbers, found {[complex(x) for x in raw]}; a real controller has "
+                             "real coefficients (complex roots come in conjugate pairs)", key=what)
+        raw = raw.real
+    try:
+        arr = np.atleast_1d(np.asarray(raw, dtype=float))
+    except (TypeError, ValueError):
+        raise InputError(f"expected a flat list of real numbers, found {values!r}", key=what) from None
     if arr.ndim != 1 or arr.size == 0:
         raise InputError(f"expected a non-empty list of numbers, found {values!r}", key=what)
     if not np.all(np.isfinite(arr)):
@@ -74,8 +86,9 @@ class Controller:
         num = _as_coefficients(self.num, "numerator")
         den = _as_coefficients(self.den, "denominator")
         lead = den[0]
-        object.__setattr__(self, "num", tuple(c / lead for c in num))
-        object.__setattr__(self, "den", tuple(c / lead for c in den))
+        # "+ 0.0" turns a negative zero (e.g. -0.0 / 1) into 0.0, so no "-0" is ever printed
+        object.__setattr__(self, "num", tuple(c / lead + 0.0 for c in num))
+        object.__setattr__(self, "den", tuple(c / lead + 0.0 for c in den))
 
     @classmethod
     def analog(cls, num: Sequence[float], den: Sequence[float], name: str = "") -> "Controller":

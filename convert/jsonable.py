@@ -27,3 +27,9 @@ def to_jsonable(value):
     if isinstance(value, float) and not math.isfinite(value):
         return None
     return value
+
+
+def roots_json(roots) -> list[dict]:
+    """Roots (zeros or poles) as a list of ``{"re": x, "im": y}``, real ones included, so a reader
+    of the JSON meets one shape whatever the roots are."""
+    return [to_jsonable(complex(r)) for r in roots]

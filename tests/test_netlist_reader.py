@@ -42,10 +42,12 @@ def test_spice_suffixes(text, value):
     assert n.element("R1").value == pytest.approx(value, rel=1e-12)
 
 
-def test_capital_m_gets_a_note():
-    """Common practice: '1M' in a SPICE netlist is milli, a classic transcription slip; say so."""
+def test_capital_m_gets_a_warning():
+    """Common practice: '1M' in a SPICE netlist is milli, a classic transcription slip; say so as a
+    warning (printed before the results), not among the notes."""
     n = read_netlist("t\nVIN in 0\nR1 in out 1M\nR2 out 0 1k\n")
-    assert any("milli" in note and "meg" in note for note in n.notes)
+    assert any("milli" in w and "meg" in w for w in n.warnings)
+    assert not any("milli" in note for note in n.notes)
 
 
 def test_4k7_is_an_error_with_line():

@@ -491,3 +491,42 @@ def card_sensitivities(netlist: Netlist, inputs, output: str, *, band_hz: tuple[
     from convert.circuit.sensitivity import sensitivities
 
     return sensitivities(netlist, lambda nl: card_quantities(nl, inputs, output, band_hz=band_hz, fs_hz=fs_hz))
+
+
+_SETPOINT_WORDS = ("sp", "set", "ref", "cmd", "demand", "target")
+_MEASUREMENT_WORDS = ("pv", "meas", "fb", "feedback", "sens", "process", "tx")
+
+
+def input_candidates(netlist) -> tuple[list, tuple[str, str] | None]:
+    """The voltage sources that look like signal inputs (one end on ground), and a guess
+    ``(setpoint, measurement)`` from their names and nodes (``SP``/``set``/``ref`` against
+    ``PV``/``meas``/``fb``), or ``None`` when the names do not tell which is which.
+
+    Used when a card is read without ``setpoint``/``measurement`` to say which sources look
+    like the two inputs; a guess from names is only ever offered, never used silently."""
+    found = [e for e in netlist.sources if "0" in e.nodes and e.nodes[0] != e.nodes[1]]
+
+    def score(e, words) -> bool:
+        text = " ".join([e.name.lower(), *e.nodes])
+        return any(w in text for w in words)
+
+    sp = [e for e in found if score(e, _SETPOINT_WORDS) and not score(e, _MEASUREMENT_WORDS)]
+    pv = [e for e in found if score(e, _MEASUREMENT_WORDS) and not score(e, _SETPOINT_WORDS)]
+    guess = (sp[0].name, pv[0].name) if len(found) == 2 and len(sp) == 1 and len(pv) == 1 else None
+    return found, guess
+
+
+def two_input_hint(netlist, given_input: str | None) -> str | None:
+    """One sentence naming the sources that look like a two-input card's inputs, or None when
+    the card has fewer than two. ``given_input``: the --input the user asked for (if any)."""
+    found, guess = input_candidates(netlist)
+    if len(found) < 2:
+        return None
+    listed = ", ".join(f"{e.name} (node {next(n for n in e.nodes if n != '0')})" for e in found)
+    if guess:
+        how = f"give --setpoint {guess[0]} --measurement {guess[1]} (guessed from the names: check it)"
+    else:
+        how = "give --setpoint NAME --measurement NAME (the names do not tell which is which)"
+    others = [e.name for e in found if e.name != (given_input or "").upper()]
+    held = f"; {', '.join(others)} held at zero in this reading" if given_input and len(others) < len(found) else ""
+    return f"{len(found)} sources look like inputs: {listed}; for a two-input card {how}{held}"

@@ -278,8 +278,33 @@ def _solve_many(G, C, B, s: np.ndarray):
     return sign, logdet, X
 
 
+def _dangling_error(netlist: Netlist) -> InputError | None:
+    """A node that only one element terminal touches (a mistyped node name, most often) leaves the
+    equations singular whenever it breaks a feedback path: name it, rather than "singular"."""
+    import difflib
+
+    uses: dict[str, list[Element]] = {}
+    for e in netlist.linear_elements:
+        for n in set(e.nodes):
+            uses.setdefault(n, []).append(e)
+    dangling = [(n, es[0]) for n, es in uses.items() if n != GROUND and len(es) == 1
+                and sum(1 for m in es[0].nodes if m == n) == 1]
+    if not dangling:
+        return None
+    node, e = dangling[0]
+    close = difflib.get_close_matches(node, [n for n in uses if n != node and n != GROUND], n=1, cutoff=0.5)
+    hint = f"; did you mean {close[0]!r}?" if close else "; check the node's name"
+    more = f" (also dangling: {', '.join(repr(n) for n, _ in dangling[1:4])})" if len(dangling) > 1 else ""
+    return InputError(f"node {node!r} is dangling: only {e.name} connects to it, so no current can flow there and the "
+                      f"circuit equations have no solution{hint}{more}", where=e.where, key=e.name)
+
+
 def _singular_error(netlist: Netlist, system: MnaSystem, G, C) -> InputError:
-    """An InputError naming the element most involved in the singularity (from the null vector)."""
+    """An InputError naming the element most involved in the singularity (from the null vector),
+    or the dangling node behind it when there is one."""
+    dangling = _dangling_error(netlist)
+    if dangling is not None:
+        return dangling
     s0 = np.sqrt(system.rates[0] * system.rates[1]) * np.exp(0.7j)
     Y = G + s0 * C
     try:

@@ -97,12 +97,15 @@ class Element:
 
 @dataclass(frozen=True)
 class Netlist:
-    """A flattened netlist: elements in file order, the title, and notes for the user."""
+    """A flattened netlist: elements in file order, the title, and notes for the user;
+    ``warnings`` are readings that may not be what the writer meant (``1M`` is milli in SPICE),
+    which a front end prints before its results."""
 
     title: str
     source: str
     elements: tuple[Element, ...]
     notes: tuple[str, ...] = ()
+    warnings: tuple[str, ...] = ()
     _index: dict = field(default_factory=dict, compare=False, repr=False)
 
     def __post_init__(self) -> None:
@@ -158,7 +161,7 @@ class Netlist:
             new.append(e)
         if wanted:
             raise InputError(f"no element called {', '.join(sorted(wanted))}", where=self.source)
-        return Netlist(self.title, self.source, tuple(new), self.notes)
+        return Netlist(self.title, self.source, tuple(new), self.notes, self.warnings)
 
 
 # ----------------------------------------------------------------------------- lines
@@ -439,6 +442,7 @@ class _Reader:
     def __init__(self, source: str):
         self.source = source
         self.notes: list[str] = []
+        self.warnings: list[str] = []
         self.subckts: dict[str, _Subckt] = {}
         self.models: dict[str, _Model] = {}
         self.elements: list[Element] = []
@@ -619,8 +623,8 @@ class _Reader:
                               " function)")
         value = evaluate(plain[2], scope, where, tokens[0])
         if re.fullmatch(r"[+-]?[\d.]+(?:[eE][+-]?\d+)?M(?!EG|eg|Eg|IL|il)[A-Za-z]*", plain[2]):
-            self.notes.append(f"{where}: {tokens[0]}: {plain[2]!r} is read as milli ({value:g}), as every SPICE does; "
-                              "write meg for mega")
+            self.warnings.append(f"{where}: {tokens[0]}: {plain[2]!r} is read as milli ({value:g}), as every SPICE "
+                                 "does; write meg for mega")
         if not value > 0:
             raise InputError(f"expected a positive value in {unit}, found {plain[2]!r} = {value:g}", where=where,
                              key=tokens[0])
@@ -777,7 +781,7 @@ def read_netlist(text: str, source: str = "netlist") -> Netlist:
     if not reader.elements:
         raise InputError("the netlist has no elements (the first line is the title; elements follow it)",
                          where=source)
-    return Netlist(title, source, tuple(reader.elements), tuple(reader.notes))
+    return Netlist(title, source, tuple(reader.elements), tuple(reader.notes), tuple(reader.warnings))
 
 
 def read_netlist_file(path: str) -> Netlist:

@@ -60,6 +60,7 @@ def run(args, console) -> int:
     from convert.controller import from_expression
     from convert.digital import discretize, to_analog
     from convert.errors import InputError
+    from convert.jsonable import roots_json
     from convert.values import format_value
 
     fs = _positive(args.fs, "hz", "--fs")
@@ -90,7 +91,7 @@ def run(args, console) -> int:
     else:
         check = None
     result = {"method": args.method, "fs_hz": fs, "num": list(analog.num), "den": list(analog.den),
-              "expression": analog.expression(), "zeros_s": list(analog.zeros()), "poles_s": list(analog.poles()),
+              "expression": analog.expression(), "zeros_s": roots_json(analog.zeros()), "poles_s": roots_json(analog.poles()),
               "gain": analog.gain, "round_trip_max_relative_difference": check}
     if prewarp is not None:
         result["prewarp_hz"] = prewarp

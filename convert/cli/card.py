@@ -129,6 +129,16 @@ def _from_netlist(args) -> dict:
 
         raise InputError("give both --setpoint and --measurement, or neither", where="command line",
                          key="--setpoint" if args.setpoint is None else "--measurement")
+    hint = None
+    if args.setpoint is None:
+        from convert.circuit.card import two_input_hint
+
+        known = {e.name for e in netlist.sources}
+        hint = two_input_hint(netlist, args.input if args.input.upper() in known else None)
+        if hint and args.input.upper() not in known:
+            from convert.errors import InputError
+
+            raise InputError(f"input source {args.input!r} not found; {hint}", where=netlist.source, key="--input")
     from convert.cli.common import band_from_args, positive_value
 
     fs = None if args.fs is None else positive_value(args.fs, "hz", "--fs")
@@ -159,7 +169,8 @@ def _from_netlist(args) -> dict:
                        "where": c.where, "text": c.describe()} for c in analysis.clamps]
     data["output_limits"] = None if analysis.output_limits is None else list(analysis.output_limits)
     data["reduction"] = None if analysis.reduction is None else analysis.reduction.as_dict()
-    data["notes"] = list(analysis.notes)
+    data["warnings"] = list(netlist.warnings)
+    data["notes"] = ([hint] if hint else []) + list(analysis.notes)
     data["sensitivities"] = None if args.no_sensitivity else _rows(analysis.sensitivities)
     return data
 
@@ -256,6 +267,8 @@ def _render(console, data: dict, d: int) -> None:
 
     from convert.cli.show import _render as render_controller
 
+    for text in data.get("warnings") or ():  # readings that may not be what was meant: before any result
+        console.print(f"warning: {text}", style="bold yellow", markup=False, highlight=False)
     render_controller(console, data, d)
     st = data.get("setpoint_structure")
     if st:

@@ -191,3 +191,42 @@ def write_text_atomic(path: str, text: str) -> None:
             fh.write(text)
 
     write_file_atomic(path, _write)
+
+
+def fit_columns(header: list[str], rows: list[list[str]], width: int, gap: int = 2) -> tuple[list[int], list[str], list[list[str]]]:
+    """Column widths that fit ``width`` terminal columns without breaking a word, and the header
+    and cells wrapped to them (lines joined by newlines).
+
+    Each column gets at least its longest word; when even that does not fit, words break after
+    their hyphens ("disturbance-" / "response"), never inside. The room left goes to the columns
+    in proportion to how much wider their longest cell is. ``gap``: columns between two cells."""
+    import textwrap
+
+    columns = [[header[i]] + [r[i] for r in rows] for i in range(len(header))]
+
+    def longest(texts, hyphens: bool, whole: int) -> int:
+        # cells up to ``whole`` characters (a number with its unit) stay on one line
+        return max(len(t) if len(t) <= whole else
+                   max(len(p) for p in textwrap.wrap(t, 1, break_long_words=False, break_on_hyphens=hyphens) or [""])
+                   for t in texts)
+
+    natural = [max(len(t) for t in col) for col in columns]
+    room = width - gap * (len(columns) - 1)
+    hyphens = False
+    if sum(natural) <= room:
+        widths = natural
+    else:
+        for hyphens, whole in ((False, 12), (False, 0), (True, 0)):
+            base = [max(longest(col[1:], hyphens, whole), longest(col[:1], hyphens, 0)) for col in columns]
+            if sum(base) <= room:
+                break
+        spare = max(room - sum(base), 0)
+        want = [n - b for n, b in zip(natural, base)]
+        total = sum(want) or 1
+        widths = [b + (spare * w) // total for b, w in zip(base, want)]
+
+    def wrap(text: str, w: int) -> str:
+        return "\n".join(textwrap.wrap(text, w, break_long_words=False, break_on_hyphens=hyphens)) or text
+
+    return (widths, [wrap(h, w) for h, w in zip(header, widths)],
+            [[wrap(c, w) for c, w in zip(row, widths)] for row in rows])

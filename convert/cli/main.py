@@ -103,7 +103,21 @@ def _version() -> str:
 def _make_console():
     from rich.console import Console
 
-    return Console(highlight=False)
+    class _Console(Console):
+        def on_broken_pipe(self) -> None:  # rich would exit with 1; a closed pipe (| head) is no failure
+            raise BrokenPipeError
+
+    return _Console(highlight=False)
+
+
+def _quiet_stdout() -> None:
+    """The reader closed the pipe (``loopshift ... | head -1``): send what is left to /dev/null
+    so nothing more fails on the way out."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError):  # pragma: no cover - stdout without a file descriptor
+        pass
 
 
 def main(argv: list[str] | None = None, console=None) -> int:
@@ -132,13 +146,18 @@ def main(argv: list[str] | None = None, console=None) -> int:
     try:
         if console is None:
             console = _make_console()
-        return int(module.run(args, console))
+        code = int(module.run(args, console))
+        sys.stdout.flush()  # a closed pipe shows here, inside the handlers below, not at exit
+        return code
     except LoopshiftError as exc:
         _print_error(exc.one_line(), console, err_console)
         return 2
     except KeyboardInterrupt:
         print("interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError as exc:  # the reader stopped early (| head): quiet, and a verdict's code is kept
+        _quiet_stdout()
+        return int(getattr(exc, "exit_code", 0))
     except OSError as exc:  # a file or folder the system refused (permission, disk full, ...)
         name = exc.filename if exc.filename is not None else "file"
         _print_error(f"{name}: {exc.strerror or exc}", console, err_console)

@@ -85,7 +85,11 @@ def run(args, console) -> int:
             raise InputError(f"cannot write the report folder {str(out_dir)!r}: {exc.strerror or exc}",
                              key="--out") from None
         progress.update(task, advance=1)
-    _summary(console, results, folder)
+    try:
+        _summary(console, results, folder)
+    except BrokenPipeError as exc:  # output cut short (| head): the verdict still decides the exit code
+        exc.exit_code = results.exit_code
+        raise
     return results.exit_code
 
 
@@ -121,6 +125,7 @@ def _summary(console, results, folder) -> None:
     from rich.table import Table
 
     from convert.compare.evaluate import CAUTIONS
+    from convert.cli.common import fit_columns
     from convert.report.tables import all_tables, parsed_table
 
     case = results.case
@@ -137,13 +142,13 @@ def _summary(console, results, folder) -> None:
         keep = [i for i, h in enumerate(header) if h not in ("what was switched on", "note", "scanned")]
         # the report folder lists the rows that do not apply; the terminal keeps to what applies
         rows = [row for row in rows if not (len(row) > 1 and row[1] == "not applicable")]
-        for n, i in enumerate(keep):
-            text, options = _column_layout(header[i], [str(r[i]) for r in rows], first=(n == 0))
-            table.add_column(text, **options)
-        for row in rows:
+        widths, head, cells_text = fit_columns([header[i] for i in keep], [[str(r[i]) for i in keep] for r in rows],
+                                               console.width)
+        for text, w in zip(head, widths):
+            table.add_column(escape(text), width=w, no_wrap=True)
+        for row in cells_text:
             cells = []
-            for i in keep:
-                c = row[i]
+            for c in row:
                 if c == "FAIL":
                     c = "[bold red]FAIL[/bold red]"
                 elif c == "pass":
@@ -153,6 +158,7 @@ def _summary(console, results, folder) -> None:
                 cells.append(c)
             table.add_row(*cells)
         console.print(table)
+    _new_forms(console, results, folder)
     for s in results.skipped:
         console.print(f"[yellow]skipped:[/yellow] {escape(str(s))}")
     for r in results.realizations:
@@ -166,17 +172,18 @@ def _summary(console, results, folder) -> None:
     console.print(f"verdict: [{style}]{verdict.upper()}[/{style}]   report: {escape(str(folder))}/report.html")
 
 
-def _column_layout(header: str, cells: list[str], *, first: bool) -> tuple[str, dict]:
-    """(header text, column options) for an 80-column terminal: short cells (numbers with units)
-    never wrap and the header is wrapped to fit above them; text columns are at least as wide as
-    their longest word (up to 16 for the label column, 13 for the others), so text breaks between
-    words."""
-    import textwrap
-
+def _new_forms(console, results, folder) -> None:
+    """The new forms as built: coefficients (b, a) or parts, and the files written beside the
+    report, so the terminal says what to load into the firmware or build, and where it is."""
     from rich.markup import escape
 
-    longest_word = max(len(w) for text in [header, *cells] for w in (text.split() or [""]))
-    short = not first and all(len(c) <= 12 for c in cells)
-    width = max(longest_word, max((len(c) for c in cells), default=0) if short else 0, 10)
-    text = "\n".join(textwrap.wrap(header, width)) or header
-    return escape(text), {"overflow": "fold", "no_wrap": short, "min_width": None if short else min(longest_word, 16 if first else 13)}
+    from convert.report.tables import realization_table
+
+    _, _, rows = realization_table(results)
+    if not rows:
+        return
+    console.print("[bold]New forms[/bold] (full precision in results.json)")
+    for realization, (name, _kind, what, _warnings) in zip(results.realizations, rows):
+        files = ", ".join(sorted(realization.files))
+        where = f"; files {files} in {folder}" if files else ""
+        console.print(f"  {escape(name)}: {escape(what)}{escape(where)}")

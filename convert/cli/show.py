@@ -142,14 +142,14 @@ def run(args, console) -> int:
 def _n(x, digits: int) -> str:
     if x is None:
         return "—"
-    return f"{x:.{digits}g}"
+    return f"{x + 0.0:.{digits}g}"  # + 0.0: a negative zero prints as 0, not -0
 
 
 def _root(r: complex, digits: int) -> str:
     re_, im = float(r.real), float(r.imag)
     if abs(im) <= 1e-12 * max(1.0, abs(r)):
         return _n(re_ + 0.0, digits)
-    return f"{re_:.{digits}g} {'+' if im > 0 else '−'} {abs(im):.{digits}g}j"
+    return f"{re_ + 0.0:.{digits}g} {'+' if im > 0 else '−'} {abs(im):.{digits}g}j"
 
 
 def _coefs(values, digits: int) -> str:

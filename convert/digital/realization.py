@@ -17,6 +17,7 @@ from convert.controller import Controller
 from convert.digital import forward
 from convert.digital.roots import RootForm
 from convert.errors import InputError, UnrealizableError
+from convert.jsonable import roots_json
 
 METHODS: tuple[str, ...] = ("zoh", "foh", "tustin", "matched", "impulse", "forward-euler", "backward-euler")
 
@@ -87,7 +88,7 @@ class DigitalRealization:
         if self.match_at_hz is not None:
             out["match_at_hz"] = self.match_at_hz
         out.update({
-            "zeros_z": list(self.roots.zeros), "poles_z": list(self.roots.poles), "gain_z": self.roots.gain,
+            "zeros_z": roots_json(self.roots.zeros), "poles_z": roots_json(self.roots.poles), "gain_z": self.roots.gain,
             "difference_equation": self.difference_equation,
             "warnings": list(self.warnings), "notes": list(self.notes),
         })
