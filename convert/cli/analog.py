@@ -58,7 +58,7 @@ def run(args, console) -> int:
     from convert.cli.common import at, emit_json
     from convert.cli.digital import _positive, below_nyquist
     from convert.controller import from_expression
-    from convert.digital import discretize, to_analog
+    from convert.digital import discretize, read_analog
     from convert.errors import InputError
     from convert.jsonable import roots_json
     from convert.values import format_value
@@ -81,11 +81,18 @@ def run(args, console) -> int:
     if not digital.is_digital:
         raise InputError("the expression is analog (in s); `loopshift analog` takes an expression in z", key="EXPR_IN_Z")
     with at(None, rename={"prewarp": "--prewarp", "match_at_hz": "--match-at", "method": "--method"}):
-        analog = to_analog(digital, args.method, prewarp, match_at_hz=match_at)
-        again = discretize(analog, fs, args.method, prewarp_hz=prewarp, match_at_hz=match_at).controller
+        reading = read_analog(digital, args.method, prewarp, match_at_hz=match_at)
+        analog = reading.controller
+        again = (discretize(analog, fs, args.method, prewarp_hz=prewarp, match_at_hz=match_at).controller
+                 if analog.is_proper else None)
     b0, a0 = np.array(digital.b), np.array(digital.a)
-    b1, a1 = np.array(again.b), np.array(again.a)
-    if b0.size == b1.size and a0.size == a1.size:
+    if again is None:  # an unfiltered derivative: check the substitution on the unit circle instead
+        z = np.exp(1j * np.linspace(0.01, 0.99, 50) * np.pi)
+        want = digital.frequency_response(np.angle(z) * fs / (2 * np.pi))
+        got = np.polyval(analog.num, (z - 1) / (z / fs)) / np.polyval(analog.den, (z - 1) / (z / fs))
+        check = float(np.max(np.abs(got - want) / np.abs(want)))
+    elif np.array(again.b).size == b0.size and np.array(again.a).size == a0.size:
+        b1, a1 = np.array(again.b), np.array(again.a)
         scale = max(np.max(np.abs(b0)), np.max(np.abs(a0)))
         check = float(max(np.max(np.abs(b1 - b0)), np.max(np.abs(a1 - a0))) / scale)
     else:
@@ -93,6 +100,7 @@ def run(args, console) -> int:
     result = {"method": args.method, "fs_hz": fs, "num": list(analog.num), "den": list(analog.den),
               "expression": analog.expression(), "zeros_s": roots_json(analog.zeros()), "poles_s": roots_json(analog.poles()),
               "gain": analog.gain, "round_trip_max_relative_difference": check}
+    result["notes"] = list(reading.notes)
     if prewarp is not None:
         result["prewarp_hz"] = prewarp
     if match_at is not None:
@@ -113,7 +121,12 @@ def run(args, console) -> int:
                           markup=False)
     if analog.integrator_count():
         console.print(f"  integrators: {analog.integrator_count()}", markup=False)
-    if check is not None:
+    for note in reading.notes:
+        console.print(f"note: {note}", markup=False)
+    if check is not None and again is None:
+        console.print(f"check: substituting s = (z - 1)/(zT) into it reproduces the digital response to {check:.2g} "
+                      "(largest relative difference on the unit circle)", markup=False)
+    elif check is not None:
         console.print(f"check: discretizing it again by {args.method} reproduces the coefficients to {check:.2g} "
                       "(largest difference relative to the largest coefficient)", markup=False)
     return 0

@@ -158,6 +158,9 @@ def _summary(console, results, folder) -> None:
                 cells.append(c)
             table.add_row(*cells)
         console.print(table)
+    for note in results.source.notes:
+        if note.startswith("source.digital:"):  # how printed coefficients were read: said where it is seen
+            console.print(f"[yellow]note:[/yellow] {escape(note)}")
     _new_forms(console, results, folder)
     for s in results.skipped:
         console.print(f"[yellow]skipped:[/yellow] {escape(str(s))}")

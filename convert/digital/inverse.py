@@ -13,6 +13,7 @@ Maps (T = sample period; T' = T, or 2·tan(π f_p T)/(2π f_p) with a prewarp at
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -39,7 +40,8 @@ def _refuse_negative_axis(roots, what: str, method: str) -> None:
             raise UnrealizableError(
                 f"the {what} at z = 0 has no continuous equivalent under {method} (ln 0 is undefined); "
                 "it is a pure delay or a finite-memory (FIR) term: keep that part digital, or account for it "
-                "as computation delay (--delay) and convert the rest", key="controller")
+                "as computation delay (--delay) and convert the rest; a PID whose derivative is a backward "
+                "difference has this pole: read it with --method backward-euler", key="controller")
         if r.real < 0 and abs(r.imag) <= _TOL * max(1.0, abs(r)):
             raise UnrealizableError(
                 f"the {what} at z = {_root_text(r)} lies on the negative real axis; under {method} it has no real "
@@ -61,14 +63,34 @@ def _gain_by_point(analog_shape: RootForm, digital: RootForm, s_of_z) -> float:
     return float(np.real(digital.at(z0) / analog_shape.unit_gain_at(s0)))
 
 
+@dataclass(frozen=True)
+class AnalogReading:
+    """The analog controller read back from a digital one, and what was read into it: poles
+    within the rounding of the printed coefficients of z = 1 taken as integrators; a derivative
+    without filter (a backward difference: a pole at z = 0 under backward-euler)."""
+
+    controller: Controller
+    notes: tuple[str, ...] = ()
+
+
 def to_analog(digital: Controller, method: str, prewarp_hz: float | None = None, *,
-              match_at_hz: float | None = None) -> Controller:
+              match_at_hz: float | None = None, den_radius=None) -> Controller:
     """The analog controller whose ``method`` discretization is ``digital``.
 
     ``prewarp_hz`` (Hz) applies to ``tustin`` and must equal the one used going forward;
-    ``match_at_hz`` (Hz) to ``matched`` (default: the forward method's rule). Raises
-    :class:`UnrealizableError` naming the pole (or delay) when no real continuous equivalent exists.
+    ``match_at_hz`` (Hz) to ``matched`` (default: the forward method's rule). Poles within the
+    rounding of the printed coefficients of z = 1 are read as integrators (see
+    :mod:`convert.digital.printed`; ``den_radius`` gives that rounding when the caller has the
+    text). Raises :class:`UnrealizableError` naming the pole (or delay) when no real continuous
+    equivalent exists. :func:`read_analog` returns the same controller with the notes.
     """
+    return read_analog(digital, method, prewarp_hz, match_at_hz=match_at_hz, den_radius=den_radius).controller
+
+
+def read_analog(digital: Controller, method: str, prewarp_hz: float | None = None, *,
+                match_at_hz: float | None = None, den_radius=None) -> AnalogReading:
+    """:func:`to_analog` with the notes of what was read into the result (see
+    :class:`AnalogReading`)."""
     if not isinstance(digital, Controller) or not digital.is_digital:
         raise InputError("to_analog needs a digital controller (an expression in z with a sample rate)",
                          key="controller")
@@ -85,15 +107,45 @@ def to_analog(digital: Controller, method: str, prewarp_hz: float | None = None,
         if not (math.isfinite(prewarp_hz) and 0 < prewarp_hz < fs / 2):
             raise InputError(f"the prewarp frequency must lie between 0 and fs/2 = {fs / 2:.6g} Hz, found {prewarp_hz!r}",
                              key="prewarp")
+    from convert.digital.printed import printed_integrators
+
+    digital, notes = printed_integrators(digital, den_radius)
     dz = RootForm.of(digital)
     name = f"{digital.name or 'controller'} (from {method})"
     if method == "tustin":
-        return _from_tustin(dz, t, prewarp_hz).to_controller(name)
-    if method == "backward-euler":
-        return _from_backward(dz, t).to_controller(name)
-    if method == "matched":
-        return _from_matched(dz, t, match_at_hz).to_controller(name)
-    return _from_zoh(digital, dz, t).to_controller(name)
+        analog = _from_tustin(dz, t, prewarp_hz).to_controller(name)
+    elif method == "backward-euler":
+        analog = _from_backward(dz, t).to_controller(name)
+        at_zero = sum(1 for p in dz.poles if abs(p) <= _TOL)
+        if at_zero:
+            notes.append(_unfiltered_note(analog, at_zero))
+    elif method == "matched":
+        analog = _from_matched(dz, t, match_at_hz).to_controller(name)
+    else:
+        analog = _from_zoh(digital, dz, t).to_controller(name)
+    return AnalogReading(analog, tuple(notes))
+
+
+def _unfiltered_note(analog: Controller, count: int) -> str:
+    """What a pole at z = 0 under backward-euler means: a backward difference, i.e. a derivative
+    with no filter; the analog equivalent is improper and says which filter it lacks."""
+    from convert.pid import pid_from_controller
+
+    pid = pid_from_controller(analog) if analog.relative_degree == -1 else None
+    if pid is not None and pid.kd > 0:
+        ideal = pid.table().get("ideal", {})
+        td = ideal.get("td_s")
+        sign = -1 if pid.action == "direct" else 1
+        text = (f"kp = {sign * pid.kp:.6g}, ki = {sign * pid.ki:.6g} /s, kd = {sign * pid.kd:.6g} s"
+                + (f" (Td = {td:.4g} s)" if td else ""))
+        filt = f"; e.g. N = 10 would give Tf = Td/10 = {td / 10:.3g} s" if td else ""
+        return (f"the pole at z = 0 is a backward difference: the derivative has no filter, and the analog equivalent "
+                f"is the unfiltered PID {text}. It lacks a derivative filter (Tf = 0): a circuit, or this controller "
+                f"under another method, needs one added (--derivative-filter N){filt}")
+    extra = analog.relative_degree * -1
+    return (f"{count} pole{'s' if count > 1 else ''} at z = 0 {'are' if count > 1 else 'is a'} backward "
+            f"difference{'s' if count > 1 else ''}: the analog equivalent has {extra} more zero{'s' if extra > 1 else ''} "
+            "than poles (unfiltered derivative action); a circuit or another method needs a derivative filter added")
 
 
 def _from_tustin(dz: RootForm, t: float, prewarp_hz: float | None) -> RootForm:
@@ -109,13 +161,12 @@ def _from_tustin(dz: RootForm, t: float, prewarp_hz: float | None) -> RootForm:
 
 
 def _from_backward(dz: RootForm, t: float) -> RootForm:
+    """A pole at z = 0 (a backward difference: z − 0 = 1/(1 − sT)) goes to s = infinity, so the
+    result has one more zero than poles per such pole: an unfiltered derivative, read as it is."""
     if dz.relative_degree > 0:
         raise _delay_refusal(dz.relative_degree, "backward-euler", " (it would need right-half-plane zeros at s = 1/T)")
-    for p in dz.poles:
-        if abs(p) <= _TOL:
-            raise UnrealizableError("the pole at z = 0 maps to s = infinity under backward-euler: no proper "
-                                    "continuous equivalent; keep that part digital or use another method",
-                                    key="controller")
+    poles = tuple(0.0 if abs(p) <= _TOL else p for p in dz.poles)
+    dz = RootForm(dz.zeros, poles, dz.gain, dz.sample_period_s)
     return _substituted(dz, 0.0, np.array([1.0]), np.array([-t, 1.0]))
 
 

@@ -234,7 +234,12 @@ def parsed_table(results) -> Table | None:
 
     rows = []
     for what, given, ctrl in parsed_transfer_functions(results.case):
+        if what == "source":  # as the source was read (e.g. printed poles at z = 1 taken as integrators)
+            ctrl = results.source.controller
         read = ctrl.expression(digits=6) + (f" at {hz(ctrl.fs_hz)}" if ctrl.is_digital else "")
+        count = ctrl.integrator_count()
+        if count:
+            read += f" ({count} integrator{'s' if count > 1 else ''})"
         rows.append([what, given, read])
     if not rows:
         return None
