@@ -288,3 +288,122 @@ def test_controller_analog_with_complex_coefficients_raises_input_error():
     with pytest.raises(InputError):
         Controller.analog([[1, 2], [3]], [1, 1])
     assert Controller.analog(__import__("numpy").array([1 + 0j, 2]), [1, 1]).num == (1.0, 2.0)
+
+
+# ----------------------------------------------------------------------------- item 8: printed coefficients
+def _printed(values, digits: int) -> list[float]:
+    return [float(f"{v:.{digits}g}") for v in values]
+
+
+def test_printed_pid_exact_input_reads_back_an_integrator(run_cli):
+    """The exact input that failed: a Tustin PID printed to 6 digits read back as
+    (s^2 + 20s − 2.02): a right-half-plane pole at 16 mHz instead of the integrator."""
+    import json
+
+    res = run_cli("analog", "(21.8022 - 43.5644 z^-1 + 21.7622 z^-2)/(1 - 1.9802 z^-1 + 0.980198 z^-2)",
+                  "--fs", "1kHz", "--method", "tustin", "--json")
+    data = json.loads(res.out)[0]
+    assert data["den"][-1] == 0.0 and all(p["re"] <= 0 for p in data["poles_s"])
+    assert any("read as an integrator" in n and "right-half-plane" in n for n in data["notes"])
+
+
+@pytest.mark.parametrize("digits", [5, 6, 7, 8])
+@pytest.mark.parametrize("kc, ti, td, n, fs", [(2.0, 5.0, 0.5, 10.0, 1000.0), (0.8, 120.0, 10.0, 8.0, 10.0),
+                                              (15.0, 0.02, 0.002, 5.0, 20000.0), (1.0, 30.0, 0.0, None, 100.0)])
+def test_printed_coefficients_keep_the_integrator(kc, ti, td, n, fs, digits):
+    """PIDs of our own discretized by scipy.signal.cont2discrete (bilinear: an outside reference),
+    printed to 5–8 significant digits as a tool prints them. The inverse always finds the
+    integrator (no right-half-plane pole) and, where the printed digits carry the response to
+    better than 10 %, its error against the PID over the whole band down to 1e-3/Ti stays within
+    1.5x what the digits themselves lose mid-band (printed vs exact digital response from 0.1/Ti
+    to fs/20; measured ratio at most 1.19). Where a note says a
+    pole was moved, the literal reading (no rounding allowed) has no integrator."""
+    import numpy as np
+    from scipy.signal import cont2discrete
+
+    from convert.controller import Controller
+    from convert.digital import read_analog
+
+    tf = td / n if td else 0.0
+    if tf:  # ideal PID with filter: kc·(1 + 1/(ti s) + td s/(tf s + 1)), over ti·s·(tf s + 1)
+        num = kc * np.polyadd(np.polymul([ti, 1.0], [tf, 1.0]), [ti * td, 0.0, 0.0])
+        den = np.polymul([ti, 0.0], [tf, 1.0])
+    else:
+        num, den = kc * np.array([ti, 1.0]), np.array([ti, 0.0])
+    bd, ad, _ = cont2discrete((num, den), 1.0 / fs, method="bilinear")
+    exact_digital = Controller.from_b_a(np.ravel(bd), np.ravel(ad), 1.0 / fs)
+    digital = Controller.from_b_a(_printed(np.ravel(bd), digits), _printed(np.ravel(ad), digits), 1.0 / fs)
+    reading = read_analog(digital, "tustin")
+    analog = reading.controller
+    assert analog.integrator_count() == 1
+    assert np.all(analog.poles().real <= 1e-12)
+    pid = Controller.analog(num, den)
+    f = np.geomspace(1e-3 / ti, fs / 20, 200)
+    err = np.max(np.abs(analog.frequency_response(f) / pid.frequency_response(f) - 1))
+    mid = np.geomspace(0.1 / ti, fs / 20, 200)
+    lost = np.max(np.abs(digital.frequency_response(mid) / exact_digital.frequency_response(mid) - 1))
+    if lost < 0.1:  # where the digits carry the response at all (six digits at fs/corner = 5000 do not)
+        assert err <= 1.5 * lost + 1e-9, (err, lost)
+    if reading.notes:
+        literal = read_analog(digital, "tustin", den_radius=[0.0] * len(digital.den)).controller
+        assert literal.integrator_count() == 0
+
+
+def test_a_pole_outside_the_printed_rounding_is_kept():
+    """A leaky integrator written with the digits that show the leak (a = [1, -0.999]: the
+    pole 1e-3 from z = 1, rounding 5e-4) and a Python float 1e-9 from z = 1 (repr
+    '0.999999999', rounding 5e-10) keep their poles: only what the digits cannot tell apart moves."""
+    from convert.controller import Controller
+    from convert.digital import read_analog
+
+    for a in ([1.0, -0.999], [1.0, -(1.0 - 1e-9)]):
+        reading = read_analog(Controller.from_b_a([0.5, -0.4], a, 0.01), "tustin")
+        assert reading.controller.integrator_count() == 0 and reading.notes == ()
+
+
+def test_printed_rule_reads_digits_as_written():
+    """'1.000000' carries six decimals, '1' and a float equal to a whole number are exact,
+    and a float is taken at its shortest round-trip decimal form."""
+    from convert.digital.printed import printed_radius
+
+    assert printed_radius("1.000000") == pytest.approx(5e-7)
+    assert printed_radius("-1.9802") == pytest.approx(5e-5)
+    assert printed_radius("2.5e-3") == pytest.approx(5e-5)
+    assert printed_radius("1") == 0 and printed_radius(1.0) == 0 and printed_radius(-2.0) == 0
+    assert printed_radius(0.818182) == pytest.approx(5e-7)
+    assert printed_radius(1 / 3) == pytest.approx(0.5e-16)
+
+
+def test_case_file_firmware_with_printed_coefficients_has_an_integrating_source(tmp_path):
+    """A case's [source.digital] with six-digit coefficients: the source is read with its
+    integrator and the report's notes say so; the digits are taken as written ("0.9801980")."""
+    from convert.case import load_case, source_controller
+
+    text = ('[source.digital]\nb = [21.8022, -43.5644, 21.7622]\na = ["1", "-1.9802", "0.980198"]\nfs = "1 kHz"\n\n'
+            '[target.digital]\nfs = "2 kHz"\n\n[criteria]\nband = ["10 mHz", "10 Hz"]\nmax_gain_error_db = 1\n')
+    (tmp_path / "fw.toml").write_text(text, encoding="utf-8")
+    info = source_controller(load_case(tmp_path / "fw.toml"))
+    assert info.controller.integrator_count() == 1
+    assert any("read as an integrator" in n for n in info.notes)
+
+
+def test_backward_difference_pid_reads_back_as_the_unfiltered_pid(run_cli):
+    """u = kp·e + ki·T·Σe + kd·(e[n] − e[n−1])/T (the backward-difference PID, common practice):
+    C(z) = kp + ki·T/(1 − z^-1) + (kd/T)(1 − z^-1), a pole at z = 0. Before: refused ("the pole at
+    z = 0 maps to s = infinity"). Now: exactly kp + ki/s + kd·s, the missing filter stated."""
+    import numpy as np
+
+    from convert.controller import Controller
+    from convert.digital import read_analog
+
+    kp, ki, kd, t = 2.0, 0.5, 0.3, 0.01
+    # over a common denominator (1 − z^-1), ascending powers of z^-1:
+    # b = kp(1 − z^-1) + ki·T + (kd/T)(1 − z^-1)^2
+    b = [kp + ki * t + kd / t, -kp - 2 * kd / t, kd / t]
+    reading = read_analog(Controller.from_b_a(b, [1.0, -1.0], t), "backward-euler")
+    np.testing.assert_allclose(reading.controller.num, [kd, kp, ki], rtol=1e-12)
+    np.testing.assert_allclose(reading.controller.den, [1.0, 0.0], atol=1e-15)
+    assert any("no filter" in n and "kd = 0.3 s" in n for n in reading.notes)
+    res = run_cli("analog", "(32.005 - 62 z^-1 + 30 z^-2)/(1 - z^-1)", "--fs", "100Hz", "--method", "backward-euler")
+    flat = " ".join(res.out.split())
+    assert res.code == 0 and "(0.3*s^2 + 2*s + 0.5) / (s)" in flat and "lacks a derivative filter" in flat
