@@ -732,6 +732,12 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"cannot read the netlist {str(file_path)!r}: {exc}", key="file") from None
     net = read_netlist(text, source=file_path.name)
+    if src.data["setpoint"] is None and src.data["input"].upper() not in {e.name for e in net.sources}:
+        from convert.circuit.card import two_input_hint
+
+        hint = two_input_hint(net, None, spelling='setpoint = "{sp}", measurement = "{pv}"')
+        if hint:
+            raise InputError(f"input source {src.data['input']!r} not found in {file_path.name}; {hint}", key="input")
     fs = min(case.digital.fs_hz) if case.digital else None
     card = analyze_card(net, input=src.data["input"], output=src.data["output"], setpoint=src.data["setpoint"],
                         measurement=src.data["measurement"], with_sensitivities=False,

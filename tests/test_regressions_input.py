@@ -407,3 +407,18 @@ def test_backward_difference_pid_reads_back_as_the_unfiltered_pid(run_cli):
     res = run_cli("analog", "(32.005 - 62 z^-1 + 30 z^-2)/(1 - z^-1)", "--fs", "100Hz", "--method", "backward-euler")
     flat = " ".join(res.out.split())
     assert res.code == 0 and "(0.3*s^2 + 2*s + 0.5) / (s)" in flat and "lacks a derivative filter" in flat
+
+
+def test_case_with_a_two_input_netlist_names_the_inputs_in_case_keys(tmp_path):
+    """The same hint from a case file, in the case's own keys (not the command-line options)."""
+    import shutil
+
+    from convert.case import load_case, source_controller
+
+    shutil.copy(NETLISTS / "sp_pv_card.cir", tmp_path / "card.cir")
+    (tmp_path / "two.toml").write_text(CASE.replace('expression = "2*(1 + 1/(30*s))"', 'netlist = "card.cir"'),
+                                       encoding="utf-8")
+    with pytest.raises(InputError) as info:
+        source_controller(load_case(tmp_path / "two.toml"))
+    msg = str(info.value)
+    assert msg.startswith("two.toml:2: source.netlist.input:") and 'setpoint = "VSP", measurement = "VPV"' in msg

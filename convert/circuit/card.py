@@ -516,17 +516,19 @@ def input_candidates(netlist) -> tuple[list, tuple[str, str] | None]:
     return found, guess
 
 
-def two_input_hint(netlist, given_input: str | None) -> str | None:
+def two_input_hint(netlist, given_input: str | None, *, spelling: str = "--setpoint {sp} --measurement {pv}"
+                   ) -> str | None:
     """One sentence naming the sources that look like a two-input card's inputs, or None when
-    the card has fewer than two. ``given_input``: the --input the user asked for (if any)."""
+    the card has fewer than two. ``given_input``: the input source the user asked for (if any);
+    ``spelling``: how the front end names the two settings (command-line options, case keys)."""
     found, guess = input_candidates(netlist)
     if len(found) < 2:
         return None
     listed = ", ".join(f"{e.name} (node {next(n for n in e.nodes if n != '0')})" for e in found)
     if guess:
-        how = f"give --setpoint {guess[0]} --measurement {guess[1]} (guessed from the names: check it)"
+        how = f"give {spelling.format(sp=guess[0], pv=guess[1])} (guessed from the names: check it)"
     else:
-        how = "give --setpoint NAME --measurement NAME (the names do not tell which is which)"
+        how = f"give {spelling.format(sp='NAME', pv='NAME')} (the names do not tell which is which)"
     others = [e.name for e in found if e.name != (given_input or "").upper()]
     held = f"; {', '.join(others)} held at zero in this reading" if given_input and len(others) < len(found) else ""
     return f"{len(found)} sources look like inputs: {listed}; for a two-input card {how}{held}"
