@@ -102,9 +102,17 @@ def run(args, console) -> int:
     if args.json:
         import json
 
-        emit_json(console, json.loads(summary))
+        try:
+            emit_json(console, json.loads(summary))
+        except BrokenPipeError as exc:  # output cut short (| head): the verdicts still decide the exit code
+            exc.exit_code = result.exit_code
+            raise
         return result.exit_code
-    _print_summary(console, result, escape)
+    try:
+        _print_summary(console, result, escape)
+    except BrokenPipeError as exc:
+        exc.exit_code = result.exit_code
+        raise
     return result.exit_code
 
 
@@ -181,15 +189,18 @@ def _print_summary(console, result, escape) -> None:
 
     from convert.report.batch import format_worst
 
+    from convert.cli.common import fit_columns
+
     table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False, padding=(0, 1, 0, 0))
-    table.add_column("case", overflow="fold")
-    table.add_column("verdict", no_wrap=True)
-    table.add_column("closest to its limit", overflow="fold")
-    table.add_column("time", no_wrap=True, justify="right")
+    header = ["case", "verdict", "closest to its limit", "time"]
+    rows = [[o.name, o.status.upper(), format_worst(o), f"{o.seconds:.1f} s"] for o in result.outcomes]
+    widths, head, cells = fit_columns(header, rows, console.width)  # never breaks a word
+    for text, w, justify in zip(head, widths, ("left", "left", "left", "right")):
+        table.add_column(escape(text), width=w, no_wrap=True, justify=justify)
     styles = {"pass": "green", "fail": "bold red", "unreadable": "bold red", "error": "bold red"}
-    for o in result.outcomes:
-        verdict = f"[{styles[o.status]}]{o.status.upper()}[/{styles[o.status]}]"
-        table.add_row(escape(o.name), verdict, escape(format_worst(o)), f"{o.seconds:.1f} s")
+    for o, row in zip(result.outcomes, cells):
+        verdict = f"[{styles[o.status]}]{row[1]}[/{styles[o.status]}]"
+        table.add_row(escape(row[0]), verdict, escape(row[2]), row[3])
     console.print(table)
     for o in result.outcomes:
         if o.status != "pass":
