@@ -31,6 +31,7 @@ _LAZY = {
     "METHODS": ("convert.digital.realization", "METHODS"),
     "discretize": ("convert.digital.realization", "discretize"),
     "to_analog": ("convert.digital.inverse", "to_analog"),
+    "read_analog": ("convert.digital.inverse", "read_analog"),
     "survey_methods": ("convert.digital.survey", "survey_methods"),
     # controller -> op-amp circuit
     "DesignOptions": ("convert.circuit.design", "DesignOptions"),
