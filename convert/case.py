@@ -461,7 +461,8 @@ def _read_source(ctx: _Ctx, data: dict) -> Source:
             if not isinstance(raw, list) or not raw:
                 raise ctx.error(f"{key}.{coef}", f"expected a list of numbers (ascending powers of z^-1), found {raw!r}")
             out[coef] = [ctx.value({"v": v}, "v", f"{key}.{coef}", "number") for v in raw]
-        out["a_text"] = [v if isinstance(v, str) else float(v) for v in dig["a"]]  # digits as written
+        for coef in ("b", "a"):  # the digits as written, for the printed precision of the coefficients
+            out[f"{coef}_text"] = [v if isinstance(v, str) else float(v) for v in dig[coef]]
         if out["a"][0] == 0:
             raise ctx.error(f"{key}.a", "a[0] must be non-zero (it multiplies the newest output)")
         if "fs" not in dig:
@@ -706,12 +707,12 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
         return SourceInfo(controller=settings.to_controller(), pid=settings)
     if src.form == "digital":
         from convert.controller import Controller
-        from convert.digital.printed import printed_integrators, printed_radius
+        from convert.digital.printed import printed_integrators, printed_radii
 
         ctrl = Controller.from_b_a(src.data["b"], src.data["a"], 1.0 / src.data["fs_hz"], name="firmware")
         # the rounding of each coefficient as written (a made monic; padding zeros are exact)
         written = src.data.get("a_text", src.data["a"])
-        radius = [printed_radius(x) / abs(src.data["a"][0]) for x in written]
+        radius = [r / abs(src.data["a"][0]) for r in printed_radii(written, src.data.get("b_text", src.data["b"]))]
         radius += [0.0] * (len(ctrl.den) - len(radius))
         ctrl, notes = printed_integrators(ctrl, radius[:len(ctrl.den)])
         return SourceInfo(controller=ctrl, notes=tuple(f"source.digital: {n}" for n in notes))

@@ -352,6 +352,12 @@ def parse_rational(text: str, *, label: str = "expression") -> ParsedExpression:
     return ParsedExpression(tuple(reversed(reduced.num)), tuple(reversed(reduced.den)), variable, cancelled)
 
 
+def number_spans(text: str) -> list[tuple[int, int]]:
+    """``(start, end)`` offsets (0-based, end exclusive) of every number in ``text`` as the
+    grammar reads it; used to learn how many digits each coefficient was written with."""
+    return [(m.start(), m.end()) for m in _TOKEN_RE.finditer(text) if m.lastgroup == "num"]
+
+
 def format_polynomial(coefs_desc, variable: str = "s", digits: int = 6) -> str:
     """Write coefficients (descending powers) as text this grammar reads back, e.g. ``0.5*s^2 + 3*s + 1``.
 

@@ -305,6 +305,23 @@ def test_printed_pid_exact_input_reads_back_an_integrator(run_cli):
     data = json.loads(res.out)[0]
     assert data["den"][-1] == 0.0 and all(p["re"] <= 0 for p in data["poles_s"])
     assert any("read as an integrator" in n and "right-half-plane" in n for n in data["notes"])
+    # at six digits b sums to exactly 0: the integral gain is lost in the printout, and that is said
+    assert any("integral gain" in n and "more digits" in n for n in data["notes"])
+
+
+def test_twelve_digit_printout_keeps_the_integral_gain(run_cli):
+    """The same PID (kc = 2, ti = 5 s, td = 0.5 s, N = 10; tustin at 1 kHz) printed to 12 digits,
+    as `loopshift digital` prints its difference equation: read literally, a pole at 16 nHz;
+    read by the rule, an integrator with ki = kc/ti = 0.4 /s (the filter pole at 20 rad/s keeps
+    the numerator's constant term at 20·0.4 = 8)."""
+    import json
+
+    res = run_cli("analog", "(21.802180198 - 43.5643524752 z^-1 + 21.762180198 z^-2)"
+                            "/(1 - 1.9801980198 z^-1 + 0.980198019802 z^-2)", "--fs", "1kHz", "--method", "tustin",
+                  "--json")
+    data = json.loads(res.out)[0]
+    assert data["den"][-1] == 0.0 and data["num"][-1] / data["den"][-2] == pytest.approx(0.4, rel=1e-5)
+    assert len(data["notes"]) == 1 and "read as an integrator" in data["notes"][0]
 
 
 @pytest.mark.parametrize("digits", [5, 6, 7, 8])
@@ -372,6 +389,19 @@ def test_printed_rule_reads_digits_as_written():
     assert printed_radius("1") == 0 and printed_radius(1.0) == 0 and printed_radius(-2.0) == 0
     assert printed_radius(0.818182) == pytest.approx(5e-7)
     assert printed_radius(1 / 3) == pytest.approx(0.5e-16)
+
+
+def test_printout_precision_is_shared_and_read_from_the_text():
+    """A value written shorter than its neighbours (``1.5`` beside ``0.980198``) is known to the
+    printout's digits, not to its own; an expression keeps its digits as typed
+    ("1.000000 - 1.980200 z^-1" is ±5e-7 on each; the leading 1.000000 divides the others, so its
+    rounding adds 5e-7·|a_k| to each made-monic coefficient)."""
+    from convert.digital.printed import expression_den_radius, printed_radii
+
+    assert printed_radii(["1.5", "0.980198"]) == pytest.approx([5e-6, 5e-7])
+    assert printed_radii([1.0, -1.9802, 0.980198]) == pytest.approx([0.0, 5e-6, 5e-7])
+    radius = expression_den_radius("1/(1.000000 - 1.980200 z^-1 + 0.980198 z^-2)", 1000.0)
+    assert radius == pytest.approx([0.0, 5e-7 * (1 + 1.9802), 5e-7 * (1 + 0.980198)], rel=1e-6)
 
 
 def test_case_file_firmware_with_printed_coefficients_has_an_integrating_source(tmp_path):

@@ -153,12 +153,14 @@ def prepare_target(controller: Controller, options: DesignOptions) -> tuple[Cont
     c = controller
     if c.is_digital:
         try:
-            from convert.digital import to_analog
+            from convert.digital import read_analog
         except ImportError:
             raise UnrealizableError("a digital target needs convert.digital.to_analog, which is not available in "
                                     "this build; give the analog controller instead", key="target") from None
-        c = to_analog(c, options.inverse_method)
+        reading = read_analog(c, options.inverse_method)
+        c = reading.controller
         notes.append(f"digital target brought back to analog with the inverse {options.inverse_method} method")
+        notes.extend(reading.notes)  # e.g. printed poles at z = 1 read as integrators
     filtered = None
     if not c.is_proper:
         if c.relative_degree < -1:

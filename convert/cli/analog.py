@@ -59,6 +59,7 @@ def run(args, console) -> int:
     from convert.cli.digital import _positive, below_nyquist
     from convert.controller import from_expression
     from convert.digital import discretize, read_analog
+    from convert.digital.printed import expression_den_radius
     from convert.errors import InputError
     from convert.jsonable import roots_json
     from convert.values import format_value
@@ -81,7 +82,8 @@ def run(args, console) -> int:
     if not digital.is_digital:
         raise InputError("the expression is analog (in s); `loopshift analog` takes an expression in z", key="EXPR_IN_Z")
     with at(None, rename={"prewarp": "--prewarp", "match_at_hz": "--match-at", "method": "--method"}):
-        reading = read_analog(digital, args.method, prewarp, match_at_hz=match_at)
+        reading = read_analog(digital, args.method, prewarp, match_at_hz=match_at,
+                              den_radius=expression_den_radius(args.expression, fs))
         analog = reading.controller
         again = (discretize(analog, fs, args.method, prewarp_hz=prewarp, match_at_hz=match_at).controller
                  if analog.is_proper else None)

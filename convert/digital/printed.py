@@ -7,11 +7,14 @@ equivalent then has a pole at a picohertz corner, in the right half plane half o
 The rule (docs/digital.md, "Printed coefficients"):
 
 * **Printed precision.** Each denominator coefficient is known to half a unit in its last
-  written decimal place: ``0.818182`` to ±5e-7, ``-1.9802`` to ±5e-5. Whole numbers (``1``,
-  ``-2``, a float equal to an integer) are exact. Text keeps its digits as written
-  (``"1.000000"`` is ±5e-7); a float given in Python is taken at its shortest round-trip decimal
-  form (``repr``), so a computed float (16–17 digits) is trusted to about 1e-17 and nothing
-  but a pole already at z = 1 to within rounding of the arithmetic is moved.
+  written decimal place: ``0.818182`` to ±5e-7, ``-1.9802`` to ±5e-5 — but no worse than the
+  printout's precision: a value written shorter than the longest coefficient printed with it
+  (``1.5`` beside ``0.980198``; tools drop trailing zeros) is known to as many significant
+  digits as that one. Whole numbers (``1``, ``-2``, a float equal to an integer) are exact.
+  Text keeps its digits as written (``"1.000000"`` is ±5e-7); a float given in Python is
+  taken at its shortest round-trip decimal form (``repr``), so computed floats (16–17 digits)
+  are trusted to about 1e-17 and nothing but a pole already at z = 1 to within rounding of the
+  arithmetic is moved.
 * **Within rounding of z = 1.** The denominator D(z) has m poles at z = 1 within its printed
   precision when coefficients, each moved by no more than its own rounding, make D and its
   first m − 1 derivatives vanish at z = 1 (for m = 1 this is exactly |D(1)| ≤ Σ radius). The
@@ -29,27 +32,91 @@ import numpy as np
 from convert.controller import Controller
 
 
-def printed_radius(value) -> float:
-    """Half a unit in the last decimal place of ``value`` as written (0 for whole numbers).
-
-    ``value`` is the text as given (``"0.818182"``, ``"1.000000"``, ``"2.5e-3"``) or a number,
-    which is taken at its shortest round-trip decimal form (``repr``)."""
+def _decimal(value) -> Decimal | None:
+    """The value as written: text as given, a number at its shortest round-trip form; None for
+    whole numbers (exact) and what is not a decimal number."""
     if isinstance(value, str):
         text = value.strip()
         if not any(c in text for c in ".eE"):
-            return 0.0
+            return None
     else:
         number = float(value)
         if not math.isfinite(number) or number == int(number):
-            return 0.0
+            return None
         text = repr(number)
     try:
-        exponent = Decimal(text).as_tuple().exponent
+        out = Decimal(text)
     except InvalidOperation:
+        return None
+    return out if out.is_finite() and out != 0 else None
+
+
+def significant_digits(value) -> int:
+    """Significant digits ``value`` was written with (0 for whole numbers): ``"0.980198"`` 6."""
+    d = _decimal(value)
+    return 0 if d is None else len(d.normalize().as_tuple().digits)
+
+
+def printed_radius(value, digits: int | None = None) -> float:
+    """Half a unit in the last decimal place of ``value`` as written (0 for whole numbers).
+
+    ``value`` is the text as given (``"0.818182"``, ``"1.000000"``, ``"2.5e-3"``) or a number,
+    taken at its shortest round-trip decimal form (``repr``). ``digits``: the significant digits
+    of the printout it came from; a value written shorter (``1.5`` beside ``0.980198``: a tool
+    printing to 6 digits drops trailing zeros) is known to that many digits, not fewer."""
+    d = _decimal(value)
+    if d is None:
         return 0.0
+    exponent = d.as_tuple().exponent
     if not isinstance(exponent, int):
         return 0.0
-    return 0.5 * 10.0 ** exponent
+    radius = 0.5 * 10.0 ** exponent
+    if digits:
+        lead = d.adjusted()  # decimal exponent of the leading digit
+        radius = min(radius, 0.5 * 10.0 ** (lead - digits + 1))
+    return radius
+
+
+def printed_radii(values: Sequence, printout: Sequence = ()) -> list[float]:
+    """:func:`printed_radius` of each of ``values``, the printout's digits being the most
+    significant digits any of ``values`` or ``printout`` (the other coefficients printed with
+    them) was written with."""
+    digits = max([significant_digits(v) for v in [*values, *printout]] + [0])
+    return [printed_radius(v, digits) for v in values]
+
+
+def expression_den_radius(text: str, fs_hz: float) -> list[float] | None:
+    """The rounding of each denominator coefficient (descending powers of z, monic) of the
+    expression ``text`` in z, from the digits each number in it was written with: every number
+    moved by its own rounding changes the coefficients, and each coefficient's rounding is the sum
+    of those changes (first order; exact when each number is one coefficient, as in b/a form).
+    ``None`` when the expression cannot be read that way (then the stored floats decide)."""
+    from convert.controller import from_expression
+    from convert.errors import LoopshiftError
+    from convert.expr import number_spans
+
+    try:
+        base = from_expression(text, fs_hz=fs_hz)
+    except LoopshiftError:
+        return None
+    den = np.asarray(base.den, dtype=float)
+    total = np.zeros_like(den)
+    spans = number_spans(text)
+    digits = max([significant_digits(text[a:b]) for a, b in spans] + [0])
+    for start, end in spans:
+        token = text[start:end]
+        r = printed_radius(token, digits)
+        if r == 0:
+            continue
+        bumped = text[:start] + format(Decimal(token) + Decimal(repr(r)), "f") + text[end:]
+        try:
+            other = from_expression(bumped, fs_hz=fs_hz)
+        except LoopshiftError:
+            return None
+        if len(other.den) != den.size:  # an exact cancellation the rounding undoes: no first-order picture
+            return None
+        total += np.abs(np.asarray(other.den) - den)
+    return list(total)
 
 
 def _falling(power: int, order: int) -> float:
@@ -95,16 +162,16 @@ def printed_integrators(digital: Controller, den_radius: Sequence[float] | None 
     if not digital.is_digital or len(digital.den) < 2:
         return digital, []
     den = np.asarray(digital.den, dtype=float)
-    radius = (np.array([printed_radius(x) for x in den]) if den_radius is None
+    radius = (np.array(printed_radii(list(den), list(digital.num))) if den_radius is None
               else np.asarray(den_radius, dtype=float))
     if radius.shape != den.shape:
         raise ValueError("den_radius must have one entry per denominator coefficient")
-    before = digital.integrator_count()
+    before = _exact_integrators(digital)
     snapped, m = snap_to_integrators(den, radius)
     if m <= before:
         return digital, []
     moved = Controller.digital(digital.num, tuple(snapped), digital.sample_period_s, digital.name)
-    if moved.integrator_count() <= before:  # pragma: no cover - the move is exact to rounding of the sum
+    if _exact_integrators(moved) <= before:  # pragma: no cover - the move is exact to rounding of the sum
         return digital, []
     roots = np.roots(den)
     near = sorted(roots, key=lambda z: abs(z - 1))[: m - before]
@@ -121,7 +188,21 @@ def printed_integrators(digital: Controller, den_radius: Sequence[float] | None 
     note = (f"the pole{'s' if count > 1 else ''} at z = {shown} lie{'' if count > 1 else 's'} within the rounding of "
             f"the printed coefficients (±{_radii_text(radius)}) of z = 1: read as {what}, each coefficient moved by at "
             f"most {largest:.2g} of its rounding (taken literally: {', '.join(corners)})")
-    return moved, [note]
+    notes = [note]
+    num = np.asarray(digital.num, dtype=float)
+    at_one, spread = float(np.sum(num)), float(np.sum(printed_radii(list(num), list(den))))
+    if abs(at_one) <= spread:
+        notes.append(f"the numerator sums to {at_one:.3g} (±{spread:.2g} from its printed digits): the integral gain "
+                     "(the numerator at z = 1) is not carried by these digits and the integrator may cancel against a "
+                     "zero at z = 1; print the coefficients with more digits")
+    return moved, notes
+
+
+def _exact_integrators(digital: Controller) -> int:
+    """Poles the conversions take as exactly z = 1 (the root form divides them out)."""
+    from convert.digital.roots import RootForm
+
+    return sum(1 for p in RootForm.of(digital).poles if p == 1.0)
 
 
 def _near_one(z: complex) -> str:
