@@ -110,7 +110,7 @@ def run(args, console) -> int:
     if args.json:
         emit_json(console, [result])
         return 0
-    console.print(f"digital controller at {format_value(fs, 'hz', 6)}: {digital.expression()}", markup=False)
+    console.print(f"digital controller at {format_value(fs, 'hz', 6)}: {digital.expression(12)}", markup=False)
     console.print(f"analog equivalent under {args.method}"
                   + (f" (prewarp {format_value(prewarp, 'hz', 4)})" if prewarp else "") + ":", markup=False)
     console.print(f"  C(s) = {analog.expression(8)}", markup=False)
