@@ -452,3 +452,55 @@ def test_case_with_a_two_input_netlist_names_the_inputs_in_case_keys(tmp_path):
         source_controller(load_case(tmp_path / "two.toml"))
     msg = str(info.value)
     assert msg.startswith("two.toml:2: source.netlist.input:") and 'setpoint = "VSP", measurement = "VPV"' in msg
+
+
+@pytest.mark.parametrize("argv", [
+    ["show", "2*(1 + 1/(30*s) + 5*s/(0.5*s+1))"],
+    ["show", "--pid", "pb=50%", "reset=2/min", "td=0.1min", "form=series"],
+    ["card", str(NETLISTS / "sp_pv_card.cir"), "--setpoint", "VSP", "--measurement", "VPV"],
+    ["digital", "2*(1 + 1/(0.1*s) + 0.01*s)", "--fs", "1kHz", "--derivative-filter", "10", "--method", "all"],
+    ["circuit", "2*(1+1/(3s) + 0.5s/(0.05s+1))", "--draws", "200"],
+    ["analog", "(0.2 - 0.18 z^-1)/(1 - z^-1)", "--fs", "100Hz", "--method", "tustin"],
+], ids=lambda a: a[0])
+def test_no_command_breaks_a_word_at_80_columns(argv):
+    """Every word a command prints in an 80-column terminal is a whole word of the same output
+    printed 400 columns wide (a break is allowed only after a hyphen)."""
+    import io
+    import re
+
+    from rich.console import Console
+
+    from convert.cli.main import main
+
+    def run(width: int) -> str:
+        buffer = io.StringIO()
+        console = Console(file=buffer, width=width, color_system=None, force_terminal=False, highlight=False)
+        assert main(list(argv), console=console) == 0
+        return buffer.getvalue()
+
+    piece = re.compile(r"[^\s-]+-?")
+    wide = set(piece.findall(run(400)))
+    broken = {t for t in piece.findall(run(80)) if t not in wide and re.search(r"\w", t)}
+    assert not broken, broken
+
+
+def test_closed_pipe_keeps_the_verdict_exit_code_of_report(tmp_path):
+    """``loopshift report failing.toml | head -1`` under pipefail must not turn a FAIL into 0: the
+    output stops quietly and the exit code is still the verdict's (1)."""
+    import os
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    case = tmp_path / "tight.toml"
+    case.write_text(CASE.replace("max_gain_error_db = 1", "max_gain_error_db = 0.000001"), encoding="utf-8")
+    read, write = os.pipe()
+    os.close(read)
+    try:
+        env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parent.parent)}
+        done = subprocess.run([sys.executable, "-m", "convert", "report", str(case), "--out", str(tmp_path / "r")],
+                              stdout=write, stderr=subprocess.PIPE, env=env, timeout=300)
+    finally:
+        os.close(write)
+    assert done.returncode == 1 and done.stderr == b""
+    assert (tmp_path / "r" / "report.html").is_file()
