@@ -504,3 +504,16 @@ def test_closed_pipe_keeps_the_verdict_exit_code_of_report(tmp_path):
         os.close(write)
     assert done.returncode == 1 and done.stderr == b""
     assert (tmp_path / "r" / "report.html").is_file()
+
+
+def test_backward_difference_pid_under_tustin_points_to_its_reading():
+    """Read by tustin, the z = 0 pole of a backward-difference PID becomes a filter pole at fs/pi;
+    the note says what it most likely is and what backward-euler reads."""
+    from convert.controller import Controller
+    from convert.digital import read_analog
+
+    kp, ki, kd, t = 2.0, 0.5, 0.3, 0.01
+    digital = Controller.from_b_a([kp + ki * t + kd / t, -kp - 2 * kd / t, kd / t], [1.0, -1.0], t)
+    reading = read_analog(digital, "tustin")
+    assert min(abs(p) for p in reading.controller.poles() if abs(p) > 0) == pytest.approx(2 / t, rel=1e-12)
+    assert any("backward-difference" in n and "kp = 2, ki = 0.5 /s, kd = 0.3 s" in n for n in reading.notes)

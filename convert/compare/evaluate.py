@@ -171,10 +171,12 @@ def _analog_reference(case, src: Controller, notes: list[str]) -> Controller:
     """The analog controller the targets are built from (a digital source mapped back)."""
     if not src.is_digital:
         return src
-    from convert.digital import to_analog  # type: ignore[attr-defined]
+    from convert.digital import read_analog  # type: ignore[attr-defined]
 
     method = case.source.data.get("method", "tustin")
-    analog = to_analog(src, method)
+    reading = read_analog(src, method)
+    analog = reading.controller
+    notes.extend(f"source.digital: {n}" for n in reading.notes)  # e.g. a backward-difference derivative
     notes.append(f"the firmware source was mapped back to an analog equivalent by the {method} inverse; "
                  "the targets are built from that equivalent and compared with the firmware as it runs")
     return analog

@@ -114,6 +114,9 @@ def read_analog(digital: Controller, method: str, prewarp_hz: float | None = Non
     name = f"{digital.name or 'controller'} (from {method})"
     if method == "tustin":
         analog = _from_tustin(dz, t, prewarp_hz).to_controller(name)
+        hint = _backward_difference_hint(dz, t, analog)
+        if hint:
+            notes.append(hint)
     elif method == "backward-euler":
         analog = _from_backward(dz, t).to_controller(name)
         at_zero = sum(1 for p in dz.poles if abs(p) <= _TOL)
@@ -124,6 +127,28 @@ def read_analog(digital: Controller, method: str, prewarp_hz: float | None = Non
     else:
         analog = _from_zoh(digital, dz, t).to_controller(name)
     return AnalogReading(analog, tuple(notes))
+
+
+def _backward_difference_hint(dz: RootForm, t: float, analog: Controller) -> str | None:
+    """Under tustin a pole at z = 0 becomes a pole at s = −2/T (a filter at fs/π). When the
+    controller read by backward-euler is a PID, that pole is most likely a backward-difference
+    derivative, not a filter: say so and what the backward-euler reading is."""
+    if not any(abs(p) <= _TOL for p in dz.poles) or dz.relative_degree > 0:
+        return None
+    from convert.pid import pid_from_controller
+
+    try:
+        backward = _from_backward(dz, t).to_controller()
+    except (InputError, UnrealizableError):  # pragma: no cover - rd > 0 is excluded above
+        return None
+    pid = pid_from_controller(backward) if backward.relative_degree == -1 else None
+    if pid is None or pid.kd <= 0:
+        return None
+    sign = -1 if pid.action == "direct" else 1
+    return (f"the pole at z = 0 reads under tustin as a derivative filter with time constant T/2 = {t / 2:.3g} s (a "
+            f"pole at fs/pi = {1 / (math.pi * t):.4g} Hz); it is what a backward-difference derivative gives: read with "
+            f"--method backward-euler this is the unfiltered PID kp = {sign * pid.kp:.6g}, ki = {sign * pid.ki:.6g} /s, "
+            f"kd = {sign * pid.kd:.6g} s")
 
 
 def _unfiltered_note(analog: Controller, count: int) -> str:
