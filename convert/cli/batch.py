@@ -164,8 +164,9 @@ def _executor(scheduler: str | None, workers: int, cases: int):
             raise InputError("--scheduler needs Dask distributed; install it with pip install 'loopshift[cluster]'",
                              key="--scheduler") from None
         if scheduler == "local":
+            # ":0": any free port for the status page (None still binds 8787, which another cluster may hold)
             with LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                              dashboard_address=None) as cluster, Client(cluster) as client:
+                              dashboard_address=":0") as cluster, Client(cluster) as client:
                 yield client.get_executor()
         else:
             try:
