@@ -172,6 +172,8 @@ def _summary(console, results, folder) -> None:
     if failures:
         for j in failures:
             console.print(f"[red]fails:[/red] {escape(f'{j.realization}: {j.label} {j.value:.3g} {j.unit} > limit {j.limit:g} {j.unit}')}")
+    if results.verdict.unchecked_reason:
+        console.print(f"[red]unchecked:[/red] {escape(results.verdict.unchecked_reason)}")
     console.print(f"verdict: [{style}]{verdict.upper()}[/{style}]   report: {escape(str(folder))}/report.html")
 
 

@@ -10,12 +10,20 @@ Each criterion is a maximum. The figure compared with it is:
 * ``max_disturbance_deviation``: max |y − y_source| after a load-disturbance step, as a fraction
   of the source loop's peak deviation.
 
-A criterion that is not set is not checked; a loop criterion without a plant is "skipped" and
-listed. The overall verdict is "pass" when no checked criterion fails for any realization.
+A criterion that is not set is not checked; a loop criterion without a plant, or one whose figure
+does not exist or is not a finite number, is "skipped" and listed with the reason. The overall
+verdict is:
+
+* ``"fail"`` when a checked criterion fails for any realization;
+* ``"unchecked"`` when nothing failed but some realization (or the case, with no realization at
+  all) has not one criterion that was actually checked: nothing was shown, so it is not a pass
+  (exit code 1, like a failure; see docs/report.md);
+* ``"pass"`` otherwise: every realization passed at least one checked criterion and none failed.
 """
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 CRITERIA: tuple[tuple[str, str, str], ...] = (
@@ -62,9 +70,27 @@ class Verdict:
     def skipped(self) -> list[Judgement]:
         return [j for j in self.judgements if j.status == "skipped"]
 
+    @property
+    def unchecked_reason(self) -> str:
+        """Why the verdict is ``"unchecked"`` (empty otherwise): which realizations had no criterion
+        checked, and what was skipped for each."""
+        if self.overall != "unchecked":
+            return ""
+        names = list(dict.fromkeys(j.realization for j in self.judgements))
+        if not names:
+            return "no new form was built, so no criterion was checked"
+        bits = []
+        for name in names:
+            mine = [j for j in self.judgements if j.realization == name]
+            if any(j.status == "pass" for j in mine):
+                continue
+            skipped = [f"{j.label} ({j.note})" for j in mine if j.status == "skipped"]
+            bits.append(f"{name}: " + ("; ".join(skipped) if skipped else "no criterion set"))
+        return "no criterion was checked for " + " | ".join(bits)
+
     def as_dict(self) -> dict:
         return {"verdict": self.overall, "judgements": [j.as_dict() for j in self.judgements],
-                "failures": [j.as_dict() for j in self.failures]}
+                "failures": [j.as_dict() for j in self.failures], "unchecked_reason": self.unchecked_reason}
 
 
 def judge(criteria: dict, figures: dict[str, dict], *, has_plant: bool) -> Verdict:
@@ -84,8 +110,16 @@ def judge(criteria: dict, figures: dict[str, dict], *, has_plant: bool) -> Verdi
             elif value is None:
                 status = "skipped"
                 note = note or "figure not available"
+            elif not math.isfinite(value):
+                status, value = "skipped", None
+                note = "the figure is not a finite number (it could not be computed)" + (f"; {note}" if note else "")
             else:
                 status = "pass" if abs(value) <= limit else "fail"
             out.append(Judgement(name, key, label, unit, limit, None if value is None else abs(value), status, note))
-    overall = "fail" if any(j.status == "fail" for j in out) else "pass"
+    if any(j.status == "fail" for j in out):
+        overall = "fail"
+    elif not figures or any(not any(j.status == "pass" for j in out if j.realization == name) for name in figures):
+        overall = "unchecked"
+    else:
+        overall = "pass"
     return Verdict(overall, tuple(out))

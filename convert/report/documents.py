@@ -31,7 +31,7 @@ h1{font-size:1.5em}h2{font-size:1.2em;margin-top:1.6em;border-bottom:1px solid #
 table{border-collapse:collapse;margin:.6em 0;font-size:.88em}td,th{border:1px solid #d5d8dc;padding:.25em .5em;vertical-align:top}
 th{background:#eaf2f8;text-align:left}.pass{color:#1e8449;font-weight:600}.fail{color:#c0392b;font-weight:700}
 .verdict{font-size:1.3em;padding:.4em .8em;display:inline-block;border-radius:4px}
-.verdict.pass{background:#d5f5e3}.verdict.fail{background:#fadbd8}
+.verdict.pass{background:#d5f5e3}.verdict.fail{background:#fadbd8}.verdict.unchecked{background:#fdebd0}
 ul.failed{color:#c0392b;margin:.3em 0 1em}
 .caution{background:#fef9e7;border-left:4px solid #b7950b;padding:.5em 1em}
 p.note{font-size:.85em;color:#444;max-width:60em}
@@ -70,6 +70,8 @@ def html_report(results, figures: dict[str, bytes]) -> str:
     failed = failing_criteria(results)
     if failed:
         parts.append('<ul class="failed">' + "".join(f"<li>{html.escape(t)}</li>" for t in failed) + "</ul>")
+    if results.verdict.unchecked_reason:
+        parts.append(f"<p>{html.escape(results.verdict.unchecked_reason)}</p>")
     parts.append('<div class="caution"><strong>Cautions.</strong><ul>'
                  + "".join(f"<li>{html.escape(c)}</li>" for c in CAUTIONS) + "</ul></div>")
     for title, header, rows in input_tables(results):
@@ -112,6 +114,8 @@ def markdown_report(results, figure_names=()) -> str:
     failed = failing_criteria(results)
     if failed:
         lines += [f"- failed: {_md_cell(t)}" for t in failed] + [""]
+    if results.verdict.unchecked_reason:
+        lines += [_md_cell(results.verdict.unchecked_reason), ""]
     lines += ["> **Cautions.**"]
     lines += [f"> - {c}" for c in CAUTIONS]
     lines.append("")

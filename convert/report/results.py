@@ -43,6 +43,7 @@ def results_dict(results) -> dict:
     return {
         "tool": f"loopshift {__version__}",
         "verdict": results.verdict.overall,
+        "unchecked_reason": results.verdict.unchecked_reason,
         "case": case_summary(results.case),
         "source": {"num": list(ref.num), "den": list(ref.den), "domain": ref.domain,
                    "sample_period_s": ref.sample_period_s, "expression": ref.expression(),
