@@ -28,13 +28,6 @@ from convert.errors import InputError
 
 Domain = Literal["analog", "digital"]
 
-# A pole counts as "at the origin" (analog) or "at z = 1" (digital) when the denominator
-# vanishes there to within this many rounding errors of its evaluation (relative to the sum of
-# the absolute coefficients, the natural bound for |x| <= 1). Poles merely close to z = 1
-# (fs far above a corner) leave a residue well above this and are not integrators.
-_ROOT_RTOL = 1e-12
-
-
 def _as_coefficients(values: Sequence[float], what: str) -> tuple[float, ...]:
     try:
         raw = np.atleast_1d(np.asarray(values))
@@ -56,7 +49,23 @@ def _as_coefficients(values: Sequence[float], what: str) -> tuple[float, ...]:
     nz = np.flatnonzero(arr)
     if nz.size == 0:
         raise InputError("the polynomial is identically zero", key=what)
+    _check_range(arr, what)
     return tuple(float(x) for x in arr[nz[0]:])
+
+
+_TINY = float(np.finfo(float).tiny)  # smallest normal double, about 2.2e-308
+
+
+def _check_range(arr: np.ndarray, what: str, after: str = "") -> None:
+    """Refuse coefficients that overflowed (inf) or sit below the normal range (subnormal: digits
+    already lost, and the next operation underflows to 0)."""
+    if not np.all(np.isfinite(arr)):
+        raise InputError(f"a coefficient{after} is too large for a floating-point number (beyond about 1.8e308)",
+                         key=what)
+    small = arr[(arr != 0) & (np.abs(arr) < _TINY)]
+    if small.size:
+        raise InputError(f"a coefficient{after} is too small for a floating-point number ({small[0]:.3g}, below "
+                         "about 2.2e-308); rescale the controller (time in other units) or drop the term", key=what)
 
 
 @dataclass(frozen=True)
@@ -87,8 +96,17 @@ class Controller:
         den = _as_coefficients(self.den, "denominator")
         lead = den[0]
         # "+ 0.0" turns a negative zero (e.g. -0.0 / 1) into 0.0, so no "-0" is ever printed
-        object.__setattr__(self, "num", tuple(c / lead + 0.0 for c in num))
-        object.__setattr__(self, "den", tuple(c / lead + 0.0 for c in den))
+        with np.errstate(all="ignore"):
+            num_n = np.asarray(num) / lead
+            den_n = np.asarray(den) / lead
+        after = " (after dividing by the denominator's leading coefficient)"
+        _check_range(num_n, "numerator", after)
+        _check_range(den_n, "denominator", after)
+        if not np.any(num_n):
+            raise InputError(f"every numerator coefficient{after} is too small for a floating-point number",
+                             key="numerator")
+        object.__setattr__(self, "num", tuple(float(c) + 0.0 for c in num_n))
+        object.__setattr__(self, "den", tuple(float(c) + 0.0 for c in den_n))
 
     @classmethod
     def analog(cls, num: Sequence[float], den: Sequence[float], name: str = "") -> "Controller":
@@ -158,21 +176,54 @@ class Controller:
         return len(self.den) - 1
 
     def zeros(self) -> np.ndarray:
-        """Finite zeros (s or z plane), as a complex array (a fresh copy each call)."""
-        return self._roots_of_num.copy()
+        """Finite zeros (s or z plane), each repeated by its multiplicity, as a complex array (a
+        fresh copy each call). See :meth:`zero_roots` for multiplicities and accuracies."""
+        from convert.polyroots import expand
+
+        return expand(self.zero_roots())
 
     def poles(self) -> np.ndarray:
-        """Poles (s or z plane), as a complex array (a fresh copy each call)."""
-        return self._roots_of_den.copy()
+        """Poles (s or z plane), each repeated by its multiplicity, as a complex array (a fresh copy
+        each call). See :meth:`pole_roots` for multiplicities and accuracies."""
+        from convert.polyroots import expand
+
+        return expand(self.pole_roots())
+
+    def zero_roots(self) -> tuple:
+        """Distinct zeros as :class:`convert.polyroots.Root` (value, multiplicity, accuracy)."""
+        return self._root_sets[0]
+
+    def pole_roots(self) -> tuple:
+        """Distinct poles as :class:`convert.polyroots.Root` (value, multiplicity, accuracy)."""
+        return self._root_sets[1]
+
+    @property
+    def special_points(self) -> tuple[float, ...]:
+        """Points whose roots are counted exactly: s = 0 (analog); z = 1 and z = −1 (digital)."""
+        return (1.0, -1.0) if self.is_digital else (0.0,)
 
     # The object is immutable, so its roots are computed once (conversions ask for them often).
     @cached_property
-    def _roots_of_num(self) -> np.ndarray:
-        return np.roots(self.num).astype(complex) if len(self.num) > 1 else np.zeros(0, complex)
+    def _root_sets(self) -> tuple[tuple, tuple]:
+        """(zeros, poles) as Root tuples. Roots at the special points are counted by the relative
+        rule of :func:`convert.polyroots.count_at` and divided out exactly (error 0); the rest are
+        found with multiplicity (:func:`convert.polyroots.find_roots`)."""
+        from convert.polyroots import Root, count_at, find_roots
 
-    @cached_property
-    def _roots_of_den(self) -> np.ndarray:
-        return np.roots(self.den).astype(complex) if len(self.den) > 1 else np.zeros(0, complex)
+        rough = {"num": np.roots(self.num) if len(self.num) > 1 else np.zeros(0),
+                 "den": np.roots(self.den) if len(self.den) > 1 else np.zeros(0)}
+        out = []
+        for part, other in (("num", "den"), ("den", "num")):
+            p = np.asarray(getattr(self, part), dtype=float)
+            exact = []
+            for point in self.special_points:
+                m = count_at(p, point, rough[other], rounding=self.is_digital)
+                for _ in range(m):
+                    p, _ = np.polydiv(p, [1.0, -point])
+                if m:
+                    exact.append(Root(complex(point), m, 0.0))
+            out.append(tuple(exact) + find_roots(p))
+        return out[0], out[1]
 
     @property
     def gain(self) -> float:
@@ -180,14 +231,15 @@ class Controller:
         return self.num[0]
 
     def integrator_count(self) -> int:
-        """Poles at s = 0 (analog) or z = 1 (digital), counted with multiplicity."""
-        p = np.array(self.den)
-        count = 0
+        """Poles at s = 0 (analog) or z = 1 (digital), counted with multiplicity.
+
+        "At" is decided relative to the controller's own scales, not by an absolute threshold: a
+        pole counts when the denominator vanishes there exactly (digital: to within a few
+        rounding errors), or when it is 10^12 times closer to the point than every other zero and
+        pole (:func:`convert.polyroots.count_at`). So ``(s+1e-13)/(s+1e-14)`` is not integrating
+        (its DC gain is 10)."""
         point = 1.0 if self.is_digital else 0.0
-        while len(p) > 1 and abs(np.polyval(p, point)) <= _ROOT_RTOL * float(np.sum(np.abs(p))):
-            p, _ = np.polydiv(p, [1.0, -point])
-            count += 1
-        return count
+        return sum(r.multiplicity for r in self.pole_roots() if r.error == 0 and r.value == point)
 
     @property
     def is_integrating(self) -> bool:
@@ -198,6 +250,8 @@ class Controller:
         if self.is_integrating:
             return None
         point = 1.0 if self.is_digital else 0.0
+        if any(r.error == 0 and r.value == point for r in self.zero_roots()):
+            return 0.0
         return float(np.polyval(self.num, point) / np.polyval(self.den, point))
 
     def high_frequency_gain(self) -> float | None:
@@ -258,30 +312,27 @@ class Controller:
         """Corner frequencies in Hz of the non-integrating zeros and poles.
 
         Analog: |root| / 2π. Digital: |ln(root)| / (2π T) (the equivalent analog corner).
-        Roots at the origin (analog) or at z = 1 (digital) and at z = 0 are left out. Complex
-        pairs are listed once.
+        Roots exactly at the origin (analog) or at z = 1 (digital) and at z = 0 are left out (see
+        :meth:`integrator_count` for "exactly"). Complex pairs are listed once; a repeated root
+        once per multiplicity.
         """
         return {label: list(values) for label, values in self._corners.items()}
 
     @cached_property
     def _corners(self) -> dict[str, list[float]]:
         out: dict[str, list[float]] = {}
-        for label, roots in (("zeros", self.zeros()), ("poles", self.poles())):
+        for label, roots in (("zeros", self.zero_roots()), ("poles", self.pole_roots())):
             values: list[float] = []
-            for r in roots:
-                if r.imag < -1e-12 * max(1.0, abs(r)):
+            for root in roots:
+                r = root.value
+                exact = root.error == 0
+                if r.imag < 0 or (exact and r == (1.0 if self.is_digital else 0.0)) or (exact and r == 0):
                     continue
                 if self.is_digital:
-                    if abs(r) < 1e-12:
-                        continue
-                    s_equiv = np.log(complex(r)) / self.sample_period_s
-                    if abs(r - 1.0) < 1e-9:
-                        continue
-                    values.append(float(abs(s_equiv) / (2 * np.pi)))
+                    corner = abs(np.log(complex(r)) / self.sample_period_s) / (2 * np.pi)
                 else:
-                    if abs(r) < 1e-12:
-                        continue
-                    values.append(float(abs(r) / (2 * np.pi)))
+                    corner = abs(r) / (2 * np.pi)
+                values += [float(corner)] * root.multiplicity
             out[label] = sorted(values)
         return out
 
@@ -342,6 +393,15 @@ class Controller:
         return f"({num}) / ({den})"
 
 
+def _magnitude(value) -> str:
+    """1e+400-style order of magnitude of an exact rational (it may be beyond any float)."""
+    from fractions import Fraction
+
+    v = abs(Fraction(value))
+    exponent = len(str(v.numerator)) - len(str(v.denominator))
+    return f"1e{exponent:+d}"
+
+
 def from_expression(text: str, *, fs_hz: float | None = None, label: str = "expression", name: str = "") -> Controller:
     """Read a controller from an expression in ``s`` or in ``z`` / ``z^-1``.
 
@@ -351,16 +411,28 @@ def from_expression(text: str, *, fs_hz: float | None = None, label: str = "expr
     from convert.expr import parse_rational
 
     parsed = parse_rational(text, label=label)
-    try:
-        num = [float(c) for c in parsed.num]
-        den = [float(c) for c in parsed.den]
-    except OverflowError:
-        num = den = [math.inf]
-    if not all(math.isfinite(c) for c in num + den):
-        raise InputError("a coefficient is too large for a floating-point number (beyond about 1e308)", where=label)
-    if not any(num):
-        raise InputError("every numerator coefficient is too small for a floating-point number (below about 1e-308)",
-                         where=label)
+    # Normalise exactly (den monic, in rationals) so the floats below are the ones the controller
+    # keeps; then a non-zero coefficient that is infinite, zero or subnormal in double is refused.
+    lead = parsed.den[0]
+    exact = [c / lead for c in parsed.num], [c / lead for c in parsed.den]
+    converted = []
+    for values in exact:
+        row = []
+        for c in values:
+            try:
+                f = float(c)
+            except OverflowError:
+                f = math.inf
+            if not math.isfinite(f):
+                raise InputError(f"a coefficient is too large for a floating-point number (about {_magnitude(c)}, "
+                                 "beyond about 1.8e308, with the denominator's leading coefficient 1)", where=label)
+            if c != 0 and abs(f) < _TINY:
+                raise InputError(f"a coefficient is too small for a floating-point number (about {_magnitude(c)}, "
+                                 "below about 2.2e-308, with the denominator's leading coefficient 1); rescale the "
+                                 "controller or drop the term", where=label)
+            row.append(f)
+        converted.append(row)
+    num, den = converted
     if parsed.variable == "z" or (parsed.variable is None and fs_hz is not None):
         if fs_hz is None:
             raise InputError("an expression in z needs a sample rate; give it with --fs (Hz)", where=label)

@@ -115,6 +115,7 @@ def parse_value(text: str | float | int, kind: str = "number", *, field: str = "
     if unit_kind == "percent" and kind == "ratio":
         value /= 100.0
     _check_finite(value, field, kind, text)
+    _check_underflow(value, m.group("num"), field, text)
     return value
 
 
@@ -138,6 +139,14 @@ def parse_fraction(text: str | float | int, *, field: str = "value", allow_one: 
             key=field,
         )
     return value
+
+
+def _check_underflow(value: float, number_text: str, field: str, shown: str) -> None:
+    """A written non-zero number that is zero or subnormal in double (below about 2.2e-308) is
+    refused: it would silently become 0 or lose its digits."""
+    if abs(value) < 2.2250738585072014e-308 and Decimal(number_text) != 0:
+        raise InputError(f"expected a number within double precision, found {shown.strip()!r}: too small "
+                         "(below about 2.2e-308)", key=field)
 
 
 def _scaled(number_text: str, multiplier: float) -> float:

@@ -99,8 +99,12 @@ def test_zoh_round_trip_loses_digits_on_a_double_pole_regression():
     """Regression: a double real pole at 10 Hz, a complex pair of the same modulus and an
     integrator at fs = 1 kHz lost 5.5e-5 relative in the zoh round trip (the forward zoh took its
     zeros from the system pencil of a companion-form Φ, where they rest on tiny differences of
-    O(1) entries; the inverse took A = logm(Φ), whose double eigenvalue split by ~sqrt(eps)). Now
-    7.8e-12 (measured). References: scipy.signal.cont2discrete (zoh) evaluated as
+    O(1) entries; the inverse took A = logm(Φ), whose double eigenvalue split by ~sqrt(eps)). It
+    measured 7.8e-12 while the digital double pole was split into two roots 5e-7 apart; found as one
+    double root (convert.polyroots, issue 9) it measures 4.1e-10: the stored coefficients hold the
+    double pole only to ~4e-6 (mpmath.polyroots at 50 digits finds 0.9390995 and 0.9391033), so
+    both answers are within what the coefficients carry, and the bound is the forward check's
+    1e-9. References: scipy.signal.cont2discrete (zoh) evaluated as
     C(zI − Φ)⁻¹Γ + D by a linear solve for the forward step; scipy.signal.freqs for the original."""
     from scipy.signal import cont2discrete, tf2ss
 
@@ -116,7 +120,7 @@ def test_zoh_round_trip_loses_digits_on_a_double_pole_regression():
     assert np.max(np.abs(real.frequency_response(BAND_HZ) / ref - 1)) <= 1e-9
     back = to_analog(real.controller, "zoh")
     err = np.max(np.abs(_analog_response(back, BAND_HZ) / _analog_response(c, BAND_HZ) - 1))
-    assert err <= 1e-10
+    assert err <= 1e-9
 
 
 @pytest.mark.parametrize("method", ["zoh", "matched"])

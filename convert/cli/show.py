@@ -89,6 +89,8 @@ def summary(controller, settings=None, not_pid_reason=None) -> dict:
         gain=controller.gain,
         zeros=controller.zeros(),
         poles=controller.poles(),
+        zero_roots=[r.as_dict() for r in controller.zero_roots()],
+        pole_roots=[r.as_dict() for r in controller.pole_roots()],
         dc_gain=controller.dc_gain(),
         integrating=integrators > 0,
         integrators=integrators,
@@ -186,13 +188,18 @@ def _render(console, data: dict, d: int) -> None:
     zp = Table(title="Zeros, poles and gain", box=box.SIMPLE_HEAD, title_justify="left")
     zp.add_column("", style="bold")
     zp.add_column(f"{var}-plane")
+    zp.add_column("times", justify="right")
+    zp.add_column("accuracy (±)", justify="right")
     zp.add_column("corner (Hz)" if not digital else "equivalent corner (Hz)", justify="right")
     for label in ("zeros", "poles"):
-        roots = list(data[label])
+        roots = data[label[:-1] + "_roots"]
         if not roots:
-            zp.add_row(label, "none", "")
-        for i, r in enumerate(roots):
-            zp.add_row(label if i == 0 else "", _root(r, d), _corner(r, data, d, label))
+            zp.add_row(label, "none", "", "", "")
+        for i, root in enumerate(roots):
+            r = complex(root["re"], root["im"])
+            exact = root["accuracy"] == 0
+            zp.add_row(label if i == 0 else "", _root(r, d), str(root["multiplicity"]),
+                       "exact" if exact else f"{root['accuracy']:.1g}", _corner(r, exact, data, d, label))
     console.print(zp)
 
     g = Table(box=box.SIMPLE_HEAD, show_header=False)
@@ -235,17 +242,19 @@ def _expression(data: dict, d: int) -> str:
     return num if den == "1" else f"({num}) / ({den})"
 
 
-def _corner(r: complex, data: dict, d: int, label: str) -> str:
+def _corner(r: complex, exact: bool, data: dict, d: int, label: str) -> str:
+    """The corner column: a root exactly at s = 0 / z = 1 / z = 0 is named (``exact``: counted
+    there by Controller's relative rule), any other root gets its corner frequency."""
     import cmath
     import math
 
     if data["domain"] == "digital":
-        if abs(r) < 1e-12:
+        if exact and r == 0:
             return "z = 0 (pure delay)"
-        if abs(r - 1) < 1e-9:
+        if exact and r == 1:
             return "integrator" if label == "poles" else "at z = 1 (differencer)"
         return _n(abs(cmath.log(r)) / (2 * math.pi * data["sample_period_s"]), d)
-    if abs(r) < 1e-12:
+    if exact and r == 0:
         return "integrator" if label == "poles" else "at s = 0 (differentiator)"
     return _n(abs(r) / (2 * math.pi), d)
 

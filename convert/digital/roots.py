@@ -25,9 +25,11 @@ class RootForm:
 
     @classmethod
     def of(cls, controller: Controller) -> "RootForm":
-        """Roots of the controller's polynomials. Roots at s = 0 (analog) or z = ±1 (digital) —
-        integrators, washouts, Nyquist zeros — are divided out first and kept exact, since a repeated root
-        found numerically scatters by about the square root of the rounding error."""
+        """Roots of the controller's polynomials (:meth:`Controller.zeros`/``poles``). Roots at s = 0
+        (analog) or z = ±1 (digital) — integrators, washouts, Nyquist zeros — are exact, and a
+        repeated root is found as one root with its multiplicity (:mod:`convert.polyroots`), since
+        a repeated root found by an eigenvalue solver scatters by about the m-th root of the
+        rounding error."""
         return _root_form_of(controller)
 
     @property
@@ -63,21 +65,8 @@ class RootForm:
 @lru_cache(maxsize=512)
 def _root_form_of(controller: Controller) -> RootForm:
     # Controllers are immutable and hashable: a survey asks for the same roots many times.
-    points = (1.0, -1.0) if controller.is_digital else (0.0,)
-    return RootForm(_roots(controller.num, points), _roots(controller.den, points), float(controller.gain),
-                    controller.sample_period_s)
-
-
-def _roots(coefficients, points) -> tuple[complex, ...]:
-    p = np.asarray(coefficients, dtype=float)
-    exact: list[complex] = []
-    for point in points:
-        scale = float(np.sum(np.abs(p)))
-        while p.size > 1 and abs(np.polyval(p, point)) <= 1e-13 * scale:
-            p, _ = np.polydiv(p, [1.0, -point])
-            exact.append(complex(point))
-    rest = np.roots(p).astype(complex) if p.size > 1 else np.zeros(0, complex)
-    return tuple(exact) + tuple(complex(r) for r in rest)
+    return RootForm(tuple(complex(r) for r in controller.zeros()), tuple(complex(r) for r in controller.poles()),
+                    float(controller.gain), controller.sample_period_s)
 
 
 def _pairs(roots) -> np.ndarray:
