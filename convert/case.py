@@ -639,6 +639,10 @@ def _read_criteria(ctx: _Ctx, data: dict) -> Criteria:
     if "band" not in table:
         raise ctx.error("criteria", "missing band: the frequency range compared, e.g. band = [\"10 mHz\", \"1 Hz\"]")
     band = ctx.pair(table, "band", "criteria.band", "hz", positive=True)
+    from convert.compare.frequency import band_width_problem
+
+    if band_width_problem(*band):
+        raise ctx.error("criteria.band", band_width_problem(*band))
     values = {}
     for key in SCHEMA["criteria"]:
         if key == "band":

@@ -196,8 +196,20 @@ def run(args, console) -> int:
         design = design_circuit(controller, options, settings=settings)
     with at("--tolerance"):
         tolerances = parse_tolerances(args.tolerance, part_names=design.topology.part_names)
-    errors = error_sources(design, tolerances=tolerances, draws=args.draws, seed=args.seed,
-                           distribution=args.distribution, opamp=opamp, amplitude_v=amplitude, rail_v=rail)
+    import numpy as np
+
+    # Overflow far from the corners shows up as a non-finite figure, refused just below.
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        errors = error_sources(design, tolerances=tolerances, draws=args.draws, seed=args.seed,
+                               distribution=args.distribution, opamp=opamp, amplitude_v=amplitude, rail_v=rail)
+    from convert.jsonable import non_finite_path
+
+    bad = non_finite_path(errors)
+    if bad:  # never print NaN as a result (issue 9): the figures over/underflow somewhere in the band
+        shown = f"{band[0]:g} Hz .. {band[1]:g} Hz" if band else "the default band"
+        raise InputError(f"the error figure {bad} is not a finite number over {shown}: the circuit's response "
+                         "overflows or underflows there in floating point; give a band a few decades around the "
+                         "controller's corners", key="--band")
     trims = _trims(args, design)
     written = []
     if args.netlist:

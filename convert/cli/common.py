@@ -78,6 +78,11 @@ def band_from_args(words) -> tuple[float, float] | None:
     if not band[0] < band[1]:
         raise InputError(f"the band's low end must be below its high end, found {words[0]} .. {words[1]}",
                          key="--band")
+    from convert.compare.frequency import band_width_problem
+
+    problem = band_width_problem(*band)
+    if problem:
+        raise InputError(problem, key="--band")
     return band
 
 

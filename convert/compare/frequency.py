@@ -16,6 +16,21 @@ from convert.controller import Controller
 from convert.errors import InputError
 
 
+#: Widest band a comparison accepts, in decades. A controller's corners, its band and its sample
+#: rate sit within a few decades of one another; twelve leave room for any of them, and beyond
+#: that powers of s (or the float32 Monte Carlo arithmetic) overflow and the grid grows for nothing.
+MAX_BAND_DECADES = 12
+
+
+def band_width_problem(low_hz: float, high_hz: float) -> str | None:
+    """Why the band (Hz) is too wide, or None. One rule for the CLI's --band and case files."""
+    decades = float(np.log10(high_hz / low_hz))
+    if decades > MAX_BAND_DECADES:
+        return (f"the band spans {decades:.3g} decades; the limit is {MAX_BAND_DECADES} decades (give a band a few "
+                "decades around the controller's corners)")
+    return None
+
+
 def log_grid(f_low_hz: float, f_high_hz: float, points_per_decade: int = 100) -> np.ndarray:
     """Logarithmically spaced frequencies from ``f_low_hz`` to ``f_high_hz`` inclusive (Hz)."""
     if not (f_low_hz > 0 and f_high_hz > f_low_hz and np.isfinite(f_high_hz)):

@@ -16,12 +16,16 @@ Table = tuple[str, list[str], list[list[str]]]
 
 #: Below this magnitude an error or change (dB or degrees) is written as "< 0.001".
 FLOOR = 1e-3
+#: What a table shows for a figure that came out NaN: never the NaN itself (issue 9).
+NOT_COMPUTED = "not computed"
 
 
 def num(x, digits: int = 3, unit: str = "") -> str:
     """``x`` to ``digits`` significant digits with ``unit``; "—" for None."""
     if x is None:
         return "—"
+    if isinstance(x, float) and math.isnan(x):
+        return NOT_COMPUTED
     if isinstance(x, float) and not math.isfinite(x):
         return "∞" if x > 0 else "−∞"
     text = f"{x:.{digits}g}"
@@ -34,6 +38,8 @@ def fixed(x, unit: str = "", digits: int = 3, floor: float = FLOOR) -> str:
     if x is None:
         return "—"
     x = float(x)
+    if math.isnan(x):
+        return NOT_COMPUTED
     if not math.isfinite(x):
         return "∞" if x > 0 else "−∞"
     if x == 0:
