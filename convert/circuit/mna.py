@@ -49,6 +49,29 @@ _ZERO_FACTOR = 1e3  # a coefficient below this many error bounds is zero
 _CANCEL_RTOL = 1e-5  # a zero and a pole this close (relative) cancel
 _ATTEMPTS = ((1.0, 4), (3.0, 12))  # (sample circles per decade, points per circle beyond the degree)
 
+#: Largest nodal-analysis system (unknowns: node voltages plus branch currents). The matrices are
+#: kept dense for the structural checks (8·n² bytes each: 32 MB at the limit); the solves at the
+#: sample points use a sparse LU beyond _DENSE_MAX unknowns.
+MAX_UNKNOWNS = 2000
+#: Most reactive parts (capacitors, inductors, single-pole op-amps): the degree the transfer
+#: function may have. The result is a ratio of polynomials in double precision; a 40-section RC
+#: ladder already needs coefficients beyond 1e-308 relative to each other (measured), so a
+#: controller of higher degree cannot be held accurately in that form.
+MAX_REACTIVE = 40
+_ZERO_OUTPUT_V = 1e-9  # |V(out)| per volt of input below which the output does not depend on it (-180 dB)
+_DENSE_MAX = 120  # up to this many unknowns the batched dense solve is faster than a sparse LU
+
+
+def _check_size(netlist: Netlist, unknowns: int, reactive: int) -> None:
+    if unknowns > MAX_UNKNOWNS:
+        raise InputError(f"the circuit needs {unknowns:,} nodal-analysis unknowns (nodes and branch currents); the "
+                         f"limit is {MAX_UNKNOWNS:,} (convert.circuit.mna.MAX_UNKNOWNS)", where=netlist.source)
+    if reactive > MAX_REACTIVE:
+        raise InputError(f"the circuit has {reactive:,} reactive parts (capacitors, inductors, single-pole op-amps), "
+                         f"so its transfer function could have degree {reactive:,}; the limit is {MAX_REACTIVE} "
+                         "(a ratio of polynomials of higher degree cannot be held accurately in double precision; "
+                         "convert.circuit.mna.MAX_REACTIVE)", where=netlist.source)
+
 
 @dataclass(frozen=True)
 class MnaSystem:
@@ -213,6 +236,8 @@ def build_system(netlist: Netlist, inputs: Sequence[str] = ("VIN",), output: str
         raise InputError("the same source is named twice as an input", where=netlist.source, key="input")
     index, branch, unknowns = _numbering(elements)
     size = len(unknowns)
+    _check_size(netlist, size, sum(1 for e in elements if e.kind in ("C", "L")
+                                   or (e.kind == "OPAMP" and e.param("gbw") is not None)))
     G = np.zeros((size, size))
     C = np.zeros((size, size))
     mats = (G, C)
@@ -264,8 +289,62 @@ def _equilibrate(system: MnaSystem) -> tuple[np.ndarray, np.ndarray, dict[str, n
     return system.G * inv[:, None], system.C * inv[:, None], {k: v * inv for k, v in system.rhs.items()}
 
 
+def _permutation_sign(perm: np.ndarray) -> int:
+    """+1 or −1: the parity of a permutation, (n − number of cycles) mod 2. Cycles are found by
+    pointer doubling: each index takes the smallest index on its cycle (log2 n numpy steps)."""
+    p = np.asarray(perm)
+    label = np.arange(p.size)
+    for _ in range(int(np.ceil(np.log2(max(p.size, 2)))) + 1):
+        label = np.minimum(label, label[p])
+        p = p[p]
+    cycles = np.unique(label).size
+    return -1 if (perm.size - cycles) % 2 else 1
+
+
+def _sparse_factors(G, C, s: np.ndarray):
+    """Yield (s, SuperLU factorization or None when singular) of G + sC at each point, G and C as
+    sparse CSC matrices (a fresh complex LU per point: memory O(fill), not O(points·n²))."""
+    from scipy.sparse import csc_matrix
+    from scipy.sparse.linalg import splu
+
+    Gs, Cs = csc_matrix(G, dtype=complex), csc_matrix(C, dtype=complex)
+    for x in s:
+        try:
+            with np.errstate(all="ignore"):
+                yield x, splu((Gs + x * Cs).tocsc())
+        except RuntimeError:  # "factor is exactly singular"
+            yield x, None
+
+
+def _lu_logdet(lu) -> tuple[complex, float]:
+    """(phase factor, log|det|) from a SuperLU factorization (L has a unit diagonal)."""
+    d = lu.U.diagonal()
+    mag = np.abs(d)
+    if np.any(mag == 0) or not np.all(np.isfinite(mag)):
+        return 0j, -np.inf
+    phase = complex(np.prod(d / mag)) * _permutation_sign(lu.perm_r) * _permutation_sign(lu.perm_c)
+    return phase, float(np.sum(np.log(mag)))
+
+
+def _solve_many_sparse(G, C, B, s: np.ndarray):
+    sign = np.zeros(len(s), complex)
+    logdet = np.full(len(s), -np.inf)
+    X = np.zeros((len(s),) + B.shape, complex)
+    for i, (_, lu) in enumerate(_sparse_factors(G, C, s)):
+        if lu is None:
+            return sign, logdet, None
+        sign[i], logdet[i] = _lu_logdet(lu)
+        X[i] = lu.solve(B.astype(complex))
+    if np.any(sign == 0):
+        return sign, logdet, None
+    return sign, logdet, X
+
+
 def _solve_many(G, C, B, s: np.ndarray):
-    """(log|det|, det phase factor, solutions) of (G + sC) X = B at each s (batched)."""
+    """(log|det|, det phase factor, solutions) of (G + sC) X = B at each s (batched dense for small
+    systems; one sparse LU per point beyond _DENSE_MAX unknowns)."""
+    if G.shape[0] > _DENSE_MAX:
+        return _solve_many_sparse(G, C, B, s)
     Y = G[None, :, :] + s[:, None, None] * C[None, :, :]
     sign, logdet = np.linalg.slogdet(Y)
     if np.any(sign == 0) or not np.all(np.isfinite(logdet)):
@@ -308,10 +387,12 @@ def _singular_error(netlist: Netlist, system: MnaSystem, G, C) -> InputError:
     s0 = np.sqrt(system.rates[0] * system.rates[1]) * np.exp(0.7j)
     Y = G + s0 * C
     try:
+        if Y.shape[0] > 4 * _DENSE_MAX:
+            raise np.linalg.LinAlgError("too large for a dense SVD on an error path")
         _, _, vh = np.linalg.svd(Y)
         null = np.abs(vh[-1].conj())
         order = [i for i in np.argsort(null)[::-1][:3] if null[i] > 0.1 * null.max()]
-    except np.linalg.LinAlgError:  # pragma: no cover - SVD of a finite matrix converges
+    except np.linalg.LinAlgError:
         order = []
     involved = [system.unknowns[i] for i in order]
     element = None
@@ -404,6 +485,18 @@ def _conditioning_check(G, C, rates) -> bool:
     it must fail at all three test points; columns are scaled first so that a wide spread of part
     values is not mistaken for singularity."""
     lo, hi = rates
+    points = np.array([lo, np.sqrt(lo * hi), hi]) * np.exp(0.7j)
+    if G.shape[0] > _DENSE_MAX:
+        # sparse: singular when the LU fails, or its pivots span more than 1e14, at all three points
+        col = np.maximum(np.abs(G).max(axis=0), np.abs(C).max(axis=0) * abs(points).max())
+        col[col == 0] = 1.0
+        for _, lu in _sparse_factors(G / col[None, :], C / col[None, :], points):
+            if lu is None:
+                continue
+            d = np.abs(lu.U.diagonal())
+            if d.min() > 1e-14 * d.max():
+                return False
+        return True
     for rho in (lo, np.sqrt(lo * hi), hi):
         Y = G + rho * np.exp(0.7j) * C
         col = np.abs(Y).max(axis=0)
@@ -479,6 +572,13 @@ def _finish(netlist, system, G, C, b, num_asc, den_asc, name, radii, check=None)
     """The RationalResult from fitted coefficients: cancellation, then the check against the circuit
     (``check(controller) -> relative error``; default: a direct solve at the verification points)."""
     if not np.any(num_asc):
+        # Say so only when a direct solve agrees: a fit that lost the numerator in rounding must
+        # not report a false "does not depend" (issue 9: a 300-section ladder did).
+        x = _direct_output(G, C, b, system.output, _verify_points(radii))
+        if x is None or np.max(np.abs(x)) > _ZERO_OUTPUT_V:
+            raise UnrealizableError(f"the transfer function from {name} could not be fitted (its numerator was lost "
+                                    "in rounding), although a direct solve shows the output depends on it",
+                                    where=netlist.source)
         raise InputError(f"the output node does not depend on {name} (the transfer function is zero)",
                          where=netlist.source, key="output")
     if not np.any(den_asc):  # pragma: no cover - singular systems are refused before
@@ -524,6 +624,13 @@ def _verify_points(radii: np.ndarray) -> np.ndarray:
 def _direct_output(G, C, b, out: int, w: np.ndarray) -> np.ndarray | None:
     """V(out) from a direct complex solve of (G + jωC) x = b at each ω (None if singular)."""
     s = 1j * w
+    if G.shape[0] > _DENSE_MAX:
+        values = []
+        for _, lu in _sparse_factors(G, C, s):
+            if lu is None:
+                return None
+            values.append(lu.solve(b.astype(complex))[out])
+        return np.array(values)
     Y = G[None, :, :] + s[:, None, None] * C[None, :, :]
     try:
         with np.errstate(all="ignore"):

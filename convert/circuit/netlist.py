@@ -57,6 +57,10 @@ _IGNORED_DIRECTIVES = {
 }
 _TRANSIENT_FUNCTIONS = {"sin", "pulse", "pwl", "exp", "sffm", "am", "trrandom", "trnoise"}
 _MAX_DEPTH = 20
+#: Most elements after flattening subcircuits, counted before any is built (ten-fold nested
+#: subcircuits instantiating ten of the next would expand to 10^10). Beyond this the nodal
+#: analysis would also exceed its own matrix-size limit (convert.circuit.mna.MAX_UNKNOWNS).
+MAX_ELEMENTS = 10_000
 
 SUPPORTED_ELEMENTS = "R, C, L, V, E, G, D, X"
 
@@ -558,6 +562,33 @@ class _Reader:
                              where=where, key=".model")
         self.models[name] = _Model(name, kind, params, line.number)
 
+    # --- the size after flattening, before flattening -----------------------------------
+    def flat_count(self, lines: list[_Line], depth: int = 0, memo: dict | None = None, chain: tuple = ()) -> int:
+        """How many elements ``lines`` expand to (subcircuits counted recursively, memoized per
+        subcircuit; a subcircuit that contains itself or nests too deep is refused here)."""
+        memo = {} if memo is None else memo
+        total = 0
+        for line in lines:
+            text = line.text.strip()
+            if not text or text[0].upper() != "X":
+                total += 1
+                continue
+            plain = [t for t in text.split() if "=" not in t and t.lower() != "params:"]
+            sub_name = plain[-1].upper() if len(plain) >= 3 else ""
+            sub = self.subckts.get(sub_name)
+            if sub is None:  # built-in op-amp, or an error the expansion reports with its line
+                total += 1
+                continue
+            if sub_name in chain or depth >= _MAX_DEPTH:
+                raise InputError(f"subcircuits nest deeper than {_MAX_DEPTH} levels (is {sub_name} instantiating "
+                                 "itself?)", where=self.where(line), key=plain[0])
+            if sub_name not in memo:
+                memo[sub_name] = self.flat_count(sub.body, depth + 1, memo, chain + (sub_name,))
+            total += memo[sub_name]
+            if total > MAX_ELEMENTS:
+                break
+        return total
+
     # --- pass 2: elements, flattened -------------------------------------------------
     def expand(self, lines: list[_Line], scope: _Scope, prefix: str, nodemap: dict[str, str], depth: int,
                local_names: set[str]) -> None:
@@ -777,6 +808,10 @@ def read_netlist(text: str, source: str = "netlist") -> Netlist:
     scope = _Scope(params)
     for key in params:  # evaluate every parameter once, so errors surface even if unused
         scope.lookup(key, params[key][1])
+    count = reader.flat_count(top)
+    if count > MAX_ELEMENTS:
+        raise InputError(f"the netlist expands to more than {MAX_ELEMENTS:,} elements after flattening subcircuits; the limit is "
+                         f"{MAX_ELEMENTS:,} (convert.circuit.netlist.MAX_ELEMENTS)", where=source)
     reader.expand(top, scope, "", {}, 0, set())
     if not reader.elements:
         raise InputError("the netlist has no elements (the first line is the title; elements follow it)",
