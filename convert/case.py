@@ -48,6 +48,7 @@ SCHEMA: dict[str, Any] = {
             "topology": 1, "resistors": 1, "capacitors": 1, "tolerances": None, "resistor_range": 1,
             "capacitor_range": 1, "draws": 1, "seed": 1, "opamp_gbw": 1,
         },
+        "given": None,  # forms that exist, one table per name: checked by convert.given
     },
     "plant": {"model": 1, "dead_time": 1},
     "signals": {"setpoint_step": 1, "disturbance_step": 1, "duration": 1, "output_range": 1},
@@ -170,6 +171,7 @@ class Case:
     signals: Signals
     criteria: Criteria
     lines: dict | None = field(default_factory=dict, compare=False, repr=False)  # None: built in Python
+    given: tuple = ()  # convert.given.GivenForm, in file order
 
     @property
     def base_dir(self) -> Path:
@@ -420,9 +422,12 @@ def _case_from_data(data: dict, ctx: _Ctx) -> Case:
     plant = _read_plant(ctx, data)
     signals = _read_signals(ctx, data)
     criteria = _read_criteria(ctx, data)
+    from convert.given import read_given_targets
+
+    given = read_given_targets(ctx, data.get("target") or {}, path.parent)
     return Case(path=path, name=path.stem, title=title, description=description, source=source,
                 digital=digital, circuit=circuit, plant=plant, signals=signals, criteria=criteria,
-                lines=ctx.lines)
+                lines=ctx.lines, given=given)
 
 
 def _read_source(ctx: _Ctx, data: dict) -> Source:
@@ -531,7 +536,8 @@ def _method_names() -> tuple[str, ...]:
 def _read_targets(ctx: _Ctx, data: dict, source: Source):
     table = ctx.table(data, "target", "target")
     if not table:
-        raise InputError("missing [target.digital] or [target.circuit]: the form(s) to produce",
+        raise InputError("missing [target.digital], [target.circuit] or [target.given.NAME]: the form(s) to produce "
+                         "or check",
                          where=ctx.where(""), key="target")
     ctx.check_keys(table, SCHEMA["target"], "target")
     digital = circuit = None
@@ -591,8 +597,8 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
             opamp_gbw_hz=ctx.value(cir, "opamp_gbw", f"{key}.opamp_gbw", "hz", None, positive=True, allow_zero=False),
             where=ctx.where(key),
         )
-    if digital is None and circuit is None:
-        raise ctx.error("target", "give [target.digital] and/or [target.circuit]")
+    if digital is None and circuit is None and not table.get("given"):
+        raise ctx.error("target", "give [target.digital], [target.circuit] or [target.given.NAME]")
     if source.form == "digital" and digital is not None and circuit is None:
         pass  # a digital source moved to another rate or method is allowed
     return digital, circuit
@@ -695,6 +701,11 @@ def source_controller(case: Case) -> SourceInfo:
         key = str(exc.key or "")
         full = key if key.startswith("source") else f"source.{src.form}" + (f".{key}" if key else "")
         raise type(exc)(exc.message, where=case.where(full), key=full) from None
+
+
+def build_form(src: Source) -> SourceInfo:
+    """The controller of one form written as a :class:`Source` (also used for given targets)."""
+    return _build_source(None, src)
 
 
 def _build_source(case: Case, src: Source) -> SourceInfo:
@@ -802,6 +813,8 @@ def case_summary(case: Case) -> dict:
         out["targets"]["digital"] = {k: v for k, v in case.digital.__dict__.items() if k != "where"}
     if case.circuit:
         out["targets"]["circuit"] = {k: v for k, v in case.circuit.__dict__.items() if k != "where"}
+    if case.given:
+        out["targets"]["given"] = [g.summary() for g in case.given]
     if case.plant:
         out["plant"] = {"model": case.plant.expression, "dead_time_s": case.plant.dead_time_s}
     return out

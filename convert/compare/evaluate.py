@@ -91,6 +91,7 @@ def planned_steps(case) -> int:
         n += len(case.digital.fs_hz) * len(case.digital.methods) + 1
     if case.circuit:
         n += 3
+    n += len(getattr(case, "given", ()))
     return n + 1
 
 
@@ -147,6 +148,11 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
         realizations.append(circuit_realization(case, src, analog_src, band, src_margins, duration, src_step,
                                                 src_dist, draws=draws, tick=tick, case_reduction=reduction,
                                                 source_pid=info.pid))
+    if getattr(case, "given", ()):
+        from convert.compare.givenwork import given_realizations
+
+        realizations += given_realizations(case, src, band, src_margins, duration, src_step, src_dist, draws=draws,
+                                           tick=tick)
 
     figures = {}
     for r in realizations:

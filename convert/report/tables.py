@@ -292,6 +292,10 @@ def input_tables(results) -> list[Table]:
 
         rows.append(["card clamps", f"output held to {limits_text(results.source.extra['output_limits'])} by the card's "
                                     "diodes (approximate knees)"])
+    if getattr(case, "given", ()):
+        from convert.given import describe
+
+        rows += [[f"given: {g.name}", describe(g)] for g in case.given]
     if case.plant:
         rows.append(["plant", f"{case.plant.expression}, dead time {seconds(case.plant.dead_time_s)} "
                               "(controller output → measurement)"])
