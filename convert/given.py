@@ -6,8 +6,9 @@ place it was written) and built into a :class:`convert.controller.Controller` by
 :func:`given_controller`. It then enters the comparison where a computed realization does
 (``convert.compare.givenwork``).
 
-Three kinds (``GivenForm.form``):
+Four kinds (``GivenForm.form``):
 
+* ``analog`` — a transfer function in s (``expression``) or analog PID ``settings``;
 * ``digital`` — coefficients ``b``/``a`` in ascending powers of z^-1 (``a[0]`` ≠ 0, normalized to
   1) or second-order sections ``sos`` (rows ``[b0, b1, b2, a0, a1, a2]``, cascaded), the sample
   rate ``fs_hz``, the computation delay, the output limits, and — stored as written — the
@@ -33,7 +34,7 @@ from typing import Any
 
 from convert.errors import InputError
 
-GIVEN_FORMS = ("digital", "pid", "circuit")
+GIVEN_FORMS = ("analog", "digital", "pid", "circuit")
 PID_BLOCK_METHODS = ("backward-euler", "forward-euler", "tustin")
 PID_ALGORITHMS = ("positional", "velocity")
 #: Word formats a given firmware may name. float64/float32 are evaluated here; fixed-point
@@ -43,6 +44,7 @@ _WORD_RE = re.compile(r"^(float64|float32|q\d{1,2}|q\d{1,2}\.\d{1,2})$", re.IGNO
 
 #: Keys of each kind of given form (the case-file schema under ``[target.given.NAME]``).
 KEYS: dict[str, tuple[str, ...]] = {
+    "analog": ("form", "expression", "settings"),
     "digital": ("form", "b", "a", "sos", "fs", "delay", "output_limits", "word_format", "structure"),
     "pid": ("form", "settings", "fs", "method", "algorithm", "delay", "output_limits", "word_format", "structure"),
     "circuit": ("form", "netlist", "input", "output", "setpoint", "measurement", "topology", "parts", "tolerances"),
@@ -71,7 +73,7 @@ class GivenForm:
         """Plain data for results.json."""
         out = {"name": self.name, "form": self.form}
         for k, v in self.data.items():
-            if k == "pid":
+            if k in ("pid", "controller"):
                 continue  # the settings as written are kept under "settings"
             out[k] = str(v) if isinstance(v, Path) else v
         return out
@@ -86,7 +88,7 @@ def read_given(ctx, table: dict, dotted: str, name: str, base_dir: Path) -> Give
         raise ctx.error(dotted, "missing form: say which kind of form exists, form = \"digital\", \"pid\" or \"circuit\"")
     ctx.check_keys(table, dict.fromkeys(KEYS[form], 1), dotted)
     where = ctx.where(dotted)
-    reader = {"digital": _read_digital, "pid": _read_pid, "circuit": _read_circuit}[form]
+    reader = {"analog": _read_analog, "digital": _read_digital, "pid": _read_pid, "circuit": _read_circuit}[form]
     return GivenForm(name=name, form=form, data=reader(ctx, table, dotted, base_dir), where=where)
 
 
@@ -145,18 +147,37 @@ def _read_digital(ctx, table: dict, dotted: str, base_dir: Path) -> dict:
     return out
 
 
-def _read_pid(ctx, table: dict, dotted: str, base_dir: Path) -> dict:
+def _read_analog(ctx, table: dict, dotted: str, base_dir: Path) -> dict:
+    if ("expression" in table) == ("settings" in table):
+        raise ctx.error(dotted, "give expression = \"...\" (in s) or settings = { kc = ..., ti = ... } (one of them)")
+    if "expression" in table:
+        from convert.controller import from_expression
+
+        text = ctx.text(table, "expression", f"{dotted}.expression")
+        ctrl = from_expression(text, label=f"{ctx.where(f'{dotted}.expression')}: {dotted}.expression")
+        if ctrl.is_digital:
+            raise ctx.error(f"{dotted}.expression", "an analog form is in s; give firmware as form = \"digital\"")
+        return {"expression": text, "controller": ctrl}
+    return {"settings": dict(ctx.table(table, "settings", f"{dotted}.settings") or {}),
+            "pid": _pid_settings(ctx, table, dotted)}
+
+
+def _pid_settings(ctx, table: dict, dotted: str):
     from convert.pid import pid_from_mapping
 
     settings = ctx.table(table, "settings", f"{dotted}.settings")
     if not settings:
-        raise ctx.error(dotted, "missing settings: the block's PID settings, e.g. settings = { kc = 2, ti = \"30 s\" }")
+        raise ctx.error(dotted, "missing settings: the PID settings, e.g. settings = { kc = 2, ti = \"30 s\" }")
     try:
-        pid = pid_from_mapping(settings, where=ctx.where(f"{dotted}.settings"))
+        return pid_from_mapping(settings, where=ctx.where(f"{dotted}.settings"))
     except InputError as exc:
         key = f"{dotted}.settings" + (f".{exc.key}" if exc.key else "")
         raise InputError(exc.message, where=ctx.where(key), key=key) from None
-    out: dict[str, Any] = {"settings": dict(settings), "pid": pid}
+
+
+def _read_pid(ctx, table: dict, dotted: str, base_dir: Path) -> dict:
+    pid = _pid_settings(ctx, table, dotted)
+    out: dict[str, Any] = {"settings": dict(table["settings"]), "pid": pid}
     out["method"] = ctx.text(table, "method", f"{dotted}.method", default="backward-euler", choices=PID_BLOCK_METHODS)
     out["algorithm"] = ctx.text(table, "algorithm", f"{dotted}.algorithm", default="positional",
                                 choices=PID_ALGORITHMS)
@@ -274,11 +295,32 @@ def _padd(p, q):
 
 def given_controller(given: GivenForm):
     """The controller of a given form (error -> output), with its PID settings and notes:
-    returns a :class:`convert.case.SourceInfo`."""
+    returns a :class:`convert.case.SourceInfo`. Errors name where the form was written."""
+    from convert.errors import LoopshiftError
+
+    try:
+        return _given_controller(given)
+    except LoopshiftError as exc:
+        import re
+
+        if not exc.where or exc.where == given.where:
+            where = given.where
+        elif re.search(r":\d+$", exc.where):
+            raise  # a netlist error naming the netlist file and line
+        else:
+            where = f"{given.where}: {exc.where}"
+        raise type(exc)(exc.message, where=where, key=exc.key) from None
+
+
+def _given_controller(given: GivenForm):
     from convert.case import Source, SourceInfo, build_form
     from convert.controller import Controller
 
     d = given.data
+    if given.form == "analog":
+        if "controller" in d:
+            return SourceInfo(controller=d["controller"].with_name(given.name))
+        return SourceInfo(controller=d["pid"].to_controller(given.name), pid=d["pid"])
     if given.form == "digital":
         ctrl = Controller.from_b_a(d["b"], d["a"], 1.0 / d["fs_hz"], name=given.name)
         return SourceInfo(controller=ctrl)
@@ -318,6 +360,9 @@ def describe(given: GivenForm) -> str:
     from convert.values import format_value
 
     d = given.data
+    if given.form == "analog":
+        what = d.get("expression") or ", ".join(f"{k} = {v}" for k, v in d["settings"].items())
+        return f"given analog controller: {what}"
     if given.form in ("digital", "pid"):
         if given.form == "digital":
             what = (f"{len(d['sos'])} second-order sections" if d.get("sos") else
@@ -335,3 +380,197 @@ def describe(given: GivenForm) -> str:
         return f"given card: netlist {Path(d['netlist']).name} (output {d['output']}); tolerances {tol}"
     parts = ", ".join(f"{k} = {format_value(v, part_kind(k))}" for k, v in d["parts"].items())
     return f"given card: topology {d['topology']}, {parts}; tolerances {tol}"
+
+
+# ----------------------------------------------------------------------------- command-line specs
+#: Words of a command-line spec that name a case-file key of another spelling.
+_SPEC_WORDS = {"limits": "output_limits", "word": "word_format", "tol": "tolerances"}
+_BLOCK_WORDS = ("fs", "method", "algorithm", "delay", "limits", "word", "structure")
+_NETLIST_SUFFIXES = (".cir", ".net", ".sp", ".spice", ".ckt")
+
+
+def command_line_context(label: str):
+    """The case reader's context for words written on the command line: errors name ``label``
+    (``A``, ``B``, ``--plant``) instead of a file and line."""
+    from convert.case import _Ctx
+
+    class _CommandLine(_Ctx):
+        def __init__(self):
+            self.path = Path(label)
+            self.name = label
+            self.lines = {}
+
+        def where(self, key: str) -> str:
+            return label
+
+    return _CommandLine()
+
+
+def _spec_words(text: str, label: str) -> dict[str, str]:
+    out: dict[str, str] = {}
+    for word in text.split():
+        if "=" not in word:
+            raise InputError(f"expected KEY=VALUE words after the kind, found {word!r} (a value with spaces: "
+                             "write it without them, e.g. ti=30s)", where=label)
+        key, _, value = word.partition("=")
+        key = key.strip()
+        if not key or not value:
+            raise InputError(f"expected KEY=VALUE, found {word!r}", where=label)
+        if key in out:
+            raise InputError("given twice", where=label, key=key)
+        out[key] = value
+    return out
+
+
+def _spec_list(text: str, label: str, key: str) -> list[str]:
+    items = [x for x in text.split(",")]
+    if any(not x.strip() for x in items):
+        raise InputError(f"expected numbers separated by commas, found {text!r}", where=label, key=key)
+    return items
+
+
+def read_spec(text: str, label: str, *, fs_hz: float | None = None, base_dir: Path | None = None) -> GivenForm:
+    """A controller written on the command line, as a :class:`GivenForm` named ``label``.
+
+    Forms (words are ``KEY=VALUE``, no spaces inside a value):
+
+    * an expression in s (``"2*(1 + 1/(30s))"``), or in z with ``fs_hz`` (``--fs``);
+    * ``pid: kc=2 ti=30s td=5s n=10`` — analog PID settings (the ``--pid`` keys); adding any of
+      ``fs= method= algorithm= delay= limits=LOW,HIGH word= structure=`` makes it a firmware PID
+      block (fs from ``fs=`` or ``fs_hz``);
+    * ``digital: b=0.51,-0.49 a=1,-1 [fs=10Hz] [delay=1sample] [limits=-40,60] [word=float32]``, or
+      ``sos=b0,b1,b2,a0,a1,a2;b0,...`` instead of b and a;
+    * ``card: topology=pi-rc-feedback R1=100k R2=200k C1=4.7u [tol=R:1%,C:5%]``;
+    * ``netlist: card.cir [input=VIN] [output=out] [setpoint=VSP measurement=VPV]``, or just the
+      netlist's path.
+
+    Errors name ``label`` and the word.
+    """
+    import re
+
+    base = Path.cwd() if base_dir is None else base_dir
+    raw = text.strip()
+    if not raw:
+        raise InputError("expected a controller: an expression, or pid:, digital:, card: or netlist: words",
+                         where=label)
+    m = re.match(r"^(pid|digital|card|netlist)\s*:\s*(.*)$", raw, re.IGNORECASE | re.DOTALL)
+    if m is None:
+        if raw.lower().endswith(_NETLIST_SUFFIXES) or (base / raw).is_file():
+            kind, rest = "netlist", raw
+        else:
+            return _expression_spec(raw, label, fs_hz)
+    else:
+        kind, rest = m.group(1).lower(), m.group(2)
+    table: dict[str, Any] = {}
+    if kind == "netlist":
+        first, _, rest = rest.strip().partition(" ")
+        if not first:
+            raise InputError("expected the netlist's path after 'netlist:'", where=label)
+        table = {"form": "circuit", "netlist": first, **_spec_words(rest, label)}
+    else:
+        words = _spec_words(rest, label)
+        if kind == "pid":
+            block = {k: words.pop(k) for k in list(words) if k in _BLOCK_WORDS}
+            if block:
+                table = {"form": "pid", "settings": words, **block}
+                if "fs" not in table and fs_hz is not None:
+                    table["fs"] = fs_hz
+            else:
+                table = {"form": "analog", "settings": words}
+        elif kind == "digital":
+            table = {"form": "digital", **words}
+            for coef in ("b", "a"):
+                if coef in table:
+                    table[coef] = _spec_list(table[coef], label, coef)
+            if "sos" in table:
+                table["sos"] = [_spec_list(row, label, "sos") for row in table["sos"].split(";")]
+            if "fs" not in table and fs_hz is not None:
+                table["fs"] = fs_hz
+        else:  # card
+            table = {"form": "circuit"}
+            parts = {}
+            for k, v in words.items():
+                if k in ("topology", "tol"):
+                    table[k] = v
+                else:
+                    parts[k] = v
+            table["parts"] = parts
+        if "limits" in table:
+            table["limits"] = _spec_list(table["limits"], label, "limits")
+        if "tol" in table:
+            tol = {}
+            for item in _spec_list(table["tol"], label, "tol"):
+                name, sep, value = item.partition(":")
+                if not sep:
+                    raise InputError(f"expected NAME:VALUE pairs such as R:1%,C:5%, found {item!r}", where=label,
+                                     key="tol")
+                tol[name] = value
+            table["tol"] = tol
+    table = {_SPEC_WORDS.get(k, k): v for k, v in table.items()}
+    ctx = command_line_context(label)
+    try:
+        return read_given(ctx, table, "spec", label, base)
+    except InputError as exc:
+        raise InputError(exc.message, where=label, key=_spec_key(exc.key)) from None
+
+
+def _spec_key(key: str | None) -> str | None:
+    if not key:
+        return None
+    key = key.removeprefix("spec").lstrip(".").removeprefix("settings.")
+    back = {v: k for k, v in _SPEC_WORDS.items()}
+    head, _, tail = key.partition(".")
+    head = back.get(head, head)
+    return f"{head}.{tail}" if tail else (head or None)
+
+
+def _expression_spec(text: str, label: str, fs_hz: float | None) -> GivenForm:
+    from convert.controller import from_expression
+
+    ctrl = from_expression(text, fs_hz=None if not _mentions_z(text) else fs_hz, label=label)
+    if ctrl.is_digital:
+        a0 = ctrl.a[0]
+        return GivenForm(name=label, form="digital", where=label,
+                         data={"b": [x / a0 for x in ctrl.b], "a": [x / a0 for x in ctrl.a], "fs_hz": ctrl.fs_hz,
+                               "delay_s": 0.0, "delay_samples": None, "output_limits": None,
+                               "word_format": "float64", "structure": "direct", "expression": text})
+    return GivenForm(name=label, form="analog", where=label, data={"expression": text, "controller": ctrl})
+
+
+def _mentions_z(text: str) -> bool:
+    import re
+
+    return re.search(r"(?<![A-Za-z])z(?![A-Za-z])", text) is not None
+
+
+def as_source(given: GivenForm):
+    """The given form as a case :class:`convert.case.Source` (the reference of a comparison).
+
+    A reference is taken as written: a delay, output limits or a word format belong to the form
+    being checked, so they are refused here."""
+    from convert.case import Source
+
+    d = given.data
+    if given.form in ("digital", "pid"):
+        for key, default in (("delay_s", 0.0), ("delay_samples", None), ("word_format", "float64")):
+            if d.get(key, default) != default:
+                word = {"delay_s": "delay", "delay_samples": "delay", "word_format": "word"}[key]
+                raise InputError("the reference form is taken as written; give delays and word formats to the form "
+                                 "being checked (B)", where=given.where, key=word)
+        if given.form == "pid":
+            b, a = pid_block_b_a(d["pid"], d["fs_hz"], d["method"])
+        else:
+            b, a = d["b"], d["a"]
+        return Source("digital", {"b": list(b), "a": list(a), "fs_hz": d["fs_hz"], "method": "tustin"}, given.where)
+    if given.form == "analog":
+        if "controller" in d:
+            return Source("expression", {"expression": d["expression"], "controller": d["controller"]}, given.where)
+        return Source("pid", {"settings": d["settings"]}, given.where)
+    if "netlist" in d:
+        if d["tolerances"]:
+            raise InputError("the reference card is taken as drawn; give tolerances to the form being checked",
+                             where=given.where, key="tol")
+        return Source("netlist", {"file": d["netlist"], "input": d["input"], "output": d["output"],
+                                  "setpoint": d["setpoint"], "measurement": d["measurement"]}, given.where)
+    return Source("card", {"topology": d["topology"], "parts": d["parts"], "tolerances": d["tolerances"]},
+                  given.where)

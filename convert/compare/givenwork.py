@@ -48,7 +48,9 @@ def given_realizations(case, src: Controller, band, src_margins, duration, src_s
     out = []
     for given in case.given:
         info = given_controller(given)
-        if given.form == "circuit":
+        if given.form == "analog":
+            out.append(_analog(case, given, info, src, band, duration))
+        elif given.form == "circuit":
             out.append(_circuit(case, given, info, src, band, duration, src_step, src_dist, draws))
         else:
             out.append(_firmware(case, given, info, src, band, duration, src_step, src_dist))
@@ -138,6 +140,26 @@ def _firmware(case, given, info, src, band, duration, src_step, src_dist):
                      lambda f, c=cq, dl=delay: response_seen_from_loop(c, f, delay_s=dl, via="zpk"))
     if case.plant is not None:
         _loop_checks(case, r, cq, duration, delay, d["output_limits"] or case.signals.output_range)
+    return r
+
+
+def _analog(case, given, info, src, band, duration):
+    ctrl: Controller = info.controller
+    loop_f, spec = _loop(case, ctrl)
+
+    def lr(c, hold="none"):
+        return None if loop_f is None else response_seen_from_loop(c, loop_f, hold=hold, via="zpk")
+
+    rows = {"total": bud.error_row(
+        "total", band, response_seen_from_loop(src, band, via="zpk"), ctrl.frequency_response(band, via="zpk"),
+        note="the given controller against the source as the loop sees it", loop=spec,
+        loop_reference=lr(src, "zoh"), loop_candidate=lr(ctrl))}
+    details = {"given": True, "expression": given.data.get("expression") or ctrl.expression(),
+               "topology": f"C(s) = {ctrl.expression()}"}
+    r = _realization(case, given, "analog", ctrl, details, bud.assemble(rows, (), "given analog"), [],
+                     lambda f, c=ctrl: c.frequency_response(f, via="zpk"))
+    if case.plant is not None:
+        _loop_checks(case, r, ctrl, duration, 0.0, case.signals.output_range)
     return r
 
 
