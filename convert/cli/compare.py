@@ -76,6 +76,27 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
         p.add_argument(option, metavar="X", help=text)
     p.add_argument("--draws", metavar="N", type=int, help="Monte Carlo draws for a card with tolerances "
                                                           "(default 2000), e.g. --draws 500")
+    g = p.add_argument_group("evidence: a bench sweep of A (instead of B)")
+    g.add_argument("--sweep", metavar="FILE", help="measured frequency response of A as CSV, header e.g. "
+                                                   "'frequency (Hz),gain (dB),phase (deg)', e.g. --sweep bench.csv")
+    g.add_argument("--sweep-columns", nargs="+", metavar="ROLE=NAME",
+                   help="map other headers: roles frequency, gain, phase, coherence, e.g. --sweep-columns "
+                        "frequency=Freq gain=Mag")
+    g.add_argument("--sweep-units", nargs="+", metavar="ROLE=UNIT",
+                   help="units where the header has none: Hz kHz MHz rad/s; dB V/V; deg rad, e.g. --sweep-units gain=V/V")
+    g.add_argument("--decimal", metavar="C", default=".",
+                   help="the file's decimal mark: . (default) or , (then fields are separated by ; or tabs), "
+                        "e.g. --decimal ,")
+    g.add_argument("--averages", metavar="N", type=int,
+                   help="averages the analyzer used; with a coherence column it gives each point's noise, "
+                        "e.g. --averages 10")
+    g.add_argument("--min-coherence", metavar="X", help="lowest coherence of a trusted point (default 0.9), "
+                                                        "e.g. --min-coherence 0.95")
+    g.add_argument("--inverted", action="store_true",
+                   help="the bench read an inverting stage at its output: the measurement is −A, e.g. --inverted")
+    g.add_argument("--fit", nargs="*", metavar="NAME",
+                   help="estimate A's values from the sweep (all parts or PID parameters, or the NAMEs given), "
+                        "e.g. --fit or --fit R7 RV1")
     p.add_argument("--json", action="store_true", help="print the results as JSON, e.g. --json")
     return p
 
@@ -89,8 +110,16 @@ def run(args, console) -> int:
     from convert.given import read_spec
     from convert.values import parse_value
 
-    if args.b is None:
-        raise InputError("give the form B to compare A with", where="command line")
+    for option in ("sweep_columns", "sweep_units", "averages", "min_coherence", "fit"):
+        if getattr(args, option) is not None and args.sweep is None:
+            raise InputError("needs --sweep FILE.csv", key="--" + option.replace("_", "-"))
+    if args.inverted and args.sweep is None:
+        raise InputError("needs --sweep FILE.csv", key="--inverted")
+    if args.b is None and args.sweep is None:
+        raise InputError("give the form B to compare A with, or a measurement of A (--sweep FILE.csv)",
+                         where="command line")
+    if args.b is not None and args.sweep is not None:
+        raise InputError("a sweep is evidence about A alone; give B or --sweep, not both", key="--sweep")
     fs = positive_value(args.fs, "hz", "--fs") if args.fs is not None else None
     band = band_from_args(args.band)
     dead = parse_value(args.dead_time, "second", field="--dead-time") if args.dead_time is not None else 0.0
@@ -111,6 +140,8 @@ def run(args, console) -> int:
             limits[key] = value
     draws = count(args.draws, "--draws", low=1, high=1_000_000) if args.draws is not None else None
     a = read_spec(args.a, "A", fs_hz=fs, base_dir=Path.cwd())
+    if args.sweep is not None:
+        return _run_sweep(args, console, a, band, limits)
     b = read_spec(args.b, "B", fs_hz=fs, base_dir=Path.cwd())
     result = compare_pair(a, b, band_hz=band, plant_expression=args.plant, dead_time_s=dead,
                           output_range=limits_out, limits=limits, draws=draws)
@@ -119,6 +150,125 @@ def run(args, console) -> int:
     else:
         _render(console, result)
     return result.exit_code
+
+
+def _pairs(words, option: str) -> dict:
+    from convert.errors import InputError
+
+    out = {}
+    for word in words or ():
+        key, sep, value = word.partition("=")
+        if not sep or not key or not value:
+            raise InputError(f"expected ROLE=VALUE, found {word!r}", key=option)
+        out[key.strip()] = value.strip()
+    return out
+
+
+def _run_sweep(args, console, a, band, limits) -> int:
+    from convert.cli.common import emit_json, positive_value
+    from convert.errors import InputError
+    from convert.evidence.sweep import MIN_COHERENCE, read_sweep, sweep_evidence
+
+    if args.decimal not in (".", ","):
+        raise InputError(f"expected . or , found {args.decimal!r}", key="--decimal")
+    min_coh = MIN_COHERENCE
+    if args.min_coherence is not None:
+        min_coh = positive_value(args.min_coherence, "ratio", "--min-coherence")
+        if min_coh > 1:
+            raise InputError(f"coherence lies between 0 and 1, found {args.min_coherence}", key="--min-coherence")
+    if args.averages is not None and args.averages < 1:
+        raise InputError(f"expected a whole number of at least 1, found {args.averages}", key="--averages")
+    sweep = read_sweep(args.sweep, columns=_pairs(args.sweep_columns, "--sweep-columns"),
+                       units=_pairs(args.sweep_units, "--sweep-units"), decimal=args.decimal, averages=args.averages,
+                       option="--sweep-columns")
+    ev = sweep_evidence(a, sweep, band_hz=band, limits=limits, inverted=args.inverted, min_coherence=min_coh,
+                        fit=args.fit is not None, fit_names=tuple(args.fit) if args.fit else None)
+    if args.json:
+        data = ev.as_dict()
+        data["a"] = a.summary()
+        emit_json(console, data)
+    else:
+        render_sweep(console, a, ev)
+    return 0 if ev.verdict.overall == "pass" else 1
+
+
+def render_sweep(console, a, ev) -> None:
+    """The sweep evidence as text: error vs frequency with the noise, trusted band, verdict, fit."""
+    import numpy as np
+    from rich import box
+    from rich.table import Table
+
+    from convert.given import describe
+    from convert.values import format_value
+
+    def hz(x):
+        return format_value(x, "hz", 4)
+
+    sw, chk = ev.sweep, ev.check
+    console.print(f"A (model): {_what(a, describe)}", markup=False)
+    console.print(f"sweep: {sw.path.name}, {sw.f_hz.size} points, {hz(sw.f_hz[0])} .. {hz(sw.f_hz[-1])}"
+                  + (f", {sw.repeats} repeats" if sw.repeats > 1 else ""), markup=False)
+    console.print(f"noise (1 σ): {chk.noise_source}", markup=False)
+    console.print(f"band {hz(ev.band_hz[0])} .. {hz(ev.band_hz[1])}" + (" (the sweep's range)" if ev.band_default
+                                                                       else ""), markup=False)
+    trusted = ", ".join(f"{hz(lo)} .. {hz(hi)}" for lo, hi in chk.trusted_bands) or "nowhere"
+    console.print(f"trusted (noise and coherence good enough to judge the limits): {trusted}", markup=False)
+    t = Table(title="measured against the model (error ± 2σ noise)", title_justify="left", box=box.SIMPLE_HEAD,
+              show_edge=False, pad_edge=False)
+    for name in ("frequency", "measured dB", "model dB", "gain error dB", "phase error deg", "trusted"):
+        t.add_column(name, justify="right", no_wrap=True)
+    picks = _spread(sw.f_hz, 12)
+    for i in picks:
+        t.add_row(hz(sw.f_hz[i]), f"{20 * np.log10(abs(sw.response[i])):.3f}", f"{20 * np.log10(abs(ev.model[i])):.3f}",
+                  f"{chk.gain_error_db[i]:+.3f} ± {2 * chk.noise_db[i]:.3f}",
+                  f"{chk.phase_error_deg[i]:+.2f} ± {2 * chk.noise_deg[i]:.2f}", "yes" if chk.trusted[i] else "no")
+    console.print(t)
+    for j in ev.verdict.judgements:
+        if j.status != "not set":
+            console.print(f"{j.label}: {j.value:.3g} {j.unit} (limit {j.limit:g}) {j.status.upper()}"
+                          + (f" — {j.note}" if j.note else ""), markup=False)
+    for note in chk.notes:
+        console.print(f"note: {note}", markup=False)
+    if ev.fit is not None:
+        _render_fit(console, ev.fit)
+    console.print(f"verdict: {ev.verdict.overall.upper()} (the measurement against the model of A)", markup=False)
+    console.print("The tool computes; it does not certify. Verify on a bench or in simulation before a live swap.",
+                  markup=False)
+
+
+def _spread(f, n: int) -> list[int]:
+    import numpy as np
+
+    if f.size <= n:
+        return list(range(f.size))
+    return sorted(set(np.round(np.linspace(0, f.size - 1, n)).astype(int).tolist()))
+
+
+def _render_fit(console, fit) -> None:
+    from convert.values import format_value
+
+    console.print(f"fit of the {fit.model} (weighted least squares; 95 % intervals; χ²/dof {fit.chi2_dof:.3g} "
+                  f"after, {fit.chi2_dof_drawn:.3g} as drawn):", markup=False)
+    for v in fit.values:
+        drawn = format_value(v.drawn, v.kind, 4)
+        if v.determined:
+            mark = "  (changed)" if v.significant else ""
+            console.print(f"  {v.name} measures as {format_value(v.fitted, v.kind, 3)} ± {100 * v.ci95_fraction:.2g} %, "
+                          f"drawn {drawn}{mark}", markup=False)
+        else:
+            console.print(f"  {v.name}: not determined alone by this measurement (kept as drawn, {drawn})", markup=False)
+    if fit.undetermined:
+        console.print("  determined: " + ", ".join(fit.determined), markup=False)
+        console.print("  cannot be told apart (these move without changing the response): " + ", ".join(fit.undetermined),
+                      markup=False)
+    console.print("single changes that could explain the measurement (each value alone, best first):", markup=False)
+    for s in fit.singles[:5]:
+        console.print(f"  {s.name}: {format_value(s.drawn, s.kind, 4)} -> {format_value(s.fitted, s.kind, 4)}, "
+                      f"χ²/dof {s.chi2_dof:.3g}" + ("  explains the measurement" if s.explains else ""), markup=False)
+    if not any(s.explains for s in fit.singles):
+        console.print("  no single change explains it to its noise", markup=False)
+    for note in fit.notes:
+        console.print(f"  note: {note}", markup=False)
 
 
 def pair_json(result) -> dict:
