@@ -109,7 +109,7 @@ def test_cli_sweep_errors_are_one_line_exit_2(run_cli, tmp_path):
     res = run_cli("compare", "2*(1+1/(3s))", "--sweep", str(tmp_path / "none.csv"))
     assert res.code == 2 and "no such file" in res.err
     res = run_cli("compare", "2*(1+1/(3s))", "--fit")
-    assert res.code == 2 and "--fit: needs --sweep" in res.err
+    assert res.code == 2 and "--fit: needs a measurement" in res.err
 
 
 def test_noise_from_repeats_and_from_coherence(tmp_path):

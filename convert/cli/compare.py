@@ -97,6 +97,19 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     g.add_argument("--fit", nargs="*", metavar="NAME",
                    help="estimate A's values from the sweep (all parts or PID parameters, or the NAMEs given), "
                         "e.g. --fit or --fit R7 RV1")
+    lg = p.add_argument_group("evidence: a plant log, replayed through A (and B)")
+    lg.add_argument("--log", metavar="FILE", help="logged controller input and output as CSV, header e.g. "
+                                                  "'time (s),error,output' or 'time (s),setpoint,measurement,output', "
+                                                  "e.g. --log plant.csv")
+    lg.add_argument("--log-columns", nargs="+", metavar="ROLE=NAME",
+                    help="map other headers: roles time, setpoint, measurement, error, output, e.g. --log-columns "
+                         "time=Timestamp output=MV")
+    lg.add_argument("--log-units", nargs="+", metavar="ROLE=UNIT", help="time unit where the header has none: s ms "
+                                                                         "min h, e.g. --log-units time=ms")
+    lg.add_argument("--max-residual-rms", metavar="X", help="largest RMS replay residual about its offset, as a "
+                                                            "fraction of the output's range, e.g. --max-residual-rms 1%%")
+    lg.add_argument("--max-residual-peak", metavar="X", help="largest peak replay residual about its offset, as a "
+                                                             "fraction of the output's range, e.g. --max-residual-peak 5%%")
     p.add_argument("--json", action="store_true", help="print the results as JSON, e.g. --json")
     return p
 
@@ -110,14 +123,21 @@ def run(args, console) -> int:
     from convert.given import read_spec
     from convert.values import parse_value
 
-    for option in ("sweep_columns", "sweep_units", "averages", "min_coherence", "fit"):
+    for option in ("sweep_columns", "sweep_units", "averages", "min_coherence"):
         if getattr(args, option) is not None and args.sweep is None:
             raise InputError("needs --sweep FILE.csv", key="--" + option.replace("_", "-"))
     if args.inverted and args.sweep is None:
         raise InputError("needs --sweep FILE.csv", key="--inverted")
-    if args.b is None and args.sweep is None:
-        raise InputError("give the form B to compare A with, or a measurement of A (--sweep FILE.csv)",
-                         where="command line")
+    if args.fit is not None and args.sweep is None and args.log is None:
+        raise InputError("needs a measurement: --sweep FILE.csv or --log FILE.csv", key="--fit")
+    for option in ("log_columns", "log_units", "max_residual_rms", "max_residual_peak"):
+        if getattr(args, option) is not None and args.log is None:
+            raise InputError("needs --log FILE.csv", key="--" + option.replace("_", "-"))
+    if args.sweep is not None and args.log is not None:
+        raise InputError("give one measurement at a time: --sweep or --log", key="--log")
+    if args.b is None and args.sweep is None and args.log is None:
+        raise InputError("give the form B to compare A with, or a measurement of A (--sweep FILE.csv or "
+                         "--log FILE.csv)", where="command line")
     if args.b is not None and args.sweep is not None:
         raise InputError("a sweep is evidence about A alone; give B or --sweep, not both", key="--sweep")
     fs = positive_value(args.fs, "hz", "--fs") if args.fs is not None else None
@@ -142,6 +162,9 @@ def run(args, console) -> int:
     a = read_spec(args.a, "A", fs_hz=fs, base_dir=Path.cwd())
     if args.sweep is not None:
         return _run_sweep(args, console, a, band, limits)
+    if args.log is not None:
+        b = read_spec(args.b, "B", fs_hz=fs, base_dir=Path.cwd()) if args.b is not None else None
+        return _run_log(args, console, a, b, limits_out)
     b = read_spec(args.b, "B", fs_hz=fs, base_dir=Path.cwd())
     result = compare_pair(a, b, band_hz=band, plant_expression=args.plant, dead_time_s=dead,
                           output_range=limits_out, limits=limits, draws=draws)
@@ -190,6 +213,118 @@ def _run_sweep(args, console, a, band, limits) -> int:
     else:
         render_sweep(console, a, ev)
     return 0 if ev.verdict.overall == "pass" else 1
+
+
+def _run_log(args, console, a, b, output_limits) -> int:
+    from convert.cli.common import emit_json
+    from convert.errors import InputError
+    from convert.evidence.log import log_evidence
+    from convert.values import parse_value
+
+    if args.decimal not in (".", ","):
+        raise InputError(f"expected . or , found {args.decimal!r}", key="--decimal")
+    if args.fit:
+        raise InputError("a log fits A's PID parameters (kp, ki, kd); give --fit without names", key="--fit")
+    fit = None
+    if args.fit is not None:
+        if "pid" not in a.data:
+            raise InputError("fitting from a log needs A as PID settings or a PID block (\"pid: kc=... ti=...\")",
+                             key="--fit")
+        fit = a
+    forms = [("A", a)] + ([("B", b)] if b is not None else [])
+    if output_limits is None:
+        output_limits = a.data.get("output_limits")
+    limits = {}
+    for option, key in (("--max-residual-rms", "max_residual_rms"), ("--max-residual-peak", "max_residual_peak")):
+        text = getattr(args, key)
+        if text is not None:
+            value = parse_value(text, "ratio", field=option)
+            if not value > 0:
+                raise InputError(f"expected a positive fraction, found {text!r}", key=option)
+            limits[key] = value
+    ev = log_evidence(args.log, forms, columns=_pairs(args.log_columns, "--log-columns"),
+                      units=_pairs(args.log_units, "--log-units"), decimal=args.decimal, output_limits=output_limits,
+                      fit=fit)
+    verdict = judge_log(ev, limits)
+    if args.json:
+        data = ev.as_dict()
+        data.pop("sketch", None)
+        data["a"] = a.summary()
+        data["b"] = b.summary() if b is not None else None
+        data["verdict"] = verdict
+        emit_json(console, data)
+    else:
+        render_log(console, ev, verdict)
+    return 1 if verdict["overall"] == "fail" else 0
+
+
+def judge_log(ev, limits: dict) -> dict:
+    """Each replay's relative residual against the limits: {"overall", "judgements"}; "none"
+    when no limit was given (figures only, nothing judged)."""
+    out = []
+    for r in ev.replays:
+        for key, fig in (("max_residual_rms", "rms_rel"), ("max_residual_peak", "peak_rel")):
+            if key not in limits:
+                continue
+            value = r.figures.get(fig)
+            status = "fail" if value is None or value > limits[key] else "pass"
+            out.append({"form": r.name, "criterion": key, "value": value, "limit": limits[key], "status": status})
+    overall = "none" if not out else ("fail" if any(j["status"] == "fail" for j in out) else "pass")
+    return {"overall": overall, "judgements": out}
+
+
+def render_log(console, ev, verdict) -> None:
+    """The log evidence as text: what the log holds, what was left out, each form's residual."""
+    from convert.values import format_value
+
+    def sec(x):
+        return format_value(x, "second", 4) if x < 60 else f"{x:.6g} s"
+
+    console.print(f"log: {ev.path.name}, {ev.rows:,} rows, {sec(ev.t_span_s[0])} .. {sec(ev.t_span_s[1])}, "
+                  f"step {sec(ev.step_s)}" + (" (uneven; replayed at each row's own step)" if ev.uneven else ""),
+                  markup=False)
+    console.print(f"input: {ev.input_kind}; output range {ev.output_range[0]:.6g} .. {ev.output_range[1]:.6g}",
+                  markup=False)
+    if ev.gap_count:
+        first = ", ".join(f"{sec(a)} .. {sec(b)}" for a, b in ev.gaps[:3])
+        console.print(f"gaps (step over {5:g}× the usual): {ev.gap_count}, e.g. {first}; the input is interpolated "
+                      "across them", markup=False)
+    if ev.saturated_rows:
+        first = ", ".join(f"{sec(a)} .. {sec(b)}" for a, b in ev.saturated_spans[:3])
+        console.print(f"saturated: {ev.saturated_rows:,} rows (e.g. {first}), left out of the figures", markup=False)
+    if ev.missing_rows:
+        console.print(f"rows with an empty or NaN cell: {ev.missing_rows:,}, skipped", markup=False)
+    for r in ev.replays:
+        f = r.figures
+        if not f["n"]:
+            console.print(f"{r.name}: no usable rows", markup=False)
+            continue
+        console.print(f"{r.name} replayed: offset {f['offset']:.4g} ({100 * (f['offset_rel'] or 0):.3g} % of range, "
+                      f"reported, not removed from the log); about it RMS {f['rms']:.4g} "
+                      f"({100 * (f['rms_rel'] or 0):.3g} %), peak {f['peak']:.4g} ({100 * (f['peak_rel'] or 0):.3g} %) "
+                      f"over {f['n']:,} rows", markup=False)
+    if ev.fit is not None:
+        fit = ev.fit
+        console.print(f"fit of the {fit.form} from the log ({fit.rows:,} rows; 95 % intervals):", markup=False)
+        for n in fit.names:
+            console.print(f"  {n} = {fit.values[n]:.6g} ± {fit.ci95[n]:.3g}", markup=False)
+        if fit.tf_s:
+            console.print(f"  (derivative filter time constant held at {fit.tf_s:.4g} s)", markup=False)
+        console.print(f"  offset {fit.offset:.4g}; residual RMS {fit.residual_rms:.4g}", markup=False)
+        for note in fit.notes:
+            console.print(f"  note: {note}", markup=False)
+    for note in ev.notes:
+        console.print(f"note: {note}", markup=False)
+    for j in verdict["judgements"]:
+        value = "—" if j["value"] is None else f"{100 * j['value']:.3g} %"
+        console.print(f"{j['form']}: {j['criterion'].replace('_', ' ')} {value} (limit {100 * j['limit']:g} %) "
+                      f"{j['status'].upper()}", markup=False)
+    if verdict["overall"] == "none":
+        console.print("verdict: none (no residual limit given: figures only, nothing judged)", markup=False)
+    else:
+        console.print(f"verdict: {verdict['overall'].upper()}", markup=False)
+    console.print("The tool computes; it does not certify. Verify on a bench or in simulation before a live swap.",
+                  markup=False)
 
 
 def render_sweep(console, a, ev) -> None:

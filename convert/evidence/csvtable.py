@@ -168,6 +168,9 @@ def layout(path: str | Path, roles: tuple[Role, ...], *, columns: dict | None = 
         for i in idx:
             taken.add(i)
             unit = units.get(role.name, parsed[i][1] if parsed[i][1] is not None else role.default_unit)
+            if role.quantities == ("plain",):  # a signal in engineering units (%, degC, bar): a label only
+                cols.append(Column(role.name, header[i], i, unit, "plain", 1.0))
+                continue
             if unit not in UNITS or UNITS[unit][0] not in role.quantities:
                 allowed = sorted(u for u, (q, _) in UNITS.items() if q in role.quantities and u)
                 raise InputError(f"column {header[i]!r}: unit {unit!r} is not a unit of {role.name}; expected one of "
@@ -186,17 +189,16 @@ def chunks(lay: TableLayout, *, chunk_rows: int = CHUNK_ROWS, allow_missing: tup
     (read as NaN: a gap); any other bad cell stops the read with file:line and column."""
     path = lay.path
     wanted = [(role, c) for role, cols in lay.columns.items() for c in cols]
-    n_cols = len(wanted)
     with _open(path) as fh:
         reader = csv.reader(fh, delimiter=lay.delimiter)
         try:
             next(reader)
         except StopIteration:  # pragma: no cover - layout() checked the header
             return
-        buf = np.empty((chunk_rows, n_cols))
-        lines = np.empty(chunk_rows, dtype=np.int64)
-        k = 0
+        cells: list[list[str]] = []
+        lines: list[int] = []
         line = 1
+        index = [c.index for _, c in wanted]
         try:
             for row in reader:
                 line += 1
@@ -204,22 +206,51 @@ def chunks(lay: TableLayout, *, chunk_rows: int = CHUNK_ROWS, allow_missing: tup
                     continue
                 if row[0].lstrip().startswith("#"):
                     continue
-                for j, (role, c) in enumerate(wanted):
-                    if c.index >= len(row):
-                        raise InputError(f"column {c.header!r}: the row has {len(row)} fields, the header "
-                                         f"{lay.width}", where=f"{path.name}:{line}")
-                    buf[k, j] = _number(row[c.index], lay, c, line, role in allow_missing)
-                lines[k] = line
-                k += 1
-                if k == chunk_rows:
-                    yield lines.copy(), _split(buf, wanted, k)
-                    k = 0
+                if len(row) != lay.width:
+                    _check_width(row, lay, wanted, line)
+                cells.append([row[i] for i in index])
+                lines.append(line)
+                if len(cells) == chunk_rows:
+                    yield _convert(cells, lines, lay, wanted, allow_missing)
+                    cells, lines = [], []
         except UnicodeDecodeError as exc:
             raise InputError(f"the file is not UTF-8 text ({exc.reason})", where=f"{path.name}:{line + 1}") from None
         except csv.Error as exc:
             raise InputError(f"not readable as CSV ({exc})", where=f"{path.name}:{line}") from None
-        if k:
-            yield lines[:k].copy(), _split(buf, wanted, k)
+        if cells:
+            yield _convert(cells, lines, lay, wanted, allow_missing)
+
+
+def _check_width(row, lay: TableLayout, wanted, line: int) -> None:
+    if len(row) > lay.width:
+        hint = ("; a decimal comma in a comma-separated file splits numbers (write decimal points, or "
+                "separate fields with ';' and say decimal=',')" if lay.delimiter == "," else "")
+        raise InputError(f"the row has {len(row)} fields, the header {lay.width}{hint}", where=f"{lay.path.name}:{line}")
+    for _, c in wanted:
+        if c.index >= len(row):
+            raise InputError(f"column {c.header!r}: the row has {len(row)} fields, the header {lay.width}",
+                             where=f"{lay.path.name}:{line}")
+
+
+def _convert(cells, lines, lay: TableLayout, wanted, allow_missing):
+    """A chunk of text cells as numbers: numpy's parser first, the cell-by-cell reader (which
+    names the bad cell) when anything is off."""
+    line_arr = np.asarray(lines, dtype=np.int64)
+    values = None
+    if lay.decimal == ".":
+        try:
+            values = np.array(cells, dtype=float)
+        except ValueError:
+            values = None
+        if values is not None and not np.isfinite(values).all():
+            values = None
+    if values is None:
+        values = np.empty((len(cells), len(wanted)))
+        for k, row in enumerate(cells):
+            for j, (role, c) in enumerate(wanted):
+                values[k, j] = _number(row[j], lay, c, lines[k], role in allow_missing, scaled=False)
+    factors = np.array([c.factor for _, c in wanted])
+    return line_arr, _split(values * factors, wanted, len(cells))
 
 
 def _split(buf, wanted, k):
@@ -229,7 +260,7 @@ def _split(buf, wanted, k):
     return {role: (v[0] if len(v) == 1 else np.stack(v, axis=1)) for role, v in out.items()}
 
 
-def _number(text: str, lay: TableLayout, c: Column, line: int, gap_ok: bool) -> float:
+def _number(text: str, lay: TableLayout, c: Column, line: int, gap_ok: bool, scaled: bool = True) -> float:
     s = text.strip()
     if lay.decimal == ",":
         s = s.replace(",", ".")
@@ -250,4 +281,4 @@ def _number(text: str, lay: TableLayout, c: Column, line: int, gap_ok: bool) -> 
             return value
         raise InputError(f"column {c.header!r}: expected a finite number, found {text.strip()!r}",
                          where=f"{lay.path.name}:{line}")
-    return value * c.factor
+    return value * c.factor if scaled else value
