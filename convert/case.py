@@ -51,6 +51,7 @@ SCHEMA: dict[str, Any] = {
         "given": None,  # forms that exist, one table per name: checked by convert.given
     },
     "plant": {"model": 1, "dead_time": 1},
+    "evidence": None,  # [evidence.sweep] / [evidence.log]: checked by convert.evidence.casefile
     "signals": {"setpoint_step": 1, "disturbance_step": 1, "duration": 1, "output_range": 1},
     "criteria": {
         "band": 1, "max_gain_error_db": 1, "max_phase_error_deg": 1, "max_phase_margin_change_deg": 1,
@@ -172,6 +173,7 @@ class Case:
     criteria: Criteria
     lines: dict | None = field(default_factory=dict, compare=False, repr=False)  # None: built in Python
     given: tuple = ()  # convert.given.GivenForm, in file order
+    evidence: Any = None  # convert.evidence.casefile.EvidenceSpec
 
     @property
     def base_dir(self) -> Path:
@@ -425,9 +427,12 @@ def _case_from_data(data: dict, ctx: _Ctx) -> Case:
     from convert.given import read_given_targets
 
     given = read_given_targets(ctx, data.get("target") or {}, path.parent)
+    from convert.evidence.casefile import read_evidence
+
+    evidence = read_evidence(ctx, data, path.parent)
     return Case(path=path, name=path.stem, title=title, description=description, source=source,
                 digital=digital, circuit=circuit, plant=plant, signals=signals, criteria=criteria,
-                lines=ctx.lines, given=given)
+                lines=ctx.lines, given=given, evidence=evidence)
 
 
 def _read_source(ctx: _Ctx, data: dict) -> Source:

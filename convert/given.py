@@ -574,3 +574,27 @@ def as_source(given: GivenForm):
                                   "setpoint": d["setpoint"], "measurement": d["measurement"]}, given.where)
     return Source("card", {"topology": d["topology"], "parts": d["parts"], "tolerances": d["tolerances"]},
                   given.where)
+
+
+def given_from_source(src, name: str = "source") -> GivenForm:
+    """A case's :class:`convert.case.Source` as a given form (to fit or replay it)."""
+    d = src.data
+    if src.form == "expression":
+        return GivenForm(name, "analog", {"expression": d["expression"], "controller": d["controller"]}, src.where)
+    if src.form == "pid":
+        from convert.pid import pid_from_mapping
+
+        return GivenForm(name, "analog", {"settings": dict(d["settings"]),
+                                          "pid": pid_from_mapping(d["settings"], where=src.where)}, src.where)
+    if src.form == "digital":
+        a0 = d["a"][0]
+        return GivenForm(name, "digital", {"b": [x / a0 for x in d["b"]], "a": [x / a0 for x in d["a"]],
+                                           "fs_hz": d["fs_hz"], "delay_s": 0.0, "delay_samples": None,
+                                           "output_limits": None, "word_format": "float64", "structure": "direct"},
+                         src.where)
+    if src.form == "card":
+        return GivenForm(name, "circuit", {"topology": d["topology"], "parts": dict(d["parts"]),
+                                           "tolerances": dict(d.get("tolerances") or {})}, src.where)
+    return GivenForm(name, "circuit", {"netlist": d["file"], "input": d["input"], "output": d["output"],
+                                       "setpoint": d["setpoint"], "measurement": d["measurement"], "tolerances": {}},
+                     src.where)

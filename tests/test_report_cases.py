@@ -22,6 +22,7 @@ EXPECTED = {
     "firmware_pid_to_opamp": "pass",
     "slow_firmware_fails": "fail",
     "given_forms_tank_level": "fail",
+    "evidence_temp_card": "fail",
 }
 
 

@@ -210,6 +210,14 @@ class DigitalReplay:
         return out
 
 
+def controller_replayer(controller, delay_s: float = 0.0):
+    """The replay engine of a :class:`convert.controller.Controller` (digital: as stored, with
+    ``delay_s`` computation delay)."""
+    if controller.is_digital:
+        return DigitalReplay(controller.b, controller.a, controller.fs_hz, delay_s)
+    return AnalogReplay(controller)
+
+
 def replayer(given):
     """The replay engine of a :class:`convert.given.GivenForm` as it runs."""
     from convert.compare.givenwork import quantized
@@ -417,7 +425,7 @@ class _PidTerms:
 def log_evidence(path: str | Path, forms: list, *, columns: dict | None = None, units: dict | None = None,
                  decimal: str = ".", output_limits: tuple[float, float] | None = None, fit=None,
                  chunk_rows: int = CHUNK_ROWS, option: str = "--log-columns") -> LogEvidence:
-    """Replay the log at ``path`` through each ``(name, GivenForm)`` of ``forms`` and compare;
+    """Replay the log at ``path`` through each ``(name, GivenForm or replay engine)`` of ``forms``;
     ``fit``: a GivenForm with PID settings whose parameters to fit from the log (or None).
     ``output_limits`` (low, high): the output's limits, to find saturated rows."""
     path = Path(path)
@@ -433,7 +441,7 @@ def log_evidence(path: str | Path, forms: list, *, columns: dict | None = None, 
     notes = []
     if "error" in have and ({"setpoint", "measurement"} & have):
         notes.append("the log has an error column and setpoint/measurement; the error column is used")
-    engines = [(name, replayer(g)) for name, g in forms]
+    engines = [(name, g if hasattr(g, "run") else replayer(g)) for name, g in forms]
     stats = [_Stats() for _ in engines]
     terms = _PidTerms(fit) if fit is not None else None
     normal = _Normal(len(terms.names) + 1) if terms is not None else None
