@@ -708,9 +708,10 @@ def source_controller(case: Case) -> SourceInfo:
         raise type(exc)(exc.message, where=case.where(full), key=full) from None
 
 
-def build_form(src: Source) -> SourceInfo:
-    """The controller of one form written as a :class:`Source` (also used for given targets)."""
-    return _build_source(None, src)
+def build_form(src: Source, case: Case | None = None) -> SourceInfo:
+    """The controller of one form written as a :class:`Source` (also used for given targets);
+    ``case`` (optional) gives a netlist card's analysis the band and the sample rate."""
+    return _build_source(case, src)
 
 
 def _build_source(case: Case, src: Source) -> SourceInfo:
@@ -755,10 +756,10 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
         hint = two_input_hint(net, None, spelling='setpoint = "{sp}", measurement = "{pv}"')
         if hint:
             raise InputError(f"input source {src.data['input']!r} not found in {file_path.name}; {hint}", key="input")
-    fs = min(case.digital.fs_hz) if case.digital else None
+    fs = min(case.digital.fs_hz) if case is not None and case.digital else None
     card = analyze_card(net, input=src.data["input"], output=src.data["output"], setpoint=src.data["setpoint"],
                         measurement=src.data["measurement"], with_sensitivities=False,
-                        band_hz=tuple(case.criteria.band_hz), fs_hz=fs)
+                        band_hz=tuple(case.criteria.band_hz) if case is not None else None, fs_hz=fs)
     extra: dict = {"netlist_file": str(file_path), "output_limits": card.output_limits, "reduction": card.reduction}
     notes = [f"warning: {w}" for w in net.warnings] + list(card.notes)
     if card.output_limits is not None:

@@ -293,13 +293,13 @@ def _padd(p, q):
     return np.pad(p, (0, n - len(p))) + np.pad(q, (0, n - len(q)))
 
 
-def given_controller(given: GivenForm):
+def given_controller(given: GivenForm, case=None):
     """The controller of a given form (error -> output), with its PID settings and notes:
     returns a :class:`convert.case.SourceInfo`. Errors name where the form was written."""
     from convert.errors import LoopshiftError
 
     try:
-        return _given_controller(given)
+        return _given_controller(given, case)
     except LoopshiftError as exc:
         import re
 
@@ -312,7 +312,7 @@ def given_controller(given: GivenForm):
         raise type(exc)(exc.message, where=where, key=exc.key) from None
 
 
-def _given_controller(given: GivenForm):
+def _given_controller(given: GivenForm, case=None):
     from convert.case import Source, SourceInfo, build_form
     from convert.controller import Controller
 
@@ -334,7 +334,7 @@ def _given_controller(given: GivenForm):
     else:
         src = Source("card", {"topology": d["topology"], "parts": d["parts"], "tolerances": d["tolerances"]},
                      given.where)
-    info = build_form(src)
+    info = build_form(src, case)
     return SourceInfo(controller=info.controller.with_name(given.name), pid=info.pid, parts=info.parts,
                       tolerances=d["tolerances"], topology=info.topology, notes=info.notes, extra=info.extra)
 

@@ -47,7 +47,7 @@ def given_realizations(case, src: Controller, band, src_margins, duration, src_s
 
     out = []
     for given in case.given:
-        info = given_controller(given)
+        info = given_controller(given, case)
         if given.form == "analog":
             out.append(_analog(case, given, info, src, band, duration))
         elif given.form == "circuit":

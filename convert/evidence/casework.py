@@ -79,7 +79,7 @@ def _sweep(case, info, realizations, spec, ev: CaseEvidence) -> None:
     try:
         result = sweep_evidence(given, sweep, band_hz=crit.band_hz, limits=limits, inverted=spec["inverted"],
                                 min_coherence=spec["min_coherence"] or MIN_COHERENCE, fit=bool(fit),
-                                fit_names=fit if isinstance(fit, tuple) else None)
+                                fit_names=fit if isinstance(fit, tuple) else None, case=case)
     except LoopshiftError as exc:
         if exc.where and ".csv" in exc.where:
             raise

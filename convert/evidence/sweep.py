@@ -267,23 +267,24 @@ class SweepEvidence:
         return out
 
 
-def form_response(given, f_hz) -> np.ndarray:
+def form_response(given, f_hz, case=None) -> np.ndarray:
     """The response of a given form as it runs, at ``f_hz`` (a digital form with its zero-order
     hold and computation delay) — what a bench sweep of it measures."""
     from convert.compare.frequency import response_seen_from_loop
     from convert.given import given_controller
 
-    ctrl = given_controller(given).controller
+    ctrl = given_controller(given, case).controller
     delay = given.delay_for() if given.form in ("digital", "pid") else 0.0
     return response_seen_from_loop(ctrl, f_hz, delay_s=delay, via="zpk")
 
 
 def sweep_evidence(given, sweep: Sweep, *, band_hz=None, limits: dict | None = None, inverted: bool = False,
-                   min_coherence: float = MIN_COHERENCE, fit: bool = False, fit_names=None) -> SweepEvidence:
+                   min_coherence: float = MIN_COHERENCE, fit: bool = False, fit_names=None,
+                   case=None) -> SweepEvidence:
     """Check ``sweep`` against the model of ``given`` (a :class:`convert.given.GivenForm`) over
     ``band_hz`` (default: the sweep's own range) with the gain/phase ``limits``
     (``max_gain_error_db``, ``max_phase_error_deg``; 1 dB and 5° when not set); fit the model's
-    values when ``fit``."""
+    values when ``fit``. ``case`` (optional) gives a netlist card's analysis its band and rate."""
     from convert.compare.verdict import judge
 
     limits = dict(limits or {})
@@ -294,7 +295,7 @@ def sweep_evidence(given, sweep: Sweep, *, band_hz=None, limits: dict | None = N
     if given.form in ("digital", "pid") and sweep.f_hz[-1] >= given.data["fs_hz"] / 2:
         raise InputError(f"the sweep reaches {sweep.f_hz[-1]:g} Hz, at or above the firmware's Nyquist frequency "
                          f"({given.data['fs_hz'] / 2:g} Hz); keep the sweep below it", where=str(sweep.path.name))
-    model = form_response(given, sweep.f_hz)
+    model = form_response(given, sweep.f_hz, case)
     check = check_sweep(sweep, model, band, gain_limit_db=gl, phase_limit_deg=pl, min_coherence=min_coherence,
                         inverted=inverted)
     criteria = {"max_gain_error_db": gl, "max_phase_error_deg": pl}

@@ -13,8 +13,9 @@ LOG_FIGURE = "evidence-log.png"
 CAPTIONS = {
     SWEEP_FIGURE: "Evidence: the bench sweep (points, error bars ±2σ noise) over every form's model; below, the "
                   "measured error against the measured form's model. Grey: points not trusted.",
-    LOG_FIGURE: "Evidence: the logged controller output and its replay through every form; below, logged minus "
-                "replayed (the offset is reported, not removed).",
+    LOG_FIGURE: "Evidence: the logged controller output and its replay through every form, each drawn shifted by "
+                "its reported offset (the mean of logged − replayed, listed in the table); below, the residual about "
+                "that offset.",
 }
 
 
@@ -78,14 +79,16 @@ def _log_figure(ev) -> bytes:
     fig, ax = _figure(8.0, 6.5, 2, 1, sharex=True)
     ax = ax[:, 0]
     ax[0].plot(t, out, "-", color="#000000", lw=1.4, label="logged output")
+    offsets = {r.name: (r.figures.get("offset") or 0.0) for r in ev.log.replays}
     for i, (name, y) in enumerate(sk["replayed"].items()):
         color = COLORS[i % len(COLORS)]
-        ax[0].plot(t, y, "--", color=color, lw=1.0, label=f"replayed: {name}")
-        ax[1].plot(t, out - y, "-", color=color, lw=0.9, label=name)
+        off = offsets.get(name, 0.0)
+        ax[0].plot(t, y + off, "--", color=color, lw=1.0, label=f"replayed: {name} + its offset {off:.4g}")
+        ax[1].plot(t, out - y - off, "-", color=color, lw=0.9, label=name)
     for a in ax:
         a.grid(True, alpha=0.3)
     ax[0].set_ylabel("controller output")
-    ax[1].set_ylabel("logged − replayed")
+    ax[1].set_ylabel("logged − replayed\n− offset")
     ax[1].set_xlabel("time (s)")
     ax[0].legend(fontsize=7, loc="best")
     ax[0].set_title(f"plant log {ev.log.path.name} ({ev.log.rows:,} rows)")
