@@ -140,6 +140,8 @@ def run(args, console) -> int:
                          "--log FILE.csv)", where="command line")
     if args.b is not None and args.sweep is not None:
         raise InputError("a sweep is evidence about A alone; give B or --sweep, not both", key="--sweep")
+    if args.decimal not in (".", ","):
+        raise InputError(f"expected . or , found {args.decimal!r}", key="--decimal")
     fs = positive_value(args.fs, "hz", "--fs") if args.fs is not None else None
     band = band_from_args(args.band)
     dead = parse_value(args.dead_time, "second", field="--dead-time") if args.dead_time is not None else 0.0
@@ -192,8 +194,6 @@ def _run_sweep(args, console, a, band, limits) -> int:
     from convert.errors import InputError
     from convert.evidence.sweep import MIN_COHERENCE, read_sweep, sweep_evidence
 
-    if args.decimal not in (".", ","):
-        raise InputError(f"expected . or , found {args.decimal!r}", key="--decimal")
     min_coh = MIN_COHERENCE
     if args.min_coherence is not None:
         min_coh = positive_value(args.min_coherence, "ratio", "--min-coherence")
@@ -221,8 +221,6 @@ def _run_log(args, console, a, b, output_limits) -> int:
     from convert.evidence.log import log_evidence
     from convert.values import parse_value
 
-    if args.decimal not in (".", ","):
-        raise InputError(f"expected . or , found {args.decimal!r}", key="--decimal")
     if args.fit:
         raise InputError("a log fits A's PID parameters (kp, ki, kd); give --fit without names", key="--fit")
     fit = None

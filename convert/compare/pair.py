@@ -94,7 +94,8 @@ def _spot_frequencies(band_hz) -> np.ndarray:
     return np.array(out)
 
 
-def _intervals(f: np.ndarray, ok: np.ndarray) -> list[tuple[float, float]]:
+def spans_where(f: np.ndarray, ok: np.ndarray) -> list[tuple[float, float]]:
+    """The (first, last) frequencies of each run of consecutive points where ``ok`` holds."""
     out = []
     start = None
     for i, good in enumerate(ok):
@@ -177,6 +178,6 @@ def compare_pair(a, b, *, band_hz: tuple[float, float] | None = None, plant_expr
     ok = (np.abs(np.nan_to_num(werr.gain_error_db, nan=np.inf)) <= gl) & \
          (np.abs(np.nan_to_num(werr.phase_error_deg, nan=np.inf)) <= pl)
     return PairResult(results=results, a=a, b=b, band_hz=tuple(band_hz), band_default=band_default, error=error,
-                      coefficients_error=coef, spots=spots, agreement=_intervals(wide, ok),
+                      coefficients_error=coef, spots=spots, agreement=spans_where(wide, ok),
                       agreement_grid_hz=(float(wide[0]), float(wide[-1])), gain_limit_db=gl, phase_limit_deg=pl,
                       notes=notes)

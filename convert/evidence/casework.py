@@ -53,6 +53,23 @@ def run_evidence(case, info, realizations) -> CaseEvidence:
     return ev
 
 
+class _named_in_case:
+    """Errors raised inside name the case file's line of the evidence table (errors that already
+    name a CSV file and line keep them)."""
+
+    def __init__(self, case, table: str):
+        self.case, self.table = case, table
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, kind, exc, tb):
+        if isinstance(exc, LoopshiftError) and not (exc.where and ".csv" in exc.where):
+            key = self.table + (".fit" if exc.key == "fit" else "")
+            raise type(exc)(exc.message, where=self.case.where(key), key=key) from None
+        return False
+
+
 def _form_named(case, of: str):
     from convert.given import given_from_source
 
@@ -76,15 +93,10 @@ def _sweep(case, info, realizations, spec, ev: CaseEvidence) -> None:
     crit = case.criteria
     limits = {"max_gain_error_db": crit.max_gain_error_db, "max_phase_error_deg": crit.max_phase_error_deg}
     fit = spec["fit"]
-    try:
+    with _named_in_case(case, "evidence.sweep"):
         result = sweep_evidence(given, sweep, band_hz=crit.band_hz, limits=limits, inverted=spec["inverted"],
                                 min_coherence=spec["min_coherence"] or MIN_COHERENCE, fit=bool(fit),
                                 fit_names=fit if isinstance(fit, tuple) else None, case=case)
-    except LoopshiftError as exc:
-        if exc.where and ".csv" in exc.where:
-            raise
-        key = "evidence.sweep" + (".fit" if exc.key == "fit" else "")
-        raise type(exc)(exc.message, where=case.where(key), key=key) from None
     ev.sweep = result
     ev.sweep_of = given.name if spec["of"] != "source" else "source"
     f = sweep.f_hz
@@ -121,14 +133,9 @@ def _log(case, info, realizations, spec, ev: CaseEvidence) -> None:
                              where=case.where("evidence.log.fit"), key="evidence.log.fit")
         fit = GivenForm("source", "analog", {"pid": info.pid, "settings": {}}, case.where("source"))
     limits = spec["output_limits"] or case.signals.output_range
-    try:
+    with _named_in_case(case, "evidence.log"):
         result = log_evidence(spec["file"], forms, columns=spec["columns"], units=spec["units"],
                               decimal=spec["decimal"], output_limits=limits, fit=fit, option="evidence.log.columns")
-    except LoopshiftError as exc:
-        if exc.where and ".csv" in exc.where:
-            raise
-        key = "evidence.log" + (".fit" if exc.key == "fit" else "")
-        raise type(exc)(exc.message, where=case.where(key), key=key) from None
     ev.log = result
     ev.notes += [f"log: {n}" for n in result.notes]
     for r in result.replays:

@@ -220,15 +220,9 @@ def check_sweep(sweep: Sweep, model: np.ndarray, band_hz: tuple[float, float], *
 
 
 def _runs(f: np.ndarray, ok: np.ndarray) -> list[tuple[float, float]]:
-    out, start = [], None
-    for i, good in enumerate(ok):
-        if good and start is None:
-            start = i
-        if (not good or i == len(ok) - 1) and start is not None:
-            end = i if good else i - 1
-            out.append((float(f[start]), float(f[end])))
-            start = None
-    return out
+    from convert.compare.pair import spans_where
+
+    return spans_where(f, ok)
 
 
 def _coverage(f, trusted, in_band, band_hz) -> str:
