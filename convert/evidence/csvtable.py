@@ -266,7 +266,8 @@ def _number(text: str, lay: TableLayout, c: Column, line: int, gap_ok: bool, sca
         s = s.replace(",", ".")
     elif _DECIMAL_COMMA.match(s):
         raise InputError(f"column {c.header!r}: {text.strip()!r} has a decimal comma; write a decimal point, or say "
-                         "the file uses decimal commas (decimal=',' with ';' between fields)",
+                         "the file uses decimal commas (--decimal , on the command line, decimal = \",\" in a case file; fields "
+                         "then separated by ';')",
                          where=f"{lay.path.name}:{line}")
     try:
         value = float(s)
