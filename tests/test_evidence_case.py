@@ -111,3 +111,29 @@ def test_sweep_of_a_given_target_and_unknown_form(tmp_path):
     assert "measured card (sweep)" in {j.realization for j in res.verdict.judgements}
     with pytest.raises(InputError, match="no form called 'spare'"):
         evaluate_case(parse_case(text.replace('of = "card"', 'of = "spare"'), tmp_path / "c.toml"))
+
+
+def test_sweep_of_a_given_card_adds_the_measured_row_to_its_budget(tmp_path):
+    """A given card measured on the bench gets budget row 8 (DESIGN.md §5): the measured
+    deviation from its own model. The sweep is the card's model with its C1 10 % high
+    (closed form: the gain error at low frequency approaches 20·log10(1/1.1) = −0.83 dB)."""
+    from convert.compare.evaluate import evaluate_case
+
+    f = np.logspace(-3, 0, 31)
+    s = 2j * np.pi * f
+    r1, r2, c1 = 50e3, 100e3, 30e-6 * 1.1
+    h = (r2 * c1 * s + 1) / (r1 * c1 * s)
+    rows = ["frequency (Hz),gain (dB),phase (deg)"] + [f"{a:.12g},{20 * np.log10(abs(b)):.12g},"
+                                                       f"{np.degrees(np.angle(b)):.12g}" for a, b in zip(f, h)]
+    (tmp_path / "card.csv").write_text("\n".join(rows) + "\n")
+    text = BASE.replace('band = ["10 mHz", "1 Hz"]', 'band = ["1 mHz", "1 Hz"]') + (
+        "\n[target.given.card]\nform = \"circuit\"\ntopology = \"pi-rc-feedback\"\n"
+        "parts = { R1 = \"50k\", R2 = \"100k\", C1 = \"30 uF\" }\n"
+        "\n[evidence.sweep]\nfile = \"card.csv\"\nof = \"card\"\n")
+    res = evaluate_case(parse_case(text, tmp_path / "c.toml"))
+    card = next(r for r in res.realizations if r.name == "given card")
+    row = next(b for b in card.budget if b.key == "measured")
+    assert row.applicable
+    expected = abs(20 * np.log10(abs(h[0] / ((r2 * 30e-6 * s[0] + 1) / (r1 * 30e-6 * s[0])))))
+    assert row.max_gain_error_db == pytest.approx(expected, rel=1e-6)
+    assert 0.7 < row.max_gain_error_db < 20 * np.log10(1.1)

@@ -99,6 +99,8 @@ def _sweep(case, info, realizations, spec, ev: CaseEvidence) -> None:
                                 fit_names=fit if isinstance(fit, tuple) else None, case=case)
     ev.sweep = result
     ev.sweep_of = given.name if spec["of"] != "source" else "source"
+    if spec["of"] != "source":
+        _measured_row(realizations, f"given {given.name}", result)
     f = sweep.f_hz
     ev.overlays["source"] = response_seen_from_loop(info.controller, f, via="zpk")
     for r in realizations:
@@ -112,6 +114,31 @@ def _sweep(case, info, realizations, spec, ev: CaseEvidence) -> None:
         figures[f"{key}_note"] = "a loop figure is not computed from a measured sweep"
     ev.figures[SWEEP_LABEL.format(of=ev.sweep_of)] = figures
     ev.notes += [f"sweep: {n}" for n in result.check.notes]
+
+
+def _measured_row(realizations, name: str, result) -> None:
+    """Budget row 8 of a measured given form: the measured deviation from its own model over the
+    trusted points of the band, with the measurement's noise in the note."""
+    from convert.compare.budget import ROW_LABELS, BudgetRow
+
+    chk = result.check
+    use = chk.trusted & chk.in_band
+    for r in realizations:
+        if r.name != name:
+            continue
+        if use.any():
+            ig = int(np.argmax(np.abs(chk.gain_error_db[use])))
+            ip = int(np.argmax(np.abs(chk.phase_error_deg[use])))
+            f = chk.f_hz[use]
+            row = BudgetRow("measured", ROW_LABELS["measured"], True,
+                            f"bench sweep against this form's model, trusted points of the band; noise ±2σ up to "
+                            f"{2 * float(np.max(chk.noise_db[use])):.3g} dB, {2 * float(np.max(chk.noise_deg[use])):.3g}°",
+                            max_gain_error_db=float(abs(chk.gain_error_db[use][ig])), max_gain_error_at_hz=float(f[ig]),
+                            max_phase_error_deg=float(abs(chk.phase_error_deg[use][ip])),
+                            max_phase_error_at_hz=float(f[ip]))
+        else:
+            row = BudgetRow("measured", ROW_LABELS["measured"], False, "not applicable: no trusted point in the band")
+        r.budget = [row if b.key == "measured" else b for b in r.budget]
 
 
 def _log(case, info, realizations, spec, ev: CaseEvidence) -> None:
