@@ -117,3 +117,11 @@ def test_bad_input_is_one_line_exit_2(run_cli, argv, words):
     lines = [x for x in res.err.splitlines() if x.strip()]
     assert len(lines) == 1 and "Traceback" not in res.err
     assert words in lines[0], lines[0]
+
+
+def test_help_prints_every_option(run_cli):
+    """`loopshift compare --help` prints (a '%' in a help text once made argparse fail)."""
+    res = run_cli("compare", "--help")
+    assert res.code == 0
+    for option in ("--sweep", "--log", "--fit", "--max-residual-rms", "--max-step-deviation"):
+        assert option in res.out or option in res.err

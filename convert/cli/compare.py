@@ -53,9 +53,9 @@ LIMIT_OPTIONS = (
     ("--max-peak-change", "max_sensitivity_peak_change_db", "number",
      "largest sensitivity-peak change with --plant, dB, e.g. --max-peak-change 0.5"),
     ("--max-step-deviation", "max_step_deviation", "ratio",
-     "largest setpoint-step response deviation with --plant, fraction of the step, e.g. --max-step-deviation 3%"),
+     "largest setpoint-step response deviation with --plant, fraction of the step, e.g. --max-step-deviation 3%%"),
     ("--max-disturbance-deviation", "max_disturbance_deviation", "ratio",
-     "largest load-step response deviation with --plant, fraction of the peak, e.g. --max-disturbance-deviation 5%"),
+     "largest load-step response deviation with --plant, fraction of the peak, e.g. --max-disturbance-deviation 5%%"),
 )
 
 
