@@ -230,3 +230,23 @@ def test_pid_parameters_fit_from_a_sweep_of_a_pid_block(tmp_path):
         assert got[name].determined
         assert abs(np.log(got[name].fitted / value)) <= np.log1p(got[name].ci95_fraction), got[name]
     assert got["ki"].significant and not got["kp"].significant
+
+
+def test_pot_wiper_position_is_fitted(run_cli, tmp_path):
+    """A gain pot (RV2A/RV2B, 100 kΩ track) turned from mid-travel to 30 % in ngspice (reference
+    simulator), 1 % noise: the fit reads the wiper position RV2 within its 95 % interval."""
+    from tests.test_mna_ngspice import spice_deck
+
+    require_ngspice()
+    card = Path(__file__).parent / "netlists" / "pot_trimmed_pi_card.cir"
+    text = card.read_text().replace("RV2A in w 50k", "RV2A in w 30k").replace("RV2B w 0 50k", "RV2B w 0 70k")
+    f, v = ac_sweep(spice_deck(text, "VIN"), "out", 0.01, 100, 10)
+    rng = np.random.default_rng(21)
+    v = v * np.exp(NOISE * (rng.standard_normal(f.size) + 1j * rng.standard_normal(f.size)))
+    res = run_cli("compare", str(card), "--sweep", str(_write(tmp_path / "pot.csv", f, v)), "--fit", "RV2", "--json")
+    data = json.loads(res.out)
+    (x,) = data["fit"]["values"]
+    assert x["kind"] == "position" and x["drawn"] == pytest.approx(0.5)
+    assert abs(x["fitted"] - 0.3) <= x["ci95_fraction"] * x["fitted"], x
+    text_out = run_cli("compare", str(card), "--sweep", str(tmp_path / "pot.csv"), "--fit", "RV2").out
+    assert "RV2 measures as 30" in text_out and "% of travel" in text_out

@@ -378,15 +378,15 @@ def _spread(f, n: int) -> list[int]:
 
 
 def _render_fit(console, fit) -> None:
-    from convert.values import format_value
+    from convert.evidence.fit import value_text
 
     console.print(f"fit of the {fit.model} (weighted least squares; 95 % intervals; χ²/dof {fit.chi2_dof:.3g} "
                   f"after, {fit.chi2_dof_drawn:.3g} as drawn):", markup=False)
     for v in fit.values:
-        drawn = format_value(v.drawn, v.kind, 4)
+        drawn = value_text(v.drawn, v.kind, 4)
         if v.determined:
             mark = "  (changed)" if v.significant else ""
-            console.print(f"  {v.name} measures as {format_value(v.fitted, v.kind, 3)} ± {100 * v.ci95_fraction:.2g} %, "
+            console.print(f"  {v.name} measures as {value_text(v.fitted, v.kind, 3)} ± {100 * v.ci95_fraction:.2g} %, "
                           f"drawn {drawn}{mark}", markup=False)
         else:
             console.print(f"  {v.name}: not determined alone by this measurement (kept as drawn, {drawn})", markup=False)
@@ -396,7 +396,7 @@ def _render_fit(console, fit) -> None:
                       markup=False)
     console.print("single changes that could explain the measurement (each value alone, best first):", markup=False)
     for s in fit.singles[:5]:
-        console.print(f"  {s.name}: {format_value(s.drawn, s.kind, 4)} -> {format_value(s.fitted, s.kind, 4)}, "
+        console.print(f"  {s.name}: {value_text(s.drawn, s.kind, 4)} -> {value_text(s.fitted, s.kind, 4)}, "
                       f"χ²/dof {s.chi2_dof:.3g}" + ("  explains the measurement" if s.explains else ""), markup=False)
     if not any(s.explains for s in fit.singles):
         console.print("  no single change explains it to its noise", markup=False)

@@ -123,8 +123,10 @@ def layout(path: str | Path, roles: tuple[Role, ...], *, columns: dict | None = 
         except UnicodeDecodeError as exc:
             raise InputError(f"the file is not UTF-8 text ({exc.reason})", where=str(path)) from None
     if not first.strip():
+        shown = {"hz": "Hz", "db": "dB"}
         raise InputError("the file is empty; expected a header line such as "
-                         + ",".join(f"{r.name} ({r.default_unit})" for r in roles if r.required), where=f"{path.name}:1")
+                         + ",".join(f"{r.name} ({shown.get(r.default_unit, r.default_unit)})" if r.default_unit
+                                    else r.name for r in roles if r.required), where=f"{path.name}:1")
     delim = _sniff(path, first, decimal)
     header = next(csv.reader([first], delimiter=delim))
     parsed = [split_header(h) for h in header]

@@ -3,7 +3,8 @@ squares, with confidence intervals, what the data can and cannot tell apart, and
 changes that explain it.
 
 The unknowns are the logarithms of the chosen values (parts, or PID parameters), so a change
-reads as a ratio and every value stays positive. Residuals are ln|H_model/H_measured| and the
+reads as a ratio and every value stays positive; a pot's wiper position (0 … 1 of its travel)
+is fitted as its logit, so it stays inside the track. Residuals are ln|H_model/H_measured| and the
 phase of H_model/H_measured, each divided by its point's noise (1 σ; ln-gain in nepers, phase
 in radians). Directions of the log-values are found from the singular value decomposition of
 the weighted Jacobian at the drawn values: a direction whose 95 % interval (1.96/s) is wider
@@ -85,10 +86,21 @@ class FitResult:
                 "single_changes": [dict(s.__dict__) for s in self.singles]}
 
 
+def _to_x(kind: str, value: float) -> float:
+    """A value in fitting coordinates: the logarithm, or the logit of a pot position (0 … 1)."""
+    return float(np.log(value / (1 - value))) if kind == "position" else float(np.log(value))
+
+
+def _from_x(kind: str, x: float) -> float:
+    return float(1 / (1 + np.exp(-x))) if kind == "position" else float(np.exp(x))
+
+
 def _residuals(model, names, base: dict, f, measured, s_ln, s_ph, sign):
+    kinds = [model.kinds.get(n, "number") for n in names]
+
     def resid(logs: np.ndarray) -> np.ndarray:
         values = dict(base)
-        values.update({n: float(np.exp(x)) for n, x in zip(names, logs)})
+        values.update({n: _from_x(k, x) for n, k, x in zip(names, kinds, logs)})
         with np.errstate(all="ignore"):
             ratio = sign * model.response(values, f) / measured
         r = np.concatenate([np.log(np.abs(ratio)) / s_ln, np.angle(ratio) / s_ph])
@@ -172,7 +184,8 @@ def fit_sweep(model, f_hz, measured, noise_db, noise_deg, *, names=None, inverte
     sign = -1.0 if inverted else 1.0
     base = dict(model.nominal)
     resid = _residuals(model, names, base, f, meas, s_ln, s_ph, sign)
-    x0 = np.log([model.nominal[n] for n in names])
+    kinds = [model.kinds.get(n, "number") for n in names]
+    x0 = np.array([_to_x(k, model.nominal[n]) for n, k in zip(names, kinds)])
     dof = max(2 * f.size - len(names), 1)
     chi2_drawn = float(np.sum(resid(x0) ** 2)) / dof
     _, s, vt = np.linalg.svd(_jacobian(resid, x0), full_matrices=False)
@@ -194,8 +207,15 @@ def fit_sweep(model, f_hz, measured, noise_db, noise_deg, *, names=None, inverte
         e = np.zeros(len(names))
         e[i] = 1.0
         inside = np.linalg.norm(v_det.T @ e) >= 0.99
-        half = float(np.expm1(Z95 * np.sqrt(max(cov[i, i], 0.0)))) if inside else None
-        values.append(FittedValue(n, model.kinds.get(n, "number"), model.nominal[n], float(np.exp(x[i])), half))
+        value = _from_x(kinds[i], x[i])
+        half = None
+        if inside:
+            sd = np.sqrt(max(cov[i, i], 0.0))
+            if kinds[i] == "position":  # the interval in logit coordinates, as a fraction of the position
+                half = (_from_x(kinds[i], x[i] + Z95 * sd) - _from_x(kinds[i], x[i] - Z95 * sd)) / 2 / value
+            else:
+                half = float(np.expm1(Z95 * sd))
+        values.append(FittedValue(n, kinds[i], model.nominal[n], value, half))
     determined = tuple(_combination(row, names) for row in _rref(v_det.T)) if v_det.shape[1] < len(names) else ()
     null = vt2[~keep2]
     undetermined = tuple(_combination(row, names) for row in _rref(null)) if null.size else ()
@@ -209,8 +229,17 @@ def fit_sweep(model, f_hz, measured, noise_db, noise_deg, *, names=None, inverte
         r1 = _residuals(model, (n,), base, f, meas, s_ln, s_ph, sign)
         one = least_squares(r1, [x0[i]], method="lm", xtol=1e-12, ftol=1e-12)
         c1 = float(np.sum(one.fun ** 2)) / max(2 * f.size - 1, 1)
-        singles.append(SingleChange(n, model.kinds.get(n, "number"), model.nominal[n], float(np.exp(one.x[0])), c1,
+        singles.append(SingleChange(n, kinds[i], model.nominal[n], _from_x(kinds[i], one.x[0]), c1,
                                     c1 <= 1 + 3 * np.sqrt(2 / max(2 * f.size - 1, 1))))
     singles.sort(key=lambda c: c.chi2_dof)
     return FitResult(model.label, tuple(values), determined, undetermined, chi2, chi2_drawn, dof, tuple(singles),
                      noise_source, tuple(notes))
+
+
+def value_text(value: float, kind: str, digits: int = 4) -> str:
+    """A fitted or drawn value as text: a part with its unit, a pot position as % of travel."""
+    if kind == "position":
+        return f"{100 * value:.{max(digits - 1, 2)}g} % of travel"
+    from convert.values import format_value
+
+    return format_value(value, kind, digits)

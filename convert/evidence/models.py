@@ -1,5 +1,7 @@
 """A form's response as a function of the values that may have changed: a card's parts (catalog
-topology or netlist elements) or a PID's parameters (analog law or firmware block).
+topology or netlist elements; a netlist pot — resistors NAMEA and NAMEB sharing the wiper node —
+as its wiper position NAME, 0 … 1 of the track from the A end) or a PID's parameters (analog law
+or firmware block).
 
 :func:`parametric_model` returns a :class:`ParametricModel` whose ``response(values, f_hz)``
 gives the controller's complex response (error -> output; a digital block as it runs, with its
@@ -73,14 +75,27 @@ def _netlist(given) -> ParametricModel:
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"cannot read the netlist: {exc}", where=str(path)) from None
     net = read_netlist(text, source=path.name)
+    from convert.circuit.sensitivity import _pots
+
+    pots = {base: (a, b, net.element(a).value + net.element(b).value) for base, a, b in _pots(net)}
+    members = {m for a, b, _ in pots.values() for m in (a, b)}
     two = d.get("setpoint") is not None
     inputs = (d["measurement"],) if two else (d["input"],)
     sign = -1.0 if two else 1.0  # a two-input card's feedback controller is minus its measurement path
-    names = tuple(e.name for e in net.of_kind("R", "C", "L") if e.value)
-    kinds = {e.name: {"R": "ohm", "C": "farad", "L": "henry"}[e.kind] for e in net.of_kind("R", "C", "L") if e.value}
+    parts = [e for e in net.of_kind("R", "C", "L") if e.value]
+    names = tuple(e.name for e in parts if e.name not in members) + tuple(pots)
+    kinds = {e.name: {"R": "ohm", "C": "farad", "L": "henry"}[e.kind] for e in parts}
+    kinds.update({base: "position" for base in pots})
+    nominal = {e.name: float(e.value) for e in parts}
+    nominal.update({base: net.element(a).value / total for base, (a, b, total) in pots.items()})
     source_name = net.element(inputs[0]).name
 
     def response(values: dict, f_hz) -> np.ndarray:
+        values = dict(values)
+        for base, (a, b, total) in pots.items():  # a wiper position sets both halves of the track
+            if base in values:
+                pos = values.pop(base)
+                values[a], values[b] = pos * total, (1 - pos) * total
         sys_ = build_system(net.with_values(values) if values else net, inputs, d["output"])
         w = 2 * np.pi * np.asarray(f_hz, dtype=float)
         y = sys_.G[None, :, :] + 1j * w[:, None, None] * sys_.C[None, :, :]
@@ -88,8 +103,7 @@ def _netlist(given) -> ParametricModel:
         x = np.linalg.solve(y, np.broadcast_to(b[:, None], (w.size, b.size, 1)))[:, sys_.output, 0]
         return sign * x
 
-    return ParametricModel(f"netlist {path.name}", names, {e.name: float(e.value) for e in net.of_kind("R", "C", "L")
-                                                            if e.value}, kinds, response)
+    return ParametricModel(f"netlist {path.name}", names, nominal, kinds, response)
 
 
 def _pid(given) -> ParametricModel:

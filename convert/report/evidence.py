@@ -119,18 +119,20 @@ def evidence_tables(results) -> list:
                 rows.append([label, f"{v:.3g} {unit}" if np.isfinite(v) else "not shown (band not covered)"])
         out.append(("Evidence: bench sweep", ["item", "value"], rows))
         if s.fit is not None:
+            from convert.evidence.fit import value_text
+
             fit = s.fit
             rows = []
             for v in fit.values:
                 if v.determined:
-                    rows.append([v.name, format_value(v.drawn, v.kind, 4),
-                                 f"{format_value(v.fitted, v.kind, 3)} ± {100 * v.ci95_fraction:.2g} %",
+                    rows.append([v.name, value_text(v.drawn, v.kind, 4),
+                                 f"{value_text(v.fitted, v.kind, 3)} ± {100 * v.ci95_fraction:.2g} %",
                                  f"{100 * v.change:+.1f} %", "changed" if v.significant else "as drawn"])
                 else:
-                    rows.append([v.name, format_value(v.drawn, v.kind, 4), "not determined alone", "—", "—"])
+                    rows.append([v.name, value_text(v.drawn, v.kind, 4), "not determined alone", "—", "—"])
             out.append((f"Evidence: fitted values ({fit.model}, 95 % intervals, χ²/dof {fit.chi2_dof:.3g})",
                         ["value", "drawn", "measured", "change", "reading"], rows))
-            rows = [[c.name, format_value(c.drawn, c.kind, 4), format_value(c.fitted, c.kind, 4), f"{c.chi2_dof:.3g}",
+            rows = [[c.name, value_text(c.drawn, c.kind, 4), value_text(c.fitted, c.kind, 4), f"{c.chi2_dof:.3g}",
                      "yes" if c.explains else "no"] for c in fit.singles]
             out.append(("Evidence: single changes that could explain the sweep",
                         ["value", "drawn", "fitted alone", "χ²/dof", "explains it"], rows))
