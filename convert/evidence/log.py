@@ -113,19 +113,24 @@ class AnalogReplay:
 
     def run(self, t: np.ndarray, u: np.ndarray) -> np.ndarray:
         """Outputs at the rows ``t`` (s) for inputs ``u``; the state carries over between calls."""
-        y = self.k * u
         if self.p.size == 0:
             self.last = (t[-1], u[-1])
-            return y
+            return self.k * u
         first = self.last is None
         inner = np.diff(t)
-        h = inner if first else np.r_[t[0] - self.last[0], inner]
-        if h.size and h.max() - h.min() <= 1e-9 * h[0]:
-            y = y + self._uniform(float(h[0]), u, first)
-        elif h.size:
-            y = y + self._uneven(h, u if first else np.r_[self.last[1], u], first)
+        h0 = float(inner[0]) if inner.size else (float(t[0] - self.last[0]) if not first else 0.0)
+        even = inner.size == 0 or inner.max() - inner.min() <= 1e-9 * h0
+        if not first:
+            even = even and abs(float(t[0] - self.last[0]) - h0) <= 1e-9 * h0
+        if h0 > 0 and even:
+            y = self._uniform(h0, u, first)
+        elif h0 > 0:
+            h = inner if first else np.r_[t[0] - self.last[0], inner]
+            y = self._uneven(h, u if first else np.r_[self.last[1], u], first)
+        else:  # a lone first row: the state is zero there
+            y = np.zeros(u.size)
         self.last = (t[-1], u[-1])
-        return y
+        return y + self.k * u if self.k else y
 
     def _uniform(self, h: float, u: np.ndarray, first: bool) -> np.ndarray:
         """Even steps: each mode is the filter (I1 + (I0 − I1)·z⁻¹)/(1 − e^{ph}·z⁻¹) on the input
@@ -246,25 +251,29 @@ class DigitalReplay:
 
         if self.t0 is None:
             self.t0 = float(t[0])
-        tt, uu = (t, u) if self.prev is None else (np.r_[self.prev[0], t], np.r_[self.prev[1], u])
         period = 1.0 / self.fs
         eps = 1e-9 * period
-        n_last = int(np.floor((tt[-1] - self.t0) / period + 1e-9))
-        n = np.arange(self.n_next, n_last + 1)
-        inst = self.t0 + n * period
+        last = t[-1] if self.prev is None else max(t[-1], self.prev[0])
+        n_last = int(np.floor((last - self.t0) / period + 1e-9))
+        inst = self.t0 + np.arange(self.n_next, n_last + 1) * period
+        aligned = inst.size == t.size and inst.size > 0 and np.max(np.abs(inst - t)) <= eps
+        if aligned:
+            ui = u  # the log holds the firmware's own samples
+        elif inst.size:
+            tt, uu = (t, u) if self.prev is None else (np.r_[self.prev[0], t], np.r_[self.prev[1], u])
+            ui = np.interp(inst, tt, uu)
         if inst.size:
-            aligned = inst.size == t.size and np.max(np.abs(inst - t)) <= eps
-            ui = u if aligned else np.interp(inst, tt, uu)
             y, self.zi = lfilter(self.b, self.a, ui, zi=self.zi) if self.zi.size else (self.b[0] * ui, self.zi)
         else:
             y = np.empty(0)
         self.n_next = n_last + 1
-        # output at a logged time: the newest firmware output whose instant + delay <= t
-        times = np.r_[self.held_t, inst + self.delay]
-        values = np.r_[self.held_y, y]
-        if self.delay == 0 and inst.size == t.size and inst.size and np.max(np.abs(inst - t)) <= eps:
+        if aligned and self.delay == 0:
             out = y  # the firmware samples at the logged rows and answers at once
+            times, values = inst[-self.keep:], y[-self.keep:]
         else:
+            # output at a logged time: the newest firmware output whose instant + delay <= t
+            times = np.r_[self.held_t, inst + self.delay]
+            values = np.r_[self.held_y, y]
             idx = np.searchsorted(times, t + eps, side="right") - 1
             out = values[np.clip(idx, 0, None)]
         self.held_t, self.held_y = times[-self.keep:], values[-self.keep:]
