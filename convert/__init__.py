@@ -43,6 +43,12 @@ _LAZY = {
     "evaluate": ("convert.api", "evaluate"),
     "write_report": ("convert.report", "write_report"),
     "run_batch": ("convert.report.batch", "run_batch"),
+    # forms that exist, and the evidence about them
+    "read_spec": ("convert.given", "read_spec"),
+    "compare_pair": ("convert.compare.pair", "compare_pair"),
+    "read_sweep": ("convert.evidence.sweep", "read_sweep"),
+    "sweep_evidence": ("convert.evidence.sweep", "sweep_evidence"),
+    "log_evidence": ("convert.evidence.log", "log_evidence"),
 }
 
 __all__ = ["LoopshiftError", "InputError", "UnrealizableError", "__version__", *_LAZY]

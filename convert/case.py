@@ -48,8 +48,10 @@ SCHEMA: dict[str, Any] = {
             "topology": 1, "resistors": 1, "capacitors": 1, "tolerances": None, "resistor_range": 1,
             "capacitor_range": 1, "draws": 1, "seed": 1, "opamp_gbw": 1,
         },
+        "given": None,  # forms that exist, one table per name: checked by convert.given
     },
     "plant": {"model": 1, "dead_time": 1},
+    "evidence": None,  # [evidence.sweep] / [evidence.log]: checked by convert.evidence.casefile
     "signals": {"setpoint_step": 1, "disturbance_step": 1, "duration": 1, "output_range": 1},
     "criteria": {
         "band": 1, "max_gain_error_db": 1, "max_phase_error_deg": 1, "max_phase_margin_change_deg": 1,
@@ -170,6 +172,8 @@ class Case:
     signals: Signals
     criteria: Criteria
     lines: dict | None = field(default_factory=dict, compare=False, repr=False)  # None: built in Python
+    given: tuple = ()  # convert.given.GivenForm, in file order
+    evidence: Any = None  # convert.evidence.casefile.EvidenceSpec
 
     @property
     def base_dir(self) -> Path:
@@ -420,9 +424,15 @@ def _case_from_data(data: dict, ctx: _Ctx) -> Case:
     plant = _read_plant(ctx, data)
     signals = _read_signals(ctx, data)
     criteria = _read_criteria(ctx, data)
+    from convert.given import read_given_targets
+
+    given = read_given_targets(ctx, data.get("target") or {}, path.parent)
+    from convert.evidence.casefile import read_evidence
+
+    evidence = read_evidence(ctx, data, path.parent)
     return Case(path=path, name=path.stem, title=title, description=description, source=source,
                 digital=digital, circuit=circuit, plant=plant, signals=signals, criteria=criteria,
-                lines=ctx.lines)
+                lines=ctx.lines, given=given, evidence=evidence)
 
 
 def _read_source(ctx: _Ctx, data: dict) -> Source:
@@ -531,7 +541,8 @@ def _method_names() -> tuple[str, ...]:
 def _read_targets(ctx: _Ctx, data: dict, source: Source):
     table = ctx.table(data, "target", "target")
     if not table:
-        raise InputError("missing [target.digital] or [target.circuit]: the form(s) to produce",
+        raise InputError("missing [target.digital], [target.circuit] or [target.given.NAME]: the form(s) to produce "
+                         "or check",
                          where=ctx.where(""), key="target")
     ctx.check_keys(table, SCHEMA["target"], "target")
     digital = circuit = None
@@ -591,8 +602,8 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
             opamp_gbw_hz=ctx.value(cir, "opamp_gbw", f"{key}.opamp_gbw", "hz", None, positive=True, allow_zero=False),
             where=ctx.where(key),
         )
-    if digital is None and circuit is None:
-        raise ctx.error("target", "give [target.digital] and/or [target.circuit]")
+    if digital is None and circuit is None and not table.get("given"):
+        raise ctx.error("target", "give [target.digital], [target.circuit] or [target.given.NAME]")
     if source.form == "digital" and digital is not None and circuit is None:
         pass  # a digital source moved to another rate or method is allowed
     return digital, circuit
@@ -701,6 +712,12 @@ def source_controller(case: Case) -> SourceInfo:
         raise type(exc)(exc.message, where=case.where(full), key=full) from None
 
 
+def build_form(src: Source, case: Case | None = None) -> SourceInfo:
+    """The controller of one form written as a :class:`Source` (also used for given targets);
+    ``case`` (optional) gives a netlist card's analysis the band and the sample rate."""
+    return _build_source(case, src)
+
+
 def _build_source(case: Case, src: Source) -> SourceInfo:
     if src.form == "expression":
         return SourceInfo(controller=src.data["controller"])
@@ -743,10 +760,10 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
         hint = two_input_hint(net, None, spelling='setpoint = "{sp}", measurement = "{pv}"')
         if hint:
             raise InputError(f"input source {src.data['input']!r} not found in {file_path.name}; {hint}", key="input")
-    fs = min(case.digital.fs_hz) if case.digital else None
+    fs = min(case.digital.fs_hz) if case is not None and case.digital else None
     card = analyze_card(net, input=src.data["input"], output=src.data["output"], setpoint=src.data["setpoint"],
                         measurement=src.data["measurement"], with_sensitivities=False,
-                        band_hz=tuple(case.criteria.band_hz), fs_hz=fs)
+                        band_hz=tuple(case.criteria.band_hz) if case is not None else None, fs_hz=fs)
     extra: dict = {"netlist_file": str(file_path), "output_limits": card.output_limits, "reduction": card.reduction}
     notes = [f"warning: {w}" for w in net.warnings] + list(card.notes)
     if card.output_limits is not None:
@@ -806,6 +823,8 @@ def case_summary(case: Case) -> dict:
         out["targets"]["digital"] = {k: v for k, v in case.digital.__dict__.items() if k != "where"}
     if case.circuit:
         out["targets"]["circuit"] = {k: v for k, v in case.circuit.__dict__.items() if k != "where"}
+    if case.given:
+        out["targets"]["given"] = [g.summary() for g in case.given]
     if case.plant:
         out["plant"] = {"model": case.plant.expression, "dead_time_s": case.plant.dead_time_s}
     return out

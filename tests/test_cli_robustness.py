@@ -158,6 +158,12 @@ BAD_INPUT = [
     (["show", PI, "--jsn"], "unknown option --jsn (did you mean --json?)"),
     (["show", "2*s", "extra"], "unexpected word 'extra'"),
     (["digital", PI, "--fs"], "--fs: expected one argument"),
+    # --- compare: each spec names A or B
+    (["compare", PI], "give the form B"),
+    (["compare", PI, "pid: kc=2 ti=-3s"], "B: ti:"),
+    (["compare", PI, "empty.cir"], "empty.cir"),
+    (["compare", "latin1.cir", PI], "latin1.cir"),
+    (["compare", PI, "digital: b=1 a=0,1 fs=1kHz"], "B: a: a[0] must be non-zero"),
 ]
 
 

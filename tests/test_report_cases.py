@@ -21,6 +21,8 @@ EXPECTED = {
     "netlist_card_to_firmware": "pass",
     "firmware_pid_to_opamp": "pass",
     "slow_firmware_fails": "fail",
+    "given_forms_tank_level": "fail",
+    "evidence_temp_card": "fail",
 }
 
 

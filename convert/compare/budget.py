@@ -35,6 +35,7 @@ ROWS: tuple[tuple[str, str], ...] = (
     ("derivative_filter", "Derivative filter"),
     ("opamp_gbw", "Op-amp gain-bandwidth"),
     ("card_parasitics", "Op-amp / parasitic poles left out of the card"),
+    ("measured", "Measured deviation (bench sweep)"),
     ("total", "Total (everything on)"),
 )
 ROW_LABELS = dict(ROWS)

@@ -69,6 +69,7 @@ class CaseResults:
     notes: list[str] = field(default_factory=list)
     draws: int | None = None
     seed: int | None = None
+    evidence: Any = None  # convert.evidence.casework.CaseEvidence
 
     @property
     def exit_code(self) -> int:
@@ -91,6 +92,7 @@ def planned_steps(case) -> int:
         n += len(case.digital.fs_hz) * len(case.digital.methods) + 1
     if case.circuit:
         n += 3
+    n += len(getattr(case, "given", ()))
     return n + 1
 
 
@@ -147,6 +149,11 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
         realizations.append(circuit_realization(case, src, analog_src, band, src_margins, duration, src_step,
                                                 src_dist, draws=draws, tick=tick, case_reduction=reduction,
                                                 source_pid=info.pid))
+    if getattr(case, "given", ()):
+        from convert.compare.givenwork import given_realizations
+
+        realizations += given_realizations(case, src, band, src_margins, duration, src_step, src_dist, draws=draws,
+                                           tick=tick)
 
     figures = {}
     for r in realizations:
@@ -155,7 +162,16 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
         if plant is not None:
             f.update(_loop_figures(src_margins, r, src_step, src_dist, case))
         figures[r.name] = f
+    evidence = None
+    if getattr(case, "evidence", None) is not None:
+        from convert.evidence.casework import extend_verdict, run_evidence
+
+        evidence = run_evidence(case, info, realizations)
+        figures.update(evidence.figures)
+        notes += evidence.notes
     verdict = judge(crit.as_dict(), figures, has_plant=plant is not None)
+    if evidence is not None:
+        verdict = extend_verdict(verdict, evidence.judgements)
     tick("verdict")
     circuit_draws = None
     if case.circuit:
@@ -163,7 +179,7 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
     return CaseResults(case=case, source=info, reference=src, band_f_hz=band, realizations=realizations,
                        rate_advice=advice, verdict=verdict, source_margins=src_margins, source_step=src_step,
                        source_disturbance=src_dist, duration_s=duration, skipped=skipped, notes=notes,
-                       draws=circuit_draws, seed=case.circuit.seed if case.circuit else None)
+                       draws=circuit_draws, seed=case.circuit.seed if case.circuit else None, evidence=evidence)
 
 
 # ----------------------------------------------------------------------------- helpers

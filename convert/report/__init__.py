@@ -19,6 +19,9 @@ def build_report(results) -> dict[str, bytes | str]:
     from convert.report.results import results_dict
 
     figures = all_figures(results)
+    from convert.report.evidence import evidence_figures
+
+    figures.update(evidence_figures(results))
     files: dict[str, bytes | str] = {
         "report.html": html_report(results, figures),
         "report.md": markdown_report(results, list(figures)),

@@ -17,6 +17,10 @@ FIGURE_CAPTIONS = {
 
 
 def _caption(name: str) -> str:
+    from convert.report.evidence import CAPTIONS
+
+    if name in CAPTIONS:
+        return CAPTIONS[name]
     if name.startswith("schematic-"):
         return "Schematic of the designed circuit (rounded parts)."
     if name.startswith("montecarlo-"):

@@ -67,5 +67,6 @@ def results_dict(results) -> dict:
         "failures": [j.as_dict() for j in results.verdict.failures],
         "monte_carlo": {"draws": results.draws, "seed": results.seed} if results.draws else None,
         "notes": list(results.notes),
+        "evidence": results.evidence.as_dict() if getattr(results, "evidence", None) is not None else None,
         "cautions": list(CAUTIONS),
     }

@@ -75,7 +75,7 @@ def seconds(x) -> str:
 
 def _measured(value, unit: str) -> str:
     """A judged figure in the criterion's unit; fractions of a step or peak as percentages."""
-    if unit in ("of step", "of peak"):
+    if unit in ("of step", "of peak", "of range"):
         return fixed(None if value is None else 100 * value, f"% {unit}")
     return fixed(value, unit)
 
@@ -110,7 +110,7 @@ def verdict_table(results) -> Table:
         if j.status == "not set":
             continue
         unit = j.unit
-        limit = fixed(100 * j.limit, f"% {unit}") if unit in ("of step", "of peak") else fixed(j.limit, unit)
+        limit = fixed(100 * j.limit, f"% {unit}") if unit in ("of step", "of peak", "of range") else fixed(j.limit, unit)
         rows.append([j.realization, j.label, _measured(j.value, unit), limit,
                      j.status.upper() if j.status == "fail" else j.status,
                      _against_limit(j.value, j.limit, j.status), j.note])
@@ -183,6 +183,9 @@ def all_tables(results) -> list[Table]:
     for t in (margins_table(results), rate_table(results)):
         if t is not None:
             out.append(t)
+    from convert.report.evidence import evidence_tables
+
+    out += evidence_tables(results)
     return out
 
 
@@ -298,6 +301,10 @@ def input_tables(results) -> list[Table]:
 
         rows.append(["card clamps", f"output held to {limits_text(results.source.extra['output_limits'])} by the card's "
                                     "diodes (approximate knees)"])
+    if getattr(case, "given", ()):
+        from convert.given import describe
+
+        rows += [[f"given: {g.name}", describe(g)] for g in case.given]
     if case.plant:
         rows.append(["plant", f"{case.plant.expression}, dead time {seconds(case.plant.dead_time_s)} "
                               "(controller output → measurement)"])

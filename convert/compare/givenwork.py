@@ -1,0 +1,246 @@
+"""Given targets of a case: forms that exist (firmware coefficients, a PID block as configured,
+a card), checked against the source like the forms the tool makes.
+
+The budget of a given form has only the rows that apply to it: nothing was converted or rounded
+by the tool, so a given firmware has no discretization row (a PID block's own term-by-term
+sampling is its discretization row) and a given card no rounding-to-series row; the hold and
+computation delay, the word format, the part tolerances apply where the form has them. Each
+row is computed from the form as it runs (its coefficients as stored, its parts as fitted).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from convert.compare import budget as bud
+from convert.compare.frequency import response_seen_from_loop
+from convert.controller import Controller
+from convert.errors import UnrealizableError
+
+PERCENTILE = 99.0
+DEFAULT_DRAWS = 2000
+DEFAULT_SEED = 1
+
+
+def quantized(given, controller: Controller) -> Controller:
+    """The firmware's controller with its coefficients stored in its word format.
+
+    float64 is the reference (returned as is); float32 rounds each coefficient to single
+    precision. Fixed-point formats are the word-format models' job (``convert.digital``): until
+    one is wired in here the evaluation refuses them rather than check a stand-in."""
+    word = given.data.get("word_format", "float64")
+    if word == "float64":
+        return controller
+    if word == "float32":
+        b = np.asarray(controller.b, dtype=np.float32).astype(float)
+        a = np.asarray(controller.a, dtype=np.float32).astype(float)
+        return Controller.from_b_a(b, a / a[0], controller.sample_period_s, name=controller.name)
+    import re
+
+    in_file = re.search(r":\d+$", given.where or "") is not None  # a case file names its key, a spec its word
+    raise UnrealizableError(f"given form {given.name!r}: word format {word!r} is stored, but this version evaluates "
+                            "float64 and float32 coefficients only; a fixed-point check needs the word-format models",
+                            where=given.where, key=f"target.given.{given.name}.word_format" if in_file else "word")
+
+
+def given_realizations(case, src: Controller, band, src_margins, duration, src_step, src_dist, *, draws=None,
+                       tick=lambda text: None) -> list:
+    """One :class:`convert.compare.evaluate.Realization` per given form of ``case``."""
+    from convert.given import given_controller
+
+    out = []
+    for given in case.given:
+        info = given_controller(given, case)
+        if given.form == "analog":
+            out.append(_analog(case, given, info, src, band, duration))
+        elif given.form == "circuit":
+            out.append(_circuit(case, given, info, src, band, duration, src_step, src_dist, draws))
+        else:
+            out.append(_firmware(case, given, info, src, band, duration, src_step, src_dist))
+        tick(f"given {given.name}")
+    return out
+
+
+def _loop(case, controller: Controller):
+    from convert.compare.evaluate import _loop_spec
+    from convert.compare.loop import margin_grid
+
+    if case.plant is None:
+        return None, None
+    loop_f = margin_grid(controller, case.plant.model)
+    return loop_f, _loop_spec(case, loop_f)
+
+
+def _firmware(case, given, info, src, band, duration, src_step, src_dist):
+    from convert.compare.evaluate import Realization, _fmt_hz, _fmt_s
+
+    d = given.data
+    cd: Controller = info.controller
+    cq = quantized(given, cd)
+    delay = given.delay_for()
+    fs = d["fs_hz"]
+    if fs / 2 <= case.criteria.band_hz[1]:
+        from convert.errors import InputError
+
+        raise InputError(f"given form {given.name!r} runs at {fs:g} Hz: its Nyquist frequency is at or below the "
+                         f"band's top ({case.criteria.band_hz[1]:g} Hz)", where=given.where,
+                         key=f"target.given.{given.name}.fs")
+    loop_f, spec = _loop(case, cq)
+
+    def lr(ctrl, delay_s=0.0, hold="none"):
+        return None if loop_f is None else response_seen_from_loop(ctrl, loop_f, delay_s=delay_s, hold=hold, via="zpk")
+
+    rows = {}
+    if given.form == "pid":
+        law = info.pid.to_controller()
+        rows["discretization"] = bud.error_row(
+            "discretization", band, law.frequency_response(band), cd.frequency_response(band, via="zpk"),
+            note=f"the block's own sampling ({d['method']} term by term at {_fmt_hz(fs)}) against its PID law; "
+                 "no hold, no delay", loop=spec, loop_reference=lr(law), loop_candidate=lr(cd))
+        if info.pid.tf > 0:
+            from dataclasses import replace
+
+            bare = replace(info.pid, tf=0.0).to_controller()
+            rows["derivative_filter"] = bud.error_row(
+                "derivative_filter", band, bare.frequency_response(band), law.frequency_response(band),
+                note=f"the block's derivative filter (time constant {_fmt_s(info.pid.tf)}) alone, in its PID law",
+                loop=spec, loop_reference=lr(bare), loop_candidate=lr(law))
+        else:
+            rows["derivative_filter"] = bud.not_applicable("derivative_filter", "the block has no derivative filter")
+    else:
+        rows["discretization"] = bud.not_applicable("discretization", "given coefficients: no conversion was made")
+        rows["derivative_filter"] = bud.not_applicable("derivative_filter", "given coefficients: no filter was added")
+    rows["hold_and_delay"] = bud.error_row(
+        "hold_and_delay", band, cd.frequency_response(band, via="zpk"),
+        response_seen_from_loop(cd, band, delay_s=delay, via="zpk"),
+        note=f"zero-order hold at {_fmt_hz(fs)} and {_fmt_s(delay)} computation delay alone, on the given form",
+        loop=spec, loop_reference=lr(cd), loop_candidate=lr(cd, delay, "zoh"))
+    if cq is cd:
+        rows["word_format"] = bud.not_applicable("word_format", "float64 coefficients (the reference)")
+    else:
+        rows["word_format"] = bud.error_row(
+            "word_format", band, cd.frequency_response(band, via="poly"), cq.frequency_response(band, via="poly"),
+            note=f"coefficients stored as {d['word_format']} alone, against float64 (both in z, no hold)",
+            loop=spec, loop_reference=lr(cd), loop_candidate=lr(cq))
+    rows["total"] = bud.error_row(
+        "total", band, response_seen_from_loop(src, band, via="zpk"),
+        response_seen_from_loop(cq, band, delay_s=delay, via="zpk"),
+        note="the given form as it runs (word format, hold, delay) against the source as the loop sees it",
+        loop=spec, loop_reference=lr(src, hold="zoh"), loop_candidate=lr(cq, delay, "zoh"))
+    budget = bud.assemble(rows, bud.DIGITAL_ROWS, "given firmware")
+    details = {"given": True, "fs_hz": fs, "delay_s": delay, "b": list(cq.b), "a": list(cq.a),
+               "word_format": d["word_format"], "structure": d["structure"], "output_limits": d["output_limits"]}
+    warnings = []
+    if d.get("structure") not in (None, "direct"):
+        warnings.append(f"structure {d['structure']!r} is recorded; its rounding inside the sections is not modelled "
+                        "(coefficients are checked as stored)")
+    if given.form == "pid":
+        details.update(method=d["method"], algorithm=d["algorithm"], settings=d["settings"])
+        if d["algorithm"] == "velocity":
+            warnings.append("velocity algorithm: the same linear law; it differs from the positional one at the "
+                            "output limits and on switch-over (no integral windup, bumpless by construction)")
+    r = _realization(case, given, "digital", cq, details, budget, warnings,
+                     lambda f, c=cq, dl=delay: response_seen_from_loop(c, f, delay_s=dl, via="zpk"))
+    if case.plant is not None:
+        _loop_checks(case, r, cq, duration, delay, d["output_limits"] or case.signals.output_range)
+    return r
+
+
+def _analog(case, given, info, src, band, duration):
+    ctrl: Controller = info.controller
+    loop_f, spec = _loop(case, ctrl)
+
+    def lr(c, hold="none"):
+        return None if loop_f is None else response_seen_from_loop(c, loop_f, hold=hold, via="zpk")
+
+    rows = {"total": bud.error_row(
+        "total", band, response_seen_from_loop(src, band, via="zpk"), ctrl.frequency_response(band, via="zpk"),
+        note="the given controller against the source as the loop sees it", loop=spec,
+        loop_reference=lr(src, "zoh"), loop_candidate=lr(ctrl))}
+    details = {"given": True, "expression": given.data.get("expression") or ctrl.expression(),
+               "topology": f"C(s) = {ctrl.expression()}"}
+    r = _realization(case, given, "analog", ctrl, details, bud.assemble(rows, (), "given analog"), [],
+                     lambda f, c=ctrl: c.frequency_response(f, via="zpk"))
+    if case.plant is not None:
+        _loop_checks(case, r, ctrl, duration, 0.0, case.signals.output_range)
+    return r
+
+
+def _circuit(case, given, info, src, band, duration, src_step, src_dist, draws):
+    from convert.values import format_value
+
+    d = given.data
+    ctrl: Controller = info.controller
+    loop_f, spec = _loop(case, ctrl)
+    both_f = band if loop_f is None else np.concatenate([band, loop_f])
+    tols = d["tolerances"]
+    rows = {"series_rounding": bud.not_applicable("series_rounding", "given parts: nothing was rounded"),
+            "derivative_filter": bud.not_applicable("derivative_filter", "given card: no filter was added"),
+            "opamp_gbw": bud.not_applicable("opamp_gbw", "the given card is checked with ideal op-amps")}
+    nominal = ctrl.frequency_response(both_f, via="zpk")
+    candidate = nominal
+    percentile = None
+    details = {"given": True}
+    if "topology" in d:
+        from convert.circuit.tolerance import draw_parts
+        from convert.circuit.topologies import get_topology
+
+        topo = get_topology(d["topology"])
+        details.update(topology=topo.name, parts=dict(d["parts"]),
+                       parts_text={k: format_value(v, "ohm" if k[:1].upper() == "R" else "farad")
+                                   for k, v in d["parts"].items()})
+        if tols:
+            n = int(draws or DEFAULT_DRAWS)
+            drawn = draw_parts(topo, d["parts"], tols, n, DEFAULT_SEED)
+            candidate = topo.response({k: np.asarray(v, dtype=float) for k, v in drawn.items()}, both_f)
+            percentile = PERCENTILE
+            rows["tolerances"] = bud.error_row(
+                "tolerances", band, nominal[:band.size], candidate[:, :band.size], percentile=PERCENTILE,
+                note=f"{n} draws within ±tolerance ({', '.join(f'{k} {v * 100:g} %' for k, v in tols.items())}) "
+                     f"around the given parts alone; seed {DEFAULT_SEED}",
+                loop=spec, loop_reference=None if loop_f is None else nominal[band.size:],
+                loop_candidate=None if loop_f is None else candidate[:, band.size:])
+            details.update(tolerances=tols, draws=n, seed=DEFAULT_SEED)
+        else:
+            rows["tolerances"] = bud.not_applicable("tolerances", "no tolerances given for the card's parts")
+    else:
+        if tols:
+            raise UnrealizableError(f"given form {given.name!r}: tolerances on a netlist's parts are not drawn by this "
+                                    "version; give the card as a catalog topology with parts, or leave them out",
+                                    where=given.where, key=f"target.given.{given.name}.tolerances")
+        rows["tolerances"] = bud.not_applicable("tolerances", "no tolerances given for the netlist's parts")
+        details.update(netlist=str(d["netlist"]), topology=f"netlist {d['netlist'].name}")
+    ref = response_seen_from_loop(src, both_f, via="zpk")
+    rows["total"] = bud.error_row(
+        "total", band, ref[:band.size], np.atleast_2d(candidate)[:, :band.size], percentile=percentile,
+        note="the given card" + (" with its tolerances" if percentile else "") + " against the source as the "
+             "loop sees it", loop=spec, loop_reference=None if loop_f is None else ref[band.size:],
+        loop_candidate=None if loop_f is None else np.atleast_2d(candidate)[:, band.size:])
+    budget = bud.assemble(rows, bud.CIRCUIT_ROWS, "given card")
+    r = _realization(case, given, "circuit", ctrl, details, budget, list(info.notes),
+                     lambda f, c=ctrl: c.frequency_response(f, via="zpk"))
+    if case.plant is not None:
+        _loop_checks(case, r, ctrl, duration, 0.0, case.signals.output_range)
+    return r
+
+
+def _realization(case, given, form, controller, details, budget, warnings, seen):
+    from convert.compare.evaluate import Realization
+
+    return Realization(name=f"given {given.name}", form=form, controller=controller, details=details, budget=budget,
+                       seen=seen, warnings=warnings)
+
+
+def _loop_checks(case, r, controller, duration, delay, limits) -> None:
+    from convert.compare.evaluate import _simulate_pair
+    from convert.compare.loop import loop_margins
+    from convert.errors import InputError
+
+    r.margins = loop_margins(controller, case.plant.model, case.plant.dead_time_s, delay_s=delay)
+    if not controller.is_proper:
+        r.warnings.append("time simulation skipped: the given form is improper")
+        return
+    try:
+        r.step, r.disturbance = _simulate_pair(case, controller, duration, delay, limits)
+    except InputError as exc:
+        r.warnings.append(f"time simulation skipped: {exc.message}")

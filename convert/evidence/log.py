@@ -1,0 +1,673 @@
+"""Plant log evidence: the controller's input and output logged on the running plant, replayed
+through each form and compared; the running PID's parameters fitted from the log.
+
+The log is CSV with ``time (s)`` and either ``error`` or ``setpoint`` and ``measurement`` (the
+controller's input e = setpoint − measurement) and ``output``. It is read in chunks
+(:data:`convert.evidence.csvtable.CHUNK_ROWS` rows) and every result is accumulated as it
+streams, so a log of millions of rows is replayed in bounded memory.
+
+Replay (each form from rest at the first row):
+
+* an analog form is propagated **exactly** between samples for an input that is linear
+  between them (first-order hold, the assumption python-control's ``forced_response`` makes),
+  at each row's own time step, so uneven sampling is handled as logged: the controller is split
+  into first-order modes (partial fractions; distinct poles) and each mode's recursion
+  x[k+1] = e^{p·h_k}·x[k] + (I0 − I1)·u[k] + I1·u[k+1] is run by ``scipy.signal.lfilter`` over
+  evenly sampled stretches and by an associative scan elsewhere;
+* a digital form runs at its own rate and word format: its sample instants t0 + n/fs, the input
+  interpolated linearly at them, ``lfilter`` with its coefficients as stored, the output held
+  (zero-order) and delayed by its computation delay, read at the logged times.
+
+The residual (logged − replayed output) is reported as its mean (the **offset**: the state the
+running controller had at the first row, a bias, or a tracking difference — estimated and
+reported, never silently removed), and its RMS and peak about that offset, relative to the
+logged output's range. Rows are left out of the figures, and counted, where the log cannot
+judge the linear law: saturated stretches (output at the given limits, or held flat at the
+row while the input moved, for two steps or more), rows with an empty or NaN cell, and the first five
+time constants of the slowest decaying mode (the unknown initial state). Gaps (a time step more
+than five times the median step) are stated; the input is interpolated across them.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from convert.errors import InputError, UnrealizableError
+from convert.evidence.csvtable import CHUNK_ROWS, Role, chunks, layout
+
+LOG_ROLES = (
+    Role("time", ("time", "t", "timestamp"), ("time",), "s"),
+    Role("setpoint", ("setpoint", "sp", "sv"), ("plain",), "", required=False),
+    Role("measurement", ("measurement", "pv", "process"), ("plain",), "", required=False),
+    Role("error", ("error", "err", "e", "deviation"), ("plain",), "", required=False),
+    Role("output", ("output", "out", "u", "mv", "co", "controller output"), ("plain",), ""),
+)
+GAP_FACTOR = 5.0
+SETTLE_TIME_CONSTANTS = 5.0
+SKETCH_POINTS = 4000
+
+
+# ----------------------------------------------------------------------------- replay engines
+def _scan(a: np.ndarray, b: np.ndarray, x0: np.ndarray) -> np.ndarray:
+    """x[k+1] = a[k]·x[k] + b[k] for k = 0..n-1 along the last axis, from x0; returns x[1..n].
+    Associative scan by doubling (log2 n vectorized passes)."""
+    A, B = a.copy(), b.copy()
+    n = A.shape[-1]
+    d = 1
+    while d < n:
+        B[..., d:] = A[..., d:] * B[..., :-d] + B[..., d:]
+        A[..., d:] = A[..., d:] * A[..., :-d]
+        d *= 2
+    return A * x0[..., None] + B
+
+
+def re_start(powers: np.ndarray, n: int) -> int:
+    """Column where the last ``n − 1`` powers begin (the newest power, E^0, is the last column)."""
+    return powers.shape[1] - (n - 1)
+
+
+class AnalogReplay:
+    """Exact first-order-hold propagation of an analog controller through logged samples."""
+
+    def __init__(self, controller):
+        from scipy.signal import residue
+
+        if not controller.is_proper:
+            raise UnrealizableError("an improper controller (an unfiltered derivative) has no response to a logged "
+                                    "input; give its derivative filter", key="derivative_filter")
+        num, den = np.asarray(controller.num, float), np.asarray(controller.den, float)
+        r, p, k = residue(num, den)
+        if p.size and np.min(np.abs(np.subtract.outer(p, p)) + np.eye(p.size) * 1e300) < 1e-9 * max(1, np.max(np.abs(p))):
+            raise UnrealizableError("the controller has a repeated pole; its replay needs distinct poles",
+                                    key="controller")
+        p = p.astype(complex)
+        r = r.astype(complex)
+        # one mode per real pole and per conjugate pair (the pair's output is twice the real part)
+        real = np.abs(p.imag) <= 1e-12 * np.maximum(1.0, np.abs(p))
+        upper = p.imag > 0
+        keep = real | upper
+        self.p = np.where(real, p.real + 0j, p)[keep]
+        self.r = np.where(real, r.real + 0j, r)[keep]
+        self.weight = np.where(real[keep], 1.0, 2.0)
+        self.is_real = real[keep]
+        self.k = float(np.real(k[0])) if len(k) else 0.0
+        self.x = np.zeros(self.p.size, dtype=complex)
+        self.last = None  # (t, u) of the previous row
+        self._cache = (None, None)
+        decaying = [-1 / z.real for z in p if z.real < -1e-12 * max(1.0, abs(z))]
+        self.settle_s = SETTLE_TIME_CONSTANTS * max(decaying) if decaying else 0.0
+
+    def _coefficients(self, h: np.ndarray):
+        """e^{p·h}, I0 − I1 and I1 per mode (rows) and step (columns)."""
+        z = self.p[:, None] * h[None, :]
+        E = np.exp(z)
+        small = np.abs(z) < 1e-4
+        zs = np.where(small, 1.0, z)
+        em1 = np.expm1(zs)
+        i0 = np.where(small, h * (1 + z / 2 + z * z / 6), h * em1 / zs)
+        i1 = np.where(small, h * (0.5 + z / 6 + z * z / 24), h * (em1 - zs) / (zs * zs))
+        return E, i0 - i1, i1
+
+    def run(self, t: np.ndarray, u: np.ndarray) -> np.ndarray:
+        """Outputs at the rows ``t`` (s) for inputs ``u``; the state carries over between calls."""
+        if self.p.size == 0:
+            self.last = (t[-1], u[-1])
+            return self.k * u
+        first = self.last is None
+        inner = np.diff(t)
+        h0 = float(inner[0]) if inner.size else (float(t[0] - self.last[0]) if not first else 0.0)
+        even = inner.size == 0 or inner.max() - inner.min() <= 1e-9 * h0
+        if not first:
+            even = even and abs(float(t[0] - self.last[0]) - h0) <= 1e-9 * h0
+        if h0 > 0 and even:
+            y = self._uniform(h0, u, first)
+        elif h0 > 0:
+            h = inner if first else np.r_[t[0] - self.last[0], inner]
+            y = self._uneven(h, u if first else np.r_[self.last[1], u], first)
+        else:  # a lone first row: the state is zero there
+            y = np.zeros(u.size)
+        self.last = (t[-1], u[-1])
+        return y + self.k * u if self.k else y
+
+    def _uniform(self, h: float, u: np.ndarray, first: bool) -> np.ndarray:
+        """Even steps: each mode is the filter (I1 + (I0 − I1)·z⁻¹)/(1 − e^{ph}·z⁻¹) on the input
+        rows (scipy.signal.lfilter), started from the carried state."""
+        from scipy.signal import lfilter
+
+        if self._cache[0] is None or abs(self._cache[0] - h) > 1e-9 * h:  # steps equal to rounding share one set
+            E, c0, c1 = self._coefficients(np.array([h]))
+            self._cache = (h, (E[:, 0], c0[:, 0], c1[:, 0]))
+        E, c0, c1 = self._cache[1]
+        if self.p.size + int((~self.is_real).sum()) <= 4 and np.all(np.abs(E) <= 1 + 1e-12) and u.size > 1:
+            return self._combined(h, E, c0, c1, u, first)
+        parts = []
+        for i in range(self.p.size):
+            g = self.weight[i] * self.r[i]  # the mode's output gain
+            if first:  # x at the first row is zero: c1·u0 + zi = 0
+                zi = -c1[i] * u[0]
+            else:
+                zi = E[i] * self.x[i] + c0[i] * self.last[1]
+            if self.is_real[i]:
+                ys, _ = lfilter([(g * c1[i]).real, (g * c0[i]).real], [1.0, -E[i].real], u, zi=[(g * zi).real])
+                self.x[i] = ys[-1] / g.real
+            else:
+                yc, _ = lfilter([g * c1[i], g * c0[i]], [1.0, -E[i]], u.astype(complex), zi=[g * zi])
+                self.x[i] = yc[-1] / g
+                ys = yc.real
+            parts.append(ys)
+        return parts[0] if len(parts) == 1 else np.sum(parts, axis=0)
+
+    def _combined(self, h: float, E, c0, c1, u: np.ndarray, first: bool) -> np.ndarray:
+        """Even steps, low order: every mode summed into one filter B(z)/A(z) run by one
+        ``lfilter`` call, its initial state built from the modal states (the free response of
+        mode i, g·z_i/(1 − E_i z⁻¹), over the common denominator); the modal states at the chunk's
+        end follow from two dot products per mode with the powers E_i^(N−1−n)."""
+        from scipy.signal import lfilter
+
+        if getattr(self, "_combo_key", None) != self._cache[0] or self._combo[5][0].shape[1] < u.size - 1:
+            conj = ~self.is_real
+            Ef = np.r_[E, np.conj(E[conj])]
+            c0f, c1f = np.r_[c0, np.conj(c0[conj])], np.r_[c1, np.conj(c1[conj])]
+            gf = np.r_[self.r, np.conj(self.r[conj])]
+            others = []
+            for i in range(Ef.size):
+                poly = np.array([1.0 + 0j])
+                for j in range(Ef.size):
+                    if j != i:
+                        poly = np.convolve(poly, [1.0, -Ef[j]])
+                others.append(poly)
+            a = np.convolve(others[0], [1.0, -Ef[0]])
+            b = np.zeros(Ef.size + 1, dtype=complex)
+            for i in range(Ef.size):
+                b += gf[i] * np.convolve([c1f[i], c0f[i]], others[i])
+            k = np.arange(max(u.size, CHUNK_ROWS) - 2, -1, -1, dtype=float)  # E^(N-1-n), newest last
+            re = np.empty((E.size, k.size))
+            im = np.zeros((E.size, k.size))
+            for i in range(E.size):
+                # powers below 1e-290 are set to zero without computing them: subnormal numbers
+                # would slow every product a hundredfold
+                mag = abs(E[i])
+                reach = k.size if mag >= 1 else min(k.size, int(-290 * np.log(10) / np.log(mag)) + 1)
+                kk = k[k.size - reach:]
+                if self.is_real[i]:
+                    re[i, k.size - reach:] = np.power(E[i].real, kk)
+                else:
+                    w = np.exp(np.log(E[i]) * kk)
+                    re[i, k.size - reach:], im[i, k.size - reach:] = w.real, w.imag
+                re[i, :k.size - reach] = 0.0
+            self._combo = (b.real, a.real, gf, others, conj, (re, im))
+            self._combo_key = self._cache[0]
+        b, a, gf, others, conj, powers = self._combo
+        z = -c1 * u[0] if first else E * self.x + c0 * self.last[1]  # each mode's initial state term
+        zf = np.r_[z, np.conj(z[conj])]
+        zi = np.zeros(len(a) - 1, dtype=complex)
+        for i in range(zf.size):
+            zi += gf[i] * zf[i] * others[i]
+        y, _ = lfilter(b, a, u, zi=zi.real)
+        x0 = c1 * u[0] + z
+        head, tail = u[:-1], u[1:]
+        re, im = powers[0][:, re_start(powers[0], u.size):], powers[1][:, re_start(powers[1], u.size):]
+        dot_head = re @ head + 1j * (im @ head)
+        dot_tail = re @ tail + 1j * (im @ tail)
+        self.x = E ** (u.size - 1) * x0 + c0 * dot_head + c1 * dot_tail
+        return y
+
+    def _uneven(self, h: np.ndarray, uu: np.ndarray, first: bool) -> np.ndarray:
+        """Uneven steps: each row's own coefficients, the recursion run by an associative scan."""
+        E, c0, c1 = self._coefficients(h)
+        b = c0 * uu[None, :-1] + c1 * uu[None, 1:]
+        xs = _scan(E, b, self.x)
+        states = np.concatenate([self.x[:, None], xs], axis=1) if first else xs
+        self.x = xs[:, -1]
+        return np.real((self.weight * self.r) @ states)
+
+
+class DigitalReplay:
+    """A digital controller at its own rate: input sampled at t0 + n/fs (linear interpolation of
+    the log), coefficients as stored, output held and delayed, read at the logged times."""
+
+    def __init__(self, b, a, fs_hz: float, delay_s: float = 0.0):
+        self.b, self.a = np.asarray(b, float), np.asarray(a, float)
+        self.fs = float(fs_hz)
+        self.delay = float(delay_s)
+        self.zi = np.zeros(max(len(self.a), len(self.b)) - 1)
+        self.t0 = None
+        self.n_next = 0  # index of the next firmware sample instant
+        self.prev = None  # (t, u) last log row
+        # (instant + delay, output) of the latest firmware outputs before this chunk: enough of them to
+        # cover the computation delay
+        self.keep = int(np.ceil(self.delay * self.fs)) + 2
+        self.held_t = np.array([-np.inf])
+        self.held_y = np.array([0.0])
+        poles = np.roots(self.a) if len(self.a) > 1 else np.empty(0)
+        decaying = [-1 / (self.fs * np.log(abs(z))) for z in poles if 1e-12 < abs(z) < 1 - 1e-9]
+        self.settle_s = SETTLE_TIME_CONSTANTS * max(decaying) if decaying else 0.0
+
+    def run(self, t: np.ndarray, u: np.ndarray) -> np.ndarray:
+        from scipy.signal import lfilter
+
+        if self.t0 is None:
+            self.t0 = float(t[0])
+        period = 1.0 / self.fs
+        eps = 1e-9 * period
+        last = t[-1] if self.prev is None else max(t[-1], self.prev[0])
+        n_last = int(np.floor((last - self.t0) / period + 1e-9))
+        inst = self.t0 + np.arange(self.n_next, n_last + 1) * period
+        aligned = inst.size == t.size and inst.size > 0 and np.max(np.abs(inst - t)) <= eps
+        if aligned:
+            ui = u  # the log holds the firmware's own samples
+        elif inst.size:
+            tt, uu = (t, u) if self.prev is None else (np.r_[self.prev[0], t], np.r_[self.prev[1], u])
+            ui = np.interp(inst, tt, uu)
+        if inst.size:
+            y, self.zi = lfilter(self.b, self.a, ui, zi=self.zi) if self.zi.size else (self.b[0] * ui, self.zi)
+        else:
+            y = np.empty(0)
+        self.n_next = n_last + 1
+        if aligned and self.delay == 0:
+            out = y  # the firmware samples at the logged rows and answers at once
+            times, values = inst[-self.keep:], y[-self.keep:]
+        else:
+            # output at a logged time: the newest firmware output whose instant + delay <= t
+            times = np.r_[self.held_t, inst + self.delay]
+            values = np.r_[self.held_y, y]
+            idx = np.searchsorted(times, t + eps, side="right") - 1
+            out = values[np.clip(idx, 0, None)]
+        self.held_t, self.held_y = times[-self.keep:], values[-self.keep:]
+        self.prev = (t[-1], u[-1])
+        return out
+
+
+def controller_replayer(controller, delay_s: float = 0.0):
+    """The replay engine of a :class:`convert.controller.Controller` (digital: as stored, with
+    ``delay_s`` computation delay)."""
+    if controller.is_digital:
+        return DigitalReplay(controller.b, controller.a, controller.fs_hz, delay_s)
+    return AnalogReplay(controller)
+
+
+def replayer(given):
+    """The replay engine of a :class:`convert.given.GivenForm` as it runs."""
+    from convert.compare.givenwork import quantized
+    from convert.given import given_controller
+
+    ctrl = given_controller(given).controller
+    if ctrl.is_digital:
+        q = quantized(given, ctrl) if given.form in ("digital", "pid") else ctrl
+        delay = given.delay_for() if given.form in ("digital", "pid") else 0.0
+        return DigitalReplay(q.b, q.a, ctrl.fs_hz, delay)
+    return AnalogReplay(ctrl)
+
+
+# ----------------------------------------------------------------------------- accumulators
+class _Stats:
+    """Running figures of the residual: offset (mean), RMS and peak about it, combined chunk by
+    chunk with the pairwise mean/variance update (no cancellation when the offset is large)."""
+
+    def __init__(self):
+        self.n = 0
+        self.mean = 0.0
+        self.m2 = 0.0
+        self.lo = np.inf
+        self.hi = -np.inf
+        self.raw_peak = 0.0
+        self.raw_ss = 0.0
+
+    def add(self, r: np.ndarray) -> None:
+        if not r.size:
+            return
+        n_b = r.size
+        mean_b = float(r.mean())
+        m2_b = float(np.sum((r - mean_b) ** 2))
+        n = self.n + n_b
+        delta = mean_b - self.mean
+        self.mean += delta * n_b / n
+        self.m2 += m2_b + delta * delta * self.n * n_b / n
+        self.n = n
+        self.lo = min(self.lo, float(r.min()))
+        self.hi = max(self.hi, float(r.max()))
+        self.raw_peak = max(self.raw_peak, float(np.abs(r).max()))
+        self.raw_ss += float(np.dot(r, r))
+
+    def figures(self) -> dict:
+        if self.n == 0:
+            return {"n": 0, "offset": None, "rms": None, "peak": None, "rms_raw": None, "peak_raw": None}
+        return {"n": self.n, "offset": self.mean, "rms": float(np.sqrt(self.m2 / self.n)),
+                "peak": max(self.hi - self.mean, self.mean - self.lo), "rms_raw": float(np.sqrt(self.raw_ss / self.n)),
+                "peak_raw": self.raw_peak}
+
+
+class _Sketch:
+    """At most about SKETCH_POINTS rows kept for figures: every stride-th row, the stride
+    doubling whenever the buffer fills (bounded memory for any log length)."""
+
+    def __init__(self, width: int):
+        self.stride = 1
+        self.rows: list[np.ndarray] = []
+        self.count = 0
+        self.width = width
+        self.next = 0
+
+    def add(self, block: np.ndarray) -> None:
+        n = block.shape[0]
+        idx = np.arange(self.next, n, self.stride)
+        if idx.size:
+            self.rows.append(block[idx])
+            self.count += idx.size
+            self.next = idx[-1] + self.stride - n
+        else:
+            self.next -= n
+        if self.count > 2 * SKETCH_POINTS:
+            data = np.concatenate(self.rows)[::2]
+            self.rows, self.count = [data], data.shape[0]
+            self.stride *= 2
+            self.next = self.next  # keeps phase approximately; a figure only
+
+    def array(self) -> np.ndarray:
+        return np.concatenate(self.rows) if self.rows else np.empty((0, self.width))
+
+
+class _Normal:
+    """Streaming normal equations for y ≈ X·θ."""
+
+    def __init__(self, p: int):
+        self.xtx = np.zeros((p, p))
+        self.xty = np.zeros(p)
+        self.yty = 0.0
+        self.n = 0
+
+    def add(self, X: np.ndarray, y: np.ndarray) -> None:
+        self.xtx += X.T @ X
+        self.xty += X.T @ y
+        self.yty += float(y @ y)
+        self.n += y.size
+
+
+@dataclass(frozen=True)
+class FormReplay:
+    name: str
+    figures: dict  # n, offset, rms, peak, rms_raw, peak_raw (output units); rms_rel, peak_rel (of range)
+
+
+@dataclass(frozen=True)
+class PidLogFit:
+    """PID parameters fitted from a log by linear least squares: u ≈ kp·e + ki·I(e) + kd·D(e) + c,
+    the terms built as the form computes them (tf fixed at the form's value)."""
+
+    names: tuple[str, ...]
+    values: dict
+    ci95: dict  # name -> half-width (same unit)
+    offset: float
+    residual_rms: float
+    rows: int
+    form: str
+    tf_s: float
+    notes: tuple[str, ...] = ()
+
+    def as_dict(self) -> dict:
+        return {"names": list(self.names), "values": self.values, "ci95": self.ci95, "offset": self.offset,
+                "residual_rms": self.residual_rms, "rows": self.rows, "form": self.form, "tf_s": self.tf_s,
+                "notes": list(self.notes)}
+
+
+@dataclass
+class LogEvidence:
+    path: Path
+    rows: int
+    t_span_s: tuple[float, float]
+    step_s: float  # median time step of the first chunk
+    uneven: bool
+    gaps: list  # (t_start, t_end)
+    gap_count: int
+    saturated_rows: int
+    saturated_spans: list  # (t_start, t_end), at most 20 listed
+    missing_rows: int
+    settle_rows: int
+    input_kind: str
+    output_range: tuple[float, float]
+    replays: list
+    fit: PidLogFit | None
+    sketch: dict
+    notes: list = field(default_factory=list)
+    columns: dict = field(default_factory=dict)
+
+    def as_dict(self) -> dict:
+        return {"file": str(self.path), "rows": self.rows, "t_span_s": list(self.t_span_s), "step_s": self.step_s,
+                "uneven": self.uneven, "gaps": [list(g) for g in self.gaps], "gap_count": self.gap_count,
+                "saturated_rows": self.saturated_rows, "saturated_spans": [list(s) for s in self.saturated_spans],
+                "missing_rows": self.missing_rows, "settle_rows": self.settle_rows, "input": self.input_kind,
+                "output_range": list(self.output_range), "columns": self.columns,
+                "replays": [{"name": r.name, **r.figures} for r in self.replays],
+                "fit": self.fit.as_dict() if self.fit else None, "notes": list(self.notes)}
+
+
+# ----------------------------------------------------------------------------- PID regressors
+class _PidTerms:
+    """The regressors e, I(e), D(e) of a PID form as it computes them (analog exact FOH, or the
+    block's own sampled terms), run through the log in chunks."""
+
+    def __init__(self, given):
+        from convert.controller import Controller
+
+        d = given.data
+        pid = d["pid"]
+        self.sign = pid.sign
+        self.names = ["kp"] + (["ki"] if pid.ki > 0 else []) + (["kd"] if pid.kd > 0 else [])
+        self.tf = pid.tf
+        self.block = given.form == "pid"
+        if self.block:
+            from convert.given import pid_block_b_a
+
+            fs, method = d["fs_hz"], d["method"]
+            self.fs = fs
+            self.terms = []
+            if pid.ki > 0:
+                from dataclasses import replace
+
+                b, a = pid_block_b_a(replace(pid, kp=0.0, ki=1.0, kd=0.0, tf=0.0, action="reverse"), fs, method)
+                self.terms.append(DigitalReplay(b, a, fs, given.delay_for()))
+            if pid.kd > 0:
+                from dataclasses import replace
+
+                b, a = pid_block_b_a(replace(pid, kp=0.0, ki=0.0, kd=1.0, action="reverse"), fs, method)
+                self.terms.append(DigitalReplay(b, a, fs, given.delay_for()))
+            self.p_term = DigitalReplay([1.0], [1.0], fs, given.delay_for())
+        else:
+            self.terms = []
+            if pid.ki > 0:
+                self.terms.append(AnalogReplay(Controller.analog([1.0], [1.0, 0.0])))
+            if pid.kd > 0:
+                if pid.tf <= 0:
+                    raise UnrealizableError("fitting an unfiltered derivative from a log needs the form's derivative "
+                                            "filter (n or tf)", key="fit")
+                self.terms.append(AnalogReplay(Controller.analog([1.0, 0.0], [pid.tf, 1.0])))
+            self.p_term = None
+
+    def run(self, t, e) -> np.ndarray:
+        cols = [self.p_term.run(t, e) if self.p_term is not None else e]
+        cols += [term.run(t, e) for term in self.terms]
+        return np.column_stack(cols + [np.ones_like(e)])
+
+
+# ----------------------------------------------------------------------------- the pass
+def log_evidence(path: str | Path, forms: list, *, columns: dict | None = None, units: dict | None = None,
+                 decimal: str = ".", output_limits: tuple[float, float] | None = None, fit=None,
+                 chunk_rows: int = CHUNK_ROWS, option: str = "--log-columns") -> LogEvidence:
+    """Replay the log at ``path`` through each ``(name, GivenForm or replay engine)`` of ``forms``;
+    ``fit``: a GivenForm with PID settings whose parameters to fit from the log (or None).
+    ``output_limits`` (low, high): the output's limits, to find saturated rows."""
+    path = Path(path)
+    lay = layout(path, LOG_ROLES, columns=columns, units=units, decimal=decimal, option=option)
+    have = set(lay.columns)
+    if "error" in have:
+        kind = "error"
+    elif {"setpoint", "measurement"} <= have:
+        kind = "setpoint − measurement"
+    else:
+        raise InputError("the log needs the controller's input: an 'error' column, or 'setpoint' and 'measurement' "
+                         f"columns (map other names with {option})", where=f"{path.name}:1")
+    notes = []
+    if "error" in have and ({"setpoint", "measurement"} & have):
+        notes.append("the log has an error column and setpoint/measurement; the error column is used")
+    engines = [(name, g if hasattr(g, "run") else replayer(g)) for name, g in forms]
+    stats = [_Stats() for _ in engines]
+    terms = _PidTerms(fit) if fit is not None else None
+    normal = _Normal(len(terms.names) + 1) if terms is not None else None
+    settle = max([getattr(e, "settle_s", 0.0) for _, e in engines] + [0.0])
+    if terms is not None:
+        settle = max([settle] + [getattr(x, "settle_s", 0.0) for x in terms.terms])
+    sketch = _Sketch(2 + len(engines))
+    rows = missing = settle_rows = saturated = gap_count = 0
+    gaps, spans = [], []
+    t_first = t_last = None
+    step = None
+    uneven = False
+    lo_out, hi_out = np.inf, -np.inf
+    run_val = None
+    span_open = None
+    prev_line = None
+    for lines, data in chunks(lay, chunk_rows=chunk_rows, allow_missing=("setpoint", "measurement", "error", "output")):
+        t = data["time"]
+        e = data["error"] if kind == "error" else data["setpoint"] - data["measurement"]
+        out = data["output"]
+        tcol = lay.first("time")
+        if t_last is not None and t[0] <= t_last:
+            raise InputError(f"column {tcol.header!r}: time must rise row by row; {t[0] / tcol.factor:g} follows "
+                             f"{t_last / tcol.factor:g}", where=f"{path.name}:{lines[0]}")
+        bad = np.flatnonzero(np.diff(t) <= 0)
+        if bad.size:
+            i = bad[0] + 1
+            raise InputError(f"column {tcol.header!r}: time must rise row by row; {t[i] / tcol.factor:g} follows "
+                             f"{t[i - 1] / tcol.factor:g}", where=f"{path.name}:{lines[i]}")
+        ok = np.isfinite(e) & np.isfinite(out)
+        missing += int((~ok).sum())
+        t, e, out, lines = t[ok], e[ok], out[ok], lines[ok]
+        if t.size == 0:
+            continue
+        rows += t.size
+        if t_first is None:
+            t_first = float(t[0])
+            dts = np.diff(t)
+            step = float(np.median(dts)) if dts.size else 0.0
+        h = np.diff(np.r_[t_last, t]) if t_last is not None else np.diff(t)
+        if step and h.size:
+            uneven |= bool(np.ptp(h) > 1e-6 * step)
+            gi = np.flatnonzero(h > GAP_FACTOR * step)
+            gap_count += gi.size
+            ts = np.r_[t_last, t] if t_last is not None else t
+            for i in gi[: max(0, 20 - len(gaps))]:
+                gaps.append((float(ts[i]), float(ts[i + 1])))
+        t_last = float(t[-1])
+        lo_out, hi_out = min(lo_out, float(out.min())), max(hi_out, float(out.max()))
+        # saturation: at the given limits, else a flat run (three rows or more) judged after the pass
+        if output_limits is not None:
+            tol = 1e-6 * max(1.0, abs(output_limits[1] - output_limits[0]))
+            sat = (out <= output_limits[0] + tol) | (out >= output_limits[1] - tol)
+        else:
+            sat = _held_while_input_moves(out, e, run_val)
+            run_val = (out[-1], e[-1])
+        saturated += int(sat.sum())
+        span_open = _spans(t, sat, spans, span_open)
+        use = ~sat & (t >= t_first + settle)
+        settle_rows += int(((t < t_first + settle) & ~sat).sum())
+        replayed = []
+        for (name, eng), st in zip(engines, stats):
+            y = eng.run(t, e)
+            st.add((out - y)[use])
+            replayed.append(y)
+        if terms is not None:
+            X = terms.run(t, e)
+            normal.add(X[use] * np.r_[[terms.sign] * (X.shape[1] - 1), 1.0], out[use])
+        sketch.add(np.column_stack([t, out] + replayed))
+        prev_line = lines[-1]
+    if rows == 0:
+        raise InputError("no data rows with all values after the header", where=f"{path.name}:2")
+    if span_open is not None:
+        spans.append((span_open, t_last))
+    if output_limits is None and saturated:
+        notes.append("saturation found where the output held still while the input moved, for two steps or more "
+                     "(give the output limits to find it exactly)")
+    span_range = (lo_out, hi_out)
+    rng = hi_out - lo_out
+    replays = []
+    for (name, _), st in zip(engines, stats):
+        fig = st.figures()
+        fig["rms_rel"] = fig["rms"] / rng if fig["rms"] is not None and rng > 0 else None
+        fig["peak_rel"] = fig["peak"] / rng if fig["peak"] is not None and rng > 0 else None
+        fig["offset_rel"] = fig["offset"] / rng if fig["offset"] is not None and rng > 0 else None
+        replays.append(FormReplay(name, fig))
+    fit_result = _solve_fit(normal, terms, fit) if terms is not None else None
+    sk = sketch.array()
+    sketch_data = {"t": sk[:, 0], "output": sk[:, 1], "replayed": {name: sk[:, 2 + i] for i, (name, _) in
+                                                                   enumerate(engines)}}
+    if settle:
+        notes.append(f"the first {settle:.4g} s (five time constants of the slowest decaying mode) are left out of "
+                     "the figures: the running controller's state at the first row is unknown")
+    del prev_line
+    return LogEvidence(path, rows, (t_first, t_last), step or 0.0, uneven, gaps, gap_count, saturated,
+                       spans[:20], missing, settle_rows, kind, span_range, replays, fit_result, sketch_data, notes,
+                       {k: [c.header for c in v] for k, v in lay.columns.items()})
+
+
+def _held_while_input_moves(out: np.ndarray, e: np.ndarray, prev) -> np.ndarray:
+    """Rows where the output holds still while the input moves, for two steps or more in a row
+    (a clamped output); ``prev`` is the (output, input) of the row before this chunk."""
+    o = out if prev is None else np.r_[prev[0], out]
+    x = e if prev is None else np.r_[prev[1], e]
+    step = (o[1:] == o[:-1]) & (x[1:] != x[:-1])
+    row = np.r_[False, step] if prev is None else step
+    before = np.r_[False, row[:-1]]
+    after = np.r_[row[1:], False]
+    return row & (before | after)
+
+
+def _spans(t, sat, spans, open_at):
+    if not sat.any() and open_at is None:
+        return None
+    edges = np.diff(np.r_[0, sat.astype(np.int8), 0])
+    starts, ends = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1) - 1
+    for s, e in zip(starts, ends):
+        if s == 0 and open_at is not None:
+            start = open_at
+            open_at = None
+        else:
+            if open_at is not None:
+                spans.append((open_at, float(t[0])))
+                open_at = None
+            start = float(t[s])
+        if e == t.size - 1:
+            open_at = start
+        elif len(spans) < 1000:
+            spans.append((start, float(t[e])))
+    if not sat[0] and open_at is not None and not starts.size:
+        spans.append((open_at, float(t[0])))
+        open_at = None
+    return open_at
+
+
+def _solve_fit(normal: _Normal, terms: _PidTerms, given) -> PidLogFit:
+    p = normal.xtx.shape[0]
+    if normal.n <= p:
+        raise InputError(f"too few usable rows to fit {p} values ({normal.n})", key="fit")
+    try:
+        theta = np.linalg.solve(normal.xtx, normal.xty)
+        inv = np.linalg.inv(normal.xtx)
+    except np.linalg.LinAlgError:
+        raise InputError("the log does not excite the controller enough to tell its terms apart (the input is "
+                         "constant or too smooth)", key="fit") from None
+    rss = max(normal.yty - 2 * theta @ normal.xty + theta @ normal.xtx @ theta, 0.0)
+    sigma2 = rss / (normal.n - p)
+    half = 1.959963984540054 * np.sqrt(np.maximum(np.diag(inv) * sigma2, 0.0))
+    values = {n: float(theta[i]) for i, n in enumerate(terms.names)}
+    ci = {n: float(half[i]) for i, n in enumerate(terms.names)}
+    notes = ["intervals assume independent residuals; a slowly wandering residual (unmeasured disturbance, "
+             "a plant that drifts) makes them too narrow"]
+    cond = np.linalg.cond(normal.xtx)
+    if cond > 1e12:
+        notes.append(f"the terms are nearly indistinguishable in this log (condition number {cond:.2g}); the values "
+                     "are poorly determined")
+    return PidLogFit(tuple(terms.names), values, ci, float(theta[-1]), float(np.sqrt(rss / normal.n)), normal.n,
+                     "PID block" if terms.block else "PID law", terms.tf, tuple(notes))
