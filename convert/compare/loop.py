@@ -29,7 +29,6 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from operator import mul
 from typing import Sequence
 
 import numpy as np
@@ -38,7 +37,7 @@ from convert.compare.frequency import response_seen_from_loop
 from convert.controller import Controller
 from convert.errors import InputError
 
-MAX_SIM_STEPS = 400_000
+MAX_SIM_STEPS = 4_000_000
 
 
 # ----------------------------------------------------------------------------- frequency domain
@@ -253,38 +252,31 @@ class LoopResponse:
     sub_step_s: float
 
 
-def _state_space(controller: Controller):
-    """A state-space realization (A, B, C, D) of a proper controller (controllable canonical
-    form; works the same for polynomials in s or in z)."""
-    if not controller.is_proper:
+# ----------------------------------------------------------------------------- time domain
+@dataclass(frozen=True)
+class LoopResponse:
+    """A simulated loop: times ``t`` (s), measurement ``y``, controller output ``u`` (after the
+    output limits), and what was simulated (``kind`` "setpoint" or "disturbance"); ``sub_step_s``
+    the spacing of ``t``."""
+
+    t: np.ndarray
+    y: np.ndarray
+    u: np.ndarray
+    kind: str
+    sub_step_s: float
+
+
+def _realize(c: Controller, key: str = "controller"):
+    """(A, B, C, D) of a proper transfer function (in s or in z): the balanced cascade of
+    :func:`convert.digital.statespace.realize` (poles and zeros kept as first- and second-order
+    sections, not a companion matrix, so sampled matrices keep the roots to rounding)."""
+    if not c.is_proper:
         raise InputError("an improper controller (more zeros than poles) cannot run in a loop simulation; "
-                         "add a derivative filter", key="controller")
-    den = np.asarray(controller.den, dtype=float)
-    n = den.size - 1
-    num = np.concatenate([np.zeros(n + 1 - len(controller.num)), np.asarray(controller.num, dtype=float)])
-    d = num[0]
-    rest = num[1:] - d * den[1:]
-    a = np.zeros((n, n))
-    if n:
-        a[0, :] = -den[1:]
-        a[1:, :-1] = np.eye(n - 1)
-    b = np.zeros((n, 1))
-    if n:
-        b[0, 0] = 1.0
-    return a, b, rest.reshape(1, n), np.array([[d]])
+                         "add a derivative filter", key=key)
+    from convert.digital.statespace import realize
 
-
-def _bilinear(a, b, c, d, h: float):
-    """The bilinear (Tustin) map of a continuous state-space model at step ``h``."""
-    n = a.shape[0]
-    if n == 0:
-        return a, b, c, d
-    m = np.linalg.inv(np.eye(n) - a * h / 2)
-    ad = m @ (np.eye(n) + a * h / 2)
-    bd = m @ b * h
-    cd = c @ m
-    dd = d + c @ bd / 2
-    return ad, bd, cd, dd
+    a, b, cc, d = realize(c.num, c.den)
+    return a, b.reshape(-1, 1), cc.reshape(1, -1), float(d)
 
 
 def _phi_gamma(a: np.ndarray, b: np.ndarray, t: float) -> tuple[np.ndarray, np.ndarray]:
@@ -297,6 +289,20 @@ def _phi_gamma(a: np.ndarray, b: np.ndarray, t: float) -> tuple[np.ndarray, np.n
     m[:n, n:] = b * t
     e = expm(m)
     return e[:n, :n], e[:n, n:]
+
+
+def _foh(a: np.ndarray, b: np.ndarray, h: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Exact discretization for an input linear over each step (first-order hold):
+    x(h) = Φ·x(0) + Γs·w(0⁺) + Γe·w(h⁻). Returns (Φ, Γs, Γe) with Γs, Γe of shape (n,)."""
+    from scipy.linalg import expm
+
+    n = a.shape[0]
+    m = np.zeros((n + 2, n + 2))
+    m[:n, :n] = a * h
+    m[:n, n:n + 1] = b * h
+    m[n, n + 1] = 1.0
+    e = expm(m)
+    return e[:n, :n], e[:n, n] - e[:n, n + 1], e[:n, n + 1]
 
 
 def _delay_taps(a: np.ndarray, b: np.ndarray, h: float, delay: float) -> tuple[int, np.ndarray, np.ndarray]:
@@ -313,17 +319,367 @@ def _delay_taps(a: np.ndarray, b: np.ndarray, h: float, delay: float) -> tuple[i
     return n, gamma_rest[:, 0], (phi_rest @ gamma_tau)[:, 0]
 
 
+class _Orbit:
+    """Powers of one square matrix A, arranged so that ``orbit(z, count)`` = [A^j·z, j < count]
+    costs count·dim² multiply-adds in a few BLAS calls and no Python loop over steps: level L
+    holds (A^{64^L})^j for j < 64, and an orbit is the outer product of the levels' blocks.
+    The powers are formed by repeated products, so rounding grows with the level count (a few),
+    not with the number of steps."""
+
+    K = 64
+
+    def __init__(self, a: np.ndarray):
+        self.levels: list[np.ndarray] = []
+        self._next = a
+
+    def _level(self, i: int) -> np.ndarray:
+        while len(self.levels) <= i:
+            b = self._next
+            p = np.empty((self.K + 1,) + b.shape)
+            p[0] = np.eye(b.shape[0])
+            for j in range(1, self.K + 1):
+                p[j] = p[j - 1] @ b
+            self.levels.append(p[:self.K])
+            self._next = p[self.K]
+        return self.levels[i]
+
+    def orbit(self, z: np.ndarray, count: int, level: int = 0) -> np.ndarray:
+        p = self._level(level)
+        if count <= self.K:
+            return p[:count] @ z
+        c = -(-count // self.K)
+        starts = self.orbit(z, c, level + 1)  # (c, dim)
+        dim = z.size
+        out = (p.reshape(self.K * dim, dim) @ starts.T).reshape(self.K, dim, c)
+        return out.transpose(2, 0, 1).reshape(c * self.K, dim)[:count]
+
+
+class _LoopSystem:
+    """A loop written as z_{k+1} = A(key, mode)·z_k, with y_k, u_k and the controller's
+    unclamped output v_k read as rows of z_k. ``key`` names the stretch of steps (set by known
+    events: the disturbance arriving after the dead time, the first step after the setpoint
+    step) and ``mode`` the output clamp ("lin", "lo", "hi"); the last state is the constant 1."""
+
+    dim: int
+    boundaries: tuple[int, ...]
+
+    def key(self, k: int):  # pragma: no cover - abstract
+        raise NotImplementedError
+
+    def build(self, key, mode) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """(A, y_row, u_row, v_row) for one stretch and clamp mode."""
+        raise NotImplementedError  # pragma: no cover
+
+
+def _run(system: _LoopSystem, steps: int, limits: tuple[float, float], extra=None):
+    """Outputs y_k, u_k for k = 0..steps, by segments: inside a segment the loop is linear and
+    time-invariant (one stretch, one clamp mode) and is advanced by :class:`_Orbit` in one go.
+    A segment ends at the next known event or at the first step whose unclamped controller output
+    calls for another clamp mode (found on the segment's own outputs, then the segment is cut
+    there and the rest computed again from that step): the clamp is exact at the sample instants.
+    ``extra(key, Z)`` may return more per-step columns (e.g. states for intersample outputs)."""
+    lo, hi = limits
+    cache: dict = {}
+
+    def get(key, mode):
+        if (key, mode) not in cache:
+            a, y_row, u_row, v_row = system.build(key, mode)
+            cache[(key, mode)] = (_Orbit(a), y_row, u_row, v_row)
+        return cache[(key, mode)]
+
+    def classify(v):
+        return np.where(v < lo, 1, np.where(v > hi, 2, 0))
+
+    modes = ("lin", "lo", "hi")
+    z = np.zeros(system.dim)
+    z[-1] = 1.0
+    y = np.empty(steps + 1)
+    u = np.empty(steps + 1)
+    extras: list = []
+    k = 0
+    window = 256
+    bounds = sorted(b for b in system.boundaries if b > 0)
+    while k <= steps:
+        key = system.key(k)
+        kb = next((b for b in bounds if b > k), steps + 1)
+        _, _, _, v_row = get(key, "lin")
+        mode = modes[int(classify(np.array([v_row @ z]))[0])]
+        orbit, y_row, u_row, v_row = get(key, mode)
+        count = min(window, kb - k, steps + 1 - k)
+        zs = orbit.orbit(z, count + 1)
+        v = zs[:count] @ v_row
+        changed = np.nonzero(classify(v) != modes.index(mode))[0]
+        if changed.size:
+            count = int(changed[0])
+            window = max(64, 2 * count)
+        else:
+            window = min(2 * window, 1 << 16)
+        y[k:k + count] = zs[:count] @ y_row
+        u[k:k + count] = zs[:count] @ u_row
+        if extra is not None:
+            extras.append(extra(key, mode, zs[:count], u[k:k + count]))
+        z = zs[count]
+        k += count
+    return y, u, extras
+
+
+class _SampledLoop(_LoopSystem):
+    """A digital controller at period T through a zero-order hold, its output reaching the plant
+    after ``delay_u`` (dead time + computation delay) and the load after ``delay_d`` (dead time),
+    both split as whole periods and a fraction (modified z-transform, exact). State:
+    [plant x; controller xc; u_{k−1} … u_{k−n−1}; 1]. The measurement is sampled before the
+    output changes (the plant input's left limit enters its direct term)."""
+
+    def __init__(self, controller: Controller, plant: Controller, delay_u: float, delay_d: float,
+                 r: float, dist: float):
+        t = controller.sample_period_s
+        self.t = t
+        self.ap, self.bp, self.cp, self.dp = _realize(plant, "plant.model")
+        self.ac, self.bc, self.cc, self.dc = _realize(controller)
+        self.phi, _ = _phi_gamma(self.ap, self.bp, t)
+        self.n, self.g0, self.g1 = _delay_taps(self.ap, self.bp, t, delay_u)
+        self.nd, self.g0d, self.g1d = _delay_taps(self.ap, self.bp, t, delay_d)
+        self.delay_u, self.delay_d = delay_u, delay_d
+        self.r, self.dist = r, dist
+        self.np_, self.nc = self.ap.shape[0], self.ac.shape[0]
+        self.iu = self.np_ + self.nc
+        self.dim = self.iu + self.n + 2
+        self.boundaries = (self.nd, self.nd + 1) if dist else ()
+
+    def key(self, k: int):
+        if not self.dist:
+            return 2
+        return 0 if k < self.nd else (1 if k == self.nd else 2)
+
+    def build(self, key, mode):
+        np_, nc, iu, dim, n = self.np_, self.nc, self.iu, self.dim, self.n
+        one = dim - 1
+        unit = np.eye(dim)
+        y_row = np.zeros(dim)
+        y_row[:np_] = self.cp[0]
+        y_row[iu + n] += self.dp
+        if key == 2:
+            y_row[one] += self.dp * self.dist
+        e_row = self.r * unit[one] - y_row
+        v_row = np.zeros(dim)
+        v_row[np_:iu] = self.cc[0]
+        v_row += self.dc * e_row
+        u_row = v_row if mode == "lin" else (self.lo if mode == "lo" else self.hi) * unit[one]
+        a = np.zeros((dim, dim))
+        u_kn = u_row if n == 0 else unit[iu + n - 1]
+        a[:np_, :np_] = self.phi
+        a[:np_] += np.outer(self.g0, u_kn) + np.outer(self.g1, unit[iu + n])
+        if key >= 1:
+            a[:np_, one] += self.dist * (self.g0d if key == 1 else self.g0d + self.g1d)
+        a[np_:iu, np_:iu] = self.ac
+        a[np_:iu] += np.outer(self.bc[:, 0], e_row)
+        a[iu] = u_row
+        a[iu + 1:iu + n + 1, iu:iu + n] = np.eye(n)
+        a[one, one] = 1.0
+        return a, y_row, u_row, v_row
+
+    def intersample(self, every: int):
+        """Per sub-step i (1..every−1) at s = i·T/every: the row on x_k and the coefficients of
+        (u_{k−n−1}, u_{k−n}) and of the load's (older, newer) held values in y(kT + s⁻).
+
+        The input switches from the older to the newer held value at kT + τ; with
+        E(s) = [[Φ(s), Γ(s)], [0, 1]] = E(h)^i, the part after the switch is Γ(s − τ) (read from
+        E(s)·E(−τ)) and the part before it Γ(s) − Γ(s − τ)."""
+        from scipy.linalg import expm
+
+        np_ = self.np_
+        m = np.zeros((np_ + 1, np_ + 1))
+        m[:np_, :np_] = self.ap
+        m[:np_, np_:] = self.bp
+        step = expm(m * (self.t / every))
+        tau = self.delay_u - self.n * self.t
+        tau_d = self.delay_d - self.nd * self.t
+        back = {x: (expm(-m * x) if x > 0 else None) for x in {tau, tau_d}}
+        cp, dp = self.cp[0], self.dp
+        out = []
+        e = np.eye(np_ + 1)
+        for i in range(1, every):
+            e = e @ step
+            s = i * self.t / every
+            row = cp @ e[:np_, :np_]
+
+            def split(x, e=e, s=s):
+                g_s = cp @ e[:np_, np_]
+                if s <= x + 1e-12 * self.t:
+                    return float(g_s + dp), 0.0
+                g_after = cp @ (e @ back[x])[:np_, np_] if back[x] is not None else g_s
+                return float(g_s - g_after), float(g_after + dp)
+
+            out.append((row, split(tau), split(tau_d)))
+        return out
+
+
+def sampled_loop_matrix(controller: Controller, plant: Controller, delay_s: float) -> np.ndarray:
+    """The closed-loop state matrix (one period T) of a digital ``controller`` with an analog
+    ``plant`` whose input is delayed ``delay_s`` (dead time + computation delay), zero-order hold:
+    its eigenvalues are the sampled-data loop's poles (states: plant, controller, held outputs)."""
+    sys = _SampledLoop(controller, plant, delay_s, delay_s, 0.0, 0.0)
+    sys.lo, sys.hi = -math.inf, math.inf
+    a, _, _, _ = sys.build(2, "lin")
+    return a[:-1, :-1]
+
+
+class _AnalogLoop(_LoopSystem):
+    """An analog controller and plant at step h. Without dead time the closed loop is one
+    linear system, discretized exactly (matrix exponential): exact at every step. With dead time
+    θ = m·h the plant's input is the controller output m steps back; between samples it is taken
+    as linear (first-order hold: the plant and controller are discretized exactly for inputs
+    linear over a step), an error of order (ω·h)²/8 of the signal's curvature, with h tied to the
+    loop's dynamics. State: [plant x; controller xc; u_{k−1} … u_{k−m}; 1]."""
+
+    def __init__(self, controller: Controller, plant: Controller, theta: float, h: float, r: float, dist: float):
+        self.ap, self.bp, self.cp, self.dp = _realize(plant, "plant.model")
+        self.ac, self.bc, self.cc, self.dc = _realize(controller)
+        self.r, self.dist, self.h = r, dist, h
+        self.np_, self.nc = self.ap.shape[0], self.ac.shape[0]
+        self.iu = self.np_ + self.nc
+        self.m = int(round(theta / h)) if theta > 0 else 0
+        self.dim = self.iu + self.m + 1
+        if self.m:
+            self.pf = _foh(self.ap, self.bp, h)
+            self.cf = _foh(self.ac, self.bc, h)
+            self.boundaries = (self.m - 1, self.m, self.m + 1)
+        else:
+            self.boundaries = ()
+
+    def key(self, k: int):
+        if not self.m:
+            return 0
+        m = self.m
+        return (k == m - 1, k == m, k >= m, k >= m + 1)
+
+    def build(self, key, mode):
+        if not self.m:
+            return self._build_direct(mode)
+        first, at_m, d_on, d_left = key
+        np_, iu, dim, m = self.np_, self.iu, self.dim, self.m
+        one = dim - 1
+        unit = np.eye(dim)
+        cp, dp = self.cp[0], self.dp
+        y_row = np.zeros(dim)
+        y_row[:np_] = cp
+        if not at_m:
+            y_row[iu + m - 1] += dp  # u_{k−m}, left limit (zero just after the setpoint step)
+        if d_left:
+            y_row[one] += dp * self.dist
+        e_row = self.r * unit[one] - y_row
+        v_row = np.zeros(dim)
+        v_row[np_:iu] = self.cc[0]
+        v_row += self.dc * e_row
+        u_row = v_row if mode == "lin" else (self.lo if mode == "lo" else self.hi) * unit[one]
+        # u_{k−m+1} at its left limit (u_0⁻ = 0: the controller output was zero before t = 0)
+        newer = np.zeros(dim) if first else (u_row if m == 1 else unit[iu + m - 2])
+        phi, gs, ge = self.pf
+        x_next = np.zeros((np_, dim))
+        x_next[:, :np_] = phi
+        x_next += np.outer(gs, unit[iu + m - 1]) + np.outer(ge, newer)
+        if d_on:
+            x_next[:, one] += (gs + ge) * self.dist
+        y_next = cp @ x_next + dp * newer
+        if d_on:  # the load reached the plant input at θ: y_{k+1}'s direct term sees it
+            y_next = y_next + dp * self.dist * unit[one]
+        e_next = self.r * unit[one] - y_next
+        phic, cs, ce = self.cf
+        a = np.zeros((dim, dim))
+        a[:np_] = x_next
+        a[np_:iu, np_:iu] = phic
+        a[np_:iu] += np.outer(cs, e_row) + np.outer(ce, e_next)
+        a[iu] = u_row
+        a[iu + 1:iu + m, iu:iu + m - 1] = np.eye(m - 1)
+        a[one, one] = 1.0
+        return a, y_row, u_row, v_row
+
+    def _build_direct(self, mode):
+        """No dead time: the continuous closed loop (or, clamped, the plant on a constant input and
+        the controller on the measurement), discretized exactly over h."""
+        from scipy.linalg import expm
+
+        np_, iu, dim = self.np_, self.iu, self.dim
+        one = dim - 1
+        unit = np.eye(dim)
+        cp, dp, cc, dc = self.cp[0], self.dp, self.cc[0], self.dc
+        if mode == "lin":
+            # y = Cp x + Dp (Cc xc + Dc (r − y) + d)
+            g = 1.0 + dp * dc
+            if g == 0:
+                raise InputError("the loop has no solution at t = 0: controller and plant direct gains give 1 + Dc·Dp = 0",
+                                 key="plant.model")
+            y_row = np.zeros(dim)
+            y_row[:np_] = cp
+            y_row[np_:iu] = dp * cc
+            y_row[one] = dp * (dc * self.r + self.dist)
+            y_row /= g
+            v_row = np.zeros(dim)
+            v_row[np_:iu] = cc
+            v_row += dc * (self.r * unit[one] - y_row)
+            u_row = v_row
+        else:
+            lim = self.lo if mode == "lo" else self.hi
+            u_row = lim * unit[one]
+            y_row = np.zeros(dim)
+            y_row[:np_] = cp
+            y_row[one] = dp * (lim + self.dist)
+            v_row = np.zeros(dim)
+            v_row[np_:iu] = cc
+            v_row += dc * (self.r * unit[one] - y_row)
+        e_row = self.r * unit[one] - y_row
+        ac = np.zeros((dim, dim))
+        ac[:np_, :np_] = self.ap
+        ac[:np_] += np.outer(self.bp[:, 0], u_row + self.dist * unit[one])
+        ac[np_:iu, np_:iu] = self.ac
+        ac[np_:iu] += np.outer(self.bc[:, 0], e_row)
+        return expm(ac * self.h), y_row, u_row, v_row
+
+
+#: The analog loop's step is this fraction of 1/ω, ω the fastest of the crossover and the
+#: closed-loop dynamics that matter (see :func:`natural_step`).
+STEP_FRACTION = 0.01
+#: At most this many steps of dead time (the state carries one held output per step).
+MAX_DELAY_STEPS = 128
+
+
+def natural_step(controller: Controller, plant: Controller, dead_time_s: float = 0.0) -> float:
+    """The simulation step (s) tied to the loop's dynamics, not to the simulated time:
+    STEP_FRACTION/ω with ω the largest of the crossover (rad/s) and the magnitudes of the plant's
+    poles and the controller's poles and zeros, each capped at 30 times the crossover (faster
+    modes settle within a step or two of an event and are integrated exactly in any case)."""
+    try:
+        m = loop_margins(controller, plant, dead_time_s)
+        wc = 2 * math.pi * m.crossover_hz if m.crossover_hz else None
+    except Exception:  # noqa: BLE001 - a loop without margins still gets a step
+        wc = None
+    roots = np.concatenate([plant.poles(), controller.poles(), controller.zeros()]) if not controller.is_digital \
+        else plant.poles()
+    mags = np.abs(roots[np.abs(roots) > 0])
+    if wc is None:
+        wc = float(np.median(mags)) if mags.size else 1.0
+    w = max([wc] + [min(x, 30 * wc) for x in mags])
+    return STEP_FRACTION / w
+
+
 def simulate_loop(controller: Controller, plant: Controller, dead_time_s: float = 0.0, *, duration_s: float,
                   kind: str = "setpoint", step: float = 1.0, delay_s: float = 0.0,
-                  output_limits: tuple[float, float] | None = None, steps: int = 4000) -> LoopResponse:
+                  output_limits: tuple[float, float] | None = None, steps: int | None = None,
+                  sub_step_s: float | None = None) -> LoopResponse:
     """Simulate the loop's response to a setpoint step (``kind="setpoint"``) or a load-disturbance
     step at the plant input (``kind="disturbance"``), both applied at t = 0 with size ``step``.
 
-    ``controller`` analog: runs at the sub-step h = duration/steps (Tustin at h). ``controller``
-    digital: samples y every T, updates its output through a zero-order hold, ``delay_s`` seconds
-    later (computation delay); h divides T. ``output_limits`` (low, high) clamps the controller
-    output (no anti-windup: the controller's state is not altered by the clamp). ``plant`` is an
-    analog proper transfer function; ``dead_time_s`` a pure delay at its input.
+    The step h between output points follows the loop's dynamics (:func:`natural_step`), not the
+    simulated time, unless ``sub_step_s`` (s) or ``steps`` (h = duration/steps) is given.
+
+    ``controller`` digital: samples y every T, updates its output through a zero-order hold,
+    ``delay_s`` seconds later (computation delay); the plant between samples is exact
+    (:class:`_SampledLoop`), h divides T. ``controller`` analog: :class:`_AnalogLoop` (exact without
+    dead time; first-order hold of the delayed output with one). ``output_limits`` (low, high)
+    clamps the controller output (no anti-windup: the controller's state is not altered by the
+    clamp). ``plant`` is an analog proper transfer function; ``dead_time_s`` a pure delay at its
+    input. Linear stretches are advanced as matrix powers (:class:`_Orbit`), the clamp by
+    segments (:func:`_run`).
     """
     if kind not in ("setpoint", "disturbance"):
         raise ValueError("kind must be 'setpoint' or 'disturbance'")
@@ -331,68 +687,94 @@ def simulate_loop(controller: Controller, plant: Controller, dead_time_s: float 
         raise InputError("the plant must be an analog, proper transfer function", key="plant.model")
     if not (duration_s > 0 and math.isfinite(duration_s)):
         raise InputError(f"the simulated time must be positive, found {duration_s!r}", key="duration")
-    h = duration_s / steps
-    every = 1
-    if controller.is_digital:
-        t_s = controller.sample_period_s
-        every = max(1, int(math.ceil(t_s / h - 1e-9)))
-        h = t_s / every
-        steps = int(math.ceil(duration_s / h))
-        if steps > MAX_SIM_STEPS:
-            raise InputError(f"the sampled-data simulation would need {steps} steps (sample period {t_s:g} s over "
-                             f"{duration_s:g} s); shorten signals.duration", key="signals.duration")
-        ac, bc, cc, dc = _state_space(controller)
+    if not controller.is_proper:
+        _realize(controller)  # raises the improper-controller error
+    if sub_step_s is not None:
+        h = float(sub_step_s)
+    elif steps is not None:
+        h = duration_s / steps
     else:
-        ac, bc, cc, dc = _bilinear(*_state_space(controller), h)
-    ap, bp, cp, dp = _state_space(plant)
-    phi, _ = _phi_gamma(ap, bp, h)
-    n_u, g0_u, g1_u = _delay_taps(ap, bp, h, dead_time_s + (delay_s if controller.is_digital else 0.0))
-    n_d, g0_d, g1_d = _delay_taps(ap, bp, h, dead_time_s)
-
-    # plain-Python lists: faster than numpy for these tiny matrices in a long loop
-    PHI = phi.tolist()
-    G0U, G1U, G0D, G1D = g0_u.tolist(), g1_u.tolist(), g0_d.tolist(), g1_d.tolist()
-    CP = cp[0].tolist()
-    DP = float(dp[0, 0])
-    AC, BC, CC, DC = ac.tolist(), bc[:, 0].tolist(), cc[0].tolist(), float(dc[0, 0])
-    npl, nct = len(PHI), len(AC)
-    lo, hi = output_limits if output_limits else (-math.inf, math.inf)
+        h = natural_step(controller, plant, dead_time_s)
     r = step if kind == "setpoint" else 0.0
     dist = step if kind == "disturbance" else 0.0
+    lo, hi = output_limits if output_limits else (-math.inf, math.inf)
+    with _one_blas_thread():
+        if controller.is_digital:
+            return _simulate_sampled(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, (lo, hi), kind)
+        return _simulate_analog(controller, plant, dead_time_s, duration_s, h, r, dist, (lo, hi), kind)
 
-    x = [0.0] * npl
-    xc = [0.0] * nct
-    u_hist: list[float] = []  # controller output (held) per sub-step
-    y_out = [0.0] * (steps + 1)
-    u_out = [0.0] * (steps + 1)
-    u_now = 0.0
-    u_prev_input = 0.0
-    rows_p = list(zip(PHI, G0U, G1U, G0D, G1D))
-    rows_c = list(zip(AC, BC))
-    for k in range(steps + 1):
-        y = sum(map(mul, CP, x)) + DP * u_prev_input
-        if k % every == 0:
-            e = r - y
-            v = sum(map(mul, CC, xc)) + DC * e
-            xc = [sum(map(mul, row, xc)) + b * e for row, b in rows_c]
-            u_now = lo if v < lo else hi if v > hi else v
-        u_hist.append(u_now)
-        y_out[k] = y
-        u_out[k] = u_now
-        if k == steps:
-            break
-        j = k - n_u
-        wu0 = u_hist[j] if j >= 0 else 0.0
-        wu1 = u_hist[j - 1] if j >= 1 else 0.0
-        wd0 = dist if k >= n_d else 0.0
-        wd1 = dist if k >= n_d + 1 else 0.0
-        x = [sum(map(mul, row, x)) + g0u * wu0 + g1u * wu1 + g0d * wd0 + g1d * wd1
-             for row, g0u, g1u, g0d, g1d in rows_p]
-        u_prev_input = wu0 + wd0
-    y_out = np.asarray(y_out)
-    u_out = np.asarray(u_out)
-    t = np.arange(steps + 1) * h
-    return LoopResponse(t=t, y=y_out, u=u_out, kind=kind, sub_step_s=h)
+
+def _one_blas_thread():
+    """BLAS limited to one thread while the loop is simulated: its matrices are small, and
+    waking a second thread costs more than the product (a shared machine makes it worse)."""
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:  # pragma: no cover - optional
+        import contextlib
+
+        return contextlib.nullcontext()
+    return threadpool_limits(1)
+
+
+def _simulate_analog(controller, plant, dead_time_s, duration_s, h, r, dist, limits, kind):
+    lo, hi = limits
+    if dead_time_s > 0:
+        m = max(1, int(math.ceil(dead_time_s / h - 1e-9)))
+        if m > MAX_DELAY_STEPS:
+            m = MAX_DELAY_STEPS
+        h = dead_time_s / m
+    n_steps = int(math.ceil(duration_s / h - 1e-9))
+    _check_steps(n_steps, h, duration_s)
+    sys = _AnalogLoop(controller, plant, dead_time_s, h, r, dist)
+    sys.lo, sys.hi = lo, hi
+    y, u, _ = _run(sys, n_steps, (lo, hi))
+    return LoopResponse(t=np.arange(n_steps + 1) * h, y=y, u=u, kind=kind, sub_step_s=h)
+
+
+def _check_steps(n: int, h: float, duration_s: float) -> None:
+    if n > MAX_SIM_STEPS:
+        raise InputError(f"the loop simulation would need {n} steps ({h:.3g} s each over {duration_s:g} s); "
+                         "shorten signals.duration", key="signals.duration")
+
+
+def _simulate_sampled(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, limits, kind):
+    t_s = controller.sample_period_s
+    every = max(1, int(math.ceil(t_s / h - 1e-9)))
+    h = t_s / every
+    steps = int(math.ceil(duration_s / h - 1e-9))
+    _check_steps(steps, h, duration_s)
+    samples = steps // every + 1
+    sys = _SampledLoop(controller, plant, dead_time_s + delay_s, dead_time_s, r, dist)
+    sys.lo, sys.hi = limits
+    n, nd, np_, iu = sys.n, sys.nd, sys.np_, sys.iu
+    need_inter = every > 1
+
+    def extra(key, mode, zs, u_seg):
+        if not need_inter:
+            return None
+        older = zs[:, iu + n]
+        newer = u_seg if n == 0 else zs[:, iu + n - 1]
+        return zs[:, :np_].copy(), older.copy(), newer.copy()
+
+    y_s, u_s, extras = _run(sys, samples - 1, limits, extra)
+    if not need_inter:
+        y, u = y_s, u_s
+    else:
+        x = np.concatenate([e[0] for e in extras])
+        older = np.concatenate([e[1] for e in extras])
+        newer = np.concatenate([e[2] for e in extras])
+        k = np.arange(samples)
+        d_old = dist * (k - nd - 1 >= 0)
+        d_new = dist * (k - nd >= 0)
+        y = np.empty((samples, every))
+        y[:, 0] = y_s
+        for i, (row, cu, cd) in enumerate(sys.intersample(every), start=1):
+            y[:, i] = x @ row + cu[0] * older + cu[1] * newer + cd[0] * d_old + cd[1] * d_new
+        y = y.reshape(-1)
+        u = np.repeat(u_s, every)
+    y = y[:steps + 1]
+    u = u[:steps + 1]
+    return LoopResponse(t=np.arange(steps + 1) * h, y=y, u=u, kind=kind, sub_step_s=h)
 
 
 def response_deviation(reference: LoopResponse, candidate: LoopResponse) -> float:
