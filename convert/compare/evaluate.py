@@ -20,7 +20,8 @@ from convert.compare.frequency import hold_and_delay_factor, log_grid, response_
 from convert.compare.loop import (LoopResponse, Margins, default_duration, loop_margins, margin_grid,
                                   margins_of_responses, response_deviation, simulate_loop)
 from convert.compare.rate import RateAdvice, advise
-from convert.compare.verdict import Verdict, judge
+from convert.compare.stability import LoopStability, loop_stability
+from convert.compare.verdict import LOOP_CRITERIA, Verdict, judge
 from convert.controller import Controller
 from convert.errors import InputError, LoopshiftError, UnrealizableError
 
@@ -50,6 +51,7 @@ class Realization:
     figures: dict = field(default_factory=dict)
     band: dict | None = None  # Monte Carlo band for circuits
     files: dict = field(default_factory=dict)  # name -> bytes or text
+    stability: LoopStability | None = None  # closed loop with the plant (None without a plant)
 
 
 @dataclass
@@ -69,6 +71,25 @@ class CaseResults:
     notes: list[str] = field(default_factory=list)
     draws: int | None = None
     seed: int | None = None
+    source_stability: LoopStability | None = None
+
+    @property
+    def alarms(self) -> list[str]:
+        """Plain sentences for the top of every report: an unstable source loop first, then each
+        unstable target loop (empty when every loop with the plant is stable)."""
+        out = []
+        if self.source_stability is not None and not self.source_stability.stable:
+            out.append(_sentence(self.source_stability.message))
+        for r in self.realizations:
+            if r.stability is not None and not r.stability.stable:
+                out.append(_sentence(r.stability.message))
+        return out
+
+    def loop_is_stable(self, name: str) -> bool | None:
+        """Stability of the loop of ``name`` ("source" or a realization's name); None if unknown."""
+        s = self.source_stability if name == "source" else next(
+            (r.stability for r in self.realizations if r.name == name), None)
+        return None if s is None else s.stable
 
     @property
     def exit_code(self) -> int:
@@ -116,11 +137,12 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
         analog_src = reduction.reduced  # the targets are built from the card without its parasitics
 
     plant = case.plant
-    src_margins = duration = src_step = src_dist = None
+    src_margins = duration = src_step = src_dist = src_stability = None
     sim_src = None
     if plant is not None:
         src_margins = loop_margins(src, plant.model, plant.dead_time_s)
         sim_src = _simulable(case, src, analog_src, notes)
+        src_stability = _stability(src if src.is_proper else sim_src, plant, 0.0, "the source loop", notes)
         duration = case.signals.duration_s or default_duration(analog_src if analog_src.is_proper else sim_src,
                                                                plant.model, plant.dead_time_s)
         if sim_src is not None:
@@ -149,13 +171,23 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
                                                 source_pid=info.pid))
 
     figures = {}
+    loops: dict[str, LoopStability | None] = {}
+    if plant is not None:
+        loops["source"] = src_stability
     for r in realizations:
         total = next(row for row in r.budget if row.key == "total")
         f = {"max_gain_error_db": total.max_gain_error_db, "max_phase_error_deg": total.max_phase_error_deg}
         if plant is not None:
+            delay = r.details.get("delay_s", 0.0) if r.form == "digital" else 0.0
+            r.stability = _stability(r.controller, plant, delay, f"the loop with {r.name}", notes)
+            loops[r.name] = r.stability
             f.update(_loop_figures(src_margins, r, src_step, src_dist, case))
+            if src_stability is not None and not src_stability.stable:
+                for key in LOOP_CRITERIA:
+                    f[key] = None
+                    f[f"{key}_note"] = "the source loop is unstable: there is no working loop to compare with"
         figures[r.name] = f
-    verdict = judge(crit.as_dict(), figures, has_plant=plant is not None)
+    verdict = judge(crit.as_dict(), figures, has_plant=plant is not None, loops=loops)
     tick("verdict")
     circuit_draws = None
     if case.circuit:
@@ -163,7 +195,8 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
     return CaseResults(case=case, source=info, reference=src, band_f_hz=band, realizations=realizations,
                        rate_advice=advice, verdict=verdict, source_margins=src_margins, source_step=src_step,
                        source_disturbance=src_dist, duration_s=duration, skipped=skipped, notes=notes,
-                       draws=circuit_draws, seed=case.circuit.seed if case.circuit else None)
+                       draws=circuit_draws, seed=case.circuit.seed if case.circuit else None,
+                       source_stability=src_stability)
 
 
 # ----------------------------------------------------------------------------- helpers
@@ -205,6 +238,23 @@ def _simulable(case, src: Controller, analog_src: Controller, notes: list[str]) 
         return filt
     notes.append("the source is improper (pure derivative): its loop cannot be simulated; give a filtered source")
     return None
+
+
+def _stability(controller: Controller | None, plant, delay_s: float, what: str, notes: list[str]) -> LoopStability | None:
+    """Closed-loop stability of ``controller`` with the case's plant (dead time exact), or None
+    with a note when it cannot be decided (an improper loop)."""
+    if controller is None:
+        notes.append(f"the closed-loop stability of {what} could not be checked (improper controller)")
+        return None
+    try:
+        return loop_stability(controller, plant.model, plant.dead_time_s, delay_s=delay_s, what=what)
+    except ValueError as exc:
+        notes.append(f"the closed-loop stability of {what} could not be checked: {exc}")
+        return None
+
+
+def _sentence(text: str) -> str:
+    return text[:1].upper() + text[1:] if text else text
 
 
 def _simulate_pair(case, controller: Controller, duration: float, delay_s: float, limits):
