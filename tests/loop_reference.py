@@ -85,3 +85,78 @@ def rk4_loop(controller, plant, dead_time_s: float, *, duration_s: float, h: flo
         x = x + h / 6 * (k1[0] + 2 * k2[0] + 2 * k3[0] + k4[0])
         xc = xc + h / 6 * (k1[1] + 2 * k2[1] + 2 * k3[1] + k4[1])
     return np.arange(n + 1) * h, ys, us
+
+
+def stepwise_sampled_loop(controller, plant, dead_time_s, *, duration_s, steps, kind="setpoint", step=1.0,
+                          delay_s=0.0, output_limits=None):
+    """The sampled-data loop as this project simulated it before the simulation became matrix
+    powers: one Python iteration per sub-step h = T/ceil(T/(duration/steps)), the plant
+    discretized by scipy (matrix exponential, zero-order hold) on python-control-independent
+    ``scipy.signal.tf2ss`` companion realizations, fractional delays by splitting the sub-step
+    (modified z-transform). Kept as the regression reference: the new simulation must give the
+    same response within 1e-9 of the step. Returns (t, y, u)."""
+    from scipy.linalg import expm
+    from scipy.signal import tf2ss
+
+    def ss(num, den):
+        a, b, c, d = tf2ss(list(num), list(den))
+        return np.atleast_2d(a), np.atleast_2d(b), np.atleast_2d(c), float(np.atleast_2d(d)[0, 0])
+
+    def phi_gamma(a, b, t):
+        n = a.shape[0]
+        m = np.zeros((n + 1, n + 1))
+        m[:n, :n] = a * t
+        m[:n, n:] = b * t
+        e = expm(m)
+        return e[:n, :n], e[:n, n:]
+
+    def taps(a, b, h, delay):
+        n = int(math.floor(delay / h + 1e-9))
+        tau = delay - n * h
+        if tau < 1e-12 * h:
+            tau = 0.0
+        phi_rest, gamma_rest = phi_gamma(a, b, h - tau)
+        if tau == 0.0:
+            return n, gamma_rest[:, 0], np.zeros(a.shape[0])
+        _, gamma_tau = phi_gamma(a, b, tau)
+        return n, gamma_rest[:, 0], (phi_rest @ gamma_tau)[:, 0]
+
+    t_s = controller.sample_period_s
+    h = duration_s / steps
+    every = max(1, int(math.ceil(t_s / h - 1e-9)))
+    h = t_s / every
+    steps = int(math.ceil(duration_s / h))
+    ac, bc, cc, dc = ss(controller.num, controller.den)
+    ap, bp, cp, dp = ss(plant.num, plant.den)
+    phi, _ = phi_gamma(ap, bp, h)
+    n_u, g0u, g1u = taps(ap, bp, h, dead_time_s + delay_s)
+    n_d, g0d, g1d = taps(ap, bp, h, dead_time_s)
+    lo, hi = output_limits if output_limits else (-math.inf, math.inf)
+    r = step if kind == "setpoint" else 0.0
+    dist = step if kind == "disturbance" else 0.0
+    x = np.zeros(ap.shape[0])
+    xc = np.zeros(ac.shape[0])
+    u_hist = []
+    y_out = np.zeros(steps + 1)
+    u_out = np.zeros(steps + 1)
+    u_now = 0.0
+    prev_input = 0.0
+    for k in range(steps + 1):
+        y = float(cp[0] @ x) + dp * prev_input
+        if k % every == 0:
+            e = r - y
+            v = float(cc[0] @ xc) + dc * e
+            xc = ac @ xc + bc[:, 0] * e
+            u_now = min(max(v, lo), hi)
+        u_hist.append(u_now)
+        y_out[k], u_out[k] = y, u_now
+        if k == steps:
+            break
+        j = k - n_u
+        wu0 = u_hist[j] if j >= 0 else 0.0
+        wu1 = u_hist[j - 1] if j >= 1 else 0.0
+        wd0 = dist if k >= n_d else 0.0
+        wd1 = dist if k >= n_d + 1 else 0.0
+        x = phi @ x + g0u * wu0 + g1u * wu1 + g0d * wd0 + g1d * wd1
+        prev_input = wu0 + wd0
+    return np.arange(steps + 1) * h, y_out, u_out
