@@ -66,30 +66,44 @@ def loop_response(controller: Controller, plant: Controller, dead_time_s: float,
 class Margins:
     """Stability figures of one loop. ``None`` where a figure does not exist (e.g. no gain
     crossover: the phase margin is undefined). Gain margin in dB, phase margin in degrees,
-    frequencies in Hz, sensitivity peak in dB (and as a plain ratio ``ms``)."""
+    frequencies in Hz, sensitivity peak in dB (and as a plain ratio ``ms``).
+
+    A phase crossover at zero frequency (L(0) real and negative: a plant unstable on its own)
+    has ``phase_crossover_hz`` 0. Where |1 + L| has no interior minimum (|S| largest at zero
+    frequency or still rising toward the top of the range) ``sensitivity_peak_note`` says so and
+    ``sensitivity_peak_hz`` is 0 (zero frequency), the Nyquist frequency (a digital controller)
+    or None (the supremum, approached as f → ∞); ``ms`` is then that edge value."""
 
     gain_margin_db: float | None
     phase_crossover_hz: float | None
     phase_margin_deg: float | None
     crossover_hz: float | None
     sensitivity_peak_db: float
-    sensitivity_peak_hz: float
+    sensitivity_peak_hz: float | None
     ms: float
+    sensitivity_peak_note: str = ""
 
     def as_dict(self) -> dict:
         return dict(self.__dict__)
 
 
-def _rational_and_delay(controller: Controller, plant: Controller, dead_time_s: float, f: np.ndarray,
-                        delay_s: float, hold: str) -> tuple[np.ndarray, np.ndarray]:
-    """(magnitude, unwrapped phase in rad) of L on the grid ``f``, pure delays added analytically."""
+def _rational(controller: Controller, plant: Controller, f: np.ndarray, delay_s: float, hold: str,
+              dead_time_s: float) -> tuple[np.ndarray, float]:
+    """(rational part of L on ``f`` (Hz), total pure delay in s): the hold's sinc stays in the
+    rational part, its half-period delay joins the dead time and computation delay."""
     c = controller.frequency_response(f, via="zpk")
     delay_total = dead_time_s + delay_s
     if controller.is_digital and hold == "zoh":
         t = controller.sample_period_s
         c = c * np.sinc(f * t)
         delay_total += t / 2
-    rational = c * plant.frequency_response(f, via="zpk")
+    return c * plant.frequency_response(f, via="zpk"), delay_total
+
+
+def _rational_and_delay(controller: Controller, plant: Controller, dead_time_s: float, f: np.ndarray,
+                        delay_s: float, hold: str) -> tuple[np.ndarray, np.ndarray]:
+    """(magnitude, unwrapped phase in rad) of L on the grid ``f``, pure delays added analytically."""
+    rational, delay_total = _rational(controller, plant, f, delay_s, hold, dead_time_s)
     phase = np.unwrap(np.angle(rational), axis=-1) - 2 * np.pi * f * delay_total
     return np.abs(rational), phase
 
@@ -221,23 +235,128 @@ def loop_margins(controller: Controller, plant: Controller, dead_time_s: float =
     """Gain and phase margins, crossover and sensitivity peak of the loop C·P·e^{−sθ}.
 
     A digital ``controller`` is seen through its zero-order hold and ``delay_s`` computation
-    delay. ``f_hz`` overrides the automatic dense grid (:func:`margin_grid`)."""
+    delay. ``f_hz`` overrides the automatic dense grid (:func:`margin_grid`). The grid finds the
+    crossings and the sensitivity peak; each is then refined by a scalar search (Brent's method on
+    log f: root of log|L| or of the phase's distance to −180° − k·360°; minimum of |1 + L|) to
+    1e-6 relative or better. L(0) real and negative (a plant unstable on its own) is a phase
+    crossing at zero frequency, with gain margin 1/|L(0)| (python-control's rule)."""
     f = margin_grid(controller, plant) if f_hz is None else np.asarray(f_hz, dtype=float)
-    mag, phase = _rational_and_delay(controller, plant, dead_time_s, f, delay_s, hold)
-    margins = margins_from_response(f, mag, phase)
-    # Crossings are interpolated between grid points; beside a sharp resonance that costs a few
-    # hundredths of a dB. Add a grid 100 times finer around each crossing and the sensitivity
-    # peak, then read the margins again (the coarse grid stays, so the phase unwraps as before).
-    marks = [x for x in (margins.crossover_hz, margins.phase_crossover_hz, margins.sensitivity_peak_hz)
-             if x is not None and np.isfinite(x)]
-    if not marks or f.size < 2:
-        return margins
-    step = float(np.median(np.diff(np.log10(f))))
-    local = [np.logspace(np.log10(x) - 2 * step, np.log10(x) + 2 * step, 401) for x in marks]
-    f_fine = np.unique(np.concatenate([f, *local]))
-    f_fine = f_fine[(f_fine >= f[0]) & (f_fine <= f[-1])]
-    mag, phase = _rational_and_delay(controller, plant, dead_time_s, f_fine, delay_s, hold)
-    return margins_from_response(f_fine, mag, phase)
+    rational, delay_total = _rational(controller, plant, f, delay_s, hold, dead_time_s)
+    mag = np.abs(rational)
+    phase = np.unwrap(np.angle(rational)) - 2 * np.pi * f * delay_total
+    grid = margins_from_response(f, mag, phase)
+    if f.size < 3:
+        return grid
+
+    def lval(x: float) -> complex:
+        r, _ = _rational(controller, plant, np.array([x]), delay_s, hold, dead_time_s)
+        return complex(r[0]) * np.exp(-2j * np.pi * x * delay_total)
+
+    def phase_at(x: float, i: int) -> float:
+        """The phase of L at x (Hz), continued from the grid point i."""
+        r, _ = _rational(controller, plant, np.array([x]), delay_s, hold, dead_time_s)
+        return float(phase[i] + np.angle(r[0] / rational[i]) - 2 * np.pi * (x - f[i]) * delay_total)
+
+    out = dict(grid.as_dict())
+    with np.errstate(all="ignore"):
+        if grid.crossover_hz is not None:
+            i = _bracket(f, grid.crossover_hz)
+            fc = _brent(lambda x: math.log(abs(lval(x))), f[i], f[i + 1])
+            out["crossover_hz"] = fc
+            pm = math.degrees(phase_at(fc, i)) + 180.0
+            out["phase_margin_deg"] = (pm + 180.0) % 360.0 - 180.0
+        if grid.phase_crossover_hz is not None:
+            i = _bracket(f, grid.phase_crossover_hz)
+            psi0, psi1 = (phase[i] + np.pi) / (2 * np.pi), (phase[i + 1] + np.pi) / (2 * np.pi)
+            level = max(math.floor(psi0), math.floor(psi1))
+            target = 2 * np.pi * level - np.pi
+            fp = _brent(lambda x: phase_at(x, i) - target, f[i], f[i + 1])
+            out["phase_crossover_hz"] = fp
+            out["gain_margin_db"] = -20.0 * math.log10(abs(lval(fp)))
+        l0 = _at_zero_frequency(controller, plant)
+        if l0 is not None and l0 < 0:
+            gm0 = -20.0 * math.log10(-l0)
+            if out["gain_margin_db"] is None or abs(gm0) < abs(out["gain_margin_db"]):
+                out["gain_margin_db"], out["phase_crossover_hz"] = gm0, 0.0
+        out.update(_sensitivity_peak(controller, plant, f, rational, delay_total, lval, l0))
+    return Margins(**out)
+
+
+def _bracket(f: np.ndarray, x: float) -> int:
+    """Index i with f[i] ≤ x ≤ f[i+1] (clipped to the grid)."""
+    return int(min(max(np.searchsorted(f, x) - 1, 0), f.size - 2))
+
+
+def _brent(fun, a: float, b: float) -> float:
+    """Root of ``fun`` between a and b (Hz), searched in log f; the nearer end if the signs agree
+    (a crossing the grid located by interpolation that rounding moved off the bracket)."""
+    from scipy.optimize import brentq
+
+    la, lb = math.log(a), math.log(b)
+    ga, gb = fun(a), fun(b)
+    if not (math.isfinite(ga) and math.isfinite(gb)):
+        return math.sqrt(a * b)
+    if ga == 0:
+        return a
+    if gb == 0 or ga * gb > 0:
+        return b if abs(gb) < abs(ga) else a
+    return math.exp(brentq(lambda u: fun(math.exp(u)), la, lb, xtol=1e-13, rtol=1e-14))
+
+
+def _at_zero_frequency(controller: Controller, plant: Controller) -> float | None:
+    """L(0) as a real number when it is finite and non-zero (no integrator, no zero at 0);
+    pure delays and the hold are 1 there."""
+    with np.errstate(all="ignore"):
+        c = controller.frequency_response(np.array([0.0]), via="zpk")[0]
+        p = plant.frequency_response(np.array([0.0]), via="zpk")[0]
+    val = c * p
+    if not np.isfinite(val) or val == 0:
+        return None
+    return float(val.real)
+
+
+def _sensitivity_peak(controller: Controller, plant: Controller, f: np.ndarray, rational: np.ndarray, delay_total: float, lval,
+                      l0: float | None) -> dict:
+    """The sensitivity peak max |1/(1 + L)|: refined by Brent's bounded search around the grid's
+    largest value when it lies inside the grid; otherwise the edge it rises toward (zero
+    frequency, the Nyquist frequency of a digital controller, or f → ∞), said in words."""
+    from scipy.optimize import minimize_scalar
+
+    loop = rational * np.exp(-2j * np.pi * f * delay_total)
+    sens = 1.0 / np.abs(1.0 + loop)
+    si = int(np.argmax(sens))
+    if 0 < si < f.size - 1 and sens[si] <= max(sens[0], sens[-1]) * (1 + 1e-9):
+        si = 0 if sens[0] >= sens[-1] else f.size - 1  # a plateau, not a peak: the edge decides
+    if 0 < si < f.size - 1:
+        lo, hi = math.log(f[si - 1]), math.log(f[si + 1])
+        res = minimize_scalar(lambda u: abs(1.0 + lval(math.exp(u))), bounds=(lo, hi), method="bounded",
+                              options={"xatol": 1e-12})
+        fs_ = math.exp(res.x)
+        ms = 1.0 / abs(1.0 + lval(fs_))
+        if ms < sens[si]:  # the search never does worse than the grid
+            fs_, ms = float(f[si]), float(sens[si])
+        return {"ms": ms, "sensitivity_peak_db": 20 * math.log10(ms), "sensitivity_peak_hz": fs_,
+                "sensitivity_peak_note": ""}
+    if si == 0:
+        ms = 1.0 / abs(1.0 + l0) if l0 is not None else float(sens[0])
+        return {"ms": ms, "sensitivity_peak_db": 20 * math.log10(ms), "sensitivity_peak_hz": 0.0,
+                "sensitivity_peak_note": "no interior peak: |S| = |1/(1 + L)| is largest at zero frequency"}
+    if controller.is_digital:
+        fn = 0.5 * controller.fs_hz
+        ms = 1.0 / abs(1.0 + lval(fn))
+        return {"ms": ms, "sensitivity_peak_db": 20 * math.log10(ms), "sensitivity_peak_hz": fn,
+                "sensitivity_peak_note": "no interior peak: |S| = |1/(1 + L)| is largest at the Nyquist frequency"}
+    # analog: the supremum as f → ∞, where L tends to k = L(∞) (0 for a strictly proper loop)
+    k = (controller.high_frequency_gain() or 0.0) * (plant.high_frequency_gain() or 0.0)
+    if delay_total > 0 and k != 0:
+        ms = 1.0 / (1.0 - abs(k)) if abs(k) < 1 else math.inf  # e^{−jωθ} turns L(∞) through every phase
+    else:
+        ms = 1.0 / abs(1.0 + k) if k != -1 else math.inf
+    return {"ms": ms, "sensitivity_peak_db": 20 * math.log10(ms) if math.isfinite(ms) else math.inf,
+            "sensitivity_peak_hz": None,
+            "sensitivity_peak_note": "no interior peak: |S| = |1/(1 + L)| rises toward high frequency; "
+                                     "the figure is its limit as f → ∞"}
+
 
 
 def margins_of_responses(f_hz: np.ndarray, controller_responses: np.ndarray, plant: Controller,

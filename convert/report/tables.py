@@ -155,9 +155,14 @@ def margins_table(results) -> Table | None:
         if results.loop_is_stable(name) is False:  # margins of an unstable loop are no robustness
             rows.append([name, "unstable loop", "—", "unstable loop", "—", "—", "—"])
             continue
+        peak = fixed(m.sensitivity_peak_db, "dB", floor=0.01)
+        note = getattr(m, "sensitivity_peak_note", "")
+        if note:  # no interior peak: say where |S| is largest instead of quoting a grid's end
+            where = ("at zero frequency" if "zero frequency" in note else
+                     "at the Nyquist frequency" if "Nyquist" in note else "as f → ∞")
+            peak = f"{peak} ({where}; no interior peak)"
         rows.append([name, fixed(m.gain_margin_db, "dB", floor=0.01), hz(m.phase_crossover_hz),
-                     fixed(m.phase_margin_deg, "°", floor=0.01), hz(m.crossover_hz),
-                     fixed(m.sensitivity_peak_db, "dB", floor=0.01), f"{m.ms:.2f}"])
+                     fixed(m.phase_margin_deg, "°", floor=0.01), hz(m.crossover_hz), peak, f"{m.ms:.2f}"])
     return ("Loop checks (margins with the plant, dead time exact)",
             ["form", "gain margin", "at (phase −180°)", "phase margin", "crossover (|L| = 1)",
              "sensitivity peak", "Ms = max |S|"], rows)
