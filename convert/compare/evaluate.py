@@ -161,7 +161,7 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
         realizations += _digital_realizations(case, src, analog_src, band, src_margins, duration, src_step,
                                               src_dist, tick, card_limits=card_limits, reduction=reduction)
         if True:
-            advice = _rate_advice(case, analog_src, src_margins)
+            advice = _rate_advice(case, analog_src, src_margins, src_step, src_dist, duration, src_stability)
         tick("sample-rate advice")
     if case.circuit:
         from convert.compare.circuitwork import circuit_realization
@@ -404,7 +404,8 @@ def _digital_realizations(case, src, analog_src, band, src_margins, duration, sr
     return out
 
 
-def _rate_advice(case, analog_src, src_margins) -> list[RateAdvice]:
+def _rate_advice(case, analog_src, src_margins, src_step=None, src_dist=None, duration=None,
+                 src_stability=None) -> list[RateAdvice]:
     from convert.digital import discretize
 
     tgt = case.digital
@@ -414,12 +415,52 @@ def _rate_advice(case, analog_src, src_margins) -> list[RateAdvice]:
     fc = src_margins.crossover_hz if src_margins else None
 
     def conv(c, fs, m):
-        return discretize(c, fs, m, prewarp_hz=tgt.prewarp_hz).controller
+        cd = discretize(c, fs, m, prewarp_hz=tgt.prewarp_hz).controller
+        if tgt.word_format == "float32":  # as the targets are built
+            b32 = np.asarray(cd.b, dtype=np.float32).astype(float)
+            a32 = np.asarray(cd.a, dtype=np.float32).astype(float)
+            cd = Controller.from_b_a(b32, a32 / a32[0], 1.0 / fs)
+        return cd
 
+    check = None
+    if case.plant is not None and src_margins is not None and (src_stability is None or src_stability.stable):
+        check = _rate_loop_check(case, src_margins, src_step, src_dist, duration)
     return [advise(filtered, m, conv, band_hz=crit.band_hz, max_gain_error_db=crit.max_gain_error_db,
                    max_phase_error_deg=crit.max_phase_error_deg, max_lag_deg=lag if fc else None, crossover_hz=fc,
-                   delay_s=tgt.delay_s, delay_samples=tgt.delay_samples)
+                   delay_s=tgt.delay_s, delay_samples=tgt.delay_samples, loop_check=check)
             for m in tgt.methods]
+
+
+def _rate_loop_check(case, src_margins, src_step, src_dist, duration):
+    """The verdict's loop criteria for one candidate digital controller (for the rate advice):
+    closed-loop stability, margin changes and, when set, step and disturbance deviations."""
+    import types
+
+    from convert.compare.verdict import CRITERIA
+
+    plant = case.plant
+    crit = case.criteria.as_dict()
+    wanted = [(key, label) for key, label, _ in CRITERIA if key in LOOP_CRITERIA and crit.get(key) is not None]
+    needs_sim = any(key in ("max_step_deviation", "max_disturbance_deviation") for key, _ in wanted)
+    limits = case.digital.output_limits or case.signals.output_range
+    no_percentile = types.SimpleNamespace(key="total", percentile=None)
+
+    def check(digital: Controller, delay: float) -> list[str]:
+        if not loop_stability(digital, plant.model, plant.dead_time_s, delay_s=delay).stable:
+            return ["closed-loop stability"]
+        if not wanted:
+            return []
+        r = Realization(name="candidate", form="digital", controller=digital, details={}, budget=[no_percentile],
+                        seen=lambda f: f, margins=loop_margins(digital, plant.model, plant.dead_time_s, delay_s=delay))
+        if needs_sim and duration is not None:
+            try:
+                r.step, r.disturbance = _simulate_pair(case, digital, duration, delay, limits)
+            except InputError:
+                pass  # a simulation too long for this rate: judged on the other criteria
+        figures = _loop_figures(src_margins, r, src_step, src_dist, case)
+        return [label for key, label in wanted if figures.get(key) is not None and abs(figures[key]) > crit[key]]
+
+    return check
 
 
 def _loop_figures(src_m: Margins, r: Realization, src_step, src_dist, case) -> dict:

@@ -174,7 +174,7 @@ def rate_table(results) -> Table | None:
     rows = [[a.method, hz(a.checked_fs_hz) if a.checked_fs_hz else "none in scan",
              hz(a.rule_fs_hz) if a.rule_fs_hz else "—", a.limiting,
              f"{hz(a.scanned_hz[0])} – {hz(a.scanned_hz[1])}"] for a in results.rate_advice]
-    return ("Sample-rate advice", ["method", "lowest rate within criteria (checked)", "rule of thumb",
+    return ("Sample-rate advice", ["method", "lowest rate that passes (checked, within 1 %)", "rule of thumb",
                                    "limiting criterion below it", "scanned"], rows)
 
 
