@@ -907,7 +907,7 @@ def simulate_loop(controller: Controller, plant: Controller, dead_time_s: float 
     r = step if kind == "setpoint" else 0.0
     dist = step if kind == "disturbance" else 0.0
     lo, hi = output_limits if output_limits else (-math.inf, math.inf)
-    with _one_blas_thread():
+    with one_blas_thread():
         if controller.is_digital:
             return _simulate_sampled(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, (lo, hi), kind)
         return _simulate_analog(controller, plant, dead_time_s, duration_s, h, r, dist, (lo, hi), kind)
@@ -916,7 +916,7 @@ def simulate_loop(controller: Controller, plant: Controller, dead_time_s: float 
 _POOLS: list = []
 
 
-def _one_blas_thread():
+def one_blas_thread():
     """BLAS limited to one thread while the loop is simulated: its matrices are small, and
     waking a second thread costs more than the product (a shared machine makes it worse). The
     libraries are looked up once (threadpoolctl's look-up costs about a millisecond)."""

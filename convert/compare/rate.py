@@ -67,6 +67,17 @@ def advise(source: Controller, method: str, discretize: Callable[[Controller, fl
     method)`` returns the digital controller; ``delay_samples`` (if given) scales the delay with
     the rate. ``loop_check(digital, delay_s)`` (optional) returns the names of the loop criteria
     that digital controller fails; when given it replaces the phase-lag rule at crossover."""
+    from convert.compare.loop import one_blas_thread
+
+    with one_blas_thread():  # small matrices (discretizations, loop checks): one BLAS thread is faster
+        return _advise(source, method, discretize, band_hz, max_gain_error_db, max_phase_error_deg, max_lag_deg,
+                       crossover_hz, delay_s, delay_samples, points, max_ratio, loop_check, rel_tol,
+                       points_per_decade)
+
+
+def _advise(source, method, discretize, band_hz, max_gain_error_db, max_phase_error_deg, max_lag_deg,
+            crossover_hz, delay_s, delay_samples, points, max_ratio, loop_check, rel_tol,
+            points_per_decade) -> RateAdvice:
     f = log_grid(band_hz[0], band_hz[1], points_per_decade)
     ref = source.frequency_response(f, via="zpk")
 

@@ -145,7 +145,10 @@ def stability_message(s: LoopStability, what: str = "the loop") -> str:
 # ----------------------------------------------------------------------------- the root counts
 def _count(controller: Controller, plant: Controller, dead_time_s: float, delay_s: float) -> tuple[int, bool, str]:
     if controller.is_digital:
-        return _count_sampled(controller, plant, dead_time_s, delay_s)
+        from convert.compare.loop import one_blas_thread
+
+        with one_blas_thread():
+            return _count_sampled(controller, plant, dead_time_s, delay_s)
     return _count_analog(controller, plant, dead_time_s + delay_s)
 
 
