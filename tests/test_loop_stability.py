@@ -33,6 +33,7 @@ ANALOG = [
     ("20*(1 + 1/(5*s))", "1/((3*s + 1)*(s + 1))", 0.5),      # too much gain: unstable
     ("-2*(1 + 1/(5*s))", "1/((3*s + 1)*(s + 1))", 0.5),      # direct action on a positive-gain plant
     ("5", "1/(2*s + 1)", 1.0),                                 # first order plus dead time, high gain
+    ("6*(1 + 1/(2*s))", "1/(2*s + 1)", 1.0),                   # ... under a PI (CASE_GAIN below)
     ("3", "1/(2*s + 1)", 1.0),
     ("1.5", "1/(2*s + 1)", 1.0),
     ("8*(1 + 1/(20*s) + 2*s/(0.2*s + 1))", "0.5/((30*s + 1)*(5*s + 1))", 1.0),
@@ -146,8 +147,27 @@ max_phase_error_deg = 10
 max_phase_margin_change_deg = 5
 """
 
-CASE_GAIN = CASE_SIGN.replace('action = "direct"\n', "").replace("kc = 2", "kc = 25").replace(
-    "direct-acting PI on a positive-gain valve", "PI with far too much gain")
+CASE_GAIN = """
+[case]
+title = "Dosing pump: first order plus dead time under a PI with far too much gain"
+
+[source.pid]
+kc = 6
+ti = "2 s"
+
+[target.digital]
+fs = "20 Hz"
+methods = ["tustin"]
+
+[plant]
+model = "1/(2s + 1)"
+dead_time = "1 s"
+
+[criteria]
+band = ["1 mHz", "0.2 Hz"]
+max_gain_error_db = 1
+max_phase_error_deg = 10
+"""
 
 CASE_TARGET = """
 [case]
@@ -181,8 +201,14 @@ def _write(tmp_path, text):
 
 @pytest.mark.parametrize("text,sign", [(CASE_SIGN, True), (CASE_GAIN, False)])
 def test_unstable_source_fails_with_the_message_on_top(tmp_path, run_cli, text, sign):
-    """An unstable source loop (ours: a sign error; too much gain) is stated at the top of the
-    terminal output, report.html and report.md, the verdict fails, and no margin of it is shown."""
+    """An unstable source loop (ours: a direct-acting PI on a positive-gain plant; a first order
+    plus dead time plant under too much gain — unstable by python-control's Padé-12 poles too,
+    see ANALOG above) is stated at the top of the terminal output, report.html and report.md, the
+    verdict fails, and no margin of it is shown."""
+    from convert.case import parse_case, source_controller
+
+    case = parse_case(text, "case.toml")
+    assert _pade_unstable_count(source_controller(case).controller, case.plant.model, case.plant.dead_time_s) > 0
     path = _write(tmp_path, text)
     out = tmp_path / "rep"
     res = run_cli("report", str(path), "--out", str(out))
