@@ -173,8 +173,8 @@ def _summary(console, results, folder) -> None:
     failures = results.verdict.failures
     if failures:
         for j in failures:
-            if j.value is None or j.limit is None:
-                text = f"{j.realization}: {j.label}: {j.note}"
+            if j.value is None or j.limit is None:  # closed-loop stability: the warning above has the rest
+                text = f"{j.realization}: {j.label}: {j.note.split(': ')[0]}"
             else:
                 text = f"{j.realization}: {j.label} {j.value:.3g} {j.unit} > limit {j.limit:g} {j.unit}"
             console.print(f"[red]fails:[/red] {escape(text)}")

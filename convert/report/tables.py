@@ -97,8 +97,8 @@ def failing_criteria(results) -> list[str]:
     printed beside a FAIL banner; empty when nothing failed."""
     out = []
     for j in results.verdict.failures:
-        if j.limit is None:  # a check without a limit (closed-loop stability): its words say it
-            out.append(f"{j.realization}: {j.label}: {j.note}")
+        if j.limit is None:  # a check without a limit (closed-loop stability): its first words say it
+            out.append(f"{j.realization}: {j.label}: {j.note.split(': ')[0]}")
             continue
         unit = j.unit
         limit = fixed(100 * j.limit, f"% {unit}") if unit in ("of step", "of peak") else fixed(j.limit, unit)
