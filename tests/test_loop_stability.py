@@ -116,6 +116,21 @@ def test_sign_inverted_flag_and_words():
     assert _pade_unstable_count(c.scaled(-1.0), p, 0.5) == 0
 
 
+def test_stable_but_sign_inverted_loop_fails():
+    """A direct-acting proportional controller of gain 0.5 on a positive-gain plant that is stable
+    on its own: L(0) = −0.5, the closed loop is stable (python-control with Padé agrees) but the
+    controller pushes the wrong way — the action is inverted, and the verdict fails on it."""
+    from convert.compare.verdict import stability_judgements
+
+    c, p = from_expression("-0.5"), from_expression("1/((3*s + 1)*(s + 1))")
+    s = loop_stability(c, p, 0.5, what="the source loop")
+    assert s.stable and _pade_unstable_count(c, p, 0.5) == 0
+    assert s.sign_inverted and not s.acceptable
+    assert "negative low-frequency loop gain" in s.message and "check the action" in s.message
+    (j,) = stability_judgements({"source": s})
+    assert j.status == "fail"
+
+
 def test_open_loop_unstable_plant_needs_negative_loop_gain_without_a_sign_alarm():
     """1/(s − 1) with gain 2: L(0) = −2 is how this plant is stabilized (common practice), so a
     stable loop with a negative low-frequency gain raises nothing."""

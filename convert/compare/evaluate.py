@@ -78,10 +78,10 @@ class CaseResults:
         """Plain sentences for the top of every report: an unstable source loop first, then each
         unstable target loop (empty when every loop with the plant is stable)."""
         out = []
-        if self.source_stability is not None and not self.source_stability.stable:
+        if self.source_stability is not None and not self.source_stability.acceptable:
             out.append(_sentence(self.source_stability.message))
         for r in self.realizations:
-            if r.stability is not None and not r.stability.stable:
+            if r.stability is not None and not r.stability.acceptable:
                 out.append(_sentence(r.stability.message))
         return out
 
@@ -182,10 +182,10 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
             r.stability = _stability(r.controller, plant, delay, f"the loop with {r.name}", notes)
             loops[r.name] = r.stability
             f.update(_loop_figures(src_margins, r, src_step, src_dist, case))
-            if src_stability is not None and not src_stability.stable:
+            if src_stability is not None and not src_stability.acceptable:
                 for key in LOOP_CRITERIA:
                     f[key] = None
-                    f[f"{key}_note"] = "the source loop is unstable: there is no working loop to compare with"
+                    f[f"{key}_note"] = "the source loop does not work with this plant (unstable or sign-inverted): there is no working loop to compare with"
         figures[r.name] = f
     verdict = judge(crit.as_dict(), figures, has_plant=plant is not None, loops=loops)
     tick("verdict")
@@ -423,7 +423,7 @@ def _rate_advice(case, analog_src, src_margins, src_step=None, src_dist=None, du
         return cd
 
     check = None
-    if case.plant is not None and src_margins is not None and (src_stability is None or src_stability.stable):
+    if case.plant is not None and src_margins is not None and (src_stability is None or src_stability.acceptable):
         check = _rate_loop_check(case, src_margins, src_step, src_dist, duration)
     return [advise(filtered, m, conv, band_hz=crit.band_hz, max_gain_error_db=crit.max_gain_error_db,
                    max_phase_error_deg=crit.max_phase_error_deg, max_lag_deg=lag if fc else None, crossover_hz=fc,
@@ -446,7 +446,7 @@ def _rate_loop_check(case, src_margins, src_step, src_dist, duration):
     no_percentile = types.SimpleNamespace(key="total", percentile=None)
 
     def check(digital: Controller, delay: float) -> list[str]:
-        if not loop_stability(digital, plant.model, plant.dead_time_s, delay_s=delay).stable:
+        if not loop_stability(digital, plant.model, plant.dead_time_s, delay_s=delay).acceptable:
             return ["closed-loop stability"]
         if not wanted:
             return []

@@ -63,12 +63,19 @@ class LoopStability:
 
     @property
     def sign_inverted(self) -> bool:
-        """Unstable with positive feedback at low frequency: the action or the plant sign is wrong.
-        (A plant unstable on its own may need a negative low-frequency loop gain; then only when
-        reversing the controller's sign makes the loop stable.)"""
-        if self.stable or self.low_frequency_sign >= 0:
+        """Positive feedback at low frequency where the plant does not need it: the action or the
+        plant's gain sign is wrong. A plant unstable on its own may need a negative low-frequency
+        loop gain; then only an unstable loop that reversing the controller's sign makes stable."""
+        if self.low_frequency_sign >= 0:
             return False
-        return (not self.plant_unstable) or bool(self.reversed_is_stable)
+        if self.plant_unstable:
+            return (not self.stable) and bool(self.reversed_is_stable)
+        return True
+
+    @property
+    def acceptable(self) -> bool:
+        """Stable and not sign-inverted: the loop works as a feedback loop."""
+        return self.stable and not self.sign_inverted
 
     def as_dict(self) -> dict:
         return {**self.__dict__, "sign_inverted": self.sign_inverted}
@@ -121,9 +128,13 @@ def loop_stability(controller: Controller, plant: Controller, dead_time_s: float
 
 
 def stability_message(s: LoopStability, what: str = "the loop") -> str:
-    """Plain words for an unstable loop ("" for a stable one)."""
-    if s.stable:
+    """Plain words for an unstable or sign-inverted loop ("" for one that works)."""
+    if s.stable and not s.sign_inverted:
         return ""
+    if s.stable:
+        return (f"{what} has a negative low-frequency loop gain with this plant (positive feedback: the "
+                "controller pushes the measurement away from the setpoint, held only because the loop gain is "
+                "below 1): check the action (direct or reverse) or the plant gain sign.")
     if s.marginal and s.unstable_poles == 0:
         head = f"{what} is not stable with this plant: a closed-loop pole lies on the stability boundary"
     else:

@@ -21,10 +21,11 @@ verdict is:
 * ``"pass"`` otherwise: every realization passed at least one checked criterion and none failed.
 
 With a plant, every loop (the source's and each realization's) is also judged on closed-loop
-stability (``closed_loop_stable``, always checked, no limit): an unstable or marginal loop fails
-the verdict whatever the other figures say (:mod:`convert.compare.stability`). It does not count
-as a checked criterion for the "unchecked" rule: it says the loop works, not that the new form
-does what the old one did.
+stability (``closed_loop_stable``, always checked, no limit): an unstable or marginal loop, or
+one with positive feedback at low frequency on a plant that is stable on its own (the action or
+the plant's gain sign inverted), fails the verdict whatever the other figures say
+(:mod:`convert.compare.stability`). It does not count as a checked criterion for the "unchecked"
+rule: it says the loop works, not that the new form does what the old one did.
 """
 
 from __future__ import annotations
@@ -109,8 +110,9 @@ def stability_judgements(loops: dict) -> list[Judgement]:
             out.append(Judgement(name, "closed_loop_stable", "closed-loop stability", "", None, None, "skipped",
                                  "could not be decided"))
             continue
-        status = "pass" if s.stable else "fail"
-        note = s.message if not s.stable else f"stable ({s.method})"
+        ok = getattr(s, "acceptable", s.stable)
+        status = "pass" if ok else "fail"
+        note = s.message if not ok else f"stable ({s.method})"
         out.append(Judgement(name, "closed_loop_stable", "closed-loop stability", "", None, None, status, note))
     return out
 
