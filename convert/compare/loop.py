@@ -1003,9 +1003,15 @@ def _simulate_sampled(controller, plant, dead_time_s, delay_s, duration_s, h, r,
 
 
 def response_deviation(reference: LoopResponse, candidate: LoopResponse) -> float:
-    """max |y_candidate − y_reference| over the reference's time grid (candidate interpolated)."""
-    y = np.interp(reference.t, candidate.t, candidate.y)
-    return float(np.max(np.abs(y - reference.y)))
+    """max |y_candidate − y_reference| over the time both cover, read on the finer of the two
+    grids (the other response interpolated linearly; both grids follow the loop's dynamics, so a
+    coarse grid of one form does not hide the other's intersample behaviour)."""
+    end = min(reference.t[-1], candidate.t[-1])
+    if candidate.sub_step_s < reference.sub_step_s:
+        t = candidate.t[candidate.t <= end]
+        return float(np.max(np.abs(candidate.y[:t.size] - np.interp(t, reference.t, reference.y))))
+    t = reference.t[reference.t <= end]
+    return float(np.max(np.abs(np.interp(t, candidate.t, candidate.y) - reference.y[:t.size])))
 
 
 def default_duration(controller: Controller, plant: Controller, dead_time_s: float = 0.0) -> float:
