@@ -113,6 +113,12 @@ def verdict_table(results) -> Table:
         if j.status == "not set":
             continue
         unit = j.unit
+        if j.criterion == "closed_loop_stable":  # a check without a number: say what was found
+            found = {"pass": "stable", "skipped": "—"}.get(
+                j.status, "sign inverted" if "negative low-frequency" in j.note else "unstable")
+            rows.append([j.realization, j.label, found, "stable, right sign",
+                         j.status.upper() if j.status == "fail" else j.status, "", j.note])
+            continue
         limit = fixed(100 * j.limit, f"% {unit}") if unit in ("of step", "of peak") else fixed(j.limit, unit)
         rows.append([j.realization, j.label, _measured(j.value, unit), limit,
                      j.status.upper() if j.status == "fail" else j.status,
