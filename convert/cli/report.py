@@ -132,6 +132,8 @@ def _summary(console, results, folder) -> None:
     verdict = results.verdict.overall
     style = "bold green" if verdict == "pass" else "bold red"
     console.print(f"[bold]{escape(case.title)}[/bold]  ({escape(str(case.path))})")
+    for alarm in results.alarms:
+        console.print(f"[bold red]WARNING: {escape(alarm)}[/bold red]")
     parsed = parsed_table(results)
     for title, header, rows in ([parsed] if parsed else []) + all_tables(results):
         if title.startswith("New forms"):
@@ -171,7 +173,11 @@ def _summary(console, results, folder) -> None:
     failures = results.verdict.failures
     if failures:
         for j in failures:
-            console.print(f"[red]fails:[/red] {escape(f'{j.realization}: {j.label} {j.value:.3g} {j.unit} > limit {j.limit:g} {j.unit}')}")
+            if j.value is None or j.limit is None:  # closed-loop stability: the warning above has the rest
+                text = f"{j.realization}: {j.label}: {j.note.split(': ')[0]}"
+            else:
+                text = f"{j.realization}: {j.label} {j.value:.3g} {j.unit} > limit {j.limit:g} {j.unit}"
+            console.print(f"[red]fails:[/red] {escape(text)}")
     if results.verdict.unchecked_reason:
         console.print(f"[red]unchecked:[/red] {escape(results.verdict.unchecked_reason)}")
     console.print(f"verdict: [{style}]{verdict.upper()}[/{style}]   report: {escape(str(folder))}/report.html")

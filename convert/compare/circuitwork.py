@@ -64,9 +64,11 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
     loop_f = None
     if case.plant is not None:
         # around the source loop's crossovers: the draws move them by a few per cent at most
-        lo = (src_margins.crossover_hz or src_margins.sensitivity_peak_hz) / 30
-        hi = max(src_margins.phase_crossover_hz or 0.0, src_margins.crossover_hz or 0.0,
-                 src_margins.sensitivity_peak_hz) * 30
+        # (a figure may be absent: no crossover, or no interior sensitivity peak)
+        marks = [x for x in (src_margins.crossover_hz, src_margins.phase_crossover_hz,
+                             src_margins.sensitivity_peak_hz) if x]
+        lo = (src_margins.crossover_hz or min(marks, default=float(band[-1]))) / 30
+        hi = max(marks, default=float(band[-1])) * 30
         loop_f = np.logspace(np.log10(lo), np.log10(hi), 320)
     spec = bud.LoopSpec(loop_f, lambda r: margins_of_responses(loop_f, r, case.plant.model, case.plant.dead_time_s)) \
         if case.plant else None

@@ -20,7 +20,8 @@ from convert.compare.frequency import hold_and_delay_factor, log_grid, response_
 from convert.compare.loop import (LoopResponse, Margins, default_duration, loop_margins, margin_grid,
                                   margins_of_responses, response_deviation, simulate_loop)
 from convert.compare.rate import RateAdvice, advise
-from convert.compare.verdict import Verdict, judge
+from convert.compare.stability import LoopStability, loop_stability
+from convert.compare.verdict import LOOP_CRITERIA, Verdict, judge
 from convert.controller import Controller
 from convert.errors import InputError, LoopshiftError, UnrealizableError
 
@@ -50,6 +51,7 @@ class Realization:
     figures: dict = field(default_factory=dict)
     band: dict | None = None  # Monte Carlo band for circuits
     files: dict = field(default_factory=dict)  # name -> bytes or text
+    stability: LoopStability | None = None  # closed loop with the plant (None without a plant)
 
 
 @dataclass
@@ -70,6 +72,25 @@ class CaseResults:
     draws: int | None = None
     seed: int | None = None
     evidence: Any = None  # convert.evidence.casework.CaseEvidence
+    source_stability: LoopStability | None = None
+
+    @property
+    def alarms(self) -> list[str]:
+        """Plain sentences for the top of every report: an unstable source loop first, then each
+        unstable target loop (empty when every loop with the plant is stable)."""
+        out = []
+        if self.source_stability is not None and not self.source_stability.acceptable:
+            out.append(_sentence(self.source_stability.message))
+        for r in self.realizations:
+            if r.stability is not None and not r.stability.acceptable:
+                out.append(_sentence(r.stability.message))
+        return out
+
+    def loop_is_stable(self, name: str) -> bool | None:
+        """Stability of the loop of ``name`` ("source" or a realization's name); None if unknown."""
+        s = self.source_stability if name == "source" else next(
+            (r.stability for r in self.realizations if r.name == name), None)
+        return None if s is None else s.stable
 
     @property
     def exit_code(self) -> int:
@@ -118,11 +139,12 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
         analog_src = reduction.reduced  # the targets are built from the card without its parasitics
 
     plant = case.plant
-    src_margins = duration = src_step = src_dist = None
+    src_margins = duration = src_step = src_dist = src_stability = None
     sim_src = None
     if plant is not None:
         src_margins = loop_margins(src, plant.model, plant.dead_time_s)
         sim_src = _simulable(case, src, analog_src, notes)
+        src_stability = _stability(src if src.is_proper else sim_src, plant, 0.0, "the source loop", notes)
         duration = case.signals.duration_s or default_duration(analog_src if analog_src.is_proper else sim_src,
                                                                plant.model, plant.dead_time_s)
         if sim_src is not None:
@@ -141,7 +163,7 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
         realizations += _digital_realizations(case, src, analog_src, band, src_margins, duration, src_step,
                                               src_dist, tick, card_limits=card_limits, reduction=reduction)
         if True:
-            advice = _rate_advice(case, analog_src, src_margins)
+            advice = _rate_advice(case, analog_src, src_margins, src_step, src_dist, duration, src_stability)
         tick("sample-rate advice")
     if case.circuit:
         from convert.compare.circuitwork import circuit_realization
@@ -156,11 +178,21 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
                                            tick=tick)
 
     figures = {}
+    loops: dict[str, LoopStability | None] = {}
+    if plant is not None:
+        loops["source"] = src_stability
     for r in realizations:
         total = next(row for row in r.budget if row.key == "total")
         f = {"max_gain_error_db": total.max_gain_error_db, "max_phase_error_deg": total.max_phase_error_deg}
         if plant is not None:
+            delay = r.details.get("delay_s", 0.0) if r.form == "digital" else 0.0
+            r.stability = _stability(r.controller, plant, delay, f"the loop with {r.name}", notes)
+            loops[r.name] = r.stability
             f.update(_loop_figures(src_margins, r, src_step, src_dist, case))
+            if src_stability is not None and not src_stability.acceptable:
+                for key in LOOP_CRITERIA:
+                    f[key] = None
+                    f[f"{key}_note"] = "the source loop does not work with this plant (unstable or sign-inverted): there is no working loop to compare with"
         figures[r.name] = f
     evidence = None
     if getattr(case, "evidence", None) is not None:
@@ -169,7 +201,7 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
         evidence = run_evidence(case, info, realizations)
         figures.update(evidence.figures)
         notes += evidence.notes
-    verdict = judge(crit.as_dict(), figures, has_plant=plant is not None)
+    verdict = judge(crit.as_dict(), figures, has_plant=plant is not None, loops=loops)
     if evidence is not None:
         verdict = extend_verdict(verdict, evidence.judgements)
     tick("verdict")
@@ -179,7 +211,8 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
     return CaseResults(case=case, source=info, reference=src, band_f_hz=band, realizations=realizations,
                        rate_advice=advice, verdict=verdict, source_margins=src_margins, source_step=src_step,
                        source_disturbance=src_dist, duration_s=duration, skipped=skipped, notes=notes,
-                       draws=circuit_draws, seed=case.circuit.seed if case.circuit else None, evidence=evidence)
+                       draws=circuit_draws, seed=case.circuit.seed if case.circuit else None, evidence=evidence,
+                       source_stability=src_stability)
 
 
 # ----------------------------------------------------------------------------- helpers
@@ -221,6 +254,23 @@ def _simulable(case, src: Controller, analog_src: Controller, notes: list[str]) 
         return filt
     notes.append("the source is improper (pure derivative): its loop cannot be simulated; give a filtered source")
     return None
+
+
+def _stability(controller: Controller | None, plant, delay_s: float, what: str, notes: list[str]) -> LoopStability | None:
+    """Closed-loop stability of ``controller`` with the case's plant (dead time exact), or None
+    with a note when it cannot be decided (an improper loop)."""
+    if controller is None:
+        notes.append(f"the closed-loop stability of {what} could not be checked (improper controller)")
+        return None
+    try:
+        return loop_stability(controller, plant.model, plant.dead_time_s, delay_s=delay_s, what=what)
+    except ValueError as exc:
+        notes.append(f"the closed-loop stability of {what} could not be checked: {exc}")
+        return None
+
+
+def _sentence(text: str) -> str:
+    return text[:1].upper() + text[1:] if text else text
 
 
 def _simulate_pair(case, controller: Controller, duration: float, delay_s: float, limits):
@@ -370,7 +420,8 @@ def _digital_realizations(case, src, analog_src, band, src_margins, duration, sr
     return out
 
 
-def _rate_advice(case, analog_src, src_margins) -> list[RateAdvice]:
+def _rate_advice(case, analog_src, src_margins, src_step=None, src_dist=None, duration=None,
+                 src_stability=None) -> list[RateAdvice]:
     from convert.digital import discretize
 
     tgt = case.digital
@@ -380,12 +431,52 @@ def _rate_advice(case, analog_src, src_margins) -> list[RateAdvice]:
     fc = src_margins.crossover_hz if src_margins else None
 
     def conv(c, fs, m):
-        return discretize(c, fs, m, prewarp_hz=tgt.prewarp_hz).controller
+        cd = discretize(c, fs, m, prewarp_hz=tgt.prewarp_hz).controller
+        if tgt.word_format == "float32":  # as the targets are built
+            b32 = np.asarray(cd.b, dtype=np.float32).astype(float)
+            a32 = np.asarray(cd.a, dtype=np.float32).astype(float)
+            cd = Controller.from_b_a(b32, a32 / a32[0], 1.0 / fs)
+        return cd
 
+    check = None
+    if case.plant is not None and src_margins is not None and (src_stability is None or src_stability.acceptable):
+        check = _rate_loop_check(case, src_margins, src_step, src_dist, duration)
     return [advise(filtered, m, conv, band_hz=crit.band_hz, max_gain_error_db=crit.max_gain_error_db,
                    max_phase_error_deg=crit.max_phase_error_deg, max_lag_deg=lag if fc else None, crossover_hz=fc,
-                   delay_s=tgt.delay_s, delay_samples=tgt.delay_samples)
+                   delay_s=tgt.delay_s, delay_samples=tgt.delay_samples, loop_check=check)
             for m in tgt.methods]
+
+
+def _rate_loop_check(case, src_margins, src_step, src_dist, duration):
+    """The verdict's loop criteria for one candidate digital controller (for the rate advice):
+    closed-loop stability, margin changes and, when set, step and disturbance deviations."""
+    import types
+
+    from convert.compare.verdict import CRITERIA
+
+    plant = case.plant
+    crit = case.criteria.as_dict()
+    wanted = [(key, label) for key, label, _ in CRITERIA if key in LOOP_CRITERIA and crit.get(key) is not None]
+    needs_sim = any(key in ("max_step_deviation", "max_disturbance_deviation") for key, _ in wanted)
+    limits = case.digital.output_limits or case.signals.output_range
+    no_percentile = types.SimpleNamespace(key="total", percentile=None)
+
+    def check(digital: Controller, delay: float) -> list[str]:
+        if not loop_stability(digital, plant.model, plant.dead_time_s, delay_s=delay).acceptable:
+            return ["closed-loop stability"]
+        if not wanted:
+            return []
+        r = Realization(name="candidate", form="digital", controller=digital, details={}, budget=[no_percentile],
+                        seen=lambda f: f, margins=loop_margins(digital, plant.model, plant.dead_time_s, delay_s=delay))
+        if needs_sim and duration is not None:
+            try:
+                r.step, r.disturbance = _simulate_pair(case, digital, duration, delay, limits)
+            except InputError:
+                pass  # a simulation too long for this rate: judged on the other criteria
+        figures = _loop_figures(src_margins, r, src_step, src_dist, case)
+        return [label for key, label in wanted if figures.get(key) is not None and abs(figures[key]) > crit[key]]
+
+    return check
 
 
 def _loop_figures(src_m: Margins, r: Realization, src_step, src_dist, case) -> dict:

@@ -6,10 +6,15 @@ Two figures per method:
   phase lag at the crossover frequency ω_c of about ``ω_c·(T/2 + t_d)`` radians. Keeping that
   lag within ``φ_max`` needs ``T ≤ 2·(φ_max/ω_c − t_d)``, i.e. ``fs ≥ 1/T``. It ignores the
   method's own error and needs a plant (for ω_c).
-* **checked**: the lowest rate on a log scan (``points`` rates from just above twice the band's
-  top to ``max_ratio`` times it) from which every higher scanned rate keeps the digital
-  controller, as seen from the loop (method + hold + computation delay), within the case's max
-  gain and phase error over the band, and the phase lag it adds at crossover within the limit.
+* **checked**: the lowest rate that keeps the digital controller, as seen from the loop
+  (method + hold + computation delay), within the case's max gain and phase error over the band,
+  and, with a plant, within the loop criteria the verdict checks (``loop_check``: margin changes,
+  step and disturbance deviations; without one, the phase lag it adds at crossover within the
+  limit). A log scan (``points`` rates from just above twice the band's top to ``max_ratio``
+  times it) finds the lowest scanned rate from which every higher scanned rate passes; a
+  bisection in log f between it and the failing rate below then narrows the boundary to
+  ``rel_tol`` (default 0.5 %), and the passing end is the advice: the lowest rate that passes,
+  to within 1 %.
 """
 
 from __future__ import annotations
@@ -55,22 +60,35 @@ def rule_min_fs(crossover_hz: float | None, max_lag_deg: float | None, delay_s: 
 def advise(source: Controller, method: str, discretize: Callable[[Controller, float, str], Controller], *,
            band_hz: tuple[float, float], max_gain_error_db: float | None, max_phase_error_deg: float | None,
            max_lag_deg: float | None, crossover_hz: float | None, delay_s: float = 0.0,
-           delay_samples: float | None = None, points: int = 40, max_ratio: float = 2000.0) -> RateAdvice:
-    """Scan sample rates for ``method``. ``discretize(controller, fs_hz, method)`` returns the
-    digital controller; ``delay_samples`` (if given) scales the delay with the rate."""
-    f = log_grid(band_hz[0], band_hz[1], 50)
+           delay_samples: float | None = None, points: int = 40, max_ratio: float = 2000.0,
+           loop_check: Callable[[Controller, float], list[str]] | None = None,
+           rel_tol: float = 0.005, points_per_decade: int = 100) -> RateAdvice:
+    """The lowest sample rate (Hz) for ``method`` that passes. ``discretize(controller, fs_hz,
+    method)`` returns the digital controller; ``delay_samples`` (if given) scales the delay with
+    the rate. ``loop_check(digital, delay_s)`` (optional) returns the names of the loop criteria
+    that digital controller fails; when given it replaces the phase-lag rule at crossover."""
+    from convert.compare.loop import one_blas_thread
+
+    with one_blas_thread():  # small matrices (discretizations, loop checks): one BLAS thread is faster
+        return _advise(source, method, discretize, band_hz, max_gain_error_db, max_phase_error_deg, max_lag_deg,
+                       crossover_hz, delay_s, delay_samples, points, max_ratio, loop_check, rel_tol,
+                       points_per_decade)
+
+
+def _advise(source, method, discretize, band_hz, max_gain_error_db, max_phase_error_deg, max_lag_deg,
+            crossover_hz, delay_s, delay_samples, points, max_ratio, loop_check, rel_tol,
+            points_per_decade) -> RateAdvice:
+    f = log_grid(band_hz[0], band_hz[1], points_per_decade)
     ref = source.frequency_response(f, via="zpk")
-    rates = np.logspace(math.log10(2.05 * band_hz[1]), math.log10(max_ratio * band_hz[1]), points)
-    ok = []
-    limits = []
-    for fs in rates:
+
+    def failures(fs: float, full: bool) -> list[str]:
+        """The criteria the digital controller at ``fs`` fails: gain and phase errors (and, without
+        a loop check, the lag rule at crossover); with ``full`` also the loop check."""
         d = delay_samples / fs if delay_samples is not None else delay_s
         try:
             digital = discretize(source, float(fs), method)
         except Exception:  # a method refusing a rate (e.g. unstable mapping) simply fails this rate
-            ok.append(False)
-            limits.append("conversion refused")
-            continue
+            return ["conversion refused"]
         cand = response_seen_from_loop(digital, f, delay_s=d, via="zpk")
         err = compare_responses(ref, cand, f)
         why = []
@@ -78,25 +96,47 @@ def advise(source: Controller, method: str, discretize: Callable[[Controller, fl
             why.append("gain error")
         if max_phase_error_deg is not None and err.max_phase_error_deg > max_phase_error_deg:
             why.append("phase error")
-        if max_lag_deg is not None and crossover_hz:
+        if loop_check is None and max_lag_deg is not None and crossover_hz:
             at = np.array([crossover_hz])
             lag = -np.degrees(np.angle(response_seen_from_loop(digital, at, delay_s=d, via="zpk")[0]
                                        / source.frequency_response(at, via="zpk")[0]))
             if lag > max_lag_deg:
                 why.append("phase lag at crossover")
-        ok.append(not why)
-        limits.append(", ".join(why))
-    ok_arr = np.array(ok)
+        if full and loop_check is not None and not why:
+            why += loop_check(digital, d)
+        return why
+
+    rates = np.logspace(math.log10(2.05 * band_hz[1]), math.log10(max_ratio * band_hz[1]), points)
+    limits = [", ".join(failures(float(fs), full=False)) for fs in rates]
+    ok_arr = np.array([not x for x in limits])
     checked = None
     limiting = "no criterion limits the rate in the scanned range"
-    # lowest index from which every higher rate passes
-    for i in range(len(rates)):
-        if ok_arr[i:].all():
-            checked = float(rates[i])
-            if i > 0:
-                limiting = limits[i - 1] or limiting
-            break
-    if checked is None:
+    # the lowest scanned rate from which every higher scanned rate passes the band criteria ...
+    start = next((i for i in range(len(rates)) if ok_arr[i:].all()), None)
+    if start is not None and loop_check is not None:
+        # ... then up from there until the loop criteria pass too (they are costlier to check)
+        while start < len(rates):
+            why = failures(float(rates[start]), full=True)
+            if not why:
+                break
+            limits[start] = ", ".join(why)
+            start += 1
+        if start == len(rates):
+            start = None
+    if start is not None:
+        checked = float(rates[start])
+        if start > 0:
+            limiting = limits[start - 1] or limiting
+            lo, hi = float(rates[start - 1]), checked
+            while hi / lo > 1 + rel_tol:  # bisection in log f: lo fails, hi passes
+                mid = math.sqrt(lo * hi)
+                why = failures(mid, full=True)
+                if why:
+                    lo, limiting = mid, ", ".join(why)
+                else:
+                    hi = mid
+            checked = hi
+    else:
         limiting = limits[-1] or "every scanned rate fails"
     rule = rule_min_fs(crossover_hz, max_lag_deg, delay_s if delay_samples is None else 0.0)
     if rule is not None and delay_samples is not None:

@@ -19,6 +19,13 @@ verdict is:
   all) has not one criterion that was actually checked: nothing was shown, so it is not a pass
   (exit code 1, like a failure; see docs/report.md);
 * ``"pass"`` otherwise: every realization passed at least one checked criterion and none failed.
+
+With a plant, every loop (the source's and each realization's) is also judged on closed-loop
+stability (``closed_loop_stable``, always checked, no limit): an unstable or marginal loop, or
+one with positive feedback at low frequency on a plant that is stable on its own (the action or
+the plant's gain sign inverted), fails the verdict whatever the other figures say
+(:mod:`convert.compare.stability`). It does not count as a checked criterion for the "unchecked"
+rule: it says the loop works, not that the new form does what the old one did.
 """
 
 from __future__ import annotations
@@ -76,12 +83,12 @@ class Verdict:
         checked, and what was skipped for each."""
         if self.overall != "unchecked":
             return ""
-        names = list(dict.fromkeys(j.realization for j in self.judgements))
+        names = list(dict.fromkeys(j.realization for j in self.judgements if j.criterion != "closed_loop_stable"))
         if not names:
             return "no new form was built, so no criterion was checked"
         bits = []
         for name in names:
-            mine = [j for j in self.judgements if j.realization == name]
+            mine = [j for j in self.judgements if j.realization == name and j.criterion != "closed_loop_stable"]
             if any(j.status == "pass" for j in mine):
                 continue
             skipped = [f"{j.label} ({j.note})" for j in mine if j.status == "skipped"]
@@ -93,11 +100,28 @@ class Verdict:
                 "failures": [j.as_dict() for j in self.failures], "unchecked_reason": self.unchecked_reason}
 
 
-def judge(criteria: dict, figures: dict[str, dict], *, has_plant: bool) -> Verdict:
+def stability_judgements(loops: dict) -> list[Judgement]:
+    """One "closed-loop stability" judgement per loop: ``loops`` maps a loop's name ("source" or
+    a realization) to an object with ``stable`` and ``message``/``method`` (or None: not decided,
+    "skipped")."""
+    out = []
+    for name, s in loops.items():
+        if s is None:
+            out.append(Judgement(name, "closed_loop_stable", "closed-loop stability", "", None, None, "skipped",
+                                 "could not be decided"))
+            continue
+        ok = getattr(s, "acceptable", s.stable)
+        status = "pass" if ok else "fail"
+        note = s.message if not ok else f"stable ({s.method})"
+        out.append(Judgement(name, "closed_loop_stable", "closed-loop stability", "", None, None, status, note))
+    return out
+
+
+def judge(criteria: dict, figures: dict[str, dict], *, has_plant: bool, loops: dict | None = None) -> Verdict:
     """``criteria``: criterion key -> limit or None. ``figures``: realization name -> {criterion
     key -> measured value (absolute, same unit as the limit) or None when unavailable, and
-    optionally ``"<key>_note"`` -> text}."""
-    out = []
+    optionally ``"<key>_note"`` -> text}. ``loops``: see :func:`stability_judgements`."""
+    out = stability_judgements(loops or {})
     for name, values in figures.items():
         for key, label, unit in CRITERIA:
             limit = criteria.get(key)
@@ -118,7 +142,9 @@ def judge(criteria: dict, figures: dict[str, dict], *, has_plant: bool) -> Verdi
             out.append(Judgement(name, key, label, unit, limit, None if value is None else abs(value), status, note))
     if any(j.status == "fail" for j in out):
         overall = "fail"
-    elif not figures or any(not any(j.status == "pass" for j in out if j.realization == name) for name in figures):
+    elif not figures or any(not any(j.status == "pass" for j in out
+                                    if j.realization == name and j.criterion != "closed_loop_stable")
+                            for name in figures):
         overall = "unchecked"
     else:
         overall = "pass"

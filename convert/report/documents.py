@@ -37,6 +37,7 @@ th{background:#eaf2f8;text-align:left}.pass{color:#1e8449;font-weight:600}.fail{
 .verdict{font-size:1.3em;padding:.4em .8em;display:inline-block;border-radius:4px}
 .verdict.pass{background:#d5f5e3}.verdict.fail{background:#fadbd8}.verdict.unchecked{background:#fdebd0}
 ul.failed{color:#c0392b;margin:.3em 0 1em}
+.alarm{background:#fadbd8;border-left:6px solid #c0392b;padding:.6em 1em;font-weight:600}
 .caution{background:#fef9e7;border-left:4px solid #b7950b;padding:.5em 1em}
 p.note{font-size:.85em;color:#444;max-width:60em}
 figure{margin:1em 0}figcaption{font-size:.85em;color:#555}img{max-width:100%}
@@ -68,6 +69,8 @@ def html_report(results, figures: dict[str, bytes]) -> str:
     parts = ["<!DOCTYPE html>", '<html lang="en"><head><meta charset="utf-8">',
              f"<title>loopshift report — {html.escape(case.title)}</title>", f"<style>{_CSS}</style></head><body>",
              f"<h1>Equivalence report — {html.escape(case.title)}</h1>"]
+    for alarm in results.alarms:
+        parts.append(f'<p class="alarm" role="alert">{html.escape(alarm)}</p>')
     if case.description:
         parts.append(f"<p>{html.escape(case.description)}</p>")
     parts.append(f'<p class="verdict {v}">Verdict: {v.upper()}</p>')
@@ -112,6 +115,8 @@ def markdown_report(results, figure_names=()) -> str:
     """The report as Markdown; figures are referenced as ``figures/<name>.png`` files."""
     case = results.case
     lines = [f"# Equivalence report — {case.title}", ""]
+    for alarm in results.alarms:
+        lines += [f"> **Warning: {alarm}**", ""]
     if case.description:
         lines += [case.description, ""]
     lines += [f"**Verdict: {results.verdict.overall.upper()}**", ""]

@@ -35,7 +35,8 @@ def results_dict(results) -> dict:
             "details": r.details,
             "warnings": r.warnings,
             "budget": [row.as_dict() for row in r.budget],
-            "loop": {"margins": _margins(r.margins), "step": _response_summary(r.step),
+            "loop": {"stability": None if r.stability is None else r.stability.as_dict(),
+                     "margins": _margins(r.margins), "step": _response_summary(r.step),
                      "disturbance": _response_summary(r.disturbance)},
             "files": sorted(r.files),
         })
@@ -54,6 +55,8 @@ def results_dict(results) -> dict:
         "loop_check": {
             "plant": None if results.case.plant is None else {"model": results.case.plant.expression,
                                                               "dead_time_s": results.case.plant.dead_time_s},
+            "source_stability": (None if results.source_stability is None
+                                 else results.source_stability.as_dict()),
             "source_margins": _margins(results.source_margins),
             "duration_s": results.duration_s,
             "source_step": _response_summary(results.source_step),

@@ -97,6 +97,9 @@ def failing_criteria(results) -> list[str]:
     printed beside a FAIL banner; empty when nothing failed."""
     out = []
     for j in results.verdict.failures:
+        if j.limit is None:  # a check without a limit (closed-loop stability): its first words say it
+            out.append(f"{j.realization}: {j.label}: {j.note.split(': ')[0]}")
+            continue
         unit = j.unit
         limit = fixed(100 * j.limit, f"% {unit}") if unit in ("of step", "of peak") else fixed(j.limit, unit)
         out.append(f"{j.realization}: {j.label} {_measured(j.value, unit)} > limit {limit}"
@@ -110,6 +113,12 @@ def verdict_table(results) -> Table:
         if j.status == "not set":
             continue
         unit = j.unit
+        if j.criterion == "closed_loop_stable":  # a check without a number: say what was found
+            found = {"pass": "stable", "skipped": "—"}.get(
+                j.status, "sign inverted" if "negative low-frequency" in j.note else "unstable")
+            rows.append([j.realization, j.label, found, "stable, right sign",
+                         j.status.upper() if j.status == "fail" else j.status, "", j.note])
+            continue
         limit = fixed(100 * j.limit, f"% {unit}") if unit in ("of step", "of peak", "of range") else fixed(j.limit, unit)
         rows.append([j.realization, j.label, _measured(j.value, unit), limit,
                      j.status.upper() if j.status == "fail" else j.status,
@@ -118,9 +127,11 @@ def verdict_table(results) -> Table:
             rows)
 
 
-def budget_table(realization) -> Table:
+def budget_table(realization, loops_stable: bool = True) -> Table:
     """The budget of one realization. Rows that cannot arise in this kind of target are left
-    out (:func:`table_note` says which); rows that could arise but were not switched on stay."""
+    out (:func:`table_note` says which); rows that could arise but were not switched on stay.
+    ``loops_stable`` False (the source's or this realization's loop is unstable): the margin
+    changes are left out, since margins of an unstable loop say nothing of robustness."""
     rows = []
     for row in realization.budget:
         if not row.applicable:
@@ -129,9 +140,10 @@ def budget_table(realization) -> Table:
             rows.append([row.label, "not applicable", "", "", "", "", row.note.replace("not applicable: ", "")])
             continue
         pct = f" (p{row.percentile:g} of draws)" if row.percentile else ""
+        loop = ([fixed(row.delta_phase_margin_deg, "°"), fixed(row.delta_gain_margin_db, "dB"),
+                 fixed(row.delta_sensitivity_peak_db, "dB")] if loops_stable else ["unstable loop", "—", "—"])
         rows.append([row.label + pct, fixed(row.max_gain_error_db, "dB"), fixed(row.max_phase_error_deg, "°"),
-                     fixed(row.delta_phase_margin_deg, "°"), fixed(row.delta_gain_margin_db, "dB"),
-                     fixed(row.delta_sensitivity_peak_db, "dB"), row.note])
+                     *loop, row.note])
     return (f"Error budget — {realization.name}",
             ["source of error", "max gain error", "max phase error", "Δ phase margin", "Δ gain margin",
              "Δ sensitivity peak", "what was switched on"], rows)
@@ -146,9 +158,17 @@ def margins_table(results) -> Table | None:
         if m is None:
             rows.append([name, "—", "—", "—", "—", "—", "—"])
             continue
+        if results.loop_is_stable(name) is False:  # margins of an unstable loop are no robustness
+            rows.append([name, "unstable loop", "—", "unstable loop", "—", "—", "—"])
+            continue
+        peak = fixed(m.sensitivity_peak_db, "dB", floor=0.01)
+        note = getattr(m, "sensitivity_peak_note", "")
+        if note:  # no interior peak: say where |S| is largest instead of quoting a grid's end
+            where = ("at zero frequency" if "zero frequency" in note else
+                     "at the Nyquist frequency" if "Nyquist" in note else "as f → ∞")
+            peak = f"{peak} ({where}; no interior peak)"
         rows.append([name, fixed(m.gain_margin_db, "dB", floor=0.01), hz(m.phase_crossover_hz),
-                     fixed(m.phase_margin_deg, "°", floor=0.01), hz(m.crossover_hz),
-                     fixed(m.sensitivity_peak_db, "dB", floor=0.01), f"{m.ms:.2f}"])
+                     fixed(m.phase_margin_deg, "°", floor=0.01), hz(m.crossover_hz), peak, f"{m.ms:.2f}"])
     return ("Loop checks (margins with the plant, dead time exact)",
             ["form", "gain margin", "at (phase −180°)", "phase margin", "crossover (|L| = 1)",
              "sensitivity peak", "Ms = max |S|"], rows)
@@ -160,7 +180,7 @@ def rate_table(results) -> Table | None:
     rows = [[a.method, hz(a.checked_fs_hz) if a.checked_fs_hz else "none in scan",
              hz(a.rule_fs_hz) if a.rule_fs_hz else "—", a.limiting,
              f"{hz(a.scanned_hz[0])} – {hz(a.scanned_hz[1])}"] for a in results.rate_advice]
-    return ("Sample-rate advice", ["method", "lowest rate within criteria (checked)", "rule of thumb",
+    return ("Sample-rate advice", ["method", "lowest rate that passes (checked, within 1 %)", "rule of thumb",
                                    "limiting criterion below it", "scanned"], rows)
 
 
@@ -179,7 +199,8 @@ def realization_table(results) -> Table:
 
 def all_tables(results) -> list[Table]:
     out = [verdict_table(results), realization_table(results)]
-    out += [budget_table(r) for r in results.realizations]
+    src_ok = results.loop_is_stable("source") is not False
+    out += [budget_table(r, src_ok and results.loop_is_stable(r.name) is not False) for r in results.realizations]
     for t in (margins_table(results), rate_table(results)):
         if t is not None:
             out.append(t)
