@@ -90,3 +90,38 @@ def test_budget_row_of_many_draws_reports_phase_error_past_180_degrees():
     cand = np.array([np.exp(-2j * np.pi * f * tau) for tau in (0.002, 0.003, 0.004)])
     row = error_row("tolerances", f, ref, cand, note="test", percentile=100.0)
     assert row.max_phase_error_deg == pytest.approx(288.0, rel=1e-9)
+
+
+def test_undecided_loop_stability_is_never_a_pass():
+    """A loop whose stability could not be decided (None) makes the verdict UNCHECKED, not PASS,
+    even when every error criterion passes (house rule: a verdict cannot pass what it did not check)."""
+    from convert.compare.verdict import judge
+
+    figures = {"tustin @ 10 Hz": {"max_gain_error_db": 0.1, "max_phase_error_deg": 1.0}}
+    criteria = {"max_gain_error_db": 1.0, "max_phase_error_deg": 5.0}
+    decided = judge(criteria, figures, has_plant=True, loops={})
+    assert decided.overall == "pass"
+    undecided = judge(criteria, figures, has_plant=True, loops={"source": None})
+    assert undecided.overall == "unchecked"
+    assert "could not be decided" in undecided.unchecked_reason
+
+
+def test_compare_with_an_unstable_loop_fails_and_hides_margins(run_cli):
+    """`compare` with a plant that the (same) controller destabilizes: FAIL, exit 1, the loop named
+    unstable before the figures, margins not printed as numbers. Reference for instability:
+    python-control closed-loop poles of the same loop with a 12th-order Padé dead time."""
+    import control
+    import numpy as np
+
+    c = control.tf([80 * 120, 80], [120, 0])
+    p = control.tf([0.04], [15, 1, 0])
+    num, den = control.pade(2.0, 12)
+    cl = control.feedback(c * p * control.tf(num, den), 1)
+    assert np.any(np.real(control.poles(cl)) > 0)  # the reference says: unstable
+
+    res = run_cli("compare", "pid: kc=80 ti=2min", "pid: kc=80 ti=2min fs=10Hz", "--plant", "0.04/(s*(15*s + 1))",
+                  "--dead-time", "2s")
+    assert res.code == 1
+    first = res.out.splitlines()[0]
+    assert "unstable" in first
+    assert "unstable loop" in res.out and "verdict: FAIL" in res.out

@@ -440,6 +440,8 @@ def _render(console, result) -> None:
 
     res = result.results
     r = result.realization
+    for alarm in res.alarms:  # an unstable or sign-inverted loop comes before any figure
+        console.print(f"LOOP NOT WORKING: {alarm}", markup=False, style="bold red")
     console.print(f"A (reference): {_what(result.a, describe)}", markup=False)
     console.print(f"B (checked):   {_what(result.b, describe)}", markup=False)
     console.print(f"band {hz(result.band_hz[0])} .. {hz(result.band_hz[1])}"
@@ -476,8 +478,11 @@ def _render(console, result) -> None:
                    pad_edge=False)
         for name in ("form", "gain margin", "phase margin", "crossover", "sensitivity peak"):
             mt.add_column(name, justify="right" if name != "form" else "left", no_wrap=True)
-        for label, m in (("A", res.source_margins), ("B", r.margins)):
+        for label, m, name in (("A", res.source_margins, "source"), ("B", r.margins, r.name)):
             if m is None:
+                continue
+            if res.loop_is_stable(name) is False:  # margins of an unstable loop are not robustness
+                mt.add_row(label, "unstable loop", "—", "—", "—")
                 continue
             mt.add_row(label, "none" if m.gain_margin_db is None else f"{m.gain_margin_db:.3g} dB",
                        "none" if m.phase_margin_deg is None else f"{m.phase_margin_deg:.3g} deg",
@@ -488,6 +493,12 @@ def _render(console, result) -> None:
         vt.add_column(name, no_wrap=True)
     for j in res.verdict.judgements:
         if j.status == "not set":
+            continue
+        if j.criterion == "closed_loop_stable":  # a check without a number
+            found = {"pass": "stable", "skipped": "not decided"}.get(
+                j.status, "sign inverted" if "negative low-frequency" in j.note else "unstable")
+            which = "A" if j.realization == "source" else "B"
+            vt.add_row(f"loop with {which}", found, "stable", j.status.upper() if j.status == "fail" else j.status)
             continue
         value = "—" if j.value is None else _fmt(j.value, j.unit)
         vt.add_row(j.label, value, _fmt(j.limit, j.unit), j.status.upper() if j.status == "fail" else j.status)

@@ -144,7 +144,10 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
     if plant is not None:
         src_margins = loop_margins(src, plant.model, plant.dead_time_s)
         sim_src = _simulable(case, src, analog_src, notes)
-        src_stability = _stability(src if src.is_proper else sim_src, plant, 0.0, "the source loop", notes)
+        # an improper source (an unfiltered PID) still makes a proper loop with a strictly proper plant:
+        # decide on the source itself where the loop allows it, else on its simulated (filtered) form
+        src_stability = _stability(src if src.is_proper or _loop_is_proper(src, plant.model) else sim_src, plant,
+                                   0.0, "the source loop", notes)
         duration = case.signals.duration_s or default_duration(analog_src if analog_src.is_proper else sim_src,
                                                                plant.model, plant.dead_time_s)
         if sim_src is not None:
@@ -267,6 +270,11 @@ def _stability(controller: Controller | None, plant, delay_s: float, what: str, 
     except ValueError as exc:
         notes.append(f"the closed-loop stability of {what} could not be checked: {exc}")
         return None
+
+
+def _loop_is_proper(controller: Controller, plant: Controller) -> bool:
+    """Controller times plant has no more zeros than poles (the loop's own properness)."""
+    return controller.relative_degree + plant.relative_degree >= 0
 
 
 def _sentence(text: str) -> str:

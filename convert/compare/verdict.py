@@ -83,6 +83,12 @@ class Verdict:
         checked, and what was skipped for each."""
         if self.overall != "unchecked":
             return ""
+        undecided = [j.realization for j in self.judgements
+                     if j.criterion == "closed_loop_stable" and j.status == "skipped"]
+        if undecided:
+            return ("the closed-loop stability of " + ", ".join(f"the {n} loop" if n == "source" else repr(n)
+                                                                for n in undecided)
+                    + " could not be decided, so no verdict can pass")
         names = list(dict.fromkeys(j.realization for j in self.judgements if j.criterion != "closed_loop_stable"))
         if not names:
             return "no new form was built, so no criterion was checked"
@@ -142,6 +148,8 @@ def judge(criteria: dict, figures: dict[str, dict], *, has_plant: bool, loops: d
             out.append(Judgement(name, key, label, unit, limit, None if value is None else abs(value), status, note))
     if any(j.status == "fail" for j in out):
         overall = "fail"
+    elif any(j.criterion == "closed_loop_stable" and j.status == "skipped" for j in out):
+        overall = "unchecked"  # a loop whose stability could not be decided is never a pass
     elif not figures or any(not any(j.status == "pass" for j in out
                                     if j.realization == name and j.criterion != "closed_loop_stable")
                             for name in figures):
