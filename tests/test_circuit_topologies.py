@@ -126,3 +126,22 @@ def test_two_input_paths_reproduce_setpoint_weights():
     f = np.logspace(-2, 2, 30)
     assert np.allclose(paths["measurement"].frequency_response(f), s.to_controller().frequency_response(f))
     assert np.allclose(paths["setpoint"].frequency_response(f), s.setpoint_controller().frequency_response(f))
+
+
+def test_every_file_in_the_folder_is_in_the_catalog():
+    """Adding a topology is adding a file: every topology file in convert/circuit/topologies/
+    defines one TOPOLOGY, and the registry lists each exactly once (common practice: a plugin
+    folder and its registry must not drift apart)."""
+    import importlib
+    import pkgutil
+
+    import convert.circuit.topologies as pkg
+
+    helpers = {"model", "networks", "shared"}
+    files = sorted(m.name for m in pkgutil.iter_modules(pkg.__path__) if m.name not in helpers)
+    registered = sorted(m.__name__.rsplit(".", 1)[1] for m in pkg.CATALOG_ORDER)
+    assert files == registered
+    for name in files:
+        topo = importlib.import_module(f"convert.circuit.topologies.{name}").TOPOLOGY
+        assert TOPOLOGIES[topo.name] is topo
+        assert topo.name.replace("-", "_") == name  # the file is named after the topology
