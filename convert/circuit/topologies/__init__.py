@@ -16,7 +16,7 @@ in this folder imports them.
 
 from __future__ import annotations
 
-from convert.circuit.topologies import (difference_error, first_order_lag, integrator_rc, inverting_gain,
+from convert.circuit.topologies import (biquad_tow_thomas, difference_error, first_order_lag, integrator_rc, inverting_gain,
                                         lead_lag_rc, pd_limited, pi_rc_feedback, pid_parallel, pid_single_amp,
                                         pid_two_input, unity_inverter)
 from convert.circuit.topologies.model import (TargetShape, Topology, analyse_target, node_responses, output_node,
@@ -26,7 +26,8 @@ from convert.circuit.topologies.shared import RSUM, pid_parameters_from_coeffici
 from convert.errors import InputError
 
 CATALOG_ORDER = (unity_inverter, inverting_gain, integrator_rc, first_order_lag, pi_rc_feedback, pd_limited,
-                 lead_lag_rc, pid_single_amp, pid_parallel, pid_two_input, difference_error)
+                 lead_lag_rc, pid_single_amp, pid_parallel, biquad_tow_thomas, pid_two_input,
+                 difference_error)
 """The topology modules in catalog order: by amplifiers, then parts (single-input stages first)."""
 
 TOPOLOGIES: dict[str, Topology] = {m.TOPOLOGY.name: m.TOPOLOGY for m in CATALOG_ORDER}
