@@ -28,7 +28,7 @@ PARTS = {
                       "R11": 10e3, "R12": 10e3, "R13": 10e3, "R14": 10e3},
     "difference-error": {"R1": 10e3, "R2": 47e3, "R3": 10e3, "R4": 47e3},
     # optional R7 left open (not fitted): the positive-s feed-forward R6 is used instead
-    "biquad-tow-thomas": {"C1": 1e-6, "C2": 1e-6, "R1": 82e3, "R2": 15e3, "R3": 15e3, "R4": 10e3, "R5": 10e3,
+    "tow-thomas": {"C1": 1e-6, "C2": 1e-6, "R1": 82e3, "R2": 15e3, "R3": 15e3, "R4": 10e3, "R5": 10e3,
                           "R6": 150e3, "R7": float("inf"), "R8": 33e3, "C3": 470e-9},
 }
 

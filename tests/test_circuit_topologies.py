@@ -159,7 +159,7 @@ def test_biquad_design_equations_against_lcapy(expr):
     lcapy = pytest.importorskip("lcapy")
     import sympy
 
-    topo = get_topology("biquad-tow-thomas")
+    topo = get_topology("tow-thomas")
     target = from_expression(expr)
     params = topo.fit(target)[0]
     parts = {k: float(v) for k, v in topo.solve(params, {"C1": np.asarray(1e-6)}).items()}

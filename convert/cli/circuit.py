@@ -50,8 +50,13 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    help="method bringing a digital controller back to analog: tustin (default), zoh, matched or "
                         "backward-euler, e.g. --inverse-method zoh")
     p.add_argument("--topology", default="auto", metavar="NAME",
-                   help="catalog topology, or auto for the simplest that realizes the controller exactly "
-                        "(default auto), e.g. --topology pid-parallel; see --catalog")
+                   help="catalog topology, cascade (a chain of catalog stages for any proper, stable or "
+                        "integrating controller), or auto for the simplest single stage that realizes the "
+                        "controller exactly and else a cascade (default auto), e.g. --topology pid-parallel; "
+                        "see --catalog")
+    p.add_argument("--max-opamps", type=int, metavar="N",
+                   help="at most N op-amps (a cascade's stages and any inverter); with auto, a catalog stage over "
+                        "the cap gives way to a cascade, e.g. --max-opamps 3")
     p.add_argument("--catalog", action="store_true", help="list the catalog of topologies and exit, e.g. --catalog")
     p.add_argument("--resistors", default="E96", metavar="SERIES",
                    help="IEC 60063 series for resistors (E3 E6 E12 E24 E48 E96 E192; default E96), e.g. --resistors E24")
@@ -176,7 +181,7 @@ def run(args, console) -> int:
                "method": "--inverse-method", "resistor maximum": "--r-max", "resistor minimum": "--r-min",
                "capacitor maximum": "--c-max", "capacitor minimum": "--c-min", "resistors": "--resistors",
                "capacitors": "--capacitors", "band": "--band", "derivative filter": "--derivative-filter",
-               "draws": "--draws", "opamp gbw": "--opamp-gbw"}
+               "draws": "--draws", "opamp gbw": "--opamp-gbw", "max opamps": "--max-opamps"}
     with at(None, rename=renames):
         options = DesignOptions(topology=args.topology, resistors=args.resistors, capacitors=args.capacitors,
                                 r_min=positive_value(args.r_min, "ohm", "--r-min"),
@@ -185,7 +190,7 @@ def run(args, console) -> int:
                                 c_max=positive_value(args.c_max, "farad", "--c-max"),
                                 band_hz=band,
                                 derivative_filter_n=positive_value(args.derivative_filter, "number", "--derivative-filter"),
-                                inverse_method=args.inverse_method, top=args.top)
+                                inverse_method=args.inverse_method, top=args.top, max_opamps=args.max_opamps)
     _check_outputs(args)
     opamp = OpAmpModel(positive_value(args.opamp_gbw, "hz", "--opamp-gbw")) if args.opamp_gbw else None
     amplitude = positive_value(args.amplitude, "volt", "--amplitude") if args.amplitude else None
@@ -255,6 +260,9 @@ def run(args, console) -> int:
         "seed": args.seed,
         "series": {"resistors": options.resistors, "capacitors": options.capacitors},
     }
+    if design.cascade is not None:
+        data["cascade"] = {"stages": design.cascade.summary(), "opamps": design.cascade.total_amplifiers,
+                           "noise_gain": design.cascade.noise_gain}
     if args.json:
         emit_json(console, data)
         return 0

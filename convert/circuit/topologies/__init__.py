@@ -16,9 +16,9 @@ in this folder imports them.
 
 from __future__ import annotations
 
-from convert.circuit.topologies import (biquad_tow_thomas, difference_error, first_order_lag, integrator_rc, inverting_gain,
+from convert.circuit.topologies import (difference_error, first_order_lag, integrator_rc, inverting_gain,
                                         lead_lag_rc, pd_limited, pi_rc_feedback, pid_parallel, pid_single_amp,
-                                        pid_two_input, unity_inverter)
+                                        pid_two_input, tow_thomas, unity_inverter)
 from convert.circuit.topologies.model import (TargetShape, Topology, analyse_target, node_responses, output_node,
                                               polyval_many)
 from convert.circuit.topologies.networks import C, R, Parallel, Part, Series, Stage, impedance, is_open, network_parts
@@ -26,7 +26,7 @@ from convert.circuit.topologies.shared import RSUM, pid_parameters_from_coeffici
 from convert.errors import InputError
 
 CATALOG_ORDER = (unity_inverter, inverting_gain, integrator_rc, first_order_lag, pi_rc_feedback, pd_limited,
-                 lead_lag_rc, pid_single_amp, pid_parallel, biquad_tow_thomas, pid_two_input,
+                 lead_lag_rc, pid_single_amp, pid_parallel, tow_thomas, pid_two_input,
                  difference_error)
 """The topology modules in catalog order: by amplifiers, then parts (single-input stages first)."""
 

@@ -1,4 +1,4 @@
-"""biquad-tow-thomas: any second-order section (n2·s² + n1·s + n0)/(s² + a1·s + a0) on three op-amps.
+"""tow-thomas: any second-order section (n2·s² + n1·s + n0)/(s² + a1·s + a0) on three op-amps.
 
 Circuit: the Tow–Thomas biquad — a damped integrator, an integrator and a unity inverter in one
 loop (J. Tow, "Active RC filters — a state-space realization", Proc. IEEE 56, 1968, pp. 1137–1139;
@@ -92,7 +92,7 @@ def solve(q, f):
 
 
 TOPOLOGY = Topology(
-    name="biquad-tow-thomas",
+    name="tow-thomas",
     description="Tow–Thomas biquad with feed-forward: integrator, inverter and damped integrator in one loop",
     parts=(Part("C1", "C", "damped integrator capacitor (U3)"),
            Part("R1", "R", "damping resistor (a1 = 1/(R1·C1))"),
