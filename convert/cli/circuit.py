@@ -92,6 +92,10 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    help="candidate part sets to list (default 5, 1 to 100), e.g. --top 3")
     p.add_argument("--netlist", metavar="FILE", help="write a SPICE netlist realizing +C(s) from in to out, e.g. --netlist pid.cir")
     p.add_argument("--bom", metavar="FILE", help="write the bill of materials as CSV, e.g. --bom pid.csv")
+    p.add_argument("--buy-list", metavar="FILE",
+                   help="write the bill of materials a buyer orders from (grouped lines, ratings from --rail and "
+                        "--amplitude, op-amp requirements, a tighter tolerance for a dominant part) as ASCII CSV, "
+                        "or as JSON when FILE ends in .json, e.g. --buy-list order.csv")
     p.add_argument("--schematic", metavar="FILE", help="draw the schematic (.png or .svg), e.g. --schematic pid.svg")
     p.add_argument("--force", action="store_true", help="allow overwriting existing output files, e.g. --force")
     p.add_argument("--json", action="store_true", help="print the result as JSON, e.g. --json")
@@ -110,8 +114,10 @@ def _check_outputs(args) -> list[str]:
 
     if args.schematic and not args.schematic.lower().endswith((".png", ".svg")):
         raise InputError(f"a schematic is written as .png or .svg, found {args.schematic!r}", key="--schematic")
-    return check_output_files({"--netlist": args.netlist, "--bom": args.bom, "--schematic": args.schematic},
-                              force=args.force)
+    if args.buy_list and not args.buy_list.lower().endswith((".csv", ".json")):
+        raise InputError(f"a buy list is written as .csv or .json, found {args.buy_list!r}", key="--buy-list")
+    return check_output_files({"--netlist": args.netlist, "--bom": args.bom, "--schematic": args.schematic,
+                               "--buy-list": args.buy_list}, force=args.force)
 
 
 def _write(path: str, text: str) -> None:
@@ -227,6 +233,21 @@ def run(args, console) -> int:
 
         _write(args.bom, bom_csv(bom_rows(design, tolerances, trims)))
         written.append(args.bom)
+    if args.buy_list:
+        import json
+
+        from convert.circuit.buylist import buy_list
+        from convert.jsonable import to_jsonable
+
+        order = buy_list(design, tolerances, rail_v=rail or 15.0, amplitude_v=amplitude)
+        text = (json.dumps(to_jsonable(order.summary()), indent=2, ensure_ascii=True) + "\n"
+                if args.buy_list.lower().endswith(".json") else order.csv())
+        _write(args.buy_list, text)
+        written.append(args.buy_list)
+        if order.tightening is not None:
+            design.notes.append(f"buy list: {order.tightening.part} dominates the tolerance error; "
+                                f"{order.tightening.suggested * 100:g} % for it alone brings the worst case from "
+                                f"{order.tightening.gain_db[0]:.3g} to {order.tightening.gain_db[1]:.3g} dB")
     if args.schematic:
         from convert.circuit.schematic import design_schematic
         from convert.cli.common import write_file_atomic

@@ -332,7 +332,9 @@ def _loop_block_end(stages: list, i: int, known: Mapping) -> int:
         needed |= {src for src, _ in st.inputs} | ({st.plus[0]} if st.plus else set())
 
 
-def _admittances(st, p, s):
+def stage_admittances(st, p, s):
+    """(feedback admittance, [(source node, input admittance)], + input divider ratio or None) of a
+    stage at complex frequencies ``s`` (rad/s), parts broadcast against s."""
     with np.errstate(divide="ignore", invalid="ignore"):
         yf = 1.0 / impedance(st.feedback, p, s)
         ys = [(src, 1.0 / impedance(net, p, s)) for src, net in st.inputs]
@@ -346,7 +348,7 @@ def _admittances(st, p, s):
 
 def _stage_alone(st, nodes, p, s, open_loop_gain):
     """One stage whose inputs are all known: out = A(V+·Yt − Σ Yk Vk) / (Yt + A·Yf)."""
-    yf, ys, ratio = _admittances(st, p, s)
+    yf, ys, ratio = stage_admittances(st, p, s)
     ysum = sum(y for _, y in ys)
     injected = sum(nodes[src] * y for src, y in ys)
     vplus = 0.0 if ratio is None else nodes[st.plus[0]] * ratio
@@ -366,7 +368,7 @@ def _stage_block(block, nodes, p, s, open_loop_gain):
     index = {st.output: k for k, st in enumerate(block)}
     terms = []
     for st in block:
-        yf, ys, ratio = _admittances(st, p, s)
+        yf, ys, ratio = stage_admittances(st, p, s)
         yt = sum(y for _, y in ys) + yf
         terms.append((yf, ys, ratio, yt))
     shape = np.broadcast_shapes(s.shape, *[np.shape(x) for t in terms for x in
