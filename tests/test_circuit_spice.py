@@ -83,7 +83,7 @@ def test_open_optional_parts_are_left_out():
     _compare(f, v, expected)
 
 
-@pytest.mark.parametrize("name", ["pi-rc-feedback", "pid-single-amp", "pid-parallel"])
+@pytest.mark.parametrize("name", ["pi-rc-feedback", "pid-single-amp", "pid-parallel", "tow-thomas"])
 def test_gain_bandwidth_model_matches_simulator(name):
     """Source: ngspice AC analysis with the single-pole op-amp subcircuit (GBW 10 kHz, so the
     effect is visible below 1 kHz) against the stage-by-stage solution with the same A(jw)."""
