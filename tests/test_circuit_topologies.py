@@ -177,3 +177,22 @@ def test_biquad_design_equations_against_lcapy(expr):
     f = np.logspace(-1, 3, 81)
     sign = -1 if expr.startswith("-") else 1
     assert np.allclose(built.frequency_response(f), topo.sign * sign * target.frequency_response(f), rtol=1e-9)
+
+
+def test_the_catalog_imports_none_of_its_users():
+    """Layering (issue 11 item 4): the search, netlist writer, schematic, op-amp model, card reader and
+    cascade use the topology definitions, never the reverse; read from each file's import statements."""
+    import ast
+    import pathlib
+
+    import convert.circuit.topologies as pkg
+
+    users = {"convert.circuit.design", "convert.circuit.netlist_out", "convert.circuit.schematic",
+             "convert.circuit.opamp", "convert.circuit.card", "convert.circuit.cascade", "convert.circuit.tolerance",
+             "convert.circuit.bom", "convert.circuit.buylist", "convert.circuit.trim", "convert.cli", "convert.report"}
+    for path in pathlib.Path(pkg.__file__).parent.glob("*.py"):
+        for node in ast.walk(ast.parse(path.read_text())):
+            names = ([a.name for a in node.names] if isinstance(node, ast.Import)
+                     else [node.module or ""] if isinstance(node, ast.ImportFrom) else [])
+            for name in names:
+                assert not any(name == u or name.startswith(u + ".") for u in users), (path.name, name)
