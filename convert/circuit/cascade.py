@@ -29,6 +29,7 @@ from __future__ import annotations
 
 import itertools
 import math
+import re
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -372,6 +373,11 @@ def _polymul(a: list, b: list) -> list:
     return out
 
 
+def _renamed(text: str, names: dict) -> str:
+    """``text`` with a stage's own part names (R1, C2, ...) replaced by the cascade's."""
+    return re.sub(r"\b([RC]\d+)\b", lambda m: names.get(m.group(1), m.group(1)), text)
+
+
 def _rename_net(net, names: dict):
     if isinstance(net, R):
         return R(names[net.name])
@@ -398,7 +404,8 @@ def cascade_topology(stages: list[Topology]) -> tuple[Topology, list[dict[str, s
         for p in topo.parts:
             counters[p.kind] += 1
             names[p.name] = f"{p.kind}{counters[p.kind]}"
-            parts.append(replace(p, name=names[p.name], role=f"stage {k} ({topo.name}): {p.role}"))
+        for p in topo.parts:
+            parts.append(replace(p, name=names[p.name], role=f"stage {k} ({topo.name}): {_renamed(p.role, names)}"))
         maps.append(names)
         last = k == len(stages)
         local_out = topo.stages[-1].output
@@ -440,7 +447,8 @@ def cascade_topology(stages: list[Topology]) -> tuple[Topology, list[dict[str, s
         description=f"cascade of {len(stages)} stages: " + ", ".join(t.name for t in stages),
         parts=tuple(parts), stages=tuple(new_stages), inverting=inverting,
         represents="the product of its stages' transfer functions",
-        equations=tuple(f"stage {k}: {eq}" for k, t in enumerate(stages, start=1) for eq in t.equations[:1]),
+        equations=tuple(f"stage {k}: {_renamed(eq, names)}" for k, (t, names) in enumerate(zip(stages, maps), start=1)
+                        for eq in t.equations),
         _coefficients=coefficients, _parameters=parameters, _fit=fit)
     return topo, maps
 
