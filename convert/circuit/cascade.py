@@ -387,11 +387,14 @@ def _rename_net(net, names: dict):
     return kind(*[_rename_net(i, names) for i in net.items])
 
 
-def cascade_topology(stages: list[Topology]) -> tuple[Topology, list[dict[str, str]]]:
+def cascade_topology(stages: list[Topology], w_ref: float | None = None) -> tuple[Topology, list[dict[str, str]]]:
     """One Topology chaining ``stages`` (single-input catalog topologies) in signal order.
 
     Parts are renumbered R1.., C1.. and op-amps U1.. in signal order; returns the topology and, per
-    stage, the map from the stage's own part names to the cascade's.
+    stage, the map from the stage's own part names to the cascade's. ``w_ref`` (rad/s, e.g. the
+    band's geometric mean): the coefficients are divided, numerator and denominator alike, by
+    |D(j·w_ref)| of each part set, so that a high-order product stays near 1 around the band (the
+    transfer function is unchanged; arithmetic in float32 keeps away from overflow).
     """
     counters = {"R": 0, "C": 0}
     amp = 0
@@ -428,6 +431,14 @@ def cascade_topology(stages: list[Topology]) -> tuple[Topology, list[dict[str, s
         for topo, names in zip(stages, maps):
             n, d = topo.coefficients({local: p[glob] for local, glob in names.items()})
             num, den = _polymul(num, n), _polymul(den, d)
+        if w_ref:
+            at = 0j
+            for c in den:
+                at = at * (1j * w_ref) + np.asarray(c, dtype=float)
+            scale = np.abs(at)
+            scale = np.where(np.isfinite(scale) & (scale > 0), scale, 1.0)
+            num = [np.asarray(c, dtype=float) / scale for c in num]
+            den = [np.asarray(c, dtype=float) / scale for c in den]
         return num, den
 
     def parameters(p):
@@ -481,7 +492,8 @@ def _build(plan: CascadePlan, options, f: np.ndarray, strict: bool):
     A stage whose parts fall out of range may move its gain by a factor of :data:`GAIN_SHIFTS` (the
     last stage takes the inverse product); when ``strict``, only as far as the stage's output still
     peaks no higher than max(input, output)."""
-    topo, maps = cascade_topology([s.topology for s in plan.sections])
+    w_ref = 2 * math.pi * math.sqrt(plan.band_hz[0] * plan.band_hz[1])
+    topo, maps = cascade_topology([s.topology for s in plan.sections], w_ref)
     rounded, nominal, params = {}, {}, {}
     limit = max(plan.sections[-1].peak_gain, 1.0)
     moved = 1.0  # product of the gain factors applied so far against the plan's equal-peak gains
