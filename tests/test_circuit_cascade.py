@@ -156,3 +156,26 @@ def test_cascade_monte_carlo_over_all_parts():
     assert np.max(np.abs(np.asarray(mc.gain_db) - direct)) < 0.01
     moved = {k for k, v in drawn.items() if np.ptp(v) > 0}
     assert moved == set(d.fitted_parts())
+
+
+def test_sixth_order_error_budget_is_finite():
+    """Regression: the sixth-order cascade's Monte Carlo row was NaN (its degree-6 polynomials overflowed
+    the float32 arithmetic of the tolerance engine, with a RuntimeWarning). Now the cascade's coefficients
+    are normalized at the band's geometric mean and every figure of the budget is a finite number."""
+    from convert.circuit.design import error_sources
+
+    d = _design(TARGETS["sixth order"])
+    mc = error_sources(d, draws=2000)["tolerance"]["monte_carlo"]
+
+    def numbers(x):
+        if isinstance(x, dict):
+            for v in x.values():
+                yield from numbers(v)
+        elif isinstance(x, (list, tuple)):
+            for v in x:
+                yield from numbers(v)
+        elif isinstance(x, float):
+            yield x
+
+    values = list(numbers(mc))
+    assert values and all(np.isfinite(values))
