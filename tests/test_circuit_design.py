@@ -106,8 +106,8 @@ def test_out_of_range_names_the_part():
 def test_no_topology_realizes():
     with pytest.raises(UnrealizableError, match="no catalog topology"):
         design_circuit(from_expression("(s-1)/(s+1)"))
-    with pytest.raises(UnrealizableError):
-        design_circuit(from_expression("1/(s^2+0.1*s+1)"))
+    with pytest.raises(UnrealizableError):  # unstable (issue 14: a stable 1/(s^2+0.1*s+1) is now a cascade)
+        design_circuit(from_expression("1/(s^2-0.1*s+1)"))
 
 
 @pytest.mark.parametrize("kwargs, match", [

@@ -77,7 +77,7 @@ TARGETS = {  # single-input topologies and a target each realizes (our own numbe
     "unity-inverter": "1", "inverting-gain": "2.5", "integrator-rc": "1/(3*s)", "first-order-lag": "2/(0.5*s+1)",
     "pi-rc-feedback": "2*(1+1/(3*s))", "pd-limited": "2 + 0.5*s/(0.05*s+1)",
     "lead-lag-rc": "2*(0.5*s+1)/(0.05*s+1)", "pid-single-amp": "2*(1+1/(3*s))*(1+0.5*s)/(0.05*s+1)",
-    "pid-parallel": "2 + 1/s + 0.5*s/(0.05*s+1)",
+    "pid-parallel": "2 + 1/s + 0.5*s/(0.05*s+1)", "tow-thomas": "(s^2+2*s+100)/(s^2+20*s+100)",
 }
 
 

@@ -27,6 +27,9 @@ PARTS = {
                       "C1": 1e-6, "C2": 220e-9, "R8": 6.8e3, "C3": 470e-9, "R9": 3.3e3, "R10": 100e3,
                       "R11": 10e3, "R12": 10e3, "R13": 10e3, "R14": 10e3},
     "difference-error": {"R1": 10e3, "R2": 47e3, "R3": 10e3, "R4": 47e3},
+    # optional R7 left open (not fitted): the positive-s feed-forward R6 is used instead
+    "tow-thomas": {"C1": 1e-6, "C2": 1e-6, "R1": 82e3, "R2": 15e3, "R3": 15e3, "R4": 10e3, "R5": 10e3,
+                          "R6": 150e3, "R7": float("inf"), "R8": 33e3, "C3": 470e-9},
 }
 
 
@@ -80,7 +83,7 @@ def test_open_optional_parts_are_left_out():
     _compare(f, v, expected)
 
 
-@pytest.mark.parametrize("name", ["pi-rc-feedback", "pid-single-amp", "pid-parallel"])
+@pytest.mark.parametrize("name", ["pi-rc-feedback", "pid-single-amp", "pid-parallel", "tow-thomas"])
 def test_gain_bandwidth_model_matches_simulator(name):
     """Source: ngspice AC analysis with the single-pole op-amp subcircuit (GBW 10 kHz, so the
     effect is visible below 1 kHz) against the stage-by-stage solution with the same A(jw)."""

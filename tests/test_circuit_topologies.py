@@ -126,3 +126,73 @@ def test_two_input_paths_reproduce_setpoint_weights():
     f = np.logspace(-2, 2, 30)
     assert np.allclose(paths["measurement"].frequency_response(f), s.to_controller().frequency_response(f))
     assert np.allclose(paths["setpoint"].frequency_response(f), s.setpoint_controller().frequency_response(f))
+
+
+def test_every_file_in_the_folder_is_in_the_catalog():
+    """Adding a topology is adding a file: every topology file in convert/circuit/topologies/
+    defines one TOPOLOGY, and the registry lists each exactly once (common practice: a plugin
+    folder and its registry must not drift apart)."""
+    import importlib
+    import pkgutil
+
+    import convert.circuit.topologies as pkg
+
+    helpers = {"model", "networks", "shared"}
+    files = sorted(m.name for m in pkgutil.iter_modules(pkg.__path__) if m.name not in helpers)
+    registered = sorted(m.__name__.rsplit(".", 1)[1] for m in pkg.CATALOG_ORDER)
+    assert files == registered
+    for name in files:
+        topo = importlib.import_module(f"convert.circuit.topologies.{name}").TOPOLOGY
+        assert TOPOLOGIES[topo.name] is topo
+        assert topo.name.replace("-", "_") == name  # the file is named after the topology
+
+
+@pytest.mark.filterwarnings("ignore::UserWarning")
+@pytest.mark.parametrize("expr", ["(s^2+2*s+100)/(s^2+20*s+100)", "(0.5*s^2+30*s+400)/(s^2+4*s+400)",
+                                  "-300/(s^2+6*s+900)"])
+def test_biquad_design_equations_against_lcapy(expr):
+    """Source: lcapy symbolic nodal analysis of the Tow–Thomas biquad with feed-forward (netlist written
+    by hand here from the circuit in Tow 1968 / Thomas 1971 with Sedra & Smith's feed-forward paths;
+    op-amps as E elements with gain Ad -> oo), at the parts our design equations give for targets of our
+    own (a notch: negative s term via R7; a general biquad: positive s term via R6; a low-pass of
+    negative gain). The result must be the stage sign times the target (times the target's sign)."""
+    lcapy = pytest.importorskip("lcapy")
+    import sympy
+
+    topo = get_topology("tow-thomas")
+    target = from_expression(expr)
+    params = topo.fit(target)[0]
+    parts = {k: float(v) for k, v in topo.solve(params, {"C1": np.asarray(1e-6)}).items()}
+    # node 1 input, 4 output (U3); U1 integrator: inverting node 5, output 6; U2 inverter: 7 -> 8; U3: node 2
+    elements = [("R3", 4, 5), ("R8", 1, 5), ("C2", 6, 5), ("R4", 6, 7), ("R7", 1, 7), ("R5", 8, 7),
+                ("R2", 8, 2), ("R6", 1, 2), ("C3", 1, 2), ("R1", 4, 2), ("C1", 4, 2)]
+    lines = [f"{name} {a} {b} {parts[name]!r}" for name, a, b in elements
+             if not (parts[name] == float("inf") or parts[name] == 0.0)]
+    lines += ["E1 6 0 opamp 0 5 Ad", "E2 8 0 opamp 0 7 Ad", "E3 4 0 opamp 0 2 Ad"]
+    h = lcapy.Circuit("\n".join(lines)).transfer(1, 0, 4, 0).limit("Ad", "oo")
+    s = lcapy.s.sympy
+    num, den = sympy.fraction(sympy.together(h.sympy))
+    built = Controller.analog([float(c) for c in sympy.Poly(num, s).all_coeffs()],
+                              [float(c) for c in sympy.Poly(den, s).all_coeffs()])
+    f = np.logspace(-1, 3, 81)
+    sign = -1 if expr.startswith("-") else 1
+    assert np.allclose(built.frequency_response(f), topo.sign * sign * target.frequency_response(f), rtol=1e-9)
+
+
+def test_the_catalog_imports_none_of_its_users():
+    """Layering (issue 11 item 4): the search, netlist writer, schematic, op-amp model, card reader and
+    cascade use the topology definitions, never the reverse; read from each file's import statements."""
+    import ast
+    import pathlib
+
+    import convert.circuit.topologies as pkg
+
+    users = {"convert.circuit.design", "convert.circuit.netlist_out", "convert.circuit.schematic",
+             "convert.circuit.opamp", "convert.circuit.card", "convert.circuit.cascade", "convert.circuit.tolerance",
+             "convert.circuit.bom", "convert.circuit.buylist", "convert.circuit.trim", "convert.cli", "convert.report"}
+    for path in pathlib.Path(pkg.__file__).parent.glob("*.py"):
+        for node in ast.walk(ast.parse(path.read_text())):
+            names = ([a.name for a in node.names] if isinstance(node, ast.Import)
+                     else [node.module or ""] if isinstance(node, ast.ImportFrom) else [])
+            for name in names:
+                assert not any(name == u or name.startswith(u + ".") for u in users), (path.name, name)

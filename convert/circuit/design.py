@@ -57,6 +57,7 @@ class DesignOptions:
     top: int = 5
     search_budget: int = 4_000_000
     refine: int = 12
+    max_opamps: int | None = None  # cap on op-amps (a cascade's stages and inverter); None = no cap
 
     def __post_init__(self):
         object.__setattr__(self, "resistors", es.normalize_name(self.resistors, key="resistors"))
@@ -69,6 +70,9 @@ class DesignOptions:
                 raise InputError(f"the {what} range minimum {lo:g} is above its maximum {hi:g}", key=f"{what} range")
         if self.band_hz is not None and not (0 < self.band_hz[0] < self.band_hz[1]):
             raise InputError(f"a band needs 0 < low < high, found {self.band_hz!r}", key="band")
+        if self.max_opamps is not None and not (isinstance(self.max_opamps, int) and self.max_opamps >= 1):
+            raise InputError(f"the op-amp cap must be a whole number of at least 1, found {self.max_opamps!r}",
+                             key="max opamps")
         if not self.derivative_filter_n > 0:
             raise InputError(f"the derivative filter ratio N must be positive, found {self.derivative_filter_n!r}",
                              key="derivative filter")
@@ -120,6 +124,7 @@ class CircuitDesign:
     notes: list = field(default_factory=list)
     filter_added: Controller | None = None
     settings: object = None
+    cascade: object = None  # the convert.circuit.cascade.CascadePlan when the topology is a cascade
 
     @property
     def part_series(self) -> dict:
@@ -422,7 +427,29 @@ def design_circuit(controller: Controller, options: DesignOptions | None = None,
     notes = pre_notes + notes
     if pre_notes:
         filtered = controller
-    topo, alternatives = choose_topology(target, options, settings)
+    if options.topology.lower() == "cascade":
+        from convert.circuit.cascade import design_cascade  # cascade builds on this module
+
+        return design_cascade(target, options, source=source, filtered=filtered, notes=notes)
+    try:
+        topo, alternatives = choose_topology(target, options, settings)
+        if options.max_opamps is not None and topo.amplifiers + (topo.sign != analyse_target(target).sign) \
+                > options.max_opamps:
+            raise UnrealizableError(f"{topo.name} needs more op-amps than the cap of {options.max_opamps}",
+                                    key="max opamps")
+    except UnrealizableError as exc:
+        weighted = settings is not None and (settings.b != 1 or settings.c != 1)
+        if options.topology.lower() != "auto" or exc.key not in ("topology", "max opamps") or weighted:
+            raise  # a cascade has one input: setpoint weights need the two-input stage
+        from convert.circuit.cascade import design_cascade  # cascade builds on this module
+
+        try:
+            return design_cascade(target, options, source=source, filtered=filtered, notes=notes)
+        except UnrealizableError as cascade_exc:
+            if exc.key == "max opamps" or cascade_exc.key in ("max opamps", "resistor range", "capacitor range"):
+                raise cascade_exc from None
+            raise UnrealizableError(f"{exc.message}; nor does a cascade of catalog stages: {cascade_exc.message}",
+                                    key="topology") from None
     shape: TargetShape = analyse_target(target)
     sign = shape.sign
     band = options.band_hz or default_band(target)

@@ -50,8 +50,13 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    help="method bringing a digital controller back to analog: tustin (default), zoh, matched or "
                         "backward-euler, e.g. --inverse-method zoh")
     p.add_argument("--topology", default="auto", metavar="NAME",
-                   help="catalog topology, or auto for the simplest that realizes the controller exactly "
-                        "(default auto), e.g. --topology pid-parallel; see --catalog")
+                   help="catalog topology, cascade (a chain of catalog stages for any proper, stable or "
+                        "integrating controller), or auto for the simplest single stage that realizes the "
+                        "controller exactly and else a cascade (default auto), e.g. --topology pid-parallel; "
+                        "see --catalog")
+    p.add_argument("--max-opamps", type=int, metavar="N",
+                   help="at most N op-amps (a cascade's stages and any inverter); with auto, a catalog stage over "
+                        "the cap gives way to a cascade, e.g. --max-opamps 3")
     p.add_argument("--catalog", action="store_true", help="list the catalog of topologies and exit, e.g. --catalog")
     p.add_argument("--resistors", default="E96", metavar="SERIES",
                    help="IEC 60063 series for resistors (E3 E6 E12 E24 E48 E96 E192; default E96), e.g. --resistors E24")
@@ -87,6 +92,10 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    help="candidate part sets to list (default 5, 1 to 100), e.g. --top 3")
     p.add_argument("--netlist", metavar="FILE", help="write a SPICE netlist realizing +C(s) from in to out, e.g. --netlist pid.cir")
     p.add_argument("--bom", metavar="FILE", help="write the bill of materials as CSV, e.g. --bom pid.csv")
+    p.add_argument("--buy-list", metavar="FILE",
+                   help="write the bill of materials a buyer orders from (grouped lines, ratings from --rail and "
+                        "--amplitude, op-amp requirements, a tighter tolerance for a dominant part) as ASCII CSV, "
+                        "or as JSON when FILE ends in .json, e.g. --buy-list order.csv")
     p.add_argument("--schematic", metavar="FILE", help="draw the schematic (.png or .svg), e.g. --schematic pid.svg")
     p.add_argument("--force", action="store_true", help="allow overwriting existing output files, e.g. --force")
     p.add_argument("--json", action="store_true", help="print the result as JSON, e.g. --json")
@@ -105,8 +114,10 @@ def _check_outputs(args) -> list[str]:
 
     if args.schematic and not args.schematic.lower().endswith((".png", ".svg")):
         raise InputError(f"a schematic is written as .png or .svg, found {args.schematic!r}", key="--schematic")
-    return check_output_files({"--netlist": args.netlist, "--bom": args.bom, "--schematic": args.schematic},
-                              force=args.force)
+    if args.buy_list and not args.buy_list.lower().endswith((".csv", ".json")):
+        raise InputError(f"a buy list is written as .csv or .json, found {args.buy_list!r}", key="--buy-list")
+    return check_output_files({"--netlist": args.netlist, "--bom": args.bom, "--schematic": args.schematic,
+                               "--buy-list": args.buy_list}, force=args.force)
 
 
 def _write(path: str, text: str) -> None:
@@ -176,7 +187,7 @@ def run(args, console) -> int:
                "method": "--inverse-method", "resistor maximum": "--r-max", "resistor minimum": "--r-min",
                "capacitor maximum": "--c-max", "capacitor minimum": "--c-min", "resistors": "--resistors",
                "capacitors": "--capacitors", "band": "--band", "derivative filter": "--derivative-filter",
-               "draws": "--draws", "opamp gbw": "--opamp-gbw"}
+               "draws": "--draws", "opamp gbw": "--opamp-gbw", "max opamps": "--max-opamps"}
     with at(None, rename=renames):
         options = DesignOptions(topology=args.topology, resistors=args.resistors, capacitors=args.capacitors,
                                 r_min=positive_value(args.r_min, "ohm", "--r-min"),
@@ -185,7 +196,7 @@ def run(args, console) -> int:
                                 c_max=positive_value(args.c_max, "farad", "--c-max"),
                                 band_hz=band,
                                 derivative_filter_n=positive_value(args.derivative_filter, "number", "--derivative-filter"),
-                                inverse_method=args.inverse_method, top=args.top)
+                                inverse_method=args.inverse_method, top=args.top, max_opamps=args.max_opamps)
     _check_outputs(args)
     opamp = OpAmpModel(positive_value(args.opamp_gbw, "hz", "--opamp-gbw")) if args.opamp_gbw else None
     amplitude = positive_value(args.amplitude, "volt", "--amplitude") if args.amplitude else None
@@ -222,6 +233,21 @@ def run(args, console) -> int:
 
         _write(args.bom, bom_csv(bom_rows(design, tolerances, trims)))
         written.append(args.bom)
+    if args.buy_list:
+        import json
+
+        from convert.circuit.buylist import buy_list
+        from convert.jsonable import to_jsonable
+
+        order = buy_list(design, tolerances, rail_v=rail or 15.0, amplitude_v=amplitude)
+        text = (json.dumps(to_jsonable(order.summary()), indent=2, ensure_ascii=True) + "\n"
+                if args.buy_list.lower().endswith(".json") else order.csv())
+        _write(args.buy_list, text)
+        written.append(args.buy_list)
+        if order.tightening is not None:
+            design.notes.append(f"buy list: {order.tightening.part} dominates the tolerance error; "
+                                f"{order.tightening.suggested * 100:g} % for it alone brings the worst case from "
+                                f"{order.tightening.gain_db[0]:.3g} to {order.tightening.gain_db[1]:.3g} dB")
     if args.schematic:
         from convert.circuit.schematic import design_schematic
         from convert.cli.common import write_file_atomic
@@ -255,6 +281,9 @@ def run(args, console) -> int:
         "seed": args.seed,
         "series": {"resistors": options.resistors, "capacitors": options.capacitors},
     }
+    if design.cascade is not None:
+        data["cascade"] = {"stages": design.cascade.summary(), "opamps": design.cascade.total_amplifiers,
+                           "noise_gain": design.cascade.noise_gain}
     if args.json:
         emit_json(console, data)
         return 0

@@ -160,7 +160,7 @@ def check_output_files(named: dict[str, str | None], *, force: bool) -> list[str
 
 
 def _ext(option: str) -> str:
-    return {"--netlist": ".cir", "--bom": ".csv", "--schematic": ".svg"}.get(option, "")
+    return {"--netlist": ".cir", "--bom": ".csv", "--schematic": ".svg", "--buy-list": ".csv"}.get(option, "")
 
 
 def write_file_atomic(path: str, write) -> None:

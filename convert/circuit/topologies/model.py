@@ -1,0 +1,400 @@
+"""What a catalog topology is, and the circuit solution every topology shares.
+
+A topology is a :class:`Topology` instance holding
+
+* its **parts** (name, resistor or capacitor, role) — resistor values in ohms, capacitors in farads;
+* its **circuit** as a list of op-amp :class:`Stage` s (used by the netlist writer, the schematic,
+  the op-amp model and the output-swing check);
+* its **transfer function in terms of the parts**, written out by hand as polynomial coefficients
+  in s (descending powers), vectorized: every part may be a numpy array of shape ``(draws,)`` and
+  the response comes back with shape ``(draws, freqs)``;
+* its **design equations**: :meth:`Topology.fit` reads the design quantities from a target
+  controller (or says why it cannot), :meth:`Topology.solve` turns them and the freely chosen
+  parts (capacitors picked from a series) into all part values;
+* the **targets it can represent**, in words (``represents``).
+
+Sign convention
+---------------
+Every formula here gives the **positive form** F(s): the controller the stage realizes with its
+gain taken positive. The stage's own sign is ``topology.sign`` (−1 when ``inverting``): the
+circuit's output over its input is ``sign · F(s)``. :meth:`Topology.controller_from_parts` returns
+F(s) — "+C(s) as the stage realizes it" — and :meth:`Topology.stage_controller_from_parts` returns
+``sign · F(s)``. A netlist realizing +C(s) adds a unity inverter after an inverting stage.
+
+Two-input stages (inputs ``sp`` setpoint and ``meas`` measurement) realize
+``u = Cr(s)·sp − Cy(s)·meas`` (times the stage sign); F(s) is then Cy(s), the controller acting on
+the error when the setpoint is zero, and :meth:`Topology.paths_from_parts` returns both paths.
+
+All op-amps are ideal in these formulas; :func:`node_responses` evaluates the circuit itself, stage
+by stage, optionally with a finite open-loop gain A(jω) (see :mod:`convert.circuit.opamp`).
+"""
+
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Callable, Mapping
+
+import numpy as np
+
+from convert.circuit.topologies.networks import Part, Stage, impedance, open_value
+from convert.controller import Controller
+from convert.errors import InputError, UnrealizableError
+
+# ----------------------------------------------------------------------------------- helpers
+
+
+def polyval_many(coeffs: list, s: np.ndarray) -> np.ndarray:
+    """Horner over coefficient arrays of shape (draws,) at s of shape (freqs,) -> (draws, freqs)."""
+    s = np.asarray(s)
+    acc = np.asarray(coeffs[0], dtype=float)[..., None] * np.ones_like(s)
+    for c in coeffs[1:]:
+        acc = acc * s + np.asarray(c, dtype=float)[..., None]
+    return acc
+
+
+@dataclass(frozen=True)
+class TargetShape:
+    """A target read in time-constant form: C(s) = k · s^-n · Π(1 + s/z_i) / Π(1 + s/p_j).
+
+    ``zeros``/``poles`` hold the corner frequencies (rad/s, positive) of real left-half-plane
+    roots; ``irregular`` lists roots no RC stage places (complex, right-half-plane, zero at 0).
+    """
+
+    k: float
+    integrators: int
+    zeros: np.ndarray
+    poles: np.ndarray
+    irregular: tuple[str, ...]
+    complex_zeros: int
+    controller: Controller
+
+    @property
+    def sign(self) -> int:
+        return -1 if self.k < 0 else 1
+
+    def describe(self) -> str:
+        bits = [f"{self.integrators} integrator(s)", f"{len(self.zeros)} real zero(s)", f"{len(self.poles)} real pole(s)"]
+        if self.irregular:
+            bits.append(", ".join(self.irregular))
+        return ", ".join(bits)
+
+
+def analyse_target(controller: Controller) -> TargetShape:
+    """Read an analog, proper controller into a :class:`TargetShape`."""
+    if controller.is_digital:
+        raise InputError("a circuit realizes an analog controller; convert the digital one first", key="target")
+    num = np.array(controller.num, dtype=float)
+    den = np.array(controller.den, dtype=float)
+    zeros = np.roots(num) if num.size > 1 else np.zeros(0)
+    poles = np.roots(den) if den.size > 1 else np.zeros(0)
+    scale = max([1.0] + [abs(r) for r in np.concatenate([zeros, poles])])
+    irregular: list[str] = []
+    n_int = 0
+    pz: list[float] = []
+    pp: list[float] = []
+    complex_zeros = 0
+    for label, roots, out in (("zero", zeros, pz), ("pole", poles, pp)):
+        for r in roots:
+            if abs(r) <= 1e-9 * scale:
+                if label == "pole":
+                    n_int += 1
+                else:
+                    irregular.append("a zero at s = 0 (a pure differentiator)")
+                continue
+            if abs(r.imag) > 1e-9 * abs(r):
+                if r.imag > 0:
+                    irregular.append(f"complex {label}s at {r.real:.4g} ± {abs(r.imag):.4g}j rad/s")
+                    if label == "zero":
+                        complex_zeros += 2
+                continue
+            if r.real > 0:
+                irregular.append(f"a right-half-plane {label} at +{r.real:.4g} rad/s")
+                continue
+            out.append(float(-r.real))
+    # zpk gain times corner products gives the time-constant-form gain
+    k = float(num[0] / den[0])
+    roots_z = zeros[np.abs(zeros) > 1e-9 * scale]
+    roots_p = poles[np.abs(poles) > 1e-9 * scale]
+    k *= float(np.real(np.prod(-roots_z))) / float(np.real(np.prod(-roots_p))) if roots_p.size or roots_z.size else 1.0
+    return TargetShape(k, n_int, np.sort(np.array(pz)), np.sort(np.array(pp)), tuple(irregular), complex_zeros,
+                       controller)
+
+
+def refuse(topology: "Topology", shape: TargetShape, needs: str) -> UnrealizableError:
+    return UnrealizableError(
+        f"{topology.name} realizes {needs}; the target has {shape.describe()}", key="topology")
+
+
+# ----------------------------------------------------------------------------------- topology
+
+
+@dataclass(frozen=True)
+class Topology:
+    """One catalog entry. See the module docstring for the conventions."""
+
+    name: str
+    description: str
+    parts: tuple[Part, ...]
+    stages: tuple[Stage, ...]
+    inverting: bool
+    represents: str
+    inputs: tuple[str, ...] = ("in",)
+    free_parts: tuple[str, ...] = ()
+    fixed_parts: Mapping[str, float] = field(default_factory=dict)
+    equal_parts: tuple[tuple[str, str], ...] = ()  # (copy, original): same value by design
+    tunable: Mapping[str, tuple[str, int]] = field(default_factory=dict)  # param -> (part, exponent)
+    equations: tuple[str, ...] = ()
+    _coefficients: Callable | None = None
+    _setpoint_coefficients: Callable | None = None
+    _parameters: Callable | None = None
+    _fit: Callable | None = None
+    _solve: Callable | None = None
+
+    # ------------------------------------------------------------- basic facts
+    @property
+    def sign(self) -> int:
+        """−1 for an inverting stage (output = −F(s)·input), +1 otherwise."""
+        return -1 if self.inverting else 1
+
+    @property
+    def amplifiers(self) -> int:
+        return len(self.stages)
+
+    @property
+    def part_names(self) -> tuple[str, ...]:
+        return tuple(p.name for p in self.parts)
+
+    def part(self, name: str) -> Part:
+        for p in self.parts:
+            if p.name == name:
+                return p
+        raise InputError(f"{self.name} has no part {name!r}; its parts are {', '.join(self.part_names)}", key="part")
+
+    @property
+    def two_input(self) -> bool:
+        return len(self.inputs) == 2
+
+    # ------------------------------------------------------------- parts in, responses out
+    def check_parts(self, parts: Mapping[str, object], *, where: str = "parts") -> dict[str, np.ndarray]:
+        """Validate a part mapping (numbers or loopshift value strings) -> float arrays.
+
+        Every non-optional part must be present; values must be positive and finite (an optional
+        part may be absent = not fitted). Unknown names are refused.
+        """
+        from convert.values import parse_value
+
+        known = set(self.part_names)
+        for key in parts:
+            if key not in known:
+                raise InputError(f"{self.name} has no part {key!r}; its parts are {', '.join(self.part_names)}",
+                                 where=where, key=key)
+        out: dict[str, np.ndarray] = {}
+        for p in self.parts:
+            if p.name not in parts:
+                if p.optional:
+                    out[p.name] = np.asarray(open_value(p))
+                    continue
+                raise InputError(f"{self.name} needs a value for {p.name} ({p.role})", where=where, key=p.name)
+            raw = parts[p.name]
+            if isinstance(raw, str):
+                raw = parse_value(raw, p.unit_kind, field=p.name)
+            arr = np.asarray(raw, dtype=float)
+            open_ok = p.optional and np.all(arr == open_value(p))
+            if not open_ok and (not np.all(np.isfinite(arr)) or np.any(arr <= 0)):
+                bad = arr.ravel()[0] if arr.size else arr
+                raise InputError(f"{p.name} must be a positive finite {'resistance' if p.kind == 'R' else 'capacitance'}"
+                                 f", found {float(bad):g}", where=where, key=p.name)
+            out[p.name] = arr
+        return out
+
+    def coefficients(self, parts: Mapping[str, np.ndarray]) -> tuple[list, list]:
+        """(num, den) of F(s): lists of coefficient arrays, descending powers of s."""
+        return self._coefficients(parts)
+
+    def setpoint_coefficients(self, parts: Mapping[str, np.ndarray]) -> tuple[list, list]:
+        """(num, den) of the setpoint path Cr(s) (two-input stages only)."""
+        if self._setpoint_coefficients is None:
+            raise InputError(f"{self.name} has a single input", key="topology")
+        return self._setpoint_coefficients(parts)
+
+    def response(self, parts: Mapping[str, np.ndarray], f_hz, *, path: str = "controller") -> np.ndarray:
+        """F(j2πf) for many part sets: parts of shape (draws,) -> complex (draws, freqs).
+
+        ``path="setpoint"`` gives Cr(s) of a two-input stage.
+        """
+        s = 2j * np.pi * np.asarray(f_hz, dtype=float)
+        num, den = self.setpoint_coefficients(parts) if path == "setpoint" else self.coefficients(parts)
+        return polyval_many(num, s) / polyval_many(den, s)
+
+    def controller_from_parts(self, parts: Mapping[str, object], *, name: str = "") -> Controller:
+        """+C(s) as the stage realizes it (the positive form F(s)); the stage's sign is
+        :attr:`sign` (``inverting``). Parts: name -> ohms / farads (numbers or "47k" strings)."""
+        checked = self.check_parts(parts)
+        num, den = self.coefficients(checked)
+        return _controller(num, den, name or self.name)
+
+    def stage_controller_from_parts(self, parts: Mapping[str, object]) -> Controller:
+        """Output over input of the bare stage: ``sign · F(s)``."""
+        return self.controller_from_parts(parts).scaled(self.sign)
+
+    def paths_from_parts(self, parts: Mapping[str, object]) -> dict[str, Controller]:
+        """Both paths of a two-input stage: u = Cr·sp − Cy·meas (times the stage sign).
+
+        Returns {"setpoint": Cr, "measurement": Cy}; a one-input stage returns {"input": F}.
+        """
+        checked = self.check_parts(parts)
+        if not self.two_input:
+            return {"input": _controller(*self.coefficients(checked), self.name)}
+        return {"setpoint": _controller(*self.setpoint_coefficients(checked), f"{self.name} setpoint path"),
+                "measurement": _controller(*self.coefficients(checked), f"{self.name} measurement path")}
+
+    def parameters(self, parts: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
+        """The design quantities (gains in V/V, times in s) the parts set, vectorized."""
+        return self._parameters(parts)
+
+    # ------------------------------------------------------------- design
+    def fit(self, target: Controller, *, settings=None) -> list[dict[str, float]]:
+        """Design quantities of F(s) realizing ``target`` exactly (its sign aside): one dict per
+        alternative (e.g. which zero the derivative network takes). Raises UnrealizableError."""
+        shape = analyse_target(target)
+        return self._fit(self, shape, settings)
+
+    def solve(self, params: Mapping[str, float], free: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
+        """All part values from the design quantities and the freely chosen parts (arrays)."""
+        out = self._solve(params, dict(free))
+        for k, v in self.fixed_parts.items():
+            out.setdefault(k, np.asarray(v, dtype=float))
+        for copy, original in self.equal_parts:
+            out[copy] = out[original]
+        return {p.name: np.asarray(out[p.name], dtype=float) for p in self.parts}
+
+    def summary(self) -> dict:
+        return {"name": self.name, "description": self.description, "inverting": self.inverting,
+                "amplifiers": self.amplifiers, "inputs": list(self.inputs), "represents": self.represents,
+                "parts": {p.name: p.role for p in self.parts}, "equations": list(self.equations)}
+
+
+def _controller(num: list, den: list, name: str) -> Controller:
+    n = [float(np.asarray(c)) for c in num]
+    d = [float(np.asarray(c)) for c in den]
+    return Controller.analog(n, d, name)
+
+
+# ----------------------------------------------------------------------------------- node solve
+
+
+def node_responses(topology: Topology, parts: Mapping[str, np.ndarray], f_hz, *,
+                   drive: Mapping[str, complex] | None = None, open_loop_gain: np.ndarray | None = None
+                   ) -> dict[str, np.ndarray]:
+    """Voltages at every stage output, solving the circuit stage by stage (stages that feed each
+    other, such as a biquad's integrator loop, are solved together as one small linear system).
+
+    ``drive`` maps input nodes to their (complex) amplitude (default: 1 on ``in``, or
+    sp = 0, meas = −1 for two-input stages, i.e. a unit error). ``open_loop_gain`` is A(jω) over
+    ``f_hz`` (None = ideal op-amps). Each stage:  out = A(V+·Yt − Σ Yk Vk) / (Yt + A·Yf), with
+    Yt = Σ Yk + Yf, which tends to V+(1 + Zf ΣYk) − Zf Σ Yk Vk as A → ∞.
+    """
+    f = np.asarray(f_hz, dtype=float)
+    s = 2j * np.pi * f
+    if drive is None:
+        drive = {"in": 1.0} if not topology.two_input else {"sp": 0.0, "meas": -1.0}
+    nodes: dict[str, np.ndarray] = {k: np.asarray(v, dtype=complex) + 0 * s for k, v in drive.items()}
+    p = {k: np.asarray(v, dtype=float)[..., None] if np.ndim(v) else np.asarray(v, dtype=float)
+         for k, v in parts.items()}
+    stages = list(topology.stages)
+    i = 0
+    while i < len(stages):
+        j = _loop_block_end(stages, i, nodes)
+        if j == i:
+            nodes[stages[i].output] = _stage_alone(stages[i], nodes, p, s, open_loop_gain)
+        else:
+            nodes.update(_stage_block(stages[i:j + 1], nodes, p, s, open_loop_gain))
+        i = j + 1
+    return nodes
+
+
+def _loop_block_end(stages: list, i: int, known: Mapping) -> int:
+    """Index of the last stage of the smallest run stages[i..j] that reads no node outside what is
+    known and what the run itself drives (j = i: stage i reads only known nodes)."""
+    needed = {src for src, _ in stages[i].inputs} | ({stages[i].plus[0]} if stages[i].plus else set())
+    j = i
+    while True:
+        driven = {st.output for st in stages[i:j + 1]}
+        missing = needed - set(known) - driven
+        if not missing:
+            return j
+        j += 1
+        if j >= len(stages):
+            raise InputError(f"the circuit reads node(s) {', '.join(sorted(missing))} that no stage drives",
+                             key="topology")
+        st = stages[j]
+        needed |= {src for src, _ in st.inputs} | ({st.plus[0]} if st.plus else set())
+
+
+def stage_admittances(st, p, s):
+    """(feedback admittance, [(source node, input admittance)], + input divider ratio or None) of a
+    stage at complex frequencies ``s`` (rad/s), parts broadcast against s."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        yf = 1.0 / impedance(st.feedback, p, s)
+        ys = [(src, 1.0 / impedance(net, p, s)) for src, net in st.inputs]
+        ratio = None
+        if st.plus is not None:
+            _, top, bottom = st.plus
+            zt, zb = impedance(top, p, s), impedance(bottom, p, s)
+            ratio = zb / (zt + zb)
+    return yf, ys, ratio
+
+
+def _stage_alone(st, nodes, p, s, open_loop_gain):
+    """One stage whose inputs are all known: out = A(V+·Yt − Σ Yk Vk) / (Yt + A·Yf)."""
+    yf, ys, ratio = stage_admittances(st, p, s)
+    ysum = sum(y for _, y in ys)
+    injected = sum(nodes[src] * y for src, y in ys)
+    vplus = 0.0 if ratio is None else nodes[st.plus[0]] * ratio
+    yt = ysum + yf
+    if open_loop_gain is None:
+        return (vplus * yt - injected) / yf
+    a = np.asarray(open_loop_gain)
+    return a * (vplus * yt - injected) / (yt + a * yf)
+
+
+def _stage_block(block, nodes, p, s, open_loop_gain):
+    """Stages that feed each other (a loop, e.g. a biquad's integrators), solved together.
+
+    Stage k's equation, divided by A:  (Yt/A + Yf)·Vk + Σ Yi·Vi − Yt·d·Vplus = 0, with d the
+    + input divider ratio; 1/A = 0 for ideal op-amps. Known nodes move to the right-hand side.
+    """
+    index = {st.output: k for k, st in enumerate(block)}
+    terms = []
+    for st in block:
+        yf, ys, ratio = stage_admittances(st, p, s)
+        yt = sum(y for _, y in ys) + yf
+        terms.append((yf, ys, ratio, yt))
+    shape = np.broadcast_shapes(s.shape, *[np.shape(x) for t in terms for x in
+                                           [t[0], t[3]] + [y for _, y in t[1]]],
+                                *[np.shape(nodes[src]) for st in block for src, _ in st.inputs if src in nodes])
+    n = len(block)
+    m = np.zeros(shape + (n, n), dtype=complex)
+    rhs = np.zeros(shape + (n,), dtype=complex)
+    inv_a = 0.0 if open_loop_gain is None else 1.0 / np.asarray(open_loop_gain)
+    for k, (st, (yf, ys, ratio, yt)) in enumerate(zip(block, terms)):
+        m[..., k, k] += yt * inv_a + yf
+        for src, y in ys:
+            if src in index:
+                m[..., k, index[src]] += y
+            else:
+                rhs[..., k] -= nodes[src] * y
+        if ratio is not None:
+            src = st.plus[0]
+            if src in index:
+                m[..., k, index[src]] -= yt * ratio
+            else:
+                rhs[..., k] += nodes[src] * yt * ratio
+    with np.errstate(divide="ignore", invalid="ignore"):
+        v = np.linalg.solve(m, rhs[..., None])[..., 0]
+    return {st.output: v[..., k] for k, st in enumerate(block)}
+
+
+def output_node(topology: Topology) -> str:
+    return topology.stages[-1].output
