@@ -17,7 +17,6 @@ case needs only the standard library and numpy.
 from __future__ import annotations
 
 import difflib
-import math
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -828,7 +827,3 @@ def case_summary(case: Case) -> dict:
     if case.plant:
         out["plant"] = {"model": case.plant.expression, "dead_time_s": case.plant.dead_time_s}
     return out
-
-
-def _finite(x: float) -> bool:
-    return x is not None and math.isfinite(x)

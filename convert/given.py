@@ -183,8 +183,8 @@ def _read_pid(ctx, table: dict, dotted: str, base_dir: Path) -> dict:
                                 choices=PID_ALGORITHMS)
     _firmware_common(ctx, table, dotted, out)
     if pid.kd > 0 and pid.tf == 0 and out["method"] != "backward-euler":
-        raise ctx.error(f"{dotted}.method", f"an unfiltered derivative has a causal sampled form by backward-euler "
-                                            f"only; give the block's filter (n or tf) or method = \"backward-euler\"")
+        raise ctx.error(f"{dotted}.method", "an unfiltered derivative has a causal sampled form by backward-euler "
+                                            "only; give the block's filter (n or tf) or method = \"backward-euler\"")
     return out
 
 

@@ -86,7 +86,7 @@ def test_matrix_size_limit():
     """A resistive ladder of 2,500 nodes needs more unknowns than MAX_UNKNOWNS: refused in one line
     naming the limit (common practice)."""
     lines = ["long divider", "VIN n0 0 AC 1"] + [f"R{k} n{k} n{k + 1} 10" for k in range(2500)]
-    lines += [f"RG n2500 0 1k", "RO n2500 out 1", "RL out 0 1k"]
+    lines += ["RG n2500 0 1k", "RO n2500 out 1", "RL out 0 1k"]
     with pytest.raises(InputError, match=f"limit is {mna.MAX_UNKNOWNS:,}"):
         mna.transfer_function(read_netlist("\n".join(lines)), "VIN", "out")
 

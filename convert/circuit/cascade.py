@@ -34,7 +34,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from convert.circuit.topologies import AUTO_ORDER, TOPOLOGIES, Topology, get_topology
+from convert.circuit.topologies import AUTO_ORDER, TOPOLOGIES, Topology
 from convert.circuit.topologies.networks import C, R, Parallel, Series, Stage
 from convert.controller import Controller
 from convert.errors import UnrealizableError

@@ -9,7 +9,6 @@ source as is; a digital source through its own zero-order hold).
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 from typing import Any, Callable
 
@@ -165,8 +164,7 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
     if case.digital:
         realizations += _digital_realizations(case, src, analog_src, band, src_margins, duration, src_step,
                                               src_dist, tick, card_limits=card_limits, reduction=reduction)
-        if True:
-            advice = _rate_advice(case, analog_src, src_margins, src_step, src_dist, duration, src_stability)
+        advice = _rate_advice(case, analog_src, src_margins, src_step, src_dist, duration, src_stability)
         tick("sample-rate advice")
     if case.circuit:
         from convert.compare.circuitwork import circuit_realization
@@ -532,7 +530,3 @@ def _fmt_s(t: float) -> str:
     from convert.values import format_value
 
     return format_value(t, "second") if t > 0 else "0 s"
-
-
-def _finite(x) -> bool:
-    return x is not None and math.isfinite(x)

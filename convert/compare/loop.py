@@ -42,11 +42,9 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Sequence
 
 import numpy as np
 
-from convert.compare.frequency import response_seen_from_loop
 from convert.controller import Controller
 from convert.errors import InputError
 
@@ -54,14 +52,6 @@ MAX_SIM_STEPS = 4_000_000
 
 
 # ----------------------------------------------------------------------------- frequency domain
-def loop_response(controller: Controller, plant: Controller, dead_time_s: float, f_hz: Sequence[float], *,
-                  delay_s: float = 0.0, hold: str = "zoh") -> np.ndarray:
-    """Complex loop transfer L at ``f_hz`` (Hz): controller as seen from the loop × plant × dead time."""
-    f = np.asarray(f_hz, dtype=float)
-    c = response_seen_from_loop(controller, f, delay_s=delay_s, hold=hold, via="zpk")
-    return c * plant.frequency_response(f, via="zpk") * np.exp(-2j * np.pi * f * dead_time_s)
-
-
 @dataclass(frozen=True)
 class Margins:
     """Stability figures of one loop. ``None`` where a figure does not exist (e.g. no gain
@@ -98,14 +88,6 @@ def _rational(controller: Controller, plant: Controller, f: np.ndarray, delay_s:
         c = c * np.sinc(f * t)
         delay_total += t / 2
     return c * plant.frequency_response(f, via="zpk"), delay_total
-
-
-def _rational_and_delay(controller: Controller, plant: Controller, dead_time_s: float, f: np.ndarray,
-                        delay_s: float, hold: str) -> tuple[np.ndarray, np.ndarray]:
-    """(magnitude, unwrapped phase in rad) of L on the grid ``f``, pure delays added analytically."""
-    rational, delay_total = _rational(controller, plant, f, delay_s, hold, dead_time_s)
-    phase = np.unwrap(np.angle(rational), axis=-1) - 2 * np.pi * f * delay_total
-    return np.abs(rational), phase
 
 
 def margin_grid(controller: Controller, plant: Controller, *, f_low_hz: float | None = None,
@@ -375,19 +357,6 @@ def margins_of_responses(f_hz: np.ndarray, controller_responses: np.ndarray, pla
 @dataclass(frozen=True)
 class LoopResponse:
     """A simulated loop: times ``t`` (s), measurement ``y``, controller output ``u`` (after the
-    output limits), and what was simulated (``kind`` "setpoint" or "disturbance")."""
-
-    t: np.ndarray
-    y: np.ndarray
-    u: np.ndarray
-    kind: str
-    sub_step_s: float
-
-
-# ----------------------------------------------------------------------------- time domain
-@dataclass(frozen=True)
-class LoopResponse:
-    """A simulated loop: times ``t`` (s), measurement ``y``, controller output ``u`` (after the
     output limits), and what was simulated (``kind`` "setpoint" or "disturbance"); ``sub_step_s``
     the spacing of ``t``."""
 
@@ -592,7 +561,7 @@ class _SampledLoop(_LoopSystem):
         return 0 if k < self.nd else (1 if k == self.nd else 2)
 
     def build(self, key, mode):
-        np_, nc, iu, dim, n = self.np_, self.nc, self.iu, self.dim, self.n
+        np_, iu, dim, n = self.np_, self.iu, self.dim, self.n
         one = dim - 1
         unit = np.eye(dim)
         y_row = np.zeros(dim)
@@ -1029,7 +998,7 @@ def default_duration(controller: Controller, plant: Controller, dead_time_s: flo
     else:
         pad_num = pad_den = np.array([1.0])
     if controller.is_digital:  # no analog stand-in here: fall back to the crossover rule
-        return float(min(max(30.0 / wc, 10.0 / wc), 80.0 / wc) + 3 * theta)
+        return float(30.0 / wc + 3 * theta)
     c_num, c_den = np.array(controller.num), np.array(controller.den)
     den = np.polyadd(np.polymul(np.polymul(c_den, plant.den), pad_den),
                      np.polymul(np.polymul(c_num, plant.num), pad_num))

@@ -17,7 +17,7 @@ from pathlib import Path
 
 import numpy as np
 
-from convert.case import Case, Criteria, Plant, Signals
+from convert.case import Case, Criteria, Signals
 from convert.compare.frequency import ResponseError, compare_responses, log_grid, response_seen_from_loop
 from convert.errors import InputError
 

@@ -97,13 +97,6 @@ def impulse(analog: Controller, src: RootForm, t: float) -> tuple[RootForm, list
     return _state_space_result(poles, phi, bd, c, dd, t), notes
 
 
-def _substitute(src: RootForm, t: float, root_map, inf_zero, gain_factor) -> RootForm:
-    zeros = [root_map(z) for z in src.zeros] + [inf_zero] * src.relative_degree
-    zeros = [z for z in zeros if z is not None]
-    poles = [root_map(p) for p in src.poles]
-    return RootForm(tuple(zeros), tuple(poles), gain_factor, t)
-
-
 def tustin(analog: Controller, src: RootForm, t: float, prewarp_hz: float | None = None) -> tuple[RootForm, list[str]]:
     """Bilinear map s = (2/T')·(z−1)/(z+1); T' = T, or with prewarp at f_p:
     T' = 2·tan(π f_p T)/(2π f_p), which makes the responses equal at f_p. Zeros at infinity go to

@@ -56,13 +56,6 @@ def _delay_refusal(rd: int, method: str, extra: str) -> UnrealizableError:
         "to the comparison (--delay 1sample), or use --method zoh", key="controller")
 
 
-def _gain_by_point(analog_shape: RootForm, digital: RootForm, s_of_z) -> float:
-    cands = np.exp(1j * np.linspace(0.05, 3.0, 41))
-    z0 = ss.quiet_point(np.concatenate([np.asarray(digital.zeros), np.asarray(digital.poles)]), cands)
-    s0 = s_of_z(z0)
-    return float(np.real(digital.at(z0) / analog_shape.unit_gain_at(s0)))
-
-
 @dataclass(frozen=True)
 class AnalogReading:
     """The analog controller read back from a digital one, and what was read into it: poles
