@@ -1,0 +1,213 @@
+"""The Python model of each structure's arithmetic in each word format: the reference the
+generated code is checked against (bit for bit in fixed point and float32).
+
+A model is stateful: ``reset()``, ``step(x) -> y`` (user units), ``run(xs) -> ys`` (the same
+arithmetic over an array, from the current state), ``set_level(u)`` (the state of an
+integrating controller holding output u with zero input). Fixed-point models also have
+``step_int``/``run_int`` on words (the generated C's interface).
+
+Operation order per section (the generated C follows it):
+
+* ``df1``: ``acc = b0·x; acc += b1·x1; …; acc −= a1·y1; …`` then the histories shift.
+* ``df2t``: ``y = b0·x + s0; s_k = (b_{k+1}·x − a_{k+1}·y) + s_{k+1}; s_{m−1} = b_m·x − a_m·y``.
+* ``delta``: ``y = b0·x + s0; w_k = (b_{k+1}·x − a_{k+1}·y) + s_{k+1}; s_k = s_k + Δ·w_k``
+  (k ascending; ``s_m`` is 0).
+Floating point rounds after every operation (numpy float32 scalars round as C float does in
+ISO C mode without fused multiply-add).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from convert.digital.fixedpoint import Realized
+
+
+def model_of(real: Realized):
+    return FixedModel(real) if real.word.is_fixed else FloatModel(real)
+
+
+class FloatModel:
+    def __init__(self, real: Realized):
+        self.real = real
+        self.cast = np.float32 if real.word.bits == 32 else float
+        c = self.cast
+        self.form = real.form
+        self.coefs = [([c(v) for v in s.b], [c(v) for v in s.a]) for s in real.sections]
+        self.delta = c(real.layout.delta_step) if real.layout.delta_step else None
+        self.reset()
+
+    def reset(self) -> None:
+        z = self.cast(0.0)
+        if self.form == "df1":
+            self.state = [([z] * (len(b) - 1), [z] * (len(a) - 1)) for b, a in self.coefs]
+        else:
+            self.state = [[z] * (len(a) - 1) for b, a in self.coefs]
+
+    def set_level(self, u: float) -> None:
+        """Steady state with zero input and output ``u``: only the last section (which holds the
+        poles at z = 1) carries it."""
+        self.reset()
+        u = self.cast(u)
+        b, a = self.coefs[-1]
+        if self.form == "df1":
+            xh, yh = self.state[-1]
+            self.state[-1] = (xh, [u] * len(yh))
+        elif self.form == "df2t":
+            m = len(a) - 1
+            self.state[-1] = [self.cast(-float(u) * sum(float(v) for v in a[k + 1:])) for k in range(m)]
+        else:
+            m = len(a) - 1
+            self.state[-1] = [u] + [self.cast(float(a[k]) * float(u)) for k in range(1, m)]
+
+    def step(self, x) -> float:
+        c = self.cast
+        v = c(x)
+        with np.errstate(over="ignore", invalid="ignore"):
+            for i, (b, a) in enumerate(self.coefs):
+                if self.form == "df1":
+                    xh, yh = self.state[i]
+                    acc = b[0] * v
+                    for k in range(1, len(b)):
+                        acc = acc + b[k] * xh[k - 1]
+                    for k in range(1, len(a)):
+                        acc = acc - a[k] * yh[k - 1]
+                    if xh:
+                        xh.insert(0, v)
+                        xh.pop()
+                        yh.insert(0, acc)
+                        yh.pop()
+                    v = acc
+                elif self.form == "df2t":
+                    s = self.state[i]
+                    m = len(a) - 1
+                    y = b[0] * v + s[0] if m else b[0] * v
+                    for k in range(m):
+                        t = b[k + 1] * v - a[k + 1] * y
+                        s[k] = t + s[k + 1] if k + 1 < m else t
+                    v = y
+                else:
+                    s = self.state[i]
+                    m = len(a) - 1
+                    y = b[0] * v + s[0] if m else b[0] * v
+                    for k in range(m):
+                        t = b[k + 1] * v - a[k + 1] * y
+                        w = t + s[k + 1] if k + 1 < m else t
+                        s[k] = s[k] + self.delta * w
+                    v = y
+        return float(v)
+
+    def run(self, xs) -> np.ndarray:
+        return np.array([self.step(x) for x in np.asarray(xs, dtype=float)])
+
+
+class FixedModel:
+    """Direct form I sections on words (see :mod:`convert.digital.wordformats` for rounding and
+    saturation). User units: input word = round(x / R · 2^(W−1)), output = word · S_last / 2^(W−1)."""
+
+    def __init__(self, real: Realized):
+        self.real = real
+        w = real.word
+        self.lo, self.hi = w.word_min, w.word_max
+        self.full = 1 << (w.bits - 1)
+        self.secs = [(list(s.b_int), list(s.a_int[1:]), s.shift) for s in real.sections]
+        self.reset()
+
+    def reset(self) -> None:
+        self.state = [([0] * (len(b) - 1), [0] * len(a)) for b, a, _ in self.secs]
+
+    def to_word(self, x: float) -> int:
+        import math
+
+        v = math.floor(float(x) / self.real.input_range * self.full + 0.5)
+        return self.lo if v < self.lo else self.hi if v > self.hi else int(v)
+
+    def from_word(self, v) -> float:
+        return float(v) * self.real.node_scales[-1] / self.full
+
+    def set_level(self, u: float) -> None:
+        import math
+
+        self.reset()
+        v = math.floor(u / self.real.node_scales[-1] * self.full + 0.5)
+        v = self.lo if v < self.lo else self.hi if v > self.hi else int(v)
+        xh, yh = self.state[-1]
+        self.state[-1] = (xh, [v] * len(yh))
+
+    def step_int(self, v: int) -> int:
+        lo, hi = self.lo, self.hi
+        for i, (b, a, sh) in enumerate(self.secs):
+            xh, yh = self.state[i]
+            acc = b[0] * v
+            for k in range(1, len(b)):
+                acc += b[k] * xh[k - 1]
+            for k in range(len(a)):
+                acc -= a[k] * yh[k]
+            y = (acc + (1 << (sh - 1))) >> sh
+            y = lo if y < lo else hi if y > hi else y
+            if xh:
+                xh.insert(0, v)
+                xh.pop()
+            if yh:
+                yh.insert(0, y)
+                yh.pop()
+            v = y
+        return v
+
+    def step(self, x: float) -> float:
+        return self.from_word(self.step_int(self.to_word(x)))
+
+    def run(self, xs) -> np.ndarray:
+        words = [self.to_word(x) for x in np.asarray(xs, dtype=float)]
+        return self.run_int(words).astype(float) * (self.real.node_scales[-1] / self.full)
+
+    def run_int(self, words) -> np.ndarray:
+        """The same arithmetic as :meth:`step_int` over a sequence of words, one section at a
+        time: the feed-forward sums as an exact integer convolution, the feedback in a loop."""
+        v = np.asarray(words, dtype=np.int64)
+        lo, hi = self.lo, self.hi
+        for i, (b, a, sh) in enumerate(self.secs):
+            xh, yh = self.state[i]
+            nb = len(b)
+            ext = np.concatenate([np.asarray(xh[::-1], dtype=np.int64), v]) if xh else v
+            ff = np.convolve(ext, np.asarray(b, dtype=np.int64))[nb - 1:nb - 1 + v.size] if nb > 1 else v * b[0]
+            half = 1 << (sh - 1)
+            out = [0] * v.size
+            ffl = ff.tolist()
+            m = len(a)
+            if m == 0:
+                for n, f in enumerate(ffl):
+                    y = (f + half) >> sh
+                    out[n] = lo if y < lo else hi if y > hi else y
+            elif m == 1:
+                a1, = a
+                y1, = yh
+                for n, f in enumerate(ffl):
+                    y = (f - a1 * y1 + half) >> sh
+                    y1 = out[n] = lo if y < lo else hi if y > hi else y
+                yh = [y1]
+            elif m == 2:
+                a1, a2 = a
+                y1, y2 = yh
+                for n, f in enumerate(ffl):
+                    y = (f - a1 * y1 - a2 * y2 + half) >> sh
+                    y2 = y1
+                    y1 = out[n] = lo if y < lo else hi if y > hi else y
+                yh = [y1, y2]
+            else:
+                hist = list(yh)
+                for n, f in enumerate(ffl):
+                    acc = f
+                    for k in range(m):
+                        acc -= a[k] * hist[k]
+                    y = (acc + half) >> sh
+                    y = lo if y < lo else hi if y > hi else y
+                    hist.insert(0, y)
+                    hist.pop()
+                    out[n] = y
+                yh = hist
+            allx = (list(xh[::-1]) + v.tolist())
+            newx = allx[::-1][:len(xh)] if xh else []
+            self.state[i] = (newx, list(yh))
+            v = np.asarray(out, dtype=np.int64)
+        return v

@@ -1,0 +1,212 @@
+"""Realizing a structure in a word format: the stored coefficients and, for fixed point, the
+scaling of every node.
+
+Fixed-point scaling rule (stated in the generated code and the report):
+
+* the input word's full scale is the stated input range R (the largest |input|, user units);
+* the output of section i is scaled so that its full scale S_i covers its peak-gain bound:
+  S_i = R · 2^ceil(log2(1.01 · ‖h_i‖₁)) where ‖h_i‖₁ is the L1 norm of the impulse response
+  from the input to that node (the exact bound on |node| for any input within ±R);
+* a node with no such bound (after an integrator, ‖h‖₁ infinite) takes the output level U
+  (the largest |output limit|) as its full scale, so it saturates there; only the last
+  section may hold such poles (the section order puts them last), otherwise the realization
+  is refused;
+* section i then realizes (S_{i−1}/S_i)·H_i in word units: its numerator is multiplied by
+  S_{i−1}/S_i before quantization;
+* coefficients of a section share one headroom shift k ≥ 0: the smallest k with every stored
+  integer within the word and 2^(W−1)·Σ|c_int| + 2^(W−2) < 2^(A−1) (A the accumulator bits), so
+  the accumulator never overflows whatever the state words hold.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from convert.digital.structures import Layout, Section, z_poly_roots
+from convert.digital.wordformats import WordFormat, quantize_coefficient
+from convert.errors import InputError, UnrealizableError
+
+
+@dataclass(frozen=True)
+class StoredSection:
+    """A section as stored: ``b``/``a`` the values the stored words stand for (float64, exact),
+    and for fixed point the integers and the right shift after accumulation."""
+
+    b: tuple[float, ...]
+    a: tuple[float, ...]
+    b_int: tuple[int, ...] | None = None
+    a_int: tuple[int, ...] | None = None
+    shift: int = 0
+
+
+@dataclass(frozen=True)
+class Realized:
+    """A layout in a word format. ``node_scales`` (fixed point): full scale of the input and of
+    each section's output, user units; ``node_bounds``: peak-gain bound ‖h‖₁·R of each section
+    output (inf after an integrator), user units; ``input_range`` R and ``output_level`` U."""
+
+    layout: Layout
+    word: WordFormat
+    sections: tuple[StoredSection, ...]
+    input_range: float
+    output_level: float
+    node_scales: tuple[float, ...] = ()
+    node_bounds: tuple[float, ...] = ()
+
+    @property
+    def structure(self) -> str:
+        return self.layout.structure
+
+    @property
+    def form(self) -> str:
+        return self.layout.form
+
+    def model(self):
+        from convert.digital.arithmetic import model_of
+
+        return model_of(self)
+
+
+# ----------------------------------------------------------------------------- peak-gain bounds
+def z_equivalent(layout: Layout, s: Section) -> tuple[np.ndarray, np.ndarray]:
+    """The float64 z-domain b/a of a section (a δ-section mapped back through its roots)."""
+    if layout.form != "delta":
+        return np.asarray(s.b, float), np.asarray(s.a, float)
+    b = np.trim_zeros(np.asarray(s.b, float), "f")
+    lead = b[0] if b.size else 0.0
+    g = lead * layout.delta_step ** (len(s.poles) - len(s.zeros))
+    m = len(s.poles)
+    bz = np.real(np.poly(s.zeros)) if s.zeros else np.array([1.0])
+    bb = np.concatenate([np.zeros(m - len(s.zeros)), g * bz]) if m else np.array([g])
+    aa = np.real(np.poly(s.poles)) if m else np.array([1.0])
+    return bb, aa
+
+
+def _keeps_integrator(layout: Layout, s: Section) -> bool:
+    """A second-order z-section of the ``sections`` structure holding a designed pole at z = 1:
+    its coefficients are stored so that 1 + a1 + a2 = 0 holds exactly in the word format
+    (a2 first, a1 = −(1 + a2)), so the integrator survives quantization."""
+    return layout.structure == "sections" and s.order == 2 and any(p == 1 for p in s.poles)
+
+
+def _is_marginal(poles) -> bool:
+    return any(abs(p) >= 1 - 1e-12 for p in poles)
+
+
+def peak_gains(layout: Layout) -> list[float]:
+    """‖h_i‖₁ from the input to each section's output (inf once a pole on the unit circle is
+    passed). Impulse responses in float64 run until the slowest pole has decayed by e^-30,
+    at most 2·10^6 samples, plus a geometric bound on the rest."""
+    from scipy.signal import sosfilt, tf2sos
+
+    out = []
+    rows = []
+    radius = 0.0
+    marginal = False
+    for s in layout.sections:
+        b, a = z_equivalent(layout, s)
+        n = max(len(b), len(a), 3)
+        bb = np.concatenate([b, np.zeros(n - len(b))])
+        aa = np.concatenate([a, np.zeros(n - len(a))])
+        marginal = marginal or _is_marginal(s.poles)
+        radius = max([radius] + [abs(p) for p in s.poles])
+        if marginal:
+            out.append(math.inf)
+            continue
+        rows.extend(tf2sos(bb, aa) if n > 3 else [np.concatenate([bb, aa])])
+        length = int(min(2e6, max(1000, math.ceil(30.0 / max(1.0 - radius, 1e-300)))))
+        x = np.zeros(length)
+        x[0] = 1.0
+        h = sosfilt(np.array(rows), x)
+        tail = abs(h[-1]) * radius / max(1.0 - radius, 1e-300) * 2
+        out.append(float(np.sum(np.abs(h)) + tail))
+    return out
+
+
+# ----------------------------------------------------------------------------- realize
+def realize(layout: Layout, word: WordFormat, *, input_range: float | None = None,
+            output_level: float | None = None) -> Realized:
+    """Store ``layout`` in ``word``. Fixed point needs ``input_range`` (largest |input|, user
+    units) and, for an integrating controller, ``output_level`` (largest |output|)."""
+    r = float(input_range) if input_range else 1.0
+    u = float(output_level) if output_level else 1.0
+    if not word.is_fixed:
+        cast = np.float32 if word.bits == 32 else np.float64
+        secs = []
+        for s in layout.sections:
+            a = [float(cast(v)) for v in s.a]
+            if _keeps_integrator(layout, s):
+                # 1 + a2 on the format's grid, then a1 = −(1 + a2) exactly: the pole stays at z = 1
+                one_plus = float(cast(1.0 + s.a[2]))
+                a = [1.0, -one_plus, one_plus - 1.0]
+            secs.append(StoredSection(tuple(float(cast(v)) for v in s.b), tuple(a)))
+        return Realized(layout, word, tuple(secs), r, u)
+    if layout.form not in ("df1",):
+        raise UnrealizableError(
+            f"{word.name} is offered for the direct-form-I structures (direct1, sections) only: {layout.structure} "
+            "keeps sums of products as states, which need more headroom than a word; use structure sections",
+            key="structure")
+    if not input_range or not math.isfinite(r) or r <= 0:
+        raise InputError(f"{word.name} needs the input range (largest |error|, in controller input units) to scale "
+                         "its words, e.g. input_range = [-10, 10]", key="input_range")
+    gains = peak_gains(layout)
+    scales = [r]
+    bounds = []
+    for i, g in enumerate(gains):
+        if math.isinf(g):
+            if i != len(gains) - 1:
+                raise UnrealizableError(
+                    f"section {i + 1} of {len(gains)} follows a pole on the unit circle: its words have no bound from "
+                    f"the input range; {word.name} cannot hold it (two integrators?)", key="structure")
+            if not output_level:
+                raise InputError(f"{word.name}: the controller integrates, so its output has no bound from the input "
+                                 "range; give output limits (the integrator saturates there)", key="output_limits")
+            scales.append(u)
+            bounds.append(math.inf)
+        else:
+            bounds.append(g * r)
+            scales.append(r * 2.0 ** math.ceil(math.log2(max(1.01 * g, 1e-300))))
+    stored = []
+    w = word.bits
+    for i, s in enumerate(layout.sections):
+        ratio = scales[i] / scales[i + 1]
+        coefs_b = [v * ratio for v in s.b]
+        coefs_a = list(s.a[1:])
+        k = 0
+        while True:
+            frac = w - 1 - k
+            if frac < 1:
+                raise UnrealizableError(f"section {i + 1}: coefficients up to {max(map(abs, coefs_b + coefs_a)):.3g} "
+                                        f"do not fit {word.name} words", key="word_format")
+            bi = [quantize_coefficient(c, frac) for c in coefs_b]
+            ai = [quantize_coefficient(c, frac) for c in coefs_a]
+            if _keeps_integrator(layout, s):
+                ai[0] = -((1 << frac) + ai[1])  # 1 + a1 + a2 = 0 exactly: the pole stays at z = 1
+            allc = bi + ai
+            if (max(abs(c) for c in allc) <= word.word_max
+                    and (1 << (w - 1)) * sum(abs(c) for c in allc) + (1 << (w - 2)) < (1 << (word.accumulator_bits - 1))):
+                break
+            k += 1
+        den = float(1 << frac)
+        stored.append(StoredSection(tuple(c / den for c in bi), (1.0,) + tuple(c / den for c in ai),
+                                    tuple(bi), (1 << frac,) + tuple(ai), frac))
+    return Realized(layout, word, tuple(stored), r, u, tuple(scales), tuple(bounds))
+
+
+def realized_poles(real: Realized) -> list[tuple[list[complex], int]]:
+    """Per section: the poles in z of the stored coefficients, and how many sit exactly at 1."""
+    from convert.digital.structures import delta_roots
+
+    out = []
+    for s in real.sections:
+        if real.form == "delta":
+            d = real.layout.delta_step
+            if real.word.bits == 32 and not real.word.is_fixed:
+                d = float(np.float32(d))
+            out.append(delta_roots(s.a, d))
+        else:
+            out.append(z_poly_roots(s.a))
+    return out

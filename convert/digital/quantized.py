@@ -1,0 +1,331 @@
+"""What a structure in a word format does to a controller: the analysis behind the report's
+word-format row, ``loopshift digital --structure`` and ``loopshift code --json``.
+
+For one structure × word format (:func:`analyze`):
+
+* coefficient error — the largest |stored − exact| over a section's coefficients, relative to
+  that section's largest coefficient;
+* pole and zero displacement — the roots of the stored coefficients (computed in w = z − 1 or in
+  δ, exactly shifted, so roots crowding at z = 1 are resolved) against the directly mapped roots;
+* stability — a pole of the stored coefficients on or outside the unit circle is a failure,
+  except a pole exactly at z = 1 the design has (an integrator kept exactly);
+* response error — the stored coefficients' response (exactly evaluated) against the directly
+  mapped roots, over the band: quantization alone, no hold, no delay;
+* overflow — the peak-gain bound ‖h‖₁·R per section output (R the input range); fixed point
+  fails when a bound exceeds its node's full scale, float when it exceeds the format's range;
+* limit cycles (fixed point) — from random states with zero input, per section without
+  unit-circle poles, the largest output left after the linear response has died out;
+* integrator stall — for a controller with a pole at z = 1: the smallest constant error that
+  still moves the output, held at the output level U, by at least half of what the exact
+  controller does (over samples 8…72 after the error appears), in controller input units. It
+  fails when larger than the stated input resolution (default: R / 2^15).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from convert.digital.fixedpoint import Realized, peak_gains, realize, realized_poles
+from convert.digital.structures import STRUCTURES, build_layout, section_response, section_zeros
+from convert.digital.wordformats import FORMATS, WordFormat, get_format
+from convert.errors import LoopshiftError
+
+STALL_FROM, STALL_TO = 8, 72
+LIMIT_CYCLE_TRIALS = 32
+LIMIT_CYCLE_SAMPLES = 20000
+
+
+@dataclass(frozen=True)
+class FormatAnalysis:
+    """The figures for one structure × word format (see the module doc). ``failures`` are
+    one-line reasons the realization must not be used; ``refused`` says why it could not be
+    built at all (then the figures are None)."""
+
+    structure: str
+    word_format: str
+    realized: Realized | None = None
+    refused: str | None = None
+    coefficient_error: float | None = None
+    pole_shift: float | None = None
+    zero_shift: float | None = None
+    max_pole_radius: float | None = None
+    unstable_poles: tuple[complex, ...] = ()
+    response_error: float | None = None
+    gain_error_db: float | None = None
+    phase_error_deg: float | None = None
+    error_at_hz: float | None = None
+    node_bounds: tuple[float, ...] = ()
+    headroom_db: float | None = None
+    limit_cycle: float | None = None  # largest, controller output units
+    limit_cycle_lsb: int | None = None
+    stall_error: float | None = None
+    stall_limit: float | None = None
+    input_range: float | None = None
+    output_level: float | None = None
+    failures: tuple[str, ...] = ()
+    notes: tuple[str, ...] = field(default=())
+
+    @property
+    def ok(self) -> bool:
+        return self.refused is None and not self.failures
+
+    def summary(self) -> dict:
+        out = {k: v for k, v in self.__dict__.items() if k != "realized"}
+        if self.realized is not None:
+            out["sections"] = [{"b": list(s.b), "a": list(s.a)} for s in self.realized.sections]
+            if self.realized.word.is_fixed:
+                out["node_scales"] = list(self.realized.node_scales)
+                out["sections_int"] = [{"b": list(s.b_int), "a": list(s.a_int), "shift": s.shift}
+                                       for s in self.realized.sections]
+            if self.realized.layout.delta_step:
+                out["delta_step_s"] = self.realized.layout.delta_step
+        return out
+
+
+def default_input_range(roots, output_level: float) -> float:
+    """The error that drives the output to ``output_level`` through the controller's gain at
+    high frequency (the larger of |C| at fs/2 and fs/4): used when no input range is stated."""
+    t = roots.sample_period_s
+    g = max(abs(roots.frequency_response(np.array([0.5 / t, 0.25 / t]))))
+    return output_level / g if g > 0 and math.isfinite(g) else output_level
+
+
+def _match(exact, got) -> float:
+    exact, got = list(exact), list(got)
+    worst = 0.0
+    for p in exact:
+        if not got:
+            break
+        j = int(np.argmin([abs(p - q) for q in got]))
+        worst = max(worst, abs(p - got.pop(j)))
+    return worst
+
+
+def analyze(roots, structure: str, word_format: str | WordFormat, band_f_hz, *, b=None, a=None,
+            input_range: float | None = None, output_level: float | None = None,
+            input_resolution: float | None = None) -> FormatAnalysis:
+    """Analyze the controller with z-domain ``roots`` (:class:`RootForm`; ``b``/``a`` its
+    expanded polynomial for the direct forms) in ``structure`` × ``word_format`` over the band
+    ``band_f_hz`` (Hz). ``input_range`` R and ``output_level`` U in controller input/output
+    units (defaults: U = 1, R = :func:`default_input_range`); ``input_resolution`` the smallest
+    error the integrator must still act on (default R / 2^15)."""
+    word = word_format if isinstance(word_format, WordFormat) else get_format(word_format)
+    layout = build_layout(structure, roots, b, a)
+    notes = []
+    u = float(output_level) if output_level else 1.0
+    if not output_level:
+        notes.append("output level U = 1 (no output limits given)")
+    r = float(input_range) if input_range else default_input_range(roots, u)
+    if not input_range:
+        notes.append(f"input range R = {r:.4g} (the error that drives the output to U through the high-frequency gain)")
+    res = float(input_resolution) if input_resolution else r / 2 ** 15
+    base = dict(structure=layout.structure, word_format=word.name, input_range=r, output_level=u, stall_limit=res)
+    try:
+        real = realize(layout, word, input_range=input_range if word.is_fixed else r, output_level=u)
+    except LoopshiftError as exc:
+        return FormatAnalysis(**base, refused=exc.message, notes=tuple(notes))
+    f = np.asarray(band_f_hz, dtype=float)
+    t = layout.sample_period_s
+    failures: list[str] = []
+
+    # coefficients and roots
+    cerr = 0.0
+    for k, (s_exact, s_q) in enumerate(zip(layout.sections, real.sections)):
+        exact = np.concatenate([np.asarray(s_exact.b) * _ratio(real, k), np.asarray(s_exact.a)])
+        got = np.concatenate([s_q.b, s_q.a])
+        scale = max(np.max(np.abs(exact)), 1e-300)
+        cerr = max(cerr, float(np.max(np.abs(got - exact)) / scale))
+    poles_q = realized_poles(real)
+    designed_ones = sum(1 for s in layout.sections for p in s.poles if p == 1)
+    got_ones = sum(n for _, n in poles_q)
+    all_q = [p for ps, _ in poles_q for p in ps]
+    all_exact = [p for s in layout.sections for p in s.poles]
+    pole_shift = _match(all_exact, all_q)
+    zeros_q = [z for s in real.sections for z in section_zeros(real.form, s.b, _delta(real))]
+    zero_shift = _match([z for s in layout.sections for z in s.zeros], zeros_q)
+    others = [p for ps, n in poles_q for p in ps[n:]]
+    # a designed integrator whose stored pole is not exactly 1: accepted when it would take at
+    # least a year of operation to double (|p| − 1 ≤ ln 2 / samples per year)
+    year = math.log(2) / (365.25 * 86400 / t)
+    for _ in range(max(designed_ones - got_ones, 0)):
+        near = min(others, key=lambda p: abs(p - 1), default=None)
+        if near is not None and abs(near - 1) < 1e-2 and abs(near) - 1 <= year:
+            others.remove(near)
+            if abs(near) > 1:
+                notes.append(f"the integrator pole is stored at |z| = 1 + {abs(near) - 1:.2g}: its drift doubles only "
+                             f"after {math.log(2) / math.log(abs(near)) * t / 86400 / 365.25:.3g} years")
+            else:
+                tc = t / max(1 - abs(near), 1e-300)
+                notes.append(f"the integrator pole moved from z = 1 to |z| = {abs(near):.12g}: it leaks with a time "
+                             f"constant of {tc:.4g} s (it no longer removes a steady error exactly)")
+    unstable = tuple(p for p in others if abs(p) >= 1.0)
+    max_radius = max([abs(p) for p in all_q], default=0.0)
+    if unstable:
+        worst = max(unstable, key=abs)
+        failures.append(f"unstable: a pole of the stored coefficients at |z| = {abs(worst):.8g} "
+                        f"(z = {_c(worst)}); its output grows without bound")
+    if got_ones > designed_ones:
+        failures.append(f"{got_ones - designed_ones} pole(s) exactly at z = 1 the design does not have (a new integrator)")
+
+    # response
+    resp = np.ones(f.size, complex) * (real.node_scales[-1] / real.node_scales[0] if word.is_fixed else 1.0)
+    for s in real.sections:
+        resp = resp * section_response(real.form, s.b, s.a, f, t, _delta(real))
+    ref = roots.frequency_response(f)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = resp / ref
+        rel = np.nan_to_num(np.abs(ratio - 1), nan=np.inf)
+        i = int(np.argmax(rel)) if rel.size else 0
+        gdb = float(np.max(np.abs(20 * np.log10(np.abs(ratio))))) if rel.size else 0.0
+        pdeg = float(np.max(np.abs(np.degrees(np.angle(ratio))))) if rel.size else 0.0
+
+    # overflow
+    gains = peak_gains(layout)
+    bounds = tuple(g * r for g in gains)
+    headroom = None
+    if word.is_fixed:
+        finite = [(s, bnd) for s, bnd in zip(real.node_scales[1:], bounds) if math.isfinite(bnd)]
+        headroom = min((20 * math.log10(s / bnd) for s, bnd in finite if bnd > 0), default=None)
+        if headroom is not None and headroom < 0:
+            failures.append(f"overflow: a node's peak-gain bound is {-headroom:.3g} dB above its full scale")
+    else:
+        big = [bnd for bnd in bounds if math.isfinite(bnd) and bnd > word.max_value]
+        if big:
+            failures.append(f"overflow: peak-gain bound {max(big):.3g} exceeds the {word.name} range")
+
+    lc = lc_lsb = None
+    if word.is_fixed:
+        lc_lsb, lc = _limit_cycles(real, layout, notes)
+
+    stall = None
+    if designed_ones:
+        stall = _stall(real, layout, r, u)
+        if stall is None or stall > res:
+            shown = "no error up to the input range" if stall is None else f"{stall:.4g}"
+            failures.append(f"integrator stall: at output level {u:.4g} the smallest error that still moves the "
+                            f"integral is {shown} (input units), above the resolution {res:.4g}")
+    return FormatAnalysis(**base, realized=real, coefficient_error=cerr, pole_shift=pole_shift, zero_shift=zero_shift,
+                          max_pole_radius=max_radius, unstable_poles=unstable, response_error=float(rel[i]) if rel.size else 0.0,
+                          gain_error_db=gdb, phase_error_deg=pdeg, error_at_hz=float(f[i]) if f.size else None,
+                          node_bounds=bounds, headroom_db=headroom, limit_cycle=lc, limit_cycle_lsb=lc_lsb,
+                          stall_error=stall, failures=tuple(failures), notes=tuple(notes))
+
+
+def _delta(real: Realized) -> float | None:
+    d = real.layout.delta_step
+    if d and real.word.bits == 32 and not real.word.is_fixed:
+        return float(np.float32(d))
+    return d
+
+
+def _ratio(real: Realized, i: int) -> float:
+    if not real.word.is_fixed:
+        return 1.0
+    return real.node_scales[i] / real.node_scales[i + 1]
+
+
+def _c(z: complex) -> str:
+    return f"{z.real:.8g}{z.imag:+.3g}j" if abs(z.imag) > 0 else f"{z.real:.10g}"
+
+
+def _limit_cycles(real: Realized, layout, notes: list[str]) -> tuple[int, float]:
+    """Zero input from random states, per section (vectorized over trials)."""
+    w = real.word
+    rng = np.random.default_rng(12)
+    worst_lsb, worst_units = 0, 0.0
+    undecided = []
+    for i, (s, s0) in enumerate(zip(real.sections, layout.sections)):
+        a = np.asarray(s.a_int[1:], dtype=np.int64)
+        m = a.size
+        if m == 0 or any(abs(p) >= 1 - 1e-12 for p in s0.poles):
+            continue
+        radius = max(abs(p) for p in s0.poles)
+        need = math.log(2.0 ** w.bits) / max(-math.log(max(radius, 1e-300)), 1e-300) + 200
+        n = int(min(LIMIT_CYCLE_SAMPLES, need))
+        if need > LIMIT_CYCLE_SAMPLES:
+            undecided.append(i + 1)
+        y = rng.integers(w.word_min // 2, w.word_max // 2, size=(m, LIMIT_CYCLE_TRIALS), dtype=np.int64)
+        half = np.int64(1 << (s.shift - 1))
+        amp = np.zeros(LIMIT_CYCLE_TRIALS, dtype=np.int64)
+        for k in range(n):
+            acc = -(a[:, None] * y).sum(axis=0)
+            new = np.clip((acc + half) >> s.shift, w.word_min, w.word_max)
+            y = np.vstack([new[None, :], y[:-1]])
+            if k >= n - 100:
+                amp = np.maximum(amp, np.abs(new))
+        lsb = int(amp.max())
+        if lsb > worst_lsb:
+            worst_lsb, worst_units = lsb, lsb * real.node_scales[i + 1] / 2 ** (w.bits - 1)
+    if undecided:
+        notes.append(f"limit-cycle search: section(s) {', '.join(map(str, undecided))} decay too slowly to decide within "
+                     f"{LIMIT_CYCLE_SAMPLES} samples")
+    if worst_lsb:
+        notes.append(f"limit cycle with zero input: up to {worst_lsb} LSB ({worst_units:.3g} in that node's units)")
+    return worst_lsb, worst_units
+
+
+def _stall(real: Realized, layout, r: float, u: float) -> float | None:
+    """Smallest constant error (bisection in log scale between R·1e-12 and R) that moves the
+    output held at level U by at least half the exact movement; None if even R does not."""
+    exact = realize(layout, FORMATS["float64"]).model()
+    ones = exact.run(np.ones(STALL_TO + 1))
+    expected_per_unit = ones[STALL_TO] - ones[STALL_FROM]
+    if expected_per_unit == 0:
+        return None
+    sign = -1.0 if expected_per_unit * u > 0 else 1.0  # move from the level toward zero
+    m = real.model()
+    m.set_level(u)
+    drift = m.run(np.zeros(STALL_TO + 1))
+    drift = drift[STALL_TO] - drift[STALL_FROM]
+
+    def moves(e: float) -> bool:
+        m.set_level(u)
+        y = m.run(np.full(STALL_TO + 1, sign * e))
+        got = y[STALL_TO] - y[STALL_FROM] - drift
+        want = sign * e * expected_per_unit
+        return got / want >= 0.5
+
+    lo, hi = r * 1e-12, r
+    if not moves(hi):
+        return None
+    if moves(lo):
+        return lo
+    for _ in range(40):
+        mid = math.sqrt(lo * hi)
+        if moves(mid):
+            hi = mid
+        else:
+            lo = mid
+        if hi / lo < 1.05:
+            break
+    return hi
+
+
+def analyze_all(roots, band_f_hz, *, b=None, a=None, formats=None, structures=None, **kw) -> list[FormatAnalysis]:
+    """:func:`analyze` for every structure × word format (or the ones named)."""
+    return [analyze(roots, s, fmt, band_f_hz, b=b, a=a, **kw)
+            for fmt in (formats or tuple(FORMATS)) for s in (structures or tuple(STRUCTURES))]
+
+
+def recommend(analyses: list[FormatAnalysis]) -> tuple[str | None, str]:
+    """The structure to use for one word format: among those without failures, the smallest
+    response error (ties: the order of :data:`STRUCTURES`, fewer operations first). Returns
+    (structure or None, the reason in numbers)."""
+    good = [x for x in analyses if x.ok]
+    parts = []
+    for x in analyses:
+        if x.refused:
+            parts.append(f"{x.structure}: not offered ({x.refused.split(';')[0]})")
+        elif x.failures:
+            parts.append(f"{x.structure}: {x.failures[0]}")
+        else:
+            parts.append(f"{x.structure}: response error {x.gain_error_db:.3g} dB / {x.phase_error_deg:.3g} deg, "
+                         f"poles moved ≤ {x.pole_shift:.2g}")
+    if not good:
+        return None, "no structure is usable in this format: " + "; ".join(parts)
+    best = min(good, key=lambda x: (round(math.log10(max(x.response_error, 1e-300)), 1),
+                                    list(STRUCTURES).index(x.structure)))
+    return best.structure, f"{best.structure} has the smallest quantization error without failures — " + "; ".join(parts)
