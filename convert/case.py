@@ -25,7 +25,8 @@ from typing import Any
 from convert.errors import InputError, LoopshiftError
 
 SOURCE_FORMS = ("expression", "pid", "digital", "card", "netlist")
-WORD_FORMATS = ("float64", "float32")
+WORD_FORMATS = ("float64", "float32", "q15", "q31")
+STRUCTURE_NAMES = ("direct1", "direct2t", "sections", "delta", "direct")
 
 # Each table's allowed keys. A value of dict means a sub-table with its own keys;
 # None means "any key" (e.g. part names, PID keys checked by convert.pid).
@@ -41,7 +42,7 @@ SCHEMA: dict[str, Any] = {
     "target": {
         "digital": {
             "fs": 1, "methods": 1, "prewarp": 1, "delay": 1, "delay_samples": 1, "output_limits": 1,
-            "derivative_filter": 1, "word_format": 1, "structure": 1,
+            "derivative_filter": 1, "word_format": 1, "structure": 1, "input_range": 1, "input_resolution": 1,
         },
         "circuit": {
             "topology": 1, "resistors": 1, "capacitors": 1, "tolerances": None, "resistor_range": 1,
@@ -77,7 +78,11 @@ class DigitalTarget:
     ``delay_s`` computation delay (s) between sampling and output update (``delay_samples`` is
     resolved per rate: ``delay_samples / fs``); ``output_limits`` (low, high) clamp in controller
     output units or ``None``; ``derivative_filter`` N added to an improper source (the filter
-    time constant is Td/N) or ``None``; ``word_format`` coefficient storage."""
+    time constant is Td/N) or ``None``; ``word_format`` (float64, float32, q15, q31) and
+    ``structure`` (:data:`convert.digital.structures.STRUCTURES`) of the firmware arithmetic;
+    ``input_range`` (low, high) of the controller input (the error) in its units, which scales
+    fixed-point words and bounds overflow; ``input_resolution`` the smallest error the integral
+    must still act on (default: the input range / 2^15)."""
 
     fs_hz: tuple[float, ...]
     methods: tuple[str, ...]
@@ -87,7 +92,9 @@ class DigitalTarget:
     output_limits: tuple[float, float] | None = None
     derivative_filter: float | None = None
     word_format: str = "float64"
-    structure: str = "direct"
+    structure: str = "direct1"
+    input_range: tuple[float, float] | None = None
+    input_resolution: float | None = None
     where: str = ""
 
     def delay_for(self, fs_hz: float) -> float:
@@ -571,12 +578,25 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
         n_filter = ctx.value(dig, "derivative_filter", f"{key}.derivative_filter", "number", None,
                              positive=True, allow_zero=False)
         word = ctx.text(dig, "word_format", f"{key}.word_format", default="float64", choices=WORD_FORMATS)
-        structure = ctx.text(dig, "structure", f"{key}.structure", default="direct", choices=("direct",))
+        structure = ctx.text(dig, "structure", f"{key}.structure", default="direct1", choices=STRUCTURE_NAMES)
+        structure = "direct1" if structure == "direct" else structure
+        in_range = ctx.pair(dig, "input_range", f"{key}.input_range", "number")
+        if in_range is not None and max(abs(in_range[0]), abs(in_range[1])) == 0:
+            raise ctx.error(f"{key}.input_range", "expected a range with a nonzero end, e.g. [-10, 10]")
+        resolution = ctx.value(dig, "input_resolution", f"{key}.input_resolution", "number", None, positive=True,
+                               allow_zero=False)
+        if word in ("q15", "q31"):
+            if in_range is None:
+                raise ctx.error(f"{key}.input_range", f"word_format {word} needs input_range, the error's range in "
+                                "controller input units that scales the words, e.g. input_range = [-10, 10]")
+            if structure not in ("direct1", "sections"):
+                raise ctx.error(f"{key}.structure", f"word_format {word} is offered with structure direct1 or "
+                                f"sections (direct form I words), found {structure!r}")
         digital = DigitalTarget(fs_hz=fs, methods=methods, prewarp_hz=ctx.value(dig, "prewarp", f"{key}.prewarp", "hz",
                                                                                 None, positive=True, allow_zero=False),
                                 delay_s=delay_s, delay_samples=delay_samples, output_limits=limits,
                                 derivative_filter=n_filter, word_format=word, structure=structure,
-                                where=ctx.where(key))
+                                input_range=in_range, input_resolution=resolution, where=ctx.where(key))
     cir = ctx.table(table, "circuit", "target.circuit")
     if cir is not None:
         key = "target.circuit"

@@ -79,6 +79,16 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                              "e.g. --method matched --keep-delay")
     parser.add_argument("--agreement", nargs=2, metavar=("DB", "DEG"), default=None,
                         help="agreement limits for the 'agrees up to' figure, e.g. --agreement 0.5 3 (default 1 dB, 5 deg)")
+    parser.add_argument("--structure", metavar="S", default="direct1",
+                        help="firmware arithmetic the coefficients are judged in: direct1, direct2t, sections, delta "
+                             "(default direct1: b/a as printed), e.g. --structure sections")
+    parser.add_argument("--word-format", metavar="F", default="float64", dest="word_format",
+                        help="word format: float64 (default), float32, q15, q31, e.g. --word-format float32")
+    parser.add_argument("--input-range", nargs=2, metavar=("LOW", "HIGH"), dest="input_range",
+                        help="range of the error input, controller input units (scales q15/q31 words, bounds "
+                             "overflow), e.g. --input-range -10 10")
+    parser.add_argument("--output-limits", nargs=2, metavar=("LOW", "HIGH"), dest="output_limits",
+                        help="output limits, controller output units (the integrator's level), e.g. --output-limits 0 100")
     parser.add_argument("--json", action="store_true",
                         help="print a JSON list of results (method, fs_hz, b, a, prewarp_hz, errors, and the analog "
                              "num/den they came from), e.g. --json")
@@ -163,10 +173,14 @@ def run(args, console) -> int:
         survey = survey_methods(controller, fs, methods, prewarp_hz=prewarp, delay_s=delay, band_hz=band,
                                 match_at_hz=match_at, keep_delay=args.keep_delay, filter_n=filter_n,
                                 gain_limit_db=limits[0], phase_limit_deg=limits[1])
+    firmware = _firmware(args, survey)
     if args.json:
         out = []
         for row in survey.rows:
             item = row.summary()
+            item["structure"] = args.structure
+            item["word_format"] = args.word_format
+            item["firmware"] = firmware[row.realization.method].summary()
             item["best"] = row.realization.method == survey.best
             item["delay_s"] = survey.delay_s
             # the analog controller the coefficients came from (after any derivative filter)
@@ -177,8 +191,46 @@ def run(args, console) -> int:
             out.append(item)
         emit_json(console, out)
         return 0
-    _render(console, survey, controller)
+    _render(console, survey, controller, firmware)
     return 0
+
+
+def range_pair(words, field: str) -> tuple[float, float] | None:
+    """A (low, high) pair of plain numbers from two command-line words, low < high."""
+    from convert.errors import InputError
+    from convert.values import parse_value
+
+    if not words:
+        return None
+    low, high = (parse_value(w, "number", field=field) for w in words)
+    if not low < high:
+        raise InputError(f"expected LOW < HIGH, found {words[0]} {words[1]}", key=field)
+    return low, high
+
+
+def _firmware(args, survey) -> dict:
+    """The structure x word-format analysis of every method's result (convert.digital.quantized)."""
+    from convert.cli.common import at
+    from convert.compare.frequency import log_grid
+    from convert.digital.quantized import analyze
+    from convert.digital.structures import structure_name
+    from convert.digital.wordformats import get_format
+
+    structure = structure_name(args.structure, key="--structure")
+    word = get_format(args.word_format, key="--word-format")
+    args.structure, args.word_format = structure, word.name
+    rng = range_pair(args.input_range, "--input-range")
+    lim = range_pair(args.output_limits, "--output-limits")
+    band = log_grid(survey.band_hz[0], survey.band_hz[1], 100)
+    out = {}
+    with at(None, rename={"input_range": "--input-range", "output_limits": "--output-limits",
+                          "structure": "--structure", "word_format": "--word-format"}):
+        for row in survey.rows:
+            r = row.realization
+            out[r.method] = analyze(r.roots, structure, word, band, b=r.b, a=r.a,
+                                    input_range=max(map(abs, rng)) if rng else None,
+                                    output_level=max(map(abs, lim)) if lim else None)
+    return out
 
 
 def _hz(x) -> str:
@@ -215,7 +267,7 @@ def _coefs(values) -> str:
     return ", ".join(format(float(v), ".12g") for v in values)
 
 
-def _render(console, survey, source) -> None:
+def _render(console, survey, source, firmware=None) -> None:
     from rich import box
     from rich.table import Table
 
@@ -276,6 +328,21 @@ def _render(console, survey, source) -> None:
                           (f"{pad}{real.difference_equation}", " ")):
             for line in _wrap_terms(text, width, sep):
                 console.print(line, markup=False, soft_wrap=True)
+    if firmware:
+        from convert.digital.structures import STRUCTURES
+
+        any_fw = next(iter(firmware.values()))
+        console.print(f"structure: {any_fw.structure} ({STRUCTURES[any_fw.structure]}) in {any_fw.word_format}; "
+                      "the b/a above are the float64 design", markup=False)
+        for method, fw in firmware.items():
+            if fw.refused:
+                console.print(f"  {method}: cannot be built: {fw.refused}", markup=False)
+                continue
+            console.print(f"  {method}: quantization alone {fw.gain_error_db:.3g} dB, {fw.phase_error_deg:.3g} deg;",
+                          markup=False)
+            console.print(f"    poles moved <= {fw.pole_shift:.2g}; largest |z| = {fw.max_pole_radius:.10g}", markup=False)
+            for text in fw.failures or ("ok: stable, no overflow, no stall",):
+                console.print(f"    {'FAILS: ' if fw.failures else ''}{text}", markup=False)
     for row in survey.rows:
         for note in row.realization.notes:
             console.print(f"note: {note}", markup=False)

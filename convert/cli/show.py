@@ -84,6 +84,8 @@ def summary(controller, settings=None, not_pid_reason=None) -> dict:
             data["b"], data["a"] = list(controller.b), list(controller.a)
         except LoopshiftError:
             data["b"], data["a"] = None, None
+        # the coefficients as given are the expanded polynomial: direct form I is what they describe
+        data["structure"] = "direct1"
     integrators = controller.integrator_count()
     data.update(
         gain=controller.gain,
@@ -183,6 +185,8 @@ def _render(console, data: dict, d: int) -> None:
         else:
             tf.add_row("b (ascending z^-1)", _coefs(data["b"], d))
             tf.add_row("a (ascending z^-1)", _coefs(data["a"], d))
+            tf.add_row("structure", "direct1: direct form I on b/a as given (loopshift code --structure "
+                                    "sections|delta realizes another)")
     console.print(tf)
 
     zp = Table(title="Zeros, poles and gain", box=box.SIMPLE_HEAD, title_justify="left")

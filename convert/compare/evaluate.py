@@ -194,6 +194,9 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
                 for key in LOOP_CRITERIA:
                     f[key] = None
                     f[f"{key}_note"] = "the source loop does not work with this plant (unstable or sign-inverted): there is no working loop to compare with"
+        fw = r.details.get("firmware") if r.form == "digital" else None
+        if fw is not None:
+            f["checks"] = fw["checks"]
         figures[r.name] = f
     evidence = None
     if getattr(case, "evidence", None) is not None:
@@ -279,9 +282,11 @@ def _sentence(text: str) -> str:
     return text[:1].upper() + text[1:] if text else text
 
 
-def _simulate_pair(case, controller: Controller, duration: float, delay_s: float, limits):
+def _simulate_pair(case, controller: Controller, duration: float, delay_s: float, limits, realized=None):
     plant = case.plant
     common = dict(duration_s=duration, delay_s=delay_s, output_limits=limits)
+    if realized is not None:
+        common["realized"] = realized
     step = simulate_loop(controller, plant.model, plant.dead_time_s, kind="setpoint", step=case.signals.setpoint_step,
                          **common)
     dist = simulate_loop(controller, plant.model, plant.dead_time_s, kind="disturbance",
@@ -356,12 +361,8 @@ def _digital_realizations(case, src, analog_src, band, src_margins, duration, sr
             cd = real.controller
             t = 1.0 / fs
             warnings = list(real.warnings)
-            if tgt.word_format == "float32":
-                b32 = np.asarray(cd.b, dtype=np.float32).astype(float)
-                a32 = np.asarray(cd.a, dtype=np.float32).astype(float)
-                cq = Controller.from_b_a(b32, a32 / a32[0], t)
-            else:
-                cq = cd
+            firmware = _firmware(case, real, band)
+            cq = cd if firmware.realized is None else _realized_controller(firmware)
             name = f"{method} @ {_fmt_hz(fs)}"
             loop_f = margin_grid(cq, case.plant.model) if case.plant else None
             spec = _loop_spec(case, loop_f) if loop_f is not None else None
@@ -384,13 +385,18 @@ def _digital_realizations(case, src, analog_src, band, src_margins, duration, sr
                      "the analog controller",
                 loop=spec, loop_reference=lr(filtered),
                 loop_candidate=None if loop_f is None else filtered.frequency_response(loop_f, via="zpk") * hold(loop_f, t, delay))
-            if tgt.word_format != "float64":
+            if firmware.realized is not None:
+                from convert.digital.quantized import realized_response
+
                 rows["word_format"] = bud.error_row(
-                    "word_format", band, cd.frequency_response(band, via="poly"), cq.frequency_response(band, via="poly"),
-                    note=f"coefficients stored as {tgt.word_format} alone, against float64 (both in z, no hold)",
-                    loop=spec, loop_reference=lr(cd), loop_candidate=lr(cq))
+                    "word_format", band, real.frequency_response(band), realized_response(firmware.realized, band),
+                    note=f"{tgt.structure} in {tgt.word_format} alone: the stored coefficients' response against the "
+                         "directly mapped zeros/poles (both in z, no hold)",
+                    loop=spec, loop_reference=lr(cd),
+                    loop_candidate=None if loop_f is None else realized_response(firmware.realized, loop_f))
             else:
-                rows["word_format"] = bud.not_applicable("word_format", "float64 coefficients (the reference)")
+                rows["word_format"] = bud.not_applicable(
+                    "word_format", f"{tgt.structure} in {tgt.word_format} cannot be built: {firmware.refused}")
             if filter_note:
                 rows["derivative_filter"] = bud.error_row(
                     "derivative_filter", band, analog_src.frequency_response(band, via="zpk"),
@@ -408,6 +414,8 @@ def _digital_realizations(case, src, analog_src, band, src_margins, duration, sr
             budget = bud.assemble(rows, bud.DIGITAL_ROWS, "digital")
             details = {"method": method, "fs_hz": fs, "delay_s": delay, "prewarp_hz": tgt.prewarp_hz,
                        "b": list(cq.b), "a": list(cq.a), "word_format": tgt.word_format,
+                       "structure": tgt.structure,
+                       "firmware": {**firmware.summary(), "checks": firmware.checks()},
                        "difference_equation": getattr(real, "difference_equation", ""),
                        "notes": list(getattr(real, "notes", ())),
                        "output_limits": firmware_output_limits(case, card_limits)}
@@ -418,12 +426,36 @@ def _digital_realizations(case, src, analog_src, band, src_margins, duration, sr
                 r.margins = loop_margins(cq, case.plant.model, case.plant.dead_time_s, delay_s=delay)
                 limits = firmware_output_limits(case, card_limits)
                 try:
-                    r.step, r.disturbance = _simulate_pair(case, cq, duration, delay, limits)
+                    r.step, r.disturbance = _simulate_pair(case, cq, duration, delay, limits,
+                                                           realized=firmware.realized)
                 except InputError as exc:
                     r.warnings.append(f"time simulation skipped: {exc.message}")
             out.append(r)
             tick(f"digital {name}")
     return out
+
+
+def _firmware(case, real, band):
+    """The structure × word-format analysis of a digital target (convert.digital.quantized):
+    the input range and output level from the case (output limits, else the output range)."""
+    from convert.digital.quantized import analyze
+
+    tgt = case.digital
+    limits = tgt.output_limits or case.signals.output_range
+    level = max(abs(limits[0]), abs(limits[1])) if limits else None
+    rng = max(abs(tgt.input_range[0]), abs(tgt.input_range[1])) if tgt.input_range else None
+    try:
+        return analyze(real.roots, tgt.structure, tgt.word_format, band, b=real.b, a=real.a, input_range=rng,
+                       output_level=level, input_resolution=tgt.input_resolution)
+    except LoopshiftError as exc:
+        raise type(exc)(exc.message, where=case.where("target.digital"),
+                        key=f"target.digital.{exc.key}" if exc.key else "target.digital") from None
+
+
+def _realized_controller(firmware):
+    from convert.digital.quantized import realized_controller
+
+    return realized_controller(firmware.realized)
 
 
 def _rate_advice(case, analog_src, src_margins, src_step=None, src_dist=None, duration=None,

@@ -843,7 +843,7 @@ def natural_step(controller: Controller, plant: Controller, dead_time_s: float =
 def simulate_loop(controller: Controller, plant: Controller, dead_time_s: float = 0.0, *, duration_s: float,
                   kind: str = "setpoint", step: float = 1.0, delay_s: float = 0.0,
                   output_limits: tuple[float, float] | None = None, steps: int | None = None,
-                  sub_step_s: float | None = None) -> LoopResponse:
+                  sub_step_s: float | None = None, realized=None) -> LoopResponse:
     """Simulate the loop's response to a setpoint step (``kind="setpoint"``) or a load-disturbance
     step at the plant input (``kind="disturbance"``), both applied at t = 0 with size ``step``.
 
@@ -858,6 +858,10 @@ def simulate_loop(controller: Controller, plant: Controller, dead_time_s: float 
     clamp). ``plant`` is an analog proper transfer function; ``dead_time_s`` a pure delay at its
     input. Linear stretches are advanced as matrix powers (:class:`_Orbit`), the clamp by
     segments (:func:`_run`).
+
+    ``realized`` (a digital controller's firmware realization,
+    :class:`convert.digital.fixedpoint.Realized`): its arithmetic model computes the output
+    sample by sample (bit-true for fixed point; :func:`_simulate_realized`), the plant as above.
     """
     if kind not in ("setpoint", "disturbance"):
         raise ValueError("kind must be 'setpoint' or 'disturbance'")
@@ -876,6 +880,9 @@ def simulate_loop(controller: Controller, plant: Controller, dead_time_s: float 
     r = step if kind == "setpoint" else 0.0
     dist = step if kind == "disturbance" else 0.0
     lo, hi = output_limits if output_limits else (-math.inf, math.inf)
+    if controller.is_digital and realized is not None:
+        return _simulate_realized(realized.model(), controller.sample_period_s, plant, dead_time_s, delay_s,
+                                  duration_s, h, r, dist, (lo, hi), kind)
     with one_blas_thread():
         if controller.is_digital:
             return _simulate_sampled(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, (lo, hi), kind)
@@ -969,6 +976,47 @@ def _simulate_sampled(controller, plant, dead_time_s, delay_s, duration_s, h, r,
     y = y[:steps + 1]
     u = u[:steps + 1]
     return LoopResponse(t=np.arange(steps + 1) * h, y=y, u=u, kind=kind, sub_step_s=h)
+
+
+def _simulate_realized(model, t_s, plant, dead_time_s, delay_s, duration_s, h, r, dist, limits, kind):
+    """The sampled loop with a nonlinear controller model (``model.step(e) -> u``, user units): the
+    plant advanced exactly at the sub-step h (a divisor of T) with its input's fractional delays
+    (:func:`_delay_taps`), the model called once per sample, its output held and clamped."""
+    from operator import mul
+
+    every = max(1, int(math.ceil(t_s / h - 1e-9)))
+    h = t_s / every
+    steps = int(math.ceil(duration_s / h - 1e-9))
+    _check_steps(steps, h, duration_s)
+    ap, bp, cp, dp = _realize(plant, "plant.model")
+    phi, _ = _phi_gamma(ap, bp, h)
+    n_u, g0_u, g1_u = _delay_taps(ap, bp, h, dead_time_s + delay_s)
+    n_d, g0_d, g1_d = _delay_taps(ap, bp, h, dead_time_s)
+    rows = list(zip(phi.tolist(), g0_u.tolist(), g1_u.tolist(), g0_d.tolist(), g1_d.tolist()))
+    c_row, d_p = cp[0].tolist(), float(dp[0, 0])
+    lo, hi = limits
+    x = [0.0] * len(rows)
+    u_hist: list[float] = []
+    y_out = np.zeros(steps + 1)
+    u_out = np.zeros(steps + 1)
+    u_now = u_in = 0.0
+    for k in range(steps + 1):
+        y = sum(map(mul, c_row, x)) + d_p * u_in
+        if k % every == 0:
+            v = model.step(r - y)
+            u_now = lo if v < lo else hi if v > hi else v
+        u_hist.append(u_now)
+        y_out[k], u_out[k] = y, u_now
+        if k == steps:
+            break
+        j = k - n_u
+        wu0 = u_hist[j] if j >= 0 else 0.0
+        wu1 = u_hist[j - 1] if j >= 1 else 0.0
+        wd0 = dist if k >= n_d else 0.0
+        wd1 = dist if k >= n_d + 1 else 0.0
+        x = [sum(map(mul, row, x)) + a0 * wu0 + a1 * wu1 + b0 * wd0 + b1 * wd1 for row, a0, a1, b0, b1 in rows]
+        u_in = wu0 + wd0
+    return LoopResponse(t=np.arange(steps + 1) * h, y=y_out, u=u_out, kind=kind, sub_step_s=h)
 
 
 def response_deviation(reference: LoopResponse, candidate: LoopResponse) -> float:

@@ -146,12 +146,18 @@ def judge(criteria: dict, figures: dict[str, dict], *, has_plant: bool, loops: d
             else:
                 status = "pass" if abs(value) <= limit else "fail"
             out.append(Judgement(name, key, label, unit, limit, None if value is None else abs(value), status, note))
+        # checks a realization carries itself, always on (e.g. a firmware realization's stability);
+        # they can fail a verdict but never make one "checked" on their own
+        out.extend(Judgement(name, c["key"], c["label"], c.get("unit", ""), c.get("limit"), c.get("value"),
+                             c["status"], c.get("note", "")) for c in values.get("checks", ()))
+    own = {c["key"] for values in figures.values() for c in values.get("checks", ())}
     if any(j.status == "fail" for j in out):
         overall = "fail"
     elif any(j.criterion == "closed_loop_stable" and j.status == "skipped" for j in out):
         overall = "unchecked"  # a loop whose stability could not be decided is never a pass
     elif not figures or any(not any(j.status == "pass" for j in out
-                                    if j.realization == name and j.criterion != "closed_loop_stable")
+                                    if j.realization == name and j.criterion != "closed_loop_stable"
+                                    and j.criterion not in own)
                             for name in figures):
         overall = "unchecked"
     else:

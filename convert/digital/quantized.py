@@ -68,6 +68,32 @@ class FormatAnalysis:
     failures: tuple[str, ...] = ()
     notes: tuple[str, ...] = field(default=())
 
+    def checks(self) -> list[dict]:
+        """The always-on verdict checks of a firmware realization (stability of the stored
+        coefficients, overflow from the input range, integrator stall), pass or fail with the number."""
+        name = f"{self.structure} / {self.word_format}"
+        if self.refused:
+            return [dict(key="firmware_realizable", label=f"{name} can be built", unit="", limit=None, value=None,
+                         status="fail", note=self.refused)]
+        fails = " ".join(self.failures)
+        out = [dict(key="firmware_stability", label=f"{name}: stored poles inside |z| = 1", unit="|z|", limit=1.0,
+                    value=max((abs(p) for p in self.unstable_poles), default=self.max_pole_radius),
+                    status="fail" if ("unstable" in fails or "exactly at z = 1" in fails) else "pass",
+                    note=next((f for f in self.failures if "unstable" in f or "exactly at z = 1" in f),
+                              f"largest |z| = {self.max_pole_radius:.10g}; a designed integrator (pole at z = 1) counts "
+                              "as kept when stored exactly or within a year's doubling time"))]
+        if self.realized is not None and self.realized.word.is_fixed:
+            out.append(dict(key="firmware_overflow", label=f"{name}: no overflow for inputs within ±{self.input_range:.4g}",
+                            unit="dB headroom", limit=None, value=self.headroom_db,
+                            status="fail" if "overflow" in fails else "pass",
+                            note=next((f for f in self.failures if "overflow" in f), "peak-gain (L1) bound per node")))
+        if self.stall_error is not None or "stall" in fails:
+            out.append(dict(key="firmware_stall", label=f"{name}: integrator moves at the input resolution",
+                            unit="input units", limit=self.stall_limit, value=self.stall_error,
+                            status="fail" if "stall" in fails else "pass",
+                            note=f"smallest error that moves the integral at output level {self.output_level:.4g}"))
+        return out
+
     @property
     def ok(self) -> bool:
         return self.refused is None and not self.failures
@@ -171,9 +197,7 @@ def analyze(roots, structure: str, word_format: str | WordFormat, band_f_hz, *, 
         failures.append(f"{got_ones - designed_ones} pole(s) exactly at z = 1 the design does not have (a new integrator)")
 
     # response
-    resp = np.ones(f.size, complex) * (real.node_scales[-1] / real.node_scales[0] if word.is_fixed else 1.0)
-    for s in real.sections:
-        resp = resp * section_response(real.form, s.b, s.a, f, t, _delta(real))
+    resp = realized_response(real, f)
     ref = roots.frequency_response(f)
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = resp / ref
@@ -212,6 +236,44 @@ def analyze(roots, structure: str, word_format: str | WordFormat, band_f_hz, *, 
                           gain_error_db=gdb, phase_error_deg=pdeg, error_at_hz=float(f[i]) if f.size else None,
                           node_bounds=bounds, headroom_db=headroom, limit_cycle=lc, limit_cycle_lsb=lc_lsb,
                           stall_error=stall, failures=tuple(failures), notes=tuple(notes))
+
+
+def realized_response(real: Realized, f_hz) -> np.ndarray:
+    """The response of the stored coefficients (user units in and out) at f_hz (Hz), evaluated
+    exactly (see :func:`convert.digital.structures.section_response`)."""
+    f = np.asarray(f_hz, dtype=float)
+    resp = np.ones(f.shape, complex) * (real.node_scales[-1] / real.node_scales[0] if real.word.is_fixed else 1.0)
+    for s in real.sections:
+        resp = resp * section_response(real.form, s.b, s.a, f, real.layout.sample_period_s, _delta(real))
+    return resp
+
+
+def realized_controller(real: Realized, name: str = ""):
+    """A :class:`Controller` with the stored coefficients' zeros, poles and gain (the direct
+    forms: their stored polynomial as it is), for the loop checks."""
+    from convert.controller import Controller
+
+    t = real.layout.sample_period_s
+    if real.structure in ("direct1", "direct2t"):
+        s = real.sections[0]
+        return Controller.from_b_a(s.b, s.a, t, name)
+    poles = [p for ps, _ in realized_poles(real) for p in ps]
+    zeros = [z for s in real.sections for z in section_zeros(real.form, s.b, _delta(real))]
+    from convert.digital.roots import RootForm
+
+    probe = np.array([0.1 / t, 0.3 / t, 0.45 / t])
+    want = realized_response(real, probe)
+    unit = RootForm(tuple(zeros), tuple(poles), 1.0, t).frequency_response(probe)
+    k = want / unit
+    gain = float(np.real(k[int(np.argmax(np.abs(unit)))]))
+    return Controller.from_zpk(_conj(zeros), _conj(poles), gain, "digital", t, name)
+
+
+def _conj(roots) -> list[complex]:
+    """Roots with each complex one's partner made its exact conjugate (real polynomials)."""
+    from convert.digital.roots import _pairs
+
+    return list(_pairs(roots))
 
 
 def _delta(real: Realized) -> float | None:

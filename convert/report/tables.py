@@ -189,8 +189,16 @@ def realization_table(results) -> Table:
     for r in results.realizations:
         d = r.details
         if r.form == "digital":
-            what = (f"b = [{', '.join(f'{x:.10g}' for x in d['b'])}]; a = [{', '.join(f'{x:.10g}' for x in d['a'])}]; "
-                    f"delay {seconds(d['delay_s'])}; {d['word_format']}")
+            fw = d.get("firmware") or {}
+            if fw.get("sections") and len(fw["sections"]) > 1:
+                coefs = "; ".join(f"section {i + 1}: b = [{', '.join(f'{x:.10g}' for x in sec['b'])}], "
+                                  f"a = [{', '.join(f'{x:.10g}' for x in sec['a'])}]"
+                                  for i, sec in enumerate(fw["sections"]))
+            else:
+                coefs = (f"b = [{', '.join(f'{x:.10g}' for x in d['b'])}]; "
+                         f"a = [{', '.join(f'{x:.10g}' for x in d['a'])}]")
+            what = (f"structure {d.get('structure', 'direct1')} in {d['word_format']}; {coefs}; "
+                    f"delay {seconds(d['delay_s'])}")
         else:
             what = "; ".join(f"{k} = {v}" for k, v in d.get("parts_text", {}).items()) or d.get("topology", "")
         rows.append([r.name, r.form, what, "; ".join(r.warnings)])
