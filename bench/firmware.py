@@ -69,7 +69,8 @@ def main() -> int:
         for a in res:
             if a.realized is not None:
                 emit_c(a.realized, "ctl", source="bench", method="tustin")
-                emit_st(a.realized, "ctl", source="bench", method="tustin")
+                if not a.realized.word.is_fixed:
+                    emit_st(a.realized, "ctl", source="bench", method="tustin")
 
     everything()
     t = best_of(everything, 3)

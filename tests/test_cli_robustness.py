@@ -153,6 +153,8 @@ BAD_INPUT = [
     (["batch", "missing.toml"], "no such case file or folder: 'missing.toml'"),
     (["batch", str(CASE), "--workers", "0"], "--workers: expected 1 to 256 workers"),
     (["batch", str(CASE), "--out", "."], "--out: the folder '.' holds files that are not an earlier batch"),
+    (["code", PI, "--fs", "1kHz", "--format", "q15", "--out", "fw"], "--input-range"),
+    (["code", PI, "--fs", "1kHz", "--name", "9lives", "--out", "fw"], "identifier"),
     # --- usage
     ([], "give a command"),
     (["bogus"], "invalid choice: 'bogus'"),

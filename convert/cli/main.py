@@ -15,7 +15,7 @@ import re
 import sys
 
 # Sub-command modules, in the order `loopshift --help` lists them.
-COMMANDS = ("show", "digital", "analog", "circuit", "card", "report", "batch", "compare")
+COMMANDS = ("show", "digital", "analog", "circuit", "card", "report", "batch", "compare", "code")
 
 DESCRIPTION = """\
 Move a feedback controller between its analog, digital (firmware) and op-amp circuit

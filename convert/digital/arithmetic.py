@@ -3,12 +3,14 @@ generated code is checked against (bit for bit in fixed point and float32).
 
 A model is stateful: ``reset()``, ``step(x) -> y`` (user units), ``run(xs) -> ys`` (the same
 arithmetic over an array, from the current state), ``set_level(u)`` (the state of an
-integrating controller holding output u with zero input). Fixed-point models also have
+integrating controller holding output u with zero input; df2t: s_k = u·(−Σ_{j>k} a_j), the
+factor a stored constant; delta: s_0 = u, s_k = a_k·u; each one product in the format). Fixed-point models also have
 ``step_int``/``run_int`` on words (the generated C's interface).
 
 Operation order per section (the generated C follows it):
 
-* ``df1``: ``acc = b0·x; acc += b1·x1; …; acc −= a1·y1; …`` then the histories shift.
+* ``df1``: ``acc = b0·x; acc += b1·x1; …; acc −= a1·y1; …`` then the histories shift (fixed
+  point: the feed-forward sum is rounded down by the section's extra numerator bits first).
 * ``df2t``: ``y = b0·x + s0; s_k = (b_{k+1}·x − a_{k+1}·y) + s_{k+1}; s_{m−1} = b_m·x − a_m·y``.
 * ``delta``: ``y = b0·x + s0; w_k = (b_{k+1}·x − a_{k+1}·y) + s_{k+1}; s_k = s_k + Δ·w_k``
   (k ascending; ``s_m`` is 0).
@@ -25,6 +27,12 @@ from convert.digital.fixedpoint import Realized
 
 def model_of(real: Realized):
     return FixedModel(real) if real.word.is_fixed else FloatModel(real)
+
+
+def level_factor(a, k: int, cast=float):
+    """DF2T state k per unit of held output: −(a_{k+1} + … + a_m), summed in double, then stored
+    in the format (the generated code holds it as a constant)."""
+    return cast(-sum(float(v) for v in a[k + 1:]))
 
 
 class FloatModel:
@@ -55,10 +63,12 @@ class FloatModel:
             self.state[-1] = (xh, [u] * len(yh))
         elif self.form == "df2t":
             m = len(a) - 1
-            self.state[-1] = [self.cast(-float(u) * sum(float(v) for v in a[k + 1:])) for k in range(m)]
+            with np.errstate(over="ignore", invalid="ignore"):
+                self.state[-1] = [u * level_factor(a, k, self.cast) for k in range(m)]
         else:
             m = len(a) - 1
-            self.state[-1] = [u] + [self.cast(float(a[k]) * float(u)) for k in range(1, m)]
+            with np.errstate(over="ignore", invalid="ignore"):
+                self.state[-1] = [u] + [a[k] * u for k in range(1, m)]
 
     def step(self, x) -> float:
         c = self.cast
@@ -111,6 +121,7 @@ class FixedModel:
         self.lo, self.hi = w.word_min, w.word_max
         self.full = 1 << (w.bits - 1)
         self.secs = [(list(s.b_int), list(s.a_int[1:]), s.shift) for s in real.sections]
+        self.b_shifts = [s.b_shift for s in real.sections]
         self.reset()
 
     def reset(self) -> None:
@@ -130,9 +141,13 @@ class FixedModel:
 
         self.reset()
         v = math.floor(u / self.real.node_scales[-1] * self.full + 0.5)
-        v = self.lo if v < self.lo else self.hi if v > self.hi else int(v)
+        self.set_level_word(self.lo if v < self.lo else self.hi if v > self.hi else int(v))
+
+    def set_level_word(self, v: int) -> None:
+        """:meth:`set_level` with the output word given (the generated C's ``set_output``)."""
+        self.reset()
         xh, yh = self.state[-1]
-        self.state[-1] = (xh, [v] * len(yh))
+        self.state[-1] = (xh, [int(v)] * len(yh))
 
     def step_int(self, v: int) -> int:
         lo, hi = self.lo, self.hi
@@ -141,6 +156,9 @@ class FixedModel:
             acc = b[0] * v
             for k in range(1, len(b)):
                 acc += b[k] * xh[k - 1]
+            e = self.b_shifts[i]
+            if e:
+                acc = (acc + (1 << (e - 1))) >> e
             for k in range(len(a)):
                 acc -= a[k] * yh[k]
             y = (acc + (1 << (sh - 1))) >> sh
@@ -171,26 +189,29 @@ class FixedModel:
             nb = len(b)
             ext = np.concatenate([np.asarray(xh[::-1], dtype=np.int64), v]) if xh else v
             ff = np.convolve(ext, np.asarray(b, dtype=np.int64))[nb - 1:nb - 1 + v.size] if nb > 1 else v * b[0]
+            e = self.b_shifts[i]
+            if e:
+                ff = (ff + (1 << (e - 1))) >> e
             half = 1 << (sh - 1)
             out = [0] * v.size
-            ffl = ff.tolist()
+            ffl = (ff + half).tolist()  # the rounding half added once, vectorized
             m = len(a)
             if m == 0:
                 for n, f in enumerate(ffl):
-                    y = (f + half) >> sh
+                    y = f >> sh
                     out[n] = lo if y < lo else hi if y > hi else y
             elif m == 1:
                 a1, = a
                 y1, = yh
                 for n, f in enumerate(ffl):
-                    y = (f - a1 * y1 + half) >> sh
+                    y = (f - a1 * y1) >> sh
                     y1 = out[n] = lo if y < lo else hi if y > hi else y
                 yh = [y1]
             elif m == 2:
                 a1, a2 = a
                 y1, y2 = yh
                 for n, f in enumerate(ffl):
-                    y = (f - a1 * y1 - a2 * y2 + half) >> sh
+                    y = (f - a1 * y1 - a2 * y2) >> sh
                     y2 = y1
                     y1 = out[n] = lo if y < lo else hi if y > hi else y
                 yh = [y1, y2]
@@ -200,7 +221,7 @@ class FixedModel:
                     acc = f
                     for k in range(m):
                         acc -= a[k] * hist[k]
-                    y = (acc + half) >> sh
+                    y = acc >> sh
                     y = lo if y < lo else hi if y > hi else y
                     hist.insert(0, y)
                     hist.pop()

@@ -14,8 +14,13 @@ Fixed-point scaling rule (stated in the generated code and the report):
 * section i then realizes (S_{i−1}/S_i)·H_i in word units: its numerator is multiplied by
   S_{i−1}/S_i before quantization;
 * coefficients of a section share one headroom shift k ≥ 0: the smallest k with every stored
-  integer within the word and 2^(W−1)·Σ|c_int| + 2^(W−2) < 2^(A−1) (A the accumulator bits), so
-  the accumulator never overflows whatever the state words hold.
+  integer within the word and 2^(W−1)·(Σ|c_int| + n_b + 1) + 2^(W−2) < 2^(A−1) (A the accumulator
+  bits, n_b the numerator length: room for the numerator's rounding below), so
+  the accumulator never overflows whatever the state words hold;
+* the numerator then takes e ≥ 0 extra fraction bits, as many as keep its integers within the
+  word and its sum within the accumulator: the feed-forward sum is rounded down by e bits
+  (half up) before the feedback terms are subtracted. A section with a large gain has a small
+  scaled numerator; without these bits it would keep only a few significant bits.
 """
 
 from __future__ import annotations
@@ -40,6 +45,7 @@ class StoredSection:
     b_int: tuple[int, ...] | None = None
     a_int: tuple[int, ...] | None = None
     shift: int = 0
+    b_shift: int = 0
 
 
 @dataclass(frozen=True)
@@ -187,12 +193,23 @@ def realize(layout: Layout, word: WordFormat, *, input_range: float | None = Non
                 ai[0] = -((1 << frac) + ai[1])  # 1 + a1 + a2 = 0 exactly: the pole stays at z = 1
             allc = bi + ai
             if (max(abs(c) for c in allc) <= word.word_max
-                    and (1 << (w - 1)) * sum(abs(c) for c in allc) + (1 << (w - 2)) < (1 << (word.accumulator_bits - 1))):
+                    and (1 << (w - 1)) * (sum(abs(c) for c in allc) + len(bi) + 1) + (1 << (w - 2))
+                    < (1 << (word.accumulator_bits - 1))):
                 break
             k += 1
+        # extra numerator bits: the feed-forward sum is formed at 2^(frac+e) and rounded down by e
+        # before the feedback terms join it (a section with a large gain has a small scaled numerator)
+        e = 0
+        while e < w:
+            nb = [quantize_coefficient(c, frac + e + 1) for c in coefs_b]
+            if not (max(map(abs, nb)) <= word.word_max
+                    and (1 << (w - 1)) * sum(map(abs, nb)) + (1 << (frac + e)) < (1 << (word.accumulator_bits - 1))):
+                break
+            e += 1
+            bi = nb
         den = float(1 << frac)
-        stored.append(StoredSection(tuple(c / den for c in bi), (1.0,) + tuple(c / den for c in ai),
-                                    tuple(bi), (1 << frac,) + tuple(ai), frac))
+        stored.append(StoredSection(tuple(c / float(1 << (frac + e)) for c in bi), (1.0,) + tuple(c / den for c in ai),
+                                    tuple(bi), (1 << frac,) + tuple(ai), frac, e))
     return Realized(layout, word, tuple(stored), r, u, tuple(scales), tuple(bounds))
 
 

@@ -104,7 +104,7 @@ class FormatAnalysis:
             out["sections"] = [{"b": list(s.b), "a": list(s.a)} for s in self.realized.sections]
             if self.realized.word.is_fixed:
                 out["node_scales"] = list(self.realized.node_scales)
-                out["sections_int"] = [{"b": list(s.b_int), "a": list(s.a_int), "shift": s.shift}
+                out["sections_int"] = [{"b": list(s.b_int), "a": list(s.a_int), "shift": s.shift, "b_shift": s.b_shift}
                                        for s in self.realized.sections]
             if self.realized.layout.delta_step:
                 out["delta_step_s"] = self.realized.layout.delta_step
@@ -112,10 +112,12 @@ class FormatAnalysis:
 
 
 def default_input_range(roots, output_level: float) -> float:
-    """The error that drives the output to ``output_level`` through the controller's gain at
-    high frequency (the larger of |C| at fs/2 and fs/4): used when no input range is stated."""
+    """The error that drives the output to ``output_level`` through the controller's largest
+    gain between fs/1000 and fs/2 (above the integral action of any sensible controller): used
+    when no input range is stated."""
     t = roots.sample_period_s
-    g = max(abs(roots.frequency_response(np.array([0.5 / t, 0.25 / t]))))
+    f = np.logspace(np.log10(1e-3 / t), np.log10(0.5 / t), 200)
+    g = float(np.max(np.abs(roots.frequency_response(f))))
     return output_level / g if g > 0 and math.isfinite(g) else output_level
 
 
@@ -146,7 +148,8 @@ def analyze(roots, structure: str, word_format: str | WordFormat, band_f_hz, *, 
         notes.append("output level U = 1 (no output limits given)")
     r = float(input_range) if input_range else default_input_range(roots, u)
     if not input_range:
-        notes.append(f"input range R = {r:.4g} (the error that drives the output to U through the high-frequency gain)")
+        notes.append(f"input range R = {r:.4g} (the error that drives the output to U through the largest gain "
+                     "between fs/1000 and fs/2)")
     res = float(input_resolution) if input_resolution else r / 2 ** 15
     base = dict(structure=layout.structure, word_format=word.name, input_range=r, output_level=u, stall_limit=res)
     try:
@@ -384,10 +387,35 @@ def recommend(analyses: list[FormatAnalysis]) -> tuple[str | None, str]:
         elif x.failures:
             parts.append(f"{x.structure}: {x.failures[0]}")
         else:
-            parts.append(f"{x.structure}: response error {x.gain_error_db:.3g} dB / {x.phase_error_deg:.3g} deg, "
-                         f"poles moved ≤ {x.pole_shift:.2g}")
+            parts.append(f"{x.structure}: response error {x.response_error:.2g} relative ({x.gain_error_db:.3g} dB, "
+                         f"{x.phase_error_deg:.3g} deg), poles moved ≤ {x.pole_shift:.2g}")
     if not good:
         return None, "no structure is usable in this format: " + "; ".join(parts)
     best = min(good, key=lambda x: (round(math.log10(max(x.response_error, 1e-300)), 1),
                                     list(STRUCTURES).index(x.structure)))
-    return best.structure, f"{best.structure} has the smallest quantization error without failures — " + "; ".join(parts)
+    return best.structure, f"{best.structure} has the smallest response error (max |H_stored/H − 1| over the band) without failures — " + "; ".join(parts)
+
+
+def offered(structure: str, word: WordFormat) -> bool:
+    """Whether ``structure`` is built in ``word`` (fixed point: the direct-form-I structures)."""
+    return not word.is_fixed or structure in ("direct1", "sections")
+
+
+def choose(roots, word_format: str, band_f_hz, *, structure: str = "auto", b=None, a=None,
+           **kw) -> tuple[FormatAnalysis | None, list[FormatAnalysis], str]:
+    """The analysis of ``structure`` in ``word_format`` — or, for ``"auto"``, of the structure
+    :func:`recommend` picks — with every offered structure's analysis and the reason in numbers.
+    Returns (chosen analysis or None when none is usable, all analyses, reason)."""
+    word = get_format(word_format)
+    every = [analyze(roots, s, word, band_f_hz, b=b, a=a, **kw) for s in STRUCTURES if offered(s, word)]
+    best, why = recommend(every)
+    if structure == "auto":
+        pick = next((x for x in every if x.structure == best), None)
+        return pick, every, why
+    from convert.digital.structures import structure_name
+
+    name = structure_name(structure)
+    pick = next((x for x in every if x.structure == name), None)
+    if pick is None:
+        pick = analyze(roots, name, word, band_f_hz, b=b, a=a, **kw)
+    return pick, every, why

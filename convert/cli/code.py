@@ -1,0 +1,201 @@
+"""``loopshift code``: a controller as firmware source — C99 (double, float, Q15, Q31) or IEC
+61131-3 Structured Text — in a chosen or recommended structure, with the quantization analysis.
+
+Only argparse is imported at module level; the computation loads when the command runs.
+"""
+
+from __future__ import annotations
+
+import argparse
+
+DESCRIPTION = """\
+Sample an analog controller (EXPR, --pid or --card) at --fs by --method, arrange it in a
+structure (direct1, direct2t, sections, delta; default: the one recommended for the word
+format) and write it as C99 (NAME.h, NAME.c: NAME_state, NAME_reset, NAME_step, and
+NAME_set_output for an integrating controller) or as an IEC 61131-3 Structured Text function
+block (NAME.st). The files are written only when the stored coefficients are stable and
+neither overflow nor stall (exit 1 otherwise, with the numbers and the structure to use).
+
+Fixed point (q15, q31) needs --input-range (the error's range, which scales the words) and,
+for an integrating controller, --output-limits (the integrator saturates there).
+
+The tool computes; it does not certify. Verify the code on a bench or in simulation before a
+live swap, plan a bumpless transfer (NAME_set_output), keep safety functions independent."""
+
+EPILOG = """\
+examples:
+  loopshift code "2*(1 + 1/(0.5*s))" --fs 1kHz --format float --name level_pi --out fw/
+  loopshift code --pid kc=2 ti=30s td=5s n=10 --fs 10Hz --format q15 --input-range -10 10 \\
+      --output-limits -100 100 --name flow --out fw/
+  loopshift code "(0.2s+1)/(0.02s+1)" --fs 2kHz --structure sections --lang st --format double \\
+      --name lead --out plc/ --json
+  loopshift code --card card.cir --fs 5Hz --format float --output-limits -10 10 --name card --out fw/
+
+formats: double (C double / ST LREAL), float (C float / ST REAL), q15 (int16_t words, 32-bit
+accumulator), q31 (int32_t words, 64-bit accumulator); Structured Text takes double or float.
+Details: docs/firmware.md"""
+
+FORMAT_WORDS = {"double": "float64", "float": "float32", "q15": "q15", "q31": "q31",
+                "float64": "float64", "float32": "float32"}
+
+
+def add_parser(subparsers) -> argparse.ArgumentParser:
+    from convert.cli.common import add_controller_input
+
+    parser = subparsers.add_parser(
+        "code", help="controller -> C99 or Structured Text firmware, with the word-format analysis",
+        description=DESCRIPTION, epilog=EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
+    add_controller_input(parser)
+    parser.add_argument("--card", metavar="FILE.cir",
+                        help="read the controller from a card's SPICE netlist (input source VIN, output node out), "
+                             "e.g. --card card.cir")
+    parser.add_argument("--fs", metavar="HZ", required=True, help="sample rate, e.g. --fs 1kHz")
+    parser.add_argument("--method", metavar="M", default="tustin",
+                        help="discretization method (default tustin), e.g. --method zoh")
+    parser.add_argument("--prewarp", metavar="HZ", help="tustin prewarp frequency, e.g. --prewarp 50Hz")
+    parser.add_argument("--derivative-filter", metavar="N", dest="filter_n",
+                        help="derivative filter ratio for an ideal PID, e.g. --derivative-filter 10")
+    parser.add_argument("--structure", metavar="S", default="auto",
+                        help="direct1, direct2t, sections, delta or auto (default: the recommended one), "
+                             "e.g. --structure sections")
+    parser.add_argument("--lang", metavar="L", default="c", help="c (default) or st, e.g. --lang st")
+    parser.add_argument("--format", metavar="F", default="double", dest="fmt",
+                        help="double (default), float, q15 or q31, e.g. --format q15")
+    parser.add_argument("--name", metavar="NAME", default="controller",
+                        help="C/ST identifier for the files and functions (default controller), e.g. --name level_pi")
+    parser.add_argument("--out", metavar="DIR", help="folder for the files (created if missing), e.g. --out fw/")
+    parser.add_argument("--force", action="store_true", help="overwrite files of the same name in --out, e.g. --out fw/ --force")
+    parser.add_argument("--input-range", nargs=2, metavar=("LOW", "HIGH"), dest="input_range",
+                        help="range of the error input, controller input units, e.g. --input-range -10 10")
+    parser.add_argument("--output-limits", nargs=2, metavar=("LOW", "HIGH"), dest="output_limits",
+                        help="output limits, controller output units, e.g. --output-limits 0 100")
+    parser.add_argument("--input-resolution", metavar="E", dest="input_resolution",
+                        help="smallest error the integral must act on (default: input range / 2^15), e.g. "
+                             "--input-resolution 0.001")
+    parser.add_argument("--json", action="store_true",
+                        help="print the realized coefficients (b/a or sos rows [b0, b1, b2, 1, a1, a2]) and the "
+                             "analysis of every structure as JSON, e.g. --json")
+    return parser
+
+
+def _controller(args):
+    from convert.cli.common import controller_from_args
+    from convert.errors import InputError
+
+    if args.card:
+        if args.expression or args.pid:
+            raise InputError("give one controller: EXPR, --pid or --card", where="command line", key="--card")
+        from convert.circuit.card import analyze_card
+        from convert.circuit.netlist import read_netlist_file
+
+        analysis = analyze_card(read_netlist_file(args.card), with_sensitivities=False)
+        return analysis.controller, f"card {args.card}: {analysis.controller.expression(8)}"
+    controller, _ = controller_from_args(args)
+    src = " ".join(args.pid) if args.pid else args.expression
+    return controller, src
+
+
+def run(args, console) -> int:
+    import os
+
+    from convert.cli.common import at, check_output_files, emit_json, positive_value, write_text_atomic
+    from convert.cli.digital import range_pair
+    from convert.compare.frequency import comparison_grid, default_band_hz
+    from convert.digital import add_derivative_filter, discretize
+    from convert.digital.codegen import LANGUAGES, emit
+    from convert.digital.quantized import choose
+    from convert.errors import InputError
+
+    fs = positive_value(args.fs, "hz", "--fs")
+    word = FORMAT_WORDS.get(str(args.fmt).lower())
+    if word is None:
+        raise InputError(f"expected double, float, q15 or q31, found {args.fmt!r}", key="--format")
+    lang = str(args.lang).lower()
+    if lang not in LANGUAGES:
+        raise InputError(f"expected c or st, found {args.lang!r}", key="--lang")
+    if lang == "st" and word.startswith("q"):
+        raise InputError("Structured Text is written in double (LREAL) or float (REAL); q15/q31 are for C",
+                         key="--format")
+    if not args.out and not args.json:
+        raise InputError("give --out DIR for the files (or --json to see the result only)", key="--out")
+    rng = range_pair(args.input_range, "--input-range")
+    lim = range_pair(args.output_limits, "--output-limits")
+    resolution = positive_value(args.input_resolution, "number", "--input-resolution") if args.input_resolution else None
+    if word.startswith("q") and rng is None:
+        raise InputError(f"{args.fmt} needs --input-range LOW HIGH (the error's range scales the words)",
+                         key="--input-range")
+    controller, source = _controller(args)
+    if controller.is_digital:
+        raise InputError("give an analog controller (in s); the tool samples it at --fs", key="EXPR")
+    if args.filter_n is not None:
+        controller = add_derivative_filter(controller, positive_value(args.filter_n, "number", "--derivative-filter"))
+    prewarp = positive_value(args.prewarp, "hz", "--prewarp") if args.prewarp else None
+    with at(None, rename={"prewarp": "--prewarp", "method": "--method", "fs": "--fs", "structure": "--structure",
+                          "input_range": "--input-range", "output_limits": "--output-limits",
+                          "word_format": "--format", "name": "--name"}):
+        real = discretize(controller, fs, args.method, prewarp_hz=prewarp)
+        band = comparison_grid(default_band_hz(controller, fs), fs, points_per_decade=20)
+        pick, every, why = choose(real.roots, word, band, structure=args.structure, b=real.b, a=real.a,
+                                  input_range=max(map(abs, rng)) if rng else None,
+                                  output_level=max(map(abs, lim)) if lim else None, input_resolution=resolution)
+        files = {}
+        if pick is not None and pick.ok:
+            files = emit(pick.realized, args.name, lang, source=source, method=args.method, limits=lim)
+    paths = {}
+    if args.out and files:
+        if os.path.exists(args.out) and not os.path.isdir(args.out):
+            raise InputError(f"{args.out!r} is a file; give a folder", key="--out")
+        os.makedirs(args.out, exist_ok=True)
+        paths = {name: os.path.join(args.out, name) for name in files}
+        check_output_files({f"--out {n}": p for n, p in paths.items()}, force=args.force)
+        for name, p in paths.items():
+            write_text_atomic(p, files[name])
+    ok = pick is not None and pick.ok
+    if args.json:
+        emit_json(console, {"source": source, "fs_hz": fs, "method": args.method, "word_format": word,
+                            "structure": pick.structure if pick else None, "recommendation": why,
+                            "written": list(paths.values()), "ok": ok,
+                            "realized": _coefficients(pick) if pick and pick.realized else None,
+                            "analysis": [x.summary() for x in every]})
+        return 0 if ok else 1
+    _render(console, pick, every, why, paths, word)
+    return 0 if ok else 1
+
+
+def _coefficients(pick) -> dict:
+    r = pick.realized
+    if r.structure in ("direct1", "direct2t"):
+        out = {"b": list(r.sections[0].b), "a": list(r.sections[0].a)}
+    else:
+        out = {"sos": [list(s.b) + [0.0] * (3 - len(s.b)) + list(s.a) + [0.0] * (3 - len(s.a)) for s in r.sections],
+               "operator": "delta" if r.form == "delta" else "z^-1"}
+    if r.word.is_fixed:
+        out["words"] = [{"b": list(s.b_int), "a": list(s.a_int), "shift": s.shift, "b_shift": s.b_shift}
+                        for s in r.sections]
+        out["node_scales"] = list(r.node_scales)
+    return out
+
+
+def _render(console, pick, every, why, paths, word) -> None:
+    p = console.print
+    for x in every:
+        if x.refused:
+            p(f"{x.structure:9} not offered: {x.refused}", markup=False)
+            continue
+        state = "ok" if x.ok else "FAILS"
+        p(f"{x.structure:9} {state}: quantization alone {x.gain_error_db:.3g} dB, {x.phase_error_deg:.3g} deg; "
+          f"largest |z| = {x.max_pole_radius:.10g}", markup=False)
+        for f in x.failures:
+            p(f"          {f}", markup=False)
+    p(f"recommendation for {word}: {why}", markup=False)
+    if pick is None or not pick.ok:
+        what = pick.structure if pick else "no structure"
+        reasons = (pick.refused and [pick.refused]) or (pick.failures if pick else [])
+        p(f"not written: {what} in {word} fails: {'; '.join(reasons) if reasons else why}", markup=False)
+        return
+    p(f"structure used: {pick.structure} in {word}", markup=False)
+    for n in pick.notes:
+        p(f"note: {n}", markup=False)
+    for path in paths.values():
+        p(f"wrote {path}", markup=False)
+    p("The tool computes; it does not certify. Bench-test the code before a live swap.", markup=False)

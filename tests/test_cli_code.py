@@ -1,0 +1,66 @@
+"""``loopshift code``: files, refusals, exit codes and JSON (in-process, run_cli fixture)."""
+
+from __future__ import annotations
+
+import json
+
+FIFTH = "3*(1+1/(20*s))*(1+s/0.5)/(1+s/5)/((s/0.8)^2+s/0.8/0.7+1)/(1+s/0.3)"
+
+
+def test_writes_c_files_in_the_recommended_structure(run_cli, tmp_path):
+    out = tmp_path / "fw"
+    r = run_cli("code", FIFTH, "--fs", "5Hz", "--format", "float", "--output-limits", "-10", "10",
+                "--name", "card5", "--out", str(out))
+    assert r.code == 0, r.err
+    h = (out / "card5.h").read_text()
+    assert "card5_state" in h and "float card5_step(card5_state *st, float x);" in h
+    assert "void card5_set_output(card5_state *st, float u);" in h
+    assert "Structure: sections" in h or "Structure: delta" in h
+    assert "direct1" in r.out and "unstable" in r.out  # why the direct form was not used
+
+
+def test_failing_structure_writes_nothing_and_exits_1(run_cli, tmp_path):
+    out = tmp_path / "fw"
+    r = run_cli("code", FIFTH, "--fs", "5Hz", "--format", "float", "--structure", "direct1",
+                "--output-limits", "-10", "10", "--name", "card5", "--out", str(out))
+    assert r.code == 1
+    assert "not written" in r.out and "1.0001673" in r.out
+    assert not out.exists()
+
+
+def test_existing_files_need_force(run_cli, tmp_path):
+    args = ("code", "(0.2s+1)/(0.02s+1)", "--fs", "1kHz", "--name", "lead", "--out", str(tmp_path))
+    assert run_cli(*args).code == 0
+    (tmp_path / "lead.c").write_text("mine")
+    r = run_cli(*args)
+    assert r.code == 2 and "--force" in r.err and len(r.err.strip().splitlines()) == 1
+    assert (tmp_path / "lead.c").read_text() == "mine"
+    assert run_cli(*args, "--force").code == 0
+
+
+def test_structured_text_and_json(run_cli, tmp_path):
+    r = run_cli("code", "2*(1+1/(0.5*s))", "--fs", "100Hz", "--lang", "st", "--format", "double",
+                "--structure", "sections", "--name", "pi", "--out", str(tmp_path), "--json")
+    assert r.code == 0, r.err
+    data = json.loads(r.out)
+    assert data["structure"] == "sections" and data["realized"]["sos"][0][3] == 1.0
+    assert len(data["realized"]["sos"][0]) == 6
+    assert (tmp_path / "pi.st").read_text().startswith("(*")
+
+
+def test_bad_inputs_are_one_line_errors(run_cli, tmp_path):
+    cases = [
+        ("--format", "q7"),
+        ("--lang", "rust"),
+        ("--name", "9lives"),
+        ("--structure", "ladder"),
+        ("--method", "guess"),
+    ]
+    for opt, val in cases:
+        r = run_cli("code", "(s+1)/(0.1s+1)", "--fs", "1kHz", "--out", str(tmp_path), opt, val)
+        assert r.code == 2, (opt, r.err)
+        assert len(r.err.strip().splitlines()) == 1 and "Traceback" not in r.err
+    r = run_cli("code", "(s+1)/(0.1s+1)", "--fs", "1kHz", "--format", "q15", "--out", str(tmp_path))
+    assert r.code == 2 and "--input-range" in r.err
+    r = run_cli("code", "(s+1)/(0.1s+1)", "--fs", "1kHz", "--lang", "st", "--format", "q15", "--out", str(tmp_path))
+    assert r.code == 2 and "Structured Text" in r.err
