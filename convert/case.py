@@ -43,6 +43,7 @@ SCHEMA: dict[str, Any] = {
         "digital": {
             "fs": 1, "methods": 1, "prewarp": 1, "delay": 1, "delay_samples": 1, "output_limits": 1,
             "derivative_filter": 1, "word_format": 1, "structure": 1, "input_range": 1, "input_resolution": 1,
+            "code_name": 1, "code_languages": 1,
         },
         "circuit": {
             "topology": 1, "resistors": 1, "capacitors": 1, "tolerances": None, "resistor_range": 1,
@@ -95,6 +96,8 @@ class DigitalTarget:
     structure: str = "direct1"
     input_range: tuple[float, float] | None = None
     input_resolution: float | None = None
+    code_name: str = "controller"
+    code_languages: tuple[str, ...] = ("c",)
     where: str = ""
 
     def delay_for(self, fs_hz: float) -> float:
@@ -585,6 +588,19 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
             raise ctx.error(f"{key}.input_range", "expected a range with a nonzero end, e.g. [-10, 10]")
         resolution = ctx.value(dig, "input_resolution", f"{key}.input_resolution", "number", None, positive=True,
                                allow_zero=False)
+        code_name = ctx.text(dig, "code_name", f"{key}.code_name", default="controller")
+        if not re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]{0,30}", code_name):
+            raise ctx.error(f"{key}.code_name", f"expected a C/ST identifier (letter or _, then letters, digits, _), "
+                            f"found {code_name!r}")
+        raw_langs = dig.get("code_languages", ["c"])
+        if isinstance(raw_langs, str):
+            raw_langs = [raw_langs]
+        if not isinstance(raw_langs, list):
+            raise ctx.error(f"{key}.code_languages", f"expected a list such as [\"c\", \"st\"], found {raw_langs!r}")
+        langs = tuple(dict.fromkeys(ctx.text({"v": v}, "v", f"{key}.code_languages", choices=("c", "st"))
+                                    for v in raw_langs))
+        if "st" in langs and word in ("q15", "q31"):
+            raise ctx.error(f"{key}.code_languages", f"Structured Text is written in float64 or float32, not {word}")
         if word in ("q15", "q31"):
             if in_range is None:
                 raise ctx.error(f"{key}.input_range", f"word_format {word} needs input_range, the error's range in "
@@ -596,7 +612,8 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
                                                                                 None, positive=True, allow_zero=False),
                                 delay_s=delay_s, delay_samples=delay_samples, output_limits=limits,
                                 derivative_filter=n_filter, word_format=word, structure=structure,
-                                input_range=in_range, input_resolution=resolution, where=ctx.where(key))
+                                input_range=in_range, input_resolution=resolution, code_name=code_name,
+                                code_languages=langs, where=ctx.where(key))
     cir = ctx.table(table, "circuit", "target.circuit")
     if cir is not None:
         key = "target.circuit"

@@ -100,3 +100,17 @@ def test_unknown_structure_refused(tmp_path):
 
     with pytest.raises(InputError, match="structure"):
         _case(tmp_path, "float32", "ladder")
+
+
+def test_code_files_go_into_the_report_only_when_the_checks_pass(tmp_path):
+    """The report folder carries the generated code of a realization that passes its firmware
+    checks, and none for one that fails (code that must not run is not handed out)."""
+    from convert.report import build_report
+
+    good = evaluate_case(_case(tmp_path, "float32", "delta", 'code_name = "card5"\ncode_languages = ["c", "st"]'))
+    files = build_report(good)
+    names = [n for n in files if n.startswith("code/")]
+    assert sorted(n.rsplit("/", 1)[1] for n in names) == ["card5.c", "card5.h", "card5.st"]
+    assert "Structure: delta" in files[next(n for n in names if n.endswith(".h"))]
+    bad = evaluate_case(_case(tmp_path, "float32", "direct1"))
+    assert not [n for n in build_report(bad) if n.startswith("code/")]

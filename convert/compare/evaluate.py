@@ -421,7 +421,7 @@ def _digital_realizations(case, src, analog_src, band, src_margins, duration, sr
                        "output_limits": firmware_output_limits(case, card_limits)}
             r = Realization(name=name, form="digital", controller=cq, details=details, budget=budget,
                             seen=lambda f, c=cq, d=delay: response_seen_from_loop(c, f, delay_s=d, via="zpk"),
-                            warnings=warnings)
+                            warnings=warnings, files=_code_files(case, firmware, name, method))
             if case.plant is not None:
                 r.margins = loop_margins(cq, case.plant.model, case.plant.dead_time_s, delay_s=delay)
                 limits = firmware_output_limits(case, card_limits)
@@ -450,6 +450,26 @@ def _firmware(case, real, band):
     except LoopshiftError as exc:
         raise type(exc)(exc.message, where=case.where("target.digital"),
                         key=f"target.digital.{exc.key}" if exc.key else "target.digital") from None
+
+
+def _code_files(case, firmware, name: str, method: str) -> dict:
+    """The generated code of a realization that passes its firmware checks, under
+    ``code/<realization>/`` (none for a failing one: code that must not run is not handed out)."""
+    if not firmware.ok:
+        return {}
+    import re
+
+    from convert.digital.codegen import emit
+
+    tgt = case.digital
+    folder = "code/" + re.sub(r"[^A-Za-z0-9]+", "-", name).strip("-").lower()
+    limits = tgt.output_limits or case.signals.output_range
+    files = {}
+    for lang in tgt.code_languages:
+        for fname, text in emit(firmware.realized, tgt.code_name, lang, source=case.title or "case source",
+                                method=method, limits=limits).items():
+            files[f"{folder}/{fname}"] = text
+    return files
 
 
 def _realized_controller(firmware):
