@@ -64,3 +64,14 @@ def test_bad_inputs_are_one_line_errors(run_cli, tmp_path):
     assert r.code == 2 and "--input-range" in r.err
     r = run_cli("code", "(s+1)/(0.1s+1)", "--fs", "1kHz", "--lang", "st", "--format", "q15", "--out", str(tmp_path))
     assert r.code == 2 and "Structured Text" in r.err
+
+
+def test_pid_block_files(run_cli, tmp_path):
+    r = run_cli("code", "--pid", "kc=2", "ti=30s", "td=5s", "n=10", "b=0.5", "c=0", "--fs", "10Hz", "--pid-block",
+                "--anti-windup", "track", "--output-limits", "0", "100", "--name", "tic", "--out", str(tmp_path))
+    assert r.code == 0, r.err
+    h = (tmp_path / "tic.h").read_text()
+    assert "double tic_step(tic_state *st, double setpoint, double measurement);" in h
+    assert "tic_set_output" in h and "tracking time constant" in h
+    r = run_cli("code", "1/((s+1)*(s+2)*(s+3))", "--fs", "10Hz", "--pid-block", "--out", str(tmp_path))
+    assert r.code == 2 and "not a PID" in r.err

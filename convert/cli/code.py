@@ -72,6 +72,18 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     parser.add_argument("--input-resolution", metavar="E", dest="input_resolution",
                         help="smallest error the integral must act on (default: input range / 2^15), e.g. "
                              "--input-resolution 0.001")
+    parser.add_argument("--pid-block", action="store_true", dest="pid_block",
+                        help="write a PID block instead (NAME_step(st, setpoint, measurement), limits with "
+                             "anti-windup, setpoint weights b/c from --pid, NAME_set_output for bumpless transfer), "
+                             "e.g. --pid kc=2 ti=30s --pid-block --output-limits 0 100")
+    parser.add_argument("--velocity", action="store_true",
+                        help="PID block in velocity (incremental) form instead of positional, e.g. --pid-block --velocity")
+    parser.add_argument("--anti-windup", metavar="A", default="clamp", dest="anti_windup",
+                        help="PID block: clamp (conditional integration, default), track (back-calculation) or none, "
+                             "e.g. --anti-windup track")
+    parser.add_argument("--tracking-time", metavar="S", dest="tracking_time",
+                        help="PID block, back-calculation: tracking time constant (default sqrt(Ti*Td), Ti for a PI), "
+                             "e.g. --tracking-time 5s")
     parser.add_argument("--json", action="store_true",
                         help="print the realized coefficients (b/a or sos rows [b0, b1, b2, 1, a1, a2]) and the "
                              "analysis of every structure as JSON, e.g. --json")
@@ -125,6 +137,8 @@ def run(args, console) -> int:
         raise InputError(f"{args.fmt} needs --input-range LOW HIGH (the error's range scales the words)",
                          key="--input-range")
     controller, source = _controller(args)
+    if args.pid_block:
+        return _pid_block(args, console, controller, source, fs, word, lang, lim)
     if controller.is_digital:
         raise InputError("give an analog controller (in s); the tool samples it at --fs", key="EXPR")
     if args.filter_n is not None:
@@ -199,3 +213,53 @@ def _render(console, pick, every, why, paths, word) -> None:
     for path in paths.values():
         p(f"wrote {path}", markup=False)
     p("The tool computes; it does not certify. Bench-test the code before a live swap.", markup=False)
+
+
+def _pid_block(args, console, controller, source, fs, word, lang, lim) -> int:
+    """``--pid-block``: the PID block of convert.digital.pidblock in C."""
+    import os
+
+    from convert.cli.common import at, check_output_files, emit_json, positive_value, write_text_atomic
+    from convert.digital.pidblock import PidBlock, emit_pid_c
+    from convert.errors import InputError
+    from convert.pid import pid_from_controller, pid_from_words, why_not_pid
+
+    if lang != "c":
+        raise InputError("the PID block is written in C only (Structured Text: the linear controller)", key="--lang")
+    if word not in ("float64", "float32"):
+        raise InputError("the PID block is written in double or float", key="--format")
+    settings = pid_from_words(args.pid, where="--pid") if args.pid else pid_from_controller(controller)
+    if settings is None:
+        raise InputError(f"the controller is not a PID: {why_not_pid(controller)}", key="--pid-block")
+    tt = positive_value(args.tracking_time, "second", "--tracking-time") if args.tracking_time else None
+    with at(None, rename={"anti_windup": "--anti-windup", "tracking_time": "--tracking-time",
+                          "output_limits": "--output-limits", "name": "--name"}):
+        block = PidBlock.from_settings(settings, fs, form="velocity" if args.velocity else "positional", limits=lim,
+                                       anti_windup=args.anti_windup, tracking_time_s=tt, word_format=word)
+        files = emit_pid_c(block, args.name, source=source)
+    paths = {}
+    if args.out:
+        if os.path.exists(args.out) and not os.path.isdir(args.out):
+            raise InputError(f"{args.out!r} is a file; give a folder", key="--out")
+        os.makedirs(args.out, exist_ok=True)
+        paths = {n: os.path.join(args.out, n) for n in files}
+        check_output_files({f"--out {n}": p for n, p in paths.items()}, force=args.force)
+        for n, p in paths.items():
+            write_text_atomic(p, files[n])
+    info = {"kind": "pid-block", "form": block.form, "anti_windup": block.anti_windup,
+            "tracking_time_s": block.tracking_time_s if block.anti_windup == "track" else None,
+            "limits": block.limits, "constants": block.constants(), "word_format": word, "fs_hz": fs,
+            "written": list(paths.values())}
+    if args.json:
+        emit_json(console, info)
+        return 0
+    k = block.constants()
+    console.print(f"PID block, {block.form} form, {word}; kp = {k['kp']:.6g}, ki*T = {k['bi']:.6g}, "
+                  f"kd/(Tf+T) = {k['bd']:.6g}, b = {block.b:g}, c = {block.c:g}", markup=False)
+    console.print(f"anti-windup: {block.anti_windup}"
+                  + (f", tracking time constant {block.tracking_time_s:.4g} s" if block.anti_windup == "track" else "")
+                  + (f"; limits {lim[0]:g} .. {lim[1]:g}" if lim else "; no output limits (no clamp)"), markup=False)
+    for p in paths.values():
+        console.print(f"wrote {p}", markup=False)
+    console.print("The tool computes; it does not certify. Bench-test the code before a live swap.", markup=False)
+    return 0

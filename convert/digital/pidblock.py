@@ -1,0 +1,239 @@
+"""A PID block for firmware: parallel P, I and filtered D as separate states, positional or
+velocity (incremental) form, output limits with anti-windup, derivative on a weighted
+setpoint (c = 0: on the measurement only), setpoint weight b on P, bumpless transfer.
+
+Per sample (T the sample period, r the setpoint, y the measurement, s = +1 reverse / −1 direct
+action folded into the gains):
+
+* P = kp·(b·r − y)
+* D = ad·D + bd·((c·r − y) − (c·r − y)_previous), ad = Tf/(Tf + T), bd = kd/(Tf + T) (the
+  filtered derivative by backward difference; Åström & Hägglund, *Advanced PID Control*, ch. 13 —
+  from memory)
+* positional: v = P + I + D; u = v clamped to the limits; then the integral, forward Euler
+  with bi = ki·T:
+  - ``anti_windup="clamp"`` (conditional integration): I += bi·e only when u = v, or when the
+    error drives the output back from the limit it is at (common practice);
+  - ``anti_windup="track"`` (back-calculation): I += bi·e + (T/Tt)·(u − v) with the tracking time
+    constant Tt (default: √(Ti·Td) for a PID, Ti for a PI — Åström & Hägglund's rule of thumb,
+    from memory);
+  - ``"none"``: I += bi·e (the integral winds up);
+* velocity: u = clamp(u_previous + ΔP + bi·e_previous + ΔD): the same integral rule as the
+  positional form, and the clamp on the accumulated output stops the windup by itself.
+
+``set_output(u, r, y)`` (bumpless transfer): the state for which the next sample with the same r
+and y gives u — positional: I = u − P, D = 0; velocity: u_previous = u, ΔP = ΔD = 0.
+
+Word formats: float64 and float32, every operation rounded in the format in the order written
+in :meth:`PidModel.step` (the generated C follows it).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from convert.errors import InputError
+
+FORMS = ("positional", "velocity")
+ANTI_WINDUP = ("clamp", "track", "none")
+
+
+@dataclass(frozen=True)
+class PidBlock:
+    """Parallel gains kp, ki (1/s), kd (s), derivative filter tf (s), weights b and c, action sign
+    (+1 reverse, −1 direct), sample rate fs_hz (Hz), form, limits (low, high) or None,
+    anti_windup, tracking_time_s (Tt, s, back-calculation), word_format."""
+
+    kp: float
+    ki: float
+    kd: float
+    tf: float
+    b: float
+    c: float
+    sign: int
+    fs_hz: float
+    form: str = "positional"
+    limits: tuple[float, float] | None = None
+    anti_windup: str = "clamp"
+    tracking_time_s: float | None = None
+    word_format: str = "float64"
+
+    @classmethod
+    def from_settings(cls, settings, fs_hz: float, **kw) -> "PidBlock":
+        """From :class:`convert.pid.PidSettings`; ``tracking_time_s`` defaults by the rule of thumb."""
+        if not (math.isfinite(fs_hz) and fs_hz > 0):
+            raise InputError(f"expected a positive sample rate, found {fs_hz!r}", key="fs")
+        form = kw.get("form", "positional")
+        if form not in FORMS:
+            raise InputError(f"expected one of {', '.join(FORMS)}, found {form!r}", key="form")
+        aw = kw.get("anti_windup", "clamp")
+        if aw not in ANTI_WINDUP:
+            raise InputError(f"expected one of {', '.join(ANTI_WINDUP)}, found {aw!r}", key="anti_windup")
+        if kw.get("word_format", "float64") not in ("float64", "float32"):
+            raise InputError("the PID block is written in float64 or float32", key="word_format")
+        lim = kw.get("limits")
+        if lim is not None and not lim[0] < lim[1]:
+            raise InputError(f"expected low < high, found {lim!r}", key="output_limits")
+        tt = kw.get("tracking_time_s")
+        if tt is None and settings.ki > 0:
+            ti = settings.kp / settings.ki if settings.kp > 0 else 1.0 / settings.ki
+            td = settings.kd / settings.kp if settings.kp > 0 else 0.0
+            tt = math.sqrt(ti * td) if td > 0 else ti
+        if tt is not None and not (math.isfinite(tt) and tt > 0):
+            raise InputError(f"expected a positive tracking time constant, found {tt!r}", key="tracking_time")
+        return cls(settings.kp, settings.ki, settings.kd, settings.tf, settings.b, settings.c, settings.sign, fs_hz,
+                   form, tuple(lim) if lim else None, aw, tt, kw.get("word_format", "float64"))
+
+    @property
+    def sample_period_s(self) -> float:
+        return 1.0 / self.fs_hz
+
+    def constants(self) -> dict[str, float]:
+        """The per-sample constants in float64 (the model and the code store them in the format)."""
+        t = self.sample_period_s
+        s = self.sign
+        return {"kp": s * self.kp, "b": self.b, "c": self.c, "bi": s * self.ki * t,
+                "ad": self.tf / (self.tf + t), "bd": s * self.kd / (self.tf + t),
+                "ao": t / self.tracking_time_s if (self.tracking_time_s and self.anti_windup == "track") else 0.0}
+
+    def model(self) -> "PidModel":
+        return PidModel(self)
+
+
+class PidModel:
+    """The arithmetic of a :class:`PidBlock` (the reference its generated code is checked with)."""
+
+    def __init__(self, block: PidBlock):
+        self.block = block
+        self.cast = np.float32 if block.word_format == "float32" else float
+        self.k = {n: self.cast(v) for n, v in block.constants().items()}
+        lim = block.limits
+        self.lo = self.cast(lim[0]) if lim else None
+        self.hi = self.cast(lim[1]) if lim else None
+        self.reset()
+
+    def reset(self) -> None:
+        z = self.cast(0.0)
+        self.i = self.d = self.ds_old = self.u_old = self.p_old = self.d_old = self.e_old = z
+
+    def _clamp(self, v):
+        if self.lo is None:
+            return v
+        return self.lo if v < self.lo else self.hi if v > self.hi else v
+
+    def set_output(self, u, r, y) -> None:
+        c = self.cast
+        k = self.k
+        u, r, y = c(u), c(r), c(y)
+        self.reset()
+        p = k["kp"] * (k["b"] * r - y)
+        self.ds_old = k["c"] * r - y
+        if self.block.form == "positional":
+            self.i = u - p
+        else:
+            self.u_old = u
+            self.p_old = p
+
+    def step(self, r, y) -> float:
+        c = self.cast
+        k = self.k
+        r, y = c(r), c(y)
+        with np.errstate(over="ignore", invalid="ignore"):
+            e = r - y
+            p = k["kp"] * (k["b"] * r - y)
+            ds = k["c"] * r - y
+            self.d = k["ad"] * self.d + k["bd"] * (ds - self.ds_old)
+            self.ds_old = ds
+            if self.block.form == "velocity":
+                v = self.u_old + ((p - self.p_old) + k["bi"] * self.e_old + (self.d - self.d_old))
+                u = self._clamp(v)
+                self.u_old, self.p_old, self.d_old, self.e_old = u, p, self.d, e
+                return float(u)
+            v = p + self.i + self.d
+            u = self._clamp(v)
+            aw = self.block.anti_windup
+            if aw == "track":
+                self.i = self.i + k["bi"] * e + k["ao"] * (u - v)
+            elif aw == "clamp" and self.lo is not None:
+                step = k["bi"] * e
+                if (self.lo <= v <= self.hi) or (v > self.hi and step < 0) or (v < self.lo and step > 0):
+                    self.i = self.i + step
+            else:
+                self.i = self.i + k["bi"] * e
+            return float(u)
+
+    def run(self, r, y) -> np.ndarray:
+        return np.array([self.step(a, b) for a, b in zip(np.asarray(r, float), np.asarray(y, float))])
+
+
+# ----------------------------------------------------------------------------- C99
+def emit_pid_c(block: PidBlock, name: str, *, source: str = "") -> dict[str, str]:
+    """``NAME.h``/``NAME.c`` for a PID block: ``T NAME_step(NAME_state *st, T setpoint, T
+    measurement)``, ``NAME_reset``, ``NAME_set_output(st, u, setpoint, measurement)``."""
+    from convert.digital.codegen import _check_name
+
+    _check_name(name)
+    single = block.word_format == "float32"
+    t = "float" if single else "double"
+    cast = np.float32 if single else float
+
+    def lit(x):
+        text = float(cast(x)).hex()
+        return f"({text}f)" if single else f"({text})"
+
+    k = block.constants()
+    lim = block.limits
+    head = [
+        f"{name}: PID block generated by loopshift (check it on a bench before a live swap).",
+        f"Source: {source}",
+        f"Sample rate {block.fs_hz:.10g} Hz; {block.form} form; word format {block.word_format} ({t}).",
+        f"Gains (parallel, action sign folded in): kp = {k['kp']:.10g}, ki = {block.sign * block.ki:.10g} 1/s, "
+        f"kd = {block.sign * block.kd:.10g} s, derivative filter Tf = {block.tf:.10g} s; setpoint weights "
+        f"b = {block.b:.6g}, c = {block.c:.6g}.",
+        f"Output limits: {lim[0]:.10g} .. {lim[1]:.10g}" if lim else "Output limits: none (no clamp in this block)",
+        f"Anti-windup: {block.anti_windup}" + (f", tracking time constant Tt = {block.tracking_time_s:.6g} s"
+                                               if block.anti_windup == "track" else ""),
+        "Call NAME_step once per sample; NAME_set_output(st, u, setpoint, measurement) before switching",
+        "from manual to automatic makes the next output equal u (bumpless transfer).",
+    ]
+    h = ["/*"] + [f" * {x.replace('NAME', name)}" for x in head] + [" */", f"#ifndef {name.upper()}_H",
+         f"#define {name.upper()}_H", "", "#include <stdint.h>", "", "typedef struct {",
+         f"    {t} i, d, ds_old, u_old, p_old, d_old, e_old;", f"}} {name}_state;", "",
+         f"void {name}_reset({name}_state *st);",
+         f"{t} {name}_step({name}_state *st, {t} setpoint, {t} measurement);",
+         f"void {name}_set_output({name}_state *st, {t} u, {t} setpoint, {t} measurement);", "", "#endif", ""]
+    c = [f'#include "{name}.h"', "", f"void {name}_reset({name}_state *st)", "{",
+         "    st->i = 0; st->d = 0; st->ds_old = 0; st->u_old = 0; st->p_old = 0; st->d_old = 0; st->e_old = 0;",
+         "}", "", f"void {name}_set_output({name}_state *st, {t} u, {t} r, {t} y)", "{",
+         f"    {t} p = {lit(k['kp'])} * ({lit(k['b'])} * r - y);", f"    {name}_reset(st);",
+         f"    st->ds_old = {lit(k['c'])} * r - y;"]
+    c += (["    st->i = u - p;"] if block.form == "positional" else ["    st->u_old = u;", "    st->p_old = p;"])
+    c += ["}", "", f"{t} {name}_step({name}_state *st, {t} r, {t} y)", "{",
+          f"    {t} e = r - y;", f"    {t} p = {lit(k['kp'])} * ({lit(k['b'])} * r - y);",
+          f"    {t} ds = {lit(k['c'])} * r - y;", f"    {t} v, u;",
+          f"    st->d = {lit(k['ad'])} * st->d + {lit(k['bd'])} * (ds - st->ds_old);", "    st->ds_old = ds;"]
+
+    def clamp(var):
+        if not lim:
+            return [f"    u = {var};"]
+        return [f"    u = {var} < {lit(lim[0])} ? {lit(lim[0])} : ({var} > {lit(lim[1])} ? {lit(lim[1])} : {var});"]
+
+    if block.form == "velocity":
+        c += [f"    v = st->u_old + ((p - st->p_old) + {lit(k['bi'])} * st->e_old + (st->d - st->d_old));"]
+        c += clamp("v")
+        c += ["    st->u_old = u; st->p_old = p; st->d_old = st->d; st->e_old = e;", "    return u;", "}", ""]
+    else:
+        c += ["    v = p + st->i + st->d;"] + clamp("v")
+        if block.anti_windup == "track":
+            c.append(f"    st->i = st->i + {lit(k['bi'])} * e + {lit(k['ao'])} * (u - v);")
+        elif block.anti_windup == "clamp" and lim:
+            c += [f"    {{ {t} step = {lit(k['bi'])} * e;",
+                  f"      if ((v >= {lit(lim[0])} && v <= {lit(lim[1])}) || (v > {lit(lim[1])} && step < 0) || "
+                  f"(v < {lit(lim[0])} && step > 0))",
+                  "          st->i = st->i + step; }"]
+        else:
+            c.append(f"    st->i = st->i + {lit(k['bi'])} * e;")
+        c += ["    (void)st->e_old;", "    return u;", "}", ""]
+    return {f"{name}.h": "\n".join(h), f"{name}.c": "\n".join(c)}

@@ -1,0 +1,151 @@
+"""The firmware PID block: anti-windup trajectories derived by hand, the unsaturated block
+against scipy.signal.lfilter, bumpless transfer, and its generated C against the model."""
+
+from __future__ import annotations
+
+import shutil
+import subprocess
+
+import numpy as np
+import pytest
+
+from convert.digital.pidblock import PidBlock, emit_pid_c
+from convert.pid import PidSettings
+
+GCC = shutil.which("gcc")
+
+
+def _block(**kw):
+    s = PidSettings(kp=kw.pop("kp", 1.0), ki=kw.pop("ki", 1.0), kd=kw.pop("kd", 0.0), tf=kw.pop("tf", 0.0),
+                    b=kw.pop("b", 1.0), c=kw.pop("c", 1.0), action=kw.pop("action", "reverse"))
+    return PidBlock.from_settings(s, kw.pop("fs", 10.0), **kw)
+
+
+def test_conditional_integration_holds_the_integral():
+    """Hand derivation (conditional integration, common practice): kp = 1, ki = 1/s, T = 0.1 s,
+    limits ±1. Error 5 from rest: v = 5 > 1, the error drives further into the limit, so I stays 0
+    and u = 1 every sample. Then an error of −0.5: v = −0.5 + I inside the limits, integration
+    resumes: I = −0.05·n."""
+    m = _block(limits=(-1.0, 1.0), anti_windup="clamp").model()
+    assert all(m.step(5.0, 0.0) == 1.0 for _ in range(50))
+    assert m.i == 0.0
+    out = [m.step(0.0, 0.5) for _ in range(5)]
+    assert out == pytest.approx([-0.5 - 0.05 * n for n in range(5)], abs=1e-15)
+
+
+def test_without_anti_windup_the_integral_winds_up():
+    """The reference behaviour the clamp removes: I grows by ki·T·e = 0.5 per sample."""
+    m = _block(limits=(-1.0, 1.0), anti_windup="none").model()
+    for _ in range(50):
+        m.step(5.0, 0.0)
+    assert m.i == pytest.approx(25.0)
+
+
+def test_back_calculation_follows_the_tracking_time_constant():
+    """Hand derivation (back-calculation, Åström & Hägglund, Advanced PID Control — from
+    memory): saturated at u = 1 with constant e, I[n+1] = I[n] + bi·e + (T/Tt)(1 − P − I[n]), so
+    I[n] = I* + (I[0] − I*)(1 − T/Tt)^n with I* = 1 − P + Tt·ki·e."""
+    tt = 2.0
+    m = _block(kp=1.0, ki=1.0, limits=(-1.0, 1.0), anti_windup="track", tracking_time_s=tt).model()
+    e, p, t = 5.0, 5.0, 0.1
+    i_star = 1 - p + tt * 1.0 * e
+    got = []
+    for _ in range(40):
+        got.append(m.i)
+        m.step(e, 0.0)
+    want = [i_star + (0.0 - i_star) * (1 - t / tt) ** n for n in range(40)]
+    assert got == pytest.approx(want, rel=1e-12, abs=1e-12)
+
+
+def test_default_tracking_time_rule_of_thumb():
+    """Stated default (Åström & Hägglund's rule of thumb, from memory): Tt = √(Ti·Td), Ti for a PI."""
+    pid = _block(kp=2.0, ki=0.5, kd=1.0, tf=0.1, limits=(-1, 1), anti_windup="track")
+    assert pid.tracking_time_s == pytest.approx(np.sqrt(4.0 * 0.5))
+    assert _block(kp=2.0, ki=0.5).tracking_time_s == pytest.approx(4.0)
+
+
+def test_unsaturated_block_matches_lfilter_and_the_velocity_form():
+    """Reference library: without limits and with b = c = 1 the positional block is the linear
+    filter kp + ki·T·z^-1/(1 − z^-1) + kd/(Tf+T)·(1 − z^-1)/(1 − Tf/(Tf+T)·z^-1) on the error
+    (scipy.signal.lfilter term by term); the velocity form gives the same output."""
+    from scipy.signal import lfilter
+
+    kp, ki, kd, tf, fs = 1.5, 0.8, 0.3, 0.05, 50.0
+    t = 1 / fs
+    blk = _block(kp=kp, ki=ki, kd=kd, tf=tf, fs=fs, anti_windup="none")
+    rng = np.random.default_rng(4)
+    r = np.repeat(rng.normal(size=40), 10)
+    y = np.cumsum(rng.normal(size=400)) * 0.05
+    e = r - y
+    want = kp * e + lfilter([0, ki * t], [1, -1], e) + lfilter([kd / (tf + t), -kd / (tf + t)], [1, -tf / (tf + t)], e)
+    got = blk.model().run(r, y)
+    assert np.max(np.abs(got - want)) < 1e-12 * np.max(np.abs(want))
+    vel = _block(kp=kp, ki=ki, kd=kd, tf=tf, fs=fs, form="velocity").model().run(r, y)
+    assert np.max(np.abs(vel - want)) < 1e-12 * np.max(np.abs(want))
+
+
+def test_derivative_on_measurement_has_no_setpoint_kick():
+    """c = 0: a setpoint step moves only P (b·Δr·kp) and nothing through D (common practice)."""
+    m = _block(kp=2.0, ki=0.0, kd=1.0, tf=0.1, b=0.5, c=0.0).model()
+    m.step(0.0, 0.0)
+    assert m.step(1.0, 0.0) == pytest.approx(2.0 * 0.5)
+
+
+def test_direct_action_reverses_every_term():
+    """action = direct: the same error gives the opposite output (the sign folded into the gains)."""
+    a = _block(kp=1.0, ki=1.0, kd=0.2, tf=0.1).model().run([1, 1, 1], [0, 0.2, 0.4])
+    b = _block(kp=1.0, ki=1.0, kd=0.2, tf=0.1, action="direct").model().run([1, 1, 1], [0, 0.2, 0.4])
+    assert np.allclose(a, -b)
+
+
+@pytest.mark.parametrize("form", ["positional", "velocity"])
+def test_bumpless_transfer(form):
+    """set_output(u, r, y): the next sample with the same r and y gives u (bumpless transfer)."""
+    m = _block(kp=2.0, ki=0.5, kd=0.3, tf=0.05, b=0.7, c=0.0, form=form, limits=(-10, 10)).model()
+    m.set_output(3.25, 1.0, 0.4)
+    assert m.step(1.0, 0.4) == pytest.approx(3.25, abs=1e-15)
+
+
+@pytest.mark.skipif(GCC is None, reason="gcc not installed (.ci/run installs it)")
+@pytest.mark.parametrize("form,aw,fmt", [("positional", "clamp", "float64"), ("positional", "track", "float32"),
+                                         ("velocity", "clamp", "float32"), ("positional", "none", "float64")])
+def test_pid_c_matches_model(tmp_path, form, aw, fmt):
+    """The generated PID C (gcc -std=c99 -Wall -Wextra -Werror -pedantic) equals the model bit for
+    bit on a run with saturation, a manual-to-auto switch and noise."""
+    blk = _block(kp=2.0, ki=0.7, kd=0.4, tf=0.05, b=0.8, c=0.0, fs=100.0, form=form, anti_windup=aw,
+                 limits=(-3.0, 4.0), word_format=fmt)
+    files = emit_pid_c(blk, "pidx", source="test")
+    for n, text in files.items():
+        (tmp_path / n).write_text(text)
+    (tmp_path / "main.c").write_text(r"""
+#include <stdio.h>
+#include "pidx.h"
+int main(void) { pidx_state st; char c; double a, b, u;
+  pidx_reset(&st);
+  while (scanf(" %c %la %la", &c, &a, &b) == 3) {
+    if (c == 'o') { if (scanf(" %la", &u) != 1) return 1; pidx_set_output(&st, (T)u, (T)a, (T)b); continue; }
+    printf("%a\n", (double)pidx_step(&st, (T)a, (T)b)); }
+  return 0; }
+""".replace("(T)", "(float)" if fmt == "float32" else "(double)"))
+    exe = tmp_path / "run"
+    subprocess.run([GCC, "-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", "-O2", "-o", str(exe),
+                    str(tmp_path / "main.c"), str(tmp_path / "pidx.c")], check=True, capture_output=True, text=True)
+    cast = np.float32 if fmt == "float32" else float
+    rng = np.random.default_rng(9)
+    seq = [("x", 5.0, 0.0)] * 200 + [("x", -2.0, 1.0)] * 100
+    seq += [("x", 0.5, float(v)) for v in rng.normal(size=200) * 0.3]
+    seq += [("o", 1.0, 0.2, 1.5)] + [("x", 1.0, 0.2)] * 20
+    lines, model, want = [], blk.model(), []
+    for item in seq:
+        r, y = float(cast(item[1])), float(cast(item[2]))
+        if item[0] == "o":
+            u = float(cast(item[3]))
+            lines.append(f"o {r.hex()} {y.hex()} {u.hex()}")
+            model.set_output(u, r, y)
+        else:
+            lines.append(f"x {r.hex()} {y.hex()}")
+            want.append(model.step(r, y))
+    out = subprocess.run([str(exe)], input="\n".join(lines) + "\n", capture_output=True, text=True, check=True)
+    got = [float.fromhex(v) for v in out.stdout.split()]
+    assert got == want
+    assert max(want) == 4.0 and want[-20] == pytest.approx(1.5, abs=1e-6)  # saturated, then bumpless
