@@ -122,6 +122,7 @@ class FixedModel:
         self.full = 1 << (w.bits - 1)
         self.secs = [(list(s.b_int), list(s.a_int[1:]), s.shift) for s in real.sections]
         self.b_shifts = [s.b_shift for s in real.sections]
+        self.round_half = w.rounding == "half-up"
         self.reset()
 
     def reset(self) -> None:
@@ -158,10 +159,10 @@ class FixedModel:
                 acc += b[k] * xh[k - 1]
             e = self.b_shifts[i]
             if e:
-                acc = (acc + (1 << (e - 1))) >> e
+                acc = (acc + ((1 << (e - 1)) if self.round_half else 0)) >> e
             for k in range(len(a)):
                 acc -= a[k] * yh[k]
-            y = (acc + (1 << (sh - 1))) >> sh
+            y = (acc + ((1 << (sh - 1)) if self.round_half else 0)) >> sh
             y = lo if y < lo else hi if y > hi else y
             if xh:
                 xh.insert(0, v)
@@ -191,8 +192,8 @@ class FixedModel:
             ff = np.convolve(ext, np.asarray(b, dtype=np.int64))[nb - 1:nb - 1 + v.size] if nb > 1 else v * b[0]
             e = self.b_shifts[i]
             if e:
-                ff = (ff + (1 << (e - 1))) >> e
-            half = 1 << (sh - 1)
+                ff = (ff + ((1 << (e - 1)) if self.round_half else 0)) >> e
+            half = (1 << (sh - 1)) if self.round_half else 0
             out = [0] * v.size
             ffl = (ff + half).tolist()  # the rounding half added once, vectorized
             m = len(a)

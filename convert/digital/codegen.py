@@ -105,10 +105,12 @@ def emit_c(real: Realized, name: str, *, source: str = "", method: str = "", lim
          f'#include "{name}.h"', ""]
     if w.is_fixed:
         acc = w.accumulator_c_type
-        c += [f"/* floor((v + 2^(sh-1)) / 2^sh) without relying on the sign behaviour of >> */",
-              f"static {acc} {name}_round_shift({acc} v, int sh)", "{",
-              f"    v += ({acc})1 << (sh - 1);",
-              "    return v >= 0 ? v >> sh : -((-(v + 1)) >> sh) - 1;", "}", "",
+        half = w.rounding == "half-up"
+        c += [f"/* floor({'(v + 2^(sh-1))' if half else 'v'} / 2^sh) without relying on the sign behaviour of >> */",
+              f"static {acc} {name}_round_shift({acc} v, int sh)", "{"]
+        if half:
+            c.append(f"    v += ({acc})1 << (sh - 1);")
+        c += ["    return v >= 0 ? v >> sh : -((-(v + 1)) >> sh) - 1;", "}", "",
               f"static {t} {name}_saturate({acc} v)", "{",
               f"    if (v > INT{w.bits}_MAX) return INT{w.bits}_MAX;",
               f"    if (v < INT{w.bits}_MIN) return INT{w.bits}_MIN;",

@@ -10,7 +10,9 @@ scale is chosen per node from the stated input range, see :mod:`convert.digital.
 Coefficients are stored as ``c · 2^(W-1-k)`` rounded to the nearest integer (ties away from
 zero), with a per-section headroom shift ``k``. Products are summed exactly in the accumulator
 (the shift ``k`` is chosen so the sum cannot overflow it), then shifted right by ``W-1-k`` with
-rounding half up (add half an LSB, then floor), then saturated to the word. Inputs are rounded
+rounding half up (add half an LSB, then floor), then saturated to the word. (A format with
+``rounding="floor"`` truncates instead, as CMSIS-DSP's Q15/Q31 direct-form-I biquads do; the
+tests use it to check the model against that library.) Inputs are rounded
 the same way and saturated.
 """
 
@@ -36,6 +38,7 @@ class WordFormat:
     mantissa_bits: int = 0
     max_value: float = 0.0
     label: str = ""
+    rounding: str = "half-up"  # fixed point after a shift: "half-up" (add half an LSB, floor) or "floor"
 
     @property
     def is_fixed(self) -> bool:
