@@ -56,6 +56,7 @@ _UNITS: dict[str, tuple[str, float]] = {
     "min": ("second", 60.0),
     "h": ("second", 3600.0),
     "V": ("volt", 1.0),
+    "A": ("ampere", 1.0),
     "%": ("percent", 1.0),
 }
 
@@ -66,6 +67,7 @@ KIND_NAMES = {
     "hz": "a frequency in Hz (e.g. 1 kHz, 50 Hz)",
     "second": "a time (e.g. 250 ms, 0.5 s, 2 min)",
     "volt": "a voltage (e.g. 12 V)",
+    "ampere": "a current (e.g. 20 mA)",
     "percent": "a percentage (e.g. 150 %)",
     "ratio": "a plain number or percentage (e.g. 0.5 or 50 %)",
     "number": "a plain number (e.g. 2.5, 1e-3)",

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import json
 
+import pytest
+
 FIFTH = "3*(1+1/(20*s))*(1+s/0.5)/(1+s/5)/((s/0.8)^2+s/0.8/0.7+1)/(1+s/0.3)"
 
 
@@ -75,3 +77,21 @@ def test_pid_block_files(run_cli, tmp_path):
     assert "tic_set_output" in h and "tracking time constant" in h
     r = run_cli("code", "1/((s+1)*(s+2)*(s+3))", "--fs", "10Hz", "--pid-block", "--out", str(tmp_path))
     assert r.code == 2 and "not a PID" in r.err
+
+
+def test_signal_scaling_rescales_the_gain_and_checks_direction(run_cli, tmp_path):
+    """Hand calculation: a card working in volts (transmitter 1–5 V across 250 Ω) read by a
+    12-bit converter (0–4095 counts) and driving a 0–10 V output from a 12-bit DAC: the
+    firmware gain is 2 × (4 V / 4095) × (4095 / 10 V) = 0.8. An inverted input map (4095 at 1 V)
+    flips the firmware sign and says so."""
+    r = run_cli("code", "--pid", "kc=2", "ti=30s", "--fs", "10Hz", "--pid-block", "--input-scale", "1V", "5V",
+                "0", "4095", "--output-scale", "0V", "10V", "0", "4095", "--json")
+    data = json.loads(r.out)
+    assert data["scaled_gains"]["kp"] == pytest.approx(0.8) and data["scaled_gains"]["action"] == "reverse"
+    r = run_cli("code", "--pid", "kc=2", "ti=30s", "--fs", "10Hz", "--pid-block", "--input-scale", "4mA", "20mA",
+                "4095", "0", "--output-scale", "0V", "10V", "0", "4095", "--json")
+    data = json.loads(r.out)
+    assert data["scaled_gains"]["action"] == "direct" and "inverted" in data["scaling"]
+    assert data["scaled_gains"]["kp"] == pytest.approx(2 * 16e-3 / 4095 * 409.5)
+    r = run_cli("code", "2*(1+1/(30*s))", "--fs", "10Hz", "--input-scale", "1V", "1V", "0", "4095", "--json")
+    assert r.code == 2 and "--input-scale" in r.err

@@ -72,6 +72,12 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     parser.add_argument("--input-resolution", metavar="E", dest="input_resolution",
                         help="smallest error the integral must act on (default: input range / 2^15), e.g. "
                              "--input-resolution 0.001")
+    parser.add_argument("--input-scale", nargs=4, metavar=("SIG_LO", "SIG_HI", "FW_LO", "FW_HI"), dest="input_scale",
+                        help="the card's input signal range and the firmware values at its ends (only slopes matter; "
+                             "may be inverted), e.g. --input-scale 1V 5V 0 4095")
+    parser.add_argument("--output-scale", nargs=4, metavar=("SIG_LO", "SIG_HI", "FW_LO", "FW_HI"), dest="output_scale",
+                        help="the card's output signal range and the firmware values at its ends, "
+                             "e.g. --output-scale 0V 10V 0 4095")
     parser.add_argument("--pid-block", action="store_true", dest="pid_block",
                         help="write a PID block instead (NAME_step(st, setpoint, measurement), limits with "
                              "anti-windup, setpoint weights b/c from --pid, NAME_set_output for bumpless transfer), "
@@ -137,8 +143,14 @@ def run(args, console) -> int:
         raise InputError(f"{args.fmt} needs --input-range LOW HIGH (the error's range scales the words)",
                          key="--input-range")
     controller, source = _controller(args)
+    sc = _scaling(args)
+    if sc is not None:
+        from convert.digital.scaling import scale_controller
+
+        controller = scale_controller(controller, sc)
+        source = f"{source} (scaled to firmware units: gain x {sc.gain:.6g})"
     if args.pid_block:
-        return _pid_block(args, console, controller, source, fs, word, lang, lim)
+        return _pid_block(args, console, controller, source, fs, word, lang, lim, sc)
     if controller.is_digital:
         raise InputError("give an analog controller (in s); the tool samples it at --fs", key="EXPR")
     if args.filter_n is not None:
@@ -168,11 +180,12 @@ def run(args, console) -> int:
     if args.json:
         emit_json(console, {"source": source, "fs_hz": fs, "method": args.method, "word_format": word,
                             "structure": pick.structure if pick else None, "recommendation": why,
-                            "written": list(paths.values()), "ok": ok,
+                            "written": list(paths.values()), "ok": ok, "scaling": sc.text if sc else None,
+                            "scale_gain": sc.gain if sc else None,
                             "realized": _coefficients(pick) if pick and pick.realized else None,
                             "analysis": [x.summary() for x in every]})
         return 0 if ok else 1
-    _render(console, pick, every, why, paths, word)
+    _render(console, pick, every, why, paths, word, sc.text if sc else None)
     return 0 if ok else 1
 
 
@@ -190,7 +203,7 @@ def _coefficients(pick) -> dict:
     return out
 
 
-def _render(console, pick, every, why, paths, word) -> None:
+def _render(console, pick, every, why, paths, word, scale_text=None) -> None:
     p = console.print
     for x in every:
         if x.refused:
@@ -208,6 +221,8 @@ def _render(console, pick, every, why, paths, word) -> None:
         p(f"not written: {what} in {word} fails: {'; '.join(reasons) if reasons else why}", markup=False)
         return
     p(f"structure used: {pick.structure} in {word}", markup=False)
+    if scale_text:
+        p(f"scaling: {scale_text}", markup=False)
     for n in pick.notes:
         p(f"note: {n}", markup=False)
     for path in paths.values():
@@ -215,7 +230,39 @@ def _render(console, pick, every, why, paths, word) -> None:
     p("The tool computes; it does not certify. Bench-test the code before a live swap.", markup=False)
 
 
-def _pid_block(args, console, controller, source, fs, word, lang, lim) -> int:
+def _scaling(args):
+    """The --input-scale / --output-scale maps (convert.digital.scaling), or None."""
+    if not args.input_scale and not args.output_scale:
+        return None
+    from convert.digital.scaling import SignalMap, scaling
+    from convert.errors import InputError
+    from convert.values import parse_value
+
+    maps = []
+    for words, option in ((args.input_scale, "--input-scale"), (args.output_scale, "--output-scale")):
+        if not words:
+            maps.append(None)
+            continue
+        nums = []
+        for w in words:
+            v = None
+            for kind in ("number", "volt", "ampere"):
+                try:
+                    v = parse_value(w, kind, field=option)
+                    break
+                except InputError:
+                    continue
+            if v is None:
+                raise InputError(f"expected a number, volts or amperes (1V, 4mA, 4095), found {w!r}", key=option)
+            nums.append(v)
+        try:
+            maps.append(SignalMap(*nums))
+        except InputError as exc:
+            raise InputError(exc.message, key=option) from None
+    return scaling(*maps)
+
+
+def _pid_block(args, console, controller, source, fs, word, lang, lim, sc=None) -> int:
     """``--pid-block``: the PID block of convert.digital.pidblock in C."""
     import os
 
@@ -231,6 +278,10 @@ def _pid_block(args, console, controller, source, fs, word, lang, lim) -> int:
     settings = pid_from_words(args.pid, where="--pid") if args.pid else pid_from_controller(controller)
     if settings is None:
         raise InputError(f"the controller is not a PID: {why_not_pid(controller)}", key="--pid-block")
+    if sc is not None and args.pid:
+        from convert.digital.scaling import scale_pid
+
+        settings = scale_pid(settings, sc)
     tt = positive_value(args.tracking_time, "second", "--tracking-time") if args.tracking_time else None
     with at(None, rename={"anti_windup": "--anti-windup", "tracking_time": "--tracking-time",
                           "output_limits": "--output-limits", "name": "--name"}):
@@ -246,7 +297,8 @@ def _pid_block(args, console, controller, source, fs, word, lang, lim) -> int:
         check_output_files({f"--out {n}": p for n, p in paths.items()}, force=args.force)
         for n, p in paths.items():
             write_text_atomic(p, files[n])
-    info = {"kind": "pid-block", "form": block.form, "anti_windup": block.anti_windup,
+    info = {"kind": "pid-block", "form": block.form, "scaling": sc.text if sc else None,
+            "scaled_gains": {"kp": settings.kp, "ki": settings.ki, "kd": settings.kd, "action": settings.action}, "anti_windup": block.anti_windup,
             "tracking_time_s": block.tracking_time_s if block.anti_windup == "track" else None,
             "limits": block.limits, "constants": block.constants(), "word_format": word, "fs_hz": fs,
             "written": list(paths.values())}
@@ -254,6 +306,10 @@ def _pid_block(args, console, controller, source, fs, word, lang, lim) -> int:
         emit_json(console, info)
         return 0
     k = block.constants()
+    if sc is not None:
+        console.print(f"scaling: {sc.text}", markup=False)
+        console.print(f"scaled gains (firmware units): kp = {settings.kp:.6g}, ki = {settings.ki:.6g} 1/s, "
+                      f"kd = {settings.kd:.6g} s, action {settings.action}", markup=False)
     console.print(f"PID block, {block.form} form, {word}; kp = {k['kp']:.6g}, ki*T = {k['bi']:.6g}, "
                   f"kd/(Tf+T) = {k['bd']:.6g}, b = {block.b:g}, c = {block.c:g}", markup=False)
     console.print(f"anti-windup: {block.anti_windup}"
