@@ -29,7 +29,7 @@ def _cmsis_ready(fmt: str):
     real = realize(lay, word, input_range=1.0)
     secs = []
     for s in real.sections:
-        b = tuple(int(round(c * 2 ** s.shift)) for c in s.b)  # numerator re-quantized at the feedback's scale
+        b = tuple(round(c * 2 ** s.shift) for c in s.b)  # numerator re-quantized at the feedback's scale
         secs.append(StoredSection(tuple(v / 2 ** s.shift for v in b), s.a, b, s.a_int, s.shift, 0))
     return dataclasses.replace(real, sections=tuple(secs))
 

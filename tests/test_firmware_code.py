@@ -55,7 +55,7 @@ def _vectors(fixed: bool, full: int, rng) -> list[tuple[str, float]]:
     seq += [("r", 0.0)] + [("x", -amp * 0.2)] * 50
     seq += [("o", 0.25 * full if fixed else 3.0)] + [("x", amp * 0.05)] * n
     if fixed:
-        return [(c, float(int(round(v)))) for c, v in seq]
+        return [(c, float(round(v))) for c, v in seq]
     return seq
 
 
@@ -141,23 +141,14 @@ def test_c_double_matches_scipy(tmp_path, structure):
     """Reference library: scipy.signal.lfilter (direct forms, on b/a) and sosfilt (sections, on
     the z-domain sections) fed the same vectors; the compiled double code agrees to 1e-9 of the
     peak (a stable controller: operation orders differ, rounding does not accumulate)."""
-    from scipy.signal import lfilter, sosfilt
-
-    from convert.digital.fixedpoint import z_equivalent
+    from tests.firmware_refs import scipy_filter
 
     real_d = discretize(from_expression(STABLE), 500, "tustin")
     lay = build_layout(structure, real_d.roots, real_d.b, real_d.a)
     real = realize(lay, FORMATS["float64"])
     x = np.concatenate([np.full(300, 0.3), np.linspace(-1, 1, 300), np.random.default_rng(2).normal(size=600)])
     c_out = np.array(_run_c(tmp_path, real, "ref", [("x", v) for v in x]))
-    if structure in ("direct1", "direct2t"):
-        ref = lfilter(lay.sections[0].b, lay.sections[0].a, x)
-    else:
-        rows = []
-        for s in lay.sections:
-            b, a = z_equivalent(lay, s)
-            rows.append(np.concatenate([np.pad(b, (0, 3 - len(b))), np.pad(a, (0, 3 - len(a)))]))
-        ref = sosfilt(np.array(rows), x)
+    ref = scipy_filter(lay, x)
     assert np.max(np.abs(c_out - ref)) <= 1e-9 * np.max(np.abs(ref))
 
 

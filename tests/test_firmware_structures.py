@@ -28,24 +28,13 @@ def test_float64_models_match_scipy(structure):
     """Reference library: scipy.signal.sosfilt on the sections of the same layout (and lfilter
     on b/a for the direct forms) — the float64 model of every structure agrees to 1e-9 of the
     peak (different operation orders round differently)."""
-    from scipy.signal import lfilter, sosfilt
-
-    from convert.digital.fixedpoint import z_equivalent
+    from tests.firmware_refs import scipy_filter
 
     real = _real("(0.2s+1)/(0.02s+1)*100/((s/30)^2+0.8*s/30+1)/(s/3+1)", 500)  # no integrator: no drift
     lay = build_layout(structure, real.roots, real.b, real.a)
     x = np.random.default_rng(3).normal(size=3000)
     y = realize(lay, FORMATS["float64"]).model().run(x)
-    if structure in ("direct1", "direct2t"):
-        ref = lfilter(lay.sections[0].b, lay.sections[0].a, x)
-    else:
-        sos = []
-        for s in lay.sections:
-            b, a = z_equivalent(lay, s)
-            b = np.concatenate([b, np.zeros(3 - len(b))])
-            a = np.concatenate([a, np.zeros(3 - len(a))])
-            sos.append(np.concatenate([b, a]))
-        ref = sosfilt(np.array(sos), x)
+    ref = scipy_filter(lay, x)
     assert np.max(np.abs(y - ref)) <= 1e-9 * np.max(np.abs(ref))
 
 

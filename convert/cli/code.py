@@ -41,6 +41,7 @@ FORMAT_WORDS = {"double": "float64", "float": "float32", "q15": "q15", "q31": "q
 
 def add_parser(subparsers) -> argparse.ArgumentParser:
     from convert.cli.common import add_controller_input
+    from convert.cli.digital import add_signal_ranges
 
     parser = subparsers.add_parser(
         "code", help="controller -> C99 or Structured Text firmware, with the word-format analysis",
@@ -65,10 +66,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                         help="C/ST identifier for the files and functions (default controller), e.g. --name level_pi")
     parser.add_argument("--out", metavar="DIR", help="folder for the files (created if missing), e.g. --out fw/")
     parser.add_argument("--force", action="store_true", help="overwrite files of the same name in --out, e.g. --out fw/ --force")
-    parser.add_argument("--input-range", nargs=2, metavar=("LOW", "HIGH"), dest="input_range",
-                        help="range of the error input, controller input units, e.g. --input-range -10 10")
-    parser.add_argument("--output-limits", nargs=2, metavar=("LOW", "HIGH"), dest="output_limits",
-                        help="output limits, controller output units, e.g. --output-limits 0 100")
+    add_signal_ranges(parser)
     parser.add_argument("--input-resolution", metavar="E", dest="input_resolution",
                         help="smallest error the integral must act on (default: input range / 2^15), e.g. "
                              "--input-resolution 0.001")
@@ -114,9 +112,7 @@ def _controller(args):
 
 
 def run(args, console) -> int:
-    import os
-
-    from convert.cli.common import at, check_output_files, emit_json, positive_value, write_text_atomic
+    from convert.cli.common import at, emit_json, positive_value
     from convert.cli.digital import range_pair
     from convert.compare.frequency import comparison_grid, default_band_hz
     from convert.digital import add_derivative_filter, discretize
@@ -167,15 +163,7 @@ def run(args, console) -> int:
         files = {}
         if pick is not None and pick.ok:
             files = emit(pick.realized, args.name, lang, source=source, method=args.method, limits=lim)
-    paths = {}
-    if args.out and files:
-        if os.path.exists(args.out) and not os.path.isdir(args.out):
-            raise InputError(f"{args.out!r} is a file; give a folder", key="--out")
-        os.makedirs(args.out, exist_ok=True)
-        paths = {name: os.path.join(args.out, name) for name in files}
-        check_output_files({f"--out {n}": p for n, p in paths.items()}, force=args.force)
-        for name, p in paths.items():
-            write_text_atomic(p, files[name])
+    paths = _write(args, files)
     ok = pick is not None and pick.ok
     if args.json:
         emit_json(console, {"source": source, "fs_hz": fs, "method": args.method, "word_format": word,
@@ -187,6 +175,25 @@ def run(args, console) -> int:
         return 0 if ok else 1
     _render(console, pick, every, why, paths, word, sc.text if sc else None)
     return 0 if ok else 1
+
+
+def _write(args, files: dict) -> dict:
+    """Write ``files`` into ``--out`` (created if missing; existing files only with --force)."""
+    import os
+
+    from convert.cli.common import check_output_files, write_text_atomic
+    from convert.errors import InputError
+
+    if not args.out or not files:
+        return {}
+    if os.path.exists(args.out) and not os.path.isdir(args.out):
+        raise InputError(f"{args.out!r} is a file; give a folder", key="--out")
+    os.makedirs(args.out, exist_ok=True)
+    paths = {n: os.path.join(args.out, n) for n in files}
+    check_output_files({f"--out {n}": p for n, p in paths.items()}, force=args.force)
+    for n, p in paths.items():
+        write_text_atomic(p, files[n])
+    return paths
 
 
 def _coefficients(pick) -> dict:
@@ -264,9 +271,7 @@ def _scaling(args):
 
 def _pid_block(args, console, controller, source, fs, word, lang, lim, sc=None) -> int:
     """``--pid-block``: the PID block of convert.digital.pidblock in C."""
-    import os
-
-    from convert.cli.common import at, check_output_files, emit_json, positive_value, write_text_atomic
+    from convert.cli.common import at, emit_json, positive_value
     from convert.digital.pidblock import PidBlock, emit_pid_c
     from convert.errors import InputError
     from convert.pid import pid_from_controller, pid_from_words, why_not_pid
@@ -288,15 +293,7 @@ def _pid_block(args, console, controller, source, fs, word, lang, lim, sc=None) 
         block = PidBlock.from_settings(settings, fs, form="velocity" if args.velocity else "positional", limits=lim,
                                        anti_windup=args.anti_windup, tracking_time_s=tt, word_format=word)
         files = emit_pid_c(block, args.name, source=source)
-    paths = {}
-    if args.out:
-        if os.path.exists(args.out) and not os.path.isdir(args.out):
-            raise InputError(f"{args.out!r} is a file; give a folder", key="--out")
-        os.makedirs(args.out, exist_ok=True)
-        paths = {n: os.path.join(args.out, n) for n in files}
-        check_output_files({f"--out {n}": p for n, p in paths.items()}, force=args.force)
-        for n, p in paths.items():
-            write_text_atomic(p, files[n])
+    paths = _write(args, files)
     info = {"kind": "pid-block", "form": block.form, "scaling": sc.text if sc else None,
             "scaled_gains": {"kp": settings.kp, "ki": settings.ki, "kd": settings.kd, "action": settings.action}, "anti_windup": block.anti_windup,
             "tracking_time_s": block.tracking_time_s if block.anti_windup == "track" else None,

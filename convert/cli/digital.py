@@ -84,11 +84,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                              "(default direct1: b/a as printed), e.g. --structure sections")
     parser.add_argument("--word-format", metavar="F", default="float64", dest="word_format",
                         help="word format: float64 (default), float32, q15, q31, e.g. --word-format float32")
-    parser.add_argument("--input-range", nargs=2, metavar=("LOW", "HIGH"), dest="input_range",
-                        help="range of the error input, controller input units (scales q15/q31 words, bounds "
-                             "overflow), e.g. --input-range -10 10")
-    parser.add_argument("--output-limits", nargs=2, metavar=("LOW", "HIGH"), dest="output_limits",
-                        help="output limits, controller output units (the integrator's level), e.g. --output-limits 0 100")
+    add_signal_ranges(parser)
     parser.add_argument("--json", action="store_true",
                         help="print a JSON list of results (method, fs_hz, b, a, prewarp_hz, errors, and the analog "
                              "num/den they came from), e.g. --json")
@@ -193,6 +189,15 @@ def run(args, console) -> int:
         return 0
     _render(console, survey, controller, firmware)
     return 0
+
+
+def add_signal_ranges(parser) -> None:
+    """--input-range and --output-limits, shared by `digital` and `code`."""
+    parser.add_argument("--input-range", nargs=2, metavar=("LOW", "HIGH"), dest="input_range",
+                        help="range of the error input, controller input units (scales q15/q31 words, bounds "
+                             "overflow), e.g. --input-range -10 10")
+    parser.add_argument("--output-limits", nargs=2, metavar=("LOW", "HIGH"), dest="output_limits",
+                        help="output limits, controller output units (the integrator's level), e.g. --output-limits 0 100")
 
 
 def range_pair(words, field: str) -> tuple[float, float] | None:

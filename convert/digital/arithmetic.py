@@ -57,7 +57,7 @@ class FloatModel:
         poles at z = 1) carries it."""
         self.reset()
         u = self.cast(u)
-        b, a = self.coefs[-1]
+        a = self.coefs[-1][1]
         if self.form == "df1":
             xh, yh = self.state[-1]
             self.state[-1] = (xh, [u] * len(yh))
@@ -194,31 +194,42 @@ class FixedModel:
             if e:
                 ff = (ff + ((1 << (e - 1)) if self.round_half else 0)) >> e
             half = (1 << (sh - 1)) if self.round_half else 0
-            out = [0] * v.size
             ffl = (ff + half).tolist()  # the rounding half added once, vectorized
             m = len(a)
             if m == 0:
-                for n, f in enumerate(ffl):
-                    y = f >> sh
-                    out[n] = lo if y < lo else hi if y > hi else y
+                out = [lo if y < lo else hi if y > hi else y for y in (f >> sh for f in ffl)]
             elif m == 1:
+                out = []
+                append = out.append
                 a1, = a
                 y1, = yh
-                for n, f in enumerate(ffl):
-                    y = (f - a1 * y1) >> sh
-                    y1 = out[n] = lo if y < lo else hi if y > hi else y
+                for f in ffl:
+                    y1 = (f - a1 * y1) >> sh
+                    if y1 > hi:
+                        y1 = hi
+                    elif y1 < lo:
+                        y1 = lo
+                    append(y1)
                 yh = [y1]
             elif m == 2:
+                out = []
+                append = out.append
                 a1, a2 = a
                 y1, y2 = yh
-                for n, f in enumerate(ffl):
+                for f in ffl:
                     y = (f - a1 * y1 - a2 * y2) >> sh
+                    if y > hi:
+                        y = hi
+                    elif y < lo:
+                        y = lo
                     y2 = y1
-                    y1 = out[n] = lo if y < lo else hi if y > hi else y
+                    y1 = y
+                    append(y)
                 yh = [y1, y2]
             else:
+                out = []
                 hist = list(yh)
-                for n, f in enumerate(ffl):
+                for f in ffl:
                     acc = f
                     for k in range(m):
                         acc -= a[k] * hist[k]
@@ -226,7 +237,7 @@ class FixedModel:
                     y = lo if y < lo else hi if y > hi else y
                     hist.insert(0, y)
                     hist.pop()
-                    out[n] = y
+                    out.append(y)
                 yh = hist
             allx = (list(xh[::-1]) + v.tolist())
             newx = allx[::-1][:len(xh)] if xh else []

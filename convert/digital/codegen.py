@@ -162,35 +162,43 @@ def _c_section(real: Realized, i: int, s, name: str) -> list[str]:
             out.append(f"    st->s{i}_y[0] = v;")
         return out
 
-    def lit(x):
-        return _c_float(x, single)
+    coefs = f"b = [{', '.join(f'{v:.17g}' for v in s.b)}], a = [{', '.join(f'{v:.17g}' for v in s.a)}]"
+    out[0] = f"    /* section {i}: {coefs} */"
+    ops = _float_section(real, i, s, lambda x: _c_float(x, single),
+                         lambda n, k: f"st->s{i}_{n}[{k}]", {"y": "y"})
+    return out + [f"    {lhs} = {rhs};" for lhs, rhs in ops]
 
+
+def _float_section(real: Realized, i: int, s, lit, state, temp) -> list[tuple[str, str]]:
+    """The statements of one float section as (target, expression) pairs, in the model's
+    operation order; ``lit`` writes a constant, ``state(kind, k)`` names state k of kind x, y or
+    s, ``temp`` renames temporaries (Structured Text's output is already called y)."""
+    m = len(s.a) - 1
+    ops: list[tuple[str, str]] = []
     if real.form == "df1":
-        out.append(f"    acc = {lit(s.b[0])} * v; /* {s.b[0]:.17g} */")
-        for k in range(1, len(s.b)):
-            out.append(f"    acc += {lit(s.b[k])} * st->s{i}_x[{k - 1}]; /* {s.b[k]:.17g} */")
-        for k in range(1, m + 1):
-            out.append(f"    acc -= {lit(s.a[k])} * st->s{i}_y[{k - 1}]; /* {s.a[k]:.17g} */")
-        out += _c_shift_history(i, len(s.b) - 1, m)
-        out.append("    v = acc;")
+        ops.append(("acc", f"{lit(s.b[0])} * v"))
+        ops += [("acc", f"acc + {lit(s.b[k])} * {state('x', k - 1)}") for k in range(1, len(s.b))]
+        ops += [("acc", f"acc - {lit(s.a[k])} * {state('y', k - 1)}") for k in range(1, m + 1)]
+        ops += [(state("x", k), state("x", k - 1)) for k in range(len(s.b) - 2, 0, -1)]
+        if len(s.b) > 1:
+            ops.append((state("x", 0), "v"))
+        ops += [(state("y", k), state("y", k - 1)) for k in range(m - 1, 0, -1)]
         if m:
-            out.append(f"    st->s{i}_y[0] = acc;")
-        return out
-    y0 = f"{lit(s.b[0])} * v + st->s{i}_s[0]" if m else f"{lit(s.b[0])} * v"
-    out.append(f"    y = {y0}; /* b0 = {s.b[0]:.17g} */")
-    delta = lit(float(_delta_value(real))) if real.form == "delta" else None
+            ops.append((state("y", 0), "acc"))
+        ops.append(("v", "acc"))
+        return ops
+    y = temp["y"]
+    ops.append((y, f"{lit(s.b[0])} * v + {state('s', 0)}" if m else f"{lit(s.b[0])} * v"))
+    d = lit(_delta_value(real)) if real.form == "delta" else None
     for k in range(m):
-        expr = f"{lit(s.b[k + 1])} * v - {lit(s.a[k + 1])} * y"
+        ops.append(("t", f"{lit(s.b[k + 1])} * v - {lit(s.a[k + 1])} * {y}"))
+        rhs = f"t + {state('s', k + 1)}" if k + 1 < m else "t"
         if real.form == "df2t":
-            rhs = f"t + st->s{i}_s[{k + 1}]" if k + 1 < m else "t"
-            out += [f"    t = {expr}; /* b{k + 1} = {s.b[k + 1]:.17g}, a{k + 1} = {s.a[k + 1]:.17g} */",
-                    f"    st->s{i}_s[{k}] = {rhs};"]
+            ops.append((state("s", k), rhs))
         else:
-            rhs = f"t + st->s{i}_s[{k + 1}]" if k + 1 < m else "t"
-            out += [f"    t = {expr}; /* b{k + 1} = {s.b[k + 1]:.17g}, a{k + 1} = {s.a[k + 1]:.17g} */",
-                    f"    w = {rhs};", f"    st->s{i}_s[{k}] = st->s{i}_s[{k}] + {delta} * w;"]
-    out.append("    v = y;")
-    return out
+            ops += [("w", rhs), (state("s", k), f"{state('s', k)} + {d} * w")]
+    ops.append(("v", y))
+    return ops
 
 
 def _delta_value(real: Realized) -> float:
@@ -317,35 +325,5 @@ def _st_set_output(real: Realized, single: bool) -> list[str]:
 
 
 def _st_section(real: Realized, i: int, s, single: bool) -> list[str]:
-    def lit(x):
-        return _st_real(x, single)
-
-    m = len(s.a) - 1
-    out = []
-    if real.form == "df1":
-        out.append(f"acc := {lit(s.b[0])} * v;")
-        for k in range(1, len(s.b)):
-            out.append(f"acc := acc + {lit(s.b[k])} * s{i}_x{k - 1};")
-        for k in range(1, m + 1):
-            out.append(f"acc := acc - {lit(s.a[k])} * s{i}_y{k - 1};")
-        for k in range(len(s.b) - 2, 0, -1):
-            out.append(f"s{i}_x{k} := s{i}_x{k - 1};")
-        if len(s.b) > 1:
-            out.append(f"s{i}_x0 := v;")
-        for k in range(m - 1, 0, -1):
-            out.append(f"s{i}_y{k} := s{i}_y{k - 1};")
-        if m:
-            out.append(f"s{i}_y0 := acc;")
-        out.append("v := acc;")
-        return out
-    out.append(f"yy := {lit(s.b[0])} * v + s{i}_s0;" if m else f"yy := {lit(s.b[0])} * v;")
-    d = lit(_delta_value(real)) if real.form == "delta" else None
-    for k in range(m):
-        out.append(f"t := {lit(s.b[k + 1])} * v - {lit(s.a[k + 1])} * yy;")
-        rhs = f"t + s{i}_s{k + 1}" if k + 1 < m else "t"
-        if real.form == "df2t":
-            out.append(f"s{i}_s{k} := {rhs};")
-        else:
-            out += [f"w := {rhs};", f"s{i}_s{k} := s{i}_s{k} + {d} * w;"]
-    out.append("v := yy;")
-    return out
+    ops = _float_section(real, i, s, lambda x: _st_real(x, single), lambda n, k: f"s{i}_{n}{k}", {"y": "yy"})
+    return [f"{lhs} := {rhs};" for lhs, rhs in ops]

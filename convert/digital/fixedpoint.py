@@ -91,6 +91,16 @@ def z_equivalent(layout: Layout, s: Section) -> tuple[np.ndarray, np.ndarray]:
     return bb, aa
 
 
+def sos_rows(layout: Layout) -> np.ndarray:
+    """The sections of ``sections``/``delta`` as z-domain rows [b0, b1, b2, 1, a1, a2] (float64;
+    δ-sections mapped back through their roots), the layout ``scipy.signal.sosfilt`` takes."""
+    rows = []
+    for s in layout.sections:
+        b, a = z_equivalent(layout, s)
+        rows.append(np.concatenate([np.pad(b, (0, 3 - len(b))), np.pad(a, (0, 3 - len(a)))]))
+    return np.array(rows)
+
+
 def _keeps_integrator(layout: Layout, s: Section) -> bool:
     """A second-order z-section of the ``sections`` structure holding a designed pole at z = 1:
     its coefficients are stored so that 1 + a1 + a2 = 0 holds exactly in the word format

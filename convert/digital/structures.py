@@ -221,30 +221,29 @@ def z_poly_response(b, a, f_hz, t: float) -> np.ndarray:
     return np.polyval(bw, w) / np.polyval(aw, w)
 
 
-def z_poly_roots(coefs) -> tuple[list[complex], int]:
-    """Roots in z of Σ c_k z^(m−k) computed in w = z − 1 (exact shift); roots exactly at z = 1
-    are divided out exactly and counted. Returns (roots, count at exactly 1)."""
-    cw = _shift_to_w(coefs)
-    while len(cw) > 1 and cw[0] == 0:
-        cw = cw[1:]
-    exact = 0
-    while len(cw) > 1 and cw[-1] == 0:
-        cw = cw[:-1]
-        exact += 1
-    rest = np.roots([float(v) for v in cw]) if len(cw) > 1 else np.zeros(0)
-    return [complex(1.0)] * exact + [1.0 + complex(r) for r in rest], exact
-
-
-def delta_roots(coefs, delta: float) -> tuple[list[complex], int]:
-    """Roots in z of a δ-polynomial (descending powers of δ): z = 1 + Δδ; exact δ = 0 counted."""
-    c = [float(v) for v in coefs]
+def _roots_beside_zero(coefs) -> tuple[np.ndarray, int]:
+    """Roots of a polynomial (descending powers) with leading zeros dropped and roots exactly at
+    0 divided out exactly and counted: (other roots, count at 0)."""
+    c = list(coefs)
     while len(c) > 1 and c[0] == 0:
         c = c[1:]
     exact = 0
     while len(c) > 1 and c[-1] == 0:
         c = c[:-1]
         exact += 1
-    rest = np.roots(c) if len(c) > 1 else np.zeros(0)
+    return (np.roots([float(v) for v in c]) if len(c) > 1 else np.zeros(0)), exact
+
+
+def z_poly_roots(coefs) -> tuple[list[complex], int]:
+    """Roots in z of Σ c_k z^(m−k) computed in w = z − 1 (exact shift); roots exactly at z = 1
+    are divided out exactly and counted. Returns (roots, count at exactly 1)."""
+    rest, exact = _roots_beside_zero(_shift_to_w(coefs))
+    return [complex(1.0)] * exact + [1.0 + complex(r) for r in rest], exact
+
+
+def delta_roots(coefs, delta: float) -> tuple[list[complex], int]:
+    """Roots in z of a δ-polynomial (descending powers of δ): z = 1 + Δδ; exact δ = 0 counted."""
+    rest, exact = _roots_beside_zero([float(v) for v in coefs])
     return [complex(1.0)] * exact + [1.0 + delta * complex(r) for r in rest], exact
 
 
