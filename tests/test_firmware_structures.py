@@ -213,3 +213,18 @@ def test_fixed_point_needs_input_range():
     real = _real("(0.2s+1)/(0.02s+1)", 1000)
     with pytest.raises(InputError, match="input range"):
         realize(build_layout("sections", real.roots), FORMATS["q15"])
+
+
+def test_integrator_drift_from_rounding_is_a_failure():
+    """From memory (the effective-value argument): a fixed-point section holding an integrator and a
+    pole p near 1, with rounding, keeps its output moving with zero input at up to 0.5 / (1 − p)
+    LSB per sample — a ramp to the limit. The direct form of a PI with a derivative filter in Q15
+    shows it and fails; the sections structure runs the integrator alone and does not."""
+    real = _real("0.8*(1 + 1/(2.5*s))*(1/(0.05*s+1))", 1000)
+    f = log_grid(0.01, 100, 20)
+    d = analyze(real.roots, "direct1", "q31", f, b=real.b, a=real.a, input_range=50, output_level=60)
+    p = min(abs(q) for q in real.roots.poles)
+    drift = [x for x in d.failures if "drift" in x]
+    assert drift and f"by {math.floor(0.5 / (1 - p))} LSB" in drift[0]
+    s = analyze(real.roots, "sections", "q31", f, input_range=50, output_level=60)
+    assert s.ok, s.failures

@@ -56,7 +56,8 @@ def _header_comment(real: Realized, name: str, info: dict) -> list[str]:
             "  then shifted right with rounding half up and saturated to the word.",
         ]
         for i, (s, sc) in enumerate(zip(real.sections, real.node_scales[1:])):
-            lines.append(f"  section {i + 1}: coefficients scaled by 2^{s.shift}, output full scale {sc:.10g}")
+            lines.append(f"  section {i + 1}: denominator words = a * 2^{s.shift}, numerator words = b * "
+                         f"2^{s.shift + s.b_shift}, output full scale {sc:.10g}")
     else:
         lines.append("Inputs and outputs in controller units (x = error, return value = output).")
     lim = info.get("limits")

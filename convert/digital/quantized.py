@@ -79,8 +79,8 @@ class FormatAnalysis:
         fails = " ".join(self.failures)
         out = [dict(key="firmware_stability", label=f"{name}: stored poles inside |z| = 1 (integrators apart)",
                     unit="|z|", limit=1.0, value=self.free_pole_radius,
-                    status="fail" if ("unstable" in fails or "exactly at z = 1" in fails) else "pass",
-                    note=next((f for f in self.failures if "unstable" in f or "exactly at z = 1" in f),
+                    status="fail" if ("unstable" in fails or "exactly at z = 1" in fails or "drift" in fails) else "pass",
+                    note=next((f for f in self.failures if "unstable" in f or "exactly at z = 1" in f or "drift" in f),
                               f"largest |z| = {self.free_pole_radius:.10g} apart from the designed integrators (poles "
                               "at z = 1), which count as kept when stored exactly or within a year's doubling time"))]
         if self.realized is not None and self.realized.word.is_fixed:
@@ -227,7 +227,10 @@ def analyze(roots, structure: str, word_format: str | WordFormat, band_f_hz, *, 
 
     lc = lc_lsb = None
     if word.is_fixed:
-        lc_lsb, lc = _limit_cycles(real, layout, notes)
+        lc_lsb, lc, drift = _limit_cycles(real, layout, notes)
+        for sec, moved in drift:
+            failures.append(f"integrator drift: section {sec} keeps moving by {moved} LSB per sample with zero input "
+                            "(rounding sustains it); use structure sections")
 
     stall = None
     if designed_ones:
@@ -304,10 +307,16 @@ def _limit_cycles(real: Realized, layout, notes: list[str]) -> tuple[int, float]
     rng = np.random.default_rng(12)
     worst_lsb, worst_units = 0, 0.0
     undecided = []
+    drift = []
     for i, (s, s0) in enumerate(zip(real.sections, layout.sections)):
         a = np.asarray(s.a_int[1:], dtype=np.int64)
         m = a.size
-        if m == 0 or any(abs(p) >= 1 - 1e-12 for p in s0.poles):
+        if m == 0:
+            continue
+        if any(abs(p) >= 1 - 1e-12 for p in s0.poles):
+            moved = _drift(s, s0, w, rng)
+            if moved:
+                drift.append((i + 1, moved))
             continue
         radius = max(abs(p) for p in s0.poles)
         need = math.log(2.0 ** w.bits) / max(-math.log(max(radius, 1e-300)), 1e-300) + 200
@@ -331,7 +340,27 @@ def _limit_cycles(real: Realized, layout, notes: list[str]) -> tuple[int, float]
                      f"{LIMIT_CYCLE_SAMPLES} samples")
     if worst_lsb:
         notes.append(f"limit cycle with zero input: up to {worst_lsb} LSB ({worst_units:.3g} in that node's units)")
-    return worst_lsb, worst_units
+    return worst_lsb, worst_units, drift
+
+
+def _drift(s, s0, w, rng) -> int:
+    """A section holding an integrator, zero input from small random states (vectorized over
+    trials, far from saturation): once its other poles have decayed (e^-11 of a word) its output
+    must stand still. Returns the largest step (LSB per sample) it still makes, 0 when it holds."""
+    a = np.asarray(s.a_int[1:], dtype=np.int64)
+    m = a.size
+    others = [abs(p) for p in s0.poles if abs(p) < 1 - 1e-12]
+    radius = max(others, default=0.0)
+    settle = int(min(LIMIT_CYCLE_SAMPLES, math.log(2.0 ** w.bits) / max(-math.log(max(radius, 1e-300)), 1e-9) + 1))
+    y = rng.integers(-64, 64, size=(m, LIMIT_CYCLE_TRIALS), dtype=np.int64)
+    half = np.int64(1 << (s.shift - 1)) if w.rounding == "half-up" else np.int64(0)
+    step = np.zeros(LIMIT_CYCLE_TRIALS, dtype=np.int64)
+    for k in range(settle + 50):
+        new = np.clip((-(a[:, None] * y).sum(axis=0) + half) >> s.shift, w.word_min, w.word_max)
+        if k >= settle:
+            step = np.maximum(step, np.abs(new - y[0]))
+        y = np.vstack([new[None, :], y[:-1]])
+    return int(step.max())
 
 
 def _stall(real: Realized, layout, r: float, u: float) -> float | None:

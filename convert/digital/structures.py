@@ -15,7 +15,7 @@ section:
 
 Pairing and ordering rule for sections (the usual one): poles are taken in order of their
 distance to the unit circle, nearest first — a complex pole with its conjugate, a real pole
-with the next real pole; each complex pair of zeros goes to the two-pole section whose pole is
+with the next real pole, an integrator (a pole exactly at z = 1) alone; each complex pair of zeros goes to the two-pole section whose pole is
 nearest, then each real zero to the nearest section with a free place. The sections are then
 run in the opposite order: the poles nearest the unit circle (integrators, slow lags) come last.
 The gain goes into the first section (word formats with a fixed range rescale every section,
@@ -107,8 +107,10 @@ def pair_sections(zeros, poles, gain: float) -> list[tuple[list[complex], list[c
     """(zeros, poles, gain) per section by the rule in the module doc, in run order."""
     groups = _groups(poles)
     complex_p = sorted([g for g in groups if len(g) == 2], key=lambda g: _distance_to_circle(g[0]))
-    real_p = sorted([g[0] for g in groups if len(g) == 1], key=_distance_to_circle)
-    sections: list[dict] = []
+    real_p = sorted([g[0] for g in groups if len(g) == 1 and g[0] != 1], key=_distance_to_circle)
+    # an integrator (pole exactly at z = 1) runs alone in a first-order section: paired with a
+    # pole near 1, rounding can keep a fixed-point section moving with zero input
+    sections: list[dict] = [{"p": [g[0]], "z": []} for g in groups if len(g) == 1 and g[0] == 1]
     # nearest-first over all poles: complex pairs and pairs of real poles compete by distance
     while complex_p or real_p:
         dc = _distance_to_circle(complex_p[0][0]) if complex_p else np.inf
