@@ -95,3 +95,19 @@ def test_signal_scaling_rescales_the_gain_and_checks_direction(run_cli, tmp_path
     assert data["scaled_gains"]["kp"] == pytest.approx(2 * 16e-3 / 4095 * 409.5)
     r = run_cli("code", "2*(1+1/(30*s))", "--fs", "10Hz", "--input-scale", "1V", "1V", "0", "4095", "--json")
     assert r.code == 2 and "--input-scale" in r.err
+
+
+def test_card_clamps_become_the_output_limits(run_cli, tmp_path):
+    """A card with a clamp: its clamp limits are offered as the output limits (stated in the
+    output and in the generated header); --output-limits overrides them."""
+    from pathlib import Path
+
+    card = Path(__file__).parent / "netlists" / "clamped_pi.cir"
+    r = run_cli("code", "--card", str(card), "--fs", "100Hz", "--format", "float", "--name", "cpi",
+                "--out", str(tmp_path))
+    assert r.code == 0, r.err
+    assert "from the card's clamps" in r.out
+    assert "Output limits: -0.65 .. 5.35" in (tmp_path / "cpi.h").read_text()
+    r = run_cli("code", "--card", str(card), "--fs", "100Hz", "--format", "float", "--name", "cpi2",
+                "--output-limits", "-1", "1", "--out", str(tmp_path))
+    assert "Output limits: -1 .. 1" in (tmp_path / "cpi2.h").read_text()

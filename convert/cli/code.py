@@ -105,6 +105,10 @@ def _controller(args):
         from convert.circuit.netlist import read_netlist_file
 
         analysis = analyze_card(read_netlist_file(args.card), with_sensitivities=False)
+        clamp = getattr(analysis, "output_limits", None)
+        if clamp and not args.output_limits:  # the card's clamps offered as the output limits
+            args.output_limits = [repr(float(clamp[0])), repr(float(clamp[1]))]
+            args.limits_from_card = True
         return analysis.controller, f"card {args.card}: {analysis.controller.expression(8)}"
     controller, _ = controller_from_args(args)
     src = " ".join(args.pid) if args.pid else args.expression
@@ -133,12 +137,12 @@ def run(args, console) -> int:
     if not args.out and not args.json:
         raise InputError("give --out DIR for the files (or --json to see the result only)", key="--out")
     rng = range_pair(args.input_range, "--input-range")
-    lim = range_pair(args.output_limits, "--output-limits")
     resolution = positive_value(args.input_resolution, "number", "--input-resolution") if args.input_resolution else None
     if word.startswith("q") and rng is None:
         raise InputError(f"{args.fmt} needs --input-range LOW HIGH (the error's range scales the words)",
                          key="--input-range")
     controller, source = _controller(args)
+    lim = range_pair(args.output_limits, "--output-limits")
     sc = _scaling(args)
     if sc is not None:
         from convert.digital.scaling import scale_controller
@@ -173,7 +177,9 @@ def run(args, console) -> int:
                             "realized": _coefficients(pick) if pick and pick.realized else None,
                             "analysis": [x.summary() for x in every]})
         return 0 if ok else 1
-    _render(console, pick, every, why, paths, word, sc.text if sc else None)
+    note = (f"output limits {lim[0]:.4g} .. {lim[1]:.4g} V from the card's clamps (--output-limits overrides them)"
+            if getattr(args, "limits_from_card", False) and lim else None)
+    _render(console, pick, every, why, paths, word, sc.text if sc else None, note)
     return 0 if ok else 1
 
 
@@ -210,7 +216,7 @@ def _coefficients(pick) -> dict:
     return out
 
 
-def _render(console, pick, every, why, paths, word, scale_text=None) -> None:
+def _render(console, pick, every, why, paths, word, scale_text=None, limits_note=None) -> None:
     p = console.print
     for x in every:
         if x.refused:
@@ -228,6 +234,8 @@ def _render(console, pick, every, why, paths, word, scale_text=None) -> None:
         p(f"not written: {what} in {word} fails: {'; '.join(reasons) if reasons else why}", markup=False)
         return
     p(f"structure used: {pick.structure} in {word}", markup=False)
+    if limits_note:
+        p(limits_note, markup=False)
     if scale_text:
         p(f"scaling: {scale_text}", markup=False)
     for n in pick.notes:
