@@ -70,6 +70,15 @@ class FloatModel:
             with np.errstate(over="ignore", invalid="ignore"):
                 self.state[-1] = [u] + [a[k] * u for k in range(1, m)]
 
+    def load(self, states) -> None:
+        """Per-section states in user values (df1: (x history, y history); df2t/delta: s list),
+        stored in the format."""
+        c = self.cast
+        if self.form == "df1":
+            self.state = [([c(v) for v in xh], [c(v) for v in yh]) for xh, yh in states]
+        else:
+            self.state = [[c(v) for v in st] for st in states]
+
     def step(self, x) -> float:
         c = self.cast
         v = c(x)
@@ -143,6 +152,19 @@ class FixedModel:
         self.reset()
         v = math.floor(u / self.real.node_scales[-1] * self.full + 0.5)
         self.set_level_word(self.lo if v < self.lo else self.hi if v > self.hi else int(v))
+
+    def load(self, states) -> None:
+        """Per-section (x history, y history) in user values, rounded to words of each node."""
+        import math
+
+        sc = self.real.node_scales
+
+        def word(v, scale):
+            w = math.floor(v / scale * self.full + 0.5)
+            return self.lo if w < self.lo else self.hi if w > self.hi else int(w)
+
+        self.state = [([word(v, sc[i]) for v in xh], [word(v, sc[i + 1]) for v in yh])
+                      for i, (xh, yh) in enumerate(states)]
 
     def set_level_word(self, v: int) -> None:
         """:meth:`set_level` with the output word given (the generated C's ``set_output``)."""

@@ -16,9 +16,10 @@ For one structure × word format (:func:`analyze`):
 * limit cycles (fixed point) — from random states with zero input, per section without
   unit-circle poles, the largest output left after the linear response has died out;
 * integrator stall — for a controller with a pole at z = 1: the smallest constant error that
-  still moves the output, held at the output level U, by at least half of what the exact
-  controller does (over samples 8…72 after the error appears), in controller input units. It
-  fails when larger than the stated input resolution (default: R / 2^15).
+  still moves the output by at least half of what the exact controller does, started on the
+  exact solution for that error as it passes the output level U (so no transient), over 64
+  samples, in controller input units. It fails when larger than the stated input resolution
+  (default: R / 2^15).
 """
 
 from __future__ import annotations
@@ -33,7 +34,7 @@ from convert.digital.structures import STRUCTURES, build_layout, section_respons
 from convert.digital.wordformats import FORMATS, WordFormat, get_format
 from convert.errors import LoopshiftError
 
-STALL_FROM, STALL_TO = 8, 72
+STALL_TO = 64
 LIMIT_CYCLE_TRIALS = 32
 LIMIT_CYCLE_SAMPLES = 20000
 
@@ -234,7 +235,7 @@ def analyze(roots, structure: str, word_format: str | WordFormat, band_f_hz, *, 
 
     stall = None
     if designed_ones:
-        stall = _stall(real, layout, r, u)
+        stall = _stall(real, layout, roots, r, u)
         if stall is None or stall > res:
             shown = "no error up to the input range" if stall is None else f"{stall:.4g}"
             failures.append(f"integrator stall: at output level {u:.4g} the smallest error that still moves the "
@@ -363,32 +364,42 @@ def _drift(s, s0, w, rng) -> int:
     return int(step.max())
 
 
-def _stall(real: Realized, layout, r: float, u: float) -> float | None:
-    """Smallest constant error (bisection in log scale between R·1e-12 and R) that moves the
-    output held at level U by at least half the exact movement; None if even R does not."""
-    exact = realize(layout, FORMATS["float64"]).model()
-    ones = exact.run(np.ones(STALL_TO + 1))
-    expected_per_unit = ones[STALL_TO] - ones[STALL_FROM]
-    if expected_per_unit == 0:
+def _stall(real: Realized, layout, roots, r: float, u: float) -> float | None:
+    """Smallest constant error (from R down by halves, then bisection) above which every error
+    tried moves the output, started on the exact solution for that error that passes level U (see
+    :func:`ramp_state`), moves over STALL_TO samples by at least half of the exact
+    R_1·e·STALL_TO (R_1 the integrator's residue: the output's rise per sample per unit error).
+    Starting on the exact solution leaves no transient, so the figure does not depend on the
+    window. None if even R does not move it."""
+    slope = _residue_at_one(roots)
+    if slope == 0 or not math.isfinite(slope):
         return None
-    sign = -1.0 if expected_per_unit * u > 0 else 1.0  # move from the level toward zero
+    sign = -1.0 if slope * u > 0 else 1.0  # move from the level toward zero
     m = real.model()
-    m.set_level(u)
-    drift = m.run(np.zeros(STALL_TO + 1))
-    drift = drift[STALL_TO] - drift[STALL_FROM]
+    ramp_state(m, real, layout, 0.0, u, slope)
+    held = m.run(np.zeros(STALL_TO + 1))
+    drift = held[STALL_TO] - held[0]  # a stored integrator that leaks or grows moves on its own
 
     def moves(e: float) -> bool:
-        m.set_level(u)
+        ramp_state(m, real, layout, sign * e, u, slope)
         y = m.run(np.full(STALL_TO + 1, sign * e))
-        got = y[STALL_TO] - y[STALL_FROM] - drift
-        want = sign * e * expected_per_unit
+        got = y[STALL_TO] - y[0] - drift
+        want = sign * e * slope * STALL_TO
         return got / want >= 0.5
 
-    lo, hi = r * 1e-12, r
+    # every error from the answer up to R must move it: walk down from R by halves to the first
+    # error that does not, then bisect between it and the last that did
+    hi = r
     if not moves(hi):
         return None
-    if moves(lo):
-        return lo
+    lo = None
+    while hi > r * 1e-12:
+        if not moves(hi / 2):
+            lo = hi / 2
+            break
+        hi /= 2
+    if lo is None:
+        return hi
     for _ in range(40):
         mid = math.sqrt(lo * hi)
         if moves(mid):
@@ -398,6 +409,48 @@ def _stall(real: Realized, layout, r: float, u: float) -> float | None:
         if hi / lo < 1.05:
             break
     return hi
+
+
+def _residue_at_one(roots) -> float:
+    """R_1 = k·Π(1 − z_i)/Π(1 − p_i) over the poles other than one integrator: the rise of the
+    output per sample per unit of constant error (the ramp slope)."""
+    zeros = np.asarray(roots.zeros, dtype=complex)
+    poles = list(roots.poles)
+    poles.remove(next(p for p in poles if p == 1))
+    val = roots.gain * np.prod(1 - zeros) / np.prod(1 - np.asarray(poles, dtype=complex))
+    return float(np.real(val))
+
+
+def ramp_state(model, real: Realized, layout, e: float, u: float, slope: float) -> None:
+    """Put ``model`` on the exact solution for a constant error ``e`` whose output passes ``u``
+    at the next sample: stable sections settled at their DC gain, the integrating section's past
+    outputs u − k·slope·e. Values computed in float64, then stored in the format."""
+    from convert.digital.fixedpoint import z_equivalent
+
+    v_in = e
+    states = []
+    n = len(layout.sections)
+    for i, s in enumerate(layout.sections):
+        integ = any(p == 1 for p in s.poles)
+        if integ:
+            hist = [u - k * slope * e for k in range(1, s.order + 1)]
+            v_out = u
+        else:
+            b, a = z_equivalent(layout, s)
+            v_out = v_in * float(np.sum(b) / np.sum(a))
+            hist = [v_out] * s.order
+        form = layout.form
+        if form == "df1":
+            states.append(([v_in] * (len(s.b) - 1), hist))
+        elif form == "df2t":
+            bb, aa = s.b, s.a
+            states.append([sum(bb[j] * v_in - aa[j] * (u - (j - k) * slope * e if integ else v_out)
+                               for j in range(k + 1, s.order + 1)) for k in range(s.order)])
+        else:  # delta: the next output is v_out (w = 0 for a settled section; the integrator ramps)
+            st = [v_out - s.b[0] * v_in] + [s.a[k + 1] * v_out - s.b[k + 1] * v_in for k in range(s.order - 1)]
+            states.append(st)
+        v_in = v_out if i < n - 1 else v_in
+    model.load(states)
 
 
 def analyze_all(roots, band_f_hz, *, b=None, a=None, formats=None, structures=None, **kw) -> list[FormatAnalysis]:
