@@ -309,6 +309,7 @@ def _limit_cycles(real: Realized, layout, notes: list[str]) -> tuple[int, float]
     worst_lsb, worst_units = 0, 0.0
     undecided = []
     drift = []
+    bounds: list[float] = []
     for i, (s, s0) in enumerate(zip(real.sections, layout.sections)):
         a = np.asarray(s.a_int[1:], dtype=np.int64)
         m = a.size
@@ -334,13 +335,19 @@ def _limit_cycles(real: Realized, layout, notes: list[str]) -> tuple[int, float]
             if k >= n - 100:
                 amp = np.maximum(amp, np.abs(new))
         lsb = int(amp.max())
+        if m == 2:
+            a1, a2 = (float(v) / 2 ** s.shift for v in s.a_int[1:])
+            bounds.append(max(0.5 / max(1 - abs(a2), 1e-300), 0.5 / max(abs(1 + a1 + a2), 1e-300),
+                              0.5 / max(abs(1 - a1 + a2), 1e-300)))
         if lsb > worst_lsb:
             worst_lsb, worst_units = lsb, lsb * real.node_scales[i + 1] / 2 ** (w.bits - 1)
     if undecided:
         notes.append(f"limit-cycle search: section(s) {', '.join(map(str, undecided))} decay too slowly to decide within "
                      f"{LIMIT_CYCLE_SAMPLES} samples")
     if worst_lsb:
-        notes.append(f"limit cycle with zero input: up to {worst_lsb} LSB ({worst_units:.3g} in that node's units)")
+        bound = f"; the effective-value bound of the second-order sections is {max(bounds):.3g} LSB" if bounds else ""
+        notes.append(f"limit cycle with zero input: the search from {LIMIT_CYCLE_TRIALS} random states found up to "
+                     f"{worst_lsb} LSB ({worst_units:.3g} in that node's units){bound}")
     return worst_lsb, worst_units, drift
 
 
