@@ -216,7 +216,7 @@ def range_pair(words, field: str) -> tuple[float, float] | None:
 def _firmware(args, survey) -> dict:
     """The structure x word-format analysis of every method's result (convert.digital.quantized)."""
     from convert.cli.common import at
-    from convert.compare.frequency import log_grid
+    from convert.compare.frequency import comparison_grid
     from convert.digital.quantized import analyze
     from convert.digital.structures import structure_name
     from convert.digital.wordformats import get_format
@@ -226,7 +226,7 @@ def _firmware(args, survey) -> dict:
     args.structure, args.word_format = structure, word.name
     rng = range_pair(args.input_range, "--input-range")
     lim = range_pair(args.output_limits, "--output-limits")
-    band = log_grid(survey.band_hz[0], survey.band_hz[1], 100)
+    band = comparison_grid(survey.band_hz, survey.rows[0].realization.fs_hz, points_per_decade=20)
     out = {}
     with at(None, rename={"input_range": "--input-range", "output_limits": "--output-limits",
                           "structure": "--structure", "word_format": "--word-format"}):

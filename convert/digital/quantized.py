@@ -206,11 +206,14 @@ def analyze(roots, structure: str, word_format: str | WordFormat, band_f_hz, *, 
     resp = realized_response(real, f)
     ref = roots.frequency_response(f)
     with np.errstate(divide="ignore", invalid="ignore"):
-        ratio = resp / ref
-        rel = np.nan_to_num(np.abs(ratio - 1), nan=np.inf)
-        i = int(np.argmax(rel)) if rel.size else 0
-        gdb = float(np.max(np.abs(20 * np.log10(np.abs(ratio))))) if rel.size else 0.0
-        pdeg = float(np.max(np.abs(np.degrees(np.angle(ratio))))) if rel.size else 0.0
+        rel = np.nan_to_num(np.abs(resp / ref - 1), nan=np.inf)
+    i = int(np.argmax(rel)) if rel.size else 0
+    gdb = pdeg = 0.0
+    if rel.size:
+        from convert.compare.frequency import compare_responses
+
+        err = compare_responses(ref, resp, f)
+        gdb, pdeg = err.max_gain_error_db, err.max_phase_error_deg
 
     # overflow
     gains = peak_gains(layout)
