@@ -111,3 +111,20 @@ def test_card_clamps_become_the_output_limits(run_cli, tmp_path):
     r = run_cli("code", "--card", str(card), "--fs", "100Hz", "--format", "float", "--name", "cpi2",
                 "--output-limits", "-1", "1", "--out", str(tmp_path))
     assert "Output limits: -1 .. 1" in (tmp_path / "cpi2.h").read_text()
+
+
+def test_digital_prints_the_structure_and_its_verdict(run_cli):
+    """`loopshift digital` names the structure and judges it: float32 direct form of our
+    fifth-order card controller is unstable, the delta form is not (and its quantization error
+    over the default band is small: the band stops a hair below fs/2, where a zero at z = -1
+    makes relative errors meaningless)."""
+    base = ("digital", FIFTH, "--fs", "5Hz", "--method", "tustin", "--word-format", "float32",
+            "--output-limits", "-10", "10")
+    r = run_cli(*base)
+    assert r.code == 0 and "structure: direct1" in r.out and "FAILS: unstable" in r.out
+    r = run_cli(*base, "--structure", "delta")
+    assert "structure: delta" in r.out and "ok: stable" in r.out
+    line = next(x for x in r.out.splitlines() if "quantization alone" in x)
+    assert float(line.split("alone ")[1].split(" dB")[0]) < 0.1
+    r = run_cli(*base, "--structure", "ladder")
+    assert r.code == 2 and "--structure" in r.err
