@@ -114,3 +114,16 @@ def test_code_files_go_into_the_report_only_when_the_checks_pass(tmp_path):
     assert "Structure: delta" in files[next(n for n in names if n.endswith(".h"))]
     bad = evaluate_case(_case(tmp_path, "float32", "direct1"))
     assert not [n for n in build_report(bad) if n.startswith("code/")]
+
+
+def test_firmware_checks_alone_do_not_make_a_pass():
+    """A realization's own checks can fail a verdict but never make it checked: with no user
+    criterion checked the verdict stays "unchecked" even when every firmware check passes."""
+    from convert.compare.verdict import judge
+
+    check = {"key": "firmware_stability", "label": "stable", "unit": "|z|", "limit": 1.0, "value": 0.9,
+             "status": "pass"}
+    assert judge({}, {"r": {"checks": [check]}}, has_plant=False).overall == "unchecked"
+    assert judge({}, {"r": {"checks": [dict(check, status="fail")]}}, has_plant=False).overall == "fail"
+    assert judge({"max_gain_error_db": 1.0}, {"r": {"max_gain_error_db": 0.1, "checks": [check]}},
+                 has_plant=False).overall == "pass"

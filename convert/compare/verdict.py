@@ -42,6 +42,7 @@ CRITERIA: tuple[tuple[str, str, str], ...] = (
     ("max_step_deviation", "step-response deviation", "of step"),
     ("max_disturbance_deviation", "disturbance-response deviation", "of peak"),
 )
+CRITERION_KEYS = frozenset(k for k, _, _ in CRITERIA)  # a realization's own checks are not among them
 LOOP_CRITERIA = {"max_phase_margin_change_deg", "max_gain_margin_change_db", "max_sensitivity_peak_change_db",
                  "max_step_deviation", "max_disturbance_deviation"}
 
@@ -95,7 +96,7 @@ class Verdict:
         bits = []
         for name in names:
             mine = [j for j in self.judgements if j.realization == name and j.criterion != "closed_loop_stable"]
-            if any(j.status == "pass" for j in mine):
+            if any(j.status == "pass" and j.criterion in CRITERION_KEYS for j in mine):
                 continue
             skipped = [f"{j.label} ({j.note})" for j in mine if j.status == "skipped"]
             bits.append(f"{name}: " + ("; ".join(skipped) if skipped else "no criterion set"))
@@ -150,15 +151,12 @@ def judge(criteria: dict, figures: dict[str, dict], *, has_plant: bool, loops: d
         # they can fail a verdict but never make one "checked" on their own
         out.extend(Judgement(name, c["key"], c["label"], c.get("unit", ""), c.get("limit"), c.get("value"),
                              c["status"], c.get("note", "")) for c in values.get("checks", ()))
-    own = {c["key"] for values in figures.values() for c in values.get("checks", ())}
     if any(j.status == "fail" for j in out):
         overall = "fail"
     elif any(j.criterion == "closed_loop_stable" and j.status == "skipped" for j in out):
         overall = "unchecked"  # a loop whose stability could not be decided is never a pass
-    elif not figures or any(not any(j.status == "pass" for j in out
-                                    if j.realization == name and j.criterion != "closed_loop_stable"
-                                    and j.criterion not in own)
-                            for name in figures):
+    elif not figures or any(not any(j.status == "pass" and j.criterion in CRITERION_KEYS for j in out
+                                    if j.realization == name) for name in figures):
         overall = "unchecked"
     else:
         overall = "pass"
