@@ -993,7 +993,7 @@ def _simulate_realized(model, t_s, plant, dead_time_s, delay_s, duration_s, h, r
     n_u, g0_u, g1_u = _delay_taps(ap, bp, h, dead_time_s + delay_s)
     n_d, g0_d, g1_d = _delay_taps(ap, bp, h, dead_time_s)
     rows = list(zip(phi.tolist(), g0_u.tolist(), g1_u.tolist(), g0_d.tolist(), g1_d.tolist()))
-    c_row, d_p = cp[0].tolist(), float(dp[0, 0])
+    c_row, d_p = cp[0].tolist(), float(dp)
     lo, hi = limits
     x = [0.0] * len(rows)
     u_hist: list[float] = []
