@@ -11,6 +11,11 @@ Subclasses also inherit the matching builtin so library users can catch them nat
 from __future__ import annotations
 
 
+#: The longest error line; messages quote inputs through ``convert.limits.excerpt``, and this
+#: cap catches any that does not.
+MAX_ERROR_CHARS = 400
+
+
 class LoopshiftError(Exception):
     """Base class for every error loopshift raises on purpose.
 
@@ -53,7 +58,11 @@ class LoopshiftError(Exception):
             parts.append(self.key)
         prefix = ": ".join(parts)
         text = f"{prefix}: {self.message}" if prefix else self.message
-        return " ".join(text.split())  # guarantee one line
+        text = " ".join(text.split())  # guarantee one line
+        if len(text) > MAX_ERROR_CHARS:  # never echo a long input back: keep the start and the advice at the end
+            half = MAX_ERROR_CHARS // 2 - 10
+            text = f"{text[:half]} …[{len(text) - 2 * half:,} characters left out]… {text[-half:]}"
+        return text
 
     def __str__(self) -> str:  # pragma: no cover - trivial
         return self.one_line()

@@ -21,11 +21,13 @@ Errors name the column (1-based) of the offending character.
 
 from __future__ import annotations
 
+import math
 import re
 from dataclasses import dataclass
 from fractions import Fraction
 
 from convert.errors import InputError
+from convert.limits import MAX_DEGREE, MAX_EXPONENT, MAX_EXPRESSION_CHARS, MAX_NESTING, MAX_NUMBER_DIGITS, excerpt
 
 Poly = tuple[Fraction, ...]  # ascending powers of the variable, no trailing zeros (zero poly = ())
 
@@ -83,12 +85,105 @@ def _pdivmod(a: Poly, b: Poly) -> tuple[Poly, Poly]:
 
 
 def _pgcd(a: Poly, b: Poly) -> Poly:
-    while b:
-        a, b = b, _pdivmod(a, b)[1]
-    if not a:
+    """Monic greatest common divisor of two exact polynomials (ascending coefficients).
+
+    Euclid's algorithm over the rationals lets the coefficients of the remainders grow
+    explosively (a sum of 30 first-order terms with 20-digit constants took 30 s), so the
+    remainders are computed over the integers as a primitive remainder sequence: each pseudo-
+    remainder is divided by the gcd of its coefficients, which keeps them at the size of the
+    subresultants (common practice; from memory: Knuth, TAOCP vol. 2, 4.6.1).
+    """
+    x, y = _primitive(a), _primitive(b)
+    if len(x) < len(y):
+        x, y = y, x
+    if y and _coprime_modulo_primes(x, y):
         return (Fraction(1),)
-    lead = a[-1]
-    return tuple(c / lead for c in a)
+    size = len(x) * max(abs(c).bit_length() for c in x + y)
+    if size > _MAX_GCD_SIZE:
+        raise _TooLarge(size)
+    while y:
+        x, y = y, _primitive(_pseudo_remainder(x, y))
+    if not x:
+        return (Fraction(1),)
+    lead = x[-1]
+    return tuple(Fraction(c, lead) for c in x)
+
+
+#: degree x coefficient bits above which the exact common-factor search is refused (about 2 s)
+_MAX_GCD_SIZE = 60_000
+
+
+class _TooLarge(Exception):
+    """The exact polynomials are too large to search for a common factor quickly."""
+
+
+_PRIMES = (2**61 - 1, 2**31 - 1, 1_000_000_007)
+
+
+def _coprime_modulo_primes(a: tuple[int, ...], b: tuple[int, ...]) -> bool:
+    """True when a and b (integer coefficients) certainly have no common factor.
+
+    Modulo a prime p that divides neither leading coefficient, the gcd of the images has at
+    least the degree of the true gcd; so a constant gcd modulo one such prime proves that a
+    and b are coprime (the usual case, decided in a few thousand small operations)."""
+    for p in _PRIMES:
+        if a[-1] % p == 0 or b[-1] % p == 0:
+            continue
+        x = [c % p for c in a]
+        y = [c % p for c in b]
+        while True:
+            while y and y[-1] == 0:
+                y.pop()
+            if not y:
+                break
+            if len(y) == 1:
+                return True
+            inv = pow(y[-1], -1, p)
+            while len(x) >= len(y):
+                f = x[-1] * inv % p
+                shift = len(x) - len(y)
+                for j, cy in enumerate(y):
+                    x[shift + j] = (x[shift + j] - f * cy) % p
+                x.pop()
+                while x and x[-1] == 0:
+                    x.pop()
+                if not x:
+                    break
+            x, y = y, x
+        # a non-trivial gcd modulo p: a common factor is likely; let the exact sequence find it
+        return False
+    return False
+
+
+def _primitive(p) -> tuple[int, ...]:
+    """Integer coefficients proportional to ``p`` with no common factor (ascending)."""
+    if not p:
+        return ()
+    scale = 1
+    for c in p:
+        d = Fraction(c).denominator
+        scale = scale * d // math.gcd(scale, d)
+    ints = [int(Fraction(c) * scale) for c in p]
+    g = 0
+    for c in ints:
+        g = math.gcd(g, c)
+    return tuple(c // g for c in ints)
+
+
+def _pseudo_remainder(a: tuple[int, ...], b: tuple[int, ...]) -> tuple[int, ...]:
+    """Remainder of lead(b)^k · a divided by b over the integers (ascending coefficients)."""
+    rem = list(a)
+    lead = b[-1]
+    n = len(b) - 1
+    while len(rem) - 1 >= n and rem:
+        shift = len(rem) - 1 - n
+        top = rem[-1]
+        rem = [c * lead for c in rem]
+        for j, cb in enumerate(b):
+            rem[shift + j] -= top * cb
+        while rem and rem[-1] == 0:
+            rem.pop()
+    return tuple(rem)
 
 
 ONE: Poly = (Fraction(1),)
@@ -114,11 +209,13 @@ class Rational:
     def __mul__(self, o: "Rational") -> "Rational":
         return Rational(_pmul(self.num, o.num), _pmul(self.den, o.den))
 
-    def reduced(self) -> "Rational":
-        """Cancel common factors exactly and make the denominator monic."""
+    def reduced(self, g: Poly | None = None) -> "Rational":
+        """Cancel common factors exactly (``g``: their product, when already known) and make the
+        denominator monic."""
         if not self.num:
             return Rational((), ONE)
-        g = _pgcd(self.num, self.den)
+        if g is None:
+            g = _pgcd(self.num, self.den)
         num, den = self.num, self.den
         if len(g) > 1:
             num = _pdivmod(num, g)[0]
@@ -151,6 +248,7 @@ class _Parser:
     def __init__(self, text: str, label: str):
         self.text = text
         self.label = label
+        self.depth = 0  # parentheses and unary signs open around the current position
         self.tokens = self._tokenize()
         self.pos = 0
         self.variables: set[str] = set()
@@ -158,10 +256,27 @@ class _Parser:
 
     # -- errors
     def error(self, column: int, message: str) -> InputError:
-        return InputError(f"{message} (in {self.text.strip()!r})", where=f"{self.label} column {column}")
+        return InputError(f"{message} (in {excerpt(self.text)})", where=f"{self.label} column {column}")
+
+    # -- bounds (docs/reliability.md): checked as the expression is read, before the work grows
+    def _enter(self, tok: _Token) -> None:
+        self.depth += 1
+        if self.depth > MAX_NESTING:
+            raise self.error(tok.column, f"parentheses and signs are nested more than {MAX_NESTING} deep "
+                                         "(the limit of the expression reader); write the expression flatter")
+
+    def _bounded(self, value: Rational, tok: _Token) -> Rational:
+        degree = max(len(value.num), len(value.den)) - 1
+        if degree > MAX_DEGREE:
+            raise self.error(tok.column, f"the expression reaches degree {degree} here; the reader stops at degree "
+                                         f"{MAX_DEGREE} (a controller has a handful of poles and zeros)")
+        return value
 
     # -- lexing
     def _tokenize(self) -> list[_Token]:
+        if len(self.text) > MAX_EXPRESSION_CHARS:
+            raise InputError(f"the expression has {len(self.text):,} characters; the reader takes at most "
+                             f"{MAX_EXPRESSION_CHARS:,} (in {excerpt(self.text)})", where=self.label)
         out: list[_Token] = []
         i = 0
         while i < len(self.text):
@@ -202,7 +317,7 @@ class _Parser:
         while self.peek().kind == "op" and self.peek().text in "+-":
             op = self.take()
             rhs = self.term()
-            value = value + rhs if op.text == "+" else value - rhs
+            value = self._bounded(value + rhs if op.text == "+" else value - rhs, op)
         return value
 
     def _starts_factor(self, tok: _Token) -> bool:
@@ -222,15 +337,15 @@ class _Parser:
                 rhs = self.factor()
                 divided = (tok.column, divisor_column) if tok.text == "/" else None
                 if tok.text == "*":
-                    value = value * rhs
+                    value = self._bounded(value * rhs, tok)
                 else:
                     if not rhs.num:
                         raise self.error(tok.column, "division by zero (the divisor is identically 0)")
-                    value = value * Rational(rhs.den, rhs.num)
+                    value = self._bounded(value * Rational(rhs.den, rhs.num), tok)
             elif self._starts_factor(tok):
                 if divided is not None:
                     self._refuse_ambiguous(start, *divided, tok.column)
-                value = value * self.factor()
+                value = self._bounded(value * self.factor(), tok)
             else:
                 return value
 
@@ -251,7 +366,9 @@ class _Parser:
         tok = self.peek()
         if tok.kind == "op" and tok.text in "+-":
             self.take()
+            self._enter(tok)
             inner = self.factor()
+            self.depth -= 1
             return -inner if tok.text == "-" else inner
         return self.power()
 
@@ -266,6 +383,10 @@ class _Parser:
                     raise self.error(tok.column, "zero raised to a negative power")
                 base = Rational(base.den, base.num)
                 exponent = -exponent
+            grown = max(len(base.num), len(base.den), 1) - 1
+            if grown * exponent > MAX_DEGREE:  # refused before the work
+                raise self.error(tok.column, f"this power reaches degree {grown * exponent}; the reader stops at "
+                                             f"degree {MAX_DEGREE} (a controller has a handful of poles and zeros)")
             result = _const(Fraction(1))
             for _ in range(exponent):
                 result = result * base
@@ -285,6 +406,8 @@ class _Parser:
         tok = self.take()
         if tok.kind != "num" or not tok.text.isdigit():
             raise self.error(tok.column, f"expected a whole-number power, found {self.describe(tok)}")
+        if len(tok.text) > 3:
+            raise self.error(tok.column, f"power {tok.text[:20]}{'…' if len(tok.text) > 20 else ''} is too large (64 at most)")
         value = int(tok.text)
         if value > 64:
             raise self.error(tok.column, f"power {value} is too large (64 at most)")
@@ -297,8 +420,10 @@ class _Parser:
     def _number(self, tok: _Token) -> Fraction:
         # Bound the size so a typo such as 1e999999999 is an error, not a huge exact integer.
         mantissa, _, exp = tok.text.lower().partition("e")
-        if len(mantissa) > 200 or (exp and abs(int(exp)) > 400):
-            raise self.error(tok.column, f"the number {tok.text[:20]!r} is out of range (at most 200 digits, exponent ±400)")
+        digits = exp.lstrip("+-").lstrip("0")
+        if len(mantissa) > MAX_NUMBER_DIGITS or len(digits) > 4 or (digits and int(digits) > MAX_EXPONENT):
+            raise self.error(tok.column, f"the number {excerpt(tok.text, 20)} is out of range (at most "
+                                         f"{MAX_NUMBER_DIGITS} digits, exponent ±{MAX_EXPONENT})")
         return Fraction(tok.text)
 
     def atom(self) -> Rational:
@@ -318,7 +443,9 @@ class _Parser:
                 hint = "; put '*' between a variable and what follows (e.g. s*2)"
             raise self.error(tok.column, f"unknown name {name!r}; use s (analog) or z / z^-1 (digital){hint}")
         if tok.kind == "op" and tok.text == "(":
+            self._enter(tok)
             inner = self.expression()
+            self.depth -= 1
             close = self.take()
             if not (close.kind == "op" and close.text == ")"):
                 raise self.error(close.column, f"expected ')' to close the '(' at column {tok.column}, found {self.describe(close)}")
@@ -342,12 +469,14 @@ def parse_rational(text: str, *, label: str = "expression") -> ParsedExpression:
         raise parser.error(1, "division by zero")
     if not value.num:
         raise parser.error(1, "the expression is identically zero; a controller needs a non-zero gain")
-    raw = value
-    reduced = raw.reduced()
-    cancelled = None
-    if len(reduced.den) < len(raw.den):
-        g = _pgcd(raw.num, raw.den)
-        cancelled = tuple(reversed(g))
+    try:
+        g = _pgcd(value.num, value.den)
+    except _TooLarge:
+        raise parser.error(1, "the exact coefficients are too large to cancel common factors quickly (degree "
+                              f"{len(value.den) - 1} with numbers of thousands of digits); round the constants "
+                              "or multiply out fewer factors") from None
+    reduced = value.reduced(g)
+    cancelled = tuple(reversed(g)) if len(g) > 1 else None
     variable = next(iter(parser.variables)) if parser.variables else None
     return ParsedExpression(tuple(reversed(reduced.num)), tuple(reversed(reduced.den)), variable, cancelled)
 

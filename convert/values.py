@@ -24,6 +24,7 @@ import re
 from decimal import Decimal, InvalidOperation
 
 from convert.errors import InputError
+from convert.limits import MAX_EXPONENT, MAX_NUMBER_DIGITS, excerpt
 
 SI_PREFIXES: dict[str, float] = {
     "f": 1e-15,
@@ -105,14 +106,18 @@ def parse_value(text: str | float | int, kind: str = "number", *, field: str = "
         return value
     if not isinstance(text, str):
         raise InputError(f"expected {KIND_NAMES[kind]}, found {type(text).__name__}", key=field)
+    if len(text) > 2 * MAX_NUMBER_DIGITS:
+        raise InputError(f"expected {KIND_NAMES[kind]}, found {excerpt(text, 20)}",
+                         key=field)
     m = _VALUE_RE.match(text)
     if not m:
         lowered = text.strip().lower()
         if lowered in {"nan", "inf", "+inf", "-inf", "infinity"}:
             raise InputError(f"expected a finite number, found {text.strip()!r}", key=field)
-        raise InputError(f"expected {KIND_NAMES[kind]}, found {text.strip()!r}", key=field)
+        raise InputError(f"expected {KIND_NAMES[kind]}, found {excerpt(text)}", key=field)
     rest = m.group("rest").replace(" ", "")
     multiplier, unit_kind = _split_prefix_unit(rest, kind, field, text)
+    _check_number_text(m.group("num"), text, key=field, where=None)
     value = _scaled(m.group("num"), multiplier)
     if unit_kind == "percent" and kind == "ratio":
         value /= 100.0
@@ -149,6 +154,16 @@ def _check_underflow(value: float, number_text: str, field: str, shown: str) -> 
     if abs(value) < 2.2250738585072014e-308 and Decimal(number_text) != 0:
         raise InputError(f"expected a number within double precision, found {shown.strip()!r}: too small "
                          "(below about 2.2e-308)", key=field)
+
+
+def _check_number_text(number_text: str, shown: str, *, key: str, where: str | None) -> None:
+    """Refuse a number too long or with an exponent too large to mean anything (1e999999999):
+    it would be read as infinity or zero, or overflow the exact decimal arithmetic."""
+    mantissa, _, exp = number_text.lower().lstrip("+-").partition("e")
+    digits = exp.lstrip("+-").lstrip("0")
+    if len(mantissa) > MAX_NUMBER_DIGITS or len(digits) > 4 or (digits and int(digits) > MAX_EXPONENT):
+        raise InputError(f"the number {excerpt(shown, 20)} is out of range (at most {MAX_NUMBER_DIGITS} digits and "
+                         f"an exponent of ±{MAX_EXPONENT}; a finite value is needed)", where=where, key=key)
 
 
 def _scaled(number_text: str, multiplier: float) -> float:
@@ -293,6 +308,9 @@ def parse_spice_number(text: str, *, where: str = "netlist", field: str = "value
     error rather than silently 4000.
     """
     token = text.strip()
+    if len(token) > 2 * MAX_NUMBER_DIGITS:
+        raise InputError(f"expected a SPICE number, found {excerpt(token, 20)}",
+                         where=where, key=field)
     m = _SPICE_RE.match(token)
     if not m:
         if re.match(rf"^{_NUMBER}[a-zA-Zµ]+\d", token):
@@ -303,6 +321,7 @@ def parse_spice_number(text: str, *, where: str = "netlist", field: str = "value
                 key=field,
             )
         raise InputError(f"expected a SPICE number (e.g. 4.7k, 2.2n, 1meg), found {token!r}", where=where, key=field)
+    _check_number_text(m.group("num"), token, key=field, where=where)
     rest = m.group("rest").lower()
     multiplier = 1.0
     if rest:

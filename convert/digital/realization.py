@@ -197,12 +197,24 @@ def discretize(controller: Controller, fs_hz: float, method: str, *, prewarp_hz:
     used_match = None
     if method == "matched" and (match_at_hz is not None or notes and "gain is matched at" in notes[-1]):
         used_match = match_at_hz if match_at_hz is not None else forward.default_match_frequency_hz(src, fs)[0]
+    _refuse_non_finite(roots, fs, method)
     digital = roots.to_controller(name=f"{controller.name or 'controller'} ({method}, fs = {fs:.6g} Hz)")
     warnings.extend(_corner_warnings(controller, fs, method))
     warnings.extend(_stability_warnings(src, roots, fs, method))
     warnings.extend(_accuracy_warnings(controller, digital, roots, fs))
     return DigitalRealization(digital, method, fs, prewarp_hz if method == "tustin" else None, tuple(warnings),
                               controller, roots, tuple(notes), used_match, keep_delay if method == "matched" else False)
+
+
+def _refuse_non_finite(roots, fs: float, method: str) -> None:
+    """A sample rate so far from the controller's scales that the sampled form is not finite in
+    floating point (``--fs 1e-300Hz``) is refused naming fs, not reported as NaN coefficients."""
+    values = [complex(r) for r in (*roots.zeros, *roots.poles)] + [complex(roots.gain)]
+    if all(math.isfinite(v.real) and math.isfinite(v.imag) for v in values) and roots.gain != 0:
+        return
+    raise InputError(f"at fs = {fs:.6g} Hz the {method} form of this controller is not a finite number in floating "
+                     "point (the sample rate is too far from the controller's corners); choose a sample rate "
+                     "near its corners", key="fs")
 
 
 def _corner_warnings(controller: Controller, fs: float, method: str) -> list[str]:
