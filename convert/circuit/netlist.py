@@ -34,6 +34,7 @@ import re
 from dataclasses import dataclass, field, replace
 
 from convert.errors import InputError
+from convert.limits import MAX_NESTING, excerpt
 from convert.values import parse_spice_number
 
 GROUND = "0"
@@ -250,24 +251,55 @@ class _Scope:
     def lookup(self, name: str, where: str) -> float:
         key = name.lower()
         if key in self.raw:
-            if key in self.values:
-                return self.values[key]
-            if key in self.busy:
-                raise InputError(f"parameter {name!r} is defined in terms of itself", where=where, key=".param")
-            self.busy.add(key)
-            try:
-                text, pwhere = self.raw[key]
-                value = evaluate(text, self, pwhere, f"parameter {name}")
-            finally:
-                self.busy.discard(key)
-            self.values[key] = value
-            return value
+            if key not in self.values:
+                self._resolve(key)
+            return self.values[key]
         if self.parent is not None:
             return self.parent.lookup(name, where)
         raise InputError(f"unknown parameter {name!r}", where=where)
 
+    def _resolve(self, key: str) -> None:
+        """Evaluate ``key`` after the parameters it names, depth first with an explicit stack:
+        a chain of 1,000 parameters each defined by the next exhausted Python's recursion."""
+        stack = [key]
+        while stack:
+            k = stack[-1]
+            if k in self.values:
+                stack.pop()
+                continue
+            text, pwhere = self.raw[k]
+            if k not in self.busy:  # first visit: its own parameters first
+                self.busy.add(k)
+                for d in _names_in(text):
+                    if d in self.busy:
+                        raise InputError(f"parameter {d!r} is defined in terms of itself", where=pwhere,
+                                         key=".param")
+                    if d in self.raw and d not in self.values:
+                        stack.append(d)
+                continue
+            self.values[k] = evaluate(text, self, pwhere, f"parameter {k}")  # every name it uses is known now
+            self.busy.discard(k)
+            stack.pop()
+
     def knows(self, name: str) -> bool:
         return name.lower() in self.raw or (self.parent is not None and self.parent.knows(name))
+
+
+def _names_in(text: str) -> list[str]:
+    """Parameter names (lower case) an expression field uses, in order; numbers with suffix
+    letters (``1k``) are numbers, not names."""
+    t = text.strip()
+    if t.startswith("{") and t.endswith("}"):
+        t = t[1:-1]
+    out, pos = [], 0
+    while pos < len(t):
+        m = _EXPR_TOKEN.match(t, pos)
+        if not m or m.end() == pos:
+            break  # the calculator reports what it cannot read
+        if m.lastgroup == "name":
+            out.append(m.group("name").lower())
+        pos = m.end()
+    return out
 
 
 _PLAIN_NUMBER = re.compile(r"^[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?[A-Za-zµ0-9]*$")
@@ -306,6 +338,14 @@ class _Arith:
             pos = m.end()
         self.tokens.append(("end", ""))
         self.i = 0
+        self.depth = 0  # parentheses and unary signs open (bounded: MAX_NESTING)
+
+    def enter(self) -> None:
+        self.depth += 1
+        if self.depth > MAX_NESTING:
+            raise InputError(f"parentheses and signs are nested more than {MAX_NESTING} deep in "
+                             f"{excerpt(self.text)} (the limit of the calculator); write it flatter",
+                             where=self.where, key=self.what)
 
     def fail(self, expected: str):
         kind, tok = self.tokens[self.i]
@@ -349,14 +389,19 @@ class _Arith:
         if self.peek() in (("op", "+"), ("op", "-")):
             sign = -1.0 if self.peek()[1] == "-" else 1.0
             self.i += 1
-            return sign * self.unary()
+            self.enter()
+            value = sign * self.unary()
+            self.depth -= 1
+            return value
         return self.power()
 
     def power(self) -> float:
         base = self.atom()
         if self.peek() in (("op", "^"), ("op", "**")):
             self.i += 1
+            self.enter()
             exponent = self.unary()
+            self.depth -= 1
             try:
                 value = base ** exponent
             except (OverflowError, ZeroDivisionError):
@@ -377,7 +422,9 @@ class _Arith:
             return self.scope.lookup(tok, self.where)
         if (kind, tok) == ("op", "("):
             self.i += 1
+            self.enter()
             value = self.sum()
+            self.depth -= 1
             if self.peek() != ("op", ")"):
                 self.fail("')'")
             self.i += 1
