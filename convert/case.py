@@ -369,17 +369,10 @@ def _did_you_mean(word: str, choices) -> str:
 def load_case(path: str | Path) -> Case:
     """Read and validate the case file at ``path``. Raises :class:`InputError` naming
     ``file:line`` and the key for anything wrong."""
+    from convert.limits import read_input_text
+
     path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError("no such case file", where=str(path)) from None
-    except IsADirectoryError:
-        raise InputError("expected a case file (TOML), found a folder", where=str(path)) from None
-    except UnicodeDecodeError as exc:
-        raise InputError(f"the file is not UTF-8 text ({exc.reason})", where=str(path)) from None
-    except OSError as exc:
-        raise InputError(f"cannot read the case file ({exc.strerror})", where=str(path)) from None
+    text = read_input_text(path, what="case file")
     return parse_case(text, path)
 
 
@@ -390,6 +383,9 @@ def parse_case(text: str, path: str | Path = "case.toml") -> Case:
     path = Path(path)
     try:
         data = tomllib.loads(text)
+    except RecursionError:  # tomllib reads nested arrays and inline tables recursively
+        raise InputError("not valid TOML for a case file: values are nested too deeply (arrays or inline tables "
+                         "inside each other hundreds of times)", where=path.name) from None
     except tomllib.TOMLDecodeError as exc:
         message = str(exc)
         m = re.search(r"\(at line (\d+), column (\d+)\)", message)
@@ -784,11 +780,10 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
     from convert.circuit.card import analyze_card
     from convert.circuit.netlist import read_netlist
 
+    from convert.limits import read_input_text
+
     file_path: Path = src.data["file"]
-    try:
-        text = file_path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"cannot read the netlist {str(file_path)!r}: {exc}", key="file") from None
+    text = read_input_text(file_path, what="netlist")
     net = read_netlist(text, source=file_path.name)
     if src.data["setpoint"] is None and src.data["input"].upper() not in {e.name for e in net.sources}:
         from convert.circuit.card import two_input_hint

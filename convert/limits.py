@@ -77,7 +77,8 @@ def read_input_text(path, *, what: str = "file") -> str:
     try:
         fd = os.open(name, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
     except FileNotFoundError:
-        raise InputError(f"no such {what}", where=name) from None
+        raise InputError("no such case file" if what == "case file" else f"no such file (expected a {what})",
+                         where=name) from None
     except IsADirectoryError:
         raise InputError(f"expected a {what}, found a folder", where=name) from None
     except OSError as exc:
@@ -105,7 +106,7 @@ def read_input_text(path, *, what: str = "file") -> str:
     try:
         return data.decode("utf-8")
     except UnicodeDecodeError as exc:
-        raise InputError(f"the {what} is not UTF-8 text ({exc.reason} at byte {exc.start})", where=name) from None
+        raise InputError(f"the file is not UTF-8 text ({exc.reason} at byte {exc.start})", where=name) from None
 
 
 def _too_big(what: str, size: int | None, limit: int) -> str:

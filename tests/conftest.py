@@ -35,7 +35,9 @@ def run_cli(capsys):
 
     def _run(*argv: str) -> CliResult:
         buffer = io.StringIO()
-        console = Console(file=buffer, width=160, color_system=None, force_terminal=False, highlight=False)
+        # markup off, as the real console (convert.cli.main._make_console)
+        console = Console(file=buffer, width=160, color_system=None, force_terminal=False, highlight=False,
+                          markup=False)
         code = main(list(argv), console=console)
         captured = capsys.readouterr()
         return CliResult(code, buffer.getvalue() + captured.out, captured.err)

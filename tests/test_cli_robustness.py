@@ -127,7 +127,7 @@ BAD_INPUT = [
     # --- card: files and parts
     (["card"], "give a netlist file"),
     (["card", "missing.cir"], "missing.cir: no such file"),
-    (["card", "a folder"], "a folder: cannot read the file"),
+    (["card", "a folder"], "a folder: expected a netlist, found a folder"),
     (["card", "empty.cir"], "empty.cir: the netlist has no elements"),
     (["card", "latin1.cir"], "latin1.cir: the file is not UTF-8 text"),
     (["card", "card.cir", "--input", "VX"], "input source 'VX' not found"),
@@ -208,24 +208,16 @@ def test_unreadable_files_are_one_line(workdir, monkeypatch):
     """A file the system refuses to read (permission) is one line naming it, for a netlist and a case file.
 
     Simulated by refusing the open call, because tests may run as root (who can read anything)."""
-    import builtins
-    import pathlib
+    import os
 
-    real_open = builtins.open
-    real_read_text = pathlib.Path.read_text
+    real_open = os.open  # input files are read through convert.limits.read_input_text (os.open)
 
     def refusing_open(file, *args, **kwargs):
-        if str(file).endswith("card.cir"):
+        if str(file).endswith(("card.cir", "locked.toml")):
             raise PermissionError(13, "Permission denied", str(file))
         return real_open(file, *args, **kwargs)
 
-    def refusing_read_text(self, *args, **kwargs):
-        if self.name == "locked.toml":
-            raise PermissionError(13, "Permission denied", str(self))
-        return real_read_text(self, *args, **kwargs)
-
-    monkeypatch.setattr(builtins, "open", refusing_open)
-    monkeypatch.setattr(pathlib.Path, "read_text", refusing_read_text)
+    monkeypatch.setattr(os, "open", refusing_open)
     (workdir / "locked.toml").write_bytes(b"")
     for argv, fragment in ((["card", "card.cir"], "card.cir"), (["report", "locked.toml"], "locked.toml")):
         code, _, err = _run(argv)

@@ -870,13 +870,7 @@ def read_netlist_file(path: str) -> Netlist:
     """Read a netlist file; errors name the file."""
     import os
 
-    try:
-        with open(path, encoding="utf-8") as fh:
-            text = fh.read()
-    except FileNotFoundError:
-        raise InputError("no such file", where=path) from None
-    except UnicodeDecodeError as exc:
-        raise InputError(f"the file is not UTF-8 text ({exc.reason} at byte {exc.start})", where=path) from None
-    except OSError as exc:
-        raise InputError(f"cannot read the file: {exc.strerror}", where=path) from None
+    from convert.limits import read_input_text
+
+    text = read_input_text(path, what="netlist")
     return read_netlist(text, source=os.path.basename(path) or path)

@@ -188,26 +188,25 @@ def _print_summary(console, result, escape) -> None:
     from rich import box
     from rich.table import Table
 
+    from convert.cli.common import fit_columns, styled
     from convert.report.batch import format_worst
-
-    from convert.cli.common import fit_columns
 
     table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False, padding=(0, 1, 0, 0))
     header = ["case", "verdict", "closest to its limit", "time"]
     rows = [[o.name, o.status.upper(), format_worst(o), f"{o.seconds:.1f} s"] for o in result.outcomes]
     widths, head, cells = fit_columns(header, rows, console.width)  # never breaks a word
     for text, w, justify in zip(head, widths, ("left", "left", "left", "right")):
-        table.add_column(escape(text), width=w, no_wrap=True, justify=justify)
+        table.add_column(styled(escape(text)), width=w, no_wrap=True, justify=justify)
     styles = {"pass": "green", "fail": "bold red", "unreadable": "bold red", "error": "bold red"}
     for o, row in zip(result.outcomes, cells):
         verdict = f"[{styles[o.status]}]{row[1]}[/{styles[o.status]}]"
-        table.add_row(escape(row[0]), verdict, escape(row[2]), row[3])
+        table.add_row(styled(escape(row[0])), styled(verdict), styled(escape(row[2])), row[3])
     console.print(table)
     for o in result.outcomes:
         if o.status != "pass":
-            console.print(f"[red]{escape(o.name)}:[/red] {escape(o.message)}", soft_wrap=True)
+            console.print(styled(f"[red]{escape(o.name)}:[/red] {escape(o.message)}"), soft_wrap=True)
     counts = ", ".join(f"{n} {s}" for s, n in result.counts().items() if n)
-    console.print(f"{len(result.outcomes)} cases in {result.seconds:.1f} s: {escape(counts)}   "
-                  f"index: {escape(str(result.out_dir))}/index.html")
+    console.print(styled(f"{len(result.outcomes)} cases in {result.seconds:.1f} s: {escape(counts)}   "
+                         f"index: {escape(str(result.out_dir))}/index.html"))
     console.print("The tool computes; it does not certify: each report is evidence for a qualified person's "
                   "decision before a live swap.", soft_wrap=True)

@@ -49,6 +49,18 @@ def controller_from_args(args, *, fs_hz: float | None = None):
     return settings.to_controller(), settings
 
 
+def styled(markup: str):
+    """A rich ``Text`` from console markup the program wrote (``"[red]FAIL[/red]"``), with any
+    file text inside already passed through ``rich.markup.escape``.
+
+    The console prints with markup off (``convert.cli.main``): a netlist title such as
+    ``[/old]`` or ``[rev 2]`` is shown as written, never read as markup. Styling is asked for
+    explicitly through this function."""
+    from rich.text import Text
+
+    return Text.from_markup(markup)
+
+
 def emit_json(console, data) -> None:
     """Write ``data`` as indented JSON to the console's stream (no colour, no wrapping)."""
     from convert.jsonable import to_jsonable

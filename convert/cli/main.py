@@ -2,8 +2,8 @@
 
 Only argparse is imported at start-up, so ``loopshift --help`` is fast; each sub-command
 module imports what it needs when it runs. Exit codes: 0 done / pass, 1 verdict fail,
-2 bad input or usage. Errors are one line on standard error, never a traceback (set
-``LOOPSHIFT_DEBUG=1`` to see the traceback of an internal error).
+2 bad input or usage, 3 internal error. Errors are one line on standard error, never a traceback
+(``--debug``, or ``LOOPSHIFT_DEBUG=1``, adds the traceback of an internal error for a bug report).
 """
 
 from __future__ import annotations
@@ -57,6 +57,10 @@ class _UsageError(Exception):
     pass
 
 
+DEBUG_HELP = ("on an internal error (exit 3), print the traceback for a bug report; input errors stay one "
+              "line, e.g. loopshift --debug report case.toml")
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(
         prog="loopshift",
@@ -68,9 +72,13 @@ def build_parser() -> argparse.ArgumentParser:
                         help="print the version and exit, e.g. loopshift --version")
     subparsers = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser,
                                        help="one of the commands below; `loopshift COMMAND --help` for its options")
+    parser.add_argument("--debug", action="store_true", help=DEBUG_HELP)
     for name in COMMANDS:
         module = importlib.import_module(f"convert.cli.{name}")
         module.add_parser(subparsers)
+        # also after the command (loopshift report case.toml --debug); SUPPRESS keeps the global one
+        subparsers.choices[name].add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
+                                              help=DEBUG_HELP)
     return parser
 
 
@@ -83,14 +91,17 @@ def _unknown_arguments(parser, args, extras: list[str]) -> str:
         for action in parser._actions:
             if isinstance(action, argparse._SubParsersAction):
                 sub = action.choices[args.command]
+    from convert.limits import excerpt
+
     options = [s for a in sub._actions for s in a.option_strings]
     word = extras[0]
     if word.startswith("-"):
         name = word.split("=", 1)[0]
-        close = difflib.get_close_matches(name, options, n=1, cutoff=0.6)
+        close = difflib.get_close_matches(name, options, n=1, cutoff=0.6) if len(name) < 100 else []
         hint = f" (did you mean {close[0]}?)" if close else f"; `{sub.prog} --help` lists the options"
-        return f"{sub.prog}: unknown option {name}{hint}"
-    return (f"{sub.prog}: unexpected word {word!r}; an expression with spaces or parentheses needs quotes, "
+        shown = name if len(name) <= 60 else excerpt(name)
+        return f"{sub.prog}: unknown option {shown}{hint}"
+    return (f"{sub.prog}: unexpected word {excerpt(word)}; an expression with spaces or parentheses needs quotes, "
             f"e.g. \"(s+2)/(s+20)\"")
 
 
@@ -107,7 +118,9 @@ def _make_console():
         def on_broken_pipe(self) -> None:  # rich would exit with 1; a closed pipe (| head) is no failure
             raise BrokenPipeError
 
-    return _Console(highlight=False)
+    # markup off: text from files (a netlist title "[/old]", a case title "[rev 2]") is printed as
+    # written; the program's own styling goes through convert.cli.common.styled
+    return _Console(highlight=False, markup=False)
 
 
 def _quiet_stdout() -> None:
@@ -133,7 +146,10 @@ def main(argv: list[str] | None = None, console=None) -> int:
         if extras:
             raise _UsageError(_unknown_arguments(parser, args, extras))
     except _UsageError as exc:
-        print(f"error: {exc}", file=sys.stderr)
+        text = " ".join(str(exc).split())
+        if len(text) > 400:  # argparse quotes the words it could not use
+            text = text[:200] + f" …[{len(text) - 380:,} characters left out]… " + text[-180:]
+        print(f"error: {text}", file=sys.stderr)
         return 2
     except SystemExit as exc:  # --help / --version
         return int(exc.code or 0)
@@ -142,6 +158,7 @@ def main(argv: list[str] | None = None, console=None) -> int:
               + " (`loopshift --help` describes each)", file=sys.stderr)
         return 2
     module = importlib.import_module(f"convert.cli.{args.command}")
+    debug = bool(getattr(args, "debug", False) or os.environ.get("LOOPSHIFT_DEBUG"))
     err_console = None
     try:
         if console is None:
@@ -162,16 +179,32 @@ def main(argv: list[str] | None = None, console=None) -> int:
         name = exc.filename if exc.filename is not None else "file"
         _print_error(f"{name}: {exc.strerror or exc}", console, err_console)
         return 2
+    except RecursionError:  # a last guard: the readers bound nesting (convert.limits.MAX_NESTING) before this
+        _traceback(debug)
+        _print_error("the input is nested too deeply to read (Python's recursion limit); write it flatter",
+                     console, err_console)
+        return 2
     except MemoryError:
         _print_error("not enough memory for this run; ask for less (fewer --draws, a narrower --band)",
                      console, err_console)
         return 2
-    except Exception as exc:  # an internal error: one line, not a traceback
-        if os.environ.get("LOOPSHIFT_DEBUG"):
-            raise
-        text = f"internal error ({type(exc).__name__}): {exc}. Please report it; rerun with LOOPSHIFT_DEBUG=1 for details"
-        _print_error(" ".join(text.split()), console, err_console)
+    except Exception as exc:  # an internal error: one line, not a traceback (unless --debug)
+        _traceback(debug)
+        text = f"internal error ({type(exc).__name__}): {exc}"
+        text = " ".join(text.split())
+        if len(text) > 300:
+            text = text[:300] + "…"
+        advice = "the traceback is above" if debug else "rerun with --debug for the traceback"
+        _print_error(f"{text}. Please report it; {advice}", console, err_console)
         return 3
+
+
+def _traceback(debug: bool) -> None:
+    """The traceback of the exception being handled, on standard error, when asked for."""
+    if debug:
+        import traceback
+
+        traceback.print_exc(file=sys.stderr)
 
 
 def _print_error(line: str, console, err_console) -> None:

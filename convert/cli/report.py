@@ -124,22 +124,22 @@ def _summary(console, results, folder) -> None:
     from rich.panel import Panel
     from rich.table import Table
 
+    from convert.cli.common import fit_columns, styled
     from convert.compare.evaluate import CAUTIONS
-    from convert.cli.common import fit_columns
     from convert.report.tables import all_tables, parsed_table
 
     case = results.case
     verdict = results.verdict.overall
     style = "bold green" if verdict == "pass" else "bold red"
-    console.print(f"[bold]{escape(case.title)}[/bold]  ({escape(str(case.path))})")
+    console.print(styled(f"[bold]{escape(case.title)}[/bold]  ({escape(str(case.path))})"))
     for alarm in results.alarms:
-        console.print(f"[bold red]WARNING: {escape(alarm)}[/bold red]")
+        console.print(styled(f"[bold red]WARNING: {escape(alarm)}[/bold red]"))
     parsed = parsed_table(results)
     for title, header, rows in ([parsed] if parsed else []) + all_tables(results):
         if title.startswith("New forms"):
             continue
         # No side borders and one space of padding: at 80 columns the width goes to the words.
-        table = Table(title=escape(title), title_justify="left", box=box.SIMPLE_HEAD, show_edge=False,
+        table = Table(title=styled(escape(title)), title_justify="left", box=box.SIMPLE_HEAD, show_edge=False,
                       pad_edge=False, padding=(0, 1, 0, 0))
         keep = [i for i, h in enumerate(header) if h not in ("what was switched on", "note", "scanned")]
         # the report folder lists the rows that do not apply; the terminal keeps to what applies
@@ -147,7 +147,7 @@ def _summary(console, results, folder) -> None:
         widths, head, cells_text = fit_columns([header[i] for i in keep], [[str(r[i]) for i in keep] for r in rows],
                                                console.width)
         for text, w in zip(head, widths):
-            table.add_column(escape(text), width=w, no_wrap=True)
+            table.add_column(styled(escape(text)), width=w, no_wrap=True)
         for row in cells_text:
             cells = []
             for c in row:
@@ -157,18 +157,18 @@ def _summary(console, results, folder) -> None:
                     c = "[green]pass[/green]"
                 else:
                     c = escape(str(c))
-                cells.append(c)
+                cells.append(styled(c))
             table.add_row(*cells)
         console.print(table)
     for note in results.source.notes:
         if note.startswith("source.digital:"):  # how printed coefficients were read: said where it is seen
-            console.print(f"[yellow]note:[/yellow] {escape(note)}")
+            console.print(styled(f"[yellow]note:[/yellow] {escape(note)}"))
     _new_forms(console, results, folder)
     for s in results.skipped:
-        console.print(f"[yellow]skipped:[/yellow] {escape(str(s))}")
+        console.print(styled(f"[yellow]skipped:[/yellow] {escape(str(s))}"))
     for r in results.realizations:
         for w in r.warnings:
-            console.print(f"[yellow]warning ({escape(r.name)}):[/yellow] {escape(str(w))}")
+            console.print(styled(f"[yellow]warning ({escape(r.name)}):[/yellow] {escape(str(w))}"))
     console.print(Panel("\n".join(CAUTIONS), title="cautions", border_style="yellow"))
     failures = results.verdict.failures
     if failures:
@@ -177,10 +177,10 @@ def _summary(console, results, folder) -> None:
                 text = f"{j.realization}: {j.label}: {j.note.split(': ')[0]}"
             else:
                 text = f"{j.realization}: {j.label} {j.value:.3g} {j.unit} > limit {j.limit:g} {j.unit}"
-            console.print(f"[red]fails:[/red] {escape(text)}")
+            console.print(styled(f"[red]fails:[/red] {escape(text)}"))
     if results.verdict.unchecked_reason:
-        console.print(f"[red]unchecked:[/red] {escape(results.verdict.unchecked_reason)}")
-    console.print(f"verdict: [{style}]{verdict.upper()}[/{style}]   report: {escape(str(folder))}/report.html")
+        console.print(styled(f"[red]unchecked:[/red] {escape(results.verdict.unchecked_reason)}"))
+    console.print(styled(f"verdict: [{style}]{verdict.upper()}[/{style}]   report: {escape(str(folder))}/report.html"))
 
 
 def _new_forms(console, results, folder) -> None:
@@ -188,13 +188,14 @@ def _new_forms(console, results, folder) -> None:
     report, so the terminal says what to load into the firmware or build, and where it is."""
     from rich.markup import escape
 
+    from convert.cli.common import styled
     from convert.report.tables import realization_table
 
     _, _, rows = realization_table(results)
     if not rows:
         return
-    console.print("[bold]New forms[/bold] (full precision in results.json)")
+    console.print(styled("[bold]New forms[/bold] (full precision in results.json)"))
     for realization, (name, _kind, what, _warnings) in zip(results.realizations, rows):
         files = ", ".join(sorted(realization.files))
         where = f"; files {files} in {folder}" if files else ""
-        console.print(f"  {escape(name)}: {escape(what)}{escape(where)}")
+        console.print(styled(f"  {escape(name)}: {escape(what)}{escape(where)}"))
