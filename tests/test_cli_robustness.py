@@ -233,10 +233,10 @@ def test_system_refusal_while_writing_is_one_line(workdir, monkeypatch):
     def full_disk(path, text):
         raise OSError(28, "No space left on device", path)
 
-    monkeypatch.setattr(common, "write_text_atomic", full_disk)
+    monkeypatch.setattr(common, "_write_text", full_disk)
     code, _, err = _run(["circuit", PI, "--netlist", "new.cir", "--draws", "0"])
     assert code == 2, err
-    assert err.strip() == "error: new.cir: No space left on device"
+    assert err.strip() == "error: --netlist: cannot write 'new.cir' (No space left on device); nothing was written"
 
 
 @pytest.mark.parametrize("argv", [

@@ -165,9 +165,14 @@ def test_existing_report_not_overwritten_without_force(reports, capsys):
     err = capsys.readouterr().err
     assert code == 2 and "--force" in err
     assert marker.read_text() == "mine" and (folder / "results.json").read_bytes() == before
+    # issue 9 item 1: --force replaces an earlier report only while it holds nothing the user added
+    code, _ = _main("report", str(CASES / "pi_card_to_firmware.toml"), "--out", str(folder), "--force")
+    err = capsys.readouterr().err
+    assert code == 2 and "keep.txt" in err and marker.read_text() == "mine"
+    marker.unlink()
     code, _ = _main("report", str(CASES / "pi_card_to_firmware.toml"), "--out", str(folder), "--force")
     assert code == 0
-    assert not marker.exists() and (folder / "results.json").stat().st_size > 0
+    assert (folder / "results.json").stat().st_size > 0
     assert not [p for p in folder.parent.iterdir() if p.name.startswith(f".{folder.name}.")]
 
 
@@ -381,9 +386,10 @@ def test_failure_while_drawing_leaves_no_folder(evaluated, tmp_path, monkeypatch
     with pytest.raises(RuntimeError):
         write_report(res, out)
     assert list(tmp_path.iterdir()) == []
+    from convert.report.folder import write_folder
+
     old = tmp_path / "old"
-    old.mkdir()
-    (old / "report.md").write_text("earlier report")
+    write_folder(old, {"report.md": "earlier report"}, force=False, protected=[])  # an earlier report
     with pytest.raises(RuntimeError):
         write_report(res, old, force=True)
     assert [p.name for p in tmp_path.iterdir()] == ["old"]
@@ -409,9 +415,10 @@ def test_failure_while_writing_leaves_no_folder(evaluated, tmp_path, monkeypatch
     with pytest.raises(OSError):
         write_report(res, tmp_path / "r")
     assert list(tmp_path.iterdir()) == []
+    from convert.report.folder import write_folder
+
     keep = tmp_path / "keep"
-    keep.mkdir()
-    (keep / "results.json").write_bytes(b"{}")
+    write_folder(keep, {"results.json": b"{}"}, force=False, protected=[])  # an earlier report
     with pytest.raises(OSError):
         write_report(res, keep, force=True)
     assert sorted(p.name for p in tmp_path.iterdir()) == ["keep"]

@@ -120,12 +120,6 @@ def _check_outputs(args) -> list[str]:
                                "--buy-list": args.buy_list}, force=args.force)
 
 
-def _write(path: str, text: str) -> None:
-    from convert.cli.common import write_text_atomic
-
-    write_text_atomic(path, text)
-
-
 def _trims(args, design):
     from convert.circuit.trim import size_trim
     from convert.cli.common import at
@@ -171,7 +165,8 @@ def run(args, console) -> int:
     from convert.circuit.opamp import OpAmpModel
     from convert.circuit.tolerance import parse_tolerances
     from convert.cli.analog import INVERSE_NAMES
-    from convert.cli.common import at, band_from_args, controller_from_args, count, emit_json, positive_value
+    from convert.cli.common import (at, band_from_args, controller_from_args, count, emit_json, positive_value,
+                                     write_outputs)
     from convert.errors import InputError
 
     count(args.draws, "--draws", low=0, high=MAX_DRAWS)
@@ -197,7 +192,7 @@ def run(args, console) -> int:
                                 band_hz=band,
                                 derivative_filter_n=positive_value(args.derivative_filter, "number", "--derivative-filter"),
                                 inverse_method=args.inverse_method, top=args.top, max_opamps=args.max_opamps)
-    _check_outputs(args)
+    outputs = _check_outputs(args)
     opamp = OpAmpModel(positive_value(args.opamp_gbw, "hz", "--opamp-gbw")) if args.opamp_gbw else None
     amplitude = positive_value(args.amplitude, "volt", "--amplitude") if args.amplitude else None
     rail = positive_value(args.rail, "volt", "--rail") if args.rail else None
@@ -222,17 +217,15 @@ def run(args, console) -> int:
                          "overflows or underflows there in floating point; give a band a few decades around the "
                          "controller's corners", key="--band")
     trims = _trims(args, design)
-    written = []
+    writers = {}
     if args.netlist:
         from convert.circuit.netlist_out import design_netlist
 
-        _write(args.netlist, design_netlist(design, opamp=opamp))
-        written.append(args.netlist)
+        writers["--netlist"] = design_netlist(design, opamp=opamp)
     if args.bom:
         from convert.circuit.bom import bom_csv, bom_rows
 
-        _write(args.bom, bom_csv(bom_rows(design, tolerances, trims)))
-        written.append(args.bom)
+        writers["--bom"] = bom_csv(bom_rows(design, tolerances, trims))
     if args.buy_list:
         import json
 
@@ -240,20 +233,19 @@ def run(args, console) -> int:
         from convert.jsonable import to_jsonable
 
         order = buy_list(design, tolerances, rail_v=rail or 15.0, amplitude_v=amplitude)
-        text = (json.dumps(to_jsonable(order.summary()), indent=2, ensure_ascii=True) + "\n"
-                if args.buy_list.lower().endswith(".json") else order.csv())
-        _write(args.buy_list, text)
-        written.append(args.buy_list)
+        writers["--buy-list"] = (json.dumps(to_jsonable(order.summary()), indent=2, ensure_ascii=True) + "\n"
+                                 if args.buy_list.lower().endswith(".json") else order.csv())
         if order.tightening is not None:
             design.notes.append(f"buy list: {order.tightening.part} dominates the tolerance error; "
                                 f"{order.tightening.suggested * 100:g} % for it alone brings the worst case from "
                                 f"{order.tightening.gain_db[0]:.3g} to {order.tightening.gain_db[1]:.3g} dB")
     if args.schematic:
         from convert.circuit.schematic import design_schematic
-        from convert.cli.common import write_file_atomic
 
-        write_file_atomic(args.schematic, lambda tmp: design_schematic(design, tmp))
-        written.append(args.schematic)
+        writers["--schematic"] = lambda tmp: design_schematic(design, tmp)
+    write_outputs(outputs, writers)  # all or none
+    written = [o.given for o in outputs]
+    link_notes = [o.note for o in outputs if o.note]
 
     parts = {}
     for p in design.topology.parts:
@@ -278,6 +270,7 @@ def run(args, console) -> int:
         "trims": [t.summary() for t in trims],
         "notes": design.notes,
         "written": written,
+        "written_through_links": link_notes,
         "seed": args.seed,
         "series": {"resistors": options.resistors, "capacitors": options.capacitors},
     }
@@ -370,6 +363,8 @@ def _render(console, design, data) -> None:
                       markup=False)
     for path in data["written"]:
         console.print(f"wrote {path}", markup=False)
+    for note in data["written_through_links"]:
+        console.print(f"note: {note}", markup=False)
     console.print("Verify on a bench or in simulation before a live swap; the tool computes, it does not certify.")
 
 

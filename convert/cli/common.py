@@ -135,16 +135,27 @@ class at:  # noqa: N801 - used as a context manager: ``with at("--part"): ...``
         return False
 
 
-def check_output_files(named: dict[str, str | None], *, force: bool) -> list[str]:
+class OutputFile:
+    """One file a command will write: the ``option`` that names it, the path as ``given``, the
+    ``path`` written (a symbolic link resolved to its target) and a ``note`` stating the link."""
+
+    def __init__(self, option: str, given: str, path: str, note: str | None):
+        self.option, self.given, self.path, self.note = option, given, path, note
+
+
+def check_output_files(named: dict[str, str | None], *, force: bool) -> list[OutputFile]:
     """Check files a command will write before any long work starts.
 
     ``named`` maps the option (``--netlist``) to the path given (or None). Refuses a folder,
     a folder that does not exist, a folder that cannot be written, the same file for two
-    outputs, and an existing file unless ``force``. Returns the paths that will be written.
+    outputs, anything but a regular file (a device such as /dev/null, a FIFO, a socket; even
+    with ``force``), and an existing file unless ``force``. A symbolic link is resolved: the
+    target is written and the link kept, and :attr:`OutputFile.note` says so.
     """
     import os
 
     from convert.errors import InputError
+    from convert.limits import file_kind
 
     seen: dict[str, str] = {}
     out = []
@@ -155,20 +166,107 @@ def check_output_files(named: dict[str, str | None], *, force: bool) -> list[str
             raise InputError(f"{path!r} is a folder; give a file name such as {os.path.join(path, 'out' + _ext(option))}",
                              key=option)
         real = os.path.realpath(path)
+        note = f"{option} {path!r} is a link; writing to {real!r}" if os.path.islink(path) else None
         if real in seen:
             raise InputError(f"{path!r} is also the file for {seen[real]}; give each output its own file", key=option)
         seen[real] = option
-        folder = os.path.dirname(os.path.abspath(path))
+        kind = file_kind(real)
+        if kind is not None:
+            raise InputError(f"{path!r} is {kind}; outputs are written only as regular files (new or, with --force, "
+                             "replaced): give a file name", key=option)
+        folder = os.path.dirname(real)
+        shown = os.path.dirname(path) or "."
         if not os.path.isdir(folder):
-            raise InputError(f"the folder {os.path.dirname(path) or '.'!r} does not exist; create it first or "
-                             "choose another place", key=option)
-        if not os.access(folder, os.W_OK):
-            raise InputError(f"cannot write in the folder {os.path.dirname(path) or '.'!r} (permission denied)",
+            raise InputError(f"the folder {shown!r} does not exist; create it first or choose another place",
                              key=option)
-        if os.path.exists(path) and not force:
+        if not os.access(folder, os.W_OK):
+            raise InputError(f"cannot write in the folder {shown!r} (permission denied)", key=option)
+        if os.path.exists(real) and not force:
             raise InputError(f"{path} exists; choose another name or add --force to overwrite it", key=option)
-        out.append(path)
+        out.append(OutputFile(option, path, real, note))
     return out
+
+
+def write_outputs(outputs: list[OutputFile], writers: dict[str, object]) -> None:
+    """Write the outputs of one command all or none.
+
+    ``writers`` maps each option to its content: text, or a function ``write(tmp_path)``.
+    Every file is first written as a temporary file beside its destination; only when all of
+    them are written are they renamed into place (an earlier file kept as a hard-link backup
+    until the end, so a failing rename puts everything back). A failure names the option and
+    says that nothing was written.
+    """
+    import os
+
+    from convert.errors import InputError
+
+    staged: list[tuple[OutputFile, str]] = []
+    try:
+        for out in outputs:
+            content = writers[out.option]
+            try:
+                staged.append((out, _stage(out.path, content)))
+            except OSError as exc:
+                raise InputError(f"cannot write {out.given!r} ({exc.strerror or exc}); nothing was written",
+                                 key=out.option) from None
+        done: list[tuple[OutputFile, str | None]] = []
+        failing = None
+        try:
+            for failing, tmp in staged:
+                out = failing
+                backup = None
+                if os.path.exists(out.path):
+                    backup = tmp + ".old"
+                    try:
+                        os.link(out.path, backup)
+                    except OSError:
+                        backup = None
+                os.replace(tmp, out.path)
+                done.append((out, backup))
+        except OSError as exc:
+            for put, backup in reversed(done):
+                if backup:
+                    os.replace(backup, put.path)
+                else:
+                    os.unlink(put.path)
+            raise InputError(f"cannot put {failing.given!r} in place ({exc.strerror or exc}); nothing was written",
+                             key=failing.option) from None
+        for _, backup in done:
+            if backup:
+                os.unlink(backup)
+    finally:
+        for _, tmp in staged:
+            for leftover in (tmp, tmp + ".old"):
+                if os.path.lexists(leftover):
+                    os.unlink(leftover)
+
+
+def _stage(path: str, content) -> str:
+    """Write ``content`` (text, or a function of the temporary path) to a new temporary file
+    beside ``path`` with the permissions a plain ``open`` would give; return its path."""
+    import os
+    import tempfile
+
+    folder = os.path.dirname(os.path.abspath(path))
+    fd, tmp = tempfile.mkstemp(dir=folder, prefix=".loopshift-", suffix=os.path.splitext(path)[1])
+    os.close(fd)
+    try:
+        if callable(content):
+            content(tmp)
+        else:
+            _write_text(tmp, content)
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)
+    except BaseException:
+        os.unlink(tmp)
+        raise
+    return tmp
+
+
+def _write_text(path: str, text: str) -> None:
+    with open(path, "w", newline="") as fh:
+        fh.write(text)
 
 
 def _ext(option: str) -> str:
@@ -183,16 +281,9 @@ def write_file_atomic(path: str, write) -> None:
     written for colleagues is readable by them. Nothing is left behind when ``write`` fails.
     """
     import os
-    import tempfile
 
-    folder = os.path.dirname(os.path.abspath(path))
-    fd, tmp = tempfile.mkstemp(dir=folder, prefix=".loopshift-", suffix=os.path.splitext(path)[1])
-    os.close(fd)
+    tmp = _stage(path, write)
     try:
-        write(tmp)
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)
         os.replace(tmp, path)
     except BaseException:
         if os.path.exists(tmp):
@@ -203,11 +294,7 @@ def write_file_atomic(path: str, write) -> None:
 def write_text_atomic(path: str, text: str) -> None:
     """Write ``text`` to ``path`` atomically (see :func:`write_file_atomic`)."""
 
-    def _write(tmp: str) -> None:
-        with open(tmp, "w", newline="") as fh:
-            fh.write(text)
-
-    write_file_atomic(path, _write)
+    write_file_atomic(path, lambda tmp: _write_text(tmp, text))
 
 
 def fit_columns(header: list[str], rows: list[list[str]], width: int, gap: int = 2) -> tuple[list[int], list[str], list[list[str]]]:

@@ -18,8 +18,9 @@ examples:
 
 The report folder holds report.html (self-contained), report.md with figures/ beside it,
 results.json, and the files the targets produce (BOM, netlist, schematic). It is written to
-a temporary folder first and renamed into place; an existing folder is replaced only with
---force. Exit code 0 pass, 1 fail, 2 bad input.
+a temporary folder first and renamed into place. It carries a marker file, .loopshift-report,
+listing what loopshift wrote; --force replaces only an empty folder or an earlier report that
+holds nothing else (never a folder of your own files). Exit code 0 pass, 1 fail, 2 bad input.
 
 The tool computes; it does not certify. Verify on a bench or in simulation before a live swap."""
 
@@ -31,8 +32,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                                                 "see docs/case-files.md")
     p.add_argument("--out", metavar="DIR", help="report folder to write (default: reports/<case name> in the "
                                                 "current folder), e.g. --out reports/pump-7")
-    p.add_argument("--force", action="store_true", help="replace the report folder if it exists "
-                                                        "(default: refuse, so an earlier report is never lost), "
+    p.add_argument("--force", action="store_true", help="replace the report folder if it is an earlier report "
+                                                        "or empty (default: refuse, so an earlier report is never "
+                                                        "lost; a folder of other files is always refused), "
                                                         "e.g. --out reports/pump-7 --force")
     p.add_argument("--draws", metavar="N", type=_positive_int,
                    help="Monte Carlo draws for a circuit target, overriding the case file (1 to 1,000,000), "
@@ -63,8 +65,11 @@ def run(args, console) -> int:
     case = load_case(args.case)
     out_dir = Path(args.out) if args.out else Path("reports") / case.name
     protected = [case.path] + [p for p in [case.source.data.get("file")] if p]
-    check_destination(out_dir, force=args.force, protected=protected)  # fail before the long work
+    dest = check_destination(out_dir, force=args.force, protected=protected)  # fail before the long work
     _check_writable(out_dir, explicit=bool(args.out))
+    if dest.note:
+        console.print(f"note: {dest.note}", markup=False, highlight=False, soft_wrap=True)
+        out_dir = dest.path
 
     from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
