@@ -68,11 +68,10 @@ def html_report(results, figures: dict[str, bytes]) -> str:
     v = results.verdict.overall
     parts = ["<!DOCTYPE html>", '<html lang="en"><head><meta charset="utf-8">',
              f"<title>loopshift report — {html.escape(case.title)}</title>", f"<style>{_CSS}</style></head><body>",
-             f"<h1>Equivalence report — {html.escape(case.title)}</h1>"]
+             "<h1>Equivalence report</h1>"]
+    # the computed verdict, the alarms and the cautions first; the case file's own words after them
     for alarm in results.alarms:
         parts.append(f'<p class="alarm" role="alert">{html.escape(alarm)}</p>')
-    if case.description:
-        parts.append(f"<p>{html.escape(case.description)}</p>")
     parts.append(f'<p class="verdict {v}">Verdict: {v.upper()}</p>')
     failed = failing_criteria(results)
     if failed:
@@ -81,6 +80,9 @@ def html_report(results, figures: dict[str, bytes]) -> str:
         parts.append(f"<p>{html.escape(results.verdict.unchecked_reason)}</p>")
     parts.append('<div class="caution"><strong>Cautions.</strong><ul>'
                  + "".join(f"<li>{html.escape(c)}</li>" for c in CAUTIONS) + "</ul></div>")
+    parts.append(f'<h2>Case</h2><p><strong>Title (from the case file):</strong> {html.escape(case.title)}</p>')
+    if case.description:
+        parts.append(f"<p><strong>Description (from the case file):</strong> {html.escape(case.description)}</p>")
     for title, header, rows in input_tables(results):
         parts.append(_html_table(title, header, rows))
     tables = all_tables(results)
@@ -107,51 +109,90 @@ def html_report(results, figures: dict[str, bytes]) -> str:
 
 
 # ----------------------------------------------------------------------------- Markdown
-def _md_cell(text: str) -> str:
-    return text.replace("|", "\\|").replace("\n", " ")
+# Characters with a meaning inside a CommonMark paragraph or a table cell: each is written with a
+# backslash, so it shows as itself (CommonMark 0.31, section 2.4: any ASCII punctuation may be
+# backslash-escaped). "<", ">" and "&" become entities, so no raw HTML (a comment that hides the
+# verdict, a <script>) can start from user text.
+_MD_SPECIAL = set("\\`*_[]!|~")
+_MD_ENTITIES = {"<": "&lt;", ">": "&gt;", "&": "&amp;"}
+
+
+def md_text(text, *, starts_line: bool = True) -> str:
+    """``text`` as one Markdown paragraph that renders as exactly what it says.
+
+    Whitespace (newlines included) collapses to single spaces, so a title or description can
+    neither start a new block (a heading, a list, a "Verdict" line of its own) nor end the
+    paragraph; inline syntax and HTML are escaped; where the text ``starts_line`` (a paragraph,
+    a list item; not a table cell) a leading block marker ("#", "-", "+", "=", "1.") is escaped
+    too.
+    """
+    flat = " ".join(str(text).split())
+    out = []
+    for ch in flat:
+        if ch in _MD_ENTITIES:
+            out.append(_MD_ENTITIES[ch])
+        elif ch in _MD_SPECIAL:
+            out.append("\\" + ch)
+        else:
+            out.append(ch)
+    escaped = "".join(out)
+    if not starts_line:
+        return escaped
+    if escaped[:1] in ("-", "+", "=", "#"):
+        escaped = "\\" + escaped
+    digits = len(escaped) - len(escaped.lstrip("0123456789"))
+    if digits and escaped[digits:digits + 1] in (".", ")"):
+        escaped = escaped[:digits] + "\\" + escaped[digits:]
+    return escaped
 
 
 def markdown_report(results, figure_names=()) -> str:
-    """The report as Markdown; figures are referenced as ``figures/<name>.png`` files."""
+    """The report as Markdown; figures are referenced as ``figures/<name>.png`` files.
+
+    The computed verdict and the cautions come first; every text from the case file or the
+    inputs (title, description, names, notes) follows, escaped by :func:`md_text`."""
+    from urllib.parse import quote
+
     case = results.case
-    lines = [f"# Equivalence report — {case.title}", ""]
+    verdict = results.verdict.overall.upper()
+    lines = [f"# Equivalence report: {verdict}", ""]
     for alarm in results.alarms:
-        lines += [f"> **Warning: {alarm}**", ""]
-    if case.description:
-        lines += [case.description, ""]
-    lines += [f"**Verdict: {results.verdict.overall.upper()}**", ""]
+        lines += [f"> **Warning: {md_text(alarm, starts_line=False)}**", ""]
+    lines += [f"**Verdict: {verdict}** (computed by loopshift from the criteria below)", ""]
     failed = failing_criteria(results)
     if failed:
-        lines += [f"- failed: {_md_cell(t)}" for t in failed] + [""]
+        lines += [f"- failed: {md_text(t)}" for t in failed] + [""]
     if results.verdict.unchecked_reason:
-        lines += [_md_cell(results.verdict.unchecked_reason), ""]
+        lines += [md_text(results.verdict.unchecked_reason), ""]
     lines += ["> **Cautions.**"]
-    lines += [f"> - {c}" for c in CAUTIONS]
-    lines.append("")
+    lines += [f"> - {md_text(c)}" for c in CAUTIONS]
+    lines += ["", "## Case", "", f"**Title (from the case file):** {md_text(case.title)}", ""]
+    if case.description:
+        lines += [f"**Description (from the case file):** {md_text(case.description)}", ""]
     for title, header, rows in input_tables(results) + all_tables(results):
-        lines += [f"## {title}", ""]
+        lines += [f"## {md_text(title)}", ""]
         note = table_note(title)
         if note:
-            lines += [note, ""]
-        lines += ["| " + " | ".join(header) + " |", "|" + "---|" * len(header)]
-        lines += ["| " + " | ".join(_md_cell(c) for c in row) + " |" for row in rows]
+            lines += [md_text(note), ""]
+        lines += ["| " + " | ".join(md_text(h, starts_line=False) for h in header) + " |", "|" + "---|" * len(header)]
+        lines += ["| " + " | ".join(md_text(c, starts_line=False) for c in row) + " |" for row in rows]
         lines.append("")
     if results.skipped:
-        lines += ["## Checks skipped", ""] + [f"- {s}" for s in results.skipped] + [""]
+        lines += ["## Checks skipped", ""] + [f"- {md_text(s)}" for s in results.skipped] + [""]
     if results.notes:
-        lines += ["## Notes", ""] + [f"- {s}" for s in results.notes] + [""]
+        lines += ["## Notes", ""] + [f"- {md_text(s)}" for s in results.notes] + [""]
     if results.rate_advice:
-        lines += [f"Rule used: {results.rate_advice[0].rule}.", ""]
+        lines += [f"Rule used: {md_text(results.rate_advice[0].rule)}.", ""]
     if figure_names:
         lines.append(markdown_figures(figure_names))
     files = sorted({f for r in results.realizations for f in r.files})
     if files:
-        lines += ["## Files beside this report", ""] + [f"- [{f}]({f})" for f in files] + [""]
+        lines += ["## Files beside this report", ""] + [f"- [{md_text(f)}](<{quote(f)}>)" for f in files] + [""]
     return "\n".join(lines)
 
 
 def markdown_figures(names) -> str:
     lines = ["## Figures", ""]
     for name in names:
-        lines += [f"![{_caption(name)}](figures/{name})", "", f"*{_caption(name)}*", ""]
+        lines += [f"![{md_text(_caption(name))}](figures/{name})", "", f"*{md_text(_caption(name))}*", ""]
     return "\n".join(lines)
