@@ -23,6 +23,7 @@ from pathlib import Path
 from typing import Any
 
 from convert.errors import InputError, LoopshiftError
+from convert.limits import MAX_DEGREE, MAX_RATE_METHOD_PAIRS, MAX_RATES, excerpt
 
 SOURCE_FORMS = ("expression", "pid", "digital", "card", "netlist")
 WORD_FORMATS = ("float64", "float32", "q15", "q31")
@@ -285,7 +286,7 @@ class _Ctx:
             raise InputError(exc.message, where=self.where(dotted), key=dotted) from None
         if positive and not (value > 0 or (allow_zero and value == 0)):
             need = "zero or positive" if allow_zero else "positive"
-            raise self.error(dotted, f"expected a {need} value, found {raw!r}")
+            raise self.error(dotted, f"expected a {need} value, found {excerpt(raw)}")
         return value
 
     def fraction(self, table: dict, key: str, dotted: str, *, allow_one: bool = True) -> float | None:
@@ -320,13 +321,13 @@ class _Ctx:
             return default
         raw = table[key]
         if not isinstance(raw, list) or len(raw) != 2:
-            raise self.error(dotted, f"expected a list of two values [low, high], found {raw!r}")
+            raise self.error(dotted, f"expected a list of two values [low, high], found {excerpt(raw)}")
         low = self.value({"v": raw[0]}, "v", dotted, kind)
         high = self.value({"v": raw[1]}, "v", dotted, kind)
         if positive and not (low > 0 and high > 0):
-            raise self.error(dotted, f"expected two positive values, found {raw!r}")
+            raise self.error(dotted, f"expected two positive values, found {excerpt(raw)}")
         if ordered and not low < high:
-            raise self.error(dotted, f"expected low < high, found {raw!r}")
+            raise self.error(dotted, f"expected low < high, found {excerpt(raw)}")
         return (low, high)
 
     def text(self, table: dict, key: str, dotted: str, default=None, choices=None):
@@ -334,10 +335,10 @@ class _Ctx:
             return default
         raw = table[key]
         if not isinstance(raw, str) or not raw.strip():
-            raise self.error(dotted, f"expected text, found {raw!r}")
+            raise self.error(dotted, f"expected text, found {excerpt(raw)}")
         if choices is not None and raw not in choices:
             hint = _did_you_mean(raw, choices)
-            raise self.error(dotted, f"expected one of {', '.join(choices)}, found {raw!r}{hint}")
+            raise self.error(dotted, f"expected one of {', '.join(choices)}, found {excerpt(raw)}{hint}")
         return raw
 
     def table(self, parent: dict, key: str, dotted: str) -> dict | None:
@@ -345,7 +346,7 @@ class _Ctx:
             return None
         raw = parent[key]
         if not isinstance(raw, dict):
-            raise self.error(dotted, f"expected a table ([{dotted}] or {{ ... }}), found {raw!r}")
+            raise self.error(dotted, f"expected a table ([{dotted}] or {{ ... }}), found {excerpt(raw)}")
         return raw
 
     def check_keys(self, table: dict, allowed: dict, dotted: str) -> None:
@@ -474,7 +475,10 @@ def _read_source(ctx: _Ctx, data: dict) -> Source:
         for coef in ("b", "a"):
             raw = dig.get(coef)
             if not isinstance(raw, list) or not raw:
-                raise ctx.error(f"{key}.{coef}", f"expected a list of numbers (ascending powers of z^-1), found {raw!r}")
+                raise ctx.error(f"{key}.{coef}", f"expected a list of numbers (ascending powers of z^-1), found {excerpt(raw)}")
+            if len(raw) > MAX_DEGREE + 1:
+                raise ctx.error(f"{key}.{coef}", f"{len(raw):,} coefficients; a controller here has at most "
+                                                 f"{MAX_DEGREE + 1} (degree {MAX_DEGREE})")
             out[coef] = [ctx.value({"v": v}, "v", f"{key}.{coef}", "number") for v in raw]
         for coef in ("b", "a"):  # the digits as written, for the printed precision of the coefficients
             out[f"{coef}_text"] = [v if isinstance(v, str) else float(v) for v in dig[coef]]
@@ -530,7 +534,7 @@ def _read_tolerances(ctx: _Ctx, table: dict, dotted: str, default) -> dict:
     for name in raw:
         value = ctx.fraction(raw, name, f"{dotted}.{name}", allow_one=False)
         if value >= 1:
-            raise ctx.error(f"{dotted}.{name}", f"a tolerance is a fraction below 100 %, found {raw[name]!r}")
+            raise ctx.error(f"{dotted}.{name}", f"a tolerance is a fraction below 100 %, found {excerpt(raw[name])}")
         out[name] = value
     return out
 
@@ -541,6 +545,16 @@ def _method_names() -> tuple[str, ...]:
     except ImportError:  # the digital package not built yet: accept the documented names
         return ("zoh", "foh", "tustin", "matched", "impulse", "forward-euler", "backward-euler")
     return tuple(METHODS)
+
+
+def _refuse_repeats(ctx: _Ctx, dotted: str, raw: list, values: tuple, what: str) -> None:
+    """A list of rates or methods names each entry once (a repeat doubled the work silently)."""
+    seen: dict = {}
+    for written, value in zip(raw, values):
+        if value in seen:
+            raise ctx.error(dotted, f"the {what} {excerpt(written, 30)} is given twice (as {excerpt(seen[value], 30)} "
+                                    "too); give each once")
+        seen[value] = written
 
 
 def _read_targets(ctx: _Ctx, data: dict, source: Source):
@@ -560,14 +574,28 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
         raw_fs = dig["fs"] if isinstance(dig["fs"], list) else [dig["fs"]]
         if not raw_fs:
             raise ctx.error(f"{key}.fs", "expected at least one sample rate")
+        if len(raw_fs) > MAX_RATES:
+            raise ctx.error(f"{key}.fs", f"{len(raw_fs):,} sample rates; a case takes at most {MAX_RATES} (each is a "
+                                         "full realization with its own loop checks and figures): split the study "
+                                         "into several case files (loopshift batch runs them together)")
         fs = tuple(ctx.value({"v": v}, "v", f"{key}.fs", "hz", positive=True, allow_zero=False) for v in raw_fs)
+        _refuse_repeats(ctx, f"{key}.fs", raw_fs, fs, "sample rate")
         raw_methods = dig.get("methods", ["tustin"])
         if isinstance(raw_methods, str):
             raw_methods = [raw_methods]
         if not isinstance(raw_methods, list) or not raw_methods:
-            raise ctx.error(f"{key}.methods", f"expected a list of method names, found {raw_methods!r}")
+            raise ctx.error(f"{key}.methods", f"expected a list of method names, found {excerpt(raw_methods)}")
         known = _method_names()
+        if len(raw_methods) > len(known):
+            raise ctx.error(f"{key}.methods", f"{len(raw_methods):,} methods, but there are {len(known)} "
+                                              f"({', '.join(known)}): give each at most once")
         methods = tuple(ctx.text({"v": m}, "v", f"{key}.methods", choices=known) for m in raw_methods)
+        _refuse_repeats(ctx, f"{key}.methods", raw_methods, methods, "method")
+        if len(fs) * len(methods) > MAX_RATE_METHOD_PAIRS:
+            raise ctx.error(f"{key}.methods", f"{len(fs)} sample rates x {len(methods)} methods = "
+                                              f"{len(fs) * len(methods)} realizations; a case takes at most "
+                                              f"{MAX_RATE_METHOD_PAIRS}: split the study into several case files "
+                                              "(loopshift batch runs them together)")
         if "delay" in dig and "delay_samples" in dig:
             raise ctx.error(f"{key}.delay_samples", "give delay (seconds) or delay_samples, not both")
         delay_s, delay_samples = ctx.delay(dig, "delay", f"{key}.delay")
@@ -619,9 +647,9 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
         seed = ctx.value(cir, "seed", f"{key}.seed", "number", 1.0, positive=True)
         for name, v in (("draws", draws), ("seed", seed)):
             if v != int(v):
-                raise ctx.error(f"{key}.{name}", f"expected a whole number, found {cir[name]!r}")
+                raise ctx.error(f"{key}.{name}", f"expected a whole number, found {excerpt(cir[name])}")
         if draws < 1:
-            raise ctx.error(f"{key}.draws", f"expected at least 1 Monte Carlo draw, found {cir['draws']!r}")
+            raise ctx.error(f"{key}.draws", f"expected at least 1 Monte Carlo draw, found {excerpt(cir['draws'])}")
         circuit = CircuitTarget(
             topology=ctx.text(cir, "topology", f"{key}.topology", default="auto"),
             resistors=ctx.text(cir, "resistors", f"{key}.resistors", default="E96", choices=series),
@@ -655,7 +683,7 @@ def _read_plant(ctx: _Ctx, data: dict) -> Plant | None:
     if model.is_digital:
         raise ctx.error("plant.model", "the plant is a continuous process: write its model in s")
     if not model.is_proper:
-        raise ctx.error("plant.model", f"the plant model must be proper (no more zeros than poles), found {text!r}")
+        raise ctx.error("plant.model", f"the plant model must be proper (no more zeros than poles), found {excerpt(text)}")
     dead = ctx.value(table, "dead_time", "plant.dead_time", "second", 0.0, positive=True)
     return Plant(model=model, expression=text, dead_time_s=dead)
 

@@ -232,3 +232,56 @@ def test_stat_helper_names_file_kinds(here):
     assert file_kind(here / "f") is None and file_kind(here / "absent") is None
     assert file_kind(here / "p") == "a named pipe (FIFO)" and file_kind("/dev/null") == "a character device"
     assert stat.S_ISCHR(os.stat("/dev/null").st_mode)
+
+
+# ----------------------------------------------------------------------------- case-list lengths
+_BASE_CASE = (os.path.join(os.path.dirname(os.path.dirname(os.path.abspath(__file__))), "cases",
+                           "slow_firmware_fails.toml"))
+
+
+def _case_with(fs: str, methods: str) -> str:
+    import re
+
+    with open(_BASE_CASE, encoding="utf-8") as fh:
+        text = fh.read()
+    text = re.sub(r'(?m)^fs = .*$', f"fs = {fs}", text, count=1)
+    return re.sub(r'(?m)^methods = .*$', f"methods = {methods}", text, count=1)
+
+
+def _toml_list(items) -> str:
+    return "[" + ", ".join(f'"{i}"' for i in items) + "]"
+
+
+@pytest.mark.parametrize("fs, methods, fragments", [
+    # an fs list of 1,000 entries ran for minutes
+    (_toml_list(f"{100 + i} Hz" for i in range(1000)), '["tustin"]', ("target.digital.fs", "1,000 sample rates", "32")),
+    # a methods list of 1,000 entries
+    ('"1 Hz"', _toml_list(["tustin", "zoh"] * 500), ("target.digital.methods", "1,000 methods", "each at most once")),
+    # duplicate methods doubled the work silently
+    ('"1 Hz"', '["tustin", "zoh", "tustin"]', ("target.digital.methods", "'tustin' is given twice")),
+    # the same rate written two ways
+    ('["1 Hz", "1000 mHz"]', '["tustin"]', ("target.digital.fs", "'1000 mHz' is given twice", "'1 Hz'")),
+    # rates x methods
+    (_toml_list(f"{i} Hz" for i in range(1, 11)), _toml_list(["tustin", "zoh", "foh", "matched", "impulse",
+                                                                "backward-euler", "forward-euler"]),
+     ("10 sample rates x 7 methods = 70 realizations", "64", "loopshift batch")),
+])
+def test_case_lists_are_bounded_and_repeats_refused(run_cli, here, fs, methods, fragments):
+    (here / "c.toml").write_text(_case_with(fs, methods), encoding="utf-8")
+    _one_line_error(run_cli("report", "c.toml", "--out", "r"), "c.toml:", *fragments)
+    assert not (here / "r").exists()
+
+
+def test_case_within_the_list_bounds_is_read():
+    from convert.case import parse_case
+
+    case = parse_case(_case_with(_toml_list(f"{i} Hz" for i in range(1, 9)), '["tustin", "zoh", "foh", "matched"]'),
+                      "c.toml")
+    assert len(case.digital.fs_hz) * len(case.digital.methods) == 32
+
+
+def test_digital_source_with_1000_coefficients_is_refused(run_cli, here):
+    text = ('[source.digital]\nb = [' + ", ".join(["0.001"] * 1000) + ']\na = [1, -0.5]\nfs = "1 kHz"\n'
+            '[target.circuit]\n')
+    (here / "d.toml").write_text(text, encoding="utf-8")
+    _one_line_error(run_cli("report", "d.toml", "--out", "r"), "source.digital.b", "1,000 coefficients", "101")
