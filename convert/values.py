@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import math
 import re
+import sys
 from decimal import Decimal, InvalidOperation
 
 from convert.errors import InputError
@@ -118,7 +119,7 @@ def parse_value(text: str | float | int, kind: str = "number", *, field: str = "
     rest = m.group("rest").replace(" ", "")
     multiplier, unit_kind = _split_prefix_unit(rest, kind, field, text)
     _check_number_text(m.group("num"), text, key=field, where=None)
-    value = _scaled(m.group("num"), multiplier)
+    value = _scaled(m.group("num"), multiplier, key=field)
     if unit_kind == "percent" and kind == "ratio":
         value /= 100.0
     _check_finite(value, field, kind, text)
@@ -166,12 +167,21 @@ def _check_number_text(number_text: str, shown: str, *, key: str, where: str | N
                          f"an exponent of ±{MAX_EXPONENT}; a finite value is needed)", where=where, key=key)
 
 
-def _scaled(number_text: str, multiplier: float) -> float:
-    """number × multiplier rounded once (so "2.2" × 1e-9 is exactly the float nearest 2.2e-9)."""
+def _scaled(number_text: str, multiplier: float, *, key: str = "value", where: str | None = None) -> float:
+    """number × multiplier rounded once (so "2.2" × 1e-9 is exactly the float nearest 2.2e-9).
+
+    A non-zero value below the smallest normal double (about 2.2e-308) is refused: it would
+    become 0 or lose its precision without a word (``1e-320`` as a part value divided by zero
+    further on)."""
     try:
-        return float(Decimal(number_text) * Decimal(repr(multiplier)))
+        exact = Decimal(number_text) * Decimal(repr(multiplier))
+        value = float(exact)
     except InvalidOperation:  # pragma: no cover - the regex admits only valid numbers
         return float(number_text) * multiplier
+    if exact != 0 and abs(value) < sys.float_info.min:
+        raise InputError(f"the number {excerpt(number_text, 20)} is too small to compute with (below "
+                         f"{sys.float_info.min:.3g}, the smallest normal floating-point number)", where=where, key=key)
+    return value
 
 
 def _check_finite(value: float, field: str, kind: str, shown: str) -> None:
@@ -329,9 +339,9 @@ def parse_spice_number(text: str, *, where: str = "netlist", field: str = "value
             if rest.startswith(suffix):
                 multiplier = _SPICE_SUFFIX[suffix]
                 break
-    value = _scaled(m.group("num"), multiplier)
+    value = _scaled(m.group("num"), multiplier, key=field, where=where)
     if not math.isfinite(value):
-        raise InputError(f"expected a finite number, found {token!r}", where=where, key=field)
+        raise InputError(f"expected a finite number, found {excerpt(token)}", where=where, key=field)
     return value
 
 
