@@ -44,8 +44,9 @@ def test_99_nested_parentheses_still_read(run_cli):
     assert result.code == 0, result.err
 
 
-def test_500_unary_minus_signs_are_refused(run_cli):
-    _one_line_error(run_cli("show", "1" + "-" * 500 + "s"), "nested more than 100 deep")
+def test_1000_unary_minus_signs_are_refused(run_cli):
+    """Was RecursionError (exit 3)."""
+    _one_line_error(run_cli("show", "1" + "-" * 1000 + "s"), "nested more than 100 deep")
 
 
 def test_a_million_character_unknown_option_is_echoed_as_a_short_excerpt(run_cli):
@@ -285,3 +286,11 @@ def test_digital_source_with_1000_coefficients_is_refused(run_cli, here):
             '[target.circuit]\n')
     (here / "d.toml").write_text(text, encoding="utf-8")
     _one_line_error(run_cli("report", "d.toml", "--out", "r"), "source.digital.b", "1,000 coefficients", "101")
+
+
+def test_part_value_1e_320_is_refused(run_cli, here):
+    """Found by the fuzz campaign: a subnormal part value (1e-320) reached the nodal analysis,
+    where R*C underflowed to 0 (ZeroDivisionError, exit 3)."""
+    path = _card(here, "tiny.cir", ["tiny", "VIN in 0 AC 1", "R1 in out 1e-320", "C1 out 0 1u"])
+    _one_line_error(run_cli("card", path), "tiny.cir:3", "R1", "too small", "2.23e-308")
+    _one_line_error(run_cli("digital", "1/(s+1)", "--fs", "1e-320"), "--fs", "too small")
