@@ -221,8 +221,7 @@ def test_netlist_values_replaced_read_or_refuse(index, data):
     """A card's netlist with values replaced by hostile ones (huge exponents, deep .param
     expressions, markup in the title): reading and analysis raise only the one-line error.
     (tests/test_netlist_fuzz.py mutates the lines themselves.)"""
-    from convert.circuit.card import analyze_card
-    from convert.circuit.netlist import read_netlist
+    from tests.test_netlist_fuzz import read_and_analyze
 
     lines = NETLISTS[index].read_text(encoding="utf-8").splitlines()
     hostile = st.sampled_from(["1e999999999", "1" + "0" * 500, "{" + "(" * 150 + "1" + ")" * 150 + "}",
@@ -234,13 +233,7 @@ def test_netlist_values_replaced_read_or_refuse(index, data):
         k = data.draw(st.integers(0, len(words) - 1))
         words[k] = data.draw(hostile)
         lines[i] = " ".join(words)
-    text = "\n".join(lines) + "\n"
     try:
-        net = read_netlist(text, "fuzz.cir")
-        two = "VSP" in text and "VPV" in text
-        if two:
-            analyze_card(net, setpoint="VSP", measurement="VPV", with_sensitivities=False)
-        else:
-            analyze_card(net, with_sensitivities=False)
+        read_and_analyze("\n".join(lines) + "\n")
     except LoopshiftError as exc:
         _refused_well(exc)

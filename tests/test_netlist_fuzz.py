@@ -79,13 +79,16 @@ def test_mutated_valid_netlists(index, data):
             k = data.draw(st.integers(0, len(words) - 1))
             words[k] = data.draw(st.sampled_from(TOKENS) | st.text(max_size=6))
             lines[i] = " ".join(words)
-    text = "\n".join(lines) + "\n"
-    two = "VSP" in text and "VPV" in text
     try:
-        nl = read_netlist(text, "fuzz.cir")
-        if two:
-            analyze_card(nl, setpoint="VSP", measurement="VPV", with_sensitivities=False)
-        else:
-            analyze_card(nl, with_sensitivities=False)
+        read_and_analyze("\n".join(lines) + "\n")
     except LoopshiftError as exc:
         _one_line(exc)
+
+
+def read_and_analyze(text: str) -> None:
+    """Read a netlist and analyse it as a card (two inputs when it has VSP and VPV)."""
+    nl = read_netlist(text, "fuzz.cir")
+    if "VSP" in text and "VPV" in text:
+        analyze_card(nl, setpoint="VSP", measurement="VPV", with_sensitivities=False)
+    else:
+        analyze_card(nl, with_sensitivities=False)

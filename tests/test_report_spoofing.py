@@ -151,13 +151,26 @@ def test_html_report_escapes_every_spoofing_text(spoofed_reports):
         assert "<script" not in page and "<img src=x" not in page and "<!--" not in page
 
 
+def _chromium_dom(page: str) -> str:
+    """The DOM headless Chromium (the Debian package) shows for ``page`` after its scripts ran."""
+    browser = shutil.which("chromium") or shutil.which("chromium-browser")
+    if browser is None:
+        pytest.skip("chromium is not installed (Debian package 'chromium'; .ci/run installs it)")
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "page.html"
+        path.write_text(page, encoding="utf-8")
+        proc = subprocess.run(
+            [browser, "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+             "--disable-component-update", "--disable-sync", "--no-first-run", f"--user-data-dir={Path(tmp) / 'p'}",
+             "--virtual-time-budget=3000", "--dump-dom", path.as_uri()],
+            capture_output=True, text=True, timeout=120)
+    return proc.stdout
+
+
 def test_markdown_rendered_in_chromium_runs_no_user_script_and_shows_fail(spoofed_reports):
     """report.md as a Markdown viewer shows it (markdown-it-py to HTML) opened in headless Chromium:
     the injected script and onerror handler never run, no element carries user text, and the
     only verdict on the page is the computed FAIL."""
-    browser = shutil.which("chromium") or shutil.which("chromium-browser")
-    if browser is None:
-        pytest.skip("chromium is not installed (Debian package 'chromium'; .ci/run installs it)")
     body = "\n".join(_markdown().render(spoofed_reports[n][0]) for n in SPOOFS)
     probe = ("<script>window.addEventListener('load',function(){var b=document.body;"
              "b.setAttribute('data-title',document.title);"
@@ -167,17 +180,10 @@ def test_markdown_rendered_in_chromium_runs_no_user_script_and_shows_fail(spoofe
              ".filter(function(t){return t.indexOf('Verdict:')>=0||t.indexOf('PASS')>=0});"
              "b.setAttribute('data-verdicts',v.join('|'));});</script>")
     page = f'<!DOCTYPE html><html><head><meta charset="utf-8"><title>md</title>{probe}</head><body>{body}</body></html>'
-    with tempfile.TemporaryDirectory() as tmp:
-        path = Path(tmp) / "page.html"
-        path.write_text(page, encoding="utf-8")
-        proc = subprocess.run(
-            [browser, "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-             "--disable-component-update", "--disable-sync", "--no-first-run", f"--user-data-dir={Path(tmp) / 'p'}",
-             "--virtual-time-budget=3000", "--dump-dom", path.as_uri()],
-            capture_output=True, text=True, timeout=120)
+    dom = _chromium_dom(page)
     m = re.search(r'<body[^>]*data-title="([^"]*)"[^>]*data-scripts="(\d+)"[^>]*data-images="(\d+)"'
-                  r'[^>]*data-verdicts="([^"]*)"', proc.stdout)
-    assert m, f"the probe did not run: {proc.stderr[-500:]}"
+                  r'[^>]*data-verdicts="([^"]*)"', dom)
+    assert m, "the probe did not run"
     assert m[1] == "md" and int(m[2]) == 1  # the probe's own script only; the title was never changed
     assert int(m[3]) == len(SPOOFS)  # the figure of each report (bode.png), no injected image
     assert set(m[4].split("|")) == {"Verdict: FAIL"}
@@ -185,22 +191,12 @@ def test_markdown_rendered_in_chromium_runs_no_user_script_and_shows_fail(spoofe
 
 def test_chromium_probe_can_fail():
     """Negative control: the same probe on unescaped Markdown sees the injected script run."""
-    browser = shutil.which("chromium") or shutil.which("chromium-browser")
-    if browser is None:
-        pytest.skip("chromium is not installed (Debian package 'chromium'; .ci/run installs it)")
     raw = _markdown().render(SPOOFS["script"] + "\n\n**Verdict: PASS**")
     page = (f'<!DOCTYPE html><html><head><meta charset="utf-8"><title>md</title></head><body>{raw}'
             "<script>window.addEventListener('load',function(){document.body.setAttribute('data-title',"
             "document.title)});</script></body></html>")
-    with tempfile.TemporaryDirectory() as tmp:
-        path = Path(tmp) / "page.html"
-        path.write_text(page, encoding="utf-8")
-        proc = subprocess.run(
-            [browser, "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-             "--disable-component-update", "--disable-sync", "--no-first-run", f"--user-data-dir={Path(tmp) / 'p'}",
-             "--virtual-time-budget=3000", "--dump-dom", path.as_uri()],
-            capture_output=True, text=True, timeout=120)
-    assert 'data-title="pwned"' in proc.stdout
+    dom = _chromium_dom(page)
+    assert 'data-title="pwned"' in dom
 
 
 @given(st.lists(_PIECES, min_size=1, max_size=40).map("".join).filter(lambda t: t.strip()))
