@@ -87,7 +87,7 @@ def run(args, console) -> int:
     with ExitStack() as stack:
         executor = stack.enter_context(_executor(args.scheduler, workers, len(files)))
         progress = stack.enter_context(Progress(
-            TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
+            TextColumn("{task.description}", markup=False), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
             console=console, transient=True, disable=not console.is_terminal))
         task = progress.add_task(f"{len(files)} cases on {workers} worker(s)", total=len(files))
 

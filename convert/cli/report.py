@@ -73,7 +73,7 @@ def run(args, console) -> int:
 
     from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
-    with Progress(TextColumn("{task.description}"), BarColumn(), TimeElapsedColumn(), console=console,
+    with Progress(TextColumn("{task.description}", markup=False), BarColumn(), TimeElapsedColumn(), console=console,
                   transient=True, disable=not console.is_terminal) as progress:
         task = progress.add_task(f"evaluating {case.name}", total=planned_steps(case) + 1)
 
