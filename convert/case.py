@@ -513,6 +513,11 @@ def _read_source(ctx: _Ctx, data: dict) -> Source:
         raise ctx.error(key, "missing file: the netlist's path, relative to the case file")
     file_path = (ctx.path.parent / file_name)
     if not file_path.is_file():
+        from convert.limits import file_kind
+
+        kind = file_kind(file_path)
+        if kind is not None:
+            raise ctx.error(f"{key}.file", f"{str(file_path)!r} is {kind}; a netlist must be a regular file")
         raise ctx.error(f"{key}.file", f"no such netlist file {str(file_path)!r} (paths are relative to the case file)")
     out = {
         "file": file_path,

@@ -294,3 +294,8 @@ def test_part_value_1e_320_is_refused(run_cli, here):
     path = _card(here, "tiny.cir", ["tiny", "VIN in 0 AC 1", "R1 in out 1e-320", "C1 out 0 1u"])
     _one_line_error(run_cli("card", path), "tiny.cir:3", "R1", "too small", "2.23e-308")
     _one_line_error(run_cli("digital", "1/(s+1)", "--fs", "1e-320"), "--fs", "too small")
+
+
+def test_case_naming_dev_zero_as_its_netlist_is_refused_as_a_device(run_cli, here):
+    (here / "zc.toml").write_text('[source]\nnetlist = "/dev/zero"\n[target.digital]\nfs = "1 kHz"\n')
+    _one_line_error(run_cli("report", "zc.toml", "--out", "r"), "zc.toml:2", "character device", "regular file")
