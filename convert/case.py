@@ -393,6 +393,8 @@ def parse_case(text: str, path: str | Path = "case.toml") -> Case:
         where = f"{path.name}:{m.group(1)}" if m else path.name
         message = re.sub(r"\s*\(at line \d+, column \d+\)", "", message)
         raise InputError(f"not valid TOML: {message}", where=where) from None
+    except ValueError:  # tomllib's int() of an integer longer than Python's 4,300-digit limit
+        raise InputError("not valid TOML for a case file: an integer of thousands of digits", where=path.name) from None
     return _case_from_data(data, _Ctx(path, text))
 
 

@@ -102,8 +102,15 @@ def parse_value(text: str | float | int, kind: str = "number", *, field: str = "
     if isinstance(text, bool):
         raise InputError(f"expected {KIND_NAMES[kind]}, found a boolean", key=field)
     if isinstance(text, (int, float)):
-        value = float(text)
-        _check_finite(value, field, kind, repr(text))
+        try:
+            value = float(text)
+        except OverflowError:  # an integer beyond the double range (a TOML integer of 400 digits)
+            raise InputError(f"expected a finite value ({KIND_NAMES[kind]}), found an integer of "
+                             f"{len(str(abs(text))):,} digits", key=field) from None
+        _check_finite(value, field, kind, excerpt(text))
+        if value != 0 and abs(value) < sys.float_info.min:
+            raise InputError(f"the number {excerpt(text, 20)} is too small to compute with (below "
+                             f"{sys.float_info.min:.3g}, the smallest normal floating-point number)", key=field)
         return value
     if not isinstance(text, str):
         raise InputError(f"expected {KIND_NAMES[kind]}, found {type(text).__name__}", key=field)

@@ -299,3 +299,12 @@ def test_part_value_1e_320_is_refused(run_cli, here):
 def test_case_naming_dev_zero_as_its_netlist_is_refused_as_a_device(run_cli, here):
     (here / "zc.toml").write_text('[source]\nnetlist = "/dev/zero"\n[target.digital]\nfs = "1 kHz"\n')
     _one_line_error(run_cli("report", "zc.toml", "--out", "r"), "zc.toml:2", "character device", "regular file")
+
+
+@pytest.mark.parametrize("digits, fragment", [(5000, "integer of thousands of digits"), (400, "integer of 400 digits")])
+def test_toml_integer_of_many_digits_is_refused(run_cli, here, digits, fragment):
+    """Found while probing case files: `kc = 111…1` (5,000 digits) was a ValueError inside tomllib
+    and 400 digits an OverflowError converting to float (both exit 3)."""
+    (here / "big.toml").write_text(f'[source.pid]\nkc = {"1" * digits}\nti = "30 s"\n[target.digital]\nfs = "1 kHz"\n'
+                                   '[criteria]\nband = ["1 mHz", "1 Hz"]\nmax_gain_error_db = 1\n')
+    _one_line_error(run_cli("report", "big.toml", "--out", "r"), "big.toml", fragment)
