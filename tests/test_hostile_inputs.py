@@ -73,7 +73,8 @@ def test_fs_with_a_5000_digit_exponent_is_refused(run_cli):
 
 def test_fs_1e_300_hz_is_refused_naming_fs(run_cli):
     """Was 'numerator: coefficients must be finite numbers, found [nan]' (naming no option)."""
-    _one_line_error(run_cli("digital", "1/(s+1)", "--fs", "1e-300Hz"), "fs", "not a finite number")
+    _one_line_error(run_cli("digital", "1/(s+1)", "--fs", "1e-300Hz"), "--fs", "not a finite number")
+    _one_line_error(run_cli("digital", "1/(s+1)", "--fs", "1e300Hz"), "--fs", "not a finite number")
 
 
 def test_s_plus_1_to_the_64_repeated_1000_times_is_refused_at_once(run_cli):

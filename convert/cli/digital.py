@@ -164,7 +164,7 @@ def run(args, console) -> int:
     controller, _pid = controller_from_args(args, fs_hz=fs)
     if controller.is_digital:
         raise InputError("the controller is already digital; use `loopshift analog` to go back", key="EXPR")
-    with at(None, rename={"prewarp": "--prewarp", "match_at_hz": "--match-at",
+    with at(None, rename={"fs": "--fs", "prewarp": "--prewarp", "match_at_hz": "--match-at",
                                          "filter_n": "--derivative-filter"}):
         survey = survey_methods(controller, fs, methods, prewarp_hz=prewarp, delay_s=delay, band_hz=band,
                                 match_at_hz=match_at, keep_delay=args.keep_delay, filter_n=filter_n,

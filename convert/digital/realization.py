@@ -186,14 +186,17 @@ def discretize(controller: Controller, fs_hz: float, method: str, *, prewarp_hz:
         warnings.append(f"{method}: keep_delay ignored (only matched uses it)")
 
     src = RootForm.of(controller)
-    if method == "tustin":
-        roots, notes = forward.tustin(controller, src, t, prewarp_hz)
-    elif method == "matched":
-        roots, notes = forward.matched(controller, src, t, match_at_hz, keep_delay)
-    else:
-        fn = {"zoh": forward.zoh, "foh": forward.foh, "impulse": forward.impulse,
-              "forward-euler": forward.forward_euler, "backward-euler": forward.backward_euler}[method]
-        roots, notes = fn(controller, src, t)
+    # an overflow or 0/0 here (fs far from every corner) shows as a non-finite root or gain,
+    # refused just below with one line naming fs, not as a numpy warning before it
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        if method == "tustin":
+            roots, notes = forward.tustin(controller, src, t, prewarp_hz)
+        elif method == "matched":
+            roots, notes = forward.matched(controller, src, t, match_at_hz, keep_delay)
+        else:
+            fn = {"zoh": forward.zoh, "foh": forward.foh, "impulse": forward.impulse,
+                  "forward-euler": forward.forward_euler, "backward-euler": forward.backward_euler}[method]
+            roots, notes = fn(controller, src, t)
     used_match = None
     if method == "matched" and (match_at_hz is not None or notes and "gain is matched at" in notes[-1]):
         used_match = match_at_hz if match_at_hz is not None else forward.default_match_frequency_hz(src, fs)[0]
