@@ -21,7 +21,6 @@ from __future__ import annotations
 
 import math
 import re
-import sys
 from decimal import Decimal, InvalidOperation
 
 from convert.errors import InputError
@@ -108,9 +107,7 @@ def parse_value(text: str | float | int, kind: str = "number", *, field: str = "
             raise InputError(f"expected a finite value ({KIND_NAMES[kind]}), found an integer of "
                              f"{len(str(abs(text))):,} digits", key=field) from None
         _check_finite(value, field, kind, excerpt(text))
-        if value != 0 and abs(value) < sys.float_info.min:
-            raise InputError(f"the number {excerpt(text, 20)} is too small to compute with (below "
-                             f"{sys.float_info.min:.3g}, the smallest normal floating-point number)", key=field)
+        _check_underflow(value, repr(text), field, repr(text))
         return value
     if not isinstance(text, str):
         raise InputError(f"expected {KIND_NAMES[kind]}, found {type(text).__name__}", key=field)
@@ -126,7 +123,7 @@ def parse_value(text: str | float | int, kind: str = "number", *, field: str = "
     rest = m.group("rest").replace(" ", "")
     multiplier, unit_kind = _split_prefix_unit(rest, kind, field, text)
     _check_number_text(m.group("num"), text, key=field, where=None)
-    value = _scaled(m.group("num"), multiplier, key=field)
+    value = _scaled(m.group("num"), multiplier)
     if unit_kind == "percent" and kind == "ratio":
         value /= 100.0
     _check_finite(value, field, kind, text)
@@ -156,12 +153,13 @@ def parse_fraction(text: str | float | int, *, field: str = "value", allow_one: 
     return value
 
 
-def _check_underflow(value: float, number_text: str, field: str, shown: str) -> None:
+def _check_underflow(value: float, number_text: str, field: str, shown: str, where: str | None = None) -> None:
     """A written non-zero number that is zero or subnormal in double (below about 2.2e-308) is
-    refused: it would silently become 0 or lose its digits."""
+    refused: it would silently become 0 or lose its digits (``1e-320`` as a netlist part value
+    divided by zero in the nodal analysis)."""
     if abs(value) < 2.2250738585072014e-308 and Decimal(number_text) != 0:
-        raise InputError(f"expected a number within double precision, found {shown.strip()!r}: too small "
-                         "(below about 2.2e-308)", key=field)
+        raise InputError(f"expected a number within double precision, found {excerpt(shown)}: too small "
+                         "(below about 2.2e-308)", where=where, key=field)
 
 
 def _check_number_text(number_text: str, shown: str, *, key: str, where: str | None) -> None:
@@ -174,21 +172,12 @@ def _check_number_text(number_text: str, shown: str, *, key: str, where: str | N
                          f"an exponent of ±{MAX_EXPONENT}; a finite value is needed)", where=where, key=key)
 
 
-def _scaled(number_text: str, multiplier: float, *, key: str = "value", where: str | None = None) -> float:
-    """number × multiplier rounded once (so "2.2" × 1e-9 is exactly the float nearest 2.2e-9).
-
-    A non-zero value below the smallest normal double (about 2.2e-308) is refused: it would
-    become 0 or lose its precision without a word (``1e-320`` as a part value divided by zero
-    further on)."""
+def _scaled(number_text: str, multiplier: float) -> float:
+    """number × multiplier rounded once (so "2.2" × 1e-9 is exactly the float nearest 2.2e-9)."""
     try:
-        exact = Decimal(number_text) * Decimal(repr(multiplier))
-        value = float(exact)
+        return float(Decimal(number_text) * Decimal(repr(multiplier)))
     except InvalidOperation:  # pragma: no cover - the regex admits only valid numbers
         return float(number_text) * multiplier
-    if exact != 0 and abs(value) < sys.float_info.min:
-        raise InputError(f"the number {excerpt(number_text, 20)} is too small to compute with (below "
-                         f"{sys.float_info.min:.3g}, the smallest normal floating-point number)", where=where, key=key)
-    return value
 
 
 def _check_finite(value: float, field: str, kind: str, shown: str) -> None:
@@ -346,7 +335,8 @@ def parse_spice_number(text: str, *, where: str = "netlist", field: str = "value
             if rest.startswith(suffix):
                 multiplier = _SPICE_SUFFIX[suffix]
                 break
-    value = _scaled(m.group("num"), multiplier, key=field, where=where)
+    value = _scaled(m.group("num"), multiplier)
+    _check_underflow(value, m.group("num"), field, token, where)
     if not math.isfinite(value):
         raise InputError(f"expected a finite number, found {excerpt(token)}", where=where, key=field)
     return value
