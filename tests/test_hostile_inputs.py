@@ -309,3 +309,11 @@ def test_toml_integer_of_many_digits_is_refused(run_cli, here, digits, fragment)
     (here / "big.toml").write_text(f'[source.pid]\nkc = {"1" * digits}\nti = "30 s"\n[target.digital]\nfs = "1 kHz"\n'
                                    '[criteria]\nband = ["1 mHz", "1 Hz"]\nmax_gain_error_db = 1\n')
     _one_line_error(run_cli("report", "big.toml", "--out", "r"), "big.toml", fragment)
+
+
+@pytest.mark.parametrize("option", ["--log", "--sweep"])
+def test_evidence_csv_from_a_device_or_fifo_is_refused(run_cli, here, option):
+    """An evidence CSV of /dev/zero has no line end: reading its header would never return."""
+    _one_line_error(run_cli("compare", "1/s", option, "/dev/zero"), "/dev/zero", "regular file")
+    os.mkfifo(here / "pipe.csv")
+    _one_line_error(run_cli("compare", "1/s", option, "pipe.csv"), "named pipe")

@@ -88,6 +88,11 @@ def split_header(text: str) -> tuple[str, str | None]:
 
 
 def _open(path: Path):
+    from convert.limits import file_kind
+
+    kind = file_kind(path)
+    if kind is not None and kind != "a folder":  # /dev/zero has no line end: readline would never return
+        raise InputError(f"expected a CSV file (a regular file), found {kind}", where=str(path))
     try:
         return open(path, newline="", encoding="utf-8-sig")
     except FileNotFoundError:
