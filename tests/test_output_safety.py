@@ -155,13 +155,15 @@ def test_three_outputs_are_written_all_or_none(run_cli, here, monkeypatch):
         raise OSError(28, "No space left on device", path)
 
     monkeypatch.setattr(schematic, "design_schematic", full_disk)
-    argv = ["circuit", PI, "--netlist", "pi.cir", "--bom", "pi.csv", "--schematic", "pi.svg", "--draws", "0"]
+    argv = ["circuit", PI, "--netlist", "pi.cir", "--bom", "pi.csv", "--buy-list", "buy.json", "--schematic", "pi.svg",
+            "--draws", "0"]
     _error(run_cli(*argv), "--schematic", "No space left on device", "nothing was written")
     assert sorted(os.listdir(here)) == []
-    for name in ("pi.cir", "pi.csv", "pi.svg"):
+    names = ("pi.cir", "pi.csv", "buy.json", "pi.svg")
+    for name in names:
         (here / name).write_text("earlier " + name)
     _error(run_cli(*argv, "--force"), "--schematic", "nothing was written")
-    assert {p.name: p.read_text() for p in here.iterdir()} == {n: "earlier " + n for n in ("pi.cir", "pi.csv", "pi.svg")}
+    assert {p.name: p.read_text() for p in here.iterdir()} == {n: "earlier " + n for n in names}
 
 
 def test_a_failing_rename_puts_the_earlier_files_back(run_cli, here, monkeypatch):
