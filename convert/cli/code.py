@@ -180,6 +180,8 @@ def run(args, console) -> int:
     note = (f"output limits {lim[0]:.4g} .. {lim[1]:.4g} V from the card's clamps (--output-limits overrides them)"
             if getattr(args, "limits_from_card", False) and lim else None)
     _render(console, pick, every, why, paths, word, sc.text if sc else None, note)
+    for link in getattr(args, "link_notes", ()):
+        console.print(f"note: {link}", markup=False)
     return 0 if ok else 1
 
 
@@ -187,7 +189,7 @@ def _write(args, files: dict) -> dict:
     """Write ``files`` into ``--out`` (created if missing; existing files only with --force)."""
     import os
 
-    from convert.cli.common import check_output_files, write_text_atomic
+    from convert.cli.common import check_output_files, write_outputs
     from convert.errors import InputError
 
     if not args.out or not files:
@@ -196,9 +198,9 @@ def _write(args, files: dict) -> dict:
         raise InputError(f"{args.out!r} is a file; give a folder", key="--out")
     os.makedirs(args.out, exist_ok=True)
     paths = {n: os.path.join(args.out, n) for n in files}
-    check_output_files({f"--out {n}": p for n, p in paths.items()}, force=args.force)
-    for n, p in paths.items():
-        write_text_atomic(p, files[n])
+    outputs = check_output_files({f"--out {n}": p for n, p in paths.items()}, force=args.force)
+    write_outputs(outputs, {f"--out {n}": text for n, text in files.items()})  # all or none (.h with its .c)
+    args.link_notes = [o.note for o in outputs if o.note]  # a link is written through: said after "wrote"
     return paths
 
 
