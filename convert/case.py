@@ -48,7 +48,7 @@ SCHEMA: dict[str, Any] = {
         },
         "circuit": {
             "topology": 1, "resistors": 1, "capacitors": 1, "tolerances": None, "resistor_range": 1,
-            "capacitor_range": 1, "draws": 1, "seed": 1, "opamp_gbw": 1,
+            "capacitor_range": 1, "draws": 1, "seed": 1, "distribution": 1, "opamp_gbw": 1,
         },
         "given": None,  # forms that exist, one table per name: checked by convert.given
     },
@@ -120,8 +120,9 @@ class CircuitTarget:
     tolerances: dict = field(default_factory=lambda: {"R": 0.01, "C": 0.05})
     resistor_range: tuple[float, float] = (1e3, 1e6)
     capacitor_range: tuple[float, float] = (100e-12, 10e-6)
-    draws: int = 2000
+    draws: int = 10000  # convert.circuit.tolerance.DEFAULT_DRAWS
     seed: int = 1
+    distribution: str = "uniform"  # convert.circuit.tolerance.DEFAULT_DISTRIBUTION
     opamp_gbw_hz: float | None = None
     where: str = ""
 
@@ -650,13 +651,18 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
         key = "target.circuit"
         ctx.check_keys(cir, SCHEMA["target"]["circuit"], key)
         series = ("E6", "E12", "E24", "E48", "E96", "E192")
-        draws = ctx.value(cir, "draws", f"{key}.draws", "number", 2000.0, positive=True)
+        from convert.circuit.tolerance import DEFAULT_DISTRIBUTION, DEFAULT_DRAWS, DISTRIBUTIONS, MAX_DRAWS
+
+        draws = ctx.value(cir, "draws", f"{key}.draws", "number", float(DEFAULT_DRAWS), positive=True)
         seed = ctx.value(cir, "seed", f"{key}.seed", "number", 1.0, positive=True)
         for name, v in (("draws", draws), ("seed", seed)):
             if v != int(v):
                 raise ctx.error(f"{key}.{name}", f"expected a whole number, found {excerpt(cir[name])}")
         if draws < 1:
             raise ctx.error(f"{key}.draws", f"expected at least 1 Monte Carlo draw, found {excerpt(cir['draws'])}")
+        if draws > MAX_DRAWS:
+            raise ctx.error(f"{key}.draws", f"expected at most {MAX_DRAWS:,} Monte Carlo draws (the limit keeps a run "
+                                            f"within about 1 GB), found {excerpt(cir['draws'])}")
         circuit = CircuitTarget(
             topology=ctx.text(cir, "topology", f"{key}.topology", default="auto"),
             resistors=ctx.text(cir, "resistors", f"{key}.resistors", default="E96", choices=series),
@@ -666,6 +672,8 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
             capacitor_range=ctx.pair(cir, "capacitor_range", f"{key}.capacitor_range", "farad", (100e-12, 10e-6),
                                      positive=True),
             draws=int(draws), seed=int(seed),
+            distribution=ctx.text(cir, "distribution", f"{key}.distribution", default=DEFAULT_DISTRIBUTION,
+                                  choices=DISTRIBUTIONS),
             opamp_gbw_hz=ctx.value(cir, "opamp_gbw", f"{key}.opamp_gbw", "hz", None, positive=True, allow_zero=False),
             where=ctx.where(key),
         )

@@ -540,18 +540,21 @@ def _assignment_notes(wanted_params: dict, found: list, how: str) -> list[str]:
 # ----------------------------------------------------------------------------------- error sources
 
 
-def error_sources(design: CircuitDesign, *, tolerances: Mapping[str, float] | None = None, draws: int = 10000,
-                  seed: int = 1, distribution: str = "uniform", opamp=None, amplitude_v: float | None = None,
+def error_sources(design: CircuitDesign, *, tolerances: Mapping[str, float] | None = None, draws: int | None = None,
+                  seed: int = 1, distribution: str | None = None, opamp=None, amplitude_v: float | None = None,
                   rail_v: float | None = None, points_per_decade: int = 50) -> dict:
     """Each error source alone, over the design's band, as plain numbers (dB, degrees, Hz).
 
     Rows: ``rounding`` (series values: response error, design quantities, corners),
-    ``derivative_filter`` (the filter the circuit adds, if any), ``tolerance`` (Monte Carlo
-    percentiles and worst-case corners), ``opamp`` (finite gain-bandwidth; output swing when an
+    ``derivative_filter`` (the filter the circuit adds, if any), ``tolerance`` (the tolerance
+    engine's figures — 99th percentile over the draws of each draw's largest gain and phase error
+    over the band against the rounded parts, on the same band grid as ``loopshift report`` —, the
+    0.5/99.5 % bands and design quantities, and worst-case corners; ``draws=0`` skips it; defaults
+    from :mod:`convert.circuit.tolerance`), ``opamp`` (finite gain-bandwidth; output swing when an
     amplitude and rail are given), and for two-input stages ``setpoint_path``.
     """
     from convert.circuit.opamp import OpAmpModel, gbw_response, swing_check
-    from convert.circuit.tolerance import DEFAULT_TOLERANCES, monte_carlo, worst_case
+    from convert.circuit.tolerance import DEFAULT_TOLERANCES, worst_case
     from convert.compare.frequency import compare_controllers, compare_responses
 
     f = design.f_grid(points_per_decade)
@@ -585,8 +588,8 @@ def error_sources(design: CircuitDesign, *, tolerances: Mapping[str, float] | No
                                 "target": {"num": list(sp_t.num), "den": list(sp_t.den)},
                                 "realized": {"num": list(sp_r.num), "den": list(sp_r.den)}}
     tol = dict(DEFAULT_TOLERANCES if tolerances is None else tolerances)
-    if draws:
-        mc = monte_carlo(topo, design.rounded, tol, f, draws=draws, seed=seed, distribution=distribution)
+    if draws != 0:
+        mc = tolerance_run(design, tol, draws=draws, seed=seed, distribution=distribution)
         wc = worst_case(topo, design.rounded, tol, f)
         out["tolerance"] = {"monte_carlo": mc.summary(), "worst_case": wc.summary()}
     if opamp is not None and not opamp.ideal:
@@ -600,3 +603,21 @@ def error_sources(design: CircuitDesign, *, tolerances: Mapping[str, float] | No
                          opamp or OpAmpModel())
         out.setdefault("opamp", {})["swing"] = sw.summary()
     return out
+
+
+def tolerance_run(design: CircuitDesign, tolerances: Mapping[str, float], *, draws: int | None = None, seed: int = 1,
+                  distribution: str | None = None):
+    """The Monte Carlo of the design's rounded parts (ideal op-amp) by the one tolerance engine,
+    with the comparison ``loopshift report`` calls its "tolerances" row: the draws against the
+    rounded parts, over the design band on the report's band grid (100 points per decade).
+    Returns :class:`convert.circuit.tolerance.ToleranceRun`."""
+    from convert.circuit.tolerance import DEFAULT_DISTRIBUTION, DEFAULT_DRAWS, Comparison, run_tolerances
+    from convert.compare.frequency import log_grid
+
+    band = log_grid(design.band_hz[0], design.band_hz[1], 100)
+    rounded = {k: np.asarray([v]) for k, v in design.rounded.items()}
+    reference = design.sign * design.topology.response(rounded, band)[0]
+    return run_tolerances(design.topology, design.rounded, tolerances, band_f_hz=band,
+                          comparisons=[Comparison("tolerances", reference)],
+                          draws=DEFAULT_DRAWS if draws is None else draws, seed=seed,
+                          distribution=distribution or DEFAULT_DISTRIBUTION, sign=design.sign, display_f_hz=band)

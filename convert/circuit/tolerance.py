@@ -1,4 +1,4 @@
-"""Part tolerances: Monte Carlo (seeded, vectorized) and worst-case corners from sensitivities.
+"""Part tolerances: one Monte Carlo engine (seeded, chunked, bounded memory) and worst-case corners.
 
 Tolerances are fractions per part kind (``"R"``, ``"C"``) or per part name (``"R3"``), e.g.
 ``{"R": 0.01, "C": 0.05}``. A draw sets each part to ``nominal · (1 + t·u)``:
@@ -7,30 +7,63 @@ Tolerances are fractions per part kind (``"R"``, ``"C"``) or per part name (``"R
   equally likely, the usual assumption when nothing is known of the maker's spread;
 * ``distribution="normal"``: u normal with σ = 1/3, the tolerance read as a 3σ limit.
 
-The Monte Carlo returns percentiles (default 0.5 / 50 / 99.5 %) of the gain (dB) and phase (deg)
-of the positive form F(j2πf), over the frequencies, and of each design quantity of the topology.
-Percentiles are linear-interpolated order statistics (numpy's default ``method="linear"``).
+Every command that draws parts (``loopshift circuit``, ``loopshift report``) goes through
+:func:`run_tolerances`, so one design, seed, draw count and distribution give one set of figures.
+Defaults (:data:`DEFAULT_DRAWS` = 10,000, uniform, :data:`FIGURE_PERCENTILE` = 99 %) are the same
+everywhere; :data:`MAX_DRAWS` = 1,000,000 is the cap on the command line and in case files.
 
-How it is fast: the responses are evaluated for all draws at once from the topology's polynomial
-coefficients, split into real and imaginary parts (s = jω); the gain and phase percentiles are
-taken on quantities monotone in them — |H/H_nom|² and tan(∠H − ∠H_nom) — so log10 and arctan run
-on the few selected order statistics only, not on every draw. The tan shortcut needs the phase
-deviation inside ±90°, which is checked (the exact arctan2 path is used otherwise).
+The figures (one definition each, see docs/circuits.md "Part tolerances")
+--------------------------------------------------------------------------
+* **max gain error** / **max phase error** of a comparison: for each draw, the largest |gain
+  error| (dB) and |phase error| (deg, unwrapped along frequency) over the band grid against the
+  comparison's reference response; the figure is the 99th percentile of these per-draw maxima
+  (linear interpolation between order statistics, numpy's default). ``*_at_hz`` is where the draw
+  at that percentile (the nearer order statistic) has its largest error.
+* **margin changes** (with a plant): per draw, the loop's phase margin, gain margin and sensitivity
+  peak minus the reference loop's; the figure is the 99th percentile of |change| over the draws
+  that have the figure, signed as the draw nearest that level.
+* **band**: per frequency, the 0.5 % and 99.5 % percentiles of gain (dB) and phase (deg) across
+  the draws — 99 % of draws lie inside. No median: it is the one percentile a streaming
+  selection cannot keep in bounded memory, and the nominal curve is drawn instead.
+* **design quantities**: 0.5 % and 99.5 % percentiles of each quantity the parts set.
+
+How it runs in bounded memory
+-----------------------------
+Draws are made and reduced in chunks (:data:`DEFAULT_CHUNK` draws). Each part has its own random
+stream (spawned from the seed), so the draws — and every figure — are the same whatever the chunk
+size. A chunk is reduced at once to the per-draw figures; the percentiles need only the tail of
+each distribution (e.g. the top 1 % + 2 values for a 99th percentile), kept by an exact streaming
+selection (a threshold comparison, then a partition of the few values above it; no sort of all
+draws). Memory is O(chunk × frequencies + draws / 100) — at 1e6 draws the tails hold about 1 %.
+
+Arithmetic: without an op-amp model the responses come from the topology's polynomial
+coefficients in float32 real arithmetic (s = jω scaled by the grid's geometric-mean frequency),
+as the ratio to the reference; the gain is taken on |ratio|² and the phase on a rational
+"diamond" angle of the ratio, both monotone, so logarithms and arctangents run only on per-draw
+figures and selected order statistics. Bound (tested against the float64 path in
+tests/test_circuit_tolerance.py): 1e-3 dB and 1e-3° on every figure. Loop margins and op-amp
+models run in float64.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
-from typing import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Callable, Iterator, Mapping, Sequence
 
 import numpy as np
 
 from convert.errors import InputError
 
 DEFAULT_TOLERANCES = {"R": 0.01, "C": 0.05}
-
-
+DEFAULT_DRAWS = 10_000
+MAX_DRAWS = 1_000_000
+DEFAULT_DISTRIBUTION = "uniform"
+DISTRIBUTIONS = ("uniform", "normal")
+FIGURE_PERCENTILE = 99.0
+BAND_PERCENTILES = (0.5, 99.5)
+DEFAULT_CHUNK = 2048
+FLOAT32_BOUND = 1e-3  # dB and degrees: float32 figures against float64 (tested)
 def parse_tolerances(words: Sequence[str] | None, *, part_names: Sequence[str] = (), where: str = "--tolerance"
                      ) -> dict[str, float]:
     """Read ``["R=1%", "C=5%", "R3=0.1%"]`` into fractions; defaults R 1 %, C 5 %."""
@@ -61,222 +94,668 @@ def tolerance_of(part, tolerances: Mapping[str, float]) -> float:
     return float(tolerances.get(part.name, tolerances.get(part.kind, 0.0)))
 
 
-def draw_parts(topology, parts: Mapping[str, float], tolerances: Mapping[str, float], draws: int, seed: int,
-               distribution: str = "uniform") -> dict[str, np.ndarray]:
-    """``draws`` part sets around ``parts`` -> name -> array (draws,). Open parts stay open."""
-    if not (isinstance(draws, (int, np.integer)) and draws >= 1):
-        raise InputError(f"the number of draws must be a positive integer, found {draws!r}", key="draws")
-    if distribution not in ("uniform", "normal"):
+def check_draws(draws, key: str = "draws", *, allow_zero: bool = False) -> int:
+    """``draws`` as an int in 1..MAX_DRAWS (0 allowed with ``allow_zero``), else InputError."""
+    low = 0 if allow_zero else 1
+    if isinstance(draws, bool) or not isinstance(draws, (int, np.integer)) or not (low <= draws <= MAX_DRAWS):
+        raise InputError(f"the number of draws must be a whole number from {low} to {MAX_DRAWS:,} (the limit keeps a "
+                         f"run within about 1 GB), found {draws!r}", key=key)
+    return int(draws)
+
+
+def _check_distribution(distribution: str) -> str:
+    if distribution not in DISTRIBUTIONS:
         raise InputError(f"unknown distribution {distribution!r}; expected uniform or normal", key="distribution")
-    checked = topology.check_parts(parts)
-    rng = np.random.default_rng(seed)
-    out = {}
-    for p in topology.parts:
-        nominal = float(checked[p.name])
-        t = tolerance_of(p, tolerances)
-        if not math.isfinite(nominal) or nominal == 0 or t == 0:
-            out[p.name] = np.full(draws, nominal)
-            continue
-        u = rng.uniform(-1.0, 1.0, draws) if distribution == "uniform" else rng.standard_normal(draws) / 3.0
-        out[p.name] = nominal * (1.0 + t * u)
-    return out
+    return distribution
 
 
-# ----------------------------------------------------------------------------------- percentiles
+class PartDraws:
+    """Seeded part draws delivered in chunks; the values do not depend on the chunk size.
+
+    Each part with a tolerance has its own generator spawned from ``seed`` (numpy's
+    ``SeedSequence.spawn``, in the topology's part order), read sequentially. Open parts (∞ or 0)
+    and parts without tolerance stay at their nominal value."""
+
+    def __init__(self, topology, parts: Mapping[str, float], tolerances: Mapping[str, float], seed: int,
+                 distribution: str = DEFAULT_DISTRIBUTION):
+        _check_distribution(distribution)
+        checked = topology.check_parts(parts)
+        self.names = [p.name for p in topology.parts]
+        self.nominal = {p.name: float(checked[p.name]) for p in topology.parts}
+        self.tol = {p.name: tolerance_of(p, tolerances) for p in topology.parts}
+        streams = np.random.SeedSequence(int(seed)).spawn(len(self.names))
+        self.rng = {n: np.random.default_rng(s) for n, s in zip(self.names, streams)}
+        self.distribution = distribution
+
+    def take(self, n: int) -> dict[str, np.ndarray]:
+        """The next ``n`` draws: name -> array (n,)."""
+        out = {}
+        for name in self.names:
+            nominal, t = self.nominal[name], self.tol[name]
+            if not math.isfinite(nominal) or nominal == 0 or t == 0:
+                out[name] = np.full(n, nominal)
+                continue
+            rng = self.rng[name]
+            u = rng.uniform(-1.0, 1.0, n) if self.distribution == "uniform" else rng.standard_normal(n) / 3.0
+            out[name] = nominal * (1.0 + t * u)
+        return out
+
+    def chunks(self, draws: int, chunk: int) -> Iterator[dict[str, np.ndarray]]:
+        for start in range(0, draws, chunk):
+            yield self.take(min(chunk, draws - start))
 
 
-def _select(x: np.ndarray, ks: list[int]) -> None:
-    """Partition x along its last axis so every k in ks holds its order statistic.
-
-    One kth per call, splitting left and right views recursively: numpy's partition with a list
-    of kth is several times slower than this for a few kth over long rows.
-    """
-    if not ks:
-        return
-    mid = len(ks) // 2
-    k = ks[mid]
-    x.partition(k, axis=-1)
-    _select(x[..., :k], ks[:mid])
-    _select(x[..., k + 1:], [j - k - 1 for j in ks[mid + 1:]])
+def draw_parts(topology, parts: Mapping[str, float], tolerances: Mapping[str, float], draws: int, seed: int,
+               distribution: str = DEFAULT_DISTRIBUTION) -> dict[str, np.ndarray]:
+    """All ``draws`` part sets at once (name -> array (draws,)): the same values the engine draws in
+    chunks. For small draw counts (tests, a python-control cross-check)."""
+    return PartDraws(topology, parts, tolerances, seed, distribution).take(check_draws(draws))
 
 
-def _order_stats(x: np.ndarray, ks: np.ndarray) -> dict[int, np.ndarray]:
-    """Order statistics ``ks`` and each k−1 along the last axis; x is reordered in place."""
-    n = x.shape[-1]
-    his = [int(k) for k in np.unique(np.clip(ks, 0, n - 1))]
-    _select(x, his)
-    out: dict[int, np.ndarray] = {}
-    prev = -1
-    for k in his:
-        out[k] = x[..., k].copy()
-        if k - 1 > prev:
-            out[k - 1] = np.max(x[..., prev + 1:k], axis=-1)
-        prev = k
-    return out
+# ----------------------------------------------------------------------------------- selection
 
 
-def percentiles(x: np.ndarray, q: Sequence[float], transform=None) -> np.ndarray:
-    """Percentiles ``q`` (0–100) of x along its last axis, as ``np.percentile(transform(x), q)``
-    for a monotone increasing ``transform`` (applied to the selected order statistics only).
-    Reorders x in place. Returns shape (len(q),) + x.shape[:-1]."""
-    n = x.shape[-1]
-    h = np.asarray(q, dtype=float) / 100.0 * (n - 1)
-    lo = np.floor(h).astype(int)
-    hi = np.minimum(lo + 1, n - 1)
-    frac = h - lo
-    stats = _order_stats(x, hi)
+class TailSelection:
+    """Exact streaming selection of the ``m`` largest values in each row of a stream of blocks.
+
+    ``add(x)`` takes (rows, n); values not above the row's m-th largest (as of the last merge)
+    are dropped by one comparison; the rest wait and are merged by one partition of
+    (rows, m + waiting) once about m have gathered. Non-finite values: NaN is never kept; +inf is
+    kept (it ranks above everything) when ``keep_inf``. With ``payload`` each value carries an
+    integer (the draw number, increasing along the stream) and ties rank the earlier payload
+    higher, so the kept set is the same however the stream is cut."""
+
+    def __init__(self, rows: int, m: int, *, keep_inf: bool = False, payload: bool = False, lower: bool = False):
+        self.m = max(int(m), 1)
+        self.vals = np.full((rows, self.m), -np.inf)  # lower tail: the negated values
+        self.count = np.zeros(rows, dtype=np.int64)
+        self.keep_inf = keep_inf
+        self.lower = lower
+        self.pay = np.full((rows, self.m), -1, dtype=np.int64) if payload else None
+        self._thr = self.vals[:, :1].copy()
+        self._wait: list = []
+        self._wait_pay: list = []
+        self._waiting = 0
+
+    def add(self, x: np.ndarray, payload: np.ndarray | None = None, *, finite: bool = False) -> np.ndarray:
+        """Take the block ``x`` (rows, n); ``finite=True`` when the caller knows every value is finite.
+        Returns the columns of row 0 that may still be selected (the others are out for good)."""
+        x = np.asarray(x)
+        rows, n = x.shape
+        if finite or np.isfinite(x.sum(axis=1)).all():  # a fast reduction finds blocks that need a look
+            self.count += n
+            bad = None
+        else:
+            bad = ~np.isfinite(x) if not self.keep_inf else np.isnan(x)
+            if self.lower and self.keep_inf:
+                bad |= np.isposinf(x)  # +inf is the bottom of a lower tail: never kept, still counted
+                self.count += n - np.count_nonzero(np.isnan(x), axis=1)
+            else:
+                self.count += n - np.count_nonzero(bad, axis=1)
+        thr = self._thr.astype(x.dtype)
+        mask = (x < -thr) if self.lower else (x > thr)
+        if bad is not None:
+            mask &= ~bad
+        if self.pay is None and self._thr.min() == -np.inf:  # the first block: everything is a candidate
+            cand = np.where(mask, -x if self.lower else x, -np.inf).astype(float)
+            self._wait.append(cand)
+            self._waiting += n
+            if self._waiting >= self.m:
+                self._merge()
+            return np.flatnonzero(mask[0])
+        idx = np.flatnonzero(mask)
+        if idx.size == 0:
+            return idx
+        r_idx = idx // n
+        c_idx = idx - r_idx * n
+        counts = np.bincount(r_idx, minlength=rows)
+        c = int(counts.max())
+        starts = np.cumsum(counts) - counts
+        pos = np.arange(r_idx.size) - starts[r_idx]
+        cand = np.full((rows, c), -np.inf)
+        vals = x.ravel()[idx].astype(float)
+        cand[r_idx, pos] = -vals if self.lower else vals
+        if self.pay is not None:
+            cp = np.full((rows, c), -1, dtype=np.int64)
+            cp[r_idx, pos] = payload[c_idx]
+            self._wait_pay.append(cp)
+        self._wait.append(cand)
+        self._waiting += c
+        if self._waiting >= self.m:
+            self._merge()
+        return c_idx[r_idx == 0]
+
+    def _merge(self) -> None:
+        if not self._wait:
+            return
+        merged = np.concatenate([self.vals] + self._wait, axis=1)
+        self._wait, self._waiting = [], 0
+        if self.pay is None:
+            k = merged.shape[1] - self.m
+            self.vals = np.partition(merged, k, axis=1)[:, k:]
+        else:
+            mp = np.concatenate([self.pay] + self._wait_pay, axis=1)
+            self._wait_pay = []
+            big = np.iinfo(np.int64).max
+            for r in range(merged.shape[0]):  # payload rows are few (scalar figures): a sort with a tie rule
+                order = np.lexsort((np.where(mp[r] < 0, big, mp[r]), -merged[r]))[:self.m]
+                self.vals[r], self.pay[r] = merged[r, order], mp[r, order]
+        self._thr = self.vals.min(axis=1, keepdims=True)
+
+    def held(self) -> np.ndarray:
+        """Payloads of row 0 kept or waiting (the draws that may still be selected)."""
+        return np.concatenate([self.pay[0]] + [w[0] for w in self._wait_pay])
+
+    def sorted_desc(self) -> tuple[np.ndarray, np.ndarray | None]:
+        """The kept values, largest first (rows, m), and their payloads."""
+        self._merge()
+        if self.pay is None:
+            return -np.sort(-self.vals, axis=1), None
+        order = np.lexsort((np.where(self.pay < 0, np.iinfo(np.int64).max, self.pay), -self.vals), axis=1)
+        return np.take_along_axis(self.vals, order, 1), np.take_along_axis(self.pay, order, 1)
+
+
+def _upper_need(q: float, n: int) -> int:
+    """How many of the largest values the q-th percentile of n values needs."""
+    return n - int(math.floor(q / 100.0 * (n - 1))) if n else 1
+
+
+def _upper_percentile(sel: TailSelection, q: float, transform=None):
+    """The q-th percentile per row (numpy's linear method) from the kept top values, the
+    transform applied to the two order statistics first; with the payload of the nearer one.
+    Rows with no value give NaN (payload -1)."""
+    top, pay = sel.sorted_desc()
     tf = transform or (lambda v: v)
-    rows = []
-    for lo_i, hi_i, fr in zip(lo, hi, frac):
-        a = tf(stats[int(lo_i)])
-        b = tf(stats[int(hi_i)])
-        rows.append(a + fr * (b - a))
-    return np.array(rows)
+    out, nearest = np.full(top.shape[0], np.nan), np.full(top.shape[0], -1, dtype=np.int64)
+    for r, n in enumerate(sel.count):
+        if n == 0:
+            continue
+        h = q / 100.0 * (n - 1)
+        lo = int(math.floor(h))
+        hi = min(lo + 1, n - 1)
+        a, b = tf(top[r, n - 1 - lo]), tf(top[r, n - 1 - hi])
+        out[r] = a + (h - lo) * (b - a)
+        if pay is not None:
+            nearest[r] = pay[r, n - 1 - (lo if h - lo <= 0.5 else hi)]
+    return out, nearest
 
 
-# ----------------------------------------------------------------------------------- Monte Carlo
+class RowPercentiles:
+    """Low and high percentiles (e.g. 0.5 and 99.5) of each row over a stream of (rows, n) blocks,
+    exact, in memory O(rows × n_total × tail fraction)."""
+
+    def __init__(self, rows: int, total: int, q: Sequence[float] = BAND_PERCENTILES):
+        lo_q, hi_q = q
+        self.q = (float(lo_q), float(hi_q))
+        self.low = TailSelection(rows, _upper_need(100.0 - lo_q, total))
+        self.high = TailSelection(rows, _upper_need(hi_q, total))
+
+    def add(self, x: np.ndarray) -> None:
+        self.high.add(x)
+        self.low.add(-x)
+
+    def result(self, transform=None) -> np.ndarray:
+        """(2, rows): the low and high percentile, ``transform`` (monotone increasing) applied to the
+        order statistics before the interpolation."""
+        tf = transform or (lambda v: v)
+        hi, _ = _upper_percentile(self.high, self.q[1], tf)
+        lo, _ = _upper_percentile(self.low, 100.0 - self.q[0], lambda v: -tf(-v))
+        return np.vstack([-lo, hi])
+
+
+def percentiles(x: np.ndarray, q: Sequence[float]) -> np.ndarray:
+    """Percentiles ``q`` (each below 50 or above 50, as a pair low/high) of x along its last axis
+    by the streaming selection, in blocks of 4096 — equal to ``np.percentile(x, q, axis=-1)``."""
+    x2 = np.asarray(x, dtype=float).reshape(-1, np.shape(x)[-1])
+    sel = RowPercentiles(x2.shape[0], x2.shape[1], q)
+    for i in range(0, x2.shape[1], 4096):
+        sel.add(x2[:, i:i + 4096])
+    return sel.result().reshape((2,) + np.shape(x)[:-1])
+
+
+# ----------------------------------------------------------------------------------- responses
+
+
+def _diamond(qr: np.ndarray, qi: np.ndarray) -> np.ndarray:
+    """A rational angle of qr + j·qi, monotone in the true angle on (−180°, 180°] and odd:
+    y/(|x|+|y|) on the right half plane, ±2 − that on the left (|d| ≤ 1 ⇔ |angle| ≤ 90°)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        d = qi / (np.abs(qr) + np.abs(qi))
+    if np.any(qr < 0):
+        d = np.where(qr < 0, np.where(qi >= 0, 2.0, -2.0).astype(d.dtype) - d, d)
+    return d
+
+
+def diamond_to_deg(d: np.ndarray) -> np.ndarray:
+    """Degrees of a :func:`_diamond` angle (exact inverse)."""
+    d = np.asarray(d, dtype=float)
+    r = np.where(np.abs(d) <= 1, d, np.sign(d) * 2 - d)
+    x = np.where(np.abs(d) <= 1, 1.0 - np.abs(r), -(1.0 - np.abs(r)))
+    return np.degrees(np.arctan2(r, x))
+
+
+class _PolyGrid:
+    """|ratio|² and the diamond angle of ratio = N(jω)/(D(jω)·ref(ω)) for many coefficient sets,
+    on one frequency grid, in real arithmetic (float32 by default).
+
+    ω is scaled by the grid's geometric mean (the coefficients rescaled in float64 first), the
+    work runs in blocks of frequency rows small enough to stay in cache, and the outputs and
+    temporaries are buffers reused from chunk to chunk."""
+
+    BLOCK = 24
+
+    def __init__(self, f_hz: np.ndarray, dtype=np.float32):
+        w = 2 * np.pi * np.asarray(f_hz, dtype=float)
+        self.w0 = float(np.sqrt(w[0] * w[-1]))
+        self.x = w / self.w0
+        self.dtype = dtype
+        self._buf: dict = {}
+
+    def _take(self, name: str, shape) -> np.ndarray:
+        arr = self._buf.get(name)
+        if arr is None or arr.shape[1] < shape[1] or arr.shape[0] != shape[0]:
+            arr = self._buf[name] = np.empty(shape, dtype=self.dtype)
+        return arr[:, :shape[1]]
+
+    def _terms(self, coeffs: list, n: int) -> tuple[list, list]:
+        deg = len(coeffs) - 1
+        re, im = [], []
+        for i, c in enumerate(coeffs):
+            row = np.broadcast_to(np.asarray(c, dtype=float), (n,))
+            if not np.any(row):
+                continue
+            k = deg - i
+            col = (self.x ** k * (1 if (k // 2) % 2 == 0 else -1)).astype(self.dtype)[:, None]
+            (re if k % 2 == 0 else im).append((col, (row * self.w0 ** k).astype(self.dtype)[None, :]))
+        return re, im
+
+    def proxies(self, num: list, den: list, n: int, inv_refs: list[np.ndarray]) -> list[tuple[np.ndarray, np.ndarray]]:
+        """[(|ratio|², diamond angle)] per reference (``inv_refs``: 1/ref per frequency), each
+        (F, n); the arrays are reused by the next call."""
+        nf, b = self.x.size, self.BLOCK
+        terms = [self._terms(num, n), self._terms(den, n)]
+        outs = [(self._take(f"g{j}", (nf, n)), self._take(f"d{j}", (nf, n))) for j in range(len(inv_refs))]
+        cs = [(r.real.astype(self.dtype)[:, None], r.imag.astype(self.dtype)[:, None]) for r in inv_refs]
+        t = {k: self._take(k, (b, n)) for k in ("nr", "ni", "dr", "di", "pr", "pi", "d2", "qr", "qi", "tmp")}
+        for f0 in range(0, nf, b):
+            rows = slice(f0, min(nf, f0 + b))
+            m = rows.stop - rows.start
+            v = {k: a[:m] for k, a in t.items()}
+            tmp = v["tmp"]
+            for (re_t, im_t), (re_o, im_o) in zip(terms, (("nr", "ni"), ("dr", "di"))):
+                for terms_x, out in ((re_t, v[re_o]), (im_t, v[im_o])):
+                    if not terms_x:
+                        out[...] = 0
+                        continue
+                    np.multiply(terms_x[0][0][rows], terms_x[0][1], out=out)
+                    for col, row in terms_x[1:]:
+                        np.multiply(col[rows], row, out=tmp)
+                        out += tmp
+            nr, ni, dr, di, pr, pi, d2, qr, qi = (v[k] for k in ("nr", "ni", "dr", "di", "pr", "pi", "d2", "qr", "qi"))
+            np.multiply(nr, dr, out=pr)
+            np.multiply(ni, di, out=tmp)
+            pr += tmp
+            np.multiply(ni, dr, out=pi)
+            np.multiply(nr, di, out=tmp)
+            pi -= tmp
+            np.multiply(dr, dr, out=d2)
+            np.multiply(di, di, out=tmp)
+            d2 += tmp
+            d2 *= d2
+            for (cr, ci), (g_out, d_out) in zip(cs, outs):
+                cr_b, ci_b = cr[rows], ci[rows]
+                np.multiply(pr, cr_b, out=qr)
+                np.multiply(pi, ci_b, out=tmp)
+                qr -= tmp
+                np.multiply(pr, ci_b, out=qi)
+                np.multiply(pi, cr_b, out=tmp)
+                qi += tmp
+                g = g_out[rows]
+                np.multiply(qr, qr, out=g)
+                np.multiply(qi, qi, out=tmp)
+                g += tmp
+                with np.errstate(divide="ignore", invalid="ignore"):
+                    np.divide(g, d2, out=g)
+                    d = d_out[rows]
+                    np.abs(qr, out=tmp)
+                    np.abs(qi, out=d)
+                    tmp += d
+                    np.divide(qi, tmp, out=d)
+                if np.any(qr < 0):
+                    d[...] = np.where(qr < 0, np.where(qi >= 0, 2.0, -2.0).astype(self.dtype) - d, d)
+        return outs
+
+
+# ----------------------------------------------------------------------------------- figures
 
 
 @dataclass(frozen=True)
-class MonteCarloResult:
-    """Percentile bands of F(j2πf) and of the design quantities. Gains in dB, phases in degrees."""
+class Comparison:
+    """What a set of per-draw figures compares: the draws (with ``opamp``, None = ideal) against
+    ``reference`` (complex, on the band grid) and, with a loop, against ``loop_reference``
+    (complex controller response on the loop grid)."""
+
+    key: str
+    reference: np.ndarray
+    opamp: object = None
+    loop_reference: np.ndarray | None = None
+
+
+@dataclass(frozen=True)
+class DrawnFigures:
+    """One comparison's figures over the draws (see the module docstring). dB, degrees, Hz."""
+
+    key: str
+    percentile: float
+    max_gain_error_db: float
+    max_gain_error_at_hz: float
+    max_phase_error_deg: float
+    max_phase_error_at_hz: float
+    delta_phase_margin_deg: float | None = None
+    delta_gain_margin_db: float | None = None
+    delta_sensitivity_peak_db: float | None = None
+    draws_without: dict = field(default_factory=dict)  # margin name -> draws whose loop lacks it
+
+    def as_dict(self) -> dict:
+        return dict(self.__dict__)
+
+
+MARGIN_FIELDS = (("phase_margin_deg", "delta_phase_margin_deg"), ("gain_margin_db", "delta_gain_margin_db"),
+                 ("sensitivity_peak_db", "delta_sensitivity_peak_db"))
+
+
+class _FigureReducer:
+    """Per-draw maxima over the band and margin changes of one comparison, reduced chunk by chunk."""
+
+    def __init__(self, key: str, f_hz: np.ndarray, total: int, percentile: float, ref_margins: dict | None):
+        self.key, self.f, self.q = key, f_hz, percentile
+        need = _upper_need(percentile, total)
+        self.gain = TailSelection(1, need, keep_inf=True, payload=True)
+        self.phase = TailSelection(1, need, keep_inf=True, payload=True)
+        self.at = {}  # draw number -> (gain at index, phase at index), only for kept draws
+        self.ref_margins = ref_margins
+        self.margins = {name: TailSelection(1, need, payload=True) for name, _ in MARGIN_FIELDS} if ref_margins else {}
+        self.signs: dict[str, dict] = {name: {} for name in self.margins}
+        self.total = 0
+
+    def add_band(self, g: np.ndarray, d: np.ndarray, exact: Callable[[np.ndarray], np.ndarray], first: int) -> None:
+        """``g`` |ratio|², ``d`` diamond angle, both (F, n); ``exact(idx)`` the complex ratio of the
+        chunk's draws ``idx`` (k, F) for draws whose phase error passes ±135° (unwrapped exactly).
+        Where each maximum lies is looked up only for the draws the selection keeps."""
+        n = g.shape[1]
+        ids = np.arange(first, first + n, dtype=np.int64)
+        g_hi, g_lo = g.max(axis=0).astype(float), g.min(axis=0).astype(float)  # NaN propagates
+        d_max = np.maximum(d.max(axis=0), -d.min(axis=0)).astype(float)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            up = g_hi >= 1.0 / g_lo
+            gain_db = np.where(up, 10 * np.log10(g_hi), -10 * np.log10(g_lo))
+        gain_db = np.where(np.isnan(gain_db), np.inf, gain_db)
+        phase_deg = np.abs(diamond_to_deg(d_max))
+        far = np.nonzero(~(d_max <= 1.5))[0]  # beyond ±135° (or NaN): unwrap exactly
+        far_at = {}
+        if far.size:
+            from convert.compare.frequency import unwrapped_phase_error_deg
+
+            err = np.nan_to_num(np.abs(unwrapped_phase_error_deg(exact(far))), nan=180.0)
+            phase_deg[far] = err.max(axis=1)
+            far_at = dict(zip(far.tolist(), err.argmax(axis=1).tolist()))
+        new = np.union1d(self.gain.add(gain_db[None, :], ids), self.phase.add(phase_deg[None, :], ids))
+        if new.size:
+            with np.errstate(invalid="ignore"):
+                gs = g[:, new]
+                g_at = np.where(up[new], np.nanargmax(np.where(np.isnan(gs), -np.inf, gs), axis=0),
+                                np.argmin(np.where(np.isnan(gs), np.inf, gs), axis=0))
+                p_at = np.argmax(np.abs(np.nan_to_num(d[:, new], nan=np.inf)), axis=0)
+            for j, ga, pa in zip(new.tolist(), g_at.tolist(), p_at.tolist()):
+                self.at[int(ids[j])] = (ga, far_at.get(j, pa))
+        if len(self.at) > 2 * (self.gain.m + self.phase.m):
+            keep = set(np.concatenate([self.gain.held(), self.phase.held()]).tolist())
+            self.at = {k: v for k, v in self.at.items() if k in keep}
+        self.total += n
+
+    def add_margins(self, m: dict, first: int) -> None:
+        n = len(next(iter(m.values())))
+        ids = np.arange(first, first + n, dtype=np.int64)
+        for name, _ in MARGIN_FIELDS:
+            delta = np.asarray(m[name], dtype=float) - float(self.ref_margins[name][0])
+            new = self.margins[name].add(np.abs(delta)[None, :], ids)
+            signs = self.signs[name]
+            for j in new.tolist():
+                signs[int(ids[j])] = float(delta[j])
+            if len(signs) > 2 * self.margins[name].m:
+                keep = set(self.margins[name].held().tolist())
+                self.signs[name] = {k: v for k, v in signs.items() if k in keep}
+
+    def result(self) -> DrawnFigures:
+        g, g_draw = _upper_percentile(self.gain, self.q)
+        p, p_draw = _upper_percentile(self.phase, self.q)
+        out = dict(key=self.key, percentile=self.q, max_gain_error_db=float(g[0]),
+                   max_gain_error_at_hz=float(self.f[self.at[int(g_draw[0])][0]]), max_phase_error_deg=float(p[0]),
+                   max_phase_error_at_hz=float(self.f[self.at[int(p_draw[0])][1]]))
+        without = {}
+        for name, attr in MARGIN_FIELDS:
+            if name not in self.margins:
+                continue
+            sel = self.margins[name]
+            level, draw = _upper_percentile(sel, self.q)
+            if sel.count[0] == 0:
+                out[attr] = None
+            else:
+                # the signed change of the kept draw whose |change| is nearest the level
+                top, pay = sel.sorted_desc()
+                n = int(sel.count[0])
+                vals = top[0, :min(n, sel.m)]
+                j = int(np.argmin(np.abs(vals - level[0])))
+                out[attr] = self.signs[name][int(pay[0, j])]
+            if sel.count[0] < self.total:
+                without[name] = int(self.total - sel.count[0])
+        return DrawnFigures(**out, draws_without=without)
+
+
+def figures_of_responses(key: str, f_hz, reference: np.ndarray, candidates: np.ndarray, *,
+                         percentile: float = FIGURE_PERCENTILE, loop_margins: Callable | None = None,
+                         loop_reference: np.ndarray | None = None,
+                         loop_candidates: np.ndarray | None = None) -> DrawnFigures:
+    """The engine's figures for responses already evaluated (``candidates`` (N, F) complex against
+    ``reference`` (F,)), in float64: the same definitions :func:`run_tolerances` uses."""
+    f = np.asarray(f_hz, dtype=float)
+    cand = np.atleast_2d(candidates)
+    ref_m = loop_margins(np.atleast_2d(loop_reference)) if loop_margins is not None else None
+    red = _FigureReducer(key, f, cand.shape[0], percentile, ref_m)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = (cand / np.asarray(reference, dtype=complex)[None, :]).T
+    red.add_band(np.abs(ratio) ** 2, _diamond(ratio.real, ratio.imag), lambda idx: ratio[:, idx].T, 0)
+    if ref_m is not None:
+        red.add_margins(loop_margins(np.atleast_2d(loop_candidates)), 0)
+    return red.result()
+
+
+@dataclass(frozen=True)
+class Band:
+    """Per-frequency percentiles of gain (dB) and phase (deg) over the draws; rows of ``gain_db``
+    and ``phase_deg`` are the ``percentiles`` (low, high). ``nominal_*``: the rounded parts."""
 
     f_hz: np.ndarray
     percentiles: tuple
-    gain_db: np.ndarray       # (len(percentiles), freqs)
-    phase_deg: np.ndarray     # (len(percentiles), freqs)
+    gain_db: np.ndarray
+    phase_deg: np.ndarray
     nominal_gain_db: np.ndarray
     nominal_phase_deg: np.ndarray
-    parameters: dict          # name -> {"nominal": x, "percentiles": [..]}
+
+
+@dataclass(frozen=True)
+class ToleranceRun:
+    """Everything one Monte Carlo run found (see :func:`run_tolerances`)."""
+
     draws: int
     seed: int
     distribution: str
     tolerances: dict
-
-    def spread(self) -> dict:
-        """Largest deviation of the outer percentiles from nominal over the band (dB, deg)."""
-        return {"gain_db": float(np.max(np.abs(self.gain_db[[0, -1]] - self.nominal_gain_db))),
-                "phase_deg": float(np.max(np.abs(self.phase_deg[[0, -1]] - self.nominal_phase_deg)))}
+    chunk: int
+    figures: dict           # comparison key -> DrawnFigures
+    band: Band | None
+    parameters: dict        # name -> {"nominal": x, "percentiles": [p0.5, p99.5]}
 
     def summary(self) -> dict:
-        return {"draws": self.draws, "seed": self.seed, "distribution": self.distribution,
-                "tolerances": self.tolerances, "percentiles": list(self.percentiles),
-                "band_hz": [float(self.f_hz[0]), float(self.f_hz[-1])], "spread": self.spread(),
-                "parameters": self.parameters}
+        """Plain numbers for JSON (the `circuit` command's ``errors.tolerance.monte_carlo``)."""
+        out = {"draws": self.draws, "seed": self.seed, "distribution": self.distribution,
+               "tolerances": dict(self.tolerances), "figure_percentile": FIGURE_PERCENTILE,
+               "figures": {k: v.as_dict() for k, v in self.figures.items()}, "parameters": self.parameters}
+        if self.band is not None:
+            out["band"] = {"percentiles": list(self.band.percentiles),
+                           "band_hz": [float(self.band.f_hz[0]), float(self.band.f_hz[-1])]}
+        return out
 
 
-def _split_poly(coeffs: list, w: np.ndarray, dtype) -> tuple[list, list]:
-    """Terms (column (B,1), coefficient row (1,D)) for the real and imaginary parts at s = jw;
-    identically zero coefficients are skipped."""
-    deg = len(coeffs) - 1
-    re_terms, im_terms = [], []
-    for i, c in enumerate(coeffs):
-        row = np.asarray(c)
-        if not np.any(row):
-            continue
-        k = deg - i
-        col = (w ** k * (1 if (k // 2) % 2 == 0 else -1)).astype(dtype)[:, None]
-        (re_terms if k % 2 == 0 else im_terms).append((col, row.reshape(1, -1)))
-    return re_terms, im_terms
+def _responses(topology, parts: dict, f: np.ndarray, opamp, sign: float) -> np.ndarray:
+    """sign · F(j2πf) for the chunk's parts (n, F), float64; with a (non-ideal) op-amp model."""
+    if opamp is None or getattr(opamp, "ideal", False):
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return sign * topology.response(parts, f)
+    from convert.circuit.opamp import gbw_response
+
+    return sign * np.atleast_2d(gbw_response(topology, parts, f, opamp))
 
 
-def _eval(terms, shape, dtype):
-    if not terms:
-        return np.zeros(shape, dtype=dtype)
-    acc = terms[0][0] * terms[0][1]
-    for col, row in terms[1:]:
-        acc += col * row
-    return np.broadcast_to(acc, shape)
+def _chunk_proxies(topology, parts: dict, grid: _PolyGrid | None, f: np.ndarray, opamp, sign: float,
+                   refs: list[np.ndarray], cache: dict):
+    """[(g, d)] per reference for one chunk on one grid: float32 from the coefficients (ideal
+    op-amp), or float64 from the op-amp model's responses."""
+    if (opamp is None or getattr(opamp, "ideal", False)) and grid is not None:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            num, den = topology.coefficients(parts)
+        n = len(next(iter(parts.values())))
+        return grid.proxies(num, den, n, [1.0 / (sign * np.asarray(r, dtype=complex)) for r in refs])
+    if "h" not in cache:
+        cache["h"] = _responses(topology, parts, f, opamp, sign).T
+    h = cache["h"]
+    out = []
+    for r in refs:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            q = h / r[:, None]
+        out.append((np.abs(q) ** 2, _diamond(q.real, q.imag)))
+    return out
 
 
-def response_ratio_parts(num: list, den: list, w: np.ndarray, h_nominal: np.ndarray, *,
-                         block_f: int = 8, block_d: int = 8192, dtype=np.float32) -> tuple[np.ndarray, np.ndarray, bool]:
-    """For all draws: |H/H_nom|² and the phase deviation proxy tan(∠H − ∠H_nom), arrays (freqs, draws).
+def run_tolerances(topology, parts: Mapping[str, float], tolerances: Mapping[str, float], *, band_f_hz,
+                   comparisons: Sequence[Comparison], draws: int = DEFAULT_DRAWS, seed: int = 1,
+                   distribution: str = DEFAULT_DISTRIBUTION, sign: float = 1.0, loop_f_hz=None,
+                   loop_margins: Callable | None = None, display_f_hz=None, display_opamp=None,
+                   percentile: float = FIGURE_PERCENTILE, band_percentiles: Sequence[float] = BAND_PERCENTILES,
+                   parameters: bool = True, chunk: int = DEFAULT_CHUNK, dtype=np.float32) -> ToleranceRun:
+    """The Monte Carlo of a circuit's part tolerances, in chunks (see the module docstring).
 
-    Returns (gain_ratio_sq, tan_dev, ok) where ``ok`` is False if any phase deviation reaches ±90°
-    (then the caller uses the exact path). The arithmetic runs in ``dtype``: float32 by default,
-    which bench/circuit.py measures against float64 (percentile bands agree to about 1e-5 dB and
-    1e-5°, far inside the 0.01 dB allowed); pass ``np.float64`` for the exact path.
-    """
-    d = np.broadcast_shapes(*[np.shape(c) for c in list(num) + list(den)])[0]
-    nf = w.size
-    gain = np.empty((nf, d), dtype=dtype)
-    tan = np.empty((nf, d), dtype=dtype)
-    # scale each polynomial by its largest coefficient magnitude (keeps float32 far from overflow)
-    def _rows(coeffs):
-        arr = [np.broadcast_to(np.asarray(c, dtype=float), (d,)) for c in coeffs]
-        return [a.astype(dtype) for a in arr]
-    num_r = _rows(num)
-    den_r = _rows(den)
-    inv_nom = 1.0 / h_nominal
-    ok = True
-    for f0 in range(0, nf, block_f):
-        fs = slice(f0, min(nf, f0 + block_f))
-        wb = w[fs]
-        cr = inv_nom[fs].real.astype(dtype)[:, None]
-        ci = inv_nom[fs].imag.astype(dtype)[:, None]
-        for d0 in range(0, d, block_d):
-            ds = slice(d0, min(d, d0 + block_d))
-            shape = (wb.size, ds.stop - ds.start)
-            nre, nim = _split_poly([c[ds] for c in num_r], wb, dtype)
-            dre, dim = _split_poly([c[ds] for c in den_r], wb, dtype)
-            nr, ni = _eval(nre, shape, dtype), _eval(nim, shape, dtype)
-            dr, di = _eval(dre, shape, dtype), _eval(dim, shape, dtype)
-            pr = nr * dr
-            pr += ni * di
-            pi = ni * dr
-            pi -= nr * di
-            qr = pr * cr
-            qr -= pi * ci
-            qi = pr * ci
-            qi += pi * cr
-            d2 = dr * dr
-            d2 += di * di
-            d2 *= d2
-            g = qr * qr
-            g += qi * qi
-            np.divide(g, d2, out=gain[fs, ds])
-            np.divide(qi, qr, out=tan[fs, ds])
-            if ok and not np.all(qr > 0):
-                ok = False
-    return gain, tan, ok
-
-
-def monte_carlo(topology, parts: Mapping[str, float], tolerances: Mapping[str, float], f_hz, *, draws: int = 10000,
-                seed: int = 1, distribution: str = "uniform", q: Sequence[float] = (0.5, 50.0, 99.5),
-                path: str = "controller", dtype=np.float32) -> MonteCarloResult:
-    """Monte Carlo of the topology's F(j2πf) with part tolerances (see the module docstring).
-
-    ``dtype``: arithmetic of the per-draw response ratios (float32 default; np.float64 exact)."""
-    f = np.asarray(f_hz, dtype=float)
-    drawn = draw_parts(topology, parts, tolerances, draws, seed, distribution)
-    checked = {k: np.asarray([float(v)]) for k, v in topology.check_parts(parts).items()}
-    h_nom = topology.response(checked, f, path=path)[0]
-    nom_db = 20 * np.log10(np.abs(h_nom))
-    nom_deg = np.degrees(np.unwrap(np.angle(h_nom)))
-    with np.errstate(invalid="ignore"):
-        num, den = (topology.setpoint_coefficients(drawn) if path == "setpoint" else topology.coefficients(drawn))
-    w = 2 * np.pi * f
-    gain, tan, ok = response_ratio_parts(num, den, w, h_nom, dtype=dtype)
-    g_pct = percentiles(gain, q, transform=lambda v: 10 * np.log10(v.astype(float))) + nom_db
-    if ok:
-        p_pct = percentiles(tan, q, transform=lambda v: np.degrees(np.arctan(v.astype(float)))) + nom_deg
-    else:  # exact path: the phase deviation reaches ±90° somewhere
-        h = topology.response(drawn, f, path=path)
-        dev = np.degrees(np.angle(h / h_nom)).T.copy()
-        p_pct = percentiles(dev, q) + nom_deg
-    params = {}
+    ``parts``: the rounded parts (ohms, farads); ``sign``: the realized sign (±1) applied to the
+    topology's positive form. For each :class:`Comparison` the per-draw maxima over ``band_f_hz``
+    (Hz) and, when ``loop_margins`` is given (``margins(responses (N, F_loop)) -> dict of
+    arrays``, :func:`convert.compare.loop.margins_of_responses`), the margin changes on
+    ``loop_f_hz``. ``display_f_hz``: where the gain/phase band is wanted (with
+    ``display_opamp``). ``dtype``: arithmetic of the coefficient path (float32; np.float64 to
+    check it). Returns :class:`ToleranceRun`."""
+    draws = check_draws(draws)
+    chunk = max(1, int(chunk))
+    source = PartDraws(topology, parts, tolerances, seed, distribution)
+    band_f = np.asarray(band_f_hz, dtype=float)
+    band_grid = _PolyGrid(band_f, dtype)
+    loop_f = None if loop_f_hz is None else np.asarray(loop_f_hz, dtype=float)
+    nominal = {k: np.asarray([v]) for k, v in source.nominal.items()}
+    reducers = []
+    for c in comparisons:
+        ref_m = None
+        if loop_margins is not None and c.loop_reference is not None:
+            ref_m = loop_margins(np.atleast_2d(c.loop_reference))
+        reducers.append(_FigureReducer(c.key, band_f, draws, percentile, ref_m))
+    groups: dict = {}
+    for c, red in zip(comparisons, reducers):
+        ideal = c.opamp is None or c.opamp.ideal
+        groups.setdefault(None if ideal else id(c.opamp), []).append((c, red))
+    disp_g = disp_d = None
+    share_display = False
+    if display_f_hz is not None:
+        disp_f = np.asarray(display_f_hz, dtype=float)
+        ideal_display = display_opamp is None or display_opamp.ideal
+        share_display = ideal_display and disp_f.shape == band_f.shape and np.array_equal(disp_f, band_f)
+        disp_grid = band_grid if share_display else _PolyGrid(disp_f, dtype)
+        h_nom = _responses(topology, nominal, disp_f, display_opamp, sign)[0]
+        disp_g = RowPercentiles(disp_f.size, draws, band_percentiles)
+        disp_d = RowPercentiles(disp_f.size, draws, band_percentiles)
+    par_sel = None
     with np.errstate(divide="ignore", invalid="ignore"):
-        pvals = topology.parameters(drawn)
-        pnom = topology.parameters(checked)
-    for name, values in pvals.items():
-        arr = np.broadcast_to(np.asarray(values, dtype=float), (draws,))
-        if not np.all(np.isfinite(arr)):
-            continue
-        params[name] = {"nominal": float(np.asarray(pnom[name]).ravel()[0]),
-                        "percentiles": [float(x) for x in np.percentile(arr, q)]}
-    return MonteCarloResult(f, tuple(q), g_pct, p_pct, nom_db, nom_deg, params, int(draws), int(seed), distribution,
-                            dict(tolerances))
+        p_nom = {k: float(np.asarray(v).ravel()[0]) for k, v in topology.parameters(nominal).items()} \
+            if parameters else {}
+    p_names = [k for k, v in p_nom.items() if math.isfinite(v)]
+    if p_names:
+        par_sel = RowPercentiles(len(p_names), draws, band_percentiles)
+    first = 0
+    for drawn in source.chunks(draws, chunk):
+        n = len(next(iter(drawn.values())))
+        done_display = False
+        for gkey, members in groups.items():
+            opamp = None if gkey is None else members[0][0].opamp
+            cache: dict = {}
+            model_disp = disp_g is not None and opamp is not None and display_opamp is opamp
+            if opamp is not None:  # one stage-by-stage solution over every grid this model needs
+                grids = [band_f] + ([loop_f] if loop_f is not None else []) + ([disp_f] if model_disp else [])
+                h_all = _responses(topology, drawn, np.concatenate(grids), opamp, sign)
+                cuts = np.cumsum([g.size for g in grids])[:-1]
+                parts_h = np.split(h_all, cuts, axis=1)
+                cache["h"] = parts_h[0].T
+                if loop_f is not None:
+                    cache["loop"] = parts_h[1]
+                if model_disp:
+                    cache["disp"] = parts_h[-1].T
+            refs = [c.reference for c, _ in members]
+            shared = share_display and gkey is None
+            proxies = _chunk_proxies(topology, drawn, band_grid, band_f, opamp, sign,
+                                     refs + ([h_nom] if shared else []), cache)
+            if shared:
+                g, d = proxies.pop()
+                disp_g.add(g)
+                disp_d.add(d)
+                done_display = True
+            elif model_disp:
+                (g, d), = _chunk_proxies(topology, drawn, None, disp_f, opamp, sign, [h_nom], {"h": cache["disp"]})
+                disp_g.add(g)
+                disp_d.add(d)
+                done_display = True
+            loop_m = None
+            for (c, red), (g, d) in zip(members, proxies):
+                ref = np.asarray(c.reference, dtype=complex)
+
+                def exact(idx, ref=ref, opamp=opamp):
+                    sub = {k: v[idx] for k, v in drawn.items()}
+                    return _responses(topology, sub, band_f, opamp, sign) / ref[None, :]
+
+                red.add_band(g, d, exact, first)
+                if red.ref_margins is not None:
+                    if loop_m is None:
+                        h_loop = cache["loop"] if "loop" in cache else _responses(topology, drawn, loop_f, opamp, sign)
+                        loop_m = loop_margins(h_loop)
+                    red.add_margins(loop_m, first)
+        if disp_g is not None and not done_display:
+            (g, d), = _chunk_proxies(topology, drawn, disp_grid, disp_f, display_opamp, sign, [h_nom], {})
+            disp_g.add(g)
+            disp_d.add(d)
+        if par_sel is not None:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                pv = topology.parameters(drawn)
+            par_sel.add(np.vstack([np.broadcast_to(np.asarray(pv[k], dtype=float), (n,)) for k in p_names]))
+        first += n
+    band = None
+    if disp_g is not None:
+        lohi_g, lohi_d = disp_g.result(), disp_d.result()
+        nom_db = 20 * np.log10(np.abs(h_nom))
+        nom_deg = np.degrees(np.unwrap(np.angle(h_nom)))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            gain = 10 * np.log10(lohi_g) + nom_db
+        band = Band(disp_f, tuple(band_percentiles), gain, diamond_to_deg(lohi_d) + nom_deg, nom_db, nom_deg)
+    params = {}
+    if par_sel is not None:
+        res = par_sel.result()
+        for i, k in enumerate(p_names):
+            params[k] = {"nominal": p_nom[k], "percentiles": [float(res[0, i]), float(res[1, i])]}
+    return ToleranceRun(draws, int(seed), distribution, dict(tolerances), chunk,
+                        {red.key: red.result() for red in reducers}, band, params)
 
 
 # ----------------------------------------------------------------------------------- worst case

@@ -9,8 +9,10 @@ response (everything else the same), over the case's band:
   margin (dB) and sensitivity peak (dB), candidate minus reference.
 
 Rows with many candidate responses (Monte Carlo draws, shape (N, F)) report a percentile of the
-per-draw figures (absolute values for errors; the signed change of largest magnitude at that
-percentile for loop figures). What "alone" means for each row is documented in docs/report.md
+per-draw figures, as the tolerance engine defines them (:mod:`convert.circuit.tolerance`:
+absolute values for errors; for loop figures the percentile of |change| signed as the draw
+nearest it). The circuit target builds those rows with :func:`drawn_row` from the engine's
+chunked run. What "alone" means for each row is documented in docs/report.md
 and repeated in each row's ``note``.
 
 Pure functions over plain arrays: the caller evaluates the responses.
@@ -23,7 +25,7 @@ from typing import Sequence
 
 import numpy as np
 
-from convert.compare.frequency import compare_responses, unwrapped_phase_error_deg
+from convert.compare.frequency import compare_responses
 
 #: Row keys in table order, with their labels.
 ROWS: tuple[tuple[str, str], ...] = (
@@ -78,19 +80,6 @@ def not_applicable(key: str, why: str) -> BudgetRow:
     return BudgetRow(key=key, label=ROW_LABELS[key], applicable=False, note=f"not applicable: {why}")
 
 
-def _pick(values: np.ndarray, percentile: float | None) -> float | None:
-    """The percentile of |values| (or the single value), keeping the sign of the draw nearest it."""
-    v = np.asarray(values, dtype=float).ravel()
-    v = v[np.isfinite(v)]
-    if v.size == 0:
-        return None
-    if v.size == 1 or percentile is None:
-        return float(v[np.argmax(np.abs(v))])
-    level = np.percentile(np.abs(v), percentile)
-    i = int(np.argmin(np.abs(np.abs(v) - level)))
-    return float(v[i])
-
-
 def error_row(key: str, band_f_hz: Sequence[float], reference: np.ndarray, candidate: np.ndarray, *, note: str,
               loop: LoopSpec | None = None, loop_reference: np.ndarray | None = None,
               loop_candidate: np.ndarray | None = None, percentile: float | None = None) -> BudgetRow:
@@ -100,32 +89,37 @@ def error_row(key: str, band_f_hz: Sequence[float], reference: np.ndarray, candi
     f = np.asarray(band_f_hz, dtype=float)
     cand = np.atleast_2d(candidate)
     ref = np.asarray(reference, dtype=complex)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        ratio = cand / ref[None, :]
-        gain = np.abs(20 * np.log10(np.abs(ratio)))
-    phase = np.abs(unwrapped_phase_error_deg(ratio))
-    gain = np.nan_to_num(gain, nan=np.inf)
-    phase = np.nan_to_num(phase, nan=180.0)
-    if cand.shape[0] == 1:
-        err = compare_responses(ref, cand[0], f)
-        g, g_at, p, p_at = err.max_gain_error_db, err.max_gain_error_at_hz, err.max_phase_error_deg, err.max_phase_error_at_hz
-        pct = None
-    else:
-        pct = 99.0 if percentile is None else percentile
-        g_draw, p_draw = gain.max(axis=1), phase.max(axis=1)
-        g = float(np.percentile(g_draw, pct))
-        p = float(np.percentile(p_draw, pct))
-        g_at = float(f[int(np.argmax(np.percentile(gain, pct, axis=0)))])
-        p_at = float(f[int(np.argmax(np.percentile(phase, pct, axis=0)))])
-    row = dict(key=key, label=ROW_LABELS[key], applicable=True, note=note, max_gain_error_db=g,
-               max_gain_error_at_hz=g_at, max_phase_error_deg=p, max_phase_error_at_hz=p_at, percentile=pct)
-    if loop is not None and loop_reference is not None and loop_candidate is not None:
+    with_loop = loop is not None and loop_reference is not None and loop_candidate is not None
+    if cand.shape[0] > 1:  # draws: the tolerance engine's definitions, one place for them
+        from convert.circuit.tolerance import FIGURE_PERCENTILE, figures_of_responses
+
+        figs = figures_of_responses(key, f, ref, cand, percentile=FIGURE_PERCENTILE if percentile is None else percentile,
+                                    loop_margins=loop.margins if with_loop else None,
+                                    loop_reference=loop_reference, loop_candidates=loop_candidate)
+        return drawn_row(key, figs, note=note)
+    err = compare_responses(ref, cand[0], f)
+    row = dict(key=key, label=ROW_LABELS[key], applicable=True, note=note, max_gain_error_db=err.max_gain_error_db,
+               max_gain_error_at_hz=err.max_gain_error_at_hz, max_phase_error_deg=err.max_phase_error_deg,
+               max_phase_error_at_hz=err.max_phase_error_at_hz, percentile=None)
+    if with_loop:
         m_ref = loop.margins(np.atleast_2d(loop_reference))
         m_cand = loop.margins(np.atleast_2d(loop_candidate))
         for name, field in (("phase_margin_deg", "delta_phase_margin_deg"), ("gain_margin_db", "delta_gain_margin_db"),
                             ("sensitivity_peak_db", "delta_sensitivity_peak_db")):
-            row[field] = _pick(m_cand[name] - m_ref[name][0], pct)
+            v = float(np.asarray(m_cand[name]).ravel()[0] - np.asarray(m_ref[name]).ravel()[0])
+            row[field] = v if np.isfinite(v) else None
     return BudgetRow(**row)
+
+
+def drawn_row(key: str, figures, *, note: str) -> BudgetRow:
+    """A budget row from the tolerance engine's figures over Monte Carlo draws
+    (:class:`convert.circuit.tolerance.DrawnFigures`): percentiles of the per-draw figures."""
+    f = figures
+    return BudgetRow(key=key, label=ROW_LABELS[key], applicable=True, note=note,
+                     max_gain_error_db=f.max_gain_error_db, max_gain_error_at_hz=f.max_gain_error_at_hz,
+                     max_phase_error_deg=f.max_phase_error_deg, max_phase_error_at_hz=f.max_phase_error_at_hz,
+                     delta_phase_margin_deg=f.delta_phase_margin_deg, delta_gain_margin_db=f.delta_gain_margin_db,
+                     delta_sensitivity_peak_db=f.delta_sensitivity_peak_db, percentile=f.percentile)
 
 
 def assemble(rows: dict[str, BudgetRow], applicable_keys: Sequence[str], form: str) -> list[BudgetRow]:

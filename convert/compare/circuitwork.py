@@ -1,8 +1,10 @@
 """The circuit target of a case: design, budget rows, Monte Carlo band, loop figures, files.
 
-Monte Carlo: each part is drawn independently and uniformly within ±its tolerance around its
-rounded (series) value, by :func:`convert.circuit.tolerance.draw_parts` (seeded). Percentile rows report the 99th percentile
-of the per-draw figures.
+Monte Carlo: the circuit package's one tolerance engine
+(:func:`convert.circuit.tolerance.run_tolerances`, the same that ``loopshift circuit`` runs):
+each part drawn independently within ±its tolerance around its rounded (series) value, seeded;
+the rows report the 99th percentile of the per-draw figures, computed in chunks of draws
+(memory bounded whatever the draw count).
 """
 
 from __future__ import annotations
@@ -14,16 +16,6 @@ from convert.compare.frequency import response_seen_from_loop
 from convert.compare.loop import loop_margins, margins_of_responses
 from convert.controller import Controller
 from convert.errors import LoopshiftError
-
-PERCENTILE = 99.0
-
-
-def draw_parts(topology, rounded: dict, tolerances: dict, draws: int, seed: int) -> dict[str, np.ndarray]:
-    """Part sets (name -> array of ``draws`` values) from the circuit package's Monte Carlo
-    (uniform within ±tolerance; tolerance by part name, then by kind R/C)."""
-    from convert.circuit.tolerance import draw_parts as _draw
-
-    return _draw(topology, rounded, tolerances, int(draws), int(seed))
 
 
 def circuit_realization(case, src: Controller, analog_src: Controller, band, src_margins, duration, src_step,
@@ -96,31 +88,32 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
         note=f"parts rounded to {tgt.resistors}/{tgt.capacitors} alone: rounded against computed values, ideal op-amp",
         loop=spec, loop_reference=nom_l, loop_candidate=rnd_l)
     tols = dict(tgt.tolerances)
-    drawn = draw_parts(topo, rounded, tols, n_draws, tgt.seed)
-    d_b, d_l = both(lambda f: resp(drawn, f))
-    rows["tolerances"] = bud.error_row(
-        "tolerances", band, rnd_b, d_b, percentile=PERCENTILE,
-        note=f"{n_draws} draws within ±tolerance ({', '.join(f'{k} {v * 100:g} %' for k, v in tols.items())}) around "
-             f"the rounded parts alone, ideal op-amp; seed {tgt.seed}",
-        loop=spec, loop_reference=rnd_l, loop_candidate=d_l)
+    f_disp = np.logspace(np.log10(band[0] / 30), np.log10(band[-1] * 30), 200)
+    mc = monte_carlo_rows(topo, rounded, tols, band, sign=sign, draws=n_draws, seed=tgt.seed,
+                          distribution=tgt.distribution, rounded_response=rnd_b, source_response=src_b,
+                          opamp=model, loop_f_hz=loop_f,
+                          loop_margins=spec.margins if spec is not None else None,
+                          loop_rounded=rnd_l, loop_source=src_l, display_f_hz=f_disp)
+    spread = ", ".join(f"{k} {v * 100:g} %" for k, v in tols.items())
+    rows["tolerances"] = bud.drawn_row(
+        "tolerances", mc.figures["tolerances"],
+        note=f"{n_draws} draws ({tgt.distribution}) within ±tolerance ({spread}) around the rounded parts alone, "
+             f"ideal op-amp; seed {tgt.seed}")
     tick("Monte Carlo")
     if not model.ideal:
         g_b, g_l = both(lambda f: resp(nominal, f, model)[0])
         rows["opamp_gbw"] = bud.error_row(
             "opamp_gbw", band, nom_b, g_b, note=f"single-pole op-amp, GBW {_fmt_hz(model.gbw_hz)}, alone (computed parts)",
             loop=spec, loop_reference=nom_l, loop_candidate=g_l)
-        t_b, t_l = both(lambda f: resp(drawn, f, model))
     else:
         rows["opamp_gbw"] = bud.not_applicable("opamp_gbw", "ideal op-amp (set target.circuit.opamp_gbw to check it)")
-        t_b, t_l = d_b, d_l
     from convert.compare.evaluate import card_parasitics_row
 
     rows.update(card_parasitics_row(case_reduction, band, spec, loop_f))
-    rows["total"] = bud.error_row(
-        "total", band, src_b, t_b, percentile=PERCENTILE,
+    rows["total"] = bud.drawn_row(
+        "total", mc.figures["total"],
         note="everything on: filter, rounding, tolerances" + (", op-amp GBW" if not model.ideal else "")
-             + "; against the source as the loop sees it",
-        loop=spec, loop_reference=src_l, loop_candidate=t_l)
+             + "; against the source as the loop sees it")
     budget = bud.assemble(rows, bud.CIRCUIT_ROWS, "circuit")
 
     from convert.values import format_value
@@ -135,19 +128,36 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
     name = f"circuit {topo.name}"
     r = Realization(name=name, form="circuit", controller=realized, details=details, budget=budget,
                     seen=lambda f: resp(rounded, f, model)[0], warnings=list(design.notes))
-    # Monte Carlo band for the figure
-    f_disp = np.logspace(np.log10(band[0] / 30), np.log10(band[-1] * 30), 200)
-    mc = resp(drawn, f_disp, model)
-    gain_db = 20 * np.log10(np.abs(mc))
-    phase = np.degrees(np.unwrap(np.angle(mc), axis=1))
-    r.band = {"f_hz": f_disp, "gain_db": np.percentile(gain_db, [0.5, 50, 99.5], axis=0),
-              "phase_deg": np.percentile(phase, [0.5, 50, 99.5], axis=0), "draws": n_draws, "seed": tgt.seed}
+    # Monte Carlo band for the figure (with the op-amp model, as the total row) and the per-draw
+    # maxima the verdict uses (the error panels draw them with the limits)
+    r.band = {"f_hz": mc.band.f_hz, "gain_db": mc.band.gain_db, "phase_deg": mc.band.phase_deg,
+              "percentiles": mc.band.percentiles, "nominal_gain_db": mc.band.nominal_gain_db,
+              "nominal_phase_deg": mc.band.nominal_phase_deg, "draws": n_draws, "seed": tgt.seed,
+              "distribution": tgt.distribution, "total": mc.figures["total"]}
     if case.plant is not None:
         r.margins = loop_margins(realized, case.plant.model, case.plant.dead_time_s)
         r.step, r.disturbance = _simulate_pair(case, realized, duration, 0.0, case.signals.output_range)
     r.files = circuit_files(design, model, tols)
     tick("circuit files")
     return r
+
+
+def monte_carlo_rows(topology, rounded: dict, tolerances: dict, band_f_hz, *, sign: float, draws: int, seed: int,
+                     distribution: str, rounded_response, source_response, opamp=None, loop_f_hz=None,
+                     loop_margins=None, loop_rounded=None, loop_source=None, display_f_hz=None):
+    """The Monte Carlo a circuit budget needs, in one run of the tolerance engine: the
+    ``tolerances`` comparison (draws, ideal op-amp, against the rounded parts) and the ``total``
+    (draws with the op-amp model against the source as the loop sees it), with the margin
+    changes on the loop grid when ``loop_margins`` is given, and the gain/phase band on
+    ``display_f_hz`` (with the op-amp model)."""
+    from convert.circuit.tolerance import Comparison, run_tolerances
+
+    comparisons = [Comparison("tolerances", np.asarray(rounded_response), None, loop_rounded),
+                   Comparison("total", np.asarray(source_response), opamp, loop_source)]
+    return run_tolerances(topology, rounded, tolerances, band_f_hz=band_f_hz, comparisons=comparisons, draws=draws,
+                          seed=seed, distribution=distribution, sign=sign, loop_f_hz=loop_f_hz,
+                          loop_margins=loop_margins, display_f_hz=display_f_hz, display_opamp=opamp,
+                          parameters=False)
 
 
 def circuit_files(design, model, tolerances=None) -> dict:

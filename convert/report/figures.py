@@ -77,6 +77,10 @@ def bode(results) -> bytes:
             ax[2].semilogx(f, 20 * np.log10(np.abs(ratio)), color=color, lw=1.3, label=name)
             ax[3].semilogx(f, unwrapped_phase_error_deg(ratio), color=color, lw=1.3)
     crit = results.case.criteria
+    for i, (name, resp, r) in enumerate(curves):
+        if r is None or r.band is None:
+            continue
+        _error_envelope(ax[2], ax[3], r.band, results.reference, COLORS[i % len(COLORS)], (lo, hi), (f[0], f[-1]))
     for a in ax:
         a.axvspan(lo, hi, color="#d6eaf8", alpha=0.5, lw=0)
         a.grid(True, which="both", alpha=0.3)
@@ -99,33 +103,94 @@ def bode(results) -> bytes:
     return _png(fig)
 
 
+def _error_envelope(gain_ax, phase_ax, band: dict, reference, color: str, band_hz, f_range) -> None:
+    """A circuit's Monte Carlo envelope on the error panels (within ``f_range``, Hz): the
+    0.5–99.5 % band of its error against the source, and over the band the figure the verdict
+    uses (p99 of each draw's largest |error|, dash-dot)."""
+    from convert.compare.frequency import response_seen_from_loop
+
+    keep = (band["f_hz"] >= f_range[0] / 1.05) & (band["f_hz"] <= f_range[1] * 1.05)
+    band = {**band, "f_hz": band["f_hz"][keep], "gain_db": band["gain_db"][:, keep],
+            "phase_deg": band["phase_deg"][:, keep], "nominal_phase_deg": band["nominal_phase_deg"][keep]}
+    f = band["f_hz"]
+    if f.size < 2:
+        return
+    ref = response_seen_from_loop(reference, f, via="zpk")
+    ref_db = 20 * np.log10(np.abs(ref))
+    ref_deg = np.degrees(np.unwrap(np.angle(ref)))
+    ref_deg += 360 * np.round((band["nominal_phase_deg"][0] - ref_deg[0]) / 360)
+    lo_q, hi_q = band["percentiles"]
+    total = band.get("total")
+    gain_ax.fill_between(f, band["gain_db"][0] - ref_db, band["gain_db"][1] - ref_db, color=color, alpha=0.18, lw=0,
+                         label=f"Monte Carlo {lo_q:g}–{hi_q:g} %")
+    phase_ax.fill_between(f, band["phase_deg"][0] - ref_deg, band["phase_deg"][1] - ref_deg, color=color, alpha=0.18,
+                          lw=0)
+    if total is not None:
+        for a, v in ((gain_ax, total.max_gain_error_db), (phase_ax, total.max_phase_error_deg)):
+            if v is not None and np.isfinite(v):
+                a.hlines([v, -v], band_hz[0], band_hz[1], color=color, lw=1.2, ls="-.",
+                         label="p99 of per-draw max (the verdict's figure)" if a is gain_ax else None)
+
+
 def monte_carlo(results, realization) -> bytes:
-    """Percentile band (0.5 / 50 / 99.5 %) of a circuit's gain and phase across the draws,
-    with the source and the nominal circuit."""
+    """Percentile band (0.5 / 99.5 %) of a circuit's gain and phase across the draws, with the
+    source and the nominal circuit (top two panels), and the same band as error against the
+    source with the case's limits and the figure the verdict uses (bottom two panels)."""
     band = realization.band
     f = band["f_hz"]
-    fig, ax = _figure(8.0, 6.0, 2, 1, sharex=True)
+    fig, ax = _figure(8.0, 9.0, 4, 1, sharex=True)
     ax = ax[:, 0]
     from convert.compare.frequency import response_seen_from_loop
 
     ref = response_seen_from_loop(results.reference, f, via="zpk")
-    nominal = realization.seen(f)
-    ax[0].fill_between(f, band["gain_db"][0], band["gain_db"][2], color="#f5b7b1", label="0.5–99.5 % of draws")
-    ax[0].semilogx(f, band["gain_db"][1], color=COLORS[1], lw=1, label="median")
-    ax[0].semilogx(f, 20 * np.log10(np.abs(ref)), color=COLORS[0], lw=2, label="source")
-    ax[0].semilogx(f, 20 * np.log10(np.abs(nominal)), "--", color="#333", lw=1, label="nominal parts")
-    ax[1].fill_between(f, band["phase_deg"][0], band["phase_deg"][2], color="#f5b7b1")
-    ax[1].semilogx(f, band["phase_deg"][1], color=COLORS[1], lw=1)
-    ax[1].semilogx(f, np.degrees(np.angle(ref)), color=COLORS[0], lw=2)
-    ax[1].semilogx(f, np.degrees(np.angle(nominal)), "--", color="#333", lw=1)
+    ref_db = 20 * np.log10(np.abs(ref))
+    ref_deg = np.degrees(np.unwrap(np.angle(ref)))
+    lo_q, hi_q = band["percentiles"]
+    label = f"{lo_q:g}–{hi_q:g} % of draws"
+    # the phase band sits on the nominal's unwrapped branch; put the source on the same branch
+    ref_deg += 360 * np.round((band["nominal_phase_deg"][0] - ref_deg[0]) / 360)
+    ax[0].fill_between(f, band["gain_db"][0], band["gain_db"][1], color="#f5b7b1", label=label)
+    ax[0].semilogx(f, ref_db, color=COLORS[0], lw=2, label="source")
+    ax[0].semilogx(f, band["nominal_gain_db"], "--", color="#333", lw=1, label="rounded parts")
+    ax[1].fill_between(f, band["phase_deg"][0], band["phase_deg"][1], color="#f5b7b1")
+    ax[1].semilogx(f, ref_deg, color=COLORS[0], lw=2)
+    ax[1].semilogx(f, band["nominal_phase_deg"], "--", color="#333", lw=1)
+    crit = results.case.criteria
+    total = band.get("total")
+    for row, (lo_e, hi_e, nom_e, limit, unit, fig_value) in enumerate((
+            (band["gain_db"][0] - ref_db, band["gain_db"][1] - ref_db, band["nominal_gain_db"] - ref_db,
+             crit.max_gain_error_db, "dB", None if total is None else total.max_gain_error_db),
+            (band["phase_deg"][0] - ref_deg, band["phase_deg"][1] - ref_deg, band["nominal_phase_deg"] - ref_deg,
+             crit.max_phase_error_deg, "deg", None if total is None else total.max_phase_error_deg))):
+        a = ax[2 + row]
+        a.fill_between(f, lo_e, hi_e, color="#f5b7b1", label=label)
+        a.semilogx(f, nom_e, "--", color="#333", lw=1, label="rounded parts")
+        _limits_and_figure(a, crit.band_hz, limit, fig_value, unit)
     for a in ax:
+        a.axvspan(*crit.band_hz, color="#d6eaf8", alpha=0.5, lw=0)
         a.grid(True, which="both", alpha=0.3)
+        a.set_xlim(f[0], f[-1])
     ax[0].set_ylabel("gain (dB)")
     ax[1].set_ylabel("phase (deg)")
-    ax[1].set_xlabel("frequency (Hz)")
+    ax[2].set_ylabel("gain error (dB)")
+    ax[3].set_ylabel("phase error (deg)")
+    ax[3].set_xlabel("frequency (Hz)  —  shaded: the band of the criteria; dotted: limits")
     ax[0].legend(fontsize=8)
-    ax[0].set_title(f"Monte Carlo: {band['draws']} draws, seed {band['seed']}")
+    ax[2].legend(fontsize=7, loc="lower left")
+    ax[0].set_title(f"Monte Carlo: {band['draws']} draws ({band.get('distribution', 'uniform')}), seed {band['seed']}"
+                    "; errors against the source")
     return _png(fig)
+
+
+def _limits_and_figure(a, band_hz, limit, value, unit) -> None:
+    """Dotted ±limit lines and, over the band, the Monte Carlo figure the verdict uses (the p99 of
+    each draw's largest |error|) as a solid line."""
+    if limit is not None:
+        for s in (-1, 1):
+            a.axhline(s * limit, color="#555", ls=":", lw=1)
+    if value is not None and np.isfinite(value):
+        a.hlines([value, -value], band_hz[0], band_hz[1], color=COLORS[1], lw=1.4,
+                 label=f"p99 of per-draw max: ±{value:.3g} {unit}")
 
 
 def loop_responses(results) -> bytes:
