@@ -41,8 +41,6 @@ def _state_space_result(poles_z, a, b, c, d, t) -> RootForm:
 
 def zoh(analog: Controller, src: RootForm, t: float) -> tuple[RootForm, list[str]]:
     """Zero-order hold equivalent (step invariant): Φ = e^{AT}, Γ = ∫₀ᵀ e^{Aσ}dσ·B."""
-    from scipy.linalg import expm
-
     a, b, c, d = ss.realize(analog.num, analog.den)
     n = a.shape[0]
     if n == 0:
@@ -50,7 +48,7 @@ def zoh(analog: Controller, src: RootForm, t: float) -> tuple[RootForm, list[str
     em = np.zeros((n + 1, n + 1))
     em[:n, :n] = a * t
     em[:n, n:] = b * t
-    e = expm(em)
+    e = ss.expm(em)
     phi, gam = e[:n, :n], e[:n, n:]
     poles = np.exp(np.asarray(src.poles) * t)
     return _state_space_result(poles, phi, gam, c, d, t), []
@@ -59,8 +57,6 @@ def zoh(analog: Controller, src: RootForm, t: float) -> tuple[RootForm, list[str
 def foh(analog: Controller, src: RootForm, t: float) -> tuple[RootForm, list[str]]:
     """First-order (triangle) hold equivalent, the non-causal ramp interpolation between samples
     (the construction scipy.signal.cont2discrete calls 'foh')."""
-    from scipy.linalg import expm
-
     a, b, c, d = ss.realize(analog.num, analog.den)
     n = a.shape[0]
     if n == 0:
@@ -69,7 +65,7 @@ def foh(analog: Controller, src: RootForm, t: float) -> tuple[RootForm, list[str
     em[:n, :n] = a * t
     em[:n, n:n + 1] = b * t
     em[n, n + 1] = 1.0
-    e = expm(em)
+    e = ss.expm(em)
     phi, g1, g2 = e[:n, :n], e[:n, n:n + 1], e[:n, n + 1:]
     bd = g1 - g2 + phi @ g2
     dd = float(d + (c @ g2)[0, 0])
@@ -81,13 +77,11 @@ def impulse(analog: Controller, src: RootForm, t: float) -> tuple[RootForm, list
     """Impulse invariant: C_d(z) = T·Σ_{k≥0} h(kT)·z^-k + D, where h is the impulse response of
     the strictly proper part (h(0) included in full, as scipy does) and D, the direct term, passes
     unchanged."""
-    from scipy.linalg import expm
-
     a, b, c, d = ss.realize(analog.num, analog.den)
     n = a.shape[0]
     if n == 0:
         return RootForm((), (), d, t), []
-    phi = expm(a * t)
+    phi = ss.expm(a * t)
     bd = phi @ b * t
     dd = float((c @ b)[0, 0] * t + d)
     poles = np.exp(np.asarray(src.poles) * t)

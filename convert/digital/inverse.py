@@ -66,6 +66,7 @@ class AnalogReading:
     notes: tuple[str, ...] = ()
 
 
+@ss.small_dense
 def to_analog(digital: Controller, method: str, prewarp_hz: float | None = None, *,
               match_at_hz: float | None = None, den_radius=None) -> Controller:
     """The analog controller whose ``method`` discretization is ``digital``.
@@ -264,8 +265,6 @@ def _from_zoh(digital: Controller, dz: RootForm, t: float) -> RootForm:
     Why not A = logm(Φ) of a realization of the digital controller: a double pole makes that Φ
     nearly defective; the logarithm is backward stable but splits the pair by ~sqrt(eps), its
     eigenvalues then disagree with ln(z)/T, and the numerator lost ~1e-8 relative (measured)."""
-    from scipy.linalg import expm
-
     _refuse_negative_axis(dz.poles, "pole", "zoh")
     rd = dz.relative_degree
     if rd > 1:
@@ -278,7 +277,7 @@ def _from_zoh(digital: Controller, dz: RootForm, t: float) -> RootForm:
     em = np.zeros((n + 1, n + 1))
     em[:n, :n] = a * t
     em[:n, n:] = b * t
-    e = expm(em)
+    e = ss.expm(em)
     phi, gam = e[:n, :n], e[:n, n:]
     # Fit points: the unit circle from well below the lowest pole angle up to just below fs/2.
     roots = np.asarray([r for r in dz.zeros + dz.poles if r != 0], complex)

@@ -15,6 +15,7 @@ import numpy as np
 
 from convert.controller import Controller
 from convert.digital import forward
+from convert.digital import statespace as ss
 from convert.digital.roots import RootForm
 from convert.errors import InputError, UnrealizableError
 from convert.jsonable import roots_json
@@ -143,6 +144,7 @@ def _refuse_overflowing_poles(controller: Controller, t: float) -> None:
                 key="controller")
 
 
+@ss.small_dense
 def discretize(controller: Controller, fs_hz: float, method: str, *, prewarp_hz: float | None = None,
                match_at_hz: float | None = None, keep_delay: bool = False) -> DigitalRealization:
     """The digital form of an analog ``controller`` at sample rate ``fs_hz`` (Hz) by ``method``
