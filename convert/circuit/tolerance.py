@@ -182,6 +182,9 @@ class TailSelection:
         Returns the columns of row 0 that may still be selected (the others are out for good)."""
         x = np.asarray(x)
         rows, n = x.shape
+        if self.vals.dtype != x.dtype and x.dtype == np.float32 and not self._wait and self.count.max() == 0:
+            self.vals = self.vals.astype(np.float32)  # float32 data: float32 tails (exact, half the memory)
+            self._thr = self._thr.astype(np.float32)
         if finite or np.isfinite(x.sum(axis=1)).all():  # a fast reduction finds blocks that need a look
             self.count += n
             bad = None
@@ -197,7 +200,7 @@ class TailSelection:
         if bad is not None:
             mask &= ~bad
         if self.pay is None and self._thr.min() == -np.inf:  # the first block: everything is a candidate
-            cand = np.where(mask, -x if self.lower else x, -np.inf).astype(float)
+            cand = np.where(mask, -x if self.lower else x, -np.inf).astype(self.vals.dtype)
             self._wait.append(cand)
             self._waiting += n
             if self._waiting >= self.m:
@@ -212,8 +215,8 @@ class TailSelection:
         c = int(counts.max())
         starts = np.cumsum(counts) - counts
         pos = np.arange(r_idx.size) - starts[r_idx]
-        cand = np.full((rows, c), -np.inf)
-        vals = x.ravel()[idx].astype(float)
+        cand = np.full((rows, c), -np.inf, dtype=self.vals.dtype)
+        vals = x.ravel()[idx]
         cand[r_idx, pos] = -vals if self.lower else vals
         if self.pay is not None:
             cp = np.full((rows, c), -1, dtype=np.int64)
@@ -287,12 +290,14 @@ class RowPercentiles:
     def __init__(self, rows: int, total: int, q: Sequence[float] = BAND_PERCENTILES):
         lo_q, hi_q = q
         self.q = (float(lo_q), float(hi_q))
-        self.low = TailSelection(rows, _upper_need(100.0 - lo_q, total))
+        self.low = TailSelection(rows, _upper_need(100.0 - lo_q, total), lower=True)
         self.high = TailSelection(rows, _upper_need(hi_q, total))
 
-    def add(self, x: np.ndarray) -> None:
-        self.high.add(x)
-        self.low.add(-x)
+    def add(self, x: np.ndarray, *, finite: bool = False) -> None:
+        with np.errstate(over="ignore", invalid="ignore"):
+            finite = finite or bool(np.isfinite(x.sum()))  # one fast reduction for both tails
+        self.high.add(x, finite=finite)
+        self.low.add(x, finite=finite)
 
     def result(self, transform=None) -> np.ndarray:
         """(2, rows): the low and high percentile, ``transform`` (monotone increasing) applied to the
@@ -342,7 +347,7 @@ class _PolyGrid:
     work runs in blocks of frequency rows small enough to stay in cache, and the outputs and
     temporaries are buffers reused from chunk to chunk."""
 
-    BLOCK = 24
+    BLOCK = 16
 
     def __init__(self, f_hz: np.ndarray, dtype=np.float32):
         w = 2 * np.pi * np.asarray(f_hz, dtype=float)
@@ -620,7 +625,19 @@ def _responses(topology, parts: dict, f: np.ndarray, opamp, sign: float) -> np.n
 def _chunk_proxies(topology, parts: dict, grid: _PolyGrid | None, f: np.ndarray, opamp, sign: float,
                    refs: list[np.ndarray], cache: dict):
     """[(g, d)] per reference for one chunk on one grid: float32 from the coefficients (ideal
-    op-amp), or float64 from the op-amp model's responses."""
+    op-amp), or float64 from the op-amp model's responses. Equal references share one result."""
+    first: list[int] = []
+    for i, r in enumerate(refs):
+        same = [j for j in first if refs[j].shape == r.shape and np.array_equal(refs[j], r)]
+        first.append(same[0] if same else i)
+    distinct = sorted(set(first))
+    out = _chunk_proxies_distinct(topology, parts, grid, f, opamp, sign, [refs[j] for j in distinct], cache)
+    by = dict(zip(distinct, out))
+    return [by[j] for j in first]
+
+
+def _chunk_proxies_distinct(topology, parts: dict, grid: _PolyGrid | None, f: np.ndarray, opamp, sign: float,
+                            refs: list[np.ndarray], cache: dict):
     if (opamp is None or getattr(opamp, "ideal", False)) and grid is not None:
         with np.errstate(invalid="ignore", divide="ignore"):
             num, den = topology.coefficients(parts)
@@ -704,7 +721,7 @@ def run_tolerances(topology, parts: Mapping[str, float], tolerances: Mapping[str
                     cache["loop"] = parts_h[1]
                 if model_disp:
                     cache["disp"] = parts_h[-1].T
-            refs = [c.reference for c, _ in members]
+            refs = [np.asarray(c.reference, dtype=complex) for c, _ in members]
             shared = share_display and gkey is None
             proxies = _chunk_proxies(topology, drawn, band_grid, band_f, opamp, sign,
                                      refs + ([h_nom] if shared else []), cache)
