@@ -339,6 +339,22 @@ def diamond_to_deg(d: np.ndarray) -> np.ndarray:
     return np.degrees(np.arctan2(r, x))
 
 
+def _cmul(ar, ai, br, bi, out_r, out_i, tmp, *, conj: bool = False) -> None:
+    """(ar + j·ai)·(br ± j·bi) into ``out_r``, ``out_i`` (``conj``: the minus sign), in place."""
+    np.multiply(ar, br, out=out_r)
+    np.multiply(ai, bi, out=tmp)
+    if conj:
+        out_r += tmp
+    else:
+        out_r -= tmp
+    np.multiply(ai, br, out=out_i)
+    np.multiply(ar, bi, out=tmp)
+    if conj:
+        out_i -= tmp
+    else:
+        out_i += tmp
+
+
 class _PolyGrid:
     """|ratio|² and the diamond angle of ratio = N(jω)/(D(jω)·ref(ω)) for many coefficient sets,
     on one frequency grid, in real arithmetic (float32 by default).
@@ -397,24 +413,13 @@ class _PolyGrid:
                         np.multiply(col[rows], row, out=tmp)
                         out += tmp
             nr, ni, dr, di, pr, pi, d2, qr, qi = (v[k] for k in ("nr", "ni", "dr", "di", "pr", "pi", "d2", "qr", "qi"))
-            np.multiply(nr, dr, out=pr)
-            np.multiply(ni, di, out=tmp)
-            pr += tmp
-            np.multiply(ni, dr, out=pi)
-            np.multiply(nr, di, out=tmp)
-            pi -= tmp
+            _cmul(nr, ni, dr, di, pr, pi, tmp, conj=True)  # N·conj(D)
             np.multiply(dr, dr, out=d2)
             np.multiply(di, di, out=tmp)
             d2 += tmp
             d2 *= d2
             for (cr, ci), (g_out, d_out) in zip(cs, outs):
-                cr_b, ci_b = cr[rows], ci[rows]
-                np.multiply(pr, cr_b, out=qr)
-                np.multiply(pi, ci_b, out=tmp)
-                qr -= tmp
-                np.multiply(pr, ci_b, out=qi)
-                np.multiply(pi, cr_b, out=tmp)
-                qi += tmp
+                _cmul(pr, pi, cr[rows], ci[rows], qr, qi, tmp)
                 g = g_out[rows]
                 np.multiply(qr, qr, out=g)
                 np.multiply(qi, qi, out=tmp)
