@@ -84,7 +84,8 @@ def _same(a, b) -> None:
 
 
 def test_figures_do_not_depend_on_the_chunk_size():
-    """The same seed in chunks of 1, 97, 500 and all draws at once gives identical figures
+    """The same seed in chunks of 1, 97, 500 and all draws at once, on one to three threads, gives
+    identical figures
     (bands, per-draw maxima, where they lie, design quantities), also with a loop, a plant and a
     single-pole op-amp model (python-control's margins are not needed: equality is the claim)."""
     from convert.circuit.opamp import OpAmpModel
@@ -101,7 +102,7 @@ def test_figures_do_not_depend_on_the_chunk_size():
     comps = [Comparison("tolerances", ref, None, ref_l), Comparison("total", ref * 1.01, model, ref_l)]
     kw = dict(f=f, comparisons=comps, draws=1000, seed=5, loop_f_hz=loop_f, display_opamp=model,
               loop_margins=lambda r: margins_of_responses(loop_f, r, plant, 0.2))
-    runs = [_run(chunk=c, **kw) for c in (1000, 1, 97, 500)]
+    runs = [_run(chunk=c, workers=w, **kw) for c, w in ((1000, 1), (1, 1), (97, 2), (500, 2), (97, 3))]
     for other in runs[1:]:
         _same(runs[0], other)
     tot = runs[0].figures["total"]

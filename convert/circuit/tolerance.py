@@ -172,14 +172,17 @@ class TailSelection:
         self.keep_inf = keep_inf
         self.lower = lower
         self.pay = np.full((rows, self.m), -1, dtype=np.int64) if payload else None
+        self.aux = np.full((rows, self.m), np.nan) if payload else None  # a number carried with each value
+        self._wait_aux: list = []
         self._thr = self.vals[:, :1].copy()
         self._wait: list = []
         self._wait_pay: list = []
         self._waiting = 0
 
-    def add(self, x: np.ndarray, payload: np.ndarray | None = None, *, finite: bool = False) -> np.ndarray:
+    def add(self, x: np.ndarray, payload: np.ndarray | None = None, aux=None, *, finite: bool = False) -> None:
         """Take the block ``x`` (rows, n); ``finite=True`` when the caller knows every value is finite.
-        Returns the columns of row 0 that may still be selected (the others are out for good)."""
+        With payloads, ``aux(columns)`` gives the number carried with each value that passed the
+        threshold (computed for those columns only)."""
         x = np.asarray(x)
         rows, n = x.shape
         if self.vals.dtype != x.dtype and x.dtype == np.float32 and not self._wait and self.count.max() == 0:
@@ -205,10 +208,10 @@ class TailSelection:
             self._waiting += n
             if self._waiting >= self.m:
                 self._merge()
-            return np.flatnonzero(mask[0])
+            return
         idx = np.flatnonzero(mask)
         if idx.size == 0:
-            return idx
+            return
         r_idx = idx // n
         c_idx = idx - r_idx * n
         counts = np.bincount(r_idx, minlength=rows)
@@ -222,11 +225,14 @@ class TailSelection:
             cp = np.full((rows, c), -1, dtype=np.int64)
             cp[r_idx, pos] = payload[c_idx]
             self._wait_pay.append(cp)
+            ca = np.full((rows, c), np.nan)
+            if aux is not None:
+                ca[r_idx, pos] = aux(c_idx)
+            self._wait_aux.append(ca)
         self._wait.append(cand)
         self._waiting += c
         if self._waiting >= self.m:
             self._merge()
-        return c_idx[r_idx == 0]
 
     def _merge(self) -> None:
         if not self._wait:
@@ -238,24 +244,36 @@ class TailSelection:
             self.vals = np.partition(merged, k, axis=1)[:, k:]
         else:
             mp = np.concatenate([self.pay] + self._wait_pay, axis=1)
-            self._wait_pay = []
+            ma = np.concatenate([self.aux] + self._wait_aux, axis=1)
+            self._wait_pay, self._wait_aux = [], []
             big = np.iinfo(np.int64).max
             for r in range(merged.shape[0]):  # payload rows are few (scalar figures): a sort with a tie rule
                 order = np.lexsort((np.where(mp[r] < 0, big, mp[r]), -merged[r]))[:self.m]
-                self.vals[r], self.pay[r] = merged[r, order], mp[r, order]
+                self.vals[r], self.pay[r], self.aux[r] = merged[r, order], mp[r, order], ma[r, order]
         self._thr = self.vals.min(axis=1, keepdims=True)
 
-    def held(self) -> np.ndarray:
-        """Payloads of row 0 kept or waiting (the draws that may still be selected)."""
-        return np.concatenate([self.pay[0]] + [w[0] for w in self._wait_pay])
+    def merge(self, other: "TailSelection") -> None:
+        """Take in another selection over a different part of the same stream (exact)."""
+        other._merge()
+        if self.vals.dtype != other.vals.dtype:
+            self.vals = self.vals.astype(float)
+            self._thr = self._thr.astype(float)
+        self.count += other.count
+        self._wait.append(other.vals.astype(self.vals.dtype))
+        if self.pay is not None:
+            self._wait_pay.append(other.pay)
+            self._wait_aux.append(other.aux)
+        self._waiting += other.m
+        self._merge()
 
-    def sorted_desc(self) -> tuple[np.ndarray, np.ndarray | None]:
-        """The kept values, largest first (rows, m), and their payloads."""
+    def sorted_desc(self) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
+        """The kept values, largest first (rows, m), and their payloads and carried numbers."""
         self._merge()
         if self.pay is None:
-            return -np.sort(-self.vals, axis=1), None
+            return -np.sort(-self.vals, axis=1), None, None
         order = np.lexsort((np.where(self.pay < 0, np.iinfo(np.int64).max, self.pay), -self.vals), axis=1)
-        return np.take_along_axis(self.vals, order, 1), np.take_along_axis(self.pay, order, 1)
+        return (np.take_along_axis(self.vals, order, 1), np.take_along_axis(self.pay, order, 1),
+                np.take_along_axis(self.aux, order, 1))
 
 
 def _upper_need(q: float, n: int) -> int:
@@ -265,11 +283,11 @@ def _upper_need(q: float, n: int) -> int:
 
 def _upper_percentile(sel: TailSelection, q: float, transform=None):
     """The q-th percentile per row (numpy's linear method) from the kept top values, the
-    transform applied to the two order statistics first; with the payload of the nearer one.
-    Rows with no value give NaN (payload -1)."""
-    top, pay = sel.sorted_desc()
+    transform applied to the two order statistics first; with the carried number of the nearer
+    one (the value nearest the percentile). Rows with no value give NaN."""
+    top, pay, aux = sel.sorted_desc()
     tf = transform or (lambda v: v)
-    out, nearest = np.full(top.shape[0], np.nan), np.full(top.shape[0], -1, dtype=np.int64)
+    out, nearest = np.full(top.shape[0], np.nan), np.full(top.shape[0], np.nan)
     for r, n in enumerate(sel.count):
         if n == 0:
             continue
@@ -278,8 +296,8 @@ def _upper_percentile(sel: TailSelection, q: float, transform=None):
         hi = min(lo + 1, n - 1)
         a, b = tf(top[r, n - 1 - lo]), tf(top[r, n - 1 - hi])
         out[r] = a + (h - lo) * (b - a)
-        if pay is not None:
-            nearest[r] = pay[r, n - 1 - (lo if h - lo <= 0.5 else hi)]
+        if aux is not None:
+            nearest[r] = aux[r, n - 1 - (lo if h - lo <= 0.5 else hi)]
     return out, nearest
 
 
@@ -298,6 +316,10 @@ class RowPercentiles:
             finite = finite or bool(np.isfinite(x.sum()))  # one fast reduction for both tails
         self.high.add(x, finite=finite)
         self.low.add(x, finite=finite)
+
+    def merge(self, other: "RowPercentiles") -> None:
+        self.high.merge(other.high)
+        self.low.merge(other.low)
 
     def result(self, transform=None) -> np.ndarray:
         """(2, rows): the low and high percentile, ``transform`` (monotone increasing) applied to the
@@ -475,17 +497,17 @@ MARGIN_FIELDS = (("phase_margin_deg", "delta_phase_margin_deg"), ("gain_margin_d
 
 
 class _FigureReducer:
-    """Per-draw maxima over the band and margin changes of one comparison, reduced chunk by chunk."""
+    """Per-draw maxima over the band and margin changes of one comparison, reduced chunk by chunk.
+    Where each kept draw's largest error lies, and each kept margin change's sign, travel with the
+    selection (no per-draw bookkeeping beside it)."""
 
     def __init__(self, key: str, f_hz: np.ndarray, total: int, percentile: float, ref_margins: dict | None):
         self.key, self.f, self.q = key, f_hz, percentile
         need = _upper_need(percentile, total)
         self.gain = TailSelection(1, need, keep_inf=True, payload=True)
         self.phase = TailSelection(1, need, keep_inf=True, payload=True)
-        self.at = {}  # draw number -> (gain at index, phase at index), only for kept draws
         self.ref_margins = ref_margins
         self.margins = {name: TailSelection(1, need, payload=True) for name, _ in MARGIN_FIELDS} if ref_margins else {}
-        self.signs: dict[str, dict] = {name: {} for name in self.margins}
         self.total = 0
 
     def add_band(self, g: np.ndarray, d: np.ndarray, exact: Callable[[np.ndarray], np.ndarray], first: int) -> None:
@@ -502,25 +524,26 @@ class _FigureReducer:
         gain_db = np.where(np.isnan(gain_db), np.inf, gain_db)
         phase_deg = np.abs(diamond_to_deg(d_max))
         far = np.nonzero(~(d_max <= 1.5))[0]  # beyond ±135° (or NaN): unwrap exactly
-        far_at = {}
+        far_at = np.full(n, -1)
         if far.size:
             from convert.compare.frequency import unwrapped_phase_error_deg
 
             err = np.nan_to_num(np.abs(unwrapped_phase_error_deg(exact(far))), nan=180.0)
             phase_deg[far] = err.max(axis=1)
-            far_at = dict(zip(far.tolist(), err.argmax(axis=1).tolist()))
-        new = np.union1d(self.gain.add(gain_db[None, :], ids), self.phase.add(phase_deg[None, :], ids))
-        if new.size:
+            far_at[far] = err.argmax(axis=1)
+
+        def gain_at(cols):
             with np.errstate(invalid="ignore"):
-                gs = g[:, new]
-                g_at = np.where(up[new], np.nanargmax(np.where(np.isnan(gs), -np.inf, gs), axis=0),
+                gs = g[:, cols]
+                return np.where(up[cols], np.argmax(np.where(np.isnan(gs), -np.inf, gs), axis=0),
                                 np.argmin(np.where(np.isnan(gs), np.inf, gs), axis=0))
-                p_at = np.argmax(np.abs(np.nan_to_num(d[:, new], nan=np.inf)), axis=0)
-            for j, ga, pa in zip(new.tolist(), g_at.tolist(), p_at.tolist()):
-                self.at[int(ids[j])] = (ga, far_at.get(j, pa))
-        if len(self.at) > 2 * (self.gain.m + self.phase.m):
-            keep = set(np.concatenate([self.gain.held(), self.phase.held()]).tolist())
-            self.at = {k: v for k, v in self.at.items() if k in keep}
+
+        def phase_at(cols):
+            at = np.argmax(np.abs(np.nan_to_num(d[:, cols], nan=np.inf)), axis=0)
+            return np.where(far_at[cols] >= 0, far_at[cols], at)
+
+        self.gain.add(gain_db[None, :], ids, gain_at)
+        self.phase.add(phase_deg[None, :], ids, phase_at)
         self.total += n
 
     def add_margins(self, m: dict, first: int) -> None:
@@ -528,35 +551,28 @@ class _FigureReducer:
         ids = np.arange(first, first + n, dtype=np.int64)
         for name, _ in MARGIN_FIELDS:
             delta = np.asarray(m[name], dtype=float) - float(self.ref_margins[name][0])
-            new = self.margins[name].add(np.abs(delta)[None, :], ids)
-            signs = self.signs[name]
-            for j in new.tolist():
-                signs[int(ids[j])] = float(delta[j])
-            if len(signs) > 2 * self.margins[name].m:
-                keep = set(self.margins[name].held().tolist())
-                self.signs[name] = {k: v for k, v in signs.items() if k in keep}
+            self.margins[name].add(np.abs(delta)[None, :], ids, lambda cols, delta=delta: delta[cols])
+
+    def merge(self, other: "_FigureReducer") -> None:
+        self.gain.merge(other.gain)
+        self.phase.merge(other.phase)
+        for name, sel in self.margins.items():
+            sel.merge(other.margins[name])
+        self.total += other.total
 
     def result(self) -> DrawnFigures:
-        g, g_draw = _upper_percentile(self.gain, self.q)
-        p, p_draw = _upper_percentile(self.phase, self.q)
+        g, g_at = _upper_percentile(self.gain, self.q)
+        p, p_at = _upper_percentile(self.phase, self.q)
         out = dict(key=self.key, percentile=self.q, max_gain_error_db=float(g[0]),
-                   max_gain_error_at_hz=float(self.f[self.at[int(g_draw[0])][0]]), max_phase_error_deg=float(p[0]),
-                   max_phase_error_at_hz=float(self.f[self.at[int(p_draw[0])][1]]))
+                   max_gain_error_at_hz=float(self.f[int(g_at[0])]), max_phase_error_deg=float(p[0]),
+                   max_phase_error_at_hz=float(self.f[int(p_at[0])]))
         without = {}
         for name, attr in MARGIN_FIELDS:
             if name not in self.margins:
                 continue
             sel = self.margins[name]
-            level, draw = _upper_percentile(sel, self.q)
-            if sel.count[0] == 0:
-                out[attr] = None
-            else:
-                # the signed change of the kept draw whose |change| is nearest the level
-                top, pay = sel.sorted_desc()
-                n = int(sel.count[0])
-                vals = top[0, :min(n, sel.m)]
-                j = int(np.argmin(np.abs(vals - level[0])))
-                out[attr] = self.signs[name][int(pay[0, j])]
+            _, signed = _upper_percentile(sel, self.q)  # the signed change of the draw nearest the level
+            out[attr] = None if sel.count[0] == 0 else float(signed[0])
             if sel.count[0] < self.total:
                 without[name] = int(self.total - sel.count[0])
         return DrawnFigures(**out, draws_without=without)
@@ -617,6 +633,22 @@ class ToleranceRun:
         return out
 
 
+SUB_BLOCK = 256  # draws per float64 evaluation inside a chunk (op-amp model, loop margins): caps temporaries
+
+
+def _by_rows(fn: Callable[[dict], object], parts: dict, size: int = SUB_BLOCK):
+    """``fn`` over the draws of ``parts`` in blocks of ``size``, results stacked along the first
+    axis (arrays) or per key (dicts of arrays). Each draw's result is its own, so the blocks change
+    nothing but the memory the temporaries take."""
+    n = len(next(iter(parts.values())))
+    if n <= size:
+        return fn(parts)
+    outs = [fn({k: v[i:i + size] for k, v in parts.items()}) for i in range(0, n, size)]
+    if isinstance(outs[0], dict):
+        return {k: np.concatenate([o[k] for o in outs]) for k in outs[0]}
+    return np.concatenate(outs)
+
+
 def _responses(topology, parts: dict, f: np.ndarray, opamp, sign: float) -> np.ndarray:
     """sign · F(j2πf) for the chunk's parts (n, F), float64; with a (non-ideal) op-amp model."""
     if opamp is None or getattr(opamp, "ideal", False):
@@ -624,7 +656,7 @@ def _responses(topology, parts: dict, f: np.ndarray, opamp, sign: float) -> np.n
             return sign * topology.response(parts, f)
     from convert.circuit.opamp import gbw_response
 
-    return sign * np.atleast_2d(gbw_response(topology, parts, f, opamp))
+    return _by_rows(lambda p: sign * np.atleast_2d(gbw_response(topology, p, f, opamp)), parts)
 
 
 def _chunk_proxies(topology, parts: dict, grid: _PolyGrid | None, f: np.ndarray, opamp, sign: float,
@@ -659,90 +691,58 @@ def _chunk_proxies_distinct(topology, parts: dict, grid: _PolyGrid | None, f: np
     return out
 
 
-def run_tolerances(topology, parts: Mapping[str, float], tolerances: Mapping[str, float], *, band_f_hz,
-                   comparisons: Sequence[Comparison], draws: int = DEFAULT_DRAWS, seed: int = 1,
-                   distribution: str = DEFAULT_DISTRIBUTION, sign: float = 1.0, loop_f_hz=None,
-                   loop_margins: Callable | None = None, display_f_hz=None, display_opamp=None,
-                   percentile: float = FIGURE_PERCENTILE, band_percentiles: Sequence[float] = BAND_PERCENTILES,
-                   parameters: bool = True, chunk: int = DEFAULT_CHUNK, dtype=np.float32) -> ToleranceRun:
-    """The Monte Carlo of a circuit's part tolerances, in chunks (see the module docstring).
+class _Worker:
+    """The reductions of one share of the chunks (its own buffers and selections); shares are
+    merged exactly at the end, so the figures do not depend on how chunks were shared out."""
 
-    ``parts``: the rounded parts (ohms, farads); ``sign``: the realized sign (±1) applied to the
-    topology's positive form. For each :class:`Comparison` the per-draw maxima over ``band_f_hz``
-    (Hz) and, when ``loop_margins`` is given (``margins(responses (N, F_loop)) -> dict of
-    arrays``, :func:`convert.compare.loop.margins_of_responses`), the margin changes on
-    ``loop_f_hz``. ``display_f_hz``: where the gain/phase band is wanted (with
-    ``display_opamp``). ``dtype``: arithmetic of the coefficient path (float32; np.float64 to
-    check it). Returns :class:`ToleranceRun`."""
-    draws = check_draws(draws)
-    chunk = max(1, int(chunk))
-    source = PartDraws(topology, parts, tolerances, seed, distribution)
-    band_f = np.asarray(band_f_hz, dtype=float)
-    band_grid = _PolyGrid(band_f, dtype)
-    loop_f = None if loop_f_hz is None else np.asarray(loop_f_hz, dtype=float)
-    nominal = {k: np.asarray([v]) for k, v in source.nominal.items()}
-    reducers = []
-    for c in comparisons:
-        ref_m = None
-        if loop_margins is not None and c.loop_reference is not None:
-            ref_m = loop_margins(np.atleast_2d(c.loop_reference))
-        reducers.append(_FigureReducer(c.key, band_f, draws, percentile, ref_m))
-    groups: dict = {}
-    for c, red in zip(comparisons, reducers):
-        ideal = c.opamp is None or c.opamp.ideal
-        groups.setdefault(None if ideal else id(c.opamp), []).append((c, red))
-    disp_g = disp_d = None
-    share_display = False
-    if display_f_hz is not None:
-        disp_f = np.asarray(display_f_hz, dtype=float)
-        ideal_display = display_opamp is None or display_opamp.ideal
-        share_display = ideal_display and disp_f.shape == band_f.shape and np.array_equal(disp_f, band_f)
-        disp_grid = band_grid if share_display else _PolyGrid(disp_f, dtype)
-        h_nom = _responses(topology, nominal, disp_f, display_opamp, sign)[0]
-        disp_g = RowPercentiles(disp_f.size, draws, band_percentiles)
-        disp_d = RowPercentiles(disp_f.size, draws, band_percentiles)
-    par_sel = None
-    with np.errstate(divide="ignore", invalid="ignore"):
-        p_nom = {k: float(np.asarray(v).ravel()[0]) for k, v in topology.parameters(nominal).items()} \
-            if parameters else {}
-    p_names = [k for k, v in p_nom.items() if math.isfinite(v)]
-    if p_names:
-        par_sel = RowPercentiles(len(p_names), draws, band_percentiles)
-    first = 0
-    for drawn in source.chunks(draws, chunk):
+    def __init__(self, run: dict):
+        self.r = run
+        dtype = run["dtype"]
+        self.band_grid = _PolyGrid(run["band_f"], dtype)
+        self.reducers = [_FigureReducer(c.key, run["band_f"], run["draws"], run["percentile"], ref_m)
+                         for c, ref_m in zip(run["comparisons"], run["ref_margins"])]
+        self.groups: dict = {}
+        for c, red in zip(run["comparisons"], self.reducers):
+            ideal = c.opamp is None or c.opamp.ideal
+            self.groups.setdefault(None if ideal else id(c.opamp), []).append((c, red))
+        self.disp_g = self.disp_d = self.par_sel = None
+        if run["disp_f"] is not None:
+            self.disp_grid = self.band_grid if run["share_display"] else _PolyGrid(run["disp_f"], dtype)
+            self.disp_g = RowPercentiles(run["disp_f"].size, run["draws"], run["band_percentiles"])
+            self.disp_d = RowPercentiles(run["disp_f"].size, run["draws"], run["band_percentiles"])
+        if run["p_names"]:
+            self.par_sel = RowPercentiles(len(run["p_names"]), run["draws"], run["band_percentiles"])
+
+    def process(self, drawn: dict, first: int) -> None:
+        r = self.r
+        topology, sign, band_f, loop_f, disp_f = r["topology"], r["sign"], r["band_f"], r["loop_f"], r["disp_f"]
         n = len(next(iter(drawn.values())))
         done_display = False
-        for gkey, members in groups.items():
+        for gkey, members in self.groups.items():
             opamp = None if gkey is None else members[0][0].opamp
             cache: dict = {}
-            model_disp = disp_g is not None and opamp is not None and display_opamp is opamp
+            model_disp = self.disp_g is not None and opamp is not None and r["display_opamp"] is opamp
             if opamp is not None:  # one stage-by-stage solution over every grid this model needs
                 grids = [band_f] + ([loop_f] if loop_f is not None else []) + ([disp_f] if model_disp else [])
                 h_all = _responses(topology, drawn, np.concatenate(grids), opamp, sign)
-                cuts = np.cumsum([g.size for g in grids])[:-1]
-                parts_h = np.split(h_all, cuts, axis=1)
+                parts_h = np.split(h_all, np.cumsum([g.size for g in grids])[:-1], axis=1)
                 cache["h"] = parts_h[0].T
                 if loop_f is not None:
                     cache["loop"] = parts_h[1]
                 if model_disp:
                     cache["disp"] = parts_h[-1].T
             refs = [np.asarray(c.reference, dtype=complex) for c, _ in members]
-            shared = share_display and gkey is None
-            proxies = _chunk_proxies(topology, drawn, band_grid, band_f, opamp, sign,
-                                     refs + ([h_nom] if shared else []), cache)
-            if shared:
-                g, d = proxies.pop()
-                disp_g.add(g)
-                disp_d.add(d)
-                done_display = True
-            elif model_disp:
-                (g, d), = _chunk_proxies(topology, drawn, None, disp_f, opamp, sign, [h_nom], {"h": cache["disp"]})
-                disp_g.add(g)
-                disp_d.add(d)
+            shared = r["share_display"] and gkey is None
+            proxies = _chunk_proxies(topology, drawn, self.band_grid, band_f, opamp, sign,
+                                     refs + ([r["h_nom"]] if shared else []), cache)
+            if shared or model_disp:
+                g, d = proxies.pop() if shared else _chunk_proxies(topology, drawn, None, disp_f, opamp, sign,
+                                                                   [r["h_nom"]], {"h": cache["disp"]})[0]
+                self.disp_g.add(g)
+                self.disp_d.add(d)
                 done_display = True
             loop_m = None
-            for (c, red), (g, d) in zip(members, proxies):
-                ref = np.asarray(c.reference, dtype=complex)
+            for (c, red), (g, d), ref in zip(members, proxies, refs):
 
                 def exact(idx, ref=ref, opamp=opamp):
                     sub = {k: v[idx] for k, v in drawn.items()}
@@ -751,33 +751,127 @@ def run_tolerances(topology, parts: Mapping[str, float], tolerances: Mapping[str
                 red.add_band(g, d, exact, first)
                 if red.ref_margins is not None:
                     if loop_m is None:
-                        h_loop = cache["loop"] if "loop" in cache else _responses(topology, drawn, loop_f, opamp, sign)
-                        loop_m = loop_margins(h_loop)
+                        if "loop" in cache:
+                            h_loop = cache["loop"]
+                            loop_m = _by_rows(lambda p: r["loop_margins"](h_loop[p["i"]]),
+                                              {"i": np.arange(h_loop.shape[0])})
+                        else:
+                            loop_m = _by_rows(lambda p: r["loop_margins"](_responses(topology, p, loop_f, opamp, sign)),
+                                              drawn)
                     red.add_margins(loop_m, first)
-        if disp_g is not None and not done_display:
-            (g, d), = _chunk_proxies(topology, drawn, disp_grid, disp_f, display_opamp, sign, [h_nom], {})
-            disp_g.add(g)
-            disp_d.add(d)
-        if par_sel is not None:
+        if self.disp_g is not None and not done_display:
+            (g, d), = _chunk_proxies(topology, drawn, self.disp_grid, disp_f, r["display_opamp"], sign, [r["h_nom"]],
+                                     {})
+            self.disp_g.add(g)
+            self.disp_d.add(d)
+        if self.par_sel is not None:
             with np.errstate(divide="ignore", invalid="ignore"):
                 pv = topology.parameters(drawn)
-            par_sel.add(np.vstack([np.broadcast_to(np.asarray(pv[k], dtype=float), (n,)) for k in p_names]))
-        first += n
+            self.par_sel.add(np.vstack([np.broadcast_to(np.asarray(pv[k], dtype=float), (n,)) for k in r["p_names"]]))
+
+    def merge(self, other: "_Worker") -> None:
+        for a, b in zip(self.reducers, other.reducers):
+            a.merge(b)
+        for a, b in ((self.disp_g, other.disp_g), (self.disp_d, other.disp_d), (self.par_sel, other.par_sel)):
+            if a is not None:
+                a.merge(b)
+
+
+def _workers(draws: int, chunk: int, workers: int | None) -> int:
+    if workers is None:
+        import os
+
+        workers = min(2, os.cpu_count() or 1)
+    return max(1, min(int(workers), -(-draws // chunk)))
+
+
+def run_tolerances(topology, parts: Mapping[str, float], tolerances: Mapping[str, float], *, band_f_hz,
+                   comparisons: Sequence[Comparison], draws: int = DEFAULT_DRAWS, seed: int = 1,
+                   distribution: str = DEFAULT_DISTRIBUTION, sign: float = 1.0, loop_f_hz=None,
+                   loop_margins: Callable | None = None, display_f_hz=None, display_opamp=None,
+                   percentile: float = FIGURE_PERCENTILE, band_percentiles: Sequence[float] = BAND_PERCENTILES,
+                   parameters: bool = True, chunk: int = DEFAULT_CHUNK, dtype=np.float32,
+                   workers: int | None = None) -> ToleranceRun:
+    """The Monte Carlo of a circuit's part tolerances, in chunks (see the module docstring).
+
+    ``parts``: the rounded parts (ohms, farads); ``sign``: the realized sign (±1) applied to the
+    topology's positive form. For each :class:`Comparison` the per-draw maxima over ``band_f_hz``
+    (Hz) and, when ``loop_margins`` is given (``margins(responses (N, F_loop)) -> dict of
+    arrays``, :func:`convert.compare.loop.margins_of_responses`), the margin changes on
+    ``loop_f_hz``. ``display_f_hz``: where the gain/phase band is wanted (with
+    ``display_opamp``). ``dtype``: arithmetic of the coefficient path (float32; np.float64 to
+    check it). ``workers``: threads sharing the chunks (default: up to two cores; the draws are
+    made in order on this thread and every selection merges exactly, so the figures are the same
+    for any count). Returns :class:`ToleranceRun`."""
+    draws = check_draws(draws)
+    chunk = max(1, int(chunk))
+    source = PartDraws(topology, parts, tolerances, seed, distribution)
+    band_f = np.asarray(band_f_hz, dtype=float)
+    loop_f = None if loop_f_hz is None else np.asarray(loop_f_hz, dtype=float)
+    nominal = {k: np.asarray([v]) for k, v in source.nominal.items()}
+    ref_margins = [loop_margins(np.atleast_2d(c.loop_reference))
+                   if loop_margins is not None and c.loop_reference is not None else None for c in comparisons]
+    disp_f = h_nom = None
+    share_display = False
+    if display_f_hz is not None:
+        disp_f = np.asarray(display_f_hz, dtype=float)
+        ideal_display = display_opamp is None or display_opamp.ideal
+        share_display = ideal_display and disp_f.shape == band_f.shape and np.array_equal(disp_f, band_f)
+        h_nom = _responses(topology, nominal, disp_f, display_opamp, sign)[0]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        p_nom = {k: float(np.asarray(v).ravel()[0]) for k, v in topology.parameters(nominal).items()} \
+            if parameters else {}
+    p_names = [k for k, v in p_nom.items() if math.isfinite(v)]
+    run = dict(topology=topology, sign=sign, band_f=band_f, loop_f=loop_f, disp_f=disp_f, h_nom=h_nom,
+               share_display=share_display, display_opamp=display_opamp, comparisons=list(comparisons),
+               ref_margins=ref_margins, loop_margins=loop_margins, draws=draws, percentile=percentile,
+               band_percentiles=band_percentiles, p_names=p_names, dtype=dtype)
+    crew = [_Worker(run) for _ in range(_workers(draws, chunk, workers))]
+    batch: list = []
+    first = 0
+
+    def flush(pool) -> None:
+        if pool is None:
+            for w, (drawn, at) in zip(crew, batch):
+                w.process(drawn, at)
+        else:
+            for fut in [pool.submit(w.process, drawn, at) for w, (drawn, at) in zip(crew, batch)]:
+                fut.result()
+        batch.clear()
+
+    pool = None
+    if len(crew) > 1:
+        from concurrent.futures import ThreadPoolExecutor
+
+        pool = ThreadPoolExecutor(len(crew), thread_name_prefix="tolerance")
+    try:
+        for drawn in source.chunks(draws, chunk):
+            batch.append((drawn, first))
+            first += len(next(iter(drawn.values())))
+            if len(batch) == len(crew):
+                flush(pool)
+        flush(pool)
+    finally:
+        if pool is not None:
+            pool.shutdown()
+    lead = crew[0]
+    for w in crew[1:]:
+        lead.merge(w)
     band = None
-    if disp_g is not None:
-        lohi_g, lohi_d = disp_g.result(), disp_d.result()
+    if lead.disp_g is not None:
+        lohi_g, lohi_d = lead.disp_g.result(), lead.disp_d.result()
         nom_db = 20 * np.log10(np.abs(h_nom))
         nom_deg = np.degrees(np.unwrap(np.angle(h_nom)))
         with np.errstate(divide="ignore", invalid="ignore"):
             gain = 10 * np.log10(lohi_g) + nom_db
         band = Band(disp_f, tuple(band_percentiles), gain, diamond_to_deg(lohi_d) + nom_deg, nom_db, nom_deg)
     params = {}
-    if par_sel is not None:
-        res = par_sel.result()
+    if lead.par_sel is not None:
+        res = lead.par_sel.result()
         for i, k in enumerate(p_names):
             params[k] = {"nominal": p_nom[k], "percentiles": [float(res[0, i]), float(res[1, i])]}
     return ToleranceRun(draws, int(seed), distribution, dict(tolerances), chunk,
-                        {red.key: red.result() for red in reducers}, band, params)
+                        {red.key: red.result() for red in lead.reducers}, band, params)
 
 
 # ----------------------------------------------------------------------------------- worst case
