@@ -35,6 +35,9 @@ size. A chunk is reduced at once to the per-draw figures; the percentiles need o
 each distribution (e.g. the top 1 % + 2 values for a 99th percentile), kept by an exact streaming
 selection (a threshold comparison, then a partition of the few values above it; no sort of all
 draws). Memory is O(chunk × frequencies + draws / 100) — at 1e6 draws the tails hold about 1 %.
+Chunks are drawn in order on the calling thread and shared among up to two worker threads, each
+with its own buffers and selections; the selections merge exactly, so neither the chunk size nor
+the number of workers changes a figure (tested).
 
 Arithmetic: without an op-amp model the responses come from the topology's polynomial
 coefficients in float32 real arithmetic (s = jω scaled by the grid's geometric-mean frequency),
