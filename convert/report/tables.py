@@ -324,7 +324,7 @@ def input_tables(results) -> list[Table]:
         gbw = f"op-amp gain-bandwidth {hz(t.opamp_gbw_hz)}" if t.opamp_gbw_hz else "ideal op-amps"
         rows.append(["target: op-amp circuit",
                      f"topology {t.topology}; resistors {t.resistors}, capacitors {t.capacitors}; tolerances {tol}; "
-                     f"{gbw}; Monte Carlo {results.draws or t.draws} draws, seed {t.seed}"])
+                     f"{gbw}; Monte Carlo {results.draws or t.draws} draws ({t.distribution}), seed {t.seed}"])
     if results.source.extra.get("output_limits") is not None:
         from convert.circuit.clamps import limits_text
 
