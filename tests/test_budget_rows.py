@@ -49,3 +49,26 @@ def test_assemble_keeps_every_row_and_marks_the_rest_not_applicable():
     assert not by["series_rounding"].applicable
     assert "digital target" in by["series_rounding"].note
     assert "not switched on" in by["word_format"].note
+
+
+def test_monte_carlo_row_says_how_many_draws_lack_a_margin():
+    """A draw whose loop has no gain margin (no phase crossing) cannot enter that percentile; the
+    row says how many were left out, and the percentile is numpy's over the draws that have it."""
+    f = log_grid(0.1, 10, 20)
+    ref = np.ones(f.size, dtype=complex)
+    gains = np.linspace(0.0, 1.0, 101)
+    cand = (10 ** (gains / 20))[:, None] * ref[None, :]
+    gm = np.where(np.arange(101) % 10 == 0, np.nan, gains * 2)
+
+    def margins(r):
+        n = r.shape[0]
+        if n == 1:
+            return {"phase_margin_deg": np.zeros(1), "gain_margin_db": np.zeros(1), "sensitivity_peak_db": np.zeros(1)}
+        return {"phase_margin_deg": gains.copy(), "gain_margin_db": gm, "sensitivity_peak_db": gains.copy()}
+
+    spec = bud.LoopSpec(f, margins)
+    row = bud.error_row("tolerances", f, ref, cand, note="x", percentile=99.0, loop=spec, loop_reference=ref,
+                        loop_candidate=cand)
+    assert "11 draws have no gain margin" in row.note
+    assert "phase margin" not in row.note
+    assert abs(row.delta_gain_margin_db) == pytest.approx(np.percentile(gm[np.isfinite(gm)], 99), abs=0.011)

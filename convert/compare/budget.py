@@ -115,6 +115,10 @@ def drawn_row(key: str, figures, *, note: str) -> BudgetRow:
     """A budget row from the tolerance engine's figures over Monte Carlo draws
     (:class:`convert.circuit.tolerance.DrawnFigures`): percentiles of the per-draw figures."""
     f = figures
+    missing = [f"{n} draws have no {name.replace('_', ' ').replace(' db', '').replace(' deg', '')}"
+               for name, n in sorted(f.draws_without.items())]
+    if missing:  # say so: a percentile over the draws that have the figure is not over all of them
+        note = f"{note}; {', '.join(missing)} (left out of that figure's percentile)"
     return BudgetRow(key=key, label=ROW_LABELS[key], applicable=True, note=note,
                      max_gain_error_db=f.max_gain_error_db, max_gain_error_at_hz=f.max_gain_error_at_hz,
                      max_phase_error_deg=f.max_phase_error_deg, max_phase_error_at_hz=f.max_phase_error_at_hz,
