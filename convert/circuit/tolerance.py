@@ -741,8 +741,8 @@ class _Worker:
             if shared or model_disp:
                 g, d = proxies.pop() if shared else _chunk_proxies(topology, drawn, None, disp_f, opamp, sign,
                                                                    [r["h_nom"]], {"h": cache["disp"]})[0]
-                self.disp_g.add(g)
-                self.disp_d.add(d)
+                self.disp_g.add(g.astype(r["dtype"], copy=False))  # band tails in the run's dtype (float32: half the memory)
+                self.disp_d.add(d.astype(r["dtype"], copy=False))
                 done_display = True
             loop_m = None
             for (c, red), (g, d), ref in zip(members, proxies, refs):
@@ -765,8 +765,8 @@ class _Worker:
         if self.disp_g is not None and not done_display:
             (g, d), = _chunk_proxies(topology, drawn, self.disp_grid, disp_f, r["display_opamp"], sign, [r["h_nom"]],
                                      {})
-            self.disp_g.add(g)
-            self.disp_d.add(d)
+            self.disp_g.add(g.astype(r["dtype"], copy=False))
+            self.disp_d.add(d.astype(r["dtype"], copy=False))
         if self.par_sel is not None:
             with np.errstate(divide="ignore", invalid="ignore"):
                 pv = topology.parameters(drawn)
