@@ -741,7 +741,8 @@ class _Worker:
             if shared or model_disp:
                 g, d = proxies.pop() if shared else _chunk_proxies(topology, drawn, None, disp_f, opamp, sign,
                                                                    [r["h_nom"]], {"h": cache["disp"]})[0]
-                self.disp_g.add(g.astype(r["dtype"], copy=False))  # band tails in the run's dtype (float32: half the memory)
+                # band tails in the run's dtype (float32: half the memory)
+                self.disp_g.add(g.astype(r["dtype"], copy=False))
                 self.disp_d.add(d.astype(r["dtype"], copy=False))
                 done_display = True
             loop_m = None
