@@ -40,7 +40,7 @@ with its own buffers and selections; the selections merge exactly, so neither th
 the number of workers changes a figure (tested).
 
 Arithmetic: without an op-amp model the responses come from the topology's polynomial
-coefficients in float32 real arithmetic (s = jω scaled by the grid's geometric-mean frequency),
+coefficients in float32 real arithmetic (each frequency scaled by the nominal denominator's size there),
 as the ratio to the reference; the gain is taken on |ratio|² and the phase on a rational
 "diamond" angle of the ratio, both monotone, so logarithms and arctangents run only on per-draw
 figures and selected order statistics. Bound (tested against the float64 path in
@@ -384,16 +384,22 @@ class _PolyGrid:
     """|ratio|² and the diamond angle of ratio = N(jω)/(D(jω)·ref(ω)) for many coefficient sets,
     on one frequency grid, in real arithmetic (float32 by default).
 
-    ω is scaled by the grid's geometric mean (the coefficients rescaled in float64 first), the
-    work runs in blocks of frequency rows small enough to stay in cache, and the outputs and
-    temporaries are buffers reused from chunk to chunk."""
+    Scaling (so float32 neither overflows nor underflows, whatever the band): every power ω^k is
+    divided, per frequency, by the size of the nominal denominator there (Σ|d_k|·ω^k, from
+    ``den_nominal``), and the numerator's powers are multiplied by |1/ref| of the first
+    reference — a common factor per frequency that cancels in the ratio, so N and D arrive near
+    1 and the ratio near its true size. The work runs in blocks of frequency rows small enough to
+    stay in cache; outputs and temporaries are buffers reused from chunk to chunk."""
 
     BLOCK = 16
 
-    def __init__(self, f_hz: np.ndarray, dtype=np.float32):
-        w = 2 * np.pi * np.asarray(f_hz, dtype=float)
-        self.w0 = float(np.sqrt(w[0] * w[-1]))
-        self.x = w / self.w0
+    def __init__(self, f_hz: np.ndarray, dtype=np.float32, den_nominal: Sequence[float] | None = None):
+        self.w = 2 * np.pi * np.asarray(f_hz, dtype=float)
+        self.x = self.w  # powers of ω, scaled per row below
+        d = [abs(float(np.ravel(c)[0])) for c in (den_nominal if den_nominal is not None else [1.0])]
+        deg = len(d) - 1
+        size = sum(c * self.w ** (deg - i) for i, c in enumerate(d))
+        self.row_scale = np.where(np.isfinite(size) & (size > 0), size, 1.0)
         self.dtype = dtype
         self._buf: dict = {}
 
@@ -403,7 +409,7 @@ class _PolyGrid:
             arr = self._buf[name] = np.empty(shape, dtype=self.dtype)
         return arr[:, :shape[1]]
 
-    def _terms(self, coeffs: list, n: int) -> tuple[list, list]:
+    def _terms(self, coeffs: list, n: int, col_scale: np.ndarray) -> tuple[list, list]:
         deg = len(coeffs) - 1
         re, im = [], []
         for i, c in enumerate(coeffs):
@@ -411,17 +417,19 @@ class _PolyGrid:
             if not np.any(row):
                 continue
             k = deg - i
-            col = (self.x ** k * (1 if (k // 2) % 2 == 0 else -1)).astype(self.dtype)[:, None]
-            (re if k % 2 == 0 else im).append((col, (row * self.w0 ** k).astype(self.dtype)[None, :]))
+            col = (self.w ** k * col_scale * (1 if (k // 2) % 2 == 0 else -1)).astype(self.dtype)[:, None]
+            (re if k % 2 == 0 else im).append((col, row.astype(self.dtype)[None, :]))
         return re, im
 
     def proxies(self, num: list, den: list, n: int, inv_refs: list[np.ndarray]) -> list[tuple[np.ndarray, np.ndarray]]:
         """[(|ratio|², diamond angle)] per reference (``inv_refs``: 1/ref per frequency), each
         (F, n); the arrays are reused by the next call."""
         nf, b = self.x.size, self.BLOCK
-        terms = [self._terms(num, n), self._terms(den, n)]
+        c0 = np.abs(inv_refs[0])
+        c0 = np.where(np.isfinite(c0) & (c0 > 0), c0, 1.0)
+        terms = [self._terms(num, n, c0 / self.row_scale), self._terms(den, n, 1.0 / self.row_scale)]
         outs = [(self._take(f"g{j}", (nf, n)), self._take(f"d{j}", (nf, n))) for j in range(len(inv_refs))]
-        cs = [(r.real.astype(self.dtype)[:, None], r.imag.astype(self.dtype)[:, None]) for r in inv_refs]
+        cs = [((r / c0).real.astype(self.dtype)[:, None], (r / c0).imag.astype(self.dtype)[:, None]) for r in inv_refs]
         t = {k: self._take(k, (b, n)) for k in ("nr", "ni", "dr", "di", "pr", "pi", "d2", "qr", "qi", "tmp")}
         for f0 in range(0, nf, b):
             rows = slice(f0, min(nf, f0 + b))
@@ -442,14 +450,14 @@ class _PolyGrid:
             np.multiply(dr, dr, out=d2)
             np.multiply(di, di, out=tmp)
             d2 += tmp
-            d2 *= d2
             for (cr, ci), (g_out, d_out) in zip(cs, outs):
                 _cmul(pr, pi, cr[rows], ci[rows], qr, qi, tmp)
                 g = g_out[rows]
                 np.multiply(qr, qr, out=g)
                 np.multiply(qi, qi, out=tmp)
                 g += tmp
-                with np.errstate(divide="ignore", invalid="ignore"):
+                with np.errstate(divide="ignore", invalid="ignore", over="ignore", under="ignore"):
+                    np.divide(g, d2, out=g)  # |q|²/|D|⁴ as two divisions: no |D|⁴ to overflow
                     np.divide(g, d2, out=g)
                     d = d_out[rows]
                     np.abs(qr, out=tmp)
@@ -701,7 +709,7 @@ class _Worker:
     def __init__(self, run: dict):
         self.r = run
         dtype = run["dtype"]
-        self.band_grid = _PolyGrid(run["band_f"], dtype)
+        self.band_grid = _PolyGrid(run["band_f"], dtype, run["den_nominal"])
         self.reducers = [_FigureReducer(c.key, run["band_f"], run["draws"], run["percentile"], ref_m)
                          for c, ref_m in zip(run["comparisons"], run["ref_margins"])]
         self.groups: dict = {}
@@ -710,7 +718,8 @@ class _Worker:
             self.groups.setdefault(None if ideal else id(c.opamp), []).append((c, red))
         self.disp_g = self.disp_d = self.par_sel = None
         if run["disp_f"] is not None:
-            self.disp_grid = self.band_grid if run["share_display"] else _PolyGrid(run["disp_f"], dtype)
+            self.disp_grid = self.band_grid if run["share_display"] else _PolyGrid(run["disp_f"], dtype,
+                                                                                    run["den_nominal"])
             self.disp_g = RowPercentiles(run["disp_f"].size, run["draws"], run["band_percentiles"])
             self.disp_d = RowPercentiles(run["disp_f"].size, run["draws"], run["band_percentiles"])
         if run["p_names"]:
@@ -826,7 +835,9 @@ def run_tolerances(topology, parts: Mapping[str, float], tolerances: Mapping[str
         p_nom = {k: float(np.asarray(v).ravel()[0]) for k, v in topology.parameters(nominal).items()} \
             if parameters else {}
     p_names = [k for k, v in p_nom.items() if math.isfinite(v)]
-    run = dict(topology=topology, sign=sign, band_f=band_f, loop_f=loop_f, disp_f=disp_f, h_nom=h_nom,
+    with np.errstate(divide="ignore", invalid="ignore"):
+        den_nominal = [float(np.ravel(c)[0]) for c in topology.coefficients(nominal)[1]]
+    run = dict(topology=topology, sign=sign, den_nominal=den_nominal, band_f=band_f, loop_f=loop_f, disp_f=disp_f, h_nom=h_nom,
                share_display=share_display, display_opamp=display_opamp, comparisons=list(comparisons),
                ref_margins=ref_margins, loop_margins=loop_margins, draws=draws, percentile=percentile,
                band_percentiles=band_percentiles, p_names=p_names, dtype=dtype)
