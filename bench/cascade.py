@@ -48,7 +48,13 @@ def main() -> int:
     args = ap.parse_args()
 
     from convert.circuit.design import DesignOptions, design_circuit
-    from convert.circuit.tolerance import monte_carlo
+    from convert.circuit.tolerance import Comparison, run_tolerances
+
+    def monte_carlo(topo, parts, tol, f, *, draws, seed):
+        """The tolerance engine with the 0.5/99.5 % bands and per-draw maxima (what `circuit` runs)."""
+        ref = topo.response({k: np.asarray([v]) for k, v in parts.items()}, f)[0]
+        return run_tolerances(topo, parts, tol, band_f_hz=f, comparisons=[Comparison("t", ref)], draws=draws,
+                              seed=seed, display_f_hz=f).band
     from convert.circuit.topologies import get_topology
     from convert.controller import from_expression
 
