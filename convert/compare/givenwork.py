@@ -17,8 +17,6 @@ from convert.compare.frequency import response_seen_from_loop
 from convert.controller import Controller
 from convert.errors import UnrealizableError
 
-PERCENTILE = 99.0
-DEFAULT_DRAWS = 2000
 DEFAULT_SEED = 1
 
 
@@ -178,28 +176,31 @@ def _circuit(case, given, info, src, band, duration, src_step, src_dist, draws):
             "derivative_filter": bud.not_applicable("derivative_filter", "given card: no filter was added"),
             "opamp_gbw": bud.not_applicable("opamp_gbw", "the given card is checked with ideal op-amps")}
     nominal = ctrl.frequency_response(both_f, via="zpk")
-    candidate = nominal
-    percentile = None
+    ref = response_seen_from_loop(src, both_f, via="zpk")
+    drawn_total = None
     details = {"given": True}
     if "topology" in d:
-        from convert.circuit.tolerance import draw_parts
+        from convert.circuit.tolerance import DEFAULT_DRAWS, Comparison, run_tolerances
         from convert.circuit.topologies import get_topology
 
         topo = get_topology(d["topology"])
         details.update(topology=topo.name, parts=dict(d["parts"]),
                        parts_text={k: format_value(v, "ohm" if k[:1].upper() == "R" else "farad")
                                    for k, v in d["parts"].items()})
-        if tols:
+        if tols:  # the one tolerance engine (chunked, bounded memory), as for a designed circuit
             n = int(draws or DEFAULT_DRAWS)
-            drawn = draw_parts(topo, d["parts"], tols, n, DEFAULT_SEED)
-            candidate = topo.response({k: np.asarray(v, dtype=float) for k, v in drawn.items()}, both_f)
-            percentile = PERCENTILE
-            rows["tolerances"] = bud.error_row(
-                "tolerances", band, nominal[:band.size], candidate[:, :band.size], percentile=PERCENTILE,
+            loops = loop_f is not None
+            mc = run_tolerances(
+                topo, d["parts"], tols, band_f_hz=band, draws=n, seed=DEFAULT_SEED, parameters=False,
+                comparisons=[Comparison("tolerances", nominal[:band.size], None,
+                                        nominal[band.size:] if loops else None),
+                             Comparison("total", ref[:band.size], None, ref[band.size:] if loops else None)],
+                loop_f_hz=loop_f, loop_margins=spec.margins if loops else None)
+            rows["tolerances"] = bud.drawn_row(
+                "tolerances", mc.figures["tolerances"],
                 note=f"{n} draws within ±tolerance ({', '.join(f'{k} {v * 100:g} %' for k, v in tols.items())}) "
-                     f"around the given parts alone; seed {DEFAULT_SEED}",
-                loop=spec, loop_reference=None if loop_f is None else nominal[band.size:],
-                loop_candidate=None if loop_f is None else candidate[:, band.size:])
+                     f"around the given parts alone; seed {DEFAULT_SEED}")
+            drawn_total = mc.figures["total"]
             details.update(tolerances=tols, draws=n, seed=DEFAULT_SEED)
         else:
             rows["tolerances"] = bud.not_applicable("tolerances", "no tolerances given for the card's parts")
@@ -210,12 +211,15 @@ def _circuit(case, given, info, src, band, duration, src_step, src_dist, draws):
                                     where=given.where, key=f"target.given.{given.name}.tolerances")
         rows["tolerances"] = bud.not_applicable("tolerances", "no tolerances given for the netlist's parts")
         details.update(netlist=str(d["netlist"]), topology=f"netlist {d['netlist'].name}")
-    ref = response_seen_from_loop(src, both_f, via="zpk")
-    rows["total"] = bud.error_row(
-        "total", band, ref[:band.size], np.atleast_2d(candidate)[:, :band.size], percentile=percentile,
-        note="the given card" + (" with its tolerances" if percentile else "") + " against the source as the "
-             "loop sees it", loop=spec, loop_reference=None if loop_f is None else ref[band.size:],
-        loop_candidate=None if loop_f is None else np.atleast_2d(candidate)[:, band.size:])
+    note = ("the given card" + (" with its tolerances" if drawn_total is not None else "")
+            + " against the source as the loop sees it")
+    if drawn_total is not None:
+        rows["total"] = bud.drawn_row("total", drawn_total, note=note)
+    else:
+        rows["total"] = bud.error_row(
+            "total", band, ref[:band.size], nominal[:band.size], note=note, loop=spec,
+            loop_reference=None if loop_f is None else ref[band.size:],
+            loop_candidate=None if loop_f is None else nominal[band.size:])
     budget = bud.assemble(rows, bud.CIRCUIT_ROWS, "given card")
     r = _realization(case, given, "circuit", ctrl, details, budget, list(info.notes),
                      lambda f, c=ctrl: c.frequency_response(f, via="zpk"))
