@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from convert.circuit.tolerance import (FLOAT32_BOUND, MAX_DRAWS, Comparison, DrawnFigures, draw_parts, parse_tolerances,
+from convert.circuit.tolerance import (FLOAT32_BOUND, MAX_DRAWS, Comparison, draw_parts, parse_tolerances,
                                        percentiles, run_tolerances, worst_case)
 from convert.circuit.topologies import get_topology
 from convert.errors import InputError
