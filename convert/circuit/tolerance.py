@@ -35,9 +35,10 @@ size. A chunk is reduced at once to the per-draw figures; the percentiles need o
 each distribution (e.g. the top 1 % + 2 values for a 99th percentile), kept by an exact streaming
 selection (a threshold comparison, then a partition of the few values above it; no sort of all
 draws). Memory is O(chunk × frequencies + draws / 100) — at 1e6 draws the tails hold about 1 %.
-Chunks are drawn in order on the calling thread and shared among up to two worker threads, each
-with its own buffers and selections; the selections merge exactly, so neither the chunk size nor
-the number of workers changes a figure (tested).
+Chunks are drawn in order on the calling thread and may be shared among worker threads
+(``workers``; one by default, as two measured no faster on this machine), each with its own
+buffers and selections; the selections merge exactly, so neither the chunk size nor the number
+of workers changes a figure (tested).
 
 Arithmetic: without an op-amp model the responses come from the topology's polynomial
 coefficients in float32 real arithmetic (each frequency scaled by the nominal denominator's size there),
@@ -790,12 +791,11 @@ class _Worker:
                 a.merge(b)
 
 
-def _workers(draws: int, chunk: int, workers: int | None) -> int:
-    if workers is None:
-        import os
+DEFAULT_WORKERS = 1  # two threads measured no faster here (bench/circuit.py; report at 30,000 draws 7.4 s vs 8.9 s)
 
-        workers = min(2, os.cpu_count() or 1)
-    return max(1, min(int(workers), -(-draws // chunk)))
+
+def _workers(draws: int, chunk: int, workers: int | None) -> int:
+    return max(1, min(int(DEFAULT_WORKERS if workers is None else workers), -(-draws // chunk)))
 
 
 def run_tolerances(topology, parts: Mapping[str, float], tolerances: Mapping[str, float], *, band_f_hz,
@@ -813,9 +813,9 @@ def run_tolerances(topology, parts: Mapping[str, float], tolerances: Mapping[str
     arrays``, :func:`convert.compare.loop.margins_of_responses`), the margin changes on
     ``loop_f_hz``. ``display_f_hz``: where the gain/phase band is wanted (with
     ``display_opamp``). ``dtype``: arithmetic of the coefficient path (float32; np.float64 to
-    check it). ``workers``: threads sharing the chunks (default: up to two cores; the draws are
-    made in order on this thread and every selection merges exactly, so the figures are the same
-    for any count). Returns :class:`ToleranceRun`."""
+    check it). ``workers``: threads sharing the chunks (default :data:`DEFAULT_WORKERS`; the draws
+    are made in order on this thread and every selection merges exactly, so the figures are the
+    same for any count). Returns :class:`ToleranceRun`."""
     draws = check_draws(draws)
     chunk = max(1, int(chunk))
     source = PartDraws(topology, parts, tolerances, seed, distribution)
