@@ -513,6 +513,8 @@ def _render(console, result) -> None:
 
 
 def _fmt(value, unit: str) -> str:
+    if value is None:  # a check without a limit (e.g. an analog controller's largest real part)
+        return "—"
     if unit.startswith("of "):
         return f"{100 * value:.3g} % {unit}"
     return f"{value:.3g} {unit}"

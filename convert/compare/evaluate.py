@@ -16,6 +16,7 @@ import numpy as np
 
 from convert.compare import budget as bud
 from convert.compare.frequency import hold_and_delay_factor, log_grid, response_seen_from_loop
+from convert.compare.ownchecks import own_checks
 from convert.compare.loop import (LoopResponse, Margins, default_duration, loop_margins, margin_grid,
                                   margins_of_responses, response_deviation, simulate_loop)
 from convert.compare.rate import RateAdvice, advise
@@ -194,9 +195,11 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
                 for key in LOOP_CRITERIA:
                     f[key] = None
                     f[f"{key}_note"] = "the source loop does not work with this plant (unstable or sign-inverted): there is no working loop to compare with"
+        # always on, plant or not: the realization's own poles and its sign against the source
+        f["checks"] = own_checks(src, r.controller, float(band[0]))
         fw = r.details.get("firmware") if r.form == "digital" else None
         if fw is not None:
-            f["checks"] = fw["checks"]
+            f["checks"] = f["checks"] + list(fw["checks"])
         figures[r.name] = f
     evidence = None
     if getattr(case, "evidence", None) is not None:

@@ -10,7 +10,8 @@ Two figures per method:
   (method + hold + computation delay), within the case's max gain and phase error over the band,
   and, with a plant, within the loop criteria the verdict checks (``loop_check``: margin changes,
   step and disturbance deviations; without one, the phase lag it adds at crossover within the
-  limit). A log scan (``points`` rates from just above twice the band's top to ``max_ratio``
+  limit); a rate at which the method gives an unstable controller (a pole outside |z| = 1 the
+  source does not have, :mod:`convert.compare.ownchecks`) never passes. A log scan (``points`` rates from just above twice the band's top to ``max_ratio``
   times it) finds the lowest scanned rate from which every higher scanned rate passes; a
   bisection in log f between it and the failing rate below then narrows the boundary to
   ``rel_tol`` (default 0.5 %), and the passing end is the advice: the lowest rate that passes,
@@ -26,6 +27,7 @@ from typing import Callable
 import numpy as np
 
 from convert.compare.frequency import compare_responses, log_grid, response_seen_from_loop
+from convert.compare.ownchecks import adds_unstable_poles
 from convert.controller import Controller
 
 RULE_TEXT = ("added phase lag at crossover ≈ ω_c·(T/2 + t_d) for the zero-order hold and computation delay "
@@ -89,6 +91,8 @@ def _advise(source, method, discretize, band_hz, max_gain_error_db, max_phase_er
             digital = discretize(source, float(fs), method)
         except Exception:  # a method refusing a rate (e.g. unstable mapping) simply fails this rate
             return ["conversion refused"]
+        if adds_unstable_poles(source, digital):  # an unstable controller never passes, whatever its errors
+            return ["unstable controller (a pole outside |z| = 1)"]
         cand = response_seen_from_loop(digital, f, delay_s=d, via="zpk")
         err = compare_responses(ref, cand, f)
         why = []

@@ -85,7 +85,7 @@ def _against_limit(value, limit, status: str) -> str:
     if value is None or limit is None or status not in ("pass", "fail"):
         return ""
     if limit == 0:
-        return "over the limit" if value > 0 else "at the limit"
+        return "over the limit" if value > 0 else ("below the limit" if value < 0 else "at the limit")
     ratio = value / limit
     if status == "fail":
         return f"over by {ratio - 1:.0%} ({ratio:.2g}× the limit)"
