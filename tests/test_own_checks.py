@@ -104,3 +104,30 @@ def test_same_firmware_with_the_right_sign_passes(tmp_path):
     (j,) = _checks(res, "same_sign").values()
     assert j.status == "pass" and j.value < 1.0
     assert res.verdict.overall == "pass"
+
+
+def test_diverging_loop_simulation_shows_no_numpy_warning(run_cli):
+    """Finding 12: the unstable firmware of the compare above in a loop with 1/(s+1). python-control
+    (plant sampled with a zero-order hold at 50 Hz, unity feedback) puts a closed-loop pole
+    outside |z| = 1, so the true output leaves the float range within the simulated time; the
+    simulation returns inf/nan there without numpy's overflow warning (pytest turns warnings into
+    errors), the deviation figure is inf, and the CLI prints no RuntimeWarning."""
+    import math
+
+    import control
+
+    from convert.compare.loop import response_deviation, simulate_loop
+    from convert.controller import Controller
+
+    c = control.tf([200, -192], [1, 3], 1 / 50)
+    p = control.c2d(control.tf([1], [1, 1]), 1 / 50, "zoh")
+    assert max(abs(control.feedback(c * p, 1).poles())) > 1
+    ctrl = Controller.from_b_a([200, -192], [1, 3], 1 / 50)
+    plant = Controller.analog([1], [1, 1])
+    bad = simulate_loop(ctrl, plant, duration_s=60.0)
+    assert not np.all(np.isfinite(bad.y))
+    good = simulate_loop(Controller.analog([200, 400], [1, 200]), plant, duration_s=60.0)
+    assert response_deviation(good, bad) == math.inf
+    out = run_cli("compare", "(s+2)/(0.005s+1)", "digital: b=200,-192 a=1,3 fs=50Hz", "--band", "1m", "0.1",
+                  "--plant", "1/(s+1)")
+    assert out.code == 1 and "RuntimeWarning" not in out.out + out.err and "overflow" not in out.out + out.err

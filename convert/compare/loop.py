@@ -880,6 +880,17 @@ def simulate_loop(controller: Controller, plant: Controller, dead_time_s: float 
     r = step if kind == "setpoint" else 0.0
     dist = step if kind == "disturbance" else 0.0
     lo, hi = output_limits if output_limits else (-math.inf, math.inf)
+    # An unstable loop grows like |λ|^k: past k ≈ 709/ln|λ| steps its true output (and the matrix
+    # powers _Orbit forms, A^(64^L)) exceeds the float range. That is the loop's own behaviour, not a
+    # numerical accident: the outputs become inf/nan from there on (response_deviation then gives
+    # inf, which the verdict skips as "not finite"; the closed-loop stability check fails such a
+    # loop on its own), and numpy's overflow warnings are not shown to the user.
+    with np.errstate(over="ignore", invalid="ignore"):
+        return _simulate(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, (lo, hi), kind, realized)
+
+
+def _simulate(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, limits, kind, realized):
+    lo, hi = limits
     if controller.is_digital and realized is not None:
         return _simulate_realized(realized.model(), controller.sample_period_s, plant, dead_time_s, delay_s,
                                   duration_s, h, r, dist, (lo, hi), kind)
@@ -1022,7 +1033,10 @@ def _simulate_realized(model, t_s, plant, dead_time_s, delay_s, duration_s, h, r
 def response_deviation(reference: LoopResponse, candidate: LoopResponse) -> float:
     """max |y_candidate − y_reference| over the time both cover, read on the finer of the two
     grids (the other response interpolated linearly; both grids follow the loop's dynamics, so a
-    coarse grid of one form does not hide the other's intersample behaviour)."""
+    coarse grid of one form does not hide the other's intersample behaviour). ``inf`` when either
+    response left the float range (a diverging loop, see :func:`simulate_loop`)."""
+    if not (np.all(np.isfinite(reference.y)) and np.all(np.isfinite(candidate.y))):
+        return math.inf
     end = min(reference.t[-1], candidate.t[-1])
     if candidate.sub_step_s < reference.sub_step_s:
         t = candidate.t[candidate.t <= end]
