@@ -181,12 +181,13 @@ def reduce_controller(full: Controller, band_hz: tuple[float, float], *, fs_hz: 
     floor = lo / DECADE
     zeros, poles = full.zeros(), full.poles()
     w_cut, w_floor = 2 * np.pi * cut, 2 * np.pi * floor
-    drop_z, drop_p = np.abs(zeros) > w_cut, np.abs(poles) > w_cut
+    # a right-half-plane pole is never an op-amp's parasitic nor a leak: it stays (and shows)
+    drop_z, drop_p = np.abs(zeros) > w_cut, (np.abs(poles) > w_cut) & (poles.real <= 0)
     k = full.gain * np.prod(-zeros[drop_z]).real / np.prod(-poles[drop_p]).real
     kz, kp = zeros[~drop_z], poles[~drop_p]
     leaks: list[float] = []
     if full.integrator_count() == 0 and not np.any((np.abs(kz) < w_floor)):
-        slow = (np.abs(kp) < w_floor) & (kp.imag == 0) & (np.abs(kp) > 0)
+        slow = (np.abs(kp) < w_floor) & (kp.imag == 0) & (kp.real < 0)
         leaks = sorted(float(p.real) for p in kp[slow])
         kp = np.where(slow, 0.0, kp)
     if not (drop_z.any() or drop_p.any() or leaks):
@@ -367,6 +368,59 @@ def setpoint_structure(h_sp: Controller, h_pv: Controller) -> SetpointStructure:
     return SetpointStructure(feedback, h_sp.with_name("setpoint path H_sp"), filt, weighted, text)
 
 
+#: The finite-gain model each op-amp gets in turn for the feedback-sign check (OPAMP1P's defaults:
+#: a0 = 1e5, gbw = 1 MHz; a general-purpose op-amp, common practice).
+_CHECK_OPAMP = (("gbw", 1e6), ("a0", 1e5))
+#: More op-amps than this are checked all at once (one solve) rather than one by one.
+_CHECK_ONE_BY_ONE = 16
+
+
+def _rhp_poles(netlist: Netlist, inputs, output: str) -> list[complex]:
+    """Poles in the right half-plane of every path of ``netlist`` (beyond each root's accuracy
+    and 1e-12 of the largest pole's magnitude)."""
+    out = []
+    for r in transfer_functions(netlist, inputs, output).values():
+        roots = r.controller.pole_roots()
+        scale = max((abs(x.value) for x in roots), default=0.0)
+        out += [complex(x.value) for x in roots if x.value.real > max(x.error, 1e-12 * scale)]
+    return out
+
+
+def check_feedback_sign(netlist: Netlist, inputs, output: str) -> None:
+    """Refuse a card whose op-amp feedback is positive (inputs swapped). With ideal op-amps
+    (nullors) the transfer function cannot show it: a nullor forces its inputs equal whichever
+    way round they are wired. So each op-amp in turn is given a finite gain with one pole
+    (:data:`_CHECK_OPAMP`, or its own single-pole model) and the card solved again: negative
+    feedback keeps every pole in the left half-plane, positive feedback puts one in the right
+    half-plane (the output runs to a rail). Raises :class:`InputError` naming the op-amp and its line."""
+    amps = [e for e in netlist.elements if e.kind == "OPAMP"]
+    if not amps:
+        return
+
+    def finite(e):
+        return e if e.param("gbw") is not None else replace(e, params=_CHECK_OPAMP)
+
+    groups = [[e] for e in amps] if len(amps) <= _CHECK_ONE_BY_ONE else [amps]
+    for group in groups:
+        names = {e.name for e in group}
+        trial = Netlist(netlist.title, netlist.source,
+                        tuple(finite(e) if e.name in names else e for e in netlist.elements), netlist.notes)
+        try:
+            rhp = _rhp_poles(trial, inputs, output)
+        except (InputError, ValueError, ArithmeticError):
+            continue  # the card's own reading reports what cannot be solved
+        if rhp:
+            worst = max(rhp, key=lambda p: p.real)
+            who = group[0] if len(group) == 1 else None
+            text = (f"{who.name}'s feedback is positive: are its inputs swapped?" if who is not None else
+                    "an op-amp's feedback is positive: are the inputs of one swapped?")
+            at = f"{worst.real:.4g}" + (f"{worst.imag:+.4g}j" if worst.imag else "")
+            raise InputError(f"{text} With a finite-gain op-amp model (one pole) the card has a pole at "
+                             f"s = {at} rad/s in the right half-plane: its output would "
+                             "run to a rail; the ideal-op-amp transfer function cannot show this",
+                             where=(who or group[0]).where, key=(who or group[0]).name)
+
+
 def analyze_card(netlist: Netlist, *, input: str = "VIN", output: str = "out",  # noqa: A002
                  setpoint: str | None = None, measurement: str | None = None,
                  with_sensitivities: bool = True, band_hz: tuple[float, float] | None = None,
@@ -386,6 +440,7 @@ def analyze_card(netlist: Netlist, *, input: str = "VIN", output: str = "out",  
         raise InputError("give both the setpoint and the measurement source, or neither", key="setpoint/measurement")
     inputs = (setpoint, measurement) if setpoint is not None else (input,)
     results = transfer_functions(netlist, inputs, output)
+    check_feedback_sign(netlist, inputs, output)
     names = [netlist.element(n).name for n in inputs]
     notes: list[str] = list(netlist.notes)
     for r in results.values():
