@@ -499,6 +499,12 @@ class DrawnFigures:
     delta_gain_margin_db: float | None = None
     delta_sensitivity_peak_db: float | None = None
     draws_without: dict = field(default_factory=dict)  # margin name -> draws whose loop lacks it
+    unstable_draws: int | None = None  # draws whose closed loop with the plant is unstable (None: not counted)
+    draws: int = 0
+
+    @property
+    def unstable_fraction(self) -> float | None:
+        return None if self.unstable_draws is None or not self.draws else self.unstable_draws / self.draws
 
     def as_dict(self) -> dict:
         return dict(self.__dict__)
@@ -521,6 +527,7 @@ class _FigureReducer:
         self.ref_margins = ref_margins
         self.margins = {name: TailSelection(1, need, payload=True) for name, _ in MARGIN_FIELDS} if ref_margins else {}
         self.total = 0
+        self.unstable: int | None = None  # counted draws (see LoopCount)
 
     def add_band(self, g: np.ndarray, d: np.ndarray, exact: Callable[[np.ndarray], np.ndarray], first: int) -> None:
         """``g`` |ratio|², ``d`` diamond angle, both (F, n); ``exact(idx)`` the complex ratio of the
@@ -571,6 +578,8 @@ class _FigureReducer:
         for name, sel in self.margins.items():
             sel.merge(other.margins[name])
         self.total += other.total
+        if other.unstable is not None:
+            self.unstable = (self.unstable or 0) + other.unstable
 
     def result(self) -> DrawnFigures:
         g, g_at = _upper_percentile(self.gain, self.q)
@@ -587,7 +596,7 @@ class _FigureReducer:
             out[attr] = None if sel.count[0] == 0 else float(signed[0])
             if sel.count[0] < self.total:
                 without[name] = int(self.total - sel.count[0])
-        return DrawnFigures(**out, draws_without=without)
+        return DrawnFigures(**out, draws_without=without, unstable_draws=self.unstable, draws=self.total)
 
 
 def figures_of_responses(key: str, f_hz, reference: np.ndarray, candidates: np.ndarray, *,
@@ -703,6 +712,106 @@ def _chunk_proxies_distinct(topology, parts: dict, grid: _PolyGrid | None, f: np
     return out
 
 
+# ----------------------------------------------------------------------------------- stability
+
+
+@dataclass(frozen=True)
+class LoopCount:
+    """What the per-draw closed-loop stability count needs (see :func:`count_unstable`).
+
+    ``f_hz``: an increasing grid (Hz) from well below every corner of the loop (where the loops of
+    all draws have the same low-frequency behaviour: the same integrators, |L| large, or L near
+    its zero-frequency value) to where |L| has fallen below 1/2 (e.g.
+    :func:`convert.compare.loop.margin_grid`); ``plant(f_hz)``: P(j2πf)·e^{−j2πfθ} with the dead
+    time exact; ``nominal_unstable``: the closed-loop right-half-plane poles of the loop with the
+    nominal (rounded) parts, counted exactly by the caller (0 for a stable nominal loop)."""
+
+    f_hz: np.ndarray
+    plant: Callable[[np.ndarray], np.ndarray]
+    nominal_unstable: int = 0
+
+
+STEP_LIMIT = math.pi / 3   # largest arg step of 1 + L between neighbouring points before a refinement
+REFINE_POINTS = 32          # points inserted per refined interval, per level
+REFINE_LEVELS = 4           # refinement levels (32^4 ≈ 1e6 times finer than the grid)
+
+
+def _arg_change(one_plus_l: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Per row of (N, F): the steps of arg(1 + L) between neighbouring points (radians), and where
+    a step is too large to be followed without a finer grid."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        steps = np.angle(one_plus_l[:, 1:] / one_plus_l[:, :-1])
+    return steps, ~(np.abs(steps) <= STEP_LIMIT)
+
+
+def _refined_step(loop_at: Callable[[np.ndarray], np.ndarray], f0: float, f1: float, level: int) -> float:
+    """The arg change of 1 + L from f0 to f1 (Hz) on a grid refined where it jumps; NaN when it
+    cannot be followed within :data:`REFINE_LEVELS` (1 + L passes at or next to 0: marginal)."""
+    f = np.geomspace(f0, f1, REFINE_POINTS + 2) if f0 > 0 else np.linspace(f0, f1, REFINE_POINTS + 2)
+    v = 1.0 + loop_at(f)
+    steps, bad = _arg_change(v[None, :])
+    steps, bad = steps[0], bad[0]
+    if not bad.any():
+        return float(steps.sum())
+    if level >= REFINE_LEVELS:
+        return math.nan
+    total = float(steps[~bad].sum())
+    for i in np.flatnonzero(bad):
+        total += _refined_step(loop_at, f[i], f[i + 1], level + 1)
+    return total
+
+
+def count_unstable(count: LoopCount, controller_responses: np.ndarray,
+                   controller_at: Callable[[int, np.ndarray], np.ndarray], nominal_change: float) -> np.ndarray:
+    """Which draws give an unstable closed loop (bool (N,)), by the Nyquist criterion.
+
+    ``controller_responses`` (N, F): the drawn controllers C(j2πf) on ``count.f_hz``;
+    ``controller_at(i, f_hz)`` the response of draw i at other frequencies (for the refinement);
+    ``nominal_change``: the arg change of 1 + L along the grid for the nominal parts
+    (:func:`arg_change_along`).
+
+    Method: the number of closed-loop right-half-plane poles is Z = P − W, W the
+    counter-clockwise turns of 1 + L(s) around 0 as s runs up the imaginary axis (indented
+    around poles at 0) and round the right half-plane. The drawn controllers are RC networks
+    with positive parts: their poles are those of the nominal network moved a little, in the
+    left half-plane or at 0 (integrators, which every draw keeps) — P and the indentation are
+    the same for every draw — so a draw differs from the nominal loop only by the turns of
+    1 + L(jω) along ω > 0: Z_draw = Z_nominal − (Δ_draw − Δ_nominal)/π, Δ the arg change of
+    1 + L(jω) along the grid (dead time exact in L). The grid is refined where a step of
+    arg(1 + L) exceeds 60° (where |L| passes 1 near the −180° phase, i.e. 1 + L passes near 0);
+    a draw whose arg change cannot be followed (1 + L at or next to 0 on the axis, a marginal
+    loop), or whose |L| has not fallen below 1/2 at the top of the grid, counts as unstable."""
+    f = count.f_hz
+    p = np.asarray(count.plant(f), dtype=complex)
+    lvals = np.atleast_2d(controller_responses) * p[None, :]
+    v = 1.0 + lvals
+    steps, bad = _arg_change(v)
+    steps = np.where(bad, 0.0, steps)
+    for i, j in zip(*np.nonzero(bad)):
+        steps[i, j] = _refined_step(lambda fx, i=i: controller_at(int(i), fx) * count.plant(fx), f[j], f[j + 1], 1)
+    change = steps.sum(axis=1)
+    with np.errstate(invalid="ignore"):
+        d = (change - nominal_change) / math.pi
+        turns = np.round(d)
+        z = count.nominal_unstable - turns
+        undecided = ~np.isfinite(d) | (np.abs(d - turns) > 0.4) | ~(np.abs(lvals[:, -1]) < 0.5)
+    return undecided | (z != 0)
+
+
+def arg_change_along(count: LoopCount, controller_response: np.ndarray,
+                     controller_at: Callable[[np.ndarray], np.ndarray]) -> float:
+    """The arg change of 1 + L along ``count.f_hz`` for one controller (radians), refined as in
+    :func:`count_unstable`; NaN when it cannot be followed."""
+    f = count.f_hz
+    v = 1.0 + np.asarray(controller_response) * count.plant(f)
+    steps, bad = _arg_change(v[None, :])
+    steps, bad = steps[0], bad[0]
+    total = float(steps[~bad].sum())
+    for j in np.flatnonzero(bad):
+        total += _refined_step(lambda fx: controller_at(fx) * count.plant(fx), f[j], f[j + 1], 1)
+    return total
+
+
 class _Worker:
     """The reductions of one share of the chunks (its own buffers and selections); shares are
     merged exactly at the end, so the figures do not depend on how chunks were shared out."""
@@ -773,6 +882,11 @@ class _Worker:
                             loop_m = _by_rows(lambda p: r["loop_margins"](_responses(topology, p, loop_f, opamp, sign)),
                                               drawn)
                     red.add_margins(loop_m, first)
+            counted = [red for c, red in members if c.loop_reference is not None]
+            if r["loop_count"] is not None and counted:
+                unstable = self._count(drawn, opamp, gkey)
+                for red in counted:
+                    red.unstable = (red.unstable or 0) + unstable
         if self.disp_g is not None and not done_display:
             (g, d), = _chunk_proxies(topology, drawn, self.disp_grid, disp_f, r["display_opamp"], sign, [r["h_nom"]],
                                      {})
@@ -782,6 +896,21 @@ class _Worker:
             with np.errstate(divide="ignore", invalid="ignore"):
                 pv = topology.parameters(drawn)
             self.par_sel.add(np.vstack([np.broadcast_to(np.asarray(pv[k], dtype=float), (n,)) for k in r["p_names"]]))
+
+    def _count(self, drawn: dict, opamp, gkey) -> int:
+        """How many of the chunk's draws give an unstable closed loop (:func:`count_unstable`), in
+        blocks of :data:`SUB_BLOCK` draws."""
+        r = self.r
+        lc, topology, sign = r["loop_count"], r["topology"], r["sign"]
+
+        def block(p):
+            def at(i, fx, p=p):
+                return _responses(topology, {k: v[i:i + 1] for k, v in p.items()}, fx, opamp, sign)[0]
+
+            h = _responses(topology, p, lc.f_hz, opamp, sign)
+            return count_unstable(lc, h, at, r["nominal_change"][gkey])
+
+        return int(np.count_nonzero(_by_rows(block, drawn)))
 
     def merge(self, other: "_Worker") -> None:
         for a, b in zip(self.reducers, other.reducers):
@@ -804,7 +933,7 @@ def run_tolerances(topology, parts: Mapping[str, float], tolerances: Mapping[str
                    loop_margins: Callable | None = None, display_f_hz=None, display_opamp=None,
                    percentile: float = FIGURE_PERCENTILE, band_percentiles: Sequence[float] = BAND_PERCENTILES,
                    parameters: bool = True, chunk: int = DEFAULT_CHUNK, dtype=np.float32,
-                   workers: int | None = None) -> ToleranceRun:
+                   workers: int | None = None, loop_count: LoopCount | None = None) -> ToleranceRun:
     """The Monte Carlo of a circuit's part tolerances, in chunks (see the module docstring).
 
     ``parts``: the rounded parts (ohms, farads); ``sign``: the realized sign (±1) applied to the
@@ -815,7 +944,9 @@ def run_tolerances(topology, parts: Mapping[str, float], tolerances: Mapping[str
     ``display_opamp``). ``dtype``: arithmetic of the coefficient path (float32; np.float64 to
     check it). ``workers``: threads sharing the chunks (default :data:`DEFAULT_WORKERS`; the draws
     are made in order on this thread and every selection merges exactly, so the figures are the
-    same for any count). Returns :class:`ToleranceRun`."""
+    same for any count). ``loop_count``: count, for each comparison with a loop reference, the
+    draws whose closed loop with the plant is unstable (:func:`count_unstable`, on the op-amp
+    model of that comparison). Returns :class:`ToleranceRun`."""
     draws = check_draws(draws)
     chunk = max(1, int(chunk))
     source = PartDraws(topology, parts, tolerances, seed, distribution)
@@ -837,7 +968,16 @@ def run_tolerances(topology, parts: Mapping[str, float], tolerances: Mapping[str
     p_names = [k for k, v in p_nom.items() if math.isfinite(v)]
     with np.errstate(divide="ignore", invalid="ignore"):
         den_nominal = [float(np.ravel(c)[0]) for c in topology.coefficients(nominal)[1]]
-    run = dict(topology=topology, sign=sign, den_nominal=den_nominal, band_f=band_f, loop_f=loop_f, disp_f=disp_f, h_nom=h_nom,
+    nominal_change = {}
+    if loop_count is not None:
+        for c in comparisons:
+            ideal = c.opamp is None or c.opamp.ideal
+            gkey = None if ideal else id(c.opamp)
+            if c.loop_reference is not None and gkey not in nominal_change:
+                nominal_change[gkey] = arg_change_along(
+                    loop_count, _responses(topology, nominal, loop_count.f_hz, c.opamp, sign)[0],
+                    lambda fx, op=c.opamp: _responses(topology, nominal, fx, op, sign)[0])
+    run = dict(loop_count=loop_count, nominal_change=nominal_change, topology=topology, sign=sign, den_nominal=den_nominal, band_f=band_f, loop_f=loop_f, disp_f=disp_f, h_nom=h_nom,
                share_display=share_display, display_opamp=display_opamp, comparisons=list(comparisons),
                ref_margins=ref_margins, loop_margins=loop_margins, draws=draws, percentile=percentile,
                band_percentiles=band_percentiles, p_names=p_names, dtype=dtype)

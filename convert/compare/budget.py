@@ -61,6 +61,7 @@ class BudgetRow:
     delta_gain_margin_db: float | None = None
     delta_sensitivity_peak_db: float | None = None
     percentile: float | None = None
+    unstable_fraction: float | None = None  # draws whose closed loop is unstable (None: not counted)
 
     def as_dict(self) -> dict:
         return dict(self.__dict__)
@@ -119,11 +120,15 @@ def drawn_row(key: str, figures, *, note: str) -> BudgetRow:
                for name, n in sorted(f.draws_without.items())]
     if missing:  # say so: a percentile over the draws that have the figure is not over all of them
         note = f"{note}; {', '.join(missing)} (left out of that figure's percentile)"
+    if f.unstable_fraction:  # always said when above zero (the verdict checks it too)
+        note = (f"{note}; {100 * f.unstable_fraction:.3g} % of the draws ({f.unstable_draws} of {f.draws}) give an "
+                f"unstable closed loop with the plant")
     return BudgetRow(key=key, label=ROW_LABELS[key], applicable=True, note=note,
                      max_gain_error_db=f.max_gain_error_db, max_gain_error_at_hz=f.max_gain_error_at_hz,
                      max_phase_error_deg=f.max_phase_error_deg, max_phase_error_at_hz=f.max_phase_error_at_hz,
                      delta_phase_margin_deg=f.delta_phase_margin_deg, delta_gain_margin_db=f.delta_gain_margin_db,
-                     delta_sensitivity_peak_db=f.delta_sensitivity_peak_db, percentile=f.percentile)
+                     delta_sensitivity_peak_db=f.delta_sensitivity_peak_db, percentile=f.percentile,
+                     unstable_fraction=f.unstable_fraction)
 
 
 def assemble(rows: dict[str, BudgetRow], applicable_keys: Sequence[str], form: str) -> list[BudgetRow]:

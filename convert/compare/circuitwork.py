@@ -93,7 +93,8 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
                           distribution=tgt.distribution, rounded_response=rnd_b, source_response=src_b,
                           opamp=model, loop_f_hz=loop_f,
                           loop_margins=spec.margins if spec is not None else None,
-                          loop_rounded=rnd_l, loop_source=src_l, display_f_hz=f_disp)
+                          loop_rounded=rnd_l, loop_source=src_l, display_f_hz=f_disp,
+                          loop_count=loop_count_of(design.realized, case.plant) if case.plant is not None else None)
     spread = ", ".join(f"{k} {v * 100:g} %" for k, v in tols.items())
     rows["tolerances"] = bud.drawn_row(
         "tolerances", mc.figures["tolerances"],
@@ -144,7 +145,7 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
 
 def monte_carlo_rows(topology, rounded: dict, tolerances: dict, band_f_hz, *, sign: float, draws: int, seed: int,
                      distribution: str, rounded_response, source_response, opamp=None, loop_f_hz=None,
-                     loop_margins=None, loop_rounded=None, loop_source=None, display_f_hz=None):
+                     loop_margins=None, loop_rounded=None, loop_source=None, display_f_hz=None, loop_count=None):
     """The Monte Carlo a circuit budget needs, in one run of the tolerance engine: the
     ``tolerances`` comparison (draws, ideal op-amp, against the rounded parts) and the ``total``
     (draws with the op-amp model against the source as the loop sees it), with the margin
@@ -157,7 +158,30 @@ def monte_carlo_rows(topology, rounded: dict, tolerances: dict, band_f_hz, *, si
     return run_tolerances(topology, rounded, tolerances, band_f_hz=band_f_hz, comparisons=comparisons, draws=draws,
                           seed=seed, distribution=distribution, sign=sign, loop_f_hz=loop_f_hz,
                           loop_margins=loop_margins, display_f_hz=display_f_hz, display_opamp=opamp,
-                          parameters=False)
+                          parameters=False, loop_count=loop_count)
+
+
+def loop_count_of(controller, plant):
+    """What the tolerance engine needs to count unstable draws of a circuit's loop with ``plant``
+    (the case's plant, dead time exact): the margin grid of the nominal loop, widened until |L|
+    is below 1/100 at the top."""
+    from convert.circuit.tolerance import LoopCount
+    from convert.compare.loop import margin_grid
+
+    f = margin_grid(controller, plant.model)
+    theta = plant.dead_time_s
+
+    def p_of(fx):
+        fx = np.asarray(fx, dtype=float)
+        return plant.model.frequency_response(fx, via="zpk") * np.exp(-2j * np.pi * fx * theta)
+
+    with np.errstate(all="ignore"):
+        for _ in range(6):  # the top of the grid where every draw's |L| has fallen well below 1/2
+            top = abs(controller.frequency_response(f[-1:], via="zpk")[0] * p_of(f[-1:])[0])
+            if not top > 0.01:
+                break
+            f = np.concatenate([f, f[-1] * np.logspace(0, 1, 401)[1:]])
+    return LoopCount(f, p_of)
 
 
 def circuit_files(design, model, tolerances=None) -> dict:

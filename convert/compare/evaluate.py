@@ -200,6 +200,8 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
         fw = r.details.get("firmware") if r.form == "digital" else None
         if fw is not None:
             f["checks"] = f["checks"] + list(fw["checks"])
+        if total.unstable_fraction is not None:
+            f["checks"] = list(f.get("checks", ())) + [_draws_stability_check(total)]
         figures[r.name] = f
     evidence = None
     if getattr(case, "evidence", None) is not None:
@@ -261,6 +263,19 @@ def _simulable(case, src: Controller, analog_src: Controller, notes: list[str]) 
         return filt
     notes.append("the source is improper (pure derivative): its loop cannot be simulated; give a filtered source")
     return None
+
+
+def _draws_stability_check(total) -> dict:
+    """The always-on check of a circuit's Monte Carlo draws with the plant: FAIL when more draws
+    give an unstable closed loop than the percentile the error figures use leaves out (1 % for
+    the 99th percentile)."""
+    limit = 100.0 - float(total.percentile)
+    value = 100.0 * float(total.unstable_fraction)
+    ok = value <= limit
+    note = (f"{value:.3g} % of the Monte Carlo draws give an unstable closed loop with the plant "
+            f"(limit {limit:g} %, the share of draws the p{float(total.percentile):g} error figures leave out)")
+    return {"key": "draws_closed_loop_stable", "label": "closed-loop stability over the draws", "unit": "%",
+            "limit": limit, "value": value, "status": "pass" if ok else "fail", "note": note}
 
 
 def _stability(controller: Controller | None, plant, delay_s: float, what: str, notes: list[str]) -> LoopStability | None:

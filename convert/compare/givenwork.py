@@ -182,6 +182,7 @@ def _circuit(case, given, info, src, band, duration, src_step, src_dist, draws):
     if "topology" in d:
         from convert.circuit.tolerance import DEFAULT_DRAWS, Comparison, run_tolerances
         from convert.circuit.topologies import get_topology
+        from convert.compare.circuitwork import loop_count_of
 
         topo = get_topology(d["topology"])
         details.update(topology=topo.name, parts=dict(d["parts"]),
@@ -195,7 +196,8 @@ def _circuit(case, given, info, src, band, duration, src_step, src_dist, draws):
                 comparisons=[Comparison("tolerances", nominal[:band.size], None,
                                         nominal[band.size:] if loops else None),
                              Comparison("total", ref[:band.size], None, ref[band.size:] if loops else None)],
-                loop_f_hz=loop_f, loop_margins=spec.margins if loops else None)
+                loop_f_hz=loop_f, loop_margins=spec.margins if loops else None,
+                loop_count=loop_count_of(ctrl, case.plant) if loops else None)
             rows["tolerances"] = bud.drawn_row(
                 "tolerances", mc.figures["tolerances"],
                 note=f"{n} draws within ±tolerance ({', '.join(f'{k} {v * 100:g} %' for k, v in tols.items())}) "
