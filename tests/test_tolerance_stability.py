@@ -122,3 +122,18 @@ def test_compare_cli_verdict(args, expect, capsys):
         assert "unstable closed loop with the plant" in out
     else:
         assert "unstable closed loop" not in out
+
+
+def test_drawn_controllers_have_no_right_half_plane_pole():
+    """The count takes every drawn RC controller as free of right-half-plane poles: checked per draw
+    (numpy's eigenvalues of the companion matrix against numpy.roots on the made-up denominators) for the PI card with ±20 % parts; a denominator with a
+    right-half-plane root is flagged."""
+    from convert.circuit.tolerance import _rhp_controller
+
+    topo = get_topology("pi-rc-feedback")
+    d = draw_parts(topo, {"R1": 60.4e3, "R2": 200e3, "C1": 10e-6}, {"R": 0.2, "C": 0.2}, 500, 5)
+    assert not _rhp_controller(topo, d).any()
+    fake = SimpleNamespace(coefficients=lambda p: ([np.ones(2)], [np.ones(2), np.array([-1.0, 1.0]), np.ones(2)]))
+    flags = _rhp_controller(fake, {"x": np.zeros(2)})  # s² − s + 1 (roots 0.5 ± 0.87j) and s² + s + 1
+    assert list(flags) == [True, False]
+    assert np.any(np.roots([1, -1, 1]).real > 0) and not np.any(np.roots([1, 1, 1]).real > 0)

@@ -798,6 +798,32 @@ def count_unstable(count: LoopCount, controller_responses: np.ndarray,
     return undecided | (z != 0)
 
 
+def _rhp_controller(topology, parts: dict) -> np.ndarray:
+    """Draws whose controller (ideal op-amps) has a pole in the right half-plane (bool (n,)): the
+    count above assumes none, as for an RC network with positive parts; a draw that breaks it is
+    counted unstable. Poles at s = 0 (trailing zero coefficients of every draw) are the
+    integrators every draw keeps. Batched eigenvalues of the companion matrices."""
+    n = len(next(iter(parts.values())))
+    with np.errstate(all="ignore"):
+        _, den = topology.coefficients(parts)
+    rows = np.vstack([np.broadcast_to(np.asarray(c, dtype=float), (n,)) for c in den]).T  # (n, deg+1)
+    while rows.shape[1] > 1 and not np.any(rows[:, -1]):
+        rows = rows[:, :-1]
+    while rows.shape[1] > 1 and not np.any(rows[:, 0]):
+        rows = rows[:, 1:]
+    deg = rows.shape[1] - 1
+    if deg < 1:
+        return np.zeros(n, dtype=bool)
+    with np.errstate(all="ignore"):
+        comp = np.zeros((n, deg, deg))
+        comp[:, 0, :] = -rows[:, 1:] / rows[:, :1]
+        comp[:, np.arange(1, deg), np.arange(deg - 1)] = 1.0
+        ok = np.isfinite(comp).all(axis=(1, 2))
+        roots = np.linalg.eigvals(np.where(ok[:, None, None], comp, 0.0))
+        size = np.maximum(np.abs(roots).max(axis=1), 1e-300)
+    return ~ok | np.any(roots.real > 1e-9 * size[:, None], axis=1)
+
+
 def arg_change_along(count: LoopCount, controller_response: np.ndarray,
                      controller_at: Callable[[np.ndarray], np.ndarray]) -> float:
     """The arg change of 1 + L along ``count.f_hz`` for one controller (radians), refined as in
@@ -908,7 +934,7 @@ class _Worker:
                 return _responses(topology, {k: v[i:i + 1] for k, v in p.items()}, fx, opamp, sign)[0]
 
             h = _responses(topology, p, lc.f_hz, opamp, sign)
-            return count_unstable(lc, h, at, r["nominal_change"][gkey])
+            return count_unstable(lc, h, at, r["nominal_change"][gkey]) | _rhp_controller(topology, p)
 
         return int(np.count_nonzero(_by_rows(block, drawn)))
 
