@@ -848,11 +848,13 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
                      "target.digital.output_limits says otherwise")
     if card.structure is not None:
         extra["setpoint_structure"] = card.structure.description
-        text = "two-input card: the loop checks use its feedback controller on the error, u = C·(r − y); "
         if card.structure.plain_error:
-            text += f"its setpoint path is the same ({card.structure.description})"
+            text = ("two-input card: the loop checks use its feedback controller on the error, u = C·(r − y); "
+                    f"its setpoint path is the same ({card.structure.description})")
         else:
-            text += f"its setpoint path differs ({card.structure.description}) and the firmware must reproduce it"
+            extra["setpoint_filter"] = card.structure.setpoint_filter
+            text = ("two-input card: the setpoint step is simulated through its own setpoint path, "
+                    f"u = H_sp·r − C·y ({card.structure.description}); the firmware must reproduce it")
         notes.append(text)
     running = card.full_controller or card.controller  # the card as it runs, parasitics and all
     return SourceInfo(controller=running.with_name("card"), pid=card.pid, notes=tuple(notes), extra=extra)

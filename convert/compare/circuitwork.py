@@ -19,10 +19,11 @@ from convert.errors import LoopshiftError
 
 
 def circuit_realization(case, src: Controller, analog_src: Controller, band, src_margins, duration, src_step,
-                        src_dist, *, draws=None, tick=lambda text: None, case_reduction=None, source_pid=None):
+                        src_dist, *, draws=None, tick=lambda text: None, case_reduction=None, source_pid=None,
+                        setpoint_filter=None):
     from convert.circuit.design import DesignOptions, design_circuit
     from convert.circuit.opamp import OpAmpModel, gbw_response
-    from convert.compare.evaluate import Realization, _fmt_hz, _simulate_pair
+    from convert.compare.evaluate import WEIGHTS_NOT_CARRIED, Realization, _fmt_hz, _simulate_pair
 
     tgt = case.circuit
     options = DesignOptions(topology=tgt.topology, resistors=tgt.resistors, capacitors=tgt.capacitors,
@@ -137,7 +138,20 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
               "distribution": tgt.distribution, "total": mc.figures["total"]}
     if case.plant is not None:
         r.margins = loop_margins(realized, case.plant.model, case.plant.dead_time_s)
-        r.step, r.disturbance = _simulate_pair(case, realized, duration, 0.0, case.signals.output_range)
+        # a two-input stage runs its own setpoint path (from its rounded parts); a one-input stage
+        # has u = C·(r − y) and is judged against the source's weighted response
+        own = None
+        if topo.two_input:
+            from convert.circuit.card import _ratio
+
+            paths = topo.paths_from_parts(rounded)
+            own = _ratio(paths["setpoint"], paths["measurement"], "setpoint filter F = Cr / Cy")
+            if own.order == 0 and len(own.num) == 1 and abs(own.num[0] - 1.0) <= 1e-9:
+                own = None
+        r.step, r.disturbance = _simulate_pair(case, realized, duration, 0.0, case.signals.output_range,
+                                               setpoint_filter=own)
+        if setpoint_filter is not None and own is None:
+            r.warnings.append(WEIGHTS_NOT_CARRIED)
     r.files = circuit_files(design, model, tols)
     tick("circuit files")
     return r

@@ -140,6 +140,11 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
 
     plant = case.plant
     src_margins = duration = src_step = src_dist = src_stability = None
+    src_filter = None if src.is_digital else setpoint_filter_of(info.pid, info.extra)
+    if src_filter is not None and plant is not None:
+        notes.append("the source's setpoint path differs from its error path (setpoint weights or a setpoint "
+                     f"filter): every setpoint step is simulated as u = C_sp·r − C·y, with F = C_sp/C = "
+                     f"{src_filter.expression()} applied to the step; the load disturbance does not depend on it")
     sim_src = None
     if plant is not None:
         src_margins = loop_margins(src, plant.model, plant.dead_time_s)
@@ -152,7 +157,8 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
                                                                plant.model, plant.dead_time_s)
         if sim_src is not None:
             src_step, src_dist = _simulate_pair(case, sim_src, duration, 0.0,
-                                                _within(case.signals.output_range, card_limits))
+                                                _within(case.signals.output_range, card_limits),
+                                                setpoint_filter=src_filter)
     else:
         skipped += ["loop margins (gain margin, phase margin, crossover, sensitivity peak)",
                     "closed-loop step and load-disturbance simulations",
@@ -164,7 +170,8 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
     advice: list[RateAdvice] = []
     if case.digital:
         realizations += _digital_realizations(case, src, analog_src, band, src_margins, duration, src_step,
-                                              src_dist, tick, card_limits=card_limits, reduction=reduction)
+                                              src_dist, tick, card_limits=card_limits, reduction=reduction,
+                                              setpoint_filter=src_filter)
         advice = _rate_advice(case, analog_src, src_margins, src_step, src_dist, duration, src_stability)
         tick("sample-rate advice")
     if case.circuit:
@@ -172,12 +179,12 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
 
         realizations.append(circuit_realization(case, src, analog_src, band, src_margins, duration, src_step,
                                                 src_dist, draws=draws, tick=tick, case_reduction=reduction,
-                                                source_pid=info.pid))
+                                                source_pid=info.pid, setpoint_filter=src_filter))
     if getattr(case, "given", ()):
         from convert.compare.givenwork import given_realizations
 
         realizations += given_realizations(case, src, band, src_margins, duration, src_step, src_dist, draws=draws,
-                                           tick=tick)
+                                           tick=tick, source_weighted=src_filter is not None)
 
     figures = {}
     loops: dict[str, LoopStability | None] = {}
@@ -300,13 +307,44 @@ def _sentence(text: str) -> str:
     return text[:1].upper() + text[1:] if text else text
 
 
-def _simulate_pair(case, controller: Controller, duration: float, delay_s: float, limits, realized=None):
+def setpoint_filter_of(pid=None, extra=None) -> Controller | None:
+    """The setpoint filter F = C_sp/C of a form whose setpoint path differs from its error path
+    (None when u = C·(r − y)): a two-input card's F = H_sp/C (``extra["setpoint_filter"]``, from
+    the card's analysis), else a PID's with weights b, c ≠ 1: F = N_sp/N, the numerators of
+    kp·b + ki/s + kd·c·s/(tf·s + 1) and of the PID itself (same denominator)."""
+    if extra and extra.get("setpoint_filter") is not None:
+        return extra["setpoint_filter"]
+    if pid is None or (pid.b == 1 and pid.c == 1):
+        return None
+    sp, fb = pid.setpoint_controller(), pid.to_controller()
+    d_sp, d_fb = np.asarray(sp.den, float), np.asarray(fb.den, float)
+    if d_sp.size == d_fb.size and np.allclose(d_sp / d_sp[0], d_fb / d_fb[0], rtol=1e-12, atol=0.0):
+        # the same denominator (up to its scaling): F is the ratio of the numerators
+        return Controller.analog(np.asarray(sp.num) / d_sp[0], np.asarray(fb.num) / d_fb[0],
+                                 name="setpoint filter F = C_sp / C")
+    from convert.circuit.card import _ratio
+
+    return _ratio(sp, fb, "setpoint filter F = C_sp / C")
+
+
+WEIGHTS_NOT_CARRIED = ("this form has no setpoint path of its own (u = C·(r − y)); its setpoint step is judged "
+                       "against the source's weighted response, u = C_sp·r − C·y")
+CODE_NOT_WEIGHTED = ("the generated code takes the error (u = C·(r − y)) and does not carry the source's setpoint "
+                     "path; its setpoint step is simulated so and judged against the source's weighted response "
+                     "(firmware with setpoint weights b, c: loopshift code --pid-block)")
+
+
+def _simulate_pair(case, controller: Controller, duration: float, delay_s: float, limits, realized=None,
+                   setpoint_filter: Controller | None = None):
+    """Setpoint-step and load-disturbance responses of ``controller`` in the case's loop; the
+    setpoint step passes through ``setpoint_filter`` F (the 2-DOF law u = C·(F·r − y)), the
+    disturbance does not depend on it."""
     plant = case.plant
     common = dict(duration_s=duration, delay_s=delay_s, output_limits=limits)
     if realized is not None:
         common["realized"] = realized
     step = simulate_loop(controller, plant.model, plant.dead_time_s, kind="setpoint", step=case.signals.setpoint_step,
-                         **common)
+                         setpoint_filter=setpoint_filter, **common)
     dist = simulate_loop(controller, plant.model, plant.dead_time_s, kind="disturbance",
                          step=case.signals.disturbance_step, **common)
     return step, dist
@@ -357,7 +395,7 @@ def card_parasitics_row(reduction, band, spec=None, loop_f=None) -> dict:
 
 
 def _digital_realizations(case, src, analog_src, band, src_margins, duration, src_step, src_dist, tick, *,
-                          card_limits=None, reduction=None):
+                          card_limits=None, reduction=None, setpoint_filter=None):
     from convert.digital import discretize
 
     tgt = case.digital
@@ -444,8 +482,11 @@ def _digital_realizations(case, src, analog_src, band, src_margins, duration, sr
                 r.margins = loop_margins(cq, case.plant.model, case.plant.dead_time_s, delay_s=delay)
                 limits = firmware_output_limits(case, card_limits)
                 try:
+                    # the code handed out takes the error: it is simulated as it runs
                     r.step, r.disturbance = _simulate_pair(case, cq, duration, delay, limits,
                                                            realized=firmware.realized)
+                    if setpoint_filter is not None:
+                        r.warnings.append(CODE_NOT_WEIGHTED)
                 except InputError as exc:
                     r.warnings.append(f"time simulation skipped: {exc.message}")
             out.append(r)

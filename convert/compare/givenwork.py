@@ -42,7 +42,7 @@ def quantized(given, controller: Controller) -> Controller:
 
 
 def given_realizations(case, src: Controller, band, src_margins, duration, src_step, src_dist, *, draws=None,
-                       tick=lambda text: None) -> list:
+                       tick=lambda text: None, source_weighted: bool = False) -> list:
     """One :class:`convert.compare.evaluate.Realization` per given form of ``case``."""
     from convert.given import given_controller
 
@@ -55,6 +55,10 @@ def given_realizations(case, src: Controller, band, src_margins, duration, src_s
             out.append(_circuit(case, given, info, src, band, duration, src_step, src_dist, draws))
         else:
             out.append(_firmware(case, given, info, src, band, duration, src_step, src_dist))
+        if source_weighted and case.plant is not None and not getattr(out[-1], "own_setpoint_path", False):
+            from convert.compare.evaluate import WEIGHTS_NOT_CARRIED
+
+            out[-1].warnings.append(WEIGHTS_NOT_CARRIED)
         tick(f"given {given.name}")
     return out
 
@@ -140,7 +144,8 @@ def _firmware(case, given, info, src, band, duration, src_step, src_dist):
     r = _realization(case, given, "digital", cq, details, budget, warnings,
                      lambda f, c=cq, dl=delay: response_seen_from_loop(c, f, delay_s=dl, via="zpk"))
     if case.plant is not None:
-        _loop_checks(case, r, cq, duration, delay, d["output_limits"] or case.signals.output_range)
+        _loop_checks(case, r, cq, duration, delay, d["output_limits"] or case.signals.output_range,
+                     getattr(info, "pid", None))
     return r
 
 
@@ -160,7 +165,7 @@ def _analog(case, given, info, src, band, duration):
     r = _realization(case, given, "analog", ctrl, details, bud.assemble(rows, (), "given analog"), [],
                      lambda f, c=ctrl: c.frequency_response(f, via="zpk"))
     if case.plant is not None:
-        _loop_checks(case, r, ctrl, duration, 0.0, case.signals.output_range)
+        _loop_checks(case, r, ctrl, duration, 0.0, case.signals.output_range, getattr(info, "pid", None))
     return r
 
 
@@ -237,8 +242,10 @@ def _realization(case, given, form, controller, details, budget, warnings, seen)
                        seen=seen, warnings=warnings)
 
 
-def _loop_checks(case, r, controller, duration, delay, limits) -> None:
-    from convert.compare.evaluate import _simulate_pair
+def _loop_checks(case, r, controller, duration, delay, limits, pid=None) -> None:
+    """Margins and simulations of a given form; a PID block with setpoint weights b, c runs its
+    own setpoint path (F = C_sp/C of its settings, sampled at its instants when it is firmware)."""
+    from convert.compare.evaluate import _simulate_pair, setpoint_filter_of
     from convert.compare.loop import loop_margins
     from convert.errors import InputError
 
@@ -247,6 +254,8 @@ def _loop_checks(case, r, controller, duration, delay, limits) -> None:
         r.warnings.append("time simulation skipped: the given form is improper")
         return
     try:
-        r.step, r.disturbance = _simulate_pair(case, controller, duration, delay, limits)
+        own = setpoint_filter_of(pid)
+        r.own_setpoint_path = own is not None
+        r.step, r.disturbance = _simulate_pair(case, controller, duration, delay, limits, setpoint_filter=own)
     except InputError as exc:
         r.warnings.append(f"time simulation skipped: {exc.message}")

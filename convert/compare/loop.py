@@ -532,6 +532,64 @@ def _run(system: _LoopSystem, steps: int, limits: tuple[float, float], extra=Non
     return y, np.clip(u, lo, hi), extras  # a settled output within `tol` of a limit stays on it
 
 
+class _Prefilter:
+    """The setpoint as the loop's error sees it: r_f = F·r for a setpoint step r (F = C_sp/C, the
+    2-DOF law u = C_sp·r − C·y written as C·(F·r − y)). Its states sit just before the constant
+    1 of a loop's state (indices ``j .. j+n``); ``row(unit, one)`` is r_f_k as a row on that state,
+    ``advance(a, one)`` writes the states' update into a loop matrix. ``step_s`` the update
+    interval: an analog F is discretized exactly for the constant r (ZOH of a step is exact); a
+    digital F runs once per update. ``F = None``: r_f = r (no states)."""
+
+    def __init__(self, f: Controller | None, r: float, step_s: float | None, continuous: bool = False):
+        self.r = r
+        if f is None:
+            self.n, self.d = 0, 1.0
+            return
+        a, b, c, d = _realize(f, "setpoint filter")
+        self.n, self.c, self.d = a.shape[0], c[0], d
+        if continuous:
+            self.phi, self.gam = a, b[:, 0]
+        elif f.is_digital:
+            self.phi, self.gam = a, b[:, 0]
+        else:
+            phi, gam = _phi_gamma(a, b, step_s)
+            self.phi, self.gam = phi, gam[:, 0]
+
+    def place(self, j: int) -> None:
+        self.j = j
+
+    def row(self, unit: np.ndarray, one: int) -> np.ndarray:
+        out = self.d * self.r * unit[one]
+        if self.n:
+            out = out.copy()
+            out[self.j:self.j + self.n] += self.c
+        return out
+
+    def next_row(self, unit: np.ndarray, one: int) -> np.ndarray:
+        """r_f_{k+1} as a row on the state at k."""
+        if not self.n:
+            return self.row(unit, one)
+        out = (self.c @ self.gam + self.d) * self.r * unit[one]
+        out[self.j:self.j + self.n] += self.c @ self.phi
+        return out
+
+    def advance(self, a: np.ndarray, one: int) -> None:
+        if self.n:
+            j, n = self.j, self.n
+            a[j:j + n, j:j + n] = self.phi
+            a[j:j + n, one] = self.gam * self.r
+
+    def samples(self, count: int) -> np.ndarray:
+        """r_f_k for k = 0..count−1 (a digital F, or an analog one sampled every step_s)."""
+        x = np.zeros(self.n)
+        out = np.empty(count)
+        for k in range(count):
+            out[k] = (self.c @ x if self.n else 0.0) + self.d * self.r
+            if self.n:
+                x = self.phi @ x + self.gam * self.r
+        return out
+
+
 class _SampledLoop(_LoopSystem):
     """A digital controller at period T through a zero-order hold, its output reaching the plant
     after ``delay_u`` (dead time + computation delay) and the load after ``delay_d`` (dead time),
@@ -540,7 +598,7 @@ class _SampledLoop(_LoopSystem):
     output changes (the plant input's left limit enters its direct term)."""
 
     def __init__(self, controller: Controller, plant: Controller, delay_u: float, delay_d: float,
-                 r: float, dist: float):
+                 r: float, dist: float, prefilter: Controller | None = None):
         t = controller.sample_period_s
         self.t = t
         self.ap, self.bp, self.cp, self.dp = _realize(plant, "plant.model")
@@ -552,7 +610,9 @@ class _SampledLoop(_LoopSystem):
         self.r, self.dist = r, dist
         self.np_, self.nc = self.ap.shape[0], self.ac.shape[0]
         self.iu = self.np_ + self.nc
-        self.dim = self.iu + self.n + 2
+        self.pre = _Prefilter(prefilter, r, t)
+        self.dim = self.iu + self.n + 2 + self.pre.n
+        self.pre.place(self.dim - 1 - self.pre.n)
         self.boundaries = (self.nd, self.nd + 1) if dist else ()
 
     def key(self, k: int):
@@ -569,7 +629,7 @@ class _SampledLoop(_LoopSystem):
         y_row[iu + n] += self.dp
         if key == 2:
             y_row[one] += self.dp * self.dist
-        e_row = self.r * unit[one] - y_row
+        e_row = self.pre.row(unit, one) - y_row
         v_row = np.zeros(dim)
         v_row[np_:iu] = self.cc[0]
         v_row += self.dc * e_row
@@ -584,6 +644,7 @@ class _SampledLoop(_LoopSystem):
         a[np_:iu] += np.outer(self.bc[:, 0], e_row)
         a[iu] = u_row
         a[iu + 1:iu + n + 1, iu:iu + n] = np.eye(n)
+        self.pre.advance(a, one)
         a[one, one] = 1.0
         return a, y_row, u_row, v_row
 
@@ -641,14 +702,17 @@ class _AnalogLoop(_LoopSystem):
     linear over a step), an error of order (ω·h)²/8 of the signal's curvature, with h tied to the
     loop's dynamics. State: [plant x; controller xc; u_{k−1} … u_{k−m}; 1]."""
 
-    def __init__(self, controller: Controller, plant: Controller, theta: float, h: float, r: float, dist: float):
+    def __init__(self, controller: Controller, plant: Controller, theta: float, h: float, r: float, dist: float,
+                 prefilter: Controller | None = None):
         self.ap, self.bp, self.cp, self.dp = _realize(plant, "plant.model")
         self.ac, self.bc, self.cc, self.dc = _realize(controller)
         self.r, self.dist, self.h = r, dist, h
         self.np_, self.nc = self.ap.shape[0], self.ac.shape[0]
         self.iu = self.np_ + self.nc
         self.m = int(round(theta / h)) if theta > 0 else 0
-        self.dim = self.iu + self.m + 1
+        self.pre = _Prefilter(prefilter, r, h, continuous=not self.m)
+        self.dim = self.iu + self.m + 1 + self.pre.n
+        self.pre.place(self.dim - 1 - self.pre.n)
         if self.m:
             self.pf = _foh(self.ap, self.bp, h)
             self.cf = _foh(self.ac, self.bc, h)
@@ -676,7 +740,7 @@ class _AnalogLoop(_LoopSystem):
             y_row[iu + m - 1] += dp  # u_{k−m}, left limit (zero just after the setpoint step)
         if d_left:
             y_row[one] += dp * self.dist
-        e_row = self.r * unit[one] - y_row
+        e_row = self.pre.row(unit, one) - y_row
         v_row = np.zeros(dim)
         v_row[np_:iu] = self.cc[0]
         v_row += self.dc * e_row
@@ -692,7 +756,7 @@ class _AnalogLoop(_LoopSystem):
         y_next = cp @ x_next + dp * newer
         if d_on:  # the load reached the plant input at θ: y_{k+1}'s direct term sees it
             y_next = y_next + dp * self.dist * unit[one]
-        e_next = self.r * unit[one] - y_next
+        e_next = self.pre.next_row(unit, one) - y_next
         phic, cs, ce = self.cf
         a = np.zeros((dim, dim))
         a[:np_] = x_next
@@ -700,6 +764,7 @@ class _AnalogLoop(_LoopSystem):
         a[np_:iu] += np.outer(cs, e_row) + np.outer(ce, e_next)
         a[iu] = u_row
         a[iu + 1:iu + m, iu:iu + m - 1] = np.eye(m - 1)
+        self.pre.advance(a, one)
         a[one, one] = 1.0
         return a, y_row, u_row, v_row
 
@@ -712,6 +777,7 @@ class _AnalogLoop(_LoopSystem):
         one = dim - 1
         unit = np.eye(dim)
         cp, dp, cc, dc = self.cp[0], self.dp, self.cc[0], self.dc
+        ref = self.pre.row(unit, one)
         if mode == "lin":
             # y = Cp x + Dp (Cc xc + Dc (r − y) + d)
             g = 1.0 + dp * dc
@@ -721,11 +787,12 @@ class _AnalogLoop(_LoopSystem):
             y_row = np.zeros(dim)
             y_row[:np_] = cp
             y_row[np_:iu] = dp * cc
-            y_row[one] = dp * (dc * self.r + self.dist)
+            y_row[one] = dp * self.dist
+            y_row += dp * dc * ref
             y_row /= g
             v_row = np.zeros(dim)
             v_row[np_:iu] = cc
-            v_row += dc * (self.r * unit[one] - y_row)
+            v_row += dc * (ref - y_row)
             u_row = v_row
         else:
             lim = self.lo if mode == "lo" else self.hi
@@ -735,13 +802,14 @@ class _AnalogLoop(_LoopSystem):
             y_row[one] = dp * (lim + self.dist)
             v_row = np.zeros(dim)
             v_row[np_:iu] = cc
-            v_row += dc * (self.r * unit[one] - y_row)
-        e_row = self.r * unit[one] - y_row
+            v_row += dc * (ref - y_row)
+        e_row = ref - y_row
         ac = np.zeros((dim, dim))
         ac[:np_, :np_] = self.ap
         ac[:np_] += np.outer(self.bp[:, 0], u_row + self.dist * unit[one])
         ac[np_:iu, np_:iu] = self.ac
         ac[np_:iu] += np.outer(self.bc[:, 0], e_row)
+        self.pre.advance(ac, one)
         return expm(ac * self.h), y_row, u_row, v_row
 
 
@@ -754,7 +822,8 @@ class _CascadeLoop(_LoopSystem):
     states now, which gives its output u_k = Cc·xc_{k+m} + Dc·e_k. State:
     [controller xc (delayed by θ); plant x; e_{k−1} … e_{k−m}; 1]. Strictly proper plants."""
 
-    def __init__(self, controller: Controller, plant: Controller, theta: float, h: float, r: float, dist: float):
+    def __init__(self, controller: Controller, plant: Controller, theta: float, h: float, r: float, dist: float,
+                 prefilter: Controller | None = None):
         ap, bp, cp, dp = _realize(plant, "plant.model")
         ac, bc, cc, dc = _realize(controller)
         self.nc, self.np_ = ac.shape[0], ap.shape[0]
@@ -772,7 +841,9 @@ class _CascadeLoop(_LoopSystem):
         self.m = int(round(theta / h))
         self.r, self.dist = r, dist
         self.ng = n
-        self.dim = n + self.m + 1
+        self.pre = _Prefilter(prefilter, r, h)
+        self.dim = n + self.m + 1 + self.pre.n
+        self.pre.place(self.dim - 1 - self.pre.n)
         self.boundaries = (self.m - 1, self.m)
 
     def key(self, k: int):
@@ -785,7 +856,8 @@ class _CascadeLoop(_LoopSystem):
         unit = np.eye(dim)
         y_row = np.zeros(dim)
         y_row[:ng] = self.c
-        e_row = self.r * unit[one] - y_row
+        e_row = self.pre.row(unit, one) - y_row
+        self._ref = self.pre.row(unit, one)
         older = unit[ng + m - 1]
         newer = np.zeros(dim) if first else (e_row if m == 1 else unit[ng + m - 2])
         a = np.zeros((dim, dim))
@@ -795,12 +867,13 @@ class _CascadeLoop(_LoopSystem):
             a[:ng, one] += self.gd * self.dist
         a[ng] = e_row
         a[ng + 1:ng + m, ng:ng + m - 1] = np.eye(m - 1)
+        self.pre.advance(a, one)
         a[one, one] = 1.0
         return a, y_row, np.zeros(dim), np.zeros(dim)
 
     def extra(self, key, mode, zs, u_seg):
         y = zs[:, :self.ng] @ self.c
-        return zs[:, :self.nc] @ self.cc[0], self.r - y
+        return zs[:, :self.nc] @ self.cc[0], zs @ self._ref - y
 
     def outputs(self, extras, steps: int) -> np.ndarray:
         """u_k = Cc·xc_{k+m} + Dc·e_k for k = 0..steps."""
@@ -843,7 +916,8 @@ def natural_step(controller: Controller, plant: Controller, dead_time_s: float =
 def simulate_loop(controller: Controller, plant: Controller, dead_time_s: float = 0.0, *, duration_s: float,
                   kind: str = "setpoint", step: float = 1.0, delay_s: float = 0.0,
                   output_limits: tuple[float, float] | None = None, steps: int | None = None,
-                  sub_step_s: float | None = None, realized=None) -> LoopResponse:
+                  sub_step_s: float | None = None, realized=None,
+                  setpoint_filter: Controller | None = None) -> LoopResponse:
     """Simulate the loop's response to a setpoint step (``kind="setpoint"``) or a load-disturbance
     step at the plant input (``kind="disturbance"``), both applied at t = 0 with size ``step``.
 
@@ -862,6 +936,14 @@ def simulate_loop(controller: Controller, plant: Controller, dead_time_s: float 
     ``realized`` (a digital controller's firmware realization,
     :class:`convert.digital.fixedpoint.Realized`): its arithmetic model computes the output
     sample by sample (bit-true for fixed point; :func:`_simulate_realized`), the plant as above.
+
+    ``setpoint_filter`` F (a setpoint step only): the 2-DOF law u = C_sp·r − C·y, simulated as
+    u = C·(F·r − y) with F = C_sp/C (a PID with setpoint weights b, c; a two-input card's setpoint
+    path over its feedback controller). F's own states join the loop's state, so the result is
+    as exact as the unity-error loop's (analog F: exact for the step; with a digital controller
+    the filtered setpoint is sampled at the controller's instants, or a digital F with the
+    controller's period runs once per sample). F must be proper and stable. The load-disturbance
+    response does not depend on F (it is ignored for ``kind="disturbance"``).
     """
     if kind not in ("setpoint", "disturbance"):
         raise ValueError("kind must be 'setpoint' or 'disturbance'")
@@ -879,6 +961,9 @@ def simulate_loop(controller: Controller, plant: Controller, dead_time_s: float 
         h = natural_step(controller, plant, dead_time_s)
     r = step if kind == "setpoint" else 0.0
     dist = step if kind == "disturbance" else 0.0
+    pre = setpoint_filter if kind == "setpoint" else None
+    if pre is not None:
+        _check_prefilter(pre, controller)
     lo, hi = output_limits if output_limits else (-math.inf, math.inf)
     # An unstable loop grows like |λ|^k: past k ≈ 709/ln|λ| steps its true output (and the matrix
     # powers _Orbit forms, A^(64^L)) exceeds the float range. That is the loop's own behaviour, not a
@@ -893,11 +978,26 @@ def _simulate(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, l
     lo, hi = limits
     if controller.is_digital and realized is not None:
         return _simulate_realized(realized.model(), controller.sample_period_s, plant, dead_time_s, delay_s,
-                                  duration_s, h, r, dist, (lo, hi), kind)
+                                  duration_s, h, r, dist, (lo, hi), kind, pre)
     with one_blas_thread():
         if controller.is_digital:
-            return _simulate_sampled(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, (lo, hi), kind)
-        return _simulate_analog(controller, plant, dead_time_s, duration_s, h, r, dist, (lo, hi), kind)
+            return _simulate_sampled(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, (lo, hi), kind,
+                                     pre)
+        return _simulate_analog(controller, plant, dead_time_s, duration_s, h, r, dist, (lo, hi), kind, pre)
+
+
+def _check_prefilter(f: Controller, controller: Controller) -> None:
+    if not f.is_proper:
+        raise InputError("the setpoint filter F = C_sp/C is improper and cannot be simulated", key="setpoint filter")
+    if f.is_digital and (not controller.is_digital
+                         or not math.isclose(f.sample_period_s, controller.sample_period_s, rel_tol=1e-9)):
+        raise ValueError("a digital setpoint filter needs a digital controller with the same sample period")
+    p = f.poles()
+    bad = np.abs(p) >= 1 - 1e-9 if f.is_digital else p.real >= -1e-12 * max(1.0, float(np.max(np.abs(p), initial=0)))
+    if np.any(bad):
+        raise InputError("the setpoint filter F = C_sp/C has a pole on or beyond the stability boundary (a zero of "
+                         "the feedback controller there): the setpoint step cannot be simulated through it",
+                         key="setpoint filter")
 
 
 _POOLS: list = []
@@ -918,7 +1018,7 @@ def one_blas_thread():
     return _POOLS[0].limit(limits=1)
 
 
-def _simulate_analog(controller, plant, dead_time_s, duration_s, h, r, dist, limits, kind):
+def _simulate_analog(controller, plant, dead_time_s, duration_s, h, r, dist, limits, kind, pre=None):
     lo, hi = limits
     if dead_time_s > 0:
         m = max(1, int(math.ceil(dead_time_s / h - 1e-9)))
@@ -930,14 +1030,14 @@ def _simulate_analog(controller, plant, dead_time_s, duration_s, h, r, dist, lim
     if dead_time_s > 0 and plant.is_strictly_proper:
         # the controller's own fast response to the steps is exact in the cascade form; it holds
         # while the clamp does not act (checked on its result)
-        casc = _CascadeLoop(controller, plant, dead_time_s, h, r, dist)
+        casc = _CascadeLoop(controller, plant, dead_time_s, h, r, dist, pre)
         y, _, extras = _run(casc, n_steps + casc.m, (-math.inf, math.inf), casc.extra)
         u = casc.outputs(extras, n_steps)
         tol = 1e-12 * max([1.0] + [abs(x) for x in (lo, hi) if math.isfinite(x)])
         if np.all((u >= lo - tol) & (u <= hi + tol)):
             u = np.clip(u, lo, hi)
             return LoopResponse(t=np.arange(n_steps + 1) * h, y=y[:n_steps + 1], u=u, kind=kind, sub_step_s=h)
-    sys = _AnalogLoop(controller, plant, dead_time_s, h, r, dist)
+    sys = _AnalogLoop(controller, plant, dead_time_s, h, r, dist, pre)
     sys.lo, sys.hi = lo, hi
     y, u, _ = _run(sys, n_steps, (lo, hi))
     return LoopResponse(t=np.arange(n_steps + 1) * h, y=y, u=u, kind=kind, sub_step_s=h)
@@ -949,14 +1049,14 @@ def _check_steps(n: int, h: float, duration_s: float) -> None:
                          "shorten signals.duration", key="signals.duration")
 
 
-def _simulate_sampled(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, limits, kind):
+def _simulate_sampled(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, limits, kind, pre=None):
     t_s = controller.sample_period_s
     every = max(1, int(math.ceil(t_s / h - 1e-9)))
     h = t_s / every
     steps = int(math.ceil(duration_s / h - 1e-9))
     _check_steps(steps, h, duration_s)
     samples = steps // every + 1
-    sys = _SampledLoop(controller, plant, dead_time_s + delay_s, dead_time_s, r, dist)
+    sys = _SampledLoop(controller, plant, dead_time_s + delay_s, dead_time_s, r, dist, pre)
     sys.lo, sys.hi = limits
     n, nd, np_, iu = sys.n, sys.nd, sys.np_, sys.iu
     need_inter = every > 1
@@ -989,7 +1089,7 @@ def _simulate_sampled(controller, plant, dead_time_s, delay_s, duration_s, h, r,
     return LoopResponse(t=np.arange(steps + 1) * h, y=y, u=u, kind=kind, sub_step_s=h)
 
 
-def _simulate_realized(model, t_s, plant, dead_time_s, delay_s, duration_s, h, r, dist, limits, kind):
+def _simulate_realized(model, t_s, plant, dead_time_s, delay_s, duration_s, h, r, dist, limits, kind, pre=None):
     """The sampled loop with a nonlinear controller model (``model.step(e) -> u``, user units): the
     plant advanced exactly at the sub-step h (a divisor of T) with its input's fractional delays
     (:func:`_delay_taps`), the model called once per sample, its output held and clamped."""
@@ -1011,10 +1111,11 @@ def _simulate_realized(model, t_s, plant, dead_time_s, delay_s, duration_s, h, r
     y_out = np.zeros(steps + 1)
     u_out = np.zeros(steps + 1)
     u_now = u_in = 0.0
+    ref = _Prefilter(pre, r, t_s).samples(steps // every + 1)
     for k in range(steps + 1):
         y = sum(map(mul, c_row, x)) + d_p * u_in
         if k % every == 0:
-            v = model.step(r - y)
+            v = model.step(ref[k // every] - y)
             u_now = lo if v < lo else hi if v > hi else v
         u_hist.append(u_now)
         y_out[k], u_out[k] = y, u_now
