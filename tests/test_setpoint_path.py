@@ -208,3 +208,17 @@ def test_two_input_card_source_runs_its_setpoint_filter(tmp_path):
     ref = _reference(case.plant.model, c, sp, res.source_step.t)
     assert np.max(np.abs(res.source_step.y - ref)) < 1e-6
     assert any("own setpoint path" in n for n in res.notes)
+
+
+@pytest.mark.parametrize("dead", [0.0, 0.2])
+def test_improper_setpoint_filter_runs_as_an_added_path(dead):
+    """A setpoint path with a lead the feedback path lacks (F = 1 + s/110 improper, C_sp = F·C
+    proper, as in a card whose feedback capacitor is missing from its setpoint branch): the step
+    equals python-control's P·C_sp/(1 + P·C) (dead time by a 12th-order Padé)."""
+    plant = Controller.analog([1.0], [0.5, 1.5, 1.0])
+    c = Controller.analog([120.0, 147.0], [1.0, 110.0, 0.0])
+    f = Controller.analog([1 / 110, 1.0], [1.0])
+    sp = Controller.analog(np.polymul(f.num, c.num), c.den)
+    res = simulate_loop(c, plant, dead, duration_s=3.0, kind="setpoint", setpoint_filter=f)
+    ref = _reference(plant, c, sp, res.t, dead)
+    assert np.max(np.abs(res.y - ref)) < (1e-7 if dead == 0 else 2e-3)

@@ -538,10 +538,17 @@ class _Prefilter:
     1 of a loop's state (indices ``j .. j+n``); ``row(unit, one)`` is r_f_k as a row on that state,
     ``advance(a, one)`` writes the states' update into a loop matrix. ``step_s`` the update
     interval: an analog F is discretized exactly for the constant r (ZOH of a step is exact); a
-    digital F runs once per update. ``F = None``: r_f = r (no states)."""
+    digital F runs once per update. ``F = None``: r_f = r (no states).
 
-    def __init__(self, f: Controller | None, r: float, step_s: float | None, continuous: bool = False):
+    ``added`` (an improper F, e.g. a card whose setpoint path lacks a pole of its feedback path):
+    ``f`` is then G = C·(F − 1) = C_sp − C, proper, and its output w = G·r is added to the
+    controller's output instead (u = C·(r − y) + G·r, the same law); ``row`` is w_k and the
+    error sees the plain r (:meth:`error_row`)."""
+
+    def __init__(self, f: Controller | None, r: float, step_s: float | None, continuous: bool = False,
+                 added: bool = False):
         self.r = r
+        self.added = added
         if f is None:
             self.n, self.d = 0, 1.0
             return
@@ -557,6 +564,17 @@ class _Prefilter:
 
     def place(self, j: int) -> None:
         self.j = j
+
+    def error_row(self, unit: np.ndarray, one: int) -> np.ndarray:
+        """The setpoint as the error sees it at k."""
+        return self.r * unit[one] if self.added else self.row(unit, one)
+
+    def error_next_row(self, unit: np.ndarray, one: int) -> np.ndarray:
+        return self.r * unit[one] if self.added else self.next_row(unit, one)
+
+    def output_row(self, unit: np.ndarray, one: int) -> np.ndarray | None:
+        """w_k added to the controller's output (None unless ``added``)."""
+        return self.row(unit, one) if self.added else None
 
     def row(self, unit: np.ndarray, one: int) -> np.ndarray:
         out = self.d * self.r * unit[one]
@@ -610,7 +628,7 @@ class _SampledLoop(_LoopSystem):
         self.r, self.dist = r, dist
         self.np_, self.nc = self.ap.shape[0], self.ac.shape[0]
         self.iu = self.np_ + self.nc
-        self.pre = _Prefilter(prefilter, r, t)
+        self.pre = _pre(prefilter, r, t)
         self.dim = self.iu + self.n + 2 + self.pre.n
         self.pre.place(self.dim - 1 - self.pre.n)
         self.boundaries = (self.nd, self.nd + 1) if dist else ()
@@ -629,10 +647,12 @@ class _SampledLoop(_LoopSystem):
         y_row[iu + n] += self.dp
         if key == 2:
             y_row[one] += self.dp * self.dist
-        e_row = self.pre.row(unit, one) - y_row
+        e_row = self.pre.error_row(unit, one) - y_row
         v_row = np.zeros(dim)
         v_row[np_:iu] = self.cc[0]
         v_row += self.dc * e_row
+        if self.pre.added:
+            v_row += self.pre.output_row(unit, one)
         u_row = v_row if mode == "lin" else (self.lo if mode == "lo" else self.hi) * unit[one]
         a = np.zeros((dim, dim))
         u_kn = u_row if n == 0 else unit[iu + n - 1]
@@ -710,7 +730,7 @@ class _AnalogLoop(_LoopSystem):
         self.np_, self.nc = self.ap.shape[0], self.ac.shape[0]
         self.iu = self.np_ + self.nc
         self.m = int(round(theta / h)) if theta > 0 else 0
-        self.pre = _Prefilter(prefilter, r, h, continuous=not self.m)
+        self.pre = _pre(prefilter, r, h, continuous=not self.m)
         self.dim = self.iu + self.m + 1 + self.pre.n
         self.pre.place(self.dim - 1 - self.pre.n)
         if self.m:
@@ -740,10 +760,12 @@ class _AnalogLoop(_LoopSystem):
             y_row[iu + m - 1] += dp  # u_{k−m}, left limit (zero just after the setpoint step)
         if d_left:
             y_row[one] += dp * self.dist
-        e_row = self.pre.row(unit, one) - y_row
+        e_row = self.pre.error_row(unit, one) - y_row
         v_row = np.zeros(dim)
         v_row[np_:iu] = self.cc[0]
         v_row += self.dc * e_row
+        if self.pre.added:
+            v_row += self.pre.output_row(unit, one)
         u_row = v_row if mode == "lin" else (self.lo if mode == "lo" else self.hi) * unit[one]
         # u_{k−m+1} at its left limit (u_0⁻ = 0: the controller output was zero before t = 0)
         newer = np.zeros(dim) if first else (u_row if m == 1 else unit[iu + m - 2])
@@ -756,7 +778,7 @@ class _AnalogLoop(_LoopSystem):
         y_next = cp @ x_next + dp * newer
         if d_on:  # the load reached the plant input at θ: y_{k+1}'s direct term sees it
             y_next = y_next + dp * self.dist * unit[one]
-        e_next = self.pre.next_row(unit, one) - y_next
+        e_next = self.pre.error_next_row(unit, one) - y_next
         phic, cs, ce = self.cf
         a = np.zeros((dim, dim))
         a[:np_] = x_next
@@ -777,7 +799,8 @@ class _AnalogLoop(_LoopSystem):
         one = dim - 1
         unit = np.eye(dim)
         cp, dp, cc, dc = self.cp[0], self.dp, self.cc[0], self.dc
-        ref = self.pre.row(unit, one)
+        ref = self.pre.error_row(unit, one)
+        w = self.pre.output_row(unit, one) if self.pre.added else np.zeros(dim)
         if mode == "lin":
             # y = Cp x + Dp (Cc xc + Dc (r − y) + d)
             g = 1.0 + dp * dc
@@ -788,11 +811,11 @@ class _AnalogLoop(_LoopSystem):
             y_row[:np_] = cp
             y_row[np_:iu] = dp * cc
             y_row[one] = dp * self.dist
-            y_row += dp * dc * ref
+            y_row += dp * dc * ref + dp * w
             y_row /= g
             v_row = np.zeros(dim)
             v_row[np_:iu] = cc
-            v_row += dc * (ref - y_row)
+            v_row += dc * (ref - y_row) + w
             u_row = v_row
         else:
             lim = self.lo if mode == "lo" else self.hi
@@ -802,7 +825,7 @@ class _AnalogLoop(_LoopSystem):
             y_row[one] = dp * (lim + self.dist)
             v_row = np.zeros(dim)
             v_row[np_:iu] = cc
-            v_row += dc * (ref - y_row)
+            v_row += dc * (ref - y_row) + w
         e_row = ref - y_row
         ac = np.zeros((dim, dim))
         ac[:np_, :np_] = self.ap
@@ -963,7 +986,7 @@ def simulate_loop(controller: Controller, plant: Controller, dead_time_s: float 
     dist = step if kind == "disturbance" else 0.0
     pre = setpoint_filter if kind == "setpoint" else None
     if pre is not None:
-        _check_prefilter(pre, controller)
+        pre = _check_prefilter(pre, controller)
     lo, hi = output_limits if output_limits else (-math.inf, math.inf)
     # An unstable loop grows like |λ|^k: past k ≈ 709/ln|λ| steps its true output (and the matrix
     # powers _Orbit forms, A^(64^L)) exceeds the float range. That is the loop's own behaviour, not a
@@ -986,9 +1009,15 @@ def _simulate(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, l
         return _simulate_analog(controller, plant, dead_time_s, duration_s, h, r, dist, (lo, hi), kind, pre)
 
 
-def _check_prefilter(f: Controller, controller: Controller) -> None:
+def _check_prefilter(f: Controller, controller: Controller):
+    """F checked; an improper F is returned as ``("added", G)`` with G = C·(F − 1) = C_sp − C."""
     if not f.is_proper:
-        raise InputError("the setpoint filter F = C_sp/C is improper and cannot be simulated", key="setpoint filter")
+        fn, fd = np.asarray(f.num, float), np.asarray(f.den, float)
+        g = Controller.analog(np.polymul(np.polysub(fn, fd), controller.num), np.polymul(fd, controller.den),
+                              name="setpoint path minus feedback path") if not f.is_digital else None
+        if g is None or controller.is_digital or not g.is_proper:
+            raise InputError("the setpoint path C_sp = F·C is improper and cannot be simulated", key="setpoint filter")
+        return ("added", g)
     if f.is_digital and (not controller.is_digital
                          or not math.isclose(f.sample_period_s, controller.sample_period_s, rel_tol=1e-9)):
         raise ValueError("a digital setpoint filter needs a digital controller with the same sample period")
@@ -998,6 +1027,13 @@ def _check_prefilter(f: Controller, controller: Controller) -> None:
         raise InputError("the setpoint filter F = C_sp/C has a pole on or beyond the stability boundary (a zero of "
                          "the feedback controller there): the setpoint step cannot be simulated through it",
                          key="setpoint filter")
+    return f
+
+
+def _pre(pre, r: float, step_s: float | None, continuous: bool = False) -> _Prefilter:
+    if isinstance(pre, tuple):
+        return _Prefilter(pre[1], r, step_s, continuous, added=True)
+    return _Prefilter(pre, r, step_s, continuous)
 
 
 _POOLS: list = []
@@ -1027,7 +1063,7 @@ def _simulate_analog(controller, plant, dead_time_s, duration_s, h, r, dist, lim
         h = dead_time_s / m
     n_steps = int(math.ceil(duration_s / h - 1e-9))
     _check_steps(n_steps, h, duration_s)
-    if dead_time_s > 0 and plant.is_strictly_proper:
+    if dead_time_s > 0 and plant.is_strictly_proper and not isinstance(pre, tuple):
         # the controller's own fast response to the steps is exact in the cascade form; it holds
         # while the clamp does not act (checked on its result)
         casc = _CascadeLoop(controller, plant, dead_time_s, h, r, dist, pre)
