@@ -853,8 +853,8 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
                     f"its setpoint path is the same ({card.structure.description})")
         else:
             extra["setpoint_filter"] = card.structure.setpoint_filter
-            text = ("two-input card: the setpoint step is simulated through its own setpoint path, "
-                    f"u = H_sp·r − C·y ({card.structure.description}); the firmware must reproduce it")
+            text = (f"two-input card: its setpoint path differs ({card.structure.description}); the setpoint step "
+                    "is simulated through it, u = H_sp·r − C·y, and the firmware must reproduce it")
         notes.append(text)
     running = card.full_controller or card.controller  # the card as it runs, parasitics and all
     return SourceInfo(controller=running.with_name("card"), pid=card.pid, notes=tuple(notes), extra=extra)
