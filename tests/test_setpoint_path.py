@@ -207,7 +207,7 @@ def test_two_input_card_source_runs_its_setpoint_filter(tmp_path):
     sp = Controller.analog([3.0, 0.5], [2.0, 1.0, 0.0])
     ref = _reference(case.plant.model, c, sp, res.source_step.t)
     assert np.max(np.abs(res.source_step.y - ref)) < 1e-6
-    assert any("own setpoint path" in n for n in res.notes)
+    assert any("the setpoint step is simulated through it" in n for n in res.notes)
 
 
 @pytest.mark.parametrize("dead", [0.0, 0.2])
