@@ -222,3 +222,41 @@ def test_improper_setpoint_filter_runs_as_an_added_path(dead):
     res = simulate_loop(c, plant, dead, duration_s=3.0, kind="setpoint", setpoint_filter=f)
     ref = _reference(plant, c, sp, res.t, dead)
     assert np.max(np.abs(res.y - ref)) < (1e-7 if dead == 0 else 2e-3)
+
+
+def test_two_input_circuit_target_carries_the_source_weights(tmp_path):
+    """A PID source with b = 0.5, c = 0 made into the pid-two-input stage: the stage is built with
+    the weights, and its setpoint step (from its own fitted parts, u = Cr·r − Cy·y) equals
+    python-control's P·Cr/(1 + P·Cy) and stays within 1 % of the source's weighted step."""
+    from convert.case import load_case
+    from convert.circuit.topologies import get_topology
+    from convert.compare.evaluate import evaluate_case
+
+    path = tmp_path / "tw.toml"
+    path.write_text("""[source.pid]
+kc = 1.2
+ti = "8 s"
+td = "1 s"
+n = 8
+b = 0.5
+c = 0
+[target.circuit]
+topology = "pid-two-input"
+[plant]
+model = "1/((4s+1)*(s+1))"
+[criteria]
+band = ["1 mHz", "1 Hz"]
+max_gain_error_db = 1
+max_step_deviation = "5 %"
+""", encoding="utf-8")
+    case = load_case(path)
+    res = evaluate_case(case, draws=50)
+    (r,) = res.realizations
+    paths = get_topology("pid-two-input").paths_from_parts(r.details["parts"])
+    f = np.array([0.1])
+    ratio = r.controller.frequency_response(f) / paths["measurement"].frequency_response(f)
+    sign = float(np.sign(ratio.real[0]))  # the stage's sign (inverting, with its inverter)
+    cr, cy = paths["setpoint"].scaled(sign), paths["measurement"].scaled(sign)
+    ref = _reference(case.plant.model, cy, cr, r.step.t)
+    assert np.max(np.abs(r.step.y - ref)) < 1e-6
+    assert np.max(np.abs(r.step.y - np.interp(r.step.t, res.source_step.t, res.source_step.y))) < 0.01

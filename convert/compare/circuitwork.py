@@ -29,7 +29,8 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
     options = DesignOptions(topology=tgt.topology, resistors=tgt.resistors, capacitors=tgt.capacitors,
                             r_min=tgt.resistor_range[0], r_max=tgt.resistor_range[1], c_min=tgt.capacitor_range[0],
                             c_max=tgt.capacitor_range[1], band_hz=tuple(case.criteria.band_hz))
-    settings = None
+    # a two-input stage is built with the source PID's setpoint weights (it carries them)
+    settings = source_pid if source_pid is not None and "two-input" in str(tgt.topology) else None
     try:
         design = design_circuit(analog_src, options, settings=settings,
                                 series_times=getattr(source_pid, "given_series", None))
