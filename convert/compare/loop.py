@@ -994,10 +994,11 @@ def simulate_loop(controller: Controller, plant: Controller, dead_time_s: float 
     # inf, which the verdict skips as "not finite"; the closed-loop stability check fails such a
     # loop on its own), and numpy's overflow warnings are not shown to the user.
     with np.errstate(over="ignore", invalid="ignore"):
-        return _simulate(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, (lo, hi), kind, realized)
+        return _simulate(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, (lo, hi), kind, realized,
+                         pre)
 
 
-def _simulate(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, limits, kind, realized):
+def _simulate(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, limits, kind, realized, pre=None):
     lo, hi = limits
     if controller.is_digital and realized is not None:
         return _simulate_realized(realized.model(), controller.sample_period_s, plant, dead_time_s, delay_s,
