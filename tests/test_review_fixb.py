@@ -1,0 +1,171 @@
+"""Regressions for the user review's findings on inputs and messages (lane fixB): each test runs
+the exact input the reviewer gave (or the smallest one showing the same fault) and checks the
+exit code and the one-line message. Facts of the trade used are marked "common practice"."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+CARD = "card: topology=pi-rc-feedback R1=100k R2=200k C1=5.5u"
+
+
+def _one_line_error(res, *words):
+    assert res.code == 2, res.out + res.err
+    lines = [line for line in res.err.strip().splitlines() if line]
+    assert len(lines) == 1, res.err
+    assert "Traceback" not in res.err and "internal error" not in res.err
+    for w in words:
+        assert w in lines[0], lines[0]
+    return lines[0]
+
+
+# SEVERE 3: a percentage option given a bare number above 1 ----------------------------------
+
+@pytest.mark.parametrize("option", ["--max-step-deviation", "--max-disturbance-deviation"])
+def test_compare_refuses_a_bare_percentage_above_one(option, run_cli):
+    """Reviewer: ``--max-step-deviation 5`` was read as 500 % and the pair passed. A bare number
+    above 1 in a percentage field is ambiguous by a factor of 100 (the case-file rule,
+    docs/values.md): refused naming the option and both readings."""
+    res = run_cli("compare", "pid: kc=2 ti=10s", "pid: kc=2 ti=10s fs=0.5Hz delay=1sample", "--plant", "1/(20s+1)",
+                  option, "5", "--max-gain-error", "3", "--max-phase-error", "60", "--band", "1m", "0.05")
+    line = _one_line_error(res, option, "500 %", "5 %")
+    assert "ambiguous" in line
+
+
+def test_compare_reads_a_percent_and_a_fraction_the_same(run_cli):
+    """``5%`` and ``0.05`` are the same limit: the JSON carries 0.05 either way."""
+    import json
+
+    outs = []
+    for text in ("5%", "0.05"):
+        res = run_cli("compare", "pid: kc=2 ti=10s", "pid: kc=2 ti=10s fs=0.5Hz delay=1sample", "--plant",
+                      "1/(20s+1)", "--max-step-deviation", text, "--band", "1m", "0.05", "--json")
+        assert res.code in (0, 1), res.err
+        data = json.loads(res.out)
+        outs.append([j["limit"] for j in data["judgements"] if j["criterion"] == "max_step_deviation"])
+    assert outs[0] == outs[1] and outs[0] and all(x == pytest.approx(0.05) for x in outs[0])
+
+
+@pytest.mark.parametrize("option", ["--max-residual-rms", "--max-residual-peak"])
+def test_compare_log_limits_refuse_a_bare_percentage(option, run_cli, tmp_path):
+    """The log replay limits are fractions of the output range: ``2`` is refused as 200 % or 2 %."""
+    log = tmp_path / "log.csv"
+    t = np.arange(0, 20, 0.1)
+    log.write_text("time (s),error,output\n" + "".join(f"{x:.2f},1,{2 + 0.2 * x:.4f}\n" for x in t))
+    res = run_cli("compare", "pid: kc=2 ti=10s", "--log", str(log), option, "2")
+    _one_line_error(res, option, "200 %", "2 %")
+
+
+def test_card_tolerance_in_a_spec_refuses_a_bare_percentage(run_cli):
+    """``tol=R:5`` on a card is 5 % or 500 %: refused naming the key, as ``--tolerance R=5``."""
+    res = run_cli("compare", "2*(1+1/s)", CARD + " tol=R:5")
+    _one_line_error(res, "tol", "500 %", "5 %")
+
+
+def test_case_file_residual_limit_refuses_a_bare_percentage(run_cli, tmp_path):
+    """Case files follow the same rule for the log evidence limits."""
+    log = tmp_path / "log.csv"
+    t = np.arange(0, 20, 0.1)
+    log.write_text("time (s),error,output\n" + "".join(f"{x:.2f},1,{2 + 0.2 * x:.4f}\n" for x in t))
+    case = tmp_path / "c.toml"
+    case.write_text('[source.pid]\nkc = 2\nti = "10 s"\n[target.digital]\nfs = "10 Hz"\n'
+                    '[criteria]\nband = ["10 mHz", "1 Hz"]\nmax_gain_error_db = 1\n'
+                    '[evidence.log]\nfile = "log.csv"\nmax_residual_rms = 3\n')
+    res = run_cli("report", str(case), "--out", str(tmp_path / "out"))
+    _one_line_error(res, "max_residual_rms", "300 %", "3 %")
+    assert not (tmp_path / "out").exists()
+
+
+# BUG 8: batch with a given form whose loop is unstable -----------------------------------------
+
+GIVEN_UNSTABLE = """\
+[source.pid]
+kc = 4
+ti = "2 s"
+[target.given.fw]
+form = "digital"
+b = [4.05, -3.95]
+a = [1, -1]
+fs = "20 Hz"
+delay = "12 samples"
+[plant]
+model = "1/(s+1)"
+dead_time = "0.1 s"
+[criteria]
+band = ["10 mHz", "1 Hz"]
+max_gain_error_db = 1
+"""
+
+
+def test_batch_names_an_unstable_given_loop_instead_of_an_internal_error(run_cli, tmp_path):
+    """Reviewer's given.toml: twelve samples of delay at 20 Hz (0.6 s) plus 0.1 s dead time
+    make the loop with kc = 4 unstable (common practice: the phase lag ω·T at the crossover
+    passes 180°). ``report`` said FAIL; ``batch`` crashed formatting the missing figure."""
+    folder = tmp_path / "cases"
+    folder.mkdir()
+    (folder / "given.toml").write_text(GIVEN_UNSTABLE)
+    res = run_cli("batch", str(folder), "--out", str(tmp_path / "out"), "--workers", "1")
+    assert res.code == 1, res.out + res.err
+    assert "internal error" not in res.out + res.err
+    assert "fw: closed-loop stability fails" in res.out
+    report = run_cli("report", str(folder / "given.toml"), "--out", str(tmp_path / "one"))
+    assert report.code == 1
+
+
+# BUG 9: compare --sweep with nothing judged ----------------------------------------------------
+
+def _sweep(path, f):
+    s = 2j * np.pi * f
+    h = 2 * (1 + 1 / (1.1 * s))
+    path.write_text("frequency (Hz),gain (dB),phase (deg)\n" + "".join(
+        f"{ff:.6g},{20 * np.log10(abs(x)):.6g},{np.degrees(np.angle(x)):.6g}\n" for ff, x in zip(f, h)))
+    return path
+
+
+def test_sweep_band_wider_than_the_sweep_is_not_judged_without_an_error(run_cli, tmp_path):
+    """A band from 1 mHz with a sweep from 10 mHz cannot be judged: the text output says so
+    (as --json did), verdict unchecked, no internal error."""
+    csv = _sweep(tmp_path / "s.csv", np.logspace(-2, 1, 31))
+    res = run_cli("compare", "card: topology=pi-rc-feedback R1=100k R2=200k C1=5.5u", "--sweep", str(csv),
+                  "--band", "1m", "100")
+    assert res.code == 1, res.out + res.err
+    assert "internal error" not in res.out + res.err
+    assert "max gain error: no figure (limit 1) NOT JUDGED" in res.out
+    assert "verdict: UNCHECKED" in res.out
+
+
+def test_sweep_with_no_trusted_point_is_not_judged_without_an_error(run_cli, tmp_path):
+    """Three points give no noise estimate, so none is trusted (reviewer's short.csv)."""
+    csv = _sweep(tmp_path / "short.csv", np.array([0.01, 0.0125893, 0.0158489]))
+    res = run_cli("compare", CARD, "--sweep", str(csv))
+    assert res.code == 1, res.out + res.err
+    assert "internal error" not in res.out + res.err
+    assert "NOT JUDGED" in res.out and "verdict: UNCHECKED" in res.out
+
+
+# BUG 11: tolerances on the reference A ---------------------------------------------------------
+
+def test_compare_refuses_tolerances_on_the_reference_card(run_cli):
+    """docs/compare.md: A is taken as written, tolerances belong to B. They were silently
+    dropped for a catalog card (a PASS that said nothing about them)."""
+    res = run_cli("compare", "card: topology=pi-rc-feedback R1=100k R2=200k C1=5u tol=R:1%", "2*(1+1/s)")
+    _one_line_error(res, "A", "tol", "swap A and B")
+    swapped = run_cli("compare", "2*(1+1/s)", "card: topology=pi-rc-feedback R1=100k R2=200k C1=5u tol=R:1%")
+    assert swapped.code in (0, 1) and "tolerance" in swapped.out.lower()
+
+
+# lead: loopshift code when no structure is usable ----------------------------------------------
+
+def test_code_with_no_usable_structure_says_so(run_cli, tmp_path):
+    """q15 at 50 Hz with ti = 8 s and a 0..10 output: the integrator stalls in every structure
+    (each step adds kc·e/(ti·fs), below one q15 step for small errors; common practice). No
+    file is written and the reason is printed, exit 1, not an internal error."""
+    out = tmp_path / "codeout"
+    res = run_cli("code", "1.5*(1+1/(8*s))", "--fs", "50Hz", "--method", "tustin", "--lang", "c", "--format", "q15",
+                  "--name", "heater", "--out", str(out), "--input-range", "-10", "10", "--output-limits", "0", "10")
+    assert res.code == 1, res.out + res.err
+    assert "internal error" not in res.out + res.err
+    assert "not written: no structure is usable in q15" in res.out
+    assert "integrator stall" in res.out
+    assert not out.exists()
