@@ -169,3 +169,44 @@ def test_code_with_no_usable_structure_says_so(run_cli, tmp_path):
     assert "not written: no structure is usable in q15" in res.out
     assert "integrator stall" in res.out
     assert not out.exists()
+
+
+# ROUGH 13: a bare number as a delay ----------------------------------------------------------
+
+BARE_DELAY = """\
+[source]
+expression = "2*(1+1/(10s))"
+[target.digital]
+fs = 10
+delay = 1
+[plant]
+model = "1/(20s+1)"
+dead_time = 2
+[criteria]
+band = [0.001, 0.5]
+max_gain_error_db = 1
+"""
+
+
+def test_case_file_bare_delay_is_refused_as_seconds_or_samples(run_cli, tmp_path):
+    """Reviewer's bare.toml: ``delay = 1`` at 10 Hz was read as 1 s (ten samples). A
+    computation delay is as often counted in samples as timed (common practice), so a bare
+    number is refused naming the key and both readings; docs/case-files.md defines only
+    "20 ms" and "1 sample"."""
+    case = tmp_path / "bare.toml"
+    case.write_text(BARE_DELAY)
+    res = run_cli("report", str(case), "--out", str(tmp_path / "out"))
+    _one_line_error(res, "bare.toml:5", "target.digital.delay", "1 s", "1 sample")
+    assert not (tmp_path / "out").exists()
+
+
+@pytest.mark.parametrize("argv", [
+    ("digital", "2*(1+1/(10s))", "--fs", "10Hz", "--delay", "0.02"),
+    ("compare", "2*(1+1/(10s))", "digital: b=2.1,-1.9 a=1,-1 fs=10Hz delay=1"),
+])
+def test_command_line_bare_delay_is_refused(argv, run_cli):
+    """The same rule for ``--delay`` and a spec's ``delay=``; a bare 0 stays accepted."""
+    line = _one_line_error(run_cli(*argv), "ambiguous in a delay", " s or ")
+    assert "sample" in line
+    zero = [w.replace("0.02", "0") if w == "0.02" else w.replace("delay=1", "delay=0") for w in argv]
+    assert run_cli(*zero).code in (0, 1)
