@@ -210,3 +210,35 @@ def test_command_line_bare_delay_is_refused(argv, run_cli):
     assert "sample" in line
     zero = [w.replace("0.02", "0") if w == "0.02" else w.replace("delay=1", "delay=0") for w in argv]
     assert run_cli(*zero).code in (0, 1)
+
+
+# ROUGH 14: an UNCHECKED case advises no rate --------------------------------------------------
+
+ONLY_LOOP_CRITERIA = """\
+[source]
+expression = "3*(1+1/(4s))"
+[target.digital]
+fs = "2 Hz"
+methods = ["forward-euler"]
+[criteria]
+band = ["10 mHz", "0.5 Hz"]
+max_step_deviation = "5 %"
+max_phase_margin_change_deg = 3
+"""
+
+
+def test_unchecked_case_prints_no_lowest_passing_rate(run_cli, tmp_path):
+    """Reviewer's onlystep.toml: loop criteria without a plant check nothing, so the verdict is
+    UNCHECKED; the rate advice said "lowest rate that passes 1.025 Hz". Nothing can pass where
+    nothing is checked (definition)."""
+    import json
+
+    case = tmp_path / "onlystep.toml"
+    case.write_text(ONLY_LOOP_CRITERIA)
+    res = run_cli("report", str(case), "--out", str(tmp_path / "out"))
+    assert "UNCHECKED" in res.out
+    assert "lowest rate that passes" not in res.out
+    assert "lowest rate that passes" not in (tmp_path / "out" / "report.md").read_text()
+    advice = json.loads((tmp_path / "out" / "results.json").read_text())["rate_advice"]
+    assert advice and all(a["checked_fs_hz"] is None and a["checked"] is False for a in advice)
+    assert "nothing checked" in advice[0]["limiting"]
