@@ -260,6 +260,8 @@ def _where(file_name: str, lines: dict | None, key: str) -> str:
 class _Ctx:
     """Carries the file name and line map so every check can name file, line and key."""
 
+    paths_relative_to = "the case file"  # where a relative file name is looked for, in messages
+
     def __init__(self, path: Path, text: str | None):
         self.path = path
         self.name = path.name

@@ -199,8 +199,8 @@ def _read_circuit(ctx, table: dict, dotted: str, base_dir: Path) -> dict:
         name = ctx.text(table, "netlist", f"{dotted}.netlist")
         path = base_dir / name
         if not path.is_file():
-            raise ctx.error(f"{dotted}.netlist", f"no such netlist file {str(path)!r} (paths are relative to the "
-                                                 "case file)")
+            raise ctx.error(f"{dotted}.netlist", f"no such netlist file {str(path)!r} (paths are relative to "
+                                                 f"{ctx.paths_relative_to})")
         out.update(netlist=path, input=ctx.text(table, "input", f"{dotted}.input", default="VIN"),
                    output=ctx.text(table, "output", f"{dotted}.output", default="out"),
                    setpoint=ctx.text(table, "setpoint", f"{dotted}.setpoint"),
@@ -399,6 +399,7 @@ def command_line_context(label: str):
             self.path = Path(label)
             self.name = label
             self.lines = {}
+            self.paths_relative_to = "the current folder"
 
         def where(self, key: str) -> str:
             return label

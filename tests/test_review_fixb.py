@@ -242,3 +242,19 @@ def test_unchecked_case_prints_no_lowest_passing_rate(run_cli, tmp_path):
     advice = json.loads((tmp_path / "out" / "results.json").read_text())["rate_advice"]
     assert advice and all(a["checked_fs_hz"] is None and a["checked"] is False for a in advice)
     assert "nothing checked" in advice[0]["limiting"]
+
+
+# ROUGH 15: a missing netlist on the command line -----------------------------------------------
+
+def test_missing_netlist_on_the_command_line_does_not_mention_a_case_file(run_cli, tmp_path, monkeypatch):
+    """Without a case file the message must not say paths are relative to one."""
+    monkeypatch.chdir(tmp_path)
+    line = _one_line_error(run_cli("compare", "pid: kc=2 ti=10s", "netlist: nofile.cir"), "B", "nofile.cir")
+    assert "case file" not in line and "current folder" in line
+
+
+def test_missing_netlist_in_a_case_file_names_the_case_file(run_cli, tmp_path):
+    case = tmp_path / "c.toml"
+    case.write_text('[source.pid]\nkc = 2\nti = "10 s"\n[target.given.card]\nform = "circuit"\nnetlist = "nofile.cir"\n'
+                    '[criteria]\nband = ["10 mHz", "1 Hz"]\nmax_gain_error_db = 1\n')
+    _one_line_error(run_cli("report", str(case), "--out", str(tmp_path / "o")), "nofile.cir", "relative to the case file")
