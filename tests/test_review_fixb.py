@@ -258,3 +258,16 @@ def test_missing_netlist_in_a_case_file_names_the_case_file(run_cli, tmp_path):
     case.write_text('[source.pid]\nkc = 2\nti = "10 s"\n[target.given.card]\nform = "circuit"\nnetlist = "nofile.cir"\n'
                     '[criteria]\nband = ["10 mHz", "1 Hz"]\nmax_gain_error_db = 1\n')
     _one_line_error(run_cli("report", str(case), "--out", str(tmp_path / "o")), "nofile.cir", "relative to the case file")
+
+
+# ROUGH 16: a forced cascade of one stage -------------------------------------------------------
+
+def test_forced_cascade_of_one_stage_reads_as_one_stage(run_cli):
+    """``--topology cascade`` on a PID one stage realizes: no "1 stages", no "noise gain 0"
+    (the noise gain between stages needs two of them), and no claim that no single stage can."""
+    res = run_cli("circuit", "--pid", "kc=3", "ti=8s", "td=1.5s", "n=6", "form=series", "--topology", "cascade")
+    assert res.code == 0, res.out + res.err
+    text = " ".join(res.out.split())
+    assert "cascade of 1 stage:" in text and "1 stages" not in text
+    assert "noise gain (sum" not in text
+    assert "no single catalog stage realizes" not in text and "a cascade was asked for" in text
