@@ -642,8 +642,11 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
             if structure not in ("direct1", "sections"):
                 raise ctx.error(f"{key}.structure", f"word_format {word} is offered with structure direct1 or "
                                 f"sections (direct form I words), found {structure!r}")
-        digital = DigitalTarget(fs_hz=fs, methods=methods, prewarp_hz=ctx.value(dig, "prewarp", f"{key}.prewarp", "hz",
-                                                                                None, positive=True, allow_zero=False),
+        prewarp = ctx.value(dig, "prewarp", f"{key}.prewarp", "hz", None, positive=True, allow_zero=False)
+        if prewarp is not None and prewarp >= min(fs) / 2:
+            raise ctx.error(f"{key}.prewarp", f"the prewarp frequency must be below fs/2 = {min(fs) / 2:.6g} Hz "
+                            f"(of the lowest rate), found {dig['prewarp']!r}")
+        digital = DigitalTarget(fs_hz=fs, methods=methods, prewarp_hz=prewarp,
                                 delay_s=delay_s, delay_samples=delay_samples, output_limits=limits,
                                 derivative_filter=n_filter, word_format=word, structure=structure,
                                 input_range=in_range, input_resolution=resolution, code_name=code_name,

@@ -271,3 +271,16 @@ def test_forced_cascade_of_one_stage_reads_as_one_stage(run_cli):
     assert "cascade of 1 stage:" in text and "1 stages" not in text
     assert "noise gain (sum" not in text
     assert "no single catalog stage realizes" not in text and "a cascade was asked for" in text
+
+
+# ROUGH 17: prewarp above fs/2 in a case file ---------------------------------------------------
+
+def test_case_file_prewarp_above_nyquist_names_the_prewarp_key(run_cli, tmp_path):
+    """Reviewer: the refusal named target.digital.methods. The Tustin prewarp frequency must be
+    below fs/2 (tan(π·f/fs) is undefined at fs/2; textbook definition of prewarping)."""
+    case = tmp_path / "pw.toml"
+    case.write_text('[source]\nexpression = "2*(1+1/(10s))"\n[target.digital]\nfs = ["20 Hz", "10 Hz"]\n'
+                    'methods = ["tustin"]\nprewarp = "8 Hz"\n[criteria]\nband = ["10 mHz", "1 Hz"]\n'
+                    'max_gain_error_db = 1\n')
+    _one_line_error(run_cli("report", str(case), "--out", str(tmp_path / "o")), "pw.toml:6", "target.digital.prewarp",
+                    "5 Hz", "8 Hz")
