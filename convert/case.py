@@ -656,15 +656,16 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
         key = "target.circuit"
         ctx.check_keys(cir, SCHEMA["target"]["circuit"], key)
         series = ("E6", "E12", "E24", "E48", "E96", "E192")
-        from convert.circuit.tolerance import DEFAULT_DISTRIBUTION, DEFAULT_DRAWS, DISTRIBUTIONS, MAX_DRAWS
+        from convert.circuit.tolerance import (DEFAULT_DISTRIBUTION, DEFAULT_DRAWS, DISTRIBUTIONS, MAX_DRAWS,
+                                               draws_problem)
 
         draws = ctx.value(cir, "draws", f"{key}.draws", "number", float(DEFAULT_DRAWS), positive=True)
         seed = ctx.value(cir, "seed", f"{key}.seed", "number", 1.0, positive=True)
         for name, v in (("draws", draws), ("seed", seed)):
             if v != int(v):
                 raise ctx.error(f"{key}.{name}", f"expected a whole number, found {excerpt(cir[name])}")
-        if draws < 1:
-            raise ctx.error(f"{key}.draws", f"expected at least 1 Monte Carlo draw, found {excerpt(cir['draws'])}")
+        if draws_problem(int(draws)):
+            raise ctx.error(f"{key}.draws", draws_problem(int(draws)))
         if draws > MAX_DRAWS:
             raise ctx.error(f"{key}.draws", f"expected at most {MAX_DRAWS:,} Monte Carlo draws (the limit keeps a run "
                                             f"within about 1 GB), found {excerpt(cir['draws'])}")

@@ -284,3 +284,36 @@ def test_case_file_prewarp_above_nyquist_names_the_prewarp_key(run_cli, tmp_path
                     'max_gain_error_db = 1\n')
     _one_line_error(run_cli("report", str(case), "--out", str(tmp_path / "o")), "pw.toml:6", "target.digital.prewarp",
                     "5 Hz", "8 Hz")
+
+
+# ROUGH 20: too few Monte Carlo draws for the percentiles reported ----------------------------
+
+@pytest.mark.parametrize("argv", [
+    ("compare", "2*(1+1/s)", "card: topology=pi-rc-feedback R1=100k R2=200k C1=5u tol=R:1%", "--draws", "1"),
+    ("circuit", "2*(1+1/(3s))", "--draws", "10"),
+    ("report", "cases/pi_card_to_firmware.toml", "--draws", "1"),
+    ("batch", "cases", "--draws", "199"),
+])
+def test_draws_below_the_percentile_minimum_are_refused(argv, run_cli):
+    """Reviewer: --draws 1 gave a figure labelled "p99 of draws". A 0.5 % tail holds a draw
+    only from 1/0.005 = 200 draws (definition of an empirical percentile); fewer are refused
+    on every command, as in case files."""
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parents[1]
+    argv = tuple(str(root / w) if w.startswith("cases") else w for w in argv)
+    _one_line_error(run_cli(*argv), "--draws", "200")
+
+
+def test_case_file_draws_below_the_minimum_are_refused(run_cli, tmp_path):
+    case = tmp_path / "d.toml"
+    case.write_text('[source.pid]\nkc = 2\nti = "10 s"\n[target.circuit]\ndraws = 150\n'
+                    '[criteria]\nband = ["1 mHz", "1 Hz"]\nmax_gain_error_db = 1\n')
+    _one_line_error(run_cli("report", str(case), "--out", str(tmp_path / "o")), "d.toml:5", "target.circuit.draws",
+                    "200", "150")
+
+
+def test_two_hundred_draws_are_accepted(run_cli):
+    res = run_cli("compare", "2*(1+1/s)", "card: topology=pi-rc-feedback R1=100k R2=200k C1=5u tol=R:1%",
+                  "--draws", "200")
+    assert res.code in (0, 1), res.err

@@ -161,6 +161,11 @@ def run(args, console) -> int:
                 raise InputError(f"expected a positive limit, found {text!r}", key=option)
             limits[key] = value
     draws = count(args.draws, "--draws", low=1, high=1_000_000) if args.draws is not None else None
+    if draws is not None:
+        from convert.circuit.tolerance import draws_problem
+
+        if draws_problem(draws):
+            raise InputError(draws_problem(draws), key="--draws")
     a = read_spec(args.a, "A", fs_hz=fs, base_dir=Path.cwd())
     if args.sweep is not None:
         return _run_sweep(args, console, a, band, limits)
