@@ -317,3 +317,16 @@ def test_two_hundred_draws_are_accepted(run_cli):
     res = run_cli("compare", "2*(1+1/s)", "card: topology=pi-rc-feedback R1=100k R2=200k C1=5u tol=R:1%",
                   "--draws", "200")
     assert res.code in (0, 1), res.err
+
+
+# ROUGH 22: an op-amp without feedback -----------------------------------------------------------
+
+def test_opamp_without_feedback_names_the_opamp_line(run_cli, tmp_path):
+    """An ideal op-amp with nothing from its output back to its inputs has no solution (its
+    output is undefined; common practice). The load R6, written before X1, was named; the
+    element that drives the undetermined node is the one to check."""
+    cir = tmp_path / "nofb.cir"
+    cir.write_text("* PI card with its feedback network left off\nVIN in 0 AC 1\nR1 in n1 100k\nR6 out 0 10k\n"
+                   "X1 0 n1 out OPAMP\n.end\n")
+    line = _one_line_error(run_cli("card", str(cir)), "nofb.cir:5: X1:", "singular")
+    assert "R6" not in line
