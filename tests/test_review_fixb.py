@@ -330,3 +330,18 @@ def test_opamp_without_feedback_names_the_opamp_line(run_cli, tmp_path):
                    "X1 0 n1 out OPAMP\n.end\n")
     line = _one_line_error(run_cli("card", str(cir)), "nofb.cir:5: X1:", "singular")
     assert "R6" not in line
+
+
+# ROUGH 23: a log whose output never moved ---------------------------------------------------------
+
+def test_log_whose_output_never_moved_is_refused_naming_the_column(run_cli, tmp_path):
+    """Reviewer's log_manual.csv: the error moves, the output stays at 30 (the loop in manual).
+    The replay printed "offset 30 (0 % of range)" and a FAIL over 1 row; nothing in such a log
+    shows how the controller responds, so it is refused as evidence, saying why."""
+    t = np.arange(0, 200, 0.1)
+    e = np.sin(2 * np.pi * t / 80)
+    log = tmp_path / "log_manual.csv"
+    log.write_text("time (s),error,output\n" + "".join(f"{a:.2f},{b:.5f},30.0\n" for a, b in zip(t, e)))
+    line = _one_line_error(run_cli("compare", "pid: kc=2 ti=10s", "--log", str(log), "--max-residual-rms", "1%"),
+                           "log_manual.csv", "'output' never moves", "30 in all 2,000 rows")
+    assert "manual" in line
