@@ -47,12 +47,18 @@ def test_compare_reads_a_percent_and_a_fraction_the_same(run_cli):
     assert outs[0] == outs[1] and outs[0] and all(x == pytest.approx(0.05) for x in outs[0])
 
 
-@pytest.mark.parametrize("option", ["--max-residual-rms", "--max-residual-peak"])
-def test_compare_log_limits_refuse_a_bare_percentage(option, run_cli, tmp_path):
-    """The log replay limits are fractions of the output range: ``2`` is refused as 200 % or 2 %."""
+def _ramp_log(tmp_path):
+    """A constant error of 1 and the ramp a PI with kc = 2, ti = 10 s answers it with (2 + 0.2 t)."""
     log = tmp_path / "log.csv"
     t = np.arange(0, 20, 0.1)
     log.write_text("time (s),error,output\n" + "".join(f"{x:.2f},1,{2 + 0.2 * x:.4f}\n" for x in t))
+    return log
+
+
+@pytest.mark.parametrize("option", ["--max-residual-rms", "--max-residual-peak"])
+def test_compare_log_limits_refuse_a_bare_percentage(option, run_cli, tmp_path):
+    """The log replay limits are fractions of the output range: ``2`` is refused as 200 % or 2 %."""
+    log = _ramp_log(tmp_path)
     res = run_cli("compare", "pid: kc=2 ti=10s", "--log", str(log), option, "2")
     _one_line_error(res, option, "200 %", "2 %")
 
@@ -65,9 +71,7 @@ def test_card_tolerance_in_a_spec_refuses_a_bare_percentage(run_cli):
 
 def test_case_file_residual_limit_refuses_a_bare_percentage(run_cli, tmp_path):
     """Case files follow the same rule for the log evidence limits."""
-    log = tmp_path / "log.csv"
-    t = np.arange(0, 20, 0.1)
-    log.write_text("time (s),error,output\n" + "".join(f"{x:.2f},1,{2 + 0.2 * x:.4f}\n" for x in t))
+    log = _ramp_log(tmp_path)
     case = tmp_path / "c.toml"
     case.write_text('[source.pid]\nkc = 2\nti = "10 s"\n[target.digital]\nfs = "10 Hz"\n'
                     '[criteria]\nband = ["10 mHz", "1 Hz"]\nmax_gain_error_db = 1\n'
