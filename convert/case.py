@@ -260,6 +260,8 @@ def _where(file_name: str, lines: dict | None, key: str) -> str:
 class _Ctx:
     """Carries the file name and line map so every check can name file, line and key."""
 
+    paths_relative_to = "the case file"  # where a relative file name is looked for, in messages
+
     def __init__(self, path: Path, text: str | None):
         self.path = path
         self.name = path.name
@@ -640,8 +642,11 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
             if structure not in ("direct1", "sections"):
                 raise ctx.error(f"{key}.structure", f"word_format {word} is offered with structure direct1 or "
                                 f"sections (direct form I words), found {structure!r}")
-        digital = DigitalTarget(fs_hz=fs, methods=methods, prewarp_hz=ctx.value(dig, "prewarp", f"{key}.prewarp", "hz",
-                                                                                None, positive=True, allow_zero=False),
+        prewarp = ctx.value(dig, "prewarp", f"{key}.prewarp", "hz", None, positive=True, allow_zero=False)
+        if prewarp is not None and prewarp >= min(fs) / 2:
+            raise ctx.error(f"{key}.prewarp", f"the prewarp frequency must be below fs/2 = {min(fs) / 2:.6g} Hz "
+                            f"(of the lowest rate), found {dig['prewarp']!r}")
+        digital = DigitalTarget(fs_hz=fs, methods=methods, prewarp_hz=prewarp,
                                 delay_s=delay_s, delay_samples=delay_samples, output_limits=limits,
                                 derivative_filter=n_filter, word_format=word, structure=structure,
                                 input_range=in_range, input_resolution=resolution, code_name=code_name,
@@ -651,15 +656,16 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
         key = "target.circuit"
         ctx.check_keys(cir, SCHEMA["target"]["circuit"], key)
         series = ("E6", "E12", "E24", "E48", "E96", "E192")
-        from convert.circuit.tolerance import DEFAULT_DISTRIBUTION, DEFAULT_DRAWS, DISTRIBUTIONS, MAX_DRAWS
+        from convert.circuit.tolerance import (DEFAULT_DISTRIBUTION, DEFAULT_DRAWS, DISTRIBUTIONS, MAX_DRAWS,
+                                               draws_problem)
 
         draws = ctx.value(cir, "draws", f"{key}.draws", "number", float(DEFAULT_DRAWS), positive=True)
         seed = ctx.value(cir, "seed", f"{key}.seed", "number", 1.0, positive=True)
         for name, v in (("draws", draws), ("seed", seed)):
             if v != int(v):
                 raise ctx.error(f"{key}.{name}", f"expected a whole number, found {excerpt(cir[name])}")
-        if draws < 1:
-            raise ctx.error(f"{key}.draws", f"expected at least 1 Monte Carlo draw, found {excerpt(cir['draws'])}")
+        if draws_problem(int(draws)):
+            raise ctx.error(f"{key}.draws", draws_problem(int(draws)))
         if draws > MAX_DRAWS:
             raise ctx.error(f"{key}.draws", f"expected at most {MAX_DRAWS:,} Monte Carlo draws (the limit keeps a run "
                                             f"within about 1 GB), found {excerpt(cir['draws'])}")

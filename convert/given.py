@@ -199,8 +199,8 @@ def _read_circuit(ctx, table: dict, dotted: str, base_dir: Path) -> dict:
         name = ctx.text(table, "netlist", f"{dotted}.netlist")
         path = base_dir / name
         if not path.is_file():
-            raise ctx.error(f"{dotted}.netlist", f"no such netlist file {str(path)!r} (paths are relative to the "
-                                                 "case file)")
+            raise ctx.error(f"{dotted}.netlist", f"no such netlist file {str(path)!r} (paths are relative to "
+                                                 f"{ctx.paths_relative_to})")
         out.update(netlist=path, input=ctx.text(table, "input", f"{dotted}.input", default="VIN"),
                    output=ctx.text(table, "output", f"{dotted}.output", default="out"),
                    setpoint=ctx.text(table, "setpoint", f"{dotted}.setpoint"),
@@ -220,7 +220,7 @@ def _read_circuit(ctx, table: dict, dotted: str, base_dir: Path) -> dict:
     tol = ctx.table(table, "tolerances", f"{dotted}.tolerances")
     tols = {}
     for name in tol or {}:
-        value = ctx.value(tol, name, f"{dotted}.tolerances.{name}", "ratio", positive=True)
+        value = ctx.fraction(tol, name, f"{dotted}.tolerances.{name}", allow_one=False)
         if value >= 1:
             raise ctx.error(f"{dotted}.tolerances.{name}", f"a tolerance is a fraction below 100 %, found {tol[name]!r}")
         tols[name] = value
@@ -399,6 +399,7 @@ def command_line_context(label: str):
             self.path = Path(label)
             self.name = label
             self.lines = {}
+            self.paths_relative_to = "the current folder"
 
         def where(self, key: str) -> str:
             return label
@@ -546,8 +547,8 @@ def _mentions_z(text: str) -> bool:
 def as_source(given: GivenForm):
     """The given form as a case :class:`convert.case.Source` (the reference of a comparison).
 
-    A reference is taken as written: a delay, output limits or a word format belong to the form
-    being checked, so they are refused here."""
+    A reference is taken as written: a delay, output limits, a word format or part tolerances
+    belong to the form being checked, so they are refused here."""
     from convert.case import Source
 
     d = given.data
@@ -566,14 +567,13 @@ def as_source(given: GivenForm):
         if "controller" in d:
             return Source("expression", {"expression": d["expression"], "controller": d["controller"]}, given.where)
         return Source("pid", {"settings": d["settings"]}, given.where)
+    if d.get("tolerances"):  # a catalog card or a netlist: one reference response, not a spread of them
+        raise InputError("the reference card is taken as drawn; give tolerances to the form being checked (B), "
+                         "e.g. swap A and B to see the spread of this card", where=given.where, key="tol")
     if "netlist" in d:
-        if d["tolerances"]:
-            raise InputError("the reference card is taken as drawn; give tolerances to the form being checked",
-                             where=given.where, key="tol")
         return Source("netlist", {"file": d["netlist"], "input": d["input"], "output": d["output"],
                                   "setpoint": d["setpoint"], "measurement": d["measurement"]}, given.where)
-    return Source("card", {"topology": d["topology"], "parts": d["parts"], "tolerances": d["tolerances"]},
-                  given.where)
+    return Source("card", {"topology": d["topology"], "parts": d["parts"], "tolerances": {}}, given.where)
 
 
 def given_from_source(src, name: str = "source") -> GivenForm:

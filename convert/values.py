@@ -267,10 +267,20 @@ _SAMPLES_RE = re.compile(r"^\s*(?P<count>.*?)\s*(?:samples?|smp)\s*$")
 def parse_delay(text: str | float | int, *, field: str = "delay") -> tuple[float | None, float | None]:
     """Read a computation delay given in seconds or in samples.
 
-    Returns ``(delay_s, None)`` for a time (``"250 us"``, ``"0.5 ms"``, a plain number is
-    seconds) and ``(None, delay_samples)`` for a count of samples (``"1 sample"``,
-    ``"2 samples"``, ``"0.5sample"``). Negative delays are refused naming ``field``.
+    Returns ``(delay_s, None)`` for a time (``"250 us"``, ``"0.5 ms"``, ``"1 s"``) and
+    ``(None, delay_samples)`` for a count of samples (``"1 sample"``, ``"2 samples"``,
+    ``"0.5sample"``). A bare non-zero number (``1``, ``"0.02"``) is refused naming ``field`` and
+    both readings: a delay is as often counted in samples as timed in seconds, and either guess
+    can be wrong by the sample rate. A bare 0 is no delay either way. Negative delays are
+    refused naming ``field``.
     """
+    bare = not isinstance(text, str) or re.fullmatch(rf"\s*{_NUMBER}\s*", text) is not None
+    if bare and not isinstance(text, bool):
+        value = parse_value(text, "number", field=field)
+        if value != 0:
+            shown = text.strip() if isinstance(text, str) else f"{value:g}"
+            raise InputError(f"{shown} is ambiguous in a delay: {value:g} s or {value:g} sample(s); write "
+                             f"\"{value:g} s\" or \"{value:g} sample\"", key=field)
     m = _SAMPLES_RE.match(text) if isinstance(text, str) else None
     if m:
         count = parse_value(m.group("count"), "number", field=field)

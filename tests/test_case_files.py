@@ -123,7 +123,7 @@ def test_report_cli_bad_case_exit_2(run_cli, tmp_path):
 
 
 @pytest.mark.parametrize("written, seconds_at_10_hz", [
-    ('"20 ms"', 0.02), ('"1 sample"', 0.1), ('"2 samples"', 0.2), ('"0.5sample"', 0.05), ("0.003", 0.003),
+    ('"20 ms"', 0.02), ('"1 sample"', 0.1), ('"2 samples"', 0.2), ('"0.5sample"', 0.05), ('"0.003 s"', 0.003), ("0", 0.0),
 ])
 def test_delay_in_seconds_or_samples(written, seconds_at_10_hz):
     """A computation delay reads as a time or as a count of samples (the same words as

@@ -133,7 +133,7 @@ ti = "100 s"
 [target.circuit]
 topology = "pi-rc-feedback"
 resistor_range = ["1k", "100k"]
-draws = 100
+draws = 200
 [criteria]
 band = ["1 mHz", "1 Hz"]
 max_gain_error_db = 0.5
@@ -171,7 +171,7 @@ tf = "0.02 s"
 form = "series"
 [target.circuit]
 topology = "pid-single-amp"
-draws = 50
+draws = 200
 [criteria]
 band = ["10 mHz", "5 Hz"]
 max_gain_error_db = 3
@@ -208,7 +208,7 @@ def test_two_input_stage_takes_either_action(action):
 
 @pytest.mark.parametrize("line,expected", [
     ('topology = "pid-foo"', "k.toml:6: target.circuit.topology: unknown topology 'pid-foo'"),
-    ("draws = 0", "k.toml:6: target.circuit.draws: expected at least 1 Monte Carlo draw"),
+    ("draws = 0", "k.toml:6: target.circuit.draws: expected at least 200 Monte Carlo draws"),
 ])
 def test_circuit_target_errors_name_the_case_key(run_cli, tmp_path, line, expected):
     """Before: an unknown topology in [target.circuit] was reported at 'target.circuit' (the

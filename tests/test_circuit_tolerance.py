@@ -261,7 +261,7 @@ def test_case_file_draws_are_capped_and_distribution_read(run_cli, tmp_path):
     case.write_text(CASE.format(draws=MAX_DRAWS + 1, distribution="uniform"))
     r = run_cli("report", str(case), "--out", str(tmp_path / "rep"))
     assert r.code == 2 and "target.circuit.draws" in r.err and "1,000,000" in r.err and "Traceback" not in r.err
-    case.write_text(CASE.format(draws=100, distribution="lognormal"))
+    case.write_text(CASE.format(draws=200, distribution="lognormal"))
     r = run_cli("report", str(case), "--out", str(tmp_path / "rep"))
     assert r.code == 2 and "target.circuit.distribution" in r.err
 

@@ -148,7 +148,7 @@ BAD_INPUT = [
     (["report", str(CASE), "--out", "a folder"], "--out: the report folder 'a folder' already exists"),
     (["report", str(CASE), "--out", "taken.cir", "--force"], "--out: 'taken.cir' exists and is not a folder"),
     (["report", str(CASE), "--out", "no/such/folder/report"], "--out: the folder 'no/such/folder' does not exist"),
-    (["report", str(CASE), "--draws", "0"], "--draws: expected 1 to 1,000,000 draws"),
+    (["report", str(CASE), "--draws", "0"], "--draws: expected 200 to 1,000,000 draws"),
     # --- batch: the case list and the batch folder
     (["batch", "missing.toml"], "no such case file or folder: 'missing.toml'"),
     (["batch", str(CASE), "--workers", "0"], "--workers: expected 1 to 256 workers"),
@@ -307,7 +307,7 @@ JSON_RUNS = [
     ["show", ZPI, "--fs", "100Hz", "--json"],
     ["digital", "(s+2)/(s-20)", "--fs", "1kHz", "--json"],
     ["analog", "1/(z-0.5)", "--fs", "100Hz", "--method", "zoh", "--json"],
-    ["circuit", "--pid", "kp=2", "ki=1/s", "kd=0.5s", "tf=0.05s", "b=0.5", "c=0", "--draws", "100", "--json"],
+    ["circuit", "--pid", "kp=2", "ki=1/s", "kd=0.5s", "tf=0.05s", "b=0.5", "c=0", "--draws", "200", "--json"],
     ["circuit", "--catalog", "--json"],
     ["card", str(PI_CARD), "--json"],
     ["card", "--topology", "pi-rc-feedback", "--part", "R1=100k", "R2=470k", "C1=1u", "--json"],

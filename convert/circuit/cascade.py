@@ -455,7 +455,8 @@ def cascade_topology(stages: list[Topology], w_ref: float | None = None) -> tupl
     inverting = sum(1 for t in stages if t.inverting) % 2 == 1
     topo = Topology(
         name="cascade",
-        description=f"cascade of {len(stages)} stages: " + ", ".join(t.name for t in stages),
+        description=f"cascade of {len(stages)} stage{'s' if len(stages) != 1 else ''}: "
+                    + ", ".join(t.name for t in stages),
         parts=tuple(parts), stages=tuple(new_stages), inverting=inverting,
         represents="the product of its stages' transfer functions",
         equations=tuple(f"stage {k}: {_renamed(eq, names)}" for k, (t, names) in enumerate(zip(stages, maps), start=1)
@@ -565,13 +566,17 @@ def design_cascade(target: Controller, options, *, source: Controller | None = N
     realized = topo.controller_from_parts(rounded).scaled(sign).with_name("cascade (rounded parts)")
     needs_inverter = topo.sign != sign
     notes = list(notes or [])
-    notes.append(f"no single catalog stage realizes this target; a cascade of {len(plan.sections)} stages on "
-                 f"{plan.total_amplifiers} op-amps does: " + "; ".join(
-                     f"stage {i} {s.topology.name} {s.controller.expression(4)}"
-                     for i, s in enumerate(plan.sections, start=1)))
-    notes.append("stage gains scaled so that every stage output peaks at the output's peak gain over the band "
-                 f"({plan.sections[-1].peak_gain:.4g} V/V); noise gain (sum of peak gains from each stage "
-                 f"output to the output) {plan.noise_gain:.4g}")
+    n_st = len(plan.sections)
+    stages_text = f"{n_st} stage{'s' if n_st != 1 else ''} on {plan.total_amplifiers} op-amp" + (
+        "s" if plan.total_amplifiers != 1 else "")
+    why = ("a cascade was asked for (topology cascade)" if options.topology.lower() == "cascade"
+           else "no single catalog stage realizes this target")
+    notes.append(f"{why}; a cascade of {stages_text} does: " + "; ".join(
+        f"stage {i} {s.topology.name} {s.controller.expression(4)}" for i, s in enumerate(plan.sections, start=1)))
+    if n_st > 1:  # one stage feeds no other: no noise gain between stages to report
+        notes.append("stage gains scaled so that every stage output peaks at the output's peak gain over the band "
+                     f"({plan.sections[-1].peak_gain:.4g} V/V); noise gain (sum of peak gains from each stage "
+                     f"output to the output) {plan.noise_gain:.4g}")
     for k, x in shifted:
         notes.append(f"stage {k}'s gain moved by a factor {x:.4g} from the equal-peak plan to keep its parts in range")
     if not strict:

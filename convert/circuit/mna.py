@@ -401,7 +401,11 @@ def _singular_error(netlist: Netlist, system: MnaSystem, G, C) -> InputError:
             element = netlist.element(u[2:-1])
         else:
             node = u[2:-1]
-            element = next((e for e in netlist.linear_elements if node in e.nodes), None)
+            # the element that drives the node (an op-amp's or E source's output, a voltage source)
+            # is the one to check, not the first passive part that touches it
+            drivers = [e for e in netlist.linear_elements if (e.kind == "OPAMP" and e.nodes[2] == node)
+                       or (e.kind in ("E", "V") and node in e.nodes[:2])]
+            element = next(iter(drivers), None) or next((e for e in netlist.linear_elements if node in e.nodes), None)
         if element is not None:
             break
     text = ("the circuit equations are singular (voltage sources, E sources or op-amp outputs in a loop, an op-amp "

@@ -68,6 +68,22 @@ FIGURE_PERCENTILE = 99.0
 BAND_PERCENTILES = (0.5, 99.5)
 DEFAULT_CHUNK = 2048
 FLOAT32_BOUND = 1e-3  # dB and degrees: float32 figures against float64 (tested)
+
+# The fewest Monte Carlo draws whose outer percentiles mean something: the figures shown are the
+# 99th percentile (verdict, budget) and the 0.5 / 99.5 % envelope, and a 0.5 % tail holds at least
+# one draw only from 1 / 0.005 = 200 draws; with fewer the "percentile" is the largest draw or an
+# interpolation towards it. Used by the case file's draws and every --draws option.
+MIN_DRAWS = math.ceil(100 / min(BAND_PERCENTILES[0], 100 - BAND_PERCENTILES[1]) - 1e-9)  # 200
+
+
+def draws_problem(draws: int) -> str | None:
+    """Why ``draws`` Monte Carlo draws are too few to report (None when enough)."""
+    if draws >= MIN_DRAWS:
+        return None
+    return (f"expected at least {MIN_DRAWS} Monte Carlo draws, found {draws}: the 99th percentile and the "
+            f"0.5-99.5 % envelope reported need {MIN_DRAWS} for a draw to lie beyond each")
+
+
 def parse_tolerances(words: Sequence[str] | None, *, part_names: Sequence[str] = (), where: str = "--tolerance"
                      ) -> dict[str, float]:
     """Read ``["R=1%", "C=5%", "R3=0.1%"]`` into fractions; defaults R 1 %, C 5 %."""

@@ -79,7 +79,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    help="Monte Carlo spread inside the tolerance: uniform (default), or normal with the tolerance "
                         "as 3 sigma, e.g. --distribution normal")
     p.add_argument("--draws", type=int, default=10000, metavar="N",
-                   help=f"Monte Carlo draws (default 10000, at most {MAX_DRAWS:,}; 0 skips the tolerance analysis), "
+                   help=f"Monte Carlo draws (default 10000, 200 to {MAX_DRAWS:,}; 0 skips the tolerance analysis), "
                         "e.g. --draws 100000")
     p.add_argument("--seed", type=int, default=1, metavar="S", help="Monte Carlo seed (default 1), e.g. --seed 7")
     p.add_argument("--opamp-gbw", metavar="HZ",
@@ -169,8 +169,12 @@ def run(args, console) -> int:
                                      write_outputs)
     from convert.errors import InputError
 
+    from convert.circuit.tolerance import draws_problem
+
     count(args.draws, "--draws", low=0, high=MAX_DRAWS)
     count(args.seed, "--seed", low=0, high=2**32 - 1)
+    if args.draws and draws_problem(args.draws):  # 0 skips the tolerance analysis
+        raise InputError(draws_problem(args.draws) + " (or 0 to skip the tolerance analysis)", key="--draws")
     count(args.top, "--top", low=1, high=100)
     if args.inverse_method not in INVERSE_NAMES:
         raise InputError(f"no inverse for method {args.inverse_method!r}; expected one of {', '.join(INVERSE_NAMES)}",

@@ -231,9 +231,11 @@ def _render(console, pick, every, why, paths, word, scale_text=None, limits_note
             p(f"          {f}", markup=False)
     p(f"recommendation for {word}: {why}", markup=False)
     if pick is None or not pick.ok:
-        what = pick.structure if pick else "no structure"
-        reasons = (pick.refused and [pick.refused]) or (pick.failures if pick else [])
-        p(f"not written: {what} in {word} fails: {'; '.join(reasons) if reasons else why}", markup=False)
+        if pick is None:  # every structure refused or failing: the recommendation says why
+            p(f"not written: no structure is usable in {word} (see above)", markup=False)
+            return
+        reasons = (pick.refused and [pick.refused]) or pick.failures
+        p(f"not written: {pick.structure} in {word} fails: {'; '.join(reasons) if reasons else why}", markup=False)
         return
     p(f"structure used: {pick.structure} in {word}", markup=False)
     if limits_note:

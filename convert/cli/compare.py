@@ -121,7 +121,7 @@ def run(args, console) -> int:
     from convert.compare.pair import compare_pair
     from convert.errors import InputError
     from convert.given import read_spec
-    from convert.values import parse_value
+    from convert.values import parse_fraction, parse_value
 
     for option in ("sweep_columns", "sweep_units", "averages", "min_coherence"):
         if getattr(args, option) is not None and args.sweep is None:
@@ -156,11 +156,16 @@ def run(args, console) -> int:
     for option, key, kind, _ in LIMIT_OPTIONS:
         text = getattr(args, option[2:].replace("-", "_"))
         if text is not None:
-            value = parse_value(text, kind, field=option)
+            value = parse_fraction(text, field=option, allow_one=False) if kind == "ratio" else parse_value(text, kind, field=option)
             if not value > 0:
                 raise InputError(f"expected a positive limit, found {text!r}", key=option)
             limits[key] = value
     draws = count(args.draws, "--draws", low=1, high=1_000_000) if args.draws is not None else None
+    if draws is not None:
+        from convert.circuit.tolerance import draws_problem
+
+        if draws_problem(draws):
+            raise InputError(draws_problem(draws), key="--draws")
     a = read_spec(args.a, "A", fs_hz=fs, base_dir=Path.cwd())
     if args.sweep is not None:
         return _run_sweep(args, console, a, band, limits)
@@ -219,7 +224,7 @@ def _run_log(args, console, a, b, output_limits) -> int:
     from convert.cli.common import emit_json
     from convert.errors import InputError
     from convert.evidence.log import log_evidence
-    from convert.values import parse_value
+    from convert.values import parse_fraction
 
     if args.fit:
         raise InputError("a log fits A's PID parameters (kp, ki, kd); give --fit without names", key="--fit")
@@ -236,7 +241,7 @@ def _run_log(args, console, a, b, output_limits) -> int:
     for option, key in (("--max-residual-rms", "max_residual_rms"), ("--max-residual-peak", "max_residual_peak")):
         text = getattr(args, key)
         if text is not None:
-            value = parse_value(text, "ratio", field=option)
+            value = parse_fraction(text, field=option, allow_one=False)
             if not value > 0:
                 raise InputError(f"expected a positive fraction, found {text!r}", key=option)
             limits[key] = value
@@ -358,8 +363,10 @@ def render_sweep(console, a, ev) -> None:
     console.print(t)
     for j in ev.verdict.judgements:
         if j.status != "not set":
-            console.print(f"{j.label}: {j.value:.3g} {j.unit} (limit {j.limit:g}) {j.status.upper()}"
-                          + (f" — {j.note}" if j.note else ""), markup=False)
+            figure = "no figure" if j.value is None else f"{j.value:.3g} {j.unit}"
+            limit = "" if j.limit is None else f" (limit {j.limit:g})"
+            status = "NOT JUDGED" if j.status == "skipped" else j.status.upper()
+            console.print(f"{j.label}: {figure}{limit} {status}" + (f" — {j.note}" if j.note else ""), markup=False)
     for note in chk.notes:
         console.print(f"note: {note}", markup=False)
     if ev.fit is not None:

@@ -37,7 +37,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                                                         "lost; a folder of other files is always refused), "
                                                         "e.g. --out reports/pump-7 --force")
     p.add_argument("--draws", metavar="N", type=_positive_int,
-                   help="Monte Carlo draws for a circuit target, overriding the case file (1 to 1,000,000), "
+                   help="Monte Carlo draws for a circuit target, overriding the case file (200 to 1,000,000), "
                         "e.g. --draws 10000")
     return p
 
@@ -49,8 +49,13 @@ def _positive_int(text: str) -> int:
         raise argparse.ArgumentTypeError(f"expected a whole number of draws, found {text!r}") from None
     from convert.cli.circuit import MAX_DRAWS
 
-    if not 1 <= value <= MAX_DRAWS:
-        raise argparse.ArgumentTypeError(f"expected 1 to {MAX_DRAWS:,} draws, found {text!r}")
+    from convert.circuit.tolerance import MIN_DRAWS, draws_problem
+
+    if value > MAX_DRAWS or draws_problem(value):
+        raise argparse.ArgumentTypeError(f"expected {MIN_DRAWS} to {MAX_DRAWS:,} draws, found {text!r}"
+                                         + ("" if value > MAX_DRAWS else
+                                            ": the 99th percentile and the 0.5-99.5 % envelope reported need "
+                                            f"{MIN_DRAWS} for a draw to lie beyond each"))
     return value
 
 

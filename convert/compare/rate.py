@@ -36,8 +36,10 @@ RULE_TEXT = ("added phase lag at crossover ≈ ω_c·(T/2 + t_d) for the zero-or
 
 @dataclass(frozen=True)
 class RateAdvice:
-    """``checked_fs_hz`` None when no scanned rate passes; ``rule_fs_hz`` None without a
-    crossover or phase limit, or when the delay alone uses up the allowed lag."""
+    """``checked_fs_hz`` None when no scanned rate passes, or when nothing can be checked
+    (``checked`` False: no gain or phase error limit and no loop criterion to test, so no rate
+    "passes"); ``rule_fs_hz`` None without a crossover or phase limit, or when the delay alone
+    uses up the allowed lag."""
 
     method: str
     checked_fs_hz: float | None
@@ -45,6 +47,7 @@ class RateAdvice:
     limiting: str
     rule: str = RULE_TEXT
     scanned_hz: tuple[float, float] = (0.0, 0.0)
+    checked: bool = True
 
     def as_dict(self) -> dict:
         return dict(self.__dict__)
@@ -111,6 +114,12 @@ def _advise(source, method, discretize, band_hz, max_gain_error_db, max_phase_er
         return why
 
     rates = np.logspace(math.log10(2.05 * band_hz[1]), math.log10(max_ratio * band_hz[1]), points)
+    if (max_gain_error_db is None and max_phase_error_deg is None and loop_check is None
+            and not (max_lag_deg is not None and crossover_hz)):
+        return RateAdvice(method=method, checked_fs_hz=None, rule_fs_hz=None, checked=False,
+                          limiting="nothing checked: no gain or phase error limit, and no loop criterion "
+                                   "that can be tested (they need a plant)",
+                          scanned_hz=(float(rates[0]), float(rates[-1])))
     limits = [", ".join(failures(float(fs), full=False)) for fs in rates]
     ok_arr = np.array([not x for x in limits])
     checked = None

@@ -76,7 +76,9 @@ def read_evidence(ctx, data: dict, base_dir: Path) -> EvidenceSpec | None:
             spec["output_limits"] = ctx.pair(t, "output_limits", f"{key}.output_limits", "number")
             spec["fit"] = _flag(ctx, t, "fit", key)
             for limit in ("max_residual_rms", "max_residual_peak"):
-                spec[limit] = ctx.value(t, limit, f"{key}.{limit}", "ratio", None, positive=True, allow_zero=False)
+                spec[limit] = ctx.fraction(t, limit, f"{key}.{limit}", allow_one=False)
+                if spec[limit] == 0:
+                    raise ctx.error(f"{key}.{limit}", f"expected a positive value, found {t[limit]!r}")
         out[kind] = spec
     if not out:
         raise ctx.error("evidence", "give [evidence.sweep] and/or [evidence.log]")

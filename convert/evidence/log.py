@@ -585,6 +585,11 @@ def log_evidence(path: str | Path, forms: list, *, columns: dict | None = None, 
         prev_line = lines[-1]
     if rows == 0:
         raise InputError("no data rows with all values after the header", where=f"{path.name}:2")
+    if hi_out == lo_out:  # nothing to replay against: every figure would be about a constant
+        col = lay.first("output")
+        raise InputError(f"column {col.header!r} never moves: {lo_out / getattr(col, 'factor', 1.0):g} in all {rows:,} "
+                         "rows, so the log shows nothing of how the controller responds (in manual, held or saturated "
+                         "throughout); log a period in automatic where the output moves", where=f"{path.name}:2")
     if span_open is not None:
         spans.append((span_open, t_last))
     if output_limits is None and saturated:

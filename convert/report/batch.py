@@ -184,6 +184,10 @@ def _fail_message(results) -> str:
         return "verdict FAIL; see the report"
     j = failures[0]
     more = f" (and {len(failures) - 1} more)" if len(failures) > 1 else ""
+    if j.value is None or j.limit is None:  # a fail with no figure, e.g. the closed loop is unstable
+        note = " ".join(j.note.split()).split(": ")[0]
+        detail = f" ({note})" if note else ""
+        return f"{j.realization}: {j.label} fails{detail}{more}"
     return f"{j.realization}: {j.label} {j.value:.3g} {j.unit} > limit {j.limit:g} {j.unit}{more}"
 
 

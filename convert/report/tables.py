@@ -177,10 +177,12 @@ def margins_table(results) -> Table | None:
 def rate_table(results) -> Table | None:
     if not results.rate_advice:
         return None
-    rows = [[a.method, hz(a.checked_fs_hz) if a.checked_fs_hz else "none in scan",
+    rows = [[a.method, hz(a.checked_fs_hz) if a.checked_fs_hz else "none in scan" if a.checked else "— (unchecked)",
              hz(a.rule_fs_hz) if a.rule_fs_hz else "—", a.limiting,
              f"{hz(a.scanned_hz[0])} – {hz(a.scanned_hz[1])}"] for a in results.rate_advice]
-    return ("Sample-rate advice", ["method", "lowest rate that passes (checked, within 1 %)", "rule of thumb",
+    first = ("lowest rate that passes (checked, within 1 %)" if any(a.checked for a in results.rate_advice)
+             else "lowest rate (nothing to check)")
+    return ("Sample-rate advice", ["method", first, "rule of thumb",
                                    "limiting criterion below it", "scanned"], rows)
 
 
