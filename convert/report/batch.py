@@ -184,6 +184,8 @@ def _fail_message(results) -> str:
         return "verdict FAIL; see the report"
     j = failures[0]
     more = f" (and {len(failures) - 1} more)" if len(failures) > 1 else ""
+    if j.value == float("inf") and j.note:  # a root on the axis inside the band: the note says where
+        return f"{j.realization}: {j.label} {j.note}{more}"
     return f"{j.realization}: {j.label} {j.value:.3g} {j.unit} > limit {j.limit:g} {j.unit}{more}"
 
 
