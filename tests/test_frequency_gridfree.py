@@ -98,17 +98,22 @@ def test_same_root_in_both_forms_cancels():
 
 def test_phase_error_is_not_a_full_turn_off_after_a_notch():
     """Reference zero at 15.81 Hz, candidate zero at 15.49 Hz, candidate otherwise 3 degrees
-    behind: outside the two zeros the phase error is -3 degrees (never 357)."""
+    behind plus a 0.1 ms delay: beyond both zeros the phase error is the closed form
+    -3 - 360 * f * 0.1 ms (-4.44 deg at 40 Hz). Plain smallest-turn unwrapping reads the two
+    half turns the same way and gives 355.56 deg there (checked below, so the case is a real test)."""
     a = Controller.analog([1, 0, (2 * np.pi * 15.81) ** 2], [1, 60, 9869.6])
     b = Controller.analog([1, 0, (2 * np.pi * 15.49) ** 2], [1, 60, 9869.6])
-    for ppd in (97, 100, 333):
+    tau = 1e-4
+    for ppd in (97, 100, 333, 1000):
         f = log_grid(1.0, 40.0, ppd)
-        ra, rb = a.frequency_response(f), b.frequency_response(f) * np.exp(-1j * np.radians(3))
+        ra = a.frequency_response(f)
+        rb = b.frequency_response(f) * np.exp(-1j * np.radians(3) - 2j * np.pi * f * tau)
         err = compare_responses(ra, rb, f, forms=(a, b))
-        assert err.phase_error_deg[0] == pytest.approx(-3.0, abs=1e-6)
-        assert err.phase_error_deg[-1] == pytest.approx(-3.0, abs=1e-6)
-        direct = phase_error_across(rb / ra, f, [15.49, 15.81])
-        assert direct[-1] == pytest.approx(-3.0, abs=1e-6)
+        closed = -3 - 360 * f * tau
+        outside = (f < 15.4) | (f > 15.9)
+        np.testing.assert_allclose(err.phase_error_deg[outside], closed[outside], atol=1e-6)
+        plain = phase_error_across(rb / ra, f)  # no roots given: the smallest turn at each step
+        assert plain[-1] == pytest.approx(closed[-1] + 360, abs=1e-6)
 
 
 def test_budget_row_uses_the_same_refined_maximum():

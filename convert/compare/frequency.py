@@ -153,6 +153,7 @@ def compare_responses(reference: np.ndarray, candidate: np.ndarray, f_hz: Sequen
         ratio = cand / ref
         gain_err = 20 * np.log10(np.abs(ratio))
     phase_err = phase_error_across(ratio, f, look)
+    look = [r.f_hz for r in look]
     abs_gain = np.abs(np.nan_to_num(gain_err, nan=np.inf, posinf=np.inf, neginf=np.inf))
     abs_phase = np.abs(np.nan_to_num(phase_err, nan=180.0))
     peak = grid_free_maxima(evaluate, f, gain_err, phase_err, unbounded, look)
@@ -291,6 +292,8 @@ class AxisRoot:
     kind: str      # "zero" or "pole"
     form: str      # "reference" or "candidate"
     on_axis: bool  # False: near the axis (a resonance or a notch), only a place to look
+    jump: int = 0  # half-turns the phase error steps by as f passes it (left-half-plane limit on the axis)
+    damping: float = 0.0  # relative distance from the axis: |Re s|/|s|, or |ln|z||/angle
 
     def text(self) -> str:
         return f"a {self.kind} of the {self.form} on the jω axis at {self.f_hz:.6g} Hz"
@@ -299,6 +302,9 @@ class AxisRoot:
 def _root_frequencies(controller: Controller, kind: str, form: str) -> list[AxisRoot]:
     roots = controller.zero_roots() if kind == "zero" else controller.pole_roots()
     out = []
+    # a zero of the candidate (or a pole of the reference) in the left half plane turns the ratio's
+    # phase up by half a turn per multiplicity as f passes it; right-half-plane roots turn it down
+    sign = 1 if (kind == "zero") == (form == "candidate") else -1
     for r in roots:
         v = complex(r.value)
         if controller.is_digital:
@@ -307,24 +313,29 @@ def _root_frequencies(controller: Controller, kind: str, form: str) -> list[Axis
                 continue
             f = ang / (2 * np.pi * controller.sample_period_s)
             on = abs(abs(v) - 1.0) <= max(ON_AXIS_REL, float(r.error))
+            outside = abs(v) > 1.0 and not on
+            damping = abs(np.log(abs(v))) / ang
         else:
             if v.imag <= 0:
                 continue
             f = v.imag / (2 * np.pi)
             on = abs(v.real) <= max(ON_AXIS_REL * abs(v), float(r.error))
-        out.append(AxisRoot(float(f), kind, form, bool(on)))
+            outside = v.real > 0 and not on
+            damping = abs(v.real) / abs(v)
+        out.append(AxisRoot(float(f), kind, form, bool(on), sign * int(r.multiplicity) * (-1 if outside else 1),
+                            0.0 if on else float(damping)))
     return out
 
 
 def axis_roots(reference: Controller | None, candidate: Controller | None, f_low_hz: float,
-               f_high_hz: float) -> tuple[list[AxisRoot], list[float]]:
+               f_high_hz: float) -> tuple[list[AxisRoot], list[AxisRoot]]:
     """Zeros and poles of either form inside the band [f_low_hz, f_high_hz] (Hz).
 
-    Returns ``(unbounded, look_at_hz)``: the roots on the jω axis (analog) or unit circle (digital)
+    Returns ``(unbounded, inside)``: the roots on the jω axis (analog) or unit circle (digital)
     that do not cancel against the same kind of root of the other form at the same frequency (the
-    ratio candidate/reference, hence the error, is unbounded there), and the frequencies of every
-    root with a positive imaginary part / angle inside the band (places where a narrow extremum of
-    the error can hide between grid points)."""
+    ratio candidate/reference, hence the error, is unbounded there), and every root with a positive
+    imaginary part / angle inside the band, by frequency (places where a narrow extremum of the
+    error can hide between grid points, and where the phase error turns by half a turn)."""
     every = []
     for ctrl, form in ((reference, "reference"), (candidate, "candidate")):
         if ctrl is not None:
@@ -340,7 +351,7 @@ def axis_roots(reference: Controller | None, candidate: Controller | None, f_low
         if twin is not None:
             left.remove(r)
             left.remove(twin)
-    return sorted(left, key=lambda r: r.f_hz), sorted({r.f_hz for r in inside})
+    return sorted(left, key=lambda r: r.f_hz), sorted(inside, key=lambda r: r.f_hz)
 
 
 def _local_maxima(values: np.ndarray) -> np.ndarray:
@@ -396,21 +407,27 @@ def _wrap_to(angle_rad: np.ndarray, near_rad: np.ndarray) -> np.ndarray:
     return near_rad + np.angle(np.exp(1j * (angle_rad - near_rad)))
 
 
-def phase_error_across(ratio: np.ndarray, f_hz: np.ndarray, breaks_hz: Sequence[float] = ()) -> np.ndarray:
-    """Phase error (deg) of ``ratio`` along ``f_hz``, unwrapped piecewise: at a root on the axis the
-    phase jumps by half a turn and the direction of that jump is arbitrary, so each stretch
-    between ``breaks_hz`` is unwrapped on its own and starts within (−180°, 180°] (a −3° error
-    never reads 357°)."""
+def phase_error_across(ratio: np.ndarray, f_hz: np.ndarray, roots: Sequence[AxisRoot] = ()) -> np.ndarray:
+    """Phase error (deg) of ``ratio`` (1-D, over ``f_hz``) unwrapped along frequency, starting
+    within (−180°, 180°] at the first point. Each step between neighbouring grid points is the
+    smallest turn, except across ``roots`` (:func:`axis_roots`): there the step is taken nearest
+    the half turns the roots make (a left-half-plane zero of the candidate turns the phase up by
+    180°, one of the reference down), so a step of about ±180° at a notch is never read the wrong
+    way round and a −3° error beyond a pair of notches never reads 357°."""
     f = np.asarray(f_hz, dtype=float)
-    out = np.asarray(unwrapped_phase_error_deg(ratio), dtype=float).copy()
-    if not len(breaks_hz):
-        return out
-    cuts = np.searchsorted(f, sorted(breaks_hz))
-    for lo, hi in zip(np.concatenate([[0], cuts]), np.concatenate([cuts, [f.size]])):
-        if hi > lo:
-            seg = unwrapped_phase_error_deg(np.asarray(ratio)[lo:hi])
-            out[lo:hi] = seg
-    return out
+    ang = np.angle(np.asarray(ratio, dtype=complex))
+    ok = np.isfinite(ang)
+    if not ok.all() or not len(roots) or ang.size < 2:
+        return unwrapped_phase_error_deg(ratio)
+    step = np.diff(ang)
+    expected = np.zeros(step.size)
+    for r in roots:
+        i = int(np.searchsorted(f, r.f_hz)) - 1  # the step from f[i] to f[i+1] holds it
+        # only a root whose half turn happens within that one step (a notch or a sharp peak)
+        if 0 <= i < step.size and r.damping < 0.5 * (f[i + 1] / f[i] - 1):
+            expected[i] += np.pi * r.jump
+    step = expected + np.angle(np.exp(1j * (step - expected)))
+    return np.degrees(np.concatenate([[ang[0]], ang[0] + np.cumsum(step)]))
 
 
 def grid_free_maxima(evaluate, f_hz: np.ndarray, gain_db: np.ndarray, phase_deg: np.ndarray,
