@@ -536,7 +536,7 @@ def design_cascade(target: Controller, options, *, source: Controller | None = N
     a product is the sum of the sections' log errors), then joined and scored as one circuit. When a
     stage's parts fall out of range the next order of :func:`plan_cascades` is tried; only when none
     keeps every stage output within max(input, output) peak is a stage allowed above it (noted)."""
-    from convert.circuit.design import Candidate, CircuitDesign, default_band, score_parts
+    from convert.circuit.design import Candidate, CircuitDesign, _figures_off_grid, default_band, score_parts
 
     band = band_hz or options.band_hz or default_band(target)
     plans = plan_cascades(target, band, max_opamps=options.max_opamps)
@@ -563,6 +563,7 @@ def design_cascade(target: Controller, options, *, source: Controller | None = N
     ref = target.frequency_response(f) * sign
     sc, gdb, pdeg = score_parts(topo, {k: np.asarray([v]) for k, v in rounded.items()}, f, ref)
     best = Candidate(dict(rounded), float(sc[0]), float(gdb[0]), float(pdeg[0]))
+    best = _figures_off_grid(topo, target, sign, [best], f)[0]  # the same figures as the rounding row
     realized = topo.controller_from_parts(rounded).scaled(sign).with_name("cascade (rounded parts)")
     needs_inverter = topo.sign != sign
     notes = list(notes or [])

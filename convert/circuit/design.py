@@ -471,6 +471,7 @@ def design_circuit(controller: Controller, options: DesignOptions | None = None,
     if not found:
         raise last_error
     best_params, best, diag = found[0]
+    best = _figures_off_grid(topo, target, sign, best, f)
     best_nominal = diag["nominal"]
     if wanted is not None:
         notes += _assignment_notes(alternatives[0], found, wanted)
@@ -484,6 +485,21 @@ def design_circuit(controller: Controller, options: DesignOptions | None = None,
                          params=dict(best_params), nominal=best_nominal, rounded=rounded, realized=realized,
                          band_hz=(float(band[0]), float(band[1])), candidates=best, options=options, notes=notes,
                          filter_added=filtered, settings=settings)
+
+
+def _figures_off_grid(topo: Topology, target: Controller, sign: int, cands: list, f_hz: np.ndarray) -> list:
+    """The shown part sets' gain and phase errors from the one frequency comparison (maxima refined
+    on the continuous responses, roots on the axis found), so they match the rounding row; the
+    score that ranks them stays the grid's."""
+    from dataclasses import replace
+
+    from convert.compare.frequency import compare_controllers
+
+    out = []
+    for c in cands:
+        e = compare_controllers(target, topo.controller_from_parts(dict(c.parts)).scaled(sign), f_hz)
+        out.append(replace(c, max_gain_error_db=e.max_gain_error_db, max_phase_error_deg=e.max_phase_error_deg))
+    return out
 
 
 def _series_text(q: Mapping[str, float]) -> str:

@@ -38,6 +38,21 @@ Rounding is to the nearest series value in log space (geometric midpoint). The s
 the largest |ln(H_built/H_target)| over the band (1 dB weighs as 6.6 degrees). See docs/circuits.md."""
 
 
+
+def _err(x: float, fmt: str) -> str:
+    """An error figure; +∞ (a root on the jω axis inside the band) reads "unbounded"."""
+    return "unbounded" if x == float("inf") else format(x, fmt)
+
+
+def _bounded_only(errors: dict) -> dict:
+    """``errors`` without the comparisons that are unbounded for a reason (a root on the jω axis
+    inside the band, said in their ``unbounded_note``): those infinities are the result."""
+    if isinstance(errors, dict):
+        if errors.get("unbounded_note"):
+            return {}
+        return {k: _bounded_only(v) for k, v in errors.items()}
+    return errors
+
 def add_parser(subparsers) -> argparse.ArgumentParser:
     from convert.cli.common import add_controller_input
 
@@ -214,7 +229,7 @@ def run(args, console) -> int:
                                distribution=args.distribution, opamp=opamp, amplitude_v=amplitude, rail_v=rail)
     from convert.jsonable import non_finite_path
 
-    bad = non_finite_path(errors)
+    bad = non_finite_path(_bounded_only(errors))
     if bad:  # never print NaN as a result (issue 9): the figures over/underflow somewhere in the band
         shown = f"{band[0]:g} Hz .. {band[1]:g} Hz" if band else "the default band"
         raise InputError(f"the error figure {bad} is not a finite number over {shown}: the circuit's response "
@@ -315,14 +330,14 @@ def _render(console, design, data) -> None:
     for col in ("source", "max gain error (dB)", "max phase error (deg)", "detail"):
         t2.add_column(col)
     r = err["rounding"]["response"]
-    t2.add_row("rounding to series", f"{r['max_gain_error_db']:.3f}", f"{r['max_phase_error_deg']:.2f}",
+    t2.add_row("rounding to series", _err(r['max_gain_error_db'], '.3f'), _err(r['max_phase_error_deg'], '.2f'),
                ", ".join(f"{k} {v['relative_error'] * 100:+.2f}%" for k, v in err["rounding"]["quantities"].items()))
     if "derivative_filter" in err:
         r = err["derivative_filter"]["response"]
-        t2.add_row("derivative filter added", f"{r['max_gain_error_db']:.3f}", f"{r['max_phase_error_deg']:.2f}", "")
+        t2.add_row("derivative filter added", _err(r['max_gain_error_db'], '.3f'), _err(r['max_phase_error_deg'], '.2f'), "")
     if "setpoint_path" in err:
         r = err["setpoint_path"]["response"]
-        t2.add_row("setpoint path (rounding)", f"{r['max_gain_error_db']:.3f}", f"{r['max_phase_error_deg']:.2f}", "")
+        t2.add_row("setpoint path (rounding)", _err(r['max_gain_error_db'], '.3f'), _err(r['max_phase_error_deg'], '.2f'), "")
     if "tolerance" in err:
         mc = err["tolerance"]["monte_carlo"]
         wc = err["tolerance"]["worst_case"]
@@ -334,8 +349,8 @@ def _render(console, design, data) -> None:
     op = err.get("opamp", {})
     if "response" in op:
         r = op["response"]
-        t2.add_row(f"op-amp GBW {format_value(op['gbw_hz'], 'hz', 3)}", f"{r['max_gain_error_db']:.3f}",
-                   f"{r['max_phase_error_deg']:.2f}", "")
+        t2.add_row(f"op-amp GBW {format_value(op['gbw_hz'], 'hz', 3)}", _err(r['max_gain_error_db'], '.3f'),
+                   _err(r['max_phase_error_deg'], '.2f'), "")
     if "swing" in op:
         sw = op["swing"]
         detail = "within the rails" if sw["ok"] else "; ".join(
@@ -358,7 +373,7 @@ def _render(console, design, data) -> None:
     t4.add_column("phase deg")
     t4.add_column("parts")
     for i, c in enumerate(data["candidates"], 1):
-        t4.add_row(str(i), f"{c['score']:.4g}", f"{c['max_gain_error_db']:.3f}", f"{c['max_phase_error_deg']:.2f}",
+        t4.add_row(str(i), f"{c['score']:.4g}", _err(c['max_gain_error_db'], '.3f'), _err(c['max_phase_error_deg'], '.2f'),
                    " ".join(f"{k}={format_value(v, 'ohm' if k.startswith('R') else 'farad', 3)}"
                             for k, v in c["parts"].items() if v not in (0.0, float('inf'))))
     console.print(t4)

@@ -464,6 +464,8 @@ def _render(console, result) -> None:
     e = result.error
     console.print(f"largest over the band: gain {e.max_gain_error_db:.4g} dB at {hz(e.max_gain_error_at_hz)}, "
                   f"phase {e.max_phase_error_deg:.4g} deg at {hz(e.max_phase_error_at_hz)}", markup=False)
+    if e.unbounded_note:
+        console.print(f"the error is {e.unbounded_note}", markup=False)
     if result.coefficients_error is not None:
         c = result.coefficients_error
         console.print(f"coefficients alone (no hold, no delay): gain {c.max_gain_error_db:.4g} dB, "

@@ -185,6 +185,8 @@ def _summary(console, results, folder) -> None:
         for j in failures:
             if j.value is None or j.limit is None:  # closed-loop stability: the warning above has the rest
                 text = f"{j.realization}: {j.label}: {j.note.split(': ')[0]}"
+            elif j.value == float("inf") and j.note:  # a root on the axis inside the band
+                text = f"{j.realization}: {j.label} {j.note}"
             else:
                 text = f"{j.realization}: {j.label} {j.value:.3g} {j.unit} > limit {j.limit:g} {j.unit}"
             console.print(styled(f"[red]fails:[/red] {escape(text)}"))

@@ -25,13 +25,14 @@ from typing import Sequence
 
 import numpy as np
 
-from convert.compare.frequency import compare_responses
+from convert.compare.frequency import axis_roots, compare_responses
 
 #: Row keys in table order, with their labels.
 ROWS: tuple[tuple[str, str], ...] = (
     ("discretization", "Discretization method"),
     ("hold_and_delay", "Sample-and-hold and computation delay"),
     ("word_format", "Coefficient word format"),
+    ("source_hold", "Digital source's own sample-and-hold, made analog"),
     ("series_rounding", "Rounding to series values"),
     ("tolerances", "Part tolerances"),
     ("derivative_filter", "Derivative filter"),
@@ -62,6 +63,7 @@ class BudgetRow:
     delta_sensitivity_peak_db: float | None = None
     percentile: float | None = None
     unstable_fraction: float | None = None  # draws whose closed loop is unstable (None: not counted)
+    unbounded_note: str = ""
 
     def as_dict(self) -> dict:
         return dict(self.__dict__)
@@ -83,10 +85,16 @@ def not_applicable(key: str, why: str) -> BudgetRow:
 
 def error_row(key: str, band_f_hz: Sequence[float], reference: np.ndarray, candidate: np.ndarray, *, note: str,
               loop: LoopSpec | None = None, loop_reference: np.ndarray | None = None,
-              loop_candidate: np.ndarray | None = None, percentile: float | None = None) -> BudgetRow:
+              loop_candidate: np.ndarray | None = None, percentile: float | None = None, evaluate=None,
+              forms=None) -> BudgetRow:
     """A budget row from responses on the band grid (``reference`` (F,), ``candidate`` (F,) or
     (N, F)) and, optionally, on the loop grid (``loop_reference`` (F2,), ``loop_candidate``
-    (F2,) or (N, F2)) for the margin changes."""
+    (F2,) or (N, F2)) for the margin changes.
+
+    ``evaluate(f) -> (reference, candidate)`` (single candidate) and ``forms`` = (reference
+    controller, candidate controller or None) make the maxima grid-free and find roots on the axis
+    (:func:`convert.compare.frequency.compare_responses`, the one routine). With draws, a root of
+    the reference on the axis inside the band makes the row unbounded (no draw cancels it)."""
     f = np.asarray(band_f_hz, dtype=float)
     cand = np.atleast_2d(candidate)
     ref = np.asarray(reference, dtype=complex)
@@ -97,11 +105,11 @@ def error_row(key: str, band_f_hz: Sequence[float], reference: np.ndarray, candi
         figs = figures_of_responses(key, f, ref, cand, percentile=FIGURE_PERCENTILE if percentile is None else percentile,
                                     loop_margins=loop.margins if with_loop else None,
                                     loop_reference=loop_reference, loop_candidates=loop_candidate)
-        return drawn_row(key, figs, note=note)
-    err = compare_responses(ref, cand[0], f)
+        return drawn_row(key, figs, note=note, reference_form=None if forms is None else forms[0], band_f_hz=f)
+    err = compare_responses(ref, cand[0], f, evaluate=evaluate, forms=forms)
     row = dict(key=key, label=ROW_LABELS[key], applicable=True, note=note, max_gain_error_db=err.max_gain_error_db,
                max_gain_error_at_hz=err.max_gain_error_at_hz, max_phase_error_deg=err.max_phase_error_deg,
-               max_phase_error_at_hz=err.max_phase_error_at_hz, percentile=None)
+               max_phase_error_at_hz=err.max_phase_error_at_hz, percentile=None, unbounded_note=err.unbounded_note)
     if with_loop:
         m_ref = loop.margins(np.atleast_2d(loop_reference))
         m_cand = loop.margins(np.atleast_2d(loop_candidate))
@@ -112,9 +120,13 @@ def error_row(key: str, band_f_hz: Sequence[float], reference: np.ndarray, candi
     return BudgetRow(**row)
 
 
-def drawn_row(key: str, figures, *, note: str) -> BudgetRow:
+def drawn_row(key: str, figures, *, note: str, reference_form=None, band_f_hz=None) -> BudgetRow:
     """A budget row from the tolerance engine's figures over Monte Carlo draws
-    (:class:`convert.circuit.tolerance.DrawnFigures`): percentiles of the per-draw figures."""
+    (:class:`convert.circuit.tolerance.DrawnFigures`): percentiles of the per-draw figures.
+
+    ``reference_form`` (the controller the draws are compared with) and ``band_f_hz``: a zero or
+    pole of it on the jω axis inside the band makes both error figures +∞ there, "unbounded" (no
+    draw has that root at the same place: :func:`convert.compare.frequency.axis_roots`)."""
     f = figures
     missing = [f"{n} draws have no {name.replace('_', ' ').replace(' db', '').replace(' deg', '')}"
                for name, n in sorted(f.draws_without.items())]
@@ -123,12 +135,27 @@ def drawn_row(key: str, figures, *, note: str) -> BudgetRow:
     if f.unstable_fraction:  # always said when above zero (the verdict checks it too)
         note = (f"{note}; {100 * f.unstable_fraction:.3g} % of the draws ({f.unstable_draws} of {f.draws}) give an "
                 f"unstable closed loop with the plant")
-    return BudgetRow(key=key, label=ROW_LABELS[key], applicable=True, note=note,
-                     max_gain_error_db=f.max_gain_error_db, max_gain_error_at_hz=f.max_gain_error_at_hz,
-                     max_phase_error_deg=f.max_phase_error_deg, max_phase_error_at_hz=f.max_phase_error_at_hz,
-                     delta_phase_margin_deg=f.delta_phase_margin_deg, delta_gain_margin_db=f.delta_gain_margin_db,
-                     delta_sensitivity_peak_db=f.delta_sensitivity_peak_db, percentile=f.percentile,
-                     unstable_fraction=f.unstable_fraction)
+    row = dict(key=key, label=ROW_LABELS[key], applicable=True, note=note,
+               max_gain_error_db=f.max_gain_error_db, max_gain_error_at_hz=f.max_gain_error_at_hz,
+               max_phase_error_deg=f.max_phase_error_deg, max_phase_error_at_hz=f.max_phase_error_at_hz,
+               delta_phase_margin_deg=f.delta_phase_margin_deg, delta_gain_margin_db=f.delta_gain_margin_db,
+               delta_sensitivity_peak_db=f.delta_sensitivity_peak_db, percentile=f.percentile,
+               unstable_fraction=f.unstable_fraction)
+    row.update(_unbounded_fields(reference_form, band_f_hz))
+    return BudgetRow(**row)
+
+
+def _unbounded_fields(reference_form, band_f_hz) -> dict:
+    """Error fields for a reference with a root on the jω axis inside the band (else none)."""
+    if reference_form is None or band_f_hz is None:
+        return {}
+    roots = axis_roots(reference_form, None, float(band_f_hz[0]), float(band_f_hz[-1]))[0]
+    if not roots:
+        return {}
+    at = roots[0].f_hz
+    return {"max_gain_error_db": np.inf, "max_phase_error_deg": np.inf, "max_gain_error_at_hz": at,
+            "max_phase_error_at_hz": at, "unbounded_note": "unbounded: " + "; ".join(r.text() for r in roots)
+            + " (no draw has it at the same place)"}
 
 
 def assemble(rows: dict[str, BudgetRow], applicable_keys: Sequence[str], form: str) -> list[BudgetRow]:

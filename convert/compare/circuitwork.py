@@ -79,16 +79,25 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
     nom_b, nom_l = both(lambda f: resp(nominal, f)[0])
     rnd_b, rnd_l = both(lambda f: resp(rounded, f)[0])
     rows = {}
+    if src.is_digital:  # the circuit aims at the analog equivalent: the source's own hold is a row of its own
+        rows["source_hold"] = bud.error_row(
+            "source_hold", band, src_b, an_b, forms=(src, analog_src),
+            note="the analog controller the circuit aims at against the digital source as the loop sees it "
+                 "(C(e^jωT) with its zero-order hold), alone",
+            loop=spec, loop_reference=src_l, loop_candidate=an_l,
+            evaluate=lambda f: (response_seen_from_loop(src, f, via="zpk"), analog_src.frequency_response(f, via="zpk")))
     if design.filter_added is not None:
         rows["derivative_filter"] = bud.error_row(
             "derivative_filter", band, an_b, tgt_b, note="the derivative filter the circuit adds, alone (analog, exact)",
-            loop=spec, loop_reference=an_l, loop_candidate=tgt_l)
+            loop=spec, loop_reference=an_l, loop_candidate=tgt_l, forms=(analog_src, design.target),
+            evaluate=lambda f: (analog_src.frequency_response(f, via="zpk"), design.target.frequency_response(f, via="zpk")))
     else:
         rows["derivative_filter"] = bud.not_applicable("derivative_filter", "the source is proper; no filter added")
     rows["series_rounding"] = bud.error_row(
         "series_rounding", band, nom_b, rnd_b,
         note=f"parts rounded to {tgt.resistors}/{tgt.capacitors} alone: rounded against computed values, ideal op-amp",
-        loop=spec, loop_reference=nom_l, loop_candidate=rnd_l)
+        loop=spec, loop_reference=nom_l, loop_candidate=rnd_l, forms=(design.target, design.realized),
+        evaluate=lambda f: (resp(nominal, f)[0], resp(rounded, f)[0]))
     tols = dict(tgt.tolerances)
     f_disp = np.logspace(np.log10(band[0] / 30), np.log10(band[-1] * 30), 200)
     mc = monte_carlo_rows(topo, rounded, tols, band, sign=sign, draws=n_draws, seed=tgt.seed,
@@ -101,13 +110,14 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
     rows["tolerances"] = bud.drawn_row(
         "tolerances", mc.figures["tolerances"],
         note=f"{n_draws} draws ({tgt.distribution}) within ±tolerance ({spread}) around the rounded parts alone, "
-             f"ideal op-amp; seed {tgt.seed}")
+             f"ideal op-amp; seed {tgt.seed}", reference_form=design.realized, band_f_hz=band)
     tick("Monte Carlo")
     if not model.ideal:
         g_b, g_l = both(lambda f: resp(nominal, f, model)[0])
         rows["opamp_gbw"] = bud.error_row(
             "opamp_gbw", band, nom_b, g_b, note=f"single-pole op-amp, GBW {_fmt_hz(model.gbw_hz)}, alone (computed parts)",
-            loop=spec, loop_reference=nom_l, loop_candidate=g_l)
+            loop=spec, loop_reference=nom_l, loop_candidate=g_l,
+            evaluate=lambda f: (resp(nominal, f)[0], resp(nominal, f, model)[0]))
     else:
         rows["opamp_gbw"] = bud.not_applicable("opamp_gbw", "ideal op-amp (set target.circuit.opamp_gbw to check it)")
     from convert.compare.evaluate import card_parasitics_row
@@ -116,7 +126,7 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
     rows["total"] = bud.drawn_row(
         "total", mc.figures["total"],
         note="everything on: filter, rounding, tolerances" + (", op-amp GBW" if not model.ideal else "")
-             + "; against the source as the loop sees it")
+             + "; against the source as the loop sees it", reference_form=src, band_f_hz=band)
     budget = bud.assemble(rows, bud.CIRCUIT_ROWS, "circuit")
 
     from convert.values import format_value

@@ -193,6 +193,8 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
     for r in realizations:
         total = next(row for row in r.budget if row.key == "total")
         f = {"max_gain_error_db": total.max_gain_error_db, "max_phase_error_deg": total.max_phase_error_deg}
+        if total.unbounded_note:
+            f["max_gain_error_db_note"] = f["max_phase_error_deg_note"] = total.unbounded_note
         if plant is not None:
             delay = r.details.get("delay_s", 0.0) if r.form == "digital" else 0.0
             r.stability = _stability(r.controller, plant, delay, f"the loop with {r.name}", notes)
@@ -432,7 +434,8 @@ def _digital_realizations(case, src, analog_src, band, src_margins, duration, sr
                 cd.frequency_response(band, via="zpk"),
                 note=f"{method} at {_fmt_hz(fs)} alone: C(e^jωT) against the analog controller it was made from; "
                      "no hold, no delay, float64 coefficients",
-                loop=spec, loop_reference=lr(filtered), loop_candidate=lr(cd))
+                loop=spec, loop_reference=lr(filtered), loop_candidate=lr(cd), forms=(filtered, cd),
+                evaluate=lambda f: (filtered.frequency_response(f, via="zpk"), cd.frequency_response(f, via="zpk")))
             hold = hold_and_delay_factor
             rows["hold_and_delay"] = bud.error_row(
                 "hold_and_delay", band, filtered.frequency_response(band, via="zpk"),
@@ -440,7 +443,10 @@ def _digital_realizations(case, src, analog_src, band, src_margins, duration, sr
                 note=f"zero-order hold at {_fmt_hz(fs)} and {_fmt_s(delay)} computation delay alone, applied to "
                      "the analog controller",
                 loop=spec, loop_reference=lr(filtered),
-                loop_candidate=None if loop_f is None else filtered.frequency_response(loop_f, via="zpk") * hold(loop_f, t, delay))
+                loop_candidate=None if loop_f is None else filtered.frequency_response(loop_f, via="zpk") * hold(loop_f, t, delay),
+                forms=(filtered, filtered),
+                evaluate=lambda f: (filtered.frequency_response(f, via="zpk"),
+                                    filtered.frequency_response(f, via="zpk") * hold(f, t, delay)))
             if firmware.realized is not None:
                 from convert.digital.quantized import realized_response
 
@@ -449,7 +455,8 @@ def _digital_realizations(case, src, analog_src, band, src_margins, duration, sr
                     note=f"{tgt.structure} in {tgt.word_format} alone: the stored coefficients' response against the "
                          "directly mapped zeros/poles (both in z, no hold)",
                     loop=spec, loop_reference=lr(cd),
-                    loop_candidate=None if loop_f is None else realized_response(firmware.realized, loop_f))
+                    loop_candidate=None if loop_f is None else realized_response(firmware.realized, loop_f),
+                    forms=(cd, cq), evaluate=lambda f: (real.frequency_response(f), realized_response(firmware.realized, f)))
             else:
                 rows["word_format"] = bud.not_applicable(
                     "word_format", f"{tgt.structure} in {tgt.word_format} cannot be built: {firmware.refused}")
@@ -457,7 +464,8 @@ def _digital_realizations(case, src, analog_src, band, src_margins, duration, sr
                 rows["derivative_filter"] = bud.error_row(
                     "derivative_filter", band, analog_src.frequency_response(band, via="zpk"),
                     filtered.frequency_response(band, via="zpk"), note=f"{filter_note}, alone, in the analog controller",
-                    loop=spec, loop_reference=lr(analog_src), loop_candidate=lr(filtered))
+                    loop=spec, loop_reference=lr(analog_src), loop_candidate=lr(filtered), forms=(analog_src, filtered),
+                    evaluate=lambda f: (analog_src.frequency_response(f, via="zpk"), filtered.frequency_response(f, via="zpk")))
             else:
                 rows["derivative_filter"] = bud.not_applicable("derivative_filter", "the source is proper; no filter added")
             rows.update(card_parasitics_row(reduction, band, spec, loop_f))
@@ -466,7 +474,9 @@ def _digital_realizations(case, src, analog_src, band, src_margins, duration, sr
                 note="everything on: method, hold, delay, word format, filter"
                      + (", card parasitics left out" if reduction is not None and reduction.changed else "")
                      + "; against the source as the loop sees it",
-                loop=spec, loop_reference=lr(src, hold="zoh"), loop_candidate=lr(cq, delay, "zoh"))
+                loop=spec, loop_reference=lr(src, hold="zoh"), loop_candidate=lr(cq, delay, "zoh"), forms=(src, cq),
+                evaluate=lambda f: (response_seen_from_loop(src, f, via="zpk"),
+                                    response_seen_from_loop(cq, f, delay_s=delay, via="zpk")))
             budget = bud.assemble(rows, bud.DIGITAL_ROWS, "digital")
             details = {"method": method, "fs_hz": fs, "delay_s": delay, "prewarp_hz": tgt.prewarp_hz,
                        "b": list(cq.b), "a": list(cq.a), "word_format": tgt.word_format,

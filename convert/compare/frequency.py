@@ -96,6 +96,7 @@ class ResponseError:
     gain_limit_db: float
     phase_limit_deg: float
     agreement_limit_hz: float | None
+    unbounded_note: str = ""
 
     def summary(self) -> dict:
         """Plain numbers for JSON and tables."""
@@ -107,6 +108,7 @@ class ResponseError:
             "max_phase_error_at_hz": self.max_phase_error_at_hz,
             "agreement_limit_hz": self.agreement_limit_hz,
             "agreement_thresholds": {"gain_db": self.gain_limit_db, "phase_deg": self.phase_limit_deg},
+            "unbounded_note": self.unbounded_note,
         }
 
 
@@ -127,48 +129,66 @@ def unwrapped_phase_error_deg(ratio: np.ndarray) -> np.ndarray:
 
 
 def compare_responses(reference: np.ndarray, candidate: np.ndarray, f_hz: Sequence[float], *,
-                      gain_limit_db: float = 1.0, phase_limit_deg: float = 5.0) -> ResponseError:
+                      gain_limit_db: float = 1.0, phase_limit_deg: float = 5.0, evaluate=None,
+                      forms: tuple[Controller | None, Controller | None] | None = None) -> ResponseError:
     """Errors of ``candidate`` against ``reference`` (complex arrays over ``f_hz``).
 
     Signed errors: gain in dB (20·log10|cand/ref|), phase in degrees (angle of cand/ref,
-    unwrapped along frequency: :func:`unwrapped_phase_error_deg`).
+    unwrapped along frequency: :func:`unwrapped_phase_error_deg`, piecewise across roots on the
+    axis: :func:`phase_error_across`).
+
+    The maxima do not depend on the grid when the continuous responses are given:
+    ``evaluate(f) -> (reference, candidate)`` refines every local maximum
+    (:func:`grid_free_maxima`), and ``forms`` = (reference controller, candidate controller)
+    (either may be None) finds zeros and poles on the jω axis / unit circle inside the band, where
+    the error is unbounded: both maxima are then +∞ at that frequency with ``unbounded_note``.
     """
     f = np.asarray(f_hz, dtype=float)
     ref = np.asarray(reference, dtype=complex)
     cand = np.asarray(candidate, dtype=complex)
     if ref.shape != f.shape or cand.shape != f.shape:
         raise ValueError("reference, candidate and f_hz must have the same shape")
+    unbounded, look = axis_roots(*(forms or (None, None)), float(f[0]), float(f[-1]))
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = cand / ref
         gain_err = 20 * np.log10(np.abs(ratio))
-    phase_err = unwrapped_phase_error_deg(ratio)
+    phase_err = phase_error_across(ratio, f, look)
+    look = [r.f_hz for r in look]
     abs_gain = np.abs(np.nan_to_num(gain_err, nan=np.inf, posinf=np.inf, neginf=np.inf))
     abs_phase = np.abs(np.nan_to_num(phase_err, nan=180.0))
-    ig = int(np.argmax(abs_gain))
-    ip = int(np.argmax(abs_phase))
+    peak = grid_free_maxima(evaluate, f, gain_err, phase_err, unbounded, look)
     exceed = np.flatnonzero((abs_gain > gain_limit_db) | (abs_phase > phase_limit_deg))
     limit = float(f[exceed[0]]) if exceed.size else None
+    if unbounded and (limit is None or limit > unbounded[0].f_hz):
+        limit = unbounded[0].f_hz
     return ResponseError(
         f_hz=f,
         gain_error_db=gain_err,
         phase_error_deg=phase_err,
-        max_gain_error_db=float(abs_gain[ig]),
-        max_gain_error_at_hz=float(f[ig]),
-        max_phase_error_deg=float(abs_phase[ip]),
-        max_phase_error_at_hz=float(f[ip]),
+        max_gain_error_db=float(peak["gain"][0]),
+        max_gain_error_at_hz=float(peak["gain"][1]),
+        max_phase_error_deg=float(peak["phase"][0]),
+        max_phase_error_at_hz=float(peak["phase"][1]),
         gain_limit_db=gain_limit_db,
         phase_limit_deg=phase_limit_deg,
         agreement_limit_hz=limit,
+        unbounded_note=peak["unbounded_note"],
     )
 
 
 def compare_controllers(reference: Controller, candidate: Controller, f_hz: Sequence[float], *,
                         delay_s: float = 0.0, hold: str = "zoh", gain_limit_db: float = 1.0,
                         phase_limit_deg: float = 5.0, via: str = "poly") -> ResponseError:
-    """Compare two controllers as the analog loop sees them (digital ones with hold and delay)."""
-    ref = response_seen_from_loop(reference, f_hz, hold=hold, via=via)
-    cand = response_seen_from_loop(candidate, f_hz, delay_s=delay_s, hold=hold, via=via)
-    return compare_responses(ref, cand, f_hz, gain_limit_db=gain_limit_db, phase_limit_deg=phase_limit_deg)
+    """Compare two controllers as the analog loop sees them (digital ones with hold and delay);
+    the maxima are refined on the continuous responses and roots on the axis are found
+    (:func:`compare_responses`)."""
+    def evaluate(f):
+        return (response_seen_from_loop(reference, f, hold=hold, via=via),
+                response_seen_from_loop(candidate, f, delay_s=delay_s, hold=hold, via=via))
+
+    ref, cand = evaluate(np.asarray(f_hz, dtype=float))
+    return compare_responses(ref, cand, f_hz, gain_limit_db=gain_limit_db, phase_limit_deg=phase_limit_deg,
+                             evaluate=evaluate, forms=(reference, candidate))
 
 
 # ---------------------------------------------------------------------------------------------
@@ -248,3 +268,206 @@ def responses_on_grid(analog: Controller, digital: Controller, f_hz: Sequence[fl
     dig = digital.frequency_response(f, via=via) if digital_response is None else np.asarray(digital_response, complex)
     seen = dig * hold_and_delay_factor(f, digital.sample_period_s, delay_s, hold)
     return GridResponses(f, ana, dig, seen, float(delay_s))
+
+
+# ---------------------------------------------------------------------------------------------
+# Grid-independent maxima: refine the grid's local maxima on the continuous responses, and find
+# zeros or poles on the jω axis / unit circle inside the band (where the error is unbounded).
+
+#: Relative accuracy (in frequency) to which a local maximum of |error| is refined.
+REFINE_REL = 1e-6
+#: A root within this relative distance of the jω axis (|Re s| ≤ tol·|s|) or of the unit circle
+#: (||z| − 1| ≤ tol), or within its own estimated rounding error, counts as on it.
+ON_AXIS_REL = 1e-9
+#: Two on-axis roots of the same kind (zero/zero or pole/pole), one in each form, cancel in the
+#: ratio when their frequencies agree within this relative amount.
+SAME_ROOT_REL = 1e-7
+
+
+@dataclass(frozen=True)
+class AxisRoot:
+    """A zero or pole of one form at a frequency on the jω axis / unit circle (Hz)."""
+
+    f_hz: float
+    kind: str      # "zero" or "pole"
+    form: str      # "reference" or "candidate"
+    on_axis: bool  # False: near the axis (a resonance or a notch), only a place to look
+    jump: int = 0  # half-turns the phase error steps by as f passes it (left-half-plane limit on the axis)
+    damping: float = 0.0  # relative distance from the axis: |Re s|/|s|, or |ln|z||/angle
+
+    def text(self) -> str:
+        return f"a {self.kind} of the {self.form} on the jω axis at {self.f_hz:.6g} Hz"
+
+
+def _root_frequencies(controller: Controller, kind: str, form: str) -> list[AxisRoot]:
+    roots = controller.zero_roots() if kind == "zero" else controller.pole_roots()
+    out = []
+    # a zero of the candidate (or a pole of the reference) in the left half plane turns the ratio's
+    # phase up by half a turn per multiplicity as f passes it; right-half-plane roots turn it down
+    sign = 1 if (kind == "zero") == (form == "candidate") else -1
+    for r in roots:
+        v = complex(r.value)
+        if controller.is_digital:
+            ang = float(np.angle(v))
+            if ang <= 0 or abs(v) == 0:
+                continue
+            f = ang / (2 * np.pi * controller.sample_period_s)
+            on = abs(abs(v) - 1.0) <= max(ON_AXIS_REL, float(r.error))
+            outside = abs(v) > 1.0 and not on
+            damping = abs(np.log(abs(v))) / ang
+        else:
+            if v.imag <= 0:
+                continue
+            f = v.imag / (2 * np.pi)
+            on = abs(v.real) <= max(ON_AXIS_REL * abs(v), float(r.error))
+            outside = v.real > 0 and not on
+            damping = abs(v.real) / abs(v)
+        out.append(AxisRoot(float(f), kind, form, bool(on), sign * int(r.multiplicity) * (-1 if outside else 1),
+                            0.0 if on else float(damping)))
+    return out
+
+
+def axis_roots(reference: Controller | None, candidate: Controller | None, f_low_hz: float,
+               f_high_hz: float) -> tuple[list[AxisRoot], list[AxisRoot]]:
+    """Zeros and poles of either form inside the band [f_low_hz, f_high_hz] (Hz).
+
+    Returns ``(unbounded, inside)``: the roots on the jω axis (analog) or unit circle (digital)
+    that do not cancel against the same kind of root of the other form at the same frequency (the
+    ratio candidate/reference, hence the error, is unbounded there), and every root with a positive
+    imaginary part / angle inside the band, by frequency (places where a narrow extremum of the
+    error can hide between grid points, and where the phase error turns by half a turn)."""
+    every = []
+    for ctrl, form in ((reference, "reference"), (candidate, "candidate")):
+        if ctrl is not None:
+            every += _root_frequencies(ctrl, "zero", form) + _root_frequencies(ctrl, "pole", form)
+    inside = [r for r in every if f_low_hz <= r.f_hz <= f_high_hz]
+    on = [r for r in inside if r.on_axis]
+    left = list(on)
+    for r in on:
+        if r not in left:
+            continue
+        twin = next((o for o in left if o.form != r.form and o.kind == r.kind
+                     and abs(o.f_hz - r.f_hz) <= SAME_ROOT_REL * r.f_hz), None)
+        if twin is not None:
+            left.remove(r)
+            left.remove(twin)
+    return sorted(left, key=lambda r: r.f_hz), sorted(inside, key=lambda r: r.f_hz)
+
+
+def _local_maxima(values: np.ndarray) -> np.ndarray:
+    """Indices of the grid's local maxima (endpoints included) of a finite 1-D array."""
+    v = np.asarray(values, dtype=float)
+    if v.size < 3:
+        return np.arange(v.size)
+    left = np.concatenate([[True], v[1:] >= v[:-1]])
+    right = np.concatenate([v[:-1] >= v[1:], [True]])
+    return np.flatnonzero(left & right)
+
+
+def refine_maximum(value_at, f_hz: np.ndarray, values: np.ndarray, look_at_hz: Sequence[float] = (),
+                   most: int = 40) -> tuple[float, float]:
+    """The maximum of a continuous nonnegative function of frequency over [f_hz[0], f_hz[-1]]
+    (Hz), independent of the grid: every local maximum of ``values`` (= ``value_at(f_hz)``, the
+    ``most`` largest) and the grid interval around each frequency in ``look_at_hz`` is refined by a
+    bounded scalar search (in log f) on ``value_at`` to :data:`REFINE_REL` relative in frequency.
+    Returns ``(maximum, at_hz)``."""
+    from scipy.optimize import minimize_scalar
+
+    f = np.asarray(f_hz, dtype=float)
+    v = np.nan_to_num(np.asarray(values, dtype=float), nan=np.inf)
+    best_i = int(np.argmax(v))
+    best, at = float(v[best_i]), float(f[best_i])
+    if f.size < 2 or not np.isfinite(best):
+        return best, at
+    idx = _local_maxima(v)
+    idx = idx[np.argsort(-v[idx])][:most]
+    brackets = [(max(i - 1, 0), min(i + 1, f.size - 1)) for i in idx]
+    for fl in look_at_hz:
+        j = int(np.searchsorted(f, fl))
+        brackets.append((max(j - 1, 0), min(j, f.size - 1)))
+    lf = np.log(f)
+    tol = REFINE_REL / 2
+
+    def neg(x):
+        y = float(np.asarray(value_at(np.array([np.exp(x)])), dtype=float).reshape(-1)[0])
+        return -y if np.isfinite(y) else -np.inf
+
+    for i0, i1 in brackets:
+        if i1 <= i0:
+            continue
+        r = minimize_scalar(neg, bounds=(lf[i0], lf[i1]), method="bounded", options={"xatol": tol})
+        y = -float(r.fun)
+        if y > best:
+            best, at = y, float(np.exp(r.x))
+    return best, at
+
+
+def _wrap_to(angle_rad: np.ndarray, near_rad: np.ndarray) -> np.ndarray:
+    """``angle_rad`` moved by whole turns to lie within half a turn of ``near_rad``."""
+    return near_rad + np.angle(np.exp(1j * (angle_rad - near_rad)))
+
+
+def phase_error_across(ratio: np.ndarray, f_hz: np.ndarray, roots: Sequence[AxisRoot] = ()) -> np.ndarray:
+    """Phase error (deg) of ``ratio`` (1-D, over ``f_hz``) unwrapped along frequency, starting
+    within (−180°, 180°] at the first point. Each step between neighbouring grid points is the
+    smallest turn, except across ``roots`` (:func:`axis_roots`): there the step is taken nearest
+    the half turns the roots make (a left-half-plane zero of the candidate turns the phase up by
+    180°, one of the reference down), so a step of about ±180° at a notch is never read the wrong
+    way round and a −3° error beyond a pair of notches never reads 357°."""
+    f = np.asarray(f_hz, dtype=float)
+    ang = np.angle(np.asarray(ratio, dtype=complex))
+    ok = np.isfinite(ang)
+    if not ok.all() or not len(roots) or ang.size < 2:
+        return unwrapped_phase_error_deg(ratio)
+    step = np.diff(ang)
+    expected = np.zeros(step.size)
+    for r in roots:
+        i = int(np.searchsorted(f, r.f_hz)) - 1  # the step from f[i] to f[i+1] holds it
+        # only a root whose half turn happens within that one step (a notch or a sharp peak)
+        if 0 <= i < step.size and r.damping < 0.5 * (f[i + 1] / f[i] - 1):
+            expected[i] += np.pi * r.jump
+    step = expected + np.angle(np.exp(1j * (step - expected)))
+    return np.degrees(np.concatenate([[ang[0]], ang[0] + np.cumsum(step)]))
+
+
+def grid_free_maxima(evaluate, f_hz: np.ndarray, gain_db: np.ndarray, phase_deg: np.ndarray,
+                     unbounded: Sequence[AxisRoot] = (), look_at_hz: Sequence[float] = ()) -> dict:
+    """The one routine for max |gain error| and max |phase error| over a band, free of the grid.
+
+    ``evaluate(f) -> (reference, candidate)`` gives the continuous complex responses; ``gain_db``
+    and ``phase_deg`` are the signed errors on the grid ``f_hz``. With a root on the axis inside
+    the band (``unbounded``) both maxima are +∞ at that root's frequency and ``unbounded_note``
+    says why; otherwise each maximum is refined by :func:`refine_maximum`.
+    Returns ``{"gain": (value, at_hz), "phase": (value, at_hz), "unbounded_note": str}``."""
+    f = np.asarray(f_hz, dtype=float)
+    if unbounded:
+        first = unbounded[0]
+        note = ("unbounded: " + "; ".join(r.text() for r in unbounded)
+                + " (the ratio of the two forms goes to zero or infinity there, on any grid)")
+        return {"gain": (np.inf, first.f_hz), "phase": (np.inf, first.f_hz), "unbounded_note": note}
+    g_abs = np.abs(np.nan_to_num(gain_db, nan=np.inf, posinf=np.inf, neginf=np.inf))
+    p_abs = np.abs(np.nan_to_num(phase_deg, nan=180.0))
+    if evaluate is None:
+        ig, ip = int(np.argmax(g_abs)), int(np.argmax(p_abs))
+        return {"gain": (float(g_abs[ig]), float(f[ig])), "phase": (float(p_abs[ip]), float(f[ip])),
+                "unbounded_note": ""}
+
+    def ratio_at(x):
+        ref, cand = evaluate(np.asarray(x, dtype=float))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.asarray(cand, complex) / np.asarray(ref, complex)
+
+    def gain_at(x):
+        with np.errstate(divide="ignore"):
+            return np.abs(20 * np.log10(np.abs(ratio_at(x))))
+
+    grid_phase = np.radians(np.nan_to_num(phase_deg, nan=0.0))
+    lf = np.log(f)
+
+    def phase_at(x):
+        # continue the grid's unwrapped phase error to x (nearest grid point's branch)
+        j = np.clip(np.searchsorted(lf, np.log(x)), 0, f.size - 1)
+        return np.abs(np.degrees(_wrap_to(np.angle(ratio_at(x)), grid_phase[j])))
+
+    return {"gain": refine_maximum(gain_at, f, g_abs, look_at_hz),
+            "phase": refine_maximum(phase_at, f, p_abs, look_at_hz), "unbounded_note": ""}

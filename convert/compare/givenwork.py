@@ -128,7 +128,9 @@ def _firmware(case, given, info, src, band, duration, src_step, src_dist):
         "total", band, response_seen_from_loop(src, band, via="zpk"),
         response_seen_from_loop(cq, band, delay_s=delay, via="zpk"),
         note="the given form as it runs (word format, hold, delay) against the source as the loop sees it",
-        loop=spec, loop_reference=lr(src, hold="zoh"), loop_candidate=lr(cq, delay, "zoh"))
+        loop=spec, loop_reference=lr(src, hold="zoh"), loop_candidate=lr(cq, delay, "zoh"), forms=(src, cq),
+        evaluate=lambda f: (response_seen_from_loop(src, f, via="zpk"),
+                            response_seen_from_loop(cq, f, delay_s=delay, via="zpk")))
     budget = bud.assemble(rows, bud.DIGITAL_ROWS, "given firmware")
     details = {"given": True, "fs_hz": fs, "delay_s": delay, "b": list(cq.b), "a": list(cq.a),
                "word_format": d["word_format"], "structure": d["structure"], "output_limits": d["output_limits"]}
@@ -159,7 +161,8 @@ def _analog(case, given, info, src, band, duration):
     rows = {"total": bud.error_row(
         "total", band, response_seen_from_loop(src, band, via="zpk"), ctrl.frequency_response(band, via="zpk"),
         note="the given controller against the source as the loop sees it", loop=spec,
-        loop_reference=lr(src, "zoh"), loop_candidate=lr(ctrl))}
+        loop_reference=lr(src, "zoh"), loop_candidate=lr(ctrl), forms=(src, ctrl),
+        evaluate=lambda f: (response_seen_from_loop(src, f, via="zpk"), ctrl.frequency_response(f, via="zpk")))}
     details = {"given": True, "expression": given.data.get("expression") or ctrl.expression(),
                "topology": f"C(s) = {ctrl.expression()}"}
     r = _realization(case, given, "analog", ctrl, details, bud.assemble(rows, (), "given analog"), [],
@@ -221,12 +224,13 @@ def _circuit(case, given, info, src, band, duration, src_step, src_dist, draws):
     note = ("the given card" + (" with its tolerances" if drawn_total is not None else "")
             + " against the source as the loop sees it")
     if drawn_total is not None:
-        rows["total"] = bud.drawn_row("total", drawn_total, note=note)
+        rows["total"] = bud.drawn_row("total", drawn_total, note=note, reference_form=src, band_f_hz=band)
     else:
         rows["total"] = bud.error_row(
             "total", band, ref[:band.size], nominal[:band.size], note=note, loop=spec,
             loop_reference=None if loop_f is None else ref[band.size:],
-            loop_candidate=None if loop_f is None else nominal[band.size:])
+            loop_candidate=None if loop_f is None else nominal[band.size:], forms=(src, ctrl),
+            evaluate=lambda f: (response_seen_from_loop(src, f, via="zpk"), ctrl.frequency_response(f, via="zpk")))
     budget = bud.assemble(rows, bud.CIRCUIT_ROWS, "given card")
     r = _realization(case, given, "circuit", ctrl, details, budget, list(info.notes),
                      lambda f, c=ctrl: c.frequency_response(f, via="zpk"))

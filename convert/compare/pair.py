@@ -158,7 +158,9 @@ def compare_pair(a, b, *, band_hz: tuple[float, float] | None = None, plant_expr
     band = results.band_f_hz
     ref = response_seen_from_loop(results.reference, band, via="zpk")
     gl, pl = criteria.max_gain_error_db, criteria.max_phase_error_deg
-    error = compare_responses(ref, r.seen(band), band, gain_limit_db=gl, phase_limit_deg=pl)
+    error = compare_responses(ref, r.seen(band), band, gain_limit_db=gl, phase_limit_deg=pl,
+                              evaluate=lambda f: (response_seen_from_loop(results.reference, f, via="zpk"), r.seen(f)),
+                              forms=(results.reference, r.controller))
     coef = None
     if r.controller.is_digital:
         coef = compare_responses(ref, r.controller.frequency_response(band, via="zpk"), band, gain_limit_db=gl,

@@ -97,7 +97,9 @@ def _advise(source, method, discretize, band_hz, max_gain_error_db, max_phase_er
         if adds_unstable_poles(source, digital):  # an unstable controller never passes, whatever its errors
             return ["unstable controller (a pole outside |z| = 1)"]
         cand = response_seen_from_loop(digital, f, delay_s=d, via="zpk")
-        err = compare_responses(ref, cand, f)
+        err = compare_responses(ref, cand, f, forms=(source, digital),  # the verdict's grid-free maxima
+                                evaluate=lambda x: (source.frequency_response(x, via="zpk"),
+                                                    response_seen_from_loop(digital, x, delay_s=d, via="zpk")))
         why = []
         if max_gain_error_db is not None and err.max_gain_error_db > max_gain_error_db:
             why.append("gain error")

@@ -11,7 +11,9 @@ Each criterion is a maximum. The figure compared with it is:
   of the source loop's peak deviation.
 
 A criterion that is not set is not checked; a loop criterion without a plant, or one whose figure
-does not exist or is not a finite number, is "skipped" and listed with the reason. The overall
+does not exist or is not a finite number, is "skipped" and listed with the reason — except an
+error figure that is +∞ because a zero or pole of either form sits on the jω axis / unit circle
+inside the band (its note starts "unbounded"): that fails, with the note as the reason. The overall
 verdict is:
 
 * ``"fail"`` when a checked criterion fails for any realization;
@@ -141,6 +143,8 @@ def judge(criteria: dict, figures: dict[str, dict], *, has_plant: bool, loops: d
             elif value is None:
                 status = "skipped"
                 note = note or "figure not available"
+            elif value == math.inf and note.startswith("unbounded"):
+                status = "fail"  # a root on the axis inside the band: the error has no bound
             elif not math.isfinite(value):
                 status, value = "skipped", None
                 note = "the figure is not a finite number (it could not be computed)" + (f"; {note}" if note else "")

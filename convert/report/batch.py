@@ -188,6 +188,8 @@ def _fail_message(results) -> str:
         note = " ".join(j.note.split()).split(": ")[0]
         detail = f" ({note})" if note else ""
         return f"{j.realization}: {j.label} fails{detail}{more}"
+    if j.value == float("inf") and j.note:  # a root on the axis inside the band: the note says where
+        return f"{j.realization}: {j.label} {j.note}{more}"
     return f"{j.realization}: {j.label} {j.value:.3g} {j.unit} > limit {j.limit:g} {j.unit}{more}"
 
 

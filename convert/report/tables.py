@@ -84,7 +84,7 @@ def _against_limit(value, limit, status: str) -> str:
     """How the figure stands against its limit: the excess for a failure, the share used for a pass."""
     if value is None or limit is None or status not in ("pass", "fail"):
         return ""
-    if limit == 0:
+    if limit == 0 or value == math.inf:  # +∞: a root on the jω axis inside the band (the note says where)
         return "over the limit" if value > 0 else ("below the limit" if value < 0 else "at the limit")
     ratio = value / limit
     if status == "fail":
