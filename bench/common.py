@@ -82,6 +82,29 @@ def interleaved(reference: Callable[[], object], subject: Callable[[], object], 
     return Pairs(tuple(ratios), statistics.median(ref_times), statistics.median(sub_times))
 
 
+def repeated(fn: Callable[[], object], runs: int, *, warmup: bool = True) -> list[float]:
+    """Seconds of ``runs`` calls of ``fn`` (after one warm-up call)."""
+    if warmup:
+        fn()
+    return [timed(fn) for _ in range(runs)]
+
+
+def seconds_figure(name: str, times: Sequence[float], target_s: float, what: str,
+                   notes: Sequence[str] = ()) -> Figure:
+    """A figure against a fixed-seconds target (no timed reference): the ratio is the median of
+    ``times`` over ``target_s``, the spread the shortest and longest run over ``target_s``; the
+    target is then 1."""
+    med = statistics.median(times)
+    return Figure(name=name, ratio=med / target_s, target=1.0,
+                  spread=(min(times) / target_s, max(times) / target_s), notes=tuple(notes),
+                  detail=f"{what} {_seconds(med)} (median of {len(times)} runs), as a ratio to the fixed "
+                         f"target of {_seconds(target_s)}")
+
+
+def _seconds(s: float) -> str:
+    return f"{s * 1e3:.1f} ms" if s < 1 else f"{s:.2f} s"
+
+
 def python_env(**extra: str) -> dict[str, str]:
     """The environment of a fresh process as a user's install has it: bytecode cached (no
     PYTHONDONTWRITEBYTECODE), the project importable."""

@@ -1,24 +1,29 @@
 """Benchmark: read and solve a 40-node card with 10 capacitors and 4 op-amps (issue 5 target ≤ 0.2 s).
 
-Run: /work/venv/bin/python bench/netlist.py
+Run: /work/venv/bin/python bench/netlist.py [--quick] [--json]
 
 The card is generated (our own invented four-stage card: resistor ladders and dividers around
 four inverting stages, capacitors spread over five decades of time constant). The script times
-read_netlist + transfer_function in-process (imports done beforehand), repeats a few times in the
-same run, and prints the median and the ratio to the 0.2 s target. The full ``card`` analysis
-with the sensitivity table is timed too, for information (no target).
+read_netlist + transfer_function in-process (imports done beforehand), repeats it in the same
+run; the figure is the median over the fixed 0.2 s target. The full ``card`` analysis with the
+sensitivity table is timed too, as a note (no target).
 
-The sensitivity table (76 parts, ±0.1 % each) is timed both ways in the same run: by updating the
-nominal factorization (``method="update"``, what ``loopshift card`` uses; median of 3) and by
-re-solving every changed circuit (``method="resolve"``, the reference; once). The script prints
-the ratio and the largest difference between the two tables (target: ≥ 5× faster, same table).
+The sensitivity table (76 parts, ±0.1 % each) is timed both ways in the same run by interleaved
+pairs: by updating the nominal factorization (``method="update"``, what ``loopshift card`` uses)
+and by re-solving every changed circuit (``method="resolve"``, the reference). The figure is the
+speed-up (target: ≥ 5× faster); the two tables must agree (same rows, quantities within 1e-6),
+or the benchmark stops.
 """
 
 from __future__ import annotations
 
-import statistics
 import sys
 import time
+
+if __package__ in (None, ""):
+    sys.path.insert(0, __import__("os").path.dirname(__import__("os").path.dirname(__file__)))
+
+from bench.common import Figure, interleaved, repeated, run_script, seconds_figure
 
 TARGET_S = 0.2
 
@@ -69,7 +74,7 @@ def make_card() -> str:
     return "\n".join(lines) + "\n"
 
 
-def main() -> int:
+def measure(quick: bool = False) -> list[Figure]:
     from convert.circuit.card import analyze_card
     from convert.circuit.mna import transfer_function
     from convert.circuit.netlist import read_netlist
@@ -79,31 +84,22 @@ def main() -> int:
     nodes = len(netlist.nodes())
     caps = len(netlist.of_kind("C"))
     amps = len(netlist.of_kind("OPAMP"))
-    transfer_function(netlist)  # warm up (numpy first-call costs)
-
-    times = []
-    for _ in range(7):
-        t0 = time.perf_counter()
-        controller = transfer_function(read_netlist(text, "bench.cir"))
-        times.append(time.perf_counter() - t0)
-    median = statistics.median(times)
+    controller = transfer_function(netlist)  # warm up (numpy first-call costs)
+    times = repeated(lambda: transfer_function(read_netlist(text, "bench.cir")), 5 if quick else 15)
     t0 = time.perf_counter()
     analysis = analyze_card(netlist)
     full = time.perf_counter() - t0
-    print(f"card: {nodes} nodes, {caps} capacitors, {amps} op-amps, {len(netlist.elements)} elements; "
-          f"controller order {controller.order}")
-    print(f"read + solve: median {median * 1e3:.1f} ms over {len(times)} runs "
-          f"(min {min(times) * 1e3:.1f} ms, max {max(times) * 1e3:.1f} ms)")
-    print(f"ratio to the {TARGET_S * 1e3:.0f} ms target: {median / TARGET_S:.3f} "
-          f"({'within' if median <= TARGET_S else 'OVER'} target)")
-    print(f"full card analysis with sensitivities of {len(analysis.sensitivities)} parts: {full * 1e3:.0f} ms "
-          "(information, no target)")
-    sens_ok = sensitivity_table(netlist)
-    return 0 if median <= TARGET_S and sens_ok else 1
+    read = seconds_figure(
+        f"netlist: {nodes}-node card read + solve", times, TARGET_S,
+        f"read_netlist + transfer_function ({caps} capacitors, {amps} op-amps, {len(netlist.elements)} elements, "
+        f"order {controller.order})",
+        notes=(f"full card analysis with sensitivities of {len(analysis.sensitivities)} parts: "
+               f"{full * 1e3:.0f} ms (no target)",))
+    return [read, sensitivity_table(netlist, 1 if quick else 3)]
 
 
-def sensitivity_table(netlist) -> bool:
-    """Time the sensitivity table by update and by re-solve; print the ratio and the difference."""
+def sensitivity_table(netlist, pairs: int) -> Figure:
+    """The sensitivity table by update against re-solving, interleaved; the tables must agree."""
     from convert.circuit.mna import transfer_functions
     from convert.circuit.sensitivity import controller_quantities, sensitivities
     from convert.pid import pid_from_controller
@@ -112,24 +108,19 @@ def sensitivity_table(netlist) -> bool:
         c = transfer_functions(nl)["VIN"].controller
         return controller_quantities(c, pid_from_controller(c))
 
-    fast_times = []
-    for _ in range(3):
-        t0 = time.perf_counter()
-        fast = sensitivities(netlist, evaluate, method="update")
-        fast_times.append(time.perf_counter() - t0)
-    t0 = time.perf_counter()
+    fast = sensitivities(netlist, evaluate, method="update")
     ref = sensitivities(netlist, evaluate, method="resolve")
-    slow = time.perf_counter() - t0
-    fast_t = statistics.median(fast_times)
     same_rows = [(r.part, list(r.effects)) for r in fast] == [(r.part, list(r.effects)) for r in ref]
     diff = max((abs(a.effects[k] - b.effects[k]) for a, b in zip(fast, ref) for k in b.effects), default=0.0)
-    ratio = slow / fast_t
-    print(f"sensitivity table, {len(ref)} parts: update {fast_t * 1e3:.0f} ms (median of {len(fast_times)}), "
-          f"re-solve {slow * 1e3:.0f} ms; {ratio:.1f}x faster ({'within' if ratio >= 5 else 'UNDER'} the 5x target)")
-    print(f"tables {'have the same rows and quantities' if same_rows else 'DIFFER in rows or quantities'}; "
-          f"largest difference {diff:.2g} (% per %)")
-    return ratio >= 5 and same_rows and diff <= 1e-6
+    if not same_rows or diff > 1e-6:
+        raise RuntimeError(f"netlist: the sensitivity tables differ (same rows: {same_rows}, largest difference {diff:.2g})")
+    p = interleaved(lambda: sensitivities(netlist, evaluate, method="update"),
+                    lambda: sensitivities(netlist, evaluate, method="resolve"), pairs, warmup=False)
+    return Figure(f"netlist: sensitivity table by update ({len(ref)} parts)", p.median, 5.0, at_least=True,
+                  spread=p.spread,
+                  detail=f"speed-up: re-solve {p.subject_s * 1e3:.0f} ms / update {p.reference_s * 1e3:.0f} ms "
+                         f"(medians of {pairs} interleaved pairs); tables agree within {diff:.1g} % per %")
 
 
 if __name__ == "__main__":
-    sys.exit(main())
+    sys.exit(run_script(measure))
