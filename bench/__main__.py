@@ -23,6 +23,11 @@ SUITE = {
     "startup": "start-up of the command",
     "digital": "analog -> digital survey and command",
     "batch": "many cases on one and two workers",
+    "loop_sim": "the sampled-loop simulation with a clamp",
+    "netlist": "a 40-node card and its sensitivity table",
+    "netlist_large": "a 500-node ladder netlist",
+    "evidence": "plant-log replay, its memory, a sweep fit",
+    "cascade": "cascade design and its Monte Carlo",
 }
 
 DOCS_BEGIN = "<!-- figures: begin (written by python -m bench --write-docs) -->"

@@ -8,45 +8,36 @@
 2. Its 10,000-draw Monte Carlo tolerance analysis (convert.circuit.tolerance.monte_carlo, 400
    frequencies) against the same analysis of a single-stage PID. No single-stage PID has as many
    parts as the cascade, so the reference is pid-two-input (17 parts, the catalog's largest PID)
-   timed in the same run and scaled by part count (draw generation and polynomial evaluation grow
-   about linearly with the parts); the raw ratio is printed too. Target: <= 2x. Where a part set's
+   timed in the same run by interleaved pairs and scaled by part count (draw generation and
+   polynomial evaluation grow about linearly with the parts); the raw ratio is a note. Target: <= 2x. Where a part set's
    phase moves 90 degrees or more from nominal (the first target's Q = 40 zero pair, 0.5 rad/s wide,
    does with 5 % capacitors) the engine (convert.circuit.tolerance) takes its exact complex path,
    which is several times slower.
 
-Run: /work/venv/bin/python bench/cascade.py [--repeat 3]   (exit 1 when a target is missed)
+Run: /work/venv/bin/python bench/cascade.py [--quick] [--json]   (exit 1 when a target is missed)
 """
 
 from __future__ import annotations
 
-import argparse
 import math
 import sys
-import time
+import warnings
 
 import numpy as np
+
+if __package__ in (None, ""):
+    sys.path.insert(0, __import__("os").path.dirname(__import__("os").path.dirname(__file__)))
+
+from bench.common import Figure, interleaved, repeated, run_script, seconds_figure
 
 TARGET = "(s^2 + 0.5*s + 400)*(s + 3)/((s^2 + 4*s + 400)*(s + 30)*(0.2*s + 1)*(s^2 + 3*s + 9))"
 TARGET_MODERATE = "(s + 2)*(s^2 + 6*s + 100)/((s + 20)*(s^2 + 4*s + 64)*(s^2 + 10*s + 400)*(0.05*s + 1))"
 
 
-def _best(fn, repeat: int) -> float:
-    out = math.inf
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        fn()
-        out = min(out, time.perf_counter() - t0)
-    return out
+DRAWS = 10_000
 
 
-def main() -> int:
-    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    ap.add_argument("--repeat", type=int, default=3)
-    ap.add_argument("--draws", type=int, default=10_000)
-    ap.add_argument("--moderate", action="store_true",
-                    help="use the second sixth-order target (no near pole-zero pair of Q 40)")
-    args = ap.parse_args()
-
+def measure(quick: bool = False, moderate: bool = False) -> list[Figure]:
     from convert.circuit.design import DesignOptions, design_circuit
     from convert.circuit.tolerance import Comparison, run_tolerances
 
@@ -58,17 +49,15 @@ def main() -> int:
     from convert.circuit.topologies import get_topology
     from convert.controller import from_expression
 
-    target = from_expression(TARGET_MODERATE if args.moderate else TARGET)
-    print(f"target: {TARGET_MODERATE if args.moderate else TARGET}")
+    target = from_expression(TARGET_MODERATE if moderate else TARGET)
     options = DesignOptions(resistors="E24", capacitors="E12")
-    design = design_circuit(target, options)  # warm-up (imports)
-    t_design = _best(lambda: design_circuit(target, options), args.repeat)
+    design = design_circuit(target, options)
+    times = repeated(lambda: design_circuit(target, options), 2 if quick else 5, warmup=False)
     fitted = design.fitted_parts()
-    print(f"cascade: {len(design.cascade.sections)} stages, {design.cascade.total_amplifiers} op-amps, "
-          f"{len(fitted)} fitted parts; rounding {design.candidates[0].max_gain_error_db:.3g} dB / "
-          f"{design.candidates[0].max_phase_error_deg:.3g} deg")
-    print(f"1. design time {t_design:.3f} s; ratio to the 2 s target {t_design / 2.0:.3f} "
-          f"({'ok' if t_design <= 2.0 else 'MISSED'})")
+    out = [seconds_figure(
+        "cascade: design of a sixth-order target, E24/E12", times, 2.0,
+        f"design_circuit ({len(design.cascade.sections)} stages, {design.cascade.total_amplifiers} op-amps, "
+        f"{len(fitted)} fitted parts)")]
 
     tol = {"R": 0.01, "C": 0.05}
     f = np.logspace(math.log10(design.band_hz[0]), math.log10(design.band_hz[1]), 400)
@@ -76,31 +65,28 @@ def main() -> int:
     pid_parts = {"R1": 10e3, "R2": 10e3, "R3": 22e3, "R4": 10e3, "R5": 15e3, "R6": 220e3, "R7": 220e3,
                  "C1": 1e-6, "C2": 220e-9, "R8": 6.8e3, "C3": 470e-9, "R9": 3.3e3, "R10": 100e3,
                  "R11": 10e3, "R12": 10e3, "R13": 10e3, "R14": 10e3}
-    import warnings
-
-    monte_carlo(pid, pid_parts, tol, f, draws=1000, seed=1)  # warm-up
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        monte_carlo(design.topology, design.rounded, tol, f, draws=1000, seed=1)
 
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        result = monte_carlo(design.topology, design.rounded, tol, f, draws=args.draws, seed=1)
+        result = monte_carlo(design.topology, design.rounded, tol, f, draws=DRAWS, seed=1)
     finite = bool(np.all(np.isfinite(result.gain_db)) and np.all(np.isfinite(result.phase_deg))) and not caught
-    print(f"   cascade Monte Carlo figures finite: {finite}"
-          + ("" if finite else f" ({len(caught)} warning(s): {caught[0].message}) -- the float32 engine overflows"))
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        t_cas = _best(lambda: monte_carlo(design.topology, design.rounded, tol, f, draws=args.draws, seed=1),
-                      args.repeat)
-    t_pid = _best(lambda: monte_carlo(pid, pid_parts, tol, f, draws=args.draws, seed=1), args.repeat)
-    scaled = t_pid * len(fitted) / len(pid_parts)
-    ratio = t_cas / scaled
-    print(f"2. Monte Carlo {args.draws} draws x 400 freqs: cascade {t_cas:.3f} s, pid-two-input {t_pid:.3f} s "
-          f"({len(pid_parts)} parts); raw ratio {t_cas / t_pid:.2f}; per equal part count ({len(fitted)}) "
-          f"{ratio:.2f} (target <= 2: {'ok' if ratio <= 2.0 else 'MISSED'})")
-    return 0 if t_design <= 2.0 and ratio <= 2.0 else 1
+
+    def cascade():
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            monte_carlo(design.topology, design.rounded, tol, f, draws=DRAWS, seed=1)
+
+    p = interleaved(lambda: monte_carlo(pid, pid_parts, tol, f, draws=DRAWS, seed=1), cascade, 2 if quick else 5)
+    scale = len(pid_parts) / len(fitted)
+    out.append(Figure(
+        f"cascade: {DRAWS}-draw Monte Carlo vs a PID per part", p.median * scale, 2.0,
+        spread=(p.spread[0] * scale, p.spread[1] * scale),
+        detail=f"cascade {p.subject_s:.3f} s vs pid-two-input {p.reference_s:.3f} s ({len(pid_parts)} parts), "
+               f"scaled to {len(fitted)} parts (medians of {len(p.ratios)} interleaved pairs, 400 frequencies)",
+        notes=(f"raw ratio {p.median:.2f}; figures finite: {finite}"
+               + ("" if finite else f" ({len(caught)} warning(s): {caught[0].message})"),)))
+    return out
 
 
 if __name__ == "__main__":
-    sys.exit(main())
+    sys.exit(run_script(measure))

@@ -1,6 +1,6 @@
 """Benchmark: evidence (issue 13 targets).
 
-Run: /work/venv/bin/python bench/evidence.py
+Run: /work/venv/bin/python bench/evidence.py [--quick] [--json]
 
 1. Replay of a 10^6-row plant log through an analog form (a filtered PI, exact first-order hold)
    and a digital form (firmware b/a at the log's rate), in the chunks the log reader gives
@@ -19,29 +19,20 @@ import os
 import subprocess
 import sys
 import tempfile
-import time
 from pathlib import Path
 
 import numpy as np
 
-ROOT = Path(__file__).resolve().parent.parent
-sys.path.insert(0, str(ROOT))
+if __package__ in (None, ""):
+    sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+
+from bench.common import ROOT, Figure, figure_from_pairs, interleaved, repeated, run_script, seconds_figure
 
 N = 1_000_000
 CHUNK = 65536
 
 
-def best_time(fn, repeats=5) -> float:
-    """The shortest of ``repeats`` runs (the machine is shared: the shortest is the least disturbed)."""
-    times = []
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t0)
-    return min(times)
-
-
-def replay_ratios() -> list[tuple[str, float, float, float]]:
+def replay_figures(pairs: int) -> list[Figure]:
     """Each form's replay against ``lfilter`` of a filter of the same order over the same rows:
     for the analog form its first-order-hold sampled equivalent (python-control ``sample_system``,
     'foh'), for the digital form its own b/a."""
@@ -67,9 +58,9 @@ def replay_ratios() -> list[tuple[str, float, float, float]]:
             for i in range(0, N, CHUNK):
                 eng.run(t[i:i + CHUNK], e[i:i + CHUNK])
 
-        ref = best_time(lambda: lfilter(b, a, e))
-        mine = best_time(ours)
-        out.append((label, mine, ref, mine / ref))
+        p = interleaved(lambda: lfilter(b, a, e), ours, pairs)
+        out.append(figure_from_pairs(f"evidence: replay of 10^6 log rows, {label}", p, 3.0,
+                                     "replay in 65,536-row chunks", "lfilter of the same order"))
     return out
 
 
@@ -94,7 +85,7 @@ def whole_pass_memory() -> tuple[float, float]:
         return seconds, mb
 
 
-def sweep_fit_time() -> float:
+def sweep_fit_times(runs: int) -> list[float]:
     from convert.evidence.fit import fit_sweep
     from convert.evidence.models import parametric_model
     from convert.given import read_spec
@@ -108,23 +99,19 @@ def sweep_fit_time() -> float:
                                  + 1j * np.random.default_rng(4).standard_normal(f.size)))
     noise_db = np.full(f.size, 0.087)
     noise_deg = np.full(f.size, 0.57)
-    return best_time(lambda: fit_sweep(model, f, meas, noise_db, noise_deg))
+    return repeated(lambda: fit_sweep(model, f, meas, noise_db, noise_deg), runs)
 
 
-def main() -> int:
-    ok = True
-    for label, mine, ref, ratio in replay_ratios():
-        print(f"replay {label}: {mine:.3f} s, lfilter (same order) {ref:.3f} s, ratio {ratio:.2f} (target ≤ 3)")
-        ok &= ratio <= 3
+def measure(quick: bool = False) -> list[Figure]:
+    figures = replay_figures(2 if quick else 5)
     seconds, mb = whole_pass_memory()
-    print(f"whole log_evidence pass over a {N:,}-row CSV (two forms, reading included): {seconds:.2f} s, "
-          f"peak resident memory {mb:.0f} MB (target < 200 MB)")
-    ok &= mb < 200
-    fit_s = sweep_fit_time()
-    print(f"sweep fit of a 5-part card (41 points): {fit_s:.2f} s (target ≤ 2 s)")
-    ok &= fit_s <= 2
-    return 0 if ok else 1
+    figures.append(Figure("evidence: peak memory of a 10^6-row log pass", mb / 200.0, 1.0,
+                          detail=f"log_evidence over a {N:,}-row CSV, two forms, reading included, fresh process: "
+                                 f"peak resident {mb:.0f} MB as a ratio to the 200 MB limit ({seconds:.2f} s)"))
+    figures.append(seconds_figure("evidence: sweep fit of a 5-part card", sweep_fit_times(2 if quick else 5), 2.0,
+                                  "fit_sweep, 41 points"))
+    return figures
 
 
 if __name__ == "__main__":
-    sys.exit(main())
+    sys.exit(run_script(measure))
