@@ -28,6 +28,7 @@ SUITE = {
     "netlist_large": "a 500-node ladder netlist",
     "evidence": "plant-log replay, its memory, a sweep fit",
     "cascade": "cascade design and its Monte Carlo",
+    "report": "the report of every demo case against its floor; its memory",
 }
 
 DOCS_BEGIN = "<!-- figures: begin (written by python -m bench --write-docs) -->"

@@ -1,56 +1,139 @@
-"""Benchmark: the full report of each demo case (10,000 Monte Carlo draws, all figures) against
-``python -c "import control, matplotlib.pyplot"``, both in fresh processes, measured in one run.
+"""The report of every demo case against its floor, and the report's peak memory at many draws.
 
-Target (issue 6): each report ≤ 4× the reference. Prints the ratios; exit 1 when a target is
-missed. Usage: ``python bench/report.py [--repeat N] [--draws N]``.
+1. For each demo case (cases/*.toml) the whole command ``loopshift report CASE --out DIR
+   --force`` in a fresh process, interleaved by pairs with its floor: ``bench/floor.py``, a
+   script that only imports numpy and matplotlib and draws and embeds the same figures (recorded
+   once from the same report beforehand; the floor checks that it does not import loopshift and
+   this script which of its PNGs are not byte for byte the report's). At the case's own draws: target
+   ≤ 1.3× the floor; for a case with a Monte Carlo figure also at ``--draws 10000``: ≤ 1.6×
+   (issue 15).
+2. Peak resident memory of the circuit case's report (firmware_pid_to_opamp) at ``--draws
+   100000`` (target ≤ 500 MB) and, not with --quick, ``--draws 1000000`` (≤ 1 GB), each as a
+   ratio to its limit; the run is capped at 4 GB of address space so that it cannot take the
+   shared machine's memory (a run that hits the cap is reported as at least the cap).
+
+    python bench/report.py [--quick] [--json]
 """
 
 from __future__ import annotations
 
-import argparse
+import os
+import pickle
+import resource
 import subprocess
 import sys
 import tempfile
-import time
 from pathlib import Path
 
-ROOT = Path(__file__).resolve().parent.parent
-TARGET = 4.0
+if __package__ in (None, ""):
+    sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+
+from bench.common import ROOT, Figure, figure_from_pairs, interleaved, loopshift, process, python, python_env, run_script
+
+CIRCUIT_CASE = "firmware_pid_to_opamp"
+CAP_BYTES = 4 * 2**30
+
+# Runs the report in-process with Figure.savefig wrapped: every figure saved is kept as
+# matplotlib's pickle of the figure, the savefig arguments and the PNG bytes (argv: case out recording [draws]).
+RECORDER = r"""
+import io, pickle, sys
+import matplotlib.figure as mf
+orig = mf.Figure.savefig
+figs = []
+def savefig(self, fname, *a, **k):
+    blob = pickle.dumps(self)
+    out = orig(self, fname, *a, **k)
+    if isinstance(fname, io.BytesIO):
+        png = fname.getvalue()
+    else:  # saved to a file (schemdraw): the same format, read back
+        k = {"format": str(fname).rsplit(".", 1)[-1], **k}
+        with open(fname, "rb") as fh:
+            png = fh.read()
+    figs.append((blob, a, k, png))
+    return out
+mf.Figure.savefig = savefig
+from convert.cli.main import main
+case, out, recording, *draws = sys.argv[1:]
+rc = main(["report", case, "--out", out, "--force"] + (["--draws", draws[0]] if draws else []))
+with open(recording, "wb") as fh:
+    pickle.dump(figs, fh)
+sys.exit(0 if rc in (0, 1) else rc)
+"""
 
 
-def _best(cmd: list[str], repeat: int, cwd: Path) -> float:
-    best = float("inf")
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        proc = subprocess.run(cmd, cwd=cwd, capture_output=True, text=True)
-        elapsed = time.perf_counter() - t0
-        if proc.returncode not in (0, 1):
-            sys.exit(f"failed ({proc.returncode}): {' '.join(cmd)}\n{proc.stderr[-800:]}")
-        best = min(best, elapsed)
-    return best
+def record(case: Path, draws: int | None, folder: Path) -> tuple[Path, list[str]]:
+    """Record the figures of ``case``'s report; returns the floor's input and the report's figure names."""
+    out = folder / "recorded"
+    raw = folder / "raw.pickle"
+    argv = python("-c", RECORDER, str(case), str(out), str(raw), *([str(draws)] if draws else []))
+    proc = subprocess.run(argv, capture_output=True, text=True, env=python_env())
+    if proc.returncode:
+        raise RuntimeError(f"report of {case.name} failed ({proc.returncode}): {proc.stderr.strip()[-400:]}")
+    figs = pickle.loads(raw.read_bytes())
+    drawn = {png for *_, png in figs if png is not None}
+    report_figures = {p.name: p.read_bytes() for p in sorted((out / "figures").glob("*.png"))}
+    # figures the report has that matplotlib did not draw here (schematics from schemdraw) are embedded as they are
+    others = [(name, png) for name, png in report_figures.items() if png not in drawn]
+    recording = folder / "recording.pickle"
+    with open(recording, "wb") as fh:
+        pickle.dump(([(f"{i:02d}.png", blob, a, k) for i, (blob, a, k, _) in enumerate(figs)], others), fh)
+    return recording, list(report_figures)
 
 
-def main() -> int:
-    parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    parser.add_argument("--repeat", type=int, default=3, help="runs per command; the best is kept (default 3)")
-    parser.add_argument("--draws", type=int, default=10000, help="Monte Carlo draws (default 10000)")
-    args = parser.parse_args()
-    py = sys.executable
+def unmatched(report_dir: Path, floor_dir: Path) -> list[str]:
+    """The report's figures that the floor did not reproduce byte for byte."""
+    drawn = {p.read_bytes() for p in (floor_dir / "figures").glob("*.png")}
+    return [p.name for p in sorted((report_dir / "figures").glob("*.png")) if p.read_bytes() not in drawn]
+
+
+def peak_memory(argv: list[str]) -> tuple[float, bool, str]:
+    """Peak resident MB of ``argv`` run under the address-space cap; whether it finished."""
+    def cap():
+        resource.setrlimit(resource.RLIMIT_AS, (CAP_BYTES, CAP_BYTES))
+
+    proc = subprocess.Popen(argv, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=python_env(),
+                            preexec_fn=cap)
+    err = proc.stderr.read().decode(errors="replace")
+    _, status, usage = os.wait4(proc.pid, 0)
+    proc.returncode = os.waitstatus_to_exitcode(status)
+    return usage.ru_maxrss / 1024, proc.returncode in (0, 1), err.strip().splitlines()[-1:] and err.strip().splitlines()[-1] or ""
+
+
+def measure(quick: bool = False) -> list[Figure]:
+    pairs = 1 if quick else 3
+    out: list[Figure] = []
     with tempfile.TemporaryDirectory() as tmp:
-        tmp_path = Path(tmp)
-        ref = _best([py, "-c", "import control, matplotlib.pyplot"], args.repeat, tmp_path)
-        print(f"reference: python -c 'import control, matplotlib.pyplot'  {ref:.2f} s")
-        missed = 0
         for case in sorted((ROOT / "cases").glob("*.toml")):
-            out = tmp_path / case.stem
-            cmd = [py, "-m", "convert", "report", str(case), "--out", str(out), "--force", "--draws", str(args.draws)]
-            t = _best(cmd, args.repeat, tmp_path)
-            ratio = t / ref
-            ok = ratio <= TARGET
-            missed += not ok
-            print(f"{case.stem:28s} {t:6.2f} s   ratio {ratio:5.2f}   target <= {TARGET:g}  {'ok' if ok else 'MISSED'}")
-    return 1 if missed else 0
+            for draws in (None, 10_000):
+                folder = Path(tmp) / f"{case.stem}-{draws or 'own'}"
+                folder.mkdir()
+                recording, names = record(case, draws, folder)
+                report = process(loopshift("report", str(case), "--out", str(folder / "report"), "--force",
+                                           *(["--draws", str(draws)] if draws else [])), ok_codes=(0, 1))
+                floor = process(python(str(ROOT / "bench" / "floor.py"), str(recording), str(folder / "floor")))
+                p = interleaved(floor, report, pairs)
+                differ = unmatched(folder / "report", folder / "floor")
+                label = f"--draws {draws}" if draws else "own draws"
+                out.append(figure_from_pairs(
+                    f"report vs its floor: {case.stem}, {label}", p, 1.6 if draws else 1.3,
+                    f"loopshift report ({len(names)} figures)", "floor (imports + same figures)"))
+                if differ:
+                    out[-1] = Figure(**{**out[-1].__dict__, "notes": (
+                        f"not byte-identical in the floor (drawn from the same figure object): {', '.join(differ)}",)})
+                if not any(n.startswith("montecarlo") for n in names):
+                    break  # no Monte Carlo figure: the draws change nothing here
+        case = ROOT / "cases" / f"{CIRCUIT_CASE}.toml"
+        for draws, limit_mb in ((100_000, 500.0), *(() if quick else ((1_000_000, 1024.0),))):
+            mb, finished, last = peak_memory(loopshift("report", str(case), "--out", str(Path(tmp) / f"mem{draws}"),
+                                                       "--force", "--draws", str(draws)))
+            ratio = mb / limit_mb if finished else max(mb, CAP_BYTES / 2**20) / limit_mb
+            out.append(Figure(
+                f"report peak memory: {CIRCUIT_CASE}, --draws {draws}", ratio, 1.0,
+                detail=(f"peak resident {mb:.0f} MB as a ratio to the {limit_mb:.0f} MB limit" if finished else
+                        f"did not finish under the {CAP_BYTES / 2**30:.0f} GB address-space cap ({last[:120]}); "
+                        f"shown as at least the cap over the {limit_mb:.0f} MB limit")))
+    return out
 
 
 if __name__ == "__main__":
-    sys.exit(main())
+    sys.exit(run_script(measure))
