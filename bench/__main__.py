@@ -4,7 +4,7 @@ Runs every benchmark module listed in ``SUITE`` (each has ``measure(quick=False)
 prints one table of figures — each a ratio to a reference measured in the same run, with its
 target and whether it meets it — and exits 1 when a figure misses its target. ``--json`` prints
 a list of ``{name, ratio, target, meets, ...}``; ``--write-docs`` also rewrites the figures table
-in docs/performance.md. Never part of the test suite: timings are not assertions.
+in docs/performance.md and the growth tables bench/scaling.py measures. Never part of the test suite: timings are not assertions.
 """
 
 from __future__ import annotations
@@ -60,14 +60,22 @@ def docs_table(figures: list[Figure], quick: bool) -> str:
     return "\n".join(lines)
 
 
+def replace_between(text: str, begin: str, end: str, block: str, path) -> str:
+    if begin not in text or end not in text:
+        raise SystemExit(f"{path}: the markers are missing; add {begin!r} and {end!r}")
+    head, rest = text.split(begin, 1)
+    return head + block + rest.split(end, 1)[1]
+
+
 def write_docs(figures: list[Figure], quick: bool) -> None:
+    """Rewrite the figures table and, measured now by bench/scaling.py, the growth tables."""
+    from bench import scaling
+
     path = ROOT / "docs" / "performance.md"
-    text = path.read_text(encoding="utf-8")
-    if DOCS_BEGIN not in text or DOCS_END not in text:
-        raise SystemExit(f"{path}: the figure markers are missing; add {DOCS_BEGIN!r} and {DOCS_END!r}")
-    head, rest = text.split(DOCS_BEGIN, 1)
-    tail = rest.split(DOCS_END, 1)[1]
-    path.write_text(head + docs_table(figures, quick) + tail, encoding="utf-8")
+    text = replace_between(path.read_text(encoding="utf-8"), DOCS_BEGIN, DOCS_END, docs_table(figures, quick), path)
+    text = replace_between(text, scaling.DOCS_BEGIN, scaling.DOCS_END,
+                           scaling.markdown(scaling.measure_points(quick), quick), path)
+    path.write_text(text, encoding="utf-8")
 
 
 def main(argv=None) -> int:
@@ -76,7 +84,8 @@ def main(argv=None) -> int:
     parser.add_argument("--quick", action="store_true", help="fewer repeats: a rough look, not the figures")
     parser.add_argument("--json", action="store_true", help="print the figures as a JSON list")
     parser.add_argument("--only", action="append", choices=sorted(SUITE), help="run this module only (repeatable)")
-    parser.add_argument("--write-docs", action="store_true", help="rewrite the figures table in docs/performance.md")
+    parser.add_argument("--write-docs", action="store_true", help="rewrite the figures table in docs/performance.md and "
+                                                                  "the growth tables (bench/scaling.py)")
     args = parser.parse_args(argv)
     figures = run(args.only or list(SUITE), args.quick)
     if args.json:
