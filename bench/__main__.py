@@ -4,7 +4,8 @@ Runs every benchmark module listed in ``SUITE`` (each has ``measure(quick=False)
 prints one table of figures — each a ratio to a reference measured in the same run, with its
 target and whether it meets it — and exits 1 when a figure misses its target. ``--json`` prints
 a list of ``{name, ratio, target, meets, ...}``; ``--write-docs`` also rewrites the figures table
-in docs/performance.md and the growth tables bench/scaling.py measures. Never part of the test suite: timings are not assertions.
+in docs/performance.md and the growth tables bench/scaling.py measures. Never part of the
+test suite: timings are not assertions.
 """
 
 from __future__ import annotations
@@ -28,6 +29,7 @@ SUITE = {
     "netlist_large": "a 500-node ladder netlist",
     "evidence": "plant-log replay, its memory, a sweep fit",
     "cascade": "cascade design and its Monte Carlo",
+    "circuit": "the tolerance engine and the part search",
     "report": "the report of every demo case against its floor; its memory",
 }
 
