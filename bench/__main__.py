@@ -27,6 +27,7 @@ SUITE = {
     "loop_sim": "the sampled-loop simulation with a clamp",
     "netlist": "a 40-node card and its sensitivity table",
     "netlist_large": "a 500-node ladder netlist",
+    "firmware": "the bit-true model and every structure x word format",
     "evidence": "plant-log replay, its memory, a sweep fit",
     "cascade": "cascade design and its Monte Carlo",
     "circuit": "the tolerance engine and the part search",
