@@ -8,14 +8,13 @@ good case file (target: no more than its own parse time, i.e. ratio <= 1, allowi
 noise of timing a few milliseconds).
 
     python bench/batch.py              # 200 cases, as the target is stated (about 10 minutes here)
-    python bench/batch.py --cases 40   # a quicker look (the suite, python -m bench, uses 60)
+    python bench/batch.py --cases 40   # a quicker look (the suite, python -m bench, uses 60; --quick 12)
 
 Exit code 1 when a target is missed.
 """
 
 from __future__ import annotations
 
-import argparse
 import json
 import os
 import shutil
@@ -28,7 +27,7 @@ from pathlib import Path
 if __package__ in (None, ""):
     sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
-from bench.common import ROOT, Figure, print_figures
+from bench.common import ROOT, Figure, run_script
 
 
 def make_cases(folder: Path, n: int) -> None:
@@ -83,18 +82,8 @@ def measure(quick: bool = False, cases: int | None = None) -> list[Figure]:
     ]
 
 
-def main(argv=None) -> int:
-    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    ap.add_argument("--cases", type=int, default=200, help="copies of the demo cases in the batch (default 200)")
-    ap.add_argument("--json", action="store_true")
-    args = ap.parse_args(argv)
-    figures = measure(cases=args.cases)
-    if args.json:
-        print(json.dumps([f.as_dict() for f in figures], indent=2))
-    else:
-        print_figures(figures)
-    return 0 if all(f.meets for f in figures) else 1
-
-
 if __name__ == "__main__":
-    raise SystemExit(main())
+    # alone it runs the 200 cases the target names (12 with --quick) unless --cases says otherwise
+    sys.exit(run_script(lambda quick=False, cases=None: measure(quick, cases or (None if quick else 200)),
+                        doc=__doc__, options={"--cases": {"type": int, "help": "copies of the demo cases in the "
+                                                                                "batch (default 200)"}}))

@@ -153,17 +153,22 @@ def print_figures(figures: Sequence[Figure], file=None) -> None:
             print(f"{'':<{width}}  note: {n}", file=file)
 
 
-def run_script(measure: Callable[..., list[Figure]], argv: Sequence[str] | None = None) -> int:
-    """``main`` for a bench module run as a script: ``--quick``, ``--json``; exit 1 on a miss."""
+def run_script(measure: Callable[..., list[Figure]], argv: Sequence[str] | None = None, *,
+               options: dict[str, dict] | None = None, doc: str | None = None) -> int:
+    """``main`` for a bench module run as a script: ``--quick``, ``--json``; exit 1 on a miss.
+    ``options``: extra ``--name -> add_argument keywords``, passed to ``measure`` by name."""
     import argparse
     import json
 
-    parser = argparse.ArgumentParser()
+    parser = argparse.ArgumentParser(description=doc, formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--quick", action="store_true", help="fewer repeats (a rough look)")
     parser.add_argument("--json", action="store_true", help="print the figures as JSON")
-    args = parser.parse_args(argv)
-    figures = measure(quick=args.quick)
-    if args.json:
+    for flag, kw in (options or {}).items():
+        parser.add_argument(flag, **kw)
+    args = vars(parser.parse_args(argv))
+    as_json = args.pop("json")
+    figures = measure(**args)
+    if as_json:
         print(json.dumps([f.as_dict() for f in figures], indent=2))
     else:
         print_figures(figures)
