@@ -43,7 +43,11 @@ def run(names, quick: bool) -> list[Figure]:
     for name in names:
         module = importlib.import_module(f"bench.{name}")
         start = time.perf_counter()
-        got = module.measure(quick=quick)
+        try:
+            got = module.measure(quick=quick)
+        except Exception as exc:  # one broken benchmark never hides the others' figures
+            got = [Figure(f"{name}: did not run", float("nan"), 1.0,
+                          detail=f"{type(exc).__name__}: {str(exc).strip().splitlines()[-1][:200] if str(exc) else ''}")]
         print(f"# {name}: {SUITE[name]} ({time.perf_counter() - start:.0f} s)", file=sys.stderr)
         figures += got
     return figures

@@ -27,12 +27,14 @@ from pathlib import Path
 if __package__ in (None, ""):
     sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
-from bench.common import ROOT, Figure, run_script
+from bench.common import ROOT, Figure, python_env, run_script
 
 
 def make_cases(folder: Path, n: int) -> None:
     demos = sorted((ROOT / "cases").glob("*.toml"))
-    shutil.copytree(ROOT / "cases" / "cards", folder / "cards")
+    for sub in (ROOT / "cases").iterdir():  # what the cases refer to (cards, evidence files)
+        if sub.is_dir() and sub.name != "__pycache__":
+            shutil.copytree(sub, folder / sub.name)
     for i in range(n):
         src = demos[i % len(demos)]
         shutil.copy(src, folder / f"{i:04d}-{src.name}")
@@ -42,7 +44,7 @@ def run_batch(folder: Path, out: Path, workers: int) -> float:
     # One BLAS thread in both runs: the pool's workers run with one (so two workers do not fight
     # over two cores), and a single in-process worker is fastest with one too (small matrices),
     # so the ratio compares the best of each, not thread overhead.
-    env = {**os.environ, "OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
+    env = python_env(OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1", MKL_NUM_THREADS="1")
     start = time.perf_counter()
     proc = subprocess.run([sys.executable, "-m", "convert", "batch", str(folder), "--out", str(out),
                            "--workers", str(workers)], capture_output=True, text=True, env=env)
@@ -56,7 +58,8 @@ def parse_time(case_file: Path, repeats: int = 20) -> float:
     code = ("import time,sys; from convert.case import load_case; load_case(sys.argv[1]); "
             f"t=time.perf_counter(); [load_case(sys.argv[1]) for _ in range({repeats})]; "
             f"print((time.perf_counter()-t)/{repeats})")
-    out = subprocess.run([sys.executable, "-c", code, str(case_file)], capture_output=True, text=True, check=True)
+    out = subprocess.run([sys.executable, "-c", code, str(case_file)], capture_output=True, text=True, check=True,
+                         env=python_env())
     return float(out.stdout.strip())
 
 

@@ -8,6 +8,7 @@ than a ratio of two separate bests. The spread printed is the lowest and highest
 
 from __future__ import annotations
 
+import math
 import os
 import statistics
 import subprocess
@@ -41,6 +42,8 @@ class Figure:
     def as_dict(self) -> dict:
         d = asdict(self)
         d["meets"] = self.meets
+        if not math.isfinite(self.ratio):  # a benchmark that did not run: null in JSON
+            d["ratio"] = None
         return d
 
 
