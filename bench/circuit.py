@@ -22,7 +22,7 @@ from __future__ import annotations
 import os
 import statistics
 import sys
-import time
+from dataclasses import replace
 
 import numpy as np
 
@@ -115,8 +115,8 @@ def measure(quick: bool = False) -> list[Figure]:
     out.append(figure_from_pairs(
         f"tolerance engine, {draws:,} draws x {FREQS} freqs vs numpy floor", p, 1.5,
         "monte_carlo (bands)", "complex64 evaluation + magnitude and phase"))
-    out[-1] = Figure(**{**out[-1].__dict__, "notes": (
-        f"float32 bands vs the float64 path: max {err_db:.1e} dB, {err_deg:.1e} deg (limit 0.01 dB)",)})
+    out[-1] = replace(out[-1], notes=(
+        f"float32 bands vs the float64 path: max {err_db:.1e} dB, {err_deg:.1e} deg (limit 0.01 dB)",))
 
     sample = 200 if quick else 1000
     w = 2 * np.pi * f
@@ -160,7 +160,7 @@ def measure(quick: bool = False) -> list[Figure]:
                         ("pid-parallel", "(s^2+0.2*s+1)/(s*(0.01*s+1))"),
                         ("pi-rc-feedback", "2*(1+1/(0.3*s))")):
         target = from_expression(expr)
-        times = repeated(lambda: design_circuit(target, opts), 2 if quick else 5)
+        times = repeated(lambda target=target: design_circuit(target, opts), 2 if quick else 5)
         out.append(seconds_figure(f"part search E96/E12, {label}", times, 0.5, "design_circuit"))
     return out
 

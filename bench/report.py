@@ -23,6 +23,7 @@ import resource
 import subprocess
 import sys
 import tempfile
+from dataclasses import replace
 from pathlib import Path
 
 if __package__ in (None, ""):
@@ -96,7 +97,8 @@ def peak_memory(argv: list[str]) -> tuple[float, bool, str]:
     err = proc.stderr.read().decode(errors="replace")
     _, status, usage = os.wait4(proc.pid, 0)
     proc.returncode = os.waitstatus_to_exitcode(status)
-    return usage.ru_maxrss / 1024, proc.returncode in (0, 1), err.strip().splitlines()[-1:] and err.strip().splitlines()[-1] or ""
+    last = (err.strip().splitlines() or [""])[-1]
+    return usage.ru_maxrss / 1024, proc.returncode in (0, 1), last
 
 
 def measure(quick: bool = False) -> list[Figure]:
@@ -118,8 +120,8 @@ def measure(quick: bool = False) -> list[Figure]:
                     f"report vs its floor: {case.stem}, {label}", p, 1.6 if draws else 1.3,
                     f"loopshift report ({len(names)} figures)", "floor (imports + same figures)"))
                 if differ:
-                    out[-1] = Figure(**{**out[-1].__dict__, "notes": (
-                        f"not byte-identical in the floor (drawn from the same figure object): {', '.join(differ)}",)})
+                    out[-1] = replace(out[-1], notes=(
+                        f"not byte-identical in the floor (drawn from the same figure object): {', '.join(differ)}",))
                 if not any(n.startswith("montecarlo") for n in names):
                     break  # no Monte Carlo figure: the draws change nothing here
         case = ROOT / "cases" / f"{CIRCUIT_CASE}.toml"
