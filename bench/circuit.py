@@ -73,32 +73,24 @@ def numpy_floor(num, den, f, draws: int) -> None:
 
 
 CHILD = r"""
-import resource, sys, time
+import sys, time
 sys.path.insert(0, {root!r})
 from bench.circuit import setup, engine, numpy_floor
 topo, f, drawn, num, den = setup({draws})
 t0 = time.perf_counter()
 {call}
-print(time.perf_counter() - t0, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024)
+print(time.perf_counter() - t0, file=sys.stderr)
 """
 
 
 def child(draws: int, call: str) -> tuple[float, float, str]:
     """(seconds, peak MB, error) of ``call`` in a fresh process capped at 4 GB of address space."""
-    import resource
-    import subprocess
+    from bench.common import ROOT, peak_rss
 
-    from bench.common import ROOT, python_env
-
-    def cap():
-        resource.setrlimit(resource.RLIMIT_AS, (4 * 2**30, 4 * 2**30))
-
-    proc = subprocess.run(python("-c", CHILD.format(root=str(ROOT), draws=draws, call=call)), capture_output=True,
-                          text=True, env=python_env(), preexec_fn=cap)
-    if proc.returncode:
-        return float("nan"), float("nan"), (proc.stderr.strip().splitlines() or ["?"])[-1][:120]
-    seconds, mb = map(float, proc.stdout.split())
-    return seconds, mb, ""
+    mb, code, last = peak_rss(python("-c", CHILD.format(root=str(ROOT), draws=draws, call=call)))
+    if code:
+        return float("nan"), mb, last or f"exit code {code}"
+    return float(last), mb, ""
 
 
 def measure(quick: bool = False) -> list[Figure]:

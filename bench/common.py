@@ -130,6 +130,33 @@ def process(argv: Sequence[str], *, cwd: str | Path | None = None, ok_codes=(0,)
     return run
 
 
+# A small launcher: Linux folds the parent's peak resident size into a child's across fork and
+# exec, so a child started straight from a large benchmark process would report the benchmark's
+# peak. The launcher starts small, caps the address space, runs the command and prints its
+# child's peak (KB), exit code and last line of error output.
+_LAUNCHER = r"""
+import json, resource, subprocess, sys
+cap = int(sys.argv[1])
+def limit():
+    resource.setrlimit(resource.RLIMIT_AS, (cap, cap))
+p = subprocess.run(sys.argv[2:], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True, preexec_fn=limit)
+print(json.dumps([resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss, p.returncode,
+                  (p.stderr.strip().splitlines() or [""])[-1][:200]]))
+"""
+
+
+def peak_rss(argv: Sequence[str], cap_bytes: int = 4 * 2**30) -> tuple[float, int, str]:
+    """Peak resident MB of ``argv`` in a fresh process under an address-space cap (so that a run
+    that would take the shared machine's memory fails instead), its exit code and its last line
+    of error output."""
+    import json
+
+    proc = subprocess.run([sys.executable, "-c", _LAUNCHER, str(cap_bytes), *argv], capture_output=True, text=True,
+                          env=python_env(), check=True)
+    kb, code, last = json.loads(proc.stdout.strip().splitlines()[-1])
+    return kb / 1024, code, last
+
+
 def python(*args: str) -> list[str]:
     return [sys.executable, *args]
 

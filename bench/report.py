@@ -19,7 +19,6 @@ from __future__ import annotations
 
 import os
 import pickle
-import resource
 import subprocess
 import sys
 import tempfile
@@ -29,7 +28,8 @@ from pathlib import Path
 if __package__ in (None, ""):
     sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
-from bench.common import ROOT, Figure, figure_from_pairs, interleaved, loopshift, process, python, python_env, run_script
+from bench.common import (ROOT, Figure, figure_from_pairs, interleaved, loopshift, peak_rss, process, python,
+                          python_env, run_script)
 
 CIRCUIT_CASE = "firmware_pid_to_opamp"
 CAP_BYTES = 4 * 2**30
@@ -87,20 +87,6 @@ def unmatched(report_dir: Path, floor_dir: Path) -> list[str]:
     return [p.name for p in sorted((report_dir / "figures").glob("*.png")) if p.read_bytes() not in drawn]
 
 
-def peak_memory(argv: list[str]) -> tuple[float, bool, str]:
-    """Peak resident MB of ``argv`` run under the address-space cap; whether it finished."""
-    def cap():
-        resource.setrlimit(resource.RLIMIT_AS, (CAP_BYTES, CAP_BYTES))
-
-    proc = subprocess.Popen(argv, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=python_env(),
-                            preexec_fn=cap)
-    err = proc.stderr.read().decode(errors="replace")
-    _, status, usage = os.wait4(proc.pid, 0)
-    proc.returncode = os.waitstatus_to_exitcode(status)
-    last = (err.strip().splitlines() or [""])[-1]
-    return usage.ru_maxrss / 1024, proc.returncode in (0, 1), last
-
-
 def measure(quick: bool = False) -> list[Figure]:
     pairs = 1 if quick else 3
     out: list[Figure] = []
@@ -126,8 +112,9 @@ def measure(quick: bool = False) -> list[Figure]:
                     break  # no Monte Carlo figure: the draws change nothing here
         case = ROOT / "cases" / f"{CIRCUIT_CASE}.toml"
         for draws, limit_mb in ((100_000, 500.0), *(() if quick else ((1_000_000, 1024.0),))):
-            mb, finished, last = peak_memory(loopshift("report", str(case), "--out", str(Path(tmp) / f"mem{draws}"),
+            mb, code, last = peak_rss(loopshift("report", str(case), "--out", str(Path(tmp) / f"mem{draws}"),
                                                        "--force", "--draws", str(draws)))
+            finished = code in (0, 1)
             ratio = mb / limit_mb if finished else max(mb, CAP_BYTES / 2**20) / limit_mb
             out.append(Figure(
                 f"report peak memory: {CIRCUIT_CASE}, --draws {draws}", ratio, 1.0,
