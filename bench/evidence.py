@@ -16,7 +16,6 @@ Exit 1 when a target is missed.
 from __future__ import annotations
 
 import os
-import subprocess
 import sys
 import tempfile
 from pathlib import Path
@@ -26,7 +25,8 @@ import numpy as np
 if __package__ in (None, ""):
     sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
-from bench.common import ROOT, Figure, figure_from_pairs, interleaved, repeated, run_script, seconds_figure
+from bench.common import (ROOT, Figure, figure_from_pairs, interleaved, peak_rss, repeated, run_script,
+                          seconds_figure)
 
 N = 1_000_000
 CHUNK = 65536
@@ -72,16 +72,17 @@ def whole_pass_memory() -> tuple[float, float]:
         u = 2 * e
         np.savetxt(path, np.column_stack([t, e, u]), delimiter=",", fmt="%.9g", header="time (s),error,output",
                    comments="")
-        code = ("import resource, sys, time; sys.path.insert(0, %r)\n"
+        code = ("import sys, time; sys.path.insert(0, %r)\n"
                 "from convert.evidence.log import log_evidence\nfrom convert.given import read_spec\n"
                 "t0 = time.perf_counter()\n"
                 "log_evidence(%r, [('A', read_spec('2*(1 + 1/(30s))/(0.5s+1)', 'A')),"
                 " ('B', read_spec('digital: b=2.0004,-1.9996 a=1,-1 fs=100Hz', 'B'))])\n"
-                "print(time.perf_counter() - t0, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024)\n"
+                "print(time.perf_counter() - t0, file=sys.stderr)\n"
                 % (str(ROOT), str(path)))
-        res = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
-                             env={**os.environ, "PYTHONPATH": str(ROOT)})
-        seconds, mb = map(float, res.stdout.split())
+        mb, code_, last = peak_rss([sys.executable, "-c", code])  # through a small launcher (see peak_rss)
+        if code_:
+            raise RuntimeError(f"log_evidence failed: {last}")
+        seconds = float(last)
         return seconds, mb
 
 
