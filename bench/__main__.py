@@ -41,10 +41,9 @@ DOCS_END = "<!-- figures: end -->"
 def run(names, quick: bool) -> list[Figure]:
     figures: list[Figure] = []
     for name in names:
-        module = importlib.import_module(f"bench.{name}")
         start = time.perf_counter()
         try:
-            got = module.measure(quick=quick)
+            got = importlib.import_module(f"bench.{name}").measure(quick=quick)
         except Exception as exc:  # one broken benchmark never hides the others' figures
             got = [Figure(f"{name}: did not run", float("nan"), 1.0,
                           detail=f"{type(exc).__name__}: {str(exc).strip().splitlines()[-1][:200] if str(exc) else ''}")]
