@@ -5,7 +5,7 @@
        (s^2 + 0.5 s + 400)(s + 3) / ((s^2 + 4 s + 400)(s + 30)(0.2 s + 1)(s^2 + 3 s + 9))
    (--moderate: (s + 2)(s^2 + 6 s + 100) / ((s + 20)(s^2 + 4 s + 64)(s^2 + 10 s + 400)(0.05 s + 1)),
    no zero pair of Q 40 next to a pole pair). Target: <= 2 s (printed as the ratio to 2 s).
-2. Its 10,000-draw Monte Carlo tolerance analysis (convert.circuit.tolerance.monte_carlo, 400
+2. Its 10,000-draw Monte Carlo tolerance analysis (convert.circuit.tolerance.run_tolerances, 400
    frequencies) against the same analysis of a single-stage PID. No single-stage PID has as many
    parts as the cascade, so the reference is pid-two-input (17 parts, the catalog's largest PID)
    timed in the same run by interleaved pairs and scaled by part count (draw generation and

@@ -6,8 +6,9 @@ linear). Dimensions, each on the path users run where there is one:
 
 * draws — ``loopshift report cases/firmware_pid_to_opamp.toml --draws N`` (fresh process, peak
   resident memory too, under the 4 GB address-space cap of bench/report.py);
-* frequency points — the tolerance engine ``convert.circuit.tolerance.monte_carlo`` (10,000 draws of
-  the single-amplifier PID) at 100 … 1,600 frequencies, in-process;
+* frequency points — the tolerance engine ``convert.circuit.tolerance.run_tolerances`` as
+  bench/circuit.py runs it (10,000 draws of the single-amplifier PID, bands and per-draw maxima)
+  at 100 … 1,600 frequencies, in-process;
 * rates × methods — ``loopshift report`` of the tank-level case (cases/pi_card_to_firmware.toml)
   with its firmware target widened to R rates × M methods;
 * netlist size — ``read_netlist`` + ``transfer_function`` of a generated resistive ladder of N nodes
@@ -72,16 +73,14 @@ def draws_rows(tmp: Path, quick: bool) -> list[Row]:
 def frequency_rows(quick: bool) -> list[Row]:
     import numpy as np
 
-    from convert.circuit.tolerance import monte_carlo
+    from bench.circuit import engine
     from convert.circuit.topologies import get_topology
 
     topo = get_topology("pid-single-amp")
-    parts = {"R1": 47e3, "C1": 2.2e-6, "R3": 4.7e3, "R2": 100e3, "C2": 4.7e-6}
-    tol = {"R": 0.01, "C": 0.05}
     rows = []
     for n in (100, 400, 1600):
         f = np.logspace(-2, 3, n)
-        times = repeated(lambda: monte_carlo(topo, parts, tol, f, draws=10_000, seed=1), 1 if quick else 3)
+        times = repeated(lambda: engine(topo, f, 10_000), 1 if quick else 3)
         rows.append((f"{n} frequencies", statistics.median(times), "10,000 draws"))
     return rows
 
