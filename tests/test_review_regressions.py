@@ -125,3 +125,14 @@ def test_compare_with_an_unstable_loop_fails_and_hides_margins(run_cli):
     first = res.out.splitlines()[0]
     assert "unstable" in first
     assert "unstable loop" in res.out and "verdict: FAIL" in res.out
+
+
+def test_netlist_part_value_1e308_is_refused(run_cli, tmp_path):
+    """A resistor of 1e308 ohm overflowed the nodal analysis (numpy warnings, then a result with exit 0;
+    found by the opt-in fuzz campaign): now one line naming the element, exit 2."""
+    card = tmp_path / "huge.cir"
+    card.write_text("huge part\nVIN in 0 AC 1\nR1 in n 1e308\nR2 n out 10k\nX1 0 n out OPAMP\n")
+    res = run_cli("card", str(card))
+    assert res.code == 2
+    lines = [x for x in res.err.splitlines() if x.strip()]
+    assert len(lines) == 1 and "huge.cir:3" in lines[0] and "R1" in lines[0] and "1e+24" in lines[0]

@@ -48,6 +48,9 @@ BUILTIN_OPAMPS: dict[str, tuple[tuple[str, ...], dict[str, float]]] = {
 
 #: Default forward drop of a silicon diode (V); the usual range is 0.6–0.7 V (common practice).
 DIODE_FORWARD_V = 0.65
+# R, C and L values read from a netlist: far wider than any real part (1e-24 F .. 1e24 ohm), narrow
+# enough that conductances and capacitances stay well inside double range in the nodal analysis.
+PART_VALUE_RANGE = (1e-24, 1e24)
 DIODE_FORWARD_RANGE_V = (0.6, 0.7)
 
 # Directives that only steer a simulation: ignored with a note.
@@ -706,6 +709,10 @@ class _Reader:
         if not value > 0:
             raise InputError(f"expected a positive value in {unit}, found {plain[2]!r} = {value:g}", where=where,
                              key=tokens[0])
+        if not PART_VALUE_RANGE[0] <= value <= PART_VALUE_RANGE[1]:
+            # far beyond any real part, and the nodal analysis would overflow or underflow in double
+            raise InputError(f"expected a value in {unit} between {PART_VALUE_RANGE[0]:g} and {PART_VALUE_RANGE[1]:g}, "
+                             f"found {plain[2]!r} = {value:g}", where=where, key=tokens[0])
         nodes = tuple(self._node(n, prefix, nodemap) for n in plain[:2])
         self._add(Element(name, letter, nodes, value, line.number, self.source))
 
