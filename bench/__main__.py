@@ -45,19 +45,30 @@ def run(names, quick: bool) -> list[Figure]:
         try:
             got = importlib.import_module(f"bench.{name}").measure(quick=quick)
         except Exception as exc:  # one broken benchmark never hides the others' figures
-            got = [Figure(f"{name}: did not run", float("nan"), 1.0,
-                          detail=f"{type(exc).__name__}: {str(exc).strip().splitlines()[-1][:200] if str(exc) else ''}")]
+            got = [
+                Figure(
+                    f"{name}: did not run",
+                    float("nan"),
+                    1.0,
+                    detail=f"{type(exc).__name__}: {str(exc).strip().splitlines()[-1][:200] if str(exc) else ''}",
+                )
+            ]
         print(f"# {name}: {SUITE[name]} ({time.perf_counter() - start:.0f} s)", file=sys.stderr)
         figures += got
     return figures
 
 
 def docs_table(figures: list[Figure], quick: bool) -> str:
-    lines = [DOCS_BEGIN, "",
-             f"Measured {time.strftime('%Y-%m-%d')} with `python -m bench{' --quick' if quick else ''}` on "
-             f"{platform.machine()}, Python {platform.python_version()}, "
-             f"{__import__('os').cpu_count()} cores.", "",
-             "| figure | ratio | spread | target | meets | what was timed |", "|---|---|---|---|---|---|"]
+    lines = [
+        DOCS_BEGIN,
+        "",
+        f"Measured {time.strftime('%Y-%m-%d')} with `python -m bench{' --quick' if quick else ''}` on "
+        f"{platform.machine()}, Python {platform.python_version()}, "
+        f"{__import__('os').cpu_count()} cores.",
+        "",
+        "| figure | ratio | spread | target | meets | what was timed |",
+        "|---|---|---|---|---|---|",
+    ]
     for f in figures:
         target = f"≥ {f.target:g}" if f.at_least else f"≤ {f.target:g}"
         spread = f"{f.spread[0]:.2f}–{f.spread[1]:.2f}" if f.spread else ""
@@ -79,19 +90,24 @@ def write_docs(figures: list[Figure], quick: bool) -> None:
 
     path = ROOT / "docs" / "performance.md"
     text = replace_between(path.read_text(encoding="utf-8"), DOCS_BEGIN, DOCS_END, docs_table(figures, quick), path)
-    text = replace_between(text, scaling.DOCS_BEGIN, scaling.DOCS_END,
-                           scaling.markdown(scaling.measure_points(quick), quick), path)
+    text = replace_between(
+        text, scaling.DOCS_BEGIN, scaling.DOCS_END, scaling.markdown(scaling.measure_points(quick), quick), path
+    )
     path.write_text(text, encoding="utf-8")
 
 
 def main(argv=None) -> int:
-    parser = argparse.ArgumentParser(prog="python -m bench", description=__doc__,
-                                     formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser = argparse.ArgumentParser(
+        prog="python -m bench", description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter
+    )
     parser.add_argument("--quick", action="store_true", help="fewer repeats: a rough look, not the figures")
     parser.add_argument("--json", action="store_true", help="print the figures as a JSON list")
     parser.add_argument("--only", action="append", choices=sorted(SUITE), help="run this module only (repeatable)")
-    parser.add_argument("--write-docs", action="store_true", help="rewrite the figures table in docs/performance.md and "
-                                                                  "the growth tables (bench/scaling.py)")
+    parser.add_argument(
+        "--write-docs",
+        action="store_true",
+        help="rewrite the figures table in docs/performance.md and the growth tables (bench/scaling.py)",
+    )
     args = parser.parse_args(argv)
     figures = run(args.only or list(SUITE), args.quick)
     if args.json:

@@ -46,8 +46,12 @@ def run_batch(folder: Path, out: Path, workers: int) -> float:
     # so the ratio compares the best of each, not thread overhead.
     env = python_env(OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1", MKL_NUM_THREADS="1")
     start = time.perf_counter()
-    proc = subprocess.run([sys.executable, "-m", "convert", "batch", str(folder), "--out", str(out),
-                           "--workers", str(workers)], capture_output=True, text=True, env=env)
+    proc = subprocess.run(
+        [sys.executable, "-m", "convert", "batch", str(folder), "--out", str(out), "--workers", str(workers)],
+        capture_output=True,
+        text=True,
+        env=env,
+    )
     seconds = time.perf_counter() - start
     if proc.returncode not in (0, 1, 2):
         raise SystemExit(f"batch failed ({proc.returncode}): {proc.stderr.strip()}")
@@ -55,11 +59,14 @@ def run_batch(folder: Path, out: Path, workers: int) -> float:
 
 
 def parse_time(case_file: Path, repeats: int = 20) -> float:
-    code = ("import time,sys; from convert.case import load_case; load_case(sys.argv[1]); "
-            f"t=time.perf_counter(); [load_case(sys.argv[1]) for _ in range({repeats})]; "
-            f"print((time.perf_counter()-t)/{repeats})")
-    out = subprocess.run([sys.executable, "-c", code, str(case_file)], capture_output=True, text=True, check=True,
-                         env=python_env())
+    code = (
+        "import time,sys; from convert.case import load_case; load_case(sys.argv[1]); "
+        f"t=time.perf_counter(); [load_case(sys.argv[1]) for _ in range({repeats})]; "
+        f"print((time.perf_counter()-t)/{repeats})"
+    )
+    out = subprocess.run(
+        [sys.executable, "-c", code, str(case_file)], capture_output=True, text=True, check=True, env=python_env()
+    )
     return float(out.stdout.strip())
 
 
@@ -77,16 +84,29 @@ def measure(quick: bool = False, cases: int | None = None) -> list[Figure]:
         broken = next(c for c in data["cases"] if c["status"] == "unreadable")
         good = parse_time(folder / f"0000-{sorted((ROOT / 'cases').glob('*.toml'))[0].name}")
     return [
-        Figure("batch: 2 workers vs 1 (throughput)", t1 / t2, 1.7, at_least=True,
-               detail=f"{n} copies of the demo cases: 1 worker {t1:.1f} s, 2 workers {t2:.1f} s"),
-        Figure("batch: a broken case vs parsing a good one", broken["seconds"] / good, 2.0,
-               detail=f"broken case {1e3 * broken['seconds']:.2f} ms in the batch, parsing one good case "
-                      f"{1e3 * good:.2f} ms (target: its own parse time; 2 allowed for timing noise)"),
+        Figure(
+            "batch: 2 workers vs 1 (throughput)",
+            t1 / t2,
+            1.7,
+            at_least=True,
+            detail=f"{n} copies of the demo cases: 1 worker {t1:.1f} s, 2 workers {t2:.1f} s",
+        ),
+        Figure(
+            "batch: a broken case vs parsing a good one",
+            broken["seconds"] / good,
+            2.0,
+            detail=f"broken case {1e3 * broken['seconds']:.2f} ms in the batch, parsing one good case "
+            f"{1e3 * good:.2f} ms (target: its own parse time; 2 allowed for timing noise)",
+        ),
     ]
 
 
 if __name__ == "__main__":
     # alone it runs the 200 cases the target names (12 with --quick) unless --cases says otherwise
-    sys.exit(run_script(lambda quick=False, cases=None: measure(quick, cases or (None if quick else 200)),
-                        doc=__doc__, options={"--cases": {"type": int, "help": "copies of the demo cases in the "
-                                                                                "batch (default 200)"}}))
+    sys.exit(
+        run_script(
+            lambda quick=False, cases=None: measure(quick, cases or (None if quick else 200)),
+            doc=__doc__,
+            options={"--cases": {"type": int, "help": "copies of the demo cases in the batch (default 200)"}},
+        )
+    )

@@ -44,8 +44,10 @@ def measure(quick: bool = False, moderate: bool = False) -> list[Figure]:
     def monte_carlo(topo, parts, tol, f, *, draws, seed):
         """The tolerance engine with the 0.5/99.5 % bands and per-draw maxima (what `circuit` runs)."""
         ref = topo.response({k: np.asarray([v]) for k, v in parts.items()}, f)[0]
-        return run_tolerances(topo, parts, tol, band_f_hz=f, comparisons=[Comparison("t", ref)], draws=draws,
-                              seed=seed, display_f_hz=f).band
+        return run_tolerances(
+            topo, parts, tol, band_f_hz=f, comparisons=[Comparison("t", ref)], draws=draws, seed=seed, display_f_hz=f
+        ).band
+
     from convert.circuit.topologies import get_topology
     from convert.controller import from_expression
 
@@ -54,17 +56,38 @@ def measure(quick: bool = False, moderate: bool = False) -> list[Figure]:
     design = design_circuit(target, options)
     times = repeated(lambda: design_circuit(target, options), 2 if quick else 5, warmup=False)
     fitted = design.fitted_parts()
-    out = [seconds_figure(
-        "cascade: design of a sixth-order target, E24/E12", times, 2.0,
-        f"design_circuit ({len(design.cascade.sections)} stages, {design.cascade.total_amplifiers} op-amps, "
-        f"{len(fitted)} fitted parts)")]
+    out = [
+        seconds_figure(
+            "cascade: design of a sixth-order target, E24/E12",
+            times,
+            2.0,
+            f"design_circuit ({len(design.cascade.sections)} stages, {design.cascade.total_amplifiers} op-amps, "
+            f"{len(fitted)} fitted parts)",
+        )
+    ]
 
     tol = {"R": 0.01, "C": 0.05}
     f = np.logspace(math.log10(design.band_hz[0]), math.log10(design.band_hz[1]), 400)
     pid = get_topology("pid-two-input")
-    pid_parts = {"R1": 10e3, "R2": 10e3, "R3": 22e3, "R4": 10e3, "R5": 15e3, "R6": 220e3, "R7": 220e3,
-                 "C1": 1e-6, "C2": 220e-9, "R8": 6.8e3, "C3": 470e-9, "R9": 3.3e3, "R10": 100e3,
-                 "R11": 10e3, "R12": 10e3, "R13": 10e3, "R14": 10e3}
+    pid_parts = {
+        "R1": 10e3,
+        "R2": 10e3,
+        "R3": 22e3,
+        "R4": 10e3,
+        "R5": 15e3,
+        "R6": 220e3,
+        "R7": 220e3,
+        "C1": 1e-6,
+        "C2": 220e-9,
+        "R8": 6.8e3,
+        "C3": 470e-9,
+        "R9": 3.3e3,
+        "R10": 100e3,
+        "R11": 10e3,
+        "R12": 10e3,
+        "R13": 10e3,
+        "R14": 10e3,
+    }
 
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
@@ -78,13 +101,20 @@ def measure(quick: bool = False, moderate: bool = False) -> list[Figure]:
 
     p = interleaved(lambda: monte_carlo(pid, pid_parts, tol, f, draws=DRAWS, seed=1), cascade, 2 if quick else 5)
     scale = len(pid_parts) / len(fitted)
-    out.append(Figure(
-        f"cascade: {DRAWS}-draw Monte Carlo vs a PID per part", p.median * scale, 2.0,
-        spread=(p.spread[0] * scale, p.spread[1] * scale),
-        detail=f"cascade {p.subject_s:.3f} s vs pid-two-input {p.reference_s:.3f} s ({len(pid_parts)} parts), "
-               f"scaled to {len(fitted)} parts (medians of {len(p.ratios)} interleaved pairs, 400 frequencies)",
-        notes=(f"raw ratio {p.median:.2f}; figures finite: {finite}"
-               + ("" if finite else f" ({len(caught)} warning(s): {caught[0].message})"),)))
+    out.append(
+        Figure(
+            f"cascade: {DRAWS}-draw Monte Carlo vs a PID per part",
+            p.median * scale,
+            2.0,
+            spread=(p.spread[0] * scale, p.spread[1] * scale),
+            detail=f"cascade {p.subject_s:.3f} s vs pid-two-input {p.reference_s:.3f} s ({len(pid_parts)} parts), "
+            f"scaled to {len(fitted)} parts (medians of {len(p.ratios)} interleaved pairs, 400 frequencies)",
+            notes=(
+                f"raw ratio {p.median:.2f}; figures finite: {finite}"
+                + ("" if finite else f" ({len(caught)} warning(s): {caught[0].message})"),
+            ),
+        )
+    )
     return out
 
 

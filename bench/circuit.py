@@ -55,8 +55,19 @@ def engine(topo, f, draws: int, dtype=np.float32):
     from convert.circuit.tolerance import Comparison, run_tolerances
 
     ref = topo.response({k: np.array([v]) for k, v in PARTS.items()}, f)[0]
-    return run_tolerances(topo, PARTS, TOL, band_f_hz=f, comparisons=[Comparison("t", ref)], draws=draws, seed=1,
-                          display_f_hz=f, parameters=False, dtype=dtype, workers=1)
+    return run_tolerances(
+        topo,
+        PARTS,
+        TOL,
+        band_f_hz=f,
+        comparisons=[Comparison("t", ref)],
+        draws=draws,
+        seed=1,
+        display_f_hz=f,
+        parameters=False,
+        dtype=dtype,
+        workers=1,
+    )
 
 
 def numpy_floor(num, den, f, draws: int) -> None:
@@ -114,17 +125,29 @@ def measure(quick: bool = False) -> list[Figure]:
     from convert.circuit.tolerance import FLOAT32_BOUND
 
     r32, r64 = engine(topo, f, draws), engine(topo, f, draws, np.float64)
-    err = max(abs(r32.figures["t"].max_gain_error_db - r64.figures["t"].max_gain_error_db),
-              abs(r32.figures["t"].max_phase_error_deg - r64.figures["t"].max_phase_error_deg),
-              float(np.max(np.abs(r32.band.gain_db - r64.band.gain_db))),
-              float(np.max(np.abs(r32.band.phase_deg - r64.band.phase_deg))))
+    err = max(
+        abs(r32.figures["t"].max_gain_error_db - r64.figures["t"].max_gain_error_db),
+        abs(r32.figures["t"].max_phase_error_deg - r64.figures["t"].max_phase_error_deg),
+        float(np.max(np.abs(r32.band.gain_db - r64.band.gain_db))),
+        float(np.max(np.abs(r32.band.phase_deg - r64.band.phase_deg))),
+    )
     if not err <= FLOAT32_BOUND:
         raise RuntimeError(f"circuit: float32 differs from float64 by {err:.2g}, over the bound {FLOAT32_BOUND:g}")
-    out.append(replace(figure_from_pairs(
-        f"tolerance engine, {draws:,} draws x {FREQS} freqs vs numpy floor", p, 1.5,
-        "run_tolerances (bands + per-draw maxima, one thread)", "complex64 evaluation + magnitude and phase"),
-        notes=(f"float32 vs float64 on the same draws: largest difference of any figure or band {err:.1e} "
-               f"(bound {FLOAT32_BOUND:g} dB / deg)",)))
+    out.append(
+        replace(
+            figure_from_pairs(
+                f"tolerance engine, {draws:,} draws x {FREQS} freqs vs numpy floor",
+                p,
+                1.5,
+                "run_tolerances (bands + per-draw maxima, one thread)",
+                "complex64 evaluation + magnitude and phase",
+            ),
+            notes=(
+                f"float32 vs float64 on the same draws: largest difference of any figure or band {err:.1e} "
+                f"(bound {FLOAT32_BOUND:g} dB / deg)",
+            ),
+        )
+    )
 
     sample = 200 if quick else 1000
     w = 2 * np.pi * f
@@ -138,34 +161,60 @@ def measure(quick: bool = False) -> list[Figure]:
     q = interleaved(loop, lambda: engine(topo, f, draws), 1 if quick else 3, warmup=False)
     scale = draws / sample
     speedups = [scale / r for r in q.ratios]
-    out.append(Figure(
-        f"tolerance engine, {draws:,} draws vs a python-control loop", statistics.median(speedups), 20.0,
-        at_least=True, spread=(min(speedups), max(speedups)),
-        detail=f"speed-up: python-control loop over {sample} draws {q.reference_s:.2f} s scaled to {draws:,} "
-               f"({q.reference_s * scale:.0f} s) / run_tolerances {q.subject_s:.2f} s "
-               f"(medians of {len(q.ratios)} interleaved pairs)"))
+    out.append(
+        Figure(
+            f"tolerance engine, {draws:,} draws vs a python-control loop",
+            statistics.median(speedups),
+            20.0,
+            at_least=True,
+            spread=(min(speedups), max(speedups)),
+            detail=f"speed-up: python-control loop over {sample} draws {q.reference_s:.2f} s scaled to {draws:,} "
+            f"({q.reference_s * scale:.0f} s) / run_tolerances {q.subject_s:.2f} s "
+            f"(medians of {len(q.ratios)} interleaved pairs)",
+        )
+    )
 
     big = 1_000_000  # a million draws take tens of seconds with the chunked engine: in --quick too
-    t_eng, mb, err = child(big, "engine(topo, f, %d)" % big)
-    t_floor, _, err_f = child(big, "numpy_floor(num, den, f, %d)" % big)
+    t_eng, mb, err = child(big, f"engine(topo, f, {big})")
+    t_floor, _, err_f = child(big, f"numpy_floor(num, den, f, {big})")
     if err:
-        out.append(Figure(f"tolerance engine, {big:,} draws: peak memory", 4096 / 1024, 1.0,
-                          detail=f"did not finish under the 4 GB address-space cap ({err}); shown as at least "
-                                 "the cap over the 1 GB limit"))
+        out.append(
+            Figure(
+                f"tolerance engine, {big:,} draws: peak memory",
+                4096 / 1024,
+                1.0,
+                detail=f"did not finish under the 4 GB address-space cap ({err}); shown as at least "
+                "the cap over the 1 GB limit",
+            )
+        )
     else:
-        out.append(Figure(f"tolerance engine, {big:,} draws: peak memory", mb / 1024, 1.0,
-                          detail=f"peak resident {mb:.0f} MB (fresh process) as a ratio to the 1 GB limit"))
-        out.append(Figure(f"tolerance engine, {big:,} draws vs numpy floor", t_eng / t_floor, 1.5,
-                          detail=f"run_tolerances {t_eng:.1f} s vs the floor {t_floor:.1f} s, one pair of fresh "
-                                 f"processes{'' if not err_f else f' (floor failed: {err_f})'}"))
+        out.append(
+            Figure(
+                f"tolerance engine, {big:,} draws: peak memory",
+                mb / 1024,
+                1.0,
+                detail=f"peak resident {mb:.0f} MB (fresh process) as a ratio to the 1 GB limit",
+            )
+        )
+        out.append(
+            Figure(
+                f"tolerance engine, {big:,} draws vs numpy floor",
+                t_eng / t_floor,
+                1.5,
+                detail=f"run_tolerances {t_eng:.1f} s vs the floor {t_floor:.1f} s, one pair of fresh "
+                f"processes{'' if not err_f else f' (floor failed: {err_f})'}",
+            )
+        )
 
     from convert.circuit.design import DesignOptions, design_circuit
     from convert.controller import from_expression
 
     opts = DesignOptions(resistors="E96", capacitors="E12")
-    for label, expr in (("pid-single-amp", "2*(1+1/(3*s))*(1+0.5*s)/(1+0.05*s)"),
-                        ("pid-parallel", "(s^2+0.2*s+1)/(s*(0.01*s+1))"),
-                        ("pi-rc-feedback", "2*(1+1/(0.3*s))")):
+    for label, expr in (
+        ("pid-single-amp", "2*(1+1/(3*s))*(1+0.5*s)/(1+0.05*s)"),
+        ("pid-parallel", "(s^2+0.2*s+1)/(s*(0.01*s+1))"),
+        ("pi-rc-feedback", "2*(1+1/(0.3*s))"),
+    ):
         target = from_expression(expr)
         times = repeated(lambda target=target: design_circuit(target, opts), 2 if quick else 5)
         out.append(seconds_figure(f"part search E96/E12, {label}", times, 0.5, "design_circuit"))

@@ -70,8 +70,9 @@ def timed(fn: Callable[[], object]) -> float:
     return time.perf_counter() - start
 
 
-def interleaved(reference: Callable[[], object], subject: Callable[[], object], pairs: int,
-                *, warmup: bool = True) -> Pairs:
+def interleaved(
+    reference: Callable[[], object], subject: Callable[[], object], pairs: int, *, warmup: bool = True
+) -> Pairs:
     """Run ``reference`` and ``subject`` alternately ``pairs`` times; per-pair ratios."""
     if warmup:
         reference(), subject()
@@ -92,16 +93,20 @@ def repeated(fn: Callable[[], object], runs: int, *, warmup: bool = True) -> lis
     return [timed(fn) for _ in range(runs)]
 
 
-def seconds_figure(name: str, times: Sequence[float], target_s: float, what: str,
-                   notes: Sequence[str] = ()) -> Figure:
+def seconds_figure(name: str, times: Sequence[float], target_s: float, what: str, notes: Sequence[str] = ()) -> Figure:
     """A figure against a fixed-seconds target (no timed reference): the ratio is the median of
     ``times`` over ``target_s``, the spread the shortest and longest run over ``target_s``; the
     target is then 1."""
     med = statistics.median(times)
-    return Figure(name=name, ratio=med / target_s, target=1.0,
-                  spread=(min(times) / target_s, max(times) / target_s), notes=tuple(notes),
-                  detail=f"{what} {_seconds(med)} (median of {len(times)} runs), as a ratio to the fixed "
-                         f"target of {_seconds(target_s)}")
+    return Figure(
+        name=name,
+        ratio=med / target_s,
+        target=1.0,
+        spread=(min(times) / target_s, max(times) / target_s),
+        notes=tuple(notes),
+        detail=f"{what} {_seconds(med)} (median of {len(times)} runs), as a ratio to the fixed "
+        f"target of {_seconds(target_s)}",
+    )
 
 
 def _seconds(s: float) -> str:
@@ -151,8 +156,13 @@ def peak_rss(argv: Sequence[str], cap_bytes: int = 4 * 2**30) -> tuple[float, in
     of error output."""
     import json
 
-    proc = subprocess.run([sys.executable, "-c", _LAUNCHER, str(cap_bytes), *argv], capture_output=True, text=True,
-                          env=python_env(), check=True)
+    proc = subprocess.run(
+        [sys.executable, "-c", _LAUNCHER, str(cap_bytes), *argv],
+        capture_output=True,
+        text=True,
+        env=python_env(),
+        check=True,
+    )
     kb, code, last = json.loads(proc.stdout.strip().splitlines()[-1])
     return kb / 1024, code, last
 
@@ -166,9 +176,14 @@ def loopshift(*args: str) -> list[str]:
 
 
 def figure_from_pairs(name: str, pairs: Pairs, target: float, what: str, reference: str) -> Figure:
-    return Figure(name=name, ratio=pairs.median, target=target, spread=pairs.spread,
-                  detail=f"{what} {pairs.subject_s * 1e3:.1f} ms vs {reference} {pairs.reference_s * 1e3:.1f} ms "
-                         f"(medians of {len(pairs.ratios)} interleaved pairs)")
+    return Figure(
+        name=name,
+        ratio=pairs.median,
+        target=target,
+        spread=pairs.spread,
+        detail=f"{what} {pairs.subject_s * 1e3:.1f} ms vs {reference} {pairs.reference_s * 1e3:.1f} ms "
+        f"(medians of {len(pairs.ratios)} interleaved pairs)",
+    )
 
 
 def print_figures(figures: Sequence[Figure], file=None) -> None:
@@ -177,14 +192,22 @@ def print_figures(figures: Sequence[Figure], file=None) -> None:
     for f in figures:
         target = f"≥ {f.target:g}" if f.at_least else f"≤ {f.target:g}"
         spread = f" [{f.spread[0]:.2f}–{f.spread[1]:.2f}]" if f.spread else ""
-        print(f"{f.name:<{width}}  {f.ratio:7.3f}{spread:<14} target {target:<6} "
-              f"{'meets' if f.meets else 'MISSES'}  {f.detail}", file=file)
+        print(
+            f"{f.name:<{width}}  {f.ratio:7.3f}{spread:<14} target {target:<6} "
+            f"{'meets' if f.meets else 'MISSES'}  {f.detail}",
+            file=file,
+        )
         for n in f.notes:
             print(f"{'':<{width}}  note: {n}", file=file)
 
 
-def run_script(measure: Callable[..., list[Figure]], argv: Sequence[str] | None = None, *,
-               options: dict[str, dict] | None = None, doc: str | None = None) -> int:
+def run_script(
+    measure: Callable[..., list[Figure]],
+    argv: Sequence[str] | None = None,
+    *,
+    options: dict[str, dict] | None = None,
+    doc: str | None = None,
+) -> int:
     """``main`` for a bench module run as a script: ``--quick``, ``--json``; exit 1 on a miss.
     ``options``: extra ``--name -> add_argument keywords``, passed to ``measure`` by name."""
     import argparse

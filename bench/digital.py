@@ -49,11 +49,15 @@ def measure(quick: bool = False) -> list[Figure]:
                     control.sample_system(tf, 1 / FS, method=m)
 
     survey = interleaved(theirs, ours, 10 if quick else 60)
-    command = interleaved(process(python("-c", "import control")),
-                          process(loopshift("digital", EXPR, "--fs", "1kHz", "--method", "all")), 3 if quick else 7)
+    command = interleaved(
+        process(python("-c", "import control")),
+        process(loopshift("digital", EXPR, "--fs", "1kHz", "--method", "all")),
+        3 if quick else 7,
+    )
     return [
-        figure_from_pairs("digital survey, 7 methods (in-process)", survey, 1.0, "survey_methods",
-                          "python-control sample_system x7"),
+        figure_from_pairs(
+            "digital survey, 7 methods (in-process)", survey, 1.0, "survey_methods", "python-control sample_system x7"
+        ),
         figure_from_pairs("digital --method all (command)", command, 1.5, "loopshift digital", "import control"),
     ]
 

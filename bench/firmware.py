@@ -41,8 +41,9 @@ def measure(quick: bool = False) -> list[Figure]:
     layout = build_layout("sections", real.roots)
     x = 0.3 * np.sin(np.arange(100_000) * 0.003) + 0.01 * np.random.default_rng(1).normal(size=100_000)
     out = []
-    sos = np.array([np.concatenate([np.pad(s.b, (0, 3 - len(s.b))), np.pad(s.a, (0, 3 - len(s.a)))])
-                    for s in layout.sections])
+    sos = np.array(
+        [np.concatenate([np.pad(s.b, (0, 3 - len(s.b))), np.pad(s.a, (0, 3 - len(s.a)))]) for s in layout.sections]
+    )
 
     def plain_loop():  # machine speed: 3e5 Python multiply-adds (one per section and sample)
         acc = 0
@@ -61,12 +62,19 @@ def measure(quick: bool = False) -> list[Figure]:
         times = repeated(run, 2 if quick else 5)
         vs_sos = interleaved(lambda: sosfilt(sos, x), run, 2 if quick else 5, warmup=False)
         vs_loop = interleaved(plain_loop, run, 1 if quick else 3, warmup=False)
-        out.append(seconds_figure(
-            f"firmware: {fmt} bit-true model, 1e5 samples", times, 0.2,
-            f"{len(layout.sections)} sections, run_int",
-            notes=(f"{vs_sos.median:.1f}x scipy sosfilt in float64 ({vs_sos.reference_s * 1e3:.2f} ms); "
-                   f"{vs_loop.median:.2f}x 3e5 plain Python multiply-adds ({vs_loop.reference_s * 1e3:.0f} ms) "
-                   "(interleaved pairs)",)))
+        out.append(
+            seconds_figure(
+                f"firmware: {fmt} bit-true model, 1e5 samples",
+                times,
+                0.2,
+                f"{len(layout.sections)} sections, run_int",
+                notes=(
+                    f"{vs_sos.median:.1f}x scipy sosfilt in float64 ({vs_sos.reference_s * 1e3:.2f} ms); "
+                    f"{vs_loop.median:.2f}x 3e5 plain Python multiply-adds ({vs_loop.reference_s * 1e3:.0f} ms) "
+                    "(interleaved pairs)",
+                ),
+            )
+        )
     band = log_grid(0.05, FS / 2 * 0.9, 100)
 
     def everything():
@@ -79,8 +87,14 @@ def measure(quick: bool = False) -> list[Figure]:
                 if not a.realized.word.is_fixed:
                     emit_st(a.realized, "ctl", source="bench", method="tustin")
 
-    out.append(seconds_figure("firmware: analysis and code, every structure x word format",
-                              repeated(everything, 2 if quick else 5), 0.5, "analyze_all + emit_c/emit_st"))
+    out.append(
+        seconds_figure(
+            "firmware: analysis and code, every structure x word format",
+            repeated(everything, 2 if quick else 5),
+            0.5,
+            "analyze_all + emit_c/emit_st",
+        )
+    )
     return out
 
 

@@ -42,8 +42,10 @@ def main(recording: str, out_dir: str) -> int:
     html = ["<!doctype html><html><head><meta charset='utf-8'><title>floor</title></head><body>"]
     for name, png in parts:
         (out / "figures" / name).write_bytes(png)
-        html.append(f'<figure><img alt="{name}" src="data:image/png;base64,{base64.b64encode(png).decode()}">'
-                    f"<figcaption>{name}</figcaption></figure>")
+        html.append(
+            f'<figure><img alt="{name}" src="data:image/png;base64,{base64.b64encode(png).decode()}">'
+            f"<figcaption>{name}</figcaption></figure>"
+        )
     html.append("</body></html>")
     (out / "floor.html").write_text("\n".join(html), encoding="utf-8")
     if any(m == "convert" or m.startswith("convert.") for m in sys.modules):

@@ -76,12 +76,11 @@ def measure(quick: bool = False) -> list[Figure]:
     samples = int(round(DURATION * FS))
 
     def ours():
-        return simulate_loop(cd, plant, THETA, duration_s=DURATION - t, delay_s=t, output_limits=LIMITS,
-                             sub_step_s=t)
+        return simulate_loop(cd, plant, THETA, duration_s=DURATION - t, delay_s=t, output_limits=LIMITS, sub_step_s=t)
 
     z = control.tf([1, 0], [1], t)
     n = int(round((THETA + t) / t))
-    closed = control.feedback(cd.to_control() * (1 / z ** n) * control.sample_system(plant.to_control(), t), 1)
+    closed = control.feedback(cd.to_control() * (1 / z**n) * control.sample_system(plant.to_control(), t), 1)
     tk = np.arange(samples) * t
 
     def linear_ref():
@@ -100,12 +99,20 @@ def measure(quick: bool = False) -> list[Figure]:
     times = repeated(ours, 5 if quick else 21)
     loop = interleaved(loop_ref, ours, 1 if quick else 3, warmup=False)
     lin = interleaved(linear_ref, ours, 3 if quick else 9)
-    return [seconds_figure(
-        f"loop simulation, {samples} steps with a clamp", times, 0.010, "simulate_loop",
-        notes=(f"vs a plain-Python step loop ({loop.reference_s * 1e3:.0f} ms): ratio {loop.median:.3f} "
-               f"(interleaved pairs), same response within {diff:.1e} of the step",
-               f"vs python-control forced_response, linear, no clamp ({lin.reference_s * 1e3:.1f} ms): "
-               f"ratio {lin.median:.2f} [{lin.spread[0]:.2f}-{lin.spread[1]:.2f}]"))]
+    return [
+        seconds_figure(
+            f"loop simulation, {samples} steps with a clamp",
+            times,
+            0.010,
+            "simulate_loop",
+            notes=(
+                f"vs a plain-Python step loop ({loop.reference_s * 1e3:.0f} ms): ratio {loop.median:.3f} "
+                f"(interleaved pairs), same response within {diff:.1e} of the step",
+                f"vs python-control forced_response, linear, no clamp ({lin.reference_s * 1e3:.1f} ms): "
+                f"ratio {lin.median:.2f} [{lin.spread[0]:.2f}-{lin.spread[1]:.2f}]",
+            ),
+        )
+    ]
 
 
 if __name__ == "__main__":

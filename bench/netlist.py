@@ -90,11 +90,16 @@ def measure(quick: bool = False) -> list[Figure]:
     analysis = analyze_card(netlist)
     full = time.perf_counter() - t0
     read = seconds_figure(
-        f"netlist: {nodes}-node card read + solve", times, TARGET_S,
+        f"netlist: {nodes}-node card read + solve",
+        times,
+        TARGET_S,
         f"read_netlist + transfer_function ({caps} capacitors, {amps} op-amps, {len(netlist.elements)} elements, "
         f"order {controller.order})",
-        notes=(f"full card analysis with sensitivities of {len(analysis.sensitivities)} parts: "
-               f"{full * 1e3:.0f} ms (no target)",))
+        notes=(
+            f"full card analysis with sensitivities of {len(analysis.sensitivities)} parts: "
+            f"{full * 1e3:.0f} ms (no target)",
+        ),
+    )
     return [read, sensitivity_table(netlist, 1 if quick else 3)]
 
 
@@ -113,13 +118,24 @@ def sensitivity_table(netlist, pairs: int) -> Figure:
     same_rows = [(r.part, list(r.effects)) for r in fast] == [(r.part, list(r.effects)) for r in ref]
     diff = max((abs(a.effects[k] - b.effects[k]) for a, b in zip(fast, ref) for k in b.effects), default=0.0)
     if not same_rows or diff > 1e-6:
-        raise RuntimeError(f"netlist: the sensitivity tables differ (same rows: {same_rows}, largest difference {diff:.2g})")
-    p = interleaved(lambda: sensitivities(netlist, evaluate, method="update"),
-                    lambda: sensitivities(netlist, evaluate, method="resolve"), pairs, warmup=False)
-    return Figure(f"netlist: sensitivity table by update ({len(ref)} parts)", p.median, 5.0, at_least=True,
-                  spread=p.spread,
-                  detail=f"speed-up: re-solve {p.subject_s * 1e3:.0f} ms / update {p.reference_s * 1e3:.0f} ms "
-                         f"(medians of {pairs} interleaved pairs); tables agree within {diff:.1g} % per %")
+        raise RuntimeError(
+            f"netlist: the sensitivity tables differ (same rows: {same_rows}, largest difference {diff:.2g})"
+        )
+    p = interleaved(
+        lambda: sensitivities(netlist, evaluate, method="update"),
+        lambda: sensitivities(netlist, evaluate, method="resolve"),
+        pairs,
+        warmup=False,
+    )
+    return Figure(
+        f"netlist: sensitivity table by update ({len(ref)} parts)",
+        p.median,
+        5.0,
+        at_least=True,
+        spread=p.spread,
+        detail=f"speed-up: re-solve {p.subject_s * 1e3:.0f} ms / update {p.reference_s * 1e3:.0f} ms "
+        f"(medians of {pairs} interleaved pairs); tables agree within {diff:.1g} % per %",
+    )
 
 
 if __name__ == "__main__":

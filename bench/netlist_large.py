@@ -31,12 +31,20 @@ def measure(quick: bool = False) -> list[Figure]:
 
     text = (ROOT / "tests" / "netlists_large" / "ladder500.cir").read_text()
     controllers = []
-    times = repeated(lambda: controllers.append(mna.transfer_function(read_netlist(text, "ladder500.cir"),
-                                                                      "VIN", "out")),
-                     2 if quick else 5, warmup=False)
+    times = repeated(
+        lambda: controllers.append(mna.transfer_function(read_netlist(text, "ladder500.cir"), "VIN", "out")),
+        2 if quick else 5,
+        warmup=False,
+    )
     if quick:  # the dense solve takes tens of seconds and about 400 MB: only in the full run
-        return [seconds_figure("netlist: 500-node ladder read + solve", times, TARGET_S,
-                               f"read_netlist + transfer_function (degree {len(controllers[0].den) - 1})")]
+        return [
+            seconds_figure(
+                "netlist: 500-node ladder read + solve",
+                times,
+                TARGET_S,
+                f"read_netlist + transfer_function (degree {len(controllers[0].den) - 1})",
+            )
+        ]
     netlist = read_netlist(text, "ladder500.cir")
     system = mna.build_system(netlist, ("VIN",), "out")
     G, C, rhs = mna._equilibrate(system)
@@ -45,11 +53,18 @@ def measure(quick: bool = False) -> list[Figure]:
     Y = G[None, :, :] + points[:, None, None] * C[None, :, :]
     np.linalg.solve(Y, np.broadcast_to(rhs["VIN"][:, None], (len(points), G.shape[0], 1)))
     dense = time.perf_counter() - t0
-    return [seconds_figure(
-        "netlist: 500-node ladder read + solve", times, TARGET_S,
-        f"read_netlist + transfer_function ({G.shape[0]} unknowns, degree {len(controllers[0].den) - 1})",
-        notes=(f"the dense batched solve alone at the same {len(points)} sample points: {dense:.3f} s and "
-               f"{Y.nbytes / 2**20:.0f} MB for the matrices (the path used before)",))]
+    return [
+        seconds_figure(
+            "netlist: 500-node ladder read + solve",
+            times,
+            TARGET_S,
+            f"read_netlist + transfer_function ({G.shape[0]} unknowns, degree {len(controllers[0].den) - 1})",
+            notes=(
+                f"the dense batched solve alone at the same {len(points)} sample points: {dense:.3f} s and "
+                f"{Y.nbytes / 2**20:.0f} MB for the matrices (the path used before)",
+            ),
+        )
+    ]
 
 
 if __name__ == "__main__":

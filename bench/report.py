@@ -28,8 +28,18 @@ from pathlib import Path
 if __package__ in (None, ""):
     sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
-from bench.common import (ROOT, Figure, figure_from_pairs, interleaved, loopshift, peak_rss, process, python,
-                          python_env, run_script)
+from bench.common import (
+    ROOT,
+    Figure,
+    figure_from_pairs,
+    interleaved,
+    loopshift,
+    peak_rss,
+    process,
+    python,
+    python_env,
+    run_script,
+)
 
 CIRCUIT_CASE = "firmware_pid_to_opamp"
 CAP_BYTES = 4 * 2**30
@@ -96,31 +106,61 @@ def measure(quick: bool = False) -> list[Figure]:
                 folder = Path(tmp) / f"{case.stem}-{draws or 'own'}"
                 folder.mkdir()
                 recording, names = record(case, draws, folder)
-                report = process(loopshift("report", str(case), "--out", str(folder / "report"), "--force",
-                                           *(["--draws", str(draws)] if draws else [])), ok_codes=(0, 1))
+                report = process(
+                    loopshift(
+                        "report",
+                        str(case),
+                        "--out",
+                        str(folder / "report"),
+                        "--force",
+                        *(["--draws", str(draws)] if draws else []),
+                    ),
+                    ok_codes=(0, 1),
+                )
                 floor = process(python(str(ROOT / "bench" / "floor.py"), str(recording), str(folder / "floor")))
                 p = interleaved(floor, report, pairs)
                 differ = unmatched(folder / "report", folder / "floor")
                 label = f"--draws {draws}" if draws else "own draws"
-                out.append(figure_from_pairs(
-                    f"report vs its floor: {case.stem}, {label}", p, 1.6 if draws else 1.3,
-                    f"loopshift report ({len(names)} figures)", "floor (imports + same figures)"))
+                out.append(
+                    figure_from_pairs(
+                        f"report vs its floor: {case.stem}, {label}",
+                        p,
+                        1.6 if draws else 1.3,
+                        f"loopshift report ({len(names)} figures)",
+                        "floor (imports + same figures)",
+                    )
+                )
                 if differ:
-                    out[-1] = replace(out[-1], notes=(
-                        f"not byte-identical in the floor (drawn from the same figure object): {', '.join(differ)}",))
+                    out[-1] = replace(
+                        out[-1],
+                        notes=(
+                            f"not byte-identical in the floor (drawn from the same figure object): {', '.join(differ)}",
+                        ),
+                    )
                 if not any(n.startswith("montecarlo") for n in names):
                     break  # no Monte Carlo figure: the draws change nothing here
         case = ROOT / "cases" / f"{CIRCUIT_CASE}.toml"
         for draws, limit_mb in ((100_000, 500.0), *(() if quick else ((1_000_000, 1024.0),))):
-            mb, code, last = peak_rss(loopshift("report", str(case), "--out", str(Path(tmp) / f"mem{draws}"),
-                                                       "--force", "--draws", str(draws)))
+            mb, code, last = peak_rss(
+                loopshift(
+                    "report", str(case), "--out", str(Path(tmp) / f"mem{draws}"), "--force", "--draws", str(draws)
+                )
+            )
             finished = code in (0, 1)
             ratio = mb / limit_mb if finished else max(mb, CAP_BYTES / 2**20) / limit_mb
-            out.append(Figure(
-                f"report peak memory: {CIRCUIT_CASE}, --draws {draws}", ratio, 1.0,
-                detail=(f"peak resident {mb:.0f} MB as a ratio to the {limit_mb:.0f} MB limit" if finished else
-                        f"did not finish under the {CAP_BYTES / 2**30:.0f} GB address-space cap ({last[:120]}); "
-                        f"shown as at least the cap over the {limit_mb:.0f} MB limit")))
+            out.append(
+                Figure(
+                    f"report peak memory: {CIRCUIT_CASE}, --draws {draws}",
+                    ratio,
+                    1.0,
+                    detail=(
+                        f"peak resident {mb:.0f} MB as a ratio to the {limit_mb:.0f} MB limit"
+                        if finished
+                        else f"did not finish under the {CAP_BYTES / 2**30:.0f} GB address-space cap ({last[:120]}); "
+                        f"shown as at least the cap over the {limit_mb:.0f} MB limit"
+                    ),
+                )
+            )
     return out
 
 

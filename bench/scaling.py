@@ -63,10 +63,16 @@ def draws_rows(tmp: Path, quick: bool) -> list[Row]:
     rows = []
     for n in (500, 2000, 10_000) if quick else (500, 2000, 10_000, 30_000):
         t0 = time.perf_counter()
-        mb, code, last = peak_rss(loopshift("report", str(case), "--out", str(tmp / f"d{n}"), "--force",
-                                                   "--draws", str(n)))
-        rows.append((f"{n:,} draws", time.perf_counter() - t0,
-                     f"peak {mb:.0f} MB" + ("" if code in (0, 1) else f"; did not finish: {last[:80]}")))
+        mb, code, last = peak_rss(
+            loopshift("report", str(case), "--out", str(tmp / f"d{n}"), "--force", "--draws", str(n))
+        )
+        rows.append(
+            (
+                f"{n:,} draws",
+                time.perf_counter() - t0,
+                f"peak {mb:.0f} MB" + ("" if code in (0, 1) else f"; did not finish: {last[:80]}"),
+            )
+        )
     return rows
 
 
@@ -80,7 +86,7 @@ def frequency_rows(quick: bool) -> list[Row]:
     rows = []
     for n in (100, 400, 1600):
         f = np.logspace(-2, 3, n)
-        times = repeated(lambda: engine(topo, f, 10_000), 1 if quick else 3)
+        times = repeated(lambda: engine(topo, f, 10_000), 1 if quick else 3)  # noqa: B023
         rows.append((f"{n} frequencies", statistics.median(times), "10,000 draws"))
     return rows
 
@@ -91,11 +97,13 @@ def rates_methods_rows(tmp: Path, quick: bool) -> list[Row]:
     text = (ROOT / "cases" / "pi_card_to_firmware.toml").read_text(encoding="utf-8")
     rows = []
     for rates, methods in ((1, 1), (2, 2), (4, 7)) if quick else ((1, 1), (2, 2), (4, 4), (4, 7)):
-        fs = ", ".join(f'"{5 * 2 ** k} Hz"' for k in range(rates))
+        fs = ", ".join(f'"{5 * 2**k} Hz"' for k in range(rates))
         ms = ", ".join(f'"{m}"' for m in METHODS[:methods])
         case = tmp / f"rm{rates}x{methods}.toml"
-        case.write_text(re.sub(r'methods = \[[^\]]*\]', f"methods = [{ms}]",
-                               text.replace('fs = "10 Hz"', f"fs = [{fs}]")), encoding="utf-8")
+        case.write_text(
+            re.sub(r"methods = \[[^\]]*\]", f"methods = [{ms}]", text.replace('fs = "10 Hz"', f"fs = [{fs}]")),
+            encoding="utf-8",
+        )
         run = process(loopshift("report", str(case), "--out", str(tmp / case.stem), "--force"), ok_codes=(0, 1))
         times = repeated(run, 1, warmup=False)
         rows.append((f"{rates} × {methods}", times[0], f"{rates * methods} digital form(s)"))
@@ -110,8 +118,11 @@ def netlist_rows(quick: bool) -> list[Row]:
     rows = []
     for n in (100, 250, 500, 1000) if quick else (100, 250, 500, 1000, 1900):
         text = ladder(n)
-        times = repeated(lambda: transfer_function(read_netlist(text, "ladder.cir"), "VIN", "out"),
-                         1 if quick else 3, warmup=False)
+        times = repeated(
+            lambda: transfer_function(read_netlist(text, "ladder.cir"), "VIN", "out"),  # noqa: B023 (called at once)
+            1 if quick else 3,
+            warmup=False,
+        )
         rows.append((f"{n} nodes", statistics.median(times), ""))
     return rows
 
@@ -125,8 +136,13 @@ def batch_rows(tmp: Path, quick: bool) -> list[Row]:
         folder.mkdir()
         make_cases(folder, n)
         for workers in (1, 2):
-            rows.append((f"{n} cases, {workers} worker{'s' if workers > 1 else ''}",
-                         run_batch(folder, tmp / f"b{n}-out{workers}", workers), ""))
+            rows.append(
+                (
+                    f"{n} cases, {workers} worker{'s' if workers > 1 else ''}",
+                    run_batch(folder, tmp / f"b{n}-out{workers}", workers),
+                    "",
+                )
+            )
     return rows
 
 
@@ -134,11 +150,13 @@ def measure_points(quick: bool = False) -> dict[str, list[Row]]:
     out = {}
     with tempfile.TemporaryDirectory() as tmp:
         tmp = Path(tmp)
-        for title, fn in (("draws (report, firmware_pid_to_opamp)", lambda: draws_rows(tmp, quick)),
-                          ("frequency points (tolerance engine, in-process)", lambda: frequency_rows(quick)),
-                          ("rates × methods (report, tank-level case)", lambda: rates_methods_rows(tmp, quick)),
-                          ("netlist size (read + solve, in-process)", lambda: netlist_rows(quick)),
-                          ("cases and workers (batch)", lambda: batch_rows(tmp, quick))):
+        for title, fn in (
+            ("draws (report, firmware_pid_to_opamp)", lambda: draws_rows(tmp, quick)),
+            ("frequency points (tolerance engine, in-process)", lambda: frequency_rows(quick)),
+            ("rates × methods (report, tank-level case)", lambda: rates_methods_rows(tmp, quick)),
+            ("netlist size (read + solve, in-process)", lambda: netlist_rows(quick)),
+            ("cases and workers (batch)", lambda: batch_rows(tmp, quick)),
+        ):
             t0 = time.perf_counter()
             out[title] = fn()
             print(f"# scaling: {title} ({time.perf_counter() - t0:.0f} s)", file=sys.stderr)
@@ -147,8 +165,13 @@ def measure_points(quick: bool = False) -> dict[str, list[Row]]:
 
 
 def markdown(points: dict[str, list[Row]], quick: bool) -> str:
-    lines = [DOCS_BEGIN, "", f"Measured {time.strftime('%Y-%m-%d')} with `python bench/scaling.py"
-             f"{' --quick' if quick else ''}` (one run per point unless stated; the machine was shared).", ""]
+    lines = [
+        DOCS_BEGIN,
+        "",
+        f"Measured {time.strftime('%Y-%m-%d')} with `python bench/scaling.py"
+        f"{' --quick' if quick else ''}` (one run per point unless stated; the machine was shared).",
+        "",
+    ]
     for title, rows in points.items():
         lines += [f"**{title}**", "", "| point | seconds | × the first point | note |", "|---|---|---|---|"]
         first = rows[0][1]

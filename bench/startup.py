@@ -25,9 +25,10 @@ def measure(quick: bool = False) -> list[Figure]:
     pairs = 3 if quick else 9
     reference = process(python("-c", "import control"))
     out = []
-    for name, argv in (("start-up: loopshift --help", loopshift("--help")),
-                       ("start-up: loopshift show --pid", loopshift("show", "--pid", "kc=2", "ti=30s", "td=5s",
-                                                                     "n=10"))):
+    for name, argv in (
+        ("start-up: loopshift --help", loopshift("--help")),
+        ("start-up: loopshift show --pid", loopshift("show", "--pid", "kc=2", "ti=30s", "td=5s", "n=10")),
+    ):
         p = interleaved(reference, process(argv), pairs)
         out.append(figure_from_pairs(name, p, TARGET, name.split(": ", 1)[1], "import control"))
     return out

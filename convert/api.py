@@ -13,10 +13,17 @@ from __future__ import annotations
 from pathlib import Path
 
 
-def read_card(netlist: str | Path, *, input: str = "VIN", output: str = "out",  # noqa: A002
-              setpoint: str | None = None, measurement: str | None = None,
-              sensitivities: bool = False, band_hz: tuple[float, float] | None = None,
-              fs_hz: float | None = None):
+def read_card(
+    netlist: str | Path,
+    *,
+    input: str = "VIN",
+    output: str = "out",  # noqa: A002
+    setpoint: str | None = None,
+    measurement: str | None = None,
+    sensitivities: bool = False,
+    band_hz: tuple[float, float] | None = None,
+    fs_hz: float | None = None,
+):
     """Read the controller an op-amp card implements from its SPICE netlist.
 
     Parameters
@@ -64,8 +71,16 @@ def read_card(netlist: str | Path, *, input: str = "VIN", output: str = "out",  
         parsed = read_netlist(netlist, source="netlist")
     else:
         parsed = read_netlist_file(str(netlist))
-    return analyze_card(parsed, input=input, output=output, setpoint=setpoint, measurement=measurement,
-                        with_sensitivities=sensitivities, band_hz=band_hz, fs_hz=fs_hz)
+    return analyze_card(
+        parsed,
+        input=input,
+        output=output,
+        setpoint=setpoint,
+        measurement=measurement,
+        with_sensitivities=sensitivities,
+        band_hz=band_hz,
+        fs_hz=fs_hz,
+    )
 
 
 def evaluate(case, *, draws: int | None = None):

@@ -42,13 +42,31 @@ SCHEMA: dict[str, Any] = {
     },
     "target": {
         "digital": {
-            "fs": 1, "methods": 1, "prewarp": 1, "delay": 1, "delay_samples": 1, "output_limits": 1,
-            "derivative_filter": 1, "word_format": 1, "structure": 1, "input_range": 1, "input_resolution": 1,
-            "code_name": 1, "code_languages": 1,
+            "fs": 1,
+            "methods": 1,
+            "prewarp": 1,
+            "delay": 1,
+            "delay_samples": 1,
+            "output_limits": 1,
+            "derivative_filter": 1,
+            "word_format": 1,
+            "structure": 1,
+            "input_range": 1,
+            "input_resolution": 1,
+            "code_name": 1,
+            "code_languages": 1,
         },
         "circuit": {
-            "topology": 1, "resistors": 1, "capacitors": 1, "tolerances": None, "resistor_range": 1,
-            "capacitor_range": 1, "draws": 1, "seed": 1, "distribution": 1, "opamp_gbw": 1,
+            "topology": 1,
+            "resistors": 1,
+            "capacitors": 1,
+            "tolerances": None,
+            "resistor_range": 1,
+            "capacitor_range": 1,
+            "draws": 1,
+            "seed": 1,
+            "distribution": 1,
+            "opamp_gbw": 1,
         },
         "given": None,  # forms that exist, one table per name: checked by convert.given
     },
@@ -56,8 +74,13 @@ SCHEMA: dict[str, Any] = {
     "evidence": None,  # [evidence.sweep] / [evidence.log]: checked by convert.evidence.casefile
     "signals": {"setpoint_step": 1, "disturbance_step": 1, "duration": 1, "output_range": 1},
     "criteria": {
-        "band": 1, "max_gain_error_db": 1, "max_phase_error_deg": 1, "max_phase_margin_change_deg": 1,
-        "max_gain_margin_change_db": 1, "max_sensitivity_peak_change_db": 1, "max_step_deviation": 1,
+        "band": 1,
+        "max_gain_error_db": 1,
+        "max_phase_error_deg": 1,
+        "max_phase_margin_change_deg": 1,
+        "max_gain_margin_change_db": 1,
+        "max_sensitivity_peak_change_db": 1,
+        "max_step_deviation": 1,
         "max_disturbance_deviation": 1,
     },
 }
@@ -197,7 +220,9 @@ class Case:
 
 # ----------------------------------------------------------------------------- line finder
 _HEADER_RE = re.compile(r"^\s*(\[\[?)\s*([^\]]+?)\s*\]\]?\s*(#.*)?$")
-_KEY_RE = re.compile(r"""^\s*((?:[A-Za-z0-9_\-]+|"[^"]*"|'[^']*')(?:\s*\.\s*(?:[A-Za-z0-9_\-]+|"[^"]*"|'[^']*'))*)\s*=""")
+_KEY_RE = re.compile(
+    r"""^\s*((?:[A-Za-z0-9_\-]+|"[^"]*"|'[^']*')(?:\s*\.\s*(?:[A-Za-z0-9_\-]+|"[^"]*"|'[^']*'))*)\s*="""
+)
 _INLINE_KEY_RE = re.compile(r"""[{,]\s*([A-Za-z0-9_\-]+|"[^"]*"|'[^']*')\s*=""")
 
 
@@ -235,7 +260,7 @@ def key_lines(text: str) -> dict[str, int]:
         lines.setdefault(key, number)
         for i in range(1, len(path)):
             lines.setdefault(".".join(path[:i]), number)
-        rest = line[m.end():]
+        rest = line[m.end() :]
         for inner in _INLINE_KEY_RE.finditer(rest):
             name = inner.group(1).strip("\"'")
             lines.setdefault(f"{key}.{name}", number)
@@ -274,8 +299,7 @@ class _Ctx:
         return InputError(message, where=self.where(key), key=key)
 
     # -- typed readers -------------------------------------------------------------
-    def value(self, table: dict, key: str, dotted: str, kind: str, default=None, *, positive=False,
-              allow_zero=True):
+    def value(self, table: dict, key: str, dotted: str, kind: str, default=None, *, positive=False, allow_zero=True):
         from convert.values import parse_value
 
         if key not in table:
@@ -388,8 +412,11 @@ def parse_case(text: str, path: str | Path = "case.toml") -> Case:
     try:
         data = tomllib.loads(text)
     except RecursionError:  # tomllib reads nested arrays and inline tables recursively
-        raise InputError("not valid TOML for a case file: values are nested too deeply (arrays or inline tables "
-                         "inside each other hundreds of times)", where=path.name) from None
+        raise InputError(
+            "not valid TOML for a case file: values are nested too deeply (arrays or inline tables "
+            "inside each other hundreds of times)",
+            where=path.name,
+        ) from None
     except tomllib.TOMLDecodeError as exc:
         message = str(exc)
         m = re.search(r"\(at line (\d+), column (\d+)\)", message)
@@ -441,16 +468,31 @@ def _case_from_data(data: dict, ctx: _Ctx) -> Case:
     from convert.evidence.casefile import read_evidence
 
     evidence = read_evidence(ctx, data, path.parent)
-    return Case(path=path, name=path.stem, title=title, description=description, source=source,
-                digital=digital, circuit=circuit, plant=plant, signals=signals, criteria=criteria,
-                lines=ctx.lines, given=given, evidence=evidence)
+    return Case(
+        path=path,
+        name=path.stem,
+        title=title,
+        description=description,
+        source=source,
+        digital=digital,
+        circuit=circuit,
+        plant=plant,
+        signals=signals,
+        criteria=criteria,
+        lines=ctx.lines,
+        given=given,
+        evidence=evidence,
+    )
 
 
 def _read_source(ctx: _Ctx, data: dict) -> Source:
     table = ctx.table(data, "source", "source")
     if table is None:
-        raise InputError("missing [source]: the controller that exists now (expression, pid, digital, card or "
-                         "netlist)", where=ctx.where(""), key="source")
+        raise InputError(
+            "missing [source]: the controller that exists now (expression, pid, digital, card or netlist)",
+            where=ctx.where(""),
+            key="source",
+        )
     ctx.check_keys(table, SCHEMA["source"], "source")
     given = [k for k in SOURCE_FORMS if k in table]
     if len(given) != 1:
@@ -465,13 +507,14 @@ def _read_source(ctx: _Ctx, data: dict) -> Source:
 
         controller = from_expression(text, label=f"{where}: {key}")
         if controller.is_digital:
-            raise ctx.error(key, "a source expression is in s; give a digital source as [source.digital] "
-                                 "with b, a and fs")
+            raise ctx.error(
+                key, "a source expression is in s; give a digital source as [source.digital] with b, a and fs"
+            )
         return Source(form, {"expression": text, "controller": controller}, where)
     if form == "pid":
         pid = ctx.table(table, "pid", key)
         if not pid:
-            raise ctx.error(key, "expected PID settings, e.g. pid = { kc = 2, ti = \"30 s\" }")
+            raise ctx.error(key, 'expected PID settings, e.g. pid = { kc = 2, ti = "30 s" }')
         return Source(form, {"settings": dict(pid)}, where)
     if form == "digital":
         dig = ctx.table(table, "digital", key)
@@ -480,17 +523,21 @@ def _read_source(ctx: _Ctx, data: dict) -> Source:
         for coef in ("b", "a"):
             raw = dig.get(coef)
             if not isinstance(raw, list) or not raw:
-                raise ctx.error(f"{key}.{coef}", f"expected a list of numbers (ascending powers of z^-1), found {excerpt(raw)}")
+                raise ctx.error(
+                    f"{key}.{coef}", f"expected a list of numbers (ascending powers of z^-1), found {excerpt(raw)}"
+                )
             if len(raw) > MAX_DEGREE + 1:
-                raise ctx.error(f"{key}.{coef}", f"{len(raw):,} coefficients; a controller here has at most "
-                                                 f"{MAX_DEGREE + 1} (degree {MAX_DEGREE})")
+                raise ctx.error(
+                    f"{key}.{coef}",
+                    f"{len(raw):,} coefficients; a controller here has at most {MAX_DEGREE + 1} (degree {MAX_DEGREE})",
+                )
             out[coef] = [ctx.value({"v": v}, "v", f"{key}.{coef}", "number") for v in raw]
         for coef in ("b", "a"):  # the digits as written, for the printed precision of the coefficients
             out[f"{coef}_text"] = [v if isinstance(v, str) else float(v) for v in dig[coef]]
         if out["a"][0] == 0:
             raise ctx.error(f"{key}.a", "a[0] must be non-zero (it multiplies the newest output)")
         if "fs" not in dig:
-            raise ctx.error(key, "missing fs: the sample rate of these coefficients, e.g. fs = \"1 kHz\"")
+            raise ctx.error(key, 'missing fs: the sample rate of these coefficients, e.g. fs = "1 kHz"')
         out["fs_hz"] = ctx.value(dig, "fs", f"{key}.fs", "hz", positive=True, allow_zero=False)
         out["method"] = ctx.text(dig, "method", f"{key}.method", default="tustin", choices=_method_names())
         return Source(form, out, where)
@@ -502,9 +549,9 @@ def _read_source(ctx: _Ctx, data: dict) -> Source:
             raise ctx.error(key, "missing topology: the card's stage topology (see `loopshift card --help`)")
         parts_raw = ctx.table(card, "parts", f"{key}.parts") or {}
         if not parts_raw:
-            raise ctx.error(key, "missing parts: e.g. parts = { R1 = \"47k\", C1 = \"1 uF\" }")
+            raise ctx.error(key, 'missing parts: e.g. parts = { R1 = "47k", C1 = "1 uF" }')
         parts = {}
-        for name, value in parts_raw.items():
+        for name, _value in parts_raw.items():
             kind = {"R": "ohm", "C": "farad", "L": "henry"}.get(name[:1].upper(), "number")
             parts[name] = ctx.value(parts_raw, name, f"{key}.parts.{name}", kind, positive=True, allow_zero=False)
         tols = _read_tolerances(ctx, card, f"{key}.tolerances", default={})
@@ -516,7 +563,7 @@ def _read_source(ctx: _Ctx, data: dict) -> Source:
     file_name = ctx.text(net, "file", f"{key}.file")
     if file_name is None:
         raise ctx.error(key, "missing file: the netlist's path, relative to the case file")
-    file_path = (ctx.path.parent / file_name)
+    file_path = ctx.path.parent / file_name
     if not file_path.is_file():
         from convert.limits import file_kind
 
@@ -562,17 +609,21 @@ def _refuse_repeats(ctx: _Ctx, dotted: str, raw: list, values: tuple, what: str)
     seen: dict = {}
     for written, value in zip(raw, values):
         if value in seen:
-            raise ctx.error(dotted, f"the {what} {excerpt(written, 30)} is given twice (as {excerpt(seen[value], 30)} "
-                                    "too); give each once")
+            raise ctx.error(
+                dotted,
+                f"the {what} {excerpt(written, 30)} is given twice (as {excerpt(seen[value], 30)} too); give each once",
+            )
         seen[value] = written
 
 
 def _read_targets(ctx: _Ctx, data: dict, source: Source):
     table = ctx.table(data, "target", "target")
     if not table:
-        raise InputError("missing [target.digital], [target.circuit] or [target.given.NAME]: the form(s) to produce "
-                         "or check",
-                         where=ctx.where(""), key="target")
+        raise InputError(
+            "missing [target.digital], [target.circuit] or [target.given.NAME]: the form(s) to produce or check",
+            where=ctx.where(""),
+            key="target",
+        )
     ctx.check_keys(table, SCHEMA["target"], "target")
     digital = circuit = None
     dig = ctx.table(table, "digital", "target.digital")
@@ -580,14 +631,17 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
         ctx.check_keys(dig, SCHEMA["target"]["digital"], "target.digital")
         key = "target.digital"
         if "fs" not in dig:
-            raise ctx.error(key, "missing fs: the sample rate(s), e.g. fs = \"1 kHz\" or fs = [\"500 Hz\", \"2 kHz\"]")
+            raise ctx.error(key, 'missing fs: the sample rate(s), e.g. fs = "1 kHz" or fs = ["500 Hz", "2 kHz"]')
         raw_fs = dig["fs"] if isinstance(dig["fs"], list) else [dig["fs"]]
         if not raw_fs:
             raise ctx.error(f"{key}.fs", "expected at least one sample rate")
         if len(raw_fs) > MAX_RATES:
-            raise ctx.error(f"{key}.fs", f"{len(raw_fs):,} sample rates; a case takes at most {MAX_RATES} (each is a "
-                                         "full realization with its own loop checks and figures): split the study "
-                                         "into several case files (loopshift batch runs them together)")
+            raise ctx.error(
+                f"{key}.fs",
+                f"{len(raw_fs):,} sample rates; a case takes at most {MAX_RATES} (each is a "
+                "full realization with its own loop checks and figures): split the study "
+                "into several case files (loopshift batch runs them together)",
+            )
         fs = tuple(ctx.value({"v": v}, "v", f"{key}.fs", "hz", positive=True, allow_zero=False) for v in raw_fs)
         _refuse_repeats(ctx, f"{key}.fs", raw_fs, fs, "sample rate")
         raw_methods = dig.get("methods", ["tustin"])
@@ -597,67 +651,103 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
             raise ctx.error(f"{key}.methods", f"expected a list of method names, found {excerpt(raw_methods)}")
         known = _method_names()
         if len(raw_methods) > len(known):
-            raise ctx.error(f"{key}.methods", f"{len(raw_methods):,} methods, but there are {len(known)} "
-                                              f"({', '.join(known)}): give each at most once")
+            raise ctx.error(
+                f"{key}.methods",
+                f"{len(raw_methods):,} methods, but there are {len(known)} "
+                f"({', '.join(known)}): give each at most once",
+            )
         methods = tuple(ctx.text({"v": m}, "v", f"{key}.methods", choices=known) for m in raw_methods)
         _refuse_repeats(ctx, f"{key}.methods", raw_methods, methods, "method")
         if len(fs) * len(methods) > MAX_RATE_METHOD_PAIRS:
-            raise ctx.error(f"{key}.methods", f"{len(fs)} sample rates x {len(methods)} methods = "
-                                              f"{len(fs) * len(methods)} realizations; a case takes at most "
-                                              f"{MAX_RATE_METHOD_PAIRS}: split the study into several case files "
-                                              "(loopshift batch runs them together)")
+            raise ctx.error(
+                f"{key}.methods",
+                f"{len(fs)} sample rates x {len(methods)} methods = "
+                f"{len(fs) * len(methods)} realizations; a case takes at most "
+                f"{MAX_RATE_METHOD_PAIRS}: split the study into several case files "
+                "(loopshift batch runs them together)",
+            )
         if "delay" in dig and "delay_samples" in dig:
             raise ctx.error(f"{key}.delay_samples", "give delay (seconds) or delay_samples, not both")
         delay_s, delay_samples = ctx.delay(dig, "delay", f"{key}.delay")
         if "delay_samples" in dig:
             delay_samples = ctx.value(dig, "delay_samples", f"{key}.delay_samples", "number", None, positive=True)
         limits = ctx.pair(dig, "output_limits", f"{key}.output_limits", "number")
-        n_filter = ctx.value(dig, "derivative_filter", f"{key}.derivative_filter", "number", None,
-                             positive=True, allow_zero=False)
+        n_filter = ctx.value(
+            dig, "derivative_filter", f"{key}.derivative_filter", "number", None, positive=True, allow_zero=False
+        )
         word = ctx.text(dig, "word_format", f"{key}.word_format", default="float64", choices=WORD_FORMATS)
         structure = ctx.text(dig, "structure", f"{key}.structure", default="direct1", choices=STRUCTURE_NAMES)
         structure = "direct1" if structure == "direct" else structure
         in_range = ctx.pair(dig, "input_range", f"{key}.input_range", "number")
         if in_range is not None and max(abs(in_range[0]), abs(in_range[1])) == 0:
             raise ctx.error(f"{key}.input_range", "expected a range with a nonzero end, e.g. [-10, 10]")
-        resolution = ctx.value(dig, "input_resolution", f"{key}.input_resolution", "number", None, positive=True,
-                               allow_zero=False)
+        resolution = ctx.value(
+            dig, "input_resolution", f"{key}.input_resolution", "number", None, positive=True, allow_zero=False
+        )
         code_name = ctx.text(dig, "code_name", f"{key}.code_name", default="controller")
         if not re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]{0,30}", code_name):
-            raise ctx.error(f"{key}.code_name", f"expected a C/ST identifier (letter or _, then letters, digits, _), "
-                            f"found {code_name!r}")
+            raise ctx.error(
+                f"{key}.code_name",
+                f"expected a C/ST identifier (letter or _, then letters, digits, _), found {code_name!r}",
+            )
         raw_langs = dig.get("code_languages", ["c"])
         if isinstance(raw_langs, str):
             raw_langs = [raw_langs]
         if not isinstance(raw_langs, list):
-            raise ctx.error(f"{key}.code_languages", f"expected a list such as [\"c\", \"st\"], found {raw_langs!r}")
-        langs = tuple(dict.fromkeys(ctx.text({"v": v}, "v", f"{key}.code_languages", choices=("c", "st"))
-                                    for v in raw_langs))
+            raise ctx.error(f"{key}.code_languages", f'expected a list such as ["c", "st"], found {raw_langs!r}')
+        langs = tuple(
+            dict.fromkeys(ctx.text({"v": v}, "v", f"{key}.code_languages", choices=("c", "st")) for v in raw_langs)
+        )
         if "st" in langs and word in ("q15", "q31"):
             raise ctx.error(f"{key}.code_languages", f"Structured Text is written in float64 or float32, not {word}")
         if word in ("q15", "q31"):
             if in_range is None:
-                raise ctx.error(f"{key}.input_range", f"word_format {word} needs input_range, the error's range in "
-                                "controller input units that scales the words, e.g. input_range = [-10, 10]")
+                raise ctx.error(
+                    f"{key}.input_range",
+                    f"word_format {word} needs input_range, the error's range in "
+                    "controller input units that scales the words, e.g. input_range = [-10, 10]",
+                )
             if structure not in ("direct1", "sections"):
-                raise ctx.error(f"{key}.structure", f"word_format {word} is offered with structure direct1 or "
-                                f"sections (direct form I words), found {structure!r}")
+                raise ctx.error(
+                    f"{key}.structure",
+                    f"word_format {word} is offered with structure direct1 or "
+                    f"sections (direct form I words), found {structure!r}",
+                )
         prewarp = ctx.value(dig, "prewarp", f"{key}.prewarp", "hz", None, positive=True, allow_zero=False)
         if prewarp is not None and prewarp >= min(fs) / 2:
-            raise ctx.error(f"{key}.prewarp", f"the prewarp frequency must be below fs/2 = {min(fs) / 2:.6g} Hz "
-                            f"(of the lowest rate), found {dig['prewarp']!r}")
-        digital = DigitalTarget(fs_hz=fs, methods=methods, prewarp_hz=prewarp,
-                                delay_s=delay_s, delay_samples=delay_samples, output_limits=limits,
-                                derivative_filter=n_filter, word_format=word, structure=structure,
-                                input_range=in_range, input_resolution=resolution, code_name=code_name,
-                                code_languages=langs, where=ctx.where(key))
+            raise ctx.error(
+                f"{key}.prewarp",
+                f"the prewarp frequency must be below fs/2 = {min(fs) / 2:.6g} Hz "
+                f"(of the lowest rate), found {dig['prewarp']!r}",
+            )
+        digital = DigitalTarget(
+            fs_hz=fs,
+            methods=methods,
+            prewarp_hz=prewarp,
+            delay_s=delay_s,
+            delay_samples=delay_samples,
+            output_limits=limits,
+            derivative_filter=n_filter,
+            word_format=word,
+            structure=structure,
+            input_range=in_range,
+            input_resolution=resolution,
+            code_name=code_name,
+            code_languages=langs,
+            where=ctx.where(key),
+        )
     cir = ctx.table(table, "circuit", "target.circuit")
     if cir is not None:
         key = "target.circuit"
         ctx.check_keys(cir, SCHEMA["target"]["circuit"], key)
         series = ("E6", "E12", "E24", "E48", "E96", "E192")
-        from convert.circuit.tolerance import (DEFAULT_DISTRIBUTION, DEFAULT_DRAWS, DISTRIBUTIONS, MAX_DRAWS,
-                                               draws_problem)
+        from convert.circuit.tolerance import (
+            DEFAULT_DISTRIBUTION,
+            DEFAULT_DRAWS,
+            DISTRIBUTIONS,
+            MAX_DRAWS,
+            draws_problem,
+        )
 
         draws = ctx.value(cir, "draws", f"{key}.draws", "number", float(DEFAULT_DRAWS), positive=True)
         seed = ctx.value(cir, "seed", f"{key}.seed", "number", 1.0, positive=True)
@@ -667,19 +757,25 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
         if draws_problem(int(draws)):
             raise ctx.error(f"{key}.draws", draws_problem(int(draws)))
         if draws > MAX_DRAWS:
-            raise ctx.error(f"{key}.draws", f"expected at most {MAX_DRAWS:,} Monte Carlo draws (the limit keeps a run "
-                                            f"within about 1 GB), found {excerpt(cir['draws'])}")
+            raise ctx.error(
+                f"{key}.draws",
+                f"expected at most {MAX_DRAWS:,} Monte Carlo draws (the limit keeps a run "
+                f"within about 1 GB), found {excerpt(cir['draws'])}",
+            )
         circuit = CircuitTarget(
             topology=ctx.text(cir, "topology", f"{key}.topology", default="auto"),
             resistors=ctx.text(cir, "resistors", f"{key}.resistors", default="E96", choices=series),
             capacitors=ctx.text(cir, "capacitors", f"{key}.capacitors", default="E12", choices=series),
             tolerances=_read_tolerances(ctx, cir, f"{key}.tolerances", default={"R": 0.01, "C": 0.05}),
             resistor_range=ctx.pair(cir, "resistor_range", f"{key}.resistor_range", "ohm", (1e3, 1e6), positive=True),
-            capacitor_range=ctx.pair(cir, "capacitor_range", f"{key}.capacitor_range", "farad", (100e-12, 10e-6),
-                                     positive=True),
-            draws=int(draws), seed=int(seed),
-            distribution=ctx.text(cir, "distribution", f"{key}.distribution", default=DEFAULT_DISTRIBUTION,
-                                  choices=DISTRIBUTIONS),
+            capacitor_range=ctx.pair(
+                cir, "capacitor_range", f"{key}.capacitor_range", "farad", (100e-12, 10e-6), positive=True
+            ),
+            draws=int(draws),
+            seed=int(seed),
+            distribution=ctx.text(
+                cir, "distribution", f"{key}.distribution", default=DEFAULT_DISTRIBUTION, choices=DISTRIBUTIONS
+            ),
             opamp_gbw_hz=ctx.value(cir, "opamp_gbw", f"{key}.opamp_gbw", "hz", None, positive=True, allow_zero=False),
             where=ctx.where(key),
         )
@@ -697,14 +793,16 @@ def _read_plant(ctx: _Ctx, data: dict) -> Plant | None:
     ctx.check_keys(table, SCHEMA["plant"], "plant")
     text = ctx.text(table, "model", "plant.model")
     if text is None:
-        raise ctx.error("plant", "missing model: the plant's transfer function in s, e.g. model = \"2/((10s+1)(2s+1))\"")
+        raise ctx.error("plant", 'missing model: the plant\'s transfer function in s, e.g. model = "2/((10s+1)(2s+1))"')
     from convert.controller import from_expression
 
     model = from_expression(text, label=f"{ctx.where('plant.model')}: plant.model")
     if model.is_digital:
         raise ctx.error("plant.model", "the plant is a continuous process: write its model in s")
     if not model.is_proper:
-        raise ctx.error("plant.model", f"the plant model must be proper (no more zeros than poles), found {excerpt(text)}")
+        raise ctx.error(
+            "plant.model", f"the plant model must be proper (no more zeros than poles), found {excerpt(text)}"
+        )
     dead = ctx.value(table, "dead_time", "plant.dead_time", "second", 0.0, positive=True)
     return Plant(model=model, expression=text, dead_time_s=dead)
 
@@ -725,11 +823,14 @@ def _read_signals(ctx: _Ctx, data: dict) -> Signals:
 def _read_criteria(ctx: _Ctx, data: dict) -> Criteria:
     table = ctx.table(data, "criteria", "criteria")
     if table is None:
-        raise InputError("missing [criteria]: at least band = [\"low Hz\", \"high Hz\"] and one limit",
-                         where=ctx.where(""), key="criteria")
+        raise InputError(
+            'missing [criteria]: at least band = ["low Hz", "high Hz"] and one limit',
+            where=ctx.where(""),
+            key="criteria",
+        )
     ctx.check_keys(table, SCHEMA["criteria"], "criteria")
     if "band" not in table:
-        raise ctx.error("criteria", "missing band: the frequency range compared, e.g. band = [\"10 mHz\", \"1 Hz\"]")
+        raise ctx.error("criteria", 'missing band: the frequency range compared, e.g. band = ["10 mHz", "1 Hz"]')
     band = ctx.pair(table, "band", "criteria.band", "hz", positive=True)
     from convert.compare.frequency import band_width_problem
 
@@ -816,15 +917,19 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
         written = src.data.get("a_text", src.data["a"])
         radius = [r / abs(src.data["a"][0]) for r in printed_radii(written, src.data.get("b_text", src.data["b"]))]
         radius += [0.0] * (len(ctrl.den) - len(radius))
-        ctrl, notes = printed_integrators(ctrl, radius[:len(ctrl.den)])
+        ctrl, notes = printed_integrators(ctrl, radius[: len(ctrl.den)])
         return SourceInfo(controller=ctrl, notes=tuple(f"source.digital: {n}" for n in notes))
     if src.form == "card":
         from convert.circuit.topologies import get_topology
 
         topo = get_topology(src.data["topology"])
         ctrl = topo.controller_from_parts(dict(src.data["parts"]))
-        return SourceInfo(controller=ctrl, parts=dict(src.data["parts"]), tolerances=src.data["tolerances"],
-                          topology=src.data["topology"])
+        return SourceInfo(
+            controller=ctrl,
+            parts=dict(src.data["parts"]),
+            tolerances=src.data["tolerances"],
+            topology=src.data["topology"],
+        )
     # netlist
     from convert.circuit.card import analyze_card
     from convert.circuit.netlist import read_netlist
@@ -841,26 +946,39 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
         if hint:
             raise InputError(f"input source {src.data['input']!r} not found in {file_path.name}; {hint}", key="input")
     fs = min(case.digital.fs_hz) if case is not None and case.digital else None
-    card = analyze_card(net, input=src.data["input"], output=src.data["output"], setpoint=src.data["setpoint"],
-                        measurement=src.data["measurement"], with_sensitivities=False,
-                        band_hz=tuple(case.criteria.band_hz) if case is not None else None, fs_hz=fs)
+    card = analyze_card(
+        net,
+        input=src.data["input"],
+        output=src.data["output"],
+        setpoint=src.data["setpoint"],
+        measurement=src.data["measurement"],
+        with_sensitivities=False,
+        band_hz=tuple(case.criteria.band_hz) if case is not None else None,
+        fs_hz=fs,
+    )
     extra: dict = {"netlist_file": str(file_path), "output_limits": card.output_limits, "reduction": card.reduction}
     notes = [f"warning: {w}" for w in net.warnings] + list(card.notes)
     if card.output_limits is not None:
         from convert.circuit.clamps import limits_text
 
-        notes.append(f"the card's clamps hold its output to {limits_text(card.output_limits)}: the source loop is simulated "
-                     "with these limits, and they are the firmware's output limits unless "
-                     "target.digital.output_limits says otherwise")
+        notes.append(
+            f"the card's clamps hold its output to {limits_text(card.output_limits)}: the source loop is simulated "
+            "with these limits, and they are the firmware's output limits unless "
+            "target.digital.output_limits says otherwise"
+        )
     if card.structure is not None:
         extra["setpoint_structure"] = card.structure.description
         if card.structure.plain_error:
-            text = ("two-input card: the loop checks use its feedback controller on the error, u = C·(r − y); "
-                    f"its setpoint path is the same ({card.structure.description})")
+            text = (
+                "two-input card: the loop checks use its feedback controller on the error, u = C·(r − y); "
+                f"its setpoint path is the same ({card.structure.description})"
+            )
         else:
             extra["setpoint_filter"] = card.structure.setpoint_filter
-            text = (f"two-input card: its setpoint path differs ({card.structure.description}); the setpoint step "
-                    "is simulated through it, u = H_sp·r − C·y, and the firmware must reproduce it")
+            text = (
+                f"two-input card: its setpoint path differs ({card.structure.description}); the setpoint step "
+                "is simulated through it, u = H_sp·r − C·y, and the firmware must reproduce it"
+            )
         notes.append(text)
     running = card.full_controller or card.controller  # the card as it runs, parasitics and all
     return SourceInfo(controller=running.with_name("card"), pid=card.pid, notes=tuple(notes), extra=extra)

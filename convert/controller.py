@@ -20,13 +20,15 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 from functools import cached_property
-from typing import Literal, Sequence
+from typing import Literal
+from collections.abc import Sequence
 
 import numpy as np
 
 from convert.errors import InputError
 
 Domain = Literal["analog", "digital"]
+
 
 def _as_coefficients(values: Sequence[float], what: str) -> tuple[float, ...]:
     try:
@@ -35,8 +37,11 @@ def _as_coefficients(values: Sequence[float], what: str) -> tuple[float, ...]:
         raise InputError(f"expected a flat list of real numbers, found {values!r}", key=what) from None
     if np.iscomplexobj(raw):
         if np.any(raw.imag != 0):
-            raise InputError(f"coefficients must be real numbers, found {[complex(x) for x in raw]}; a real controller has "
-                             "real coefficients (complex roots come in conjugate pairs)", key=what)
+            raise InputError(
+                f"coefficients must be real numbers, found {[complex(x) for x in raw]}; a real controller has "
+                "real coefficients (complex roots come in conjugate pairs)",
+                key=what,
+            )
         raw = raw.real
     try:
         arr = np.atleast_1d(np.asarray(raw, dtype=float))
@@ -50,7 +55,7 @@ def _as_coefficients(values: Sequence[float], what: str) -> tuple[float, ...]:
     if nz.size == 0:
         raise InputError("the polynomial is identically zero", key=what)
     _check_range(arr, what)
-    return tuple(float(x) for x in arr[nz[0]:])
+    return tuple(float(x) for x in arr[nz[0] :])
 
 
 _TINY = float(np.finfo(float).tiny)  # smallest normal double, about 2.2e-308
@@ -60,12 +65,16 @@ def _check_range(arr: np.ndarray, what: str, after: str = "") -> None:
     """Refuse coefficients that overflowed (inf) or sit below the normal range (subnormal: digits
     already lost, and the next operation underflows to 0)."""
     if not np.all(np.isfinite(arr)):
-        raise InputError(f"a coefficient{after} is too large for a floating-point number (beyond about 1.8e308)",
-                         key=what)
+        raise InputError(
+            f"a coefficient{after} is too large for a floating-point number (beyond about 1.8e308)", key=what
+        )
     small = arr[(arr != 0) & (np.abs(arr) < _TINY)]
     if small.size:
-        raise InputError(f"a coefficient{after} is too small for a floating-point number ({small[0]:.3g}, below "
-                         "about 2.2e-308); rescale the controller (time in other units) or drop the term", key=what)
+        raise InputError(
+            f"a coefficient{after} is too small for a floating-point number ({small[0]:.3g}, below "
+            "about 2.2e-308); rescale the controller (time in other units) or drop the term",
+            key=what,
+        )
 
 
 @dataclass(frozen=True)
@@ -89,7 +98,9 @@ class Controller:
         if self.domain == "digital":
             t = self.sample_period_s
             if t is None or not (isinstance(t, (int, float)) and math.isfinite(t) and t > 0):
-                raise InputError(f"a digital controller needs a positive sample period, found {t!r}", key="sample period")
+                raise InputError(
+                    f"a digital controller needs a positive sample period, found {t!r}", key="sample period"
+                )
         elif self.sample_period_s is not None:
             raise InputError("an analog controller has no sample period", key="sample period")
         num = _as_coefficients(self.num, "numerator")
@@ -103,23 +114,24 @@ class Controller:
         _check_range(num_n, "numerator", after)
         _check_range(den_n, "denominator", after)
         if not np.any(num_n):
-            raise InputError(f"every numerator coefficient{after} is too small for a floating-point number",
-                             key="numerator")
+            raise InputError(
+                f"every numerator coefficient{after} is too small for a floating-point number", key="numerator"
+            )
         object.__setattr__(self, "num", tuple(float(c) + 0.0 for c in num_n))
         object.__setattr__(self, "den", tuple(float(c) + 0.0 for c in den_n))
 
     @classmethod
-    def analog(cls, num: Sequence[float], den: Sequence[float], name: str = "") -> "Controller":
+    def analog(cls, num: Sequence[float], den: Sequence[float], name: str = "") -> Controller:
         """Analog controller from coefficients in descending powers of s."""
         return cls(tuple(num), tuple(den), "analog", None, name)
 
     @classmethod
-    def digital(cls, num: Sequence[float], den: Sequence[float], sample_period_s: float, name: str = "") -> "Controller":
+    def digital(cls, num: Sequence[float], den: Sequence[float], sample_period_s: float, name: str = "") -> Controller:
         """Digital controller from coefficients in descending powers of z."""
         return cls(tuple(num), tuple(den), "digital", float(sample_period_s), name)
 
     @classmethod
-    def from_b_a(cls, b: Sequence[float], a: Sequence[float], sample_period_s: float, name: str = "") -> "Controller":
+    def from_b_a(cls, b: Sequence[float], a: Sequence[float], sample_period_s: float, name: str = "") -> Controller:
         """Digital controller from firmware coefficients: ascending powers of z^-1.
 
         ``C(z) = (b0 + b1 z^-1 + ...) / (a0 + a1 z^-1 + ...)``. Multiplying through by z^n
@@ -135,8 +147,15 @@ class Controller:
         return cls.digital(tuple(b_full), tuple(a_full), sample_period_s, name)
 
     @classmethod
-    def from_zpk(cls, zeros: Sequence[complex], poles: Sequence[complex], gain: float,
-                 domain: Domain = "analog", sample_period_s: float | None = None, name: str = "") -> "Controller":
+    def from_zpk(
+        cls,
+        zeros: Sequence[complex],
+        poles: Sequence[complex],
+        gain: float,
+        domain: Domain = "analog",
+        sample_period_s: float | None = None,
+        name: str = "",
+    ) -> Controller:
         """Controller from zeros, poles (complex pairs must be conjugate) and the zpk gain k."""
         num = np.real_if_close(gain * np.poly(np.asarray(zeros, dtype=complex)), tol=1e6)
         den = np.real_if_close(np.poly(np.asarray(poles, dtype=complex)), tol=1e6)
@@ -210,8 +229,10 @@ class Controller:
         found with multiplicity (:func:`convert.polyroots.find_roots`)."""
         from convert.polyroots import Root, count_at, find_roots
 
-        rough = {"num": np.roots(self.num) if len(self.num) > 1 else np.zeros(0),
-                 "den": np.roots(self.den) if len(self.den) > 1 else np.zeros(0)}
+        rough = {
+            "num": np.roots(self.num) if len(self.num) > 1 else np.zeros(0),
+            "den": np.roots(self.den) if len(self.den) > 1 else np.zeros(0),
+        }
         out = []
         for part, other in (("num", "den"), ("den", "num")):
             p = np.asarray(getattr(self, part), dtype=float)
@@ -346,7 +367,7 @@ class Controller:
         return control.tf(list(self.num), list(self.den), dt)
 
     @classmethod
-    def from_control(cls, system, name: str = "") -> "Controller":
+    def from_control(cls, system, name: str = "") -> Controller:
         """Build from a python-control SISO ``TransferFunction`` (or anything with ``num``/``den``
         lists and ``dt``). ``dt = 0`` is analog; a positive ``dt`` is digital; ``dt = True``
         (unspecified period) is refused because the sample period matters."""
@@ -365,20 +386,25 @@ class Controller:
         return cls.digital(num, den, float(dt), name)
 
     # ------------------------------------------------------------------ small conveniences
-    def with_name(self, name: str) -> "Controller":
+    def with_name(self, name: str) -> Controller:
         return Controller(self.num, self.den, self.domain, self.sample_period_s, name)
 
-    def scaled(self, factor: float) -> "Controller":
+    def scaled(self, factor: float) -> Controller:
         """The controller multiplied by a constant (e.g. -1 for the action sign)."""
         return Controller(tuple(factor * c for c in self.num), self.den, self.domain, self.sample_period_s, self.name)
 
-    def series(self, other: "Controller") -> "Controller":
+    def series(self, other: Controller) -> Controller:
         """Product C·other (same domain and sample period)."""
         self._same_domain(other)
-        return Controller(tuple(np.polymul(self.num, other.num)), tuple(np.polymul(self.den, other.den)),
-                          self.domain, self.sample_period_s, self.name)
+        return Controller(
+            tuple(np.polymul(self.num, other.num)),
+            tuple(np.polymul(self.den, other.den)),
+            self.domain,
+            self.sample_period_s,
+            self.name,
+        )
 
-    def _same_domain(self, other: "Controller") -> None:
+    def _same_domain(self, other: Controller) -> None:
         if self.domain != other.domain or self.sample_period_s != other.sample_period_s:
             raise InputError("both controllers must share a domain and sample period")
 
@@ -424,12 +450,18 @@ def from_expression(text: str, *, fs_hz: float | None = None, label: str = "expr
             except OverflowError:
                 f = math.inf
             if not math.isfinite(f):
-                raise InputError(f"a coefficient is too large for a floating-point number (about {_magnitude(c)}, "
-                                 "beyond about 1.8e308, with the denominator's leading coefficient 1)", where=label)
+                raise InputError(
+                    f"a coefficient is too large for a floating-point number (about {_magnitude(c)}, "
+                    "beyond about 1.8e308, with the denominator's leading coefficient 1)",
+                    where=label,
+                )
             if c != 0 and abs(f) < _TINY:
-                raise InputError(f"a coefficient is too small for a floating-point number (about {_magnitude(c)}, "
-                                 "below about 2.2e-308, with the denominator's leading coefficient 1); rescale the "
-                                 "controller or drop the term", where=label)
+                raise InputError(
+                    f"a coefficient is too small for a floating-point number (about {_magnitude(c)}, "
+                    "below about 2.2e-308, with the denominator's leading coefficient 1); rescale the "
+                    "controller or drop the term",
+                    where=label,
+                )
             row.append(f)
         converted.append(row)
     num, den = converted

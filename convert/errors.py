@@ -29,8 +29,9 @@ class LoopshiftError(Exception):
         The field or option involved, e.g. ``"ti"`` or ``"target.digital.fs"``.
     """
 
-    def __init__(self, message: str, *, where: str | None = None, key: str | None = None,
-                 settings: tuple[str, ...] = ()):
+    def __init__(
+        self, message: str, *, where: str | None = None, key: str | None = None, settings: tuple[str, ...] = ()
+    ):
         self.message = message
         self.where = where
         self.key = key
@@ -39,7 +40,7 @@ class LoopshiftError(Exception):
         self.settings = tuple(settings)
         super().__init__(self.one_line())
 
-    def name_settings(self, names) -> "LoopshiftError":
+    def name_settings(self, names) -> LoopshiftError:
         """Follow each neutral setting the message names with the front end's own name for it,
         e.g. ``{"resistor maximum": "--r-max"}`` on the command line or
         ``{"resistor maximum": "target.circuit.resistor_range"}`` in a case file."""

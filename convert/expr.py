@@ -197,19 +197,19 @@ class Rational:
     num: Poly
     den: Poly
 
-    def __add__(self, o: "Rational") -> "Rational":
+    def __add__(self, o: Rational) -> Rational:
         return Rational(_padd(_pmul(self.num, o.den), _pmul(o.num, self.den)), _pmul(self.den, o.den))
 
-    def __neg__(self) -> "Rational":
+    def __neg__(self) -> Rational:
         return Rational(_pneg(self.num), self.den)
 
-    def __sub__(self, o: "Rational") -> "Rational":
+    def __sub__(self, o: Rational) -> Rational:
         return self + (-o)
 
-    def __mul__(self, o: "Rational") -> "Rational":
+    def __mul__(self, o: Rational) -> Rational:
         return Rational(_pmul(self.num, o.num), _pmul(self.den, o.den))
 
-    def reduced(self, g: Poly | None = None) -> "Rational":
+    def reduced(self, g: Poly | None = None) -> Rational:
         """Cancel common factors exactly (``g``: their product, when already known) and make the
         denominator monic."""
         if not self.num:
@@ -262,21 +262,30 @@ class _Parser:
     def _enter(self, tok: _Token) -> None:
         self.depth += 1
         if self.depth > MAX_NESTING:
-            raise self.error(tok.column, f"parentheses and signs are nested more than {MAX_NESTING} deep "
-                                         "(the limit of the expression reader); write the expression flatter")
+            raise self.error(
+                tok.column,
+                f"parentheses and signs are nested more than {MAX_NESTING} deep "
+                "(the limit of the expression reader); write the expression flatter",
+            )
 
     def _bounded(self, value: Rational, tok: _Token) -> Rational:
         degree = max(len(value.num), len(value.den)) - 1
         if degree > MAX_DEGREE:
-            raise self.error(tok.column, f"the expression reaches degree {degree} here; the reader stops at degree "
-                                         f"{MAX_DEGREE} (a controller has a handful of poles and zeros)")
+            raise self.error(
+                tok.column,
+                f"the expression reaches degree {degree} here; the reader stops at degree "
+                f"{MAX_DEGREE} (a controller has a handful of poles and zeros)",
+            )
         return value
 
     # -- lexing
     def _tokenize(self) -> list[_Token]:
         if len(self.text) > MAX_EXPRESSION_CHARS:
-            raise InputError(f"the expression has {len(self.text):,} characters; the reader takes at most "
-                             f"{MAX_EXPRESSION_CHARS:,} (in {excerpt(self.text)})", where=self.label)
+            raise InputError(
+                f"the expression has {len(self.text):,} characters; the reader takes at most "
+                f"{MAX_EXPRESSION_CHARS:,} (in {excerpt(self.text)})",
+                where=self.label,
+            )
         out: list[_Token] = []
         i = 0
         while i < len(self.text):
@@ -355,12 +364,18 @@ class _Parser:
         self.factor()
         end = self.peek().column
         text = self.text
-        head, under, extra = (text[start - 1:slash - 1].strip(), text[divisor - 1:after - 1].strip(),
-                              text[after - 1:end - 1].strip())
-        written = text[start - 1:end - 1].strip()
-        raise self.error(after, f"{written!r} is ambiguous: a product written without '*' after a division reads "
-                                f"as ({head}/{under})*{extra} or as {head}/({under}*{extra}); write the one you "
-                                "mean with '*' and parentheses")
+        head, under, extra = (
+            text[start - 1 : slash - 1].strip(),
+            text[divisor - 1 : after - 1].strip(),
+            text[after - 1 : end - 1].strip(),
+        )
+        written = text[start - 1 : end - 1].strip()
+        raise self.error(
+            after,
+            f"{written!r} is ambiguous: a product written without '*' after a division reads "
+            f"as ({head}/{under})*{extra} or as {head}/({under}*{extra}); write the one you "
+            "mean with '*' and parentheses",
+        )
 
     def factor(self) -> Rational:
         tok = self.peek()
@@ -385,8 +400,11 @@ class _Parser:
                 exponent = -exponent
             grown = max(len(base.num), len(base.den), 1) - 1
             if grown * exponent > MAX_DEGREE:  # refused before the work
-                raise self.error(tok.column, f"this power reaches degree {grown * exponent}; the reader stops at "
-                                             f"degree {MAX_DEGREE} (a controller has a handful of poles and zeros)")
+                raise self.error(
+                    tok.column,
+                    f"this power reaches degree {grown * exponent}; the reader stops at "
+                    f"degree {MAX_DEGREE} (a controller has a handful of poles and zeros)",
+                )
             result = _const(Fraction(1))
             for _ in range(exponent):
                 result = result * base
@@ -407,7 +425,9 @@ class _Parser:
         if tok.kind != "num" or not tok.text.isdigit():
             raise self.error(tok.column, f"expected a whole-number power, found {self.describe(tok)}")
         if len(tok.text) > 3:
-            raise self.error(tok.column, f"power {tok.text[:20]}{'…' if len(tok.text) > 20 else ''} is too large (64 at most)")
+            raise self.error(
+                tok.column, f"power {tok.text[:20]}{'…' if len(tok.text) > 20 else ''} is too large (64 at most)"
+            )
         value = int(tok.text)
         if value > 64:
             raise self.error(tok.column, f"power {value} is too large (64 at most)")
@@ -422,8 +442,11 @@ class _Parser:
         mantissa, _, exp = tok.text.lower().partition("e")
         digits = exp.lstrip("+-").lstrip("0")
         if len(mantissa) > MAX_NUMBER_DIGITS or len(digits) > 4 or (digits and int(digits) > MAX_EXPONENT):
-            raise self.error(tok.column, f"the number {excerpt(tok.text, 20)} is out of range (at most "
-                                         f"{MAX_NUMBER_DIGITS} digits, exponent ±{MAX_EXPONENT})")
+            raise self.error(
+                tok.column,
+                f"the number {excerpt(tok.text, 20)} is out of range (at most "
+                f"{MAX_NUMBER_DIGITS} digits, exponent ±{MAX_EXPONENT})",
+            )
         return Fraction(tok.text)
 
     def atom(self) -> Rational:
@@ -448,7 +471,9 @@ class _Parser:
             self.depth -= 1
             close = self.take()
             if not (close.kind == "op" and close.text == ")"):
-                raise self.error(close.column, f"expected ')' to close the '(' at column {tok.column}, found {self.describe(close)}")
+                raise self.error(
+                    close.column, f"expected ')' to close the '(' at column {tok.column}, found {self.describe(close)}"
+                )
             return inner
         raise self.error(tok.column, f"expected a number, s, z or '(', found {self.describe(tok)}")
 
@@ -472,9 +497,12 @@ def parse_rational(text: str, *, label: str = "expression") -> ParsedExpression:
     try:
         g = _pgcd(value.num, value.den)
     except _TooLarge:
-        raise parser.error(1, "the exact coefficients are too large to cancel common factors quickly (degree "
-                              f"{len(value.den) - 1} with numbers of thousands of digits); round the constants "
-                              "or multiply out fewer factors") from None
+        raise parser.error(
+            1,
+            "the exact coefficients are too large to cancel common factors quickly (degree "
+            f"{len(value.den) - 1} with numbers of thousands of digits); round the constants "
+            "or multiply out fewer factors",
+        ) from None
     reduced = value.reduced(g)
     cancelled = tuple(reversed(g)) if len(g) > 1 else None
     variable = next(iter(parser.variables)) if parser.variables else None

@@ -85,7 +85,7 @@ def read_given(ctx, table: dict, dotted: str, name: str, base_dir: Path) -> Give
     (``target.given.firmware``) for error messages; paths are relative to ``base_dir``."""
     form = ctx.text(table, "form", f"{dotted}.form", choices=GIVEN_FORMS)
     if form is None:
-        raise ctx.error(dotted, "missing form: say which kind of form exists, form = \"digital\", \"pid\" or \"circuit\"")
+        raise ctx.error(dotted, 'missing form: say which kind of form exists, form = "digital", "pid" or "circuit"')
     ctx.check_keys(table, dict.fromkeys(KEYS[form], 1), dotted)
     where = ctx.where(dotted)
     reader = {"analog": _read_analog, "digital": _read_digital, "pid": _read_pid, "circuit": _read_circuit}[form]
@@ -101,14 +101,16 @@ def _numbers(ctx, raw, dotted: str, what: str) -> list[float]:
 def _firmware_common(ctx, table: dict, dotted: str, out: dict) -> None:
     out["fs_hz"] = ctx.value(table, "fs", f"{dotted}.fs", "hz", None, positive=True, allow_zero=False)
     if out["fs_hz"] is None:
-        raise ctx.error(dotted, "missing fs: the sample rate the firmware runs at, e.g. fs = \"100 Hz\"")
+        raise ctx.error(dotted, 'missing fs: the sample rate the firmware runs at, e.g. fs = "100 Hz"')
     delay_s, delay_samples = ctx.delay(table, "delay", f"{dotted}.delay")
     out["delay_s"], out["delay_samples"] = delay_s, delay_samples
     out["output_limits"] = ctx.pair(table, "output_limits", f"{dotted}.output_limits", "number")
     word = ctx.text(table, "word_format", f"{dotted}.word_format", default="float64")
     if not _WORD_RE.match(word):
-        raise ctx.error(f"{dotted}.word_format", "expected float64, float32 or a Q-format such as q15, q31 or q3.12, "
-                                                 f"found {word!r}")
+        raise ctx.error(
+            f"{dotted}.word_format",
+            f"expected float64, float32 or a Q-format such as q15, q31 or q3.12, found {word!r}",
+        )
     out["word_format"] = word.lower()
     out["structure"] = ctx.text(table, "structure", f"{dotted}.structure", default="direct")
 
@@ -126,8 +128,9 @@ def _read_digital(ctx, table: dict, dotted: str, base_dir: Path) -> dict:
         for i, row in enumerate(raw, start=1):
             values = _numbers(ctx, row, f"{dotted}.sos", "b0, b1, b2, a0, a1, a2")
             if len(values) != 6:
-                raise ctx.error(f"{dotted}.sos", f"section {i}: expected six numbers b0, b1, b2, a0, a1, a2, "
-                                                 f"found {len(values)}")
+                raise ctx.error(
+                    f"{dotted}.sos", f"section {i}: expected six numbers b0, b1, b2, a0, a1, a2, found {len(values)}"
+                )
             if values[3] == 0:
                 raise ctx.error(f"{dotted}.sos", f"section {i}: a0 must be non-zero")
             sections.append(values)
@@ -149,17 +152,19 @@ def _read_digital(ctx, table: dict, dotted: str, base_dir: Path) -> dict:
 
 def _read_analog(ctx, table: dict, dotted: str, base_dir: Path) -> dict:
     if ("expression" in table) == ("settings" in table):
-        raise ctx.error(dotted, "give expression = \"...\" (in s) or settings = { kc = ..., ti = ... } (one of them)")
+        raise ctx.error(dotted, 'give expression = "..." (in s) or settings = { kc = ..., ti = ... } (one of them)')
     if "expression" in table:
         from convert.controller import from_expression
 
         text = ctx.text(table, "expression", f"{dotted}.expression")
         ctrl = from_expression(text, label=f"{ctx.where(f'{dotted}.expression')}: {dotted}.expression")
         if ctrl.is_digital:
-            raise ctx.error(f"{dotted}.expression", "an analog form is in s; give firmware as form = \"digital\"")
+            raise ctx.error(f"{dotted}.expression", 'an analog form is in s; give firmware as form = "digital"')
         return {"expression": text, "controller": ctrl}
-    return {"settings": dict(ctx.table(table, "settings", f"{dotted}.settings") or {}),
-            "pid": _pid_settings(ctx, table, dotted)}
+    return {
+        "settings": dict(ctx.table(table, "settings", f"{dotted}.settings") or {}),
+        "pid": _pid_settings(ctx, table, dotted),
+    }
 
 
 def _pid_settings(ctx, table: dict, dotted: str):
@@ -167,7 +172,7 @@ def _pid_settings(ctx, table: dict, dotted: str):
 
     settings = ctx.table(table, "settings", f"{dotted}.settings")
     if not settings:
-        raise ctx.error(dotted, "missing settings: the PID settings, e.g. settings = { kc = 2, ti = \"30 s\" }")
+        raise ctx.error(dotted, 'missing settings: the PID settings, e.g. settings = { kc = 2, ti = "30 s" }')
     try:
         return pid_from_mapping(settings, where=ctx.where(f"{dotted}.settings"))
     except InputError as exc:
@@ -179,19 +184,21 @@ def _read_pid(ctx, table: dict, dotted: str, base_dir: Path) -> dict:
     pid = _pid_settings(ctx, table, dotted)
     out: dict[str, Any] = {"settings": dict(table["settings"]), "pid": pid}
     out["method"] = ctx.text(table, "method", f"{dotted}.method", default="backward-euler", choices=PID_BLOCK_METHODS)
-    out["algorithm"] = ctx.text(table, "algorithm", f"{dotted}.algorithm", default="positional",
-                                choices=PID_ALGORITHMS)
+    out["algorithm"] = ctx.text(table, "algorithm", f"{dotted}.algorithm", default="positional", choices=PID_ALGORITHMS)
     _firmware_common(ctx, table, dotted, out)
     if pid.kd > 0 and pid.tf == 0 and out["method"] != "backward-euler":
-        raise ctx.error(f"{dotted}.method", "an unfiltered derivative has a causal sampled form by backward-euler "
-                                            "only; give the block's filter (n or tf) or method = \"backward-euler\"")
+        raise ctx.error(
+            f"{dotted}.method",
+            "an unfiltered derivative has a causal sampled form by backward-euler "
+            'only; give the block\'s filter (n or tf) or method = "backward-euler"',
+        )
     return out
 
 
 def _read_circuit(ctx, table: dict, dotted: str, base_dir: Path) -> dict:
     out: dict[str, Any] = {}
     if ("netlist" in table) == ("topology" in table):
-        raise ctx.error(dotted, "give netlist = \"card.cir\" or topology with parts (one of them)")
+        raise ctx.error(dotted, 'give netlist = "card.cir" or topology with parts (one of them)')
     if "netlist" in table:
         for key in ("parts",):
             if key in table:
@@ -199,30 +206,41 @@ def _read_circuit(ctx, table: dict, dotted: str, base_dir: Path) -> dict:
         name = ctx.text(table, "netlist", f"{dotted}.netlist")
         path = base_dir / name
         if not path.is_file():
-            raise ctx.error(f"{dotted}.netlist", f"no such netlist file {str(path)!r} (paths are relative to "
-                                                 f"{ctx.paths_relative_to})")
-        out.update(netlist=path, input=ctx.text(table, "input", f"{dotted}.input", default="VIN"),
-                   output=ctx.text(table, "output", f"{dotted}.output", default="out"),
-                   setpoint=ctx.text(table, "setpoint", f"{dotted}.setpoint"),
-                   measurement=ctx.text(table, "measurement", f"{dotted}.measurement"))
+            raise ctx.error(
+                f"{dotted}.netlist",
+                f"no such netlist file {str(path)!r} (paths are relative to {ctx.paths_relative_to})",
+            )
+        out.update(
+            netlist=path,
+            input=ctx.text(table, "input", f"{dotted}.input", default="VIN"),
+            output=ctx.text(table, "output", f"{dotted}.output", default="out"),
+            setpoint=ctx.text(table, "setpoint", f"{dotted}.setpoint"),
+            measurement=ctx.text(table, "measurement", f"{dotted}.measurement"),
+        )
         if (out["setpoint"] is None) != (out["measurement"] is None):
             raise ctx.error(dotted, "give both setpoint and measurement source names, or neither")
     else:
         for key in ("input", "output", "setpoint", "measurement"):
             if key in table:
-                raise ctx.error(f"{dotted}.{key}", f"{key} names a netlist's node or source; a catalog topology has none")
+                raise ctx.error(
+                    f"{dotted}.{key}", f"{key} names a netlist's node or source; a catalog topology has none"
+                )
         out["topology"] = ctx.text(table, "topology", f"{dotted}.topology")
         raw = ctx.table(table, "parts", f"{dotted}.parts") or {}
         if not raw:
-            raise ctx.error(dotted, "missing parts: e.g. parts = { R1 = \"47k\", C1 = \"1 uF\" }")
-        out["parts"] = {name: ctx.value(raw, name, f"{dotted}.parts.{name}", part_kind(name), positive=True,
-                                        allow_zero=False) for name in raw}
+            raise ctx.error(dotted, 'missing parts: e.g. parts = { R1 = "47k", C1 = "1 uF" }')
+        out["parts"] = {
+            name: ctx.value(raw, name, f"{dotted}.parts.{name}", part_kind(name), positive=True, allow_zero=False)
+            for name in raw
+        }
     tol = ctx.table(table, "tolerances", f"{dotted}.tolerances")
     tols = {}
     for name in tol or {}:
         value = ctx.fraction(tol, name, f"{dotted}.tolerances.{name}", allow_one=False)
         if value >= 1:
-            raise ctx.error(f"{dotted}.tolerances.{name}", f"a tolerance is a fraction below 100 %, found {tol[name]!r}")
+            raise ctx.error(
+                f"{dotted}.tolerances.{name}", f"a tolerance is a fraction below 100 %, found {tol[name]!r}"
+            )
         tols[name] = value
     out["tolerances"] = tols
     return out
@@ -268,8 +286,11 @@ def pid_block_b_a(pid, fs_hz: float, method: str) -> tuple[list[float], list[flo
     one = np.array([1.0])
     diff = np.array([1.0, -1.0])  # 1 - z^-1
     # s ~ num_s / den_s as polynomials in z^-1
-    num_s, den_s = {"backward-euler": (diff / t, one), "forward-euler": (diff / t, np.array([0.0, 1.0])),
-                    "tustin": (2 * diff / t, np.array([1.0, 1.0]))}[method]
+    num_s, den_s = {
+        "backward-euler": (diff / t, one),
+        "forward-euler": (diff / t, np.array([0.0, 1.0])),
+        "tustin": (2 * diff / t, np.array([1.0, 1.0])),
+    }[method]
     terms = [(np.array([pid.kp]), one)]
     if pid.ki > 0:  # ki / s = ki·den_s / num_s
         terms.append((pid.ki * den_s, num_s))
@@ -329,14 +350,31 @@ def _given_controller(given: GivenForm, case=None):
         ctrl = Controller.from_b_a(b, a, 1.0 / d["fs_hz"], name=given.name)
         return SourceInfo(controller=ctrl, pid=d["pid"])
     if "netlist" in d:
-        src = Source("netlist", {"file": d["netlist"], "input": d["input"], "output": d["output"],
-                                 "setpoint": d["setpoint"], "measurement": d["measurement"]}, given.where)
+        src = Source(
+            "netlist",
+            {
+                "file": d["netlist"],
+                "input": d["input"],
+                "output": d["output"],
+                "setpoint": d["setpoint"],
+                "measurement": d["measurement"],
+            },
+            given.where,
+        )
     else:
-        src = Source("card", {"topology": d["topology"], "parts": d["parts"], "tolerances": d["tolerances"]},
-                     given.where)
+        src = Source(
+            "card", {"topology": d["topology"], "parts": d["parts"], "tolerances": d["tolerances"]}, given.where
+        )
     info = build_form(src, case)
-    return SourceInfo(controller=info.controller.with_name(given.name), pid=info.pid, parts=info.parts,
-                      tolerances=d["tolerances"], topology=info.topology, notes=info.notes, extra=info.extra)
+    return SourceInfo(
+        controller=info.controller.with_name(given.name),
+        pid=info.pid,
+        parts=info.parts,
+        tolerances=d["tolerances"],
+        topology=info.topology,
+        notes=info.notes,
+        extra=info.extra,
+    )
 
 
 def read_given_targets(ctx, target_table: dict, base_dir: Path) -> tuple[GivenForm, ...]:
@@ -349,8 +387,10 @@ def read_given_targets(ctx, target_table: dict, base_dir: Path) -> tuple[GivenFo
         dotted = f"target.given.{name}"
         table = ctx.table(raw, name, dotted)
         if not table:
-            raise ctx.error(dotted, "expected a table describing the form, e.g. [target.given.firmware] with "
-                                    "form = \"digital\", b, a and fs")
+            raise ctx.error(
+                dotted,
+                'expected a table describing the form, e.g. [target.given.firmware] with form = "digital", b, a and fs',
+            )
         out.append(read_given(ctx, table, dotted, str(name), base_dir))
     return tuple(out)
 
@@ -365,16 +405,22 @@ def describe(given: GivenForm) -> str:
         return f"given analog controller: {what}"
     if given.form in ("digital", "pid"):
         if given.form == "digital":
-            what = (f"{len(d['sos'])} second-order sections" if d.get("sos") else
-                    f"b = {[float(f'{x:.10g}') for x in d['b']]}, a = {[float(f'{x:.10g}') for x in d['a']]}")
+            what = (
+                f"{len(d['sos'])} second-order sections"
+                if d.get("sos")
+                else f"b = {[float(f'{x:.10g}') for x in d['b']]}, a = {[float(f'{x:.10g}') for x in d['a']]}"
+            )
         else:
-            what = (f"PID block ({d['algorithm']}, {d['method']}) " + ", ".join(f"{k} = {v}" for k, v in
-                                                                                  d["settings"].items()))
+            what = f"PID block ({d['algorithm']}, {d['method']}) " + ", ".join(
+                f"{k} = {v}" for k, v in d["settings"].items()
+            )
         delay = given.delay_for()
         lim = d.get("output_limits")
-        return (f"given firmware: {what} at {format_value(d['fs_hz'], 'hz')}; delay {format_value(delay, 'second')}"
-                f"; {d['word_format']}, structure {d['structure']}"
-                + (f"; output limits {lim[0]:g} … {lim[1]:g}" if lim else ""))
+        return (
+            f"given firmware: {what} at {format_value(d['fs_hz'], 'hz')}; delay {format_value(delay, 'second')}"
+            f"; {d['word_format']}, structure {d['structure']}"
+            + (f"; output limits {lim[0]:g} … {lim[1]:g}" if lim else "")
+        )
     tol = ", ".join(f"{k} {100 * v:g} %" for k, v in d["tolerances"].items()) or "none given"
     if "netlist" in d:
         return f"given card: netlist {Path(d['netlist']).name} (output {d['output']}); tolerances {tol}"
@@ -411,8 +457,11 @@ def _spec_words(text: str, label: str) -> dict[str, str]:
     out: dict[str, str] = {}
     for word in text.split():
         if "=" not in word:
-            raise InputError(f"expected KEY=VALUE words after the kind, found {word!r} (a value with spaces: "
-                             "write it without them, e.g. ti=30s)", where=label)
+            raise InputError(
+                f"expected KEY=VALUE words after the kind, found {word!r} (a value with spaces: "
+                "write it without them, e.g. ti=30s)",
+                where=label,
+            )
         key, _, value = word.partition("=")
         key = key.strip()
         if not key or not value:
@@ -452,8 +501,9 @@ def read_spec(text: str, label: str, *, fs_hz: float | None = None, base_dir: Pa
     base = Path.cwd() if base_dir is None else base_dir
     raw = text.strip()
     if not raw:
-        raise InputError("expected a controller: an expression, or pid:, digital:, card: or netlist: words",
-                         where=label)
+        raise InputError(
+            "expected a controller: an expression, or pid:, digital:, card: or netlist: words", where=label
+        )
     m = re.match(r"^(pid|digital|card|netlist)\s*:\s*(.*)$", raw, re.IGNORECASE | re.DOTALL)
     if m is None:
         if raw.lower().endswith(_NETLIST_SUFFIXES) or (base / raw).is_file():
@@ -503,8 +553,9 @@ def read_spec(text: str, label: str, *, fs_hz: float | None = None, base_dir: Pa
             for item in _spec_list(table["tol"], label, "tol"):
                 name, sep, value = item.partition(":")
                 if not sep:
-                    raise InputError(f"expected NAME:VALUE pairs such as R:1%,C:5%, found {item!r}", where=label,
-                                     key="tol")
+                    raise InputError(
+                        f"expected NAME:VALUE pairs such as R:1%,C:5%, found {item!r}", where=label, key="tol"
+                    )
                 tol[name] = value
             table["tol"] = tol
     table = {_SPEC_WORDS.get(k, k): v for k, v in table.items()}
@@ -531,10 +582,22 @@ def _expression_spec(text: str, label: str, fs_hz: float | None) -> GivenForm:
     ctrl = from_expression(text, fs_hz=None if not _mentions_z(text) else fs_hz, label=label)
     if ctrl.is_digital:
         a0 = ctrl.a[0]
-        return GivenForm(name=label, form="digital", where=label,
-                         data={"b": [x / a0 for x in ctrl.b], "a": [x / a0 for x in ctrl.a], "fs_hz": ctrl.fs_hz,
-                               "delay_s": 0.0, "delay_samples": None, "output_limits": None,
-                               "word_format": "float64", "structure": "direct", "expression": text})
+        return GivenForm(
+            name=label,
+            form="digital",
+            where=label,
+            data={
+                "b": [x / a0 for x in ctrl.b],
+                "a": [x / a0 for x in ctrl.a],
+                "fs_hz": ctrl.fs_hz,
+                "delay_s": 0.0,
+                "delay_samples": None,
+                "output_limits": None,
+                "word_format": "float64",
+                "structure": "direct",
+                "expression": text,
+            },
+        )
     return GivenForm(name=label, form="analog", where=label, data={"expression": text, "controller": ctrl})
 
 
@@ -556,8 +619,12 @@ def as_source(given: GivenForm):
         for key, default in (("delay_s", 0.0), ("delay_samples", None), ("word_format", "float64")):
             if d.get(key, default) != default:
                 word = {"delay_s": "delay", "delay_samples": "delay", "word_format": "word"}[key]
-                raise InputError("the reference form is taken as written; give delays and word formats to the form "
-                                 "being checked (B)", where=given.where, key=word)
+                raise InputError(
+                    "the reference form is taken as written; give delays and word formats to the form "
+                    "being checked (B)",
+                    where=given.where,
+                    key=word,
+                )
         if given.form == "pid":
             b, a = pid_block_b_a(d["pid"], d["fs_hz"], d["method"])
         else:
@@ -568,11 +635,24 @@ def as_source(given: GivenForm):
             return Source("expression", {"expression": d["expression"], "controller": d["controller"]}, given.where)
         return Source("pid", {"settings": d["settings"]}, given.where)
     if d.get("tolerances"):  # a catalog card or a netlist: one reference response, not a spread of them
-        raise InputError("the reference card is taken as drawn; give tolerances to the form being checked (B), "
-                         "e.g. swap A and B to see the spread of this card", where=given.where, key="tol")
+        raise InputError(
+            "the reference card is taken as drawn; give tolerances to the form being checked (B), "
+            "e.g. swap A and B to see the spread of this card",
+            where=given.where,
+            key="tol",
+        )
     if "netlist" in d:
-        return Source("netlist", {"file": d["netlist"], "input": d["input"], "output": d["output"],
-                                  "setpoint": d["setpoint"], "measurement": d["measurement"]}, given.where)
+        return Source(
+            "netlist",
+            {
+                "file": d["netlist"],
+                "input": d["input"],
+                "output": d["output"],
+                "setpoint": d["setpoint"],
+                "measurement": d["measurement"],
+            },
+            given.where,
+        )
     return Source("card", {"topology": d["topology"], "parts": d["parts"], "tolerances": {}}, given.where)
 
 
@@ -584,17 +664,46 @@ def given_from_source(src, name: str = "source") -> GivenForm:
     if src.form == "pid":
         from convert.pid import pid_from_mapping
 
-        return GivenForm(name, "analog", {"settings": dict(d["settings"]),
-                                          "pid": pid_from_mapping(d["settings"], where=src.where)}, src.where)
+        return GivenForm(
+            name,
+            "analog",
+            {"settings": dict(d["settings"]), "pid": pid_from_mapping(d["settings"], where=src.where)},
+            src.where,
+        )
     if src.form == "digital":
         a0 = d["a"][0]
-        return GivenForm(name, "digital", {"b": [x / a0 for x in d["b"]], "a": [x / a0 for x in d["a"]],
-                                           "fs_hz": d["fs_hz"], "delay_s": 0.0, "delay_samples": None,
-                                           "output_limits": None, "word_format": "float64", "structure": "direct"},
-                         src.where)
+        return GivenForm(
+            name,
+            "digital",
+            {
+                "b": [x / a0 for x in d["b"]],
+                "a": [x / a0 for x in d["a"]],
+                "fs_hz": d["fs_hz"],
+                "delay_s": 0.0,
+                "delay_samples": None,
+                "output_limits": None,
+                "word_format": "float64",
+                "structure": "direct",
+            },
+            src.where,
+        )
     if src.form == "card":
-        return GivenForm(name, "circuit", {"topology": d["topology"], "parts": dict(d["parts"]),
-                                           "tolerances": dict(d.get("tolerances") or {})}, src.where)
-    return GivenForm(name, "circuit", {"netlist": d["file"], "input": d["input"], "output": d["output"],
-                                       "setpoint": d["setpoint"], "measurement": d["measurement"], "tolerances": {}},
-                     src.where)
+        return GivenForm(
+            name,
+            "circuit",
+            {"topology": d["topology"], "parts": dict(d["parts"]), "tolerances": dict(d.get("tolerances") or {})},
+            src.where,
+        )
+    return GivenForm(
+        name,
+        "circuit",
+        {
+            "netlist": d["file"],
+            "input": d["input"],
+            "output": d["output"],
+            "setpoint": d["setpoint"],
+            "measurement": d["measurement"],
+            "tolerances": {},
+        },
+        src.where,
+    )

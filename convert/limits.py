@@ -60,8 +60,11 @@ def max_input_bytes() -> int:
     except ValueError:
         mb = -1.0
     if not (mb > 0 and mb < 1e6):
-        raise InputError(f"expected a size in MiB from 0 to 1,000,000, found {excerpt(raw)}",
-                         where="environment", key=INPUT_LIMIT_VARIABLE)
+        raise InputError(
+            f"expected a size in MiB from 0 to 1,000,000, found {excerpt(raw)}",
+            where="environment",
+            key=INPUT_LIMIT_VARIABLE,
+        )
     return int(mb * 1024 * 1024)
 
 
@@ -77,8 +80,9 @@ def read_input_text(path, *, what: str = "file") -> str:
     try:
         fd = os.open(name, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
     except FileNotFoundError:
-        raise InputError("no such case file" if what == "case file" else f"no such file (expected a {what})",
-                         where=name) from None
+        raise InputError(
+            "no such case file" if what == "case file" else f"no such file (expected a {what})", where=name
+        ) from None
     except IsADirectoryError:
         raise InputError(f"expected a {what}, found a folder", where=name) from None
     except OSError as exc:
@@ -111,8 +115,10 @@ def read_input_text(path, *, what: str = "file") -> str:
 
 def _too_big(what: str, size: int | None, limit: int) -> str:
     found = f"it has {size:,} bytes" if size is not None else "it is larger"
-    return (f"the {what} is larger than the input limit of {limit:,} bytes ({found}); "
-            f"set {INPUT_LIMIT_VARIABLE} to a larger size in MiB to read it")
+    return (
+        f"the {what} is larger than the input limit of {limit:,} bytes ({found}); "
+        f"set {INPUT_LIMIT_VARIABLE} to a larger size in MiB to read it"
+    )
 
 
 def _file_kind(mode: int) -> str:

@@ -46,7 +46,8 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from typing import Any, Mapping, Sequence
+from typing import Any
+from collections.abc import Mapping, Sequence
 
 from convert.errors import InputError, UnrealizableError
 
@@ -142,8 +143,10 @@ class IdealForm(_GainTimesForm):
     """Ideal (standard, non-interacting) PID: ``Kc·(1 + 1/(Ti·s) + Td·s/((Td/N)·s + 1))``
     (fields: see :class:`_GainTimesForm`)."""
 
-    def to_settings(self) -> "PidSettings":
-        return PidSettings.from_ideal(self.kc, self.ti_s, self.td_s, tf_s=self.tf_s, b=self.b, c=self.c, action=self.action)
+    def to_settings(self) -> PidSettings:
+        return PidSettings.from_ideal(
+            self.kc, self.ti_s, self.td_s, tf_s=self.tf_s, b=self.b, c=self.c, action=self.action
+        )
 
 
 @dataclass(frozen=True)
@@ -155,8 +158,10 @@ class SeriesForm(_GainTimesForm):
     ``Ti' ≥ Td'``.
     """
 
-    def to_settings(self) -> "PidSettings":
-        return PidSettings.from_series(self.kc, self.ti_s, self.td_s, tf_s=self.tf_s, b=self.b, c=self.c, action=self.action)
+    def to_settings(self) -> PidSettings:
+        return PidSettings.from_series(
+            self.kc, self.ti_s, self.td_s, tf_s=self.tf_s, b=self.b, c=self.c, action=self.action
+        )
 
 
 # ============================================================================ canonical settings
@@ -204,7 +209,7 @@ class PidSettings:
 
     @property
     def kind(self) -> str:
-        """"P", "PI", "PD", "PID", "I", "ID" or "D" by which gains are non-zero."""
+        """ "P", "PI", "PD", "PID", "I", "ID" or "D" by which gains are non-zero."""
         return "".join(letter for letter, k in (("P", self.kp), ("I", self.ki), ("D", self.kd)) if k > 0)
 
     @property
@@ -250,7 +255,9 @@ class PidSettings:
     def ideal(self) -> IdealForm:
         """The ideal (standard) form. Raises :class:`UnrealizableError` when kp = 0."""
         if self.kp <= 0:
-            raise UnrealizableError(f"the ideal form needs a proportional gain; this {self.kind} set has kp = 0", key="kp")
+            raise UnrealizableError(
+                f"the ideal form needs a proportional gain; this {self.kind} set has kp = 0", key="kp"
+            )
         ti = None if self.ki == 0 else self.kp / self.ki
         return IdealForm(self.kp, ti, self.kd / self.kp, self.tf, self.b, self.c, self.action)
 
@@ -261,13 +268,15 @@ class PidSettings:
         (Ti < 4·Td without a filter; ``(kp + ki·tf)² < 4·ki·(kp·tf + kd)`` with one).
         """
         if self.kp <= 0:
-            raise UnrealizableError(f"the series form needs a proportional gain; this {self.kind} set has kp = 0", key="kp")
+            raise UnrealizableError(
+                f"the series form needs a proportional gain; this {self.kind} set has kp = 0", key="kp"
+            )
         tf = self.tf
         if self.ki == 0:
             td = self.kd / self.kp + tf if self.kd > 0 else 0.0
             return SeriesForm(self.kp, None, td, tf, self.b, self.c, self.action)
-        quad = self.kp * tf + self.kd          # coefficient of s² over 1: K'·Td'
-        lin = self.kp + self.ki * tf           # K'·(Ti' + Td')/Ti'
+        quad = self.kp * tf + self.kd  # coefficient of s² over 1: K'·Td'
+        lin = self.kp + self.ki * tf  # K'·(Ti' + Td')/Ti'
         disc = lin * lin - 4.0 * quad * self.ki
         if disc < 0:
             if disc < -1e-12 * lin * lin:
@@ -290,7 +299,7 @@ class PidSettings:
                 ti_series, td_series = td_series, ti_series  # the assignment the user gave (Ti′ < Td′)
         return SeriesForm(self.ki * ti_series, ti_series, td_series, tf, self.b, self.c, self.action)
 
-    def with_action(self, action: str) -> "PidSettings":
+    def with_action(self, action: str) -> PidSettings:
         return PidSettings(self.kp, self.ki, self.kd, self.tf, self.b, self.c, action, given_series=self.given_series)
 
     def table(self) -> dict[str, Any]:
@@ -321,8 +330,18 @@ class PidSettings:
 
     # ------------------------------------------------------------------ constructors from forms
     @classmethod
-    def from_ideal(cls, kc: float, ti_s: float | None = None, td_s: float = 0.0, *, n: float | None = None,
-                   tf_s: float | None = None, b: float = 1.0, c: float = 1.0, action: str = "reverse") -> "PidSettings":
+    def from_ideal(
+        cls,
+        kc: float,
+        ti_s: float | None = None,
+        td_s: float = 0.0,
+        *,
+        n: float | None = None,
+        tf_s: float | None = None,
+        b: float = 1.0,
+        c: float = 1.0,
+        action: str = "reverse",
+    ) -> PidSettings:
         """From the ideal form; ``ti_s=None`` means no integral action. Give the filter as ``n``
         (tf = Td/N) or ``tf_s``, not both."""
         kc = _check_number(kc, "kc", strict=True)
@@ -332,8 +351,18 @@ class PidSettings:
         return cls(kc, 0.0 if ti is None else kc / ti, kc * td, tf, b, c, action)
 
     @classmethod
-    def from_series(cls, kc: float, ti_s: float | None = None, td_s: float = 0.0, *, n: float | None = None,
-                    tf_s: float | None = None, b: float = 1.0, c: float = 1.0, action: str = "reverse") -> "PidSettings":
+    def from_series(
+        cls,
+        kc: float,
+        ti_s: float | None = None,
+        td_s: float = 0.0,
+        *,
+        n: float | None = None,
+        tf_s: float | None = None,
+        b: float = 1.0,
+        c: float = 1.0,
+        action: str = "reverse",
+    ) -> PidSettings:
         """From the series form (K', Ti', Td', filter N' = Td'/Tf or ``tf_s``); exact.
 
         Raises :class:`UnrealizableError` when the parallel gains would be negative: kd < 0 when
@@ -395,14 +424,18 @@ def lead_lag(gain: float, zero_hz: float, pole_hz: float, *, name: str = ""):
 def lead(gain: float, zero_hz: float, pole_hz: float, *, name: str = "lead"):
     """Phase lead ``gain·(s/wz + 1)/(s/wp + 1)``, zero below the pole (``zero_hz < pole_hz``)."""
     if not zero_hz < pole_hz:
-        raise InputError(f"a lead has its zero below its pole; found zero {zero_hz:g} Hz, pole {pole_hz:g} Hz", key="zero_hz")
+        raise InputError(
+            f"a lead has its zero below its pole; found zero {zero_hz:g} Hz, pole {pole_hz:g} Hz", key="zero_hz"
+        )
     return lead_lag(gain, zero_hz, pole_hz, name=name)
 
 
 def lag(gain: float, zero_hz: float, pole_hz: float, *, name: str = "lag"):
     """Phase lag ``gain·(s/wz + 1)/(s/wp + 1)``, pole below the zero (``pole_hz < zero_hz``)."""
     if not pole_hz < zero_hz:
-        raise InputError(f"a lag has its pole below its zero; found zero {zero_hz:g} Hz, pole {pole_hz:g} Hz", key="pole_hz")
+        raise InputError(
+            f"a lag has its pole below its zero; found zero {zero_hz:g} Hz, pole {pole_hz:g} Hz", key="pole_hz"
+        )
     return lead_lag(gain, zero_hz, pole_hz, name=name)
 
 
@@ -515,8 +548,10 @@ def _fit(controller) -> tuple[PidSettings | None, str | None]:
         action = "direct"
         gains = {k: abs(g) for k, g in gains.items()}  # abs, not negation: no -0.0 in the settings
     elif tf > 0 and kd < 0 <= min(kp, ki) and kp + ki > 0:
-        return None, (f"its derivative gain would be negative (kd = {kd:.6g} s): a P or PI followed by a low-pass "
-                      f"(tf = {tf:.6g} s), not a PID with a derivative filter")
+        return None, (
+            f"its derivative gain would be negative (kd = {kd:.6g} s): a P or PI followed by a low-pass "
+            f"(tf = {tf:.6g} s), not a PID with a derivative filter"
+        )
     else:
         listed = ", ".join(f"{k} = {v:.6g}" for k, v in gains.items())
         return None, f"its parallel gains have mixed signs ({listed}); a PID has one action (is it a lag or lead-lag?)"
@@ -546,7 +581,9 @@ def pid_from_words(words: Sequence[str], where: str = "--pid") -> PidSettings:
         if key in mapping:
             raise InputError(f"given twice ({key}={mapping[key]} and {key}={value})", where=where, key=key)
         if value.strip() == "":
-            raise InputError(f"no value after '=' (write it without spaces, e.g. {key}=2, or quote it)", where=where, key=key)
+            raise InputError(
+                f"no value after '=' (write it without spaces, e.g. {key}=2, or quote it)", where=where, key=key
+            )
         mapping[key] = value
     return pid_from_mapping(mapping, where)
 
@@ -591,8 +628,11 @@ def _value(data: Mapping[str, Any], key: str, kind: str, where: str) -> float:
         value = parse_value(data[key], kind, field=key)
         if kind == "percent" and not str(data[key]).strip().endswith("%") and 0 < value <= 1:
             # a bare number is a percentage here; at or below 1 it may be a fraction meant as 100x that
-            raise InputError(f"{str(data[key]).strip()} is ambiguous: as a percentage it is {value:g} %, as a fraction "
-                             f"{value * 100:g} %; write {key}={value:g}% or {key}={value * 100:g}%", key=key)
+            raise InputError(
+                f"{str(data[key]).strip()} is ambiguous: as a percentage it is {value:g} %, as a fraction "
+                f"{value * 100:g} %; write {key}={value:g}% or {key}={value * 100:g}%",
+                key=key,
+            )
         return value
     except InputError as exc:
         raise InputError(exc.message, where=where, key=key) from None
@@ -610,12 +650,17 @@ def _rate(data: Mapping[str, Any], key: str, bare_per_s: float, where: str) -> f
             left, _, right = text.partition("/")
             if key != "reset" and re.search(r"repeats?\s*$", left.strip()):
                 # repeats per minute is a reset rate (1/Ti); as ki it would silently drop the gain
-                raise InputError(f"'repeats' belong to a reset rate; write reset={text.strip()} (Ti = 1/reset) "
-                                 f"or ki as a gain per time, e.g. ki=6/min", key=key)
+                raise InputError(
+                    f"'repeats' belong to a reset rate; write reset={text.strip()} (Ti = 1/reset) "
+                    f"or ki as a gain per time, e.g. ki=6/min",
+                    key=key,
+                )
             left = re.sub(r"\s*repeats?\s*$", "", left.strip())
             count = parse_value(left, "number", field=key)
             right = right.strip()
-            period = parse_value(right if right[:1].isdigit() or right[:1] == "." else f"1 {right}", "second", field=key)
+            period = parse_value(
+                right if right[:1].isdigit() or right[:1] == "." else f"1 {right}", "second", field=key
+            )
             if period <= 0:
                 raise InputError(f"the time after '/' must be positive, found {right!r}", key=key)
             return count / period
@@ -644,7 +689,9 @@ def _settings_from(data: dict[str, Any], where: str) -> PidSettings:
 
             close = difflib.get_close_matches(text, list(FORMS) + list(FORM_ALIASES), n=1)
             hint = f"; did you mean {close[0]}?" if close else ""
-            raise InputError(f"expected parallel, ideal or series, found {data['form']!r}{hint}", where=where, key="form")
+            raise InputError(
+                f"expected parallel, ideal or series, found {data['form']!r}{hint}", where=where, key="form"
+            )
         form = text
     action = "reverse"
     if "action" in data:
@@ -657,14 +704,21 @@ def _settings_from(data: dict[str, Any], where: str) -> PidSettings:
     if par and std:
         raise InputError(
             f"{par[0]} belongs to the parallel form and {std[0]} to the ideal/series forms; use one form's keys",
-            where=where, key=par[0])
+            where=where,
+            key=par[0],
+        )
     if form is None:
         form = "parallel" if par else "ideal"
     if form == "parallel" and std:
-        raise InputError(f"form=parallel takes kp, ki, kd; {std[0]} belongs to the ideal/series forms", where=where, key=std[0])
+        raise InputError(
+            f"form=parallel takes kp, ki, kd; {std[0]} belongs to the ideal/series forms", where=where, key=std[0]
+        )
     if form != "parallel" and par:
-        raise InputError(f"form={form} takes kc (or pb), ti (or reset), td; {par[0]} belongs to the parallel form",
-                         where=where, key=par[0])
+        raise InputError(
+            f"form={form} takes kc (or pb), ti (or reset), td; {par[0]} belongs to the parallel form",
+            where=where,
+            key=par[0],
+        )
     for a, b_ in (("kc", "pb"), ("ti", "reset"), ("n", "tf")):
         if a in data and b_ in data:
             raise InputError(f"conflicting: give {a} or {b_}, not both", where=where, key=b_)
@@ -676,10 +730,24 @@ def _settings_from(data: dict[str, Any], where: str) -> PidSettings:
 
     if form == "parallel":
         if not par:
-            raise InputError("missing gains: give at least one of kp, ki, kd (e.g. kp=2 ki=0.1/s)", where=where, key="kp")
-        kp = _positive(_value(data, "kp", "number", where), "kp", where, allow_zero=True, hint=_SIGN_HINT) if "kp" in data else 0.0
-        ki = _positive(_rate(data, "ki", 1.0, where), "ki", where, allow_zero=True, hint=_SIGN_HINT) if "ki" in data else 0.0
-        kd = _positive(_value(data, "kd", "second", where), "kd", where, allow_zero=True, hint=_SIGN_HINT) if "kd" in data else 0.0
+            raise InputError(
+                "missing gains: give at least one of kp, ki, kd (e.g. kp=2 ki=0.1/s)", where=where, key="kp"
+            )
+        kp = (
+            _positive(_value(data, "kp", "number", where), "kp", where, allow_zero=True, hint=_SIGN_HINT)
+            if "kp" in data
+            else 0.0
+        )
+        ki = (
+            _positive(_rate(data, "ki", 1.0, where), "ki", where, allow_zero=True, hint=_SIGN_HINT)
+            if "ki" in data
+            else 0.0
+        )
+        kd = (
+            _positive(_value(data, "kd", "second", where), "kd", where, allow_zero=True, hint=_SIGN_HINT)
+            if "kd" in data
+            else 0.0
+        )
         if kp == 0 and ki == 0 and kd == 0:
             raise InputError("all gains are zero; a PID needs at least one non-zero gain", where=where, key=par[0])
         filter_key = "n" if n is not None else ("tf" if tf else None)
@@ -687,8 +755,11 @@ def _settings_from(data: dict[str, Any], where: str) -> PidSettings:
             raise InputError("a derivative filter needs a derivative gain (kd)", where=where, key=filter_key)
         if n is not None:
             if kp == 0:
-                raise InputError("n in the parallel form means tf = kd/(kp·n) and needs kp > 0; give tf instead",
-                                 where=where, key="n")
+                raise InputError(
+                    "n in the parallel form means tf = kd/(kp·n) and needs kp > 0; give tf instead",
+                    where=where,
+                    key="n",
+                )
             tf_s = kd / (kp * n)
         else:
             tf_s = tf or 0.0
@@ -704,11 +775,15 @@ def _settings_from(data: dict[str, Any], where: str) -> PidSettings:
     if "ti" in data:
         ti = _positive(_value(data, "ti", "second", where), "ti", where, hint="; leave ti out for no integral action")
     elif "reset" in data:
-        rate = _positive(_rate(data, "reset", 1.0 / 60.0, where), "reset", where, hint="; leave reset out for no integral action")
+        rate = _positive(
+            _rate(data, "reset", 1.0 / 60.0, where), "reset", where, hint="; leave reset out for no integral action"
+        )
         ti = 1.0 / rate
     td = _positive(_value(data, "td", "second", where), "td", where, allow_zero=True) if "td" in data else 0.0
     if (n is not None or tf) and td == 0:
-        raise InputError("a derivative filter needs a derivative time (td)", where=where, key="n" if n is not None else "tf")
+        raise InputError(
+            "a derivative filter needs a derivative time (td)", where=where, key="n" if n is not None else "tf"
+        )
     builder = PidSettings.from_ideal if form == "ideal" else PidSettings.from_series
     try:
         return builder(kc, ti, td, n=n, tf_s=tf if n is None else None, b=b, c=c, action=action)

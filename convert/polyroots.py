@@ -53,8 +53,12 @@ class Root:
     error: float
 
     def as_dict(self) -> dict:
-        return {"re": float(self.value.real), "im": float(self.value.imag), "multiplicity": self.multiplicity,
-                "accuracy": float(self.error)}
+        return {
+            "re": float(self.value.real),
+            "im": float(self.value.imag),
+            "multiplicity": self.multiplicity,
+            "accuracy": float(self.error),
+        }
 
 
 def _taylor(p: np.ndarray, c: complex, upto: int) -> tuple[np.ndarray, np.ndarray]:

@@ -104,16 +104,17 @@ def parse_value(text: str | float | int, kind: str = "number", *, field: str = "
         try:
             value = float(text)
         except OverflowError:  # an integer beyond the double range (a TOML integer of 400 digits)
-            raise InputError(f"expected a finite value ({KIND_NAMES[kind]}), found an integer of "
-                             f"{len(str(abs(text))):,} digits", key=field) from None
+            raise InputError(
+                f"expected a finite value ({KIND_NAMES[kind]}), found an integer of {len(str(abs(text))):,} digits",
+                key=field,
+            ) from None
         _check_finite(value, field, kind, excerpt(text))
         _check_underflow(value, repr(text), field, repr(text))
         return value
     if not isinstance(text, str):
         raise InputError(f"expected {KIND_NAMES[kind]}, found {type(text).__name__}", key=field)
     if len(text) > 2 * MAX_NUMBER_DIGITS:
-        raise InputError(f"expected {KIND_NAMES[kind]}, found {excerpt(text, 20)}",
-                         key=field)
+        raise InputError(f"expected {KIND_NAMES[kind]}, found {excerpt(text, 20)}", key=field)
     m = _VALUE_RE.match(text)
     if not m:
         lowered = text.strip().lower()
@@ -147,7 +148,7 @@ def parse_fraction(text: str | float | int, *, field: str = "value", allow_one: 
         shown = text.strip() if isinstance(text, str) else f"{value:g}"
         raise InputError(
             f"{shown} is ambiguous in a percentage field: as a fraction it is {value * 100:g} %, as a percentage "
-            f"it is {value:g} % (= {value / 100:g}); write \"{value:g} %\" or \"{value * 100:g} %\"",
+            f'it is {value:g} % (= {value / 100:g}); write "{value:g} %" or "{value * 100:g} %"',
             key=field,
         )
     return value
@@ -158,8 +159,11 @@ def _check_underflow(value: float, number_text: str, field: str, shown: str, whe
     refused: it would silently become 0 or lose its digits (``1e-320`` as a netlist part value
     divided by zero in the nodal analysis)."""
     if abs(value) < 2.2250738585072014e-308 and Decimal(number_text) != 0:
-        raise InputError(f"expected a number within double precision, found {excerpt(shown)}: too small "
-                         "(below about 2.2e-308)", where=where, key=field)
+        raise InputError(
+            f"expected a number within double precision, found {excerpt(shown)}: too small (below about 2.2e-308)",
+            where=where,
+            key=field,
+        )
 
 
 def _check_number_text(number_text: str, shown: str, *, key: str, where: str | None) -> None:
@@ -168,8 +172,12 @@ def _check_number_text(number_text: str, shown: str, *, key: str, where: str | N
     mantissa, _, exp = number_text.lower().lstrip("+-").partition("e")
     digits = exp.lstrip("+-").lstrip("0")
     if len(mantissa) > MAX_NUMBER_DIGITS or len(digits) > 4 or (digits and int(digits) > MAX_EXPONENT):
-        raise InputError(f"the number {excerpt(shown, 20)} is out of range (at most {MAX_NUMBER_DIGITS} digits and "
-                         f"an exponent of ±{MAX_EXPONENT}; a finite value is needed)", where=where, key=key)
+        raise InputError(
+            f"the number {excerpt(shown, 20)} is out of range (at most {MAX_NUMBER_DIGITS} digits and "
+            f"an exponent of ±{MAX_EXPONENT}; a finite value is needed)",
+            where=where,
+            key=key,
+        )
 
 
 def _scaled(number_text: str, multiplier: float) -> float:
@@ -236,7 +244,18 @@ def _split_prefix_unit(rest: str, kind: str, field: str, original: str) -> tuple
 
 
 _UNIT_SYMBOL = {"ohm": "Ω", "farad": "F", "henry": "H", "hz": "Hz", "second": "s", "volt": "V", "number": ""}
-_FORMAT_PREFIXES = [(1e12, "T"), (1e9, "G"), (1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "µ"), (1e-9, "n"), (1e-12, "p"), (1e-15, "f")]
+_FORMAT_PREFIXES = [
+    (1e12, "T"),
+    (1e9, "G"),
+    (1e6, "M"),
+    (1e3, "k"),
+    (1.0, ""),
+    (1e-3, "m"),
+    (1e-6, "µ"),
+    (1e-9, "n"),
+    (1e-12, "p"),
+    (1e-15, "f"),
+]
 
 
 def format_value(value: float, kind: str = "number", digits: int = 4) -> str:
@@ -252,7 +271,7 @@ def format_value(value: float, kind: str = "number", digits: int = 4) -> str:
     if value == 0 or not math.isfinite(value):
         return f"{value:g} {unit}".strip()
     magnitude = abs(value)
-    for scale, prefix in _FORMAT_PREFIXES:
+    for scale, prefix in _FORMAT_PREFIXES:  # noqa: B007
         if magnitude >= scale * 0.9999999:
             break
     text = f"{value / scale:.{digits}g}"
@@ -279,8 +298,11 @@ def parse_delay(text: str | float | int, *, field: str = "delay") -> tuple[float
         value = parse_value(text, "number", field=field)
         if value != 0:
             shown = text.strip() if isinstance(text, str) else f"{value:g}"
-            raise InputError(f"{shown} is ambiguous in a delay: {value:g} s or {value:g} sample(s); write "
-                             f"\"{value:g} s\" or \"{value:g} sample\"", key=field)
+            raise InputError(
+                f"{shown} is ambiguous in a delay: {value:g} s or {value:g} sample(s); write "
+                f'"{value:g} s" or "{value:g} sample"',
+                key=field,
+            )
     m = _SAMPLES_RE.match(text) if isinstance(text, str) else None
     if m:
         count = parse_value(m.group("count"), "number", field=field)
@@ -325,8 +347,7 @@ def parse_spice_number(text: str, *, where: str = "netlist", field: str = "value
     """
     token = text.strip()
     if len(token) > 2 * MAX_NUMBER_DIGITS:
-        raise InputError(f"expected a SPICE number, found {excerpt(token, 20)}",
-                         where=where, key=field)
+        raise InputError(f"expected a SPICE number, found {excerpt(token, 20)}", where=where, key=field)
     m = _SPICE_RE.match(token)
     if not m:
         if re.match(rf"^{_NUMBER}[a-zA-Zµ]+\d", token):

@@ -20,12 +20,25 @@ def _ss(c):
     import control
 
     sys = control.tf2ss(control.tf(list(c.num), list(c.den)))
-    return (np.asarray(sys.A, float), np.asarray(sys.B, float)[:, 0], np.asarray(sys.C, float)[0],
-            float(np.asarray(sys.D, float).ravel()[0]))
+    return (
+        np.asarray(sys.A, float),
+        np.asarray(sys.B, float)[:, 0],
+        np.asarray(sys.C, float)[0],
+        float(np.asarray(sys.D, float).ravel()[0]),
+    )
 
 
-def rk4_loop(controller, plant, dead_time_s: float, *, duration_s: float, h: float, kind: str = "setpoint",
-             step: float = 1.0, output_limits=None):
+def rk4_loop(
+    controller,
+    plant,
+    dead_time_s: float,
+    *,
+    duration_s: float,
+    h: float,
+    kind: str = "setpoint",
+    step: float = 1.0,
+    output_limits=None,
+):
     """(t, y, u) at steps of h (θ must be a whole number of steps, at least 2) for a setpoint or
     load step at t = 0. The plant must be strictly proper (no algebraic loop)."""
     ap, bp, cp, dp = _ss(plant)
@@ -59,8 +72,10 @@ def rk4_loop(controller, plant, dead_time_s: float, *, duration_s: float, h: flo
         if k == n:
             break
         if m == 0:  # no delay: the plant input is the controller output of the current state
+
             def w_of(xs, xcs):
                 return ctrl_out(xcs, cp @ xs) + d
+
             k1 = deriv(x, xc, w_of(x, xc))
             x2, xc2 = x + h / 2 * k1[0], xc + h / 2 * k1[1]
             k2 = deriv(x2, xc2, w_of(x2, xc2))
@@ -75,9 +90,10 @@ def rk4_loop(controller, plant, dead_time_s: float, *, duration_s: float, h: flo
             else:
                 w0, w1 = us[j] + d, us[j + 1] + d
                 idx = [0, 1, 2, 3] if j == 0 else [j - 1, j, j + 1, j + 2]
-                xs = (0.5 if j == 0 else 1.5)
-                wm = d + sum(us[i] * np.prod([(xs - q) / (p - q) for q in range(4) if q != p])
-                             for p, i in enumerate(idx))
+                xs = 0.5 if j == 0 else 1.5
+                wm = d + sum(
+                    us[i] * np.prod([(xs - q) / (p - q) for q in range(4) if q != p]) for p, i in enumerate(idx)
+                )
             k1 = deriv(x, xc, w0)
             k2 = deriv(x + h / 2 * k1[0], xc + h / 2 * k1[1], wm)
             k3 = deriv(x + h / 2 * k2[0], xc + h / 2 * k2[1], wm)
@@ -87,8 +103,9 @@ def rk4_loop(controller, plant, dead_time_s: float, *, duration_s: float, h: flo
     return np.arange(n + 1) * h, ys, us
 
 
-def stepwise_sampled_loop(controller, plant, dead_time_s, *, duration_s, steps, kind="setpoint", step=1.0,
-                          delay_s=0.0, output_limits=None):
+def stepwise_sampled_loop(
+    controller, plant, dead_time_s, *, duration_s, steps, kind="setpoint", step=1.0, delay_s=0.0, output_limits=None
+):
     """The sampled-data loop as this project simulated it before the simulation became matrix
     powers: one Python iteration per sub-step h = T/ceil(T/(duration/steps)), the plant
     discretized by scipy (matrix exponential, zero-order hold) on python-control-independent

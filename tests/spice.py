@@ -51,12 +51,19 @@ def _run_deck(netlist: str, analysis: str, output_node: str, options: str = "") 
             fh.write(deck)
         proc = subprocess.run([exe, "-b", cir], capture_output=True, text=True, timeout=120, cwd=tmp)
         if not os.path.exists(data):
-            raise AssertionError(f"ngspice produced no data (exit {proc.returncode}):\n{proc.stdout[-2000:]}\n{proc.stderr[-2000:]}")
+            raise AssertionError(
+                f"ngspice produced no data (exit {proc.returncode}):\n{proc.stdout[-2000:]}\n{proc.stderr[-2000:]}"
+            )
         return np.loadtxt(data, skiprows=1, ndmin=2)
 
 
-def ac_sweep(netlist: str, output_node: str = "out", f_start_hz: float = 0.01, f_stop_hz: float = 100.0,
-             points_per_decade: int = 20) -> tuple[np.ndarray, np.ndarray]:
+def ac_sweep(
+    netlist: str,
+    output_node: str = "out",
+    f_start_hz: float = 0.01,
+    f_stop_hz: float = 100.0,
+    points_per_decade: int = 20,
+) -> tuple[np.ndarray, np.ndarray]:
     """Simulate ``netlist`` (no analysis lines, no .end) with an AC sweep; return (f_hz, V(out)).
 
     The netlist must contain an AC 1 source. The sweep is logarithmic (``dec``).
@@ -71,13 +78,14 @@ def pwl_source(name: str, node: str, times_s, values_v) -> str:
     pairs = [f"{float(t):.12e} {float(v):.12e}" for t, v in zip(times_s, values_v)]
     lines = [f"{name} {node} 0 DC 0 PWL("]
     for i in range(0, len(pairs), 8):
-        lines.append("+ " + " ".join(pairs[i:i + 8]))
+        lines.append("+ " + " ".join(pairs[i : i + 8]))
     lines.append("+ )")
     return "\n".join(lines)
 
 
-def transient(netlist: str, t_stop_s: float, max_step_s: float, output_node: str = "out",
-              reltol: float = 1e-6) -> tuple[np.ndarray, np.ndarray]:
+def transient(
+    netlist: str, t_stop_s: float, max_step_s: float, output_node: str = "out", reltol: float = 1e-6
+) -> tuple[np.ndarray, np.ndarray]:
     """Simulate ``netlist`` (no analysis lines, no .end) with ngspice ``tran``; return (t_s, V(out))
     at ngspice's own time points (interpolate them to the instants you need).
 
@@ -86,6 +94,10 @@ def transient(netlist: str, t_stop_s: float, max_step_s: float, output_node: str
     than the tolerances it checks. The simulation starts from zero (``uic``: capacitors
     uncharged, as a card switched on with its integrator reset).
     """
-    rows = _run_deck(netlist, f"tran {max_step_s:.9e} {t_stop_s:.9e} 0 {max_step_s:.9e} uic", output_node,
-                     options=f".options reltol={reltol:g} abstol=1e-15 vntol=1e-12\n")
+    rows = _run_deck(
+        netlist,
+        f"tran {max_step_s:.9e} {t_stop_s:.9e} 0 {max_step_s:.9e} uic",
+        output_node,
+        options=f".options reltol={reltol:g} abstol=1e-15 vntol=1e-12\n",
+    )
     return rows[:, 0], rows[:, 1]

@@ -15,8 +15,20 @@ import re
 import numpy as np
 
 TOKEN = re.compile(r"\s*(?:(?P<num>\d+\.\d+(?:E[-+]?\d+)?)|(?P<id>[A-Za-z_][A-Za-z0-9_]*)|(?P<op>:=|[-+*();:]))", re.I)
-KEYWORDS = {"FUNCTION_BLOCK", "END_FUNCTION_BLOCK", "VAR_INPUT", "VAR_OUTPUT", "VAR", "END_VAR", "IF", "THEN",
-            "END_IF", "REAL", "LREAL", "BOOL"}
+KEYWORDS = {
+    "FUNCTION_BLOCK",
+    "END_FUNCTION_BLOCK",
+    "VAR_INPUT",
+    "VAR_OUTPUT",
+    "VAR",
+    "END_VAR",
+    "IF",
+    "THEN",
+    "END_IF",
+    "REAL",
+    "LREAL",
+    "BOOL",
+}
 
 
 class STError(ValueError):
@@ -31,7 +43,7 @@ def tokens(text: str) -> list[str]:
             break
         m = TOKEN.match(text, pos)
         if not m:
-            raise STError(f"unexpected text at {pos}: {text[pos:pos + 20]!r}")
+            raise STError(f"unexpected text at {pos}: {text[pos : pos + 20]!r}")
         out.append(m.group(m.lastgroup))
         pos = m.end()
     return out

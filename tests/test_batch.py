@@ -97,8 +97,7 @@ def test_dask_local_cluster_runs_the_batch(case_dir, tmp_path, run_cli):
     pytest.importorskip("distributed", reason="dask.distributed is not installed (the [cluster] extra)")
     (case_dir / "broken.toml").unlink()
     local = run_cli("batch", str(case_dir), "--out", str(tmp_path / "one"), "--workers", "1")
-    dask = run_cli("batch", str(case_dir), "--out", str(tmp_path / "dask"), "--scheduler", "local",
-                   "--workers", "2")
+    dask = run_cli("batch", str(case_dir), "--out", str(tmp_path / "dask"), "--scheduler", "local", "--workers", "2")
     assert local.code == dask.code == 1, dask.err
     a = json.loads((tmp_path / "one" / "batch.json").read_text())
     b = json.loads((tmp_path / "dask" / "batch.json").read_text())
@@ -110,8 +109,12 @@ def test_same_stem_in_two_folders_gets_two_reports(tmp_path, run_cli):
         (tmp_path / sub).mkdir()
         shutil.copy(CASES / PASSING, tmp_path / sub / "loop.toml")
     out = tmp_path / "out"
-    assert run_cli("batch", str(tmp_path / "unit1"), str(tmp_path / "unit2" / "loop.toml"),
-                   "--out", str(out), "--workers", "1").code == 0
+    assert (
+        run_cli(
+            "batch", str(tmp_path / "unit1"), str(tmp_path / "unit2" / "loop.toml"), "--out", str(out), "--workers", "1"
+        ).code
+        == 0
+    )
     assert (out / "loop" / "report.html").is_file() and (out / "loop-2" / "report.html").is_file()
 
 
@@ -131,12 +134,15 @@ def test_user_folder_and_earlier_batch_are_not_overwritten(case_dir, tmp_path, r
     assert run_cli("batch", str(case_dir), "--out", str(out), "--workers", "1", "--force").code == 1
 
 
-@pytest.mark.parametrize("argv, words", [
-    (["batch", "no/such/folder"], "no such case file"),
-    (["batch", "cases", "--workers", "0"], "1 to 256 workers"),
-    (["batch", "cases", "--workers", "two"], "whole number"),
-    (["batch", "cases", "--draws", "0"], "draws"),
-])
+@pytest.mark.parametrize(
+    "argv, words",
+    [
+        (["batch", "no/such/folder"], "no such case file"),
+        (["batch", "cases", "--workers", "0"], "1 to 256 workers"),
+        (["batch", "cases", "--workers", "two"], "whole number"),
+        (["batch", "cases", "--draws", "0"], "draws"),
+    ],
+)
 def test_bad_batch_input_is_one_line(argv, words, run_cli, tmp_path, monkeypatch):
     monkeypatch.chdir(CASES.parent)
     r = run_cli(*argv, "--out", str(tmp_path / "x"))

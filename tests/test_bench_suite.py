@@ -26,8 +26,9 @@ def test_every_benchmark_script_is_in_the_suite():
     from bench.__main__ import SUITE
 
     scripts = {p.stem for p in (ROOT / "bench").glob("*.py")} - HELPERS
-    assert scripts == set(SUITE), f"bench/ scripts not in SUITE: {scripts - set(SUITE)}; " \
-                                  f"SUITE entries without a script: {set(SUITE) - scripts}"
+    assert scripts == set(SUITE), (
+        f"bench/ scripts not in SUITE: {scripts - set(SUITE)}; SUITE entries without a script: {set(SUITE) - scripts}"
+    )
     assert all(_defines_measure(ROOT / "bench" / f"{name}.py") for name in SUITE)
 
 
@@ -37,8 +38,11 @@ def test_the_floor_draws_the_same_figures_as_the_report(tmp_path):
     case = ROOT / "cases" / "pi_card_to_firmware.toml"
     recording, names = record(case, None, tmp_path)
     assert "bode.png" in names
-    proc = subprocess.run([sys.executable, str(ROOT / "bench" / "floor.py"), str(recording), str(tmp_path / "floor")],
-                          capture_output=True, text=True)
+    proc = subprocess.run(
+        [sys.executable, str(ROOT / "bench" / "floor.py"), str(recording), str(tmp_path / "floor")],
+        capture_output=True,
+        text=True,
+    )
     assert proc.returncode == 0, proc.stderr
     assert len(list((tmp_path / "floor" / "figures").glob("*.png"))) == len(names)
     assert unmatched(tmp_path / "recorded", tmp_path / "floor") == []

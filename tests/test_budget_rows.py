@@ -67,8 +67,9 @@ def test_monte_carlo_row_says_how_many_draws_lack_a_margin():
         return {"phase_margin_deg": gains.copy(), "gain_margin_db": gm, "sensitivity_peak_db": gains.copy()}
 
     spec = bud.LoopSpec(f, margins)
-    row = bud.error_row("tolerances", f, ref, cand, note="x", percentile=99.0, loop=spec, loop_reference=ref,
-                        loop_candidate=cand)
+    row = bud.error_row(
+        "tolerances", f, ref, cand, note="x", percentile=99.0, loop=spec, loop_reference=ref, loop_candidate=cand
+    )
     assert "11 draws have no gain margin" in row.note
     assert "phase margin" not in row.note
     assert abs(row.delta_gain_margin_db) == pytest.approx(np.percentile(gm[np.isfinite(gm)], 99), abs=0.011)

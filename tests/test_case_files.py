@@ -54,7 +54,7 @@ def test_unknown_key_names_file_line_key_and_suggests():
 
 
 def test_unknown_table_suggests():
-    msg = _error(MINIMAL + "\n[plnat]\nmodel = \"1/(s+1)\"\n")
+    msg = _error(MINIMAL + '\n[plnat]\nmodel = "1/(s+1)"\n')
     assert msg.startswith("job.toml:12: plnat:") and "did you mean 'plant'" in msg
 
 
@@ -105,7 +105,7 @@ def test_key_lines_inline_tables_and_headers():
 def test_pid_error_points_at_the_pid_key(tmp_path):
     from convert.case import source_controller
 
-    text = MINIMAL.replace('expression = "2*(1 + 1/(30*s))"', "pid = { kc = 2, ti = \"-3 s\" }")
+    text = MINIMAL.replace('expression = "2*(1 + 1/(30*s))"', 'pid = { kc = 2, ti = "-3 s" }')
     case = parse_case(text, tmp_path / "p.toml")
     with pytest.raises(InputError) as info:
         source_controller(case)
@@ -122,9 +122,17 @@ def test_report_cli_bad_case_exit_2(run_cli, tmp_path):
     assert not (tmp_path / "r").exists()
 
 
-@pytest.mark.parametrize("written, seconds_at_10_hz", [
-    ('"20 ms"', 0.02), ('"1 sample"', 0.1), ('"2 samples"', 0.2), ('"0.5sample"', 0.05), ('"0.003 s"', 0.003), ("0", 0.0),
-])
+@pytest.mark.parametrize(
+    "written, seconds_at_10_hz",
+    [
+        ('"20 ms"', 0.02),
+        ('"1 sample"', 0.1),
+        ('"2 samples"', 0.2),
+        ('"0.5sample"', 0.05),
+        ('"0.003 s"', 0.003),
+        ("0", 0.0),
+    ],
+)
 def test_delay_in_seconds_or_samples(written, seconds_at_10_hz):
     """A computation delay reads as a time or as a count of samples (the same words as
     `loopshift digital --delay`); samples are resolved per rate as count / fs (definition)."""

@@ -25,7 +25,7 @@ def test_capacitor_dielectric_and_voltage_rating():
     voltage across (a feedback capacitor sees at most the rail). Rail 15 V -> 22.5 V -> 25 V;
     rail 5 V -> 7.5 V -> 10 V."""
     small = design_circuit(from_expression("1/(0.001*s)"), DesignOptions(c_max=100e-9))  # C1 <= 100 nF
-    big = design_circuit(from_expression("1/(3*s)"), DesignOptions(c_min=1e-6))         # C1 >= 1 uF
+    big = design_circuit(from_expression("1/(3*s)"), DesignOptions(c_min=1e-6))  # C1 >= 1 uF
     a = _lines_by_ref(buy_list(small, rail_v=15.0))["C1"]
     b = _lines_by_ref(buy_list(big, rail_v=5.0))["C1"]
     assert small.rounded["C1"] <= 100e-9 and a["type"] == "C0G/NP0 ceramic" and a["min_voltage_v"] == 25.0
@@ -42,8 +42,8 @@ def test_resistor_power_rating():
     lines = _lines_by_ref(order)
     r1, r2 = d.rounded["R1"], d.rounded["R2"]
     ratings = (0.063, 0.1, 0.125, 0.25, 0.5, 1.0, 2.0)
-    assert lines["R1"]["min_power_w"] == min(x for x in ratings if x >= 2 * 10.0 ** 2 / r1)
-    assert lines["R2"]["min_power_w"] == min(x for x in ratings if x >= 2 * 15.0 ** 2 / r2)
+    assert lines["R1"]["min_power_w"] == min(x for x in ratings if x >= 2 * 10.0**2 / r1)
+    assert lines["R2"]["min_power_w"] == min(x for x in ratings if x >= 2 * 15.0**2 / r2)
 
 
 def test_opamp_requirements_of_an_inverting_gain_stage():
@@ -115,8 +115,18 @@ def test_cli_writes_csv_and_json(run_cli, tmp_path):
 
     c, j = tmp_path / "o.csv", tmp_path / "o.json"
     for path in (c, j):
-        r = run_cli("circuit", "2*(1+1/(3*s))/(0.1*s+1)", "--rail", "12V", "--amplitude", "1V", "--draws", "0",
-                    "--buy-list", str(path))
+        r = run_cli(
+            "circuit",
+            "2*(1+1/(3*s))/(0.1*s+1)",
+            "--rail",
+            "12V",
+            "--amplitude",
+            "1V",
+            "--draws",
+            "0",
+            "--buy-list",
+            str(path),
+        )
         assert r.code == 0, r.err
     assert all(b < 128 for b in c.read_bytes())
     data = json.loads(j.read_text())

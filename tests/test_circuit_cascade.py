@@ -150,8 +150,9 @@ def test_cascade_monte_carlo_over_all_parts():
     tol = {"R": 0.01, "C": 0.05}
     f = d.f_grid(20)
     ref = d.topology.response({k: np.asarray([v]) for k, v in d.rounded.items()}, f)[0]
-    mc = run_tolerances(d.topology, d.rounded, tol, band_f_hz=f, comparisons=[Comparison("t", ref)], draws=4000,
-                        seed=3, display_f_hz=f).band
+    mc = run_tolerances(
+        d.topology, d.rounded, tol, band_f_hz=f, comparisons=[Comparison("t", ref)], draws=4000, seed=3, display_f_hz=f
+    ).band
     drawn = draw_parts(d.topology, d.rounded, tol, 4000, 3)
     h = d.topology.response(drawn, f)
     direct = np.percentile(20 * np.log10(np.abs(h)), [0.5, 99.5], axis=0)  # the engine's band (no median)

@@ -21,8 +21,22 @@ def test_json_shape(run_cli):
 
 def test_files_written_and_not_overwritten(run_cli, tmp_path):
     net, bom, sch = tmp_path / "a.cir", tmp_path / "a.csv", tmp_path / "a.svg"
-    r = run_cli("circuit", "--pid", "kc=2", "ti=3s", "td=0.5s", "n=10", "--netlist", str(net), "--bom", str(bom),
-                "--schematic", str(sch), "--draws", "0")
+    r = run_cli(
+        "circuit",
+        "--pid",
+        "kc=2",
+        "ti=3s",
+        "td=0.5s",
+        "n=10",
+        "--netlist",
+        str(net),
+        "--bom",
+        str(bom),
+        "--schematic",
+        str(sch),
+        "--draws",
+        "0",
+    )
     assert r.code == 0, r.err
     assert "VIN in 0 DC 0 AC 1" in net.read_text() and "XUINV" in net.read_text()
     assert bom.read_text().splitlines()[0] == "reference,value,series,tolerance,role"
@@ -34,16 +48,19 @@ def test_files_written_and_not_overwritten(run_cli, tmp_path):
     assert r.code == 0 and net.read_text() != before
 
 
-@pytest.mark.parametrize("argv, match", [
-    (("circuit", "2*(1+1/(0.3*s))", "--topology", "pid-magic"), "unknown topology"),
-    (("circuit", "2*(1+1/(0.3*s))", "--resistors", "E13"), "unknown E-series"),
-    (("circuit", "2*(1+1/(0.3*s))", "--r-min", "1M", "--r-max", "1k"), "above its maximum"),
-    (("circuit", "(s-1)/(s+1)"), "no catalog topology"),
-    (("circuit", "2*(1+1/(30*s))"), "R2"),
-    (("circuit", "2", "--tolerance", "R=200%"), "tolerance"),
-    (("circuit", "2", "--amplitude", "1V"), "both --amplitude and --rail"),
-    (("circuit", "2*(1+1/(0.3*s))", "--trim", "ti=1..2"), "no single resistor"),
-])
+@pytest.mark.parametrize(
+    "argv, match",
+    [
+        (("circuit", "2*(1+1/(0.3*s))", "--topology", "pid-magic"), "unknown topology"),
+        (("circuit", "2*(1+1/(0.3*s))", "--resistors", "E13"), "unknown E-series"),
+        (("circuit", "2*(1+1/(0.3*s))", "--r-min", "1M", "--r-max", "1k"), "above its maximum"),
+        (("circuit", "(s-1)/(s+1)"), "no catalog topology"),
+        (("circuit", "2*(1+1/(30*s))"), "R2"),
+        (("circuit", "2", "--tolerance", "R=200%"), "tolerance"),
+        (("circuit", "2", "--amplitude", "1V"), "both --amplitude and --rail"),
+        (("circuit", "2*(1+1/(0.3*s))", "--trim", "ti=1..2"), "no single resistor"),
+    ],
+)
 def test_bad_input_exit_2(run_cli, argv, match):
     r = run_cli(*argv)
     assert r.code == 2
@@ -71,8 +88,10 @@ def test_command_module_imports_only_argparse():
     import subprocess
     import sys
 
-    code = ("import sys; import convert.cli.circuit; "
-            "bad=[m for m in ('numpy','scipy','control','matplotlib','schemdraw','rich') if m in sys.modules]; "
-            "print(bad)")
+    code = (
+        "import sys; import convert.cli.circuit; "
+        "bad=[m for m in ('numpy','scipy','control','matplotlib','schemdraw','rich') if m in sys.modules]; "
+        "print(bad)"
+    )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout.strip()
     assert out == "[]"

@@ -22,14 +22,24 @@ def _brute_force(topo, target, options, f):
     ref = target.frequency_response(f) * (1 if target.num[0] > 0 else -1)
     best = (math.inf, None)
     for params in topo.fit(target):
-        grids = [es.values_in_range(options.series_for(topo.part(n).kind), *options.range_for(topo.part(n).kind))
-                 for n in topo.free_parts]
+        grids = [
+            es.values_in_range(options.series_for(topo.part(n).kind), *options.range_for(topo.part(n).kind))
+            for n in topo.free_parts
+        ]
         for free_vals in itertools.product(*grids):
-            nominal = {k: float(v) for k, v in topo.solve(params, dict(zip(topo.free_parts, map(np.asarray, free_vals)))).items()}
-            names = [n for n in topo.part_names if n not in topo.free_parts and n not in topo.fixed_parts
-                     and n not in {c for c, _ in topo.equal_parts}]
-            if any(not (options.range_for(topo.part(n).kind)[0] <= nominal[n] <= options.range_for(topo.part(n).kind)[1])
-                   for n in topo.part_names):
+            nominal = {
+                k: float(v)
+                for k, v in topo.solve(params, dict(zip(topo.free_parts, map(np.asarray, free_vals)))).items()
+            }
+            names = [
+                n
+                for n in topo.part_names
+                if n not in topo.free_parts and n not in topo.fixed_parts and n not in {c for c, _ in topo.equal_parts}
+            ]
+            if any(
+                not (options.range_for(topo.part(n).kind)[0] <= nominal[n] <= options.range_for(topo.part(n).kind)[1])
+                for n in topo.part_names
+            ):
                 continue
             for dirs in itertools.product(("down", "up"), repeat=len(names)):
                 parts = dict(nominal)
@@ -38,7 +48,9 @@ def _brute_force(topo, target, options, f):
                 for copy, orig in topo.equal_parts:
                     parts[copy] = parts[orig]
                 lo_hi = [options.range_for(topo.part(n).kind) for n in topo.part_names]
-                if any(not (lo * (1 - 1e-9) <= parts[n] <= hi * (1 + 1e-9)) for n, (lo, hi) in zip(topo.part_names, lo_hi)):
+                if any(
+                    not (lo * (1 - 1e-9) <= parts[n] <= hi * (1 + 1e-9)) for n, (lo, hi) in zip(topo.part_names, lo_hi)
+                ):
                     continue
                 h = topo.controller_from_parts(parts).frequency_response(f)
                 score = float(np.max(np.abs(np.log(h / ref))))
@@ -47,16 +59,20 @@ def _brute_force(topo, target, options, f):
     return best
 
 
-@pytest.mark.parametrize("expr, name, series", [
-    ("2*(1+1/(0.3*s))", "pi-rc-feedback", ("E24", "E6")),
-    ("(0.5*s+1)/(0.05*s+1)", "lead-lag-rc", ("E12", "E6")),
-    ("1.7*(1+1/(2*s))*(1+0.3*s)/(1+0.04*s)", "pid-single-amp", ("E12", "E3")),
-])
+@pytest.mark.parametrize(
+    "expr, name, series",
+    [
+        ("2*(1+1/(0.3*s))", "pi-rc-feedback", ("E24", "E6")),
+        ("(0.5*s+1)/(0.05*s+1)", "lead-lag-rc", ("E12", "E6")),
+        ("1.7*(1+1/(2*s))*(1+0.3*s)/(1+0.04*s)", "pid-single-amp", ("E12", "E3")),
+    ],
+)
 def test_search_equals_brute_force(expr, name, series):
     """Reference: exhaustive enumeration of the same search space (small grids: E6/E3 capacitors
     over 10 nF .. 10 µF), scored by plain loops over Controller.frequency_response."""
-    options = DesignOptions(topology=name, resistors=series[0], capacitors=series[1], c_min=10e-9, c_max=10e-6,
-                            points=41)
+    options = DesignOptions(
+        topology=name, resistors=series[0], capacitors=series[1], c_min=10e-9, c_max=10e-6, points=41
+    )
     target = from_expression(expr)
     design = design_circuit(target, options)
     f = np.logspace(math.log10(design.band_hz[0]), math.log10(design.band_hz[1]), 41)
@@ -70,10 +86,15 @@ def test_search_equals_brute_force(expr, name, series):
 
 
 def test_auto_picks_the_simplest_exact_topology():
-    cases = {"3": "inverting-gain", "1/(0.1*s)": "integrator-rc", "2/(0.01*s+1)": "first-order-lag",
-             "2*(1+1/(0.3*s))": "pi-rc-feedback", "(0.5*s+1)/(0.05*s+1)": "lead-lag-rc",
-             "2*(1+1/(3*s))*(1+0.5*s)/(1+0.05*s)": "pid-single-amp",
-             "(s^2+0.2*s+1)/(s*(0.01*s+1))": "pid-parallel"}
+    cases = {
+        "3": "inverting-gain",
+        "1/(0.1*s)": "integrator-rc",
+        "2/(0.01*s+1)": "first-order-lag",
+        "2*(1+1/(0.3*s))": "pi-rc-feedback",
+        "(0.5*s+1)/(0.05*s+1)": "lead-lag-rc",
+        "2*(1+1/(3*s))*(1+0.5*s)/(1+0.05*s)": "pid-single-amp",
+        "(s^2+0.2*s+1)/(s*(0.01*s+1))": "pid-parallel",
+    }
     for expr, name in cases.items():
         assert design_circuit(from_expression(expr)).topology.name == name, expr
 
@@ -110,11 +131,14 @@ def test_no_topology_realizes():
         design_circuit(from_expression("1/(s^2-0.1*s+1)"))
 
 
-@pytest.mark.parametrize("kwargs, match", [
-    ({"resistors": "E7"}, "unknown E-series"),
-    ({"r_min": 1e6, "r_max": 1e3}, "above its maximum"),
-    ({"c_min": -1e-9}, "positive finite"),
-])
+@pytest.mark.parametrize(
+    "kwargs, match",
+    [
+        ({"resistors": "E7"}, "unknown E-series"),
+        ({"r_min": 1e6, "r_max": 1e3}, "above its maximum"),
+        ({"c_min": -1e-9}, "positive finite"),
+    ],
+)
 def test_bad_options(kwargs, match):
     with pytest.raises(InputError, match=match):
         DesignOptions(**kwargs)

@@ -61,23 +61,34 @@ def test_series_settings_with_ti_below_td_keep_their_assignment(run_cli):
     the circuit both keep Ti′ = 0.7 s, Td′ = 4 s."""
     r = run_cli("show", "--pid", "kc=0.5", "ti=0.7s", "td=4s", "tf=0.02s", "form=series", "--json")
     series = json.loads(r.out)["pid"]["series"]
-    assert series["kc"] == pytest.approx(0.5) and series["ti_s"] == pytest.approx(0.7) and series["td_s"] == pytest.approx(4)
+    assert (
+        series["kc"] == pytest.approx(0.5)
+        and series["ti_s"] == pytest.approx(0.7)
+        and series["td_s"] == pytest.approx(4)
+    )
     _, d = _series(["kc=0.5", "ti=0.7s", "td=4s", "tf=0.02s", "form=series"])
     assert d.params["ti'"] == pytest.approx(0.7) and d.params["td'"] == pytest.approx(4.0)
 
 
 def test_expression_input_uses_the_assignment_show_prints():
     """Without series settings, the assignment is the one `show` prints (Ti′ ≥ Td′)."""
-    d = design_circuit(from_expression("0.5*(1 + 1/(3*s))*(1 + 1*s)/(0.02*s + 1)"),
-                       DesignOptions(topology="pid-single-amp"))
+    d = design_circuit(
+        from_expression("0.5*(1 + 1/(3*s))*(1 + 1*s)/(0.02*s + 1)"), DesignOptions(topology="pid-single-amp")
+    )
     assert d.params["ti'"] == pytest.approx(3.0) and d.params["td'"] == pytest.approx(1.0)
 
 
 TARGETS = {  # single-input topologies and a target each realizes (our own numbers)
-    "unity-inverter": "1", "inverting-gain": "2.5", "integrator-rc": "1/(3*s)", "first-order-lag": "2/(0.5*s+1)",
-    "pi-rc-feedback": "2*(1+1/(3*s))", "pd-limited": "2 + 0.5*s/(0.05*s+1)",
-    "lead-lag-rc": "2*(0.5*s+1)/(0.05*s+1)", "pid-single-amp": "2*(1+1/(3*s))*(1+0.5*s)/(0.05*s+1)",
-    "pid-parallel": "2 + 1/s + 0.5*s/(0.05*s+1)", "tow-thomas": "(s^2+2*s+100)/(s^2+20*s+100)",
+    "unity-inverter": "1",
+    "inverting-gain": "2.5",
+    "integrator-rc": "1/(3*s)",
+    "first-order-lag": "2/(0.5*s+1)",
+    "pi-rc-feedback": "2*(1+1/(3*s))",
+    "pd-limited": "2 + 0.5*s/(0.05*s+1)",
+    "lead-lag-rc": "2*(0.5*s+1)/(0.05*s+1)",
+    "pid-single-amp": "2*(1+1/(3*s))*(1+0.5*s)/(0.05*s+1)",
+    "pid-parallel": "2 + 1/s + 0.5*s/(0.05*s+1)",
+    "tow-thomas": "(s^2+2*s+100)/(s^2+20*s+100)",
 }
 
 
@@ -206,10 +217,13 @@ def test_two_input_stage_takes_either_action(action):
     assert np.max(np.abs(np.angle(fb, deg=True))) < 0.1 and np.max(np.abs(np.angle(sp_ratio, deg=True))) < 0.1
 
 
-@pytest.mark.parametrize("line,expected", [
-    ('topology = "pid-foo"', "k.toml:6: target.circuit.topology: unknown topology 'pid-foo'"),
-    ("draws = 0", "k.toml:6: target.circuit.draws: expected at least 200 Monte Carlo draws"),
-])
+@pytest.mark.parametrize(
+    "line,expected",
+    [
+        ('topology = "pid-foo"', "k.toml:6: target.circuit.topology: unknown topology 'pid-foo'"),
+        ("draws = 0", "k.toml:6: target.circuit.draws: expected at least 200 Monte Carlo draws"),
+    ],
+)
 def test_circuit_target_errors_name_the_case_key(run_cli, tmp_path, line, expected):
     """Before: an unknown topology in [target.circuit] was reported at 'target.circuit' (the
     library's key was the option --topology), and draws = 0 as '--draws: ...' with no file or

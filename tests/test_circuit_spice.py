@@ -21,15 +21,53 @@ PARTS = {
     "pd-limited": {"R1": 47e3, "R2": 100e3, "C1": 1e-6, "R3": 4.7e3},
     "lead-lag-rc": {"R1": 100e3, "C1": 1e-6, "R2": 47e3, "C2": 100e-9},
     "pid-single-amp": {"R1": 47e3, "C1": 2.2e-6, "R3": 4.7e3, "R2": 100e3, "C2": 4.7e-6},
-    "pid-parallel": {"R1": 10e3, "R2": 15e3, "R3": 220e3, "C1": 1e-6, "C2": 470e-9, "R4": 3.3e3, "R5": 100e3,
-                     "R6": 10e3, "R7": 10e3, "R8": 10e3, "R9": 10e3},
-    "pid-two-input": {"R1": 10e3, "R2": 10e3, "R3": 22e3, "R4": 10e3, "R5": 15e3, "R6": 220e3, "R7": 220e3,
-                      "C1": 1e-6, "C2": 220e-9, "R8": 6.8e3, "C3": 470e-9, "R9": 3.3e3, "R10": 100e3,
-                      "R11": 10e3, "R12": 10e3, "R13": 10e3, "R14": 10e3},
+    "pid-parallel": {
+        "R1": 10e3,
+        "R2": 15e3,
+        "R3": 220e3,
+        "C1": 1e-6,
+        "C2": 470e-9,
+        "R4": 3.3e3,
+        "R5": 100e3,
+        "R6": 10e3,
+        "R7": 10e3,
+        "R8": 10e3,
+        "R9": 10e3,
+    },
+    "pid-two-input": {
+        "R1": 10e3,
+        "R2": 10e3,
+        "R3": 22e3,
+        "R4": 10e3,
+        "R5": 15e3,
+        "R6": 220e3,
+        "R7": 220e3,
+        "C1": 1e-6,
+        "C2": 220e-9,
+        "R8": 6.8e3,
+        "C3": 470e-9,
+        "R9": 3.3e3,
+        "R10": 100e3,
+        "R11": 10e3,
+        "R12": 10e3,
+        "R13": 10e3,
+        "R14": 10e3,
+    },
     "difference-error": {"R1": 10e3, "R2": 47e3, "R3": 10e3, "R4": 47e3},
     # optional R7 left open (not fitted): the positive-s feed-forward R6 is used instead
-    "tow-thomas": {"C1": 1e-6, "C2": 1e-6, "R1": 82e3, "R2": 15e3, "R3": 15e3, "R4": 10e3, "R5": 10e3,
-                          "R6": 150e3, "R7": float("inf"), "R8": 33e3, "C3": 470e-9},
+    "tow-thomas": {
+        "C1": 1e-6,
+        "C2": 1e-6,
+        "R1": 82e3,
+        "R2": 15e3,
+        "R3": 15e3,
+        "R4": 10e3,
+        "R5": 10e3,
+        "R6": 150e3,
+        "R7": float("inf"),
+        "R8": 33e3,
+        "C3": 470e-9,
+    },
 }
 
 
@@ -78,8 +116,9 @@ def test_open_optional_parts_are_left_out():
     text = netlist_text(topo, parts, drive="setpoint", add_inverter=False)
     assert "\nC2 " not in text and "\nR8 " not in text
     f, v = ac_sweep(text, f_start_hz=0.1, f_stop_hz=1e3, points_per_decade=10)
-    expected = topo.sign * topo.response({k: np.array([x]) for k, x in topo.check_parts(parts).items()}, f,
-                                         path="setpoint")[0]
+    expected = (
+        topo.sign * topo.response({k: np.array([x]) for k, x in topo.check_parts(parts).items()}, f, path="setpoint")[0]
+    )
     _compare(f, v, expected)
 
 

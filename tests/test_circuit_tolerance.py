@@ -14,8 +14,16 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from convert.circuit.tolerance import (FLOAT32_BOUND, MAX_DRAWS, Comparison, draw_parts, parse_tolerances,
-                                       percentiles, run_tolerances, worst_case)
+from convert.circuit.tolerance import (
+    FLOAT32_BOUND,
+    MAX_DRAWS,
+    Comparison,
+    draw_parts,
+    parse_tolerances,
+    percentiles,
+    run_tolerances,
+    worst_case,
+)
 from convert.circuit.topologies import get_topology
 from convert.errors import InputError
 from tests.test_circuit_spice import PARTS as CATALOG_PARTS
@@ -101,8 +109,15 @@ def test_figures_do_not_depend_on_the_chunk_size():
     ref_l = _nominal(topo, PID, loop_f)
     model = OpAmpModel(1e4)
     comps = [Comparison("tolerances", ref, None, ref_l), Comparison("total", ref * 1.01, model, ref_l)]
-    kw = dict(f=f, comparisons=comps, draws=1000, seed=5, loop_f_hz=loop_f, display_opamp=model,
-              loop_margins=lambda r: margins_of_responses(loop_f, r, plant, 0.2))
+    kw = dict(
+        f=f,
+        comparisons=comps,
+        draws=1000,
+        seed=5,
+        loop_f_hz=loop_f,
+        display_opamp=model,
+        loop_margins=lambda r: margins_of_responses(loop_f, r, plant, 0.2),
+    )
     runs = [_run(chunk=c, workers=w, **kw) for c, w in ((1000, 1), (1, 1), (97, 2), (500, 2), (97, 3))]
     for other in runs[1:]:
         _same(runs[0], other)
@@ -124,8 +139,9 @@ def test_percentile_does_not_depend_on_the_draw_count():
     big = {k: v * (1 + TOL[k[0]] * rs.uniform(-1, 1, 400_000)) for k, v in parts.items()}
     num, den = topo.coefficients(big)
     s = 2j * np.pi * f[None, :]
-    h = sum(np.asarray(c)[:, None] * s ** (len(num) - 1 - i) for i, c in enumerate(num)) / \
-        sum(np.asarray(c)[:, None] * s ** (len(den) - 1 - i) for i, c in enumerate(den))
+    h = sum(np.asarray(c)[:, None] * s ** (len(num) - 1 - i) for i, c in enumerate(num)) / sum(
+        np.asarray(c)[:, None] * s ** (len(den) - 1 - i) for i, c in enumerate(den)
+    )
     truth = np.max(np.abs(20 * np.log10(np.abs(h / h0))), axis=1)
     for draws, seed in ((2000, 1), (10_000, 2), (40_000, 3)):
         r = run_tolerances(topo, parts, TOL, band_f_hz=f, comparisons=[Comparison("t", h0)], draws=draws, seed=seed)
@@ -199,8 +215,9 @@ def test_cli_cap_matches_the_engine():
     assert CLI_MAX == MAX_DRAWS
 
 
-@pytest.mark.parametrize("words, match", [(["R"], "KIND=PERCENT"), (["R=150%"], "below 100"), (["X9=1%"], "unknown part"),
-                                          (["R=abc"], "R")])
+@pytest.mark.parametrize(
+    "words, match", [(["R"], "KIND=PERCENT"), (["R=150%"], "below 100"), (["X9=1%"], "unknown part"), (["R=abc"], "R")]
+)
 def test_bad_tolerances(words, match):
     with pytest.raises(InputError, match=match):
         parse_tolerances(words, part_names=["R1", "C1"])
@@ -244,9 +261,27 @@ def test_circuit_and_report_give_the_same_tolerance_figures(run_cli, tmp_path, d
     assert r.code in (0, 1), r.err
     data = json.loads((tmp_path / "rep" / "results.json").read_text())
     rows = {r["key"]: r for r in data["budget"][0]["rows"]}
-    r = run_cli("circuit", "2.5*(1 + 1/(0.8*s))*(1 + 0.12*s)/(1 + 0.012*s)", "--band", "0.05Hz", "20Hz",
-                "--resistors", "E24", "--capacitors", "E6", "--tolerance", "R=2%", "C=10%",
-                "--draws", "1500", "--seed", "13", "--distribution", distribution, "--json")
+    r = run_cli(
+        "circuit",
+        "2.5*(1 + 1/(0.8*s))*(1 + 0.12*s)/(1 + 0.012*s)",
+        "--band",
+        "0.05Hz",
+        "20Hz",
+        "--resistors",
+        "E24",
+        "--capacitors",
+        "E6",
+        "--tolerance",
+        "R=2%",
+        "C=10%",
+        "--draws",
+        "1500",
+        "--seed",
+        "13",
+        "--distribution",
+        distribution,
+        "--json",
+    )
     assert r.code == 0, r.err
     mc = json.loads(r.out)["errors"]["tolerance"]["monte_carlo"]
     fig = mc["figures"]["tolerances"]
@@ -294,8 +329,10 @@ MEMORY_SCRIPT = textwrap.dedent("""
 MEMORY_LIMIT_MB = 400
 
 
-LAUNCHER = ("import resource, subprocess, sys; subprocess.run([sys.executable, '-c', sys.argv[1], sys.argv[2]], "
-            "check=True, stdout=subprocess.DEVNULL); print(resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss)")
+LAUNCHER = (
+    "import resource, subprocess, sys; subprocess.run([sys.executable, '-c', sys.argv[1], sys.argv[2]], "
+    "check=True, stdout=subprocess.DEVNULL); print(resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss)"
+)
 
 
 def _peak_mb(draws: int) -> float:
@@ -303,8 +340,14 @@ def _peak_mb(draws: int) -> float:
     launcher process. (Linux carries a process's peak across exec from the process that started
     it, so a child started straight from pytest would report pytest's own peak; the launcher
     starts from nothing.)"""
-    out = subprocess.run([sys.executable, "-c", LAUNCHER, MEMORY_SCRIPT, str(draws)], capture_output=True, text=True,
-                         cwd=ROOT, env={"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin"}, check=True)
+    out = subprocess.run(
+        [sys.executable, "-c", LAUNCHER, MEMORY_SCRIPT, str(draws)],
+        capture_output=True,
+        text=True,
+        cwd=ROOT,
+        env={"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin"},
+        check=True,
+    )
     return int(out.stdout.split()[-1]) / 1024  # ru_maxrss is in KiB on Linux
 
 

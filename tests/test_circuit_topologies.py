@@ -15,8 +15,10 @@ from convert.errors import InputError, UnrealizableError
 LCAPY = {
     "pi-rc-feedback": ("R1 1 2\nR2 3 2\nC1 4 3\nE1 4 0 opamp 0 2 Ad", "2*(1+1/(0.3*s))"),
     "pd-limited": ("R1 1 2\nR3 1 3\nC1 3 2\nR2 4 2\nE1 4 0 opamp 0 2 Ad", "(0.5*s+1)/(0.05*s+1)"),
-    "pid-single-amp": ("R1 1 2\nR3 1 3\nC1 3 2\nR2 5 2\nC2 4 5\nE1 4 0 opamp 0 2 Ad",
-                       "2*(1+1/(3*s))*(1+0.5*s)/(1+0.05*s)"),
+    "pid-single-amp": (
+        "R1 1 2\nR3 1 3\nC1 3 2\nR2 5 2\nC2 4 5\nE1 4 0 opamp 0 2 Ad",
+        "2*(1+1/(3*s))*(1+0.5*s)/(1+0.05*s)",
+    ),
     "lead-lag-rc": ("R1 1 2\nC1 1 2\nR2 4 2\nC2 4 2\nE1 4 0 opamp 0 2 Ad", "0.5*(s+10)/(s+1)"),
 }
 
@@ -57,18 +59,26 @@ def test_stage_solution_matches_formulas():
     rng = np.random.default_rng(5)
     f = np.logspace(-2, 4, 40)
     for topo in TOPOLOGIES.values():
-        parts = {p.name: (rng.uniform(1e3, 1e6, 4) if p.kind == "R" else rng.uniform(1e-9, 1e-5, 4)) for p in topo.parts}
+        parts = {
+            p.name: (rng.uniform(1e3, 1e6, 4) if p.kind == "R" else rng.uniform(1e-9, 1e-5, 4)) for p in topo.parts
+        }
         out = node_responses(topo, parts, f)[output_node(topo)]
         assert np.allclose(out, topo.sign * topo.response(parts, f), rtol=1e-10), topo.name
 
 
 def test_fit_solve_round_trip_for_every_auto_topology():
     """The parts from the design equations give back the design quantities (parameters())."""
-    cases = {"inverting-gain": "3", "integrator-rc": "1/(0.1*s)", "first-order-lag": "2/(0.01*s+1)",
-             "pi-rc-feedback": "2*(1+1/(0.3*s))", "lead-lag-rc": "(0.5*s+1)/(0.05*s+1)",
-             "pid-single-amp": "2*(1+1/(3*s))*(1+0.5*s)/(1+0.05*s)",
-             "pid-parallel": "(s^2+0.2*s+1)/(s*(0.01*s+1))", "pd-limited": "(0.5*s+1)/(0.05*s+1)",
-             "difference-error": "4.7"}
+    cases = {
+        "inverting-gain": "3",
+        "integrator-rc": "1/(0.1*s)",
+        "first-order-lag": "2/(0.01*s+1)",
+        "pi-rc-feedback": "2*(1+1/(0.3*s))",
+        "lead-lag-rc": "(0.5*s+1)/(0.05*s+1)",
+        "pid-single-amp": "2*(1+1/(3*s))*(1+0.5*s)/(1+0.05*s)",
+        "pid-parallel": "(s^2+0.2*s+1)/(s*(0.01*s+1))",
+        "pd-limited": "(0.5*s+1)/(0.05*s+1)",
+        "difference-error": "4.7",
+    }
     for name, expr in cases.items():
         topo = get_topology(name)
         target = from_expression(expr)
@@ -78,8 +88,11 @@ def test_fit_solve_round_trip_for_every_auto_topology():
         got = topo.parameters({k: np.asarray(v) for k, v in parts.items()})
         for k, v in params.items():
             assert np.isclose(float(got[k]), v, rtol=1e-12), (name, k)
-        assert np.allclose(topo.controller_from_parts(parts).frequency_response([0.1, 1, 10]),
-                           abs(1) * target.frequency_response([0.1, 1, 10]), rtol=1e-9), name
+        assert np.allclose(
+            topo.controller_from_parts(parts).frequency_response([0.1, 1, 10]),
+            abs(1) * target.frequency_response([0.1, 1, 10]),
+            rtol=1e-9,
+        ), name
 
 
 def test_card_api():
@@ -92,12 +105,15 @@ def test_card_api():
     assert {"name", "description", "parts", "inverting"} <= set(vars(topo))
 
 
-@pytest.mark.parametrize("parts, match", [
-    ({"R1": 0, "R2": 1e3, "C1": 1e-6}, "positive finite"),
-    ({"R1": -5, "R2": 1e3, "C1": 1e-6}, "positive finite"),
-    ({"R1": 1e3, "C1": 1e-6}, "needs a value for R2"),
-    ({"R1": 1e3, "R2": 1e3, "C1": 1e-6, "R9": 1}, "no part 'R9'"),
-])
+@pytest.mark.parametrize(
+    "parts, match",
+    [
+        ({"R1": 0, "R2": 1e3, "C1": 1e-6}, "positive finite"),
+        ({"R1": -5, "R2": 1e3, "C1": 1e-6}, "positive finite"),
+        ({"R1": 1e3, "C1": 1e-6}, "needs a value for R2"),
+        ({"R1": 1e3, "R2": 1e3, "C1": 1e-6, "R9": 1}, "no part 'R9'"),
+    ],
+)
 def test_bad_parts(parts, match):
     with pytest.raises(InputError, match=match):
         get_topology("pi-rc-feedback").controller_from_parts(parts)
@@ -148,8 +164,9 @@ def test_every_file_in_the_folder_is_in_the_catalog():
 
 
 @pytest.mark.filterwarnings("ignore::UserWarning")
-@pytest.mark.parametrize("expr", ["(s^2+2*s+100)/(s^2+20*s+100)", "(0.5*s^2+30*s+400)/(s^2+4*s+400)",
-                                  "-300/(s^2+6*s+900)"])
+@pytest.mark.parametrize(
+    "expr", ["(s^2+2*s+100)/(s^2+20*s+100)", "(0.5*s^2+30*s+400)/(s^2+4*s+400)", "-300/(s^2+6*s+900)"]
+)
 def test_biquad_design_equations_against_lcapy(expr):
     """Source: lcapy symbolic nodal analysis of the Tow–Thomas biquad with feed-forward (netlist written
     by hand here from the circuit in Tow 1968 / Thomas 1971 with Sedra & Smith's feed-forward paths;
@@ -164,16 +181,31 @@ def test_biquad_design_equations_against_lcapy(expr):
     params = topo.fit(target)[0]
     parts = {k: float(v) for k, v in topo.solve(params, {"C1": np.asarray(1e-6)}).items()}
     # node 1 input, 4 output (U3); U1 integrator: inverting node 5, output 6; U2 inverter: 7 -> 8; U3: node 2
-    elements = [("R3", 4, 5), ("R8", 1, 5), ("C2", 6, 5), ("R4", 6, 7), ("R7", 1, 7), ("R5", 8, 7),
-                ("R2", 8, 2), ("R6", 1, 2), ("C3", 1, 2), ("R1", 4, 2), ("C1", 4, 2)]
-    lines = [f"{name} {a} {b} {parts[name]!r}" for name, a, b in elements
-             if not (parts[name] == float("inf") or parts[name] == 0.0)]
+    elements = [
+        ("R3", 4, 5),
+        ("R8", 1, 5),
+        ("C2", 6, 5),
+        ("R4", 6, 7),
+        ("R7", 1, 7),
+        ("R5", 8, 7),
+        ("R2", 8, 2),
+        ("R6", 1, 2),
+        ("C3", 1, 2),
+        ("R1", 4, 2),
+        ("C1", 4, 2),
+    ]
+    lines = [
+        f"{name} {a} {b} {parts[name]!r}"
+        for name, a, b in elements
+        if not (parts[name] == float("inf") or parts[name] == 0.0)
+    ]
     lines += ["E1 6 0 opamp 0 5 Ad", "E2 8 0 opamp 0 7 Ad", "E3 4 0 opamp 0 2 Ad"]
     h = lcapy.Circuit("\n".join(lines)).transfer(1, 0, 4, 0).limit("Ad", "oo")
     s = lcapy.s.sympy
     num, den = sympy.fraction(sympy.together(h.sympy))
-    built = Controller.analog([float(c) for c in sympy.Poly(num, s).all_coeffs()],
-                              [float(c) for c in sympy.Poly(den, s).all_coeffs()])
+    built = Controller.analog(
+        [float(c) for c in sympy.Poly(num, s).all_coeffs()], [float(c) for c in sympy.Poly(den, s).all_coeffs()]
+    )
     f = np.logspace(-1, 3, 81)
     sign = -1 if expr.startswith("-") else 1
     assert np.allclose(built.frequency_response(f), topo.sign * sign * target.frequency_response(f), rtol=1e-9)
@@ -187,12 +219,28 @@ def test_the_catalog_imports_none_of_its_users():
 
     import convert.circuit.topologies as pkg
 
-    users = {"convert.circuit.design", "convert.circuit.netlist_out", "convert.circuit.schematic",
-             "convert.circuit.opamp", "convert.circuit.card", "convert.circuit.cascade", "convert.circuit.tolerance",
-             "convert.circuit.bom", "convert.circuit.buylist", "convert.circuit.trim", "convert.cli", "convert.report"}
+    users = {
+        "convert.circuit.design",
+        "convert.circuit.netlist_out",
+        "convert.circuit.schematic",
+        "convert.circuit.opamp",
+        "convert.circuit.card",
+        "convert.circuit.cascade",
+        "convert.circuit.tolerance",
+        "convert.circuit.bom",
+        "convert.circuit.buylist",
+        "convert.circuit.trim",
+        "convert.cli",
+        "convert.report",
+    }
     for path in pathlib.Path(pkg.__file__).parent.glob("*.py"):
         for node in ast.walk(ast.parse(path.read_text())):
-            names = ([a.name for a in node.names] if isinstance(node, ast.Import)
-                     else [node.module or ""] if isinstance(node, ast.ImportFrom) else [])
+            names = (
+                [a.name for a in node.names]
+                if isinstance(node, ast.Import)
+                else [node.module or ""]
+                if isinstance(node, ast.ImportFrom)
+                else []
+            )
             for name in names:
                 assert not any(name == u or name.startswith(u + ".") for u in users), (path.name, name)

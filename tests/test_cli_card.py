@@ -57,16 +57,19 @@ def test_input_output_options(run_cli, tmp_path):
     assert json.loads(r.out)["num"] == pytest.approx([-2.0])
 
 
-@pytest.mark.parametrize("args, pattern", [
-    (["card"], "give a netlist file"),
-    (["card", "NOFILE.cir"], "NOFILE.cir: no such file"),
-    (["card", str(HERE / "pi_card.cir"), "--setpoint", "VSP"], "give both --setpoint and --measurement"),
-    (["card", str(HERE / "pi_card.cir"), "--output", "nowhere"], "output node 'nowhere' not found"),
-    (["card", str(HERE / "pi_card.cir"), "--part", "R1=1k"], "--part goes with --topology"),
-    (["card", "--topology", "no-such-thing", "--part", "R1=1k"], "unknown topology"),
-    (["card", "--topology", "pi-rc-feedback", "--part", "R1=4k7", "R2=1k", "C1=1u"], "R1"),
-    (["card", "--topology", "pi-rc-feedback", "--part", "R1"], "expected NAME=VALUE"),
-])
+@pytest.mark.parametrize(
+    "args, pattern",
+    [
+        (["card"], "give a netlist file"),
+        (["card", "NOFILE.cir"], "NOFILE.cir: no such file"),
+        (["card", str(HERE / "pi_card.cir"), "--setpoint", "VSP"], "give both --setpoint and --measurement"),
+        (["card", str(HERE / "pi_card.cir"), "--output", "nowhere"], "output node 'nowhere' not found"),
+        (["card", str(HERE / "pi_card.cir"), "--part", "R1=1k"], "--part goes with --topology"),
+        (["card", "--topology", "no-such-thing", "--part", "R1=1k"], "unknown topology"),
+        (["card", "--topology", "pi-rc-feedback", "--part", "R1=4k7", "R2=1k", "C1=1u"], "R1"),
+        (["card", "--topology", "pi-rc-feedback", "--part", "R1"], "expected NAME=VALUE"),
+    ],
+)
 def test_errors_exit_2_one_line(run_cli, args, pattern):
     """DESIGN.md §4: bad input is one line on stderr, exit code 2, no traceback."""
     r = run_cli(*args)
@@ -102,8 +105,19 @@ def test_topology_matches_netlist_of_same_card(run_cli):
     """The same PI read two ways (catalog formula vs nodal analysis of pi_card.cir) agree, up to
     the stage's inverting sign."""
     pytest.importorskip("convert.circuit.topologies")
-    a = json.loads(run_cli("card", "--topology", "pi-rc-feedback", "--part", "R1=100k", "R2=470k", "C1=1u",
-                           "--json", "--no-sensitivity").out)
+    a = json.loads(
+        run_cli(
+            "card",
+            "--topology",
+            "pi-rc-feedback",
+            "--part",
+            "R1=100k",
+            "R2=470k",
+            "C1=1u",
+            "--json",
+            "--no-sensitivity",
+        ).out
+    )
     b = json.loads(run_cli("card", str(HERE / "pi_card.cir"), "--json", "--no-sensitivity").out)
     assert a["num"] == pytest.approx([-x for x in b["num"]]) and a["den"] == pytest.approx(b["den"])
 

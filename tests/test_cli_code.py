@@ -11,8 +11,21 @@ FIFTH = "3*(1+1/(20*s))*(1+s/0.5)/(1+s/5)/((s/0.8)^2+s/0.8/0.7+1)/(1+s/0.3)"
 
 def test_writes_c_files_in_the_recommended_structure(run_cli, tmp_path):
     out = tmp_path / "fw"
-    r = run_cli("code", FIFTH, "--fs", "5Hz", "--format", "float", "--output-limits", "-10", "10",
-                "--name", "card5", "--out", str(out))
+    r = run_cli(
+        "code",
+        FIFTH,
+        "--fs",
+        "5Hz",
+        "--format",
+        "float",
+        "--output-limits",
+        "-10",
+        "10",
+        "--name",
+        "card5",
+        "--out",
+        str(out),
+    )
     assert r.code == 0, r.err
     h = (out / "card5.h").read_text()
     assert "card5_state" in h and "float card5_step(card5_state *st, float x);" in h
@@ -23,8 +36,23 @@ def test_writes_c_files_in_the_recommended_structure(run_cli, tmp_path):
 
 def test_failing_structure_writes_nothing_and_exits_1(run_cli, tmp_path):
     out = tmp_path / "fw"
-    r = run_cli("code", FIFTH, "--fs", "5Hz", "--format", "float", "--structure", "direct1",
-                "--output-limits", "-10", "10", "--name", "card5", "--out", str(out))
+    r = run_cli(
+        "code",
+        FIFTH,
+        "--fs",
+        "5Hz",
+        "--format",
+        "float",
+        "--structure",
+        "direct1",
+        "--output-limits",
+        "-10",
+        "10",
+        "--name",
+        "card5",
+        "--out",
+        str(out),
+    )
     assert r.code == 1
     assert "not written" in r.out and "1.0001673" in r.out
     assert not out.exists()
@@ -41,8 +69,23 @@ def test_existing_files_need_force(run_cli, tmp_path):
 
 
 def test_structured_text_and_json(run_cli, tmp_path):
-    r = run_cli("code", "2*(1+1/(0.5*s))", "--fs", "100Hz", "--lang", "st", "--format", "double",
-                "--structure", "sections", "--name", "pi", "--out", str(tmp_path), "--json")
+    r = run_cli(
+        "code",
+        "2*(1+1/(0.5*s))",
+        "--fs",
+        "100Hz",
+        "--lang",
+        "st",
+        "--format",
+        "double",
+        "--structure",
+        "sections",
+        "--name",
+        "pi",
+        "--out",
+        str(tmp_path),
+        "--json",
+    )
     assert r.code == 0, r.err
     data = json.loads(r.out)
     assert data["structure"] == "sections" and data["realized"]["sos"][0][3] == 1.0
@@ -69,8 +112,28 @@ def test_bad_inputs_are_one_line_errors(run_cli, tmp_path):
 
 
 def test_pid_block_files(run_cli, tmp_path):
-    r = run_cli("code", "--pid", "kc=2", "ti=30s", "td=5s", "n=10", "b=0.5", "c=0", "--fs", "10Hz", "--pid-block",
-                "--anti-windup", "track", "--output-limits", "0", "100", "--name", "tic", "--out", str(tmp_path))
+    r = run_cli(
+        "code",
+        "--pid",
+        "kc=2",
+        "ti=30s",
+        "td=5s",
+        "n=10",
+        "b=0.5",
+        "c=0",
+        "--fs",
+        "10Hz",
+        "--pid-block",
+        "--anti-windup",
+        "track",
+        "--output-limits",
+        "0",
+        "100",
+        "--name",
+        "tic",
+        "--out",
+        str(tmp_path),
+    )
     assert r.code == 0, r.err
     h = (tmp_path / "tic.h").read_text()
     assert "double tic_step(tic_state *st, double setpoint, double measurement);" in h
@@ -84,12 +147,48 @@ def test_signal_scaling_rescales_the_gain_and_checks_direction(run_cli, tmp_path
     12-bit converter (0–4095 counts) and driving a 0–10 V output from a 12-bit DAC: the
     firmware gain is 2 × (4 V / 4095) × (4095 / 10 V) = 0.8. An inverted input map (4095 at 1 V)
     flips the firmware sign and says so."""
-    r = run_cli("code", "--pid", "kc=2", "ti=30s", "--fs", "10Hz", "--pid-block", "--input-scale", "1V", "5V",
-                "0", "4095", "--output-scale", "0V", "10V", "0", "4095", "--json")
+    r = run_cli(
+        "code",
+        "--pid",
+        "kc=2",
+        "ti=30s",
+        "--fs",
+        "10Hz",
+        "--pid-block",
+        "--input-scale",
+        "1V",
+        "5V",
+        "0",
+        "4095",
+        "--output-scale",
+        "0V",
+        "10V",
+        "0",
+        "4095",
+        "--json",
+    )
     data = json.loads(r.out)
     assert data["scaled_gains"]["kp"] == pytest.approx(0.8) and data["scaled_gains"]["action"] == "reverse"
-    r = run_cli("code", "--pid", "kc=2", "ti=30s", "--fs", "10Hz", "--pid-block", "--input-scale", "4mA", "20mA",
-                "4095", "0", "--output-scale", "0V", "10V", "0", "4095", "--json")
+    r = run_cli(
+        "code",
+        "--pid",
+        "kc=2",
+        "ti=30s",
+        "--fs",
+        "10Hz",
+        "--pid-block",
+        "--input-scale",
+        "4mA",
+        "20mA",
+        "4095",
+        "0",
+        "--output-scale",
+        "0V",
+        "10V",
+        "0",
+        "4095",
+        "--json",
+    )
     data = json.loads(r.out)
     assert data["scaled_gains"]["action"] == "direct" and "inverted" in data["scaling"]
     assert data["scaled_gains"]["kp"] == pytest.approx(2 * 16e-3 / 4095 * 409.5)
@@ -103,13 +202,28 @@ def test_card_clamps_become_the_output_limits(run_cli, tmp_path):
     from pathlib import Path
 
     card = Path(__file__).parent / "netlists" / "clamped_pi.cir"
-    r = run_cli("code", "--card", str(card), "--fs", "100Hz", "--format", "float", "--name", "cpi",
-                "--out", str(tmp_path))
+    r = run_cli(
+        "code", "--card", str(card), "--fs", "100Hz", "--format", "float", "--name", "cpi", "--out", str(tmp_path)
+    )
     assert r.code == 0, r.err
     assert "from the card's clamps" in r.out
     assert "Output limits: -0.65 .. 5.35" in (tmp_path / "cpi.h").read_text()
-    r = run_cli("code", "--card", str(card), "--fs", "100Hz", "--format", "float", "--name", "cpi2",
-                "--output-limits", "-1", "1", "--out", str(tmp_path))
+    r = run_cli(
+        "code",
+        "--card",
+        str(card),
+        "--fs",
+        "100Hz",
+        "--format",
+        "float",
+        "--name",
+        "cpi2",
+        "--output-limits",
+        "-1",
+        "1",
+        "--out",
+        str(tmp_path),
+    )
     assert "Output limits: -1 .. 1" in (tmp_path / "cpi2.h").read_text()
 
 
@@ -118,8 +232,19 @@ def test_digital_prints_the_structure_and_its_verdict(run_cli):
     fifth-order card controller is unstable, the delta form is not (and its quantization error
     over the default band is small: the band stops a hair below fs/2, where a zero at z = -1
     makes relative errors meaningless)."""
-    base = ("digital", FIFTH, "--fs", "5Hz", "--method", "tustin", "--word-format", "float32",
-            "--output-limits", "-10", "10")
+    base = (
+        "digital",
+        FIFTH,
+        "--fs",
+        "5Hz",
+        "--method",
+        "tustin",
+        "--word-format",
+        "float32",
+        "--output-limits",
+        "-10",
+        "10",
+    )
     r = run_cli(*base)
     assert r.code == 0 and "structure: direct1" in r.out and "FAILS: unstable" in r.out
     r = run_cli(*base, "--structure", "delta")

@@ -11,15 +11,18 @@ import pytest
 CARDS = Path(__file__).resolve().parent.parent / "cases" / "cards"
 
 
-@pytest.mark.parametrize("spec", [
-    "2*(1 + 1/(3s))",
-    "pid: kc=1.5 ti=4s td=0.8s n=8",
-    "pid: kc=1.5 ti=4s td=0.8s n=8 fs=50Hz method=tustin",
-    "digital: b=0.5125,-0.4875 a=1,-1 fs=10Hz",
-    "digital: sos=0.2,0.1,0,1,-0.5,0;1,-1.2,0.4,1,-1.1,0.3 fs=100Hz",
-    "card: topology=pi-rc-feedback R1=100k R2=200k C1=4.7u",
-    str(CARDS / "flow_pi_card.cir") + " setpoint=VSP measurement=VPV",
-])
+@pytest.mark.parametrize(
+    "spec",
+    [
+        "2*(1 + 1/(3s))",
+        "pid: kc=1.5 ti=4s td=0.8s n=8",
+        "pid: kc=1.5 ti=4s td=0.8s n=8 fs=50Hz method=tustin",
+        "digital: b=0.5125,-0.4875 a=1,-1 fs=10Hz",
+        "digital: sos=0.2,0.1,0,1,-0.5,0;1,-1.2,0.4,1,-1.1,0.3 fs=100Hz",
+        "card: topology=pi-rc-feedback R1=100k R2=200k C1=4.7u",
+        str(CARDS / "flow_pi_card.cir") + " setpoint=VSP measurement=VPV",
+    ],
+)
 def test_a_form_against_itself_has_zero_error(run_cli, spec):
     """A form compared with itself: zero gain and phase error everywhere, verdict pass, exit 0
     (identity; common practice as a self-check), to floating-point rounding."""
@@ -49,8 +52,17 @@ def test_tustin_conversion_against_its_source_gives_the_figures_digital_reports(
     assert dig.code == 0, dig.err
     (row,) = json.loads(dig.out)
     assert np.allclose(row["b"], np.ravel(num), rtol=1e-12) and np.allclose(row["a"], np.ravel(den), rtol=1e-12)
-    cmp_ = run_cli("compare", "(s+2)/(s+20)", f"digital: b={b} a={a} fs=1kHz", "--band", "0.1Hz", "100Hz",
-                   "--max-phase-error", "30", "--json")
+    cmp_ = run_cli(
+        "compare",
+        "(s+2)/(s+20)",
+        f"digital: b={b} a={a} fs=1kHz",
+        "--band",
+        "0.1Hz",
+        "100Hz",
+        "--max-phase-error",
+        "30",
+        "--json",
+    )
     assert cmp_.code == 0, cmp_.err
     data = json.loads(cmp_.out)
     for mine, theirs in ((data["coefficients_error"], row["method_error"]), (data["error"], row["loop_error"])):
@@ -87,29 +99,41 @@ def test_a_difference_beyond_the_limit_fails_with_exit_1(run_cli):
 
 
 def test_plant_options_and_text_output(run_cli):
-    res = run_cli("compare", "pid: kc=1 ti=2min", "pid: kc=1 ti=2min fs=10Hz delay=1sample", "--plant",
-                  "0.04/(s*(15s + 1))", "--dead-time", "2s", "--max-phase-margin-change", "3")
+    res = run_cli(
+        "compare",
+        "pid: kc=1 ti=2min",
+        "pid: kc=1 ti=2min fs=10Hz delay=1sample",
+        "--plant",
+        "0.04/(s*(15s + 1))",
+        "--dead-time",
+        "2s",
+        "--max-phase-margin-change",
+        "3",
+    )
     assert res.code == 0, res.err
     for words in ("loop with the plant", "phase margin change", "agree within", "verdict: PASS"):
         assert words in res.out
 
 
-@pytest.mark.parametrize("argv,words", [
-    (["2/s"], "give the form B"),
-    (["2/s", "digital: b=1,2 a=1,-1"], "B: missing fs"),
-    (["2/s", "digital: b=1,x a=1,-1 fs=1kHz"], "B: b:"),
-    (["2/s", "pid: kc=1 tii=3s"], "B: tii: unknown key"),
-    (["2/s", "pid: kc=1 ti=3s fs=10Hz method=zoh"], "B: method: expected one of"),
-    (["2/s", "card: topology=pi-rc-feedback R1=10k"], "B:"),
-    (["2/s", "netlist: nowhere.cir"], "B: netlist: no such netlist"),
-    (["2/s", "digital: b=1 a=1 fs=10Hz word=int9"], "B: word:"),
-    (["(z-0.5)/(z-1)", "2/s"], "A: an expression in z needs a sample rate"),
-    (["digital: b=1,-0.9 a=1,-1 fs=10Hz delay=1sample", "2/s"], "A: delay: the reference form is taken as written"),
-    (["2/s", "2/s", "--plant", "s/(s+1)(", "--band", "1Hz", "2Hz"], "--plant"),
-    (["2/s", "2/s", "--dead-time", "1s"], "--dead-time: a dead time belongs to a plant"),
-    (["digital: b=1,-0.9 a=1,-1 fs=10Hz", "2/s", "--band", "1Hz", "6Hz"], "--band"),
-    (["2/s", "2/s", "--max-gain-error", "-1"], "--max-gain-error"),
-])
+@pytest.mark.parametrize(
+    "argv,words",
+    [
+        (["2/s"], "give the form B"),
+        (["2/s", "digital: b=1,2 a=1,-1"], "B: missing fs"),
+        (["2/s", "digital: b=1,x a=1,-1 fs=1kHz"], "B: b:"),
+        (["2/s", "pid: kc=1 tii=3s"], "B: tii: unknown key"),
+        (["2/s", "pid: kc=1 ti=3s fs=10Hz method=zoh"], "B: method: expected one of"),
+        (["2/s", "card: topology=pi-rc-feedback R1=10k"], "B:"),
+        (["2/s", "netlist: nowhere.cir"], "B: netlist: no such netlist"),
+        (["2/s", "digital: b=1 a=1 fs=10Hz word=int9"], "B: word:"),
+        (["(z-0.5)/(z-1)", "2/s"], "A: an expression in z needs a sample rate"),
+        (["digital: b=1,-0.9 a=1,-1 fs=10Hz delay=1sample", "2/s"], "A: delay: the reference form is taken as written"),
+        (["2/s", "2/s", "--plant", "s/(s+1)(", "--band", "1Hz", "2Hz"], "--plant"),
+        (["2/s", "2/s", "--dead-time", "1s"], "--dead-time: a dead time belongs to a plant"),
+        (["digital: b=1,-0.9 a=1,-1 fs=10Hz", "2/s", "--band", "1Hz", "6Hz"], "--band"),
+        (["2/s", "2/s", "--max-gain-error", "-1"], "--max-gain-error"),
+    ],
+)
 def test_bad_input_is_one_line_exit_2(run_cli, argv, words):
     """Each bad spec or option: one line on stderr naming A, B or the option; exit 2."""
     res = run_cli("compare", *argv)

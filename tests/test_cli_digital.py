@@ -24,8 +24,15 @@ def test_digital_json_matches_scipy_for_tustin(run_cli):
     r = run_cli("digital", "(s+2)/(s+20)", "--fs", "1kHz", "--method", "all", "--json")
     assert r.code == 0, r.err
     data = json.loads(r.out)
-    assert [d["method"] for d in data] == ["zoh", "foh", "tustin", "matched", "impulse", "forward-euler",
-                                          "backward-euler"]
+    assert [d["method"] for d in data] == [
+        "zoh",
+        "foh",
+        "tustin",
+        "matched",
+        "impulse",
+        "forward-euler",
+        "backward-euler",
+    ]
     tus = next(d for d in data if d["method"] == "tustin")
     num, den, _ = cont2discrete(([1, 2], [1, 20]), 1e-3, method="bilinear")
     np.testing.assert_allclose(tus["b"], np.ravel(num) / den[0], rtol=1e-9)
@@ -50,29 +57,43 @@ def test_digital_prewarp_in_json(run_cli):
 
 
 def test_digital_filter_and_delay(run_cli):
-    r = run_cli("digital", "2*(1 + 1/(0.1*s) + 0.01*s)", "--fs", "1kHz", "--filter", "10", "--method", "tustin",
-                "--delay", "1sample", "--json")
+    r = run_cli(
+        "digital",
+        "2*(1 + 1/(0.1*s) + 0.01*s)",
+        "--fs",
+        "1kHz",
+        "--filter",
+        "10",
+        "--method",
+        "tustin",
+        "--delay",
+        "1sample",
+        "--json",
+    )
     assert r.code == 0, r.err
     data = json.loads(r.out)
     assert data[0]["delay_s"] == pytest.approx(1e-3)
     assert data[0]["derivative_filter"]["tau_s"] == pytest.approx(0.001)
 
 
-@pytest.mark.parametrize("argv,what", [
-    (["digital", "1+s", "--fs", "1k"], "derivative filter"),
-    (["digital", "1/(s+1)", "--fs", "1k", "--method", "bogus"], "--method"),
-    (["digital", "1/(s+1)", "--fs", "-3"], "--fs"),
-    (["digital", "1/(s+1)", "--fs", "1k", "--delay", "3 parsecs"], "--delay"),
-    (["digital", "1/(s+1)", "--fs", "1k", "--band", "10Hz", "1Hz"], "--band"),
-    (["digital", "1/(s+1)", "--fs", "1k", "--band", "1Hz", "900Hz"], "fs/2"),
-    (["digital", "1/(s+1)", "--fs", "1k", "--method", "zoh", "--prewarp", "5Hz"], "--prewarp"),
-    (["digital", "1/(s+1", "--fs", "1k"], "expression"),
-    (["analog", "1/(z+0.5)", "--fs", "1k", "--method", "zoh"], "z = -0.5"),
-    (["analog", "z^-2/(1-0.5z^-1)", "--fs", "1k", "--method", "tustin"], "delay"),
-    (["analog", "1/(z-0.5)", "--fs", "1k", "--method", "foh"], "--method"),
-    (["analog", "1/(s+1)", "--fs", "1k", "--method", "zoh"], "z"),
-    (["analog", "1/z", "--fs", "1k", "--method", "matched"], "z = 0"),
-])
+@pytest.mark.parametrize(
+    "argv,what",
+    [
+        (["digital", "1+s", "--fs", "1k"], "derivative filter"),
+        (["digital", "1/(s+1)", "--fs", "1k", "--method", "bogus"], "--method"),
+        (["digital", "1/(s+1)", "--fs", "-3"], "--fs"),
+        (["digital", "1/(s+1)", "--fs", "1k", "--delay", "3 parsecs"], "--delay"),
+        (["digital", "1/(s+1)", "--fs", "1k", "--band", "10Hz", "1Hz"], "--band"),
+        (["digital", "1/(s+1)", "--fs", "1k", "--band", "1Hz", "900Hz"], "fs/2"),
+        (["digital", "1/(s+1)", "--fs", "1k", "--method", "zoh", "--prewarp", "5Hz"], "--prewarp"),
+        (["digital", "1/(s+1", "--fs", "1k"], "expression"),
+        (["analog", "1/(z+0.5)", "--fs", "1k", "--method", "zoh"], "z = -0.5"),
+        (["analog", "z^-2/(1-0.5z^-1)", "--fs", "1k", "--method", "tustin"], "delay"),
+        (["analog", "1/(z-0.5)", "--fs", "1k", "--method", "foh"], "--method"),
+        (["analog", "1/(s+1)", "--fs", "1k", "--method", "zoh"], "z"),
+        (["analog", "1/z", "--fs", "1k", "--method", "matched"], "z = 0"),
+    ],
+)
 def test_bad_inputs_exit_2_with_one_line(run_cli, argv, what):
     r = run_cli(*argv)
     assert r.code == 2

@@ -122,7 +122,10 @@ BAD_INPUT = [
     (["circuit", PI, "--netlist", "a folder", "--draws", "0"], "--netlist: 'a folder' is a folder"),
     (["circuit", PI, "--netlist", "a folder", "--force", "--draws", "0"], "--netlist: 'a folder' is a folder"),
     (["circuit", PI, "--bom", "no/such/folder/bom.csv", "--draws", "0"], "--bom: the folder 'no/such/folder' does not"),
-    (["circuit", PI, "--netlist", "x.cir", "--bom", "x.cir", "--draws", "0"], "--bom: 'x.cir' is also the file for --netlist"),
+    (
+        ["circuit", PI, "--netlist", "x.cir", "--bom", "x.cir", "--draws", "0"],
+        "--bom: 'x.cir' is also the file for --netlist",
+    ),
     (["circuit", PI, "--schematic", "pi.pdf", "--draws", "0"], "--schematic: a schematic is written as .png or .svg"),
     # --- card: files and parts
     (["card"], "give a netlist file"),
@@ -136,9 +139,18 @@ BAD_INPUT = [
     (["card", "card.cir", "--part", "R1=1k"], "--part goes with --topology"),
     (["card", "card.cir", "--digits", "99"], "--digits: expected 1 to 17"),
     (["card", "--topology", "pi-rc-feedback", "--part", "R1=100k", "R2=470k"], "--part: C1:"),
-    (["card", "--topology", "pi-rc-feedback", "--part", "R1=100k", "R2=470k", "C1=1uH"], "--part: C1: expected a capacitance"),
-    (["card", "--topology", "pi-rc-feedback", "--part", "R1=100k", "R2=470k", "C1=0"], "--part: C1: C1 must be a positive finite capacitance, found 0"),
-    (["card", "--topology", "pi-rc-feedback", "--part", "R1=1meg", "R2=470k", "C1=1u"], "--part: R1: 'meg' is SPICE spelling"),
+    (
+        ["card", "--topology", "pi-rc-feedback", "--part", "R1=100k", "R2=470k", "C1=1uH"],
+        "--part: C1: expected a capacitance",
+    ),
+    (
+        ["card", "--topology", "pi-rc-feedback", "--part", "R1=100k", "R2=470k", "C1=0"],
+        "--part: C1: C1 must be a positive finite capacitance, found 0",
+    ),
+    (
+        ["card", "--topology", "pi-rc-feedback", "--part", "R1=1meg", "R2=470k", "C1=1u"],
+        "--part: R1: 'meg' is SPICE spelling",
+    ),
     # --- report: case files and the report folder
     (["report"], "required: CASE"),
     (["report", "missing.toml"], "missing.toml: no such case file"),
@@ -239,11 +251,14 @@ def test_system_refusal_while_writing_is_one_line(workdir, monkeypatch):
     assert err.strip() == "error: --netlist: cannot write 'new.cir' (No space left on device); nothing was written"
 
 
-@pytest.mark.parametrize("argv", [
-    ["show", "-2*(1+1/(30*s))"],
-    ["show", "-s/(s+1)"],
-    ["show", "- 2/s"],
-])
+@pytest.mark.parametrize(
+    "argv",
+    [
+        ["show", "-2*(1+1/(30*s))"],
+        ["show", "-s/(s+1)"],
+        ["show", "- 2/s"],
+    ],
+)
 def test_expression_may_start_with_minus(argv):
     """A negated controller (direct action written as an expression) is a value, not an unknown option."""
     code, out, err = _run(argv + ["--json"])
@@ -265,8 +280,20 @@ def test_deprecated_filter_spelling_still_works():
 WIDE_RUNS = [
     ["show", "--pid", "kc=2", "ti=30s", "td=5s", "n=10"],
     ["show", "--pid", "pb=50%", "reset=2/min", "td=0.1min", "form=series", "action=direct"],
-    ["digital", "2*(1 + 1/(0.1*s) + 0.01*s)", "--fs", "100kHz", "--derivative-filter", "10", "--method", "all",
-     "--prewarp", "12.5kHz", "--delay", "0.5sample"],
+    [
+        "digital",
+        "2*(1 + 1/(0.1*s) + 0.01*s)",
+        "--fs",
+        "100kHz",
+        "--derivative-filter",
+        "10",
+        "--method",
+        "all",
+        "--prewarp",
+        "12.5kHz",
+        "--delay",
+        "0.5sample",
+    ],
     ["analog", ZPI, "--fs", "100Hz", "--method", "tustin"],
     ["circuit", "--pid", "kp=2", "ki=1/s", "kd=0.5s", "tf=0.05s", "b=0.5", "c=0", "--draws", "200"],
     ["circuit", "--catalog"],
@@ -343,8 +370,12 @@ def test_python_dash_m_and_version():
     assert r.returncode == 0 and "usage: loopshift" in r.stdout and r.stderr == ""
     r = subprocess.run([sys.executable, "-m", "convert", "--version"], capture_output=True, text=True, timeout=60)
     assert r.returncode == 0 and r.stdout.strip() == f"loopshift {__version__}"
-    r = subprocess.run([sys.executable, "-m", "convert", "show", "--fs", "-1kHz", "1/(z-1)"],
-                       capture_output=True, text=True, timeout=60)
+    r = subprocess.run(
+        [sys.executable, "-m", "convert", "show", "--fs", "-1kHz", "1/(z-1)"],
+        capture_output=True,
+        text=True,
+        timeout=60,
+    )
     assert r.returncode == 2 and r.stdout == "" and r.stderr.count("\n") == 1 and "--fs" in r.stderr
 
 
@@ -390,16 +421,99 @@ def _fuzz_examples() -> int:
 
 
 WORDS = [
-    "show", "digital", "analog", "circuit", "card", "report",
-    "--fs", "--method", "--pid", "--json", "--band", "--delay", "--prewarp", "--match-at", "--keep-delay",
-    "--derivative-filter", "--agreement", "--digits", "--topology", "--part", "--tolerance", "--draws", "--seed",
-    "--netlist", "--bom", "--force", "--out", "--catalog", "--input", "--output", "--top", "--trim", "--rail",
-    "--amplitude", "--opamp-gbw", "--r-min", "--c-max", "--resistors", "--inverse-method", "-h", "--version",
-    "1kHz", "100Hz", "-1kHz", "0", "nan", "inf", "2.2nF", "10", "-3", "1e400", "x", "", " ",
-    PI, ZPI, "(s+2)/(s+20)", "1/(s-1)", "s", "-s", "1/0", "(s+1)^0.5", "z", "2*(1+",
-    "kc=2", "ti=30s", "td=5s", "n=10", "kc=nan", "ti=-1", "action=direct", "bogus=1",
-    "tustin", "zoh", "matched", "all", "foh", "pi-rc-feedback", "nope", "R1=100k", "R2=470k", "C1=1u", "C1=0",
-    "R=1%", "R=x", "kp=1..4", "E24", "E7", "missing.cir", "out.cir", "a folder", "empty.toml", "1sample",
+    "show",
+    "digital",
+    "analog",
+    "circuit",
+    "card",
+    "report",
+    "--fs",
+    "--method",
+    "--pid",
+    "--json",
+    "--band",
+    "--delay",
+    "--prewarp",
+    "--match-at",
+    "--keep-delay",
+    "--derivative-filter",
+    "--agreement",
+    "--digits",
+    "--topology",
+    "--part",
+    "--tolerance",
+    "--draws",
+    "--seed",
+    "--netlist",
+    "--bom",
+    "--force",
+    "--out",
+    "--catalog",
+    "--input",
+    "--output",
+    "--top",
+    "--trim",
+    "--rail",
+    "--amplitude",
+    "--opamp-gbw",
+    "--r-min",
+    "--c-max",
+    "--resistors",
+    "--inverse-method",
+    "-h",
+    "--version",
+    "1kHz",
+    "100Hz",
+    "-1kHz",
+    "0",
+    "nan",
+    "inf",
+    "2.2nF",
+    "10",
+    "-3",
+    "1e400",
+    "x",
+    "",
+    " ",
+    PI,
+    ZPI,
+    "(s+2)/(s+20)",
+    "1/(s-1)",
+    "s",
+    "-s",
+    "1/0",
+    "(s+1)^0.5",
+    "z",
+    "2*(1+",
+    "kc=2",
+    "ti=30s",
+    "td=5s",
+    "n=10",
+    "kc=nan",
+    "ti=-1",
+    "action=direct",
+    "bogus=1",
+    "tustin",
+    "zoh",
+    "matched",
+    "all",
+    "foh",
+    "pi-rc-feedback",
+    "nope",
+    "R1=100k",
+    "R2=470k",
+    "C1=1u",
+    "C1=0",
+    "R=1%",
+    "R=x",
+    "kp=1..4",
+    "E24",
+    "E7",
+    "missing.cir",
+    "out.cir",
+    "a folder",
+    "empty.toml",
+    "1sample",
 ]
 
 
@@ -417,8 +531,11 @@ def test_random_argv_never_crashes(tmp_path, monkeypatch):
     commands = st.sampled_from(["show", "digital", "analog", "circuit", "card", "report"])
     words = st.lists(st.sampled_from(WORDS), min_size=0, max_size=8)
 
-    @settings(max_examples=_fuzz_examples(), deadline=None,
-              suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture])
+    @settings(
+        max_examples=_fuzz_examples(),
+        deadline=None,
+        suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture],
+    )
     @given(st.one_of(words, st.tuples(commands, words).map(lambda t: [t[0], *t[1]])))
     def check(argv):
         if "circuit" in argv:

@@ -49,8 +49,18 @@ def test_pid_tables(run_cli):
     """The tables show the transfer function, zeros/poles, and all three PID forms."""
     result = run_cli("show", "--pid", "kc=2", "ti=30s", "td=5s", "n=10")
     assert result.code == 0, result.err
-    for text in ("Controller:", "Zeros, poles and gain", "integrating", "PID forms", "ideal (standard)",
-                 "series (interacting)", "Kc = 2", "Ti = 30 s", "N = 10", "corner frequencies (Hz)"):
+    for text in (
+        "Controller:",
+        "Zeros, poles and gain",
+        "integrating",
+        "PID forms",
+        "ideal (standard)",
+        "series (interacting)",
+        "Kc = 2",
+        "Ti = 30 s",
+        "N = 10",
+        "corner frequencies (Hz)",
+    ):
         assert text in result.out, text
 
 

@@ -14,6 +14,7 @@ from convert.errors import InputError
 
 EXAMPLES = int(os.environ.get("LOOPSHIFT_FUZZ_EXAMPLES", "50"))
 
+
 # Stable, distinct real roots spread over a few decades keep the root finding well conditioned
 # (a repeated root moves by about eps^(1/multiplicity) under rounding, in any library).
 def _separated(values):
@@ -51,9 +52,14 @@ def test_round_trip_through_python_control(zeros, poles, k, dt):
     np.testing.assert_allclose(c.dc_gain(), float(np.real(control.dcgain(sys))), rtol=1e-9)
 
 
-@given(st.lists(st.one_of(st.just(0.0), st.floats(min_value=1e-3, max_value=10), st.floats(min_value=-10, max_value=-1e-3)),
-                min_size=1, max_size=4),
-       st.lists(st.floats(min_value=0.1, max_value=10), min_size=1, max_size=4))
+@given(
+    st.lists(
+        st.one_of(st.just(0.0), st.floats(min_value=1e-3, max_value=10), st.floats(min_value=-10, max_value=-1e-3)),
+        min_size=1,
+        max_size=4,
+    ),
+    st.lists(st.floats(min_value=0.1, max_value=10), min_size=1, max_size=4),
+)
 @settings(max_examples=EXAMPLES, deadline=None)
 def test_frequency_response_matches_python_control(num, den):
     """C(j·2πf) equals python-control's evaluation of the same TransferFunction at s = j·2πf,

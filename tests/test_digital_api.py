@@ -56,14 +56,17 @@ def test_warnings_corner_and_ignored_prewarp():
     assert any("prewarp" in w and "ignored" in w for w in real.warnings)
 
 
-@pytest.mark.parametrize("expr,method,what", [
-    ("1/(z+0.5)", "zoh", "z = -0.5"),
-    ("1/(z+0.5)", "matched", "negative real axis"),
-    ("(z-0.5)/(z+1)", "tustin", "z = -1"),
-    ("z/(z*z)", "zoh", "z = 0"),
-    ("1/z^2", "matched", "delay"),
-    ("1/(z*(z-0.5))", "backward-euler", "delay"),
-])
+@pytest.mark.parametrize(
+    "expr,method,what",
+    [
+        ("1/(z+0.5)", "zoh", "z = -0.5"),
+        ("1/(z+0.5)", "matched", "negative real axis"),
+        ("(z-0.5)/(z+1)", "tustin", "z = -1"),
+        ("z/(z*z)", "zoh", "z = 0"),
+        ("1/z^2", "matched", "delay"),
+        ("1/(z*(z-0.5))", "backward-euler", "delay"),
+    ],
+)
 def test_inverse_refusals_name_the_pole(expr, method, what):
     d = from_expression(expr, fs_hz=1e3)
     with pytest.raises(UnrealizableError, match=re.escape(what)):

@@ -20,15 +20,21 @@ FS = 1000.0
 def controllers(draw, integrating=None):
     """Stable analog controllers with corners between fs/3000 and fs/20 (Hz), real or complex
     poles, optionally an integrator, relative degree 0..2."""
+
     def corner():
-        return 2 * np.pi * FS * draw(st.floats(min_value=np.log10(1 / 3000), max_value=np.log10(1 / 20)).map(lambda x: 10 ** x))
+        return (
+            2
+            * np.pi
+            * FS
+            * draw(st.floats(min_value=np.log10(1 / 3000), max_value=np.log10(1 / 20)).map(lambda x: 10**x))
+        )
 
     n_real = draw(st.integers(0, 2))
     n_cplx = draw(st.integers(0, 1))
     poles = [-corner() for _ in range(n_real)]
     for _ in range(n_cplx):
         w, zeta = corner(), draw(st.floats(0.2, 0.95))
-        poles += [complex(-zeta * w, w * np.sqrt(1 - zeta ** 2)), complex(-zeta * w, -w * np.sqrt(1 - zeta ** 2))]
+        poles += [complex(-zeta * w, w * np.sqrt(1 - zeta**2)), complex(-zeta * w, -w * np.sqrt(1 - zeta**2))]
     integ = draw(st.booleans()) if integrating is None else integrating
     if integ:
         poles.append(0.0)

@@ -21,13 +21,25 @@ CONTROLLERS = {
     "lead": from_expression("(0.5*s+1)/(0.05*s+1)"),
     "lag": from_expression("(0.2*s+1)/(2*s+1)"),
     "filtered_pid": from_expression("2*(1 + 1/(0.3*s) + 0.05*s/(0.005*s+1))"),
-    "lowpass2": Controller.analog([W20 ** 2], [1.0, 2 * 0.5 * W20, W20 ** 2]),
+    "lowpass2": Controller.analog([W20**2], [1.0, 2 * 0.5 * W20, W20**2]),
 }
 RATES = [10.0, 1e3, 1e5]
-SCIPY_NAMES = {"zoh": "zoh", "foh": "foh", "tustin": "bilinear", "impulse": "impulse",
-               "forward-euler": "euler", "backward-euler": "backward_diff"}
-CONTROL_NAMES = {"zoh": "zoh", "foh": "foh", "tustin": "tustin", "impulse": "impulse",
-                 "forward-euler": "euler", "backward-euler": "backward_diff"}
+SCIPY_NAMES = {
+    "zoh": "zoh",
+    "foh": "foh",
+    "tustin": "bilinear",
+    "impulse": "impulse",
+    "forward-euler": "euler",
+    "backward-euler": "backward_diff",
+}
+CONTROL_NAMES = {
+    "zoh": "zoh",
+    "foh": "foh",
+    "tustin": "tustin",
+    "impulse": "impulse",
+    "forward-euler": "euler",
+    "backward-euler": "backward_diff",
+}
 
 
 def _same_length(ours, ref):

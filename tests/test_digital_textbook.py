@@ -37,11 +37,11 @@ def _matched_textbook(zeros_s, poles_s, k_s, t, *, match_w=None, keep_delay=Fals
 
 CASES = [
     # (zeros, poles, k, fs, match_hz)
-    ([-2.0], [-20.0], 10.0, 1e3, None),                       # lead
-    ([], [-50.0, -80.0], 4000.0, 500.0, None),                # 2 zeros at infinity
-    ([-10.0], [0.0], 3.0, 1e3, 0.1),                          # PI (integrating)
-    ([-5.0, -30.0], [0.0, -300.0, -400.0], 2e4, 2e3, 0.05),   # filtered PID, integrating
-    ([], [0.0], 7.0, 100.0, 0.2),                              # pure integrator
+    ([-2.0], [-20.0], 10.0, 1e3, None),  # lead
+    ([], [-50.0, -80.0], 4000.0, 500.0, None),  # 2 zeros at infinity
+    ([-10.0], [0.0], 3.0, 1e3, 0.1),  # PI (integrating)
+    ([-5.0, -30.0], [0.0, -300.0, -400.0], 2e4, 2e3, 0.05),  # filtered PID, integrating
+    ([], [0.0], 7.0, 100.0, 0.2),  # pure integrator
 ]
 
 
@@ -54,8 +54,9 @@ def test_matched_against_textbook(zeros, poles, k, fs, match_hz, keep_delay):
     c = Controller.from_zpk(zeros, poles, k)
     t = 1 / fs
     real = discretize(c, fs, "matched", match_at_hz=match_hz, keep_delay=keep_delay)
-    zd, pd, kd = _matched_textbook(zeros, poles, k, t, match_w=None if match_hz is None else 2 * np.pi * match_hz,
-                                   keep_delay=keep_delay)
+    zd, pd, kd = _matched_textbook(
+        zeros, poles, k, t, match_w=None if match_hz is None else 2 * np.pi * match_hz, keep_delay=keep_delay
+    )
     np.testing.assert_allclose(np.sort_complex(np.array(real.zeros_z, complex)), zd, rtol=1e-12, atol=1e-12)
     np.testing.assert_allclose(np.sort_complex(np.array(real.poles_z, complex)), pd, rtol=1e-12, atol=1e-12)
     assert real.gain_z == pytest.approx(kd, rel=1e-10)
@@ -104,8 +105,9 @@ def test_forward_euler_derivative_unstable_below_half_sample_warns():
 
 
 @pytest.mark.parametrize("fs,fp", [(1e3, 50.0), (200.0, 7.0), (1e5, 2e4)])
-@pytest.mark.parametrize("expr", ["(0.5*s+1)/(0.05*s+1)", "2*(1 + 1/(0.3*s) + 0.05*s/(0.0005*s+1))",
-                                  "1/((s/300)^2 + 0.4*s/300 + 1)"])
+@pytest.mark.parametrize(
+    "expr", ["(0.5*s+1)/(0.05*s+1)", "2*(1 + 1/(0.3*s) + 0.05*s/(0.0005*s+1))", "1/((s/300)^2 + 0.4*s/300 + 1)"]
+)
 def test_prewarp_makes_responses_equal_at_the_prewarp_frequency(expr, fs, fp):
     """Invariant of the prewarped bilinear map (common practice; python-control's test suite
     checks the same invariant): C_d(e^{j2πf_pT}) = C(j2πf_p) exactly at the prewarp frequency."""

@@ -23,8 +23,12 @@ def test_demo_evidence_regenerates_from_its_script(tmp_path):
     from tests.spice import require_ngspice
 
     require_ngspice()
-    subprocess.run([sys.executable, str(ROOT / "cases" / "evidence" / "make_evidence.py"), str(tmp_path)], check=True,
-                   capture_output=True, cwd=ROOT)
+    subprocess.run(
+        [sys.executable, str(ROOT / "cases" / "evidence" / "make_evidence.py"), str(tmp_path)],
+        check=True,
+        capture_output=True,
+        cwd=ROOT,
+    )
     for name in ("temp_card_sweep.csv", "temp_plant_log.csv"):
         new = np.loadtxt(tmp_path / name, delimiter=",", skiprows=1)
         old = np.loadtxt(ROOT / "cases" / "evidence" / name, delimiter=",", skiprows=1)
@@ -79,14 +83,17 @@ max_gain_error_db = 1
 """
 
 
-@pytest.mark.parametrize("body,key,words", [
-    ("[evidence]\n", "evidence", "give [evidence.sweep]"),
-    ("[evidence.sweep]\nfile = \"nope.csv\"\n", "evidence.sweep.file", "no such file"),
-    ("[evidence.sweep]\nfiel = \"x.csv\"\n", "evidence.sweep.fiel", "did you mean 'file'"),
-    ("[evidence.log]\nfile = \"x.csv\"\nmax_residual_rms = \"-2 %\"\n", "evidence.log.max_residual_rms", "positive"),
-    ("[evidence.sweep]\nfile = \"x.csv\"\nfit = 3\n", "evidence.sweep.fit", "true or a list"),
-    ("[evidence.sweep]\nfile = \"x.csv\"\ndecimal = \";\"\n", "evidence.sweep.decimal", "expected one of"),
-])
+@pytest.mark.parametrize(
+    "body,key,words",
+    [
+        ("[evidence]\n", "evidence", "give [evidence.sweep]"),
+        ('[evidence.sweep]\nfile = "nope.csv"\n', "evidence.sweep.file", "no such file"),
+        ('[evidence.sweep]\nfiel = "x.csv"\n', "evidence.sweep.fiel", "did you mean 'file'"),
+        ('[evidence.log]\nfile = "x.csv"\nmax_residual_rms = "-2 %"\n', "evidence.log.max_residual_rms", "positive"),
+        ('[evidence.sweep]\nfile = "x.csv"\nfit = 3\n', "evidence.sweep.fit", "true or a list"),
+        ('[evidence.sweep]\nfile = "x.csv"\ndecimal = ";"\n', "evidence.sweep.decimal", "expected one of"),
+    ],
+)
 def test_evidence_keys_errors_name_line_and_key(tmp_path, body, key, words):
     (tmp_path / "x.csv").write_text("frequency (Hz),gain (dB),phase (deg)\n1,0,0\n")
     with pytest.raises(InputError) as err:
@@ -101,11 +108,14 @@ def test_sweep_of_a_given_target_and_unknown_form(tmp_path):
 
     f = np.logspace(-2, 0, 15)
     h = 2 * (1 + 1 / (3 * 2j * np.pi * f))
-    rows = ["frequency (Hz),gain (dB),phase (deg)"] + [f"{a:.12g},{20 * np.log10(abs(b)):.12g},"
-                                                       f"{np.degrees(np.angle(b)):.12g}" for a, b in zip(f, h)]
+    rows = ["frequency (Hz),gain (dB),phase (deg)"] + [
+        f"{a:.12g},{20 * np.log10(abs(b)):.12g},{np.degrees(np.angle(b)):.12g}" for a, b in zip(f, h)
+    ]
     (tmp_path / "s.csv").write_text("\n".join(rows) + "\n")
-    text = BASE + ("\n[target.given.card]\nform = \"analog\"\nexpression = \"2*(1 + 1/(3s))\"\n"
-                   "\n[evidence.sweep]\nfile = \"s.csv\"\nof = \"card\"\n")
+    text = BASE + (
+        '\n[target.given.card]\nform = "analog"\nexpression = "2*(1 + 1/(3s))"\n'
+        '\n[evidence.sweep]\nfile = "s.csv"\nof = "card"\n'
+    )
     res = evaluate_case(parse_case(text, tmp_path / "c.toml"))
     assert res.evidence.sweep_of == "card"
     assert "measured card (sweep)" in {j.realization for j in res.verdict.judgements}
@@ -123,13 +133,15 @@ def test_sweep_of_a_given_card_adds_the_measured_row_to_its_budget(tmp_path):
     s = 2j * np.pi * f
     r1, r2, c1 = 50e3, 100e3, 30e-6 * 1.1
     h = (r2 * c1 * s + 1) / (r1 * c1 * s)
-    rows = ["frequency (Hz),gain (dB),phase (deg)"] + [f"{a:.12g},{20 * np.log10(abs(b)):.12g},"
-                                                       f"{np.degrees(np.angle(b)):.12g}" for a, b in zip(f, h)]
+    rows = ["frequency (Hz),gain (dB),phase (deg)"] + [
+        f"{a:.12g},{20 * np.log10(abs(b)):.12g},{np.degrees(np.angle(b)):.12g}" for a, b in zip(f, h)
+    ]
     (tmp_path / "card.csv").write_text("\n".join(rows) + "\n")
     text = BASE.replace('band = ["10 mHz", "1 Hz"]', 'band = ["1 mHz", "1 Hz"]') + (
-        "\n[target.given.card]\nform = \"circuit\"\ntopology = \"pi-rc-feedback\"\n"
-        "parts = { R1 = \"50k\", R2 = \"100k\", C1 = \"30 uF\" }\n"
-        "\n[evidence.sweep]\nfile = \"card.csv\"\nof = \"card\"\n")
+        '\n[target.given.card]\nform = "circuit"\ntopology = "pi-rc-feedback"\n'
+        'parts = { R1 = "50k", R2 = "100k", C1 = "30 uF" }\n'
+        '\n[evidence.sweep]\nfile = "card.csv"\nof = "card"\n'
+    )
     res = evaluate_case(parse_case(text, tmp_path / "c.toml"))
     card = next(r for r in res.realizations if r.name == "given card")
     row = next(b for b in card.budget if b.key == "measured")

@@ -114,8 +114,9 @@ def test_pid_parameters_fitted_from_clean_and_noisy_logs(tmp_path):
     for name, value in (("kp", 1.2), ("ki", 0.08), ("kd", 2.0)):
         assert ev.fit.values[name] == pytest.approx(value, rel=0.01)
     rng = np.random.default_rng(11)
-    ev = log_evidence(_write(tmp_path / "noisy.csv", t, e, u + 0.02 * rng.standard_normal(t.size)),
-                      [("A", start)], fit=start)
+    ev = log_evidence(
+        _write(tmp_path / "noisy.csv", t, e, u + 0.02 * rng.standard_normal(t.size)), [("A", start)], fit=start
+    )
     for name, value in (("kp", 1.2), ("ki", 0.08), ("kd", 2.0)):
         assert abs(ev.fit.values[name] - value) <= ev.fit.ci95[name], (name, ev.fit.values, ev.fit.ci95)
 
@@ -177,14 +178,17 @@ def test_memory_stays_bounded_as_the_log_grows(tmp_path):
     assert peaks[1] - peaks[0] < 0.25 * data_growth, peaks
 
 
-@pytest.mark.parametrize("text,where,words", [
-    ("time (s),error,output\n0,1,2\n0.1,1,2\n0.05,1,2\n", "x.csv:4", "time must rise row by row"),
-    ("time (s),error\n0,1\n", "x.csv:1", "no output column"),
-    ("time (s),output\n0,1\n", "x.csv:1", "needs the controller's input"),
-    ("time (s);error;output\n0;1;2\n0,5;1;2\n", "x.csv:3", "decimal comma"),
-    ("time (s),error,output\n0,1,2\n0,5,1,2\n", "x.csv:3", "a decimal comma in a comma-separated file"),
-    ("time (kHz),error,output\n0,1,2\n", "x.csv:1", "not a unit of time"),
-])
+@pytest.mark.parametrize(
+    "text,where,words",
+    [
+        ("time (s),error,output\n0,1,2\n0.1,1,2\n0.05,1,2\n", "x.csv:4", "time must rise row by row"),
+        ("time (s),error\n0,1\n", "x.csv:1", "no output column"),
+        ("time (s),output\n0,1\n", "x.csv:1", "needs the controller's input"),
+        ("time (s);error;output\n0;1;2\n0,5;1;2\n", "x.csv:3", "decimal comma"),
+        ("time (s),error,output\n0,1,2\n0,5,1,2\n", "x.csv:3", "a decimal comma in a comma-separated file"),
+        ("time (kHz),error,output\n0,1,2\n", "x.csv:1", "not a unit of time"),
+    ],
+)
 def test_bad_logs_name_file_row_and_column(tmp_path, text, where, words):
     p = tmp_path / "x.csv"
     p.write_text(text)
@@ -208,15 +212,24 @@ def test_cli_log_json_and_verdict(run_cli, tmp_path):
         fh.write("time (s),setpoint,measurement,output (%)\n")
         for row in zip(t, sp, pv, u):
             fh.write(",".join(f"{x:.17g}" for x in row) + "\n")
-    res = run_cli("compare", "pid: kc=2 ti=30s", "pid: kc=2 ti=30s fs=10Hz", "--log", str(path),
-                  "--max-residual-rms", "2%", "--json")
+    res = run_cli(
+        "compare",
+        "pid: kc=2 ti=30s",
+        "pid: kc=2 ti=30s fs=10Hz",
+        "--log",
+        str(path),
+        "--max-residual-rms",
+        "2%",
+        "--json",
+    )
     assert res.code == 0, res.err
     data = json.loads(res.out)
     assert data["input"] == "setpoint − measurement"
     assert data["replays"][0]["rms_rel"] < 1e-9
     assert 0 < data["replays"][1]["rms_rel"] < 0.02
-    res = run_cli("compare", "pid: kc=2 ti=30s", "pid: kc=2 ti=30s fs=10Hz", "--log", str(path),
-                  "--max-residual-rms", "0.001%")
+    res = run_cli(
+        "compare", "pid: kc=2 ti=30s", "pid: kc=2 ti=30s fs=10Hz", "--log", str(path), "--max-residual-rms", "0.001%"
+    )
     assert res.code == 1 and "verdict: FAIL" in res.out
     res = run_cli("compare", "pid: kc=2 ti=30s", "--log", str(path))
     assert res.code == 0 and "nothing judged" in res.out
@@ -229,12 +242,14 @@ def test_higher_order_and_complex_modes_replay_exactly(tmp_path):
     import control
 
     s = control.tf("s")
-    high = 3 * (s + 0.5) * (s + 2) / (s * (s + 1) * (s ** 2 + 0.8 * s + 4) * (0.05 * s + 1))
-    low = (s + 1) / (s ** 2 + 0.6 * s + 9)
+    high = 3 * (s + 0.5) * (s + 2) / (s * (s + 1) * (s**2 + 0.8 * s + 4) * (0.05 * s + 1))
+    low = (s + 1) / (s**2 + 0.6 * s + 9)
     t = np.arange(0, 40, 0.01)
     e = _input(t, seed=9)
-    for name, sys_, spec in (("high", high, "3*(s+0.5)*(s+2)/(s*(s+1)*(s^2+0.8s+4)*(0.05s+1))"),
-                             ("low", low, "(s+1)/(s^2+0.6s+9)")):
+    for name, sys_, spec in (
+        ("high", high, "3*(s+0.5)*(s+2)/(s*(s+1)*(s^2+0.8s+4)*(0.05s+1))"),
+        ("low", low, "(s+1)/(s^2+0.6s+9)"),
+    ):
         u = control.forced_response(sys_, t, e).outputs
         ev = log_evidence(_write(tmp_path / f"{name}.csv", t, e, u), [("A", read_spec(spec, "A"))], chunk_rows=900)
         f = ev.replays[0].figures

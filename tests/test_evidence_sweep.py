@@ -17,8 +17,9 @@ CARD = Path(__file__).parent / "netlists" / "filtered_pi_card.cir"
 NOISE = 0.01  # stated noise: 1 % complex Gaussian on each point (0.087 dB, 0.57 deg, 1 σ)
 
 
-def _write(path: Path, f, v, header="frequency (Hz),gain (dB),phase (deg)", gain="db", phase="deg", fscale=1.0,
-           extra=None):
+def _write(
+    path: Path, f, v, header="frequency (Hz),gain (dB),phase (deg)", gain="db", phase="deg", fscale=1.0, extra=None
+):
     rows = [header]
     for i, (fi, vi) in enumerate(zip(f, v)):
         g = 20 * np.log10(abs(vi)) if gain == "db" else abs(vi)
@@ -56,8 +57,17 @@ def test_units_in_the_header_are_honoured(tmp_path):
     f = np.logspace(0, 3, 7)
     v = (1 + 2j * np.pi * f / 50) ** -1 * 3
     a = read_sweep(_write(tmp_path / "a.csv", f, v))
-    b = read_sweep(_write(tmp_path / "b.csv", f, v, header="Frequency [kHz],Magnitude (V/V),Phase (rad)", gain="v",
-                          phase="rad", fscale=1e3))
+    b = read_sweep(
+        _write(
+            tmp_path / "b.csv",
+            f,
+            v,
+            header="Frequency [kHz],Magnitude (V/V),Phase (rad)",
+            gain="v",
+            phase="rad",
+            fscale=1e3,
+        )
+    )
     assert np.allclose(a.f_hz, f) and np.allclose(b.f_hz, f)
     assert np.allclose(a.response, v, rtol=1e-9) and np.allclose(b.response, v, rtol=1e-9)
 
@@ -75,21 +85,40 @@ def test_decimal_commas_refused_or_read_when_said(tmp_path):
     p.write_text("frequency (Hz);gain (dB);phase (deg)\n1,5;2,0;-10\n10;1,5;-20\n100;1,0;-30\n")
     with pytest.raises(InputError) as err:
         read_sweep(p)
-    assert err.value.where == "dc.csv:2" and "'frequency (Hz)'" in err.value.message and "decimal comma" in err.value.message
+    assert (
+        err.value.where == "dc.csv:2"
+        and "'frequency (Hz)'" in err.value.message
+        and "decimal comma" in err.value.message
+    )
     s = read_sweep(p, decimal=",")
     assert np.allclose(s.f_hz, [1.5, 10, 100])
 
 
-@pytest.mark.parametrize("text,where,words", [
-    ("frequency (Hz),phase (deg)\n1,2\n", "x.csv:1", "no gain column"),
-    ("frequency (Hz),gain (dB),phase (deg)\n1,2,3\n10,NaN,3\n100,2,3\n", "x.csv:3", "'gain (dB)': expected a finite"),
-    ("frequency (Hz),gain (dB),phase (deg)\n1,2,3\n10,,3\n100,2,3\n", "x.csv:3", "an empty cell"),
-    ("frequency (Hz),gain (dB),phase (deg)\n1,2,3\n10,2,3\n5,2,3\n", "x.csv:4", "must rise row by row; 5 follows 10"),
-    ("frequency (Hz),gain (dB),phase (deg)\n1,2,3\n10,2\n", "x.csv:3", "'phase (deg)': the row has 2 fields"),
-    ("frequency (Hz),gain (V/V),phase (deg)\n1,2,3\n10,-2,3\n100,1,1\n", "x.csv:3", "a gain ratio must be positive"),
-    ("frequency (s),gain (dB),phase (deg)\n1,2,3\n", "x.csv:1", "unit 's' is not a unit of frequency"),
-    ("", "x.csv:1", "the file is empty"),
-])
+@pytest.mark.parametrize(
+    "text,where,words",
+    [
+        ("frequency (Hz),phase (deg)\n1,2\n", "x.csv:1", "no gain column"),
+        (
+            "frequency (Hz),gain (dB),phase (deg)\n1,2,3\n10,NaN,3\n100,2,3\n",
+            "x.csv:3",
+            "'gain (dB)': expected a finite",
+        ),
+        ("frequency (Hz),gain (dB),phase (deg)\n1,2,3\n10,,3\n100,2,3\n", "x.csv:3", "an empty cell"),
+        (
+            "frequency (Hz),gain (dB),phase (deg)\n1,2,3\n10,2,3\n5,2,3\n",
+            "x.csv:4",
+            "must rise row by row; 5 follows 10",
+        ),
+        ("frequency (Hz),gain (dB),phase (deg)\n1,2,3\n10,2\n", "x.csv:3", "'phase (deg)': the row has 2 fields"),
+        (
+            "frequency (Hz),gain (V/V),phase (deg)\n1,2,3\n10,-2,3\n100,1,1\n",
+            "x.csv:3",
+            "a gain ratio must be positive",
+        ),
+        ("frequency (s),gain (dB),phase (deg)\n1,2,3\n", "x.csv:1", "unit 's' is not a unit of frequency"),
+        ("", "x.csv:1", "the file is empty"),
+    ],
+)
 def test_bad_sweep_files_name_file_row_and_column(tmp_path, text, where, words):
     p = tmp_path / "x.csv"
     p.write_text(text)
@@ -118,14 +147,20 @@ def test_noise_from_repeats_and_from_coherence(tmp_path):
     from memory."""
     f = np.array([1.0, 10.0, 100.0])
     p = tmp_path / "r.csv"
-    p.write_text("frequency (Hz),gain 1 (dB),gain 2 (dB),phase 1 (deg),phase 2 (deg)\n"
-                 "1,0,0.2,0,2\n10,0,0.2,0,2\n100,0,0.2,0,2\n")
+    p.write_text(
+        "frequency (Hz),gain 1 (dB),gain 2 (dB),phase 1 (deg),phase 2 (deg)\n1,0,0.2,0,2\n10,0,0.2,0,2\n100,0,0.2,0,2\n"
+    )
     s = read_sweep(p)
     assert s.repeats == 2
     assert np.allclose(s.noise_db, np.std([0, 0.2], ddof=1) / np.sqrt(2))
     assert np.allclose(s.noise_deg, np.std([0, 2], ddof=1) / np.sqrt(2))
-    q = _write(tmp_path / "c.csv", f, np.ones(3), header="frequency (Hz),gain (dB),phase (deg),coherence",
-               extra=[[0.99], [0.9], [0.5]])
+    q = _write(
+        tmp_path / "c.csv",
+        f,
+        np.ones(3),
+        header="frequency (Hz),gain (dB),phase (deg),coherence",
+        extra=[[0.99], [0.9], [0.5]],
+    )
     s = read_sweep(q, averages=8)
     gamma2 = np.array([0.99, 0.9, 0.5])
     eps = np.sqrt(1 - gamma2) / (np.sqrt(gamma2) * 4)
@@ -138,12 +173,30 @@ def test_unchanged_card_passes_and_changed_card_is_flagged(run_cli, tmp_path):
     with its netlist within 1 dB / 5 deg (|error| + 2σ); with R7 10k -> 14k and RV1 100k -> 80k it does not
     (the change moves the gain by more than 2 dB), exit 1."""
     f, v = _spice({})
-    ok = run_cli("compare", str(CARD), "--sweep", str(_write(tmp_path / "ok.csv", f, v)), "--max-gain-error", "1",
-                 "--max-phase-error", "5", "--json")
+    ok = run_cli(
+        "compare",
+        str(CARD),
+        "--sweep",
+        str(_write(tmp_path / "ok.csv", f, v)),
+        "--max-gain-error",
+        "1",
+        "--max-phase-error",
+        "5",
+        "--json",
+    )
     assert ok.code == 0, ok.out[-800:]
     f, v = _spice({"R7": "14k", "RV1": "80k"})
-    bad = run_cli("compare", str(CARD), "--sweep", str(_write(tmp_path / "bad.csv", f, v)), "--max-gain-error", "1",
-                  "--max-phase-error", "5", "--json")
+    bad = run_cli(
+        "compare",
+        str(CARD),
+        "--sweep",
+        str(_write(tmp_path / "bad.csv", f, v)),
+        "--max-gain-error",
+        "1",
+        "--max-phase-error",
+        "5",
+        "--json",
+    )
     assert bad.code == 1
     data = json.loads(bad.out)
     assert data["check"]["figures"]["max_gain_error_db"] > 2
@@ -153,8 +206,9 @@ def test_fit_recovers_changed_parts_within_their_intervals(run_cli, tmp_path):
     """R7 10k -> 14k and RV1 100k -> 80k in ngspice (reference simulator), 1 % noise: the fit
     of R7 and RV1 recovers both within their 95 % intervals, and marks them changed."""
     f, v = _spice({"R7": "14k", "RV1": "80k"})
-    res = run_cli("compare", str(CARD), "--sweep", str(_write(tmp_path / "s.csv", f, v)), "--fit", "R7", "RV1",
-                  "--json")
+    res = run_cli(
+        "compare", str(CARD), "--sweep", str(_write(tmp_path / "s.csv", f, v)), "--fit", "R7", "RV1", "--json"
+    )
     data = json.loads(res.out)
     values = {x["name"]: x for x in data["fit"]["values"]}
     for name, true in (("R7", 14e3), ("RV1", 80e3)):

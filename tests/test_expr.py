@@ -59,9 +59,13 @@ def test_quotient_parsed_back_exactly(num, den):
     assert _pmul(parsed.num, _trim(den)) == _pmul(parsed.den, _trim(num))
 
 
-@given(st.lists(st.floats(min_value=-1e6, max_value=1e6, allow_nan=False, allow_infinity=False,
-                          allow_subnormal=False), min_size=1, max_size=6)
-       .filter(lambda c: c[0] != 0))
+@given(
+    st.lists(
+        st.floats(min_value=-1e6, max_value=1e6, allow_nan=False, allow_infinity=False, allow_subnormal=False),
+        min_size=1,
+        max_size=6,
+    ).filter(lambda c: c[0] != 0)
+)
 @settings(max_examples=EXAMPLES, deadline=None)
 def test_float_coefficients_survive_repr(coefs):
     """Floats written with repr (digits=None) come back as the identical floats (property test).

@@ -29,8 +29,8 @@ def _cmsis_ready(fmt: str):
     real = realize(lay, word, input_range=1.0)
     secs = []
     for s in real.sections:
-        b = tuple(round(c * 2 ** s.shift) for c in s.b)  # numerator re-quantized at the feedback's scale
-        secs.append(StoredSection(tuple(v / 2 ** s.shift for v in b), s.a, b, s.a_int, s.shift, 0))
+        b = tuple(round(c * 2**s.shift) for c in s.b)  # numerator re-quantized at the feedback's scale
+        secs.append(StoredSection(tuple(v / 2**s.shift for v in b), s.a, b, s.a_int, s.shift, 0))
     return dataclasses.replace(real, sections=tuple(secs))
 
 
@@ -39,7 +39,7 @@ def _coefs(real, fmt):
     for s in real.sections:
         b = list(s.b_int) + [0] * (3 - len(s.b_int))
         a = [-v for v in s.a_int[1:]] + [0] * (3 - len(s.a_int))
-        rows += ([b[0], 0, b[1], b[2], a[0], a[1]] if fmt == "q15" else [b[0], b[1], b[2], a[0], a[1]])
+        rows += [b[0], 0, b[1], b[2], a[0], a[1]] if fmt == "q15" else [b[0], b[1], b[2], a[0], a[1]]
     return rows
 
 
@@ -55,13 +55,15 @@ def test_fixed_model_matches_cmsis_dsp(fmt):
     n = len(real.sections)
     if fmt == "q15":
         inst = dsp.arm_biquad_casd_df1_inst_q15()
-        dsp.arm_biquad_cascade_df1_init_q15(inst, n, np.array(_coefs(real, fmt), dtype=np.int16),
-                                            np.zeros(4 * n, dtype=np.int16), post)
+        dsp.arm_biquad_cascade_df1_init_q15(
+            inst, n, np.array(_coefs(real, fmt), dtype=np.int16), np.zeros(4 * n, dtype=np.int16), post
+        )
         ref = dsp.arm_biquad_cascade_df1_q15(inst, x)
     else:
         inst = dsp.arm_biquad_casd_df1_inst_q31()
-        dsp.arm_biquad_cascade_df1_init_q31(inst, n, np.array(_coefs(real, fmt), dtype=np.int32),
-                                            np.zeros(4 * n, dtype=np.int32), post)
+        dsp.arm_biquad_cascade_df1_init_q31(
+            inst, n, np.array(_coefs(real, fmt), dtype=np.int32), np.zeros(4 * n, dtype=np.int32), post
+        )
         ref = dsp.arm_biquad_cascade_df1_q31(inst, x)
     got = real.model().run_int(x.astype(np.int64))
     assert np.max(np.abs(ref)) > 2 ** (w - 8)  # a real signal went through

@@ -76,8 +76,12 @@ def _run_c(tmp_path, real, name, seq) -> list:
     (tmp_path / "main.c").write_text(HARNESS.format(name=name, t=t, read=read, write=write, set_output=set_output))
     exe = tmp_path / "run"
     flags = ["-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", "-O2"]
-    subprocess.run([GCC, *flags, "-o", str(exe), str(tmp_path / "main.c"), str(tmp_path / f"{name}.c")],
-                   check=True, capture_output=True, text=True)
+    subprocess.run(
+        [GCC, *flags, "-o", str(exe), str(tmp_path / "main.c"), str(tmp_path / f"{name}.c")],
+        check=True,
+        capture_output=True,
+        text=True,
+    )
     lines = []
     for c, v in seq:
         if c == "r":
@@ -109,8 +113,12 @@ def _run_model(real, seq) -> list:
     return out
 
 
-CASES = [(s, f) for s in STRUCTURES for f in ("float64", "float32", "q15", "q31")
-         if not (f.startswith("q") and s not in ("direct1", "sections"))]
+CASES = [
+    (s, f)
+    for s in STRUCTURES
+    for f in ("float64", "float32", "q15", "q31")
+    if not (f.startswith("q") and s not in ("direct1", "sections"))
+]
 
 
 @needs_gcc
@@ -194,12 +202,15 @@ def test_structured_text_runs_like_the_model(structure, fmt):
     assert got == want
 
 
-@pytest.mark.parametrize("bad", [
-    "FUNCTION_BLOCK f VAR_INPUT x : REAL; END_VAR y := x; END_FUNCTION_BLOCK",  # y undeclared
-    "FUNCTION_BLOCK f VAR_INPUT x : REAL; END_VAR VAR_OUTPUT y : REAL; END_VAR y := x / 2.0; END_FUNCTION_BLOCK",
-    "FUNCTION_BLOCK f VAR_INPUT x : REAL; END_VAR VAR_OUTPUT y : LREAL; END_VAR y := x; END_FUNCTION_BLOCK",
-    "FUNCTION_BLOCK f VAR_INPUT x : REAL; END_VAR VAR_OUTPUT y : REAL; END_VAR x := 1.0; END_FUNCTION_BLOCK",
-])
+@pytest.mark.parametrize(
+    "bad",
+    [
+        "FUNCTION_BLOCK f VAR_INPUT x : REAL; END_VAR y := x; END_FUNCTION_BLOCK",  # y undeclared
+        "FUNCTION_BLOCK f VAR_INPUT x : REAL; END_VAR VAR_OUTPUT y : REAL; END_VAR y := x / 2.0; END_FUNCTION_BLOCK",
+        "FUNCTION_BLOCK f VAR_INPUT x : REAL; END_VAR VAR_OUTPUT y : LREAL; END_VAR y := x; END_FUNCTION_BLOCK",
+        "FUNCTION_BLOCK f VAR_INPUT x : REAL; END_VAR VAR_OUTPUT y : REAL; END_VAR x := 1.0; END_FUNCTION_BLOCK",
+    ],
+)
 def test_structured_text_reader_refuses_outside_the_subset(bad):
     """The subset reader is strict (so the emitted text passing it means something)."""
     from tests.st_subset import FunctionBlock, STError

@@ -80,7 +80,7 @@ def test_fixed_point_case_runs_the_bit_true_model(tmp_path):
     res = evaluate_case(_case(tmp_path, "q15", "sections", "input_range = [-2, 2]"))
     r = res.realizations[0]
     fw = r.details["firmware"]
-    lsb = fw["node_scales"][-1] / 2 ** 15
+    lsb = fw["node_scales"][-1] / 2**15
     u = r.step.u
     assert np.allclose(u / lsb, np.round(u / lsb), atol=1e-6)
     assert "firmware_overflow" in {j.criterion for j in res.verdict.judgements}
@@ -121,12 +121,20 @@ def test_firmware_checks_alone_do_not_make_a_pass():
     criterion checked the verdict stays "unchecked" even when every firmware check passes."""
     from convert.compare.verdict import judge
 
-    check = {"key": "firmware_stability", "label": "stable", "unit": "|z|", "limit": 1.0, "value": 0.9,
-             "status": "pass"}
+    check = {
+        "key": "firmware_stability",
+        "label": "stable",
+        "unit": "|z|",
+        "limit": 1.0,
+        "value": 0.9,
+        "status": "pass",
+    }
     assert judge({}, {"r": {"checks": [check]}}, has_plant=False).overall == "unchecked"
     assert judge({}, {"r": {"checks": [dict(check, status="fail")]}}, has_plant=False).overall == "fail"
-    assert judge({"max_gain_error_db": 1.0}, {"r": {"max_gain_error_db": 0.1, "checks": [check]}},
-                 has_plant=False).overall == "pass"
+    assert (
+        judge({"max_gain_error_db": 1.0}, {"r": {"max_gain_error_db": 0.1, "checks": [check]}}, has_plant=False).overall
+        == "pass"
+    )
 
 
 def test_model_driven_simulation_matches_the_linear_one_in_float64():

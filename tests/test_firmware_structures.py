@@ -88,7 +88,7 @@ def test_float32_direct_pid_error_against_mpmath():
     worst = 0.0
     for fk in f:
         z1 = mpmath.exp(-2j * mpmath.pi * fk / fs)
-        h = sum(c * z1 ** k for k, c in enumerate(b32)) / sum(c * z1 ** k for k, c in enumerate(a32))
+        h = sum(c * z1**k for k, c in enumerate(b32)) / sum(c * z1**k for k, c in enumerate(a32))
         ref = complex(real.roots.frequency_response(np.array([fk]))[0])
         worst = max(worst, abs(20 * math.log10(abs(complex(h)) / abs(ref))))
     assert x.gain_error_db == pytest.approx(worst, rel=1e-3)
@@ -114,8 +114,8 @@ def _mp_gain_error_db(x, real, f):
                 num = sum(mpmath.mpf(c) * dd ** (len(sec.b) - 1 - k) for k, c in enumerate(sec.b))
                 den = sum(mpmath.mpf(c) * dd ** (len(sec.a) - 1 - k) for k, c in enumerate(sec.a))
             else:
-                num = sum(mpmath.mpf(c) * z ** -k for k, c in enumerate(sec.b))
-                den = sum(mpmath.mpf(c) * z ** -k for k, c in enumerate(sec.a))
+                num = sum(mpmath.mpf(c) * z**-k for k, c in enumerate(sec.b))
+                den = sum(mpmath.mpf(c) * z**-k for k, c in enumerate(sec.a))
             h *= num / den
         ref = complex(real.roots.frequency_response(np.array([fk]))[0])
         worst = max(worst, abs(20 * math.log10(abs(complex(h)) / abs(ref))))
@@ -129,8 +129,10 @@ def test_sections_and_delta_smaller_error_than_direct_float32():
     form by 10x, the delta form beats sections by 100x."""
     real = _real("2*(1+1/(1.0*s)+0.1*s/(0.01*s+1))", 1e4)
     f = log_grid(0.01, 100, 30)
-    res = {s: analyze(real.roots, s, "float32", f, b=real.b, a=real.a, output_level=10, input_resolution=0.01)
-           for s in STRUCTURES}
+    res = {
+        s: analyze(real.roots, s, "float32", f, b=real.b, a=real.a, output_level=10, input_resolution=0.01)
+        for s in STRUCTURES
+    }
     for s in ("sections", "delta"):
         assert res[s].gain_error_db == pytest.approx(_mp_gain_error_db(res[s], real, f), rel=1e-3, abs=1e-9)
     assert res["sections"].gain_error_db < res["direct1"].gain_error_db / 5
@@ -146,8 +148,16 @@ def test_integrator_stall_float32_hand_derived():
     fs = 1000.0
     real = _real("0.5/s", fs, "backward-euler")
     b0 = real.b[0]
-    x = analyze(real.roots, "direct1", "float32", log_grid(0.01, 100, 20), b=real.b, a=real.a,
-                output_level=10.0, input_range=1.0)
+    x = analyze(
+        real.roots,
+        "direct1",
+        "float32",
+        log_grid(0.01, 100, 20),
+        b=real.b,
+        a=real.a,
+        output_level=10.0,
+        input_range=1.0,
+    )
     want = np.spacing(np.float32(9.99)) / 2 / np.float32(b0)
     assert x.stall_error == pytest.approx(float(want), rel=0.08)
 
@@ -190,7 +200,7 @@ def test_fixed_model_tracks_float64_within_lsb_bound():
     x = 0.5 * np.sin(np.arange(3000) * 0.01)
     y = r.model().run(x)
     ref = lfilter(real.b, real.a, x)
-    lsb = r.node_scales[-1] / 2 ** 31
+    lsb = r.node_scales[-1] / 2**31
     assert np.max(np.abs(y - ref)) < 1000 * lsb
 
 
@@ -203,8 +213,9 @@ def test_unstable_float32_direct_form_is_a_failure():
     assert not d.ok and d.max_pole_radius > 1 and "unstable" in d.failures[0]
     a32 = np.asarray(real.a, dtype=np.float32).astype(float)
     assert max(abs(np.roots(a32))) > 1  # numpy agrees: the stored polynomial is unstable
-    best, _ = recommend([analyze(real.roots, s, "float32", f, b=real.b, a=real.a, output_level=10.0)
-                         for s in STRUCTURES])
+    best, _ = recommend(
+        [analyze(real.roots, s, "float32", f, b=real.b, a=real.a, output_level=10.0) for s in STRUCTURES]
+    )
     assert best in ("sections", "delta")
 
 
@@ -239,8 +250,9 @@ def test_stall_figure_does_not_depend_on_the_window(monkeypatch):
 
     real = _real("2*(1+1/(1.0*s)+0.1*s/(0.01*s+1))", 2000)
     f = log_grid(0.01, 100, 20)
-    first = {s: analyze(real.roots, s, "float32", f, b=real.b, a=real.a, output_level=10).stall_error
-             for s in STRUCTURES}
+    first = {
+        s: analyze(real.roots, s, "float32", f, b=real.b, a=real.a, output_level=10).stall_error for s in STRUCTURES
+    }
     monkeypatch.setattr(q, "STALL_TO", 256)
     for s, v in first.items():
         again = analyze(real.roots, s, "float32", f, b=real.b, a=real.a, output_level=10).stall_error

@@ -13,8 +13,13 @@ import numpy as np
 import pytest
 
 from convert.compare.budget import error_row
-from convert.compare.frequency import (compare_controllers, compare_responses, log_grid, phase_error_across,
-                                       response_seen_from_loop)
+from convert.compare.frequency import (
+    compare_controllers,
+    compare_responses,
+    log_grid,
+    phase_error_across,
+    response_seen_from_loop,
+)
 from convert.compare.verdict import judge
 from convert.controller import Controller, from_expression
 from convert.digital import discretize
@@ -24,7 +29,7 @@ def _resonant():
     """Lightly damped second-order lead (zeta = 0.02 at 20 Hz) against its Tustin form at 200 Hz:
     the gain error has a narrow peak that a coarse grid misses."""
     w0 = 2 * np.pi * 20
-    src = Controller.analog([1, 2 * 0.3 * w0, w0 ** 2], [1, 2 * 0.02 * w0, w0 ** 2])
+    src = Controller.analog([1, 2 * 0.3 * w0, w0**2], [1, 2 * 0.02 * w0, w0**2])
     dig = discretize(src, 200.0, "tustin").controller
     return src, dig
 
@@ -81,11 +86,14 @@ def test_notch_on_the_axis_is_unbounded_whatever_the_band_edge(top_hz, ppd):
     assert err.max_gain_error_db == math.inf and err.max_phase_error_deg == math.inf
     assert "unbounded" in err.unbounded_note
     f0 = math.sqrt(9869.6) / (2 * math.pi)
-    assert any(abs(float(x) - f0) < 1e-6 * f0 for x in
-               [t.split(" Hz")[0].split()[-1] for t in err.unbounded_note.split(";")])
-    v = judge({"max_gain_error_db": 12.0}, {"tustin": {"max_gain_error_db": err.max_gain_error_db,
-                                                       "max_gain_error_db_note": err.unbounded_note}},
-              has_plant=False)
+    assert any(
+        abs(float(x) - f0) < 1e-6 * f0 for x in [t.split(" Hz")[0].split()[-1] for t in err.unbounded_note.split(";")]
+    )
+    v = judge(
+        {"max_gain_error_db": 12.0},
+        {"tustin": {"max_gain_error_db": err.max_gain_error_db, "max_gain_error_db_note": err.unbounded_note}},
+        has_plant=False,
+    )
     assert v.overall == "fail" and "unbounded" in v.failures[0].note
 
 
@@ -120,9 +128,15 @@ def test_budget_row_uses_the_same_refined_maximum():
     """A budget row given the continuous responses reports compare_controllers' figure."""
     src, dig = _resonant()
     f = log_grid(1.0, 90.0, 10)
-    row = error_row("discretization", f, src.frequency_response(f), dig.frequency_response(f), note="",
-                    forms=(src, dig),
-                    evaluate=lambda x: (src.frequency_response(x), dig.frequency_response(x)))
+    row = error_row(
+        "discretization",
+        f,
+        src.frequency_response(f),
+        dig.frequency_response(f),
+        note="",
+        forms=(src, dig),
+        evaluate=lambda x: (src.frequency_response(x), dig.frequency_response(x)),
+    )
     ref = compare_controllers(src, dig, log_grid(1.0, 90.0, 1000), hold="none")
     assert row.max_gain_error_db == pytest.approx(ref.max_gain_error_db, rel=1e-6)
     assert response_seen_from_loop(src, f).shape == f.shape
@@ -136,11 +150,14 @@ def test_digital_source_made_into_a_circuit_names_its_own_hold():
     triangle inequality bounds the total by the sum of the rows)."""
     from convert import case_from_dict, evaluate
 
-    case = case_from_dict({
-        "source": {"digital": {"b": [1.9, -3.5, 1.62], "a": [1, -1.3, 0.3], "fs": "40 Hz", "method": "tustin"}},
-        "target": {"circuit": {"draws": 200}},
-        "criteria": {"band": ["10 mHz", "4 Hz"], "max_gain_error_db": 3, "max_phase_error_deg": 30}},
-        name="kiln")
+    case = case_from_dict(
+        {
+            "source": {"digital": {"b": [1.9, -3.5, 1.62], "a": [1, -1.3, 0.3], "fs": "40 Hz", "method": "tustin"}},
+            "target": {"circuit": {"draws": 200}},
+            "criteria": {"band": ["10 mHz", "4 Hz"], "max_gain_error_db": 3, "max_phase_error_deg": 30},
+        },
+        name="kiln",
+    )
     res = evaluate(case)
     r = next(x for x in res.realizations if x.form == "circuit")
     rows = {row.key: row for row in r.budget if row.applicable}
@@ -159,9 +176,14 @@ def test_notch_case_fails_whatever_the_band_top():
     from convert import case_from_dict, evaluate
 
     for top in ("38 Hz", "40 Hz", "41 Hz"):
-        case = case_from_dict({"source": {"expression": NOTCH}, "target": {"digital": {"fs": "200 Hz",
-                                                                                      "methods": ["tustin"]}},
-                               "criteria": {"band": ["0.1 Hz", top], "max_gain_error_db": 12}}, name="notch")
+        case = case_from_dict(
+            {
+                "source": {"expression": NOTCH},
+                "target": {"digital": {"fs": "200 Hz", "methods": ["tustin"]}},
+                "criteria": {"band": ["0.1 Hz", top], "max_gain_error_db": 12},
+            },
+            name="notch",
+        )
         res = evaluate(case)
         assert res.verdict.overall == "fail"
         (j,) = [j for j in res.verdict.failures if j.criterion == "max_gain_error_db"]

@@ -35,10 +35,62 @@ def _refused_well(exc: Exception) -> None:
 
 
 # ----------------------------------------------------------------------------- values
-_VALUE_PIECES = st.sampled_from(["0", "1", "2.2", ".5", "47", "e", "E", "-", "+", "3", "400", "401", "9" * 30, " ",
-                                 "k", "K", "M", "m", "u", "µ", "n", "p", "f", "G", "T", "meg", "Meg", "mil", "Hz",
-                                 "hz", "s", "ms", "min", "h", "F", "H", "V", "%", "ohm", "Ω", "4k7", "nan", "inf",
-                                 "sample", "samples", ".", "e-", "1e308", "1e-320", "x", "\t", "/"])
+_VALUE_PIECES = st.sampled_from(
+    [
+        "0",
+        "1",
+        "2.2",
+        ".5",
+        "47",
+        "e",
+        "E",
+        "-",
+        "+",
+        "3",
+        "400",
+        "401",
+        "9" * 30,
+        " ",
+        "k",
+        "K",
+        "M",
+        "m",
+        "u",
+        "µ",
+        "n",
+        "p",
+        "f",
+        "G",
+        "T",
+        "meg",
+        "Meg",
+        "mil",
+        "Hz",
+        "hz",
+        "s",
+        "ms",
+        "min",
+        "h",
+        "F",
+        "H",
+        "V",
+        "%",
+        "ohm",
+        "Ω",
+        "4k7",
+        "nan",
+        "inf",
+        "sample",
+        "samples",
+        ".",
+        "e-",
+        "1e308",
+        "1e-320",
+        "x",
+        "\t",
+        "/",
+    ]
+)
 _KINDS = ["ohm", "farad", "henry", "hz", "second", "volt", "percent", "ratio", "number"]
 
 
@@ -80,9 +132,49 @@ def test_values_random_text(text):
 
 
 # ----------------------------------------------------------------------------- expressions
-_EXPR_PIECES = st.sampled_from(["s", "z", "z^-1", "(", ")", "((", "))", "+", "-", "*", "/", "^", "**", "2", "0",
-                                "0.5", "1e3", "1e-400", "1e401", "64", "65", "(s+1)", "(s+1)^64", "^64", "^-2",
-                                " ", "3 4", "2s", "s(", "ss", "x", "µ", "1/", "/0", ".", "e", "9" * 40, "--", "+-"])
+_EXPR_PIECES = st.sampled_from(
+    [
+        "s",
+        "z",
+        "z^-1",
+        "(",
+        ")",
+        "((",
+        "))",
+        "+",
+        "-",
+        "*",
+        "/",
+        "^",
+        "**",
+        "2",
+        "0",
+        "0.5",
+        "1e3",
+        "1e-400",
+        "1e401",
+        "64",
+        "65",
+        "(s+1)",
+        "(s+1)^64",
+        "^64",
+        "^-2",
+        " ",
+        "3 4",
+        "2s",
+        "s(",
+        "ss",
+        "x",
+        "µ",
+        "1/",
+        "/0",
+        ".",
+        "e",
+        "9" * 40,
+        "--",
+        "+-",
+    ]
+)
 
 
 @FUZZ
@@ -115,9 +207,10 @@ def test_expressions_random_text(text):
 
 
 @FUZZ
-@given(st.lists(st.tuples(st.integers(-9, 9), st.integers(-9, 9)).filter(lambda t: t != (0, 0)),
-                min_size=1, max_size=6),
-       st.lists(st.integers(-9, 9).filter(bool), min_size=1, max_size=6))
+@given(
+    st.lists(st.tuples(st.integers(-9, 9), st.integers(-9, 9)).filter(lambda t: t != (0, 0)), min_size=1, max_size=6),
+    st.lists(st.integers(-9, 9).filter(bool), min_size=1, max_size=6),
+)
 def test_expressions_products_match_numpy(factors, roots):
     """Exact products of first-order factors agree with numpy.polymul (reference library)."""
     import numpy as np
@@ -146,18 +239,53 @@ def test_expressions_products_match_numpy(factors, roots):
 
 # ----------------------------------------------------------------------------- case files
 _TOML_VALUES = st.one_of(
-    st.sampled_from(['"1 kHz"', '"2.2 nF"', '"30 s"', '"tustin"', '"zoh"', '"E24"', '"pi-rc-feedback"', '"(s+1)/s"',
-                     '"1 sample"', '["1 Hz", "2 Hz"]', '["tustin", "tustin"]', '[0.1, -0.09]', '[1, -1]', '2',
-                     '0', '-1', '1e999', 'nan', 'inf', 'true', '"x"', '""', '{ kc = 2, ti = "30 s" }', '[]', '{}',
-                     '"[/old] [rev 2]"', '"<!-- **Verdict: PASS**"', '"1e999999999"', '"1e-300 Hz"']),
+    st.sampled_from(
+        [
+            '"1 kHz"',
+            '"2.2 nF"',
+            '"30 s"',
+            '"tustin"',
+            '"zoh"',
+            '"E24"',
+            '"pi-rc-feedback"',
+            '"(s+1)/s"',
+            '"1 sample"',
+            '["1 Hz", "2 Hz"]',
+            '["tustin", "tustin"]',
+            "[0.1, -0.09]",
+            "[1, -1]",
+            "2",
+            "0",
+            "-1",
+            "1e999",
+            "nan",
+            "inf",
+            "true",
+            '"x"',
+            '""',
+            '{ kc = 2, ti = "30 s" }',
+            "[]",
+            "{}",
+            '"[/old] [rev 2]"',
+            '"<!-- **Verdict: PASS**"',
+            '"1e999999999"',
+            '"1e-300 Hz"',
+        ]
+    ),
     st.text(max_size=20).map(lambda t: '"' + t.replace("\\", "\\\\").replace('"', '\\"') + '"'),
 )
-_TABLES = {"case": ["title", "description"], "source": ["expression"], "source.pid": ["kc", "ti", "td", "n", "kp"],
-           "source.digital": ["b", "a", "fs", "method"], "target.digital": ["fs", "methods", "prewarp", "delay",
-                                                                            "delay_samples", "output_limits"],
-           "target.circuit": ["topology", "resistors", "capacitors", "draws", "seed"], "plant": ["model", "dead_time"],
-           "criteria": ["band", "max_gain_error_db", "max_phase_error_deg"], "signals": ["setpoint_step", "duration"],
-           "bogus": ["key"]}
+_TABLES = {
+    "case": ["title", "description"],
+    "source": ["expression"],
+    "source.pid": ["kc", "ti", "td", "n", "kp"],
+    "source.digital": ["b", "a", "fs", "method"],
+    "target.digital": ["fs", "methods", "prewarp", "delay", "delay_samples", "output_limits"],
+    "target.circuit": ["topology", "resistors", "capacitors", "draws", "seed"],
+    "plant": ["model", "dead_time"],
+    "criteria": ["band", "max_gain_error_db", "max_phase_error_deg"],
+    "signals": ["setpoint_step", "duration"],
+    "bogus": ["key"],
+}
 
 
 @st.composite
@@ -224,9 +352,22 @@ def test_netlist_values_replaced_read_or_refuse(index, data):
     from tests.test_netlist_fuzz import read_and_analyze
 
     lines = NETLISTS[index].read_text(encoding="utf-8").splitlines()
-    hostile = st.sampled_from(["1e999999999", "1" + "0" * 500, "{" + "(" * 150 + "1" + ")" * 150 + "}",
-                               "{" + "^".join(["2"] * 300) + "}", "{1/0}", "1e-320", "-1k", "0", "{a}", "4k7",
-                               "[/old]", "[rev 2]"])
+    hostile = st.sampled_from(
+        [
+            "1e999999999",
+            "1" + "0" * 500,
+            "{" + "(" * 150 + "1" + ")" * 150 + "}",
+            "{" + "^".join(["2"] * 300) + "}",
+            "{1/0}",
+            "1e-320",
+            "-1k",
+            "0",
+            "{a}",
+            "4k7",
+            "[/old]",
+            "[rev 2]",
+        ]
+    )
     for _ in range(data.draw(st.integers(1, 3))):
         i = data.draw(st.integers(0, len(lines) - 1))
         words = lines[i].split() or [""]

@@ -34,8 +34,9 @@ def _row(realization, key):
     return next(r for r in realization.budget if r.key == key)
 
 
-@pytest.mark.parametrize("method,scipy_name", [("backward-euler", "backward_diff"), ("forward-euler", "euler"),
-                                               ("tustin", "bilinear")])
+@pytest.mark.parametrize(
+    "method,scipy_name", [("backward-euler", "backward_diff"), ("forward-euler", "euler"), ("tustin", "bilinear")]
+)
 def test_pid_block_law_matches_scipy_cont2discrete(method, scipy_name):
     """A PID block sampled term by term equals the whole PID law mapped by the same substitution,
     which is what scipy.signal.cont2discrete computes (reference library: 'backward_diff',
@@ -181,22 +182,40 @@ method = "backward-euler"
     assert _row(blk, "discretization").applicable
 
 
-@pytest.mark.parametrize("body,key,words", [
-    ("[target.given.x]\nb = [1]\na = [1]\nfs = \"1 kHz\"\n", "target.given.x", "missing form"),
-    ("[target.given.x]\nform = \"digital\"\nb = [1]\na = [1]\nfs = \"1 kHz\"\nword_format = \"int7\"\n",
-     "target.given.x.word_format", "q15"),
-    ("[target.given.x]\nform = \"digital\"\nsos = [[1, 0, 0, 1, 0]]\nfs = \"1 kHz\"\n", "target.given.x.sos",
-     "six numbers"),
-    ("[target.given.x]\nform = \"digital\"\nb = [1]\na = [1]\n", "target.given.x", "missing fs"),
-    ("[target.given.x]\nform = \"digital\"\nb = [1]\na = [1]\nfs = \"1 kHz\"\nmethod = \"zoh\"\n",
-     "target.given.x.method", "unknown key"),
-    ("[target.given.x]\nform = \"pid\"\nsettings = { kc = 1, td = \"1 s\" }\nfs = \"1 kHz\"\nmethod = \"tustin\"\n",
-     "target.given.x.method", "backward-euler"),
-    ("[target.given.x]\nform = \"circuit\"\nnetlist = \"nowhere.cir\"\n", "target.given.x.netlist", "no such netlist"),
-    ("[target.given.x]\nform = \"circuit\"\ntopology = \"pi-rc-feedback\"\n", "target.given.x", "missing parts"),
-    ("[target.given.x]\nform = \"pid\"\nsettings = { kc = 1, tii = 3 }\nfs = \"1 kHz\"\n",
-     "target.given.x.settings.tii", "unknown key"),
-])
+@pytest.mark.parametrize(
+    "body,key,words",
+    [
+        ('[target.given.x]\nb = [1]\na = [1]\nfs = "1 kHz"\n', "target.given.x", "missing form"),
+        (
+            '[target.given.x]\nform = "digital"\nb = [1]\na = [1]\nfs = "1 kHz"\nword_format = "int7"\n',
+            "target.given.x.word_format",
+            "q15",
+        ),
+        (
+            '[target.given.x]\nform = "digital"\nsos = [[1, 0, 0, 1, 0]]\nfs = "1 kHz"\n',
+            "target.given.x.sos",
+            "six numbers",
+        ),
+        ('[target.given.x]\nform = "digital"\nb = [1]\na = [1]\n', "target.given.x", "missing fs"),
+        (
+            '[target.given.x]\nform = "digital"\nb = [1]\na = [1]\nfs = "1 kHz"\nmethod = "zoh"\n',
+            "target.given.x.method",
+            "unknown key",
+        ),
+        (
+            '[target.given.x]\nform = "pid"\nsettings = { kc = 1, td = "1 s" }\nfs = "1 kHz"\nmethod = "tustin"\n',
+            "target.given.x.method",
+            "backward-euler",
+        ),
+        ('[target.given.x]\nform = "circuit"\nnetlist = "nowhere.cir"\n', "target.given.x.netlist", "no such netlist"),
+        ('[target.given.x]\nform = "circuit"\ntopology = "pi-rc-feedback"\n', "target.given.x", "missing parts"),
+        (
+            '[target.given.x]\nform = "pid"\nsettings = { kc = 1, tii = 3 }\nfs = "1 kHz"\n',
+            "target.given.x.settings.tii",
+            "unknown key",
+        ),
+    ],
+)
 def test_given_errors_name_line_and_key(body, key, words):
     """Every bad given form is one InputError naming the file:line and the key (house rule)."""
     with pytest.raises(InputError) as err:
@@ -213,8 +232,10 @@ def test_fixed_point_word_format_is_stored_and_refused_at_evaluation():
     coefficients, so the evaluation refuses it (never a PASS on a stand-in)."""
     from convert.errors import UnrealizableError
 
-    case = _case("[target.given.q]\nform = \"digital\"\nb = [0.5, -0.4]\na = [1, -1]\nfs = \"100 Hz\"\n"
-                 "word_format = \"Q15\"\nstructure = \"transposed-2\"\n")
+    case = _case(
+        '[target.given.q]\nform = "digital"\nb = [0.5, -0.4]\na = [1, -1]\nfs = "100 Hz"\n'
+        'word_format = "Q15"\nstructure = "transposed-2"\n'
+    )
     assert case.given[0].data["word_format"] == "q15"
     assert case.given[0].data["structure"] == "transposed-2"
     with pytest.raises(UnrealizableError, match="q15"):
@@ -224,8 +245,10 @@ def test_fixed_point_word_format_is_stored_and_refused_at_evaluation():
 def test_report_cli_runs_a_given_only_case(run_cli, tmp_path):
     """A case with only given targets runs through `loopshift report` (exit 0 when they pass)."""
     path = tmp_path / "g.toml"
-    path.write_text(HEAD + "\n[target.given.card]\nform = \"circuit\"\ntopology = \"pi-rc-feedback\"\n"
-                           "parts = { R1 = \"50k\", R2 = \"100k\", C1 = \"30 uF\" }\n")
+    path.write_text(
+        HEAD + '\n[target.given.card]\nform = "circuit"\ntopology = "pi-rc-feedback"\n'
+        'parts = { R1 = "50k", R2 = "100k", C1 = "30 uF" }\n'
+    )
     res = run_cli("report", str(path), "--out", str(tmp_path / "rep"))
     assert res.code == 0, res.err
     assert "given card" in (tmp_path / "rep" / "report.md").read_text()

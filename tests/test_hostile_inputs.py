@@ -132,8 +132,13 @@ def test_reversed_1000_long_param_chain_is_read(run_cli, here):
     """Was RecursionError. p0 = p1 = ... = p1000 = 1k: an RC low-pass of 1k and 1 uF, pole at
     1000 rad/s (hand calculation: 1/(RC))."""
     n = 1000
-    path = _card(here, "chain.cir", ["chain"] + [f".param p{i}={{p{i + 1}*1}}" for i in range(n)]
-                 + [f".param p{n}=1k", "VIN in 0 AC 1", "R1 in out {p0}", "C1 out 0 1u", ".end"])
+    path = _card(
+        here,
+        "chain.cir",
+        ["chain"]
+        + [f".param p{i}={{p{i + 1}*1}}" for i in range(n)]
+        + [f".param p{n}=1k", "VIN in 0 AC 1", "R1 in out {p0}", "C1 out 0 1u", ".end"],
+    )
     result = run_cli("card", path, "--json", "--no-sensitivity")
     assert result.code == 0, result.err
     import json
@@ -145,11 +150,17 @@ def test_reversed_1000_long_param_chain_is_read(run_cli, here):
 
 
 def test_param_nested_200_deep_and_chained_powers_are_refused(run_cli, here):
-    nested = _card(here, "nest.cir", ["nest", ".param a={" + "(" * 200 + "1" + ")" * 200 + "}",
-                                      "VIN in 0 AC 1", "R1 in out {a}", "C1 out 0 1u"])
+    nested = _card(
+        here,
+        "nest.cir",
+        ["nest", ".param a={" + "(" * 200 + "1" + ")" * 200 + "}", "VIN in 0 AC 1", "R1 in out {a}", "C1 out 0 1u"],
+    )
     _one_line_error(run_cli("card", nested), "nest.cir:2", "nested more than 100 deep")
-    powers = _card(here, "pow.cir", ["pow", ".param a={" + "^".join(["1"] * 2000) + "}",
-                                     "VIN in 0 AC 1", "R1 in out {a}", "C1 out 0 1u"])
+    powers = _card(
+        here,
+        "pow.cir",
+        ["pow", ".param a={" + "^".join(["1"] * 2000) + "}", "VIN in 0 AC 1", "R1 in out {a}", "C1 out 0 1u"],
+    )
     _one_line_error(run_cli("card", powers), "pow.cir:2", "nested more than 100 deep")
 
 
@@ -174,8 +185,13 @@ def test_netlist_title_is_printed_literally_by_the_real_console(here):
 
     path = _card(here, "t.cir", ["[/old] [rev 2]", "VIN in 0 AC 1", "R1 in out 1k", "C1 out 0 1u"])
     env = dict(os.environ, PYTHONPATH=os.path.dirname(os.path.dirname(os.path.abspath(__file__))), COLUMNS="120")
-    proc = subprocess.run([sys.executable, "-m", "convert", "card", path, "--no-sensitivity"], capture_output=True,
-                          text=True, env=env, timeout=120)
+    proc = subprocess.run(
+        [sys.executable, "-m", "convert", "card", path, "--no-sensitivity"],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=120,
+    )
     assert proc.returncode == 0, proc.stderr
     assert "[/old] [rev 2]" in proc.stdout
 
@@ -237,8 +253,9 @@ def test_stat_helper_names_file_kinds(here):
 
 
 # ----------------------------------------------------------------------------- case-list lengths
-_BASE_CASE = (os.path.join(os.path.dirname(os.path.dirname(os.path.abspath(__file__))), "cases",
-                           "slow_firmware_fails.toml"))
+_BASE_CASE = os.path.join(
+    os.path.dirname(os.path.dirname(os.path.abspath(__file__))), "cases", "slow_firmware_fails.toml"
+)
 
 
 def _case_with(fs: str, methods: str) -> str:
@@ -246,28 +263,41 @@ def _case_with(fs: str, methods: str) -> str:
 
     with open(_BASE_CASE, encoding="utf-8") as fh:
         text = fh.read()
-    text = re.sub(r'(?m)^fs = .*$', f"fs = {fs}", text, count=1)
-    return re.sub(r'(?m)^methods = .*$', f"methods = {methods}", text, count=1)
+    text = re.sub(r"(?m)^fs = .*$", f"fs = {fs}", text, count=1)
+    return re.sub(r"(?m)^methods = .*$", f"methods = {methods}", text, count=1)
 
 
 def _toml_list(items) -> str:
     return "[" + ", ".join(f'"{i}"' for i in items) + "]"
 
 
-@pytest.mark.parametrize("fs, methods, fragments", [
-    # an fs list of 1,000 entries ran for minutes
-    (_toml_list(f"{100 + i} Hz" for i in range(1000)), '["tustin"]', ("target.digital.fs", "1,000 sample rates", "32")),
-    # a methods list of 1,000 entries
-    ('"1 Hz"', _toml_list(["tustin", "zoh"] * 500), ("target.digital.methods", "1,000 methods", "each at most once")),
-    # duplicate methods doubled the work silently
-    ('"1 Hz"', '["tustin", "zoh", "tustin"]', ("target.digital.methods", "'tustin' is given twice")),
-    # the same rate written two ways
-    ('["1 Hz", "1000 mHz"]', '["tustin"]', ("target.digital.fs", "'1000 mHz' is given twice", "'1 Hz'")),
-    # rates x methods
-    (_toml_list(f"{i} Hz" for i in range(1, 11)), _toml_list(["tustin", "zoh", "foh", "matched", "impulse",
-                                                                "backward-euler", "forward-euler"]),
-     ("10 sample rates x 7 methods = 70 realizations", "64", "loopshift batch")),
-])
+@pytest.mark.parametrize(
+    "fs, methods, fragments",
+    [
+        # an fs list of 1,000 entries ran for minutes
+        (
+            _toml_list(f"{100 + i} Hz" for i in range(1000)),
+            '["tustin"]',
+            ("target.digital.fs", "1,000 sample rates", "32"),
+        ),
+        # a methods list of 1,000 entries
+        (
+            '"1 Hz"',
+            _toml_list(["tustin", "zoh"] * 500),
+            ("target.digital.methods", "1,000 methods", "each at most once"),
+        ),
+        # duplicate methods doubled the work silently
+        ('"1 Hz"', '["tustin", "zoh", "tustin"]', ("target.digital.methods", "'tustin' is given twice")),
+        # the same rate written two ways
+        ('["1 Hz", "1000 mHz"]', '["tustin"]', ("target.digital.fs", "'1000 mHz' is given twice", "'1 Hz'")),
+        # rates x methods
+        (
+            _toml_list(f"{i} Hz" for i in range(1, 11)),
+            _toml_list(["tustin", "zoh", "foh", "matched", "impulse", "backward-euler", "forward-euler"]),
+            ("10 sample rates x 7 methods = 70 realizations", "64", "loopshift batch"),
+        ),
+    ],
+)
 def test_case_lists_are_bounded_and_repeats_refused(run_cli, here, fs, methods, fragments):
     (here / "c.toml").write_text(_case_with(fs, methods), encoding="utf-8")
     _one_line_error(run_cli("report", "c.toml", "--out", "r"), "c.toml:", *fragments)
@@ -277,14 +307,16 @@ def test_case_lists_are_bounded_and_repeats_refused(run_cli, here, fs, methods, 
 def test_case_within_the_list_bounds_is_read():
     from convert.case import parse_case
 
-    case = parse_case(_case_with(_toml_list(f"{i} Hz" for i in range(1, 9)), '["tustin", "zoh", "foh", "matched"]'),
-                      "c.toml")
+    case = parse_case(
+        _case_with(_toml_list(f"{i} Hz" for i in range(1, 9)), '["tustin", "zoh", "foh", "matched"]'), "c.toml"
+    )
     assert len(case.digital.fs_hz) * len(case.digital.methods) == 32
 
 
 def test_digital_source_with_1000_coefficients_is_refused(run_cli, here):
-    text = ('[source.digital]\nb = [' + ", ".join(["0.001"] * 1000) + ']\na = [1, -0.5]\nfs = "1 kHz"\n'
-            '[target.circuit]\n')
+    text = (
+        "[source.digital]\nb = [" + ", ".join(["0.001"] * 1000) + ']\na = [1, -0.5]\nfs = "1 kHz"\n[target.circuit]\n'
+    )
     (here / "d.toml").write_text(text, encoding="utf-8")
     _one_line_error(run_cli("report", "d.toml", "--out", "r"), "source.digital.b", "1,000 coefficients", "101")
 
@@ -306,8 +338,10 @@ def test_case_naming_dev_zero_as_its_netlist_is_refused_as_a_device(run_cli, her
 def test_toml_integer_of_many_digits_is_refused(run_cli, here, digits, fragment):
     """Found while probing case files: `kc = 111…1` (5,000 digits) was a ValueError inside tomllib
     and 400 digits an OverflowError converting to float (both exit 3)."""
-    (here / "big.toml").write_text(f'[source.pid]\nkc = {"1" * digits}\nti = "30 s"\n[target.digital]\nfs = "1 kHz"\n'
-                                   '[criteria]\nband = ["1 mHz", "1 Hz"]\nmax_gain_error_db = 1\n')
+    (here / "big.toml").write_text(
+        f'[source.pid]\nkc = {"1" * digits}\nti = "30 s"\n[target.digital]\nfs = "1 kHz"\n'
+        '[criteria]\nband = ["1 mHz", "1 Hz"]\nmax_gain_error_db = 1\n'
+    )
     _one_line_error(run_cli("report", "big.toml", "--out", "r"), "big.toml", fragment)
 
 

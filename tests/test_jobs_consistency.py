@@ -43,8 +43,14 @@ def _series_words(action: str = "reverse") -> tuple[str, ...]:
     from convert.pid import PidSettings
 
     sf = PidSettings.from_ideal(2.0, 3.0, 0.6, n=10).series()
-    return ("form=series", f"kc={sf.kc!r}", f"ti={sf.ti_s!r}s", f"td={sf.td_s!r}s", f"tf={sf.tf_s!r}s",
-            f"action={action}")
+    return (
+        "form=series",
+        f"kc={sf.kc!r}",
+        f"ti={sf.ti_s!r}s",
+        f"td={sf.td_s!r}s",
+        f"tf={sf.tf_s!r}s",
+        f"action={action}",
+    )
 
 
 def _card_parts() -> dict[str, float]:
@@ -127,10 +133,14 @@ def test_show_circuit_card_json_agree_on_num_den(run_cli):
     outputs.append(card)
     for data in outputs:
         _assert_same(type("C", (), {"num": data["num"], "den": data["den"]}))
-    for target in (_json(run_cli, "circuit", EXPRESSION, "--draws", "0")["target"],
-                   _json(run_cli, "circuit", "--pid", *_series_words(), "--draws", "0")["target"]):
+    for target in (
+        _json(run_cli, "circuit", EXPRESSION, "--draws", "0")["target"],
+        _json(run_cli, "circuit", "--pid", *_series_words(), "--draws", "0")["target"],
+    ):
         _assert_same(type("C", (), target))
-    assert card["pid"]["parallel"] == pytest.approx({"kp": 2.0, "ki_per_s": 2 / 3, "kd_s": 1.2, "tf_s": 0.06}, rel=1e-12)
+    assert card["pid"]["parallel"] == pytest.approx(
+        {"kp": 2.0, "ki_per_s": 2 / 3, "kd_s": 1.2, "tf_s": 0.06}, rel=1e-12
+    )
 
 
 def _tustin_reference(num, den, fs_hz):

@@ -27,7 +27,7 @@ SINGLE_INPUT = [
 TWO_INPUT = ("kp=1.8", "ki=4/s", "kd=0.09s", "tf=0.006s", "b=0.6", "c=0")
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def _design(words: tuple[str, ...]):
     from convert.circuit.design import design_circuit, error_sources
     from convert.pid import pid_from_words
@@ -49,11 +49,17 @@ def _four_decades(design) -> tuple[float, float]:
     return lo, max(hi, lo * 1e4)
 
 
-def _assert_same_response(ours: np.ndarray, ref: np.ndarray, f: np.ndarray, gain_db: float, phase_deg: float, what: str):
+def _assert_same_response(
+    ours: np.ndarray, ref: np.ndarray, f: np.ndarray, gain_db: float, phase_deg: float, what: str
+):
     gain_err = np.abs(20 * np.log10(np.abs(ours) / np.abs(ref)))
     phase_err = np.abs(np.angle(ours / ref, deg=True))
-    assert gain_err.max() <= gain_db, f"{what}: gain differs by {gain_err.max():.3g} dB at {f[gain_err.argmax()]:.4g} Hz"
-    assert phase_err.max() <= phase_deg, f"{what}: phase differs by {phase_err.max():.3g} deg at {f[phase_err.argmax()]:.4g} Hz"
+    assert gain_err.max() <= gain_db, (
+        f"{what}: gain differs by {gain_err.max():.3g} dB at {f[gain_err.argmax()]:.4g} Hz"
+    )
+    assert phase_err.max() <= phase_deg, (
+        f"{what}: phase differs by {phase_err.max():.3g} deg at {f[phase_err.argmax()]:.4g} Hz"
+    )
 
 
 @pytest.mark.parametrize("case", SINGLE_INPUT, ids=[c[0] for c in SINGLE_INPUT])
@@ -67,7 +73,7 @@ def test_auto_topology_and_sign(case):
     assert ("XUINV" in _netlist(words)) is inverter
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def _netlist(words, drive="error"):
     from convert.circuit.netlist_out import design_netlist
 
@@ -129,8 +135,11 @@ def _spice_values(text: str) -> dict[str, float]:
     return {e.name: e.value for e in nl.elements if e.kind in ("R", "C") and "." not in e.name}
 
 
-@pytest.mark.parametrize("case", SINGLE_INPUT + [("two-input", TWO_INPUT, "pid-two-input", True)],
-                         ids=[c[0] for c in SINGLE_INPUT] + ["two-input"])
+@pytest.mark.parametrize(
+    "case",
+    SINGLE_INPUT + [("two-input", TWO_INPUT, "pid-two-input", True)],
+    ids=[c[0] for c in SINGLE_INPUT] + ["two-input"],
+)
 def test_bom_rows_are_the_netlist_parts(case):
     """Every R and C of the netlist is a BOM row with the same value (read back with
     convert.values.parse_value; BOM values carry 4 significant digits, series values have 3),
@@ -221,8 +230,9 @@ def test_two_input_design_read_back_as_a_card_keeps_the_weights():
     settings, design, errors = _design(TWO_INPUT)
     text = _netlist(TWO_INPUT).replace("EMEAS meas 0 in 0 -1", "VPV meas 0 DC 0")
     assert "VPV meas" in text
-    card = analyze_card(read_netlist(text, "two_input.cir"), setpoint="VSP", measurement="VPV",
-                        with_sensitivities=False)
+    card = analyze_card(
+        read_netlist(text, "two_input.cir"), setpoint="VSP", measurement="VPV", with_sensitivities=False
+    )
     st = card.structure
     assert st is not None and st.pid is not None, st.description if st else "no structure"
     q = errors["rounding"]["quantities"]

@@ -68,8 +68,9 @@ def spice_step_ramp():
     """ngspice transient of the card: step + ramp (1 ns edge at t0), V(out) at the sample instants."""
     require_ngspice()
     t_end = _sample_times()[-1] + T
-    line = pwl_source("VIN", "in", [0.0, T0, T0 + 1e-9, t_end],
-                      [0.0, 0.0, STEP_V, STEP_V + SLOPE_V_PER_S * (t_end - T0)])
+    line = pwl_source(
+        "VIN", "in", [0.0, T0, T0 + 1e-9, t_end], [0.0, 0.0, STEP_V, STEP_V + SLOPE_V_PER_S * (t_end - T0)]
+    )
     return _ngspice_at_samples(line)
 
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from convert.compare.loop import (default_duration, loop_margins, response_deviation, simulate_loop)
+from convert.compare.loop import default_duration, loop_margins, response_deviation, simulate_loop
 from convert.controller import Controller, from_expression
 
 PI = from_expression("2*(1 + 1/(5*s))")
@@ -51,8 +51,10 @@ def test_digital_loop_converges_to_analog_as_fs_grows():
     """Sampled-data convergence (common practice): the hold's effect shrinks like T, so the step
     deviation from the analog loop falls as fs rises."""
     analog = simulate_loop(PI, PLANT, 0.5, duration_s=20.0, steps=20000)
-    devs = [response_deviation(analog, simulate_loop(_tustin(PI, fs), PLANT, 0.5, duration_s=20.0))
-            for fs in (2.0, 8.0, 32.0)]
+    devs = [
+        response_deviation(analog, simulate_loop(_tustin(PI, fs), PLANT, 0.5, duration_s=20.0))
+        for fs in (2.0, 8.0, 32.0)
+    ]
     assert devs[0] > devs[1] > devs[2]
     assert devs[2] < 0.25 * devs[0]
     assert devs[2] < 0.01

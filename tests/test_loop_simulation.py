@@ -31,7 +31,7 @@ CASES = {
 TOL = 1e-3  # of the step
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def _reference(name: str, kind: str):
     """(t, y, settling time) of the RK4 reference over a horizon of a few settling times."""
     c_text, p_text, theta, limits = CASES[name]
@@ -114,17 +114,18 @@ def test_sampled_loop_same_as_the_former_step_loop(c_text, fs, p_text, theta, de
     cd = discretize(from_expression(c_text), fs, "tustin").controller
     p = from_expression(p_text)
     duration = 20.0
-    t, y, u = stepwise_sampled_loop(cd, p, theta, duration_s=duration, steps=4000, kind=kind, delay_s=delay,
-                                    output_limits=limits)
-    sim = simulate_loop(cd, p, theta, duration_s=duration, steps=4000, kind=kind, delay_s=delay,
-                        output_limits=limits)
+    t, y, u = stepwise_sampled_loop(
+        cd, p, theta, duration_s=duration, steps=4000, kind=kind, delay_s=delay, output_limits=limits
+    )
+    sim = simulate_loop(cd, p, theta, duration_s=duration, steps=4000, kind=kind, delay_s=delay, output_limits=limits)
     assert sim.t.size == t.size and np.allclose(sim.t, t, rtol=0, atol=1e-12)
     assert np.max(np.abs(sim.y - y)) < 1e-9
     assert np.max(np.abs(sim.u - u)) < 1e-9
 
 
-@pytest.mark.parametrize("case", ["netlist_card_to_firmware", "pi_card_to_firmware", "slow_firmware_fails",
-                                  "leadlag_position_fast"])
+@pytest.mark.parametrize(
+    "case", ["netlist_card_to_firmware", "pi_card_to_firmware", "slow_firmware_fails", "leadlag_position_fast"]
+)
 def test_demo_cases_same_as_the_former_step_loop(case):
     """The demo cases' firmware loops (their own delays, limits and signals): the new simulation
     on the former grid gives the former responses within 1e-9 of the step."""
@@ -149,10 +150,28 @@ def test_demo_cases_same_as_the_former_step_loop(case):
     limits = c.digital.output_limits or c.signals.output_range
     duration = default_duration(src, c.plant.model, c.plant.dead_time_s)
     for kind, size in (("setpoint", c.signals.setpoint_step), ("disturbance", c.signals.disturbance_step)):
-        t, y, u = stepwise_sampled_loop(cd, c.plant.model, c.plant.dead_time_s, duration_s=duration, steps=4000,
-                                        kind=kind, step=size, delay_s=delay, output_limits=limits)
-        sim = simulate_loop(cd, c.plant.model, c.plant.dead_time_s, duration_s=duration, steps=4000, kind=kind,
-                            step=size, delay_s=delay, output_limits=limits)
+        t, y, u = stepwise_sampled_loop(
+            cd,
+            c.plant.model,
+            c.plant.dead_time_s,
+            duration_s=duration,
+            steps=4000,
+            kind=kind,
+            step=size,
+            delay_s=delay,
+            output_limits=limits,
+        )
+        sim = simulate_loop(
+            cd,
+            c.plant.model,
+            c.plant.dead_time_s,
+            duration_s=duration,
+            steps=4000,
+            kind=kind,
+            step=size,
+            delay_s=delay,
+            output_limits=limits,
+        )
         assert np.max(np.abs(sim.y - y)) < 1e-9 * abs(size)
 
 
@@ -174,8 +193,7 @@ def test_clamp_segments_are_exact_at_the_samples():
     from convert.digital import discretize
 
     cd = discretize(from_expression("2*(1 + 1/(5*s))"), 50.0, "tustin").controller
-    sim = simulate_loop(cd, from_expression("1/((3*s + 1)*(s + 1))"), 0.2, duration_s=30.0,
-                        output_limits=(-1.0, 1.5))
+    sim = simulate_loop(cd, from_expression("1/((3*s + 1)*(s + 1))"), 0.2, duration_s=30.0, output_limits=(-1.0, 1.5))
     assert sim.u.max() == 1.5 and sim.u.min() >= -1.0
 
 

@@ -30,16 +30,16 @@ def _pade_unstable_count(c, p, theta):
 
 ANALOG = [
     ("2*(1 + 1/(5*s))", "1/((3*s + 1)*(s + 1))", 0.5),
-    ("20*(1 + 1/(5*s))", "1/((3*s + 1)*(s + 1))", 0.5),      # too much gain: unstable
-    ("-2*(1 + 1/(5*s))", "1/((3*s + 1)*(s + 1))", 0.5),      # direct action on a positive-gain plant
-    ("5", "1/(2*s + 1)", 1.0),                                 # first order plus dead time, high gain
-    ("6*(1 + 1/(2*s))", "1/(2*s + 1)", 1.0),                   # ... under a PI (CASE_GAIN below)
+    ("20*(1 + 1/(5*s))", "1/((3*s + 1)*(s + 1))", 0.5),  # too much gain: unstable
+    ("-2*(1 + 1/(5*s))", "1/((3*s + 1)*(s + 1))", 0.5),  # direct action on a positive-gain plant
+    ("5", "1/(2*s + 1)", 1.0),  # first order plus dead time, high gain
+    ("6*(1 + 1/(2*s))", "1/(2*s + 1)", 1.0),  # ... under a PI (CASE_GAIN below)
     ("3", "1/(2*s + 1)", 1.0),
     ("1.5", "1/(2*s + 1)", 1.0),
     ("8*(1 + 1/(20*s) + 2*s/(0.2*s + 1))", "0.5/((30*s + 1)*(5*s + 1))", 1.0),
     ("0.5*(1 + 1/(2*s))", "2/(s + 1)", 3.0),
-    ("2", "1/(s - 1)", 0.2),                                   # open-loop unstable plant, stabilized
-    ("2", "1/(s - 1)", 0.8),                                   # ... and lost to the dead time
+    ("2", "1/(s - 1)", 0.2),  # open-loop unstable plant, stabilized
+    ("2", "1/(s - 1)", 0.8),  # ... and lost to the dead time
     ("0.5", "1/(s - 1)", 0.0),
     ("(s + 1)/(0.1*s + 1)", "1/(s*(s + 2))", 0.3),
     ("4*(s + 0.5)/(s*(0.1*s + 1))", "1/(s^2 + 0.2*s + 4)", 0.05),
@@ -84,7 +84,7 @@ def test_sampled_loop_stability_agrees_with_python_control(fs, extra, kc):
     s = loop_stability(cd, p, theta, delay_s=extra * t)
     n = int(round((theta + extra * t) / t))
     z = control.tf([1, 0], [1], t)
-    loop = cd.to_control() * (1 / z ** n) * control.sample_system(p.to_control(), t, method="zoh")
+    loop = cd.to_control() * (1 / z**n) * control.sample_system(p.to_control(), t, method="zoh")
     poles = control.feedback(loop, 1).poles()
     assert s.unstable_poles == int(np.sum(np.abs(poles) > 1 + 1e-9))
 

@@ -48,19 +48,34 @@ def _systems():
         # the `tsys` fixture: (system, stability_margins(sys)) = (gm, pm, sm, wg, wp, ws)
         "tsys-1": (control.tf([1, 2], [1, 2, 3]), (math.inf, math.inf, math.inf, math.nan, math.nan, math.nan)),
         "tsys-2": (control.tf([1], [1, 2, 3, 4]), (2.0, math.inf, 0.4170, 1.7321, math.nan, 1.6620)),
-        "tsys-3-statespace": (control.ss2tf(control.ss([[1.0, 4.0], [3.0, 2.0]], [[1.0], [-4.0]], [[1.0, 0.0]], [[0.0]])),
-                              (math.inf, 147.0743, math.inf, math.nan, 2.5483, math.nan)),
-        "tsys-4": ((8.75 * (4 * s**2 + 0.4 * s + 1)) / ((100 * s + 1) * (s**2 + 0.22 * s + 1))
-                   / (s**2 / 10.0**2 + 2 * 0.04 * s / 10.0 + 1),
-                   (2.2716, 97.5941, 0.5591, 10.0053, 0.0850, 9.9918)),
+        "tsys-3-statespace": (
+            control.ss2tf(control.ss([[1.0, 4.0], [3.0, 2.0]], [[1.0], [-4.0]], [[1.0, 0.0]], [[0.0]])),
+            (math.inf, 147.0743, math.inf, math.nan, 2.5483, math.nan),
+        ),
+        "tsys-4": (
+            (8.75 * (4 * s**2 + 0.4 * s + 1))
+            / ((100 * s + 1) * (s**2 + 0.22 * s + 1))
+            / (s**2 / 10.0**2 + 2 * 0.04 * s / 10.0 + 1),
+            (2.2716, 97.5941, 0.5591, 10.0053, 0.0850, 9.9918),
+        ),
         "tsys-5-no-crossings": (1 / (1 + s), (math.inf, math.inf, math.inf, math.nan, math.nan, math.nan)),
         "tsys-6-no-crossings": (3 * (10 + s) / (2 + s), (math.inf, math.inf, math.inf, math.nan, math.nan, math.nan)),
-        "tsys-7-no-phase-crossing": (0.01 * (10 - s) / (2 + s) / (1 + s), (300.0, math.inf, 0.9917, 5.6569, math.nan, 2.3171)),
+        "tsys-7-no-phase-crossing": (
+            0.01 * (10 - s) / (2 + s) / (1 + s),
+            (300.0, math.inf, 0.9917, 5.6569, math.nan, 2.3171),
+        ),
     }
 
 
-TSYS = ["tsys-1", "tsys-2", "tsys-3-statespace", "tsys-4", "tsys-5-no-crossings", "tsys-6-no-crossings",
-        "tsys-7-no-phase-crossing"]
+TSYS = [
+    "tsys-1",
+    "tsys-2",
+    "tsys-3-statespace",
+    "tsys-4",
+    "tsys-5-no-crossings",
+    "tsys-6-no-crossings",
+    "tsys-7-no-phase-crossing",
+]
 
 
 @pytest.mark.parametrize("name", TSYS)
@@ -83,26 +98,41 @@ def _zmore():
     import control
 
     s = control.TransferFunction.s
-    ex21 = 0.002 * (s + 0.02) * (s + 0.05) * (s + 5) * (s + 10) / (
-        (s - 0.0005) * (s + 0.0001) * (s + 0.01) * (s + 0.2) * (s + 1) * (s + 100) ** 2)
-    return {"typem1": s / (s + 1), "type0": 1 / (s + 1) ** 3, "type1": (s + 0.1) / s / (s + 1),
-            "type2": (s + 0.1) / s**2 / (s + 1), "type3": (s + 0.1) * (s + 0.1) / s**3 / (s + 1), "example21": ex21}
+    ex21 = (
+        0.002
+        * (s + 0.02)
+        * (s + 0.05)
+        * (s + 5)
+        * (s + 10)
+        / ((s - 0.0005) * (s + 0.0001) * (s + 0.01) * (s + 0.2) * (s + 1) * (s + 100) ** 2)
+    )
+    return {
+        "typem1": s / (s + 1),
+        "type0": 1 / (s + 1) ** 3,
+        "type1": (s + 0.1) / s / (s + 1),
+        "type2": (s + 0.1) / s**2 / (s + 1),
+        "type3": (s + 0.1) * (s + 0.1) / s**3 / (s + 1),
+        "example21": ex21,
+    }
 
 
 INF, NAN = math.inf, math.nan
 
 
-@pytest.mark.parametrize("sysname,k,atol,result", [
-    ("typem1", 2.0, 1.5e-3, (INF, -120.0007, NAN, 0.5774)),
-    ("type0", 0.8, 1.5e-3, (10.0014, INF, 1.7322, NAN)),
-    ("type0", 2.0, 1e-2, (4.000, 67.6058, 1.7322, 0.7663)),
-    ("type1", 1.0, 1e-4, (INF, 144.9032, NAN, 0.3162)),
-    ("type2", 1.0, 1e-4, (INF, 44.4594, NAN, 0.7907)),
-    ("type3", 1.0, 1.5e-3, (0.0626, 37.1748, 0.1119, 0.7951)),
-    ("example21", 1.0, 1e-2, (0.0100, -14.5640, 0, 0.0022)),     # L(0) = -100: gain margin 0.01 at zero frequency
-    ("example21", 1000.0, 1e-2, (0.1793, 22.5215, 0.0243, 0.0630)),
-    ("example21", 5000.0, 1.5e-3, (4.5596, 21.2101, 0.4385, 0.1868)),
-])
+@pytest.mark.parametrize(
+    "sysname,k,atol,result",
+    [
+        ("typem1", 2.0, 1.5e-3, (INF, -120.0007, NAN, 0.5774)),
+        ("type0", 0.8, 1.5e-3, (10.0014, INF, 1.7322, NAN)),
+        ("type0", 2.0, 1e-2, (4.000, 67.6058, 1.7322, 0.7663)),
+        ("type1", 1.0, 1e-4, (INF, 144.9032, NAN, 0.3162)),
+        ("type2", 1.0, 1e-4, (INF, 44.4594, NAN, 0.7907)),
+        ("type3", 1.0, 1.5e-3, (0.0626, 37.1748, 0.1119, 0.7951)),
+        ("example21", 1.0, 1e-2, (0.0100, -14.5640, 0, 0.0022)),  # L(0) = -100: gain margin 0.01 at zero frequency
+        ("example21", 1000.0, 1e-2, (0.1793, 22.5215, 0.0243, 0.0630)),
+        ("example21", 5000.0, 1.5e-3, (4.5596, 21.2101, 0.4385, 0.1868)),
+    ],
+)
 def test_zmore_margin(sysname, k, atol, result):
     """python-control ``test_zmore_margin`` (systems from its ``tsys_zmoresystems`` fixture, which
     credits Bavafi-Toosi, "A note on the gain and phase margin concepts", J. Control Syst. Eng.,
@@ -111,14 +141,27 @@ def test_zmore_margin(sysname, k, atol, result):
     np.testing.assert_allclose(np.array(_ours(loop))[[0, 1, 3, 4]], result, atol=atol)
 
 
-@pytest.mark.parametrize("cnum,cden,dt,ref,rtol", [
-    ([2], [1, 3, 2, 0], 1e-2, [2.955761, 32.398492, 0.429535, 1.403725, 0.749367, 0.923898], 1e-5),   # gh-465
-    ([2], [1, 3, 3, 1], 0.1, [3.4927, 65.4212, 0.5763, 1.6283, 0.76625, 1.2019], 1e-4),
-    ([1.1 * 4 * np.pi**2], [1, 2 * 0.2 * 2 * np.pi, 4 * np.pi**2], 0.05,
-     [2.3842, 18.161, 0.26953, 11.712, 8.7478, 9.1504], 1e-4),                                          # gh-523 a
-    ([5e4], [1.0, 101.0, 10101.0, 10100.0, 10000.0], 1e-3,
-     [18.8766, 26.3564, 0.406841, 9.76358, 2.32933, 2.55986], 1e-5),                                    # gh-523 b
-])
+@pytest.mark.parametrize(
+    "cnum,cden,dt,ref,rtol",
+    [
+        ([2], [1, 3, 2, 0], 1e-2, [2.955761, 32.398492, 0.429535, 1.403725, 0.749367, 0.923898], 1e-5),  # gh-465
+        ([2], [1, 3, 3, 1], 0.1, [3.4927, 65.4212, 0.5763, 1.6283, 0.76625, 1.2019], 1e-4),
+        (
+            [1.1 * 4 * np.pi**2],
+            [1, 2 * 0.2 * 2 * np.pi, 4 * np.pi**2],
+            0.05,
+            [2.3842, 18.161, 0.26953, 11.712, 8.7478, 9.1504],
+            1e-4,
+        ),  # gh-523 a
+        (
+            [5e4],
+            [1.0, 101.0, 10101.0, 10100.0, 10000.0],
+            1e-3,
+            [18.8766, 26.3564, 0.406841, 9.76358, 2.32933, 2.55986],
+            1e-5,
+        ),  # gh-523 b
+    ],
+)
 def test_stability_margins_discrete(cnum, cden, dt, ref, rtol):
     """python-control ``test_stability_margins_discrete``: L(z) = TransferFunction(num, den)
     sampled with zoh at dt (python-control's ``sample``), all six figures within rtol; ours reads
@@ -159,8 +202,9 @@ def test_sensitivity_peak_refined_to_1e6_relative():
     from convert.controller import from_expression
 
     m = loop_margins(from_expression("2/(s+1)^3"), UNIT, 0.0, f_hz=np.logspace(-3, 2, 101))
-    res = minimize_scalar(lambda w: abs(1 + 2 / (1j * w + 1) ** 3), bounds=(0.5, 3.0), method="bounded",
-                          options={"xatol": 1e-12})
+    res = minimize_scalar(
+        lambda w: abs(1 + 2 / (1j * w + 1) ** 3), bounds=(0.5, 3.0), method="bounded", options={"xatol": 1e-12}
+    )
     assert 2 * math.pi * m.sensitivity_peak_hz == pytest.approx(res.x, rel=1e-6)
     assert m.ms == pytest.approx(1 / res.fun, rel=1e-9)
 

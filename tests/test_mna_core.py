@@ -90,14 +90,18 @@ def test_two_input_card_structure_and_cancellation():
     """Closed form for tests/netlists/sp_pv_card.cir: u = Zf/Rsp·r − Zf·(1/Rpv + sCd/(1 + s Rd Cd))·y with
     Zf = R2 + 1/(s C1); the setpoint path never sees the derivative network's pole at 1/(Rd Cd)."""
     r2, c1, rsp, rpv, cd, rd = 150e3, 10e-6, 100e3, 100e3, 1e-6, 10e3
-    a = analyze_card(read_netlist((HERE / "sp_pv_card.cir").read_text(), "sp_pv_card.cir"),
-                     setpoint="VSP", measurement="VPV", with_sensitivities=False)
+    a = analyze_card(
+        read_netlist((HERE / "sp_pv_card.cir").read_text(), "sp_pv_card.cir"),
+        setpoint="VSP",
+        measurement="VPV",
+        with_sensitivities=False,
+    )
     zf = Controller.analog([r2 * c1, 1.0], [c1, 0.0])
     y = Controller.analog([rd * cd + rpv * cd, 1.0], [rpv * rd * cd, rpv])
     feedback = zf.series(y)
     same(a.controller, feedback.num, feedback.den, rtol=1e-8)
     same(a.results["VSP"].controller, [r2 / rsp, 1.0 / (rsp * c1)], [1.0, 0.0], rtol=1e-8)
-    (zero, pole), = a.results["VSP"].cancelled
+    ((zero, pole),) = a.results["VSP"].cancelled
     assert pole.real == pytest.approx(-1.0 / (rd * cd), rel=1e-6)
     pid = a.pid
     assert pid.c == 0.0 and pid.ki == pytest.approx(1.0 / (c1 * rpv))
@@ -176,14 +180,25 @@ def test_input_and_output_names_and_other_sources_zeroed():
         transfer_function(read_netlist(text), "VERR")
 
 
-@pytest.mark.parametrize("text, pattern", [
-    ("t\nVIN in 0\nR1 in out 1k\nR2 out 0 1k\nR3 a b 1k\n", r"^n.cir:5: R3: node 'a' is floating"),
-    ("t\nVIN in 0\nC1 in n1 1u\nC2 n1 out 1u\nX1 0 n1 out OPAMP\n",
-     r"^n.cir:5: X1: the op-amp's inverting input \(node 'n1'\) has no DC path"),
-    ("t\nVIN in 0\nR1 in n1 1k\nX1 n1 0 out OPAMP\nR2 out 0 1k\n", r"^n.cir:4: X1: the circuit equations are singular"),
-    ("t\nVIN in 0\nV2 in 0\nR1 in out 1k\nR2 out 0 1k\n", r"^n.cir:3: V2: the circuit equations are singular"),
-    ("t\nVIN in 0\nR1 in 0 1k\nR2 out 0 1k\nR3 out 0 1k\n", r"^n.cir: output: the output node does not depend on VIN"),
-])
+@pytest.mark.parametrize(
+    "text, pattern",
+    [
+        ("t\nVIN in 0\nR1 in out 1k\nR2 out 0 1k\nR3 a b 1k\n", r"^n.cir:5: R3: node 'a' is floating"),
+        (
+            "t\nVIN in 0\nC1 in n1 1u\nC2 n1 out 1u\nX1 0 n1 out OPAMP\n",
+            r"^n.cir:5: X1: the op-amp's inverting input \(node 'n1'\) has no DC path",
+        ),
+        (
+            "t\nVIN in 0\nR1 in n1 1k\nX1 n1 0 out OPAMP\nR2 out 0 1k\n",
+            r"^n.cir:4: X1: the circuit equations are singular",
+        ),
+        ("t\nVIN in 0\nV2 in 0\nR1 in out 1k\nR2 out 0 1k\n", r"^n.cir:3: V2: the circuit equations are singular"),
+        (
+            "t\nVIN in 0\nR1 in 0 1k\nR2 out 0 1k\nR3 out 0 1k\n",
+            r"^n.cir: output: the output node does not depend on VIN",
+        ),
+    ],
+)
 def test_circuit_errors(text, pattern):
     """Issue 5 item 6: floating node, op-amp input without DC path, singular circuit: file:line: element."""
     with pytest.raises(InputError, match=pattern):

@@ -42,11 +42,9 @@ def test_passive_rlc_ladder():
 def test_opamp_pid_stage():
     """Reference: lcapy with its op-amp element (gain Ad -> infinity); an interacting PID stage with
     a derivative-limiting resistor, as in tests/netlists/two_stage_filter.cir."""
-    lc = ("R1 1 2 100000\nC2 1 5 1e-6\nRD 5 2 10000\nR2 2 6 220000\nC1 6 3 4.7e-6\n"
-          "E1 3 0 opamp 0 2 Ad\n")
+    lc = "R1 1 2 100000\nC2 1 5 1e-6\nRD 5 2 10000\nR2 2 6 220000\nC1 6 3 4.7e-6\nE1 3 0 opamp 0 2 Ad\n"
     n_ref, d_ref = _lcapy_coefficients(lc, 3, gain_symbols=("Ad",))
-    ours_text = ("pid\nVIN 1 0\nR1 1 2 100k\nC2 1 5 1u\nRD 5 2 10k\nR2 2 6 220k\nC1 6 3 4.7u\n"
-                 "X1 0 2 3 OPAMP\n")
+    ours_text = "pid\nVIN 1 0\nR1 1 2 100k\nC2 1 5 1u\nRD 5 2 10k\nR2 2 6 220k\nC1 6 3 4.7u\nX1 0 2 3 OPAMP\n"
     ours = transfer_function(read_netlist(ours_text, "pid.cir"), "VIN", "3")
     np.testing.assert_allclose(ours.num, n_ref, rtol=1e-9)
     np.testing.assert_allclose(ours.den, d_ref, rtol=1e-9, atol=1e-12)

@@ -62,7 +62,9 @@ def compare_with_ngspice(file: str, f_lo: float, f_hi: float, *, input: str = "V
     phase_err = np.abs(np.angle(ours / v_spice, deg=True))
     assert f[0] == pytest.approx(f_lo) and f[-1] == pytest.approx(f_hi, rel=1e-6)
     assert gain_err.max() <= 0.05, f"{file}: gain differs by {gain_err.max():.3g} dB at {f[gain_err.argmax()]:.4g} Hz"
-    assert phase_err.max() <= 0.5, f"{file}: phase differs by {phase_err.max():.3g} deg at {f[phase_err.argmax()]:.4g} Hz"
+    assert phase_err.max() <= 0.5, (
+        f"{file}: phase differs by {phase_err.max():.3g} deg at {f[phase_err.argmax()]:.4g} Hz"
+    )
     return controller
 
 

@@ -70,13 +70,16 @@ def test_update_table_matches_the_direct_resolve(path, update_counter):
     assert update_counter["updated"] == 2 * len(ref)
 
 
-@pytest.mark.parametrize("changes", [
-    {"R5": 1.3e3},                      # a resistor, +30 %
-    {"L1": 0.05},                       # an inductor, halved
-    {"G1": 2.5e-3},                     # a transconductance
-    {"E2": -0.8},                       # a VCVS gain, sign flipped
-    {"R5": 2e3, "L1": 0.2, "RG": 900},  # several at once (rank 5 update)
-])
+@pytest.mark.parametrize(
+    "changes",
+    [
+        {"R5": 1.3e3},  # a resistor, +30 %
+        {"L1": 0.05},  # an inductor, halved
+        {"G1": 2.5e-3},  # a transconductance
+        {"E2": -0.8},  # a VCVS gain, sign flipped
+        {"R5": 2e3, "L1": 0.2, "RG": 900},  # several at once (rank 5 update)
+    ],
+)
 def test_large_changes_match_a_fresh_solve(changes, update_counter):
     """Large, several-part and sign-changing edits (not just ±0.1 %): the updated transfer function
     equals the one solved afresh to 1e-9 in every coefficient (reference: the direct solve)."""
@@ -89,10 +92,13 @@ def test_large_changes_match_a_fresh_solve(changes, update_counter):
     assert update_counter["updated"] == 1
     assert len(got.num) == len(ref.num) and len(got.den) == len(ref.den)
     scale = ref.den[0]
-    np.testing.assert_allclose(np.asarray(got.num) / got.den[0], np.asarray(ref.num) / scale, rtol=1e-9,
-                               atol=1e-9 * np.max(np.abs(np.asarray(ref.num) / scale)))
-    np.testing.assert_allclose(np.asarray(got.den) / got.den[0], np.asarray(ref.den) / scale, rtol=1e-9,
-                               atol=1e-12)
+    np.testing.assert_allclose(
+        np.asarray(got.num) / got.den[0],
+        np.asarray(ref.num) / scale,
+        rtol=1e-9,
+        atol=1e-9 * np.max(np.abs(np.asarray(ref.num) / scale)),
+    )
+    np.testing.assert_allclose(np.asarray(got.den) / got.den[0], np.asarray(ref.den) / scale, rtol=1e-9, atol=1e-12)
 
 
 def test_gbw_and_pot_changes_match_a_fresh_solve(update_counter):

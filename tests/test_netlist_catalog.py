@@ -46,8 +46,10 @@ def test_catalog_topology_read_back(name):
     drives = ["error", "setpoint"] if topo.two_input else ["error"]
     for drive in drives:
         text = netlist_out.netlist_text(topo, parts, drive=drive)
-        ideal_text = "\n".join(line[: -len("LSOPAMP")] + "OPAMP" if line.startswith("X") and line.endswith("LSOPAMP")
-                               else line for line in text.splitlines())
+        ideal_text = "\n".join(
+            line[: -len("LSOPAMP")] + "OPAMP" if line.startswith("X") and line.endswith("LSOPAMP") else line
+            for line in text.splitlines()
+        )
         ours = transfer_function(read_netlist(ideal_text, f"{name}.cir"))
         high_gain = transfer_function(read_netlist(text, f"{name}.cir"))
         if topo.two_input:

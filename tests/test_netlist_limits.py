@@ -150,7 +150,8 @@ def test_500_node_ladder_in_bounded_memory():
     solves ladder500.cir stays within LADDER_MEMORY_MB above its start with numpy and scipy
     imported. Memory, not time (times belong in bench/netlist_large.py)."""
     code = "import numpy, scipy.sparse.linalg, scipy.linalg\n" + _MEASURE.format(
-        root=str(ROOT), path=str(HERE / "netlists_large" / "ladder500.cir"))
+        root=str(ROOT), path=str(HERE / "netlists_large" / "ladder500.cir")
+    )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=300, check=True)
     data = json.loads(out.stdout.strip().splitlines()[-1])
     grown_mb = (data["after_kb"] - data["before_kb"]) / 1024

@@ -17,12 +17,14 @@ from convert.errors import InputError
 def test_first_line_is_title_and_comments_and_continuations():
     """SPICE convention (from memory): line 1 is the title even if it looks like an element;
     '*' lines are comments; '+' continues; ';' and ' $' start inline comments."""
-    text = ("R9 a b 1k\n"
-            "* a comment line\n"
-            "VIN in 0 AC 1 ; inline comment\n"
-            "R1 in\n"
-            "+ out 10k $ another comment\n"
-            "R2 out 0 10k\n")
+    text = (
+        "R9 a b 1k\n"
+        "* a comment line\n"
+        "VIN in 0 AC 1 ; inline comment\n"
+        "R1 in\n"
+        "+ out 10k $ another comment\n"
+        "R2 out 0 10k\n"
+    )
     n = read_netlist(text, "c.cir")
     assert n.title == "R9 a b 1k"
     assert n.element("R9") is None
@@ -31,10 +33,21 @@ def test_first_line_is_title_and_comments_and_continuations():
     assert any("title" in note for note in n.notes)
 
 
-@pytest.mark.parametrize("text, value", [
-    ("1meg", 1e6), ("1MEG", 1e6), ("2.2n", 2.2e-9), ("4.7k", 4.7e3), ("10uF", 10e-6), ("1m", 1e-3),
-    ("1M", 1e-3), ("3.3p", 3.3e-12), ("1e-9", 1e-9), ("47", 47.0),
-])
+@pytest.mark.parametrize(
+    "text, value",
+    [
+        ("1meg", 1e6),
+        ("1MEG", 1e6),
+        ("2.2n", 2.2e-9),
+        ("4.7k", 4.7e3),
+        ("10uF", 10e-6),
+        ("1m", 1e-3),
+        ("1M", 1e-3),
+        ("3.3p", 3.3e-12),
+        ("1e-9", 1e-9),
+        ("47", 47.0),
+    ],
+)
 def test_spice_suffixes(text, value):
     """SPICE rule (from memory of the ngspice manual): suffixes are case-insensitive, meg is mega,
     m and M are milli, letters after the suffix are ignored."""
@@ -58,8 +71,10 @@ def test_4k7_is_an_error_with_line():
 
 def test_params_braces_bare_names_and_arithmetic():
     """ngspice .param convention (from memory): {expression} in values, names case-insensitive."""
-    text = ("t\n.param Rbase=10k k = 2 rtwo={rbase*K}\n.param half=rbase/2\n"
-            "VIN in 0\nR1 in out rtwo\nR2 out 0 {(Rbase + half) * 2 - 1k^1}\nR3 out 0 half\n")
+    text = (
+        "t\n.param Rbase=10k k = 2 rtwo={rbase*K}\n.param half=rbase/2\n"
+        "VIN in 0\nR1 in out rtwo\nR2 out 0 {(Rbase + half) * 2 - 1k^1}\nR3 out 0 half\n"
+    )
     n = read_netlist(text)
     assert n.element("R1").value == pytest.approx(20e3)
     assert n.element("R2").value == pytest.approx(29e3)

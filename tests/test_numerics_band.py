@@ -48,8 +48,10 @@ def test_case_band_width_limit(tmp_path):
     from convert.case import parse_case
     from convert.errors import InputError
 
-    text = ('[source]\nexpression = "2*(1 + 1/(30*s))"\n[target.digital]\nfs = "100 Hz"\n'
-            '[criteria]\nband = ["1e-30 Hz", "1 Hz"]\nmax_gain_error_db = 1\n')
+    text = (
+        '[source]\nexpression = "2*(1 + 1/(30*s))"\n[target.digital]\nfs = "100 Hz"\n'
+        '[criteria]\nband = ["1e-30 Hz", "1 Hz"]\nmax_gain_error_db = 1\n'
+    )
     with pytest.raises(InputError, match="decades") as info:
         parse_case(text, tmp_path / "wide.toml")
     assert "criteria.band" in str(info.value) and "wide.toml:6" in str(info.value)

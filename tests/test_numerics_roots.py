@@ -18,13 +18,21 @@ def _mp_roots(coefficients, dps=30):
     rounded coefficients are distinct, however close)."""
     init = [mpmath.mpc(complex(x)) for x in np.roots(coefficients)]
     with mpmath.workdps(dps):
-        found = mpmath.polyroots([mpmath.mpf(float(c)) for c in coefficients], maxsteps=400, extraprec=200,
-                                 roots_init=init)
+        found = mpmath.polyroots(
+            [mpmath.mpf(float(c)) for c in coefficients], maxsteps=400, extraprec=200, roots_init=init
+        )
     return [complex(r) for r in found]
 
 
-@pytest.mark.parametrize("text, root, mult", [("(s+0.3)^20", -0.3, 20), ("(s+1.1)^7*(s+3)", -1.1, 7),
-                                               ("(s+0.002)^5", -0.002, 5), ("(s^2+0.2*s+0.37)^3", -0.1 + 0.6j, 3)])
+@pytest.mark.parametrize(
+    "text, root, mult",
+    [
+        ("(s+0.3)^20", -0.3, 20),
+        ("(s+1.1)^7*(s+3)", -1.1, 7),
+        ("(s+0.002)^5", -0.002, 5),
+        ("(s^2+0.2*s+0.37)^3", -0.1 + 0.6j, 3),
+    ],
+)
 def test_repeated_root_against_mpmath(text, root, mult):
     """A repeated root whose power has rounded coefficients: the double-precision polynomial has a
     tight cluster of distinct roots, which mpmath.polyroots resolves at 30 digits. Ours: one root of
@@ -86,7 +94,7 @@ def test_json_and_table_state_multiplicity_and_accuracy(run_cli):
 
 
 def test_sixty_fourth_power_is_one_root():
-    """"(s+1)^64": coefficients up to C(64,32) ≈ 1.8e18 are rounded in double; one root of
+    """ "(s+1)^64": coefficients up to C(64,32) ≈ 1.8e18 are rounded in double; one root of
     multiplicity 64 at −1 (the 64 roots of the rounded coefficients average −64/64 = −1 exactly:
     Vieta's formula, common practice)."""
     c = from_expression("(s+1)^64")
@@ -122,8 +130,15 @@ def test_digital_pole_near_one_is_judged_relative_to_the_zero():
     assert c.dc_gain() == pytest.approx(10.0, rel=0.02)
 
 
-@pytest.mark.parametrize("text, fs", [("(s+1)/s", None), ("(s+1)*(s+2)/(s^2*(s+5))", None),
-                                      ("(z-0.5)/(z-1)", 100.0), ("(z-0.5)/((z-1)*(z-0.9))", 100.0)])
+@pytest.mark.parametrize(
+    "text, fs",
+    [
+        ("(s+1)/s", None),
+        ("(s+1)*(s+2)/(s^2*(s+5))", None),
+        ("(z-0.5)/(z-1)", 100.0),
+        ("(z-0.5)/((z-1)*(z-0.9))", 100.0),
+    ],
+)
 def test_true_integrators_still_counted(text, fs):
     """Exact poles at s = 0 / z = 1 remain integrators (common practice)."""
     c = from_expression(text, fs_hz=fs)
@@ -134,7 +149,7 @@ def test_true_integrators_still_counted(text, fs):
 def test_rounding_level_pole_at_one_is_an_integrator():
     """A digital PI computed in floating point: its pole at z = 1 off by one rounding unit is the
     integrator (common practice: a sum of coefficients cancels to the rounding level)."""
-    c = Controller.digital([2.1, -1.9], [1.0, -(1.0 - 2.0 ** -52)], 1e-3)
+    c = Controller.digital([2.1, -1.9], [1.0, -(1.0 - 2.0**-52)], 1e-3)
     assert c.integrator_count() == 1
 
 

@@ -29,8 +29,9 @@ def here(tmp_path, monkeypatch):
 
 
 def _tree(folder: Path) -> dict[str, bytes]:
-    return {str(p.relative_to(folder)): (p.read_bytes() if p.is_file() else b"<dir>")
-            for p in sorted(folder.rglob("*"))}
+    return {
+        str(p.relative_to(folder)): (p.read_bytes() if p.is_file() else b"<dir>") for p in sorted(folder.rglob("*"))
+    }
 
 
 def _error(result, *fragments):
@@ -124,8 +125,7 @@ def test_a_link_inside_an_earlier_report_is_refused_unless_listed(here):
 # ----------------------------------------------------------------------------- circuit outputs
 def test_netlist_to_dev_null_with_force_is_refused(run_cli, here):
     """`circuit --netlist /dev/null --force` (as root) replaced the device node with a file."""
-    _error(run_cli("circuit", PI, "--netlist", "/dev/null", "--force", "--draws", "0"),
-           "--netlist", "character device")
+    _error(run_cli("circuit", PI, "--netlist", "/dev/null", "--force", "--draws", "0"), "--netlist", "character device")
     assert stat.S_ISCHR(os.stat("/dev/null").st_mode)
 
 
@@ -155,8 +155,20 @@ def test_three_outputs_are_written_all_or_none(run_cli, here, monkeypatch):
         raise OSError(28, "No space left on device", path)
 
     monkeypatch.setattr(schematic, "design_schematic", full_disk)
-    argv = ["circuit", PI, "--netlist", "pi.cir", "--bom", "pi.csv", "--buy-list", "buy.json", "--schematic", "pi.svg",
-            "--draws", "0"]
+    argv = [
+        "circuit",
+        PI,
+        "--netlist",
+        "pi.cir",
+        "--bom",
+        "pi.csv",
+        "--buy-list",
+        "buy.json",
+        "--schematic",
+        "pi.svg",
+        "--draws",
+        "0",
+    ]
     _error(run_cli(*argv), "--schematic", "No space left on device", "nothing was written")
     assert sorted(os.listdir(here)) == []
     names = ("pi.cir", "pi.csv", "buy.json", "pi.svg")
@@ -180,6 +192,9 @@ def test_a_failing_rename_puts_the_earlier_files_back(run_cli, here, monkeypatch
         return real_replace(src, dst)
 
     monkeypatch.setattr(os, "replace", second_fails)
-    _error(run_cli("circuit", PI, "--netlist", "pi.cir", "--bom", "pi.csv", "--force", "--draws", "0"),
-           "--bom", "nothing was written")
+    _error(
+        run_cli("circuit", PI, "--netlist", "pi.cir", "--bom", "pi.csv", "--force", "--draws", "0"),
+        "--bom",
+        "nothing was written",
+    )
     assert {p.name: p.read_text() for p in here.iterdir()} == {n: "earlier " + n for n in ("pi.cir", "pi.csv")}

@@ -68,9 +68,12 @@ def test_analog_right_half_plane_pole_fails_even_when_errors_pass():
 
     b_poles = control.tf([-1, -3, -2], np.polymul([0.005, 1], [1, -1])).poles()
     assert max(b_poles.real) == pytest.approx(1.0)
-    res = compare_pair(read_spec("(s+2)/(0.005s+1)", "A"),
-                       read_spec("-(s+2)*(s+1)/((0.005s+1)*(s-1))", "B"), band_hz=(1e-3, 0.1),
-                       limits={"max_gain_error_db": 40, "max_phase_error_deg": 180}).results
+    res = compare_pair(
+        read_spec("(s+2)/(0.005s+1)", "A"),
+        read_spec("-(s+2)*(s+1)/((0.005s+1)*(s-1))", "B"),
+        band_hz=(1e-3, 0.1),
+        limits={"max_gain_error_db": 40, "max_phase_error_deg": 180},
+    ).results
     status = {j.criterion: j for j in res.verdict.judgements}
     assert status["max_gain_error_db"].status == "pass" and status["max_phase_error_deg"].status == "pass"
     assert status["same_sign"].status == "pass"
@@ -128,6 +131,7 @@ def test_diverging_loop_simulation_shows_no_numpy_warning(run_cli):
     assert not np.all(np.isfinite(bad.y))
     good = simulate_loop(Controller.analog([200, 400], [1, 200]), plant, duration_s=60.0)
     assert response_deviation(good, bad) == math.inf
-    out = run_cli("compare", "(s+2)/(0.005s+1)", "digital: b=200,-192 a=1,3 fs=50Hz", "--band", "1m", "0.1",
-                  "--plant", "1/(s+1)")
+    out = run_cli(
+        "compare", "(s+2)/(0.005s+1)", "digital: b=200,-192 a=1,3 fs=50Hz", "--band", "1m", "0.1", "--plant", "1/(s+1)"
+    )
     assert out.code == 1 and "RuntimeWarning" not in out.out + out.err and "overflow" not in out.out + out.err

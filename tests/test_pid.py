@@ -73,14 +73,21 @@ def test_series_refused_when_ti_below_4td(kc, ti, td_fraction):
     """Ti < 4·Td gives complex zeros, so no real series set exists (Åström & Hägglund, PID
     Controllers, 2nd ed., 1995, section 3.4, from memory)."""
     settings_ = PidSettings.from_ideal(kc, ti, td_fraction * ti)
-    with pytest.raises(UnrealizableError, match=r"the series form cannot represent this set \(Ti < 4·Td gives complex zeros\)"):
+    with pytest.raises(
+        UnrealizableError, match=r"the series form cannot represent this set \(Ti < 4·Td gives complex zeros\)"
+    ):
         settings_.series()
     assert "unavailable" in settings_.table()["series"]
 
 
 # ------------------------------------------------------------------ against python-control
-@given(gain, time, st.one_of(st.just(0.0), st.floats(min_value=1e-3, max_value=0.2)), ratio_n,
-       st.sampled_from(["reverse", "direct"]))
+@given(
+    gain,
+    time,
+    st.one_of(st.just(0.0), st.floats(min_value=1e-3, max_value=0.2)),
+    ratio_n,
+    st.sampled_from(["reverse", "direct"]),
+)
 @settings(max_examples=EXAMPLES, deadline=None)
 def test_forms_equal_python_control_built_transfer_functions(kc, ti, td_fraction, n, action):
     """The ideal and series forms, built term by term with python-control's tf arithmetic from
@@ -115,8 +122,13 @@ def test_forms_equal_python_control_built_transfer_functions(kc, ti, td_fraction
 
 
 # ------------------------------------------------------------------ round trips
-@given(gain, st.one_of(st.just(0.0), gain), st.one_of(st.just(0.0), gain),
-       st.one_of(st.just(0.0), st.floats(min_value=0.001, max_value=10.0)), st.sampled_from(["reverse", "direct"]))
+@given(
+    gain,
+    st.one_of(st.just(0.0), gain),
+    st.one_of(st.just(0.0), gain),
+    st.one_of(st.just(0.0), st.floats(min_value=0.001, max_value=10.0)),
+    st.sampled_from(["reverse", "direct"]),
+)
 @settings(max_examples=EXAMPLES, deadline=None)
 def test_round_trips_between_forms(kp, ki, kd, tf, action):
     """parallel -> ideal -> parallel, parallel -> series -> parallel (where it exists) and
@@ -176,20 +188,20 @@ def test_setpoint_weights_against_python_control():
 @pytest.mark.parametrize(
     "words, field, expected",
     [
-        (["pb=50%"], "kp", 2.0),                      # Kc = 100/PB
+        (["pb=50%"], "kp", 2.0),  # Kc = 100/PB
         (["pb=200"], "kp", 0.5),
-        (["kc=2", "ti=0.5min"], "ki", 2.0 / 30.0),    # minutes per repeat
+        (["kc=2", "ti=0.5min"], "ki", 2.0 / 30.0),  # minutes per repeat
         (["kc=2", "reset=2/min"], "ki", 2.0 / 30.0),  # repeats per minute: Ti = 1/reset
-        (["kc=2", "reset=2"], "ki", 2.0 / 30.0),      # bare reset rate is per minute
+        (["kc=2", "reset=2"], "ki", 2.0 / 30.0),  # bare reset rate is per minute
         (["kc=2", "reset=2 repeats/min"], "ki", 2.0 / 30.0),
         (["kc=2", "reset=0.05/s"], "ki", 0.1),
         (["kc=2", "td=0.1min"], "kd", 12.0),
-        (["kc=2", "td=5"], "kd", 10.0),               # bare times are seconds
+        (["kc=2", "td=5"], "kd", 10.0),  # bare times are seconds
         (["kp=1", "ki=6/min"], "ki", 0.1),
         (["kp=1", "ki=0.1"], "ki", 0.1),
-        (["kp=1", "kd=2s", "n=10"], "tf", 0.2),      # parallel n: tf = kd/(kp·n)
+        (["kp=1", "kd=2s", "n=10"], "tf", 0.2),  # parallel n: tf = kd/(kp·n)
         (["kc=2", "td=5s", "tf=250ms"], "tf", 0.25),
-        (["kc=2", "td=5s", "n=10"], "tf", 0.5),       # ideal: tf = Td/N
+        (["kc=2", "td=5s", "n=10"], "tf", 0.5),  # ideal: tf = Td/N
     ],
 )
 def test_plant_units(words, field, expected):
@@ -264,8 +276,15 @@ def test_mapping_takes_numbers_and_text():
 # ------------------------------------------------------------------ from a controller
 @pytest.mark.parametrize(
     "text, kind",
-    [("3", "P"), ("2*(1 + 1/(30*s))", "PI"), ("(s+1)/(0.1*s+1)", "PD"), ("s + 2", "PD"),
-     ("(s+1)^2/s", "PID"), ("(22*s^2 + 4.06667*s + 0.133333) / (s^2 + 2*s)", "PID"), ("-(s+1)^2/s", "PID")],
+    [
+        ("3", "P"),
+        ("2*(1 + 1/(30*s))", "PI"),
+        ("(s+1)/(0.1*s+1)", "PD"),
+        ("s + 2", "PD"),
+        ("(s+1)^2/s", "PID"),
+        ("(22*s^2 + 4.06667*s + 0.133333) / (s^2 + 2*s)", "PID"),
+        ("-(s+1)^2/s", "PID"),
+    ],
 )
 def test_pid_read_back_from_expressions(text, kind):
     """P, PI, PD, PID with and without filter are recognised; the recovered set reproduces the
@@ -278,8 +297,14 @@ def test_pid_read_back_from_expressions(text, kind):
 
 @pytest.mark.parametrize(
     "text, fragment",
-    [("1/s^2", "2 integrators"), ("(s+1)/(10*s+1)", "negative"), ("(s+1)/(s-1)", "stable"),
-     ("(s+1)/(s^2+3s+1)", "poles"), ("s^2+1", "degree"), ("1/(s*(s+1))", "mixed signs")],
+    [
+        ("1/s^2", "2 integrators"),
+        ("(s+1)/(10*s+1)", "negative"),
+        ("(s+1)/(s-1)", "stable"),
+        ("(s+1)/(s^2+3s+1)", "poles"),
+        ("s^2+1", "degree"),
+        ("1/(s*(s+1))", "mixed signs"),
+    ],
 )
 def test_non_pid_controllers_explained(text, fragment):
     """Controllers outside the PID family give None and a reason."""

@@ -16,8 +16,15 @@ GCC = shutil.which("gcc")
 
 
 def _block(**kw):
-    s = PidSettings(kp=kw.pop("kp", 1.0), ki=kw.pop("ki", 1.0), kd=kw.pop("kd", 0.0), tf=kw.pop("tf", 0.0),
-                    b=kw.pop("b", 1.0), c=kw.pop("c", 1.0), action=kw.pop("action", "reverse"))
+    s = PidSettings(
+        kp=kw.pop("kp", 1.0),
+        ki=kw.pop("ki", 1.0),
+        kd=kw.pop("kd", 0.0),
+        tf=kw.pop("tf", 0.0),
+        b=kw.pop("b", 1.0),
+        c=kw.pop("c", 1.0),
+        action=kw.pop("action", "reverse"),
+    )
     return PidBlock.from_settings(s, kw.pop("fs", 10.0), **kw)
 
 
@@ -107,17 +114,36 @@ def test_bumpless_transfer(form):
 
 
 @pytest.mark.skipif(GCC is None, reason="gcc not installed (.ci/run installs it)")
-@pytest.mark.parametrize("form,aw,fmt", [("positional", "clamp", "float64"), ("positional", "track", "float32"),
-                                         ("velocity", "clamp", "float32"), ("positional", "none", "float64")])
+@pytest.mark.parametrize(
+    "form,aw,fmt",
+    [
+        ("positional", "clamp", "float64"),
+        ("positional", "track", "float32"),
+        ("velocity", "clamp", "float32"),
+        ("positional", "none", "float64"),
+    ],
+)
 def test_pid_c_matches_model(tmp_path, form, aw, fmt):
     """The generated PID C (gcc -std=c99 -Wall -Wextra -Werror -pedantic) equals the model bit for
     bit on a run with saturation, a manual-to-auto switch and noise."""
-    blk = _block(kp=2.0, ki=0.7, kd=0.4, tf=0.05, b=0.8, c=0.0, fs=100.0, form=form, anti_windup=aw,
-                 limits=(-3.0, 4.0), word_format=fmt)
+    blk = _block(
+        kp=2.0,
+        ki=0.7,
+        kd=0.4,
+        tf=0.05,
+        b=0.8,
+        c=0.0,
+        fs=100.0,
+        form=form,
+        anti_windup=aw,
+        limits=(-3.0, 4.0),
+        word_format=fmt,
+    )
     files = emit_pid_c(blk, "pidx", source="test")
     for n, text in files.items():
         (tmp_path / n).write_text(text)
-    (tmp_path / "main.c").write_text(r"""
+    (tmp_path / "main.c").write_text(
+        r"""
 #include <stdio.h>
 #include "pidx.h"
 int main(void) { pidx_state st; char c; double a, b, u;
@@ -126,10 +152,27 @@ int main(void) { pidx_state st; char c; double a, b, u;
     if (c == 'o') { if (scanf(" %la", &u) != 1) return 1; pidx_set_output(&st, (T)u, (T)a, (T)b); continue; }
     printf("%a\n", (double)pidx_step(&st, (T)a, (T)b)); }
   return 0; }
-""".replace("(T)", "(float)" if fmt == "float32" else "(double)"))
+""".replace("(T)", "(float)" if fmt == "float32" else "(double)")
+    )
     exe = tmp_path / "run"
-    subprocess.run([GCC, "-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", "-O2", "-o", str(exe),
-                    str(tmp_path / "main.c"), str(tmp_path / "pidx.c")], check=True, capture_output=True, text=True)
+    subprocess.run(
+        [
+            GCC,
+            "-std=c99",
+            "-Wall",
+            "-Wextra",
+            "-Werror",
+            "-pedantic",
+            "-O2",
+            "-o",
+            str(exe),
+            str(tmp_path / "main.c"),
+            str(tmp_path / "pidx.c"),
+        ],
+        check=True,
+        capture_output=True,
+        text=True,
+    )
     cast = np.float32 if fmt == "float32" else float
     rng = np.random.default_rng(9)
     seq = [("x", 5.0, 0.0)] * 200 + [("x", -2.0, 1.0)] * 100

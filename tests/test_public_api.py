@@ -25,8 +25,7 @@ def test_docstring_examples_run(module):
 def test_python_page_runs(monkeypatch):
     """docs/python.md: the three jobs from Python, each example executed."""
     monkeypatch.chdir(ROOT)
-    result = doctest.testfile(str(ROOT / "docs" / "python.md"), module_relative=False,
-                              optionflags=doctest.ELLIPSIS)
+    result = doctest.testfile(str(ROOT / "docs" / "python.md"), module_relative=False, optionflags=doctest.ELLIPSIS)
     assert result.attempted >= 8 and result.failed == 0, result
 
 
@@ -56,10 +55,14 @@ def test_case_from_dict_gets_the_case_file_checks():
     import convert
 
     with pytest.raises(convert.InputError, match=r"^pump-7: criteria.maximum_gain_error: unknown key"):
-        convert.case_from_dict({"source": {"expression": "2/s"},
-                                "target": {"digital": {"fs": "10 Hz", "methods": ["tustin"]}},
-                                "criteria": {"band": ["1 mHz", "0.1 Hz"], "maximum_gain_error": 1}},
-                               name="pump-7")
+        convert.case_from_dict(
+            {
+                "source": {"expression": "2/s"},
+                "target": {"digital": {"fs": "10 Hz", "methods": ["tustin"]}},
+                "criteria": {"band": ["1 mHz", "0.1 Hz"], "maximum_gain_error": 1},
+            },
+            name="pump-7",
+        )
     with pytest.raises(convert.InputError, match="expected a dict"):
         convert.case_from_dict("source = 1")
 
@@ -80,10 +83,15 @@ max_gain_error_db = 0.5
 """
     (tmp_path / "c.toml").write_text(text)
     from_file = convert.load_case(tmp_path / "c.toml")
-    from_dict = convert.case_from_dict({"source": {"expression": "2*(1 + 1/(30*s))"},
-                                        "target": {"digital": {"fs": "10 Hz", "methods": ["tustin"]}},
-                                        "criteria": {"band": ["1 mHz", "0.1 Hz"], "max_gain_error_db": 0.5}},
-                                       name="c", base_dir=tmp_path)
+    from_dict = convert.case_from_dict(
+        {
+            "source": {"expression": "2*(1 + 1/(30*s))"},
+            "target": {"digital": {"fs": "10 Hz", "methods": ["tustin"]}},
+            "criteria": {"band": ["1 mHz", "0.1 Hz"], "max_gain_error_db": 0.5},
+        },
+        name="c",
+        base_dir=tmp_path,
+    )
     from dataclasses import replace
 
     assert replace(from_file.source, where="") == replace(from_dict.source, where="")  # where: file:line vs name

@@ -44,7 +44,7 @@ max_phase_margin_change_deg = 2
 
 
 def _at_rate(text: str, fs: float):
-    text = re.sub(r'(?m)^fs = .*$', f'fs = "{fs!r} Hz"', text)
+    text = re.sub(r"(?m)^fs = .*$", f'fs = "{fs!r} Hz"', text)
     return evaluate_case(parse_case(text, "case.toml"))
 
 

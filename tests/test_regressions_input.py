@@ -44,7 +44,7 @@ def test_bare_one_in_a_percentage_criterion_is_refused(key):
     assert "100 %" in msg and "1 %" in msg
 
 
-@pytest.mark.parametrize("written, expected", [("\"5 %\"", 0.05), ("0.05", 0.05), ("\"0.5%\"", 0.005)])
+@pytest.mark.parametrize("written, expected", [('"5 %"', 0.05), ("0.05", 0.05), ('"0.5%"', 0.005)])
 def test_percentage_criterion_takes_percent_or_a_fraction(written, expected):
     case = parse_case(CASE + f"max_step_deviation = {written}\n", "job.toml")
     assert case.criteria.max_step_deviation == pytest.approx(expected, rel=1e-15)
@@ -61,9 +61,14 @@ def test_bare_tolerance_on_the_command_line_names_both_readings(run_cli):
     assert res.code == 2 and "--tolerance: R:" in res.err and "500 %" in res.err and "5 %" in res.err
 
 
-@pytest.mark.parametrize("words, readings", [(("kc=2", "ti=10s", "b=50"), ("5000 %", "50 %")),
-                                             (("kc=2", "ti=10s", "c=2"), ("200 %", "2 %")),
-                                             (("ti=10s", "pb=0.5"), ("0.5 %", "50 %"))])
+@pytest.mark.parametrize(
+    "words, readings",
+    [
+        (("kc=2", "ti=10s", "b=50"), ("5000 %", "50 %")),
+        (("kc=2", "ti=10s", "c=2"), ("200 %", "2 %")),
+        (("ti=10s", "pb=0.5"), ("0.5 %", "50 %")),
+    ],
+)
 def test_pid_percentage_keys_refuse_the_hidden_factor_of_100(run_cli, words, readings):
     """``b=50`` was a setpoint weight of 50 (meant 50 %); ``pb=0.5`` a band of 0.5 % (Kc = 200) where
     a fraction 0.5 (Kc = 2) may be meant: both refused with both readings."""
@@ -71,19 +76,30 @@ def test_pid_percentage_keys_refuse_the_hidden_factor_of_100(run_cli, words, rea
     assert res.code == 2 and all(r in res.err for r in readings), res.err
 
 
-@pytest.mark.parametrize("words", [("kc=2", "ti=10s", "b=0.5"), ("kc=2", "ti=10s", "b=50%"), ("kc=2", "b=1"),
-                                   ("ti=10s", "pb=50"), ("ti=10s", "pb=0.5%")])
+@pytest.mark.parametrize(
+    "words",
+    [
+        ("kc=2", "ti=10s", "b=0.5"),
+        ("kc=2", "ti=10s", "b=50%"),
+        ("kc=2", "b=1"),
+        ("ti=10s", "pb=50"),
+        ("ti=10s", "pb=0.5%"),
+    ],
+)
 def test_pid_percentage_keys_written_plainly_stay_valid(run_cli, words):
     assert run_cli("show", "--pid", *words).code == 0
 
 
 # ----------------------------------------------------------------------------- item 3: expressions
-@pytest.mark.parametrize("text, column, readings", [
-    ("1/30s", 5, ("(1/30)*s", "1/(30*s)")),
-    ("2(1+1/30s)", 9, ("(1/30)*s", "1/(30*s)")),
-    ("0.2/(40s+1)(8s+1)", 12, ("(0.2/(40s+1))*(8s+1)", "0.2/((40s+1)*(8s+1))")),
-    ("2/s(s+1)", 4, ("(2/s)*(s+1)", "2/(s*(s+1))")),
-])
+@pytest.mark.parametrize(
+    "text, column, readings",
+    [
+        ("1/30s", 5, ("(1/30)*s", "1/(30*s)")),
+        ("2(1+1/30s)", 9, ("(1/30)*s", "1/(30*s)")),
+        ("0.2/(40s+1)(8s+1)", 12, ("(0.2/(40s+1))*(8s+1)", "0.2/((40s+1)*(8s+1))")),
+        ("2/s(s+1)", 4, ("(2/s)*(s+1)", "2/(s*(s+1))")),
+    ],
+)
 def test_product_after_a_division_is_refused_with_both_readings(text, column, readings):
     """Before: ``2(1+1/30s)`` was read left to right as 2(1 + s/30), a PD, where a PI was meant.
     Now refused naming the column and writing each reading the way it has to be typed; each
@@ -99,8 +115,19 @@ def test_product_after_a_division_is_refused_with_both_readings(text, column, re
     assert (left.num, left.den) != (right.num, right.den)
 
 
-@pytest.mark.parametrize("text", ["2*(1 + 1/(30*s))", "1/(30s)", "(1/30)s", "0.2/((40s+1)(8s+1))", "0.02s/(0.5s+1)",
-                                  "1/(s+1)*2s", "10s/(0.5s+1)", "2 + 0.1/s + 10s/(0.5s+1)"])
+@pytest.mark.parametrize(
+    "text",
+    [
+        "2*(1 + 1/(30*s))",
+        "1/(30s)",
+        "(1/30)s",
+        "0.2/((40s+1)(8s+1))",
+        "0.02s/(0.5s+1)",
+        "1/(s+1)*2s",
+        "10s/(0.5s+1)",
+        "2 + 0.1/s + 10s/(0.5s+1)",
+    ],
+)
 def test_unambiguous_products_still_parse(text):
     from convert.expr import parse_rational
 
@@ -139,15 +166,20 @@ def test_bundled_examples_use_no_refused_form():
 def test_report_prints_each_parsed_transfer_function_beside_its_canonical_form(run_cli, tmp_path):
     """The report (HTML, Markdown, terminal) shows the plant and the source as given and as read."""
     case = tmp_path / "job.toml"
-    case.write_text(CASE.replace('expression = "2*(1 + 1/(30*s))"', 'expression = "2*(1 + 1/(30s))"')
-                    + 'max_step_deviation = "5 %"\n\n[plant]\nmodel = "0.2/((40s+1)(8s+1))"\ndead_time = "2 s"\n',
-                    encoding="utf-8")
+    case.write_text(
+        CASE.replace('expression = "2*(1 + 1/(30*s))"', 'expression = "2*(1 + 1/(30s))"')
+        + 'max_step_deviation = "5 %"\n\n[plant]\nmodel = "0.2/((40s+1)(8s+1))"\ndead_time = "2 s"\n',
+        encoding="utf-8",
+    )
     res = run_cli("report", str(case), "--out", str(tmp_path / "rep"))
     assert res.code in (0, 1), res.err
     canonical_plant = "(0.000625) / (s^2 + 0.15*s + 0.003125)"
     canonical_source = "(2*s + 0.0666667) / (s)"
-    for text in (res.out, _markdown_as_shown((tmp_path / "rep" / "report.md").read_text(encoding="utf-8")),
-                 (tmp_path / "rep" / "report.html").read_text(encoding="utf-8")):
+    for text in (
+        res.out,
+        _markdown_as_shown((tmp_path / "rep" / "report.md").read_text(encoding="utf-8")),
+        (tmp_path / "rep" / "report.html").read_text(encoding="utf-8"),
+    ):
         flat = " ".join(text.split())
         assert "Transfer functions as read" in flat
         assert "0.2/((40s+1)(8s+1))" in flat and canonical_plant in flat
@@ -221,9 +253,14 @@ def test_capital_m_in_a_netlist_is_a_warning_before_the_results(run_cli, tmp_pat
     assert "read as milli" not in res.out.split("Notes", 1)[-1]
 
 
-@pytest.mark.parametrize("argv", [["card", str(NETLISTS / "pi_card.cir")],
-                                  ["digital", "(s+2)/(s+20)", "--fs", "1kHz", "--method", "all", "--json"],
-                                  ["show", "2*(1+1/(30*s))", "--json"]])
+@pytest.mark.parametrize(
+    "argv",
+    [
+        ["card", str(NETLISTS / "pi_card.cir")],
+        ["digital", "(s+2)/(s+20)", "--fs", "1kHz", "--method", "all", "--json"],
+        ["show", "2*(1+1/(30*s))", "--json"],
+    ],
+)
 def test_closed_pipe_exits_0_quietly(argv):
     """``loopshift card pi_card.cir | head -1`` exited 1 (rich's broken-pipe exit) with nothing said.
     The reader's end is closed before the command writes, so every write meets a closed pipe."""
@@ -236,8 +273,9 @@ def test_closed_pipe_exits_0_quietly(argv):
     os.close(read)
     try:
         env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parent.parent)}
-        done = subprocess.run([sys.executable, "-m", "convert", *argv], stdout=write, stderr=subprocess.PIPE,
-                              env=env, timeout=120)
+        done = subprocess.run(
+            [sys.executable, "-m", "convert", *argv], stdout=write, stderr=subprocess.PIPE, env=env, timeout=120
+        )
     finally:
         os.close(write)
     assert done.returncode == 0 and done.stderr == b""
@@ -248,9 +286,17 @@ def test_fit_columns_never_breaks_a_word():
     from convert.cli.common import fit_columns
 
     header = ["form", "criterion", "measured", "limit", "result", "against the limit"]
-    rows = [["circuit pid-single-amp", "disturbance-response deviation", "0.686 % of peak", "10.0 % of peak", "pass",
-             "7% of the limit used"], ["circuit pid-single-amp", "max gain error", "0.483 dB", "1.00 dB", "pass",
-                                       "48% of the limit used"]]
+    rows = [
+        [
+            "circuit pid-single-amp",
+            "disturbance-response deviation",
+            "0.686 % of peak",
+            "10.0 % of peak",
+            "pass",
+            "7% of the limit used",
+        ],
+        ["circuit pid-single-amp", "max gain error", "0.483 dB", "1.00 dB", "pass", "48% of the limit used"],
+    ]
     for width in (60, 80, 120):
         widths, head, cells = fit_columns(header, rows, width)
         assert sum(widths) + 2 * (len(widths) - 1) <= width
@@ -273,8 +319,11 @@ def test_report_terminal_tables_keep_words_whole_and_show_the_new_forms(tmp_path
     from convert.report.tables import all_tables, parsed_table
 
     case = tmp_path / "job.toml"
-    case.write_text(CASE + 'max_step_deviation = "5 %"\nmax_disturbance_deviation = "5 %"\n\n[plant]\n'
-                    'model = "0.2/((40s+1)(8s+1))"\ndead_time = "2 s"\n', encoding="utf-8")
+    case.write_text(
+        CASE + 'max_step_deviation = "5 %"\nmax_disturbance_deviation = "5 %"\n\n[plant]\n'
+        'model = "0.2/((40s+1)(8s+1))"\ndead_time = "2 s"\n',
+        encoding="utf-8",
+    )
     buffer = io.StringIO()
     console = Console(file=buffer, width=80, color_system=None, force_terminal=False, highlight=False)
     assert main(["report", str(case), "--out", str(tmp_path / "rep")], console=console) in (0, 1)
@@ -282,9 +331,13 @@ def test_report_terminal_tables_keep_words_whole_and_show_the_new_forms(tmp_path
     assert max(len(line) for line in out.splitlines()) <= 80
     results = evaluate_case(load_case(case))
     tables = [parsed_table(results), *all_tables(results)]
-    pieces = {p for title, header, rows in tables for text in [title, *header, *(c for r in rows for c in r)]
-              for p in re.findall(r"[^\s-]+-?", str(text))}
-    block = out[out.index("Transfer functions as read"):out.index("New forms")]
+    pieces = {
+        p
+        for title, header, rows in tables
+        for text in [title, *header, *(c for r in rows for c in r)]
+        for p in re.findall(r"[^\s-]+-?", str(text))
+    }
+    block = out[out.index("Transfer functions as read") : out.index("New forms")]
     broken = {p for p in re.findall(r"[^\s-]+-?", block) if p not in pieces and p.strip("─") != ""}
     assert not broken, broken
     assert "New forms" in out and "b = [" in out and "a = [1, " in out
@@ -311,8 +364,15 @@ def test_printed_pid_exact_input_reads_back_an_integrator(run_cli):
     (s^2 + 20s − 2.02): a right-half-plane pole at 16 mHz instead of the integrator."""
     import json
 
-    res = run_cli("analog", "(21.8022 - 43.5644 z^-1 + 21.7622 z^-2)/(1 - 1.9802 z^-1 + 0.980198 z^-2)",
-                  "--fs", "1kHz", "--method", "tustin", "--json")
+    res = run_cli(
+        "analog",
+        "(21.8022 - 43.5644 z^-1 + 21.7622 z^-2)/(1 - 1.9802 z^-1 + 0.980198 z^-2)",
+        "--fs",
+        "1kHz",
+        "--method",
+        "tustin",
+        "--json",
+    )
     data = json.loads(res.out)[0]
     assert data["den"][-1] == 0.0 and all(p["re"] <= 0 for p in data["poles_s"])
     assert any("read as an integrator" in n and "right-half-plane" in n for n in data["notes"])
@@ -327,17 +387,30 @@ def test_twelve_digit_printout_keeps_the_integral_gain(run_cli):
     the numerator's constant term at 20·0.4 = 8)."""
     import json
 
-    res = run_cli("analog", "(21.802180198 - 43.5643524752 z^-1 + 21.762180198 z^-2)"
-                            "/(1 - 1.9801980198 z^-1 + 0.980198019802 z^-2)", "--fs", "1kHz", "--method", "tustin",
-                  "--json")
+    res = run_cli(
+        "analog",
+        "(21.802180198 - 43.5643524752 z^-1 + 21.762180198 z^-2)/(1 - 1.9801980198 z^-1 + 0.980198019802 z^-2)",
+        "--fs",
+        "1kHz",
+        "--method",
+        "tustin",
+        "--json",
+    )
     data = json.loads(res.out)[0]
     assert data["den"][-1] == 0.0 and data["num"][-1] / data["den"][-2] == pytest.approx(0.4, rel=1e-5)
     assert len(data["notes"]) == 1 and "read as an integrator" in data["notes"][0]
 
 
 @pytest.mark.parametrize("digits", [5, 6, 7, 8])
-@pytest.mark.parametrize("kc, ti, td, n, fs", [(2.0, 5.0, 0.5, 10.0, 1000.0), (0.8, 120.0, 10.0, 8.0, 10.0),
-                                              (15.0, 0.02, 0.002, 5.0, 20000.0), (1.0, 30.0, 0.0, None, 100.0)])
+@pytest.mark.parametrize(
+    "kc, ti, td, n, fs",
+    [
+        (2.0, 5.0, 0.5, 10.0, 1000.0),
+        (0.8, 120.0, 10.0, 8.0, 10.0),
+        (15.0, 0.02, 0.002, 5.0, 20000.0),
+        (1.0, 30.0, 0.0, None, 100.0),
+    ],
+)
 def test_printed_coefficients_keep_the_integrator(kc, ti, td, n, fs, digits):
     """PIDs of our own discretized by scipy.signal.cont2discrete (bilinear: an outside reference),
     printed to 5–8 significant digits as a tool prints them. The inverse always finds the
@@ -420,8 +493,10 @@ def test_case_file_firmware_with_printed_coefficients_has_an_integrating_source(
     integrator and the report's notes say so; the digits are taken as written ("0.9801980")."""
     from convert.case import load_case, source_controller
 
-    text = ('[source.digital]\nb = [21.8022, -43.5644, 21.7622]\na = ["1", "-1.9802", "0.980198"]\nfs = "1 kHz"\n\n'
-            '[target.digital]\nfs = "2 kHz"\n\n[criteria]\nband = ["10 mHz", "10 Hz"]\nmax_gain_error_db = 1\n')
+    text = (
+        '[source.digital]\nb = [21.8022, -43.5644, 21.7622]\na = ["1", "-1.9802", "0.980198"]\nfs = "1 kHz"\n\n'
+        '[target.digital]\nfs = "2 kHz"\n\n[criteria]\nband = ["10 mHz", "10 Hz"]\nmax_gain_error_db = 1\n'
+    )
     (tmp_path / "fw.toml").write_text(text, encoding="utf-8")
     info = source_controller(load_case(tmp_path / "fw.toml"))
     assert info.controller.integrator_count() == 1
@@ -457,22 +532,27 @@ def test_case_with_a_two_input_netlist_names_the_inputs_in_case_keys(tmp_path):
     from convert.case import load_case, source_controller
 
     shutil.copy(NETLISTS / "sp_pv_card.cir", tmp_path / "card.cir")
-    (tmp_path / "two.toml").write_text(CASE.replace('expression = "2*(1 + 1/(30*s))"', 'netlist = "card.cir"'),
-                                       encoding="utf-8")
+    (tmp_path / "two.toml").write_text(
+        CASE.replace('expression = "2*(1 + 1/(30*s))"', 'netlist = "card.cir"'), encoding="utf-8"
+    )
     with pytest.raises(InputError) as info:
         source_controller(load_case(tmp_path / "two.toml"))
     msg = str(info.value)
     assert msg.startswith("two.toml:2: source.netlist.input:") and 'setpoint = "VSP", measurement = "VPV"' in msg
 
 
-@pytest.mark.parametrize("argv", [
-    ["show", "2*(1 + 1/(30*s) + 5*s/(0.5*s+1))"],
-    ["show", "--pid", "pb=50%", "reset=2/min", "td=0.1min", "form=series"],
-    ["card", str(NETLISTS / "sp_pv_card.cir"), "--setpoint", "VSP", "--measurement", "VPV"],
-    ["digital", "2*(1 + 1/(0.1*s) + 0.01*s)", "--fs", "1kHz", "--derivative-filter", "10", "--method", "all"],
-    ["circuit", "2*(1+1/(3s) + 0.5s/(0.05s+1))", "--draws", "200"],
-    ["analog", "(0.2 - 0.18 z^-1)/(1 - z^-1)", "--fs", "100Hz", "--method", "tustin"],
-], ids=lambda a: a[0])
+@pytest.mark.parametrize(
+    "argv",
+    [
+        ["show", "2*(1 + 1/(30*s) + 5*s/(0.5*s+1))"],
+        ["show", "--pid", "pb=50%", "reset=2/min", "td=0.1min", "form=series"],
+        ["card", str(NETLISTS / "sp_pv_card.cir"), "--setpoint", "VSP", "--measurement", "VPV"],
+        ["digital", "2*(1 + 1/(0.1*s) + 0.01*s)", "--fs", "1kHz", "--derivative-filter", "10", "--method", "all"],
+        ["circuit", "2*(1+1/(3s) + 0.5s/(0.05s+1))", "--draws", "200"],
+        ["analog", "(0.2 - 0.18 z^-1)/(1 - z^-1)", "--fs", "100Hz", "--method", "tustin"],
+    ],
+    ids=lambda a: a[0],
+)
 def test_no_command_breaks_a_word_at_80_columns(argv):
     """Every word a command prints in an 80-column terminal is a whole word of the same output
     printed 400 columns wide (a break is allowed only after a hyphen)."""
@@ -509,8 +589,13 @@ def test_closed_pipe_keeps_the_verdict_exit_code_of_report(tmp_path):
     os.close(read)
     try:
         env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parent.parent)}
-        done = subprocess.run([sys.executable, "-m", "convert", "report", str(case), "--out", str(tmp_path / "r")],
-                              stdout=write, stderr=subprocess.PIPE, env=env, timeout=300)
+        done = subprocess.run(
+            [sys.executable, "-m", "convert", "report", str(case), "--out", str(tmp_path / "r")],
+            stdout=write,
+            stderr=subprocess.PIPE,
+            env=env,
+            timeout=300,
+        )
     finally:
         os.close(write)
     assert done.returncode == 1 and done.stderr == b""

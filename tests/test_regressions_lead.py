@@ -75,8 +75,18 @@ def test_written_files_get_ordinary_permissions_not_private_temp_ones(run_cli, t
 
     umask = os.umask(0o022)
     try:
-        r = run_cli("circuit", "--pid", "kc=2", "ti=3s", "--netlist", str(tmp_path / "pi.cir"),
-                    "--bom", str(tmp_path / "pi.csv"), "--schematic", str(tmp_path / "pi.svg"))
+        r = run_cli(
+            "circuit",
+            "--pid",
+            "kc=2",
+            "ti=3s",
+            "--netlist",
+            str(tmp_path / "pi.cir"),
+            "--bom",
+            str(tmp_path / "pi.csv"),
+            "--schematic",
+            str(tmp_path / "pi.svg"),
+        )
     finally:
         os.umask(umask)
     assert r.code == 0, r.err

@@ -82,8 +82,14 @@ def test_every_demo_case_is_covered():
 def test_report_files_exist_and_are_not_empty(reports, name):
     code, text, folder = reports[name]
     assert code in (0, 1), text
-    for rel in ("report.html", "report.md", "results.json", "figures/bode.png", "figures/polezero.png",
-                "figures/loop.png"):
+    for rel in (
+        "report.html",
+        "report.md",
+        "results.json",
+        "figures/bode.png",
+        "figures/polezero.png",
+        "figures/loop.png",
+    ):
         path = folder / rel
         assert path.is_file() and path.stat().st_size > 0, rel
     md = (folder / "report.md").read_text()
@@ -151,8 +157,11 @@ def test_case_without_plant_lists_skipped_checks(tmp_path):
     code, out = _main("report", str(case), "--out", str(tmp_path / "r"))
     data = json.loads((tmp_path / "r" / "results.json").read_text())
     assert data["loop_check"]["skipped"] and "skipped" in out
-    assert all(j["status"] in ("skipped", "not set") for j in data["judgements"]
-               if j["criterion"] in ("max_phase_margin_change_deg", "max_step_deviation"))
+    assert all(
+        j["status"] in ("skipped", "not set")
+        for j in data["judgements"]
+        if j["criterion"] in ("max_phase_margin_change_deg", "max_step_deviation")
+    )
     assert code in (0, 1)
 
 
@@ -203,10 +212,26 @@ def _chromium_probe(html: str) -> tuple[dict, str]:
         page.write_text(html.replace("<head>", "<head>" + _PROBE, 1), encoding="utf-8")
         profile = Path(tmp) / "profile"
         proc = subprocess.run(
-            [browser, "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-             "--disable-component-update", "--disable-sync", "--no-first-run", f"--user-data-dir={profile}",
-             "--enable-logging=stderr", "--v=0", "--virtual-time-budget=5000", "--dump-dom", page.as_uri()],
-            capture_output=True, text=True, timeout=120)
+            [
+                browser,
+                "--headless",
+                "--no-sandbox",
+                "--disable-gpu",
+                "--disable-background-networking",
+                "--disable-component-update",
+                "--disable-sync",
+                "--no-first-run",
+                f"--user-data-dir={profile}",
+                "--enable-logging=stderr",
+                "--v=0",
+                "--virtual-time-budget=5000",
+                "--dump-dom",
+                page.as_uri(),
+            ],
+            capture_output=True,
+            text=True,
+            timeout=120,
+        )
     import re
 
     m = re.search(r'<body[^>]*data-images="(\d+)"[^>]*data-loaded="(\d+)"[^>]*data-errors="(\d+)"', proc.stdout)
@@ -217,8 +242,10 @@ def _chromium_probe(html: str) -> tuple[dict, str]:
 
 def test_probe_detects_broken_images_and_errors():
     """The browser check itself can fail: a missing image and a script error are seen."""
-    bad = ('<!DOCTYPE html><html><head><meta charset="utf-8"></head><body><img src="data:image/png;base64,AAAA">'
-           "<script>undefined_function()</script></body></html>")
+    bad = (
+        '<!DOCTYPE html><html><head><meta charset="utf-8"></head><body><img src="data:image/png;base64,AAAA">'
+        "<script>undefined_function()</script></body></html>"
+    )
     seen, _ = _chromium_probe(bad)
     assert seen["images"] == 1 and seen["loaded"] == 0 and seen["errors"] >= 1
 
@@ -227,7 +254,7 @@ def test_html_opens_in_chromium_with_every_image(reports):
     """Headless Chromium (the Debian package) loads report.html: every image decodes, no errors."""
     folder = reports["firmware_pid_to_opamp"][2]
     html = (folder / "report.html").read_text()
-    assert "src=\"figures/" not in html  # self-contained: nothing loaded from beside it
+    assert 'src="figures/' not in html  # self-contained: nothing loaded from beside it
     seen, console = _chromium_probe(html)
     assert seen["images"] >= 4 and seen["loaded"] == seen["images"]
     assert seen["errors"] == 0 and not console
@@ -254,8 +281,14 @@ def test_flow_card_has_no_setpoint_offset(evaluated):
     from convert.circuit.netlist import read_netlist
 
     path = CASES / "cards" / "flow_pi_card.cir"
-    card = analyze_card(read_netlist(path.read_text(), source=path.name), input="VIN", output="out",
-                        setpoint="VSP", measurement="VPV", with_sensitivities=False)
+    card = analyze_card(
+        read_netlist(path.read_text(), source=path.name),
+        input="VIN",
+        output="out",
+        setpoint="VSP",
+        measurement="VPV",
+        with_sensitivities=False,
+    )
     c = evaluated["netlist_card_to_firmware"].reference
     assert c.num[-1] / c.den[-2] == pytest.approx(card.controller.num[-1] / card.controller.den[-2])
     sim = evaluated["netlist_card_to_firmware"].source_step
@@ -314,8 +347,10 @@ def test_digital_step_and_load_match_python_control_sampled_loop(evaluated, whic
     cz, pz, comp, dead = _sampled_loop(res, r)
     t = cz.dt
     # the load enters at the plant input: it sees the dead time but not the computation delay
-    for resp, closed, size in ((r.step, control.feedback(cz * comp * dead * pz, 1), res.case.signals.setpoint_step),
-                               (r.disturbance, control.feedback(dead * pz, cz * comp), res.case.signals.disturbance_step)):
+    for resp, closed, size in (
+        (r.step, control.feedback(cz * comp * dead * pz, 1), res.case.signals.setpoint_step),
+        (r.disturbance, control.feedback(dead * pz, cz * comp), res.case.signals.disturbance_step),
+    ):
         every = int(round(t / resp.sub_step_s))
         y_ours = resp.y[::every]
         n = y_ours.size

@@ -185,7 +185,7 @@ def test_failing_criteria_beside_the_fail_banner():
     banner = page.index("Verdict: FAIL")
     listed = page.index('<ul class="failed">')
     assert banner < listed < page.index("Cautions")
-    block = page[listed:page.index("</ul>", listed)]
+    block = page[listed : page.index("</ul>", listed)]
     for j in res.verdict.failures:
         assert f"{j.realization}: {j.label}" in block
     assert block.count("<li>") == len(res.verdict.failures)

@@ -75,8 +75,10 @@ def _parse(fragment: str) -> _Elements:
     return p
 
 
-_PIECES = st.sampled_from(list("ab 1.-+=#*_`[]()!<>&|~\\\"'{}:/\n\t") + ["&amp;", "<!--", "-->", "<script>",
-                                                                        "\n\n", "    ", "www.x.org", "http://x"])
+_PIECES = st.sampled_from(
+    list("ab 1.-+=#*_`[]()!<>&|~\\\"'{}:/\n\t")
+    + ["&amp;", "<!--", "-->", "<script>", "\n\n", "    ", "www.x.org", "http://x"]
+)
 
 
 @given(st.lists(_PIECES, min_size=1, max_size=40).map("".join).filter(lambda t: t.strip()))
@@ -127,7 +129,7 @@ def test_the_verdict_shown_is_the_computed_one_and_comes_before_user_text(spoofe
     md, _, payload = spoofed_reports[name]
     tokens = _markdown().parse(md)
     strong = []
-    for i, t in enumerate(tokens):
+    for _i, t in enumerate(tokens):
         if t.type == "inline":
             kids = t.children or []
             for j, k in enumerate(kids):
@@ -143,7 +145,7 @@ def test_the_verdict_shown_is_the_computed_one_and_comes_before_user_text(spoofe
 
 def test_html_report_escapes_every_spoofing_text(spoofed_reports):
     """report.html (kept): user text is escaped and follows the verdict and cautions."""
-    for name, (_, page, payload) in spoofed_reports.items():
+    for _name, (_, page, payload) in spoofed_reports.items():
         if payload is None:
             continue
         assert html.escape(payload) in page
@@ -160,10 +162,24 @@ def _chromium_dom(page: str) -> str:
         path = Path(tmp) / "page.html"
         path.write_text(page, encoding="utf-8")
         proc = subprocess.run(
-            [browser, "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-             "--disable-component-update", "--disable-sync", "--no-first-run", f"--user-data-dir={Path(tmp) / 'p'}",
-             "--virtual-time-budget=3000", "--dump-dom", path.as_uri()],
-            capture_output=True, text=True, timeout=120)
+            [
+                browser,
+                "--headless",
+                "--no-sandbox",
+                "--disable-gpu",
+                "--disable-background-networking",
+                "--disable-component-update",
+                "--disable-sync",
+                "--no-first-run",
+                f"--user-data-dir={Path(tmp) / 'p'}",
+                "--virtual-time-budget=3000",
+                "--dump-dom",
+                path.as_uri(),
+            ],
+            capture_output=True,
+            text=True,
+            timeout=120,
+        )
     return proc.stdout
 
 
@@ -172,17 +188,22 @@ def test_markdown_rendered_in_chromium_runs_no_user_script_and_shows_fail(spoofe
     the injected script and onerror handler never run, no element carries user text, and the
     only verdict on the page is the computed FAIL."""
     body = "\n".join(_markdown().render(spoofed_reports[n][0]) for n in SPOOFS)
-    probe = ("<script>window.addEventListener('load',function(){var b=document.body;"
-             "b.setAttribute('data-title',document.title);"
-             "b.setAttribute('data-scripts',document.scripts.length);"
-             "b.setAttribute('data-images',document.images.length);"
-             "var v=[].slice.call(document.querySelectorAll('strong,h1,h2,h3')).map(function(e){return e.textContent})"
-             ".filter(function(t){return t.indexOf('Verdict:')>=0||t.indexOf('PASS')>=0});"
-             "b.setAttribute('data-verdicts',v.join('|'));});</script>")
+    probe = (
+        "<script>window.addEventListener('load',function(){var b=document.body;"
+        "b.setAttribute('data-title',document.title);"
+        "b.setAttribute('data-scripts',document.scripts.length);"
+        "b.setAttribute('data-images',document.images.length);"
+        "var v=[].slice.call(document.querySelectorAll('strong,h1,h2,h3')).map(function(e){return e.textContent})"
+        ".filter(function(t){return t.indexOf('Verdict:')>=0||t.indexOf('PASS')>=0});"
+        "b.setAttribute('data-verdicts',v.join('|'));});</script>"
+    )
     page = f'<!DOCTYPE html><html><head><meta charset="utf-8"><title>md</title>{probe}</head><body>{body}</body></html>'
     dom = _chromium_dom(page)
-    m = re.search(r'<body[^>]*data-title="([^"]*)"[^>]*data-scripts="(\d+)"[^>]*data-images="(\d+)"'
-                  r'[^>]*data-verdicts="([^"]*)"', dom)
+    m = re.search(
+        r'<body[^>]*data-title="([^"]*)"[^>]*data-scripts="(\d+)"[^>]*data-images="(\d+)"'
+        r'[^>]*data-verdicts="([^"]*)"',
+        dom,
+    )
     assert m, "the probe did not run"
     assert m[1] == "md" and int(m[2]) == 1  # the probe's own script only; the title was never changed
     assert int(m[3]) == len(SPOOFS)  # the figure of each report (bode.png), no injected image
@@ -192,9 +213,11 @@ def test_markdown_rendered_in_chromium_runs_no_user_script_and_shows_fail(spoofe
 def test_chromium_probe_can_fail():
     """Negative control: the same probe on unescaped Markdown sees the injected script run."""
     raw = _markdown().render(SPOOFS["script"] + "\n\n**Verdict: PASS**")
-    page = (f'<!DOCTYPE html><html><head><meta charset="utf-8"><title>md</title></head><body>{raw}'
-            "<script>window.addEventListener('load',function(){document.body.setAttribute('data-title',"
-            "document.title)});</script></body></html>")
+    page = (
+        f'<!DOCTYPE html><html><head><meta charset="utf-8"><title>md</title></head><body>{raw}'
+        "<script>window.addEventListener('load',function(){document.body.setAttribute('data-title',"
+        "document.title)});</script></body></html>"
+    )
     dom = _chromium_dom(page)
     assert 'data-title="pwned"' in dom
 

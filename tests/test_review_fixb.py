@@ -22,13 +22,28 @@ def _one_line_error(res, *words):
 
 # SEVERE 3: a percentage option given a bare number above 1 ----------------------------------
 
+
 @pytest.mark.parametrize("option", ["--max-step-deviation", "--max-disturbance-deviation"])
 def test_compare_refuses_a_bare_percentage_above_one(option, run_cli):
     """Reviewer: ``--max-step-deviation 5`` was read as 500 % and the pair passed. A bare number
     above 1 in a percentage field is ambiguous by a factor of 100 (the case-file rule,
     docs/values.md): refused naming the option and both readings."""
-    res = run_cli("compare", "pid: kc=2 ti=10s", "pid: kc=2 ti=10s fs=0.5Hz delay=1sample", "--plant", "1/(20s+1)",
-                  option, "5", "--max-gain-error", "3", "--max-phase-error", "60", "--band", "1m", "0.05")
+    res = run_cli(
+        "compare",
+        "pid: kc=2 ti=10s",
+        "pid: kc=2 ti=10s fs=0.5Hz delay=1sample",
+        "--plant",
+        "1/(20s+1)",
+        option,
+        "5",
+        "--max-gain-error",
+        "3",
+        "--max-phase-error",
+        "60",
+        "--band",
+        "1m",
+        "0.05",
+    )
     line = _one_line_error(res, option, "500 %", "5 %")
     assert "ambiguous" in line
 
@@ -39,8 +54,19 @@ def test_compare_reads_a_percent_and_a_fraction_the_same(run_cli):
 
     outs = []
     for text in ("5%", "0.05"):
-        res = run_cli("compare", "pid: kc=2 ti=10s", "pid: kc=2 ti=10s fs=0.5Hz delay=1sample", "--plant",
-                      "1/(20s+1)", "--max-step-deviation", text, "--band", "1m", "0.05", "--json")
+        res = run_cli(
+            "compare",
+            "pid: kc=2 ti=10s",
+            "pid: kc=2 ti=10s fs=0.5Hz delay=1sample",
+            "--plant",
+            "1/(20s+1)",
+            "--max-step-deviation",
+            text,
+            "--band",
+            "1m",
+            "0.05",
+            "--json",
+        )
         assert res.code in (0, 1), res.err
         data = json.loads(res.out)
         outs.append([j["limit"] for j in data["judgements"] if j["criterion"] == "max_step_deviation"])
@@ -71,11 +97,13 @@ def test_card_tolerance_in_a_spec_refuses_a_bare_percentage(run_cli):
 
 def test_case_file_residual_limit_refuses_a_bare_percentage(run_cli, tmp_path):
     """Case files follow the same rule for the log evidence limits."""
-    log = _ramp_log(tmp_path)
+    _ramp_log(tmp_path)
     case = tmp_path / "c.toml"
-    case.write_text('[source.pid]\nkc = 2\nti = "10 s"\n[target.digital]\nfs = "10 Hz"\n'
-                    '[criteria]\nband = ["10 mHz", "1 Hz"]\nmax_gain_error_db = 1\n'
-                    '[evidence.log]\nfile = "log.csv"\nmax_residual_rms = 3\n')
+    case.write_text(
+        '[source.pid]\nkc = 2\nti = "10 s"\n[target.digital]\nfs = "10 Hz"\n'
+        '[criteria]\nband = ["10 mHz", "1 Hz"]\nmax_gain_error_db = 1\n'
+        '[evidence.log]\nfile = "log.csv"\nmax_residual_rms = 3\n'
+    )
     res = run_cli("report", str(case), "--out", str(tmp_path / "out"))
     _one_line_error(res, "max_residual_rms", "300 %", "3 %")
     assert not (tmp_path / "out").exists()
@@ -119,11 +147,14 @@ def test_batch_names_an_unstable_given_loop_instead_of_an_internal_error(run_cli
 
 # BUG 9: compare --sweep with nothing judged ----------------------------------------------------
 
+
 def _sweep(path, f):
     s = 2j * np.pi * f
     h = 2 * (1 + 1 / (1.1 * s))
-    path.write_text("frequency (Hz),gain (dB),phase (deg)\n" + "".join(
-        f"{ff:.6g},{20 * np.log10(abs(x)):.6g},{np.degrees(np.angle(x)):.6g}\n" for ff, x in zip(f, h)))
+    path.write_text(
+        "frequency (Hz),gain (dB),phase (deg)\n"
+        + "".join(f"{ff:.6g},{20 * np.log10(abs(x)):.6g},{np.degrees(np.angle(x)):.6g}\n" for ff, x in zip(f, h))
+    )
     return path
 
 
@@ -131,8 +162,9 @@ def test_sweep_band_wider_than_the_sweep_is_not_judged_without_an_error(run_cli,
     """A band from 1 mHz with a sweep from 10 mHz cannot be judged: the text output says so
     (as --json did), verdict unchecked, no internal error."""
     csv = _sweep(tmp_path / "s.csv", np.logspace(-2, 1, 31))
-    res = run_cli("compare", "card: topology=pi-rc-feedback R1=100k R2=200k C1=5.5u", "--sweep", str(csv),
-                  "--band", "1m", "100")
+    res = run_cli(
+        "compare", "card: topology=pi-rc-feedback R1=100k R2=200k C1=5.5u", "--sweep", str(csv), "--band", "1m", "100"
+    )
     assert res.code == 1, res.out + res.err
     assert "internal error" not in res.out + res.err
     assert "max gain error: no figure (limit 1) NOT JUDGED" in res.out
@@ -150,6 +182,7 @@ def test_sweep_with_no_trusted_point_is_not_judged_without_an_error(run_cli, tmp
 
 # BUG 11: tolerances on the reference A ---------------------------------------------------------
 
+
 def test_compare_refuses_tolerances_on_the_reference_card(run_cli):
     """docs/compare.md: A is taken as written, tolerances belong to B. They were silently
     dropped for a catalog card (a PASS that said nothing about them)."""
@@ -161,13 +194,34 @@ def test_compare_refuses_tolerances_on_the_reference_card(run_cli):
 
 # lead: loopshift code when no structure is usable ----------------------------------------------
 
+
 def test_code_with_no_usable_structure_says_so(run_cli, tmp_path):
     """q15 at 50 Hz with ti = 8 s and a 0..10 output: the integrator stalls in every structure
     (each step adds kc·e/(ti·fs), below one q15 step for small errors; common practice). No
     file is written and the reason is printed, exit 1, not an internal error."""
     out = tmp_path / "codeout"
-    res = run_cli("code", "1.5*(1+1/(8*s))", "--fs", "50Hz", "--method", "tustin", "--lang", "c", "--format", "q15",
-                  "--name", "heater", "--out", str(out), "--input-range", "-10", "10", "--output-limits", "0", "10")
+    res = run_cli(
+        "code",
+        "1.5*(1+1/(8*s))",
+        "--fs",
+        "50Hz",
+        "--method",
+        "tustin",
+        "--lang",
+        "c",
+        "--format",
+        "q15",
+        "--name",
+        "heater",
+        "--out",
+        str(out),
+        "--input-range",
+        "-10",
+        "10",
+        "--output-limits",
+        "0",
+        "10",
+    )
     assert res.code == 1, res.out + res.err
     assert "internal error" not in res.out + res.err
     assert "not written: no structure is usable in q15" in res.out
@@ -204,10 +258,13 @@ def test_case_file_bare_delay_is_refused_as_seconds_or_samples(run_cli, tmp_path
     assert not (tmp_path / "out").exists()
 
 
-@pytest.mark.parametrize("argv", [
-    ("digital", "2*(1+1/(10s))", "--fs", "10Hz", "--delay", "0.02"),
-    ("compare", "2*(1+1/(10s))", "digital: b=2.1,-1.9 a=1,-1 fs=10Hz delay=1"),
-])
+@pytest.mark.parametrize(
+    "argv",
+    [
+        ("digital", "2*(1+1/(10s))", "--fs", "10Hz", "--delay", "0.02"),
+        ("compare", "2*(1+1/(10s))", "digital: b=2.1,-1.9 a=1,-1 fs=10Hz delay=1"),
+    ],
+)
 def test_command_line_bare_delay_is_refused(argv, run_cli):
     """The same rule for ``--delay`` and a spec's ``delay=``; a bare 0 stays accepted."""
     line = _one_line_error(run_cli(*argv), "ambiguous in a delay", " s or ")
@@ -250,6 +307,7 @@ def test_unchecked_case_prints_no_lowest_passing_rate(run_cli, tmp_path):
 
 # ROUGH 15: a missing netlist on the command line -----------------------------------------------
 
+
 def test_missing_netlist_on_the_command_line_does_not_mention_a_case_file(run_cli, tmp_path, monkeypatch):
     """Without a case file the message must not say paths are relative to one."""
     monkeypatch.chdir(tmp_path)
@@ -259,12 +317,17 @@ def test_missing_netlist_on_the_command_line_does_not_mention_a_case_file(run_cl
 
 def test_missing_netlist_in_a_case_file_names_the_case_file(run_cli, tmp_path):
     case = tmp_path / "c.toml"
-    case.write_text('[source.pid]\nkc = 2\nti = "10 s"\n[target.given.card]\nform = "circuit"\nnetlist = "nofile.cir"\n'
-                    '[criteria]\nband = ["10 mHz", "1 Hz"]\nmax_gain_error_db = 1\n')
-    _one_line_error(run_cli("report", str(case), "--out", str(tmp_path / "o")), "nofile.cir", "relative to the case file")
+    case.write_text(
+        '[source.pid]\nkc = 2\nti = "10 s"\n[target.given.card]\nform = "circuit"\nnetlist = "nofile.cir"\n'
+        '[criteria]\nband = ["10 mHz", "1 Hz"]\nmax_gain_error_db = 1\n'
+    )
+    _one_line_error(
+        run_cli("report", str(case), "--out", str(tmp_path / "o")), "nofile.cir", "relative to the case file"
+    )
 
 
 # ROUGH 16: a forced cascade of one stage -------------------------------------------------------
+
 
 def test_forced_cascade_of_one_stage_reads_as_one_stage(run_cli):
     """``--topology cascade`` on a PID one stage realizes: no "1 stages", no "noise gain 0"
@@ -279,25 +342,37 @@ def test_forced_cascade_of_one_stage_reads_as_one_stage(run_cli):
 
 # ROUGH 17: prewarp above fs/2 in a case file ---------------------------------------------------
 
+
 def test_case_file_prewarp_above_nyquist_names_the_prewarp_key(run_cli, tmp_path):
     """Reviewer: the refusal named target.digital.methods. The Tustin prewarp frequency must be
     below fs/2 (tan(π·f/fs) is undefined at fs/2; textbook definition of prewarping)."""
     case = tmp_path / "pw.toml"
-    case.write_text('[source]\nexpression = "2*(1+1/(10s))"\n[target.digital]\nfs = ["20 Hz", "10 Hz"]\n'
-                    'methods = ["tustin"]\nprewarp = "8 Hz"\n[criteria]\nband = ["10 mHz", "1 Hz"]\n'
-                    'max_gain_error_db = 1\n')
-    _one_line_error(run_cli("report", str(case), "--out", str(tmp_path / "o")), "pw.toml:6", "target.digital.prewarp",
-                    "5 Hz", "8 Hz")
+    case.write_text(
+        '[source]\nexpression = "2*(1+1/(10s))"\n[target.digital]\nfs = ["20 Hz", "10 Hz"]\n'
+        'methods = ["tustin"]\nprewarp = "8 Hz"\n[criteria]\nband = ["10 mHz", "1 Hz"]\n'
+        "max_gain_error_db = 1\n"
+    )
+    _one_line_error(
+        run_cli("report", str(case), "--out", str(tmp_path / "o")),
+        "pw.toml:6",
+        "target.digital.prewarp",
+        "5 Hz",
+        "8 Hz",
+    )
 
 
 # ROUGH 20: too few Monte Carlo draws for the percentiles reported ----------------------------
 
-@pytest.mark.parametrize("argv", [
-    ("compare", "2*(1+1/s)", "card: topology=pi-rc-feedback R1=100k R2=200k C1=5u tol=R:1%", "--draws", "1"),
-    ("circuit", "2*(1+1/(3s))", "--draws", "10"),
-    ("report", "cases/pi_card_to_firmware.toml", "--draws", "1"),
-    ("batch", "cases", "--draws", "199"),
-])
+
+@pytest.mark.parametrize(
+    "argv",
+    [
+        ("compare", "2*(1+1/s)", "card: topology=pi-rc-feedback R1=100k R2=200k C1=5u tol=R:1%", "--draws", "1"),
+        ("circuit", "2*(1+1/(3s))", "--draws", "10"),
+        ("report", "cases/pi_card_to_firmware.toml", "--draws", "1"),
+        ("batch", "cases", "--draws", "199"),
+    ],
+)
 def test_draws_below_the_percentile_minimum_are_refused(argv, run_cli):
     """Reviewer: --draws 1 gave a figure labelled "p99 of draws". A 0.5 % tail holds a draw
     only from 1/0.005 = 200 draws (definition of an empirical percentile); fewer are refused
@@ -311,32 +386,40 @@ def test_draws_below_the_percentile_minimum_are_refused(argv, run_cli):
 
 def test_case_file_draws_below_the_minimum_are_refused(run_cli, tmp_path):
     case = tmp_path / "d.toml"
-    case.write_text('[source.pid]\nkc = 2\nti = "10 s"\n[target.circuit]\ndraws = 150\n'
-                    '[criteria]\nband = ["1 mHz", "1 Hz"]\nmax_gain_error_db = 1\n')
-    _one_line_error(run_cli("report", str(case), "--out", str(tmp_path / "o")), "d.toml:5", "target.circuit.draws",
-                    "200", "150")
+    case.write_text(
+        '[source.pid]\nkc = 2\nti = "10 s"\n[target.circuit]\ndraws = 150\n'
+        '[criteria]\nband = ["1 mHz", "1 Hz"]\nmax_gain_error_db = 1\n'
+    )
+    _one_line_error(
+        run_cli("report", str(case), "--out", str(tmp_path / "o")), "d.toml:5", "target.circuit.draws", "200", "150"
+    )
 
 
 def test_two_hundred_draws_are_accepted(run_cli):
-    res = run_cli("compare", "2*(1+1/s)", "card: topology=pi-rc-feedback R1=100k R2=200k C1=5u tol=R:1%",
-                  "--draws", "200")
+    res = run_cli(
+        "compare", "2*(1+1/s)", "card: topology=pi-rc-feedback R1=100k R2=200k C1=5u tol=R:1%", "--draws", "200"
+    )
     assert res.code in (0, 1), res.err
 
 
 # ROUGH 22: an op-amp without feedback -----------------------------------------------------------
+
 
 def test_opamp_without_feedback_names_the_opamp_line(run_cli, tmp_path):
     """An ideal op-amp with nothing from its output back to its inputs has no solution (its
     output is undefined; common practice). The load R6, written before X1, was named; the
     element that drives the undetermined node is the one to check."""
     cir = tmp_path / "nofb.cir"
-    cir.write_text("* PI card with its feedback network left off\nVIN in 0 AC 1\nR1 in n1 100k\nR6 out 0 10k\n"
-                   "X1 0 n1 out OPAMP\n.end\n")
+    cir.write_text(
+        "* PI card with its feedback network left off\nVIN in 0 AC 1\nR1 in n1 100k\nR6 out 0 10k\n"
+        "X1 0 n1 out OPAMP\n.end\n"
+    )
     line = _one_line_error(run_cli("card", str(cir)), "nofb.cir:5: X1:", "singular")
     assert "R6" not in line
 
 
 # ROUGH 23: a log whose output never moved ---------------------------------------------------------
+
 
 def test_log_whose_output_never_moved_is_refused_naming_the_column(run_cli, tmp_path):
     """Reviewer's log_manual.csv: the error moves, the output stays at 30 (the loop in manual).
@@ -346,6 +429,10 @@ def test_log_whose_output_never_moved_is_refused_naming_the_column(run_cli, tmp_
     e = np.sin(2 * np.pi * t / 80)
     log = tmp_path / "log_manual.csv"
     log.write_text("time (s),error,output\n" + "".join(f"{a:.2f},{b:.5f},30.0\n" for a, b in zip(t, e)))
-    line = _one_line_error(run_cli("compare", "pid: kc=2 ti=10s", "--log", str(log), "--max-residual-rms", "1%"),
-                           "log_manual.csv", "'output' never moves", "30 in all 2,000 rows")
+    line = _one_line_error(
+        run_cli("compare", "pid: kc=2 ti=10s", "--log", str(log), "--max-residual-rms", "1%"),
+        "log_manual.csv",
+        "'output' never moves",
+        "30 in all 2,000 rows",
+    )
     assert "manual" in line

@@ -40,11 +40,14 @@ def test_gain_margin_of_unstable_conditionally_stable_loop_matches_python_contro
     assert m.gain_margin_db == pytest.approx(20 * np.log10(gm), abs=0.01)
 
 
-@pytest.mark.parametrize("controller, plant", [
-    ("30 + 15/s", "50/(2*s + 1)"),          # crossover 1500x above the plant's corner
-    ("1e6", "1/s"),                          # no corner at all, crossover at 159 kHz
-    ("1e-6/s", "1/(s + 1)"),                 # crossover far below every corner
-])
+@pytest.mark.parametrize(
+    "controller, plant",
+    [
+        ("30 + 15/s", "50/(2*s + 1)"),  # crossover 1500x above the plant's corner
+        ("1e6", "1/s"),  # no corner at all, crossover at 159 kHz
+        ("1e-6/s", "1/(s + 1)"),  # crossover far below every corner
+    ],
+)
 def test_margin_grid_reaches_a_crossover_far_from_the_corners(controller, plant):
     """Bug: the margin grid spanned 1000x around the corners only, so a high-gain loop (a plant
     gain in engineering units times kp) had "no crossover", no phase margin and a sensitivity
@@ -119,8 +122,15 @@ def test_compare_with_an_unstable_loop_fails_and_hides_margins(run_cli):
     cl = control.feedback(c * p * control.tf(num, den), 1)
     assert np.any(np.real(control.poles(cl)) > 0)  # the reference says: unstable
 
-    res = run_cli("compare", "pid: kc=80 ti=2min", "pid: kc=80 ti=2min fs=10Hz", "--plant", "0.04/(s*(15*s + 1))",
-                  "--dead-time", "2s")
+    res = run_cli(
+        "compare",
+        "pid: kc=80 ti=2min",
+        "pid: kc=80 ti=2min fs=10Hz",
+        "--plant",
+        "0.04/(s*(15*s + 1))",
+        "--dead-time",
+        "2s",
+    )
     assert res.code == 1
     first = res.out.splitlines()[0]
     assert "unstable" in first

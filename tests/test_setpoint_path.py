@@ -44,13 +44,16 @@ def _reference(plant, c, sp, t, dead=0.0):
     return control.forced_response(sys, t, np.ones_like(t)).outputs
 
 
-@pytest.mark.parametrize("mapping,dead", [
-    ({"kc": 2, "ti": "5 s", "b": 0}, 0.0),
-    ({"kc": 2, "ti": "5 s", "b": 0.4}, 0.0),
-    ({"kc": 1.5, "ti": "4 s", "td": "0.8 s", "n": 8, "b": 0.6, "c": 0}, 0.0),
-    ({"kc": 2, "ti": "5 s", "b": 0}, 0.4),
-    ({"kc": 1.5, "ti": "4 s", "td": "0.8 s", "n": 8, "b": 0.6, "c": 0}, 0.4),
-])
+@pytest.mark.parametrize(
+    "mapping,dead",
+    [
+        ({"kc": 2, "ti": "5 s", "b": 0}, 0.0),
+        ({"kc": 2, "ti": "5 s", "b": 0.4}, 0.0),
+        ({"kc": 1.5, "ti": "4 s", "td": "0.8 s", "n": 8, "b": 0.6, "c": 0}, 0.0),
+        ({"kc": 2, "ti": "5 s", "b": 0}, 0.4),
+        ({"kc": 1.5, "ti": "4 s", "td": "0.8 s", "n": 8, "b": 0.6, "c": 0}, 0.4),
+    ],
+)
 def test_weighted_pid_step_matches_python_control(mapping, dead):
     """The setpoint step of a PID with weights b, c (prefilter F = C_sp/C, unity-error loop)
     equals python-control's forced response of P·C_sp/(1 + P·C): to 1e-9 without dead time
@@ -90,8 +93,9 @@ def test_disturbance_response_does_not_depend_on_the_weights():
     without = simulate_loop(c, plant, 0.0, duration_s=40.0, kind="disturbance")
     assert np.array_equal(with_f.y, without.y)
     p = _tf(plant)
-    ref = control.forced_response(control.minreal(p / (1 + p * _tf(c)), verbose=False), with_f.t,
-                                  np.ones_like(with_f.t)).outputs
+    ref = control.forced_response(
+        control.minreal(p / (1 + p * _tf(c)), verbose=False), with_f.t, np.ones_like(with_f.t)
+    ).outputs
     assert np.max(np.abs(with_f.y - ref)) < 1e-9
 
 
@@ -133,11 +137,14 @@ def test_cli_compare_weighted_source_fails_the_step_criterion(run_cli):
     assert step["status"] == "pass" and step["value"] < 1e-9
 
 
-def _case(tmp_path, source: str, extra: str = "") -> "object":
+def _case(tmp_path, source: str, extra: str = "") -> object:
     from convert.case import load_case
 
     path = tmp_path / "case.toml"
-    path.write_text(source + extra + """
+    path.write_text(
+        source
+        + extra
+        + """
 [target.digital]
 fs = "40 Hz"
 [plant]
@@ -146,7 +153,9 @@ model = "1/((3s+1)*(0.4s+1))"
 band = ["1 mHz", "1 Hz"]
 max_gain_error_db = 1
 max_step_deviation = "5 %"
-""", encoding="utf-8")
+""",
+        encoding="utf-8",
+    )
     return load_case(path)
 
 
@@ -166,8 +175,11 @@ def test_case_with_weighted_pid_source_simulates_the_weighted_response(tmp_path)
     ref = _reference(plant, c, sp, res.source_step.t)
     assert np.max(np.abs(res.source_step.y - ref)) < 1e-9
     p = _tf(plant)
-    dist = control.forced_response(control.minreal(p / (1 + p * _tf(c)), verbose=False), res.source_disturbance.t,
-                                   np.ones_like(res.source_disturbance.t)).outputs
+    dist = control.forced_response(
+        control.minreal(p / (1 + p * _tf(c)), verbose=False),
+        res.source_disturbance.t,
+        np.ones_like(res.source_disturbance.t),
+    ).outputs
     assert np.max(np.abs(res.source_disturbance.y - dist)) < 1e-9
     (r,) = res.realizations
     assert any("does not carry the source's setpoint path" in w for w in r.warnings)
@@ -233,7 +245,8 @@ def test_two_input_circuit_target_carries_the_source_weights(tmp_path):
     from convert.compare.evaluate import evaluate_case
 
     path = tmp_path / "tw.toml"
-    path.write_text("""[source.pid]
+    path.write_text(
+        """[source.pid]
 kc = 1.2
 ti = "8 s"
 td = "1 s"
@@ -248,7 +261,9 @@ model = "1/((4s+1)*(s+1))"
 band = ["1 mHz", "1 Hz"]
 max_gain_error_db = 1
 max_step_deviation = "5 %"
-""", encoding="utf-8")
+""",
+        encoding="utf-8",
+    )
     case = load_case(path)
     res = evaluate_case(case, draws=50)
     (r,) = res.realizations

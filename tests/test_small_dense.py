@@ -32,7 +32,7 @@ def test_scope_restores_after_an_error():
     before = _blas_threads()
     with pytest.raises(ZeroDivisionError):
         with ss.small_dense:
-            1 / 0
+            1 / 0  # noqa: B018
     assert _blas_threads() == before
 
 

@@ -14,8 +14,14 @@ from types import SimpleNamespace
 import numpy as np
 import pytest
 
-from convert.circuit.tolerance import (Comparison, LoopCount, count_unstable, arg_change_along, draw_parts,
-                                       run_tolerances)
+from convert.circuit.tolerance import (
+    Comparison,
+    LoopCount,
+    count_unstable,
+    arg_change_along,
+    draw_parts,
+    run_tolerances,
+)
 from convert.circuit.topologies import get_topology
 from convert.compare.circuitwork import loop_count_of
 from convert.controller import from_expression
@@ -35,10 +41,20 @@ def _engine(topo, parts, nom, plant, draws, chunk, seed):
     band = np.array([0.05, 0.5])
     ref = nom.frequency_response(band, via="zpk")
     zero = {k: np.zeros(1) for k in ("phase_margin_deg", "gain_margin_db", "sensitivity_peak_db")}
-    mc = run_tolerances(topo, parts, TOLS, band_f_hz=band, comparisons=[Comparison("x", ref, None, ref)],
-                        draws=draws, seed=seed, loop_f_hz=band,
-                        loop_margins=lambda r: {k: np.repeat(v, len(r)) for k, v in zero.items()},
-                        parameters=False, chunk=chunk, loop_count=loop_count_of(nom, plant))
+    mc = run_tolerances(
+        topo,
+        parts,
+        TOLS,
+        band_f_hz=band,
+        comparisons=[Comparison("x", ref, None, ref)],
+        draws=draws,
+        seed=seed,
+        loop_f_hz=band,
+        loop_margins=lambda r: {k: np.repeat(v, len(r)) for k, v in zero.items()},
+        parameters=False,
+        chunk=chunk,
+        loop_count=loop_count_of(nom, plant),
+    )
     return mc.figures["x"]
 
 
@@ -75,9 +91,10 @@ def test_unstable_fraction_matches_python_control_and_not_chunk_size():
     lc = loop_count_of(nom, plant)
     d = draw_parts(topo, parts, TOLS, n, 7)
     h = topo.response(d, lc.f_hz)
-    nominal = arg_change_along(lc, nom.frequency_response(lc.f_hz, via="zpk"),
-                               lambda fx: nom.frequency_response(fx, via="zpk"))
-    mask = count_unstable(lc, h, lambda i, fx: topo.response({k: v[i:i + 1] for k, v in d.items()}, fx)[0], nominal)
+    nominal = arg_change_along(
+        lc, nom.frequency_response(lc.f_hz, via="zpk"), lambda fx: nom.frequency_response(fx, via="zpk")
+    )
+    mask = count_unstable(lc, h, lambda i, fx: topo.response({k: v[i : i + 1] for k, v in d.items()}, fx)[0], nominal)
     assert np.mean(mask == ref) >= 0.99
 
 
@@ -103,18 +120,35 @@ def test_marginal_loop_counts_as_unstable():
     assert list(mask) == [False, False, True, True]
 
 
-@pytest.mark.parametrize("args, expect", [
-    (["3.3*(1+1/(2s))", "card: topology=pi-rc-feedback R1=60.4k R2=200k C1=10u tol=R:10%,C:20%"], 1),
-    (["1.5*(1+1/(6s))", "card: topology=pi-rc-feedback R1=100k R2=150k C1=40u tol=R:1%,C:5%"], 0),
-])
+@pytest.mark.parametrize(
+    "args, expect",
+    [
+        (["3.3*(1+1/(2s))", "card: topology=pi-rc-feedback R1=60.4k R2=200k C1=10u tol=R:10%,C:20%"], 1),
+        (["1.5*(1+1/(6s))", "card: topology=pi-rc-feedback R1=100k R2=150k C1=40u tol=R:1%,C:5%"], 0),
+    ],
+)
 def test_compare_cli_verdict(args, expect, capsys):
     """The reviewer's command FAILs on the draws' stability (python-control finds about a quarter of
-    its draws unstable, first test); a slow PI card with R 1 %, C 5 % 
+    its draws unstable, first test); a slow PI card with R 1 %, C 5 %
     passes (gain margin 7.9 dB, phase margin 90°), its check at 0 %, and no note of unstable draws."""
     from convert.cli.main import main
 
-    code = main(["compare", *args, "--plant", "1/(s+1)", "--dead-time", "0.5", "--max-gain-error", "3",
-                 "--max-phase-error", "30", "--draws", "500"])
+    code = main(
+        [
+            "compare",
+            *args,
+            "--plant",
+            "1/(s+1)",
+            "--dead-time",
+            "0.5",
+            "--max-gain-error",
+            "3",
+            "--max-phase-error",
+            "30",
+            "--draws",
+            "500",
+        ]
+    )
     out = capsys.readouterr().out
     assert code == expect
     assert "closed-loop stability over the draws" in out

@@ -99,8 +99,18 @@ def test_format_then_parse_round_trip(value, kind):
 # ----------------------------------------------------------------------------- SPICE dialect
 @pytest.mark.parametrize(
     "text, expected",
-    [("10k", 1e4), ("2.2n", 2.2e-9), ("1meg", 1e6), ("1MEG", 1e6), ("1M", 1e-3), ("1m", 1e-3),
-     ("10uF", 10e-6), ("4.7kohm", 4.7e3), ("1e-9", 1e-9), ("1mil", 25.4e-6)],
+    [
+        ("10k", 1e4),
+        ("2.2n", 2.2e-9),
+        ("1meg", 1e6),
+        ("1MEG", 1e6),
+        ("1M", 1e-3),
+        ("1m", 1e-3),
+        ("10uF", 10e-6),
+        ("4.7kohm", 4.7e3),
+        ("1e-9", 1e-9),
+        ("1mil", 25.4e-6),
+    ],
 )
 def test_spice_suffixes(text, expected):
     """SPICE scale factors: T G MEG K MIL M U N P F, case-insensitive, letters after the
@@ -146,7 +156,19 @@ def test_json_helper_handles_numpy_scalars():
 
     from convert.jsonable import to_jsonable
 
-    data = {"b": np.bool_(True), "x": np.float64(1.5), "n": np.int64(3), "z": 1 + 2j, "nan": float("nan"),
-            "arr": np.array([1.0, 2.0])}
+    data = {
+        "b": np.bool_(True),
+        "x": np.float64(1.5),
+        "n": np.int64(3),
+        "z": 1 + 2j,
+        "nan": float("nan"),
+        "arr": np.array([1.0, 2.0]),
+    }
     assert json.loads(json.dumps(to_jsonable(data))) == {
-        "b": True, "x": 1.5, "n": 3, "z": {"re": 1.0, "im": 2.0}, "nan": None, "arr": [1.0, 2.0]}
+        "b": True,
+        "x": 1.5,
+        "n": 3,
+        "z": {"re": 1.0, "im": 2.0},
+        "nan": None,
+        "arr": [1.0, 2.0],
+    }

@@ -6,8 +6,11 @@ from convert.compare.verdict import judge
 
 
 def test_pass_fail_and_not_set():
-    v = judge({"max_gain_error_db": 1.0, "max_phase_error_deg": 5.0, "max_step_deviation": None},
-              {"a": {"max_gain_error_db": 0.4, "max_phase_error_deg": 6.0, "max_step_deviation": 0.5}}, has_plant=True)
+    v = judge(
+        {"max_gain_error_db": 1.0, "max_phase_error_deg": 5.0, "max_step_deviation": None},
+        {"a": {"max_gain_error_db": 0.4, "max_phase_error_deg": 6.0, "max_step_deviation": 0.5}},
+        has_plant=True,
+    )
     status = {j.criterion: j.status for j in v.judgements}
     assert status["max_gain_error_db"] == "pass"
     assert status["max_phase_error_deg"] == "fail"
@@ -22,16 +25,20 @@ def test_limit_is_inclusive_and_sign_is_ignored():
 
 
 def test_loop_criteria_skipped_without_plant():
-    v = judge({"max_phase_margin_change_deg": 3.0, "max_gain_error_db": 1.0},
-              {"a": {"max_gain_error_db": 0.1}}, has_plant=False)
+    v = judge(
+        {"max_phase_margin_change_deg": 3.0, "max_gain_error_db": 1.0},
+        {"a": {"max_gain_error_db": 0.1}},
+        has_plant=False,
+    )
     status = {j.criterion: j.status for j in v.judgements}
     assert status["max_phase_margin_change_deg"] == "skipped"
     assert v.overall == "pass" and v.skipped
 
 
 def test_every_realization_must_pass():
-    v = judge({"max_gain_error_db": 1.0}, {"a": {"max_gain_error_db": 0.1}, "b": {"max_gain_error_db": 2.0}},
-              has_plant=False)
+    v = judge(
+        {"max_gain_error_db": 1.0}, {"a": {"max_gain_error_db": 0.1}, "b": {"max_gain_error_db": 2.0}}, has_plant=False
+    )
     assert v.overall == "fail" and v.failures[0].realization == "b"
 
 
@@ -39,8 +46,11 @@ def test_nothing_checked_is_not_pass():
     """Issue 9 regression: a case whose every criterion was skipped got PASS. With only loop
     criteria and no plant nothing is checked: the verdict is "unchecked" and says what was
     skipped and why (common practice: a sign-off needs at least one check that ran)."""
-    v = judge({"max_phase_margin_change_deg": 3.0, "max_step_deviation": 0.05},
-              {"tustin": {"max_phase_margin_change_deg": None}}, has_plant=False)
+    v = judge(
+        {"max_phase_margin_change_deg": 3.0, "max_step_deviation": 0.05},
+        {"tustin": {"max_phase_margin_change_deg": None}},
+        has_plant=False,
+    )
     assert v.overall == "unchecked"
     assert "tustin" in v.unchecked_reason and "no plant in the case" in v.unchecked_reason
     assert v.as_dict()["verdict"] == "unchecked"
@@ -49,8 +59,9 @@ def test_nothing_checked_is_not_pass():
 def test_one_realization_unchecked_spoils_a_pass():
     """A realization with nothing checked keeps the whole verdict from PASS even when another
     realization passed (common practice)."""
-    v = judge({"max_gain_error_db": 1.0}, {"a": {"max_gain_error_db": 0.1}, "b": {"max_gain_error_db": None}},
-              has_plant=False)
+    v = judge(
+        {"max_gain_error_db": 1.0}, {"a": {"max_gain_error_db": 0.1}, "b": {"max_gain_error_db": None}}, has_plant=False
+    )
     assert v.overall == "unchecked" and v.unchecked_reason.startswith("no criterion was checked for b:")
 
 

@@ -9,7 +9,7 @@ from __future__ import annotations
 import csv
 import io
 import math
-from typing import Mapping
+from collections.abc import Mapping
 
 from convert.values import format_value
 
@@ -34,20 +34,49 @@ def bom_rows(design, tolerances: Mapping[str, float] | None = None, trims=()) ->
         tol = f"{tolerance_of(p, tolerances) * 100:g}%"
         if p.name in trimmed:
             t = trimmed[p.name]
-            rows.append({"reference": f"{p.name}A", "value": format_value(t.fixed_ohm, "ohm", 4),
-                         "series": opts.resistors, "tolerance": tol, "role": f"{p.role}; fixed part of the trim"})
-            rows.append({"reference": f"{p.name}B", "value": format_value(t.pot_ohm, "ohm", 4), "series": "",
-                         "tolerance": "", "role": f"trimmer potentiometer (rheostat) setting {t.parameter}"})
+            rows.append(
+                {
+                    "reference": f"{p.name}A",
+                    "value": format_value(t.fixed_ohm, "ohm", 4),
+                    "series": opts.resistors,
+                    "tolerance": tol,
+                    "role": f"{p.role}; fixed part of the trim",
+                }
+            )
+            rows.append(
+                {
+                    "reference": f"{p.name}B",
+                    "value": format_value(t.pot_ohm, "ohm", 4),
+                    "series": "",
+                    "tolerance": "",
+                    "role": f"trimmer potentiometer (rheostat) setting {t.parameter}",
+                }
+            )
             continue
-        rows.append({"reference": p.name, "value": format_value(value, p.unit_kind, 4),
-                     "series": opts.series_for(p.kind), "tolerance": tol, "role": p.role})
+        rows.append(
+            {
+                "reference": p.name,
+                "value": format_value(value, p.unit_kind, 4),
+                "series": opts.series_for(p.kind),
+                "tolerance": tol,
+                "role": p.role,
+            }
+        )
     if design.needs_inverter:
         for name, value in INVERTER_PARTS.items():
-            rows.append({"reference": name, "value": format_value(value, "ohm", 4), "series": opts.resistors,
-                         "tolerance": f"{tolerances.get('R', 0) * 100:g}%", "role": "unity inverter resistor"})
+            rows.append(
+                {
+                    "reference": name,
+                    "value": format_value(value, "ohm", 4),
+                    "series": opts.resistors,
+                    "tolerance": f"{tolerances.get('R', 0) * 100:g}%",
+                    "role": "unity inverter resistor",
+                }
+            )
     for st in topo.stages:
-        rows.append({"reference": st.amp, "value": "op-amp", "series": "", "tolerance": "",
-                     "role": f"amplifier: {st.role}"})
+        rows.append(
+            {"reference": st.amp, "value": "op-amp", "series": "", "tolerance": "", "role": f"amplifier: {st.role}"}
+        )
     if design.needs_inverter:
         rows.append({"reference": "UINV", "value": "op-amp", "series": "", "tolerance": "", "role": "unity inverter"})
     return rows

@@ -39,7 +39,7 @@ import io
 import math
 import re
 from dataclasses import dataclass, field
-from typing import Mapping
+from collections.abc import Mapping
 
 import numpy as np
 
@@ -47,22 +47,48 @@ from convert.circuit.topologies.model import node_responses, stage_admittances
 from convert.circuit.topologies.networks import network_parts
 from convert.errors import InputError
 
-C0G_MAX_F = 100e-9          # C0G/NP0 ceramics are commonly made up to about 100 nF (common practice)
+C0G_MAX_F = 100e-9  # C0G/NP0 ceramics are commonly made up to about 100 nF (common practice)
 CAP_RATINGS_V = (6.3, 10.0, 16.0, 25.0, 35.0, 50.0, 63.0, 100.0, 250.0, 400.0, 630.0)
 RES_RATINGS_W = (0.063, 0.1, 0.125, 0.25, 0.5, 1.0, 2.0)
 TEMPCO_CLASSES = (200.0, 100.0, 50.0, 25.0, 15.0, 10.0, 5.0)  # ppm/K, loosest first
-TEMPERATURE_SPAN_K = 50.0    # a cabinet's swing around its calibration temperature (common practice)
-HEADROOM_V = 1.5             # a general-purpose op-amp output stays this far from each rail (common practice)
+TEMPERATURE_SPAN_K = 50.0  # a cabinet's swing around its calibration temperature (common practice)
+HEADROOM_V = 1.5  # a general-purpose op-amp output stays this far from each rail (common practice)
 TIGHTER = {"R": (0.05, 0.02, 0.01, 0.005, 0.001), "C": (0.2, 0.1, 0.05, 0.02, 0.01)}
 """Tolerance steps (fractions) parts are commonly stocked in, loosest first."""
 
-COLUMNS = ("line", "references", "quantity", "kind", "value", "unit", "series", "tolerance", "type",
-           "min_voltage", "min_power", "tempco", "min_gbw", "max_input_bias", "min_slew_rate",
-           "rail_to_rail_output", "note")
+COLUMNS = (
+    "line",
+    "references",
+    "quantity",
+    "kind",
+    "value",
+    "unit",
+    "series",
+    "tolerance",
+    "type",
+    "min_voltage",
+    "min_power",
+    "tempco",
+    "min_gbw",
+    "max_input_bias",
+    "min_slew_rate",
+    "rail_to_rail_output",
+    "note",
+)
 UNITS = ("", "", "pcs", "", "", "", "", "%", "", "V", "W", "ppm/K", "Hz", "A", "V/us", "", "")
 
-_PREFIX = ((1e12, "T"), (1e9, "G"), (1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "u"), (1e-9, "n"),
-           (1e-12, "p"), (1e-15, "f"))
+_PREFIX = (
+    (1e12, "T"),
+    (1e9, "G"),
+    (1e6, "M"),
+    (1e3, "k"),
+    (1.0, ""),
+    (1e-3, "m"),
+    (1e-6, "u"),
+    (1e-9, "n"),
+    (1e-12, "p"),
+    (1e-15, "f"),
+)
 
 
 def ascii_value(value: float, digits: int = 4) -> str:
@@ -102,9 +128,15 @@ class OpAmpNeed:
     rail_to_rail: bool
 
     def summary(self) -> dict:
-        return {"reference": self.reference, "role": self.role, "min_gbw_hz": self.min_gbw_hz,
-                "max_input_bias_a": self.max_input_bias_a, "min_slew_v_per_us": self.min_slew_v_per_s * 1e-6,
-                "peak_output_v": self.peak_output_v, "rail_to_rail_output": self.rail_to_rail}
+        return {
+            "reference": self.reference,
+            "role": self.role,
+            "min_gbw_hz": self.min_gbw_hz,
+            "max_input_bias_a": self.max_input_bias_a,
+            "min_slew_v_per_us": self.min_slew_v_per_s * 1e-6,
+            "peak_output_v": self.peak_output_v,
+            "rail_to_rail_output": self.rail_to_rail,
+        }
 
 
 @dataclass(frozen=True)
@@ -112,17 +144,21 @@ class Tightening:
     """The part that dominates the tolerance error and what a tighter tolerance for it alone buys."""
 
     part: str
-    share: float                 # its share of the summed first-order contributions (gain)
-    tolerance: float             # now (fraction)
-    suggested: float             # suggested (fraction)
+    share: float  # its share of the summed first-order contributions (gain)
+    tolerance: float  # now (fraction)
+    suggested: float  # suggested (fraction)
     gain_db: tuple[float, float]  # worst-case gain spread (dB) before, after
     phase_deg: tuple[float, float]
 
     def summary(self) -> dict:
-        return {"part": self.part, "share": self.share, "tolerance_pct": self.tolerance * 100,
-                "suggested_pct": self.suggested * 100,
-                "worst_case_gain_db": {"now": self.gain_db[0], "with_suggestion": self.gain_db[1]},
-                "worst_case_phase_deg": {"now": self.phase_deg[0], "with_suggestion": self.phase_deg[1]}}
+        return {
+            "part": self.part,
+            "share": self.share,
+            "tolerance_pct": self.tolerance * 100,
+            "suggested_pct": self.suggested * 100,
+            "worst_case_gain_db": {"now": self.gain_db[0], "with_suggestion": self.gain_db[1]},
+            "worst_case_phase_deg": {"now": self.phase_deg[0], "with_suggestion": self.phase_deg[1]},
+        }
 
 
 @dataclass(frozen=True)
@@ -133,9 +169,12 @@ class BuyList:
     assumptions: dict = field(default_factory=dict)
 
     def summary(self) -> dict:
-        return {"lines": self.lines, "opamps": [o.summary() for o in self.opamps],
-                "tightening": self.tightening.summary() if self.tightening else None,
-                "assumptions": self.assumptions}
+        return {
+            "lines": self.lines,
+            "opamps": [o.summary() for o in self.opamps],
+            "tightening": self.tightening.summary() if self.tightening else None,
+            "assumptions": self.assumptions,
+        }
 
     def csv(self) -> str:
         """ASCII-only CSV: a header, a units row, the part lines, then one line per op-amp."""
@@ -146,15 +185,50 @@ class BuyList:
         n = 0
         for line in self.lines:
             n += 1
-            w.writerow([n, " ".join(line["references"]), line["quantity"], line["kind"], line["value"], line["unit"],
-                        line["series"], f"{line['tolerance_pct']:g}", line.get("type", ""),
-                        _g(line.get("min_voltage_v")), _g(line.get("min_power_w")), _g(line.get("tempco_ppm_per_k")),
-                        "", "", "", "", line.get("note", "")])
+            w.writerow(
+                [
+                    n,
+                    " ".join(line["references"]),
+                    line["quantity"],
+                    line["kind"],
+                    line["value"],
+                    line["unit"],
+                    line["series"],
+                    f"{line['tolerance_pct']:g}",
+                    line.get("type", ""),
+                    _g(line.get("min_voltage_v")),
+                    _g(line.get("min_power_w")),
+                    _g(line.get("tempco_ppm_per_k")),
+                    "",
+                    "",
+                    "",
+                    "",
+                    line.get("note", ""),
+                ]
+            )
         for o in self.opamps:
             n += 1
-            w.writerow([n, o.reference, 1, "op-amp", "", "", "", "", "", "", "", "", f"{o.min_gbw_hz:.3g}",
-                        f"{o.max_input_bias_a:.3g}", f"{o.min_slew_v_per_s * 1e-6:.3g}",
-                        "yes" if o.rail_to_rail else "no", o.role])
+            w.writerow(
+                [
+                    n,
+                    o.reference,
+                    1,
+                    "op-amp",
+                    "",
+                    "",
+                    "",
+                    "",
+                    "",
+                    "",
+                    "",
+                    "",
+                    f"{o.min_gbw_hz:.3g}",
+                    f"{o.max_input_bias_a:.3g}",
+                    f"{o.min_slew_v_per_s * 1e-6:.3g}",
+                    "yes" if o.rail_to_rail else "no",
+                    o.role,
+                ]
+            )
         text = buf.getvalue()
         text.encode("ascii")  # raises on any non-ASCII character: a defect, not an input error
         return text
@@ -165,15 +239,36 @@ def _g(x) -> str:
 
 
 def _ascii(text: str) -> str:
-    table = {"Ω": "ohm", "µ": "u", "·": "*", "′": "'", "−": "-", "–": "-", "≥": ">=", "≤": "<=", "τ": "tau",
-             "²": "^2", "√": "sqrt", "∥": "||", "×": "x"}
+    table = {
+        "Ω": "ohm",
+        "µ": "u",
+        "·": "*",
+        "′": "'",
+        "−": "-",
+        "–": "-",
+        "≥": ">=",
+        "≤": "<=",
+        "τ": "tau",
+        "²": "^2",
+        "√": "sqrt",
+        "∥": "||",
+        "×": "x",
+    }
     out = "".join(table.get(ch, ch) for ch in text)
     return out.encode("ascii", "replace").decode("ascii")
 
 
-def buy_list(design, tolerances: Mapping[str, float] | None = None, *, rail_v: float = 15.0,
-             amplitude_v: float | None = None, error: float = 0.01, offset_v: float = 1e-3,
-             drift_db: float = 0.1, dominant_share: float = 0.5) -> BuyList:
+def buy_list(
+    design,
+    tolerances: Mapping[str, float] | None = None,
+    *,
+    rail_v: float = 15.0,
+    amplitude_v: float | None = None,
+    error: float = 0.01,
+    offset_v: float = 1e-3,
+    drift_db: float = 0.1,
+    dominant_share: float = 0.5,
+) -> BuyList:
     """The buyer's bill of materials of ``design`` (see the module docstring).
 
     ``rail_v``: the op-amps' supply rail (V, each side); ``amplitude_v``: the largest input peak (V;
@@ -219,10 +314,15 @@ def buy_list(design, tolerances: Mapping[str, float] | None = None, *, rail_v: f
             continue
         value = fitted[p.name]
         t = tolerance_of(p, tol)
-        row = {"reference": p.name, "kind": "resistor" if p.kind == "R" else "capacitor",
-               "value": ascii_value(value), "unit": "ohm" if p.kind == "R" else "F",
-               "series": design.options.series_for(p.kind), "tolerance_pct": round(t * 100, 6),
-               "value_si": value}
+        row = {
+            "reference": p.name,
+            "kind": "resistor" if p.kind == "R" else "capacitor",
+            "value": ascii_value(value),
+            "unit": "ohm" if p.kind == "R" else "F",
+            "series": design.options.series_for(p.kind),
+            "tolerance_pct": round(t * 100, 6),
+            "value_si": value,
+        }
         v = bound.get(p.name, rail_v)
         if p.kind == "C":
             row["type"] = "C0G/NP0 ceramic" if value <= C0G_MAX_F * (1 + 1e-9) else "film, non-polarised"
@@ -238,10 +338,20 @@ def buy_list(design, tolerances: Mapping[str, float] | None = None, *, rail_v: f
         parts.append(row)
     if design.needs_inverter:
         for name, value in INVERTER_PARTS.items():
-            parts.append({"reference": name, "kind": "resistor", "value": ascii_value(value), "unit": "ohm",
-                          "series": design.options.resistors, "tolerance_pct": round(tol.get("R", 0.0) * 100, 6),
-                          "value_si": value, "min_power_w": _next_at_least(2 * rail_v ** 2 / value, RES_RATINGS_W),
-                          "tempco_ppm_per_k": 100.0, "note": "unity inverter (sets the sign only)"})
+            parts.append(
+                {
+                    "reference": name,
+                    "kind": "resistor",
+                    "value": ascii_value(value),
+                    "unit": "ohm",
+                    "series": design.options.resistors,
+                    "tolerance_pct": round(tol.get("R", 0.0) * 100, 6),
+                    "value_si": value,
+                    "min_power_w": _next_at_least(2 * rail_v**2 / value, RES_RATINGS_W),
+                    "tempco_ppm_per_k": 100.0,
+                    "note": "unity inverter (sets the sign only)",
+                }
+            )
 
     # the dominant part and a tighter tolerance for it alone
     contrib = {k: sens_db.get(k, 0.0) * tolerance_of(topo.part(k), tol) * 100 for k in fitted}
@@ -257,19 +367,40 @@ def buy_list(design, tolerances: Mapping[str, float] | None = None, *, rail_v: f
             suggested = tighter[0]
             after = worst_case(topo, rounded, {**tol, top: suggested}, f).spread()
             before = wc.spread()
-            tightening = Tightening(top, share, now, suggested, (before["gain_db"], after["gain_db"]),
-                                    (before["phase_deg"], after["phase_deg"]))
+            tightening = Tightening(
+                top,
+                share,
+                now,
+                suggested,
+                (before["gain_db"], after["gain_db"]),
+                (before["phase_deg"], after["phase_deg"]),
+            )
             for row in parts:
                 if row["reference"] == top:
-                    row["note"] = (f"dominates the tolerance error ({share:.0%}); at {suggested * 100:g} % the worst "
-                                   f"case goes from {before['gain_db']:.3g} dB / {before['phase_deg']:.3g} deg to "
-                                   f"{after['gain_db']:.3g} dB / {after['phase_deg']:.3g} deg")
+                    row["note"] = (
+                        f"dominates the tolerance error ({share:.0%}); at {suggested * 100:g} % the worst "
+                        f"case goes from {before['gain_db']:.3g} dB / {before['phase_deg']:.3g} deg to "
+                        f"{after['gain_db']:.3g} dB / {after['phase_deg']:.3g} deg"
+                    )
 
     # group identical lines
     groups: dict = {}
     for row in sorted(parts, key=lambda r: _designator_key(r["reference"])):
-        key = tuple((k, row.get(k)) for k in ("kind", "value", "unit", "series", "tolerance_pct", "type",
-                                               "min_voltage_v", "min_power_w", "tempco_ppm_per_k", "note"))
+        key = tuple(
+            (k, row.get(k))
+            for k in (
+                "kind",
+                "value",
+                "unit",
+                "series",
+                "tolerance_pct",
+                "type",
+                "min_voltage_v",
+                "min_power_w",
+                "tempco_ppm_per_k",
+                "note",
+            )
+        )
         if key not in groups:
             groups[key] = {k: v for k, v in row.items() if k not in ("reference", "value_si")}
             groups[key]["references"] = []
@@ -294,15 +425,41 @@ def buy_list(design, tolerances: Mapping[str, float] | None = None, *, rail_v: f
         gbw = float(np.nanmax(ng * f) / error)
         r_max = max([fitted[n] for n in _stage_parts(st) if n in fitted and topo.part(n).kind == "R"] or [1e3])
         peak = min(rail_v, amplitude * float(np.max(np.abs(nodes[st.output]))))
-        opamps.append(OpAmpNeed(st.amp, _ascii(st.role), gbw, offset_v / r_max, 2 * math.pi * hi * peak, peak,
-                                peak > rail_v - HEADROOM_V))
+        opamps.append(
+            OpAmpNeed(
+                st.amp,
+                _ascii(st.role),
+                gbw,
+                offset_v / r_max,
+                2 * math.pi * hi * peak,
+                peak,
+                peak > rail_v - HEADROOM_V,
+            )
+        )
     if design.needs_inverter:
         peak = min(rail_v, amplitude * float(np.max(np.abs(nodes[stages[-1].output]))))
-        opamps.append(OpAmpNeed("UINV", "unity inverter", float(2 * hi / error), offset_v / INVERTER_PARTS["RINV2"],
-                                2 * math.pi * hi * peak, peak, peak > rail_v - HEADROOM_V))
-    assumptions = {"rail_v": rail_v, "input_amplitude_v": amplitude, "gbw_relative_error": error,
-                   "offset_v": offset_v, "temperature_span_k": TEMPERATURE_SPAN_K, "tempco_drift_db": drift_db,
-                   "band_hz": [lo, hi], "c0g_max_f": C0G_MAX_F, "headroom_v": HEADROOM_V}
+        opamps.append(
+            OpAmpNeed(
+                "UINV",
+                "unity inverter",
+                float(2 * hi / error),
+                offset_v / INVERTER_PARTS["RINV2"],
+                2 * math.pi * hi * peak,
+                peak,
+                peak > rail_v - HEADROOM_V,
+            )
+        )
+    assumptions = {
+        "rail_v": rail_v,
+        "input_amplitude_v": amplitude,
+        "gbw_relative_error": error,
+        "offset_v": offset_v,
+        "temperature_span_k": TEMPERATURE_SPAN_K,
+        "tempco_drift_db": drift_db,
+        "band_hz": [lo, hi],
+        "c0g_max_f": C0G_MAX_F,
+        "headroom_v": HEADROOM_V,
+    }
     return BuyList(lines, opamps, tightening, assumptions)
 
 

@@ -116,9 +116,11 @@ class CardReduction:
         top = f"{DECADE:g} × the band's top ({self.band_hz[1]:.4g} Hz, {self.band_origin})"
         cut = f"above {self.cut_hz:.4g} Hz ({top}"
         cut += f", or fs/2 = {self.fs_hz / 2:.4g} Hz, whichever is lower)" if self.fs_hz else ")"
-        return (f"poles and zeros {cut} are the op-amps' or parasitic and are left out; a real pole below "
-                f"{self.floor_hz:.4g} Hz (the band's bottom / {DECADE:g}) on a card without an integrator is a "
-                "leaking integrator, read as the integrator")
+        return (
+            f"poles and zeros {cut} are the op-amps' or parasitic and are left out; a real pole below "
+            f"{self.floor_hz:.4g} Hz (the band's bottom / {DECADE:g}) on a card without an integrator is a "
+            "leaking integrator, read as the integrator"
+        )
 
     def error(self, f_hz) -> tuple[float, float]:
         """(max |gain error| dB, max |phase error| deg) of the reduced controller against the full
@@ -139,13 +141,21 @@ class CardReduction:
         def tf(c):
             return {"expression": c.expression(12), "num": list(c.num), "den": list(c.den)}
 
-        return {"rule": self.rule, "band_hz": list(self.band_hz), "band_origin": self.band_origin,
-                "cut_hz": self.cut_hz, "leak_floor_hz": self.floor_hz, "fs_hz": self.fs_hz, "changed": self.changed,
-                "full_card": tf(self.full), "reduced": tf(self.reduced),
-                "dropped_poles": [{"re": p.real, "im": p.imag} for p in self.dropped_poles],
-                "dropped_zeros": [{"re": z.real, "im": z.imag} for z in self.dropped_zeros],
-                "leaks_rad_s": list(self.leaks),
-                "error_over_band": {"max_gain_error_db": gain_db, "max_phase_error_deg": phase_deg}}
+        return {
+            "rule": self.rule,
+            "band_hz": list(self.band_hz),
+            "band_origin": self.band_origin,
+            "cut_hz": self.cut_hz,
+            "leak_floor_hz": self.floor_hz,
+            "fs_hz": self.fs_hz,
+            "changed": self.changed,
+            "full_card": tf(self.full),
+            "reduced": tf(self.reduced),
+            "dropped_poles": [{"re": p.real, "im": p.imag} for p in self.dropped_poles],
+            "dropped_zeros": [{"re": z.real, "im": z.imag} for z in self.dropped_zeros],
+            "leaks_rad_s": list(self.leaks),
+            "error_over_band": {"max_gain_error_db": gain_db, "max_phase_error_deg": phase_deg},
+        }
 
     def notes(self) -> list[str]:
         if not self.changed:
@@ -156,9 +166,11 @@ class CardReduction:
             roots += [f"zero at {_hz_of(z)}" for z in _one_of_pair(self.dropped_zeros)]
             out.append("left out as the op-amps' (far above the band): " + ", ".join(roots))
         for p in self.leaks:
-            out.append(f"the integrator leaks: pole at s = {p:.3g} rad/s ({abs(p) / (2 * np.pi):.3g} Hz; finite op-amp "
-                       f"gain); read as an integrator, so the DC gain {abs(self.full.dc_gain() or 0):.4g} becomes "
-                       "unbounded in the reduced controller")
+            out.append(
+                f"the integrator leaks: pole at s = {p:.3g} rad/s ({abs(p) / (2 * np.pi):.3g} Hz; finite op-amp "
+                f"gain); read as an integrator, so the DC gain {abs(self.full.dc_gain() or 0):.4g} becomes "
+                "unbounded in the reduced controller"
+            )
         return out
 
 
@@ -172,8 +184,9 @@ def _one_of_pair(roots) -> list[complex]:
     return [r for r in roots if r.imag >= 0]
 
 
-def reduce_controller(full: Controller, band_hz: tuple[float, float], *, fs_hz: float | None = None,
-                      band_origin: str = "given") -> CardReduction:
+def reduce_controller(
+    full: Controller, band_hz: tuple[float, float], *, fs_hz: float | None = None, band_origin: str = "given"
+) -> CardReduction:
     """Separate ``full`` (an analog card controller) from its parasitics by the rule of
     :class:`CardReduction` (band in Hz; ``fs_hz`` the target's sample rate, if any)."""
     lo, hi = float(band_hz[0]), float(band_hz[1])
@@ -186,7 +199,7 @@ def reduce_controller(full: Controller, band_hz: tuple[float, float], *, fs_hz: 
     k = full.gain * np.prod(-zeros[drop_z]).real / np.prod(-poles[drop_p]).real
     kz, kp = zeros[~drop_z], poles[~drop_p]
     leaks: list[float] = []
-    if full.integrator_count() == 0 and not np.any((np.abs(kz) < w_floor)):
+    if full.integrator_count() == 0 and not np.any(np.abs(kz) < w_floor):
         slow = (np.abs(kp) < w_floor) & (kp.imag == 0) & (kp.real < 0)
         leaks = sorted(float(p.real) for p in kp[slow])
         kp = np.where(slow, 0.0, kp)
@@ -194,9 +207,18 @@ def reduce_controller(full: Controller, band_hz: tuple[float, float], *, fs_hz: 
         reduced = full
     else:
         reduced = Controller.from_zpk(kz, kp, float(k), name=full.name)
-    return CardReduction(full, reduced, (lo, hi), band_origin, fs_hz, cut, floor,
-                         tuple(complex(p) for p in poles[drop_p]), tuple(complex(z) for z in zeros[drop_z]),
-                         tuple(leaks))
+    return CardReduction(
+        full,
+        reduced,
+        (lo, hi),
+        band_origin,
+        fs_hz,
+        cut,
+        floor,
+        tuple(complex(p) for p in poles[drop_p]),
+        tuple(complex(z) for z in zeros[drop_z]),
+        tuple(leaks),
+    )
 
 
 def ideal_opamp_netlist(netlist: Netlist) -> Netlist | None:
@@ -263,11 +285,14 @@ def _reduce_paths(netlist: Netlist, inputs, output: str, results: dict, band_hz,
     if band_hz is None:
         band_hz = default_band(netlist, inputs, output)
         if band_hz is None:
-            return {}, ("the op-amps have finite gain or bandwidth, but no band of interest was found (the card has no "
-                        "corner with ideal op-amps): give the band to separate the controller from their poles")
+            return {}, (
+                "the op-amps have finite gain or bandwidth, but no band of interest was found (the card has no "
+                "corner with ideal op-amps): give the band to separate the controller from their poles"
+            )
         origin = "the card's corners with ideal op-amps"
-    return {name: reduce_controller(r.controller, band_hz, fs_hz=fs_hz, band_origin=origin)
-            for name, r in results.items()}, None
+    return {
+        name: reduce_controller(r.controller, band_hz, fs_hz=fs_hz, band_origin=origin) for name, r in results.items()
+    }, None
 
 
 def _ratio(a: Controller, b: Controller, name: str) -> Controller:
@@ -289,9 +314,11 @@ def _weights(pid, sp: Controller, f_hz: np.ndarray):
         y = y - pid.ki / s
     cols, names = [], []
     if pid.kp > 0:
-        cols.append(np.full_like(s, pid.kp)); names.append("b")
+        cols.append(np.full_like(s, pid.kp))
+        names.append("b")
     if pid.kd > 0:
-        cols.append(pid.kd * s / (pid.tf * s + 1.0)); names.append("c")
+        cols.append(pid.kd * s / (pid.tf * s + 1.0))
+        names.append("c")
     weights = {"b": 1.0, "c": 1.0}
     if cols:
         A = np.stack(cols, axis=1)
@@ -353,17 +380,19 @@ def setpoint_structure(h_sp: Controller, h_pv: Controller) -> SetpointStructure:
             weighted = PidSettings(pid.kp, pid.ki, pid.kd, pid.tf, w["b"], w["c"], pid.action)
     if weighted is not None:
         if weighted.b == 1 and weighted.c == 1:
-            text = ("setpoint and measurement meet as a plain error (setpoint − measurement): "
-                    "b = 1, c = 1")
+            text = "setpoint and measurement meet as a plain error (setpoint − measurement): b = 1, c = 1"
         else:
             d_on = "the measurement only" if weighted.c == 0 else f"the error weighted by c = {weighted.c:.6g}"
-            text = (f"a {weighted.kind} with setpoint weight b = {weighted.b:.6g} on the proportional part"
-                    + (f"; the derivative acts on {d_on}" if weighted.kd > 0 else ""))
+            text = f"a {weighted.kind} with setpoint weight b = {weighted.b:.6g} on the proportional part" + (
+                f"; the derivative acts on {d_on}" if weighted.kd > 0 else ""
+            )
     elif filt.order == 0 and len(filt.num) == 1 and abs(filt.num[0] - 1.0) <= _WEIGHT_RTOL:
         text = "setpoint and measurement meet as a plain error (setpoint − measurement): F(s) = 1"
     else:
-        text = ("the setpoint path is not a weighted form of the feedback PID; the setpoint passes through the "
-                f"general filter F(s) = {filt.expression()} before the error is formed")
+        text = (
+            "the setpoint path is not a weighted form of the feedback PID; the setpoint passes through the "
+            f"general filter F(s) = {filt.expression()} before the error is formed"
+        )
     text += ". The firmware must reproduce this structure (not only the feedback controller)."
     return SetpointStructure(feedback, h_sp.with_name("setpoint path H_sp"), filt, weighted, text)
 
@@ -403,8 +432,12 @@ def check_feedback_sign(netlist: Netlist, inputs, output: str) -> None:
     groups = [[e] for e in amps] if len(amps) <= _CHECK_ONE_BY_ONE else [amps]
     for group in groups:
         names = {e.name for e in group}
-        trial = Netlist(netlist.title, netlist.source,
-                        tuple(finite(e) if e.name in names else e for e in netlist.elements), netlist.notes)
+        trial = Netlist(
+            netlist.title,
+            netlist.source,
+            tuple(finite(e) if e.name in names else e for e in netlist.elements),
+            netlist.notes,
+        )
         try:
             rhp = _rhp_poles(trial, inputs, output)
         except (InputError, ValueError, ArithmeticError):
@@ -412,19 +445,32 @@ def check_feedback_sign(netlist: Netlist, inputs, output: str) -> None:
         if rhp:
             worst = max(rhp, key=lambda p: p.real)
             who = group[0] if len(group) == 1 else None
-            text = (f"{who.name}'s feedback is positive: are its inputs swapped?" if who is not None else
-                    "an op-amp's feedback is positive: are the inputs of one swapped?")
+            text = (
+                f"{who.name}'s feedback is positive: are its inputs swapped?"
+                if who is not None
+                else "an op-amp's feedback is positive: are the inputs of one swapped?"
+            )
             at = f"{worst.real:.4g}" + (f"{worst.imag:+.4g}j" if worst.imag else "")
-            raise InputError(f"{text} With a finite-gain op-amp model (one pole) the card has a pole at "
-                             f"s = {at} rad/s in the right half-plane: its output would "
-                             "run to a rail; the ideal-op-amp transfer function cannot show this",
-                             where=(who or group[0]).where, key=(who or group[0]).name)
+            raise InputError(
+                f"{text} With a finite-gain op-amp model (one pole) the card has a pole at "
+                f"s = {at} rad/s in the right half-plane: its output would "
+                "run to a rail; the ideal-op-amp transfer function cannot show this",
+                where=(who or group[0]).where,
+                key=(who or group[0]).name,
+            )
 
 
-def analyze_card(netlist: Netlist, *, input: str = "VIN", output: str = "out",  # noqa: A002
-                 setpoint: str | None = None, measurement: str | None = None,
-                 with_sensitivities: bool = True, band_hz: tuple[float, float] | None = None,
-                 fs_hz: float | None = None) -> CardAnalysis:
+def analyze_card(
+    netlist: Netlist,
+    *,
+    input: str = "VIN",
+    output: str = "out",  # noqa: A002
+    setpoint: str | None = None,
+    measurement: str | None = None,
+    with_sensitivities: bool = True,
+    band_hz: tuple[float, float] | None = None,
+    fs_hz: float | None = None,
+) -> CardAnalysis:
     """Everything ``loopshift card`` reports about a netlist (names case-insensitive).
 
     Give either ``input`` (one input) or both ``setpoint`` and ``measurement``. ``band_hz``
@@ -465,8 +511,10 @@ def analyze_card(netlist: Netlist, *, input: str = "VIN", output: str = "out",  
         pid = pid_from_controller(controller)
         reason = None if pid is not None else why_not_pid(controller)
         if controller.gain < 0:
-            notes.append("the card inverts (negative gain): fed with the measurement, it acts on the error "
-                         "(setpoint − measurement) as −1 × this controller")
+            notes.append(
+                "the card inverts (negative gain): fed with the measurement, it acts on the error "
+                "(setpoint − measurement) as −1 × this controller"
+            )
     if reduction is not None:
         notes += reduction.notes()
         sp = reductions.get(names[0]) if setpoint is not None else None
@@ -481,15 +529,27 @@ def analyze_card(netlist: Netlist, *, input: str = "VIN", output: str = "out",  
     clamp_lines = clamp_notes(netlist)
     if clamp_lines:  # the per-clamp lines live in ``clamps``; the notes keep the summary and the instruction
         notes += [clamp_lines[0], clamp_lines[-1]]
-    analysis = CardAnalysis(netlist, tuple(names), output, results, controller, pid, reason, structure,
-                            find_clamps(netlist), tuple(notes), output_limits=output_limits(netlist, output),
-                            reduction=reduction,
-                            full_controller=None if reduction is None else reduction.full.with_name(controller.name))
+    analysis = CardAnalysis(
+        netlist,
+        tuple(names),
+        output,
+        results,
+        controller,
+        pid,
+        reason,
+        structure,
+        find_clamps(netlist),
+        tuple(notes),
+        output_limits=output_limits(netlist, output),
+        reduction=reduction,
+        full_controller=None if reduction is None else reduction.full.with_name(controller.name),
+    )
     if not with_sensitivities:
         return analysis
     band = None if reduction is None else reduction.band_hz
-    return replace(analysis, sensitivities=tuple(card_sensitivities(netlist, inputs, output, band_hz=band,
-                                                                    fs_hz=fs_hz)))
+    return replace(
+        analysis, sensitivities=tuple(card_sensitivities(netlist, inputs, output, band_hz=band, fs_hz=fs_hz))
+    )
 
 
 def _leak_note(controller: Controller, pid) -> str | None:
@@ -499,8 +559,10 @@ def _leak_note(controller: Controller, pid) -> str | None:
     p = leaky_integrator_pole(controller)
     if pid is None or p is None:
         return None
-    return (f"the integrator leaks (pole at s = {p:.3g} rad/s, {abs(p) / (2 * np.pi):.3g} Hz, far below every "
-            "other corner; an op-amp's finite gain does this): the PID values treat it as an integrator")
+    return (
+        f"the integrator leaks (pole at s = {p:.3g} rad/s, {abs(p) / (2 * np.pi):.3g} Hz, far below every "
+        "other corner; an op-amp's finite gain does this): the PID values treat it as an integrator"
+    )
 
 
 def setpoint_quantities(st: SetpointStructure) -> dict[str, float]:
@@ -516,8 +578,9 @@ def setpoint_quantities(st: SetpointStructure) -> dict[str, float]:
     return out
 
 
-def card_quantities(netlist: Netlist, inputs, output: str, *, band_hz: tuple[float, float] | None = None,
-                    fs_hz: float | None = None) -> dict[str, float]:
+def card_quantities(
+    netlist: Netlist, inputs, output: str, *, band_hz: tuple[float, float] | None = None, fs_hz: float | None = None
+) -> dict[str, float]:
     """The quantities ``loopshift card`` tracks for a card: gains, corners and PID parameters of the
     controller (the feedback controller of a two-input card, plus its setpoint quantities). With
     ``band_hz`` the op-amps' parasitics are left out first (:func:`reduce_controller`)."""
@@ -538,8 +601,9 @@ def card_quantities(netlist: Netlist, inputs, output: str, *, band_hz: tuple[flo
     return controller_quantities(c, pid_from_controller(c))
 
 
-def card_sensitivities(netlist: Netlist, inputs, output: str, *, band_hz: tuple[float, float] | None = None,
-                       fs_hz: float | None = None):
+def card_sensitivities(
+    netlist: Netlist, inputs, output: str, *, band_hz: tuple[float, float] | None = None, fs_hz: float | None = None
+):
     """Sensitivity rows for a card (see :mod:`convert.circuit.sensitivity`); two ``inputs``
     (setpoint, measurement) make it a two-input card; ``band_hz``/``fs_hz`` as in
     :func:`card_quantities`."""
@@ -571,8 +635,9 @@ def input_candidates(netlist) -> tuple[list, tuple[str, str] | None]:
     return found, guess
 
 
-def two_input_hint(netlist, given_input: str | None, *, spelling: str = "--setpoint {sp} --measurement {pv}"
-                   ) -> str | None:
+def two_input_hint(
+    netlist, given_input: str | None, *, spelling: str = "--setpoint {sp} --measurement {pv}"
+) -> str | None:
     """One sentence naming the sources that look like a two-input card's inputs, or None when
     the card has fewer than two. ``given_input``: the input source the user asked for (if any);
     ``spelling``: how the front end names the two settings (command-line options, case keys)."""

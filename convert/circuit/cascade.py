@@ -93,8 +93,16 @@ class CascadePlan:
         return self.amplifiers + (1 if self.needs_inverter else 0)
 
     def summary(self) -> list[dict]:
-        return [{"stage": i + 1, "topology": s.topology.name, "section": s.controller.expression(5),
-                 "q": s.q, "peak_gain_from_input": s.peak_gain} for i, s in enumerate(self.sections)]
+        return [
+            {
+                "stage": i + 1,
+                "topology": s.topology.name,
+                "section": s.controller.expression(5),
+                "q": s.q,
+                "peak_gain_from_input": s.peak_gain,
+            }
+            for i, s in enumerate(self.sections)
+        ]
 
 
 # ----------------------------------------------------------------------------------- factoring
@@ -150,13 +158,19 @@ def _groups(target: Controller) -> tuple[list[tuple[list, list, list, list]], fl
     rp, cp = _split(p, scale)
     for r in rp:
         if r > 0:
-            raise UnrealizableError(f"the target has a pole in the right half-plane (s = +{r:.4g} rad/s): it is "
-                                    "unstable and no cascade of stable stages realizes it", key="target")
+            raise UnrealizableError(
+                f"the target has a pole in the right half-plane (s = +{r:.4g} rad/s): it is "
+                "unstable and no cascade of stable stages realizes it",
+                key="target",
+            )
     for c in cp:
         if c.real >= -1e-9 * abs(c):
-            raise UnrealizableError(f"the target has poles on or right of the imaginary axis ({c.real:.4g} ± "
-                                    f"{abs(c.imag):.4g}j rad/s); a cascade realizes stable or integrating "
-                                    "controllers only", key="target")
+            raise UnrealizableError(
+                f"the target has poles on or right of the imaginary axis ({c.real:.4g} ± "
+                f"{abs(c.imag):.4g}j rad/s); a cascade realizes stable or integrating "
+                "controllers only",
+                key="target",
+            )
     groups: list[tuple[list, list, list, list]] = []
     rz = sorted(rz, key=abs)
     cz = sorted(cz, key=abs)
@@ -179,8 +193,11 @@ def _groups(target: Controller) -> tuple[list[tuple[list, list, list, list]], fl
     # complex zeros with no complex poles left: two real poles (non-integrating first) each
     for zpair in cz:
         if len(rp) < 2:
-            raise UnrealizableError("the target has more complex zeros than a cascade can place: each complex zero "
-                                    "pair needs two poles in its section", key="target")
+            raise UnrealizableError(
+                "the target has more complex zeros than a cascade can place: each complex zero "
+                "pair needs two poles in its section",
+                key="target",
+            )
         chosen = sorted(rp, key=lambda r: (r == 0.0, _dist(r, zpair)))[:2]
         for r in chosen:
             rp.remove(r)
@@ -190,14 +207,17 @@ def _groups(target: Controller) -> tuple[list[tuple[list, list, list, list]], fl
         zr = []
         candidates = [r for r in rz if r != 0.0 or pole != 0.0]
         if candidates:
-            pick = min(candidates, key=lambda z0: (_dist(z0, pole) if pole != 0.0 else abs(z0)))
+            pick = min(candidates, key=lambda z0: _dist(z0, pole) if pole != 0.0 else abs(z0))
             rz.remove(pick)
             zr = [pick]
         groups.append((zr, [], [pole], []))
     if rz:
         if len(rz) > 1 or not groups:
-            raise UnrealizableError(f"the target has {len(rz)} real zero(s) no pole is left to pair with; a stage "
-                                    "realizes at most as many zeros as poles", key="target")
+            raise UnrealizableError(
+                f"the target has {len(rz)} real zero(s) no pole is left to pair with; a stage "
+                "realizes at most as many zeros as poles",
+                key="target",
+            )
         # one zero left: it joins a first-order section that has none (a lag becomes a lead/lag)
         for i, (zr, zc, pr, pc) in enumerate(groups):
             if not zr and not zc and len(pr) + 2 * len(pc) > len(zr):
@@ -280,15 +300,15 @@ def stage_peaks(design) -> dict[str, float]:
     return {st.amp: float(np.max(np.abs(nodes[st.output]))) for st in topo.stages}
 
 
-def plan_cascade(target: Controller, band_hz: tuple[float, float], *, max_opamps: int | None = None
-                 ) -> CascadePlan:
+def plan_cascade(target: Controller, band_hz: tuple[float, float], *, max_opamps: int | None = None) -> CascadePlan:
     """Sections, their stages, order and gains for an analog proper ``target`` (see the module
     docstring). ``band_hz`` is where peak gains are taken. Raises UnrealizableError."""
     return plan_cascades(target, band_hz, max_opamps=max_opamps)[0]
 
 
-def plan_cascades(target: Controller, band_hz: tuple[float, float], *, max_opamps: int | None = None,
-                  merge: bool = True) -> list[CascadePlan]:
+def plan_cascades(
+    target: Controller, band_hz: tuple[float, float], *, max_opamps: int | None = None, merge: bool = True
+) -> list[CascadePlan]:
     """The plans of :func:`plan_cascade`, best first: the same sections in the orders with the
     smallest noise gain (at most :data:`MAX_PLANS`), for the part search to fall back on.
     ``merge=False`` skips step 3 (one stage per section: more op-amps, more freedom in gains)."""
@@ -354,10 +374,13 @@ def plan_cascades(target: Controller, band_hz: tuple[float, float], *, max_opamp
         plans.append(CascadePlan(tuple(sections), sign, float(noise), (float(band_hz[0]), float(band_hz[1]))))
     plan = plans[0]
     if max_opamps is not None and plan.total_amplifiers > max_opamps:
-        raise UnrealizableError(f"the cascade needs {plan.total_amplifiers} op-amps "
-                                f"({', '.join(s.topology.name for s in plan.sections)}"
-                                f"{' and a unity inverter' if plan.needs_inverter else ''}), more than the cap of "
-                                f"{max_opamps}", key="max opamps")
+        raise UnrealizableError(
+            f"the cascade needs {plan.total_amplifiers} op-amps "
+            f"({', '.join(s.topology.name for s in plan.sections)}"
+            f"{' and a unity inverter' if plan.needs_inverter else ''}), more than the cap of "
+            f"{max_opamps}",
+            key="max opamps",
+        )
     return plans
 
 
@@ -419,11 +442,21 @@ def cascade_topology(stages: list[Topology], w_ref: float | None = None) -> tupl
 
         for st in topo.stages:
             amp += 1
-            plus = None if st.plus is None else (node(st.plus[0]), _rename_net(st.plus[1], names),
-                                                 _rename_net(st.plus[2], names))
-            new_stages.append(Stage(f"U{amp}", node(st.output), _rename_net(st.feedback, names),
-                                    tuple((node(src), _rename_net(net, names)) for src, net in st.inputs),
-                                    plus, role=f"stage {k} {st.role}"))
+            plus = (
+                None
+                if st.plus is None
+                else (node(st.plus[0]), _rename_net(st.plus[1], names), _rename_net(st.plus[2], names))
+            )
+            new_stages.append(
+                Stage(
+                    f"U{amp}",
+                    node(st.output),
+                    _rename_net(st.feedback, names),
+                    tuple((node(src), _rename_net(net, names)) for src, net in st.inputs),
+                    plus,
+                    role=f"stage {k} {st.role}",
+                )
+            )
         previous = nodes[local_out]
 
     def coefficients(p):
@@ -449,19 +482,30 @@ def cascade_topology(stages: list[Topology], w_ref: float | None = None) -> tupl
         return out
 
     def fit(topo, shape, settings):
-        raise UnrealizableError("a cascade is designed from its target by loopshift circuit (--topology auto or "
-                                "cascade), not fitted as one stage", key="topology")
+        raise UnrealizableError(
+            "a cascade is designed from its target by loopshift circuit (--topology auto or "
+            "cascade), not fitted as one stage",
+            key="topology",
+        )
 
     inverting = sum(1 for t in stages if t.inverting) % 2 == 1
     topo = Topology(
         name="cascade",
         description=f"cascade of {len(stages)} stage{'s' if len(stages) != 1 else ''}: "
-                    + ", ".join(t.name for t in stages),
-        parts=tuple(parts), stages=tuple(new_stages), inverting=inverting,
+        + ", ".join(t.name for t in stages),
+        parts=tuple(parts),
+        stages=tuple(new_stages),
+        inverting=inverting,
         represents="the product of its stages' transfer functions",
-        equations=tuple(f"stage {k}: {_renamed(eq, names)}" for k, (t, names) in enumerate(zip(stages, maps), start=1)
-                        for eq in t.equations),
-        _coefficients=coefficients, _parameters=parameters, _fit=fit)
+        equations=tuple(
+            f"stage {k}: {_renamed(eq, names)}"
+            for k, (t, names) in enumerate(zip(stages, maps), start=1)
+            for eq in t.equations
+        ),
+        _coefficients=coefficients,
+        _parameters=parameters,
+        _fit=fit,
+    )
     return topo, maps
 
 
@@ -517,10 +561,16 @@ def _build(plan: CascadePlan, options, f: np.ndarray, strict: bool):
             break
         if found is None:
             if last is None:
-                raise UnrealizableError(f"cascade stage {k} ({section.topology.name}) has no gain left that keeps its "
-                                        "output below the input's and output's peak", key="topology")
-            raise UnrealizableError(f"cascade stage {k} ({section.topology.name}, {section.controller.expression(4)}): "
-                                    f"{last.message}", key=last.key, settings=last.settings)
+                raise UnrealizableError(
+                    f"cascade stage {k} ({section.topology.name}) has no gain left that keeps its "
+                    "output below the input's and output's peak",
+                    key="topology",
+                )
+            raise UnrealizableError(
+                f"cascade stage {k} ({section.topology.name}, {section.controller.expression(4)}): {last.message}",
+                key=last.key,
+                settings=last.settings,
+            )
         q, cands, diag = found
         for local, glob in names.items():
             rounded[glob] = cands[0].parts[local]
@@ -529,8 +579,15 @@ def _build(plan: CascadePlan, options, f: np.ndarray, strict: bool):
     return topo, rounded, nominal, params, shifted
 
 
-def design_cascade(target: Controller, options, *, source: Controller | None = None, filtered=None,
-                   notes: list[str] | None = None, band_hz: tuple[float, float] | None = None):
+def design_cascade(
+    target: Controller,
+    options,
+    *,
+    source: Controller | None = None,
+    filtered=None,
+    notes: list[str] | None = None,
+    band_hz: tuple[float, float] | None = None,
+):
     """A :class:`~convert.circuit.design.CircuitDesign` whose topology is the cascade of
     :func:`plan_cascade`: each section's parts searched over the series on its own (the log error of
     a product is the sum of the sections' log errors), then joined and scored as one circuit. When a
@@ -543,8 +600,11 @@ def design_cascade(target: Controller, options, *, source: Controller | None = N
     f = np.logspace(math.log10(band[0]), math.log10(band[1]), max(options.points, 2))
     built, first_error = None, None
     try:
-        unmerged = [p for p in plan_cascades(target, band, max_opamps=options.max_opamps, merge=False)
-                    if p.amplifiers > plans[0].amplifiers]
+        unmerged = [
+            p
+            for p in plan_cascades(target, band, max_opamps=options.max_opamps, merge=False)
+            if p.amplifiers > plans[0].amplifiers
+        ]
     except UnrealizableError:  # over the op-amp cap
         unmerged = []
     for strict, tries in ((True, plans), (True, unmerged), (False, plans[:1])):
@@ -569,28 +629,55 @@ def design_cascade(target: Controller, options, *, source: Controller | None = N
     notes = list(notes or [])
     n_st = len(plan.sections)
     stages_text = f"{n_st} stage{'s' if n_st != 1 else ''} on {plan.total_amplifiers} op-amp" + (
-        "s" if plan.total_amplifiers != 1 else "")
-    why = ("a cascade was asked for (topology cascade)" if options.topology.lower() == "cascade"
-           else "no single catalog stage realizes this target")
-    notes.append(f"{why}; a cascade of {stages_text} does: " + "; ".join(
-        f"stage {i} {s.topology.name} {s.controller.expression(4)}" for i, s in enumerate(plan.sections, start=1)))
+        "s" if plan.total_amplifiers != 1 else ""
+    )
+    why = (
+        "a cascade was asked for (topology cascade)"
+        if options.topology.lower() == "cascade"
+        else "no single catalog stage realizes this target"
+    )
+    notes.append(
+        f"{why}; a cascade of {stages_text} does: "
+        + "; ".join(
+            f"stage {i} {s.topology.name} {s.controller.expression(4)}" for i, s in enumerate(plan.sections, start=1)
+        )
+    )
     if n_st > 1:  # one stage feeds no other: no noise gain between stages to report
-        notes.append("stage gains scaled so that every stage output peaks at the output's peak gain over the band "
-                     f"({plan.sections[-1].peak_gain:.4g} V/V); noise gain (sum of peak gains from each stage "
-                     f"output to the output) {plan.noise_gain:.4g}")
+        notes.append(
+            "stage gains scaled so that every stage output peaks at the output's peak gain over the band "
+            f"({plan.sections[-1].peak_gain:.4g} V/V); noise gain (sum of peak gains from each stage "
+            f"output to the output) {plan.noise_gain:.4g}"
+        )
     for k, x in shifted:
         notes.append(f"stage {k}'s gain moved by a factor {x:.4g} from the equal-peak plan to keep its parts in range")
     if not strict:
-        notes.append("CAUTION: no stage order keeps every stage output within the input's and output's peak with "
-                     "parts in range; check the peak gains below against the swing for your input range")
+        notes.append(
+            "CAUTION: no stage order keeps every stage output within the input's and output's peak with "
+            "parts in range; check the peak gains below against the swing for your input range"
+        )
     if needs_inverter:
         notes.append("the stages' signs multiply to the opposite of the target's; a unity inverter follows them")
-    design = CircuitDesign(topology=topo, source=source or target, target=target, sign=sign,
-                           needs_inverter=needs_inverter, params=params, nominal=nominal, rounded=rounded,
-                           realized=realized, band_hz=(float(band[0]), float(band[1])), candidates=[best],
-                           options=options, notes=notes, filter_added=filtered, cascade=plan)
+    design = CircuitDesign(
+        topology=topo,
+        source=source or target,
+        target=target,
+        sign=sign,
+        needs_inverter=needs_inverter,
+        params=params,
+        nominal=nominal,
+        rounded=rounded,
+        realized=realized,
+        band_hz=(float(band[0]), float(band[1])),
+        candidates=[best],
+        options=options,
+        notes=notes,
+        filter_added=filtered,
+        cascade=plan,
+    )
     peaks = stage_peaks(design)
-    notes.append("peak gain from the input at each op-amp output over the band (ideal op-amps): "
-                 + ", ".join(f"{amp} {v:.3g}" for amp, v in peaks.items())
-                 + "; give an input amplitude and the rail to check each against the swing")
+    notes.append(
+        "peak gain from the input at each op-amp output over the band (ideal op-amps): "
+        + ", ".join(f"{amp} {v:.3g}" for amp, v in peaks.items())
+        + "; give an input amplitude and the rail to check each against the swing"
+    )
     return design

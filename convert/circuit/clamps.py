@@ -118,16 +118,19 @@ def find_clamps(netlist: Netlist) -> tuple[Clamp, ...]:
             if d.name in used:
                 break
         end_b = current
-        clamps.append(Clamp(tuple(x.name for x in ordered), end_a, end_b, pos, neg,
-                            _role(end_a, end_b, opamps), ordered[0].where))
+        clamps.append(
+            Clamp(tuple(x.name for x in ordered), end_a, end_b, pos, neg, _role(end_a, end_b, opamps), ordered[0].where)
+        )
     return tuple(clamps)
 
 
 def _role(a: str, b: str, opamps) -> str:
     for op in opamps:
         if {a, b} == {op.nodes[2], op.nodes[1]}:
-            return (f"across the feedback of {op.name} (output {op.nodes[2]} to inverting input {op.nodes[1]}): "
-                    "limits that stage's output swing, so its integrator cannot wind up beyond it")
+            return (
+                f"across the feedback of {op.name} (output {op.nodes[2]} to inverting input {op.nodes[1]}): "
+                "limits that stage's output swing, so its integrator cannot wind up beyond it"
+            )
     if GROUND in (a, b):
         other = b if a == GROUND else a
         return f"from node {other} to ground: limits V({other})"
@@ -142,8 +145,10 @@ def clamp_notes(netlist: Netlist) -> list[str]:
     names = ", ".join(d.name for d in netlist.diodes)
     lines = [f"diodes {names} are left out of the linear analysis (they conduct only at the limits)"]
     lines += [c.describe() for c in clamps]
-    lines.append("the firmware must reproduce these limits as output limits with anti-windup "
-                 "(forward drop taken as 0.65 V, range 0.6–0.7 V; zener voltage from the model's BV)")
+    lines.append(
+        "the firmware must reproduce these limits as output limits with anti-windup "
+        "(forward drop taken as 0.65 V, range 0.6–0.7 V; zener voltage from the model's BV)"
+    )
     return lines
 
 

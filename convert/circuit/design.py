@@ -29,12 +29,12 @@ from __future__ import annotations
 import itertools
 import math
 from dataclasses import dataclass, field
-from typing import Mapping
+from collections.abc import Mapping
 
 import numpy as np
 
 from convert.circuit import series as es
-from convert.circuit.topologies import (AUTO_ORDER, TargetShape, Topology, analyse_target, get_topology)
+from convert.circuit.topologies import AUTO_ORDER, TargetShape, Topology, analyse_target, get_topology
 from convert.controller import Controller
 from convert.errors import InputError, UnrealizableError
 
@@ -64,18 +64,22 @@ class DesignOptions:
         object.__setattr__(self, "capacitors", es.normalize_name(self.capacitors, key="capacitors"))
         for lo, hi, what in ((self.r_min, self.r_max, "resistor"), (self.c_min, self.c_max, "capacitor")):
             if not (lo > 0 and hi > 0 and math.isfinite(lo) and math.isfinite(hi)):
-                raise InputError(f"the {what} range needs positive finite limits, found {lo!r} .. {hi!r}",
-                                 key=f"{what} range")
+                raise InputError(
+                    f"the {what} range needs positive finite limits, found {lo!r} .. {hi!r}", key=f"{what} range"
+                )
             if lo > hi:
                 raise InputError(f"the {what} range minimum {lo:g} is above its maximum {hi:g}", key=f"{what} range")
         if self.band_hz is not None and not (0 < self.band_hz[0] < self.band_hz[1]):
             raise InputError(f"a band needs 0 < low < high, found {self.band_hz!r}", key="band")
         if self.max_opamps is not None and not (isinstance(self.max_opamps, int) and self.max_opamps >= 1):
-            raise InputError(f"the op-amp cap must be a whole number of at least 1, found {self.max_opamps!r}",
-                             key="max opamps")
+            raise InputError(
+                f"the op-amp cap must be a whole number of at least 1, found {self.max_opamps!r}", key="max opamps"
+            )
         if not self.derivative_filter_n > 0:
-            raise InputError(f"the derivative filter ratio N must be positive, found {self.derivative_filter_n!r}",
-                             key="derivative filter")
+            raise InputError(
+                f"the derivative filter ratio N must be positive, found {self.derivative_filter_n!r}",
+                key="derivative filter",
+            )
 
     def series_for(self, kind: str) -> str:
         return self.resistors if kind == "R" else self.capacitors
@@ -94,8 +98,12 @@ class Candidate:
     max_phase_error_deg: float
 
     def summary(self) -> dict:
-        return {"parts": self.parts, "score": self.score, "max_gain_error_db": self.max_gain_error_db,
-                "max_phase_error_deg": self.max_phase_error_deg}
+        return {
+            "parts": self.parts,
+            "score": self.score,
+            "max_gain_error_db": self.max_gain_error_db,
+            "max_phase_error_deg": self.max_phase_error_deg,
+        }
 
 
 @dataclass(frozen=True)
@@ -160,8 +168,11 @@ def prepare_target(controller: Controller, options: DesignOptions) -> tuple[Cont
         try:
             from convert.digital import read_analog
         except ImportError:
-            raise UnrealizableError("a digital target needs convert.digital.to_analog, which is not available in "
-                                    "this build; give the analog controller instead", key="target") from None
+            raise UnrealizableError(
+                "a digital target needs convert.digital.to_analog, which is not available in "
+                "this build; give the analog controller instead",
+                key="target",
+            ) from None
         reading = read_analog(c, options.inverse_method)
         c = reading.controller
         notes.append(f"digital target brought back to analog with the inverse {options.inverse_method} method")
@@ -169,11 +180,16 @@ def prepare_target(controller: Controller, options: DesignOptions) -> tuple[Cont
     filtered = None
     if not c.is_proper:
         if c.relative_degree < -1:
-            raise UnrealizableError(f"the target has {-c.relative_degree} more zeros than poles; an op-amp stage "
-                                    "realizes at most one extra zero (with a derivative filter)", key="target")
+            raise UnrealizableError(
+                f"the target has {-c.relative_degree} more zeros than poles; an op-amp stage "
+                "realizes at most one extra zero (with a derivative filter)",
+                key="target",
+            )
         filtered = add_derivative_filter(c, options.derivative_filter_n)
-        notes.append(f"the target is improper (ideal derivative); the circuit adds a derivative filter with "
-                     f"time constant Td/N, N = {options.derivative_filter_n:g}")
+        notes.append(
+            f"the target is improper (ideal derivative); the circuit adds a derivative filter with "
+            f"time constant Td/N, N = {options.derivative_filter_n:g}"
+        )
     return (filtered or c), (filtered if filtered is not None else None), notes
 
 
@@ -194,9 +210,11 @@ def add_derivative_filter(controller: Controller, n: float) -> Controller:
     zeros = controller.zeros()
     top = float(np.max(np.abs(zeros))) if zeros.size else 1.0
     if not top > 0:
-        raise UnrealizableError("a pure differentiator (its zeros all at s = 0) has no corner to place the derivative "
-                                "filter pole from; write the filter into the controller, e.g. 2*s/(0.01*s + 1)",
-                                key="target")
+        raise UnrealizableError(
+            "a pure differentiator (its zeros all at s = 0) has no corner to place the derivative "
+            "filter pole from; write the filter into the controller, e.g. 2*s/(0.01*s + 1)",
+            key="target",
+        )
     tf = 1.0 / (n * top)
     return Controller.analog(controller.num, np.polymul(controller.den, [tf, 1.0]), controller.name)
 
@@ -232,9 +250,12 @@ def choose_topology(target: Controller, options: DesignOptions, settings=None) -
         except UnrealizableError as exc:
             reasons.append(exc.message)
     shape = analyse_target(target)
-    raise UnrealizableError(f"no catalog topology realizes this target exactly ({shape.describe()}); "
-                            "the catalog covers P, I, PI, first-order lag, lead/lag, PD and PID with a derivative "
-                            "filter", key="topology")
+    raise UnrealizableError(
+        f"no catalog topology realizes this target exactly ({shape.describe()}); "
+        "the catalog covers P, I, PI, first-order lag, lead/lag, PD and PID with a derivative "
+        "filter",
+        key="topology",
+    )
 
 
 # ----------------------------------------------------------------------------------- search
@@ -258,9 +279,14 @@ def _is_open(topo: Topology, name: str, values: np.ndarray) -> bool:
 def rounded_names(topo: Topology, nominal: Mapping[str, np.ndarray]) -> list[str]:
     """Parts the search rounds: neither free, fixed, a copy, nor left open."""
     copies = {c for c, _ in topo.equal_parts}
-    return [p.name for p in topo.parts
-            if p.name not in topo.free_parts and p.name not in topo.fixed_parts and p.name not in copies
-            and not _is_open(topo, p.name, nominal[p.name])]
+    return [
+        p.name
+        for p in topo.parts
+        if p.name not in topo.free_parts
+        and p.name not in topo.fixed_parts
+        and p.name not in copies
+        and not _is_open(topo, p.name, nominal[p.name])
+    ]
 
 
 def _in_range(topo: Topology, parts: Mapping[str, np.ndarray], options: DesignOptions) -> np.ndarray:
@@ -275,8 +301,9 @@ def _in_range(topo: Topology, parts: Mapping[str, np.ndarray], options: DesignOp
     return ok
 
 
-def score_parts(topo: Topology, parts: Mapping[str, np.ndarray], f_hz: np.ndarray, reference: np.ndarray,
-                chunk: int = 20000) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def score_parts(
+    topo: Topology, parts: Mapping[str, np.ndarray], f_hz: np.ndarray, reference: np.ndarray, chunk: int = 20000
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """(score, max |gain error| dB, max |phase error| deg) per part set; reference = F target over f_hz."""
     n = np.broadcast_shapes(*[np.shape(v) for v in parts.values()])[0] if parts else 1
     scores = np.empty(n)
@@ -284,7 +311,9 @@ def score_parts(topo: Topology, parts: Mapping[str, np.ndarray], f_hz: np.ndarra
     pdeg = np.empty(n)
     for i in range(0, n, chunk):
         sl = slice(i, min(n, i + chunk))
-        sub = {k: (np.asarray(v)[sl] if np.ndim(v) else np.full(sl.stop - sl.start, float(v))) for k, v in parts.items()}
+        sub = {
+            k: (np.asarray(v)[sl] if np.ndim(v) else np.full(sl.stop - sl.start, float(v))) for k, v in parts.items()
+        }
         with np.errstate(divide="ignore", invalid="ignore"):
             logr = np.log(topo.response(sub, f_hz) / reference)
         logr = np.nan_to_num(logr, nan=1e3, posinf=1e3, neginf=-1e3)
@@ -294,12 +323,15 @@ def score_parts(topo: Topology, parts: Mapping[str, np.ndarray], f_hz: np.ndarra
     return scores, gdb, pdeg
 
 
-def expand_roundings(topo: Topology, nominal: Mapping[str, np.ndarray], options: DesignOptions,
-                     names: list[str] | None = None) -> dict[str, np.ndarray]:
+def expand_roundings(
+    topo: Topology, nominal: Mapping[str, np.ndarray], options: DesignOptions, names: list[str] | None = None
+) -> dict[str, np.ndarray]:
     """Every down/up rounding of ``names`` for every row of ``nominal`` -> flat candidate arrays."""
     names = rounded_names(topo, nominal) if names is None else names
     m = np.broadcast_shapes(*[np.shape(v) for v in nominal.values()])[0]
-    combos = np.array(list(itertools.product((0, 1), repeat=len(names))), dtype=int).reshape(2 ** len(names), len(names))
+    combos = np.array(list(itertools.product((0, 1), repeat=len(names))), dtype=int).reshape(
+        2 ** len(names), len(names)
+    )
     out = {}
     for k, v in nominal.items():
         out[k] = np.repeat(np.broadcast_to(np.asarray(v, dtype=float), (m,)), combos.shape[0])
@@ -312,8 +344,9 @@ def expand_roundings(topo: Topology, nominal: Mapping[str, np.ndarray], options:
     return out
 
 
-def search_parts(topo: Topology, params: Mapping[str, float], options: DesignOptions, f_hz: np.ndarray,
-                 reference: np.ndarray) -> tuple[list[Candidate], dict]:
+def search_parts(
+    topo: Topology, params: Mapping[str, float], options: DesignOptions, f_hz: np.ndarray, reference: np.ndarray
+) -> tuple[list[Candidate], dict]:
     """Best part sets for one set of design quantities: (candidates sorted by score, diagnostics).
 
     Raises UnrealizableError naming the part that is out of range when no choice is in range.
@@ -391,8 +424,10 @@ def _out_of_range(topo: Topology, parts: Mapping[str, np.ndarray], options: Desi
     above = value > hi
     limit = format_value(hi if above else lo, kind)
     shown = format_value(value, kind) if math.isfinite(value) and value > 0 else repr(value)
-    free = ", ".join(f"{k} = {format_value(float(np.broadcast_to(parts[k], (n,))[best]), topo.part(k).unit_kind)}"
-                     for k in topo.free_parts)
+    free = ", ".join(
+        f"{k} = {format_value(float(np.broadcast_to(parts[k], (n,))[best]), topo.part(k).unit_kind)}"
+        for k in topo.free_parts
+    )
     what = "resistor" if part.kind == "R" else "capacitor"
     bound = f"{what} {'maximum' if above else 'minimum'}"
     change = f"{'raise' if above else 'lower'} the {bound}"
@@ -400,14 +435,22 @@ def _out_of_range(topo: Topology, parts: Mapping[str, np.ndarray], options: Desi
     return UnrealizableError(
         f"{topo.name}: {worst} ({part.role}) would be {shown}, {'above' if above else 'below'} the {bound} {limit} "
         f"even with the best choice ({free}); {change}, or widen the {other}, or rescale the target (its gain or "
-        "time constants)", key=f"{what} range", settings=(bound, other))
+        "time constants)",
+        key=f"{what} range",
+        settings=(bound, other),
+    )
 
 
 # ----------------------------------------------------------------------------------- design
 
 
-def design_circuit(controller: Controller, options: DesignOptions | None = None, *, settings=None,
-                   series_times: tuple[float, float] | None = None) -> CircuitDesign:
+def design_circuit(
+    controller: Controller,
+    options: DesignOptions | None = None,
+    *,
+    settings=None,
+    series_times: tuple[float, float] | None = None,
+) -> CircuitDesign:
     """Design the circuit for ``controller`` (see the module docstring). ``settings``: the
     :class:`convert.pid.PidSettings` it came from, if any (needed for setpoint weights).
     ``series_times``: (Ti′, Td′) in seconds as the user gave a series PID, when ``settings`` is
@@ -421,8 +464,10 @@ def design_circuit(controller: Controller, options: DesignOptions | None = None,
 
         settings = dataclasses.replace(settings, tf=settings.kd / settings.kp / options.derivative_filter_n)
         controller = settings.to_controller()
-        pre_notes.append(f"the PID has no derivative filter; the circuit adds tf = td/N with N = "
-                         f"{options.derivative_filter_n:g} (tf = {settings.tf:.4g} s)")
+        pre_notes.append(
+            f"the PID has no derivative filter; the circuit adds tf = td/N with N = "
+            f"{options.derivative_filter_n:g} (tf = {settings.tf:.4g} s)"
+        )
     target, filtered, notes = prepare_target(controller, options)
     notes = pre_notes + notes
     if pre_notes:
@@ -433,10 +478,13 @@ def design_circuit(controller: Controller, options: DesignOptions | None = None,
         return design_cascade(target, options, source=source, filtered=filtered, notes=notes)
     try:
         topo, alternatives = choose_topology(target, options, settings)
-        if options.max_opamps is not None and topo.amplifiers + (topo.sign != analyse_target(target).sign) \
-                > options.max_opamps:
-            raise UnrealizableError(f"{topo.name} needs more op-amps than the cap of {options.max_opamps}",
-                                    key="max opamps")
+        if (
+            options.max_opamps is not None
+            and topo.amplifiers + (topo.sign != analyse_target(target).sign) > options.max_opamps
+        ):
+            raise UnrealizableError(
+                f"{topo.name} needs more op-amps than the cap of {options.max_opamps}", key="max opamps"
+            )
     except UnrealizableError as exc:
         weighted = settings is not None and (settings.b != 1 or settings.c != 1)
         if options.topology.lower() != "auto" or exc.key not in ("topology", "max opamps") or weighted:
@@ -448,8 +496,9 @@ def design_circuit(controller: Controller, options: DesignOptions | None = None,
         except UnrealizableError as cascade_exc:
             if exc.key == "max opamps" or cascade_exc.key in ("max opamps", "resistor range", "capacitor range"):
                 raise cascade_exc from None
-            raise UnrealizableError(f"{exc.message}; nor does a cascade of catalog stages: {cascade_exc.message}",
-                                    key="topology") from None
+            raise UnrealizableError(
+                f"{exc.message}; nor does a cascade of catalog stages: {cascade_exc.message}", key="topology"
+            ) from None
     shape: TargetShape = analyse_target(target)
     sign = shape.sign
     band = options.band_hz or default_band(target)
@@ -479,12 +528,27 @@ def design_circuit(controller: Controller, options: DesignOptions | None = None,
     realized = topo.controller_from_parts(rounded).scaled(sign).with_name(f"{topo.name} (rounded parts)")
     needs_inverter = topo.sign != sign
     if needs_inverter:
-        notes.append(f"{topo.name} is {'inverting' if topo.inverting else 'non-inverting'}; a unity inverter after it "
-                     "gives the target's sign")
-    return CircuitDesign(topology=topo, source=source, target=target, sign=sign, needs_inverter=needs_inverter,
-                         params=dict(best_params), nominal=best_nominal, rounded=rounded, realized=realized,
-                         band_hz=(float(band[0]), float(band[1])), candidates=best, options=options, notes=notes,
-                         filter_added=filtered, settings=settings)
+        notes.append(
+            f"{topo.name} is {'inverting' if topo.inverting else 'non-inverting'}; a unity inverter after it "
+            "gives the target's sign"
+        )
+    return CircuitDesign(
+        topology=topo,
+        source=source,
+        target=target,
+        sign=sign,
+        needs_inverter=needs_inverter,
+        params=dict(best_params),
+        nominal=best_nominal,
+        rounded=rounded,
+        realized=realized,
+        band_hz=(float(band[0]), float(band[1])),
+        candidates=best,
+        options=options,
+        notes=notes,
+        filter_added=filtered,
+        settings=settings,
+    )
 
 
 def _figures_off_grid(topo: Topology, target: Controller, sign: int, cands: list, f_hz: np.ndarray) -> list:
@@ -529,8 +593,11 @@ def _preferred_first(alternatives: list[dict], settings, series_times=None) -> t
         want, given = series_times[0], True
     if want:
         ordered = sorted(alternatives, key=lambda a: abs(math.log(a["ti'"] / want)))
-        how = ("the series settings as given" if given
-               else "the series form `loopshift show` prints for these settings (Ti′ ≥ Td′)")
+        how = (
+            "the series settings as given"
+            if given
+            else "the series form `loopshift show` prints for these settings (Ti′ ≥ Td′)"
+        )
     else:
         ordered = sorted(alternatives, key=lambda a: -a["ti'"])
         how = "the series form `loopshift show` prints (Ti′ ≥ Td′)"
@@ -541,24 +608,37 @@ def _assignment_notes(wanted_params: dict, found: list, how: str) -> list[str]:
     """Say which assignment of Ti′/Td′ the parts realize, and when the other one gives better parts."""
     chosen_params, chosen, _ = found[0]
     if chosen_params is not wanted_params:
-        return [f"the series times as in {how} ({_series_text(wanted_params)}) need parts out of range; the other "
-                f"assignment of the same transfer function is built: {_series_text(chosen_params)}"]
+        return [
+            f"the series times as in {how} ({_series_text(wanted_params)}) need parts out of range; the other "
+            f"assignment of the same transfer function is built: {_series_text(chosen_params)}"
+        ]
     notes = [f"series PID: the parts set {_series_text(chosen_params)}, as in {how}"]
     for params, cands, _ in found[1:]:
         if cands[0].score < chosen[0].score:
-            notes.append(f"the other assignment of the same transfer function ({_series_text(params)}) gives better "
-                         f"parts: {cands[0].max_gain_error_db:.3g} dB / {cands[0].max_phase_error_deg:.3g}° against "
-                         f"{chosen[0].max_gain_error_db:.3g} dB / {chosen[0].max_phase_error_deg:.3g}° after rounding; "
-                         "give the settings in that assignment to build it")
+            notes.append(
+                f"the other assignment of the same transfer function ({_series_text(params)}) gives better "
+                f"parts: {cands[0].max_gain_error_db:.3g} dB / {cands[0].max_phase_error_deg:.3g}° against "
+                f"{chosen[0].max_gain_error_db:.3g} dB / {chosen[0].max_phase_error_deg:.3g}° after rounding; "
+                "give the settings in that assignment to build it"
+            )
     return notes
 
 
 # ----------------------------------------------------------------------------------- error sources
 
 
-def error_sources(design: CircuitDesign, *, tolerances: Mapping[str, float] | None = None, draws: int | None = None,
-                  seed: int = 1, distribution: str | None = None, opamp=None, amplitude_v: float | None = None,
-                  rail_v: float | None = None, points_per_decade: int = 50) -> dict:
+def error_sources(
+    design: CircuitDesign,
+    *,
+    tolerances: Mapping[str, float] | None = None,
+    draws: int | None = None,
+    seed: int = 1,
+    distribution: str | None = None,
+    opamp=None,
+    amplitude_v: float | None = None,
+    rail_v: float | None = None,
+    points_per_decade: int = 50,
+) -> dict:
     """Each error source alone, over the design's band, as plain numbers (dB, degrees, Hz).
 
     Rows: ``rounding`` (series values: response error, design quantities, corners),
@@ -596,13 +676,18 @@ def error_sources(design: CircuitDesign, *, tolerances: Mapping[str, float] | No
     out["rounding"] = {"response": rounding, "quantities": qerr, "corners": corners, "gains": gain}
     if design.filter_added is not None:
         fe = compare_controllers(design.source, design.target, f).summary()
-        out["derivative_filter"] = {"response": fe, "note": "the target as given vs the target with the circuit's filter"}
+        out["derivative_filter"] = {
+            "response": fe,
+            "note": "the target as given vs the target with the circuit's filter",
+        }
     if design.topology.two_input and design.settings is not None:
         sp_t = design.settings.setpoint_controller()
         sp_r = topo.paths_from_parts(design.rounded)["setpoint"].scaled(design.sign)
-        out["setpoint_path"] = {"response": compare_controllers(sp_t, sp_r, f).summary(),
-                                "target": {"num": list(sp_t.num), "den": list(sp_t.den)},
-                                "realized": {"num": list(sp_r.num), "den": list(sp_r.den)}}
+        out["setpoint_path"] = {
+            "response": compare_controllers(sp_t, sp_r, f).summary(),
+            "target": {"num": list(sp_t.num), "den": list(sp_t.den)},
+            "realized": {"num": list(sp_r.num), "den": list(sp_r.den)},
+        }
     tol = dict(DEFAULT_TOLERANCES if tolerances is None else tolerances)
     if draws != 0:
         mc = tolerance_run(design, tol, draws=draws, seed=seed, distribution=distribution)
@@ -612,17 +697,27 @@ def error_sources(design: CircuitDesign, *, tolerances: Mapping[str, float] | No
         parts = {k: np.asarray(v) for k, v in design.rounded.items()}
         real = gbw_response(topo, parts, f, opamp)
         ideal = topo.response({k: np.asarray([v]) for k, v in design.rounded.items()}, f)[0]
-        out["opamp"] = {"gbw_hz": opamp.gbw_hz, "a0": opamp.a0,
-                        "response": compare_responses(ideal, np.asarray(real).reshape(-1), f).summary()}
+        out["opamp"] = {
+            "gbw_hz": opamp.gbw_hz,
+            "a0": opamp.a0,
+            "response": compare_responses(ideal, np.asarray(real).reshape(-1), f).summary(),
+        }
     if amplitude_v is not None and rail_v is not None:
-        sw = swing_check(topo, {k: np.asarray(v) for k, v in design.rounded.items()}, f, amplitude_v, rail_v,
-                         opamp or OpAmpModel())
+        sw = swing_check(
+            topo, {k: np.asarray(v) for k, v in design.rounded.items()}, f, amplitude_v, rail_v, opamp or OpAmpModel()
+        )
         out.setdefault("opamp", {})["swing"] = sw.summary()
     return out
 
 
-def tolerance_run(design: CircuitDesign, tolerances: Mapping[str, float], *, draws: int | None = None, seed: int = 1,
-                  distribution: str | None = None):
+def tolerance_run(
+    design: CircuitDesign,
+    tolerances: Mapping[str, float],
+    *,
+    draws: int | None = None,
+    seed: int = 1,
+    distribution: str | None = None,
+):
     """The Monte Carlo of the design's rounded parts (ideal op-amp) by the one tolerance engine,
     with the comparison ``loopshift report`` calls its "tolerances" row: the draws against the
     rounded parts, over the design band on the report's band grid (100 points per decade).
@@ -633,7 +728,15 @@ def tolerance_run(design: CircuitDesign, tolerances: Mapping[str, float], *, dra
     band = log_grid(design.band_hz[0], design.band_hz[1], 100)
     rounded = {k: np.asarray([v]) for k, v in design.rounded.items()}
     reference = design.sign * design.topology.response(rounded, band)[0]
-    return run_tolerances(design.topology, design.rounded, tolerances, band_f_hz=band,
-                          comparisons=[Comparison("tolerances", reference)],
-                          draws=DEFAULT_DRAWS if draws is None else draws, seed=seed,
-                          distribution=distribution or DEFAULT_DISTRIBUTION, sign=design.sign, display_f_hz=band)
+    return run_tolerances(
+        design.topology,
+        design.rounded,
+        tolerances,
+        band_f_hz=band,
+        comparisons=[Comparison("tolerances", reference)],
+        draws=DEFAULT_DRAWS if draws is None else draws,
+        seed=seed,
+        distribution=distribution or DEFAULT_DISTRIBUTION,
+        sign=design.sign,
+        display_f_hz=band,
+    )

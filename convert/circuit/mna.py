@@ -36,7 +36,7 @@ from __future__ import annotations
 from contextlib import contextmanager
 from contextvars import ContextVar
 from dataclasses import dataclass, field
-from typing import Sequence
+from collections.abc import Sequence
 
 import numpy as np
 
@@ -64,13 +64,19 @@ _DENSE_MAX = 120  # up to this many unknowns the batched dense solve is faster t
 
 def _check_size(netlist: Netlist, unknowns: int, reactive: int) -> None:
     if unknowns > MAX_UNKNOWNS:
-        raise InputError(f"the circuit needs {unknowns:,} nodal-analysis unknowns (nodes and branch currents); the "
-                         f"limit is {MAX_UNKNOWNS:,} (convert.circuit.mna.MAX_UNKNOWNS)", where=netlist.source)
+        raise InputError(
+            f"the circuit needs {unknowns:,} nodal-analysis unknowns (nodes and branch currents); the "
+            f"limit is {MAX_UNKNOWNS:,} (convert.circuit.mna.MAX_UNKNOWNS)",
+            where=netlist.source,
+        )
     if reactive > MAX_REACTIVE:
-        raise InputError(f"the circuit has {reactive:,} reactive parts (capacitors, inductors, single-pole op-amps), "
-                         f"so its transfer function could have degree {reactive:,}; the limit is {MAX_REACTIVE} "
-                         "(a ratio of polynomials of higher degree cannot be held accurately in double precision; "
-                         "convert.circuit.mna.MAX_REACTIVE)", where=netlist.source)
+        raise InputError(
+            f"the circuit has {reactive:,} reactive parts (capacitors, inductors, single-pole op-amps), "
+            f"so its transfer function could have degree {reactive:,}; the limit is {MAX_REACTIVE} "
+            "(a ratio of polynomials of higher degree cannot be held accurately in double precision; "
+            "convert.circuit.mna.MAX_REACTIVE)",
+            where=netlist.source,
+        )
 
 
 @dataclass(frozen=True)
@@ -143,8 +149,11 @@ def _check_structure(netlist: Netlist, elements: Sequence[Element], inputs: Sequ
         e = netlist.element(name)
         if e is None or e.kind != "V":
             found = ", ".join(s.name for s in netlist.sources) or "none"
-            raise InputError(f"input source {name!r} not found; voltage sources in the file: {found}",
-                             where=netlist.source, key="input")
+            raise InputError(
+                f"input source {name!r} not found; voltage sources in the file: {found}",
+                where=netlist.source,
+                key="input",
+            )
         if e.nodes[0] == e.nodes[1]:
             raise InputError(f"input source {e.name} has both ends on node {e.nodes[0]}", where=e.where, key=e.name)
     all_nodes = {n for e in elements for n in e.nodes}
@@ -158,17 +167,23 @@ def _check_structure(netlist: Netlist, elements: Sequence[Element], inputs: Sequ
     for n in sorted(all_nodes):
         if ac.find(n) != ground:
             e = _first_use(elements, n)
-            raise InputError(f"node {n!r} is floating: no element connects it to ground (0), directly or through "
-                             "other parts", where=e.where, key=e.name)
+            raise InputError(
+                f"node {n!r} is floating: no element connects it to ground (0), directly or through other parts",
+                where=e.where,
+                key=e.name,
+            )
     dcu = _connections(elements, dc=True)
     ground = dcu.find(GROUND)
     for e in elements:
         if e.kind == "OPAMP":
             for pin, label in ((e.nodes[0], "non-inverting"), (e.nodes[1], "inverting")):
                 if dcu.find(pin) != ground:
-                    raise InputError(f"the op-amp's {label} input (node {pin!r}) has no DC path to ground; a real "
-                                     "op-amp would drift to a rail (add a resistor to bias it)", where=e.where,
-                                     key=e.name)
+                    raise InputError(
+                        f"the op-amp's {label} input (node {pin!r}) has no DC path to ground; a real "
+                        "op-amp would drift to a rail (add a resistor to bias it)",
+                        where=e.where,
+                        key=e.name,
+                    )
 
 
 # ----------------------------------------------------------------------------- assembly
@@ -188,27 +203,38 @@ def _stamps(e: Element, index: dict[str, int], branch: dict[str, int]) -> list[t
         a, b = idx(e.nodes[0]), idx(e.nodes[1])
         m = 0 if e.kind == "R" else 1
         v = 1.0 / e.value if e.kind == "R" else e.value
-        add(m, a, a, v); add(m, b, b, v); add(m, a, b, -v); add(m, b, a, -v)
+        add(m, a, a, v)
+        add(m, b, b, v)
+        add(m, a, b, -v)
+        add(m, b, a, -v)
     elif e.kind in ("V", "E", "L"):
         k = branch[e.name]
         a, b = idx(e.nodes[0]), idx(e.nodes[1])
-        add(0, a, k, 1.0); add(0, b, k, -1.0)
-        add(0, k, a, 1.0); add(0, k, b, -1.0)
+        add(0, a, k, 1.0)
+        add(0, b, k, -1.0)
+        add(0, k, a, 1.0)
+        add(0, k, b, -1.0)
         if e.kind == "E":
-            add(0, k, idx(e.nodes[2]), -e.value); add(0, k, idx(e.nodes[3]), e.value)
+            add(0, k, idx(e.nodes[2]), -e.value)
+            add(0, k, idx(e.nodes[3]), e.value)
         elif e.kind == "L":
             add(1, k, k, -e.value)
     elif e.kind == "G":
         a, b, cp, cm = (idx(n) for n in e.nodes)
-        add(0, a, cp, e.value); add(0, a, cm, -e.value); add(0, b, cp, -e.value); add(0, b, cm, e.value)
+        add(0, a, cp, e.value)
+        add(0, a, cm, -e.value)
+        add(0, b, cp, -e.value)
+        add(0, b, cm, e.value)
     elif e.kind == "OPAMP":
         k = branch[e.name]
         p, n, o = (idx(x) for x in e.nodes)
         add(0, o, k, 1.0)
-        add(0, k, p, 1.0); add(0, k, n, -1.0)
+        add(0, k, p, 1.0)
+        add(0, k, n, -1.0)
         gbw = e.param("gbw")
         if gbw is not None:
-            add(1, k, o, -1.0 / (2 * np.pi * gbw)); add(0, k, o, -1.0 / e.param("a0"))
+            add(1, k, o, -1.0 / (2 * np.pi * gbw))
+            add(0, k, o, -1.0 / e.param("a0"))
     else:  # pragma: no cover - the reader admits no other kind
         raise InputError(f"element kind {e.kind} is not supported in the analysis", where=e.where, key=e.name)
     return out
@@ -236,8 +262,11 @@ def build_system(netlist: Netlist, inputs: Sequence[str] = ("VIN",), output: str
         raise InputError("the same source is named twice as an input", where=netlist.source, key="input")
     index, branch, unknowns = _numbering(elements)
     size = len(unknowns)
-    _check_size(netlist, size, sum(1 for e in elements if e.kind in ("C", "L")
-                                   or (e.kind == "OPAMP" and e.param("gbw") is not None)))
+    _check_size(
+        netlist,
+        size,
+        sum(1 for e in elements if e.kind in ("C", "L") or (e.kind == "OPAMP" and e.param("gbw") is not None)),
+    )
     G = np.zeros((size, size))
     C = np.zeros((size, size))
     mats = (G, C)
@@ -261,18 +290,26 @@ def build_system(netlist: Netlist, inputs: Sequence[str] = ("VIN",), output: str
         b = np.zeros(size)
         b[branch[name]] = 1.0
         rhs[name] = b
-    rates = [1.0 / (r * c) for r in r_values for c in c_values] + [r / l for r in r_values for l in l_values]
+    rates = [1.0 / (r * c) for r in r_values for c in c_values] + [r / l for r in r_values for l in l_values]  # noqa: E741
     rates += op_rates
     if l_values and c_values:
-        rates += [1.0 / np.sqrt(l * c) for l in l_values for c in c_values]
+        rates += [1.0 / np.sqrt(l * c) for l in l_values for c in c_values]  # noqa: E741
     if not rates:
         rates = [1.0]
     notes = []
     zeroed = [s.name for s in netlist.sources if s.name not in input_names]
     if zeroed:
         notes.append(f"source(s) {', '.join(zeroed)} set to zero (shorted): only the input(s) drive the circuit")
-    return MnaSystem(tuple(unknowns), G, C, rhs, index[output.lower()], reactive,
-                     (float(min(rates)), float(max(rates))), tuple(notes))
+    return MnaSystem(
+        tuple(unknowns),
+        G,
+        C,
+        rhs,
+        index[output.lower()],
+        reactive,
+        (float(min(rates)), float(max(rates))),
+        tuple(notes),
+    )
 
 
 # ----------------------------------------------------------------------------- numerics
@@ -366,16 +403,23 @@ def _dangling_error(netlist: Netlist) -> InputError | None:
     for e in netlist.linear_elements:
         for n in set(e.nodes):
             uses.setdefault(n, []).append(e)
-    dangling = [(n, es[0]) for n, es in uses.items() if n != GROUND and len(es) == 1
-                and sum(1 for m in es[0].nodes if m == n) == 1]
+    dangling = [
+        (n, es[0])
+        for n, es in uses.items()
+        if n != GROUND and len(es) == 1 and sum(1 for m in es[0].nodes if m == n) == 1
+    ]
     if not dangling:
         return None
     node, e = dangling[0]
     close = difflib.get_close_matches(node, [n for n in uses if n != node and n != GROUND], n=1, cutoff=0.5)
     hint = f"; did you mean {close[0]!r}?" if close else "; check the node's name"
     more = f" (also dangling: {', '.join(repr(n) for n, _ in dangling[1:4])})" if len(dangling) > 1 else ""
-    return InputError(f"node {node!r} is dangling: only {e.name} connects to it, so no current can flow there and the "
-                      f"circuit equations have no solution{hint}{more}", where=e.where, key=e.name)
+    return InputError(
+        f"node {node!r} is dangling: only {e.name} connects to it, so no current can flow there and the "
+        f"circuit equations have no solution{hint}{more}",
+        where=e.where,
+        key=e.name,
+    )
 
 
 def _singular_error(netlist: Netlist, system: MnaSystem, G, C) -> InputError:
@@ -403,20 +447,26 @@ def _singular_error(netlist: Netlist, system: MnaSystem, G, C) -> InputError:
             node = u[2:-1]
             # the element that drives the node (an op-amp's or E source's output, a voltage source)
             # is the one to check, not the first passive part that touches it
-            drivers = [e for e in netlist.linear_elements if (e.kind == "OPAMP" and e.nodes[2] == node)
-                       or (e.kind in ("E", "V") and node in e.nodes[:2])]
+            drivers = [
+                e
+                for e in netlist.linear_elements
+                if (e.kind == "OPAMP" and e.nodes[2] == node) or (e.kind in ("E", "V") and node in e.nodes[:2])
+            ]
             element = next(iter(drivers), None) or next((e for e in netlist.linear_elements if node in e.nodes), None)
         if element is not None:
             break
-    text = ("the circuit equations are singular (voltage sources, E sources or op-amp outputs in a loop, an op-amp "
-            f"without feedback, or a node only current sources reach); involved: {', '.join(involved) or 'unknown'}")
+    text = (
+        "the circuit equations are singular (voltage sources, E sources or op-amp outputs in a loop, an op-amp "
+        f"without feedback, or a node only current sources reach); involved: {', '.join(involved) or 'unknown'}"
+    )
     if element is None:
         return InputError(text, where=netlist.source)
     return InputError(text, where=element.where, key=element.name)
 
 
-def transfer_functions(netlist: Netlist, inputs: Sequence[str] = ("VIN",), output: str = "out", *,
-                       system: MnaSystem | None = None) -> dict[str, RationalResult]:
+def transfer_functions(
+    netlist: Netlist, inputs: Sequence[str] = ("VIN",), output: str = "out", *, system: MnaSystem | None = None
+) -> dict[str, RationalResult]:
     """Exact rational transfer functions V(output)/V(input) for each input source (others zeroed).
 
     Returns ``{source name: RationalResult}`` (names upper-case as in the netlist).
@@ -476,8 +526,9 @@ def _sample_points(system: MnaSystem, per_decade: float, extra: int) -> tuple[np
     """(circle radii in rad/s, points per circle M, every sample point s, radius-major)."""
     m = system.reactive_count + extra
     lo, hi = system.rates
-    radii = np.logspace(np.log10(lo) - 1.0, np.log10(hi) + 1.0,
-                        max(2, int(np.ceil(per_decade * (np.log10(hi / lo) + 2.0))) + 1))
+    radii = np.logspace(
+        np.log10(lo) - 1.0, np.log10(hi) + 1.0, max(2, int(np.ceil(per_decade * (np.log10(hi / lo) + 2.0))) + 1)
+    )
     angles = np.exp(2j * np.pi * (np.arange(m) + 0.5) / m)
     return radii, m, (radii[:, None] * angles[None, :]).ravel()
 
@@ -580,11 +631,16 @@ def _finish(netlist, system, G, C, b, num_asc, den_asc, name, radii, check=None)
         # not report a false "does not depend" (issue 9: a 300-section ladder did).
         x = _direct_output(G, C, b, system.output, _verify_points(radii))
         if x is None or np.max(np.abs(x)) > _ZERO_OUTPUT_V:
-            raise UnrealizableError(f"the transfer function from {name} could not be fitted (its numerator was lost "
-                                    "in rounding), although a direct solve shows the output depends on it",
-                                    where=netlist.source)
-        raise InputError(f"the output node does not depend on {name} (the transfer function is zero)",
-                         where=netlist.source, key="output")
+            raise UnrealizableError(
+                f"the transfer function from {name} could not be fitted (its numerator was lost "
+                "in rounding), although a direct solve shows the output depends on it",
+                where=netlist.source,
+            )
+        raise InputError(
+            f"the output node does not depend on {name} (the transfer function is zero)",
+            where=netlist.source,
+            key="output",
+        )
     if not np.any(den_asc):  # pragma: no cover - singular systems are refused before
         raise _singular_error(netlist, system, G, C)
     zeros, nlead = _roots_asc(num_asc)
@@ -606,11 +662,15 @@ def _finish(netlist, system, G, C, b, num_asc, den_asc, name, radii, check=None)
     if not err <= _FIT_RTOL:
         raise UnrealizableError(
             f"the rational transfer function from {name} disagrees with a direct solve by {err:.2g} (relative); the "
-            "circuit's time constants may span too many decades for double precision", where=netlist.source)
+            "circuit's time constants may span too many decades for double precision",
+            where=netlist.source,
+        )
     notes = []
-    for z, p in pairs:
-        notes.append(f"a pole at s = {_fmt_root(p)} rad/s ({abs(p) / (2 * np.pi):.4g} Hz) is cancelled by a zero in "
-                     f"the path from {name}: that part of the circuit is not seen from this input")
+    for _z, p in pairs:
+        notes.append(
+            f"a pole at s = {_fmt_root(p)} rad/s ({abs(p) / (2 * np.pi):.4g} Hz) is cancelled by a zero in "
+            f"the path from {name}: that part of the circuit is not seen from this input"
+        )
     return RationalResult(controller, tuple(pairs), float(err), tuple(notes))
 
 
@@ -743,8 +803,28 @@ def _prepare(netlist, system, G, C, B, names, per_decade, extra) -> _Nominal | N
         return None
     elements = netlist.linear_elements
     index, branch, _ = _numbering(elements)
-    return _Nominal(netlist, system, elements, index, branch, _row_factors(system), G, C, B, tuple(names), radii, m,
-                    s_all, sign, logdet, inv, inv @ B, w, inv_check, inv_check @ B)
+    return _Nominal(
+        netlist,
+        system,
+        elements,
+        index,
+        branch,
+        _row_factors(system),
+        G,
+        C,
+        B,
+        tuple(names),
+        radii,
+        m,
+        s_all,
+        sign,
+        logdet,
+        inv,
+        inv @ B,
+        w,
+        inv_check,
+        inv_check @ B,
+    )
 
 
 def _changed_stamps(base: _Nominal, netlist: Netlist) -> dict | None:
@@ -799,8 +879,12 @@ def _perturbed(base: _Nominal, netlist: Netlist) -> dict[str, RationalResult] | 
         _, H_check = _updated(base.inv_check, base.X_check, 1j * base.w_check, rows, cols, MG, MC, out)
     except np.linalg.LinAlgError:
         return None
-    if not (np.all(np.isfinite(ratio)) and np.all(np.isfinite(H)) and np.all(np.isfinite(H_check))
-            and np.min(np.abs(ratio)) > _UPDATE_RATIO_FLOOR):
+    if not (
+        np.all(np.isfinite(ratio))
+        and np.all(np.isfinite(H))
+        and np.all(np.isfinite(H_check))
+        and np.min(np.abs(ratio)) > _UPDATE_RATIO_FLOOR
+    ):
         return None
     G, C = base.G.copy(), base.C.copy()
     for (m, r, c), v in delta.items():
@@ -823,8 +907,10 @@ def _perturbed(base: _Nominal, netlist: Netlist) -> dict[str, RationalResult] | 
             x_direct = _direct_output(G, C, base.B[:, j], out, base.w_check[pick])
             if x_direct is None:
                 return float("inf")
-            return max(_fit_error(controller, base.w_check, x_all, peak),
-                       _fit_error(controller, base.w_check[pick], x_direct, peak))
+            return max(
+                _fit_error(controller, base.w_check, x_all, peak),
+                _fit_error(controller, base.w_check[pick], x_direct, peak),
+            )
 
         try:
             results[name] = _finish(netlist, base.system, G, C, base.B[:, j], num, den, name, base.radii, check)

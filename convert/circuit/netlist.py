@@ -55,9 +55,30 @@ DIODE_FORWARD_RANGE_V = (0.6, 0.7)
 
 # Directives that only steer a simulation: ignored with a note.
 _IGNORED_DIRECTIVES = {
-    ".ac", ".tran", ".op", ".dc", ".noise", ".tf", ".pz", ".sens", ".disto", ".four",
-    ".print", ".plot", ".probe", ".save", ".meas", ".measure", ".options", ".option",
-    ".opt", ".temp", ".width", ".ic", ".nodeset", ".csparam",
+    ".ac",
+    ".tran",
+    ".op",
+    ".dc",
+    ".noise",
+    ".tf",
+    ".pz",
+    ".sens",
+    ".disto",
+    ".four",
+    ".print",
+    ".plot",
+    ".probe",
+    ".save",
+    ".meas",
+    ".measure",
+    ".options",
+    ".option",
+    ".opt",
+    ".temp",
+    ".width",
+    ".ic",
+    ".nodeset",
+    ".csparam",
 }
 _TRANSIENT_FUNCTIONS = {"sin", "pulse", "pwl", "exp", "sffm", "am", "trrandom", "trnoise"}
 _MAX_DEPTH = 20
@@ -153,7 +174,7 @@ class Netlist:
         """Elements with a value a person can change: R, C, L (and E/G gains)."""
         return self.of_kind("R", "C", "L", "E", "G")
 
-    def with_values(self, values: dict[str, float]) -> "Netlist":
+    def with_values(self, values: dict[str, float]) -> Netlist:
         """A copy with some element values replaced (``{"R1": 1.1e5}``; names case-insensitive).
         ``"X1.gbw"``-style keys change an op-amp parameter."""
         wanted = {k.upper(): v for k, v in values.items()}
@@ -162,9 +183,11 @@ class Netlist:
             if e.name in wanted:
                 e = replace(e, value=float(wanted.pop(e.name)))
             else:
-                for key in [k for k in wanted if k.startswith(e.name + ".") and k[len(e.name) + 1:].lower() in dict(e.params)]:
+                for key in [
+                    k for k in wanted if k.startswith(e.name + ".") and k[len(e.name) + 1 :].lower() in dict(e.params)
+                ]:
                     p = dict(e.params)
-                    p[key[len(e.name) + 1:].lower()] = float(wanted.pop(key))
+                    p[key[len(e.name) + 1 :].lower()] = float(wanted.pop(key))
                     e = replace(e, params=tuple(sorted(p.items())))
             new.append(e)
         if wanted:
@@ -245,7 +268,7 @@ _EXPR_TOKEN = re.compile(
 class _Scope:
     """Parameter values visible at one place: local raw texts, then the parent scope."""
 
-    def __init__(self, raw: dict[str, tuple[str, str]], parent: "_Scope | None" = None):
+    def __init__(self, raw: dict[str, tuple[str, str]], parent: _Scope | None = None):
         self.raw = raw  # name -> (text, where)
         self.parent = parent
         self.values: dict[str, float] = {}
@@ -275,8 +298,7 @@ class _Scope:
                 self.busy.add(k)
                 for d in _names_in(text):
                     if d in self.busy:
-                        raise InputError(f"parameter {d!r} is defined in terms of itself", where=pwhere,
-                                         key=".param")
+                        raise InputError(f"parameter {d!r} is defined in terms of itself", where=pwhere, key=".param")
                     if d in self.raw and d not in self.values:
                         stack.append(d)
                 continue
@@ -317,8 +339,12 @@ def evaluate(text: str, scope: _Scope, where: str, what: str = "value") -> float
     if _PLAIN_NUMBER.match(t):
         return parse_spice_number(t, where=where, field=what)
     if re.fullmatch(r"[A-Za-z_][A-Za-z_0-9]*", t) and not scope.knows(t):
-        raise InputError(f"expected a SPICE number (e.g. 4.7k, 2.2n, 1meg), {{expression}} or parameter name, "
-                         f"found {t!r} (no parameter of that name)", where=where, key=what)
+        raise InputError(
+            f"expected a SPICE number (e.g. 4.7k, 2.2n, 1meg), {{expression}} or parameter name, "
+            f"found {t!r} (no parameter of that name)",
+            where=where,
+            key=what,
+        )
     return _Arith(t, scope, where, what).run()
 
 
@@ -334,8 +360,9 @@ class _Arith:
                 break
             m = _EXPR_TOKEN.match(text, pos)
             if not m or m.end() == pos:
-                raise InputError(f"cannot read the expression {text!r} at {text[pos:].strip()[:10]!r}",
-                                 where=where, key=what)
+                raise InputError(
+                    f"cannot read the expression {text!r} at {text[pos:].strip()[:10]!r}", where=where, key=what
+                )
             kind = m.lastgroup
             self.tokens.append((kind, m.group(kind)))
             pos = m.end()
@@ -346,15 +373,19 @@ class _Arith:
     def enter(self) -> None:
         self.depth += 1
         if self.depth > MAX_NESTING:
-            raise InputError(f"parentheses and signs are nested more than {MAX_NESTING} deep in "
-                             f"{excerpt(self.text)} (the limit of the calculator); write it flatter",
-                             where=self.where, key=self.what)
+            raise InputError(
+                f"parentheses and signs are nested more than {MAX_NESTING} deep in "
+                f"{excerpt(self.text)} (the limit of the calculator); write it flatter",
+                where=self.where,
+                key=self.what,
+            )
 
     def fail(self, expected: str):
         kind, tok = self.tokens[self.i]
         found = "the end" if kind == "end" else repr(tok)
-        raise InputError(f"in expression {self.text.strip()!r}: expected {expected}, found {found}",
-                         where=self.where, key=self.what)
+        raise InputError(
+            f"in expression {self.text.strip()!r}: expected {expected}, found {found}", where=self.where, key=self.what
+        )
 
     def peek(self) -> tuple[str, str]:
         return self.tokens[self.i]
@@ -364,8 +395,9 @@ class _Arith:
         if self.peek()[0] != "end":
             self.fail("an operator or the end")
         if not math.isfinite(value):
-            raise InputError(f"the expression {self.text.strip()!r} is not a finite number", where=self.where,
-                             key=self.what)
+            raise InputError(
+                f"the expression {self.text.strip()!r} is not a finite number", where=self.where, key=self.what
+            )
         return value
 
     def sum(self) -> float:
@@ -406,10 +438,11 @@ class _Arith:
             exponent = self.unary()
             self.depth -= 1
             try:
-                value = base ** exponent
+                value = base**exponent
             except (OverflowError, ZeroDivisionError):
-                raise InputError(f"{base!r} ^ {exponent!r} cannot be computed", where=self.where,
-                                 key=self.what) from None
+                raise InputError(
+                    f"{base!r} ^ {exponent!r} cannot be computed", where=self.where, key=self.what
+                ) from None
             if isinstance(value, complex):
                 raise InputError(f"{base!r} ^ {exponent!r} is not a real number", where=self.where, key=self.what)
             return value
@@ -470,8 +503,7 @@ def _split_params(tokens: list[str], where: str, what: str) -> tuple[list[str], 
             params[key.lower()] = value
         else:
             if params:
-                raise InputError(f"expected NAME=VALUE after the first parameter, found {tok!r}", where=where,
-                                 key=what)
+                raise InputError(f"expected NAME=VALUE after the first parameter, found {tok!r}", where=where, key=what)
             plain.append(tok)
     return plain, params
 
@@ -479,8 +511,9 @@ def _split_params(tokens: list[str], where: str, what: str) -> tuple[list[str], 
 def _param_assignments(text: str, where: str) -> dict[str, str]:
     """`.param a=1k b = {a*2} c=a/2` -> {'a': '1k', 'b': '{a*2}', 'c': 'a/2'}."""
     body = text.split(None, 1)[1] if len(text.split(None, 1)) > 1 else ""
-    pairs = re.findall(r"([A-Za-z_][A-Za-z_0-9]*)\s*=\s*(.*?)(?=\s+[A-Za-z_][A-Za-z_0-9]*\s*=|\s*,\s*[A-Za-z_]\w*\s*=|$)",
-                       body.strip())
+    pairs = re.findall(
+        r"([A-Za-z_][A-Za-z_0-9]*)\s*=\s*(.*?)(?=\s+[A-Za-z_][A-Za-z_0-9]*\s*=|\s*,\s*[A-Za-z_]\w*\s*=|$)", body.strip()
+    )
     rebuilt = " ".join(f"{k}={v}" for k, v in pairs)
     if not pairs or re.sub(r"\s|,", "", rebuilt) != re.sub(r"\s|,", "", body):
         raise InputError(f"expected .param NAME=VALUE [NAME=VALUE ...], found {text!r}", where=where, key=".param")
@@ -527,8 +560,12 @@ class _Reader:
                 break
             if word == ".subckt":
                 if current is not None:
-                    raise InputError(f"a .subckt inside .subckt {current.name} (line {current.line}) is not supported;"
-                                     " define subcircuits one after another", where=where, key=".subckt")
+                    raise InputError(
+                        f"a .subckt inside .subckt {current.name} (line {current.line}) is not supported;"
+                        " define subcircuits one after another",
+                        where=where,
+                        key=".subckt",
+                    )
                 current = self._subckt_header(line)
                 continue
             if word == ".ends":
@@ -536,8 +573,11 @@ class _Reader:
                     raise InputError("found .ends without a matching .subckt", where=where, key=".ends")
                 parts = line.text.split()
                 if len(parts) > 1 and parts[1].upper() != current.name:
-                    raise InputError(f".ends names {parts[1]!r} but the open subcircuit is {current.name!r}",
-                                     where=where, key=".ends")
+                    raise InputError(
+                        f".ends names {parts[1]!r} but the open subcircuit is {current.name!r}",
+                        where=where,
+                        key=".ends",
+                    )
                 self.subckts[current.name] = current
                 current = None
                 continue
@@ -545,8 +585,9 @@ class _Reader:
                 target = current.defaults if current is not None else params
                 for key, value in _param_assignments(line.text, where).items():
                     if key in target and current is None:
-                        raise InputError(f"parameter {key!r} is defined twice (first at {target[key][1]})",
-                                         where=where, key=".param")
+                        raise InputError(
+                            f"parameter {key!r} is defined twice (first at {target[key][1]})", where=where, key=".param"
+                        )
                     target[key] = (value, where)
                 continue
             if word == ".model":
@@ -555,24 +596,27 @@ class _Reader:
             if word == ".title":
                 continue
             if word in (".include", ".inc", ".lib"):
-                raise InputError(f"{word} is not supported; copy the definitions into this file", where=where,
-                                 key=word)
+                raise InputError(f"{word} is not supported; copy the definitions into this file", where=where, key=word)
             if word == ".endc":
                 raise InputError("found .endc without .control", where=where, key=".endc")
             if word in _IGNORED_DIRECTIVES:
                 ignored.setdefault(word, line.number)
                 continue
             if word.startswith("."):
-                raise InputError(f"unsupported directive {word}; this reader knows .param .subckt .ends .model "
-                                 ".title .end and ignores analysis directives (.ac .tran .op ...)",
-                                 where=where, key=word)
+                raise InputError(
+                    f"unsupported directive {word}; this reader knows .param .subckt .ends .model "
+                    ".title .end and ignores analysis directives (.ac .tran .op ...)",
+                    where=where,
+                    key=word,
+                )
             if current is not None:
                 current.body.append(line)
             else:
                 top.append(line)
         if current is not None:
-            raise InputError(f".subckt {current.name} is not closed with .ends", where=f"{self.source}:{current.line}",
-                             key=".subckt")
+            raise InputError(
+                f".subckt {current.name} is not closed with .ends", where=f"{self.source}:{current.line}", key=".subckt"
+            )
         if in_control:
             raise InputError("a .control block is not closed with .endc", where=self.source, key=".control")
         for word, number in ignored.items():
@@ -594,8 +638,11 @@ class _Reader:
         if any(p in GROUND_ALIASES for p in pins):
             raise InputError(f"subcircuit {name}: ground (0) cannot be a pin", where=where, key=".subckt")
         if name in self.subckts:
-            raise InputError(f"subcircuit {name} is defined twice (first at line {self.subckts[name].line})",
-                             where=where, key=".subckt")
+            raise InputError(
+                f"subcircuit {name} is defined twice (first at line {self.subckts[name].line})",
+                where=where,
+                key=".subckt",
+            )
         if name in BUILTIN_OPAMPS:
             self.notes.append(f"{where}: .subckt {name} replaces the built-in op-amp of that name")
         return _Subckt(name, pins, {k: (v, where) for k, v in defaults.items()}, [], line.number)
@@ -608,8 +655,9 @@ class _Reader:
         name, kind = tokens[0].upper(), tokens[1].upper()
         _, params = _split_params(tokens[2:], where, f".model {name}")
         if name in self.models:
-            raise InputError(f"model {name} is defined twice (first at line {self.models[name].line})",
-                             where=where, key=".model")
+            raise InputError(
+                f"model {name} is defined twice (first at line {self.models[name].line})", where=where, key=".model"
+            )
         self.models[name] = _Model(name, kind, params, line.number)
 
     # --- the size after flattening, before flattening -----------------------------------
@@ -630,8 +678,11 @@ class _Reader:
                 total += 1
                 continue
             if sub_name in chain or depth >= _MAX_DEPTH:
-                raise InputError(f"subcircuits nest deeper than {_MAX_DEPTH} levels (is {sub_name} instantiating "
-                                 "itself?)", where=self.where(line), key=plain[0])
+                raise InputError(
+                    f"subcircuits nest deeper than {_MAX_DEPTH} levels (is {sub_name} instantiating itself?)",
+                    where=self.where(line),
+                    key=plain[0],
+                )
             if sub_name not in memo:
                 memo[sub_name] = self.flat_count(sub.body, depth + 1, memo, chain + (sub_name,))
             total += memo[sub_name]
@@ -640,8 +691,9 @@ class _Reader:
         return total
 
     # --- pass 2: elements, flattened -------------------------------------------------
-    def expand(self, lines: list[_Line], scope: _Scope, prefix: str, nodemap: dict[str, str], depth: int,
-               local_names: set[str]) -> None:
+    def expand(
+        self, lines: list[_Line], scope: _Scope, prefix: str, nodemap: dict[str, str], depth: int, local_names: set[str]
+    ) -> None:
         for line in lines:
             self.element(line, scope, prefix, nodemap, depth, local_names)
 
@@ -653,8 +705,9 @@ class _Reader:
             return nodemap[n]
         return f"{prefix.lower()}{n}"
 
-    def element(self, line: _Line, scope: _Scope, prefix: str, nodemap: dict[str, str], depth: int,
-                local_names: set[str]) -> None:
+    def element(
+        self, line: _Line, scope: _Scope, prefix: str, nodemap: dict[str, str], depth: int, local_names: set[str]
+    ) -> None:
         where = self.where(line)
         tokens = _tokens(line.text, where)
         if not tokens:
@@ -665,24 +718,39 @@ class _Reader:
         letter = raw_name[0].upper()
         local = raw_name.upper()
         if local in local_names:
-            raise InputError(f"the name {raw_name} is used twice (names are case-insensitive)", where=where,
-                             key=raw_name)
+            raise InputError(
+                f"the name {raw_name} is used twice (names are case-insensitive)", where=where, key=raw_name
+            )
         local_names.add(local)
         name = f"{prefix.upper()}{local}"
-        kinds = {"R": self._two_terminal, "C": self._two_terminal, "L": self._two_terminal, "V": self._vsource,
-                 "E": self._controlled, "G": self._controlled, "D": self._diode}
+        kinds = {
+            "R": self._two_terminal,
+            "C": self._two_terminal,
+            "L": self._two_terminal,
+            "V": self._vsource,
+            "E": self._controlled,
+            "G": self._controlled,
+            "D": self._diode,
+        }
         if letter == "X":
             self._instance(line, tokens, scope, prefix, nodemap, depth, name)
             return
         if letter not in kinds:
-            raise InputError(f"unknown element type {letter!r}; supported: {SUPPORTED_ELEMENTS} "
-                             "(op-amps as X instances of OPAMP or OPAMP1P)", where=where, key=raw_name)
+            raise InputError(
+                f"unknown element type {letter!r}; supported: {SUPPORTED_ELEMENTS} "
+                "(op-amps as X instances of OPAMP or OPAMP1P)",
+                where=where,
+                key=raw_name,
+            )
         kinds[letter](line, tokens, scope, prefix, nodemap, name)
 
     def _add(self, element: Element) -> None:
         if element.name in self.names:
-            raise InputError(f"the name {element.name} is used twice after flattening subcircuits",
-                             where=element.where, key=element.name)
+            raise InputError(
+                f"the name {element.name} is used twice after flattening subcircuits",
+                where=element.where,
+                key=element.name,
+            )
         self.names.add(element.name)
         self.elements.append(element)
 
@@ -692,35 +760,50 @@ class _Reader:
         unit = {"R": "ohms", "C": "farads", "L": "henries"}[letter]
         plain, extra = _split_params(tokens[1:], where, tokens[0])
         if len(plain) != 3:
-            raise InputError(f"expected {tokens[0]} NODE NODE VALUE ({unit}), found {len(plain)} field(s) "
-                             f"{' '.join(plain)!r}", where=where, key=tokens[0])
+            raise InputError(
+                f"expected {tokens[0]} NODE NODE VALUE ({unit}), found {len(plain)} field(s) {' '.join(plain)!r}",
+                where=where,
+                key=tokens[0],
+            )
         allowed = {"ic"} if letter in "CL" else set()
         for key in extra:
             if key not in allowed:
-                raise InputError(f"unsupported option {key}= (only the value in {unit} is read)", where=where,
-                                 key=tokens[0])
+                raise InputError(
+                    f"unsupported option {key}= (only the value in {unit} is read)", where=where, key=tokens[0]
+                )
         if extra:
-            self.notes.append(f"{where}: {tokens[0]}: ic= is ignored (initial conditions do not change the transfer"
-                              " function)")
+            self.notes.append(
+                f"{where}: {tokens[0]}: ic= is ignored (initial conditions do not change the transfer function)"
+            )
         value = evaluate(plain[2], scope, where, tokens[0])
         if re.fullmatch(r"[+-]?[\d.]+(?:[eE][+-]?\d+)?M(?!EG|eg|Eg|IL|il)[A-Za-z]*", plain[2]):
-            self.warnings.append(f"{where}: {tokens[0]}: {plain[2]!r} is read as milli ({value:g}), as every SPICE "
-                                 "does; write meg for mega")
+            self.warnings.append(
+                f"{where}: {tokens[0]}: {plain[2]!r} is read as milli ({value:g}), as every SPICE "
+                "does; write meg for mega"
+            )
         if not value > 0:
-            raise InputError(f"expected a positive value in {unit}, found {plain[2]!r} = {value:g}", where=where,
-                             key=tokens[0])
+            raise InputError(
+                f"expected a positive value in {unit}, found {plain[2]!r} = {value:g}", where=where, key=tokens[0]
+            )
         if not PART_VALUE_RANGE[0] <= value <= PART_VALUE_RANGE[1]:
             # far beyond any real part, and the nodal analysis would overflow or underflow in double
-            raise InputError(f"expected a value in {unit} between {PART_VALUE_RANGE[0]:g} and {PART_VALUE_RANGE[1]:g}, "
-                             f"found {plain[2]!r} = {value:g}", where=where, key=tokens[0])
+            raise InputError(
+                f"expected a value in {unit} between {PART_VALUE_RANGE[0]:g} and {PART_VALUE_RANGE[1]:g}, "
+                f"found {plain[2]!r} = {value:g}",
+                where=where,
+                key=tokens[0],
+            )
         nodes = tuple(self._node(n, prefix, nodemap) for n in plain[:2])
         self._add(Element(name, letter, nodes, value, line.number, self.source))
 
     def _vsource(self, line, tokens, scope, prefix, nodemap, name) -> None:
         where = self.where(line)
         if len(tokens) < 3:
-            raise InputError(f"expected {tokens[0]} NODE+ NODE- [DC value] [AC mag], found {' '.join(tokens)!r}",
-                             where=where, key=tokens[0])
+            raise InputError(
+                f"expected {tokens[0]} NODE+ NODE- [DC value] [AC mag], found {' '.join(tokens)!r}",
+                where=where,
+                key=tokens[0],
+            )
         rest = tokens[3:]
         i = 0
         while i < len(rest):
@@ -742,8 +825,11 @@ class _Reader:
                 evaluate(rest[i], scope, where, tokens[0])
                 i += 1
             else:
-                raise InputError(f"expected DC value, AC magnitude or a transient function, found {rest[i]!r}",
-                                 where=where, key=tokens[0])
+                raise InputError(
+                    f"expected DC value, AC magnitude or a transient function, found {rest[i]!r}",
+                    where=where,
+                    key=tokens[0],
+                )
         nodes = tuple(self._node(n, prefix, nodemap) for n in tokens[1:3])
         self._add(Element(name, "V", nodes, None, line.number, self.source))
 
@@ -752,9 +838,12 @@ class _Reader:
         letter = name.split(".")[-1][0]
         what = "gain (V/V)" if letter == "E" else "transconductance (S)"
         if len(tokens) != 6:
-            raise InputError(f"expected {tokens[0]} OUT+ OUT- IN+ IN- {what.split(' ')[0]}, found {len(tokens) - 1} "
-                             f"field(s) after the name (only the linear four-node form is supported)",
-                             where=where, key=tokens[0])
+            raise InputError(
+                f"expected {tokens[0]} OUT+ OUT- IN+ IN- {what.split(' ')[0]}, found {len(tokens) - 1} "
+                f"field(s) after the name (only the linear four-node form is supported)",
+                where=where,
+                key=tokens[0],
+            )
         value = evaluate(tokens[5], scope, where, tokens[0])
         nodes = tuple(self._node(n, prefix, nodemap) for n in tokens[1:5])
         self._add(Element(name, letter, nodes, value, line.number, self.source))
@@ -763,16 +852,21 @@ class _Reader:
         where = self.where(line)
         plain, _extra = _split_params(tokens[1:], where, tokens[0])
         if len(plain) < 3:
-            raise InputError(f"expected {tokens[0]} ANODE CATHODE MODEL, found {' '.join(tokens)!r}", where=where,
-                             key=tokens[0])
+            raise InputError(
+                f"expected {tokens[0]} ANODE CATHODE MODEL, found {' '.join(tokens)!r}", where=where, key=tokens[0]
+            )
         model_name = plain[2].upper()
         model = self.models.get(model_name)
         if model is None:
-            raise InputError(f"diode model {plain[2]!r} is not defined; add .model {plain[2]} D (or D(BV=5.1) for a "
-                             "zener)", where=where, key=tokens[0])
+            raise InputError(
+                f"diode model {plain[2]!r} is not defined; add .model {plain[2]} D (or D(BV=5.1) for a zener)",
+                where=where,
+                key=tokens[0],
+            )
         if model.kind != "D":
-            raise InputError(f"model {model_name} is of type {model.kind}, a diode needs type D", where=where,
-                             key=tokens[0])
+            raise InputError(
+                f"model {model_name} is of type {model.kind}, a diode needs type D", where=where, key=tokens[0]
+            )
         params = {"vf": DIODE_FORWARD_V}
         mwhere = f"{self.source}:{model.line}"
         if "bv" in model.params:
@@ -781,46 +875,60 @@ class _Reader:
                 raise InputError(f"BV must be positive, found {bv:g}", where=mwhere, key=f".model {model_name}")
             params["bv"] = bv
         nodes = tuple(self._node(n, prefix, nodemap) for n in plain[:2])
-        self._add(Element(name, "D", nodes, None, line.number, self.source, model_name,
-                          tuple(sorted(params.items()))))
+        self._add(Element(name, "D", nodes, None, line.number, self.source, model_name, tuple(sorted(params.items()))))
 
     def _instance(self, line, tokens, scope, prefix, nodemap, depth, name) -> None:
         where = self.where(line)
         plain, args = _split_params(tokens[1:], where, tokens[0])
         if len(plain) < 2:
-            raise InputError(f"expected {tokens[0]} NODE ... SUBCIRCUIT, found {' '.join(tokens)!r}", where=where,
-                             key=tokens[0])
+            raise InputError(
+                f"expected {tokens[0]} NODE ... SUBCIRCUIT, found {' '.join(tokens)!r}", where=where, key=tokens[0]
+            )
         sub_name = plain[-1].upper()
         pins = [self._node(n, prefix, nodemap) for n in plain[:-1]]
         sub = self.subckts.get(sub_name)
         if sub is None and sub_name in BUILTIN_OPAMPS:
             pin_names, defaults = BUILTIN_OPAMPS[sub_name]
             if len(pins) != len(pin_names):
-                raise InputError(f"{sub_name} has {len(pin_names)} pins ({' '.join(pin_names)}: non-inverting input, "
-                                 f"inverting input, output), found {len(pins)}", where=where, key=tokens[0])
+                raise InputError(
+                    f"{sub_name} has {len(pin_names)} pins ({' '.join(pin_names)}: non-inverting input, "
+                    f"inverting input, output), found {len(pins)}",
+                    where=where,
+                    key=tokens[0],
+                )
             values = dict(defaults)
             for key, text in args.items():
                 if key not in defaults:
                     known = ", ".join(defaults) or "none"
-                    raise InputError(f"{sub_name} has no parameter {key!r} (parameters: {known})", where=where,
-                                     key=tokens[0])
+                    raise InputError(
+                        f"{sub_name} has no parameter {key!r} (parameters: {known})", where=where, key=tokens[0]
+                    )
                 values[key] = evaluate(text, scope, where, f"{tokens[0]} {key}")
                 if not values[key] > 0:
                     raise InputError(f"{key} must be positive, found {values[key]:g}", where=where, key=tokens[0])
             if pins[2] == GROUND:
                 raise InputError("the op-amp output cannot be ground (0)", where=where, key=tokens[0])
-            self._add(Element(name, "OPAMP", tuple(pins), None, line.number, self.source, sub_name,
-                              tuple(sorted(values.items()))))
+            self._add(
+                Element(
+                    name, "OPAMP", tuple(pins), None, line.number, self.source, sub_name, tuple(sorted(values.items()))
+                )
+            )
             return
         if sub is None:
             known = ", ".join(sorted(set(self.subckts) | set(BUILTIN_OPAMPS)))
             raise InputError(f"unknown subcircuit {plain[-1]!r}; known: {known}", where=where, key=tokens[0])
         if depth >= _MAX_DEPTH:
-            raise InputError(f"subcircuits nest deeper than {_MAX_DEPTH} levels (is {sub_name} instantiating itself?)",
-                             where=where, key=tokens[0])
+            raise InputError(
+                f"subcircuits nest deeper than {_MAX_DEPTH} levels (is {sub_name} instantiating itself?)",
+                where=where,
+                key=tokens[0],
+            )
         if len(pins) != len(sub.pins):
-            raise InputError(f"subcircuit {sub_name} has {len(sub.pins)} pins ({' '.join(sub.pins)}), found "
-                             f"{len(pins)}", where=where, key=tokens[0])
+            raise InputError(
+                f"subcircuit {sub_name} has {len(sub.pins)} pins ({' '.join(sub.pins)}), found {len(pins)}",
+                where=where,
+                key=tokens[0],
+            )
         for key in args:
             if key not in sub.defaults:
                 raise InputError(f"subcircuit {sub_name} has no parameter {key!r}", where=where, key=tokens[0])
@@ -857,19 +965,21 @@ def read_netlist(text: str, source: str = "netlist") -> Netlist:
     if first[:1] in "RCLVEGDX" and len(title.split()) >= 3 and first[:1].isalpha():
         reader.notes.append(f"{source}:1: the first line is read as the title, as in every SPICE: {title[:40]!r}")
     if title.lower().startswith(".title"):
-        title = title[len(".title"):].strip()
+        title = title[len(".title") :].strip()
     top, params = reader.collect(lines)
     scope = _Scope(params)
     for key in params:  # evaluate every parameter once, so errors surface even if unused
         scope.lookup(key, params[key][1])
     count = reader.flat_count(top)
     if count > MAX_ELEMENTS:
-        raise InputError(f"the netlist expands to more than {MAX_ELEMENTS:,} elements after flattening subcircuits; the limit is "
-                         f"{MAX_ELEMENTS:,} (convert.circuit.netlist.MAX_ELEMENTS)", where=source)
+        raise InputError(
+            f"the netlist expands to more than {MAX_ELEMENTS:,} elements after flattening subcircuits; the limit is "
+            f"{MAX_ELEMENTS:,} (convert.circuit.netlist.MAX_ELEMENTS)",
+            where=source,
+        )
     reader.expand(top, scope, "", {}, 0, set())
     if not reader.elements:
-        raise InputError("the netlist has no elements (the first line is the title; elements follow it)",
-                         where=source)
+        raise InputError("the netlist has no elements (the first line is the title; elements follow it)", where=source)
     return Netlist(title, source, tuple(reader.elements), tuple(reader.notes), tuple(reader.warnings))
 
 

@@ -19,7 +19,7 @@ Conventions (see docs/circuits.md):
 from __future__ import annotations
 
 import math
-from typing import Mapping
+from collections.abc import Mapping
 
 from convert.circuit.opamp import HIGH_GAIN, OpAmpModel
 from convert.circuit.topologies import C, Parallel, R, Series, Topology, is_open
@@ -55,23 +55,34 @@ class _Writer:
 
 def opamp_subcircuit(model: OpAmpModel) -> list[str]:
     if model.ideal:
-        return [".subckt LSOPAMP inp inn out",
-                f"* high-gain amplifier standing for an ideal op-amp (gain {HIGH_GAIN:g})",
-                f"E1 out 0 inp inn {format_spice_number(HIGH_GAIN)}",
-                ".ends LSOPAMP"]
+        return [
+            ".subckt LSOPAMP inp inn out",
+            f"* high-gain amplifier standing for an ideal op-amp (gain {HIGH_GAIN:g})",
+            f"E1 out 0 inp inn {format_spice_number(HIGH_GAIN)}",
+            ".ends LSOPAMP",
+        ]
     cap = 1.0 / (2 * math.pi * model.gbw_hz)
-    return [".subckt LSOPAMP inp inn out",
-            f"* single-pole op-amp: dc gain {model.a0:g}, gain-bandwidth {model.gbw_hz:g} Hz",
-            "G1 0 n1 inp inn 1",
-            f"R1 n1 0 {format_spice_number(model.a0)}",
-            f"C1 n1 0 {format_spice_number(cap)}",
-            "E1 out 0 n1 0 1",
-            ".ends LSOPAMP"]
+    return [
+        ".subckt LSOPAMP inp inn out",
+        f"* single-pole op-amp: dc gain {model.a0:g}, gain-bandwidth {model.gbw_hz:g} Hz",
+        "G1 0 n1 inp inn 1",
+        f"R1 n1 0 {format_spice_number(model.a0)}",
+        f"C1 n1 0 {format_spice_number(cap)}",
+        "E1 out 0 n1 0 1",
+        ".ends LSOPAMP",
+    ]
 
 
-def netlist_text(topology: Topology, parts: Mapping[str, float], *, opamp: OpAmpModel | None = None,
-                 add_inverter: bool | None = None, drive: str = "error", title: str | None = None,
-                 band_hz: tuple[float, float] | None = None) -> str:
+def netlist_text(
+    topology: Topology,
+    parts: Mapping[str, float],
+    *,
+    opamp: OpAmpModel | None = None,
+    add_inverter: bool | None = None,
+    drive: str = "error",
+    title: str | None = None,
+    band_hz: tuple[float, float] | None = None,
+) -> str:
     """The netlist of ``topology`` with ``parts`` (ohms, farads).
 
     ``add_inverter`` None means "when the stage is inverting" (realize +F(s)); a design passes its
@@ -85,8 +96,11 @@ def netlist_text(topology: Topology, parts: Mapping[str, float], *, opamp: OpAmp
         raise ValueError("drive must be 'error' or 'setpoint'")
     w = _Writer(checked)
     title = title or f"loopshift circuit: {topology.name}"
-    head = [f"* {title}", f"* {topology.description}",
-            "* input: VIN from node in to ground (AC 1); output: node out; values in ohms and farads"]
+    head = [
+        f"* {title}",
+        f"* {topology.description}",
+        "* input: VIN from node in to ground (AC 1); output: node out; values in ohms and farads",
+    ]
     stage_out = topology.stages[-1].output
     rename = {stage_out: "stage_out"} if add_inverter else {}
 
@@ -96,11 +110,17 @@ def netlist_text(topology: Topology, parts: Mapping[str, float], *, opamp: OpAmp
     src = ["VIN in 0 DC 0 AC 1"]
     if topology.two_input:
         if drive == "error":
-            src += ["* two-input stage driven by the error: setpoint 0, measurement = -V(in)",
-                    "VSP sp 0 DC 0 AC 0", "EMEAS meas 0 in 0 -1"]
+            src += [
+                "* two-input stage driven by the error: setpoint 0, measurement = -V(in)",
+                "VSP sp 0 DC 0 AC 0",
+                "EMEAS meas 0 in 0 -1",
+            ]
         else:
-            src += ["* two-input stage driven on the setpoint: measurement 0",
-                    "ESP sp 0 in 0 1", "VMEAS meas 0 DC 0 AC 0"]
+            src += [
+                "* two-input stage driven on the setpoint: measurement 0",
+                "ESP sp 0 in 0 1",
+                "VMEAS meas 0 DC 0 AC 0",
+            ]
     body: list[str] = []
     for st in topology.stages:
         inv = f"{st.amp.lower()}_m"
@@ -118,10 +138,12 @@ def netlist_text(topology: Topology, parts: Mapping[str, float], *, opamp: OpAmp
         body += w.lines
         body.append(f"X{st.amp} {plus} {inv} {n(st.output)} LSOPAMP")
     if add_inverter:
-        body += ["* UINV: unity inverter giving the target's sign",
-                 f"RINV1 stage_out uinv_m {format_spice_number(INVERTER_PARTS['RINV1'])}",
-                 f"RINV2 out uinv_m {format_spice_number(INVERTER_PARTS['RINV2'])}",
-                 "XUINV 0 uinv_m out LSOPAMP"]
+        body += [
+            "* UINV: unity inverter giving the target's sign",
+            f"RINV1 stage_out uinv_m {format_spice_number(INVERTER_PARTS['RINV1'])}",
+            f"RINV2 out uinv_m {format_spice_number(INVERTER_PARTS['RINV2'])}",
+            "XUINV 0 uinv_m out LSOPAMP",
+        ]
     tail = []
     if band_hz is not None:
         tail.append(f".ac dec 50 {format_spice_number(band_hz[0])} {format_spice_number(band_hz[1])}")
@@ -129,11 +151,18 @@ def netlist_text(topology: Topology, parts: Mapping[str, float], *, opamp: OpAmp
     return "\n".join(head + opamp_subcircuit(opamp) + src + body + tail) + "\n"
 
 
-def design_netlist(design, *, opamp: OpAmpModel | None = None, add_inverter: bool | None = None,
-                   drive: str = "error") -> str:
+def design_netlist(
+    design, *, opamp: OpAmpModel | None = None, add_inverter: bool | None = None, drive: str = "error"
+) -> str:
     """Netlist of a :class:`~convert.circuit.design.CircuitDesign` with its rounded parts; by default
     it realizes +C(s) (the inverter is added exactly when ``design.needs_inverter``)."""
     inv = design.needs_inverter if add_inverter is None else add_inverter
-    return netlist_text(design.topology, design.rounded, opamp=opamp, add_inverter=inv, drive=drive,
-                        title=f"loopshift circuit: {design.topology.name} realizing {design.target.expression(5)}",
-                        band_hz=design.band_hz)
+    return netlist_text(
+        design.topology,
+        design.rounded,
+        opamp=opamp,
+        add_inverter=inv,
+        drive=drive,
+        title=f"loopshift circuit: {design.topology.name} realizing {design.target.expression(5)}",
+        band_hz=design.band_hz,
+    )

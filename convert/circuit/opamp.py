@@ -15,8 +15,8 @@ import numpy as np
 
 from convert.errors import InputError
 
-DEFAULT_A0 = 1e5          # open-loop dc gain of the single-pole model (100 dB; common practice)
-HIGH_GAIN = 1e9           # gain of the "high-gain amplifier" netlist model (stands for ideal)
+DEFAULT_A0 = 1e5  # open-loop dc gain of the single-pole model (100 dB; common practice)
+HIGH_GAIN = 1e9  # gain of the "high-gain amplifier" netlist model (stands for ideal)
 
 
 @dataclass(frozen=True)
@@ -28,8 +28,7 @@ class OpAmpModel:
 
     def __post_init__(self):
         if self.gbw_hz is not None and not (math.isfinite(self.gbw_hz) and self.gbw_hz > 0):
-            raise InputError(f"the gain-bandwidth must be a positive frequency, found {self.gbw_hz!r}",
-                             key="opamp gbw")
+            raise InputError(f"the gain-bandwidth must be a positive frequency, found {self.gbw_hz!r}", key="opamp gbw")
         if not (math.isfinite(self.a0) and self.a0 > 1):
             raise InputError(f"the open-loop gain must be above 1, found {self.a0!r}", key="opamp a0")
 
@@ -76,13 +75,18 @@ class SwingCheck:
         return not any(self.exceeded.values())
 
     def summary(self) -> dict:
-        return {"amplitude_v": self.amplitude_v, "rail_v": self.rail_v, "ok": self.ok,
-                "max_peak_v": {k: float(np.max(v)) for k, v in self.peak_v.items()},
-                "exceeded_hz": {k: v for k, v in self.exceeded.items() if v}}
+        return {
+            "amplitude_v": self.amplitude_v,
+            "rail_v": self.rail_v,
+            "ok": self.ok,
+            "max_peak_v": {k: float(np.max(v)) for k, v in self.peak_v.items()},
+            "exceeded_hz": {k: v for k, v in self.exceeded.items() if v},
+        }
 
 
-def swing_check(topology, parts, f_hz, amplitude_v: float, rail_v: float,
-                model: OpAmpModel | None = None) -> SwingCheck:
+def swing_check(
+    topology, parts, f_hz, amplitude_v: float, rail_v: float, model: OpAmpModel | None = None
+) -> SwingCheck:
     """Flag where an amplifier's output (gain × input amplitude) would exceed the rails.
 
     The input is a sine of peak ``amplitude_v`` on ``in`` (two-input stages: on the measurement,
@@ -91,8 +95,9 @@ def swing_check(topology, parts, f_hz, amplitude_v: float, rail_v: float,
     from convert.circuit.topologies import node_responses
 
     if not (amplitude_v > 0 and rail_v > 0):
-        raise InputError(f"amplitude and rail must be positive volts, found {amplitude_v!r} and {rail_v!r}",
-                         key="--amplitude/--rail")
+        raise InputError(
+            f"amplitude and rail must be positive volts, found {amplitude_v!r} and {rail_v!r}", key="--amplitude/--rail"
+        )
     f = np.asarray(f_hz, dtype=float)
     drive = {"in": amplitude_v} if not topology.two_input else {"sp": 0.0, "meas": amplitude_v}
     model = model or OpAmpModel()

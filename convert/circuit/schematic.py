@@ -7,13 +7,13 @@ here only, lazily, with matplotlib's Agg backend (no display needed).
 
 from __future__ import annotations
 
-from typing import Mapping
+from collections.abc import Mapping
 
 from convert.circuit.topologies import C, R, Series, Topology, is_open
 from convert.values import format_value
 
-UNIT = 2.0   # width of one element
-ROW = 1.6    # vertical pitch between parallel branches
+UNIT = 2.0  # width of one element
+ROW = 1.6  # vertical pitch between parallel branches
 
 
 def _width(net) -> float:
@@ -57,7 +57,7 @@ def _draw_net(d, elm, net, start, parts, width=None):
     for i, item in enumerate(branches):
         yy = y - offset
         if i:
-            d.add(elm.Line().at((x, y - offset + _height(branches[i - 1]) * 0 )).to((x, yy)))
+            d.add(elm.Line().at((x, y - offset + _height(branches[i - 1]) * 0)).to((x, yy)))
             d.add(elm.Line().at((x + total, yy)).to((x + total, y - offset + 0)))
         d.add(elm.Line().at((x, yy)).to((x + 0.5, yy)))
         end = _draw_net(d, elm, item, (x + 0.5, yy), parts, width=total - 1.0)
@@ -69,8 +69,9 @@ def _draw_net(d, elm, net, start, parts, width=None):
     return (x + total, y)
 
 
-def draw_schematic(topology: Topology, parts: Mapping[str, float], path: str, *, add_inverter: bool = False,
-                   title: str | None = None) -> str:
+def draw_schematic(
+    topology: Topology, parts: Mapping[str, float], path: str, *, add_inverter: bool = False, title: str | None = None
+) -> str:
     """Draw the circuit to ``path`` (.png or .svg). Returns the path."""
     import matplotlib
 
@@ -111,7 +112,9 @@ def draw_schematic(topology: Topology, parts: Mapping[str, float], path: str, *,
             d.add(elm.Line().at(junction).to((x_in, fb_y)))
             end = _draw_net(d, elm, st.feedback, (x_in, fb_y), checked, width=span)
             d.add(elm.Line().at(end).to((x_in + span, op.out[1])))
-            d.add(elm.Line().at((x_in + span, op.out[1])).to(op.out) if x_in + span != op.out[0] else elm.Dot().at(op.out))
+            d.add(
+                elm.Line().at((x_in + span, op.out[1])).to(op.out) if x_in + span != op.out[0] else elm.Dot().at(op.out)
+            )
             out_name = st.output if not (add_inverter and st is stages[-1]) else "stage_out"
             d.add(elm.Line().at((x_in + span, op.out[1])).to((x_in + span + 1.0, op.out[1])))
             d.add(elm.Dot(open=True).at((x_in + span + 1.0, op.out[1])).label(out_name, loc="right"))
@@ -123,8 +126,12 @@ def draw_schematic(topology: Topology, parts: Mapping[str, float], path: str, *,
                 d.add(elm.Dot(open=True).at((0.5, py - 0.8)).label(src, loc="left"))
                 end = _draw_net(d, elm, top, (1.0, py - 0.8), checked, width=px - 1.0 - 0.5)
                 d.add(elm.Line().at(end).to(op.in2))
-                d.add(elm.Resistor().down().at(end).label(f"{bottom.name}\n{format_value(checked[bottom.name], 'ohm', 3)}",
-                                                            fontsize=8))
+                d.add(
+                    elm.Resistor()
+                    .down()
+                    .at(end)
+                    .label(f"{bottom.name}\n{format_value(checked[bottom.name], 'ohm', 3)}", fontsize=8)
+                )
                 d.add(elm.Ground())
             y0 = min(yy, y0 - 3.0) - 3.0
         if add_inverter:

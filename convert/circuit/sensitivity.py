@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Callable
+from collections.abc import Callable
 
 import numpy as np
 
@@ -53,8 +53,11 @@ def controller_quantities(controller: Controller, pid=None) -> dict[str, float]:
     nz = np.flatnonzero(num[::-1])
     low_num = num[::-1][nz[0]] if nz.size else 0.0
     zeros_at_origin = int(nz[0]) if nz.size else 0
-    label = "DC gain" if m == 0 and zeros_at_origin == 0 else (
-        f"gain ×s^{m} (low frequency)" if m else f"gain ÷s^{zeros_at_origin} (low frequency)")
+    label = (
+        "DC gain"
+        if m == 0 and zeros_at_origin == 0
+        else (f"gain ×s^{m} (low frequency)" if m else f"gain ÷s^{zeros_at_origin} (low frequency)")
+    )
     if low_num and low_den:
         out[label] = abs(low_num / low_den)
     if controller.is_proper and controller.relative_degree == 0 and abs(num[0]) > 0:
@@ -94,8 +97,9 @@ def _pots(netlist: Netlist) -> list[tuple[str, str, str]]:
 METHODS = ("update", "resolve")
 
 
-def sensitivities(netlist: Netlist, evaluate: Callable[[Netlist], dict[str, float]], *,
-                  method: str = "update") -> list[PartSensitivity]:
+def sensitivities(
+    netlist: Netlist, evaluate: Callable[[Netlist], dict[str, float]], *, method: str = "update"
+) -> list[PartSensitivity]:
     """Elasticities of the quantities ``evaluate(netlist)`` returns, to each part and pot.
 
     ``evaluate`` maps a netlist to named positive quantities (see :func:`controller_quantities`);
@@ -163,8 +167,11 @@ def ranked_parts(rows: list[PartSensitivity]) -> list[PartSensitivity]:
     return sorted(rows, key=lambda r: -round(max((abs(v) for v in r.effects.values()), default=0.0), 6))
 
 
-def value_sensitivities(values: dict[str, float], evaluate: Callable[[dict[str, float]], dict[str, float]],
-                        kinds: dict[str, str] | None = None) -> list[PartSensitivity]:
+def value_sensitivities(
+    values: dict[str, float],
+    evaluate: Callable[[dict[str, float]], dict[str, float]],
+    kinds: dict[str, str] | None = None,
+) -> list[PartSensitivity]:
     """Elasticities for a plain part mapping (name -> SI value), e.g. a catalog topology's parts.
 
     ``evaluate`` maps a part mapping to named positive quantities.

@@ -32,8 +32,32 @@ _TWO_DIGIT: dict[str, tuple[float, ...]] = {
     "E3": (1.0, 2.2, 4.7),
     "E6": (1.0, 1.5, 2.2, 3.3, 4.7, 6.8),
     "E12": (1.0, 1.2, 1.5, 1.8, 2.2, 2.7, 3.3, 3.9, 4.7, 5.6, 6.8, 8.2),
-    "E24": (1.0, 1.1, 1.2, 1.3, 1.5, 1.6, 1.8, 2.0, 2.2, 2.4, 2.7, 3.0,
-            3.3, 3.6, 3.9, 4.3, 4.7, 5.1, 5.6, 6.2, 6.8, 7.5, 8.2, 9.1),
+    "E24": (
+        1.0,
+        1.1,
+        1.2,
+        1.3,
+        1.5,
+        1.6,
+        1.8,
+        2.0,
+        2.2,
+        2.4,
+        2.7,
+        3.0,
+        3.3,
+        3.6,
+        3.9,
+        4.3,
+        4.7,
+        5.1,
+        5.6,
+        6.2,
+        6.8,
+        7.5,
+        8.2,
+        9.1,
+    ),
 }
 
 
@@ -54,7 +78,13 @@ SERIES: dict[str, tuple[float, ...]] = {
 
 # The usual tolerance class of each series (IEC 60063), as a fraction. Common practice.
 SERIES_TOLERANCE: dict[str, float] = {
-    "E3": 0.40, "E6": 0.20, "E12": 0.10, "E24": 0.05, "E48": 0.02, "E96": 0.01, "E192": 0.005,
+    "E3": 0.40,
+    "E6": 0.20,
+    "E12": 0.10,
+    "E24": 0.05,
+    "E48": 0.02,
+    "E96": 0.01,
+    "E192": 0.005,
 }
 
 
@@ -93,8 +123,8 @@ def neighbours(values, series: str, *, key: str = "value") -> tuple[np.ndarray, 
     frac = lx - decade  # in [0, 1)
     idx = np.searchsorted(log_ext, frac, side="right") - 1  # ext[idx] <= frac-value
     idx = np.clip(idx, 0, n + 1)
-    lo = ext[idx] * 10.0 ** decade
-    hi = ext[np.minimum(idx + 1, n + 1)] * 10.0 ** decade
+    lo = ext[idx] * 10.0**decade
+    hi = ext[np.minimum(idx + 1, n + 1)] * 10.0**decade
     tol = 1e-12  # float noise from computing a value (e.g. 4.7e3·(1 + 1e-16)) counts as that value
     same_lo = np.abs(x / lo - 1.0) <= tol
     same_hi = np.abs(x / hi - 1.0) <= tol
@@ -136,7 +166,7 @@ def values_in_range(series: str, low: float, high: float) -> np.ndarray:
     mant = get_series(series)
     out = []
     for decade in range(int(math.floor(math.log10(low))) - 1, int(math.ceil(math.log10(high))) + 1):
-        out.append(mant * 10.0 ** decade)
+        out.append(mant * 10.0**decade)
     allv = _clean(np.concatenate(out))
     keep = (allv >= low * (1 - 1e-9)) & (allv <= high * (1 + 1e-9))
     return np.unique(allv[keep])

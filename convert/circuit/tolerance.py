@@ -53,7 +53,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from typing import Callable, Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 
 import numpy as np
 
@@ -80,12 +80,15 @@ def draws_problem(draws: int) -> str | None:
     """Why ``draws`` Monte Carlo draws are too few to report (None when enough)."""
     if draws >= MIN_DRAWS:
         return None
-    return (f"expected at least {MIN_DRAWS} Monte Carlo draws, found {draws}: the 99th percentile and the "
-            f"0.5-99.5 % envelope reported need {MIN_DRAWS} for a draw to lie beyond each")
+    return (
+        f"expected at least {MIN_DRAWS} Monte Carlo draws, found {draws}: the 99th percentile and the "
+        f"0.5-99.5 % envelope reported need {MIN_DRAWS} for a draw to lie beyond each"
+    )
 
 
-def parse_tolerances(words: Sequence[str] | None, *, part_names: Sequence[str] = (), where: str = "--tolerance"
-                     ) -> dict[str, float]:
+def parse_tolerances(
+    words: Sequence[str] | None, *, part_names: Sequence[str] = (), where: str = "--tolerance"
+) -> dict[str, float]:
     """Read ``["R=1%", "C=5%", "R3=0.1%"]`` into fractions; defaults R 1 %, C 5 %."""
     from convert.values import parse_fraction
 
@@ -118,8 +121,11 @@ def check_draws(draws, key: str = "draws", *, allow_zero: bool = False) -> int:
     """``draws`` as an int in 1..MAX_DRAWS (0 allowed with ``allow_zero``), else InputError."""
     low = 0 if allow_zero else 1
     if isinstance(draws, bool) or not isinstance(draws, (int, np.integer)) or not (low <= draws <= MAX_DRAWS):
-        raise InputError(f"the number of draws must be a whole number from {low} to {MAX_DRAWS:,} (the limit keeps a "
-                         f"run within about 1 GB), found {draws!r}", key=key)
+        raise InputError(
+            f"the number of draws must be a whole number from {low} to {MAX_DRAWS:,} (the limit keeps a "
+            f"run within about 1 GB), found {draws!r}",
+            key=key,
+        )
     return int(draws)
 
 
@@ -136,8 +142,14 @@ class PartDraws:
     ``SeedSequence.spawn``, in the topology's part order), read sequentially. Open parts (∞ or 0)
     and parts without tolerance stay at their nominal value."""
 
-    def __init__(self, topology, parts: Mapping[str, float], tolerances: Mapping[str, float], seed: int,
-                 distribution: str = DEFAULT_DISTRIBUTION):
+    def __init__(
+        self,
+        topology,
+        parts: Mapping[str, float],
+        tolerances: Mapping[str, float],
+        seed: int,
+        distribution: str = DEFAULT_DISTRIBUTION,
+    ):
         _check_distribution(distribution)
         checked = topology.check_parts(parts)
         self.names = [p.name for p in topology.parts]
@@ -165,8 +177,14 @@ class PartDraws:
             yield self.take(min(chunk, draws - start))
 
 
-def draw_parts(topology, parts: Mapping[str, float], tolerances: Mapping[str, float], draws: int, seed: int,
-               distribution: str = DEFAULT_DISTRIBUTION) -> dict[str, np.ndarray]:
+def draw_parts(
+    topology,
+    parts: Mapping[str, float],
+    tolerances: Mapping[str, float],
+    draws: int,
+    seed: int,
+    distribution: str = DEFAULT_DISTRIBUTION,
+) -> dict[str, np.ndarray]:
     """All ``draws`` part sets at once (name -> array (draws,)): the same values the engine draws in
     chunks. For small draw counts (tests, a python-control cross-check)."""
     return PartDraws(topology, parts, tolerances, seed, distribution).take(check_draws(draws))
@@ -268,11 +286,11 @@ class TailSelection:
             self._wait_pay, self._wait_aux = [], []
             big = np.iinfo(np.int64).max
             for r in range(merged.shape[0]):  # payload rows are few (scalar figures): a sort with a tie rule
-                order = np.lexsort((np.where(mp[r] < 0, big, mp[r]), -merged[r]))[:self.m]
+                order = np.lexsort((np.where(mp[r] < 0, big, mp[r]), -merged[r]))[: self.m]
                 self.vals[r], self.pay[r], self.aux[r] = merged[r, order], mp[r, order], ma[r, order]
         self._thr = self.vals.min(axis=1, keepdims=True)
 
-    def merge(self, other: "TailSelection") -> None:
+    def merge(self, other: TailSelection) -> None:
         """Take in another selection over a different part of the same stream (exact)."""
         other._merge()
         if self.vals.dtype != other.vals.dtype:
@@ -292,8 +310,11 @@ class TailSelection:
         if self.pay is None:
             return -np.sort(-self.vals, axis=1), None, None
         order = np.lexsort((np.where(self.pay < 0, np.iinfo(np.int64).max, self.pay), -self.vals), axis=1)
-        return (np.take_along_axis(self.vals, order, 1), np.take_along_axis(self.pay, order, 1),
-                np.take_along_axis(self.aux, order, 1))
+        return (
+            np.take_along_axis(self.vals, order, 1),
+            np.take_along_axis(self.pay, order, 1),
+            np.take_along_axis(self.aux, order, 1),
+        )
 
 
 def _upper_need(q: float, n: int) -> int:
@@ -337,7 +358,7 @@ class RowPercentiles:
         self.high.add(x, finite=finite)
         self.low.add(x, finite=finite)
 
-    def merge(self, other: "RowPercentiles") -> None:
+    def merge(self, other: RowPercentiles) -> None:
         self.high.merge(other.high)
         self.low.merge(other.low)
 
@@ -356,7 +377,7 @@ def percentiles(x: np.ndarray, q: Sequence[float]) -> np.ndarray:
     x2 = np.asarray(x, dtype=float).reshape(-1, np.shape(x)[-1])
     sel = RowPercentiles(x2.shape[0], x2.shape[1], q)
     for i in range(0, x2.shape[1], 4096):
-        sel.add(x2[:, i:i + 4096])
+        sel.add(x2[:, i : i + 4096])
     return sel.result().reshape((2,) + np.shape(x)[:-1])
 
 
@@ -424,7 +445,7 @@ class _PolyGrid:
         arr = self._buf.get(name)
         if arr is None or arr.shape[1] < shape[1] or arr.shape[0] != shape[0]:
             arr = self._buf[name] = np.empty(shape, dtype=self.dtype)
-        return arr[:, :shape[1]]
+        return arr[:, : shape[1]]
 
     def _terms(self, coeffs: list, n: int, col_scale: np.ndarray) -> tuple[list, list]:
         deg = len(coeffs) - 1
@@ -434,7 +455,7 @@ class _PolyGrid:
             if not np.any(row):
                 continue
             k = deg - i
-            col = (self.w ** k * col_scale * (1 if (k // 2) % 2 == 0 else -1)).astype(self.dtype)[:, None]
+            col = (self.w**k * col_scale * (1 if (k // 2) % 2 == 0 else -1)).astype(self.dtype)[:, None]
             (re if k % 2 == 0 else im).append((col, row.astype(self.dtype)[None, :]))
         return re, im
 
@@ -526,8 +547,11 @@ class DrawnFigures:
         return dict(self.__dict__)
 
 
-MARGIN_FIELDS = (("phase_margin_deg", "delta_phase_margin_deg"), ("gain_margin_db", "delta_gain_margin_db"),
-                 ("sensitivity_peak_db", "delta_sensitivity_peak_db"))
+MARGIN_FIELDS = (
+    ("phase_margin_deg", "delta_phase_margin_deg"),
+    ("gain_margin_db", "delta_gain_margin_db"),
+    ("sensitivity_peak_db", "delta_sensitivity_peak_db"),
+)
 
 
 class _FigureReducer:
@@ -570,8 +594,11 @@ class _FigureReducer:
         def gain_at(cols):
             with np.errstate(invalid="ignore"):
                 gs = g[:, cols]
-                return np.where(up[cols], np.argmax(np.where(np.isnan(gs), -np.inf, gs), axis=0),
-                                np.argmin(np.where(np.isnan(gs), np.inf, gs), axis=0))
+                return np.where(
+                    up[cols],
+                    np.argmax(np.where(np.isnan(gs), -np.inf, gs), axis=0),
+                    np.argmin(np.where(np.isnan(gs), np.inf, gs), axis=0),
+                )
 
         def phase_at(cols):
             at = np.argmax(np.abs(np.nan_to_num(d[:, cols], nan=np.inf)), axis=0)
@@ -588,7 +615,7 @@ class _FigureReducer:
             delta = np.asarray(m[name], dtype=float) - float(self.ref_margins[name][0])
             self.margins[name].add(np.abs(delta)[None, :], ids, lambda cols, delta=delta: delta[cols])
 
-    def merge(self, other: "_FigureReducer") -> None:
+    def merge(self, other: _FigureReducer) -> None:
         self.gain.merge(other.gain)
         self.phase.merge(other.phase)
         for name, sel in self.margins.items():
@@ -600,9 +627,14 @@ class _FigureReducer:
     def result(self) -> DrawnFigures:
         g, g_at = _upper_percentile(self.gain, self.q)
         p, p_at = _upper_percentile(self.phase, self.q)
-        out = dict(key=self.key, percentile=self.q, max_gain_error_db=float(g[0]),
-                   max_gain_error_at_hz=float(self.f[int(g_at[0])]), max_phase_error_deg=float(p[0]),
-                   max_phase_error_at_hz=float(self.f[int(p_at[0])]))
+        out = dict(
+            key=self.key,
+            percentile=self.q,
+            max_gain_error_db=float(g[0]),
+            max_gain_error_at_hz=float(self.f[int(g_at[0])]),
+            max_phase_error_deg=float(p[0]),
+            max_phase_error_at_hz=float(self.f[int(p_at[0])]),
+        )
         without = {}
         for name, attr in MARGIN_FIELDS:
             if name not in self.margins:
@@ -615,10 +647,17 @@ class _FigureReducer:
         return DrawnFigures(**out, draws_without=without, unstable_draws=self.unstable, draws=self.total)
 
 
-def figures_of_responses(key: str, f_hz, reference: np.ndarray, candidates: np.ndarray, *,
-                         percentile: float = FIGURE_PERCENTILE, loop_margins: Callable | None = None,
-                         loop_reference: np.ndarray | None = None,
-                         loop_candidates: np.ndarray | None = None) -> DrawnFigures:
+def figures_of_responses(
+    key: str,
+    f_hz,
+    reference: np.ndarray,
+    candidates: np.ndarray,
+    *,
+    percentile: float = FIGURE_PERCENTILE,
+    loop_margins: Callable | None = None,
+    loop_reference: np.ndarray | None = None,
+    loop_candidates: np.ndarray | None = None,
+) -> DrawnFigures:
     """The engine's figures for responses already evaluated (``candidates`` (N, F) complex against
     ``reference`` (F,)), in float64: the same definitions :func:`run_tolerances` uses."""
     f = np.asarray(f_hz, dtype=float)
@@ -655,18 +694,26 @@ class ToleranceRun:
     distribution: str
     tolerances: dict
     chunk: int
-    figures: dict           # comparison key -> DrawnFigures
+    figures: dict  # comparison key -> DrawnFigures
     band: Band | None
-    parameters: dict        # name -> {"nominal": x, "percentiles": [p0.5, p99.5]}
+    parameters: dict  # name -> {"nominal": x, "percentiles": [p0.5, p99.5]}
 
     def summary(self) -> dict:
         """Plain numbers for JSON (the `circuit` command's ``errors.tolerance.monte_carlo``)."""
-        out = {"draws": self.draws, "seed": self.seed, "distribution": self.distribution,
-               "tolerances": dict(self.tolerances), "figure_percentile": FIGURE_PERCENTILE,
-               "figures": {k: v.as_dict() for k, v in self.figures.items()}, "parameters": self.parameters}
+        out = {
+            "draws": self.draws,
+            "seed": self.seed,
+            "distribution": self.distribution,
+            "tolerances": dict(self.tolerances),
+            "figure_percentile": FIGURE_PERCENTILE,
+            "figures": {k: v.as_dict() for k, v in self.figures.items()},
+            "parameters": self.parameters,
+        }
         if self.band is not None:
-            out["band"] = {"percentiles": list(self.band.percentiles),
-                           "band_hz": [float(self.band.f_hz[0]), float(self.band.f_hz[-1])]}
+            out["band"] = {
+                "percentiles": list(self.band.percentiles),
+                "band_hz": [float(self.band.f_hz[0]), float(self.band.f_hz[-1])],
+            }
         return out
 
 
@@ -680,7 +727,7 @@ def _by_rows(fn: Callable[[dict], object], parts: dict, size: int = SUB_BLOCK):
     n = len(next(iter(parts.values())))
     if n <= size:
         return fn(parts)
-    outs = [fn({k: v[i:i + size] for k, v in parts.items()}) for i in range(0, n, size)]
+    outs = [fn({k: v[i : i + size] for k, v in parts.items()}) for i in range(0, n, size)]
     if isinstance(outs[0], dict):
         return {k: np.concatenate([o[k] for o in outs]) for k in outs[0]}
     return np.concatenate(outs)
@@ -696,8 +743,16 @@ def _responses(topology, parts: dict, f: np.ndarray, opamp, sign: float) -> np.n
     return _by_rows(lambda p: sign * np.atleast_2d(gbw_response(topology, p, f, opamp)), parts)
 
 
-def _chunk_proxies(topology, parts: dict, grid: _PolyGrid | None, f: np.ndarray, opamp, sign: float,
-                   refs: list[np.ndarray], cache: dict):
+def _chunk_proxies(
+    topology,
+    parts: dict,
+    grid: _PolyGrid | None,
+    f: np.ndarray,
+    opamp,
+    sign: float,
+    refs: list[np.ndarray],
+    cache: dict,
+):
     """[(g, d)] per reference for one chunk on one grid: float32 from the coefficients (ideal
     op-amp), or float64 from the op-amp model's responses. Equal references share one result."""
     first: list[int] = []
@@ -710,8 +765,16 @@ def _chunk_proxies(topology, parts: dict, grid: _PolyGrid | None, f: np.ndarray,
     return [by[j] for j in first]
 
 
-def _chunk_proxies_distinct(topology, parts: dict, grid: _PolyGrid | None, f: np.ndarray, opamp, sign: float,
-                            refs: list[np.ndarray], cache: dict):
+def _chunk_proxies_distinct(
+    topology,
+    parts: dict,
+    grid: _PolyGrid | None,
+    f: np.ndarray,
+    opamp,
+    sign: float,
+    refs: list[np.ndarray],
+    cache: dict,
+):
     if (opamp is None or getattr(opamp, "ideal", False)) and grid is not None:
         with np.errstate(invalid="ignore", divide="ignore"):
             num, den = topology.coefficients(parts)
@@ -747,9 +810,9 @@ class LoopCount:
     nominal_unstable: int = 0
 
 
-STEP_LIMIT = math.pi / 3   # largest arg step of 1 + L between neighbouring points before a refinement
-REFINE_POINTS = 32          # points inserted per refined interval, per level
-REFINE_LEVELS = 4           # refinement levels (32^4 ≈ 1e6 times finer than the grid)
+STEP_LIMIT = math.pi / 3  # largest arg step of 1 + L between neighbouring points before a refinement
+REFINE_POINTS = 32  # points inserted per refined interval, per level
+REFINE_LEVELS = 4  # refinement levels (32^4 ≈ 1e6 times finer than the grid)
 
 
 def _arg_change(one_plus_l: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -777,8 +840,12 @@ def _refined_step(loop_at: Callable[[np.ndarray], np.ndarray], f0: float, f1: fl
     return total
 
 
-def count_unstable(count: LoopCount, controller_responses: np.ndarray,
-                   controller_at: Callable[[int, np.ndarray], np.ndarray], nominal_change: float) -> np.ndarray:
+def count_unstable(
+    count: LoopCount,
+    controller_responses: np.ndarray,
+    controller_at: Callable[[int, np.ndarray], np.ndarray],
+    nominal_change: float,
+) -> np.ndarray:
     """Which draws give an unstable closed loop (bool (N,)), by the Nyquist criterion.
 
     ``controller_responses`` (N, F): the drawn controllers C(j2πf) on ``count.f_hz``;
@@ -840,8 +907,9 @@ def _rhp_controller(topology, parts: dict) -> np.ndarray:
     return ~ok | np.any(roots.real > 1e-9 * size[:, None], axis=1)
 
 
-def arg_change_along(count: LoopCount, controller_response: np.ndarray,
-                     controller_at: Callable[[np.ndarray], np.ndarray]) -> float:
+def arg_change_along(
+    count: LoopCount, controller_response: np.ndarray, controller_at: Callable[[np.ndarray], np.ndarray]
+) -> float:
     """The arg change of 1 + L along ``count.f_hz`` for one controller (radians), refined as in
     :func:`count_unstable`; NaN when it cannot be followed."""
     f = count.f_hz
@@ -862,16 +930,19 @@ class _Worker:
         self.r = run
         dtype = run["dtype"]
         self.band_grid = _PolyGrid(run["band_f"], dtype, run["den_nominal"])
-        self.reducers = [_FigureReducer(c.key, run["band_f"], run["draws"], run["percentile"], ref_m)
-                         for c, ref_m in zip(run["comparisons"], run["ref_margins"])]
+        self.reducers = [
+            _FigureReducer(c.key, run["band_f"], run["draws"], run["percentile"], ref_m)
+            for c, ref_m in zip(run["comparisons"], run["ref_margins"])
+        ]
         self.groups: dict = {}
         for c, red in zip(run["comparisons"], self.reducers):
             ideal = c.opamp is None or c.opamp.ideal
             self.groups.setdefault(None if ideal else id(c.opamp), []).append((c, red))
         self.disp_g = self.disp_d = self.par_sel = None
         if run["disp_f"] is not None:
-            self.disp_grid = self.band_grid if run["share_display"] else _PolyGrid(run["disp_f"], dtype,
-                                                                                    run["den_nominal"])
+            self.disp_grid = (
+                self.band_grid if run["share_display"] else _PolyGrid(run["disp_f"], dtype, run["den_nominal"])
+            )
             self.disp_g = RowPercentiles(run["disp_f"].size, run["draws"], run["band_percentiles"])
             self.disp_d = RowPercentiles(run["disp_f"].size, run["draws"], run["band_percentiles"])
         if run["p_names"]:
@@ -897,17 +968,23 @@ class _Worker:
                     cache["disp"] = parts_h[-1].T
             refs = [np.asarray(c.reference, dtype=complex) for c, _ in members]
             shared = r["share_display"] and gkey is None
-            proxies = _chunk_proxies(topology, drawn, self.band_grid, band_f, opamp, sign,
-                                     refs + ([r["h_nom"]] if shared else []), cache)
+            proxies = _chunk_proxies(
+                topology, drawn, self.band_grid, band_f, opamp, sign, refs + ([r["h_nom"]] if shared else []), cache
+            )
             if shared or model_disp:
-                g, d = proxies.pop() if shared else _chunk_proxies(topology, drawn, None, disp_f, opamp, sign,
-                                                                   [r["h_nom"]], {"h": cache["disp"]})[0]
+                g, d = (
+                    proxies.pop()
+                    if shared
+                    else _chunk_proxies(topology, drawn, None, disp_f, opamp, sign, [r["h_nom"]], {"h": cache["disp"]})[
+                        0
+                    ]
+                )
                 # band tails in the run's dtype (float32: half the memory)
                 self.disp_g.add(g.astype(r["dtype"], copy=False))
                 self.disp_d.add(d.astype(r["dtype"], copy=False))
                 done_display = True
             loop_m = None
-            for (c, red), (g, d), ref in zip(members, proxies, refs):
+            for (_c, red), (g, d), ref in zip(members, proxies, refs):
 
                 def exact(idx, ref=ref, opamp=opamp):
                     sub = {k: v[idx] for k, v in drawn.items()}
@@ -918,11 +995,15 @@ class _Worker:
                     if loop_m is None:
                         if "loop" in cache:
                             h_loop = cache["loop"]
-                            loop_m = _by_rows(lambda p: r["loop_margins"](h_loop[p["i"]]),
-                                              {"i": np.arange(h_loop.shape[0])})
+                            loop_m = _by_rows(
+                                lambda p: r["loop_margins"](h_loop[p["i"]]),  # noqa: B023 (called at once)
+                                {"i": np.arange(h_loop.shape[0])},
+                            )
                         else:
-                            loop_m = _by_rows(lambda p: r["loop_margins"](_responses(topology, p, loop_f, opamp, sign)),
-                                              drawn)
+                            loop_m = _by_rows(
+                                lambda p: r["loop_margins"](_responses(topology, p, loop_f, opamp, sign)),  # noqa: B023 (called at once)
+                                drawn,
+                            )
                     red.add_margins(loop_m, first)
             counted = [red for c, red in members if c.loop_reference is not None]
             if r["loop_count"] is not None and counted:
@@ -930,8 +1011,9 @@ class _Worker:
                 for red in counted:
                     red.unstable = (red.unstable or 0) + unstable
         if self.disp_g is not None and not done_display:
-            (g, d), = _chunk_proxies(topology, drawn, self.disp_grid, disp_f, r["display_opamp"], sign, [r["h_nom"]],
-                                     {})
+            ((g, d),) = _chunk_proxies(
+                topology, drawn, self.disp_grid, disp_f, r["display_opamp"], sign, [r["h_nom"]], {}
+            )
             self.disp_g.add(g.astype(r["dtype"], copy=False))
             self.disp_d.add(d.astype(r["dtype"], copy=False))
         if self.par_sel is not None:
@@ -947,14 +1029,14 @@ class _Worker:
 
         def block(p):
             def at(i, fx, p=p):
-                return _responses(topology, {k: v[i:i + 1] for k, v in p.items()}, fx, opamp, sign)[0]
+                return _responses(topology, {k: v[i : i + 1] for k, v in p.items()}, fx, opamp, sign)[0]
 
             h = _responses(topology, p, lc.f_hz, opamp, sign)
             return count_unstable(lc, h, at, r["nominal_change"][gkey]) | _rhp_controller(topology, p)
 
         return int(np.count_nonzero(_by_rows(block, drawn)))
 
-    def merge(self, other: "_Worker") -> None:
+    def merge(self, other: _Worker) -> None:
         for a, b in zip(self.reducers, other.reducers):
             a.merge(b)
         for a, b in ((self.disp_g, other.disp_g), (self.disp_d, other.disp_d), (self.par_sel, other.par_sel)):
@@ -969,13 +1051,29 @@ def _workers(draws: int, chunk: int, workers: int | None) -> int:
     return max(1, min(int(DEFAULT_WORKERS if workers is None else workers), -(-draws // chunk)))
 
 
-def run_tolerances(topology, parts: Mapping[str, float], tolerances: Mapping[str, float], *, band_f_hz,
-                   comparisons: Sequence[Comparison], draws: int = DEFAULT_DRAWS, seed: int = 1,
-                   distribution: str = DEFAULT_DISTRIBUTION, sign: float = 1.0, loop_f_hz=None,
-                   loop_margins: Callable | None = None, display_f_hz=None, display_opamp=None,
-                   percentile: float = FIGURE_PERCENTILE, band_percentiles: Sequence[float] = BAND_PERCENTILES,
-                   parameters: bool = True, chunk: int = DEFAULT_CHUNK, dtype=np.float32,
-                   workers: int | None = None, loop_count: LoopCount | None = None) -> ToleranceRun:
+def run_tolerances(
+    topology,
+    parts: Mapping[str, float],
+    tolerances: Mapping[str, float],
+    *,
+    band_f_hz,
+    comparisons: Sequence[Comparison],
+    draws: int = DEFAULT_DRAWS,
+    seed: int = 1,
+    distribution: str = DEFAULT_DISTRIBUTION,
+    sign: float = 1.0,
+    loop_f_hz=None,
+    loop_margins: Callable | None = None,
+    display_f_hz=None,
+    display_opamp=None,
+    percentile: float = FIGURE_PERCENTILE,
+    band_percentiles: Sequence[float] = BAND_PERCENTILES,
+    parameters: bool = True,
+    chunk: int = DEFAULT_CHUNK,
+    dtype=np.float32,
+    workers: int | None = None,
+    loop_count: LoopCount | None = None,
+) -> ToleranceRun:
     """The Monte Carlo of a circuit's part tolerances, in chunks (see the module docstring).
 
     ``parts``: the rounded parts (ohms, farads); ``sign``: the realized sign (±1) applied to the
@@ -995,8 +1093,12 @@ def run_tolerances(topology, parts: Mapping[str, float], tolerances: Mapping[str
     band_f = np.asarray(band_f_hz, dtype=float)
     loop_f = None if loop_f_hz is None else np.asarray(loop_f_hz, dtype=float)
     nominal = {k: np.asarray([v]) for k, v in source.nominal.items()}
-    ref_margins = [loop_margins(np.atleast_2d(c.loop_reference))
-                   if loop_margins is not None and c.loop_reference is not None else None for c in comparisons]
+    ref_margins = [
+        loop_margins(np.atleast_2d(c.loop_reference))
+        if loop_margins is not None and c.loop_reference is not None
+        else None
+        for c in comparisons
+    ]
     disp_f = h_nom = None
     share_display = False
     if display_f_hz is not None:
@@ -1005,8 +1107,9 @@ def run_tolerances(topology, parts: Mapping[str, float], tolerances: Mapping[str
         share_display = ideal_display and disp_f.shape == band_f.shape and np.array_equal(disp_f, band_f)
         h_nom = _responses(topology, nominal, disp_f, display_opamp, sign)[0]
     with np.errstate(divide="ignore", invalid="ignore"):
-        p_nom = {k: float(np.asarray(v).ravel()[0]) for k, v in topology.parameters(nominal).items()} \
-            if parameters else {}
+        p_nom = (
+            {k: float(np.asarray(v).ravel()[0]) for k, v in topology.parameters(nominal).items()} if parameters else {}
+        )
     p_names = [k for k, v in p_nom.items() if math.isfinite(v)]
     with np.errstate(divide="ignore", invalid="ignore"):
         den_nominal = [float(np.ravel(c)[0]) for c in topology.coefficients(nominal)[1]]
@@ -1017,12 +1120,31 @@ def run_tolerances(topology, parts: Mapping[str, float], tolerances: Mapping[str
             gkey = None if ideal else id(c.opamp)
             if c.loop_reference is not None and gkey not in nominal_change:
                 nominal_change[gkey] = arg_change_along(
-                    loop_count, _responses(topology, nominal, loop_count.f_hz, c.opamp, sign)[0],
-                    lambda fx, op=c.opamp: _responses(topology, nominal, fx, op, sign)[0])
-    run = dict(loop_count=loop_count, nominal_change=nominal_change, topology=topology, sign=sign, den_nominal=den_nominal, band_f=band_f, loop_f=loop_f, disp_f=disp_f, h_nom=h_nom,
-               share_display=share_display, display_opamp=display_opamp, comparisons=list(comparisons),
-               ref_margins=ref_margins, loop_margins=loop_margins, draws=draws, percentile=percentile,
-               band_percentiles=band_percentiles, p_names=p_names, dtype=dtype)
+                    loop_count,
+                    _responses(topology, nominal, loop_count.f_hz, c.opamp, sign)[0],
+                    lambda fx, op=c.opamp: _responses(topology, nominal, fx, op, sign)[0],
+                )
+    run = dict(
+        loop_count=loop_count,
+        nominal_change=nominal_change,
+        topology=topology,
+        sign=sign,
+        den_nominal=den_nominal,
+        band_f=band_f,
+        loop_f=loop_f,
+        disp_f=disp_f,
+        h_nom=h_nom,
+        share_display=share_display,
+        display_opamp=display_opamp,
+        comparisons=list(comparisons),
+        ref_margins=ref_margins,
+        loop_margins=loop_margins,
+        draws=draws,
+        percentile=percentile,
+        band_percentiles=band_percentiles,
+        p_names=p_names,
+        dtype=dtype,
+    )
     crew = [_Worker(run) for _ in range(_workers(draws, chunk, workers))]
     batch: list = []
     first = 0
@@ -1067,8 +1189,16 @@ def run_tolerances(topology, parts: Mapping[str, float], tolerances: Mapping[str
         res = lead.par_sel.result()
         for i, k in enumerate(p_names):
             params[k] = {"nominal": p_nom[k], "percentiles": [float(res[0, i]), float(res[1, i])]}
-    return ToleranceRun(draws, int(seed), distribution, dict(tolerances), chunk,
-                        {red.key: red.result() for red in lead.reducers}, band, params)
+    return ToleranceRun(
+        draws,
+        int(seed),
+        distribution,
+        dict(tolerances),
+        chunk,
+        {red.key: red.result() for red in lead.reducers},
+        band,
+        params,
+    )
 
 
 # ----------------------------------------------------------------------------------- worst case
@@ -1095,23 +1225,37 @@ class WorstCase:
     parameters: dict
 
     def spread(self) -> dict:
-        return {"gain_db": float(max(np.max(self.gain_db_high - self.nominal_gain_db),
-                                     np.max(self.nominal_gain_db - self.gain_db_low))),
-                "phase_deg": float(max(np.max(self.phase_deg_high - self.nominal_phase_deg),
-                                       np.max(self.nominal_phase_deg - self.phase_deg_low)))}
+        return {
+            "gain_db": float(
+                max(np.max(self.gain_db_high - self.nominal_gain_db), np.max(self.nominal_gain_db - self.gain_db_low))
+            ),
+            "phase_deg": float(
+                max(
+                    np.max(self.phase_deg_high - self.nominal_phase_deg),
+                    np.max(self.nominal_phase_deg - self.phase_deg_low),
+                )
+            ),
+        }
 
     def summary(self) -> dict:
-        return {"spread": self.spread(), "parameters": {k: list(v) for k, v in self.parameters.items()},
-                "largest_gain_sensitivity_db_per_percent": {k: float(np.max(np.abs(v)))
-                                                            for k, v in self.sensitivity_db.items()}}
+        return {
+            "spread": self.spread(),
+            "parameters": {k: list(v) for k, v in self.parameters.items()},
+            "largest_gain_sensitivity_db_per_percent": {
+                k: float(np.max(np.abs(v))) for k, v in self.sensitivity_db.items()
+            },
+        }
 
 
 def worst_case(topology, parts: Mapping[str, float], tolerances: Mapping[str, float], f_hz) -> WorstCase:
     """Worst-case corners of gain, phase and design quantities (see :class:`WorstCase`)."""
     f = np.asarray(f_hz, dtype=float)
     checked = {k: float(v) for k, v in topology.check_parts(parts).items()}
-    names = [p.name for p in topology.parts if math.isfinite(checked[p.name]) and checked[p.name] > 0
-             and tolerance_of(p, tolerances) > 0]
+    names = [
+        p.name
+        for p in topology.parts
+        if math.isfinite(checked[p.name]) and checked[p.name] > 0 and tolerance_of(p, tolerances) > 0
+    ]
     tol = {p.name: tolerance_of(p, tolerances) for p in topology.parts}
     base = {k: np.array([v]) for k, v in checked.items()}
     h0 = topology.response(base, f)[0]
@@ -1167,7 +1311,15 @@ def worst_case(topology, parts: Mapping[str, float], tolerances: Mapping[str, fl
                 vals.append(float(np.asarray(topology.parameters(p)[pname]).ravel()[0]))
         params[pname] = (min(vals), max(vals))
     ln10 = math.log(10)
-    return WorstCase(f, np.minimum(g_lo, g_hi), np.maximum(g_lo, g_hi), np.minimum(ph_lo, ph_hi),
-                     np.maximum(ph_lo, ph_hi), nom_db, nom_deg,
-                     {k: v.real * 20 / ln10 * 0.01 for k, v in sens_log.items()},
-                     {k: np.degrees(v.imag) * 0.01 for k, v in sens_log.items()}, params)
+    return WorstCase(
+        f,
+        np.minimum(g_lo, g_hi),
+        np.maximum(g_lo, g_hi),
+        np.minimum(ph_lo, ph_hi),
+        np.maximum(ph_lo, ph_hi),
+        nom_db,
+        nom_deg,
+        {k: v.real * 20 / ln10 * 0.01 for k, v in sens_log.items()},
+        {k: np.degrees(v.imag) * 0.01 for k, v in sens_log.items()},
+        params,
+    )

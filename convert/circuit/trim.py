@@ -13,7 +13,7 @@ from dataclasses import dataclass
 
 from convert.errors import InputError, UnrealizableError
 
-POT_VALUES = tuple(m * 10.0 ** e for e in range(1, 7) for m in (1.0, 2.0, 5.0)) + (10e6,)
+POT_VALUES = tuple(m * 10.0**e for e in range(1, 7) for m in (1.0, 2.0, 5.0)) + (10e6,)
 
 
 @dataclass(frozen=True)
@@ -26,8 +26,14 @@ class Trim:
     covered: tuple[float, float]
 
     def summary(self) -> dict:
-        return {"parameter": self.parameter, "part": self.part, "fixed_ohm": self.fixed_ohm, "pot_ohm": self.pot_ohm,
-                "requested": list(self.requested), "covered": list(self.covered)}
+        return {
+            "parameter": self.parameter,
+            "part": self.part,
+            "fixed_ohm": self.fixed_ohm,
+            "pot_ohm": self.pot_ohm,
+            "requested": list(self.requested),
+            "covered": list(self.covered),
+        }
 
 
 def size_trim(design, parameter: str, low: float, high: float) -> Trim:
@@ -38,13 +44,18 @@ def size_trim(design, parameter: str, low: float, high: float) -> Trim:
     key = parameter.lower()
     if key not in topo.tunable:
         options = ", ".join(topo.tunable) or "none"
-        raise UnrealizableError(f"{topo.name} has no single resistor that sets {parameter!r} alone "
-                                f"(tunable here: {options})", key="--trim")
+        raise UnrealizableError(
+            f"{topo.name} has no single resistor that sets {parameter!r} alone (tunable here: {options})", key="--trim"
+        )
     if not (0 < low < high):
         raise InputError(f"a trim range needs 0 < low < high, found {low!r} .. {high!r}", key="--trim")
     part, exponent = topo.tunable[key]
     params = design.realized_parameters()
-    pname = key if key in params else ("kp" if key == "kc" and "kp" in params else "k" if "k" in params and key in ("kp", "kc") else None)
+    pname = (
+        key
+        if key in params
+        else ("kp" if key == "kc" and "kp" in params else "k" if "k" in params and key in ("kp", "kc") else None)
+    )
     if pname is None:
         raise UnrealizableError(f"{topo.name} does not report {parameter!r}", key="--trim")
     nominal_param = params[pname]

@@ -37,18 +37,33 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
         epilog=EPILOG,
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
-    parser.add_argument("expression", metavar="EXPR_IN_Z",
-                        help='digital transfer function in z or z^-1, e.g. "(0.2 - 0.18 z^-1)/(1 - z^-1)"')
-    parser.add_argument("--fs", metavar="HZ", required=True, help="sample rate of the digital controller, e.g. --fs 1kHz")
-    parser.add_argument("--method", metavar="M", required=True,
-                        help="the method the digital controller was made with: " + ", ".join(INVERSE_NAMES)
-                        + ", e.g. --method tustin")
-    parser.add_argument("--prewarp", metavar="HZ",
-                        help="tustin only: the prewarp frequency used going forward, e.g. --prewarp 20Hz")
-    parser.add_argument("--match-at", metavar="HZ",
-                        help="matched only: the gain-match frequency used going forward, e.g. --match-at 1Hz")
-    parser.add_argument("--json", action="store_true",
-                        help="print a JSON list with one result: method, fs_hz, num, den (descending powers of s), e.g. --json")
+    parser.add_argument(
+        "expression",
+        metavar="EXPR_IN_Z",
+        help='digital transfer function in z or z^-1, e.g. "(0.2 - 0.18 z^-1)/(1 - z^-1)"',
+    )
+    parser.add_argument(
+        "--fs", metavar="HZ", required=True, help="sample rate of the digital controller, e.g. --fs 1kHz"
+    )
+    parser.add_argument(
+        "--method",
+        metavar="M",
+        required=True,
+        help="the method the digital controller was made with: " + ", ".join(INVERSE_NAMES) + ", e.g. --method tustin",
+    )
+    parser.add_argument(
+        "--prewarp", metavar="HZ", help="tustin only: the prewarp frequency used going forward, e.g. --prewarp 20Hz"
+    )
+    parser.add_argument(
+        "--match-at",
+        metavar="HZ",
+        help="matched only: the gain-match frequency used going forward, e.g. --match-at 1Hz",
+    )
+    parser.add_argument(
+        "--json",
+        action="store_true",
+        help="print a JSON list with one result: method, fs_hz, num, den (descending powers of s), e.g. --json",
+    )
     return parser
 
 
@@ -66,8 +81,9 @@ def run(args, console) -> int:
 
     fs = _positive(args.fs, "hz", "--fs")
     if args.method not in INVERSE_NAMES:
-        raise InputError(f"no inverse for method {args.method!r}; expected one of {', '.join(INVERSE_NAMES)}",
-                         key="--method")
+        raise InputError(
+            f"no inverse for method {args.method!r}; expected one of {', '.join(INVERSE_NAMES)}", key="--method"
+        )
     prewarp = _positive(args.prewarp, "hz", "--prewarp") if args.prewarp is not None else None
     match_at = _positive(args.match_at, "hz", "--match-at") if args.match_at is not None else None
     if prewarp is not None and args.method != "tustin":
@@ -80,13 +96,19 @@ def run(args, console) -> int:
         below_nyquist(match_at, args.match_at, fs, "--match-at")
     digital = from_expression(args.expression, fs_hz=fs, label="EXPR_IN_Z")
     if not digital.is_digital:
-        raise InputError("the expression is analog (in s); `loopshift analog` takes an expression in z", key="EXPR_IN_Z")
+        raise InputError(
+            "the expression is analog (in s); `loopshift analog` takes an expression in z", key="EXPR_IN_Z"
+        )
     with at(None, rename={"prewarp": "--prewarp", "match_at_hz": "--match-at", "method": "--method"}):
-        reading = read_analog(digital, args.method, prewarp, match_at_hz=match_at,
-                              den_radius=expression_den_radius(args.expression, fs))
+        reading = read_analog(
+            digital, args.method, prewarp, match_at_hz=match_at, den_radius=expression_den_radius(args.expression, fs)
+        )
         analog = reading.controller
-        again = (discretize(analog, fs, args.method, prewarp_hz=prewarp, match_at_hz=match_at).controller
-                 if analog.is_proper else None)
+        again = (
+            discretize(analog, fs, args.method, prewarp_hz=prewarp, match_at_hz=match_at).controller
+            if analog.is_proper
+            else None
+        )
     b0, a0 = np.array(digital.b), np.array(digital.a)
     if again is None:  # an unfiltered derivative: check the substitution on the unit circle instead
         z = np.exp(1j * np.linspace(0.01, 0.99, 50) * np.pi)
@@ -99,9 +121,17 @@ def run(args, console) -> int:
         check = float(max(np.max(np.abs(b1 - b0)), np.max(np.abs(a1 - a0))) / scale)
     else:
         check = None
-    result = {"method": args.method, "fs_hz": fs, "num": list(analog.num), "den": list(analog.den),
-              "expression": analog.expression(), "zeros_s": roots_json(analog.zeros()), "poles_s": roots_json(analog.poles()),
-              "gain": analog.gain, "round_trip_max_relative_difference": check}
+    result = {
+        "method": args.method,
+        "fs_hz": fs,
+        "num": list(analog.num),
+        "den": list(analog.den),
+        "expression": analog.expression(),
+        "zeros_s": roots_json(analog.zeros()),
+        "poles_s": roots_json(analog.poles()),
+        "gain": analog.gain,
+        "round_trip_max_relative_difference": check,
+    }
     result["notes"] = list(reading.notes)
     if prewarp is not None:
         result["prewarp_hz"] = prewarp
@@ -111,24 +141,35 @@ def run(args, console) -> int:
         emit_json(console, [result])
         return 0
     console.print(f"digital controller at {format_value(fs, 'hz', 6)}: {digital.expression(12)}", markup=False)
-    console.print(f"analog equivalent under {args.method}"
-                  + (f" (prewarp {format_value(prewarp, 'hz', 4)})" if prewarp else "") + ":", markup=False)
+    console.print(
+        f"analog equivalent under {args.method}"
+        + (f" (prewarp {format_value(prewarp, 'hz', 4)})" if prewarp else "")
+        + ":",
+        markup=False,
+    )
     console.print(f"  C(s) = {analog.expression(8)}", markup=False)
     console.print(f"  num (descending powers of s): {[float(format(x, '.10g')) for x in analog.num]}", markup=False)
     console.print(f"  den (descending powers of s): {[float(format(x, '.10g')) for x in analog.den]}", markup=False)
     corners = analog.corner_frequencies_hz()
     for kind in ("zeros", "poles"):
         if corners.get(kind):
-            console.print(f"  {kind[:-1]} corners: " + ", ".join(format_value(f, 'hz', 4) for f in corners[kind]),
-                          markup=False)
+            console.print(
+                f"  {kind[:-1]} corners: " + ", ".join(format_value(f, "hz", 4) for f in corners[kind]), markup=False
+            )
     if analog.integrator_count():
         console.print(f"  integrators: {analog.integrator_count()}", markup=False)
     for note in reading.notes:
         console.print(f"note: {note}", markup=False)
     if check is not None and again is None:
-        console.print(f"check: substituting s = (z - 1)/(zT) into it reproduces the digital response to {check:.2g} "
-                      "(largest relative difference on the unit circle)", markup=False)
+        console.print(
+            f"check: substituting s = (z - 1)/(zT) into it reproduces the digital response to {check:.2g} "
+            "(largest relative difference on the unit circle)",
+            markup=False,
+        )
     elif check is not None:
-        console.print(f"check: discretizing it again by {args.method} reproduces the coefficients to {check:.2g} "
-                      "(largest difference relative to the largest coefficient)", markup=False)
+        console.print(
+            f"check: discretizing it again by {args.method} reproduces the coefficients to {check:.2g} "
+            "(largest difference relative to the largest coefficient)",
+            markup=False,
+        )
     return 0

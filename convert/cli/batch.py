@@ -30,25 +30,50 @@ MAX_WORKERS = 256
 
 
 def add_parser(subparsers) -> argparse.ArgumentParser:
-    p = subparsers.add_parser("batch", help=HELP, description=HELP + ".", epilog=EPILOG,
-                              formatter_class=argparse.RawDescriptionHelpFormatter)
-    p.add_argument("cases", metavar="CASES", nargs="+",
-                   help="case files (TOML) or folders of them (their *.toml files), e.g. cases/ or a.toml b.toml")
-    p.add_argument("--out", metavar="DIR", default=None,
-                   help="folder for the reports, index.html and batch.json (default: reports/batch), "
-                        "e.g. --out reports/unit-3")
-    p.add_argument("--force", action="store_true",
-                   help="replace the reports of an earlier batch in --out (default: refuse), e.g. --force")
-    p.add_argument("--workers", metavar="N", type=_workers,
-                   help="cases run at once (default: the number of cores, at most the number of cases), "
-                        "e.g. --workers 2")
-    p.add_argument("--scheduler", metavar="ADDRESS",
-                   help="run on a Dask distributed cluster at ADDRESS, or 'local' for one on this machine "
-                        "(needs the [cluster] extra: pip install 'loopshift[cluster]'), "
-                        "e.g. --scheduler tcp://10.0.0.5:8786")
-    p.add_argument("--draws", metavar="N", type=_draws,
-                   help="Monte Carlo draws for every circuit target, overriding the case files, e.g. --draws 2000")
-    p.add_argument("--json", action="store_true", help="print batch.json to standard output instead of the table, e.g. loopshift batch cases/ --json")
+    p = subparsers.add_parser(
+        "batch", help=HELP, description=HELP + ".", epilog=EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter
+    )
+    p.add_argument(
+        "cases",
+        metavar="CASES",
+        nargs="+",
+        help="case files (TOML) or folders of them (their *.toml files), e.g. cases/ or a.toml b.toml",
+    )
+    p.add_argument(
+        "--out",
+        metavar="DIR",
+        default=None,
+        help="folder for the reports, index.html and batch.json (default: reports/batch), e.g. --out reports/unit-3",
+    )
+    p.add_argument(
+        "--force",
+        action="store_true",
+        help="replace the reports of an earlier batch in --out (default: refuse), e.g. --force",
+    )
+    p.add_argument(
+        "--workers",
+        metavar="N",
+        type=_workers,
+        help="cases run at once (default: the number of cores, at most the number of cases), e.g. --workers 2",
+    )
+    p.add_argument(
+        "--scheduler",
+        metavar="ADDRESS",
+        help="run on a Dask distributed cluster at ADDRESS, or 'local' for one on this machine "
+        "(needs the [cluster] extra: pip install 'loopshift[cluster]'), "
+        "e.g. --scheduler tcp://10.0.0.5:8786",
+    )
+    p.add_argument(
+        "--draws",
+        metavar="N",
+        type=_draws,
+        help="Monte Carlo draws for every circuit target, overriding the case files, e.g. --draws 2000",
+    )
+    p.add_argument(
+        "--json",
+        action="store_true",
+        help="print batch.json to standard output instead of the table, e.g. loopshift batch cases/ --json",
+    )
     return p
 
 
@@ -86,16 +111,23 @@ def run(args, console) -> int:
 
     with ExitStack() as stack:
         executor = stack.enter_context(_executor(args.scheduler, workers, len(files)))
-        progress = stack.enter_context(Progress(
-            TextColumn("{task.description}", markup=False), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
-            console=console, transient=True, disable=not console.is_terminal))
+        progress = stack.enter_context(
+            Progress(
+                TextColumn("{task.description}", markup=False),
+                BarColumn(),
+                MofNCompleteColumn(),
+                TimeElapsedColumn(),
+                console=console,
+                transient=True,
+                disable=not console.is_terminal,
+            )
+        )
         task = progress.add_task(f"{len(files)} cases on {workers} worker(s)", total=len(files))
 
         def tick(outcome) -> None:
             progress.update(task, advance=1, description=f"{outcome.name}: {outcome.status}")
 
-        result = batch.run_batch(files, out_dir, executor=executor, force=args.force, draws=args.draws,
-                                 progress=tick)
+        result = batch.run_batch(files, out_dir, executor=executor, force=args.force, draws=args.draws, progress=tick)
     write_text_atomic(str(out_dir / batch.INDEX_NAME), batch.index_html(result))
     summary = batch.summary_json(result)
     write_text_atomic(str(out_dir / batch.SUMMARY_NAME), summary)
@@ -124,19 +156,26 @@ def _check_out_dir(out_dir, *, force: bool) -> None:
 
     if not out_dir.exists():
         if not out_dir.absolute().parent.is_dir():
-            raise InputError(f"the folder {str(out_dir.parent)!r} does not exist; create it first or choose "
-                             "another place", key="--out")
+            raise InputError(
+                f"the folder {str(out_dir.parent)!r} does not exist; create it first or choose another place",
+                key="--out",
+            )
         return
     if not out_dir.is_dir():
         raise InputError(f"{str(out_dir)!r} exists and is not a folder; choose a folder name", key="--out")
     if not any(out_dir.iterdir()):
         return
     if not (out_dir / batch.SUMMARY_NAME).is_file():
-        raise InputError(f"the folder {str(out_dir)!r} holds files that are not an earlier batch; choose an empty "
-                         "or new folder", key="--out")
+        raise InputError(
+            f"the folder {str(out_dir)!r} holds files that are not an earlier batch; choose an empty or new folder",
+            key="--out",
+        )
     if not force:
-        raise InputError(f"the folder {str(out_dir)!r} holds an earlier batch; rerun with --force to replace its "
-                         "reports, or choose another folder", key="--out")
+        raise InputError(
+            f"the folder {str(out_dir)!r} holds an earlier batch; rerun with --force to replace its "
+            "reports, or choose another folder",
+            key="--out",
+        )
 
 
 def _executor(scheduler: str | None, workers: int, cases: int):
@@ -161,19 +200,26 @@ def _executor(scheduler: str | None, workers: int, cases: int):
         try:
             from distributed import Client, LocalCluster
         except ImportError:
-            raise InputError("--scheduler needs Dask distributed; install it with pip install 'loopshift[cluster]'",
-                             key="--scheduler") from None
+            raise InputError(
+                "--scheduler needs Dask distributed; install it with pip install 'loopshift[cluster]'",
+                key="--scheduler",
+            ) from None
         if scheduler == "local":
             # ":0": any free port for the status page (None still binds 8787, which another cluster may hold)
-            with LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                              dashboard_address=":0") as cluster, Client(cluster) as client:
+            with (
+                LocalCluster(
+                    n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=":0"
+                ) as cluster,
+                Client(cluster) as client,
+            ):
                 yield client.get_executor()
         else:
             try:
                 client = Client(scheduler, timeout="10s")
             except (OSError, TimeoutError, ValueError) as exc:
-                raise InputError(f"cannot reach the Dask scheduler at {scheduler!r} ({exc})",
-                                 key="--scheduler") from None
+                raise InputError(
+                    f"cannot reach the Dask scheduler at {scheduler!r} ({exc})", key="--scheduler"
+                ) from None
             with client:
                 yield client.get_executor()
 
@@ -206,7 +252,14 @@ def _print_summary(console, result, escape) -> None:
         if o.status != "pass":
             console.print(styled(f"[red]{escape(o.name)}:[/red] {escape(o.message)}"), soft_wrap=True)
     counts = ", ".join(f"{n} {s}" for s, n in result.counts().items() if n)
-    console.print(styled(f"{len(result.outcomes)} cases in {result.seconds:.1f} s: {escape(counts)}   "
-                         f"index: {escape(str(result.out_dir))}/index.html"))
-    console.print("The tool computes; it does not certify: each report is evidence for a qualified person's "
-                  "decision before a live swap.", soft_wrap=True)
+    console.print(
+        styled(
+            f"{len(result.outcomes)} cases in {result.seconds:.1f} s: {escape(counts)}   "
+            f"index: {escape(str(result.out_dir))}/index.html"
+        )
+    )
+    console.print(
+        "The tool computes; it does not certify: each report is evidence for a qualified person's "
+        "decision before a live swap.",
+        soft_wrap=True,
+    )

@@ -35,8 +35,14 @@ formats: double (C double / ST LREAL), float (C float / ST REAL), q15 (int16_t w
 accumulator), q31 (int32_t words, 64-bit accumulator); Structured Text takes double or float.
 Details: docs/firmware.md"""
 
-FORMAT_WORDS = {"double": "float64", "float": "float32", "q15": "q15", "q31": "q31",
-                "float64": "float64", "float32": "float32"}
+FORMAT_WORDS = {
+    "double": "float64",
+    "float": "float32",
+    "q15": "q15",
+    "q31": "q31",
+    "float64": "float64",
+    "float32": "float32",
+}
 
 
 def add_parser(subparsers) -> argparse.ArgumentParser:
@@ -44,53 +50,110 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     from convert.cli.digital import add_signal_ranges
 
     parser = subparsers.add_parser(
-        "code", help="controller -> C99 or Structured Text firmware, with the word-format analysis",
-        description=DESCRIPTION, epilog=EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
+        "code",
+        help="controller -> C99 or Structured Text firmware, with the word-format analysis",
+        description=DESCRIPTION,
+        epilog=EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
     add_controller_input(parser)
-    parser.add_argument("--card", metavar="FILE.cir",
-                        help="read the controller from a card's SPICE netlist (input source VIN, output node out), "
-                             "e.g. --card card.cir")
+    parser.add_argument(
+        "--card",
+        metavar="FILE.cir",
+        help="read the controller from a card's SPICE netlist (input source VIN, output node out), "
+        "e.g. --card card.cir",
+    )
     parser.add_argument("--fs", metavar="HZ", required=True, help="sample rate, e.g. --fs 1kHz")
-    parser.add_argument("--method", metavar="M", default="tustin",
-                        help="discretization method (default tustin), e.g. --method zoh")
+    parser.add_argument(
+        "--method", metavar="M", default="tustin", help="discretization method (default tustin), e.g. --method zoh"
+    )
     parser.add_argument("--prewarp", metavar="HZ", help="tustin prewarp frequency, e.g. --prewarp 50Hz")
-    parser.add_argument("--derivative-filter", metavar="N", dest="filter_n",
-                        help="derivative filter ratio for an ideal PID, e.g. --derivative-filter 10")
-    parser.add_argument("--structure", metavar="S", default="auto",
-                        help="direct1, direct2t, sections, delta or auto (default: the recommended one), "
-                             "e.g. --structure sections")
+    parser.add_argument(
+        "--derivative-filter",
+        metavar="N",
+        dest="filter_n",
+        help="derivative filter ratio for an ideal PID, e.g. --derivative-filter 10",
+    )
+    parser.add_argument(
+        "--structure",
+        metavar="S",
+        default="auto",
+        help="direct1, direct2t, sections, delta or auto (default: the recommended one), e.g. --structure sections",
+    )
     parser.add_argument("--lang", metavar="L", default="c", help="c (default) or st, e.g. --lang st")
-    parser.add_argument("--format", metavar="F", default="double", dest="fmt",
-                        help="double (default), float, q15 or q31, e.g. --format q15")
-    parser.add_argument("--name", metavar="NAME", default="controller",
-                        help="C/ST identifier for the files and functions (default controller), e.g. --name level_pi")
+    parser.add_argument(
+        "--format",
+        metavar="F",
+        default="double",
+        dest="fmt",
+        help="double (default), float, q15 or q31, e.g. --format q15",
+    )
+    parser.add_argument(
+        "--name",
+        metavar="NAME",
+        default="controller",
+        help="C/ST identifier for the files and functions (default controller), e.g. --name level_pi",
+    )
     parser.add_argument("--out", metavar="DIR", help="folder for the files (created if missing), e.g. --out fw/")
-    parser.add_argument("--force", action="store_true", help="overwrite files of the same name in --out, e.g. --out fw/ --force")
+    parser.add_argument(
+        "--force", action="store_true", help="overwrite files of the same name in --out, e.g. --out fw/ --force"
+    )
     add_signal_ranges(parser)
-    parser.add_argument("--input-resolution", metavar="E", dest="input_resolution",
-                        help="smallest error the integral must act on (default: input range / 2^15), e.g. "
-                             "--input-resolution 0.001")
-    parser.add_argument("--input-scale", nargs=4, metavar=("SIG_LO", "SIG_HI", "FW_LO", "FW_HI"), dest="input_scale",
-                        help="the card's input signal range and the firmware values at its ends (only slopes matter; "
-                             "may be inverted), e.g. --input-scale 1V 5V 0 4095")
-    parser.add_argument("--output-scale", nargs=4, metavar=("SIG_LO", "SIG_HI", "FW_LO", "FW_HI"), dest="output_scale",
-                        help="the card's output signal range and the firmware values at its ends, "
-                             "e.g. --output-scale 0V 10V 0 4095")
-    parser.add_argument("--pid-block", action="store_true", dest="pid_block",
-                        help="write a PID block instead (NAME_step(st, setpoint, measurement), limits with "
-                             "anti-windup, setpoint weights b/c from --pid, NAME_set_output for bumpless transfer), "
-                             "e.g. --pid kc=2 ti=30s --pid-block --output-limits 0 100")
-    parser.add_argument("--velocity", action="store_true",
-                        help="PID block in velocity (incremental) form instead of positional, e.g. --pid-block --velocity")
-    parser.add_argument("--anti-windup", metavar="A", default="clamp", dest="anti_windup",
-                        help="PID block: clamp (conditional integration, default), track (back-calculation) or none, "
-                             "e.g. --anti-windup track")
-    parser.add_argument("--tracking-time", metavar="S", dest="tracking_time",
-                        help="PID block, back-calculation: tracking time constant (default sqrt(Ti*Td), Ti for a PI), "
-                             "e.g. --tracking-time 5s")
-    parser.add_argument("--json", action="store_true",
-                        help="print the realized coefficients (b/a or sos rows [b0, b1, b2, 1, a1, a2]) and the "
-                             "analysis of every structure as JSON, e.g. --json")
+    parser.add_argument(
+        "--input-resolution",
+        metavar="E",
+        dest="input_resolution",
+        help="smallest error the integral must act on (default: input range / 2^15), e.g. --input-resolution 0.001",
+    )
+    parser.add_argument(
+        "--input-scale",
+        nargs=4,
+        metavar=("SIG_LO", "SIG_HI", "FW_LO", "FW_HI"),
+        dest="input_scale",
+        help="the card's input signal range and the firmware values at its ends (only slopes matter; "
+        "may be inverted), e.g. --input-scale 1V 5V 0 4095",
+    )
+    parser.add_argument(
+        "--output-scale",
+        nargs=4,
+        metavar=("SIG_LO", "SIG_HI", "FW_LO", "FW_HI"),
+        dest="output_scale",
+        help="the card's output signal range and the firmware values at its ends, e.g. --output-scale 0V 10V 0 4095",
+    )
+    parser.add_argument(
+        "--pid-block",
+        action="store_true",
+        dest="pid_block",
+        help="write a PID block instead (NAME_step(st, setpoint, measurement), limits with "
+        "anti-windup, setpoint weights b/c from --pid, NAME_set_output for bumpless transfer), "
+        "e.g. --pid kc=2 ti=30s --pid-block --output-limits 0 100",
+    )
+    parser.add_argument(
+        "--velocity",
+        action="store_true",
+        help="PID block in velocity (incremental) form instead of positional, e.g. --pid-block --velocity",
+    )
+    parser.add_argument(
+        "--anti-windup",
+        metavar="A",
+        default="clamp",
+        dest="anti_windup",
+        help="PID block: clamp (conditional integration, default), track (back-calculation) or none, "
+        "e.g. --anti-windup track",
+    )
+    parser.add_argument(
+        "--tracking-time",
+        metavar="S",
+        dest="tracking_time",
+        help="PID block, back-calculation: tracking time constant (default sqrt(Ti*Td), Ti for a PI), "
+        "e.g. --tracking-time 5s",
+    )
+    parser.add_argument(
+        "--json",
+        action="store_true",
+        help="print the realized coefficients (b/a or sos rows [b0, b1, b2, 1, a1, a2]) and the "
+        "analysis of every structure as JSON, e.g. --json",
+    )
     return parser
 
 
@@ -132,15 +195,19 @@ def run(args, console) -> int:
     if lang not in LANGUAGES:
         raise InputError(f"expected c or st, found {args.lang!r}", key="--lang")
     if lang == "st" and word.startswith("q"):
-        raise InputError("Structured Text is written in double (LREAL) or float (REAL); q15/q31 are for C",
-                         key="--format")
+        raise InputError(
+            "Structured Text is written in double (LREAL) or float (REAL); q15/q31 are for C", key="--format"
+        )
     if not args.out and not args.json:
         raise InputError("give --out DIR for the files (or --json to see the result only)", key="--out")
     rng = range_pair(args.input_range, "--input-range")
-    resolution = positive_value(args.input_resolution, "number", "--input-resolution") if args.input_resolution else None
+    resolution = (
+        positive_value(args.input_resolution, "number", "--input-resolution") if args.input_resolution else None
+    )
     if word.startswith("q") and rng is None:
-        raise InputError(f"{args.fmt} needs --input-range LOW HIGH (the error's range scales the words)",
-                         key="--input-range")
+        raise InputError(
+            f"{args.fmt} needs --input-range LOW HIGH (the error's range scales the words)", key="--input-range"
+        )
     controller, source = _controller(args)
     lim = range_pair(args.output_limits, "--output-limits")
     sc = _scaling(args)
@@ -156,29 +223,61 @@ def run(args, console) -> int:
     if args.filter_n is not None:
         controller = add_derivative_filter(controller, positive_value(args.filter_n, "number", "--derivative-filter"))
     prewarp = positive_value(args.prewarp, "hz", "--prewarp") if args.prewarp else None
-    with at(None, rename={"prewarp": "--prewarp", "method": "--method", "fs": "--fs", "structure": "--structure",
-                          "input_range": "--input-range", "output_limits": "--output-limits",
-                          "word_format": "--format", "name": "--name"}):
+    with at(
+        None,
+        rename={
+            "prewarp": "--prewarp",
+            "method": "--method",
+            "fs": "--fs",
+            "structure": "--structure",
+            "input_range": "--input-range",
+            "output_limits": "--output-limits",
+            "word_format": "--format",
+            "name": "--name",
+        },
+    ):
         real = discretize(controller, fs, args.method, prewarp_hz=prewarp)
         band = comparison_grid(default_band_hz(controller, fs), fs, points_per_decade=20)
-        pick, every, why = choose(real.roots, word, band, structure=args.structure, b=real.b, a=real.a,
-                                  input_range=max(map(abs, rng)) if rng else None,
-                                  output_level=max(map(abs, lim)) if lim else None, input_resolution=resolution)
+        pick, every, why = choose(
+            real.roots,
+            word,
+            band,
+            structure=args.structure,
+            b=real.b,
+            a=real.a,
+            input_range=max(map(abs, rng)) if rng else None,
+            output_level=max(map(abs, lim)) if lim else None,
+            input_resolution=resolution,
+        )
         files = {}
         if pick is not None and pick.ok:
             files = emit(pick.realized, args.name, lang, source=source, method=args.method, limits=lim)
     paths = _write(args, files)
     ok = pick is not None and pick.ok
     if args.json:
-        emit_json(console, {"source": source, "fs_hz": fs, "method": args.method, "word_format": word,
-                            "structure": pick.structure if pick else None, "recommendation": why,
-                            "written": list(paths.values()), "ok": ok, "scaling": sc.text if sc else None,
-                            "scale_gain": sc.gain if sc else None,
-                            "realized": _coefficients(pick) if pick and pick.realized else None,
-                            "analysis": [x.summary() for x in every]})
+        emit_json(
+            console,
+            {
+                "source": source,
+                "fs_hz": fs,
+                "method": args.method,
+                "word_format": word,
+                "structure": pick.structure if pick else None,
+                "recommendation": why,
+                "written": list(paths.values()),
+                "ok": ok,
+                "scaling": sc.text if sc else None,
+                "scale_gain": sc.gain if sc else None,
+                "realized": _coefficients(pick) if pick and pick.realized else None,
+                "analysis": [x.summary() for x in every],
+            },
+        )
         return 0 if ok else 1
-    note = (f"output limits {lim[0]:.4g} .. {lim[1]:.4g} V from the card's clamps (--output-limits overrides them)"
-            if getattr(args, "limits_from_card", False) and lim else None)
+    note = (
+        f"output limits {lim[0]:.4g} .. {lim[1]:.4g} V from the card's clamps (--output-limits overrides them)"
+        if getattr(args, "limits_from_card", False) and lim
+        else None
+    )
     _render(console, pick, every, why, paths, word, sc.text if sc else None, note)
     for link in getattr(args, "link_notes", ()):
         console.print(f"note: {link}", markup=False)
@@ -209,11 +308,14 @@ def _coefficients(pick) -> dict:
     if r.structure in ("direct1", "direct2t"):
         out = {"b": list(r.sections[0].b), "a": list(r.sections[0].a)}
     else:
-        out = {"sos": [list(s.b) + [0.0] * (3 - len(s.b)) + list(s.a) + [0.0] * (3 - len(s.a)) for s in r.sections],
-               "operator": "delta" if r.form == "delta" else "z^-1"}
+        out = {
+            "sos": [list(s.b) + [0.0] * (3 - len(s.b)) + list(s.a) + [0.0] * (3 - len(s.a)) for s in r.sections],
+            "operator": "delta" if r.form == "delta" else "z^-1",
+        }
     if r.word.is_fixed:
-        out["words"] = [{"b": list(s.b_int), "a": list(s.a_int), "shift": s.shift, "b_shift": s.b_shift}
-                        for s in r.sections]
+        out["words"] = [
+            {"b": list(s.b_int), "a": list(s.a_int), "shift": s.shift, "b_shift": s.b_shift} for s in r.sections
+        ]
         out["node_scales"] = list(r.node_scales)
     return out
 
@@ -225,8 +327,11 @@ def _render(console, pick, every, why, paths, word, scale_text=None, limits_note
             p(f"{x.structure:9} not offered: {x.refused}", markup=False)
             continue
         state = "ok" if x.ok else "FAILS"
-        p(f"{x.structure:9} {state}: quantization alone {x.gain_error_db:.3g} dB, {x.phase_error_deg:.3g} deg; "
-          f"largest |z| = {x.max_pole_radius:.10g}", markup=False)
+        p(
+            f"{x.structure:9} {state}: quantization alone {x.gain_error_db:.3g} dB, {x.phase_error_deg:.3g} deg; "
+            f"largest |z| = {x.max_pole_radius:.10g}",
+            markup=False,
+        )
         for f in x.failures:
             p(f"          {f}", markup=False)
     p(f"recommendation for {word}: {why}", markup=False)
@@ -300,30 +405,61 @@ def _pid_block(args, console, controller, source, fs, word, lang, lim, sc=None) 
 
         settings = scale_pid(settings, sc)
     tt = positive_value(args.tracking_time, "second", "--tracking-time") if args.tracking_time else None
-    with at(None, rename={"anti_windup": "--anti-windup", "tracking_time": "--tracking-time",
-                          "output_limits": "--output-limits", "name": "--name"}):
-        block = PidBlock.from_settings(settings, fs, form="velocity" if args.velocity else "positional", limits=lim,
-                                       anti_windup=args.anti_windup, tracking_time_s=tt, word_format=word)
+    with at(
+        None,
+        rename={
+            "anti_windup": "--anti-windup",
+            "tracking_time": "--tracking-time",
+            "output_limits": "--output-limits",
+            "name": "--name",
+        },
+    ):
+        block = PidBlock.from_settings(
+            settings,
+            fs,
+            form="velocity" if args.velocity else "positional",
+            limits=lim,
+            anti_windup=args.anti_windup,
+            tracking_time_s=tt,
+            word_format=word,
+        )
         files = emit_pid_c(block, args.name, source=source)
     paths = _write(args, files)
-    info = {"kind": "pid-block", "form": block.form, "scaling": sc.text if sc else None,
-            "scaled_gains": {"kp": settings.kp, "ki": settings.ki, "kd": settings.kd, "action": settings.action}, "anti_windup": block.anti_windup,
-            "tracking_time_s": block.tracking_time_s if block.anti_windup == "track" else None,
-            "limits": block.limits, "constants": block.constants(), "word_format": word, "fs_hz": fs,
-            "written": list(paths.values())}
+    info = {
+        "kind": "pid-block",
+        "form": block.form,
+        "scaling": sc.text if sc else None,
+        "scaled_gains": {"kp": settings.kp, "ki": settings.ki, "kd": settings.kd, "action": settings.action},
+        "anti_windup": block.anti_windup,
+        "tracking_time_s": block.tracking_time_s if block.anti_windup == "track" else None,
+        "limits": block.limits,
+        "constants": block.constants(),
+        "word_format": word,
+        "fs_hz": fs,
+        "written": list(paths.values()),
+    }
     if args.json:
         emit_json(console, info)
         return 0
     k = block.constants()
     if sc is not None:
         console.print(f"scaling: {sc.text}", markup=False)
-        console.print(f"scaled gains (firmware units): kp = {settings.kp:.6g}, ki = {settings.ki:.6g} 1/s, "
-                      f"kd = {settings.kd:.6g} s, action {settings.action}", markup=False)
-    console.print(f"PID block, {block.form} form, {word}; kp = {k['kp']:.6g}, ki*T = {k['bi']:.6g}, "
-                  f"kd/(Tf+T) = {k['bd']:.6g}, b = {block.b:g}, c = {block.c:g}", markup=False)
-    console.print(f"anti-windup: {block.anti_windup}"
-                  + (f", tracking time constant {block.tracking_time_s:.4g} s" if block.anti_windup == "track" else "")
-                  + (f"; limits {lim[0]:g} .. {lim[1]:g}" if lim else "; no output limits (no clamp)"), markup=False)
+        console.print(
+            f"scaled gains (firmware units): kp = {settings.kp:.6g}, ki = {settings.ki:.6g} 1/s, "
+            f"kd = {settings.kd:.6g} s, action {settings.action}",
+            markup=False,
+        )
+    console.print(
+        f"PID block, {block.form} form, {word}; kp = {k['kp']:.6g}, ki*T = {k['bi']:.6g}, "
+        f"kd/(Tf+T) = {k['bd']:.6g}, b = {block.b:g}, c = {block.c:g}",
+        markup=False,
+    )
+    console.print(
+        f"anti-windup: {block.anti_windup}"
+        + (f", tracking time constant {block.tracking_time_s:.4g} s" if block.anti_windup == "track" else "")
+        + (f"; limits {lim[0]:g} .. {lim[1]:g}" if lim else "; no output limits (no clamp)"),
+        markup=False,
+    )
     for p in paths.values():
         console.print(f"wrote {p}", markup=False)
     console.print("The tool computes; it does not certify. Bench-test the code before a live swap.", markup=False)

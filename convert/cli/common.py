@@ -9,8 +9,7 @@ import argparse
 import json
 
 PID_HELP = (
-    "PID settings as KEY=VALUE words, e.g. --pid kc=2 ti=30s td=5s n=10 "
-    "(see `loopshift show --help` for every key)"
+    "PID settings as KEY=VALUE words, e.g. --pid kc=2 ti=30s td=5s n=10 (see `loopshift show --help` for every key)"
 )
 
 
@@ -39,8 +38,9 @@ def controller_from_args(args, *, fs_hz: float | None = None):
     if expression and pid_words:
         raise InputError("give either an expression or --pid, not both", where="command line")
     if not expression and not pid_words:
-        raise InputError("give a controller: an expression such as \"2*(1+1/(30*s))\" or --pid kc=2 ti=30s",
-                         where="command line")
+        raise InputError(
+            'give a controller: an expression such as "2*(1+1/(30*s))" or --pid kc=2 ti=30s', where="command line"
+        )
     if expression:
         return from_expression(expression, fs_hz=fs_hz, label="expression"), None
     from convert.pid import pid_from_words
@@ -88,8 +88,7 @@ def band_from_args(words) -> tuple[float, float] | None:
         return None
     band = (positive_value(words[0], "hz", "--band"), positive_value(words[1], "hz", "--band"))
     if not band[0] < band[1]:
-        raise InputError(f"the band's low end must be below its high end, found {words[0]} .. {words[1]}",
-                         key="--band")
+        raise InputError(f"the band's low end must be below its high end, found {words[0]} .. {words[1]}", key="--band")
     from convert.compare.frequency import band_width_problem
 
     problem = band_width_problem(*band)
@@ -122,7 +121,7 @@ class at:  # noqa: N801 - used as a context manager: ``with at("--part"): ...``
     def __enter__(self):
         return self
 
-    def __exit__(self, kind, exc, tb):
+    def __exit__(self, kind, exc, _tb):
         from convert.errors import LoopshiftError
 
         if isinstance(exc, LoopshiftError):
@@ -163,8 +162,9 @@ def check_output_files(named: dict[str, str | None], *, force: bool) -> list[Out
         if not path:
             continue
         if path.endswith(("/", os.sep)) or os.path.isdir(path):
-            raise InputError(f"{path!r} is a folder; give a file name such as {os.path.join(path, 'out' + _ext(option))}",
-                             key=option)
+            raise InputError(
+                f"{path!r} is a folder; give a file name such as {os.path.join(path, 'out' + _ext(option))}", key=option
+            )
         real = os.path.realpath(path)
         note = f"{option} {path!r} is a link; writing to {real!r}" if os.path.islink(path) else None
         if real in seen:
@@ -172,13 +172,17 @@ def check_output_files(named: dict[str, str | None], *, force: bool) -> list[Out
         seen[real] = option
         kind = file_kind(real)
         if kind is not None:
-            raise InputError(f"{path!r} is {kind}; outputs are written only as regular files (new or, with --force, "
-                             "replaced): give a file name", key=option)
+            raise InputError(
+                f"{path!r} is {kind}; outputs are written only as regular files (new or, with --force, "
+                "replaced): give a file name",
+                key=option,
+            )
         folder = os.path.dirname(real)
         shown = os.path.dirname(path) or "."
         if not os.path.isdir(folder):
-            raise InputError(f"the folder {shown!r} does not exist; create it first or choose another place",
-                             key=option)
+            raise InputError(
+                f"the folder {shown!r} does not exist; create it first or choose another place", key=option
+            )
         if not os.access(folder, os.W_OK):
             raise InputError(f"cannot write in the folder {shown!r} (permission denied)", key=option)
         if os.path.exists(real) and not force:
@@ -207,8 +211,9 @@ def write_outputs(outputs: list[OutputFile], writers: dict[str, object]) -> None
             try:
                 staged.append((out, _stage(out.path, content)))
             except OSError as exc:
-                raise InputError(f"cannot write {out.given!r} ({exc.strerror or exc}); nothing was written",
-                                 key=out.option) from None
+                raise InputError(
+                    f"cannot write {out.given!r} ({exc.strerror or exc}); nothing was written", key=out.option
+                ) from None
         done: list[tuple[OutputFile, str | None]] = []
         failing = None
         try:
@@ -229,8 +234,10 @@ def write_outputs(outputs: list[OutputFile], writers: dict[str, object]) -> None
                     os.replace(backup, put.path)
                 else:
                     os.unlink(put.path)
-            raise InputError(f"cannot put {failing.given!r} in place ({exc.strerror or exc}); nothing was written",
-                             key=failing.option) from None
+            raise InputError(
+                f"cannot put {failing.given!r} in place ({exc.strerror or exc}); nothing was written",
+                key=failing.option,
+            ) from None
         for _, backup in done:
             if backup:
                 os.unlink(backup)
@@ -297,7 +304,9 @@ def write_text_atomic(path: str, text: str) -> None:
     write_file_atomic(path, lambda tmp: _write_text(tmp, text))
 
 
-def fit_columns(header: list[str], rows: list[list[str]], width: int, gap: int = 2) -> tuple[list[int], list[str], list[list[str]]]:
+def fit_columns(
+    header: list[str], rows: list[list[str]], width: int, gap: int = 2
+) -> tuple[list[int], list[str], list[list[str]]]:
     """Column widths that fit ``width`` terminal columns without breaking a word, and the header
     and cells wrapped to them (lines joined by newlines).
 
@@ -310,9 +319,12 @@ def fit_columns(header: list[str], rows: list[list[str]], width: int, gap: int =
 
     def longest(texts, hyphens: bool, whole: int) -> int:
         # cells up to ``whole`` characters (a number with its unit) stay on one line
-        return max(len(t) if len(t) <= whole else
-                   max(len(p) for p in textwrap.wrap(t, 1, break_long_words=False, break_on_hyphens=hyphens) or [""])
-                   for t in texts)
+        return max(
+            len(t)
+            if len(t) <= whole
+            else max(len(p) for p in textwrap.wrap(t, 1, break_long_words=False, break_on_hyphens=hyphens) or [""])
+            for t in texts
+        )
 
     natural = [max(len(t) for t in col) for col in columns]
     room = width - gap * (len(columns) - 1)
@@ -332,5 +344,8 @@ def fit_columns(header: list[str], rows: list[list[str]], width: int, gap: int =
     def wrap(text: str, w: int) -> str:
         return "\n".join(textwrap.wrap(text, w, break_long_words=False, break_on_hyphens=hyphens)) or text
 
-    return (widths, [wrap(h, w) for h, w in zip(header, widths)],
-            [[wrap(c, w) for c, w in zip(row, widths)] for row in rows])
+    return (
+        widths,
+        [wrap(h, w) for h, w in zip(header, widths)],
+        [[wrap(c, w) for c, w in zip(row, widths)] for row in rows],
+    )

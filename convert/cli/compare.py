@@ -44,72 +44,167 @@ examples:
 Exit code 0 pass, 1 fail, 2 bad input. Details: docs/compare.md"""
 
 LIMIT_OPTIONS = (
-    ("--max-gain-error", "max_gain_error_db", "number", "largest gain error over the band, dB (default 1), e.g. --max-gain-error 0.5"),
-    ("--max-phase-error", "max_phase_error_deg", "number", "largest phase error over the band, deg (default 5), e.g. --max-phase-error 3"),
-    ("--max-phase-margin-change", "max_phase_margin_change_deg", "number",
-     "largest phase-margin change with --plant, deg, e.g. --max-phase-margin-change 3"),
-    ("--max-gain-margin-change", "max_gain_margin_change_db", "number",
-     "largest gain-margin change with --plant, dB, e.g. --max-gain-margin-change 1"),
-    ("--max-peak-change", "max_sensitivity_peak_change_db", "number",
-     "largest sensitivity-peak change with --plant, dB, e.g. --max-peak-change 0.5"),
-    ("--max-step-deviation", "max_step_deviation", "ratio",
-     "largest setpoint-step response deviation with --plant, fraction of the step, e.g. --max-step-deviation 3%%"),
-    ("--max-disturbance-deviation", "max_disturbance_deviation", "ratio",
-     "largest load-step response deviation with --plant, fraction of the peak, e.g. --max-disturbance-deviation 5%%"),
+    (
+        "--max-gain-error",
+        "max_gain_error_db",
+        "number",
+        "largest gain error over the band, dB (default 1), e.g. --max-gain-error 0.5",
+    ),
+    (
+        "--max-phase-error",
+        "max_phase_error_deg",
+        "number",
+        "largest phase error over the band, deg (default 5), e.g. --max-phase-error 3",
+    ),
+    (
+        "--max-phase-margin-change",
+        "max_phase_margin_change_deg",
+        "number",
+        "largest phase-margin change with --plant, deg, e.g. --max-phase-margin-change 3",
+    ),
+    (
+        "--max-gain-margin-change",
+        "max_gain_margin_change_db",
+        "number",
+        "largest gain-margin change with --plant, dB, e.g. --max-gain-margin-change 1",
+    ),
+    (
+        "--max-peak-change",
+        "max_sensitivity_peak_change_db",
+        "number",
+        "largest sensitivity-peak change with --plant, dB, e.g. --max-peak-change 0.5",
+    ),
+    (
+        "--max-step-deviation",
+        "max_step_deviation",
+        "ratio",
+        "largest setpoint-step response deviation with --plant, fraction of the step, e.g. --max-step-deviation 3%%",
+    ),
+    (
+        "--max-disturbance-deviation",
+        "max_disturbance_deviation",
+        "ratio",
+        "largest load-step response deviation with --plant, fraction of the peak, e.g. --max-disturbance-deviation 5%%",
+    ),
 )
 
 
 def add_parser(subparsers) -> argparse.ArgumentParser:
-    p = subparsers.add_parser("compare", help=HELP, description=DESCRIPTION, epilog=EPILOG,
-                              formatter_class=argparse.RawDescriptionHelpFormatter)
-    p.add_argument("a", metavar="A", help="the reference form, e.g. \"2*(1 + 1/(30s))\" or \"pid: kc=2 ti=30s\"")
-    p.add_argument("b", metavar="B", nargs="?",
-                   help="the form to check against A, e.g. \"digital: b=0.51,-0.49 a=1,-1 fs=10Hz\"")
+    p = subparsers.add_parser(
+        "compare",
+        help=HELP,
+        description=DESCRIPTION,
+        epilog=EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    p.add_argument("a", metavar="A", help='the reference form, e.g. "2*(1 + 1/(30s))" or "pid: kc=2 ti=30s"')
+    p.add_argument(
+        "b", metavar="B", nargs="?", help='the form to check against A, e.g. "digital: b=0.51,-0.49 a=1,-1 fs=10Hz"'
+    )
     p.add_argument("--fs", metavar="HZ", help="sample rate of a digital A or B that names none, e.g. --fs 10Hz")
-    p.add_argument("--band", nargs=2, metavar=("LOW", "HIGH"),
-                   help="band of comparison, e.g. --band 10mHz 2Hz (default: a decade beyond the corners)")
-    p.add_argument("--plant", metavar="EXPR", help="plant model in s for the loop checks, e.g. --plant \"1.2/(0.8s+1)\"")
+    p.add_argument(
+        "--band",
+        nargs=2,
+        metavar=("LOW", "HIGH"),
+        help="band of comparison, e.g. --band 10mHz 2Hz (default: a decade beyond the corners)",
+    )
+    p.add_argument("--plant", metavar="EXPR", help='plant model in s for the loop checks, e.g. --plant "1.2/(0.8s+1)"')
     p.add_argument("--dead-time", metavar="S", help="plant dead time, e.g. --dead-time 300ms (default 0)")
-    p.add_argument("--output-limits", nargs=2, metavar=("LOW", "HIGH"),
-                   help="actuator range clamping both loops' outputs in the step tests, e.g. --output-limits -10 10")
+    p.add_argument(
+        "--output-limits",
+        nargs=2,
+        metavar=("LOW", "HIGH"),
+        help="actuator range clamping both loops' outputs in the step tests, e.g. --output-limits -10 10",
+    )
     for option, _key, _kind, text in LIMIT_OPTIONS:
         p.add_argument(option, metavar="X", help=text)
-    p.add_argument("--draws", metavar="N", type=int, help="Monte Carlo draws for a card with tolerances "
-                                                          "(default 2000), e.g. --draws 500")
+    p.add_argument(
+        "--draws",
+        metavar="N",
+        type=int,
+        help="Monte Carlo draws for a card with tolerances (default 2000), e.g. --draws 500",
+    )
     g = p.add_argument_group("evidence: a bench sweep of A (instead of B)")
-    g.add_argument("--sweep", metavar="FILE", help="measured frequency response of A as CSV, header e.g. "
-                                                   "'frequency (Hz),gain (dB),phase (deg)', e.g. --sweep bench.csv")
-    g.add_argument("--sweep-columns", nargs="+", metavar="ROLE=NAME",
-                   help="map other headers: roles frequency, gain, phase, coherence, e.g. --sweep-columns "
-                        "frequency=Freq gain=Mag")
-    g.add_argument("--sweep-units", nargs="+", metavar="ROLE=UNIT",
-                   help="units where the header has none: Hz kHz MHz rad/s; dB V/V; deg rad, e.g. --sweep-units gain=V/V")
-    g.add_argument("--decimal", metavar="C", default=".",
-                   help="the file's decimal mark: . (default) or , (then fields are separated by ; or tabs), "
-                        "e.g. --decimal ,")
-    g.add_argument("--averages", metavar="N", type=int,
-                   help="averages the analyzer used; with a coherence column it gives each point's noise, "
-                        "e.g. --averages 10")
-    g.add_argument("--min-coherence", metavar="X", help="lowest coherence of a trusted point (default 0.9), "
-                                                        "e.g. --min-coherence 0.95")
-    g.add_argument("--inverted", action="store_true",
-                   help="the bench read an inverting stage at its output: the measurement is −A, e.g. --inverted")
-    g.add_argument("--fit", nargs="*", metavar="NAME",
-                   help="estimate A's values from the sweep (all parts or PID parameters, or the NAMEs given), "
-                        "e.g. --fit or --fit R7 RV1")
+    g.add_argument(
+        "--sweep",
+        metavar="FILE",
+        help="measured frequency response of A as CSV, header e.g. "
+        "'frequency (Hz),gain (dB),phase (deg)', e.g. --sweep bench.csv",
+    )
+    g.add_argument(
+        "--sweep-columns",
+        nargs="+",
+        metavar="ROLE=NAME",
+        help="map other headers: roles frequency, gain, phase, coherence, e.g. --sweep-columns frequency=Freq gain=Mag",
+    )
+    g.add_argument(
+        "--sweep-units",
+        nargs="+",
+        metavar="ROLE=UNIT",
+        help="units where the header has none: Hz kHz MHz rad/s; dB V/V; deg rad, e.g. --sweep-units gain=V/V",
+    )
+    g.add_argument(
+        "--decimal",
+        metavar="C",
+        default=".",
+        help="the file's decimal mark: . (default) or , (then fields are separated by ; or tabs), e.g. --decimal ,",
+    )
+    g.add_argument(
+        "--averages",
+        metavar="N",
+        type=int,
+        help="averages the analyzer used; with a coherence column it gives each point's noise, e.g. --averages 10",
+    )
+    g.add_argument(
+        "--min-coherence",
+        metavar="X",
+        help="lowest coherence of a trusted point (default 0.9), e.g. --min-coherence 0.95",
+    )
+    g.add_argument(
+        "--inverted",
+        action="store_true",
+        help="the bench read an inverting stage at its output: the measurement is −A, e.g. --inverted",
+    )
+    g.add_argument(
+        "--fit",
+        nargs="*",
+        metavar="NAME",
+        help="estimate A's values from the sweep (all parts or PID parameters, or the NAMEs given), "
+        "e.g. --fit or --fit R7 RV1",
+    )
     lg = p.add_argument_group("evidence: a plant log, replayed through A (and B)")
-    lg.add_argument("--log", metavar="FILE", help="logged controller input and output as CSV, header e.g. "
-                                                  "'time (s),error,output' or 'time (s),setpoint,measurement,output', "
-                                                  "e.g. --log plant.csv")
-    lg.add_argument("--log-columns", nargs="+", metavar="ROLE=NAME",
-                    help="map other headers: roles time, setpoint, measurement, error, output, e.g. --log-columns "
-                         "time=Timestamp output=MV")
-    lg.add_argument("--log-units", nargs="+", metavar="ROLE=UNIT", help="time unit where the header has none: s ms "
-                                                                         "min h, e.g. --log-units time=ms")
-    lg.add_argument("--max-residual-rms", metavar="X", help="largest RMS replay residual about its offset, as a "
-                                                            "fraction of the output's range, e.g. --max-residual-rms 1%%")
-    lg.add_argument("--max-residual-peak", metavar="X", help="largest peak replay residual about its offset, as a "
-                                                             "fraction of the output's range, e.g. --max-residual-peak 5%%")
+    lg.add_argument(
+        "--log",
+        metavar="FILE",
+        help="logged controller input and output as CSV, header e.g. "
+        "'time (s),error,output' or 'time (s),setpoint,measurement,output', "
+        "e.g. --log plant.csv",
+    )
+    lg.add_argument(
+        "--log-columns",
+        nargs="+",
+        metavar="ROLE=NAME",
+        help="map other headers: roles time, setpoint, measurement, error, output, e.g. --log-columns "
+        "time=Timestamp output=MV",
+    )
+    lg.add_argument(
+        "--log-units",
+        nargs="+",
+        metavar="ROLE=UNIT",
+        help="time unit where the header has none: s ms min h, e.g. --log-units time=ms",
+    )
+    lg.add_argument(
+        "--max-residual-rms",
+        metavar="X",
+        help="largest RMS replay residual about its offset, as a "
+        "fraction of the output's range, e.g. --max-residual-rms 1%%",
+    )
+    lg.add_argument(
+        "--max-residual-peak",
+        metavar="X",
+        help="largest peak replay residual about its offset, as a "
+        "fraction of the output's range, e.g. --max-residual-peak 5%%",
+    )
     p.add_argument("--json", action="store_true", help="print the results as JSON, e.g. --json")
     return p
 
@@ -136,8 +231,10 @@ def run(args, console) -> int:
     if args.sweep is not None and args.log is not None:
         raise InputError("give one measurement at a time: --sweep or --log", key="--log")
     if args.b is None and args.sweep is None and args.log is None:
-        raise InputError("give the form B to compare A with, or a measurement of A (--sweep FILE.csv or "
-                         "--log FILE.csv)", where="command line")
+        raise InputError(
+            "give the form B to compare A with, or a measurement of A (--sweep FILE.csv or --log FILE.csv)",
+            where="command line",
+        )
     if args.b is not None and args.sweep is not None:
         raise InputError("a sweep is evidence about A alone; give B or --sweep, not both", key="--sweep")
     if args.decimal not in (".", ","):
@@ -156,7 +253,11 @@ def run(args, console) -> int:
     for option, key, kind, _ in LIMIT_OPTIONS:
         text = getattr(args, option[2:].replace("-", "_"))
         if text is not None:
-            value = parse_fraction(text, field=option, allow_one=False) if kind == "ratio" else parse_value(text, kind, field=option)
+            value = (
+                parse_fraction(text, field=option, allow_one=False)
+                if kind == "ratio"
+                else parse_value(text, kind, field=option)
+            )
             if not value > 0:
                 raise InputError(f"expected a positive limit, found {text!r}", key=option)
             limits[key] = value
@@ -173,8 +274,16 @@ def run(args, console) -> int:
         b = read_spec(args.b, "B", fs_hz=fs, base_dir=Path.cwd()) if args.b is not None else None
         return _run_log(args, console, a, b, limits_out)
     b = read_spec(args.b, "B", fs_hz=fs, base_dir=Path.cwd())
-    result = compare_pair(a, b, band_hz=band, plant_expression=args.plant, dead_time_s=dead,
-                          output_range=limits_out, limits=limits, draws=draws)
+    result = compare_pair(
+        a,
+        b,
+        band_hz=band,
+        plant_expression=args.plant,
+        dead_time_s=dead,
+        output_range=limits_out,
+        limits=limits,
+        draws=draws,
+    )
     if args.json:
         emit_json(console, pair_json(result))
     else:
@@ -206,11 +315,24 @@ def _run_sweep(args, console, a, band, limits) -> int:
             raise InputError(f"coherence lies between 0 and 1, found {args.min_coherence}", key="--min-coherence")
     if args.averages is not None and args.averages < 1:
         raise InputError(f"expected a whole number of at least 1, found {args.averages}", key="--averages")
-    sweep = read_sweep(args.sweep, columns=_pairs(args.sweep_columns, "--sweep-columns"),
-                       units=_pairs(args.sweep_units, "--sweep-units"), decimal=args.decimal, averages=args.averages,
-                       option="--sweep-columns")
-    ev = sweep_evidence(a, sweep, band_hz=band, limits=limits, inverted=args.inverted, min_coherence=min_coh,
-                        fit=args.fit is not None, fit_names=tuple(args.fit) if args.fit else None)
+    sweep = read_sweep(
+        args.sweep,
+        columns=_pairs(args.sweep_columns, "--sweep-columns"),
+        units=_pairs(args.sweep_units, "--sweep-units"),
+        decimal=args.decimal,
+        averages=args.averages,
+        option="--sweep-columns",
+    )
+    ev = sweep_evidence(
+        a,
+        sweep,
+        band_hz=band,
+        limits=limits,
+        inverted=args.inverted,
+        min_coherence=min_coh,
+        fit=args.fit is not None,
+        fit_names=tuple(args.fit) if args.fit else None,
+    )
     if args.json:
         data = ev.as_dict()
         data["a"] = a.summary()
@@ -231,8 +353,9 @@ def _run_log(args, console, a, b, output_limits) -> int:
     fit = None
     if args.fit is not None:
         if "pid" not in a.data:
-            raise InputError("fitting from a log needs A as PID settings or a PID block (\"pid: kc=... ti=...\")",
-                             key="--fit")
+            raise InputError(
+                'fitting from a log needs A as PID settings or a PID block ("pid: kc=... ti=...")', key="--fit"
+            )
         fit = a
     forms = [("A", a)] + ([("B", b)] if b is not None else [])
     if output_limits is None:
@@ -245,9 +368,15 @@ def _run_log(args, console, a, b, output_limits) -> int:
             if not value > 0:
                 raise InputError(f"expected a positive fraction, found {text!r}", key=option)
             limits[key] = value
-    ev = log_evidence(args.log, forms, columns=_pairs(args.log_columns, "--log-columns"),
-                      units=_pairs(args.log_units, "--log-units"), decimal=args.decimal, output_limits=output_limits,
-                      fit=fit)
+    ev = log_evidence(
+        args.log,
+        forms,
+        columns=_pairs(args.log_columns, "--log-columns"),
+        units=_pairs(args.log_units, "--log-units"),
+        decimal=args.decimal,
+        output_limits=output_limits,
+        fit=fit,
+    )
     verdict = judge_log(ev, limits)
     if args.json:
         data = ev.as_dict()
@@ -283,15 +412,20 @@ def render_log(console, ev, verdict) -> None:
     def sec(x):
         return format_value(x, "second", 4) if x < 60 else f"{x:.6g} s"
 
-    console.print(f"log: {ev.path.name}, {ev.rows:,} rows, {sec(ev.t_span_s[0])} .. {sec(ev.t_span_s[1])}, "
-                  f"step {sec(ev.step_s)}" + (" (uneven; replayed at each row's own step)" if ev.uneven else ""),
-                  markup=False)
-    console.print(f"input: {ev.input_kind}; output range {ev.output_range[0]:.6g} .. {ev.output_range[1]:.6g}",
-                  markup=False)
+    console.print(
+        f"log: {ev.path.name}, {ev.rows:,} rows, {sec(ev.t_span_s[0])} .. {sec(ev.t_span_s[1])}, "
+        f"step {sec(ev.step_s)}" + (" (uneven; replayed at each row's own step)" if ev.uneven else ""),
+        markup=False,
+    )
+    console.print(
+        f"input: {ev.input_kind}; output range {ev.output_range[0]:.6g} .. {ev.output_range[1]:.6g}", markup=False
+    )
     if ev.gap_count:
         first = ", ".join(f"{sec(a)} .. {sec(b)}" for a, b in ev.gaps[:3])
-        console.print(f"gaps (step over {5:g}× the usual): {ev.gap_count}, e.g. {first}; the input is interpolated "
-                      "across them", markup=False)
+        console.print(
+            f"gaps (step over {5:g}× the usual): {ev.gap_count}, e.g. {first}; the input is interpolated across them",
+            markup=False,
+        )
     if ev.saturated_rows:
         first = ", ".join(f"{sec(a)} .. {sec(b)}" for a, b in ev.saturated_spans[:3])
         console.print(f"saturated: {ev.saturated_rows:,} rows (e.g. {first}), left out of the figures", markup=False)
@@ -302,10 +436,13 @@ def render_log(console, ev, verdict) -> None:
         if not f["n"]:
             console.print(f"{r.name}: no usable rows", markup=False)
             continue
-        console.print(f"{r.name} replayed: offset {f['offset']:.4g} ({100 * (f['offset_rel'] or 0):.3g} % of range, "
-                      f"reported, not removed from the log); about it RMS {f['rms']:.4g} "
-                      f"({100 * (f['rms_rel'] or 0):.3g} %), peak {f['peak']:.4g} ({100 * (f['peak_rel'] or 0):.3g} %) "
-                      f"over {f['n']:,} rows", markup=False)
+        console.print(
+            f"{r.name} replayed: offset {f['offset']:.4g} ({100 * (f['offset_rel'] or 0):.3g} % of range, "
+            f"reported, not removed from the log); about it RMS {f['rms']:.4g} "
+            f"({100 * (f['rms_rel'] or 0):.3g} %), peak {f['peak']:.4g} ({100 * (f['peak_rel'] or 0):.3g} %) "
+            f"over {f['n']:,} rows",
+            markup=False,
+        )
     if ev.fit is not None:
         fit = ev.fit
         console.print(f"fit of the {fit.form} from the log ({fit.rows:,} rows; 95 % intervals):", markup=False)
@@ -320,14 +457,18 @@ def render_log(console, ev, verdict) -> None:
         console.print(f"note: {note}", markup=False)
     for j in verdict["judgements"]:
         value = "—" if j["value"] is None else f"{100 * j['value']:.3g} %"
-        console.print(f"{j['form']}: {j['criterion'].replace('_', ' ')} {value} (limit {100 * j['limit']:g} %) "
-                      f"{j['status'].upper()}", markup=False)
+        console.print(
+            f"{j['form']}: {j['criterion'].replace('_', ' ')} {value} (limit {100 * j['limit']:g} %) "
+            f"{j['status'].upper()}",
+            markup=False,
+        )
     if verdict["overall"] == "none":
         console.print("verdict: none (no residual limit given: figures only, nothing judged)", markup=False)
     else:
         console.print(f"verdict: {verdict['overall'].upper()}", markup=False)
-    console.print("The tool computes; it does not certify. Verify on a bench or in simulation before a live swap.",
-                  markup=False)
+    console.print(
+        "The tool computes; it does not certify. Verify on a bench or in simulation before a live swap.", markup=False
+    )
 
 
 def render_sweep(console, a, ev) -> None:
@@ -344,22 +485,37 @@ def render_sweep(console, a, ev) -> None:
 
     sw, chk = ev.sweep, ev.check
     console.print(f"A (model): {_what(a, describe)}", markup=False)
-    console.print(f"sweep: {sw.path.name}, {sw.f_hz.size} points, {hz(sw.f_hz[0])} .. {hz(sw.f_hz[-1])}"
-                  + (f", {sw.repeats} repeats" if sw.repeats > 1 else ""), markup=False)
+    console.print(
+        f"sweep: {sw.path.name}, {sw.f_hz.size} points, {hz(sw.f_hz[0])} .. {hz(sw.f_hz[-1])}"
+        + (f", {sw.repeats} repeats" if sw.repeats > 1 else ""),
+        markup=False,
+    )
     console.print(f"noise (1 σ): {chk.noise_source}", markup=False)
-    console.print(f"band {hz(ev.band_hz[0])} .. {hz(ev.band_hz[1])}" + (" (the sweep's range)" if ev.band_default
-                                                                       else ""), markup=False)
+    console.print(
+        f"band {hz(ev.band_hz[0])} .. {hz(ev.band_hz[1])}" + (" (the sweep's range)" if ev.band_default else ""),
+        markup=False,
+    )
     trusted = ", ".join(f"{hz(lo)} .. {hz(hi)}" for lo, hi in chk.trusted_bands) or "nowhere"
     console.print(f"trusted (noise and coherence good enough to judge the limits): {trusted}", markup=False)
-    t = Table(title="measured against the model (error ± 2σ noise)", title_justify="left", box=box.SIMPLE_HEAD,
-              show_edge=False, pad_edge=False)
+    t = Table(
+        title="measured against the model (error ± 2σ noise)",
+        title_justify="left",
+        box=box.SIMPLE_HEAD,
+        show_edge=False,
+        pad_edge=False,
+    )
     for name in ("frequency", "measured dB", "model dB", "gain error dB", "phase error deg", "trusted"):
         t.add_column(name, justify="right", no_wrap=True)
     picks = _spread(sw.f_hz, 12)
     for i in picks:
-        t.add_row(hz(sw.f_hz[i]), f"{20 * np.log10(abs(sw.response[i])):.3f}", f"{20 * np.log10(abs(ev.model[i])):.3f}",
-                  f"{chk.gain_error_db[i]:+.3f} ± {2 * chk.noise_db[i]:.3f}",
-                  f"{chk.phase_error_deg[i]:+.2f} ± {2 * chk.noise_deg[i]:.2f}", "yes" if chk.trusted[i] else "no")
+        t.add_row(
+            hz(sw.f_hz[i]),
+            f"{20 * np.log10(abs(sw.response[i])):.3f}",
+            f"{20 * np.log10(abs(ev.model[i])):.3f}",
+            f"{chk.gain_error_db[i]:+.3f} ± {2 * chk.noise_db[i]:.3f}",
+            f"{chk.phase_error_deg[i]:+.2f} ± {2 * chk.noise_deg[i]:.2f}",
+            "yes" if chk.trusted[i] else "no",
+        )
     console.print(t)
     for j in ev.verdict.judgements:
         if j.status != "not set":
@@ -372,8 +528,9 @@ def render_sweep(console, a, ev) -> None:
     if ev.fit is not None:
         _render_fit(console, ev.fit)
     console.print(f"verdict: {ev.verdict.overall.upper()} (the measurement against the model of A)", markup=False)
-    console.print("The tool computes; it does not certify. Verify on a bench or in simulation before a live swap.",
-                  markup=False)
+    console.print(
+        "The tool computes; it does not certify. Verify on a bench or in simulation before a live swap.", markup=False
+    )
 
 
 def _spread(f, n: int) -> list[int]:
@@ -387,24 +544,37 @@ def _spread(f, n: int) -> list[int]:
 def _render_fit(console, fit) -> None:
     from convert.evidence.fit import value_text
 
-    console.print(f"fit of the {fit.model} (weighted least squares; 95 % intervals; χ²/dof {fit.chi2_dof:.3g} "
-                  f"after, {fit.chi2_dof_drawn:.3g} as drawn):", markup=False)
+    console.print(
+        f"fit of the {fit.model} (weighted least squares; 95 % intervals; χ²/dof {fit.chi2_dof:.3g} "
+        f"after, {fit.chi2_dof_drawn:.3g} as drawn):",
+        markup=False,
+    )
     for v in fit.values:
         drawn = value_text(v.drawn, v.kind, 4)
         if v.determined:
             mark = "  (changed)" if v.significant else ""
-            console.print(f"  {v.name} measures as {value_text(v.fitted, v.kind, 3)} ± {100 * v.ci95_fraction:.2g} %, "
-                          f"drawn {drawn}{mark}", markup=False)
+            console.print(
+                f"  {v.name} measures as {value_text(v.fitted, v.kind, 3)} ± {100 * v.ci95_fraction:.2g} %, "
+                f"drawn {drawn}{mark}",
+                markup=False,
+            )
         else:
-            console.print(f"  {v.name}: not determined alone by this measurement (kept as drawn, {drawn})", markup=False)
+            console.print(
+                f"  {v.name}: not determined alone by this measurement (kept as drawn, {drawn})", markup=False
+            )
     if fit.undetermined:
         console.print("  determined: " + ", ".join(fit.determined), markup=False)
-        console.print("  cannot be told apart (these move without changing the response): " + ", ".join(fit.undetermined),
-                      markup=False)
+        console.print(
+            "  cannot be told apart (these move without changing the response): " + ", ".join(fit.undetermined),
+            markup=False,
+        )
     console.print("single changes that could explain the measurement (each value alone, best first):", markup=False)
     for s in fit.singles[:5]:
-        console.print(f"  {s.name}: {value_text(s.drawn, s.kind, 4)} -> {value_text(s.fitted, s.kind, 4)}, "
-                      f"χ²/dof {s.chi2_dof:.3g}" + ("  explains the measurement" if s.explains else ""), markup=False)
+        console.print(
+            f"  {s.name}: {value_text(s.drawn, s.kind, 4)} -> {value_text(s.fitted, s.kind, 4)}, "
+            f"χ²/dof {s.chi2_dof:.3g}" + ("  explains the measurement" if s.explains else ""),
+            markup=False,
+        )
     if not any(s.explains for s in fit.singles):
         console.print("  no single change explains it to its noise", markup=False)
     for note in fit.notes:
@@ -416,18 +586,24 @@ def pair_json(result) -> dict:
     res = result.results
     r = result.realization
     out = {
-        "a": result.a.summary(), "b": result.b.summary(),
-        "a_controller": {"num": list(res.reference.num), "den": list(res.reference.den),
-                         "fs_hz": res.reference.fs_hz},
-        "band_hz": list(result.band_hz), "band_default": result.band_default,
+        "a": result.a.summary(),
+        "b": result.b.summary(),
+        "a_controller": {"num": list(res.reference.num), "den": list(res.reference.den), "fs_hz": res.reference.fs_hz},
+        "band_hz": list(result.band_hz),
+        "band_default": result.band_default,
         "error": result.error.summary(),
         "coefficients_error": result.coefficients_error.summary() if result.coefficients_error else None,
         "spots": result.spots,
-        "agreement": {"intervals_hz": [list(x) for x in result.agreement], "searched_hz": list(result.agreement_grid_hz),
-                      "gain_db": result.gain_limit_db, "phase_deg": result.phase_limit_deg},
+        "agreement": {
+            "intervals_hz": [list(x) for x in result.agreement],
+            "searched_hz": list(result.agreement_grid_hz),
+            "gain_db": result.gain_limit_db,
+            "phase_deg": result.phase_limit_deg,
+        },
         "budget": [row.as_dict() for row in r.budget if row.applicable],
-        "margins": None if res.source_margins is None else {"a": res.source_margins.as_dict(),
-                                                            "b": r.margins.as_dict() if r.margins else None},
+        "margins": None
+        if res.source_margins is None
+        else {"a": res.source_margins.as_dict(), "b": r.margins.as_dict() if r.margins else None},
         "verdict": res.verdict.overall,
         "judgements": [j.as_dict() for j in res.verdict.judgements if j.status != "not set"],
         "notes": result.notes + list(res.notes) + list(r.warnings),
@@ -451,40 +627,67 @@ def _render(console, result) -> None:
         console.print(f"LOOP NOT WORKING: {alarm}", markup=False, style="bold red")
     console.print(f"A (reference): {_what(result.a, describe)}", markup=False)
     console.print(f"B (checked):   {_what(result.b, describe)}", markup=False)
-    console.print(f"band {hz(result.band_hz[0])} .. {hz(result.band_hz[1])}"
-                  + (" (default)" if result.band_default else ""), markup=False)
-    table = Table(title="error of B against A (B as it runs: hold and delay included)", title_justify="left",
-                  box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False)
+    console.print(
+        f"band {hz(result.band_hz[0])} .. {hz(result.band_hz[1])}" + (" (default)" if result.band_default else ""),
+        markup=False,
+    )
+    table = Table(
+        title="error of B against A (B as it runs: hold and delay included)",
+        title_justify="left",
+        box=box.SIMPLE_HEAD,
+        show_edge=False,
+        pad_edge=False,
+    )
     for name in ("frequency", "|A| dB", "|B| dB", "gain error dB", "phase error deg"):
         table.add_column(name, justify="right", no_wrap=True)
     for s in result.spots:
-        table.add_row(hz(s["f_hz"]), f"{s['gain_a_db']:.3f}", f"{s['gain_b_db']:.3f}", f"{s['gain_error_db']:+.4f}",
-                      f"{s['phase_error_deg']:+.3f}")
+        table.add_row(
+            hz(s["f_hz"]),
+            f"{s['gain_a_db']:.3f}",
+            f"{s['gain_b_db']:.3f}",
+            f"{s['gain_error_db']:+.4f}",
+            f"{s['phase_error_deg']:+.3f}",
+        )
     console.print(table)
     e = result.error
-    console.print(f"largest over the band: gain {e.max_gain_error_db:.4g} dB at {hz(e.max_gain_error_at_hz)}, "
-                  f"phase {e.max_phase_error_deg:.4g} deg at {hz(e.max_phase_error_at_hz)}", markup=False)
+    console.print(
+        f"largest over the band: gain {e.max_gain_error_db:.4g} dB at {hz(e.max_gain_error_at_hz)}, "
+        f"phase {e.max_phase_error_deg:.4g} deg at {hz(e.max_phase_error_at_hz)}",
+        markup=False,
+    )
     if e.unbounded_note:
         console.print(f"the error is {e.unbounded_note}", markup=False)
     if result.coefficients_error is not None:
         c = result.coefficients_error
-        console.print(f"coefficients alone (no hold, no delay): gain {c.max_gain_error_db:.4g} dB, "
-                      f"phase {c.max_phase_error_deg:.4g} deg", markup=False)
+        console.print(
+            f"coefficients alone (no hold, no delay): gain {c.max_gain_error_db:.4g} dB, "
+            f"phase {c.max_phase_error_deg:.4g} deg",
+            markup=False,
+        )
     lim = f"{result.gain_limit_db:g} dB and {result.phase_limit_deg:g} deg"
     if result.agreement:
         spans = ", ".join(f"{hz(lo)} .. {hz(hi)}" for lo, hi in result.agreement)
-        console.print(f"agree within {lim} over: {spans} (searched {hz(result.agreement_grid_hz[0])} .. "
-                      f"{hz(result.agreement_grid_hz[1])})", markup=False)
+        console.print(
+            f"agree within {lim} over: {spans} (searched {hz(result.agreement_grid_hz[0])} .. "
+            f"{hz(result.agreement_grid_hz[1])})",
+            markup=False,
+        )
     else:
-        console.print(f"they agree within {lim} nowhere in {hz(result.agreement_grid_hz[0])} .. "
-                      f"{hz(result.agreement_grid_hz[1])}", markup=False)
+        console.print(
+            f"they agree within {lim} nowhere in {hz(result.agreement_grid_hz[0])} .. "
+            f"{hz(result.agreement_grid_hz[1])}",
+            markup=False,
+        )
     rows = [row for row in r.budget if row.applicable and row.key != "total"]
     for row in rows:
-        console.print(f"  {row.label}: {row.max_gain_error_db:.3g} dB, {row.max_phase_error_deg:.3g} deg "
-                      f"({row.note})", markup=False)
+        console.print(
+            f"  {row.label}: {row.max_gain_error_db:.3g} dB, {row.max_phase_error_deg:.3g} deg ({row.note})",
+            markup=False,
+        )
     if res.source_margins is not None:
-        mt = Table(title="loop with the plant", title_justify="left", box=box.SIMPLE_HEAD, show_edge=False,
-                   pad_edge=False)
+        mt = Table(
+            title="loop with the plant", title_justify="left", box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False
+        )
         for name in ("form", "gain margin", "phase margin", "crossover", "sensitivity peak"):
             mt.add_column(name, justify="right" if name != "form" else "left", no_wrap=True)
         for label, m, name in (("A", res.source_margins, "source"), ("B", r.margins, r.name)):
@@ -493,9 +696,13 @@ def _render(console, result) -> None:
             if res.loop_is_stable(name) is False:  # margins of an unstable loop are not robustness
                 mt.add_row(label, "unstable loop", "—", "—", "—")
                 continue
-            mt.add_row(label, "none" if m.gain_margin_db is None else f"{m.gain_margin_db:.3g} dB",
-                       "none" if m.phase_margin_deg is None else f"{m.phase_margin_deg:.3g} deg",
-                       "none" if m.crossover_hz is None else hz(m.crossover_hz), f"{m.sensitivity_peak_db:.3g} dB")
+            mt.add_row(
+                label,
+                "none" if m.gain_margin_db is None else f"{m.gain_margin_db:.3g} dB",
+                "none" if m.phase_margin_deg is None else f"{m.phase_margin_deg:.3g} deg",
+                "none" if m.crossover_hz is None else hz(m.crossover_hz),
+                f"{m.sensitivity_peak_db:.3g} dB",
+            )
         console.print(mt)
     vt = Table(title="verdict", title_justify="left", box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False)
     for name in ("criterion", "measured", "limit", "result"):
@@ -505,7 +712,8 @@ def _render(console, result) -> None:
             continue
         if j.criterion == "closed_loop_stable":  # a check without a number
             found = {"pass": "stable", "skipped": "not decided"}.get(
-                j.status, "sign inverted" if "negative low-frequency" in j.note else "unstable")
+                j.status, "sign inverted" if "negative low-frequency" in j.note else "unstable"
+            )
             which = "A" if j.realization == "source" else "B"
             vt.add_row(f"loop with {which}", found, "stable", j.status.upper() if j.status == "fail" else j.status)
             continue
@@ -517,8 +725,9 @@ def _render(console, result) -> None:
     for j in res.verdict.skipped:
         console.print(f"skipped: {j.label} ({j.note})", markup=False)
     console.print(f"verdict: {res.verdict.overall.upper()}", markup=False)
-    console.print("The tool computes; it does not certify. Verify on a bench or in simulation before a live swap.",
-                  markup=False)
+    console.print(
+        "The tool computes; it does not certify. Verify on a bench or in simulation before a live swap.", markup=False
+    )
 
 
 def _fmt(value, unit: str) -> str:

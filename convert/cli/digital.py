@@ -54,40 +54,83 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     )
     add_controller_input(parser)
     parser.add_argument("--fs", metavar="HZ", required=True, help="sample rate, e.g. --fs 1kHz or --fs 100Hz")
-    parser.add_argument("--method", metavar="M", action="append",
-                        help="discretization method, repeatable: " + ", ".join(METHOD_NAMES)
-                        + ", or all (the default), e.g. --method tustin --method zoh")
-    parser.add_argument("--prewarp", metavar="HZ",
-                        help="tustin only: frequency where digital and analog responses are made equal, e.g. --prewarp 50Hz")
-    parser.add_argument("--delay", metavar="S", default=None,
-                        help="computation delay for the loop-seen figures, in seconds or samples, "
-                             "e.g. --delay 200us or --delay 1sample (default 0)")
-    parser.add_argument("--band", nargs=2, metavar=("LOW", "HIGH"),
-                        help="band for the error figures, e.g. --band 0.1Hz 200Hz "
-                             "(default: a decade below the lowest corner up to fs/2)")
-    parser.add_argument("--derivative-filter", metavar="N", dest="filter_n",
-                        help="add a derivative filter with ratio N to an improper controller (ideal PD/PID): "
-                             "the derivative part gets the pole N/Td, e.g. --derivative-filter 10 "
-                             "(the same name as in `loopshift circuit` and in case files)")
+    parser.add_argument(
+        "--method",
+        metavar="M",
+        action="append",
+        help="discretization method, repeatable: "
+        + ", ".join(METHOD_NAMES)
+        + ", or all (the default), e.g. --method tustin --method zoh",
+    )
+    parser.add_argument(
+        "--prewarp",
+        metavar="HZ",
+        help="tustin only: frequency where digital and analog responses are made equal, e.g. --prewarp 50Hz",
+    )
+    parser.add_argument(
+        "--delay",
+        metavar="S",
+        default=None,
+        help="computation delay for the loop-seen figures, in seconds or samples, "
+        "e.g. --delay 200us or --delay 1sample (default 0)",
+    )
+    parser.add_argument(
+        "--band",
+        nargs=2,
+        metavar=("LOW", "HIGH"),
+        help="band for the error figures, e.g. --band 0.1Hz 200Hz "
+        "(default: a decade below the lowest corner up to fs/2)",
+    )
+    parser.add_argument(
+        "--derivative-filter",
+        metavar="N",
+        dest="filter_n",
+        help="add a derivative filter with ratio N to an improper controller (ideal PD/PID): "
+        "the derivative part gets the pole N/Td, e.g. --derivative-filter 10 "
+        "(the same name as in `loopshift circuit` and in case files)",
+    )
     # The earlier spelling keeps working in scripts; help shows one name only.
     parser.add_argument("--filter", metavar="N", dest="filter_n", help=argparse.SUPPRESS)
-    parser.add_argument("--match-at", metavar="HZ",
-                        help="matched only: frequency where gain is matched instead of DC, e.g. --match-at 1Hz "
-                             "(default for an integrating controller: a decade below its lowest corner, at most fs/100)")
-    parser.add_argument("--keep-delay", action="store_true",
-                        help="matched only: keep one zero at infinity as a one-sample delay instead of mapping it to z = -1, "
-                             "e.g. --method matched --keep-delay")
-    parser.add_argument("--agreement", nargs=2, metavar=("DB", "DEG"), default=None,
-                        help="agreement limits for the 'agrees up to' figure, e.g. --agreement 0.5 3 (default 1 dB, 5 deg)")
-    parser.add_argument("--structure", metavar="S", default="direct1",
-                        help="firmware arithmetic the coefficients are judged in: direct1, direct2t, sections, delta "
-                             "(default direct1: b/a as printed), e.g. --structure sections")
-    parser.add_argument("--word-format", metavar="F", default="float64", dest="word_format",
-                        help="word format: float64 (default), float32, q15, q31, e.g. --word-format float32")
+    parser.add_argument(
+        "--match-at",
+        metavar="HZ",
+        help="matched only: frequency where gain is matched instead of DC, e.g. --match-at 1Hz "
+        "(default for an integrating controller: a decade below its lowest corner, at most fs/100)",
+    )
+    parser.add_argument(
+        "--keep-delay",
+        action="store_true",
+        help="matched only: keep one zero at infinity as a one-sample delay instead of mapping it to z = -1, "
+        "e.g. --method matched --keep-delay",
+    )
+    parser.add_argument(
+        "--agreement",
+        nargs=2,
+        metavar=("DB", "DEG"),
+        default=None,
+        help="agreement limits for the 'agrees up to' figure, e.g. --agreement 0.5 3 (default 1 dB, 5 deg)",
+    )
+    parser.add_argument(
+        "--structure",
+        metavar="S",
+        default="direct1",
+        help="firmware arithmetic the coefficients are judged in: direct1, direct2t, sections, delta "
+        "(default direct1: b/a as printed), e.g. --structure sections",
+    )
+    parser.add_argument(
+        "--word-format",
+        metavar="F",
+        default="float64",
+        dest="word_format",
+        help="word format: float64 (default), float32, q15, q31, e.g. --word-format float32",
+    )
     add_signal_ranges(parser)
-    parser.add_argument("--json", action="store_true",
-                        help="print a JSON list of results (method, fs_hz, b, a, prewarp_hz, errors, and the analog "
-                             "num/den they came from), e.g. --json")
+    parser.add_argument(
+        "--json",
+        action="store_true",
+        help="print a JSON list of results (method, fs_hz, b, a, prewarp_hz, errors, and the analog "
+        "num/den they came from), e.g. --json",
+    )
     return parser
 
 
@@ -152,8 +195,10 @@ def run(args, console) -> int:
             raise InputError(f"the band's top {args.band[1]} is above fs/2 = {fs / 2:g} Hz", key="--band")
     limits = (1.0, 5.0)
     if args.agreement:
-        limits = (_positive(args.agreement[0], "number", "--agreement"),
-                  _positive(args.agreement[1], "number", "--agreement"))
+        limits = (
+            _positive(args.agreement[0], "number", "--agreement"),
+            _positive(args.agreement[1], "number", "--agreement"),
+        )
     methods = _methods(args)
     if prewarp is not None and "tustin" not in methods:
         raise InputError("applies to tustin only; add --method tustin", key="--prewarp")
@@ -164,11 +209,23 @@ def run(args, console) -> int:
     controller, _pid = controller_from_args(args, fs_hz=fs)
     if controller.is_digital:
         raise InputError("the controller is already digital; use `loopshift analog` to go back", key="EXPR")
-    with at(None, rename={"fs": "--fs", "prewarp": "--prewarp", "match_at_hz": "--match-at",
-                                         "filter_n": "--derivative-filter"}):
-        survey = survey_methods(controller, fs, methods, prewarp_hz=prewarp, delay_s=delay, band_hz=band,
-                                match_at_hz=match_at, keep_delay=args.keep_delay, filter_n=filter_n,
-                                gain_limit_db=limits[0], phase_limit_deg=limits[1])
+    with at(
+        None,
+        rename={"fs": "--fs", "prewarp": "--prewarp", "match_at_hz": "--match-at", "filter_n": "--derivative-filter"},
+    ):
+        survey = survey_methods(
+            controller,
+            fs,
+            methods,
+            prewarp_hz=prewarp,
+            delay_s=delay,
+            band_hz=band,
+            match_at_hz=match_at,
+            keep_delay=args.keep_delay,
+            filter_n=filter_n,
+            gain_limit_db=limits[0],
+            phase_limit_deg=limits[1],
+        )
     firmware = _firmware(args, survey)
     if args.json:
         out = []
@@ -182,8 +239,11 @@ def run(args, console) -> int:
             # the analog controller the coefficients came from (after any derivative filter)
             item["analog"] = {"num": list(survey.analog.num), "den": list(survey.analog.den)}
             if survey.filter_error is not None:
-                item["derivative_filter"] = {"n": survey.filter_n, "tau_s": survey.filter_tau_s,
-                                             "error": survey.filter_error.summary()}
+                item["derivative_filter"] = {
+                    "n": survey.filter_n,
+                    "tau_s": survey.filter_tau_s,
+                    "error": survey.filter_error.summary(),
+                }
             out.append(item)
         emit_json(console, out)
         return 0
@@ -193,11 +253,21 @@ def run(args, console) -> int:
 
 def add_signal_ranges(parser) -> None:
     """--input-range and --output-limits, shared by `digital` and `code`."""
-    parser.add_argument("--input-range", nargs=2, metavar=("LOW", "HIGH"), dest="input_range",
-                        help="range of the error input, controller input units (scales q15/q31 words, bounds "
-                             "overflow), e.g. --input-range -10 10")
-    parser.add_argument("--output-limits", nargs=2, metavar=("LOW", "HIGH"), dest="output_limits",
-                        help="output limits, controller output units (the integrator's level), e.g. --output-limits 0 100")
+    parser.add_argument(
+        "--input-range",
+        nargs=2,
+        metavar=("LOW", "HIGH"),
+        dest="input_range",
+        help="range of the error input, controller input units (scales q15/q31 words, bounds "
+        "overflow), e.g. --input-range -10 10",
+    )
+    parser.add_argument(
+        "--output-limits",
+        nargs=2,
+        metavar=("LOW", "HIGH"),
+        dest="output_limits",
+        help="output limits, controller output units (the integrator's level), e.g. --output-limits 0 100",
+    )
 
 
 def range_pair(words, field: str) -> tuple[float, float] | None:
@@ -228,13 +298,27 @@ def _firmware(args, survey) -> dict:
     lim = range_pair(args.output_limits, "--output-limits")
     band = comparison_grid(survey.band_hz, survey.rows[0].realization.fs_hz, points_per_decade=20)
     out = {}
-    with at(None, rename={"input_range": "--input-range", "output_limits": "--output-limits",
-                          "structure": "--structure", "word_format": "--word-format"}):
+    with at(
+        None,
+        rename={
+            "input_range": "--input-range",
+            "output_limits": "--output-limits",
+            "structure": "--structure",
+            "word_format": "--word-format",
+        },
+    ):
         for row in survey.rows:
             r = row.realization
-            out[r.method] = analyze(r.roots, structure, word, band, b=r.b, a=r.a,
-                                    input_range=max(map(abs, rng)) if rng else None,
-                                    output_level=max(map(abs, lim)) if lim else None)
+            out[r.method] = analyze(
+                r.roots,
+                structure,
+                word,
+                band,
+                b=r.b,
+                a=r.a,
+                input_range=max(map(abs, rng)) if rng else None,
+                output_level=max(map(abs, lim)) if lim else None,
+            )
     return out
 
 
@@ -282,19 +366,33 @@ def _render(console, survey, source, firmware=None) -> None:
     console.print(f"analog controller: {survey.analog.expression()}", markup=False)
     if survey.filter_error is not None:
         fe = survey.filter_error
-        console.print(f"derivative filter N = {survey.filter_n:g} added (tau = Td/N = {format_value(survey.filter_tau_s, 'second', 4)}); "
-                      f"its own error over the band: {fe.max_gain_error_db:.3g} dB, {fe.max_phase_error_deg:.3g} deg, "
-                      f"agrees up to {_hz(fe.agreement_limit_hz)}", markup=False)
-    console.print(f"sample rate {format_value(fs, 'hz', 6)}, band {_hz(survey.band_hz[0])} .. {_hz(survey.band_hz[1])}, "
-                  f"computation delay {format_value(survey.delay_s, 'second', 4)}", markup=False)
+        console.print(
+            f"derivative filter N = {survey.filter_n:g} added (tau = Td/N = {format_value(survey.filter_tau_s, 'second', 4)}); "
+            f"its own error over the band: {fe.max_gain_error_db:.3g} dB, {fe.max_phase_error_deg:.3g} deg, "
+            f"agrees up to {_hz(fe.agreement_limit_hz)}",
+            markup=False,
+        )
+    console.print(
+        f"sample rate {format_value(fs, 'hz', 6)}, band {_hz(survey.band_hz[0])} .. {_hz(survey.band_hz[1])}, "
+        f"computation delay {format_value(survey.delay_s, 'second', 4)}",
+        markup=False,
+    )
     first = survey.rows[0]
     lim = f"{first.method_error.gain_limit_db:g} dB / {first.method_error.phase_limit_deg:g} deg"
     # One row per method and no coefficients in the table, so it stays readable in an 80-column
     # terminal; the coefficients follow below it in full precision.
-    table = Table(title=f"errors against the analog controller (agrees: within {lim})", title_justify="left",
-                  box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False, padding=(0, 1, 0, 0), leading=1,
-                  caption="hold, delay: as the plant sees it, with the output's zero-order hold and the "
-                          "computation delay (--delay)", caption_justify="left")
+    table = Table(
+        title=f"errors against the analog controller (agrees: within {lim})",
+        title_justify="left",
+        box=box.SIMPLE_HEAD,
+        show_edge=False,
+        pad_edge=False,
+        padding=(0, 1, 0, 0),
+        leading=1,
+        caption="hold, delay: as the plant sees it, with the output's zero-order hold and the "
+        "computation delay (--delay)",
+        caption_justify="left",
+    )
     # Every column keeps its words whole (no_wrap): the widths add up to less than 80 columns
     # with the longest method name, so a frequency never breaks between its number and its unit.
     table.add_column("method", no_wrap=True)
@@ -323,29 +421,41 @@ def _render(console, survey, source, firmware=None) -> None:
         console.print(f"best: {survey.best} — {survey.best_reason}", markup=False)
     else:
         console.print(f"no method picked: {survey.best_reason}", markup=False)
-    console.print("coefficients (b, a in ascending powers of z^-1, a0 = 1) and difference equations "
-                  "(e = error input, u = output):", markup=False)
+    console.print(
+        "coefficients (b, a in ascending powers of z^-1, a0 = 1) and difference equations "
+        "(e = error input, u = output):",
+        markup=False,
+    )
     width = max(console.width, 40)
     for row in survey.rows:
         real = row.realization
         pad = " " * (len(real.method) + 4)
-        for text, sep in ((f"  {real.method}: b = [{_coefs(real.b)}]", ", "), (f"{pad}a = [{_coefs(real.a)}]", ", "),
-                          (f"{pad}{real.difference_equation}", " ")):
+        for text, sep in (
+            (f"  {real.method}: b = [{_coefs(real.b)}]", ", "),
+            (f"{pad}a = [{_coefs(real.a)}]", ", "),
+            (f"{pad}{real.difference_equation}", " "),
+        ):
             for line in _wrap_terms(text, width, sep):
                 console.print(line, markup=False, soft_wrap=True)
     if firmware:
         from convert.digital.structures import STRUCTURES
 
         any_fw = next(iter(firmware.values()))
-        console.print(f"structure: {any_fw.structure} ({STRUCTURES[any_fw.structure]}) in {any_fw.word_format}; "
-                      "the b/a above are the float64 design", markup=False)
+        console.print(
+            f"structure: {any_fw.structure} ({STRUCTURES[any_fw.structure]}) in {any_fw.word_format}; "
+            "the b/a above are the float64 design",
+            markup=False,
+        )
         for method, fw in firmware.items():
             if fw.refused:
                 console.print(f"  {method}: cannot be built: {fw.refused}", markup=False)
                 continue
-            console.print(f"  {method}: quantization alone {fw.gain_error_db:.3g} dB, {fw.phase_error_deg:.3g} deg;",
-                          markup=False)
-            console.print(f"    poles moved <= {fw.pole_shift:.2g}; largest |z| = {fw.max_pole_radius:.10g}", markup=False)
+            console.print(
+                f"  {method}: quantization alone {fw.gain_error_db:.3g} dB, {fw.phase_error_deg:.3g} deg;", markup=False
+            )
+            console.print(
+                f"    poles moved <= {fw.pole_shift:.2g}; largest |z| = {fw.max_pole_radius:.10g}", markup=False
+            )
             for text in fw.failures or ("ok: stable, no overflow, no stall",):
                 console.print(f"    {'FAILS: ' if fw.failures else ''}{text}", markup=False)
     for row in survey.rows:
@@ -353,5 +463,6 @@ def _render(console, survey, source, firmware=None) -> None:
             console.print(f"note: {note}", markup=False)
         for w in row.realization.warnings:
             console.print(f"warning: {w}", markup=False)
-    console.print("The tool computes; it does not certify. Verify on a bench or in simulation before a live swap.",
-                  markup=False)
+    console.print(
+        "The tool computes; it does not certify. Verify on a bench or in simulation before a live swap.", markup=False
+    )

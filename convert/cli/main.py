@@ -57,8 +57,10 @@ class _UsageError(Exception):
     pass
 
 
-DEBUG_HELP = ("on an internal error (exit 3), print the traceback for a bug report; input errors stay one "
-              "line, e.g. loopshift --debug report case.toml")
+DEBUG_HELP = (
+    "on an internal error (exit 3), print the traceback for a bug report; input errors stay one "
+    "line, e.g. loopshift --debug report case.toml"
+)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -68,17 +70,26 @@ def build_parser() -> argparse.ArgumentParser:
         epilog=EPILOG,
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
-    parser.add_argument("--version", action="version", version=f"loopshift {_version()}",
-                        help="print the version and exit, e.g. loopshift --version")
-    subparsers = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser,
-                                       help="one of the commands below; `loopshift COMMAND --help` for its options")
+    parser.add_argument(
+        "--version",
+        action="version",
+        version=f"loopshift {_version()}",
+        help="print the version and exit, e.g. loopshift --version",
+    )
+    subparsers = parser.add_subparsers(
+        dest="command",
+        metavar="COMMAND",
+        parser_class=_Parser,
+        help="one of the commands below; `loopshift COMMAND --help` for its options",
+    )
     parser.add_argument("--debug", action="store_true", help=DEBUG_HELP)
     for name in COMMANDS:
         module = importlib.import_module(f"convert.cli.{name}")
         module.add_parser(subparsers)
         # also after the command (loopshift report case.toml --debug); SUPPRESS keeps the global one
-        subparsers.choices[name].add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
-                                              help=DEBUG_HELP)
+        subparsers.choices[name].add_argument(
+            "--debug", action="store_true", default=argparse.SUPPRESS, help=DEBUG_HELP
+        )
     return parser
 
 
@@ -101,8 +112,10 @@ def _unknown_arguments(parser, args, extras: list[str]) -> str:
         hint = f" (did you mean {close[0]}?)" if close else f"; `{sub.prog} --help` lists the options"
         shown = name if len(name) <= 60 else excerpt(name)
         return f"{sub.prog}: unknown option {shown}{hint}"
-    return (f"{sub.prog}: unexpected word {excerpt(word)}; an expression with spaces or parentheses needs quotes, "
-            f"e.g. \"(s+2)/(s+20)\"")
+    return (
+        f"{sub.prog}: unexpected word {excerpt(word)}; an expression with spaces or parentheses needs quotes, "
+        f'e.g. "(s+2)/(s+20)"'
+    )
 
 
 def _version() -> str:
@@ -154,8 +167,10 @@ def main(argv: list[str] | None = None, console=None) -> int:
     except SystemExit as exc:  # --help / --version
         return int(exc.code or 0)
     if not args.command:
-        print("error: loopshift: give a command: " + ", ".join(COMMANDS)
-              + " (`loopshift --help` describes each)", file=sys.stderr)
+        print(
+            "error: loopshift: give a command: " + ", ".join(COMMANDS) + " (`loopshift --help` describes each)",
+            file=sys.stderr,
+        )
         return 2
     module = importlib.import_module(f"convert.cli.{args.command}")
     debug = bool(getattr(args, "debug", False) or os.environ.get("LOOPSHIFT_DEBUG"))
@@ -181,12 +196,14 @@ def main(argv: list[str] | None = None, console=None) -> int:
         return 2
     except RecursionError:  # a last guard: the readers bound nesting (convert.limits.MAX_NESTING) before this
         _traceback(debug)
-        _print_error("the input is nested too deeply to read (Python's recursion limit); write it flatter",
-                     console, err_console)
+        _print_error(
+            "the input is nested too deeply to read (Python's recursion limit); write it flatter", console, err_console
+        )
         return 2
     except MemoryError:
-        _print_error("not enough memory for this run; ask for less (fewer --draws, a narrower --band)",
-                     console, err_console)
+        _print_error(
+            "not enough memory for this run; ask for less (fewer --draws, a narrower --band)", console, err_console
+        )
         return 2
     except Exception as exc:  # an internal error: one line, not a traceback (unless --debug)
         _traceback(debug)

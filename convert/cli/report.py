@@ -26,19 +26,31 @@ The tool computes; it does not certify. Verify on a bench or in simulation befor
 
 
 def add_parser(subparsers) -> argparse.ArgumentParser:
-    p = subparsers.add_parser("report", help=HELP, description=HELP + ".", epilog=EPILOG,
-                              formatter_class=argparse.RawDescriptionHelpFormatter)
-    p.add_argument("case", metavar="CASE", help="the case file (TOML), e.g. cases/pi_card_to_firmware.toml; "
-                                                "see docs/case-files.md")
-    p.add_argument("--out", metavar="DIR", help="report folder to write (default: reports/<case name> in the "
-                                                "current folder), e.g. --out reports/pump-7")
-    p.add_argument("--force", action="store_true", help="replace the report folder if it is an earlier report "
-                                                        "or empty (default: refuse, so an earlier report is never "
-                                                        "lost; a folder of other files is always refused), "
-                                                        "e.g. --out reports/pump-7 --force")
-    p.add_argument("--draws", metavar="N", type=_positive_int,
-                   help="Monte Carlo draws for a circuit target, overriding the case file (200 to 1,000,000), "
-                        "e.g. --draws 10000")
+    p = subparsers.add_parser(
+        "report", help=HELP, description=HELP + ".", epilog=EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter
+    )
+    p.add_argument(
+        "case", metavar="CASE", help="the case file (TOML), e.g. cases/pi_card_to_firmware.toml; see docs/case-files.md"
+    )
+    p.add_argument(
+        "--out",
+        metavar="DIR",
+        help="report folder to write (default: reports/<case name> in the current folder), e.g. --out reports/pump-7",
+    )
+    p.add_argument(
+        "--force",
+        action="store_true",
+        help="replace the report folder if it is an earlier report "
+        "or empty (default: refuse, so an earlier report is never "
+        "lost; a folder of other files is always refused), "
+        "e.g. --out reports/pump-7 --force",
+    )
+    p.add_argument(
+        "--draws",
+        metavar="N",
+        type=_positive_int,
+        help="Monte Carlo draws for a circuit target, overriding the case file (200 to 1,000,000), e.g. --draws 10000",
+    )
     return p
 
 
@@ -52,10 +64,15 @@ def _positive_int(text: str) -> int:
     from convert.circuit.tolerance import MIN_DRAWS, draws_problem
 
     if value > MAX_DRAWS or draws_problem(value):
-        raise argparse.ArgumentTypeError(f"expected {MIN_DRAWS} to {MAX_DRAWS:,} draws, found {text!r}"
-                                         + ("" if value > MAX_DRAWS else
-                                            ": the 99th percentile and the 0.5-99.5 % envelope reported need "
-                                            f"{MIN_DRAWS} for a draw to lie beyond each"))
+        raise argparse.ArgumentTypeError(
+            f"expected {MIN_DRAWS} to {MAX_DRAWS:,} draws, found {text!r}"
+            + (
+                ""
+                if value > MAX_DRAWS
+                else ": the 99th percentile and the 0.5-99.5 % envelope reported need "
+                f"{MIN_DRAWS} for a draw to lie beyond each"
+            )
+        )
     return value
 
 
@@ -78,8 +95,14 @@ def run(args, console) -> int:
 
     from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
-    with Progress(TextColumn("{task.description}", markup=False), BarColumn(), TimeElapsedColumn(), console=console,
-                  transient=True, disable=not console.is_terminal) as progress:
+    with Progress(
+        TextColumn("{task.description}", markup=False),
+        BarColumn(),
+        TimeElapsedColumn(),
+        console=console,
+        transient=True,
+        disable=not console.is_terminal,
+    ) as progress:
         task = progress.add_task(f"evaluating {case.name}", total=planned_steps(case) + 1)
 
         def tick(text: str) -> None:
@@ -92,8 +115,9 @@ def run(args, console) -> int:
         except OSError as exc:
             from convert.errors import InputError
 
-            raise InputError(f"cannot write the report folder {str(out_dir)!r}: {exc.strerror or exc}",
-                             key="--out") from None
+            raise InputError(
+                f"cannot write the report folder {str(out_dir)!r}: {exc.strerror or exc}", key="--out"
+            ) from None
         progress.update(task, advance=1)
     try:
         _summary(console, results, folder)
@@ -118,8 +142,10 @@ def _check_writable(out_dir, *, explicit: bool) -> None:
     if not parent.is_dir():
         if explicit:
             where = str(out_dir.parent)
-            raise InputError(f"the folder {where!r} does not exist (or is not a folder); create it first or "
-                             "choose another place", key="--out")
+            raise InputError(
+                f"the folder {where!r} does not exist (or is not a folder); create it first or choose another place",
+                key="--out",
+            )
         while not parent.is_dir():
             parent = parent.parent
     try:
@@ -149,13 +175,20 @@ def _summary(console, results, folder) -> None:
         if title.startswith("New forms"):
             continue
         # No side borders and one space of padding: at 80 columns the width goes to the words.
-        table = Table(title=styled(escape(title)), title_justify="left", box=box.SIMPLE_HEAD, show_edge=False,
-                      pad_edge=False, padding=(0, 1, 0, 0))
+        table = Table(
+            title=styled(escape(title)),
+            title_justify="left",
+            box=box.SIMPLE_HEAD,
+            show_edge=False,
+            pad_edge=False,
+            padding=(0, 1, 0, 0),
+        )
         keep = [i for i, h in enumerate(header) if h not in ("what was switched on", "note", "scanned")]
         # the report folder lists the rows that do not apply; the terminal keeps to what applies
         rows = [row for row in rows if not (len(row) > 1 and row[1] == "not applicable")]
-        widths, head, cells_text = fit_columns([header[i] for i in keep], [[str(r[i]) for i in keep] for r in rows],
-                                               console.width)
+        widths, head, cells_text = fit_columns(
+            [header[i] for i in keep], [[str(r[i]) for i in keep] for r in rows], console.width
+        )
         for text, w in zip(head, widths):
             table.add_column(styled(escape(text)), width=w, no_wrap=True)
         for row in cells_text:

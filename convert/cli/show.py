@@ -37,8 +37,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
         "show",
         help="print a controller in all its forms (transfer function, poles/zeros, PID forms)",
         description=DESCRIPTION,
-        epilog=EPILOG_HEAD + describe_keys()
-        + "\n\nforms: ideal  Kc(1 + 1/(Ti s) + Td s/((Td/N) s + 1));"
+        epilog=EPILOG_HEAD + describe_keys() + "\n\nforms: ideal  Kc(1 + 1/(Ti s) + Td s/((Td/N) s + 1));"
         "  series  Kc(1 + 1/(Ti s))(1 + Td s)/((Td/N) s + 1);"
         "\n       parallel  kp + ki/s + kd s/(tf s + 1).  Details: docs/pid.md",
         formatter_class=argparse.RawDescriptionHelpFormatter,
@@ -185,8 +184,10 @@ def _render(console, data: dict, d: int) -> None:
         else:
             tf.add_row("b (ascending z^-1)", _coefs(data["b"], d))
             tf.add_row("a (ascending z^-1)", _coefs(data["a"], d))
-            tf.add_row("structure", "direct1: direct form I on b/a as given (loopshift code --structure "
-                                    "sections|delta realizes another)")
+            tf.add_row(
+                "structure",
+                "direct1: direct form I on b/a as given (loopshift code --structure sections|delta realizes another)",
+            )
     console.print(tf)
 
     zp = Table(title="Zeros, poles and gain", box=box.SIMPLE_HEAD, title_justify="left")
@@ -202,8 +203,13 @@ def _render(console, data: dict, d: int) -> None:
         for i, root in enumerate(roots):
             r = complex(root["re"], root["im"])
             exact = root["accuracy"] == 0
-            zp.add_row(label if i == 0 else "", _root(r, d), str(root["multiplicity"]),
-                       "exact" if exact else f"{root['accuracy']:.1g}", _corner(r, exact, data, d, label))
+            zp.add_row(
+                label if i == 0 else "",
+                _root(r, d),
+                str(root["multiplicity"]),
+                "exact" if exact else f"{root['accuracy']:.1g}",
+                _corner(r, exact, data, d, label),
+            )
     console.print(zp)
 
     g = Table(box=box.SIMPLE_HEAD, show_header=False)
@@ -227,8 +233,7 @@ def _render(console, data: dict, d: int) -> None:
         prop = f"improper (relative degree {rd}): needs a filter before it can be built or sampled"
     g.add_row("properness", prop)
     corners = data["corner_frequencies_hz"]
-    g.add_row("corner frequencies (Hz)",
-              f"zeros {_list(corners['zeros'], d)}; poles {_list(corners['poles'], d)}")
+    g.add_row("corner frequencies (Hz)", f"zeros {_list(corners['zeros'], d)}; poles {_list(corners['poles'], d)}")
     console.print(g)
 
     pid = data["pid"]
@@ -287,21 +292,32 @@ def _render_pid(console, pid: dict, data: dict, d: int) -> None:
 
     t.add_row("gain", f"kp = {_n(par['kp'], d)}", *cells(lambda f: f"Kc = {_n(f['kc'], d)}"))
     t.add_row("proportional band", "", *cells(lambda f: f"{_n(f['pb_percent'], d)} %"))
-    t.add_row("integral", f"ki = {_n(par['ki_per_s'], d)} /s",
-              *cells(lambda f: "none" if f["ti_s"] is None else f"Ti = {_n(f['ti_s'], d)} s"))
-    t.add_row("  min/repeat", "",
-              *cells(lambda f: "" if f["ti_s"] is None else f"{_n(f['ti_min'], d)} min"))
+    t.add_row(
+        "integral",
+        f"ki = {_n(par['ki_per_s'], d)} /s",
+        *cells(lambda f: "none" if f["ti_s"] is None else f"Ti = {_n(f['ti_s'], d)} s"),
+    )
+    t.add_row("  min/repeat", "", *cells(lambda f: "" if f["ti_s"] is None else f"{_n(f['ti_min'], d)} min"))
     t.add_row("  reset rate", "", *cells(lambda f: "" if f["ti_s"] is None else f"{_n(f['reset_per_min'], d)} /min"))
-    t.add_row("derivative", f"kd = {_n(par['kd_s'], d)} s",
-              *cells(lambda f: "none" if not f["td_s"] else f"Td = {_n(f['td_s'], d)} s"))
+    t.add_row(
+        "derivative",
+        f"kd = {_n(par['kd_s'], d)} s",
+        *cells(lambda f: "none" if not f["td_s"] else f"Td = {_n(f['td_s'], d)} s"),
+    )
     t.add_row("  in minutes", "", *cells(lambda f: "" if not f["td_s"] else f"{_n(f['td_min'], d)} min"))
-    t.add_row("derivative filter", f"tf = {secs(par['tf_s'])}" if par["tf_s"] else "none",
-              *cells(lambda f: "none" if f["n"] is None else f"N = {_n(f['n'], d)}"))
+    t.add_row(
+        "derivative filter",
+        f"tf = {secs(par['tf_s'])}" if par["tf_s"] else "none",
+        *cells(lambda f: "none" if f["n"] is None else f"N = {_n(f['n'], d)}"),
+    )
     if par["tf_s"]:
         t.add_row("  time constant", "", *cells(lambda f: "" if f["n"] is None else f"Tf = {secs(f['tf_s'])}"))
     console.print(t)
-    for line in ("parallel: kp + ki/s + kd·s/(tf·s+1)", "ideal:    Kc·(1 + 1/(Ti·s) + Td·s/((Td/N)·s+1))",
-                 "series:   Kc·(1 + 1/(Ti·s))·(1 + Td·s)/((Td/N)·s+1)"):
+    for line in (
+        "parallel: kp + ki/s + kd·s/(tf·s+1)",
+        "ideal:    Kc·(1 + 1/(Ti·s) + Td·s/((Td/N)·s+1))",
+        "series:   Kc·(1 + 1/(Ti·s))·(1 + Td·s)/((Td/N)·s+1)",
+    ):
         console.print(line, highlight=False, markup=False)
     for label, form in (("ideal", pid["ideal"]), ("series", pid["series"])):
         if "unavailable" in form:

@@ -21,7 +21,7 @@ Pure functions over plain arrays: the caller evaluates the responses.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Sequence
+from collections.abc import Sequence
 
 import numpy as np
 
@@ -83,10 +83,20 @@ def not_applicable(key: str, why: str) -> BudgetRow:
     return BudgetRow(key=key, label=ROW_LABELS[key], applicable=False, note=f"not applicable: {why}")
 
 
-def error_row(key: str, band_f_hz: Sequence[float], reference: np.ndarray, candidate: np.ndarray, *, note: str,
-              loop: LoopSpec | None = None, loop_reference: np.ndarray | None = None,
-              loop_candidate: np.ndarray | None = None, percentile: float | None = None, evaluate=None,
-              forms=None) -> BudgetRow:
+def error_row(
+    key: str,
+    band_f_hz: Sequence[float],
+    reference: np.ndarray,
+    candidate: np.ndarray,
+    *,
+    note: str,
+    loop: LoopSpec | None = None,
+    loop_reference: np.ndarray | None = None,
+    loop_candidate: np.ndarray | None = None,
+    percentile: float | None = None,
+    evaluate=None,
+    forms=None,
+) -> BudgetRow:
     """A budget row from responses on the band grid (``reference`` (F,), ``candidate`` (F,) or
     (N, F)) and, optionally, on the loop grid (``loop_reference`` (F2,), ``loop_candidate``
     (F2,) or (N, F2)) for the margin changes.
@@ -102,19 +112,38 @@ def error_row(key: str, band_f_hz: Sequence[float], reference: np.ndarray, candi
     if cand.shape[0] > 1:  # draws: the tolerance engine's definitions, one place for them
         from convert.circuit.tolerance import FIGURE_PERCENTILE, figures_of_responses
 
-        figs = figures_of_responses(key, f, ref, cand, percentile=FIGURE_PERCENTILE if percentile is None else percentile,
-                                    loop_margins=loop.margins if with_loop else None,
-                                    loop_reference=loop_reference, loop_candidates=loop_candidate)
+        figs = figures_of_responses(
+            key,
+            f,
+            ref,
+            cand,
+            percentile=FIGURE_PERCENTILE if percentile is None else percentile,
+            loop_margins=loop.margins if with_loop else None,
+            loop_reference=loop_reference,
+            loop_candidates=loop_candidate,
+        )
         return drawn_row(key, figs, note=note, reference_form=None if forms is None else forms[0], band_f_hz=f)
     err = compare_responses(ref, cand[0], f, evaluate=evaluate, forms=forms)
-    row = dict(key=key, label=ROW_LABELS[key], applicable=True, note=note, max_gain_error_db=err.max_gain_error_db,
-               max_gain_error_at_hz=err.max_gain_error_at_hz, max_phase_error_deg=err.max_phase_error_deg,
-               max_phase_error_at_hz=err.max_phase_error_at_hz, percentile=None, unbounded_note=err.unbounded_note)
+    row = dict(
+        key=key,
+        label=ROW_LABELS[key],
+        applicable=True,
+        note=note,
+        max_gain_error_db=err.max_gain_error_db,
+        max_gain_error_at_hz=err.max_gain_error_at_hz,
+        max_phase_error_deg=err.max_phase_error_deg,
+        max_phase_error_at_hz=err.max_phase_error_at_hz,
+        percentile=None,
+        unbounded_note=err.unbounded_note,
+    )
     if with_loop:
         m_ref = loop.margins(np.atleast_2d(loop_reference))
         m_cand = loop.margins(np.atleast_2d(loop_candidate))
-        for name, field in (("phase_margin_deg", "delta_phase_margin_deg"), ("gain_margin_db", "delta_gain_margin_db"),
-                            ("sensitivity_peak_db", "delta_sensitivity_peak_db")):
+        for name, field in (
+            ("phase_margin_deg", "delta_phase_margin_deg"),
+            ("gain_margin_db", "delta_gain_margin_db"),
+            ("sensitivity_peak_db", "delta_sensitivity_peak_db"),
+        ):
             v = float(np.asarray(m_cand[name]).ravel()[0] - np.asarray(m_ref[name]).ravel()[0])
             row[field] = v if np.isfinite(v) else None
     return BudgetRow(**row)
@@ -128,19 +157,32 @@ def drawn_row(key: str, figures, *, note: str, reference_form=None, band_f_hz=No
     pole of it on the jω axis inside the band makes both error figures +∞ there, "unbounded" (no
     draw has that root at the same place: :func:`convert.compare.frequency.axis_roots`)."""
     f = figures
-    missing = [f"{n} draws have no {name.replace('_', ' ').replace(' db', '').replace(' deg', '')}"
-               for name, n in sorted(f.draws_without.items())]
+    missing = [
+        f"{n} draws have no {name.replace('_', ' ').replace(' db', '').replace(' deg', '')}"
+        for name, n in sorted(f.draws_without.items())
+    ]
     if missing:  # say so: a percentile over the draws that have the figure is not over all of them
         note = f"{note}; {', '.join(missing)} (left out of that figure's percentile)"
     if f.unstable_fraction:  # always said when above zero (the verdict checks it too)
-        note = (f"{note}; {100 * f.unstable_fraction:.3g} % of the draws ({f.unstable_draws} of {f.draws}) give an "
-                f"unstable closed loop with the plant")
-    row = dict(key=key, label=ROW_LABELS[key], applicable=True, note=note,
-               max_gain_error_db=f.max_gain_error_db, max_gain_error_at_hz=f.max_gain_error_at_hz,
-               max_phase_error_deg=f.max_phase_error_deg, max_phase_error_at_hz=f.max_phase_error_at_hz,
-               delta_phase_margin_deg=f.delta_phase_margin_deg, delta_gain_margin_db=f.delta_gain_margin_db,
-               delta_sensitivity_peak_db=f.delta_sensitivity_peak_db, percentile=f.percentile,
-               unstable_fraction=f.unstable_fraction)
+        note = (
+            f"{note}; {100 * f.unstable_fraction:.3g} % of the draws ({f.unstable_draws} of {f.draws}) give an "
+            f"unstable closed loop with the plant"
+        )
+    row = dict(
+        key=key,
+        label=ROW_LABELS[key],
+        applicable=True,
+        note=note,
+        max_gain_error_db=f.max_gain_error_db,
+        max_gain_error_at_hz=f.max_gain_error_at_hz,
+        max_phase_error_deg=f.max_phase_error_deg,
+        max_phase_error_at_hz=f.max_phase_error_at_hz,
+        delta_phase_margin_deg=f.delta_phase_margin_deg,
+        delta_gain_margin_db=f.delta_gain_margin_db,
+        delta_sensitivity_peak_db=f.delta_sensitivity_peak_db,
+        percentile=f.percentile,
+        unstable_fraction=f.unstable_fraction,
+    )
     row.update(_unbounded_fields(reference_form, band_f_hz))
     return BudgetRow(**row)
 
@@ -153,9 +195,13 @@ def _unbounded_fields(reference_form, band_f_hz) -> dict:
     if not roots:
         return {}
     at = roots[0].f_hz
-    return {"max_gain_error_db": np.inf, "max_phase_error_deg": np.inf, "max_gain_error_at_hz": at,
-            "max_phase_error_at_hz": at, "unbounded_note": "unbounded: " + "; ".join(r.text() for r in roots)
-            + " (no draw has it at the same place)"}
+    return {
+        "max_gain_error_db": np.inf,
+        "max_phase_error_deg": np.inf,
+        "max_gain_error_at_hz": at,
+        "max_phase_error_at_hz": at,
+        "unbounded_note": "unbounded: " + "; ".join(r.text() for r in roots) + " (no draw has it at the same place)",
+    }
 
 
 def assemble(rows: dict[str, BudgetRow], applicable_keys: Sequence[str], form: str) -> list[BudgetRow]:

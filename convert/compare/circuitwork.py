@@ -18,22 +18,43 @@ from convert.controller import Controller
 from convert.errors import LoopshiftError
 
 
-def circuit_realization(case, src: Controller, analog_src: Controller, band, src_margins, duration, src_step,
-                        src_dist, *, draws=None, tick=lambda text: None, case_reduction=None, source_pid=None,
-                        setpoint_filter=None):
+def circuit_realization(
+    case,
+    src: Controller,
+    analog_src: Controller,
+    band,
+    src_margins,
+    duration,
+    src_step,
+    src_dist,
+    *,
+    draws=None,
+    tick=lambda text: None,
+    case_reduction=None,
+    source_pid=None,
+    setpoint_filter=None,
+):
     from convert.circuit.design import DesignOptions, design_circuit
     from convert.circuit.opamp import OpAmpModel, gbw_response
     from convert.compare.evaluate import WEIGHTS_NOT_CARRIED, Realization, _fmt_hz, _simulate_pair
 
     tgt = case.circuit
-    options = DesignOptions(topology=tgt.topology, resistors=tgt.resistors, capacitors=tgt.capacitors,
-                            r_min=tgt.resistor_range[0], r_max=tgt.resistor_range[1], c_min=tgt.capacitor_range[0],
-                            c_max=tgt.capacitor_range[1], band_hz=tuple(case.criteria.band_hz))
+    options = DesignOptions(
+        topology=tgt.topology,
+        resistors=tgt.resistors,
+        capacitors=tgt.capacitors,
+        r_min=tgt.resistor_range[0],
+        r_max=tgt.resistor_range[1],
+        c_min=tgt.capacitor_range[0],
+        c_max=tgt.capacitor_range[1],
+        band_hz=tuple(case.criteria.band_hz),
+    )
     # a two-input stage is built with the source PID's setpoint weights (it carries them)
     settings = source_pid if source_pid is not None and "two-input" in str(tgt.topology) else None
     try:
-        design = design_circuit(analog_src, options, settings=settings,
-                                series_times=getattr(source_pid, "given_series", None))
+        design = design_circuit(
+            analog_src, options, settings=settings, series_times=getattr(source_pid, "given_series", None)
+        )
     except LoopshiftError as exc:
         from convert.case import circuit_key
 
@@ -59,19 +80,23 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
     if case.plant is not None:
         # around the source loop's crossovers: the draws move them by a few per cent at most
         # (a figure may be absent: no crossover, or no interior sensitivity peak)
-        marks = [x for x in (src_margins.crossover_hz, src_margins.phase_crossover_hz,
-                             src_margins.sensitivity_peak_hz) if x]
+        marks = [
+            x for x in (src_margins.crossover_hz, src_margins.phase_crossover_hz, src_margins.sensitivity_peak_hz) if x
+        ]
         lo = (src_margins.crossover_hz or min(marks, default=float(band[-1]))) / 30
         hi = max(marks, default=float(band[-1])) * 30
         loop_f = np.logspace(np.log10(lo), np.log10(hi), 320)
-    spec = bud.LoopSpec(loop_f, lambda r: margins_of_responses(loop_f, r, case.plant.model, case.plant.dead_time_s)) \
-        if case.plant else None
+    spec = (
+        bud.LoopSpec(loop_f, lambda r: margins_of_responses(loop_f, r, case.plant.model, case.plant.dead_time_s))
+        if case.plant
+        else None
+    )
 
     def both(fn):
         if loop_f is None:
             return fn(band), None
         out = fn(np.concatenate([band, loop_f]))  # one evaluation over both grids
-        return out[..., :band.size], out[..., band.size:]
+        return out[..., : band.size], out[..., band.size :]
 
     src_b, src_l = both(lambda f: response_seen_from_loop(src, f, via="zpk"))
     an_b, an_l = both(lambda f: analog_src.frequency_response(f, via="zpk"))
@@ -81,72 +106,154 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
     rows = {}
     if src.is_digital:  # the circuit aims at the analog equivalent: the source's own hold is a row of its own
         rows["source_hold"] = bud.error_row(
-            "source_hold", band, src_b, an_b, forms=(src, analog_src),
+            "source_hold",
+            band,
+            src_b,
+            an_b,
+            forms=(src, analog_src),
             note="the analog controller the circuit aims at against the digital source as the loop sees it "
-                 "(C(e^jωT) with its zero-order hold), alone",
-            loop=spec, loop_reference=src_l, loop_candidate=an_l,
-            evaluate=lambda f: (response_seen_from_loop(src, f, via="zpk"), analog_src.frequency_response(f, via="zpk")))
+            "(C(e^jωT) with its zero-order hold), alone",
+            loop=spec,
+            loop_reference=src_l,
+            loop_candidate=an_l,
+            evaluate=lambda f: (
+                response_seen_from_loop(src, f, via="zpk"),
+                analog_src.frequency_response(f, via="zpk"),
+            ),
+        )
     if design.filter_added is not None:
         rows["derivative_filter"] = bud.error_row(
-            "derivative_filter", band, an_b, tgt_b, note="the derivative filter the circuit adds, alone (analog, exact)",
-            loop=spec, loop_reference=an_l, loop_candidate=tgt_l, forms=(analog_src, design.target),
-            evaluate=lambda f: (analog_src.frequency_response(f, via="zpk"), design.target.frequency_response(f, via="zpk")))
+            "derivative_filter",
+            band,
+            an_b,
+            tgt_b,
+            note="the derivative filter the circuit adds, alone (analog, exact)",
+            loop=spec,
+            loop_reference=an_l,
+            loop_candidate=tgt_l,
+            forms=(analog_src, design.target),
+            evaluate=lambda f: (
+                analog_src.frequency_response(f, via="zpk"),
+                design.target.frequency_response(f, via="zpk"),
+            ),
+        )
     else:
         rows["derivative_filter"] = bud.not_applicable("derivative_filter", "the source is proper; no filter added")
     rows["series_rounding"] = bud.error_row(
-        "series_rounding", band, nom_b, rnd_b,
+        "series_rounding",
+        band,
+        nom_b,
+        rnd_b,
         note=f"parts rounded to {tgt.resistors}/{tgt.capacitors} alone: rounded against computed values, ideal op-amp",
-        loop=spec, loop_reference=nom_l, loop_candidate=rnd_l, forms=(design.target, design.realized),
-        evaluate=lambda f: (resp(nominal, f)[0], resp(rounded, f)[0]))
+        loop=spec,
+        loop_reference=nom_l,
+        loop_candidate=rnd_l,
+        forms=(design.target, design.realized),
+        evaluate=lambda f: (resp(nominal, f)[0], resp(rounded, f)[0]),
+    )
     tols = dict(tgt.tolerances)
     f_disp = np.logspace(np.log10(band[0] / 30), np.log10(band[-1] * 30), 200)
-    mc = monte_carlo_rows(topo, rounded, tols, band, sign=sign, draws=n_draws, seed=tgt.seed,
-                          distribution=tgt.distribution, rounded_response=rnd_b, source_response=src_b,
-                          opamp=model, loop_f_hz=loop_f,
-                          loop_margins=spec.margins if spec is not None else None,
-                          loop_rounded=rnd_l, loop_source=src_l, display_f_hz=f_disp,
-                          loop_count=loop_count_of(design.realized, case.plant) if case.plant is not None else None)
+    mc = monte_carlo_rows(
+        topo,
+        rounded,
+        tols,
+        band,
+        sign=sign,
+        draws=n_draws,
+        seed=tgt.seed,
+        distribution=tgt.distribution,
+        rounded_response=rnd_b,
+        source_response=src_b,
+        opamp=model,
+        loop_f_hz=loop_f,
+        loop_margins=spec.margins if spec is not None else None,
+        loop_rounded=rnd_l,
+        loop_source=src_l,
+        display_f_hz=f_disp,
+        loop_count=loop_count_of(design.realized, case.plant) if case.plant is not None else None,
+    )
     spread = ", ".join(f"{k} {v * 100:g} %" for k, v in tols.items())
     rows["tolerances"] = bud.drawn_row(
-        "tolerances", mc.figures["tolerances"],
+        "tolerances",
+        mc.figures["tolerances"],
         note=f"{n_draws} draws ({tgt.distribution}) within ±tolerance ({spread}) around the rounded parts alone, "
-             f"ideal op-amp; seed {tgt.seed}", reference_form=design.realized, band_f_hz=band)
+        f"ideal op-amp; seed {tgt.seed}",
+        reference_form=design.realized,
+        band_f_hz=band,
+    )
     tick("Monte Carlo")
     if not model.ideal:
         g_b, g_l = both(lambda f: resp(nominal, f, model)[0])
         rows["opamp_gbw"] = bud.error_row(
-            "opamp_gbw", band, nom_b, g_b, note=f"single-pole op-amp, GBW {_fmt_hz(model.gbw_hz)}, alone (computed parts)",
-            loop=spec, loop_reference=nom_l, loop_candidate=g_l,
-            evaluate=lambda f: (resp(nominal, f)[0], resp(nominal, f, model)[0]))
+            "opamp_gbw",
+            band,
+            nom_b,
+            g_b,
+            note=f"single-pole op-amp, GBW {_fmt_hz(model.gbw_hz)}, alone (computed parts)",
+            loop=spec,
+            loop_reference=nom_l,
+            loop_candidate=g_l,
+            evaluate=lambda f: (resp(nominal, f)[0], resp(nominal, f, model)[0]),
+        )
     else:
         rows["opamp_gbw"] = bud.not_applicable("opamp_gbw", "ideal op-amp (set target.circuit.opamp_gbw to check it)")
     from convert.compare.evaluate import card_parasitics_row
 
     rows.update(card_parasitics_row(case_reduction, band, spec, loop_f))
     rows["total"] = bud.drawn_row(
-        "total", mc.figures["total"],
-        note="everything on: filter, rounding, tolerances" + (", op-amp GBW" if not model.ideal else "")
-             + "; against the source as the loop sees it", reference_form=src, band_f_hz=band)
+        "total",
+        mc.figures["total"],
+        note="everything on: filter, rounding, tolerances"
+        + (", op-amp GBW" if not model.ideal else "")
+        + "; against the source as the loop sees it",
+        reference_form=src,
+        band_f_hz=band,
+    )
     budget = bud.assemble(rows, bud.CIRCUIT_ROWS, "circuit")
 
     from convert.values import format_value
 
-    parts_text = {k: format_value(v, "ohm" if k.upper().startswith("R") else "farad")
-                  for k, v in design.fitted_parts().items()}
+    parts_text = {
+        k: format_value(v, "ohm" if k.upper().startswith("R") else "farad") for k, v in design.fitted_parts().items()
+    }
     realized: Controller = design.realized
-    details = {"topology": topo.name, "parts": design.fitted_parts(), "parts_text": parts_text,
-               "computed_parts": {k: float(v) for k, v in nominal.items()}, "series": design.part_series,
-               "tolerances": tols, "needs_inverter": design.needs_inverter, "opamp_gbw_hz": tgt.opamp_gbw_hz,
-               "draws": n_draws, "seed": tgt.seed, "notes": list(design.notes)}
+    details = {
+        "topology": topo.name,
+        "parts": design.fitted_parts(),
+        "parts_text": parts_text,
+        "computed_parts": {k: float(v) for k, v in nominal.items()},
+        "series": design.part_series,
+        "tolerances": tols,
+        "needs_inverter": design.needs_inverter,
+        "opamp_gbw_hz": tgt.opamp_gbw_hz,
+        "draws": n_draws,
+        "seed": tgt.seed,
+        "notes": list(design.notes),
+    }
     name = f"circuit {topo.name}"
-    r = Realization(name=name, form="circuit", controller=realized, details=details, budget=budget,
-                    seen=lambda f: resp(rounded, f, model)[0], warnings=list(design.notes))
+    r = Realization(
+        name=name,
+        form="circuit",
+        controller=realized,
+        details=details,
+        budget=budget,
+        seen=lambda f: resp(rounded, f, model)[0],
+        warnings=list(design.notes),
+    )
     # Monte Carlo band for the figure (with the op-amp model, as the total row) and the per-draw
     # maxima the verdict uses (the error panels draw them with the limits)
-    r.band = {"f_hz": mc.band.f_hz, "gain_db": mc.band.gain_db, "phase_deg": mc.band.phase_deg,
-              "percentiles": mc.band.percentiles, "nominal_gain_db": mc.band.nominal_gain_db,
-              "nominal_phase_deg": mc.band.nominal_phase_deg, "draws": n_draws, "seed": tgt.seed,
-              "distribution": tgt.distribution, "total": mc.figures["total"]}
+    r.band = {
+        "f_hz": mc.band.f_hz,
+        "gain_db": mc.band.gain_db,
+        "phase_deg": mc.band.phase_deg,
+        "percentiles": mc.band.percentiles,
+        "nominal_gain_db": mc.band.nominal_gain_db,
+        "nominal_phase_deg": mc.band.nominal_phase_deg,
+        "draws": n_draws,
+        "seed": tgt.seed,
+        "distribution": tgt.distribution,
+        "total": mc.figures["total"],
+    }
     if case.plant is not None:
         r.margins = loop_margins(realized, case.plant.model, case.plant.dead_time_s)
         # a two-input stage runs its own setpoint path (from its rounded parts); a one-input stage
@@ -159,8 +266,9 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
             own = _ratio(paths["setpoint"], paths["measurement"], "setpoint filter F = Cr / Cy")
             if own.order == 0 and len(own.num) == 1 and abs(own.num[0] - 1.0) <= 1e-9:
                 own = None
-        r.step, r.disturbance = _simulate_pair(case, realized, duration, 0.0, case.signals.output_range,
-                                               setpoint_filter=own)
+        r.step, r.disturbance = _simulate_pair(
+            case, realized, duration, 0.0, case.signals.output_range, setpoint_filter=own
+        )
         if setpoint_filter is not None and own is None:
             r.warnings.append(WEIGHTS_NOT_CARRIED)
     r.files = circuit_files(design, model, tols)
@@ -168,9 +276,26 @@ def circuit_realization(case, src: Controller, analog_src: Controller, band, src
     return r
 
 
-def monte_carlo_rows(topology, rounded: dict, tolerances: dict, band_f_hz, *, sign: float, draws: int, seed: int,
-                     distribution: str, rounded_response, source_response, opamp=None, loop_f_hz=None,
-                     loop_margins=None, loop_rounded=None, loop_source=None, display_f_hz=None, loop_count=None):
+def monte_carlo_rows(
+    topology,
+    rounded: dict,
+    tolerances: dict,
+    band_f_hz,
+    *,
+    sign: float,
+    draws: int,
+    seed: int,
+    distribution: str,
+    rounded_response,
+    source_response,
+    opamp=None,
+    loop_f_hz=None,
+    loop_margins=None,
+    loop_rounded=None,
+    loop_source=None,
+    display_f_hz=None,
+    loop_count=None,
+):
     """The Monte Carlo a circuit budget needs, in one run of the tolerance engine: the
     ``tolerances`` comparison (draws, ideal op-amp, against the rounded parts) and the ``total``
     (draws with the op-amp model against the source as the loop sees it), with the margin
@@ -178,12 +303,27 @@ def monte_carlo_rows(topology, rounded: dict, tolerances: dict, band_f_hz, *, si
     ``display_f_hz`` (with the op-amp model)."""
     from convert.circuit.tolerance import Comparison, run_tolerances
 
-    comparisons = [Comparison("tolerances", np.asarray(rounded_response), None, loop_rounded),
-                   Comparison("total", np.asarray(source_response), opamp, loop_source)]
-    return run_tolerances(topology, rounded, tolerances, band_f_hz=band_f_hz, comparisons=comparisons, draws=draws,
-                          seed=seed, distribution=distribution, sign=sign, loop_f_hz=loop_f_hz,
-                          loop_margins=loop_margins, display_f_hz=display_f_hz, display_opamp=opamp,
-                          parameters=False, loop_count=loop_count)
+    comparisons = [
+        Comparison("tolerances", np.asarray(rounded_response), None, loop_rounded),
+        Comparison("total", np.asarray(source_response), opamp, loop_source),
+    ]
+    return run_tolerances(
+        topology,
+        rounded,
+        tolerances,
+        band_f_hz=band_f_hz,
+        comparisons=comparisons,
+        draws=draws,
+        seed=seed,
+        distribution=distribution,
+        sign=sign,
+        loop_f_hz=loop_f_hz,
+        loop_margins=loop_margins,
+        display_f_hz=display_f_hz,
+        display_opamp=opamp,
+        parameters=False,
+        loop_count=loop_count,
+    )
 
 
 def loop_count_of(controller, plant):
@@ -219,8 +359,7 @@ def circuit_files(design, model, tolerances=None) -> dict:
     from convert.circuit.netlist_out import design_netlist
     from convert.circuit.schematic import design_schematic
 
-    files: dict = {"circuit.cir": design_netlist(design, opamp=model),
-                   "bom.csv": bom_csv(bom_rows(design, tolerances))}
+    files: dict = {"circuit.cir": design_netlist(design, opamp=model), "bom.csv": bom_csv(bom_rows(design, tolerances))}
     with tempfile.TemporaryDirectory() as tmp:
         path = Path(tmp) / "schematic.png"  # PNG only: each drawing costs about a second
         design_schematic(design, str(path))

@@ -10,15 +10,24 @@ source as is; a digital source through its own zero-order hold).
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any, Callable
+from typing import Any
+from collections.abc import Callable
 
 import numpy as np
 
 from convert.compare import budget as bud
 from convert.compare.frequency import hold_and_delay_factor, log_grid, response_seen_from_loop
 from convert.compare.ownchecks import own_checks
-from convert.compare.loop import (LoopResponse, Margins, default_duration, loop_margins, margin_grid,
-                                  margins_of_responses, response_deviation, simulate_loop)
+from convert.compare.loop import (
+    LoopResponse,
+    Margins,
+    default_duration,
+    loop_margins,
+    margin_grid,
+    margins_of_responses,
+    response_deviation,
+    simulate_loop,
+)
 from convert.compare.rate import RateAdvice, advise
 from convert.compare.stability import LoopStability, loop_stability
 from convert.compare.verdict import LOOP_CRITERIA, Verdict, judge
@@ -88,8 +97,11 @@ class CaseResults:
 
     def loop_is_stable(self, name: str) -> bool | None:
         """Stability of the loop of ``name`` ("source" or a realization's name); None if unknown."""
-        s = self.source_stability if name == "source" else next(
-            (r.stability for r in self.realizations if r.name == name), None)
+        s = (
+            self.source_stability
+            if name == "source"
+            else next((r.stability for r in self.realizations if r.name == name), None)
+        )
         return None if s is None else s.stable
 
     @property
@@ -128,8 +140,12 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
     crit = case.criteria
     band = log_grid(crit.band_hz[0], crit.band_hz[1], 100)
     if src.is_digital and src.fs_hz / 2 <= crit.band_hz[1]:
-        raise InputError(f"the band's top ({crit.band_hz[1]:g} Hz) must lie below the source's Nyquist frequency "
-                         f"({src.fs_hz / 2:g} Hz)", where=case.where("criteria.band"), key="criteria.band")
+        raise InputError(
+            f"the band's top ({crit.band_hz[1]:g} Hz) must lie below the source's Nyquist frequency "
+            f"({src.fs_hz / 2:g} Hz)",
+            where=case.where("criteria.band"),
+            key="criteria.band",
+        )
     skipped: list[str] = []
     notes: list[str] = list(info.notes)
     analog_src = _analog_reference(case, src, notes)
@@ -142,49 +158,95 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
     src_margins = duration = src_step = src_dist = src_stability = None
     src_filter = None if src.is_digital else setpoint_filter_of(info.pid, info.extra)
     if src_filter is not None and plant is not None:
-        notes.append("the source's setpoint path differs from its error path (setpoint weights or a setpoint "
-                     f"filter): every setpoint step is simulated as u = C_sp·r − C·y, with F = C_sp/C = "
-                     f"{src_filter.expression()} applied to the step; the load disturbance does not depend on it")
+        notes.append(
+            "the source's setpoint path differs from its error path (setpoint weights or a setpoint "
+            f"filter): every setpoint step is simulated as u = C_sp·r − C·y, with F = C_sp/C = "
+            f"{src_filter.expression()} applied to the step; the load disturbance does not depend on it"
+        )
     sim_src = None
     if plant is not None:
         src_margins = loop_margins(src, plant.model, plant.dead_time_s)
         sim_src = _simulable(case, src, analog_src, notes)
         # an improper source (an unfiltered PID) still makes a proper loop with a strictly proper plant:
         # decide on the source itself where the loop allows it, else on its simulated (filtered) form
-        src_stability = _stability(src if src.is_proper or _loop_is_proper(src, plant.model) else sim_src, plant,
-                                   0.0, "the source loop", notes)
-        duration = case.signals.duration_s or default_duration(analog_src if analog_src.is_proper else sim_src,
-                                                               plant.model, plant.dead_time_s)
+        src_stability = _stability(
+            src if src.is_proper or _loop_is_proper(src, plant.model) else sim_src, plant, 0.0, "the source loop", notes
+        )
+        duration = case.signals.duration_s or default_duration(
+            analog_src if analog_src.is_proper else sim_src, plant.model, plant.dead_time_s
+        )
         if sim_src is not None:
-            src_step, src_dist = _simulate_pair(case, sim_src, duration, 0.0,
-                                                _within(case.signals.output_range, card_limits),
-                                                setpoint_filter=src_filter)
+            src_step, src_dist = _simulate_pair(
+                case,
+                sim_src,
+                duration,
+                0.0,
+                _within(case.signals.output_range, card_limits),
+                setpoint_filter=src_filter,
+            )
     else:
-        skipped += ["loop margins (gain margin, phase margin, crossover, sensitivity peak)",
-                    "closed-loop step and load-disturbance simulations",
-                    "phase-margin, gain-margin, sensitivity, step and disturbance criteria",
-                    "sample-rate rule of thumb (needs the crossover frequency)"]
+        skipped += [
+            "loop margins (gain margin, phase margin, crossover, sensitivity peak)",
+            "closed-loop step and load-disturbance simulations",
+            "phase-margin, gain-margin, sensitivity, step and disturbance criteria",
+            "sample-rate rule of thumb (needs the crossover frequency)",
+        ]
     tick("source and reference loop")
 
     realizations: list[Realization] = []
     advice: list[RateAdvice] = []
     if case.digital:
-        realizations += _digital_realizations(case, src, analog_src, band, src_margins, duration, src_step,
-                                              src_dist, tick, card_limits=card_limits, reduction=reduction,
-                                              setpoint_filter=src_filter)
+        realizations += _digital_realizations(
+            case,
+            src,
+            analog_src,
+            band,
+            src_margins,
+            duration,
+            src_step,
+            src_dist,
+            tick,
+            card_limits=card_limits,
+            reduction=reduction,
+            setpoint_filter=src_filter,
+        )
         advice = _rate_advice(case, analog_src, src_margins, src_step, src_dist, duration, src_stability)
         tick("sample-rate advice")
     if case.circuit:
         from convert.compare.circuitwork import circuit_realization
 
-        realizations.append(circuit_realization(case, src, analog_src, band, src_margins, duration, src_step,
-                                                src_dist, draws=draws, tick=tick, case_reduction=reduction,
-                                                source_pid=info.pid, setpoint_filter=src_filter))
+        realizations.append(
+            circuit_realization(
+                case,
+                src,
+                analog_src,
+                band,
+                src_margins,
+                duration,
+                src_step,
+                src_dist,
+                draws=draws,
+                tick=tick,
+                case_reduction=reduction,
+                source_pid=info.pid,
+                setpoint_filter=src_filter,
+            )
+        )
     if getattr(case, "given", ()):
         from convert.compare.givenwork import given_realizations
 
-        realizations += given_realizations(case, src, band, src_margins, duration, src_step, src_dist, draws=draws,
-                                           tick=tick, source_weighted=src_filter is not None)
+        realizations += given_realizations(
+            case,
+            src,
+            band,
+            src_margins,
+            duration,
+            src_step,
+            src_dist,
+            draws=draws,
+            tick=tick,
+            source_weighted=src_filter is not None,
+        )
 
     figures = {}
     loops: dict[str, LoopStability | None] = {}
@@ -203,7 +265,9 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
             if src_stability is not None and not src_stability.acceptable:
                 for key in LOOP_CRITERIA:
                     f[key] = None
-                    f[f"{key}_note"] = "the source loop does not work with this plant (unstable or sign-inverted): there is no working loop to compare with"
+                    f[f"{key}_note"] = (
+                        "the source loop does not work with this plant (unstable or sign-inverted): there is no working loop to compare with"
+                    )
         # always on, plant or not: the realization's own poles and its sign against the source
         f["checks"] = own_checks(src, r.controller, float(band[0]))
         fw = r.details.get("firmware") if r.form == "digital" else None
@@ -226,11 +290,25 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
     circuit_draws = None
     if case.circuit:
         circuit_draws = draws if draws is not None else case.circuit.draws
-    return CaseResults(case=case, source=info, reference=src, band_f_hz=band, realizations=realizations,
-                       rate_advice=advice, verdict=verdict, source_margins=src_margins, source_step=src_step,
-                       source_disturbance=src_dist, duration_s=duration, skipped=skipped, notes=notes,
-                       draws=circuit_draws, seed=case.circuit.seed if case.circuit else None, evidence=evidence,
-                       source_stability=src_stability)
+    return CaseResults(
+        case=case,
+        source=info,
+        reference=src,
+        band_f_hz=band,
+        realizations=realizations,
+        rate_advice=advice,
+        verdict=verdict,
+        source_margins=src_margins,
+        source_step=src_step,
+        source_disturbance=src_dist,
+        duration_s=duration,
+        skipped=skipped,
+        notes=notes,
+        draws=circuit_draws,
+        seed=case.circuit.seed if case.circuit else None,
+        evidence=evidence,
+        source_stability=src_stability,
+    )
 
 
 # ----------------------------------------------------------------------------- helpers
@@ -244,8 +322,10 @@ def _analog_reference(case, src: Controller, notes: list[str]) -> Controller:
     reading = read_analog(src, method)
     analog = reading.controller
     notes.extend(f"source.digital: {n}" for n in reading.notes)  # e.g. a backward-difference derivative
-    notes.append(f"the firmware source was mapped back to an analog equivalent by the {method} inverse; "
-                 "the targets are built from that equivalent and compared with the firmware as it runs")
+    notes.append(
+        f"the firmware source was mapped back to an analog equivalent by the {method} inverse; "
+        "the targets are built from that equivalent and compared with the firmware as it runs"
+    )
     return analog
 
 
@@ -255,9 +335,12 @@ def _filtered(case, analog: Controller) -> tuple[Controller, str | None]:
         return analog, None
     n = case.digital.derivative_filter if case.digital else None
     if n is None:
-        raise UnrealizableError("the source controller is improper (a pure derivative) and cannot be sampled or "
-                                "simulated; add derivative_filter = 10 (N) to [target.digital]",
-                                where=case.where("target.digital"), key="target.digital.derivative_filter")
+        raise UnrealizableError(
+            "the source controller is improper (a pure derivative) and cannot be sampled or "
+            "simulated; add derivative_filter = 10 (N) to [target.digital]",
+            where=case.where("target.digital"),
+            key="target.digital.derivative_filter",
+        )
     from convert.digital import add_derivative_filter  # type: ignore[attr-defined]
 
     return add_derivative_filter(analog, n), f"derivative filter N = {n:g} added (filter time constant Td/N)"
@@ -281,13 +364,24 @@ def _draws_stability_check(total) -> dict:
     limit = 100.0 - float(total.percentile)
     value = 100.0 * float(total.unstable_fraction)
     ok = value <= limit
-    note = (f"{value:.3g} % of the Monte Carlo draws give an unstable closed loop with the plant "
-            f"(limit {limit:g} %, the share of draws the p{float(total.percentile):g} error figures leave out)")
-    return {"key": "draws_closed_loop_stable", "label": "closed-loop stability over the draws", "unit": "%",
-            "limit": limit, "value": value, "status": "pass" if ok else "fail", "note": note}
+    note = (
+        f"{value:.3g} % of the Monte Carlo draws give an unstable closed loop with the plant "
+        f"(limit {limit:g} %, the share of draws the p{float(total.percentile):g} error figures leave out)"
+    )
+    return {
+        "key": "draws_closed_loop_stable",
+        "label": "closed-loop stability over the draws",
+        "unit": "%",
+        "limit": limit,
+        "value": value,
+        "status": "pass" if ok else "fail",
+        "note": note,
+    }
 
 
-def _stability(controller: Controller | None, plant, delay_s: float, what: str, notes: list[str]) -> LoopStability | None:
+def _stability(
+    controller: Controller | None, plant, delay_s: float, what: str, notes: list[str]
+) -> LoopStability | None:
     """Closed-loop stability of ``controller`` with the case's plant (dead time exact), or None
     with a note when it cannot be decided (an improper loop)."""
     if controller is None:
@@ -322,22 +416,34 @@ def setpoint_filter_of(pid=None, extra=None) -> Controller | None:
     d_sp, d_fb = np.asarray(sp.den, float), np.asarray(fb.den, float)
     if d_sp.size == d_fb.size and np.allclose(d_sp / d_sp[0], d_fb / d_fb[0], rtol=1e-12, atol=0.0):
         # the same denominator (up to its scaling): F is the ratio of the numerators
-        return Controller.analog(np.asarray(sp.num) / d_sp[0], np.asarray(fb.num) / d_fb[0],
-                                 name="setpoint filter F = C_sp / C")
+        return Controller.analog(
+            np.asarray(sp.num) / d_sp[0], np.asarray(fb.num) / d_fb[0], name="setpoint filter F = C_sp / C"
+        )
     from convert.circuit.card import _ratio
 
     return _ratio(sp, fb, "setpoint filter F = C_sp / C")
 
 
-WEIGHTS_NOT_CARRIED = ("this form has no setpoint path of its own (u = C·(r − y)); its setpoint step is judged "
-                       "against the source's weighted response, u = C_sp·r − C·y")
-CODE_NOT_WEIGHTED = ("the generated code takes the error (u = C·(r − y)) and does not carry the source's setpoint "
-                     "path; its setpoint step is simulated so and judged against the source's weighted response "
-                     "(firmware with setpoint weights b, c: loopshift code --pid-block)")
+WEIGHTS_NOT_CARRIED = (
+    "this form has no setpoint path of its own (u = C·(r − y)); its setpoint step is judged "
+    "against the source's weighted response, u = C_sp·r − C·y"
+)
+CODE_NOT_WEIGHTED = (
+    "the generated code takes the error (u = C·(r − y)) and does not carry the source's setpoint "
+    "path; its setpoint step is simulated so and judged against the source's weighted response "
+    "(firmware with setpoint weights b, c: loopshift code --pid-block)"
+)
 
 
-def _simulate_pair(case, controller: Controller, duration: float, delay_s: float, limits, realized=None,
-                   setpoint_filter: Controller | None = None):
+def _simulate_pair(
+    case,
+    controller: Controller,
+    duration: float,
+    delay_s: float,
+    limits,
+    realized=None,
+    setpoint_filter: Controller | None = None,
+):
     """Setpoint-step and load-disturbance responses of ``controller`` in the case's loop; the
     setpoint step passes through ``setpoint_filter`` F (the 2-DOF law u = C·(F·r − y)), the
     disturbance does not depend on it."""
@@ -345,10 +451,18 @@ def _simulate_pair(case, controller: Controller, duration: float, delay_s: float
     common = dict(duration_s=duration, delay_s=delay_s, output_limits=limits)
     if realized is not None:
         common["realized"] = realized
-    step = simulate_loop(controller, plant.model, plant.dead_time_s, kind="setpoint", step=case.signals.setpoint_step,
-                         setpoint_filter=setpoint_filter, **common)
-    dist = simulate_loop(controller, plant.model, plant.dead_time_s, kind="disturbance",
-                         step=case.signals.disturbance_step, **common)
+    step = simulate_loop(
+        controller,
+        plant.model,
+        plant.dead_time_s,
+        kind="setpoint",
+        step=case.signals.setpoint_step,
+        setpoint_filter=setpoint_filter,
+        **common,
+    )
+    dist = simulate_loop(
+        controller, plant.model, plant.dead_time_s, kind="disturbance", step=case.signals.disturbance_step, **common
+    )
     return step, dist
 
 
@@ -383,21 +497,45 @@ def card_parasitics_row(reduction, band, spec=None, loop_f=None) -> dict:
     if reduction is None:
         return {}
     if not reduction.changed:
-        return {"card_parasitics": bud.not_applicable("card_parasitics", "nothing of the card lies beyond the cut "
-                                                                          f"({reduction.cut_hz:.4g} Hz)")}
+        return {
+            "card_parasitics": bud.not_applicable(
+                "card_parasitics", f"nothing of the card lies beyond the cut ({reduction.cut_hz:.4g} Hz)"
+            )
+        }
     full, red = reduction.full, reduction.reduced
 
     def lr(c):
         return None if loop_f is None else c.frequency_response(loop_f, via="zpk")
 
-    return {"card_parasitics": bud.error_row(
-        "card_parasitics", band, full.frequency_response(band, via="zpk"), red.frequency_response(band, via="zpk"),
-        note=f"the controller handed on against the full card, analog, alone: {reduction.rule}",
-        loop=spec, loop_reference=lr(full), loop_candidate=lr(red))}
+    return {
+        "card_parasitics": bud.error_row(
+            "card_parasitics",
+            band,
+            full.frequency_response(band, via="zpk"),
+            red.frequency_response(band, via="zpk"),
+            note=f"the controller handed on against the full card, analog, alone: {reduction.rule}",
+            loop=spec,
+            loop_reference=lr(full),
+            loop_candidate=lr(red),
+        )
+    }
 
 
-def _digital_realizations(case, src, analog_src, band, src_margins, duration, src_step, src_dist, tick, *,
-                          card_limits=None, reduction=None, setpoint_filter=None):
+def _digital_realizations(
+    case,
+    src,
+    analog_src,
+    band,
+    src_margins,
+    duration,
+    src_step,
+    src_dist,
+    tick,
+    *,
+    card_limits=None,
+    reduction=None,
+    setpoint_filter=None,
+):
     from convert.digital import discretize
 
     tgt = case.digital
@@ -406,16 +544,20 @@ def _digital_realizations(case, src, analog_src, band, src_margins, duration, sr
     ref_band = response_seen_from_loop(src, band, via="zpk")
     for fs in tgt.fs_hz:
         if fs / 2 <= case.criteria.band_hz[1]:
-            raise InputError(f"the sample rate {fs:g} Hz puts the Nyquist frequency at or below the band's top "
-                             f"({case.criteria.band_hz[1]:g} Hz); raise fs or lower the band",
-                             where=case.where("target.digital.fs"), key="target.digital.fs")
+            raise InputError(
+                f"the sample rate {fs:g} Hz puts the Nyquist frequency at or below the band's top "
+                f"({case.criteria.band_hz[1]:g} Hz); raise fs or lower the band",
+                where=case.where("target.digital.fs"),
+                key="target.digital.fs",
+            )
         delay = tgt.delay_for(fs)
         for method in tgt.methods:
             try:
                 real = discretize(filtered, fs, method, prewarp_hz=tgt.prewarp_hz)
             except LoopshiftError as exc:
-                raise type(exc)(exc.message, where=case.where("target.digital.methods"),
-                                key="target.digital.methods") from None
+                raise type(exc)(
+                    exc.message, where=case.where("target.digital.methods"), key="target.digital.methods"
+                ) from None
             cd = real.controller
             t = 1.0 / fs
             warnings = list(real.warnings)
@@ -430,71 +572,128 @@ def _digital_realizations(case, src, analog_src, band, src_margins, duration, sr
 
             rows = {}
             rows["discretization"] = bud.error_row(
-                "discretization", band, filtered.frequency_response(band, via="zpk"),
+                "discretization",
+                band,
+                filtered.frequency_response(band, via="zpk"),
                 cd.frequency_response(band, via="zpk"),
                 note=f"{method} at {_fmt_hz(fs)} alone: C(e^jωT) against the analog controller it was made from; "
-                     "no hold, no delay, float64 coefficients",
-                loop=spec, loop_reference=lr(filtered), loop_candidate=lr(cd), forms=(filtered, cd),
-                evaluate=lambda f: (filtered.frequency_response(f, via="zpk"), cd.frequency_response(f, via="zpk")))
+                "no hold, no delay, float64 coefficients",
+                loop=spec,
+                loop_reference=lr(filtered),
+                loop_candidate=lr(cd),
+                forms=(filtered, cd),
+                evaluate=lambda f: (filtered.frequency_response(f, via="zpk"), cd.frequency_response(f, via="zpk")),  # noqa: B023
+            )
             hold = hold_and_delay_factor
             rows["hold_and_delay"] = bud.error_row(
-                "hold_and_delay", band, filtered.frequency_response(band, via="zpk"),
+                "hold_and_delay",
+                band,
+                filtered.frequency_response(band, via="zpk"),
                 filtered.frequency_response(band, via="zpk") * hold(band, t, delay),
                 note=f"zero-order hold at {_fmt_hz(fs)} and {_fmt_s(delay)} computation delay alone, applied to "
-                     "the analog controller",
-                loop=spec, loop_reference=lr(filtered),
-                loop_candidate=None if loop_f is None else filtered.frequency_response(loop_f, via="zpk") * hold(loop_f, t, delay),
+                "the analog controller",
+                loop=spec,
+                loop_reference=lr(filtered),
+                loop_candidate=None
+                if loop_f is None
+                else filtered.frequency_response(loop_f, via="zpk") * hold(loop_f, t, delay),
                 forms=(filtered, filtered),
-                evaluate=lambda f: (filtered.frequency_response(f, via="zpk"),
-                                    filtered.frequency_response(f, via="zpk") * hold(f, t, delay)))
+                evaluate=lambda f: (
+                    filtered.frequency_response(f, via="zpk"),
+                    filtered.frequency_response(f, via="zpk") * hold(f, t, delay),  # noqa: B023
+                ),
+            )
             if firmware.realized is not None:
                 from convert.digital.quantized import realized_response
 
                 rows["word_format"] = bud.error_row(
-                    "word_format", band, real.frequency_response(band), realized_response(firmware.realized, band),
+                    "word_format",
+                    band,
+                    real.frequency_response(band),
+                    realized_response(firmware.realized, band),
                     note=f"{tgt.structure} in {tgt.word_format} alone: the stored coefficients' response against the "
-                         "directly mapped zeros/poles (both in z, no hold)",
-                    loop=spec, loop_reference=lr(cd),
+                    "directly mapped zeros/poles (both in z, no hold)",
+                    loop=spec,
+                    loop_reference=lr(cd),
                     loop_candidate=None if loop_f is None else realized_response(firmware.realized, loop_f),
-                    forms=(cd, cq), evaluate=lambda f: (real.frequency_response(f), realized_response(firmware.realized, f)))
+                    forms=(cd, cq),
+                    evaluate=lambda f: (real.frequency_response(f), realized_response(firmware.realized, f)),  # noqa: B023
+                )
             else:
                 rows["word_format"] = bud.not_applicable(
-                    "word_format", f"{tgt.structure} in {tgt.word_format} cannot be built: {firmware.refused}")
+                    "word_format", f"{tgt.structure} in {tgt.word_format} cannot be built: {firmware.refused}"
+                )
             if filter_note:
                 rows["derivative_filter"] = bud.error_row(
-                    "derivative_filter", band, analog_src.frequency_response(band, via="zpk"),
-                    filtered.frequency_response(band, via="zpk"), note=f"{filter_note}, alone, in the analog controller",
-                    loop=spec, loop_reference=lr(analog_src), loop_candidate=lr(filtered), forms=(analog_src, filtered),
-                    evaluate=lambda f: (analog_src.frequency_response(f, via="zpk"), filtered.frequency_response(f, via="zpk")))
+                    "derivative_filter",
+                    band,
+                    analog_src.frequency_response(band, via="zpk"),
+                    filtered.frequency_response(band, via="zpk"),
+                    note=f"{filter_note}, alone, in the analog controller",
+                    loop=spec,
+                    loop_reference=lr(analog_src),
+                    loop_candidate=lr(filtered),
+                    forms=(analog_src, filtered),
+                    evaluate=lambda f: (
+                        analog_src.frequency_response(f, via="zpk"),
+                        filtered.frequency_response(f, via="zpk"),
+                    ),
+                )
             else:
-                rows["derivative_filter"] = bud.not_applicable("derivative_filter", "the source is proper; no filter added")
+                rows["derivative_filter"] = bud.not_applicable(
+                    "derivative_filter", "the source is proper; no filter added"
+                )
             rows.update(card_parasitics_row(reduction, band, spec, loop_f))
             rows["total"] = bud.error_row(
-                "total", band, ref_band, response_seen_from_loop(cq, band, delay_s=delay, via="zpk"),
+                "total",
+                band,
+                ref_band,
+                response_seen_from_loop(cq, band, delay_s=delay, via="zpk"),
                 note="everything on: method, hold, delay, word format, filter"
-                     + (", card parasitics left out" if reduction is not None and reduction.changed else "")
-                     + "; against the source as the loop sees it",
-                loop=spec, loop_reference=lr(src, hold="zoh"), loop_candidate=lr(cq, delay, "zoh"), forms=(src, cq),
-                evaluate=lambda f: (response_seen_from_loop(src, f, via="zpk"),
-                                    response_seen_from_loop(cq, f, delay_s=delay, via="zpk")))
+                + (", card parasitics left out" if reduction is not None and reduction.changed else "")
+                + "; against the source as the loop sees it",
+                loop=spec,
+                loop_reference=lr(src, hold="zoh"),
+                loop_candidate=lr(cq, delay, "zoh"),
+                forms=(src, cq),
+                evaluate=lambda f: (
+                    response_seen_from_loop(src, f, via="zpk"),
+                    response_seen_from_loop(cq, f, delay_s=delay, via="zpk"),  # noqa: B023
+                ),
+            )
             budget = bud.assemble(rows, bud.DIGITAL_ROWS, "digital")
-            details = {"method": method, "fs_hz": fs, "delay_s": delay, "prewarp_hz": tgt.prewarp_hz,
-                       "b": list(cq.b), "a": list(cq.a), "word_format": tgt.word_format,
-                       "structure": tgt.structure,
-                       "firmware": {**firmware.summary(), "checks": firmware.checks()},
-                       "difference_equation": getattr(real, "difference_equation", ""),
-                       "notes": list(getattr(real, "notes", ())),
-                       "output_limits": firmware_output_limits(case, card_limits)}
-            r = Realization(name=name, form="digital", controller=cq, details=details, budget=budget,
-                            seen=lambda f, c=cq, d=delay: response_seen_from_loop(c, f, delay_s=d, via="zpk"),
-                            warnings=warnings, files=_code_files(case, firmware, name, method))
+            details = {
+                "method": method,
+                "fs_hz": fs,
+                "delay_s": delay,
+                "prewarp_hz": tgt.prewarp_hz,
+                "b": list(cq.b),
+                "a": list(cq.a),
+                "word_format": tgt.word_format,
+                "structure": tgt.structure,
+                "firmware": {**firmware.summary(), "checks": firmware.checks()},
+                "difference_equation": getattr(real, "difference_equation", ""),
+                "notes": list(getattr(real, "notes", ())),
+                "output_limits": firmware_output_limits(case, card_limits),
+            }
+            r = Realization(
+                name=name,
+                form="digital",
+                controller=cq,
+                details=details,
+                budget=budget,
+                seen=lambda f, c=cq, d=delay: response_seen_from_loop(c, f, delay_s=d, via="zpk"),
+                warnings=warnings,
+                files=_code_files(case, firmware, name, method),
+            )
             if case.plant is not None:
                 r.margins = loop_margins(cq, case.plant.model, case.plant.dead_time_s, delay_s=delay)
                 limits = firmware_output_limits(case, card_limits)
                 try:
                     # the code handed out takes the error: it is simulated as it runs
-                    r.step, r.disturbance = _simulate_pair(case, cq, duration, delay, limits,
-                                                           realized=firmware.realized)
+                    r.step, r.disturbance = _simulate_pair(
+                        case, cq, duration, delay, limits, realized=firmware.realized
+                    )
                     if setpoint_filter is not None:
                         r.warnings.append(CODE_NOT_WEIGHTED)
                 except InputError as exc:
@@ -514,11 +713,23 @@ def _firmware(case, real, band):
     level = max(abs(limits[0]), abs(limits[1])) if limits else None
     rng = max(abs(tgt.input_range[0]), abs(tgt.input_range[1])) if tgt.input_range else None
     try:
-        return analyze(real.roots, tgt.structure, tgt.word_format, band, b=real.b, a=real.a, input_range=rng,
-                       output_level=level, input_resolution=tgt.input_resolution)
+        return analyze(
+            real.roots,
+            tgt.structure,
+            tgt.word_format,
+            band,
+            b=real.b,
+            a=real.a,
+            input_range=rng,
+            output_level=level,
+            input_resolution=tgt.input_resolution,
+        )
     except LoopshiftError as exc:
-        raise type(exc)(exc.message, where=case.where("target.digital"),
-                        key=f"target.digital.{exc.key}" if exc.key else "target.digital") from None
+        raise type(exc)(
+            exc.message,
+            where=case.where("target.digital"),
+            key=f"target.digital.{exc.key}" if exc.key else "target.digital",
+        ) from None
 
 
 def _code_files(case, firmware, name: str, method: str) -> dict:
@@ -535,8 +746,9 @@ def _code_files(case, firmware, name: str, method: str) -> dict:
     limits = tgt.output_limits or case.signals.output_range
     files = {}
     for lang in tgt.code_languages:
-        for fname, text in emit(firmware.realized, tgt.code_name, lang, source=case.title or "case source",
-                                method=method, limits=limits).items():
+        for fname, text in emit(
+            firmware.realized, tgt.code_name, lang, source=case.title or "case source", method=method, limits=limits
+        ).items():
             files[f"{folder}/{fname}"] = text
     return files
 
@@ -547,8 +759,9 @@ def _realized_controller(firmware):
     return realized_controller(firmware.realized)
 
 
-def _rate_advice(case, analog_src, src_margins, src_step=None, src_dist=None, duration=None,
-                 src_stability=None) -> list[RateAdvice]:
+def _rate_advice(
+    case, analog_src, src_margins, src_step=None, src_dist=None, duration=None, src_stability=None
+) -> list[RateAdvice]:
     from convert.digital import discretize
 
     tgt = case.digital
@@ -568,10 +781,22 @@ def _rate_advice(case, analog_src, src_margins, src_step=None, src_dist=None, du
     check = None
     if case.plant is not None and src_margins is not None and (src_stability is None or src_stability.acceptable):
         check = _rate_loop_check(case, src_margins, src_step, src_dist, duration)
-    return [advise(filtered, m, conv, band_hz=crit.band_hz, max_gain_error_db=crit.max_gain_error_db,
-                   max_phase_error_deg=crit.max_phase_error_deg, max_lag_deg=lag if fc else None, crossover_hz=fc,
-                   delay_s=tgt.delay_s, delay_samples=tgt.delay_samples, loop_check=check)
-            for m in tgt.methods]
+    return [
+        advise(
+            filtered,
+            m,
+            conv,
+            band_hz=crit.band_hz,
+            max_gain_error_db=crit.max_gain_error_db,
+            max_phase_error_deg=crit.max_phase_error_deg,
+            max_lag_deg=lag if fc else None,
+            crossover_hz=fc,
+            delay_s=tgt.delay_s,
+            delay_samples=tgt.delay_samples,
+            loop_check=check,
+        )
+        for m in tgt.methods
+    ]
 
 
 def _rate_loop_check(case, src_margins, src_step, src_dist, duration):
@@ -593,8 +818,15 @@ def _rate_loop_check(case, src_margins, src_step, src_dist, duration):
             return ["closed-loop stability"]
         if not wanted:
             return []
-        r = Realization(name="candidate", form="digital", controller=digital, details={}, budget=[no_percentile],
-                        seen=lambda f: f, margins=loop_margins(digital, plant.model, plant.dead_time_s, delay_s=delay))
+        r = Realization(
+            name="candidate",
+            form="digital",
+            controller=digital,
+            details={},
+            budget=[no_percentile],
+            seen=lambda f: f,
+            margins=loop_margins(digital, plant.model, plant.dead_time_s, delay_s=delay),
+        )
         if needs_sim and duration is not None:
             try:
                 r.step, r.disturbance = _simulate_pair(case, digital, duration, delay, limits)
@@ -613,14 +845,19 @@ def _loop_figures(src_m: Margins, r: Realization, src_step, src_dist, case) -> d
         return f
     total = next(row for row in r.budget if row.key == "total")
     if total.percentile is not None:  # Monte Carlo: the percentile of the change over the draws
-        for key, attr in (("max_phase_margin_change_deg", "delta_phase_margin_deg"),
-                          ("max_gain_margin_change_db", "delta_gain_margin_db"),
-                          ("max_sensitivity_peak_change_db", "delta_sensitivity_peak_db")):
+        for key, attr in (
+            ("max_phase_margin_change_deg", "delta_phase_margin_deg"),
+            ("max_gain_margin_change_db", "delta_gain_margin_db"),
+            ("max_sensitivity_peak_change_db", "delta_sensitivity_peak_db"),
+        ):
             f[key] = getattr(total, attr)
             f[f"{key}_note"] = f"p{total.percentile:g} over the Monte Carlo draws"
         m = None
-    for key, attr in (("max_phase_margin_change_deg", "phase_margin_deg"), ("max_gain_margin_change_db", "gain_margin_db"),
-                      ("max_sensitivity_peak_change_db", "sensitivity_peak_db")):
+    for key, attr in (
+        ("max_phase_margin_change_deg", "phase_margin_deg"),
+        ("max_gain_margin_change_db", "gain_margin_db"),
+        ("max_sensitivity_peak_change_db", "sensitivity_peak_db"),
+    ):
         if m is None:
             break
         a, b = getattr(src_m, attr), getattr(m, attr)

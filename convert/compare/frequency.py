@@ -8,7 +8,7 @@ when the candidate is larger); phase errors in degrees (candidate minus referenc
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Sequence
+from collections.abc import Sequence
 
 import numpy as np
 
@@ -26,8 +26,10 @@ def band_width_problem(low_hz: float, high_hz: float) -> str | None:
     """Why the band (Hz) is too wide, or None. One rule for the CLI's --band and case files."""
     decades = float(np.log10(high_hz / low_hz))
     if decades > MAX_BAND_DECADES:
-        return (f"the band spans {decades:.3g} decades; the limit is {MAX_BAND_DECADES} decades (give a band a few "
-                "decades around the controller's corners)")
+        return (
+            f"the band spans {decades:.3g} decades; the limit is {MAX_BAND_DECADES} decades (give a band a few "
+            "decades around the controller's corners)"
+        )
     return None
 
 
@@ -40,8 +42,9 @@ def log_grid(f_low_hz: float, f_high_hz: float, points_per_decade: int = 100) ->
     return np.logspace(np.log10(f_low_hz), np.log10(f_high_hz), n)
 
 
-def hold_and_delay_factor(f_hz: np.ndarray, sample_period_s: float, delay_s: float = 0.0,
-                          hold: str = "zoh") -> np.ndarray:
+def hold_and_delay_factor(
+    f_hz: np.ndarray, sample_period_s: float, delay_s: float = 0.0, hold: str = "zoh"
+) -> np.ndarray:
     """Frequency response of the output hold plus a computation delay, as seen from the analog side.
 
     The zero-order hold's describing response is ``(1 − e^{−jωT}) / (jωT) = e^{−jωT/2} · sinc(fT)``
@@ -59,8 +62,9 @@ def hold_and_delay_factor(f_hz: np.ndarray, sample_period_s: float, delay_s: flo
     return factor
 
 
-def response_seen_from_loop(controller: Controller, f_hz: Sequence[float], *, delay_s: float = 0.0,
-                            hold: str = "zoh", via: str = "poly") -> np.ndarray:
+def response_seen_from_loop(
+    controller: Controller, f_hz: Sequence[float], *, delay_s: float = 0.0, hold: str = "zoh", via: str = "poly"
+) -> np.ndarray:
     """The controller's response as the analog loop sees it.
 
     Analog controllers: plain C(jω) (and the delay, if any). Digital controllers:
@@ -128,9 +132,16 @@ def unwrapped_phase_error_deg(ratio: np.ndarray) -> np.ndarray:
     return np.degrees(out)
 
 
-def compare_responses(reference: np.ndarray, candidate: np.ndarray, f_hz: Sequence[float], *,
-                      gain_limit_db: float = 1.0, phase_limit_deg: float = 5.0, evaluate=None,
-                      forms: tuple[Controller | None, Controller | None] | None = None) -> ResponseError:
+def compare_responses(
+    reference: np.ndarray,
+    candidate: np.ndarray,
+    f_hz: Sequence[float],
+    *,
+    gain_limit_db: float = 1.0,
+    phase_limit_deg: float = 5.0,
+    evaluate=None,
+    forms: tuple[Controller | None, Controller | None] | None = None,
+) -> ResponseError:
     """Errors of ``candidate`` against ``reference`` (complex arrays over ``f_hz``).
 
     Signed errors: gain in dB (20·log10|cand/ref|), phase in degrees (angle of cand/ref,
@@ -176,27 +187,47 @@ def compare_responses(reference: np.ndarray, candidate: np.ndarray, f_hz: Sequen
     )
 
 
-def compare_controllers(reference: Controller, candidate: Controller, f_hz: Sequence[float], *,
-                        delay_s: float = 0.0, hold: str = "zoh", gain_limit_db: float = 1.0,
-                        phase_limit_deg: float = 5.0, via: str = "poly") -> ResponseError:
+def compare_controllers(
+    reference: Controller,
+    candidate: Controller,
+    f_hz: Sequence[float],
+    *,
+    delay_s: float = 0.0,
+    hold: str = "zoh",
+    gain_limit_db: float = 1.0,
+    phase_limit_deg: float = 5.0,
+    via: str = "poly",
+) -> ResponseError:
     """Compare two controllers as the analog loop sees them (digital ones with hold and delay);
     the maxima are refined on the continuous responses and roots on the axis are found
     (:func:`compare_responses`)."""
+
     def evaluate(f):
-        return (response_seen_from_loop(reference, f, hold=hold, via=via),
-                response_seen_from_loop(candidate, f, delay_s=delay_s, hold=hold, via=via))
+        return (
+            response_seen_from_loop(reference, f, hold=hold, via=via),
+            response_seen_from_loop(candidate, f, delay_s=delay_s, hold=hold, via=via),
+        )
 
     ref, cand = evaluate(np.asarray(f_hz, dtype=float))
-    return compare_responses(ref, cand, f_hz, gain_limit_db=gain_limit_db, phase_limit_deg=phase_limit_deg,
-                             evaluate=evaluate, forms=(reference, candidate))
+    return compare_responses(
+        ref,
+        cand,
+        f_hz,
+        gain_limit_db=gain_limit_db,
+        phase_limit_deg=phase_limit_deg,
+        evaluate=evaluate,
+        forms=(reference, candidate),
+    )
 
 
 # ---------------------------------------------------------------------------------------------
 # For the analog <-> digital conversions: delay in seconds or samples,
 # the default band, and analog and digital responses on one grid.
 
-def delay_in_seconds(*, delay_s: float | None = None, delay_samples: float | None = None,
-                     fs_hz: float | None = None) -> float:
+
+def delay_in_seconds(
+    *, delay_s: float | None = None, delay_samples: float | None = None, fs_hz: float | None = None
+) -> float:
     """The computation delay in seconds, given either in seconds or in samples (× 1/fs_hz).
 
     Zero when neither is given. A negative delay, or both forms at once, is refused.
@@ -226,8 +257,9 @@ def default_band_hz(controller: Controller, fs_hz: float) -> tuple[float, float]
     return float(low), float(high)
 
 
-def comparison_grid(band_hz: tuple[float, float], fs_hz: float | None = None,
-                    points_per_decade: int = 100) -> np.ndarray:
+def comparison_grid(
+    band_hz: tuple[float, float], fs_hz: float | None = None, points_per_decade: int = 100
+) -> np.ndarray:
     """The log grid for a band; when the band reaches the Nyquist frequency fs/2, its top point is
     set a hair below it (fs/2 · 0.999) so a digital zero at z = −1 (Tustin, matched) gives a finite
     error figure instead of −∞ dB."""
@@ -253,9 +285,16 @@ class GridResponses:
     delay_s: float
 
 
-def responses_on_grid(analog: Controller, digital: Controller, f_hz: Sequence[float], *, delay_s: float = 0.0,
-                      hold: str = "zoh", digital_response: np.ndarray | None = None,
-                      via: str = "poly") -> GridResponses:
+def responses_on_grid(
+    analog: Controller,
+    digital: Controller,
+    f_hz: Sequence[float],
+    *,
+    delay_s: float = 0.0,
+    hold: str = "zoh",
+    digital_response: np.ndarray | None = None,
+    via: str = "poly",
+) -> GridResponses:
     """Evaluate an analog controller and a digital one on the same grid.
 
     ``digital_response`` may carry a more accurate evaluation of the digital form (for example
@@ -289,8 +328,8 @@ class AxisRoot:
     """A zero or pole of one form at a frequency on the jω axis / unit circle (Hz)."""
 
     f_hz: float
-    kind: str      # "zero" or "pole"
-    form: str      # "reference" or "candidate"
+    kind: str  # "zero" or "pole"
+    form: str  # "reference" or "candidate"
     on_axis: bool  # False: near the axis (a resonance or a notch), only a place to look
     jump: int = 0  # half-turns the phase error steps by as f passes it (left-half-plane limit on the axis)
     damping: float = 0.0  # relative distance from the axis: |Re s|/|s|, or |ln|z||/angle
@@ -322,13 +361,22 @@ def _root_frequencies(controller: Controller, kind: str, form: str) -> list[Axis
             on = abs(v.real) <= max(ON_AXIS_REL * abs(v), float(r.error))
             outside = v.real > 0 and not on
             damping = abs(v.real) / abs(v)
-        out.append(AxisRoot(float(f), kind, form, bool(on), sign * int(r.multiplicity) * (-1 if outside else 1),
-                            0.0 if on else float(damping)))
+        out.append(
+            AxisRoot(
+                float(f),
+                kind,
+                form,
+                bool(on),
+                sign * int(r.multiplicity) * (-1 if outside else 1),
+                0.0 if on else float(damping),
+            )
+        )
     return out
 
 
-def axis_roots(reference: Controller | None, candidate: Controller | None, f_low_hz: float,
-               f_high_hz: float) -> tuple[list[AxisRoot], list[AxisRoot]]:
+def axis_roots(
+    reference: Controller | None, candidate: Controller | None, f_low_hz: float, f_high_hz: float
+) -> tuple[list[AxisRoot], list[AxisRoot]]:
     """Zeros and poles of either form inside the band [f_low_hz, f_high_hz] (Hz).
 
     Returns ``(unbounded, inside)``: the roots on the jω axis (analog) or unit circle (digital)
@@ -346,8 +394,14 @@ def axis_roots(reference: Controller | None, candidate: Controller | None, f_low
     for r in on:
         if r not in left:
             continue
-        twin = next((o for o in left if o.form != r.form and o.kind == r.kind
-                     and abs(o.f_hz - r.f_hz) <= SAME_ROOT_REL * r.f_hz), None)
+        twin = next(
+            (
+                o
+                for o in left
+                if o.form != r.form and o.kind == r.kind and abs(o.f_hz - r.f_hz) <= SAME_ROOT_REL * r.f_hz
+            ),
+            None,
+        )
         if twin is not None:
             left.remove(r)
             left.remove(twin)
@@ -364,8 +418,9 @@ def _local_maxima(values: np.ndarray) -> np.ndarray:
     return np.flatnonzero(left & right)
 
 
-def refine_maximum(value_at, f_hz: np.ndarray, values: np.ndarray, look_at_hz: Sequence[float] = (),
-                   most: int = 40) -> tuple[float, float]:
+def refine_maximum(
+    value_at, f_hz: np.ndarray, values: np.ndarray, look_at_hz: Sequence[float] = (), most: int = 40
+) -> tuple[float, float]:
     """The maximum of a continuous nonnegative function of frequency over [f_hz[0], f_hz[-1]]
     (Hz), independent of the grid: every local maximum of ``values`` (= ``value_at(f_hz)``, the
     ``most`` largest) and the grid interval around each frequency in ``look_at_hz`` is refined by a
@@ -430,8 +485,14 @@ def phase_error_across(ratio: np.ndarray, f_hz: np.ndarray, roots: Sequence[Axis
     return np.degrees(np.concatenate([[ang[0]], ang[0] + np.cumsum(step)]))
 
 
-def grid_free_maxima(evaluate, f_hz: np.ndarray, gain_db: np.ndarray, phase_deg: np.ndarray,
-                     unbounded: Sequence[AxisRoot] = (), look_at_hz: Sequence[float] = ()) -> dict:
+def grid_free_maxima(
+    evaluate,
+    f_hz: np.ndarray,
+    gain_db: np.ndarray,
+    phase_deg: np.ndarray,
+    unbounded: Sequence[AxisRoot] = (),
+    look_at_hz: Sequence[float] = (),
+) -> dict:
     """The one routine for max |gain error| and max |phase error| over a band, free of the grid.
 
     ``evaluate(f) -> (reference, candidate)`` gives the continuous complex responses; ``gain_db``
@@ -442,15 +503,21 @@ def grid_free_maxima(evaluate, f_hz: np.ndarray, gain_db: np.ndarray, phase_deg:
     f = np.asarray(f_hz, dtype=float)
     if unbounded:
         first = unbounded[0]
-        note = ("unbounded: " + "; ".join(r.text() for r in unbounded)
-                + " (the ratio of the two forms goes to zero or infinity there, on any grid)")
+        note = (
+            "unbounded: "
+            + "; ".join(r.text() for r in unbounded)
+            + " (the ratio of the two forms goes to zero or infinity there, on any grid)"
+        )
         return {"gain": (np.inf, first.f_hz), "phase": (np.inf, first.f_hz), "unbounded_note": note}
     g_abs = np.abs(np.nan_to_num(gain_db, nan=np.inf, posinf=np.inf, neginf=np.inf))
     p_abs = np.abs(np.nan_to_num(phase_deg, nan=180.0))
     if evaluate is None:
         ig, ip = int(np.argmax(g_abs)), int(np.argmax(p_abs))
-        return {"gain": (float(g_abs[ig]), float(f[ig])), "phase": (float(p_abs[ip]), float(f[ip])),
-                "unbounded_note": ""}
+        return {
+            "gain": (float(g_abs[ig]), float(f[ig])),
+            "phase": (float(p_abs[ip]), float(f[ip])),
+            "unbounded_note": "",
+        }
 
     def ratio_at(x):
         ref, cand = evaluate(np.asarray(x, dtype=float))
@@ -469,5 +536,8 @@ def grid_free_maxima(evaluate, f_hz: np.ndarray, gain_db: np.ndarray, phase_deg:
         j = np.clip(np.searchsorted(lf, np.log(x)), 0, f.size - 1)
         return np.abs(np.degrees(_wrap_to(np.angle(ratio_at(x)), grid_phase[j])))
 
-    return {"gain": refine_maximum(gain_at, f, g_abs, look_at_hz),
-            "phase": refine_maximum(phase_at, f, p_abs, look_at_hz), "unbounded_note": ""}
+    return {
+        "gain": refine_maximum(gain_at, f, g_abs, look_at_hz),
+        "phase": refine_maximum(phase_at, f, p_abs, look_at_hz),
+        "unbounded_note": "",
+    }

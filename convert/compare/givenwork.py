@@ -36,13 +36,27 @@ def quantized(given, controller: Controller) -> Controller:
     import re
 
     in_file = re.search(r":\d+$", given.where or "") is not None  # a case file names its key, a spec its word
-    raise UnrealizableError(f"given form {given.name!r}: word format {word!r} is stored, but this version evaluates "
-                            "float64 and float32 coefficients only; a fixed-point check needs the word-format models",
-                            where=given.where, key=f"target.given.{given.name}.word_format" if in_file else "word")
+    raise UnrealizableError(
+        f"given form {given.name!r}: word format {word!r} is stored, but this version evaluates "
+        "float64 and float32 coefficients only; a fixed-point check needs the word-format models",
+        where=given.where,
+        key=f"target.given.{given.name}.word_format" if in_file else "word",
+    )
 
 
-def given_realizations(case, src: Controller, band, src_margins, duration, src_step, src_dist, *, draws=None,
-                       tick=lambda text: None, source_weighted: bool = False) -> list:
+def given_realizations(
+    case,
+    src: Controller,
+    band,
+    src_margins,
+    duration,
+    src_step,
+    src_dist,
+    *,
+    draws=None,
+    tick=lambda text: None,
+    source_weighted: bool = False,
+) -> list:
     """One :class:`convert.compare.evaluate.Realization` per given form of ``case``."""
     from convert.given import given_controller
 
@@ -84,9 +98,12 @@ def _firmware(case, given, info, src, band, duration, src_step, src_dist):
     if fs / 2 <= case.criteria.band_hz[1]:
         from convert.errors import InputError
 
-        raise InputError(f"given form {given.name!r} runs at {fs:g} Hz: its Nyquist frequency is at or below the "
-                         f"band's top ({case.criteria.band_hz[1]:g} Hz)", where=given.where,
-                         key=f"target.given.{given.name}.fs")
+        raise InputError(
+            f"given form {given.name!r} runs at {fs:g} Hz: its Nyquist frequency is at or below the "
+            f"band's top ({case.criteria.band_hz[1]:g} Hz)",
+            where=given.where,
+            key=f"target.given.{given.name}.fs",
+        )
     loop_f, spec = _loop(case, cq)
 
     def lr(ctrl, delay_s=0.0, hold="none"):
@@ -96,58 +113,111 @@ def _firmware(case, given, info, src, band, duration, src_step, src_dist):
     if given.form == "pid":
         law = info.pid.to_controller()
         rows["discretization"] = bud.error_row(
-            "discretization", band, law.frequency_response(band), cd.frequency_response(band, via="zpk"),
+            "discretization",
+            band,
+            law.frequency_response(band),
+            cd.frequency_response(band, via="zpk"),
             note=f"the block's own sampling ({d['method']} term by term at {_fmt_hz(fs)}) against its PID law; "
-                 "no hold, no delay", loop=spec, loop_reference=lr(law), loop_candidate=lr(cd))
+            "no hold, no delay",
+            loop=spec,
+            loop_reference=lr(law),
+            loop_candidate=lr(cd),
+        )
         if info.pid.tf > 0:
             from dataclasses import replace
 
             bare = replace(info.pid, tf=0.0).to_controller()
             rows["derivative_filter"] = bud.error_row(
-                "derivative_filter", band, bare.frequency_response(band), law.frequency_response(band),
+                "derivative_filter",
+                band,
+                bare.frequency_response(band),
+                law.frequency_response(band),
                 note=f"the block's derivative filter (time constant {_fmt_s(info.pid.tf)}) alone, in its PID law",
-                loop=spec, loop_reference=lr(bare), loop_candidate=lr(law))
+                loop=spec,
+                loop_reference=lr(bare),
+                loop_candidate=lr(law),
+            )
         else:
             rows["derivative_filter"] = bud.not_applicable("derivative_filter", "the block has no derivative filter")
     else:
         rows["discretization"] = bud.not_applicable("discretization", "given coefficients: no conversion was made")
         rows["derivative_filter"] = bud.not_applicable("derivative_filter", "given coefficients: no filter was added")
     rows["hold_and_delay"] = bud.error_row(
-        "hold_and_delay", band, cd.frequency_response(band, via="zpk"),
+        "hold_and_delay",
+        band,
+        cd.frequency_response(band, via="zpk"),
         response_seen_from_loop(cd, band, delay_s=delay, via="zpk"),
         note=f"zero-order hold at {_fmt_hz(fs)} and {_fmt_s(delay)} computation delay alone, on the given form",
-        loop=spec, loop_reference=lr(cd), loop_candidate=lr(cd, delay, "zoh"))
+        loop=spec,
+        loop_reference=lr(cd),
+        loop_candidate=lr(cd, delay, "zoh"),
+    )
     if cq is cd:
         rows["word_format"] = bud.not_applicable("word_format", "float64 coefficients (the reference)")
     else:
         rows["word_format"] = bud.error_row(
-            "word_format", band, cd.frequency_response(band, via="poly"), cq.frequency_response(band, via="poly"),
+            "word_format",
+            band,
+            cd.frequency_response(band, via="poly"),
+            cq.frequency_response(band, via="poly"),
             note=f"coefficients stored as {d['word_format']} alone, against float64 (both in z, no hold)",
-            loop=spec, loop_reference=lr(cd), loop_candidate=lr(cq))
+            loop=spec,
+            loop_reference=lr(cd),
+            loop_candidate=lr(cq),
+        )
     rows["total"] = bud.error_row(
-        "total", band, response_seen_from_loop(src, band, via="zpk"),
+        "total",
+        band,
+        response_seen_from_loop(src, band, via="zpk"),
         response_seen_from_loop(cq, band, delay_s=delay, via="zpk"),
         note="the given form as it runs (word format, hold, delay) against the source as the loop sees it",
-        loop=spec, loop_reference=lr(src, hold="zoh"), loop_candidate=lr(cq, delay, "zoh"), forms=(src, cq),
-        evaluate=lambda f: (response_seen_from_loop(src, f, via="zpk"),
-                            response_seen_from_loop(cq, f, delay_s=delay, via="zpk")))
+        loop=spec,
+        loop_reference=lr(src, hold="zoh"),
+        loop_candidate=lr(cq, delay, "zoh"),
+        forms=(src, cq),
+        evaluate=lambda f: (
+            response_seen_from_loop(src, f, via="zpk"),
+            response_seen_from_loop(cq, f, delay_s=delay, via="zpk"),
+        ),
+    )
     budget = bud.assemble(rows, bud.DIGITAL_ROWS, "given firmware")
-    details = {"given": True, "fs_hz": fs, "delay_s": delay, "b": list(cq.b), "a": list(cq.a),
-               "word_format": d["word_format"], "structure": d["structure"], "output_limits": d["output_limits"]}
+    details = {
+        "given": True,
+        "fs_hz": fs,
+        "delay_s": delay,
+        "b": list(cq.b),
+        "a": list(cq.a),
+        "word_format": d["word_format"],
+        "structure": d["structure"],
+        "output_limits": d["output_limits"],
+    }
     warnings = []
     if d.get("structure") not in (None, "direct"):
-        warnings.append(f"structure {d['structure']!r} is recorded; its rounding inside the sections is not modelled "
-                        "(coefficients are checked as stored)")
+        warnings.append(
+            f"structure {d['structure']!r} is recorded; its rounding inside the sections is not modelled "
+            "(coefficients are checked as stored)"
+        )
     if given.form == "pid":
         details.update(method=d["method"], algorithm=d["algorithm"], settings=d["settings"])
         if d["algorithm"] == "velocity":
-            warnings.append("velocity algorithm: the same linear law; it differs from the positional one at the "
-                            "output limits and on switch-over (no integral windup, bumpless by construction)")
-    r = _realization(case, given, "digital", cq, details, budget, warnings,
-                     lambda f, c=cq, dl=delay: response_seen_from_loop(c, f, delay_s=dl, via="zpk"))
+            warnings.append(
+                "velocity algorithm: the same linear law; it differs from the positional one at the "
+                "output limits and on switch-over (no integral windup, bumpless by construction)"
+            )
+    r = _realization(
+        case,
+        given,
+        "digital",
+        cq,
+        details,
+        budget,
+        warnings,
+        lambda f, c=cq, dl=delay: response_seen_from_loop(c, f, delay_s=dl, via="zpk"),
+    )
     if case.plant is not None:
-        _loop_checks(case, r, cq, duration, delay, d["output_limits"] or case.signals.output_range,
-                     getattr(info, "pid", None))
+        _loop_checks(
+            case, r, cq, duration, delay, d["output_limits"] or case.signals.output_range, getattr(info, "pid", None)
+        )
     return r
 
 
@@ -158,15 +228,35 @@ def _analog(case, given, info, src, band, duration):
     def lr(c, hold="none"):
         return None if loop_f is None else response_seen_from_loop(c, loop_f, hold=hold, via="zpk")
 
-    rows = {"total": bud.error_row(
-        "total", band, response_seen_from_loop(src, band, via="zpk"), ctrl.frequency_response(band, via="zpk"),
-        note="the given controller against the source as the loop sees it", loop=spec,
-        loop_reference=lr(src, "zoh"), loop_candidate=lr(ctrl), forms=(src, ctrl),
-        evaluate=lambda f: (response_seen_from_loop(src, f, via="zpk"), ctrl.frequency_response(f, via="zpk")))}
-    details = {"given": True, "expression": given.data.get("expression") or ctrl.expression(),
-               "topology": f"C(s) = {ctrl.expression()}"}
-    r = _realization(case, given, "analog", ctrl, details, bud.assemble(rows, (), "given analog"), [],
-                     lambda f, c=ctrl: c.frequency_response(f, via="zpk"))
+    rows = {
+        "total": bud.error_row(
+            "total",
+            band,
+            response_seen_from_loop(src, band, via="zpk"),
+            ctrl.frequency_response(band, via="zpk"),
+            note="the given controller against the source as the loop sees it",
+            loop=spec,
+            loop_reference=lr(src, "zoh"),
+            loop_candidate=lr(ctrl),
+            forms=(src, ctrl),
+            evaluate=lambda f: (response_seen_from_loop(src, f, via="zpk"), ctrl.frequency_response(f, via="zpk")),
+        )
+    }
+    details = {
+        "given": True,
+        "expression": given.data.get("expression") or ctrl.expression(),
+        "topology": f"C(s) = {ctrl.expression()}",
+    }
+    r = _realization(
+        case,
+        given,
+        "analog",
+        ctrl,
+        details,
+        bud.assemble(rows, (), "given analog"),
+        [],
+        lambda f, c=ctrl: c.frequency_response(f, via="zpk"),
+    )
     if case.plant is not None:
         _loop_checks(case, r, ctrl, duration, 0.0, case.signals.output_range, getattr(info, "pid", None))
     return r
@@ -180,9 +270,11 @@ def _circuit(case, given, info, src, band, duration, src_step, src_dist, draws):
     loop_f, spec = _loop(case, ctrl)
     both_f = band if loop_f is None else np.concatenate([band, loop_f])
     tols = d["tolerances"]
-    rows = {"series_rounding": bud.not_applicable("series_rounding", "given parts: nothing was rounded"),
-            "derivative_filter": bud.not_applicable("derivative_filter", "given card: no filter was added"),
-            "opamp_gbw": bud.not_applicable("opamp_gbw", "the given card is checked with ideal op-amps")}
+    rows = {
+        "series_rounding": bud.not_applicable("series_rounding", "given parts: nothing was rounded"),
+        "derivative_filter": bud.not_applicable("derivative_filter", "given card: no filter was added"),
+        "opamp_gbw": bud.not_applicable("opamp_gbw", "the given card is checked with ideal op-amps"),
+    }
     nominal = ctrl.frequency_response(both_f, via="zpk")
     ref = response_seen_from_loop(src, both_f, via="zpk")
     drawn_total = None
@@ -193,47 +285,81 @@ def _circuit(case, given, info, src, band, duration, src_step, src_dist, draws):
         from convert.compare.circuitwork import loop_count_of
 
         topo = get_topology(d["topology"])
-        details.update(topology=topo.name, parts=dict(d["parts"]),
-                       parts_text={k: format_value(v, "ohm" if k[:1].upper() == "R" else "farad")
-                                   for k, v in d["parts"].items()})
+        details.update(
+            topology=topo.name,
+            parts=dict(d["parts"]),
+            parts_text={k: format_value(v, "ohm" if k[:1].upper() == "R" else "farad") for k, v in d["parts"].items()},
+        )
         if tols:  # the one tolerance engine (chunked, bounded memory), as for a designed circuit
             n = int(draws or DEFAULT_DRAWS)
             loops = loop_f is not None
             mc = run_tolerances(
-                topo, d["parts"], tols, band_f_hz=band, draws=n, seed=DEFAULT_SEED, parameters=False,
-                comparisons=[Comparison("tolerances", nominal[:band.size], None,
-                                        nominal[band.size:] if loops else None),
-                             Comparison("total", ref[:band.size], None, ref[band.size:] if loops else None)],
-                loop_f_hz=loop_f, loop_margins=spec.margins if loops else None,
-                loop_count=loop_count_of(ctrl, case.plant) if loops else None)
+                topo,
+                d["parts"],
+                tols,
+                band_f_hz=band,
+                draws=n,
+                seed=DEFAULT_SEED,
+                parameters=False,
+                comparisons=[
+                    Comparison("tolerances", nominal[: band.size], None, nominal[band.size :] if loops else None),
+                    Comparison("total", ref[: band.size], None, ref[band.size :] if loops else None),
+                ],
+                loop_f_hz=loop_f,
+                loop_margins=spec.margins if loops else None,
+                loop_count=loop_count_of(ctrl, case.plant) if loops else None,
+            )
             rows["tolerances"] = bud.drawn_row(
-                "tolerances", mc.figures["tolerances"],
+                "tolerances",
+                mc.figures["tolerances"],
                 note=f"{n} draws within ±tolerance ({', '.join(f'{k} {v * 100:g} %' for k, v in tols.items())}) "
-                     f"around the given parts alone; seed {DEFAULT_SEED}")
+                f"around the given parts alone; seed {DEFAULT_SEED}",
+            )
             drawn_total = mc.figures["total"]
             details.update(tolerances=tols, draws=n, seed=DEFAULT_SEED)
         else:
             rows["tolerances"] = bud.not_applicable("tolerances", "no tolerances given for the card's parts")
     else:
         if tols:
-            raise UnrealizableError(f"given form {given.name!r}: tolerances on a netlist's parts are not drawn by this "
-                                    "version; give the card as a catalog topology with parts, or leave them out",
-                                    where=given.where, key=f"target.given.{given.name}.tolerances")
+            raise UnrealizableError(
+                f"given form {given.name!r}: tolerances on a netlist's parts are not drawn by this "
+                "version; give the card as a catalog topology with parts, or leave them out",
+                where=given.where,
+                key=f"target.given.{given.name}.tolerances",
+            )
         rows["tolerances"] = bud.not_applicable("tolerances", "no tolerances given for the netlist's parts")
         details.update(netlist=str(d["netlist"]), topology=f"netlist {d['netlist'].name}")
-    note = ("the given card" + (" with its tolerances" if drawn_total is not None else "")
-            + " against the source as the loop sees it")
+    note = (
+        "the given card"
+        + (" with its tolerances" if drawn_total is not None else "")
+        + " against the source as the loop sees it"
+    )
     if drawn_total is not None:
         rows["total"] = bud.drawn_row("total", drawn_total, note=note, reference_form=src, band_f_hz=band)
     else:
         rows["total"] = bud.error_row(
-            "total", band, ref[:band.size], nominal[:band.size], note=note, loop=spec,
-            loop_reference=None if loop_f is None else ref[band.size:],
-            loop_candidate=None if loop_f is None else nominal[band.size:], forms=(src, ctrl),
-            evaluate=lambda f: (response_seen_from_loop(src, f, via="zpk"), ctrl.frequency_response(f, via="zpk")))
+            "total",
+            band,
+            ref[: band.size],
+            nominal[: band.size],
+            note=note,
+            loop=spec,
+            loop_reference=None if loop_f is None else ref[band.size :],
+            loop_candidate=None if loop_f is None else nominal[band.size :],
+            forms=(src, ctrl),
+            evaluate=lambda f: (response_seen_from_loop(src, f, via="zpk"), ctrl.frequency_response(f, via="zpk")),
+        )
     budget = bud.assemble(rows, bud.CIRCUIT_ROWS, "given card")
-    r = _realization(case, given, "circuit", ctrl, details, budget, list(info.notes),
-                     lambda f, c=ctrl: c.frequency_response(f, via="zpk"))
+    r = _realization(
+        case,
+        given,
+        "circuit",
+        ctrl,
+        details,
+        budget,
+        list(info.notes),
+        lambda f, c=ctrl: c.frequency_response(f, via="zpk"),
+    )
     if case.plant is not None:
         _loop_checks(case, r, ctrl, duration, 0.0, case.signals.output_range)
     return r
@@ -242,8 +368,15 @@ def _circuit(case, given, info, src, band, duration, src_step, src_dist, draws):
 def _realization(case, given, form, controller, details, budget, warnings, seen):
     from convert.compare.evaluate import Realization
 
-    return Realization(name=f"given {given.name}", form=form, controller=controller, details=details, budget=budget,
-                       seen=seen, warnings=warnings)
+    return Realization(
+        name=f"given {given.name}",
+        form=form,
+        controller=controller,
+        details=details,
+        budget=budget,
+        seen=seen,
+        warnings=warnings,
+    )
 
 
 def _loop_checks(case, r, controller, duration, delay, limits, pid=None) -> None:

@@ -77,8 +77,9 @@ class Margins:
         return dict(self.__dict__)
 
 
-def _rational(controller: Controller, plant: Controller, f: np.ndarray, delay_s: float, hold: str,
-              dead_time_s: float) -> tuple[np.ndarray, float]:
+def _rational(
+    controller: Controller, plant: Controller, f: np.ndarray, delay_s: float, hold: str, dead_time_s: float
+) -> tuple[np.ndarray, float]:
     """(rational part of L on ``f`` (Hz), total pure delay in s): the hold's sinc stays in the
     rational part, its half-period delay joins the dead time and computation delay."""
     c = controller.frequency_response(f, via="zpk")
@@ -90,8 +91,14 @@ def _rational(controller: Controller, plant: Controller, f: np.ndarray, delay_s:
     return c * plant.frequency_response(f, via="zpk"), delay_total
 
 
-def margin_grid(controller: Controller, plant: Controller, *, f_low_hz: float | None = None,
-                f_high_hz: float | None = None, points_per_decade: int = 400) -> np.ndarray:
+def margin_grid(
+    controller: Controller,
+    plant: Controller,
+    *,
+    f_low_hz: float | None = None,
+    f_high_hz: float | None = None,
+    points_per_decade: int = 400,
+) -> np.ndarray:
     """A dense log grid (Hz) wide enough for the margins of this loop; a digital controller's
     grid stops just below its Nyquist frequency (the hold's describing response holds up to there)."""
     corners = []
@@ -121,9 +128,12 @@ def _cover_crossovers(controller: Controller, plant: Controller, lo: float, hi: 
     The top end grows while |L(hi)| ≥ 0.05 (analog controllers; a digital one stops at Nyquist),
     the bottom end while |L(lo)| < 2 and |L| still rises toward low frequencies (an integrating
     loop of low gain)."""
+
     def gain(f: float) -> float:
         fa = np.array([f])
-        return float(np.abs(controller.frequency_response(fa, via="zpk")[0] * plant.frequency_response(fa, via="zpk")[0]))
+        return float(
+            np.abs(controller.frequency_response(fa, via="zpk")[0] * plant.frequency_response(fa, via="zpk")[0])
+        )
 
     with np.errstate(all="ignore"):
         if not controller.is_digital:
@@ -143,14 +153,21 @@ def _cover_crossovers(controller: Controller, plant: Controller, lo: float, hi: 
 def margins_from_response(f_hz: np.ndarray, magnitude: np.ndarray, phase_rad: np.ndarray) -> Margins:
     """Margins from |L| and the unwrapped phase of L (radians) on a dense grid ``f_hz`` (Hz)."""
     res = margins_many(f_hz, magnitude[None, :], phase_rad[None, :])
-    return Margins(**{k: (None if v is None else (None if not np.isfinite(v[0]) else float(v[0])))
-                      for k, v in res.items() if k not in ("sensitivity_peak_db", "sensitivity_peak_hz", "ms")},
-                   sensitivity_peak_db=float(res["sensitivity_peak_db"][0]),
-                   sensitivity_peak_hz=float(res["sensitivity_peak_hz"][0]), ms=float(res["ms"][0]))
+    return Margins(
+        **{
+            k: (None if v is None else (None if not np.isfinite(v[0]) else float(v[0])))
+            for k, v in res.items()
+            if k not in ("sensitivity_peak_db", "sensitivity_peak_hz", "ms")
+        },
+        sensitivity_peak_db=float(res["sensitivity_peak_db"][0]),
+        sensitivity_peak_hz=float(res["sensitivity_peak_hz"][0]),
+        ms=float(res["ms"][0]),
+    )
 
 
-def margins_many(f_hz: np.ndarray, magnitude: np.ndarray, phase_rad: np.ndarray,
-                 loop: np.ndarray | None = None) -> dict[str, np.ndarray]:
+def margins_many(
+    f_hz: np.ndarray, magnitude: np.ndarray, phase_rad: np.ndarray, loop: np.ndarray | None = None
+) -> dict[str, np.ndarray]:
     """Vectorized margins for many loops at once: ``magnitude``/``phase_rad`` have shape (N, F);
     ``loop`` (optional) the complex L itself, which saves rebuilding it from magnitude and phase.
 
@@ -212,8 +229,15 @@ def margins_many(f_hz: np.ndarray, magnitude: np.ndarray, phase_rad: np.ndarray,
     }
 
 
-def loop_margins(controller: Controller, plant: Controller, dead_time_s: float = 0.0, *, delay_s: float = 0.0,
-                 hold: str = "zoh", f_hz: np.ndarray | None = None) -> Margins:
+def loop_margins(
+    controller: Controller,
+    plant: Controller,
+    dead_time_s: float = 0.0,
+    *,
+    delay_s: float = 0.0,
+    hold: str = "zoh",
+    f_hz: np.ndarray | None = None,
+) -> Margins:
     """Gain and phase margins, crossover and sensitivity peak of the loop C·P·e^{−sθ}.
 
     A digital ``controller`` is seen through its zero-order hold and ``delay_s`` computation
@@ -297,8 +321,15 @@ def _at_zero_frequency(controller: Controller, plant: Controller) -> float | Non
     return float(val.real)
 
 
-def _sensitivity_peak(controller: Controller, plant: Controller, f: np.ndarray, rational: np.ndarray, delay_total: float, lval,
-                      l0: float | None) -> dict:
+def _sensitivity_peak(
+    controller: Controller,
+    plant: Controller,
+    f: np.ndarray,
+    rational: np.ndarray,
+    delay_total: float,
+    lval,
+    l0: float | None,
+) -> dict:
     """The sensitivity peak max |1/(1 + L)|: refined by Brent's bounded search around the grid's
     largest value when it lies inside the grid; otherwise the edge it rises toward (zero
     frequency, the Nyquist frequency of a digital controller, or f → ∞), said in words."""
@@ -311,38 +342,54 @@ def _sensitivity_peak(controller: Controller, plant: Controller, f: np.ndarray, 
         si = 0 if sens[0] >= sens[-1] else f.size - 1  # a plateau, not a peak: the edge decides
     if 0 < si < f.size - 1:
         lo, hi = math.log(f[si - 1]), math.log(f[si + 1])
-        res = minimize_scalar(lambda u: abs(1.0 + lval(math.exp(u))), bounds=(lo, hi), method="bounded",
-                              options={"xatol": 1e-12})
+        res = minimize_scalar(
+            lambda u: abs(1.0 + lval(math.exp(u))), bounds=(lo, hi), method="bounded", options={"xatol": 1e-12}
+        )
         fs_ = math.exp(res.x)
         ms = 1.0 / abs(1.0 + lval(fs_))
         if ms < sens[si]:  # the search never does worse than the grid
             fs_, ms = float(f[si]), float(sens[si])
-        return {"ms": ms, "sensitivity_peak_db": 20 * math.log10(ms), "sensitivity_peak_hz": fs_,
-                "sensitivity_peak_note": ""}
+        return {
+            "ms": ms,
+            "sensitivity_peak_db": 20 * math.log10(ms),
+            "sensitivity_peak_hz": fs_,
+            "sensitivity_peak_note": "",
+        }
     if si == 0:
         ms = 1.0 / abs(1.0 + l0) if l0 is not None else float(sens[0])
-        return {"ms": ms, "sensitivity_peak_db": 20 * math.log10(ms), "sensitivity_peak_hz": 0.0,
-                "sensitivity_peak_note": "no interior peak: |S| = |1/(1 + L)| is largest at zero frequency"}
+        return {
+            "ms": ms,
+            "sensitivity_peak_db": 20 * math.log10(ms),
+            "sensitivity_peak_hz": 0.0,
+            "sensitivity_peak_note": "no interior peak: |S| = |1/(1 + L)| is largest at zero frequency",
+        }
     if controller.is_digital:
         fn = 0.5 * controller.fs_hz
         ms = 1.0 / abs(1.0 + lval(fn))
-        return {"ms": ms, "sensitivity_peak_db": 20 * math.log10(ms), "sensitivity_peak_hz": fn,
-                "sensitivity_peak_note": "no interior peak: |S| = |1/(1 + L)| is largest at the Nyquist frequency"}
+        return {
+            "ms": ms,
+            "sensitivity_peak_db": 20 * math.log10(ms),
+            "sensitivity_peak_hz": fn,
+            "sensitivity_peak_note": "no interior peak: |S| = |1/(1 + L)| is largest at the Nyquist frequency",
+        }
     # analog: the supremum as f → ∞, where L tends to k = L(∞) (0 for a strictly proper loop)
     k = (controller.high_frequency_gain() or 0.0) * (plant.high_frequency_gain() or 0.0)
     if delay_total > 0 and k != 0:
         ms = 1.0 / (1.0 - abs(k)) if abs(k) < 1 else math.inf  # e^{−jωθ} turns L(∞) through every phase
     else:
         ms = 1.0 / abs(1.0 + k) if k != -1 else math.inf
-    return {"ms": ms, "sensitivity_peak_db": 20 * math.log10(ms) if math.isfinite(ms) else math.inf,
-            "sensitivity_peak_hz": None,
-            "sensitivity_peak_note": "no interior peak: |S| = |1/(1 + L)| rises toward high frequency; "
-                                     "the figure is its limit as f → ∞"}
+    return {
+        "ms": ms,
+        "sensitivity_peak_db": 20 * math.log10(ms) if math.isfinite(ms) else math.inf,
+        "sensitivity_peak_hz": None,
+        "sensitivity_peak_note": "no interior peak: |S| = |1/(1 + L)| rises toward high frequency; "
+        "the figure is its limit as f → ∞",
+    }
 
 
-
-def margins_of_responses(f_hz: np.ndarray, controller_responses: np.ndarray, plant: Controller,
-                         dead_time_s: float = 0.0) -> dict[str, np.ndarray]:
+def margins_of_responses(
+    f_hz: np.ndarray, controller_responses: np.ndarray, plant: Controller, dead_time_s: float = 0.0
+) -> dict[str, np.ndarray]:
     """Margins of many loops whose controllers are given as complex responses (N, F) on ``f_hz``
     (e.g. Monte Carlo draws of a circuit). The controller responses must contain no pure delay
     beyond what unwrapping on the grid can follow."""
@@ -372,8 +419,10 @@ def _realize(c: Controller, key: str = "controller"):
     :func:`convert.digital.statespace.realize` (poles and zeros kept as first- and second-order
     sections, not a companion matrix, so sampled matrices keep the roots to rounding)."""
     if not c.is_proper:
-        raise InputError("an improper controller (more zeros than poles) cannot run in a loop simulation; "
-                         "add a derivative filter", key=key)
+        raise InputError(
+            "an improper controller (more zeros than poles) cannot run in a loop simulation; add a derivative filter",
+            key=key,
+        )
     from convert.digital.statespace import realize
 
     a, b, cc, d = realize(c.num, c.den)
@@ -400,7 +449,7 @@ def _foh(a: np.ndarray, b: np.ndarray, h: float) -> tuple[np.ndarray, np.ndarray
     n = a.shape[0]
     m = np.zeros((n + 2, n + 2))
     m[:n, :n] = a * h
-    m[:n, n:n + 1] = b * h
+    m[:n, n : n + 1] = b * h
     m[n, n + 1] = 1.0
     e = expm(m)
     return e[:n, :n], e[:n, n] - e[:n, n + 1], e[:n, n + 1]
@@ -440,7 +489,7 @@ class _Orbit:
             p[0] = np.eye(b.shape[0])
             for j in range(1, self.K + 1):
                 p[j] = p[j - 1] @ b
-            self.levels.append(p[:self.K])
+            self.levels.append(p[: self.K])
             self._next = p[self.K]
         return self.levels[i]
 
@@ -523,10 +572,10 @@ def _run(system: _LoopSystem, steps: int, limits: tuple[float, float], extra=Non
             window = max(64, 2 * count)
         else:
             window = min(2 * window, 1 << 16)
-        y[k:k + count] = zs[:count] @ y_row
-        u[k:k + count] = zs[:count] @ u_row
+        y[k : k + count] = zs[:count] @ y_row
+        u[k : k + count] = zs[:count] @ u_row
         if extra is not None:
-            extras.append(extra(key, mode, zs[:count], u[k:k + count]))
+            extras.append(extra(key, mode, zs[:count], u[k : k + count]))
         z = zs[count]
         k += count
     return y, np.clip(u, lo, hi), extras  # a settled output within `tol` of a limit stays on it
@@ -545,8 +594,9 @@ class _Prefilter:
     controller's output instead (u = C·(r − y) + G·r, the same law); ``row`` is w_k and the
     error sees the plain r (:meth:`error_row`)."""
 
-    def __init__(self, f: Controller | None, r: float, step_s: float | None, continuous: bool = False,
-                 added: bool = False):
+    def __init__(
+        self, f: Controller | None, r: float, step_s: float | None, continuous: bool = False, added: bool = False
+    ):
         self.r = r
         self.added = added
         if f is None:
@@ -580,7 +630,7 @@ class _Prefilter:
         out = self.d * self.r * unit[one]
         if self.n:
             out = out.copy()
-            out[self.j:self.j + self.n] += self.c
+            out[self.j : self.j + self.n] += self.c
         return out
 
     def next_row(self, unit: np.ndarray, one: int) -> np.ndarray:
@@ -588,14 +638,14 @@ class _Prefilter:
         if not self.n:
             return self.row(unit, one)
         out = (self.c @ self.gam + self.d) * self.r * unit[one]
-        out[self.j:self.j + self.n] += self.c @ self.phi
+        out[self.j : self.j + self.n] += self.c @ self.phi
         return out
 
     def advance(self, a: np.ndarray, one: int) -> None:
         if self.n:
             j, n = self.j, self.n
-            a[j:j + n, j:j + n] = self.phi
-            a[j:j + n, one] = self.gam * self.r
+            a[j : j + n, j : j + n] = self.phi
+            a[j : j + n, one] = self.gam * self.r
 
     def samples(self, count: int) -> np.ndarray:
         """r_f_k for k = 0..count−1 (a digital F, or an analog one sampled every step_s)."""
@@ -615,8 +665,16 @@ class _SampledLoop(_LoopSystem):
     [plant x; controller xc; u_{k−1} … u_{k−n−1}; 1]. The measurement is sampled before the
     output changes (the plant input's left limit enters its direct term)."""
 
-    def __init__(self, controller: Controller, plant: Controller, delay_u: float, delay_d: float,
-                 r: float, dist: float, prefilter: Controller | None = None):
+    def __init__(
+        self,
+        controller: Controller,
+        plant: Controller,
+        delay_u: float,
+        delay_d: float,
+        r: float,
+        dist: float,
+        prefilter: Controller | None = None,
+    ):
         t = controller.sample_period_s
         self.t = t
         self.ap, self.bp, self.cp, self.dp = _realize(plant, "plant.model")
@@ -663,7 +721,7 @@ class _SampledLoop(_LoopSystem):
         a[np_:iu, np_:iu] = self.ac
         a[np_:iu] += np.outer(self.bc[:, 0], e_row)
         a[iu] = u_row
-        a[iu + 1:iu + n + 1, iu:iu + n] = np.eye(n)
+        a[iu + 1 : iu + n + 1, iu : iu + n] = np.eye(n)
         self.pre.advance(a, one)
         a[one, one] = 1.0
         return a, y_row, u_row, v_row
@@ -722,8 +780,16 @@ class _AnalogLoop(_LoopSystem):
     linear over a step), an error of order (ω·h)²/8 of the signal's curvature, with h tied to the
     loop's dynamics. State: [plant x; controller xc; u_{k−1} … u_{k−m}; 1]."""
 
-    def __init__(self, controller: Controller, plant: Controller, theta: float, h: float, r: float, dist: float,
-                 prefilter: Controller | None = None):
+    def __init__(
+        self,
+        controller: Controller,
+        plant: Controller,
+        theta: float,
+        h: float,
+        r: float,
+        dist: float,
+        prefilter: Controller | None = None,
+    ):
         self.ap, self.bp, self.cp, self.dp = _realize(plant, "plant.model")
         self.ac, self.bc, self.cc, self.dc = _realize(controller)
         self.r, self.dist, self.h = r, dist, h
@@ -785,7 +851,7 @@ class _AnalogLoop(_LoopSystem):
         a[np_:iu, np_:iu] = phic
         a[np_:iu] += np.outer(cs, e_row) + np.outer(ce, e_next)
         a[iu] = u_row
-        a[iu + 1:iu + m, iu:iu + m - 1] = np.eye(m - 1)
+        a[iu + 1 : iu + m, iu : iu + m - 1] = np.eye(m - 1)
         self.pre.advance(a, one)
         a[one, one] = 1.0
         return a, y_row, u_row, v_row
@@ -805,8 +871,10 @@ class _AnalogLoop(_LoopSystem):
             # y = Cp x + Dp (Cc xc + Dc (r − y) + d)
             g = 1.0 + dp * dc
             if g == 0:
-                raise InputError("the loop has no solution at t = 0: controller and plant direct gains give 1 + Dc·Dp = 0",
-                                 key="plant.model")
+                raise InputError(
+                    "the loop has no solution at t = 0: controller and plant direct gains give 1 + Dc·Dp = 0",
+                    key="plant.model",
+                )
             y_row = np.zeros(dim)
             y_row[:np_] = cp
             y_row[np_:iu] = dp * cc
@@ -845,17 +913,25 @@ class _CascadeLoop(_LoopSystem):
     states now, which gives its output u_k = Cc·xc_{k+m} + Dc·e_k. State:
     [controller xc (delayed by θ); plant x; e_{k−1} … e_{k−m}; 1]. Strictly proper plants."""
 
-    def __init__(self, controller: Controller, plant: Controller, theta: float, h: float, r: float, dist: float,
-                 prefilter: Controller | None = None):
+    def __init__(
+        self,
+        controller: Controller,
+        plant: Controller,
+        theta: float,
+        h: float,
+        r: float,
+        dist: float,
+        prefilter: Controller | None = None,
+    ):
         ap, bp, cp, dp = _realize(plant, "plant.model")
         ac, bc, cc, dc = _realize(controller)
         self.nc, self.np_ = ac.shape[0], ap.shape[0]
         self.cc, self.dc = cc, dc
         n = self.nc + self.np_
         a = np.zeros((n, n))
-        a[:self.nc, :self.nc] = ac
-        a[self.nc:, :self.nc] = bp @ cc
-        a[self.nc:, self.nc:] = ap
+        a[: self.nc, : self.nc] = ac
+        a[self.nc :, : self.nc] = bp @ cc
+        a[self.nc :, self.nc :] = ap
         b_e = np.vstack([bc, bp * dc])
         b_d = np.vstack([np.zeros((self.nc, 1)), bp])
         self.phi, self.gs, self.ge = _foh(a, b_e, h)
@@ -889,20 +965,20 @@ class _CascadeLoop(_LoopSystem):
         if d_on:
             a[:ng, one] += self.gd * self.dist
         a[ng] = e_row
-        a[ng + 1:ng + m, ng:ng + m - 1] = np.eye(m - 1)
+        a[ng + 1 : ng + m, ng : ng + m - 1] = np.eye(m - 1)
         self.pre.advance(a, one)
         a[one, one] = 1.0
         return a, y_row, np.zeros(dim), np.zeros(dim)
 
     def extra(self, key, mode, zs, u_seg):
-        y = zs[:, :self.ng] @ self.c
-        return zs[:, :self.nc] @ self.cc[0], zs @ self._ref - y
+        y = zs[:, : self.ng] @ self.c
+        return zs[:, : self.nc] @ self.cc[0], zs @ self._ref - y
 
     def outputs(self, extras, steps: int) -> np.ndarray:
         """u_k = Cc·xc_{k+m} + Dc·e_k for k = 0..steps."""
         cx = np.concatenate([e[0] for e in extras])
         e = np.concatenate([e[1] for e in extras])
-        return cx[self.m:self.m + steps + 1] + self.dc * e[:steps + 1]
+        return cx[self.m : self.m + steps + 1] + self.dc * e[: steps + 1]
 
 
 #: The simulation step is this fraction of 1/ω, ω the loop's speed (see :func:`natural_step`).
@@ -936,11 +1012,21 @@ def natural_step(controller: Controller, plant: Controller, dead_time_s: float =
     return STEP_FRACTION / w
 
 
-def simulate_loop(controller: Controller, plant: Controller, dead_time_s: float = 0.0, *, duration_s: float,
-                  kind: str = "setpoint", step: float = 1.0, delay_s: float = 0.0,
-                  output_limits: tuple[float, float] | None = None, steps: int | None = None,
-                  sub_step_s: float | None = None, realized=None,
-                  setpoint_filter: Controller | None = None) -> LoopResponse:
+def simulate_loop(
+    controller: Controller,
+    plant: Controller,
+    dead_time_s: float = 0.0,
+    *,
+    duration_s: float,
+    kind: str = "setpoint",
+    step: float = 1.0,
+    delay_s: float = 0.0,
+    output_limits: tuple[float, float] | None = None,
+    steps: int | None = None,
+    sub_step_s: float | None = None,
+    realized=None,
+    setpoint_filter: Controller | None = None,
+) -> LoopResponse:
     """Simulate the loop's response to a setpoint step (``kind="setpoint"``) or a load-disturbance
     step at the plant input (``kind="disturbance"``), both applied at t = 0 with size ``step``.
 
@@ -994,19 +1080,31 @@ def simulate_loop(controller: Controller, plant: Controller, dead_time_s: float 
     # inf, which the verdict skips as "not finite"; the closed-loop stability check fails such a
     # loop on its own), and numpy's overflow warnings are not shown to the user.
     with np.errstate(over="ignore", invalid="ignore"):
-        return _simulate(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, (lo, hi), kind, realized,
-                         pre)
+        return _simulate(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, (lo, hi), kind, realized, pre)
 
 
 def _simulate(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, limits, kind, realized, pre=None):
     lo, hi = limits
     if controller.is_digital and realized is not None:
-        return _simulate_realized(realized.model(), controller.sample_period_s, plant, dead_time_s, delay_s,
-                                  duration_s, h, r, dist, (lo, hi), kind, pre)
+        return _simulate_realized(
+            realized.model(),
+            controller.sample_period_s,
+            plant,
+            dead_time_s,
+            delay_s,
+            duration_s,
+            h,
+            r,
+            dist,
+            (lo, hi),
+            kind,
+            pre,
+        )
     with one_blas_thread():
         if controller.is_digital:
-            return _simulate_sampled(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, (lo, hi), kind,
-                                     pre)
+            return _simulate_sampled(
+                controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, (lo, hi), kind, pre
+            )
         return _simulate_analog(controller, plant, dead_time_s, duration_s, h, r, dist, (lo, hi), kind, pre)
 
 
@@ -1014,20 +1112,30 @@ def _check_prefilter(f: Controller, controller: Controller):
     """F checked; an improper F is returned as ``("added", G)`` with G = C·(F − 1) = C_sp − C."""
     if not f.is_proper:
         fn, fd = np.asarray(f.num, float), np.asarray(f.den, float)
-        g = Controller.analog(np.polymul(np.polysub(fn, fd), controller.num), np.polymul(fd, controller.den),
-                              name="setpoint path minus feedback path") if not f.is_digital else None
+        g = (
+            Controller.analog(
+                np.polymul(np.polysub(fn, fd), controller.num),
+                np.polymul(fd, controller.den),
+                name="setpoint path minus feedback path",
+            )
+            if not f.is_digital
+            else None
+        )
         if g is None or controller.is_digital or not g.is_proper:
             raise InputError("the setpoint path C_sp = F·C is improper and cannot be simulated", key="setpoint filter")
         return ("added", g)
-    if f.is_digital and (not controller.is_digital
-                         or not math.isclose(f.sample_period_s, controller.sample_period_s, rel_tol=1e-9)):
+    if f.is_digital and (
+        not controller.is_digital or not math.isclose(f.sample_period_s, controller.sample_period_s, rel_tol=1e-9)
+    ):
         raise ValueError("a digital setpoint filter needs a digital controller with the same sample period")
     p = f.poles()
     bad = np.abs(p) >= 1 - 1e-9 if f.is_digital else p.real >= -1e-12 * max(1.0, float(np.max(np.abs(p), initial=0)))
     if np.any(bad):
-        raise InputError("the setpoint filter F = C_sp/C has a pole on or beyond the stability boundary (a zero of "
-                         "the feedback controller there): the setpoint step cannot be simulated through it",
-                         key="setpoint filter")
+        raise InputError(
+            "the setpoint filter F = C_sp/C has a pole on or beyond the stability boundary (a zero of "
+            "the feedback controller there): the setpoint step cannot be simulated through it",
+            key="setpoint filter",
+        )
     return f
 
 
@@ -1073,7 +1181,7 @@ def _simulate_analog(controller, plant, dead_time_s, duration_s, h, r, dist, lim
         tol = 1e-12 * max([1.0] + [abs(x) for x in (lo, hi) if math.isfinite(x)])
         if np.all((u >= lo - tol) & (u <= hi + tol)):
             u = np.clip(u, lo, hi)
-            return LoopResponse(t=np.arange(n_steps + 1) * h, y=y[:n_steps + 1], u=u, kind=kind, sub_step_s=h)
+            return LoopResponse(t=np.arange(n_steps + 1) * h, y=y[: n_steps + 1], u=u, kind=kind, sub_step_s=h)
     sys = _AnalogLoop(controller, plant, dead_time_s, h, r, dist, pre)
     sys.lo, sys.hi = lo, hi
     y, u, _ = _run(sys, n_steps, (lo, hi))
@@ -1082,8 +1190,11 @@ def _simulate_analog(controller, plant, dead_time_s, duration_s, h, r, dist, lim
 
 def _check_steps(n: int, h: float, duration_s: float) -> None:
     if n > MAX_SIM_STEPS:
-        raise InputError(f"the loop simulation would need {n} steps ({h:.3g} s each over {duration_s:g} s); "
-                         "shorten signals.duration", key="signals.duration")
+        raise InputError(
+            f"the loop simulation would need {n} steps ({h:.3g} s each over {duration_s:g} s); "
+            "shorten signals.duration",
+            key="signals.duration",
+        )
 
 
 def _simulate_sampled(controller, plant, dead_time_s, delay_s, duration_s, h, r, dist, limits, kind, pre=None):
@@ -1121,8 +1232,8 @@ def _simulate_sampled(controller, plant, dead_time_s, delay_s, duration_s, h, r,
             y[:, i] = x @ row + cu[0] * older + cu[1] * newer + cd[0] * d_old + cd[1] * d_new
         y = y.reshape(-1)
         u = np.repeat(u_s, every)
-    y = y[:steps + 1]
-    u = u[:steps + 1]
+    y = y[: steps + 1]
+    u = u[: steps + 1]
     return LoopResponse(t=np.arange(steps + 1) * h, y=y, u=u, kind=kind, sub_step_s=h)
 
 
@@ -1178,9 +1289,9 @@ def response_deviation(reference: LoopResponse, candidate: LoopResponse) -> floa
     end = min(reference.t[-1], candidate.t[-1])
     if candidate.sub_step_s < reference.sub_step_s:
         t = candidate.t[candidate.t <= end]
-        return float(np.max(np.abs(candidate.y[:t.size] - np.interp(t, reference.t, reference.y))))
+        return float(np.max(np.abs(candidate.y[: t.size] - np.interp(t, reference.t, reference.y))))
     t = reference.t[reference.t <= end]
-    return float(np.max(np.abs(np.interp(t, candidate.t, candidate.y) - reference.y[:t.size])))
+    return float(np.max(np.abs(np.interp(t, candidate.t, candidate.y) - reference.y[: t.size])))
 
 
 def default_duration(controller: Controller, plant: Controller, dead_time_s: float = 0.0) -> float:
@@ -1193,15 +1304,16 @@ def default_duration(controller: Controller, plant: Controller, dead_time_s: flo
     wc = 2 * np.pi * (m.crossover_hz or 1.0)
     theta = dead_time_s
     if theta > 0:
-        pad_num = np.array([theta ** 2 / 12, -theta / 2, 1.0])
-        pad_den = np.array([theta ** 2 / 12, theta / 2, 1.0])
+        pad_num = np.array([theta**2 / 12, -theta / 2, 1.0])
+        pad_den = np.array([theta**2 / 12, theta / 2, 1.0])
     else:
         pad_num = pad_den = np.array([1.0])
     if controller.is_digital:  # no analog stand-in here: fall back to the crossover rule
         return float(30.0 / wc + 3 * theta)
     c_num, c_den = np.array(controller.num), np.array(controller.den)
-    den = np.polyadd(np.polymul(np.polymul(c_den, plant.den), pad_den),
-                     np.polymul(np.polymul(c_num, plant.num), pad_num))
+    den = np.polyadd(
+        np.polymul(np.polymul(c_den, plant.den), pad_den), np.polymul(np.polymul(c_num, plant.num), pad_num)
+    )
     poles = np.roots(den)
     stable = [-p.real for p in poles if p.real < -1e-12]
     slow = min(stable) if stable else wc / 10

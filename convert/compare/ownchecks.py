@@ -74,16 +74,28 @@ def stability_check(source: Controller, ctrl: Controller) -> dict:
         label, unit, limit = "controller stable on its own", "1/s", None
         shown = ", ".join(f"s = {_c(p)} 1/s" for p in mine[:3])
     if len(mine) > len(theirs):
-        note = (f"the controller itself is unstable: {len(mine)} pole(s) {where} ({shown}) where the source has "
-                f"{len(theirs) or 'none'}; its output grows without bound whenever its loop is open")
+        note = (
+            f"the controller itself is unstable: {len(mine)} pole(s) {where} ({shown}) where the source has "
+            f"{len(theirs) or 'none'}; its output grows without bound whenever its loop is open"
+        )
         status = "fail"
     else:
-        figure_is = ("largest |z| of its poles" if ctrl.is_digital else "largest real part of its poles")
-        note = (f"no pole {where}; figure: {figure_is}, designed integrators apart" if not mine else
-                f"{len(mine)} pole(s) {where}, as many as the source has")
+        figure_is = "largest |z| of its poles" if ctrl.is_digital else "largest real part of its poles"
+        note = (
+            f"no pole {where}; figure: {figure_is}, designed integrators apart"
+            if not mine
+            else f"{len(mine)} pole(s) {where}, as many as the source has"
+        )
         status = "pass"
-    return dict(key="controller_stable", label=label, unit=unit, limit=limit,
-                value=None if figure is None else float(figure), status=status, note=note)
+    return dict(
+        key="controller_stable",
+        label=label,
+        unit=unit,
+        limit=limit,
+        value=None if figure is None else float(figure),
+        status=status,
+        note=note,
+    )
 
 
 def sign_check(source: Controller, ctrl: Controller, f_low_hz: float) -> dict:
@@ -93,15 +105,24 @@ def sign_check(source: Controller, ctrl: Controller, f_low_hz: float) -> dict:
         ratio = complex(ctrl.frequency_response(f, via="zpk")[0] / source.frequency_response(f, via="zpk")[0])
     base = dict(key="same_sign", label="same action (sign) as the source", unit="deg", limit=SIGN_LIMIT_DEG)
     if not (np.isfinite(ratio) and ratio != 0):
-        return dict(base, value=None, status="skipped",
-                    note=f"realization / source is not a finite non-zero number at {f_low_hz:.4g} Hz")
+        return dict(
+            base,
+            value=None,
+            status="skipped",
+            note=f"realization / source is not a finite non-zero number at {f_low_hz:.4g} Hz",
+        )
     phase = abs(math.degrees(math.atan2(ratio.imag, ratio.real)))
     ok = phase <= SIGN_LIMIT_DEG
-    note = (f"realization / source at the band's bottom ({f_low_hz:.4g} Hz): gain {20 * math.log10(abs(ratio)):+.2f} dB, "
-            f"phase {math.degrees(math.atan2(ratio.imag, ratio.real)):+.1f} deg")
+    note = (
+        f"realization / source at the band's bottom ({f_low_hz:.4g} Hz): gain {20 * math.log10(abs(ratio)):+.2f} dB, "
+        f"phase {math.degrees(math.atan2(ratio.imag, ratio.real)):+.1f} deg"
+    )
     if not ok:
-        note = ("the realization acts against the source (sign inverted): " + note
-                + "; it would drive the plant the wrong way")
+        note = (
+            "the realization acts against the source (sign inverted): "
+            + note
+            + "; it would drive the plant the wrong way"
+        )
     return dict(base, value=phase, status="pass" if ok else "fail", note=note)
 
 

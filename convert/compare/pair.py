@@ -87,7 +87,7 @@ def _spot_frequencies(band_hz) -> np.ndarray:
     out = [lo]
     for decade in range(int(np.floor(np.log10(lo))), int(np.ceil(np.log10(hi))) + 1):
         for m in (1.0, 2.0, 5.0):
-            f = m * 10.0 ** decade
+            f = m * 10.0**decade
             if lo * 1.05 < f < hi / 1.05:
                 out.append(f)
     out.append(hi)
@@ -108,9 +108,17 @@ def spans_where(f: np.ndarray, ok: np.ndarray) -> list[tuple[float, float]]:
     return out
 
 
-def compare_pair(a, b, *, band_hz: tuple[float, float] | None = None, plant_expression: str | None = None,
-                 dead_time_s: float = 0.0, output_range: tuple[float, float] | None = None,
-                 limits: dict | None = None, draws: int | None = None) -> PairResult:
+def compare_pair(
+    a,
+    b,
+    *,
+    band_hz: tuple[float, float] | None = None,
+    plant_expression: str | None = None,
+    dead_time_s: float = 0.0,
+    output_range: tuple[float, float] | None = None,
+    limits: dict | None = None,
+    draws: int | None = None,
+) -> PairResult:
     """Compare B (a :class:`convert.given.GivenForm`) with the reference A (another one).
 
     ``band_hz`` (Hz) defaults to :func:`default_band_hz` of both forms; ``plant_expression`` (in s)
@@ -128,8 +136,10 @@ def compare_pair(a, b, *, band_hz: tuple[float, float] | None = None, plant_expr
     band_default = band_hz is None
     if band_default:
         band_hz = default_band_hz(a_ctrl, b_ctrl)
-        notes.append("band not given: a decade below the lowest corner of A and B to a decade above the highest"
-                     + (", below the Nyquist frequency" if a_ctrl.is_digital or b_ctrl.is_digital else ""))
+        notes.append(
+            "band not given: a decade below the lowest corner of A and B to a decade above the highest"
+            + (", below the Nyquist frequency" if a_ctrl.is_digital or b_ctrl.is_digital else "")
+        )
     plant = None
     if plant_expression is not None:
         from convert.case import _read_plant
@@ -143,43 +153,89 @@ def compare_pair(a, b, *, band_hz: tuple[float, float] | None = None, plant_expr
     elif dead_time_s:
         raise InputError("a dead time belongs to a plant; give --plant too", where="--dead-time")
     chosen = {k: v for k, v in (limits or {}).items() if v is not None}
-    for key, default in (("max_gain_error_db", DEFAULT_GAIN_LIMIT_DB), ("max_phase_error_deg", DEFAULT_PHASE_LIMIT_DEG)):
+    for key, default in (
+        ("max_gain_error_db", DEFAULT_GAIN_LIMIT_DB),
+        ("max_phase_error_deg", DEFAULT_PHASE_LIMIT_DEG),
+    ):
         if key not in chosen:
             chosen[key] = default
-            notes.append(f"{key.replace('_', ' ').replace(' db', ' (dB)').replace(' deg', ' (deg)')} not given: "
-                         f"{default:g} used")
+            notes.append(
+                f"{key.replace('_', ' ').replace(' db', ' (dB)').replace(' deg', ' (deg)')} not given: {default:g} used"
+            )
     criteria = Criteria(band_hz=tuple(band_hz), **chosen)
     places = {"source": "A", f"target.given.{b.name}": "B", "criteria.band": "--band", "plant": "--plant"}
-    case = _PairCase(path=Path("compare"), name="compare", title="A against B", description="", source=source,
-                     digital=None, circuit=None, plant=plant, signals=Signals(output_range=output_range),
-                     criteria=criteria, given=(b,), places=places)
+    case = _PairCase(
+        path=Path("compare"),
+        name="compare",
+        title="A against B",
+        description="",
+        source=source,
+        digital=None,
+        circuit=None,
+        plant=plant,
+        signals=Signals(output_range=output_range),
+        criteria=criteria,
+        given=(b,),
+        places=places,
+    )
     results = evaluate_case(case, draws=draws)
     r = results.realizations[0]
     band = results.band_f_hz
     ref = response_seen_from_loop(results.reference, band, via="zpk")
     gl, pl = criteria.max_gain_error_db, criteria.max_phase_error_deg
-    error = compare_responses(ref, r.seen(band), band, gain_limit_db=gl, phase_limit_deg=pl,
-                              evaluate=lambda f: (response_seen_from_loop(results.reference, f, via="zpk"), r.seen(f)),
-                              forms=(results.reference, r.controller))
+    error = compare_responses(
+        ref,
+        r.seen(band),
+        band,
+        gain_limit_db=gl,
+        phase_limit_deg=pl,
+        evaluate=lambda f: (response_seen_from_loop(results.reference, f, via="zpk"), r.seen(f)),
+        forms=(results.reference, r.controller),
+    )
     coef = None
     if r.controller.is_digital:
-        coef = compare_responses(ref, r.controller.frequency_response(band, via="zpk"), band, gain_limit_db=gl,
-                                 phase_limit_deg=pl)
+        coef = compare_responses(
+            ref, r.controller.frequency_response(band, via="zpk"), band, gain_limit_db=gl, phase_limit_deg=pl
+        )
     spots_f = _spot_frequencies(band_hz)
     ra, rb = response_seen_from_loop(results.reference, spots_f, via="zpk"), r.seen(spots_f)
     spot_err = compare_responses(ra, rb, spots_f, gain_limit_db=gl, phase_limit_deg=pl)
-    spots = [{"f_hz": float(f), "gain_a_db": float(20 * np.log10(abs(x))), "gain_b_db": float(20 * np.log10(abs(y))),
-              "gain_error_db": float(g), "phase_error_deg": float(p)}
-             for f, x, y, g, p in zip(spots_f, ra, rb, spot_err.gain_error_db, spot_err.phase_error_deg)]
+    spots = [
+        {
+            "f_hz": float(f),
+            "gain_a_db": float(20 * np.log10(abs(x))),
+            "gain_b_db": float(20 * np.log10(abs(y))),
+            "gain_error_db": float(g),
+            "phase_error_deg": float(p),
+        }
+        for f, x, y, g, p in zip(spots_f, ra, rb, spot_err.gain_error_db, spot_err.phase_error_deg)
+    ]
     # the agreement band, looked for a decade beyond the compared band on each side
     nyq = [c.fs_hz / 2 for c in (results.reference, r.controller) if c.is_digital]
     wide_hi = band_hz[1] * 10 if not nyq else min(band_hz[1] * 10, 0.999 * min(nyq))
     wide = log_grid(band_hz[0] / 10, max(wide_hi, band_hz[1]), 100)
-    werr = compare_responses(response_seen_from_loop(results.reference, wide, via="zpk"), r.seen(wide), wide,
-                             gain_limit_db=gl, phase_limit_deg=pl)
-    ok = (np.abs(np.nan_to_num(werr.gain_error_db, nan=np.inf)) <= gl) & \
-         (np.abs(np.nan_to_num(werr.phase_error_deg, nan=np.inf)) <= pl)
-    return PairResult(results=results, a=a, b=b, band_hz=tuple(band_hz), band_default=band_default, error=error,
-                      coefficients_error=coef, spots=spots, agreement=spans_where(wide, ok),
-                      agreement_grid_hz=(float(wide[0]), float(wide[-1])), gain_limit_db=gl, phase_limit_deg=pl,
-                      notes=notes)
+    werr = compare_responses(
+        response_seen_from_loop(results.reference, wide, via="zpk"),
+        r.seen(wide),
+        wide,
+        gain_limit_db=gl,
+        phase_limit_deg=pl,
+    )
+    ok = (np.abs(np.nan_to_num(werr.gain_error_db, nan=np.inf)) <= gl) & (
+        np.abs(np.nan_to_num(werr.phase_error_deg, nan=np.inf)) <= pl
+    )
+    return PairResult(
+        results=results,
+        a=a,
+        b=b,
+        band_hz=tuple(band_hz),
+        band_default=band_default,
+        error=error,
+        coefficients_error=coef,
+        spots=spots,
+        agreement=spans_where(wide, ok),
+        agreement_grid_hz=(float(wide[0]), float(wide[-1])),
+        gain_limit_db=gl,
+        phase_limit_deg=pl,
+        notes=notes,
+    )

@@ -22,7 +22,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Callable
+from collections.abc import Callable
 
 import numpy as np
 
@@ -30,8 +30,9 @@ from convert.compare.frequency import compare_responses, log_grid, response_seen
 from convert.compare.ownchecks import adds_unstable_poles
 from convert.controller import Controller
 
-RULE_TEXT = ("added phase lag at crossover ≈ ω_c·(T/2 + t_d) for the zero-order hold and computation delay "
-             "(common practice)")
+RULE_TEXT = (
+    "added phase lag at crossover ≈ ω_c·(T/2 + t_d) for the zero-order hold and computation delay (common practice)"
+)
 
 
 @dataclass(frozen=True)
@@ -62,12 +63,24 @@ def rule_min_fs(crossover_hz: float | None, max_lag_deg: float | None, delay_s: 
     return None if t_max <= 0 else 1.0 / t_max
 
 
-def advise(source: Controller, method: str, discretize: Callable[[Controller, float, str], Controller], *,
-           band_hz: tuple[float, float], max_gain_error_db: float | None, max_phase_error_deg: float | None,
-           max_lag_deg: float | None, crossover_hz: float | None, delay_s: float = 0.0,
-           delay_samples: float | None = None, points: int = 40, max_ratio: float = 2000.0,
-           loop_check: Callable[[Controller, float], list[str]] | None = None,
-           rel_tol: float = 0.005, points_per_decade: int = 100) -> RateAdvice:
+def advise(
+    source: Controller,
+    method: str,
+    discretize: Callable[[Controller, float, str], Controller],
+    *,
+    band_hz: tuple[float, float],
+    max_gain_error_db: float | None,
+    max_phase_error_deg: float | None,
+    max_lag_deg: float | None,
+    crossover_hz: float | None,
+    delay_s: float = 0.0,
+    delay_samples: float | None = None,
+    points: int = 40,
+    max_ratio: float = 2000.0,
+    loop_check: Callable[[Controller, float], list[str]] | None = None,
+    rel_tol: float = 0.005,
+    points_per_decade: int = 100,
+) -> RateAdvice:
     """The lowest sample rate (Hz) for ``method`` that passes. ``discretize(controller, fs_hz,
     method)`` returns the digital controller; ``delay_samples`` (if given) scales the delay with
     the rate. ``loop_check(digital, delay_s)`` (optional) returns the names of the loop criteria
@@ -75,14 +88,42 @@ def advise(source: Controller, method: str, discretize: Callable[[Controller, fl
     from convert.compare.loop import one_blas_thread
 
     with one_blas_thread():  # small matrices (discretizations, loop checks): one BLAS thread is faster
-        return _advise(source, method, discretize, band_hz, max_gain_error_db, max_phase_error_deg, max_lag_deg,
-                       crossover_hz, delay_s, delay_samples, points, max_ratio, loop_check, rel_tol,
-                       points_per_decade)
+        return _advise(
+            source,
+            method,
+            discretize,
+            band_hz,
+            max_gain_error_db,
+            max_phase_error_deg,
+            max_lag_deg,
+            crossover_hz,
+            delay_s,
+            delay_samples,
+            points,
+            max_ratio,
+            loop_check,
+            rel_tol,
+            points_per_decade,
+        )
 
 
-def _advise(source, method, discretize, band_hz, max_gain_error_db, max_phase_error_deg, max_lag_deg,
-            crossover_hz, delay_s, delay_samples, points, max_ratio, loop_check, rel_tol,
-            points_per_decade) -> RateAdvice:
+def _advise(
+    source,
+    method,
+    discretize,
+    band_hz,
+    max_gain_error_db,
+    max_phase_error_deg,
+    max_lag_deg,
+    crossover_hz,
+    delay_s,
+    delay_samples,
+    points,
+    max_ratio,
+    loop_check,
+    rel_tol,
+    points_per_decade,
+) -> RateAdvice:
     f = log_grid(band_hz[0], band_hz[1], points_per_decade)
     ref = source.frequency_response(f, via="zpk")
 
@@ -97,9 +138,16 @@ def _advise(source, method, discretize, band_hz, max_gain_error_db, max_phase_er
         if adds_unstable_poles(source, digital):  # an unstable controller never passes, whatever its errors
             return ["unstable controller (a pole outside |z| = 1)"]
         cand = response_seen_from_loop(digital, f, delay_s=d, via="zpk")
-        err = compare_responses(ref, cand, f, forms=(source, digital),  # the verdict's grid-free maxima
-                                evaluate=lambda x: (source.frequency_response(x, via="zpk"),
-                                                    response_seen_from_loop(digital, x, delay_s=d, via="zpk")))
+        err = compare_responses(
+            ref,
+            cand,
+            f,
+            forms=(source, digital),  # the verdict's grid-free maxima
+            evaluate=lambda x: (
+                source.frequency_response(x, via="zpk"),
+                response_seen_from_loop(digital, x, delay_s=d, via="zpk"),
+            ),
+        )
         why = []
         if max_gain_error_db is not None and err.max_gain_error_db > max_gain_error_db:
             why.append("gain error")
@@ -107,8 +155,12 @@ def _advise(source, method, discretize, band_hz, max_gain_error_db, max_phase_er
             why.append("phase error")
         if loop_check is None and max_lag_deg is not None and crossover_hz:
             at = np.array([crossover_hz])
-            lag = -np.degrees(np.angle(response_seen_from_loop(digital, at, delay_s=d, via="zpk")[0]
-                                       / source.frequency_response(at, via="zpk")[0]))
+            lag = -np.degrees(
+                np.angle(
+                    response_seen_from_loop(digital, at, delay_s=d, via="zpk")[0]
+                    / source.frequency_response(at, via="zpk")[0]
+                )
+            )
             if lag > max_lag_deg:
                 why.append("phase lag at crossover")
         if full and loop_check is not None and not why:
@@ -116,12 +168,21 @@ def _advise(source, method, discretize, band_hz, max_gain_error_db, max_phase_er
         return why
 
     rates = np.logspace(math.log10(2.05 * band_hz[1]), math.log10(max_ratio * band_hz[1]), points)
-    if (max_gain_error_db is None and max_phase_error_deg is None and loop_check is None
-            and not (max_lag_deg is not None and crossover_hz)):
-        return RateAdvice(method=method, checked_fs_hz=None, rule_fs_hz=None, checked=False,
-                          limiting="nothing checked: no gain or phase error limit, and no loop criterion "
-                                   "that can be tested (they need a plant)",
-                          scanned_hz=(float(rates[0]), float(rates[-1])))
+    if (
+        max_gain_error_db is None
+        and max_phase_error_deg is None
+        and loop_check is None
+        and not (max_lag_deg is not None and crossover_hz)
+    ):
+        return RateAdvice(
+            method=method,
+            checked_fs_hz=None,
+            rule_fs_hz=None,
+            checked=False,
+            limiting="nothing checked: no gain or phase error limit, and no loop criterion "
+            "that can be tested (they need a plant)",
+            scanned_hz=(float(rates[0]), float(rates[-1])),
+        )
     limits = [", ".join(failures(float(fs), full=False)) for fs in rates]
     ok_arr = np.array([not x for x in limits])
     checked = None
@@ -157,5 +218,10 @@ def _advise(source, method, discretize, band_hz, max_gain_error_db, max_phase_er
     if rule is not None and delay_samples is not None:
         # t_d = delay_samples·T: ω_c·T·(1/2 + n) = φ_max
         rule = 2 * math.pi * crossover_hz * (0.5 + delay_samples) / math.radians(max_lag_deg)
-    return RateAdvice(method=method, checked_fs_hz=checked, rule_fs_hz=rule, limiting=limiting,
-                      scanned_hz=(float(rates[0]), float(rates[-1])))
+    return RateAdvice(
+        method=method,
+        checked_fs_hz=checked,
+        rule_fs_hz=rule,
+        limiting=limiting,
+        scanned_hz=(float(rates[0]), float(rates[-1])),
+    )

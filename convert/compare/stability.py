@@ -108,8 +108,9 @@ def loop_sign(controller: Controller, plant: Controller) -> int:
     return 0 if not math.isfinite(k) or k == 0 else (1 if k > 0 else -1)
 
 
-def loop_stability(controller: Controller, plant: Controller, dead_time_s: float = 0.0, *,
-                   delay_s: float = 0.0, what: str = "the loop") -> LoopStability:
+def loop_stability(
+    controller: Controller, plant: Controller, dead_time_s: float = 0.0, *, delay_s: float = 0.0, what: str = "the loop"
+) -> LoopStability:
     """Closed-loop stability of ``controller`` with ``plant`` (analog) and ``dead_time_s``.
 
     A digital controller runs through a zero-order hold with ``delay_s`` computation delay; for
@@ -132,18 +133,24 @@ def stability_message(s: LoopStability, what: str = "the loop") -> str:
     if s.stable and not s.sign_inverted:
         return ""
     if s.stable:
-        return (f"{what} has a negative low-frequency loop gain with this plant (positive feedback: the "
-                "controller pushes the measurement away from the setpoint, held only because the loop gain is "
-                "below 1): check the action (direct or reverse) or the plant gain sign.")
+        return (
+            f"{what} has a negative low-frequency loop gain with this plant (positive feedback: the "
+            "controller pushes the measurement away from the setpoint, held only because the loop gain is "
+            "below 1): check the action (direct or reverse) or the plant gain sign."
+        )
     if s.marginal and s.unstable_poles == 0:
         head = f"{what} is not stable with this plant: a closed-loop pole lies on the stability boundary"
     else:
         where = "outside the unit circle" if "eigenvalues" in s.method else "in the right half-plane"
-        head = (f"{what} is unstable with this plant ({s.unstable_poles} closed-loop "
-                f"pole{'s' if s.unstable_poles != 1 else ''} {where})")
+        head = (
+            f"{what} is unstable with this plant ({s.unstable_poles} closed-loop "
+            f"pole{'s' if s.unstable_poles != 1 else ''} {where})"
+        )
     if s.sign_inverted:
-        tail = ("its low-frequency loop gain is negative (positive feedback): check the action (direct or "
-                "reverse) or the plant gain sign")
+        tail = (
+            "its low-frequency loop gain is negative (positive feedback): check the action (direct or "
+            "reverse) or the plant gain sign"
+        )
         if s.reversed_is_stable:
             tail += "; with the controller's sign reversed the loop is stable"
     elif s.reversed_is_stable:
@@ -163,21 +170,28 @@ def _count(controller: Controller, plant: Controller, dead_time_s: float, delay_
     return _count_analog(controller, plant, dead_time_s + delay_s)
 
 
-def _count_sampled(controller: Controller, plant: Controller, dead_time_s: float,
-                   delay_s: float) -> tuple[int, bool, str]:
+def _count_sampled(
+    controller: Controller, plant: Controller, dead_time_s: float, delay_s: float
+) -> tuple[int, bool, str]:
     from convert.compare.loop import sampled_loop_matrix
 
     a = sampled_loop_matrix(controller, plant, dead_time_s + delay_s)
     lam = np.abs(np.linalg.eigvals(a)) if a.size else np.zeros(0)
     tol = 1e-9
-    return (int(np.count_nonzero(lam > 1 + tol)), bool(np.any(np.abs(lam - 1) <= tol)),
-            "eigenvalues of the sampled-data closed loop (plant discretized exactly with its delays)")
+    return (
+        int(np.count_nonzero(lam > 1 + tol)),
+        bool(np.any(np.abs(lam - 1) <= tol)),
+        "eigenvalues of the sampled-data closed loop (plant discretized exactly with its delays)",
+    )
 
 
 def _count_analog(controller: Controller, plant: Controller, theta: float) -> tuple[int, bool, str]:
     """Right-half-plane zeros of F(s) = D(s) + N(s)·e^{−sθ} by the argument principle."""
-    method = ("argument principle on D(s) + N(s)·e^{-sθ} along the imaginary axis (dead time exact)"
-              if theta > 0 else "argument principle on D(s) + N(s) along the imaginary axis")
+    method = (
+        "argument principle on D(s) + N(s)·e^{-sθ} along the imaginary axis (dead time exact)"
+        if theta > 0
+        else "argument principle on D(s) + N(s) along the imaginary axis"
+    )
     d_roots = np.concatenate([controller.poles(), plant.poles()])
     n_roots = np.concatenate([controller.zeros(), plant.zeros()])
     if n_roots.size > d_roots.size:

@@ -45,8 +45,13 @@ CRITERIA: tuple[tuple[str, str, str], ...] = (
     ("max_disturbance_deviation", "disturbance-response deviation", "of peak"),
 )
 CRITERION_KEYS = frozenset(k for k, _, _ in CRITERIA)  # a realization's own checks are not among them
-LOOP_CRITERIA = {"max_phase_margin_change_deg", "max_gain_margin_change_db", "max_sensitivity_peak_change_db",
-                 "max_step_deviation", "max_disturbance_deviation"}
+LOOP_CRITERIA = {
+    "max_phase_margin_change_deg",
+    "max_gain_margin_change_db",
+    "max_sensitivity_peak_change_db",
+    "max_step_deviation",
+    "max_disturbance_deviation",
+}
 
 
 @dataclass(frozen=True)
@@ -86,12 +91,15 @@ class Verdict:
         checked, and what was skipped for each."""
         if self.overall != "unchecked":
             return ""
-        undecided = [j.realization for j in self.judgements
-                     if j.criterion == "closed_loop_stable" and j.status == "skipped"]
+        undecided = [
+            j.realization for j in self.judgements if j.criterion == "closed_loop_stable" and j.status == "skipped"
+        ]
         if undecided:
-            return ("the closed-loop stability of " + ", ".join(f"the {n} loop" if n == "source" else repr(n)
-                                                                for n in undecided)
-                    + " could not be decided, so no verdict can pass")
+            return (
+                "the closed-loop stability of "
+                + ", ".join(f"the {n} loop" if n == "source" else repr(n) for n in undecided)
+                + " could not be decided, so no verdict can pass"
+            )
         names = list(dict.fromkeys(j.realization for j in self.judgements if j.criterion != "closed_loop_stable"))
         if not names:
             return "no new form was built, so no criterion was checked"
@@ -105,8 +113,12 @@ class Verdict:
         return "no criterion was checked for " + " | ".join(bits)
 
     def as_dict(self) -> dict:
-        return {"verdict": self.overall, "judgements": [j.as_dict() for j in self.judgements],
-                "failures": [j.as_dict() for j in self.failures], "unchecked_reason": self.unchecked_reason}
+        return {
+            "verdict": self.overall,
+            "judgements": [j.as_dict() for j in self.judgements],
+            "failures": [j.as_dict() for j in self.failures],
+            "unchecked_reason": self.unchecked_reason,
+        }
 
 
 def stability_judgements(loops: dict) -> list[Judgement]:
@@ -116,8 +128,18 @@ def stability_judgements(loops: dict) -> list[Judgement]:
     out = []
     for name, s in loops.items():
         if s is None:
-            out.append(Judgement(name, "closed_loop_stable", "closed-loop stability", "", None, None, "skipped",
-                                 "could not be decided"))
+            out.append(
+                Judgement(
+                    name,
+                    "closed_loop_stable",
+                    "closed-loop stability",
+                    "",
+                    None,
+                    None,
+                    "skipped",
+                    "could not be decided",
+                )
+            )
             continue
         ok = getattr(s, "acceptable", s.stable)
         status = "pass" if ok else "fail"
@@ -153,14 +175,27 @@ def judge(criteria: dict, figures: dict[str, dict], *, has_plant: bool, loops: d
             out.append(Judgement(name, key, label, unit, limit, None if value is None else abs(value), status, note))
         # checks a realization carries itself, always on (e.g. a firmware realization's stability);
         # they can fail a verdict but never make one "checked" on their own
-        out.extend(Judgement(name, c["key"], c["label"], c.get("unit", ""), c.get("limit"), c.get("value"),
-                             c["status"], c.get("note", "")) for c in values.get("checks", ()))
+        out.extend(
+            Judgement(
+                name,
+                c["key"],
+                c["label"],
+                c.get("unit", ""),
+                c.get("limit"),
+                c.get("value"),
+                c["status"],
+                c.get("note", ""),
+            )
+            for c in values.get("checks", ())
+        )
     if any(j.status == "fail" for j in out):
         overall = "fail"
     elif any(j.criterion == "closed_loop_stable" and j.status == "skipped" for j in out):
         overall = "unchecked"  # a loop whose stability could not be decided is never a pass
-    elif not figures or any(not any(j.status == "pass" and j.criterion in CRITERION_KEYS for j in out
-                                    if j.realization == name) for name in figures):
+    elif not figures or any(
+        not any(j.status == "pass" and j.criterion in CRITERION_KEYS for j in out if j.realization == name)
+        for name in figures
+    ):
         overall = "unchecked"
     else:
         overall = "pass"

@@ -32,7 +32,7 @@ def model_of(real: Realized):
 def level_factor(a, k: int, cast=float):
     """DF2T state k per unit of held output: −(a_{k+1} + … + a_m), summed in double, then stored
     in the format (the generated code holds it as a constant)."""
-    return cast(-sum(float(v) for v in a[k + 1:]))
+    return cast(-sum(float(v) for v in a[k + 1 :]))
 
 
 class FloatModel:
@@ -163,8 +163,9 @@ class FixedModel:
             w = math.floor(v / scale * self.full + 0.5)
             return self.lo if w < self.lo else self.hi if w > self.hi else int(w)
 
-        self.state = [([word(v, sc[i]) for v in xh], [word(v, sc[i + 1]) for v in yh])
-                      for i, (xh, yh) in enumerate(states)]
+        self.state = [
+            ([word(v, sc[i]) for v in xh], [word(v, sc[i + 1]) for v in yh]) for i, (xh, yh) in enumerate(states)
+        ]
 
     def set_level_word(self, v: int) -> None:
         """:meth:`set_level` with the output word given (the generated C's ``set_output``)."""
@@ -211,7 +212,7 @@ class FixedModel:
             xh, yh = self.state[i]
             nb = len(b)
             ext = np.concatenate([np.asarray(xh[::-1], dtype=np.int64), v]) if xh else v
-            ff = np.convolve(ext, np.asarray(b, dtype=np.int64))[nb - 1:nb - 1 + v.size] if nb > 1 else v * b[0]
+            ff = np.convolve(ext, np.asarray(b, dtype=np.int64))[nb - 1 : nb - 1 + v.size] if nb > 1 else v * b[0]
             e = self.b_shifts[i]
             if e:
                 ff = (ff + ((1 << (e - 1)) if self.round_half else 0)) >> e
@@ -223,8 +224,8 @@ class FixedModel:
             elif m == 1:
                 out = []
                 append = out.append
-                a1, = a
-                y1, = yh
+                (a1,) = a
+                (y1,) = yh
                 for f in ffl:
                     y1 = (f - a1 * y1) >> sh
                     if y1 > hi:
@@ -261,8 +262,8 @@ class FixedModel:
                     hist.pop()
                     out.append(y)
                 yh = hist
-            allx = (list(xh[::-1]) + v.tolist())
-            newx = allx[::-1][:len(xh)] if xh else []
+            allx = list(xh[::-1]) + v.tolist()
+            newx = allx[::-1][: len(xh)] if xh else []
             self.state[i] = (newx, list(yh))
             v = np.asarray(out, dtype=np.int64)
         return v

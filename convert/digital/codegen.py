@@ -56,13 +56,18 @@ def _header_comment(real: Realized, name: str, info: dict) -> list[str]:
             "  then shifted right with rounding half up and saturated to the word.",
         ]
         for i, (s, sc) in enumerate(zip(real.sections, real.node_scales[1:])):
-            lines.append(f"  section {i + 1}: denominator words = a * 2^{s.shift}, numerator words = b * "
-                         f"2^{s.shift + s.b_shift}, output full scale {sc:.10g}")
+            lines.append(
+                f"  section {i + 1}: denominator words = a * 2^{s.shift}, numerator words = b * "
+                f"2^{s.shift + s.b_shift}, output full scale {sc:.10g}"
+            )
     else:
         lines.append("Inputs and outputs in controller units (x = error, return value = output).")
     lim = info.get("limits")
-    lines.append(f"Output limits: {lim[0]:.10g} .. {lim[1]:.10g}, apply them to the returned value"
-                 if lim else "Output limits: none stated; clamp the returned value in the caller")
+    lines.append(
+        f"Output limits: {lim[0]:.10g} .. {lim[1]:.10g}, apply them to the returned value"
+        if lim
+        else "Output limits: none stated; clamp the returned value in the caller"
+    )
     if w.is_fixed and _integrating(real):
         lines.append(f"The integrating section saturates at +/-{real.node_scales[-1]:.10g} (its full scale).")
     lines.append("Difference equations per section: see the structure in docs/firmware.md.")
@@ -90,32 +95,53 @@ def emit_c(real: Realized, name: str, *, source: str = "", method: str = "", lim
     info = {"source": source, "method": method, "limits": limits}
     guard = f"{name.upper()}_H"
     fields = _state_fields(real)
-    h = ["/*"] + [f" * {line}" for line in _header_comment(real, name, info)] + [" */",
-         f"#ifndef {guard}", f"#define {guard}", "", "#include <stdint.h>", "", "typedef struct {"]
+    h = (
+        ["/*"]
+        + [f" * {line}" for line in _header_comment(real, name, info)]
+        + [" */", f"#ifndef {guard}", f"#define {guard}", "", "#include <stdint.h>", "", "typedef struct {"]
+    )
     if fields:
         h += [f"    {t} {n}[{k}];" for n, k in fields]
     else:
         h.append("    int unused; /* a pure gain keeps no state */")
-    h += [f"}} {name}_state;", "", f"void {name}_reset({name}_state *st);", f"{t} {name}_step({name}_state *st, {t} x);"]
+    h += [
+        f"}} {name}_state;",
+        "",
+        f"void {name}_reset({name}_state *st);",
+        f"{t} {name}_step({name}_state *st, {t} x);",
+    ]
     integ = _integrating(real)
     if integ:
         h.append(f"void {name}_set_output({name}_state *st, {t} u);")
     h += ["", f"#endif /* {guard} */", ""]
 
-    c = [f"/* {name}.c: see {name}.h for the source controller, structure, word format and scaling. */",
-         f'#include "{name}.h"', ""]
+    c = [
+        f"/* {name}.c: see {name}.h for the source controller, structure, word format and scaling. */",
+        f'#include "{name}.h"',
+        "",
+    ]
     if w.is_fixed:
         acc = w.accumulator_c_type
         half = w.rounding == "half-up"
-        c += [f"/* floor({'(v + 2^(sh-1))' if half else 'v'} / 2^sh) without relying on the sign behaviour of >> */",
-              f"static {acc} {name}_round_shift({acc} v, int sh)", "{"]
+        c += [
+            f"/* floor({'(v + 2^(sh-1))' if half else 'v'} / 2^sh) without relying on the sign behaviour of >> */",
+            f"static {acc} {name}_round_shift({acc} v, int sh)",
+            "{",
+        ]
         if half:
             c.append(f"    v += ({acc})1 << (sh - 1);")
-        c += ["    return v >= 0 ? v >> sh : -((-(v + 1)) >> sh) - 1;", "}", "",
-              f"static {t} {name}_saturate({acc} v)", "{",
-              f"    if (v > INT{w.bits}_MAX) return INT{w.bits}_MAX;",
-              f"    if (v < INT{w.bits}_MIN) return INT{w.bits}_MIN;",
-              f"    return ({t})v;", "}", ""]
+        c += [
+            "    return v >= 0 ? v >> sh : -((-(v + 1)) >> sh) - 1;",
+            "}",
+            "",
+            f"static {t} {name}_saturate({acc} v)",
+            "{",
+            f"    if (v > INT{w.bits}_MAX) return INT{w.bits}_MAX;",
+            f"    if (v < INT{w.bits}_MIN) return INT{w.bits}_MIN;",
+            f"    return ({t})v;",
+            "}",
+            "",
+        ]
     c += [f"void {name}_reset({name}_state *st)", "{"]
     if fields:
         for n, k in fields:
@@ -165,8 +191,7 @@ def _c_section(real: Realized, i: int, s, name: str) -> list[str]:
 
     coefs = f"b = [{', '.join(f'{v:.17g}' for v in s.b)}], a = [{', '.join(f'{v:.17g}' for v in s.a)}]"
     out[0] = f"    /* section {i}: {coefs} */"
-    ops = _float_section(real, i, s, lambda x: _c_float(x, single),
-                         lambda n, k: f"st->s{i}_{n}[{k}]", {"y": "y"})
+    ops = _float_section(real, i, s, lambda x: _c_float(x, single), lambda n, k: f"st->s{i}_{n}[{k}]", {"y": "y"})
     return out + [f"    {lhs} = {rhs};" for lhs, rhs in ops]
 
 
@@ -251,8 +276,9 @@ def _check_name(name: str) -> None:
     import re
 
     if not re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]{0,30}", name or ""):
-        raise InputError(f"expected a C/ST identifier (letter or _, then letters, digits, _; at most 31), found {name!r}",
-                         key="name")
+        raise InputError(
+            f"expected a C/ST identifier (letter or _, then letters, digits, _; at most 31), found {name!r}", key="name"
+        )
 
 
 def emit(real: Realized, name: str, lang: str, **info) -> dict[str, str]:
@@ -281,20 +307,44 @@ def emit_st(real: Realized, name: str, *, source: str = "", method: str = "", li
     _check_name(name)
     w = real.word
     if w.is_fixed:
-        raise InputError(f"Structured Text is offered in float64 (LREAL) and float32 (REAL); {w.name} is for C",
-                         key="format")
+        raise InputError(
+            f"Structured Text is offered in float64 (LREAL) and float32 (REAL); {w.name} is for C", key="format"
+        )
     single = w.name == "float32"
     ty = "REAL" if single else "LREAL"
     info = {"source": source, "method": method, "limits": limits}
-    lines = ["(*"] + [f" * {line}" for line in _header_comment(real, name, info)] + [
-        " * Inputs: x (error), reset (TRUE: clear the state), track (TRUE: hold the state at the output",
-        " * track_value, for bumpless transfer; integrating controllers only). Output: y.", " *)",
-        f"FUNCTION_BLOCK {name}", "VAR_INPUT", f"    x : {ty};", "    reset : BOOL;", "    track : BOOL;",
-        f"    track_value : {ty};", "END_VAR", "VAR_OUTPUT", f"    y : {ty};", "END_VAR", "VAR"]
+    lines = (
+        ["(*"]
+        + [f" * {line}" for line in _header_comment(real, name, info)]
+        + [
+            " * Inputs: x (error), reset (TRUE: clear the state), track (TRUE: hold the state at the output",
+            " * track_value, for bumpless transfer; integrating controllers only). Output: y.",
+            " *)",
+            f"FUNCTION_BLOCK {name}",
+            "VAR_INPUT",
+            f"    x : {ty};",
+            "    reset : BOOL;",
+            "    track : BOOL;",
+            f"    track_value : {ty};",
+            "END_VAR",
+            "VAR_OUTPUT",
+            f"    y : {ty};",
+            "END_VAR",
+            "VAR",
+        ]
+    )
     fields = _state_fields(real)
     names = [f"{n}{j}" for n, k in fields for j in range(k)]
     lines += [f"    {n} : {ty};" for n in names]
-    lines += [f"    v : {ty};", f"    acc : {ty};", f"    yy : {ty};", f"    t : {ty};", f"    w : {ty};", "END_VAR", ""]
+    lines += [
+        f"    v : {ty};",
+        f"    acc : {ty};",
+        f"    yy : {ty};",
+        f"    t : {ty};",
+        f"    w : {ty};",
+        "END_VAR",
+        "",
+    ]
     lines.append("IF reset THEN")
     lines += [f"    {n} := 0.0;" for n in names] or ["    v := 0.0;"]
     lines.append("END_IF;")
@@ -319,10 +369,12 @@ def _st_set_output(real: Realized, single: bool) -> list[str]:
         from convert.digital.arithmetic import level_factor
 
         cast = np.float32 if single else float
-        return [f"    s{i}_s{k} := track_value * {_st_real(float(level_factor(s.a, k, cast)), single)};"
-                for k in range(m)]
-    return [f"    s{i}_s0 := track_value;"] + [f"    s{i}_s{k} := {_st_real(s.a[k], single)} * track_value;"
-                                             for k in range(1, m)]
+        return [
+            f"    s{i}_s{k} := track_value * {_st_real(float(level_factor(s.a, k, cast)), single)};" for k in range(m)
+        ]
+    return [f"    s{i}_s0 := track_value;"] + [
+        f"    s{i}_s{k} := {_st_real(s.a[k], single)} * track_value;" for k in range(1, m)
+    ]
 
 
 def _st_section(real: Realized, i: int, s, single: bool) -> list[str]:

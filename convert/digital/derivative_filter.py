@@ -25,9 +25,11 @@ def derivative_filter_time_constant(controller: Controller, n: float) -> float |
     m = len(q) - 1
     q0 = q[-1]
     if q0 == 0 or abs(q0) <= 1e-14 * float(np.max(np.abs(q))):
-        raise InputError("the improper part has no proportional term, so the derivative time Td (and the filter "
-                         "tau = Td/N) is undefined; write the filter into the expression, e.g. s/(0.01*s+1)",
-                         key="filter")
+        raise InputError(
+            "the improper part has no proportional term, so the derivative time Td (and the filter "
+            "tau = Td/N) is undefined; write the filter into the expression, e.g. s/(0.01*s+1)",
+            key="filter",
+        )
     ratio = q[0] / q0
     td = abs(ratio) ** (1.0 / m)
     return td / n

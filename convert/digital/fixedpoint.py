@@ -143,8 +143,9 @@ def peak_gains(layout: Layout) -> list[float]:
 
 
 # ----------------------------------------------------------------------------- realize
-def realize(layout: Layout, word: WordFormat, *, input_range: float | None = None,
-            output_level: float | None = None) -> Realized:
+def realize(
+    layout: Layout, word: WordFormat, *, input_range: float | None = None, output_level: float | None = None
+) -> Realized:
     """Store ``layout`` in ``word``. Fixed point needs ``input_range`` (largest |input|, user
     units) and, for an integrating controller, ``output_level`` (largest |output|)."""
     r = float(input_range) if input_range else 1.0
@@ -164,10 +165,14 @@ def realize(layout: Layout, word: WordFormat, *, input_range: float | None = Non
         raise UnrealizableError(
             f"{word.name} is offered for the direct-form-I structures (direct1, sections) only: {layout.structure} "
             "keeps sums of products as states, which need more headroom than a word; use structure sections",
-            key="structure")
+            key="structure",
+        )
     if not input_range or not math.isfinite(r) or r <= 0:
-        raise InputError(f"{word.name} needs the input range (largest |error|, in controller input units) to scale "
-                         "its words, e.g. input_range = [-10, 10]", key="input_range")
+        raise InputError(
+            f"{word.name} needs the input range (largest |error|, in controller input units) to scale "
+            "its words, e.g. input_range = [-10, 10]",
+            key="input_range",
+        )
     gains = peak_gains(layout)
     scales = [r]
     bounds = []
@@ -176,10 +181,15 @@ def realize(layout: Layout, word: WordFormat, *, input_range: float | None = Non
             if i != len(gains) - 1:
                 raise UnrealizableError(
                     f"section {i + 1} of {len(gains)} follows a pole on the unit circle: its words have no bound from "
-                    f"the input range; {word.name} cannot hold it (two integrators?)", key="structure")
+                    f"the input range; {word.name} cannot hold it (two integrators?)",
+                    key="structure",
+                )
             if not output_level:
-                raise InputError(f"{word.name}: the controller integrates, so its output has no bound from the input "
-                                 "range; give output limits (the integrator saturates there)", key="output_limits")
+                raise InputError(
+                    f"{word.name}: the controller integrates, so its output has no bound from the input "
+                    "range; give output limits (the integrator saturates there)",
+                    key="output_limits",
+                )
             scales.append(u)
             bounds.append(math.inf)
         else:
@@ -195,16 +205,19 @@ def realize(layout: Layout, word: WordFormat, *, input_range: float | None = Non
         while True:
             frac = w - 1 - k
             if frac < 1:
-                raise UnrealizableError(f"section {i + 1}: coefficients up to {max(map(abs, coefs_b + coefs_a)):.3g} "
-                                        f"do not fit {word.name} words", key="word_format")
+                raise UnrealizableError(
+                    f"section {i + 1}: coefficients up to {max(map(abs, coefs_b + coefs_a)):.3g} "
+                    f"do not fit {word.name} words",
+                    key="word_format",
+                )
             bi = [quantize_coefficient(c, frac) for c in coefs_b]
             ai = [quantize_coefficient(c, frac) for c in coefs_a]
             if _keeps_integrator(layout, s):
                 ai[0] = -((1 << frac) + ai[1])  # 1 + a1 + a2 = 0 exactly: the pole stays at z = 1
             allc = bi + ai
-            if (max(abs(c) for c in allc) <= word.word_max
-                    and (1 << (w - 1)) * (sum(abs(c) for c in allc) + len(bi) + 1) + (1 << (w - 2))
-                    < (1 << (word.accumulator_bits - 1))):
+            if max(abs(c) for c in allc) <= word.word_max and (1 << (w - 1)) * (
+                sum(abs(c) for c in allc) + len(bi) + 1
+            ) + (1 << (w - 2)) < (1 << (word.accumulator_bits - 1)):
                 break
             k += 1
         # extra numerator bits: the feed-forward sum is formed at 2^(frac+e) and rounded down by e
@@ -212,14 +225,24 @@ def realize(layout: Layout, word: WordFormat, *, input_range: float | None = Non
         e = 0
         while e < w:
             nb = [quantize_coefficient(c, frac + e + 1) for c in coefs_b]
-            if not (max(map(abs, nb)) <= word.word_max
-                    and (1 << (w - 1)) * sum(map(abs, nb)) + (1 << (frac + e)) < (1 << (word.accumulator_bits - 1))):
+            if not (
+                max(map(abs, nb)) <= word.word_max
+                and (1 << (w - 1)) * sum(map(abs, nb)) + (1 << (frac + e)) < (1 << (word.accumulator_bits - 1))
+            ):
                 break
             e += 1
             bi = nb
         den = float(1 << frac)
-        stored.append(StoredSection(tuple(c / float(1 << (frac + e)) for c in bi), (1.0,) + tuple(c / den for c in ai),
-                                    tuple(bi), (1 << frac,) + tuple(ai), frac, e))
+        stored.append(
+            StoredSection(
+                tuple(c / float(1 << (frac + e)) for c in bi),
+                (1.0,) + tuple(c / den for c in ai),
+                tuple(bi),
+                (1 << frac,) + tuple(ai),
+                frac,
+                e,
+            )
+        )
     return Realized(layout, word, tuple(stored), r, u, tuple(scales), tuple(bounds))
 
 

@@ -63,10 +63,10 @@ def foh(analog: Controller, src: RootForm, t: float) -> tuple[RootForm, list[str
         return RootForm((), (), d, t), []
     em = np.zeros((n + 2, n + 2))
     em[:n, :n] = a * t
-    em[:n, n:n + 1] = b * t
+    em[:n, n : n + 1] = b * t
     em[n, n + 1] = 1.0
     e = ss.expm(em)
-    phi, g1, g2 = e[:n, :n], e[:n, n:n + 1], e[:n, n + 1:]
+    phi, g1, g2 = e[:n, :n], e[:n, n : n + 1], e[:n, n + 1 :]
     bd = g1 - g2 + phi @ g2
     dd = float(d + (c @ g2)[0, 0])
     poles = np.exp(np.asarray(src.poles) * t)
@@ -87,7 +87,9 @@ def impulse(analog: Controller, src: RootForm, t: float) -> tuple[RootForm, list
     poles = np.exp(np.asarray(src.poles) * t)
     notes = []
     if d != 0.0:
-        notes.append(f"impulse: the direct term {d:.6g} passes unchanged (T-scaling applies to the strictly proper part only)")
+        notes.append(
+            f"impulse: the direct term {d:.6g} passes unchanged (T-scaling applies to the strictly proper part only)"
+        )
     return _state_space_result(poles, phi, bd, c, dd, t), notes
 
 
@@ -104,28 +106,45 @@ def tustin(analog: Controller, src: RootForm, t: float, prewarp_hz: float | None
     c2 = 2.0 / tw
     for p in src.poles:
         if abs(c2 - p) <= 1e-12 * c2:
-            raise UnrealizableError(f"the pole at s = {p:.6g} maps to z = infinity under Tustin at this rate; change fs",
-                                    key="method")
+            raise UnrealizableError(
+                f"the pole at s = {p:.6g} maps to z = infinity under Tustin at this rate; change fs", key="method"
+            )
     gain = src.gain * np.prod([c2 - z for z in src.zeros]) / np.prod([c2 - p for p in src.poles])
-    res = RootForm(tuple([(c2 + z) / (c2 - z) for z in src.zeros] + [-1.0] * src.relative_degree),
-                   tuple((c2 + p) / (c2 - p) for p in src.poles), float(np.real(gain)), t)
+    res = RootForm(
+        tuple([(c2 + z) / (c2 - z) for z in src.zeros] + [-1.0] * src.relative_degree),
+        tuple((c2 + p) / (c2 - p) for p in src.poles),
+        float(np.real(gain)),
+        t,
+    )
     return res, notes
 
 
 def forward_euler(analog: Controller, src: RootForm, t: float) -> tuple[RootForm, list[str]]:
     """s = (z−1)/T: roots map by z = 1 + sT; zeros at infinity stay there (gain k·T^r)."""
-    return RootForm(tuple(1 + z * t for z in src.zeros), tuple(1 + p * t for p in src.poles),
-                    src.gain * t ** src.relative_degree, t), []
+    return RootForm(
+        tuple(1 + z * t for z in src.zeros), tuple(1 + p * t for p in src.poles), src.gain * t**src.relative_degree, t
+    ), []
 
 
 def backward_euler(analog: Controller, src: RootForm, t: float) -> tuple[RootForm, list[str]]:
     """s = (z−1)/(zT): roots map by z = 1/(1 − sT); zeros at infinity go to z = 0."""
-    gain = src.gain * t ** src.relative_degree * np.prod([1 - z * t for z in src.zeros]) / np.prod([1 - p * t for p in src.poles])
+    gain = (
+        src.gain
+        * t**src.relative_degree
+        * np.prod([1 - z * t for z in src.zeros])
+        / np.prod([1 - p * t for p in src.poles])
+    )
     for p in src.poles:
         if abs(1 - p * t) <= 1e-15:
-            raise UnrealizableError(f"the pole at s = {p:.6g} maps to z = infinity under backward Euler; change fs", key="method")
-    return RootForm(tuple([1 / (1 - z * t) for z in src.zeros] + [0.0] * src.relative_degree),
-                    tuple(1 / (1 - p * t) for p in src.poles), float(np.real(gain)), t), []
+            raise UnrealizableError(
+                f"the pole at s = {p:.6g} maps to z = infinity under backward Euler; change fs", key="method"
+            )
+    return RootForm(
+        tuple([1 / (1 - z * t) for z in src.zeros] + [0.0] * src.relative_degree),
+        tuple(1 / (1 - p * t) for p in src.poles),
+        float(np.real(gain)),
+        t,
+    ), []
 
 
 def default_match_frequency_hz(src: RootForm, fs_hz: float) -> tuple[float, str]:
@@ -141,8 +160,9 @@ def default_match_frequency_hz(src: RootForm, fs_hz: float) -> tuple[float, str]
     return cap, "fs/100 (the controller has no corner other than s = 0)"
 
 
-def matched(analog: Controller, src: RootForm, t: float, match_at_hz: float | None = None,
-            keep_delay: bool = False) -> tuple[RootForm, list[str]]:
+def matched(
+    analog: Controller, src: RootForm, t: float, match_at_hz: float | None = None, keep_delay: bool = False
+) -> tuple[RootForm, list[str]]:
     """Matched pole-zero: poles and finite zeros by z = e^{sT}; the r zeros at infinity go to
     z = −1, except one kept as a one-sample delay when ``keep_delay``; gain matched at DC, or at
     ``match_at_hz`` (|C_d(e^{jωT})| = |C(jω)|, sign from the phase) when asked or when the
@@ -152,18 +172,26 @@ def matched(analog: Controller, src: RootForm, t: float, match_at_hz: float | No
     n_minus_one = max(r - 1, 0) if keep_delay else r
     if keep_delay and r == 0:
         notes.append("matched: keep_delay had nothing to keep (the controller has as many zeros as poles)")
-    shape = RootForm(tuple([np.exp(z * t) for z in src.zeros] + [-1.0] * n_minus_one),
-                     tuple(np.exp(p * t) for p in src.poles), 1.0, t)
-    at_origin = any(abs(x) <= 1e-12 * max(1.0, max(abs(y) for y in list(src.zeros) + list(src.poles)))
-                    for x in list(src.zeros) + list(src.poles))
+    shape = RootForm(
+        tuple([np.exp(z * t) for z in src.zeros] + [-1.0] * n_minus_one),
+        tuple(np.exp(p * t) for p in src.poles),
+        1.0,
+        t,
+    )
+    at_origin = any(
+        abs(x) <= 1e-12 * max(1.0, max(abs(y) for y in list(src.zeros) + list(src.poles)))
+        for x in list(src.zeros) + list(src.poles)
+    )
     fs = 1.0 / t
     if match_at_hz is None and not at_origin:
         gain = src.at(0.0) / shape.unit_gain_at(1.0)
         return RootForm(shape.zeros, shape.poles, float(np.real(gain)), t), notes
     if match_at_hz is None:
         match_at_hz, why = default_match_frequency_hz(src, fs)
-        notes.append(f"matched: the controller has a pole or zero at s = 0, so gain is matched at "
-                     f"{match_at_hz:.6g} Hz ({why}); choose it with --match-at (API: match_at_hz)")
+        notes.append(
+            f"matched: the controller has a pole or zero at s = 0, so gain is matched at "
+            f"{match_at_hz:.6g} Hz ({why}); choose it with --match-at (API: match_at_hz)"
+        )
     else:
         notes.append(f"matched: gain matched at {match_at_hz:.6g} Hz as asked")
     w = 2 * math.pi * match_at_hz

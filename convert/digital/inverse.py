@@ -41,19 +41,25 @@ def _refuse_negative_axis(roots, what: str, method: str) -> None:
                 f"the {what} at z = 0 has no continuous equivalent under {method} (ln 0 is undefined); "
                 "it is a pure delay or a finite-memory (FIR) term: keep that part digital, or account for it "
                 "as computation delay (--delay) and convert the rest; a PID whose derivative is a backward "
-                "difference has this pole: read it with --method backward-euler", key="controller")
+                "difference has this pole: read it with --method backward-euler",
+                key="controller",
+            )
         if r.real < 0 and abs(r.imag) <= _TOL * max(1.0, abs(r)):
             raise UnrealizableError(
                 f"the {what} at z = {_root_text(r)} lies on the negative real axis; under {method} it has no real "
                 "continuous equivalent (its logarithm is complex and has no conjugate partner). It oscillates at fs/2; "
-                "remove it (it is usually ringing from a sampled design), or try --method tustin", key="controller")
+                "remove it (it is usually ringing from a sampled design), or try --method tustin",
+                key="controller",
+            )
 
 
 def _delay_refusal(rd: int, method: str, extra: str) -> UnrealizableError:
     return UnrealizableError(
         f"the controller has {rd} sample{'s' if rd > 1 else ''} of pure delay (b0 = 0: more poles than zeros in z) "
         f"with no causal continuous equivalent under {method}{extra}; give it without the delay and pass the delay "
-        "to the comparison (--delay 1sample), or use --method zoh", key="controller")
+        "to the comparison (--delay 1sample), or use --method zoh",
+        key="controller",
+    )
 
 
 @dataclass(frozen=True)
@@ -67,8 +73,14 @@ class AnalogReading:
 
 
 @ss.small_dense
-def to_analog(digital: Controller, method: str, prewarp_hz: float | None = None, *,
-              match_at_hz: float | None = None, den_radius=None) -> Controller:
+def to_analog(
+    digital: Controller,
+    method: str,
+    prewarp_hz: float | None = None,
+    *,
+    match_at_hz: float | None = None,
+    den_radius=None,
+) -> Controller:
     """The analog controller whose ``method`` discretization is ``digital``.
 
     ``prewarp_hz`` (Hz) applies to ``tustin`` and must equal the one used going forward;
@@ -81,16 +93,24 @@ def to_analog(digital: Controller, method: str, prewarp_hz: float | None = None,
     return read_analog(digital, method, prewarp_hz, match_at_hz=match_at_hz, den_radius=den_radius).controller
 
 
-def read_analog(digital: Controller, method: str, prewarp_hz: float | None = None, *,
-                match_at_hz: float | None = None, den_radius=None) -> AnalogReading:
+def read_analog(
+    digital: Controller,
+    method: str,
+    prewarp_hz: float | None = None,
+    *,
+    match_at_hz: float | None = None,
+    den_radius=None,
+) -> AnalogReading:
     """:func:`to_analog` with the notes of what was read into the result (see
     :class:`AnalogReading`)."""
     if not isinstance(digital, Controller) or not digital.is_digital:
-        raise InputError("to_analog needs a digital controller (an expression in z with a sample rate)",
-                         key="controller")
+        raise InputError(
+            "to_analog needs a digital controller (an expression in z with a sample rate)", key="controller"
+        )
     if method not in INVERSE_METHODS:
-        raise InputError(f"no inverse for method {method!r}; expected one of {', '.join(INVERSE_METHODS)}",
-                         key="method")
+        raise InputError(
+            f"no inverse for method {method!r}; expected one of {', '.join(INVERSE_METHODS)}", key="method"
+        )
     if not digital.is_proper:
         raise InputError("the digital controller is improper (non-causal): it needs future inputs", key="controller")
     t = digital.sample_period_s
@@ -99,8 +119,10 @@ def read_analog(digital: Controller, method: str, prewarp_hz: float | None = Non
         if method != "tustin":
             raise InputError(f"a prewarp frequency applies to tustin only, not {method}", key="prewarp")
         if not (math.isfinite(prewarp_hz) and 0 < prewarp_hz < fs / 2):
-            raise InputError(f"the prewarp frequency must lie between 0 and fs/2 = {fs / 2:.6g} Hz, found {prewarp_hz!r}",
-                             key="prewarp")
+            raise InputError(
+                f"the prewarp frequency must lie between 0 and fs/2 = {fs / 2:.6g} Hz, found {prewarp_hz!r}",
+                key="prewarp",
+            )
     from convert.digital.printed import printed_integrators
 
     digital, notes = printed_integrators(digital, den_radius)
@@ -139,10 +161,12 @@ def _backward_difference_hint(dz: RootForm, t: float, analog: Controller) -> str
     if pid is None or pid.kd <= 0:
         return None
     sign = -1 if pid.action == "direct" else 1
-    return (f"the pole at z = 0 reads under tustin as a derivative filter with time constant T/2 = {t / 2:.3g} s (a "
-            f"pole at fs/pi = {1 / (math.pi * t):.4g} Hz); it is what a backward-difference derivative gives: read with "
-            f"--method backward-euler this is the unfiltered PID kp = {sign * pid.kp:.6g}, ki = {sign * pid.ki:.6g} /s, "
-            f"kd = {sign * pid.kd:.6g} s")
+    return (
+        f"the pole at z = 0 reads under tustin as a derivative filter with time constant T/2 = {t / 2:.3g} s (a "
+        f"pole at fs/pi = {1 / (math.pi * t):.4g} Hz); it is what a backward-difference derivative gives: read with "
+        f"--method backward-euler this is the unfiltered PID kp = {sign * pid.kp:.6g}, ki = {sign * pid.ki:.6g} /s, "
+        f"kd = {sign * pid.kd:.6g} s"
+    )
 
 
 def _unfiltered_note(analog: Controller, count: int) -> str:
@@ -155,16 +179,21 @@ def _unfiltered_note(analog: Controller, count: int) -> str:
         ideal = pid.table().get("ideal", {})
         td = ideal.get("td_s")
         sign = -1 if pid.action == "direct" else 1
-        text = (f"kp = {sign * pid.kp:.6g}, ki = {sign * pid.ki:.6g} /s, kd = {sign * pid.kd:.6g} s"
-                + (f" (Td = {td:.4g} s)" if td else ""))
+        text = f"kp = {sign * pid.kp:.6g}, ki = {sign * pid.ki:.6g} /s, kd = {sign * pid.kd:.6g} s" + (
+            f" (Td = {td:.4g} s)" if td else ""
+        )
         filt = f"; e.g. N = 10 would give Tf = Td/10 = {td / 10:.3g} s" if td else ""
-        return (f"the pole at z = 0 is a backward difference: the derivative has no filter, and the analog equivalent "
-                f"is the unfiltered PID {text}. It lacks a derivative filter (Tf = 0): a circuit, or this controller "
-                f"under another method, needs one added (--derivative-filter N){filt}")
+        return (
+            f"the pole at z = 0 is a backward difference: the derivative has no filter, and the analog equivalent "
+            f"is the unfiltered PID {text}. It lacks a derivative filter (Tf = 0): a circuit, or this controller "
+            f"under another method, needs one added (--derivative-filter N){filt}"
+        )
     extra = analog.relative_degree * -1
-    return (f"{count} pole{'s' if count > 1 else ''} at z = 0 {'are' if count > 1 else 'is a'} backward "
-            f"difference{'s' if count > 1 else ''}: the analog equivalent has {extra} more zero{'s' if extra > 1 else ''} "
-            "than poles (unfiltered derivative action); a circuit or another method needs a derivative filter added")
+    return (
+        f"{count} pole{'s' if count > 1 else ''} at z = 0 {'are' if count > 1 else 'is a'} backward "
+        f"difference{'s' if count > 1 else ''}: the analog equivalent has {extra} more zero{'s' if extra > 1 else ''} "
+        "than poles (unfiltered derivative action); a circuit or another method needs a derivative filter added"
+    )
 
 
 def _from_tustin(dz: RootForm, t: float, prewarp_hz: float | None) -> RootForm:
@@ -173,8 +202,11 @@ def _from_tustin(dz: RootForm, t: float, prewarp_hz: float | None) -> RootForm:
         raise _delay_refusal(dz.relative_degree, "tustin", " (it would need right-half-plane zeros at s = 2/T)")
     for p in dz.poles:
         if abs(p + 1) <= _TOL:
-            raise UnrealizableError("the pole at z = -1 maps to s = infinity under tustin: no proper continuous "
-                                    "equivalent; remove it or use another method", key="controller")
+            raise UnrealizableError(
+                "the pole at z = -1 maps to s = infinity under tustin: no proper continuous "
+                "equivalent; remove it or use another method",
+                key="controller",
+            )
     half = tw / 2
     return _substituted(dz, -1.0, np.array([half, 1.0]), np.array([-half, 1.0]))
 

@@ -61,7 +61,7 @@ class PidBlock:
     word_format: str = "float64"
 
     @classmethod
-    def from_settings(cls, settings, fs_hz: float, **kw) -> "PidBlock":
+    def from_settings(cls, settings, fs_hz: float, **kw) -> PidBlock:
         """From :class:`convert.pid.PidSettings`; ``tracking_time_s`` defaults by the rule of thumb."""
         if not (math.isfinite(fs_hz) and fs_hz > 0):
             raise InputError(f"expected a positive sample rate, found {fs_hz!r}", key="fs")
@@ -83,8 +83,21 @@ class PidBlock:
             tt = math.sqrt(ti * td) if td > 0 else ti
         if tt is not None and not (math.isfinite(tt) and tt > 0):
             raise InputError(f"expected a positive tracking time constant, found {tt!r}", key="tracking_time")
-        return cls(settings.kp, settings.ki, settings.kd, settings.tf, settings.b, settings.c, settings.sign, fs_hz,
-                   form, tuple(lim) if lim else None, aw, tt, kw.get("word_format", "float64"))
+        return cls(
+            settings.kp,
+            settings.ki,
+            settings.kd,
+            settings.tf,
+            settings.b,
+            settings.c,
+            settings.sign,
+            fs_hz,
+            form,
+            tuple(lim) if lim else None,
+            aw,
+            tt,
+            kw.get("word_format", "float64"),
+        )
 
     @property
     def sample_period_s(self) -> float:
@@ -94,11 +107,17 @@ class PidBlock:
         """The per-sample constants in float64 (the model and the code store them in the format)."""
         t = self.sample_period_s
         s = self.sign
-        return {"kp": s * self.kp, "b": self.b, "c": self.c, "bi": s * self.ki * t,
-                "ad": self.tf / (self.tf + t), "bd": s * self.kd / (self.tf + t),
-                "ao": t / self.tracking_time_s if (self.tracking_time_s and self.anti_windup == "track") else 0.0}
+        return {
+            "kp": s * self.kp,
+            "b": self.b,
+            "c": self.c,
+            "bi": s * self.ki * t,
+            "ad": self.tf / (self.tf + t),
+            "bd": s * self.kd / (self.tf + t),
+            "ao": t / self.tracking_time_s if (self.tracking_time_s and self.anti_windup == "track") else 0.0,
+        }
 
-    def model(self) -> "PidModel":
+    def model(self) -> PidModel:
         return PidModel(self)
 
 
@@ -193,27 +212,60 @@ def emit_pid_c(block: PidBlock, name: str, *, source: str = "") -> dict[str, str
         f"kd = {block.sign * block.kd:.10g} s, derivative filter Tf = {block.tf:.10g} s; setpoint weights "
         f"b = {block.b:.6g}, c = {block.c:.6g}.",
         f"Output limits: {lim[0]:.10g} .. {lim[1]:.10g}" if lim else "Output limits: none (no clamp in this block)",
-        f"Anti-windup: {block.anti_windup}" + (f", tracking time constant Tt = {block.tracking_time_s:.6g} s"
-                                               if block.anti_windup == "track" else ""),
+        f"Anti-windup: {block.anti_windup}"
+        + (f", tracking time constant Tt = {block.tracking_time_s:.6g} s" if block.anti_windup == "track" else ""),
         "Call NAME_step once per sample; NAME_set_output(st, u, setpoint, measurement) before switching",
         "from manual to automatic makes the next output equal u (bumpless transfer).",
     ]
-    h = ["/*"] + [f" * {x.replace('NAME', name)}" for x in head] + [" */", f"#ifndef {name.upper()}_H",
-         f"#define {name.upper()}_H", "", "#include <stdint.h>", "", "typedef struct {",
-         f"    {t} i, d, ds_old, u_old, p_old, d_old, e_old;", f"}} {name}_state;", "",
-         f"void {name}_reset({name}_state *st);",
-         f"{t} {name}_step({name}_state *st, {t} setpoint, {t} measurement);",
-         f"void {name}_set_output({name}_state *st, {t} u, {t} setpoint, {t} measurement);", "", "#endif", ""]
-    c = [f'#include "{name}.h"', "", f"void {name}_reset({name}_state *st)", "{",
-         "    st->i = 0; st->d = 0; st->ds_old = 0; st->u_old = 0; st->p_old = 0; st->d_old = 0; st->e_old = 0;",
-         "}", "", f"void {name}_set_output({name}_state *st, {t} u, {t} r, {t} y)", "{",
-         f"    {t} p = {lit(k['kp'])} * ({lit(k['b'])} * r - y);", f"    {name}_reset(st);",
-         f"    st->ds_old = {lit(k['c'])} * r - y;"]
-    c += (["    st->i = u - p;"] if block.form == "positional" else ["    st->u_old = u;", "    st->p_old = p;"])
-    c += ["}", "", f"{t} {name}_step({name}_state *st, {t} r, {t} y)", "{",
-          f"    {t} e = r - y;", f"    {t} p = {lit(k['kp'])} * ({lit(k['b'])} * r - y);",
-          f"    {t} ds = {lit(k['c'])} * r - y;", f"    {t} v, u;",
-          f"    st->d = {lit(k['ad'])} * st->d + {lit(k['bd'])} * (ds - st->ds_old);", "    st->ds_old = ds;"]
+    h = (
+        ["/*"]
+        + [f" * {x.replace('NAME', name)}" for x in head]
+        + [
+            " */",
+            f"#ifndef {name.upper()}_H",
+            f"#define {name.upper()}_H",
+            "",
+            "#include <stdint.h>",
+            "",
+            "typedef struct {",
+            f"    {t} i, d, ds_old, u_old, p_old, d_old, e_old;",
+            f"}} {name}_state;",
+            "",
+            f"void {name}_reset({name}_state *st);",
+            f"{t} {name}_step({name}_state *st, {t} setpoint, {t} measurement);",
+            f"void {name}_set_output({name}_state *st, {t} u, {t} setpoint, {t} measurement);",
+            "",
+            "#endif",
+            "",
+        ]
+    )
+    c = [
+        f'#include "{name}.h"',
+        "",
+        f"void {name}_reset({name}_state *st)",
+        "{",
+        "    st->i = 0; st->d = 0; st->ds_old = 0; st->u_old = 0; st->p_old = 0; st->d_old = 0; st->e_old = 0;",
+        "}",
+        "",
+        f"void {name}_set_output({name}_state *st, {t} u, {t} r, {t} y)",
+        "{",
+        f"    {t} p = {lit(k['kp'])} * ({lit(k['b'])} * r - y);",
+        f"    {name}_reset(st);",
+        f"    st->ds_old = {lit(k['c'])} * r - y;",
+    ]
+    c += ["    st->i = u - p;"] if block.form == "positional" else ["    st->u_old = u;", "    st->p_old = p;"]
+    c += [
+        "}",
+        "",
+        f"{t} {name}_step({name}_state *st, {t} r, {t} y)",
+        "{",
+        f"    {t} e = r - y;",
+        f"    {t} p = {lit(k['kp'])} * ({lit(k['b'])} * r - y);",
+        f"    {t} ds = {lit(k['c'])} * r - y;",
+        f"    {t} v, u;",
+        f"    st->d = {lit(k['ad'])} * st->d + {lit(k['bd'])} * (ds - st->ds_old);",
+        "    st->ds_old = ds;",
+    ]
 
     def clamp(var):
         if not lim:
@@ -229,10 +281,12 @@ def emit_pid_c(block: PidBlock, name: str, *, source: str = "") -> dict[str, str
         if block.anti_windup == "track":
             c.append(f"    st->i = st->i + {lit(k['bi'])} * e + {lit(k['ao'])} * (u - v);")
         elif block.anti_windup == "clamp" and lim:
-            c += [f"    {{ {t} step = {lit(k['bi'])} * e;",
-                  f"      if ((v >= {lit(lim[0])} && v <= {lit(lim[1])}) || (v > {lit(lim[1])} && step < 0) || "
-                  f"(v < {lit(lim[0])} && step > 0))",
-                  "          st->i = st->i + step; }"]
+            c += [
+                f"    {{ {t} step = {lit(k['bi'])} * e;",
+                f"      if ((v >= {lit(lim[0])} && v <= {lit(lim[1])}) || (v > {lit(lim[1])} && step < 0) || "
+                f"(v < {lit(lim[0])} && step > 0))",
+                "          st->i = st->i + step; }",
+            ]
         else:
             c.append(f"    st->i = st->i + {lit(k['bi'])} * e;")
         c += ["    (void)st->e_old;", "    return u;", "}", ""]

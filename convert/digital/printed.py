@@ -25,7 +25,7 @@ from __future__ import annotations
 
 import math
 from decimal import Decimal, InvalidOperation
-from typing import Sequence
+from collections.abc import Sequence
 
 import numpy as np
 
@@ -70,7 +70,7 @@ def printed_radius(value, digits: int | None = None) -> float:
     exponent = d.as_tuple().exponent
     if not isinstance(exponent, int):
         return 0.0
-    radius = 0.5 * 10.0 ** exponent
+    radius = 0.5 * 10.0**exponent
     if digits:
         lead = d.adjusted()  # decimal exponent of the leading digit
         radius = min(radius, 0.5 * 10.0 ** (lead - digits + 1))
@@ -151,8 +151,7 @@ def snap_to_integrators(den: Sequence[float], radius: Sequence[float]) -> tuple[
     return best, best_m
 
 
-def printed_integrators(digital: Controller, den_radius: Sequence[float] | None = None
-                        ) -> tuple[Controller, list[str]]:
+def printed_integrators(digital: Controller, den_radius: Sequence[float] | None = None) -> tuple[Controller, list[str]]:
     """The digital controller with poles that lie within the rounding of its printed
     coefficients of z = 1 read as integrators, and a note for each move (empty when nothing moved).
 
@@ -162,8 +161,11 @@ def printed_integrators(digital: Controller, den_radius: Sequence[float] | None 
     if not digital.is_digital or len(digital.den) < 2:
         return digital, []
     den = np.asarray(digital.den, dtype=float)
-    radius = (np.array(printed_radii(list(den), list(digital.num))) if den_radius is None
-              else np.asarray(den_radius, dtype=float))
+    radius = (
+        np.array(printed_radii(list(den), list(digital.num)))
+        if den_radius is None
+        else np.asarray(den_radius, dtype=float)
+    )
     if radius.shape != den.shape:
         raise ValueError("den_radius must have one entry per denominator coefficient")
     before = _exact_integrators(digital)
@@ -185,16 +187,20 @@ def printed_integrators(digital: Controller, den_radius: Sequence[float] | None 
     largest = float(np.max(np.abs(snapped - den) / np.where(radius > 0, radius, 1.0)))
     count = m - before
     what = "an integrator" if count == 1 else f"{count} integrators"
-    note = (f"the pole{'s' if count > 1 else ''} at z = {shown} lie{'' if count > 1 else 's'} within the rounding of "
-            f"the printed coefficients (±{_radii_text(radius)}) of z = 1: read as {what}, each coefficient moved by at "
-            f"most {largest:.2g} of its rounding (taken literally: {', '.join(corners)})")
+    note = (
+        f"the pole{'s' if count > 1 else ''} at z = {shown} lie{'' if count > 1 else 's'} within the rounding of "
+        f"the printed coefficients (±{_radii_text(radius)}) of z = 1: read as {what}, each coefficient moved by at "
+        f"most {largest:.2g} of its rounding (taken literally: {', '.join(corners)})"
+    )
     notes = [note]
     num = np.asarray(digital.num, dtype=float)
     at_one, spread = float(np.sum(num)), float(np.sum(printed_radii(list(num), list(den))))
     if abs(at_one) <= spread:
-        notes.append(f"the numerator sums to {at_one:.3g} (±{spread:.2g} from its printed digits): the integral gain "
-                     "(the numerator at z = 1) is not carried by these digits and the integrator may cancel against a "
-                     "zero at z = 1; print the coefficients with more digits")
+        notes.append(
+            f"the numerator sums to {at_one:.3g} (±{spread:.2g} from its printed digits): the integral gain "
+            "(the numerator at z = 1) is not carried by these digits and the integrator may cancel against a "
+            "zero at z = 1; print the coefficients with more digits"
+        )
     return moved, notes
 
 

@@ -75,25 +75,57 @@ class FormatAnalysis:
         coefficients, overflow from the input range, integrator stall), pass or fail with the number."""
         name = f"{self.structure} / {self.word_format}"
         if self.refused:
-            return [dict(key="firmware_realizable", label=f"{name} can be built", unit="", limit=None, value=None,
-                         status="fail", note=self.refused)]
+            return [
+                dict(
+                    key="firmware_realizable",
+                    label=f"{name} can be built",
+                    unit="",
+                    limit=None,
+                    value=None,
+                    status="fail",
+                    note=self.refused,
+                )
+            ]
         fails = " ".join(self.failures)
-        out = [dict(key="firmware_stability", label=f"{name}: stored poles inside |z| = 1 (integrators apart)",
-                    unit="|z|", limit=1.0, value=self.free_pole_radius,
-                    status="fail" if ("unstable" in fails or "exactly at z = 1" in fails or "drift" in fails) else "pass",
-                    note=next((f for f in self.failures if "unstable" in f or "exactly at z = 1" in f or "drift" in f),
-                              f"largest |z| = {self.free_pole_radius:.10g} apart from the designed integrators (poles "
-                              "at z = 1), which count as kept when stored exactly or within a year's doubling time"))]
+        out = [
+            dict(
+                key="firmware_stability",
+                label=f"{name}: stored poles inside |z| = 1 (integrators apart)",
+                unit="|z|",
+                limit=1.0,
+                value=self.free_pole_radius,
+                status="fail" if ("unstable" in fails or "exactly at z = 1" in fails or "drift" in fails) else "pass",
+                note=next(
+                    (f for f in self.failures if "unstable" in f or "exactly at z = 1" in f or "drift" in f),
+                    f"largest |z| = {self.free_pole_radius:.10g} apart from the designed integrators (poles "
+                    "at z = 1), which count as kept when stored exactly or within a year's doubling time",
+                ),
+            )
+        ]
         if self.realized is not None and self.realized.word.is_fixed:
-            out.append(dict(key="firmware_overflow", label=f"{name}: no overflow for inputs within ±{self.input_range:.4g}",
-                            unit="dB headroom", limit=None, value=self.headroom_db,
-                            status="fail" if "overflow" in fails else "pass",
-                            note=next((f for f in self.failures if "overflow" in f), "peak-gain (L1) bound per node")))
+            out.append(
+                dict(
+                    key="firmware_overflow",
+                    label=f"{name}: no overflow for inputs within ±{self.input_range:.4g}",
+                    unit="dB headroom",
+                    limit=None,
+                    value=self.headroom_db,
+                    status="fail" if "overflow" in fails else "pass",
+                    note=next((f for f in self.failures if "overflow" in f), "peak-gain (L1) bound per node"),
+                )
+            )
         if self.stall_error is not None or "stall" in fails:
-            out.append(dict(key="firmware_stall", label=f"{name}: integrator moves at the input resolution",
-                            unit="input units", limit=self.stall_limit, value=self.stall_error,
-                            status="fail" if "stall" in fails else "pass",
-                            note=f"smallest error that moves the integral at output level {self.output_level:.4g}"))
+            out.append(
+                dict(
+                    key="firmware_stall",
+                    label=f"{name}: integrator moves at the input resolution",
+                    unit="input units",
+                    limit=self.stall_limit,
+                    value=self.stall_error,
+                    status="fail" if "stall" in fails else "pass",
+                    note=f"smallest error that moves the integral at output level {self.output_level:.4g}",
+                )
+            )
         return out
 
     @property
@@ -106,8 +138,10 @@ class FormatAnalysis:
             out["sections"] = [{"b": list(s.b), "a": list(s.a)} for s in self.realized.sections]
             if self.realized.word.is_fixed:
                 out["node_scales"] = list(self.realized.node_scales)
-                out["sections_int"] = [{"b": list(s.b_int), "a": list(s.a_int), "shift": s.shift, "b_shift": s.b_shift}
-                                       for s in self.realized.sections]
+                out["sections_int"] = [
+                    {"b": list(s.b_int), "a": list(s.a_int), "shift": s.shift, "b_shift": s.b_shift}
+                    for s in self.realized.sections
+                ]
             if self.realized.layout.delta_step:
                 out["delta_step_s"] = self.realized.layout.delta_step
         return out
@@ -134,9 +168,18 @@ def _match(exact, got) -> float:
     return worst
 
 
-def analyze(roots, structure: str, word_format: str | WordFormat, band_f_hz, *, b=None, a=None,
-            input_range: float | None = None, output_level: float | None = None,
-            input_resolution: float | None = None) -> FormatAnalysis:
+def analyze(
+    roots,
+    structure: str,
+    word_format: str | WordFormat,
+    band_f_hz,
+    *,
+    b=None,
+    a=None,
+    input_range: float | None = None,
+    output_level: float | None = None,
+    input_resolution: float | None = None,
+) -> FormatAnalysis:
     """Analyze the controller with z-domain ``roots`` (:class:`RootForm`; ``b``/``a`` its
     expanded polynomial for the direct forms) in ``structure`` × ``word_format`` over the band
     ``band_f_hz`` (Hz). ``input_range`` R and ``output_level`` U in controller input/output
@@ -150,9 +193,11 @@ def analyze(roots, structure: str, word_format: str | WordFormat, band_f_hz, *, 
         notes.append("output level U = 1 (no output limits given)")
     r = float(input_range) if input_range else default_input_range(roots, u)
     if not input_range:
-        notes.append(f"input range R = {r:.4g} (the error that drives the output to U through the largest gain "
-                     "between fs/1000 and fs/2)")
-    res = float(input_resolution) if input_resolution else r / 2 ** 15
+        notes.append(
+            f"input range R = {r:.4g} (the error that drives the output to U through the largest gain "
+            "between fs/1000 and fs/2)"
+        )
+    res = float(input_resolution) if input_resolution else r / 2**15
     base = dict(structure=layout.structure, word_format=word.name, input_range=r, output_level=u, stall_limit=res)
     try:
         real = realize(layout, word, input_range=input_range if word.is_fixed else r, output_level=u)
@@ -186,21 +231,29 @@ def analyze(roots, structure: str, word_format: str | WordFormat, band_f_hz, *, 
         if near is not None and abs(near - 1) < 1e-2 and abs(near) - 1 <= year:
             others.remove(near)
             if abs(near) > 1:
-                notes.append(f"the integrator pole is stored at |z| = 1 + {abs(near) - 1:.2g}: its drift doubles only "
-                             f"after {math.log(2) / math.log(abs(near)) * t / 86400 / 365.25:.3g} years")
+                notes.append(
+                    f"the integrator pole is stored at |z| = 1 + {abs(near) - 1:.2g}: its drift doubles only "
+                    f"after {math.log(2) / math.log(abs(near)) * t / 86400 / 365.25:.3g} years"
+                )
             else:
                 tc = t / max(1 - abs(near), 1e-300)
-                notes.append(f"the integrator pole moved from z = 1 to |z| = {abs(near):.12g}: it leaks with a time "
-                             f"constant of {tc:.4g} s (it no longer removes a steady error exactly)")
+                notes.append(
+                    f"the integrator pole moved from z = 1 to |z| = {abs(near):.12g}: it leaks with a time "
+                    f"constant of {tc:.4g} s (it no longer removes a steady error exactly)"
+                )
     unstable = tuple(p for p in others if abs(p) >= 1.0)
     free_radius = max((abs(p) for p in others), default=0.0)
     max_radius = max([abs(p) for p in all_q], default=0.0)
     if unstable:
         worst = max(unstable, key=abs)
-        failures.append(f"unstable: a pole of the stored coefficients at |z| = {abs(worst):.8g} "
-                        f"(z = {_c(worst)}); its output grows without bound")
+        failures.append(
+            f"unstable: a pole of the stored coefficients at |z| = {abs(worst):.8g} "
+            f"(z = {_c(worst)}); its output grows without bound"
+        )
     if got_ones > designed_ones:
-        failures.append(f"{got_ones - designed_ones} pole(s) exactly at z = 1 the design does not have (a new integrator)")
+        failures.append(
+            f"{got_ones - designed_ones} pole(s) exactly at z = 1 the design does not have (a new integrator)"
+        )
 
     # response
     resp = realized_response(real, f)
@@ -233,21 +286,41 @@ def analyze(roots, structure: str, word_format: str | WordFormat, band_f_hz, *, 
     if word.is_fixed:
         lc_lsb, lc, drift = _limit_cycles(real, layout, notes)
         for sec, moved in drift:
-            failures.append(f"integrator drift: section {sec} keeps moving by {moved} LSB per sample with zero input "
-                            "(rounding sustains it); use structure sections")
+            failures.append(
+                f"integrator drift: section {sec} keeps moving by {moved} LSB per sample with zero input "
+                "(rounding sustains it); use structure sections"
+            )
 
     stall = None
     if designed_ones:
         stall = _stall(real, layout, roots, r, u)
         if stall is None or stall > res:
             shown = "no error up to the input range" if stall is None else f"{stall:.4g}"
-            failures.append(f"integrator stall: at output level {u:.4g} the smallest error that still moves the "
-                            f"integral is {shown} (input units), above the resolution {res:.4g}")
-    return FormatAnalysis(**base, realized=real, coefficient_error=cerr, pole_shift=pole_shift, zero_shift=zero_shift,
-                          max_pole_radius=max_radius, free_pole_radius=free_radius, unstable_poles=unstable, response_error=float(rel[i]) if rel.size else 0.0,
-                          gain_error_db=gdb, phase_error_deg=pdeg, error_at_hz=float(f[i]) if f.size else None,
-                          node_bounds=bounds, headroom_db=headroom, limit_cycle=lc, limit_cycle_lsb=lc_lsb,
-                          stall_error=stall, failures=tuple(failures), notes=tuple(notes))
+            failures.append(
+                f"integrator stall: at output level {u:.4g} the smallest error that still moves the "
+                f"integral is {shown} (input units), above the resolution {res:.4g}"
+            )
+    return FormatAnalysis(
+        **base,
+        realized=real,
+        coefficient_error=cerr,
+        pole_shift=pole_shift,
+        zero_shift=zero_shift,
+        max_pole_radius=max_radius,
+        free_pole_radius=free_radius,
+        unstable_poles=unstable,
+        response_error=float(rel[i]) if rel.size else 0.0,
+        gain_error_db=gdb,
+        phase_error_deg=pdeg,
+        error_at_hz=float(f[i]) if f.size else None,
+        node_bounds=bounds,
+        headroom_db=headroom,
+        limit_cycle=lc,
+        limit_cycle_lsb=lc_lsb,
+        stall_error=stall,
+        failures=tuple(failures),
+        notes=tuple(notes),
+    )
 
 
 def realized_response(real: Realized, f_hz) -> np.ndarray:
@@ -324,7 +397,7 @@ def _limit_cycles(real: Realized, layout, notes: list[str]) -> tuple[int, float]
                 drift.append((i + 1, moved))
             continue
         radius = max(abs(p) for p in s0.poles)
-        need = math.log(2.0 ** w.bits) / max(-math.log(max(radius, 1e-300)), 1e-300) + 200
+        need = math.log(2.0**w.bits) / max(-math.log(max(radius, 1e-300)), 1e-300) + 200
         n = int(min(LIMIT_CYCLE_SAMPLES, need))
         if need > LIMIT_CYCLE_SAMPLES:
             undecided.append(i + 1)
@@ -339,18 +412,27 @@ def _limit_cycles(real: Realized, layout, notes: list[str]) -> tuple[int, float]
                 amp = np.maximum(amp, np.abs(new))
         lsb = int(amp.max())
         if m == 2:
-            a1, a2 = (float(v) / 2 ** s.shift for v in s.a_int[1:])
-            bounds.append(max(0.5 / max(1 - abs(a2), 1e-300), 0.5 / max(abs(1 + a1 + a2), 1e-300),
-                              0.5 / max(abs(1 - a1 + a2), 1e-300)))
+            a1, a2 = (float(v) / 2**s.shift for v in s.a_int[1:])
+            bounds.append(
+                max(
+                    0.5 / max(1 - abs(a2), 1e-300),
+                    0.5 / max(abs(1 + a1 + a2), 1e-300),
+                    0.5 / max(abs(1 - a1 + a2), 1e-300),
+                )
+            )
         if lsb > worst_lsb:
             worst_lsb, worst_units = lsb, lsb * real.node_scales[i + 1] / 2 ** (w.bits - 1)
     if undecided:
-        notes.append(f"limit-cycle search: section(s) {', '.join(map(str, undecided))} decay too slowly to decide within "
-                     f"{LIMIT_CYCLE_SAMPLES} samples")
+        notes.append(
+            f"limit-cycle search: section(s) {', '.join(map(str, undecided))} decay too slowly to decide within "
+            f"{LIMIT_CYCLE_SAMPLES} samples"
+        )
     if worst_lsb:
         bound = f"; the effective-value bound of the second-order sections is {max(bounds):.3g} LSB" if bounds else ""
-        notes.append(f"limit cycle with zero input: the search from {LIMIT_CYCLE_TRIALS} random states found up to "
-                     f"{worst_lsb} LSB ({worst_units:.3g} in that node's units){bound}")
+        notes.append(
+            f"limit cycle with zero input: the search from {LIMIT_CYCLE_TRIALS} random states found up to "
+            f"{worst_lsb} LSB ({worst_units:.3g} in that node's units){bound}"
+        )
     return worst_lsb, worst_units, drift
 
 
@@ -362,7 +444,7 @@ def _drift(s, s0, w, rng) -> int:
     m = a.size
     others = [abs(p) for p in s0.poles if abs(p) < 1 - 1e-12]
     radius = max(others, default=0.0)
-    settle = int(min(LIMIT_CYCLE_SAMPLES, math.log(2.0 ** w.bits) / max(-math.log(max(radius, 1e-300)), 1e-9) + 1))
+    settle = int(min(LIMIT_CYCLE_SAMPLES, math.log(2.0**w.bits) / max(-math.log(max(radius, 1e-300)), 1e-9) + 1))
     y = rng.integers(-64, 64, size=(m, LIMIT_CYCLE_TRIALS), dtype=np.int64)
     half = np.int64(1 << (s.shift - 1)) if w.rounding == "half-up" else np.int64(0)
     step = np.zeros(LIMIT_CYCLE_TRIALS, dtype=np.int64)
@@ -454,8 +536,15 @@ def ramp_state(model, real: Realized, layout, e: float, u: float, slope: float) 
             states.append(([v_in] * (len(s.b) - 1), hist))
         elif form == "df2t":
             bb, aa = s.b, s.a
-            states.append([sum(bb[j] * v_in - aa[j] * (u - (j - k) * slope * e if integ else v_out)
-                               for j in range(k + 1, s.order + 1)) for k in range(s.order)])
+            states.append(
+                [
+                    sum(
+                        bb[j] * v_in - aa[j] * (u - (j - k) * slope * e if integ else v_out)
+                        for j in range(k + 1, s.order + 1)
+                    )
+                    for k in range(s.order)
+                ]
+            )
         else:  # delta: the next output is v_out (w = 0 for a settled section; the integrator ramps)
             st = [v_out - s.b[0] * v_in] + [s.a[k + 1] * v_out - s.b[k + 1] * v_in for k in range(s.order - 1)]
             states.append(st)
@@ -465,8 +554,11 @@ def ramp_state(model, real: Realized, layout, e: float, u: float, slope: float) 
 
 def analyze_all(roots, band_f_hz, *, b=None, a=None, formats=None, structures=None, **kw) -> list[FormatAnalysis]:
     """:func:`analyze` for every structure × word format (or the ones named)."""
-    return [analyze(roots, s, fmt, band_f_hz, b=b, a=a, **kw)
-            for fmt in (formats or tuple(FORMATS)) for s in (structures or tuple(STRUCTURES))]
+    return [
+        analyze(roots, s, fmt, band_f_hz, b=b, a=a, **kw)
+        for fmt in (formats or tuple(FORMATS))
+        for s in (structures or tuple(STRUCTURES))
+    ]
 
 
 def recommend(analyses: list[FormatAnalysis]) -> tuple[str | None, str]:
@@ -481,13 +573,20 @@ def recommend(analyses: list[FormatAnalysis]) -> tuple[str | None, str]:
         elif x.failures:
             parts.append(f"{x.structure}: {x.failures[0]}")
         else:
-            parts.append(f"{x.structure}: response error {x.response_error:.2g} relative ({x.gain_error_db:.3g} dB, "
-                         f"{x.phase_error_deg:.3g} deg), poles moved ≤ {x.pole_shift:.2g}")
+            parts.append(
+                f"{x.structure}: response error {x.response_error:.2g} relative ({x.gain_error_db:.3g} dB, "
+                f"{x.phase_error_deg:.3g} deg), poles moved ≤ {x.pole_shift:.2g}"
+            )
     if not good:
         return None, "no structure is usable in this format: " + "; ".join(parts)
-    best = min(good, key=lambda x: (round(math.log10(max(x.response_error, 1e-300)), 1),
-                                    list(STRUCTURES).index(x.structure)))
-    return best.structure, f"{best.structure} has the smallest response error (max |H_stored/H − 1| over the band) without failures — " + "; ".join(parts)
+    best = min(
+        good, key=lambda x: (round(math.log10(max(x.response_error, 1e-300)), 1), list(STRUCTURES).index(x.structure))
+    )
+    return (
+        best.structure,
+        f"{best.structure} has the smallest response error (max |H_stored/H − 1| over the band) without failures — "
+        + "; ".join(parts),
+    )
 
 
 def offered(structure: str, word: WordFormat) -> bool:
@@ -495,8 +594,9 @@ def offered(structure: str, word: WordFormat) -> bool:
     return not word.is_fixed or structure in ("direct1", "sections")
 
 
-def choose(roots, word_format: str, band_f_hz, *, structure: str = "auto", b=None, a=None,
-           **kw) -> tuple[FormatAnalysis | None, list[FormatAnalysis], str]:
+def choose(
+    roots, word_format: str, band_f_hz, *, structure: str = "auto", b=None, a=None, **kw
+) -> tuple[FormatAnalysis | None, list[FormatAnalysis], str]:
     """The analysis of ``structure`` in ``word_format`` — or, for ``"auto"``, of the structure
     :func:`recommend` picks — with every offered structure's analysis and the reason in numbers.
     Returns (chosen analysis or None when none is usable, all analyses, reason)."""

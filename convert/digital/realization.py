@@ -88,11 +88,16 @@ class DigitalRealization:
             out["prewarp_hz"] = self.prewarp_hz
         if self.match_at_hz is not None:
             out["match_at_hz"] = self.match_at_hz
-        out.update({
-            "zeros_z": roots_json(self.roots.zeros), "poles_z": roots_json(self.roots.poles), "gain_z": self.roots.gain,
-            "difference_equation": self.difference_equation,
-            "warnings": list(self.warnings), "notes": list(self.notes),
-        })
+        out.update(
+            {
+                "zeros_z": roots_json(self.roots.zeros),
+                "poles_z": roots_json(self.roots.poles),
+                "gain_z": self.roots.gain,
+                "difference_equation": self.difference_equation,
+                "warnings": list(self.warnings),
+                "notes": list(self.notes),
+            }
+        )
         return out
 
 
@@ -141,12 +146,20 @@ def _refuse_overflowing_poles(controller: Controller, t: float) -> None:
             raise UnrealizableError(
                 f"the pole at s = {p.real:.6g}{p.imag:+.6g}j rad/s grows by e^{p.real * t:.4g} per sample at this "
                 "sample rate, beyond any finite number; check the expression (a sign?) or raise the sample rate",
-                key="controller")
+                key="controller",
+            )
 
 
 @ss.small_dense
-def discretize(controller: Controller, fs_hz: float, method: str, *, prewarp_hz: float | None = None,
-               match_at_hz: float | None = None, keep_delay: bool = False) -> DigitalRealization:
+def discretize(
+    controller: Controller,
+    fs_hz: float,
+    method: str,
+    *,
+    prewarp_hz: float | None = None,
+    match_at_hz: float | None = None,
+    keep_delay: bool = False,
+) -> DigitalRealization:
     """The digital form of an analog ``controller`` at sample rate ``fs_hz`` (Hz) by ``method``
     (one of :data:`METHODS`). ``prewarp_hz`` (Hz) is used by ``tustin`` only; ``match_at_hz`` and
     ``keep_delay`` by ``matched`` only; giving them to another method adds a warning.
@@ -166,22 +179,27 @@ def discretize(controller: Controller, fs_hz: float, method: str, *, prewarp_hz:
         raise UnrealizableError(
             f"the controller is improper ({extra} more zero{'s' if extra > 1 else ''} than poles, e.g. an ideal PD/PID) "
             "and has no causal sampled form; add a derivative filter (CLI: --derivative-filter 10; "
-            "API: add_derivative_filter(controller, 10))", key="controller")
+            "API: add_derivative_filter(controller, 10))",
+            key="controller",
+        )
     t = 1.0 / fs
     _refuse_overflowing_poles(controller, t)
     warnings: list[str] = []
     if prewarp_hz is not None:
         prewarp_hz = _check_rate(prewarp_hz, "prewarp")
         if method == "tustin" and not prewarp_hz < fs / 2:
-            raise InputError(f"the prewarp frequency must be below fs/2 = {fs / 2:.6g} Hz, found {prewarp_hz:.6g} Hz",
-                             key="prewarp")
+            raise InputError(
+                f"the prewarp frequency must be below fs/2 = {fs / 2:.6g} Hz, found {prewarp_hz:.6g} Hz", key="prewarp"
+            )
         if method != "tustin":
             warnings.append(f"{method}: prewarp {prewarp_hz:.6g} Hz ignored (only tustin uses a prewarp frequency)")
     if match_at_hz is not None:
         match_at_hz = _check_rate(match_at_hz, "match_at_hz")
         if method == "matched" and not match_at_hz < fs / 2:
-            raise InputError(f"the gain-match frequency must be below fs/2 = {fs / 2:.6g} Hz, found {match_at_hz:.6g} Hz",
-                             key="match_at_hz")
+            raise InputError(
+                f"the gain-match frequency must be below fs/2 = {fs / 2:.6g} Hz, found {match_at_hz:.6g} Hz",
+                key="match_at_hz",
+            )
         if method != "matched":
             warnings.append(f"{method}: match_at_hz ignored (only matched uses it)")
     if keep_delay and method != "matched":
@@ -196,8 +214,13 @@ def discretize(controller: Controller, fs_hz: float, method: str, *, prewarp_hz:
         elif method == "matched":
             roots, notes = forward.matched(controller, src, t, match_at_hz, keep_delay)
         else:
-            fn = {"zoh": forward.zoh, "foh": forward.foh, "impulse": forward.impulse,
-                  "forward-euler": forward.forward_euler, "backward-euler": forward.backward_euler}[method]
+            fn = {
+                "zoh": forward.zoh,
+                "foh": forward.foh,
+                "impulse": forward.impulse,
+                "forward-euler": forward.forward_euler,
+                "backward-euler": forward.backward_euler,
+            }[method]
             roots, notes = fn(controller, src, t)
     used_match = None
     if method == "matched" and (match_at_hz is not None or notes and "gain is matched at" in notes[-1]):
@@ -207,8 +230,18 @@ def discretize(controller: Controller, fs_hz: float, method: str, *, prewarp_hz:
     warnings.extend(_corner_warnings(controller, fs, method))
     warnings.extend(_stability_warnings(src, roots, fs, method))
     warnings.extend(_accuracy_warnings(controller, digital, roots, fs))
-    return DigitalRealization(digital, method, fs, prewarp_hz if method == "tustin" else None, tuple(warnings),
-                              controller, roots, tuple(notes), used_match, keep_delay if method == "matched" else False)
+    return DigitalRealization(
+        digital,
+        method,
+        fs,
+        prewarp_hz if method == "tustin" else None,
+        tuple(warnings),
+        controller,
+        roots,
+        tuple(notes),
+        used_match,
+        keep_delay if method == "matched" else False,
+    )
 
 
 def _refuse_non_finite(roots, fs: float, method: str) -> None:
@@ -217,9 +250,12 @@ def _refuse_non_finite(roots, fs: float, method: str) -> None:
     values = [complex(r) for r in (*roots.zeros, *roots.poles)] + [complex(roots.gain)]
     if all(math.isfinite(v.real) and math.isfinite(v.imag) for v in values) and roots.gain != 0:
         return
-    raise InputError(f"at fs = {fs:.6g} Hz the {method} form of this controller is not a finite number in floating "
-                     "point (the sample rate is too far from the controller's corners); choose a sample rate "
-                     "near its corners", key="fs")
+    raise InputError(
+        f"at fs = {fs:.6g} Hz the {method} form of this controller is not a finite number in floating "
+        "point (the sample rate is too far from the controller's corners); choose a sample rate "
+        "near its corners",
+        key="fs",
+    )
 
 
 def _corner_warnings(controller: Controller, fs: float, method: str) -> list[str]:
@@ -228,8 +264,10 @@ def _corner_warnings(controller: Controller, fs: float, method: str) -> list[str
     for kind in ("zeros", "poles"):
         high = [f for f in corners.get(kind, []) if f > fs / 4]
         for f in high:
-            out.append(f"{method}: {kind[:-1]} corner at {f:.6g} Hz is above fs/4 = {fs / 4:.6g} Hz; the digital form "
-                       "departs from the analog one near it (raise fs, or expect a large method error there)")
+            out.append(
+                f"{method}: {kind[:-1]} corner at {f:.6g} Hz is above fs/4 = {fs / 4:.6g} Hz; the digital form "
+                "departs from the analog one near it (raise fs, or expect a large method error there)"
+            )
     return out
 
 
@@ -240,8 +278,10 @@ def _stability_warnings(src: RootForm, roots: RootForm, fs: float, method: str) 
         return []
     new = [p for p in outside if abs(p - 1) > 1e-9]
     shown = ", ".join(_fmt_root(p) for p in (new or outside))
-    text = (f"{method}: pole at z = {shown} lies on or outside the unit circle although the analog controller's "
-            "matching pole is stable; the sampled controller is unstable")
+    text = (
+        f"{method}: pole at z = {shown} lies on or outside the unit circle although the analog controller's "
+        "matching pole is stable; the sampled controller is unstable"
+    )
     if method == "forward-euler":
         need = max((abs(p) ** 2 / (2 * -p.real) for p in src.poles if p.real < 0), default=0.0)
         text += f"; use another method or raise fs above {need:.6g} Hz"
@@ -271,6 +311,8 @@ def _accuracy_warnings(controller: Controller, digital: Controller, roots: RootF
         ratio = poly[worst] / exact[worst]
         db = 20 * np.log10(abs(ratio)) if abs(ratio) > 0 else -np.inf
         deg = np.degrees(np.angle(ratio))
-    return [f"direct-form coefficients lose accuracy at this fs/corner ratio: evaluated from b/a the response departs "
-            f"from the zeros/poles form by {db:.3g} dB, {deg:.3g} deg near {f[worst]:.4g} Hz (relative {rel[worst]:.2g}); "
-            "implement it as cascaded first/second-order sections or lower fs"]
+    return [
+        f"direct-form coefficients lose accuracy at this fs/corner ratio: evaluated from b/a the response departs "
+        f"from the zeros/poles form by {db:.3g} dB, {deg:.3g} deg near {f[worst]:.4g} Hz (relative {rel[worst]:.2g}); "
+        "implement it as cascaded first/second-order sections or lower fs"
+    ]

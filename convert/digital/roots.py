@@ -24,7 +24,7 @@ class RootForm:
     sample_period_s: float | None = None
 
     @classmethod
-    def of(cls, controller: Controller) -> "RootForm":
+    def of(cls, controller: Controller) -> RootForm:
         """Roots of the controller's polynomials (:meth:`Controller.zeros`/``poles``). Roots at s = 0
         (analog) or z = ±1 (digital) — integrators, washouts, Nyquist zeros — are exact, and a
         repeated root is found as one root with its multiplicity (:mod:`convert.polyroots`), since
@@ -58,15 +58,20 @@ class RootForm:
 
     def to_controller(self, name: str = "") -> Controller:
         domain = "digital" if self.sample_period_s else "analog"
-        return Controller.from_zpk(_pairs(self.zeros), _pairs(self.poles), self.gain, domain,
-                                   self.sample_period_s, name)
+        return Controller.from_zpk(
+            _pairs(self.zeros), _pairs(self.poles), self.gain, domain, self.sample_period_s, name
+        )
 
 
 @lru_cache(maxsize=512)
 def _root_form_of(controller: Controller) -> RootForm:
     # Controllers are immutable and hashable: a survey asks for the same roots many times.
-    return RootForm(tuple(complex(r) for r in controller.zeros()), tuple(complex(r) for r in controller.poles()),
-                    float(controller.gain), controller.sample_period_s)
+    return RootForm(
+        tuple(complex(r) for r in controller.zeros()),
+        tuple(complex(r) for r in controller.poles()),
+        float(controller.gain),
+        controller.sample_period_s,
+    )
 
 
 def _pairs(roots) -> np.ndarray:

@@ -67,8 +67,10 @@ def scaling(input_map: SignalMap | None, output_map: SignalMap | None) -> Scalin
         parts.append(f"output: {_fmt(g_out)} firmware units per signal unit")
     parts.append(f"controller gain × {_fmt(g)}")
     if inverted:
-        parts.append("one map is inverted: the firmware controller has the opposite sign in firmware units, so the "
-                     "plant sees the card's action unchanged")
+        parts.append(
+            "one map is inverted: the firmware controller has the opposite sign in firmware units, so the "
+            "plant sees the card's action unchanged"
+        )
     return Scaling(g, inverted, "; ".join(parts))
 
 
@@ -77,8 +79,9 @@ def scale_controller(controller, sc: Scaling):
     from convert.controller import Controller
 
     if controller.is_digital:
-        return Controller.from_b_a([sc.gain * v for v in controller.b], controller.a, controller.sample_period_s,
-                                   controller.name)
+        return Controller.from_b_a(
+            [sc.gain * v for v in controller.b], controller.a, controller.sample_period_s, controller.name
+        )
     return Controller.analog([sc.gain * v for v in controller.num], controller.den, controller.name)
 
 

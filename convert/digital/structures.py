@@ -128,8 +128,9 @@ def pair_sections(zeros, poles, gain: float) -> list[tuple[list[complex], list[c
     for zc in [g for g in zgroups if len(g) == 2]:
         free = [s for s in sections if len(s["p"]) - len(s["z"]) >= 2] or [s for s in sections if len(s["p"]) == 2]
         if not free:
-            raise InputError("a complex pair of zeros found no second-order section (more zeros than poles?)",
-                             key="controller")
+            raise InputError(
+                "a complex pair of zeros found no second-order section (more zeros than poles?)", key="controller"
+            )
         best = min(free, key=lambda s: min(abs(zc[0] - p) for p in s["p"]) if s["p"] else np.inf)
         best["z"].extend(zc)
     for zr in [g[0] for g in zgroups if len(g) == 1]:

@@ -18,12 +18,17 @@ phase limit).
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Sequence
+from collections.abc import Sequence
 
 import numpy as np
 
-from convert.compare.frequency import (ResponseError, comparison_grid, compare_responses, default_band_hz,
-                                       hold_and_delay_factor)
+from convert.compare.frequency import (
+    ResponseError,
+    comparison_grid,
+    compare_responses,
+    default_band_hz,
+    hold_and_delay_factor,
+)
 from convert.controller import Controller
 from convert.digital.derivative_filter import add_derivative_filter, derivative_filter_time_constant
 from convert.digital.realization import METHODS, DigitalRealization, discretize
@@ -81,20 +86,32 @@ def _score(row: MethodRow) -> tuple[float, float]:
 def _reason(row: MethodRow, others: int) -> str:
     e = row.method_error
     if e.agreement_limit_hz is None:
-        head = (f"agrees within {e.gain_limit_db:g} dB / {e.phase_limit_deg:g} deg over the whole band"
-                + (" with the smallest errors" if others else ""))
+        head = f"agrees within {e.gain_limit_db:g} dB / {e.phase_limit_deg:g} deg over the whole band" + (
+            " with the smallest errors" if others else ""
+        )
     else:
-        head = (f"agrees within {e.gain_limit_db:g} dB / {e.phase_limit_deg:g} deg up to {e.agreement_limit_hz:.4g} Hz"
-                + (", the highest of the methods" if others else ""))
+        head = (
+            f"agrees within {e.gain_limit_db:g} dB / {e.phase_limit_deg:g} deg up to {e.agreement_limit_hz:.4g} Hz"
+            + (", the highest of the methods" if others else "")
+        )
     return f"{head}; max method error {e.max_gain_error_db:.3g} dB, {e.max_phase_error_deg:.3g} deg"
 
 
-def survey_methods(controller: Controller, fs_hz: float, methods: Sequence[str] = METHODS, *,
-                   prewarp_hz: float | None = None, delay_s: float = 0.0,
-                   band_hz: tuple[float, float] | None = None, match_at_hz: float | None = None,
-                   keep_delay: bool = False, filter_n: float | None = None,
-                   gain_limit_db: float = 1.0, phase_limit_deg: float = 5.0,
-                   points_per_decade: int = 100) -> MethodSurvey:
+def survey_methods(
+    controller: Controller,
+    fs_hz: float,
+    methods: Sequence[str] = METHODS,
+    *,
+    prewarp_hz: float | None = None,
+    delay_s: float = 0.0,
+    band_hz: tuple[float, float] | None = None,
+    match_at_hz: float | None = None,
+    keep_delay: bool = False,
+    filter_n: float | None = None,
+    gain_limit_db: float = 1.0,
+    phase_limit_deg: float = 5.0,
+    points_per_decade: int = 100,
+) -> MethodSurvey:
     """Discretize ``controller`` by each of ``methods`` at ``fs_hz`` and compare each with it.
 
     ``band_hz`` = (low, high) in Hz; default: a decade below the lowest corner to fs/2.
@@ -118,15 +135,24 @@ def survey_methods(controller: Controller, fs_hz: float, methods: Sequence[str] 
     hold = hold_and_delay_factor(f, 1.0 / fs_hz, delay_s)
     rows = []
     for m in methods:
-        real = discretize(controller, fs_hz, m, prewarp_hz=prewarp_hz if m == "tustin" else None,
-                          match_at_hz=match_at_hz if m == "matched" else None,
-                          keep_delay=keep_delay if m == "matched" else False)
+        real = discretize(
+            controller,
+            fs_hz,
+            m,
+            prewarp_hz=prewarp_hz if m == "tustin" else None,
+            match_at_hz=match_at_hz if m == "matched" else None,
+            keep_delay=keep_delay if m == "matched" else False,
+        )
         digital = real.frequency_response(f)
-        rows.append(MethodRow(
-            real,
-            compare_responses(analog, digital, f, gain_limit_db=gain_limit_db, phase_limit_deg=phase_limit_deg),
-            compare_responses(analog, digital * hold, f, gain_limit_db=gain_limit_db,
-                              phase_limit_deg=phase_limit_deg)))
+        rows.append(
+            MethodRow(
+                real,
+                compare_responses(analog, digital, f, gain_limit_db=gain_limit_db, phase_limit_deg=phase_limit_deg),
+                compare_responses(
+                    analog, digital * hold, f, gain_limit_db=gain_limit_db, phase_limit_deg=phase_limit_deg
+                ),
+            )
+        )
     candidates = [r for r in rows if not r.unstable]
     if candidates:
         best_row = min(candidates, key=_score)
@@ -135,7 +161,22 @@ def survey_methods(controller: Controller, fs_hz: float, methods: Sequence[str] 
         best, reason = None, "every method asked for gives an unstable sampled controller; raise fs"
     filter_error = None
     if tau is not None:
-        filter_error = compare_responses(original.frequency_response(f), controller.frequency_response(f), f,
-                                         gain_limit_db=gain_limit_db, phase_limit_deg=phase_limit_deg)
-    return MethodSurvey(controller, tuple(rows), (float(band_hz[0]), float(band_hz[1])), f, float(delay_s), best,
-                        reason, filter_n if tau is not None else None, tau, filter_error)
+        filter_error = compare_responses(
+            original.frequency_response(f),
+            controller.frequency_response(f),
+            f,
+            gain_limit_db=gain_limit_db,
+            phase_limit_deg=phase_limit_deg,
+        )
+    return MethodSurvey(
+        controller,
+        tuple(rows),
+        (float(band_hz[0]), float(band_hz[1])),
+        f,
+        float(delay_s),
+        best,
+        reason,
+        filter_n if tau is not None else None,
+        tau,
+        filter_error,
+    )

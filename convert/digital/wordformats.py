@@ -59,10 +59,12 @@ class WordFormat:
 
 
 FORMATS: dict[str, WordFormat] = {
-    "float64": WordFormat("float64", "float", 64, "double", mantissa_bits=53, max_value=1.7976931348623157e308,
-                          label="IEEE 754 double"),
-    "float32": WordFormat("float32", "float", 32, "float", mantissa_bits=24, max_value=3.4028234663852886e38,
-                          label="IEEE 754 single"),
+    "float64": WordFormat(
+        "float64", "float", 64, "double", mantissa_bits=53, max_value=1.7976931348623157e308, label="IEEE 754 double"
+    ),
+    "float32": WordFormat(
+        "float32", "float", 32, "float", mantissa_bits=24, max_value=3.4028234663852886e38, label="IEEE 754 single"
+    ),
     "q15": WordFormat("q15", "fixed", 16, "int16_t", 32, "int32_t", label="Q15: 16-bit words, 32-bit accumulator"),
     "q31": WordFormat("q31", "fixed", 32, "int32_t", 64, "int64_t", label="Q31: 32-bit words, 64-bit accumulator"),
 }
@@ -87,5 +89,5 @@ def quantize_coefficient(c: float, frac_bits: int) -> int:
     """``c · 2^frac_bits`` rounded to the nearest integer, ties away from zero."""
     import math
 
-    v = c * 2.0 ** frac_bits
+    v = c * 2.0**frac_bits
     return int(math.copysign(math.floor(abs(v) + 0.5), v))

@@ -50,8 +50,12 @@ def read_evidence(ctx, data: dict, base_dir: Path) -> EvidenceSpec | None:
         path = base_dir / name
         if not path.is_file():
             raise ctx.error(f"{key}.file", f"no such file {str(path)!r} (paths are relative to the case file)")
-        spec = {"file": path, "columns": _mapping(ctx, t, "columns", key), "units": _mapping(ctx, t, "units", key),
-                "decimal": ctx.text(t, "decimal", f"{key}.decimal", default=".", choices=(".", ","))}
+        spec = {
+            "file": path,
+            "columns": _mapping(ctx, t, "columns", key),
+            "units": _mapping(ctx, t, "units", key),
+            "decimal": ctx.text(t, "decimal", f"{key}.decimal", default=".", choices=(".", ",")),
+        }
         fit = t.get("fit", False)
         if kind == "sweep":
             spec["of"] = ctx.text(t, "of", f"{key}.of", default="source")

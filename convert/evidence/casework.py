@@ -63,7 +63,7 @@ class _named_in_case:
     def __enter__(self):
         return self
 
-    def __exit__(self, kind, exc, tb):
+    def __exit__(self, kind, exc, _tb):
         if isinstance(exc, LoopshiftError) and not (exc.where and ".csv" in exc.where):
             key = self.table + (".fit" if exc.key == "fit" else "")
             raise type(exc)(exc.message, where=self.case.where(key), key=key) from None
@@ -79,8 +79,11 @@ def _form_named(case, of: str):
         if g.name == of:
             return g
     names = ", ".join(["source"] + [g.name for g in case.given])
-    raise InputError(f"no form called {of!r}; the sweep can be of: {names}", where=case.where("evidence.sweep.of"),
-                     key="evidence.sweep.of")
+    raise InputError(
+        f"no form called {of!r}; the sweep can be of: {names}",
+        where=case.where("evidence.sweep.of"),
+        key="evidence.sweep.of",
+    )
 
 
 def _sweep(case, info, realizations, spec, ev: CaseEvidence) -> None:
@@ -88,15 +91,29 @@ def _sweep(case, info, realizations, spec, ev: CaseEvidence) -> None:
     from convert.evidence.sweep import MIN_COHERENCE, read_sweep, sweep_evidence
 
     given = _form_named(case, spec["of"])
-    sweep = read_sweep(spec["file"], columns=spec["columns"], units=spec["units"], decimal=spec["decimal"],
-                       averages=spec["averages"], option="evidence.sweep.columns")
+    sweep = read_sweep(
+        spec["file"],
+        columns=spec["columns"],
+        units=spec["units"],
+        decimal=spec["decimal"],
+        averages=spec["averages"],
+        option="evidence.sweep.columns",
+    )
     crit = case.criteria
     limits = {"max_gain_error_db": crit.max_gain_error_db, "max_phase_error_deg": crit.max_phase_error_deg}
     fit = spec["fit"]
     with _named_in_case(case, "evidence.sweep"):
-        result = sweep_evidence(given, sweep, band_hz=crit.band_hz, limits=limits, inverted=spec["inverted"],
-                                min_coherence=spec["min_coherence"] or MIN_COHERENCE, fit=bool(fit),
-                                fit_names=fit if isinstance(fit, tuple) else None, case=case)
+        result = sweep_evidence(
+            given,
+            sweep,
+            band_hz=crit.band_hz,
+            limits=limits,
+            inverted=spec["inverted"],
+            min_coherence=spec["min_coherence"] or MIN_COHERENCE,
+            fit=bool(fit),
+            fit_names=fit if isinstance(fit, tuple) else None,
+            case=case,
+        )
     ev.sweep = result
     ev.sweep_of = given.name if spec["of"] != "source" else "source"
     if spec["of"] != "source":
@@ -109,8 +126,13 @@ def _sweep(case, info, realizations, spec, ev: CaseEvidence) -> None:
             resp = np.where(f < 0.5 * r.controller.fs_hz, resp, np.nan)
         ev.overlays[r.name] = resp
     figures = dict(result.check.figures)
-    for key in ("max_phase_margin_change_deg", "max_gain_margin_change_db", "max_sensitivity_peak_change_db",
-                "max_step_deviation", "max_disturbance_deviation"):
+    for key in (
+        "max_phase_margin_change_deg",
+        "max_gain_margin_change_db",
+        "max_sensitivity_peak_change_db",
+        "max_step_deviation",
+        "max_disturbance_deviation",
+    ):
         figures[f"{key}_note"] = "a loop figure is not computed from a measured sweep"
     ev.figures[SWEEP_LABEL.format(of=ev.sweep_of)] = figures
     ev.notes += [f"sweep: {n}" for n in result.check.notes]
@@ -130,12 +152,17 @@ def _measured_row(realizations, name: str, result) -> None:
             ig = int(np.argmax(np.abs(chk.gain_error_db[use])))
             ip = int(np.argmax(np.abs(chk.phase_error_deg[use])))
             f = chk.f_hz[use]
-            row = BudgetRow("measured", ROW_LABELS["measured"], True,
-                            f"bench sweep against this form's model, trusted points of the band; noise ±2σ up to "
-                            f"{2 * float(np.max(chk.noise_db[use])):.3g} dB, {2 * float(np.max(chk.noise_deg[use])):.3g}°",
-                            max_gain_error_db=float(abs(chk.gain_error_db[use][ig])), max_gain_error_at_hz=float(f[ig]),
-                            max_phase_error_deg=float(abs(chk.phase_error_deg[use][ip])),
-                            max_phase_error_at_hz=float(f[ip]))
+            row = BudgetRow(
+                "measured",
+                ROW_LABELS["measured"],
+                True,
+                f"bench sweep against this form's model, trusted points of the band; noise ±2σ up to "
+                f"{2 * float(np.max(chk.noise_db[use])):.3g} dB, {2 * float(np.max(chk.noise_deg[use])):.3g}°",
+                max_gain_error_db=float(abs(chk.gain_error_db[use][ig])),
+                max_gain_error_at_hz=float(f[ig]),
+                max_phase_error_deg=float(abs(chk.phase_error_deg[use][ip])),
+                max_phase_error_at_hz=float(f[ip]),
+            )
         else:
             row = BudgetRow("measured", ROW_LABELS["measured"], False, "not applicable: no trusted point in the band")
         r.budget = [row if b.key == "measured" else b for b in r.budget]
@@ -148,7 +175,8 @@ def _log(case, info, realizations, spec, ev: CaseEvidence) -> None:
 
     forms = []
     for name, ctrl, delay in [("source", info.controller, 0.0)] + [
-            (r.name, r.controller, float(r.details.get("delay_s") or 0.0)) for r in realizations]:
+        (r.name, r.controller, float(r.details.get("delay_s") or 0.0)) for r in realizations
+    ]:
         try:
             forms.append((name, controller_replayer(ctrl, delay)))
         except LoopshiftError as exc:
@@ -156,25 +184,48 @@ def _log(case, info, realizations, spec, ev: CaseEvidence) -> None:
     fit = None
     if spec["fit"]:
         if info.pid is None:
-            raise InputError("fit = true needs a source that is a PID (PID settings, or a card read as a PID)",
-                             where=case.where("evidence.log.fit"), key="evidence.log.fit")
+            raise InputError(
+                "fit = true needs a source that is a PID (PID settings, or a card read as a PID)",
+                where=case.where("evidence.log.fit"),
+                key="evidence.log.fit",
+            )
         fit = GivenForm("source", "analog", {"pid": info.pid, "settings": {}}, case.where("source"))
     limits = spec["output_limits"] or case.signals.output_range
     with _named_in_case(case, "evidence.log"):
-        result = log_evidence(spec["file"], forms, columns=spec["columns"], units=spec["units"],
-                              decimal=spec["decimal"], output_limits=limits, fit=fit, option="evidence.log.columns")
+        result = log_evidence(
+            spec["file"],
+            forms,
+            columns=spec["columns"],
+            units=spec["units"],
+            decimal=spec["decimal"],
+            output_limits=limits,
+            fit=fit,
+            option="evidence.log.columns",
+        )
     ev.log = result
     ev.notes += [f"log: {n}" for n in result.notes]
     for r in result.replays:
-        for key, fig, label in (("max_residual_rms", "rms_rel", "log replay residual RMS"),
-                                ("max_residual_peak", "peak_rel", "log replay residual peak")):
+        for key, fig, label in (
+            ("max_residual_rms", "rms_rel", "log replay residual RMS"),
+            ("max_residual_peak", "peak_rel", "log replay residual peak"),
+        ):
             limit = spec[key]
             if limit is None:
                 continue
             value = r.figures.get(fig)
             status = "fail" if value is None or value > limit else "pass"
-            ev.judgements.append(Judgement(f"log: {r.name}", key, label, "of range", limit, value, status,
-                                           "about the reported offset, relative to the logged output's range"))
+            ev.judgements.append(
+                Judgement(
+                    f"log: {r.name}",
+                    key,
+                    label,
+                    "of range",
+                    limit,
+                    value,
+                    status,
+                    "about the reported offset, relative to the logged output's range",
+                )
+            )
 
 
 def extend_verdict(verdict, judgements):

@@ -19,7 +19,7 @@ import csv
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Iterator
+from collections.abc import Iterator
 
 import numpy as np
 
@@ -29,13 +29,28 @@ CHUNK_ROWS = 65536
 
 #: unit text (lower case) -> (quantity, factor to SI or to the role's base unit, kind)
 UNITS: dict[str, tuple[str, float]] = {
-    "hz": ("frequency", 1.0), "khz": ("frequency", 1e3), "mhz": ("frequency", 1e6), "rad/s": ("frequency", 1 / (2 * np.pi)),
-    "db": ("gain", 1.0), "v/v": ("ratio", 1.0), "ratio": ("ratio", 1.0), "a/a": ("ratio", 1.0), "%/%": ("ratio", 1.0),
-    "deg": ("angle", np.pi / 180), "degree": ("angle", np.pi / 180), "degrees": ("angle", np.pi / 180),
-    "°": ("angle", np.pi / 180), "rad": ("angle", 1.0),
-    "s": ("time", 1.0), "ms": ("time", 1e-3), "us": ("time", 1e-6), "µs": ("time", 1e-6), "min": ("time", 60.0),
+    "hz": ("frequency", 1.0),
+    "khz": ("frequency", 1e3),
+    "mhz": ("frequency", 1e6),
+    "rad/s": ("frequency", 1 / (2 * np.pi)),
+    "db": ("gain", 1.0),
+    "v/v": ("ratio", 1.0),
+    "ratio": ("ratio", 1.0),
+    "a/a": ("ratio", 1.0),
+    "%/%": ("ratio", 1.0),
+    "deg": ("angle", np.pi / 180),
+    "degree": ("angle", np.pi / 180),
+    "degrees": ("angle", np.pi / 180),
+    "°": ("angle", np.pi / 180),
+    "rad": ("angle", 1.0),
+    "s": ("time", 1.0),
+    "ms": ("time", 1e-3),
+    "us": ("time", 1e-6),
+    "µs": ("time", 1e-6),
+    "min": ("time", 60.0),
     "h": ("time", 3600.0),
-    "1": ("plain", 1.0), "": ("plain", 1.0),
+    "1": ("plain", 1.0),
+    "": ("plain", 1.0),
 }
 _UNIT_RE = re.compile(r"^\s*(.*?)\s*[\(\[]\s*([^\)\]]*)\s*[\)\]]\s*$")
 _DECIMAL_COMMA = re.compile(r"^\s*[-+]?\d+,\d+(?:[eE][-+]?\d+)?\s*$")
@@ -109,13 +124,21 @@ def _sniff(path: Path, first: str, decimal: str) -> str:
     if ";" in first:
         return ";"
     if decimal == ",":
-        raise InputError("decimal=',' needs fields separated by ';' or tabs (a comma cannot be both)",
-                         where=f"{path.name}:1")
+        raise InputError(
+            "decimal=',' needs fields separated by ';' or tabs (a comma cannot be both)", where=f"{path.name}:1"
+        )
     return ","
 
 
-def layout(path: str | Path, roles: tuple[Role, ...], *, columns: dict | None = None, units: dict | None = None,
-           decimal: str = ".", option: str = "columns") -> TableLayout:
+def layout(
+    path: str | Path,
+    roles: tuple[Role, ...],
+    *,
+    columns: dict | None = None,
+    units: dict | None = None,
+    decimal: str = ".",
+    option: str = "columns",
+) -> TableLayout:
     """Read the header of ``path`` and place each role. ``columns`` maps a role to the header
     text of its column (exact, case-insensitive, units part optional); ``units`` maps a role to
     its unit when the header has none or says otherwise; ``option`` names the mapping in hints."""
@@ -129,9 +152,15 @@ def layout(path: str | Path, roles: tuple[Role, ...], *, columns: dict | None = 
             raise InputError(f"the file is not UTF-8 text ({exc.reason})", where=str(path)) from None
     if not first.strip():
         shown = {"hz": "Hz", "db": "dB"}
-        raise InputError("the file is empty; expected a header line such as "
-                         + ",".join(f"{r.name} ({shown.get(r.default_unit, r.default_unit)})" if r.default_unit
-                                    else r.name for r in roles if r.required), where=f"{path.name}:1")
+        raise InputError(
+            "the file is empty; expected a header line such as "
+            + ",".join(
+                f"{r.name} ({shown.get(r.default_unit, r.default_unit)})" if r.default_unit else r.name
+                for r in roles
+                if r.required
+            ),
+            where=f"{path.name}:1",
+        )
     delim = _sniff(path, first, decimal)
     header = next(csv.reader([first], delimiter=delim))
     parsed = [split_header(h) for h in header]
@@ -144,18 +173,25 @@ def layout(path: str | Path, roles: tuple[Role, ...], *, columns: dict | None = 
 
             close = difflib.get_close_matches(key, sorted(known), n=1)
             hint = f" (did you mean {close[0]!r}?)" if close else ""
-            raise InputError(f"unknown column role {key!r}{hint}; roles: {', '.join(r.name for r in roles)}",
-                             key=option)
+            raise InputError(
+                f"unknown column role {key!r}{hint}; roles: {', '.join(r.name for r in roles)}", key=option
+            )
     placed: dict[str, list[Column]] = {}
     taken: set[int] = set()
     for role in roles:
         idx: list[int] = []
         if role.name in columns:
             want = columns[role.name].strip().lower()
-            idx = [i for i, (h, (n, _)) in enumerate(zip(header, parsed)) if h.strip().lower() == want or n.lower() == want]
+            idx = [
+                i for i, (h, (n, _)) in enumerate(zip(header, parsed)) if h.strip().lower() == want or n.lower() == want
+            ]
             if not idx:
-                raise InputError(f"no column {columns[role.name]!r} for {role.name}; the header has "
-                                 f"{', '.join(repr(h) for h in header)}", where=f"{path.name}:1", key=option)
+                raise InputError(
+                    f"no column {columns[role.name]!r} for {role.name}; the header has "
+                    f"{', '.join(repr(h) for h in header)}",
+                    where=f"{path.name}:1",
+                    key=option,
+                )
         else:
             for i, (name, _) in enumerate(parsed):
                 if i in taken:
@@ -167,9 +203,12 @@ def layout(path: str | Path, roles: tuple[Role, ...], *, columns: dict | None = 
             idx = idx[:1]
         if not idx:
             if role.required:
-                raise InputError(f"no {role.name} column: the header has {', '.join(repr(h) for h in header)}; "
-                                 f"name it '{role.name} ({role.default_unit})' or map it with {option} "
-                                 f"{role.name}=NAME", where=f"{path.name}:1")
+                raise InputError(
+                    f"no {role.name} column: the header has {', '.join(repr(h) for h in header)}; "
+                    f"name it '{role.name} ({role.default_unit})' or map it with {option} "
+                    f"{role.name}=NAME",
+                    where=f"{path.name}:1",
+                )
             continue
         cols = []
         for i in idx:
@@ -180,16 +219,20 @@ def layout(path: str | Path, roles: tuple[Role, ...], *, columns: dict | None = 
                 continue
             if unit not in UNITS or UNITS[unit][0] not in role.quantities:
                 allowed = sorted(u for u, (q, _) in UNITS.items() if q in role.quantities and u)
-                raise InputError(f"column {header[i]!r}: unit {unit!r} is not a unit of {role.name}; expected one of "
-                                 f"{', '.join(allowed)}", where=f"{path.name}:1")
+                raise InputError(
+                    f"column {header[i]!r}: unit {unit!r} is not a unit of {role.name}; expected one of "
+                    f"{', '.join(allowed)}",
+                    where=f"{path.name}:1",
+                )
             q, factor = UNITS[unit]
             cols.append(Column(role.name, header[i], i, unit, q, factor))
         placed[role.name] = cols
     return TableLayout(path, delim, decimal, placed, len(header))
 
 
-def chunks(lay: TableLayout, *, chunk_rows: int = CHUNK_ROWS, allow_missing: tuple[str, ...] = ()
-           ) -> Iterator[tuple[np.ndarray, dict[str, np.ndarray]]]:
+def chunks(
+    lay: TableLayout, *, chunk_rows: int = CHUNK_ROWS, allow_missing: tuple[str, ...] = ()
+) -> Iterator[tuple[np.ndarray, dict[str, np.ndarray]]]:
     """Yield ``(line_numbers, {role: values (rows,) or (rows, repeats)})`` in chunks, values in
     the role's unit as written times its factor (SI; gain in dB or as a ratio is left to the
     caller by the column's quantity). Cells of roles in ``allow_missing`` may be empty or NaN
@@ -230,13 +273,21 @@ def chunks(lay: TableLayout, *, chunk_rows: int = CHUNK_ROWS, allow_missing: tup
 
 def _check_width(row, lay: TableLayout, wanted, line: int) -> None:
     if len(row) > lay.width:
-        hint = ("; a decimal comma in a comma-separated file splits numbers (write decimal points, or "
-                "separate fields with ';' and say decimal=',')" if lay.delimiter == "," else "")
-        raise InputError(f"the row has {len(row)} fields, the header {lay.width}{hint}", where=f"{lay.path.name}:{line}")
+        hint = (
+            "; a decimal comma in a comma-separated file splits numbers (write decimal points, or "
+            "separate fields with ';' and say decimal=',')"
+            if lay.delimiter == ","
+            else ""
+        )
+        raise InputError(
+            f"the row has {len(row)} fields, the header {lay.width}{hint}", where=f"{lay.path.name}:{line}"
+        )
     for _, c in wanted:
         if c.index >= len(row):
-            raise InputError(f"column {c.header!r}: the row has {len(row)} fields, the header {lay.width}",
-                             where=f"{lay.path.name}:{line}")
+            raise InputError(
+                f"column {c.header!r}: the row has {len(row)} fields, the header {lay.width}",
+                where=f"{lay.path.name}:{line}",
+            )
 
 
 def _convert(cells, lines, lay: TableLayout, wanted, allow_missing):
@@ -272,21 +323,25 @@ def _number(text: str, lay: TableLayout, c: Column, line: int, gap_ok: bool, sca
     if lay.decimal == ",":
         s = s.replace(",", ".")
     elif _DECIMAL_COMMA.match(s):
-        raise InputError(f"column {c.header!r}: {text.strip()!r} has a decimal comma; write a decimal point, or say "
-                         "the file uses decimal commas (--decimal , on the command line, decimal = \",\" in a case file; fields "
-                         "then separated by ';')",
-                         where=f"{lay.path.name}:{line}")
+        raise InputError(
+            f"column {c.header!r}: {text.strip()!r} has a decimal comma; write a decimal point, or say "
+            'the file uses decimal commas (--decimal , on the command line, decimal = "," in a case file; fields '
+            "then separated by ';')",
+            where=f"{lay.path.name}:{line}",
+        )
     try:
         value = float(s)
     except ValueError:
         if gap_ok and s.lower() in ("", "nan"):
             return float("nan")
         found = "an empty cell" if not s else repr(text.strip())
-        raise InputError(f"column {c.header!r}: expected a number, found {found}",
-                         where=f"{lay.path.name}:{line}") from None
+        raise InputError(
+            f"column {c.header!r}: expected a number, found {found}", where=f"{lay.path.name}:{line}"
+        ) from None
     if not np.isfinite(value):
         if gap_ok and np.isnan(value):
             return value
-        raise InputError(f"column {c.header!r}: expected a finite number, found {text.strip()!r}",
-                         where=f"{lay.path.name}:{line}")
+        raise InputError(
+            f"column {c.header!r}: expected a finite number, found {text.strip()!r}", where=f"{lay.path.name}:{line}"
+        )
     return value * c.factor if scaled else value

@@ -79,11 +79,18 @@ class FitResult:
     notes: tuple[str, ...] = field(default_factory=tuple)
 
     def as_dict(self) -> dict:
-        return {"model": self.model, "chi2_dof": self.chi2_dof, "chi2_dof_drawn": self.chi2_dof_drawn, "dof": self.dof,
-                "noise_source": self.noise_source, "determined": list(self.determined),
-                "undetermined": list(self.undetermined), "notes": list(self.notes),
-                "values": [dict(v.__dict__, change=v.change, significant=v.significant) for v in self.values],
-                "single_changes": [dict(s.__dict__) for s in self.singles]}
+        return {
+            "model": self.model,
+            "chi2_dof": self.chi2_dof,
+            "chi2_dof_drawn": self.chi2_dof_drawn,
+            "dof": self.dof,
+            "noise_source": self.noise_source,
+            "determined": list(self.determined),
+            "undetermined": list(self.undetermined),
+            "notes": list(self.notes),
+            "values": [dict(v.__dict__, change=v.change, significant=v.significant) for v in self.values],
+            "single_changes": [dict(s.__dict__) for s in self.singles],
+        }
 
 
 def _to_x(kind: str, value: float) -> float:
@@ -105,6 +112,7 @@ def _residuals(model, names, base: dict, f, measured, s_ln, s_ph, sign):
             ratio = sign * model.response(values, f) / measured
         r = np.concatenate([np.log(np.abs(ratio)) / s_ln, np.angle(ratio) / s_ph])
         return np.where(np.isfinite(r), r, 1e6)
+
     return resid
 
 
@@ -157,8 +165,9 @@ def _rref(rows: np.ndarray, tol: float = 1e-9) -> np.ndarray:
     return a[:r]
 
 
-def fit_sweep(model, f_hz, measured, noise_db, noise_deg, *, names=None, inverted: bool = False,
-              noise_source: str = "", use=None) -> FitResult:
+def fit_sweep(
+    model, f_hz, measured, noise_db, noise_deg, *, names=None, inverted: bool = False, noise_source: str = "", use=None
+) -> FitResult:
     """Fit ``model`` (:class:`convert.evidence.models.ParametricModel`) to the measured complex
     response at ``f_hz`` with per-point noise (1 σ; dB and degrees). ``names``: the values to
     fit (default: all of the model's); ``use``: a mask of the points to use (default: all with
@@ -168,8 +177,9 @@ def fit_sweep(model, f_hz, measured, noise_db, noise_deg, *, names=None, inverte
     names = tuple(model.names if names is None else names)
     unknown = [n for n in names if n not in model.nominal]
     if unknown:
-        raise InputError(f"no value called {unknown[0]!r} in the {model.label}; it has "
-                         f"{', '.join(model.names)}", key="fit")
+        raise InputError(
+            f"no value called {unknown[0]!r} in the {model.label}; it has {', '.join(model.names)}", key="fit"
+        )
     if not names:
         raise InputError(f"the {model.label} has no values to fit", key="fit")
     f = np.asarray(f_hz, dtype=float)
@@ -192,8 +202,11 @@ def fit_sweep(model, f_hz, measured, noise_db, noise_deg, *, names=None, inverte
     keep = (s > 0) & (Z95 / np.where(s > 0, s, 1) <= UNDETERMINED_LOG_HALF_WIDTH) & (s >= 1e-9 * s.max())
     vk = vt[keep].T  # (n_names, k)
     if vk.shape[1] == 0:
-        raise InputError("the measurement determines none of the chosen values (its noise is too large for them, or "
-                         "they do not act in the measured band)", key="fit")
+        raise InputError(
+            "the measurement determines none of the chosen values (its noise is too large for them, or "
+            "they do not act in the measured band)",
+            key="fit",
+        )
     sol = least_squares(lambda a: resid(x0 + vk @ a), np.zeros(vk.shape[1]), method="lm", xtol=1e-12, ftol=1e-12)
     x = x0 + vk @ sol.x
     chi2 = float(np.sum(resid(x) ** 2)) / dof
@@ -221,19 +234,39 @@ def fit_sweep(model, f_hz, measured, noise_db, noise_deg, *, names=None, inverte
     undetermined = tuple(_combination(row, names) for row in _rref(null)) if null.size else ()
     notes = []
     if chi2 > 1 + 3 * np.sqrt(2 / dof):
-        notes.append(f"χ²/dof = {chi2:.3g} after the fit: the model with these values does not explain the "
-                     "measurement to its noise (another part changed, a parasitic left out, or the noise is "
-                     "underestimated); intervals are widened by that factor")
+        notes.append(
+            f"χ²/dof = {chi2:.3g} after the fit: the model with these values does not explain the "
+            "measurement to its noise (another part changed, a parasitic left out, or the noise is "
+            "underestimated); intervals are widened by that factor"
+        )
     singles = []
     for i, n in enumerate(names):
         r1 = _residuals(model, (n,), base, f, meas, s_ln, s_ph, sign)
         one = least_squares(r1, [x0[i]], method="lm", xtol=1e-12, ftol=1e-12)
-        c1 = float(np.sum(one.fun ** 2)) / max(2 * f.size - 1, 1)
-        singles.append(SingleChange(n, kinds[i], model.nominal[n], _from_x(kinds[i], one.x[0]), c1,
-                                    c1 <= 1 + 3 * np.sqrt(2 / max(2 * f.size - 1, 1))))
+        c1 = float(np.sum(one.fun**2)) / max(2 * f.size - 1, 1)
+        singles.append(
+            SingleChange(
+                n,
+                kinds[i],
+                model.nominal[n],
+                _from_x(kinds[i], one.x[0]),
+                c1,
+                c1 <= 1 + 3 * np.sqrt(2 / max(2 * f.size - 1, 1)),
+            )
+        )
     singles.sort(key=lambda c: c.chi2_dof)
-    return FitResult(model.label, tuple(values), determined, undetermined, chi2, chi2_drawn, dof, tuple(singles),
-                     noise_source, tuple(notes))
+    return FitResult(
+        model.label,
+        tuple(values),
+        determined,
+        undetermined,
+        chi2,
+        chi2_drawn,
+        dof,
+        tuple(singles),
+        noise_source,
+        tuple(notes),
+    )
 
 
 def value_text(value: float, kind: str, digits: int = 4) -> str:

@@ -76,13 +76,19 @@ class AnalogReplay:
         from scipy.signal import residue
 
         if not controller.is_proper:
-            raise UnrealizableError("an improper controller (an unfiltered derivative) has no response to a logged "
-                                    "input; give its derivative filter", key="derivative_filter")
+            raise UnrealizableError(
+                "an improper controller (an unfiltered derivative) has no response to a logged "
+                "input; give its derivative filter",
+                key="derivative_filter",
+            )
         num, den = np.asarray(controller.num, float), np.asarray(controller.den, float)
         r, p, k = residue(num, den)
-        if p.size and np.min(np.abs(np.subtract.outer(p, p)) + np.eye(p.size) * 1e300) < 1e-9 * max(1, np.max(np.abs(p))):
-            raise UnrealizableError("the controller has a repeated pole; its replay needs distinct poles",
-                                    key="controller")
+        if p.size and np.min(np.abs(np.subtract.outer(p, p)) + np.eye(p.size) * 1e300) < 1e-9 * max(
+            1, np.max(np.abs(p))
+        ):
+            raise UnrealizableError(
+                "the controller has a repeated pole; its replay needs distinct poles", key="controller"
+            )
         p = p.astype(complex)
         r = r.astype(complex)
         # one mode per real pole and per conjugate pair (the pair's output is twice the real part)
@@ -191,13 +197,13 @@ class AnalogReplay:
                 # would slow every product a hundredfold
                 mag = abs(E[i])
                 reach = k.size if mag >= 1 else min(k.size, int(-290 * np.log(10) / np.log(mag)) + 1)
-                kk = k[k.size - reach:]
+                kk = k[k.size - reach :]
                 if self.is_real[i]:
-                    re[i, k.size - reach:] = np.power(E[i].real, kk)
+                    re[i, k.size - reach :] = np.power(E[i].real, kk)
                 else:
                     w = np.exp(np.log(E[i]) * kk)
-                    re[i, k.size - reach:], im[i, k.size - reach:] = w.real, w.imag
-                re[i, :k.size - reach] = 0.0
+                    re[i, k.size - reach :], im[i, k.size - reach :] = w.real, w.imag
+                re[i, : k.size - reach] = 0.0
             self._combo = (b.real, a.real, gf, others, conj, (re, im))
             self._combo_key = self._cache[0]
         b, a, gf, others, conj, powers = self._combo
@@ -209,7 +215,7 @@ class AnalogReplay:
         y, _ = lfilter(b, a, u, zi=zi.real)
         x0 = c1 * u[0] + z
         head, tail = u[:-1], u[1:]
-        re, im = powers[0][:, re_start(powers[0], u.size):], powers[1][:, re_start(powers[1], u.size):]
+        re, im = powers[0][:, re_start(powers[0], u.size) :], powers[1][:, re_start(powers[1], u.size) :]
         dot_head = re @ head + 1j * (im @ head)
         dot_tail = re @ tail + 1j * (im @ tail)
         self.x = E ** (u.size - 1) * x0 + c0 * dot_head + c1 * dot_tail
@@ -269,14 +275,14 @@ class DigitalReplay:
         self.n_next = n_last + 1
         if aligned and self.delay == 0:
             out = y  # the firmware samples at the logged rows and answers at once
-            times, values = inst[-self.keep:], y[-self.keep:]
+            times, values = inst[-self.keep :], y[-self.keep :]
         else:
             # output at a logged time: the newest firmware output whose instant + delay <= t
             times = np.r_[self.held_t, inst + self.delay]
             values = np.r_[self.held_y, y]
             idx = np.searchsorted(times, t + eps, side="right") - 1
             out = values[np.clip(idx, 0, None)]
-        self.held_t, self.held_y = times[-self.keep:], values[-self.keep:]
+        self.held_t, self.held_y = times[-self.keep :], values[-self.keep :]
         self.prev = (t[-1], u[-1])
         return out
 
@@ -335,9 +341,14 @@ class _Stats:
     def figures(self) -> dict:
         if self.n == 0:
             return {"n": 0, "offset": None, "rms": None, "peak": None, "rms_raw": None, "peak_raw": None}
-        return {"n": self.n, "offset": self.mean, "rms": float(np.sqrt(self.m2 / self.n)),
-                "peak": max(self.hi - self.mean, self.mean - self.lo), "rms_raw": float(np.sqrt(self.raw_ss / self.n)),
-                "peak_raw": self.raw_peak}
+        return {
+            "n": self.n,
+            "offset": self.mean,
+            "rms": float(np.sqrt(self.m2 / self.n)),
+            "peak": max(self.hi - self.mean, self.mean - self.lo),
+            "rms_raw": float(np.sqrt(self.raw_ss / self.n)),
+            "peak_raw": self.raw_peak,
+        }
 
 
 class _Sketch:
@@ -408,9 +419,17 @@ class PidLogFit:
     notes: tuple[str, ...] = ()
 
     def as_dict(self) -> dict:
-        return {"names": list(self.names), "values": self.values, "ci95": self.ci95, "offset": self.offset,
-                "residual_rms": self.residual_rms, "rows": self.rows, "form": self.form, "tf_s": self.tf_s,
-                "notes": list(self.notes)}
+        return {
+            "names": list(self.names),
+            "values": self.values,
+            "ci95": self.ci95,
+            "offset": self.offset,
+            "residual_rms": self.residual_rms,
+            "rows": self.rows,
+            "form": self.form,
+            "tf_s": self.tf_s,
+            "notes": list(self.notes),
+        }
 
 
 @dataclass
@@ -435,13 +454,25 @@ class LogEvidence:
     columns: dict = field(default_factory=dict)
 
     def as_dict(self) -> dict:
-        return {"file": str(self.path), "rows": self.rows, "t_span_s": list(self.t_span_s), "step_s": self.step_s,
-                "uneven": self.uneven, "gaps": [list(g) for g in self.gaps], "gap_count": self.gap_count,
-                "saturated_rows": self.saturated_rows, "saturated_spans": [list(s) for s in self.saturated_spans],
-                "missing_rows": self.missing_rows, "settle_rows": self.settle_rows, "input": self.input_kind,
-                "output_range": list(self.output_range), "columns": self.columns,
-                "replays": [{"name": r.name, **r.figures} for r in self.replays],
-                "fit": self.fit.as_dict() if self.fit else None, "notes": list(self.notes)}
+        return {
+            "file": str(self.path),
+            "rows": self.rows,
+            "t_span_s": list(self.t_span_s),
+            "step_s": self.step_s,
+            "uneven": self.uneven,
+            "gaps": [list(g) for g in self.gaps],
+            "gap_count": self.gap_count,
+            "saturated_rows": self.saturated_rows,
+            "saturated_spans": [list(s) for s in self.saturated_spans],
+            "missing_rows": self.missing_rows,
+            "settle_rows": self.settle_rows,
+            "input": self.input_kind,
+            "output_range": list(self.output_range),
+            "columns": self.columns,
+            "replays": [{"name": r.name, **r.figures} for r in self.replays],
+            "fit": self.fit.as_dict() if self.fit else None,
+            "notes": list(self.notes),
+        }
 
 
 # ----------------------------------------------------------------------------- PID regressors
@@ -481,8 +512,10 @@ class _PidTerms:
                 self.terms.append(AnalogReplay(Controller.analog([1.0], [1.0, 0.0])))
             if pid.kd > 0:
                 if pid.tf <= 0:
-                    raise UnrealizableError("fitting an unfiltered derivative from a log needs the form's derivative "
-                                            "filter (n or tf)", key="fit")
+                    raise UnrealizableError(
+                        "fitting an unfiltered derivative from a log needs the form's derivative filter (n or tf)",
+                        key="fit",
+                    )
                 self.terms.append(AnalogReplay(Controller.analog([1.0, 0.0], [pid.tf, 1.0])))
             self.p_term = None
 
@@ -493,9 +526,18 @@ class _PidTerms:
 
 
 # ----------------------------------------------------------------------------- the pass
-def log_evidence(path: str | Path, forms: list, *, columns: dict | None = None, units: dict | None = None,
-                 decimal: str = ".", output_limits: tuple[float, float] | None = None, fit=None,
-                 chunk_rows: int = CHUNK_ROWS, option: str = "--log-columns") -> LogEvidence:
+def log_evidence(
+    path: str | Path,
+    forms: list,
+    *,
+    columns: dict | None = None,
+    units: dict | None = None,
+    decimal: str = ".",
+    output_limits: tuple[float, float] | None = None,
+    fit=None,
+    chunk_rows: int = CHUNK_ROWS,
+    option: str = "--log-columns",
+) -> LogEvidence:
     """Replay the log at ``path`` through each ``(name, GivenForm or replay engine)`` of ``forms``;
     ``fit``: a GivenForm with PID settings whose parameters to fit from the log (or None).
     ``output_limits`` (low, high): the output's limits, to find saturated rows."""
@@ -507,8 +549,11 @@ def log_evidence(path: str | Path, forms: list, *, columns: dict | None = None, 
     elif {"setpoint", "measurement"} <= have:
         kind = "setpoint − measurement"
     else:
-        raise InputError("the log needs the controller's input: an 'error' column, or 'setpoint' and 'measurement' "
-                         f"columns (map other names with {option})", where=f"{path.name}:1")
+        raise InputError(
+            "the log needs the controller's input: an 'error' column, or 'setpoint' and 'measurement' "
+            f"columns (map other names with {option})",
+            where=f"{path.name}:1",
+        )
     notes = []
     if "error" in have and ({"setpoint", "measurement"} & have):
         notes.append("the log has an error column and setpoint/measurement; the error column is used")
@@ -535,13 +580,19 @@ def log_evidence(path: str | Path, forms: list, *, columns: dict | None = None, 
         out = data["output"]
         tcol = lay.first("time")
         if t_last is not None and t[0] <= t_last:
-            raise InputError(f"column {tcol.header!r}: time must rise row by row; {t[0] / tcol.factor:g} follows "
-                             f"{t_last / tcol.factor:g}", where=f"{path.name}:{lines[0]}")
+            raise InputError(
+                f"column {tcol.header!r}: time must rise row by row; {t[0] / tcol.factor:g} follows "
+                f"{t_last / tcol.factor:g}",
+                where=f"{path.name}:{lines[0]}",
+            )
         bad = np.flatnonzero(np.diff(t) <= 0)
         if bad.size:
             i = bad[0] + 1
-            raise InputError(f"column {tcol.header!r}: time must rise row by row; {t[i] / tcol.factor:g} follows "
-                             f"{t[i - 1] / tcol.factor:g}", where=f"{path.name}:{lines[i]}")
+            raise InputError(
+                f"column {tcol.header!r}: time must rise row by row; {t[i] / tcol.factor:g} follows "
+                f"{t[i - 1] / tcol.factor:g}",
+                where=f"{path.name}:{lines[i]}",
+            )
         ok = np.isfinite(e) & np.isfinite(out)
         missing += int((~ok).sum())
         t, e, out, lines = t[ok], e[ok], out[ok], lines[ok]
@@ -574,7 +625,7 @@ def log_evidence(path: str | Path, forms: list, *, columns: dict | None = None, 
         use = ~sat & (t >= t_first + settle)
         settle_rows += int(((t < t_first + settle) & ~sat).sum())
         replayed = []
-        for (name, eng), st in zip(engines, stats):
+        for (name, eng), st in zip(engines, stats):  # noqa: B007
             y = eng.run(t, e)
             st.add((out - y)[use])
             replayed.append(y)
@@ -587,14 +638,19 @@ def log_evidence(path: str | Path, forms: list, *, columns: dict | None = None, 
         raise InputError("no data rows with all values after the header", where=f"{path.name}:2")
     if hi_out == lo_out:  # nothing to replay against: every figure would be about a constant
         col = lay.first("output")
-        raise InputError(f"column {col.header!r} never moves: {lo_out / getattr(col, 'factor', 1.0):g} in all {rows:,} "
-                         "rows, so the log shows nothing of how the controller responds (in manual, held or saturated "
-                         "throughout); log a period in automatic where the output moves", where=f"{path.name}:2")
+        raise InputError(
+            f"column {col.header!r} never moves: {lo_out / getattr(col, 'factor', 1.0):g} in all {rows:,} "
+            "rows, so the log shows nothing of how the controller responds (in manual, held or saturated "
+            "throughout); log a period in automatic where the output moves",
+            where=f"{path.name}:2",
+        )
     if span_open is not None:
         spans.append((span_open, t_last))
     if output_limits is None and saturated:
-        notes.append("saturation found where the output held still while the input moved, for two steps or more "
-                     "(give the output limits to find it exactly)")
+        notes.append(
+            "saturation found where the output held still while the input moved, for two steps or more "
+            "(give the output limits to find it exactly)"
+        )
     span_range = (lo_out, hi_out)
     rng = hi_out - lo_out
     replays = []
@@ -606,15 +662,37 @@ def log_evidence(path: str | Path, forms: list, *, columns: dict | None = None, 
         replays.append(FormReplay(name, fig))
     fit_result = _solve_fit(normal, terms, fit) if terms is not None else None
     sk = sketch.array()
-    sketch_data = {"t": sk[:, 0], "output": sk[:, 1], "replayed": {name: sk[:, 2 + i] for i, (name, _) in
-                                                                   enumerate(engines)}}
+    sketch_data = {
+        "t": sk[:, 0],
+        "output": sk[:, 1],
+        "replayed": {name: sk[:, 2 + i] for i, (name, _) in enumerate(engines)},
+    }
     if settle:
-        notes.append(f"the first {settle:.4g} s (five time constants of the slowest decaying mode) are left out of "
-                     "the figures: the running controller's state at the first row is unknown")
+        notes.append(
+            f"the first {settle:.4g} s (five time constants of the slowest decaying mode) are left out of "
+            "the figures: the running controller's state at the first row is unknown"
+        )
     del prev_line
-    return LogEvidence(path, rows, (t_first, t_last), step or 0.0, uneven, gaps, gap_count, saturated,
-                       spans[:20], missing, settle_rows, kind, span_range, replays, fit_result, sketch_data, notes,
-                       {k: [c.header for c in v] for k, v in lay.columns.items()})
+    return LogEvidence(
+        path,
+        rows,
+        (t_first, t_last),
+        step or 0.0,
+        uneven,
+        gaps,
+        gap_count,
+        saturated,
+        spans[:20],
+        missing,
+        settle_rows,
+        kind,
+        span_range,
+        replays,
+        fit_result,
+        sketch_data,
+        notes,
+        {k: [c.header for c in v] for k, v in lay.columns.items()},
+    )
 
 
 def _held_while_input_moves(out: np.ndarray, e: np.ndarray, prev) -> np.ndarray:
@@ -661,18 +739,34 @@ def _solve_fit(normal: _Normal, terms: _PidTerms, given) -> PidLogFit:
         theta = np.linalg.solve(normal.xtx, normal.xty)
         inv = np.linalg.inv(normal.xtx)
     except np.linalg.LinAlgError:
-        raise InputError("the log does not excite the controller enough to tell its terms apart (the input is "
-                         "constant or too smooth)", key="fit") from None
+        raise InputError(
+            "the log does not excite the controller enough to tell its terms apart (the input is "
+            "constant or too smooth)",
+            key="fit",
+        ) from None
     rss = max(normal.yty - 2 * theta @ normal.xty + theta @ normal.xtx @ theta, 0.0)
     sigma2 = rss / (normal.n - p)
     half = 1.959963984540054 * np.sqrt(np.maximum(np.diag(inv) * sigma2, 0.0))
     values = {n: float(theta[i]) for i, n in enumerate(terms.names)}
     ci = {n: float(half[i]) for i, n in enumerate(terms.names)}
-    notes = ["intervals assume independent residuals; a slowly wandering residual (unmeasured disturbance, "
-             "a plant that drifts) makes them too narrow"]
+    notes = [
+        "intervals assume independent residuals; a slowly wandering residual (unmeasured disturbance, "
+        "a plant that drifts) makes them too narrow"
+    ]
     cond = np.linalg.cond(normal.xtx)
     if cond > 1e12:
-        notes.append(f"the terms are nearly indistinguishable in this log (condition number {cond:.2g}); the values "
-                     "are poorly determined")
-    return PidLogFit(tuple(terms.names), values, ci, float(theta[-1]), float(np.sqrt(rss / normal.n)), normal.n,
-                     "PID block" if terms.block else "PID law", terms.tf, tuple(notes))
+        notes.append(
+            f"the terms are nearly indistinguishable in this log (condition number {cond:.2g}); the values "
+            "are poorly determined"
+        )
+    return PidLogFit(
+        tuple(terms.names),
+        values,
+        ci,
+        float(theta[-1]),
+        float(np.sqrt(rss / normal.n)),
+        normal.n,
+        "PID block" if terms.block else "PID law",
+        terms.tf,
+        tuple(notes),
+    )

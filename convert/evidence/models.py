@@ -12,7 +12,7 @@ farad; kp plain, ki 1/s, kd s, tf s).
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Callable
+from collections.abc import Callable
 
 import numpy as np
 
@@ -43,9 +43,12 @@ def parametric_model(given) -> ParametricModel:
         return _netlist(given)
     if given.form == "pid" or (given.form == "analog" and "pid" in d):
         return _pid(given)
-    raise InputError("a fit needs a card (catalog topology or netlist) or PID settings; "
-                     f"{'an expression' if given.form == 'analog' else 'firmware coefficients'} has no parts or "
-                     "parameters to estimate", where=given.where)
+    raise InputError(
+        "a fit needs a card (catalog topology or netlist) or PID settings; "
+        f"{'an expression' if given.form == 'analog' else 'firmware coefficients'} has no parts or "
+        "parameters to estimate",
+        where=given.where,
+    )
 
 
 def _card(given) -> ParametricModel:
@@ -60,8 +63,9 @@ def _card(given) -> ParametricModel:
         merged = {k: np.array([float(values.get(k, v))]) for k, v in parts.items()}
         return topo.response(merged, np.asarray(f_hz, dtype=float))[0]
 
-    return ParametricModel(f"card {topo.name}", names, {k: float(parts[k]) for k in names},
-                           {k: part_kind(k) for k in names}, response)
+    return ParametricModel(
+        f"card {topo.name}", names, {k: float(parts[k]) for k in names}, {k: part_kind(k) for k in names}, response
+    )
 
 
 def _netlist(given) -> ParametricModel:
@@ -130,6 +134,7 @@ def _pid(given) -> ParametricModel:
             c = Controller.from_b_a(b, a, 1 / fs).frequency_response(f)
             return c * hold_and_delay_factor(f, 1 / fs, delay)
     else:
+
         def response(values: dict, f_hz) -> np.ndarray:
             v = {k: float(values.get(k, getattr(pid, k))) for k in PID_PARAMETERS}
             s = 2j * np.pi * np.asarray(f_hz, dtype=float)
@@ -137,5 +142,6 @@ def _pid(given) -> ParametricModel:
             return pid.sign * out
 
     label = "PID block" if block else "PID law"
-    return ParametricModel(label, names, {k: float(getattr(pid, k)) for k in names}, {k: kinds[k] for k in names},
-                           response)
+    return ParametricModel(
+        label, names, {k: float(getattr(pid, k)) for k in names}, {k: kinds[k] for k in names}, response
+    )

@@ -58,15 +58,25 @@ class Sweep:
     columns: dict = field(default_factory=dict)
 
 
-def read_sweep(path: str | Path, *, columns: dict | None = None, units: dict | None = None, decimal: str = ".",
-               averages: int | None = None, option: str = "columns") -> Sweep:
+def read_sweep(
+    path: str | Path,
+    *,
+    columns: dict | None = None,
+    units: dict | None = None,
+    decimal: str = ".",
+    averages: int | None = None,
+    option: str = "columns",
+) -> Sweep:
     """Read a sweep CSV (see the module docstring). ``averages``: the analyzer's number of
     averages, which turns a coherence column into a noise figure."""
     path = Path(path)
     lay = layout(path, SWEEP_ROLES, columns=columns, units=units, decimal=decimal, option=option)
     if len(lay.columns["gain"]) != len(lay.columns["phase"]):
-        raise InputError(f"{len(lay.columns['gain'])} gain columns but {len(lay.columns['phase'])} phase columns; "
-                         "each repeat needs both", where=f"{path.name}:1")
+        raise InputError(
+            f"{len(lay.columns['gain'])} gain columns but {len(lay.columns['phase'])} phase columns; "
+            "each repeat needs both",
+            where=f"{path.name}:1",
+        )
     parts = list(chunks(lay))
     if not parts:
         raise InputError("no data rows after the header", where=f"{path.name}:2")
@@ -76,13 +86,18 @@ def read_sweep(path: str | Path, *, columns: dict | None = None, units: dict | N
     fcol = lay.first("frequency")
     bad = np.flatnonzero(~(f > 0))
     if bad.size:
-        raise InputError(f"column {fcol.header!r}: frequencies must be positive, found {f[bad[0]] / fcol.factor:g}",
-                         where=f"{path.name}:{lines[bad[0]]}")
+        raise InputError(
+            f"column {fcol.header!r}: frequencies must be positive, found {f[bad[0]] / fcol.factor:g}",
+            where=f"{path.name}:{lines[bad[0]]}",
+        )
     step = np.flatnonzero(np.diff(f) <= 0)
     if step.size:
         i = step[0] + 1
-        raise InputError(f"column {fcol.header!r}: frequencies must rise row by row; {f[i] / fcol.factor:g} follows "
-                         f"{f[i - 1] / fcol.factor:g}", where=f"{path.name}:{lines[i]}")
+        raise InputError(
+            f"column {fcol.header!r}: frequencies must rise row by row; {f[i] / fcol.factor:g} follows "
+            f"{f[i - 1] / fcol.factor:g}",
+            where=f"{path.name}:{lines[i]}",
+        )
     if f.size < 3:
         raise InputError(f"a sweep needs at least 3 points, found {f.size}", where=f"{path.name}:{lines[-1]}")
     gain = data["gain"].reshape(f.size, -1)
@@ -92,8 +107,10 @@ def read_sweep(path: str | Path, *, columns: dict | None = None, units: dict | N
         if col.quantity == "ratio":
             nonpos = np.flatnonzero(~(gain[:, j] > 0))
             if nonpos.size:
-                raise InputError(f"column {col.header!r}: a gain ratio must be positive, found {gain[nonpos[0], j]:g}",
-                                 where=f"{path.name}:{lines[nonpos[0]]}")
+                raise InputError(
+                    f"column {col.header!r}: a gain ratio must be positive, found {gain[nonpos[0], j]:g}",
+                    where=f"{path.name}:{lines[nonpos[0]]}",
+                )
             ln_gain[:, j] = np.log(gain[:, j])
         else:
             ln_gain[:, j] = gain[:, j] / DB_PER_NEPER
@@ -102,8 +119,10 @@ def read_sweep(path: str | Path, *, columns: dict | None = None, units: dict | N
         ccol = lay.first("coherence")
         bad = np.flatnonzero((coh < 0) | (coh > 1))
         if bad.size:
-            raise InputError(f"column {ccol.header!r}: coherence lies between 0 and 1, found {coh[bad[0]]:g}",
-                             where=f"{path.name}:{lines[bad[0]]}")
+            raise InputError(
+                f"column {ccol.header!r}: coherence lies between 0 and 1, found {coh[bad[0]]:g}",
+                where=f"{path.name}:{lines[bad[0]]}",
+            )
     # the repeats' mean as a complex response; phases unwrapped against the first repeat
     ph = phase.copy()
     for j in range(1, ph.shape[1]):
@@ -125,8 +144,18 @@ def read_sweep(path: str | Path, *, columns: dict | None = None, units: dict | N
         noise_db = eps * DB_PER_NEPER
         noise_deg = np.degrees(eps)
         source = f"coherence with {averages} averages (random error of the gain and phase estimates)"
-    return Sweep(path, f, response, lines, coh, n, noise_db, noise_deg, source,
-                 {k: [c.header for c in v] for k, v in lay.columns.items()})
+    return Sweep(
+        path,
+        f,
+        response,
+        lines,
+        coh,
+        n,
+        noise_db,
+        noise_deg,
+        source,
+        {k: [c.header for c in v] for k, v in lay.columns.items()},
+    )
 
 
 def scatter_sigma(values: np.ndarray) -> float:
@@ -159,16 +188,38 @@ class SweepCheck:
     notes: list
 
     def summary(self) -> dict:
-        return {"noise_source": self.noise_source, "trusted_bands_hz": [list(b) for b in self.trusted_bands],
-                "covers_band": self.covers_band, "figures": self.figures, "notes": list(self.notes),
-                "points": [{"f_hz": float(f), "gain_error_db": float(g), "phase_error_deg": float(p),
-                            "noise_db": float(nd), "noise_deg": float(np_), "trusted": bool(t)}
-                           for f, g, p, nd, np_, t in zip(self.f_hz, self.gain_error_db, self.phase_error_deg,
-                                                          self.noise_db, self.noise_deg, self.trusted)]}
+        return {
+            "noise_source": self.noise_source,
+            "trusted_bands_hz": [list(b) for b in self.trusted_bands],
+            "covers_band": self.covers_band,
+            "figures": self.figures,
+            "notes": list(self.notes),
+            "points": [
+                {
+                    "f_hz": float(f),
+                    "gain_error_db": float(g),
+                    "phase_error_deg": float(p),
+                    "noise_db": float(nd),
+                    "noise_deg": float(np_),
+                    "trusted": bool(t),
+                }
+                for f, g, p, nd, np_, t in zip(
+                    self.f_hz, self.gain_error_db, self.phase_error_deg, self.noise_db, self.noise_deg, self.trusted
+                )
+            ],
+        }
 
 
-def check_sweep(sweep: Sweep, model: np.ndarray, band_hz: tuple[float, float], *, gain_limit_db: float,
-                phase_limit_deg: float, min_coherence: float = MIN_COHERENCE, inverted: bool = False) -> SweepCheck:
+def check_sweep(
+    sweep: Sweep,
+    model: np.ndarray,
+    band_hz: tuple[float, float],
+    *,
+    gain_limit_db: float,
+    phase_limit_deg: float,
+    min_coherence: float = MIN_COHERENCE,
+    inverted: bool = False,
+) -> SweepCheck:
     """Compare ``sweep`` with ``model`` (the form's complex response at ``sweep.f_hz``; the
     controller, error → output). ``inverted``: the bench measured −model (an inverting stage
     read at its output)."""
@@ -191,8 +242,11 @@ def check_sweep(sweep: Sweep, model: np.ndarray, band_hz: tuple[float, float], *
         s = max(sg / DB_PER_NEPER, np.radians(sp)) if np.isfinite(sg) and np.isfinite(sp) else np.inf
         nd = np.full(sweep.f_hz.size, s * DB_PER_NEPER)
         np_ = np.full(sweep.f_hz.size, np.degrees(s))
-        source = sweep.noise_source + (f": {s * DB_PER_NEPER:.3g} dB, {np.degrees(s):.3g} deg" if np.isfinite(s) else
-                                       ": too few points (fewer than 5) to estimate; nothing is trusted")
+        source = sweep.noise_source + (
+            f": {s * DB_PER_NEPER:.3g} dB, {np.degrees(s):.3g} deg"
+            if np.isfinite(s)
+            else ": too few points (fewer than 5) to estimate; nothing is trusted"
+        )
     lo, hi = band_hz
     in_band = (sweep.f_hz >= lo) & (sweep.f_hz <= hi)
     trusted = (2 * nd < gain_limit_db) & (2 * np_ < phase_limit_deg) & np.isfinite(gerr) & np.isfinite(perr)
@@ -214,8 +268,10 @@ def check_sweep(sweep: Sweep, model: np.ndarray, band_hz: tuple[float, float], *
             figures[key] = float("inf")
             figures[f"{key}_note"] = f"band not covered by trusted points ({why})"
     if np.isfinite(perr).any() and abs(np.nanmedian(perr)) > 150:
-        notes.append("the measured phase is about 180° from the model: if the bench read an inverting stage at "
-                     "its output, say the measurement is inverted (--inverted / inverted = true)")
+        notes.append(
+            "the measured phase is about 180° from the model: if the bench read an inverting stage at "
+            "its output, say the measurement is inverted (--inverted / inverted = true)"
+        )
     return SweepCheck(sweep.f_hz, gerr, perr, nd, np_, source, trusted, bands, in_band, covered, figures, notes)
 
 
@@ -235,8 +291,10 @@ def _coverage(f, trusted, in_band, band_hz) -> str:
         return f"the sweep ends at {format_value(f[-1], 'hz')}, below the band's top {format_value(hi, 'hz')}"
     bad = f[in_band & ~trusted]
     if bad.size:
-        return (f"{bad.size} point(s) in the band are not trusted (noise or coherence), from "
-                f"{format_value(bad[0], 'hz')} to {format_value(bad[-1], 'hz')}")
+        return (
+            f"{bad.size} point(s) in the band are not trusted (noise or coherence), from "
+            f"{format_value(bad[0], 'hz')} to {format_value(bad[-1], 'hz')}"
+        )
     return "no measured point in the band"
 
 
@@ -253,10 +311,17 @@ class SweepEvidence:
     fit: object = None  # convert.evidence.fit.FitResult
 
     def as_dict(self) -> dict:
-        out = {"file": str(self.sweep.path), "points": int(self.sweep.f_hz.size), "repeats": self.sweep.repeats,
-               "columns": self.sweep.columns, "band_hz": list(self.band_hz), "band_default": self.band_default,
-               "check": self.check.summary(), "verdict": self.verdict.overall,
-               "judgements": [j.as_dict() for j in self.verdict.judgements if j.status != "not set"]}
+        out = {
+            "file": str(self.sweep.path),
+            "points": int(self.sweep.f_hz.size),
+            "repeats": self.sweep.repeats,
+            "columns": self.sweep.columns,
+            "band_hz": list(self.band_hz),
+            "band_default": self.band_default,
+            "check": self.check.summary(),
+            "verdict": self.verdict.overall,
+            "judgements": [j.as_dict() for j in self.verdict.judgements if j.status != "not set"],
+        }
         out["fit"] = self.fit.as_dict() if self.fit is not None else None
         return out
 
@@ -272,9 +337,18 @@ def form_response(given, f_hz, case=None) -> np.ndarray:
     return response_seen_from_loop(ctrl, f_hz, delay_s=delay, via="zpk")
 
 
-def sweep_evidence(given, sweep: Sweep, *, band_hz=None, limits: dict | None = None, inverted: bool = False,
-                   min_coherence: float = MIN_COHERENCE, fit: bool = False, fit_names=None,
-                   case=None) -> SweepEvidence:
+def sweep_evidence(
+    given,
+    sweep: Sweep,
+    *,
+    band_hz=None,
+    limits: dict | None = None,
+    inverted: bool = False,
+    min_coherence: float = MIN_COHERENCE,
+    fit: bool = False,
+    fit_names=None,
+    case=None,
+) -> SweepEvidence:
     """Check ``sweep`` against the model of ``given`` (a :class:`convert.given.GivenForm`) over
     ``band_hz`` (default: the sweep's own range) with the gain/phase ``limits``
     (``max_gain_error_db``, ``max_phase_error_deg``; 1 dB and 5° when not set); fit the model's
@@ -287,11 +361,15 @@ def sweep_evidence(given, sweep: Sweep, *, band_hz=None, limits: dict | None = N
     default = band_hz is None
     band = (float(sweep.f_hz[0]), float(sweep.f_hz[-1])) if default else tuple(band_hz)
     if given.form in ("digital", "pid") and sweep.f_hz[-1] >= given.data["fs_hz"] / 2:
-        raise InputError(f"the sweep reaches {sweep.f_hz[-1]:g} Hz, at or above the firmware's Nyquist frequency "
-                         f"({given.data['fs_hz'] / 2:g} Hz); keep the sweep below it", where=str(sweep.path.name))
+        raise InputError(
+            f"the sweep reaches {sweep.f_hz[-1]:g} Hz, at or above the firmware's Nyquist frequency "
+            f"({given.data['fs_hz'] / 2:g} Hz); keep the sweep below it",
+            where=str(sweep.path.name),
+        )
     model = form_response(given, sweep.f_hz, case)
-    check = check_sweep(sweep, model, band, gain_limit_db=gl, phase_limit_deg=pl, min_coherence=min_coherence,
-                        inverted=inverted)
+    check = check_sweep(
+        sweep, model, band, gain_limit_db=gl, phase_limit_deg=pl, min_coherence=min_coherence, inverted=inverted
+    )
     criteria = {"max_gain_error_db": gl, "max_phase_error_deg": pl}
     verdict = judge(criteria, {"measurement": check.figures}, has_plant=False)
     result = SweepEvidence(sweep, model, check, verdict, band, default)
@@ -300,6 +378,14 @@ def sweep_evidence(given, sweep: Sweep, *, band_hz=None, limits: dict | None = N
         from convert.evidence.models import parametric_model
 
         pm = parametric_model(given)
-        result.fit = fit_sweep(pm, sweep.f_hz, sweep.response, check.noise_db, check.noise_deg, names=fit_names,
-                               inverted=inverted, noise_source=check.noise_source)
+        result.fit = fit_sweep(
+            pm,
+            sweep.f_hz,
+            sweep.response,
+            check.noise_db,
+            check.noise_deg,
+            names=fit_names,
+            inverted=inverted,
+            noise_source=check.noise_source,
+        )
     return result

@@ -141,25 +141,55 @@ def run_case(case_file: str, out_dir: str, *, force: bool = False, draws: int | 
         status = "pass" if results.exit_code == 0 else "fail"
         extra = {}
         if worst is not None:
-            extra = dict(worst_label=worst.label, worst_realization=worst.realization, worst_value=worst.value,
-                         worst_limit=worst.limit, worst_unit=worst.unit, worst_ratio=_ratio(worst))
+            extra = dict(
+                worst_label=worst.label,
+                worst_realization=worst.realization,
+                worst_value=worst.value,
+                worst_limit=worst.limit,
+                worst_unit=worst.unit,
+                worst_ratio=_ratio(worst),
+            )
         message = "" if status == "pass" else _fail_message(results)
-        return CaseOutcome(case_file=str(case_file), name=name, status=status, message=message, checked=checked,
-                           seconds=time.perf_counter() - start, report=str(folder), **extra)
+        return CaseOutcome(
+            case_file=str(case_file),
+            name=name,
+            status=status,
+            message=message,
+            checked=checked,
+            seconds=time.perf_counter() - start,
+            report=str(folder),
+            **extra,
+        )
     except InputError as exc:
-        return CaseOutcome(case_file=str(case_file), name=name, status="unreadable", message=exc.one_line(),
-                           seconds=time.perf_counter() - start)
+        return CaseOutcome(
+            case_file=str(case_file),
+            name=name,
+            status="unreadable",
+            message=exc.one_line(),
+            seconds=time.perf_counter() - start,
+        )
     except OSError as exc:
         where = exc.filename if exc.filename is not None else case_file
-        return CaseOutcome(case_file=str(case_file), name=name, status="unreadable",
-                           message=f"{where}: {exc.strerror or exc}", seconds=time.perf_counter() - start)
+        return CaseOutcome(
+            case_file=str(case_file),
+            name=name,
+            status="unreadable",
+            message=f"{where}: {exc.strerror or exc}",
+            seconds=time.perf_counter() - start,
+        )
     except MemoryError:
-        return CaseOutcome(case_file=str(case_file), name=name, status="error",
-                           message="not enough memory for this case", seconds=time.perf_counter() - start)
+        return CaseOutcome(
+            case_file=str(case_file),
+            name=name,
+            status="error",
+            message="not enough memory for this case",
+            seconds=time.perf_counter() - start,
+        )
     except Exception as exc:  # an internal error in one case must not stop the batch
         text = " ".join(f"internal error ({type(exc).__name__}): {exc}".split())
-        return CaseOutcome(case_file=str(case_file), name=name, status="error", message=text[:300],
-                           seconds=time.perf_counter() - start)
+        return CaseOutcome(
+            case_file=str(case_file), name=name, status="error", message=text[:300], seconds=time.perf_counter() - start
+        )
 
 
 def _ratio(judgement) -> float | None:
@@ -221,13 +251,20 @@ def process_pool(workers: int) -> Executor:
     import multiprocessing
     from concurrent.futures import ProcessPoolExecutor
 
-    return ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
-                               initializer=_limit_worker_threads)
+    return ProcessPoolExecutor(
+        max_workers=workers, mp_context=multiprocessing.get_context("spawn"), initializer=_limit_worker_threads
+    )
 
 
-def run_batch(case_files: Sequence[str | Path], out_dir: str | Path, *, executor: Executor | None = None,
-              force: bool = False, draws: int | None = None,
-              progress: Callable[[CaseOutcome], None] | None = None) -> BatchResult:
+def run_batch(
+    case_files: Sequence[str | Path],
+    out_dir: str | Path,
+    *,
+    executor: Executor | None = None,
+    force: bool = False,
+    draws: int | None = None,
+    progress: Callable[[CaseOutcome], None] | None = None,
+) -> BatchResult:
     """Run every case file on ``executor`` (default: in this process) and write one report folder
     per case under ``out_dir``; return the outcomes in input order. ``progress`` is called with
     each outcome as it completes. The caller writes :func:`index_html` and :func:`summary_json`
@@ -238,22 +275,28 @@ def run_batch(case_files: Sequence[str | Path], out_dir: str | Path, *, executor
     files = [Path(f) for f in case_files]
     names = report_folder_names(files)
     executor = executor or SerialExecutor()
-    futures = {executor.submit(run_case, str(f), str(out / n), force=force, draws=draws): i
-               for i, (f, n) in enumerate(zip(files, names, strict=True))}
+    futures = {
+        executor.submit(run_case, str(f), str(out / n), force=force, draws=draws): i
+        for i, (f, n) in enumerate(zip(files, names, strict=True))
+    }
     outcomes: list[CaseOutcome | None] = [None] * len(files)
     for future in as_completed(futures):
         i = futures[future]
         try:
             outcome = future.result()
         except Exception as exc:  # the worker itself died (killed, out of memory, lost)
-            outcome = CaseOutcome(case_file=str(files[i]), name=names[i], status="error",
-                                  message=" ".join(f"the worker running this case stopped ({type(exc).__name__}: "
-                                                   f"{exc})".split())[:300])
+            outcome = CaseOutcome(
+                case_file=str(files[i]),
+                name=names[i],
+                status="error",
+                message=" ".join(f"the worker running this case stopped ({type(exc).__name__}: {exc})".split())[:300],
+            )
         outcomes[i] = outcome
         if progress is not None:
             progress(outcome)
-    return BatchResult(outcomes=tuple(o for o in outcomes if o is not None), out_dir=str(out),
-                       seconds=time.perf_counter() - start)
+    return BatchResult(
+        outcomes=tuple(o for o in outcomes if o is not None), out_dir=str(out), seconds=time.perf_counter() - start
+    )
 
 
 def summary_json(result: BatchResult) -> str:
@@ -261,8 +304,13 @@ def summary_json(result: BatchResult) -> str:
 
     from convert.jsonable import to_jsonable
 
-    data = {"schema_version": 1, "exit_code": result.exit_code, "counts": result.counts(),
-            "seconds": result.seconds, "cases": [o.as_dict() for o in result.outcomes]}
+    data = {
+        "schema_version": 1,
+        "exit_code": result.exit_code,
+        "counts": result.counts(),
+        "seconds": result.seconds,
+        "cases": [o.as_dict() for o in result.outcomes],
+    }
     return json.dumps(to_jsonable(data), indent=2) + "\n"
 
 
@@ -290,9 +338,11 @@ def index_html(result: BatchResult) -> str:
                 link = f'<a href="{e(rel.as_posix(), quote=True)}">{e(o.name)}</a>'
             except ValueError:
                 pass
-        rows.append(f"<tr class=\"{e(o.status)}\"><td>{link}</td><td>{e(o.status.upper())}</td>"
-                    f"<td>{e(format_worst(o))}</td><td>{e(o.message)}</td><td>{o.seconds:.1f} s</td>"
-                    f"<td>{e(o.case_file)}</td></tr>")
+        rows.append(
+            f'<tr class="{e(o.status)}"><td>{link}</td><td>{e(o.status.upper())}</td>'
+            f"<td>{e(format_worst(o))}</td><td>{e(o.message)}</td><td>{o.seconds:.1f} s</td>"
+            f"<td>{e(o.case_file)}</td></tr>"
+        )
     return f"""<!doctype html>
 <html lang="en"><head><meta charset="utf-8"><title>loopshift batch: {e(summary)}</title>
 <style>

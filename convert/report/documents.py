@@ -66,9 +66,13 @@ def html_report(results, figures: dict[str, bytes]) -> str:
     """The whole report as one HTML document with every figure embedded (data: URIs)."""
     case = results.case
     v = results.verdict.overall
-    parts = ["<!DOCTYPE html>", '<html lang="en"><head><meta charset="utf-8">',
-             f"<title>loopshift report — {html.escape(case.title)}</title>", f"<style>{_CSS}</style></head><body>",
-             "<h1>Equivalence report</h1>"]
+    parts = [
+        "<!DOCTYPE html>",
+        '<html lang="en"><head><meta charset="utf-8">',
+        f"<title>loopshift report — {html.escape(case.title)}</title>",
+        f"<style>{_CSS}</style></head><body>",
+        "<h1>Equivalence report</h1>",
+    ]
     # the computed verdict, the alarms and the cautions first; the case file's own words after them
     for alarm in results.alarms:
         parts.append(f'<p class="alarm" role="alert">{html.escape(alarm)}</p>')
@@ -78,9 +82,12 @@ def html_report(results, figures: dict[str, bytes]) -> str:
         parts.append('<ul class="failed">' + "".join(f"<li>{html.escape(t)}</li>" for t in failed) + "</ul>")
     if results.verdict.unchecked_reason:
         parts.append(f"<p>{html.escape(results.verdict.unchecked_reason)}</p>")
-    parts.append('<div class="caution"><strong>Cautions.</strong><ul>'
-                 + "".join(f"<li>{html.escape(c)}</li>" for c in CAUTIONS) + "</ul></div>")
-    parts.append(f'<h2>Case</h2><p><strong>Title (from the case file):</strong> {html.escape(case.title)}</p>')
+    parts.append(
+        '<div class="caution"><strong>Cautions.</strong><ul>'
+        + "".join(f"<li>{html.escape(c)}</li>" for c in CAUTIONS)
+        + "</ul></div>"
+    )
+    parts.append(f"<h2>Case</h2><p><strong>Title (from the case file):</strong> {html.escape(case.title)}</p>")
     if case.description:
         parts.append(f"<p><strong>Description (from the case file):</strong> {html.escape(case.description)}</p>")
     for title, header, rows in input_tables(results):
@@ -89,8 +96,9 @@ def html_report(results, figures: dict[str, bytes]) -> str:
     for title, header, rows in tables:
         parts.append(_html_table(title, header, rows))
     if results.skipped:
-        parts.append("<h2>Checks skipped</h2><ul>" + "".join(f"<li>{html.escape(s)}</li>" for s in results.skipped)
-                     + "</ul>")
+        parts.append(
+            "<h2>Checks skipped</h2><ul>" + "".join(f"<li>{html.escape(s)}</li>" for s in results.skipped) + "</ul>"
+        )
     if results.notes:
         parts.append("<h2>Notes</h2><ul>" + "".join(f"<li>{html.escape(s)}</li>" for s in results.notes) + "</ul>")
     if results.rate_advice:
@@ -98,12 +106,15 @@ def html_report(results, figures: dict[str, bytes]) -> str:
     parts.append("<h2>Figures</h2>")
     for name, data in figures.items():
         b64 = base64.b64encode(data).decode("ascii")
-        parts.append(f'<figure><img alt="{html.escape(_caption(name))}" src="data:image/png;base64,{b64}">'
-                     f"<figcaption>{html.escape(_caption(name))}</figcaption></figure>")
+        parts.append(
+            f'<figure><img alt="{html.escape(_caption(name))}" src="data:image/png;base64,{b64}">'
+            f"<figcaption>{html.escape(_caption(name))}</figcaption></figure>"
+        )
     files = sorted({f for r in results.realizations for f in r.files})
     if files:
-        parts.append("<h2>Files beside this report</h2><ul>" + "".join(f"<li>{html.escape(f)}</li>" for f in files)
-                     + "</ul>")
+        parts.append(
+            "<h2>Files beside this report</h2><ul>" + "".join(f"<li>{html.escape(f)}</li>" for f in files) + "</ul>"
+        )
     parts.append("<p><small>Written by loopshift. The tool computes; it does not certify.</small></p></body></html>")
     return "\n".join(parts)
 
@@ -141,7 +152,7 @@ def md_text(text, *, starts_line: bool = True) -> str:
     if escaped[:1] in ("-", "+", "=", "#"):
         escaped = "\\" + escaped
     digits = len(escaped) - len(escaped.lstrip("0123456789"))
-    if digits and escaped[digits:digits + 1] in (".", ")"):
+    if digits and escaped[digits : digits + 1] in (".", ")"):
         escaped = escaped[:digits] + "\\" + escaped[digits:]
     return escaped
 

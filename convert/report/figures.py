@@ -41,8 +41,9 @@ def display_grid(results) -> np.ndarray:
     m = results.source_margins
     if m is not None and m.sensitivity_peak_hz:
         f_hi = max(f_hi, 2 * m.sensitivity_peak_hz)
-    nyquist = [0.5 * c.fs_hz for c in [results.reference] + [r.controller for r in results.realizations]
-               if c.is_digital]
+    nyquist = [
+        0.5 * c.fs_hz for c in [results.reference] + [r.controller for r in results.realizations] if c.is_digital
+    ]
     if nyquist:
         f_hi = min(f_hi, 0.98 * min(nyquist))
     f_hi = max(f_hi, hi)
@@ -69,15 +70,20 @@ def bode(results) -> bytes:
         color = COLORS[i % len(COLORS)]
         style = "-" if i == 0 else "--"
         ax[0].semilogx(f, 20 * np.log10(np.abs(resp)), style, color=color, label=name, lw=2 if i == 0 else 1.3)
-        ax[1].semilogx(f, np.degrees(np.unwrap(np.angle(np.nan_to_num(resp, nan=1.0)))) * np.where(np.isnan(resp), np.nan, 1),
-                       style, color=color, lw=2 if i == 0 else 1.3)
+        ax[1].semilogx(
+            f,
+            np.degrees(np.unwrap(np.angle(np.nan_to_num(resp, nan=1.0)))) * np.where(np.isnan(resp), np.nan, 1),
+            style,
+            color=color,
+            lw=2 if i == 0 else 1.3,
+        )
         if i:
             with np.errstate(divide="ignore", invalid="ignore"):
                 ratio = resp / ref
             ax[2].semilogx(f, 20 * np.log10(np.abs(ratio)), color=color, lw=1.3, label=name)
             ax[3].semilogx(f, unwrapped_phase_error_deg(ratio), color=color, lw=1.3)
     crit = results.case.criteria
-    for i, (name, resp, r) in enumerate(curves):
+    for i, (name, resp, r) in enumerate(curves):  # noqa: B007
         if r is None or r.band is None:
             continue
         _error_envelope(ax[2], ax[3], r.band, results.reference, COLORS[i % len(COLORS)], (lo, hi), (f[0], f[-1]))
@@ -110,8 +116,13 @@ def _error_envelope(gain_ax, phase_ax, band: dict, reference, color: str, band_h
     from convert.compare.frequency import response_seen_from_loop
 
     keep = (band["f_hz"] >= f_range[0] / 1.05) & (band["f_hz"] <= f_range[1] * 1.05)
-    band = {**band, "f_hz": band["f_hz"][keep], "gain_db": band["gain_db"][:, keep],
-            "phase_deg": band["phase_deg"][:, keep], "nominal_phase_deg": band["nominal_phase_deg"][keep]}
+    band = {
+        **band,
+        "f_hz": band["f_hz"][keep],
+        "gain_db": band["gain_db"][:, keep],
+        "phase_deg": band["phase_deg"][:, keep],
+        "nominal_phase_deg": band["nominal_phase_deg"][keep],
+    }
     f = band["f_hz"]
     if f.size < 2:
         return
@@ -121,15 +132,30 @@ def _error_envelope(gain_ax, phase_ax, band: dict, reference, color: str, band_h
     ref_deg += 360 * np.round((band["nominal_phase_deg"][0] - ref_deg[0]) / 360)
     lo_q, hi_q = band["percentiles"]
     total = band.get("total")
-    gain_ax.fill_between(f, band["gain_db"][0] - ref_db, band["gain_db"][1] - ref_db, color=color, alpha=0.18, lw=0,
-                         label=f"Monte Carlo {lo_q:g}–{hi_q:g} %")
-    phase_ax.fill_between(f, band["phase_deg"][0] - ref_deg, band["phase_deg"][1] - ref_deg, color=color, alpha=0.18,
-                          lw=0)
+    gain_ax.fill_between(
+        f,
+        band["gain_db"][0] - ref_db,
+        band["gain_db"][1] - ref_db,
+        color=color,
+        alpha=0.18,
+        lw=0,
+        label=f"Monte Carlo {lo_q:g}–{hi_q:g} %",
+    )
+    phase_ax.fill_between(
+        f, band["phase_deg"][0] - ref_deg, band["phase_deg"][1] - ref_deg, color=color, alpha=0.18, lw=0
+    )
     if total is not None:
         for a, v in ((gain_ax, total.max_gain_error_db), (phase_ax, total.max_phase_error_deg)):
             if v is not None and np.isfinite(v):
-                a.hlines([v, -v], band_hz[0], band_hz[1], color=color, lw=1.2, ls="-.",
-                         label="p99 of per-draw max (the verdict's figure)" if a is gain_ax else None)
+                a.hlines(
+                    [v, -v],
+                    band_hz[0],
+                    band_hz[1],
+                    color=color,
+                    lw=1.2,
+                    ls="-.",
+                    label="p99 of per-draw max (the verdict's figure)" if a is gain_ax else None,
+                )
 
 
 def monte_carlo(results, realization) -> bytes:
@@ -157,11 +183,26 @@ def monte_carlo(results, realization) -> bytes:
     ax[1].semilogx(f, band["nominal_phase_deg"], "--", color="#333", lw=1)
     crit = results.case.criteria
     total = band.get("total")
-    for row, (lo_e, hi_e, nom_e, limit, unit, fig_value) in enumerate((
-            (band["gain_db"][0] - ref_db, band["gain_db"][1] - ref_db, band["nominal_gain_db"] - ref_db,
-             crit.max_gain_error_db, "dB", None if total is None else total.max_gain_error_db),
-            (band["phase_deg"][0] - ref_deg, band["phase_deg"][1] - ref_deg, band["nominal_phase_deg"] - ref_deg,
-             crit.max_phase_error_deg, "deg", None if total is None else total.max_phase_error_deg))):
+    for row, (lo_e, hi_e, nom_e, limit, unit, fig_value) in enumerate(
+        (
+            (
+                band["gain_db"][0] - ref_db,
+                band["gain_db"][1] - ref_db,
+                band["nominal_gain_db"] - ref_db,
+                crit.max_gain_error_db,
+                "dB",
+                None if total is None else total.max_gain_error_db,
+            ),
+            (
+                band["phase_deg"][0] - ref_deg,
+                band["phase_deg"][1] - ref_deg,
+                band["nominal_phase_deg"] - ref_deg,
+                crit.max_phase_error_deg,
+                "deg",
+                None if total is None else total.max_phase_error_deg,
+            ),
+        )
+    ):
         a = ax[2 + row]
         a.fill_between(f, lo_e, hi_e, color="#f5b7b1", label=label)
         a.semilogx(f, nom_e, "--", color="#333", lw=1, label="rounded parts")
@@ -177,8 +218,10 @@ def monte_carlo(results, realization) -> bytes:
     ax[3].set_xlabel("frequency (Hz)  —  shaded: the band of the criteria; dotted: limits")
     ax[0].legend(fontsize=8)
     ax[2].legend(fontsize=7, loc="lower left")
-    ax[0].set_title(f"Monte Carlo: {band['draws']} draws ({band.get('distribution', 'uniform')}), seed {band['seed']}"
-                    "; errors against the source")
+    ax[0].set_title(
+        f"Monte Carlo: {band['draws']} draws ({band.get('distribution', 'uniform')}), seed {band['seed']}"
+        "; errors against the source"
+    )
     return _png(fig)
 
 
@@ -189,8 +232,14 @@ def _limits_and_figure(a, band_hz, limit, value, unit) -> None:
         for s in (-1, 1):
             a.axhline(s * limit, color="#555", ls=":", lw=1)
     if value is not None and np.isfinite(value):
-        a.hlines([value, -value], band_hz[0], band_hz[1], color=COLORS[1], lw=1.4,
-                 label=f"p99 of per-draw max: ±{value:.3g} {unit}")
+        a.hlines(
+            [value, -value],
+            band_hz[0],
+            band_hz[1],
+            color=COLORS[1],
+            lw=1.4,
+            label=f"p99 of per-draw max: ±{value:.3g} {unit}",
+        )
 
 
 def loop_responses(results) -> bytes:
@@ -213,8 +262,12 @@ def loop_responses(results) -> bytes:
     ax[0, 1].axhline(0.0, color="#555", ls=":", lw=1)
     from convert.compare.evaluate import firmware_output_limits
 
-    limits = [firmware_output_limits(results.case, results.source.extra.get("output_limits"))
-              if results.case.digital else None, sig.output_range]
+    limits = [
+        firmware_output_limits(results.case, results.source.extra.get("output_limits"))
+        if results.case.digital
+        else None,
+        sig.output_range,
+    ]
     for lim in limits:
         if lim:
             for a in ax[1]:
@@ -232,8 +285,16 @@ def loop_responses(results) -> bytes:
         a.grid(True, alpha=0.3)
     ax[0, 0].legend(fontsize=8, loc="lower right")
     if any(limits):
-        ax[1, 0].text(0.98, 0.02, "dotted: output limits", transform=ax[1, 0].transAxes, ha="right", va="bottom",
-                      fontsize=7, color="#a04000")
+        ax[1, 0].text(
+            0.98,
+            0.02,
+            "dotted: output limits",
+            transform=ax[1, 0].transAxes,
+            ha="right",
+            va="bottom",
+            fontsize=7,
+            color="#a04000",
+        )
     return _png(fig)
 
 
@@ -282,8 +343,16 @@ def pole_zero_figure(results):
             z_ax.set_ylim(-0.65 * zoom, 0.65 * zoom)
             z_ax.set_title("z-plane, zoomed near z = 1")
             z_ax.xaxis.set_major_locator(MaxNLocator(4))
-            z_ax.text(0.98, 0.02, f"window ±{zoom:.2g} around z = 1", transform=z_ax.transAxes, ha="right",
-                      va="bottom", fontsize=7, color="#555")
+            z_ax.text(
+                0.98,
+                0.02,
+                f"window ±{zoom:.2g} around z = 1",
+                transform=z_ax.transAxes,
+                ha="right",
+                va="bottom",
+                fontsize=7,
+                color="#555",
+            )
         else:
             z_ax.set_aspect("equal", adjustable="datalim")
             z_ax.set_title("z-plane (circle: |z| = 1)")

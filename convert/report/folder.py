@@ -39,8 +39,10 @@ def marker_text(files) -> str:
     from convert import __version__
 
     names = sorted(set(files) | {MARKER})
-    return (f"{_MARKER_HEAD} written by loopshift {__version__}; `loopshift report --force` may replace this "
-            "folder only while it holds nothing but the files below\n" + "".join(f"{n}\n" for n in names))
+    return (
+        f"{_MARKER_HEAD} written by loopshift {__version__}; `loopshift report --force` may replace this "
+        "folder only while it holds nothing but the files below\n" + "".join(f"{n}\n" for n in names)
+    )
 
 
 def _listed(folder: Path) -> set[str] | None:
@@ -96,35 +98,47 @@ def check_destination(out_dir: Path, *, force: bool, protected: list[Path]) -> D
     for p in protected:
         rp = Path(p).resolve()
         if rp == out or out in rp.parents:
-            raise InputError(f"the report folder {str(out_dir)!r} contains the input {str(p)!r}; choose another "
-                             "folder with --out", where="--out")
+            raise InputError(
+                f"the report folder {str(out_dir)!r} contains the input {str(p)!r}; choose another folder with --out",
+                where="--out",
+            )
     if not out_dir.exists():
         return Destination(out, note)
     if not out.is_dir():
-        raise InputError(f"{str(out_dir)!r} exists and is not a folder; choose a folder name with --out",
-                         where="--out")
+        raise InputError(f"{str(out_dir)!r} exists and is not a folder; choose a folder name with --out", where="--out")
     cwd = Path.cwd().resolve()
     if cwd == out or out in cwd.parents:
-        raise InputError(f"the report folder {str(out_dir)!r} is the folder you are working in (or holds it); "
-                         "choose another folder with --out", where="--out")
+        raise InputError(
+            f"the report folder {str(out_dir)!r} is the folder you are working in (or holds it); "
+            "choose another folder with --out",
+            where="--out",
+        )
     if not force:
-        raise InputError(f"the report folder {str(out_dir)!r} already exists; rerun with --force to replace it, or "
-                         "choose another folder with --out", where="--out")
+        raise InputError(
+            f"the report folder {str(out_dir)!r} already exists; rerun with --force to replace it, or "
+            "choose another folder with --out",
+            where="--out",
+        )
     contents = _contents(out)
     if not contents:
         return Destination(out, note)
     listed = _listed(out)
     if listed is None:
         names = sorted(rel for rel, _ in contents if "/" not in rel)
-        raise InputError(f"--force replaces only an earlier report or an empty folder, and {str(out_dir)!r} has no "
-                         f"{MARKER} marker (it holds {_some(names)}); choose another folder with --out",
-                         where="--out")
+        raise InputError(
+            f"--force replaces only an earlier report or an empty folder, and {str(out_dir)!r} has no "
+            f"{MARKER} marker (it holds {_some(names)}); choose another folder with --out",
+            where="--out",
+        )
     folders = {os.path.dirname(n) for n in listed}
     folders |= {"/".join(f.split("/")[:i]) for f in list(folders) for i in range(1, f.count("/") + 1)}
     foreign = sorted(rel for rel, is_dir in contents if not (rel in listed or (is_dir and rel in folders)))
     if foreign:
-        raise InputError(f"the earlier report {str(out_dir)!r} now also holds {_some(foreign)}, which loopshift did "
-                         "not write; move them out first, or choose another folder with --out", where="--out")
+        raise InputError(
+            f"the earlier report {str(out_dir)!r} now also holds {_some(foreign)}, which loopshift did "
+            "not write; move them out first, or choose another folder with --out",
+            where="--out",
+        )
     return Destination(out, note)
 
 

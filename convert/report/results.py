@@ -14,8 +14,13 @@ def _response_summary(resp) -> dict | None:
         return None
     import numpy as np
 
-    return {"kind": resp.kind, "duration_s": float(resp.t[-1]), "sub_step_s": resp.sub_step_s,
-            "peak": float(np.max(np.abs(resp.y))), "final": float(resp.y[-1])}
+    return {
+        "kind": resp.kind,
+        "duration_s": float(resp.t[-1]),
+        "sub_step_s": resp.sub_step_s,
+        "peak": float(np.max(np.abs(resp.y))),
+        "final": float(resp.y[-1]),
+    }
 
 
 def results_dict(results) -> dict:
@@ -26,37 +31,48 @@ def results_dict(results) -> dict:
 
     real = []
     for r in results.realizations:
-        real.append({
-            "name": r.name,
-            "form": r.form,
-            "num": list(r.controller.num),
-            "den": list(r.controller.den),
-            "sample_period_s": r.controller.sample_period_s,
-            "details": r.details,
-            "warnings": r.warnings,
-            "budget": [row.as_dict() for row in r.budget],
-            "loop": {"stability": None if r.stability is None else r.stability.as_dict(),
-                     "margins": _margins(r.margins), "step": _response_summary(r.step),
-                     "disturbance": _response_summary(r.disturbance)},
-            "files": sorted(r.files),
-        })
+        real.append(
+            {
+                "name": r.name,
+                "form": r.form,
+                "num": list(r.controller.num),
+                "den": list(r.controller.den),
+                "sample_period_s": r.controller.sample_period_s,
+                "details": r.details,
+                "warnings": r.warnings,
+                "budget": [row.as_dict() for row in r.budget],
+                "loop": {
+                    "stability": None if r.stability is None else r.stability.as_dict(),
+                    "margins": _margins(r.margins),
+                    "step": _response_summary(r.step),
+                    "disturbance": _response_summary(r.disturbance),
+                },
+                "files": sorted(r.files),
+            }
+        )
     ref = results.reference
     return {
         "tool": f"loopshift {__version__}",
         "verdict": results.verdict.overall,
         "unchecked_reason": results.verdict.unchecked_reason,
         "case": case_summary(results.case),
-        "source": {"num": list(ref.num), "den": list(ref.den), "domain": ref.domain,
-                   "sample_period_s": ref.sample_period_s, "expression": ref.expression(),
-                   "notes": list(results.source.notes),
-                   "card_reduction": (None if results.source.extra.get("reduction") is None
-                                      else results.source.extra["reduction"].as_dict()),
-                   "card_output_limits": results.source.extra.get("output_limits")},
+        "source": {
+            "num": list(ref.num),
+            "den": list(ref.den),
+            "domain": ref.domain,
+            "sample_period_s": ref.sample_period_s,
+            "expression": ref.expression(),
+            "notes": list(results.source.notes),
+            "card_reduction": (
+                None if results.source.extra.get("reduction") is None else results.source.extra["reduction"].as_dict()
+            ),
+            "card_output_limits": results.source.extra.get("output_limits"),
+        },
         "loop_check": {
-            "plant": None if results.case.plant is None else {"model": results.case.plant.expression,
-                                                              "dead_time_s": results.case.plant.dead_time_s},
-            "source_stability": (None if results.source_stability is None
-                                 else results.source_stability.as_dict()),
+            "plant": None
+            if results.case.plant is None
+            else {"model": results.case.plant.expression, "dead_time_s": results.case.plant.dead_time_s},
+            "source_stability": (None if results.source_stability is None else results.source_stability.as_dict()),
             "source_margins": _margins(results.source_margins),
             "duration_s": results.duration_s,
             "source_step": _response_summary(results.source_step),

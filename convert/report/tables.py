@@ -102,8 +102,10 @@ def failing_criteria(results) -> list[str]:
             continue
         unit = j.unit
         limit = fixed(100 * j.limit, f"% {unit}") if unit in ("of step", "of peak") else fixed(j.limit, unit)
-        out.append(f"{j.realization}: {j.label} {_measured(j.value, unit)} > limit {limit}"
-                   + (f" ({j.note})" if j.note else ""))
+        out.append(
+            f"{j.realization}: {j.label} {_measured(j.value, unit)} > limit {limit}"
+            + (f" ({j.note})" if j.note else "")
+        )
     return out
 
 
@@ -115,16 +117,39 @@ def verdict_table(results) -> Table:
         unit = j.unit
         if j.criterion == "closed_loop_stable":  # a check without a number: say what was found
             found = {"pass": "stable", "skipped": "—"}.get(
-                j.status, "sign inverted" if "negative low-frequency" in j.note else "unstable")
-            rows.append([j.realization, j.label, found, "stable, right sign",
-                         j.status.upper() if j.status == "fail" else j.status, "", j.note])
+                j.status, "sign inverted" if "negative low-frequency" in j.note else "unstable"
+            )
+            rows.append(
+                [
+                    j.realization,
+                    j.label,
+                    found,
+                    "stable, right sign",
+                    j.status.upper() if j.status == "fail" else j.status,
+                    "",
+                    j.note,
+                ]
+            )
             continue
-        limit = fixed(100 * j.limit, f"% {unit}") if unit in ("of step", "of peak", "of range") else fixed(j.limit, unit)
-        rows.append([j.realization, j.label, _measured(j.value, unit), limit,
-                     j.status.upper() if j.status == "fail" else j.status,
-                     _against_limit(j.value, j.limit, j.status), j.note])
-    return ("Verdict per criterion", ["form", "criterion", "measured", "limit", "result", "against the limit", "note"],
-            rows)
+        limit = (
+            fixed(100 * j.limit, f"% {unit}") if unit in ("of step", "of peak", "of range") else fixed(j.limit, unit)
+        )
+        rows.append(
+            [
+                j.realization,
+                j.label,
+                _measured(j.value, unit),
+                limit,
+                j.status.upper() if j.status == "fail" else j.status,
+                _against_limit(j.value, j.limit, j.status),
+                j.note,
+            ]
+        )
+    return (
+        "Verdict per criterion",
+        ["form", "criterion", "measured", "limit", "result", "against the limit", "note"],
+        rows,
+    )
 
 
 def budget_table(realization, loops_stable: bool = True) -> Table:
@@ -140,13 +165,31 @@ def budget_table(realization, loops_stable: bool = True) -> Table:
             rows.append([row.label, "not applicable", "", "", "", "", row.note.replace("not applicable: ", "")])
             continue
         pct = f" (p{row.percentile:g} of draws)" if row.percentile else ""
-        loop = ([fixed(row.delta_phase_margin_deg, "°"), fixed(row.delta_gain_margin_db, "dB"),
-                 fixed(row.delta_sensitivity_peak_db, "dB")] if loops_stable else ["unstable loop", "—", "—"])
-        rows.append([row.label + pct, fixed(row.max_gain_error_db, "dB"), fixed(row.max_phase_error_deg, "°"),
-                     *loop, row.note])
-    return (f"Error budget — {realization.name}",
-            ["source of error", "max gain error", "max phase error", "Δ phase margin", "Δ gain margin",
-             "Δ sensitivity peak", "what was switched on"], rows)
+        loop = (
+            [
+                fixed(row.delta_phase_margin_deg, "°"),
+                fixed(row.delta_gain_margin_db, "dB"),
+                fixed(row.delta_sensitivity_peak_db, "dB"),
+            ]
+            if loops_stable
+            else ["unstable loop", "—", "—"]
+        )
+        rows.append(
+            [row.label + pct, fixed(row.max_gain_error_db, "dB"), fixed(row.max_phase_error_deg, "°"), *loop, row.note]
+        )
+    return (
+        f"Error budget — {realization.name}",
+        [
+            "source of error",
+            "max gain error",
+            "max phase error",
+            "Δ phase margin",
+            "Δ gain margin",
+            "Δ sensitivity peak",
+            "what was switched on",
+        ],
+        rows,
+    )
 
 
 def margins_table(results) -> Table | None:
@@ -164,26 +207,59 @@ def margins_table(results) -> Table | None:
         peak = fixed(m.sensitivity_peak_db, "dB", floor=0.01)
         note = getattr(m, "sensitivity_peak_note", "")
         if note:  # no interior peak: say where |S| is largest instead of quoting a grid's end
-            where = ("at zero frequency" if "zero frequency" in note else
-                     "at the Nyquist frequency" if "Nyquist" in note else "as f → ∞")
+            where = (
+                "at zero frequency"
+                if "zero frequency" in note
+                else "at the Nyquist frequency"
+                if "Nyquist" in note
+                else "as f → ∞"
+            )
             peak = f"{peak} ({where}; no interior peak)"
-        rows.append([name, fixed(m.gain_margin_db, "dB", floor=0.01), hz(m.phase_crossover_hz),
-                     fixed(m.phase_margin_deg, "°", floor=0.01), hz(m.crossover_hz), peak, f"{m.ms:.2f}"])
-    return ("Loop checks (margins with the plant, dead time exact)",
-            ["form", "gain margin", "at (phase −180°)", "phase margin", "crossover (|L| = 1)",
-             "sensitivity peak", "Ms = max |S|"], rows)
+        rows.append(
+            [
+                name,
+                fixed(m.gain_margin_db, "dB", floor=0.01),
+                hz(m.phase_crossover_hz),
+                fixed(m.phase_margin_deg, "°", floor=0.01),
+                hz(m.crossover_hz),
+                peak,
+                f"{m.ms:.2f}",
+            ]
+        )
+    return (
+        "Loop checks (margins with the plant, dead time exact)",
+        [
+            "form",
+            "gain margin",
+            "at (phase −180°)",
+            "phase margin",
+            "crossover (|L| = 1)",
+            "sensitivity peak",
+            "Ms = max |S|",
+        ],
+        rows,
+    )
 
 
 def rate_table(results) -> Table | None:
     if not results.rate_advice:
         return None
-    rows = [[a.method, hz(a.checked_fs_hz) if a.checked_fs_hz else "none in scan" if a.checked else "— (unchecked)",
-             hz(a.rule_fs_hz) if a.rule_fs_hz else "—", a.limiting,
-             f"{hz(a.scanned_hz[0])} – {hz(a.scanned_hz[1])}"] for a in results.rate_advice]
-    first = ("lowest rate that passes (checked, within 1 %)" if any(a.checked for a in results.rate_advice)
-             else "lowest rate (nothing to check)")
-    return ("Sample-rate advice", ["method", first, "rule of thumb",
-                                   "limiting criterion below it", "scanned"], rows)
+    rows = [
+        [
+            a.method,
+            hz(a.checked_fs_hz) if a.checked_fs_hz else "none in scan" if a.checked else "— (unchecked)",
+            hz(a.rule_fs_hz) if a.rule_fs_hz else "—",
+            a.limiting,
+            f"{hz(a.scanned_hz[0])} – {hz(a.scanned_hz[1])}",
+        ]
+        for a in results.rate_advice
+    ]
+    first = (
+        "lowest rate that passes (checked, within 1 %)"
+        if any(a.checked for a in results.rate_advice)
+        else "lowest rate (nothing to check)"
+    )
+    return ("Sample-rate advice", ["method", first, "rule of thumb", "limiting criterion below it", "scanned"], rows)
 
 
 def realization_table(results) -> Table:
@@ -193,14 +269,19 @@ def realization_table(results) -> Table:
         if r.form == "digital":
             fw = d.get("firmware") or {}
             if fw.get("sections") and len(fw["sections"]) > 1:
-                coefs = "; ".join(f"section {i + 1}: b = [{', '.join(f'{x:.10g}' for x in sec['b'])}], "
-                                  f"a = [{', '.join(f'{x:.10g}' for x in sec['a'])}]"
-                                  for i, sec in enumerate(fw["sections"]))
+                coefs = "; ".join(
+                    f"section {i + 1}: b = [{', '.join(f'{x:.10g}' for x in sec['b'])}], "
+                    f"a = [{', '.join(f'{x:.10g}' for x in sec['a'])}]"
+                    for i, sec in enumerate(fw["sections"])
+                )
             else:
-                coefs = (f"b = [{', '.join(f'{x:.10g}' for x in d['b'])}]; "
-                         f"a = [{', '.join(f'{x:.10g}' for x in d['a'])}]")
-            what = (f"structure {d.get('structure', 'direct1')} in {d['word_format']}; {coefs}; "
-                    f"delay {seconds(d['delay_s'])}")
+                coefs = (
+                    f"b = [{', '.join(f'{x:.10g}' for x in d['b'])}]; a = [{', '.join(f'{x:.10g}' for x in d['a'])}]"
+                )
+            what = (
+                f"structure {d.get('structure', 'direct1')} in {d['word_format']}; {coefs}; "
+                f"delay {seconds(d['delay_s'])}"
+            )
         else:
             what = "; ".join(f"{k} = {v}" for k, v in d.get("parts_text", {}).items()) or d.get("topology", "")
         rows.append([r.name, r.form, what, "; ".join(r.warnings)])
@@ -249,21 +330,23 @@ def _source_as_given(case) -> str:
     if src.form == "pid":
         return "PID settings " + ", ".join(f"{k} = {v}" for k, v in d["settings"].items())
     if src.form == "digital":
-        return (f"firmware coefficients b = {list(d['b'])}, a = {list(d['a'])} at {hz(d['fs_hz'])} "
-                f"(inverse for the analog equivalent: {d['method']})")
+        return (
+            f"firmware coefficients b = {list(d['b'])}, a = {list(d['a'])} at {hz(d['fs_hz'])} "
+            f"(inverse for the analog equivalent: {d['method']})"
+        )
     if src.form == "card":
         from convert.values import format_value
 
-        parts = ", ".join(f"{k} = {format_value(v, 'ohm' if k[:1].upper() == 'R' else 'farad')}"
-                          for k, v in d["parts"].items())
+        parts = ", ".join(
+            f"{k} = {format_value(v, 'ohm' if k[:1].upper() == 'R' else 'farad')}" for k, v in d["parts"].items()
+        )
         return f"card topology {d['topology']}: {parts}"
     rel = d["file"]
     try:
         rel = d["file"].relative_to(case.base_dir)
     except ValueError:
         pass
-    how = (f"setpoint {d['setpoint']}, measurement {d['measurement']}" if d.get("setpoint")
-           else f"input {d['input']}")
+    how = f"setpoint {d['setpoint']}, measurement {d['measurement']}" if d.get("setpoint") else f"input {d['input']}"
     return f"netlist {rel} ({how}, output {d['output']})"
 
 
@@ -290,28 +373,44 @@ def input_tables(results) -> list[Table]:
     """The case's inputs echoed for the reader: what was compared, with what, against what."""
     case = results.case
     ref = results.reference
-    rows = [["case file", str(case.path)], ["source as given", _source_as_given(case)],
-            ["source controller" + (" C(z)" if ref.is_digital else " C(s)"),
-             ref.expression(digits=5) + (f" at {hz(ref.fs_hz)}" if ref.is_digital else "")
-             + " (error → output)"]]
+    rows = [
+        ["case file", str(case.path)],
+        ["source as given", _source_as_given(case)],
+        [
+            "source controller" + (" C(z)" if ref.is_digital else " C(s)"),
+            ref.expression(digits=5) + (f" at {hz(ref.fs_hz)}" if ref.is_digital else "") + " (error → output)",
+        ],
+    ]
     red = results.source.extra.get("reduction")
     if red is not None and red.changed:
-        rows.append(["controller handed on (card without its op-amp parasitics)",
-                     red.reduced.expression(digits=5) + f" (error → output); {red.rule}"])
+        rows.append(
+            [
+                "controller handed on (card without its op-amp parasitics)",
+                red.reduced.expression(digits=5) + f" (error → output); {red.rule}",
+            ]
+        )
     if results.source.pid is not None:
         text = _pid_text(results.source.pid)
         if text:
-            rows.append(["source as PID (ideal form)" if red is None or not red.changed
-                         else "controller handed on, as PID (ideal form)", text])
+            rows.append(
+                [
+                    "source as PID (ideal form)"
+                    if red is None or not red.changed
+                    else "controller handed on, as PID (ideal form)",
+                    text,
+                ]
+            )
     if case.digital:
         t = case.digital
-        delay = (f"{t.delay_samples:g} sample(s)" if t.delay_samples is not None else seconds(t.delay_s))
+        delay = f"{t.delay_samples:g} sample(s)" if t.delay_samples is not None else seconds(t.delay_s)
         from convert.compare.evaluate import firmware_output_limits
 
         card_lim = results.source.extra.get("output_limits")
         lim = firmware_output_limits(case, card_lim)
-        text = (f"sample rate {', '.join(hz(f) for f in t.fs_hz)}; methods {', '.join(t.methods)}; "
-                f"computation delay {delay}; coefficients {t.word_format}")
+        text = (
+            f"sample rate {', '.join(hz(f) for f in t.fs_hz)}; methods {', '.join(t.methods)}; "
+            f"computation delay {delay}; coefficients {t.word_format}"
+        )
         if t.prewarp_hz:
             text += f"; prewarp {hz(t.prewarp_hz)}"
         if t.derivative_filter:
@@ -322,26 +421,44 @@ def input_tables(results) -> list[Table]:
         rows.append(["target: firmware", text])
     if case.circuit:
         t = case.circuit
-        tol = ", ".join(f"{k} {v:.3g}" if not isinstance(v, float) else f"{k} {100 * v:g} %" for k, v in t.tolerances.items())
+        tol = ", ".join(
+            f"{k} {v:.3g}" if not isinstance(v, float) else f"{k} {100 * v:g} %" for k, v in t.tolerances.items()
+        )
         gbw = f"op-amp gain-bandwidth {hz(t.opamp_gbw_hz)}" if t.opamp_gbw_hz else "ideal op-amps"
-        rows.append(["target: op-amp circuit",
-                     f"topology {t.topology}; resistors {t.resistors}, capacitors {t.capacitors}; tolerances {tol}; "
-                     f"{gbw}; Monte Carlo {results.draws or t.draws} draws ({t.distribution}), seed {t.seed}"])
+        rows.append(
+            [
+                "target: op-amp circuit",
+                f"topology {t.topology}; resistors {t.resistors}, capacitors {t.capacitors}; tolerances {tol}; "
+                f"{gbw}; Monte Carlo {results.draws or t.draws} draws ({t.distribution}), seed {t.seed}",
+            ]
+        )
     if results.source.extra.get("output_limits") is not None:
         from convert.circuit.clamps import limits_text
 
-        rows.append(["card clamps", f"output held to {limits_text(results.source.extra['output_limits'])} by the card's "
-                                    "diodes (approximate knees)"])
+        rows.append(
+            [
+                "card clamps",
+                f"output held to {limits_text(results.source.extra['output_limits'])} by the card's "
+                "diodes (approximate knees)",
+            ]
+        )
     if getattr(case, "given", ()):
         from convert.given import describe
 
         rows += [[f"given: {g.name}", describe(g)] for g in case.given]
     if case.plant:
-        rows.append(["plant", f"{case.plant.expression}, dead time {seconds(case.plant.dead_time_s)} "
-                              "(controller output → measurement)"])
+        rows.append(
+            [
+                "plant",
+                f"{case.plant.expression}, dead time {seconds(case.plant.dead_time_s)} "
+                "(controller output → measurement)",
+            ]
+        )
         s = case.signals
-        text = (f"setpoint step {s.setpoint_step:g}; load step {s.disturbance_step:g} at the plant input; "
-                f"simulated time {seconds(results.duration_s)}")
+        text = (
+            f"setpoint step {s.setpoint_step:g}; load step {s.disturbance_step:g} at the plant input; "
+            f"simulated time {seconds(results.duration_s)}"
+        )
         if s.output_range:
             text += f"; actuator range {s.output_range[0]:g} … {s.output_range[1]:g} (every form)"
         rows.append(["test signals", text])
@@ -374,20 +491,24 @@ _NOTES = {
         "Each figure is compared with its limit as an absolute value. Gain and phase errors are the largest over the "
         "band with every source of error on (the budget's total row); margin and sensitivity changes are new form "
         "minus source; step and disturbance deviations are the largest |y_new − y_source| after the step, as a "
-        "percentage of the setpoint step or of the source loop's peak disturbance deviation."),
+        "percentage of the setpoint step or of the source loop's peak disturbance deviation."
+    ),
     "Error budget": (
         "Each row switches on one source of error alone and compares with the controller it was made from; the "
         "total has everything on and compares with the source as the loop sees it. Errors are the largest over the "
         "band; the Δ columns are the change in the loop figure, new minus source (a negative Δ phase margin means "
         "less margin). The rows need not add up to the total. Rows that cannot arise in this kind of target are "
-        "left out."),
+        "left out."
+    ),
     "Loop checks": (
         "Gain margin at the frequency where the loop's phase crosses −180°; phase margin at the crossover where "
-        "|L| = 1; sensitivity peak Ms = max |1/(1 + L)| (6 dB, Ms = 2, is a common upper bound for a robust loop)."),
+        "|L| = 1; sensitivity peak Ms = max |1/(1 + L)| (6 dB, Ms = 2, is a common upper bound for a robust loop)."
+    ),
     "Sample-rate advice": (
         "The checked rate is the lowest scanned rate from which every higher rate keeps the method, hold and "
         "computation delay within the gain and phase error limits over the band and the phase lag added at "
-        "crossover within the phase-margin limit; the rule of thumb uses the lag estimate below."),
+        "crossover within the phase-margin limit; the rule of thumb uses the lag estimate below."
+    ),
 }
 
 

@@ -16,26 +16,61 @@ in this folder imports them.
 
 from __future__ import annotations
 
-from convert.circuit.topologies import (difference_error, first_order_lag, integrator_rc, inverting_gain,
-                                        lead_lag_rc, pd_limited, pi_rc_feedback, pid_parallel, pid_single_amp,
-                                        pid_two_input, tow_thomas, unity_inverter)
-from convert.circuit.topologies.model import (TargetShape, Topology, analyse_target, node_responses, output_node,
-                                              polyval_many)
+from convert.circuit.topologies import (
+    difference_error,
+    first_order_lag,
+    integrator_rc,
+    inverting_gain,
+    lead_lag_rc,
+    pd_limited,
+    pi_rc_feedback,
+    pid_parallel,
+    pid_single_amp,
+    pid_two_input,
+    tow_thomas,
+    unity_inverter,
+)
+from convert.circuit.topologies.model import (
+    TargetShape,
+    Topology,
+    analyse_target,
+    node_responses,
+    output_node,
+    polyval_many,
+)
 from convert.circuit.topologies.networks import C, R, Parallel, Part, Series, Stage, impedance, is_open, network_parts
 from convert.circuit.topologies.shared import RSUM, pid_parameters_from_coefficients
 from convert.errors import InputError
 
-CATALOG_ORDER = (unity_inverter, inverting_gain, integrator_rc, first_order_lag, pi_rc_feedback, pd_limited,
-                 lead_lag_rc, pid_single_amp, pid_parallel, tow_thomas, pid_two_input,
-                 difference_error)
+CATALOG_ORDER = (
+    unity_inverter,
+    inverting_gain,
+    integrator_rc,
+    first_order_lag,
+    pi_rc_feedback,
+    pd_limited,
+    lead_lag_rc,
+    pid_single_amp,
+    pid_parallel,
+    tow_thomas,
+    pid_two_input,
+    difference_error,
+)
 """The topology modules in catalog order: by amplifiers, then parts (single-input stages first)."""
 
 TOPOLOGIES: dict[str, Topology] = {m.TOPOLOGY.name: m.TOPOLOGY for m in CATALOG_ORDER}
 """Catalog name -> Topology, in :data:`CATALOG_ORDER`."""
 
 # Order that --topology auto tries (two-input and error stages are never picked automatically).
-AUTO_ORDER = ("inverting-gain", "integrator-rc", "first-order-lag", "pi-rc-feedback", "lead-lag-rc",
-              "pid-single-amp", "pid-parallel")
+AUTO_ORDER = (
+    "inverting-gain",
+    "integrator-rc",
+    "first-order-lag",
+    "pi-rc-feedback",
+    "lead-lag-rc",
+    "pid-single-amp",
+    "pid-parallel",
+)
 
 
 def get_topology(name: str, *, key: str = "topology") -> Topology:
@@ -45,6 +80,26 @@ def get_topology(name: str, *, key: str = "topology") -> Topology:
     raise InputError(f"unknown topology {name!r}; the catalog has {', '.join(TOPOLOGIES)}", key=key)
 
 
-__all__ = ["AUTO_ORDER", "C", "CATALOG_ORDER", "Parallel", "Part", "R", "RSUM", "Series", "Stage", "TOPOLOGIES",
-           "TargetShape", "Topology", "analyse_target", "get_topology", "impedance", "is_open", "network_parts",
-           "node_responses", "output_node", "pid_parameters_from_coefficients", "polyval_many"]
+__all__ = [
+    "AUTO_ORDER",
+    "C",
+    "CATALOG_ORDER",
+    "Parallel",
+    "Part",
+    "R",
+    "RSUM",
+    "Series",
+    "Stage",
+    "TOPOLOGIES",
+    "TargetShape",
+    "Topology",
+    "analyse_target",
+    "get_topology",
+    "impedance",
+    "is_open",
+    "network_parts",
+    "node_responses",
+    "output_node",
+    "pid_parameters_from_coefficients",
+    "polyval_many",
+]

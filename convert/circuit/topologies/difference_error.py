@@ -20,8 +20,12 @@ def setpoint_coefficients(p):
 TOPOLOGY = Topology(
     name="difference-error",
     description="difference amplifier forming k·(setpoint − measurement)",
-    parts=(Part("R1", "R", "measurement input resistor"), Part("R2", "R", "feedback resistor (k = R2/R1)"),
-           Part("R3", "R", "setpoint input resistor (equal to R1)"), Part("R4", "R", "setpoint divider to ground (equal to R2)")),
+    parts=(
+        Part("R1", "R", "measurement input resistor"),
+        Part("R2", "R", "feedback resistor (k = R2/R1)"),
+        Part("R3", "R", "setpoint input resistor (equal to R1)"),
+        Part("R4", "R", "setpoint divider to ground (equal to R2)"),
+    ),
     stages=(Stage("U1", "out", R("R2"), (("meas", R("R1")),), plus=("sp", R("R3"), R("R4")), role="error"),),
     inverting=False,
     inputs=("sp", "meas"),

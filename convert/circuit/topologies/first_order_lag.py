@@ -24,8 +24,11 @@ def fit(topo, shape, settings):
 TOPOLOGY = Topology(
     name="first-order-lag",
     description="inverting low-pass: input resistor, feedback resistor parallel capacitor",
-    parts=(Part("R1", "R", "input resistor"), Part("R2", "R", "feedback resistor (dc gain R2/R1)"),
-           Part("C1", "C", "feedback capacitor (time constant R2·C1)")),
+    parts=(
+        Part("R1", "R", "input resistor"),
+        Part("R2", "R", "feedback resistor (dc gain R2/R1)"),
+        Part("C1", "C", "feedback capacitor (time constant R2·C1)"),
+    ),
     stages=(Stage("U1", "out", Parallel(R("R2"), C("C1")), (("in", R("R1")),), role="lag"),),
     inverting=True,
     represents="k/(tau·s + 1) (a first-order lag / low-pass)",

@@ -29,11 +29,10 @@ All op-amps are ideal in these formulas; :func:`node_responses` evaluates the ci
 by stage, optionally with a finite open-loop gain A(jω) (see :mod:`convert.circuit.opamp`).
 """
 
-
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Callable, Mapping
+from collections.abc import Callable, Mapping
 
 import numpy as np
 
@@ -74,7 +73,11 @@ class TargetShape:
         return -1 if self.k < 0 else 1
 
     def describe(self) -> str:
-        bits = [f"{self.integrators} integrator(s)", f"{len(self.zeros)} real zero(s)", f"{len(self.poles)} real pole(s)"]
+        bits = [
+            f"{self.integrators} integrator(s)",
+            f"{len(self.zeros)} real zero(s)",
+            f"{len(self.poles)} real pole(s)",
+        ]
         if self.irregular:
             bits.append(", ".join(self.irregular))
         return ", ".join(bits)
@@ -117,13 +120,13 @@ def analyse_target(controller: Controller) -> TargetShape:
     roots_z = zeros[np.abs(zeros) > 1e-9 * scale]
     roots_p = poles[np.abs(poles) > 1e-9 * scale]
     k *= float(np.real(np.prod(-roots_z))) / float(np.real(np.prod(-roots_p))) if roots_p.size or roots_z.size else 1.0
-    return TargetShape(k, n_int, np.sort(np.array(pz)), np.sort(np.array(pp)), tuple(irregular), complex_zeros,
-                       controller)
+    return TargetShape(
+        k, n_int, np.sort(np.array(pz)), np.sort(np.array(pp)), tuple(irregular), complex_zeros, controller
+    )
 
 
-def refuse(topology: "Topology", shape: TargetShape, needs: str) -> UnrealizableError:
-    return UnrealizableError(
-        f"{topology.name} realizes {needs}; the target has {shape.describe()}", key="topology")
+def refuse(topology: Topology, shape: TargetShape, needs: str) -> UnrealizableError:
+    return UnrealizableError(f"{topology.name} realizes {needs}; the target has {shape.describe()}", key="topology")
 
 
 # ----------------------------------------------------------------------------------- topology
@@ -187,8 +190,9 @@ class Topology:
         known = set(self.part_names)
         for key in parts:
             if key not in known:
-                raise InputError(f"{self.name} has no part {key!r}; its parts are {', '.join(self.part_names)}",
-                                 where=where, key=key)
+                raise InputError(
+                    f"{self.name} has no part {key!r}; its parts are {', '.join(self.part_names)}", where=where, key=key
+                )
         out: dict[str, np.ndarray] = {}
         for p in self.parts:
             if p.name not in parts:
@@ -203,8 +207,12 @@ class Topology:
             open_ok = p.optional and np.all(arr == open_value(p))
             if not open_ok and (not np.all(np.isfinite(arr)) or np.any(arr <= 0)):
                 bad = arr.ravel()[0] if arr.size else arr
-                raise InputError(f"{p.name} must be a positive finite {'resistance' if p.kind == 'R' else 'capacitance'}"
-                                 f", found {float(bad):g}", where=where, key=p.name)
+                raise InputError(
+                    f"{p.name} must be a positive finite {'resistance' if p.kind == 'R' else 'capacitance'}"
+                    f", found {float(bad):g}",
+                    where=where,
+                    key=p.name,
+                )
             out[p.name] = arr
         return out
 
@@ -246,8 +254,10 @@ class Topology:
         checked = self.check_parts(parts)
         if not self.two_input:
             return {"input": _controller(*self.coefficients(checked), self.name)}
-        return {"setpoint": _controller(*self.setpoint_coefficients(checked), f"{self.name} setpoint path"),
-                "measurement": _controller(*self.coefficients(checked), f"{self.name} measurement path")}
+        return {
+            "setpoint": _controller(*self.setpoint_coefficients(checked), f"{self.name} setpoint path"),
+            "measurement": _controller(*self.coefficients(checked), f"{self.name} measurement path"),
+        }
 
     def parameters(self, parts: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
         """The design quantities (gains in V/V, times in s) the parts set, vectorized."""
@@ -270,9 +280,16 @@ class Topology:
         return {p.name: np.asarray(out[p.name], dtype=float) for p in self.parts}
 
     def summary(self) -> dict:
-        return {"name": self.name, "description": self.description, "inverting": self.inverting,
-                "amplifiers": self.amplifiers, "inputs": list(self.inputs), "represents": self.represents,
-                "parts": {p.name: p.role for p in self.parts}, "equations": list(self.equations)}
+        return {
+            "name": self.name,
+            "description": self.description,
+            "inverting": self.inverting,
+            "amplifiers": self.amplifiers,
+            "inputs": list(self.inputs),
+            "represents": self.represents,
+            "parts": {p.name: p.role for p in self.parts},
+            "equations": list(self.equations),
+        }
 
 
 def _controller(num: list, den: list, name: str) -> Controller:
@@ -284,9 +301,14 @@ def _controller(num: list, den: list, name: str) -> Controller:
 # ----------------------------------------------------------------------------------- node solve
 
 
-def node_responses(topology: Topology, parts: Mapping[str, np.ndarray], f_hz, *,
-                   drive: Mapping[str, complex] | None = None, open_loop_gain: np.ndarray | None = None
-                   ) -> dict[str, np.ndarray]:
+def node_responses(
+    topology: Topology,
+    parts: Mapping[str, np.ndarray],
+    f_hz,
+    *,
+    drive: Mapping[str, complex] | None = None,
+    open_loop_gain: np.ndarray | None = None,
+) -> dict[str, np.ndarray]:
     """Voltages at every stage output, solving the circuit stage by stage (stages that feed each
     other, such as a biquad's integrator loop, are solved together as one small linear system).
 
@@ -300,8 +322,9 @@ def node_responses(topology: Topology, parts: Mapping[str, np.ndarray], f_hz, *,
     if drive is None:
         drive = {"in": 1.0} if not topology.two_input else {"sp": 0.0, "meas": -1.0}
     nodes: dict[str, np.ndarray] = {k: np.asarray(v, dtype=complex) + 0 * s for k, v in drive.items()}
-    p = {k: np.asarray(v, dtype=float)[..., None] if np.ndim(v) else np.asarray(v, dtype=float)
-         for k, v in parts.items()}
+    p = {
+        k: np.asarray(v, dtype=float)[..., None] if np.ndim(v) else np.asarray(v, dtype=float) for k, v in parts.items()
+    }
     stages = list(topology.stages)
     i = 0
     while i < len(stages):
@@ -309,7 +332,7 @@ def node_responses(topology: Topology, parts: Mapping[str, np.ndarray], f_hz, *,
         if j == i:
             nodes[stages[i].output] = _stage_alone(stages[i], nodes, p, s, open_loop_gain)
         else:
-            nodes.update(_stage_block(stages[i:j + 1], nodes, p, s, open_loop_gain))
+            nodes.update(_stage_block(stages[i : j + 1], nodes, p, s, open_loop_gain))
         i = j + 1
     return nodes
 
@@ -320,14 +343,15 @@ def _loop_block_end(stages: list, i: int, known: Mapping) -> int:
     needed = {src for src, _ in stages[i].inputs} | ({stages[i].plus[0]} if stages[i].plus else set())
     j = i
     while True:
-        driven = {st.output for st in stages[i:j + 1]}
+        driven = {st.output for st in stages[i : j + 1]}
         missing = needed - set(known) - driven
         if not missing:
             return j
         j += 1
         if j >= len(stages):
-            raise InputError(f"the circuit reads node(s) {', '.join(sorted(missing))} that no stage drives",
-                             key="topology")
+            raise InputError(
+                f"the circuit reads node(s) {', '.join(sorted(missing))} that no stage drives", key="topology"
+            )
         st = stages[j]
         needed |= {src for src, _ in st.inputs} | ({st.plus[0]} if st.plus else set())
 
@@ -371,9 +395,11 @@ def _stage_block(block, nodes, p, s, open_loop_gain):
         yf, ys, ratio = stage_admittances(st, p, s)
         yt = sum(y for _, y in ys) + yf
         terms.append((yf, ys, ratio, yt))
-    shape = np.broadcast_shapes(s.shape, *[np.shape(x) for t in terms for x in
-                                           [t[0], t[3]] + [y for _, y in t[1]]],
-                                *[np.shape(nodes[src]) for st in block for src, _ in st.inputs if src in nodes])
+    shape = np.broadcast_shapes(
+        s.shape,
+        *[np.shape(x) for t in terms for x in [t[0], t[3]] + [y for _, y in t[1]]],
+        *[np.shape(nodes[src]) for st in block for src, _ in st.inputs if src in nodes],
+    )
     n = len(block)
     m = np.zeros(shape + (n, n), dtype=complex)
     rhs = np.zeros(shape + (n,), dtype=complex)

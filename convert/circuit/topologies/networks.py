@@ -6,10 +6,9 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Mapping
+from collections.abc import Mapping
 
 import numpy as np
-
 
 
 @dataclass(frozen=True)
@@ -119,4 +118,3 @@ class Part:
 
 def open_value(part: Part) -> float:
     return math.inf if part.kind == "R" else 0.0
-

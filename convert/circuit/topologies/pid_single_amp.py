@@ -32,16 +32,24 @@ def solve(q, f):
 
 def parameters(p):
     """Series kc', ti', td' and the parallel-form kp, ki, kd, tf, ti, td the parts set."""
-    return {"kc'": p["R2"] / p["R1"], "ti'": p["R2"] * p["C2"], "td'": (p["R1"] + p["R3"]) * p["C1"],
-            **pid_parameters_from_coefficients(*coefficients(p))}
+    return {
+        "kc'": p["R2"] / p["R1"],
+        "ti'": p["R2"] * p["C2"],
+        "td'": (p["R1"] + p["R3"]) * p["C1"],
+        **pid_parameters_from_coefficients(*coefficients(p)),
+    }
 
 
 def fit(topo, shape, settings):
-    if (shape.integrators != 1 or len(shape.zeros) != 2 or len(shape.poles) != 1 or shape.irregular):
-        why = ("complex zeros (ti < 4·td in the ideal form): use pid-parallel"
-               if shape.complex_zeros else shape.describe())
-        raise UnrealizableError(f"{topo.name} realizes k·(1 + ti·s)(1 + td·s)/(ti·s·(1 + tf·s)) with real zeros "
-                                f"and td > tf; the target has {why}", key="topology")
+    if shape.integrators != 1 or len(shape.zeros) != 2 or len(shape.poles) != 1 or shape.irregular:
+        why = (
+            "complex zeros (ti < 4·td in the ideal form): use pid-parallel" if shape.complex_zeros else shape.describe()
+        )
+        raise UnrealizableError(
+            f"{topo.name} realizes k·(1 + ti·s)(1 + td·s)/(ti·s·(1 + tf·s)) with real zeros "
+            f"and td > tf; the target has {why}",
+            key="topology",
+        )
     tf = 1.0 / shape.poles[0]
     kint = gain_of(shape)  # low-frequency asymptote kint/s
     out = []
@@ -50,28 +58,39 @@ def fit(topo, shape, settings):
         if td > tf * (1 + 1e-9):
             out.append({"kc'": kint * ti, "ti'": ti, "td'": td, "tf": tf})
     if not out:
-        raise UnrealizableError(f"{topo.name} needs one zero below the filter pole ({1 / tf / 2 / math.pi:.4g} Hz)",
-                                key="topology")
+        raise UnrealizableError(
+            f"{topo.name} needs one zero below the filter pole ({1 / tf / 2 / math.pi:.4g} Hz)", key="topology"
+        )
     return out
 
 
 TOPOLOGY = Topology(
     name="pid-single-amp",
     description="PID on one amplifier (series/interacting form): input R1 parallel (R3 + C1), feedback R2 + C2",
-    parts=(Part("R1", "R", "input resistor (K′ = R2/R1, series gain)"),
-           Part("C1", "C", "derivative capacitor (Td′ = (R1+R3)·C1, series derivative time)"),
-           Part("R3", "R", "derivative-limiting resistor (Tf = R3·C1 = Td′/N′)"),
-           Part("R2", "R", "feedback resistor (K′ = R2/R1)"),
-           Part("C2", "C", "integral capacitor (Ti′ = R2·C2, series integral time)")),
-    stages=(Stage("U1", "out", Series(R("R2"), C("C2")), (("in", Parallel(R("R1"), Series(R("R3"), C("C1")))),),
-                  role="PID"),),
+    parts=(
+        Part("R1", "R", "input resistor (K′ = R2/R1, series gain)"),
+        Part("C1", "C", "derivative capacitor (Td′ = (R1+R3)·C1, series derivative time)"),
+        Part("R3", "R", "derivative-limiting resistor (Tf = R3·C1 = Td′/N′)"),
+        Part("R2", "R", "feedback resistor (K′ = R2/R1)"),
+        Part("C2", "C", "integral capacitor (Ti′ = R2·C2, series integral time)"),
+    ),
+    stages=(
+        Stage(
+            "U1", "out", Series(R("R2"), C("C2")), (("in", Parallel(R("R1"), Series(R("R3"), C("C1")))),), role="PID"
+        ),
+    ),
     inverting=True,
     represents="K′·(1 + 1/(Ti′·s))·(1 + Td′·s)/(1 + Tf·s): series PID with real zeros and derivative filter "
-               "(Td′ > Tf); quantities kc', ti', td', tf",
+    "(Td′ > Tf); quantities kc', ti', td', tf",
     free_parts=("C1",),
-    equations=("F = (1 + R2·C2·s)(1 + (R1+R3)·C1·s) / (R1·C2·s·(1 + R3·C1·s))",
-               "kc' = R2/R1, ti' = R2·C2, td' = (R1+R3)·C1, tf = R3·C1 (series form: K′, Ti′, Td′)",
-               "R1 = (td' − tf)/C1", "R3 = tf/C1", "R2 = kc'·R1", "C2 = ti'/R2"),
+    equations=(
+        "F = (1 + R2·C2·s)(1 + (R1+R3)·C1·s) / (R1·C2·s·(1 + R3·C1·s))",
+        "kc' = R2/R1, ti' = R2·C2, td' = (R1+R3)·C1, tf = R3·C1 (series form: K′, Ti′, Td′)",
+        "R1 = (td' − tf)/C1",
+        "R3 = tf/C1",
+        "R2 = kc'·R1",
+        "C2 = ti'/R2",
+    ),
     _coefficients=coefficients,
     _parameters=parameters,
     _fit=fit,

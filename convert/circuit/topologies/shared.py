@@ -73,7 +73,9 @@ def fit_first_order(topo, shape, settings, *, lead_only: bool):
         if not z < p:
             raise UnrealizableError(
                 f"{topo.name} needs the zero ({z / 2 / math.pi:.4g} Hz) below the pole ({p / 2 / math.pi:.4g} Hz); "
-                "use lead-lag-rc for a lag", key="topology")
+                "use lead-lag-rc for a lag",
+                key="topology",
+            )
         kp = gain_of(shape)
         return [{"kp": kp, "kd": kp * (1 / z - 1 / p), "tf": 1 / p}]
     return [{"k": gain_of(shape), "tz": 1 / z, "tp": 1 / p}]

@@ -39,8 +39,11 @@ def _g(x):
 def coefficients(p):
     """(num, den) of F(s) (the positive form), descending powers of s, vectorized over part arrays."""
     g5 = _g(p["R5"])
-    num = [p["C3"] * p["C2"] * g5, p["C2"] * (_g(p["R6"]) * g5 - _g(p["R2"]) * _g(p["R7"])),
-           _g(p["R2"]) * _g(p["R4"]) * _g(p["R8"])]
+    num = [
+        p["C3"] * p["C2"] * g5,
+        p["C2"] * (_g(p["R6"]) * g5 - _g(p["R2"]) * _g(p["R7"])),
+        _g(p["R2"]) * _g(p["R4"]) * _g(p["R8"]),
+    ]
     den = [p["C1"] * p["C2"] * g5, p["C2"] * _g(p["R1"]) * g5, _g(p["R2"]) * _g(p["R3"]) * _g(p["R4"])]
     return num, den
 
@@ -51,8 +54,15 @@ def parameters(p):
     lead = den[0]
     a1, a0 = den[1] / lead, den[2] / lead
     with np.errstate(divide="ignore", invalid="ignore"):
-        return {"a1": a1, "a0": a0, "n2": num[0] / lead, "n1": num[1] / lead, "n0": num[2] / lead,
-                "w0": np.sqrt(a0), "q": np.sqrt(a0) / a1}
+        return {
+            "a1": a1,
+            "a0": a0,
+            "n2": num[0] / lead,
+            "n1": num[1] / lead,
+            "n0": num[2] / lead,
+            "w0": np.sqrt(a0),
+            "q": np.sqrt(a0) / a1,
+        }
 
 
 def fit(topo, shape, settings):
@@ -69,9 +79,11 @@ def fit(topo, shape, settings):
     if num[2] < 0 or (num[2] == 0 and num[0] < 0):
         num = -num
     if num[0] < 0 or num[2] < 0:
-        raise UnrealizableError(f"{topo.name} realizes n2·s² + n1·s + n0 with n2 and n0 of one sign; the target's "
-                                f"numerator has n2 = {num[0]:.4g}, n0 = {num[2]:.4g} (a real zero in each half-plane)",
-                                key="topology")
+        raise UnrealizableError(
+            f"{topo.name} realizes n2·s² + n1·s + n0 with n2 and n0 of one sign; the target's "
+            f"numerator has n2 = {num[0]:.4g}, n0 = {num[2]:.4g} (a real zero in each half-plane)",
+            key="topology",
+        )
     return [{"a1": a1, "a0": a0, "n2": float(num[0]), "n1": float(num[1]), "n0": float(num[2])}]
 
 
@@ -80,8 +92,19 @@ def solve(q, f):
     c = pos(f["C1"])
     r2 = 1.0 / (c * math.sqrt(q["a0"]))
     inf = np.inf + 0 * c
-    out = {"C1": c, "C2": c, "R1": 1.0 / (q["a1"] * c), "R2": r2, "R3": r2, "R4": RSUM + 0 * c, "R5": RSUM + 0 * c,
-           "C3": q["n2"] * c, "R6": inf, "R7": inf, "R8": inf}
+    out = {
+        "C1": c,
+        "C2": c,
+        "R1": 1.0 / (q["a1"] * c),
+        "R2": r2,
+        "R3": r2,
+        "R4": RSUM + 0 * c,
+        "R5": RSUM + 0 * c,
+        "C3": q["n2"] * c,
+        "R6": inf,
+        "R7": inf,
+        "R8": inf,
+    }
     if q["n1"] > 0:
         out["R6"] = 1.0 / (q["n1"] * c)
     elif q["n1"] < 0:
@@ -94,30 +117,45 @@ def solve(q, f):
 TOPOLOGY = Topology(
     name="tow-thomas",
     description="Tow–Thomas biquad with feed-forward: integrator, inverter and damped integrator in one loop",
-    parts=(Part("C1", "C", "damped integrator capacitor (U3)"),
-           Part("R1", "R", "damping resistor (a1 = 1/(R1·C1))"),
-           Part("R2", "R", "loop resistor into U3 (a0 = 1/(R2·R3·C1·C2) with R4 = R5)"),
-           Part("R3", "R", "integrator input resistor (equal to R2)"),
-           Part("C2", "C", "integrator capacitor (U1, equal to C1)"),
-           Part("R4", "R", "inverter input resistor"), Part("R5", "R", "inverter feedback resistor"),
-           Part("R6", "R", "feed-forward into U3, positive s term (n1 = 1/(R6·C1))", optional=True),
-           Part("R7", "R", "feed-forward into U2, negative s term", optional=True),
-           Part("R8", "R", "feed-forward into U1, constant term (n0 = 1/(R2·R8·C1·C2))", optional=True),
-           Part("C3", "C", "feed-forward into U3, s² term (n2 = C3/C1)", optional=True)),
-    stages=(Stage("U1", "bq_i", C("C2"), (("out", R("R3")), ("in", R("R8"))), role="integrator"),
-            Stage("U2", "bq_v", R("R5"), (("bq_i", R("R4")), ("in", R("R7"))), role="inverter"),
-            Stage("U3", "out", Parallel(R("R1"), C("C1")), (("bq_v", R("R2")), ("in", R("R6")), ("in", C("C3"))),
-                  role="damped integrator")),
+    parts=(
+        Part("C1", "C", "damped integrator capacitor (U3)"),
+        Part("R1", "R", "damping resistor (a1 = 1/(R1·C1))"),
+        Part("R2", "R", "loop resistor into U3 (a0 = 1/(R2·R3·C1·C2) with R4 = R5)"),
+        Part("R3", "R", "integrator input resistor (equal to R2)"),
+        Part("C2", "C", "integrator capacitor (U1, equal to C1)"),
+        Part("R4", "R", "inverter input resistor"),
+        Part("R5", "R", "inverter feedback resistor"),
+        Part("R6", "R", "feed-forward into U3, positive s term (n1 = 1/(R6·C1))", optional=True),
+        Part("R7", "R", "feed-forward into U2, negative s term", optional=True),
+        Part("R8", "R", "feed-forward into U1, constant term (n0 = 1/(R2·R8·C1·C2))", optional=True),
+        Part("C3", "C", "feed-forward into U3, s² term (n2 = C3/C1)", optional=True),
+    ),
+    stages=(
+        Stage("U1", "bq_i", C("C2"), (("out", R("R3")), ("in", R("R8"))), role="integrator"),
+        Stage("U2", "bq_v", R("R5"), (("bq_i", R("R4")), ("in", R("R7"))), role="inverter"),
+        Stage(
+            "U3",
+            "out",
+            Parallel(R("R1"), C("C1")),
+            (("bq_v", R("R2")), ("in", R("R6")), ("in", C("C3"))),
+            role="damped integrator",
+        ),
+    ),
     inverting=True,
     represents="(n2·s² + n1·s + n0)/(s² + a1·s + a0): low-pass, band-pass, high-pass, notch or general biquad "
-               "with poles in the left half-plane (quantities a1, a0, n2, n1, n0)",
+    "with poles in the left half-plane (quantities a1, a0, n2, n1, n0)",
     free_parts=("C1",),
     fixed_parts={"R4": RSUM, "R5": RSUM},
     equal_parts=(("C2", "C1"), ("R3", "R2")),
-    equations=("F = [C3·C2/R5·s² + C2·(1/(R6·R5) − 1/(R2·R7))·s + 1/(R2·R4·R8)] / "
-               "[C1·C2/R5·s² + C2/(R1·R5)·s + 1/(R2·R3·R4)]",
-               "C2 = C1 = C, R4 = R5 = 10 kΩ, R3 = R2", "R1 = 1/(a1·C)", "R2 = 1/(C·√a0)", "C3 = n2·C",
-               "R6 = 1/(n1·C) (n1 > 0) or R7 = R5/(R2·C·|n1|) (n1 < 0)", "R8 = 1/(n0·R2·C²)"),
+    equations=(
+        "F = [C3·C2/R5·s² + C2·(1/(R6·R5) − 1/(R2·R7))·s + 1/(R2·R4·R8)] / [C1·C2/R5·s² + C2/(R1·R5)·s + 1/(R2·R3·R4)]",
+        "C2 = C1 = C, R4 = R5 = 10 kΩ, R3 = R2",
+        "R1 = 1/(a1·C)",
+        "R2 = 1/(C·√a0)",
+        "C3 = n2·C",
+        "R6 = 1/(n1·C) (n1 > 0) or R7 = R5/(R2·C·|n1|) (n1 < 0)",
+        "R8 = 1/(n0·R2·C²)",
+    ),
     _coefficients=coefficients,
     _parameters=parameters,
     _fit=fit,

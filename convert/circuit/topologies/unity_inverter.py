@@ -24,8 +24,9 @@ def fit(topo, shape, settings):
     """A gain of exactly 1."""
     out = fit_constant(topo, shape, settings)
     if not math.isclose(gain_of(shape), 1.0, rel_tol=1e-9):
-        raise UnrealizableError(f"unity-inverter realizes a gain of exactly 1, the target's is {gain_of(shape):.6g}",
-                                key="topology")
+        raise UnrealizableError(
+            f"unity-inverter realizes a gain of exactly 1, the target's is {gain_of(shape):.6g}", key="topology"
+        )
     return out
 
 
@@ -36,7 +37,8 @@ TOPOLOGY = Topology(
     stages=(Stage("U1", "out", R("R2"), (("in", R("R1")),), role="inverter"),),
     inverting=True,
     represents="a gain of exactly 1 (used to correct an inverting stage's sign)",
-    free_parts=("R1",), equal_parts=(("R2", "R1"),),
+    free_parts=("R1",),
+    equal_parts=(("R2", "R1"),),
     equations=("F = R2/R1 = 1",),
     _coefficients=coefficients,
     _parameters=lambda p: {"k": p["R2"] / p["R1"]},
