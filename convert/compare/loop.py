@@ -1145,22 +1145,13 @@ def _pre(pre, r: float, step_s: float | None, continuous: bool = False) -> _Pref
     return _Prefilter(pre, r, step_s, continuous)
 
 
-_POOLS: list = []
-
-
 def one_blas_thread():
-    """BLAS limited to one thread while the loop is simulated: its matrices are small, and
-    waking a second thread costs more than the product (a shared machine makes it worse). The
-    libraries are looked up once (threadpoolctl's look-up costs about a millisecond)."""
-    try:
-        from threadpoolctl import ThreadpoolController
-    except ImportError:  # pragma: no cover - optional
-        import contextlib
+    """BLAS limited to one thread while the loop is simulated (its matrices are small, and waking
+    a second thread costs more than the product): the one scoped limit the package has,
+    :data:`convert.digital.statespace.small_dense`."""
+    from convert.digital.statespace import small_dense
 
-        return contextlib.nullcontext()
-    if not _POOLS:
-        _POOLS.append(ThreadpoolController())
-    return _POOLS[0].limit(limits=1)
+    return small_dense
 
 
 def _simulate_analog(controller, plant, dead_time_s, duration_s, h, r, dist, limits, kind, pre=None):
