@@ -149,3 +149,27 @@ def test_help_prints_every_option(run_cli):
     assert res.code == 0
     for option in ("--sweep", "--log", "--fit", "--max-residual-rms", "--max-step-deviation"):
         assert option in res.out or option in res.err
+
+
+def test_default_band_with_a_plant_covers_the_loop_crossover():
+    """Reviewer finding 19: with a plant, the default band reaches half a decade above the gain
+    crossover of A's loop, where B's 3-sample delay at 10 Hz moves the phase margin. The
+    crossover comes from python-control's stability_margins of 2(1 + 1/(1000s))·0.5/(20s + 1)
+    with a Padé(8) for the 1 s dead time (independent of the tool's margin code)."""
+    import math
+
+    import control
+
+    from convert.compare.pair import compare_pair
+    from convert.given import read_spec
+
+    a = read_spec("2*(1+1/(1000s))", "A")
+    b = read_spec("digital: b=2.0001,-1.9999 a=1,-1 fs=10Hz delay=3sample", "B")
+    res = compare_pair(a, b, plant_expression="0.5/(20s+1)", dead_time_s=1.0)
+    num, den = control.pade(1.0, 8)
+    loop = control.tf([2000, 2], [1000, 0]) * control.tf([0.5], [20, 1]) * control.tf(num, den)
+    wc = control.stability_margins(loop)[4]  # (gm, pm, sm, wpc, wgc, wms): gain crossover, rad/s
+    assert res.band_default and res.band_hz[1] >= math.sqrt(10) * wc / (2 * math.pi) * 0.999
+    bare = compare_pair(a, b)
+    assert bare.band_hz[1] < math.sqrt(10) * wc / (2 * math.pi) * 0.999
+    assert any("no plant" in n and "reach the phase limit" in n for n in bare.notes)

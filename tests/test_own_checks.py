@@ -135,3 +135,66 @@ def test_diverging_loop_simulation_shows_no_numpy_warning(run_cli):
         "compare", "(s+2)/(0.005s+1)", "digital: b=200,-192 a=1,3 fs=50Hz", "--band", "1m", "0.1", "--plant", "1/(s+1)"
     )
     assert out.code == 1 and "RuntimeWarning" not in out.out + out.err and "overflow" not in out.out + out.err
+
+
+def test_pole_on_the_unit_circle_that_is_not_an_integrator_fails():
+    """Forward Euler of 2(1 + 1/(10s) + 0.5s/(1 + 0.05s)) at 10 Hz maps the filter pole s = −20
+    to z = 1 − 20/10 = −1 (numpy.roots of a = [1, 0, −1] gives ±1): undamped at the Nyquist
+    frequency, so the controller alone grows without bound for an input at fs/2. The check fails
+    although |z| does not exceed 1; the integrator at z = +1 is not counted."""
+    from convert.compare.ownchecks import stability_check
+    from convert.controller import Controller
+    from convert.digital import discretize
+
+    src = Controller.analog([22, 40.2, 4], [1, 20, 0])
+    fe = discretize(src, 10.0, "forward-euler").controller
+    assert sorted(np.round(np.real(np.roots(fe.a)), 9)) == [-1.0, 1.0]
+    assert stability_check(src, fe)["status"] == "fail"
+    ok = discretize(src, 10.0, "tustin").controller
+    assert stability_check(src, ok)["status"] == "pass"
+
+
+def test_resonator_kept_on_the_unit_circle_passes():
+    """A source with an undamped pair s = ±j·2 (a resonant controller, 1/(s² + 4)) keeps the pair
+    on the unit circle under Tustin (|z| = 1 by the bilinear map; numpy.roots agrees): as many
+    boundary poles as the source has, so the check passes (the pair is designed, not added)."""
+    from convert.compare.ownchecks import stability_check
+    from convert.controller import Controller
+    from convert.digital import discretize
+
+    src = Controller.analog([1, 1], [1, 0, 4])
+    tu = discretize(src, 20.0, "tustin").controller
+    assert np.allclose(np.abs(np.roots(tu.a)), 1.0, atol=1e-12)
+    assert stability_check(src, tu)["status"] == "pass"
+
+
+def test_step_deviation_of_an_unstable_loop_is_unbounded_not_a_number_of_the_run(tmp_path):
+    """The closed loop of the forward-Euler form above with the plant 1/((2s + 1)(s + 1)) is
+    unstable (python-control: plant sampled by ZOH at 10 Hz, unity feedback, a pole outside
+    |z| = 1). Its simulated step deviation is only what the run's length made it, so the figure is
+    +∞, "unbounded", and the criterion FAILS; the stable Tustin form keeps a finite figure."""
+    import control
+
+    c = control.tf([22, -39.98, 18.02], [1, 0, -1], 0.1)
+    p = control.c2d(control.tf([1], [2, 3, 1]), 0.1, "zoh")
+    assert max(abs(control.feedback(c * p, 1).poles())) > 1
+    (tmp_path / "u.toml").write_text(
+        '[case]\ntitle = "u"\n[source]\nexpression = "2*(1 + 1/(10s) + 0.5s/(1+0.05s))"\n'
+        '[target.digital]\nfs = "10 Hz"\nmethods = ["forward-euler", "tustin"]\n'
+        '[plant]\nmodel = "1/((2s+1)*(s+1))"\n[criteria]\nband = ["1 mHz", "2 Hz"]\nmax_step_deviation = "3 %"\n'
+    )
+    res = evaluate_case(load_case(tmp_path / "u.toml"))
+    step = _checks(res, "max_step_deviation")
+    fe = next(n for n in step if n.startswith("forward-euler"))
+    tu = next(n for n in step if n.startswith("tustin"))
+    assert step[fe].status == "fail" and step[fe].value == np.inf and step[fe].note.startswith("unbounded")
+    assert np.isfinite(step[tu].value)
+
+
+def test_library_evaluate_refuses_too_few_draws():
+    """Below 200 draws the 0.5 %/99.5 % envelope has no draw beyond each end (1/0.005 = 200,
+    arithmetic): the library refuses them as the command line does."""
+    from convert.errors import InputError
+
+    with pytest.raises(InputError, match="at least 200"):
+        evaluate_case(load_case(Path(__file__).parents[1] / "cases" / "firmware_pid_to_opamp.toml"), draws=50)

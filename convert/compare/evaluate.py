@@ -9,6 +9,7 @@ source as is; a digital source through its own zero-order hold).
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from typing import Any
 from collections.abc import Callable
@@ -133,7 +134,12 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
     """Evaluate ``case`` (a :class:`convert.case.Case`). ``draws`` overrides the Monte Carlo
     draw count of a circuit target. ``progress(text)`` is called once per finished step."""
     from convert.case import source_controller
+    from convert.circuit.tolerance import check_draws, draws_problem
 
+    if draws is not None:  # the command line and case files check this; a library caller too
+        check_draws(draws)
+        if draws_problem(draws):
+            raise InputError(draws_problem(draws), key="draws")
     tick = _Progress(progress)
     info = source_controller(case)
     src: Controller = info.controller
@@ -873,6 +879,16 @@ def _loop_figures(src_m: Margins, r: Realization, src_step, src_dist, case) -> d
     if r.disturbance is not None and src_dist is not None:
         peak = float(np.max(np.abs(src_dist.y))) or 1.0
         f["max_disturbance_deviation"] = response_deviation(src_dist, r.disturbance) / peak
+    st = getattr(r, "stability", None)
+    if st is not None and not st.stable:
+        # a simulated deviation of an unstable loop only measures how long the simulation ran
+        for key in ("max_step_deviation", "max_disturbance_deviation"):
+            if key in f:
+                f[key] = math.inf
+                f[f"{key}_note"] = (
+                    "unbounded: the closed loop with this realization is unstable, so its response grows "
+                    "without bound (the value at the simulation's end would only measure how long it ran)"
+                )
     return f
 
 

@@ -46,12 +46,20 @@ def growth_rate(ctrl: Controller) -> tuple[float | None, float]:
 
 def unstable_poles(ctrl: Controller) -> list[complex]:
     """Poles outside the unit circle (digital) or in the right half-plane (analog), beyond the
-    boundary by more than a year's doubling time and more than the root's own accuracy."""
+    boundary by more than a year's doubling time and more than the root's own accuracy, and poles
+    ON the boundary other than designed integrators (z = 1 / s = 0): a pole at z = -1 or an
+    undamped pair on the unit circle or the jω axis does not decay, and an input at its frequency
+    makes the output grow without bound (a resonator the source also has is counted on both sides,
+    so it cancels in :func:`adds_unstable_poles`)."""
     _, slack = growth_rate(ctrl)
+    point = 1.0 if ctrl.is_digital else 0.0
     out = []
     for r in ctrl.pole_roots():
+        tol = max(slack, r.error)
         past = abs(r.value) - 1.0 if ctrl.is_digital else r.value.real
-        if past > max(slack, r.error):
+        on_boundary = abs(past) <= tol
+        integrator = on_boundary and abs(r.value - point) <= max(1e-9, 10 * r.error)
+        if past > tol or (on_boundary and not integrator):
             out += [complex(r.value)] * r.multiplicity
     return out
 
@@ -75,14 +83,15 @@ def stability_check(source: Controller, ctrl: Controller) -> dict:
         shown = ", ".join(f"s = {_c(p)} 1/s" for p in mine[:3])
     if len(mine) > len(theirs):
         note = (
-            f"the controller itself is unstable: {len(mine)} pole(s) {where} ({shown}) where the source has "
+            f"the controller itself is unstable: {len(mine)} pole(s) {where} or undamped on its edge ({shown}) "
+            f"where the source has "
             f"{len(theirs) or 'none'}; its output grows without bound whenever its loop is open"
         )
         status = "fail"
     else:
         figure_is = "largest |z| of its poles" if ctrl.is_digital else "largest real part of its poles"
         note = (
-            f"no pole {where}; figure: {figure_is}, designed integrators apart"
+            f"no pole {where} or undamped on its edge; figure: {figure_is}, designed integrators apart"
             if not mine
             else f"{len(mine)} pole(s) {where}, as many as the source has"
         )

@@ -12,6 +12,8 @@ Frequencies in Hz; gain errors in dB (B relative to A), phase errors in degrees 
 
 from __future__ import annotations
 
+import math
+
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -80,6 +82,49 @@ def default_band_hz(*controllers) -> tuple[float, float]:
         if not low < high / 10:
             low = high / 100
     return float(low), float(high)
+
+
+def _widen_to_loop(band_hz, a_ctrl, b_ctrl, plant) -> tuple[tuple[float, float], str]:
+    """The default band widened to half a decade (×√10) around the gain crossover of A's loop with
+    the plant, where a difference between A and B moves the phase margin (the gain margin and the
+    sensitivity peak have their own criteria, judged on both loops); kept below 0.999 of the lowest
+    Nyquist frequency. Returns (band, note)."""
+    from convert.compare.loop import loop_margins
+
+    m = loop_margins(a_ctrl, plant.model, plant.dead_time_s)
+    where = [f for f in (m.crossover_hz,) if f and math.isfinite(f)]
+    if not where:
+        return band_hz, ""
+    half = math.sqrt(10.0)
+    low, high = min(band_hz[0], min(where) / half), max(band_hz[1], max(where) * half)
+    nyq = [c.fs_hz / 2 for c in (a_ctrl, b_ctrl) if c.is_digital]
+    if nyq:
+        high = min(high, 0.999 * min(nyq))
+    if (low, high) == tuple(band_hz):
+        return band_hz, ""
+    return (float(low), float(high)), (
+        f"band widened to half a decade around the crossover of A's loop with the plant ({where[0]:.4g} Hz)"
+    )
+
+
+def _hold_lag_note(r, band_hz, phase_limit_deg: float) -> str:
+    """Without a plant the default band knows nothing of the loop: say how much phase a digital
+    B's hold and delay take at the band's top and where they alone would reach the phase limit
+    (their lag grows in proportion to frequency)."""
+    if not r.controller.is_digital:
+        return ""
+    top = np.array([float(band_hz[1])])
+    with np.errstate(all="ignore"):
+        ratio = complex(r.seen(top)[0] / r.controller.frequency_response(top, via="zpk")[0])
+    lag = -math.degrees(math.atan2(ratio.imag, ratio.real))
+    if not (math.isfinite(lag) and lag > 0):
+        return ""
+    reach = float(band_hz[1]) * phase_limit_deg / lag
+    return (
+        f"no plant: the default band cannot know where the loop crosses over. B's sample-and-hold and delay "
+        f"lag {lag:.3g} deg at the band's top ({band_hz[1]:.4g} Hz) and would alone reach the phase limit "
+        f"({phase_limit_deg:g} deg) near {reach:.4g} Hz; give --plant or --band to compare where the loop works"
+    )
 
 
 def _spot_frequencies(band_hz) -> np.ndarray:
@@ -152,6 +197,10 @@ def compare_pair(
             raise InputError(exc.message, where=where) from None
     elif dead_time_s:
         raise InputError("a dead time belongs to a plant; give --plant too", where="--dead-time")
+    if band_default and plant is not None:
+        band_hz, widened = _widen_to_loop(band_hz, a_ctrl, b_ctrl, plant)
+        if widened:
+            notes.append(widened)
     chosen = {k: v for k, v in (limits or {}).items() if v is not None}
     for key, default in (
         ("max_gain_error_db", DEFAULT_GAIN_LIMIT_DB),
@@ -210,6 +259,10 @@ def compare_pair(
         }
         for f, x, y, g, p in zip(spots_f, ra, rb, spot_err.gain_error_db, spot_err.phase_error_deg)
     ]
+    if band_default and plant is None:
+        lag_note = _hold_lag_note(r, band_hz, pl)
+        if lag_note:
+            notes.append(lag_note)
     # the agreement band, looked for a decade beyond the compared band on each side
     nyq = [c.fs_hz / 2 for c in (results.reference, r.controller) if c.is_digital]
     wide_hi = band_hz[1] * 10 if not nyq else min(band_hz[1] * 10, 0.999 * min(nyq))

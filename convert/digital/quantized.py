@@ -123,7 +123,10 @@ class FormatAnalysis:
                     limit=self.stall_limit,
                     value=self.stall_error,
                     status="fail" if "stall" in fails else "pass",
-                    note=f"smallest error that moves the integral at output level {self.output_level:.4g}",
+                    note=next(
+                        (f for f in self.failures if "stall" in f),
+                        f"smallest error that moves the integral at output level {self.output_level:.4g}",
+                    ),
                 )
             )
         return out
@@ -292,7 +295,9 @@ def analyze(
             )
 
     stall = None
-    if designed_ones:
+    if designed_ones and unstable:
+        notes.append("integrator stall not measured: the stored realization is unstable (see above)")
+    elif designed_ones:
         stall = _stall(real, layout, roots, r, u)
         if stall is None or stall > res:
             shown = "no error up to the input range" if stall is None else f"{stall:.4g}"
