@@ -28,6 +28,7 @@ Pure numpy; conventions: coefficients in descending powers, real.
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -62,19 +63,32 @@ class Root:
 
 
 def _taylor(p: np.ndarray, c: complex, upto: int) -> tuple[np.ndarray, np.ndarray]:
-    """Taylor coefficients t_k of p(c + w) for k = 0..upto and their rounding-error bounds."""
+    """Taylor coefficients t_k of p(c + w) for k = 0..upto and their rounding-error bounds.
+
+    t_k = Σ_j a_j·C(j, k)·c^(j−k) (a_j the coefficient of x^j), all k at once as one
+    matrix-vector product; the bound is (n + 2)·eps·Σ_j |a_j|·C(j, k)·|c|^(j−k)."""
     n = p.size - 1
+    upto_n = min(upto, n)
+    a = p[::-1].astype(float)
+    binom, shift = _binomials(n, upto_n)
+    powers = np.power(complex(c), shift) * binom  # [k, j] = C(j, k)·c^(j−k), 0 below the diagonal
     t = np.zeros(upto + 1, complex)
     bound = np.zeros(upto + 1)
-    q, qa = p.astype(float), np.abs(p).astype(float)
-    absc = abs(c)
-    for k in range(min(upto, n) + 1):
-        # q = p^(k) / k!: coefficients p_j·C(j, k); one derivative more divides by k+1
-        t[k] = np.polyval(q, c)
-        bound[k] = (n + 2) * _EPS * float(np.polyval(qa, absc))
-        q = np.polyder(q) / (k + 1) if q.size > 1 else np.zeros(1)
-        qa = np.polyder(qa) / (k + 1) if qa.size > 1 else np.zeros(1)
+    t[: upto_n + 1] = powers @ a
+    bound[: upto_n + 1] = (n + 2) * _EPS * ((np.power(abs(c), shift) * binom) @ np.abs(a))
     return t, bound
+
+
+@functools.lru_cache(maxsize=256)
+def _binomials(n: int, upto: int) -> tuple[np.ndarray, np.ndarray]:
+    """(C(j, k), j − k) for k = 0..upto, j = 0..n; C is 0 and the shift 0 where j < k."""
+    k = np.arange(upto + 1)[:, None]
+    j = np.arange(n + 1)[None, :]
+    binom = np.array([[math.comb(jj, kk) if jj >= kk else 0 for jj in range(n + 1)] for kk in range(upto + 1)], float)
+    shift = np.where(j >= k, j - k, 0)
+    binom.setflags(write=False)
+    shift.setflags(write=False)
+    return binom, shift
 
 
 def _is_multiple(p: np.ndarray, c: complex, m: int) -> bool:
@@ -123,27 +137,35 @@ def _groups(roots: np.ndarray, rel: float) -> list[list[int]]:
             a = parent[a]
         return a
 
-    for i in range(n):
-        for j in range(i + 1, n):
-            scale = max(abs(roots[i]), abs(roots[j]), 1e-300)
-            if abs(roots[i] - roots[j]) <= rel * scale:
-                parent[find(i)] = find(j)
+    mag = np.abs(roots)
+    close = np.abs(roots[:, None] - roots[None, :]) <= rel * np.maximum(np.maximum(mag[:, None], mag[None, :]), 1e-300)
+    for i, j in zip(*np.nonzero(np.triu(close, 1))):
+        parent[find(int(i))] = find(int(j))
     out: dict[int, list[int]] = {}
     for i in range(n):
         out.setdefault(find(i), []).append(i)
     return list(out.values())
 
 
-def _cluster(p: np.ndarray, roots: np.ndarray, idx: list[int], rel: float, out: list[Root]) -> None:
+def _simple_roots(p: np.ndarray, cs: np.ndarray) -> list[Root]:
+    """Simple roots keep their eigenvalues (backward stable; a Newton step in double precision
+    only wanders inside the rounding noise); the accuracy of each is the Newton correction or the
+    rounding bound of the evaluation over |p'|, whichever is larger (all roots at once)."""
+    if cs.size == 0:
+        return []
+    dp = np.polyval(np.polyder(p), cs)
+    mag = np.polyval(np.abs(p), np.abs(cs))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        err = np.maximum(np.abs(np.polyval(p, cs) / dp), (p.size + 1) * _EPS * mag / np.abs(dp))
+    err = np.where(dp != 0, err, np.inf)
+    return [Root(complex(c), 1, float(max(e, _EPS * abs(c)))) for c, e in zip(cs, err)]
+
+
+def _cluster(p: np.ndarray, roots: np.ndarray, idx: list[int], rel: float, out: list[Root], simple: list[int]) -> None:
+    """Split the group ``idx`` of approximate roots until each part is one multiple root (into
+    ``out``) or a single root (its index into ``simple``, evaluated by :func:`_simple_roots`)."""
     if len(idx) == 1:
-        # A simple root keeps its eigenvalue (backward stable; a Newton step in double precision
-        # only wanders inside the rounding noise); its accuracy is the Newton correction or the
-        # rounding bound of the evaluation over |p'|, whichever is larger.
-        c = complex(roots[idx[0]])
-        dp = np.polyval(np.polyder(p), c)
-        mag = float(np.polyval(np.abs(p), abs(c)))
-        err = max(abs(np.polyval(p, c) / dp), (p.size + 1) * _EPS * mag / abs(dp)) if dp != 0 else math.inf
-        out.append(Root(c, 1, float(max(err, _EPS * abs(c)))))
+        simple.append(idx[0])
         return
     c0 = complex(np.mean(roots[idx]))
     m = len(idx)
@@ -153,7 +175,7 @@ def _cluster(p: np.ndarray, roots: np.ndarray, idx: list[int], rel: float, out: 
             out.append(Root(c, m, err))
             return
     for sub in _groups(roots[idx], rel / 4):
-        _cluster(p, roots, [idx[k] for k in sub], rel / 4, out)
+        _cluster(p, roots, [idx[k] for k in sub], rel / 4, out, simple)
 
 
 def find_roots(p_desc) -> tuple[Root, ...]:
@@ -169,9 +191,11 @@ def find_roots(p_desc) -> tuple[Root, ...]:
     if p.size > 1:
         approx = np.roots(p).astype(complex)
         found: list[Root] = []
+        simple: list[int] = []
         # start with every root in one group (its centroid, −p1/(n·p0), is exact): a root of high
         # multiplicity scatters over a circle as wide as the root itself
-        _cluster(p, approx, list(range(approx.size)), 8.0, found)
+        _cluster(p, approx, list(range(approx.size)), 8.0, found, simple)
+        found += _simple_roots(p, approx[sorted(simple)])
         found = _conjugate_pairs(found)
         out += found
     return tuple(sorted(out, key=lambda r: (abs(r.value), np.angle(r.value))))

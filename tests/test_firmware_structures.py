@@ -250,9 +250,14 @@ def test_stall_figure_does_not_depend_on_the_window(monkeypatch):
 
     real = _real("2*(1+1/(1.0*s)+0.1*s/(0.01*s+1))", 2000)
     f = log_grid(0.01, 100, 20)
-    first = {
-        s: analyze(real.roots, s, "float32", f, b=real.b, a=real.a, output_level=10).stall_error for s in STRUCTURES
-    }
+    runs = {s: analyze(real.roots, s, "float32", f, b=real.b, a=real.a, output_level=10) for s in STRUCTURES}
+    # a stored realization that is unstable (here the direct forms: float32 puts the integrator at
+    # |z| = 1 + 1.2e-6, numpy.roots of the stored a agrees) has no stall figure: it fails on its poles
+    first = {s: x.stall_error for s, x in runs.items() if not x.unstable_poles}
+    for s, x in runs.items():
+        if x.unstable_poles:
+            assert x.stall_error is None and any(m.startswith("unstable") for m in x.failures), s
+    assert set(first) >= {"sections", "delta"}
     monkeypatch.setattr(q, "STALL_TO", 256)
     for s, v in first.items():
         again = analyze(real.roots, s, "float32", f, b=real.b, a=real.a, output_level=10).stall_error
