@@ -260,3 +260,59 @@ def test_unstable_target_loop_fails_though_error_criteria_pass(tmp_path):
     assert status["max_gain_error_db"] == "pass" and status["max_phase_error_deg"] == "pass"
     assert status["closed_loop_stable"] == "fail" and res.verdict.overall == "fail"
     assert res.alarms and "tustin @ 2 Hz is unstable" in res.alarms[0]
+
+
+@pytest.mark.parametrize("fs", [20.0, 50.0])
+@pytest.mark.parametrize("kc", [0.5, 2.0, 6.0, 12.0])
+def test_long_delay_line_count_agrees_with_eigenvalues(fs, kc):
+    """A sampled loop whose dead time is many periods (4 s at 20–50 Hz: 80–200 held outputs)
+    is counted on the unit circle past its delay line, not by eigenvalues of the full matrix.
+    Reference: numpy.linalg.eigvals of the full sampled-loop state matrix. (python-control's
+    feedback() poles are no reference here: they root a polynomial of degree 80–200, and for
+    kc = 0.5 put 12 poles outside |z| = 1 where the state matrix has none.) The larger gains
+    are unstable (the count is not always zero)."""
+    from convert.compare.loop import sampled_loop_matrix
+    from convert.compare.stability import count_outside_unit_circle
+    from convert.digital import discretize
+
+    c = from_expression(f"{kc}*(1 + 1/(20*s))")
+    p = from_expression("1/((8*s + 1)*(2*s + 1))")
+    cd = discretize(c, fs, "tustin").controller
+    s = loop_stability(cd, p, 4.0)
+    assert "delay line" in s.method
+    a = sampled_loop_matrix(cd, p, 4.0)
+    lam = np.abs(np.linalg.eigvals(a))
+    want = int(np.sum(lam > 1 + 1e-9))
+    assert s.unstable_poles == want and count_outside_unit_circle(a) == (want, False)
+    assert (want > 0) == (kc >= 6.0)
+
+
+def test_long_delay_count_agrees_with_eigenvalues_on_random_loops():
+    """40 random loops of our own (PI by Tustin, ZOH or forward Euler, first- or second-order
+    plant, dead time 0–3 s at 1–100 Hz, gains to instability): the count past the delay line
+    equals numpy.linalg.eigvals of the full sampled-loop matrix (|λ| > 1 + 1e-9)."""
+    from convert.compare.loop import sampled_loop_matrix
+    from convert.compare.stability import count_outside_unit_circle
+    from convert.controller import Controller
+    from convert.digital import discretize
+
+    rng = np.random.default_rng(7)
+    seen = unstable = 0
+    for _ in range(40):
+        fs = float(rng.choice([1.0, 10.0, 100.0]))
+        kc, ti, tau = rng.uniform(0.1, 20), rng.uniform(0.5, 50), rng.uniform(0.5, 20)
+        cd = discretize(Controller.analog([kc * ti, kc], [ti, 0]), fs, str(rng.choice(["tustin", "zoh"]))).controller
+        p = (
+            Controller.analog([1.0], [tau * tau / 4, tau, 1])
+            if rng.random() < 0.5
+            else Controller.analog([1.0], [tau, 1])
+        )
+        a = sampled_loop_matrix(cd, p, float(rng.uniform(0, 3)))
+        got = count_outside_unit_circle(a)
+        if got is None:  # no delay line (dead time under a period)
+            continue
+        lam = np.abs(np.linalg.eigvals(a))
+        assert got == (int(np.sum(lam > 1 + 1e-9)), False)
+        seen += 1
+        unstable += got[0] > 0
+    assert seen >= 25 and unstable >= 3

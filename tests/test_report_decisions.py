@@ -23,7 +23,7 @@ def _evaluate(path: Path, **kw):
 
 @pytest.fixture(scope="module")
 def circuit_only():
-    return _evaluate(CASES / "firmware_pid_to_opamp.toml", draws=50)
+    return _evaluate(CASES / "firmware_pid_to_opamp.toml", draws=200)
 
 
 def test_circuit_only_case_has_no_z_plane_panel(circuit_only):

@@ -265,7 +265,7 @@ max_step_deviation = "5 %"
         encoding="utf-8",
     )
     case = load_case(path)
-    res = evaluate_case(case, draws=50)
+    res = evaluate_case(case, draws=200)
     (r,) = res.realizations
     paths = get_topology("pid-two-input").paths_from_parts(r.details["parts"])
     f = np.array([0.1])

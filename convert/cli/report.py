@@ -162,7 +162,7 @@ def _summary(console, results, folder) -> None:
 
     from convert.cli.common import fit_columns, styled
     from convert.compare.evaluate import CAUTIONS
-    from convert.report.tables import all_tables, parsed_table
+    from convert.report.tables import all_tables, figure_against_limit, parsed_table
 
     case = results.case
     verdict = results.verdict.overall
@@ -221,7 +221,7 @@ def _summary(console, results, folder) -> None:
             elif j.value == float("inf") and j.note:  # a root on the axis inside the band
                 text = f"{j.realization}: {j.label} {j.note}"
             else:
-                text = f"{j.realization}: {j.label} {j.value:.3g} {j.unit} > limit {j.limit:g} {j.unit}"
+                text = figure_against_limit(j)
             console.print(styled(f"[red]fails:[/red] {escape(text)}"))
     if results.verdict.unchecked_reason:
         console.print(styled(f"[red]unchecked:[/red] {escape(results.verdict.unchecked_reason)}"))

@@ -729,6 +729,7 @@ def _firmware(case, real, band):
             input_range=rng,
             output_level=level,
             input_resolution=tgt.input_resolution,
+            response_limits=(case.criteria.max_gain_error_db, case.criteria.max_phase_error_deg),
         )
     except LoopshiftError as exc:
         raise type(exc)(
@@ -740,8 +741,9 @@ def _firmware(case, real, band):
 
 def _code_files(case, firmware, name: str, method: str) -> dict:
     """The generated code of a realization that passes its firmware checks, under
-    ``code/<realization>/`` (none for a failing one: code that must not run is not handed out)."""
-    if not firmware.ok:
+    ``code/<realization>/`` (none for a failing one, nor for one whose stall is undecided: code
+    that must not run, or that was not shown to run, is not handed out)."""
+    if not firmware.ok or firmware.stall_unchecked:
         return {}
     import re
 
@@ -869,6 +871,13 @@ def _loop_figures(src_m: Margins, r: Realization, src_step, src_dist, case) -> d
         a, b = getattr(src_m, attr), getattr(m, attr)
         if a is None and b is None:
             f[key], f[f"{key}_note"] = 0.0, "neither loop has this figure"
+        elif (a is None or b is None) and attr == "phase_margin_deg":
+            # one loop crosses 0 dB and the other never does: the largest change there is
+            f[key] = math.inf
+            f[f"{key}_note"] = (
+                f"unbounded: the {'source' if a is None else 'new'} loop has no gain crossover (no phase margin) "
+                f"where the {'new' if a is None else 'source'} loop has one ({(b if a is None else a):.3g} deg)"
+            )
         elif a is None or b is None:
             f[key] = None
             f[f"{key}_note"] = f"{'source' if a is None else 'new'} loop has no {attr.replace('_', ' ')}"

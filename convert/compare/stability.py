@@ -176,13 +176,101 @@ def _count_sampled(
     from convert.compare.loop import sampled_loop_matrix
 
     a = sampled_loop_matrix(controller, plant, dead_time_s + delay_s)
+    method = "eigenvalues of the sampled-data closed loop (plant discretized exactly with its delays)"
+    if a.shape[0] > _DENSE_EIG_MAX:
+        counted = count_outside_unit_circle(a)
+        if counted is not None:
+            return counted[0], counted[1], method + ", counted on the unit circle past the delay line"
     lam = np.abs(np.linalg.eigvals(a)) if a.size else np.zeros(0)
     tol = 1e-9
-    return (
-        int(np.count_nonzero(lam > 1 + tol)),
-        bool(np.any(np.abs(lam - 1) <= tol)),
-        "eigenvalues of the sampled-data closed loop (plant discretized exactly with its delays)",
-    )
+    return int(np.count_nonzero(lam > 1 + tol)), bool(np.any(np.abs(lam - 1) <= tol)), method
+
+
+#: above this many states the sampled loop's poles are counted through its delay line
+_DENSE_EIG_MAX = 80
+
+
+def count_outside_unit_circle(a: np.ndarray, max_rounds: int = 60) -> tuple[int, bool] | None:
+    """(eigenvalues of ``a`` outside |z| = 1, any on it) for a matrix whose states are mostly a
+    delay line — rows that copy one other state (x_i ← x_j) and form no cycle (a nilpotent block S,
+    the held outputs of a long dead time). With the other ("core") states c:
+
+        det(zI − a) = z^m · F(z),  F(z) = det(zI − A_cc − Σ_d G_d z^{−d}),  G_d = A_cm S^{d−1} A_mc
+
+    (Schur complement; (zI − S)⁻¹ = Σ_k S^k z^{−k−1}), so by the argument principle the count
+    inside is m plus the winding number of F around 0 on the unit circle. F is evaluated on a grid
+    of 16 points per turn of its fastest term, refined by bisection wherever its phase steps by
+    more than 0.4 rad (a pole close to the circle, such as the slow pole of an integrating loop
+    next to z = 1). A point where |F| falls below 1e-9 of its Hadamard bound, or an interval that
+    cannot be split further, is a pole on the circle. None when the rows do not have that
+    structure (a cycle among the copies): the caller falls back to the eigenvalues."""
+    n = a.shape[0]
+    nonzero = a != 0
+    single = np.count_nonzero(nonzero, axis=1) == 1
+    col = np.argmax(nonzero, axis=1)
+    copy = single & (a[np.arange(n), col] == 1.0) & (col != np.arange(n))
+    chain = np.nonzero(copy)[0]
+    core = np.nonzero(~copy)[0]
+    m, c = chain.size, core.size
+    if m == 0 or c == 0:
+        return None
+    where_in_chain = np.full(n, -1)
+    where_in_chain[chain] = np.arange(m)
+    src = where_in_chain[col[chain]]  # the chain state each chain state copies, −1: a core state
+    a_cc = a[np.ix_(core, core)]
+    a_mc = np.where((src >= 0)[:, None], 0.0, a[np.ix_(chain, core)])  # a copy of a chain state reads no core state
+    a_cm = a[np.ix_(core, chain)]
+    read = np.nonzero(np.any(a_cm != 0, axis=0))[0]  # the chain states the core reads
+    powers, terms = [], []
+    anc = read.copy()
+    for d in range(1, m + 2):  # G_d = A_cm[:, read] · (S^(d−1) A_mc)[read]; (S^k v)[i] = v[src^k(i)]
+        alive = anc >= 0
+        if not alive.any():
+            break
+        g = a_cm[:, read[alive]] @ a_mc[anc[alive]]
+        if np.any(g):
+            powers.append(d)
+            terms.append(g)
+        anc = np.where(alive, src[np.maximum(anc, 0)], -1)
+    else:
+        return None  # a cycle among the copies: not a delay line
+    dd = np.array(powers, dtype=float)
+    gd = np.array(terms).reshape(len(terms), c, c)
+    eye = np.eye(c)
+
+    def f_of(theta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        out_f = np.empty(theta.size, complex)
+        out_s = np.empty(theta.size)
+        for lo in range(0, theta.size, 4096):
+            th = theta[lo : lo + 4096]
+            mats = np.exp(1j * th)[:, None, None] * eye - a_cc
+            if dd.size:
+                mats = mats - np.tensordot(np.exp(-1j * np.outer(th, dd)), gd, axes=(1, 0))
+            out_f[lo : lo + th.size] = np.linalg.det(mats)
+            out_s[lo : lo + th.size] = np.prod(np.linalg.norm(mats, axis=2), axis=1)
+        return out_f, out_s
+
+    fastest = float(dd.max()) if dd.size else 0.0
+    theta = np.linspace(0.0, 2 * np.pi, int(16 * (fastest + c)) + 65)
+    fv, scale = f_of(theta)
+    for _ in range(max_rounds):
+        if np.any(np.abs(fv) <= _MARGINAL_RTOL * scale):
+            return 0, True
+        step = np.angle(fv[1:] / fv[:-1])
+        bad = np.nonzero(np.abs(step) > 0.4)[0]
+        if bad.size == 0:
+            inside = m + int(round(float(np.sum(step)) / (2 * np.pi)))
+            return n - inside, False
+        if np.any(theta[bad + 1] - theta[bad] <= 1e-14):
+            return 0, True
+        mids = 0.5 * (theta[bad] + theta[bad + 1])
+        fm, sm = f_of(mids)
+        theta = np.concatenate([theta, mids])
+        order = np.argsort(theta, kind="stable")
+        theta = theta[order]
+        fv = np.concatenate([fv, fm])[order]
+        scale = np.concatenate([scale, sm])[order]
+    return None
 
 
 def _count_analog(controller: Controller, plant: Controller, theta: float) -> tuple[int, bool, str]:

@@ -44,6 +44,8 @@ CRITERIA: tuple[tuple[str, str, str], ...] = (
     ("max_step_deviation", "step-response deviation", "of step"),
     ("max_disturbance_deviation", "disturbance-response deviation", "of peak"),
 )
+#: checks that, left undecided, keep the verdict from passing
+MUST_DECIDE = frozenset({"closed_loop_stable", "firmware_stall"})
 CRITERION_KEYS = frozenset(k for k, _, _ in CRITERIA)  # a realization's own checks are not among them
 LOOP_CRITERIA = {
     "max_phase_margin_change_deg",
@@ -100,6 +102,9 @@ class Verdict:
                 + ", ".join(f"the {n} loop" if n == "source" else repr(n) for n in undecided)
                 + " could not be decided, so no verdict can pass"
             )
+        stalls = [j for j in self.judgements if j.criterion == "firmware_stall" and j.status == "skipped"]
+        if stalls:
+            return "; ".join(f"{j.realization}: {j.label}: {j.note}" for j in stalls) + ", so no verdict can pass"
         names = list(dict.fromkeys(j.realization for j in self.judgements if j.criterion != "closed_loop_stable"))
         if not names:
             return "no new form was built, so no criterion was checked"
@@ -190,8 +195,8 @@ def judge(criteria: dict, figures: dict[str, dict], *, has_plant: bool, loops: d
         )
     if any(j.status == "fail" for j in out):
         overall = "fail"
-    elif any(j.criterion == "closed_loop_stable" and j.status == "skipped" for j in out):
-        overall = "unchecked"  # a loop whose stability could not be decided is never a pass
+    elif any(j.criterion in MUST_DECIDE and j.status == "skipped" for j in out):
+        overall = "unchecked"  # a loop's stability or a firmware stall that could not be decided is never a pass
     elif not figures or any(
         not any(j.status == "pass" and j.criterion in CRITERION_KEYS for j in out if j.realization == name)
         for name in figures

@@ -15,11 +15,19 @@ For one structure × word format (:func:`analyze`):
   fails when a bound exceeds its node's full scale, float when it exceeds the format's range;
 * limit cycles (fixed point) — from random states with zero input, per section without
   unit-circle poles, the largest output left after the linear response has died out;
+* response limit — the response error above fails when it exceeds 1 dB or 5° anywhere in the band
+  (the tool's own defaults for "the same controller"; a case's gain/phase criteria replace them):
+  rounding can move a zero onto z = 1 and take away the DC gain, or turn the sign;
+* dead band (fixed point) — a section without a designed integrator holds any constant output y
+  with |(1 + Σa)·y| ≤ ½ LSB after rounding (y = round(y − (1 + Σa)·y)): it cannot settle closer
+  than that to its true value. Fails above 1 % of the node's full scale (a few LSB are usual;
+  a percent is an offset the plant sees);
 * integrator stall — for a controller with a pole at z = 1: the smallest constant error that
   still moves the output by at least half of what the exact controller does, started on the
   exact solution for that error as it passes the output level U (so no transient), over 64
   samples, in controller input units. It fails when larger than the stated input resolution
-  (default: R / 2^15).
+  (default: R / 2^15). Float32 and fixed point need the output level (the integral's value sets
+  the figure): without one the check is left undecided, never passed on an assumed level.
 """
 
 from __future__ import annotations
@@ -37,6 +45,10 @@ from convert.errors import LoopshiftError
 STALL_TO = 64
 LIMIT_CYCLE_TRIALS = 32
 LIMIT_CYCLE_SAMPLES = 20000
+#: the stored coefficients' response may depart from the design by this much (dB, deg) by default
+RESPONSE_LIMITS = (1.0, 5.0)
+#: a fixed-point dead band above this fraction of the node's full scale fails
+DEAD_BAND_LIMIT = 0.01
 
 
 @dataclass(frozen=True)
@@ -65,6 +77,9 @@ class FormatAnalysis:
     limit_cycle_lsb: int | None = None
     stall_error: float | None = None
     stall_limit: float | None = None
+    stall_unchecked: str | None = None  # why the stall figure was not decided (no output level)
+    dead_band: float | None = None  # largest fixed-point dead band, fraction of its node's full scale
+    response_limits: tuple[float, float] = RESPONSE_LIMITS
     input_range: float | None = None
     output_level: float | None = None
     failures: tuple[str, ...] = ()
@@ -114,7 +129,47 @@ class FormatAnalysis:
                     note=next((f for f in self.failures if "overflow" in f), "peak-gain (L1) bound per node"),
                 )
             )
-        if self.stall_error is not None or "stall" in fails:
+        gl, pl = self.response_limits
+        bad_response = next((f for f in self.failures if f.startswith("response:")), None)
+        out.append(
+            dict(
+                key="firmware_response",
+                label=f"{name}: stored coefficients follow the design",
+                unit="dB",
+                limit=gl,
+                value=self.gain_error_db,
+                status="fail" if bad_response else "pass",
+                note=bad_response
+                or f"gain {self.gain_error_db:.3g} dB, phase {self.phase_error_deg:.3g} deg from quantization alone "
+                f"(limit {gl:g} dB / {pl:g} deg)",
+            )
+        )
+        if self.dead_band is not None:
+            bad_band = next((f for f in self.failures if f.startswith("dead band:")), None)
+            out.append(
+                dict(
+                    key="firmware_dead_band",
+                    label=f"{name}: dead band with zero input",
+                    unit="of full scale",
+                    limit=DEAD_BAND_LIMIT,
+                    value=self.dead_band,
+                    status="fail" if bad_band else "pass",
+                    note=bad_band or "largest constant output a section holds against rounding, per its node",
+                )
+            )
+        if self.stall_unchecked:
+            out.append(
+                dict(
+                    key="firmware_stall",
+                    label=f"{name}: integrator moves at the input resolution",
+                    unit="input units",
+                    limit=self.stall_limit,
+                    value=None,
+                    status="skipped",
+                    note=self.stall_unchecked,
+                )
+            )
+        elif self.stall_error is not None or "stall" in fails:
             out.append(
                 dict(
                     key="firmware_stall",
@@ -182,12 +237,16 @@ def analyze(
     input_range: float | None = None,
     output_level: float | None = None,
     input_resolution: float | None = None,
+    response_limits: tuple[float | None, float | None] | None = None,
 ) -> FormatAnalysis:
     """Analyze the controller with z-domain ``roots`` (:class:`RootForm`; ``b``/``a`` its
     expanded polynomial for the direct forms) in ``structure`` × ``word_format`` over the band
     ``band_f_hz`` (Hz). ``input_range`` R and ``output_level`` U in controller input/output
     units (defaults: U = 1, R = :func:`default_input_range`); ``input_resolution`` the smallest
-    error the integrator must still act on (default R / 2^15)."""
+    error the integrator must still act on (default R / 2^15); ``response_limits`` (dB, deg) the
+    largest response error of the stored coefficients (default :data:`RESPONSE_LIMITS`; a None
+    entry keeps its default)."""
+    limits = tuple(d if v is None else float(v) for v, d in zip(response_limits or (None, None), RESPONSE_LIMITS))
     word = word_format if isinstance(word_format, WordFormat) else get_format(word_format)
     layout = build_layout(structure, roots, b, a)
     notes = []
@@ -201,7 +260,14 @@ def analyze(
             "between fs/1000 and fs/2)"
         )
     res = float(input_resolution) if input_resolution else r / 2**15
-    base = dict(structure=layout.structure, word_format=word.name, input_range=r, output_level=u, stall_limit=res)
+    base = dict(
+        structure=layout.structure,
+        word_format=word.name,
+        input_range=r,
+        output_level=u,
+        stall_limit=res,
+        response_limits=limits,
+    )
     try:
         real = realize(layout, word, input_range=input_range if word.is_fixed else r, output_level=u)
     except LoopshiftError as exc:
@@ -270,6 +336,12 @@ def analyze(
 
         err = compare_responses(ref, resp, f)
         gdb, pdeg = err.max_gain_error_db, err.max_phase_error_deg
+        if not (math.isfinite(gdb) and math.isfinite(pdeg)) or gdb > limits[0] or pdeg > limits[1]:
+            failures.append(
+                f"response: quantization alone moves the response by {gdb:.3g} dB / {pdeg:.3g} deg in the band "
+                f"(largest relative error at {float(f[i]):.4g} Hz), above {limits[0]:g} dB / {limits[1]:g} deg: "
+                "the stored coefficients are not the designed controller"
+            )
 
     # overflow
     gains = peak_gains(layout)
@@ -285,17 +357,29 @@ def analyze(
         if big:
             failures.append(f"overflow: peak-gain bound {max(big):.3g} exceeds the {word.name} range")
 
-    lc = lc_lsb = None
+    lc = lc_lsb = dead = None
     if word.is_fixed:
         lc_lsb, lc, drift = _limit_cycles(real, layout, notes)
+        dead, at_section = _dead_band(real, layout)
+        if dead is not None and dead > DEAD_BAND_LIMIT:
+            failures.append(
+                f"dead band: section {at_section} holds any constant output up to {100 * dead:.3g} % of its full "
+                f"scale with zero input (rounding cancels the pull back; limit {100 * DEAD_BAND_LIMIT:g} %): a pole "
+                "too close to z = 1 for the word; use more bits or another structure"
+            )
         for sec, moved in drift:
             failures.append(
                 f"integrator drift: section {sec} keeps moving by {moved} LSB per sample with zero input "
                 "(rounding sustains it); use structure sections"
             )
 
-    stall = None
-    if designed_ones and unstable:
+    stall = stall_unchecked = None
+    if designed_ones and not output_level and word.name != "float64":
+        stall_unchecked = (
+            f"not decided: {word.name} holds the integral at the output's level, and no output level was given "
+            "(give output limits)"
+        )
+    elif designed_ones and unstable:
         notes.append("integrator stall not measured: the stored realization is unstable (see above)")
     elif designed_ones:
         stall = _stall(real, layout, roots, r, u)
@@ -323,6 +407,8 @@ def analyze(
         limit_cycle=lc,
         limit_cycle_lsb=lc_lsb,
         stall_error=stall,
+        stall_unchecked=stall_unchecked,
+        dead_band=dead,
         failures=tuple(failures),
         notes=tuple(notes),
     )
@@ -439,6 +525,26 @@ def _limit_cycles(real: Realized, layout, notes: list[str]) -> tuple[int, float]
             f"{worst_lsb} LSB ({worst_units:.3g} in that node's units){bound}"
         )
     return worst_lsb, worst_units, drift
+
+
+def _dead_band(real: Realized, layout) -> tuple[float | None, int | None]:
+    """(largest dead band as a fraction of its node's full scale, its section number), over the
+    fixed-point sections without a designed integrator. Rounding to nearest keeps a constant word
+    y when |d·y| ≤ 2^(shift−1), d = 2^shift + Σ a_int (the stored 1 + Σa), so the band is
+    2^(shift−1)/|d| LSB; d = 0 is a stored pole at z = 1 (failed elsewhere). (None, None) when no
+    section applies."""
+    w = real.word
+    worst, where = None, None
+    for i, (s, s0) in enumerate(zip(real.sections, layout.sections)):
+        if len(s.a_int) < 2 or any(p == 1 for p in s0.poles):
+            continue
+        d = abs(sum(int(v) for v in s.a_int))
+        if d == 0:
+            continue
+        frac = min(2.0 ** (s.shift - 1) / d, 2.0 ** (w.bits - 1)) / 2.0 ** (w.bits - 1)
+        if worst is None or frac > worst:
+            worst, where = frac, i + 1
+    return worst, where
 
 
 def _drift(s, s0, w, rng) -> int:

@@ -75,7 +75,7 @@ def seconds(x) -> str:
 
 def _measured(value, unit: str) -> str:
     """A judged figure in the criterion's unit; fractions of a step or peak as percentages."""
-    if unit in ("of step", "of peak", "of range"):
+    if unit in ("of step", "of peak", "of range", "of full scale"):
         return fixed(None if value is None else 100 * value, f"% {unit}")
     return fixed(value, unit)
 
@@ -100,13 +100,13 @@ def failing_criteria(results) -> list[str]:
         if j.limit is None:  # a check without a limit (closed-loop stability): its first words say it
             out.append(f"{j.realization}: {j.label}: {j.note.split(': ')[0]}")
             continue
-        unit = j.unit
-        limit = fixed(100 * j.limit, f"% {unit}") if unit in ("of step", "of peak") else fixed(j.limit, unit)
-        out.append(
-            f"{j.realization}: {j.label} {_measured(j.value, unit)} > limit {limit}"
-            + (f" ({j.note})" if j.note else "")
-        )
+        out.append(f"{figure_against_limit(j)}" + (f" ({j.note})" if j.note else ""))
     return out
+
+
+def figure_against_limit(j) -> str:
+    """ "form: criterion measured > limit limit", in the criterion's unit (fractions as percentages)."""
+    return f"{j.realization}: {j.label} {_measured(j.value, j.unit)} > limit {_measured(j.limit, j.unit)}"
 
 
 def verdict_table(results) -> Table:
@@ -132,7 +132,9 @@ def verdict_table(results) -> Table:
             )
             continue
         limit = (
-            fixed(100 * j.limit, f"% {unit}") if unit in ("of step", "of peak", "of range") else fixed(j.limit, unit)
+            fixed(100 * j.limit, f"% {unit}")
+            if unit in ("of step", "of peak", "of range", "of full scale")
+            else fixed(j.limit, unit)
         )
         rows.append(
             [
@@ -475,7 +477,7 @@ def input_tables(results) -> list[Table]:
         limit = crit.get(key)
         if limit is None:
             crows.append([label, "not set (not checked)"])
-        elif unit in ("of step", "of peak"):
+        elif unit in ("of step", "of peak", "of full scale"):
             crows.append([label, f"≤ {fixed(100 * limit, '%')} {unit}"])
         else:
             crows.append([label, f"≤ {fixed(limit, unit)}"])
@@ -507,7 +509,9 @@ _NOTES = {
     "Sample-rate advice": (
         "The checked rate is the lowest scanned rate from which every higher rate keeps the method, hold and "
         "computation delay within the gain and phase error limits over the band and the phase lag added at "
-        "crossover within the phase-margin limit; the rule of thumb uses the lag estimate below."
+        "crossover within the phase-margin limit; the rule of thumb uses the lag estimate below. The scan uses "
+        "float64 coefficients: a word format's own checks (stored poles, response, overflow, dead band, stall) "
+        "are judged only at the case's rates, in the verdict."
     ),
 }
 
