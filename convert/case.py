@@ -698,6 +698,13 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
         langs = tuple(
             dict.fromkeys(ctx.text({"v": v}, "v", f"{key}.code_languages", choices=("c", "st")) for v in raw_langs)
         )
+        from convert.digital.codegen import _check_name
+
+        for lang in langs:
+            try:
+                _check_name(code_name, lang)
+            except InputError as exc:
+                raise ctx.error(f"{key}.code_name", exc.message) from None
         if "st" in langs and word in ("q15", "q31"):
             raise ctx.error(f"{key}.code_languages", f"Structured Text is written in float64 or float32, not {word}")
         if word in ("q15", "q31"):

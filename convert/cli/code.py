@@ -173,7 +173,15 @@ def _controller(args):
             args.output_limits = [repr(float(clamp[0])), repr(float(clamp[1]))]
             args.limits_from_card = True
         return analysis.controller, f"card {args.card}: {analysis.controller.expression(8)}"
-    controller, _ = controller_from_args(args)
+    try:
+        controller, _ = controller_from_args(args)
+    except InputError as exc:
+        if exc.message.startswith("an expression in z"):
+            raise InputError(
+                "code takes an analog controller (in s) and samples it at --fs; this expression is in z",
+                key="EXPR",
+            ) from None
+        raise
     src = " ".join(args.pid) if args.pid else args.expression
     return controller, src
 
@@ -249,6 +257,12 @@ def run(args, console) -> int:
             output_level=max(map(abs, lim)) if lim else None,
             input_resolution=resolution,
         )
+        if pick is not None and pick.stall_unchecked and lim is None:
+            raise InputError(
+                f"{args.fmt} holds the integral at the output's level: give --output-limits LOW HIGH "
+                "(the integrator-stall check needs that level)",
+                key="--output-limits",
+            )
         files = {}
         if pick is not None and pick.ok:
             files = emit(pick.realized, args.name, lang, source=source, method=args.method, limits=lim)

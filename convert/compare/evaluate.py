@@ -292,6 +292,7 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
     verdict = judge(crit.as_dict(), figures, has_plant=plant is not None, loops=loops)
     if evidence is not None:
         verdict = extend_verdict(verdict, evidence.judgements)
+    _withhold_failing_code(realizations, verdict)
     tick("verdict")
     circuit_draws = None
     if case.circuit:
@@ -737,6 +738,18 @@ def _firmware(case, real, band):
             where=case.where("target.digital"),
             key=f"target.digital.{exc.key}" if exc.key else "target.digital",
         ) from None
+
+
+def _withhold_failing_code(realizations, verdict) -> None:
+    """Code that must not run is not handed out: a realization that fails any check of the
+    verdict (its own or a criterion) keeps no ``code/`` files, and says so."""
+    failing = {j.realization for j in verdict.failures}
+    for r in realizations:
+        code = [k for k in r.files if k.startswith("code/")]
+        if r.name in failing and code:
+            for k in code:
+                del r.files[k]
+            r.warnings.append("code not written: this realization fails the verdict (see the failures)")
 
 
 def _code_files(case, firmware, name: str, method: str) -> dict:

@@ -272,13 +272,47 @@ def _c_set_output(real: Realized, name: str) -> list[str]:
     return out
 
 
-def _check_name(name: str) -> None:
+#: C99 keywords (ISO/IEC 9899:1999, 6.4.1) and the standard type names the files use
+C_RESERVED = frozenset(
+    "auto break case char const continue default do double else enum extern float for goto if inline int "
+    "long register restrict return short signed sizeof static struct switch typedef union unsigned void "
+    "volatile while _Bool _Complex _Imaginary int16_t int32_t int64_t uint16_t uint32_t uint64_t".split()
+)
+#: IEC 61131-3 keywords and elementary type names a function block name may not take (compared
+#: without regard to case; from memory of the standard's keyword table, the common subset)
+ST_RESERVED = frozenset(
+    "ACTION END_ACTION ARRAY OF AT BY CASE END_CASE CONFIGURATION END_CONFIGURATION CONSTANT DO ELSE ELSIF "
+    "EN ENO EXIT FALSE TRUE FOR END_FOR FROM FUNCTION END_FUNCTION FUNCTION_BLOCK END_FUNCTION_BLOCK IF THEN "
+    "END_IF INITIAL_STEP END_STEP NOT MOD AND OR XOR PROGRAM END_PROGRAM REPEAT UNTIL END_REPEAT RESOURCE "
+    "END_RESOURCE RETAIN NON_RETAIN RETURN STEP STRUCT END_STRUCT TASK TO TRANSITION END_TRANSITION TYPE "
+    "END_TYPE VAR END_VAR VAR_INPUT VAR_OUTPUT VAR_IN_OUT VAR_TEMP VAR_EXTERNAL VAR_GLOBAL VAR_ACCESS "
+    "VAR_CONFIG WHILE END_WHILE WITH R_EDGE F_EDGE READ_ONLY READ_WRITE BOOL SINT INT DINT LINT USINT UINT "
+    "UDINT ULINT REAL LREAL TIME DATE TIME_OF_DAY TOD DATE_AND_TIME DT STRING WSTRING BYTE WORD DWORD LWORD "
+    "CHAR WCHAR LTIME ANY".split()
+)
+
+
+def _check_name(name: str, lang: str = "c") -> None:
+    """A name usable as the C identifier (files, type and functions) or the ST function block:
+    letters, digits and single underscores (IEC 61131-3 allows no double or trailing underscore),
+    at most 31 characters, not a keyword or type name of the language."""
     import re
 
     if not re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]{0,30}", name or ""):
         raise InputError(
             f"expected a C/ST identifier (letter or _, then letters, digits, _; at most 31), found {name!r}", key="name"
         )
+    if lang == "c" and name in C_RESERVED:
+        raise InputError(f"{name!r} is a C keyword or standard type name; choose another name", key="name")
+    if lang == "st":
+        if name.upper() in ST_RESERVED:
+            raise InputError(
+                f"{name!r} is an IEC 61131-3 keyword or type name (in any case); choose another name", key="name"
+            )
+        if "__" in name or name.endswith("_"):
+            raise InputError(
+                f"an IEC 61131-3 identifier has no double or trailing underscore, found {name!r}", key="name"
+            )
 
 
 def emit(real: Realized, name: str, lang: str, **info) -> dict[str, str]:
@@ -304,7 +338,7 @@ def _st_real(v: float, single: bool) -> str:
 
 def emit_st(real: Realized, name: str, *, source: str = "", method: str = "", limits=None) -> dict[str, str]:
     """``{"NAME.st": text}``: an IEC 61131-3 function block (float64 as LREAL, float32 as REAL)."""
-    _check_name(name)
+    _check_name(name, "st")
     w = real.word
     if w.is_fixed:
         raise InputError(
