@@ -174,3 +174,58 @@ def test_fixed_point_integrator_without_output_limits_is_refused(run_cli, tmp_pa
         str(tmp_path / "o"),
     )
     assert out.code == 2 and "--output-limits" in out.err
+
+
+def test_given_float32_coefficients_get_the_stall_check(tmp_path):
+    """A float32 PI given as coefficients (kc = 4, ti = 600 s by Tustin at 100 Hz, output 0..100)
+    is checked like a made target: its integral stops moving below spacing(100)/2 / (kc·T/ti)
+    = 0.0572 (numpy.float32, IEEE 754 round to nearest), far above its default resolution, so the
+    verdict fails on the stall instead of passing."""
+    b0, b1 = 4 * (1 + 0.01 / 1200), -4 * (1 - 0.01 / 1200)
+    (tmp_path / "g.toml").write_text(
+        '[case]\ntitle = "g"\n[source.pid]\nkc = 4\nti = "600 s"\n'
+        f'[target.given.plc]\nform = "digital"\nb = [{b0!r}, {b1!r}]\na = [1.0, -1.0]\nfs = "100 Hz"\n'
+        'word_format = "float32"\noutput_limits = [0, 100]\n'
+        '[criteria]\nband = ["10 uHz", "10 mHz"]\nmax_gain_error_db = 0.5\nmax_phase_error_deg = 5\n'
+    )
+    res = evaluate_case(load_case(tmp_path / "g.toml"))
+    (st,) = _judged(res, "firmware_stall").values()
+    want = float(np.spacing(np.float32(100.0))) / 2 / (4 * 0.01 / 600)
+    assert st.status == "fail" and st.value == pytest.approx(want, rel=0.1)
+    assert res.verdict.overall == "fail"
+
+
+def test_long_dead_time_loop_simulation_matches_a_plain_step_loop():
+    """A 10 Hz PI with a 40 s dead time (400 held outputs: the loop is advanced step by step
+    through its sparse matrix, not by dense powers). Reference written here: the plant
+    0.8/(90s + 1) discretized by scipy.signal.cont2discrete (ZOH, exact for held inputs), the
+    controller's difference equation and a plain Python list as the delay line. Unity setpoint
+    step, 600 s; the outputs agree at every sample to 1e-9."""
+    from scipy.signal import cont2discrete
+
+    from convert.compare.loop import simulate_loop
+    from convert.controller import Controller
+
+    t, theta = 0.1, 40.0
+    c = discretize(Controller.analog([0.6 * 60, 0.6], [60, 0]), 1 / t, "tustin").controller
+    plant = Controller.analog([0.8], [90, 1])
+    got = simulate_loop(c, plant, theta, duration_s=600.0, sub_step_s=t)
+    from convert.compare.loop import _DENSE_ORBIT_MAX, sampled_loop_matrix
+
+    assert sampled_loop_matrix(c, plant, theta).shape[0] > _DENSE_ORBIT_MAX  # the step-by-step path
+    ss = (np.array([[-1 / 90]]), np.array([[1.0]]), np.array([[0.8 / 90]]), np.array([[0.0]]))
+    ad, bd, cd, _, _ = cont2discrete(ss, t, method="zoh")
+    ad, bd, cd = float(np.squeeze(ad)), float(np.squeeze(bd)), float(np.squeeze(cd))
+    b, a = np.asarray(c.b, float), np.asarray(c.a, float)
+    m = int(round(theta / t))
+    x, line, e1, u1 = 0.0, [0.0] * m, 0.0, 0.0
+    ys = []
+    for _ in range(len(got.t)):
+        y = cd * x
+        ys.append(y)
+        e = 1.0 - y
+        u = (b[0] * e + b[1] * e1 - a[1] * u1) / a[0]
+        e1, u1 = e, u
+        line.append(u)
+        x = ad * x + bd * line.pop(0)
+    assert np.max(np.abs(np.array(ys) - got.y)) < 1e-9

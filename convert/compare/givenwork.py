@@ -214,11 +214,39 @@ def _firmware(case, given, info, src, band, duration, src_step, src_dist):
         warnings,
         lambda f, c=cq, dl=delay: response_seen_from_loop(c, f, delay_s=dl, via="zpk"),
     )
+    fw = _stored_checks(case, given, cd, band)
+    if fw is not None:
+        r.details["firmware"] = fw
     if case.plant is not None:
         _loop_checks(
             case, r, cq, duration, delay, d["output_limits"] or case.signals.output_range, getattr(info, "pid", None)
         )
     return r
+
+
+def _stored_checks(case, given, cd: Controller, band) -> dict | None:
+    """The word-format checks of given coefficients (stored poles, response, integrator stall,
+    dead band) as a made target gets them (:func:`convert.digital.quantized.analyze`), in direct
+    form I: the coefficients as given, one polynomial. None for float64 (the reference) and for a
+    PID block (its own arithmetic is not this polynomial)."""
+    d = given.data
+    if given.form != "digital" or d.get("word_format", "float64") == "float64" or d.get("sos"):
+        return None
+    from convert.digital.quantized import analyze
+    from convert.digital.roots import RootForm
+
+    limits = d.get("output_limits") or case.signals.output_range
+    x = analyze(
+        RootForm.of(cd),
+        "direct1",
+        d["word_format"],
+        band,
+        b=cd.b,
+        a=cd.a,
+        output_level=max(abs(limits[0]), abs(limits[1])) if limits else None,
+        response_limits=(case.criteria.max_gain_error_db, case.criteria.max_phase_error_deg),
+    )
+    return {**x.summary(), "checks": x.checks()}
 
 
 def _analog(case, given, info, src, band, duration):

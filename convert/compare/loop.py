@@ -504,6 +504,29 @@ class _Orbit:
         return (starts @ p.reshape(self.K * dim, dim).T).reshape(c * self.K, dim)[:count]
 
 
+class _StepOrbit:
+    """:class:`_Orbit` for a loop with many states (a long dead time held as a delay line of
+    past outputs): the states advance one step at a time through the sparse matrix (each step
+    costs its few nonzeros, where the powers of the dense matrix would cost dim² each and 64·dim²
+    of memory per level)."""
+
+    def __init__(self, a: np.ndarray):
+        from scipy.sparse import csr_matrix
+
+        self.a = csr_matrix(a)
+
+    def orbit(self, z: np.ndarray, count: int) -> np.ndarray:
+        out = np.empty((count, z.size))
+        out[0] = z
+        for j in range(1, count):
+            out[j] = self.a @ out[j - 1]
+        return out
+
+
+#: above this many states a loop is advanced step by step through its sparse matrix
+_DENSE_ORBIT_MAX = 300
+
+
 class _LoopSystem:
     """A loop written as z_{k+1} = A(key, mode)·z_k, with y_k, u_k and the controller's
     unclamped output v_k read as rows of z_k. ``key`` names the stretch of steps (set by known
@@ -538,7 +561,8 @@ def _run(system: _LoopSystem, steps: int, limits: tuple[float, float], extra=Non
     def get(key, mode):
         if (key, mode) not in cache:
             a, y_row, u_row, v_row = system.build(key, mode)
-            cache[(key, mode)] = (_Orbit(a), y_row, u_row, v_row)
+            orbit = _Orbit(a) if a.shape[0] <= _DENSE_ORBIT_MAX else _StepOrbit(a)
+            cache[(key, mode)] = (orbit, y_row, u_row, v_row)
         return cache[(key, mode)]
 
     def classify(v, current):
@@ -555,6 +579,8 @@ def _run(system: _LoopSystem, steps: int, limits: tuple[float, float], extra=Non
     extras: list = []
     k = 0
     window = 256
+    # a window's states are held at once: keep them near 32 MB for a loop with many states
+    top = 1 << 16 if system.dim <= _DENSE_ORBIT_MAX else max(64, (1 << 22) // system.dim)
     bounds = sorted(b for b in system.boundaries if b > 0)
     mode = "lin"
     while k <= steps:
@@ -571,7 +597,7 @@ def _run(system: _LoopSystem, steps: int, limits: tuple[float, float], extra=Non
             count = max(1, int(changed[0]))  # at least one step: a mode chosen at k holds for step k
             window = max(64, 2 * count)
         else:
-            window = min(2 * window, 1 << 16)
+            window = min(2 * window, top)
         y[k : k + count] = zs[:count] @ y_row
         u[k : k + count] = zs[:count] @ u_row
         if extra is not None:
