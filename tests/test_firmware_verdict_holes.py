@@ -229,3 +229,9 @@ def test_long_dead_time_loop_simulation_matches_a_plain_step_loop():
         line.append(u)
         x = ad * x + bd * line.pop(0)
     assert np.max(np.abs(np.array(ys) - got.y)) < 1e-9
+
+
+def test_digital_fixed_point_without_input_range_names_the_option(run_cli):
+    """The reviewer's finding 24: the option is named as the user types it, exit 2."""
+    out = run_cli("digital", "2*(1+1/(3s))", "--fs", "100Hz", "--word-format", "q15")
+    assert out.code == 2 and "--input-range" in out.err and "input_range = [" not in out.err

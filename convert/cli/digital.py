@@ -296,6 +296,13 @@ def _firmware(args, survey) -> dict:
     args.structure, args.word_format = structure, word.name
     rng = range_pair(args.input_range, "--input-range")
     lim = range_pair(args.output_limits, "--output-limits")
+    if word.is_fixed and rng is None:
+        from convert.errors import InputError
+
+        raise InputError(
+            f"{word.name} needs --input-range LOW HIGH (the error's range, in controller input units, scales the words)",
+            key="--input-range",
+        )
     band = comparison_grid(survey.band_hz, survey.rows[0].realization.fs_hz, points_per_decade=20)
     out = {}
     with at(
