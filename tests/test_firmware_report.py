@@ -107,7 +107,15 @@ def test_code_files_go_into_the_report_only_when_the_checks_pass(tmp_path):
     checks, and none for one that fails (code that must not run is not handed out)."""
     from convert.report import build_report
 
-    good = evaluate_case(_case(tmp_path, "float32", "delta", 'code_name = "card5"\ncode_languages = ["c", "st"]'))
+    # code is handed out only for a realization that passes the whole verdict: the criteria are
+    # widened past Tustin's own error near fs/2 (3.9 dB, 41 deg) so that only the word format decides
+    text = (
+        FIFTH_ORDER.format(fmt="float32", structure="delta", extra='code_name = "card5"\ncode_languages = ["c", "st"]')
+        .replace("max_gain_error_db = 1\n", "max_gain_error_db = 6\n")
+        .replace("max_phase_error_deg = 10", "max_phase_error_deg = 60")
+    )
+    good = evaluate_case(parse_case(text, tmp_path / "c.toml"))
+    assert good.verdict.overall == "pass"
     files = build_report(good)
     names = [n for n in files if n.startswith("code/")]
     assert sorted(n.rsplit("/", 1)[1] for n in names) == ["card5.c", "card5.h", "card5.st"]
