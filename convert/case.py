@@ -27,6 +27,7 @@ from convert.limits import MAX_DEGREE, MAX_RATE_METHOD_PAIRS, MAX_RATES, excerpt
 
 SOURCE_FORMS = ("expression", "pid", "digital", "card", "netlist")
 WORD_FORMATS = ("float64", "float32", "q15", "q31")
+MAX_OPAMPS = 1000  # the largest op-amp cap a case file may give (far above any cascade loopshift plans)
 STRUCTURE_NAMES = ("direct1", "direct2t", "sections", "delta", "direct")
 
 # Each table's allowed keys. A value of dict means a sub-table with its own keys;
@@ -67,6 +68,7 @@ SCHEMA: dict[str, Any] = {
             "seed": 1,
             "distribution": 1,
             "opamp_gbw": 1,
+            "max_opamps": 1,
         },
         "given": None,  # forms that exist, one table per name: checked by convert.given
     },
@@ -147,6 +149,7 @@ class CircuitTarget:
     seed: int = 1
     distribution: str = "uniform"  # convert.circuit.tolerance.DEFAULT_DISTRIBUTION
     opamp_gbw_hz: float | None = None
+    max_opamps: int | None = None  # cap on op-amps, as loopshift circuit --max-opamps (None = no cap)
     where: str = ""
 
 
@@ -763,6 +766,16 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
                 raise ctx.error(f"{key}.{name}", f"expected a whole number, found {excerpt(cir[name])}")
         if draws_problem(int(draws)):
             raise ctx.error(f"{key}.draws", draws_problem(int(draws)))
+        max_opamps = None
+        if "max_opamps" in cir:
+            raw = cir["max_opamps"]
+            number = None if isinstance(raw, bool) else ctx.value(cir, "max_opamps", f"{key}.max_opamps", "number")
+            if number is None or not 1 <= number <= MAX_OPAMPS or number != int(number):
+                raise ctx.error(
+                    f"{key}.max_opamps",
+                    f"expected a whole number of op-amps from 1 to {MAX_OPAMPS}, found {excerpt(raw)}",
+                )
+            max_opamps = int(number)
         if draws > MAX_DRAWS:
             raise ctx.error(
                 f"{key}.draws",
@@ -784,6 +797,7 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
                 cir, "distribution", f"{key}.distribution", default=DEFAULT_DISTRIBUTION, choices=DISTRIBUTIONS
             ),
             opamp_gbw_hz=ctx.value(cir, "opamp_gbw", f"{key}.opamp_gbw", "hz", None, positive=True, allow_zero=False),
+            max_opamps=max_opamps,
             where=ctx.where(key),
         )
     if digital is None and circuit is None and not table.get("given"):

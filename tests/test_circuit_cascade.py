@@ -182,3 +182,46 @@ def test_sixth_order_error_budget_is_finite():
 
     values = list(numbers(mc))
     assert values and all(np.isfinite(values))
+
+
+CASE_WITH_CAP = """\
+[source]
+expression = "(s^2 + 0.4*s + 400)/(s^2 + 8*s + 400)"
+
+[target.circuit]
+max_opamps = {cap}
+
+[criteria]
+band = ["0.1 Hz", "100 Hz"]
+max_gain_error_db = 1
+"""
+
+
+def test_case_file_max_opamps_key():
+    """[target.circuit] max_opamps has the meaning of --max-opamps: read as a whole number and passed
+    to the design, where a cascade above it is refused naming the key (the line is the key's)."""
+    from convert.case import parse_case
+    from convert.errors import InputError
+
+    assert parse_case(CASE_WITH_CAP.format(cap=4), "c.toml").circuit.max_opamps == 4
+    assert parse_case(CASE_WITH_CAP.format(cap='"3"'), "c.toml").circuit.max_opamps == 3
+    plain = CASE_WITH_CAP.replace("max_opamps = {cap}\n", 'topology = "auto"\n')
+    assert parse_case(plain, "c.toml").circuit.max_opamps is None
+    for bad in ("0", "2.5", "-1", "true", '"many"', '"nan"', "100000"):
+        with pytest.raises(InputError) as info:
+            parse_case(CASE_WITH_CAP.format(cap=bad), "c.toml")
+        assert str(info.value).startswith("c.toml:5: target.circuit.max_opamps:"), (bad, str(info.value))
+        assert "whole number" in str(info.value) or "number" in str(info.value)
+
+
+def test_case_file_max_opamps_caps_the_report(run_cli, tmp_path):
+    """A case whose cascade needs more op-amps than its max_opamps: exit 2 and one line naming the
+    case file, the line and target.circuit.max_opamps (no traceback, no report folder written)."""
+    case = tmp_path / "capped.toml"
+    case.write_text(CASE_WITH_CAP.format(cap=1))
+    res = run_cli("report", str(case), "--out", str(tmp_path / "r"))
+    text = res.out + res.err
+    assert res.code == 2, text
+    assert "target.circuit.max_opamps" in text and "capped.toml:5" in text, text
+    assert "Traceback" not in text
+    assert not (tmp_path / "r").exists()

@@ -48,6 +48,7 @@ def circuit_realization(
         c_min=tgt.capacitor_range[0],
         c_max=tgt.capacitor_range[1],
         band_hz=tuple(case.criteria.band_hz),
+        max_opamps=tgt.max_opamps,
     )
     # a two-input stage is built with the source PID's setpoint weights (it carries them)
     settings = source_pid if source_pid is not None and "two-input" in str(tgt.topology) else None
