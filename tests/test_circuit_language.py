@@ -89,6 +89,8 @@ TARGETS = {  # single-input topologies and a target each realizes (our own numbe
     "pid-single-amp": "2*(1+1/(3*s))*(1+0.5*s)/(0.05*s+1)",
     "pid-parallel": "2 + 1/s + 0.5*s/(0.05*s+1)",
     "tow-thomas": "(s^2+2*s+100)/(s^2+20*s+100)",
+    "mfb-low-pass": "2500/(s^2+20*s+2500)",
+    "mfb-band-pass": "20*s/(s^2+20*s+2500)",
 }
 
 

@@ -54,6 +54,9 @@ PARTS = {
         "R14": 10e3,
     },
     "difference-error": {"R1": 10e3, "R2": 47e3, "R3": 10e3, "R4": 47e3},
+    # multiple-feedback sections (internal node): w0 near 2π·50 Hz, Q near 5 and 2
+    "mfb-low-pass": {"R1": 750e3, "R2": 120e3, "R3": 750e3, "C1": 180e-9, "C2": 680e-12},
+    "mfb-band-pass": {"R1": 30e3, "R2": 2e3, "R3": 30e3, "C1": 6.8e-6, "C2": 6.8e-6},
     # optional R7 left open (not fitted): the positive-s feed-forward R6 is used instead
     "tow-thomas": {
         "C1": 1e-6,

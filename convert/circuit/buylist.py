@@ -304,6 +304,10 @@ def buy_list(
         for src, net in nets:
             for name in network_parts(net):
                 bound[name] = max(bound.get(name, 0.0), node_bound(src))
+    for jn in topo.junctions:  # a passive node between stages: bounded by the rails
+        for other, net in jn.branches:
+            for name in network_parts(net):
+                bound[name] = max(bound.get(name, 0.0), node_bound(other), rail_v)
     # sensitivity to each part (worst over the band, dB per +1 %) from the worst-case analysis
     wc = worst_case(topo, rounded, tol, f)
     sens_db = {k: float(np.max(np.abs(v))) for k, v in wc.sensitivity_db.items()}
@@ -418,12 +422,14 @@ def buy_list(
     opamps = []
     stages = list(topo.stages)
     for st in stages:
+        # noise gain 1 + Zf·ΣYin; an input read from a junction counts as driven from a fixed node
+        # (the junction's own path back from the output only raises the feedback: conservative)
         yf, ys, _ = stage_admittances(st, p, s)
         yt = sum(y for _, y in ys) + yf
         with np.errstate(divide="ignore", invalid="ignore"):
             ng = np.abs(yt / yf)
         gbw = float(np.nanmax(ng * f) / error)
-        r_max = max([fitted[n] for n in _stage_parts(st) if n in fitted and topo.part(n).kind == "R"] or [1e3])
+        r_max = max([fitted[n] for n in _stage_parts(st, topo) if n in fitted and topo.part(n).kind == "R"] or [1e3])
         peak = min(rail_v, amplitude * float(np.max(np.abs(nodes[st.output]))))
         opamps.append(
             OpAmpNeed(
@@ -463,10 +469,14 @@ def buy_list(
     return BuyList(lines, opamps, tightening, assumptions)
 
 
-def _stage_parts(st) -> list[str]:
+def _stage_parts(st, topo) -> list[str]:
+    """Parts around one op-amp: its networks and those of the junctions its inputs read."""
     names = network_parts(st.feedback)
-    for _, net in st.inputs:
+    for src, net in st.inputs:
         names += network_parts(net)
+        for jn in topo.junctions:
+            if jn.name == src:
+                names += [n for _, b in jn.branches for n in network_parts(b)]
     if st.plus is not None:
         names += network_parts(st.plus[1]) + network_parts(st.plus[2])
     return names

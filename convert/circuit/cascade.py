@@ -35,12 +35,16 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from convert.circuit.topologies import AUTO_ORDER, TOPOLOGIES, Topology
-from convert.circuit.topologies.networks import C, R, Parallel, Series, Stage
+from convert.circuit.topologies.networks import GROUND, C, Junction, R, Parallel, Series, Stage
 from convert.controller import Controller
 from convert.errors import UnrealizableError
 
-SECOND_ORDER = ("tow-thomas",)
-"""Second-order stages the cascade may use besides the single-stage catalog (``AUTO_ORDER``)."""
+SECOND_ORDER = ("mfb-low-pass", "mfb-band-pass", "tow-thomas")
+"""Second-order stages the cascade may use besides the single-stage catalog (``AUTO_ORDER``). A
+section takes the one with the fewest op-amps whose design equations realize it: the one-amplifier
+multiple-feedback sections (internal node; pole Q up to their ``MAX_Q``, 10, where their component
+spread 4·Q²·(1 + gain) stays inside one part range) before tow-thomas (three op-amps, any Q); when a
+multiple-feedback stage's parts fall out of range, the part search falls back on tow-thomas."""
 
 GAIN_SHIFTS = (1.0, 2.0, 0.5, 4.0, 0.25, 10.0, 0.1, 30.0, 1 / 30, 100.0, 0.01)
 """Factors a stage's gain may move from the equal-peak plan when its parts fall out of range (the
@@ -421,7 +425,7 @@ def cascade_topology(stages: list[Topology], w_ref: float | None = None) -> tupl
     """
     counters = {"R": 0, "C": 0}
     amp = 0
-    parts, new_stages, maps = [], [], []
+    parts, new_stages, maps, junctions = [], [], [], []
     previous = "in"
     for k, topo in enumerate(stages, start=1):
         if topo.two_input:
@@ -455,6 +459,17 @@ def cascade_topology(stages: list[Topology], w_ref: float | None = None) -> tupl
                     tuple((node(src), _rename_net(net, names)) for src, net in st.inputs),
                     plus,
                     role=f"stage {k} {st.role}",
+                )
+            )
+        for jn in topo.junctions:
+            junctions.append(
+                Junction(
+                    node(jn.name),
+                    tuple(
+                        (GROUND if other == GROUND else node(other), _rename_net(net, names))
+                        for other, net in jn.branches
+                    ),
+                    role=f"stage {k} {jn.role}",
                 )
             )
         previous = nodes[local_out]
@@ -495,6 +510,7 @@ def cascade_topology(stages: list[Topology], w_ref: float | None = None) -> tupl
         + ", ".join(t.name for t in stages),
         parts=tuple(parts),
         stages=tuple(new_stages),
+        junctions=tuple(junctions),
         inverting=inverting,
         represents="the product of its stages' transfer functions",
         equations=tuple(
@@ -531,34 +547,57 @@ def _search_section(stage: Topology, section: Controller, options, f: np.ndarray
     return found
 
 
+def _fallbacks(section: Section) -> list[Topology]:
+    """The section's planned stage, then the other second-order stages that realize it with more
+    op-amps (a multiple-feedback section whose parts fall out of range falls back on tow-thomas)."""
+    out = [section.topology]
+    if section.topology.name in SECOND_ORDER:
+        for name in SECOND_ORDER:
+            topo = TOPOLOGIES[name]
+            if topo is section.topology or topo.amplifiers <= section.topology.amplifiers:
+                continue
+            if topo.sign == section.topology.sign and _fits(section.controller, (name,)) is not None:
+                out.append(topo)
+    return out
+
+
 def _build(plan: CascadePlan, options, f: np.ndarray, strict: bool):
-    """Parts for every stage of ``plan`` -> (topology, rounded, nominal, design quantities, gain moves).
+    """Parts for every stage of ``plan`` -> (topology, rounded, nominal, design quantities, gain moves,
+    stages used).
 
     A stage whose parts fall out of range may move its gain by a factor of :data:`GAIN_SHIFTS` (the
     last stage takes the inverse product); when ``strict``, only as far as the stage's output still
-    peaks no higher than max(input, output)."""
+    peaks no higher than max(input, output). When no gain keeps the planned stage's parts in range,
+    a second-order section tries its :func:`_fallbacks` (within ``options.max_opamps``)."""
     w_ref = 2 * math.pi * math.sqrt(plan.band_hz[0] * plan.band_hz[1])
-    topo, maps = cascade_topology([s.topology for s in plan.sections], w_ref)
-    rounded, nominal, params = {}, {}, {}
     limit = max(plan.sections[-1].peak_gain, 1.0)
     moved = 1.0  # product of the gain factors applied so far against the plan's equal-peak gains
     shifted = []
-    for k, (section, names) in enumerate(zip(plan.sections, maps), start=1):
+    chosen: list[tuple[Topology, dict, list, dict]] = []
+    extra = 0  # op-amps added by fallbacks
+    for k, section in enumerate(plan.sections, start=1):
         last_stage = k == len(plan.sections)
         factors = [1.0 / moved] if last_stage else [x / moved for x in GAIN_SHIFTS]
         found, last = None, None
-        for x in factors:
-            if strict and not last_stage and section.peak_gain * moved * x > limit * (1 + 1e-9):
-                continue  # this stage's output would peak above max(input, output)
-            try:
-                found = _search_section(section.topology, section.controller.scaled(x), options, f)
-            except UnrealizableError as exc:
-                last = last or exc
+        for stage in _fallbacks(section):
+            added = stage.amplifiers - section.topology.amplifiers
+            if added and options.max_opamps is not None and plan.total_amplifiers + extra + added > options.max_opamps:
                 continue
-            moved *= x
-            if not math.isclose(x, 1.0):
-                shifted.append((k, x))
-            break
+            for x in factors:
+                if strict and not last_stage and section.peak_gain * moved * x > limit * (1 + 1e-9):
+                    continue  # this stage's output would peak above max(input, output)
+                try:
+                    found = (stage, *_search_section(stage, section.controller.scaled(x), options, f))
+                except UnrealizableError as exc:
+                    last = last or exc
+                    continue
+                moved *= x
+                extra += added
+                if not math.isclose(x, 1.0):
+                    shifted.append((k, x))
+                break
+            if found is not None:
+                break
         if found is None:
             if last is None:
                 raise UnrealizableError(
@@ -571,12 +610,15 @@ def _build(plan: CascadePlan, options, f: np.ndarray, strict: bool):
                 key=last.key,
                 settings=last.settings,
             )
-        q, cands, diag = found
+        chosen.append(found)
+    topo, maps = cascade_topology([c[0] for c in chosen], w_ref)
+    rounded, nominal, params = {}, {}, {}
+    for k, ((_, q, cands, diag), names) in enumerate(zip(chosen, maps), start=1):
         for local, glob in names.items():
             rounded[glob] = cands[0].parts[local]
             nominal[glob] = diag["nominal"][local]
         params.update({f"stage{k}.{key}": v for key, v in q.items()})
-    return topo, rounded, nominal, params, shifted
+    return topo, rounded, nominal, params, shifted, [c[0] for c in chosen]
 
 
 def design_cascade(
@@ -618,7 +660,10 @@ def design_cascade(
             break
     if built is None:
         raise first_error
-    plan, topo, rounded, nominal, params, shifted, strict = built
+    plan, topo, rounded, nominal, params, shifted, used, strict = built
+    fell_back = [(k, s.topology.name, t.name) for k, (t, s) in enumerate(zip(used, plan.sections), 1) if t is not s.topology]
+    if fell_back:
+        plan = replace(plan, sections=tuple(replace(s, topology=t) for t, s in zip(used, plan.sections)))
     sign = plan.sign
     ref = target.frequency_response(f) * sign
     sc, gdb, pdeg = score_parts(topo, {k: np.asarray([v]) for k, v in rounded.items()}, f, ref)
@@ -648,6 +693,8 @@ def design_cascade(
             f"({plan.sections[-1].peak_gain:.4g} V/V); noise gain (sum of peak gains from each stage "
             f"output to the output) {plan.noise_gain:.4g}"
         )
+    for k, was, now in fell_back:
+        notes.append(f"stage {k}: {was} had no parts in range at any gain; {now} realizes the section")
     for k, x in shifted:
         notes.append(f"stage {k}'s gain moved by a factor {x:.4g} from the equal-peak plan to keep its parts in range")
     if not strict:

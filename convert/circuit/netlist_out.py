@@ -22,7 +22,7 @@ import math
 from collections.abc import Mapping
 
 from convert.circuit.opamp import HIGH_GAIN, OpAmpModel
-from convert.circuit.topologies import C, Parallel, R, Series, Topology, is_open
+from convert.circuit.topologies import GROUND, C, Parallel, R, Series, Topology, is_open
 from convert.values import format_spice_number
 
 INVERTER_PARTS = {"RINV1": 10e3, "RINV2": 10e3}
@@ -137,6 +137,12 @@ def netlist_text(
         body.append(f"* {st.amp}: {st.role}")
         body += w.lines
         body.append(f"X{st.amp} {plus} {inv} {n(st.output)} LSOPAMP")
+    for jn in topology.junctions:
+        w.lines = []
+        for other, net in jn.branches:
+            w.emit(net, n(jn.name), "0" if other == GROUND else n(other), f"{jn.name}_b")
+        body.append(f"* node {jn.name}: {jn.role}")
+        body += w.lines
     if add_inverter:
         body += [
             "* UINV: unity inverter giving the target's sign",

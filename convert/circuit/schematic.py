@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
-from convert.circuit.topologies import C, R, Series, Topology, is_open
+from convert.circuit.topologies import GROUND, C, R, Series, Topology, is_open
 from convert.values import format_value
 
 UNIT = 2.0  # width of one element
@@ -67,6 +67,29 @@ def _draw_net(d, elm, net, start, parts, width=None):
         d.add(elm.Line().at((x, y)).to((x, y - offset + _height(branches[-1]))))
         d.add(elm.Line().at((x + total, y)).to((x + total, y - offset + _height(branches[-1]))))
     return (x + total, y)
+
+
+def _draw_junction(d, elm, jn, parts, y0: float, shown: Mapping[str, str]) -> float:
+    """A passive node (e.g. a multiple-feedback section's middle node) on its own row: each branch
+    from its other node's label (or ground) rightwards into the node's label. Returns the next row."""
+    branches = [(other, net) for other, net in jn.branches if not is_open(net, parts)]
+    width = max([_width(net) for _, net in branches] + [UNIT]) + 1.0
+    x_node = 1.0 + width + 0.5
+    yy = y0
+    for other, net in branches:
+        if other == GROUND:
+            d.add(elm.Ground().at((1.0, yy)))
+        else:
+            d.add(elm.Dot(open=True).at((0.5, yy)).label(shown.get(other, other), loc="left"))
+            d.add(elm.Line().at((0.5, yy)).to((1.0, yy)))
+        end = _draw_net(d, elm, net, (1.0, yy), parts, width=width)
+        d.add(elm.Line().at(end).to((x_node, yy)))
+        if yy != y0:
+            d.add(elm.Line().at((x_node, yy)).to((x_node, yy + _height(net) + 0.4)))
+        yy -= _height(net) + 0.4
+    d.add(elm.Dot(open=True).at((x_node + 0.5, y0)).label(jn.name, loc="right"))
+    d.add(elm.Line().at((x_node, y0)).to((x_node + 0.5, y0)))
+    return min(yy, y0 - 3.0) - 1.5
 
 
 def draw_schematic(
@@ -134,6 +157,9 @@ def draw_schematic(
                 )
                 d.add(elm.Ground())
             y0 = min(yy, y0 - 3.0) - 3.0
+        shown = {stages[-1].output: "stage_out"} if add_inverter else {}
+        for jn in topology.junctions:
+            y0 = _draw_junction(d, elm, jn, checked, y0, shown)
         if add_inverter:
             op = d.add(elm.Opamp(leads=True).anchor("in1").at((6.0, y0)).label("UINV", loc="center", fontsize=8))
             d.add(elm.Dot(open=True).at((0.5, y0)).label("stage_out", loc="left"))

@@ -22,6 +22,8 @@ from convert.circuit.topologies import (
     integrator_rc,
     inverting_gain,
     lead_lag_rc,
+    mfb_band_pass,
+    mfb_low_pass,
     pd_limited,
     pi_rc_feedback,
     pid_parallel,
@@ -38,7 +40,19 @@ from convert.circuit.topologies.model import (
     output_node,
     polyval_many,
 )
-from convert.circuit.topologies.networks import C, R, Parallel, Part, Series, Stage, impedance, is_open, network_parts
+from convert.circuit.topologies.networks import (
+    GROUND,
+    C,
+    Junction,
+    R,
+    Parallel,
+    Part,
+    Series,
+    Stage,
+    impedance,
+    is_open,
+    network_parts,
+)
 from convert.circuit.topologies.shared import RSUM, pid_parameters_from_coefficients
 from convert.errors import InputError
 
@@ -50,6 +64,8 @@ CATALOG_ORDER = (
     pi_rc_feedback,
     pd_limited,
     lead_lag_rc,
+    mfb_low_pass,
+    mfb_band_pass,
     pid_single_amp,
     pid_parallel,
     tow_thomas,
@@ -84,6 +100,8 @@ __all__ = [
     "AUTO_ORDER",
     "C",
     "CATALOG_ORDER",
+    "GROUND",
+    "Junction",
     "Parallel",
     "Part",
     "R",

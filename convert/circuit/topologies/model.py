@@ -3,8 +3,9 @@
 A topology is a :class:`Topology` instance holding
 
 * its **parts** (name, resistor or capacitor, role) — resistor values in ohms, capacitors in farads;
-* its **circuit** as a list of op-amp :class:`Stage` s (used by the netlist writer, the schematic,
-  the op-amp model and the output-swing check);
+* its **circuit** as a list of op-amp :class:`Stage` s and of the passive nodes between them
+  (:class:`Junction` s, e.g. the middle node of a multiple-feedback section), used by the netlist
+  writer, the schematic, the op-amp model and the output-swing check;
 * its **transfer function in terms of the parts**, written out by hand as polynomial coefficients
   in s (descending powers), vectorized: every part may be a numpy array of shape ``(draws,)`` and
   the response comes back with shape ``(draws, freqs)``;
@@ -36,7 +37,7 @@ from collections.abc import Callable, Mapping
 
 import numpy as np
 
-from convert.circuit.topologies.networks import Part, Stage, impedance, open_value
+from convert.circuit.topologies.networks import GROUND, Junction, Part, Stage, impedance, open_value
 from convert.controller import Controller
 from convert.errors import InputError, UnrealizableError
 
@@ -148,6 +149,7 @@ class Topology:
     equal_parts: tuple[tuple[str, str], ...] = ()  # (copy, original): same value by design
     tunable: Mapping[str, tuple[str, int]] = field(default_factory=dict)  # param -> (part, exponent)
     equations: tuple[str, ...] = ()
+    junctions: tuple[Junction, ...] = ()  # passive nodes inside stages (see networks.Junction)
     _coefficients: Callable | None = None
     _setpoint_coefficients: Callable | None = None
     _parameters: Callable | None = None
@@ -309,8 +311,9 @@ def node_responses(
     drive: Mapping[str, complex] | None = None,
     open_loop_gain: np.ndarray | None = None,
 ) -> dict[str, np.ndarray]:
-    """Voltages at every stage output, solving the circuit stage by stage (stages that feed each
-    other, such as a biquad's integrator loop, are solved together as one small linear system).
+    """Voltages at every stage output and junction, solving the circuit stage by stage (stages that
+    feed each other, such as a biquad's integrator loop, and a junction with the stages around it
+    are solved together as one small linear system).
 
     ``drive`` maps input nodes to their (complex) amplitude (default: 1 on ``in``, or
     sp = 0, meas = −1 for two-input stages, i.e. a unit error). ``open_loop_gain`` is A(jω) over
@@ -325,35 +328,151 @@ def node_responses(
     p = {
         k: np.asarray(v, dtype=float)[..., None] if np.ndim(v) else np.asarray(v, dtype=float) for k, v in parts.items()
     }
-    stages = list(topology.stages)
+    items = _solve_order(topology)
     i = 0
-    while i < len(stages):
-        j = _loop_block_end(stages, i, nodes)
-        if j == i:
-            nodes[stages[i].output] = _stage_alone(stages[i], nodes, p, s, open_loop_gain)
+    while i < len(items):
+        j = _loop_block_end(items, i, nodes)
+        block = items[i : j + 1]
+        if any(isinstance(x, Junction) for x in block):
+            nodes.update(_mixed_block(block, nodes, p, s, open_loop_gain))
+        elif j == i:
+            nodes[items[i].output] = _stage_alone(items[i], nodes, p, s, open_loop_gain)
         else:
-            nodes.update(_stage_block(stages[i : j + 1], nodes, p, s, open_loop_gain))
+            nodes.update(_stage_block(block, nodes, p, s, open_loop_gain))
         i = j + 1
     return nodes
 
 
-def _loop_block_end(stages: list, i: int, known: Mapping) -> int:
-    """Index of the last stage of the smallest run stages[i..j] that reads no node outside what is
-    known and what the run itself drives (j = i: stage i reads only known nodes)."""
-    needed = {src for src, _ in stages[i].inputs} | ({stages[i].plus[0]} if stages[i].plus else set())
+def _reads(st: Stage) -> set[str]:
+    return {src for src, _ in st.inputs} | ({st.plus[0]} if st.plus else set())
+
+
+def _drives(x) -> str:
+    return x.name if isinstance(x, Junction) else x.output
+
+
+def _needs(x) -> set[str]:
+    if isinstance(x, Junction):
+        return {node for node, _ in x.branches if node != GROUND}
+    return _reads(x)
+
+
+def _solve_order(topology: Topology) -> list:
+    """Stages in their order, each junction placed just before the first stage that reads it."""
+    out: list = []
+    placed: set[str] = set()
+    for st in topology.stages:
+        for jn in topology.junctions:
+            if jn.name in _reads(st) and jn.name not in placed:
+                out.append(jn)
+                placed.add(jn.name)
+        out.append(st)
+    out += [jn for jn in topology.junctions if jn.name not in placed]
+    return out
+
+
+def _loop_block_end(items: list, i: int, known: Mapping) -> int:
+    """Index of the last item of the smallest run items[i..j] that reads no node outside what is
+    known and what the run itself drives (j = i: item i reads only known nodes). A junction's run
+    also holds every stage that reads it (their inputs load the junction)."""
+    needed = set(_needs(items[i]))
     j = i
     while True:
-        driven = {st.output for st in stages[i : j + 1]}
-        missing = needed - set(known) - driven
+        run = items[i : j + 1]
+        driven = {_drives(x) for x in run}
+        junctions = {x.name for x in run if isinstance(x, Junction)}
+        readers = {_drives(x) for x in items if isinstance(x, Stage) and _reads(x) & junctions}
+        missing = (needed - set(known) - driven) | (readers - driven)
         if not missing:
             return j
         j += 1
-        if j >= len(stages):
+        if j >= len(items):
             raise InputError(
                 f"the circuit reads node(s) {', '.join(sorted(missing))} that no stage drives", key="topology"
             )
-        st = stages[j]
-        needed |= {src for src, _ in st.inputs} | ({st.plus[0]} if st.plus else set())
+        needed |= _needs(items[j])
+
+
+def _mixed_block(block, nodes, p, s, open_loop_gain):
+    """Stages and junctions solved together by nodal analysis (unknowns: each stage's output and
+    inverting-input voltage, each junction's voltage).
+
+    Rows: the current balance at each inverting input, Σ Yk (Vk − V−) + Yf (Vout − V−) = 0; each
+    op-amp, V− + Vout/A − d·Vsrc = 0 (d the + input divider ratio, 1/A = 0 when ideal); each
+    junction, Σ Yb (Vj − Vb) + Σ Yk (Vj − V−k) + Vj/(Zt + Zb) = 0 over its branches, the stage inputs
+    it feeds and the + dividers it feeds. Known nodes move to the right-hand side.
+    """
+    index: dict[str, int] = {}
+    minus: dict[int, int] = {}
+    for k, x in enumerate(block):
+        index[_drives(x)] = len(index) + len(minus)
+        if isinstance(x, Stage):
+            minus[k] = index[_drives(x)] + 1
+    n = len(index) + len(minus)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        adm = {}
+        for k, x in enumerate(block):
+            if isinstance(x, Stage):
+                adm[k] = stage_admittances(x, p, s)
+        branch_y = {
+            k: [(node, 1.0 / impedance(net, p, s)) for node, net in x.branches]
+            for k, x in enumerate(block)
+            if isinstance(x, Junction)
+        }
+        plus_y = {
+            k: 1.0 / (impedance(x.plus[1], p, s) + impedance(x.plus[2], p, s))
+            for k, x in enumerate(block)
+            if isinstance(x, Stage) and x.plus is not None
+        }
+    arrays = [s] + [y for t in adm.values() for y in [t[0]] + [v for _, v in t[1]]]
+    arrays += [y for b in branch_y.values() for _, y in b] + list(plus_y.values())
+    arrays += [nodes[name] for x in block for name in _needs(x) if name in nodes]
+    shape = np.broadcast_shapes(*[np.shape(a) for a in arrays])
+    m = np.zeros(shape + (n, n), dtype=complex)
+    rhs = np.zeros(shape + (n,), dtype=complex)
+    inv_a = 0.0 if open_loop_gain is None else 1.0 / np.asarray(open_loop_gain)
+
+    def put(row, node, coeff):
+        """coeff · V(node) on the left side of ``row`` (a known node goes to the right side)."""
+        if node == GROUND:
+            return
+        if node in index:
+            m[..., row, index[node]] += coeff
+        else:
+            rhs[..., row] -= coeff * nodes[node]
+
+    for k, x in enumerate(block):
+        if isinstance(x, Junction):
+            row = index[x.name]
+            for node, y in branch_y[k]:
+                m[..., row, row] += y
+                put(row, node, -y)
+            for kk, st in enumerate(block):
+                if not isinstance(st, Stage):
+                    continue
+                for src, y in adm[kk][1]:
+                    if src == x.name:
+                        m[..., row, row] += y
+                        m[..., row, minus[kk]] -= y
+                if st.plus is not None and st.plus[0] == x.name:
+                    m[..., row, row] += plus_y[kk]
+            continue
+        yf, ys, ratio = adm[k]
+        out, vm = index[x.output], minus[k]
+        row = out  # the balance at the inverting input
+        for src, y in ys:
+            put(row, src, y)
+            m[..., row, vm] -= y
+        m[..., row, out] += yf
+        m[..., row, vm] -= yf
+        row = vm  # the op-amp
+        m[..., row, vm] += 1.0
+        m[..., row, out] += inv_a
+        if ratio is not None:
+            put(row, x.plus[0], -ratio)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        v = np.linalg.solve(m, rhs[..., None])[..., 0]
+    return {name: v[..., i] for name, i in index.items()}
 
 
 def stage_admittances(st, p, s):

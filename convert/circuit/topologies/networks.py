@@ -105,6 +105,25 @@ class Stage:
 
 
 @dataclass(frozen=True)
+class Junction:
+    """A node inside a stage that only passive networks meet at (no op-amp output drives it), such
+    as the middle node of a multiple-feedback section.
+
+    ``branches``: (other node, network) pairs; the other node is a circuit node (``in``, a stage
+    output, another junction) or ``"0"`` for ground. Stages read a junction as any other node (an
+    entry of their ``inputs``); the current those inputs draw is part of the junction's balance.
+    """
+
+    name: str
+    branches: tuple
+    role: str = ""
+
+
+GROUND = "0"
+"""The ground node of a :class:`Junction` branch."""
+
+
+@dataclass(frozen=True)
 class Part:
     name: str
     kind: str  # "R" or "C"

@@ -84,3 +84,21 @@ def fit_first_order(topo, shape, settings, *, lead_only: bool):
 def pos(x):
     """``x`` as a float array (parts may be numbers or arrays of draws)."""
     return np.asarray(x, dtype=float)
+
+
+def biquad_numbers(topo, shape: TargetShape, needs: str) -> dict[str, float]:
+    """a1, a0 (monic denominator, both > 0: poles in the left half-plane) and n2, n1, n0 of a
+    second-order section (n2·s² + n1·s + n0)/(s² + a1·s + a0), the sign taken out so that n0 >= 0
+    (n2 >= 0 when n0 = 0); coefficients below 1e-12 of the largest term at w0 are exactly 0.
+    Raises the topology's refusal naming ``needs``."""
+    c = shape.controller
+    num, den = np.array(c.num, dtype=float), np.array(c.den, dtype=float)
+    if den.size != 3 or num.size > 3 or not (den[1] / den[0] > 0 and den[2] / den[0] > 0):
+        raise refuse(topo, shape, needs)
+    num = np.concatenate([np.zeros(3 - num.size), num]) / den[0]
+    a1, a0 = den[1] / den[0], den[2] / den[0]
+    scale = max(abs(num[0]) * a0, abs(num[1]) * math.sqrt(a0), abs(num[2]))
+    num = np.where(np.abs(num) * np.array([a0, math.sqrt(a0), 1.0]) <= 1e-12 * scale, 0.0, num)
+    if num[2] < 0 or (num[2] == 0 and num[0] < 0):
+        num = -num
+    return {"a1": float(a1), "a0": float(a0), "n2": float(num[0]), "n1": float(num[1]), "n0": float(num[2])}

@@ -26,7 +26,7 @@ import numpy as np
 
 from convert.circuit.topologies.model import Topology, refuse
 from convert.circuit.topologies.networks import C, R, Parallel, Part, Stage
-from convert.circuit.topologies.shared import RSUM, pos
+from convert.circuit.topologies.shared import RSUM, biquad_numbers, pos
 from convert.errors import UnrealizableError
 
 
@@ -68,23 +68,15 @@ def parameters(p):
 def fit(topo, shape, settings):
     """A second-order denominator with both roots in the left half-plane; numerator of degree <= 2
     with n2, n0 >= 0 once the sign is taken out."""
-    c = shape.controller
-    num, den = np.array(c.num, dtype=float), np.array(c.den, dtype=float)
-    if den.size != 3 or num.size > 3 or not (den[1] / den[0] > 0 and den[2] / den[0] > 0):
-        raise refuse(topo, shape, "(n2·s² + n1·s + n0)/(s² + a1·s + a0) with both poles in the left half-plane")
-    num = np.concatenate([np.zeros(3 - num.size), num]) / den[0]
-    a1, a0 = den[1] / den[0], den[2] / den[0]
-    scale = max(abs(num[0]) * a0, abs(num[1]) * math.sqrt(a0), abs(num[2]))
-    num = np.where(np.abs(num) * np.array([a0, math.sqrt(a0), 1.0]) <= 1e-12 * scale, 0.0, num)
-    if num[2] < 0 or (num[2] == 0 and num[0] < 0):
-        num = -num
+    q = biquad_numbers(topo, shape, "(n2·s² + n1·s + n0)/(s² + a1·s + a0) with both poles in the left half-plane")
+    num = [q["n2"], q["n1"], q["n0"]]
     if num[0] < 0 or num[2] < 0:
         raise UnrealizableError(
             f"{topo.name} realizes n2·s² + n1·s + n0 with n2 and n0 of one sign; the target's "
             f"numerator has n2 = {num[0]:.4g}, n0 = {num[2]:.4g} (a real zero in each half-plane)",
             key="topology",
         )
-    return [{"a1": a1, "a0": a0, "n2": float(num[0]), "n1": float(num[1]), "n0": float(num[2])}]
+    return [q]
 
 
 def solve(q, f):
