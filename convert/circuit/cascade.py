@@ -578,10 +578,13 @@ def _build(plan: CascadePlan, options, f: np.ndarray, strict: bool):
     for k, section in enumerate(plan.sections, start=1):
         last_stage = k == len(plan.sections)
         factors = [1.0 / moved] if last_stage else [x / moved for x in GAIN_SHIFTS]
-        found, last = None, None
+        found, last, capped = None, None, ""
         for stage in _fallbacks(section):
             added = stage.amplifiers - section.topology.amplifiers
             if added and options.max_opamps is not None and plan.total_amplifiers + extra + added > options.max_opamps:
+                capped = (
+                    f"; {stage.name} would realize it with {added} op-amps more, above the cap of {options.max_opamps}"
+                )
                 continue
             for x in factors:
                 if strict and not last_stage and section.peak_gain * moved * x > limit * (1 + 1e-9):
@@ -606,7 +609,8 @@ def _build(plan: CascadePlan, options, f: np.ndarray, strict: bool):
                     key="topology",
                 )
             raise UnrealizableError(
-                f"cascade stage {k} ({section.topology.name}, {section.controller.expression(4)}): {last.message}",
+                f"cascade stage {k} ({section.topology.name}, {section.controller.expression(4)}): {last.message}"
+                + capped,
                 key=last.key,
                 settings=last.settings,
             )
@@ -661,7 +665,9 @@ def design_cascade(
     if built is None:
         raise first_error
     plan, topo, rounded, nominal, params, shifted, used, strict = built
-    fell_back = [(k, s.topology.name, t.name) for k, (t, s) in enumerate(zip(used, plan.sections), 1) if t is not s.topology]
+    fell_back = [
+        (k, s.topology.name, t.name) for k, (t, s) in enumerate(zip(used, plan.sections), 1) if t is not s.topology
+    ]
     if fell_back:
         plan = replace(plan, sections=tuple(replace(s, topology=t) for t, s in zip(used, plan.sections)))
     sign = plan.sign

@@ -429,6 +429,15 @@ def _out_of_range(topo: Topology, parts: Mapping[str, np.ndarray], options: Desi
         for k in topo.free_parts
     )
     what = "resistor" if part.kind == "R" else "capacitor"
+    if math.isnan(value):  # e.g. a multiple-feedback section whose capacitor spread is too small
+        free_kinds = sorted({"resistor" if topo.part(k).kind == "R" else "capacitor" for k in topo.free_parts})
+        return UnrealizableError(
+            f"{topo.name}: its design equations give no real value for {worst} ({part.role}) with any choice of "
+            f"{', '.join(topo.free_parts)} in the {' and '.join(free_kinds)} range; widen the "
+            f"{' and '.join(free_kinds)} range",
+            key=f"{free_kinds[0]} range",
+            settings=tuple(f"{k} range" for k in free_kinds),
+        )
     bound = f"{what} {'maximum' if above else 'minimum'}"
     change = f"{'raise' if above else 'lower'} the {bound}"
     other = "capacitor range" if part.kind == "R" else "resistor range"

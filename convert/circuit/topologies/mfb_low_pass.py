@@ -59,7 +59,9 @@ def parameters(p):
 def fit(topo, shape, settings):
     """n0/(s² + a1·s + a0) with both poles in the left half-plane and Q <= MAX_Q; two designs (the
     two roots of the quadratic in 1/R3)."""
-    q = biquad_numbers(topo, shape, "n0/(s² + a1·s + a0) (a second-order low-pass) with both poles in the left half-plane")
+    q = biquad_numbers(
+        topo, shape, "n0/(s² + a1·s + a0) (a second-order low-pass) with both poles in the left half-plane"
+    )
     if q["n2"] != 0 or q["n1"] != 0 or q["n0"] <= 0:
         raise refuse(topo, shape, "n0/(s² + a1·s + a0) (a second-order low-pass, no finite zeros)")
     qf = math.sqrt(q["a0"]) / q["a1"]
@@ -97,9 +99,7 @@ TOPOLOGY = Topology(
         Part("C2", "C", "feedback capacitor from the output to the inverting input"),
     ),
     stages=(Stage("U1", "out", C("C2"), (("mfb", R("R2")),), role="multiple-feedback low-pass"),),
-    junctions=(
-        Junction("mfb", (("in", R("R1")), ("out", R("R3")), (GROUND, C("C1"))), role="middle node"),
-    ),
+    junctions=(Junction("mfb", (("in", R("R1")), ("out", R("R3")), (GROUND, C("C1"))), role="middle node"),),
     inverting=True,
     represents="n0/(s² + a1·s + a0): a second-order low-pass with poles in the left half-plane, "
     f"pole Q up to {MAX_Q:g} (quantities a1, a0, n0)",

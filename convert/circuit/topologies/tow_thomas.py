@@ -24,7 +24,7 @@ import math
 
 import numpy as np
 
-from convert.circuit.topologies.model import Topology, refuse
+from convert.circuit.topologies.model import Topology
 from convert.circuit.topologies.networks import C, R, Parallel, Part, Stage
 from convert.circuit.topologies.shared import RSUM, biquad_numbers, pos
 from convert.errors import UnrealizableError
