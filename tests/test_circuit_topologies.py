@@ -20,6 +20,9 @@ LCAPY = {
         "2*(1+1/(3*s))*(1+0.5*s)/(1+0.05*s)",
     ),
     "lead-lag-rc": ("R1 1 2\nC1 1 2\nR2 4 2\nC2 4 2\nE1 4 0 opamp 0 2 Ad", "0.5*(s+10)/(s+1)"),
+    # multiple-feedback sections: node 3 is the middle node (a junction)
+    "mfb-low-pass": ("R1 1 3\nC1 3 0\nR3 3 4\nR2 3 2\nC2 2 4\nE1 4 0 opamp 0 2 Ad", "2/((s+1)*(s+4))"),
+    "mfb-band-pass": ("R1 1 3\nR2 3 0\nC1 3 2\nC2 3 4\nR3 2 4\nE1 4 0 opamp 0 2 Ad", "2*s/(s^2+2*s+4)"),
 }
 
 

@@ -394,6 +394,48 @@ def _diamond(qr: np.ndarray, qi: np.ndarray) -> np.ndarray:
     return d
 
 
+def unwrapped_peak(d: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Largest |phase| (degrees) of each column of diamond angles ``d`` (frequency along axis 0,
+    draws along axis 1) unwrapped along frequency from the first point, and the row where it lies.
+
+    The rule is :func:`numpy.unwrap`'s (a step of more than 180° is taken the short way round,
+    exactly ±180° is kept), applied in the diamond's own units: it is monotone and odd, and a half
+    turn is exactly 2 units (a step passes 180° exactly when it passes 2 units), so the turns are
+    counted there and only the extreme of each column is turned into degrees. A column with
+    non-finite points is unwrapped across its finite points
+    (:func:`convert.compare.frequency.unwrapped_phase_error_deg`), its gaps counted as 180°.
+    """
+    d = np.asarray(d)
+    peak = np.empty(d.shape[1])
+    at = np.empty(d.shape[1], dtype=np.int64)
+    gaps = ~np.isfinite(d).all(axis=0)
+    if gaps.any():
+        from convert.compare.frequency import unwrapped_phase_error_deg
+
+        ratio = np.exp(1j * np.radians(diamond_to_deg(d[:, gaps].T)))
+        err = np.nan_to_num(np.abs(unwrapped_phase_error_deg(ratio)), nan=180.0)
+        peak[gaps], at[gaps] = err.max(axis=1), err.argmax(axis=1)
+    cols = np.nonzero(~gaps)[0]
+    if cols.size:
+        x = d[:, cols]
+        step = np.diff(x, axis=0)
+        turns = np.zeros(x.shape, dtype=np.int32)
+        np.cumsum((step < -2).astype(np.int32) - (step > 2), axis=0, out=turns[1:])
+        u = x + (4 * turns).astype(x.dtype)  # unwrapped, in diamond units (4 = one turn)
+        rows = np.argmax(np.abs(u), axis=0)
+        pick = (rows, np.arange(cols.size))
+        peak[cols] = np.abs(_turned_diamond_to_deg(x[pick].astype(float) + 4.0 * turns[pick]))  # float64 sum
+        at[cols] = rows
+    return peak, at
+
+
+def _turned_diamond_to_deg(u: np.ndarray) -> np.ndarray:
+    """Degrees of an unwrapped diamond angle ``u`` (any real: 4 units per turn)."""
+    t = np.floor((u + 2.0) / 4.0)
+    w = u - 4.0 * t  # in [−2, 2)
+    return np.where(w <= -2.0, -180.0, diamond_to_deg(w)) + 360.0 * t
+
+
 def diamond_to_deg(d: np.ndarray) -> np.ndarray:
     """Degrees of a :func:`_diamond` angle (exact inverse)."""
     d = np.asarray(d, dtype=float)
@@ -569,10 +611,10 @@ class _FigureReducer:
         self.total = 0
         self.unstable: int | None = None  # counted draws (see LoopCount)
 
-    def add_band(self, g: np.ndarray, d: np.ndarray, exact: Callable[[np.ndarray], np.ndarray], first: int) -> None:
-        """``g`` |ratio|², ``d`` diamond angle, both (F, n); ``exact(idx)`` the complex ratio of the
-        chunk's draws ``idx`` (k, F) for draws whose phase error passes ±135° (unwrapped exactly).
-        Where each maximum lies is looked up only for the draws the selection keeps."""
+    def add_band(self, g: np.ndarray, d: np.ndarray, first: int) -> None:
+        """``g`` |ratio|², ``d`` diamond angle, both (F, n). Draws whose phase error passes ±135°
+        somewhere are unwrapped along frequency from their own wrapped angles (``d`` holds them
+        exactly: :func:`unwrapped_peak`), so an error past ±180° is reported in full. Where each maximum lies is looked up only for the draws the selection keeps."""
         n = g.shape[1]
         ids = np.arange(first, first + n, dtype=np.int64)
         g_hi, g_lo = g.max(axis=0).astype(float), g.min(axis=0).astype(float)  # NaN propagates
@@ -582,14 +624,10 @@ class _FigureReducer:
             gain_db = np.where(up, 10 * np.log10(g_hi), -10 * np.log10(g_lo))
         gain_db = np.where(np.isnan(gain_db), np.inf, gain_db)
         phase_deg = np.abs(diamond_to_deg(d_max))
-        far = np.nonzero(~(d_max <= 1.5))[0]  # beyond ±135° (or NaN): unwrap exactly
+        far = np.nonzero(~(d_max <= 1.5))[0]  # beyond ±135° (or NaN): unwrap
         far_at = np.full(n, -1)
         if far.size:
-            from convert.compare.frequency import unwrapped_phase_error_deg
-
-            err = np.nan_to_num(np.abs(unwrapped_phase_error_deg(exact(far))), nan=180.0)
-            phase_deg[far] = err.max(axis=1)
-            far_at[far] = err.argmax(axis=1)
+            phase_deg[far], far_at[far] = unwrapped_peak(d[:, far])
 
         def gain_at(cols):
             with np.errstate(invalid="ignore"):
@@ -666,7 +704,7 @@ def figures_of_responses(
     red = _FigureReducer(key, f, cand.shape[0], percentile, ref_m)
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = (cand / np.asarray(reference, dtype=complex)[None, :]).T
-    red.add_band(np.abs(ratio) ** 2, _diamond(ratio.real, ratio.imag), lambda idx: ratio[:, idx].T, 0)
+    red.add_band(np.abs(ratio) ** 2, _diamond(ratio.real, ratio.imag), 0)
     if ref_m is not None:
         red.add_margins(loop_margins(np.atleast_2d(loop_candidates)), 0)
     return red.result()
@@ -984,13 +1022,8 @@ class _Worker:
                 self.disp_d.add(d.astype(r["dtype"], copy=False))
                 done_display = True
             loop_m = None
-            for (_c, red), (g, d), ref in zip(members, proxies, refs):
-
-                def exact(idx, ref=ref, opamp=opamp):
-                    sub = {k: v[idx] for k, v in drawn.items()}
-                    return _responses(topology, sub, band_f, opamp, sign) / ref[None, :]
-
-                red.add_band(g, d, exact, first)
+            for (_c, red), (g, d) in zip(members, proxies):
+                red.add_band(g, d, first)
                 if red.ref_margins is not None:
                     if loop_m is None:
                         if "loop" in cache:
