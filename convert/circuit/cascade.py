@@ -325,28 +325,35 @@ def plan_cascades(
         raise UnrealizableError("a constant gain needs no cascade: use inverting-gain", key="topology")
     allowed = tuple(AUTO_ORDER) + SECOND_ORDER
     units = [_section_controller(*g) for g in groups]
-    # merge pairs that one stage realizes on fewer amplifiers
+    # overall gain: lead coefficient ratio of the target over the product of monic sections
+    gain = lead
+    sign = -1 if gain < 0 else 1
+    # merge pairs that one stage realizes on fewer op-amps, the sign's inverter counted (two inverting
+    # lags are two op-amps; one inverting low-pass for both needs an inverter: no saving)
     merged = merge
     while merged and len(units) > 1:
         merged = False
         best = None
+        stages = [_fits(u, allowed) for u in units]
+        parity = 1
+        for t in stages:
+            parity *= t.sign if t is not None else 1
         for i, j in itertools.combinations(range(len(units)), 2):
-            a, b = _fits(units[i], allowed), _fits(units[j], allowed)
+            a, b = stages[i], stages[j]
             if a is None or b is None:
                 continue
             both = _fits(units[i].series(units[j]), allowed)
-            if both is not None and both.amplifiers < a.amplifiers + b.amplifiers:
-                saving = a.amplifiers + b.amplifiers - both.amplifiers
-                if best is None or saving > best[0]:
-                    best = (saving, i, j)
+            if both is None:
+                continue
+            now = a.amplifiers + b.amplifiers + (parity != sign)
+            after = both.amplifiers + (parity * a.sign * b.sign * both.sign != sign)
+            if after < now and (best is None or now - after > best[0]):
+                best = (now - after, i, j)
         if best is not None:
             _, i, j = best
             units[i] = units[i].series(units[j])
             del units[j]
             merged = True
-    # overall gain: lead coefficient ratio of the target over the product of monic sections
-    gain = lead
-    sign = -1 if gain < 0 else 1
     # reference frequency response of the unit sections over the band
     f = _peak_grid(band_hz)
     responses = [_response(u, f) for u in units]
