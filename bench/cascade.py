@@ -41,8 +41,6 @@ TARGETS = {
     "moderate": "(s + 2)*(s^2 + 6*s + 100)/((s + 20)*(s^2 + 4*s + 64)*(s^2 + 10*s + 400)*(0.05*s + 1))",
     "undamped notch": "(s^2 + 400)*(s + 3)/((s^2 + 4*s + 400)*(s + 30)*(0.2*s + 1)*(s^2 + 3*s + 9))",
 }
-TARGET = TARGETS["Q-40 zero pair"]  # the first target (kept for callers of the module)
-
 DRAWS = 10_000
 TOLERANCES = {"R": 0.01, "C": 0.05}
 PID_PARTS = {

@@ -291,6 +291,7 @@ class Topology:
             "represents": self.represents,
             "parts": {p.name: p.role for p in self.parts},
             "equations": list(self.equations),
+            "internal_nodes": {j.name: j.role for j in self.junctions},
         }
 
 
