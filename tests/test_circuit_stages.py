@@ -235,13 +235,14 @@ def test_middle_node_voltage_against_hand_solution():
 
 
 def test_merging_counts_the_sign_inverter():
-    """Two real-pole lags merge into one multiple-feedback low-pass only when that lowers the op-amp
-    count with the sign's inverter counted (hand count): +1/((s+1)(s+3)) is two inverting lags (2
-    op-amps, signs cancel) and stays so, as one inverting low-pass needs an inverter (also 2);
-    -1/((s+1)(s+3)) is one inverting low-pass (1 op-amp) instead of two lags and an inverter (3)."""
+    """Two real-pole lags merge into one multiple-feedback low-pass when that does not raise the
+    op-amp count with the sign's inverter counted (hand count): +1/((s+1)(s+3)) is two inverting lags
+    (2 op-amps, signs cancel) or one inverting low-pass and an inverter (also 2: a tie, merged, fewer
+    parts); -1/((s+1)(s+3)) is one inverting low-pass (1 op-amp) instead of two lags and an inverter
+    (3)."""
     plus = design_circuit(from_expression("1/((s+1)*(s+3))"), DesignOptions())
     minus = design_circuit(from_expression("-1/((s+1)*(s+3))"), DesignOptions())
-    assert [s.topology.name for s in plus.cascade.sections] == ["first-order-lag", "first-order-lag"]
-    assert plus.cascade.total_amplifiers == 2 and not plus.needs_inverter
+    assert [s.topology.name for s in plus.cascade.sections] == ["mfb-low-pass"]
+    assert plus.cascade.total_amplifiers == 2 and plus.needs_inverter
     assert [s.topology.name for s in minus.cascade.sections] == ["mfb-low-pass"]
     assert minus.cascade.total_amplifiers == 1 and not minus.needs_inverter

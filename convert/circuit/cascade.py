@@ -328,8 +328,10 @@ def plan_cascades(
     # overall gain: lead coefficient ratio of the target over the product of monic sections
     gain = lead
     sign = -1 if gain < 0 else 1
-    # merge pairs that one stage realizes on fewer op-amps, the sign's inverter counted (two inverting
-    # lags are two op-amps; one inverting low-pass for both needs an inverter: no saving)
+    # merge pairs that one stage realizes on fewer amplifiers, unless the sign's inverter it then needs
+    # takes the saving back; of several, the one saving the most op-amps with the inverter counted
+    # (two inverting lags are two op-amps; one inverting low-pass and an inverter also two: a tie,
+    # merged as before, with fewer parts; for a target of the other sign the merge saves two)
     merged = merge
     while merged and len(units) > 1:
         merged = False
@@ -345,10 +347,13 @@ def plan_cascades(
             both = _fits(units[i].series(units[j]), allowed)
             if both is None:
                 continue
+            if both.amplifiers >= a.amplifiers + b.amplifiers:
+                continue
             now = a.amplifiers + b.amplifiers + (parity != sign)
             after = both.amplifiers + (parity * a.sign * b.sign * both.sign != sign)
-            if after < now and (best is None or now - after > best[0]):
-                best = (now - after, i, j)
+            saving = (now - after, a.amplifiers + b.amplifiers - both.amplifiers)
+            if after <= now and (best is None or saving > best[0]):
+                best = (saving, i, j)
         if best is not None:
             _, i, j = best
             units[i] = units[i].series(units[j])
