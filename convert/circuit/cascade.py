@@ -328,10 +328,10 @@ def plan_cascades(
     # overall gain: lead coefficient ratio of the target over the product of monic sections
     gain = lead
     sign = -1 if gain < 0 else 1
-    # merge pairs that one stage realizes on fewer amplifiers, unless the sign's inverter it then needs
-    # takes the saving back; of several, the one saving the most op-amps with the inverter counted
-    # (two inverting lags are two op-amps; one inverting low-pass and an inverter also two: a tie,
-    # merged as before, with fewer parts; for a target of the other sign the merge saves two)
+    # merge pairs that one stage realizes on fewer amplifiers; of several, the one saving the most
+    # op-amps with the sign's inverter counted (a merge that flips the stages' sign adds or removes
+    # it: two inverting lags are two op-amps, one inverting low-pass and an inverter also two — a
+    # tie, merged as before, fewer parts —, while for a target of the other sign the merge saves two)
     merged = merge
     while merged and len(units) > 1:
         merged = False
@@ -352,7 +352,7 @@ def plan_cascades(
             now = a.amplifiers + b.amplifiers + (parity != sign)
             after = both.amplifiers + (parity * a.sign * b.sign * both.sign != sign)
             saving = (now - after, a.amplifiers + b.amplifiers - both.amplifiers)
-            if after <= now and (best is None or saving > best[0]):
+            if best is None or saving > best[0]:
                 best = (saving, i, j)
         if best is not None:
             _, i, j = best
