@@ -140,22 +140,36 @@ def test_cascade_gain_bandwidth_model_against_ngspice(name):
     assert np.max(np.abs(20 * np.log10(np.abs(expected / ideal)))) > 0.01
 
 
-def test_cascade_monte_carlo_over_all_parts():
-    """The tolerance analysis of a cascade draws every fitted part of every stage: its gain percentiles
-    equal numpy's percentiles of the same draws evaluated one by one in float64 from the circuit's own
-    formulas (an independent evaluation path), to 0.01 dB; and every stage's parts move the result."""
+def band_against_direct(d, *, seed: int, draws: int = 4000):
+    """(the engine's band, numpy's 0.5/99.5 % gain percentiles of the same draws evaluated in float64
+    from the circuit's formulas, the draws) for a design, 1 %/5 % parts, 20 points per decade."""
     from convert.circuit.tolerance import Comparison, draw_parts, run_tolerances
 
-    d = _design(TARGETS["PI with measurement filter"])
     tol = {"R": 0.01, "C": 0.05}
     f = d.f_grid(20)
     ref = d.topology.response({k: np.asarray([v]) for k, v in d.rounded.items()}, f)[0]
     mc = run_tolerances(
-        d.topology, d.rounded, tol, band_f_hz=f, comparisons=[Comparison("t", ref)], draws=4000, seed=3, display_f_hz=f
+        d.topology,
+        d.rounded,
+        tol,
+        band_f_hz=f,
+        comparisons=[Comparison("t", ref)],
+        draws=draws,
+        seed=seed,
+        display_f_hz=f,
     ).band
-    drawn = draw_parts(d.topology, d.rounded, tol, 4000, 3)
+    drawn = draw_parts(d.topology, d.rounded, tol, draws, seed)
     h = d.topology.response(drawn, f)
     direct = np.percentile(20 * np.log10(np.abs(h)), [0.5, 99.5], axis=0)  # the engine's band (no median)
+    return mc, direct, drawn
+
+
+def test_cascade_monte_carlo_over_all_parts():
+    """The tolerance analysis of a cascade draws every fitted part of every stage: its gain percentiles
+    equal numpy's percentiles of the same draws evaluated one by one in float64 from the circuit's own
+    formulas (an independent evaluation path), to 0.01 dB; and every stage's parts move the result."""
+    d = _design(TARGETS["PI with measurement filter"])
+    mc, direct, drawn = band_against_direct(d, seed=3)
     assert np.max(np.abs(np.asarray(mc.gain_db) - direct)) < 0.01
     moved = {k for k, v in drawn.items() if np.ptp(v) > 0}
     assert moved == set(d.fitted_parts())

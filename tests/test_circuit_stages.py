@@ -199,17 +199,10 @@ def test_monte_carlo_and_worst_case_cover_the_new_parts():
     it); its gain percentiles equal numpy's percentiles of the same draws evaluated from the stage
     formulas in float64, to 0.01 dB. Worst case against hand calculation: w0 = 1/sqrt(R2·R3·C1·C2)
     moves to w0/((1 + tR)(1 + tC)) and w0/((1 - tR)(1 - tC)); the dc gain R3/R1 to (1 -+ tR)/(1 +- tR)."""
-    from convert.circuit.tolerance import Comparison, draw_parts, run_tolerances
+    from tests.test_circuit_cascade import band_against_direct
 
     d = design_circuit(from_expression(TARGETS["PI with a resonant measurement filter"]), DesignOptions())
-    tol = {"R": 0.01, "C": 0.05}
-    f = d.f_grid(20)
-    ref = d.topology.response({k: np.asarray([v]) for k, v in d.rounded.items()}, f)[0]
-    mc = run_tolerances(
-        d.topology, d.rounded, tol, band_f_hz=f, comparisons=[Comparison("t", ref)], draws=4000, seed=5, display_f_hz=f
-    ).band
-    drawn = draw_parts(d.topology, d.rounded, tol, 4000, 5)
-    direct = np.percentile(20 * np.log10(np.abs(d.topology.response(drawn, f))), [0.5, 99.5], axis=0)
+    mc, direct, drawn = band_against_direct(d, seed=5)
     assert np.max(np.abs(np.asarray(mc.gain_db) - direct)) < 0.01
     assert {k for k, v in drawn.items() if np.ptp(v) > 0} == set(d.fitted_parts())
 
