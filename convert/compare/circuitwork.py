@@ -198,7 +198,7 @@ def circuit_realization(
         )
     else:
         rows["opamp_gbw"] = bud.not_applicable("opamp_gbw", "ideal op-amp (set target.circuit.opamp_gbw to check it)")
-    from convert.compare.evaluate import card_parasitics_row
+    from convert.compare.stages import card_parasitics_row
 
     rows.update(card_parasitics_row(case_reduction, band, spec, loop_f))
     rows["total"] = bud.drawn_row(

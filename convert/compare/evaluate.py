@@ -17,20 +17,20 @@ from collections.abc import Callable
 import numpy as np
 
 from convert.compare import budget as bud
-from convert.compare.frequency import hold_and_delay_factor, log_grid, response_seen_from_loop
+from convert.compare.frequency import log_grid, response_seen_from_loop
 from convert.compare.ownchecks import own_checks
 from convert.compare.loop import (
     LoopResponse,
     Margins,
     default_duration,
     loop_margins,
-    margin_grid,
-    margins_of_responses,
     response_deviation,
     simulate_loop,
 )
 from convert.compare.rate import RateAdvice, advise
 from convert.compare.stability import LoopStability, loop_stability
+from convert.compare.stages import digital_budget, loop_spec
+from convert.compare.stages import fmt_hz as _fmt_hz
 from convert.compare.verdict import LOOP_CRITERIA, Verdict, judge
 from convert.controller import Controller
 from convert.errors import InputError, LoopshiftError, UnrealizableError
@@ -474,10 +474,7 @@ def _simulate_pair(
 
 
 def _loop_spec(case, f_hz: np.ndarray) -> bud.LoopSpec | None:
-    if case.plant is None:
-        return None
-    plant = case.plant
-    return bud.LoopSpec(f_hz=f_hz, margins=lambda r: margins_of_responses(f_hz, r, plant.model, plant.dead_time_s))
+    return loop_spec(case.plant, f_hz)
 
 
 def _within(limits, clamp):
@@ -495,37 +492,6 @@ def firmware_output_limits(case, card_limits=None):
     if case.digital and case.digital.output_limits:
         return case.digital.output_limits
     return _within(case.signals.output_range, card_limits)
-
-
-def card_parasitics_row(reduction, band, spec=None, loop_f=None) -> dict:
-    """The budget row of a card's op-amp / parasitic roots left out of the controller handed on
-    (reduced controller against the full card), keyed for :func:`convert.compare.budget.assemble`;
-    empty when the source is not a card read from a netlist."""
-    if reduction is None:
-        return {}
-    if not reduction.changed:
-        return {
-            "card_parasitics": bud.not_applicable(
-                "card_parasitics", f"nothing of the card lies beyond the cut ({reduction.cut_hz:.4g} Hz)"
-            )
-        }
-    full, red = reduction.full, reduction.reduced
-
-    def lr(c):
-        return None if loop_f is None else c.frequency_response(loop_f, via="zpk")
-
-    return {
-        "card_parasitics": bud.error_row(
-            "card_parasitics",
-            band,
-            full.frequency_response(band, via="zpk"),
-            red.frequency_response(band, via="zpk"),
-            note=f"the controller handed on against the full card, analog, alone: {reduction.rule}",
-            loop=spec,
-            loop_reference=lr(full),
-            loop_candidate=lr(red),
-        )
-    }
 
 
 def _digital_realizations(
@@ -548,7 +514,6 @@ def _digital_realizations(
     tgt = case.digital
     out = []
     filtered, filter_note = _filtered(case, analog_src)
-    ref_band = response_seen_from_loop(src, band, via="zpk")
     for fs in tgt.fs_hz:
         if fs / 2 <= case.criteria.band_hz[1]:
             raise InputError(
@@ -566,109 +531,26 @@ def _digital_realizations(
                     exc.message, where=case.where("target.digital.methods"), key="target.digital.methods"
                 ) from None
             cd = real.controller
-            t = 1.0 / fs
             warnings = list(real.warnings)
             firmware = _firmware(case, real, band)
             cq = cd if firmware.realized is None else _realized_controller(firmware)
             name = f"{method} @ {_fmt_hz(fs)}"
-            loop_f = margin_grid(cq, case.plant.model) if case.plant else None
-            spec = _loop_spec(case, loop_f) if loop_f is not None else None
-
-            def lr(ctrl, delay_s=0.0, hold="none", f=loop_f):
-                return None if f is None else response_seen_from_loop(ctrl, f, delay_s=delay_s, hold=hold, via="zpk")
-
-            rows = {}
-            rows["discretization"] = bud.error_row(
-                "discretization",
-                band,
-                filtered.frequency_response(band, via="zpk"),
-                cd.frequency_response(band, via="zpk"),
-                note=f"{method} at {_fmt_hz(fs)} alone: C(e^jωT) against the analog controller it was made from; "
-                "no hold, no delay, float64 coefficients",
-                loop=spec,
-                loop_reference=lr(filtered),
-                loop_candidate=lr(cd),
-                forms=(filtered, cd),
-                evaluate=lambda f: (filtered.frequency_response(f, via="zpk"), cd.frequency_response(f, via="zpk")),  # noqa: B023
-            )
-            hold = hold_and_delay_factor
-            rows["hold_and_delay"] = bud.error_row(
-                "hold_and_delay",
-                band,
-                filtered.frequency_response(band, via="zpk"),
-                filtered.frequency_response(band, via="zpk") * hold(band, t, delay),
-                note=f"zero-order hold at {_fmt_hz(fs)} and {_fmt_s(delay)} computation delay alone, applied to "
-                "the analog controller",
-                loop=spec,
-                loop_reference=lr(filtered),
-                loop_candidate=None
-                if loop_f is None
-                else filtered.frequency_response(loop_f, via="zpk") * hold(loop_f, t, delay),
-                forms=(filtered, filtered),
-                evaluate=lambda f: (
-                    filtered.frequency_response(f, via="zpk"),
-                    filtered.frequency_response(f, via="zpk") * hold(f, t, delay),  # noqa: B023
-                ),
-            )
-            if firmware.realized is not None:
-                from convert.digital.quantized import realized_response
-
-                rows["word_format"] = bud.error_row(
-                    "word_format",
+            budget = list(
+                digital_budget(
+                    src,
+                    analog_src,
+                    filtered,
+                    real,
+                    firmware,
                     band,
-                    real.frequency_response(band),
-                    realized_response(firmware.realized, band),
-                    note=f"{tgt.structure} in {tgt.word_format} alone: the stored coefficients' response against the "
-                    "directly mapped zeros/poles (both in z, no hold)",
-                    loop=spec,
-                    loop_reference=lr(cd),
-                    loop_candidate=None if loop_f is None else realized_response(firmware.realized, loop_f),
-                    forms=(cd, cq),
-                    evaluate=lambda f: (real.frequency_response(f), realized_response(firmware.realized, f)),  # noqa: B023
+                    delay_s=delay,
+                    structure=tgt.structure,
+                    word_format=tgt.word_format,
+                    filter_note=filter_note,
+                    plant=case.plant,
+                    reduction=reduction,
                 )
-            else:
-                rows["word_format"] = bud.not_applicable(
-                    "word_format", f"{tgt.structure} in {tgt.word_format} cannot be built: {firmware.refused}"
-                )
-            if filter_note:
-                rows["derivative_filter"] = bud.error_row(
-                    "derivative_filter",
-                    band,
-                    analog_src.frequency_response(band, via="zpk"),
-                    filtered.frequency_response(band, via="zpk"),
-                    note=f"{filter_note}, alone, in the analog controller",
-                    loop=spec,
-                    loop_reference=lr(analog_src),
-                    loop_candidate=lr(filtered),
-                    forms=(analog_src, filtered),
-                    evaluate=lambda f: (
-                        analog_src.frequency_response(f, via="zpk"),
-                        filtered.frequency_response(f, via="zpk"),
-                    ),
-                )
-            else:
-                rows["derivative_filter"] = bud.not_applicable(
-                    "derivative_filter", "the source is proper; no filter added"
-                )
-            rows.update(card_parasitics_row(reduction, band, spec, loop_f))
-            rows["total"] = bud.error_row(
-                "total",
-                band,
-                ref_band,
-                response_seen_from_loop(cq, band, delay_s=delay, via="zpk"),
-                note="everything on: method, hold, delay, word format, filter"
-                + (", card parasitics left out" if reduction is not None and reduction.changed else "")
-                + "; against the source as the loop sees it",
-                loop=spec,
-                loop_reference=lr(src, hold="zoh"),
-                loop_candidate=lr(cq, delay, "zoh"),
-                forms=(src, cq),
-                evaluate=lambda f: (
-                    response_seen_from_loop(src, f, via="zpk"),
-                    response_seen_from_loop(cq, f, delay_s=delay, via="zpk"),  # noqa: B023
-                ),
             )
-            budget = bud.assemble(rows, bud.DIGITAL_ROWS, "digital")
             details = {
                 "method": method,
                 "fs_hz": fs,
@@ -912,17 +794,3 @@ def _loop_figures(src_m: Margins, r: Realization, src_step, src_dist, case) -> d
                     "without bound (the value at the simulation's end would only measure how long it ran)"
                 )
     return f
-
-
-def _fmt_hz(f: float) -> str:
-    from convert.values import format_value
-
-    return format_value(f, "hz")
-
-
-def _fmt_s(t: float) -> str:
-    if t >= 1:
-        return f"{t:.4g} s"
-    from convert.values import format_value
-
-    return format_value(t, "second") if t > 0 else "0 s"

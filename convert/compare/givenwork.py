@@ -88,7 +88,8 @@ def _loop(case, controller: Controller):
 
 
 def _firmware(case, given, info, src, band, duration, src_step, src_dist):
-    from convert.compare.evaluate import _fmt_hz, _fmt_s
+    from convert.compare.stages import fmt_hz as _fmt_hz
+    from convert.compare.stages import fmt_s as _fmt_s
 
     d = given.data
     cd: Controller = info.controller
