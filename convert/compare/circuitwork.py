@@ -11,9 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from convert.compare import budget as bud
-from convert.compare.frequency import response_seen_from_loop
-from convert.compare.loop import loop_margins, margins_of_responses
+from convert.compare.loop import loop_margins
 from convert.controller import Controller
 from convert.errors import LoopshiftError
 
@@ -35,8 +33,8 @@ def circuit_realization(
     setpoint_filter=None,
 ):
     from convert.circuit.design import DesignOptions, design_circuit
-    from convert.circuit.opamp import OpAmpModel, gbw_response
-    from convert.compare.evaluate import WEIGHTS_NOT_CARRIED, Realization, _fmt_hz, _simulate_pair
+    from convert.compare.evaluate import WEIGHTS_NOT_CARRIED, Realization, _simulate_pair
+    from convert.compare.stages import circuit_budget, circuit_response
 
     tgt = case.circuit
     options = DesignOptions(
@@ -63,154 +61,27 @@ def circuit_realization(
         key = circuit_key(exc.key)
         raise type(exc)(exc.message, where=case.where(key), key=key) from None
     tick("circuit design")
-    topo = design.topology
-    sign = design.sign
-    n_draws = int(draws if draws is not None else tgt.draws)
-    model = OpAmpModel(tgt.opamp_gbw_hz)
-
-    def resp(parts, f, opamp=None):
-        arr = {k: np.atleast_1d(np.asarray(v, dtype=float)) for k, v in parts.items()}
-        if opamp is None or opamp.ideal:
-            r = topo.response(arr, f)
-        else:
-            r = gbw_response(topo, arr, f, opamp)
-        return sign * np.atleast_2d(r)
-
-    nominal, rounded = design.nominal, design.rounded
-    loop_f = None
-    if case.plant is not None:
-        # around the source loop's crossovers: the draws move them by a few per cent at most
-        # (a figure may be absent: no crossover, or no interior sensitivity peak)
-        marks = [
-            x for x in (src_margins.crossover_hz, src_margins.phase_crossover_hz, src_margins.sensitivity_peak_hz) if x
-        ]
-        lo = (src_margins.crossover_hz or min(marks, default=float(band[-1]))) / 30
-        hi = max(marks, default=float(band[-1])) * 30
-        loop_f = np.logspace(np.log10(lo), np.log10(hi), 320)
-    spec = (
-        bud.LoopSpec(loop_f, lambda r: margins_of_responses(loop_f, r, case.plant.model, case.plant.dead_time_s))
-        if case.plant
-        else None
-    )
-
-    def both(fn):
-        if loop_f is None:
-            return fn(band), None
-        out = fn(np.concatenate([band, loop_f]))  # one evaluation over both grids
-        return out[..., : band.size], out[..., band.size :]
-
-    src_b, src_l = both(lambda f: response_seen_from_loop(src, f, via="zpk"))
-    an_b, an_l = both(lambda f: analog_src.frequency_response(f, via="zpk"))
-    tgt_b, tgt_l = both(lambda f: design.target.frequency_response(f, via="zpk"))
-    nom_b, nom_l = both(lambda f: resp(nominal, f)[0])
-    rnd_b, rnd_l = both(lambda f: resp(rounded, f)[0])
-    rows = {}
-    if src.is_digital:  # the circuit aims at the analog equivalent: the source's own hold is a row of its own
-        rows["source_hold"] = bud.error_row(
-            "source_hold",
-            band,
-            src_b,
-            an_b,
-            forms=(src, analog_src),
-            note="the analog controller the circuit aims at against the digital source as the loop sees it "
-            "(C(e^jωT) with its zero-order hold), alone",
-            loop=spec,
-            loop_reference=src_l,
-            loop_candidate=an_l,
-            evaluate=lambda f: (
-                response_seen_from_loop(src, f, via="zpk"),
-                analog_src.frequency_response(f, via="zpk"),
-            ),
-        )
-    if design.filter_added is not None:
-        rows["derivative_filter"] = bud.error_row(
-            "derivative_filter",
-            band,
-            an_b,
-            tgt_b,
-            note="the derivative filter the circuit adds, alone (analog, exact)",
-            loop=spec,
-            loop_reference=an_l,
-            loop_candidate=tgt_l,
-            forms=(analog_src, design.target),
-            evaluate=lambda f: (
-                analog_src.frequency_response(f, via="zpk"),
-                design.target.frequency_response(f, via="zpk"),
-            ),
-        )
-    else:
-        rows["derivative_filter"] = bud.not_applicable("derivative_filter", "the source is proper; no filter added")
-    rows["series_rounding"] = bud.error_row(
-        "series_rounding",
+    cb = circuit_budget(
+        design,
+        src,
+        analog_src,
         band,
-        nom_b,
-        rnd_b,
-        note=f"parts rounded to {tgt.resistors}/{tgt.capacitors} alone: rounded against computed values, ideal op-amp",
-        loop=spec,
-        loop_reference=nom_l,
-        loop_candidate=rnd_l,
-        forms=(design.target, design.realized),
-        evaluate=lambda f: (resp(nominal, f)[0], resp(rounded, f)[0]),
-    )
-    tols = dict(tgt.tolerances)
-    f_disp = np.logspace(np.log10(band[0] / 30), np.log10(band[-1] * 30), 200)
-    mc = monte_carlo_rows(
-        topo,
-        rounded,
-        tols,
-        band,
-        sign=sign,
-        draws=n_draws,
+        tolerances=dict(tgt.tolerances),
+        draws=int(draws if draws is not None else tgt.draws),
         seed=tgt.seed,
         distribution=tgt.distribution,
-        rounded_response=rnd_b,
-        source_response=src_b,
-        opamp=model,
-        loop_f_hz=loop_f,
-        loop_margins=spec.margins if spec is not None else None,
-        loop_rounded=rnd_l,
-        loop_source=src_l,
-        display_f_hz=f_disp,
-        loop_count=loop_count_of(design.realized, case.plant) if case.plant is not None else None,
+        opamp_gbw_hz=tgt.opamp_gbw_hz,
+        plant=case.plant,
+        source_margins=src_margins,
+        reduction=case_reduction,
+        tick=tick,
     )
-    spread = ", ".join(f"{k} {v * 100:g} %" for k, v in tols.items())
-    rows["tolerances"] = bud.drawn_row(
-        "tolerances",
-        mc.figures["tolerances"],
-        note=f"{n_draws} draws ({tgt.distribution}) within ±tolerance ({spread}) around the rounded parts alone, "
-        f"ideal op-amp; seed {tgt.seed}",
-        reference_form=design.realized,
-        band_f_hz=band,
-    )
-    tick("Monte Carlo")
-    if not model.ideal:
-        g_b, g_l = both(lambda f: resp(nominal, f, model)[0])
-        rows["opamp_gbw"] = bud.error_row(
-            "opamp_gbw",
-            band,
-            nom_b,
-            g_b,
-            note=f"single-pole op-amp, GBW {_fmt_hz(model.gbw_hz)}, alone (computed parts)",
-            loop=spec,
-            loop_reference=nom_l,
-            loop_candidate=g_l,
-            evaluate=lambda f: (resp(nominal, f)[0], resp(nominal, f, model)[0]),
-        )
-    else:
-        rows["opamp_gbw"] = bud.not_applicable("opamp_gbw", "ideal op-amp (set target.circuit.opamp_gbw to check it)")
-    from convert.compare.stages import card_parasitics_row
+    budget = list(cb.rows)
+    topo, model, mc, tols, n_draws = design.topology, cb.opamp, cb.monte_carlo, dict(tgt.tolerances), cb.draws
+    nominal, rounded = design.nominal, design.rounded
 
-    rows.update(card_parasitics_row(case_reduction, band, spec, loop_f))
-    rows["total"] = bud.drawn_row(
-        "total",
-        mc.figures["total"],
-        note="everything on: filter, rounding, tolerances"
-        + (", op-amp GBW" if not model.ideal else "")
-        + "; against the source as the loop sees it",
-        reference_form=src,
-        band_f_hz=band,
-    )
-    budget = bud.assemble(rows, bud.CIRCUIT_ROWS, "circuit")
+    def resp(parts, f, opamp=None):
+        return circuit_response(design, parts, f, opamp)
 
     from convert.values import format_value
 

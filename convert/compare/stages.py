@@ -13,11 +13,14 @@ Plain data in, frozen :class:`convert.compare.budget.BudgetRow` out; nothing dra
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 
 from convert.compare import budget as bud
 from convert.compare.budget import BudgetRow
 from convert.compare.frequency import hold_and_delay_factor, response_seen_from_loop
+from convert.compare.circuitwork import loop_count_of, monte_carlo_rows
 from convert.compare.loop import margin_grid, margins_of_responses
 from convert.controller import Controller
 
@@ -168,6 +171,219 @@ def digital_budget(
         ),
     )
     return tuple(bud.assemble(rows, bud.DIGITAL_ROWS, "digital"))
+
+
+@dataclass(frozen=True)
+class CircuitBudget:
+    """What :func:`circuit_budget` returns: the ``rows`` (table order), the tolerance engine's
+    run (``monte_carlo``: :class:`convert.circuit.tolerance.ToleranceRun`, the percentiles and the
+    display band), the op-amp model used, the number of ``draws`` and the loop grid (Hz; None
+    without a plant)."""
+
+    rows: tuple[BudgetRow, ...]
+    monte_carlo: object
+    opamp: object
+    draws: int
+    loop_f_hz: np.ndarray | None = None
+
+    def row(self, key: str) -> BudgetRow:
+        """The row named ``key`` (e.g. "series_rounding", "tolerances", "opamp_gbw", "total")."""
+        return next(r for r in self.rows if r.key == key)
+
+
+def circuit_response(design, parts: dict, f_hz, opamp=None) -> np.ndarray:
+    """The response (1, F) of ``design``'s topology with ``parts`` (its own sign included) on
+    ``f_hz`` (Hz), with an ideal op-amp or the single-pole ``opamp`` model."""
+    from convert.circuit.opamp import gbw_response
+
+    arr = {k: np.atleast_1d(np.asarray(v, dtype=float)) for k, v in parts.items()}
+    if opamp is None or opamp.ideal:
+        r = design.topology.response(arr, f_hz)
+    else:
+        r = gbw_response(design.topology, arr, f_hz, opamp)
+    return design.sign * np.atleast_2d(r)
+
+
+def circuit_budget(
+    design,
+    source: Controller,
+    analog: Controller,
+    band: np.ndarray,
+    *,
+    tolerances: dict,
+    draws: int,
+    seed: int,
+    distribution: str,
+    opamp_gbw_hz: float | None = None,
+    plant=None,
+    source_margins=None,
+    reduction=None,
+    tick=None,
+) -> CircuitBudget:
+    """The error budget of one circuit design (:class:`convert.circuit.design.CircuitDesign`), as
+    ``loopshift report`` and ``loopshift circuit`` show it: rows ``source_hold`` (a digital
+    source), ``derivative_filter``, ``series_rounding``, ``tolerances`` (Monte Carlo, one run of
+    the tolerance engine with the ``total``), ``opamp_gbw``, ``card_parasitics`` (a card source)
+    and ``total`` (everything on, against ``source`` as the loop sees it).
+
+    ``analog``: the analog controller the circuit aims at (``source`` itself when analog);
+    ``band``: the band grid in Hz (:func:`convert.compare.frequency.log_grid`, 100 points per
+    decade); ``tolerances``: part kind or name -> fraction; ``draws``, ``seed``,
+    ``distribution``: the Monte Carlo; ``opamp_gbw_hz``: the single-pole op-amp model (None:
+    ideal); ``plant`` and ``source_margins`` (the source loop's
+    :class:`convert.compare.loop.Margins`): the margin changes and the unstable draws.
+    """
+    from convert.circuit.opamp import OpAmpModel
+
+    src, analog_src = source, analog
+    tick = tick or (lambda text: None)
+    topo = design.topology
+    n_draws = int(draws)
+    model = OpAmpModel(opamp_gbw_hz)
+
+    def resp(parts, f, opamp=None):
+        return circuit_response(design, parts, f, opamp)
+
+    nominal, rounded = design.nominal, design.rounded
+    loop_f = None
+    if plant is not None:
+        # around the source loop's crossovers: the draws move them by a few per cent at most
+        # (a figure may be absent: no crossover, or no interior sensitivity peak)
+        marks = [
+            x
+            for x in (
+                source_margins.crossover_hz,
+                source_margins.phase_crossover_hz,
+                source_margins.sensitivity_peak_hz,
+            )
+            if x
+        ]
+        lo = (source_margins.crossover_hz or min(marks, default=float(band[-1]))) / 30
+        hi = max(marks, default=float(band[-1])) * 30
+        loop_f = np.logspace(np.log10(lo), np.log10(hi), 320)
+    spec = (
+        bud.LoopSpec(loop_f, lambda r: margins_of_responses(loop_f, r, plant.model, plant.dead_time_s))
+        if plant
+        else None
+    )
+
+    def both(fn):
+        if loop_f is None:
+            return fn(band), None
+        out = fn(np.concatenate([band, loop_f]))  # one evaluation over both grids
+        return out[..., : band.size], out[..., band.size :]
+
+    src_b, src_l = both(lambda f: response_seen_from_loop(src, f, via="zpk"))
+    an_b, an_l = both(lambda f: analog_src.frequency_response(f, via="zpk"))
+    tgt_b, tgt_l = both(lambda f: design.target.frequency_response(f, via="zpk"))
+    nom_b, nom_l = both(lambda f: resp(nominal, f)[0])
+    rnd_b, rnd_l = both(lambda f: resp(rounded, f)[0])
+    rows = {}
+    if src.is_digital:  # the circuit aims at the analog equivalent: the source's own hold is a row of its own
+        rows["source_hold"] = bud.error_row(
+            "source_hold",
+            band,
+            src_b,
+            an_b,
+            forms=(src, analog_src),
+            note="the analog controller the circuit aims at against the digital source as the loop sees it "
+            "(C(e^jωT) with its zero-order hold), alone",
+            loop=spec,
+            loop_reference=src_l,
+            loop_candidate=an_l,
+            evaluate=lambda f: (
+                response_seen_from_loop(src, f, via="zpk"),
+                analog_src.frequency_response(f, via="zpk"),
+            ),
+        )
+    if design.filter_added is not None:
+        rows["derivative_filter"] = bud.error_row(
+            "derivative_filter",
+            band,
+            an_b,
+            tgt_b,
+            note="the derivative filter the circuit adds, alone (analog, exact)",
+            loop=spec,
+            loop_reference=an_l,
+            loop_candidate=tgt_l,
+            forms=(analog_src, design.target),
+            evaluate=lambda f: (
+                analog_src.frequency_response(f, via="zpk"),
+                design.target.frequency_response(f, via="zpk"),
+            ),
+        )
+    else:
+        rows["derivative_filter"] = bud.not_applicable("derivative_filter", "the source is proper; no filter added")
+    rows["series_rounding"] = bud.error_row(
+        "series_rounding",
+        band,
+        nom_b,
+        rnd_b,
+        note=f"parts rounded to {design.options.resistors}/{design.options.capacitors} alone: rounded against computed values, ideal op-amp",
+        loop=spec,
+        loop_reference=nom_l,
+        loop_candidate=rnd_l,
+        forms=(design.target, design.realized),
+        evaluate=lambda f: (resp(nominal, f)[0], resp(rounded, f)[0]),
+    )
+    tols = dict(tolerances)
+    f_disp = np.logspace(np.log10(band[0] / 30), np.log10(band[-1] * 30), 200)
+    mc = monte_carlo_rows(
+        topo,
+        rounded,
+        tols,
+        band,
+        sign=design.sign,
+        draws=n_draws,
+        seed=seed,
+        distribution=distribution,
+        rounded_response=rnd_b,
+        source_response=src_b,
+        opamp=model,
+        loop_f_hz=loop_f,
+        loop_margins=spec.margins if spec is not None else None,
+        loop_rounded=rnd_l,
+        loop_source=src_l,
+        display_f_hz=f_disp,
+        loop_count=loop_count_of(design.realized, plant) if plant is not None else None,
+    )
+    spread = ", ".join(f"{k} {v * 100:g} %" for k, v in tols.items())
+    rows["tolerances"] = bud.drawn_row(
+        "tolerances",
+        mc.figures["tolerances"],
+        note=f"{n_draws} draws ({distribution}) within ±tolerance ({spread}) around the rounded parts alone, "
+        f"ideal op-amp; seed {seed}",
+        reference_form=design.realized,
+        band_f_hz=band,
+    )
+    tick("Monte Carlo")
+    if not model.ideal:
+        g_b, g_l = both(lambda f: resp(nominal, f, model)[0])
+        rows["opamp_gbw"] = bud.error_row(
+            "opamp_gbw",
+            band,
+            nom_b,
+            g_b,
+            note=f"single-pole op-amp, GBW {fmt_hz(model.gbw_hz)}, alone (computed parts)",
+            loop=spec,
+            loop_reference=nom_l,
+            loop_candidate=g_l,
+            evaluate=lambda f: (resp(nominal, f)[0], resp(nominal, f, model)[0]),
+        )
+    else:
+        rows["opamp_gbw"] = bud.not_applicable("opamp_gbw", "ideal op-amp (set target.circuit.opamp_gbw to check it)")
+
+    rows.update(card_parasitics_row(reduction, band, spec, loop_f))
+    rows["total"] = bud.drawn_row(
+        "total",
+        mc.figures["total"],
+        note="everything on: filter, rounding, tolerances"
+        + (", op-amp GBW" if not model.ideal else "")
+        + "; against the source as the loop sees it",
+        reference_form=src,
+        band_f_hz=band,
+    )
+    return CircuitBudget(tuple(bud.assemble(rows, bud.CIRCUIT_ROWS, "circuit")), mc, model, n_draws, loop_f)
 
 
 def card_parasitics_row(reduction, band, spec=None, loop_f=None) -> dict:
