@@ -647,6 +647,7 @@ def error_sources(
     amplitude_v: float | None = None,
     rail_v: float | None = None,
     points_per_decade: int = 50,
+    run=None,
 ) -> dict:
     """Each error source alone, over the design's band, as plain numbers (dB, degrees, Hz).
 
@@ -656,7 +657,9 @@ def error_sources(
     over the band against the rounded parts, on the same band grid as ``loopshift report`` —, the
     0.5/99.5 % bands and design quantities, and worst-case corners; ``draws=0`` skips it; defaults
     from :mod:`convert.circuit.tolerance`), ``opamp`` (finite gain-bandwidth; output swing when an
-    amplitude and rail are given), and for two-input stages ``setpoint_path``.
+    amplitude and rail are given), and for two-input stages ``setpoint_path``. ``run``:
+    a :class:`convert.circuit.tolerance.ToleranceRun` already made for this design (the pipeline's
+    :func:`convert.compare.stages.circuit_budget` run), used instead of a second run.
     """
     from convert.circuit.opamp import OpAmpModel, gbw_response, swing_check
     from convert.circuit.tolerance import DEFAULT_TOLERANCES, worst_case
@@ -699,7 +702,7 @@ def error_sources(
         }
     tol = dict(DEFAULT_TOLERANCES if tolerances is None else tolerances)
     if draws != 0:
-        mc = tolerance_run(design, tol, draws=draws, seed=seed, distribution=distribution)
+        mc = run if run is not None else tolerance_run(design, tol, draws=draws, seed=seed, distribution=distribution)
         wc = worst_case(topo, design.rounded, tol, f)
         out["tolerance"] = {"monte_carlo": mc.summary(), "worst_case": wc.summary()}
     if opamp is not None and not opamp.ideal:

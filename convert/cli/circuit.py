@@ -53,6 +53,25 @@ def _bounded_only(errors: dict) -> dict:
     return errors
 
 
+def _figures_from_budget(errors: dict, budget) -> None:
+    """Put the pipeline's budget figures (:func:`convert.pipeline.circuit_budget`, the rows
+    ``loopshift report`` writes) into the documented ``errors`` fields, so the command shows one
+    figure per error source: rounding, derivative filter and op-amp maxima (dB, deg, Hz)."""
+    for section, key in (
+        ("rounding", "series_rounding"),
+        ("derivative_filter", "derivative_filter"),
+        ("opamp", "opamp_gbw"),
+    ):
+        row = budget.row(key)
+        target = errors.get(section, {}).get("response")
+        if not row.applicable or target is None:
+            continue
+        for name in ("max_gain_error_db", "max_gain_error_at_hz", "max_phase_error_deg", "max_phase_error_at_hz"):
+            target[name] = getattr(row, name)
+        target["unbounded_note"] = row.unbounded_note
+        target["band_hz"] = [float(budget.band_f_hz[0]), float(budget.band_f_hz[-1])]
+
+
 def add_parser(subparsers) -> argparse.ArgumentParser:
     from convert.cli.common import add_controller_input
 
@@ -328,8 +347,26 @@ def run(args, console) -> int:
         tolerances = parse_tolerances(args.tolerance, part_names=design.topology.part_names)
     import numpy as np
 
+    from convert.compare.frequency import log_grid
+    from convert.pipeline import circuit_budget
+
     # Overflow far from the corners shows up as a non-finite figure, refused just below.
     with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        # the figures are the pipeline's budget rows, the same stage `loopshift report` runs
+        grid = log_grid(design.band_hz[0], design.band_hz[1], 100)
+        budget = circuit_budget(
+            design,
+            controller,
+            design.target if controller.is_digital else controller,
+            grid,
+            tolerances=dict(tolerances),
+            draws=args.draws,
+            seed=args.seed,
+            distribution=args.distribution,
+            opamp_gbw_hz=None if opamp is None else opamp.gbw_hz,
+            display_f_hz=grid,
+            parameters=True,
+        )
         errors = error_sources(
             design,
             tolerances=tolerances,
@@ -339,7 +376,9 @@ def run(args, console) -> int:
             opamp=opamp,
             amplitude_v=amplitude,
             rail_v=rail,
+            run=budget.monte_carlo,
         )
+    _figures_from_budget(errors, budget)
     from convert.jsonable import non_finite_path
 
     bad = non_finite_path(_bounded_only(errors))
@@ -413,6 +452,7 @@ def run(args, console) -> int:
         "parts": parts,
         "candidates": [c.summary() for c in design.candidates],
         "errors": errors,
+        "budget": [row.as_dict() for row in budget.rows],
         "trims": [t.summary() for t in trims],
         "notes": design.notes,
         "written": written,
@@ -511,6 +551,13 @@ def _render(console, design, data) -> None:
             )
         )
         t2.add_row(f"output swing at {sw['amplitude_v']:g} V in", "", "", detail)
+    total = next(row for row in data["budget"] if row["key"] == "total")
+    t2.add_row(
+        "total, everything on" + (f" (p{total['percentile']:g} over the draws)" if total["percentile"] else ""),
+        _err(total["max_gain_error_db"], ".3f"),
+        _err(total["max_phase_error_deg"], ".2f"),
+        "against the controller as the loop sees it",
+    )
     console.print(t2)
     if "tolerance" in err:
         t3 = Table(title="design quantities across tolerances (Monte Carlo percentiles; worst case)")

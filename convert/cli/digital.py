@@ -126,6 +126,13 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     )
     add_signal_ranges(parser)
     parser.add_argument(
+        "--plant",
+        metavar="EXPR",
+        help="plant model in s: adds each method's loop margins (as `loopshift report` computes them), "
+        'e.g. --plant "0.5/(20s + 1)"',
+    )
+    parser.add_argument("--dead-time", metavar="S", help="plant dead time, e.g. --dead-time 1s (default 0)")
+    parser.add_argument(
         "--json",
         action="store_true",
         help="print a JSON list of results (method, fs_hz, b, a, prewarp_hz, errors, and the analog "
@@ -227,10 +234,16 @@ def run(args, console) -> int:
             phase_limit_deg=limits[1],
         )
     firmware = _firmware(args, survey)
+    plant = _plant(args)
+    stages = _pipeline_figures(controller, survey, firmware, args, plant)
     if args.json:
         out = []
         for row in survey.rows:
             item = row.summary()
+            budget, loop = stages[row.realization.method]
+            item["budget"] = [r.as_dict() for r in budget]
+            if loop is not None:
+                item["loop"] = loop.as_dict()
             item["structure"] = args.structure
             item["word_format"] = args.word_format
             item["firmware"] = firmware[row.realization.method].summary()
@@ -249,6 +262,59 @@ def run(args, console) -> int:
         return 0
     _render(console, survey, controller, firmware)
     return 0
+
+
+def _plant(args):
+    """The --plant/--dead-time plant, or None."""
+    from convert.errors import InputError
+    from convert.values import parse_value
+
+    dead = parse_value(args.dead_time, "second", field="--dead-time") if args.dead_time is not None else 0.0
+    if args.plant is None:
+        if args.dead_time is not None:
+            raise InputError("a dead time belongs to a plant; give --plant too", key="--dead-time")
+        return None
+    if dead < 0:
+        raise InputError(f"expected zero or a positive time, found {args.dead_time!r}", key="--dead-time")
+    from convert.pipeline import plant_from_words
+
+    return plant_from_words(args.plant, dead)
+
+
+def _pipeline_figures(controller, survey, firmware, args, plant) -> dict:
+    """Per method: the budget rows (the stage :func:`convert.pipeline.digital_budget`, the rows
+    `loopshift report` writes for the same rate and method) and, with a plant, the loop check
+    (:func:`convert.pipeline.loop_check`, margins and stability)."""
+    from convert.compare.frequency import comparison_grid
+    from convert.compare.stages import realized_controller
+    from convert.pipeline import digital_budget, loop_check
+
+    fs = survey.rows[0].realization.fs_hz
+    grid = comparison_grid(survey.band_hz, fs, 100)
+    note = f"derivative filter N = {survey.filter_n:g} added (filter time constant Td/N)" if survey.filter_n else None
+    out = {}
+    for row in survey.rows:
+        real = row.realization
+        fw = firmware[real.method]
+        budget = digital_budget(
+            controller,
+            controller,
+            survey.analog,
+            real,
+            fw,
+            grid,
+            delay_s=survey.delay_s,
+            structure=args.structure,
+            word_format=args.word_format,
+            filter_note=note,
+            plant=plant,
+        )
+        loop = None
+        if plant is not None:
+            stored = real.controller if fw.realized is None else realized_controller(fw.realized)
+            loop = loop_check(stored, plant.model, plant.dead_time_s, delay_s=survey.delay_s)
+        out[real.method] = (budget, loop)
+    return out
 
 
 def add_signal_ranges(parser) -> None:
@@ -303,7 +369,7 @@ def _firmware(args, survey) -> dict:
             f"{word.name} needs --input-range LOW HIGH (the error's range, in controller input units, scales the words)",
             key="--input-range",
         )
-    band = comparison_grid(survey.band_hz, survey.rows[0].realization.fs_hz, points_per_decade=20)
+    band = comparison_grid(survey.band_hz, survey.rows[0].realization.fs_hz, points_per_decade=100)
     out = {}
     with at(
         None,

@@ -167,6 +167,7 @@ def monte_carlo_rows(
     loop_source=None,
     display_f_hz=None,
     loop_count=None,
+    parameters=False,
 ):
     """The Monte Carlo a circuit budget needs, in one run of the tolerance engine: the
     ``tolerances`` comparison (draws, ideal op-amp, against the rounded parts) and the ``total``
@@ -193,7 +194,7 @@ def monte_carlo_rows(
         loop_margins=loop_margins,
         display_f_hz=display_f_hz,
         display_opamp=opamp,
-        parameters=False,
+        parameters=parameters,
         loop_count=loop_count,
     )
 

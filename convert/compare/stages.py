@@ -184,6 +184,7 @@ class CircuitBudget:
     monte_carlo: object
     opamp: object
     draws: int
+    band_f_hz: np.ndarray
     loop_f_hz: np.ndarray | None = None
 
     def row(self, key: str) -> BudgetRow:
@@ -219,6 +220,8 @@ def circuit_budget(
     source_margins=None,
     reduction=None,
     tick=None,
+    display_f_hz: np.ndarray | None = None,
+    parameters: bool = False,
 ) -> CircuitBudget:
     """The error budget of one circuit design (:class:`convert.circuit.design.CircuitDesign`), as
     ``loopshift report`` and ``loopshift circuit`` show it: rows ``source_hold`` (a digital
@@ -231,7 +234,11 @@ def circuit_budget(
     decade); ``tolerances``: part kind or name -> fraction; ``draws``, ``seed``,
     ``distribution``: the Monte Carlo; ``opamp_gbw_hz``: the single-pole op-amp model (None:
     ideal); ``plant`` and ``source_margins`` (the source loop's
-    :class:`convert.compare.loop.Margins`): the margin changes and the unstable draws.
+    :class:`convert.compare.loop.Margins`): the margin changes and the unstable draws;
+    ``display_f_hz`` (Hz): where the Monte Carlo gain/phase band is kept (default: the band
+    widened 30 times either side); ``parameters``: also the design quantities' percentiles.
+    ``draws=0`` leaves the tolerances out (row not applicable; the total is then the rounded parts
+    with the op-amp model against the source, one response).
     """
     from convert.circuit.opamp import OpAmpModel
 
@@ -327,35 +334,42 @@ def circuit_budget(
         evaluate=lambda f: (resp(nominal, f)[0], resp(rounded, f)[0]),
     )
     tols = dict(tolerances)
-    f_disp = np.logspace(np.log10(band[0] / 30), np.log10(band[-1] * 30), 200)
-    mc = monte_carlo_rows(
-        topo,
-        rounded,
-        tols,
-        band,
-        sign=design.sign,
-        draws=n_draws,
-        seed=seed,
-        distribution=distribution,
-        rounded_response=rnd_b,
-        source_response=src_b,
-        opamp=model,
-        loop_f_hz=loop_f,
-        loop_margins=spec.margins if spec is not None else None,
-        loop_rounded=rnd_l,
-        loop_source=src_l,
-        display_f_hz=f_disp,
-        loop_count=loop_count_of(design.realized, plant) if plant is not None else None,
+    f_disp = (
+        display_f_hz if display_f_hz is not None else np.logspace(np.log10(band[0] / 30), np.log10(band[-1] * 30), 200)
     )
-    spread = ", ".join(f"{k} {v * 100:g} %" for k, v in tols.items())
-    rows["tolerances"] = bud.drawn_row(
-        "tolerances",
-        mc.figures["tolerances"],
-        note=f"{n_draws} draws ({distribution}) within ±tolerance ({spread}) around the rounded parts alone, "
-        f"ideal op-amp; seed {seed}",
-        reference_form=design.realized,
-        band_f_hz=band,
-    )
+    mc = None
+    if n_draws:
+        mc = monte_carlo_rows(
+            topo,
+            rounded,
+            tols,
+            band,
+            sign=design.sign,
+            draws=n_draws,
+            seed=seed,
+            distribution=distribution,
+            rounded_response=rnd_b,
+            source_response=src_b,
+            opamp=model,
+            loop_f_hz=loop_f,
+            loop_margins=spec.margins if spec is not None else None,
+            loop_rounded=rnd_l,
+            loop_source=src_l,
+            display_f_hz=f_disp,
+            loop_count=loop_count_of(design.realized, plant) if plant is not None else None,
+            parameters=parameters,
+        )
+        spread = ", ".join(f"{k} {v * 100:g} %" for k, v in tols.items())
+        rows["tolerances"] = bud.drawn_row(
+            "tolerances",
+            mc.figures["tolerances"],
+            note=f"{n_draws} draws ({distribution}) within ±tolerance ({spread}) around the rounded parts alone, "
+            f"ideal op-amp; seed {seed}",
+            reference_form=design.realized,
+            band_f_hz=band,
+        )
+    else:
+        rows["tolerances"] = bud.not_applicable("tolerances", "no Monte Carlo draws asked for")
     tick("Monte Carlo")
     if not model.ideal:
         g_b, g_l = both(lambda f: resp(nominal, f, model)[0])
@@ -374,16 +388,31 @@ def circuit_budget(
         rows["opamp_gbw"] = bud.not_applicable("opamp_gbw", "ideal op-amp (set target.circuit.opamp_gbw to check it)")
 
     rows.update(card_parasitics_row(reduction, band, spec, loop_f))
-    rows["total"] = bud.drawn_row(
-        "total",
-        mc.figures["total"],
-        note="everything on: filter, rounding, tolerances"
+    total_note = (
+        "everything on: filter, rounding"
+        + (", tolerances" if mc is not None else "")
         + (", op-amp GBW" if not model.ideal else "")
-        + "; against the source as the loop sees it",
-        reference_form=src,
-        band_f_hz=band,
+        + "; against the source as the loop sees it"
     )
-    return CircuitBudget(tuple(bud.assemble(rows, bud.CIRCUIT_ROWS, "circuit")), mc, model, n_draws, loop_f)
+    if mc is not None:
+        rows["total"] = bud.drawn_row("total", mc.figures["total"], note=total_note, reference_form=src, band_f_hz=band)
+    else:
+        t_b, t_l = both(lambda f: resp(rounded, f, model)[0])
+        rows["total"] = bud.error_row(
+            "total",
+            band,
+            src_b,
+            t_b,
+            note=total_note,
+            loop=spec,
+            loop_reference=src_l,
+            loop_candidate=t_l,
+            forms=(src, None),
+            evaluate=lambda f: (response_seen_from_loop(src, f, via="zpk"), resp(rounded, f, model)[0]),
+        )
+    return CircuitBudget(
+        tuple(bud.assemble(rows, bud.CIRCUIT_ROWS, "circuit")), mc, model, n_draws, np.asarray(band), loop_f
+    )
 
 
 def card_parasitics_row(reduction, band, spec=None, loop_f=None) -> dict:
