@@ -64,20 +64,20 @@ def read_card(
     >>> round(card.pid.kp, 6), round(card.pid.ki, 6), card.pid.action  # the card inverts
     (2.0, 1.0, 'direct')
     """
-    from convert.circuit.card import analyze_card
     from convert.circuit.netlist import read_netlist, read_netlist_file
+    from convert.pipeline import read_card_source
 
     if isinstance(netlist, str) and "\n" in netlist:
         parsed = read_netlist(netlist, source="netlist")
     else:
         parsed = read_netlist_file(str(netlist))
-    return analyze_card(
+    return read_card_source(
         parsed,
         input=input,
         output=output,
         setpoint=setpoint,
         measurement=measurement,
-        with_sensitivities=sensitivities,
+        sensitivities=sensitivities,
         band_hz=band_hz,
         fs_hz=fs_hz,
     )

@@ -952,8 +952,8 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
             topology=src.data["topology"],
         )
     # netlist
-    from convert.circuit.card import analyze_card
     from convert.circuit.netlist import read_netlist
+    from convert.pipeline import read_card_source
 
     from convert.limits import read_input_text
 
@@ -967,13 +967,12 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
         if hint:
             raise InputError(f"input source {src.data['input']!r} not found in {file_path.name}; {hint}", key="input")
     fs = min(case.digital.fs_hz) if case is not None and case.digital else None
-    card = analyze_card(
+    card = read_card_source(  # the same reading as `loopshift card`
         net,
         input=src.data["input"],
         output=src.data["output"],
         setpoint=src.data["setpoint"],
         measurement=src.data["measurement"],
-        with_sensitivities=False,
         band_hz=tuple(case.criteria.band_hz) if case is not None else None,
         fs_hz=fs,
     )

@@ -168,8 +168,8 @@ def _rows(rows) -> list[dict]:
 
 
 def _from_netlist(args) -> dict:
-    from convert.circuit.card import analyze_card
     from convert.circuit.netlist import read_netlist_file
+    from convert.pipeline import read_card_source
 
     netlist = read_netlist_file(args.netlist)
     if (args.setpoint is None) != (args.measurement is None):
@@ -193,13 +193,13 @@ def _from_netlist(args) -> dict:
     from convert.cli.common import band_from_args, positive_value
 
     fs = None if args.fs is None else positive_value(args.fs, "hz", "--fs")
-    analysis = analyze_card(
+    analysis = read_card_source(  # the same reading as a case whose source is this netlist
         netlist,
         input=args.input,
         output=args.output,
         setpoint=args.setpoint,
         measurement=args.measurement,
-        with_sensitivities=not args.no_sensitivity,
+        sensitivities=not args.no_sensitivity,
         band_hz=band_from_args(args.band),
         fs_hz=fs,
     )

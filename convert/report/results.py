@@ -112,6 +112,7 @@ def results_dict(results) -> dict:
                 None if results.source.extra.get("reduction") is None else results.source.extra["reduction"].as_dict()
             ),
             "card_output_limits": results.source.extra.get("output_limits"),
+            "pid": None if results.source.pid is None else results.source.pid.table(),
         },
         "loop_check": {
             "plant": None
