@@ -42,7 +42,7 @@ _LAZY = {
     "case_from_dict": ("convert.case", "case_from_dict"),
     "evaluate": ("convert.api", "evaluate"),
     # the pipeline: one run from a case to a verdict, as typed results
-    "run_case": ("convert.pipeline", "run_case"),
+    "run_pipeline": ("convert.pipeline", "run_pipeline"),
     "PipelineResult": ("convert.pipeline", "PipelineResult"),
     "AnalogSource": ("convert.pipeline", "AnalogSource"),
     "PidSource": ("convert.pipeline", "PidSource"),

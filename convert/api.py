@@ -97,7 +97,9 @@ def evaluate(case, *, draws: int | None = None):
     -------
     convert.compare.evaluate.CaseResults
         ``.verdict.overall`` ("pass"/"fail"), ``.verdict.judgements``, ``.realizations`` (each
-        with ``.controller`` and its budget), ``.source_margins``, ``.exit_code``.
+        with ``.controller`` and its budget), ``.source_margins``, ``.exit_code``: what
+        :func:`convert.write_report` takes. The same run as typed frozen results:
+        :func:`convert.run_pipeline`.
 
     Examples
     --------
@@ -112,6 +114,6 @@ def evaluate(case, *, draws: int | None = None):
     >>> results.verdict.overall
     'pass'
     """
-    from convert.compare.evaluate import evaluate_case
+    from convert.pipeline import run_pipeline
 
-    return evaluate_case(case, draws=draws)
+    return run_pipeline(case, draws=draws).results

@@ -2,7 +2,7 @@
 
 case -> source (and targets) -> realizations -> comparisons -> loop checks -> budget -> verdict.
 
-:func:`run_case` runs the whole of it (what ``loopshift report``, ``batch`` and ``compare``
+:func:`run_pipeline` runs the whole of it (what ``loopshift report``, ``batch`` and ``compare``
 run); the commands that show one piece call the same stage functions, so one design gives one
 set of figures whatever command shows it:
 
@@ -45,7 +45,7 @@ __all__ = [
     "loop_check",
     "plant_from_words",
     "read_card_source",
-    "run_case",
+    "run_pipeline",
 ]
 
 
@@ -273,7 +273,7 @@ def _typed(r) -> _Result:
 
 @dataclass(frozen=True)
 class PipelineResult:
-    """Everything :func:`run_case` found. ``realizations`` in the case's order; ``verdict``
+    """Everything :func:`run_pipeline` found. ``realizations`` in the case's order; ``verdict``
     (:class:`convert.compare.verdict.Verdict`); ``source_loop`` the source's own loop check;
     ``results`` the same evaluation as the report writers take it
     (:class:`convert.compare.evaluate.CaseResults`: responses, figures' data, files)."""
@@ -295,7 +295,7 @@ class PipelineResult:
         return next(r for r in self.realizations if r.name == name)
 
 
-def run_case(case, *, draws: int | None = None, progress=None) -> PipelineResult:
+def run_pipeline(case, *, draws: int | None = None, progress=None) -> PipelineResult:
     """Run ``case`` (a :class:`convert.Case`) through the whole pipeline.
 
     Parameters
@@ -317,13 +317,13 @@ def run_case(case, *, draws: int | None = None, progress=None) -> PipelineResult
 
     Examples
     --------
-    >>> from convert import case_from_dict, run_case
+    >>> from convert import case_from_dict, run_pipeline
     >>> case = case_from_dict({
     ...     "source": {"expression": "2*(1 + 1/(30*s))"},
     ...     "target": {"digital": {"fs": "10 Hz", "methods": ["tustin"]}},
     ...     "plant": {"model": "0.5/(20*s + 1)", "dead_time": "1 s"},
     ...     "criteria": {"band": ["1 mHz", "0.1 Hz"], "max_gain_error_db": 0.5}}, name="tank")
-    >>> result = run_case(case)
+    >>> result = run_pipeline(case)
     >>> result.verdict.overall, type(result.source).__name__
     ('pass', 'AnalogSource')
     >>> firmware = result.realizations[0]

@@ -301,8 +301,8 @@ def test_card_command_and_report_read_the_same_controller(run_cli, tmp_path):
 
 
 # ------------------------------------------------------------------------------- python
-def test_run_case_gives_typed_results_the_report_writes():
-    """`run_case` from Python: frozen typed results whose figures are the report's."""
+def test_run_pipeline_gives_typed_results_the_report_writes():
+    """`run_pipeline` from Python: frozen typed results whose figures are the report's."""
     import dataclasses
 
     import convert
@@ -317,7 +317,7 @@ def test_run_case_gives_typed_results_the_report_writes():
         },
         name="boiler",
     )
-    result = convert.run_case(case)
+    result = convert.run_pipeline(case)
     assert isinstance(result.source, convert.PidSource) and result.source.settings.kp == 1.5
     (firmware,) = result.realizations
     assert isinstance(firmware, convert.DigitalResult) and firmware.method == "tustin" and firmware.fs_hz == 2.0

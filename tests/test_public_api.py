@@ -16,7 +16,7 @@ import pytest
 ROOT = Path(__file__).resolve().parent.parent
 
 
-@pytest.mark.parametrize("module", ["convert", "convert.api", "convert.case"])
+@pytest.mark.parametrize("module", ["convert", "convert.api", "convert.case", "convert.pipeline"])
 def test_docstring_examples_run(module):
     result = doctest.testmod(importlib.import_module(module), optionflags=doctest.ELLIPSIS)
     assert result.attempted > 0 and result.failed == 0, result

@@ -80,7 +80,8 @@ def run(args, console) -> int:
     from pathlib import Path
 
     from convert.case import load_case
-    from convert.compare.evaluate import evaluate_case, planned_steps
+    from convert.compare.evaluate import planned_steps
+    from convert.pipeline import run_pipeline
     from convert.report import write_report
     from convert.report.folder import check_destination
 
@@ -108,7 +109,7 @@ def run(args, console) -> int:
         def tick(text: str) -> None:
             progress.update(task, advance=1, description=text)
 
-        results = evaluate_case(case, draws=args.draws, progress=tick)
+        results = run_pipeline(case, draws=args.draws, progress=tick).results
         progress.update(task, description="writing the report")
         try:
             folder = write_report(results, out_dir, force=args.force)

@@ -129,12 +129,12 @@ def run_case(case_file: str, out_dir: str, *, force: bool = False, draws: int | 
     name = Path(case_file).stem
     try:
         from convert.case import load_case
-        from convert.compare.evaluate import evaluate_case
+        from convert.pipeline import run_pipeline
         from convert.report import write_report
 
         case = load_case(case_file)
         name = case.name
-        results = evaluate_case(case, draws=draws)
+        results = run_pipeline(case, draws=draws).results
         folder = write_report(results, Path(out_dir), force=force)
         worst = _worst_judgement(results.verdict.judgements)
         checked = sum(1 for j in results.verdict.judgements if j.status in ("pass", "fail"))
