@@ -330,3 +330,23 @@ def test_run_pipeline_gives_typed_results_the_report_writes():
     tf = firmware.to_control()
     assert tf.dt == 0.5
     assert result.verdict.overall == data["verdict"]
+
+
+# ------------------------------------------------------------------------------- results.json keys
+def test_results_json_keys_from_labels_and_names():
+    """Mappings keyed by display labels or by names become records: a label goes into ``label``
+    with a snake_case ``key``, a name into ``name``; snake_case mappings stay mappings."""
+    from convert.report.results import snake_case_keys
+
+    data = {
+        "effects": {"gain ×s^1 (low frequency)": 1.0, "zero 1 (Hz)": -0.5},
+        "parts": {"R1": {"value": 1e3, "series": "E96"}, "X1.C2": 1e-9},
+        "band_hz": [1.0, 2.0],
+    }
+    out = snake_case_keys(data)
+    assert out["band_hz"] == [1.0, 2.0]
+    assert out["effects"] == [
+        {"key": "gain_s_1_low_frequency", "label": "gain ×s^1 (low frequency)", "value": 1.0},
+        {"key": "zero_1_hz", "label": "zero 1 (Hz)", "value": -0.5},
+    ]
+    assert out["parts"] == [{"name": "R1", "value": 1e3, "series": "E96"}, {"name": "X1.C2", "value": 1e-9}]

@@ -126,6 +126,34 @@ def test_results_json_has_every_budget_row(reports, name):
     assert len(data["cautions"]) >= 4
 
 
+@pytest.mark.parametrize("name", list(EXPECTED))
+def test_results_json_schema_2(reports, name):
+    """results.json schema 2 (docs/report.md): a schema_version, every key snake_case (names and
+    labels as values in records), the budget once (top level, one entry per realization in order)."""
+    import re
+
+    data = json.loads((reports[name][2] / "results.json").read_text())
+    assert data["schema_version"] == 2
+    keys: list[str] = []
+
+    def walk(value):
+        if isinstance(value, dict):
+            keys.extend(value)
+            for v in value.values():
+                walk(v)
+        elif isinstance(value, list):
+            for v in value:
+                walk(v)
+
+    walk(data)
+    assert keys and [k for k in keys if not re.fullmatch(r"[a-z][a-z0-9_]*", k)] == []
+    assert [b["realization"] for b in data["budget"]] == [r["name"] for r in data["realizations"]]
+    assert all("budget" not in r for r in data["realizations"])
+    circuits = [r for r in data["realizations"] if r["form"] == "circuit" and "topology" in r["details"]]
+    for real in circuits:  # part names as values
+        assert all(re.fullmatch(r"[RC][0-9A-Za-z_.]*", rec["name"]) for rec in real["details"]["parts"])
+
+
 def test_failing_case_reports_the_failing_numbers(reports):
     code, text, folder = reports["slow_firmware_fails"]
     data = json.loads((folder / "results.json").read_text())

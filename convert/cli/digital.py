@@ -241,6 +241,7 @@ def run(args, console) -> int:
         for row in survey.rows:
             item = row.summary()
             budget, loop = stages[row.realization.method]
+            item["method_error"].update(_maxima(budget))
             item["budget"] = [r.as_dict() for r in budget]
             if loop is not None:
                 item["loop"] = loop.as_dict()
@@ -260,7 +261,7 @@ def run(args, console) -> int:
             out.append(item)
         emit_json(console, out)
         return 0
-    _render(console, survey, controller, firmware)
+    _render(console, survey, controller, firmware, {m: _maxima(b) for m, (b, _) in stages.items()})
     return 0
 
 
@@ -279,6 +280,15 @@ def _plant(args):
     from convert.pipeline import plant_from_words
 
     return plant_from_words(args.plant, dead)
+
+
+def _maxima(budget) -> dict:
+    """The method error's maxima as the pipeline's ``discretization`` row has them (grid-free:
+    refined on the continuous responses, the report's figure); the survey's grid figures rank
+    the methods and give the agreement limit."""
+    row = next(r for r in budget if r.key == "discretization")
+    names = ("max_gain_error_db", "max_gain_error_at_hz", "max_phase_error_deg", "max_phase_error_at_hz")
+    return {name: getattr(row, name) for name in names} | {"unbounded_note": row.unbounded_note}
 
 
 def _pipeline_figures(controller, survey, firmware, args, plant) -> dict:
@@ -429,7 +439,7 @@ def _coefs(values) -> str:
     return ", ".join(format(float(v), ".12g") for v in values)
 
 
-def _render(console, survey, source, firmware=None) -> None:
+def _render(console, survey, source, firmware=None, maxima=None) -> None:
     from rich import box
     from rich.table import Table
 
@@ -480,10 +490,14 @@ def _render(console, survey, source, firmware=None) -> None:
         label = m + ("\n(best)" if m == survey.best else "")
         if m == "tustin" and r.realization.prewarp_hz is not None:
             label += f"\nprewarp\n{_hz(r.realization.prewarp_hz)}"
+        e = (maxima or {}).get(m) or {
+            k: getattr(r.method_error, k)
+            for k in ("max_gain_error_db", "max_gain_error_at_hz", "max_phase_error_deg", "max_phase_error_at_hz")
+        }
         table.add_row(
             label,
-            f"{r.method_error.max_gain_error_db:.3g} dB\n@ {_hz(r.method_error.max_gain_error_at_hz)}",
-            f"{r.method_error.max_phase_error_deg:.3g}°\n@ {_hz(r.method_error.max_phase_error_at_hz)}",
+            f"{e['max_gain_error_db']:.3g} dB\n@ {_hz(e['max_gain_error_at_hz'])}",
+            f"{e['max_phase_error_deg']:.3g}°\n@ {_hz(e['max_phase_error_at_hz'])}",
             _hz(r.method_error.agreement_limit_hz),
             f"{r.loop_error.max_gain_error_db:.3g} dB\n{r.loop_error.max_phase_error_deg:.3g}°",
             _hz(r.loop_error.agreement_limit_hz),

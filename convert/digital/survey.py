@@ -131,7 +131,7 @@ def survey_methods(
         band_hz = default_band_hz(controller, fs_hz)
     f = comparison_grid(band_hz, fs_hz, points_per_decade)
     # the analog response and the hold-and-delay factor are the same for every method: once
-    analog = controller.frequency_response(f, via="zpk")
+    analog = controller.frequency_response(f)
     hold = hold_and_delay_factor(f, 1.0 / fs_hz, delay_s)
     rows = []
     for m in methods:
@@ -143,32 +143,13 @@ def survey_methods(
             match_at_hz=match_at_hz if m == "matched" else None,
             keep_delay=keep_delay if m == "matched" else False,
         )
-        cd = real.controller
-        digital = cd.frequency_response(f, via="zpk")
-        limits = dict(gain_limit_db=gain_limit_db, phase_limit_deg=phase_limit_deg, forms=(controller, cd))
+        digital = real.frequency_response(f)
         rows.append(
             MethodRow(
                 real,
-                # grid-free maxima, as the report's "discretization" row (the same comparison)
+                compare_responses(analog, digital, f, gain_limit_db=gain_limit_db, phase_limit_deg=phase_limit_deg),
                 compare_responses(
-                    analog,
-                    digital,
-                    f,
-                    evaluate=lambda x, c=cd: (
-                        controller.frequency_response(x, via="zpk"),
-                        c.frequency_response(x, via="zpk"),
-                    ),
-                    **limits,
-                ),
-                compare_responses(
-                    analog,
-                    digital * hold,
-                    f,
-                    evaluate=lambda x, c=cd: (
-                        controller.frequency_response(x, via="zpk"),
-                        c.frequency_response(x, via="zpk") * hold_and_delay_factor(x, 1.0 / fs_hz, delay_s),
-                    ),
-                    **limits,
+                    analog, digital * hold, f, gain_limit_db=gain_limit_db, phase_limit_deg=phase_limit_deg
                 ),
             )
         )
