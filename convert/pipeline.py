@@ -62,14 +62,30 @@ class _Source:
 
 @dataclass(frozen=True)
 class AnalogSource(_Source):
-    """An analog transfer function given as an expression."""
+    """An analog transfer function given as an expression (``controller``, from error to output).
+
+    Examples
+    --------
+    >>> from convert import AnalogSource, from_expression
+    >>> source = AnalogSource(from_expression("2*(1 + 1/(30*s))"))
+    >>> source.form, source.to_control().dt
+    ('analog', 0)
+    """
 
     form = "analog"
 
 
 @dataclass(frozen=True)
 class PidSource(_Source):
-    """PID settings (:class:`convert.PidSettings` in ``settings``)."""
+    """PID settings (:class:`convert.PidSettings` in ``settings``) and their ``controller``.
+
+    Examples
+    --------
+    >>> from convert import PidSource, pid_from_words
+    >>> pid = pid_from_words(["kc=2", "ti=30s"])
+    >>> PidSource(pid.to_controller(), settings=pid).settings.ki
+    0.0666...
+    """
 
     settings: Any = None
     form = "pid"
@@ -77,7 +93,15 @@ class PidSource(_Source):
 
 @dataclass(frozen=True)
 class DigitalSource(_Source):
-    """Firmware coefficients b/a at a sample rate (``controller.fs_hz``)."""
+    """Firmware coefficients b/a (ascending powers of z^-1, a0 = 1) at a sample rate
+    (``controller.fs_hz``, Hz).
+
+    Examples
+    --------
+    >>> from convert import Controller, DigitalSource
+    >>> DigitalSource(Controller.from_b_a([2.0033, -1.9967], [1, -1], 0.1)).controller.fs_hz
+    10.0
+    """
 
     form = "digital"
 
@@ -155,10 +179,20 @@ def read_card_source(
 @dataclass(frozen=True)
 class LoopCheck:
     """One controller in its loop with the plant: ``margins``
-    (:class:`convert.compare.loop.Margins`), ``stability``
+    (:class:`convert.compare.loop.Margins`: phase margin in degrees, gain margin and sensitivity
+    peak in dB, crossovers in Hz), ``stability``
     (:class:`convert.compare.stability.LoopStability`, None when it could not be decided), and
     the setpoint-step and load-disturbance responses (``step``, ``disturbance``; None when not
-    simulated)."""
+    simulated).
+
+    Examples
+    --------
+    >>> from convert import from_expression
+    >>> from convert.pipeline import loop_check
+    >>> check = loop_check(from_expression("2*(1 + 1/(30*s))"), from_expression("0.5/(20*s + 1)"), 1.0)
+    >>> round(check.margins.phase_margin_deg, 1), check.stability.stable
+    (99.2, True)
+    """
 
     margins: Any = None
     stability: Any = None
@@ -239,7 +273,22 @@ class DigitalResult(_Result):
 
 @dataclass(frozen=True)
 class CircuitResult(_Result):
-    """A circuit target built: its topology and rounded parts (ohm, farad)."""
+    """A circuit target built: its ``topology`` and rounded ``parts`` (ohm, farad), the budget
+    rows (``series_rounding``, ``tolerances``, ``opamp_gbw``, ``total``, ...).
+
+    Examples
+    --------
+    >>> from convert import case_from_dict, run_pipeline
+    >>> case = case_from_dict({
+    ...     "source": {"expression": "2*(1 + 1/(0.3*s))"},
+    ...     "target": {"circuit": {"resistors": "E24", "capacitors": "E6", "draws": 200}},
+    ...     "criteria": {"band": ["0.05 Hz", "20 Hz"], "max_gain_error_db": 1}}, name="pi")
+    >>> circuit = run_pipeline(case).realizations[0]
+    >>> type(circuit).__name__, circuit.topology, sorted(circuit.parts)
+    ('CircuitResult', 'pi-rc-feedback', ['C1', 'R1', 'R2'])
+    >>> circuit.row("tolerances").percentile
+    99.0
+    """
 
     form = "circuit"
 
