@@ -222,17 +222,24 @@ def loop_check(
     return LoopCheck(margins, stability)
 
 
-def plant_from_words(expression: str, dead_time_s: float = 0.0, *, where: str = "--plant"):
+def plant_from_words(
+    expression: str | None, dead_time_s: float = 0.0, *, where: str = "--plant", dead_where: str = "--dead-time"
+):
     """The plant of a loop check from an expression in s and a dead time (s), read and checked
-    as a case file's ``[plant]`` is; errors name ``where`` (the option the user typed)."""
+    as a case file's ``[plant]`` is; None without an expression (then a dead time is refused).
+    Errors name ``where`` / ``dead_where`` (what the user typed: an option, a field)."""
     from convert.case import _read_plant
     from convert.errors import InputError
     from convert.given import command_line_context
 
+    if expression is None:
+        if dead_time_s:
+            raise InputError("a dead time belongs to a plant; give --plant too", where=dead_where)
+        return None
     try:
         return _read_plant(command_line_context(where), {"plant": {"model": expression, "dead_time": dead_time_s}})
     except InputError as exc:
-        raise InputError(exc.message, where=where) from None
+        raise InputError(exc.message, where=dead_where if str(exc.key).endswith("dead_time") else where) from None
 
 
 # ----------------------------------------------------------------------------- realizations

@@ -285,17 +285,14 @@ def _margins_text(m) -> str:
 def _plant(args):
     """The --plant/--dead-time plant, or None."""
     from convert.errors import InputError
+    from convert.pipeline import plant_from_words
     from convert.values import parse_value
 
     dead = parse_value(args.dead_time, "second", field="--dead-time") if args.dead_time is not None else 0.0
-    if args.plant is None:
-        if args.dead_time is not None:
-            raise InputError("a dead time belongs to a plant; give --plant too", key="--dead-time")
-        return None
     if dead < 0:
         raise InputError(f"expected zero or a positive time, found {args.dead_time!r}", key="--dead-time")
-    from convert.pipeline import plant_from_words
-
+    if args.plant is None and args.dead_time is not None:
+        raise InputError("a dead time belongs to a plant; give --plant too", key="--dead-time")
     return plant_from_words(args.plant, dead)
 
 

@@ -21,7 +21,6 @@ import numpy as np
 
 from convert.case import Case, Criteria, Signals
 from convert.compare.frequency import ResponseError, compare_responses, log_grid, response_seen_from_loop
-from convert.errors import InputError
 
 #: Used when the caller sets no gain or phase limit (the agreement limits `digital` uses too).
 DEFAULT_GAIN_LIMIT_DB = 1.0
@@ -172,7 +171,7 @@ def compare_pair(
     errors default to :data:`DEFAULT_GAIN_LIMIT_DB` / :data:`DEFAULT_PHASE_LIMIT_DEG`)."""
     from convert.case import build_form
     from convert.compare.evaluate import evaluate_case
-    from convert.given import as_source, command_line_context, given_controller
+    from convert.given import as_source, given_controller
 
     source = as_source(a)
     a_ctrl = build_form(source).controller
@@ -185,18 +184,9 @@ def compare_pair(
             "band not given: a decade below the lowest corner of A and B to a decade above the highest"
             + (", below the Nyquist frequency" if a_ctrl.is_digital or b_ctrl.is_digital else "")
         )
-    plant = None
-    if plant_expression is not None:
-        from convert.case import _read_plant
+    from convert.pipeline import plant_from_words
 
-        ctx = command_line_context("--plant")
-        try:
-            plant = _read_plant(ctx, {"plant": {"model": plant_expression, "dead_time": dead_time_s}})
-        except InputError as exc:
-            where = "--dead-time" if str(exc.key).endswith("dead_time") else "--plant"
-            raise InputError(exc.message, where=where) from None
-    elif dead_time_s:
-        raise InputError("a dead time belongs to a plant; give --plant too", where="--dead-time")
+    plant = plant_from_words(plant_expression, dead_time_s)
     if band_default and plant is not None:
         band_hz, widened = _widen_to_loop(band_hz, a_ctrl, b_ctrl, plant)
         if widened:
