@@ -29,7 +29,7 @@ from convert.compare.loop import (
 )
 from convert.compare.rate import RateAdvice, advise
 from convert.compare.stability import LoopStability, loop_stability
-from convert.compare.stages import digital_budget, loop_spec
+from convert.compare.stages import digital_budget, loop_spec, realized_controller
 from convert.compare.stages import fmt_hz as _fmt_hz
 from convert.compare.verdict import LOOP_CRITERIA, Verdict, judge
 from convert.controller import Controller
@@ -533,7 +533,7 @@ def _digital_realizations(
             cd = real.controller
             warnings = list(real.warnings)
             firmware = _firmware(case, real, band)
-            cq = cd if firmware.realized is None else _realized_controller(firmware)
+            cq = cd if firmware.realized is None else realized_controller(firmware.realized)
             name = f"{method} @ {_fmt_hz(fs)}"
             budget = list(
                 digital_budget(
@@ -654,12 +654,6 @@ def _code_files(case, firmware, name: str, method: str) -> dict:
         ).items():
             files[f"{folder}/{fname}"] = text
     return files
-
-
-def _realized_controller(firmware):
-    from convert.digital.quantized import realized_controller
-
-    return realized_controller(firmware.realized)
 
 
 def _rate_advice(

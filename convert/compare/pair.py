@@ -2,7 +2,7 @@
 
 :func:`compare_pair` writes the comparison as an in-memory case (A is the source, B one given
 target, the plant and criteria from the caller) and runs the one pipeline
-(:func:`convert.compare.evaluate.evaluate_case`), so `loopshift compare` reports exactly the
+(:func:`convert.pipeline.run_pipeline`), so `loopshift compare` reports exactly the
 figures `loopshift report` would. On top it gives what a quick check shows: the gain and phase
 error at spot frequencies, the band where the two agree, and, for a digital B, the error of its
 coefficients alone (no hold, no delay).
@@ -170,7 +170,6 @@ def compare_pair(
     ``limits`` maps criterion keys of :class:`convert.case.Criteria` to limits (gain and phase
     errors default to :data:`DEFAULT_GAIN_LIMIT_DB` / :data:`DEFAULT_PHASE_LIMIT_DEG`)."""
     from convert.case import build_form
-    from convert.compare.evaluate import evaluate_case
     from convert.given import as_source, given_controller
 
     source = as_source(a)
@@ -184,7 +183,7 @@ def compare_pair(
             "band not given: a decade below the lowest corner of A and B to a decade above the highest"
             + (", below the Nyquist frequency" if a_ctrl.is_digital or b_ctrl.is_digital else "")
         )
-    from convert.pipeline import plant_from_words
+    from convert.pipeline import plant_from_words, run_pipeline
 
     plant = plant_from_words(plant_expression, dead_time_s)
     if band_default and plant is not None:
@@ -217,7 +216,7 @@ def compare_pair(
         given=(b,),
         places=places,
     )
-    results = evaluate_case(case, draws=draws)
+    results = run_pipeline(case, draws=draws).results
     r = results.realizations[0]
     band = results.band_f_hz
     ref = response_seen_from_loop(results.reference, band, via="zpk")
