@@ -717,12 +717,6 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
                     f"word_format {word} needs input_range, the error's range in "
                     "controller input units that scales the words, e.g. input_range = [-10, 10]",
                 )
-            if structure not in ("direct1", "sections"):
-                raise ctx.error(
-                    f"{key}.structure",
-                    f"word_format {word} is offered with structure direct1 or "
-                    f"sections (direct form I words), found {structure!r}",
-                )
         prewarp = ctx.value(dig, "prewarp", f"{key}.prewarp", "hz", None, positive=True, allow_zero=False)
         if prewarp is not None and prewarp >= min(fs) / 2:
             raise ctx.error(

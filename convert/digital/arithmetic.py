@@ -26,6 +26,10 @@ from convert.digital.fixedpoint import Realized
 
 
 def model_of(real: Realized):
+    if real.word.is_fixed and real.form != "df1":
+        from convert.digital.statewords import FixedStateModel
+
+        return FixedStateModel(real)
     return FixedModel(real) if real.word.is_fixed else FloatModel(real)
 
 

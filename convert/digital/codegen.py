@@ -55,7 +55,11 @@ def _header_comment(real: Realized, name: str, info: dict) -> list[str]:
             "Per section: exact products summed in the accumulator (cannot overflow by the coefficient shift),",
             "  then shifted right with rounding half up and saturated to the word.",
         ]
+        if real.form != "df1":
+            lines += _state_words_comment(real)
         for i, (s, sc) in enumerate(zip(real.sections, real.node_scales[1:])):
+            if real.form != "df1":
+                break
             lines.append(
                 f"  section {i + 1}: denominator words = a * 2^{s.shift}, numerator words = b * "
                 f"2^{s.shift + s.b_shift}, output full scale {sc:.10g}"
@@ -72,6 +76,22 @@ def _header_comment(real: Realized, name: str, info: dict) -> list[str]:
         lines.append(f"The integrating section saturates at +/-{real.node_scales[-1]:.10g} (its full scale).")
     lines.append("Difference equations per section: see the structure in docs/firmware.md.")
     return lines
+
+
+def _state_words_comment(real: Realized) -> list[str]:
+    """Header lines for direct2t/delta in fixed point: every state's full scale and the words."""
+    out = [
+        "  Every state s_k is a word with its own full scale (peak-gain bound from the input range);",
+        "  each update: one exact sum of products, then shifted right with rounding half up and saturated"
+        + ("; delta: s_k += (D-scaled words) * inputs." if real.form == "delta" else "."),
+    ]
+    for i, (s, sc, ss) in enumerate(zip(real.sections, real.node_scales[1:], real.state_scales), start=1):
+        states = ", ".join(f"{v:.10g}" for v in ss) or "none"
+        out.append(
+            f"  section {i}: words = value * 2^{s.shift} (input terms 2^(shift + extra bits), rounded to 2^{s.shift} "
+            f"first); output full scale {sc:.10g}; state full scales {states}"
+        )
+    return out
 
 
 def _state_fields(real: Realized) -> list[tuple[str, int]]:
@@ -151,6 +171,8 @@ def emit_c(real: Realized, name: str, *, source: str = "", method: str = "", lim
     c += ["}", "", f"{t} {name}_step({name}_state *st, {t} x)", "{", f"    {t} v = x;"]
     if w.is_fixed:
         c.append(f"    {w.accumulator_c_type} acc;")
+        if real.form != "df1":
+            c.append(f"    {t} y;")
     elif real.form == "df1":
         c.append(f"    {t} acc;")
     else:
@@ -173,6 +195,8 @@ def _c_section(real: Realized, i: int, s, name: str) -> list[str]:
     single = w.name == "float32"
     m = len(s.a) - 1
     out = [f"    /* section {i} */"]
+    if w.is_fixed and real.form != "df1":
+        return out + _c_state_words_section(real, i, s, name)
     if w.is_fixed:
         acc = w.accumulator_c_type
         b, a = s.b_int, s.a_int[1:]
@@ -227,6 +251,34 @@ def _float_section(real: Realized, i: int, s, lit, state, temp) -> list[tuple[st
     return ops
 
 
+def _c_state_words_section(real: Realized, i: int, s, name: str) -> list[str]:
+    """A ``direct2t``/``delta`` section on words (convert.digital.statewords.step_section):
+    each update one exact sum in the accumulator, shifted with rounding and saturated."""
+    acc = real.word.accumulator_c_type
+    m = len(s.p_int)
+    rs = f"{name}_round_shift"
+
+    def b_term(k: int) -> str:
+        e = s.b_shifts[k]
+        prod = f"({acc})({s.b_int[k]}) * v"
+        return f"{rs}({prod}, {e})" if e else prod
+
+    first = [f"+ {b_term(0)}"] + ([f"+ ({acc})({s.p_int[0]}) * st->s{i}_s[0]"] if m else [])
+    out = [f"    acc = {' '.join(first).lstrip('+ ')};", f"    y = {name}_saturate({rs}(acc, {s.shift}));"]
+    for k in range(m):
+        terms = []
+        if real.form == "delta":
+            terms.append(f"+ ({acc})({1 << s.shift}) * st->s{i}_s[{k}]")
+        terms.append(f"+ {b_term(k + 1)}")
+        terms.append(f"- ({acc})({s.a_int[k + 1]}) * y")
+        if k + 1 < m:
+            terms.append(f"+ ({acc})({s.p_int[k + 1]}) * st->s{i}_s[{k + 1}]")
+        out.append(f"    acc = {' '.join(terms).lstrip('+ ')};")
+        out.append(f"    st->s{i}_s[{k}] = {name}_saturate({rs}(acc, {s.shift}));")
+    out.append("    v = y;")
+    return out
+
+
 def _delta_value(real: Realized) -> float:
     import numpy as np
 
@@ -256,7 +308,13 @@ def _c_set_output(real: Realized, name: str) -> list[str]:
     s = real.sections[-1]
     m = len(s.a) - 1
     out = [f"void {name}_set_output({name}_state *st, {t} u)", "{", f"    {name}_reset(st);"]
-    if real.form == "df1":
+    if w.is_fixed and real.form != "df1":
+        acc = w.accumulator_c_type
+        out += [
+            f"    st->s{i}_s[{k}] = {name}_saturate({name}_round_shift(({acc})({c}) * u, {s.level_shift}));"
+            for k, c in enumerate(s.level_int)
+        ]
+    elif real.form == "df1":
         out += [f"    st->s{i}_y[{k}] = u;" for k in range(m)]
     elif real.form == "df2t":
         from convert.digital.arithmetic import level_factor

@@ -46,6 +46,10 @@ class StoredSection:
     a_int: tuple[int, ...] | None = None
     shift: int = 0
     b_shift: int = 0
+    p_int: tuple[int, ...] = ()
+    level_int: tuple[int, ...] = ()
+    b_shifts: tuple[int, ...] = ()
+    level_shift: int = 0
 
 
 @dataclass(frozen=True)
@@ -61,6 +65,8 @@ class Realized:
     output_level: float
     node_scales: tuple[float, ...] = ()
     node_bounds: tuple[float, ...] = ()
+    state_scales: tuple[tuple[float, ...], ...] = ()
+    state_bounds: tuple[tuple[float, ...], ...] = ()
 
     @property
     def structure(self) -> str:
@@ -161,18 +167,16 @@ def realize(
                 a = [1.0, -one_plus, one_plus - 1.0]
             secs.append(StoredSection(tuple(float(cast(v)) for v in s.b), tuple(a)))
         return Realized(layout, word, tuple(secs), r, u)
-    if layout.form not in ("df1",):
-        raise UnrealizableError(
-            f"{word.name} is offered for the direct-form-I structures (direct1, sections) only: {layout.structure} "
-            "keeps sums of products as states, which need more headroom than a word; use structure sections",
-            key="structure",
-        )
     if not input_range or not math.isfinite(r) or r <= 0:
         raise InputError(
             f"{word.name} needs the input range (largest |error|, in controller input units) to scale "
             "its words, e.g. input_range = [-10, 10]",
             key="input_range",
         )
+    if layout.form != "df1":
+        from convert.digital.statewords import realize_state_form
+
+        return realize_state_form(layout, word, r, u if output_level else None)
     gains = peak_gains(layout)
     scales = [r]
     bounds = []

@@ -349,6 +349,7 @@ def analyze(
     headroom = None
     if word.is_fixed:
         finite = [(s, bnd) for s, bnd in zip(real.node_scales[1:], bounds) if math.isfinite(bnd)]
+        finite += [(s, bnd) for ss, bb in zip(real.state_scales, real.state_bounds) for s, bnd in zip(ss, bb)]
         headroom = min((20 * math.log10(s / bnd) for s, bnd in finite if bnd > 0), default=None)
         if headroom is not None and headroom < 0:
             failures.append(f"overflow: a node's peak-gain bound is {-headroom:.3g} dB above its full scale")
@@ -359,18 +360,28 @@ def analyze(
 
     lc = lc_lsb = dead = None
     if word.is_fixed:
-        lc_lsb, lc, drift = _limit_cycles(real, layout, notes)
-        dead, at_section = _dead_band(real, layout)
+        if real.form == "df1":
+            lc_lsb, lc, drift = _limit_cycles(real, layout, notes)
+            dead, at_section = _dead_band(real, layout)
+            what = "holds any constant output up to"
+        else:
+            from convert.digital.statewords import limit_cycles
+
+            lc_lsb, lc, drift, at_section = limit_cycles(
+                real, layout, notes, LIMIT_CYCLE_TRIALS, LIMIT_CYCLE_SAMPLES, np.random.default_rng(12)
+            )
+            dead = lc_lsb / 2 ** (word.bits - 1) if at_section else None
+            what = "keeps an output (found by the search from random states) of"
         if dead is not None and dead > DEAD_BAND_LIMIT:
             failures.append(
-                f"dead band: section {at_section} holds any constant output up to {100 * dead:.3g} % of its full "
+                f"dead band: section {at_section} {what} {100 * dead:.3g} % of its full "
                 f"scale with zero input (rounding cancels the pull back; limit {100 * DEAD_BAND_LIMIT:g} %): a pole "
                 "too close to z = 1 for the word; use more bits or another structure"
             )
         for sec, moved in drift:
             failures.append(
                 f"integrator drift: section {sec} keeps moving by {moved} LSB per sample with zero input "
-                "(rounding sustains it); use structure sections"
+                f"(rounding sustains it); use structure {'delta' if real.structure == 'sections' else 'sections'}"
             )
 
     stall = stall_unchecked = None
@@ -701,8 +712,8 @@ def recommend(analyses: list[FormatAnalysis]) -> tuple[str | None, str]:
 
 
 def offered(structure: str, word: WordFormat) -> bool:
-    """Whether ``structure`` is built in ``word`` (fixed point: the direct-form-I structures)."""
-    return not word.is_fixed or structure in ("direct1", "sections")
+    """Whether ``structure`` is built in ``word`` (every structure, float and fixed point)."""
+    return True
 
 
 def choose(
