@@ -708,8 +708,11 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
                 _check_name(code_name, lang)
             except InputError as exc:
                 raise ctx.error(f"{key}.code_name", exc.message) from None
-        if "st" in langs and word in ("q15", "q31"):
-            raise ctx.error(f"{key}.code_languages", f"Structured Text is written in float64 or float32, not {word}")
+        if "st" in langs and word in ("q15", "q31") and structure not in ("direct2t", "delta"):
+            raise ctx.error(
+                f"{key}.code_languages",
+                f"Structured Text in {word} is written for the structures direct2t and delta, not {structure}",
+            )
         if word in ("q15", "q31"):
             if in_range is None:
                 raise ctx.error(

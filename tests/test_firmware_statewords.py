@@ -11,6 +11,7 @@ import pytest
 from convert.compare.frequency import log_grid
 from convert.controller import from_expression
 from convert.digital import discretize
+from convert.digital.codegen import emit
 from convert.digital.fixedpoint import realize
 from convert.digital.quantized import analyze, choose
 from convert.digital.structures import build_layout
@@ -187,3 +188,112 @@ def test_direct2t_fixed_integrator_failure_is_reported():
     g = analyze(real_d.roots, "delta", "q31", f, input_range=50, output_level=60)
     assert g.ok, g.failures
     assert g.realized.sections[-1].a == (1.0, 0.0)
+
+
+@pytest.mark.parametrize("structure", STATE_FORMS)
+@pytest.mark.parametrize("fmt", ["q15", "q31"])
+def test_structured_text_fixed_point_runs_like_the_model(structure, fmt):
+    """The emitted function block (INT/DINT words for Q15, DINT/LINT for Q31) is read by the
+    subset parser (tests/st_subset.py: strict typing, explicit conversions, IEC integer division
+    truncating toward zero, overflow of any intermediate is an error) and executed in Python on
+    the C test's vectors: the same words as the model, reset and tracking (bumpless) included."""
+    from tests.st_subset import FunctionBlock
+
+    real = _realize(PI_LEADLAG, 1000, structure, fmt)
+    (text,) = emit(real, "ctl", "st", source="test", method="tustin").values()
+    fb = FunctionBlock(text)
+    assert fb.name == "ctl" and fb.real is None and fb.word == ("INT" if fmt == "q15" else "DINT")
+    env = fb.instance()
+    model = real.model()
+    full = 1 << (real.word.bits - 1)
+    got, want = [], []
+    for c, v in _vectors(True, full - 1, np.random.default_rng(5)):
+        if c == "r":
+            fb.call(env, reset=True, track=False, x=0)
+            model.reset()
+            model.step_int(0)
+            continue
+        if c == "o":
+            fb.call(env, reset=False, track=True, track_value=int(v), x=0)
+            model.set_level_word(int(v))
+            model.step_int(0)
+            continue
+        got.append(fb.call(env, x=int(v), reset=False, track=False)["y"])
+        want.append(model.step_int(int(v)))
+    assert got == want and max(abs(v) for v in want) >= full - 1
+
+
+def test_structured_text_reader_refuses_mixed_integer_types():
+    """The subset reader's strict typing: an INT times a DINT without a conversion is refused,
+    and so is a narrowing conversion that overflows when run."""
+    from tests.st_subset import FunctionBlock, STError
+
+    head = "FUNCTION_BLOCK f VAR_INPUT x : INT; END_VAR VAR_OUTPUT y : INT; END_VAR VAR acc : DINT; END_VAR "
+    with pytest.raises(STError, match="conversion"):
+        FunctionBlock(head + "acc := DINT#3 * x; y := x; END_FUNCTION_BLOCK")
+    fb = FunctionBlock(head + "acc := DINT#3 * INT_TO_DINT(x); y := DINT_TO_INT(acc); END_FUNCTION_BLOCK")
+    assert fb.call(fb.instance(), x=1000)["y"] == 3000
+    with pytest.raises(STError, match="overflows"):
+        fb.call(fb.instance(), x=20000)
+
+
+def test_cli_writes_fixed_point_structured_text(run_cli, tmp_path):
+    """`loopshift code --lang st --format q31`: the recommendation is taken among the structures
+    the block is written for, the file passes the subset reader; a structure the block is not
+    written for is a one-line error naming --structure (exit 2), and nothing is written."""
+    from tests.st_subset import FunctionBlock
+
+    args = ("code", "1.5*(1+1/(4*s))*(0.5*s+1)/(0.05*s+1)", "--fs", "500Hz", "--format", "q31", "--lang", "st")
+    more = ("--input-range", "-2", "2", "--output-limits", "0", "100", "--input-resolution", "0.001")
+    r = run_cli(*args, *more, "--name", "tic", "--out", str(tmp_path))
+    assert r.code == 0, r.err
+    assert "structure used: delta" in r.out
+    fb = FunctionBlock((tmp_path / "tic.st").read_text())
+    assert fb.word == "DINT"
+    r = run_cli(*args, *more, "--structure", "sections", "--name", "t2", "--out", str(tmp_path / "x"))
+    assert r.code == 2 and "--structure" in r.err and len(r.err.strip().splitlines()) == 1
+    assert not (tmp_path / "x").exists()
+
+
+def test_case_file_fixed_point_delta_with_structured_text(tmp_path):
+    """A case's digital target in Q31 delta with C and Structured Text: the report folder
+    carries both (the realization passes its checks), and the verdict's firmware checks are
+    computed on the delta words."""
+    from convert.case import parse_case
+    from convert.compare.evaluate import evaluate_case
+    from convert.report import build_report
+
+    text = """
+[case]
+title = "Level loop, Q31 delta"
+
+[source]
+expression = "1.5*(1+1/(20*s))*(2*s+1)/(0.2*s+1)"
+
+[target.digital]
+fs = "20 Hz"
+methods = ["tustin"]
+word_format = "q31"
+structure = "delta"
+input_range = [-5, 5]
+output_limits = [0, 100]
+code_name = "lvl"
+code_languages = ["c", "st"]
+
+[plant]
+model = "0.5/(30s + 1)"
+
+[signals]
+setpoint_step = 1.0
+duration = "300 s"
+
+[criteria]
+band = ["1 mHz", "1 Hz"]
+max_gain_error_db = 1
+max_phase_error_deg = 10
+"""
+    res = evaluate_case(parse_case(text, tmp_path / "c.toml"))
+    checks = {j.criterion: j.status for j in res.verdict.judgements if j.criterion.startswith("firmware_")}
+    assert checks and all(v == "pass" for v in checks.values()), checks
+    names = sorted(n.rsplit("/", 1)[1] for n in build_report(res) if n.startswith("code/"))
+    assert names == ["lvl.c", "lvl.h", "lvl.st"]

@@ -32,8 +32,12 @@ examples:
   loopshift code --card card.cir --fs 5Hz --format float --output-limits -10 10 --name card --out fw/
 
 formats: double (C double / ST LREAL), float (C float / ST REAL), q15 (int16_t words, 32-bit
-accumulator), q31 (int32_t words, 64-bit accumulator); Structured Text takes double or float.
+accumulator), q31 (int32_t words, 64-bit accumulator); Structured Text takes double or float,
+and q15/q31 in the structures direct2t and delta (INT/DINT words).
 Details: docs/firmware.md"""
+
+#: Structured Text in fixed point: the structures whose words the block computes in INT/DINT/LINT.
+ST_FIXED_STRUCTURES = ("direct2t", "delta")
 
 FORMAT_WORDS = {
     "double": "float64",
@@ -202,9 +206,12 @@ def run(args, console) -> int:
     lang = str(args.lang).lower()
     if lang not in LANGUAGES:
         raise InputError(f"expected c or st, found {args.lang!r}", key="--lang")
-    if lang == "st" and word.startswith("q"):
+    st_fixed = lang == "st" and word.startswith("q")
+    if st_fixed and str(args.structure).lower() not in ST_FIXED_STRUCTURES + ("auto",):
         raise InputError(
-            "Structured Text is written in double (LREAL) or float (REAL); q15/q31 are for C", key="--format"
+            f"Structured Text in {args.fmt} is written for the structures direct2t and delta (integer words); "
+            f"{args.structure} in {args.fmt} is for C",
+            key="--structure",
         )
     if not args.out and not args.json:
         raise InputError("give --out DIR for the files (or --json to see the result only)", key="--out")
@@ -214,7 +221,9 @@ def run(args, console) -> int:
     )
     if word.startswith("q") and rng is None:
         raise InputError(
-            f"{args.fmt} needs --input-range LOW HIGH (the error's range scales the words)", key="--input-range"
+            f"{args.fmt}{' Structured Text' if st_fixed else ''} needs --input-range LOW HIGH (the error's range "
+            "scales the words)",
+            key="--input-range",
         )
     controller, source = _controller(args)
     lim = range_pair(args.output_limits, "--output-limits")
@@ -256,6 +265,7 @@ def run(args, console) -> int:
             input_range=max(map(abs, rng)) if rng else None,
             output_level=max(map(abs, lim)) if lim else None,
             input_resolution=resolution,
+            among=ST_FIXED_STRUCTURES if st_fixed else None,
         )
         if pick is not None and pick.stall_unchecked and lim is None:
             raise InputError(

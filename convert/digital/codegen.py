@@ -398,9 +398,13 @@ def emit_st(real: Realized, name: str, *, source: str = "", method: str = "", li
     """``{"NAME.st": text}``: an IEC 61131-3 function block (float64 as LREAL, float32 as REAL)."""
     _check_name(name, "st")
     w = real.word
+    if w.is_fixed and real.form != "df1":
+        return _emit_st_state_words(real, name, source=source, method=method, limits=limits)
     if w.is_fixed:
         raise InputError(
-            f"Structured Text is offered in float64 (LREAL) and float32 (REAL); {w.name} is for C", key="format"
+            f"Structured Text is offered in float64 (LREAL) and float32 (REAL), and in {w.name} for the "
+            f"structures direct2t and delta; {real.structure} in {w.name} is for C",
+            key="format",
         )
     single = w.name == "float32"
     ty = "REAL" if single else "LREAL"
@@ -472,3 +476,102 @@ def _st_set_output(real: Realized, single: bool) -> list[str]:
 def _st_section(real: Realized, i: int, s, single: bool) -> list[str]:
     ops = _float_section(real, i, s, lambda x: _st_real(x, single), lambda n, k: f"s{i}_{n}{k}", {"y": "yy"})
     return [f"{lhs} := {rhs};" for lhs, rhs in ops]
+
+
+# ----------------------------------------------------------------------------- Structured Text, fixed point
+ST_INT = {16: ("INT", "DINT"), 32: ("DINT", "LINT")}
+
+
+def _emit_st_state_words(real: Realized, name: str, *, source: str = "", method: str = "", limits=None):
+    """``{"NAME.st": text}`` for direct2t/delta in Q15 (INT words, DINT accumulator) or Q31 (DINT
+    words, LINT accumulator): the statements of :func:`convert.digital.statewords.step_section`.
+    Conversions are explicit (INT_TO_DINT, DINT_TO_INT, ...); the rounding shift is written as a
+    floor division built on IEC integer division, which truncates toward zero."""
+    w = real.word
+    word_t, acc_t = ST_INT[w.bits]
+    info = {"source": source, "method": method, "limits": limits}
+    names = [f"s{i}_s{k}" for i, s in enumerate(real.sections, start=1) for k in range(len(s.p_int))]
+    lines = (
+        ["(*"]
+        + [f" * {line}" for line in _header_comment(real, name, info)]
+        + [
+            f" * Words: {word_t} (the C int{w.bits}_t words), accumulator {acc_t}. Inputs: x (error word), reset (TRUE:",
+            " * clear the state), track (TRUE: hold the state at the output word track_value, for bumpless",
+            " * transfer; integrating controllers only). Output: y (output word).",
+            " *)",
+            f"FUNCTION_BLOCK {name}",
+            "VAR_INPUT",
+            f"    x : {word_t};",
+            "    reset : BOOL;",
+            "    track : BOOL;",
+            f"    track_value : {word_t};",
+            "END_VAR",
+            "VAR_OUTPUT",
+            f"    y : {word_t};",
+            "END_VAR",
+            "VAR",
+        ]
+        + [f"    {n} : {word_t};" for n in names]
+        + [f"    v : {word_t};", f"    yy : {word_t};", f"    acc : {acc_t};", f"    q : {acc_t};", "END_VAR", ""]
+    )
+
+    def lit(c: int) -> str:
+        return f"{acc_t}#{int(c)}"
+
+    def wide(var: str) -> str:
+        return f"{word_t}_TO_{acc_t}({var})"
+
+    def to_word(target: str, shift: int) -> list[str]:
+        """target := sat(floor((acc + 2^(shift-1)) / 2^shift))."""
+        return _st_floor_shift("acc", shift, lit) + [
+            f"IF q > {lit(w.word_max)} THEN q := {lit(w.word_max)}; END_IF;",
+            f"IF q < {lit(w.word_min)} THEN q := {lit(w.word_min)}; END_IF;",
+            f"{target} := {acc_t}_TO_{word_t}(q);",
+        ]
+
+    def b_term(s, k: int) -> list[str]:
+        """acc := the input term of update k (rounded down by its extra bits)."""
+        out = [f"acc := {lit(s.b_int[k])} * {wide('v')};"]
+        if s.b_shifts[k]:
+            out += _st_floor_shift("acc", s.b_shifts[k], lit) + ["acc := q;"]
+        return out
+
+    lines.append("IF reset THEN")
+    lines += [f"    {n} := {word_t}#0;" for n in names] or [f"    v := {word_t}#0;"]
+    lines.append("END_IF;")
+    if _integrating(real):
+        i = len(real.sections)
+        s = real.sections[-1]
+        lines += ["IF track THEN"] + [f"    {n} := {word_t}#0;" for n in names]
+        for k, c in enumerate(s.level_int):
+            lines += [f"    acc := {lit(c)} * {wide('track_value')};"]
+            lines += [f"    {x}" for x in to_word(f"s{i}_s{k}", s.level_shift)]
+        lines.append("END_IF;")
+    lines.append("v := x;")
+    for i, s in enumerate(real.sections, start=1):
+        m = len(s.p_int)
+        lines.append(f"(* section {i} *)")
+        lines += b_term(s, 0)
+        if m:
+            lines.append(f"acc := acc + {lit(s.p_int[0])} * {wide(f's{i}_s0')};")
+        lines += to_word("yy", s.shift)
+        for k in range(m):
+            lines += b_term(s, k + 1)
+            lines.append(f"acc := acc - {lit(s.a_int[k + 1])} * {wide('yy')};")
+            if k + 1 < m:
+                lines.append(f"acc := acc + {lit(s.p_int[k + 1])} * {wide(f's{i}_s{k + 1}')};")
+            if real.form == "delta":
+                lines.append(f"acc := acc + {lit(1 << s.shift)} * {wide(f's{i}_s{k}')};")
+            lines += to_word(f"s{i}_s{k}", s.shift)
+        lines.append("v := yy;")
+    lines += ["y := v;", "END_FUNCTION_BLOCK", ""]
+    return {f"{name}.st": "\n".join(lines)}
+
+
+def _st_floor_shift(var: str, shift: int, lit) -> list[str]:
+    """q := floor((var + 2^(shift-1)) / 2^shift) with IEC division (truncating toward zero)."""
+    d = lit(1 << shift)
+    return [
+        f"q := {var} + {lit(1 << (shift - 1))};",
+        f"IF q >= {lit(0)} THEN q := q / {d}; ELSE q := -((-(q + {lit(1)})) / {d}) - {lit(1)}; END_IF;",
+    ]

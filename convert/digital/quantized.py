@@ -717,13 +717,15 @@ def offered(structure: str, word: WordFormat) -> bool:
 
 
 def choose(
-    roots, word_format: str, band_f_hz, *, structure: str = "auto", b=None, a=None, **kw
+    roots, word_format: str, band_f_hz, *, structure: str = "auto", b=None, a=None, among=None, **kw
 ) -> tuple[FormatAnalysis | None, list[FormatAnalysis], str]:
     """The analysis of ``structure`` in ``word_format`` — or, for ``"auto"``, of the structure
     :func:`recommend` picks — with every offered structure's analysis and the reason in numbers.
+    ``among`` limits the structures considered (e.g. those a language is written for).
     Returns (chosen analysis or None when none is usable, all analyses, reason)."""
     word = get_format(word_format)
-    every = [analyze(roots, s, word, band_f_hz, b=b, a=a, **kw) for s in STRUCTURES if offered(s, word)]
+    names = [s for s in STRUCTURES if offered(s, word) and (among is None or s in among)]
+    every = [analyze(roots, s, word, band_f_hz, b=b, a=a, **kw) for s in names]
     best, why = recommend(every)
     if structure == "auto":
         pick = next((x for x in every if x.structure == best), None)
