@@ -56,6 +56,8 @@ SCHEMA: dict[str, Any] = {
             "input_resolution": 1,
             "code_name": 1,
             "code_languages": 1,
+            "input_signal": {"range": 1, "firmware": 1, "bits": 1, "converter": 1, "shunt": 1},
+            "output_signal": {"range": 1, "firmware": 1, "bits": 1, "converter": 1, "shunt": 1},
         },
         "circuit": {
             "topology": 1,
@@ -109,7 +111,9 @@ class DigitalTarget:
     ``structure`` (:data:`convert.digital.structures.STRUCTURES`) of the firmware arithmetic;
     ``input_range`` (low, high) of the controller input (the error) in its units, which scales
     fixed-point words and bounds overflow; ``input_resolution`` the smallest error the integral
-    must still act on (default: the input range / 2^15)."""
+    must still act on (default: the input range / 2^15). ``input_signal``/``output_signal``: the
+    card's signals mapped to firmware units (:func:`convert.digital.scaling.signal_map`); the
+    code is written for the controller rescaled to them."""
 
     fs_hz: tuple[float, ...]
     methods: tuple[str, ...]
@@ -125,6 +129,9 @@ class DigitalTarget:
     code_name: str = "controller"
     code_languages: tuple[str, ...] = ("c",)
     where: str = ""
+    input_signal: Any = None  # convert.digital.scaling.SignalMap: card input signal -> firmware units
+    output_signal: Any = None  # the same for the output
+    signal_text: tuple[str, ...] = ()  # one line per map, as read
 
     def delay_for(self, fs_hz: float) -> float:
         """Computation delay in seconds at the sample rate ``fs_hz``."""
@@ -727,7 +734,11 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
                 f"the prewarp frequency must be below fs/2 = {min(fs) / 2:.6g} Hz "
                 f"(of the lowest rate), found {dig['prewarp']!r}",
             )
+        maps, signal_text = _read_signal_maps(ctx, dig, key, source)
         digital = DigitalTarget(
+            input_signal=maps[0],
+            output_signal=maps[1],
+            signal_text=signal_text,
             fs_hz=fs,
             methods=methods,
             prewarp_hz=prewarp,
@@ -802,6 +813,26 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
     if source.form == "digital" and digital is not None and circuit is None:
         pass  # a digital source moved to another rate or method is allowed
     return digital, circuit
+
+
+def _read_signal_maps(ctx: _Ctx, dig: dict, key: str, source) -> tuple[list, tuple[str, ...]]:
+    """``input_signal`` / ``output_signal`` sub-tables of the digital target: (maps, text lines)."""
+    from convert.digital.scaling import signal_map
+
+    maps, text = [], []
+    for side in ("input_signal", "output_signal"):
+        table = ctx.table(dig, side, f"{key}.{side}")
+        if table is None:
+            maps.append(None)
+            continue
+        ctx.check_keys(table, SCHEMA["target"]["digital"][side], f"{key}.{side}")
+        try:
+            m, line = signal_map(table, f"{key}.{side}", card_volts=source.form in ("card", "netlist"))
+        except InputError as exc:
+            raise InputError(exc.message, where=ctx.where(exc.key or f"{key}.{side}"), key=exc.key) from None
+        maps.append(m)
+        text.append(f"{side.split('_')[0]}: {line}")
+    return maps, tuple(text)
 
 
 def _read_plant(ctx: _Ctx, data: dict) -> Plant | None:
@@ -1037,7 +1068,11 @@ def case_summary(case: Case) -> dict:
         "criteria": case.criteria.as_dict(),
     }
     if case.digital:
-        out["targets"]["digital"] = {k: v for k, v in case.digital.__dict__.items() if k != "where"}
+        out["targets"]["digital"] = {
+            k: (v.__dict__ if k in ("input_signal", "output_signal") and v is not None else v)
+            for k, v in case.digital.__dict__.items()
+            if k != "where"
+        }
     if case.circuit:
         out["targets"]["circuit"] = {k: v for k, v in case.circuit.__dict__.items() if k != "where"}
     if case.given:

@@ -533,6 +533,7 @@ def _digital_realizations(
             cd = real.controller
             warnings = list(real.warnings)
             firmware = _firmware(case, real, band)
+            scaled = _signal_scaling(case, filtered, real, band, firmware, firmware_output_limits(case, card_limits))
             cq = cd if firmware.realized is None else realized_controller(firmware.realized)
             name = f"{method} @ {_fmt_hz(fs)}"
             budget = list(
@@ -560,7 +561,13 @@ def _digital_realizations(
                 "a": list(cq.a),
                 "word_format": tgt.word_format,
                 "structure": tgt.structure,
-                "firmware": {**firmware.summary(), "checks": firmware.checks()},
+                "firmware": {
+                    **firmware.summary(),
+                    "checks": firmware.checks() + ([scaled["check"]] if scaled else []),
+                },
+                "signal_scaling": {k: v for k, v in scaled.items() if k not in ("analysis", "check")}
+                if scaled
+                else None,
                 "difference_equation": getattr(real, "difference_equation", ""),
                 "notes": list(getattr(real, "notes", ())),
                 "output_limits": firmware_output_limits(case, card_limits),
@@ -573,7 +580,7 @@ def _digital_realizations(
                 budget=budget,
                 seen=lambda f, c=cq, d=delay: response_seen_from_loop(c, f, delay_s=d, via="zpk"),
                 warnings=warnings,
-                files=_code_files(case, firmware, name, method),
+                files=_code_files(case, firmware, name, method, scaled),
             )
             if case.plant is not None:
                 r.margins = loop_margins(cq, case.plant.model, case.plant.dead_time_s, delay_s=delay)
@@ -634,11 +641,16 @@ def _withhold_failing_code(realizations, verdict) -> None:
             r.warnings.append("code not written: this realization fails the verdict (see the failures)")
 
 
-def _code_files(case, firmware, name: str, method: str) -> dict:
+def _code_files(case, firmware, name: str, method: str, scaled=None) -> dict:
     """The generated code of a realization that passes its firmware checks, under
     ``code/<realization>/`` (none for a failing one, nor for one whose stall is undecided: code
-    that must not run, or that was not shown to run, is not handed out)."""
+    that must not run, or that was not shown to run, is not handed out). With signal maps, the
+    code is that of the controller rescaled to firmware units."""
     if not firmware.ok or firmware.stall_unchecked:
+        return {}
+    if scaled is not None and (
+        not scaled["analysis"].ok or scaled["analysis"].stall_unchecked or scaled["check"]["status"] != "pass"
+    ):
         return {}
     import re
 
@@ -647,13 +659,120 @@ def _code_files(case, firmware, name: str, method: str) -> dict:
     tgt = case.digital
     folder = "code/" + re.sub(r"[^A-Za-z0-9]+", "-", name).strip("-").lower()
     limits = tgt.output_limits or case.signals.output_range
+    realized = firmware.realized
+    source = case.title or "case source"
+    if scaled is not None:
+        realized, limits = scaled["analysis"].realized, scaled["output_limits"]
+        source = f"{source}; in firmware units: {scaled['text']}; {scaled['gains']}"
     files = {}
     for lang in tgt.code_languages:
-        for fname, text in emit(
-            firmware.realized, tgt.code_name, lang, source=case.title or "case source", method=method, limits=limits
-        ).items():
+        for fname, text in emit(realized, tgt.code_name, lang, source=source, method=method, limits=limits).items():
             files[f"{folder}/{fname}"] = text
     return files
+
+
+def _signal_scaling(case, analog, real, band, firmware, limits):
+    """The controller rescaled from the card's signals to firmware units (the target's
+    ``input_signal``/``output_signal``, convert.digital.scaling): its analysis in the same
+    structure and word format, the scaled gains, the output limits in firmware units, and the
+    end-to-end direction check (a constant error through the card-unit model and, mapped, through
+    the firmware model, mapped back). None without maps."""
+    from dataclasses import replace
+
+    from convert.digital import scaling as sg
+    from convert.digital.quantized import analyze
+
+    tgt = case.digital
+    if firmware.realized is None or (tgt.input_signal is None and tgt.output_signal is None):
+        return None
+    sc = sg.scaling(tgt.input_signal, tgt.output_signal)
+    k_in, k_out = abs(sg.slope(tgt.input_signal)), abs(sg.slope(tgt.output_signal))
+    lim_fw = None
+    if limits:
+        ends = sorted(sg.map_value(tgt.output_signal, v) for v in limits)
+        lim_fw = (ends[0], ends[1])
+    try:
+        fw = analyze(
+            replace(real.roots, gain=real.roots.gain * sc.gain),
+            tgt.structure,
+            tgt.word_format,
+            band,
+            b=[sc.gain * v for v in real.b],
+            a=real.a,
+            input_range=firmware.input_range * k_in,
+            output_level=max(abs(lim_fw[0]), abs(lim_fw[1])) if lim_fw else firmware.output_level * k_out,
+            input_resolution=firmware.stall_limit * k_in,
+            response_limits=(case.criteria.max_gain_error_db, case.criteria.max_phase_error_deg),
+        )
+    except LoopshiftError as exc:
+        raise type(exc)(exc.message, where=case.where("target.digital"), key="target.digital") from None
+    sign = float(np.sign(np.real(real.roots.frequency_response(np.array([band[0]]))[0]))) or 1.0
+    gains = _scaled_gains(analog, sc, band)
+    card_action, fw_action = sg.action(sign), sg.action(sign * sc.gain)
+    check = {
+        "key": "firmware_direction",
+        "label": "signal scaling keeps the controller's action end to end",
+        "unit": "card output units",
+        "limit": None,
+        "value": None,
+        "status": "fail",
+        "note": f"{tgt.structure} in {tgt.word_format} cannot be built in firmware units: {fw.refused}",
+    }
+    if fw.realized is not None:
+        card_m, fw_m = firmware.realized.model(), fw.realized.model()
+        e = 0.25 * firmware.input_range
+        u_card, u_back, diff = sg.end_to_end(card_m.step, fw_m.step, tgt.input_signal, tgt.output_signal, e)
+        lsb = (
+            firmware.realized.node_scales[-1] / 2 ** (firmware.realized.word.bits - 1)
+            if firmware.realized.word.is_fixed
+            else abs(u_card) * 2.0 ** -(firmware.realized.word.mantissa_bits - 8)
+        )
+        # the two realizations are quantized and rounded separately: agreement within 0.1 % (plus
+        # 4 output LSB) shows sign and gain; a missed flip or factor is far outside it
+        tol = 4 * lsb + 1e-3 * abs(u_card)
+        ok = np.sign(u_card) == np.sign(u_back) and diff <= tol
+        check.update(
+            value=diff,
+            limit=tol,
+            status="pass" if ok else "fail",
+            note=f"a constant error of {e:.4g} for 32 samples: the card-unit model gives {u_card:.6g}, the "
+            f"firmware code mapped back {u_back:.6g} (agree within 0.1 %); card {card_action} acting, firmware {fw_action} acting in "
+            "firmware units",
+        )
+    return {
+        "text": sc.text + "; " + "; ".join(tgt.signal_text),
+        "gain": sc.gain,
+        "inverted": sc.inverted,
+        "card_action": card_action,
+        "firmware_action": fw_action,
+        "gains": gains,
+        "input_range": firmware.input_range * k_in,
+        "output_limits": lim_fw,
+        "ok": fw.ok,
+        "failures": list(fw.failures) + ([fw.refused] if fw.refused else []),
+        "analysis": fw,
+        "check": check,
+    }
+
+
+def _scaled_gains(analog, sc, band) -> str:
+    """The gains in firmware units: PID settings when the controller is a PID, else its gain
+    at the band's ends."""
+    from convert.digital.scaling import scale_pid
+    from convert.pid import pid_from_controller
+
+    try:
+        pid = pid_from_controller(analog) if not analog.is_digital else None
+    except LoopshiftError:
+        pid = None
+    if pid is not None:
+        p = scale_pid(pid, sc)
+        return f"scaled gains kp = {p.kp:.6g}, ki = {p.ki:.6g} 1/s, kd = {p.kd:.6g} s, {p.action} acting"
+    resp = sc.gain * analog.frequency_response(np.array([band[0], band[-1]]))
+    return (
+        f"scaled gain × {sc.gain:.6g}: {abs(resp[0]):.6g} at {band[0]:.4g} Hz, {abs(resp[1]):.6g} at "
+        f"{band[-1]:.4g} Hz (firmware units out per firmware unit in)"
+    )
 
 
 def _rate_advice(

@@ -98,3 +98,143 @@ def scale_pid(settings, sc: Scaling):
 
 def _fmt(x: float) -> str:
     return format(x, ".6g")
+
+
+# ----------------------------------------------------------------------------- signals in case files
+#: Keys of a signal table (``[target.digital.input_signal]`` / ``output_signal``).
+SIGNAL_KEYS = ("range", "firmware", "bits", "converter", "shunt")
+MAX_CONVERTER_BITS = 32
+
+
+def _signal_value(raw, key: str) -> tuple[float, str]:
+    """A signal value with its unit: volts or amperes (convert.values), e.g. "4 mA", "-10 V"."""
+    from convert.values import parse_value
+
+    for kind in ("volt", "ampere"):
+        try:
+            return parse_value(raw, kind, field=key), kind
+        except InputError:
+            continue
+    raise InputError(f'expected a voltage or a current with its unit (e.g. "4 mA", "-10 V"), found {raw!r}', key=key)
+
+
+def _signal_pair(raw, key: str) -> tuple[float, float, str]:
+    if not isinstance(raw, list) or len(raw) != 2:
+        raise InputError(f'expected [low, high] with units, e.g. ["4 mA", "20 mA"], found {raw!r}', key=key)
+    (lo, u1), (hi, u2) = _signal_value(raw[0], key), _signal_value(raw[1], key)
+    if u1 != u2:
+        raise InputError(f"both ends need the same unit (volts or amperes), found {raw!r}", key=key)
+    if not lo < hi:
+        raise InputError(
+            f"expected low < high, found {raw!r} (an inverted map goes into firmware, e.g. firmware = [100, 0])",
+            key=key,
+        )
+    return lo, hi, u1
+
+
+def signal_map(raw: dict, dotted: str, *, card_volts: bool) -> tuple[SignalMap, str]:
+    """A :class:`SignalMap` from a case file's signal table (see docs/case-files.md): ``range``
+    the signal at the card (volts or amperes); ``shunt`` the resistance that turns a current
+    signal into the card's volts; the firmware values at the range's ends either as ``firmware``
+    (engineering units, percent; may be inverted) or from a converter: ``bits`` and ``converter``
+    (its span, default the signal's span at the converter). ``card_volts``: the controller works
+    in volts (a card or netlist source), so a current range needs a shunt. Returns the map (in
+    controller units) and a one-line description. Errors name ``dotted.key``."""
+    from convert.values import parse_value
+
+    def err(key: str, msg: str) -> InputError:
+        return InputError(msg, key=f"{dotted}.{key}")
+
+    if "range" not in raw:
+        raise err("range", 'give the signal range at the card, e.g. range = ["4 mA", "20 mA"] or ["-10 V", "10 V"]')
+    lo, hi, unit = _signal_pair(raw["range"], f"{dotted}.range")
+    shunt = None
+    if "shunt" in raw:
+        shunt = parse_value(raw["shunt"], "ohm", field=f"{dotted}.shunt")
+        if not shunt > 0:
+            raise err("shunt", f"expected a positive resistance, found {raw['shunt']!r}")
+        if unit != "ampere":
+            raise err("shunt", "a shunt turns a current signal into volts; this range is already in volts")
+    ctl_lo, ctl_hi, ctl_unit = (lo * shunt, hi * shunt, "volt") if shunt else (lo, hi, unit)
+    if ctl_unit == "ampere" and card_volts:
+        raise err(
+            "range",
+            f"a current range ({_fmt(lo * 1e3)} .. {_fmt(hi * 1e3)} mA) for the card's voltage input: give "
+            'shunt (e.g. shunt = "250 ohm") or the volts at the card',
+        )
+    sym = "V" if ctl_unit == "volt" else "A"
+    if "firmware" in raw and "bits" in raw:
+        raise err("bits", "give firmware = [LOW, HIGH] or bits (a converter), not both")
+    if "firmware" in raw:
+        fw = raw["firmware"]
+        if not isinstance(fw, list) or len(fw) != 2:
+            raise err("firmware", f"expected [value at low end, value at high end], found {fw!r}")
+        f_lo, f_hi = (parse_value(v, "number", field=f"{dotted}.firmware") for v in fw)
+        if f_lo == f_hi:
+            raise err("firmware", f"the two ends need different firmware values, found {fw!r}")
+        how = f"firmware {_fmt(f_lo)} .. {_fmt(f_hi)}"
+    elif "bits" in raw:
+        bits = raw["bits"]
+        if isinstance(bits, bool) or not isinstance(bits, int) or not 1 <= bits <= MAX_CONVERTER_BITS:
+            raise err(
+                "bits", f"expected a whole number of converter bits from 1 to {MAX_CONVERTER_BITS}, found {bits!r}"
+            )
+        if "converter" in raw:
+            c_lo, c_hi, c_unit = _signal_pair(raw["converter"], f"{dotted}.converter")
+        else:
+            c_lo, c_hi, c_unit = ctl_lo, ctl_hi, ctl_unit
+        if c_unit != ctl_unit:
+            have = "a current" if ctl_unit == "ampere" else "a voltage"
+            raise err(
+                "converter",
+                f"{have} signal for a converter whose range is in {'volts' if c_unit == 'volt' else 'amperes'}"
+                + (': give shunt (e.g. shunt = "250 ohm")' if ctl_unit == "ampere" else ""),
+            )
+        tol = 1e-9 * (c_hi - c_lo)
+        if ctl_lo < c_lo - tol or ctl_hi > c_hi + tol:
+            raise err(
+                "converter",
+                f"the signal ({_fmt(ctl_lo)} .. {_fmt(ctl_hi)} {sym}) goes beyond the converter's range "
+                f"({_fmt(c_lo)} .. {_fmt(c_hi)} {sym}): it would clip",
+            )
+        top = (1 << bits) - 1
+        f_lo = top * (ctl_lo - c_lo) / (c_hi - c_lo)
+        f_hi = top * (ctl_hi - c_lo) / (c_hi - c_lo)
+        how = f"{bits}-bit converter over {_fmt(c_lo)} .. {_fmt(c_hi)} {sym}: counts {_fmt(f_lo)} .. {_fmt(f_hi)}"
+    else:
+        raise err("firmware", "give firmware = [LOW, HIGH] (values at the range's ends) or bits = N (a converter)")
+    shown = f"{_fmt(lo * 1e3)} .. {_fmt(hi * 1e3)} mA" if unit == "ampere" else f"{_fmt(lo)} .. {_fmt(hi)} V"
+    if shunt:
+        shown += f" across {_fmt(shunt)} ohm = {_fmt(ctl_lo)} .. {_fmt(ctl_hi)} V"
+    return SignalMap(ctl_lo, ctl_hi, f_lo, f_hi), f"{shown} -> {how}"
+
+
+def map_value(m: SignalMap | None, v: float) -> float:
+    """An absolute signal value (controller units) in firmware units (offsets included)."""
+    return v if m is None else m.firmware_low + (v - m.signal_low) * m.firmware_per_signal
+
+
+def slope(m: SignalMap | None) -> float:
+    """Firmware units per controller unit (1 without a map)."""
+    return 1.0 if m is None else m.firmware_per_signal
+
+
+def action(sign: float) -> str:
+    """A controller acting on the error e = setpoint − measurement with a positive gain is
+    reverse acting (output falls as the measurement rises); negative: direct acting."""
+    return "reverse" if sign > 0 else "direct"
+
+
+def end_to_end(card_step, firmware_step, input_map, output_map, e: float, n: int = 32) -> tuple[float, float, float]:
+    """The direction check through the maps: a constant error ``e`` (controller units) for ``n``
+    samples into the card-unit model (``card_step(e) -> u``) and, mapped into firmware units, into
+    the firmware model (``firmware_step(e_fw) -> u_fw``); the firmware output mapped back to card
+    units. Returns (card output, firmware output in card units, largest difference)."""
+    k_in, k_out = slope(input_map), slope(output_map)
+    worst = 0.0
+    u_card = u_back = 0.0
+    for _ in range(n):
+        u_card = float(card_step(e))
+        u_back = float(firmware_step(e * k_in)) / k_out
+        worst = max(worst, abs(u_card - u_back))
+    return u_card, u_back, worst

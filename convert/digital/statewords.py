@@ -208,9 +208,7 @@ def realize_state_form(layout: Layout, word: WordFormat, r: float, u: float | No
     w = word.bits
     limit = 1 << (word.accumulator_bits - 1)
     for i, s in enumerate(layout.sections):
-        ups, level = _section_words(
-            layout.form, s, scales[i], scales[i + 1], list(st_scales[i]), layout.delta_step
-        )
+        ups, level = _section_words(layout.form, s, scales[i], scales[i + 1], list(st_scales[i]), layout.delta_step)
         biggest = max(abs(v) for up in ups for _, v in up)
         frac = w - 1
         while frac >= 1 and biggest * 2.0**frac > word.word_max + 0.5:

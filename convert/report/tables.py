@@ -284,6 +284,12 @@ def realization_table(results) -> Table:
                 f"structure {d.get('structure', 'direct1')} in {d['word_format']}; {coefs}; "
                 f"delay {seconds(d['delay_s'])}"
             )
+            sig = d.get("signal_scaling")
+            if sig:
+                what += (
+                    f"; firmware units: {sig['text']}; {sig['gains']}; card {sig['card_action']} acting, "
+                    f"firmware {sig['firmware_action']} acting"
+                )
         else:
             what = "; ".join(f"{k} = {v}" for k, v in d.get("parts_text", {}).items()) or d.get("topology", "")
         rows.append([r.name, r.form, what, "; ".join(r.warnings)])
