@@ -297,3 +297,22 @@ max_phase_error_deg = 10
     assert checks and all(v == "pass" for v in checks.values()), checks
     names = sorted(n.rsplit("/", 1)[1] for n in build_report(res) if n.startswith("code/"))
     assert names == ["lvl.c", "lvl.h", "lvl.st"]
+
+
+def test_saturating_running_sum_scan_equals_the_loop():
+    """The vectorized integrator (a prefix scan of clamp-and-add maps) against the plain
+    sample-by-sample loop y = min(hi, max(lo, y + d)), on steps that hit both limits often."""
+    from convert.digital.arithmetic import saturating_cumsum
+
+    rng = np.random.default_rng(4)
+    for n, scale in ((1, 5), (7, 50), (1000, 300), (4097, 2**31)):
+        push = np.where(np.arange(n) < n // 2, scale // 2, -(scale // 2))  # up to one end, then the other
+        d = rng.integers(-scale, scale, size=n, dtype=np.int64) + push
+        lo, hi = -1000 if scale < 1000 else -(2**31), 999 if scale < 1000 else 2**31 - 1
+        y, want = 17, []
+        for v in d.tolist():
+            y = min(hi, max(lo, y + v))
+            want.append(y)
+        got = saturating_cumsum(d, 17, lo, hi)
+        assert got.tolist() == want
+        assert n < 100 or (min(want) == lo and max(want) == hi)

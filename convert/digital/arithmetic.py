@@ -33,6 +33,33 @@ def model_of(real: Realized):
     return FixedModel(real) if real.word.is_fixed else FloatModel(real)
 
 
+def saturating_cumsum(d: np.ndarray, y0: int, lo: int, hi: int) -> np.ndarray:
+    """``y[n] = clip(y[n−1] + d[n], lo, hi)`` from ``y[−1] = y0`` for int64 ``d``, vectorized over
+    samples: each step is the map y → min(H, max(L, y + D)), and such maps compose into one of
+    the same kind (clamp(clamp(x, a, b), c, d) = clamp(x, min(max(a, c), d), max(min(b, d), c))),
+    so a prefix scan (Hillis–Steele, log2 n passes) gives every y[n] exactly."""
+    n = d.size
+    plain = np.cumsum(d, dtype=np.int64) + np.int64(y0)
+    if n == 0 or (plain.min() >= lo and plain.max() <= hi and lo <= y0 <= hi):
+        return plain  # never reaches a limit: the plain running sum (the common case)
+    dd = np.asarray(d, dtype=np.int64).copy()
+    low = np.full(n, lo, dtype=np.int64)
+    high = np.full(n, hi, dtype=np.int64)
+    step = 1
+    while step < n:
+        # compose: the earlier map (index i − step) first, then the later one (index i)
+        e_d, e_l, e_h = dd[:-step], low[:-step], high[:-step]
+        g_d, g_l, g_h = dd[step:], low[step:], high[step:]
+        a = e_l + g_d
+        b = e_h + g_d
+        new_l = np.minimum(np.maximum(a, g_l), g_h)
+        new_h = np.maximum(np.minimum(b, g_h), g_l)
+        dd[step:] = e_d + g_d
+        low[step:], high[step:] = new_l, new_h
+        step *= 2
+    return np.minimum(np.maximum(dd + np.int64(y0), low), high)
+
+
 def level_factor(a, k: int, cast=float):
     """DF2T state k per unit of held output: −(a_{k+1} + … + a_m), summed in double, then stored
     in the format (the generated code holds it as a constant)."""
@@ -84,44 +111,49 @@ class FloatModel:
             self.state = [[c(v) for v in st] for st in states]
 
     def step(self, x) -> float:
+        with np.errstate(over="ignore", invalid="ignore"):
+            return self._step(x)
+
+    def _step(self, x) -> float:
         c = self.cast
         v = c(x)
-        with np.errstate(over="ignore", invalid="ignore"):
-            for i, (b, a) in enumerate(self.coefs):
-                if self.form == "df1":
-                    xh, yh = self.state[i]
-                    acc = b[0] * v
-                    for k in range(1, len(b)):
-                        acc = acc + b[k] * xh[k - 1]
-                    for k in range(1, len(a)):
-                        acc = acc - a[k] * yh[k - 1]
-                    if xh:
-                        xh.insert(0, v)
-                        xh.pop()
-                        yh.insert(0, acc)
-                        yh.pop()
-                    v = acc
-                elif self.form == "df2t":
-                    s = self.state[i]
-                    m = len(a) - 1
-                    y = b[0] * v + s[0] if m else b[0] * v
-                    for k in range(m):
-                        t = b[k + 1] * v - a[k + 1] * y
-                        s[k] = t + s[k + 1] if k + 1 < m else t
-                    v = y
-                else:
-                    s = self.state[i]
-                    m = len(a) - 1
-                    y = b[0] * v + s[0] if m else b[0] * v
-                    for k in range(m):
-                        t = b[k + 1] * v - a[k + 1] * y
-                        w = t + s[k + 1] if k + 1 < m else t
-                        s[k] = s[k] + self.delta * w
-                    v = y
+        # the caller holds np.errstate (overflow to inf is the format's behaviour)
+        for i, (b, a) in enumerate(self.coefs):
+            if self.form == "df1":
+                xh, yh = self.state[i]
+                acc = b[0] * v
+                for k in range(1, len(b)):
+                    acc = acc + b[k] * xh[k - 1]
+                for k in range(1, len(a)):
+                    acc = acc - a[k] * yh[k - 1]
+                if xh:
+                    xh.insert(0, v)
+                    xh.pop()
+                    yh.insert(0, acc)
+                    yh.pop()
+                v = acc
+            elif self.form == "df2t":
+                s = self.state[i]
+                m = len(a) - 1
+                y = b[0] * v + s[0] if m else b[0] * v
+                for k in range(m):
+                    t = b[k + 1] * v - a[k + 1] * y
+                    s[k] = t + s[k + 1] if k + 1 < m else t
+                v = y
+            else:
+                s = self.state[i]
+                m = len(a) - 1
+                y = b[0] * v + s[0] if m else b[0] * v
+                for k in range(m):
+                    t = b[k + 1] * v - a[k + 1] * y
+                    w = t + s[k + 1] if k + 1 < m else t
+                    s[k] = s[k] + self.delta * w
+                v = y
         return float(v)
 
     def run(self, xs) -> np.ndarray:
-        return np.array([self.step(x) for x in np.asarray(xs, dtype=float)])
+        with np.errstate(over="ignore", invalid="ignore"):
+            return np.array([self._step(x) for x in np.asarray(xs, dtype=float)])
 
 
 class FixedModel:
@@ -225,6 +257,13 @@ class FixedModel:
             m = len(a)
             if m == 0:
                 out = [lo if y < lo else hi if y > hi else y for y in (f >> sh for f in ffl)]
+            elif m == 1 and a[0] == -(1 << sh):
+                # an integrator alone: y = clip(y1 + ((f + half) >> sh)) exactly (2^sh·y1 is a
+                # multiple of 2^sh), a saturating running sum, computed as a prefix scan
+                (y1,) = yh
+                out_arr = saturating_cumsum((ff + half) >> sh, y1, lo, hi)
+                out = out_arr.tolist()
+                yh = [out[-1]] if out else [y1]
             elif m == 1:
                 out = []
                 append = out.append

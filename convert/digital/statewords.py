@@ -388,8 +388,10 @@ def limit_cycles(real: Realized, layout: Layout, notes: list[str], trials: int, 
     undecided = []
     drift = []
 
+    lo_w, hi_w = np.int64(w.word_min), np.int64(w.word_max)
+
     def clip(v):
-        return np.clip(v, w.word_min, w.word_max)
+        return np.minimum(np.maximum(v, lo_w), hi_w)
 
     delta = real.form == "delta"
     for i, (s, s0) in enumerate(zip(real.sections, layout.sections)):
@@ -406,11 +408,10 @@ def limit_cycles(real: Realized, layout: Layout, notes: list[str], trials: int, 
             undecided.append(i + 1)
         lo, hi = (-64, 64) if marginal else (w.word_min // 2, w.word_max // 2)
         st = [rng.integers(lo, hi, size=trials, dtype=np.int64) for _ in range(m)]
-        zero = np.zeros(trials, dtype=np.int64)
         amp = np.zeros(trials, dtype=np.int64)
         prev = None
         for k in range(n):
-            y = step_section(sec, zero, st, clip)
+            y = step_section(sec, 0, st, clip)  # zero input: the input terms are plain 0
             if k >= n - (50 if marginal else 100) and prev is not None:
                 amp = np.maximum(amp, np.abs(y - prev) if marginal else np.abs(y))
             prev = y
