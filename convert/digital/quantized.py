@@ -524,18 +524,23 @@ def _limit_cycles(real: Realized, layout, notes: list[str]) -> tuple[int, float]
             )
         if lsb > worst_lsb:
             worst_lsb, worst_units = lsb, lsb * real.node_scales[i + 1] / 2 ** (w.bits - 1)
+    bound = f"; the effective-value bound of the second-order sections is {max(bounds):.3g} LSB" if bounds else ""
+    limit_cycle_notes(notes, undecided, worst_lsb, worst_units, bound)
+    return worst_lsb, worst_units, drift
+
+
+def limit_cycle_notes(notes: list[str], undecided, worst_lsb: int, worst_units: float, bound: str = "") -> None:
+    """The notes of a limit-cycle search (every structure's search states its result this way)."""
     if undecided:
         notes.append(
             f"limit-cycle search: section(s) {', '.join(map(str, undecided))} decay too slowly to decide within "
             f"{LIMIT_CYCLE_SAMPLES} samples"
         )
     if worst_lsb:
-        bound = f"; the effective-value bound of the second-order sections is {max(bounds):.3g} LSB" if bounds else ""
         notes.append(
             f"limit cycle with zero input: the search from {LIMIT_CYCLE_TRIALS} random states found up to "
             f"{worst_lsb} LSB ({worst_units:.3g} in that node's units){bound}"
         )
-    return worst_lsb, worst_units, drift
 
 
 def _dead_band(real: Realized, layout) -> tuple[float | None, int | None]:

@@ -422,14 +422,7 @@ def limit_cycles(real: Realized, layout: Layout, notes: list[str], trials: int, 
         elif lsb > worst_lsb:
             worst_lsb, worst_units = lsb, lsb * real.node_scales[i + 1] / 2 ** (w.bits - 1)
             worst_section = i + 1
-    if undecided:
-        notes.append(
-            f"limit-cycle search: section(s) {', '.join(map(str, undecided))} decay too slowly to decide within "
-            f"{samples} samples"
-        )
-    if worst_lsb:
-        notes.append(
-            f"limit cycle with zero input: the search from {trials} random states found up to "
-            f"{worst_lsb} LSB ({worst_units:.3g} in that node's units)"
-        )
+    from convert.digital.quantized import limit_cycle_notes
+
+    limit_cycle_notes(notes, undecided, worst_lsb, worst_units)
     return worst_lsb, worst_units, drift, worst_section
