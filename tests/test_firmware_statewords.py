@@ -316,3 +316,20 @@ def test_saturating_running_sum_scan_equals_the_loop():
         got = saturating_cumsum(d, 17, lo, hi)
         assert got.tolist() == want
         assert n < 100 or (min(want) == lo and max(want) == hi)
+
+
+@needs_gcc
+@pytest.mark.parametrize("structure", ["direct1", "direct2t", "sections", "delta"])
+@pytest.mark.parametrize("fmt", ["float64", "float32", "q15", "q31"])
+def test_pure_gain_compiles_and_matches(tmp_path, structure, fmt):
+    """A controller that is a pure gain keeps no state: its code still compiles with -Werror
+    (the unused state pointer is marked) and gives the model's outputs."""
+    real = _realize("0.75", 100, structure, fmt, 1.0, None)
+    full = (1 << (real.word.bits - 1)) - 1 if real.word.is_fixed else 0
+    seq = [v for v in _vectors(real.word.is_fixed, full, np.random.default_rng(3)) if v[0] != "o"][:900]
+    c_out = _run_c(tmp_path, real, "gain", seq)
+    model = _run_model(real, seq)
+    if fmt == "float64":
+        assert np.allclose(c_out, model, rtol=1e-12, atol=0)
+    else:
+        assert c_out == model

@@ -169,6 +169,8 @@ def emit_c(real: Realized, name: str, *, source: str = "", method: str = "", lim
     else:
         c.append("    st->unused = 0;")
     c += ["}", "", f"{t} {name}_step({name}_state *st, {t} x)", "{", f"    {t} v = x;"]
+    if not fields:
+        c.append("    (void)st; /* a pure gain keeps no state */")
     if w.is_fixed:
         c.append(f"    {w.accumulator_c_type} acc;")
         if real.form != "df1":
