@@ -73,12 +73,13 @@ def test_hand_calculated_gain_and_action(tmp_path):
     assert (sig["card_action"], sig["firmware_action"]) == ("reverse", "direct")
     assert f"kp = {2 * abs(g):.6g}" in sig["gains"] and f"ki = {2 / 30 * abs(g):.6g} 1/s" in sig["gains"]
     assert f"kd = {4 * abs(g):.6g} s" in sig["gains"] and "direct acting" in sig["gains"]
-    assert sig["output_limits"] == pytest.approx((0.0, 100.0))  # 0 .. 10 V -> 100 .. 0 %, sorted
+    # limits are deviations from the operating point: [0, 10] V times −10 %/V, sorted
+    assert sig["output_limits"] == pytest.approx((-100.0, 0.0))
     (check,) = [j for j in res.verdict.judgements if j.criterion == "firmware_direction"]
     assert check.status == "pass"
     files = build_report(res)
     header = next(v for k, v in files.items() if k.endswith("lic.h"))
-    assert "kp = 0.02442" in header and "Output limits: 0 .. 100" in header
+    assert "kp = 0.02442" in header and "Output limits: -100 .. 0" in header
     assert "12-bit converter over 0 .. 5 V: counts 819 .. 4095" in files["report.md"]
     # the written coefficients are the card's times g (float64: to rounding)
     card = res.realizations[0].details["firmware"]["sections"]

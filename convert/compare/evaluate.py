@@ -689,7 +689,8 @@ def _signal_scaling(case, analog, real, band, firmware, limits):
     k_in, k_out = abs(sg.slope(tgt.input_signal)), abs(sg.slope(tgt.output_signal))
     lim_fw = None
     if limits:
-        ends = sorted(sg.map_value(tgt.output_signal, v) for v in limits)
+        # the limits are deviations from the operating point (as the controller's output): slope only
+        ends = sorted(v * sg.slope(tgt.output_signal) + 0.0 for v in limits)  # + 0.0: no -0
         lim_fw = (ends[0], ends[1])
     try:
         fw = analyze(

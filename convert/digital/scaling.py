@@ -209,11 +209,6 @@ def signal_map(raw: dict, dotted: str, *, card_volts: bool) -> tuple[SignalMap, 
     return SignalMap(ctl_lo, ctl_hi, f_lo, f_hi), f"{shown} -> {how}"
 
 
-def map_value(m: SignalMap | None, v: float) -> float:
-    """An absolute signal value (controller units) in firmware units (offsets included)."""
-    return v if m is None else m.firmware_low + (v - m.signal_low) * m.firmware_per_signal
-
-
 def slope(m: SignalMap | None) -> float:
     """Firmware units per controller unit (1 without a map)."""
     return 1.0 if m is None else m.firmware_per_signal
