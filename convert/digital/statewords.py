@@ -385,6 +385,7 @@ def limit_cycles(real: Realized, layout: Layout, notes: list[str], trials: int, 
     the largest output left or None)."""
     w = real.word
     worst_lsb, worst_units = 0, 0.0
+    worst_section = None
     undecided = []
     drift = []
 
