@@ -149,7 +149,7 @@ def test_netlist_through_a_link_writes_the_target_and_says_so(run_cli, here):
 def test_three_outputs_are_written_all_or_none(run_cli, here, monkeypatch):
     """On a nearly full disk `circuit` wrote two of three files and named no option. Now the
     failure of the third leaves the earlier two untouched (new ones absent, old ones unchanged)."""
-    import convert.circuit.schematic as schematic
+    import convert.report.schematic as schematic
 
     def full_disk(design, path):
         raise OSError(28, "No space left on device", path)

@@ -419,7 +419,7 @@ def run(args, console) -> int:
                 f"{order.tightening.gain_db[0]:.3g} to {order.tightening.gain_db[1]:.3g} dB"
             )
     if args.schematic:
-        from convert.circuit.schematic import design_schematic
+        from convert.report.schematic import design_schematic
 
         writers["--schematic"] = lambda tmp: design_schematic(design, tmp)
     write_outputs(outputs, writers)  # all or none

@@ -223,18 +223,14 @@ def loop_count_of(controller, plant):
 
 
 def circuit_files(design, model, tolerances=None) -> dict:
-    """BOM (CSV), SPICE netlist and schematic (PNG) of the design, from the circuit
-    package's writers."""
-    import tempfile
-    from pathlib import Path
-
+    """BOM (CSV text), SPICE netlist (text) and schematic (a :class:`convert.circuit.schematic.Schematic`
+    that the report layer draws as PNG) of the design, from the circuit package's writers."""
     from convert.circuit.bom import bom_csv, bom_rows
     from convert.circuit.netlist_out import design_netlist
-    from convert.circuit.schematic import design_schematic
+    from convert.circuit.schematic import schematic_of
 
-    files: dict = {"circuit.cir": design_netlist(design, opamp=model), "bom.csv": bom_csv(bom_rows(design, tolerances))}
-    with tempfile.TemporaryDirectory() as tmp:
-        path = Path(tmp) / "schematic.png"  # PNG only: each drawing costs about a second
-        design_schematic(design, str(path))
-        files["schematic.png"] = path.read_bytes()
-    return files
+    return {
+        "circuit.cir": design_netlist(design, opamp=model),
+        "bom.csv": bom_csv(bom_rows(design, tolerances)),
+        "schematic.png": schematic_of(design),
+    }

@@ -60,7 +60,7 @@ class Realization:
     disturbance: LoopResponse | None = None
     figures: dict = field(default_factory=dict)
     band: dict | None = None  # Monte Carlo band for circuits
-    files: dict = field(default_factory=dict)  # name -> bytes or text
+    files: dict = field(default_factory=dict)  # name -> bytes, text or a Schematic (the report draws it)
     stability: LoopStability | None = None  # closed loop with the plant (None without a plant)
 
 

@@ -15,7 +15,7 @@ def build_report(results) -> dict[str, bytes | str]:
 
     from convert.jsonable import to_jsonable
     from convert.report.documents import html_report, markdown_report
-    from convert.report.figures import all_figures
+    from convert.report.figures import all_figures, schematic_figure_name
     from convert.report.results import results_dict
 
     figures = all_figures(results)
@@ -31,7 +31,8 @@ def build_report(results) -> dict[str, bytes | str]:
         files[f"figures/{name}"] = data
     for r in results.realizations:
         for name, content in r.files.items():
-            files[name] = content
+            # a schematic is described by the computation and drawn once, with the figures
+            files[name] = figures[schematic_figure_name(r)] if name == "schematic.png" else content
     return files
 
 

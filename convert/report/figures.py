@@ -398,8 +398,21 @@ def all_figures(results) -> dict[str, bytes]:
     out["polezero.png"] = pole_zero(results)
     for r in results.realizations:
         if "schematic.png" in r.files:
-            out[f"schematic-{_slug(r.name)}.png"] = r.files["schematic.png"]
+            out[schematic_figure_name(r)] = _schematic_bytes(r.files["schematic.png"])
     return out
+
+
+def schematic_figure_name(realization) -> str:
+    """The figure name of a realization's schematic (``schematic-<name>.png``)."""
+    return f"schematic-{_slug(realization.name)}.png"
+
+
+def _schematic_bytes(content) -> bytes:
+    """PNG bytes of a schematic: drawn here from the computation's description."""
+    from convert.circuit.schematic import Schematic
+    from convert.report.schematic import schematic_png
+
+    return schematic_png(content) if isinstance(content, Schematic) else content
 
 
 def _slug(text: str) -> str:
