@@ -92,3 +92,174 @@ def test_computation_packages_load_no_plotting_terminal_or_control_library():
         """
     )
     assert not loaded & {"matplotlib", "rich", "control", "schemdraw", "sympy", "lcapy"}
+
+
+# ------------------------------------------------------------------ layers (issue 11 item 2)
+#: Front ends: the command line and the report writers (drawing, files). Everything else in the
+#: package computes.
+FRONT_ENDS = ("convert.cli", "convert.report", "convert.__main__")
+#: What a computational module never loads when it is imported: drawing and terminal libraries, the
+#: front ends, and the heavy libraries that are imported inside the function that needs them.
+NEVER_AT_IMPORT = ("matplotlib", "rich", "schemdraw", "convert.cli", "convert.report") + (
+    "control",
+    "scipy",
+    "sympy",
+    "mpmath",
+    "lcapy",
+)
+
+
+def _package_dir():
+    import pathlib
+
+    import convert
+
+    return pathlib.Path(convert.__file__).parent
+
+
+def computational_modules() -> list[str]:
+    """Every module of the package outside the front ends, found by walking the folder (a new
+    module is covered without being listed)."""
+    root = _package_dir()
+    names = []
+    for path in sorted(root.rglob("*.py")):
+        parts = ("convert",) + path.relative_to(root).with_suffix("").parts
+        if parts[-1] == "__init__":
+            parts = parts[:-1]
+        name = ".".join(parts)
+        if any(name == f or name.startswith(f + ".") for f in FRONT_ENDS):
+            continue
+        names.append(name)
+    return names
+
+
+def test_the_walk_finds_the_computation_and_leaves_out_the_front_ends():
+    """The module list the layer checks use is the package's own folder: it holds the core, each
+    computational sub-package, and no front-end module."""
+    names = computational_modules()
+    for expected in ("convert", "convert.values", "convert.expr", "convert.controller", "convert.pid"):
+        assert expected in names
+    for package in ("convert.digital", "convert.circuit", "convert.compare", "convert.evidence"):
+        assert sum(n.startswith(package + ".") for n in names) >= 3, package
+    assert "convert.circuit.schematic" in names and "convert.circuit.topologies.model" in names
+    assert not [n for n in names if n.startswith(("convert.cli", "convert.report"))]
+
+
+def test_every_computational_module_loads_no_drawing_terminal_front_end_or_heavy_library():
+    """Issue 11 item 2 (layers): importing any computational module (the package walked, so a new
+    module is covered) loads none of matplotlib, rich, schemdraw, convert.cli, convert.report, nor
+    the heavy libraries imported inside functions (scipy, python-control, sympy, mpmath, lcapy).
+
+    One fresh interpreter imports the modules one after another and, after each, looks for any
+    forbidden module in ``sys.modules``: the first module that brings one in is named (a module
+    imported later cannot hide it, since the check fails at the first)."""
+    names = computational_modules()
+    code = f"""
+    import importlib, json, sys
+    forbidden = {NEVER_AT_IMPORT!r}
+    def loaded():
+        return sorted(m for m in sys.modules if any(m == f or m.startswith(f + ".") for f in forbidden))
+    assert not loaded(), loaded()
+    bad = {{}}
+    for name in {names!r}:
+        importlib.import_module(name)
+        now = loaded()
+        if now:
+            bad[name] = sorted({{m.split(".")[0] if not m.startswith("convert.") else ".".join(m.split(".")[:2]) for m in now}})
+            break
+    print("@@BAD@@" + json.dumps(bad))
+    """
+    proc = subprocess.run([sys.executable, "-c", textwrap.dedent(code)], capture_output=True, text=True, timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    bad = json.loads(proc.stdout.rsplit("@@BAD@@", 1)[1])
+    assert bad == {}, f"importing {bad} (a computational module) loaded a front end or heavy library"
+
+
+def test_the_layer_check_can_fail():
+    """Negative control: the same check sees a front end loaded (convert.report.schematic brings in
+    convert.report), so a passing layer test is not a check that cannot fail."""
+    code = """
+    import sys
+    import convert.report.schematic
+    print("@@MODULES@@" + ",".join(sorted(m for m in sys.modules if m.startswith("convert.report"))))
+    """
+    proc = subprocess.run([sys.executable, "-c", textwrap.dedent(code)], capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 0, proc.stderr
+    assert "convert.report" in proc.stdout.rsplit("@@MODULES@@", 1)[1].split(",")
+
+
+#: Calls that write files: ``open(..., "w"/"a"/"x"...)``, ``Path.write_text``/``write_bytes``,
+#: ``savefig``, ``os.replace``/``rename``, ``shutil`` copies and ``tempfile`` files.
+_WRITING_ATTRIBUTES = {"write_text", "write_bytes", "savefig", "mkstemp", "NamedTemporaryFile", "TemporaryDirectory"}
+
+
+def _writes(tree) -> list[tuple[int, str]]:
+    import ast
+
+    found = []
+    for node in ast.walk(tree):
+        if not isinstance(node, ast.Call):
+            continue
+        func = node.func
+        name = func.attr if isinstance(func, ast.Attribute) else func.id if isinstance(func, ast.Name) else ""
+        if name in _WRITING_ATTRIBUTES:
+            found.append((node.lineno, name))
+        elif name == "open" and isinstance(func, ast.Attribute) and getattr(func.value, "id", "") == "os":
+            flags = {n.attr for a in node.args[1:2] for n in ast.walk(a) if isinstance(n, ast.Attribute)}
+            if flags & {"O_WRONLY", "O_RDWR", "O_CREAT", "O_APPEND", "O_TRUNC"}:
+                found.append((node.lineno, "os.open(writing)"))
+        elif name == "open":
+            mode = (
+                node.args[1] if len(node.args) > 1 else next((k.value for k in node.keywords if k.arg == "mode"), None)
+            )
+            if mode is None:
+                continue  # read mode
+            if not (isinstance(mode, ast.Constant) and isinstance(mode.value, str)):
+                found.append((node.lineno, "open(mode computed)"))
+            elif set(mode.value) & set("wax+"):
+                found.append((node.lineno, f"open(..., {mode.value!r})"))
+    return found
+
+
+def test_computational_modules_write_no_files():
+    """Issue 11 item 2: the computation never writes files (the report writers and the CLI do).
+    Read from each computational module's syntax tree: no ``open`` in a writing mode, no
+    ``write_text``/``write_bytes``/``savefig`` and no temporary files."""
+    import ast
+
+    root = _package_dir()
+    offenders = {}
+    for name in computational_modules():
+        rel = name.split(".")[1:]
+        path = root.joinpath(*rel).with_suffix(".py") if rel else root / "__init__.py"
+        if not path.exists():
+            path = root.joinpath(*rel, "__init__.py")
+        found = _writes(ast.parse(path.read_text(encoding="utf-8")))
+        if found:
+            offenders[name] = found
+    assert offenders == {}
+
+
+def test_the_write_check_can_fail():
+    """Negative control: the syntax check finds each writing call it is meant to find, and passes
+    reading calls."""
+    import ast
+
+    text = textwrap.dedent(
+        """
+        open(p, "w"); open(p, mode="ab"); open(p, "r+"); open(p, m)
+        p.write_text("x"); p.write_bytes(b"x"); fig.savefig(buf); os.open(p, os.O_WRONLY | os.O_CREAT)
+        open(p); open(p, "rb"); p.read_text(); os.open(p, os.O_RDONLY | os.O_NONBLOCK)
+        """
+    )
+    kinds = [k for _, k in _writes(ast.parse(text))]
+    assert kinds == [
+        "open(..., 'w')",
+        "open(..., 'ab')",
+        "open(..., 'r+')",
+        "open(mode computed)",
+        "write_text",
+        "write_bytes",
+        "savefig",
+        "os.open(writing)",
+    ]
