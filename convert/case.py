@@ -515,7 +515,10 @@ def _read_source(ctx: _Ctx, data: dict) -> Source:
         text = ctx.text(table, "expression", key)
         from convert.controller import from_expression
 
-        controller = from_expression(text, label=f"{where}: {key}")
+        try:
+            controller = from_expression(text, label=f"{where}: {key}")
+        except LoopshiftError as exc:
+            raise exc.name_settings(SETTING_KEYS) from None
         if controller.is_digital:
             raise ctx.error(
                 key, "a source expression is in s; give a digital source as [source.digital] with b, a and fs"
@@ -894,6 +897,15 @@ def _read_criteria(ctx: _Ctx, data: dict) -> Criteria:
             continue
         values[key] = ctx.value(table, key, f"criteria.{key}", "number", None, positive=True)
     return Criteria(band_hz=band, **values)
+
+
+#: The case-file keys that set the neutral settings library messages name (``LoopshiftError.settings``).
+SETTING_KEYS = {
+    "sample rate fs": "a digital source is [source.digital] with b, a and fs",
+    "conversion method": "source.digital.method",
+    "computation delay": "target.digital.delay",
+    "derivative filter N": "target.digital.derivative_filter",
+}
 
 
 def circuit_key(neutral: str | None) -> str:

@@ -467,7 +467,11 @@ def from_expression(text: str, *, fs_hz: float | None = None, label: str = "expr
     num, den = converted
     if parsed.variable == "z" or (parsed.variable is None and fs_hz is not None):
         if fs_hz is None:
-            raise InputError("an expression in z needs a sample rate; give it with --fs (Hz)", where=label)
+            raise InputError(
+                "an expression in z needs a sample rate: give the sample rate fs in Hz",
+                where=label,
+                settings=("sample rate fs",),
+            )
         if not (math.isfinite(fs_hz) and fs_hz > 0):
             raise InputError(f"the sample rate must be positive, found {fs_hz!r}", key="fs")
         return Controller.digital(num, den, 1.0 / fs_hz, name)

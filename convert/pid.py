@@ -564,7 +564,7 @@ def _fit(controller) -> tuple[PidSettings | None, str | None]:
 
 
 # ============================================================================ words and mappings
-def pid_from_words(words: Sequence[str], where: str = "--pid") -> PidSettings:
+def pid_from_words(words: Sequence[str], where: str = "pid") -> PidSettings:
     """Read ``--pid`` words such as ``["kc=2", "ti=30s", "td=5s", "n=10"]`` (keys in :data:`PID_KEYS`).
 
     Every problem raises :class:`InputError` naming ``where`` and the key.

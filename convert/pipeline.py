@@ -223,7 +223,7 @@ def loop_check(
 
 
 def plant_from_words(
-    expression: str | None, dead_time_s: float = 0.0, *, where: str = "--plant", dead_where: str = "--dead-time"
+    expression: str | None, dead_time_s: float = 0.0, *, where: str = "plant", dead_where: str = "dead time"
 ):
     """The plant of a loop check from an expression in s and a dead time (s), read and checked
     as a case file's ``[plant]`` is; None without an expression (then a dead time is refused).
@@ -234,7 +234,7 @@ def plant_from_words(
 
     if expression is None:
         if dead_time_s:
-            raise InputError("a dead time belongs to a plant; give --plant too", where=dead_where)
+            raise InputError(f"a dead time belongs to a plant; give the plant ({where}) too", where=dead_where)
         return None
     try:
         return _read_plant(command_line_context(where), {"plant": {"model": expression, "dead_time": dead_time_s}})

@@ -7,6 +7,7 @@ other tests imported does not matter. No timing is asserted (see bench/startup.p
 from __future__ import annotations
 
 import json
+import re
 import subprocess
 import sys
 import textwrap
@@ -263,3 +264,79 @@ def test_the_write_check_can_fail():
         "savefig",
         "os.open(writing)",
     ]
+
+
+_OPTION = re.compile(r"(?<![\w-])--[a-z]")
+#: a whole command line such as ``loopshift code --pid-block`` names a command, not the front end's option
+_COMMAND_LINE = re.compile(r"loopshift [a-z]+(?: [^\s,;)]+)* --[a-z][a-z-]*")
+_NAMING_PARAMETERS = {"where", "key", "option", "spelling", "label", "field"}
+
+
+def _strings(node) -> list[str]:
+    import ast
+
+    return [n.value for n in ast.walk(node) if isinstance(n, ast.Constant) and isinstance(n.value, str)]
+
+
+def _option_names(tree) -> list[tuple[int, str]]:
+    """Command-line option names (``--fs``) in what a module raises: the arguments of calls to
+    ``...Error(...)``/``ctx.error(...)``, and the defaults of parameters that name a place."""
+    import ast
+
+    found = []
+    for node in ast.walk(tree):
+        texts: list[str] = []
+        if isinstance(node, ast.Call):
+            func = node.func
+            name = func.attr if isinstance(func, ast.Attribute) else getattr(func, "id", "")
+            if name.endswith("Error") or name == "error":
+                texts = [t for a in [*node.args, *(k.value for k in node.keywords)] for t in _strings(a)]
+        elif isinstance(node, (ast.FunctionDef, ast.AsyncFunctionDef)):
+            args = node.args
+            positional = args.posonlyargs + args.args
+            pairs = list(zip(positional[len(positional) - len(args.defaults) :], args.defaults))
+            pairs += [(a, d) for a, d in zip(args.kwonlyargs, args.kw_defaults) if d is not None]
+            texts = [t for a, d in pairs if a.arg in _NAMING_PARAMETERS for t in _strings(d)]
+        for text in texts:
+            if _OPTION.search(_COMMAND_LINE.sub("", text)):
+                found.append((node.lineno, text.strip()[:80]))
+    return found
+
+
+def test_computational_errors_name_no_command_line_option():
+    """Issue 11 item 2: errors raised by the computation carry neutral keys and settings
+    (``fs``, "conversion method"); each front end names them as its user wrote them (CLI option,
+    case key). Read from the syntax tree of every computational module: no ``--option`` in the
+    arguments of an error, nor in the default of a ``where``/``key``/``option`` parameter."""
+    import ast
+
+    root = _package_dir()
+    offenders = {}
+    for name in computational_modules():
+        rel = name.split(".")[1:]
+        path = root.joinpath(*rel).with_suffix(".py") if rel else root / "__init__.py"
+        if not path.exists():
+            path = root.joinpath(*rel, "__init__.py")
+        found = _option_names(ast.parse(path.read_text(encoding="utf-8")))
+        if found:
+            offenders[name] = found
+    assert offenders == {}
+
+
+def test_the_option_check_can_fail():
+    """Negative control: an option in an error's message, key or where, or in a naming parameter's
+    default, is found; a whole command line and a neutral name are not."""
+    import ast
+
+    text = textwrap.dedent(
+        """
+        raise InputError("give it with --fs (Hz)", key="fs")
+        raise InputError(f"bad {x}", key="--trim")
+        e = ctx.error("k", "see --band")
+        def f(words, where="--pid"): pass
+        raise InputError("run loopshift code --pid-block", key="fs")
+        raise InputError("x-- y and a--b", where="tolerance")
+        def g(words, where="pid"): pass
+        """
+    )
+    assert sorted(line for line, _ in _option_names(ast.parse(text))) == [2, 3, 4, 5]

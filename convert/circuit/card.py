@@ -636,7 +636,7 @@ def input_candidates(netlist) -> tuple[list, tuple[str, str] | None]:
 
 
 def two_input_hint(
-    netlist, given_input: str | None, *, spelling: str = "--setpoint {sp} --measurement {pv}"
+    netlist, given_input: str | None, *, spelling: str = "setpoint {sp} and measurement {pv}"
 ) -> str | None:
     """One sentence naming the sources that look like a two-input card's inputs, or None when
     the card has fewer than two. ``given_input``: the input source the user asked for (if any);

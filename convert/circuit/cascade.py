@@ -510,8 +510,7 @@ def cascade_topology(stages: list[Topology], w_ref: float | None = None) -> tupl
 
     def fit(topo, shape, settings):
         raise UnrealizableError(
-            "a cascade is designed from its target by loopshift circuit (--topology auto or "
-            "cascade), not fitted as one stage",
+            "a cascade is designed from its target (topology auto or cascade), not fitted as one stage",
             key="topology",
         )
 

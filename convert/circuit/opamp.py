@@ -96,7 +96,7 @@ def swing_check(
 
     if not (amplitude_v > 0 and rail_v > 0):
         raise InputError(
-            f"amplitude and rail must be positive volts, found {amplitude_v!r} and {rail_v!r}", key="--amplitude/--rail"
+            f"amplitude and rail must be positive volts, found {amplitude_v!r} and {rail_v!r}", key="amplitude/rail"
         )
     f = np.asarray(f_hz, dtype=float)
     drive = {"in": amplitude_v} if not topology.two_input else {"sp": 0.0, "meas": amplitude_v}

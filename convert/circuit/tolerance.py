@@ -87,7 +87,7 @@ def draws_problem(draws: int) -> str | None:
 
 
 def parse_tolerances(
-    words: Sequence[str] | None, *, part_names: Sequence[str] = (), where: str = "--tolerance"
+    words: Sequence[str] | None, *, part_names: Sequence[str] = (), where: str = "tolerance"
 ) -> dict[str, float]:
     """Read ``["R=1%", "C=5%", "R3=0.1%"]`` into fractions; defaults R 1 %, C 5 %."""
     from convert.values import parse_fraction

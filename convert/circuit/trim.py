@@ -45,10 +45,10 @@ def size_trim(design, parameter: str, low: float, high: float) -> Trim:
     if key not in topo.tunable:
         options = ", ".join(topo.tunable) or "none"
         raise UnrealizableError(
-            f"{topo.name} has no single resistor that sets {parameter!r} alone (tunable here: {options})", key="--trim"
+            f"{topo.name} has no single resistor that sets {parameter!r} alone (tunable here: {options})", key="trim"
         )
     if not (0 < low < high):
-        raise InputError(f"a trim range needs 0 < low < high, found {low!r} .. {high!r}", key="--trim")
+        raise InputError(f"a trim range needs 0 < low < high, found {low!r} .. {high!r}", key="trim")
     part, exponent = topo.tunable[key]
     params = design.realized_parameters()
     pname = (
@@ -57,7 +57,7 @@ def size_trim(design, parameter: str, low: float, high: float) -> Trim:
         else ("kp" if key == "kc" and "kp" in params else "k" if "k" in params and key in ("kp", "kc") else None)
     )
     if pname is None:
-        raise UnrealizableError(f"{topo.name} does not report {parameter!r}", key="--trim")
+        raise UnrealizableError(f"{topo.name} does not report {parameter!r}", key="trim")
     nominal_param = params[pname]
     r = design.rounded[part]
     lo_r = r * (low / nominal_param) ** (1 / exponent)
@@ -67,6 +67,6 @@ def size_trim(design, parameter: str, low: float, high: float) -> Trim:
     need = hi_r - fixed
     pot = next((p for p in POT_VALUES if p >= need), None)
     if pot is None:
-        raise UnrealizableError(f"the range of {parameter} needs more than a 10 MΩ pot on {part}", key="--trim")
+        raise UnrealizableError(f"the range of {parameter} needs more than a 10 MΩ pot on {part}", key="trim")
     ends = [nominal_param * (v / r) ** exponent for v in (fixed, fixed + pot)]
     return Trim(parameter, part, fixed, pot, (low, high), (min(ends), max(ends)))

@@ -94,7 +94,8 @@ def run(args, console) -> int:
         below_nyquist(prewarp, args.prewarp, fs, "--prewarp")
     if match_at is not None:
         below_nyquist(match_at, args.match_at, fs, "--match-at")
-    digital = from_expression(args.expression, fs_hz=fs, label="EXPR_IN_Z")
+    with at(None):
+        digital = from_expression(args.expression, fs_hz=fs, label="EXPR_IN_Z")
     if not digital.is_digital:
         raise InputError(
             "the expression is analog (in s); `loopshift analog` takes an expression in z", key="EXPR_IN_Z"

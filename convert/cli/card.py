@@ -185,7 +185,9 @@ def _from_netlist(args) -> dict:
         from convert.circuit.card import two_input_hint
 
         known = {e.name for e in netlist.sources}
-        hint = two_input_hint(netlist, args.input if args.input.upper() in known else None)
+        hint = two_input_hint(
+            netlist, args.input if args.input.upper() in known else None, spelling="--setpoint {sp} --measurement {pv}"
+        )
         if hint and args.input.upper() not in known:
             from convert.errors import InputError
 

@@ -239,7 +239,7 @@ def _trims(args, design):
         lo, sep2, hi = rng.partition("..")
         if not sep or not sep2:
             raise InputError(f"expected PARAM=LOW..HIGH such as kp=1..4, found {word!r}", key="--trim")
-        with at("--trim"):
+        with at(None, rename={"trim": "--trim"}):
             out.append(size_trim(design, name.strip(), _value(lo, "number", "--trim"), _value(hi, "number", "--trim")))
     return out
 
@@ -319,6 +319,8 @@ def run(args, console) -> int:
         "draws": "--draws",
         "opamp gbw": "--opamp-gbw",
         "max opamps": "--max-opamps",
+        "amplitude/rail": "--amplitude/--rail",
+        "conversion method": "--inverse-method",
     }
     with at(None, rename=renames):
         options = DesignOptions(
@@ -344,7 +346,7 @@ def run(args, console) -> int:
     with at(None, rename=renames):
         design = design_circuit(controller, options, settings=settings)
     with at("--tolerance"):
-        tolerances = parse_tolerances(args.tolerance, part_names=design.topology.part_names)
+        tolerances = parse_tolerances(args.tolerance, part_names=design.topology.part_names, where="--tolerance")
     import numpy as np
 
     from convert.compare.frequency import log_grid

@@ -42,7 +42,8 @@ def controller_from_args(args, *, fs_hz: float | None = None):
             'give a controller: an expression such as "2*(1+1/(30*s))" or --pid kc=2 ti=30s', where="command line"
         )
     if expression:
-        return from_expression(expression, fs_hz=fs_hz, label="expression"), None
+        with at(None):
+            return from_expression(expression, fs_hz=fs_hz, label="expression"), None
     from convert.pid import pid_from_words
 
     settings = pid_from_words(pid_words, where="--pid")
@@ -106,17 +107,29 @@ def count(value: int, field: str, *, low: int, high: int) -> int:
     return value
 
 
+#: The options that set the neutral settings library messages name (``LoopshiftError.settings``):
+#: every command that has the setting spells it this way.
+SETTING_OPTIONS = {
+    "sample rate fs": "--fs",
+    "conversion method": "--method",
+    "computation delay": "--delay",
+    "derivative filter N": "--derivative-filter",
+    "decimal mark setting": "--decimal",
+}
+
+
 class at:  # noqa: N801 - used as a context manager: ``with at("--part"): ...``
     """Give errors raised inside the block a location when they have none, e.g. ``--tolerance``.
 
     Library functions name the field (``R1``) but not the option it came from; the command line
     knows the option, so errors read ``--part: R1: ...`` instead of a bare ``R1: ...``. ``rename``
-    maps a library key to the option that sets it (``{"prewarp": "--prewarp"}``).
+    maps a library key to the option that sets it (``{"prewarp": "--prewarp"}``); the neutral
+    settings a message names (:data:`SETTING_OPTIONS`) are followed by their option.
     """
 
     def __init__(self, where: str | None, rename: dict[str, str] | None = None):
         self.where = where
-        self.rename = rename or {}
+        self.rename = {**SETTING_OPTIONS, **(rename or {})}
 
     def __enter__(self):
         return self

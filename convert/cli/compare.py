@@ -283,6 +283,7 @@ def run(args, console) -> int:
         output_range=limits_out,
         limits=limits,
         draws=draws,
+        names={"band": "--band", "plant": "--plant", "dead time": "--dead-time"},
     )
     if args.json:
         emit_json(console, pair_json(result))
@@ -304,7 +305,7 @@ def _pairs(words, option: str) -> dict:
 
 
 def _run_sweep(args, console, a, band, limits) -> int:
-    from convert.cli.common import emit_json, positive_value
+    from convert.cli.common import at, emit_json, positive_value
     from convert.errors import InputError
     from convert.evidence.sweep import MIN_COHERENCE, read_sweep, sweep_evidence
 
@@ -315,14 +316,15 @@ def _run_sweep(args, console, a, band, limits) -> int:
             raise InputError(f"coherence lies between 0 and 1, found {args.min_coherence}", key="--min-coherence")
     if args.averages is not None and args.averages < 1:
         raise InputError(f"expected a whole number of at least 1, found {args.averages}", key="--averages")
-    sweep = read_sweep(
-        args.sweep,
-        columns=_pairs(args.sweep_columns, "--sweep-columns"),
-        units=_pairs(args.sweep_units, "--sweep-units"),
-        decimal=args.decimal,
-        averages=args.averages,
-        option="--sweep-columns",
-    )
+    with at(None):
+        sweep = read_sweep(
+            args.sweep,
+            columns=_pairs(args.sweep_columns, "--sweep-columns"),
+            units=_pairs(args.sweep_units, "--sweep-units"),
+            decimal=args.decimal,
+            averages=args.averages,
+            option="--sweep-columns",
+        )
     ev = sweep_evidence(
         a,
         sweep,
@@ -343,7 +345,7 @@ def _run_sweep(args, console, a, band, limits) -> int:
 
 
 def _run_log(args, console, a, b, output_limits) -> int:
-    from convert.cli.common import emit_json
+    from convert.cli.common import at, emit_json
     from convert.errors import InputError
     from convert.evidence.log import log_evidence
     from convert.values import parse_fraction
@@ -368,15 +370,17 @@ def _run_log(args, console, a, b, output_limits) -> int:
             if not value > 0:
                 raise InputError(f"expected a positive fraction, found {text!r}", key=option)
             limits[key] = value
-    ev = log_evidence(
-        args.log,
-        forms,
-        columns=_pairs(args.log_columns, "--log-columns"),
-        units=_pairs(args.log_units, "--log-units"),
-        decimal=args.decimal,
-        output_limits=output_limits,
-        fit=fit,
-    )
+    with at(None):
+        ev = log_evidence(
+            args.log,
+            forms,
+            columns=_pairs(args.log_columns, "--log-columns"),
+            units=_pairs(args.log_units, "--log-units"),
+            decimal=args.decimal,
+            output_limits=output_limits,
+            fit=fit,
+            option="--log-columns",
+        )
     verdict = judge_log(ev, limits)
     if args.json:
         data = ev.as_dict()

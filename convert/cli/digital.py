@@ -293,7 +293,7 @@ def _plant(args):
         raise InputError(f"expected zero or a positive time, found {args.dead_time!r}", key="--dead-time")
     if args.plant is None and args.dead_time is not None:
         raise InputError("a dead time belongs to a plant; give --plant too", key="--dead-time")
-    return plant_from_words(args.plant, dead)
+    return plant_from_words(args.plant, dead, where="--plant", dead_where="--dead-time")
 
 
 def _maxima(budget) -> dict:

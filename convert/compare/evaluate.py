@@ -33,6 +33,7 @@ from convert.compare.stages import digital_budget, loop_spec, realized_controlle
 from convert.compare.stages import fmt_hz as _fmt_hz
 from convert.compare.verdict import LOOP_CRITERIA, Verdict, judge
 from convert.controller import Controller
+from convert.case import SETTING_KEYS
 from convert.errors import InputError, LoopshiftError, UnrealizableError
 
 CAUTIONS = (
@@ -326,7 +327,11 @@ def _analog_reference(case, src: Controller, notes: list[str]) -> Controller:
     from convert.digital import read_analog  # type: ignore[attr-defined]
 
     method = case.source.data.get("method", "tustin")
-    reading = read_analog(src, method)
+    try:
+        reading = read_analog(src, method)
+    except LoopshiftError as exc:
+        exc.name_settings(SETTING_KEYS)
+        raise type(exc)(exc.message, where=case.where("source.digital"), key=exc.key) from None
     analog = reading.controller
     notes.extend(f"source.digital: {n}" for n in reading.notes)  # e.g. a backward-difference derivative
     notes.append(
@@ -527,6 +532,7 @@ def _digital_realizations(
             try:
                 real = discretize(filtered, fs, method, prewarp_hz=tgt.prewarp_hz)
             except LoopshiftError as exc:
+                exc.name_settings(SETTING_KEYS)
                 raise type(exc)(
                     exc.message, where=case.where("target.digital.methods"), key="target.digital.methods"
                 ) from None

@@ -162,16 +162,21 @@ def compare_pair(
     output_range: tuple[float, float] | None = None,
     limits: dict | None = None,
     draws: int | None = None,
+    names: dict[str, str] | None = None,
 ) -> PairResult:
     """Compare B (a :class:`convert.given.GivenForm`) with the reference A (another one).
 
     ``band_hz`` (Hz) defaults to :func:`default_band_hz` of both forms; ``plant_expression`` (in s)
     and ``dead_time_s`` (s) add the loop checks; ``output_range`` clamps both loops' outputs;
     ``limits`` maps criterion keys of :class:`convert.case.Criteria` to limits (gain and phase
-    errors default to :data:`DEFAULT_GAIN_LIMIT_DB` / :data:`DEFAULT_PHASE_LIMIT_DEG`)."""
+    errors default to :data:`DEFAULT_GAIN_LIMIT_DB` / :data:`DEFAULT_PHASE_LIMIT_DEG`).
+    ``names`` says how the caller's user wrote each input, for error messages: keys ``"A"``,
+    ``"B"``, ``"band"``, ``"plant"``, ``"dead time"`` (the command line gives its options, e.g.
+    ``{"plant": "--plant"}``); each defaults to its key."""
     from convert.case import build_form
     from convert.given import as_source, given_controller
 
+    names = {k: k for k in ("A", "B", "band", "plant", "dead time")} | dict(names or {})
     source = as_source(a)
     a_ctrl = build_form(source).controller
     b_ctrl = given_controller(b).controller
@@ -185,7 +190,7 @@ def compare_pair(
         )
     from convert.pipeline import plant_from_words, run_pipeline
 
-    plant = plant_from_words(plant_expression, dead_time_s)
+    plant = plant_from_words(plant_expression, dead_time_s, where=names["plant"], dead_where=names["dead time"])
     if band_default and plant is not None:
         band_hz, widened = _widen_to_loop(band_hz, a_ctrl, b_ctrl, plant)
         if widened:
@@ -201,7 +206,12 @@ def compare_pair(
                 f"{key.replace('_', ' ').replace(' db', ' (dB)').replace(' deg', ' (deg)')} not given: {default:g} used"
             )
     criteria = Criteria(band_hz=tuple(band_hz), **chosen)
-    places = {"source": "A", f"target.given.{b.name}": "B", "criteria.band": "--band", "plant": "--plant"}
+    places = {
+        "source": names["A"],
+        f"target.given.{b.name}": names["B"],
+        "criteria.band": names["band"],
+        "plant": names["plant"],
+    }
     case = _PairCase(
         path=Path("compare"),
         name="compare",

@@ -40,16 +40,18 @@ def _refuse_negative_axis(roots, what: str, method: str) -> None:
             raise UnrealizableError(
                 f"the {what} at z = 0 has no continuous equivalent under {method} (ln 0 is undefined); "
                 "it is a pure delay or a finite-memory (FIR) term: keep that part digital, or account for it "
-                "as computation delay (--delay) and convert the rest; a PID whose derivative is a backward "
-                "difference has this pole: read it with --method backward-euler",
+                "as computation delay and convert the rest; a PID whose derivative is a backward "
+                "difference has this pole: read it with the conversion method backward-euler",
                 key="controller",
+                settings=("computation delay", "conversion method"),
             )
         if r.real < 0 and abs(r.imag) <= _TOL * max(1.0, abs(r)):
             raise UnrealizableError(
                 f"the {what} at z = {_root_text(r)} lies on the negative real axis; under {method} it has no real "
                 "continuous equivalent (its logarithm is complex and has no conjugate partner). It oscillates at fs/2; "
-                "remove it (it is usually ringing from a sampled design), or try --method tustin",
+                "remove it (it is usually ringing from a sampled design), or try the conversion method tustin",
                 key="controller",
+                settings=("conversion method",),
             )
 
 
@@ -57,8 +59,9 @@ def _delay_refusal(rd: int, method: str, extra: str) -> UnrealizableError:
     return UnrealizableError(
         f"the controller has {rd} sample{'s' if rd > 1 else ''} of pure delay (b0 = 0: more poles than zeros in z) "
         f"with no causal continuous equivalent under {method}{extra}; give it without the delay and pass the delay "
-        "to the comparison (--delay 1sample), or use --method zoh",
+        "to the comparison as computation delay (1 sample), or use the conversion method zoh",
         key="controller",
+        settings=("computation delay", "conversion method"),
     )
 
 

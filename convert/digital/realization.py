@@ -178,9 +178,10 @@ def discretize(
         extra = -controller.relative_degree
         raise UnrealizableError(
             f"the controller is improper ({extra} more zero{'s' if extra > 1 else ''} than poles, e.g. an ideal PD/PID) "
-            "and has no causal sampled form; add a derivative filter (CLI: --derivative-filter 10; "
-            "API: add_derivative_filter(controller, 10))",
+            "and has no causal sampled form; add a derivative filter N, e.g. 10 "
+            "(add_derivative_filter(controller, 10) from Python)",
             key="controller",
+            settings=("derivative filter N",),
         )
     t = 1.0 / fs
     _refuse_overflowing_poles(controller, t)

@@ -64,6 +64,8 @@ class _named_in_case:
         return self
 
     def __exit__(self, kind, exc, _tb):
+        if isinstance(exc, LoopshiftError):
+            exc.name_settings({"decimal mark setting": f"{self.table}.decimal"})
         if isinstance(exc, LoopshiftError) and not (exc.where and ".csv" in exc.where):
             key = self.table + (".fit" if exc.key == "fit" else "")
             raise type(exc)(exc.message, where=self.case.where(key), key=key) from None
@@ -91,14 +93,15 @@ def _sweep(case, info, realizations, spec, ev: CaseEvidence) -> None:
     from convert.evidence.sweep import MIN_COHERENCE, read_sweep, sweep_evidence
 
     given = _form_named(case, spec["of"])
-    sweep = read_sweep(
-        spec["file"],
-        columns=spec["columns"],
-        units=spec["units"],
-        decimal=spec["decimal"],
-        averages=spec["averages"],
-        option="evidence.sweep.columns",
-    )
+    with _named_in_case(case, "evidence.sweep"):
+        sweep = read_sweep(
+            spec["file"],
+            columns=spec["columns"],
+            units=spec["units"],
+            decimal=spec["decimal"],
+            averages=spec["averages"],
+            option="evidence.sweep.columns",
+        )
     crit = case.criteria
     limits = {"max_gain_error_db": crit.max_gain_error_db, "max_phase_error_deg": crit.max_phase_error_deg}
     fit = spec["fit"]

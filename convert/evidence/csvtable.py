@@ -325,9 +325,9 @@ def _number(text: str, lay: TableLayout, c: Column, line: int, gap_ok: bool, sca
     elif _DECIMAL_COMMA.match(s):
         raise InputError(
             f"column {c.header!r}: {text.strip()!r} has a decimal comma; write a decimal point, or say "
-            'the file uses decimal commas (--decimal , on the command line, decimal = "," in a case file; fields '
-            "then separated by ';')",
+            "the file uses decimal commas (the decimal mark setting: ','; fields then separated by ';')",
             where=f"{lay.path.name}:{line}",
+            settings=("decimal mark setting",),
         )
     try:
         value = float(s)

@@ -536,7 +536,7 @@ def log_evidence(
     output_limits: tuple[float, float] | None = None,
     fit=None,
     chunk_rows: int = CHUNK_ROWS,
-    option: str = "--log-columns",
+    option: str = "columns",
 ) -> LogEvidence:
     """Replay the log at ``path`` through each ``(name, GivenForm or replay engine)`` of ``forms``;
     ``fit``: a GivenForm with PID settings whose parameters to fit from the log (or None).

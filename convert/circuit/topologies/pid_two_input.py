@@ -73,7 +73,7 @@ def parameters(p):
 def fit(topo, shape, settings):
     if settings is None:
         raise UnrealizableError(
-            f"{topo.name} needs PID settings with setpoint weights (--pid ... b=0.5 c=0)", key="topology"
+            f"{topo.name} needs PID settings with setpoint weights (e.g. b=0.5 c=0)", key="topology"
         )
     if settings.ki <= 0:
         raise UnrealizableError(f"{topo.name} needs integral action (ki > 0)", key="topology")
