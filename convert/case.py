@@ -23,6 +23,7 @@ from pathlib import Path
 from typing import Any
 
 from convert.errors import InputError, LoopshiftError
+from convert.methods import METHODS
 from convert.limits import MAX_DEGREE, MAX_RATE_METHOD_PAIRS, MAX_RATES, excerpt
 
 SOURCE_FORMS = ("expression", "pid", "digital", "card", "netlist")
@@ -552,7 +553,7 @@ def _read_source(ctx: _Ctx, data: dict) -> Source:
         if "fs" not in dig:
             raise ctx.error(key, 'missing fs: the sample rate of these coefficients, e.g. fs = "1 kHz"')
         out["fs_hz"] = ctx.value(dig, "fs", f"{key}.fs", "hz", positive=True, allow_zero=False)
-        out["method"] = ctx.text(dig, "method", f"{key}.method", default="tustin", choices=_method_names())
+        out["method"] = ctx.text(dig, "method", f"{key}.method", default="tustin", choices=METHODS)
         return Source(form, out, where)
     if form == "card":
         card = ctx.table(table, "card", key)
@@ -609,14 +610,6 @@ def _read_tolerances(ctx: _Ctx, table: dict, dotted: str, default) -> dict:
     return out
 
 
-def _method_names() -> tuple[str, ...]:
-    try:
-        from convert.digital import METHODS
-    except ImportError:  # the digital package not built yet: accept the documented names
-        return ("zoh", "foh", "tustin", "matched", "impulse", "forward-euler", "backward-euler")
-    return tuple(METHODS)
-
-
 def _refuse_repeats(ctx: _Ctx, dotted: str, raw: list, values: tuple, what: str) -> None:
     """A list of rates or methods names each entry once (a repeat doubled the work silently)."""
     seen: dict = {}
@@ -662,7 +655,7 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
             raw_methods = [raw_methods]
         if not isinstance(raw_methods, list) or not raw_methods:
             raise ctx.error(f"{key}.methods", f"expected a list of method names, found {excerpt(raw_methods)}")
-        known = _method_names()
+        known = METHODS
         if len(raw_methods) > len(known):
             raise ctx.error(
                 f"{key}.methods",

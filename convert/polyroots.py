@@ -261,3 +261,12 @@ def count_at(p_desc, point: float, others=(), *, rounding: bool = False) -> int:
         p, _ = np.polydiv(p, [1.0, -point])
         count += 1
     return count
+
+
+def format_root(r: complex) -> str:
+    """A root for a message: ``-0.5`` when real (imaginary part within 1e-12 of its size),
+    else ``-0.5+0.866j`` (six significant digits)."""
+    r = complex(r)
+    if abs(r.imag) <= 1e-12 * max(abs(r), 1e-300):
+        return format(r.real, ".6g")
+    return f"{r.real:.6g}{'+' if r.imag >= 0 else '-'}{abs(r.imag):.6g}j"

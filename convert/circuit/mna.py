@@ -43,6 +43,7 @@ import numpy as np
 from convert.circuit.netlist import GROUND, Element, Netlist
 from convert.controller import Controller
 from convert.errors import InputError, UnrealizableError
+from convert.polyroots import format_root
 
 _FIT_RTOL = 1e-6  # allowed relative disagreement between fit and direct solve
 _ZERO_FACTOR = 1e3  # a coefficient below this many error bounds is zero
@@ -668,16 +669,10 @@ def _finish(netlist, system, G, C, b, num_asc, den_asc, name, radii, check=None)
     notes = []
     for _z, p in pairs:
         notes.append(
-            f"a pole at s = {_fmt_root(p)} rad/s ({abs(p) / (2 * np.pi):.4g} Hz) is cancelled by a zero in "
+            f"a pole at s = {format_root(p)} rad/s ({abs(p) / (2 * np.pi):.4g} Hz) is cancelled by a zero in "
             f"the path from {name}: that part of the circuit is not seen from this input"
         )
     return RationalResult(controller, tuple(pairs), float(err), tuple(notes))
-
-
-def _fmt_root(r: complex) -> str:
-    if abs(r.imag) <= 1e-12 * max(1.0, abs(r)):
-        return f"{r.real:.6g}"
-    return f"{r.real:.6g}{r.imag:+.6g}j"
 
 
 def _verify_points(radii: np.ndarray) -> np.ndarray:

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import argparse
 
-INVERSE_NAMES = ("tustin", "zoh", "matched", "backward-euler")
+from convert.methods import INVERSE_METHODS as INVERSE_NAMES
 
 DESCRIPTION = """\
 Map a digital controller back to an analog one: the continuous transfer function whose

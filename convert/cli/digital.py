@@ -1,14 +1,15 @@
 """``loopshift digital``: an analog controller turned into firmware coefficients by one or more
 discretization methods, side by side, with each method's error against the analog controller.
 
-Only argparse is imported at module level; the computation loads when the command runs.
+Only argparse and the method names (convert.methods, which imports nothing) at module level; the
+computation loads when the command runs.
 """
 
 from __future__ import annotations
 
 import argparse
 
-METHOD_NAMES = ("zoh", "foh", "tustin", "matched", "impulse", "forward-euler", "backward-euler")
+from convert.methods import METHODS as METHOD_NAMES
 
 DESCRIPTION = """\
 Sample an analog controller at --fs with one or more methods and print, per method, the

@@ -47,6 +47,7 @@ import numpy as np
 
 from convert.controller import Controller
 from convert.errors import InputError
+from convert.digital.statespace import foh_matrices, realize, small_dense, zoh_matrices
 
 MAX_SIM_STEPS = 4_000_000
 
@@ -423,7 +424,6 @@ def _realize(c: Controller, key: str = "controller"):
             "an improper controller (more zeros than poles) cannot run in a loop simulation; add a derivative filter",
             key=key,
         )
-    from convert.digital.statespace import realize
 
     a, b, cc, d = realize(c.num, c.den)
     return a, b.reshape(-1, 1), cc.reshape(1, -1), float(d)
@@ -431,28 +431,14 @@ def _realize(c: Controller, key: str = "controller"):
 
 def _phi_gamma(a: np.ndarray, b: np.ndarray, t: float) -> tuple[np.ndarray, np.ndarray]:
     """Φ = e^{At} and Γ = ∫₀ᵗ e^{Aσ}dσ·B (exact zero-order-hold discretization over ``t``)."""
-    from scipy.linalg import expm
-
-    n = a.shape[0]
-    m = np.zeros((n + 1, n + 1))
-    m[:n, :n] = a * t
-    m[:n, n:] = b * t
-    e = expm(m)
-    return e[:n, :n], e[:n, n:]
+    return zoh_matrices(a, b, t)
 
 
 def _foh(a: np.ndarray, b: np.ndarray, h: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Exact discretization for an input linear over each step (first-order hold):
     x(h) = Φ·x(0) + Γs·w(0⁺) + Γe·w(h⁻). Returns (Φ, Γs, Γe) with Γs, Γe of shape (n,)."""
-    from scipy.linalg import expm
-
-    n = a.shape[0]
-    m = np.zeros((n + 2, n + 2))
-    m[:n, :n] = a * h
-    m[:n, n : n + 1] = b * h
-    m[n, n + 1] = 1.0
-    e = expm(m)
-    return e[:n, :n], e[:n, n] - e[:n, n + 1], e[:n, n + 1]
+    phi, g1, g2 = foh_matrices(a, b, h)
+    return phi, g1[:, 0] - g2[:, 0], g2[:, 0]
 
 
 def _delay_taps(a: np.ndarray, b: np.ndarray, h: float, delay: float) -> tuple[int, np.ndarray, np.ndarray]:
@@ -1175,7 +1161,6 @@ def one_blas_thread():
     """BLAS limited to one thread while the loop is simulated (its matrices are small, and waking
     a second thread costs more than the product): the one scoped limit the package has,
     :data:`convert.digital.statespace.small_dense`."""
-    from convert.digital.statespace import small_dense
 
     return small_dense
 

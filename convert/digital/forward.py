@@ -45,11 +45,7 @@ def zoh(analog: Controller, src: RootForm, t: float) -> tuple[RootForm, list[str
     n = a.shape[0]
     if n == 0:
         return RootForm((), (), d, t), []
-    em = np.zeros((n + 1, n + 1))
-    em[:n, :n] = a * t
-    em[:n, n:] = b * t
-    e = ss.expm(em)
-    phi, gam = e[:n, :n], e[:n, n:]
+    phi, gam = ss.zoh_matrices(a, b, t)
     poles = np.exp(np.asarray(src.poles) * t)
     return _state_space_result(poles, phi, gam, c, d, t), []
 
@@ -61,12 +57,7 @@ def foh(analog: Controller, src: RootForm, t: float) -> tuple[RootForm, list[str
     n = a.shape[0]
     if n == 0:
         return RootForm((), (), d, t), []
-    em = np.zeros((n + 2, n + 2))
-    em[:n, :n] = a * t
-    em[:n, n : n + 1] = b * t
-    em[n, n + 1] = 1.0
-    e = ss.expm(em)
-    phi, g1, g2 = e[:n, :n], e[:n, n : n + 1], e[:n, n + 1 :]
+    phi, g1, g2 = ss.foh_matrices(a, b, t)
     bd = g1 - g2 + phi @ g2
     dd = float(d + (c @ g2)[0, 0])
     poles = np.exp(np.asarray(src.poles) * t)

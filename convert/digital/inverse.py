@@ -21,17 +21,11 @@ from convert.controller import Controller
 from convert.digital import statespace as ss
 from convert.digital.roots import RootForm
 from convert.errors import InputError, UnrealizableError
+from convert.methods import INVERSE_METHODS
+from convert.polyroots import format_root
 
-INVERSE_METHODS: tuple[str, ...] = ("tustin", "zoh", "matched", "backward-euler")
 
 _TOL = 1e-9
-
-
-def _root_text(r: complex) -> str:
-    r = complex(r)
-    if abs(r.imag) <= 1e-12 * max(abs(r), 1e-300):
-        return format(r.real, ".6g")
-    return f"{r.real:.6g}{'+' if r.imag >= 0 else '-'}{abs(r.imag):.6g}j"
 
 
 def _refuse_negative_axis(roots, what: str, method: str) -> None:
@@ -47,7 +41,7 @@ def _refuse_negative_axis(roots, what: str, method: str) -> None:
             )
         if r.real < 0 and abs(r.imag) <= _TOL * max(1.0, abs(r)):
             raise UnrealizableError(
-                f"the {what} at z = {_root_text(r)} lies on the negative real axis; under {method} it has no real "
+                f"the {what} at z = {format_root(r)} lies on the negative real axis; under {method} it has no real "
                 "continuous equivalent (its logarithm is complex and has no conjugate partner). It oscillates at fs/2; "
                 "remove it (it is usually ringing from a sampled design), or try the conversion method tustin",
                 key="controller",
@@ -309,11 +303,7 @@ def _from_zoh(digital: Controller, dz: RootForm, t: float) -> RootForm:
         return RootForm((), (), dz.gain, None)
     poles = np.array([np.log(complex(p)) / t for p in dz.poles])
     a, b, _, _ = ss.cascade((), poles, 1.0)
-    em = np.zeros((n + 1, n + 1))
-    em[:n, :n] = a * t
-    em[:n, n:] = b * t
-    e = ss.expm(em)
-    phi, gam = e[:n, :n], e[:n, n:]
+    phi, gam = ss.zoh_matrices(a, b, t)
     # Fit points: the unit circle from well below the lowest pole angle up to just below fs/2.
     roots = np.asarray([r for r in dz.zeros + dz.poles if r != 0], complex)
     logs = np.abs(np.log(roots))

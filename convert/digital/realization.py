@@ -19,8 +19,9 @@ from convert.digital import statespace as ss
 from convert.digital.roots import RootForm
 from convert.errors import InputError, UnrealizableError
 from convert.jsonable import roots_json
+from convert.methods import METHODS
+from convert.polyroots import format_root
 
-METHODS: tuple[str, ...] = ("zoh", "foh", "tustin", "matched", "impulse", "forward-euler", "backward-euler")
 
 # The direct-form polynomial is said to lose accuracy when its response departs from the
 # zeros/poles form by more than this relative amount anywhere in the default band.
@@ -278,7 +279,7 @@ def _stability_warnings(src: RootForm, roots: RootForm, fs: float, method: str) 
     if len(outside) <= analog_marginal:
         return []
     new = [p for p in outside if abs(p - 1) > 1e-9]
-    shown = ", ".join(_fmt_root(p) for p in (new or outside))
+    shown = ", ".join(format_root(p) for p in (new or outside))
     text = (
         f"{method}: pole at z = {shown} lies on or outside the unit circle although the analog controller's "
         "matching pole is stable; the sampled controller is unstable"
@@ -287,13 +288,6 @@ def _stability_warnings(src: RootForm, roots: RootForm, fs: float, method: str) 
         need = max((abs(p) ** 2 / (2 * -p.real) for p in src.poles if p.real < 0), default=0.0)
         text += f"; use another method or raise fs above {need:.6g} Hz"
     return [text]
-
-
-def _fmt_root(r: complex) -> str:
-    r = complex(r)
-    if abs(r.imag) <= 1e-12 * max(abs(r), 1e-300):
-        return format(r.real, ".6g")
-    return f"{r.real:.6g}{'+' if r.imag >= 0 else '-'}{abs(r.imag):.6g}j"
 
 
 def _accuracy_warnings(controller: Controller, digital: Controller, roots: RootForm, fs: float) -> list[str]:

@@ -65,6 +65,38 @@ def expm(m: np.ndarray) -> np.ndarray:
 
 
 @small_dense
+def zoh_matrices(a: np.ndarray, b: np.ndarray, t: float) -> tuple[np.ndarray, np.ndarray]:
+    """Exact sampling of ``x' = A x + B w`` for ``w`` held constant over ``t`` (s): Φ = e^{At} and
+    Γ = ∫₀ᵗ e^{Aσ}dσ·B, read from one block-matrix exponential (Van Loan's construction)
+    exp([[A t, B t], [0, 0]]) = [[Φ, Γ], [0, I]]. ``b`` of shape (n, m); Γ has the same shape."""
+    from scipy.linalg import expm as _expm
+
+    n = a.shape[0]
+    m = np.zeros((n + b.shape[1], n + b.shape[1]))
+    m[:n, :n] = a * t
+    m[:n, n:] = b * t
+    e = _expm(m)
+    return e[:n, :n], e[:n, n:]
+
+
+@small_dense
+def foh_matrices(a: np.ndarray, b: np.ndarray, t: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Exact sampling for a single input ``w`` linear over each step of ``t`` (s):
+    exp([[A t, B t, 0], [0, 0, 1], [0, 0, 0]]) = [[Φ, Γ1, Γ2], [0, 1, 1], [0, 0, 1]] with
+    Γ1 = ∫₀ᵗ e^{Aσ}dσ·B and Γ2 = ∫₀ᵗ e^{Aσ}(t − σ)/t dσ·B, so that
+    x(t) = Φ x(0) + (Γ1 − Γ2) w(0) + Γ2 w(t). ``b`` of shape (n, 1); Γ1, Γ2 of shape (n, 1)."""
+    from scipy.linalg import expm as _expm
+
+    n = a.shape[0]
+    m = np.zeros((n + 2, n + 2))
+    m[:n, :n] = a * t
+    m[:n, n : n + 1] = b * t
+    m[n, n + 1] = 1.0
+    e = _expm(m)
+    return e[:n, :n], e[:n, n : n + 1], e[:n, n + 1 :]
+
+
+@small_dense
 def realize(num, den) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
     """A balanced cascade realization of a proper num/den (descending powers), built from its roots.
 
