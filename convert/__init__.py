@@ -28,7 +28,7 @@ _LAZY = {
     "pid_from_controller": ("convert.pid", "pid_from_controller"),
     "read_card": ("convert.api", "read_card"),
     # analog <-> digital
-    "METHODS": ("convert.digital.realization", "METHODS"),
+    "METHODS": ("convert.methods", "METHODS"),
     "discretize": ("convert.digital.realization", "discretize"),
     "to_analog": ("convert.digital.inverse", "to_analog"),
     "read_analog": ("convert.digital.inverse", "read_analog"),

@@ -212,10 +212,6 @@ class PidSettings:
         """ "P", "PI", "PD", "PID", "I", "ID" or "D" by which gains are non-zero."""
         return "".join(letter for letter, k in (("P", self.kp), ("I", self.ki), ("D", self.kd)) if k > 0)
 
-    @property
-    def has_filter(self) -> bool:
-        return self.tf > 0
-
     # ------------------------------------------------------------------ transfer functions
     def _polys(self, p_weight: float, d_weight: float) -> tuple[list[float], list[float]]:
         """num/den (descending s) of kp·bw + ki/s + kd·dw·s/(tf·s + 1), times the action sign."""
@@ -298,9 +294,6 @@ class PidSettings:
             if math.isclose(g_ti, td_series, rel_tol=1e-6) and math.isclose(g_td, ti_series, rel_tol=1e-6):
                 ti_series, td_series = td_series, ti_series  # the assignment the user gave (Ti′ < Td′)
         return SeriesForm(self.ki * ti_series, ti_series, td_series, tf, self.b, self.c, self.action)
-
-    def with_action(self, action: str) -> PidSettings:
-        return PidSettings(self.kp, self.ki, self.kd, self.tf, self.b, self.c, action, given_series=self.given_series)
 
     def table(self) -> dict[str, Any]:
         """All forms as plain numbers (JSON-ready; ``None`` where a value does not exist).

@@ -24,7 +24,6 @@ from convert.pid import (
 )
 
 EXAMPLES = int(os.environ.get("LOOPSHIFT_FUZZ_EXAMPLES", "50"))
-AH = "Åström & Hägglund, PID Controllers: Theory, Design, and Tuning, 2nd ed., 1995, section 3.4 (from memory)"
 
 gain = st.floats(min_value=0.01, max_value=100.0)
 time = st.floats(min_value=0.01, max_value=1000.0)

@@ -51,7 +51,6 @@ DIODE_FORWARD_V = 0.65
 # R, C and L values read from a netlist: far wider than any real part (1e-24 F .. 1e24 ohm), narrow
 # enough that conductances and capacitances stay well inside double range in the nodal analysis.
 PART_VALUE_RANGE = (1e-24, 1e24)
-DIODE_FORWARD_RANGE_V = (0.6, 0.7)
 
 # Directives that only steer a simulation: ignored with a note.
 _IGNORED_DIRECTIVES = {

@@ -76,17 +76,6 @@ SERIES: dict[str, tuple[float, ...]] = {
 }
 """Series name -> mantissas in [1, 10), ascending."""
 
-# The usual tolerance class of each series (IEC 60063), as a fraction. Common practice.
-SERIES_TOLERANCE: dict[str, float] = {
-    "E3": 0.40,
-    "E6": 0.20,
-    "E12": 0.10,
-    "E24": 0.05,
-    "E48": 0.02,
-    "E96": 0.01,
-    "E192": 0.005,
-}
-
 
 def get_series(name: str, *, key: str = "series") -> np.ndarray:
     """Mantissas of the series ``name`` (``"E12"``, case-insensitive) as a float array."""

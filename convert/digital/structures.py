@@ -258,10 +258,6 @@ def section_response(form: str, b, a, f_hz, t: float, delta: float | None) -> np
     return z_poly_response(b, a, f_hz, t)
 
 
-def section_poles(form: str, a, delta: float | None) -> tuple[list[complex], int]:
-    return delta_roots(a, delta) if form == "delta" else z_poly_roots(a)
-
-
 def section_zeros(form: str, b, delta: float | None) -> list[complex]:
     bb = [float(v) for v in b]
     while bb and bb[0] == 0:

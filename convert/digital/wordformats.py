@@ -45,11 +45,6 @@ class WordFormat:
         return self.kind == "fixed"
 
     @property
-    def unit_roundoff(self) -> float:
-        """Float: 2^-p (half an ulp at 1). Fixed: half an LSB of full scale, 2^-W."""
-        return 2.0 ** -(self.mantissa_bits if self.kind == "float" else self.bits)
-
-    @property
     def word_min(self) -> int:
         return -(1 << (self.bits - 1))
 
@@ -68,7 +63,6 @@ FORMATS: dict[str, WordFormat] = {
     "q15": WordFormat("q15", "fixed", 16, "int16_t", 32, "int32_t", label="Q15: 16-bit words, 32-bit accumulator"),
     "q31": WordFormat("q31", "fixed", 32, "int32_t", 64, "int64_t", label="Q31: 32-bit words, 64-bit accumulator"),
 }
-FORMAT_NAMES: tuple[str, ...] = tuple(FORMATS)
 
 
 def get_format(name: str, *, key: str = "word_format") -> WordFormat:
@@ -76,13 +70,6 @@ def get_format(name: str, *, key: str = "word_format") -> WordFormat:
         return FORMATS[str(name).lower()]
     except KeyError:
         raise InputError(f"unknown word format {name!r}; expected one of {', '.join(FORMATS)}", key=key) from None
-
-
-def round_half_up_shift(value: int, shift: int) -> int:
-    """``floor((value + 2^(shift-1)) / 2^shift)`` for Python ints (shift ≥ 1); ``value`` if 0."""
-    if shift <= 0:
-        return value
-    return (value + (1 << (shift - 1))) >> shift
 
 
 def quantize_coefficient(c: float, frac_bits: int) -> int:
