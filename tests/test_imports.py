@@ -222,10 +222,8 @@ def _writes(tree) -> list[tuple[int, str]]:
     return found
 
 
-def test_computational_modules_write_no_files():
-    """Issue 11 item 2: the computation never writes files (the report writers and the CLI do).
-    Read from each computational module's syntax tree: no ``open`` in a writing mode, no
-    ``write_text``/``write_bytes``/``savefig`` and no temporary files."""
+def _offenders(check) -> dict:
+    """Computational module name -> what ``check`` (a function of a syntax tree) found in it."""
     import ast
 
     root = _package_dir()
@@ -235,10 +233,18 @@ def test_computational_modules_write_no_files():
         path = root.joinpath(*rel).with_suffix(".py") if rel else root / "__init__.py"
         if not path.exists():
             path = root.joinpath(*rel, "__init__.py")
-        found = _writes(ast.parse(path.read_text(encoding="utf-8")))
+        found = check(ast.parse(path.read_text(encoding="utf-8")))
         if found:
             offenders[name] = found
-    assert offenders == {}
+    return offenders
+
+
+def test_computational_modules_write_no_files():
+    """Issue 11 item 2: the computation never writes files (the report writers and the CLI do).
+    Read from each computational module's syntax tree: no ``open`` in a writing mode, no
+    ``write_text``/``write_bytes``/``savefig`` and no temporary files."""
+
+    assert _offenders(_writes) == {}
 
 
 def test_the_write_check_can_fail():
@@ -308,19 +314,8 @@ def test_computational_errors_name_no_command_line_option():
     (``fs``, "conversion method"); each front end names them as its user wrote them (CLI option,
     case key). Read from the syntax tree of every computational module: no ``--option`` in the
     arguments of an error, nor in the default of a ``where``/``key``/``option`` parameter."""
-    import ast
 
-    root = _package_dir()
-    offenders = {}
-    for name in computational_modules():
-        rel = name.split(".")[1:]
-        path = root.joinpath(*rel).with_suffix(".py") if rel else root / "__init__.py"
-        if not path.exists():
-            path = root.joinpath(*rel, "__init__.py")
-        found = _option_names(ast.parse(path.read_text(encoding="utf-8")))
-        if found:
-            offenders[name] = found
-    assert offenders == {}
+    assert _offenders(_option_names) == {}
 
 
 def test_the_option_check_can_fail():
