@@ -212,7 +212,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 def run(args, console) -> int:
     from pathlib import Path
 
-    from convert.cli.common import band_from_args, count, emit_json, positive_value
+    from convert.cli.common import at, band_from_args, count, emit_json, positive_value
     from convert.compare.pair import compare_pair
     from convert.errors import InputError
     from convert.given import read_spec
@@ -267,13 +267,16 @@ def run(args, console) -> int:
 
         if draws_problem(draws):
             raise InputError(draws_problem(draws), key="--draws")
-    a = read_spec(args.a, "A", fs_hz=fs, base_dir=Path.cwd())
+    with at(None):  # names the settings a spec's error mentions (an expression in z: --fs)
+        a = read_spec(args.a, "A", fs_hz=fs, base_dir=Path.cwd())
     if args.sweep is not None:
         return _run_sweep(args, console, a, band, limits)
     if args.log is not None:
-        b = read_spec(args.b, "B", fs_hz=fs, base_dir=Path.cwd()) if args.b is not None else None
+        with at(None):
+            b = read_spec(args.b, "B", fs_hz=fs, base_dir=Path.cwd()) if args.b is not None else None
         return _run_log(args, console, a, b, limits_out)
-    b = read_spec(args.b, "B", fs_hz=fs, base_dir=Path.cwd())
+    with at(None):
+        b = read_spec(args.b, "B", fs_hz=fs, base_dir=Path.cwd())
     result = compare_pair(
         a,
         b,
