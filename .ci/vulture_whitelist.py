@@ -14,6 +14,7 @@ from convert.circuit.tolerance import WorstCase
 from convert.digital.fixedpoint import Realized
 from convert.digital.quantized import FormatAnalysis
 from convert.digital.wordformats import WordFormat
+from convert.pipeline import CardSource
 from convert.report.batch import CaseOutcome
 
 # --- the public API: convert.__all__, imported on first use (PEP 562 hooks, names as strings)
@@ -29,6 +30,7 @@ Criteria.max_gain_margin_change_db  # read by name from the criterion tables (co
 Criteria.max_sensitivity_peak_change_db
 Criteria.max_disturbance_deviation
 CaseOutcome.worst_realization  # convert.run_batch -> BatchResult.outcomes
+CardSource.handed_on  # convert.CardSource: the controller the targets are built from
 WorstCase.sensitivity_deg  # beside sensitivity_db: the phase half of the per-part sensitivity
 FormatAnalysis.coefficient_error  # word-format analysis of a realization (loopshift digital --word-format)
 FormatAnalysis.error_at_hz
