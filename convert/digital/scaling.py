@@ -101,8 +101,6 @@ def _fmt(x: float) -> str:
 
 
 # ----------------------------------------------------------------------------- signals in case files
-#: Keys of a signal table (``[target.digital.input_signal]`` / ``output_signal``).
-SIGNAL_KEYS = ("range", "firmware", "bits", "converter", "shunt")
 MAX_CONVERTER_BITS = 32
 
 
