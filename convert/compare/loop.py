@@ -422,9 +422,28 @@ def margins_of_responses(
     beyond what unwrapping on the grid can follow."""
     f = np.asarray(f_hz, dtype=float)
     rational = np.atleast_2d(controller_responses) * plant.frequency_response(f, via="zpk")[None, :]
-    phase = np.unwrap(np.angle(rational), axis=1) - 2 * np.pi * f[None, :] * dead_time_s
+    phase = unwrap_rows(np.angle(rational)) - 2 * np.pi * f[None, :] * dead_time_s
     loop = rational * np.exp(-2j * np.pi * f * dead_time_s)[None, :]
     return margins_many(f, np.abs(rational), phase, loop)
+
+
+def unwrap_rows(p: np.ndarray) -> np.ndarray:
+    """``np.unwrap(p, axis=1)`` (period 2π, discontinuity π) for a float 2-D array, value for
+    value, with the wrap arithmetic done only at the steps of at least π (on a margin grid
+    almost none): the correction of every other step is the 0 ``np.unwrap`` puts there."""
+    p = np.asarray(p, dtype=float)
+    dd = np.diff(p, axis=1)
+    correct = np.zeros_like(dd)
+    far = ~(np.abs(dd) < np.pi)
+    if far.any():
+        d = dd[far]
+        period = 2 * np.pi
+        dmod = np.mod(d - (-np.pi), period) + (-np.pi)
+        np.copyto(dmod, np.pi, where=(dmod == -np.pi) & (d > 0))
+        correct[far] = dmod - d
+    up = p.copy()
+    up[:, 1:] = p[:, 1:] + correct.cumsum(axis=1)
+    return up
 
 
 # ----------------------------------------------------------------------------- time domain
