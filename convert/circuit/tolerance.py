@@ -38,7 +38,9 @@ draws). Memory is O(chunk × frequencies + draws / 100) — at 1e6 draws the tai
 Chunks are drawn in order on the calling thread and may be shared among worker threads
 (``workers``; one by default, as two measured no faster on this machine), each with its own
 buffers and selections; the selections merge exactly, so neither the chunk size nor the number
-of workers changes a figure (tested).
+of workers changes a figure (tested). By default a run of many draws shares its chunks with a
+helper process on the second core instead (convert.sidework): both draw the same sequence, each
+reduces every other chunk, and the helper's selections are merged the same exact way.
 
 Arithmetic: without an op-amp model the responses come from the topology's polynomial
 coefficients in float32 real arithmetic (each frequency scaled by the nominal denominator's size there),
@@ -1115,9 +1117,10 @@ def run_tolerances(
     arrays``, :func:`convert.compare.loop.margins_of_responses`), the margin changes on
     ``loop_f_hz``. ``display_f_hz``: where the gain/phase band is wanted (with
     ``display_opamp``). ``dtype``: arithmetic of the coefficient path (float32; np.float64 to
-    check it). ``workers``: threads sharing the chunks (default :data:`DEFAULT_WORKERS`; the draws
-    are made in order on this thread and every selection merges exactly, so the figures are the
-    same for any count). ``loop_count``: count, for each comparison with a loop reference, the
+    check it). ``workers``: threads sharing the chunks (the draws are made in order on this thread and
+    every selection merges exactly, so the figures are the same for any count); left at None,
+    from :data:`HELPER_MIN_DRAWS` draws every other chunk goes to a helper process on the second
+    core (:func:`_two_core_run`, :mod:`convert.sidework`), else :data:`DEFAULT_WORKERS` threads. ``loop_count``: count, for each comparison with a loop reference, the
     draws whose closed loop with the plant is unstable (:func:`count_unstable`, on the op-amp
     model of that comparison). Returns :class:`ToleranceRun`."""
     draws = check_draws(draws)
