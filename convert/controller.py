@@ -221,6 +221,12 @@ class Controller:
         """Points whose roots are counted exactly: s = 0 (analog); z = 1 and z = −1 (digital)."""
         return (1.0, -1.0) if self.is_digital else (0.0,)
 
+    @cached_property
+    def _expanded_roots(self) -> tuple[tuple[complex, ...], tuple[complex, ...]]:
+        """(zeros, poles) repeated by multiplicity, as the factors :meth:`frequency_response`
+        multiplies in (kept once: the grid-free maxima evaluate one frequency at a time)."""
+        return tuple(self.zeros()), tuple(self.poles())
+
     # The object is immutable, so its roots are computed once (conversions ask for them often).
     @cached_property
     def _root_sets(self) -> tuple[tuple, tuple]:
@@ -320,7 +326,7 @@ class Controller:
         # the right answer there, not a warning.
         with np.errstate(divide="ignore", invalid="ignore"):
             if via == "zpk":
-                zeros, poles = self.zeros(), self.poles()
+                zeros, poles = self._expanded_roots
                 resp = np.full(x.shape, self.gain, dtype=complex)
                 for zr in zeros:
                     resp = resp * (x - zr)

@@ -360,3 +360,38 @@ def test_a_million_draws_stay_in_bounded_memory():
     small, big = _peak_mb(10_000), _peak_mb(1_000_000)
     assert big < MEMORY_LIMIT_MB
     assert big - small < 64, (small, big)
+
+
+def test_figures_on_two_cores_are_those_of_one(monkeypatch):
+    """Left at its default, the engine shares every other chunk with a helper process
+    (convert.sidework) from HELPER_MIN_DRAWS draws; its figures are identical to one thread's,
+    with a loop, a plant and an op-amp model (equality is the claim, as for the chunk size)."""
+    from convert import sidework
+    from convert.circuit.opamp import OpAmpModel
+    from convert.circuit.tolerance import HELPER_MIN_DRAWS
+    from convert.compare.loop import margins_of_responses
+    from convert.controller import from_expression
+
+    topo = get_topology("pid-single-amp")
+    f = np.logspace(-2, 2, 40)
+    loop_f = np.logspace(-2, 2, 50)
+    plant = from_expression("2/((3*s+1)*(0.5*s+1))")
+    ref, ref_l = _nominal(topo, PID, f), _nominal(topo, PID, loop_f)
+    model = OpAmpModel(1e4)
+    comps = [Comparison("tolerances", ref, None, ref_l), Comparison("total", ref * 1.01, model, ref_l)]
+    kw = dict(
+        f=f,
+        comparisons=comps,
+        draws=HELPER_MIN_DRAWS + 501,
+        seed=7,
+        loop_f_hz=loop_f,
+        display_opamp=model,
+        loop_margins=lambda r: margins_of_responses(loop_f, r, plant, 0.2),
+    )
+    one = _run(chunk=700, workers=1, **kw)
+    started = []
+    real_start = sidework.start
+    monkeypatch.setattr(sidework, "start", lambda fn, *a, **k: started.append(fn) or real_start(fn, *a, **k))
+    for chunk in (700, 100_000):  # chunks shared out, and one chunk halved
+        _same(one, _run(chunk=chunk, **kw))
+    assert len(started) == (2 if sidework.helpers_usable() else 0)

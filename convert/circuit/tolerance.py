@@ -38,7 +38,9 @@ draws). Memory is O(chunk × frequencies + draws / 100) — at 1e6 draws the tai
 Chunks are drawn in order on the calling thread and may be shared among worker threads
 (``workers``; one by default, as two measured no faster on this machine), each with its own
 buffers and selections; the selections merge exactly, so neither the chunk size nor the number
-of workers changes a figure (tested).
+of workers changes a figure (tested). By default a run of many draws shares its chunks with a
+helper process on the second core instead (convert.sidework): both draw the same sequence, each
+reduces every other chunk, and the helper's selections are merged the same exact way.
 
 Arithmetic: without an op-amp model the responses come from the topology's polynomial
 coefficients in float32 real arithmetic (each frequency scaled by the nominal denominator's size there),
@@ -1115,9 +1117,10 @@ def run_tolerances(
     arrays``, :func:`convert.compare.loop.margins_of_responses`), the margin changes on
     ``loop_f_hz``. ``display_f_hz``: where the gain/phase band is wanted (with
     ``display_opamp``). ``dtype``: arithmetic of the coefficient path (float32; np.float64 to
-    check it). ``workers``: threads sharing the chunks (default :data:`DEFAULT_WORKERS`; the draws
-    are made in order on this thread and every selection merges exactly, so the figures are the
-    same for any count). ``loop_count``: count, for each comparison with a loop reference, the
+    check it). ``workers``: threads sharing the chunks (the draws are made in order on this thread and
+    every selection merges exactly, so the figures are the same for any count); left at None,
+    from :data:`HELPER_MIN_DRAWS` draws every other chunk goes to a helper process on the second
+    core (:func:`_two_core_run`, :mod:`convert.sidework`), else :data:`DEFAULT_WORKERS` threads. ``loop_count``: count, for each comparison with a loop reference, the
     draws whose closed loop with the plant is unstable (:func:`count_unstable`, on the op-amp
     model of that comparison). Returns :class:`ToleranceRun`."""
     draws = check_draws(draws)
@@ -1178,6 +1181,9 @@ def run_tolerances(
         p_names=p_names,
         dtype=dtype,
     )
+    lead = _two_core_run(run, source, draws, chunk) if workers is None else None
+    if lead is not None:
+        return _tolerance_run(run, lead, seed, distribution, tolerances, chunk, h_nom, p_nom)
     crew = [_Worker(run) for _ in range(_workers(draws, chunk, workers))]
     batch: list = []
     first = 0
@@ -1209,6 +1215,53 @@ def run_tolerances(
     lead = crew[0]
     for w in crew[1:]:
         lead.merge(w)
+    return _tolerance_run(run, lead, seed, distribution, tolerances, chunk, h_nom, p_nom)
+
+
+#: Fewest draws for which the Monte Carlo is shared with a helper process (convert.sidework).
+HELPER_MIN_DRAWS = 1000
+
+
+def _two_core_run(run: dict, source: PartDraws, draws: int, chunk: int) -> _Worker | None:
+    """The reductions of every draw, every other chunk made in a helper process (the chunks
+    halved when there are fewer than two): each side draws the whole sequence from the same
+    seeded generators and processes its own chunks; the helper's selections travel back and are
+    merged exactly (the figures do not depend on the chunk size or on who processed a chunk).
+    None when no helper is used (too few draws, or none usable here)."""
+    from convert import sidework
+
+    if draws < HELPER_MIN_DRAWS or not sidework.helpers_usable():
+        return None
+    size = min(chunk, -(-draws // 2))
+
+    def share(part: int) -> _Worker:
+        w = _Worker(run)
+        first = 0
+        for i, drawn in enumerate(source.chunks(draws, size)):
+            if i % 2 == part:
+                w.process(drawn, first)
+            first += len(next(iter(drawn.values())))
+        return w
+
+    def helper_share():
+        w = share(1)
+        return w.reducers, w.disp_g, w.disp_d, w.par_sel
+
+    pending = sidework.start(helper_share)  # forks now: the helper starts from the same generators
+    try:
+        lead = share(0)
+    except BaseException:
+        pending.discard()
+        raise
+    other = _Worker(run)
+    other.reducers, other.disp_g, other.disp_d, other.par_sel = pending.result()
+    lead.merge(other)
+    return lead
+
+
+def _tolerance_run(run, lead, seed, distribution, tolerances, chunk, h_nom, p_nom) -> ToleranceRun:
+    """The :class:`ToleranceRun` from the merged reductions ``lead``."""
+    disp_f, band_percentiles, p_names, draws = run["disp_f"], run["band_percentiles"], run["p_names"], run["draws"]
     band = None
     if lead.disp_g is not None:
         lohi_g, lohi_d = lead.disp_g.result(), lead.disp_d.result()

@@ -202,22 +202,33 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
 
     realizations: list[Realization] = []
     advice: list[RateAdvice] = []
+    pending_advice = None
     if case.digital:
-        realizations += _digital_realizations(
-            case,
-            src,
-            analog_src,
-            band,
-            src_margins,
-            duration,
-            src_step,
-            src_dist,
-            tick,
-            card_limits=card_limits,
-            reduction=reduction,
-            setpoint_filter=src_filter,
+        from convert import sidework
+
+        # the sample-rate advice needs only the source loop: on a second core while the targets are built
+        pending_advice = sidework.start(
+            _rate_advice, case, analog_src, src_margins, src_step, src_dist, duration, src_stability
         )
-        advice = _rate_advice(case, analog_src, src_margins, src_step, src_dist, duration, src_stability)
+        try:
+            realizations += _digital_realizations(
+                case,
+                src,
+                analog_src,
+                band,
+                src_margins,
+                duration,
+                src_step,
+                src_dist,
+                tick,
+                card_limits=card_limits,
+                reduction=reduction,
+                setpoint_filter=src_filter,
+            )
+        except BaseException:
+            pending_advice.discard()
+            raise
+        advice = pending_advice.result()
         tick("sample-rate advice")
     if case.circuit:
         from convert.compare.circuitwork import circuit_realization

@@ -179,41 +179,38 @@ def margins_many(
     mag = np.asarray(magnitude, dtype=float)
     ph = np.asarray(phase_rad, dtype=float)
     logf = np.log10(f)
+    dlogf = np.diff(logf)
     n = mag.shape[0]
-    # gain crossovers: |L| passes through 1
-    lg = np.log10(np.maximum(mag, 1e-300))
-    s0, s1 = lg[:, :-1], lg[:, 1:]
-    cross = (s0 >= 0) & (s1 < 0) | (s0 < 0) & (s1 >= 0)
+    # Every figure is computed only at the crossings, element by element as over the whole grid
+    # (the same values); the grid-wide work is finding where the crossings are.
+    # gain crossovers: |L| passes through 1 (log10|L| changes sign: |L| ≥ 1 on one side only)
+    up, down = mag >= 1.0, mag < 1.0  # neither where |L| is NaN
+    r, c = np.nonzero(up[:, :-1] & down[:, 1:] | down[:, :-1] & up[:, 1:])
+    s0, s1 = _log10_clipped(mag[r, c]), _log10_clipped(mag[r, c + 1])
     with np.errstate(divide="ignore", invalid="ignore"):
-        frac = np.where(cross, s0 / (s0 - s1), 0.0)
-    fc_log = logf[:-1] + frac * np.diff(logf)
-    ph_c = ph[:, :-1] + frac * np.diff(ph, axis=1)
-    pm_all = np.degrees(ph_c) + 180.0
-    pm_all = (pm_all + 180.0) % 360.0 - 180.0  # wrap to [-180, 180)
-    pm_all = np.where(cross, pm_all, np.inf)
-    idx = np.argmin(np.abs(pm_all), axis=1)
-    rows = np.arange(n)
-    pm = pm_all[rows, idx]
-    has = np.isfinite(pm)
-    pm = np.where(has, pm, np.nan)
-    fc = np.where(has, 10 ** fc_log[rows, idx], np.nan)
-    # phase crossovers: phase passes through -180° - k·360°
+        frac = s0 / (s0 - s1)
+    fc_log = logf[c] + frac * dlogf[c]
+    ph_c = ph[r, c] + frac * (ph[r, c + 1] - ph[r, c])
+    pm_at = np.degrees(ph_c) + 180.0
+    pm_at = (pm_at + 180.0) % 360.0 - 180.0  # wrap to [-180, 180)
+    pick = _first_nearest_zero(r, pm_at, n)
+    pm, fc = _picked(pm_at, pick), 10 ** _picked(fc_log, pick)
+    # phase crossings: phase passes through -180° - k·360°
     psi = (ph + np.pi) / (2 * np.pi)
-    k0, k1 = np.floor(psi[:, :-1]), np.floor(psi[:, 1:])
-    pcross = k0 != k1
+    k = np.floor(psi)
+    r, c = np.nonzero(k[:, :-1] != k[:, 1:])
+    k0, k1 = k[r, c], k[r, c + 1]
     target = np.maximum(k0, k1)  # the level crossed (psi = integer)
     with np.errstate(divide="ignore", invalid="ignore"):
-        pfrac = np.where(pcross, (target - psi[:, :-1]) / (psi[:, 1:] - psi[:, :-1]), 0.0)
-    lg_p = s0 + pfrac * (s1 - s0)
-    gm_all = np.where(pcross, -20.0 * lg_p, np.inf)
+        pfrac = (target - psi[r, c]) / (psi[r, c + 1] - psi[r, c])
+    g0, g1 = _log10_clipped(mag[r, c]), _log10_clipped(mag[r, c + 1])
+    gm_at = -20.0 * (g0 + pfrac * (g1 - g0))
     # The crossing nearest 0 dB either way (python-control's stability_margins rule): a
     # conditionally stable loop's low-frequency crossing (|L| > 1, a negative figure) is a gain
     # *decrease* margin and must not hide the upward margin that is the smaller change.
-    pidx = np.argmin(np.abs(gm_all), axis=1)
-    gm = gm_all[rows, pidx]
-    hasg = np.isfinite(gm)
-    gm = np.where(hasg, gm, np.nan)
-    fp = np.where(hasg, 10 ** (logf[:-1] + pfrac * np.diff(logf))[rows, pidx], np.nan)
+    pick = _first_nearest_zero(r, gm_at, n)
+    gm, fp = _picked(gm_at, pick), 10 ** _picked(logf[c] + pfrac * dlogf[c], pick)
+    rows = np.arange(n)
     if loop is None:
         loop = mag * np.exp(1j * ph)
     sens = 1.0 / np.abs(1.0 + loop)
@@ -228,6 +225,36 @@ def margins_many(
         "sensitivity_peak_hz": f[si],
         "ms": ms,
     }
+
+
+def _log10_clipped(x: np.ndarray) -> np.ndarray:
+    """log10 of |L| as the margins take it (floored at 1e-300)."""
+    return np.log10(np.maximum(x, 1e-300))
+
+
+def _picked(values: np.ndarray, pick: np.ndarray) -> np.ndarray:
+    """``values[pick]``, NaN where ``pick`` is -1."""
+    if values.size == 0:
+        return np.full(pick.shape, np.nan)
+    return np.where(pick >= 0, values[np.maximum(pick, 0)], np.nan)
+
+
+def _first_nearest_zero(rows: np.ndarray, values: np.ndarray, n: int) -> np.ndarray:
+    """For each of ``n`` loops the index (into ``values``) of its crossing with the smallest
+    |value|, the first such one in frequency on a tie (as ``argmin`` along the grid), or -1 for a
+    loop with no crossing (or whose nearest one is not finite). ``rows`` (ascending, then in
+    frequency order, as ``np.nonzero`` gives them) says which loop each crossing belongs to."""
+    out = np.full(n, -1, dtype=np.intp)
+    if rows.size == 0:
+        return out
+    a = np.abs(values)
+    if np.isnan(a).any():  # argmin would take the first NaN: keep that rule exactly
+        a = np.where(np.isnan(a), -np.inf, a)
+    order = np.lexsort((np.arange(rows.size), a, rows))
+    firsts = order[np.concatenate([[True], rows[order][1:] != rows[order][:-1]])]
+    ok = np.isfinite(values[firsts])
+    out[rows[firsts[ok]]] = firsts[ok]
+    return out
 
 
 def loop_margins(
@@ -396,9 +423,28 @@ def margins_of_responses(
     beyond what unwrapping on the grid can follow."""
     f = np.asarray(f_hz, dtype=float)
     rational = np.atleast_2d(controller_responses) * plant.frequency_response(f, via="zpk")[None, :]
-    phase = np.unwrap(np.angle(rational), axis=1) - 2 * np.pi * f[None, :] * dead_time_s
+    phase = unwrap_rows(np.angle(rational)) - 2 * np.pi * f[None, :] * dead_time_s
     loop = rational * np.exp(-2j * np.pi * f * dead_time_s)[None, :]
     return margins_many(f, np.abs(rational), phase, loop)
+
+
+def unwrap_rows(p: np.ndarray) -> np.ndarray:
+    """``np.unwrap(p, axis=1)`` (period 2π, discontinuity π) for a float 2-D array, value for
+    value, with the wrap arithmetic done only at the steps of at least π (on a margin grid
+    almost none): the correction of every other step is the 0 ``np.unwrap`` puts there."""
+    p = np.asarray(p, dtype=float)
+    dd = np.diff(p, axis=1)
+    correct = np.zeros_like(dd)
+    far = ~(np.abs(dd) < np.pi)
+    if far.any():
+        d = dd[far]
+        period = 2 * np.pi
+        dmod = np.mod(d - (-np.pi), period) + (-np.pi)
+        np.copyto(dmod, np.pi, where=(dmod == -np.pi) & (d > 0))
+        correct[far] = dmod - d
+    up = p.copy()
+    up[:, 1:] = p[:, 1:] + correct.cumsum(axis=1)
+    return up
 
 
 # ----------------------------------------------------------------------------- time domain

@@ -183,12 +183,19 @@ def _advise(
             "that can be tested (they need a plant)",
             scanned_hz=(float(rates[0]), float(rates[-1])),
         )
-    limits = [", ".join(failures(float(fs), full=False)) for fs in rates]
-    ok_arr = np.array([not x for x in limits])
     checked = None
     limiting = "no criterion limits the rate in the scanned range"
-    # the lowest scanned rate from which every higher scanned rate passes the band criteria ...
-    start = next((i for i in range(len(rates)) if ok_arr[i:].all()), None)
+    # the lowest scanned rate from which every higher scanned rate passes the band criteria: scanned
+    # from the top down to the first rate that fails (the rates below it cannot change the answer) ...
+    limits = [""] * len(rates)
+    start: int | None = 0
+    for i in range(len(rates) - 1, -1, -1):
+        limits[i] = ", ".join(failures(float(rates[i]), full=False))
+        if limits[i]:
+            start = i + 1
+            break
+    if start == len(rates):
+        start = None
     if start is not None and loop_check is not None:
         # ... then up from there until the loop criteria pass too (they are costlier to check)
         while start < len(rates):

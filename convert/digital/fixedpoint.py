@@ -122,8 +122,6 @@ def peak_gains(layout: Layout) -> list[float]:
     """‖h_i‖₁ from the input to each section's output (inf once a pole on the unit circle is
     passed). Impulse responses in float64 run until the slowest pole has decayed by e^-30,
     at most 2·10^6 samples, plus a geometric bound on the rest."""
-    from scipy.signal import sosfilt, tf2sos
-
     out = []
     rows = []
     radius = 0.0
@@ -138,6 +136,8 @@ def peak_gains(layout: Layout) -> list[float]:
         if marginal:
             out.append(math.inf)
             continue
+        from scipy.signal import sosfilt, tf2sos  # only here: an integrating controller never needs it
+
         rows.extend(tf2sos(bb, aa) if n > 3 else [np.concatenate([bb, aa])])
         length = int(min(2e6, max(1000, math.ceil(30.0 / max(1.0 - radius, 1e-300)))))
         x = np.zeros(length)

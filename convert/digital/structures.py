@@ -27,6 +27,7 @@ descending powers of δ, ``a[0] = 1``: ``H(δ) = (b0 δ^m + … + bm) / (δ^m + 
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 from fractions import Fraction
 
@@ -214,12 +215,19 @@ def w_of(f_hz, t: float) -> np.ndarray:
     return 2j * np.sin(half) * np.exp(1j * half)
 
 
+@functools.lru_cache(maxsize=256)
+def _shifted_floats(coefs: tuple[float, ...]) -> tuple[float, ...]:
+    """:func:`_shift_to_w` rounded to floats, kept per coefficient tuple (the grid-free maxima
+    evaluate one section at one frequency at a time, thousands of times)."""
+    return tuple(float(v) for v in _shift_to_w(coefs))
+
+
 def z_poly_response(b, a, f_hz, t: float) -> np.ndarray:
     """B(z^-1)/A(z^-1) at z = e^{j2πfT}, evaluated in w = z − 1 from exactly shifted
     coefficients (accurate where z-domain roots crowd at 1)."""
     n = max(len(b), len(a))
-    bw = [float(v) for v in _shift_to_w(list(b) + [0.0] * (n - len(b)))]
-    aw = [float(v) for v in _shift_to_w(list(a) + [0.0] * (n - len(a)))]
+    bw = list(_shifted_floats(tuple(float(v) for v in b) + (0.0,) * (n - len(b))))
+    aw = list(_shifted_floats(tuple(float(v) for v in a) + (0.0,) * (n - len(a))))
     w = w_of(f_hz, t)
     return np.polyval(bw, w) / np.polyval(aw, w)
 

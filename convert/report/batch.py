@@ -132,10 +132,13 @@ def run_case(case_file: str, out_dir: str, *, force: bool = False, draws: int | 
         from convert.pipeline import run_pipeline
         from convert.report import write_report
 
+        from convert import sidework
+
         case = load_case(case_file)
         name = case.name
-        results = run_pipeline(case, draws=draws).results
-        folder = write_report(results, Path(out_dir), force=force)
+        with sidework.alone():  # the batch's workers keep the cores busy: no helper process per case
+            results = run_pipeline(case, draws=draws).results
+            folder = write_report(results, Path(out_dir), force=force)
         worst = _worst_judgement(results.verdict.judgements)
         checked = sum(1 for j in results.verdict.judgements if j.status in ("pass", "fail"))
         status = "pass" if results.exit_code == 0 else "fail"

@@ -388,14 +388,17 @@ def bode_title(results) -> str:
 
 
 def all_figures(results) -> dict[str, bytes]:
-    """name -> PNG bytes for every figure the results call for."""
-    out = {"bode.png": bode(results)}
+    """name -> PNG bytes for every figure the results call for. The figures are drawn on two
+    cores where a helper process is available (:mod:`convert.sidework`): the same drawing code on
+    the same results, so the PNG files are byte for byte those drawn on one core."""
+    jobs = [("bode.png", bode, (results,), 2.0 + 0.5 * len(results.realizations))]
     for r in results.realizations:
         if r.band is not None:
-            out[f"montecarlo-{_slug(r.name)}.png"] = monte_carlo(results, r)
+            jobs.append((f"montecarlo-{_slug(r.name)}.png", monte_carlo, (results, r), 3.0))
     if results.source_step is not None:
-        out["loop.png"] = loop_responses(results)
-    out["polezero.png"] = pole_zero(results)
+        jobs.append(("loop.png", loop_responses, (results,), 1.5 + 0.1 * len(results.realizations)))
+    jobs.append(("polezero.png", pole_zero, (results,), 1.0))
+    out = draw_figures(jobs)
     for r in results.realizations:
         if "schematic.png" in r.files:
             out[schematic_figure_name(r)] = _schematic_bytes(r.files["schematic.png"])
@@ -413,6 +416,37 @@ def _schematic_bytes(content) -> bytes:
     from convert.report.schematic import schematic_png
 
     return schematic_png(content) if isinstance(content, Schematic) else content
+
+
+def draw_figures(jobs) -> dict[str, bytes]:
+    """Draw ``jobs`` = [(name, function, args, weight)] (each function returns PNG bytes) and
+    return name -> bytes in the order of ``jobs``: the heaviest jobs, up to about half the total
+    weight, in a helper process while this one draws the rest."""
+    from convert import sidework
+
+    if len(jobs) < 2 or not sidework.helpers_usable():
+        return {name: fn(*args) for name, fn, args, _ in jobs}
+    import matplotlib.backends.backend_agg  # noqa: F401  (imported once, before the fork, for both)
+    import matplotlib.figure  # noqa: F401
+
+    total = sum(w for *_, w in jobs)
+    aside, weight = [], 0.0
+    for i in sorted(range(len(jobs)), key=lambda i: -jobs[i][3]):
+        if weight + jobs[i][3] <= 0.5 * total or not aside:
+            aside.append(i)
+            weight += jobs[i][3]
+    pending = sidework.start(_draw, [jobs[i] for i in aside])
+    try:
+        here = {i: jobs[i][1](*jobs[i][2]) for i in range(len(jobs)) if i not in aside}
+    except BaseException:
+        pending.discard()
+        raise
+    here.update(zip(aside, pending.result()))
+    return {jobs[i][0]: here[i] for i in range(len(jobs))}
+
+
+def _draw(jobs) -> list[bytes]:
+    return [fn(*args) for _, fn, args, _ in jobs]
 
 
 def _slug(text: str) -> str:

@@ -1,0 +1,121 @@
+"""Work on a second core: run a pure function in a forked helper process while this one goes on.
+
+:func:`start` hands ``fn(*args, **kwargs)`` to a one-process :class:`concurrent.futures.ProcessPoolExecutor`
+whose process is forked at once (Linux), so the helper inherits the function and its arguments
+as they are in memory — closures, controllers, results — and only the return value travels
+back (pickled). :meth:`Pending.result` returns it. The helper runs the same code on the same
+numbers, so what it returns is what this process would have computed: the figures, files and
+verdict do not depend on whether a helper was used.
+
+Where a helper cannot be used (no ``fork`` start method, one core, already inside a helper, or
+inside :func:`alone`), or when the helper fails in any way (an exception, a killed process, a
+result that cannot be pickled), the function runs here instead when its result is asked for, so
+an error surfaces exactly as it would without helpers. A task must therefore be pure: what it
+changes in its arguments is lost when it runs in a helper.
+
+``loopshift batch`` runs its cases inside :func:`alone`: its workers already keep the cores busy.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import contextvars
+import itertools
+import os
+import sys
+from collections.abc import Callable, Iterator
+from typing import Any
+
+_ALONE: contextvars.ContextVar[bool] = contextvars.ContextVar("loopshift_sidework_alone", default=False)
+_TASKS: dict[int, tuple[Callable, tuple, dict]] = {}
+_KEYS = itertools.count()
+_IN_HELPER = False
+
+
+@contextlib.contextmanager
+def alone() -> Iterator[None]:
+    """Within this block every :func:`start` runs its function in this process (no helper)."""
+    token = _ALONE.set(True)
+    try:
+        yield
+    finally:
+        _ALONE.reset(token)
+
+
+def helpers_usable() -> bool:
+    """True when :func:`start` would use a helper process here."""
+    if _ALONE.get() or _IN_HELPER or (os.cpu_count() or 1) < 2:
+        return False
+    import multiprocessing
+
+    return "fork" in multiprocessing.get_all_start_methods()
+
+
+def _run(key: int) -> tuple[str, Any]:
+    """In the helper: run the task left in memory under ``key`` by the fork."""
+    global _IN_HELPER
+    _IN_HELPER = True  # a helper starts no helpers of its own
+    fn, args, kwargs = _TASKS.pop(key)
+    try:
+        return "ok", fn(*args, **kwargs)
+    except BaseException:  # the caller runs it again here, so the error surfaces as without a helper
+        return "failed", None
+
+
+class Pending:
+    """The result of a task started by :func:`start` (computed here if the helper did not)."""
+
+    def __init__(self, fn: Callable, args: tuple, kwargs: dict, pool=None, future=None):
+        self._task = (fn, args, kwargs)
+        self._pool, self._future = pool, future
+
+    def discard(self) -> None:
+        """Give up the task (its helper is stopped; a later :meth:`result` would compute it here)."""
+        if self._future is not None:
+            for proc in list((getattr(self._pool, "_processes", None) or {}).values()):
+                with contextlib.suppress(Exception):
+                    proc.terminate()
+            with contextlib.suppress(Exception):
+                self._pool.shutdown(wait=True, cancel_futures=True)
+            self._future = self._pool = None
+
+    def result(self) -> Any:
+        if self._future is not None:
+            try:
+                status, value = self._future.result()
+            except Exception:  # the helper died or its result could not be pickled
+                status, value = "failed", None
+            finally:
+                self._pool.shutdown(wait=True)
+                self._future = self._pool = None
+            if status == "ok":
+                self._task = None
+                return value
+        if self._task is None:
+            raise RuntimeError("the result of this task was already taken")
+        fn, args, kwargs = self._task
+        self._task = None
+        return fn(*args, **kwargs)
+
+
+def start(fn: Callable, /, *args, **kwargs) -> Pending:
+    """Start ``fn(*args, **kwargs)`` in a forked helper process (see the module docstring);
+    ``.result()`` of the returned :class:`Pending` gives its value."""
+    if not helpers_usable():
+        return Pending(fn, args, kwargs)
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
+
+    key = next(_KEYS)
+    _TASKS[key] = (fn, args, kwargs)
+    for stream in (sys.stdout, sys.stderr):  # nothing buffered here is written twice by the helper
+        with contextlib.suppress(Exception):
+            stream.flush()
+    try:
+        pool = ProcessPoolExecutor(max_workers=1, mp_context=multiprocessing.get_context("fork"))
+        future = pool.submit(_run, key)  # forks now: the helper holds the task
+    except Exception:
+        return Pending(fn, args, kwargs)
+    finally:
+        _TASKS.pop(key, None)
+    return Pending(fn, args, kwargs, pool, future)
