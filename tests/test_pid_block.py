@@ -268,3 +268,108 @@ def test_fixed_pid_c_matches_model(tmp_path, fmt, form, aw):
     assert got == want
     assert max(want) == model.q.hi and min(want) == model.q.lo  # both limits reached
     assert want[-230] == model.q.to_word(1.5, model.q.output_level)  # bumpless: the word set is the word out
+
+
+@pytest.mark.parametrize("fmt", ["q15", "q31"])
+def test_fixed_conditional_integration_holds_the_integral_word(fmt):
+    """Hand derivation (conditional integration, common practice), in fixed point: kp = 1,
+    ki = 1/s, T = 0.1 s, limits ±1, inputs within ±8 (0.5 and 5 are exact words). Error 5 drives
+    the output into +1 and further: the integral word stays exactly 0. Error −0.5 then: integration
+    resumes, u = −0.5 − 0.05·n within an output LSB plus the increments' rounding."""
+    m = _block(limits=(-1.0, 1.0), anti_windup="clamp", word_format=fmt, input_range=8.0).model()
+    assert all(m.step_int(*m.words(5.0, 0.0)) == m.q.hi for _ in range(50))
+    assert m.i == 0
+    out = [m.step(0.0, 0.5) for _ in range(5)]
+    tol = 1.5 * m.q.output_lsb
+    assert out == pytest.approx([-0.5 - 0.05 * n for n in range(5)], abs=tol)
+
+
+@pytest.mark.parametrize("fmt", ["q15", "q31"])
+def test_fixed_back_calculation_follows_the_tracking_time_constant(fmt):
+    """Hand derivation (back-calculation, Åström & Hägglund, Advanced PID Control — from memory):
+    saturated at u = 1 with constant e, I[n] = I* + (I[0] − I*)(1 − T/Tt)^n, I* = 1 − P + (Tt/T)·bi·e,
+    evaluated with the constants as stored; rounding adds at most one integral LSB per sample
+    (summed geometrically: LSB_I·Tt/T) and two output LSBs through u − v."""
+    from convert.digital.pidcheck import stored_constants
+
+    tt = 2.0
+    blk = _block(limits=(-1.0, 1.0), anti_windup="track", tracking_time_s=tt, word_format=fmt, input_range=10.0)
+    m = blk.model()
+    k = stored_constants(blk)
+    e, t = 5.0, 0.1
+    p = k["kp"] * e
+    i_star = 1 - p + k["bi"] * e / k["ao"]
+    got = []
+    for _ in range(60):
+        got.append(m.integral())
+        m.step(e, 0.0)
+    want = [i_star * (1 - (1 - k["ao"]) ** n) for n in range(60)]
+    lsb_i = m.q.output_level * 2.0**m.q.g_int / 2.0 ** (m.q.acc_bits - 1)
+    assert k["ao"] == pytest.approx(t / tt, rel=2.0 ** -(m.q.bits // 2))
+    assert np.max(np.abs(np.array(got) - want)) <= lsb_i * tt / t + 2 * m.q.output_lsb
+
+
+@pytest.mark.parametrize("fmt", ["q15", "q31"])
+def test_fixed_unsaturated_block_matches_lfilter_within_the_rounding_bound(fmt):
+    """Reference library: within its limits and with b = c = 1 the fixed-point block is the linear
+    filter kp + bi·z^-1/(1 − z^-1) + bd·(1 − z^-1)/(1 − ad·z^-1) of its stored constants
+    (scipy.signal.lfilter) on the quantized error, to within its rounding: ½ output LSB for P,
+    ½ for the integral's read-out, n·½ integral LSB for the increments, ½ derivative LSB/(1 − ad)."""
+    from scipy.signal import lfilter
+
+    from convert.digital.pidcheck import linear_b_a, stored_constants
+
+    blk = _block(kp=1.5, ki=0.8, kd=0.3, tf=0.05, fs=50.0, limits=(-400.0, 400.0), word_format=fmt, input_range=4.0)
+    m = blk.model()
+    rng = np.random.default_rng(4)
+    r = np.repeat(rng.uniform(-3, 3, size=40), 10)
+    y = (np.cumsum(rng.normal(size=400)) * 0.05).clip(-3.9, 3.9)
+    got = m.run(r, y)
+    words = np.array([m.words(a, b) for a, b in zip(r, y)], float)
+    e = (words[:, 0] - words[:, 1]) * 4.0 / 2.0 ** (m.q.bits - 1)
+    k = stored_constants(blk)
+    want = lfilter(*linear_b_a(k), e)
+    q = m.q
+    lsb_i = q.output_level * 2.0**q.g_int / 2.0 ** (q.acc_bits - 1)
+    lsb_d = q.output_level * 2.0**q.g_d / 2.0 ** (q.bits - 1)
+    n = np.arange(1, r.size + 1)
+    bound = q.output_lsb + n * 0.5 * lsb_i + 0.5 * lsb_d / (1 - k["ad"])
+    assert np.all(np.abs(got - want) <= bound)
+    assert np.max(np.abs(want)) < 400  # the limits were never reached
+
+
+def test_float32_integrator_stall_hand_derived():
+    """Hand derivation: kp = 2, ki = 2/s at 10 kHz in float32, output held at 10: the integral
+    (≈ 10, ulp 2^-20) moves only for increments bi·e above half an ulp, e ≥ 2^-21 / fl32(2e-4)."""
+    from convert.digital.pidcheck import block_stall
+
+    blk = _block(kp=2.0, ki=2.0, fs=1e4, limits=(-10.0, 10.0), word_format="float32")
+    want = 2.0**-21 / float(np.float32(2e-4))
+    got = block_stall(blk, 10.0, 10.0)
+    assert want <= got <= 1.06 * want
+
+
+def test_q15_integrator_stall_hand_derived():
+    """Hand derivation: the Q15 increment rs(gi·e_w, fi) (round half up) is nonzero for a
+    negative error word only when gi·|e_w| > 2^(fi−1): |e_w| ≥ floor(2^(fi−1)/gi) + 1, i.e. an
+    error above (that − ½)·S/2^15 in input units (inputs round half up)."""
+    from convert.digital.pidcheck import block_stall
+
+    blk = _block(kp=2.0, ki=0.01, fs=1e3, limits=(-10.0, 10.0), word_format="q15", input_range=10.0)
+    q = blk.model().q
+    words = (1 << (q.fi - 1)) // q.gi + 1
+    want = (words - 0.5) * 10.0 / 2**15
+    got = block_stall(blk, 10.0, 10.0)
+    assert want <= got <= 1.06 * (words + 0.5) * 10.0 / 2**15
+
+
+def test_float32_derivative_pole_rounded_to_one_fails():
+    """Independent computation: numpy.float32(Tf/(Tf + T)) == 1 for Tf/T = 1e8, so the stored
+    derivative filter has its pole on the unit circle: the analysis must fail it, never pass."""
+    from convert.digital.pidcheck import analyze_block
+
+    blk = _block(kp=1.0, ki=0.1, kd=1.0, tf=1e4, fs=1e4, limits=(-1.0, 1.0), word_format="float32")
+    assert np.float32(1e4 / (1e4 + 1e-4)) == 1.0
+    a = analyze_block(blk, np.logspace(-3, 2, 30))
+    assert not a.ok and any("unstable" in f for f in a.failures)
+    assert next(c for c in a.checks() if c["key"] == "firmware_stability")["status"] == "fail"

@@ -1,0 +1,292 @@
+"""What a word format does to the firmware PID block (:mod:`convert.digital.pidblock`): the
+analysis behind the report's word-format row and checks when a case asks for
+``structure = "pid_block"``, with the same figures as :mod:`convert.digital.quantized` gives the
+linear structures.
+
+* linear equivalent — from the error to the output, unsaturated (the feedback path: b and c
+  act on the setpoint only): C(z) = kp + bi·z⁻¹/(1 − z⁻¹) + bd·(1 − z⁻¹)/(1 − ad·z⁻¹);
+* coefficient error — the stored constants against the exact ones, relative to each;
+* stability — the integral is an accumulator (its pole is exactly z = 1 in every format); the
+  derivative filter's pole ad must lie inside the unit circle;
+* response error — the stored constants' linear equivalent against the exact one, over the band;
+* overflow (fixed point) — headroom of the derivative word over its peak-gain bound and of the
+  integral's full scale over U + |P|max (both ≥ 0 dB by construction, see
+  :mod:`convert.digital.pidfixed`);
+* integrator stall — the smallest constant error that still moves the integral (the
+  accumulating state) by at least half of what exact arithmetic does over 64 samples, started
+  with the output held at the level U and moving toward zero, in input units; a failure above
+  the input resolution (default R / 2^15).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from convert.errors import LoopshiftError
+
+STALL_SAMPLES = 64
+
+
+def linear_b_a(k: dict) -> tuple[np.ndarray, np.ndarray]:
+    """b/a (ascending in z⁻¹) of the block's feedback path from per-sample constants ``k``
+    (kp, bi, bd, ad): the common denominator (1 − z⁻¹)(1 − ad·z⁻¹)."""
+    kp, bi, bd, ad = (float(k[n]) for n in ("kp", "bi", "bd", "ad"))
+    one = np.array([1.0, -1.0])
+    fil = np.array([1.0, -ad])
+    num = kp * np.convolve(one, fil)
+    num = num + bi * np.convolve([0.0, 1.0], fil)
+    num = num + bd * np.convolve(one, one)
+    return num, np.convolve(one, fil)
+
+
+def stored_constants(block) -> dict[str, float]:
+    """The per-sample constants as the format stores them (float64 values)."""
+    k = block.constants()
+    if block.is_fixed:
+        from convert.digital.pidfixed import fixed_pid
+
+        return fixed_pid(block).stored(block.form)
+    if block.word_format == "float32":
+        return {n: float(np.float32(v)) for n, v in k.items()}
+    return dict(k)
+
+
+def linear_controller(block, stored: bool = True):
+    """The block's linear equivalent as a digital :class:`Controller` (stored or exact constants)."""
+    from convert.controller import Controller
+
+    b, a = linear_b_a(stored_constants(block) if stored else block.constants())
+    return Controller.from_b_a(b, a, block.sample_period_s, name="PID block")
+
+
+@dataclass(frozen=True)
+class PidBlockAnalysis:
+    """The figures for the PID block in one word format (see the module doc); the interface of
+    :class:`convert.digital.quantized.FormatAnalysis` where the report reads it."""
+
+    word_format: str
+    block: object = None
+    refused: str | None = None
+    coefficient_error: float | None = None
+    max_pole_radius: float | None = None
+    free_pole_radius: float | None = None
+    response_error: float | None = None
+    gain_error_db: float | None = None
+    phase_error_deg: float | None = None
+    error_at_hz: float | None = None
+    headroom_db: float | None = None
+    stall_error: float | None = None
+    stall_limit: float | None = None
+    input_range: float | None = None
+    output_level: float | None = None
+    failures: tuple[str, ...] = ()
+    notes: tuple[str, ...] = field(default=())
+    structure: str = "pid_block"
+
+    @property
+    def ok(self) -> bool:
+        return self.refused is None and not self.failures
+
+    @property
+    def realized(self):
+        """The block (its ``model()`` is what the loop simulation runs), None when refused."""
+        return None if self.refused else self.block
+
+    def checks(self) -> list[dict]:
+        """The always-on verdict checks, in the form of :meth:`FormatAnalysis.checks`."""
+        name = f"PID block / {self.word_format}"
+        if self.refused:
+            return [
+                dict(
+                    key="firmware_realizable",
+                    label=f"{name} can be built",
+                    unit="",
+                    limit=None,
+                    value=None,
+                    status="fail",
+                    note=self.refused,
+                )
+            ]
+        fails = " ".join(self.failures)
+        out = [
+            dict(
+                key="firmware_stability",
+                label=f"{name}: stored poles inside |z| = 1 (integrators apart)",
+                unit="|z|",
+                limit=1.0,
+                value=self.free_pole_radius,
+                status="fail" if "unstable" in fails else "pass",
+                note=next(
+                    (f for f in self.failures if "unstable" in f),
+                    f"derivative filter pole ad = {self.free_pole_radius:.10g}; the integral is an exact "
+                    "accumulator (pole at z = 1)",
+                ),
+            )
+        ]
+        if self.block is not None and self.block.is_fixed:
+            out.append(
+                dict(
+                    key="firmware_overflow",
+                    label=f"{name}: no overflow for inputs within ±{self.input_range:.4g}",
+                    unit="dB headroom",
+                    limit=None,
+                    value=self.headroom_db,
+                    status="fail" if "overflow" in fails else "pass",
+                    note="derivative word over its peak-gain bound; integral full scale over U + |P|max",
+                )
+            )
+        if self.stall_error is not None or "stall" in fails:
+            out.append(
+                dict(
+                    key="firmware_stall",
+                    label=f"{name}: integrator moves at the input resolution",
+                    unit="input units",
+                    limit=self.stall_limit,
+                    value=self.stall_error,
+                    status="fail" if "stall" in fails else "pass",
+                    note=f"smallest error that moves the integral at output level {self.output_level:.4g}",
+                )
+            )
+        return out
+
+    def summary(self) -> dict:
+        out = {k: v for k, v in self.__dict__.items() if k != "block"}
+        out["structure"] = "pid_block"
+        if self.block is not None and not self.refused:
+            out["form"] = self.block.form
+            out["anti_windup"] = self.block.anti_windup
+            out["tracking_time_s"] = self.block.tracking_time_s if self.block.anti_windup == "track" else None
+            out["limits"] = self.block.limits
+            out["constants"] = self.block.constants()
+            out["stored_constants"] = stored_constants(self.block)
+            if self.block.is_fixed:
+                from convert.digital.pidfixed import fixed_pid
+
+                q = fixed_pid(self.block)
+                out["words"] = {n: getattr(q, n) for n in q.__dataclass_fields__}
+        return out
+
+
+def analyze_block(block, band_f_hz, *, input_resolution: float | None = None) -> PidBlockAnalysis:
+    """Analyze ``block`` (a :class:`PidBlock`) in its word format over the band (Hz)."""
+    notes: list[str] = []
+    lim = block.limits
+    u = max(abs(lim[0]), abs(lim[1])) if lim else 1.0
+    if not lim:
+        notes.append("output level U = 1 (no output limits given)")
+    exact = linear_controller(block, stored=False)
+    if block.input_range:
+        r = float(block.input_range)
+    else:
+        from convert.digital.quantized import default_input_range
+
+        r = default_input_range(exact, u)
+        notes.append(
+            f"input range R = {r:.4g} (the error that drives the output to U through the largest gain "
+            "between fs/1000 and fs/2)"
+        )
+    res = float(input_resolution) if input_resolution else r / 2**15
+    base = dict(word_format=block.word_format, block=block, input_range=r, output_level=u, stall_limit=res)
+    try:
+        stored = stored_constants(block)
+        block.model()
+    except LoopshiftError as exc:
+        return PidBlockAnalysis(**base, refused=exc.message, notes=tuple(notes))
+    k = block.constants()
+    cerr = max((abs(stored[n] - v) / abs(v) for n, v in k.items() if v), default=0.0)
+    failures: list[str] = []
+    ad = stored["ad"]
+    if abs(ad) >= 1.0:
+        failures.append(
+            f"unstable: the derivative filter's pole is stored at ad = {ad:.10g} (Tf/(Tf + T) rounds to 1 in "
+            f"{block.word_format}); raise the filter time constant's share of the sample period or use float64"
+        )
+    f = np.asarray(band_f_hz, dtype=float)
+    got = linear_controller(block).frequency_response(f)
+    ref = exact.frequency_response(f)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rel = np.nan_to_num(np.abs(got / ref - 1), nan=np.inf)
+    from convert.compare.frequency import compare_responses
+
+    err = compare_responses(ref, got, f)
+    i = int(np.argmax(rel)) if rel.size else 0
+    headroom = None
+    if block.is_fixed:
+        from convert.digital.pidfixed import fixed_pid
+
+        q = fixed_pid(block)
+        parts = [20 * math.log10(q.output_level * 2.0**q.g_int / (q.output_level + q.p_bound))]
+        if q.d_bound > 0:
+            parts.append(20 * math.log10(q.output_level * 2.0**q.g_d / q.d_bound))
+        headroom = min(parts)
+        if headroom < 0:
+            failures.append(f"overflow: a node's bound is {-headroom:.3g} dB above its full scale")
+    stall = None
+    if block.ki > 0:
+        stall = block_stall(block, r, u)
+        if stall is None or stall > res:
+            shown = "no error up to the input range" if stall is None else f"{stall:.4g}"
+            failures.append(
+                f"integrator stall: at output level {u:.4g} the smallest error that still moves the integral is "
+                f"{shown} (input units), above the resolution {res:.4g}"
+            )
+    return PidBlockAnalysis(
+        **base,
+        coefficient_error=cerr,
+        max_pole_radius=1.0 if block.ki > 0 else abs(ad),
+        free_pole_radius=abs(ad),
+        response_error=float(rel[i]) if rel.size else 0.0,
+        gain_error_db=err.max_gain_error_db,
+        phase_error_deg=err.max_phase_error_deg,
+        error_at_hz=float(f[i]) if f.size else None,
+        headroom_db=headroom,
+        stall_error=stall,
+        failures=tuple(failures),
+        notes=tuple(notes),
+    )
+
+
+def block_stall(block, r: float, u: float) -> float | None:
+    """Smallest constant error (from ``r`` down by halves, then bisection) above which every error
+    tried moves the block's integral (:meth:`integral`) over :data:`STALL_SAMPLES` samples by at
+    least half of bi·e·STALL_SAMPLES, started with the output held at the level of the larger
+    limit (or ``u``) and moving toward zero (setpoint = e, measurement = 0, so P and D are
+    constant). None if even ``r`` does not move it."""
+    lim = block.limits
+    level = (lim[1] if abs(lim[1]) >= abs(lim[0]) else lim[0]) if lim else u
+    bi = block.constants()["bi"]
+    direction = -math.copysign(1.0, level) * math.copysign(1.0, bi)
+
+    def moves(e: float) -> bool:
+        m = block.model()
+        m.set_output(level, direction * e, 0.0)
+        m.step(direction * e, 0.0)
+        start = m.integral()
+        for _ in range(STALL_SAMPLES):
+            m.step(direction * e, 0.0)
+        want = bi * direction * e * STALL_SAMPLES
+        return (m.integral() - start) / want >= 0.5
+
+    hi = r
+    if not moves(hi):
+        return None
+    lo = None
+    while hi > r * 1e-12:
+        if not moves(hi / 2):
+            lo = hi / 2
+            break
+        hi /= 2
+    if lo is None:
+        return hi
+    for _ in range(40):
+        mid = math.sqrt(lo * hi)
+        if moves(mid):
+            hi = mid
+        else:
+            lo = mid
+        if hi / lo < 1.05:
+            break
+    return hi
