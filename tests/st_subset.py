@@ -3,16 +3,17 @@ translation that executes it (test tooling, independent of the emitter).
 
 Subset: ``(* comments *)``; one ``FUNCTION_BLOCK name`` with ``VAR_INPUT``/``VAR_OUTPUT``/``VAR``
 blocks of ``name : TYPE;`` (TYPE one of REAL, LREAL, BOOL); statements ``name := expr;`` and
-``IF name THEN statements END_IF;``; expressions with ``+ - *``, unary minus, parentheses,
-identifiers and decimal literals (``1.5``, ``2.0E-3``). REAL arithmetic rounds every operation
+``IF cond THEN statements {ELSIF cond THEN statements} [ELSE statements] END_IF;``; expressions
+with ``+ - *``, unary minus, parentheses, identifiers and decimal literals (``1.5``, ``2.0E-3``);
+conditions: a BOOL name, comparisons ``< > <= >= = <>`` of expressions, ``AND``, ``OR``, ``NOT``
+(precedence NOT, then AND, then OR, as IEC 61131-3 orders them). REAL arithmetic rounds every operation
 to IEEE single (IEC 61131-3 REAL is 32-bit), LREAL to double.
 
 Integers (the fixed-point blocks): types INT (16 bits), DINT (32), LINT (64); typed literals
 ``DINT#-5``; the conversions ``INT_TO_DINT``, ``DINT_TO_INT``, ``DINT_TO_LINT``,
 ``LINT_TO_DINT`` (a narrowing conversion of a value out of range is an error here); ``/`` on
-integers truncates toward zero (IEC 61131-3); ``IF a >= b THEN … ELSE … END_IF;`` with the
-comparisons ``> < >= <=``. Typing is strict: both operands of an operator, and an assignment's
-two sides, have the same type (no implicit conversion); a result outside its type's range is an
+integers truncates toward zero (IEC 61131-3). Typing is strict: both operands of an operator or
+a comparison, and an assignment's two sides, have the same type (no implicit conversion); a result outside its type's range is an
 error (the emitted code must never overflow).
 """
 
@@ -24,7 +25,7 @@ import numpy as np
 
 TOKEN = re.compile(
     r"\s*(?:(?P<int>(?:INT|DINT|LINT)#-?\d+)|(?P<num>\d+\.\d+(?:E[-+]?\d+)?)|(?P<id>[A-Za-z_][A-Za-z0-9_]*)"
-    r"|(?P<op>:=|>=|<=|[-+*/();:<>]))",
+    r"|(?P<op>:=|>=|<=|<>|[-+*/();:<>=]))",
     re.I,
 )
 INT_BITS = {"INT": 16, "DINT": 32, "LINT": 64}
@@ -38,11 +39,15 @@ KEYWORDS = {
     "END_VAR",
     "IF",
     "THEN",
+    "ELSIF",
+    "ELSE",
     "END_IF",
+    "AND",
+    "OR",
+    "NOT",
     "REAL",
     "LREAL",
     "BOOL",
-    "ELSE",
     "INT",
     "DINT",
     "LINT",
@@ -127,14 +132,21 @@ class FunctionBlock:
         while self._peek().upper() not in stop:
             if self._peek().upper() == "IF":
                 self._next()
-                cond = self._condition()
+                branches = []
+                cond = self._cond()
                 self._expect("THEN")
-                then = self._statements(("END_IF", "ELSE"))
+                body = self._statements(("ELSIF", "ELSE", "END_IF"))
+                branches.append((cond, body))
+                while self._peek().upper() == "ELSIF":
+                    self._next()
+                    cond = self._cond()
+                    self._expect("THEN")
+                    branches.append((cond, self._statements(("ELSIF", "ELSE", "END_IF"))))
                 other = []
                 if self._peek().upper() == "ELSE":
                     self._next()
                     other = self._statements(("END_IF",))
-                out.append(("if", cond, then, other))
+                out.append(("if", branches, other))
                 self._expect("END_IF")
                 self._expect(";")
             else:
@@ -149,17 +161,55 @@ class FunctionBlock:
                 self._expect(";")
         return out
 
-    def _condition(self):
+    def _cond(self):
+        """OR of ANDs of (NOT) comparisons or BOOL names."""
+        node = self._and()
+        while self._peek().upper() == "OR":
+            self._next()
+            node = ("or", node, self._and())
+        return node
+
+    def _and(self):
+        node = self._not()
+        while self._peek().upper() == "AND":
+            self._next()
+            node = ("and", node, self._not())
+        return node
+
+    def _not(self):
+        if self._peek().upper() == "NOT":
+            self._next()
+            return ("not", self._not())
+        if self._peek() == "(" and self._parenthesised_condition():
+            self._next()
+            node = self._cond()
+            self._expect(")")
+            return node
         if self._peek() in self.vars and self.vars[self._peek()] == "BOOL":
             return ("var", self._next())
         left, lt = self._typed(self._expr())
         op = self._next()
-        if op not in (">", "<", ">=", "<="):
+        if op not in ("<", ">", "<=", ">=", "=", "<>"):
             raise STError(f"expected a comparison, found {op}")
         right, rt = self._typed(self._expr())
         if not _same(lt, rt):
             raise STError(f"comparison of {lt} with {rt}")
         return ("cmp", op, left, right)
+
+    def _parenthesised_condition(self) -> bool:
+        """Whether the '(' at the cursor opens a condition (its matching ')' is not followed by an
+        arithmetic operator or a comparison) rather than an arithmetic group."""
+        depth, j = 0, self.i
+        while j < len(self.t):
+            if self.t[j] == "(":
+                depth += 1
+            elif self.t[j] == ")":
+                depth -= 1
+                if depth == 0:
+                    break
+            j += 1
+        nxt = self.t[j + 1] if j + 1 < len(self.t) else ""
+        return nxt not in ("+", "-", "*", "/", "<", ">", "<=", ">=", "=", "<>")
 
     def _typed(self, node):
         return node, self._type(node)
@@ -225,6 +275,8 @@ class FunctionBlock:
             self._expect(")")
             return ("conv", tok.upper(), inner)
         if tok in self.vars:
+            if self.vars[tok] == "BOOL":
+                raise STError(f"BOOL {tok} used in arithmetic")
             return ("var", tok)
         raise STError(f"unknown name or token {tok}")
 
@@ -244,18 +296,27 @@ class FunctionBlock:
     def _run(self, stmts, env, cast) -> None:
         for s in stmts:
             if s[0] == "if":
-                if self._test(s[1], env, cast):
-                    self._run(s[2], env, cast)
+                for cond, body in s[1]:
+                    if self._test(cond, env, cast):
+                        self._run(body, env, cast)
+                        break
                 else:
-                    self._run(s[3], env, cast)
+                    self._run(s[2], env, cast)
             else:
                 env[s[1]] = self._eval(s[2], env, cast)
 
-    def _test(self, cond, env, cast) -> bool:
-        if cond[0] == "var":
-            return bool(env[cond[1]])
-        a, b = self._eval(cond[2], env, cast), self._eval(cond[3], env, cast)
-        return {">": a > b, "<": a < b, ">=": a >= b, "<=": a <= b}[cond[1]]
+    def _test(self, node, env, cast) -> bool:
+        op = node[0]
+        if op == "var":
+            return bool(env[node[1]])
+        if op == "not":
+            return not self._test(node[1], env, cast)
+        if op == "and":
+            return self._test(node[1], env, cast) and self._test(node[2], env, cast)
+        if op == "or":
+            return self._test(node[1], env, cast) or self._test(node[2], env, cast)
+        a, b = self._eval(node[2], env, cast), self._eval(node[3], env, cast)
+        return {"<": a < b, ">": a > b, "<=": a <= b, ">=": a >= b, "=": a == b, "<>": a != b}[node[1]]
 
     def _eval(self, node, env, cast):
         op = node[0]

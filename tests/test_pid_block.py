@@ -373,3 +373,90 @@ def test_float32_derivative_pole_rounded_to_one_fails():
     a = analyze_block(blk, np.logspace(-3, 2, 30))
     assert not a.ok and any("unstable" in f for f in a.failures)
     assert next(c for c in a.checks() if c["key"] == "firmware_stability")["status"] == "fail"
+
+
+# ----------------------------------------------------------------------------- Structured Text
+ST_CASES = [
+    (form, aw, fmt, lim)
+    for fmt in ("float64", "float32")
+    for form, aw in (("positional", "clamp"), ("positional", "track"), ("positional", "none"), ("velocity", "clamp"))
+    for lim in ((-3.0, 4.0), None)
+    if not (lim is None and aw != "none")
+]
+
+
+@pytest.mark.parametrize("form,aw,fmt,lim", ST_CASES)
+def test_pid_structured_text_runs_like_the_model(form, aw, fmt, lim):
+    """The emitted PID function block is read by the parser for the subset (tests/st_subset.py:
+    IF/ELSIF/ELSE, comparisons, AND/OR) and its statements executed in Python with IEC 61131-3
+    REAL as IEEE single and LREAL as double, on the vectors of the C test (steps, ramp, noise,
+    saturation, a stretch in manual with output tracking, the switch to automatic, a reset):
+    bit-exact with the model, the first automatic output equal to the manual one."""
+    from tests.st_subset import FunctionBlock
+
+    blk = _block(
+        kp=2.0, ki=0.7, kd=0.4, tf=0.05, b=0.8, c=0.0, fs=100.0, form=form, anti_windup=aw, limits=lim,
+        word_format=fmt, action="direct" if aw == "none" else "reverse",
+    )  # fmt: skip
+    from convert.digital.pidblock import emit_pid_st
+
+    (text,) = emit_pid_st(blk, "pidst", source="test").values()
+    fb = FunctionBlock(text)
+    assert fb.name == "pidst" and fb.real == ("REAL" if fmt == "float32" else "LREAL")
+    cast = np.float32 if fmt == "float32" else float
+    env = fb.instance()
+    model = blk.model()
+    seq = _vectors_ry(np.random.default_rng(5), 5.0)
+    seq = seq[:900] + [("o", 0.3, 0.2, -1.25 + 0.01 * k) for k in range(20)] + [("x", 0.3, 0.2)] + seq[900:] + [("r", 0.0, 0.0)]
+    seq += [("x", 1.0, 0.5)] * 50
+    got, want, after = [], [], []
+    for item in seq:
+        r, y = cast(item[1]), cast(item[2])
+        if item[0] == "o":
+            out = fb.call(env, setpoint=r, measurement=y, manual=True, manual_output=cast(item[3]), reset=False)
+            assert out["u"] == cast(item[3])
+            model.set_output(float(cast(item[3])), float(r), float(y))
+            after.append(len(want))
+            continue
+        if item[0] == "r":
+            fb.call(env, setpoint=0.0, measurement=0.0, manual=False, manual_output=0.0, reset=True)
+            model.reset()
+            model.step(0.0, 0.0)
+            continue
+        got.append(float(fb.call(env, setpoint=r, measurement=y, manual=False, manual_output=0.0, reset=False)["u"]))
+        want.append(model.step(float(r), float(y)))
+    assert got == want
+    if lim:
+        assert max(want) == lim[1] and min(want) == lim[0]
+    assert got[after[19]] == pytest.approx(float(cast(-1.25 + 0.19)), abs=1e-6)  # bumpless after tracking
+    assert got[after[-1]] == pytest.approx(1.5, abs=1e-6)
+
+
+def test_pid_structured_text_refuses_fixed_point():
+    from convert.digital.pidblock import emit_pid_st
+    from convert.errors import InputError
+
+    blk = _block(limits=(-1.0, 1.0), word_format="q15", input_range=1.0)
+    with pytest.raises(InputError, match="Structured Text"):
+        emit_pid_st(blk, "p")
+
+
+@pytest.mark.parametrize(
+    "bad",
+    [
+        "FUNCTION_BLOCK f VAR_INPUT x : REAL; END_VAR VAR_OUTPUT y : REAL; END_VAR "
+        "IF x THEN y := x; END_IF; END_FUNCTION_BLOCK",  # a REAL as a condition
+        "FUNCTION_BLOCK f VAR_INPUT x : REAL; m : BOOL; END_VAR VAR_OUTPUT y : REAL; END_VAR "
+        "y := x + m; END_FUNCTION_BLOCK",  # a BOOL in arithmetic
+        "FUNCTION_BLOCK f VAR_INPUT x : REAL; END_VAR VAR_OUTPUT y : REAL; END_VAR "
+        "IF x < 1.0 THEN y := x; ELSE y := 1.0; END_FUNCTION_BLOCK",  # END_IF missing
+        "FUNCTION_BLOCK f VAR_INPUT x : REAL; END_VAR VAR_OUTPUT y : REAL; END_VAR "
+        "IF x << 1.0 THEN y := x; END_IF; END_FUNCTION_BLOCK",
+    ],
+)
+def test_structured_text_reader_refuses_conditions_outside_the_subset(bad):
+    """The subset reader's conditions are strict too (so the emitted PID text passing it means something)."""
+    from tests.st_subset import FunctionBlock, STError
+
+    with pytest.raises(STError):
+        FunctionBlock(bad)

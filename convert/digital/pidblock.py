@@ -331,3 +331,110 @@ def emit_pid_c(block: PidBlock, name: str, *, source: str = "") -> dict[str, str
             c.append(f"    st->i = st->i + {lit(k['bi'])} * e;")
         c += ["    (void)st->e_old;", "    return u;", "}", ""]
     return {f"{name}.h": "\n".join(h), f"{name}.c": "\n".join(c)}
+
+
+# ----------------------------------------------------------------------------- Structured Text
+def emit_pid_st(block: PidBlock, name: str, *, source: str = "") -> dict[str, str]:
+    """``{"NAME.st": text}``: the PID block as an IEC 61131-3 ``FUNCTION_BLOCK`` (float64 as
+    LREAL, float32 as REAL), statement for statement :meth:`PidModel.step`.
+
+    Inputs ``setpoint``, ``measurement``; ``manual`` (TRUE: the output follows ``manual_output``
+    and the state is set so the first automatic sample continues from it — output tracking and
+    bumpless transfer, :meth:`PidModel.set_output` every sample); ``reset`` (TRUE: clear the
+    state first). Output ``u``. Statements: assignments with + − * and parentheses, IF/ELSIF/ELSE
+    with comparisons, AND, OR."""
+    from convert.digital.codegen import _check_name, _st_real
+
+    _check_name(name)
+    if block.is_fixed:
+        raise InputError(
+            f"Structured Text is offered in float64 (LREAL) and float32 (REAL); {block.word_format} is for C",
+            key="format",
+        )
+    single = block.word_format == "float32"
+    ty = "REAL" if single else "LREAL"
+    cast = np.float32 if single else float
+
+    def lit(x) -> str:
+        text = _st_real(float(cast(x)), single)
+        return f"({text})" if text.startswith("-") else text
+
+    k = block.constants()
+    lim = block.limits
+    states = ("i", "d", "ds_old", "u_old", "p_old", "d_old", "e_old")
+    head = pid_head(block, name, source, lang="st")
+    lines = (
+        ["(*"]
+        + [f" * {x}" for x in head]
+        + [
+            " * Inputs: setpoint, measurement; manual (TRUE: u follows manual_output, the state tracks it);",
+            " * reset (TRUE: clear the state). Output: u.",
+            " *)",
+            f"FUNCTION_BLOCK {name}",
+            "VAR_INPUT",
+            f"    setpoint : {ty};",
+            f"    measurement : {ty};",
+            "    manual : BOOL;",
+            f"    manual_output : {ty};",
+            "    reset : BOOL;",
+            "END_VAR",
+            "VAR_OUTPUT",
+            f"    u : {ty};",
+            "END_VAR",
+            "VAR",
+        ]
+        + [f"    {n} : {ty};" for n in states + ("e", "p", "ds", "v", "stp")]
+        + ["END_VAR", ""]
+    )
+    zero = [f"    {n} := 0.0;" for n in states]
+    lines += ["IF reset THEN"] + zero + ["END_IF;"]
+    lines += [
+        "e := setpoint - measurement;",
+        f"p := {lit(k['kp'])} * ({lit(k['b'])} * setpoint - measurement);",
+        f"ds := {lit(k['c'])} * setpoint - measurement;",
+        "IF manual THEN",
+        *zero,
+        "    ds_old := ds;",
+    ]
+    if block.form == "positional":
+        lines.append("    i := manual_output - p;")
+    else:
+        lines += ["    u_old := manual_output;", "    p_old := p;"]
+    lines += [
+        "    u := manual_output;",
+        "ELSE",
+        f"    d := {lit(k['ad'])} * d + {lit(k['bd'])} * (ds - ds_old);",
+        "    ds_old := ds;",
+    ]
+    if block.form == "velocity":
+        lines.append(f"    v := u_old + ((p - p_old) + {lit(k['bi'])} * e_old + (d - d_old));")
+    else:
+        lines.append("    v := p + i + d;")
+    if lim:
+        lo, hi = lit(lim[0]), lit(lim[1])
+        lines += [
+            f"    IF v < {lo} THEN",
+            f"        u := {lo};",
+            f"    ELSIF v > {hi} THEN",
+            f"        u := {hi};",
+            "    ELSE",
+            "        u := v;",
+            "    END_IF;",
+        ]
+    else:
+        lines.append("    u := v;")
+    if block.form == "velocity":
+        lines.append("    u_old := u; p_old := p; d_old := d; e_old := e;")
+    elif block.anti_windup == "track":
+        lines.append(f"    i := i + {lit(k['bi'])} * e + {lit(k['ao'])} * (u - v);")
+    elif block.anti_windup == "clamp" and lim:
+        lines += [
+            f"    stp := {lit(k['bi'])} * e;",
+            f"    IF ((v >= {lo}) AND (v <= {hi})) OR ((v > {hi}) AND (stp < 0.0)) OR ((v < {lo}) AND (stp > 0.0)) THEN",
+            "        i := i + stp;",
+            "    END_IF;",
+        ]
+    else:
+        lines.append(f"    i := i + {lit(k['bi'])} * e;")
+    lines += ["END_IF;", "END_FUNCTION_BLOCK", ""]
+    return {f"{name}.st": "\n".join(lines)}
