@@ -207,6 +207,11 @@ def run(args, console) -> int:
     if lang not in LANGUAGES:
         raise InputError(f"expected c or st, found {args.lang!r}", key="--lang")
     st_fixed = lang == "st" and word.startswith("q")
+    if st_fixed and args.pid_block:
+        raise InputError(
+            "Structured Text of the PID block is written in double (LREAL) or float (REAL); q15/q31 are for C",
+            key="--format",
+        )
     if st_fixed and str(args.structure).lower() not in ST_FIXED_STRUCTURES + ("auto",):
         raise InputError(
             f"Structured Text in {args.fmt} is written for the structures direct2t and delta (integer words); "
@@ -220,9 +225,9 @@ def run(args, console) -> int:
         positive_value(args.input_resolution, "number", "--input-resolution") if args.input_resolution else None
     )
     if word.startswith("q") and rng is None:
+        what = "the setpoint and measurement range" if args.pid_block else "the error's range"
         raise InputError(
-            f"{args.fmt}{' Structured Text' if st_fixed else ''} needs --input-range LOW HIGH (the error's range "
-            "scales the words)",
+            f"{args.fmt}{' Structured Text' if st_fixed else ''} needs --input-range LOW HIGH ({what} scales the words)",
             key="--input-range",
         )
     controller, source = _controller(args)
@@ -234,7 +239,7 @@ def run(args, console) -> int:
         controller = scale_controller(controller, sc)
         source = f"{source} (scaled to firmware units: gain x {sc.gain:.6g})"
     if args.pid_block:
-        return _pid_block(args, console, controller, source, fs, word, lang, lim, sc)
+        return _pid_block(args, console, controller, source, fs, word, lang, lim, sc, rng)
     if controller.is_digital:
         raise InputError("give an analog controller (in s); the tool samples it at --fs", key="EXPR")
     if args.filter_n is not None:
@@ -410,17 +415,18 @@ def _scaling(args):
     return scaling(*maps)
 
 
-def _pid_block(args, console, controller, source, fs, word, lang, lim, sc=None) -> int:
-    """``--pid-block``: the PID block of convert.digital.pidblock in C."""
+def _pid_block(args, console, controller, source, fs, word, lang, lim, sc=None, rng=None) -> int:
+    """``--pid-block``: the PID block of convert.digital.pidblock in C (double, float, Q15, Q31) or
+    Structured Text (double, float), with its word-format analysis (convert.digital.pidcheck);
+    nothing is written when the analysis fails (exit 1)."""
     from convert.cli.common import at, emit_json, positive_value
     from convert.digital.pidblock import PidBlock, emit_pid_c
     from convert.errors import InputError
     from convert.pid import pid_from_controller, pid_from_words, why_not_pid
 
-    if lang != "c":
-        raise InputError("the PID block is written in C only (Structured Text: the linear controller)", key="--lang")
-    if word not in ("float64", "float32"):
-        raise InputError("the PID block is written in double or float", key="--format")
+    from convert.digital.pidblock import emit_pid_st
+    from convert.digital.pidcheck import analyze_block
+
     settings = pid_from_words(args.pid, where="--pid") if args.pid else pid_from_controller(controller)
     if settings is None:
         raise InputError(f"the controller is not a PID: {why_not_pid(controller)}", key="--pid-block")
@@ -446,8 +452,16 @@ def _pid_block(args, console, controller, source, fs, word, lang, lim, sc=None) 
             anti_windup=args.anti_windup,
             tracking_time_s=tt,
             word_format=word,
+            input_range=max(map(abs, rng)) if rng else None,
         )
-        files = emit_pid_c(block, args.name, source=source)
+        from convert.compare.frequency import comparison_grid, default_band_hz
+
+        band = comparison_grid(default_band_hz(controller, fs), fs, points_per_decade=20)
+        res = positive_value(args.input_resolution, "number", "--input-resolution") if args.input_resolution else None
+        check = analyze_block(block, band, input_resolution=res)
+        files = {}
+        if check.ok:
+            files = (emit_pid_c if lang == "c" else emit_pid_st)(block, args.name, source=source)
     paths = _write(args, files)
     info = {
         "kind": "pid-block",
@@ -460,11 +474,15 @@ def _pid_block(args, console, controller, source, fs, word, lang, lim, sc=None) 
         "constants": block.constants(),
         "word_format": word,
         "fs_hz": fs,
+        "structure": "pid_block",
+        "language": lang,
+        "ok": check.ok,
+        "analysis": check.summary(),
         "written": list(paths.values()),
     }
     if args.json:
         emit_json(console, info)
-        return 0
+        return 0 if check.ok else 1
     k = block.constants()
     if sc is not None:
         console.print(f"scaling: {sc.text}", markup=False)
@@ -484,7 +502,38 @@ def _pid_block(args, console, controller, source, fs, word, lang, lim, sc=None) 
         + (f"; limits {lim[0]:g} .. {lim[1]:g}" if lim else "; no output limits (no clamp)"),
         markup=False,
     )
+    _render_block_check(console, check)
+    if not check.ok:
+        console.print(f"not written: the PID block in {word} fails its checks (see above)", markup=False)
+        return 1
+    console.print(f"structure used: PID block ({block.form}) in {word}", markup=False)
     for p in paths.values():
         console.print(f"wrote {p}", markup=False)
+    for link in getattr(args, "link_notes", ()):
+        console.print(f"note: {link}", markup=False)
     console.print("The tool computes; it does not certify. Bench-test the code before a live swap.", markup=False)
     return 0
+
+
+def _render_block_check(console, check) -> None:
+    """The PID block's word-format analysis in a few lines (convert.digital.pidcheck)."""
+    p = console.print
+    if check.refused:
+        p(f"PID block not offered in {check.word_format}: {check.refused}", markup=False)
+        return
+    p(
+        f"quantization alone {check.gain_error_db:.3g} dB, {check.phase_error_deg:.3g} deg; "
+        f"derivative pole ad = {check.free_pole_radius:.10g}"
+        + (f"; headroom {check.headroom_db:.3g} dB" if check.headroom_db is not None else ""),
+        markup=False,
+    )
+    if check.stall_error is not None:
+        p(
+            f"integrator moves for errors above {check.stall_error:.4g} (input units) at output level "
+            f"{check.output_level:.4g}; resolution asked {check.stall_limit:.4g}",
+            markup=False,
+        )
+    for f in check.failures:
+        p(f"FAILS: {f}", markup=False)
+    for n in check.notes:
+        p(f"note: {n}", markup=False)
