@@ -29,7 +29,8 @@ from convert.limits import MAX_DEGREE, MAX_RATE_METHOD_PAIRS, MAX_RATES, excerpt
 SOURCE_FORMS = ("expression", "pid", "digital", "card", "netlist")
 WORD_FORMATS = ("float64", "float32", "q15", "q31")
 MAX_OPAMPS = 1000  # the largest op-amp cap a case file may give (far above any cascade loopshift plans)
-STRUCTURE_NAMES = ("direct1", "direct2t", "sections", "delta", "direct")
+STRUCTURE_NAMES = ("direct1", "direct2t", "sections", "delta", "direct", "pid_block")
+PID_BLOCK_KEYS = ("pid_form", "anti_windup", "tracking_time", "setpoint_weights")
 
 # Each table's allowed keys. A value of dict means a sub-table with its own keys;
 # None means "any key" (e.g. part names, PID keys checked by convert.pid).
@@ -59,6 +60,10 @@ SCHEMA: dict[str, Any] = {
             "code_languages": 1,
             "input_signal": {"range": 1, "firmware": 1, "bits": 1, "converter": 1, "shunt": 1},
             "output_signal": {"range": 1, "firmware": 1, "bits": 1, "converter": 1, "shunt": 1},
+            "pid_form": 1,
+            "anti_windup": 1,
+            "tracking_time": 1,
+            "setpoint_weights": 1,
         },
         "circuit": {
             "topology": 1,
@@ -114,7 +119,11 @@ class DigitalTarget:
     fixed-point words and bounds overflow; ``input_resolution`` the smallest error the integral
     must still act on (default: the input range / 2^15). ``input_signal``/``output_signal``: the
     card's signals mapped to firmware units (:func:`convert.digital.scaling.signal_map`); the
-    code is written for the controller rescaled to them."""
+    code is written for the controller rescaled to them. ``structure = "pid_block"`` (a PID
+    source): the firmware PID block of :mod:`convert.digital.pidblock` instead, with ``pid_form``
+    (positional, velocity), ``anti_windup`` (clamp, track, none), ``tracking_time_s`` (Tt, s, or
+    None for the rule of thumb) and ``setpoint_weights`` (b, c) or None for the source's; its
+    ``input_range`` is the setpoint and measurement range."""
 
     fs_hz: tuple[float, ...]
     methods: tuple[str, ...]
@@ -129,10 +138,18 @@ class DigitalTarget:
     input_resolution: float | None = None
     code_name: str = "controller"
     code_languages: tuple[str, ...] = ("c",)
+    pid_form: str = "positional"
+    anti_windup: str = "clamp"
+    tracking_time_s: float | None = None
+    setpoint_weights: tuple[float, float] | None = None
     where: str = ""
     input_signal: Any = None  # convert.digital.scaling.SignalMap: card input signal -> firmware units
     output_signal: Any = None  # the same for the output
     signal_text: tuple[str, ...] = ()  # one line per map, as read
+
+    @property
+    def is_pid_block(self) -> bool:
+        return self.structure == "pid_block"
 
     def delay_for(self, fs_hz: float) -> float:
         """Computation delay in seconds at the sample rate ``fs_hz``."""
@@ -610,6 +627,34 @@ def _read_tolerances(ctx: _Ctx, table: dict, dotted: str, default) -> dict:
     return out
 
 
+def _pid_block_options(ctx, dig: dict, key: str, structure: str) -> dict:
+    """The PID block's keys of ``[target.digital]`` (only with ``structure = "pid_block"``)."""
+    given = [k for k in PID_BLOCK_KEYS if k in dig]
+    if structure != "pid_block":
+        if given:
+            raise ctx.error(f"{key}.{given[0]}", 'this key belongs to the PID block: add structure = "pid_block"')
+        return {}
+    for k in ("methods", "prewarp"):
+        if k in dig:
+            raise ctx.error(
+                f"{key}.{k}",
+                "the PID block discretizes by its own rule (integral by forward Euler, derivative by backward "
+                f"difference); leave out {k}",
+            )
+    form = ctx.text(dig, "pid_form", f"{key}.pid_form", default="positional", choices=("positional", "velocity"))
+    aw = ctx.text(dig, "anti_windup", f"{key}.anti_windup", default="clamp", choices=("clamp", "track", "none"))
+    tt = ctx.value(dig, "tracking_time", f"{key}.tracking_time", "second", None, positive=True, allow_zero=False)
+    if tt is not None and aw != "track":
+        raise ctx.error(f"{key}.tracking_time", 'the tracking time constant belongs to anti_windup = "track"')
+    weights = None
+    if "setpoint_weights" in dig:
+        raw = dig["setpoint_weights"]
+        if not (isinstance(raw, list) and len(raw) == 2):
+            raise ctx.error(f"{key}.setpoint_weights", f"expected [b, c], e.g. [0.5, 0], found {excerpt(raw)}")
+        weights = tuple(ctx.value({"v": v}, "v", f"{key}.setpoint_weights", "number", None, positive=True) for v in raw)
+    return dict(pid_form=form, anti_windup=aw, tracking_time_s=tt, setpoint_weights=weights)
+
+
 def _refuse_repeats(ctx: _Ctx, dotted: str, raw: list, values: tuple, what: str) -> None:
     """A list of rates or methods names each entry once (a repeat doubled the work silently)."""
     seen: dict = {}
@@ -723,6 +768,7 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
                     f"word_format {word} needs input_range, the error's range in "
                     "controller input units that scales the words, e.g. input_range = [-10, 10]",
                 )
+        block = _pid_block_options(ctx, dig, key, structure)
         prewarp = ctx.value(dig, "prewarp", f"{key}.prewarp", "hz", None, positive=True, allow_zero=False)
         if prewarp is not None and prewarp >= min(fs) / 2:
             raise ctx.error(
@@ -748,6 +794,7 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
             input_resolution=resolution,
             code_name=code_name,
             code_languages=langs,
+            **block,
             where=ctx.where(key),
         )
     cir = ctx.table(table, "circuit", "target.circuit")

@@ -31,6 +31,7 @@ from convert.compare.rate import RateAdvice, advise
 from convert.compare.stability import LoopStability, loop_stability
 from convert.compare.stages import digital_budget, loop_spec, realized_controller
 from convert.compare.stages import fmt_hz as _fmt_hz
+from convert.compare.stages import fmt_s as _fmt_s
 from convert.compare.verdict import LOOP_CRITERIA, Verdict, judge
 from convert.controller import Controller
 from convert.case import SETTING_KEYS
@@ -224,6 +225,7 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
                 card_limits=card_limits,
                 reduction=reduction,
                 setpoint_filter=src_filter,
+                source_pid=info.pid,
             )
         except BaseException:
             pending_advice.discard()
@@ -524,9 +526,8 @@ def _digital_realizations(
     card_limits=None,
     reduction=None,
     setpoint_filter=None,
+    source_pid=None,
 ):
-    from convert.digital import discretize
-
     tgt = case.digital
     out = []
     filtered, filter_note = _filtered(case, analog_src)
@@ -539,45 +540,42 @@ def _digital_realizations(
                 key="target.digital.fs",
             )
         delay = tgt.delay_for(fs)
-        for method in tgt.methods:
-            try:
-                real = discretize(filtered, fs, method, prewarp_hz=tgt.prewarp_hz)
-            except LoopshiftError as exc:
-                exc.name_settings(SETTING_KEYS)
-                raise type(exc)(
-                    exc.message, where=case.where("target.digital.methods"), key="target.digital.methods"
-                ) from None
-            cd = real.controller
-            warnings = list(real.warnings)
-            firmware = _firmware(case, real, band)
-            scaled = _signal_scaling(case, filtered, real, band, firmware, firmware_output_limits(case, card_limits))
-            cq = cd if firmware.realized is None else realized_controller(firmware.realized)
-            name = f"{method} @ {_fmt_hz(fs)}"
+        for method in ("pid_block",) if tgt.is_pid_block else tgt.methods:
+            if tgt.is_pid_block:
+                fw = _pid_block_firmware(case, filtered, fs, band, source_pid, card_limits)
+            else:
+                fw = _linear_firmware(case, filtered, fs, method, band, card_limits)
+            cq, firmware, scaled = fw.stored, fw.analysis, fw.scaled
+            warnings = list(fw.warnings)
+            name = f"{fw.label} @ {_fmt_hz(fs)}"
             budget = list(
                 digital_budget(
                     src,
                     analog_src,
                     filtered,
-                    real,
+                    fw.real,
                     firmware,
                     band,
                     delay_s=delay,
-                    structure=tgt.structure,
+                    structure=fw.structure,
                     word_format=tgt.word_format,
                     filter_note=filter_note,
                     plant=case.plant,
                     reduction=reduction,
+                    stored=fw.budget_stored,
+                    method_text=fw.method_text,
+                    word_note=fw.word_note,
                 )
             )
             details = {
-                "method": method,
+                "method": fw.label,
                 "fs_hz": fs,
                 "delay_s": delay,
                 "prewarp_hz": tgt.prewarp_hz,
                 "b": list(cq.b),
                 "a": list(cq.a),
                 "word_format": tgt.word_format,
-                "structure": tgt.structure,
+                "structure": fw.structure,
                 "firmware": {
                     **firmware.summary(),
                     "checks": firmware.checks() + ([scaled["check"]] if scaled else []),
@@ -585,8 +583,8 @@ def _digital_realizations(
                 "signal_scaling": {k: v for k, v in scaled.items() if k not in ("analysis", "check")}
                 if scaled
                 else None,
-                "difference_equation": getattr(real, "difference_equation", ""),
-                "notes": list(getattr(real, "notes", ())),
+                "difference_equation": fw.difference_equation,
+                "notes": list(fw.notes),
                 "output_limits": firmware_output_limits(case, card_limits),
             }
             r = Realization(
@@ -597,7 +595,7 @@ def _digital_realizations(
                 budget=budget,
                 seen=lambda f, c=cq, d=delay: response_seen_from_loop(c, f, delay_s=d, via="zpk"),
                 warnings=warnings,
-                files=_code_files(case, firmware, name, method, scaled),
+                files=fw.code_files(name),
             )
             if case.plant is not None:
                 r.margins = loop_margins(cq, case.plant.model, case.plant.dead_time_s, delay_s=delay)
@@ -607,13 +605,153 @@ def _digital_realizations(
                     r.step, r.disturbance = _simulate_pair(
                         case, cq, duration, delay, limits, realized=firmware.realized
                     )
-                    if setpoint_filter is not None:
+                    if setpoint_filter is not None and not tgt.is_pid_block:  # the block weighs r itself
                         r.warnings.append(CODE_NOT_WEIGHTED)
                 except InputError as exc:
                     r.warnings.append(f"time simulation skipped: {exc.message}")
             out.append(r)
             tick(f"digital {name}")
     return out
+
+
+@dataclass(frozen=True)
+class _Built:
+    """One firmware realization before it is compared: ``stored`` (as the word format stores it), ``analysis`` (its word-format checks), ``real``
+    (what :func:`convert.compare.stages.digital_budget` takes as the discretization result),
+    ``budget_stored`` / ``method_text`` / ``word_note`` (its keywords for a firmware that is not
+    a linear layout; None for a method's result), ``scaled`` (the signal scaling of
+    :func:`_signal_scaling`, None without maps), and what the report says of it."""
+
+    label: str
+    structure: str
+    stored: Controller
+    analysis: Any
+    real: Any
+    code_files: Callable
+    budget_stored: Controller | None = None
+    method_text: str | None = None
+    word_note: str | None = None
+    scaled: dict | None = None
+    warnings: tuple = ()
+    notes: tuple = ()
+    difference_equation: str = ""
+
+
+def _linear_firmware(case, filtered, fs, method, band, card_limits=None) -> _Built:
+    """A discretization method's result in the case's structure and word format."""
+    from convert.digital import discretize
+
+    tgt = case.digital
+    try:
+        real = discretize(filtered, fs, method, prewarp_hz=tgt.prewarp_hz)
+    except LoopshiftError as exc:
+        exc.name_settings(SETTING_KEYS)
+        raise type(exc)(exc.message, where=case.where("target.digital.methods"), key="target.digital.methods") from None
+    firmware = _firmware(case, real, band)
+    scaled = _signal_scaling(case, filtered, real, band, firmware, firmware_output_limits(case, card_limits))
+    cd = real.controller
+    return _Built(
+        label=method,
+        structure=tgt.structure,
+        stored=cd if firmware.realized is None else realized_controller(firmware.realized),
+        analysis=firmware,
+        real=real,
+        code_files=lambda name: _code_files(case, firmware, name, method, scaled),
+        scaled=scaled,
+        warnings=tuple(real.warnings),
+        notes=tuple(getattr(real, "notes", ())),
+        difference_equation=getattr(real, "difference_equation", ""),
+    )
+
+
+def _pid_block_firmware(case, filtered, fs, band, source_pid, card_limits) -> _Built:
+    """The firmware PID block (convert.digital.pidblock) of a PID source: its linear equivalent
+    with exact and stored constants, its word-format analysis (convert.digital.pidcheck), and its
+    code (C, Structured Text) when the analysis passes."""
+    import dataclasses
+    import types
+
+    from convert.digital.pidblock import PidBlock
+    from convert.digital.pidcheck import analyze_block, linear_controller
+    from convert.pid import pid_from_controller, why_not_pid
+
+    tgt = case.digital
+    if tgt.input_signal is not None or tgt.output_signal is not None:
+        key = "input_signal" if tgt.input_signal is not None else "output_signal"
+        raise InputError(
+            f'signal scaling ({key}) is not offered with structure = "pid_block"; give the PID in firmware units',
+            where=case.where(f"target.digital.{key}"),
+            key=f"target.digital.{key}",
+        )
+    settings = pid_from_controller(filtered)
+    if settings is None:
+        raise InputError(
+            f'structure = "pid_block" needs a source that is a PID: {why_not_pid(filtered)}',
+            where=case.where("target.digital.structure"),
+            key="target.digital.structure",
+        )
+    weights = tgt.setpoint_weights or ((source_pid.b, source_pid.c) if source_pid is not None else (1.0, 1.0))
+    settings = dataclasses.replace(settings, b=float(weights[0]), c=float(weights[1]))
+    rng = max(abs(tgt.input_range[0]), abs(tgt.input_range[1])) if tgt.input_range else None
+    try:
+        block = PidBlock.from_settings(
+            settings,
+            fs,
+            form=tgt.pid_form,
+            limits=firmware_output_limits(case, card_limits),
+            anti_windup=tgt.anti_windup,
+            tracking_time_s=tgt.tracking_time_s,
+            word_format=tgt.word_format,
+            input_range=rng,
+        )
+        check = analyze_block(block, band, input_resolution=tgt.input_resolution)
+    except LoopshiftError as exc:
+        raise type(exc)(
+            exc.message,
+            where=case.where("target.digital"),
+            key=f"target.digital.{exc.key}" if exc.key else "target.digital",
+        ) from None
+    cd = linear_controller(block, stored=False)
+    cq = cd if check.refused else linear_controller(block)
+    aw = block.anti_windup + (f" (Tt = {_fmt_s(block.tracking_time_s)})" if block.anti_windup == "track" else "")
+    k = block.constants()
+    return _Built(
+        label="PID block",
+        method_text="PID block (integral by forward Euler, derivative by backward difference)",
+        structure=f"pid_block ({block.form}, anti-windup {aw}, b = {block.b:g}, c = {block.c:g})",
+        stored=cq,
+        analysis=check,
+        real=types.SimpleNamespace(
+            method="pid_block", fs_hz=fs, controller=cd, frequency_response=cd.frequency_response
+        ),
+        budget_stored=cq,
+        word_note=f"PID block in {tgt.word_format} alone: the stored constants' linear equivalent (from the error, "
+        "within the limits) against the exact constants (both in z, no hold)",
+        code_files=lambda name: _pid_code_files(case, block, check, name),
+        difference_equation=(
+            f"P = {k['kp']:.6g}·({block.b:g}·r − y); D = {k['ad']:.6g}·D + {k['bd']:.6g}·Δ({block.c:g}·r − y); "
+            f"I += {k['bi']:.6g}·e" + (f" + {k['ao']:.6g}·(u − v)" if block.anti_windup == "track" else "")
+        ),
+    )
+
+
+def _pid_code_files(case, block, check, name: str) -> dict:
+    """The PID block's code under ``code/<realization>/`` when its checks pass (C; Structured Text
+    for float formats)."""
+    if not check.ok:
+        return {}
+    import re
+
+    from convert.digital.pidblock import emit_pid_c, emit_pid_st
+
+    tgt = case.digital
+    folder = "code/" + re.sub(r"[^A-Za-z0-9]+", "-", name).strip("-").lower()
+    files = {}
+    for lang in tgt.code_languages:
+        emit = emit_pid_c if lang == "c" else emit_pid_st
+        for fname, text in emit(block, tgt.code_name, source=case.title or "case source").items():
+            files[f"{folder}/{fname}"] = text
+    return files
 
 
 def _firmware(case, real, band):
@@ -805,6 +943,8 @@ def _rate_advice(
     fc = src_margins.crossover_hz if src_margins else None
 
     def conv(c, fs, m):
+        if m == "pid_block":  # the block's own rule (its linear equivalent), float64 constants
+            return _block_design(case, c, fs)
         cd = discretize(c, fs, m, prewarp_hz=tgt.prewarp_hz).controller
         if tgt.word_format == "float32":  # as the targets are built
             b32 = np.asarray(cd.b, dtype=np.float32).astype(float)
@@ -829,8 +969,17 @@ def _rate_advice(
             delay_samples=tgt.delay_samples,
             loop_check=check,
         )
-        for m in tgt.methods
+        for m in (("pid_block",) if tgt.is_pid_block else tgt.methods)
     ]
+
+
+def _block_design(case, filtered, fs):
+    """The PID block's linear equivalent with exact constants at ``fs`` (for the rate advice)."""
+    from convert.digital.pidblock import PidBlock
+    from convert.digital.pidcheck import linear_controller
+    from convert.pid import pid_from_controller
+
+    return linear_controller(PidBlock.from_settings(pid_from_controller(filtered), fs), stored=False)
 
 
 def _rate_loop_check(case, src_margins, src_step, src_dist, duration):

@@ -1286,7 +1286,8 @@ def _simulate_sampled(controller, plant, dead_time_s, delay_s, duration_s, h, r,
 
 
 def _simulate_realized(model, t_s, plant, dead_time_s, delay_s, duration_s, h, r, dist, limits, kind, pre=None):
-    """The sampled loop with a nonlinear controller model (``model.step(e) -> u``, user units): the
+    """The sampled loop with a nonlinear controller model (``model.step(e) -> u``, user units, or
+    ``model.step(r, y)`` when ``model.two_inputs``, a PID block weighing the setpoint itself): the
     plant advanced exactly at the sub-step h (a divisor of T) with its input's fractional delays
     (:func:`_delay_taps`), the model called once per sample, its output held and clamped."""
     from operator import mul
@@ -1308,10 +1309,11 @@ def _simulate_realized(model, t_s, plant, dead_time_s, delay_s, duration_s, h, r
     u_out = np.zeros(steps + 1)
     u_now = u_in = 0.0
     ref = _Prefilter(pre, r, t_s).samples(steps // every + 1)
+    two = getattr(model, "two_inputs", False)  # a PID block: step(setpoint, measurement)
     for k in range(steps + 1):
         y = sum(map(mul, c_row, x)) + d_p * u_in
         if k % every == 0:
-            v = model.step(ref[k // every] - y)
+            v = model.step(ref[k // every], y) if two else model.step(ref[k // every] - y)
             u_now = lo if v < lo else hi if v > hi else v
         u_hist.append(u_now)
         y_out[k], u_out[k] = y, u_now

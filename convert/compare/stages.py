@@ -54,6 +54,9 @@ def digital_budget(
     filter_note: str | None = None,
     plant=None,
     reduction=None,
+    stored: Controller | None = None,
+    method_text: str | None = None,
+    word_note: str | None = None,
 ) -> tuple[BudgetRow, ...]:
     """The error budget of one digital target (one rate, one method), as ``loopshift report``
     and ``loopshift digital`` show it: rows ``discretization``, ``hold_and_delay``,
@@ -68,12 +71,30 @@ def digital_budget(
     band grid in Hz (:func:`convert.compare.frequency.log_grid`, 100 points per decade);
     ``delay_s``: the computation delay in seconds; ``plant`` (``.model``, ``.dead_time_s``): adds
     the margin changes of each row.
+
+    A firmware that is not a linear layout (the PID block, :mod:`convert.digital.pidcheck`) gives
+    ``stored``: the controller as its word format stores it, whose response is then the word-format
+    row's candidate against ``real.controller``'s; ``real`` then needs only ``method``, ``fs_hz``,
+    ``controller`` and ``frequency_response``. ``method_text`` and ``word_note`` replace the words
+    of the discretization and word-format rows' notes.
     """
-    src, analog_src, delay, method = source, analog, delay_s, real.method
+    src, analog_src, delay = source, analog, delay_s
+    method = method_text or real.method
     fs = real.fs_hz
     cd = real.controller
     t = 1.0 / fs
-    cq = cd if firmware.realized is None else realized_controller(firmware.realized)
+    if stored is not None:
+        cq = cd if firmware.realized is None else stored
+        design_response, stored_response = real.frequency_response, stored.frequency_response
+    else:
+        from convert.digital.quantized import realized_response
+
+        cq = cd if firmware.realized is None else realized_controller(firmware.realized)
+        design_response = real.frequency_response
+
+        def stored_response(f):
+            return realized_response(firmware.realized, f)
+
     ref_band = response_seen_from_loop(src, band, via="zpk")
     loop_f = margin_grid(cq, plant.model) if plant is not None else None
     spec = loop_spec(plant, loop_f) if loop_f is not None else None
@@ -115,20 +136,19 @@ def digital_budget(
         ),
     )
     if firmware.realized is not None:
-        from convert.digital.quantized import realized_response
-
         rows["word_format"] = bud.error_row(
             "word_format",
             band,
-            real.frequency_response(band),
-            realized_response(firmware.realized, band),
-            note=f"{structure} in {word_format} alone: the stored coefficients' response against the "
+            design_response(band),
+            stored_response(band),
+            note=word_note
+            or f"{structure} in {word_format} alone: the stored coefficients' response against the "
             "directly mapped zeros/poles (both in z, no hold)",
             loop=spec,
             loop_reference=lr(cd),
-            loop_candidate=None if loop_f is None else realized_response(firmware.realized, loop_f),
+            loop_candidate=None if loop_f is None else stored_response(loop_f),
             forms=(cd, cq),
-            evaluate=lambda f: (real.frequency_response(f), realized_response(firmware.realized, f)),  # noqa: B023
+            evaluate=lambda f: (design_response(f), stored_response(f)),
         )
     else:
         rows["word_format"] = bud.not_applicable(

@@ -140,6 +140,8 @@ class PidBlock:
 class PidModel:
     """The arithmetic of a :class:`PidBlock` (the reference its generated code is checked with)."""
 
+    two_inputs = True  # step(setpoint, measurement)
+
     def __init__(self, block: PidBlock):
         self.block = block
         self.cast = np.float32 if block.word_format == "float32" else float

@@ -254,7 +254,8 @@ def block_stall(block, r: float, u: float) -> float | None:
     tried moves the block's integral (:meth:`integral`) over :data:`STALL_SAMPLES` samples by at
     least half of bi·e·STALL_SAMPLES, started with the output held at the level of the larger
     limit (or ``u``) and moving toward zero (setpoint = e, measurement = 0, so P and D are
-    constant). None if even ``r`` does not move it."""
+    constant); the largest error tried moves the output by at most a quarter of the span between
+    the limits over the window. None if even that error does not move it."""
     lim = block.limits
     level = (lim[1] if abs(lim[1]) >= abs(lim[0]) else lim[0]) if lim else u
     bi = block.constants()["bi"]
@@ -270,7 +271,9 @@ def block_stall(block, r: float, u: float) -> float | None:
         want = bi * direction * e * STALL_SAMPLES
         return (m.integral() - start) / want >= 0.5
 
-    hi = r
+    # the largest error tried moves the output by a quarter of the span between the limits over the
+    # window, so the clamp (and conditional integration) never acts during the test
+    hi = min(r, (lim[1] - lim[0]) / (4 * STALL_SAMPLES * abs(bi))) if lim else r
     if not moves(hi):
         return None
     lo = None

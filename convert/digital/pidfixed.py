@@ -194,6 +194,8 @@ class PidFixedModel:
     words, output word times the output LSB), ``set_output``/``set_output_int``, ``integral()``
     (the accumulating state in output units)."""
 
+    two_inputs = True  # step(setpoint, measurement)
+
     def __init__(self, block):
         self.block = block
         self.q = fixed_pid(block)

@@ -415,8 +415,13 @@ def input_tables(results) -> list[Table]:
 
         card_lim = results.source.extra.get("output_limits")
         lim = firmware_output_limits(case, card_lim)
+        how = (
+            f"PID block ({t.pid_form}, anti-windup {t.anti_windup})"
+            if getattr(t, "is_pid_block", False)
+            else f"methods {', '.join(t.methods)}"
+        )
         text = (
-            f"sample rate {', '.join(hz(f) for f in t.fs_hz)}; methods {', '.join(t.methods)}; "
+            f"sample rate {', '.join(hz(f) for f in t.fs_hz)}; {how}; "
             f"computation delay {delay}; coefficients {t.word_format}"
         )
         if t.prewarp_hz:
