@@ -253,3 +253,43 @@ def test_digital_prints_the_structure_and_its_verdict(run_cli):
     assert float(line.split("alone ")[1].split(" dB")[0]) < 0.1
     r = run_cli(*base, "--structure", "ladder")
     assert r.code == 2 and "--structure" in r.err
+
+
+def test_pid_block_fixed_point_and_structured_text(run_cli, tmp_path):
+    """As a user: a steam-header pressure PID (our own) as a Q15 block with inputs within 0–16 bar
+    and a 0–100 % output, then as a Structured Text velocity block; the float32 block at the same
+    output level fails its stall check (half an ulp of 100 over ki·T = 0.0075: 5.1e-4 > 16/2^15)
+    and writes nothing (exit 1); Q15 without an input range is refused in one line."""
+    common = ["--pid", "kc=1.8", "ti=12s", "td=0.8s", "n=8", "b=0.7", "c=0", "--fs", "20Hz", "--pid-block"]
+    lim = ["--output-limits", "0", "100"]
+    r = run_cli(
+        "code", *common, *lim, "--format", "q15", "--input-range", "0", "16", "--name", "hdr", "--out", str(tmp_path)
+    )
+    assert r.code == 0, r.err
+    assert "int16_t hdr_step(hdr_state *st, int16_t setpoint, int16_t measurement);" in (tmp_path / "hdr.h").read_text()
+    assert "structure used: PID block (positional) in q15" in r.out
+    r = run_cli("code", *common, *lim, "--lang", "st", "--velocity", "--name", "hdst", "--out", str(tmp_path))
+    assert r.code == 0, r.err
+    assert "FUNCTION_BLOCK hdst" in (tmp_path / "hdst.st").read_text()
+    r = run_cli(
+        "code",
+        *common,
+        *lim,
+        "--format",
+        "float",
+        "--input-range",
+        "0",
+        "16",
+        "--name",
+        "f32",
+        "--out",
+        str(tmp_path),
+        "--json",
+    )
+    data = json.loads(r.out)
+    assert r.code == 1 and not data["ok"] and not (tmp_path / "f32.c").exists()
+    assert (
+        2.0**-18 / 0.0075 <= data["analysis"]["stall_error"] <= 1.06 * 2.0**-18 / 0.0075
+    )  # half an ulp of 100 / (ki T)
+    r = run_cli("code", *common, *lim, "--format", "q15", "--out", str(tmp_path))
+    assert r.code == 2 and "--input-range" in r.err and len(r.err.strip().splitlines()) == 1

@@ -407,7 +407,13 @@ def test_pid_structured_text_runs_like_the_model(form, aw, fmt, lim):
     env = fb.instance()
     model = blk.model()
     seq = _vectors_ry(np.random.default_rng(5), 5.0)
-    seq = seq[:900] + [("o", 0.3, 0.2, -1.25 + 0.01 * k) for k in range(20)] + [("x", 0.3, 0.2)] + seq[900:] + [("r", 0.0, 0.0)]
+    seq = (
+        seq[:900]
+        + [("o", 0.3, 0.2, -1.25 + 0.01 * k) for k in range(20)]
+        + [("x", 0.3, 0.2)]
+        + seq[900:]
+        + [("r", 0.0, 0.0)]
+    )
     seq += [("x", 1.0, 0.5)] * 50
     got, want, after = [], [], []
     for item in seq:

@@ -181,6 +181,7 @@ def test_cli_report_writes_the_blocks_code(run_cli, tmp_path):
     r = run_cli("report", str(path), "--out", str(tmp_path / "rep"))
     assert r.code in (0, 1), r.err
     hs = list((tmp_path / "rep").rglob("dryer.h"))
-    assert len(hs) == 1 and "int32_t dryer_step(dryer_state *st, int32_t setpoint, int32_t measurement);" in hs[
-        0
-    ].read_text()
+    assert (
+        len(hs) == 1
+        and "int32_t dryer_step(dryer_state *st, int32_t setpoint, int32_t measurement);" in hs[0].read_text()
+    )

@@ -171,7 +171,11 @@ def fixed_pid(block) -> FixedPid:
     # D words at U·2^gD: ad, then bd·c·S/S_D and bd·S/S_D per input-word difference (≤ 2^W)
     s_d = u * 2.0**g_d
     (ad, gdc, gd), fd = _fit(
-        [k["ad"], k["bd"] * k["c"] * s / s_d, k["bd"] * s / s_d], [half, 2 * half, 2 * half], word.word_max, a, "derivative"
+        [k["ad"], k["bd"] * k["c"] * s / s_d, k["bd"] * s / s_d],
+        [half, 2 * half, 2 * half],
+        word.word_max,
+        a,
+        "derivative",
     )
     full_int = u * 2.0 ** (VELOCITY_FINE if block.form == "velocity" else g_int)
     # integral increment in the integral's LSBs (full_int / 2^(A−1)) per error word (|e_w| ≤ 2^W)
