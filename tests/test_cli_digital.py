@@ -113,3 +113,32 @@ def test_analog_goes_back_and_checks_itself(run_cli):
     assert data["round_trip_max_relative_difference"] < 1e-12
     text = run_cli("analog", "(0.2 - 0.18 z^-1)/(1 - z^-1)", "--fs", "100Hz", "--method", "tustin")
     assert "C(s) =" in text.out and "integrators: 1" in text.out
+
+
+def test_structure_pid_block_is_said_and_judged(run_cli):
+    """--structure pid_block: the PID block's result is printed as such beside the methods (and in
+    --json as an entry "pid_block" with its analysis); a source that is not a PID is refused in
+    one line. The Q15 stall figure is half an input LSB (16/2^16 ≈ 2.44e-4), within the search's 6 %."""
+    args = ["--pid", "kc=1.8", "ti=12s", "td=0.8s", "n=8", "--fs", "20Hz", "--method", "tustin"]
+    more = [
+        "--structure",
+        "pid_block",
+        "--word-format",
+        "q15",
+        "--input-range",
+        "0",
+        "16",
+        "--output-limits",
+        "0",
+        "100",
+    ]
+    r = run_cli("digital", *args, *more)
+    assert r.code == 0, r.err
+    assert "structure: pid_block (the firmware PID block, positional" in r.out and "in q15" in r.out
+    r = run_cli("digital", *args, *more, "--json")
+    data = json.loads(r.out)
+    block = data[-1]
+    assert block["method"] == "pid_block" and block["firmware"]["structure"] == "pid_block"
+    assert 16 / 2**16 <= block["firmware"]["stall_error"] <= 1.06 * 16 / 2**16
+    r = run_cli("digital", "1/((s+1)*(s+2)*(s+3))", "--fs", "20Hz", "--structure", "pid_block")
+    assert r.code == 2 and "pid_block needs a PID" in r.err and len(r.err.strip().splitlines()) == 1

@@ -116,7 +116,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
         metavar="S",
         default="direct1",
         help="firmware arithmetic the coefficients are judged in: direct1, direct2t, sections, delta "
-        "(default direct1: b/a as printed), e.g. --structure sections",
+        "(default direct1: b/a as printed), or pid_block (a PID source: the firmware PID block, its own "
+        "rule, judged beside the methods), e.g. --structure sections",
     )
     parser.add_argument(
         "--word-format",
@@ -234,23 +235,31 @@ def run(args, console) -> int:
             gain_limit_db=limits[0],
             phase_limit_deg=limits[1],
         )
-    firmware = _firmware(args, survey)
+    block = None
+    if str(args.structure).lower() == "pid_block":
+        block = _pid_block_check(args, survey, _pid, fs)
+        firmware = {}
+    else:
+        firmware = _firmware(args, survey)
     plant = _plant(args)
     # the report's figures per method (its budget rows, its loop check) for --json and --plant: the
-    # refined word-format row costs about 0.2 s a method, so the quick table ranks on the survey alone
-    stages = _pipeline_figures(controller, survey, firmware, args, plant) if args.json or plant is not None else {}
+    # refined word-format row costs about 0.2 s a method, so the quick table ranks on the survey alone;
+    # with pid_block the methods are not built in a structure (the block is the firmware): no figures
+    want = (args.json or plant is not None) and firmware
+    stages = _pipeline_figures(controller, survey, firmware, args, plant) if want else {}
     if args.json:
         out = []
         for row in survey.rows:
             item = row.summary()
-            budget, loop = stages[row.realization.method]
-            item["method_error"].update(_maxima(budget))
-            item["budget"] = [r.as_dict() for r in budget]
-            if loop is not None:
-                item["loop"] = loop.as_dict()
+            if row.realization.method in stages:
+                budget, loop = stages[row.realization.method]
+                item["method_error"].update(_maxima(budget))
+                item["budget"] = [r.as_dict() for r in budget]
+                if loop is not None:
+                    item["loop"] = loop.as_dict()
             item["structure"] = args.structure
             item["word_format"] = args.word_format
-            item["firmware"] = firmware[row.realization.method].summary()
+            item["firmware"] = firmware[row.realization.method].summary() if firmware else None
             item["best"] = row.realization.method == survey.best
             item["delay_s"] = survey.delay_s
             # the analog controller the coefficients came from (after any derivative filter)
@@ -262,12 +271,24 @@ def run(args, console) -> int:
                     "error": survey.filter_error.summary(),
                 }
             out.append(item)
+        if block is not None:
+            out.append(_block_item(block))
         emit_json(console, out)
-        return 0
+        return 0 if block is None or block.ok else 1
     _render(console, survey, controller, firmware, {m: _maxima(b) for m, (b, _) in stages.items()})
     for method, (_, loop) in stages.items():
         if loop is not None and loop.margins is not None:
             console.print(f"loop with the plant, {method}: {_margins_text(loop.margins)}", markup=False)
+    if block is not None:
+        from convert.cli.code import _render_block_check
+
+        console.print(
+            f"structure: pid_block (the firmware PID block, {block.block.form}: integral by forward Euler, derivative "
+            f"by backward difference, its own rule beside the methods above) in {block.word_format}",
+            markup=False,
+        )
+        _render_block_check(console, block)
+        return 0 if block.ok else 1
     return 0
 
 
@@ -339,6 +360,51 @@ def _pipeline_figures(controller, survey, firmware, args, plant) -> dict:
             stored = real.controller if fw.realized is None else realized_controller(fw.realized)
             loop = loop_check(stored, plant.model, plant.dead_time_s, delay_s=survey.delay_s)
         out[real.method] = (budget, loop)
+    return out
+
+
+def _pid_block_check(args, survey, pid, fs):
+    """``--structure pid_block``: the PID block of the (filtered) source and its word-format analysis."""
+    import dataclasses
+
+    from convert.cli.common import at
+    from convert.compare.frequency import comparison_grid
+    from convert.digital.pidblock import PidBlock
+    from convert.digital.pidcheck import analyze_block
+    from convert.errors import InputError
+    from convert.pid import pid_from_controller, why_not_pid
+
+    settings = pid_from_controller(survey.analog)
+    if settings is None:
+        raise InputError(f"pid_block needs a PID: {why_not_pid(survey.analog)}", key="--structure")
+    if pid is not None:
+        settings = dataclasses.replace(settings, b=pid.b, c=pid.c)
+    rng = range_pair(args.input_range, "--input-range")
+    lim = range_pair(args.output_limits, "--output-limits")
+    with at(
+        None,
+        rename={"input_range": "--input-range", "output_limits": "--output-limits", "word_format": "--word-format"},
+    ):
+        block = PidBlock.from_settings(
+            settings,
+            fs,
+            limits=lim,
+            word_format=str(args.word_format).lower(),
+            input_range=max(map(abs, rng)) if rng else None,
+        )
+        band = comparison_grid(survey.band_hz, fs, points_per_decade=20)
+        return analyze_block(block, band)
+
+
+def _block_item(check) -> dict:
+    """The PID block's entry in ``--json`` (beside the methods' entries)."""
+    from convert.digital.pidcheck import linear_controller
+
+    out = {"method": "pid_block", "structure": "pid_block", "word_format": check.word_format, "best": False}
+    out["firmware"] = check.summary()
+    if not check.refused:
+        c = linear_controller(check.block)
+        out["b"], out["a"] = list(c.b), list(c.a)
     return out
 
 
