@@ -73,15 +73,10 @@ def _run_c(tmp_path, real, name, seq) -> list:
         read = "double v = 0; if (cmd != 'r' && scanf(\"%la\", &v) != 1) return 1;"
         write = 'printf("%a\\n", (double)y);'
     set_output = f"{name}_set_output(&st, ({t})v);" if integ else "(void)v;"
-    (tmp_path / "main.c").write_text(HARNESS.format(name=name, t=t, read=read, write=write, set_output=set_output))
-    exe = tmp_path / "run"
-    flags = ["-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", "-O2"]
-    subprocess.run(
-        [GCC, *flags, "-o", str(exe), str(tmp_path / "main.c"), str(tmp_path / f"{name}.c")],
-        check=True,
-        capture_output=True,
-        text=True,
-    )
+    from tests.firmware_refs import compile_c
+
+    main = HARNESS.format(name=name, t=t, read=read, write=write, set_output=set_output)
+    exe = compile_c(tmp_path, {}, name, main)
     lines = []
     for c, v in seq:
         if c == "r":

@@ -11,6 +11,7 @@ import pytest
 
 from convert.digital.pidblock import PidBlock, emit_pid_c
 from convert.pid import PidSettings
+from tests.firmware_refs import compile_c
 
 GCC = shutil.which("gcc")
 
@@ -140,10 +141,7 @@ def test_pid_c_matches_model(tmp_path, form, aw, fmt):
         word_format=fmt,
     )
     files = emit_pid_c(blk, "pidx", source="test")
-    for n, text in files.items():
-        (tmp_path / n).write_text(text)
-    (tmp_path / "main.c").write_text(
-        r"""
+    main = r"""
 #include <stdio.h>
 #include "pidx.h"
 int main(void) { pidx_state st; char c; double a, b, u;
@@ -153,26 +151,7 @@ int main(void) { pidx_state st; char c; double a, b, u;
     printf("%a\n", (double)pidx_step(&st, (T)a, (T)b)); }
   return 0; }
 """.replace("(T)", "(float)" if fmt == "float32" else "(double)")
-    )
-    exe = tmp_path / "run"
-    subprocess.run(
-        [
-            GCC,
-            "-std=c99",
-            "-Wall",
-            "-Wextra",
-            "-Werror",
-            "-pedantic",
-            "-O2",
-            "-o",
-            str(exe),
-            str(tmp_path / "main.c"),
-            str(tmp_path / "pidx.c"),
-        ],
-        check=True,
-        capture_output=True,
-        text=True,
-    )
+    exe = compile_c(tmp_path, files, "pidx", main)
     cast = np.float32 if fmt == "float32" else float
     rng = np.random.default_rng(9)
     seq = [("x", 5.0, 0.0)] * 200 + [("x", -2.0, 1.0)] * 100
@@ -207,21 +186,6 @@ def _vectors_ry(rng, span):
     return seq
 
 
-def _compile(tmp_path, files, name, main):
-    for n, text in files.items():
-        (tmp_path / n).write_text(text)
-    (tmp_path / "main.c").write_text(main)
-    exe = tmp_path / "run"
-    flags = ["-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", "-O2"]
-    subprocess.run(
-        [GCC, *flags, "-o", str(exe), str(tmp_path / "main.c"), str(tmp_path / f"{name}.c")],
-        check=True,
-        capture_output=True,
-        text=True,
-    )
-    return exe
-
-
 FIXED_MAIN = r"""
 #include <stdio.h>
 #include "pidq.h"
@@ -251,7 +215,7 @@ def test_fixed_pid_c_matches_model(tmp_path, fmt, form, aw):
     )  # fmt: skip
     files = emit_pid_c(blk, "pidq", source="test")
     t = "int16_t" if fmt == "q15" else "int32_t"
-    exe = _compile(tmp_path, files, "pidq", FIXED_MAIN.replace("(T)", f"({t})"))
+    exe = compile_c(tmp_path, files, "pidq", FIXED_MAIN.replace("(T)", f"({t})"))
     model = blk.model()
     lines, want = [], []
     for item in _vectors_ry(np.random.default_rng(3), 5.0):

@@ -706,11 +706,7 @@ def _pid_block_firmware(case, filtered, fs, band, source_pid, card_limits) -> _B
         )
         check = analyze_block(block, band, input_resolution=tgt.input_resolution)
     except LoopshiftError as exc:
-        raise type(exc)(
-            exc.message,
-            where=case.where("target.digital"),
-            key=f"target.digital.{exc.key}" if exc.key else "target.digital",
-        ) from None
+        raise _target_error(case, exc) from None
     cd = linear_controller(block, stored=False)
     cq = cd if check.refused else linear_controller(block)
     aw = block.anti_windup + (f" (Tt = {_fmt_s(block.tracking_time_s)})" if block.anti_windup == "track" else "")
@@ -740,12 +736,10 @@ def _pid_code_files(case, block, check, name: str) -> dict:
     for float formats)."""
     if not check.ok:
         return {}
-    import re
-
     from convert.digital.pidblock import emit_pid_c, emit_pid_st
 
     tgt = case.digital
-    folder = "code/" + re.sub(r"[^A-Za-z0-9]+", "-", name).strip("-").lower()
+    folder = _code_folder(name)
     files = {}
     for lang in tgt.code_languages:
         emit = emit_pid_c if lang == "c" else emit_pid_st
@@ -777,11 +771,23 @@ def _firmware(case, real, band):
             response_limits=(case.criteria.max_gain_error_db, case.criteria.max_phase_error_deg),
         )
     except LoopshiftError as exc:
-        raise type(exc)(
-            exc.message,
-            where=case.where("target.digital"),
-            key=f"target.digital.{exc.key}" if exc.key else "target.digital",
-        ) from None
+        raise _target_error(case, exc) from None
+
+
+def _target_error(case, exc: LoopshiftError) -> LoopshiftError:
+    """``exc`` with the case file's line of ``[target.digital]`` and its key under it."""
+    return type(exc)(
+        exc.message,
+        where=case.where("target.digital"),
+        key=f"target.digital.{exc.key}" if exc.key else "target.digital",
+    )
+
+
+def _code_folder(name: str) -> str:
+    """``code/<realization>`` (the realization's name in lower case, runs of other characters as -)."""
+    import re
+
+    return "code/" + re.sub(r"[^A-Za-z0-9]+", "-", name).strip("-").lower()
 
 
 def _withhold_failing_code(realizations, verdict) -> None:
@@ -807,12 +813,10 @@ def _code_files(case, firmware, name: str, method: str, scaled=None) -> dict:
         not scaled["analysis"].ok or scaled["analysis"].stall_unchecked or scaled["check"]["status"] != "pass"
     ):
         return {}
-    import re
-
     from convert.digital.codegen import emit
 
     tgt = case.digital
-    folder = "code/" + re.sub(r"[^A-Za-z0-9]+", "-", name).strip("-").lower()
+    folder = _code_folder(name)
     limits = tgt.output_limits or case.signals.output_range
     realized = firmware.realized
     source = case.title or "case source"

@@ -124,6 +124,13 @@ class PidBlock:
         }
 
     @property
+    def word(self):
+        """The :class:`convert.digital.wordformats.WordFormat` of the block."""
+        from convert.digital.wordformats import get_format
+
+        return get_format(self.word_format)
+
+    @property
     def is_fixed(self) -> bool:
         return self.word_format in ("q15", "q31")
 
@@ -237,6 +244,28 @@ def pid_head(block: PidBlock, name: str, source: str, lang: str = "c") -> list[s
     ]
 
 
+def pid_c_header(name: str, head: list[str], fields: list[str], t: str) -> str:
+    """``NAME.h`` of a PID block: the comment ``head``, the state type with ``fields``, and the
+    three functions on the signal type ``t``."""
+    return "\n".join(
+        ["/*"]
+        + [f" * {x.replace('NAME', name)}" for x in head]
+        + [" */", f"#ifndef {name.upper()}_H", f"#define {name.upper()}_H", "", "#include <stdint.h>", ""]
+        + ["typedef struct {"]
+        + [f"    {x}" for x in fields]
+        + [
+            f"}} {name}_state;",
+            "",
+            f"void {name}_reset({name}_state *st);",
+            f"{t} {name}_step({name}_state *st, {t} setpoint, {t} measurement);",
+            f"void {name}_set_output({name}_state *st, {t} u, {t} setpoint, {t} measurement);",
+            "",
+            "#endif",
+            "",
+        ]
+    )
+
+
 def emit_pid_c(block: PidBlock, name: str, *, source: str = "") -> dict[str, str]:
     """``NAME.h``/``NAME.c`` for a PID block: ``T NAME_step(NAME_state *st, T setpoint, T
     measurement)``, ``NAME_reset``, ``NAME_set_output(st, u, setpoint, measurement)``; T is
@@ -259,28 +288,7 @@ def emit_pid_c(block: PidBlock, name: str, *, source: str = "") -> dict[str, str
 
     k = block.constants()
     lim = block.limits
-    h = (
-        ["/*"]
-        + [f" * {x.replace('NAME', name)}" for x in head]
-        + [
-            " */",
-            f"#ifndef {name.upper()}_H",
-            f"#define {name.upper()}_H",
-            "",
-            "#include <stdint.h>",
-            "",
-            "typedef struct {",
-            f"    {t} i, d, ds_old, u_old, p_old, d_old, e_old;",
-            f"}} {name}_state;",
-            "",
-            f"void {name}_reset({name}_state *st);",
-            f"{t} {name}_step({name}_state *st, {t} setpoint, {t} measurement);",
-            f"void {name}_set_output({name}_state *st, {t} u, {t} setpoint, {t} measurement);",
-            "",
-            "#endif",
-            "",
-        ]
-    )
+    h = pid_c_header(name, head, [f"{t} i, d, ds_old, u_old, p_old, d_old, e_old;"], t)
     c = [
         f'#include "{name}.h"',
         "",
@@ -332,7 +340,7 @@ def emit_pid_c(block: PidBlock, name: str, *, source: str = "") -> dict[str, str
         else:
             c.append(f"    st->i = st->i + {lit(k['bi'])} * e;")
         c += ["    (void)st->e_old;", "    return u;", "}", ""]
-    return {f"{name}.h": "\n".join(h), f"{name}.c": "\n".join(c)}
+    return {f"{name}.h": h, f"{name}.c": "\n".join(c)}
 
 
 # ----------------------------------------------------------------------------- Structured Text

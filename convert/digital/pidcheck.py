@@ -85,6 +85,9 @@ class PidBlockAnalysis:
     failures: tuple[str, ...] = ()
     notes: tuple[str, ...] = field(default=())
     structure: str = "pid_block"
+    response_limits: tuple[float, float] = (1.0, 5.0)
+    stall_unchecked: str | None = None  # why the stall figure was not decided (no output level)
+    dead_band: float | None = None  # (the linear structures' fixed-point dead band; not applicable)
 
     @property
     def ok(self) -> bool:
@@ -96,61 +99,11 @@ class PidBlockAnalysis:
         return None if self.refused else self.block
 
     def checks(self) -> list[dict]:
-        """The always-on verdict checks, in the form of :meth:`FormatAnalysis.checks`."""
-        name = f"PID block / {self.word_format}"
-        if self.refused:
-            return [
-                dict(
-                    key="firmware_realizable",
-                    label=f"{name} can be built",
-                    unit="",
-                    limit=None,
-                    value=None,
-                    status="fail",
-                    note=self.refused,
-                )
-            ]
-        fails = " ".join(self.failures)
-        out = [
-            dict(
-                key="firmware_stability",
-                label=f"{name}: stored poles inside |z| = 1 (integrators apart)",
-                unit="|z|",
-                limit=1.0,
-                value=self.free_pole_radius,
-                status="fail" if "unstable" in fails else "pass",
-                note=next(
-                    (f for f in self.failures if "unstable" in f),
-                    f"derivative filter pole ad = {self.free_pole_radius:.10g}; the integral is an exact "
-                    "accumulator (pole at z = 1)",
-                ),
-            )
-        ]
-        if self.block is not None and self.block.is_fixed:
-            out.append(
-                dict(
-                    key="firmware_overflow",
-                    label=f"{name}: no overflow for inputs within ±{self.input_range:.4g}",
-                    unit="dB headroom",
-                    limit=None,
-                    value=self.headroom_db,
-                    status="fail" if "overflow" in fails else "pass",
-                    note="derivative word over its peak-gain bound; integral full scale over U + |P|max",
-                )
-            )
-        if self.stall_error is not None or "stall" in fails:
-            out.append(
-                dict(
-                    key="firmware_stall",
-                    label=f"{name}: integrator moves at the input resolution",
-                    unit="input units",
-                    limit=self.stall_limit,
-                    value=self.stall_error,
-                    status="fail" if "stall" in fails else "pass",
-                    note=f"smallest error that moves the integral at output level {self.output_level:.4g}",
-                )
-            )
-        return out
+        """The always-on verdict checks, exactly as :meth:`FormatAnalysis.checks` makes them
+        (built, stored poles, overflow, response, integrator stall)."""
+        from convert.digital.quantized import FormatAnalysis
+
+        return FormatAnalysis.checks(self)
 
     def summary(self) -> dict:
         out = {k: v for k, v in self.__dict__.items() if k != "block"}
@@ -170,8 +123,13 @@ class PidBlockAnalysis:
         return out
 
 
-def analyze_block(block, band_f_hz, *, input_resolution: float | None = None) -> PidBlockAnalysis:
-    """Analyze ``block`` (a :class:`PidBlock`) in its word format over the band (Hz)."""
+def analyze_block(block, band_f_hz, *, input_resolution: float | None = None, response_limits=None) -> PidBlockAnalysis:
+    """Analyze ``block`` (a :class:`PidBlock`) in its word format over the band (Hz);
+    ``response_limits`` (dB, deg, either None for the default) that the stored constants' response
+    may depart from the exact one (:data:`convert.digital.quantized.RESPONSE_LIMITS`)."""
+    from convert.digital.quantized import RESPONSE_LIMITS
+
+    limits = tuple(d if v is None else float(v) for v, d in zip(response_limits or (None, None), RESPONSE_LIMITS))
     notes: list[str] = []
     lim = block.limits
     u = max(abs(lim[0]), abs(lim[1])) if lim else 1.0
@@ -189,7 +147,14 @@ def analyze_block(block, band_f_hz, *, input_resolution: float | None = None) ->
             "between fs/1000 and fs/2)"
         )
     res = float(input_resolution) if input_resolution else r / 2**15
-    base = dict(word_format=block.word_format, block=block, input_range=r, output_level=u, stall_limit=res)
+    base = dict(
+        word_format=block.word_format,
+        block=block,
+        input_range=r,
+        output_level=u,
+        stall_limit=res,
+        response_limits=limits,
+    )
     try:
         stored = stored_constants(block)
         block.model()
@@ -213,6 +178,12 @@ def analyze_block(block, band_f_hz, *, input_resolution: float | None = None) ->
 
     err = compare_responses(ref, got, f)
     i = int(np.argmax(rel)) if rel.size else 0
+    gdb, pdeg = err.max_gain_error_db, err.max_phase_error_deg
+    if not (math.isfinite(gdb) and math.isfinite(pdeg)) or gdb > limits[0] or pdeg > limits[1]:
+        failures.append(
+            f"response: quantization alone moves the block's response by {gdb:.3g} dB / {pdeg:.3g} deg in the band, "
+            f"above {limits[0]:g} dB / {limits[1]:g} deg: the stored constants are not the designed controller"
+        )
     headroom = None
     if block.is_fixed:
         from convert.digital.pidfixed import fixed_pid
@@ -224,26 +195,29 @@ def analyze_block(block, band_f_hz, *, input_resolution: float | None = None) ->
         headroom = min(parts)
         if headroom < 0:
             failures.append(f"overflow: a node's bound is {-headroom:.3g} dB above its full scale")
-    stall = None
-    if block.ki > 0:
+    stall = unchecked = None
+    if block.ki > 0 and not lim and block.word_format != "float64":
+        unchecked = (
+            f"not decided: {block.word_format} holds the integral at the output's level, and no output level was "
+            "given (give output limits)"
+        )
+    elif block.ki > 0:
+        from convert.digital.quantized import stall_failure
+
         stall = block_stall(block, r, u)
-        if stall is None or stall > res:
-            shown = "no error up to the input range" if stall is None else f"{stall:.4g}"
-            failures.append(
-                f"integrator stall: at output level {u:.4g} the smallest error that still moves the integral is "
-                f"{shown} (input units), above the resolution {res:.4g}"
-            )
+        failures += stall_failure(stall, u, res)
     return PidBlockAnalysis(
         **base,
         coefficient_error=cerr,
         max_pole_radius=1.0 if block.ki > 0 else abs(ad),
         free_pole_radius=abs(ad),
         response_error=float(rel[i]) if rel.size else 0.0,
-        gain_error_db=err.max_gain_error_db,
-        phase_error_deg=err.max_phase_error_deg,
+        gain_error_db=gdb,
+        phase_error_deg=pdeg,
         error_at_hz=float(f[i]) if f.size else None,
         headroom_db=headroom,
         stall_error=stall,
+        stall_unchecked=unchecked,
         failures=tuple(failures),
         notes=tuple(notes),
     )
@@ -273,23 +247,6 @@ def block_stall(block, r: float, u: float) -> float | None:
 
     # the largest error tried moves the output by a quarter of the span between the limits over the
     # window, so the clamp (and conditional integration) never acts during the test
-    hi = min(r, (lim[1] - lim[0]) / (4 * STALL_SAMPLES * abs(bi))) if lim else r
-    if not moves(hi):
-        return None
-    lo = None
-    while hi > r * 1e-12:
-        if not moves(hi / 2):
-            lo = hi / 2
-            break
-        hi /= 2
-    if lo is None:
-        return hi
-    for _ in range(40):
-        mid = math.sqrt(lo * hi)
-        if moves(mid):
-            hi = mid
-        else:
-            lo = mid
-        if hi / lo < 1.05:
-            break
-    return hi
+    from convert.digital.quantized import smallest_moving
+
+    return smallest_moving(moves, min(r, (lim[1] - lim[0]) / (4 * STALL_SAMPLES * abs(bi))) if lim else r)

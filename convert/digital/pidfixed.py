@@ -85,11 +85,7 @@ class FixedPid:
 
     @property
     def word_max(self) -> int:
-        return (1 << (self.bits - 1)) - 1
-
-    @property
-    def acc_min(self) -> int:
-        return -(1 << (self.acc_bits - 1))
+        return -self.word_min - 1
 
     @property
     def acc_max(self) -> int:
@@ -215,7 +211,7 @@ class PidFixedModel:
         return rs(q.kpb * r - q.kpp * y, q.fp)
 
     def _add(self, a: int, b: int) -> int:
-        return _sat(a + b, self.q.acc_min, self.q.acc_max)
+        return _sat(a + b, -self.q.acc_max - 1, self.q.acc_max)
 
     def step_int(self, r: int, y: int) -> int:
         q = self.q
@@ -296,30 +292,10 @@ def emit_pid_c_fixed(block, name: str, head: list[str]) -> dict[str, str]:
         "Products summed exactly in the accumulator (coefficient bits chosen so no sum overflows), shifts",
         "  round half up (add half an LSB, floor), states saturate.",
     ]
-    h = (
-        ["/*"]
-        + [f" * {x.replace('NAME', name)}" for x in head + scal]
-        + [
-            " */",
-            f"#ifndef {name.upper()}_H",
-            f"#define {name.upper()}_H",
-            "",
-            "#include <stdint.h>",
-            "",
-            "typedef struct {",
-            f"    {acc} i, uf;",
-            f"    {t} d, r_old, y_old;",
-            f"    {acc} p_old, d_old, e_old;",
-            f"}} {name}_state;",
-            "",
-            f"void {name}_reset({name}_state *st);",
-            f"{t} {name}_step({name}_state *st, {t} setpoint, {t} measurement);",
-            f"void {name}_set_output({name}_state *st, {t} u, {t} setpoint, {t} measurement);",
-            "",
-            "#endif",
-            "",
-        ]
-    )
+    from convert.digital.pidblock import pid_c_header
+
+    fields = [f"{acc} i, uf;", f"{t} d, r_old, y_old;", f"{acc} p_old, d_old, e_old;"]
+    h = pid_c_header(name, head + scal, fields, t)
     amax, amin = f"INT{q.acc_bits}_MAX", f"INT{q.acc_bits}_MIN"
 
     def shift(expr: str, f: int) -> str:
@@ -416,4 +392,4 @@ def emit_pid_c_fixed(block, name: str, head: list[str]) -> dict[str, str]:
         else:
             c.append(f"    st->i = {name}_add(st->i, inc);")
         c += [f"    return ({t})u;", "}", ""]
-    return {f"{name}.h": "\n".join(h), f"{name}.c": "\n".join(c)}
+    return {f"{name}.h": h, f"{name}.c": "\n".join(c)}

@@ -394,12 +394,7 @@ def analyze(
         notes.append("integrator stall not measured: the stored realization is unstable (see above)")
     elif designed_ones:
         stall = _stall(real, layout, roots, r, u)
-        if stall is None or stall > res:
-            shown = "no error up to the input range" if stall is None else f"{stall:.4g}"
-            failures.append(
-                f"integrator stall: at output level {u:.4g} the smallest error that still moves the "
-                f"integral is {shown} (input units), above the resolution {res:.4g}"
-            )
+        failures += stall_failure(stall, u, res)
     return FormatAnalysis(
         **base,
         realized=real,
@@ -606,13 +601,31 @@ def _stall(real: Realized, layout, roots, r: float, u: float) -> float | None:
         want = sign * e * slope * STALL_TO
         return got / want >= 0.5
 
-    # every error from the answer up to R must move it: walk down from R by halves to the first
-    # error that does not, then bisect between it and the last that did
-    hi = r
+    return smallest_moving(moves, r)
+
+
+def stall_failure(stall: float | None, u: float, res: float) -> list[str]:
+    """The integrator-stall failure (one line) when ``stall`` (None: nothing up to the input range
+    moves it) exceeds the resolution ``res``, at output level ``u``; else nothing."""
+    if stall is not None and stall <= res:
+        return []
+    shown = "no error up to the input range" if stall is None else f"{stall:.4g}"
+    return [
+        f"integrator stall: at output level {u:.4g} the smallest error that still moves the "
+        f"integral is {shown} (input units), above the resolution {res:.4g}"
+    ]
+
+
+def smallest_moving(moves, top: float) -> float | None:
+    """The smallest error (within 5 %) above which every error tried ``moves`` (a predicate):
+    every error from the answer up to ``top`` must move it, so walk down from ``top`` by halves to
+    the first error that does not, then bisect between it and the last that did. None if ``top``
+    itself does not move it."""
+    hi = top
     if not moves(hi):
         return None
     lo = None
-    while hi > r * 1e-12:
+    while hi > top * 1e-12:
         if not moves(hi / 2):
             lo = hi / 2
             break
