@@ -460,7 +460,8 @@ def _pid_block(args, console, controller, source, fs, word, lang, lim, sc=None, 
         res = positive_value(args.input_resolution, "number", "--input-resolution") if args.input_resolution else None
         check = analyze_block(block, band, input_resolution=res)
         files = {}
-        if check.ok:
+        usable = check.ok and not check.stall_unchecked
+        if usable:
             files = (emit_pid_c if lang == "c" else emit_pid_st)(block, args.name, source=source)
     paths = _write(args, files)
     info = {
@@ -476,13 +477,13 @@ def _pid_block(args, console, controller, source, fs, word, lang, lim, sc=None, 
         "fs_hz": fs,
         "structure": "pid_block",
         "language": lang,
-        "ok": check.ok,
+        "ok": usable,
         "analysis": check.summary(),
         "written": list(paths.values()),
     }
     if args.json:
         emit_json(console, info)
-        return 0 if check.ok else 1
+        return 0 if usable else 1
     k = block.constants()
     if sc is not None:
         console.print(f"scaling: {sc.text}", markup=False)
@@ -503,8 +504,9 @@ def _pid_block(args, console, controller, source, fs, word, lang, lim, sc=None, 
         markup=False,
     )
     _render_block_check(console, check)
-    if not check.ok:
-        console.print(f"not written: the PID block in {word} fails its checks (see above)", markup=False)
+    if not usable:
+        why = "fails its checks" if not check.ok else "has an undecided integrator stall"
+        console.print(f"not written: the PID block in {word} {why} (see above)", markup=False)
         return 1
     console.print(f"structure used: PID block ({block.form}) in {word}", markup=False)
     for p in paths.values():
@@ -533,6 +535,8 @@ def _render_block_check(console, check) -> None:
             f"{check.output_level:.4g}; resolution asked {check.stall_limit:.4g}",
             markup=False,
         )
+    if check.stall_unchecked:
+        p(f"integrator stall {check.stall_unchecked}", markup=False)
     for f in check.failures:
         p(f"FAILS: {f}", markup=False)
     for n in check.notes:

@@ -704,7 +704,12 @@ def _pid_block_firmware(case, filtered, fs, band, source_pid, card_limits) -> _B
             word_format=tgt.word_format,
             input_range=rng,
         )
-        check = analyze_block(block, band, input_resolution=tgt.input_resolution)
+        check = analyze_block(
+            block,
+            band,
+            input_resolution=tgt.input_resolution,
+            response_limits=(case.criteria.max_gain_error_db, case.criteria.max_phase_error_deg),
+        )
     except LoopshiftError as exc:
         raise _target_error(case, exc) from None
     cd = linear_controller(block, stored=False)
@@ -732,9 +737,9 @@ def _pid_block_firmware(case, filtered, fs, band, source_pid, card_limits) -> _B
 
 
 def _pid_code_files(case, block, check, name: str) -> dict:
-    """The PID block's code under ``code/<realization>/`` when its checks pass (C; Structured Text
-    for float formats)."""
-    if not check.ok:
+    """The PID block's code under ``code/<realization>/`` when its checks pass and its stall was
+    decided (C; Structured Text for float formats)."""
+    if not check.ok or check.stall_unchecked:
         return {}
     from convert.digital.pidblock import emit_pid_c, emit_pid_st
 
