@@ -193,6 +193,14 @@ def analyze_block(block, band_f_hz, *, input_resolution: float | None = None, re
         if q.d_bound > 0:
             parts.append(20 * math.log10(q.output_level * 2.0**q.g_d / q.d_bound))
         headroom = min(parts)
+        lsb_d = q.output_level * 2.0**q.g_d / 2.0 ** (q.bits - 1)
+        if q.d_bound > 0 and lsb_d > 0.001 * q.output_level:
+            notes.append(
+                f"the derivative word's LSB is {lsb_d:.4g} output units ({100 * lsb_d / q.output_level:.3g} % of the "
+                f"output level): its full scale {q.output_level * 2.0**q.g_d:.4g} covers the peak-gain bound "
+                f"{q.d_bound:.4g} of a full-range input jump, so the derivative action is resolved only that finely "
+                "(a smaller input range, a longer filter time or Q31 refines it)"
+            )
         if headroom < 0:
             failures.append(f"overflow: a node's bound is {-headroom:.3g} dB above its full scale")
     stall = unchecked = None
