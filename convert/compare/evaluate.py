@@ -616,8 +616,9 @@ def _digital_realizations(
 
 @dataclass(frozen=True)
 class _Built:
-    """One firmware realization before it is compared: ``stored`` (as the word format stores it), ``analysis`` (its word-format checks), ``real``
-    (what :func:`convert.compare.stages.digital_budget` takes as the discretization result),
+    """One firmware realization before it is compared: ``stored`` (as the word format stores it),
+    ``analysis`` (its word-format checks), ``real`` (what
+    :func:`convert.compare.stages.digital_budget` takes as the discretization result),
     ``budget_stored`` / ``method_text`` / ``word_note`` (its keywords for a firmware that is not
     a linear layout; None for a method's result), ``scaled`` (the signal scaling of
     :func:`_signal_scaling`, None without maps), and what the report says of it."""
