@@ -139,7 +139,7 @@ def fixed_pid(block) -> FixedPid:
     if not block.input_range or not (math.isfinite(block.input_range) and block.input_range > 0):
         raise InputError(
             f"{word.name}: the PID block needs the input range (largest |setpoint| or |measurement|) to scale "
-            "its words, e.g. --input-range -10 10",
+            "its words",
             key="input_range",
         )
     if not block.limits:
