@@ -194,7 +194,12 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument(
         "--netlist", metavar="FILE", help="write a SPICE netlist realizing +C(s) from in to out, e.g. --netlist pid.cir"
     )
-    p.add_argument("--bom", metavar="FILE", help="write the bill of materials as CSV, e.g. --bom pid.csv")
+    p.add_argument(
+        "--bom",
+        metavar="FILE",
+        help="write the bill of materials (one row per part) as ASCII CSV; quantities, ratings and "
+        "dielectrics are in --buy-list, e.g. --bom pid.csv",
+    )
     p.add_argument(
         "--buy-list",
         metavar="FILE",
