@@ -77,6 +77,8 @@ SCHEMA: dict[str, Any] = {
             "distribution": 1,
             "opamp_gbw": 1,
             "max_opamps": 1,
+            "rail": 1,
+            "input_amplitude": 1,
         },
         "given": None,  # forms that exist, one table per name: checked by convert.given
     },
@@ -175,6 +177,8 @@ class CircuitTarget:
     distribution: str = "uniform"  # convert.circuit.tolerance.DEFAULT_DISTRIBUTION
     opamp_gbw_hz: float | None = None
     max_opamps: int | None = None  # cap on op-amps, as loopshift circuit --max-opamps (None = no cap)
+    rail_v: float | None = None  # largest output peak of the op-amps (V), as `circuit --rail`
+    input_amplitude_v: float | None = None  # input peak (V) for the output-swing check, as `circuit --amplitude`
     where: str = ""
 
 
@@ -849,8 +853,19 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
             ),
             opamp_gbw_hz=ctx.value(cir, "opamp_gbw", f"{key}.opamp_gbw", "hz", None, positive=True, allow_zero=False),
             max_opamps=max_opamps,
+            rail_v=ctx.value(cir, "rail", f"{key}.rail", "volt", None, positive=True, allow_zero=False),
+            input_amplitude_v=ctx.value(
+                cir, "input_amplitude", f"{key}.input_amplitude", "volt", None, positive=True, allow_zero=False
+            ),
             where=ctx.where(key),
         )
+        if (circuit.rail_v is None) != (circuit.input_amplitude_v is None):
+            missing = "input_amplitude" if circuit.input_amplitude_v is None else "rail"
+            raise ctx.error(
+                f"{key}.{missing}",
+                'the output-swing check needs both rail and input_amplitude (volts), e.g. rail = "12 V" '
+                'and input_amplitude = "1 V"',
+            )
     if digital is None and circuit is None and not table.get("given"):
         raise ctx.error("target", "give [target.digital], [target.circuit] or [target.given.NAME]")
     if source.form == "digital" and digital is not None and circuit is None:

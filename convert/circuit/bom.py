@@ -1,7 +1,11 @@
 """Bill of materials: CSV with reference, value, series, tolerance, role.
 
-Values are written with SI prefixes (``49.9 kΩ``, ``1.5 µF``); series is the IEC 60063 series the
-value was taken from (empty for op-amps and potentiometers); tolerance is a percentage.
+:func:`bom_rows` writes values with SI prefixes (``49.9 kΩ``, ``1.5 µF``) for the terminal and the
+report; :func:`bom_csv` writes the same rows as ASCII only (``49.9 kohm``, ``1.5 uF``; roles
+spelt ``R1*C1``, ``s^2``), a header, then a units row (tolerance in ``%``; each value carries its
+own unit), because spreadsheets and purchasing systems mangle other characters. Series is the
+IEC 60063 series the value was taken from (empty for op-amps and potentiometers). Quantities,
+ratings and dielectrics are in the buy list (:mod:`convert.circuit.buylist`).
 """
 
 from __future__ import annotations
@@ -82,10 +86,21 @@ def bom_rows(design, tolerances: Mapping[str, float] | None = None, trims=()) ->
     return rows
 
 
+UNITS = {"reference": "", "value": "as written (ohm, F)", "series": "", "tolerance": "%", "role": ""}
+
+
 def bom_csv(rows: list[dict]) -> str:
+    """``rows`` (from :func:`bom_rows`) as an ASCII-only CSV: header, units row, one row per part."""
+    from convert.circuit.buylist import ascii_text
+
     buf = io.StringIO()
     writer = csv.DictWriter(buf, fieldnames=COLUMNS, lineterminator="\n")
     writer.writeheader()
+    writer.writerow(UNITS)
     for row in rows:
-        writer.writerow({k: row.get(k, "") for k in COLUMNS})
-    return buf.getvalue()
+        out = {k: ascii_text(str(row.get(k, ""))) for k in COLUMNS}
+        out["tolerance"] = out["tolerance"].rstrip("%").strip()
+        writer.writerow(out)
+    text = buf.getvalue()
+    text.encode("ascii")  # raises on any non-ASCII character: a defect, not an input error
+    return text

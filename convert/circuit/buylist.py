@@ -11,7 +11,9 @@
   sensitivity to that part;
 * an **op-amp requirements line** per amplifier: minimum gain-bandwidth, maximum input bias
   current, minimum slew rate, whether a rail-to-rail output is needed;
-* for the part that **dominates the tolerance error**, a tighter tolerance and what it buys.
+* for each part that **dominates the tolerance error** (resistor or capacitor, :func:`leading_parts`),
+  a tighter tolerance for it alone and what it buys: the worst-case corners and the tolerance
+  engine's Monte Carlo (same seed and draws as the design's own figures), before and after.
 
 No brand or part number: requirements only. Rules (common practice; no single published source):
 
@@ -149,9 +151,29 @@ class Tightening:
     suggested: float  # suggested (fraction)
     gain_db: tuple[float, float]  # worst-case gain spread (dB) before, after
     phase_deg: tuple[float, float]
+    mc_gain_db: tuple[float, float] | None = None  # Monte Carlo 99th percentile gain error (dB) before, after
+    mc_phase_deg: tuple[float, float] | None = None
+    draws: int = 0  # draws of the Monte Carlo figures (same seed before and after); 0: not run
+    seed: int = 1
+
+    def note(self) -> str:
+        """One line for the buy list's note column and the terminal (ASCII)."""
+        text = f"dominates the tolerance error ({self.share:.0%}); at {self.suggested * 100:g} % "
+        if self.mc_gain_db is not None:
+            text += (
+                f"the Monte Carlo p99 goes from {self.mc_gain_db[0]:.3g} dB / {self.mc_phase_deg[0]:.3g} deg to "
+                f"{self.mc_gain_db[1]:.3g} dB / {self.mc_phase_deg[1]:.3g} deg ({self.draws} draws, seed "
+                f"{self.seed}); worst case "
+            )
+        else:
+            text += "the worst case goes "
+        return text + (
+            f"from {self.gain_db[0]:.3g} dB / {self.phase_deg[0]:.3g} deg to "
+            f"{self.gain_db[1]:.3g} dB / {self.phase_deg[1]:.3g} deg"
+        )
 
     def summary(self) -> dict:
-        return {
+        out = {
             "part": self.part,
             "share": self.share,
             "tolerance_pct": self.tolerance * 100,
@@ -159,20 +181,30 @@ class Tightening:
             "worst_case_gain_db": {"now": self.gain_db[0], "with_suggestion": self.gain_db[1]},
             "worst_case_phase_deg": {"now": self.phase_deg[0], "with_suggestion": self.phase_deg[1]},
         }
+        if self.mc_gain_db is not None:
+            out["monte_carlo"] = {
+                "draws": self.draws,
+                "seed": self.seed,
+                "gain_error_db_p99": {"now": self.mc_gain_db[0], "with_suggestion": self.mc_gain_db[1]},
+                "phase_error_deg_p99": {"now": self.mc_phase_deg[0], "with_suggestion": self.mc_phase_deg[1]},
+            }
+        return out
 
 
 @dataclass(frozen=True)
 class BuyList:
     lines: list
     opamps: list
-    tightening: Tightening | None
+    tightening: Tightening | None  # the first of ``tightenings`` (the largest contribution)
     assumptions: dict = field(default_factory=dict)
+    tightenings: list = field(default_factory=list)  # one per leading part, largest contribution first
 
     def summary(self) -> dict:
         return {
             "lines": self.lines,
             "opamps": [o.summary() for o in self.opamps],
             "tightening": self.tightening.summary() if self.tightening else None,
+            "tightenings": [t.summary() for t in self.tightenings],
             "assumptions": self.assumptions,
         }
 
@@ -238,7 +270,8 @@ def _g(x) -> str:
     return "" if x is None else f"{x:g}"
 
 
-def _ascii(text: str) -> str:
+def ascii_text(text: str) -> str:
+    """``text`` in ASCII for a CSV cell: ``Ω`` -> ``ohm``, ``µ`` -> ``u``, ``·`` -> ``*``, ``²`` -> ``^2``, ..."""
     table = {
         "Ω": "ohm",
         "µ": "u",
@@ -253,6 +286,15 @@ def _ascii(text: str) -> str:
         "√": "sqrt",
         "∥": "||",
         "×": "x",
+        "³": "^3",
+        "±": "+/-",
+        "°": " deg",
+        "π": "pi",
+        "ω": "w",
+        "Δ": "delta",
+        "→": "->",
+        "…": "...",
+        "≈": "~",
     }
     out = "".join(table.get(ch, ch) for ch in text)
     return out.encode("ascii", "replace").decode("ascii")
@@ -268,6 +310,9 @@ def buy_list(
     offset_v: float = 1e-3,
     drift_db: float = 0.1,
     dominant_share: float = 0.5,
+    draws: int = 0,
+    seed: int = 1,
+    distribution: str | None = None,
 ) -> BuyList:
     """The buyer's bill of materials of ``design`` (see the module docstring).
 
@@ -275,8 +320,10 @@ def buy_list(
     default the rail); ``error``: the relative error an op-amp's finite gain-bandwidth may cause
     (default 1 %); ``offset_v``: the output offset the input bias current may cause across the
     largest resistor (default 1 mV); ``drift_db``: the gain drift a part's tempco may cause over
-    :data:`TEMPERATURE_SPAN_K` (default 0.1 dB); ``dominant_share``: the share of the tolerance error
-    above which one part is said to dominate.
+    :data:`TEMPERATURE_SPAN_K` (default 0.1 dB); ``dominant_share``: see :func:`leading_parts`.
+    ``draws``, ``seed``, ``distribution``: the Monte Carlo of the tolerance engine
+    (:func:`convert.circuit.design.tolerance_run`) that prices each suggested tolerance, run before
+    and after with the same seed and draws (0: worst-case corners only).
     """
     from convert.circuit.netlist_out import INVERTER_PARTS
     from convert.circuit.tolerance import DEFAULT_TOLERANCES, tolerance_of, worst_case
@@ -328,17 +375,19 @@ def buy_list(
             "value_si": value,
         }
         v = bound.get(p.name, rail_v)
+        s = sens_db.get(p.name, 0.0)
+        need = drift_db / (s * TEMPERATURE_SPAN_K * 100) * 1e6 if s > 0 else math.inf  # ppm/K
+        cls = next((c for c in TEMPCO_CLASSES if c <= need), TEMPCO_CLASSES[-1])
         if p.kind == "C":
             row["type"] = "C0G/NP0 ceramic" if value <= C0G_MAX_F * (1 + 1e-9) else "film, non-polarised"
             row["min_voltage_v"] = _next_at_least(1.5 * v, CAP_RATINGS_V) or 1.5 * v
+            if cls < 100:  # a capacitor's drift matters as a resistor's does (C0G: 0 +/- 30 ppm/K)
+                row["tempco_ppm_per_k"] = cls
         else:
             row["min_power_w"] = _next_at_least(2 * v * v / value, RES_RATINGS_W) or 2 * v * v / value
-            s = sens_db.get(p.name, 0.0)
-            need = drift_db / (s * TEMPERATURE_SPAN_K * 100) * 1e6 if s > 0 else math.inf  # ppm/K
-            cls = next((c for c in TEMPCO_CLASSES if c <= need), TEMPCO_CLASSES[-1])
             row["tempco_ppm_per_k"] = cls
-            if cls < 100:
-                row["note"] = f"sensitive: {s:.3g} dB per 1 %"
+        if cls < 100:
+            row["note"] = f"sensitive: {s:.3g} dB per 1 %"
         parts.append(row)
     if design.needs_inverter:
         for name, value in INVERTER_PARTS.items():
@@ -357,35 +406,39 @@ def buy_list(
                 }
             )
 
-    # the dominant part and a tighter tolerance for it alone
+    # the leading parts of the tolerance error and a tighter tolerance for each alone
     contrib = {k: sens_db.get(k, 0.0) * tolerance_of(topo.part(k), tol) * 100 for k in fitted}
-    total = sum(contrib.values())
-    tightening = None
-    if total > 0:
-        top = max(contrib, key=lambda k: (contrib[k], k))
-        share = contrib[top] / total
-        part = topo.part(top)
-        now = tolerance_of(part, tol)
-        tighter = [x for x in TIGHTER[part.kind] if x < now * (1 - 1e-9)]
-        if share >= dominant_share and tighter:
+    leading = leading_parts(contrib, dominant_share)
+    tightenings = []
+    if leading:
+        before = wc.spread()
+        mc_before = _drawn_spread(design, tol, draws, seed, distribution)
+        total = sum(contrib.values())
+        for top in leading:
+            part = topo.part(top)
+            now = tolerance_of(part, tol)
+            tighter = [x for x in TIGHTER[part.kind] if x < now * (1 - 1e-9)]
+            if not tighter:
+                continue
             suggested = tighter[0]
             after = worst_case(topo, rounded, {**tol, top: suggested}, f).spread()
-            before = wc.spread()
-            tightening = Tightening(
+            mc_after = _drawn_spread(design, {**tol, top: suggested}, draws, seed, distribution)
+            t = Tightening(
                 top,
-                share,
+                contrib[top] / total,
                 now,
                 suggested,
                 (before["gain_db"], after["gain_db"]),
                 (before["phase_deg"], after["phase_deg"]),
+                None if mc_before is None else (mc_before[0], mc_after[0]),
+                None if mc_before is None else (mc_before[1], mc_after[1]),
+                draws if mc_before is not None else 0,
+                seed,
             )
+            tightenings.append(t)
             for row in parts:
                 if row["reference"] == top:
-                    row["note"] = (
-                        f"dominates the tolerance error ({share:.0%}); at {suggested * 100:g} % the worst "
-                        f"case goes from {before['gain_db']:.3g} dB / {before['phase_deg']:.3g} deg to "
-                        f"{after['gain_db']:.3g} dB / {after['phase_deg']:.3g} deg"
-                    )
+                    row["note"] = t.note()
 
     # group identical lines
     groups: dict = {}
@@ -413,7 +466,7 @@ def buy_list(
     for line in lines:
         line["quantity"] = len(line["references"])
         if "note" in line:
-            line["note"] = _ascii(line["note"])
+            line["note"] = ascii_text(line["note"])
 
     # op-amps
     s = 2j * np.pi * f
@@ -434,7 +487,7 @@ def buy_list(
         opamps.append(
             OpAmpNeed(
                 st.amp,
-                _ascii(st.role),
+                ascii_text(st.role),
                 gbw,
                 offset_v / r_max,
                 2 * math.pi * hi * peak,
@@ -466,7 +519,46 @@ def buy_list(
         "c0g_max_f": C0G_MAX_F,
         "headroom_v": HEADROOM_V,
     }
-    return BuyList(lines, opamps, tightening, assumptions)
+    return BuyList(lines, opamps, tightenings[0] if tightenings else None, assumptions, tightenings)
+
+
+def leading_parts(contributions: Mapping[str, float], share: float = 0.5, most: int = 3) -> list[str]:
+    """The parts that dominate an error, largest first (empty when none does).
+
+    ``contributions``: part -> its first-order share of the error (sensitivity × tolerance, any
+    unit, >= 0). The leading parts are the fewest largest ones whose contributions reach ``share``
+    of the total, provided they are at most ``most`` parts and at most half of the contributing
+    parts, and the smallest of them is at least twice the largest of the rest (common practice:
+    a part "dominates" when tightening it alone changes the figure; with the error spread evenly,
+    no single part does)."""
+    items = sorted(((v, k) for k, v in contributions.items() if v > 0), reverse=True)
+    total = sum(v for v, _ in items)
+    if not items or not total > 0:
+        return []
+    acc, chosen = 0.0, []
+    for v, k in items:
+        chosen.append((v, k))
+        acc += v
+        if acc >= share * total * (1 - 1e-12):
+            break
+    rest = items[len(chosen) :]
+    if len(chosen) > most or (len(chosen) > 1 and 2 * len(chosen) > len(items)):
+        return []
+    if len(chosen) == len(items) and len(items) > 1:
+        return []
+    if rest and chosen[-1][0] < 2 * rest[0][0]:
+        return []
+    return [k for _, k in chosen]
+
+
+def _drawn_spread(design, tolerances, draws: int, seed: int, distribution) -> tuple[float, float] | None:
+    """(99th percentile gain error dB, phase error deg) of the tolerance engine's Monte Carlo, or None."""
+    if not draws:
+        return None
+    from convert.circuit.design import tolerance_run
+
+    fig = tolerance_run(design, tolerances, draws=draws, seed=seed, distribution=distribution).figures["tolerances"]
+    return float(fig.max_gain_error_db), float(fig.max_phase_error_deg)
 
 
 def _stage_parts(st, topo) -> list[str]:

@@ -23,7 +23,7 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-from convert.circuit.clamps import Clamp, clamp_notes, find_clamps, output_limits
+from convert.circuit.clamps import Clamp, clamp_notes, find_clamps, output_limits, unreached_clamp_note
 from convert.circuit.mna import RationalResult, transfer_functions
 from convert.circuit.netlist import Netlist
 from convert.controller import Controller
@@ -529,6 +529,9 @@ def analyze_card(
     clamp_lines = clamp_notes(netlist)
     if clamp_lines:  # the per-clamp lines live in ``clamps``; the notes keep the summary and the instruction
         notes += [clamp_lines[0], clamp_lines[-1]]
+        unreached = unreached_clamp_note(netlist, output)
+        if unreached:
+            notes.append(unreached)
     analysis = CardAnalysis(
         netlist,
         tuple(names),

@@ -738,10 +738,12 @@ def design_cascade(
         filter_added=filtered,
         cascade=plan,
     )
+    from convert.circuit.opamp import SWING_HINT
+
     peaks = stage_peaks(design)
     notes.append(
         "peak gain from the input at each op-amp output over the band (ideal op-amps): "
         + ", ".join(f"{amp} {v:.3g}" for amp, v in peaks.items())
-        + "; give an input amplitude and the rail to check each against the swing"
+        + SWING_HINT
     )
     return design

@@ -152,29 +152,111 @@ def clamp_notes(netlist: Netlist) -> list[str]:
     return lines
 
 
+def clamped_nodes(netlist: Netlist) -> dict[str, tuple[float, float]]:
+    """Node -> (low, high) volts its clamps hold it to (a side no clamp bounds is ±inf). A clamp
+    counts when it runs from a node to ground, or across the feedback of an op-amp with its
+    non-inverting input at ground (the inverting input is then a virtual ground and the clamp
+    bounds that op-amp's output)."""
+    virtual = {op.nodes[1]: op.nodes[2] for op in netlist.of_kind("OPAMP") if op.nodes[0] == GROUND}
+    out: dict[str, tuple[float, float]] = {}
+    for c in find_clamps(netlist):
+        for node, other, up, down in (
+            (c.node_a, c.node_b, c.positive_v, c.negative_v),
+            (c.node_b, c.node_a, c.negative_v, c.positive_v),
+        ):
+            if node == GROUND or not (other == GROUND or virtual.get(other) == node):
+                continue
+            lo, hi = out.get(node, (-math.inf, math.inf))
+            out[node] = (max(lo, -down), min(hi, up))
+    return {k: v for k, v in out.items() if not (math.isinf(v[0]) and math.isinf(v[1]))}
+
+
+def _linear_stage(netlist: Netlist, node: str) -> tuple[str, float] | None:
+    """(output node, gain) of the one op-amp stage fed by ``node`` when it is a plain resistive
+    amplifier: inverting (+ at ground, one resistor from ``node`` to the inverting input and one
+    from there to the output, nothing else at that input: gain −Rf/Rin) or non-inverting (+ at
+    ``node``, the inverting input tied to the output, or to ground and the output through one
+    resistor each: gain 1 + Rf/Rg). None for anything else (a reactive part, a second input, a
+    divider, several stages fed by ``node``)."""
+    at: dict[str, list[Element]] = {}
+    for e in netlist.elements:
+        for n in set(e.nodes):
+            at.setdefault(n, []).append(e)
+    found = []
+    for op in netlist.of_kind("OPAMP"):
+        if op.is_reactive:
+            continue
+        plus, minus, o = op.nodes
+        others = [e for e in at.get(minus, []) if e is not op]
+        if plus == GROUND and minus != node:
+            rin = [e for e in others if e.kind == "R" and set(e.nodes) == {node, minus}]
+            rf = [e for e in others if e.kind == "R" and set(e.nodes) == {minus, o}]
+            if len(rin) == 1 and len(rf) == 1 and len(others) == 2:
+                found.append((o, -rf[0].value / rin[0].value))
+        elif plus == node:
+            if minus == o:
+                found.append((o, 1.0))
+                continue
+            rg = [e for e in others if e.kind == "R" and set(e.nodes) == {minus, GROUND}]
+            rf = [e for e in others if e.kind == "R" and set(e.nodes) == {minus, o}]
+            if len(rg) == 1 and len(rf) == 1 and len(others) == 2:
+                found.append((o, 1.0 + rf[0].value / rg[0].value))
+    return found[0] if len(found) == 1 else None
+
+
+def _carried(netlist: Netlist, node: str, output: str, limits: tuple[float, float]) -> tuple[float, float] | None:
+    """``limits`` of V(``node``) (an op-amp output) carried to V(``output``) through plain resistive
+    stages (:func:`_linear_stage`), or None when the path is anything else."""
+    drivers = {op.nodes[2] for op in netlist.of_kind("OPAMP")}
+    if node not in drivers:  # a clamped node nothing drives hard: the next stage's load moves it
+        return None
+    lo, hi = limits
+    for _ in range(len(drivers)):
+        stage = _linear_stage(netlist, node)
+        if stage is None:
+            return None
+        node, gain = stage
+        lo, hi = sorted((gain * lo, gain * hi))  # an inverting stage swaps the ends
+        if node == output:
+            return lo, hi
+    return None
+
+
 def output_limits(netlist: Netlist, output: str) -> tuple[float, float] | None:
     """The range (low, high) in volts that the card's clamps hold V(``output``) to, or ``None``
-    when no clamp bounds it. A clamp counts when it runs from the output node to ground, or
-    across the feedback of the op-amp that drives the output with its non-inverting input at
-    ground (the inverting input is then a virtual ground). A side no clamp bounds is ±inf.
-    Approximate like the thresholds themselves (knees are soft)."""
+    when no clamp bounds it. A clamp at the output counts as :func:`clamped_nodes` says; a clamp
+    at an earlier op-amp's output counts when the path from it to the output is plain resistive
+    amplifiers (inverting or non-inverting, no reactive part): its limits are carried through their
+    gains, an inverting stage swapping the ends. A side no clamp bounds is ±inf. Approximate like
+    the thresholds themselves (knees are soft)."""
     out = output.lower()
-    grounds = {GROUND}
-    for op in netlist.of_kind("OPAMP"):
-        if op.nodes[2] == out and op.nodes[0] == GROUND:
-            grounds.add(op.nodes[1])
-    lo, hi = -math.inf, math.inf
-    for c in find_clamps(netlist):
-        if c.node_a == out and c.node_b in grounds:
-            up, down = c.positive_v, c.negative_v
-        elif c.node_b == out and c.node_a in grounds:
-            up, down = c.negative_v, c.positive_v
-        else:
+    nodes = clamped_nodes(netlist)
+    lo, hi = nodes.get(out, (-math.inf, math.inf))
+    for node, lim in nodes.items():
+        if node == out:
             continue
-        hi, lo = min(hi, up), max(lo, -down)
+        carried = _carried(netlist, node, out, lim)
+        if carried is not None:
+            lo, hi = max(lo, carried[0]), min(hi, carried[1])
     if math.isinf(lo) and math.isinf(hi):
         return None
     return lo, hi
+
+
+def unreached_clamp_note(netlist: Netlist, output: str) -> str | None:
+    """A note when a clamp bounds some node but no limits reach the output (see :func:`output_limits`),
+    naming the node, so the output limits are given by hand; None otherwise."""
+    if output_limits(netlist, output) is not None:
+        return None
+    nodes = clamped_nodes(netlist)
+    if not nodes:
+        return None
+    where = "; ".join(f"V({n}) {limits_text(v)}" for n, v in nodes.items())
+    return (
+        f"the card's clamps hold {where}, but the path from there to the output {output.lower()} is not a plain "
+        "resistive amplifier, so no output limits follow from them: give the output limits yourself "
+        "(--output-limits, or output_limits in a case file)"
+    )
 
 
 def limits_text(limits: tuple[float, float]) -> str:

@@ -119,3 +119,16 @@ def swing_check(
                 i += 1
         exceeded[amp] = ranges
     return SwingCheck(f, amplitude_v, rail_v, peak, exceeded)
+
+
+SWING_HINT = "; give an input amplitude and the rail to check each against the swing"
+"""The tail of a design note listing peak gains when no amplitude and rail were stated."""
+
+
+def swing_noted(notes: list[str], amplitude_v: float | None, rail_v: float | None) -> list[str]:
+    """``notes`` with :data:`SWING_HINT` replaced by what was checked when both an input amplitude
+    and a rail (V) were given (the hint asks only for a value that is really missing)."""
+    if amplitude_v is None or rail_v is None:
+        return list(notes)
+    done = f"; checked against the {rail_v:g} V rail for a {amplitude_v:g} V input (the output-swing check)"
+    return [n.replace(SWING_HINT, done) for n in notes]

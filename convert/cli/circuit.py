@@ -194,7 +194,12 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument(
         "--netlist", metavar="FILE", help="write a SPICE netlist realizing +C(s) from in to out, e.g. --netlist pid.cir"
     )
-    p.add_argument("--bom", metavar="FILE", help="write the bill of materials as CSV, e.g. --bom pid.csv")
+    p.add_argument(
+        "--bom",
+        metavar="FILE",
+        help="write the bill of materials (one row per part) as ASCII CSV; quantities, ratings and "
+        "dielectrics are in --buy-list, e.g. --bom pid.csv",
+    )
     p.add_argument(
         "--buy-list",
         metavar="FILE",
@@ -392,6 +397,9 @@ def run(args, console) -> int:
             "controller's corners",
             key="--band",
         )
+    from convert.circuit.opamp import swing_noted
+
+    design.notes[:] = swing_noted(design.notes, amplitude, rail)
     trims = _trims(args, design)
     writers = {}
     if args.netlist:
@@ -408,18 +416,22 @@ def run(args, console) -> int:
         from convert.circuit.buylist import buy_list
         from convert.jsonable import to_jsonable
 
-        order = buy_list(design, tolerances, rail_v=rail or 15.0, amplitude_v=amplitude)
+        order = buy_list(
+            design,
+            tolerances,
+            rail_v=rail or 15.0,
+            amplitude_v=amplitude,
+            draws=args.draws,
+            seed=args.seed,
+            distribution=args.distribution,
+        )
         writers["--buy-list"] = (
             json.dumps(to_jsonable(order.summary()), indent=2, ensure_ascii=True) + "\n"
             if args.buy_list.lower().endswith(".json")
             else order.csv()
         )
-        if order.tightening is not None:
-            design.notes.append(
-                f"buy list: {order.tightening.part} dominates the tolerance error; "
-                f"{order.tightening.suggested * 100:g} % for it alone brings the worst case from "
-                f"{order.tightening.gain_db[0]:.3g} to {order.tightening.gain_db[1]:.3g} dB"
-            )
+        for t in order.tightenings:
+            design.notes.append(f"buy list: {t.part} {t.note()}")
     if args.schematic:
         from convert.report.schematic import design_schematic
 

@@ -176,6 +176,10 @@ def _controller(args):
         if clamp and not args.output_limits:  # the card's clamps offered as the output limits
             args.output_limits = [repr(float(clamp[0])), repr(float(clamp[1]))]
             args.limits_from_card = True
+        elif not args.output_limits:  # clamped somewhere, but nothing carries the limits to the output
+            from convert.circuit.clamps import unreached_clamp_note
+
+            args.card_clamp_note = unreached_clamp_note(analysis.netlist, analysis.output)
         return analysis.controller, f"card {args.card}: {analysis.controller.expression(8)}"
     try:
         controller, _ = controller_from_args(args)
@@ -305,7 +309,7 @@ def run(args, console) -> int:
     note = (
         f"output limits {lim[0]:.4g} .. {lim[1]:.4g} V from the card's clamps (--output-limits overrides them)"
         if getattr(args, "limits_from_card", False) and lim
-        else None
+        else getattr(args, "card_clamp_note", None)
     )
     _render(console, pick, every, why, paths, word, sc.text if sc else None, note)
     for link in getattr(args, "link_notes", ()):

@@ -33,6 +33,7 @@ def circuit_realization(
     setpoint_filter=None,
 ):
     from convert.circuit.design import DesignOptions, design_circuit
+    from convert.circuit.opamp import swing_noted
     from convert.compare.evaluate import WEIGHTS_NOT_CARRIED, Realization, _simulate_pair
     from convert.compare.stages import circuit_budget, circuit_response
 
@@ -78,6 +79,7 @@ def circuit_realization(
     )
     budget = list(cb.rows)
     topo, model, mc, tols, n_draws = design.topology, cb.opamp, cb.monte_carlo, dict(tgt.tolerances), cb.draws
+    swing = swing_check_of(design, tgt, model)
     nominal, rounded = design.nominal, design.rounded
 
     def resp(parts, f, opamp=None):
@@ -100,8 +102,11 @@ def circuit_realization(
         "opamp_gbw_hz": tgt.opamp_gbw_hz,
         "draws": n_draws,
         "seed": tgt.seed,
-        "notes": list(design.notes),
+        "notes": swing_noted(design.notes, tgt.input_amplitude_v, tgt.rail_v),
     }
+    if swing is not None:
+        details["swing"] = swing.summary()
+        details["swing_check"] = swing_judgement(swing)
     name = f"circuit {topo.name}"
     r = Realization(
         name=name,
@@ -110,7 +115,7 @@ def circuit_realization(
         details=details,
         budget=budget,
         seen=lambda f: resp(rounded, f, model)[0],
-        warnings=list(design.notes),
+        warnings=swing_noted(design.notes, tgt.input_amplitude_v, tgt.rail_v),
     )
     # Monte Carlo band for the figure (with the op-amp model, as the total row) and the per-draw
     # maxima the verdict uses (the error panels draw them with the limits)
@@ -143,7 +148,16 @@ def circuit_realization(
         )
         if setpoint_filter is not None and own is None:
             r.warnings.append(WEIGHTS_NOT_CARRIED)
-    r.files = circuit_files(design, model, tols)
+    r.files = circuit_files(
+        design,
+        model,
+        tols,
+        rail_v=tgt.rail_v,
+        amplitude_v=tgt.input_amplitude_v,
+        seed=tgt.seed,
+        draws=n_draws,
+        distribution=tgt.distribution,
+    )
     tick("circuit files")
     return r
 
@@ -222,15 +236,76 @@ def loop_count_of(controller, plant):
     return LoopCount(f, p_of)
 
 
-def circuit_files(design, model, tolerances=None) -> dict:
-    """BOM (CSV text), SPICE netlist (text) and schematic (a :class:`convert.circuit.schematic.Schematic`
-    that the report layer draws as PNG) of the design, from the circuit package's writers."""
+def swing_check_of(design, target, model):
+    """The output-swing check of the circuit target's stated ``rail`` and ``input_amplitude``
+    (:func:`convert.circuit.opamp.swing_check` on the rounded parts over the design band, the
+    same check as ``loopshift circuit --rail --amplitude``), or None when they are not stated."""
+    if target.rail_v is None or target.input_amplitude_v is None:
+        return None
+    from convert.circuit.opamp import swing_check
+
+    parts = {k: np.asarray(v) for k, v in design.rounded.items()}
+    return swing_check(design.topology, parts, design.f_grid(50), target.input_amplitude_v, target.rail_v, model)
+
+
+def swing_judgement(swing) -> dict:
+    """The always-on check a stated rail and input amplitude add: every op-amp output's peak over
+    the band (V) within the rail, else FAIL (the stage clips and the circuit is not the controller)."""
+    peaks = {k: float(np.max(v)) for k, v in swing.peak_v.items()}
+    worst = max(peaks, key=peaks.get)
+    over = [f"{k} {v:.3g} V" for k, v in peaks.items() if v > swing.rail_v]
+    note = f"for a {swing.amplitude_v:g} V input over the band: " + (
+        ", ".join(over) + f" above the {swing.rail_v:g} V rail (the stage clips)"
+        if over
+        else f"largest {worst} {peaks[worst]:.3g} V"
+    )
+    return {
+        "key": "output_swing",
+        "label": "op-amp outputs within the rail",
+        "unit": "V",
+        "limit": swing.rail_v,
+        "value": peaks[worst],
+        "status": "pass" if swing.ok else "fail",
+        "note": note,
+    }
+
+
+def circuit_files(
+    design,
+    model,
+    tolerances=None,
+    *,
+    rail_v=None,
+    amplitude_v=None,
+    seed: int = 1,
+    draws: int = 0,
+    distribution: str | None = None,
+) -> dict:
+    """BOM (CSV text), buy list (CSV and JSON text, :mod:`convert.circuit.buylist`; ratings from
+    ``rail_v`` and ``amplitude_v`` in volts, default a 15 V rail; the suggested tolerances priced by
+    the Monte Carlo of ``draws`` draws and ``seed``), SPICE netlist (text) and schematic (a
+    :class:`convert.circuit.schematic.Schematic` that the report layer draws as PNG) of the design."""
+    import json
+
     from convert.circuit.bom import bom_csv, bom_rows
+    from convert.circuit.buylist import buy_list
     from convert.circuit.netlist_out import design_netlist
     from convert.circuit.schematic import schematic_of
+    from convert.jsonable import to_jsonable
 
+    order = buy_list(
+        design,
+        tolerances,
+        rail_v=rail_v or 15.0,
+        amplitude_v=amplitude_v,
+        draws=draws,
+        seed=seed,
+        distribution=distribution,
+    )
     return {
         "circuit.cir": design_netlist(design, opamp=model),
         "bom.csv": bom_csv(bom_rows(design, tolerances)),
+        "buy_list.csv": order.csv(),
+        "buy_list.json": json.dumps(to_jsonable(order.summary()), indent=2, ensure_ascii=True) + "\n",
         "schematic.png": schematic_of(design),
     }

@@ -293,6 +293,8 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
         fw = r.details.get("firmware") if r.form == "digital" else None
         if fw is not None:
             f["checks"] = f["checks"] + list(fw["checks"])
+        if r.form == "circuit" and r.details.get("swing_check") is not None:  # target.circuit.rail/input_amplitude
+            f["checks"] = f["checks"] + [r.details["swing_check"]]
         if total.unstable_fraction is not None:
             f["checks"] = list(f.get("checks", ())) + [_draws_stability_check(total)]
         figures[r.name] = f
