@@ -235,3 +235,95 @@ def test_digital_fixed_point_without_input_range_names_the_option(run_cli):
     """The reviewer's finding 24: the option is named as the user types it, exit 2."""
     out = run_cli("digital", "2*(1+1/(3s))", "--fs", "100Hz", "--word-format", "q15")
     assert out.code == 2 and "--input-range" in out.err and "input_range = [" not in out.err
+
+
+def test_output_scale_with_mixed_units_is_refused(run_cli, tmp_path):
+    """The reviewer's finding 13: a signal range from 0 mA to 10 V is not a range; exit 2 naming
+    the option."""
+    out = run_cli(
+        "code",
+        "--pid",
+        "kc=2",
+        "ti=30s",
+        "--fs",
+        "10Hz",
+        "--format",
+        "float",
+        "--output-limits",
+        "0",
+        "4095",
+        "--input-scale",
+        "1V",
+        "5V",
+        "0",
+        "4095",
+        "--output-scale",
+        "0mA",
+        "10V",
+        "0",
+        "4095",
+        "--name",
+        "lvl2",
+        "--out",
+        str(tmp_path / "o"),
+    )
+    assert out.code == 2 and "--output-scale" in out.err and "mix units" in out.err
+
+
+def test_velocity_form_with_back_calculation_is_refused(run_cli, tmp_path):
+    """The reviewer's finding 14: the velocity form has no tracking term (its accumulated output
+    is clamped), so a header stating a tracking constant would be false: refused, exit 2."""
+    out = run_cli(
+        "code",
+        "--pid",
+        "kc=2",
+        "ti=20s",
+        "td=2s",
+        "n=10",
+        "--fs",
+        "10Hz",
+        "--pid-block",
+        "--format",
+        "double",
+        "--output-limits",
+        "-20",
+        "50",
+        "--anti-windup",
+        "track",
+        "--tracking-time",
+        "4s",
+        "--velocity",
+        "--name",
+        "ovv",
+        "--out",
+        str(tmp_path / "o"),
+    )
+    assert out.code == 2 and "--anti-windup" in out.err
+
+
+def test_the_help_q31_pid_example_writes_its_code(run_cli, tmp_path):
+    """The reviewer's finding 22: the help's fixed-point PID example must run as shown (it was Q15,
+    where this PID's integral stalls; the docs now say so and show Q31)."""
+    out = run_cli(
+        "code",
+        "--pid",
+        "kc=2",
+        "ti=30s",
+        "td=5s",
+        "n=10",
+        "--fs",
+        "10Hz",
+        "--format",
+        "q31",
+        "--input-range",
+        "-10",
+        "10",
+        "--output-limits",
+        "-100",
+        "100",
+        "--name",
+        "flow",
+        "--out",
+        str(tmp_path / "fw"),
+    )
+    assert out.code == 0 and (tmp_path / "fw" / "flow.c").exists()

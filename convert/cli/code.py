@@ -25,7 +25,7 @@ live swap, plan a bumpless transfer (NAME_set_output), keep safety functions ind
 EPILOG = """\
 examples:
   loopshift code "2*(1 + 1/(0.5*s))" --fs 1kHz --format float --name level_pi --out fw/
-  loopshift code --pid kc=2 ti=30s td=5s n=10 --fs 10Hz --format q15 --input-range -10 10 \\
+  loopshift code --pid kc=2 ti=30s td=5s n=10 --fs 10Hz --format q31 --input-range -10 10 \\
       --output-limits -100 100 --name flow --out fw/
   loopshift code "(0.2s+1)/(0.02s+1)" --fs 2kHz --structure sections --lang st --format double \\
       --name lead --out plc/ --json
@@ -278,7 +278,7 @@ def run(args, console) -> int:
         )
         if pick is not None and pick.stall_unchecked and lim is None:
             raise InputError(
-                f"{args.fmt} holds the integral at the output's level: give --output-limits LOW HIGH "
+                f"{word} holds the integral at the output's level: give --output-limits LOW HIGH "
                 "(the integrator-stall check needs that level)",
                 key="--output-limits",
             )
@@ -400,7 +400,7 @@ def _scaling(args):
         if not words:
             maps.append(None)
             continue
-        nums = []
+        nums, kinds = [], []
         for w in words:
             v = None
             for kind in ("number", "volt", "ampere"):
@@ -412,6 +412,12 @@ def _scaling(args):
             if v is None:
                 raise InputError(f"expected a number, volts or amperes (1V, 4mA, 4095), found {w!r}", key=option)
             nums.append(v)
+            kinds.append(kind)
+        if len(kinds) >= 2 and kinds[0] != kinds[1]:
+            raise InputError(
+                f"the signal's two ends mix units ({words[0]!r}, {words[1]!r}): give both in V or both in mA",
+                key=option,
+            )
         try:
             maps.append(SignalMap(*nums))
         except InputError as exc:

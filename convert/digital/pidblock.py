@@ -73,6 +73,12 @@ class PidBlock:
         aw = kw.get("anti_windup", "clamp")
         if aw not in ANTI_WINDUP:
             raise InputError(f"expected one of {', '.join(ANTI_WINDUP)}, found {aw!r}", key="anti_windup")
+        if form == "velocity" and aw == "track":
+            raise InputError(
+                "the velocity form stops windup by clamping its accumulated output; back-calculation (track) "
+                "is for the positional form",
+                key="anti_windup",
+            )
         if kw.get("word_format", "float64") not in WORD_FORMATS:
             raise InputError(
                 f"the PID block is written in {', '.join(WORD_FORMATS)}, found {kw.get('word_format')!r}",
@@ -237,8 +243,12 @@ def pid_head(block: PidBlock, name: str, source: str, lang: str = "c") -> list[s
         f"kd = {block.sign * block.kd:.10g} s, derivative filter Tf = {block.tf:.10g} s; setpoint weights "
         f"b = {block.b:.6g}, c = {block.c:.6g}.",
         f"Output limits: {lim[0]:.10g} .. {lim[1]:.10g}" if lim else "Output limits: none (no clamp in this block)",
-        f"Anti-windup: {block.anti_windup}"
-        + (f", tracking time constant Tt = {block.tracking_time_s:.6g} s" if block.anti_windup == "track" else ""),
+        (
+            "Anti-windup: the output clamp (velocity form: the accumulated output is clamped)"
+            if block.form == "velocity"
+            else f"Anti-windup: {block.anti_windup}"
+            + (f", tracking time constant Tt = {block.tracking_time_s:.6g} s" if block.anti_windup == "track" else "")
+        ),
         f"Call {call} once per sample; {bump}",
         "from manual to automatic makes the next output equal u (bumpless transfer).",
     ]
