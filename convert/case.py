@@ -726,7 +726,9 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
         delay_s, delay_samples = ctx.delay(dig, "delay", f"{key}.delay")
         if "delay_samples" in dig:
             delay_samples = ctx.value(dig, "delay_samples", f"{key}.delay_samples", "number", None, positive=True)
-        limits = ctx.pair(dig, "output_limits", f"{key}.output_limits", "number")
+        limits = _around_operating_point(
+            ctx, ctx.pair(dig, "output_limits", f"{key}.output_limits", "number"), f"{key}.output_limits"
+        )
         n_filter = ctx.value(
             dig, "derivative_filter", f"{key}.derivative_filter", "number", None, positive=True, allow_zero=False
         )
@@ -885,7 +887,7 @@ def _read_signal_maps(ctx: _Ctx, dig: dict, key: str, source) -> tuple[list, tup
             continue
         ctx.check_keys(table, SCHEMA["target"]["digital"][side], f"{key}.{side}")
         try:
-            m, line = signal_map(table, f"{key}.{side}", card_volts=source.form in ("card", "netlist"))
+            m, line = signal_map(table, f"{key}.{side}", card_volts=True)
         except InputError as exc:
             raise InputError(exc.message, where=ctx.where(exc.key or f"{key}.{side}"), key=exc.key) from None
         maps.append(m)
@@ -923,7 +925,9 @@ def _read_signals(ctx: _Ctx, data: dict) -> Signals:
         if v == 0:
             raise ctx.error(f"signals.{name}", "a step of size zero tests nothing; give a non-zero size")
     duration = ctx.value(table, "duration", "signals.duration", "second", None, positive=True, allow_zero=False)
-    out_range = ctx.pair(table, "output_range", "signals.output_range", "number")
+    out_range = _around_operating_point(
+        ctx, ctx.pair(table, "output_range", "signals.output_range", "number"), "signals.output_range"
+    )
     return Signals(setpoint_step=step, disturbance_step=dist, duration_s=duration, output_range=out_range)
 
 
@@ -1147,3 +1151,15 @@ def case_summary(case: Case) -> dict:
     if case.plant:
         out["plant"] = {"model": case.plant.expression, "dead_time_s": case.plant.dead_time_s}
     return out
+
+
+def _around_operating_point(ctx, limits, dotted: str):
+    """Output limits are deviations from the operating point (0 = the output there): a pair
+    that leaves out 0 cannot hold the loop at its operating point, so it is refused."""
+    if limits is not None and not limits[0] <= 0.0 <= limits[1]:
+        raise ctx.error(
+            dotted,
+            f"the limits {limits[0]:g} .. {limits[1]:g} leave out 0, the output at the operating point: they "
+            "are deviations from it (a valve at 40 % of 0..100 % gives [-40, 60])",
+        )
+    return limits

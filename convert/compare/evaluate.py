@@ -293,6 +293,9 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
         fw = r.details.get("firmware") if r.form == "digital" else None
         if fw is not None:
             f["checks"] = f["checks"] + list(fw["checks"])
+            reach = _input_reach_check(case, r, fw)
+            if reach is not None:
+                f["checks"].append(reach)
         if r.form == "circuit" and r.details.get("swing_check") is not None:  # target.circuit.rail/input_amplitude
             f["checks"] = f["checks"] + [r.details["swing_check"]]
         if total.unstable_fraction is not None:
@@ -376,12 +379,16 @@ def _filtered(case, analog: Controller) -> tuple[Controller, str | None]:
 def _simulable(case, src: Controller, analog_src: Controller, notes: list[str]) -> Controller | None:
     if src.is_proper:
         return src
-    if case.digital and case.digital.derivative_filter:
+    if case.digital:  # refused naming target.digital.derivative_filter when it has none
         filt, _ = _filtered(case, analog_src)
         notes.append("the source is improper; its loop was simulated with the target's derivative filter added")
         return filt
-    notes.append("the source is improper (pure derivative): its loop cannot be simulated; give a filtered source")
-    return None
+    raise UnrealizableError(
+        "the source controller is improper (a pure derivative): its loop with the plant cannot be "
+        "simulated; give the PID a derivative filter (n or tf)",
+        where=case.where("source"),
+        key="source",
+    )
 
 
 def _draws_stability_check(total) -> dict:
@@ -796,6 +803,48 @@ def _code_folder(name: str) -> str:
     import re
 
     return "code/" + re.sub(r"[^A-Za-z0-9]+", "-", name).strip("-").lower()
+
+
+def _input_reach_check(case, r, fw: dict) -> dict | None:
+    """Fixed point scales its input words to the stated input range R; a larger input saturates
+    them, and the controller then acts on R instead. The loop's own test signals must stay inside:
+    the error r − y (setpoint step) and −y (load step) of a linear controller; the setpoint and
+    the measurement of a PID block (which takes both). None when there is no simulated loop or
+    the word format is not fixed point."""
+    if fw.get("word_format") not in ("q15", "q31") or not fw.get("input_range"):
+        return None
+    sp = float(case.signals.setpoint_step)
+    peaks = []
+    if r.step is not None:
+        y = np.asarray(r.step.y, dtype=float)
+        peaks.append(
+            max(abs(sp), float(np.max(np.abs(y))))
+            if fw.get("structure") == "pid_block"
+            else float(np.max(np.abs(sp - y)))
+        )
+    if r.disturbance is not None:
+        peaks.append(float(np.max(np.abs(np.asarray(r.disturbance.y, dtype=float)))))
+    peaks = [p for p in peaks if math.isfinite(p)]
+    if not peaks:
+        return None
+    rng = float(fw["input_range"])
+    peak = max(peaks)
+    what = "setpoint and measurement" if fw.get("structure") == "pid_block" else "error"
+    ok = peak <= rng * (1 + 1e-9)
+    return dict(
+        key="firmware_input_reach",
+        label=f"the loop's {what} stay within the input range ±{rng:.4g}",
+        unit="input units",
+        limit=rng,
+        value=peak,
+        status="pass" if ok else "fail",
+        note=(
+            f"largest |{what}| in the simulated setpoint and load steps"
+            if ok
+            else f"the simulated steps reach |{what}| = {peak:.4g}, beyond the input range ±{rng:.4g}: the input "
+            "words saturate there and the controller acts on the range's end instead; widen input_range"
+        ),
+    )
 
 
 def _withhold_failing_code(realizations, verdict) -> None:

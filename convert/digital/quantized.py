@@ -131,13 +131,16 @@ class FormatAnalysis:
             )
         gl, pl = self.response_limits
         bad_response = next((f for f in self.failures if f.startswith("response:")), None)
+        # the figure shown is the one nearer (or further past) its limit: gain in dB or phase in deg
+        g, p = self.gain_error_db or 0.0, self.phase_error_deg or 0.0
+        by_phase = pl > 0 and gl > 0 and p / pl > g / gl
         out.append(
             dict(
                 key="firmware_response",
                 label=f"{name}: stored coefficients follow the design",
-                unit="dB",
-                limit=gl,
-                value=self.gain_error_db,
+                unit="deg" if by_phase else "dB",
+                limit=pl if by_phase else gl,
+                value=p if by_phase else g,
                 status="fail" if bad_response else "pass",
                 note=bad_response
                 or f"gain {self.gain_error_db:.3g} dB, phase {self.phase_error_deg:.3g} deg from quantization alone "
@@ -438,7 +441,9 @@ def realized_controller(real: Realized, name: str = ""):
     t = real.layout.sample_period_s
     if real.structure in ("direct1", "direct2t"):
         s = real.sections[0]
-        return Controller.from_b_a(s.b, s.a, t, name)
+        # fixed point stores the words' coefficients: input and output scaled to their full scales
+        scale = real.node_scales[-1] / real.node_scales[0] if real.word.is_fixed else 1.0
+        return Controller.from_b_a(np.asarray(s.b, dtype=float) * scale, s.a, t, name)
     poles = [p for ps, _ in realized_poles(real) for p in ps]
     zeros = [z for s in real.sections for z in section_zeros(real.form, s.b, _delta(real))]
     from convert.digital.roots import RootForm

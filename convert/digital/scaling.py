@@ -157,7 +157,8 @@ def signal_map(raw: dict, dotted: str, *, card_volts: bool) -> tuple[SignalMap, 
     if ctl_unit == "ampere" and card_volts:
         raise err(
             "range",
-            f"a current range ({_fmt(lo * 1e3)} .. {_fmt(hi * 1e3)} mA) for the card's voltage input: give "
+            f"a current range ({_fmt(lo * 1e3)} .. {_fmt(hi * 1e3)} mA) for the controller's input, which works in volts "
+            "as a card's does: give "
             'shunt (e.g. shunt = "250 ohm") or the volts at the card',
         )
     sym = "V" if ctl_unit == "volt" else "A"
