@@ -136,7 +136,8 @@ def test_fixed_point_sign_flip_end_to_end(tmp_path):
     [
         ("input", 'range = ["20 mA", "4 mA"]\nshunt = "250 ohm"\nbits = 12', "input_signal.range"),
         ("input", 'range = ["4 mA", "20 mA"]\nshunt = "250 ohm"\nbits = 0', "input_signal.bits"),
-        ("input", 'range = ["4 mA", "20 mA"]\nbits = 12\nconverter = ["0 V", "5 V"]', "input_signal.converter"),
+        # a current range without a shunt is refused at the range itself (the controller works in volts)
+        ("input", 'range = ["4 mA", "20 mA"]\nbits = 12\nconverter = ["0 V", "5 V"]', "input_signal.range"),
         ("input", 'range = ["0 V", "10 V"]\nbits = 12\nconverter = ["0 V", "5 V"]', "input_signal.converter"),
         ("input", 'range = ["0 V", "10 V"]\nshunt = "250 ohm"\nbits = 12', "input_signal.shunt"),
         ("input", 'range = ["0 V", "10 V"]', "input_signal.firmware"),
