@@ -11,6 +11,8 @@ The three jobs from Python, each in a few lines (see docs/python.md):
 from __future__ import annotations
 
 from pathlib import Path
+from convert.circuit.netlist import read_netlist, read_netlist_file
+from convert.pipeline import read_card_source, run_pipeline
 
 
 def read_card(
@@ -64,9 +66,6 @@ def read_card(
     >>> round(card.pid.kp, 6), round(card.pid.ki, 6), card.pid.action  # the card inverts
     (2.0, 1.0, 'direct')
     """
-    from convert.circuit.netlist import read_netlist, read_netlist_file
-    from convert.pipeline import read_card_source
-
     if isinstance(netlist, str) and "\n" in netlist:
         parsed = read_netlist(netlist, source="netlist")
     else:
@@ -114,6 +113,4 @@ def evaluate(case, *, draws: int | None = None):
     >>> results.verdict.overall
     'pass'
     """
-    from convert.pipeline import run_pipeline
-
     return run_pipeline(case, draws=draws).results

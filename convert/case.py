@@ -24,7 +24,22 @@ from typing import Any
 
 from convert.errors import InputError, LoopshiftError
 from convert.methods import METHODS
-from convert.limits import MAX_DEGREE, MAX_RATE_METHOD_PAIRS, MAX_RATES, excerpt
+from convert.limits import MAX_DEGREE, MAX_RATE_METHOD_PAIRS, MAX_RATES, excerpt, read_input_text, file_kind
+from convert.values import parse_value, parse_fraction, parse_delay
+from convert.given import read_given_targets
+from convert.evidence.casefile import read_evidence
+from convert.controller import from_expression, Controller
+from convert.digital.codegen import _check_name
+from convert.circuit.tolerance import DEFAULT_DISTRIBUTION, DEFAULT_DRAWS, DISTRIBUTIONS, MAX_DRAWS, draws_problem
+from convert.digital.scaling import signal_map
+from convert.compare.frequency import band_width_problem
+from convert.pid import pid_from_mapping
+from convert.digital.printed import printed_integrators, printed_radii
+from convert.circuit.topologies import get_topology
+from convert.circuit.netlist import read_netlist
+from convert.pipeline import read_card_source
+from convert.circuit.card import two_input_hint
+from convert.circuit.clamps import limits_text
 
 SOURCE_FORMS = ("expression", "pid", "digital", "card", "netlist")
 WORD_FORMATS = ("float64", "float32", "q15", "q31")
@@ -332,8 +347,6 @@ class _Ctx:
 
     # -- typed readers -------------------------------------------------------------
     def value(self, table: dict, key: str, dotted: str, kind: str, default=None, *, positive=False, allow_zero=True):
-        from convert.values import parse_value
-
         if key not in table:
             return default
         raw = table[key]
@@ -351,8 +364,6 @@ class _Ctx:
     def fraction(self, table: dict, key: str, dotted: str, *, allow_one: bool = True) -> float | None:
         """A zero-or-positive percentage field ("3 %" or a fraction; a bare number above 1 is
         refused with both readings, see :func:`convert.values.parse_fraction`)."""
-        from convert.values import parse_fraction
-
         if key not in table:
             return None
         try:
@@ -365,8 +376,6 @@ class _Ctx:
 
     def delay(self, table: dict, key: str, dotted: str) -> tuple[float, float | None]:
         """(delay_s, delay_samples) from a time ("20 ms") or a count of samples ("1 sample")."""
-        from convert.values import parse_delay
-
         if key not in table:
             return 0.0, None
         try:
@@ -429,8 +438,6 @@ def _did_you_mean(word: str, choices) -> str:
 def load_case(path: str | Path) -> Case:
     """Read and validate the case file at ``path``. Raises :class:`InputError` naming
     ``file:line`` and the key for anything wrong."""
-    from convert.limits import read_input_text
-
     path = Path(path)
     text = read_input_text(path, what="case file")
     return parse_case(text, path)
@@ -494,10 +501,8 @@ def _case_from_data(data: dict, ctx: _Ctx) -> Case:
     plant = _read_plant(ctx, data)
     signals = _read_signals(ctx, data)
     criteria = _read_criteria(ctx, data)
-    from convert.given import read_given_targets
 
     given = read_given_targets(ctx, data.get("target") or {}, path.parent)
-    from convert.evidence.casefile import read_evidence
 
     evidence = read_evidence(ctx, data, path.parent)
     return Case(
@@ -535,7 +540,6 @@ def _read_source(ctx: _Ctx, data: dict) -> Source:
     where = ctx.where(key)
     if form == "expression":
         text = ctx.text(table, "expression", key)
-        from convert.controller import from_expression
 
         try:
             controller = from_expression(text, label=f"{where}: {key}")
@@ -600,8 +604,6 @@ def _read_source(ctx: _Ctx, data: dict) -> Source:
         raise ctx.error(key, "missing file: the netlist's path, relative to the case file")
     file_path = ctx.path.parent / file_name
     if not file_path.is_file():
-        from convert.limits import file_kind
-
         kind = file_kind(file_path)
         if kind is not None:
             raise ctx.error(f"{key}.file", f"{str(file_path)!r} is {kind}; a netlist must be a regular file")
@@ -755,7 +757,6 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
         langs = tuple(
             dict.fromkeys(ctx.text({"v": v}, "v", f"{key}.code_languages", choices=("c", "st")) for v in raw_langs)
         )
-        from convert.digital.codegen import _check_name
 
         for lang in langs:
             try:
@@ -808,13 +809,6 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
         key = "target.circuit"
         ctx.check_keys(cir, SCHEMA["target"]["circuit"], key)
         series = ("E6", "E12", "E24", "E48", "E96", "E192")
-        from convert.circuit.tolerance import (
-            DEFAULT_DISTRIBUTION,
-            DEFAULT_DRAWS,
-            DISTRIBUTIONS,
-            MAX_DRAWS,
-            draws_problem,
-        )
 
         draws = ctx.value(cir, "draws", f"{key}.draws", "number", float(DEFAULT_DRAWS), positive=True)
         seed = ctx.value(cir, "seed", f"{key}.seed", "number", 1.0, positive=True)
@@ -877,8 +871,6 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
 
 def _read_signal_maps(ctx: _Ctx, dig: dict, key: str, source) -> tuple[list, tuple[str, ...]]:
     """``input_signal`` / ``output_signal`` sub-tables of the digital target: (maps, text lines)."""
-    from convert.digital.scaling import signal_map
-
     maps, text = [], []
     for side in ("input_signal", "output_signal"):
         table = ctx.table(dig, side, f"{key}.{side}")
@@ -903,7 +895,6 @@ def _read_plant(ctx: _Ctx, data: dict) -> Plant | None:
     text = ctx.text(table, "model", "plant.model")
     if text is None:
         raise ctx.error("plant", 'missing model: the plant\'s transfer function in s, e.g. model = "2/((10s+1)(2s+1))"')
-    from convert.controller import from_expression
 
     model = from_expression(text, label=f"{ctx.where('plant.model')}: plant.model")
     if model.is_digital:
@@ -943,7 +934,6 @@ def _read_criteria(ctx: _Ctx, data: dict) -> Criteria:
     if "band" not in table:
         raise ctx.error("criteria", 'missing band: the frequency range compared, e.g. band = ["10 mHz", "1 Hz"]')
     band = ctx.pair(table, "band", "criteria.band", "hz", positive=True)
-    from convert.compare.frequency import band_width_problem
 
     if band_width_problem(*band):
         raise ctx.error("criteria.band", band_width_problem(*band))
@@ -1024,14 +1014,9 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
     if src.form == "expression":
         return SourceInfo(controller=src.data["controller"])
     if src.form == "pid":
-        from convert.pid import pid_from_mapping
-
         settings = pid_from_mapping(src.data["settings"], where=src.where)
         return SourceInfo(controller=settings.to_controller(), pid=settings)
     if src.form == "digital":
-        from convert.controller import Controller
-        from convert.digital.printed import printed_integrators, printed_radii
-
         ctrl = Controller.from_b_a(src.data["b"], src.data["a"], 1.0 / src.data["fs_hz"], name="firmware")
         # the rounding of each coefficient as written (a made monic; padding zeros are exact)
         written = src.data.get("a_text", src.data["a"])
@@ -1040,8 +1025,6 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
         ctrl, notes = printed_integrators(ctrl, radius[: len(ctrl.den)])
         return SourceInfo(controller=ctrl, notes=tuple(f"source.digital: {n}" for n in notes))
     if src.form == "card":
-        from convert.circuit.topologies import get_topology
-
         topo = get_topology(src.data["topology"])
         ctrl = topo.controller_from_parts(dict(src.data["parts"]))
         return SourceInfo(
@@ -1051,17 +1034,11 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
             topology=src.data["topology"],
         )
     # netlist
-    from convert.circuit.netlist import read_netlist
-    from convert.pipeline import read_card_source
-
-    from convert.limits import read_input_text
 
     file_path: Path = src.data["file"]
     text = read_input_text(file_path, what="netlist")
     net = read_netlist(text, source=file_path.name)
     if src.data["setpoint"] is None and src.data["input"].upper() not in {e.name for e in net.sources}:
-        from convert.circuit.card import two_input_hint
-
         hint = two_input_hint(net, None, spelling='setpoint = "{sp}", measurement = "{pv}"')
         if hint:
             raise InputError(f"input source {src.data['input']!r} not found in {file_path.name}; {hint}", key="input")
@@ -1078,8 +1055,6 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
     extra: dict = {"netlist_file": str(file_path), "output_limits": card.output_limits, "reduction": card.reduction}
     notes = [f"warning: {w}" for w in net.warnings] + list(card.notes)
     if card.output_limits is not None:
-        from convert.circuit.clamps import limits_text
-
         notes.append(
             f"the card's clamps hold its output to {limits_text(card.output_limits)}: the source loop is simulated "
             "with these limits, and they are the firmware's output limits unless "
@@ -1112,8 +1087,6 @@ def parsed_transfer_functions(case: Case) -> list[tuple[str, str, Any]]:
     if src.form == "expression":
         out.append(("source", src.data["expression"], src.data["controller"]))
     elif src.form == "digital":
-        from convert.controller import Controller
-
         given = f"b = {list(src.data['b'])}, a = {list(src.data['a'])}"
         out.append(("source", given, Controller.from_b_a(src.data["b"], src.data["a"], 1.0 / src.data["fs_hz"])))
     if case.plant is not None:

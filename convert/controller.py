@@ -26,6 +26,8 @@ from collections.abc import Sequence
 import numpy as np
 
 from convert.errors import InputError
+from convert.polyroots import expand, Root, count_at, find_roots
+from convert.expr import format_polynomial, parse_rational
 
 Domain = Literal["analog", "digital"]
 
@@ -197,15 +199,11 @@ class Controller:
     def zeros(self) -> np.ndarray:
         """Finite zeros (s or z plane), each repeated by its multiplicity, as a complex array (a
         fresh copy each call). See :meth:`zero_roots` for multiplicities and accuracies."""
-        from convert.polyroots import expand
-
         return expand(self.zero_roots())
 
     def poles(self) -> np.ndarray:
         """Poles (s or z plane), each repeated by its multiplicity, as a complex array (a fresh copy
         each call). See :meth:`pole_roots` for multiplicities and accuracies."""
-        from convert.polyroots import expand
-
         return expand(self.pole_roots())
 
     def zero_roots(self) -> tuple:
@@ -233,8 +231,6 @@ class Controller:
         """(zeros, poles) as Root tuples. Roots at the special points are counted by the relative
         rule of :func:`convert.polyroots.count_at` and divided out exactly (error 0); the rest are
         found with multiplicity (:func:`convert.polyroots.find_roots`)."""
-        from convert.polyroots import Root, count_at, find_roots
-
         rough = {
             "num": np.roots(self.num) if len(self.num) > 1 else np.zeros(0),
             "den": np.roots(self.den) if len(self.den) > 1 else np.zeros(0),
@@ -416,8 +412,6 @@ class Controller:
 
     def expression(self, digits: int = 6) -> str:
         """The transfer function as text the expression grammar reads back."""
-        from convert.expr import format_polynomial
-
         num = format_polynomial(self.num, self.variable, digits)
         den = format_polynomial(self.den, self.variable, digits)
         if den == "1":
@@ -440,8 +434,6 @@ def from_expression(text: str, *, fs_hz: float | None = None, label: str = "expr
     A ``z`` expression needs ``fs_hz`` (the sample rate in Hz). A constant expression is analog
     unless ``fs_hz`` is given.
     """
-    from convert.expr import parse_rational
-
     parsed = parse_rational(text, label=label)
     # Normalise exactly (den monic, in rationals) so the floats below are the ones the controller
     # keeps; then a non-zero coefficient that is infinite, zero or subnormal in double is refused.

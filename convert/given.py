@@ -32,7 +32,10 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from convert.errors import InputError
+from convert.errors import InputError, LoopshiftError
+from convert.controller import from_expression, Controller
+from convert.pid import pid_from_mapping
+from convert.values import format_value
 
 GIVEN_FORMS = ("analog", "digital", "pid", "circuit")
 PID_BLOCK_METHODS = ("backward-euler", "forward-euler", "tustin")
@@ -154,8 +157,6 @@ def _read_analog(ctx, table: dict, dotted: str, base_dir: Path) -> dict:
     if ("expression" in table) == ("settings" in table):
         raise ctx.error(dotted, 'give expression = "..." (in s) or settings = { kc = ..., ti = ... } (one of them)')
     if "expression" in table:
-        from convert.controller import from_expression
-
         text = ctx.text(table, "expression", f"{dotted}.expression")
         ctrl = from_expression(text, label=f"{ctx.where(f'{dotted}.expression')}: {dotted}.expression")
         if ctrl.is_digital:
@@ -168,8 +169,6 @@ def _read_analog(ctx, table: dict, dotted: str, base_dir: Path) -> dict:
 
 
 def _pid_settings(ctx, table: dict, dotted: str):
-    from convert.pid import pid_from_mapping
-
     settings = ctx.table(table, "settings", f"{dotted}.settings")
     if not settings:
         raise ctx.error(dotted, 'missing settings: the PID settings, e.g. settings = { kc = 2, ti = "30 s" }')
@@ -317,8 +316,6 @@ def _padd(p, q):
 def given_controller(given: GivenForm, case=None):
     """The controller of a given form (error -> output), with its PID settings and notes:
     returns a :class:`convert.case.SourceInfo`. Errors name where the form was written."""
-    from convert.errors import LoopshiftError
-
     try:
         return _given_controller(given, case)
     except LoopshiftError as exc:
@@ -334,8 +331,8 @@ def given_controller(given: GivenForm, case=None):
 
 
 def _given_controller(given: GivenForm, case=None):
+    # imported here, not at the top: import cycle (convert.given -> convert.case -> convert.given)
     from convert.case import Source, SourceInfo, build_form
-    from convert.controller import Controller
 
     d = given.data
     if given.form == "analog":
@@ -397,8 +394,6 @@ def read_given_targets(ctx, target_table: dict, base_dir: Path) -> tuple[GivenFo
 
 def describe(given: GivenForm) -> str:
     """One line saying what the given form is, as written (for the report's inputs table)."""
-    from convert.values import format_value
-
     d = given.data
     if given.form == "analog":
         what = d.get("expression") or ", ".join(f"{k} = {v}" for k, v in d["settings"].items())
@@ -438,6 +433,7 @@ _NETLIST_SUFFIXES = (".cir", ".net", ".sp", ".spice", ".ckt")
 def command_line_context(label: str):
     """The case reader's context for words written on the command line: errors name ``label``
     (``A``, ``B``, ``--plant``) instead of a file and line."""
+    # imported here, not at the top: import cycle (convert.given -> convert.case -> convert.given)
     from convert.case import _Ctx
 
     class _CommandLine(_Ctx):
@@ -577,8 +573,6 @@ def _spec_key(key: str | None) -> str | None:
 
 
 def _expression_spec(text: str, label: str, fs_hz: float | None) -> GivenForm:
-    from convert.controller import from_expression
-
     ctrl = from_expression(text, fs_hz=None if not _mentions_z(text) else fs_hz, label=label)
     if ctrl.is_digital:
         a0 = ctrl.a[0]
@@ -612,6 +606,7 @@ def as_source(given: GivenForm):
 
     A reference is taken as written: a delay, output limits, a word format or part tolerances
     belong to the form being checked, so they are refused here."""
+    # imported here, not at the top: import cycle (convert.given -> convert.case -> convert.given)
     from convert.case import Source
 
     d = given.data
@@ -662,8 +657,6 @@ def given_from_source(src, name: str = "source") -> GivenForm:
     if src.form == "expression":
         return GivenForm(name, "analog", {"expression": d["expression"], "controller": d["controller"]}, src.where)
     if src.form == "pid":
-        from convert.pid import pid_from_mapping
-
         return GivenForm(
             name,
             "analog",

@@ -233,6 +233,7 @@ class PidSettings:
     def to_controller(self, name: str = ""):
         """The feedback controller (error -> output, action sign included) as a
         :class:`convert.controller.Controller`. Without a filter and with kd > 0 it is improper."""
+        # imported here, not at the top: `loopshift --help` imports this module; at the top it would add convert.controller, convert.expr, convert.limits, convert.polyroots to the help's start-up
         from convert.controller import Controller
 
         num, den = self._polys(1.0, 1.0)
@@ -240,6 +241,7 @@ class PidSettings:
 
     def setpoint_controller(self, name: str = ""):
         """The setpoint -> output path with the weights: sign·(kp·b + ki/s + kd·c·s/(tf·s + 1))."""
+        # imported here, not at the top: `loopshift --help` imports this module; at the top it would add convert.controller, convert.expr, convert.limits, convert.polyroots to the help's start-up
         from convert.controller import Controller
 
         num, den = self._polys(self.b, self.c)
@@ -404,6 +406,7 @@ def lead_lag(gain: float, zero_hz: float, pole_hz: float, *, name: str = ""):
 
     ``gain`` is the DC gain (may be negative). A lead has zero_hz < pole_hz, a lag the opposite.
     """
+    # imported here, not at the top: `loopshift --help` imports this module; at the top it would add convert.controller, convert.expr, convert.limits, convert.polyroots to the help's start-up
     from convert.controller import Controller
 
     gain = _check_number(gain, "gain", minimum=None)
@@ -478,6 +481,7 @@ def without_leak(controller):
 
     if leaky_integrator_pole(controller) is None:
         return controller
+    # imported here, not at the top: `loopshift --help` imports this module; at the top it would add convert.controller, convert.expr, convert.limits, convert.polyroots to the help's start-up
     from convert.controller import Controller
 
     poles = controller.poles()
@@ -611,10 +615,12 @@ def pid_from_mapping(mapping: Mapping[str, Any], where: str = "pid") -> PidSetti
 
 
 def _value(data: Mapping[str, Any], key: str, kind: str, where: str) -> float:
+    # imported here, not at the top: `loopshift --help` imports this module; at the top it would add convert.limits, convert.values to the help's start-up
     from convert.values import parse_value
 
     try:
         if kind == "fraction":  # a percentage field: "50 %" or a fraction; a bare 50 is refused (both readings)
+            # imported here, not at the top: `loopshift --help` imports this module; at the top it would add convert.limits, convert.values to the help's start-up
             from convert.values import parse_fraction
 
             return parse_fraction(data[key], field=key)
@@ -635,6 +641,7 @@ def _rate(data: Mapping[str, Any], key: str, bare_per_s: float, where: str) -> f
     """A rate in 1/s from ``"2/min"``, ``"0.1/s"``, ``"2 repeats/min"`` or a bare number (× bare_per_s)."""
     import re
 
+    # imported here, not at the top: `loopshift --help` imports this module; at the top it would add convert.limits, convert.values to the help's start-up
     from convert.values import parse_value
 
     text = data[key]

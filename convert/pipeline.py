@@ -27,6 +27,11 @@ from convert.compare.budget import BudgetRow
 from convert.compare.stages import circuit_budget, digital_budget
 from convert.compare.verdict import Verdict
 from convert.controller import Controller
+from convert.circuit.card import analyze_card
+from convert.compare.loop import loop_margins
+from convert.compare.stability import loop_stability
+from convert.errors import InputError
+from convert.given import command_line_context
 
 __all__ = [
     "AnalogSource",
@@ -161,8 +166,6 @@ def read_card_source(
     as ``loopshift card`` shows it and as a case with ``[source] netlist`` uses it:
     :func:`convert.circuit.card.analyze_card` with the band (Hz) and the planned sample rate (Hz)
     that decide which op-amp poles are left out."""
-    from convert.circuit.card import analyze_card
-
     return analyze_card(
         netlist,
         input=input,
@@ -211,9 +214,6 @@ def loop_check(
 ) -> LoopCheck:
     """Margins and closed-loop stability of ``controller`` with the plant ``model`` (analog),
     its dead time and a computation delay (s), by the same functions the report uses."""
-    from convert.compare.loop import loop_margins
-    from convert.compare.stability import loop_stability
-
     margins = loop_margins(controller, model, dead_time_s, delay_s=delay_s)
     try:
         stability = loop_stability(controller, model, dead_time_s, delay_s=delay_s)
@@ -228,9 +228,8 @@ def plant_from_words(
     """The plant of a loop check from an expression in s and a dead time (s), read and checked
     as a case file's ``[plant]`` is; None without an expression (then a dead time is refused).
     Errors name ``where`` / ``dead_where`` (what the user typed: an option, a field)."""
+    # imported here, not at the top: import cycle (convert.pipeline -> convert.case -> convert.pipeline)
     from convert.case import _read_plant
-    from convert.errors import InputError
-    from convert.given import command_line_context
 
     if expression is None:
         if dead_time_s:
@@ -388,6 +387,7 @@ def run_pipeline(case, *, draws: int | None = None, progress=None) -> PipelineRe
     >>> round(firmware.loop.margins.phase_margin_deg - result.source_loop.margins.phase_margin_deg, 1)
     -0.1
     """
+    # imported here, not at the top: import cycle (convert.pipeline -> convert.compare.evaluate -> convert.case -> convert.pipeline)
     from convert.compare.evaluate import evaluate_case
 
     results = evaluate_case(case, draws=draws, progress=progress)

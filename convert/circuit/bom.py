@@ -16,6 +16,9 @@ import math
 from collections.abc import Mapping
 
 from convert.values import format_value
+from convert.circuit.netlist_out import INVERTER_PARTS
+from convert.circuit.tolerance import DEFAULT_TOLERANCES, tolerance_of
+from convert.circuit.buylist import ascii_text
 
 COLUMNS = ("reference", "value", "series", "tolerance", "role")
 
@@ -23,9 +26,6 @@ COLUMNS = ("reference", "value", "series", "tolerance", "role")
 def bom_rows(design, tolerances: Mapping[str, float] | None = None, trims=()) -> list[dict]:
     """Rows for a :class:`~convert.circuit.design.CircuitDesign` (rounded parts, the inverter if
     the design needs one, op-amps, and any trimmer potentiometers from :mod:`convert.circuit.trim`)."""
-    from convert.circuit.netlist_out import INVERTER_PARTS
-    from convert.circuit.tolerance import DEFAULT_TOLERANCES, tolerance_of
-
     tolerances = dict(DEFAULT_TOLERANCES if tolerances is None else tolerances)
     topo = design.topology
     opts = design.options
@@ -91,8 +91,6 @@ UNITS = {"reference": "", "value": "as written (ohm, F)", "series": "", "toleran
 
 def bom_csv(rows: list[dict]) -> str:
     """``rows`` (from :func:`bom_rows`) as an ASCII-only CSV: header, units row, one row per part."""
-    from convert.circuit.buylist import ascii_text
-
     buf = io.StringIO()
     writer = csv.DictWriter(buf, fieldnames=COLUMNS, lineterminator="\n")
     writer.writeheader()

@@ -48,6 +48,9 @@ import numpy as np
 from convert.circuit.topologies.model import node_responses, stage_admittances
 from convert.circuit.topologies.networks import network_parts
 from convert.errors import InputError
+from convert.circuit.netlist_out import INVERTER_PARTS
+from convert.circuit.tolerance import DEFAULT_TOLERANCES, tolerance_of, worst_case
+from convert.circuit.design import tolerance_run
 
 C0G_MAX_F = 100e-9  # C0G/NP0 ceramics are commonly made up to about 100 nF (common practice)
 CAP_RATINGS_V = (6.3, 10.0, 16.0, 25.0, 35.0, 50.0, 63.0, 100.0, 250.0, 400.0, 630.0)
@@ -325,9 +328,6 @@ def buy_list(
     (:func:`convert.circuit.design.tolerance_run`) that prices each suggested tolerance, run before
     and after with the same seed and draws (0: worst-case corners only).
     """
-    from convert.circuit.netlist_out import INVERTER_PARTS
-    from convert.circuit.tolerance import DEFAULT_TOLERANCES, tolerance_of, worst_case
-
     for name, v in (("rail", rail_v), ("error", error), ("offset", offset_v), ("drift", drift_db)):
         if not (isinstance(v, (int, float)) and math.isfinite(v) and v > 0):
             raise InputError(f"the {name} must be a positive number, found {v!r}", key=name)
@@ -555,7 +555,6 @@ def _drawn_spread(design, tolerances, draws: int, seed: int, distribution) -> tu
     """(99th percentile gain error dB, phase error deg) of the tolerance engine's Monte Carlo, or None."""
     if not draws:
         return None
-    from convert.circuit.design import tolerance_run
 
     fig = tolerance_run(design, tolerances, draws=draws, seed=seed, distribution=distribution).figures["tolerances"]
     return float(fig.max_gain_error_db), float(fig.max_phase_error_deg)

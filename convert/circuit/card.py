@@ -24,10 +24,13 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from convert.circuit.clamps import Clamp, clamp_notes, find_clamps, output_limits, unreached_clamp_note
-from convert.circuit.mna import RationalResult, transfer_functions
-from convert.circuit.netlist import Netlist
+from convert.circuit.mna import RationalResult, transfer_functions, _cancel
+from convert.circuit.netlist import Netlist, GROUND
 from convert.controller import Controller
 from convert.errors import InputError
+from convert.compare.frequency import compare_controllers, log_grid
+from convert.pid import LEAK_RATIO, PidSettings, pid_from_controller, why_not_pid, leaky_integrator_pole
+from convert.circuit.sensitivity import controller_quantities, sensitivities
 
 # The weighted-PID reading must match the setpoint path to 1e-4 (0.01 %, far inside any part
 # tolerance): a card's op-amps have finite gain (the high-gain amplifier loopshift's own netlists
@@ -125,8 +128,6 @@ class CardReduction:
     def error(self, f_hz) -> tuple[float, float]:
         """(max |gain error| dB, max |phase error| deg) of the reduced controller against the full
         card over ``f_hz`` (Hz): the cost of leaving the parasitics out."""
-        from convert.compare.frequency import compare_controllers
-
         e = compare_controllers(self.full, self.reduced, f_hz)
         return e.max_gain_error_db, e.max_phase_error_deg
 
@@ -134,8 +135,6 @@ class CardReduction:
         """Plain data (JSON-ready): the rule and its numbers, the full card and the reduced
         controller (num/den descending s), the roots left out ({re, im}), the leaks (rad/s) and
         the error of leaving them out over the band (a log grid of 100 points per decade)."""
-        from convert.compare.frequency import log_grid
-
         gain_db, phase_deg = self.error(log_grid(*self.band_hz))
 
         def tf(c):
@@ -227,8 +226,6 @@ def ideal_opamp_netlist(netlist: Netlist) -> Netlist | None:
     single-pole built-in; an E element of |gain| ≥ 1000 with its output referred to ground; a G
     element from ground into a node with a resistor R to ground and |gm|·R ≥ 1000 (the
     transconductance single-pole model ``loopshift circuit --opamp-gbw`` writes)."""
-    from convert.circuit.netlist import GROUND
-
     to_ground: dict[str, list[float]] = {}
     for e in netlist.of_kind("R"):
         if GROUND in e.nodes and e.nodes[0] != e.nodes[1]:
@@ -297,8 +294,6 @@ def _reduce_paths(netlist: Netlist, inputs, output: str, results: dict, band_hz,
 
 def _ratio(a: Controller, b: Controller, name: str) -> Controller:
     """a / b with common roots cancelled."""
-    from convert.circuit.mna import _cancel
-
     zeros = np.concatenate([a.zeros(), b.poles()])
     poles = np.concatenate([a.poles(), b.zeros()])
     sizes = [abs(x) for x in np.concatenate([zeros, poles]) if abs(x) > 0]
@@ -357,8 +352,6 @@ def _band(*controllers: Controller, floor_hz: float = 0.0) -> np.ndarray:
 def _leak_floor_hz(pid) -> float:
     """Frequencies below this are where a leaking integrator (see convert.pid.LEAK_RATIO) departs
     from the PID read from it; the weights are fitted above it."""
-    from convert.pid import LEAK_RATIO
-
     cf = pid.to_controller().corner_frequencies_hz() if pid.kd == 0 or pid.tf > 0 else {"zeros": [], "poles": []}
     corners = cf["zeros"] + cf["poles"]
     if pid.ki > 0 and pid.kp > 0:
@@ -368,8 +361,6 @@ def _leak_floor_hz(pid) -> float:
 
 def setpoint_structure(h_sp: Controller, h_pv: Controller) -> SetpointStructure:
     """Express a two-input card (u = H_sp·r + H_pv·y) as C·(F·r − y), in PID terms where it fits."""
-    from convert.pid import PidSettings, pid_from_controller
-
     feedback = h_pv.scaled(-1.0).with_name("feedback controller (error → output)")
     filt = _ratio(h_sp, feedback, "setpoint filter F = H_sp / C")
     pid = pid_from_controller(feedback)
@@ -480,8 +471,6 @@ def analyze_card(
     op-amps (:func:`default_band`); a card with ideal op-amps is taken as it is.
     ``controller`` is the reduced controller; ``full_controller`` the card as computed.
     """
-    from convert.pid import pid_from_controller, why_not_pid
-
     if (setpoint is None) != (measurement is None):
         raise InputError("give both the setpoint and the measurement source, or neither", key="setpoint/measurement")
     inputs = (setpoint, measurement) if setpoint is not None else (input,)
@@ -557,8 +546,6 @@ def analyze_card(
 
 def _leak_note(controller: Controller, pid) -> str | None:
     """A note when the PID read from the card has an integrator that leaks (finite op-amp gain)."""
-    from convert.pid import leaky_integrator_pole
-
     p = leaky_integrator_pole(controller)
     if pid is None or p is None:
         return None
@@ -587,9 +574,6 @@ def card_quantities(
     """The quantities ``loopshift card`` tracks for a card: gains, corners and PID parameters of the
     controller (the feedback controller of a two-input card, plus its setpoint quantities). With
     ``band_hz`` the op-amps' parasitics are left out first (:func:`reduce_controller`)."""
-    from convert.circuit.sensitivity import controller_quantities
-    from convert.pid import pid_from_controller
-
     res = transfer_functions(netlist, inputs, output)
     keys = [netlist.element(n).name for n in inputs]
     paths = {k: res[k].controller for k in keys}
@@ -610,8 +594,6 @@ def card_sensitivities(
     """Sensitivity rows for a card (see :mod:`convert.circuit.sensitivity`); two ``inputs``
     (setpoint, measurement) make it a two-input card; ``band_hz``/``fs_hz`` as in
     :func:`card_quantities`."""
-    from convert.circuit.sensitivity import sensitivities
-
     return sensitivities(netlist, lambda nl: card_quantities(nl, inputs, output, band_hz=band_hz, fs_hz=fs_hz))
 
 

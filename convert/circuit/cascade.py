@@ -34,10 +34,12 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from convert.circuit.topologies import AUTO_ORDER, TOPOLOGIES, Topology
+from convert.circuit.topologies import AUTO_ORDER, TOPOLOGIES, Topology, node_responses
 from convert.circuit.topologies.networks import GROUND, C, Junction, R, Parallel, Series, Stage
 from convert.controller import Controller
 from convert.errors import UnrealizableError
+from convert.circuit.design import search_parts, Candidate, CircuitDesign, _figures_off_grid, default_band, score_parts
+from convert.circuit.opamp import SWING_HINT
 
 SECOND_ORDER = ("mfb-low-pass", "mfb-band-pass", "tow-thomas")
 """Second-order stages the cascade may use besides the single-stage catalog (``AUTO_ORDER``). A
@@ -296,8 +298,6 @@ def _peak_grid(band_hz) -> np.ndarray:
 def stage_peaks(design) -> dict[str, float]:
     """Peak |gain| from the input to every op-amp output of a design over its band (V/V), from the
     circuit with its rounded parts (ideal op-amps)."""
-    from convert.circuit.topologies import node_responses
-
     f = _peak_grid(design.band_hz)
     topo = design.topology
     nodes = node_responses(topo, {k: np.asarray(v) for k, v in design.rounded.items()}, f)
@@ -541,8 +541,6 @@ def cascade_topology(stages: list[Topology], w_ref: float | None = None) -> tupl
 
 def _search_section(stage: Topology, section: Controller, options, f: np.ndarray):
     """(design quantities, candidates, diagnostics) of the best-scoring alternative of one stage."""
-    from convert.circuit.design import search_parts
-
     ref = section.frequency_response(f)
     found, last = None, None
     for q in stage.fit(section):
@@ -650,8 +648,6 @@ def design_cascade(
     a product is the sum of the sections' log errors), then joined and scored as one circuit. When a
     stage's parts fall out of range the next order of :func:`plan_cascades` is tried; only when none
     keeps every stage output within max(input, output) peak is a stage allowed above it (noted)."""
-    from convert.circuit.design import Candidate, CircuitDesign, _figures_off_grid, default_band, score_parts
-
     band = band_hz or options.band_hz or default_band(target)
     plans = plan_cascades(target, band, max_opamps=options.max_opamps)
     f = np.logspace(math.log10(band[0]), math.log10(band[1]), max(options.points, 2))
@@ -738,7 +734,6 @@ def design_cascade(
         filter_added=filtered,
         cascade=plan,
     )
-    from convert.circuit.opamp import SWING_HINT
 
     peaks = stage_peaks(design)
     notes.append(

@@ -36,7 +36,20 @@ import numpy as np
 from convert.circuit import series as es
 from convert.circuit.topologies import AUTO_ORDER, TargetShape, Topology, analyse_target, get_topology
 from convert.controller import Controller
-from convert.errors import InputError, UnrealizableError
+from convert.errors import InputError, UnrealizableError, LoopshiftError
+from convert.compare.frequency import log_grid, compare_controllers, compare_responses
+from convert.digital import read_analog
+from convert.digital import add_derivative_filter as shared
+from convert.values import format_value
+from convert.circuit.opamp import OpAmpModel, gbw_response, swing_check
+from convert.circuit.tolerance import (
+    DEFAULT_TOLERANCES,
+    worst_case,
+    DEFAULT_DISTRIBUTION,
+    DEFAULT_DRAWS,
+    Comparison,
+    run_tolerances,
+)
 
 
 @dataclass(frozen=True)
@@ -148,8 +161,6 @@ class CircuitDesign:
         return {k: v for k, v in self.rounded.items() if v not in (math.inf, 0.0)}
 
     def f_grid(self, points_per_decade: int = 50) -> np.ndarray:
-        from convert.compare.frequency import log_grid
-
         return log_grid(self.band_hz[0], self.band_hz[1], points_per_decade)
 
     def realized_parameters(self) -> dict:
@@ -165,14 +176,6 @@ def prepare_target(controller: Controller, options: DesignOptions) -> tuple[Cont
     notes: list[str] = []
     c = controller
     if c.is_digital:
-        try:
-            from convert.digital import read_analog
-        except ImportError:
-            raise UnrealizableError(
-                "a digital target needs convert.digital.to_analog, which is not available in "
-                "this build; give the analog controller instead",
-                key="target",
-            ) from None
         reading = read_analog(c, options.inverse_method)
         c = reading.controller
         notes.append(f"digital target brought back to analog with the inverse {options.inverse_method} method")
@@ -200,9 +203,6 @@ def add_derivative_filter(controller: Controller, n: float) -> Controller:
     A target with no proportional term (a pure differentiator, where Td is undefined) gets one pole
     at N times its highest zero instead: C(s)/(tf·s + 1) with tf = 1/(N·|highest zero|).
     """
-    from convert.digital import add_derivative_filter as shared
-    from convert.errors import LoopshiftError
-
     try:
         return shared(controller, n)
     except LoopshiftError:
@@ -418,7 +418,6 @@ def _out_of_range(topo: Topology, parts: Mapping[str, np.ndarray], options: Desi
     part = topo.part(worst)
     value = float(np.broadcast_to(parts[worst], (n,))[best])
     lo, hi = options.range_for(part.kind)
-    from convert.values import format_value
 
     kind = part.unit_kind
     above = value > hi
@@ -482,6 +481,7 @@ def design_circuit(
     if pre_notes:
         filtered = controller
     if options.topology.lower() == "cascade":
+        # imported here, not at the top: import cycle (convert.circuit.design -> convert.circuit.cascade -> convert.circuit.design)
         from convert.circuit.cascade import design_cascade  # cascade builds on this module
 
         return design_cascade(target, options, source=source, filtered=filtered, notes=notes)
@@ -498,6 +498,7 @@ def design_circuit(
         weighted = settings is not None and (settings.b != 1 or settings.c != 1)
         if options.topology.lower() != "auto" or exc.key not in ("topology", "max opamps") or weighted:
             raise  # a cascade has one input: setpoint weights need the two-input stage
+        # imported here, not at the top: import cycle (convert.circuit.design -> convert.circuit.cascade -> convert.circuit.design)
         from convert.circuit.cascade import design_cascade  # cascade builds on this module
 
         try:
@@ -566,8 +567,6 @@ def _figures_off_grid(topo: Topology, target: Controller, sign: int, cands: list
     score that ranks them stays the grid's."""
     from dataclasses import replace
 
-    from convert.compare.frequency import compare_controllers
-
     out = []
     for c in cands:
         e = compare_controllers(target, topo.controller_from_parts(dict(c.parts)).scaled(sign), f_hz)
@@ -591,8 +590,6 @@ def _preferred_first(alternatives: list[dict], settings, series_times=None) -> t
         return alternatives, None
     want = None
     if settings is not None:
-        from convert.errors import LoopshiftError
-
         try:
             want = settings.series().ti_s
         except LoopshiftError:
@@ -661,10 +658,6 @@ def error_sources(
     a :class:`convert.circuit.tolerance.ToleranceRun` already made for this design (the pipeline's
     :func:`convert.compare.stages.circuit_budget` run), used instead of a second run.
     """
-    from convert.circuit.opamp import OpAmpModel, gbw_response, swing_check
-    from convert.circuit.tolerance import DEFAULT_TOLERANCES, worst_case
-    from convert.compare.frequency import compare_controllers, compare_responses
-
     f = design.f_grid(points_per_decade)
     topo = design.topology
     out: dict = {"band_hz": list(design.band_hz)}
@@ -734,9 +727,6 @@ def tolerance_run(
     with the comparison ``loopshift report`` calls its "tolerances" row: the draws against the
     rounded parts, over the design band on the report's band grid (100 points per decade).
     Returns :class:`convert.circuit.tolerance.ToleranceRun`."""
-    from convert.circuit.tolerance import DEFAULT_DISTRIBUTION, DEFAULT_DRAWS, Comparison, run_tolerances
-    from convert.compare.frequency import log_grid
-
     band = log_grid(design.band_hz[0], design.band_hz[1], 100)
     rounded = {k: np.asarray([v]) for k, v in design.rounded.items()}
     reference = design.sign * design.topology.response(rounded, band)[0]

@@ -34,7 +34,7 @@ import re
 from dataclasses import dataclass, field, replace
 
 from convert.errors import InputError
-from convert.limits import MAX_NESTING, excerpt
+from convert.limits import MAX_NESTING, excerpt, read_input_text
 from convert.values import parse_spice_number
 
 GROUND = "0"
@@ -985,8 +985,6 @@ def read_netlist(text: str, source: str = "netlist") -> Netlist:
 def read_netlist_file(path: str) -> Netlist:
     """Read a netlist file; errors name the file."""
     import os
-
-    from convert.limits import read_input_text
 
     text = read_input_text(path, what="netlist")
     return read_netlist(text, source=os.path.basename(path) or path)

@@ -14,6 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from convert.errors import InputError
+from convert.circuit.topologies import node_responses, output_node
 
 DEFAULT_A0 = 1e5  # open-loop dc gain of the single-pole model (100 dB; common practice)
 HIGH_GAIN = 1e9  # gain of the "high-gain amplifier" netlist model (stands for ideal)
@@ -50,8 +51,6 @@ class OpAmpModel:
 
 def gbw_response(topology, parts, f_hz, model: OpAmpModel) -> np.ndarray:
     """F(j2πf) of the circuit with the op-amp model (positive form, stage sign removed)."""
-    from convert.circuit.topologies import node_responses, output_node
-
     nodes = node_responses(topology, parts, f_hz, open_loop_gain=model.open_loop_gain(f_hz))
     return topology.sign * nodes[output_node(topology)]
 
@@ -92,8 +91,6 @@ def swing_check(
     The input is a sine of peak ``amplitude_v`` on ``in`` (two-input stages: on the measurement,
     the error's worst case); ``rail_v`` is the largest output peak the op-amp delivers.
     """
-    from convert.circuit.topologies import node_responses
-
     if not (amplitude_v > 0 and rail_v > 0):
         raise InputError(
             f"amplitude and rail must be positive volts, found {amplitude_v!r} and {rail_v!r}", key="amplitude/rail"

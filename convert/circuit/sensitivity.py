@@ -22,6 +22,8 @@ import numpy as np
 
 from convert.circuit.netlist import Netlist
 from convert.controller import Controller
+from convert.pid import without_leak
+from convert.circuit.mna import reusing_nominal
 
 _STEP = 1e-3
 
@@ -42,8 +44,6 @@ def controller_quantities(controller: Controller, pid=None) -> dict[str, float]:
     """The quantities a sensitivity table tracks, as positive numbers (units in the keys)."""
     out: dict[str, float] = {}
     if pid is not None:  # the PID read through a leaking integrator: track the integrator, not the leak
-        from convert.pid import without_leak
-
         controller = without_leak(controller)
     num = np.asarray(controller.num)
     den = np.asarray(controller.den)
@@ -113,8 +113,6 @@ def sensitivities(
     if method not in METHODS:
         raise ValueError(f"method must be one of {METHODS}, not {method!r}")
     if method == "update":
-        from convert.circuit.mna import reusing_nominal
-
         with reusing_nominal(netlist):
             return _sensitivities(netlist, evaluate)
     return _sensitivities(netlist, evaluate)

@@ -60,6 +60,10 @@ from collections.abc import Callable, Iterator, Mapping, Sequence
 import numpy as np
 
 from convert.errors import InputError
+from convert.values import parse_fraction
+from convert.compare.frequency import unwrapped_phase_error_deg
+from convert.circuit.opamp import gbw_response
+from convert import sidework
 
 DEFAULT_TOLERANCES = {"R": 0.01, "C": 0.05}
 DEFAULT_DRAWS = 10_000
@@ -92,8 +96,6 @@ def parse_tolerances(
     words: Sequence[str] | None, *, part_names: Sequence[str] = (), where: str = "tolerance"
 ) -> dict[str, float]:
     """Read ``["R=1%", "C=5%", "R3=0.1%"]`` into fractions; defaults R 1 %, C 5 %."""
-    from convert.values import parse_fraction
-
     out = dict(DEFAULT_TOLERANCES)
     for word in words or ():
         if "=" not in word:
@@ -412,8 +414,6 @@ def unwrapped_peak(d: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     at = np.empty(d.shape[1], dtype=np.int64)
     gaps = ~np.isfinite(d).all(axis=0)
     if gaps.any():
-        from convert.compare.frequency import unwrapped_phase_error_deg
-
         ratio = np.exp(1j * np.radians(diamond_to_deg(d[:, gaps].T)))
         err = np.nan_to_num(np.abs(unwrapped_phase_error_deg(ratio)), nan=180.0)
         peak[gaps], at[gaps] = err.max(axis=1), err.argmax(axis=1)
@@ -778,7 +778,6 @@ def _responses(topology, parts: dict, f: np.ndarray, opamp, sign: float) -> np.n
     if opamp is None or getattr(opamp, "ideal", False):
         with np.errstate(invalid="ignore", divide="ignore"):
             return sign * topology.response(parts, f)
-    from convert.circuit.opamp import gbw_response
 
     return _by_rows(lambda p: sign * np.atleast_2d(gbw_response(topology, p, f, opamp)), parts)
 
@@ -1228,8 +1227,6 @@ def _two_core_run(run: dict, source: PartDraws, draws: int, chunk: int) -> _Work
     seeded generators and processes its own chunks; the helper's selections travel back and are
     merged exactly (the figures do not depend on the chunk size or on who processed a chunk).
     None when no helper is used (too few draws, or none usable here)."""
-    from convert import sidework
-
     if draws < HELPER_MIN_DRAWS or not sidework.helpers_usable():
         return None
     size = min(chunk, -(-draws // 2))

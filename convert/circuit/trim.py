@@ -12,6 +12,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from convert.errors import InputError, UnrealizableError
+from convert.circuit import series as es
 
 POT_VALUES = tuple(m * 10.0**e for e in range(1, 7) for m in (1.0, 2.0, 5.0)) + (10e6,)
 
@@ -38,8 +39,6 @@ class Trim:
 
 def size_trim(design, parameter: str, low: float, high: float) -> Trim:
     """Size the fixed resistor and pot replacing the part that sets ``parameter``."""
-    from convert.circuit import series as es
-
     topo = design.topology
     key = parameter.lower()
     if key not in topo.tunable:

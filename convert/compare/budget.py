@@ -26,6 +26,7 @@ from collections.abc import Sequence
 import numpy as np
 
 from convert.compare.frequency import axis_roots, compare_responses
+from convert.circuit.tolerance import FIGURE_PERCENTILE, figures_of_responses
 
 #: Row keys in table order, with their labels.
 ROWS: tuple[tuple[str, str], ...] = (
@@ -110,8 +111,6 @@ def error_row(
     ref = np.asarray(reference, dtype=complex)
     with_loop = loop is not None and loop_reference is not None and loop_candidate is not None
     if cand.shape[0] > 1:  # draws: the tolerance engine's definitions, one place for them
-        from convert.circuit.tolerance import FIGURE_PERCENTILE, figures_of_responses
-
         figs = figures_of_responses(
             key,
             f,

@@ -11,9 +11,19 @@ from __future__ import annotations
 
 import numpy as np
 
-from convert.compare.loop import loop_margins
+from convert.compare.loop import loop_margins, margin_grid
 from convert.controller import Controller
 from convert.errors import LoopshiftError
+from convert.circuit.design import DesignOptions, design_circuit
+from convert.circuit.opamp import swing_noted, swing_check
+from convert.values import format_value
+from convert.circuit.card import _ratio
+from convert.circuit.tolerance import Comparison, run_tolerances, LoopCount
+from convert.circuit.bom import bom_csv, bom_rows
+from convert.circuit.buylist import buy_list
+from convert.circuit.netlist_out import design_netlist
+from convert.circuit.schematic import schematic_of
+from convert.jsonable import to_jsonable
 
 
 def circuit_realization(
@@ -32,9 +42,10 @@ def circuit_realization(
     source_pid=None,
     setpoint_filter=None,
 ):
-    from convert.circuit.design import DesignOptions, design_circuit
-    from convert.circuit.opamp import swing_noted
+    # imported here, not at the top: import cycle (convert.compare.circuitwork -> convert.compare.evaluate -> convert.compare.stages -> convert.compare.circuitwork)
     from convert.compare.evaluate import WEIGHTS_NOT_CARRIED, Realization, _simulate_pair
+
+    # imported here, not at the top: import cycle (convert.compare.circuitwork -> convert.compare.stages -> convert.compare.circuitwork)
     from convert.compare.stages import circuit_budget, circuit_response
 
     tgt = case.circuit
@@ -56,6 +67,7 @@ def circuit_realization(
             analog_src, options, settings=settings, series_times=getattr(source_pid, "given_series", None)
         )
     except LoopshiftError as exc:
+        # imported here, not at the top: import cycle (convert.compare.circuitwork -> convert.case -> convert.pipeline -> convert.compare.stages -> convert.compare.circuitwork)
         from convert.case import circuit_key
 
         exc.name_settings({k: circuit_key(k) for k in exc.settings})
@@ -84,8 +96,6 @@ def circuit_realization(
 
     def resp(parts, f, opamp=None):
         return circuit_response(design, parts, f, opamp)
-
-    from convert.values import format_value
 
     parts_text = {
         k: format_value(v, "ohm" if k.upper().startswith("R") else "farad") for k, v in design.fitted_parts().items()
@@ -137,8 +147,6 @@ def circuit_realization(
         # has u = C·(r − y) and is judged against the source's weighted response
         own = None
         if topo.two_input:
-            from convert.circuit.card import _ratio
-
             paths = topo.paths_from_parts(rounded)
             own = _ratio(paths["setpoint"], paths["measurement"], "setpoint filter F = Cr / Cy")
             if own.order == 0 and len(own.num) == 1 and abs(own.num[0] - 1.0) <= 1e-9:
@@ -188,8 +196,6 @@ def monte_carlo_rows(
     (draws with the op-amp model against the source as the loop sees it), with the margin
     changes on the loop grid when ``loop_margins`` is given, and the gain/phase band on
     ``display_f_hz`` (with the op-amp model)."""
-    from convert.circuit.tolerance import Comparison, run_tolerances
-
     comparisons = [
         Comparison("tolerances", np.asarray(rounded_response), None, loop_rounded),
         Comparison("total", np.asarray(source_response), opamp, loop_source),
@@ -217,9 +223,6 @@ def loop_count_of(controller, plant):
     """What the tolerance engine needs to count unstable draws of a circuit's loop with ``plant``
     (the case's plant, dead time exact): the margin grid of the nominal loop, widened until |L|
     is below 1/100 at the top."""
-    from convert.circuit.tolerance import LoopCount
-    from convert.compare.loop import margin_grid
-
     f = margin_grid(controller, plant.model)
     theta = plant.dead_time_s
 
@@ -242,7 +245,6 @@ def swing_check_of(design, target, model):
     same check as ``loopshift circuit --rail --amplitude``), or None when they are not stated."""
     if target.rail_v is None or target.input_amplitude_v is None:
         return None
-    from convert.circuit.opamp import swing_check
 
     parts = {k: np.asarray(v) for k, v in design.rounded.items()}
     return swing_check(design.topology, parts, design.f_grid(50), target.input_amplitude_v, target.rail_v, model)
@@ -286,12 +288,6 @@ def circuit_files(
     the Monte Carlo of ``draws`` draws and ``seed``), SPICE netlist (text) and schematic (a
     :class:`convert.circuit.schematic.Schematic` that the report layer draws as PNG) of the design."""
     import json
-
-    from convert.circuit.bom import bom_csv, bom_rows
-    from convert.circuit.buylist import buy_list
-    from convert.circuit.netlist_out import design_netlist
-    from convert.circuit.schematic import schematic_of
-    from convert.jsonable import to_jsonable
 
     order = buy_list(
         design,

@@ -32,10 +32,23 @@ from convert.compare.stability import LoopStability, loop_stability
 from convert.compare.stages import digital_budget, loop_spec, realized_controller
 from convert.compare.stages import fmt_hz as _fmt_hz
 from convert.compare.stages import fmt_s as _fmt_s
-from convert.compare.verdict import LOOP_CRITERIA, Verdict, judge
+from convert.compare.verdict import LOOP_CRITERIA, Verdict, judge, CRITERIA
 from convert.controller import Controller
-from convert.case import SETTING_KEYS
+from convert.case import SETTING_KEYS, source_controller
 from convert.errors import InputError, LoopshiftError, UnrealizableError
+from convert.circuit.tolerance import check_draws, draws_problem
+from convert import sidework
+from convert.compare.circuitwork import circuit_realization
+from convert.compare.givenwork import given_realizations
+from convert.evidence.casework import extend_verdict, run_evidence
+from convert.digital import read_analog, add_derivative_filter, discretize, scaling as sg
+from convert.circuit.card import _ratio
+from convert.digital.pidblock import PidBlock, emit_pid_c, emit_pid_st
+from convert.digital.pidcheck import analyze_block, linear_controller
+from convert.pid import pid_from_controller, why_not_pid
+from convert.digital.quantized import analyze
+from convert.digital.codegen import emit
+from convert.digital.scaling import scale_pid
 
 CAUTIONS = (
     "Verify the new form on a bench or in simulation before a live swap.",
@@ -135,9 +148,6 @@ def planned_steps(case) -> int:
 def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], None] | None = None) -> CaseResults:
     """Evaluate ``case`` (a :class:`convert.case.Case`). ``draws`` overrides the Monte Carlo
     draw count of a circuit target. ``progress(text)`` is called once per finished step."""
-    from convert.case import source_controller
-    from convert.circuit.tolerance import check_draws, draws_problem
-
     if draws is not None:  # the command line and case files check this; a library caller too
         check_draws(draws)
         if draws_problem(draws):
@@ -205,8 +215,6 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
     advice: list[RateAdvice] = []
     pending_advice = None
     if case.digital:
-        from convert import sidework
-
         # the sample-rate advice needs only the source loop: on a second core while the targets are built
         pending_advice = sidework.start(
             _rate_advice, case, analog_src, src_margins, src_step, src_dist, duration, src_stability
@@ -233,8 +241,6 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
         advice = pending_advice.result()
         tick("sample-rate advice")
     if case.circuit:
-        from convert.compare.circuitwork import circuit_realization
-
         realizations.append(
             circuit_realization(
                 case,
@@ -253,8 +259,6 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
             )
         )
     if getattr(case, "given", ()):
-        from convert.compare.givenwork import given_realizations
-
         realizations += given_realizations(
             case,
             src,
@@ -303,8 +307,6 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
         figures[r.name] = f
     evidence = None
     if getattr(case, "evidence", None) is not None:
-        from convert.evidence.casework import extend_verdict, run_evidence
-
         evidence = run_evidence(case, info, realizations)
         figures.update(evidence.figures)
         notes += evidence.notes
@@ -342,7 +344,6 @@ def _analog_reference(case, src: Controller, notes: list[str]) -> Controller:
     """The analog controller the targets are built from (a digital source mapped back)."""
     if not src.is_digital:
         return src
-    from convert.digital import read_analog  # type: ignore[attr-defined]
 
     method = case.source.data.get("method", "tustin")
     try:
@@ -371,7 +372,6 @@ def _filtered(case, analog: Controller) -> tuple[Controller, str | None]:
             where=case.where("target.digital"),
             key="target.digital.derivative_filter",
         )
-    from convert.digital import add_derivative_filter  # type: ignore[attr-defined]
 
     return add_derivative_filter(analog, n), f"derivative filter N = {n:g} added (filter time constant Td/N)"
 
@@ -453,7 +453,6 @@ def setpoint_filter_of(pid=None, extra=None) -> Controller | None:
         return Controller.analog(
             np.asarray(sp.num) / d_sp[0], np.asarray(fb.num) / d_fb[0], name="setpoint filter F = C_sp / C"
         )
-    from convert.circuit.card import _ratio
 
     return _ratio(sp, fb, "setpoint filter F = C_sp / C")
 
@@ -649,8 +648,6 @@ class _Built:
 
 def _linear_firmware(case, filtered, fs, method, band, card_limits=None) -> _Built:
     """A discretization method's result in the case's structure and word format."""
-    from convert.digital import discretize
-
     tgt = case.digital
     try:
         real = discretize(filtered, fs, method, prewarp_hz=tgt.prewarp_hz)
@@ -680,10 +677,6 @@ def _pid_block_firmware(case, filtered, fs, band, source_pid, card_limits) -> _B
     code (C, Structured Text) when the analysis passes."""
     import dataclasses
     import types
-
-    from convert.digital.pidblock import PidBlock
-    from convert.digital.pidcheck import analyze_block, linear_controller
-    from convert.pid import pid_from_controller, why_not_pid
 
     tgt = case.digital
     if tgt.input_signal is not None or tgt.output_signal is not None:
@@ -751,7 +744,6 @@ def _pid_code_files(case, block, check, name: str) -> dict:
     decided (C; Structured Text for float formats)."""
     if not check.ok or check.stall_unchecked:
         return {}
-    from convert.digital.pidblock import emit_pid_c, emit_pid_st
 
     tgt = case.digital
     folder = _code_folder(name)
@@ -766,8 +758,6 @@ def _pid_code_files(case, block, check, name: str) -> dict:
 def _firmware(case, real, band):
     """The structure × word-format analysis of a digital target (convert.digital.quantized):
     the input range and output level from the case (output limits, else the output range)."""
-    from convert.digital.quantized import analyze
-
     tgt = case.digital
     limits = tgt.output_limits or case.signals.output_range
     level = max(abs(limits[0]), abs(limits[1])) if limits else None
@@ -870,7 +860,6 @@ def _code_files(case, firmware, name: str, method: str, scaled=None) -> dict:
         not scaled["analysis"].ok or scaled["analysis"].stall_unchecked or scaled["check"]["status"] != "pass"
     ):
         return {}
-    from convert.digital.codegen import emit
 
     tgt = case.digital
     folder = _code_folder(name)
@@ -894,9 +883,6 @@ def _signal_scaling(case, analog, real, band, firmware, limits):
     end-to-end direction check (a constant error through the card-unit model and, mapped, through
     the firmware model, mapped back). None without maps."""
     from dataclasses import replace
-
-    from convert.digital import scaling as sg
-    from convert.digital.quantized import analyze
 
     tgt = case.digital
     if firmware.realized is None or (tgt.input_signal is None and tgt.output_signal is None):
@@ -975,9 +961,6 @@ def _signal_scaling(case, analog, real, band, firmware, limits):
 def _scaled_gains(analog, sc, band) -> str:
     """The gains in firmware units: PID settings when the controller is a PID, else its gain
     at the band's ends."""
-    from convert.digital.scaling import scale_pid
-    from convert.pid import pid_from_controller
-
     try:
         pid = pid_from_controller(analog) if not analog.is_digital else None
     except LoopshiftError:
@@ -995,8 +978,6 @@ def _scaled_gains(analog, sc, band) -> str:
 def _rate_advice(
     case, analog_src, src_margins, src_step=None, src_dist=None, duration=None, src_stability=None
 ) -> list[RateAdvice]:
-    from convert.digital import discretize
-
     tgt = case.digital
     crit = case.criteria
     filtered, _ = _filtered(case, analog_src)
@@ -1036,10 +1017,6 @@ def _rate_advice(
 
 def _block_design(case, filtered, fs):
     """The PID block's linear equivalent with exact constants at ``fs`` (for the rate advice)."""
-    from convert.digital.pidblock import PidBlock
-    from convert.digital.pidcheck import linear_controller
-    from convert.pid import pid_from_controller
-
     return linear_controller(PidBlock.from_settings(pid_from_controller(filtered), fs), stored=False)
 
 
@@ -1047,8 +1024,6 @@ def _rate_loop_check(case, src_margins, src_step, src_dist, duration):
     """The verdict's loop criteria for one candidate digital controller (for the rate advice):
     closed-loop stability, margin changes and, when set, step and disturbance deviations."""
     import types
-
-    from convert.compare.verdict import CRITERIA
 
     plant = case.plant
     crit = case.criteria.as_dict()

@@ -15,7 +15,16 @@ import numpy as np
 from convert.compare import budget as bud
 from convert.compare.frequency import response_seen_from_loop
 from convert.controller import Controller
-from convert.errors import UnrealizableError
+from convert.errors import UnrealizableError, InputError
+from convert.given import given_controller
+from convert.compare.loop import margin_grid, loop_margins
+from convert.compare.stages import fmt_hz as _fmt_hz, fmt_s as _fmt_s
+from convert.digital.quantized import analyze
+from convert.digital.roots import RootForm
+from convert.values import format_value
+from convert.circuit.tolerance import DEFAULT_DRAWS, Comparison, run_tolerances
+from convert.circuit.topologies import get_topology
+from convert.compare.circuitwork import loop_count_of
 
 DEFAULT_SEED = 1
 
@@ -58,8 +67,6 @@ def given_realizations(
     source_weighted: bool = False,
 ) -> list:
     """One :class:`convert.compare.evaluate.Realization` per given form of ``case``."""
-    from convert.given import given_controller
-
     out = []
     for given in case.given:
         info = given_controller(given, case)
@@ -70,6 +77,7 @@ def given_realizations(
         else:
             out.append(_firmware(case, given, info, src, band, duration, src_step, src_dist))
         if source_weighted and case.plant is not None and not getattr(out[-1], "own_setpoint_path", False):
+            # imported here, not at the top: import cycle (convert.compare.givenwork -> convert.compare.evaluate -> convert.compare.givenwork)
             from convert.compare.evaluate import WEIGHTS_NOT_CARRIED
 
             out[-1].warnings.append(WEIGHTS_NOT_CARRIED)
@@ -78,8 +86,8 @@ def given_realizations(
 
 
 def _loop(case, controller: Controller):
+    # imported here, not at the top: import cycle (convert.compare.givenwork -> convert.compare.evaluate -> convert.compare.givenwork)
     from convert.compare.evaluate import _loop_spec
-    from convert.compare.loop import margin_grid
 
     if case.plant is None:
         return None, None
@@ -88,17 +96,12 @@ def _loop(case, controller: Controller):
 
 
 def _firmware(case, given, info, src, band, duration, src_step, src_dist):
-    from convert.compare.stages import fmt_hz as _fmt_hz
-    from convert.compare.stages import fmt_s as _fmt_s
-
     d = given.data
     cd: Controller = info.controller
     cq = quantized(given, cd)
     delay = given.delay_for()
     fs = d["fs_hz"]
     if fs / 2 <= case.criteria.band_hz[1]:
-        from convert.errors import InputError
-
         raise InputError(
             f"given form {given.name!r} runs at {fs:g} Hz: its Nyquist frequency is at or below the "
             f"band's top ({case.criteria.band_hz[1]:g} Hz)",
@@ -233,8 +236,6 @@ def _stored_checks(case, given, cd: Controller, band) -> dict | None:
     d = given.data
     if given.form != "digital" or d.get("word_format", "float64") == "float64" or d.get("sos"):
         return None
-    from convert.digital.quantized import analyze
-    from convert.digital.roots import RootForm
 
     limits = d.get("output_limits") or case.signals.output_range
     x = analyze(
@@ -292,8 +293,6 @@ def _analog(case, given, info, src, band, duration):
 
 
 def _circuit(case, given, info, src, band, duration, src_step, src_dist, draws):
-    from convert.values import format_value
-
     d = given.data
     ctrl: Controller = info.controller
     loop_f, spec = _loop(case, ctrl)
@@ -309,10 +308,6 @@ def _circuit(case, given, info, src, band, duration, src_step, src_dist, draws):
     drawn_total = None
     details = {"given": True}
     if "topology" in d:
-        from convert.circuit.tolerance import DEFAULT_DRAWS, Comparison, run_tolerances
-        from convert.circuit.topologies import get_topology
-        from convert.compare.circuitwork import loop_count_of
-
         topo = get_topology(d["topology"])
         details.update(
             topology=topo.name,
@@ -395,6 +390,7 @@ def _circuit(case, given, info, src, band, duration, src_step, src_dist, draws):
 
 
 def _realization(case, given, form, controller, details, budget, warnings, seen):
+    # imported here, not at the top: import cycle (convert.compare.givenwork -> convert.compare.evaluate -> convert.compare.givenwork)
     from convert.compare.evaluate import Realization
 
     return Realization(
@@ -411,9 +407,8 @@ def _realization(case, given, form, controller, details, budget, warnings, seen)
 def _loop_checks(case, r, controller, duration, delay, limits, pid=None) -> None:
     """Margins and simulations of a given form; a PID block with setpoint weights b, c runs its
     own setpoint path (F = C_sp/C of its settings, sampled at its instants when it is firmware)."""
+    # imported here, not at the top: import cycle (convert.compare.givenwork -> convert.compare.evaluate -> convert.compare.givenwork)
     from convert.compare.evaluate import _simulate_pair, setpoint_filter_of
-    from convert.compare.loop import loop_margins
-    from convert.errors import InputError
 
     r.margins = loop_margins(controller, case.plant.model, case.plant.dead_time_s, delay_s=delay)
     if not controller.is_proper:

@@ -19,8 +19,11 @@ from pathlib import Path
 
 import numpy as np
 
-from convert.case import Case, Criteria, Signals
+from convert.case import Case, Criteria, Signals, build_form
 from convert.compare.frequency import ResponseError, compare_responses, log_grid, response_seen_from_loop
+from convert.compare.loop import loop_margins
+from convert.given import as_source, given_controller
+from convert.pipeline import plant_from_words, run_pipeline
 
 #: Used when the caller sets no gain or phase limit (the agreement limits `digital` uses too).
 DEFAULT_GAIN_LIMIT_DB = 1.0
@@ -88,8 +91,6 @@ def _widen_to_loop(band_hz, a_ctrl, b_ctrl, plant) -> tuple[tuple[float, float],
     the plant, where a difference between A and B moves the phase margin (the gain margin and the
     sensitivity peak have their own criteria, judged on both loops); kept below 0.999 of the lowest
     Nyquist frequency. Returns (band, note)."""
-    from convert.compare.loop import loop_margins
-
     m = loop_margins(a_ctrl, plant.model, plant.dead_time_s)
     where = [f for f in (m.crossover_hz,) if f and math.isfinite(f)]
     if not where:
@@ -173,9 +174,6 @@ def compare_pair(
     ``names`` says how the caller's user wrote each input, for error messages: keys ``"A"``,
     ``"B"``, ``"band"``, ``"plant"``, ``"dead time"`` (the command line gives its options, e.g.
     ``{"plant": "--plant"}``); each defaults to its key."""
-    from convert.case import build_form
-    from convert.given import as_source, given_controller
-
     names = {k: k for k in ("A", "B", "band", "plant", "dead time")} | dict(names or {})
     source = as_source(a)
     a_ctrl = build_form(source).controller
@@ -188,7 +186,6 @@ def compare_pair(
             "band not given: a decade below the lowest corner of A and B to a decade above the highest"
             + (", below the Nyquist frequency" if a_ctrl.is_digital or b_ctrl.is_digital else "")
         )
-    from convert.pipeline import plant_from_words, run_pipeline
 
     plant = plant_from_words(plant_expression, dead_time_s, where=names["plant"], dead_where=names["dead time"])
     if band_default and plant is not None:

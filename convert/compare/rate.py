@@ -29,6 +29,7 @@ import numpy as np
 from convert.compare.frequency import compare_responses, log_grid, response_seen_from_loop
 from convert.compare.ownchecks import adds_unstable_poles
 from convert.controller import Controller
+from convert.compare.loop import one_blas_thread
 
 RULE_TEXT = (
     "added phase lag at crossover ≈ ω_c·(T/2 + t_d) for the zero-order hold and computation delay (common practice)"
@@ -85,8 +86,6 @@ def advise(
     method)`` returns the digital controller; ``delay_samples`` (if given) scales the delay with
     the rate. ``loop_check(digital, delay_s)`` (optional) returns the names of the loop criteria
     that digital controller fails; when given it replaces the phase-lag rule at crossover."""
-    from convert.compare.loop import one_blas_thread
-
     with one_blas_thread():  # small matrices (discretizations, loop checks): one BLAS thread is faster
         return _advise(
             source,

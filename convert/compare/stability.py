@@ -34,6 +34,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from convert.controller import Controller
+from convert.compare.loop import one_blas_thread, sampled_loop_matrix
 
 #: A root within this distance (relative) of s = 0 or z = 1 is taken as being there.
 _AT_ORIGIN_RTOL = 1e-8
@@ -163,8 +164,6 @@ def stability_message(s: LoopStability, what: str = "the loop") -> str:
 # ----------------------------------------------------------------------------- the root counts
 def _count(controller: Controller, plant: Controller, dead_time_s: float, delay_s: float) -> tuple[int, bool, str]:
     if controller.is_digital:
-        from convert.compare.loop import one_blas_thread
-
         with one_blas_thread():
             return _count_sampled(controller, plant, dead_time_s, delay_s)
     return _count_analog(controller, plant, dead_time_s + delay_s)
@@ -173,8 +172,6 @@ def _count(controller: Controller, plant: Controller, dead_time_s: float, delay_
 def _count_sampled(
     controller: Controller, plant: Controller, dead_time_s: float, delay_s: float
 ) -> tuple[int, bool, str]:
-    from convert.compare.loop import sampled_loop_matrix
-
     a = sampled_loop_matrix(controller, plant, dead_time_s + delay_s)
     method = "eigenvalues of the sampled-data closed loop (plant discretized exactly with its delays)"
     if a.shape[0] > _DENSE_EIG_MAX:

@@ -23,6 +23,9 @@ from convert.compare.frequency import hold_and_delay_factor, response_seen_from_
 from convert.compare.circuitwork import loop_count_of, monte_carlo_rows
 from convert.compare.loop import margin_grid, margins_of_responses
 from convert.controller import Controller
+from convert.digital.quantized import realized_controller as of, realized_response
+from convert.circuit.opamp import gbw_response, OpAmpModel
+from convert.values import format_value
 
 
 def loop_spec(plant, f_hz: np.ndarray) -> bud.LoopSpec | None:
@@ -35,8 +38,6 @@ def loop_spec(plant, f_hz: np.ndarray) -> bud.LoopSpec | None:
 
 def realized_controller(realized) -> Controller:
     """The controller of a firmware layout as it runs (stored coefficients)."""
-    from convert.digital.quantized import realized_controller as of
-
     return of(realized)
 
 
@@ -87,8 +88,6 @@ def digital_budget(
         cq = cd if firmware.realized is None else stored
         design_response, stored_response = real.frequency_response, stored.frequency_response
     else:
-        from convert.digital.quantized import realized_response
-
         cq = cd if firmware.realized is None else realized_controller(firmware.realized)
         design_response = real.frequency_response
 
@@ -215,8 +214,6 @@ class CircuitBudget:
 def circuit_response(design, parts: dict, f_hz, opamp=None) -> np.ndarray:
     """The response (1, F) of ``design``'s topology with ``parts`` (its own sign included) on
     ``f_hz`` (Hz), with an ideal op-amp or the single-pole ``opamp`` model."""
-    from convert.circuit.opamp import gbw_response
-
     arr = {k: np.atleast_1d(np.asarray(v, dtype=float)) for k, v in parts.items()}
     if opamp is None or opamp.ideal:
         r = design.topology.response(arr, f_hz)
@@ -260,8 +257,6 @@ def circuit_budget(
     ``draws=0`` leaves the tolerances out (row not applicable; the total is then the rounded parts
     with the op-amp model against the source, one response).
     """
-    from convert.circuit.opamp import OpAmpModel
-
     src, analog_src = source, analog
     tick = tick or (lambda text: None)
     topo = design.topology
@@ -467,14 +462,11 @@ def card_parasitics_row(reduction, band, spec=None, loop_f=None) -> dict:
 
 
 def fmt_hz(f: float) -> str:
-    from convert.values import format_value
-
     return format_value(f, "hz")
 
 
 def fmt_s(t: float) -> str:
     if t >= 1:
         return f"{t:.4g} s"
-    from convert.values import format_value
 
     return format_value(t, "second") if t > 0 else "0 s"

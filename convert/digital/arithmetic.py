@@ -23,12 +23,11 @@ from __future__ import annotations
 import numpy as np
 
 from convert.digital.fixedpoint import Realized
+from convert.digital.statewords import FixedStateModel
 
 
 def model_of(real: Realized):
     if real.word.is_fixed and real.form != "df1":
-        from convert.digital.statewords import FixedStateModel
-
         return FixedStateModel(real)
     return FixedModel(real) if real.word.is_fixed else FloatModel(real)
 

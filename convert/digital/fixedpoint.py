@@ -30,7 +30,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from convert.digital.structures import Layout, Section, z_poly_roots
+from convert.digital.structures import Layout, Section, z_poly_roots, delta_roots
 from convert.digital.wordformats import WordFormat, quantize_coefficient
 from convert.errors import InputError, UnrealizableError
 
@@ -77,6 +77,7 @@ class Realized:
         return self.layout.form
 
     def model(self):
+        # imported here, not at the top: import cycle (convert.digital.fixedpoint -> convert.digital.arithmetic -> convert.digital.fixedpoint)
         from convert.digital.arithmetic import model_of
 
         return model_of(self)
@@ -174,6 +175,7 @@ def realize(
             key="input_range",
         )
     if layout.form != "df1":
+        # imported here, not at the top: import cycle (convert.digital.fixedpoint -> convert.digital.statewords -> convert.digital.fixedpoint)
         from convert.digital.statewords import realize_state_form
 
         return realize_state_form(layout, word, r, u if output_level else None)
@@ -252,8 +254,6 @@ def realize(
 
 def realized_poles(real: Realized) -> list[tuple[list[complex], int]]:
     """Per section: the poles in z of the stored coefficients, and how many sit exactly at 1."""
-    from convert.digital.structures import delta_roots
-
     out = []
     for s in real.sections:
         if real.form == "delta":

@@ -23,6 +23,8 @@ from convert.digital.roots import RootForm
 from convert.errors import InputError, UnrealizableError
 from convert.methods import INVERSE_METHODS
 from convert.polyroots import format_root
+from convert.digital.printed import printed_integrators
+from convert.pid import pid_from_controller
 
 
 _TOL = 1e-9
@@ -120,7 +122,6 @@ def read_analog(
                 f"the prewarp frequency must lie between 0 and fs/2 = {fs / 2:.6g} Hz, found {prewarp_hz!r}",
                 key="prewarp",
             )
-    from convert.digital.printed import printed_integrators
 
     digital, notes = printed_integrators(digital, den_radius)
     dz = RootForm.of(digital)
@@ -148,7 +149,6 @@ def _backward_difference_hint(dz: RootForm, t: float, analog: Controller) -> str
     derivative, not a filter: say so and what the backward-euler reading is."""
     if not any(abs(p) <= _TOL for p in dz.poles) or dz.relative_degree > 0:
         return None
-    from convert.pid import pid_from_controller
 
     try:
         backward = _from_backward(dz, t).to_controller()
@@ -169,8 +169,6 @@ def _backward_difference_hint(dz: RootForm, t: float, analog: Controller) -> str
 def _unfiltered_note(analog: Controller, count: int) -> str:
     """What a pole at z = 0 under backward-euler means: a backward difference, i.e. a derivative
     with no filter; the analog equivalent is improper and says which filter it lacks."""
-    from convert.pid import pid_from_controller
-
     pid = pid_from_controller(analog) if analog.relative_degree == -1 else None
     if pid is not None and pid.kd > 0:
         ideal = pid.table().get("ideal", {})
@@ -261,6 +259,7 @@ def _substituted(dz: RootForm, special: float, n_s, d_s) -> RootForm:
 
 
 def _from_matched(dz: RootForm, t: float, match_at_hz: float | None) -> RootForm:
+    # imported here, not at the top: import cycle (convert.digital.inverse -> convert.digital.forward -> convert.digital -> convert.digital.inverse)
     from convert.digital.forward import default_match_frequency_hz
 
     if dz.relative_degree > 1:

@@ -35,6 +35,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from convert.errors import InputError
+from convert.digital.wordformats import get_format
+from convert.digital.pidfixed import PidFixedModel, emit_pid_c_fixed
+from convert.digital.codegen import _check_name, _st_real
 
 FORMS = ("positional", "velocity")
 ANTI_WINDUP = ("clamp", "track", "none")
@@ -132,8 +135,6 @@ class PidBlock:
     @property
     def word(self):
         """The :class:`convert.digital.wordformats.WordFormat` of the block."""
-        from convert.digital.wordformats import get_format
-
         return get_format(self.word_format)
 
     @property
@@ -144,8 +145,6 @@ class PidBlock:
         """The arithmetic model: :class:`PidModel` (float) or
         :class:`convert.digital.pidfixed.PidFixedModel` (Q15/Q31, bit-true)."""
         if self.is_fixed:
-            from convert.digital.pidfixed import PidFixedModel
-
             return PidFixedModel(self)
         return PidModel(self)
 
@@ -280,13 +279,9 @@ def emit_pid_c(block: PidBlock, name: str, *, source: str = "") -> dict[str, str
     """``NAME.h``/``NAME.c`` for a PID block: ``T NAME_step(NAME_state *st, T setpoint, T
     measurement)``, ``NAME_reset``, ``NAME_set_output(st, u, setpoint, measurement)``; T is
     double, float, or a Q15/Q31 word (:mod:`convert.digital.pidfixed`)."""
-    from convert.digital.codegen import _check_name
-
     _check_name(name)
     head = pid_head(block, name, source)
     if block.is_fixed:
-        from convert.digital.pidfixed import emit_pid_c_fixed
-
         return emit_pid_c_fixed(block, name, head)
     single = block.word_format == "float32"
     t = "float" if single else "double"
@@ -363,8 +358,6 @@ def emit_pid_st(block: PidBlock, name: str, *, source: str = "") -> dict[str, st
     bumpless transfer, :meth:`PidModel.set_output` every sample); ``reset`` (TRUE: clear the
     state first). Output ``u``. Statements: assignments with + − * and parentheses, IF/ELSIF/ELSE
     with comparisons, AND, OR."""
-    from convert.digital.codegen import _check_name, _st_real
-
     _check_name(name)
     if block.is_fixed:
         raise InputError(

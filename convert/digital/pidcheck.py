@@ -26,6 +26,16 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from convert.errors import LoopshiftError
+from convert.digital.pidfixed import fixed_pid
+from convert.controller import Controller
+from convert.digital.quantized import (
+    FormatAnalysis,
+    RESPONSE_LIMITS,
+    default_input_range,
+    stall_failure,
+    smallest_moving,
+)
+from convert.compare.frequency import compare_responses
 
 STALL_SAMPLES = 64
 
@@ -46,8 +56,6 @@ def stored_constants(block) -> dict[str, float]:
     """The per-sample constants as the format stores them (float64 values)."""
     k = block.constants()
     if block.is_fixed:
-        from convert.digital.pidfixed import fixed_pid
-
         return fixed_pid(block).stored(block.form)
     if block.word_format == "float32":
         return {n: float(np.float32(v)) for n, v in k.items()}
@@ -56,8 +64,6 @@ def stored_constants(block) -> dict[str, float]:
 
 def linear_controller(block, stored: bool = True):
     """The block's linear equivalent as a digital :class:`Controller` (stored or exact constants)."""
-    from convert.controller import Controller
-
     b, a = linear_b_a(stored_constants(block) if stored else block.constants())
     return Controller.from_b_a(b, a, block.sample_period_s, name="PID block")
 
@@ -101,8 +107,6 @@ class PidBlockAnalysis:
     def checks(self) -> list[dict]:
         """The always-on verdict checks, exactly as :meth:`FormatAnalysis.checks` makes them
         (built, stored poles, overflow, response, integrator stall)."""
-        from convert.digital.quantized import FormatAnalysis
-
         return FormatAnalysis.checks(self)
 
     def summary(self) -> dict:
@@ -116,8 +120,6 @@ class PidBlockAnalysis:
             out["constants"] = self.block.constants()
             out["stored_constants"] = stored_constants(self.block)
             if self.block.is_fixed:
-                from convert.digital.pidfixed import fixed_pid
-
                 q = fixed_pid(self.block)
                 out["words"] = {n: getattr(q, n) for n in q.__dataclass_fields__}
         return out
@@ -127,8 +129,6 @@ def analyze_block(block, band_f_hz, *, input_resolution: float | None = None, re
     """Analyze ``block`` (a :class:`PidBlock`) in its word format over the band (Hz);
     ``response_limits`` (dB, deg, either None for the default) that the stored constants' response
     may depart from the exact one (:data:`convert.digital.quantized.RESPONSE_LIMITS`)."""
-    from convert.digital.quantized import RESPONSE_LIMITS
-
     limits = tuple(d if v is None else float(v) for v, d in zip(response_limits or (None, None), RESPONSE_LIMITS))
     notes: list[str] = []
     lim = block.limits
@@ -139,8 +139,6 @@ def analyze_block(block, band_f_hz, *, input_resolution: float | None = None, re
     if block.input_range:
         r = float(block.input_range)
     else:
-        from convert.digital.quantized import default_input_range
-
         r = default_input_range(exact, u)
         notes.append(
             f"input range R = {r:.4g} (the error that drives the output to U through the largest gain "
@@ -174,7 +172,6 @@ def analyze_block(block, band_f_hz, *, input_resolution: float | None = None, re
     ref = exact.frequency_response(f)
     with np.errstate(divide="ignore", invalid="ignore"):
         rel = np.nan_to_num(np.abs(got / ref - 1), nan=np.inf)
-    from convert.compare.frequency import compare_responses
 
     err = compare_responses(ref, got, f)
     i = int(np.argmax(rel)) if rel.size else 0
@@ -186,8 +183,6 @@ def analyze_block(block, band_f_hz, *, input_resolution: float | None = None, re
         )
     headroom = None
     if block.is_fixed:
-        from convert.digital.pidfixed import fixed_pid
-
         q = fixed_pid(block)
         parts = [20 * math.log10(q.output_level * 2.0**q.g_int / (q.output_level + q.p_bound))]
         if q.d_bound > 0:
@@ -210,8 +205,6 @@ def analyze_block(block, band_f_hz, *, input_resolution: float | None = None, re
             "given (give output limits)"
         )
     elif block.ki > 0:
-        from convert.digital.quantized import stall_failure
-
         stall = block_stall(block, r, u)
         failures += stall_failure(stall, u, res)
     return PidBlockAnalysis(
@@ -255,6 +248,4 @@ def block_stall(block, r: float, u: float) -> float | None:
 
     # the largest error tried moves the output by a quarter of the span between the limits over the
     # window, so the clamp (and conditional integration) never acts during the test
-    from convert.digital.quantized import smallest_moving
-
     return smallest_moving(moves, min(r, (lim[1] - lim[0]) / (4 * STALL_SAMPLES * abs(bi))) if lim else r)

@@ -36,6 +36,7 @@ import math
 from dataclasses import dataclass
 
 from convert.errors import InputError, UnrealizableError
+from convert.digital.wordformats import quantize_coefficient, get_format
 
 VELOCITY_FINE = 3  # the velocity state's full scale is 2^3·U
 STEP_LIMIT = 3  # the velocity form's per-sample change saturates at ±3U
@@ -117,8 +118,6 @@ class FixedPid:
 def _fit(coefs, bounds, word_max: int, acc_bits: int, where: str) -> tuple[list[int], int]:
     """The largest fraction bits F (A − 2 down to −W) with every round(c·2^F) within the word and
     Σ|c_q|·X + 2^(F−1) < 2^(A−1) (X the bound of each operand): no product sum can overflow."""
-    from convert.digital.wordformats import quantize_coefficient
-
     limit = 1 << (acc_bits - 1)
     for f in range(acc_bits - 2, -acc_bits // 2 - 1, -1):
         q = [quantize_coefficient(c, f) for c in coefs]
@@ -132,8 +131,6 @@ def _fit(coefs, bounds, word_max: int, acc_bits: int, where: str) -> tuple[list[
 def fixed_pid(block) -> FixedPid:
     """Scale and store ``block`` (a :class:`PidBlock` with word_format q15/q31, an input range and
     output limits) by the rules of the module doc."""
-    from convert.digital.wordformats import get_format
-
     word = get_format(block.word_format)
     w, a = word.bits, word.accumulator_bits
     if not block.input_range or not (math.isfinite(block.input_range) and block.input_range > 0):
@@ -292,6 +289,7 @@ def emit_pid_c_fixed(block, name: str, head: list[str]) -> dict[str, str]:
         "Products summed exactly in the accumulator (coefficient bits chosen so no sum overflows), shifts",
         "  round half up (add half an LSB, floor), states saturate.",
     ]
+    # imported here, not at the top: import cycle (convert.digital.pidfixed -> convert.digital.pidblock -> convert.digital.pidfixed)
     from convert.digital.pidblock import pid_c_header
 
     fields = [f"{acc} i, uf;", f"{t} d, r_old, y_old;", f"{acc} p_old, d_old, e_old;"]

@@ -29,7 +29,10 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from convert.controller import Controller
+from convert.controller import Controller, from_expression
+from convert.errors import LoopshiftError
+from convert.expr import number_spans
+from convert.digital.roots import RootForm
 
 
 def _decimal(value) -> Decimal | None:
@@ -91,10 +94,6 @@ def expression_den_radius(text: str, fs_hz: float) -> list[float] | None:
     moved by its own rounding changes the coefficients, and each coefficient's rounding is the sum
     of those changes (first order; exact when each number is one coefficient, as in b/a form).
     ``None`` when the expression cannot be read that way (then the stored floats decide)."""
-    from convert.controller import from_expression
-    from convert.errors import LoopshiftError
-    from convert.expr import number_spans
-
     try:
         base = from_expression(text, fs_hz=fs_hz)
     except LoopshiftError:
@@ -206,8 +205,6 @@ def printed_integrators(digital: Controller, den_radius: Sequence[float] | None 
 
 def _exact_integrators(digital: Controller) -> int:
     """Poles the conversions take as exactly z = 1 (the root form divides them out)."""
-    from convert.digital.roots import RootForm
-
     return sum(1 for p in RootForm.of(digital).poles if p == 1.0)
 
 

@@ -37,10 +37,14 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from convert.digital.fixedpoint import Realized, peak_gains, realize, realized_poles
-from convert.digital.structures import STRUCTURES, build_layout, section_response, section_zeros
+from convert.digital.fixedpoint import Realized, peak_gains, realize, realized_poles, z_equivalent
+from convert.digital.structures import STRUCTURES, build_layout, section_response, section_zeros, structure_name
 from convert.digital.wordformats import FORMATS, WordFormat, get_format
 from convert.errors import LoopshiftError
+from convert.compare.frequency import compare_responses
+from convert.digital.statewords import limit_cycles
+from convert.controller import Controller
+from convert.digital.roots import RootForm, _pairs
 
 STALL_TO = 64
 LIMIT_CYCLE_TRIALS = 32
@@ -335,8 +339,6 @@ def analyze(
     i = int(np.argmax(rel)) if rel.size else 0
     gdb = pdeg = 0.0
     if rel.size:
-        from convert.compare.frequency import compare_responses
-
         err = compare_responses(ref, resp, f)
         gdb, pdeg = err.max_gain_error_db, err.max_phase_error_deg
         if not (math.isfinite(gdb) and math.isfinite(pdeg)) or gdb > limits[0] or pdeg > limits[1]:
@@ -368,8 +370,6 @@ def analyze(
             dead, at_section = _dead_band(real, layout)
             what = "holds any constant output up to"
         else:
-            from convert.digital.statewords import limit_cycles
-
             lc_lsb, lc, drift, at_section = limit_cycles(
                 real, layout, notes, LIMIT_CYCLE_TRIALS, LIMIT_CYCLE_SAMPLES, np.random.default_rng(12)
             )
@@ -436,8 +436,6 @@ def realized_response(real: Realized, f_hz) -> np.ndarray:
 def realized_controller(real: Realized, name: str = ""):
     """A :class:`Controller` with the stored coefficients' zeros, poles and gain (the direct
     forms: their stored polynomial as it is), for the loop checks."""
-    from convert.controller import Controller
-
     t = real.layout.sample_period_s
     if real.structure in ("direct1", "direct2t"):
         s = real.sections[0]
@@ -446,7 +444,6 @@ def realized_controller(real: Realized, name: str = ""):
         return Controller.from_b_a(np.asarray(s.b, dtype=float) * scale, s.a, t, name)
     poles = [p for ps, _ in realized_poles(real) for p in ps]
     zeros = [z for s in real.sections for z in section_zeros(real.form, s.b, _delta(real))]
-    from convert.digital.roots import RootForm
 
     probe = np.array([0.1 / t, 0.3 / t, 0.45 / t])
     want = realized_response(real, probe)
@@ -458,8 +455,6 @@ def realized_controller(real: Realized, name: str = ""):
 
 def _conj(roots) -> list[complex]:
     """Roots with each complex one's partner made its exact conjugate (real polynomials)."""
-    from convert.digital.roots import _pairs
-
     return list(_pairs(roots))
 
 
@@ -662,8 +657,6 @@ def ramp_state(model, real: Realized, layout, e: float, u: float, slope: float) 
     """Put ``model`` on the exact solution for a constant error ``e`` whose output passes ``u``
     at the next sample: stable sections settled at their DC gain, the integrating section's past
     outputs u − k·slope·e. Values computed in float64, then stored in the format."""
-    from convert.digital.fixedpoint import z_equivalent
-
     v_in = e
     states = []
     n = len(layout.sections)
@@ -753,7 +746,6 @@ def choose(
     if structure == "auto":
         pick = next((x for x in every if x.structure == best), None)
         return pick, every, why
-    from convert.digital.structures import structure_name
 
     name = structure_name(structure)
     pick = next((x for x in every if x.structure == name), None)

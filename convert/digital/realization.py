@@ -21,6 +21,7 @@ from convert.errors import InputError, UnrealizableError
 from convert.jsonable import roots_json
 from convert.methods import METHODS
 from convert.polyroots import format_root
+from convert.compare.frequency import comparison_grid, default_band_hz
 
 
 # The direct-form polynomial is said to lose accuracy when its response departs from the
@@ -291,8 +292,6 @@ def _stability_warnings(src: RootForm, roots: RootForm, fs: float, method: str) 
 
 
 def _accuracy_warnings(controller: Controller, digital: Controller, roots: RootForm, fs: float) -> list[str]:
-    from convert.compare.frequency import comparison_grid, default_band_hz
-
     f = comparison_grid(default_band_hz(controller, fs), fs, points_per_decade=20)
     exact = roots.frequency_response(f)
     poly = digital.frequency_response(f, via="poly")

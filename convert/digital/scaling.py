@@ -20,6 +20,8 @@ import math
 from dataclasses import dataclass
 
 from convert.errors import InputError
+from convert.controller import Controller
+from convert.values import parse_value
 
 
 @dataclass(frozen=True)
@@ -76,8 +78,6 @@ def scaling(input_map: SignalMap | None, output_map: SignalMap | None) -> Scalin
 
 def scale_controller(controller, sc: Scaling):
     """The controller times g (a :class:`convert.controller.Controller`)."""
-    from convert.controller import Controller
-
     if controller.is_digital:
         return Controller.from_b_a(
             [sc.gain * v for v in controller.b], controller.a, controller.sample_period_s, controller.name
@@ -106,8 +106,6 @@ MAX_CONVERTER_BITS = 32
 
 def _signal_value(raw, key: str) -> tuple[float, str]:
     """A signal value with its unit: volts or amperes (convert.values), e.g. "4 mA", "-10 V"."""
-    from convert.values import parse_value
-
     for kind in ("volt", "ampere"):
         try:
             return parse_value(raw, kind, field=key), kind
@@ -138,7 +136,6 @@ def signal_map(raw: dict, dotted: str, *, card_volts: bool) -> tuple[SignalMap, 
     (its span, default the signal's span at the converter). ``card_volts``: the controller works
     in volts (a card or netlist source), so a current range needs a shunt. Returns the map (in
     controller units) and a one-line description. Errors name ``dotted.key``."""
-    from convert.values import parse_value
 
     def err(key: str, msg: str) -> InputError:
         return InputError(msg, key=f"{dotted}.{key}")

@@ -17,6 +17,8 @@ import contextlib
 import threading
 
 import numpy as np
+from convert.controller import Controller
+from convert.digital.roots import RootForm
 
 
 class _SmallDense(contextlib.ContextDecorator):
@@ -110,9 +112,6 @@ def realize(num, den) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
     cascade form brings down to rounding level.
     """
     from scipy.linalg import matrix_balance
-
-    from convert.controller import Controller
-    from convert.digital.roots import RootForm
 
     den = np.trim_zeros(np.asarray(den, dtype=float), "f")
     num = np.trim_zeros(np.asarray(num, dtype=float), "f")

@@ -423,6 +423,7 @@ def limit_cycles(real: Realized, layout: Layout, notes: list[str], trials: int, 
         elif lsb > worst_lsb:
             worst_lsb, worst_units = lsb, lsb * real.node_scales[i + 1] / 2 ** (w.bits - 1)
             worst_section = i + 1
+    # imported here, not at the top: import cycle (convert.digital.statewords -> convert.digital.quantized -> convert.digital.statewords)
     from convert.digital.quantized import limit_cycle_notes
 
     limit_cycle_notes(notes, undecided, worst_lsb, worst_units)

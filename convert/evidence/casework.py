@@ -18,6 +18,12 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from convert.errors import InputError, LoopshiftError
+from convert.given import given_from_source, GivenForm
+from convert.compare.frequency import response_seen_from_loop
+from convert.evidence.sweep import MIN_COHERENCE, read_sweep, sweep_evidence
+from convert.compare.budget import ROW_LABELS, BudgetRow
+from convert.compare.verdict import Judgement, Verdict
+from convert.evidence.log import controller_replayer, log_evidence
 
 SWEEP_LABEL = "measured {of} (sweep)"
 
@@ -73,8 +79,6 @@ class _named_in_case:
 
 
 def _form_named(case, of: str):
-    from convert.given import given_from_source
-
     if of == "source":
         return given_from_source(case.source)
     for g in case.given:
@@ -89,9 +93,6 @@ def _form_named(case, of: str):
 
 
 def _sweep(case, info, realizations, spec, ev: CaseEvidence) -> None:
-    from convert.compare.frequency import response_seen_from_loop
-    from convert.evidence.sweep import MIN_COHERENCE, read_sweep, sweep_evidence
-
     given = _form_named(case, spec["of"])
     with _named_in_case(case, "evidence.sweep"):
         sweep = read_sweep(
@@ -144,8 +145,6 @@ def _sweep(case, info, realizations, spec, ev: CaseEvidence) -> None:
 def _measured_row(realizations, name: str, result) -> None:
     """Budget row 8 of a measured given form: the measured deviation from its own model over the
     trusted points of the band, with the measurement's noise in the note."""
-    from convert.compare.budget import ROW_LABELS, BudgetRow
-
     chk = result.check
     use = chk.trusted & chk.in_band
     for r in realizations:
@@ -172,10 +171,6 @@ def _measured_row(realizations, name: str, result) -> None:
 
 
 def _log(case, info, realizations, spec, ev: CaseEvidence) -> None:
-    from convert.compare.verdict import Judgement
-    from convert.evidence.log import controller_replayer, log_evidence
-    from convert.given import GivenForm
-
     forms = []
     for name, ctrl, delay in [("source", info.controller, 0.0)] + [
         (r.name, r.controller, float(r.details.get("delay_s") or 0.0)) for r in realizations
@@ -234,8 +229,6 @@ def _log(case, info, realizations, spec, ev: CaseEvidence) -> None:
 def extend_verdict(verdict, judgements):
     """The verdict with extra judgements (log residuals) added; the overall result fails when
     any of them fails."""
-    from convert.compare.verdict import Verdict
-
     if not judgements:
         return verdict
     every = tuple(verdict.judgements) + tuple(judgements)

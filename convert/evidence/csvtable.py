@@ -24,6 +24,7 @@ from collections.abc import Iterator
 import numpy as np
 
 from convert.errors import InputError
+from convert.limits import file_kind
 
 CHUNK_ROWS = 65536
 
@@ -103,8 +104,6 @@ def split_header(text: str) -> tuple[str, str | None]:
 
 
 def _open(path: Path):
-    from convert.limits import file_kind
-
     kind = file_kind(path)
     if kind is not None and kind != "a folder":  # /dev/zero has no line end: readline would never return
         raise InputError(f"expected a CSV file (a regular file), found {kind}", where=str(path))

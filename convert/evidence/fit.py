@@ -26,6 +26,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from convert.errors import InputError
+from convert.values import format_value
 
 Z95 = 1.959963984540054  # two-sided 95 % point of the normal distribution
 UNDETERMINED_LOG_HALF_WIDTH = 0.5
@@ -273,6 +274,5 @@ def value_text(value: float, kind: str, digits: int = 4) -> str:
     """A fitted or drawn value as text: a part with its unit, a pot position as % of travel."""
     if kind == "position":
         return f"{100 * value:.{max(digits - 1, 2)}g} % of travel"
-    from convert.values import format_value
 
     return format_value(value, kind, digits)

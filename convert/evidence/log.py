@@ -37,6 +37,9 @@ import numpy as np
 
 from convert.errors import InputError, UnrealizableError
 from convert.evidence.csvtable import CHUNK_ROWS, Role, chunks, layout
+from convert.compare.givenwork import quantized
+from convert.given import given_controller, pid_block_b_a
+from convert.controller import Controller
 
 LOG_ROLES = (
     Role("time", ("time", "t", "timestamp"), ("time",), "s"),
@@ -297,9 +300,6 @@ def controller_replayer(controller, delay_s: float = 0.0):
 
 def replayer(given):
     """The replay engine of a :class:`convert.given.GivenForm` as it runs."""
-    from convert.compare.givenwork import quantized
-    from convert.given import given_controller
-
     ctrl = given_controller(given).controller
     if ctrl.is_digital:
         q = quantized(given, ctrl) if given.form in ("digital", "pid") else ctrl
@@ -481,8 +481,6 @@ class _PidTerms:
     block's own sampled terms), run through the log in chunks."""
 
     def __init__(self, given):
-        from convert.controller import Controller
-
         d = given.data
         pid = d["pid"]
         self.sign = pid.sign
@@ -490,8 +488,6 @@ class _PidTerms:
         self.tf = pid.tf
         self.block = given.form == "pid"
         if self.block:
-            from convert.given import pid_block_b_a
-
             fs, method = d["fs_hz"], d["method"]
             self.fs = fs
             self.terms = []

@@ -17,6 +17,13 @@ from collections.abc import Callable
 import numpy as np
 
 from convert.errors import InputError
+from convert.circuit.topologies import get_topology
+from convert.given import part_kind, pid_block_b_a
+from convert.circuit.mna import build_system
+from convert.circuit.netlist import read_netlist
+from convert.circuit.sensitivity import _pots
+from convert.compare.frequency import hold_and_delay_factor
+from convert.controller import Controller
 
 PID_PARAMETERS = ("kp", "ki", "kd", "tf")
 
@@ -52,9 +59,6 @@ def parametric_model(given) -> ParametricModel:
 
 
 def _card(given) -> ParametricModel:
-    from convert.circuit.topologies import get_topology
-    from convert.given import part_kind
-
     topo = get_topology(given.data["topology"])
     parts = dict(topo.check_parts(given.data["parts"]))
     names = tuple(k for k, v in parts.items() if np.isfinite(v) and v > 0)
@@ -69,9 +73,6 @@ def _card(given) -> ParametricModel:
 
 
 def _netlist(given) -> ParametricModel:
-    from convert.circuit.mna import build_system
-    from convert.circuit.netlist import read_netlist
-
     d = given.data
     path = d["netlist"]
     try:
@@ -79,7 +80,6 @@ def _netlist(given) -> ParametricModel:
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"cannot read the netlist: {exc}", where=str(path)) from None
     net = read_netlist(text, source=path.name)
-    from convert.circuit.sensitivity import _pots
 
     pots = {base: (a, b, net.element(a).value + net.element(b).value) for base, a, b in _pots(net)}
     members = {m for a, b, _ in pots.values() for m in (a, b)}
@@ -113,8 +113,6 @@ def _netlist(given) -> ParametricModel:
 def _pid(given) -> ParametricModel:
     from dataclasses import replace
 
-    from convert.compare.frequency import hold_and_delay_factor
-
     d = given.data
     pid = d["pid"]
     names = tuple(k for k in PID_PARAMETERS if getattr(pid, k) > 0)
@@ -122,9 +120,6 @@ def _pid(given) -> ParametricModel:
     block = given.form == "pid"
 
     if block:
-        from convert.controller import Controller
-        from convert.given import pid_block_b_a
-
         fs, method, delay = d["fs_hz"], d["method"], given.delay_for()
 
         def response(values: dict, f_hz) -> np.ndarray:

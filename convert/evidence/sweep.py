@@ -28,6 +28,13 @@ import numpy as np
 
 from convert.errors import InputError
 from convert.evidence.csvtable import Role, chunks, layout
+from convert.compare.frequency import unwrapped_phase_error_deg, response_seen_from_loop
+from convert.compare.pair import spans_where
+from convert.values import format_value
+from convert.given import given_controller
+from convert.compare.verdict import judge
+from convert.evidence.fit import fit_sweep
+from convert.evidence.models import parametric_model
 
 SWEEP_ROLES = (
     Role("frequency", ("frequency", "freq", "f"), ("frequency",), "hz"),
@@ -223,8 +230,6 @@ def check_sweep(
     """Compare ``sweep`` with ``model`` (the form's complex response at ``sweep.f_hz``; the
     controller, error → output). ``inverted``: the bench measured −model (an inverting stage
     read at its output)."""
-    from convert.compare.frequency import unwrapped_phase_error_deg
-
     ref = -model if inverted else model
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = sweep.response / ref
@@ -276,14 +281,10 @@ def check_sweep(
 
 
 def _runs(f: np.ndarray, ok: np.ndarray) -> list[tuple[float, float]]:
-    from convert.compare.pair import spans_where
-
     return spans_where(f, ok)
 
 
 def _coverage(f, trusted, in_band, band_hz) -> str:
-    from convert.values import format_value
-
     lo, hi = band_hz
     if f[0] > lo:
         return f"the sweep starts at {format_value(f[0], 'hz')}, above the band's low end {format_value(lo, 'hz')}"
@@ -329,9 +330,6 @@ class SweepEvidence:
 def form_response(given, f_hz, case=None) -> np.ndarray:
     """The response of a given form as it runs, at ``f_hz`` (a digital form with its zero-order
     hold and computation delay) — what a bench sweep of it measures."""
-    from convert.compare.frequency import response_seen_from_loop
-    from convert.given import given_controller
-
     ctrl = given_controller(given, case).controller
     delay = given.delay_for() if given.form in ("digital", "pid") else 0.0
     return response_seen_from_loop(ctrl, f_hz, delay_s=delay, via="zpk")
@@ -353,8 +351,6 @@ def sweep_evidence(
     ``band_hz`` (default: the sweep's own range) with the gain/phase ``limits``
     (``max_gain_error_db``, ``max_phase_error_deg``; 1 dB and 5° when not set); fit the model's
     values when ``fit``. ``case`` (optional) gives a netlist card's analysis its band and rate."""
-    from convert.compare.verdict import judge
-
     limits = dict(limits or {})
     gl = limits.get("max_gain_error_db") or 1.0
     pl = limits.get("max_phase_error_deg") or 5.0
@@ -374,9 +370,6 @@ def sweep_evidence(
     verdict = judge(criteria, {"measurement": check.figures}, has_plant=False)
     result = SweepEvidence(sweep, model, check, verdict, band, default)
     if fit:
-        from convert.evidence.fit import fit_sweep
-        from convert.evidence.models import parametric_model
-
         pm = parametric_model(given)
         result.fit = fit_sweep(
             pm,

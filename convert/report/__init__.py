@@ -7,19 +7,19 @@ the files of a report folder; :func:`write_report` writes them atomically.
 from __future__ import annotations
 
 from pathlib import Path
+from convert.jsonable import to_jsonable
+from convert.report.documents import html_report, markdown_report
+from convert.report.figures import all_figures, schematic_figure_name
+from convert.report.results import results_dict
+from convert.report.evidence import evidence_figures
+from convert.report.folder import check_destination, write_folder
 
 
 def build_report(results) -> dict[str, bytes | str]:
     """Every file of the report folder: relative path -> content."""
     import json
 
-    from convert.jsonable import to_jsonable
-    from convert.report.documents import html_report, markdown_report
-    from convert.report.figures import all_figures, schematic_figure_name
-    from convert.report.results import results_dict
-
     figures = all_figures(results)
-    from convert.report.evidence import evidence_figures
 
     figures.update(evidence_figures(results))
     files: dict[str, bytes | str] = {
@@ -38,8 +38,6 @@ def build_report(results) -> dict[str, bytes | str]:
 
 def write_report(results, out_dir: str | Path, *, force: bool = False) -> Path:
     """Build and write the report folder for ``results``; refuses to overwrite without ``force``."""
-    from convert.report.folder import check_destination, write_folder
-
     case = results.case
     protected = [case.path] + [p for p in [case.source.data.get("file")] if p]
     check_destination(Path(out_dir), force=force, protected=protected)

@@ -23,6 +23,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from convert.errors import InputError
+from convert.jsonable import to_jsonable
+from convert.case import load_case
+from convert.pipeline import run_pipeline
+from convert.report import write_report
+from convert import sidework
 
 STATUS_EXIT_CODE = {"pass": 0, "fail": 1, "unreadable": 2, "error": 3}
 INDEX_NAME = "index.html"
@@ -128,12 +133,6 @@ def run_case(case_file: str, out_dir: str, *, force: bool = False, draws: int | 
     start = time.perf_counter()
     name = Path(case_file).stem
     try:
-        from convert.case import load_case
-        from convert.pipeline import run_pipeline
-        from convert.report import write_report
-
-        from convert import sidework
-
         case = load_case(case_file)
         name = case.name
         with sidework.alone():  # the batch's workers keep the cores busy: no helper process per case
@@ -304,8 +303,6 @@ def run_batch(
 
 def summary_json(result: BatchResult) -> str:
     import json
-
-    from convert.jsonable import to_jsonable
 
     data = {
         "schema_version": 1,

@@ -8,6 +8,7 @@ import html
 
 from convert.compare.evaluate import CAUTIONS
 from convert.report.tables import all_tables, failing_criteria, input_tables, table_note
+from convert.report.evidence import CAPTIONS
 
 FIGURE_CAPTIONS = {
     "bode.png": "Bode overlay of all forms as the loop sees them, with the error of each against the source.",
@@ -17,8 +18,6 @@ FIGURE_CAPTIONS = {
 
 
 def _caption(name: str) -> str:
-    from convert.report.evidence import CAPTIONS
-
     if name in CAPTIONS:
         return CAPTIONS[name]
     if name.startswith("schematic-"):

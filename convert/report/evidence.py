@@ -7,6 +7,8 @@ from __future__ import annotations
 import numpy as np
 
 from convert.report.figures import COLORS, _figure, _png
+from convert.values import format_value
+from convert.evidence.fit import value_text
 
 SWEEP_FIGURE = "evidence-sweep.png"
 LOG_FIGURE = "evidence-log.png"
@@ -104,8 +106,6 @@ def _log_figure(ev) -> bytes:
 
 def evidence_tables(results) -> list:
     """(title, header, rows) tables of the Evidence section."""
-    from convert.values import format_value
-
     ev = getattr(results, "evidence", None)
     if ev is None:
         return []
@@ -137,8 +137,6 @@ def evidence_tables(results) -> list:
                 rows.append([label, f"{v:.3g} {unit}" if np.isfinite(v) else "not shown (band not covered)"])
         out.append(("Evidence: bench sweep", ["item", "value"], rows))
         if s.fit is not None:
-            from convert.evidence.fit import value_text
-
             fit = s.fit
             rows = []
             for v in fit.values:

@@ -9,6 +9,11 @@ from __future__ import annotations
 import io
 
 import numpy as np
+from convert.compare.frequency import response_seen_from_loop, unwrapped_phase_error_deg
+from convert.compare.evaluate import firmware_output_limits
+from convert.circuit.schematic import Schematic
+from convert.report.schematic import schematic_png
+from convert import sidework
 
 COLORS = ("#1b4f72", "#c0392b", "#229954", "#b9770e", "#7d3c98", "#117a65", "#839192", "#a04000")
 
@@ -54,7 +59,6 @@ def bode(results) -> bytes:
     """Bode overlay of the source and every realization as the loop sees them, plus the error
     of each against the source (gain error dB, phase error deg); the band is shaded."""
     f = display_grid(results)
-    from convert.compare.frequency import response_seen_from_loop, unwrapped_phase_error_deg
 
     ref = response_seen_from_loop(results.reference, f, via="zpk")
     fig, ax = _figure(8.0, 9.0, 4, 1, sharex=True)
@@ -113,8 +117,6 @@ def _error_envelope(gain_ax, phase_ax, band: dict, reference, color: str, band_h
     """A circuit's Monte Carlo envelope on the error panels (within ``f_range``, Hz): the
     0.5–99.5 % band of its error against the source, and over the band the figure the verdict
     uses (p99 of each draw's largest |error|, dash-dot)."""
-    from convert.compare.frequency import response_seen_from_loop
-
     keep = (band["f_hz"] >= f_range[0] / 1.05) & (band["f_hz"] <= f_range[1] * 1.05)
     band = {
         **band,
@@ -166,7 +168,6 @@ def monte_carlo(results, realization) -> bytes:
     f = band["f_hz"]
     fig, ax = _figure(8.0, 9.0, 4, 1, sharex=True)
     ax = ax[:, 0]
-    from convert.compare.frequency import response_seen_from_loop
 
     ref = response_seen_from_loop(results.reference, f, via="zpk")
     ref_db = 20 * np.log10(np.abs(ref))
@@ -260,7 +261,6 @@ def loop_responses(results) -> bytes:
     sig = results.case.signals
     ax[0, 0].axhline(sig.setpoint_step, color="#555", ls=":", lw=1, label="setpoint")
     ax[0, 1].axhline(0.0, color="#555", ls=":", lw=1)
-    from convert.compare.evaluate import firmware_output_limits
 
     limits = [
         firmware_output_limits(results.case, results.source.extra.get("output_limits"))
@@ -412,9 +412,6 @@ def schematic_figure_name(realization) -> str:
 
 def _schematic_bytes(content) -> bytes:
     """PNG bytes of a schematic: drawn here from the computation's description."""
-    from convert.circuit.schematic import Schematic
-    from convert.report.schematic import schematic_png
-
     return schematic_png(content) if isinstance(content, Schematic) else content
 
 
@@ -422,8 +419,6 @@ def draw_figures(jobs) -> dict[str, bytes]:
     """Draw ``jobs`` = [(name, function, args, weight)] (each function returns PNG bytes) and
     return name -> bytes in the order of ``jobs``: the heaviest jobs, up to about half the total
     weight, in a helper process while this one draws the rest."""
-    from convert import sidework
-
     if len(jobs) < 2 or not sidework.helpers_usable():
         return {name: fn(*args) for name, fn, args, _ in jobs}
     import matplotlib.backends.backend_agg  # noqa: F401  (imported once, before the fork, for both)

@@ -19,6 +19,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from convert.errors import InputError
+from convert import __version__
 
 #: The marker file in every report folder: what wrote it, and the files it wrote.
 MARKER = ".loopshift-report"
@@ -36,8 +37,6 @@ class Destination:
 
 def marker_text(files) -> str:
     """The marker's content: a header line, then one written file per line (relative, '/')."""
-    from convert import __version__
-
     names = sorted(set(files) | {MARKER})
     return (
         f"{_MARKER_HEAD} written by loopshift {__version__}; `loopshift report --force` may replace this "

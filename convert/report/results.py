@@ -12,6 +12,8 @@ from __future__ import annotations
 import re
 
 from convert.compare.evaluate import CAUTIONS
+from convert import __version__
+from convert.case import case_summary
 
 #: The version of the results.json layout; raised on any change a reader must know about.
 SCHEMA_VERSION = 2
@@ -71,9 +73,6 @@ def _response_summary(resp) -> dict | None:
 def results_dict(results) -> dict:
     """Everything a reader of the report needs as numbers: verdict, budget rows per
     realization, loop-check figures, rate advice, skipped checks, cautions."""
-    from convert import __version__
-    from convert.case import case_summary
-
     real = []
     for r in results.realizations:
         real.append(

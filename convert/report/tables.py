@@ -10,6 +10,13 @@ sentence printed under a table to say how to read it.
 from __future__ import annotations
 
 import math
+from convert.values import format_value
+from convert.report.evidence import evidence_tables
+from convert.case import parsed_transfer_functions
+from convert.compare.evaluate import firmware_output_limits
+from convert.circuit.clamps import limits_text
+from convert.given import describe
+from convert.compare.verdict import CRITERIA
 
 
 Table = tuple[str, list[str], list[list[str]]]
@@ -57,7 +64,6 @@ def fixed(x, unit: str = "", digits: int = 3, floor: float = FLOOR) -> str:
 def hz(x) -> str:
     if x is None:
         return "—"
-    from convert.values import format_value
 
     return format_value(x, "hz")
 
@@ -68,7 +74,6 @@ def seconds(x) -> str:
         return "—"
     if abs(x) >= 1:
         return f"{x:.4g} s"
-    from convert.values import format_value
 
     return format_value(x, "second")
 
@@ -303,7 +308,6 @@ def all_tables(results) -> list[Table]:
     for t in (margins_table(results), rate_table(results)):
         if t is not None:
             out.append(t)
-    from convert.report.evidence import evidence_tables
 
     out += evidence_tables(results)
     return out
@@ -343,8 +347,6 @@ def _source_as_given(case) -> str:
             f"(inverse for the analog equivalent: {d['method']})"
         )
     if src.form == "card":
-        from convert.values import format_value
-
         parts = ", ".join(
             f"{k} = {format_value(v, 'ohm' if k[:1].upper() == 'R' else 'farad')}" for k, v in d["parts"].items()
         )
@@ -361,8 +363,6 @@ def _source_as_given(case) -> str:
 def parsed_table(results) -> Table | None:
     """Each transfer function the case gave, beside its canonical form (monic denominator,
     descending powers): how the text was read, so a misreading is seen before the verdict."""
-    from convert.case import parsed_transfer_functions
-
     rows = []
     for what, given, ctrl in parsed_transfer_functions(results.case):
         if what == "source":  # as the source was read (e.g. printed poles at z = 1 taken as integrators)
@@ -411,7 +411,6 @@ def input_tables(results) -> list[Table]:
     if case.digital:
         t = case.digital
         delay = f"{t.delay_samples:g} sample(s)" if t.delay_samples is not None else seconds(t.delay_s)
-        from convert.compare.evaluate import firmware_output_limits
 
         card_lim = results.source.extra.get("output_limits")
         lim = firmware_output_limits(case, card_lim)
@@ -446,8 +445,6 @@ def input_tables(results) -> list[Table]:
             ]
         )
     if results.source.extra.get("output_limits") is not None:
-        from convert.circuit.clamps import limits_text
-
         rows.append(
             [
                 "card clamps",
@@ -456,8 +453,6 @@ def input_tables(results) -> list[Table]:
             ]
         )
     if getattr(case, "given", ()):
-        from convert.given import describe
-
         rows += [[f"given: {g.name}", describe(g)] for g in case.given]
     if case.plant:
         rows.append(
@@ -481,7 +476,6 @@ def input_tables(results) -> list[Table]:
     out = [("Case inputs", ["item", "as used"], rows)]
 
     crit = case.criteria.as_dict()
-    from convert.compare.verdict import CRITERIA
 
     crows = []
     for key, label, unit in CRITERIA:

@@ -40,6 +40,7 @@ import numpy as np
 from convert.circuit.topologies.networks import GROUND, Junction, Part, Stage, impedance, open_value
 from convert.controller import Controller
 from convert.errors import InputError, UnrealizableError
+from convert.values import parse_value
 
 # ----------------------------------------------------------------------------------- helpers
 
@@ -187,8 +188,6 @@ class Topology:
         Every non-optional part must be present; values must be positive and finite (an optional
         part may be absent = not fitted). Unknown names are refused.
         """
-        from convert.values import parse_value
-
         known = set(self.part_names)
         for key in parts:
             if key not in known:
