@@ -266,9 +266,21 @@ class PidFixedModel:
         return self.i * q.output_level * 2.0**q.g_int / 2.0 ** (q.acc_bits - 1)
 
     def run(self, r, y):
+        """Outputs (user units) for the sample sequences ``r``, ``y``: the words of all samples are
+        made at once (the same rounding and saturation as :meth:`words`, in float64 then exact
+        integers), the integer steps run in order."""
         import numpy as np
 
-        return np.array([self.step(float(a), float(b)) for a, b in zip(r, y)])
+        q = self.q
+        full = float(1 << (q.bits - 1))
+
+        def word_array(x):
+            w = np.floor(np.asarray(x, dtype=float) / q.input_range * full + 0.5)
+            return np.clip(w, q.word_min, q.word_max).astype(np.int64).tolist()
+
+        step = self.step_int
+        out = [step(a, b) for a, b in zip(word_array(r), word_array(y))]
+        return np.asarray(out, dtype=float) * q.output_lsb
 
 
 # ----------------------------------------------------------------------------- C99
