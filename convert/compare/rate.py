@@ -29,7 +29,7 @@ import numpy as np
 from convert.compare.frequency import compare_responses, log_grid, response_seen_from_loop
 from convert.compare.ownchecks import adds_unstable_poles
 from convert.controller import Controller
-from convert.compare.loop import one_blas_thread
+from convert.digital.statespace import small_dense
 
 RULE_TEXT = (
     "added phase lag at crossover ≈ ω_c·(T/2 + t_d) for the zero-order hold and computation delay (common practice)"
@@ -64,6 +64,7 @@ def rule_min_fs(crossover_hz: float | None, max_lag_deg: float | None, delay_s: 
     return None if t_max <= 0 else 1.0 / t_max
 
 
+@small_dense  # small matrices (discretizations, loop checks): one BLAS thread is faster
 def advise(
     source: Controller,
     method: str,
@@ -86,43 +87,6 @@ def advise(
     method)`` returns the digital controller; ``delay_samples`` (if given) scales the delay with
     the rate. ``loop_check(digital, delay_s)`` (optional) returns the names of the loop criteria
     that digital controller fails; when given it replaces the phase-lag rule at crossover."""
-    with one_blas_thread():  # small matrices (discretizations, loop checks): one BLAS thread is faster
-        return _advise(
-            source,
-            method,
-            discretize,
-            band_hz,
-            max_gain_error_db,
-            max_phase_error_deg,
-            max_lag_deg,
-            crossover_hz,
-            delay_s,
-            delay_samples,
-            points,
-            max_ratio,
-            loop_check,
-            rel_tol,
-            points_per_decade,
-        )
-
-
-def _advise(
-    source,
-    method,
-    discretize,
-    band_hz,
-    max_gain_error_db,
-    max_phase_error_deg,
-    max_lag_deg,
-    crossover_hz,
-    delay_s,
-    delay_samples,
-    points,
-    max_ratio,
-    loop_check,
-    rel_tol,
-    points_per_decade,
-) -> RateAdvice:
     f = log_grid(band_hz[0], band_hz[1], points_per_decade)
     ref = source.frequency_response(f, via="zpk")
 
