@@ -823,7 +823,7 @@ def _input_reach_check(case, r, fw: dict) -> dict | None:
     ok = peak <= rng * (1 + 1e-9)
     return dict(
         key="firmware_input_reach",
-        label=f"the loop's {what} stay within the input range ±{rng:.4g}",
+        label=f"the loop's {what} {'stay' if fw.get('structure') == 'pid_block' else 'stays'} within the input range ±{rng:.4g}",
         unit="input units",
         limit=rng,
         value=peak,
