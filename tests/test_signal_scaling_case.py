@@ -145,12 +145,15 @@ def test_fixed_point_sign_flip_end_to_end(tmp_path):
         ("output", 'range = ["0 V", "10 mA"]\nfirmware = [0, 100]', "output_signal.range"),
         ("output", 'range = ["0 V", "10 V"]\nfirmware = [0, 100]\nbits = 12', "output_signal.bits"),
         ("output", 'range = ["0 V", "10 V"]\nfirmwar = [0, 100]', "output_signal.firmwar"),
+        # bare numbers: volts or milliamps? (reviewer: [0, 10] was read as volts without a word)
+        ("output", "range = [0, 10]\nfirmware = [0, 100]", "output_signal.range"),
+        ("input", 'range = ["4", "20"]\nshunt = "250 ohm"\nbits = 12', "input_signal.range"),
     ],
 )
 def test_bad_signal_tables_are_one_line_errors(tmp_path, side, text, key):
     """Reversed range, 0 bits, a current range into a voltage converter, a signal beyond the
     converter, a shunt on a voltage, no firmware values, equal ends, mixed units, both forms,
-    a misspelt key: each an InputError naming its key, one line."""
+    a misspelt key, a range of bare numbers: each an InputError naming its key, one line."""
     kw = {"inp": text} if side == "input" else {"out": text}
     with pytest.raises(InputError) as err:
         _case(tmp_path, **kw)
