@@ -86,6 +86,13 @@ def test_hand_calculated_gain_and_action(tmp_path):
     c_text = next(v for k, v in files.items() if k.endswith("lic.c"))
     first_b = float(c_text.split("/* section 1: b = [")[1].split(",")[0])
     assert first_b == pytest.approx(g * card[0]["b"][0], rel=1e-12)
+    # the report's "New forms" line gives the coefficients in firmware units first, as the code
+    # holds them (reviewer: it printed only the card's, -1/g times off and of the other sign)
+    from convert.report.tables import realization_table
+
+    (row,) = realization_table(res)[2]
+    b_fw = [float(x) for x in row[2].split("in firmware units (as in the code) b = [")[1].split("]")[0].split(",")]
+    assert b_fw == pytest.approx([g * v for v in res.realizations[0].details["b"]], rel=1e-9)
 
 
 @pytest.mark.parametrize(

@@ -285,11 +285,17 @@ def realization_table(results) -> Table:
                 coefs = (
                     f"b = [{', '.join(f'{x:.10g}' for x in d['b'])}]; a = [{', '.join(f'{x:.10g}' for x in d['a'])}]"
                 )
+            sig = d.get("signal_scaling")
+            if sig and sig.get("b"):
+                # the code holds the controller in firmware units: show those first, the card's beside
+                coefs = (
+                    f"in firmware units (as in the code) b = [{', '.join(f'{x:.10g}' for x in sig['b'])}], "
+                    f"a = [{', '.join(f'{x:.10g}' for x in d['a'])}]; in card units {coefs}"
+                )
             what = (
                 f"structure {d.get('structure', 'direct1')} in {d['word_format']}; {coefs}; "
                 f"delay {seconds(d['delay_s'])}"
             )
-            sig = d.get("signal_scaling")
             if sig:
                 what += (
                     f"; firmware units: {sig['text']}; {sig['gains']}; card {sig['card_action']} acting, "
