@@ -239,3 +239,27 @@ def test_merging_counts_the_sign_inverter():
     assert plus.cascade.total_amplifiers == 2 and plus.needs_inverter
     assert [s.topology.name for s in minus.cascade.sections] == ["mfb-low-pass"]
     assert minus.cascade.total_amplifiers == 1 and not minus.needs_inverter
+
+
+@pytest.mark.parametrize("name", sorted(TARGETS))
+def test_cascade_note_gives_each_stage_with_its_sign(name):
+    """The note lists each stage's transfer function as the stage realizes it, sign included
+    (third reviewer: an inverting multiple-feedback stage was printed with a + sign). Check: the
+    printed stages multiplied, times -1 for a following inverter, give the target (to the 4
+    significant digits printed) — the target is the outside reference here, a wrong sign on any
+    stage turns the product over."""
+    import re
+
+    d = design_circuit(from_expression(TARGETS[name]), DesignOptions())
+    (note,) = [n for n in d.notes if "a cascade of" in n]
+    stages = re.findall(r"stage \d+ \S+ (.+?)(?=; stage \d+ |$)", note.split(" does: ", 1)[1])
+    assert len(stages) == len(d.cascade.sections)
+    f = np.geomspace(d.band_hz[0], d.band_hz[1], 50)
+    product = np.ones_like(f, dtype=complex)
+    for text, section in zip(stages, d.cascade.sections):
+        printed = from_expression(text.replace("e+", "e"))
+        product *= printed.frequency_response(f)
+        stage_sign = np.sign(np.real(section.controller.frequency_response(f[:1])))[0] * section.topology.sign
+        assert np.sign(np.real(printed.frequency_response(f[:1])))[0] == stage_sign
+    product *= -1 if d.needs_inverter else 1
+    assert np.max(np.abs(product / d.target.frequency_response(f) - 1)) < 5e-3

@@ -293,3 +293,45 @@ def test_pid_block_fixed_point_and_structured_text(run_cli, tmp_path):
     )  # half an ulp of 100 / (ki T)
     r = run_cli("code", *common, *lim, "--format", "q15", "--out", str(tmp_path))
     assert r.code == 2 and "--input-range" in r.err and len(r.err.strip().splitlines()) == 1
+
+
+# ----------------------------------------------------------------------------- options that do not apply
+@pytest.mark.parametrize(
+    "extra, option",
+    [
+        (["--method", "zoh", "--prewarp", "10Hz"], "--prewarp"),
+        (["--velocity"], "--velocity"),
+        (["--anti-windup", "track"], "--anti-windup"),
+        (["--pid-block", "--method", "zoh"], "--method"),
+        (["--pid-block", "--structure", "sections"], "--structure"),
+        (["--pid-block", "--derivative-filter", "10"], "--derivative-filter"),
+        (["--pid-block", "--tracking-time", "3s"], "--tracking-time"),
+    ],
+)
+def test_an_option_the_code_would_ignore_is_refused(run_cli, tmp_path, extra, option):
+    """Before: `code ... --method zoh --prewarp 10Hz` wrote ZOH code and dropped the prewarp in
+    silence (the digital command refuses it). Every option the chosen kind of code would ignore
+    is now a one-line error naming it, exit 2, and nothing is written (common practice: a
+    setting the user typed is never dropped without a word)."""
+    out = tmp_path / "fw"
+    r = run_cli("code", "--pid", "kc=2", "ti=30s", "--fs", "10Hz", "--name", "lvl", "--out", str(out), *extra)
+    assert r.code == 2
+    assert option in r.err and "Traceback" not in r.err
+    assert len(r.err.strip().splitlines()) == 1
+    assert not out.exists()
+
+
+def test_linear_code_of_an_integrating_controller_warns_of_no_anti_windup(run_cli, tmp_path):
+    """The linear structures clamp nothing inside: the header of an integrating controller's code
+    says so and points to the PID block (reviewer finding: the state wound to the integrator's
+    full scale and the output stayed at its limit for 20 s after the error changed sign)."""
+    out = tmp_path / "fw"
+    r = run_cli(
+        "code", "2*(1+1/(0.5s))", "--fs", "100Hz", "--output-limits", "0", "100", "--name", "heat", "--out", str(out)
+    )
+    assert r.code == 0, r.err
+    header = (out / "heat.h").read_text()
+    assert "No anti-windup" in header and "--pid-block" in header
+    r = run_cli("code", "(0.5s+1)/(0.05s+1)", "--fs", "100Hz", "--name", "lead", "--out", str(out))
+    assert r.code == 0, r.err
+    assert "No anti-windup" not in (out / "lead.h").read_text()  # nothing integrates, nothing winds up

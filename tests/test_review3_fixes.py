@@ -98,3 +98,18 @@ def test_fixed_point_pid_block_run_equals_its_steps(fmt, form):
     fast = block.model().run(r, y)
     slow = block.model()
     assert np.array_equal(fast, [slow.step(float(a), float(b)) for a, b in zip(r, y)])
+
+
+def test_coarse_derivative_word_is_told_in_the_report_and_terminal(run_cli, tmp_path):
+    """Q15 PID block, input range ±100, output level 70, kd = kc·td = 8 s, Tf = td/n = 0.4 s at
+    20 Hz: the derivative word's full scale is the output level times 2^g_d covering the
+    peak-gain bound of a full-range input jump (kd/(Tf+T)·200 = 8/0.45·200 = 3556 by hand), so
+    g_d = 6 (70·64 = 4480 ≥ 3556) and one LSB is 4480/32768 = 0.1367 output units (arithmetic).
+    The note said so only in results.json; report.md and the terminal now say it too."""
+    out = tmp_path / "r"
+    r = run_cli("report", str(CASES / "pidq15.toml"), "--out", str(out))
+    assert r.code in (0, 1), r.err
+    lsb = 70 * 2**6 / 2**15
+    text = f"derivative word's LSB is {lsb:.4g} output units"
+    assert text in (out / "report.md").read_text()
+    assert text in " ".join(r.out.split())  # the terminal wraps lines

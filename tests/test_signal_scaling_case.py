@@ -86,6 +86,13 @@ def test_hand_calculated_gain_and_action(tmp_path):
     c_text = next(v for k, v in files.items() if k.endswith("lic.c"))
     first_b = float(c_text.split("/* section 1: b = [")[1].split(",")[0])
     assert first_b == pytest.approx(g * card[0]["b"][0], rel=1e-12)
+    # the report's "New forms" line gives the coefficients in firmware units first, as the code
+    # holds them (reviewer: it printed only the card's, -1/g times off and of the other sign)
+    from convert.report.tables import realization_table
+
+    (row,) = realization_table(res)[2]
+    b_fw = [float(x) for x in row[2].split("in firmware units (as in the code) b = [")[1].split("]")[0].split(",")]
+    assert b_fw == pytest.approx([g * v for v in res.realizations[0].details["b"]], rel=1e-9)
 
 
 @pytest.mark.parametrize(
@@ -145,12 +152,15 @@ def test_fixed_point_sign_flip_end_to_end(tmp_path):
         ("output", 'range = ["0 V", "10 mA"]\nfirmware = [0, 100]', "output_signal.range"),
         ("output", 'range = ["0 V", "10 V"]\nfirmware = [0, 100]\nbits = 12', "output_signal.bits"),
         ("output", 'range = ["0 V", "10 V"]\nfirmwar = [0, 100]', "output_signal.firmwar"),
+        # bare numbers: volts or milliamps? (reviewer: [0, 10] was read as volts without a word)
+        ("output", "range = [0, 10]\nfirmware = [0, 100]", "output_signal.range"),
+        ("input", 'range = ["4", "20"]\nshunt = "250 ohm"\nbits = 12', "input_signal.range"),
     ],
 )
 def test_bad_signal_tables_are_one_line_errors(tmp_path, side, text, key):
     """Reversed range, 0 bits, a current range into a voltage converter, a signal beyond the
     converter, a shunt on a voltage, no firmware values, equal ends, mixed units, both forms,
-    a misspelt key: each an InputError naming its key, one line."""
+    a misspelt key, a range of bare numbers: each an InputError naming its key, one line."""
     kw = {"inp": text} if side == "input" else {"out": text}
     with pytest.raises(InputError) as err:
         _case(tmp_path, **kw)

@@ -158,10 +158,16 @@ class Tightening:
     mc_phase_deg: tuple[float, float] | None = None
     draws: int = 0  # draws of the Monte Carlo figures (same seed before and after); 0: not run
     seed: int = 1
+    leaders: int = 1  # how many parts lead the tolerance error together (this one among them)
 
     def note(self) -> str:
         """One line for the buy list's note column and the terminal (ASCII)."""
-        text = f"dominates the tolerance error ({self.share:.0%}); at {self.suggested * 100:g} % "
+        lead = (
+            "dominates the tolerance error"
+            if self.leaders == 1
+            else f"one of the {self.leaders} parts that lead the tolerance error"
+        )
+        text = f"{lead} ({self.share:.0%}); at {self.suggested * 100:g} % "
         if self.mc_gain_db is not None:
             text += (
                 f"the Monte Carlo p99 goes from {self.mc_gain_db[0]:.3g} dB / {self.mc_phase_deg[0]:.3g} deg to "
@@ -434,6 +440,7 @@ def buy_list(
                 None if mc_before is None else (mc_before[1], mc_after[1]),
                 draws if mc_before is not None else 0,
                 seed,
+                len(leading),
             )
             tightenings.append(t)
             for row in parts:

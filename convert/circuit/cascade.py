@@ -697,7 +697,9 @@ def design_cascade(
     notes.append(
         f"{why}; a cascade of {stages_text} does: "
         + "; ".join(
-            f"stage {i} {s.topology.name} {s.controller.expression(4)}" for i, s in enumerate(plan.sections, start=1)
+            # each stage with its own sign (an inverting stage turns its section over)
+            f"stage {i} {s.topology.name} {s.controller.scaled(s.topology.sign).expression(4)}"
+            for i, s in enumerate(plan.sections, start=1)
         )
     )
     if n_st > 1:  # one stage feeds no other: no noise gain between stages to report

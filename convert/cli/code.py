@@ -68,9 +68,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
         "e.g. --card card.cir",
     )
     parser.add_argument("--fs", metavar="HZ", required=True, help="sample rate, e.g. --fs 1kHz")
-    parser.add_argument(
-        "--method", metavar="M", default="tustin", help="discretization method (default tustin), e.g. --method zoh"
-    )
+    parser.add_argument("--method", metavar="M", help="discretization method (default tustin), e.g. --method zoh")
     parser.add_argument("--prewarp", metavar="HZ", help="tustin prewarp frequency, e.g. --prewarp 50Hz")
     parser.add_argument(
         "--derivative-filter",
@@ -81,7 +79,6 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     parser.add_argument(
         "--structure",
         metavar="S",
-        default="auto",
         help="direct1, direct2t, sections, delta or auto (default: the recommended one), e.g. --structure sections",
     )
     parser.add_argument("--lang", metavar="L", default="c", help="c (default) or st, e.g. --lang st")
@@ -140,7 +137,6 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     parser.add_argument(
         "--anti-windup",
         metavar="A",
-        default="clamp",
         dest="anti_windup",
         help="PID block: clamp (conditional integration, default), track (back-calculation) or none, "
         "e.g. --anti-windup track",
@@ -204,6 +200,7 @@ def run(args, console) -> int:
     from convert.errors import InputError
 
     fs = positive_value(args.fs, "hz", "--fs")
+    _refuse_inapplicable(args)
     word = FORMAT_WORDS.get(str(args.fmt).lower())
     if word is None:
         raise InputError(f"expected double, float, q15 or q31, found {args.fmt!r}", key="--format")
@@ -216,7 +213,7 @@ def run(args, console) -> int:
             "Structured Text of the PID block is written in double (LREAL) or float (REAL); q15/q31 are for C",
             key="--format",
         )
-    if st_fixed and str(args.structure).lower() not in ST_FIXED_STRUCTURES + ("auto",):
+    if st_fixed and str(args.structure or "auto").lower() not in ST_FIXED_STRUCTURES + ("auto",):
         raise InputError(
             f"Structured Text in {args.fmt} is written for the structures direct2t and delta (integer words); "
             f"{args.structure} in {args.fmt} is for C",
@@ -262,13 +259,13 @@ def run(args, console) -> int:
             "name": "--name",
         },
     ):
-        real = discretize(controller, fs, args.method, prewarp_hz=prewarp)
+        real = discretize(controller, fs, args.method or "tustin", prewarp_hz=prewarp)
         band = comparison_grid(default_band_hz(controller, fs), fs, points_per_decade=20)
         pick, every, why = choose(
             real.roots,
             word,
             band,
-            structure=args.structure,
+            structure=args.structure or "auto",
             b=real.b,
             a=real.a,
             input_range=max(map(abs, rng)) if rng else None,
@@ -284,7 +281,7 @@ def run(args, console) -> int:
             )
         files = {}
         if pick is not None and pick.ok:
-            files = emit(pick.realized, args.name, lang, source=source, method=args.method, limits=lim)
+            files = emit(pick.realized, args.name, lang, source=source, method=args.method or "tustin", limits=lim)
     paths = _write(args, files)
     ok = pick is not None and pick.ok
     if args.json:
@@ -293,7 +290,7 @@ def run(args, console) -> int:
             {
                 "source": source,
                 "fs_hz": fs,
-                "method": args.method,
+                "method": args.method or "tustin",
                 "word_format": word,
                 "structure": pick.structure if pick else None,
                 "recommendation": why,
@@ -425,6 +422,41 @@ def _scaling(args):
     return scaling(*maps)
 
 
+# options that shape only one of the two kinds of code: (option, its argparse attribute)
+_LINEAR_ONLY = (
+    ("--method", "method"),
+    ("--prewarp", "prewarp"),
+    ("--structure", "structure"),
+    ("--derivative-filter", "filter_n"),
+)
+_BLOCK_ONLY = (("--velocity", "velocity"), ("--anti-windup", "anti_windup"), ("--tracking-time", "tracking_time"))
+
+
+def _refuse_inapplicable(args) -> None:
+    """An option that the chosen kind of code would ignore is an error, not silently dropped."""
+    from convert.errors import InputError
+
+    def given(attr: str) -> bool:
+        return getattr(args, attr, None) not in (None, False)
+
+    if args.pid_block:
+        for option, attr in _LINEAR_ONLY:
+            if given(attr):
+                raise InputError(
+                    "does not apply to the PID block (the block samples kp, ki and kd itself, with the derivative "
+                    "filter of the controller given, e.g. --pid ... n=10); leave it out or drop --pid-block",
+                    key=option,
+                )
+    else:
+        for option, attr in _BLOCK_ONLY:
+            if given(attr):
+                raise InputError("applies to the PID block only; add --pid-block", key=option)
+    if given("prewarp") and str(args.method or "tustin").lower() != "tustin":
+        raise InputError("applies to tustin only; drop it or use --method tustin", key="--prewarp")
+    if args.tracking_time and (args.anti_windup or "clamp") != "track":
+        raise InputError("applies to --anti-windup track only; add --anti-windup track", key="--tracking-time")
+
+
 def _pid_block(args, console, controller, source, fs, word, lang, lim, sc=None, rng=None) -> int:
     """``--pid-block``: the PID block of convert.digital.pidblock in C (double, float, Q15, Q31) or
     Structured Text (double, float), with its word-format analysis (convert.digital.pidcheck);
@@ -459,7 +491,7 @@ def _pid_block(args, console, controller, source, fs, word, lang, lim, sc=None, 
             fs,
             form="velocity" if args.velocity else "positional",
             limits=lim,
-            anti_windup=args.anti_windup,
+            anti_windup=args.anti_windup or "clamp",
             tracking_time_s=tt,
             word_format=word,
             input_range=max(map(abs, rng)) if rng else None,

@@ -163,7 +163,7 @@ def _summary(console, results, folder) -> None:
 
     from convert.cli.common import fit_columns, styled
     from convert.compare.evaluate import CAUTIONS
-    from convert.report.tables import all_tables, figure_against_limit, parsed_table
+    from convert.report.tables import all_tables, figure_against_limit, firmware_notes, parsed_table
 
     case = results.case
     verdict = results.verdict.overall
@@ -213,6 +213,8 @@ def _summary(console, results, folder) -> None:
     for r in results.realizations:
         for w in r.warnings:
             console.print(styled(f"[yellow]warning ({escape(r.name)}):[/yellow] {escape(str(w))}"))
+        for n in firmware_notes(r, assumptions=False):  # findings, e.g. a coarse derivative word
+            console.print(styled(f"[yellow]note ({escape(r.name)}):[/yellow] {escape(str(n))}"))
     console.print(Panel("\n".join(CAUTIONS), title="cautions", border_style="yellow"))
     failures = results.verdict.failures
     if failures:

@@ -945,6 +945,7 @@ def _signal_scaling(case, analog, real, band, firmware, limits):
     return {
         "text": sc.text + "; " + "; ".join(tgt.signal_text),
         "gain": sc.gain,
+        "b": [sc.gain * v for v in real.b],  # the controller in firmware units (a unchanged), as the code holds it
         "inverted": sc.inverted,
         "card_action": card_action,
         "firmware_action": fw_action,

@@ -74,6 +74,12 @@ def _header_comment(real: Realized, name: str, info: dict) -> list[str]:
     )
     if w.is_fixed and _integrating(real):
         lines.append(f"The integrating section saturates at +/-{real.node_scales[-1]:.10g} (its full scale).")
+    if _integrating(real):
+        lines += [
+            "No anti-windup: clamping the returned value does not stop the integrating state, which keeps",
+            "  winding while the output is held at a limit and delays the recovery. Where the output can",
+            "  saturate, use the PID block (loopshift code --pid-block: clamp or tracking anti-windup).",
+        ]
     lines.append("Difference equations per section: see the structure in docs/firmware.md.")
     return lines
 

@@ -29,6 +29,7 @@ from convert.errors import LoopshiftError
 from convert.digital.pidfixed import fixed_pid
 from convert.controller import Controller
 from convert.digital.quantized import (
+    ASSUMED_SCALING,
     FormatAnalysis,
     RESPONSE_LIMITS,
     default_input_range,
@@ -134,14 +135,14 @@ def analyze_block(block, band_f_hz, *, input_resolution: float | None = None, re
     lim = block.limits
     u = max(abs(lim[0]), abs(lim[1])) if lim else 1.0
     if not lim:
-        notes.append("output level U = 1 (no output limits given)")
+        notes.append(f"{ASSUMED_SCALING[0]}1 (no output limits given)")
     exact = linear_controller(block, stored=False)
     if block.input_range:
         r = float(block.input_range)
     else:
         r = default_input_range(exact, u)
         notes.append(
-            f"input range R = {r:.4g} (the error that drives the output to U through the largest gain "
+            f"{ASSUMED_SCALING[1]}{r:.4g} (the error that drives the output to U through the largest gain "
             "between fs/1000 and fs/2)"
         )
     res = float(input_resolution) if input_resolution else r / 2**15

@@ -54,6 +54,9 @@ RESPONSE_LIMITS = (1.0, 5.0)
 #: a fixed-point dead band above this fraction of the node's full scale fails
 DEAD_BAND_LIMIT = 0.01
 
+# notes that state the scaling the analysis assumed (not findings): U, then R
+ASSUMED_SCALING = ("output level U = ", "input range R = ")
+
 
 @dataclass(frozen=True)
 class FormatAnalysis:
@@ -259,11 +262,11 @@ def analyze(
     notes = []
     u = float(output_level) if output_level else 1.0
     if not output_level:
-        notes.append("output level U = 1 (no output limits given)")
+        notes.append(f"{ASSUMED_SCALING[0]}1 (no output limits given)")
     r = float(input_range) if input_range else default_input_range(roots, u)
     if not input_range:
         notes.append(
-            f"input range R = {r:.4g} (the error that drives the output to U through the largest gain "
+            f"{ASSUMED_SCALING[1]}{r:.4g} (the error that drives the output to U through the largest gain "
             "between fs/1000 and fs/2)"
         )
     res = float(input_resolution) if input_resolution else r / 2**15

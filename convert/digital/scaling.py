@@ -105,13 +105,32 @@ MAX_CONVERTER_BITS = 32
 
 
 def _signal_value(raw, key: str) -> tuple[float, str]:
-    """A signal value with its unit: volts or amperes (convert.values), e.g. "4 mA", "-10 V"."""
+    """A signal value with its unit: volts or amperes (convert.values), e.g. "4 mA", "-10 V". A bare
+    number is refused: 4 could be volts or milliamps, and a guess moves the gain 250-fold."""
+    if _bare_number(raw):
+        raise InputError(
+            f'expected a voltage or a current with its unit (e.g. "4 mA", "-10 V"), found the bare number {raw!r}: '
+            "volts or amperes?",
+            key=key,
+        )
     for kind in ("volt", "ampere"):
         try:
             return parse_value(raw, kind, field=key), kind
         except InputError:
             continue
     raise InputError(f'expected a voltage or a current with its unit (e.g. "4 mA", "-10 V"), found {raw!r}', key=key)
+
+
+def _bare_number(raw) -> bool:
+    if isinstance(raw, bool):
+        return False
+    if isinstance(raw, int | float):
+        return True
+    try:
+        float(str(raw).strip())
+    except ValueError:
+        return False
+    return True
 
 
 def _signal_pair(raw, key: str) -> tuple[float, float, str]:

@@ -7,7 +7,7 @@ import base64
 import html
 
 from convert.compare.evaluate import CAUTIONS
-from convert.report.tables import all_tables, failing_criteria, input_tables, table_note
+from convert.report.tables import all_notes, all_tables, failing_criteria, input_tables, table_note
 from convert.report.evidence import CAPTIONS
 
 FIGURE_CAPTIONS = {
@@ -98,8 +98,9 @@ def html_report(results, figures: dict[str, bytes]) -> str:
         parts.append(
             "<h2>Checks skipped</h2><ul>" + "".join(f"<li>{html.escape(s)}</li>" for s in results.skipped) + "</ul>"
         )
-    if results.notes:
-        parts.append("<h2>Notes</h2><ul>" + "".join(f"<li>{html.escape(s)}</li>" for s in results.notes) + "</ul>")
+    notes = all_notes(results)
+    if notes:
+        parts.append("<h2>Notes</h2><ul>" + "".join(f"<li>{html.escape(s)}</li>" for s in notes) + "</ul>")
     if results.rate_advice:
         parts.append(f"<p>Rule used: {html.escape(results.rate_advice[0].rule)}.</p>")
     parts.append("<h2>Figures</h2>")
@@ -189,8 +190,9 @@ def markdown_report(results, figure_names=()) -> str:
         lines.append("")
     if results.skipped:
         lines += ["## Checks skipped", ""] + [f"- {md_text(s)}" for s in results.skipped] + [""]
-    if results.notes:
-        lines += ["## Notes", ""] + [f"- {md_text(s)}" for s in results.notes] + [""]
+    notes = all_notes(results)
+    if notes:
+        lines += ["## Notes", ""] + [f"- {md_text(s)}" for s in notes] + [""]
     if results.rate_advice:
         lines += [f"Rule used: {md_text(results.rate_advice[0].rule)}.", ""]
     if figure_names:

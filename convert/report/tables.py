@@ -17,6 +17,7 @@ from convert.compare.evaluate import firmware_output_limits
 from convert.circuit.clamps import limits_text
 from convert.given import describe
 from convert.compare.verdict import CRITERIA
+from convert.digital.quantized import ASSUMED_SCALING
 
 
 Table = tuple[str, list[str], list[list[str]]]
@@ -285,11 +286,17 @@ def realization_table(results) -> Table:
                 coefs = (
                     f"b = [{', '.join(f'{x:.10g}' for x in d['b'])}]; a = [{', '.join(f'{x:.10g}' for x in d['a'])}]"
                 )
+            sig = d.get("signal_scaling")
+            if sig and sig.get("b"):
+                # the code holds the controller in firmware units: show those first, the card's beside
+                coefs = (
+                    f"in firmware units (as in the code) b = [{', '.join(f'{x:.10g}' for x in sig['b'])}], "
+                    f"a = [{', '.join(f'{x:.10g}' for x in d['a'])}]; in card units {coefs}"
+                )
             what = (
                 f"structure {d.get('structure', 'direct1')} in {d['word_format']}; {coefs}; "
                 f"delay {seconds(d['delay_s'])}"
             )
-            sig = d.get("signal_scaling")
             if sig:
                 what += (
                     f"; firmware units: {sig['text']}; {sig['gains']}; card {sig['card_action']} acting, "
@@ -299,6 +306,26 @@ def realization_table(results) -> Table:
             what = "; ".join(f"{k} = {v}" for k, v in d.get("parts_text", {}).items()) or d.get("topology", "")
         rows.append([r.name, r.form, what, "; ".join(r.warnings)])
     return ("New forms", ["form", "kind", "realization", "warnings"], rows)
+
+
+def all_notes(results) -> list[str]:
+    """The case's notes, then each digital form's firmware notes (word-format analysis: e.g. how
+    finely a fixed-point PID block's derivative word resolves), named by the form."""
+    out = list(results.notes)
+    for r in results.realizations:
+        out += [f"{r.name}: {n}" for n in firmware_notes(r)]
+    return out
+
+
+def firmware_notes(realization, assumptions: bool = True) -> list[str]:
+    """A digital form's notes: its discretization's, then its word-format analysis' (none for
+    other forms). ``assumptions=False`` leaves out the notes that only state the assumed scaling
+    (output level U, input range R), which the report keeps."""
+    if realization.form != "digital":
+        return []
+    d = realization.details
+    notes = list(d.get("notes") or ()) + list((d.get("firmware") or {}).get("notes") or ())
+    return notes if assumptions else [n for n in notes if not n.startswith(ASSUMED_SCALING)]
 
 
 def all_tables(results) -> list[Table]:
