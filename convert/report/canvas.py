@@ -27,19 +27,25 @@ def warm_up() -> None:
     import matplotlib.ticker  # noqa: F401
 
 
+_HELPER_COST = 0.3  # forking a helper and sending its PNGs back, in the weight unit of the jobs (~0.1 s)
+
+
 def draw_figures(jobs) -> dict[str, bytes]:
     """Draw ``jobs`` = [(name, function, data, weight)] and return name -> PNG bytes in the order
-    of ``jobs``: the heaviest jobs, up to about half the total weight, in a helper process while
-    this one draws the rest (all here where no helper can run)."""
+    of ``jobs``, shared by weight between a helper process and this one (heaviest first, each onto
+    the side with less to draw); all here where no helper can run."""
     if len(jobs) < 2 or not sidework.helpers_usable():
         return {name: fn(data) for name, fn, data, _ in jobs}
     warm_up()  # imported once, before the fork, for both
-    total = sum(w for *_, w in jobs)
-    aside, weight = [], 0.0
-    for i in sorted(range(len(jobs)), key=lambda i: -jobs[i][3]):
-        if weight + jobs[i][3] <= 0.5 * total or not aside:
+    aside, load_aside, load_here = [], _HELPER_COST, 0.0
+    for i in sorted(range(len(jobs)), key=lambda i: -jobs[i][3]):  # heaviest first, onto the lighter side
+        if load_aside <= load_here:
             aside.append(i)
-            weight += jobs[i][3]
+            load_aside += jobs[i][3]
+        else:
+            load_here += jobs[i][3]
+    if not aside:
+        return {name: fn(data) for name, fn, data, _ in jobs}
     pending = sidework.start(_draw, [jobs[i] for i in aside])
     try:
         here = {i: jobs[i][1](jobs[i][2]) for i in range(len(jobs)) if i not in aside}
@@ -65,7 +71,7 @@ class Painter:
     """
 
     def __init__(self) -> None:
-        self._standby = sidework.standby(warm_up)
+        self._standby = sidework.standby(warm_up_and_prime)
 
     def start(self, jobs) -> sidework.Pending:
         """Start drawing ``jobs`` (see :func:`draw_figures`); ``.result()`` gives name -> PNG bytes."""
@@ -79,6 +85,18 @@ class Painter:
 
     def __exit__(self, *exc) -> None:
         self.close()
+
+
+def warm_up_and_prime() -> None:
+    """:func:`warm_up`, then draw a small figure once, so that what matplotlib does only for its
+    first figure (loading the font, building caches) is done before the report's figures come."""
+    warm_up()
+    fig, ax = _figure(2.0, 2.0)
+    ax[0, 0].semilogx([1.0, 10.0], [1.0, 2.0], label="warm")
+    ax[0, 0].legend(fontsize=8)
+    ax[0, 0].set_title("warm")
+    ax[0, 0].grid(True, which="both")
+    png_of(fig)
 
 
 def _figure(width: float, height: float, rows: int = 1, cols: int = 1, **kw):

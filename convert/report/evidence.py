@@ -31,7 +31,7 @@ def evidence_jobs(results) -> list[tuple[str, Callable, dict, float]]:
         return []
     out = []
     if ev.sweep is not None:
-        out.append((SWEEP_FIGURE, canvas.draw_sweep, _sweep_data(results, ev), 2.0))
+        out.append((SWEEP_FIGURE, canvas.draw_sweep, _sweep_data(results, ev), 2.2))
     if ev.log is not None and ev.log.sketch["t"].size:
         out.append((LOG_FIGURE, canvas.draw_log, _log_data(ev), 1.0))
     return out
