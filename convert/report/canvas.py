@@ -9,8 +9,6 @@ started before the results exist (:class:`Painter`) and sent the data by value. 
 from __future__ import annotations
 
 import io
-from collections.abc import Callable
-from typing import Any
 
 import numpy as np
 

@@ -214,12 +214,6 @@ def _as_is(png: bytes) -> bytes:
     return png
 
 
-def all_figures(results) -> dict[str, bytes]:
-    """name -> PNG bytes for every figure the results call for (schematics included; see
-    :func:`draw_figures`)."""
-    return draw_figures(figure_jobs(results))
-
-
 def schematic_figure_name(realization) -> str:
     """The figure name of a realization's schematic (``schematic-<name>.png``)."""
     return f"schematic-{_slug(realization.name)}.png"
