@@ -17,7 +17,7 @@ from convert.compare.frequency import response_seen_from_loop, unwrapped_phase_e
 from convert.compare.evaluate import firmware_output_limits
 from convert.circuit.schematic import Schematic
 from convert.report import canvas
-from convert.report.canvas import COLORS, draw_figures
+from convert.report.canvas import COLORS
 from convert.report.schematic import schematic_png
 
 
