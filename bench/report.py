@@ -44,7 +44,8 @@ from bench.common import (
 CIRCUIT_CASE = "firmware_pid_to_opamp"
 CAP_BYTES = 4 * 2**30
 
-# Runs the report in-process with Figure.savefig wrapped: every figure saved is kept as
+# Runs the report in-process, with no helper process (a figure drawn in a helper would escape the
+# recording and be embedded by the floor as bytes, undrawn), and Figure.savefig wrapped: every figure saved is kept as
 # matplotlib's pickle of the figure, the savefig arguments and the PNG bytes (argv: case out recording [draws]).
 RECORDER = r"""
 import io, pickle, sys
@@ -63,9 +64,11 @@ def savefig(self, fname, *a, **k):
     figs.append((blob, a, k, png))
     return out
 mf.Figure.savefig = savefig
+from convert import sidework
 from convert.cli.main import main
 case, out, recording, *draws = sys.argv[1:]
-rc = main(["report", case, "--out", out, "--force"] + (["--draws", draws[0]] if draws else []))
+with sidework.alone():  # every figure drawn in this process, where savefig is watched
+    rc = main(["report", case, "--out", out, "--force"] + (["--draws", draws[0]] if draws else []))
 with open(recording, "wb") as fh:
     pickle.dump(figs, fh)
 sys.exit(0 if rc in (0, 1) else rc)

@@ -896,7 +896,12 @@ def _read_plant(ctx: _Ctx, data: dict) -> Plant | None:
     if text is None:
         raise ctx.error("plant", 'missing model: the plant\'s transfer function in s, e.g. model = "2/((10s+1)(2s+1))"')
 
-    model = from_expression(text, label=f"{ctx.where('plant.model')}: plant.model")
+    try:
+        model = from_expression(text, label=f"{ctx.where('plant.model')}: plant.model")
+    except InputError as exc:
+        if exc.message.startswith("an expression in z"):  # not a missing rate: the plant is never in z
+            raise ctx.error("plant.model", "the plant is a continuous process: write its model in s, not z") from None
+        raise
     if model.is_digital:
         raise ctx.error("plant.model", "the plant is a continuous process: write its model in s")
     if not model.is_proper:

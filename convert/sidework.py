@@ -63,20 +63,18 @@ def _run(key: int) -> tuple[str, Any]:
 
 
 class Pending:
-    """The result of a task started by :func:`start` (computed here if the helper did not)."""
+    """The result of a task started by :func:`start` or :meth:`Standby.start` (computed here if
+    the helper did not). ``owns_pool``: the helper is this task's alone and stops with it."""
 
-    def __init__(self, fn: Callable, args: tuple, kwargs: dict, pool=None, future=None):
+    def __init__(self, fn: Callable, args: tuple, kwargs: dict, pool=None, future=None, owns_pool: bool = True):
         self._task = (fn, args, kwargs)
         self._pool, self._future = pool, future
+        self._owns_pool = owns_pool
 
     def discard(self) -> None:
         """Give up the task (its helper is stopped; a later :meth:`result` would compute it here)."""
         if self._future is not None:
-            for proc in list((getattr(self._pool, "_processes", None) or {}).values()):
-                with contextlib.suppress(Exception):
-                    proc.terminate()
-            with contextlib.suppress(Exception):
-                self._pool.shutdown(wait=True, cancel_futures=True)
+            _stop(self._pool)
             self._future = self._pool = None
 
     def result(self) -> Any:
@@ -86,7 +84,8 @@ class Pending:
             except Exception:  # the helper died or its result could not be pickled
                 status, value = "failed", None
             finally:
-                self._pool.shutdown(wait=True)
+                if self._owns_pool:
+                    self._pool.shutdown(wait=True)
                 self._future = self._pool = None
             if status == "ok":
                 self._task = None
@@ -119,3 +118,71 @@ def start(fn: Callable, /, *args, **kwargs) -> Pending:
     finally:
         _TASKS.pop(key, None)
     return Pending(fn, args, kwargs, pool, future)
+
+
+def _stop(pool) -> None:
+    """Stop ``pool``'s processes now, whatever they are doing, and shut it down."""
+    for proc in list((getattr(pool, "_processes", None) or {}).values()):
+        with contextlib.suppress(Exception):
+            proc.terminate()
+    with contextlib.suppress(Exception):
+        pool.shutdown(wait=True, cancel_futures=True)
+
+
+def _warm(fn: Callable) -> None:
+    fn()
+
+
+def _call(fn: Callable, args: tuple) -> tuple[str, Any]:
+    """In a standby helper: run ``fn(*args)`` (both sent by pickle)."""
+    try:
+        return "ok", fn(*args)
+    except BaseException:  # the caller runs it again here, so the error surfaces as without a helper
+        return "failed", None
+
+
+class Standby:
+    """A helper process forked now and warmed up while this process goes on (see :func:`standby`)."""
+
+    def __init__(self, warm: Callable[[], None]):
+        self._pool = None
+        if not helpers_usable():
+            return
+        import multiprocessing
+        from concurrent.futures import ProcessPoolExecutor
+
+        for stream in (sys.stdout, sys.stderr):  # nothing buffered here is written twice by the helper
+            with contextlib.suppress(Exception):
+                stream.flush()
+        try:
+            pool = ProcessPoolExecutor(max_workers=1, mp_context=multiprocessing.get_context("fork"))
+            pool.submit(_warm, warm)  # forks now
+        except Exception:
+            return
+        self._pool = pool
+
+    def start(self, fn: Callable, /, *args) -> Pending:
+        """Send ``fn(*args)`` to the helper; ``fn`` must be a module-level function and ``args``
+        picklable (they travel by pickle: the helper was forked before they existed). Without a
+        helper, or if sending fails, ``.result()`` computes it here."""
+        if self._pool is None:
+            return Pending(fn, args, {})
+        try:
+            future = self._pool.submit(_call, fn, args)
+        except Exception:
+            return Pending(fn, args, {})
+        return Pending(fn, args, {}, self._pool, future, owns_pool=False)
+
+    def close(self) -> None:
+        """Stop the helper (at once: whatever it still does is not wanted)."""
+        if self._pool is not None:
+            _stop(self._pool)
+            self._pool = None
+
+
+def standby(warm: Callable[[], None]) -> Standby:
+    """Fork a helper process now that runs ``warm()`` (e.g. imports a library) while this process
+    goes on, and later takes tasks by value (:meth:`Standby.start`); a task's arguments must be
+    picklable, unlike :func:`start`'s. Where no helper can run, tasks run here. Call
+    :meth:`Standby.close` when done; the helper never outlives its use."""
+    return Standby(warm)

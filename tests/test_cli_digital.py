@@ -142,3 +142,12 @@ def test_structure_pid_block_is_said_and_judged(run_cli):
     assert 16 / 2**16 <= block["firmware"]["stall_error"] <= 1.06 * 16 / 2**16
     r = run_cli("digital", "1/((s+1)*(s+2)*(s+3))", "--fs", "20Hz", "--structure", "pid_block")
     assert r.code == 2 and "pid_block needs a PID" in r.err and len(r.err.strip().splitlines()) == 1
+
+
+@pytest.mark.parametrize("plant", ["1/(z+1)", "0.5/(z - 0.5)"])
+def test_a_plant_in_z_is_refused_as_such(run_cli, plant):
+    """Before: `--plant "1/(z+1)"` was told to give a sample rate, as if a plant in z could be
+    right. A plant is a continuous process: the one-line error says to write it in s (exit 2)."""
+    r = run_cli("digital", "2*(1+1/(30s))", "--fs", "10Hz", "--plant", plant)
+    assert r.code == 2
+    assert "--plant" in r.err and "write its model in s" in r.err and "sample rate" not in r.err

@@ -350,3 +350,38 @@ def test_results_json_keys_from_labels_and_names():
         {"key": "zero_1_hz", "label": "zero 1 (Hz)", "value": -0.5},
     ]
     assert out["parts"] == [{"name": "R1", "value": 1e3, "series": "E96"}, {"name": "X1.C2", "value": 1e-9}]
+
+
+def test_a_case_made_in_python_writes_its_report_under_its_own_name(tmp_path, monkeypatch):
+    """Before: `case_from_dict(..., name="mixer")` then `write_report(results, "mixer")` was
+    refused, "the report folder contains the input 'mixer'": the made-up path of a case with no
+    file was protected as if it were the case file. A path with no file behind it has nothing to
+    lose; a real case file inside the folder is still refused."""
+    import convert
+
+    monkeypatch.chdir(tmp_path)
+    case = convert.case_from_dict(
+        {
+            "source": {"expression": "2*(1+1/(30s))"},
+            "target": {"digital": {"fs": "10 Hz", "methods": ["tustin"]}},
+            "plant": {"model": "1/(s*(20s+1))"},
+            "criteria": {"band": ["1 mHz", "0.5 Hz"]},
+        },
+        name="mixer",
+    )
+    results = convert.run_pipeline(case).results
+    folder = convert.write_report(results, "mixer")
+    assert (folder / "report.md").is_file()
+    (tmp_path / "inside").mkdir()
+    (tmp_path / "inside" / "mixer.toml").write_text("")
+    case_in = convert.case_from_dict(
+        {
+            "source": {"expression": "2*(1+1/(30s))"},
+            "target": {"digital": {"fs": "10 Hz", "methods": ["tustin"]}},
+            "criteria": {"band": ["1 mHz", "0.5 Hz"]},
+        },
+        name="mixer.toml",
+        base_dir="inside",
+    )
+    with pytest.raises(convert.InputError, match="contains the input"):
+        convert.write_report(convert.run_pipeline(case_in).results, "inside", force=True)

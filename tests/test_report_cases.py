@@ -434,16 +434,22 @@ def test_markdown_figures_are_relative_and_exist(reports, name):
 
 
 # ----------------------------------------------------------------------------- never half-written
-def test_failure_while_drawing_leaves_no_folder(evaluated, tmp_path, monkeypatch):
-    """A figure that raises mid-run leaves neither the report folder nor a temporary one, and an
-    existing folder replaced with force survives untouched."""
+@pytest.mark.parametrize("where", ["data", "drawing"])
+def test_failure_while_drawing_leaves_no_folder(evaluated, tmp_path, monkeypatch, where):
+    """A figure that raises mid-run (computing its data, or drawing it) leaves neither the
+    report folder nor a temporary one, and an existing folder replaced with force survives
+    untouched."""
+    import convert.report.canvas as canvas
     import convert.report.figures as figs
     from convert.report import write_report
 
-    def broken(results):
+    def broken(_):
         raise RuntimeError("drawing failed")
 
-    monkeypatch.setattr(figs, "loop_responses", broken)
+    if where == "data":
+        monkeypatch.setattr(figs, "loop_data", broken)
+    else:
+        monkeypatch.setattr(canvas, "draw_loop", broken)
     res = evaluated["pi_card_to_firmware"]
     out = tmp_path / "new"
     with pytest.raises(RuntimeError):
@@ -501,3 +507,23 @@ def test_existing_folder_refused_before_any_work(tmp_path, capsys, monkeypatch):
     code, _ = _main("report", str(CASES / "pi_card_to_firmware.toml"), "--out", str(tmp_path / "r"))
     assert code == 2 and "--force" in capsys.readouterr().err
     assert (tmp_path / "r" / "mine.txt").read_text() == "x"
+
+
+@pytest.mark.parametrize("name", ["firmware_pid_to_opamp", "evidence_temp_card"])
+def test_painter_draws_the_same_bytes(evaluated, name):
+    """The figures drawn by the early-started drawing process (Painter: data sent by pickle, drawn
+    on two cores) are byte for byte those drawn here in one process, and so are the other files
+    (common practice: where the work runs must not change a result)."""
+    from convert import sidework
+    from convert.report import build_report
+    from convert.report.canvas import Painter
+
+    res = evaluated[name]
+    with Painter() as painter:
+        drawn_aside = build_report(res, painter)
+    with sidework.alone():
+        drawn_here = build_report(res)
+    assert drawn_aside.keys() == drawn_here.keys()
+    assert any(k.startswith("figures/") for k in drawn_here)
+    for key in drawn_here:
+        assert drawn_aside[key] == drawn_here[key], key

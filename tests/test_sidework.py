@@ -58,3 +58,65 @@ def test_discard_then_result_computes_here():
     pending = sidework.start(_pid)
     pending.discard()
     assert pending.result() == os.getpid()
+
+
+# ----------------------------------------------------------------------------- a helper forked early
+def _square(x):
+    return x * x
+
+
+def _warm_nothing():
+    pass
+
+
+def test_standby_runs_a_task_sent_by_value():
+    """A standby helper is forked before its task exists; the task reaches it by pickle and gives
+    the value computed here, in another process when helpers are usable."""
+    helper = sidework.standby(_warm_nothing)
+    try:
+        assert helper.start(_square, 7).result() == 49
+        pid = helper.start(os.getpid).result()
+        assert (pid != os.getpid()) == sidework.helpers_usable()
+    finally:
+        helper.close()
+
+
+def test_standby_falls_back_here():
+    """An argument that cannot be pickled, an error in the task, or a closed helper: computed
+    here, and an error surfaces as without a helper."""
+    helper = sidework.standby(_warm_nothing)
+    try:
+        assert helper.start(_square, np.float64(3.0)).result() == 9.0
+        assert helper.start(lambda: 5).result() == 5  # a lambda cannot travel by pickle
+        with pytest.raises(ZeroDivisionError):
+            helper.start(divmod, 1, 0).result()
+    finally:
+        helper.close()
+    assert helper.start(os.getpid).result() == os.getpid()
+
+
+def test_standby_leaves_no_process_behind():
+    """close() stops the helper even while it is still warming up (common practice: a command
+    must not leave processes running after it exits)."""
+    import multiprocessing
+    import time
+
+    helper = sidework.standby(_sleep_long)
+    helper.close()
+    deadline = time.monotonic() + 10
+    while multiprocessing.active_children() and time.monotonic() < deadline:
+        time.sleep(0.05)
+    assert multiprocessing.active_children() == []
+
+
+def _sleep_long():
+    import time
+
+    time.sleep(30)
+
+
+def test_alone_has_no_standby_helper():
+    with sidework.alone():
+        helper = sidework.standby(_warm_nothing)
+        assert helper.start(os.getpid).result() == os.getpid()
+        helper.close()

@@ -77,6 +77,14 @@ def _positive_int(text: str) -> int:
 
 
 def run(args, console) -> int:
+    from convert.report.canvas import Painter
+
+    # the drawing process starts now: it imports matplotlib while this one reads and computes
+    with Painter() as painter:
+        return _run(args, console, painter)
+
+
+def _run(args, console, painter) -> int:
     from pathlib import Path
 
     from convert.case import load_case
@@ -112,7 +120,7 @@ def run(args, console) -> int:
         results = run_pipeline(case, draws=args.draws, progress=tick).results
         progress.update(task, description="writing the report")
         try:
-            folder = write_report(results, out_dir, force=args.force)
+            folder = write_report(results, out_dir, force=args.force, painter=painter)
         except OSError as exc:
             from convert.errors import InputError
 

@@ -4,9 +4,11 @@ log replays. Figures are drawn from :class:`convert.evidence.casework.CaseEviden
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import numpy as np
 
-from convert.report.figures import COLORS, _figure, _png
+from convert.report import canvas
 from convert.values import format_value
 from convert.evidence.fit import value_text
 
@@ -21,87 +23,49 @@ CAPTIONS = {
 }
 
 
-def evidence_figures(results) -> dict[str, bytes]:
+def evidence_jobs(results) -> list[tuple[str, Callable, dict, float]]:
+    """The Evidence section's figures as ``(name, draw function, data, weight)`` jobs (see
+    :func:`convert.report.figures.figure_jobs`)."""
     ev = getattr(results, "evidence", None)
     if ev is None:
-        return {}
-    out = {}
+        return []
+    out = []
     if ev.sweep is not None:
-        out[SWEEP_FIGURE] = _sweep_figure(results, ev)
+        out.append((SWEEP_FIGURE, canvas.draw_sweep, _sweep_data(results, ev), 2.2))
     if ev.log is not None and ev.log.sketch["t"].size:
-        out[LOG_FIGURE] = _log_figure(ev)
+        out.append((LOG_FIGURE, canvas.draw_log, _log_data(ev), 1.0))
     return out
 
 
-def _sweep_figure(results, ev) -> bytes:
+def _sweep_data(results, ev) -> dict:
     sw, chk = ev.sweep.sweep, ev.sweep.check
-    f = sw.f_hz
-    fig, ax = _figure(8.0, 9.0, 4, 1, sharex=True)
-    ax = ax[:, 0]
-    for i, (name, resp) in enumerate(ev.overlays.items()):
-        color = COLORS[i % len(COLORS)]
-        ax[0].semilogx(
-            f, 20 * np.log10(np.abs(resp)), "-" if i == 0 else "--", color=color, lw=1.6 if i == 0 else 1.1, label=name
-        )
-        ax[1].semilogx(
-            f,
-            np.degrees(np.unwrap(np.angle(np.nan_to_num(resp, nan=1.0)))) * np.where(np.isnan(resp), np.nan, 1),
-            "-" if i == 0 else "--",
-            color=color,
-            lw=1.6 if i == 0 else 1.1,
-        )
-    meas = sw.response
-    trusted = chk.trusted
-    for mask, color, label in ((trusted, "#000000", f"measured ({ev.sweep_of})"), (~trusted, "#aab7b8", "not trusted")):
-        if mask.any():
-            ax[0].plot(f[mask], 20 * np.log10(np.abs(meas[mask])), "o", ms=3.5, color=color, label=label)
-            ax[1].plot(f[mask], np.degrees(np.unwrap(np.angle(meas)))[mask], "o", ms=3.5, color=color)
-            ax[2].errorbar(
-                f[mask], chk.gain_error_db[mask], yerr=2 * chk.noise_db[mask], fmt="o", ms=3, color=color, lw=0.8
-            )
-            ax[3].errorbar(
-                f[mask], chk.phase_error_deg[mask], yerr=2 * chk.noise_deg[mask], fmt="o", ms=3, color=color, lw=0.8
-            )
     crit = results.case.criteria
-    lo, hi = crit.band_hz
-    for a in ax:
-        a.axvspan(lo, hi, color="#d6eaf8", alpha=0.5, lw=0)
-        a.grid(True, which="both", alpha=0.3)
-    for a, lim in ((ax[2], crit.max_gain_error_db), (ax[3], crit.max_phase_error_deg)):
-        a.axhline(0, color="#555", lw=0.8)
-        if lim is not None:
-            for s in (-1, 1):
-                a.axhline(s * lim, color="#555", ls=":", lw=1)
-    ax[0].set_ylabel("gain (dB)")
-    ax[1].set_ylabel("phase (deg)")
-    ax[2].set_ylabel("measured − model\ngain (dB)")
-    ax[3].set_ylabel("measured − model\nphase (deg)")
-    ax[3].set_xlabel("frequency (Hz)")
-    ax[0].legend(fontsize=7, loc="best")
-    ax[0].set_title(f"bench sweep {sw.path.name} against the model of the {ev.sweep_of}")
-    return _png(fig)
+    return {
+        "f_hz": sw.f_hz,
+        "overlays": list(ev.overlays.items()),
+        "measured": sw.response,
+        "measured_label": f"measured ({ev.sweep_of})",
+        "trusted": chk.trusted,
+        "gain_error_db": chk.gain_error_db,
+        "noise_db": chk.noise_db,
+        "phase_error_deg": chk.phase_error_deg,
+        "noise_deg": chk.noise_deg,
+        "band_hz": crit.band_hz,
+        "max_gain_error_db": crit.max_gain_error_db,
+        "max_phase_error_deg": crit.max_phase_error_deg,
+        "title": f"bench sweep {sw.path.name} against the model of the {ev.sweep_of}",
+    }
 
 
-def _log_figure(ev) -> bytes:
+def _log_data(ev) -> dict:
     sk = ev.log.sketch
-    t, out = sk["t"], sk["output"]
-    fig, ax = _figure(8.0, 6.5, 2, 1, sharex=True)
-    ax = ax[:, 0]
-    ax[0].plot(t, out, "-", color="#000000", lw=1.4, label="logged output")
     offsets = {r.name: (r.figures.get("offset") or 0.0) for r in ev.log.replays}
-    for i, (name, y) in enumerate(sk["replayed"].items()):
-        color = COLORS[i % len(COLORS)]
-        off = offsets.get(name, 0.0)
-        ax[0].plot(t, y + off, "--", color=color, lw=1.0, label=f"replayed: {name} + its offset {off:.4g}")
-        ax[1].plot(t, out - y - off, "-", color=color, lw=0.9, label=name)
-    for a in ax:
-        a.grid(True, alpha=0.3)
-    ax[0].set_ylabel("controller output")
-    ax[1].set_ylabel("logged − replayed\n− offset")
-    ax[1].set_xlabel("time (s)")
-    ax[0].legend(fontsize=7, loc="best")
-    ax[0].set_title(f"plant log {ev.log.path.name} ({ev.log.rows:,} rows)")
-    return _png(fig)
+    return {
+        "t": sk["t"],
+        "output": sk["output"],
+        "replayed": [(name, y, offsets.get(name, 0.0)) for name, y in sk["replayed"].items()],
+        "title": f"plant log {ev.log.path.name} ({ev.log.rows:,} rows)",
+    }
 
 
 def evidence_tables(results) -> list:

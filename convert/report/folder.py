@@ -95,6 +95,8 @@ def check_destination(out_dir: Path, *, force: bool, protected: list[Path]) -> D
         note = f"--out {str(out_dir)!r} is a link; the report goes to {str(target)!r}"
     out = out_dir.resolve()
     for p in protected:
+        if not Path(p).exists():  # a name with no file behind it (a case made in Python): nothing to lose
+            continue
         rp = Path(p).resolve()
         if rp == out or out in rp.parents:
             raise InputError(
