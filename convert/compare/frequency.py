@@ -12,6 +12,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
+from convert.compare.refine import maximize_in_brackets
 from convert.controller import Controller
 from convert.errors import InputError
 
@@ -423,11 +424,11 @@ def refine_maximum(
 ) -> tuple[float, float]:
     """The maximum of a continuous nonnegative function of frequency over [f_hz[0], f_hz[-1]]
     (Hz), independent of the grid: every local maximum of ``values`` (= ``value_at(f_hz)``, the
-    ``most`` largest) and the grid interval around each frequency in ``look_at_hz`` is refined by a
-    bounded scalar search (in log f) on ``value_at`` to :data:`REFINE_REL` relative in frequency.
-    Returns ``(maximum, at_hz)``."""
-    from scipy.optimize import minimize_scalar
-
+    ``most`` largest) and the grid interval around each frequency in ``look_at_hz`` is refined on
+    ``value_at`` (a vectorized function of frequency in Hz), all brackets at once, by
+    :func:`convert.compare.refine.maximize_in_brackets`: each local maximum is located to
+    :data:`REFINE_REL`/2 relative in frequency (the tolerance the bounded scalar search used here
+    before), and the maximum returned is never below the grid's. Returns ``(maximum, at_hz)``."""
     f = np.asarray(f_hz, dtype=float)
     v = np.nan_to_num(np.asarray(values, dtype=float), nan=np.inf)
     best_i = int(np.argmax(v))
@@ -440,20 +441,13 @@ def refine_maximum(
     for fl in look_at_hz:
         j = int(np.searchsorted(f, fl))
         brackets.append((max(j - 1, 0), min(j, f.size - 1)))
-    lf = np.log(f)
-    tol = REFINE_REL / 2
-
-    def neg(x):
-        y = float(np.asarray(value_at(np.array([np.exp(x)])), dtype=float).reshape(-1)[0])
-        return -y if np.isfinite(y) else -np.inf
-
-    for i0, i1 in brackets:
-        if i1 <= i0:
-            continue
-        r = minimize_scalar(neg, bounds=(lf[i0], lf[i1]), method="bounded", options={"xatol": tol})
-        y = -float(r.fun)
-        if y > best:
-            best, at = y, float(np.exp(r.x))
+    brackets = np.array([b for b in brackets if b[1] > b[0]], dtype=np.intp).reshape(-1, 2)
+    if brackets.size == 0:
+        return best, at
+    found, found_at = maximize_in_brackets(value_at, f[brackets[:, 0]], f[brackets[:, 1]], rel_tol=REFINE_REL / 2)
+    k = int(np.argmax(found))
+    if found[k] > best:
+        best, at = float(found[k]), float(found_at[k])
     return best, at
 
 
