@@ -491,7 +491,8 @@ def refine_maximum(
     ``value_at`` (a vectorized function of frequency in Hz), all brackets at once, by
     :func:`convert.compare.refine.maximize_in_brackets`: each local maximum is located to
     :data:`REFINE_REL`/2 relative in frequency (the tolerance the bounded scalar search used here
-    before), and the maximum returned is never below the grid's. Returns ``(maximum, at_hz)``."""
+    before) or as closely as the rounding of the values allows, and the maximum returned is never
+    below the grid's. Returns ``(maximum, at_hz)``."""
     f = np.asarray(f_hz, dtype=float)
     v = np.nan_to_num(np.asarray(values, dtype=float), nan=np.inf)
     best_i = int(np.argmax(v))

@@ -24,14 +24,17 @@ _MAX_ROUNDS = 60
 def maximize_in_brackets(value_at, lo_hz, hi_hz, *, rel_tol: float, points: int = 16) -> tuple[np.ndarray, np.ndarray]:
     """The largest value of ``value_at`` inside each bracket [lo_hz[k], hi_hz[k]] (Hz).
 
-    Each round samples every bracket at ``points + 2`` frequencies equally spaced in ln f (the
-    ends included) in one call, and keeps the two sample intervals beside the largest sample: a
+    Each round samples every bracket at frequencies equally spaced in ln f (the ends included) in
+    one call, ``4·points + 2`` of them in the first round (to see structure inside the bracket)
+    and ``points + 2`` after, and keeps the two sample intervals beside the largest sample: a
     bracket shrinks by (points + 1)/2 per round until it is at most ``rel_tol`` wide in ln f, then
     a parabola through the best sample and its two neighbours gives one more candidate.
 
     Guarantee: a maximum of a function that is unimodal on the bracket (at the scale of the first
     round's samples) is located to ``rel_tol`` relative in frequency, as a bounded Brent search
-    with ``xatol = rel_tol`` locates it; the value returned is the largest value evaluated, so it
+    with ``xatol = rel_tol`` locates it, or as closely as the rounding of the values allows (near
+    the top of a smooth peak they differ by less than their rounding within about √ε·(its width)
+    of it; the value found is then the peak's to rounding); the value returned is the largest value evaluated, so it
     is never below the value at either end of the bracket. A value that is not finite (NaN, ±∞)
     counts as +∞: an error that cannot be evaluated is never read as small.
 
@@ -44,7 +47,7 @@ def maximize_in_brackets(value_at, lo_hz, hi_hz, *, rel_tol: float, points: int 
     best_u = 0.5 * (lo + hi)
     if m == 0:
         return best, np.exp(best_u)
-    t = np.linspace(0.0, 1.0, points + 2)
+    t = np.linspace(0.0, 1.0, 4 * points + 2)  # the first round looks closer: structure inside the bracket
     rows = np.arange(m)
     for _ in range(_MAX_ROUNDS):
         u = lo[:, None] + (hi - lo)[:, None] * t[None, :]
@@ -56,9 +59,10 @@ def maximize_in_brackets(value_at, lo_hz, hi_hz, *, rel_tol: float, points: int 
         best_u = np.where(better, u[rows, j], best_u)
         if np.all((hi - lo) <= rel_tol) or np.all(np.isinf(best)):
             break
-        lo, hi = u[rows, np.maximum(j - 1, 0)], u[rows, np.minimum(j + 1, points + 1)]
+        lo, hi = u[rows, np.maximum(j - 1, 0)], u[rows, np.minimum(j + 1, t.size - 1)]
+        t = np.linspace(0.0, 1.0, points + 2)
     # the parabola through the best sample of the last round and its neighbours
-    inner = (j > 0) & (j < points + 1) & np.isfinite(yj)
+    inner = (j > 0) & (j < t.size - 1) & np.isfinite(yj)
     if inner.any():
         r, jj = rows[inner], j[inner]
         y0, y1, y2 = y[r, jj - 1], y[r, jj], y[r, jj + 1]
