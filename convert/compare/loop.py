@@ -274,7 +274,8 @@ def loop_margins(
     crossings and the sensitivity peak; each is then refined inside its grid interval by a search
     in log f that samples many frequencies per call (:mod:`convert.compare.refine`): the root of
     log|L| or of the phase's distance to −180° − k·360° to 1e-13 in ln f (scipy ``brentq``'s
-    xtol 1e-13, rtol 1e-14), the maximum of 1/|1 + L| to 1e-12 in ln f. L(0) real and negative (a plant unstable on its own) is a phase
+    xtol 1e-13, rtol 1e-14), the maximum of 1/|1 + L| to 1e-12 in ln f (or as closely as the rounding of
+    |1 + L| allows). L(0) real and negative (a plant unstable on its own) is a phase
     crossing at zero frequency, with gain margin 1/|L(0)| (python-control's rule)."""
     f = margin_grid(controller, plant) if f_hz is None else np.asarray(f_hz, dtype=float)
     rational, delay_total = _rational(controller, plant, f, delay_s, hold, dead_time_s)
