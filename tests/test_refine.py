@@ -412,6 +412,6 @@ def test_the_number_of_samples_per_round_does_not_move_the_result(points):
             options={"xatol": 1e-12},
         )
         assert found[0] == pytest.approx(max(-ref.fun, v[i]), rel=1e-9), name
-        base, base_at = maximize_in_brackets(value_at, [lo], [hi], rel_tol=1e-7)
+        base, _ = maximize_in_brackets(value_at, [lo], [hi], rel_tol=1e-7)
         assert found[0] == pytest.approx(base[0], rel=1e-9), name
     assert checked >= len(CASES) - 3
