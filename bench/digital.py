@@ -28,6 +28,8 @@ def measure(quick: bool = False) -> list[Figure]:
 
     from convert.controller import Controller, from_expression
     from convert.digital import METHODS, survey_methods
+    from convert.digital.forward import realized
+    from convert.digital.realization import _check_grid
     from convert.digital.roots import _root_form_of
 
     c = from_expression(EXPR)
@@ -35,8 +37,10 @@ def measure(quick: bool = False) -> list[Figure]:
     names = ["zoh", "foh", "tustin", "matched", "impulse", "euler", "backward_diff"]
 
     def ours():
-        # a fresh controller object and an empty root cache each time: no work carried between repeats
-        _root_form_of.cache_clear()
+        # a fresh controller object and empty caches (roots, realization, check grid) each time:
+        # no work carried between repeats
+        for cache in (_root_form_of, realized, _check_grid):
+            cache.cache_clear()
         survey_methods(Controller.analog(c.num, c.den), FS, METHODS)
 
     def theirs():

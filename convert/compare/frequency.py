@@ -12,6 +12,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
+from convert.compare.refine import maximize_in_brackets
 from convert.controller import Controller
 from convert.errors import InputError
 
@@ -159,17 +160,17 @@ def compare_responses(
     cand = np.asarray(candidate, dtype=complex)
     if ref.shape != f.shape or cand.shape != f.shape:
         raise ValueError("reference, candidate and f_hz must have the same shape")
+    if evaluate is None and forms is None:
+        return compare_on_grid(ref, cand[None, :], f, gain_limit_db=gain_limit_db, phase_limit_deg=phase_limit_deg)[0]
     unbounded, look = axis_roots(*(forms or (None, None)), float(f[0]), float(f[-1]))
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = cand / ref
         gain_err = 20 * np.log10(np.abs(ratio))
     phase_err = phase_error_across(ratio, f, look)
     look = [r.f_hz for r in look]
-    abs_gain = np.abs(np.nan_to_num(gain_err, nan=np.inf, posinf=np.inf, neginf=np.inf))
-    abs_phase = np.abs(np.nan_to_num(phase_err, nan=180.0))
+    abs_gain, abs_phase = _absolute_errors(gain_err, phase_err)
     peak = grid_free_maxima(evaluate, f, gain_err, phase_err, unbounded, look)
-    exceed = np.flatnonzero((abs_gain > gain_limit_db) | (abs_phase > phase_limit_deg))
-    limit = float(f[exceed[0]]) if exceed.size else None
+    limit = _agreement_limits(f, abs_gain, abs_phase, gain_limit_db, phase_limit_deg)[0]
     if unbounded and (limit is None or limit > unbounded[0].f_hz):
         limit = unbounded[0].f_hz
     return ResponseError(
@@ -185,6 +186,69 @@ def compare_responses(
         agreement_limit_hz=limit,
         unbounded_note=peak["unbounded_note"],
     )
+
+
+def compare_on_grid(
+    reference: np.ndarray,
+    candidates: np.ndarray,
+    f_hz: Sequence[float],
+    *,
+    gain_limit_db: float = 1.0,
+    phase_limit_deg: float = 5.0,
+) -> list[ResponseError]:
+    """:func:`compare_responses` of each row of ``candidates`` (2-D complex, rows × ``f_hz``)
+    against one ``reference`` (complex over ``f_hz``) on the grid alone, all rows in one pass:
+    no continuous responses to refine on and no forms to look for roots on the axis, so each
+    maximum is the grid's largest |error| (the first on a tie) and the phase error is unwrapped
+    along frequency (:func:`unwrapped_phase_error_deg`). What ``compare_responses`` returns when
+    given neither ``evaluate`` nor ``forms``."""
+    f = np.asarray(f_hz, dtype=float)
+    ref = np.asarray(reference, dtype=complex)
+    cand = np.asarray(candidates, dtype=complex)
+    if ref.shape != f.shape or cand.ndim != 2 or cand.shape[1] != f.size:
+        raise ValueError("reference and f_hz must have the same shape, candidates one row per response over f_hz")
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = cand / ref
+        gain_err = 20 * np.log10(np.abs(ratio))
+    phase_err = unwrapped_phase_error_deg(ratio)
+    abs_gain, abs_phase = _absolute_errors(gain_err, phase_err)
+    rows = np.arange(cand.shape[0])
+    ig, ip = np.argmax(abs_gain, axis=-1), np.argmax(abs_phase, axis=-1)
+    gmax, pmax = abs_gain[rows, ig], abs_phase[rows, ip]
+    limits = _agreement_limits(f, abs_gain, abs_phase, gain_limit_db, phase_limit_deg)
+    return [
+        ResponseError(
+            f_hz=f,
+            gain_error_db=gain_err[k],
+            phase_error_deg=phase_err[k],
+            max_gain_error_db=float(gmax[k]),
+            max_gain_error_at_hz=float(f[ig[k]]),
+            max_phase_error_deg=float(pmax[k]),
+            max_phase_error_at_hz=float(f[ip[k]]),
+            gain_limit_db=gain_limit_db,
+            phase_limit_deg=phase_limit_deg,
+            agreement_limit_hz=limits[k],
+        )
+        for k in rows
+    ]
+
+
+def _absolute_errors(gain_db: np.ndarray, phase_deg: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """|gain error| (dB) and |phase error| (deg) as the maxima and limits read them: a gain error
+    that is not finite counts as +∞, a phase error that cannot be evaluated as 180°."""
+    abs_gain = np.abs(np.nan_to_num(gain_db, nan=np.inf, posinf=np.inf, neginf=np.inf))
+    abs_phase = np.abs(np.nan_to_num(phase_deg, nan=180.0))
+    return abs_gain, abs_phase
+
+
+def _agreement_limits(
+    f: np.ndarray, abs_gain: np.ndarray, abs_phase: np.ndarray, gain_limit_db: float, phase_limit_deg: float
+) -> list[float | None]:
+    """Per row (the last axis is frequency): the first grid frequency (Hz) where either error
+    exceeds its limit, or None where the row agrees over the whole grid."""
+    exceed = np.atleast_2d((abs_gain > gain_limit_db) | (abs_phase > phase_limit_deg))
+    first = np.argmax(exceed, axis=-1)
+    return [float(f[i]) if exceed[k, i] else None for k, i in enumerate(first)]
 
 
 def compare_controllers(
@@ -423,11 +487,12 @@ def refine_maximum(
 ) -> tuple[float, float]:
     """The maximum of a continuous nonnegative function of frequency over [f_hz[0], f_hz[-1]]
     (Hz), independent of the grid: every local maximum of ``values`` (= ``value_at(f_hz)``, the
-    ``most`` largest) and the grid interval around each frequency in ``look_at_hz`` is refined by a
-    bounded scalar search (in log f) on ``value_at`` to :data:`REFINE_REL` relative in frequency.
-    Returns ``(maximum, at_hz)``."""
-    from scipy.optimize import minimize_scalar
-
+    ``most`` largest) and the grid interval around each frequency in ``look_at_hz`` is refined on
+    ``value_at`` (a vectorized function of frequency in Hz), all brackets at once, by
+    :func:`convert.compare.refine.maximize_in_brackets`: each local maximum is located to
+    :data:`REFINE_REL`/2 relative in frequency (the tolerance the bounded scalar search used here
+    before) or as closely as the rounding of the values allows, and the maximum returned is never
+    below the grid's. Returns ``(maximum, at_hz)``."""
     f = np.asarray(f_hz, dtype=float)
     v = np.nan_to_num(np.asarray(values, dtype=float), nan=np.inf)
     best_i = int(np.argmax(v))
@@ -440,20 +505,13 @@ def refine_maximum(
     for fl in look_at_hz:
         j = int(np.searchsorted(f, fl))
         brackets.append((max(j - 1, 0), min(j, f.size - 1)))
-    lf = np.log(f)
-    tol = REFINE_REL / 2
-
-    def neg(x):
-        y = float(np.asarray(value_at(np.array([np.exp(x)])), dtype=float).reshape(-1)[0])
-        return -y if np.isfinite(y) else -np.inf
-
-    for i0, i1 in brackets:
-        if i1 <= i0:
-            continue
-        r = minimize_scalar(neg, bounds=(lf[i0], lf[i1]), method="bounded", options={"xatol": tol})
-        y = -float(r.fun)
-        if y > best:
-            best, at = y, float(np.exp(r.x))
+    brackets = np.array([b for b in brackets if b[1] > b[0]], dtype=np.intp).reshape(-1, 2)
+    if brackets.size == 0:
+        return best, at
+    found, found_at = maximize_in_brackets(value_at, f[brackets[:, 0]], f[brackets[:, 1]], rel_tol=REFINE_REL / 2)
+    k = int(np.argmax(found))
+    if found[k] > best:
+        best, at = float(found[k]), float(found_at[k])
     return best, at
 
 
@@ -509,8 +567,7 @@ def grid_free_maxima(
             + " (the ratio of the two forms goes to zero or infinity there, on any grid)"
         )
         return {"gain": (np.inf, first.f_hz), "phase": (np.inf, first.f_hz), "unbounded_note": note}
-    g_abs = np.abs(np.nan_to_num(gain_db, nan=np.inf, posinf=np.inf, neginf=np.inf))
-    p_abs = np.abs(np.nan_to_num(phase_deg, nan=180.0))
+    g_abs, p_abs = _absolute_errors(gain_db, phase_deg)
     if evaluate is None:
         ig, ip = int(np.argmax(g_abs)), int(np.argmax(p_abs))
         return {

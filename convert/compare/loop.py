@@ -45,6 +45,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from convert.compare.refine import maximize_in_brackets, root_in_bracket
 from convert.controller import Controller
 from convert.errors import InputError
 from convert.digital.statespace import foh_matrices, realize, small_dense, zoh_matrices
@@ -270,9 +271,11 @@ def loop_margins(
 
     A digital ``controller`` is seen through its zero-order hold and ``delay_s`` computation
     delay. ``f_hz`` overrides the automatic dense grid (:func:`margin_grid`). The grid finds the
-    crossings and the sensitivity peak; each is then refined by a scalar search (Brent's method on
-    log f: root of log|L| or of the phase's distance to −180° − k·360°; minimum of |1 + L|) to
-    1e-6 relative or better. L(0) real and negative (a plant unstable on its own) is a phase
+    crossings and the sensitivity peak; each is then refined inside its grid interval by a search
+    in log f that samples many frequencies per call (:mod:`convert.compare.refine`): the root of
+    log|L| or of the phase's distance to −180° − k·360° to 1e-13 in ln f (scipy ``brentq``'s
+    xtol 1e-13, rtol 1e-14), the maximum of 1/|1 + L| to 1e-12 in ln f (or as closely as the rounding of
+    |1 + L| allows). L(0) real and negative (a plant unstable on its own) is a phase
     crossing at zero frequency, with gain margin 1/|L(0)| (python-control's rule)."""
     f = margin_grid(controller, plant) if f_hz is None else np.asarray(f_hz, dtype=float)
     rational, delay_total = _rational(controller, plant, f, delay_s, hold, dead_time_s)
@@ -282,31 +285,32 @@ def loop_margins(
     if f.size < 3:
         return grid
 
-    def lval(x: float) -> complex:
-        r, _ = _rational(controller, plant, np.array([x]), delay_s, hold, dead_time_s)
-        return complex(r[0]) * np.exp(-2j * np.pi * x * delay_total)
+    def lval(x: np.ndarray) -> np.ndarray:
+        """L at the frequencies ``x`` (Hz)."""
+        r, _ = _rational(controller, plant, np.asarray(x, dtype=float), delay_s, hold, dead_time_s)
+        return r * np.exp(-2j * np.pi * x * delay_total)
 
-    def phase_at(x: float, i: int) -> float:
-        """The phase of L at x (Hz), continued from the grid point i."""
-        r, _ = _rational(controller, plant, np.array([x]), delay_s, hold, dead_time_s)
-        return float(phase[i] + np.angle(r[0] / rational[i]) - 2 * np.pi * (x - f[i]) * delay_total)
+    def phase_at(x: np.ndarray, i: int) -> np.ndarray:
+        """The phase of L at ``x`` (Hz), continued from the grid point i."""
+        r, _ = _rational(controller, plant, np.asarray(x, dtype=float), delay_s, hold, dead_time_s)
+        return phase[i] + np.angle(r / rational[i]) - 2 * np.pi * (x - f[i]) * delay_total
 
     out = dict(grid.as_dict())
     with np.errstate(all="ignore"):
         if grid.crossover_hz is not None:
             i = _bracket(f, grid.crossover_hz)
-            fc = _brent(lambda x: math.log(abs(lval(x))), f[i], f[i + 1])
+            fc = root_in_bracket(lambda x: np.log(np.abs(lval(x))), f[i], f[i + 1])
             out["crossover_hz"] = fc
-            pm = math.degrees(phase_at(fc, i)) + 180.0
+            pm = math.degrees(float(phase_at(np.array([fc]), i)[0])) + 180.0
             out["phase_margin_deg"] = (pm + 180.0) % 360.0 - 180.0
         if grid.phase_crossover_hz is not None:
             i = _bracket(f, grid.phase_crossover_hz)
             psi0, psi1 = (phase[i] + np.pi) / (2 * np.pi), (phase[i + 1] + np.pi) / (2 * np.pi)
             level = max(math.floor(psi0), math.floor(psi1))
             target = 2 * np.pi * level - np.pi
-            fp = _brent(lambda x: phase_at(x, i) - target, f[i], f[i + 1])
+            fp = root_in_bracket(lambda x: phase_at(x, i) - target, f[i], f[i + 1])
             out["phase_crossover_hz"] = fp
-            out["gain_margin_db"] = -20.0 * math.log10(abs(lval(fp)))
+            out["gain_margin_db"] = -20.0 * math.log10(abs(complex(lval(np.array([fp]))[0])))
         l0 = _at_zero_frequency(controller, plant)
         if l0 is not None and l0 < 0:
             gm0 = -20.0 * math.log10(-l0)
@@ -319,22 +323,6 @@ def loop_margins(
 def _bracket(f: np.ndarray, x: float) -> int:
     """Index i with f[i] ≤ x ≤ f[i+1] (clipped to the grid)."""
     return int(min(max(np.searchsorted(f, x) - 1, 0), f.size - 2))
-
-
-def _brent(fun, a: float, b: float) -> float:
-    """Root of ``fun`` between a and b (Hz), searched in log f; the nearer end if the signs agree
-    (a crossing the grid located by interpolation that rounding moved off the bracket)."""
-    from scipy.optimize import brentq
-
-    la, lb = math.log(a), math.log(b)
-    ga, gb = fun(a), fun(b)
-    if not (math.isfinite(ga) and math.isfinite(gb)):
-        return math.sqrt(a * b)
-    if ga == 0:
-        return a
-    if gb == 0 or ga * gb > 0:
-        return b if abs(gb) < abs(ga) else a
-    return math.exp(brentq(lambda u: fun(math.exp(u)), la, lb, xtol=1e-13, rtol=1e-14))
 
 
 def _at_zero_frequency(controller: Controller, plant: Controller) -> float | None:
@@ -358,23 +346,20 @@ def _sensitivity_peak(
     lval,
     l0: float | None,
 ) -> dict:
-    """The sensitivity peak max |1/(1 + L)|: refined by Brent's bounded search around the grid's
-    largest value when it lies inside the grid; otherwise the edge it rises toward (zero
+    """The sensitivity peak max |1/(1 + L)|: refined around the grid's largest value when it lies
+    inside the grid (:func:`convert.compare.refine.maximize_in_brackets`, to 1e-12 relative in
+    frequency; never below the grid's value); otherwise the edge it rises toward (zero
     frequency, the Nyquist frequency of a digital controller, or f → ∞), said in words."""
-    from scipy.optimize import minimize_scalar
-
     loop = rational * np.exp(-2j * np.pi * f * delay_total)
     sens = 1.0 / np.abs(1.0 + loop)
     si = int(np.argmax(sens))
     if 0 < si < f.size - 1 and sens[si] <= max(sens[0], sens[-1]) * (1 + 1e-9):
         si = 0 if sens[0] >= sens[-1] else f.size - 1  # a plateau, not a peak: the edge decides
     if 0 < si < f.size - 1:
-        lo, hi = math.log(f[si - 1]), math.log(f[si + 1])
-        res = minimize_scalar(
-            lambda u: abs(1.0 + lval(math.exp(u))), bounds=(lo, hi), method="bounded", options={"xatol": 1e-12}
+        found, at = maximize_in_brackets(
+            lambda x: 1.0 / np.abs(1.0 + lval(x)), f[si - 1 : si], f[si + 1 : si + 2], rel_tol=1e-12, points=32
         )
-        fs_ = math.exp(res.x)
-        ms = 1.0 / abs(1.0 + lval(fs_))
+        fs_, ms = float(at[0]), float(found[0])
         if ms < sens[si]:  # the search never does worse than the grid
             fs_, ms = float(f[si]), float(sens[si])
         return {
@@ -393,7 +378,7 @@ def _sensitivity_peak(
         }
     if controller.is_digital:
         fn = 0.5 * controller.fs_hz
-        ms = 1.0 / abs(1.0 + lval(fn))
+        ms = 1.0 / abs(1.0 + complex(lval(np.array([fn]))[0]))
         return {
             "ms": ms,
             "sensitivity_peak_db": 20 * math.log10(ms),

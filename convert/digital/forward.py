@@ -9,6 +9,7 @@ of a rounded polynomial. scipy is imported inside the functions.
 from __future__ import annotations
 
 import math
+from functools import lru_cache
 
 import numpy as np
 
@@ -27,6 +28,17 @@ def _gain_from_point(digital_unit: RootForm, value_at_z0, z0: complex) -> float:
     return float(np.real(ratio))
 
 
+@lru_cache(maxsize=64)
+def realized(analog: Controller) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
+    """:func:`convert.digital.statespace.realize` of an analog controller, kept per (immutable)
+    controller so that the state-space methods (zoh, foh, impulse) of one survey build it once.
+    The arrays are read-only (shared between callers)."""
+    a, b, c, d = ss.realize(analog.num, analog.den)
+    for m in (a, b, c):
+        m.setflags(write=False)
+    return a, b, c, d
+
+
 def _state_space_result(poles_z, a, b, c, d, t) -> RootForm:
     """Zeros and gain of a sampled state-space system whose poles are already known."""
     n = a.shape[0]
@@ -41,7 +53,7 @@ def _state_space_result(poles_z, a, b, c, d, t) -> RootForm:
 
 def zoh(analog: Controller, src: RootForm, t: float) -> tuple[RootForm, list[str]]:
     """Zero-order hold equivalent (step invariant): Φ = e^{AT}, Γ = ∫₀ᵀ e^{Aσ}dσ·B."""
-    a, b, c, d = ss.realize(analog.num, analog.den)
+    a, b, c, d = realized(analog)
     n = a.shape[0]
     if n == 0:
         return RootForm((), (), d, t), []
@@ -53,7 +65,7 @@ def zoh(analog: Controller, src: RootForm, t: float) -> tuple[RootForm, list[str
 def foh(analog: Controller, src: RootForm, t: float) -> tuple[RootForm, list[str]]:
     """First-order (triangle) hold equivalent, the non-causal ramp interpolation between samples
     (the construction scipy.signal.cont2discrete calls 'foh')."""
-    a, b, c, d = ss.realize(analog.num, analog.den)
+    a, b, c, d = realized(analog)
     n = a.shape[0]
     if n == 0:
         return RootForm((), (), d, t), []
@@ -68,7 +80,7 @@ def impulse(analog: Controller, src: RootForm, t: float) -> tuple[RootForm, list
     """Impulse invariant: C_d(z) = T·Σ_{k≥0} h(kT)·z^-k + D, where h is the impulse response of
     the strictly proper part (h(0) included in full, as scipy does) and D, the direct term, passes
     unchanged."""
-    a, b, c, d = ss.realize(analog.num, analog.den)
+    a, b, c, d = realized(analog)
     n = a.shape[0]
     if n == 0:
         return RootForm((), (), d, t), []

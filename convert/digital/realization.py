@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 import numpy as np
 
@@ -291,8 +292,17 @@ def _stability_warnings(src: RootForm, roots: RootForm, fs: float, method: str) 
     return [text]
 
 
-def _accuracy_warnings(controller: Controller, digital: Controller, roots: RootForm, fs: float) -> list[str]:
+@lru_cache(maxsize=64)
+def _check_grid(controller: Controller, fs: float) -> np.ndarray:
+    """The grid (Hz) on which :func:`_accuracy_warnings` checks the direct form: the default band
+    at 20 points per decade, the same for every method at one rate (read-only, shared)."""
     f = comparison_grid(default_band_hz(controller, fs), fs, points_per_decade=20)
+    f.setflags(write=False)
+    return f
+
+
+def _accuracy_warnings(controller: Controller, digital: Controller, roots: RootForm, fs: float) -> list[str]:
+    f = _check_grid(controller, fs)
     exact = roots.frequency_response(f)
     poly = digital.frequency_response(f, via="poly")
     with np.errstate(divide="ignore", invalid="ignore"):

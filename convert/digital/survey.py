@@ -25,6 +25,7 @@ import numpy as np
 from convert.compare.frequency import (
     ResponseError,
     comparison_grid,
+    compare_on_grid,
     compare_responses,
     default_band_hz,
     hold_and_delay_factor,
@@ -32,6 +33,7 @@ from convert.compare.frequency import (
 from convert.controller import Controller
 from convert.digital.derivative_filter import add_derivative_filter, derivative_filter_time_constant
 from convert.digital.realization import METHODS, DigitalRealization, discretize
+from convert.digital.statespace import small_dense
 from convert.errors import InputError
 
 
@@ -97,6 +99,7 @@ def _reason(row: MethodRow, others: int) -> str:
     return f"{head}; max method error {e.max_gain_error_db:.3g} dB, {e.max_phase_error_deg:.3g} deg"
 
 
+@small_dense  # one BLAS-thread limit for the whole survey instead of one per method
 def survey_methods(
     controller: Controller,
     fs_hz: float,
@@ -133,9 +136,8 @@ def survey_methods(
     # the analog response and the hold-and-delay factor are the same for every method: once
     analog = controller.frequency_response(f)
     hold = hold_and_delay_factor(f, 1.0 / fs_hz, delay_s)
-    rows = []
-    for m in methods:
-        real = discretize(
+    reals = [
+        discretize(
             controller,
             fs_hz,
             m,
@@ -143,16 +145,18 @@ def survey_methods(
             match_at_hz=match_at_hz if m == "matched" else None,
             keep_delay=keep_delay if m == "matched" else False,
         )
-        digital = real.frequency_response(f)
-        rows.append(
-            MethodRow(
-                real,
-                compare_responses(analog, digital, f, gain_limit_db=gain_limit_db, phase_limit_deg=phase_limit_deg),
-                compare_responses(
-                    analog, digital * hold, f, gain_limit_db=gain_limit_db, phase_limit_deg=phase_limit_deg
-                ),
-            )
-        )
+        for m in methods
+    ]
+    digital = np.array([real.frequency_response(f) for real in reals])
+    # every method, alone and with the hold and delay, in one pass over the grid
+    errors = compare_on_grid(
+        analog,
+        np.concatenate([digital, digital * hold]),
+        f,
+        gain_limit_db=gain_limit_db,
+        phase_limit_deg=phase_limit_deg,
+    )
+    rows = [MethodRow(real, errors[k], errors[len(reals) + k]) for k, real in enumerate(reals)]
     candidates = [r for r in rows if not r.unstable]
     if candidates:
         best_row = min(candidates, key=_score)
