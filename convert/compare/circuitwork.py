@@ -219,11 +219,18 @@ def monte_carlo_rows(
     )
 
 
+#: Grid density (points per decade) of the stability count's walk along 1 + L. The count follows
+#: arg(1 + L) from point to point and refines any step above 60° (up to 32⁴ times finer), so its
+#: result does not rest on the density; 50 a decade keeps the steps of a draw's loop far below
+#: the refinement threshold except where 1 + L passes near 0, where the refinement takes over.
+COUNT_POINTS_PER_DECADE = 50
+
+
 def loop_count_of(controller, plant):
     """What the tolerance engine needs to count unstable draws of a circuit's loop with ``plant``
-    (the case's plant, dead time exact): the margin grid of the nominal loop, widened until |L|
-    is below 1/100 at the top."""
-    f = margin_grid(controller, plant.model)
+    (the case's plant, dead time exact): a log grid over the nominal loop's margin range
+    (:data:`COUNT_POINTS_PER_DECADE`), widened until |L| is below 1/100 at the top."""
+    f = margin_grid(controller, plant.model, points_per_decade=COUNT_POINTS_PER_DECADE)
     theta = plant.dead_time_s
 
     def p_of(fx):
@@ -235,7 +242,7 @@ def loop_count_of(controller, plant):
             top = abs(controller.frequency_response(f[-1:], via="zpk")[0] * p_of(f[-1:])[0])
             if not top > 0.01:
                 break
-            f = np.concatenate([f, f[-1] * np.logspace(0, 1, 401)[1:]])
+            f = np.concatenate([f, f[-1] * np.logspace(0, 1, COUNT_POINTS_PER_DECADE + 1)[1:]])
     return LoopCount(f, p_of)
 
 

@@ -54,6 +54,33 @@ def polyval_many(coeffs: list, s: np.ndarray) -> np.ndarray:
     return acc
 
 
+def polyval_jw(coeffs: list, w: np.ndarray) -> np.ndarray:
+    """P(jω) for real coefficient arrays (descending powers of s, each of shape (draws,) or a
+    scalar) at angular frequencies ``w`` (rad/s, shape (freqs,)) -> complex (draws, freqs).
+
+    Real arithmetic: P(jω) = E(−ω²) + jω·O(−ω²), E and O the even and odd parts, each by Horner
+    in x = −ω² in place (half the steps of a complex Horner in s, each a real multiply-add). For
+    an RC network's polynomials (real roots) the error is a few units of float64 rounding times
+    the degree, as for Horner in s."""
+    w = np.asarray(w, dtype=float)
+    cs = [np.asarray(c, dtype=float)[..., None] for c in coeffs]
+    shape = np.broadcast_shapes(w.shape, *[c.shape for c in cs])
+    x = -(w * w)
+    deg = len(cs) - 1
+    out = np.empty(shape, dtype=complex)
+    for part, first in ((out.real, deg), (out.imag, deg - 1)):
+        seq = cs[first::-2] if first >= 0 else []  # ascending powers of x
+        if not seq:
+            part[...] = 0.0
+            continue
+        part[...] = seq[-1]
+        for c in reversed(seq[:-1]):
+            part *= x
+            part += c
+    out.imag *= w
+    return out
+
+
 @dataclass(frozen=True)
 class TargetShape:
     """A target read in time-constant form: C(s) = k · s^-n · Π(1 + s/z_i) / Π(1 + s/p_j).
@@ -232,9 +259,9 @@ class Topology:
 
         ``path="setpoint"`` gives Cr(s) of a two-input stage.
         """
-        s = 2j * np.pi * np.asarray(f_hz, dtype=float)
+        w = 2 * np.pi * np.asarray(f_hz, dtype=float)
         num, den = self.setpoint_coefficients(parts) if path == "setpoint" else self.coefficients(parts)
-        return polyval_many(num, s) / polyval_many(den, s)
+        return polyval_jw(num, w) / polyval_jw(den, w)
 
     def controller_from_parts(self, parts: Mapping[str, object], *, name: str = "") -> Controller:
         """+C(s) as the stage realizes it (the positive form F(s)); the stage's sign is
@@ -341,6 +368,153 @@ def node_responses(
             nodes.update(_stage_block(block, nodes, p, s, open_loop_gain))
         i = j + 1
     return nodes
+
+
+# ------------------------------------------------------------- the circuit as polynomials in s
+# A rational function is (num, den), each a list of coefficients in ASCENDING powers of s, every
+# coefficient a float or an array over the draws. Exact zeros are the float 0.0, so a product
+# keeps them exact and a common factor s^k can be divided out.
+
+
+class _NotPolynomial(Exception):
+    """The circuit is one :func:`circuit_polynomials` does not write out (solved node by node)."""
+
+
+def _p_add(a: list, b: list) -> list:
+    if len(a) < len(b):
+        a, b = b, a
+    return [x + b[i] if i < len(b) else x for i, x in enumerate(a)]
+
+
+def _zero(c) -> bool:
+    return isinstance(c, float) and c == 0.0
+
+
+def _p_mul(a: list, b: list) -> list:
+    out: list = [0.0] * (len(a) + len(b) - 1)
+    for i, x in enumerate(a):
+        if _zero(x):
+            continue
+        for j, y in enumerate(b):
+            if not _zero(y):
+                out[i + j] = out[i + j] + x * y
+    return out
+
+
+def _r_add(x: tuple, y: tuple) -> tuple:
+    (a, b), (c, d) = x, y
+    if b is d:
+        return _p_add(a, c), b
+    return _p_add(_p_mul(a, d), _p_mul(c, b)), _p_mul(b, d)
+
+
+def _r_mul(x: tuple, y: tuple) -> tuple:
+    return _p_mul(x[0], y[0]), _p_mul(x[1], y[1])
+
+
+def _r_neg(x: tuple) -> tuple:
+    return [-c for c in x[0]], x[1]
+
+
+_ONE = [1.0]
+_R_ZERO = ([0.0], _ONE)
+
+
+def _r_impedance(net, p: Mapping[str, np.ndarray]) -> tuple | None:
+    """The impedance of ``net`` as a rational function of s; None for an open network."""
+    from convert.circuit.topologies.networks import C, R, Series
+
+    if isinstance(net, (R, C)):
+        v = np.asarray(p[net.name], dtype=float)
+        open_ = np.isinf(v) if isinstance(net, R) else v == 0
+        if open_.all():
+            return None
+        if open_.any():  # some draws open, some not: not one polynomial shape
+            raise _NotPolynomial
+        return ([v], _ONE) if isinstance(net, R) else (_ONE, [0.0, v])
+    if isinstance(net, Series):
+        parts = [_r_impedance(i, p) for i in net.items]
+        if any(z is None for z in parts):
+            return None
+        total = parts[0]
+        for z in parts[1:]:
+            total = _r_add(total, z)
+        return total
+    ys = [y for y in (_r_admittance(i, p) for i in net.items) if y is not _R_ZERO]
+    if not ys:
+        return None
+    total = ys[0]
+    for y in ys[1:]:
+        total = _r_add(total, y)
+    return total[1], total[0]
+
+
+def _r_admittance(net, p) -> tuple:
+    z = _r_impedance(net, p)
+    return _R_ZERO if z is None else (z[1], z[0])
+
+
+def _r_tidy(x: tuple) -> tuple:
+    """Divide out a common factor s^k, drop zero top coefficients, and scale both by the size of
+    the denominator (per draw), so products of many stages neither overflow nor underflow."""
+    num, den = list(x[0]), list(x[1])
+    while len(num) > 1 and len(den) > 1 and _zero(num[0]) and _zero(den[0]):
+        num, den = num[1:], den[1:]
+    for poly in (num, den):
+        while len(poly) > 1 and _zero(poly[-1]):
+            poly.pop()
+    size = np.max(np.abs(np.broadcast_arrays(*[np.asarray(c, dtype=float) for c in den])), axis=0)
+    if not (np.all(np.isfinite(size)) and np.all(size > 0)):
+        raise _NotPolynomial
+    return [c / size if not _zero(c) else c for c in num], [c / size if not _zero(c) else c for c in den]
+
+
+def circuit_polynomials(
+    topology: Topology, parts: Mapping[str, np.ndarray], open_loop: tuple[list, list] | None = None
+) -> tuple[list, list] | None:
+    """(num, den) of the circuit's output over the default drive (:func:`node_responses`) in
+    DESCENDING powers of s, the coefficients arrays over the draws, with op-amps of open-loop gain
+    ``open_loop`` = (num, den) in descending powers of s (None: ideal). The same stage equations
+    as :func:`node_responses`, written out as polynomials (one multiply-add per coefficient and
+    draw instead of a complex network evaluation per frequency and draw); None when the circuit
+    has stages that feed each other or passive junctions (those are solved node by node), or
+    parts open in some draws and not in others."""
+    if topology.junctions:
+        return None
+    drive = {"in": 1.0} if not topology.two_input else {"sp": 0.0, "meas": -1.0}
+    p = {k: np.asarray(v, dtype=float) for k, v in parts.items()}
+    a = None if open_loop is None else ([float(c) for c in open_loop[0][::-1]], [float(c) for c in open_loop[1][::-1]])
+    nodes: dict[str, tuple] = {k: ([float(v)], _ONE) for k, v in drive.items()}
+    try:
+        for st in topology.stages:
+            if not _reads(st) <= set(nodes):
+                return None  # a stage that reads a later one: a loop
+            yf = _r_admittance(st.feedback, p)
+            ys = [(src, _r_admittance(net, p)) for src, net in st.inputs]
+            injected, yt = _R_ZERO, yf
+            for src, y in ys:
+                if y is _R_ZERO:
+                    continue
+                injected = _r_add(injected, _r_mul(nodes[src], y))
+                yt = _r_add(yt, y)
+            x = _r_neg(injected)
+            if st.plus is not None:
+                zt, zb = _r_impedance(st.plus[1], p), _r_impedance(st.plus[2], p)
+                if zt is None or zb is None:
+                    return None
+                total = _r_add(zt, zb)
+                ratio = _r_mul(zb, (total[1], total[0]))  # zb / (zt + zb)
+                x = _r_add(_r_mul(_r_mul(nodes[st.plus[0]], ratio), yt), x)
+            if a is None:
+                out = _r_mul(x, (yf[1], yf[0]))  # x / yf
+            else:
+                den = _r_add(_r_mul((a[1], _ONE), yt), _r_mul((a[0], _ONE), yf))
+                out = _r_mul(_r_mul((a[0], _ONE), x), (den[1], den[0]))
+            nodes[st.output] = _r_tidy(out)
+    except _NotPolynomial:
+        return None
+    num, den = nodes[output_node(topology)]
+    return num[::-1], den[::-1]
 
 
 def _reads(st: Stage) -> set[str]:
