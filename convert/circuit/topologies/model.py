@@ -67,18 +67,25 @@ def polyval_jw(coeffs: list, w: np.ndarray) -> np.ndarray:
     shape = np.broadcast_shapes(w.shape, *[c.shape for c in cs])
     x = -(w * w)
     deg = len(cs) - 1
-    out = np.empty(shape, dtype=complex)
-    for part, first in ((out.real, deg), (out.imag, deg - 1)):
+    out = np.empty(shape + (2,))  # real and imaginary parts side by side: viewed as complex at the end
+    acc = np.empty(shape)  # Horner runs in a contiguous buffer
+    for k, first in ((0, deg), (1, deg - 1)):
         seq = cs[first::-2] if first >= 0 else []  # ascending powers of x
         if not seq:
-            part[...] = 0.0
+            out[..., k] = 0.0
             continue
-        part[...] = seq[-1]
-        for c in reversed(seq[:-1]):
-            part *= x
-            part += c
-    out.imag *= w
-    return out
+        if len(seq) == 1:
+            acc[...] = seq[0]
+        else:
+            np.multiply(seq[-1], x, out=acc)
+            acc += seq[-2]
+            for c in reversed(seq[:-2]):
+                acc *= x
+                acc += c
+        if k:
+            acc *= w
+        out[..., k] = acc
+    return out.view(complex)[..., 0]
 
 
 @dataclass(frozen=True)
