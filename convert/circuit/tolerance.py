@@ -1223,13 +1223,14 @@ HELPER_MIN_DRAWS = 1000
 
 def _two_core_run(run: dict, source: PartDraws, draws: int, chunk: int) -> _Worker | None:
     """The reductions of every draw, every other chunk made in a helper process (the chunks
-    halved when there are fewer than two): each side draws the whole sequence from the same
+    evened out so that each side has the same number, of at most ``chunk`` draws): each side draws the whole sequence from the same
     seeded generators and processes its own chunks; the helper's selections travel back and are
     merged exactly (the figures do not depend on the chunk size or on who processed a chunk).
     None when no helper is used (too few draws, or none usable here)."""
     if draws < HELPER_MIN_DRAWS or not sidework.helpers_usable():
         return None
-    size = min(chunk, -(-draws // 2))
+    pairs = -(-draws // (2 * chunk))  # chunks of at most ``chunk``, an even count: each side gets the same share
+    size = -(-draws // (2 * pairs))
 
     def share(part: int) -> _Worker:
         w = _Worker(run)
