@@ -395,6 +395,10 @@ def test_figures_on_two_cores_are_those_of_one(monkeypatch):
     for chunk in (700, 100_000):  # chunks shared out, and one chunk halved
         _same(one, _run(chunk=chunk, **kw))
     assert len(started) == (2 if sidework.helpers_usable() else 0)
+    # a light run (ideal op-amp, no loop) of as many draws stays in this process: forking costs more
+    light = dict(f=f, comparisons=[comps[0]], draws=HELPER_MIN_DRAWS + 501, seed=7)
+    _same(_run(chunk=700, workers=1, **light), _run(chunk=700, **light))
+    assert len(started) == (2 if sidework.helpers_usable() else 0)
 
 
 @pytest.mark.parametrize(

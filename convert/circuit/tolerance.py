@@ -1118,7 +1118,8 @@ def run_tolerances(
     ``display_opamp``). ``dtype``: arithmetic of the coefficient path (float32; np.float64 to
     check it). ``workers``: threads sharing the chunks (the draws are made in order on this thread and
     every selection merges exactly, so the figures are the same for any count); left at None,
-    from :data:`HELPER_MIN_DRAWS` draws every other chunk goes to a helper process on the second
+    from :data:`HELPER_MIN_DRAWS` draws (:data:`HELPER_MIN_DRAWS_LIGHT` for a run with ideal op-amps
+    and no loop) every other chunk goes to a helper process on the second
     core (:func:`_two_core_run`, :mod:`convert.sidework`), else :data:`DEFAULT_WORKERS` threads. ``loop_count``: count, for each comparison with a loop reference, the
     draws whose closed loop with the plant is unstable (:func:`count_unstable`, on the op-amp
     model of that comparison). Returns :class:`ToleranceRun`."""
@@ -1219,6 +1220,11 @@ def run_tolerances(
 
 #: Fewest draws for which the Monte Carlo is shared with a helper process (convert.sidework).
 HELPER_MIN_DRAWS = 1000
+#: The same for a run with nothing but the float32 coefficient path (ideal op-amps, no loop, no
+#: stability count, e.g. the buy list's pricing runs): about 5 µs a draw, so below this many draws
+#: the fork and the merge cost more than the second core saves (10,000 draws: 0.08 s alone,
+#: 0.10-0.18 s with the helper, measured).
+HELPER_MIN_DRAWS_LIGHT = 100_000
 
 
 def _two_core_run(run: dict, source: PartDraws, draws: int, chunk: int) -> _Worker | None:
@@ -1227,7 +1233,13 @@ def _two_core_run(run: dict, source: PartDraws, draws: int, chunk: int) -> _Work
     seeded generators and processes its own chunks; the helper's selections travel back and are
     merged exactly (the figures do not depend on the chunk size or on who processed a chunk).
     None when no helper is used (too few draws, or none usable here)."""
-    if draws < HELPER_MIN_DRAWS or not sidework.helpers_usable():
+    heavy = (
+        run["loop_margins"] is not None
+        or run["loop_count"] is not None
+        or any(c.opamp is not None and not c.opamp.ideal for c in run["comparisons"])
+        or (run["display_opamp"] is not None and not run["display_opamp"].ideal)
+    )
+    if draws < (HELPER_MIN_DRAWS if heavy else HELPER_MIN_DRAWS_LIGHT) or not sidework.helpers_usable():
         return None
     pairs = -(-draws // (2 * chunk))  # chunks of at most ``chunk``, an even count: each side gets the same share
     size = -(-draws // (2 * pairs))
