@@ -167,6 +167,29 @@ def test_float32_within_the_stated_bound_of_float64(name):
     assert a.max_gain_error_db > 1e-3  # the tolerances show
 
 
+@pytest.mark.parametrize("name", sorted(CATALOG_PARTS))
+def test_float32_with_an_opamp_model_within_the_stated_bound_of_float64(name):
+    """The same with a single-pole op-amp (GBW 100 kHz, A0 1e5): the draws' figures against the
+    ideal nominal response and the display band with the model, float32 against float64 (the
+    written-out circuit in float32 where the stages read only earlier nodes, the node solution in
+    float64 otherwise), within FLOAT32_BOUND over seven decades; the model must show."""
+    from convert.circuit.opamp import OpAmpModel
+
+    topo, parts = get_topology(name), CATALOG_PARTS[name]
+    f = np.logspace(-3, 4, 120)
+    model = OpAmpModel(gbw_hz=1e5)
+    ref = _nominal(topo, parts, f)
+    kw = dict(f=f, draws=2000, seed=4, comparisons=[Comparison("total", ref, model)], display_opamp=model)
+    r32, r64 = _run(topo, parts, **kw), _run(topo, parts, dtype=np.float64, **kw)
+    a, b = r32.figures["total"], r64.figures["total"]
+    assert abs(a.max_gain_error_db - b.max_gain_error_db) < FLOAT32_BOUND
+    assert abs(a.max_phase_error_deg - b.max_phase_error_deg) < FLOAT32_BOUND
+    assert np.max(np.abs(r32.band.gain_db - r64.band.gain_db)) < FLOAT32_BOUND
+    assert np.max(np.abs(r32.band.phase_deg - r64.band.phase_deg)) < FLOAT32_BOUND
+    ideal = _run(topo, parts, f=f, draws=2000, seed=4, comparisons=[Comparison("total", ref)])
+    assert abs(a.max_phase_error_deg - ideal.figures["total"].max_phase_error_deg) > 0.01  # the model shows
+
+
 def test_worst_case_brackets_every_corner():
     """Reference: all 2^5 tolerance corners evaluated exactly; the worst-case band from the
     sensitivities is made of corners, so it lies inside their envelope, and it reaches the envelope
