@@ -49,7 +49,6 @@ class OpAmpModel:
         f = np.asarray(f_hz, dtype=float)
         return self.a0 / (1 + 1j * f * self.a0 / self.gbw_hz)
 
-
     def open_loop_polynomials(self) -> tuple[list, list] | None:
         """A(s) as (num, den) in descending powers of s (None for the ideal model)."""
         if self.gbw_hz is None:

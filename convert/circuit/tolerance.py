@@ -1012,7 +1012,9 @@ class _Worker:
                 refs_all = [c.reference for c, _ in members] + ([r["h_nom"]] if model_disp else [])
                 grids = self._opamp_grids(opamp, model_disp, refs_all)
                 with np.errstate(invalid="ignore", divide="ignore"):
-                    poly = None if grids is None else circuit_polynomials(topology, drawn, opamp.open_loop_polynomials())
+                    poly = (
+                        None if grids is None else circuit_polynomials(topology, drawn, opamp.open_loop_polynomials())
+                    )
                 if poly is not None:  # band and display from the written-out circuit, in the run's dtype
                     band_grid, disp_grid = grids
                     cache["poly"] = poly

@@ -335,10 +335,16 @@ def _circuit(case, given, info, src, band, duration, src_step, src_dist, draws):
                 parameters=False,
                 comparisons=[
                     Comparison(
-                        "tolerances", nominal[: band.size], None, ctrl.frequency_response(mc_f, via="zpk") if loops else None
+                        "tolerances",
+                        nominal[: band.size],
+                        None,
+                        ctrl.frequency_response(mc_f, via="zpk") if loops else None,
                     ),
                     Comparison(
-                        "total", ref[: band.size], None, response_seen_from_loop(src, mc_f, via="zpk") if loops else None
+                        "total",
+                        ref[: band.size],
+                        None,
+                        response_seen_from_loop(src, mc_f, via="zpk") if loops else None,
                     ),
                 ],
                 loop_f_hz=mc_f,

@@ -45,15 +45,6 @@ from convert.values import parse_value
 # ----------------------------------------------------------------------------------- helpers
 
 
-def polyval_many(coeffs: list, s: np.ndarray) -> np.ndarray:
-    """Horner over coefficient arrays of shape (draws,) at s of shape (freqs,) -> (draws, freqs)."""
-    s = np.asarray(s)
-    acc = np.asarray(coeffs[0], dtype=float)[..., None] * np.ones_like(s)
-    for c in coeffs[1:]:
-        acc = acc * s + np.asarray(c, dtype=float)[..., None]
-    return acc
-
-
 def polyval_jw(coeffs: list, w: np.ndarray) -> np.ndarray:
     """P(jω) for real coefficient arrays (descending powers of s, each of shape (draws,) or a
     scalar) at angular frequencies ``w`` (rad/s, shape (freqs,)) -> complex (draws, freqs).
