@@ -133,10 +133,11 @@ GBW_CHECKED = sorted(set(TOPOLOGIES) - {"mfb-low-pass", "mfb-band-pass", "first-
 @pytest.mark.parametrize("name", GBW_CHECKED)
 def test_gain_bandwidth_model_matches_simulator(name):
     """Source: ngspice AC analysis with the single-pole op-amp subcircuit (GBW 10 kHz, so the
-    effect is visible below 1 kHz) against the tool's solution with the same A(jw): the stages
-    written out as one rational function of s (every catalog topology whose stages read only
-    earlier nodes) or solved node by node (tow-thomas, its integrators in a loop). The
-    multiple-feedback sections are checked the same way in tests/test_circuit_stages.py."""
+    effect is visible below 1 kHz) against the tool's solution with the same A(jw), the circuit
+    written out as one rational function of s (tow-thomas's integrator loop by Cramer's rule;
+    pid-two-input's float32 trial falls back on the node solution only inside the tolerance
+    engine). The multiple-feedback sections are checked the same way in
+    tests/test_circuit_stages.py."""
     require_ngspice()
     topo = TOPOLOGIES[name]
     parts = PARTS[name]

@@ -59,10 +59,11 @@ class OpAmpModel:
 def gbw_response(topology, parts, f_hz, model: OpAmpModel) -> np.ndarray:
     """F(j2πf) of the circuit with the op-amp model (positive form, stage sign removed).
 
-    Stages that only read earlier nodes are written out as one rational function of s per draw
-    (:func:`convert.circuit.topologies.model.circuit_polynomials`) and evaluated by Horner;
-    circuits with stages in a loop or passive junctions are solved node by node at every
-    frequency (:func:`node_responses`). Both are the same stage equations."""
+    The circuit is written out as one rational function of s per draw
+    (:func:`convert.circuit.topologies.model.circuit_polynomials`: stages alone by their formula,
+    stages in a loop and middle nodes by Cramer's rule) and evaluated by Horner; a block of more
+    unknowns than that writes out, or parts open in some draws only, are solved node by node at
+    every frequency (:func:`node_responses`). Both are the same stage equations."""
     poly = circuit_polynomials(topology, parts, model.open_loop_polynomials())
     if poly is not None:
         w = 2 * np.pi * np.asarray(f_hz, dtype=float)

@@ -472,47 +472,207 @@ def circuit_polynomials(
 ) -> tuple[list, list] | None:
     """(num, den) of the circuit's output over the default drive (:func:`node_responses`) in
     DESCENDING powers of s, the coefficients arrays over the draws, with op-amps of open-loop gain
-    ``open_loop`` = (num, den) in descending powers of s (None: ideal). The same stage equations
-    as :func:`node_responses`, written out as polynomials (one multiply-add per coefficient and
-    draw instead of a complex network evaluation per frequency and draw); None when the circuit
-    has stages that feed each other or passive junctions (those are solved node by node), or
-    parts open in some draws and not in others."""
-    if topology.junctions:
-        return None
+    ``open_loop`` = (num, den) in descending powers of s (None: ideal). The same equations as
+    :func:`node_responses`, in the same blocks, written out as polynomials (one multiply-add per
+    coefficient and draw instead of a complex network evaluation per frequency and draw): a stage
+    alone by its formula, stages that feed each other and junctions with the stages around them
+    by Cramer's rule on the block's equations (rows cleared of their denominators). None when a
+    block has more than :data:`MAX_WRITTEN_OUT` unknowns, or parts are open in some draws and not
+    in others (then the node solution is the one used)."""
     drive = {"in": 1.0} if not topology.two_input else {"sp": 0.0, "meas": -1.0}
     p = {k: np.asarray(v, dtype=float) for k, v in parts.items()}
     a = None if open_loop is None else ([float(c) for c in open_loop[0][::-1]], [float(c) for c in open_loop[1][::-1]])
     nodes: dict[str, tuple] = {k: ([float(v)], _ONE) for k, v in drive.items()}
+    items = _solve_order(topology)
     try:
-        for st in topology.stages:
-            if not _reads(st) <= set(nodes):
-                return None  # a stage that reads a later one: a loop
-            yf = _r_admittance(st.feedback, p)
-            ys = [(src, _r_admittance(net, p)) for src, net in st.inputs]
-            injected, yt = _R_ZERO, yf
-            for src, y in ys:
-                if y is _R_ZERO:
-                    continue
-                injected = _r_add(injected, _r_mul(nodes[src], y))
-                yt = _r_add(yt, y)
-            x = _r_neg(injected)
-            if st.plus is not None:
-                zt, zb = _r_impedance(st.plus[1], p), _r_impedance(st.plus[2], p)
-                if zt is None or zb is None:
-                    return None
-                total = _r_add(zt, zb)
-                ratio = _r_mul(zb, (total[1], total[0]))  # zb / (zt + zb)
-                x = _r_add(_r_mul(_r_mul(nodes[st.plus[0]], ratio), yt), x)
-            if a is None:
-                out = _r_mul(x, (yf[1], yf[0]))  # x / yf
+        i = 0
+        while i < len(items):
+            j = _loop_block_end(items, i, nodes)
+            block = items[i : j + 1]
+            if j == i and isinstance(block[0], Stage):
+                nodes[block[0].output] = _r_tidy(_r_stage_alone(block[0], nodes, p, a))
             else:
-                den = _r_add(_r_mul((a[1], _ONE), yt), _r_mul((a[0], _ONE), yf))
-                out = _r_mul(_r_mul((a[0], _ONE), x), (den[1], den[0]))
-            nodes[st.output] = _r_tidy(out)
+                solved = _r_block(block, nodes, p, a)
+                if solved is None:
+                    return None
+                nodes.update({k: _r_tidy(v) for k, v in solved.items()})
+            i = j + 1
     except _NotPolynomial:
         return None
     num, den = nodes[output_node(topology)]
     return num[::-1], den[::-1]
+
+
+#: Most unknowns of one block (stages in a loop, a junction with its stages) written out by
+#: Cramer's rule; a larger block is solved node by node.
+MAX_WRITTEN_OUT = 4
+
+
+def _r_divider(st: Stage, p) -> tuple | None:
+    """The + input divider ratio zb / (zt + zb) of a stage, or None (grounded + input)."""
+    if st.plus is None:
+        return None
+    zt, zb = _r_impedance(st.plus[1], p), _r_impedance(st.plus[2], p)
+    if zt is None or zb is None:
+        raise _NotPolynomial
+    total = _r_add(zt, zb)
+    return _r_mul(zb, (total[1], total[0]))
+
+
+def _r_stage_alone(st: Stage, nodes: Mapping, p, a) -> tuple:
+    """out = A(V+·Yt − Σ Yk Vk) / (Yt + A·Yf), or (V+·Yt − Σ Yk Vk) / Yf for an ideal op-amp."""
+    yf = _r_admittance(st.feedback, p)
+    injected, yt = _R_ZERO, yf
+    for src, net in st.inputs:
+        y = _r_admittance(net, p)
+        if y is _R_ZERO:
+            continue
+        injected = _r_add(injected, _r_mul(nodes[src], y))
+        yt = _r_add(yt, y)
+    x = _r_neg(injected)
+    ratio = _r_divider(st, p)
+    if ratio is not None:
+        x = _r_add(_r_mul(_r_mul(nodes[st.plus[0]], ratio), yt), x)
+    if a is None:
+        return _r_mul(x, (yf[1], yf[0]))  # x / yf
+    den = _r_add(_r_mul((a[1], _ONE), yt), _r_mul((a[0], _ONE), yf))
+    return _r_mul(_r_mul((a[0], _ONE), x), (den[1], den[0]))
+
+
+def _r_block(block: list, nodes: Mapping, p, a) -> dict | None:
+    """The voltages a block drives, as rational functions: the equations of :func:`_stage_block`
+    (stages only) or :func:`_mixed_block` (with junctions), each row multiplied by its entries'
+    denominators, then Cramer's rule. None when the block has more than :data:`MAX_WRITTEN_OUT`
+    unknowns."""
+    inv_a = _R_ZERO if a is None else (a[1], a[0])
+    if not any(isinstance(x, Junction) for x in block):
+        index = {st.output: k for k, st in enumerate(block)}
+        n = len(block)
+        m = [[_R_ZERO] * n for _ in range(n)]
+        rhs = [_R_ZERO] * n
+        for k, st in enumerate(block):
+            yf = _r_admittance(st.feedback, p)
+            ys = [(src, _r_admittance(net, p)) for src, net in st.inputs]
+            yt = yf
+            for _, y in ys:
+                yt = _r_add(yt, y)
+            m[k][k] = _r_add(_r_add(m[k][k], _r_mul(yt, inv_a)), yf)
+            for src, y in ys:
+                if src in index:
+                    m[k][index[src]] = _r_add(m[k][index[src]], y)
+                else:
+                    rhs[k] = _r_add(rhs[k], _r_neg(_r_mul(nodes[src], y)))
+            ratio = _r_divider(st, p)
+            if ratio is not None:
+                src = st.plus[0]
+                if src in index:
+                    m[k][index[src]] = _r_add(m[k][index[src]], _r_neg(_r_mul(yt, ratio)))
+                else:
+                    rhs[k] = _r_add(rhs[k], _r_mul(_r_mul(nodes[src], yt), ratio))
+        wanted = index
+    else:
+        index: dict[str, int] = {}
+        minus: dict[int, int] = {}
+        for k, x in enumerate(block):
+            index[_drives(x)] = len(index) + len(minus)
+            if isinstance(x, Stage):
+                minus[k] = index[_drives(x)] + 1
+        n = len(index) + len(minus)
+        if n > MAX_WRITTEN_OUT:
+            return None
+        m = [[_R_ZERO] * n for _ in range(n)]
+        rhs = [_R_ZERO] * n
+
+        def put(row, node, coeff):
+            if node == GROUND:
+                return
+            if node in index:
+                m[row][index[node]] = _r_add(m[row][index[node]], coeff)
+            else:
+                rhs[row] = _r_add(rhs[row], _r_neg(_r_mul(coeff, nodes[node])))
+
+        adm = {
+            k: [(src, _r_admittance(net, p)) for src, net in x.inputs]
+            for k, x in enumerate(block)
+            if isinstance(x, Stage)
+        }
+        for k, x in enumerate(block):
+            if isinstance(x, Junction):
+                row = index[x.name]
+                for node, net in x.branches:
+                    y = _r_admittance(net, p)
+                    m[row][row] = _r_add(m[row][row], y)
+                    put(row, node, _r_neg(y))
+                for kk, st in enumerate(block):
+                    if not isinstance(st, Stage):
+                        continue
+                    for src, y in adm[kk]:
+                        if src == x.name:
+                            m[row][row] = _r_add(m[row][row], y)
+                            m[row][minus[kk]] = _r_add(m[row][minus[kk]], _r_neg(y))
+                    if st.plus is not None and st.plus[0] == x.name:
+                        zt, zb = _r_impedance(st.plus[1], p), _r_impedance(st.plus[2], p)
+                        if zt is None or zb is None:
+                            raise _NotPolynomial
+                        total = _r_add(zt, zb)
+                        m[row][row] = _r_add(m[row][row], (total[1], total[0]))
+                continue
+            yf = _r_admittance(x.feedback, p)
+            out, vm = index[x.output], minus[k]
+            for src, y in adm[k]:
+                put(out, src, y)
+                m[out][vm] = _r_add(m[out][vm], _r_neg(y))
+            m[out][out] = _r_add(m[out][out], yf)
+            m[out][vm] = _r_add(m[out][vm], _r_neg(yf))
+            m[vm][vm] = _r_add(m[vm][vm], (_ONE, _ONE))
+            m[vm][out] = _r_add(m[vm][out], inv_a)
+            ratio = _r_divider(x, p)
+            if ratio is not None:
+                put(vm, x.plus[0], _r_neg(ratio))
+        wanted = index
+    if n > MAX_WRITTEN_OUT:
+        return None
+    rows = [_cleared(m[r] + [rhs[r]]) for r in range(n)]
+    mat = [row[:n] for row in rows]
+    b = [row[n] for row in rows]
+    det = _p_det(mat)
+    out = {}
+    for name, col in wanted.items():
+        mc = [[b[r] if c == col else mat[r][c] for c in range(n)] for r in range(n)]
+        out[name] = (_p_det(mc), det)
+    return out
+
+
+def _cleared(row: list) -> list:
+    """Polynomials proportional to the rational entries of one equation: each times the product
+    of the other entries' distinct denominators."""
+    dens: list = []
+    for _, d in row:
+        if not (len(d) == 1 and not isinstance(d[0], np.ndarray) and d[0] == 1.0) and not any(d is e for e in dens):
+            dens.append(d)
+    out = []
+    for num, d in row:
+        poly = num
+        for e in dens:
+            if e is not d:
+                poly = _p_mul(poly, e)
+        out.append(poly)
+    return out
+
+
+def _p_det(mat: list) -> list:
+    """Determinant of a small square matrix of polynomials (Laplace along the first row)."""
+    n = len(mat)
+    if n == 1:
+        return mat[0][0]
+    total = [0.0]
+    for j in range(n):
+        if all(_zero(c) for c in mat[0][j]):
+            continue
+        minor = [row[:j] + row[j + 1 :] for row in mat[1:]]
+        term = _p_mul(mat[0][j], _p_det(minor))
+        total = _p_add(total, term if j % 2 == 0 else [-c for c in term])
+    return total
 
 
 def _reads(st: Stage) -> set[str]:
