@@ -571,13 +571,7 @@ def _r_block(block: list, nodes: Mapping, p, a) -> dict | None:
                     rhs[k] = _r_add(rhs[k], _r_mul(_r_mul(nodes[src], yt), ratio))
         wanted = index
     else:
-        index: dict[str, int] = {}
-        minus: dict[int, int] = {}
-        for k, x in enumerate(block):
-            index[_drives(x)] = len(index) + len(minus)
-            if isinstance(x, Stage):
-                minus[k] = index[_drives(x)] + 1
-        n = len(index) + len(minus)
+        index, minus, n = _mixed_unknowns(block)
         if n > MAX_WRITTEN_OUT:
             return None
         m = [[_R_ZERO] * n for _ in range(n)]
@@ -725,6 +719,18 @@ def _loop_block_end(items: list, i: int, known: Mapping) -> int:
         needed |= _needs(items[j])
 
 
+def _mixed_unknowns(block) -> tuple[dict, dict, int]:
+    """The unknowns of a block with junctions: (node -> index for each stage output and junction,
+    block position of a stage -> index of its inverting input, count)."""
+    index: dict[str, int] = {}
+    minus: dict[int, int] = {}
+    for k, x in enumerate(block):
+        index[_drives(x)] = len(index) + len(minus)
+        if isinstance(x, Stage):
+            minus[k] = index[_drives(x)] + 1
+    return index, minus, len(index) + len(minus)
+
+
 def _mixed_block(block, nodes, p, s, open_loop_gain):
     """Stages and junctions solved together by nodal analysis (unknowns: each stage's output and
     inverting-input voltage, each junction's voltage).
@@ -734,13 +740,7 @@ def _mixed_block(block, nodes, p, s, open_loop_gain):
     junction, Σ Yb (Vj − Vb) + Σ Yk (Vj − V−k) + Vj/(Zt + Zb) = 0 over its branches, the stage inputs
     it feeds and the + dividers it feeds. Known nodes move to the right-hand side.
     """
-    index: dict[str, int] = {}
-    minus: dict[int, int] = {}
-    for k, x in enumerate(block):
-        index[_drives(x)] = len(index) + len(minus)
-        if isinstance(x, Stage):
-            minus[k] = index[_drives(x)] + 1
-    n = len(index) + len(minus)
+    index, minus, n = _mixed_unknowns(block)
     with np.errstate(divide="ignore", invalid="ignore"):
         adm = {}
         for k, x in enumerate(block):
