@@ -125,10 +125,19 @@ def test_open_optional_parts_are_left_out():
     _compare(f, v, expected)
 
 
-@pytest.mark.parametrize("name", ["pi-rc-feedback", "pid-single-amp", "pid-parallel", "tow-thomas"])
+# all but the multiple-feedback sections (tests/test_circuit_stages.py) and the two whose gain falls
+# before the op-amp's pole matters below 1 kHz at these parts (the check that the model matters fails)
+GBW_CHECKED = sorted(set(TOPOLOGIES) - {"mfb-low-pass", "mfb-band-pass", "first-order-lag", "integrator-rc"})
+
+
+@pytest.mark.parametrize("name", GBW_CHECKED)
 def test_gain_bandwidth_model_matches_simulator(name):
     """Source: ngspice AC analysis with the single-pole op-amp subcircuit (GBW 10 kHz, so the
-    effect is visible below 1 kHz) against the stage-by-stage solution with the same A(jw)."""
+    effect is visible below 1 kHz) against the tool's solution with the same A(jw), the circuit
+    written out as one rational function of s (tow-thomas's integrator loop by Cramer's rule;
+    pid-two-input's float32 trial falls back on the node solution only inside the tolerance
+    engine). The multiple-feedback sections are checked the same way in
+    tests/test_circuit_stages.py."""
     require_ngspice()
     topo = TOPOLOGIES[name]
     parts = PARTS[name]

@@ -167,6 +167,29 @@ def test_float32_within_the_stated_bound_of_float64(name):
     assert a.max_gain_error_db > 1e-3  # the tolerances show
 
 
+@pytest.mark.parametrize("name", sorted(CATALOG_PARTS))
+def test_float32_with_an_opamp_model_within_the_stated_bound_of_float64(name):
+    """The same with a single-pole op-amp (GBW 100 kHz, A0 1e5): the draws' figures against the
+    ideal nominal response and the display band with the model, float32 against float64 (the
+    written-out circuit in float32 where the stages read only earlier nodes, the node solution in
+    float64 otherwise), within FLOAT32_BOUND over seven decades; the model must show."""
+    from convert.circuit.opamp import OpAmpModel
+
+    topo, parts = get_topology(name), CATALOG_PARTS[name]
+    f = np.logspace(-3, 4, 120)
+    model = OpAmpModel(gbw_hz=1e5)
+    ref = _nominal(topo, parts, f)
+    kw = dict(f=f, draws=2000, seed=4, comparisons=[Comparison("total", ref, model)], display_opamp=model)
+    r32, r64 = _run(topo, parts, **kw), _run(topo, parts, dtype=np.float64, **kw)
+    a, b = r32.figures["total"], r64.figures["total"]
+    assert abs(a.max_gain_error_db - b.max_gain_error_db) < FLOAT32_BOUND
+    assert abs(a.max_phase_error_deg - b.max_phase_error_deg) < FLOAT32_BOUND
+    assert np.max(np.abs(r32.band.gain_db - r64.band.gain_db)) < FLOAT32_BOUND
+    assert np.max(np.abs(r32.band.phase_deg - r64.band.phase_deg)) < FLOAT32_BOUND
+    ideal = _run(topo, parts, f=f, draws=2000, seed=4, comparisons=[Comparison("total", ref)])
+    assert abs(a.max_phase_error_deg - ideal.figures["total"].max_phase_error_deg) > 0.01  # the model shows
+
+
 def test_worst_case_brackets_every_corner():
     """Reference: all 2^5 tolerance corners evaluated exactly; the worst-case band from the
     sensitivities is made of corners, so it lies inside their envelope, and it reaches the envelope
@@ -395,3 +418,63 @@ def test_figures_on_two_cores_are_those_of_one(monkeypatch):
     for chunk in (700, 100_000):  # chunks shared out, and one chunk halved
         _same(one, _run(chunk=chunk, **kw))
     assert len(started) == (2 if sidework.helpers_usable() else 0)
+    # a light run (ideal op-amp, no loop) of as many draws stays in this process: forking costs more
+    light = dict(f=f, comparisons=[comps[0]], draws=HELPER_MIN_DRAWS + 501, seed=7)
+    _same(_run(chunk=700, workers=1, **light), _run(chunk=700, **light))
+    assert len(started) == (2 if sidework.helpers_usable() else 0)
+
+
+@pytest.mark.parametrize(
+    "parts, plant_text, theta",
+    [
+        ({"R1": 1e6, "R2": 1e6, "C1": 120e-6}, "0.04/(s*(15*s + 1))", 2.0),  # the tank-level card's loop
+        ({"R1": 22e3, "R2": 68e3, "C1": 2.2e-6}, "2/((3*s+1)*(0.5*s+1))", 0.2),
+    ],
+)
+def test_margin_changes_on_the_drawn_loop_grid_match_a_dense_grid(parts, plant_text, theta):
+    """Each draw's margins are taken on 320 points around the nominal loop's marks
+    (compare.circuitwork.drawn_loop_grid); the same 300 draws' margins on a grid of 4,000 points a
+    decade over six decades (margins_of_responses, itself checked against python-control in
+    tests/test_margins_reference.py) give the same 99th-percentile margin changes within 0.01 deg
+    and 0.005 dB: the figure does not rest on the grid's density."""
+    from convert.compare.circuitwork import drawn_loop_grid
+    from convert.compare.loop import margins_of_responses
+    from convert.controller import from_expression
+
+    topo = get_topology("pi-rc-feedback")
+    plant = from_expression(plant_text)
+    tol = {"R": 0.01, "C": 0.10}
+    band = np.logspace(-4, -1, 30)
+    nom = {k: np.array([v]) for k, v in parts.items()}
+    dense = np.logspace(-5, 1, 24001)
+    marks = margins_of_responses(dense, topo.response(nom, dense), plant, theta)
+    grid = drawn_loop_grid(
+        *(float(marks[k][0]) for k in ("crossover_hz", "phase_crossover_hz", "sensitivity_peak_hz")), band[-1]
+    )
+    assert grid.size == 320
+    ref_b, ref_l = topo.response(nom, band)[0], topo.response(nom, grid)[0]
+    mc = run_tolerances(
+        topo,
+        parts,
+        tol,
+        band_f_hz=band,
+        comparisons=[Comparison("x", ref_b, None, ref_l)],
+        draws=300,
+        seed=4,
+        loop_f_hz=grid,
+        loop_margins=lambda r: margins_of_responses(grid, r, plant, theta),
+        parameters=False,
+        workers=1,
+    )
+    fig = mc.figures["x"]
+    drawn = draw_parts(topo, parts, tol, 300, 4)
+    m = margins_of_responses(dense, topo.response(drawn, dense), plant, theta)
+    for name, attr, within in (
+        ("phase_margin_deg", "delta_phase_margin_deg", 0.01),
+        ("gain_margin_db", "delta_gain_margin_db", 0.005),
+        ("sensitivity_peak_db", "delta_sensitivity_peak_db", 0.005),
+    ):
+        change = np.abs(m[name] - marks[name][0])
+        level = np.sort(change)[int(round(0.99 * (change.size - 1)))]  # the order statistic nearest the 99th percentile
+        assert abs(abs(getattr(fig, attr)) - level) < within, name
+        assert level > 10 * within  # the tolerances must move the margins, or the check proves nothing

@@ -15,6 +15,7 @@ import numpy as np
 
 from convert.errors import InputError
 from convert.circuit.topologies import node_responses, output_node
+from convert.circuit.topologies.model import circuit_polynomials, polyval_jw
 
 DEFAULT_A0 = 1e5  # open-loop dc gain of the single-pole model (100 dB; common practice)
 HIGH_GAIN = 1e9  # gain of the "high-gain amplifier" netlist model (stands for ideal)
@@ -48,9 +49,26 @@ class OpAmpModel:
         f = np.asarray(f_hz, dtype=float)
         return self.a0 / (1 + 1j * f * self.a0 / self.gbw_hz)
 
+    def open_loop_polynomials(self) -> tuple[list, list] | None:
+        """A(s) as (num, den) in descending powers of s (None for the ideal model)."""
+        if self.gbw_hz is None:
+            return None
+        return [self.a0], [self.a0 / (2 * math.pi * self.gbw_hz), 1.0]
+
 
 def gbw_response(topology, parts, f_hz, model: OpAmpModel) -> np.ndarray:
-    """F(j2πf) of the circuit with the op-amp model (positive form, stage sign removed)."""
+    """F(j2πf) of the circuit with the op-amp model (positive form, stage sign removed).
+
+    The circuit is written out as one rational function of s per draw
+    (:func:`convert.circuit.topologies.model.circuit_polynomials`: stages alone by their formula,
+    stages in a loop and middle nodes by Cramer's rule) and evaluated by Horner; a block of more
+    unknowns than that writes out, or parts open in some draws only, are solved node by node at
+    every frequency (:func:`node_responses`). Both are the same stage equations."""
+    poly = circuit_polynomials(topology, parts, model.open_loop_polynomials())
+    if poly is not None:
+        w = 2 * np.pi * np.asarray(f_hz, dtype=float)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return topology.sign * (polyval_jw(poly[0], w) / polyval_jw(poly[1], w))
     nodes = node_responses(topology, parts, f_hz, open_loop_gain=model.open_loop_gain(f_hz))
     return topology.sign * nodes[output_node(topology)]
 

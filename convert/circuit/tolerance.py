@@ -47,8 +47,11 @@ coefficients in float32 real arithmetic (each frequency scaled by the nominal de
 as the ratio to the reference; the gain is taken on |ratio|² and the phase on a rational
 "diamond" angle of the ratio, both monotone, so logarithms and arctangents run only on per-draw
 figures and selected order statistics. Bound (tested against the float64 path in
-tests/test_circuit_tolerance.py): 1e-3 dB and 1e-3° on every figure. Loop margins and op-amp
-models run in float64.
+tests/test_circuit_tolerance.py): 1e-3 dB and 1e-3° on every figure. With an op-amp model the
+same path runs on the circuit written out as polynomials in s
+(:func:`convert.circuit.topologies.model.circuit_polynomials`) when a trial on the nominal parts
+agrees with float64 (``_Worker._opamp_grids``), else on the node-by-node solution in float64.
+Loop margins and the stability count run in float64.
 """
 
 from __future__ import annotations
@@ -63,6 +66,7 @@ from convert.errors import InputError
 from convert.values import parse_fraction
 from convert.compare.frequency import unwrapped_phase_error_deg
 from convert.circuit.opamp import gbw_response
+from convert.circuit.topologies.model import circuit_polynomials
 from convert import sidework
 
 DEFAULT_TOLERANCES = {"R": 0.01, "C": 0.05}
@@ -814,6 +818,11 @@ def _chunk_proxies_distinct(
     refs: list[np.ndarray],
     cache: dict,
 ):
+    if grid is not None and "poly" in cache:  # the op-amp model written out (circuit_polynomials)
+        num, den = cache["poly"]
+        n = len(next(iter(parts.values())))
+        factor = sign * topology.sign  # the written-out circuit's output carries the stage's own sign
+        return grid.proxies(num, den, n, [1.0 / (factor * np.asarray(r, dtype=complex)) for r in refs])
     if (opamp is None or getattr(opamp, "ideal", False)) and grid is not None:
         with np.errstate(invalid="ignore", divide="ignore"):
             num, den = topology.coefficients(parts)
@@ -973,6 +982,7 @@ class _Worker:
             _FigureReducer(c.key, run["band_f"], run["draws"], run["percentile"], ref_m)
             for c, ref_m in zip(run["comparisons"], run["ref_margins"])
         ]
+        self._grids: dict = {}  # per op-amp model: its float32 grids (see _opamp_grids)
         self.groups: dict = {}
         for c, red in zip(run["comparisons"], self.reducers):
             ideal = c.opamp is None or c.opamp.ideal
@@ -996,27 +1006,41 @@ class _Worker:
             opamp = None if gkey is None else members[0][0].opamp
             cache: dict = {}
             model_disp = self.disp_g is not None and opamp is not None and r["display_opamp"] is opamp
-            if opamp is not None:  # one stage-by-stage solution over every grid this model needs
-                grids = [band_f] + ([loop_f] if loop_f is not None else []) + ([disp_f] if model_disp else [])
-                h_all = _responses(topology, drawn, np.concatenate(grids), opamp, sign)
-                parts_h = np.split(h_all, np.cumsum([g.size for g in grids])[:-1], axis=1)
-                cache["h"] = parts_h[0].T
-                if loop_f is not None:
-                    cache["loop"] = parts_h[1]
-                if model_disp:
-                    cache["disp"] = parts_h[-1].T
+            band_grid = self.band_grid
+            disp_grid = disp_cache = None
+            if opamp is not None:
+                refs_all = [c.reference for c, _ in members] + ([r["h_nom"]] if model_disp else [])
+                grids = self._opamp_grids(opamp, model_disp, refs_all)
+                with np.errstate(invalid="ignore", divide="ignore"):
+                    poly = (
+                        None if grids is None else circuit_polynomials(topology, drawn, opamp.open_loop_polynomials())
+                    )
+                if poly is not None:  # band and display from the written-out circuit, in the run's dtype
+                    band_grid, disp_grid = grids
+                    cache["poly"] = poly
+                    disp_cache = cache
+                    if loop_f is not None:
+                        cache["loop"] = _responses(topology, drawn, loop_f, opamp, sign)
+                else:  # one stage-by-stage solution over every grid this model needs, float64
+                    band_grid = None
+                    grids = [band_f] + ([loop_f] if loop_f is not None else []) + ([disp_f] if model_disp else [])
+                    h_all = _responses(topology, drawn, np.concatenate(grids), opamp, sign)
+                    parts_h = np.split(h_all, np.cumsum([g.size for g in grids])[:-1], axis=1)
+                    cache["h"] = parts_h[0].T
+                    if loop_f is not None:
+                        cache["loop"] = parts_h[1]
+                    if model_disp:
+                        disp_cache = {"h": parts_h[-1].T}
             refs = [np.asarray(c.reference, dtype=complex) for c, _ in members]
             shared = r["share_display"] and gkey is None
             proxies = _chunk_proxies(
-                topology, drawn, self.band_grid, band_f, opamp, sign, refs + ([r["h_nom"]] if shared else []), cache
+                topology, drawn, band_grid, band_f, opamp, sign, refs + ([r["h_nom"]] if shared else []), cache
             )
             if shared or model_disp:
                 g, d = (
                     proxies.pop()
                     if shared
-                    else _chunk_proxies(topology, drawn, None, disp_f, opamp, sign, [r["h_nom"]], {"h": cache["disp"]})[
-                        0
-                    ]
+                    else _chunk_proxies(topology, drawn, disp_grid, disp_f, opamp, sign, [r["h_nom"]], disp_cache)[0]
                 )
                 # band tails in the run's dtype (float32: half the memory)
                 self.disp_g.add(g.astype(r["dtype"], copy=False))
@@ -1054,6 +1078,46 @@ class _Worker:
             with np.errstate(divide="ignore", invalid="ignore"):
                 pv = topology.parameters(drawn)
             self.par_sel.add(np.vstack([np.broadcast_to(np.asarray(pv[k], dtype=float), (n,)) for k in r["p_names"]]))
+
+    def _opamp_grids(self, opamp, display: bool, refs: list):
+        """(band grid, display grid or None) for the op-amp model ``opamp`` written out as
+        polynomials, each row scaled by the nominal parts' denominator with that model; None when
+        the circuit is solved node by node (see :func:`circuit_polynomials`), or when the written-out
+        form does not fit the run's dtype: a trial on the nominal parts against ``refs`` (the band's
+        references, then the display's) overflows, or differs from the same in float64 by 1e-4
+        (relative |ratio|², diamond units: about 1e-3 dB and 0.01°) anywhere, as a polynomial of
+        high degree with coefficients far apart can in float32. Then the node solution in float64
+        is used."""
+        key = (id(opamp), display)
+        if key not in self._grids:
+            r = self.r
+            topology, nominal = r["topology"], r["nominal"]
+            with np.errstate(invalid="ignore", divide="ignore"):
+                poly = circuit_polynomials(topology, nominal, opamp.open_loop_polynomials())
+            grids = None
+            if poly is not None:
+                den = [float(np.ravel(c)[0]) for c in poly[1]]
+                band = _PolyGrid(r["band_f"], r["dtype"], den)
+                disp = _PolyGrid(r["disp_f"], r["dtype"], den) if display else None
+                cache = {"poly": poly}
+                checks = [(band, r["band_f"], refs[: len(refs) - display])]
+                if disp is not None:
+                    checks.append((disp, r["disp_f"], refs[-1:]))
+                try:
+                    ok = True
+                    for grid, f, rs in checks:
+                        exact = _PolyGrid(f, np.float64, den)
+                        with np.errstate(over="raise", invalid="raise", divide="raise"):
+                            got = _chunk_proxies_distinct(topology, nominal, grid, f, opamp, r["sign"], rs, cache)
+                            want = _chunk_proxies_distinct(topology, nominal, exact, f, opamp, r["sign"], rs, cache)
+                        for (g, d), (g0, d0) in zip(got, want):
+                            ok = ok and bool(np.all(np.abs(g / g0 - 1) < 1e-4) and np.all(np.abs(d - d0) < 1e-4))
+                    if ok:
+                        grids = (band, disp)
+                except FloatingPointError:
+                    pass
+            self._grids[key] = grids
+        return self._grids[key]
 
     def _count(self, drawn: dict, opamp, gkey) -> int:
         """How many of the chunk's draws give an unstable closed loop (:func:`count_unstable`), in
@@ -1118,7 +1182,8 @@ def run_tolerances(
     ``display_opamp``). ``dtype``: arithmetic of the coefficient path (float32; np.float64 to
     check it). ``workers``: threads sharing the chunks (the draws are made in order on this thread and
     every selection merges exactly, so the figures are the same for any count); left at None,
-    from :data:`HELPER_MIN_DRAWS` draws every other chunk goes to a helper process on the second
+    from :data:`HELPER_MIN_DRAWS` draws (:data:`HELPER_MIN_DRAWS_LIGHT` for a run with ideal op-amps
+    and no loop) every other chunk goes to a helper process on the second
     core (:func:`_two_core_run`, :mod:`convert.sidework`), else :data:`DEFAULT_WORKERS` threads. ``loop_count``: count, for each comparison with a loop reference, the
     draws whose closed loop with the plant is unstable (:func:`count_unstable`, on the op-amp
     model of that comparison). Returns :class:`ToleranceRun`."""
@@ -1160,6 +1225,7 @@ def run_tolerances(
                     lambda fx, op=c.opamp: _responses(topology, nominal, fx, op, sign)[0],
                 )
     run = dict(
+        nominal=nominal,
         loop_count=loop_count,
         nominal_change=nominal_change,
         topology=topology,
@@ -1219,17 +1285,29 @@ def run_tolerances(
 
 #: Fewest draws for which the Monte Carlo is shared with a helper process (convert.sidework).
 HELPER_MIN_DRAWS = 1000
+#: The same for a run with nothing but the float32 coefficient path (ideal op-amps, no loop, no
+#: stability count, e.g. the buy list's pricing runs): about 5 µs a draw, so below this many draws
+#: the fork and the merge cost more than the second core saves (10,000 draws: 0.08 s alone,
+#: 0.10-0.18 s with the helper, measured).
+HELPER_MIN_DRAWS_LIGHT = 100_000
 
 
 def _two_core_run(run: dict, source: PartDraws, draws: int, chunk: int) -> _Worker | None:
     """The reductions of every draw, every other chunk made in a helper process (the chunks
-    halved when there are fewer than two): each side draws the whole sequence from the same
+    evened out so that each side has the same number, of at most ``chunk`` draws): each side draws the whole sequence from the same
     seeded generators and processes its own chunks; the helper's selections travel back and are
     merged exactly (the figures do not depend on the chunk size or on who processed a chunk).
     None when no helper is used (too few draws, or none usable here)."""
-    if draws < HELPER_MIN_DRAWS or not sidework.helpers_usable():
+    heavy = (
+        run["loop_margins"] is not None
+        or run["loop_count"] is not None
+        or any(c.opamp is not None and not c.opamp.ideal for c in run["comparisons"])
+        or (run["display_opamp"] is not None and not run["display_opamp"].ideal)
+    )
+    if draws < (HELPER_MIN_DRAWS if heavy else HELPER_MIN_DRAWS_LIGHT) or not sidework.helpers_usable():
         return None
-    size = min(chunk, -(-draws // 2))
+    pairs = -(-draws // (2 * chunk))  # chunks of at most ``chunk``, an even count: each side gets the same share
+    size = -(-draws // (2 * pairs))
 
     def share(part: int) -> _Worker:
         w = _Worker(run)

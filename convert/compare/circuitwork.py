@@ -219,11 +219,36 @@ def monte_carlo_rows(
     )
 
 
+#: Points of the log grid on which a Monte Carlo takes each draw's loop margins.
+DRAWN_LOOP_POINTS = 320
+
+
+def drawn_loop_grid(crossover_hz, phase_crossover_hz, sensitivity_peak_hz, band_top_hz: float) -> np.ndarray:
+    """The grid (Hz) on which a Monte Carlo takes every draw's margins: :data:`DRAWN_LOOP_POINTS`
+    log-spaced points around the nominal loop's marks (gain and phase crossovers, sensitivity
+    peak; each None or NaN when the loop has none), from 1/30 of the gain crossover (else of the
+    lowest mark) to 30 times the highest mark; the band's top stands in when there is no mark.
+    The draws move the marks by a few per cent at most. One rule for a designed circuit
+    (:func:`convert.compare.stages.circuit_budget`) and a given card."""
+    marks = [float(x) for x in (crossover_hz, phase_crossover_hz, sensitivity_peak_hz) if x and np.isfinite(x)]
+    cross = float(crossover_hz) if crossover_hz and np.isfinite(crossover_hz) else None
+    lo = (cross or min(marks, default=float(band_top_hz))) / 30
+    hi = max(marks, default=float(band_top_hz)) * 30
+    return np.logspace(np.log10(lo), np.log10(hi), DRAWN_LOOP_POINTS)
+
+
+#: Grid density (points per decade) of the stability count's walk along 1 + L. The count follows
+#: arg(1 + L) from point to point and refines any step above 60° (up to 32⁴ times finer), so its
+#: result does not rest on the density; 50 a decade keeps the steps of a draw's loop far below
+#: the refinement threshold except where 1 + L passes near 0, where the refinement takes over.
+COUNT_POINTS_PER_DECADE = 50
+
+
 def loop_count_of(controller, plant):
     """What the tolerance engine needs to count unstable draws of a circuit's loop with ``plant``
-    (the case's plant, dead time exact): the margin grid of the nominal loop, widened until |L|
-    is below 1/100 at the top."""
-    f = margin_grid(controller, plant.model)
+    (the case's plant, dead time exact): a log grid over the nominal loop's margin range
+    (:data:`COUNT_POINTS_PER_DECADE`), widened until |L| is below 1/100 at the top."""
+    f = margin_grid(controller, plant.model, points_per_decade=COUNT_POINTS_PER_DECADE)
     theta = plant.dead_time_s
 
     def p_of(fx):
@@ -235,7 +260,7 @@ def loop_count_of(controller, plant):
             top = abs(controller.frequency_response(f[-1:], via="zpk")[0] * p_of(f[-1:])[0])
             if not top > 0.01:
                 break
-            f = np.concatenate([f, f[-1] * np.logspace(0, 1, 401)[1:]])
+            f = np.concatenate([f, f[-1] * np.logspace(0, 1, COUNT_POINTS_PER_DECADE + 1)[1:]])
     return LoopCount(f, p_of)
 
 

@@ -18,13 +18,13 @@ from convert.controller import Controller
 from convert.errors import UnrealizableError, InputError
 from convert.given import given_controller
 from convert.compare.loop import margin_grid, loop_margins
-from convert.compare.stages import fmt_hz as _fmt_hz, fmt_s as _fmt_s
+from convert.compare.stages import fmt_hz as _fmt_hz, fmt_s as _fmt_s, loop_spec
 from convert.digital.quantized import analyze
 from convert.digital.roots import RootForm
 from convert.values import format_value
 from convert.circuit.tolerance import DEFAULT_DRAWS, Comparison, run_tolerances
 from convert.circuit.topologies import get_topology
-from convert.compare.circuitwork import loop_count_of
+from convert.compare.circuitwork import drawn_loop_grid, loop_count_of
 
 DEFAULT_SEED = 1
 
@@ -317,6 +317,14 @@ def _circuit(case, given, info, src, band, duration, src_step, src_dist, draws):
         if tols:  # the one tolerance engine (chunked, bounded memory), as for a designed circuit
             n = int(draws or DEFAULT_DRAWS)
             loops = loop_f is not None
+            mc_f = mc_spec = None
+            if loops:  # each draw's margins on the grid a designed circuit's draws use, around the source loop's marks
+                marks = spec.margins(ref[None, band.size :])
+                mc_f = drawn_loop_grid(
+                    *(float(marks[k][0]) for k in ("crossover_hz", "phase_crossover_hz", "sensitivity_peak_hz")),
+                    band[-1],
+                )
+                mc_spec = loop_spec(case.plant, mc_f)
             mc = run_tolerances(
                 topo,
                 d["parts"],
@@ -326,11 +334,21 @@ def _circuit(case, given, info, src, band, duration, src_step, src_dist, draws):
                 seed=DEFAULT_SEED,
                 parameters=False,
                 comparisons=[
-                    Comparison("tolerances", nominal[: band.size], None, nominal[band.size :] if loops else None),
-                    Comparison("total", ref[: band.size], None, ref[band.size :] if loops else None),
+                    Comparison(
+                        "tolerances",
+                        nominal[: band.size],
+                        None,
+                        ctrl.frequency_response(mc_f, via="zpk") if loops else None,
+                    ),
+                    Comparison(
+                        "total",
+                        ref[: band.size],
+                        None,
+                        response_seen_from_loop(src, mc_f, via="zpk") if loops else None,
+                    ),
                 ],
-                loop_f_hz=loop_f,
-                loop_margins=spec.margins if loops else None,
+                loop_f_hz=mc_f,
+                loop_margins=mc_spec.margins if loops else None,
                 loop_count=loop_count_of(ctrl, case.plant) if loops else None,
             )
             rows["tolerances"] = bud.drawn_row(

@@ -168,10 +168,16 @@ def margins_from_response(f_hz: np.ndarray, magnitude: np.ndarray, phase_rad: np
 
 
 def margins_many(
-    f_hz: np.ndarray, magnitude: np.ndarray, phase_rad: np.ndarray, loop: np.ndarray | None = None
+    f_hz: np.ndarray,
+    magnitude: np.ndarray,
+    phase_rad: np.ndarray,
+    loop: np.ndarray | None = None,
+    *,
+    distance: np.ndarray | None = None,
 ) -> dict[str, np.ndarray]:
     """Vectorized margins for many loops at once: ``magnitude``/``phase_rad`` have shape (N, F);
-    ``loop`` (optional) the complex L itself, which saves rebuilding it from magnitude and phase.
+    ``loop`` (optional) the complex L itself, which saves rebuilding it from magnitude and phase;
+    ``distance`` (optional) |1 + L| itself (then ``loop`` is not needed).
 
     Returns arrays of length N (NaN where a figure does not exist). Crossings are located by
     linear interpolation in log-frequency between grid points.
@@ -185,8 +191,12 @@ def margins_many(
     # Every figure is computed only at the crossings, element by element as over the whole grid
     # (the same values); the grid-wide work is finding where the crossings are.
     # gain crossovers: |L| passes through 1 (log10|L| changes sign: |L| ≥ 1 on one side only)
-    up, down = mag >= 1.0, mag < 1.0  # neither where |L| is NaN
-    r, c = np.nonzero(up[:, :-1] & down[:, 1:] | down[:, :-1] & up[:, 1:])
+    up = mag >= 1.0
+    if np.isnan(mag.sum()):  # NaN is neither side of 1
+        down = mag < 1.0
+        r, c = np.nonzero(up[:, :-1] & down[:, 1:] | down[:, :-1] & up[:, 1:])
+    else:
+        r, c = np.nonzero(up[:, :-1] != up[:, 1:])
     s0, s1 = _log10_clipped(mag[r, c]), _log10_clipped(mag[r, c + 1])
     with np.errstate(divide="ignore", invalid="ignore"):
         frac = s0 / (s0 - s1)
@@ -197,13 +207,16 @@ def margins_many(
     pick = _first_nearest_zero(r, pm_at, n)
     pm, fc = _picked(pm_at, pick), 10 ** _picked(fc_log, pick)
     # phase crossings: phase passes through -180° - k·360°
-    psi = (ph + np.pi) / (2 * np.pi)
+    psi = np.add(ph, np.pi)
+    np.divide(psi, 2 * np.pi, out=psi)
     k = np.floor(psi)
     r, c = np.nonzero(k[:, :-1] != k[:, 1:])
     k0, k1 = k[r, c], k[r, c + 1]
+    del k
     target = np.maximum(k0, k1)  # the level crossed (psi = integer)
     with np.errstate(divide="ignore", invalid="ignore"):
         pfrac = (target - psi[r, c]) / (psi[r, c + 1] - psi[r, c])
+    del psi
     g0, g1 = _log10_clipped(mag[r, c]), _log10_clipped(mag[r, c + 1])
     gm_at = -20.0 * (g0 + pfrac * (g1 - g0))
     # The crossing nearest 0 dB either way (python-control's stability_margins rule): a
@@ -212,11 +225,20 @@ def margins_many(
     pick = _first_nearest_zero(r, gm_at, n)
     gm, fp = _picked(gm_at, pick), 10 ** _picked(logf[c] + pfrac * dlogf[c], pick)
     rows = np.arange(n)
-    if loop is None:
-        loop = mag * np.exp(1j * ph)
-    sens = 1.0 / np.abs(1.0 + loop)
-    si = np.argmax(sens, axis=1)
-    ms = sens[rows, si]
+    # the sensitivity peak: the largest 1/|1 + L| (the first on a tie, NaN first as argmax takes it)
+    if distance is None:
+        if loop is None:
+            loop = mag * np.exp(1j * ph)
+        distance = np.abs(1.0 + loop)
+    else:
+        distance = np.asarray(distance, dtype=float)
+    if np.isnan(distance.sum()):
+        sens = 1.0 / distance
+        si = np.argmax(sens, axis=1)
+        ms = sens[rows, si]
+    else:
+        si = np.argmin(distance, axis=1)  # 1/x falls as x rises: the same point as argmax of 1/|1 + L|
+        ms = 1.0 / distance[rows, si]
     return {
         "gain_margin_db": gm,
         "phase_crossover_hz": fp,
@@ -408,9 +430,12 @@ def margins_of_responses(
     beyond what unwrapping on the grid can follow."""
     f = np.asarray(f_hz, dtype=float)
     rational = np.atleast_2d(controller_responses) * plant.frequency_response(f, via="zpk")[None, :]
-    phase = unwrap_rows(np.angle(rational)) - 2 * np.pi * f[None, :] * dead_time_s
-    loop = rational * np.exp(-2j * np.pi * f * dead_time_s)[None, :]
-    return margins_many(f, np.abs(rational), phase, loop)
+    phase = unwrap_rows(np.angle(rational))
+    phase -= 2 * np.pi * f[None, :] * dead_time_s
+    mag = np.abs(rational)
+    rational *= np.exp(-2j * np.pi * f * dead_time_s)[None, :]  # now L with its dead time
+    rational += 1.0
+    return margins_many(f, mag, phase, distance=np.abs(rational))
 
 
 def unwrap_rows(p: np.ndarray) -> np.ndarray:
@@ -419,16 +444,18 @@ def unwrap_rows(p: np.ndarray) -> np.ndarray:
     almost none): the correction of every other step is the 0 ``np.unwrap`` puts there."""
     p = np.asarray(p, dtype=float)
     dd = np.diff(p, axis=1)
-    correct = np.zeros_like(dd)
     far = ~(np.abs(dd) < np.pi)
-    if far.any():
+    up = p.copy()
+    rows = np.flatnonzero(far.any(axis=1))  # only rows with a wrap change
+    if rows.size:
+        dd, far = dd[rows], far[rows]
+        correct = np.zeros_like(dd)
         d = dd[far]
         period = 2 * np.pi
         dmod = np.mod(d - (-np.pi), period) + (-np.pi)
         np.copyto(dmod, np.pi, where=(dmod == -np.pi) & (d > 0))
         correct[far] = dmod - d
-    up = p.copy()
-    up[:, 1:] = p[:, 1:] + correct.cumsum(axis=1)
+        up[rows, 1:] = p[rows, 1:] + correct.cumsum(axis=1)
     return up
 
 

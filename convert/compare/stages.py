@@ -20,7 +20,7 @@ import numpy as np
 from convert.compare import budget as bud
 from convert.compare.budget import BudgetRow
 from convert.compare.frequency import hold_and_delay_factor, response_seen_from_loop
-from convert.compare.circuitwork import loop_count_of, monte_carlo_rows
+from convert.compare.circuitwork import drawn_loop_grid, loop_count_of, monte_carlo_rows
 from convert.compare.loop import margin_grid, margins_of_responses
 from convert.controller import Controller
 from convert.digital.quantized import realized_controller as of, realized_response
@@ -269,20 +269,14 @@ def circuit_budget(
     nominal, rounded = design.nominal, design.rounded
     loop_f = None
     if plant is not None:
-        # around the source loop's crossovers: the draws move them by a few per cent at most
-        # (a figure may be absent: no crossover, or no interior sensitivity peak)
-        marks = [
-            x
-            for x in (
-                source_margins.crossover_hz,
-                source_margins.phase_crossover_hz,
-                source_margins.sensitivity_peak_hz,
-            )
-            if x
-        ]
-        lo = (source_margins.crossover_hz or min(marks, default=float(band[-1]))) / 30
-        hi = max(marks, default=float(band[-1])) * 30
-        loop_f = np.logspace(np.log10(lo), np.log10(hi), 320)
+        # around the source loop's crossovers (a figure may be absent: no crossover, or no
+        # interior sensitivity peak)
+        loop_f = drawn_loop_grid(
+            source_margins.crossover_hz,
+            source_margins.phase_crossover_hz,
+            source_margins.sensitivity_peak_hz,
+            band[-1],
+        )
     spec = (
         bud.LoopSpec(loop_f, lambda r: margins_of_responses(loop_f, r, plant.model, plant.dead_time_s))
         if plant

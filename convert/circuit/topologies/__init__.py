@@ -38,7 +38,7 @@ from convert.circuit.topologies.model import (
     analyse_target,
     node_responses,
     output_node,
-    polyval_many,
+    polyval_jw,
 )
 from convert.circuit.topologies.networks import (
     GROUND,
@@ -119,5 +119,5 @@ __all__ = [
     "node_responses",
     "output_node",
     "pid_parameters_from_coefficients",
-    "polyval_many",
+    "polyval_jw",
 ]

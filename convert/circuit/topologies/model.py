@@ -45,13 +45,38 @@ from convert.values import parse_value
 # ----------------------------------------------------------------------------------- helpers
 
 
-def polyval_many(coeffs: list, s: np.ndarray) -> np.ndarray:
-    """Horner over coefficient arrays of shape (draws,) at s of shape (freqs,) -> (draws, freqs)."""
-    s = np.asarray(s)
-    acc = np.asarray(coeffs[0], dtype=float)[..., None] * np.ones_like(s)
-    for c in coeffs[1:]:
-        acc = acc * s + np.asarray(c, dtype=float)[..., None]
-    return acc
+def polyval_jw(coeffs: list, w: np.ndarray) -> np.ndarray:
+    """P(jω) for real coefficient arrays (descending powers of s, each of shape (draws,) or a
+    scalar) at angular frequencies ``w`` (rad/s, shape (freqs,)) -> complex (draws, freqs).
+
+    Real arithmetic: P(jω) = E(−ω²) + jω·O(−ω²), E and O the even and odd parts, each by Horner
+    in x = −ω² in place (half the steps of a complex Horner in s, each a real multiply-add). For
+    an RC network's polynomials (real roots) the error is a few units of float64 rounding times
+    the degree, as for Horner in s."""
+    w = np.asarray(w, dtype=float)
+    cs = [np.asarray(c, dtype=float)[..., None] for c in coeffs]
+    shape = np.broadcast_shapes(w.shape, *[c.shape for c in cs])
+    x = -(w * w)
+    deg = len(cs) - 1
+    out = np.empty(shape + (2,))  # real and imaginary parts side by side: viewed as complex at the end
+    acc = np.empty(shape)  # Horner runs in a contiguous buffer
+    for k, first in ((0, deg), (1, deg - 1)):
+        seq = cs[first::-2] if first >= 0 else []  # ascending powers of x
+        if not seq:
+            out[..., k] = 0.0
+            continue
+        if len(seq) == 1:
+            acc[...] = seq[0]
+        else:
+            np.multiply(seq[-1], x, out=acc)
+            acc += seq[-2]
+            for c in reversed(seq[:-2]):
+                acc *= x
+                acc += c
+        if k:
+            acc *= w
+        out[..., k] = acc
+    return out.view(complex)[..., 0]
 
 
 @dataclass(frozen=True)
@@ -232,9 +257,9 @@ class Topology:
 
         ``path="setpoint"`` gives Cr(s) of a two-input stage.
         """
-        s = 2j * np.pi * np.asarray(f_hz, dtype=float)
+        w = 2 * np.pi * np.asarray(f_hz, dtype=float)
         num, den = self.setpoint_coefficients(parts) if path == "setpoint" else self.coefficients(parts)
-        return polyval_many(num, s) / polyval_many(den, s)
+        return polyval_jw(num, w) / polyval_jw(den, w)
 
     def controller_from_parts(self, parts: Mapping[str, object], *, name: str = "") -> Controller:
         """+C(s) as the stage realizes it (the positive form F(s)); the stage's sign is
@@ -343,6 +368,307 @@ def node_responses(
     return nodes
 
 
+# ------------------------------------------------------------- the circuit as polynomials in s
+# A rational function is (num, den), each a list of coefficients in ASCENDING powers of s, every
+# coefficient a float or an array over the draws. Exact zeros are the float 0.0, so a product
+# keeps them exact and a common factor s^k can be divided out.
+
+
+class _NotPolynomial(Exception):
+    """The circuit is one :func:`circuit_polynomials` does not write out (solved node by node)."""
+
+
+def _p_add(a: list, b: list) -> list:
+    if len(a) < len(b):
+        a, b = b, a
+    return [x + b[i] if i < len(b) else x for i, x in enumerate(a)]
+
+
+def _zero(c) -> bool:
+    return isinstance(c, float) and c == 0.0
+
+
+def _p_mul(a: list, b: list) -> list:
+    out: list = [0.0] * (len(a) + len(b) - 1)
+    for i, x in enumerate(a):
+        if _zero(x):
+            continue
+        for j, y in enumerate(b):
+            if not _zero(y):
+                out[i + j] = out[i + j] + x * y
+    return out
+
+
+def _r_add(x: tuple, y: tuple) -> tuple:
+    (a, b), (c, d) = x, y
+    if b is d:
+        return _p_add(a, c), b
+    return _p_add(_p_mul(a, d), _p_mul(c, b)), _p_mul(b, d)
+
+
+def _r_mul(x: tuple, y: tuple) -> tuple:
+    return _p_mul(x[0], y[0]), _p_mul(x[1], y[1])
+
+
+def _r_neg(x: tuple) -> tuple:
+    return [-c for c in x[0]], x[1]
+
+
+_ONE = [1.0]
+_R_ZERO = ([0.0], _ONE)
+
+
+def _r_impedance(net, p: Mapping[str, np.ndarray]) -> tuple | None:
+    """The impedance of ``net`` as a rational function of s; None for an open network."""
+    from convert.circuit.topologies.networks import C, R, Series
+
+    if isinstance(net, (R, C)):
+        v = np.asarray(p[net.name], dtype=float)
+        open_ = np.isinf(v) if isinstance(net, R) else v == 0
+        if open_.all():
+            return None
+        if open_.any():  # some draws open, some not: not one polynomial shape
+            raise _NotPolynomial
+        return ([v], _ONE) if isinstance(net, R) else (_ONE, [0.0, v])
+    if isinstance(net, Series):
+        parts = [_r_impedance(i, p) for i in net.items]
+        if any(z is None for z in parts):
+            return None
+        total = parts[0]
+        for z in parts[1:]:
+            total = _r_add(total, z)
+        return total
+    ys = [y for y in (_r_admittance(i, p) for i in net.items) if y is not _R_ZERO]
+    if not ys:
+        return None
+    total = ys[0]
+    for y in ys[1:]:
+        total = _r_add(total, y)
+    return total[1], total[0]
+
+
+def _r_admittance(net, p) -> tuple:
+    z = _r_impedance(net, p)
+    return _R_ZERO if z is None else (z[1], z[0])
+
+
+def _r_tidy(x: tuple) -> tuple:
+    """Divide out a common factor s^k, drop zero top coefficients, and scale both by the size of
+    the denominator (per draw), so products of many stages neither overflow nor underflow."""
+    num, den = list(x[0]), list(x[1])
+    while len(num) > 1 and len(den) > 1 and _zero(num[0]) and _zero(den[0]):
+        num, den = num[1:], den[1:]
+    for poly in (num, den):
+        while len(poly) > 1 and _zero(poly[-1]):
+            poly.pop()
+    size = np.max(np.abs(np.broadcast_arrays(*[np.asarray(c, dtype=float) for c in den])), axis=0)
+    if not (np.all(np.isfinite(size)) and np.all(size > 0)):
+        raise _NotPolynomial
+    return [c / size if not _zero(c) else c for c in num], [c / size if not _zero(c) else c for c in den]
+
+
+def circuit_polynomials(
+    topology: Topology, parts: Mapping[str, np.ndarray], open_loop: tuple[list, list] | None = None
+) -> tuple[list, list] | None:
+    """(num, den) of the circuit's output over the default drive (:func:`node_responses`) in
+    DESCENDING powers of s, the coefficients arrays over the draws, with op-amps of open-loop gain
+    ``open_loop`` = (num, den) in descending powers of s (None: ideal). The same equations as
+    :func:`node_responses`, in the same blocks, written out as polynomials (one multiply-add per
+    coefficient and draw instead of a complex network evaluation per frequency and draw): a stage
+    alone by its formula, stages that feed each other and junctions with the stages around them
+    by Cramer's rule on the block's equations (rows cleared of their denominators). None when a
+    block has more than :data:`MAX_WRITTEN_OUT` unknowns, or parts are open in some draws and not
+    in others (then the node solution is the one used)."""
+    drive = {"in": 1.0} if not topology.two_input else {"sp": 0.0, "meas": -1.0}
+    p = {k: np.asarray(v, dtype=float) for k, v in parts.items()}
+    a = None if open_loop is None else ([float(c) for c in open_loop[0][::-1]], [float(c) for c in open_loop[1][::-1]])
+    nodes: dict[str, tuple] = {k: ([float(v)], _ONE) for k, v in drive.items()}
+    items = _solve_order(topology)
+    try:
+        i = 0
+        while i < len(items):
+            j = _loop_block_end(items, i, nodes)
+            block = items[i : j + 1]
+            if j == i and isinstance(block[0], Stage):
+                nodes[block[0].output] = _r_tidy(_r_stage_alone(block[0], nodes, p, a))
+            else:
+                solved = _r_block(block, nodes, p, a)
+                if solved is None:
+                    return None
+                nodes.update({k: _r_tidy(v) for k, v in solved.items()})
+            i = j + 1
+    except _NotPolynomial:
+        return None
+    num, den = nodes[output_node(topology)]
+    return num[::-1], den[::-1]
+
+
+#: Most unknowns of one block (stages in a loop, a junction with its stages) written out by
+#: Cramer's rule; a larger block is solved node by node.
+MAX_WRITTEN_OUT = 4
+
+
+def _r_divider(st: Stage, p) -> tuple | None:
+    """The + input divider ratio zb / (zt + zb) of a stage, or None (grounded + input)."""
+    if st.plus is None:
+        return None
+    zt, zb = _r_impedance(st.plus[1], p), _r_impedance(st.plus[2], p)
+    if zt is None or zb is None:
+        raise _NotPolynomial
+    total = _r_add(zt, zb)
+    return _r_mul(zb, (total[1], total[0]))
+
+
+def _r_stage_alone(st: Stage, nodes: Mapping, p, a) -> tuple:
+    """out = A(V+·Yt − Σ Yk Vk) / (Yt + A·Yf), or (V+·Yt − Σ Yk Vk) / Yf for an ideal op-amp."""
+    yf = _r_admittance(st.feedback, p)
+    injected, yt = _R_ZERO, yf
+    for src, net in st.inputs:
+        y = _r_admittance(net, p)
+        if y is _R_ZERO:
+            continue
+        injected = _r_add(injected, _r_mul(nodes[src], y))
+        yt = _r_add(yt, y)
+    x = _r_neg(injected)
+    ratio = _r_divider(st, p)
+    if ratio is not None:
+        x = _r_add(_r_mul(_r_mul(nodes[st.plus[0]], ratio), yt), x)
+    if a is None:
+        return _r_mul(x, (yf[1], yf[0]))  # x / yf
+    den = _r_add(_r_mul((a[1], _ONE), yt), _r_mul((a[0], _ONE), yf))
+    return _r_mul(_r_mul((a[0], _ONE), x), (den[1], den[0]))
+
+
+def _r_block(block: list, nodes: Mapping, p, a) -> dict | None:
+    """The voltages a block drives, as rational functions: the equations of :func:`_stage_block`
+    (stages only) or :func:`_mixed_block` (with junctions), each row multiplied by its entries'
+    denominators, then Cramer's rule. None when the block has more than :data:`MAX_WRITTEN_OUT`
+    unknowns."""
+    inv_a = _R_ZERO if a is None else (a[1], a[0])
+    if not any(isinstance(x, Junction) for x in block):
+        index = {st.output: k for k, st in enumerate(block)}
+        n = len(block)
+        m = [[_R_ZERO] * n for _ in range(n)]
+        rhs = [_R_ZERO] * n
+        for k, st in enumerate(block):
+            yf = _r_admittance(st.feedback, p)
+            ys = [(src, _r_admittance(net, p)) for src, net in st.inputs]
+            yt = yf
+            for _, y in ys:
+                yt = _r_add(yt, y)
+            m[k][k] = _r_add(_r_add(m[k][k], _r_mul(yt, inv_a)), yf)
+            for src, y in ys:
+                if src in index:
+                    m[k][index[src]] = _r_add(m[k][index[src]], y)
+                else:
+                    rhs[k] = _r_add(rhs[k], _r_neg(_r_mul(nodes[src], y)))
+            ratio = _r_divider(st, p)
+            if ratio is not None:
+                src = st.plus[0]
+                if src in index:
+                    m[k][index[src]] = _r_add(m[k][index[src]], _r_neg(_r_mul(yt, ratio)))
+                else:
+                    rhs[k] = _r_add(rhs[k], _r_mul(_r_mul(nodes[src], yt), ratio))
+        wanted = index
+    else:
+        index, minus, n = _mixed_unknowns(block)
+        if n > MAX_WRITTEN_OUT:
+            return None
+        m = [[_R_ZERO] * n for _ in range(n)]
+        rhs = [_R_ZERO] * n
+
+        def put(row, node, coeff):
+            if node == GROUND:
+                return
+            if node in index:
+                m[row][index[node]] = _r_add(m[row][index[node]], coeff)
+            else:
+                rhs[row] = _r_add(rhs[row], _r_neg(_r_mul(coeff, nodes[node])))
+
+        adm = {
+            k: [(src, _r_admittance(net, p)) for src, net in x.inputs]
+            for k, x in enumerate(block)
+            if isinstance(x, Stage)
+        }
+        for k, x in enumerate(block):
+            if isinstance(x, Junction):
+                row = index[x.name]
+                for node, net in x.branches:
+                    y = _r_admittance(net, p)
+                    m[row][row] = _r_add(m[row][row], y)
+                    put(row, node, _r_neg(y))
+                for kk, st in enumerate(block):
+                    if not isinstance(st, Stage):
+                        continue
+                    for src, y in adm[kk]:
+                        if src == x.name:
+                            m[row][row] = _r_add(m[row][row], y)
+                            m[row][minus[kk]] = _r_add(m[row][minus[kk]], _r_neg(y))
+                    if st.plus is not None and st.plus[0] == x.name:
+                        zt, zb = _r_impedance(st.plus[1], p), _r_impedance(st.plus[2], p)
+                        if zt is None or zb is None:
+                            raise _NotPolynomial
+                        total = _r_add(zt, zb)
+                        m[row][row] = _r_add(m[row][row], (total[1], total[0]))
+                continue
+            yf = _r_admittance(x.feedback, p)
+            out, vm = index[x.output], minus[k]
+            for src, y in adm[k]:
+                put(out, src, y)
+                m[out][vm] = _r_add(m[out][vm], _r_neg(y))
+            m[out][out] = _r_add(m[out][out], yf)
+            m[out][vm] = _r_add(m[out][vm], _r_neg(yf))
+            m[vm][vm] = _r_add(m[vm][vm], (_ONE, _ONE))
+            m[vm][out] = _r_add(m[vm][out], inv_a)
+            ratio = _r_divider(x, p)
+            if ratio is not None:
+                put(vm, x.plus[0], _r_neg(ratio))
+        wanted = index
+    if n > MAX_WRITTEN_OUT:
+        return None
+    rows = [_cleared(m[r] + [rhs[r]]) for r in range(n)]
+    mat = [row[:n] for row in rows]
+    b = [row[n] for row in rows]
+    det = _p_det(mat)
+    out = {}
+    for name, col in wanted.items():
+        mc = [[b[r] if c == col else mat[r][c] for c in range(n)] for r in range(n)]
+        out[name] = (_p_det(mc), det)
+    return out
+
+
+def _cleared(row: list) -> list:
+    """Polynomials proportional to the rational entries of one equation: each times the product
+    of the other entries' distinct denominators."""
+    dens: list = []
+    for _, d in row:
+        if not (len(d) == 1 and not isinstance(d[0], np.ndarray) and d[0] == 1.0) and not any(d is e for e in dens):
+            dens.append(d)
+    out = []
+    for num, d in row:
+        poly = num
+        for e in dens:
+            if e is not d:
+                poly = _p_mul(poly, e)
+        out.append(poly)
+    return out
+
+
+def _p_det(mat: list) -> list:
+    """Determinant of a small square matrix of polynomials (Laplace along the first row)."""
+    n = len(mat)
+    if n == 1:
+        return mat[0][0]
+    total = [0.0]
+    for j in range(n):
+        if all(_zero(c) for c in mat[0][j]):
+            continue
+        minor = [row[:j] + row[j + 1 :] for row in mat[1:]]
+        term = _p_mul(mat[0][j], _p_det(minor))
+        total = _p_add(total, term if j % 2 == 0 else [-c for c in term])
+    return total
+
+
 def _reads(st: Stage) -> set[str]:
     return {src for src, _ in st.inputs} | ({st.plus[0]} if st.plus else set())
 
@@ -393,6 +719,18 @@ def _loop_block_end(items: list, i: int, known: Mapping) -> int:
         needed |= _needs(items[j])
 
 
+def _mixed_unknowns(block) -> tuple[dict, dict, int]:
+    """The unknowns of a block with junctions: (node -> index for each stage output and junction,
+    block position of a stage -> index of its inverting input, count)."""
+    index: dict[str, int] = {}
+    minus: dict[int, int] = {}
+    for k, x in enumerate(block):
+        index[_drives(x)] = len(index) + len(minus)
+        if isinstance(x, Stage):
+            minus[k] = index[_drives(x)] + 1
+    return index, minus, len(index) + len(minus)
+
+
 def _mixed_block(block, nodes, p, s, open_loop_gain):
     """Stages and junctions solved together by nodal analysis (unknowns: each stage's output and
     inverting-input voltage, each junction's voltage).
@@ -402,13 +740,7 @@ def _mixed_block(block, nodes, p, s, open_loop_gain):
     junction, Σ Yb (Vj − Vb) + Σ Yk (Vj − V−k) + Vj/(Zt + Zb) = 0 over its branches, the stage inputs
     it feeds and the + dividers it feeds. Known nodes move to the right-hand side.
     """
-    index: dict[str, int] = {}
-    minus: dict[int, int] = {}
-    for k, x in enumerate(block):
-        index[_drives(x)] = len(index) + len(minus)
-        if isinstance(x, Stage):
-            minus[k] = index[_drives(x)] + 1
-    n = len(index) + len(minus)
+    index, minus, n = _mixed_unknowns(block)
     with np.errstate(divide="ignore", invalid="ignore"):
         adm = {}
         for k, x in enumerate(block):
