@@ -53,13 +53,12 @@ from convert.digital.fixedpoint import (
     Realized,
     StoredSection,
     _is_marginal,
+    impulse_length,
     z_equivalent,
 )
 from convert.digital.structures import Layout
 from convert.digital.wordformats import WordFormat, quantize_coefficient
 from convert.errors import InputError, UnrealizableError
-
-MAX_IMPULSE = 2_000_000
 
 
 # ----------------------------------------------------------------------------- node bounds
@@ -100,15 +99,14 @@ def node_bounds(layout: Layout, r: float, u: float | None, word: WordFormat):
     """Per section: (output bound, [state bounds]) in user units for inputs within ±R; the last
     section may integrate (bounds through the output level U, see the module doc). Returns
     (bounds, marginal flags)."""
-    from scipy.signal import sosfilt, tf2sos
+    from convert.digital.impulse import Cascade
 
-    rows: list[np.ndarray] = []
-    radius = 0.0
     out = []
     flags = []
     n_sec = len(layout.sections)
+    finite = []
+    radius = 0.0
     for i, s in enumerate(layout.sections):
-        b, a = z_equivalent(layout, s)
         if _is_marginal(s.poles):
             if i != n_sec - 1:
                 raise UnrealizableError(
@@ -122,23 +120,26 @@ def node_bounds(layout: Layout, r: float, u: float | None, word: WordFormat):
                     "range; give output limits (the integrator saturates there)",
                     key="output_limits",
                 )
-            out.append(None)
-            flags.append(True)
-            continue
-        n = max(len(b), len(a), 3)
-        bb = np.concatenate([b, np.zeros(n - len(b))])
-        aa = np.concatenate([a, np.zeros(n - len(a))])
-        prev = np.array(rows) if rows else None
-        rows.extend(tf2sos(bb, aa) if n > 3 else [np.concatenate([bb, aa])])
+            break
+        finite.append(z_equivalent(layout, s))
         radius = max([radius] + [abs(p) for p in s.poles])
-        length = int(min(MAX_IMPULSE, max(1000, math.ceil(30.0 / max(1.0 - radius, 1e-300)))))
-        x = np.zeros(length)
-        x[0] = 1.0
-        h_in = sosfilt(prev, x) if prev is not None else x
-        h_y = sosfilt(np.array(rows), x)
+    h_all = Cascade(finite).impulse(impulse_length(radius)) if finite else None
+    radius = 0.0
+    for i, s in enumerate(layout.sections[: len(finite)]):
+        radius = max([radius] + [abs(p) for p in s.poles])
+        length = impulse_length(radius)
+        h_y = h_all[i, :length]
+        if i:
+            h_in = h_all[i - 1, :length]
+        else:
+            h_in = np.zeros(length)
+            h_in[0] = 1.0
         states = state_responses(layout, s, h_in, h_y)
         out.append((_l1(h_y, radius) * r, [_l1(v, radius) * r for v in states]))
         flags.append(False)
+    if len(finite) < n_sec:
+        out.append(None)
+        flags.append(True)
     return out, flags
 
 
