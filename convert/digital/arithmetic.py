@@ -74,6 +74,7 @@ class FloatModel:
         self.coefs = [([c(v) for v in s.b], [c(v) for v in s.a]) for s in real.sections]
         self.delta = c(real.layout.delta_step) if real.layout.delta_step else None
         self._df1 = [(b[0], tuple(b[1:]), tuple(a[1:])) for b, a in self.coefs]
+        self._step = self.unguarded_step = self._step_df1 if self.form == "df1" else self._step_states
         self.reset()
 
     def reset(self) -> None:
@@ -116,13 +117,18 @@ class FloatModel:
 
     def unguarded_step(self, x) -> float:
         """:meth:`step` for a caller that holds ``np.errstate(over="ignore", invalid="ignore")``
-        (entering that context costs about a microsecond, as much as a step)."""
+        (entering that context costs about a microsecond, as much as a step). Replaced per
+        instance by the form's own step (one call less per sample)."""
         return self._step(x)
 
     def _step(self, x) -> float:
         # the caller holds np.errstate (overflow to inf is the format's behaviour)
         if self.form == "df1":
             return self._step_df1(x)
+        return self._step_states(x)
+
+    def _step_states(self, x) -> float:
+        """Direct form II transposed and delta sections (module doc)."""
         c = self.cast
         v = c(x)
         for i, (b, a) in enumerate(self.coefs):

@@ -391,10 +391,6 @@ def limit_cycles(real: Realized, layout: Layout, notes: list[str], trials: int, 
     drift = []
 
     lo_w, hi_w = np.int64(w.word_min), np.int64(w.word_max)
-
-    def clip(v):
-        return np.minimum(np.maximum(v, lo_w), hi_w)
-
     delta = real.form == "delta"
     for i, (s, s0) in enumerate(zip(real.sections, layout.sections)):
         m = len(s.p_int)
@@ -410,13 +406,7 @@ def limit_cycles(real: Realized, layout: Layout, notes: list[str], trials: int, 
             undecided.append(i + 1)
         lo, hi = (-64, 64) if marginal else (w.word_min // 2, w.word_max // 2)
         st = [rng.integers(lo, hi, size=trials, dtype=np.int64) for _ in range(m)]
-        amp = np.zeros(trials, dtype=np.int64)
-        prev = None
-        for k in range(n):
-            y = step_section(sec, 0, st, clip)  # zero input: the input terms are plain 0
-            if k >= n - (50 if marginal else 100) and prev is not None:
-                amp = np.maximum(amp, np.abs(y - prev) if marginal else np.abs(y))
-            prev = y
+        amp = _zero_input_section(sec, st, n, 50 if marginal else 100, marginal, lo_w, hi_w)
         lsb = int(amp.max())
         if marginal:
             if lsb:
@@ -429,3 +419,45 @@ def limit_cycles(real: Realized, layout: Layout, notes: list[str], trials: int, 
 
     limit_cycle_notes(notes, undecided, worst_lsb, worst_units)
     return worst_lsb, worst_units, drift, worst_section
+
+
+def _zero_input_section(sec, st: list, n: int, window: int, marginal: bool, lo, hi) -> np.ndarray:
+    """:func:`step_section` with zero input for n samples from the state words ``st`` (int64
+    arrays, one entry per trial; changed in place), with in-place int64 operations (the input
+    terms are exactly 0: (0·B + 2^(E−1)) >> E = 0). Returns per trial the largest |y| (or, for a
+    section holding an integrator, |y − previous y|) over the last ``window`` samples, the first
+    sample excepted."""
+    frac, _, aq, pq, is_delta, _ = sec
+    m = len(st)
+    half, one = np.int64(1 << (frac - 1)), 1 << frac
+    y, prev = np.empty_like(st[0]), np.empty_like(st[0])
+    acc, tmp = np.empty_like(st[0]), np.empty_like(st[0])
+    amp = np.zeros_like(st[0])
+    for k in range(n):
+        np.multiply(st[0], pq[0], out=acc)
+        np.add(acc, half, out=acc)
+        np.right_shift(acc, frac, out=acc)
+        np.maximum(acc, lo, out=y)
+        np.minimum(y, hi, out=y)
+        for j in range(m):
+            np.multiply(y, aq[j + 1], out=acc)
+            np.negative(acc, out=acc)
+            if j + 1 < m:
+                np.multiply(st[j + 1], pq[j + 1], out=tmp)
+                np.add(acc, tmp, out=acc)
+            if is_delta:
+                np.multiply(st[j], one, out=tmp)
+                np.add(acc, tmp, out=acc)
+            np.add(acc, half, out=acc)
+            np.right_shift(acc, frac, out=acc)
+            np.maximum(acc, lo, out=st[j])
+            np.minimum(st[j], hi, out=st[j])
+        if k >= n - window and k > 0:
+            if marginal:
+                np.subtract(y, prev, out=tmp)
+                np.abs(tmp, out=tmp)
+            else:
+                np.abs(y, out=tmp)
+            np.maximum(amp, tmp, out=amp)
+        y, prev = prev, y
+    return amp
