@@ -1339,7 +1339,7 @@ def _simulate_realized(model, t_s, plant, dead_time_s, delay_s, duration_s, h, r
     u_now = u_in = 0.0
     ref = _Prefilter(pre, r, t_s).samples(steps // every + 1).tolist()
     two = getattr(model, "two_inputs", False)  # a PID block: step(setpoint, measurement)
-    step = model.step if two else getattr(model, "unguarded_step", model.step)
+    step = getattr(model, "unguarded_step", model.step)
     for k in range(steps + 1):
         y = output(x, u_in)
         if k % every == 0:
