@@ -78,11 +78,18 @@ def test_state_form_zero_input_matches_step_section():
                     m = len(s.p_int)
                     if m == 0:
                         continue
-                    sec = (s.shift, list(s.b_int), [0] + list(s.a_int[1:]), list(s.p_int), structure == "delta",
-                           list(s.b_shifts))
+                    sec = (
+                        s.shift,
+                        list(s.b_int),
+                        [0] + list(s.a_int[1:]),
+                        list(s.p_int),
+                        structure == "delta",
+                        list(s.b_shifts),
+                    )
                     st = [rng.integers(w.word_min // 2, w.word_max // 2, size=5, dtype=np.int64) for _ in range(m)]
-                    got = _zero_input_section(sec, [v.copy() for v in st], 250, 100, False, np.int64(w.word_min),
-                                              np.int64(w.word_max))
+                    got = _zero_input_section(
+                        sec, [v.copy() for v in st], 250, 100, False, np.int64(w.word_min), np.int64(w.word_max)
+                    )
 
                     def clip(v, lo=w.word_min, hi=w.word_max):
                         return lo if v < lo else hi if v > hi else v

@@ -74,7 +74,6 @@ class FloatModel:
         self.coefs = [([c(v) for v in s.b], [c(v) for v in s.a]) for s in real.sections]
         self.delta = c(real.layout.delta_step) if real.layout.delta_step else None
         self._df1 = [(b[0], tuple(b[1:]), tuple(a[1:])) for b, a in self.coefs]
-        self._step = self.unguarded_step = self._step_df1 if self.form == "df1" else self._step_states
         self.reset()
 
     def reset(self) -> None:
@@ -115,10 +114,59 @@ class FloatModel:
         with np.errstate(over="ignore", invalid="ignore"):
             return self._step(x)
 
+    def kernel(self) -> tuple[list[str], dict, list[tuple[str, object]]]:
+        """The step as straight-line Python source, for a caller that compiles it into its own
+        loop (the closed-loop run, :func:`convert.compare.loop._simulate_realized`):
+        ``(lines, constants, states)``. The lines take the input in ``v`` and leave the output
+        (in the format's type) in ``v``, with the operations of :meth:`step` in its order;
+        ``constants`` maps the names they use to the stored coefficients (and ``_C``, the cast);
+        ``states`` lists (name, value) of the current state, in the order
+        :meth:`store_kernel_states` takes them back."""
+        lines = ["v = _C(v)"]
+        consts: dict = {"_C": self.cast}
+        states: list[tuple[str, object]] = []
+        for i, (b, a) in enumerate(self.coefs):
+            consts.update({f"b{i}_{k}": c for k, c in enumerate(b)})
+            consts.update({f"a{i}_{k}": c for k, c in enumerate(a)})
+            if self.form == "df1":
+                xh, yh = self.state[i]
+                states += [(f"xh{i}_{j}", val) for j, val in enumerate(xh)]
+                states += [(f"yh{i}_{j}", val) for j, val in enumerate(yh)]
+                lines.append(f"acc = b{i}_0 * v")
+                lines += [f"acc = acc + b{i}_{k} * xh{i}_{k - 1}" for k in range(1, len(b))]
+                lines += [f"acc = acc - a{i}_{k} * yh{i}_{k - 1}" for k in range(1, len(a))]
+                if xh:  # the histories shift (as insert(0, ·), pop())
+                    lines += [f"xh{i}_{j} = xh{i}_{j - 1}" for j in range(len(xh) - 1, 0, -1)] + [f"xh{i}_0 = v"]
+                    lines += [f"yh{i}_{j} = yh{i}_{j - 1}" for j in range(len(yh) - 1, 0, -1)]
+                    lines += [f"yh{i}_0 = acc"] if yh else []
+                lines.append("v = acc")
+                continue
+            st = self.state[i]
+            states += [(f"s{i}_{k}", val) for k, val in enumerate(st)]
+            m = len(a) - 1
+            lines.append(f"yy = b{i}_0 * v + s{i}_0" if m else f"yy = b{i}_0 * v")
+            for k in range(m):
+                lines.append(f"t = b{i}_{k + 1} * v - a{i}_{k + 1} * yy")
+                nxt = f"t + s{i}_{k + 1}" if k + 1 < m else "t"
+                if self.form == "df2t":
+                    lines.append(f"s{i}_{k} = {nxt}")
+                else:
+                    consts["dl"] = self.delta
+                    lines += [f"w = {nxt}", f"s{i}_{k} = s{i}_{k} + dl * w"]
+            lines.append("v = yy")
+        return lines, consts, states
+
+    def store_kernel_states(self, values) -> None:
+        """The state after a compiled run: ``values`` in the order of :meth:`kernel`'s states."""
+        it = iter(values)
+        if self.form == "df1":
+            self.state = [([next(it) for _ in xh], [next(it) for _ in yh]) for xh, yh in self.state]
+        else:
+            self.state = [[next(it) for _ in st] for st in self.state]
+
     def unguarded_step(self, x) -> float:
         """:meth:`step` for a caller that holds ``np.errstate(over="ignore", invalid="ignore")``
-        (entering that context costs about a microsecond, as much as a step). Replaced per
-        instance by the form's own step (one call less per sample)."""
+        (entering that context costs about a microsecond, as much as a step)."""
         return self._step(x)
 
     def _step(self, x) -> float:
