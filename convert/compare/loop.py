@@ -1306,6 +1306,7 @@ def _plant_stepper(phi, g0_u, g1_u, g0_d, g1_d, c_row, d_p):
             return 0.0 + c0 * x[0] + c1 * x[1] + d_p * u_in
 
         return advance, output
+
     def dot(row, x):
         acc = 0.0
         for p, xi in zip(row, x):
