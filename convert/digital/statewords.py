@@ -423,41 +423,45 @@ def limit_cycles(real: Realized, layout: Layout, notes: list[str], trials: int, 
 
 def _zero_input_section(sec, st: list, n: int, window: int, marginal: bool, lo, hi) -> np.ndarray:
     """:func:`step_section` with zero input for n samples from the state words ``st`` (int64
-    arrays, one entry per trial; changed in place), with in-place int64 operations (the input
-    terms are exactly 0: (0·B + 2^(E−1)) >> E = 0). Returns per trial the largest |y| (or, for a
-    section holding an integrator, |y − previous y|) over the last ``window`` samples, the first
-    sample excepted."""
+    arrays, one entry per trial), all states of a sample in one array operation (each update
+    reads the previous sample's states and the new output only, see the module doc; the input
+    terms are exactly 0: (0·B + 2^(E−1)) >> E = 0), int64 in place. Returns per trial the
+    largest |y| (or, for a section holding an integrator, |y − previous y|) over the last
+    ``window`` samples, the first sample excepted."""
     frac, _, aq, pq, is_delta, _ = sec
     m = len(st)
-    half, one = np.int64(1 << (frac - 1)), 1 << frac
-    y, prev = np.empty_like(st[0]), np.empty_like(st[0])
-    acc, tmp = np.empty_like(st[0]), np.empty_like(st[0])
-    amp = np.zeros_like(st[0])
+    half, one, p0 = np.int64(1 << (frac - 1)), np.int64(1 << frac), np.int64(pq[0])
+    states = np.array(st, dtype=np.int64)  # (m, trials)
+    a_col = np.array(aq[1 : m + 1], dtype=np.int64)[:, None]
+    p_col = np.array(pq[1:m], dtype=np.int64)[:, None]
+    acc, tmp = np.empty_like(states), np.empty_like(states)
+    y, prev = np.empty_like(states[0]), np.empty_like(states[0])
+    diff = np.empty_like(y)
+    amp = np.zeros_like(y)
     for k in range(n):
-        np.multiply(st[0], pq[0], out=acc)
+        np.multiply(states[0], p0, out=y)
+        np.add(y, half, out=y)
+        np.right_shift(y, frac, out=y)
+        np.maximum(y, lo, out=y)
+        np.minimum(y, hi, out=y)
+        np.multiply(a_col, y, out=acc)
+        np.negative(acc, out=acc)
+        if m > 1:
+            np.multiply(p_col, states[1:], out=tmp[:-1])
+            np.add(acc[:-1], tmp[:-1], out=acc[:-1])
+        if is_delta:
+            np.multiply(states, one, out=tmp)
+            np.add(acc, tmp, out=acc)
         np.add(acc, half, out=acc)
         np.right_shift(acc, frac, out=acc)
-        np.maximum(acc, lo, out=y)
-        np.minimum(y, hi, out=y)
-        for j in range(m):
-            np.multiply(y, aq[j + 1], out=acc)
-            np.negative(acc, out=acc)
-            if j + 1 < m:
-                np.multiply(st[j + 1], pq[j + 1], out=tmp)
-                np.add(acc, tmp, out=acc)
-            if is_delta:
-                np.multiply(st[j], one, out=tmp)
-                np.add(acc, tmp, out=acc)
-            np.add(acc, half, out=acc)
-            np.right_shift(acc, frac, out=acc)
-            np.maximum(acc, lo, out=st[j])
-            np.minimum(st[j], hi, out=st[j])
+        np.maximum(acc, lo, out=states)
+        np.minimum(states, hi, out=states)
         if k >= n - window and k > 0:
             if marginal:
-                np.subtract(y, prev, out=tmp)
-                np.abs(tmp, out=tmp)
+                np.subtract(y, prev, out=diff)
+                np.abs(diff, out=diff)
             else:
-                np.abs(y, out=tmp)
-            np.maximum(amp, tmp, out=amp)
+                np.abs(y, out=diff)
+            np.maximum(amp, diff, out=amp)
         y, prev = prev, y
     return amp
