@@ -244,6 +244,42 @@ class FixedModel:
         v = math.floor(float(x) / self.real.input_range * self.full + 0.5)
         return self.lo if v < self.lo else self.hi if v > self.hi else int(v)
 
+    def kernel(self) -> tuple[list[str], dict, list[tuple[str, object]]]:
+        """:meth:`step` as straight-line Python source (to_word, :meth:`step_int`, from_word, in
+        their order), as :meth:`FloatModel.kernel` describes: the input in ``v``, the output
+        (user units) left in ``v``."""
+        import math
+
+        consts: dict = {"_floor": math.floor, "R": self.real.input_range, "FULL": self.full}
+        consts.update({"LO": self.lo, "HI": self.hi, "SCALE": self.real.node_scales[-1]})
+        lines = ["v = _floor(float(v) / R * FULL + 0.5)", "v = LO if v < LO else HI if v > HI else int(v)"]
+        states: list[tuple[str, object]] = []
+        for i, ((b, a, sh), (xh, yh)) in enumerate(zip(self.secs, self.state)):
+            consts.update({f"b{i}_{k}": c for k, c in enumerate(b)})
+            consts.update({f"a{i}_{k}": c for k, c in enumerate(a)})
+            states += [(f"xh{i}_{j}", val) for j, val in enumerate(xh)]
+            states += [(f"yh{i}_{j}", val) for j, val in enumerate(yh)]
+            lines.append(f"acc = b{i}_0 * v")
+            lines += [f"acc = acc + b{i}_{k} * xh{i}_{k - 1}" for k in range(1, len(b))]
+            e = self.b_shifts[i]
+            if e:
+                lines.append(f"acc = (acc + {(1 << (e - 1)) if self.round_half else 0}) >> {e}")
+            lines += [f"acc = acc - a{i}_{k} * yh{i}_{k}" for k in range(len(a))]
+            lines.append(f"yy = (acc + {(1 << (sh - 1)) if self.round_half else 0}) >> {sh}")
+            lines.append("yy = LO if yy < LO else HI if yy > HI else yy")
+            if xh:
+                lines += [f"xh{i}_{j} = xh{i}_{j - 1}" for j in range(len(xh) - 1, 0, -1)] + [f"xh{i}_0 = v"]
+            if yh:
+                lines += [f"yh{i}_{j} = yh{i}_{j - 1}" for j in range(len(yh) - 1, 0, -1)] + [f"yh{i}_0 = yy"]
+            lines.append("v = yy")
+        lines.append("v = float(v) * SCALE / FULL")
+        return lines, consts, states
+
+    def store_kernel_states(self, values) -> None:
+        """The state after a compiled run: ``values`` in the order of :meth:`kernel`'s states."""
+        it = iter(values)
+        self.state = [([next(it) for _ in xh], [next(it) for _ in yh]) for xh, yh in self.state]
+
     def from_word(self, v) -> float:
         return float(v) * self.real.node_scales[-1] / self.full
 
