@@ -40,6 +40,7 @@ again in the other mode, so the clamp is exact at every step.
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -719,6 +720,8 @@ class _Prefilter:
 
     def samples(self, count: int) -> np.ndarray:
         """r_f_k for k = 0..count−1 (a digital F, or an analog one sampled every step_s)."""
+        if not self.n:  # no states: the same value every sample
+            return np.full(count, 0.0 + self.d * self.r)
         x = np.zeros(self.n)
         out = np.empty(count)
         for k in range(count):
@@ -1297,13 +1300,114 @@ def _simulate_sampled(controller, plant, dead_time_s, delay_s, duration_s, h, r,
     return LoopResponse(t=np.arange(steps + 1) * h, y=y, u=u, kind=kind, sub_step_s=h)
 
 
+def _plant_stepper(phi, g0_u, g1_u, g0_d, g1_d, c_row, d_p):
+    """(advance, output) of the plant on the sub-step grid, on Python floats: ``advance(x, wu0,
+    wu1, wd0, wd1)`` = Φ·x + G0u·wu0 + G1u·wu1 + G0d·wd0 + G1d·wd1 and ``output(x, u_in)`` =
+    C·x + D·u_in, each row summed left to right from 0.0 (what ``sum(map(mul, row, x))`` did
+    before Python 3.12 made sum() compensated; :func:`_compiled_loop` sums so too), written out
+    for one and two states, the common plants."""
+    rows = list(zip(phi.tolist(), g0_u.tolist(), g1_u.tolist(), g0_d.tolist(), g1_d.tolist()))
+    if len(rows) == 1:
+        ((p00,), a0, a1, b0, b1) = rows[0]
+        (c0,) = c_row
+
+        def advance(x, wu0, wu1, wd0, wd1):
+            return (0.0 + p00 * x[0] + a0 * wu0 + a1 * wu1 + b0 * wd0 + b1 * wd1,)
+
+        def output(x, u_in):
+            return 0.0 + c0 * x[0] + d_p * u_in
+
+        return advance, output
+    if len(rows) == 2:
+        ((p00, p01), a00, a10, b00, b10), ((p10, p11), a01, a11, b01, b11) = rows
+        c0, c1 = c_row
+
+        def advance(x, wu0, wu1, wd0, wd1):
+            x0, x1 = x
+            return (
+                0.0 + p00 * x0 + p01 * x1 + a00 * wu0 + a10 * wu1 + b00 * wd0 + b10 * wd1,
+                0.0 + p10 * x0 + p11 * x1 + a01 * wu0 + a11 * wu1 + b01 * wd0 + b11 * wd1,
+            )
+
+        def output(x, u_in):
+            return 0.0 + c0 * x[0] + c1 * x[1] + d_p * u_in
+
+        return advance, output
+
+    def dot(row, x):
+        acc = 0.0
+        for p, xi in zip(row, x):
+            acc = acc + p * xi
+        return acc
+
+    def advance(x, wu0, wu1, wd0, wd1):
+        return [dot(row, x) + a0 * wu0 + a1 * wu1 + b0 * wd0 + b1 * wd1 for row, a0, a1, b0, b1 in rows]
+
+    def output(x, u_in):
+        return dot(c_row, x) + d_p * u_in
+
+    return advance, output
+
+
+@functools.lru_cache(maxsize=64)
+def _compiled_loop(dim: int, lines: tuple[str, ...], consts: tuple[str, ...], states: tuple[str, ...]):
+    """The loop of :func:`_simulate_realized` with a model's step (its ``kernel()`` source lines)
+    and a ``dim``-state plant written out as one Python function (compiled once per shape; the
+    numbers are its arguments): no call per sample. Every operation is the one the step-by-step
+    loop makes, in its order (rows summed from 0.0, left to right, as :func:`_plant_stepper`
+    does), so the floats are the same (tests/test_loop_realized.py compares the two runs)."""
+    xs = [f"x_{i}" for i in range(dim)]
+    taps = ("g0u", "g1u", "g0d", "g1d")
+    plant_names = [f"p_{i}_{j}" for i in range(dim) for j in range(dim)]
+    plant_names += [f"{g}_{i}" for g in taps for i in range(dim)] + [f"c_{i}" for i in range(dim)] + ["d_p"]
+    rows = [
+        " + ".join(["0.0"] + [f"p_{i}_{j} * x_{j}" for j in range(dim)])
+        + f" + g0u_{i} * wu0 + g1u_{i} * wu1 + g0d_{i} * wd0 + g1d_{i} * wd1"
+        for i in range(dim)
+    ]
+    body = [
+        "def run(steps, every, n_u, n_d, dist, lo, hi, ref, plant, consts, states):",
+        f"    ({', '.join(plant_names)},) = plant",
+        *([f"    ({', '.join(consts)},) = consts"] if consts else []),
+        *([f"    ({', '.join(states)},) = states"] if states else []),
+        *[f"    {x} = 0.0" for x in xs],
+        "    u_hist = []",
+        "    y_out = [0.0] * (steps + 1)",
+        "    u_out = [0.0] * (steps + 1)",
+        "    u_now = u_in = 0.0",
+        "    for k in range(steps + 1):",
+        "        y = " + " + ".join(["0.0"] + [f"c_{i} * x_{i}" for i in range(dim)] + ["d_p * u_in"]),
+        "        if k % every == 0:",
+        "            v = ref[k // every] - y",
+        *[f"            {line}" for line in lines],
+        "            v = float(v)",
+        "            u_now = lo if v < lo else hi if v > hi else v",
+        "        u_hist.append(u_now)",
+        "        y_out[k] = y",
+        "        u_out[k] = u_now",
+        "        if k == steps:",
+        "            break",
+        "        j = k - n_u",
+        "        wu0 = u_hist[j] if j >= 0 else 0.0",
+        "        wu1 = u_hist[j - 1] if j >= 1 else 0.0",
+        "        wd0 = dist if k >= n_d else 0.0",
+        "        wd1 = dist if k >= n_d + 1 else 0.0",
+        *([f"        {', '.join(xs)} = {', '.join(f'({r})' for r in rows)}"] if dim else []),
+        "        u_in = wu0 + wd0",
+        f"    return y_out, u_out, ({''.join(name + ', ' for name in states)})",
+    ]
+    namespace: dict = {}
+    exec(compile("\n".join(body), "<loopshift: compiled loop with firmware>", "exec"), namespace)  # noqa: S102
+    return namespace["run"]
+
+
 def _simulate_realized(model, t_s, plant, dead_time_s, delay_s, duration_s, h, r, dist, limits, kind, pre=None):
     """The sampled loop with a nonlinear controller model (``model.step(e) -> u``, user units, or
     ``model.step(r, y)`` when ``model.two_inputs``, a PID block weighing the setpoint itself): the
     plant advanced exactly at the sub-step h (a divisor of T) with its input's fractional delays
-    (:func:`_delay_taps`), the model called once per sample, its output held and clamped."""
-    from operator import mul
-
+    (:func:`_delay_taps`), the model called once per sample, its output held and clamped. The
+    caller holds ``np.errstate(over="ignore", invalid="ignore")``, so a model's
+    ``unguarded_step`` is called where it has one."""
     every = max(1, int(math.ceil(t_s / h - 1e-9)))
     h = t_s / every
     steps = int(math.ceil(duration_s / h - 1e-9))
@@ -1312,23 +1416,34 @@ def _simulate_realized(model, t_s, plant, dead_time_s, delay_s, duration_s, h, r
     phi, _ = _phi_gamma(ap, bp, h)
     n_u, g0_u, g1_u = _delay_taps(ap, bp, h, dead_time_s + delay_s)
     n_d, g0_d, g1_d = _delay_taps(ap, bp, h, dead_time_s)
-    rows = list(zip(phi.tolist(), g0_u.tolist(), g1_u.tolist(), g0_d.tolist(), g1_d.tolist()))
-    c_row, d_p = cp[0].tolist(), float(dp)
+    advance, output = _plant_stepper(phi, g0_u, g1_u, g0_d, g1_d, cp[0].tolist(), float(dp))
     lo, hi = limits
-    x = [0.0] * len(rows)
+    x = [0.0] * phi.shape[0]
     u_hist: list[float] = []
-    y_out = np.zeros(steps + 1)
-    u_out = np.zeros(steps + 1)
+    y_out = [0.0] * (steps + 1)
+    u_out = [0.0] * (steps + 1)
     u_now = u_in = 0.0
-    ref = _Prefilter(pre, r, t_s).samples(steps // every + 1)
+    ref = _Prefilter(pre, r, t_s).samples(steps // every + 1).tolist()
     two = getattr(model, "two_inputs", False)  # a PID block: step(setpoint, measurement)
+    if hasattr(model, "kernel") and not two:
+        lines, consts, states = model.kernel()
+        plant_values = phi.ravel().tolist() + g0_u.tolist() + g1_u.tolist() + g0_d.tolist() + g1_d.tolist()
+        run = _compiled_loop(phi.shape[0], tuple(lines), tuple(consts), tuple(name for name, _ in states))
+        y_out, u_out, final = run(
+            steps, every, n_u, n_d, dist, lo, hi, ref,
+            plant_values + cp[0].tolist() + [float(dp)], tuple(consts.values()), tuple(v for _, v in states),
+        )  # fmt: skip
+        model.store_kernel_states(final)
+        return LoopResponse(t=np.arange(steps + 1) * h, y=np.array(y_out), u=np.array(u_out), kind=kind, sub_step_s=h)
+    step = getattr(model, "unguarded_step", model.step)
     for k in range(steps + 1):
-        y = sum(map(mul, c_row, x)) + d_p * u_in
+        y = output(x, u_in)
         if k % every == 0:
-            v = model.step(ref[k // every], y) if two else model.step(ref[k // every] - y)
+            v = step(ref[k // every], y) if two else step(ref[k // every] - y)
             u_now = lo if v < lo else hi if v > hi else v
         u_hist.append(u_now)
-        y_out[k], u_out[k] = y, u_now
+        y_out[k] = y
+        u_out[k] = u_now
         if k == steps:
             break
         j = k - n_u
@@ -1336,9 +1451,9 @@ def _simulate_realized(model, t_s, plant, dead_time_s, delay_s, duration_s, h, r
         wu1 = u_hist[j - 1] if j >= 1 else 0.0
         wd0 = dist if k >= n_d else 0.0
         wd1 = dist if k >= n_d + 1 else 0.0
-        x = [sum(map(mul, row, x)) + a0 * wu0 + a1 * wu1 + b0 * wd0 + b1 * wd1 for row, a0, a1, b0, b1 in rows]
+        x = advance(x, wu0, wu1, wd0, wd1)
         u_in = wu0 + wd0
-    return LoopResponse(t=np.arange(steps + 1) * h, y=y_out, u=u_out, kind=kind, sub_step_s=h)
+    return LoopResponse(t=np.arange(steps + 1) * h, y=np.array(y_out), u=np.array(u_out), kind=kind, sub_step_s=h)
 
 
 def response_deviation(reference: LoopResponse, candidate: LoopResponse) -> float:

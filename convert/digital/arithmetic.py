@@ -73,6 +73,7 @@ class FloatModel:
         self.form = real.form
         self.coefs = [([c(v) for v in s.b], [c(v) for v in s.a]) for s in real.sections]
         self.delta = c(real.layout.delta_step) if real.layout.delta_step else None
+        self._df1 = [(b[0], tuple(b[1:]), tuple(a[1:])) for b, a in self.coefs]
         self.reset()
 
     def reset(self) -> None:
@@ -113,25 +114,73 @@ class FloatModel:
         with np.errstate(over="ignore", invalid="ignore"):
             return self._step(x)
 
-    def _step(self, x) -> float:
-        c = self.cast
-        v = c(x)
-        # the caller holds np.errstate (overflow to inf is the format's behaviour)
+    def kernel(self) -> tuple[list[str], dict, list[tuple[str, object]]]:
+        """The step as straight-line Python source, for a caller that compiles it into its own
+        loop (the closed-loop run, :func:`convert.compare.loop._simulate_realized`):
+        ``(lines, constants, states)``. The lines take the input in ``v`` and leave the output
+        (in the format's type) in ``v``, with the operations of :meth:`step` in its order;
+        ``constants`` maps the names they use to the stored coefficients (and ``_C``, the cast);
+        ``states`` lists (name, value) of the current state, in the order
+        :meth:`store_kernel_states` takes them back."""
+        lines = ["v = _C(v)"]
+        consts: dict = {"_C": self.cast}
+        states: list[tuple[str, object]] = []
         for i, (b, a) in enumerate(self.coefs):
+            consts.update({f"b{i}_{k}": c for k, c in enumerate(b)})
+            consts.update({f"a{i}_{k}": c for k, c in enumerate(a)})
             if self.form == "df1":
                 xh, yh = self.state[i]
-                acc = b[0] * v
-                for k in range(1, len(b)):
-                    acc = acc + b[k] * xh[k - 1]
-                for k in range(1, len(a)):
-                    acc = acc - a[k] * yh[k - 1]
-                if xh:
-                    xh.insert(0, v)
-                    xh.pop()
-                    yh.insert(0, acc)
-                    yh.pop()
-                v = acc
-            elif self.form == "df2t":
+                states += [(f"xh{i}_{j}", val) for j, val in enumerate(xh)]
+                states += [(f"yh{i}_{j}", val) for j, val in enumerate(yh)]
+                lines.append(f"acc = b{i}_0 * v")
+                lines += [f"acc = acc + b{i}_{k} * xh{i}_{k - 1}" for k in range(1, len(b))]
+                lines += [f"acc = acc - a{i}_{k} * yh{i}_{k - 1}" for k in range(1, len(a))]
+                if xh:  # the histories shift (as insert(0, ·), pop())
+                    lines += [f"xh{i}_{j} = xh{i}_{j - 1}" for j in range(len(xh) - 1, 0, -1)] + [f"xh{i}_0 = v"]
+                    lines += [f"yh{i}_{j} = yh{i}_{j - 1}" for j in range(len(yh) - 1, 0, -1)]
+                    lines += [f"yh{i}_0 = acc"] if yh else []
+                lines.append("v = acc")
+                continue
+            st = self.state[i]
+            states += [(f"s{i}_{k}", val) for k, val in enumerate(st)]
+            m = len(a) - 1
+            lines.append(f"yy = b{i}_0 * v + s{i}_0" if m else f"yy = b{i}_0 * v")
+            for k in range(m):
+                lines.append(f"t = b{i}_{k + 1} * v - a{i}_{k + 1} * yy")
+                nxt = f"t + s{i}_{k + 1}" if k + 1 < m else "t"
+                if self.form == "df2t":
+                    lines.append(f"s{i}_{k} = {nxt}")
+                else:
+                    consts["dl"] = self.delta
+                    lines += [f"w = {nxt}", f"s{i}_{k} = s{i}_{k} + dl * w"]
+            lines.append("v = yy")
+        return lines, consts, states
+
+    def store_kernel_states(self, values) -> None:
+        """The state after a compiled run: ``values`` in the order of :meth:`kernel`'s states."""
+        it = iter(values)
+        if self.form == "df1":
+            self.state = [([next(it) for _ in xh], [next(it) for _ in yh]) for xh, yh in self.state]
+        else:
+            self.state = [[next(it) for _ in st] for st in self.state]
+
+    def unguarded_step(self, x) -> float:
+        """:meth:`step` for a caller that holds ``np.errstate(over="ignore", invalid="ignore")``
+        (entering that context costs about a microsecond, as much as a step)."""
+        return self._step(x)
+
+    def _step(self, x) -> float:
+        # the caller holds np.errstate (overflow to inf is the format's behaviour)
+        if self.form == "df1":
+            return self._step_df1(x)
+        return self._step_states(x)
+
+    def _step_states(self, x) -> float:
+        """Direct form II transposed and delta sections (module doc)."""
+        c = self.cast
+        v = c(x)
+        for i, (b, a) in enumerate(self.coefs):
+            if self.form == "df2t":
                 s = self.state[i]
                 m = len(a) - 1
                 y = b[0] * v + s[0] if m else b[0] * v
@@ -148,6 +197,23 @@ class FloatModel:
                     w = t + s[k + 1] if k + 1 < m else t
                     s[k] = s[k] + self.delta * w
                 v = y
+        return float(v)
+
+    def _step_df1(self, x) -> float:
+        """``acc = b0·x; acc += b1·x1; …; acc −= a1·y1; …`` per section, then the histories shift."""
+        v = self.cast(x)
+        for (b0, b_rest, a_rest), (xh, yh) in zip(self._df1, self.state):
+            acc = b0 * v
+            for bk, xk in zip(b_rest, xh):
+                acc = acc + bk * xk
+            for ak, yk in zip(a_rest, yh):
+                acc = acc - ak * yk
+            if xh:
+                xh.insert(0, v)
+                xh.pop()
+                yh.insert(0, acc)
+                yh.pop()
+            v = acc
         return float(v)
 
     def run(self, xs) -> np.ndarray:
@@ -177,6 +243,42 @@ class FixedModel:
 
         v = math.floor(float(x) / self.real.input_range * self.full + 0.5)
         return self.lo if v < self.lo else self.hi if v > self.hi else int(v)
+
+    def kernel(self) -> tuple[list[str], dict, list[tuple[str, object]]]:
+        """:meth:`step` as straight-line Python source (to_word, :meth:`step_int`, from_word, in
+        their order), as :meth:`FloatModel.kernel` describes: the input in ``v``, the output
+        (user units) left in ``v``."""
+        import math
+
+        consts: dict = {"_floor": math.floor, "R": self.real.input_range, "FULL": self.full}
+        consts.update({"LO": self.lo, "HI": self.hi, "SCALE": self.real.node_scales[-1]})
+        lines = ["v = _floor(float(v) / R * FULL + 0.5)", "v = LO if v < LO else HI if v > HI else int(v)"]
+        states: list[tuple[str, object]] = []
+        for i, ((b, a, sh), (xh, yh)) in enumerate(zip(self.secs, self.state)):
+            consts.update({f"b{i}_{k}": c for k, c in enumerate(b)})
+            consts.update({f"a{i}_{k}": c for k, c in enumerate(a)})
+            states += [(f"xh{i}_{j}", val) for j, val in enumerate(xh)]
+            states += [(f"yh{i}_{j}", val) for j, val in enumerate(yh)]
+            lines.append(f"acc = b{i}_0 * v")
+            lines += [f"acc = acc + b{i}_{k} * xh{i}_{k - 1}" for k in range(1, len(b))]
+            e = self.b_shifts[i]
+            if e:
+                lines.append(f"acc = (acc + {(1 << (e - 1)) if self.round_half else 0}) >> {e}")
+            lines += [f"acc = acc - a{i}_{k} * yh{i}_{k}" for k in range(len(a))]
+            lines.append(f"yy = (acc + {(1 << (sh - 1)) if self.round_half else 0}) >> {sh}")
+            lines.append("yy = LO if yy < LO else HI if yy > HI else yy")
+            if xh:
+                lines += [f"xh{i}_{j} = xh{i}_{j - 1}" for j in range(len(xh) - 1, 0, -1)] + [f"xh{i}_0 = v"]
+            if yh:
+                lines += [f"yh{i}_{j} = yh{i}_{j - 1}" for j in range(len(yh) - 1, 0, -1)] + [f"yh{i}_0 = yy"]
+            lines.append("v = yy")
+        lines.append("v = float(v) * SCALE / FULL")
+        return lines, consts, states
+
+    def store_kernel_states(self, values) -> None:
+        """The state after a compiled run: ``values`` in the order of :meth:`kernel`'s states."""
+        it = iter(values)
+        self.state = [([next(it) for _ in xh], [next(it) for _ in yh]) for xh, yh in self.state]
 
     def from_word(self, v) -> float:
         return float(v) * self.real.node_scales[-1] / self.full

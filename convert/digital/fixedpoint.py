@@ -34,6 +34,9 @@ from convert.digital.structures import Layout, Section, z_poly_roots, delta_root
 from convert.digital.wordformats import WordFormat, quantize_coefficient
 from convert.errors import InputError, UnrealizableError
 
+#: most samples of an impulse response summed for a peak-gain bound
+MAX_IMPULSE = 2_000_000
+
 
 @dataclass(frozen=True)
 class StoredSection:
@@ -119,34 +122,28 @@ def _is_marginal(poles) -> bool:
     return any(abs(p) >= 1 - 1e-12 for p in poles)
 
 
+def impulse_length(radius: float) -> int:
+    """Samples of an impulse response summed for a peak-gain bound: until the slowest pole
+    (``radius`` = its |z|) has decayed by e^-30, at least 1000, at most :data:`MAX_IMPULSE`."""
+    return int(min(MAX_IMPULSE, max(1000, math.ceil(30.0 / max(1.0 - radius, 1e-300)))))
+
+
 def peak_gains(layout: Layout) -> list[float]:
     """‖h_i‖₁ from the input to each section's output (inf once a pole on the unit circle is
-    passed). Impulse responses in float64 run until the slowest pole has decayed by e^-30,
-    at most 2·10^6 samples, plus a geometric bound on the rest."""
-    out = []
-    rows = []
-    radius = 0.0
-    marginal = False
-    for s in layout.sections:
-        b, a = z_equivalent(layout, s)
-        n = max(len(b), len(a), 3)
-        bb = np.concatenate([b, np.zeros(n - len(b))])
-        aa = np.concatenate([a, np.zeros(n - len(a))])
-        marginal = marginal or _is_marginal(s.poles)
-        radius = max([radius] + [abs(p) for p in s.poles])
-        if marginal:
-            out.append(math.inf)
-            continue
-        from scipy.signal import sosfilt, tf2sos  # only here: an integrating controller never needs it
+    passed): the impulse response in float64 summed over :func:`impulse_length` samples of the
+    slowest pole, plus the bound on the rest that :meth:`convert.digital.impulse.Cascade.l1`
+    states (agrees with the sum of a long-double closed form to about 1e-11, tests)."""
+    from convert.digital.impulse import Cascade
 
-        rows.extend(tf2sos(bb, aa) if n > 3 else [np.concatenate([bb, aa])])
-        length = int(min(2e6, max(1000, math.ceil(30.0 / max(1.0 - radius, 1e-300)))))
-        x = np.zeros(length)
-        x[0] = 1.0
-        h = sosfilt(np.array(rows), x)
-        tail = abs(h[-1]) * radius / max(1.0 - radius, 1e-300) * 2
-        out.append(float(np.sum(np.abs(h)) + tail))
-    return out
+    finite = []
+    radius = 0.0
+    for s in layout.sections:
+        if _is_marginal(s.poles):
+            break
+        finite.append(z_equivalent(layout, s))
+        radius = max([radius] + [abs(p) for p in s.poles])
+    gains = Cascade(finite).l1(impulse_length(radius)) if finite else []
+    return gains + [math.inf] * (len(layout.sections) - len(finite))
 
 
 # ----------------------------------------------------------------------------- realize

@@ -187,31 +187,40 @@ class PidModel:
 
     def step(self, r, y) -> float:
         c = self.cast
-        k = self.k
         r, y = c(r), c(y)
         with np.errstate(over="ignore", invalid="ignore"):
-            e = r - y
-            p = k["kp"] * (k["b"] * r - y)
-            ds = k["c"] * r - y
-            self.d = k["ad"] * self.d + k["bd"] * (ds - self.ds_old)
-            self.ds_old = ds
-            if self.block.form == "velocity":
-                v = self.u_old + ((p - self.p_old) + k["bi"] * self.e_old + (self.d - self.d_old))
-                u = self._clamp(v)
-                self.u_old, self.p_old, self.d_old, self.e_old = u, p, self.d, e
-                return float(u)
-            v = p + self.i + self.d
+            return self._advance(r, y)
+
+    def unguarded_step(self, r, y) -> float:
+        """:meth:`step` for a caller that holds ``np.errstate(over="ignore", invalid="ignore")``
+        (entering that context costs about a microsecond, as much as a step)."""
+        c = self.cast
+        return self._advance(c(r), c(y))
+
+    def _advance(self, r, y) -> float:
+        k = self.k
+        e = r - y
+        p = k["kp"] * (k["b"] * r - y)
+        ds = k["c"] * r - y
+        self.d = k["ad"] * self.d + k["bd"] * (ds - self.ds_old)
+        self.ds_old = ds
+        if self.block.form == "velocity":
+            v = self.u_old + ((p - self.p_old) + k["bi"] * self.e_old + (self.d - self.d_old))
             u = self._clamp(v)
-            aw = self.block.anti_windup
-            if aw == "track":
-                self.i = self.i + k["bi"] * e + k["ao"] * (u - v)
-            elif aw == "clamp" and self.lo is not None:
-                step = k["bi"] * e
-                if (self.lo <= v <= self.hi) or (v > self.hi and step < 0) or (v < self.lo and step > 0):
-                    self.i = self.i + step
-            else:
-                self.i = self.i + k["bi"] * e
+            self.u_old, self.p_old, self.d_old, self.e_old = u, p, self.d, e
             return float(u)
+        v = p + self.i + self.d
+        u = self._clamp(v)
+        aw = self.block.anti_windup
+        if aw == "track":
+            self.i = self.i + k["bi"] * e + k["ao"] * (u - v)
+        elif aw == "clamp" and self.lo is not None:
+            step = k["bi"] * e
+            if (self.lo <= v <= self.hi) or (v > self.hi and step < 0) or (v < self.lo and step > 0):
+                self.i = self.i + step
+        else:
+            self.i = self.i + k["bi"] * e
+        return float(u)
 
     def integral(self) -> float:
         """The accumulating state in output units: I (positional) or the last output (velocity)."""

@@ -502,15 +502,8 @@ def _limit_cycles(real: Realized, layout, notes: list[str]) -> tuple[int, float]
         if need > LIMIT_CYCLE_SAMPLES:
             undecided.append(i + 1)
         y = rng.integers(w.word_min // 2, w.word_max // 2, size=(m, LIMIT_CYCLE_TRIALS), dtype=np.int64)
-        half = np.int64(1 << (s.shift - 1))
-        amp = np.zeros(LIMIT_CYCLE_TRIALS, dtype=np.int64)
-        for k in range(n):
-            acc = -(a[:, None] * y).sum(axis=0)
-            new = np.clip((acc + half) >> s.shift, w.word_min, w.word_max)
-            y = np.vstack([new[None, :], y[:-1]])
-            if k >= n - 100:
-                amp = np.maximum(amp, np.abs(new))
-        lsb = int(amp.max())
+        outs = zero_input_words(a, s.shift, 1 << (s.shift - 1), y, n, 100, w.word_min, w.word_max)
+        lsb = int(np.abs(outs[1:]).max()) if n else 0
         if m == 2:
             a1, a2 = (float(v) / 2**s.shift for v in s.a_int[1:])
             bounds.append(
@@ -571,14 +564,42 @@ def _drift(s, s0, w, rng) -> int:
     radius = max(others, default=0.0)
     settle = int(min(LIMIT_CYCLE_SAMPLES, math.log(2.0**w.bits) / max(-math.log(max(radius, 1e-300)), 1e-9) + 1))
     y = rng.integers(-64, 64, size=(m, LIMIT_CYCLE_TRIALS), dtype=np.int64)
-    half = np.int64(1 << (s.shift - 1)) if w.rounding == "half-up" else np.int64(0)
-    step = np.zeros(LIMIT_CYCLE_TRIALS, dtype=np.int64)
-    for k in range(settle + 50):
-        new = np.clip((-(a[:, None] * y).sum(axis=0) + half) >> s.shift, w.word_min, w.word_max)
-        if k >= settle:
-            step = np.maximum(step, np.abs(new - y[0]))
-        y = np.vstack([new[None, :], y[:-1]])
-    return int(step.max())
+    half = (1 << (s.shift - 1)) if w.rounding == "half-up" else 0
+    outs = zero_input_words(a, s.shift, half, y, settle + 50, 50, w.word_min, w.word_max)
+    return int(np.abs(np.diff(outs, axis=0)).max())
+
+
+def zero_input_words(a, shift: int, half: int, y: np.ndarray, n: int, tail: int, lo: int, hi: int) -> np.ndarray:
+    """A direct-form-I recursion on words with zero input, vectorized over trials:
+    ``y_new = clip((−Σ_j a_j·y_j + half) >> shift, lo, hi)`` for n samples from the histories
+    ``y`` (rows newest first, one column per trial; int64 arithmetic, in place, no per-sample
+    allocation). Returns the last min(tail, n) outputs after the output just before them
+    (rows oldest first; row 0 is that earlier output)."""
+    a = [int(v) for v in a]
+    hist = [np.array(row, dtype=np.int64) for row in y]
+    keep = min(tail, n)
+    start = n - keep
+    outs = np.empty((keep + 1,) + hist[0].shape, dtype=np.int64)
+    acc = np.empty_like(hist[0])
+    tmp = np.empty_like(acc)
+    lo64, hi64, half64 = np.int64(lo), np.int64(hi), np.int64(half)
+    for k in range(n):
+        if k == start:
+            outs[0] = hist[0]
+        np.multiply(hist[0], a[0], out=acc)
+        for aj, yj in zip(a[1:], hist[1:]):
+            np.multiply(yj, aj, out=tmp)
+            np.add(acc, tmp, out=acc)
+        np.negative(acc, out=acc)
+        np.add(acc, half64, out=acc)
+        np.right_shift(acc, shift, out=acc)
+        np.maximum(acc, lo64, out=acc)
+        np.minimum(acc, hi64, out=acc)
+        if k >= start:
+            outs[k - start + 1] = acc
+        hist.insert(0, acc)
+        acc = hist.pop()  # the oldest row is the next sample's scratch
+    return outs
 
 
 def _stall(real: Realized, layout, roots, r: float, u: float) -> float | None:

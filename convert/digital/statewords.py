@@ -53,13 +53,12 @@ from convert.digital.fixedpoint import (
     Realized,
     StoredSection,
     _is_marginal,
+    impulse_length,
     z_equivalent,
 )
 from convert.digital.structures import Layout
 from convert.digital.wordformats import WordFormat, quantize_coefficient
 from convert.errors import InputError, UnrealizableError
-
-MAX_IMPULSE = 2_000_000
 
 
 # ----------------------------------------------------------------------------- node bounds
@@ -100,15 +99,14 @@ def node_bounds(layout: Layout, r: float, u: float | None, word: WordFormat):
     """Per section: (output bound, [state bounds]) in user units for inputs within ±R; the last
     section may integrate (bounds through the output level U, see the module doc). Returns
     (bounds, marginal flags)."""
-    from scipy.signal import sosfilt, tf2sos
+    from convert.digital.impulse import Cascade
 
-    rows: list[np.ndarray] = []
-    radius = 0.0
     out = []
     flags = []
     n_sec = len(layout.sections)
+    finite = []
+    radius = 0.0
     for i, s in enumerate(layout.sections):
-        b, a = z_equivalent(layout, s)
         if _is_marginal(s.poles):
             if i != n_sec - 1:
                 raise UnrealizableError(
@@ -122,23 +120,26 @@ def node_bounds(layout: Layout, r: float, u: float | None, word: WordFormat):
                     "range; give output limits (the integrator saturates there)",
                     key="output_limits",
                 )
-            out.append(None)
-            flags.append(True)
-            continue
-        n = max(len(b), len(a), 3)
-        bb = np.concatenate([b, np.zeros(n - len(b))])
-        aa = np.concatenate([a, np.zeros(n - len(a))])
-        prev = np.array(rows) if rows else None
-        rows.extend(tf2sos(bb, aa) if n > 3 else [np.concatenate([bb, aa])])
+            break
+        finite.append(z_equivalent(layout, s))
         radius = max([radius] + [abs(p) for p in s.poles])
-        length = int(min(MAX_IMPULSE, max(1000, math.ceil(30.0 / max(1.0 - radius, 1e-300)))))
-        x = np.zeros(length)
-        x[0] = 1.0
-        h_in = sosfilt(prev, x) if prev is not None else x
-        h_y = sosfilt(np.array(rows), x)
+    h_all = Cascade(finite).impulse(impulse_length(radius)) if finite else None
+    radius = 0.0
+    for i, s in enumerate(layout.sections[: len(finite)]):
+        radius = max([radius] + [abs(p) for p in s.poles])
+        length = impulse_length(radius)
+        h_y = h_all[i, :length]
+        if i:
+            h_in = h_all[i - 1, :length]
+        else:
+            h_in = np.zeros(length)
+            h_in[0] = 1.0
         states = state_responses(layout, s, h_in, h_y)
         out.append((_l1(h_y, radius) * r, [_l1(v, radius) * r for v in states]))
         flags.append(False)
+    if len(finite) < n_sec:
+        out.append(None)
+        flags.append(True)
     return out, flags
 
 
@@ -390,10 +391,6 @@ def limit_cycles(real: Realized, layout: Layout, notes: list[str], trials: int, 
     drift = []
 
     lo_w, hi_w = np.int64(w.word_min), np.int64(w.word_max)
-
-    def clip(v):
-        return np.minimum(np.maximum(v, lo_w), hi_w)
-
     delta = real.form == "delta"
     for i, (s, s0) in enumerate(zip(real.sections, layout.sections)):
         m = len(s.p_int)
@@ -409,13 +406,7 @@ def limit_cycles(real: Realized, layout: Layout, notes: list[str], trials: int, 
             undecided.append(i + 1)
         lo, hi = (-64, 64) if marginal else (w.word_min // 2, w.word_max // 2)
         st = [rng.integers(lo, hi, size=trials, dtype=np.int64) for _ in range(m)]
-        amp = np.zeros(trials, dtype=np.int64)
-        prev = None
-        for k in range(n):
-            y = step_section(sec, 0, st, clip)  # zero input: the input terms are plain 0
-            if k >= n - (50 if marginal else 100) and prev is not None:
-                amp = np.maximum(amp, np.abs(y - prev) if marginal else np.abs(y))
-            prev = y
+        amp = _zero_input_section(sec, st, n, 50 if marginal else 100, marginal, lo_w, hi_w)
         lsb = int(amp.max())
         if marginal:
             if lsb:
@@ -428,3 +419,49 @@ def limit_cycles(real: Realized, layout: Layout, notes: list[str], trials: int, 
 
     limit_cycle_notes(notes, undecided, worst_lsb, worst_units)
     return worst_lsb, worst_units, drift, worst_section
+
+
+def _zero_input_section(sec, st: list, n: int, window: int, marginal: bool, lo, hi) -> np.ndarray:
+    """:func:`step_section` with zero input for n samples from the state words ``st`` (int64
+    arrays, one entry per trial), all states of a sample in one array operation (each update
+    reads the previous sample's states and the new output only, see the module doc; the input
+    terms are exactly 0: (0·B + 2^(E−1)) >> E = 0), int64 in place. Returns per trial the
+    largest |y| (or, for a section holding an integrator, |y − previous y|) over the last
+    ``window`` samples, the first sample excepted."""
+    frac, _, aq, pq, is_delta, _ = sec
+    m = len(st)
+    half, one, p0 = np.int64(1 << (frac - 1)), np.int64(1 << frac), np.int64(pq[0])
+    states = np.array(st, dtype=np.int64)  # (m, trials)
+    a_col = np.array(aq[1 : m + 1], dtype=np.int64)[:, None]
+    p_col = np.array(pq[1:m], dtype=np.int64)[:, None]
+    acc, tmp = np.empty_like(states), np.empty_like(states)
+    y, prev = np.empty_like(states[0]), np.empty_like(states[0])
+    diff = np.empty_like(y)
+    amp = np.zeros_like(y)
+    for k in range(n):
+        np.multiply(states[0], p0, out=y)
+        np.add(y, half, out=y)
+        np.right_shift(y, frac, out=y)
+        np.maximum(y, lo, out=y)
+        np.minimum(y, hi, out=y)
+        np.multiply(a_col, y, out=acc)
+        np.negative(acc, out=acc)
+        if m > 1:
+            np.multiply(p_col, states[1:], out=tmp[:-1])
+            np.add(acc[:-1], tmp[:-1], out=acc[:-1])
+        if is_delta:
+            np.multiply(states, one, out=tmp)
+            np.add(acc, tmp, out=acc)
+        np.add(acc, half, out=acc)
+        np.right_shift(acc, frac, out=acc)
+        np.maximum(acc, lo, out=states)
+        np.minimum(states, hi, out=states)
+        if k >= n - window and k > 0:
+            if marginal:
+                np.subtract(y, prev, out=diff)
+                np.abs(diff, out=diff)
+            else:
+                np.abs(y, out=diff)
+            np.maximum(amp, diff, out=amp)
+        y, prev = prev, y
+    return amp
