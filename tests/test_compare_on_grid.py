@@ -75,15 +75,31 @@ def test_compare_responses_without_forms_is_the_same_comparison():
 
 
 def test_survey_rows_are_the_comparison_of_each_method():
-    """The survey's method and loop errors equal the comparison of each method's response (and
-    of it times the hold and delay) with the analog response, method by method."""
+    """The survey's method and loop errors are the comparison of each method's response (and of
+    it times the hold and delay) with the analog response, method by method, refined on the
+    continuous responses (the report's definition); their maxima are never below the grid's, and
+    the grid figures (the agreement limit) are those of compare_on_grid on the same grid."""
     from convert.compare.frequency import hold_and_delay_factor
 
     c = Controller.analog(NUM, DEN)
     s = survey_methods(c, FS, delay_s=1e-3)
-    ana = c.frequency_response(s.f_hz)
+    ana = c.frequency_response(s.f_hz, via="zpk")
     hold = hold_and_delay_factor(s.f_hz, 1 / FS, 1e-3)
     for row in s.rows:
-        dig = row.realization.frequency_response(s.f_hz)
-        assert row.method_error.summary() == compare_responses(ana, dig, s.f_hz).summary()
-        assert row.loop_error.summary() == compare_responses(ana, dig * hold, s.f_hz).summary()
+        cd = row.realization.controller
+        dig = cd.frequency_response(s.f_hz, via="zpk")
+
+        def alone(x, cd=cd):
+            return c.frequency_response(x, via="zpk"), cd.frequency_response(x, via="zpk")
+
+        def seen(x, cd=cd):
+            return c.frequency_response(x, via="zpk"), cd.frequency_response(x, via="zpk") * hold_and_delay_factor(
+                x, 1 / FS, 1e-3
+            )
+
+        for got, cand, ev in ((row.method_error, dig, alone), (row.loop_error, dig * hold, seen)):
+            assert got.summary() == compare_responses(ana, cand, s.f_hz, evaluate=ev, forms=(c, cd)).summary()
+            grid = compare_on_grid(ana, cand[None, :], s.f_hz)[0]
+            assert got.max_gain_error_db >= grid.max_gain_error_db
+            assert got.max_phase_error_deg >= grid.max_phase_error_deg
+            assert got.agreement_limit_hz == grid.agreement_limit_hz

@@ -253,7 +253,6 @@ def run(args, console) -> int:
             item = row.summary()
             if row.realization.method in stages:
                 budget, loop = stages[row.realization.method]
-                item["method_error"].update(_maxima(budget))
                 item["budget"] = [r.as_dict() for r in budget]
                 if loop is not None:
                     item["loop"] = loop.as_dict()
@@ -275,7 +274,7 @@ def run(args, console) -> int:
             out.append(_block_item(block))
         emit_json(console, out)
         return 0 if block is None or block.ok else 1
-    _render(console, survey, controller, firmware, {m: _maxima(b) for m, (b, _) in stages.items()})
+    _render(console, survey, controller, firmware)
     for method, (_, loop) in stages.items():
         if loop is not None and loop.margins is not None:
             console.print(f"loop with the plant, {method}: {_margins_text(loop.margins)}", markup=False)
@@ -316,15 +315,6 @@ def _plant(args):
     if args.plant is None and args.dead_time is not None:
         raise InputError("a dead time belongs to a plant; give --plant too", key="--dead-time")
     return plant_from_words(args.plant, dead, where="--plant", dead_where="--dead-time")
-
-
-def _maxima(budget) -> dict:
-    """The method error's maxima as the pipeline's ``discretization`` row has them (grid-free:
-    refined on the continuous responses, the report's figure); the survey's grid figures rank
-    the methods and give the agreement limit."""
-    row = next(r for r in budget if r.key == "discretization")
-    names = ("max_gain_error_db", "max_gain_error_at_hz", "max_phase_error_deg", "max_phase_error_at_hz")
-    return {name: getattr(row, name) for name in names} | {"unbounded_note": row.unbounded_note}
 
 
 def _pipeline_figures(controller, survey, firmware, args, plant) -> dict:
@@ -520,7 +510,7 @@ def _coefs(values) -> str:
     return ", ".join(format(float(v), ".12g") for v in values)
 
 
-def _render(console, survey, source, firmware=None, maxima=None) -> None:
+def _render(console, survey, source, firmware=None) -> None:
     from rich import box
     from rich.table import Table
 
@@ -571,14 +561,11 @@ def _render(console, survey, source, firmware=None, maxima=None) -> None:
         label = m + ("\n(best)" if m == survey.best else "")
         if m == "tustin" and r.realization.prewarp_hz is not None:
             label += f"\nprewarp\n{_hz(r.realization.prewarp_hz)}"
-        e = (maxima or {}).get(m) or {
-            k: getattr(r.method_error, k)
-            for k in ("max_gain_error_db", "max_gain_error_at_hz", "max_phase_error_deg", "max_phase_error_at_hz")
-        }
+        e = r.method_error
         table.add_row(
             label,
-            f"{e['max_gain_error_db']:.3g} dB\n@ {_hz(e['max_gain_error_at_hz'])}",
-            f"{e['max_phase_error_deg']:.3g}°\n@ {_hz(e['max_phase_error_at_hz'])}",
+            f"{e.max_gain_error_db:.3g} dB\n@ {_hz(e.max_gain_error_at_hz)}",
+            f"{e.max_phase_error_deg:.3g}°\n@ {_hz(e.max_phase_error_at_hz)}",
             _hz(r.method_error.agreement_limit_hz),
             f"{r.loop_error.max_gain_error_db:.3g} dB\n{r.loop_error.max_phase_error_deg:.3g}°",
             _hz(r.loop_error.agreement_limit_hz),

@@ -1,7 +1,8 @@
 """Several discretization methods side by side: each method's digital form and its errors against
 the analog controller over a band, with the best method picked and the reason given.
 
-Two error figures per method (both against the analog controller, over the same grid in Hz):
+Two error figures per method (both against the analog controller, over the band in Hz; the
+maxima do not depend on the grid: they are refined on the continuous responses, as the report's):
 
 * ``method_error``: C_d(e^{jωT}) against C(jω) — what the discretization method alone changes
   (error source 1 of the budget). The best method is picked on this figure, since the output
@@ -25,7 +26,6 @@ import numpy as np
 from convert.compare.frequency import (
     ResponseError,
     comparison_grid,
-    compare_on_grid,
     compare_responses,
     default_band_hz,
     hold_and_delay_factor,
@@ -99,6 +99,29 @@ def _reason(row: MethodRow, others: int) -> str:
     return f"{head}; max method error {e.max_gain_error_db:.3g} dB, {e.max_phase_error_deg:.3g} deg"
 
 
+def _grid_free(analog, digital, f, analog_f, digital_f, hold_f, t, delay_s, limits) -> tuple[ResponseError, ResponseError]:
+    """(method error, loop-seen error) of the sampled controller ``digital`` against ``analog``,
+    their maxima refined on the continuous responses (factored forms, ``via="zpk"``) and roots on
+    the axis looked for (:func:`convert.compare.frequency.compare_responses`): the same call, on the
+    same grid and responses, as the ``discretization`` row of
+    :func:`convert.compare.stages.digital_budget`, so the survey's method error is the report's.
+    ``analog_f``, ``digital_f``, ``hold_f``: the responses and the hold-and-delay factor on ``f``
+    (Hz); ``t``: sample period (s); ``delay_s``: computation delay (s)."""
+
+    def alone(x):
+        return analog.frequency_response(x, via="zpk"), digital.frequency_response(x, via="zpk")
+
+    def seen(x):
+        ref, cand = alone(x)
+        return ref, cand * hold_and_delay_factor(x, t, delay_s)
+
+    forms = (analog, digital)
+    return (
+        compare_responses(analog_f, digital_f, f, evaluate=alone, forms=forms, **limits),
+        compare_responses(analog_f, digital_f * hold_f, f, evaluate=seen, forms=forms, **limits),
+    )
+
+
 @small_dense  # one BLAS-thread limit for the whole survey instead of one per method
 def survey_methods(
     controller: Controller,
@@ -133,9 +156,10 @@ def survey_methods(
     if band_hz is None:
         band_hz = default_band_hz(controller, fs_hz)
     f = comparison_grid(band_hz, fs_hz, points_per_decade)
+    t = 1.0 / fs_hz
     # the analog response and the hold-and-delay factor are the same for every method: once
-    analog = controller.frequency_response(f)
-    hold = hold_and_delay_factor(f, 1.0 / fs_hz, delay_s)
+    analog = controller.frequency_response(f, via="zpk")
+    hold = hold_and_delay_factor(f, t, delay_s)
     reals = [
         discretize(
             controller,
@@ -147,16 +171,12 @@ def survey_methods(
         )
         for m in methods
     ]
-    digital = np.array([real.frequency_response(f) for real in reals])
-    # every method, alone and with the hold and delay, in one pass over the grid
-    errors = compare_on_grid(
-        analog,
-        np.concatenate([digital, digital * hold]),
-        f,
-        gain_limit_db=gain_limit_db,
-        phase_limit_deg=phase_limit_deg,
-    )
-    rows = [MethodRow(real, errors[k], errors[len(reals) + k]) for k, real in enumerate(reals)]
+    limits = dict(gain_limit_db=gain_limit_db, phase_limit_deg=phase_limit_deg)
+    errors = []
+    for real in reals:
+        cd = real.controller
+        errors.append(_grid_free(controller, cd, f, analog, cd.frequency_response(f, via="zpk"), hold, t, delay_s, limits))
+    rows = [MethodRow(real, *errors[k]) for k, real in enumerate(reals)]
     candidates = [r for r in rows if not r.unstable]
     if candidates:
         best_row = min(candidates, key=_score)
@@ -166,11 +186,12 @@ def survey_methods(
     filter_error = None
     if tau is not None:
         filter_error = compare_responses(
-            original.frequency_response(f),
-            controller.frequency_response(f),
+            original.frequency_response(f, via="zpk"),
+            analog,
             f,
-            gain_limit_db=gain_limit_db,
-            phase_limit_deg=phase_limit_deg,
+            evaluate=lambda x: (original.frequency_response(x, via="zpk"), controller.frequency_response(x, via="zpk")),
+            forms=(original, controller),
+            **limits,
         )
     return MethodSurvey(
         controller,
