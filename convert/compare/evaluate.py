@@ -293,7 +293,7 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
                         "the source loop does not work with this plant (unstable or sign-inverted): there is no working loop to compare with"
                     )
         # always on, plant or not: the realization's own poles and its sign against the source
-        f["checks"] = own_checks(src, r.controller, float(band[0]))
+        f["checks"] = own_checks(src, r.controller, (float(band[0]), float(band[-1])))
         fw = r.details.get("firmware") if r.form == "digital" else None
         if fw is not None:
             f["checks"] = f["checks"] + list(fw["checks"])
@@ -1090,6 +1090,13 @@ def _loop_figures(src_m: Margins, r: Realization, src_step, src_dist, case) -> d
                 f"unbounded: the {'source' if a is None else 'new'} loop has no gain crossover (no phase margin) "
                 f"where the {'new' if a is None else 'source'} loop has one ({(b if a is None else a):.3g} deg)"
             )
+        elif (a is None or b is None) and attr == "gain_margin_db":
+            # no phase crossover is an infinite gain margin: a finite one on the other side is no small change
+            f[key] = math.inf
+            f[f"{key}_note"] = (
+                f"unbounded: the {'source' if a is None else 'new'} loop has no phase crossover (an infinite gain "
+                f"margin) where the {'new' if a is None else 'source'} loop has one ({(b if a is None else a):.3g} dB)"
+            )
         elif a is None or b is None:
             f[key] = None
             f[f"{key}_note"] = f"{'source' if a is None else 'new'} loop has no {attr.replace('_', ' ')}"
@@ -1102,6 +1109,13 @@ def _loop_figures(src_m: Margins, r: Realization, src_step, src_dist, case) -> d
         f["max_disturbance_deviation"] = response_deviation(src_dist, r.disturbance) / peak
     st = getattr(r, "stability", None)
     if st is not None and not st.stable:
+        # an unstable loop's margins describe no working loop (its stability row fails the verdict)
+        for key in ("max_phase_margin_change_deg", "max_gain_margin_change_db", "max_sensitivity_peak_change_db"):
+            if key in f:
+                f[key] = None
+                f[f"{key}_note"] = (
+                    "the closed loop with this realization is unstable: its margins describe no working loop"
+                )
         # a simulated deviation of an unstable loop only measures how long the simulation ran
         for key in ("max_step_deviation", "max_disturbance_deviation"):
             if key in f:

@@ -1,0 +1,91 @@
+"""The fourth reviewer's wrong-PASS findings (case files in tests/cases/review4), each checked
+against a computation outside the tool."""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from convert.case import load_case
+from convert.compare.evaluate import evaluate_case
+
+CASES = Path(__file__).parent / "cases" / "review4"
+
+
+def _judged(res, key):
+    return {j.realization: j for j in res.verdict.judgements if j.criterion == key}
+
+
+def test_infinite_source_gain_margin_against_a_finite_one_fails():
+    """PI 1.5(1 + 1/(0.2s)) on 10/(0.5s + 1): the analog loop's phase never reaches -180°, so its
+    gain margin is infinite; the 50 Hz firmware with a sample of delay has a finite one. python-
+    control on the sampled loop (Tustin C(z), ZOH plant, z^-1) finds it: 4.1 dB. Before: the
+    gain-margin criterion was "skipped" and the verdict PASSED; an infinite-to-finite change is
+    unbounded and fails."""
+    import control
+
+    c = control.sample_system(control.tf([1.5 * 0.2, 1.5], [0.2, 0]), 0.02, method="tustin")
+    p = control.sample_system(control.tf([10], [0.5, 1]), 0.02, method="zoh")
+    z = control.tf([1, 0], [1], 0.02)
+    gm = control.stability_margins(c * p / z)[0]
+    assert math.isfinite(gm) and 20 * math.log10(gm) < 6  # the finite margin the firmware has
+    p_an = control.tf([10], [0.5, 1]) * control.tf([1.5 * 0.2, 1.5], [0.2, 0])
+    assert not math.isfinite(control.stability_margins(p_an)[0])  # the source's is infinite
+    res = evaluate_case(load_case(CASES / "c23_gm_inf.toml"))
+    (j,) = _judged(res, "max_gain_margin_change_db").values()
+    assert j.status == "fail" and j.value == math.inf and j.note.startswith("unbounded")
+    assert res.verdict.overall == "fail"
+
+
+def test_a_set_step_criterion_not_simulated_keeps_the_verdict_from_passing():
+    """A 1 kHz task on a loop that settles in hours: the step simulation is refused as too long,
+    so the step and disturbance criteria the case sets are not checked. Before: PASS on the gain
+    error alone; now UNCHECKED with both named (README: exit 0 only when every criterion passes)."""
+    res = evaluate_case(load_case(CASES / "c29_made_step_skipped.toml"))
+    step = _judged(res, "max_step_deviation")
+    assert all(j.status == "skipped" for j in step.values())
+    assert res.verdict.overall == "unchecked"
+    assert "step-response deviation" in res.verdict.unchecked_reason
+    assert "disturbance-response deviation" in res.verdict.unchecked_reason
+
+
+def test_a_zero_mirrored_into_the_right_half_plane_fails_the_action_check():
+    """Given firmware whose zero sits mirrored in the right half-plane: same gain as the source
+    everywhere, phase -2·atan(0.05ω) against it (hand: (1 - 0.05s)/(1 + 0.05s) is all-pass), i.e.
+    -153° at 20 Hz, the band's top. Before: the action was read at the band's bottom only (3.6°)
+    and the gain-only case PASSED; the check now covers the band."""
+    res = evaluate_case(load_case(CASES / "c7_given_mirror.toml"))
+    (j,) = _judged(res, "same_sign").values()
+    hand = math.degrees(2 * math.atan(0.05 * 2 * math.pi * 20))
+    assert hand > 90
+    assert j.status == "fail" and j.value > 90
+    # independent: scipy.signal.freqz of the given b/a against the source by hand, unwrapped from
+    # 0.1 Hz; the phase turns monotonically, so the largest is at the band's top
+    from scipy.signal import freqz
+
+    f = np.geomspace(0.1, 20, 400)
+    _, h = freqz([-5.066666667, 5.6], [1, -0.333333333], worN=f, fs=200)
+    w = 2j * np.pi * f
+    src = 0.8 * (0.05 * w + 1) / (0.005 * w + 1)
+    ref = np.degrees(np.unwrap(np.angle(h / src)))
+    assert j.value == pytest.approx(abs(ref[-1]), abs=0.01)
+    assert res.verdict.overall == "fail"
+
+
+def test_an_unstable_loop_has_no_margins_to_judge():
+    """An unstable plant and a 4 Hz firmware: the closed loop is unstable (numpy eigenvalues of the
+    sampled loop in the stability tests); its margin changes are not judged as if it worked (the
+    reviewer saw "phase margin change 57.9 deg FAIL"), its stability row fails the verdict."""
+    res = evaluate_case(load_case(CASES / "c4_unstable_plant.toml"))
+    stab = _judged(res, "closed_loop_stable")
+    unstable = [n for n, j in stab.items() if j.status == "fail" and n != "source"]
+    assert unstable
+    for n in unstable:
+        for key in ("max_phase_margin_change_deg", "max_gain_margin_change_db"):
+            j = _judged(res, key)[n]
+            assert j.status == "skipped" and "unstable" in j.note
+    assert res.verdict.overall == "fail"
+    assert np.isfinite([j.value for j in _judged(res, "max_phase_margin_change_deg").values() if j.value]).all()
