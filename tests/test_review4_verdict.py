@@ -89,3 +89,51 @@ def test_an_unstable_loop_has_no_margins_to_judge():
             assert j.status == "skipped" and "unstable" in j.note
     assert res.verdict.overall == "fail"
     assert np.isfinite([j.value for j in _judged(res, "max_phase_margin_change_deg").values() if j.value]).all()
+
+
+def test_given_velocity_block_with_limits_runs_in_velocity_form():
+    """A DCS velocity PI (kc 4, Ti 30 s, 2 Hz, limits ±10) against its analog card on
+    0.5/((60s+1)(5s+1)) with 4 s dead time, a setpoint step of 4 that saturates the output.
+    Before: the given velocity block was simulated with the positional (winding) law and passed at
+    0.38 %. Independent simulation here (plant exact at 10 ms by the matrix exponential, dead time
+    as a 400-sample line, the block's own b/a as increments added to its clamped output, the
+    analog PI integrating at 10 ms): the velocity block leaves the card by about 22.6 % of the
+    step; the tool now says the same and fails."""
+    from scipy.linalg import expm
+    from scipy.signal import tf2ss
+
+    res = evaluate_case(load_case(CASES / "c17_velocity_sat.toml"))
+    vel = next(r for r in res.realizations if r.name.endswith("vel"))
+    b, a = vel.details["b"], vel.details["a"]
+    assert len(b) == 2 and a == pytest.approx([1.0, -1.0])  # a PI: du = b0·e[k] + b1·e[k-1]
+    dt, T, lim, r = 0.01, 0.5, 10.0, 4.0
+    A, B, C, _ = tf2ss([0.5], np.polymul([60, 1], [5, 1]))
+    n = A.shape[0]
+    M = np.zeros((n + 1, n + 1))
+    M[:n, :n], M[:n, n:] = A * dt, B * dt
+    E = expm(M)
+    Ad, Bd = E[:n, :n], E[:n, n:]
+    steps, delay, every = int(round(vel.step.t[-1] / dt)), 400, int(round(T / dt))
+
+    def run(velocity: bool) -> np.ndarray:
+        x, line, y = np.zeros((n, 1)), np.zeros(delay), np.zeros(steps)
+        integral = u = e_old = 0.0
+        for k in range(steps):
+            y[k] = (C @ x).item()
+            e = r - y[k]
+            if not velocity:
+                integral += 4 / 30 * e * dt
+                u = min(max(4 * e + integral, -lim), lim)
+            elif k % every == 0:
+                u = min(max(u + b[0] * e + b[1] * e_old, -lim), lim)
+                e_old = e
+            line = np.roll(line, 1)
+            line[0] = u
+            x = Ad @ x + Bd * line[-1]
+        return y
+
+    independent = np.max(np.abs(run(True) - run(False))) / r
+    (j,) = [j for j in res.verdict.judgements if j.criterion == "max_step_deviation" and j.realization == vel.name]
+    assert independent > 0.2
+    assert j.value == pytest.approx(independent, abs=0.005)
+    assert j.status == "fail" and res.verdict.overall == "fail"

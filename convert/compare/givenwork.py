@@ -21,6 +21,7 @@ from convert.compare.loop import margin_grid, loop_margins
 from convert.compare.stages import fmt_hz as _fmt_hz, fmt_s as _fmt_s, loop_spec
 from convert.digital.quantized import analyze
 from convert.digital.roots import RootForm
+from convert.digital.velocity import VelocityForm
 from convert.values import format_value
 from convert.circuit.tolerance import DEFAULT_DRAWS, Comparison, run_tolerances
 from convert.circuit.topologies import get_topology
@@ -206,7 +207,8 @@ def _firmware(case, given, info, src, band, duration, src_step, src_dist):
         if d["algorithm"] == "velocity":
             warnings.append(
                 "velocity algorithm: the same linear law; it differs from the positional one at the "
-                "output limits and on switch-over (no integral windup, bumpless by construction)"
+                "output limits (no integral windup: the loop simulation runs it in velocity form) and on "
+                "switch-over (bumpless by construction)"
             )
     r = _realization(
         case,
@@ -222,9 +224,10 @@ def _firmware(case, given, info, src, band, duration, src_step, src_dist):
     if fw is not None:
         r.details["firmware"] = fw
     if case.plant is not None:
-        _loop_checks(
-            case, r, cq, duration, delay, d["output_limits"] or case.signals.output_range, getattr(info, "pid", None)
-        )
+        limits = d["output_limits"] or case.signals.output_range
+        # a velocity algorithm adds its increments to the output it sent, clamped: run it so
+        velocity = VelocityForm(cq, limits) if given.form == "pid" and d["algorithm"] == "velocity" else None
+        _loop_checks(case, r, cq, duration, delay, limits, getattr(info, "pid", None), realized=velocity)
     return r
 
 
@@ -422,9 +425,10 @@ def _realization(case, given, form, controller, details, budget, warnings, seen)
     )
 
 
-def _loop_checks(case, r, controller, duration, delay, limits, pid=None) -> None:
+def _loop_checks(case, r, controller, duration, delay, limits, pid=None, realized=None) -> None:
     """Margins and simulations of a given form; a PID block with setpoint weights b, c runs its
-    own setpoint path (F = C_sp/C of its settings, sampled at its instants when it is firmware)."""
+    own setpoint path (F = C_sp/C of its settings, sampled at its instants when it is firmware).
+    ``realized``: a sample-by-sample model of the firmware (a velocity algorithm) for the runs."""
     # imported here, not at the top: import cycle (convert.compare.givenwork -> convert.compare.evaluate -> convert.compare.givenwork)
     from convert.compare.evaluate import _simulate_pair, setpoint_filter_of
 
@@ -435,6 +439,8 @@ def _loop_checks(case, r, controller, duration, delay, limits, pid=None) -> None
     try:
         own = setpoint_filter_of(pid)
         r.own_setpoint_path = own is not None
-        r.step, r.disturbance = _simulate_pair(case, controller, duration, delay, limits, setpoint_filter=own)
+        r.step, r.disturbance = _simulate_pair(
+            case, controller, duration, delay, limits, realized=realized, setpoint_filter=own
+        )
     except InputError as exc:
         r.warnings.append(f"time simulation skipped: {exc.message}")
