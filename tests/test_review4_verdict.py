@@ -137,3 +137,21 @@ def test_given_velocity_block_with_limits_runs_in_velocity_form():
     assert independent > 0.2
     assert j.value == pytest.approx(independent, abs=0.005)
     assert j.status == "fail" and res.verdict.overall == "fail"
+
+
+def test_a_computation_delay_of_minutes_is_refused_in_one_line(run_cli, tmp_path):
+    """`delay = "5 min"` at 10 Hz is 3,000 samples (arithmetic): no firmware computes that long,
+    and the run hung (or grew past 2.7 GB at 10 s). Refused in one line naming the key, with the
+    way out (the plant's dead time); the same on the command line."""
+    from convert.errors import InputError
+
+    with pytest.raises(InputError) as err:
+        load_case(CASES / "c30_delay_big.toml")
+    assert "3000 samples" in err.value.message and "dead time" in err.value.message
+    assert "target.digital.delay" in str(err.value)
+    r = run_cli("report", str(CASES / "c30_delay_big.toml"), "--out", str(tmp_path / "r"))
+    assert r.code == 2 and len(r.err.strip().splitlines()) == 1
+    r = run_cli("digital", "2*(1+1/(3s))", "--fs", "10Hz", "--delay", "5min")
+    assert r.code == 2 and "--delay" in r.err and "3000 samples" in r.err
+    r = run_cli("digital", "2*(1+1/(3s))", "--fs", "10Hz", "--delay", "32samples")
+    assert r.code == 0, r.err  # a few periods of computation and fieldbus stay allowed

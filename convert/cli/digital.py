@@ -150,8 +150,13 @@ def parse_delay(text: str | None, fs_hz: float):
 
     if text is None:
         return 0.0
+    from convert.errors import InputError
+
     delay_s, delay_samples = read_delay(text, field="--delay")
-    return delay_in_seconds(delay_s=delay_s, delay_samples=delay_samples, fs_hz=fs_hz)
+    try:
+        return delay_in_seconds(delay_s=delay_s, delay_samples=delay_samples, fs_hz=fs_hz)
+    except InputError as exc:
+        raise InputError(exc.message, key="--delay") from None
 
 
 def _methods(args) -> list[str]:
