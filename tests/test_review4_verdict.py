@@ -155,3 +155,43 @@ def test_a_computation_delay_of_minutes_is_refused_in_one_line(run_cli, tmp_path
     assert r.code == 2 and "--delay" in r.err and "3000 samples" in r.err
     r = run_cli("digital", "2*(1+1/(3s))", "--fs", "10Hz", "--delay", "32samples")
     assert r.code == 0, r.err  # a few periods of computation and fieldbus stay allowed
+
+
+def test_a_circuit_output_clipped_by_its_rail_is_simulated_clipped():
+    """PI card 4(1 + 1/(2s)) on ±12 V op-amps, a 5 V setpoint step that asks about 22 V of it.
+    Before: the loop simulation ignored the case's rail and passed at 0.11 %. Independent model
+    (the reviewer's, here at 1 ms): the inverting PI stage with the tool's parts, saturated at the
+    rail (its capacitor then charges through R1 + R2), against the analog source: about 26 % of
+    the step. The tool now clips at the rail, warns, and fails."""
+    res = evaluate_case(load_case(CASES / "c31_rail_step.toml"))
+    (r,) = res.realizations
+    p = r.details["parts"]
+    r1, r2, c1 = p["R1"], p["R2"], p["C1"]
+    dt, rail, ref = 1e-3, 12.0, 5.0
+    n, line = int(r.step.t[-1] / dt), int(round(0.2 / dt))
+
+    def run(card: bool) -> np.ndarray:
+        y, vc, integral, buf, out = 0.0, 0.0, 0.0, [0.0] * line, np.zeros(n)
+        for k in range(n):
+            e = ref - y
+            if card:
+                i = e / r1
+                vo = -(i * r2 + vc)
+                if abs(vo) > rail:
+                    vo = math.copysign(rail, vo)
+                    i = (e - vo - vc) / (r1 + r2)
+                vc += i / c1 * dt
+                u = -vo
+            else:
+                u = 4 * e + integral
+                integral += 4 / 2 * e * dt
+            buf.append(u)
+            y += dt * (buf.pop(0) - y) / 3.0
+            out[k] = y
+        return out
+
+    independent = np.max(np.abs(run(True) - run(False))) / ref
+    (j,) = [j for j in res.verdict.judgements if j.criterion == "max_step_deviation"]
+    assert independent > 0.2
+    assert j.value == pytest.approx(independent, abs=0.01)
+    assert j.status == "fail" and any("rail" in w for w in r.warnings)

@@ -151,9 +151,18 @@ def circuit_realization(
             own = _ratio(paths["setpoint"], paths["measurement"], "setpoint filter F = Cr / Cy")
             if own.order == 0 and len(own.num) == 1 and abs(own.num[0] - 1.0) <= 1e-9:
                 own = None
-        r.step, r.disturbance = _simulate_pair(
-            case, realized, duration, 0.0, case.signals.output_range, setpoint_filter=own
-        )
+        limits = case.signals.output_range
+        if tgt.rail_v is not None:  # the op-amps cannot drive the output past their rail
+            rail = (-tgt.rail_v, tgt.rail_v)
+            limits = rail if limits is None else (max(limits[0], rail[0]), min(limits[1], rail[1]))
+        r.step, r.disturbance = _simulate_pair(case, realized, duration, 0.0, limits, setpoint_filter=own)
+        if tgt.rail_v is not None and any(
+            resp is not None and np.max(np.abs(resp.u)) >= tgt.rail_v * (1 - 1e-9) for resp in (r.step, r.disturbance)
+        ):
+            r.warnings.append(
+                f"the circuit's output reaches the {tgt.rail_v:g} V rail in the loop simulation: it is clipped there "
+                "(an op-amp stage saturated at its rail leaves its linear law; the clipped response is a model of it)"
+            )
         if setpoint_filter is not None and own is None:
             r.warnings.append(WEIGHTS_NOT_CARRIED)
     r.files = circuit_files(
