@@ -39,7 +39,7 @@ from convert.circuit.topologies import get_topology
 from convert.circuit.netlist import read_netlist
 from convert.pipeline import read_card_source
 from convert.circuit.card import two_input_hint
-from convert.circuit.clamps import limits_text
+from convert.circuit.clamps import find_clamps, limits_text
 
 SOURCE_FORMS = ("expression", "pid", "digital", "card", "netlist")
 WORD_FORMATS = ("float64", "float32", "q15", "q31")
@@ -1062,6 +1062,9 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
         fs_hz=fs,
     )
     extra: dict = {"netlist_file": str(file_path), "output_limits": card.output_limits, "reduction": card.reduction}
+    across = [c for c in find_clamps(net) if c.role.startswith("across the feedback")]
+    if card.output_limits is not None and across:  # the clamp stops an integrator: the card does not wind up
+        extra["feedback_clamp"] = ", ".join(d for c in across for d in c.diodes)
     notes = [f"warning: {w}" for w in net.warnings] + list(card.notes)
     if card.output_limits is not None:
         notes.append(

@@ -210,6 +210,7 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
             "sample-rate rule of thumb (needs the crossover frequency)",
         ]
     tick("source and reference loop")
+    unmodelled = _clamp_beyond_the_model(info.extra.get("feedback_clamp"), card_limits, src_step, src_dist)
 
     realizations: list[Realization] = []
     advice: list[RateAdvice] = []
@@ -286,6 +287,8 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
             r.stability = _stability(r.controller, plant, delay, f"the loop with {r.name}", notes)
             loops[r.name] = r.stability
             f.update(_loop_figures(src_margins, r, src_step, src_dist, case))
+            for key, why in unmodelled.items():
+                f[key], f[f"{key}_note"] = None, why
             if src_stability is not None and not src_stability.acceptable:
                 for key in LOOP_CRITERIA:
                     f[key] = None
@@ -466,6 +469,29 @@ CODE_NOT_WEIGHTED = (
     "path; its setpoint step is simulated so and judged against the source's weighted response "
     "(firmware with setpoint weights b, c: loopshift code --pid-block)"
 )
+
+
+def _clamp_beyond_the_model(diodes, limits, step, disturbance) -> dict[str, str]:
+    """criterion key -> why it cannot be judged, for each simulated response of the source loop in
+    which a card's clamp across an integrating stage's feedback (``diodes``) acts: that clamp stops
+    the integrator (the card does not wind up), while the loop simulation holds the output at the
+    limits and lets the controller's state run on, so the card's own response there is not the
+    one simulated. Empty when no such clamp, or when the responses stay inside its limits."""
+    if not diodes or limits is None:
+        return {}
+    out = {}
+    for key, resp in (("max_step_deviation", step), ("max_disturbance_deviation", disturbance)):
+        if resp is None:
+            continue
+        u = np.asarray(resp.u)
+        if np.any(u >= limits[1] * (1 - 1e-9)) or np.any(u <= limits[0] * (1 - 1e-9)):
+            out[key] = (
+                f"not judged: the card's clamp ({diodes}) sits across an integrator's feedback and acts in this "
+                "response; it stops the card's integrator (no windup), which the simulation's output limit does not "
+                "model, so the card's response here is not known (check with a step that stays inside the clamp, "
+                "and the clamped behaviour on a bench)"
+            )
+    return out
 
 
 def _simulate_pair(
