@@ -233,3 +233,30 @@ def test_a_clamp_across_the_integrator_that_acts_leaves_the_step_unjudged():
     (j,) = [j for j in res.verdict.judgements if j.criterion == "max_step_deviation"]
     assert j.status == "skipped" and "across an integrator" in j.note
     assert res.verdict.overall == "unchecked" and "step-response deviation" in res.verdict.unchecked_reason
+
+
+def test_given_pid_block_filter_row_is_against_the_source_law(tmp_path):
+    """A DCS PID block with the same settings and the same derivative filter (N = 8) as the
+    source card: its derivative-filter row was 0.668 dB / 17.7° (filtered against unfiltered, by
+    hand the same), blaming a filter the source has too; it is now ~0. With an ideal source (no
+    N), the row is the filter's own effect again, checked by hand: |1 + 1/(Ti s) + Td s/(1 + Td s/N)|
+    against |1 + 1/(Ti s) + Td s| over the band."""
+    from convert.case import parse_case
+
+    res = evaluate_case(load_case(CASES / "c8_given_pid.toml"))
+    row = next(b for b in res.realizations[0].budget if b.key == "derivative_filter")
+    assert abs(row.max_gain_error_db) < 1e-6 and abs(row.max_phase_error_deg) < 1e-4
+    text = (CASES / "c8_given_pid.toml").read_text().replace('td = "1.5 s"\nn = 8\n', 'td = "1.5 s"\n', 1)
+    assert text.count("n = 8") == 1  # only the block keeps its filter
+    plant = text[text.index("[plant]") : text.index("[criteria]")]
+    text = text.replace(plant, "")  # an ideal source cannot be simulated in a loop: no plant here
+    res = evaluate_case(parse_case(text, tmp_path / "ideal.toml"))
+    row = next(b for b in res.realizations[0].budget if b.key == "derivative_filter")
+    f = np.geomspace(1e-3, 0.3, 20001)
+    s = 2j * np.pi * f
+    filt = 1 + 1 / (8 * s) + 1.5 * s / (1 + 1.5 * s / 8)
+    bare = 1 + 1 / (8 * s) + 1.5 * s
+    gain = np.max(np.abs(20 * np.log10(np.abs(filt / bare))))
+    phase = np.max(np.abs(np.degrees(np.angle(filt / bare))))
+    assert row.max_gain_error_db == pytest.approx(gain, rel=1e-3)
+    assert row.max_phase_error_deg == pytest.approx(phase, rel=1e-3)

@@ -96,6 +96,11 @@ def _loop(case, controller: Controller):
     return loop_f, _loop_spec(case, loop_f)
 
 
+def _has_filter(ctrl: Controller) -> bool:
+    """True when an analog controller has more poles than an ideal PID (a derivative filter or a lag)."""
+    return len(ctrl.den) - 1 > 1 or (len(ctrl.den) == 2 and ctrl.den[-1] != 0)
+
+
 def _firmware(case, given, info, src, band, duration, src_step, src_dist):
     d = given.data
     cd: Controller = info.controller
@@ -128,7 +133,20 @@ def _firmware(case, given, info, src, band, duration, src_step, src_dist):
             loop_reference=lr(law),
             loop_candidate=lr(cd),
         )
-        if info.pid.tf > 0:
+        if not src.is_digital and (info.pid.tf > 0 or _has_filter(src)):
+            # against the source's own law: a filter the source has too is no error
+            rows["derivative_filter"] = bud.error_row(
+                "derivative_filter",
+                band,
+                src.frequency_response(band, via="zpk"),
+                law.frequency_response(band),
+                note=f"the block's PID law (derivative filter time constant {_fmt_s(info.pid.tf)}) against the "
+                "source's, both continuous: what its filter (and any other difference of its settings) changes",
+                loop=spec,
+                loop_reference=lr(src),
+                loop_candidate=lr(law),
+            )
+        elif info.pid.tf > 0:
             from dataclasses import replace
 
             bare = replace(info.pid, tf=0.0).to_controller()
