@@ -260,3 +260,12 @@ def test_given_pid_block_filter_row_is_against_the_source_law(tmp_path):
     phase = np.max(np.abs(np.degrees(np.angle(filt / bare))))
     assert row.max_gain_error_db == pytest.approx(gain, rel=1e-3)
     assert row.max_phase_error_deg == pytest.approx(phase, rel=1e-3)
+
+
+def test_output_limits_far_beyond_the_output_signal_are_warned():
+    """output_limits [-40, 60] (card volts, deviations) on a 0-10 V output mapped to 100..0 %: by
+    hand -10 %/V, so the firmware clamp is -600 .. 400 %, ten times the signal's 100 % range, a
+    clamp that never acts. Before: scaled in silence into the code; now a warning says so."""
+    res = evaluate_case(load_case(CASES / "c14_scaling.toml"))
+    warnings = " ".join(w for r in res.realizations for w in r.warnings)
+    assert "-600 .. 400 in firmware units, 10 times the output signal's whole range" in warnings

@@ -471,6 +471,24 @@ CODE_NOT_WEIGHTED = (
 )
 
 
+def _wide_limits_warning(case, scaled) -> list[str]:
+    """A warning when output limits, mapped to firmware units, span more than the output signal's
+    whole firmware range: a clamp that never acts (limits given in other units than the card's?)."""
+    out_map = case.digital.output_signal if case.digital else None
+    if not scaled or not scaled.get("output_limits") or out_map is None:
+        return []
+    lo, hi = scaled["output_limits"]
+    span = abs(out_map.firmware_high - out_map.firmware_low)
+    if hi - lo <= span * (1 + 1e-9):
+        return []
+    return [
+        f"the output limits become {lo:.4g} .. {hi:.4g} in firmware units, {(hi - lo) / span:.3g} times the output "
+        f"signal's whole range ({min(out_map.firmware_low, out_map.firmware_high):.4g} .. "
+        f"{max(out_map.firmware_low, out_map.firmware_high):.4g}): a clamp that never acts. output_limits are "
+        "deviations of the card's output from its operating point, in the card's units (V or mA)"
+    ]
+
+
 def _clamp_beyond_the_model(diodes, limits, step, disturbance) -> dict[str, str]:
     """criterion key -> why it cannot be judged, for each simulated response of the source loop in
     which a card's clamp across an integrating stage's feedback (``diodes``) acts: that clamp stops
@@ -580,7 +598,7 @@ def _digital_realizations(
             else:
                 fw = _linear_firmware(case, filtered, fs, method, band, card_limits)
             cq, firmware, scaled = fw.stored, fw.analysis, fw.scaled
-            warnings = list(fw.warnings)
+            warnings = list(fw.warnings) + _wide_limits_warning(case, scaled)
             name = f"{fw.label} @ {_fmt_hz(fs)}"
             budget = list(
                 digital_budget(
