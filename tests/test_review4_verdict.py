@@ -269,3 +269,32 @@ def test_output_limits_far_beyond_the_output_signal_are_warned():
     res = evaluate_case(load_case(CASES / "c14_scaling.toml"))
     warnings = " ".join(w for r in res.realizations for w in r.warnings)
     assert "-600 .. 400 in firmware units, 10 times the output signal's whole range" in warnings
+
+
+def test_a_circuit_that_oscillates_with_its_op_amps_fails():
+    """A 20 kHz resonant term (Q 25) built as a Tow-Thomas cascade on 1 MHz op-amps: with ideal
+    op-amps the circuit is stable, and "controller stable on its own" passed. Outside reference:
+    ngspice transient of the written netlist (its single-pole op-amp subcircuit) after a 10 mV
+    step grows like e^{σt}; σ from the envelope between 0.5-1 ms and 2.5-3 ms matches the
+    circuit's right-half-plane pole the new always-on check reports, and the check fails."""
+    from tests.spice import require_ngspice, transient
+
+    require_ngspice()
+    res = evaluate_case(load_case(CASES / "c24_resonant.toml"))
+    (r,) = res.realizations
+    (j,) = [j for j in res.verdict.judgements if j.criterion == "controller_stable_opamps"]
+    assert j.status == "fail" and j.value > 0
+    text = r.files["circuit.cir"]
+    deck = "\n".join(
+        "VIN in 0 DC 0 PULSE(0 0.01 0 1n 1n 1 2)" if line.startswith("VIN ") else line
+        for line in text.splitlines()
+        if not line.lower().startswith(".ac") and line.lower() != ".end"
+    )
+    t, v = transient(deck, 3e-3, 0.5e-6)
+    early = np.max(np.abs(v[(t > 0.5e-3) & (t < 1e-3)]))
+    late = np.max(np.abs(v[(t > 2.5e-3) & (t < 3e-3)]))
+    sigma = math.log(late / early) / 2e-3
+    assert late > 10 * early
+    assert j.value == pytest.approx(sigma, rel=0.15)
+    # and with ideal op-amps the same design is stable: the check is about the op-amps
+    assert all(p.real < 0 for p in r.controller.poles())

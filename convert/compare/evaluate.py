@@ -305,6 +305,8 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
                 f["checks"].append(reach)
         if r.form == "circuit" and r.details.get("swing_check") is not None:  # target.circuit.rail/input_amplitude
             f["checks"] = f["checks"] + [r.details["swing_check"]]
+        if r.form == "circuit" and r.details.get("opamp_stability_check") is not None:  # target.circuit.opamp_gbw
+            f["checks"] = f["checks"] + [r.details["opamp_stability_check"]]
         if total.unstable_fraction is not None:
             f["checks"] = list(f.get("checks", ())) + [_draws_stability_check(total)]
         figures[r.name] = f
