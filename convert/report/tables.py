@@ -532,11 +532,15 @@ _NOTES = {
         "total has everything on and compares with the source as the loop sees it. Errors are the largest over the "
         "band; the Δ columns are the change in the loop figure, new minus source (a negative Δ phase margin means "
         "less margin). The rows need not add up to the total. Rows that cannot arise in this kind of target are "
-        "left out."
+        "left out. For a digital form the Δ columns see the hold as a continuous response (its sinc and half-period "
+        "delay), which can be a little optimistic near the Nyquist frequency; the loop checks below and the verdict "
+        "use the sampled loop itself (aliasing included)."
     ),
     "Loop checks": (
         "Gain margin at the frequency where the loop's phase crosses −180°; phase margin at the crossover where "
-        "|L| = 1; sensitivity peak Ms = max |1/(1 + L)| (6 dB, Ms = 2, is a common upper bound for a robust loop)."
+        "|L| = 1; sensitivity peak Ms = max |1/(1 + L)| (6 dB, Ms = 2, is a common upper bound for a robust loop). "
+        "A digital form's loop is the sampled loop as it runs: L(z) on the unit circle up to the Nyquist frequency, "
+        "the plant sampled through the hold with its dead time and the computation delay."
     ),
     "Sample-rate advice": (
         "The checked rate is the lowest scanned rate from which every higher rate keeps the method, hold and "
