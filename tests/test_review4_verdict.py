@@ -329,3 +329,27 @@ def test_card_with_its_own_op_amp_subcircuit_reads():
     card2 = analyze_card(read_netlist(other, "docsub.cir"), setpoint="VSP", measurement="VPV", band_hz=(0.01, 5))
     c2 = card2.full_controller or card2.controller
     assert np.max(np.abs(c2.frequency_response(f) / c.frequency_response(f) - 1)) < 1e-5
+
+
+def test_given_float32_direct2t_is_checked_as_direct2t():
+    """Given float32 coefficients the firmware runs in direct form II transposed were checked as
+    direct form I (a warning said so). They are now analysed in the structure given. Independent:
+    numpy float32 arithmetic of the direct2t recursion (y = b0·e + s; s = b1·e + y) held at the
+    output level 50 with an error of 1.0, below the tool's stall figure, does not move in 4,096
+    samples, where the exact recursion would ramp by 2e-6 a sample."""
+    res = evaluate_case(load_case(CASES / "c19_given_f32_d2t.toml"))
+    (r,) = res.realizations
+    fw = r.details["firmware"]
+    assert fw["structure"] == "direct2t"
+    assert not any("rounding inside the sections is not modelled" in w for w in r.warnings)
+    b0, b1, e = np.float32(1.200001), np.float32(-1.199999), np.float32(1.0)
+    y = np.float32(50.0)
+    s = np.float32(y - b0 * e)
+    first = np.float32(b0 * e + s)
+    for _ in range(4096):
+        y = np.float32(b0 * e + s)
+        s = np.float32(b1 * e + y)
+    assert y == first  # stalled
+    assert fw["stall_error"] > 1.0
+    (j,) = [j for j in res.verdict.judgements if j.criterion == "firmware_stall"]
+    assert j.status == "fail"

@@ -215,7 +215,9 @@ def _firmware(case, given, info, src, band, duration, src_step, src_dist):
         "output_limits": d["output_limits"],
     }
     warnings = []
-    if d.get("structure") not in (None, "direct"):
+    if d.get("structure") not in (None, "direct") and not (
+        given.form == "digital" and _one_polynomial_structure(d) != "direct1"
+    ):
         warnings.append(
             f"structure {d['structure']!r} is recorded; its rounding inside the sections is not modelled "
             "(coefficients are checked as stored)"
@@ -249,6 +251,13 @@ def _firmware(case, given, info, src, band, duration, src_step, src_dist):
     return r
 
 
+def _one_polynomial_structure(d: dict) -> str:
+    """The structure the given coefficients run in when it is one the analysis models on a single
+    polynomial b/a (direct form I or II transposed), else direct form I."""
+    name = str(d.get("structure") or "").strip().lower().replace(" ", "").replace("-", "").replace("_", "")
+    return "direct2t" if name in ("direct2t", "df2t", "directii", "direct2transposed") else "direct1"
+
+
 def _stored_checks(case, given, cd: Controller, band) -> dict | None:
     """The word-format checks of given coefficients (stored poles, response, integrator stall,
     dead band) as a made target gets them (:func:`convert.digital.quantized.analyze`), in direct
@@ -261,7 +270,7 @@ def _stored_checks(case, given, cd: Controller, band) -> dict | None:
     limits = d.get("output_limits") or case.signals.output_range
     x = analyze(
         RootForm.of(cd),
-        "direct1",
+        _one_polynomial_structure(d),
         d["word_format"],
         band,
         b=cd.b,
