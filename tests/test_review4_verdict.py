@@ -353,3 +353,17 @@ def test_given_float32_direct2t_is_checked_as_direct2t():
     assert fw["stall_error"] > 1.0
     (j,) = [j for j in res.verdict.judgements if j.criterion == "firmware_stall"]
     assert j.status == "fail"
+
+
+def test_clamp_limits_carry_through_a_single_pole_op_amp_inverter():
+    """Zeners across the PI stage's feedback (BV 6.2 V, a forward drop of 0.65 V: 6.85 V by
+    arithmetic), then a unity inverter to the output. With ideal op-amps the limits were carried
+    to the output (−6.85 … 6.85 V); with single-pole op-amps (OPAMP1P) they were not, and a report
+    simulated the card unclamped. The inverter's DC gain with A0 = 2e5 is −1/(1 + 2/A0): the
+    limits move by 1e-5 V, far inside the clamp's knee."""
+    from convert.circuit.card import analyze_card
+    from convert.circuit.netlist import read_netlist
+
+    text = (CASES / "cards" / "pid_meas_d_1p.cir").read_text()
+    card = analyze_card(read_netlist(text, "1p.cir"), setpoint="VSP", measurement="VPV", band_hz=(0.01, 5))
+    assert card.output_limits == pytest.approx((-6.85, 6.85), abs=1e-9)
