@@ -173,11 +173,12 @@ def budget_table(realization, loops_stable: bool = True) -> Table:
             rows.append([row.label, "not applicable", "", "", "", "", row.note.replace("not applicable: ", "")])
             continue
         pct = f" (p{row.percentile:g} of draws)" if row.percentile else ""
+
         loop = (
             [
-                fixed(row.delta_phase_margin_deg, "°"),
-                fixed(row.delta_gain_margin_db, "dB"),
-                fixed(row.delta_sensitivity_peak_db, "dB"),
+                _change(row.delta_phase_margin_deg, "°", row.percentile),
+                _change(row.delta_gain_margin_db, "dB", row.percentile),
+                _change(row.delta_sensitivity_peak_db, "dB", row.percentile),
             ]
             if loops_stable
             else ["unstable loop", "—", "—"]
@@ -198,6 +199,14 @@ def budget_table(realization, loops_stable: bool = True) -> Table:
         ],
         rows,
     )
+
+
+def _change(v, unit: str, percentile) -> str:
+    """A loop figure's change; over draws (``percentile``) a percentile of |change|: its size, not a
+    direction (draws move both ways; the sign of the one draw nearest the level says little)."""
+    if not percentile or v is None or not math.isfinite(v):
+        return fixed(v, unit)
+    return f"±{fixed(abs(v), unit)}"
 
 
 def margins_table(results) -> Table | None:
