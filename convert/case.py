@@ -32,14 +32,14 @@ from convert.controller import from_expression, Controller
 from convert.digital.codegen import _check_name
 from convert.circuit.tolerance import DEFAULT_DISTRIBUTION, DEFAULT_DRAWS, DISTRIBUTIONS, MAX_DRAWS, draws_problem
 from convert.digital.scaling import signal_map
-from convert.compare.frequency import band_width_problem
+from convert.compare.frequency import band_width_problem, delay_problem
 from convert.pid import pid_from_mapping
 from convert.digital.printed import printed_integrators, printed_radii
 from convert.circuit.topologies import get_topology
 from convert.circuit.netlist import read_netlist
 from convert.pipeline import read_card_source
 from convert.circuit.card import two_input_hint
-from convert.circuit.clamps import limits_text
+from convert.circuit.clamps import find_clamps, limits_text
 
 SOURCE_FORMS = ("expression", "pid", "digital", "card", "netlist")
 WORD_FORMATS = ("float64", "float32", "q15", "q31")
@@ -728,6 +728,10 @@ def _read_targets(ctx: _Ctx, data: dict, source: Source):
         delay_s, delay_samples = ctx.delay(dig, "delay", f"{key}.delay")
         if "delay_samples" in dig:
             delay_samples = ctx.value(dig, "delay_samples", f"{key}.delay_samples", "number", None, positive=True)
+        for rate in fs:
+            why = delay_problem(delay_samples / rate if delay_samples is not None else delay_s, rate)
+            if why:
+                raise ctx.error(f"{key}.delay_samples" if "delay_samples" in dig else f"{key}.delay", why)
         limits = _around_operating_point(
             ctx, ctx.pair(dig, "output_limits", f"{key}.output_limits", "number"), f"{key}.output_limits"
         )
@@ -1058,6 +1062,9 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
         fs_hz=fs,
     )
     extra: dict = {"netlist_file": str(file_path), "output_limits": card.output_limits, "reduction": card.reduction}
+    across = [c for c in find_clamps(net) if c.role.startswith("across the feedback")]
+    if card.output_limits is not None and across:  # the clamp stops an integrator: the card does not wind up
+        extra["feedback_clamp"] = ", ".join(d for c in across for d in c.diodes)
     notes = [f"warning: {w}" for w in net.warnings] + list(card.notes)
     if card.output_limits is not None:
         notes.append(

@@ -493,7 +493,7 @@ def parse_rational(text: str, *, label: str = "expression") -> ParsedExpression:
     if not value.den:
         raise parser.error(1, "division by zero")
     if not value.num:
-        raise parser.error(1, "the expression is identically zero; a controller needs a non-zero gain")
+        raise parser.error(1, "the expression is identically zero; a transfer function needs a non-zero gain")
     try:
         g = _pgcd(value.num, value.den)
     except _TooLarge:

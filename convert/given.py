@@ -36,6 +36,7 @@ from convert.errors import InputError, LoopshiftError
 from convert.controller import from_expression, Controller
 from convert.pid import pid_from_mapping
 from convert.values import format_value
+from convert.compare.frequency import delay_problem
 
 GIVEN_FORMS = ("analog", "digital", "pid", "circuit")
 PID_BLOCK_METHODS = ("backward-euler", "forward-euler", "tustin")
@@ -107,6 +108,9 @@ def _firmware_common(ctx, table: dict, dotted: str, out: dict) -> None:
         raise ctx.error(dotted, 'missing fs: the sample rate the firmware runs at, e.g. fs = "100 Hz"')
     delay_s, delay_samples = ctx.delay(table, "delay", f"{dotted}.delay")
     out["delay_s"], out["delay_samples"] = delay_s, delay_samples
+    why = delay_problem(delay_samples / out["fs_hz"] if delay_samples is not None else delay_s, out["fs_hz"])
+    if why:
+        raise ctx.error(f"{dotted}.delay", why)
     out["output_limits"] = ctx.pair(table, "output_limits", f"{dotted}.output_limits", "number")
     word = ctx.text(table, "word_format", f"{dotted}.word_format", default="float64")
     if not _WORD_RE.match(word):

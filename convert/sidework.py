@@ -23,6 +23,7 @@ import contextvars
 import itertools
 import os
 import sys
+import time
 from collections.abc import Callable, Iterator
 from typing import Any
 
@@ -77,14 +78,36 @@ class Pending:
             _stop(self._pool)
             self._future = self._pool = None
 
+    def _wait(self) -> tuple[str, Any]:
+        """The helper's (status, value); "failed" when its process is gone without an answer (the
+        pool's own watch can miss a helper killed mid-transfer, e.g. by the out-of-memory killer)."""
+        from concurrent.futures import TimeoutError as FutureTimeout
+
+        gone_since = None
+        while True:
+            try:
+                return self._future.result(timeout=0.5)
+            except FutureTimeout:
+                procs = list((getattr(self._pool, "_processes", None) or {}).values())
+                if any(p.is_alive() for p in procs):
+                    gone_since = None
+                    continue
+                now = time.monotonic()
+                gone_since = gone_since or now
+                if now - gone_since > 2.0:  # no helper for a while and still no answer: it is not coming
+                    return "failed", None
+
     def result(self) -> Any:
         if self._future is not None:
+            status, value = "failed", None
             try:
-                status, value = self._future.result()
+                status, value = self._wait()
             except Exception:  # the helper died or its result could not be pickled
                 status, value = "failed", None
             finally:
-                if self._owns_pool:
+                if status != "ok":
+                    _stop(self._pool)  # a helper that failed may have left the pool unable to shut down
+                elif self._owns_pool:
                     self._pool.shutdown(wait=True)
                 self._future = self._pool = None
             if status == "ok":

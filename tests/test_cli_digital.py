@@ -151,3 +151,15 @@ def test_a_plant_in_z_is_refused_as_such(run_cli, plant):
     r = run_cli("digital", "2*(1+1/(30s))", "--fs", "10Hz", "--plant", plant)
     assert r.code == 2
     assert "--plant" in r.err and "write its model in s" in r.err and "sample rate" not in r.err
+
+
+def test_an_unstable_method_is_marked_in_the_table(run_cli):
+    """Forward Euler of 5/(0.001s + 1) at 100 Hz puts the pole at z = 1 − 1000·0.01 = −9 (hand):
+    an unstable controller. The table showed its errors (2.35 dB, better looking than Tustin's)
+    with the instability only counted in the warn column; it now reads UNSTABLE beside the
+    method and in a line under the table, and it is never the best."""
+    r = run_cli("digital", "5/(0.001s+1)", "--fs", "100Hz", "--method", "forward-euler", "--method", "tustin")
+    assert r.code == 0, r.err
+    text = " ".join(r.out.split())
+    assert "forward-euler: UNSTABLE at this rate" in text
+    assert "best: tustin" in text

@@ -215,3 +215,48 @@ def test_no_interior_sensitivity_peak_is_said():
     m = loop_margins(_tf(_systems()["tsys-5-no-crossings"][0]), UNIT, 0.0, hold="none")
     assert m.sensitivity_peak_hz is None and "no interior peak" in m.sensitivity_peak_note
     assert m.ms == pytest.approx(1.0)
+
+
+@pytest.mark.parametrize(
+    "ctrl, plant, fs, dead, delay_samples",
+    [
+        ("1.5*(1 + 1/(0.2s))", "10/(0.5s+1)", 50.0, 0.0, 1),  # the fourth reviewer's loop
+        ("2*(1 + 1/(3s))", "1/((5s+1)*(s+1))", 5.0, 0.4, 1),  # dead time of two samples
+        ("0.8*(0.3s+1)/(0.03s+1)", "20/(s*(0.1s+1))", 100.0, 0.0, 0),
+    ],
+)
+def test_digital_loop_margins_are_the_sampled_loops(ctrl, plant, fs, dead, delay_samples):
+    """A digital controller's margins are those of the sampled loop as it runs: python-control's
+    ``stability_margins`` of C(z)·P_zoh(z)·z^-d (plant sampled with zoh by ``sample_system``, the
+    dead time and computation delay as whole samples). Before, a continuous approximation (the
+    hold's sinc and half-period delay) gave 4.90 dB where the sampled loop has 4.13 dB."""
+    import control
+
+    from convert.controller import from_expression
+    from convert.digital import discretize
+    from convert.compare.loop import loop_margins
+
+    t = 1 / fs
+    c = discretize(from_expression(ctrl), fs, "tustin")
+    c = getattr(c, "controller", c)
+    m = loop_margins(c, from_expression(plant), dead, delay_s=delay_samples * t)
+    cz = control.tf(list(c.num), list(c.den), t)
+    pz = control.sample_system(_tf_of(from_expression(plant)), t, method="zoh")
+    d = int(round((dead + delay_samples * t) / t))
+    loop = cz * pz * control.tf([1], [1] + [0] * d, t) if d else cz * pz
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", UserWarning)  # python-control may note it checks the poly method on a grid
+        gm, pm, sm, _, wgc, _ = control.stability_margins(loop)
+    if math.isfinite(gm):
+        assert m.gain_margin_db == pytest.approx(20 * math.log10(gm), rel=1e-6)
+    assert m.phase_margin_deg == pytest.approx(pm, rel=1e-6)
+    assert 2 * math.pi * m.crossover_hz == pytest.approx(wgc, rel=1e-6)
+    assert m.sensitivity_peak_db == pytest.approx(-20 * math.log10(sm), rel=1e-5)
+
+
+def _tf_of(c):
+    import control
+
+    return control.tf(list(c.num), list(c.den))

@@ -120,3 +120,20 @@ def test_alone_has_no_standby_helper():
         helper = sidework.standby(_warm_nothing)
         assert helper.start(os.getpid).result() == os.getpid()
         helper.close()
+
+
+_PARENT = os.getpid()
+
+
+def _killed_in_a_helper():
+    import signal
+
+    if os.getpid() != _PARENT:
+        os.kill(os.getpid(), signal.SIGKILL)  # as the out-of-memory killer would
+    return "computed here"
+
+
+def test_a_helper_killed_mid_task_is_computed_here():
+    """A helper killed without a word (SIGKILL, as by the out-of-memory killer) must not leave the
+    caller waiting: the task runs here instead (the reviewer's report hung with no helper alive)."""
+    assert sidework.start(_killed_in_a_helper).result() == "computed here"

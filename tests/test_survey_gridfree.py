@@ -35,7 +35,9 @@ CASES = [
 def _case(name):
     _, num, den, fs, delay = next(c for c in CASES if c[0] == name)
     if name == "third_order_pid":  # 2*(1 + 1/(0.3 s) + 0.05 s/(0.005 s + 1))/(0.002 s + 1)
-        num = np.polymul([2.0], np.polyadd(np.polymul([0.3, 0.0], [0.005, 1.0]), np.polyadd([0.005, 1.0], [0.015, 0.0, 0.0])))
+        num = np.polymul(
+            [2.0], np.polyadd(np.polymul([0.3, 0.0], [0.005, 1.0]), np.polyadd([0.005, 1.0], [0.015, 0.0, 0.0]))
+        )
         den = np.polymul(np.polymul([0.3, 0.0], [0.005, 1.0]), [0.002, 1.0])
     if name == "lightly_damped_notch":  # a notch at 20 Hz (damping 0.05) against a broad pair
         w0 = 2 * np.pi * 20.0
@@ -47,7 +49,9 @@ def _case(name):
 def surveys(request):
     num, den, fs, delay = _case(request.param)
     c = Controller.analog(num, den)
-    return (num, den, fs, delay), {pp: survey_methods(c, fs, delay_s=delay, points_per_decade=pp) for pp in (50, 100, 400)}
+    return (num, den, fs, delay), {
+        pp: survey_methods(c, fs, delay_s=delay, points_per_decade=pp) for pp in (50, 100, 400)
+    }
 
 
 FIELDS = ("max_gain_error_db", "max_phase_error_deg")
@@ -69,7 +73,11 @@ def test_maxima_do_not_move_with_the_grid_density(surveys):
                         name,
                     )
                 for name in ("max_gain_error_at_hz", "max_phase_error_at_hz"):
-                    assert getattr(e, name) == pytest.approx(getattr(e0, name), rel=2e-6), (pp, r.realization.method, name)
+                    assert getattr(e, name) == pytest.approx(getattr(e0, name), rel=2e-6), (
+                        pp,
+                        r.realization.method,
+                        name,
+                    )
         assert by_pp[pp].best == base.best
 
 

@@ -24,7 +24,10 @@ def test_limit_is_inclusive_and_sign_is_ignored():
     assert v.overall == "pass"
 
 
-def test_loop_criteria_skipped_without_plant():
+def test_loop_criteria_skipped_without_plant_keep_the_verdict_from_passing():
+    """A loop criterion the case sets, with no plant to check it on, is skipped and listed; the
+    verdict is UNCHECKED, not PASS (common practice: a sign-off covers what was asked for; before,
+    the other criteria passing made it a PASS). A criterion that is not set changes nothing."""
     v = judge(
         {"max_phase_margin_change_deg": 3.0, "max_gain_error_db": 1.0},
         {"a": {"max_gain_error_db": 0.1}},
@@ -32,7 +35,21 @@ def test_loop_criteria_skipped_without_plant():
     )
     status = {j.criterion: j.status for j in v.judgements}
     assert status["max_phase_margin_change_deg"] == "skipped"
-    assert v.overall == "pass" and v.skipped
+    assert v.overall == "unchecked" and v.skipped
+    assert "phase margin change (no plant in the case)" in v.unchecked_reason
+    v = judge({"max_gain_error_db": 1.0}, {"a": {"max_gain_error_db": 0.1}}, has_plant=False)
+    assert v.overall == "pass" and not v.skipped
+
+
+def test_a_set_criterion_whose_figure_is_missing_is_not_a_pass():
+    """A step deviation that was not simulated (figure None, e.g. a simulation too long to run)
+    next to a passing gain error: UNCHECKED, with the reason."""
+    v = judge(
+        {"max_step_deviation": 0.03, "max_gain_error_db": 0.5},
+        {"a": {"max_gain_error_db": 0.1, "max_step_deviation_note": "time simulation skipped: too long"}},
+        has_plant=True,
+    )
+    assert v.overall == "unchecked" and "step-response deviation (time simulation skipped" in v.unchecked_reason
 
 
 def test_every_realization_must_pass():

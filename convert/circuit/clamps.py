@@ -173,8 +173,8 @@ def clamped_nodes(netlist: Netlist) -> dict[str, tuple[float, float]]:
 
 def _linear_stage(netlist: Netlist, node: str) -> tuple[str, float] | None:
     """(output node, gain) of the one op-amp stage fed by ``node`` when it is a plain resistive
-    amplifier: inverting (+ at ground, one resistor from ``node`` to the inverting input and one
-    from there to the output, nothing else at that input: gain −Rf/Rin) or non-inverting (+ at
+    amplifier (ideal or single-pole op-amp): inverting (+ at ground, one resistor from ``node`` to
+    the inverting input and one from there to the output, nothing else at that input: gain −Rf/Rin) or non-inverting (+ at
     ``node``, the inverting input tied to the output, or to ground and the output through one
     resistor each: gain 1 + Rf/Rg). None for anything else (a reactive part, a second input, a
     divider, several stages fed by ``node``)."""
@@ -184,8 +184,8 @@ def _linear_stage(netlist: Netlist, node: str) -> tuple[str, float] | None:
             at.setdefault(n, []).append(e)
     found = []
     for op in netlist.of_kind("OPAMP"):
-        if op.is_reactive:
-            continue
+        # a single-pole op-amp (gbw=) is such an amplifier at the slow swings a clamp holds: its
+        # DC gain A0 moves the stage gain by about (1 + Rf/Rin)/A0, far inside the clamp's own knee
         plus, minus, o = op.nodes
         others = [e for e in at.get(minus, []) if e is not op]
         if plus == GROUND and minus != node:

@@ -150,8 +150,13 @@ def parse_delay(text: str | None, fs_hz: float):
 
     if text is None:
         return 0.0
+    from convert.errors import InputError
+
     delay_s, delay_samples = read_delay(text, field="--delay")
-    return delay_in_seconds(delay_s=delay_s, delay_samples=delay_samples, fs_hz=fs_hz)
+    try:
+        return delay_in_seconds(delay_s=delay_s, delay_samples=delay_samples, fs_hz=fs_hz)
+    except InputError as exc:
+        raise InputError(exc.message, key="--delay") from None
 
 
 def _methods(args) -> list[str]:
@@ -558,7 +563,7 @@ def _render(console, survey, source, firmware=None) -> None:
     table.add_column("warn", justify="right", no_wrap=True)
     for r in survey.rows:
         m = r.realization.method
-        label = m + ("\n(best)" if m == survey.best else "")
+        label = m + ("\n(best)" if m == survey.best else "") + ("\nUNSTABLE" if r.unstable else "")
         if m == "tustin" and r.realization.prewarp_hz is not None:
             label += f"\nprewarp\n{_hz(r.realization.prewarp_hz)}"
         e = r.method_error
@@ -572,6 +577,14 @@ def _render(console, survey, source, firmware=None) -> None:
             str(len(r.realization.warnings)) if r.realization.warnings else "none",
         )
     console.print(table)
+    for r in survey.rows:
+        if r.unstable:  # its errors describe a controller that cannot run: say so beside the table
+            console.print(
+                f"{r.realization.method}: UNSTABLE at this rate (a pole outside the unit circle the analog "
+                "controller has no counterpart of): its error figures describe a controller that runs away; "
+                "do not use it (raise --fs or choose another method)",
+                markup=False,
+            )
     if survey.best:
         console.print(f"best: {survey.best} — {survey.best_reason}", markup=False)
     else:

@@ -16,6 +16,7 @@ from convert.controller import Controller
 from convert.errors import LoopshiftError
 from convert.circuit.design import DesignOptions, design_circuit
 from convert.circuit.opamp import swing_noted, swing_check
+from convert.circuit.topologies.model import circuit_polynomials
 from convert.values import format_value
 from convert.circuit.card import _ratio
 from convert.circuit.tolerance import Comparison, run_tolerances, LoopCount
@@ -117,6 +118,9 @@ def circuit_realization(
     if swing is not None:
         details["swing"] = swing.summary()
         details["swing_check"] = swing_judgement(swing)
+    opamp_poles = opamp_stability_check(design, model)
+    if opamp_poles is not None:
+        details["opamp_stability_check"] = opamp_poles
     name = f"circuit {topo.name}"
     r = Realization(
         name=name,
@@ -151,9 +155,18 @@ def circuit_realization(
             own = _ratio(paths["setpoint"], paths["measurement"], "setpoint filter F = Cr / Cy")
             if own.order == 0 and len(own.num) == 1 and abs(own.num[0] - 1.0) <= 1e-9:
                 own = None
-        r.step, r.disturbance = _simulate_pair(
-            case, realized, duration, 0.0, case.signals.output_range, setpoint_filter=own
-        )
+        limits = case.signals.output_range
+        if tgt.rail_v is not None:  # the op-amps cannot drive the output past their rail
+            rail = (-tgt.rail_v, tgt.rail_v)
+            limits = rail if limits is None else (max(limits[0], rail[0]), min(limits[1], rail[1]))
+        r.step, r.disturbance = _simulate_pair(case, realized, duration, 0.0, limits, setpoint_filter=own)
+        if tgt.rail_v is not None and any(
+            resp is not None and np.max(np.abs(resp.u)) >= tgt.rail_v * (1 - 1e-9) for resp in (r.step, r.disturbance)
+        ):
+            r.warnings.append(
+                f"the circuit's output reaches the {tgt.rail_v:g} V rail in the loop simulation: it is clipped there "
+                "(an op-amp stage saturated at its rail leaves its linear law; the clipped response is a model of it)"
+            )
         if setpoint_filter is not None and own is None:
             r.warnings.append(WEIGHTS_NOT_CARRIED)
     r.files = circuit_files(
@@ -262,6 +275,46 @@ def loop_count_of(controller, plant):
                 break
             f = np.concatenate([f, f[-1] * np.logspace(0, 1, COUNT_POINTS_PER_DECADE + 1)[1:]])
     return LoopCount(f, p_of)
+
+
+def opamp_stability_check(design, model) -> dict | None:
+    """The always-on check an op-amp model adds: the circuit with its rounded parts and op-amps of
+    that gain-bandwidth, written out as one rational function (:func:`circuit_polynomials`), may
+    have no more right-half-plane poles than with ideal op-amps (a stage that oscillates with real
+    op-amps is not the controller, whatever its response with ideal ones). Figure: the largest real
+    part of its poles (1/s). None with ideal op-amps, or when the circuit is not written out."""
+    if model is None or model.ideal:
+        return None
+    parts = {k: np.array([float(v)]) for k, v in design.rounded.items()}
+    poly = circuit_polynomials(design.topology, parts, model.open_loop_polynomials())
+    if poly is None:
+        return None
+    den = np.trim_zeros(np.array([float(np.ravel(c)[0]) for c in poly[1]]), "f")
+    poles = np.roots(den) if den.size > 1 else np.zeros(0, complex)
+    scale = max(1.0, float(np.max(np.abs(poles)))) if poles.size else 1.0
+    ideal = design.realized.poles()
+    n_ideal = int(np.sum(ideal.real > 1e-9 * max(1.0, float(np.max(np.abs(ideal))) if ideal.size else 1.0)))
+    unstable = poles[poles.real > 1e-9 * scale]
+    ok = unstable.size <= n_ideal
+    worst = float(np.max(poles.real)) if poles.size else None
+    gbw = format_value(model.gbw_hz, "hz")
+    note = (
+        f"with {gbw} op-amps: {poles.size} poles, none in the right half-plane beyond those with ideal op-amps"
+        if ok
+        else f"with {gbw} op-amps the circuit has {unstable.size} pole(s) in the right half-plane ("
+        + ", ".join(f"{p.real:.4g}{p.imag:+.4g}j 1/s" for p in unstable[:4])
+        + f"; {n_ideal} with ideal op-amps): it oscillates, it is not the controller (choose faster op-amps or "
+        "another topology)"
+    )
+    return {
+        "key": "controller_stable_opamps",
+        "label": "circuit stable with its op-amps",
+        "unit": "1/s",
+        "limit": None,
+        "value": worst,
+        "status": "pass" if ok else "fail",
+        "note": note,
+    }
 
 
 def swing_check_of(design, target, model):

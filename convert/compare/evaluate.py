@@ -210,6 +210,7 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
             "sample-rate rule of thumb (needs the crossover frequency)",
         ]
     tick("source and reference loop")
+    unmodelled = _clamp_beyond_the_model(info.extra.get("feedback_clamp"), card_limits, src_step, src_dist)
 
     realizations: list[Realization] = []
     advice: list[RateAdvice] = []
@@ -286,6 +287,8 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
             r.stability = _stability(r.controller, plant, delay, f"the loop with {r.name}", notes)
             loops[r.name] = r.stability
             f.update(_loop_figures(src_margins, r, src_step, src_dist, case))
+            for key, why in unmodelled.items():
+                f[key], f[f"{key}_note"] = None, why
             if src_stability is not None and not src_stability.acceptable:
                 for key in LOOP_CRITERIA:
                     f[key] = None
@@ -293,7 +296,7 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
                         "the source loop does not work with this plant (unstable or sign-inverted): there is no working loop to compare with"
                     )
         # always on, plant or not: the realization's own poles and its sign against the source
-        f["checks"] = own_checks(src, r.controller, float(band[0]))
+        f["checks"] = own_checks(src, r.controller, (float(band[0]), float(band[-1])))
         fw = r.details.get("firmware") if r.form == "digital" else None
         if fw is not None:
             f["checks"] = f["checks"] + list(fw["checks"])
@@ -302,6 +305,8 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
                 f["checks"].append(reach)
         if r.form == "circuit" and r.details.get("swing_check") is not None:  # target.circuit.rail/input_amplitude
             f["checks"] = f["checks"] + [r.details["swing_check"]]
+        if r.form == "circuit" and r.details.get("opamp_stability_check") is not None:  # target.circuit.opamp_gbw
+            f["checks"] = f["checks"] + [r.details["opamp_stability_check"]]
         if total.unstable_fraction is not None:
             f["checks"] = list(f.get("checks", ())) + [_draws_stability_check(total)]
         figures[r.name] = f
@@ -468,6 +473,47 @@ CODE_NOT_WEIGHTED = (
 )
 
 
+def _wide_limits_warning(case, scaled) -> list[str]:
+    """A warning when output limits, mapped to firmware units, span more than the output signal's
+    whole firmware range: a clamp that never acts (limits given in other units than the card's?)."""
+    out_map = case.digital.output_signal if case.digital else None
+    if not scaled or not scaled.get("output_limits") or out_map is None:
+        return []
+    lo, hi = scaled["output_limits"]
+    span = abs(out_map.firmware_high - out_map.firmware_low)
+    if hi - lo <= span * (1 + 1e-9):
+        return []
+    return [
+        f"the output limits become {lo:.4g} .. {hi:.4g} in firmware units, {(hi - lo) / span:.3g} times the output "
+        f"signal's whole range ({min(out_map.firmware_low, out_map.firmware_high):.4g} .. "
+        f"{max(out_map.firmware_low, out_map.firmware_high):.4g}): a clamp that never acts. output_limits are "
+        "deviations of the card's output from its operating point, in the card's units (V or mA)"
+    ]
+
+
+def _clamp_beyond_the_model(diodes, limits, step, disturbance) -> dict[str, str]:
+    """criterion key -> why it cannot be judged, for each simulated response of the source loop in
+    which a card's clamp across an integrating stage's feedback (``diodes``) acts: that clamp stops
+    the integrator (the card does not wind up), while the loop simulation holds the output at the
+    limits and lets the controller's state run on, so the card's own response there is not the
+    one simulated. Empty when no such clamp, or when the responses stay inside its limits."""
+    if not diodes or limits is None:
+        return {}
+    out = {}
+    for key, resp in (("max_step_deviation", step), ("max_disturbance_deviation", disturbance)):
+        if resp is None:
+            continue
+        u = np.asarray(resp.u)
+        if np.any(u >= limits[1] * (1 - 1e-9)) or np.any(u <= limits[0] * (1 - 1e-9)):
+            out[key] = (
+                f"not judged: the card's clamp ({diodes}) sits across an integrator's feedback and acts in this "
+                "response; it stops the card's integrator (no windup), which the simulation's output limit does not "
+                "model, so the card's response here is not known (check with a step that stays inside the clamp, "
+                "and the clamped behaviour on a bench)"
+            )
+    return out
+
+
 def _simulate_pair(
     case,
     controller: Controller,
@@ -554,7 +600,7 @@ def _digital_realizations(
             else:
                 fw = _linear_firmware(case, filtered, fs, method, band, card_limits)
             cq, firmware, scaled = fw.stored, fw.analysis, fw.scaled
-            warnings = list(fw.warnings)
+            warnings = list(fw.warnings) + _wide_limits_warning(case, scaled)
             name = f"{fw.label} @ {_fmt_hz(fs)}"
             budget = list(
                 digital_budget(
@@ -1090,6 +1136,13 @@ def _loop_figures(src_m: Margins, r: Realization, src_step, src_dist, case) -> d
                 f"unbounded: the {'source' if a is None else 'new'} loop has no gain crossover (no phase margin) "
                 f"where the {'new' if a is None else 'source'} loop has one ({(b if a is None else a):.3g} deg)"
             )
+        elif (a is None or b is None) and attr == "gain_margin_db":
+            # no phase crossover is an infinite gain margin: a finite one on the other side is no small change
+            f[key] = math.inf
+            f[f"{key}_note"] = (
+                f"unbounded: the {'source' if a is None else 'new'} loop has no phase crossover (an infinite gain "
+                f"margin) where the {'new' if a is None else 'source'} loop has one ({(b if a is None else a):.3g} dB)"
+            )
         elif a is None or b is None:
             f[key] = None
             f[f"{key}_note"] = f"{'source' if a is None else 'new'} loop has no {attr.replace('_', ' ')}"
@@ -1102,6 +1155,13 @@ def _loop_figures(src_m: Margins, r: Realization, src_step, src_dist, case) -> d
         f["max_disturbance_deviation"] = response_deviation(src_dist, r.disturbance) / peak
     st = getattr(r, "stability", None)
     if st is not None and not st.stable:
+        # an unstable loop's margins describe no working loop (its stability row fails the verdict)
+        for key in ("max_phase_margin_change_deg", "max_gain_margin_change_db", "max_sensitivity_peak_change_db"):
+            if key in f:
+                f[key] = None
+                f[f"{key}_note"] = (
+                    "the closed loop with this realization is unstable: its margins describe no working loop"
+                )
         # a simulated deviation of an unstable loop only measures how long the simulation ran
         for key in ("max_step_deviation", "max_disturbance_deviation"):
             if key in f:

@@ -289,6 +289,24 @@ def compare_controllers(
 # the default band, and analog and digital responses on one grid.
 
 
+#: the longest computation delay a digital form may have, in samples: a firmware's computation and
+#: its fieldbus take a few periods; a longer transport delay is the loop's, given as the plant's dead
+#: time (which the loop checks treat exactly at any length)
+MAX_DELAY_SAMPLES = 32
+
+
+def delay_problem(delay_s: float, fs_hz: float) -> str | None:
+    """Why a computation delay of ``delay_s`` (s) at ``fs_hz`` (Hz) is refused, or None."""
+    samples = delay_s * fs_hz
+    if samples <= MAX_DELAY_SAMPLES * (1 + 1e-12):
+        return None
+    return (
+        f"a computation delay of {delay_s:.4g} s is {samples:.4g} samples at {fs_hz:.6g} Hz, more than a firmware's "
+        f"computation takes (at most {MAX_DELAY_SAMPLES} samples here); give a transport delay of the loop as "
+        "the plant's dead time, or check the unit (ms, not s?)"
+    )
+
+
 def delay_in_seconds(
     *, delay_s: float | None = None, delay_samples: float | None = None, fs_hz: float | None = None
 ) -> float:
@@ -306,6 +324,8 @@ def delay_in_seconds(
         value = 0.0 if delay_s is None else float(delay_s)
     if not (np.isfinite(value) and value >= 0):
         raise InputError(f"the delay must be zero or positive, found {value!r} s", key="delay")
+    if fs_hz is not None and fs_hz > 0 and (why := delay_problem(value, float(fs_hz))):
+        raise InputError(why, key="delay")
     return value
 
 

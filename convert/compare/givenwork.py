@@ -21,6 +21,7 @@ from convert.compare.loop import margin_grid, loop_margins
 from convert.compare.stages import fmt_hz as _fmt_hz, fmt_s as _fmt_s, loop_spec
 from convert.digital.quantized import analyze
 from convert.digital.roots import RootForm
+from convert.digital.velocity import VelocityForm
 from convert.values import format_value
 from convert.circuit.tolerance import DEFAULT_DRAWS, Comparison, run_tolerances
 from convert.circuit.topologies import get_topology
@@ -95,6 +96,11 @@ def _loop(case, controller: Controller):
     return loop_f, _loop_spec(case, loop_f)
 
 
+def _has_filter(ctrl: Controller) -> bool:
+    """True when an analog controller has more poles than an ideal PID (a derivative filter or a lag)."""
+    return len(ctrl.den) - 1 > 1 or (len(ctrl.den) == 2 and ctrl.den[-1] != 0)
+
+
 def _firmware(case, given, info, src, band, duration, src_step, src_dist):
     d = given.data
     cd: Controller = info.controller
@@ -127,7 +133,20 @@ def _firmware(case, given, info, src, band, duration, src_step, src_dist):
             loop_reference=lr(law),
             loop_candidate=lr(cd),
         )
-        if info.pid.tf > 0:
+        if not src.is_digital and (info.pid.tf > 0 or _has_filter(src)):
+            # against the source's own law: a filter the source has too is no error
+            rows["derivative_filter"] = bud.error_row(
+                "derivative_filter",
+                band,
+                src.frequency_response(band, via="zpk"),
+                law.frequency_response(band),
+                note=f"the block's PID law (derivative filter time constant {_fmt_s(info.pid.tf)}) against the "
+                "source's, both continuous: what its filter (and any other difference of its settings) changes",
+                loop=spec,
+                loop_reference=lr(src),
+                loop_candidate=lr(law),
+            )
+        elif info.pid.tf > 0:
             from dataclasses import replace
 
             bare = replace(info.pid, tf=0.0).to_controller()
@@ -196,7 +215,9 @@ def _firmware(case, given, info, src, band, duration, src_step, src_dist):
         "output_limits": d["output_limits"],
     }
     warnings = []
-    if d.get("structure") not in (None, "direct"):
+    if d.get("structure") not in (None, "direct") and not (
+        given.form == "digital" and _one_polynomial_structure(d) != "direct1"
+    ):
         warnings.append(
             f"structure {d['structure']!r} is recorded; its rounding inside the sections is not modelled "
             "(coefficients are checked as stored)"
@@ -206,7 +227,8 @@ def _firmware(case, given, info, src, band, duration, src_step, src_dist):
         if d["algorithm"] == "velocity":
             warnings.append(
                 "velocity algorithm: the same linear law; it differs from the positional one at the "
-                "output limits and on switch-over (no integral windup, bumpless by construction)"
+                "output limits (no integral windup: the loop simulation runs it in velocity form) and on "
+                "switch-over (bumpless by construction)"
             )
     r = _realization(
         case,
@@ -222,10 +244,18 @@ def _firmware(case, given, info, src, band, duration, src_step, src_dist):
     if fw is not None:
         r.details["firmware"] = fw
     if case.plant is not None:
-        _loop_checks(
-            case, r, cq, duration, delay, d["output_limits"] or case.signals.output_range, getattr(info, "pid", None)
-        )
+        limits = d["output_limits"] or case.signals.output_range
+        # a velocity algorithm adds its increments to the output it sent, clamped: run it so
+        velocity = VelocityForm(cq, limits) if given.form == "pid" and d["algorithm"] == "velocity" else None
+        _loop_checks(case, r, cq, duration, delay, limits, getattr(info, "pid", None), realized=velocity)
     return r
+
+
+def _one_polynomial_structure(d: dict) -> str:
+    """The structure the given coefficients run in when it is one the analysis models on a single
+    polynomial b/a (direct form I or II transposed), else direct form I."""
+    name = str(d.get("structure") or "").strip().lower().replace(" ", "").replace("-", "").replace("_", "")
+    return "direct2t" if name in ("direct2t", "df2t", "directii", "direct2transposed") else "direct1"
 
 
 def _stored_checks(case, given, cd: Controller, band) -> dict | None:
@@ -240,7 +270,7 @@ def _stored_checks(case, given, cd: Controller, band) -> dict | None:
     limits = d.get("output_limits") or case.signals.output_range
     x = analyze(
         RootForm.of(cd),
-        "direct1",
+        _one_polynomial_structure(d),
         d["word_format"],
         band,
         b=cd.b,
@@ -422,9 +452,10 @@ def _realization(case, given, form, controller, details, budget, warnings, seen)
     )
 
 
-def _loop_checks(case, r, controller, duration, delay, limits, pid=None) -> None:
+def _loop_checks(case, r, controller, duration, delay, limits, pid=None, realized=None) -> None:
     """Margins and simulations of a given form; a PID block with setpoint weights b, c runs its
-    own setpoint path (F = C_sp/C of its settings, sampled at its instants when it is firmware)."""
+    own setpoint path (F = C_sp/C of its settings, sampled at its instants when it is firmware).
+    ``realized``: a sample-by-sample model of the firmware (a velocity algorithm) for the runs."""
     # imported here, not at the top: import cycle (convert.compare.givenwork -> convert.compare.evaluate -> convert.compare.givenwork)
     from convert.compare.evaluate import _simulate_pair, setpoint_filter_of
 
@@ -435,6 +466,8 @@ def _loop_checks(case, r, controller, duration, delay, limits, pid=None) -> None
     try:
         own = setpoint_filter_of(pid)
         r.own_setpoint_path = own is not None
-        r.step, r.disturbance = _simulate_pair(case, controller, duration, delay, limits, setpoint_filter=own)
+        r.step, r.disturbance = _simulate_pair(
+            case, controller, duration, delay, limits, realized=realized, setpoint_filter=own
+        )
     except InputError as exc:
         r.warnings.append(f"time simulation skipped: {exc.message}")

@@ -87,11 +87,35 @@ def _rational(
     rational part, its half-period delay joins the dead time and computation delay."""
     c = controller.frequency_response(f, via="zpk")
     delay_total = dead_time_s + delay_s
-    if controller.is_digital and hold == "zoh":
+    if controller.is_digital and hold == "zoh" and not plant.is_digital:
+        p, whole = _sampled_plant(plant, f, controller.sample_period_s, delay_total)
+        return c * p, whole
+    if controller.is_digital and hold == "zoh-describing":
         t = controller.sample_period_s
         c = c * np.sinc(f * t)
         delay_total += t / 2
     return c * plant.frequency_response(f, via="zpk"), delay_total
+
+
+def _sampled_plant(plant: Controller, f: np.ndarray, t: float, delay: float) -> tuple[np.ndarray, float]:
+    """The plant as the sampled controller sees it (input through a zero-order hold of period t,
+    delayed by ``delay`` s, output sampled at the controller's instants), on the unit circle at
+    ``f`` (Hz): exact, aliasing included — P(z) = [C(zI − Φ)⁻¹(G0 + G1·z⁻¹) + D·z⁻¹]·z⁻ⁿ with
+    ``delay`` = n·t + τ (:func:`_delay_taps`; the output is sampled before the new input takes
+    effect, as the loop simulation does). Returns (the part without z⁻ⁿ, n·t): the whole samples
+    of delay stay a pure delay, so the phase unwraps as the continuous loop's does."""
+    a, b, cc, d = _realize(plant, "plant.model")
+    n, g0, g1 = _delay_taps(a, b, t, delay)
+    z = np.exp(2j * np.pi * np.asarray(f, dtype=float) * t)
+    zi = 1.0 / z
+    out = d * zi
+    if a.shape[0]:
+        phi, _ = _phi_gamma(a, b, t)
+        m = z[:, None, None] * np.eye(a.shape[0]) - phi
+        rhs = g0[None, :] + g1[None, :] * zi[:, None]
+        x = np.linalg.solve(m, rhs[:, :, None])[:, :, 0]
+        out = out + x @ cc[0]
+    return out, n * t
 
 
 def margin_grid(
@@ -292,8 +316,11 @@ def loop_margins(
 ) -> Margins:
     """Gain and phase margins, crossover and sensitivity peak of the loop C·P·e^{−sθ}.
 
-    A digital ``controller`` is seen through its zero-order hold and ``delay_s`` computation
-    delay. ``f_hz`` overrides the automatic dense grid (:func:`margin_grid`). The grid finds the
+    A digital ``controller`` closes the sampled loop as it runs (``hold="zoh"``): its output
+    through a zero-order hold and ``delay_s`` computation delay, the plant's output sampled at its
+    instants, so the margins are those of L(z) on the unit circle up to the Nyquist frequency,
+    aliasing included (:func:`_sampled_plant`); ``hold="zoh-describing"`` gives the continuous
+    approximation (the hold's sinc and half-period delay), ``hold="none"`` none. ``f_hz`` overrides the automatic dense grid (:func:`margin_grid`). The grid finds the
     crossings and the sensitivity peak; each is then refined inside its grid interval by a search
     in log f that samples many frequencies per call (:mod:`convert.compare.refine`): the root of
     log|L| or of the phase's distance to −180° − k·360° to 1e-13 in ln f (scipy ``brentq``'s

@@ -12,10 +12,12 @@ Two checks every realization (made or given: digital, circuit, analog) carries i
   firmware checks use. An unstable controller's output grows without bound once its loop is
   opened (manual mode, saturation, a broken sensor), so it fails with or without a plant.
 * ``same_sign`` — same action (sign) as the source: the phase of realization / source, each on
-  its own (no hold, no delay), at the lowest frequency of the band must lie within ±90°. A sign
-  error (firmware b negated, op-amp inputs swapped) gives ±180° there; the figure is |phase| in
-  degrees. Such a controller drives the plant the wrong way, so it fails even when the case sets
-  only a gain criterion (a gain error cannot see a sign).
+  its own (no hold, no delay), must lie within ±90° over the whole band (unwrapped from its
+  bottom, the largest refined off the grid). A sign error (firmware b negated, op-amp inputs
+  swapped) gives ±180° at the bottom; a zero mirrored into the right half-plane gives the same
+  gain and a phase that turns to −180° across the band. The figure is the largest |phase| in
+  degrees. Such a controller drives the plant the wrong way (at those frequencies), so it fails
+  even when the case sets only a gain criterion (a gain error cannot see a sign).
 
 Frequencies in Hz; poles in the controller's own plane (s in rad/s, z).
 """
@@ -26,6 +28,7 @@ import math
 
 import numpy as np
 
+from convert.compare.frequency import compare_responses, log_grid
 from convert.controller import Controller
 
 _YEAR_S = 365.25 * 86400.0
@@ -107,37 +110,54 @@ def stability_check(source: Controller, ctrl: Controller) -> dict:
     )
 
 
-def sign_check(source: Controller, ctrl: Controller, f_low_hz: float) -> dict:
-    """The ``same_sign`` check: |phase of ctrl / source| (degrees) at ``f_low_hz`` within 90°."""
-    f = np.array([float(f_low_hz)])
-    with np.errstate(all="ignore"):
-        ratio = complex(ctrl.frequency_response(f, via="zpk")[0] / source.frequency_response(f, via="zpk")[0])
+def sign_check(source: Controller, ctrl: Controller, band_hz: tuple[float, float]) -> dict:
+    """The ``same_sign`` check: the largest |phase of ctrl / source| (degrees) over the band
+    ``band_hz`` (Hz), each on its own, unwrapped from the band's bottom and refined off the grid
+    (:func:`convert.compare.frequency.compare_responses`), within 90°. Where a zero or pole on
+    the axis inside the band leaves the phase without a bound, it is read at the band's bottom."""
+    lo, hi = float(band_hz[0]), float(band_hz[1])
     base = dict(key="same_sign", label="same action (sign) as the source", unit="deg", limit=SIGN_LIMIT_DEG)
+    bottom = np.array([lo])
+    with np.errstate(all="ignore"):
+        ratio = complex(ctrl.frequency_response(bottom, via="zpk")[0] / source.frequency_response(bottom, via="zpk")[0])
     if not (np.isfinite(ratio) and ratio != 0):
         return dict(
             base,
             value=None,
             status="skipped",
-            note=f"realization / source is not a finite non-zero number at {f_low_hz:.4g} Hz",
+            note=f"realization / source is not a finite non-zero number at {lo:.4g} Hz",
         )
-    phase = abs(math.degrees(math.atan2(ratio.imag, ratio.real)))
-    ok = phase <= SIGN_LIMIT_DEG
-    note = (
-        f"realization / source at the band's bottom ({f_low_hz:.4g} Hz): gain {20 * math.log10(abs(ratio)):+.2f} dB, "
+    at_bottom = (
+        f"at the band's bottom ({lo:.4g} Hz): gain {20 * math.log10(abs(ratio)):+.2f} dB, "
         f"phase {math.degrees(math.atan2(ratio.imag, ratio.real)):+.1f} deg"
     )
+    phase, where = abs(math.degrees(math.atan2(ratio.imag, ratio.real))), lo
+    if hi > lo:
+
+        def evaluate(f):
+            return source.frequency_response(f, via="zpk"), ctrl.frequency_response(f, via="zpk")
+
+        f = log_grid(lo, hi, 50)
+        with np.errstate(all="ignore"):
+            err = compare_responses(*evaluate(f), f, evaluate=evaluate, forms=(source, ctrl))
+        if not err.unbounded_note and math.isfinite(err.max_phase_error_deg):
+            phase, where = max((phase, where), (abs(err.max_phase_error_deg), err.max_phase_error_at_hz))
+    ok = phase <= SIGN_LIMIT_DEG
+    note = f"realization / source {at_bottom}; largest |phase| over the band {phase:.1f} deg at {where:.4g} Hz"
     if not ok:
         note = (
-            "the realization acts against the source (sign inverted): "
+            "the realization acts against the source (sign inverted"
+            + (")" if where == lo else f" at {where:.4g} Hz, inside the band)")
+            + ": "
             + note
             + "; it would drive the plant the wrong way"
         )
     return dict(base, value=phase, status="pass" if ok else "fail", note=note)
 
 
-def own_checks(source: Controller, ctrl: Controller, f_low_hz: float) -> list[dict]:
-    """Both always-on checks of one realization (see the module docstring)."""
-    return [stability_check(source, ctrl), sign_check(source, ctrl, f_low_hz)]
+def own_checks(source: Controller, ctrl: Controller, band_hz: tuple[float, float]) -> list[dict]:
+    """Both always-on checks of one realization (see the module docstring); ``band_hz`` in Hz."""
+    return [stability_check(source, ctrl), sign_check(source, ctrl, band_hz)]
 
 
 def _c(z: complex) -> str:

@@ -17,9 +17,11 @@ inside the band (its note starts "unbounded"): that fails, with the note as the 
 verdict is:
 
 * ``"fail"`` when a checked criterion fails for any realization;
-* ``"unchecked"`` when nothing failed but some realization (or the case, with no realization at
-  all) has not one criterion that was actually checked: nothing was shown, so it is not a pass
-  (exit code 1, like a failure; see docs/report.md);
+* ``"unchecked"`` when nothing failed but a criterion the case sets was skipped for some
+  realization (no plant for a loop criterion, a simulation too long to run, a figure that does
+  not exist): what the engineer asked for was not shown, so it is not a pass; likewise when some
+  realization (or the case, with no realization at all) has not one criterion that was actually
+  checked (exit code 1, like a failure; see docs/report.md);
 * ``"pass"`` otherwise: every realization passed at least one checked criterion and none failed.
 
 With a plant, every loop (the source's and each realization's) is also judged on closed-loop
@@ -115,7 +117,14 @@ class Verdict:
                 continue
             skipped = [f"{j.label} ({j.note})" for j in mine if j.status == "skipped"]
             bits.append(f"{name}: " + ("; ".join(skipped) if skipped else "no criterion set"))
-        return "no criterion was checked for " + " | ".join(bits)
+        if bits:
+            return "no criterion was checked for " + " | ".join(bits)
+        unmade = [j for j in self.judgements if j.criterion in CRITERION_KEYS and j.status == "skipped"]
+        return (
+            "criteria the case sets were not checked: "
+            + "; ".join(f"{j.realization}: {j.label} ({j.note})" for j in unmade)
+            + ", so no verdict can pass"
+        )
 
     def as_dict(self) -> dict:
         return {
@@ -156,7 +165,9 @@ def stability_judgements(loops: dict) -> list[Judgement]:
 def judge(criteria: dict, figures: dict[str, dict], *, has_plant: bool, loops: dict | None = None) -> Verdict:
     """``criteria``: criterion key -> limit or None. ``figures``: realization name -> {criterion
     key -> measured value (absolute, same unit as the limit) or None when unavailable, and
-    optionally ``"<key>_note"`` -> text}. ``loops``: see :func:`stability_judgements`."""
+    optionally ``"<key>_note"`` -> text and ``"<key>_applies"`` -> False for a figure the form
+    cannot have by its nature, e.g. a measured sweep's loop figures: "not applicable", neither
+    checked nor skipped}. ``loops``: see :func:`stability_judgements`."""
     out = stability_judgements(loops or {})
     for name, values in figures.items():
         for key, label, unit in CRITERIA:
@@ -165,6 +176,8 @@ def judge(criteria: dict, figures: dict[str, dict], *, has_plant: bool, loops: d
             note = values.get(f"{key}_note", "")
             if limit is None:
                 status = "not set"
+            elif values.get(f"{key}_applies") is False:
+                status = "not applicable"  # no such figure exists for this form by its nature (a measured sweep's loop)
             elif key in LOOP_CRITERIA and not has_plant:
                 status, note = "skipped", note or "no plant in the case"
             elif value is None:
@@ -197,6 +210,8 @@ def judge(criteria: dict, figures: dict[str, dict], *, has_plant: bool, loops: d
         overall = "fail"
     elif any(j.criterion in MUST_DECIDE and j.status == "skipped" for j in out):
         overall = "unchecked"  # a loop's stability or a firmware stall that could not be decided is never a pass
+    elif any(j.criterion in CRITERION_KEYS and j.status == "skipped" for j in out):
+        overall = "unchecked"  # a criterion the case sets and that was not checked is never a pass
     elif not figures or any(
         not any(j.status == "pass" and j.criterion in CRITERION_KEYS for j in out if j.realization == name)
         for name in figures

@@ -99,7 +99,9 @@ def _reason(row: MethodRow, others: int) -> str:
     return f"{head}; max method error {e.max_gain_error_db:.3g} dB, {e.max_phase_error_deg:.3g} deg"
 
 
-def _grid_free(analog, digital, f, analog_f, digital_f, hold_f, t, delay_s, limits) -> tuple[ResponseError, ResponseError]:
+def _grid_free(
+    analog, digital, f, analog_f, digital_f, hold_f, t, delay_s, limits
+) -> tuple[ResponseError, ResponseError]:
     """(method error, loop-seen error) of the sampled controller ``digital`` against ``analog``,
     their maxima refined on the continuous responses (factored forms, ``via="zpk"``) and roots on
     the axis looked for (:func:`convert.compare.frequency.compare_responses`): the same call, on the
@@ -175,7 +177,9 @@ def survey_methods(
     errors = []
     for real in reals:
         cd = real.controller
-        errors.append(_grid_free(controller, cd, f, analog, cd.frequency_response(f, via="zpk"), hold, t, delay_s, limits))
+        errors.append(
+            _grid_free(controller, cd, f, analog, cd.frequency_response(f, via="zpk"), hold, t, delay_s, limits)
+        )
     rows = [MethodRow(real, *errors[k]) for k, real in enumerate(reals)]
     candidates = [r for r in rows if not r.unstable]
     if candidates:

@@ -138,6 +138,7 @@ def _sweep(case, info, realizations, spec, ev: CaseEvidence) -> None:
         "max_disturbance_deviation",
     ):
         figures[f"{key}_note"] = "a loop figure is not computed from a measured sweep"
+        figures[f"{key}_applies"] = False
     ev.figures[SWEEP_LABEL.format(of=ev.sweep_of)] = figures
     ev.notes += [f"sweep: {n}" for n in result.check.notes]
 

@@ -173,11 +173,12 @@ def budget_table(realization, loops_stable: bool = True) -> Table:
             rows.append([row.label, "not applicable", "", "", "", "", row.note.replace("not applicable: ", "")])
             continue
         pct = f" (p{row.percentile:g} of draws)" if row.percentile else ""
+
         loop = (
             [
-                fixed(row.delta_phase_margin_deg, "°"),
-                fixed(row.delta_gain_margin_db, "dB"),
-                fixed(row.delta_sensitivity_peak_db, "dB"),
+                _change(row.delta_phase_margin_deg, "°", row.percentile),
+                _change(row.delta_gain_margin_db, "dB", row.percentile),
+                _change(row.delta_sensitivity_peak_db, "dB", row.percentile),
             ]
             if loops_stable
             else ["unstable loop", "—", "—"]
@@ -198,6 +199,14 @@ def budget_table(realization, loops_stable: bool = True) -> Table:
         ],
         rows,
     )
+
+
+def _change(v, unit: str, percentile) -> str:
+    """A loop figure's change; over draws (``percentile``) a percentile of |change|: its size, not a
+    direction (draws move both ways; the sign of the one draw nearest the level says little)."""
+    if not percentile or v is None or not math.isfinite(v):
+        return fixed(v, unit)
+    return f"±{fixed(abs(v), unit)}"
 
 
 def margins_table(results) -> Table | None:
@@ -532,11 +541,15 @@ _NOTES = {
         "total has everything on and compares with the source as the loop sees it. Errors are the largest over the "
         "band; the Δ columns are the change in the loop figure, new minus source (a negative Δ phase margin means "
         "less margin). The rows need not add up to the total. Rows that cannot arise in this kind of target are "
-        "left out."
+        "left out. For a digital form the Δ columns see the hold as a continuous response (its sinc and half-period "
+        "delay), which can be a little optimistic near the Nyquist frequency; the loop checks below and the verdict "
+        "use the sampled loop itself (aliasing included)."
     ),
     "Loop checks": (
         "Gain margin at the frequency where the loop's phase crosses −180°; phase margin at the crossover where "
-        "|L| = 1; sensitivity peak Ms = max |1/(1 + L)| (6 dB, Ms = 2, is a common upper bound for a robust loop)."
+        "|L| = 1; sensitivity peak Ms = max |1/(1 + L)| (6 dB, Ms = 2, is a common upper bound for a robust loop). "
+        "A digital form's loop is the sampled loop as it runs: L(z) on the unit circle up to the Nyquist frequency, "
+        "the plant sampled through the hold with its dead time and the computation delay."
     ),
     "Sample-rate advice": (
         "The checked rate is the lowest scanned rate from which every higher rate keeps the method, hold and "
