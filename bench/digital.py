@@ -96,7 +96,11 @@ def measure(quick: bool = False) -> list[Figure]:
     )
     return [
         figure_from_pairs(
-            "digital survey, 7 methods (in-process)", survey, 1.0, "survey_methods (CPU)", "python-control sample_system x7"
+            "digital survey, 7 methods (in-process)",
+            survey,
+            1.0,
+            "survey_methods (CPU)",
+            "python-control sample_system x7",
         ),
         Figure(
             "digital, 7 conversions alone (like for like)",
