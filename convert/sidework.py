@@ -24,7 +24,7 @@ import itertools
 import os
 import sys
 import time
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Sequence
 from typing import Any
 
 _ALONE: contextvars.ContextVar[bool] = contextvars.ContextVar("loopshift_sidework_alone", default=False)
@@ -209,3 +209,34 @@ def standby(warm: Callable[[], None]) -> Standby:
     picklable, unlike :func:`start`'s. Where no helper can run, tasks run here. Call
     :meth:`Standby.close` when done; the helper never outlives its use."""
     return Standby(warm)
+
+
+class Deferred(Sequence):
+    """A list computed when it is first read: ``Deferred(get)`` calls ``get()`` (e.g. a
+    :meth:`Pending.result`) on the first ``len``, index, iteration or truth test, and is that
+    list from then on. Lets a caller go on with what does not need it (the report draws its
+    figures while a helper finishes the sample-rate advice)."""
+
+    def __init__(self, get: Callable[[], list]):
+        self._get: Callable[[], list] | None = get
+        self._value: list = []
+
+    def _list(self) -> list:
+        if self._get is not None:
+            get, self._get = self._get, None
+            self._value = list(get())
+        return self._value
+
+    def __getitem__(self, i):
+        return self._list()[i]
+
+    def __len__(self) -> int:
+        return len(self._list())
+
+    def __eq__(self, other) -> bool:
+        return self._list() == list(other) if isinstance(other, Sequence) else NotImplemented
+
+    __hash__ = None  # a list: not hashable
+
+    def __repr__(self) -> str:
+        return repr(self._list()) if self._get is None else "Deferred(not read yet)"

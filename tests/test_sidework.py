@@ -137,3 +137,19 @@ def test_a_helper_killed_mid_task_is_computed_here():
     """A helper killed without a word (SIGKILL, as by the out-of-memory killer) must not leave the
     caller waiting: the task runs here instead (the reviewer's report hung with no helper alive)."""
     assert sidework.start(_killed_in_a_helper).result() == "computed here"
+
+
+def test_deferred_list_is_computed_once_on_first_read():
+    """A Deferred is the list its getter gives, computed on the first read only (len, index,
+    iteration, truth), then kept."""
+    calls = []
+
+    def get():
+        calls.append(1)
+        return [3, 4]
+
+    d = sidework.Deferred(get)
+    assert calls == []
+    assert d and len(d) == 2 and d[0] == 3 and list(d) == [3, 4] and d == [3, 4]
+    assert calls == [1]
+    assert not sidework.Deferred(list)

@@ -38,6 +38,7 @@ from convert.case import SETTING_KEYS, source_controller
 from convert.errors import InputError, LoopshiftError, UnrealizableError
 from convert.circuit.tolerance import check_draws, draws_problem
 from convert import sidework
+from convert.sidework import Deferred
 from convert.compare.circuitwork import circuit_realization
 from convert.compare.givenwork import given_realizations
 from convert.evidence.casework import extend_verdict, run_evidence
@@ -239,7 +240,8 @@ def evaluate_case(case, *, draws: int | None = None, progress: Callable[[str], N
         except BaseException:
             pending_advice.discard()
             raise
-        advice = pending_advice.result()
+        # taken when first read (the report draws its figures meanwhile; nothing here needs it)
+        advice = Deferred(pending_advice.result)
         tick("sample-rate advice")
     if case.circuit:
         realizations.append(

@@ -104,13 +104,11 @@ def _sampled_plant(plant: Controller, f: np.ndarray, t: float, delay: float) -> 
     ``delay`` = n·t + τ (:func:`_delay_taps`; the output is sampled before the new input takes
     effect, as the loop simulation does). Returns (the part without z⁻ⁿ, n·t): the whole samples
     of delay stay a pure delay, so the phase unwraps as the continuous loop's does."""
-    a, b, cc, d = _realize(plant, "plant.model")
-    n, g0, g1 = _delay_taps(a, b, t, delay)
+    a, phi, g0, g1, cc, d, n = _sampled_matrices(tuple(plant.num), tuple(plant.den), float(t), float(delay))
     z = np.exp(2j * np.pi * np.asarray(f, dtype=float) * t)
     zi = 1.0 / z
     out = d * zi
     if a.shape[0]:
-        phi, _ = _phi_gamma(a, b, t)
         m = z[:, None, None] * np.eye(a.shape[0]) - phi
         rhs = g0[None, :] + g1[None, :] * zi[:, None]
         x = np.linalg.solve(m, rhs[:, :, None])[:, :, 0]
@@ -501,6 +499,19 @@ class LoopResponse:
     sub_step_s: float
 
 
+@functools.lru_cache(maxsize=256)
+def _sampled_matrices(num: tuple, den: tuple, t: float, delay: float):
+    """(A, Φ, G0, G1, C, D, n) of :func:`_sampled_plant`, once per plant, period and delay (the
+    margins' refinement evaluates the same sampled plant at a few frequencies at a time)."""
+    plant = Controller.analog(num, den)
+    a, b, cc, d = _realize(plant, "plant.model")
+    n, g0, g1 = _delay_taps(a, b, t, delay)
+    phi = _phi_gamma(a, b, t)[0] if a.shape[0] else np.zeros((0, 0))
+    for m in (phi, g0, g1):
+        m.setflags(write=False)
+    return a, phi, g0, g1, cc, d, n
+
+
 def _realize(c: Controller, key: str = "controller"):
     """(A, B, C, D) of a proper transfer function (in s or in z): the balanced cascade of
     :func:`convert.digital.statespace.realize` (poles and zeros kept as first- and second-order
@@ -511,8 +522,19 @@ def _realize(c: Controller, key: str = "controller"):
             key=key,
         )
 
-    a, b, cc, d = realize(c.num, c.den)
-    return a, b.reshape(-1, 1), cc.reshape(1, -1), float(d)
+    return _realized(tuple(c.num), tuple(c.den))
+
+
+@functools.lru_cache(maxsize=256)
+def _realized(num: tuple, den: tuple):
+    """:func:`_realize`'s matrices, computed once per transfer function (the loop checks, the
+    margins' refinement and the sample-rate advice ask for the same plant hundreds of times);
+    read-only, so no caller can change what the next one gets."""
+    a, b, cc, d = realize(num, den)
+    out = a, b.reshape(-1, 1), cc.reshape(1, -1)
+    for m in out:
+        m.setflags(write=False)
+    return (*out, float(d))
 
 
 def _phi_gamma(a: np.ndarray, b: np.ndarray, t: float) -> tuple[np.ndarray, np.ndarray]:
