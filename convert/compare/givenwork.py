@@ -145,6 +145,8 @@ def _firmware(case, given, info, src, band, duration, src_step, src_dist):
                 loop=spec,
                 loop_reference=lr(src),
                 loop_candidate=lr(law),
+                forms=(src, law),  # the maxima refined off the grid, as the report's other rows
+                evaluate=lambda f: (src.frequency_response(f, via="zpk"), law.frequency_response(f)),
             )
         elif info.pid.tf > 0:
             from dataclasses import replace

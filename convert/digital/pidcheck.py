@@ -29,10 +29,9 @@ from convert.errors import LoopshiftError
 from convert.digital.pidfixed import fixed_pid
 from convert.controller import Controller
 from convert.digital.quantized import (
-    ASSUMED_SCALING,
     FormatAnalysis,
     RESPONSE_LIMITS,
-    default_input_range,
+    assumed_scaling,
     stall_failure,
     smallest_moving,
 )
@@ -131,21 +130,11 @@ def analyze_block(block, band_f_hz, *, input_resolution: float | None = None, re
     ``response_limits`` (dB, deg, either None for the default) that the stored constants' response
     may depart from the exact one (:data:`convert.digital.quantized.RESPONSE_LIMITS`)."""
     limits = tuple(d if v is None else float(v) for v, d in zip(response_limits or (None, None), RESPONSE_LIMITS))
-    notes: list[str] = []
     lim = block.limits
-    u = max(abs(lim[0]), abs(lim[1])) if lim else 1.0
-    if not lim:
-        notes.append(f"{ASSUMED_SCALING[0]}1 (no output limits given)")
     exact = linear_controller(block, stored=False)
-    if block.input_range:
-        r = float(block.input_range)
-    else:
-        r = default_input_range(exact, u)
-        notes.append(
-            f"{ASSUMED_SCALING[1]}{r:.4g} (the error that drives the output to U through the largest gain "
-            "between fs/1000 and fs/2)"
-        )
-    res = float(input_resolution) if input_resolution else r / 2**15
+    u, r, res, notes = assumed_scaling(
+        exact, max(abs(lim[0]), abs(lim[1])) if lim else None, block.input_range, input_resolution
+    )
     base = dict(
         word_format=block.word_format,
         block=block,

@@ -225,6 +225,27 @@ def default_input_range(roots, output_level: float) -> float:
     return output_level / g if g > 0 and math.isfinite(g) else output_level
 
 
+def assumed_scaling(
+    form, output_level: float | None, input_range: float | None, input_resolution: float | None
+) -> tuple[float, float, float, list[str]]:
+    """(U, R, resolution, notes): the output level U (1 when not given), the input range R
+    (:func:`default_input_range` of ``form`` when not given) and the smallest error the integral
+    must act on (R / 2^15 when not given), each in the controller's units, with a note for every
+    value assumed (each note starts with its :data:`ASSUMED_SCALING` prefix)."""
+    notes = []
+    u = float(output_level) if output_level else 1.0
+    if not output_level:
+        notes.append(f"{ASSUMED_SCALING[0]}1 (no output limits given)")
+    r = float(input_range) if input_range else default_input_range(form, u)
+    if not input_range:
+        notes.append(
+            f"{ASSUMED_SCALING[1]}{r:.4g} (the error that drives the output to U through the largest gain "
+            "between fs/1000 and fs/2)"
+        )
+    res = float(input_resolution) if input_resolution else r / 2**15
+    return u, r, res, notes
+
+
 def _match(exact, got) -> float:
     exact, got = list(exact), list(got)
     worst = 0.0
@@ -259,17 +280,7 @@ def analyze(
     limits = tuple(d if v is None else float(v) for v, d in zip(response_limits or (None, None), RESPONSE_LIMITS))
     word = word_format if isinstance(word_format, WordFormat) else get_format(word_format)
     layout = build_layout(structure, roots, b, a)
-    notes = []
-    u = float(output_level) if output_level else 1.0
-    if not output_level:
-        notes.append(f"{ASSUMED_SCALING[0]}1 (no output limits given)")
-    r = float(input_range) if input_range else default_input_range(roots, u)
-    if not input_range:
-        notes.append(
-            f"{ASSUMED_SCALING[1]}{r:.4g} (the error that drives the output to U through the largest gain "
-            "between fs/1000 and fs/2)"
-        )
-    res = float(input_resolution) if input_resolution else r / 2**15
+    u, r, res, notes = assumed_scaling(roots, output_level, input_range, input_resolution)
     base = dict(
         structure=layout.structure,
         word_format=word.name,
