@@ -130,3 +130,50 @@ def test_peak_gains_of_a_layout_with_an_integrator():
     finite = [z_equivalent(lay, s) for s in lay.sections[:-1]]
     ref = np.sum(np.abs(_sosfilt_impulse(finite, 100_000)), axis=1)
     assert np.allclose(gains[:-1], ref, rtol=1e-9)
+
+
+def test_stored_words_bound_covers_their_own_impulse_response():
+    """Fixed-point scaling must hold the words as stored, not only the design: quantizing a
+    resonant Q15 section moves its poles, and a pole moved towards the unit circle raises ‖h‖₁
+    (by up to 20 % here), so a node scaled from the design's bound could overflow while the
+    analysis reported headroom. For 200 seeded resonant sections the stored words' own ‖h‖₁,
+    summed from ``scipy.signal.lfilter``'s impulse response of the stored b/a (a general-purpose
+    reference library) until the slowest stored pole decayed by e^-40, times S_1/S_0, never
+    exceeds the section's full scale S_1, the reported bound is not below it, and the reported
+    headroom is not negative. Some of the 200 need a full scale above the design rule's (the
+    check is exercised: before the fix 4 of them overflowed silently)."""
+    from scipy.signal import lfilter
+
+    from convert.digital.fixedpoint import peak_gains
+    from convert.digital.quantized import analyze
+    from convert.digital.roots import RootForm
+
+    rng = np.random.default_rng(7)
+    raised = checked = 0
+    for _ in range(200):
+        radius = 1 - 10 ** rng.uniform(-3.5, -2)
+        p = radius * np.exp(1j * rng.uniform(0.002, 0.05))
+        fa = analyze(
+            RootForm((), (p, p.conjugate()), 1.0, 1e-3),
+            "sections",
+            "q15",
+            np.array([0.1, 1.0]),
+            input_range=1.0,
+            output_level=1.0,
+        )
+        real = fa.realized
+        s = real.sections[0]
+        stored_radius = float(np.max(np.abs(np.roots(s.a))))
+        if stored_radius >= 1 - 1e-9:  # quantized onto the unit circle: a failure of its own
+            assert fa.failures
+            continue
+        x = np.zeros(int(40 / (1 - stored_radius)))
+        x[0] = 1.0
+        own = float(np.abs(lfilter(s.b, s.a, x)).sum()) * real.node_scales[1] / real.node_scales[0]
+        assert own <= real.node_scales[1]
+        assert fa.node_bounds[0] >= own * (1 - 1e-9)
+        assert fa.headroom_db >= 0
+        checked += 1
+        design_scale = 2.0 ** math.ceil(math.log2(1.01 * peak_gains(real.layout)[0]))
+        raised += real.node_scales[1] > design_scale
+    assert checked > 150 and raised >= 1

@@ -362,9 +362,11 @@ def analyze(
                 "the stored coefficients are not the designed controller"
             )
 
-    # overflow
-    gains = peak_gains(layout)
-    bounds = tuple(g * r for g in gains)
+    # overflow: a df1 fixed-point realization carries its stored words' own bounds (realize)
+    if word.is_fixed and real.form == "df1":
+        bounds = tuple(real.node_bounds)
+    else:
+        bounds = tuple(g * r for g in peak_gains(layout))
     headroom = None
     if word.is_fixed:
         finite = [(s, bnd) for s, bnd in zip(real.node_scales[1:], bounds) if math.isfinite(bnd)]
