@@ -136,3 +136,72 @@ def test_maxima_equal_scipy_dense_and_refined(surveys):
                 g, p = _reference_maxima(num, den, fs, delay, method, (s.f_hz[0], s.f_hz[-1]), with_hold)
                 assert err.max_gain_error_db == pytest.approx(g, rel=1e-7, abs=1e-10), (pp, method, with_hold)
                 assert err.max_phase_error_deg == pytest.approx(p, rel=1e-7, abs=1e-9), (pp, method, with_hold)
+
+
+def _reference_agreement_limit(num, den, fs, delay, method, band, with_hold, limits=(1.0, 5.0)):
+    """The first frequency where |gain error| > 1 dB or |phase error| > 5 deg: scipy's
+    discretization and freqz on a dense grid (20,000 points per decade), the first dense point
+    beyond a limit, and the crossing inside the dense interval before it by ``scipy.optimize.brentq``
+    (the excess over the limits, ln f, xtol 1e-13). None when both errors stay within."""
+    from scipy.optimize import brentq
+
+    b, a, _ = cont2discrete((num, den), 1 / fs, method=SCIPY[method])
+    b, a = np.ravel(b), np.ravel(a)
+
+    def ratio(f):
+        f = np.atleast_1d(np.asarray(f, float))
+        dig = freqz(b, a, worN=f, fs=fs)[1]
+        if with_hold:
+            w = 2 * np.pi * f
+            dig = dig * (1 - np.exp(-1j * w / fs)) / (1j * w / fs) * np.exp(-1j * w * delay)
+        return dig / (np.polyval(num, 2j * np.pi * f) / np.polyval(den, 2j * np.pi * f))
+
+    lo, hi = np.log(band[0]), np.log(band[1])
+    u = np.linspace(lo, hi, int(20000 * (hi - lo) / np.log(10)) + 2)
+    r = ratio(np.exp(u))
+    phase = np.unwrap(np.angle(r))
+    over = (np.abs(20 * np.log10(np.abs(r))) > limits[0]) | (np.degrees(np.abs(phase)) > limits[1])
+    if not over.any():
+        return None
+    i = int(np.argmax(over))
+    if i == 0:
+        return float(band[0])
+
+    def excess(x, near=phase[i]):
+        q = ratio(np.exp(x))[0]
+        ph = np.degrees(abs(near + np.angle(np.exp(1j * (np.angle(q) - near)))))
+        return max(abs(20 * np.log10(abs(q))) - limits[0], (ph - limits[1]) / limits[1] * limits[0])
+
+    return float(np.exp(brentq(excess, u[i - 1], u[i], xtol=1e-13)))
+
+
+def test_agreement_limit_is_free_of_the_grid_and_equals_scipy(surveys):
+    """The 'agrees up to' frequency (the first where an error leaves 1 dB / 5 deg) was the first
+    grid point beyond the limits, a figure that moved with the grid density. It is now the
+    crossing itself: at 50, 100 and 400 points per decade the same to 1e-8 relative, and equal to
+    scipy's dense-and-brentq crossing (``_reference_agreement_limit``) to 1e-7."""
+    (num, den, fs, delay), by_pp = surveys
+    base = by_pp[100]
+    for pp in (50, 400):
+        for r0, r in zip(base.rows, by_pp[pp].rows):
+            for e0, e in ((r0.method_error, r.method_error), (r0.loop_error, r.loop_error)):
+                if e0.agreement_limit_hz is None:
+                    assert e.agreement_limit_hz is None, (pp, r.realization.method)
+                else:
+                    assert e.agreement_limit_hz == pytest.approx(e0.agreement_limit_hz, rel=1e-8), (
+                        pp,
+                        r.realization.method,
+                    )
+    crossings = 0
+    for row in base.rows:
+        method = row.realization.method
+        if method not in SCIPY:
+            continue
+        for err, with_hold in ((row.method_error, False), (row.loop_error, True)):
+            ref = _reference_agreement_limit(num, den, fs, delay, method, (base.f_hz[0], base.f_hz[-1]), with_hold)
+            if ref is None:
+                assert err.agreement_limit_hz is None, (method, with_hold)
+            else:
+                crossings += ref > base.f_hz[0]
+                assert err.agreement_limit_hz == pytest.approx(ref, rel=1e-7), (method, with_hold)
+    assert crossings >= 2

@@ -88,7 +88,8 @@ class ResponseError:
     ``gain_error_db`` and ``phase_error_deg`` are arrays over ``f_hz``. The maxima are of the
     absolute values; the ``*_at_hz`` fields give where they occur. ``agreement_limit_hz`` is the
     first frequency where the gain error exceeds ``gain_limit_db`` or the phase error exceeds
-    ``phase_limit_deg`` (``None`` when they agree over the whole band).
+    ``phase_limit_deg`` (``None`` when they agree over the whole band), free of the grid when
+    the continuous responses were given (:func:`agreement_limit`), else the first grid point.
     """
 
     f_hz: np.ndarray
@@ -170,7 +171,10 @@ def compare_responses(
     look = [r.f_hz for r in look]
     abs_gain, abs_phase = _absolute_errors(gain_err, phase_err)
     peak = grid_free_maxima(evaluate, f, gain_err, phase_err, unbounded, look)
-    limit = _agreement_limits(f, abs_gain, abs_phase, gain_limit_db, phase_limit_deg)[0]
+    if evaluate is None:
+        limit = _agreement_limits(f, abs_gain, abs_phase, gain_limit_db, phase_limit_deg)[0]
+    else:
+        limit = agreement_limit(evaluate, f, phase_err, abs_gain, abs_phase, gain_limit_db, phase_limit_deg)
     if unbounded and (limit is None or limit > unbounded[0].f_hz):
         limit = unbounded[0].f_hz
     return ResponseError(
@@ -596,6 +600,19 @@ def grid_free_maxima(
             "unbounded_note": "",
         }
 
+    gain_at, phase_at = _error_functions(evaluate, f, phase_deg)
+    return {
+        "gain": refine_maximum(gain_at, f, g_abs, look_at_hz),
+        "phase": refine_maximum(phase_at, f, p_abs, look_at_hz),
+        "unbounded_note": "",
+    }
+
+
+def _error_functions(evaluate, f_hz: np.ndarray, phase_deg: np.ndarray):
+    """|gain error| (dB) and |phase error| (deg) as vectorized functions of frequency (Hz) from
+    ``evaluate(f) -> (reference, candidate)``; the phase error is continued from the grid's
+    unwrapped ``phase_deg`` (the nearest grid point's branch)."""
+
     def ratio_at(x):
         ref, cand = evaluate(np.asarray(x, dtype=float))
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -606,15 +623,74 @@ def grid_free_maxima(
             return np.abs(20 * np.log10(np.abs(ratio_at(x))))
 
     grid_phase = np.radians(np.nan_to_num(phase_deg, nan=0.0))
-    lf = np.log(f)
+    lf = np.log(f_hz)
 
     def phase_at(x):
-        # continue the grid's unwrapped phase error to x (nearest grid point's branch)
-        j = np.clip(np.searchsorted(lf, np.log(x)), 0, f.size - 1)
+        j = np.clip(np.searchsorted(lf, np.log(x)), 0, f_hz.size - 1)
         return np.abs(np.degrees(_wrap_to(np.angle(ratio_at(x)), grid_phase[j])))
 
-    return {
-        "gain": refine_maximum(gain_at, f, g_abs, look_at_hz),
-        "phase": refine_maximum(phase_at, f, p_abs, look_at_hz),
-        "unbounded_note": "",
-    }
+    return gain_at, phase_at
+
+
+#: the agreement limit is located to this relative width in frequency
+AGREEMENT_REL = 1e-9
+
+
+def agreement_limit(
+    evaluate,
+    f_hz: np.ndarray,
+    phase_deg: np.ndarray,
+    abs_gain: np.ndarray,
+    abs_phase: np.ndarray,
+    gain_limit_db: float,
+    phase_limit_deg: float,
+) -> float | None:
+    """The first frequency (Hz) in the band where |gain error| exceeds ``gain_limit_db`` or
+    |phase error| exceeds ``phase_limit_deg``, free of the grid (None: within both over the band).
+
+    ``abs_gain``/``abs_phase`` are the absolute errors on the grid ``f_hz`` (``phase_deg`` the
+    signed unwrapped phase error there). The grid gives the first point beyond a limit; an earlier
+    excursion between grid points is looked for by refining every local maximum of the excess
+    before it (:func:`convert.compare.refine.maximize_in_brackets`, as the maxima are refined);
+    the crossing is then bracketed by a point within the limits and one beyond and narrowed, 32
+    sub-intervals a round, keeping the first sub-interval that crosses, to
+    :data:`AGREEMENT_REL` relative. Returned: the bracket's upper end (a frequency where the
+    limit is exceeded). An error that cannot be evaluated counts as beyond."""
+    f = np.asarray(f_hz, dtype=float)
+    gain_at, phase_at = _error_functions(evaluate, f, phase_deg)
+    gs, ps = max(gain_limit_db, 1e-12), max(phase_limit_deg, 1e-12)
+
+    def excess(x):
+        with np.errstate(invalid="ignore"):
+            e = np.maximum((gain_at(x) - gain_limit_db) / gs, (phase_at(x) - phase_limit_deg) / ps)
+        return np.nan_to_num(e, nan=np.inf)
+
+    grid = np.maximum((abs_gain - gain_limit_db) / gs, (abs_phase - phase_limit_deg) / ps)
+    beyond = np.flatnonzero(grid > 0)
+    first = int(beyond[0]) if beyond.size else f.size
+    if first == 0:
+        return float(f[0])
+    lo = hi = None
+    if first > 1:
+        idx = _local_maxima(grid[:first])
+        brackets = [(max(i - 1, 0), min(i + 1, first - 1)) for i in idx]
+        brackets = np.array([b for b in brackets if b[1] > b[0]], dtype=np.intp).reshape(-1, 2)
+        if brackets.size:
+            found, at = maximize_in_brackets(excess, f[brackets[:, 0]], f[brackets[:, 1]], rel_tol=REFINE_REL / 2)
+            out = np.flatnonzero(found > 0)
+            if out.size:
+                k = out[np.argmin(at[out])]
+                lo, hi = float(f[brackets[k, 0]]), float(at[k])
+    if lo is None:
+        if first == f.size:
+            return None
+        lo, hi = float(f[first - 1]), float(f[first])
+    ulo, uhi = np.log(lo), np.log(hi)
+    for _ in range(12):  # 32 sub-intervals a round: a grid interval below 1e-9 in six rounds
+        if uhi - ulo <= AGREEMENT_REL:
+            break
+        u = np.linspace(ulo, uhi, 33)
+        over = excess(np.exp(u[1:-1])) > 0
+        k = int(np.argmax(over)) if over.any() else 31
+        ulo, uhi = u[k], u[k + 1]
+    return float(np.exp(uhi))
