@@ -174,7 +174,16 @@ def compare_responses(
     if evaluate is None:
         limit = _agreement_limits(f, abs_gain, abs_phase, gain_limit_db, phase_limit_deg)[0]
     else:
-        limit = agreement_limit(evaluate, f, phase_err, abs_gain, abs_phase, gain_limit_db, phase_limit_deg)
+        limit = agreement_limit(
+            evaluate,
+            f,
+            phase_err,
+            abs_gain,
+            abs_phase,
+            gain_limit_db,
+            phase_limit_deg,
+            (peak["gain"][0], peak["phase"][0]),
+        )
     if unbounded and (limit is None or limit > unbounded[0].f_hz):
         limit = unbounded[0].f_hz
     return ResponseError(
@@ -600,7 +609,7 @@ def grid_free_maxima(
             "unbounded_note": "",
         }
 
-    gain_at, phase_at = _error_functions(evaluate, f, phase_deg)
+    gain_at, phase_at, _ = _error_functions(evaluate, f, phase_deg)
     return {
         "gain": refine_maximum(gain_at, f, g_abs, look_at_hz),
         "phase": refine_maximum(phase_at, f, p_abs, look_at_hz),
@@ -609,31 +618,41 @@ def grid_free_maxima(
 
 
 def _error_functions(evaluate, f_hz: np.ndarray, phase_deg: np.ndarray):
-    """|gain error| (dB) and |phase error| (deg) as vectorized functions of frequency (Hz) from
-    ``evaluate(f) -> (reference, candidate)``; the phase error is continued from the grid's
-    unwrapped ``phase_deg`` (the nearest grid point's branch)."""
+    """|gain error| (dB), |phase error| (deg) and both at once, as vectorized functions of
+    frequency (Hz) from ``evaluate(f) -> (reference, candidate)``; the phase error is continued
+    from the grid's unwrapped ``phase_deg`` (the nearest grid point's branch)."""
 
     def ratio_at(x):
         ref, cand = evaluate(np.asarray(x, dtype=float))
         with np.errstate(divide="ignore", invalid="ignore"):
             return np.asarray(cand, complex) / np.asarray(ref, complex)
 
-    def gain_at(x):
+    def gain_of(q):
         with np.errstate(divide="ignore"):
-            return np.abs(20 * np.log10(np.abs(ratio_at(x))))
+            return np.abs(20 * np.log10(np.abs(q)))
 
     grid_phase = np.radians(np.nan_to_num(phase_deg, nan=0.0))
     lf = np.log(f_hz)
 
-    def phase_at(x):
+    def phase_of(x, q):
         j = np.clip(np.searchsorted(lf, np.log(x)), 0, f_hz.size - 1)
-        return np.abs(np.degrees(_wrap_to(np.angle(ratio_at(x)), grid_phase[j])))
+        return np.abs(np.degrees(_wrap_to(np.angle(q), grid_phase[j])))
 
-    return gain_at, phase_at
+    def both_at(x):
+        q = ratio_at(x)
+        return gain_of(q), phase_of(x, q)
+
+    return (lambda x: gain_of(ratio_at(x))), (lambda x: phase_of(x, ratio_at(x))), both_at
 
 
 #: the agreement limit is located to this relative width in frequency
 AGREEMENT_REL = 1e-9
+#: sub-intervals a round of the search for the crossing
+SPLIT = 512
+#: a local maximum of the excess below the first grid point beyond the limits is located to this
+#: relative width: enough to tell whether it leaves the limits (near a smooth peak the value is
+#: then within about (1e-4)² of the peak's, relative to its curvature)
+EXCURSION_REL = 1e-4
 
 
 def agreement_limit(
@@ -644,6 +663,7 @@ def agreement_limit(
     abs_phase: np.ndarray,
     gain_limit_db: float,
     phase_limit_deg: float,
+    peaks: tuple[float, float] | None = None,
 ) -> float | None:
     """The first frequency (Hz) in the band where |gain error| exceeds ``gain_limit_db`` or
     |phase error| exceeds ``phase_limit_deg``, free of the grid (None: within both over the band).
@@ -651,32 +671,37 @@ def agreement_limit(
     ``abs_gain``/``abs_phase`` are the absolute errors on the grid ``f_hz`` (``phase_deg`` the
     signed unwrapped phase error there). The grid gives the first point beyond a limit; an earlier
     excursion between grid points is looked for by refining every local maximum of the excess
-    before it (:func:`convert.compare.refine.maximize_in_brackets`, as the maxima are refined);
-    the crossing is then bracketed by a point within the limits and one beyond and narrowed, 32
-    sub-intervals a round, keeping the first sub-interval that crosses, to
+    before it (:func:`convert.compare.refine.maximize_in_brackets`, to :data:`EXCURSION_REL`);
+    the crossing is then bracketed by a point within the limits and one beyond and narrowed,
+    :data:`SPLIT` sub-intervals a round, keeping the first sub-interval that crosses, to
     :data:`AGREEMENT_REL` relative. Returned: the bracket's upper end (a frequency where the
-    limit is exceeded). An error that cannot be evaluated counts as beyond."""
+    limit is exceeded). An error that cannot be evaluated counts as beyond. ``peaks``: the
+    band's refined (max |gain error|, max |phase error|) when known: within both limits, the
+    errors agree over the whole band without a further search."""
     f = np.asarray(f_hz, dtype=float)
-    gain_at, phase_at = _error_functions(evaluate, f, phase_deg)
     gs, ps = max(gain_limit_db, 1e-12), max(phase_limit_deg, 1e-12)
-
-    def excess(x):
-        with np.errstate(invalid="ignore"):
-            e = np.maximum((gain_at(x) - gain_limit_db) / gs, (phase_at(x) - phase_limit_deg) / ps)
-        return np.nan_to_num(e, nan=np.inf)
-
     grid = np.maximum((abs_gain - gain_limit_db) / gs, (abs_phase - phase_limit_deg) / ps)
     beyond = np.flatnonzero(grid > 0)
     first = int(beyond[0]) if beyond.size else f.size
     if first == 0:
         return float(f[0])
+    if first == f.size and peaks is not None and peaks[0] <= gain_limit_db and peaks[1] <= phase_limit_deg:
+        return None
+    both_at = _error_functions(evaluate, f, phase_deg)[2]
+
+    def excess(x):
+        g, p = both_at(x)
+        with np.errstate(invalid="ignore"):
+            e = np.maximum((g - gain_limit_db) / gs, (p - phase_limit_deg) / ps)
+        return np.nan_to_num(e, nan=np.inf)
+
     lo = hi = None
     if first > 1:
         idx = _local_maxima(grid[:first])
         brackets = [(max(i - 1, 0), min(i + 1, first - 1)) for i in idx]
         brackets = np.array([b for b in brackets if b[1] > b[0]], dtype=np.intp).reshape(-1, 2)
         if brackets.size:
-            found, at = maximize_in_brackets(excess, f[brackets[:, 0]], f[brackets[:, 1]], rel_tol=REFINE_REL / 2)
+            found, at = maximize_in_brackets(excess, f[brackets[:, 0]], f[brackets[:, 1]], rel_tol=EXCURSION_REL)
             out = np.flatnonzero(found > 0)
             if out.size:
                 k = out[np.argmin(at[out])]
@@ -686,11 +711,11 @@ def agreement_limit(
             return None
         lo, hi = float(f[first - 1]), float(f[first])
     ulo, uhi = np.log(lo), np.log(hi)
-    for _ in range(12):  # 32 sub-intervals a round: a grid interval below 1e-9 in six rounds
+    for _ in range(8):  # 512 sub-intervals a round: a grid interval below 1e-9 in three rounds
         if uhi - ulo <= AGREEMENT_REL:
             break
-        u = np.linspace(ulo, uhi, 33)
+        u = np.linspace(ulo, uhi, SPLIT + 1)
         over = excess(np.exp(u[1:-1])) > 0
-        k = int(np.argmax(over)) if over.any() else 31
+        k = int(np.argmax(over)) if over.any() else SPLIT - 1
         ulo, uhi = u[k], u[k + 1]
     return float(np.exp(uhi))
