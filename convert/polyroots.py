@@ -270,3 +270,43 @@ def format_root(r: complex) -> str:
     if abs(r.imag) <= 1e-12 * max(abs(r), 1e-300):
         return format(r.real, ".6g")
     return f"{r.real:.6g}{'+' if r.imag >= 0 else '-'}{abs(r.imag):.6g}j"
+
+
+def partial_fractions(num, den) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Partial fractions of num(s)/den(s) (descending powers, real or complex) over the roots of
+    ``den`` taken as distinct: num/den = Σ r_i/(s − p_i) + k(s).
+
+    p: ``numpy.roots(den)`` ordered by |p| (as ``scipy.signal.residue`` orders them); k: the
+    quotient of num ÷ den (descending powers; empty when num has the lower degree);
+    r_i = ρ(p_i) / (den[0]·Π_(j≠i) (p_i − p_j)), ρ the remainder of the division: for distinct
+    roots the same expansion as ``scipy.signal.residue`` (tests/test_polyroots.py), the
+    product of root differences in place of its expanded polynomial. r and p are complex arrays.
+    Roots that are repeated, or close on the scale of their own accuracy, give large and
+    inaccurate residues: the caller judges distinctness (see :func:`closest_roots`).
+    Raises ValueError for a zero denominator."""
+    num = np.trim_zeros(np.atleast_1d(np.asarray(num)), "f")
+    den = np.trim_zeros(np.atleast_1d(np.asarray(den)), "f")
+    if den.size == 0:
+        raise ValueError("the denominator is zero")
+    p = np.roots(den).astype(complex)
+    p = p[np.argsort(np.abs(p), kind="stable")]
+    if num.size == 0:
+        return np.zeros(p.size, complex), p, np.empty(0)
+    if num.size >= den.size:
+        k, rem = np.polydiv(num, den)
+    else:
+        k, rem = np.empty(0), num
+    diff = p[:, None] - p[None, :]
+    np.fill_diagonal(diff, 1.0)
+    r = np.polyval(rem, p) / (den[0] * np.prod(diff, axis=1))
+    return r, p, k
+
+
+def closest_roots(p) -> float:
+    """The smallest distance between two of the roots ``p`` (inf for fewer than two)."""
+    p = np.asarray(p, complex)
+    if p.size < 2:
+        return float("inf")
+    d = np.abs(p[:, None] - p[None, :])
+    np.fill_diagonal(d, np.inf)
+    return float(d.min())

@@ -12,10 +12,11 @@ Replay (each form from rest at the first row):
   between them (first-order hold, the assumption python-control's ``forced_response`` makes),
   at each row's own time step, so uneven sampling is handled as logged: the controller is split
   into first-order modes (partial fractions; distinct poles) and each mode's recursion
-  x[k+1] = e^{p·h_k}·x[k] + (I0 − I1)·u[k] + I1·u[k+1] is run by ``scipy.signal.lfilter`` over
+  x[k+1] = e^{p·h_k}·x[k] + (I0 − I1)·u[k] + I1·u[k+1] is run as a linear filter
+  (:func:`convert.digital.linearfilter.run_filter`: scipy.signal.lfilter's recursion, in blocks) over
   evenly sampled stretches and by an associative scan elsewhere;
 * a digital form runs at its own rate and word format: its sample instants t0 + n/fs, the input
-  interpolated linearly at them, ``lfilter`` with its coefficients as stored, the output held
+  interpolated linearly at them, filtered with its coefficients as stored, the output held
   (zero-order) and delayed by its computation delay, read at the logged times.
 
 The residual (logged − replayed output) is reported as its mean (the **offset**: the state the
@@ -40,6 +41,8 @@ from convert.evidence.csvtable import CHUNK_ROWS, Role, chunks, layout
 from convert.compare.givenwork import quantized
 from convert.given import given_controller, pid_block_b_a
 from convert.controller import Controller
+from convert.digital.linearfilter import run_filter
+from convert.polyroots import closest_roots, partial_fractions
 
 LOG_ROLES = (
     Role("time", ("time", "t", "timestamp"), ("time",), "s"),
@@ -51,6 +54,9 @@ LOG_ROLES = (
 GAP_FACTOR = 5.0
 SETTLE_TIME_CONSTANTS = 5.0
 SKETCH_POINTS = 4000
+#: poles closer than this (rad/s, absolute) count as one repeated pole, which the modal replay
+#: refuses (the grouping distance scipy.signal.residue applies by default, kept as the rule)
+REPEATED_POLE_S = 1e-3
 
 
 # ----------------------------------------------------------------------------- replay engines
@@ -76,8 +82,6 @@ class AnalogReplay:
     """Exact first-order-hold propagation of an analog controller through logged samples."""
 
     def __init__(self, controller):
-        from scipy.signal import residue
-
         if not controller.is_proper:
             raise UnrealizableError(
                 "an improper controller (an unfiltered derivative) has no response to a logged "
@@ -85,10 +89,8 @@ class AnalogReplay:
                 key="derivative_filter",
             )
         num, den = np.asarray(controller.num, float), np.asarray(controller.den, float)
-        r, p, k = residue(num, den)
-        if p.size and np.min(np.abs(np.subtract.outer(p, p)) + np.eye(p.size) * 1e300) < 1e-9 * max(
-            1, np.max(np.abs(p))
-        ):
+        r, p, k = partial_fractions(num, den)
+        if p.size and closest_roots(p) <= max(REPEATED_POLE_S, 1e-9 * max(1.0, float(np.max(np.abs(p))))):
             raise UnrealizableError(
                 "the controller has a repeated pole; its replay needs distinct poles", key="controller"
             )
@@ -143,9 +145,7 @@ class AnalogReplay:
 
     def _uniform(self, h: float, u: np.ndarray, first: bool) -> np.ndarray:
         """Even steps: each mode is the filter (I1 + (I0 − I1)·z⁻¹)/(1 − e^{ph}·z⁻¹) on the input
-        rows (scipy.signal.lfilter), started from the carried state."""
-        from scipy.signal import lfilter
-
+        rows (:func:`convert.digital.linearfilter.run_filter`), started from the carried state."""
         if self._cache[0] is None or abs(self._cache[0] - h) > 1e-9 * h:  # steps equal to rounding share one set
             E, c0, c1 = self._coefficients(np.array([h]))
             self._cache = (h, (E[:, 0], c0[:, 0], c1[:, 0]))
@@ -160,10 +160,10 @@ class AnalogReplay:
             else:
                 zi = E[i] * self.x[i] + c0[i] * self.last[1]
             if self.is_real[i]:
-                ys, _ = lfilter([(g * c1[i]).real, (g * c0[i]).real], [1.0, -E[i].real], u, zi=[(g * zi).real])
+                ys, _ = run_filter([(g * c1[i]).real, (g * c0[i]).real], [1.0, -E[i].real], u, [(g * zi).real])
                 self.x[i] = ys[-1] / g.real
             else:
-                yc, _ = lfilter([g * c1[i], g * c0[i]], [1.0, -E[i]], u.astype(complex), zi=[g * zi])
+                yc, _ = run_filter([g * c1[i], g * c0[i]], [1.0, -E[i]], u.astype(complex), [g * zi])
                 self.x[i] = yc[-1] / g
                 ys = yc.real
             parts.append(ys)
@@ -171,11 +171,9 @@ class AnalogReplay:
 
     def _combined(self, h: float, E, c0, c1, u: np.ndarray, first: bool) -> np.ndarray:
         """Even steps, low order: every mode summed into one filter B(z)/A(z) run by one
-        ``lfilter`` call, its initial state built from the modal states (the free response of
+        filter run (:func:`~convert.digital.linearfilter.run_filter`), its initial state built from the modal states (the free response of
         mode i, g·z_i/(1 − E_i z⁻¹), over the common denominator); the modal states at the chunk's
         end follow from two dot products per mode with the powers E_i^(N−1−n)."""
-        from scipy.signal import lfilter
-
         if getattr(self, "_combo_key", None) != self._cache[0] or self._combo[5][0].shape[1] < u.size - 1:
             conj = ~self.is_real
             Ef = np.r_[E, np.conj(E[conj])]
@@ -215,7 +213,7 @@ class AnalogReplay:
         zi = np.zeros(len(a) - 1, dtype=complex)
         for i in range(zf.size):
             zi += gf[i] * zf[i] * others[i]
-        y, _ = lfilter(b, a, u, zi=zi.real)
+        y, _ = run_filter(b, a, u, zi.real)
         x0 = c1 * u[0] + z
         head, tail = u[:-1], u[1:]
         re, im = powers[0][:, re_start(powers[0], u.size) :], powers[1][:, re_start(powers[1], u.size) :]
@@ -256,8 +254,6 @@ class DigitalReplay:
         self.settle_s = SETTLE_TIME_CONSTANTS * max(decaying) if decaying else 0.0
 
     def run(self, t: np.ndarray, u: np.ndarray) -> np.ndarray:
-        from scipy.signal import lfilter
-
         if self.t0 is None:
             self.t0 = float(t[0])
         period = 1.0 / self.fs
@@ -272,7 +268,7 @@ class DigitalReplay:
             tt, uu = (t, u) if self.prev is None else (np.r_[self.prev[0], t], np.r_[self.prev[1], u])
             ui = np.interp(inst, tt, uu)
         if inst.size:
-            y, self.zi = lfilter(self.b, self.a, ui, zi=self.zi) if self.zi.size else (self.b[0] * ui, self.zi)
+            y, self.zi = run_filter(self.b, self.a, ui, self.zi) if self.zi.size else (self.b[0] * ui, self.zi)
         else:
             y = np.empty(0)
         self.n_next = n_last + 1
