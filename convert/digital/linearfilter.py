@@ -14,7 +14,12 @@ as that state) means the same here. As state space: s[k+1] = A·s[k] + B·x[k], 
 with A the companion matrix (first column −a_(1..n), ones above the diagonal), B = b_(1..n) −
 a_(1..n)·b0, C = (1, 0, …, 0), D = b0.
 
-**Blocks.** The samples are taken L at a time (L = :data:`BLOCK`): for a block with state s at
+**Order one** (the modes of a replay, a firmware integrator): y[k] = p·y[k−1] + v[k] with
+v = b0·x + b1·x delayed (zi added at the first sample) is a running sum of the input scaled by
+p^(−i), scaled back by p^j (:func:`first_order_recursion`): a few passes of numpy over the samples,
+about the cost of scipy's compiled loop. The rounding stays the recursion's own (see there).
+
+**Order two and more: blocks.** The samples are taken L at a time (L = :data:`BLOCK`): for a block with state s at
 its start,
 
     y_block = O·s + T·x_block,     s' = Q·s + K·x_block,
@@ -26,7 +31,7 @@ Python loop (N/L steps of an n×n product). The powers A^j are formed by the rec
 A^j = A·A^(j−1) (the state recursion run from each unit state, one rounding per product as the
 filter has), kept per coefficient set and dtype.
 
-**Refinement.** Q = A^L of a companion matrix with crowded poles is far larger than the state it
+**Refinement** (order two and more). Q = A^L of a companion matrix with crowded poles is far larger than the state it
 maps to (‖Q‖·|s| ≫ |Q·s|), so the blocks alone lose digits a sample-by-sample recursion keeps
 (an integrator with a pole pair at |z| = 0.9999: 2e-8 of the peak). For n ≥ 2 one step of
 iterative refinement follows: the residual r = A(z)·y − B(z)·x − zi (zi entering at the first n
@@ -35,7 +40,8 @@ state is then taken from the last n inputs and outputs, s_i = Σ_(j>i) b_j·x[N+
 (the state scipy.signal.lfiltic builds).
 
 **Accuracy** (tests/test_digital_linearfilter.py, against ``scipy.signal.lfilter`` and a
-long-double recursion): random stable filters of order 1–8 with poles up to |z| = 0.999, real and
+long-double recursion): first-order filters from p = 0 to |p| = 1.0001, real and complex, within
+1e-13 of scipy's peak output; random stable filters of order 1–8 with poles up to |z| = 0.999, real and
 complex, with and without ``zi``, whole and in chunks: outputs within 1e-12 of the output's peak
 of scipy's (measured: 3e-14), final states within 1e-12 of the size of the terms they sum.
 Marginal (integrators, a double integrator, an oscillator on |z| = 1) and lightly damped filters
@@ -88,9 +94,9 @@ def run_filter(b, a, x, zi=None) -> tuple[np.ndarray, np.ndarray]:
         return bb[0] * x, state.copy()
     if x.size == 0:
         return np.empty(0, dtype), state.copy()
+    if n == 1:
+        return _first_order(bb, aa, x, state)
     y, s = _block_run(bb, aa, x, state)
-    if n == 1:  # a scalar state: the blocks carry no rounding beyond the recursion's
-        return y, s
     # one step of refinement: the residual of A(z)·y = B(z)·x + zi (zi enters at the first n
     # samples) in working precision, its response through 1/A(z) subtracted
     N = x.size
@@ -102,6 +108,105 @@ def run_filter(b, a, x, zi=None) -> tuple[np.ndarray, np.ndarray]:
     impulse[0] = 1.0
     y -= _block_run(impulse, aa, r, np.zeros(n, dtype))[0]
     return y, _final_state(bb, aa, x, y, state)
+
+
+def _first_order(b: np.ndarray, a: np.ndarray, x: np.ndarray, zi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Order one: y[k] = p·y[k−1] + v[k] with p = −a1, v[k] = b0·x[k] + b1·x[k−1] and zi added to
+    v[0] (the module doc's first-order section by scaled running sums)."""
+    v = b[0] * x
+    if b[1] != 0:
+        v[1:] += b[1] * x[:-1]
+    v[0] += zi[0]
+    y = first_order_recursion(-a[1], v)
+    return y, np.array([b[1] * x[-1] - a[1] * y[-1]])
+
+
+#: largest |ln |p||·L in a block of the first-order section: p^(±j) within e^(±300), so an input
+#: up to 1e170 neither overflows nor meets a subnormal number when scaled
+_SPAN = 300.0
+
+
+def first_order_recursion(p, v: np.ndarray) -> np.ndarray:
+    """y[k] = p·y[k−1] + v[k] from y[−1] = 0 (p real or complex, v one-dimensional).
+
+    In blocks of L samples with |ln |p||·L ≤ 300: y[mL + j] = p^j·(c_m·p + Σ_(i≤j) p^(−i)·v[mL + i]),
+    a running sum (numpy.cumsum) of the input scaled by p^(−i), scaled back by p^j; c_m, the last
+    output of the block before, follows from the blocks' own last outputs by a prefix sum by
+    doubling with the factor p^L. The rounding of the running sum at i, carried to k, is multiplied
+    by |p|^(k−i) ≤ 1 relative to y[i] (for |p| ≤ 1; for |p| > 1 the same with the roles of the
+    scalings exchanged): the recursion's own error bound, within a few units of the last place.
+    p = 1 is a plain running sum; |p| below e^(−150) a short sum of shifted terms (p^j underflows
+    within a few)."""
+    v = np.asarray(v)
+    N = v.size
+    dtype = np.result_type(v, p, np.float64)
+    if N == 0:
+        return np.empty(0, dtype)
+    if p == 0:
+        return v.astype(dtype, copy=True)
+    mag = abs(p)
+    if mag < np.exp(-_SPAN / 2):
+        y = v.astype(dtype, copy=True)
+        term = y.copy()
+        for _ in range(N):
+            term = p * term[:-1]
+            if not term.size or not np.any(term):
+                break
+            y[N - term.size :] += term
+        return y
+    if p == 1:
+        return np.cumsum(v, dtype=dtype)
+    span = abs(np.log(mag))
+    L = N if span * N <= _SPAN else max(1, int(_SPAN / span))
+    up, down = _scalings(p, L, dtype.str)
+    full, rest = divmod(N, L)
+    y = np.empty(N, dtype)
+    if full:
+        Y = y[: full * L].reshape(full, L)
+        np.multiply(v[: full * L].reshape(full, L), down, out=Y)
+        np.cumsum(Y, axis=1, out=Y)
+        Y *= up
+    if rest:
+        tail = y[full * L :]
+        np.multiply(v[full * L :], down[:rest], out=tail)
+        np.cumsum(tail, out=tail)
+        tail *= up[:rest]
+    nb = full + (rest > 0)
+    if nb > 1:
+        # each block's last output from rest, then with the carries: C_m = Y_m,end + p^L·C_(m−1)
+        c = y[L - 1 :: L][: full].copy()
+        d = 1
+        while d < c.size:
+            factor = _power(p, d * L, dtype)[()]  # p^(dL), one power (squaring would compound)
+            if factor == 0:
+                break
+            c[d:] += factor * c[:-d]
+            d *= 2
+        carry = up * p  # p^(j+1)
+        if full > 1:
+            y[L : full * L].reshape(full - 1, L)[...] += np.outer(c[: full - 1], carry)
+        if rest:
+            y[full * L :] += c[full - 1] * carry[:rest]
+    return y
+
+
+@functools.lru_cache(maxsize=16)
+def _scalings(p, L: int, dtype_str: str) -> tuple[np.ndarray, np.ndarray]:
+    """p^j and p^(−j), j = 0..L−1 (read-only), each one power formed in long double and rounded
+    once (a complex p's phase j·arg p would otherwise carry j roundings of arg p)."""
+    dtype = np.dtype(dtype_str)
+    j = np.arange(L, dtype=np.longdouble)
+    up, down = _power(p, j, dtype), _power(p, -j, dtype)
+    up.flags.writeable = False
+    down.flags.writeable = False
+    return up, down
+
+
+def _power(p, j, dtype) -> np.ndarray:
+    """p^j for exponents j (integers, any sign) in long double, as ``dtype``."""
+    if np.iscomplexobj(p) or np.dtype(dtype).kind == "c":
+        return np.exp(np.asarray(j, np.longdouble) * np.log(np.clongdouble(p))).astype(dtype)
+    return np.power(np.longdouble(p), np.asarray(j, np.longdouble)).astype(dtype)
 
 
 def _final_state(b: np.ndarray, a: np.ndarray, x: np.ndarray, y: np.ndarray, zi: np.ndarray) -> np.ndarray:

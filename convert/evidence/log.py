@@ -73,11 +73,6 @@ def _scan(a: np.ndarray, b: np.ndarray, x0: np.ndarray) -> np.ndarray:
     return A * x0[..., None] + B
 
 
-def re_start(powers: np.ndarray, n: int) -> int:
-    """Column where the last ``n − 1`` powers begin (the newest power, E^0, is the last column)."""
-    return powers.shape[1] - (n - 1)
-
-
 class AnalogReplay:
     """Exact first-order-hold propagation of an analog controller through logged samples."""
 
@@ -144,83 +139,32 @@ class AnalogReplay:
         return y + self.k * u if self.k else y
 
     def _uniform(self, h: float, u: np.ndarray, first: bool) -> np.ndarray:
-        """Even steps: each mode is the filter (I1 + (I0 − I1)·z⁻¹)/(1 − e^{ph}·z⁻¹) on the input
-        rows (:func:`convert.digital.linearfilter.run_filter`), started from the carried state."""
+        """Even steps: each mode is the first-order filter g·(I1 + (I0 − I1)·z⁻¹)/(1 − e^{ph}·z⁻¹)
+        (g its output gain) on the input rows (:func:`convert.digital.linearfilter.run_filter`),
+        started from the carried state; the output is the modes' sum."""
         if self._cache[0] is None or abs(self._cache[0] - h) > 1e-9 * h:  # steps equal to rounding share one set
             E, c0, c1 = self._coefficients(np.array([h]))
             self._cache = (h, (E[:, 0], c0[:, 0], c1[:, 0]))
         E, c0, c1 = self._cache[1]
-        if self.p.size + int((~self.is_real).sum()) <= 4 and np.all(np.abs(E) <= 1 + 1e-12) and u.size > 1:
-            return self._combined(h, E, c0, c1, u, first)
-        parts = []
+        out = None
         for i in range(self.p.size):
             g = self.weight[i] * self.r[i]  # the mode's output gain
-            if first:  # x at the first row is zero: c1·u0 + zi = 0
-                zi = -c1[i] * u[0]
-            else:
-                zi = E[i] * self.x[i] + c0[i] * self.last[1]
+            if g == 0:  # a mode the output never sees (a cancelled pole): its state stays at rest
+                continue
+            # x at the first row is zero (c1·u0 + zi = 0); later the state carried from the last row
+            zi = -c1[i] * u[0] if first else E[i] * self.x[i] + c0[i] * self.last[1]
             if self.is_real[i]:
                 ys, _ = run_filter([(g * c1[i]).real, (g * c0[i]).real], [1.0, -E[i].real], u, [(g * zi).real])
                 self.x[i] = ys[-1] / g.real
             else:
-                yc, _ = run_filter([g * c1[i], g * c0[i]], [1.0, -E[i]], u.astype(complex), [g * zi])
+                yc, _ = run_filter([g * c1[i], g * c0[i]], [1.0, -E[i]], u, [g * zi])
                 self.x[i] = yc[-1] / g
                 ys = yc.real
-            parts.append(ys)
-        return parts[0] if len(parts) == 1 else np.sum(parts, axis=0)
-
-    def _combined(self, h: float, E, c0, c1, u: np.ndarray, first: bool) -> np.ndarray:
-        """Even steps, low order: every mode summed into one filter B(z)/A(z) run by one
-        filter run (:func:`~convert.digital.linearfilter.run_filter`), its initial state built from the modal states (the free response of
-        mode i, g·z_i/(1 − E_i z⁻¹), over the common denominator); the modal states at the chunk's
-        end follow from two dot products per mode with the powers E_i^(N−1−n)."""
-        if getattr(self, "_combo_key", None) != self._cache[0] or self._combo[5][0].shape[1] < u.size - 1:
-            conj = ~self.is_real
-            Ef = np.r_[E, np.conj(E[conj])]
-            c0f, c1f = np.r_[c0, np.conj(c0[conj])], np.r_[c1, np.conj(c1[conj])]
-            gf = np.r_[self.r, np.conj(self.r[conj])]
-            others = []
-            for i in range(Ef.size):
-                poly = np.array([1.0 + 0j])
-                for j in range(Ef.size):
-                    if j != i:
-                        poly = np.convolve(poly, [1.0, -Ef[j]])
-                others.append(poly)
-            a = np.convolve(others[0], [1.0, -Ef[0]])
-            b = np.zeros(Ef.size + 1, dtype=complex)
-            for i in range(Ef.size):
-                b += gf[i] * np.convolve([c1f[i], c0f[i]], others[i])
-            k = np.arange(max(u.size, CHUNK_ROWS) - 2, -1, -1, dtype=float)  # E^(N-1-n), newest last
-            re = np.empty((E.size, k.size))
-            im = np.zeros((E.size, k.size))
-            for i in range(E.size):
-                # powers below 1e-290 are set to zero without computing them: subnormal numbers
-                # would slow every product a hundredfold
-                mag = abs(E[i])
-                reach = k.size if mag >= 1 else min(k.size, int(-290 * np.log(10) / np.log(mag)) + 1)
-                kk = k[k.size - reach :]
-                if self.is_real[i]:
-                    re[i, k.size - reach :] = np.power(E[i].real, kk)
-                else:
-                    w = np.exp(np.log(E[i]) * kk)
-                    re[i, k.size - reach :], im[i, k.size - reach :] = w.real, w.imag
-                re[i, : k.size - reach] = 0.0
-            self._combo = (b.real, a.real, gf, others, conj, (re, im))
-            self._combo_key = self._cache[0]
-        b, a, gf, others, conj, powers = self._combo
-        z = -c1 * u[0] if first else E * self.x + c0 * self.last[1]  # each mode's initial state term
-        zf = np.r_[z, np.conj(z[conj])]
-        zi = np.zeros(len(a) - 1, dtype=complex)
-        for i in range(zf.size):
-            zi += gf[i] * zf[i] * others[i]
-        y, _ = run_filter(b, a, u, zi.real)
-        x0 = c1 * u[0] + z
-        head, tail = u[:-1], u[1:]
-        re, im = powers[0][:, re_start(powers[0], u.size) :], powers[1][:, re_start(powers[1], u.size) :]
-        dot_head = re @ head + 1j * (im @ head)
-        dot_tail = re @ tail + 1j * (im @ tail)
-        self.x = E ** (u.size - 1) * x0 + c0 * dot_head + c1 * dot_tail
-        return y
+            if out is None:
+                out = ys
+            else:
+                out += ys
+        return np.zeros(u.size) if out is None else out
 
     def _uneven(self, h: np.ndarray, uu: np.ndarray, first: bool) -> np.ndarray:
         """Uneven steps: each row's own coefficients, the recursion run by an associative scan."""
