@@ -49,8 +49,9 @@ Marginal (integrators, a double integrator, an oscillator on |z| = 1) and lightl
 (scipy's error against long double up to 2e-11 of the peak): our error within 10× scipy's
 (measured worst 7.6×, the double integrator: 4e-11 of the peak).
 
-Conventions: b, a ascending in z⁻¹; x one-dimensional; real or complex (the result's dtype is
-numpy's common type of b, a, x and zi, at least float64).
+Conventions: b, a ascending in z⁻¹; x one-dimensional and finite (a NaN or infinity spreads
+over its whole block, where a recursion carries it only forward); real or complex (the result's
+dtype is numpy's common type of b, a, x and zi, at least float64).
 """
 
 from __future__ import annotations
@@ -96,7 +97,7 @@ def run_filter(b, a, x, zi=None) -> tuple[np.ndarray, np.ndarray]:
         return np.empty(0, dtype), state.copy()
     if n == 1:
         return _first_order(bb, aa, x, state)
-    y, s = _block_run(bb, aa, x, state)
+    y, _ = _block_run(bb, aa, x, state)
     # one step of refinement: the residual of A(z)·y = B(z)·x + zi (zi enters at the first n
     # samples) in working precision, its response through 1/A(z) subtracted
     N = x.size
