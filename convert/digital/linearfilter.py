@@ -234,7 +234,7 @@ def _block_run(bb: np.ndarray, aa: np.ndarray, x: np.ndarray, state: np.ndarray)
     """The block recursion (module doc) for normalized coefficients of order n ≥ 1."""
     n = aa.size - 1
     dtype = x.dtype
-    O, T, Q, K, powers = _blocks(bb.tobytes(), aa.tobytes(), dtype.str)
+    Ob, T, Q, K, powers = _blocks(bb.tobytes(), aa.tobytes(), dtype.str)
     L = BLOCK
     nb, r = divmod(x.size, L)
     y = np.empty(x.size, dtype)
@@ -246,10 +246,10 @@ def _block_run(bb: np.ndarray, aa: np.ndarray, x: np.ndarray, state: np.ndarray)
         for m in range(nb):
             S[m] = s
             s = Q @ s + W[m]
-        y[: nb * L] = (X @ T.T + S @ O.T).ravel()
+        y[: nb * L] = (X @ T.T + S @ Ob.T).ravel()
     if r:
         xr = x[nb * L :]
-        y[nb * L :] = T[:r, :r] @ xr + O[:r] @ s
+        y[nb * L :] = T[:r, :r] @ xr + Ob[:r] @ s
         s = powers[r] @ s + K[:, L - r :] @ xr
     return y, s
 
@@ -271,7 +271,7 @@ def _blocks(b_bytes: bytes, a_bytes: bytes, dtype_str: str):
     powers[0] = np.eye(n, dtype=dtype)
     for j in range(1, L + 1):
         powers[j] = A @ powers[j - 1]  # the state recursion run from each unit state
-    O = powers[:L, 0, :]  # rows C·A^j, C = e0
+    Ob = powers[:L, 0, :]  # rows C·A^j, C = e0
     G = powers[:L] @ B  # rows A^j·B, j < L
     h = np.empty(L, dtype)
     h[0] = b[0]
@@ -279,7 +279,7 @@ def _blocks(b_bytes: bytes, a_bytes: bytes, dtype_str: str):
     lag = np.arange(L)[:, None] - np.arange(L)[None, :]
     T = np.where(lag >= 0, h[np.clip(lag, 0, None)], 0)
     K = G[::-1].T  # column j: A^(L−1−j)·B
-    out = (np.ascontiguousarray(O), T, powers[L].copy(), np.ascontiguousarray(K), powers)
+    out = (np.ascontiguousarray(Ob), T, powers[L].copy(), np.ascontiguousarray(K), powers)
     for m in out:
         m.flags.writeable = False
     return out
