@@ -47,3 +47,4 @@ _.handle_starttag  # noqa: F821 - html.parser.HTMLParser callbacks (tests' HTML 
 _.handle_data  # noqa: F821
 _.handle_comment  # noqa: F821
 _._ngspice  # noqa: F821 - an autouse pytest fixture (tests/test_mna_ngspice.py)
+_.writeable  # noqa: F821 - numpy reads ndarray.flags.writeable (read-only cached arrays)

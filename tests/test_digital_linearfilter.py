@@ -118,8 +118,24 @@ def test_chunks_continue_where_the_last_one_stopped():
 
 @pytest.mark.parametrize(
     "p",
-    [0.0, 1e-200, 1e-70, 6.7e-6, 0.3, -0.5, 0.98, 0.999999, 1.0, -1.0, 1.0001, 1.01,
-     0.9 * np.exp(1j), 0.99999 * np.exp(0.3j), np.exp(0.1j), 2e-80j],
+    [
+        0.0,
+        1e-200,
+        1e-70,
+        6.7e-6,
+        0.3,
+        -0.5,
+        0.98,
+        0.999999,
+        1.0,
+        -1.0,
+        1.0001,
+        1.01,
+        0.9 * np.exp(1j),
+        0.99999 * np.exp(0.3j),
+        np.exp(0.1j),
+        2e-80j,
+    ],
 )
 def test_first_order_sections(p):
     """First-order filters (b0 + b1·z⁻¹)/(1 − p·z⁻¹) from p = 0 through a tiny pole, decaying,

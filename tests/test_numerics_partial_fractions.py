@@ -58,7 +58,9 @@ def test_against_scipy_residue():
         assert np.allclose(p[idx], p_ref, rtol=1e-12, atol=1e-12)
         scale = float(np.max(np.abs(r_ref)))
         assert np.max(np.abs(r[idx] - r_ref)) <= 1e-9 * scale
-        assert len(k) == len(k_ref) and np.allclose(k, k_ref, rtol=1e-12, atol=1e-12 * max(1.0, float(np.max(np.abs(k_ref))) if len(k_ref) else 1.0))
+        assert len(k) == len(k_ref) and np.allclose(
+            k, k_ref, rtol=1e-12, atol=1e-12 * max(1.0, float(np.max(np.abs(k_ref))) if len(k_ref) else 1.0)
+        )
         checked += 1
     assert checked >= 150
 

@@ -180,7 +180,7 @@ def first_order_recursion(p, v: np.ndarray) -> np.ndarray:
     nb = full + (rest > 0)
     if nb > 1:
         # each block's last output from rest, then with the carries: C_m = Y_m,end + p^L·C_(m−1)
-        c = y[L - 1 :: L][: full].copy()
+        c = y[L - 1 :: L][:full].copy()
         d = 1
         while d < c.size:
             factor = _power(p, d * L, dtype)[()]  # p^(dL), one power (squaring would compound)
