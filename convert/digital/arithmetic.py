@@ -23,7 +23,7 @@ from __future__ import annotations
 import numpy as np
 
 from convert.digital.fixedpoint import Realized
-from convert.digital.statewords import FixedStateModel
+from convert.digital.statewords import FixedStateModel, words_of
 
 
 def model_of(real: Realized):
@@ -101,10 +101,17 @@ class FloatModel:
             with np.errstate(over="ignore", invalid="ignore"):
                 self.state[-1] = [u] + [a[k] * u for k in range(1, m)]
 
+    def _store(self, v):
+        """A value (or an array of trials' values) stored in the format."""
+        if isinstance(v, np.ndarray):
+            return v.astype(np.float32 if self.cast is np.float32 else np.float64)
+        return self.cast(v)
+
     def load(self, states) -> None:
         """Per-section states in user values (df1: (x history, y history); df2t/delta: s list),
-        stored in the format."""
-        c = self.cast
+        stored in the format; a value may be an array (one entry per trial, for
+        :meth:`step_batch`)."""
+        c = self._store
         if self.form == "df1":
             self.state = [([c(v) for v in xh], [c(v) for v in yh]) for xh, yh in states]
         else:
@@ -172,13 +179,19 @@ class FloatModel:
     def _step(self, x) -> float:
         # the caller holds np.errstate (overflow to inf is the format's behaviour)
         if self.form == "df1":
-            return self._step_df1(x)
-        return self._step_states(x)
+            return float(self._step_df1(self.cast(x)))
+        return float(self._step_states(self.cast(x)))
 
-    def _step_states(self, x) -> float:
-        """Direct form II transposed and delta sections (module doc)."""
-        c = self.cast
-        v = c(x)
+    def step_batch(self, x: np.ndarray) -> np.ndarray:
+        """:meth:`step` vectorized over trials: ``x`` one input per trial (user units), the
+        states loaded as arrays (:meth:`load`); the same operations in the same order, each
+        rounded to the format elementwise. Returns the outputs (float64 array)."""
+        with np.errstate(over="ignore", invalid="ignore"):
+            v = self._store(np.asarray(x, dtype=float))
+            return np.asarray(self._step_df1(v) if self.form == "df1" else self._step_states(v), dtype=float)
+
+    def _step_states(self, v):
+        """Direct form II transposed and delta sections (module doc), ``v`` stored in the format."""
         for i, (b, a) in enumerate(self.coefs):
             if self.form == "df2t":
                 s = self.state[i]
@@ -197,11 +210,11 @@ class FloatModel:
                     w = t + s[k + 1] if k + 1 < m else t
                     s[k] = s[k] + self.delta * w
                 v = y
-        return float(v)
+        return v
 
-    def _step_df1(self, x) -> float:
-        """``acc = b0·x; acc += b1·x1; …; acc −= a1·y1; …`` per section, then the histories shift."""
-        v = self.cast(x)
+    def _step_df1(self, v):
+        """``acc = b0·x; acc += b1·x1; …; acc −= a1·y1; …`` per section, then the histories shift
+        (``v`` stored in the format)."""
         for (b0, b_rest, a_rest), (xh, yh) in zip(self._df1, self.state):
             acc = b0 * v
             for bk, xk in zip(b_rest, xh):
@@ -214,7 +227,7 @@ class FloatModel:
                 yh.insert(0, acc)
                 yh.pop()
             v = acc
-        return float(v)
+        return v
 
     def run(self, xs) -> np.ndarray:
         with np.errstate(over="ignore", invalid="ignore"):
@@ -243,6 +256,12 @@ class FixedModel:
 
         v = math.floor(float(x) / self.real.input_range * self.full + 0.5)
         return self.lo if v < self.lo else self.hi if v > self.hi else int(v)
+
+    def step_batch(self, x: np.ndarray) -> np.ndarray:
+        """:meth:`step` vectorized over trials (``x`` one input per trial, user units; the states
+        loaded as arrays by :meth:`load`): the same integer operations on int64 words."""
+        v = words_of(x, self.real.input_range, self.full, self.lo, self.hi)
+        return self.step_int(v).astype(float) * (self.real.node_scales[-1] / self.full)
 
     def kernel(self) -> tuple[list[str], dict, list[tuple[str, object]]]:
         """:meth:`step` as straight-line Python source (to_word, :meth:`step_int`, from_word, in
@@ -297,6 +316,8 @@ class FixedModel:
         sc = self.real.node_scales
 
         def word(v, scale):
+            if isinstance(v, np.ndarray):
+                return words_of(v, scale, self.full, self.lo, self.hi)
             w = math.floor(v / scale * self.full + 0.5)
             return self.lo if w < self.lo else self.hi if w > self.hi else int(w)
 
@@ -323,7 +344,7 @@ class FixedModel:
             for k in range(len(a)):
                 acc -= a[k] * yh[k]
             y = (acc + ((1 << (sh - 1)) if self.round_half else 0)) >> sh
-            y = lo if y < lo else hi if y > hi else y
+            y = np.clip(y, lo, hi) if isinstance(y, np.ndarray) else lo if y < lo else hi if y > hi else y
             if xh:
                 xh.insert(0, v)
                 xh.pop()

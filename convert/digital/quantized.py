@@ -47,6 +47,13 @@ from convert.controller import Controller
 from convert.digital.roots import RootForm, _pairs
 
 STALL_TO = 64
+#: the integrator-stall scan: output levels of each sign, errors a decade, decades below R, fine-grid points
+STALL_LEVELS = 16
+STALL_PER_DECADE = 100
+STALL_DECADES = 12
+STALL_FINE = 4096
+STALL_FINE_COMBOS = 8
+STALL_WINDOWS = (1.0, 0.25, 1 / 16, 1 / 64)
 LIMIT_CYCLE_TRIALS = 32
 LIMIT_CYCLE_SAMPLES = 20000
 #: the stored coefficients' response may depart from the design by this much (dB, deg) by default
@@ -85,6 +92,7 @@ class FormatAnalysis:
     stall_error: float | None = None
     stall_limit: float | None = None
     stall_unchecked: str | None = None  # why the stall figure was not decided (no output level)
+    stall_at: str | None = None  # the output level and direction of the stall_error figure
     dead_band: float | None = None  # largest fixed-point dead band, fraction of its node's full scale
     response_limits: tuple[float, float] = RESPONSE_LIMITS
     input_range: float | None = None
@@ -190,7 +198,10 @@ class FormatAnalysis:
                     status="fail" if "stall" in fails else "pass",
                     note=next(
                         (f for f in self.failures if "stall" in f),
-                        f"smallest error that moves the integral at output level {self.output_level:.4g}",
+                        f"largest error that still stalls the integral, output levels up to {self.output_level:.4g} "
+                        f"of either sign, toward and away from zero ({self.stall_at})"
+                        if getattr(self, "stall_at", None)
+                        else f"smallest error that moves the integral at output level {self.output_level:.4g}",
                     ),
                 )
             )
@@ -403,7 +414,7 @@ def analyze(
                 f"(rounding sustains it); use structure {'delta' if real.structure == 'sections' else 'sections'}"
             )
 
-    stall = stall_unchecked = None
+    stall = stall_unchecked = stall_at = None
     if designed_ones and not output_level and word.name != "float64":
         stall_unchecked = (
             f"not decided: {word.name} holds the integral at the output's level, and no output level was given "
@@ -412,8 +423,8 @@ def analyze(
     elif designed_ones and unstable:
         notes.append("integrator stall not measured: the stored realization is unstable (see above)")
     elif designed_ones:
-        stall = _stall(real, layout, roots, r, u)
-        failures += stall_failure(stall, u, res)
+        stall, stall_at = _stall(real, layout, roots, r, u)
+        failures += stall_failure(stall, u, res, stall_at)
     return FormatAnalysis(
         **base,
         realized=real,
@@ -432,6 +443,7 @@ def analyze(
         limit_cycle=lc,
         limit_cycle_lsb=lc_lsb,
         stall_error=stall,
+        stall_at=stall_at,
         stall_unchecked=stall_unchecked,
         dead_band=dead,
         failures=tuple(failures),
@@ -615,41 +627,102 @@ def zero_input_words(a, shift: int, half: int, y: np.ndarray, n: int, tail: int,
     return outs
 
 
-def _stall(real: Realized, layout, roots, r: float, u: float) -> float | None:
-    """Smallest constant error (from R down by halves, then bisection) above which every error
-    tried moves the output, started on the exact solution for that error that passes level U (see
-    :func:`ramp_state`), moves over STALL_TO samples by at least half of the exact
-    R_1·e·STALL_TO (R_1 the integrator's residue: the output's rise per sample per unit error).
-    Starting on the exact solution leaves no transient, so the figure does not depend on the
-    window. None if even R does not move it."""
+def _stall(real: Realized, layout, roots, r: float, u: float) -> tuple[float | None, str]:
+    """(the largest constant error that still stalls the integral, where it does): an error e
+    stalls when, started on the exact solution for it that passes an output level L (see
+    :func:`ramp_state`: no transient, so the figure does not depend on the window), the output
+    moves over STALL_TO samples by less than half of the exact R_1·e·STALL_TO (R_1 the
+    integrator's residue: the output's rise per sample per unit error), after the drift the
+    stored realization shows from L with zero input.
+
+    Rounding each product separately (direct form II transposed, delta) makes "moves" not
+    monotonic in e: an error can stall while a smaller one moves. So every error of a grid is
+    tried (:data:`STALL_PER_DECADE` a decade over :data:`STALL_DECADES` decades below R,
+    vectorized), from :data:`STALL_LEVELS` output levels of each sign in [U/2, U] (the level's
+    low bits and the word's rounding change the outcome), moving toward zero and away from it
+    (only where the exact output stays within ±U over twice the window), then (with the
+    :data:`STALL_FINE_COMBOS` level and direction combinations that stall at the largest errors
+    of that scan) windows above the
+    largest stalling error so far (up to twice it, then a quarter as wide each time,
+    :data:`STALL_WINDOWS`) on jittered fine grids of :data:`STALL_FINE` errors.
+    Returns (None, where) if R itself stalls; when nothing on the grid stalls, the smallest error
+    tried (a bound below which the scan did not look)."""
     slope = _residue_at_one(roots)
     if slope == 0 or not math.isfinite(slope):
-        return None
-    sign = -1.0 if slope * u > 0 else 1.0  # move from the level toward zero
+        return None, ""
+    rng = np.random.default_rng(63)
+    mags = np.concatenate([[1.0, 1 - 2.0**-10], rng.uniform(0.5, 1.0, STALL_LEVELS - 2)]) * abs(u)
+    levels = np.concatenate([mags, -mags])
     m = real.model()
-    ramp_state(m, real, layout, 0.0, u, slope)
-    held = m.run(np.zeros(STALL_TO + 1))
-    drift = held[STALL_TO] - held[0]  # a stored integrator that leaks or grows moves on its own
 
-    def moves(e: float) -> bool:
-        ramp_state(m, real, layout, sign * e, u, slope)
-        y = m.run(np.full(STALL_TO + 1, sign * e))
-        got = y[STALL_TO] - y[0] - drift
-        want = sign * e * slope * STALL_TO
-        return got / want >= 0.5
+    def run(x: np.ndarray, lv: np.ndarray) -> np.ndarray:
+        ramp_state(m, real, layout, x, lv, slope)
+        y0 = m.step_batch(x)
+        y = y0
+        for _ in range(STALL_TO):
+            y = m.step_batch(x)
+        return y - y0
 
-    return smallest_moving(moves, r)
+    drift = run(np.zeros(levels.size), levels)  # a stored integrator that leaks or grows moves on its own
+
+    every = [(li, di) for li in range(levels.size) for di in (0, 1)]
+
+    def stalling(e: np.ndarray, combos) -> np.ndarray:
+        """[error, combo]: whether that error stalls from that (level index, direction: 0
+        toward zero, 1 away) combo."""
+        li = np.array([c[0] for c in combos])[None, :]
+        di = np.array([2.0 * c[1] - 1.0 for c in combos])[None, :]
+        lv = levels[li]
+        x = di * np.sign(slope * lv) * e[:, None]
+        want = x * slope * STALL_TO
+        ok = np.abs(lv + 2 * want) <= abs(u) * (1 + 1e-12)
+        got = run(x.ravel(), np.broadcast_to(lv, x.shape).ravel()).reshape(x.shape) - drift[li]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return ok & ~(got / want >= 0.5)
+
+    grid = r * 10.0 ** -np.linspace(0.0, STALL_DECADES, STALL_DECADES * STALL_PER_DECADE + 1)[::-1]
+    st = stalling(grid, every)
+    hit = np.flatnonzero(st.any(axis=1))
+    if hit.size == 0:
+        return float(grid[0]), "no error on the grid stalls it"
+    best, flags, combos = float(grid[hit[-1]]), st[hit[-1]], every
+    if hit[-1] == grid.size - 1:
+        return None, _stall_where(levels, combos, flags)
+    # the fine search tries the combos that stall at the largest errors of the coarse scan
+    reach = np.where(st, grid[:, None], 0.0).max(axis=0)
+    combos = [every[i] for i in np.argsort(-reach, kind="stable")[:STALL_FINE_COMBOS]]
+    flags = st[hit[-1]][[every.index(c) for c in combos]]
+    # near the top of the stalling range the stalling errors thin out to narrow intervals (a
+    # rounding pattern repeating with the ulp of the level over the coefficient): windows above
+    # the largest stalling error so far, each a quarter as wide, on jittered fine grids
+    for width in STALL_WINDOWS:
+        top = min(best * (1 + width), r)
+        cells = np.linspace(best, top, STALL_FINE + 1)
+        fine = cells[:-1] + (cells[1] - cells[0]) * rng.uniform(0.0, 1.0, STALL_FINE)
+        st = stalling(fine, combos)
+        hit = np.flatnonzero(st.any(axis=1))
+        if hit.size:
+            best, flags = float(fine[hit[-1]]), st[hit[-1]]
+    return best, _stall_where(levels, combos, flags)
 
 
-def stall_failure(stall: float | None, u: float, res: float) -> list[str]:
-    """The integrator-stall failure (one line) when ``stall`` (None: nothing up to the input range
-    moves it) exceeds the resolution ``res``, at output level ``u``; else nothing."""
+def _stall_where(levels: np.ndarray, combos, flags: np.ndarray) -> str:
+    """The first stalling trial's output level and direction, as text (``flags`` per combo)."""
+    li, di = combos[int(np.flatnonzero(flags)[0])]
+    return f"from output level {levels[li]:.4g} moving {'toward' if di == 0 else 'away from'} zero"
+
+
+def stall_failure(stall: float | None, u: float, res: float, where: str = "") -> list[str]:
+    """The integrator-stall failure (one line) when ``stall`` (the largest error that still
+    stalls the integral; None: even the input range does) exceeds the resolution ``res``, output
+    level ``u`` (``where``: the stalling trial's level and direction, when known); else nothing."""
     if stall is not None and stall <= res:
         return []
-    shown = "no error up to the input range" if stall is None else f"{stall:.4g}"
+    shown = "every error up to the input range" if stall is None else f"errors up to {stall:.4g}"
+    at = f" ({where})" if where else ""
     return [
-        f"integrator stall: at output level {u:.4g} the smallest error that still moves the "
-        f"integral is {shown} (input units), above the resolution {res:.4g}"
+        f"integrator stall: with output levels up to {u:.4g} the integral stalls for {shown} "
+        f"(input units){at}, above the resolution {res:.4g}"
     ]
 
 

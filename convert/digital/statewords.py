@@ -291,6 +291,13 @@ def _effective(form: str, bq, es, aq, pq, frac: int, delta: float | None):
 
 
 # ----------------------------------------------------------------------------- the model
+def words_of(x, scale: float, full: int, lo: int, hi: int) -> np.ndarray:
+    """Values (user units, an array) as saturated words of a node with full scale ``scale``:
+    floor(x / scale · 2^(W−1) + 0.5), the models' scalar rounding elementwise."""
+    v = np.floor(np.asarray(x, dtype=float) / scale * full + 0.5)
+    return np.clip(v, lo, hi).astype(np.int64)
+
+
 def step_section(sec, x, s: list, clip):
     """One sample of one section on words (Python ints or int64 arrays, vectorized over trials):
     updates the state list ``s`` in place and returns the output word. ``sec`` is
@@ -337,6 +344,8 @@ class FixedStateModel:
         self.state = [[0] * len(sec[3]) for sec in self.secs]
 
     def _word(self, v: float, scale: float) -> int:
+        if isinstance(v, np.ndarray):  # one value per trial (step_batch)
+            return words_of(v, scale, self.full, self.lo, self.hi)
         return self._clip(math.floor(float(v) / scale * self.full + 0.5))
 
     def to_word(self, x: float) -> int:
@@ -367,6 +376,15 @@ class FixedStateModel:
 
     def step(self, x: float) -> float:
         return self.from_word(self.step_int(self.to_word(x)))
+
+    def step_batch(self, x: np.ndarray) -> np.ndarray:
+        """:meth:`step` vectorized over trials (``x`` one input per trial, user units; the states
+        loaded as arrays by :meth:`load`): :func:`step_section` on int64 words."""
+        v = self._word(np.asarray(x, dtype=float), self.real.input_range)
+        lo, hi = self.lo, self.hi
+        for sec, st in zip(self.secs, self.state):
+            v = step_section(sec, v, st, lambda w: np.clip(w, lo, hi))
+        return v.astype(float) * (self.real.node_scales[-1] / self.full)
 
     def run_int(self, words) -> np.ndarray:
         step = self.step_int
