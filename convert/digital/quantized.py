@@ -22,11 +22,13 @@ For one structure × word format (:func:`analyze`):
   with |(1 + Σa)·y| ≤ ½ LSB after rounding (y = round(y − (1 + Σa)·y)): it cannot settle closer
   than that to its true value. Fails above 1 % of the node's full scale (a few LSB are usual;
   a percent is an offset the plant sees);
-* integrator stall — for a controller with a pole at z = 1: the smallest constant error that
-  still moves the output by at least half of what the exact controller does, started on the
-  exact solution for that error as it passes the output level U (so no transient), over 64
-  samples, in controller input units. It fails when larger than the stated input resolution
-  (default: R / 2^15). Float32 and fixed point need the output level (the integral's value sets
+* integrator stall — for a controller with a pole at z = 1: the largest constant error that
+  still stalls the output (moves it by less than half of what the exact controller does over 64
+  samples, started on the exact solution for that error as it passes an output level, so no
+  transient), over output levels of both signs between U/2 and U, moving toward zero and away
+  from it, in controller input units (a scan, see :func:`_stall`: with separately rounded
+  products "moves" is not monotonic in the error). It fails when larger than the stated input
+  resolution (default: R / 2^15). Float32 and fixed point need the output level (the integral's value sets
   the figure): without one the check is left undecided, never passed on an assumed level.
 """
 
@@ -718,11 +720,11 @@ def stall_failure(stall: float | None, u: float, res: float, where: str = "") ->
     level ``u`` (``where``: the stalling trial's level and direction, when known); else nothing."""
     if stall is not None and stall <= res:
         return []
-    shown = "every error up to the input range" if stall is None else f"errors up to {stall:.4g}"
+    shown = "every error up to the input range" if stall is None else f"errors up to {stall:.4g} input units"
     at = f" ({where})" if where else ""
     return [
-        f"integrator stall: with output levels up to {u:.4g} the integral stalls for {shown} "
-        f"(input units){at}, above the resolution {res:.4g}"
+        f"integrator stall: with output levels up to {u:.4g} the integral stalls for {shown}{at}, "
+        f"above the resolution {res:.4g}"
     ]
 
 
