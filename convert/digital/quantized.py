@@ -654,6 +654,7 @@ def _stall(real: Realized, layout, roots, r: float, u: float) -> tuple[float | N
         return None, ""
     rng = np.random.default_rng(63)
     mags = np.concatenate([[1.0, 1 - 2.0**-10], rng.uniform(0.5, 1.0, STALL_LEVELS - 2)]) * abs(u)
+    mags = np.array([_six_digits(v, abs(u)) for v in mags])  # so the level the figure names is the one tried
     levels = np.concatenate([mags, -mags])
     m = real.model()
 
@@ -708,10 +709,17 @@ def _stall(real: Realized, layout, roots, r: float, u: float) -> tuple[float | N
     return best, _stall_where(levels, combos, flags)
 
 
+def _six_digits(v: float, top: float) -> float:
+    """``v`` > 0 to six significant digits, not above ``top``."""
+    step = 10.0 ** (math.floor(math.log10(v)) - 5)
+    out = round(v / step) * step
+    return float(f"{out - step if out > top else out:.6g}")
+
+
 def _stall_where(levels: np.ndarray, combos, flags: np.ndarray) -> str:
     """The first stalling trial's output level and direction, as text (``flags`` per combo)."""
     li, di = combos[int(np.flatnonzero(flags)[0])]
-    return f"from output level {levels[li]:.4g} moving {'toward' if di == 0 else 'away from'} zero"
+    return f"from output level {levels[li]:.6g} moving {'toward' if di == 0 else 'away from'} zero"
 
 
 def stall_failure(stall: float | None, u: float, res: float, where: str = "") -> list[str]:
