@@ -235,3 +235,51 @@ def test_float32_direct2t_figure_reaches_the_hand_derived_ceiling_whatever_the_g
         real.roots, "direct2t", "float32", BAND, b=real.b, a=real.a, output_level=100, input_range=r, input_resolution=0.01
     )
     assert ceiling * 0.995 <= x.stall_error <= ceiling * 1.001
+
+
+CASE = """# our own scenario: a slow PI moved into float32 firmware at 1 kHz, direct form II transposed
+[source]
+expression = "1.5*(1+1/(10*s))"
+[target.digital]
+fs = "1 kHz"
+methods = ["tustin"]
+word_format = "float32"
+structure = "direct2t"
+output_limits = [-100, 100]
+input_resolution = {res}
+[plant]
+model = "2/((5s+1)(1s+1))"
+[criteria]
+band = ["1 mHz", "5 Hz"]
+"""
+
+
+@pytest.mark.parametrize("res, verdict", [(0.01, "fail"), (0.03, "fail"), (0.06, "pass")])
+def test_case_verdict_follows_the_largest_stalling_error(tmp_path, res, verdict):
+    """The case verdict: the float32 direct form II transposed PI stalls up to about
+    ulp(100)/R_1 = 0.0509 (hand derivation above; the compiled C stalls at 0.0501), so a
+    resolution of 0.01 or 0.03 fails on the stall (0.01 passed before: the smallest moving error
+    0.0097 was the figure) and 0.06 passes it."""
+    from convert.case import load_case
+    from convert.compare.evaluate import evaluate_case
+
+    (tmp_path / "c.toml").write_text(CASE.format(res=res))
+    result = evaluate_case(load_case(tmp_path / "c.toml"))
+    (st,) = [j for j in result.verdict.judgements if j.criterion == "firmware_stall"]
+    assert st.status == verdict
+    assert st.value == pytest.approx(0.0509, rel=0.005)
+    if verdict == "fail":
+        assert result.verdict.overall == "fail"
+
+
+def test_code_refuses_the_stalling_structure_and_writes_nothing(run_cli, tmp_path):
+    """``loopshift code --structure direct2t`` with a resolution of 0.01 (the reviewer's command,
+    our scenario): the structure fails its stall check, no file is written, exit code 1."""
+    out = tmp_path / "fw"
+    r = run_cli(
+        "code", PI, "--fs", "1kHz", "--format", "float", "--output-limits", "-100", "100",
+        "--input-resolution", "0.01", "--structure", "direct2t", "--name", "pi2t", "--out", str(out),
+    )  # fmt: skip
+    assert r.code == 1
+    assert "direct2t  FAILS" in r.out and "stalls for errors up to 0.05" in r.out
+    assert not out.exists() or not any(out.iterdir())
