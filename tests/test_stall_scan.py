@@ -213,7 +213,9 @@ def test_q31_direct2t_stall_figure_covers_both_directions(tmp_path):
     assert x.stall_error >= c_best * (1 - 2e-3), (x.stall_error, c_best)
 
 
-@pytest.mark.parametrize("per_decade, fine, r", [(50, 2048, 66.66), (100, 4096, 66.66), (200, 8192, 50.0), (100, 4096, 5.0)])
+@pytest.mark.parametrize(
+    "per_decade, fine, r", [(50, 2048, 66.66), (100, 4096, 66.66), (200, 8192, 50.0), (100, 4096, 5.0)]
+)
 def test_float32_direct2t_figure_reaches_the_hand_derived_ceiling_whatever_the_grid(monkeypatch, per_decade, fine, r):
     """Hand derivation (IEEE 754 round to nearest; common practice): for the PI in direct form
     II transposed, with a = [1, −1] and the state on the grid of the level's binade (ulp u),
@@ -232,7 +234,15 @@ def test_float32_direct2t_figure_reaches_the_hand_derived_ceiling_whatever_the_g
     b0, b1 = (float(v) for v in stored.sections[0].b)
     ceiling = 2.0**-17 / (np.float32(b0) + np.float32(b1))
     x = analyze(
-        real.roots, "direct2t", "float32", BAND, b=real.b, a=real.a, output_level=100, input_range=r, input_resolution=0.01
+        real.roots,
+        "direct2t",
+        "float32",
+        BAND,
+        b=real.b,
+        a=real.a,
+        output_level=100,
+        input_range=r,
+        input_resolution=0.01,
     )
     assert ceiling * 0.995 <= x.stall_error <= ceiling * 1.001
 
