@@ -245,7 +245,13 @@ def _print_summary(console, result, escape) -> None:
     widths, head, cells = fit_columns(header, rows, console.width)  # never breaks a word
     for text, w, justify in zip(head, widths, ("left", "left", "left", "right")):
         table.add_column(styled(escape(text)), width=w, no_wrap=True, justify=justify)
-    styles = {"pass": "green", "unchecked": "bold yellow", "fail": "bold red", "unreadable": "bold red", "error": "bold red"}
+    styles = {
+        "pass": "green",
+        "unchecked": "bold yellow",
+        "fail": "bold red",
+        "unreadable": "bold red",
+        "error": "bold red",
+    }
     for o, row in zip(result.outcomes, cells):
         verdict = f"[{styles[o.status]}]{row[1]}[/{styles[o.status]}]"
         table.add_row(styled(escape(row[0])), styled(verdict), styled(escape(row[2])), row[3])

@@ -914,12 +914,17 @@ def _code_files(case, firmware, name: str, method: str, scaled=None) -> dict:
     limits = tgt.output_limits or case.signals.output_range
     realized = firmware.realized
     source = case.title or "case source"
+    scaled_from = None
     if scaled is not None:
+        scaled_from = {"limits": scaled["given_output_limits"]}
         realized, limits = scaled["analysis"].realized, scaled["output_limits"]
         source = f"{source}; in firmware units: {scaled['text']}; {scaled['gains']}"
     files = {}
     for lang in tgt.code_languages:
-        for fname, text in emit(realized, tgt.code_name, lang, source=source, method=method, limits=limits).items():
+        texts = emit(
+            realized, tgt.code_name, lang, source=source, method=method, limits=limits, scaled_from=scaled_from
+        )
+        for fname, text in texts.items():
             files[f"{folder}/{fname}"] = text
     return files
 
@@ -937,11 +942,7 @@ def _signal_scaling(case, analog, real, band, firmware, limits):
         return None
     sc = sg.scaling(tgt.input_signal, tgt.output_signal)
     k_in, k_out = abs(sg.slope(tgt.input_signal)), abs(sg.slope(tgt.output_signal))
-    lim_fw = None
-    if limits:
-        # the limits are deviations from the operating point (as the controller's output): slope only
-        ends = sorted(v * sg.slope(tgt.output_signal) + 0.0 for v in limits)  # + 0.0: no -0
-        lim_fw = (ends[0], ends[1])
+    lim_fw = sg.deviations_in_firmware(limits, tgt.output_signal) if limits else None
     try:
         fw = analyze(
             replace(real.roots, gain=real.roots.gain * sc.gain),
@@ -1000,6 +1001,7 @@ def _signal_scaling(case, analog, real, band, firmware, limits):
         "gains": gains,
         "input_range": firmware.input_range * k_in,
         "output_limits": lim_fw,
+        "given_output_limits": tuple(limits) if limits else None,  # as given, in the card's units
         "ok": fw.ok,
         "failures": list(fw.failures) + ([fw.refused] if fw.refused else []),
         "analysis": fw,
