@@ -115,3 +115,20 @@ int main(int argc, char **argv)
     out = subprocess.run([str(exe), repr(sign * 1.5 * stall)], capture_output=True, text=True, check=True).stdout
     y1, y = map(float, out.split())
     assert sign * (y - y1) > 0, (stall, y1, y)
+
+
+def test_limits_in_other_units_than_the_controller_are_warned(run_cli, tmp_path):
+    """A 4-20 mA output on 0..4095 counts: the controller works in amperes (SI), so limits typed
+    as "4 20" (meant as mA) are 4 .. 20 A, by hand 4 * 4095/0.016 = 1.02375e6 .. 5.11875e6 counts,
+    1250 times the signal's whole range: a clamp that never acts, and said so, as a case file
+    does; limits of -8 .. 8 mA (deviations, in A) are -2047.5 .. 2047.5 counts and pass quietly."""
+    argv = ["code", "0.8*(1+1/(45*s))", "--fs", "5Hz", "--format", "float"]
+    maps = ["--input-scale", "4mA", "20mA", "0", "1000", "--output-scale", "4mA", "20mA", "0", "4095"]
+    r = run_cli(*argv, *maps, "--output-limits", "4", "20", "--json")
+    data = json.loads(r.out)
+    assert data["output_limits"] == pytest.approx([1.02375e6, 5.11875e6])
+    assert len(data["warnings"]) == 1 and "a clamp that never acts" in data["warnings"][0]
+    r = run_cli(*argv, *maps, "--output-limits", "4", "20", "--name", "x", "--out", str(tmp_path))
+    assert "warning: the output limits become 1.024e+06 .. 5.119e+06 in firmware units" in r.out
+    data = json.loads(run_cli(*argv, *maps, "--output-limits", "-0.008", "0.008", "--json").out)
+    assert data["output_limits"] == pytest.approx([-2047.5, 2047.5]) and data["warnings"] == []

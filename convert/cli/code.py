@@ -241,12 +241,17 @@ def run(args, console) -> int:
         # --output-limits, --input-range and --input-resolution are in the controller's own units
         # (as given, e.g. volts): the firmware works in firmware units, so they move with the maps
         # (slopes only, as in a case file: convert.digital.scaling.deviations_in_firmware)
-        from convert.digital.scaling import deviations_in_firmware, scale_controller, slope
+        from convert.digital.scaling import deviations_in_firmware, scale_controller, slope, wide_limits_problem
 
         controller = scale_controller(controller, sc)
         source = f"{source} (scaled to firmware units: gain x {sc.gain:.6g})"
         scaled_from = {"limits": lim}
         lim = deviations_in_firmware(lim, sc.output_map)
+        problem = wide_limits_problem(lim, sc.output_map)
+        scaled_from["warnings"] = [f"{problem} (the units of --output-scale's signal, SI: V or A)"] if problem else []
+        for text in scaled_from["warnings"]:
+            if not args.json:
+                console.print(f"warning: {text}", markup=False, style="bold yellow")
         rng = deviations_in_firmware(rng, sc.input_map)
         if resolution is not None:
             resolution *= abs(slope(sc.input_map))
@@ -322,6 +327,7 @@ def run(args, console) -> int:
                 "scale_gain": sc.gain if sc else None,
                 "output_limits": list(lim) if lim else None,
                 "output_limits_given": list(scaled_from["limits"]) if scaled_from and scaled_from["limits"] else None,
+                "warnings": scaled_from["warnings"] if scaled_from else [],
                 "realized": _coefficients(pick) if pick and pick.realized else None,
                 "analysis": [x.summary() for x in every],
             },

@@ -477,20 +477,12 @@ CODE_NOT_WEIGHTED = (
 
 def _wide_limits_warning(case, scaled) -> list[str]:
     """A warning when output limits, mapped to firmware units, span more than the output signal's
-    whole firmware range: a clamp that never acts (limits given in other units than the card's?)."""
+    whole firmware range (:func:`convert.digital.scaling.wide_limits_problem`)."""
     out_map = case.digital.output_signal if case.digital else None
     if not scaled or not scaled.get("output_limits") or out_map is None:
         return []
-    lo, hi = scaled["output_limits"]
-    span = abs(out_map.firmware_high - out_map.firmware_low)
-    if hi - lo <= span * (1 + 1e-9):
-        return []
-    return [
-        f"the output limits become {lo:.4g} .. {hi:.4g} in firmware units, {(hi - lo) / span:.3g} times the output "
-        f"signal's whole range ({min(out_map.firmware_low, out_map.firmware_high):.4g} .. "
-        f"{max(out_map.firmware_low, out_map.firmware_high):.4g}): a clamp that never acts. output_limits are "
-        "deviations of the card's output from its operating point, in the card's units (V or mA)"
-    ]
+    problem = sg.wide_limits_problem(scaled["output_limits"], out_map)
+    return [problem + " (V or mA)"] if problem else []
 
 
 def _clamp_beyond_the_model(diodes, limits, step, disturbance) -> dict[str, str]:

@@ -244,6 +244,24 @@ def deviations_in_firmware(pair, m: SignalMap | None) -> tuple[float, float] | N
     return (lo, hi)
 
 
+def wide_limits_problem(limits_fw, m: SignalMap | None) -> str | None:
+    """Why output limits in firmware units ``limits_fw`` look given in other units: they span
+    more than the output signal's whole firmware range, so the clamp never acts (None when they
+    do not, or without limits or a map)."""
+    if not limits_fw or m is None:
+        return None
+    lo, hi = limits_fw
+    span = abs(m.firmware_high - m.firmware_low)
+    if hi - lo <= span * (1 + 1e-9):
+        return None
+    return (
+        f"the output limits become {lo:.4g} .. {hi:.4g} in firmware units, {(hi - lo) / span:.3g} times the output "
+        f"signal's whole range ({min(m.firmware_low, m.firmware_high):.4g} .. "
+        f"{max(m.firmware_low, m.firmware_high):.4g}): a clamp that never acts. output limits are "
+        "deviations of the card's output from its operating point, in the card's units"
+    )
+
+
 def action(sign: float) -> str:
     """A controller acting on the error e = setpoint − measurement with a positive gain is
     reverse acting (output falls as the measurement rises); negative: direct acting."""
