@@ -59,12 +59,23 @@ KEYS: dict[str, tuple[str, ...]] = {
 class GivenForm:
     """A form that exists. ``name`` labels it in the report; ``form`` is one of
     :data:`GIVEN_FORMS`; ``data`` holds the parsed fields (SI units: Hz, seconds, ohms, farads;
-    ``b``/``a`` ascending in z^-1 with ``a[0] = 1``); ``where`` is where it was written."""
+    ``b``/``a`` ascending in z^-1 with ``a[0] = 1``); ``where`` is where it was written;
+    ``key_where`` maps a key of a case file's table to its own ``file:line`` (empty elsewhere)."""
 
     name: str
     form: str
     data: dict = field(default_factory=dict)
     where: str = ""
+    key_where: dict = field(default_factory=dict, compare=False)
+
+    def located(self, key: str) -> dict:
+        """``where=`` and ``key=`` for an error about the field ``key`` (e.g. "fs", "word_format"):
+        in a case file its own line and dotted key; in a command-line spec the spec's label and
+        the word its user typed (``word=``, ``tol=``, ``fs=``), never a case-file key."""
+        if self.key_where:
+            return {"where": self.key_where.get(key, self.where), "key": f"target.given.{self.name}.{key}"}
+        words = {v: k for k, v in _SPEC_WORDS.items()}
+        return {"where": self.where, "key": words.get(key, key)}
 
     def delay_for(self) -> float:
         """Computation delay in seconds (a delay in samples resolved with the form's fs)."""
@@ -93,7 +104,8 @@ def read_given(ctx, table: dict, dotted: str, name: str, base_dir: Path) -> Give
     ctx.check_keys(table, dict.fromkeys(KEYS[form], 1), dotted)
     where = ctx.where(dotted)
     reader = {"analog": _read_analog, "digital": _read_digital, "pid": _read_pid, "circuit": _read_circuit}[form]
-    return GivenForm(name=name, form=form, data=reader(ctx, table, dotted, base_dir), where=where)
+    key_where = {k: ctx.where(f"{dotted}.{k}") for k in table}
+    return GivenForm(name=name, form=form, data=reader(ctx, table, dotted, base_dir), where=where, key_where=key_where)
 
 
 def _numbers(ctx, raw, dotted: str, what: str) -> list[float]:
@@ -561,7 +573,9 @@ def read_spec(text: str, label: str, *, fs_hz: float | None = None, base_dir: Pa
     table = {_SPEC_WORDS.get(k, k): v for k, v in table.items()}
     ctx = command_line_context(label)
     try:
-        return read_given(ctx, table, "spec", label, base)
+        from dataclasses import replace
+
+        return replace(read_given(ctx, table, "spec", label, base), key_where={})  # errors name the spec's words
     except InputError as exc:
         raise InputError(exc.message, where=label, key=_spec_key(exc.key)) from None
 

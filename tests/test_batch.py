@@ -61,7 +61,7 @@ def test_batch_gives_each_case_the_verdict_its_own_report_gives(case_dir, tmp_pa
     assert "column 5" in by_name["broken"]["message"]  # the case's own one-line error, not a traceback
     assert "max phase error" in by_name["slow_firmware_fails"]["message"]
     assert by_name["slow_firmware_fails"]["worst_ratio"] > 1 > by_name["pi_card_to_firmware"]["worst_ratio"]
-    assert data["counts"] == {"pass": 1, "fail": 1, "unreadable": 1, "error": 0}
+    assert data["counts"] == {"pass": 1, "fail": 1, "unchecked": 0, "unreadable": 1, "error": 0}
     assert "UNREADABLE" in result.out and "FAIL" in result.out and "PASS" in result.out
 
     # index.html links every written report, and each link resolves to a file
@@ -154,3 +154,37 @@ def test_empty_folder_is_refused(tmp_path, run_cli):
     (tmp_path / "empty").mkdir()
     r = run_cli("batch", str(tmp_path / "empty"), "--out", str(tmp_path / "out"))
     assert r.code == 2 and "no case file" in r.err
+
+
+def test_unchecked_case_is_unchecked_not_fail(case_dir, tmp_path, run_cli):
+    """A case that sets a loop criterion and has no plant: `loopshift report` on it alone says
+    UNCHECKED (exit 1); the batch gives it the status "unchecked" (not "fail"), counts it apart
+    from the failures, and carries the report's reason. Reference: the single report's verdict
+    and its results.json, run on the same file."""
+    (case_dir / "broken.toml").unlink()
+    (case_dir / "no_plant.toml").write_text(
+        '[source]\nexpression = "1.2*(1 + 1/(15*s))"\n[target.digital]\nfs = "20 Hz"\n'
+        '[criteria]\nband = ["1 mHz", "0.5 Hz"]\nmax_gain_error_db = 1.0\nmax_phase_margin_change_deg = 3\n'
+    )
+    alone = run_cli("report", str(case_dir / "no_plant.toml"), "--out", str(tmp_path / "alone"))
+    single = json.loads((tmp_path / "alone" / "results.json").read_text())
+    assert alone.code == 1 and single["verdict"] == "unchecked"
+
+    out = tmp_path / "batch"
+    result = run_cli("batch", str(case_dir), "--out", str(out), "--workers", "1")
+    assert result.code == 1, result.err
+    data = json.loads((out / "batch.json").read_text())
+    by_name = {c["name"]: c for c in data["cases"]}
+    assert by_name["no_plant"]["status"] == "unchecked"
+    assert by_name["no_plant"]["exit_code"] == 1
+    assert by_name["slow_firmware_fails"]["status"] == "fail"
+    assert data["counts"] == {"pass": 1, "fail": 1, "unchecked": 1, "unreadable": 0, "error": 0}
+    assert single["unchecked_reason"] and " ".join(single["unchecked_reason"].split()) in by_name["no_plant"]["message"]
+    row = next(line for line in result.out.splitlines() if line.startswith("no_plant"))
+    assert "UNCHECKED" in row and "FAIL" not in row
+    assert "1 unchecked" in result.out
+    assert '<tr class="unchecked">' in (out / "index.html").read_text()
+
+    # an unchecked case alone (no failure, no unreadable case) still exits 1: never a pass
+    (case_dir / FAILING).unlink()
+    assert run_cli("batch", str(case_dir), "--out", str(tmp_path / "b"), "--workers", "1").code == 1

@@ -1,6 +1,7 @@
 """``loopshift batch CASES...``: run many case files as one job, in parallel.
 
-Exit codes: the worst case's: 0 every case passes, 1 a case fails, 2 a case (or an option)
+Exit codes: the worst case's: 0 every case passes, 1 a case fails or is unchecked (a criterion
+it sets could not be checked), 2 a case (or an option)
 could not be read, 3 an internal error in a case.
 """
 
@@ -21,8 +22,9 @@ examples:
 Each case gets its own report folder under --out (named after the case file), written as
 `loopshift report` writes it; index.html and batch.json in --out list every case with its
 verdict, the criterion closest to its limit, the reason of a failure and the time taken. A case
-that cannot be read or that fails never stops the others. Exit code: 0 all pass, 1 any fails,
-2 any could not be read, 3 an internal error in any case.
+that cannot be read or that fails never stops the others. Verdicts: PASS, FAIL, UNCHECKED (a
+criterion the case sets could not be checked: never a pass), UNREADABLE, ERROR. Exit code: 0 all
+pass, 1 any fails or is unchecked, 2 any could not be read, 3 an internal error in any case.
 
 The tool computes; it does not certify. Verify on a bench or in simulation before a live swap."""
 
@@ -243,7 +245,13 @@ def _print_summary(console, result, escape) -> None:
     widths, head, cells = fit_columns(header, rows, console.width)  # never breaks a word
     for text, w, justify in zip(head, widths, ("left", "left", "left", "right")):
         table.add_column(styled(escape(text)), width=w, no_wrap=True, justify=justify)
-    styles = {"pass": "green", "fail": "bold red", "unreadable": "bold red", "error": "bold red"}
+    styles = {
+        "pass": "green",
+        "unchecked": "bold yellow",
+        "fail": "bold red",
+        "unreadable": "bold red",
+        "error": "bold red",
+    }
     for o, row in zip(result.outcomes, cells):
         verdict = f"[{styles[o.status]}]{row[1]}[/{styles[o.status]}]"
         table.add_row(styled(escape(row[0])), styled(verdict), styled(escape(row[2])), row[3])

@@ -253,6 +253,9 @@ def _from_netlist(args) -> dict:
             "c": None if st.pid is None else st.pid.c,
         }
     )
+    if st is not None and st.pid is None and data.get("pid"):
+        # two inputs whose setpoint path is no weighted form of this PID: no b, c describe it
+        data["pid"]["b"] = data["pid"]["c"] = None
     data["clamps"] = [
         {
             "diodes": list(c.diodes),

@@ -119,7 +119,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
         nargs=4,
         metavar=("SIG_LO", "SIG_HI", "FW_LO", "FW_HI"),
         dest="output_scale",
-        help="the card's output signal range and the firmware values at its ends, e.g. --output-scale 0V 10V 0 4095",
+        help="the card's output signal range and the firmware values at its ends; --output-limits, --input-range and "
+        "--input-resolution stay in the controller's own units and are mapped (slopes only), "
+        "e.g. --output-scale 0V 10V 0 4095",
     )
     parser.add_argument(
         "--pid-block",
@@ -234,13 +236,30 @@ def run(args, console) -> int:
     controller, source = _controller(args)
     lim = range_pair(args.output_limits, "--output-limits")
     sc = _scaling(args)
+    scaled_from = None
     if sc is not None:
-        from convert.digital.scaling import scale_controller
+        # --output-limits, --input-range and --input-resolution are in the controller's own units
+        # (as given, e.g. volts): the firmware works in firmware units, so they move with the maps
+        # (slopes only, as in a case file: convert.digital.scaling.deviations_in_firmware)
+        from convert.digital.scaling import deviations_in_firmware, scale_controller, slope, wide_limits_problem
 
         controller = scale_controller(controller, sc)
         source = f"{source} (scaled to firmware units: gain x {sc.gain:.6g})"
+        scaled_from = {"limits": lim}
+        lim = deviations_in_firmware(lim, sc.output_map)
+        problem = wide_limits_problem(lim, sc.output_map)
+        scaled_from["warnings"] = [f"{problem} (the units of --output-scale's signal, SI: V or A)"] if problem else []
+        for text in scaled_from["warnings"]:
+            if not args.json:
+                console.print(f"warning: {text}", markup=False, style="bold yellow")
+        rng = deviations_in_firmware(rng, sc.input_map)
+        if resolution is not None:
+            resolution *= abs(slope(sc.input_map))
     if args.pid_block:
-        return _pid_block(args, console, controller, source, fs, word, lang, lim, sc, rng)
+        if scaled_from and scaled_from["limits"]:
+            given = scaled_from["limits"]
+            source += f"; output limits given as {given[0]:.10g} .. {given[1]:.10g} in controller output units"
+        return _pid_block(args, console, controller, source, fs, word, lang, lim, sc, rng, resolution)
     if controller.is_digital:
         raise InputError("give an analog controller (in s); the tool samples it at --fs", key="EXPR")
     if args.filter_n is not None:
@@ -281,7 +300,15 @@ def run(args, console) -> int:
             )
         files = {}
         if pick is not None and pick.ok:
-            files = emit(pick.realized, args.name, lang, source=source, method=args.method or "tustin", limits=lim)
+            files = emit(
+                pick.realized,
+                args.name,
+                lang,
+                source=source,
+                method=args.method or "tustin",
+                limits=lim,
+                scaled_from=scaled_from,
+            )
     paths = _write(args, files)
     ok = pick is not None and pick.ok
     if args.json:
@@ -298,6 +325,9 @@ def run(args, console) -> int:
                 "ok": ok,
                 "scaling": sc.text if sc else None,
                 "scale_gain": sc.gain if sc else None,
+                "output_limits": list(lim) if lim else None,
+                "output_limits_given": list(scaled_from["limits"]) if scaled_from and scaled_from["limits"] else None,
+                "warnings": scaled_from["warnings"] if scaled_from else [],
                 "realized": _coefficients(pick) if pick and pick.realized else None,
                 "analysis": [x.summary() for x in every],
             },
@@ -308,6 +338,12 @@ def run(args, console) -> int:
         if getattr(args, "limits_from_card", False) and lim
         else getattr(args, "card_clamp_note", None)
     )
+    if scaled_from and scaled_from["limits"] and lim:
+        given = scaled_from["limits"]
+        note = (note + "; " if note else "") + (
+            f"output limits {given[0]:.4g} .. {given[1]:.4g} (controller output units) = "
+            f"{lim[0]:.4g} .. {lim[1]:.4g} firmware units"
+        )
     _render(console, pick, every, why, paths, word, sc.text if sc else None, note)
     for link in getattr(args, "link_notes", ()):
         console.print(f"note: {link}", markup=False)
@@ -457,10 +493,11 @@ def _refuse_inapplicable(args) -> None:
         raise InputError("applies to --anti-windup track only; add --anti-windup track", key="--tracking-time")
 
 
-def _pid_block(args, console, controller, source, fs, word, lang, lim, sc=None, rng=None) -> int:
+def _pid_block(args, console, controller, source, fs, word, lang, lim, sc=None, rng=None, res=None) -> int:
     """``--pid-block``: the PID block of convert.digital.pidblock in C (double, float, Q15, Q31) or
     Structured Text (double, float), with its word-format analysis (convert.digital.pidcheck);
-    nothing is written when the analysis fails (exit 1)."""
+    nothing is written when the analysis fails (exit 1). ``lim``, ``rng`` and ``res`` are in the
+    units the block works in (firmware units with signal scaling ``sc``)."""
     from convert.cli.common import at, emit_json, positive_value
     from convert.digital.pidblock import PidBlock, emit_pid_c
     from convert.errors import InputError
@@ -499,7 +536,6 @@ def _pid_block(args, console, controller, source, fs, word, lang, lim, sc=None, 
         from convert.compare.frequency import comparison_grid, default_band_hz
 
         band = comparison_grid(default_band_hz(controller, fs), fs, points_per_decade=20)
-        res = positive_value(args.input_resolution, "number", "--input-resolution") if args.input_resolution else None
         check = analyze_block(block, band, input_resolution=res)
         files = {}
         usable = check.ok and not check.stall_unchecked
@@ -542,7 +578,11 @@ def _pid_block(args, console, controller, source, fs, word, lang, lim, sc=None, 
     console.print(
         f"anti-windup: {block.anti_windup}"
         + (f", tracking time constant {block.tracking_time_s:.4g} s" if block.anti_windup == "track" else "")
-        + (f"; limits {lim[0]:g} .. {lim[1]:g}" if lim else "; no output limits (no clamp)"),
+        + (
+            f"; limits {lim[0]:g} .. {lim[1]:g}{' firmware units' if sc is not None else ''}"
+            if lim
+            else "; no output limits (no clamp)"
+        ),
         markup=False,
     )
     _render_block_check(console, check)

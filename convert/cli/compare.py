@@ -481,8 +481,6 @@ def render_log(console, ev, verdict) -> None:
 def render_sweep(console, a, ev) -> None:
     """The sweep evidence as text: error vs frequency with the noise, trusted band, verdict, fit."""
     import numpy as np
-    from rich import box
-    from rich.table import Table
 
     from convert.given import describe
     from convert.values import format_value
@@ -504,26 +502,20 @@ def render_sweep(console, a, ev) -> None:
     )
     trusted = ", ".join(f"{hz(lo)} .. {hz(hi)}" for lo, hi in chk.trusted_bands) or "nowhere"
     console.print(f"trusted (noise and coherence good enough to judge the limits): {trusted}", markup=False)
-    t = Table(
-        title="measured against the model (error ± 2σ noise)",
-        title_justify="left",
-        box=box.SIMPLE_HEAD,
-        show_edge=False,
-        pad_edge=False,
-    )
-    for name in ("frequency", "measured dB", "model dB", "gain error dB", "phase error deg", "trusted"):
-        t.add_column(name, justify="right", no_wrap=True)
     picks = _spread(sw.f_hz, 12)
-    for i in picks:
-        t.add_row(
+    rows = [
+        [
             hz(sw.f_hz[i]),
             f"{20 * np.log10(abs(sw.response[i])):.3f}",
             f"{20 * np.log10(abs(ev.model[i])):.3f}",
             f"{chk.gain_error_db[i]:+.3f} ± {2 * chk.noise_db[i]:.3f}",
             f"{chk.phase_error_deg[i]:+.2f} ± {2 * chk.noise_deg[i]:.2f}",
             "yes" if chk.trusted[i] else "no",
-        )
-    console.print(t)
+        ]
+        for i in picks
+    ]
+    header = ["frequency", "measured dB", "model dB", "gain error dB", "phase error deg", "trusted"]
+    console.print(_fitted_table(console, "measured against the model (error ± 2σ noise)", header, rows, "right"))
     for j in ev.verdict.judgements:
         if j.status != "not set":
             figure = "no figure" if j.value is None else f"{j.value:.3g} {j.unit}"
@@ -618,9 +610,34 @@ def pair_json(result) -> dict:
     return out
 
 
-def _render(console, result) -> None:
+def _fitted_table(console, title: str, header: list[str], rows: list[list[str]], justify):
+    """A rich table of plain text fitted to the console's width (convert.cli.common.fit_columns:
+    words wrap, never break, so every column stays on screen). ``justify``: one for all columns
+    or one per column."""
     from rich import box
     from rich.table import Table
+    from rich.text import Text
+
+    from convert.cli.common import fit_columns
+
+    widths, head, cells = fit_columns(header, rows, console.width)
+    how = [justify] * len(header) if isinstance(justify, str) else list(justify)
+    table = Table(  # one space of padding and the box's blank divider: the two columns fit_columns leaves
+        title=Text(title),
+        title_justify="left",
+        box=box.SIMPLE_HEAD,
+        show_edge=False,
+        pad_edge=False,
+        padding=(0, 1, 0, 0),
+    )
+    for text, w, j in zip(head, widths, how):
+        table.add_column(Text(text), width=w, no_wrap=True, justify=j)
+    for row in cells:
+        table.add_row(*(Text(c) for c in row))
+    return table
+
+
+def _render(console, result) -> None:
 
     from convert.given import describe
     from convert.values import format_value
@@ -638,24 +655,20 @@ def _render(console, result) -> None:
         f"band {hz(result.band_hz[0])} .. {hz(result.band_hz[1])}" + (" (default)" if result.band_default else ""),
         markup=False,
     )
-    table = Table(
-        title="error of B against A (B as it runs: hold and delay included)",
-        title_justify="left",
-        box=box.SIMPLE_HEAD,
-        show_edge=False,
-        pad_edge=False,
-    )
-    for name in ("frequency", "|A| dB", "|B| dB", "gain error dB", "phase error deg"):
-        table.add_column(name, justify="right", no_wrap=True)
-    for s in result.spots:
-        table.add_row(
+    rows = [
+        [
             hz(s["f_hz"]),
             f"{s['gain_a_db']:.3f}",
             f"{s['gain_b_db']:.3f}",
             f"{s['gain_error_db']:+.4f}",
             f"{s['phase_error_deg']:+.3f}",
-        )
-    console.print(table)
+        ]
+        for s in result.spots
+    ]
+    header = ["frequency", "|A| dB", "|B| dB", "gain error dB", "phase error deg"]
+    console.print(
+        _fitted_table(console, "error of B against A (B as it runs: hold and delay included)", header, rows, "right")
+    )
     e = result.error
     console.print(
         f"largest over the band: gain {e.max_gain_error_db:.4g} dB at {hz(e.max_gain_error_at_hz)}, "
@@ -692,28 +705,25 @@ def _render(console, result) -> None:
             markup=False,
         )
     if res.source_margins is not None:
-        mt = Table(
-            title="loop with the plant", title_justify="left", box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False
-        )
-        for name in ("form", "gain margin", "phase margin", "crossover", "sensitivity peak"):
-            mt.add_column(name, justify="right" if name != "form" else "left", no_wrap=True)
+        mrows = []
         for label, m, name in (("A", res.source_margins, "source"), ("B", r.margins, r.name)):
             if m is None:
                 continue
             if res.loop_is_stable(name) is False:  # margins of an unstable loop are not robustness
-                mt.add_row(label, "unstable loop", "—", "—", "—")
+                mrows.append([label, "unstable loop", "—", "—", "—"])
                 continue
-            mt.add_row(
-                label,
-                "none" if m.gain_margin_db is None else f"{m.gain_margin_db:.3g} dB",
-                "none" if m.phase_margin_deg is None else f"{m.phase_margin_deg:.3g} deg",
-                "none" if m.crossover_hz is None else hz(m.crossover_hz),
-                f"{m.sensitivity_peak_db:.3g} dB",
+            mrows.append(
+                [
+                    label,
+                    "none" if m.gain_margin_db is None else f"{m.gain_margin_db:.3g} dB",
+                    "none" if m.phase_margin_deg is None else f"{m.phase_margin_deg:.3g} deg",
+                    "none" if m.crossover_hz is None else hz(m.crossover_hz),
+                    f"{m.sensitivity_peak_db:.3g} dB",
+                ]
             )
-        console.print(mt)
-    vt = Table(title="verdict", title_justify="left", box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False)
-    for name in ("criterion", "measured", "limit", "result"):
-        vt.add_column(name, no_wrap=True)
+        header = ["form", "gain margin", "phase margin", "crossover", "sensitivity peak"]
+        console.print(_fitted_table(console, "loop with the plant", header, mrows, ["left"] + ["right"] * 4))
+    vrows = []
     for j in res.verdict.judgements:
         if j.status == "not set":
             continue
@@ -722,11 +732,12 @@ def _render(console, result) -> None:
                 j.status, "sign inverted" if "negative low-frequency" in j.note else "unstable"
             )
             which = "A" if j.realization == "source" else "B"
-            vt.add_row(f"loop with {which}", found, "stable", j.status.upper() if j.status == "fail" else j.status)
+            vrows.append([f"loop with {which}", found, "stable", j.status.upper() if j.status == "fail" else j.status])
             continue
         value = "—" if j.value is None else _fmt(j.value, j.unit)
-        vt.add_row(j.label, value, _fmt(j.limit, j.unit), j.status.upper() if j.status == "fail" else j.status)
-    console.print(vt)
+        vrows.append([j.label, value, _fmt(j.limit, j.unit), j.status.upper() if j.status == "fail" else j.status])
+    # fitted to the terminal, wrapping words: the result column always shows (at 80 columns too)
+    console.print(_fitted_table(console, "verdict", ["criterion", "measured", "limit", "result"], vrows, "left"))
     for note in result.notes + list(res.notes) + list(r.warnings):
         console.print(f"note: {note}", markup=False)
     for j in res.verdict.skipped:

@@ -322,8 +322,11 @@ def _render_pid(console, pid: dict, data: dict, d: int) -> None:
     for label, form in (("ideal", pid["ideal"]), ("series", pid["series"])):
         if "unavailable" in form:
             console.print(f"{label}: {form['unavailable']}", highlight=False, markup=False)
-    weights = f"setpoint weights: b = {_n(pid['b'], d)} (P), c = {_n(pid['c'], d)} (D)"
-    if pid["derivative_on"] == "measurement":
+    if pid["b"] is None:  # a two-input card whose setpoint path is not a weighted form of this PID
+        weights = "setpoint weights: none describe this setpoint path (see Setpoint and measurement)"
+    else:
+        weights = f"setpoint weights: b = {_n(pid['b'], d)} (P), c = {_n(pid['c'], d)} (D)"
+    if pid["derivative_on"] == "measurement" and pid["b"] is not None:
         weights += " — derivative on measurement"
     console.print(weights, highlight=False, markup=False)
     sp = data.get("setpoint_path")

@@ -477,20 +477,12 @@ CODE_NOT_WEIGHTED = (
 
 def _wide_limits_warning(case, scaled) -> list[str]:
     """A warning when output limits, mapped to firmware units, span more than the output signal's
-    whole firmware range: a clamp that never acts (limits given in other units than the card's?)."""
+    whole firmware range (:func:`convert.digital.scaling.wide_limits_problem`)."""
     out_map = case.digital.output_signal if case.digital else None
     if not scaled or not scaled.get("output_limits") or out_map is None:
         return []
-    lo, hi = scaled["output_limits"]
-    span = abs(out_map.firmware_high - out_map.firmware_low)
-    if hi - lo <= span * (1 + 1e-9):
-        return []
-    return [
-        f"the output limits become {lo:.4g} .. {hi:.4g} in firmware units, {(hi - lo) / span:.3g} times the output "
-        f"signal's whole range ({min(out_map.firmware_low, out_map.firmware_high):.4g} .. "
-        f"{max(out_map.firmware_low, out_map.firmware_high):.4g}): a clamp that never acts. output_limits are "
-        "deviations of the card's output from its operating point, in the card's units (V or mA)"
-    ]
+    problem = sg.wide_limits_problem(scaled["output_limits"], out_map)
+    return [problem + " (V or mA)"] if problem else []
 
 
 def _clamp_beyond_the_model(diodes, limits, step, disturbance) -> dict[str, str]:
@@ -914,12 +906,17 @@ def _code_files(case, firmware, name: str, method: str, scaled=None) -> dict:
     limits = tgt.output_limits or case.signals.output_range
     realized = firmware.realized
     source = case.title or "case source"
+    scaled_from = None
     if scaled is not None:
+        scaled_from = {"limits": scaled["given_output_limits"]}
         realized, limits = scaled["analysis"].realized, scaled["output_limits"]
         source = f"{source}; in firmware units: {scaled['text']}; {scaled['gains']}"
     files = {}
     for lang in tgt.code_languages:
-        for fname, text in emit(realized, tgt.code_name, lang, source=source, method=method, limits=limits).items():
+        texts = emit(
+            realized, tgt.code_name, lang, source=source, method=method, limits=limits, scaled_from=scaled_from
+        )
+        for fname, text in texts.items():
             files[f"{folder}/{fname}"] = text
     return files
 
@@ -937,11 +934,7 @@ def _signal_scaling(case, analog, real, band, firmware, limits):
         return None
     sc = sg.scaling(tgt.input_signal, tgt.output_signal)
     k_in, k_out = abs(sg.slope(tgt.input_signal)), abs(sg.slope(tgt.output_signal))
-    lim_fw = None
-    if limits:
-        # the limits are deviations from the operating point (as the controller's output): slope only
-        ends = sorted(v * sg.slope(tgt.output_signal) + 0.0 for v in limits)  # + 0.0: no -0
-        lim_fw = (ends[0], ends[1])
+    lim_fw = sg.deviations_in_firmware(limits, tgt.output_signal) if limits else None
     try:
         fw = analyze(
             replace(real.roots, gain=real.roots.gain * sc.gain),
@@ -1000,6 +993,7 @@ def _signal_scaling(case, analog, real, band, firmware, limits):
         "gains": gains,
         "input_range": firmware.input_range * k_in,
         "output_limits": lim_fw,
+        "given_output_limits": tuple(limits) if limits else None,  # as given, in the card's units
         "ok": fw.ok,
         "failures": list(fw.failures) + ([fw.refused] if fw.refused else []),
         "analysis": fw,

@@ -43,14 +43,10 @@ def quantized(given, controller: Controller) -> Controller:
         b = np.asarray(controller.b, dtype=np.float32).astype(float)
         a = np.asarray(controller.a, dtype=np.float32).astype(float)
         return Controller.from_b_a(b, a / a[0], controller.sample_period_s, name=controller.name)
-    import re
-
-    in_file = re.search(r":\d+$", given.where or "") is not None  # a case file names its key, a spec its word
     raise UnrealizableError(
         f"given form {given.name!r}: word format {word!r} is stored, but this version evaluates "
         "float64 and float32 coefficients only; a fixed-point check needs the word-format models",
-        where=given.where,
-        key=f"target.given.{given.name}.word_format" if in_file else "word",
+        **given.located("word_format"),
     )
 
 
@@ -109,10 +105,9 @@ def _firmware(case, given, info, src, band, duration, src_step, src_dist):
     fs = d["fs_hz"]
     if fs / 2 <= case.criteria.band_hz[1]:
         raise InputError(
-            f"given form {given.name!r} runs at {fs:g} Hz: its Nyquist frequency is at or below the "
-            f"band's top ({case.criteria.band_hz[1]:g} Hz)",
-            where=given.where,
-            key=f"target.given.{given.name}.fs",
+            f"given form {given.name!r} runs at {fs:g} Hz: its Nyquist frequency ({fs / 2:g} Hz) is at or below "
+            f"the band's top ({case.criteria.band_hz[1]:g} Hz); compare over a band below {fs / 2:g} Hz",
+            **given.located("fs"),
         )
     loop_f, spec = _loop(case, cq)
 
@@ -398,8 +393,7 @@ def _circuit(case, given, info, src, band, duration, src_step, src_dist, draws):
             raise UnrealizableError(
                 f"given form {given.name!r}: tolerances on a netlist's parts are not drawn by this "
                 "version; give the card as a catalog topology with parts, or leave them out",
-                where=given.where,
-                key=f"target.given.{given.name}.tolerances",
+                **given.located("tolerances"),
             )
         rows["tolerances"] = bud.not_applicable("tolerances", "no tolerances given for the netlist's parts")
         details.update(netlist=str(d["netlist"]), topology=f"netlist {d['netlist'].name}")

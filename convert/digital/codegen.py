@@ -47,11 +47,13 @@ def _header_comment(real: Realized, name: str, info: dict) -> list[str]:
     ]
     if real.layout.delta_step:
         lines.append(f"Delta operator step: {real.layout.delta_step:.17g} s (the sample period)")
+    scaled = info.get("scaled_from") is not None
+    units = "firmware" if scaled else "controller"
     if w.is_fixed:
         full = 1 << (w.bits - 1)
         lines += [
-            f"Scaling: input word x = round(e / {real.input_range:.10g} * {full}) (error e in controller input units,",
-            f"  saturated); output u = y * {real.node_scales[-1]:.10g} / {full} (controller output units).",
+            f"Scaling: input word x = round(e / {real.input_range:.10g} * {full}) (error e in {units} input units,",
+            f"  saturated); output u = y * {real.node_scales[-1]:.10g} / {full} ({units} output units).",
             "Per section: exact products summed in the accumulator (cannot overflow by the coefficient shift),",
             "  then shifted right with rounding half up and saturated to the word.",
         ]
@@ -65,13 +67,22 @@ def _header_comment(real: Realized, name: str, info: dict) -> list[str]:
                 f"2^{s.shift + s.b_shift}, output full scale {sc:.10g}"
             )
     else:
-        lines.append("Inputs and outputs in controller units (x = error, return value = output).")
+        lines.append(f"Inputs and outputs in {units} units (x = error, return value = output).")
     lim = info.get("limits")
-    lines.append(
-        f"Output limits: {lim[0]:.10g} .. {lim[1]:.10g}, apply them to the returned value"
-        if lim
-        else "Output limits: none stated; clamp the returned value in the caller"
-    )
+    given = (info.get("scaled_from") or {}).get("limits")
+    if lim and scaled and given:
+        lines += [
+            f"Output limits: {lim[0]:.10g} .. {lim[1]:.10g} firmware units, apply them to the returned value",
+            f"  (given as {given[0]:.10g} .. {given[1]:.10g} in the source controller's output units; both are",
+            "  deviations from the operating point: add its output in firmware units).",
+        ]
+    else:
+        lines.append(
+            f"Output limits: {lim[0]:.10g} .. {lim[1]:.10g}{' firmware units' if scaled else ''}, apply them to the "
+            "returned value"
+            if lim
+            else "Output limits: none stated; clamp the returned value in the caller"
+        )
     if w.is_fixed and _integrating(real):
         lines.append(f"The integrating section saturates at +/-{real.node_scales[-1]:.10g} (its full scale).")
     if _integrating(real):
@@ -113,12 +124,17 @@ def _state_fields(real: Realized) -> list[tuple[str, int]]:
     return [(n, k) for n, k in out if k > 0]
 
 
-def emit_c(real: Realized, name: str, *, source: str = "", method: str = "", limits=None) -> dict[str, str]:
-    """``{"NAME.h": text, "NAME.c": text}`` for ``real`` (see the module doc)."""
+def emit_c(
+    real: Realized, name: str, *, source: str = "", method: str = "", limits=None, scaled_from=None
+) -> dict[str, str]:
+    """``{"NAME.h": text, "NAME.c": text}`` for ``real`` (see the module doc). ``limits``: the
+    output limits (low, high) the header states, in the units the code works in. ``scaled_from``:
+    with signal scaling, ``{"limits": (low, high) or None}``, the limits as given in the source
+    controller's units: the header then says the code works in firmware units and states both."""
     _check_name(name)
     w = real.word
     t = w.c_type
-    info = {"source": source, "method": method, "limits": limits}
+    info = {"source": source, "method": method, "limits": limits, "scaled_from": scaled_from}
     guard = f"{name.upper()}_H"
     fields = _state_fields(real)
     h = (
@@ -400,12 +416,14 @@ def _st_real(v: float, single: bool) -> str:
     return text if "." in text else text + ".0"
 
 
-def emit_st(real: Realized, name: str, *, source: str = "", method: str = "", limits=None) -> dict[str, str]:
+def emit_st(
+    real: Realized, name: str, *, source: str = "", method: str = "", limits=None, scaled_from=None
+) -> dict[str, str]:
     """``{"NAME.st": text}``: an IEC 61131-3 function block (float64 as LREAL, float32 as REAL)."""
     _check_name(name, "st")
     w = real.word
     if w.is_fixed and real.form != "df1":
-        return _emit_st_state_words(real, name, source=source, method=method, limits=limits)
+        return _emit_st_state_words(real, name, source=source, method=method, limits=limits, scaled_from=scaled_from)
     if w.is_fixed:
         raise InputError(
             f"Structured Text is offered in float64 (LREAL) and float32 (REAL), and in {w.name} for the "
@@ -414,7 +432,7 @@ def emit_st(real: Realized, name: str, *, source: str = "", method: str = "", li
         )
     single = w.name == "float32"
     ty = "REAL" if single else "LREAL"
-    info = {"source": source, "method": method, "limits": limits}
+    info = {"source": source, "method": method, "limits": limits, "scaled_from": scaled_from}
     lines = (
         ["(*"]
         + [f" * {line}" for line in _header_comment(real, name, info)]
@@ -486,14 +504,16 @@ def _st_section(real: Realized, i: int, s, single: bool) -> list[str]:
 ST_INT = {16: ("INT", "DINT"), 32: ("DINT", "LINT")}
 
 
-def _emit_st_state_words(real: Realized, name: str, *, source: str = "", method: str = "", limits=None):
+def _emit_st_state_words(
+    real: Realized, name: str, *, source: str = "", method: str = "", limits=None, scaled_from=None
+):
     """``{"NAME.st": text}`` for direct2t/delta in Q15 (INT words, DINT accumulator) or Q31 (DINT
     words, LINT accumulator): the statements of :func:`convert.digital.statewords.step_section`.
     Conversions are explicit (INT_TO_DINT, DINT_TO_INT, ...); the rounding shift is written as a
     floor division built on IEC integer division, which truncates toward zero."""
     w = real.word
     word_t, acc_t = ST_INT[w.bits]
-    info = {"source": source, "method": method, "limits": limits}
+    info = {"source": source, "method": method, "limits": limits, "scaled_from": scaled_from}
     names = [f"s{i}_s{k}" for i, s in enumerate(real.sections, start=1) for k in range(len(s.p_int))]
     lines = (
         ["(*"]

@@ -769,6 +769,8 @@ def _residue_at_one(roots) -> float:
     zeros = np.asarray(roots.zeros, dtype=complex)
     poles = list(roots.poles)
     poles.remove(next(p for p in poles if p == 1))
+    if any(p == 1 for p in poles):  # a second integrator: the output ramps without bound, no residue
+        return math.inf
     val = roots.gain * np.prod(1 - zeros) / np.prod(1 - np.asarray(poles, dtype=complex))
     return float(np.real(val))
 
@@ -852,6 +854,25 @@ def offered(structure: str, word: WordFormat) -> bool:
     return True
 
 
+def _advice_among(names: list[str], every: list[FormatAnalysis]) -> list[FormatAnalysis]:
+    """Failures that advise another structure ("use structure sections") where that structure
+    was analysed too and cannot be built (or is not offered at all) say so instead of advising it."""
+    from dataclasses import replace
+
+    refused = {x.structure: x.refused for x in every if x.refused}
+    out = []
+    for x in every:
+        fixed = []
+        for f in x.failures:
+            head, sep, other = f.rpartition("; use structure ")
+            if sep and (other in refused or other not in names):
+                why = refused.get(other) or "not offered in this word format"
+                f = f"{head}; {other}, the structure that usually holds it, is not offered here ({why.split(';')[0]})"
+            fixed.append(f)
+        out.append(replace(x, failures=tuple(fixed)) if fixed != list(x.failures) else x)
+    return out
+
+
 def choose(
     roots, word_format: str, band_f_hz, *, structure: str = "auto", b=None, a=None, among=None, **kw
 ) -> tuple[FormatAnalysis | None, list[FormatAnalysis], str]:
@@ -861,7 +882,7 @@ def choose(
     Returns (chosen analysis or None when none is usable, all analyses, reason)."""
     word = get_format(word_format)
     names = [s for s in STRUCTURES if offered(s, word) and (among is None or s in among)]
-    every = [analyze(roots, s, word, band_f_hz, b=b, a=a, **kw) for s in names]
+    every = _advice_among(names, [analyze(roots, s, word, band_f_hz, b=b, a=a, **kw) for s in names])
     best, why = recommend(every)
     if structure == "auto":
         pick = next((x for x in every if x.structure == best), None)

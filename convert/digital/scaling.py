@@ -49,11 +49,14 @@ class SignalMap:
 @dataclass(frozen=True)
 class Scaling:
     """``gain`` g applied to the controller; ``inverted`` whether the firmware's sign flips;
-    ``text`` the statement the output prints."""
+    ``text`` the statement the output prints; ``input_map``/``output_map`` the maps it was made
+    from (None where not given)."""
 
     gain: float
     inverted: bool
     text: str
+    input_map: SignalMap | None = None
+    output_map: SignalMap | None = None
 
 
 def scaling(input_map: SignalMap | None, output_map: SignalMap | None) -> Scaling:
@@ -73,7 +76,7 @@ def scaling(input_map: SignalMap | None, output_map: SignalMap | None) -> Scalin
             "one map is inverted: the firmware controller has the opposite sign in firmware units, so the "
             "plant sees the card's action unchanged"
         )
-    return Scaling(g, inverted, "; ".join(parts))
+    return Scaling(g, inverted, "; ".join(parts), input_map, output_map)
 
 
 def scale_controller(controller, sc: Scaling):
@@ -227,6 +230,36 @@ def signal_map(raw: dict, dotted: str, *, card_volts: bool) -> tuple[SignalMap, 
 def slope(m: SignalMap | None) -> float:
     """Firmware units per controller unit (1 without a map)."""
     return 1.0 if m is None else m.firmware_per_signal
+
+
+def deviations_in_firmware(pair, m: SignalMap | None) -> tuple[float, float] | None:
+    """A ``(low, high)`` pair in the controller's own units (output limits, an error's range),
+    which are deviations from the operating point, in firmware units: times the map's slope only
+    (offsets are the caller's), ends sorted (an inverted map swaps them). ``None`` stays ``None``;
+    without a map the pair is returned unchanged. The one rule for the CLI and case files."""
+    if pair is None:
+        return None
+    k = slope(m)
+    lo, hi = sorted(float(v) * k + 0.0 for v in pair)  # + 0.0: no -0
+    return (lo, hi)
+
+
+def wide_limits_problem(limits_fw, m: SignalMap | None) -> str | None:
+    """Why output limits in firmware units ``limits_fw`` look given in other units: they span
+    more than the output signal's whole firmware range, so the clamp never acts (None when they
+    do not, or without limits or a map)."""
+    if not limits_fw or m is None:
+        return None
+    lo, hi = limits_fw
+    span = abs(m.firmware_high - m.firmware_low)
+    if hi - lo <= span * (1 + 1e-9):
+        return None
+    return (
+        f"the output limits become {lo:.4g} .. {hi:.4g} in firmware units, {(hi - lo) / span:.3g} times the output "
+        f"signal's whole range ({min(m.firmware_low, m.firmware_high):.4g} .. "
+        f"{max(m.firmware_low, m.firmware_high):.4g}): a clamp that never acts. output limits are "
+        "deviations of the card's output from its operating point, in the card's units"
+    )
 
 
 def action(sign: float) -> str:

@@ -6,10 +6,13 @@ the executor of a Dask distributed client for a cluster); each case runs in
 :class:`CaseOutcome`, so it pickles to any worker. A case that cannot be read, or that fails,
 never stops the others: its reason is in its outcome.
 
-Statuses: ``"pass"``, ``"fail"`` (a criterion fails), ``"unreadable"`` (bad input: the case file,
+Statuses: ``"pass"``, ``"fail"`` (a criterion fails), ``"unchecked"`` (nothing failed, but a
+criterion the case sets could not be checked: the report's own UNCHECKED verdict, never a pass),
+``"unreadable"`` (bad input: the case file,
 its netlist, an existing report folder without ``force``; the one-line error is kept) and
 ``"error"`` (an internal error; please report it). The batch exit code is the worst of its
-cases: 0 all pass, 1 any fails, 2 any unreadable, 3 any internal error.
+cases: 0 all pass, 1 any fails or is unchecked (as ``loopshift report`` exits for that case),
+2 any unreadable, 3 any internal error.
 """
 
 from __future__ import annotations
@@ -29,7 +32,7 @@ from convert.pipeline import run_pipeline
 from convert.report import write_report
 from convert import sidework
 
-STATUS_EXIT_CODE = {"pass": 0, "fail": 1, "unreadable": 2, "error": 3}
+STATUS_EXIT_CODE = {"pass": 0, "fail": 1, "unchecked": 1, "unreadable": 2, "error": 3}
 INDEX_NAME = "index.html"
 SUMMARY_NAME = "batch.json"
 
@@ -140,7 +143,7 @@ def run_case(case_file: str, out_dir: str, *, force: bool = False, draws: int | 
             folder = write_report(results, Path(out_dir), force=force)
         worst = _worst_judgement(results.verdict.judgements)
         checked = sum(1 for j in results.verdict.judgements if j.status in ("pass", "fail"))
-        status = "pass" if results.exit_code == 0 else "fail"
+        status = _status(results)
         extra = {}
         if worst is not None:
             extra = dict(
@@ -151,7 +154,7 @@ def run_case(case_file: str, out_dir: str, *, force: bool = False, draws: int | 
                 worst_unit=worst.unit,
                 worst_ratio=_ratio(worst),
             )
-        message = "" if status == "pass" else _fail_message(results)
+        message = {"pass": "", "unchecked": _unchecked_message(results)}.get(status) or _fail_message(results)
         return CaseOutcome(
             case_file=str(case_file),
             name=name,
@@ -208,6 +211,20 @@ def _worst_judgement(judgements):
     if not checked:
         return None
     return max(checked, key=lambda j: (j.status == "fail", _ratio(j) if _ratio(j) is not None else -1.0))
+
+
+def _status(results) -> str:
+    """The case's batch status from its verdict: "pass", "unchecked" or "fail" (any other
+    non-zero exit is a failure: never a pass)."""
+    if results.exit_code == 0:
+        return "pass"
+    return "unchecked" if results.verdict.overall == "unchecked" else "fail"
+
+
+def _unchecked_message(results) -> str:
+    """Why the case could not pass: the verdict's own reason, on one line."""
+    reason = " ".join(results.verdict.unchecked_reason.split())
+    return f"not checked: {reason}" if reason else "verdict UNCHECKED; see the report"
 
 
 def _fail_message(results) -> str:
@@ -349,6 +366,7 @@ def index_html(result: BatchResult) -> str:
 body {{ font-family: sans-serif; margin: 2em; }}
 table {{ border-collapse: collapse; }}
 td, th {{ border-bottom: 1px solid #ccc; padding: 0.3em 0.8em; text-align: left; vertical-align: top; }}
+tr.unchecked td:nth-child(2) {{ color: #a60; font-weight: bold; }}
 tr.fail td:nth-child(2), tr.error td:nth-child(2), tr.unreadable td:nth-child(2) {{ color: #b00; font-weight: bold; }}
 tr.pass td:nth-child(2) {{ color: #070; }}
 </style></head><body>
