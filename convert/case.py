@@ -1081,6 +1081,7 @@ def _build_source(case: Case, src: Source) -> SourceInfo:
             )
         else:
             extra["setpoint_filter"] = card.structure.setpoint_filter
+            extra["setpoint_path"] = card.results[card.inputs[0]].controller  # H_sp as the card runs (log replay)
             text = (
                 f"two-input card: its setpoint path differs ({card.structure.description}); the setpoint step "
                 "is simulated through it, u = H_sp·r − C·y, and the firmware must reproduce it"

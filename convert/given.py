@@ -287,15 +287,19 @@ def _trim(c):
     return c[: nz[-1] + 1] if nz.size else c[:1]
 
 
-def pid_block_b_a(pid, fs_hz: float, method: str) -> tuple[list[float], list[float]]:
+def pid_block_b_a(pid, fs_hz: float, method: str, *, path: str = "error") -> tuple[list[float], list[float]]:
     """The sampled law of a firmware PID block, term by term (common practice for PID blocks):
 
     u = sign·(kp·e + I + D) with the integral ``ki/s`` and the filtered derivative
     ``kd·s/(tf·s + 1)`` each mapped by ``method``: backward-euler s → (1 − z⁻¹)/T, forward-euler
     s → (1 − z⁻¹)/(T·z⁻¹), tustin s → (2/T)(1 − z⁻¹)/(1 + z⁻¹). An unfiltered derivative is the
     backward difference kd·(1 − z⁻¹)/T. Returns ``b``, ``a`` ascending in z^-1 with ``a[0] = 1``.
+    ``path="setpoint"``: the setpoint -> output path with the weights, sign·(kp·b + I + kd·c·D)
+    (the feedback path, measurement -> −output, is the default ``"error"`` law).
     """
     import numpy as np
+
+    kp, kd = (pid.kp * pid.b, pid.kd * pid.c) if path == "setpoint" else (pid.kp, pid.kd)
 
     t = 1.0 / fs_hz
     one = np.array([1.0])
@@ -306,14 +310,14 @@ def pid_block_b_a(pid, fs_hz: float, method: str) -> tuple[list[float], list[flo
         "forward-euler": (diff / t, np.array([0.0, 1.0])),
         "tustin": (2 * diff / t, np.array([1.0, 1.0])),
     }[method]
-    terms = [(np.array([pid.kp]), one)]
+    terms = [(np.array([kp]), one)]
     if pid.ki > 0:  # ki / s = ki·den_s / num_s
         terms.append((pid.ki * den_s, num_s))
-    if pid.kd > 0:  # kd·s/(tf·s + 1) = kd·num_s / (tf·num_s + den_s)
+    if kd != 0:  # kd·s/(tf·s + 1) = kd·num_s / (tf·num_s + den_s)
         if pid.tf > 0:
-            terms.append((pid.kd * num_s, _padd(pid.tf * num_s, den_s)))
+            terms.append((kd * num_s, _padd(pid.tf * num_s, den_s)))
         else:
-            terms.append((pid.kd * diff / t, one))
+            terms.append((kd * diff / t, one))
     b, a = np.array([0.0]), one
     for tn, td in terms:
         b = _padd(np.convolve(b, td), np.convolve(tn, a))

@@ -394,21 +394,34 @@ def _run_log(args, console, a, b, output_limits) -> int:
         emit_json(console, data)
     else:
         render_log(console, ev, verdict)
-    return 1 if verdict["overall"] == "fail" else 0
+    return 1 if verdict["overall"] in ("fail", "unchecked") else 0
 
 
 def judge_log(ev, limits: dict) -> dict:
     """Each replay's relative residual against the limits: {"overall", "judgements"}; "none"
-    when no limit was given (figures only, nothing judged)."""
+    when no limit was given (figures only, nothing judged); "unchecked" when nothing failed but a
+    form could not be judged (``figures["unjudged"]``: most rows left out, or a setpoint path the
+    log cannot show): never a pass."""
     out = []
     for r in ev.replays:
         for key, fig in (("max_residual_rms", "rms_rel"), ("max_residual_peak", "peak_rel")):
             if key not in limits:
                 continue
             value = r.figures.get(fig)
-            status = "fail" if value is None or value > limits[key] else "pass"
-            out.append({"form": r.name, "criterion": key, "value": value, "limit": limits[key], "status": status})
-    overall = "none" if not out else ("fail" if any(j["status"] == "fail" for j in out) else "pass")
+            why = r.figures.get("unjudged")
+            status = "unchecked" if why else "fail" if value is None or value > limits[key] else "pass"
+            out.append(
+                {
+                    "form": r.name,
+                    "criterion": key,
+                    "value": None if why else value,
+                    "limit": limits[key],
+                    "status": status,
+                    "note": why or "",
+                }
+            )
+    statuses = {j["status"] for j in out}
+    overall = "none" if not out else "fail" if "fail" in statuses else "unchecked" if "unchecked" in statuses else "pass"
     return {"overall": overall, "judgements": out}
 
 
@@ -435,21 +448,36 @@ def render_log(console, ev, verdict) -> None:
         )
     if ev.saturated_rows:
         first = ", ".join(f"{sec(a)} .. {sec(b)}" for a, b in ev.saturated_spans[:3])
-        console.print(f"saturated: {ev.saturated_rows:,} rows (e.g. {first}), left out of the figures", markup=False)
+        console.print(
+            f"output at a limit: {ev.saturated_rows:,} rows (e.g. {first}); left out of a form's figures only "
+            "where its replay is at or beyond that limit too",
+            markup=False,
+        )
     if ev.missing_rows:
         console.print(f"rows with an empty or NaN cell: {ev.missing_rows:,}, skipped", markup=False)
     for r in ev.replays:
         f = r.figures
         if not f["n"]:
             console.print(f"{r.name}: no usable rows", markup=False)
+            if f.get("unjudged"):
+                console.print(f"{r.name} not judged: {f['unjudged']}", markup=False)
             continue
         console.print(
             f"{r.name} replayed: offset {f['offset']:.4g} ({100 * (f['offset_rel'] or 0):.3g} % of range, "
             f"reported, not removed from the log); about it RMS {f['rms']:.4g} "
             f"({100 * (f['rms_rel'] or 0):.3g} %), peak {f['peak']:.4g} ({100 * (f['peak_rel'] or 0):.3g} %) "
-            f"over {f['n']:,} rows",
+            f"over {f['n']:,} rows"
+            + (f"; {f['saturated']:,} saturated rows left out" if f.get("saturated") else "")
+            + (
+                f"; {f['at_limit_judged']:,} rows at a limit its replay does not reach are judged"
+                if f.get("at_limit_judged")
+                else ""
+            )
+            + (f"; input: {f['input']}" if f.get("input") and f["input"] != ev.input_kind else ""),
             markup=False,
         )
+        if f.get("unjudged"):
+            console.print(f"{r.name} not judged: {f['unjudged']}", markup=False)
     if ev.fit is not None:
         fit = ev.fit
         console.print(f"fit of the {fit.form} from the log ({fit.rows:,} rows; 95 % intervals):", markup=False)
@@ -463,6 +491,9 @@ def render_log(console, ev, verdict) -> None:
     for note in ev.notes:
         console.print(f"note: {note}", markup=False)
     for j in verdict["judgements"]:
+        if j["status"] == "unchecked":
+            console.print(f"{j['form']}: {j['criterion'].replace('_', ' ')} UNCHECKED (see above)", markup=False)
+            continue
         value = "—" if j["value"] is None else f"{100 * j['value']:.3g} %"
         console.print(
             f"{j['form']}: {j['criterion'].replace('_', ' ')} {value} (limit {100 * j['limit']:g} %) "
@@ -471,6 +502,8 @@ def render_log(console, ev, verdict) -> None:
         )
     if verdict["overall"] == "none":
         console.print("verdict: none (no residual limit given: figures only, nothing judged)", markup=False)
+    elif verdict["overall"] == "unchecked":
+        console.print("verdict: UNCHECKED (a form could not be judged from this log; not a pass)", markup=False)
     else:
         console.print(f"verdict: {verdict['overall'].upper()}", markup=False)
     console.print(

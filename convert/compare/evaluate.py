@@ -78,6 +78,9 @@ class Realization:
     band: dict | None = None  # Monte Carlo band for circuits
     files: dict = field(default_factory=dict)  # name -> bytes, text or a Schematic (the report draws it)
     stability: LoopStability | None = None  # closed loop with the plant (None without a plant)
+    #: the setpoint -> output path where it is not ``controller`` (a PID block with weights b, c ≠ 1),
+    #: as the form stores it; a plant log replays it on the setpoint (convert.evidence.casework)
+    setpoint_path: Controller | None = None
 
 
 @dataclass
@@ -645,6 +648,9 @@ def _digital_realizations(
                 warnings=warnings,
                 files=fw.code_files(name),
             )
+            block = getattr(firmware, "block", None)
+            if tgt.is_pid_block and block is not None and (block.b != 1 or block.c != 1):
+                r.setpoint_path = linear_controller(block, stored=firmware.refused is None, path="setpoint")
             if case.plant is not None:
                 r.margins = loop_margins(cq, case.plant.model, case.plant.dead_time_s, delay_s=delay)
                 limits = firmware_output_limits(case, card_limits)

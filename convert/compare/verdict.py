@@ -48,6 +48,8 @@ CRITERIA: tuple[tuple[str, str, str], ...] = (
 )
 #: checks that, left undecided, keep the verdict from passing
 MUST_DECIDE = frozenset({"closed_loop_stable", "firmware_stall"})
+#: a plant log's criteria (convert.evidence.casework): added to the verdict; one not judged keeps it from passing
+EVIDENCE_CRITERIA = frozenset({"max_residual_rms", "max_residual_peak"})
 CRITERION_KEYS = frozenset(k for k, _, _ in CRITERIA)  # a realization's own checks are not among them
 LOOP_CRITERIA = {
     "max_phase_margin_change_deg",
@@ -107,7 +109,18 @@ class Verdict:
         stalls = [j for j in self.judgements if j.criterion == "firmware_stall" and j.status == "skipped"]
         if stalls:
             return "; ".join(f"{j.realization}: {j.label}: {j.note}" for j in stalls) + ", so no verdict can pass"
-        names = list(dict.fromkeys(j.realization for j in self.judgements if j.criterion != "closed_loop_stable"))
+        logs = {
+            j.realization: j.note for j in self.judgements if j.criterion in EVIDENCE_CRITERIA and j.status == "skipped"
+        }
+        if logs:
+            return "; ".join(f"{name}: {note}" for name, note in logs.items()) + ", so no verdict can pass"
+        names = list(
+            dict.fromkeys(
+                j.realization
+                for j in self.judgements
+                if j.criterion != "closed_loop_stable" and j.criterion not in EVIDENCE_CRITERIA
+            )
+        )
         if not names:
             return "no new form was built, so no criterion was checked"
         bits = []

@@ -40,10 +40,13 @@ from convert.compare.frequency import compare_responses
 STALL_SAMPLES = 64
 
 
-def linear_b_a(k: dict) -> tuple[np.ndarray, np.ndarray]:
+def linear_b_a(k: dict, path: str = "error") -> tuple[np.ndarray, np.ndarray]:
     """b/a (ascending in z⁻¹) of the block's feedback path from per-sample constants ``k``
-    (kp, bi, bd, ad): the common denominator (1 − z⁻¹)(1 − ad·z⁻¹)."""
+    (kp, bi, bd, ad): the common denominator (1 − z⁻¹)(1 − ad·z⁻¹). ``path="setpoint"``: the
+    setpoint -> output path, P on b·r and D on c·r (the weights ``k["b"]``, ``k["c"]``)."""
     kp, bi, bd, ad = (float(k[n]) for n in ("kp", "bi", "bd", "ad"))
+    if path == "setpoint":
+        kp, bd = kp * float(k["b"]), bd * float(k["c"])
     one = np.array([1.0, -1.0])
     fil = np.array([1.0, -ad])
     num = kp * np.convolve(one, fil)
@@ -62,10 +65,12 @@ def stored_constants(block) -> dict[str, float]:
     return dict(k)
 
 
-def linear_controller(block, stored: bool = True):
-    """The block's linear equivalent as a digital :class:`Controller` (stored or exact constants)."""
-    b, a = linear_b_a(stored_constants(block) if stored else block.constants())
-    return Controller.from_b_a(b, a, block.sample_period_s, name="PID block")
+def linear_controller(block, stored: bool = True, path: str = "error"):
+    """The block's linear equivalent as a digital :class:`Controller` (stored or exact constants);
+    ``path="setpoint"``: its setpoint -> output path with the weights b, c (see :func:`linear_b_a`)."""
+    b, a = linear_b_a(stored_constants(block) if stored else block.constants(), path)
+    name = "PID block" if path == "error" else "PID block setpoint path"
+    return Controller.from_b_a(b, a, block.sample_period_s, name=name)
 
 
 @dataclass(frozen=True)

@@ -18,12 +18,19 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from convert.errors import InputError, LoopshiftError
-from convert.given import given_from_source, GivenForm
+from convert.given import GivenForm, given_controller, given_from_source
 from convert.compare.frequency import response_seen_from_loop
 from convert.evidence.sweep import MIN_COHERENCE, read_sweep, sweep_evidence
 from convert.compare.budget import ROW_LABELS, BudgetRow
 from convert.compare.verdict import Judgement, Verdict
-from convert.evidence.log import controller_replayer, log_evidence
+from convert.compare.givenwork import quantized
+from convert.evidence.log import (
+    analog_setpoint_path,
+    given_setpoint_path,
+    log_evidence,
+    setpoint_words,
+    weighted_replayer,
+)
 
 SWEEP_LABEL = "measured {of} (sweep)"
 
@@ -171,13 +178,40 @@ def _measured_row(realizations, name: str, result) -> None:
         r.budget = [row if b.key == "measured" else b for b in r.budget]
 
 
+def _setpoint_paths(case, info, realizations) -> dict:
+    """Each form's setpoint -> output path where it is not its error path, with the words that
+    say why: the source's (PID weights, a two-input card), a PID block target's, a given form's."""
+    out = {}
+    src_sp = None if info.controller.is_digital else analog_setpoint_path(info.pid, info.extra)
+    if src_sp is not None:
+        out["source"] = (src_sp, setpoint_words(info.pid, info.extra))
+    given = {f"given {g.name}": g for g in getattr(case, "given", ())}
+    for r in realizations:
+        if getattr(r, "setpoint_path", None) is not None:
+            b, c = (info.pid.b, info.pid.c) if info.pid is not None else (None, None)
+            if case.digital and case.digital.setpoint_weights:
+                b, c = case.digital.setpoint_weights
+            out[r.name] = (r.setpoint_path, f"setpoint weights b = {b:g}, c = {c:g}" if b is not None else "setpoint weights")
+        elif r.name in given:
+            g = given[r.name]
+            gi = given_controller(g, case)
+            sp = given_setpoint_path(g, gi)
+            if sp is not None:
+                if g.form in ("digital", "pid"):
+                    sp = quantized(g, sp)
+                out[r.name] = (sp, setpoint_words(gi.pid, gi.extra))
+    return out
+
+
 def _log(case, info, realizations, spec, ev: CaseEvidence) -> None:
     forms = []
+    paths = _setpoint_paths(case, info, realizations)
     for name, ctrl, delay in [("source", info.controller, 0.0)] + [
         (r.name, r.controller, float(r.details.get("delay_s") or 0.0)) for r in realizations
     ]:
+        sp, words = paths.get(name, (None, ""))
         try:
-            forms.append((name, controller_replayer(ctrl, delay)))
+            forms.append((name, weighted_replayer(ctrl, sp, delay, words)))
         except LoopshiftError as exc:
             ev.notes.append(f"log: {name} not replayed: {exc.message}")
     fit = None
@@ -212,7 +246,8 @@ def _log(case, info, realizations, spec, ev: CaseEvidence) -> None:
             if limit is None:
                 continue
             value = r.figures.get(fig)
-            status = "fail" if value is None or value > limit else "pass"
+            unjudged = r.figures.get("unjudged")
+            status = "skipped" if unjudged else "fail" if value is None or value > limit else "pass"
             ev.judgements.append(
                 Judgement(
                     f"log: {r.name}",
@@ -220,17 +255,25 @@ def _log(case, info, realizations, spec, ev: CaseEvidence) -> None:
                     label,
                     "of range",
                     limit,
-                    value,
+                    None if unjudged else value,
                     status,
-                    "about the reported offset, relative to the logged output's range",
+                    f"not judged: {unjudged}"
+                    if unjudged
+                    else "about the reported offset, relative to the logged output's range",
                 )
             )
 
 
 def extend_verdict(verdict, judgements):
     """The verdict with extra judgements (log residuals) added; the overall result fails when
-    any of them fails."""
+    any of them fails, and is "unchecked" (not a pass) when one of them could not be judged."""
     if not judgements:
         return verdict
     every = tuple(verdict.judgements) + tuple(judgements)
-    return Verdict("fail" if any(j.status == "fail" for j in every) else verdict.overall, every)
+    if any(j.status == "fail" for j in every):
+        overall = "fail"
+    elif any(j.status == "skipped" for j in judgements):
+        overall = "unchecked"  # a log criterion the case sets that could not be judged is never a pass
+    else:
+        overall = verdict.overall
+    return Verdict(overall, every)

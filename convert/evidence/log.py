@@ -239,13 +239,109 @@ def controller_replayer(controller, delay_s: float = 0.0):
 
 
 def replayer(given):
-    """The replay engine of a :class:`convert.given.GivenForm` as it runs."""
-    ctrl = given_controller(given).controller
+    """The replay engine of a :class:`convert.given.GivenForm` as it runs (a
+    :class:`TwoPathReplay` when its setpoint path differs from its error path)."""
+    info = given_controller(given)
+    ctrl = info.controller
+    firmware = given.form in ("digital", "pid")
+    delay = given.delay_for() if firmware else 0.0
+    engine = controller_replayer(quantized(given, ctrl) if firmware else ctrl, delay)
+    sp = given_setpoint_path(given, info)
+    if sp is None:
+        return engine
+    sp_engine = controller_replayer(quantized(given, sp) if firmware else sp, delay)
+    return TwoPathReplay(sp_engine, engine, setpoint_words(info.pid, info.extra), _same_integral(sp, ctrl))
+
+
+def given_setpoint_path(given, info=None):
+    """The setpoint -> output path of a given form where it is not its error path (a PID, analog
+    or block, with setpoint weights b, c ≠ 1; a two-input card whose setpoint path differs), as a
+    :class:`Controller` in the form's own domain; None for u = C·(r − y)."""
+    info = info if info is not None else given_controller(given)
+    pid = info.pid
+    if given.form == "pid":
+        if pid.b == 1 and pid.c == 1:
+            return None
+        d = given.data
+        b, a = pid_block_b_a(pid, d["fs_hz"], d["method"], path="setpoint")
+        return Controller.from_b_a(b, a, 1.0 / d["fs_hz"], name=f"{given.name} setpoint path")
+    return analog_setpoint_path(pid, info.extra)
+
+
+def analog_setpoint_path(pid=None, extra=None):
+    """The setpoint -> output path of an analog form (a two-input card's H_sp, ``extra["setpoint_path"]``
+    from its analysis; a PID's with weights b, c ≠ 1), or None when it is the error path."""
+    if extra and extra.get("setpoint_path") is not None:
+        return extra["setpoint_path"]
+    if pid is None or (pid.b == 1 and pid.c == 1):
+        return None
+    return pid.setpoint_controller()
+
+
+def setpoint_words(pid=None, extra=None) -> str:
+    if extra and extra.get("setpoint_path") is not None:
+        return f"a setpoint path of its own, {extra.get('setpoint_structure') or 'two-input card'}"
+    return f"setpoint weights b = {pid.b:g}, c = {pid.c:g}"
+
+
+def _integral_action(ctrl) -> tuple[int, float]:
+    """(integrators, lim (s or 1 − z⁻¹)^k · C): the integral action of a controller."""
+    from numpy.polynomial import polynomial as P
+
+    k = ctrl.integrator_count()
+    if k == 0:
+        return 0, 0.0
     if ctrl.is_digital:
-        q = quantized(given, ctrl) if given.form in ("digital", "pid") else ctrl
-        delay = given.delay_for() if given.form in ("digital", "pid") else 0.0
-        return DigitalReplay(q.b, q.a, ctrl.fs_hz, delay)
-    return AnalogReplay(ctrl)
+        a = np.asarray(ctrl.a, float)
+        for _ in range(k):
+            a, _rem = P.polydiv(a, [1.0, -1.0])
+        return k, float(np.sum(ctrl.b) / np.sum(a))
+    num, den = np.asarray(ctrl.num, float), np.asarray(ctrl.den, float)
+    return k, float(num[-1] / den[-1 - k])
+
+
+def _same_integral(sp, fb) -> bool:
+    """True when C_sp − C has no integrator (the same single integral action, or none): then a
+    constant setpoint r0 through C_sp − C settles to a constant."""
+    (k1, g1), (k2, g2) = _integral_action(sp), _integral_action(fb)
+    return k1 == k2 and k1 <= 1 and abs(g1 - g2) <= 1e-9 * max(abs(g1), abs(g2), 1e-300)
+
+
+class TwoPathReplay:
+    """A form whose setpoint path differs from its error path: u = C_sp·r − C·y, each path run by
+    its own engine (``setpoint``, ``feedback``). Both inputs enter as their change from the first
+    row's setpoint r0, C_sp·(r − r0) − C·(y − r0): what that leaves out, (C_sp − C)·r0 from rest,
+    settles to a constant (it joins the reported offset) when C_sp − C has no integrator, which
+    ``shift`` says (always so for weights b, c); otherwise the paths run on r and y as logged.
+    :meth:`run` (the error only) replays C·e: a log without the setpoint cannot judge the form."""
+
+    two_paths = True
+
+    def __init__(self, setpoint, feedback, weights: str, shift: bool = True):
+        self.setpoint, self.feedback = setpoint, feedback
+        self.weights = weights
+        self.shift = shift
+        self.r0 = None
+        self.settle_s = max(getattr(setpoint, "settle_s", 0.0), getattr(feedback, "settle_s", 0.0))
+
+    def run(self, t: np.ndarray, e: np.ndarray) -> np.ndarray:
+        return self.feedback.run(t, e)
+
+    def run_paths(self, t: np.ndarray, r: np.ndarray, y: np.ndarray) -> np.ndarray:
+        if self.r0 is None:
+            self.r0 = float(r[0]) if self.shift else 0.0
+        return self.setpoint.run(t, r - self.r0) - self.feedback.run(t, y - self.r0)
+
+
+def weighted_replayer(controller, setpoint_path=None, delay_s: float = 0.0, weights: str = ""):
+    """:func:`controller_replayer`, or a :class:`TwoPathReplay` when ``setpoint_path`` (the
+    setpoint -> output path, same domain) is given."""
+    engine = controller_replayer(controller, delay_s)
+    if setpoint_path is None:
+        return engine
+    return TwoPathReplay(
+        controller_replayer(setpoint_path, delay_s), engine, weights, _same_integral(setpoint_path, controller)
+    )
 
 
 # ----------------------------------------------------------------------------- accumulators
@@ -345,8 +441,11 @@ class FormReplay:
 
 @dataclass(frozen=True)
 class PidLogFit:
-    """PID parameters fitted from a log by linear least squares: u ≈ kp·e + ki·I(e) + kd·D(e) + c,
-    the terms built as the form computes them (tf fixed at the form's value)."""
+    """PID parameters fitted from a log by linear least squares: u ≈ kp·e + ki·I(e) + kd·D(e) + c
+    from an error-only log; with setpoint and measurement u ≈ kp·(b·r − y) + ki·I(r − y) +
+    kd·D(c·r − y) + c, the weights ``b`` and ``c`` fitted too (names then include them; their
+    intervals by the delta method). The terms are built as the form computes them (tf fixed at
+    the form's value)."""
 
     names: tuple[str, ...]
     values: dict
@@ -417,51 +516,226 @@ class LogEvidence:
 
 # ----------------------------------------------------------------------------- PID regressors
 class _PidTerms:
-    """The regressors e, I(e), D(e) of a PID form as it computes them (analog exact FOH, or the
-    block's own sampled terms), run through the log in chunks."""
+    """The regressors of a PID form as it computes them (analog exact FOH, or the block's own
+    sampled terms), run through the log in chunks.
 
-    def __init__(self, given):
+    With the error only (``paths`` False): u = sign·(kp·e + ki·I(e) + kd·D(e)) + offset, which
+    assumes b = c = 1. With setpoint and measurement: each weighted term on its own input,
+    u = sign·(kp·b·r − kp·y + ki·I(r − y) + kd·c·D(r) − kd·D(y)) + offset, so the weights b and c
+    are fitted too (kp·b and kd·c are columns of their own). r and y enter as their change from
+    the first row's setpoint r0; the constants that leaves out go into the fitted offset and the
+    settling rows."""
+
+    def __init__(self, given, paths: bool):
         d = given.data
         pid = d["pid"]
         self.sign = pid.sign
-        self.names = ["kp"] + (["ki"] if pid.ki > 0 else []) + (["kd"] if pid.kd > 0 else [])
+        self.paths = paths
         self.tf = pid.tf
+        self.weights = (pid.b, pid.c)
+        self.weighted = pid.b != 1 or pid.c != 1
+        self.r0 = None
         self.block = given.form == "pid"
+        has_i, has_d = pid.ki > 0, pid.kd > 0
         if self.block:
-            fs, method = d["fs_hz"], d["method"]
-            self.fs = fs
-            self.terms = []
-            if pid.ki > 0:
-                from dataclasses import replace
+            from dataclasses import replace
 
-                b, a = pid_block_b_a(replace(pid, kp=0.0, ki=1.0, kd=0.0, tf=0.0, action="reverse"), fs, method)
-                self.terms.append(DigitalReplay(b, a, fs, given.delay_for()))
-            if pid.kd > 0:
-                from dataclasses import replace
+            fs, method, delay = d["fs_hz"], d["method"], given.delay_for()
 
-                b, a = pid_block_b_a(replace(pid, kp=0.0, ki=0.0, kd=1.0, action="reverse"), fs, method)
-                self.terms.append(DigitalReplay(b, a, fs, given.delay_for()))
-            self.p_term = DigitalReplay([1.0], [1.0], fs, given.delay_for())
+            def unit(kind):
+                if kind == "p":
+                    return DigitalReplay([1.0], [1.0], fs, delay)
+                one = dict(kp=0.0, ki=1.0, kd=0.0, tf=0.0) if kind == "i" else dict(kp=0.0, ki=0.0, kd=1.0)
+                b, a = pid_block_b_a(replace(pid, action="reverse", **one), fs, method)
+                return DigitalReplay(b, a, fs, delay)
+
         else:
-            self.terms = []
-            if pid.ki > 0:
-                self.terms.append(AnalogReplay(Controller.analog([1.0], [1.0, 0.0])))
-            if pid.kd > 0:
-                if pid.tf <= 0:
-                    raise UnrealizableError(
-                        "fitting an unfiltered derivative from a log needs the form's derivative filter (n or tf)",
-                        key="fit",
-                    )
-                self.terms.append(AnalogReplay(Controller.analog([1.0, 0.0], [pid.tf, 1.0])))
-            self.p_term = None
+            if has_d and pid.tf <= 0:
+                raise UnrealizableError(
+                    "fitting an unfiltered derivative from a log needs the form's derivative filter (n or tf)",
+                    key="fit",
+                )
 
-    def run(self, t, e) -> np.ndarray:
-        cols = [self.p_term.run(t, e) if self.p_term is not None else e]
-        cols += [term.run(t, e) for term in self.terms]
-        return np.column_stack(cols + [np.ones_like(e)])
+            def unit(kind):
+                if kind == "p":
+                    return None
+                if kind == "i":
+                    return AnalogReplay(Controller.analog([1.0], [1.0, 0.0]))
+                return AnalogReplay(Controller.analog([1.0, 0.0], [pid.tf, 1.0]))
+
+        # (column name, unit engine, input: "r", "y" or "e", sign of the column in u)
+        cols = []
+        if paths:
+            cols += [("kp_b", unit("p"), "r", 1.0), ("kp", unit("p"), "y", -1.0)]
+        else:
+            cols += [("kp", unit("p"), "e", 1.0)]
+        if has_i:
+            cols.append(("ki", unit("i"), "e", 1.0))
+        if has_d:
+            cols += [("kd_c", unit("d"), "r", 1.0), ("kd", unit("d"), "y", -1.0)] if paths else [("kd", unit("d"), "e", 1.0)]
+        self.columns = [c[0] for c in cols]
+        self._cols = cols
+        self.terms = [c[1] for c in cols if c[1] is not None]
+        self.multipliers = np.array([self.sign * c[3] for c in cols] + [1.0])
+
+    def run(self, t, e, r=None, y=None) -> np.ndarray:
+        """The regressor columns (and a column of ones) for the rows ``t``."""
+        if self.paths:
+            if self.r0 is None:
+                self.r0 = float(r[0])
+            inputs = {"e": e, "r": r - self.r0, "y": y - self.r0}
+        else:
+            inputs = {"e": e}
+        out = [inputs[src] if eng is None else eng.run(t, inputs[src]) for _, eng, src, _ in self._cols]
+        return np.column_stack(out + [np.ones_like(e)])
 
 
 # ----------------------------------------------------------------------------- the pass
+#: above this share of the rows left out (saturated or with an empty cell) a form's residual
+#: criteria are not judged: what is left does not show the law (our judgement, stated in the output)
+MAX_LEFT_OUT = 0.5
+#: a replayed output this close to a limit (as a share of the limits' span) counts as at the limit
+REPLAY_AT_LIMIT = 1e-3
+
+
+@dataclass
+class _Saturation:
+    """How the final pass leaves rows out as saturated: ``levels`` (low, high) are the given
+    output limits, or without them the logged output's extremes (a held row counts only at
+    them); ``offsets`` per form: the mean residual of the rows not at a level (the running
+    controller's unknown state), added to the replay before it is compared with the level (None:
+    no such row, nothing can be decided, every row at a level is left out)."""
+
+    levels: tuple[float, float]
+    given: bool
+    offsets: list
+
+
+def _tolerance(lo: float, hi: float) -> float:
+    return 1e-6 * max(1.0, abs(hi - lo))
+
+
+class _Pass:
+    """One streamed pass over the log: each form replayed, its residual accumulated over the rows
+    it can be judged on, and the PID fit's normal equations."""
+
+    def __init__(self, lay, path, kind, engines, terms, settle, output_limits, rule, two_paths):
+        self.lay, self.path, self.kind = lay, path, kind
+        self.engines, self.terms, self.settle = engines, terms, settle
+        self.output_limits, self.rule, self.two_paths = output_limits, rule, two_paths
+        self.stats = [_Stats() for _ in engines]
+        self.left_out = [0] * len(engines)  # rows at a level left out, per form
+        self.kept_at_level = [0] * len(engines)  # rows at a level the replay does not reach, judged
+        self.normal = _Normal(len(terms.columns) + 1) if terms is not None else None
+        self.sketch = _Sketch(2 + len(engines))
+        self.rows = self.missing = self.settle_rows = self.at_level = self.gap_count = 0
+        self.gaps, self.spans = [], []
+        self.t_first = self.t_last = self.step = None
+        self.uneven = False
+        self.lo_out, self.hi_out = np.inf, -np.inf
+
+    def run(self, chunk_rows: int):
+        run_val = span_open = None
+        path, lay = self.path, self.lay
+        for lines, data in chunks(
+            lay, chunk_rows=chunk_rows, allow_missing=("setpoint", "measurement", "error", "output")
+        ):
+            t = data["time"]
+            e = data["error"] if self.kind == "error" else data["setpoint"] - data["measurement"]
+            r, y = (data["setpoint"], data["measurement"]) if self.two_paths else (None, None)
+            out = data["output"]
+            tcol = lay.first("time")
+            if self.t_last is not None and t[0] <= self.t_last:
+                raise InputError(
+                    f"column {tcol.header!r}: time must rise row by row; {t[0] / tcol.factor:g} follows "
+                    f"{self.t_last / tcol.factor:g}",
+                    where=f"{path.name}:{lines[0]}",
+                )
+            bad = np.flatnonzero(np.diff(t) <= 0)
+            if bad.size:
+                i = bad[0] + 1
+                raise InputError(
+                    f"column {tcol.header!r}: time must rise row by row; {t[i] / tcol.factor:g} follows "
+                    f"{t[i - 1] / tcol.factor:g}",
+                    where=f"{path.name}:{lines[i]}",
+                )
+            ok = np.isfinite(e) & np.isfinite(out)
+            if self.two_paths:
+                ok &= np.isfinite(r) & np.isfinite(y)
+                r, y = r[ok], y[ok]
+            self.missing += int((~ok).sum())
+            t, e, out = t[ok], e[ok], out[ok]
+            if t.size == 0:
+                continue
+            self.rows += t.size
+            if self.t_first is None:
+                self.t_first = float(t[0])
+                dts = np.diff(t)
+                self.step = float(np.median(dts)) if dts.size else 0.0
+            h = np.diff(np.r_[self.t_last, t]) if self.t_last is not None else np.diff(t)
+            if self.step and h.size:
+                self.uneven |= bool(np.ptp(h) > 1e-6 * self.step)
+                gi = np.flatnonzero(h > GAP_FACTOR * self.step)
+                self.gap_count += gi.size
+                ts = np.r_[self.t_last, t] if self.t_last is not None else t
+                for i in gi[: max(0, 20 - len(self.gaps))]:
+                    self.gaps.append((float(ts[i]), float(ts[i + 1])))
+            self.t_last = float(t[-1])
+            self.lo_out, self.hi_out = min(self.lo_out, float(out.min())), max(self.hi_out, float(out.max()))
+            lo_at, hi_at, run_val = self._at_levels(out, e, run_val)
+            at = lo_at | hi_at
+            self.at_level += int(at.sum())
+            span_open = _spans(t, at, self.spans, span_open)
+            late = t >= self.t_first + self.settle
+            replayed = []
+            for i, ((_, eng), st) in enumerate(zip(self.engines, self.stats)):
+                ys = eng.run_paths(t, r, y) if self.two_paths and getattr(eng, "two_paths", False) else eng.run(t, e)
+                out_f = self._left_out(i, ys, lo_at, hi_at)
+                self.left_out[i] += int(out_f.sum())
+                self.kept_at_level[i] += int((at & ~out_f).sum())
+                st.add((out - ys)[late & ~out_f])
+                replayed.append(ys)
+            self.settle_rows += int((~late & ~at).sum())
+            if self.terms is not None:
+                X = self.terms.run(t, e, r, y)
+                use = late & ~at
+                self.normal.add(X[use] * self.terms.multipliers, out[use])
+            self.sketch.add(np.column_stack([t, out] + replayed))
+        if span_open is not None:
+            self.spans.append((span_open, self.t_last))
+        return self
+
+    def _at_levels(self, out, e, run_val):
+        """Rows whose logged output sits at the low / high level: at the given limits; without
+        them, held still while the input moved (two steps or more), and in the final pass only at
+        the logged output's own extremes."""
+        if self.output_limits is not None:
+            lo, hi = self.output_limits
+            tol = _tolerance(lo, hi)
+            return out <= lo + tol, out >= hi - tol, None
+        held = _held_while_input_moves(out, e, run_val)
+        run_val = (out[-1], e[-1])
+        if self.rule is None:  # first pass: every held row (the extremes are not known yet)
+            return held, np.zeros_like(held), run_val
+        lo, hi = self.rule.levels
+        tol = _tolerance(lo, hi)
+        return held & (out <= lo + tol), held & (out >= hi - tol), run_val
+
+    def _left_out(self, i, ys, lo_at, hi_at):
+        """Rows of form ``i`` left out as saturated: in the first pass every row at a level (to
+        find the free rows' offset); in the final pass only where the replayed form, with that
+        offset, is itself at or beyond the level."""
+        if self.rule is None:
+            return lo_at | hi_at
+        off = self.rule.offsets[i]
+        if off is None:
+            return lo_at | hi_at
+        lo, hi = self.rule.levels
+        tol = REPLAY_AT_LIMIT * (hi - lo)
+        v = ys + off
+        return (lo_at & (v <= lo + tol)) | (hi_at & (v >= hi - tol))
+
+
 def log_evidence(
     path: str | Path,
     forms: list,
@@ -476,13 +750,24 @@ def log_evidence(
 ) -> LogEvidence:
     """Replay the log at ``path`` through each ``(name, GivenForm or replay engine)`` of ``forms``;
     ``fit``: a GivenForm with PID settings whose parameters to fit from the log (or None).
-    ``output_limits`` (low, high): the output's limits, to find saturated rows."""
+    ``output_limits`` (low, high): the output's limits, to find saturated rows.
+
+    A row is left out of a form's figures as saturated only where the logged output is at a limit
+    (the given limits; without them, held still at the logged output's own highest or lowest
+    level) **and** the form's replay, with its offset, is itself at or beyond that limit: a logged
+    output pinned or frozen where the law does not go is a mismatch, and counts. Rows are read
+    twice when some sit at a limit (the first pass finds each form's offset from the other rows).
+    A form with more than :data:`MAX_LEFT_OUT` of its rows left out, or that weighs the setpoint
+    while the log has only the error, gets ``figures["unjudged"]``: the reason it is not judged."""
+    import copy
+
     path = Path(path)
     lay = layout(path, LOG_ROLES, columns=columns, units=units, decimal=decimal, option=option)
     have = set(lay.columns)
+    both = {"setpoint", "measurement"} <= have
     if "error" in have:
         kind = "error"
-    elif {"setpoint", "measurement"} <= have:
+    elif both:
         kind = "setpoint − measurement"
     else:
         raise InputError(
@@ -491,113 +776,86 @@ def log_evidence(
             where=f"{path.name}:1",
         )
     notes = []
-    if "error" in have and ({"setpoint", "measurement"} & have):
-        notes.append("the log has an error column and setpoint/measurement; the error column is used")
     engines = [(name, g if hasattr(g, "run") else replayer(g)) for name, g in forms]
-    stats = [_Stats() for _ in engines]
-    terms = _PidTerms(fit) if fit is not None else None
-    normal = _Normal(len(terms.names) + 1) if terms is not None else None
+    weighted = [name for name, eng in engines if getattr(eng, "two_paths", False)]
+    if "error" in have and ({"setpoint", "measurement"} & have):
+        notes.append(
+            "the log has an error column and setpoint/measurement; the error column is used"
+            + (f" (and setpoint and measurement for {', '.join(weighted)}: a setpoint path of its own)" if weighted and both else "")
+        )
+    spare = copy.deepcopy(engines)  # fresh engines for a second pass
+    terms = _PidTerms(fit, both) if fit is not None else None
+    if terms is not None and terms.weighted and not both:
+        raise InputError(
+            f"the PID weighs the setpoint (b = {terms.weights[0]:g}, c = {terms.weights[1]:g}): its law "
+            "u = kp·(b·r − y) + ki·∫(r − y) + kd·D(c·r − y) cannot be fitted from the error alone; log "
+            "'setpoint' and 'measurement' columns",
+            key="fit",
+        )
     settle = max([getattr(e, "settle_s", 0.0) for _, e in engines] + [0.0])
     if terms is not None:
         settle = max([settle] + [getattr(x, "settle_s", 0.0) for x in terms.terms])
-    sketch = _Sketch(2 + len(engines))
-    rows = missing = settle_rows = saturated = gap_count = 0
-    gaps, spans = [], []
-    t_first = t_last = None
-    step = None
-    uneven = False
-    lo_out, hi_out = np.inf, -np.inf
-    run_val = None
-    span_open = None
-    prev_line = None
-    for lines, data in chunks(lay, chunk_rows=chunk_rows, allow_missing=("setpoint", "measurement", "error", "output")):
-        t = data["time"]
-        e = data["error"] if kind == "error" else data["setpoint"] - data["measurement"]
-        out = data["output"]
-        tcol = lay.first("time")
-        if t_last is not None and t[0] <= t_last:
-            raise InputError(
-                f"column {tcol.header!r}: time must rise row by row; {t[0] / tcol.factor:g} follows "
-                f"{t_last / tcol.factor:g}",
-                where=f"{path.name}:{lines[0]}",
-            )
-        bad = np.flatnonzero(np.diff(t) <= 0)
-        if bad.size:
-            i = bad[0] + 1
-            raise InputError(
-                f"column {tcol.header!r}: time must rise row by row; {t[i] / tcol.factor:g} follows "
-                f"{t[i - 1] / tcol.factor:g}",
-                where=f"{path.name}:{lines[i]}",
-            )
-        ok = np.isfinite(e) & np.isfinite(out)
-        missing += int((~ok).sum())
-        t, e, out, lines = t[ok], e[ok], out[ok], lines[ok]
-        if t.size == 0:
-            continue
-        rows += t.size
-        if t_first is None:
-            t_first = float(t[0])
-            dts = np.diff(t)
-            step = float(np.median(dts)) if dts.size else 0.0
-        h = np.diff(np.r_[t_last, t]) if t_last is not None else np.diff(t)
-        if step and h.size:
-            uneven |= bool(np.ptp(h) > 1e-6 * step)
-            gi = np.flatnonzero(h > GAP_FACTOR * step)
-            gap_count += gi.size
-            ts = np.r_[t_last, t] if t_last is not None else t
-            for i in gi[: max(0, 20 - len(gaps))]:
-                gaps.append((float(ts[i]), float(ts[i + 1])))
-        t_last = float(t[-1])
-        lo_out, hi_out = min(lo_out, float(out.min())), max(hi_out, float(out.max()))
-        # saturation: at the given limits, else a flat run (three rows or more) judged after the pass
-        if output_limits is not None:
-            tol = 1e-6 * max(1.0, abs(output_limits[1] - output_limits[0]))
-            sat = (out <= output_limits[0] + tol) | (out >= output_limits[1] - tol)
-        else:
-            sat = _held_while_input_moves(out, e, run_val)
-            run_val = (out[-1], e[-1])
-        saturated += int(sat.sum())
-        span_open = _spans(t, sat, spans, span_open)
-        use = ~sat & (t >= t_first + settle)
-        settle_rows += int(((t < t_first + settle) & ~sat).sum())
-        replayed = []
-        for (name, eng), st in zip(engines, stats):  # noqa: B007
-            y = eng.run(t, e)
-            st.add((out - y)[use])
-            replayed.append(y)
-        if terms is not None:
-            X = terms.run(t, e)
-            normal.add(X[use] * np.r_[[terms.sign] * (X.shape[1] - 1), 1.0], out[use])
-        sketch.add(np.column_stack([t, out] + replayed))
-        prev_line = lines[-1]
-    if rows == 0:
+    first = _Pass(lay, path, kind, engines, terms, settle, output_limits, None, both).run(chunk_rows)
+    if first.rows == 0:
         raise InputError("no data rows with all values after the header", where=f"{path.name}:2")
-    if hi_out == lo_out:  # nothing to replay against: every figure would be about a constant
+    if first.hi_out == first.lo_out:  # nothing to replay against: every figure would be about a constant
         col = lay.first("output")
         raise InputError(
-            f"column {col.header!r} never moves: {lo_out / getattr(col, 'factor', 1.0):g} in all {rows:,} "
-            "rows, so the log shows nothing of how the controller responds (in manual, held or saturated "
-            "throughout); log a period in automatic where the output moves",
+            f"column {col.header!r} never moves: {first.lo_out / getattr(col, 'factor', 1.0):g} in all "
+            f"{first.rows:,} rows, so the log shows nothing of how the controller responds (in manual, held or "
+            "saturated throughout); log a period in automatic where the output moves",
             where=f"{path.name}:2",
         )
-    if span_open is not None:
-        spans.append((span_open, t_last))
-    if output_limits is None and saturated:
-        notes.append(
-            "saturation found where the output held still while the input moved, for two steps or more "
-            "(give the output limits to find it exactly)"
-        )
-    span_range = (lo_out, hi_out)
-    rng = hi_out - lo_out
+    done = first
+    if first.at_level:
+        levels = tuple(output_limits) if output_limits is not None else (first.lo_out, first.hi_out)
+        offsets = [st.mean if st.n else None for st in first.stats]
+        rule = _Saturation(levels, output_limits is not None, offsets)
+        terms2 = _PidTerms(fit, both) if fit is not None else None
+        done = _Pass(lay, path, kind, spare, terms2, settle, output_limits, rule, both).run(chunk_rows)
+        terms = terms2
+        if output_limits is None and done.at_level:
+            notes.append(
+                "no output limits given: rows where the output held still while the input moved, at the "
+                "logged output's own highest or lowest level, are taken as saturated (give the output "
+                "limits to find it exactly)"
+            )
+        if output_limits is None and first.at_level > done.at_level:
+            notes.append(
+                f"{first.at_level - done.at_level:,} rows where the output held still while the input moved, "
+                "away from the logged output's extremes, are judged (a frozen output is not a saturated one)"
+            )
+    rows, missing = done.rows, done.missing
+    rng = done.hi_out - done.lo_out
     replays = []
-    for (name, _), st in zip(engines, stats):
+    for i, ((name, eng), st) in enumerate(zip(engines, done.stats)):
         fig = st.figures()
         fig["rms_rel"] = fig["rms"] / rng if fig["rms"] is not None and rng > 0 else None
         fig["peak_rel"] = fig["peak"] / rng if fig["peak"] is not None and rng > 0 else None
         fig["offset_rel"] = fig["offset"] / rng if fig["offset"] is not None and rng > 0 else None
+        fig["saturated"] = done.left_out[i]
+        fig["at_limit_judged"] = done.kept_at_level[i]
+        share = (done.left_out[i] + missing) / (rows + missing)
+        fig["left_out_share"] = share
+        fig["input"] = (
+            "setpoint and measurement, each through its own path"
+            if getattr(eng, "two_paths", False) and both
+            else kind
+        )
+        fig["unjudged"] = None
+        if getattr(eng, "two_paths", False) and not both:
+            fig["unjudged"] = (
+                f"it weighs the setpoint ({eng.weights}), and the log has the error only: its setpoint path "
+                "cannot be replayed (log 'setpoint' and 'measurement' columns)"
+            )
+        elif share > MAX_LEFT_OUT:
+            fig["unjudged"] = (
+                f"{100 * share:.3g} % of the rows were left out (saturated {done.left_out[i]:,}, with an empty "
+                f"cell {missing:,}); above {100 * MAX_LEFT_OUT:g} % the rest does not show the law"
+            )
         replays.append(FormReplay(name, fig))
-    fit_result = _solve_fit(normal, terms, fit) if terms is not None else None
-    sk = sketch.array()
+    fit_result = _solve_fit(done.normal, terms, fit) if terms is not None else None
+    sk = done.sketch.array()
     sketch_data = {
         "t": sk[:, 0],
         "output": sk[:, 1],
@@ -608,21 +866,20 @@ def log_evidence(
             f"the first {settle:.4g} s (five time constants of the slowest decaying mode) are left out of "
             "the figures: the running controller's state at the first row is unknown"
         )
-    del prev_line
     return LogEvidence(
         path,
         rows,
-        (t_first, t_last),
-        step or 0.0,
-        uneven,
-        gaps,
-        gap_count,
-        saturated,
-        spans[:20],
+        (done.t_first, done.t_last),
+        done.step or 0.0,
+        done.uneven,
+        done.gaps,
+        done.gap_count,
+        done.at_level,
+        done.spans[:20],
         missing,
-        settle_rows,
+        done.settle_rows,
         kind,
-        span_range,
+        (done.lo_out, done.hi_out),
         replays,
         fit_result,
         sketch_data,
@@ -668,35 +925,75 @@ def _spans(t, sat, spans, open_at):
 
 
 def _solve_fit(normal: _Normal, terms: _PidTerms, given) -> PidLogFit:
-    p = normal.xtx.shape[0]
+    notes = []
+    cols = list(terms.columns)
+    keep = np.arange(len(cols) + 1)
+    if terms.paths:
+        # a setpoint that never moved leaves its columns (kp·b, kd·c) zero: the weights are not seen
+        diag = np.diag(normal.xtx)
+        scale = max(float(diag[:-1].max()), 1e-300)
+        unseen = [i for i, n in enumerate(cols) if n in ("kp_b", "kd_c") and diag[i] <= 1e-20 * scale]
+        if unseen:
+            notes.append(
+                "the setpoint did not move in the log: the setpoint weights b and c cannot be seen, and "
+                "kp, ki, kd are fitted on the measurement alone"
+            )
+            keep = np.array([i for i in range(len(cols) + 1) if i not in unseen])
+            cols = [n for i, n in enumerate(cols) if i not in unseen]
+    xtx, xty = normal.xtx[np.ix_(keep, keep)], normal.xty[keep]
+    p = xtx.shape[0]
     if normal.n <= p:
         raise InputError(f"too few usable rows to fit {p} values ({normal.n})", key="fit")
     try:
-        theta = np.linalg.solve(normal.xtx, normal.xty)
-        inv = np.linalg.inv(normal.xtx)
+        theta = np.linalg.solve(xtx, xty)
+        inv = np.linalg.inv(xtx)
     except np.linalg.LinAlgError:
         raise InputError(
             "the log does not excite the controller enough to tell its terms apart (the input is "
             "constant or too smooth)",
             key="fit",
         ) from None
-    rss = max(normal.yty - 2 * theta @ normal.xty + theta @ normal.xtx @ theta, 0.0)
+    rss = max(normal.yty - 2 * theta @ xty + theta @ xtx @ theta, 0.0)
     sigma2 = rss / (normal.n - p)
-    half = 1.959963984540054 * np.sqrt(np.maximum(np.diag(inv) * sigma2, 0.0))
-    values = {n: float(theta[i]) for i, n in enumerate(terms.names)}
-    ci = {n: float(half[i]) for i, n in enumerate(terms.names)}
-    notes = [
+    cov = inv * sigma2
+    at = {n: i for i, n in enumerate(cols)}
+    values, ci = {}, {}
+    z95 = 1.959963984540054
+    for n in ("kp", "ki", "kd"):
+        if n in at:
+            values[n] = float(theta[at[n]])
+            ci[n] = float(z95 * np.sqrt(max(cov[at[n], at[n]], 0.0)))
+    for w, num, den in (("b", "kp_b", "kp"), ("c", "kd_c", "kd")):
+        if num in at and den in at:
+            # the weight is a ratio of two fitted columns: its interval by the delta method
+            i, j = at[num], at[den]
+            q = theta[i] / theta[j]
+            g = np.array([1.0 / theta[j], -theta[i] / theta[j] ** 2])
+            var = g @ cov[np.ix_([i, j], [i, j])] @ g
+            values[w], ci[w] = float(q), float(z95 * np.sqrt(max(var, 0.0)))
+    if terms.paths and ("b" in values or "c" in values):
+        notes.append(
+            "setpoint and measurement each through its own path: the setpoint weights b and c are fitted "
+            f"too (A has b = {terms.weights[0]:g}, c = {terms.weights[1]:g})"
+        )
+    elif not terms.paths:
+        notes.append(
+            "the log has the error only: the fit assumes the law acts on the error (b = c = 1); setpoint "
+            "weights would need setpoint and measurement columns"
+        )
+    notes.append(
         "intervals assume independent residuals; a slowly wandering residual (unmeasured disturbance, "
         "a plant that drifts) makes them too narrow"
-    ]
-    cond = np.linalg.cond(normal.xtx)
+    )
+    cond = np.linalg.cond(xtx)
     if cond > 1e12:
         notes.append(
             f"the terms are nearly indistinguishable in this log (condition number {cond:.2g}); the values "
             "are poorly determined"
         )
+    names = tuple(n for n in ("kp", "ki", "kd", "b", "c") if n in values)
     return PidLogFit(
-        tuple(terms.names),
+        names,
         values,
         ci,
         float(theta[-1]),
