@@ -23,10 +23,17 @@ The residual (logged − replayed output) is reported as its mean (the **offset*
 running controller had at the first row, a bias, or a tracking difference — estimated and
 reported, never silently removed), and its RMS and peak about that offset, relative to the
 logged output's range. Rows are left out of the figures, and counted, where the log cannot
-judge the linear law: saturated stretches (output at the given limits, or held flat at the
-row while the input moved, for two steps or more), rows with an empty or NaN cell, and the first five
-time constants of the slowest decaying mode (the unknown initial state). Gaps (a time step more
-than five times the median step) are stated; the input is interpolated across them.
+judge the linear law: a row whose logged output sits at a limit (the given limits; without
+them, held flat while the input moved, for two steps or more, at the logged output's own highest
+or lowest level) **and** where the form's replay, with its offset, is at or beyond that limit
+too (a second pass, the offset taken from the other rows); rows with an empty or NaN cell; and
+the first five time constants of the slowest decaying mode (the unknown initial state). A form
+with more than half of its rows left out is not judged. Gaps (a time step more than five times
+the median step) are stated; the input is interpolated across them.
+
+A form whose setpoint path differs from its error path (PID weights b, c ≠ 1; a two-input card)
+is a :class:`TwoPathReplay`: setpoint and measurement each through its own path when the log has
+both; from an error-only log it is not judged.
 """
 
 from __future__ import annotations
@@ -890,14 +897,16 @@ def log_evidence(
 
 def _held_while_input_moves(out: np.ndarray, e: np.ndarray, prev) -> np.ndarray:
     """Rows where the output holds still while the input moves, for two steps or more in a row
-    (a clamped output); ``prev`` is the (output, input) of the row before this chunk."""
+    (a clamped output), and the row where such a hold begins (the output reached the level there);
+    ``prev`` is the (output, input) of the row before this chunk."""
     o = out if prev is None else np.r_[prev[0], out]
     x = e if prev is None else np.r_[prev[1], e]
     step = (o[1:] == o[:-1]) & (x[1:] != x[:-1])
     row = np.r_[False, step] if prev is None else step
     before = np.r_[False, row[:-1]]
     after = np.r_[row[1:], False]
-    return row & (before | after)
+    held = row & (before | after)
+    return held | np.r_[held[1:], False]
 
 
 def _spans(t, sat, spans, open_at):
