@@ -275,3 +275,32 @@ def test_case_replays_the_source_and_the_pid_block_with_their_weights(tmp_path):
     res, logs = run("err")
     assert all(j.status == "skipped" for j in logs.values())
     assert res.verdict.overall == "unchecked" and "weighs the setpoint" in res.verdict.unchecked_reason
+
+
+def test_case_replays_a_two_input_circuit_through_its_setpoint_path(tmp_path):
+    """A circuit target of the pid-two-input topology (its own setpoint network, parts rounded to
+    the series): its replay runs its setpoint path on the setpoint, so the log of the weighted law
+    (python-control) passes within the rounding and the unweighted firmware's log fails; an
+    error-only log leaves it unjudged."""
+    from convert.case import load_case
+    from convert.compare.evaluate import evaluate_case
+
+    body = CASE.split("[target.digital]")[0] + (
+        '[target.circuit]\ntopology = "pid-two-input"\n'
+        '[criteria]\nband = ["1 mHz", "0.2 Hz"]\nmax_gain_error_db = 1\nmax_phase_error_deg = 15\n'
+        '[evidence.log]\nfile = "{file}"\nmax_residual_rms = "2 %"\nmax_residual_peak = "5 %"\n'
+    )
+    t, r, y, u = _two_dof(0.5, 0.0)
+    _csv(tmp_path / "ok.csv", "time (s),setpoint,measurement,output", t, r, y, u)
+    _csv(tmp_path / "err.csv", "time (s),error,output", t, r - y, u)
+    t1, r1, y1, u1 = _two_dof(1.0, 1.0)
+    _csv(tmp_path / "wrong.csv", "time (s),setpoint,measurement,output", t1, r1, y1, u1)
+    status = {}
+    for name in ("ok", "wrong", "err"):
+        p = tmp_path / f"{name}.toml"
+        p.write_text(body.format(file=f"{name}.csv"))
+        res = evaluate_case(load_case(p))
+        status[name] = {j.criterion: j for j in res.verdict.judgements if j.realization.startswith("log: circuit")}
+    assert status["ok"]["max_residual_peak"].status == "pass" and status["ok"]["max_residual_peak"].value < 0.01
+    assert status["wrong"]["max_residual_peak"].status == "fail"
+    assert {j.status for j in status["err"].values()} == {"skipped"}

@@ -145,16 +145,19 @@ def circuit_realization(
         "distribution": tgt.distribution,
         "total": mc.figures["total"],
     }
+    # a two-input stage runs its own setpoint path (from its rounded parts); a one-input stage
+    # has u = C·(r − y) and is judged against the source's weighted response
+    own = None
+    if topo.two_input:
+        paths = topo.paths_from_parts(rounded)
+        own = _ratio(paths["setpoint"], paths["measurement"], "setpoint filter F = Cr / Cy")
+        if own.order == 0 and len(own.num) == 1 and abs(own.num[0] - 1.0) <= 1e-9:
+            own = None
+        else:
+            # a plant log replays it on the setpoint, with the realization's sign (Cy = ±realized)
+            r.setpoint_path = paths["setpoint"].scaled(float(np.sign(realized.gain * paths["measurement"].gain)))
     if case.plant is not None:
         r.margins = loop_margins(realized, case.plant.model, case.plant.dead_time_s)
-        # a two-input stage runs its own setpoint path (from its rounded parts); a one-input stage
-        # has u = C·(r − y) and is judged against the source's weighted response
-        own = None
-        if topo.two_input:
-            paths = topo.paths_from_parts(rounded)
-            own = _ratio(paths["setpoint"], paths["measurement"], "setpoint filter F = Cr / Cy")
-            if own.order == 0 and len(own.num) == 1 and abs(own.num[0] - 1.0) <= 1e-9:
-                own = None
         limits = case.signals.output_range
         if tgt.rail_v is not None:  # the op-amps cannot drive the output past their rail
             rail = (-tgt.rail_v, tgt.rail_v)

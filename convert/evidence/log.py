@@ -791,7 +791,9 @@ def log_evidence(
             + (f" (and setpoint and measurement for {', '.join(weighted)}: a setpoint path of its own)" if weighted and both else "")
         )
     spare = copy.deepcopy(engines)  # fresh engines for a second pass
-    terms = _PidTerms(fit, both) if fit is not None else None
+    # setpoint and measurement are read as such (rows where either is empty skipped) only where used
+    paths = both and (bool(weighted) or fit is not None)
+    terms = _PidTerms(fit, paths) if fit is not None else None
     if terms is not None and terms.weighted and not both:
         raise InputError(
             f"the PID weighs the setpoint (b = {terms.weights[0]:g}, c = {terms.weights[1]:g}): its law "
@@ -802,7 +804,7 @@ def log_evidence(
     settle = max([getattr(e, "settle_s", 0.0) for _, e in engines] + [0.0])
     if terms is not None:
         settle = max([settle] + [getattr(x, "settle_s", 0.0) for x in terms.terms])
-    first = _Pass(lay, path, kind, engines, terms, settle, output_limits, None, both).run(chunk_rows)
+    first = _Pass(lay, path, kind, engines, terms, settle, output_limits, None, paths).run(chunk_rows)
     if first.rows == 0:
         raise InputError("no data rows with all values after the header", where=f"{path.name}:2")
     if first.hi_out == first.lo_out:  # nothing to replay against: every figure would be about a constant
@@ -818,8 +820,8 @@ def log_evidence(
         levels = tuple(output_limits) if output_limits is not None else (first.lo_out, first.hi_out)
         offsets = [st.mean if st.n else None for st in first.stats]
         rule = _Saturation(levels, output_limits is not None, offsets)
-        terms2 = _PidTerms(fit, both) if fit is not None else None
-        done = _Pass(lay, path, kind, spare, terms2, settle, output_limits, rule, both).run(chunk_rows)
+        terms2 = _PidTerms(fit, paths) if fit is not None else None
+        done = _Pass(lay, path, kind, spare, terms2, settle, output_limits, rule, paths).run(chunk_rows)
         terms = terms2
         if output_limits is None and done.at_level:
             notes.append(
