@@ -217,7 +217,9 @@ def test_weighted_pid_block_against_a_loop_of_its_difference_equations(run_cli, 
     for name, true in (("kp", KP), ("ki", KI), ("kd", KD), ("b", 0.5)):
         assert fit[name] == pytest.approx(true, rel=1e-6), fit
     assert abs(fit["c"]) < 1e-6
-    res = run_cli("compare", "pid: kp=2 ki=0.1/s kd=4s tf=0.2s fs=10Hz method=backward-euler", "--log", str(path), *LIMITS)
+    res = run_cli(
+        "compare", "pid: kp=2 ki=0.1/s kd=4s tf=0.2s fs=10Hz method=backward-euler", "--log", str(path), *LIMITS
+    )
     assert res.code == 1 and "verdict: FAIL" in res.out
 
 

@@ -421,7 +421,9 @@ def judge_log(ev, limits: dict) -> dict:
                 }
             )
     statuses = {j["status"] for j in out}
-    overall = "none" if not out else "fail" if "fail" in statuses else "unchecked" if "unchecked" in statuses else "pass"
+    overall = (
+        "none" if not out else "fail" if "fail" in statuses else "unchecked" if "unchecked" in statuses else "pass"
+    )
     return {"overall": overall, "judgements": out}
 
 

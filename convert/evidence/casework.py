@@ -191,7 +191,10 @@ def _setpoint_paths(case, info, realizations) -> dict:
             b, c = (info.pid.b, info.pid.c) if info.pid is not None else (None, None)
             if case.digital and case.digital.setpoint_weights:
                 b, c = case.digital.setpoint_weights
-            out[r.name] = (r.setpoint_path, f"setpoint weights b = {b:g}, c = {c:g}" if b is not None else "setpoint weights")
+            out[r.name] = (
+                r.setpoint_path,
+                f"setpoint weights b = {b:g}, c = {c:g}" if b is not None else "setpoint weights",
+            )
         elif r.name in given:
             g = given[r.name]
             gi = given_controller(g, case)

@@ -579,7 +579,11 @@ class _PidTerms:
         if has_i:
             cols.append(("ki", unit("i"), "e", 1.0))
         if has_d:
-            cols += [("kd_c", unit("d"), "r", 1.0), ("kd", unit("d"), "y", -1.0)] if paths else [("kd", unit("d"), "e", 1.0)]
+            cols += (
+                [("kd_c", unit("d"), "r", 1.0), ("kd", unit("d"), "y", -1.0)]
+                if paths
+                else [("kd", unit("d"), "e", 1.0)]
+            )
         self.columns = [c[0] for c in cols]
         self._cols = cols
         self.terms = [c[1] for c in cols if c[1] is not None]
@@ -788,7 +792,11 @@ def log_evidence(
     if "error" in have and ({"setpoint", "measurement"} & have):
         notes.append(
             "the log has an error column and setpoint/measurement; the error column is used"
-            + (f" (and setpoint and measurement for {', '.join(weighted)}: a setpoint path of its own)" if weighted and both else "")
+            + (
+                f" (and setpoint and measurement for {', '.join(weighted)}: a setpoint path of its own)"
+                if weighted and both
+                else ""
+            )
         )
     spare = copy.deepcopy(engines)  # fresh engines for a second pass
     # setpoint and measurement are read as such (rows where either is empty skipped) only where used
@@ -847,9 +855,7 @@ def log_evidence(
         share = (done.left_out[i] + missing) / (rows + missing)
         fig["left_out_share"] = share
         fig["input"] = (
-            "setpoint and measurement, each through its own path"
-            if getattr(eng, "two_paths", False) and both
-            else kind
+            "setpoint and measurement, each through its own path" if getattr(eng, "two_paths", False) and both else kind
         )
         fig["unjudged"] = None
         if getattr(eng, "two_paths", False) and not both:
