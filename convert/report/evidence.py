@@ -160,7 +160,7 @@ def evidence_tables(results) -> list:
         out.append(
             (
                 f"Evidence: plant log {lg.path.name} replayed ({lg.rows:,} rows, input {lg.input_kind}, "
-                f"{lg.saturated_rows:,} saturated, {lg.gap_count} gaps, {lg.missing_rows} with a missing cell)",
+                f"{lg.saturated_rows:,} with the output at a limit (left out where the form is at it too), {lg.gap_count} gaps, {lg.missing_rows} with a missing cell)",
                 ["form", "offset (of range)", "RMS about it", "peak about it", "rows used"],
                 rows,
             )
