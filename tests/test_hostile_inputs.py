@@ -72,8 +72,11 @@ def test_fs_with_a_5000_digit_exponent_is_refused(run_cli):
 
 
 def test_fs_1e_300_hz_is_refused_naming_fs(run_cli):
-    """Was 'numerator: coefficients must be finite numbers, found [nan]' (naming no option)."""
-    _one_line_error(run_cli("digital", "1/(s+1)", "--fs", "1e-300Hz"), "--fs", "not a finite number")
+    """Was 'numerator: coefficients must be finite numbers, found [nan]' (naming no option). At
+    1e-300 Hz the sampled form is now finite (the matrix exponential no longer overflows to NaN)
+    and the rate is refused for lying beyond a double's precision from the corners; at 1e300 Hz
+    the matched form is not finite. Both say the rate is too far from the corners."""
+    _one_line_error(run_cli("digital", "1/(s+1)", "--fs", "1e-300Hz"), "--fs", "too far from the controller's corners")
     _one_line_error(run_cli("digital", "1/(s+1)", "--fs", "1e300Hz"), "--fs", "not a finite number")
 
 

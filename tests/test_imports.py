@@ -335,3 +335,23 @@ def test_the_option_check_can_fail():
         """
     )
     assert sorted(line for line, _ in _option_names(ast.parse(text))) == [2, 3, 4, 5]
+
+
+def test_demo_computations_load_no_scipy():
+    """The computation of every demo case without measured evidence (discretizations, loop
+    checks, budgets, Monte Carlo) runs on numpy alone: the small-matrix exponential, balancing
+    and zeros are convert.digital.smallmatrix / statespace, so scipy (0.2 s of import for
+    scipy.linalg alone) is not loaded. The evidence case fits a sweep with scipy.optimize."""
+    import pathlib
+
+    cases = sorted(p for p in (pathlib.Path(__file__).parent.parent / "cases").glob("*.toml") if "evidence" not in p.name)
+    assert len(cases) >= 5
+    loaded = _loaded_after(
+        f"""
+        from convert.case import load_case
+        from convert.compare.evaluate import evaluate_case
+        for path in {[str(p) for p in cases]!r}:
+            evaluate_case(load_case(path))
+        """
+    )
+    assert "scipy" not in loaded

@@ -49,7 +49,7 @@ import numpy as np
 from convert.compare.refine import maximize_in_brackets, root_in_bracket
 from convert.controller import Controller
 from convert.errors import InputError
-from convert.digital.statespace import foh_matrices, realize, small_dense, zoh_matrices
+from convert.digital.statespace import expm, foh_matrices, realize, small_dense, zoh_matrices
 
 MAX_SIM_STEPS = 4_000_000
 
@@ -855,8 +855,6 @@ class _SampledLoop(_LoopSystem):
         The input switches from the older to the newer held value at kT + τ; with
         E(s) = [[Φ(s), Γ(s)], [0, 1]] = E(h)^i, the part after the switch is Γ(s − τ) (read from
         E(s)·E(−τ)) and the part before it Γ(s) − Γ(s − τ)."""
-        from scipy.linalg import expm
-
         np_ = self.np_
         m = np.zeros((np_ + 1, np_ + 1))
         m[:np_, :np_] = self.ap
@@ -981,8 +979,6 @@ class _AnalogLoop(_LoopSystem):
     def _build_direct(self, mode):
         """No dead time: the continuous closed loop (or, clamped, the plant on a constant input and
         the controller on the measurement), discretized exactly over h."""
-        from scipy.linalg import expm
-
         np_, iu, dim = self.np_, self.iu, self.dim
         one = dim - 1
         unit = np.eye(dim)

@@ -153,6 +153,22 @@ def _refuse_overflowing_poles(controller: Controller, t: float) -> None:
             )
 
 
+def _refuse_periods_beyond_precision(controller: Controller, fs: float) -> None:
+    """A sample period longer than the controller's slowest time constant by more than the
+    precision of a double (1/eps ≈ 4.5e15: ``--fs 1e-300Hz`` on 1/(s+1)) says nothing about the
+    controller in floating point: e^{pT} of every pole is 0 by a margin of 1e15 in the exponent.
+    Refused naming fs (it used to surface as NaN from the matrix exponential's overflow)."""
+    t = 1.0 / fs
+    corners = [abs(complex(r)) for r in (*controller.poles(), *controller.zeros()) if r != 0]
+    if corners and min(corners) * t > 1.0 / np.finfo(float).eps:
+        raise InputError(
+            f"at fs = {fs:.6g} Hz the sample rate is too far from the controller's corners (one sample period is "
+            f"{min(corners) * t:.3g} times its slowest time constant, beyond the precision of a floating-point "
+            "number); choose a sample rate near its corners",
+            key="fs",
+        )
+
+
 @ss.small_dense
 def discretize(
     controller: Controller,
@@ -188,6 +204,7 @@ def discretize(
         )
     t = 1.0 / fs
     _refuse_overflowing_poles(controller, t)
+    _refuse_periods_beyond_precision(controller, fs)
     warnings: list[str] = []
     if prewarp_hz is not None:
         prewarp_hz = _check_rate(prewarp_hz, "prewarp")

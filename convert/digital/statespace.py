@@ -1,23 +1,28 @@
 """Small state-space helpers for the conversions: realization, zeros, evaluation.
 
 Matrices are plain numpy arrays; a SISO system is ``(A, B, C, D)`` with ``B`` of shape
-(n, 1), ``C`` of shape (1, n) and ``D`` a float. scipy is imported inside the functions.
+(n, 1), ``C`` of shape (1, n) and ``D`` a float. The linear algebra is numpy's
+(:mod:`convert.digital.smallmatrix`: matrix exponential, balancing); nothing here imports scipy.
 
 BLAS threads: the matrices here are a few rows wide, where starting and synchronizing the BLAS
-thread pool costs far more than the arithmetic (``scipy.linalg.expm`` of a 3×3 matrix: 11.7 ms
-with the default threads, 0.014 ms with one, as issue 15 measured). :data:`small_dense` limits
-BLAS to one thread for the duration of a call (threadpoolctl, scoped: the previous limits come
-back on exit; nested uses cost nothing), so large work elsewhere — a netlist's nodal solve —
-keeps every core.
+thread pool costs more than the arithmetic (issue 15 measured ``scipy.linalg.expm`` of a 3×3
+matrix at 11.7 ms with the default threads and 0.014 ms with one). numpy's own BLAS, which is
+all the work here uses now, still gains from the limit around the loop checks and simulations:
+the pi_card_to_firmware report took 1.9 s of CPU with it and 2.4 s without (5 runs each, one
+machine). :data:`small_dense` limits BLAS to one thread for the duration of a call
+(threadpoolctl, scoped: the previous limits come back on exit; nested uses cost nothing), so
+large work elsewhere — a netlist's nodal solve — keeps every core.
 """
 
 from __future__ import annotations
 
 import contextlib
+import sys
 import threading
 
 import numpy as np
 from convert.controller import Controller
+from convert.digital import smallmatrix
 from convert.digital.roots import RootForm
 
 
@@ -28,16 +33,19 @@ class _SmallDense(contextlib.ContextDecorator):
     def __init__(self):
         self._local = threading.local()
         self._controller = None
+        self._saw_scipy = False
         self._lock = threading.Lock()
 
     def _limiter(self):
-        if self._controller is None:
-            import scipy.linalg  # noqa: F401  (load scipy's BLAS first, so the controller sees it)
+        # the BLAS libraries are found once; again if scipy's own BLAS was loaded since
+        scipy_now = "scipy.linalg" in sys.modules
+        if self._controller is None or (scipy_now and not self._saw_scipy):
             from threadpoolctl import ThreadpoolController
 
             with self._lock:
-                if self._controller is None:
+                if self._controller is None or (scipy_now and not self._saw_scipy):
                     self._controller = ThreadpoolController()
+                    self._saw_scipy = scipy_now
         return self._controller.limit(limits=1, user_api="blas")
 
     def __enter__(self):
@@ -58,12 +66,9 @@ class _SmallDense(contextlib.ContextDecorator):
 small_dense = _SmallDense()
 
 
-@small_dense
 def expm(m: np.ndarray) -> np.ndarray:
-    """``scipy.linalg.expm`` of a small matrix, with one BLAS thread."""
-    from scipy.linalg import expm as _expm
-
-    return _expm(m)
+    """e^M of a small matrix: :func:`convert.digital.smallmatrix.expm` (numpy only)."""
+    return smallmatrix.expm(m)
 
 
 @small_dense
@@ -71,13 +76,11 @@ def zoh_matrices(a: np.ndarray, b: np.ndarray, t: float) -> tuple[np.ndarray, np
     """Exact sampling of ``x' = A x + B w`` for ``w`` held constant over ``t`` (s): Φ = e^{At} and
     Γ = ∫₀ᵗ e^{Aσ}dσ·B, read from one block-matrix exponential (Van Loan's construction)
     exp([[A t, B t], [0, 0]]) = [[Φ, Γ], [0, I]]. ``b`` of shape (n, m); Γ has the same shape."""
-    from scipy.linalg import expm as _expm
-
     n = a.shape[0]
     m = np.zeros((n + b.shape[1], n + b.shape[1]))
     m[:n, :n] = a * t
     m[:n, n:] = b * t
-    e = _expm(m)
+    e = expm(m)
     return e[:n, :n], e[:n, n:]
 
 
@@ -87,14 +90,12 @@ def foh_matrices(a: np.ndarray, b: np.ndarray, t: float) -> tuple[np.ndarray, np
     exp([[A t, B t, 0], [0, 0, 1], [0, 0, 0]]) = [[Φ, Γ1, Γ2], [0, 1, 1], [0, 0, 1]] with
     Γ1 = ∫₀ᵗ e^{Aσ}dσ·B and Γ2 = ∫₀ᵗ e^{Aσ}(t − σ)/t dσ·B, so that
     x(t) = Φ x(0) + (Γ1 − Γ2) w(0) + Γ2 w(t). ``b`` of shape (n, 1); Γ1, Γ2 of shape (n, 1)."""
-    from scipy.linalg import expm as _expm
-
     n = a.shape[0]
     m = np.zeros((n + 2, n + 2))
     m[:n, :n] = a * t
     m[:n, n : n + 1] = b * t
     m[n, n + 1] = 1.0
-    e = _expm(m)
+    e = expm(m)
     return e[:n, :n], e[:n, n : n + 1], e[:n, n + 1 :]
 
 
@@ -111,8 +112,6 @@ def realize(num, den) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
     wrong by 5e-4 relative and the sampled gain by 6e-5 (against a 50-digit reference), which the
     cascade form brings down to rounding level.
     """
-    from scipy.linalg import matrix_balance
-
     den = np.trim_zeros(np.asarray(den, dtype=float), "f")
     num = np.trim_zeros(np.asarray(num, dtype=float), "f")
     if den.size == 0:
@@ -126,7 +125,7 @@ def realize(num, den) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
     a, b, c, d = cascade(rf.zeros, rf.poles, float(num[0] / den[0]))
     if a.shape[0] == 0:
         return a, b, c, d
-    ab, t = matrix_balance(a, permute=False)
+    ab, t = smallmatrix.balance(a)
     return ab, np.linalg.solve(t, b), c @ t, d
 
 
@@ -144,31 +143,78 @@ def evaluate(a, b, c, d, points) -> np.ndarray:
     return out
 
 
-@small_dense
 def transmission_zeros(a, b, c, d, count: int, bound: float | None = None) -> np.ndarray:
-    """The ``count`` finite zeros of a SISO system from the generalized eigenvalues of its
-    system pencil [[A, B], [C, D]] − x·[[I, 0], [0, 0]]. The caller states how many finite zeros
-    the system has (states minus relative degree); the most finite eigenvalues are kept. With
-    ``bound``, of those only the ones with magnitude below ``bound`` are kept (for when the
-    relative degree is not known beforehand: numerically infinite eigenvalues come out huge)."""
-    from scipy.linalg import eig
+    """The ``count`` finite zeros of a SISO system G(x) = C (xI − A)⁻¹ B + D (x is s or z).
 
+    The caller states how many finite zeros the system has (states minus relative degree); the
+    most finite ones are kept. With ``bound``, of those only the ones with magnitude below
+    ``bound`` are kept (for when the relative degree is not known beforehand).
+
+    Method (numpy only, an ordinary eigenproblem instead of the generalized one of the system
+    pencil): a bilinear change of variable x = σ + 1/w about a real point σ that is no pole and
+    no zero (:func:`_pivot_candidates`) gives G as a system in w with state matrix −M, input
+    M B, output −C M and direct term G(σ) = D + C M B ≠ 0, where M = (σI − A)⁻¹. A system with a
+    nonzero direct term has its zeros at the eigenvalues of A − B C / D, here
+    w = eig(−M + M B C M / G(σ)); a finite zero is x = σ + 1/w, a zero at infinity is w = 0, so
+    the ``count`` eigenvalues of largest magnitude are the finite zeros. σ is real, so the
+    arithmetic stays real and complex zeros come in exact conjugate pairs; it is taken far from
+    the poles, and again far from the zeros found if the first σ lies nearer a zero than a pole.
+    Agrees with the generalized eigenvalues of the pencil (``scipy.linalg.eig``) to about 1e-12
+    relative to the zero's magnitude on well-conditioned zeros (tests/test_smallmatrix.py)."""
     n = a.shape[0]
     if count <= 0 or n == 0:
         return np.zeros(0, complex)
-    m = np.block([[a, b], [c, np.array([[d]])]])
-    nmat = np.zeros((n + 1, n + 1))
-    nmat[:n, :n] = np.eye(n)
-    ab = eig(m, nmat, right=False, homogeneous_eigvals=True)
-    alpha, beta = ab[0], ab[1]
-    # finiteness measure: |beta| / |alpha| large means finite and moderate
-    score = np.abs(beta) / np.maximum(np.abs(alpha), 1e-300)
-    order = np.argsort(-score)[:count]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        zeros = alpha[order] / beta[order]
+    a = np.asarray(a, dtype=float)
+    b = np.asarray(b, dtype=float).reshape(n, 1)
+    c = np.asarray(c, dtype=float).reshape(1, n)
+    poles = np.linalg.eigvals(a)
+    rho = float(np.abs(poles).max())
+    if not rho > 0:
+        rho = float(np.abs(a).sum(axis=0).max()) or 1.0
+    candidates = rho * np.linspace(-2.0, 2.0, 81)
+    zeros, sigma = _zeros_about(a, b, c, d, count, _by_quiet(candidates, poles, (), rho))
+    if zeros is None:  # G vanishes at every candidate: G ≡ 0, which has no zeros to count
+        return np.zeros(0, complex)
+    if zeros.size and float(np.abs(zeros - sigma).min()) < float(np.abs(poles - sigma).min()):
+        # σ lies nearer a zero than a pole: again from a point far from both
+        again, sigma2 = _zeros_about(a, b, c, d, count, _by_quiet(candidates, poles, zeros, rho))
+        if again is not None and sigma2 != sigma:
+            zeros = again
     if bound is not None:
         zeros = zeros[np.isfinite(zeros) & (np.abs(zeros) < bound)]
     return _conjugate_clean(zeros)
+
+
+def _by_quiet(candidates: np.ndarray, poles, zeros, rho: float) -> np.ndarray:
+    """The candidates, farthest from every pole and zero given first."""
+    roots = np.concatenate([np.asarray(poles, complex), np.asarray(zeros, complex)])
+    dist = np.min(np.abs(candidates[:, None] - roots[None, :]), axis=1) / rho
+    return candidates[np.argsort(-dist, kind="stable")]
+
+
+def _zeros_about(a, b, c, d, count: int, sigmas) -> tuple[np.ndarray | None, float]:
+    """The finite zeros by the change of variable x = σ + 1/w (see :func:`transmission_zeros`)
+    about the first σ of ``sigmas`` that is neither a pole nor a zero (the matrix σI − A
+    invertible, and G(σ) not lost in the rounding of D + C M B), and that σ; (None, nan) when
+    there is none."""
+    n = a.shape[0]
+    for sigma in sigmas:
+        sigma = float(sigma)
+        try:
+            m = np.linalg.inv(sigma * np.eye(n) - a)
+        except np.linalg.LinAlgError:
+            continue
+        mb = m @ b
+        cm = c @ m
+        terms = c[0] * mb[:, 0]
+        g_sigma = float(d + terms.sum())
+        if not np.isfinite(g_sigma) or abs(g_sigma) <= 1e-12 * (abs(d) + float(np.abs(terms).sum())):
+            continue
+        w = np.linalg.eigvals(-m + (mb @ cm) / g_sigma)
+        order = np.argsort(-np.abs(w), kind="stable")[:count]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return sigma + 1.0 / w[order], sigma
+    return None, float("nan")
 
 
 def _conjugate_clean(roots: np.ndarray) -> np.ndarray:
