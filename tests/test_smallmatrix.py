@@ -266,3 +266,24 @@ def test_foh_zeros_beside_an_integrator_and_a_slow_double_pole():
             got = np.concatenate([np.zeros(ref.size - got.size), got])
             assert np.max(np.abs(got - ref)) <= tol * np.max(np.abs(ref)), (fs, method, got, ref)
             assert np.allclose(np.asarray(ours.den) / ours.den[0], az / az[0], rtol=0, atol=1e-12)
+
+
+def test_sampling_blocks_keep_their_held_rows_exact():
+    """The block exp([[A t, B t], [0, 0]]) has the rows [0, I] exactly (the held input does not
+    change); computed as I + 2 (V − U)⁻¹ U the Padé step keeps them, so many squarings (t up to
+    1e10 × the time constants) cannot drift them, and Γ = −A⁻¹(I − e^{At})B stays right:
+    against scipy.linalg.expm and the closed form Γ → −A⁻¹B of a stable A (common practice)."""
+    a, b, _, _ = ss.realize([1.0, 3.0], np.polymul([1.0, 1.0], [1.0, 2.0, 100.0]))
+    for t in (1e-3, 1.0, 1e5, 1e10):
+        phi, gam = ss.zoh_matrices(a, b, t)
+        m = np.zeros((4, 4))
+        m[:3, :3] = a * t
+        m[:3, 3:] = b * t
+        e = smallmatrix.expm(m)
+        assert np.array_equal(e[3], [0.0, 0.0, 0.0, 1.0])
+        ref = sla.expm(m)
+        assert np.allclose(e, ref, rtol=1e-12, atol=1e-12 * np.abs(ref).max())
+        steady = -np.linalg.solve(a, b)
+        if t >= 1e5:
+            assert np.allclose(gam, steady, rtol=1e-12, atol=1e-15)
+            assert np.all(np.abs(phi) < 1e-300)
