@@ -344,7 +344,9 @@ def test_demo_computations_load_no_scipy():
     scipy.linalg alone) is not loaded. The evidence case fits a sweep with scipy.optimize."""
     import pathlib
 
-    cases = sorted(p for p in (pathlib.Path(__file__).parent.parent / "cases").glob("*.toml") if "evidence" not in p.name)
+    cases = sorted(
+        p for p in (pathlib.Path(__file__).parent.parent / "cases").glob("*.toml") if "evidence" not in p.name
+    )
     assert len(cases) >= 5
     loaded = _loaded_after(
         f"""

@@ -80,7 +80,7 @@ def test_expm_against_50_digit_reference():
     relative where both are at rounding level."""
     mpmath = pytest.importorskip("mpmath")
     mpmath.mp.dps = 50
-    for kind, a, kappa in _MATRICES[::29]:
+    for kind, a, _kappa in _MATRICES[::29]:
         exact = np.array(mpmath.expm(mpmath.matrix(a.tolist())).tolist(), dtype=float)
         scale = np.linalg.norm(exact, 1)
         ours = np.linalg.norm(smallmatrix.expm(a) - exact, 1) / scale
@@ -102,7 +102,9 @@ def test_expm_closed_forms():
     rot = smallmatrix.expm(np.array([[0.0, -th], [th, 0.0]]))
     assert np.allclose(rot, [[np.cos(th), -np.sin(th)], [np.sin(th), np.cos(th)]], rtol=0, atol=1e-15)
     shift = np.diag(np.full(3, 1e3), 1)
-    assert np.allclose(smallmatrix.expm(shift), np.eye(4) + shift + shift @ shift / 2 + shift @ shift @ shift / 6, rtol=1e-15)
+    assert np.allclose(
+        smallmatrix.expm(shift), np.eye(4) + shift + shift @ shift / 2 + shift @ shift @ shift / 6, rtol=1e-15
+    )
     assert smallmatrix.expm(np.array([[2.0]]))[0, 0] == np.exp(2.0)
     assert smallmatrix.expm(np.zeros((0, 0))).shape == (0, 0)
     with pytest.raises(ValueError, match="square"):
@@ -190,7 +192,10 @@ def test_transmission_zeros_on_sampled_systems():
         zeros = -(10 ** rng.uniform(-1, 2, nz)) * rng.choice([-1, 1], nz)
         if n >= 2 and trial % 3 == 0:  # a lightly damped pair
             wn, zeta = 10 ** rng.uniform(0, 2), rng.uniform(0.05, 0.7)
-            poles[:2] = [complex(-zeta * wn, wn * np.sqrt(1 - zeta**2)), complex(-zeta * wn, -wn * np.sqrt(1 - zeta**2))]
+            poles[:2] = [
+                complex(-zeta * wn, wn * np.sqrt(1 - zeta**2)),
+                complex(-zeta * wn, -wn * np.sqrt(1 - zeta**2)),
+            ]
         gaps = np.abs(np.subtract.outer(np.r_[poles, zeros], np.r_[poles, zeros]))
         if np.min(gaps + np.eye(gaps.shape[0]) * 1e9) < 0.005 * max(1.0, np.abs(np.r_[poles, zeros]).max()):
             continue
