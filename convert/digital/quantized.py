@@ -50,11 +50,11 @@ from convert.digital.roots import RootForm, _pairs
 
 STALL_TO = 64
 #: the integrator-stall scan: output levels of each sign, errors a decade, decades below R, fine-grid points
-STALL_LEVELS = 16
-STALL_PER_DECADE = 100
+STALL_LEVELS = 8
+STALL_PER_DECADE = 25
 STALL_DECADES = 12
-STALL_FINE = 4096
-STALL_FINE_COMBOS = 8
+STALL_FINE = 512
+STALL_FINE_COMBOS = 4
 STALL_WINDOWS = (1.0, 0.25, 1 / 16, 1 / 64)
 LIMIT_CYCLE_TRIALS = 32
 LIMIT_CYCLE_SAMPLES = 20000
