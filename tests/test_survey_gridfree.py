@@ -81,9 +81,9 @@ def test_maxima_do_not_move_with_the_grid_density(surveys):
         assert by_pp[pp].best == base.best
 
 
-def _reference_maxima(num, den, fs, delay, method, band, with_hold):
-    """max |gain error| (dB) and max |phase error| (deg) over the band: scipy's discretization and
-    freqz on a dense grid, each largest one refined by minimize_scalar in ln f."""
+def _scipy_ratio(num, den, fs, delay, method, with_hold):
+    """f (Hz) -> digital/analog response ratio: scipy's discretization evaluated by freqz (with the
+    zero-order hold and the delay when ``with_hold``) over the analog num/den by numpy.polyval."""
     b, a, _ = cont2discrete((num, den), 1 / fs, method=SCIPY[method])
     b, a = np.ravel(b), np.ravel(a)
 
@@ -95,9 +95,21 @@ def _reference_maxima(num, den, fs, delay, method, band, with_hold):
             dig = dig * (1 - np.exp(-1j * w / fs)) / (1j * w / fs) * np.exp(-1j * w * delay)
         return dig / (np.polyval(num, 2j * np.pi * f) / np.polyval(den, 2j * np.pi * f))
 
+    return ratio
+
+
+def _dense(ratio, band):
+    """The dense grid (20,000 points per decade, in ln f) over ``band`` and the ratio on it."""
     lo, hi = np.log(band[0]), np.log(band[1])
     u = np.linspace(lo, hi, int(20000 * (hi - lo) / np.log(10)) + 2)
-    r = ratio(np.exp(u))
+    return u, ratio(np.exp(u))
+
+
+def _reference_maxima(num, den, fs, delay, method, band, with_hold):
+    """max |gain error| (dB) and max |phase error| (deg) over the band: scipy's discretization and
+    freqz on a dense grid, each largest one refined by minimize_scalar in ln f."""
+    ratio = _scipy_ratio(num, den, fs, delay, method, with_hold)
+    u, r = _dense(ratio, band)
     gain = np.abs(20 * np.log10(np.abs(r)))
     phase = np.unwrap(np.angle(r))
     out = []
@@ -145,20 +157,8 @@ def _reference_agreement_limit(num, den, fs, delay, method, band, with_hold, lim
     (the excess over the limits, ln f, xtol 1e-13). None when both errors stay within."""
     from scipy.optimize import brentq
 
-    b, a, _ = cont2discrete((num, den), 1 / fs, method=SCIPY[method])
-    b, a = np.ravel(b), np.ravel(a)
-
-    def ratio(f):
-        f = np.atleast_1d(np.asarray(f, float))
-        dig = freqz(b, a, worN=f, fs=fs)[1]
-        if with_hold:
-            w = 2 * np.pi * f
-            dig = dig * (1 - np.exp(-1j * w / fs)) / (1j * w / fs) * np.exp(-1j * w * delay)
-        return dig / (np.polyval(num, 2j * np.pi * f) / np.polyval(den, 2j * np.pi * f))
-
-    lo, hi = np.log(band[0]), np.log(band[1])
-    u = np.linspace(lo, hi, int(20000 * (hi - lo) / np.log(10)) + 2)
-    r = ratio(np.exp(u))
+    ratio = _scipy_ratio(num, den, fs, delay, method, with_hold)
+    u, r = _dense(ratio, band)
     phase = np.unwrap(np.angle(r))
     over = (np.abs(20 * np.log10(np.abs(r))) > limits[0]) | (np.degrees(np.abs(phase)) > limits[1])
     if not over.any():
