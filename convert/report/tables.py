@@ -52,8 +52,8 @@ def fixed(x, unit: str = "", digits: int = 3, floor: float = FLOOR) -> str:
         return "∞" if x > 0 else "−∞"
     if x == 0:
         return f"0 {unit}".strip()
-    if abs(x) < floor:
-        return f"< {floor:g} {unit}".strip()  # magnitude below the floor; the sign says nothing
+    if abs(x) < floor:  # magnitude below the floor; the sign says nothing
+        return f"< {floor:.{max(0, -math.floor(math.log10(floor)))}f} {unit}".strip()
     exp = math.floor(math.log10(abs(x)))
     decimals = max(0, digits - 1 - exp)
     text = f"{x:.{decimals}f}"
@@ -79,11 +79,16 @@ def seconds(x) -> str:
     return format_value(x, "second")
 
 
-def _measured(value, unit: str) -> str:
-    """A judged figure in the criterion's unit; fractions of a step or peak as percentages."""
-    if unit in ("of step", "of peak", "of range", "of full scale"):
-        return fixed(None if value is None else 100 * value, f"% {unit}")
-    return fixed(value, unit)
+def _measured(value, unit: str, limit=None) -> str:
+    """A judged figure in the criterion's unit; fractions of a step or peak as percentages. A
+    figure judged against a limit smaller than :data:`FLOOR` (an input resolution, say) is written
+    to a tenth of that limit, so the two can be told apart."""
+    scale = 100.0 if unit in ("of step", "of peak", "of range", "of full scale") else 1.0
+    floor = FLOOR
+    if limit is not None and math.isfinite(limit) and 0 < abs(scale * limit) < 10 * FLOOR:
+        floor = 10.0 ** math.floor(math.log10(abs(scale * limit) / 100))
+    shown = None if value is None else scale * value
+    return fixed(shown, f"% {unit}" if scale != 1.0 else unit, floor=floor)
 
 
 def _against_limit(value, limit, status: str) -> str:
@@ -112,7 +117,10 @@ def failing_criteria(results) -> list[str]:
 
 def figure_against_limit(j) -> str:
     """ "form: criterion measured > limit limit", in the criterion's unit (fractions as percentages)."""
-    return f"{j.realization}: {j.label} {_measured(j.value, j.unit)} > limit {_measured(j.limit, j.unit)}"
+    return (
+        f"{j.realization}: {j.label} {_measured(j.value, j.unit, j.limit)} > limit "
+        f"{_measured(j.limit, j.unit, j.limit)}"
+    )
 
 
 def verdict_table(results) -> Table:
@@ -137,16 +145,12 @@ def verdict_table(results) -> Table:
                 ]
             )
             continue
-        limit = (
-            fixed(100 * j.limit, f"% {unit}")
-            if unit in ("of step", "of peak", "of range", "of full scale")
-            else fixed(j.limit, unit)
-        )
+        limit = _measured(j.limit, unit, j.limit)
         rows.append(
             [
                 j.realization,
                 j.label,
-                _measured(j.value, unit),
+                _measured(j.value, unit, j.limit),
                 limit,
                 j.status.upper() if j.status == "fail" else j.status,
                 _against_limit(j.value, j.limit, j.status),
