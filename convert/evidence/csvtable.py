@@ -270,6 +270,25 @@ def chunks(
             yield _convert(cells, lines, lay, wanted, allow_missing)
 
 
+def require_rising(values: np.ndarray, col: Column, noun: str, path: Path, lines, before: float | None = None) -> None:
+    """Refuse a column (``noun``: what its values are, e.g. "time") that does not rise row by row
+    (``before``: the last value of the previous chunk), naming the row where it stops rising."""
+    if before is not None and values.size and values[0] <= before:
+        raise InputError(
+            f"column {col.header!r}: {noun} must rise row by row; {values[0] / col.factor:g} follows "
+            f"{before / col.factor:g}",
+            where=f"{path.name}:{lines[0]}",
+        )
+    step = np.flatnonzero(np.diff(values) <= 0)
+    if step.size:
+        i = step[0] + 1
+        raise InputError(
+            f"column {col.header!r}: {noun} must rise row by row; {values[i] / col.factor:g} follows "
+            f"{values[i - 1] / col.factor:g}",
+            where=f"{path.name}:{lines[i]}",
+        )
+
+
 def _check_width(row, lay: TableLayout, wanted, line: int) -> None:
     if len(row) > lay.width:
         hint = (

@@ -44,7 +44,7 @@ from pathlib import Path
 import numpy as np
 
 from convert.errors import InputError, UnrealizableError
-from convert.evidence.csvtable import CHUNK_ROWS, Role, chunks, layout
+from convert.evidence.csvtable import CHUNK_ROWS, Role, chunks, layout, require_rising
 from convert.compare.givenwork import quantized
 from convert.given import given_controller, pid_block_b_a
 from convert.controller import Controller
@@ -655,21 +655,7 @@ class _Pass:
             e = data["error"] if self.kind == "error" else data["setpoint"] - data["measurement"]
             r, y = (data["setpoint"], data["measurement"]) if self.two_paths else (None, None)
             out = data["output"]
-            tcol = lay.first("time")
-            if self.t_last is not None and t[0] <= self.t_last:
-                raise InputError(
-                    f"column {tcol.header!r}: time must rise row by row; {t[0] / tcol.factor:g} follows "
-                    f"{self.t_last / tcol.factor:g}",
-                    where=f"{path.name}:{lines[0]}",
-                )
-            bad = np.flatnonzero(np.diff(t) <= 0)
-            if bad.size:
-                i = bad[0] + 1
-                raise InputError(
-                    f"column {tcol.header!r}: time must rise row by row; {t[i] / tcol.factor:g} follows "
-                    f"{t[i - 1] / tcol.factor:g}",
-                    where=f"{path.name}:{lines[i]}",
-                )
+            require_rising(t, lay.first("time"), "time", path, lines, self.t_last)
             ok = np.isfinite(e) & np.isfinite(out)
             if self.two_paths:
                 ok &= np.isfinite(r) & np.isfinite(y)

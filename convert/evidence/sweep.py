@@ -27,7 +27,7 @@ from pathlib import Path
 import numpy as np
 
 from convert.errors import InputError
-from convert.evidence.csvtable import Role, chunks, layout
+from convert.evidence.csvtable import Role, chunks, layout, require_rising
 from convert.compare.frequency import unwrapped_phase_error_deg, response_seen_from_loop
 from convert.compare.pair import spans_where
 from convert.values import format_value
@@ -97,14 +97,7 @@ def read_sweep(
             f"column {fcol.header!r}: frequencies must be positive, found {f[bad[0]] / fcol.factor:g}",
             where=f"{path.name}:{lines[bad[0]]}",
         )
-    step = np.flatnonzero(np.diff(f) <= 0)
-    if step.size:
-        i = step[0] + 1
-        raise InputError(
-            f"column {fcol.header!r}: frequencies must rise row by row; {f[i] / fcol.factor:g} follows "
-            f"{f[i - 1] / fcol.factor:g}",
-            where=f"{path.name}:{lines[i]}",
-        )
+    require_rising(f, fcol, "frequencies", path, lines)
     if f.size < 3:
         raise InputError(f"a sweep needs at least 3 points, found {f.size}", where=f"{path.name}:{lines[-1]}")
     gain = data["gain"].reshape(f.size, -1)
