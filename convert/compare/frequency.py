@@ -12,7 +12,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from convert.compare.refine import maximize_in_brackets
+from convert.compare.refine import maximize_in_brackets, maximize_rows
 from convert.controller import Controller
 from convert.errors import InputError
 
@@ -151,8 +151,8 @@ def compare_responses(
     axis: :func:`phase_error_across`).
 
     The maxima do not depend on the grid when the continuous responses are given:
-    ``evaluate(f) -> (reference, candidate)`` refines every local maximum
-    (:func:`grid_free_maxima`), and ``forms`` = (reference controller, candidate controller)
+    ``evaluate(f) -> (reference, candidate)`` refines every local maximum and the agreement limit
+    (:func:`compare_batch`, one row), and ``forms`` = (reference controller, candidate controller)
     (either may be None) finds zeros and poles on the jω axis / unit circle inside the band, where
     the error is unbounded: both maxima are then +∞ at that frequency with ``unbounded_note``.
     """
@@ -163,29 +163,51 @@ def compare_responses(
         raise ValueError("reference, candidate and f_hz must have the same shape")
     if evaluate is None and forms is None:
         return compare_on_grid(ref, cand[None, :], f, gain_limit_db=gain_limit_db, phase_limit_deg=phase_limit_deg)[0]
-    unbounded, look = axis_roots(*(forms or (None, None)), float(f[0]), float(f[-1]))
+    if evaluate is None:
+        return _compare_forms_on_grid(ref, cand, f, forms, gain_limit_db, phase_limit_deg)
+
+    def ratio_at(x, _rows):
+        r, c = evaluate(np.asarray(x, dtype=float).reshape(-1))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return (np.asarray(c, complex) / np.asarray(r, complex)).reshape(np.shape(x))
+
+    return compare_batch(
+        ref,
+        cand[None, :],
+        f,
+        ratio_at=ratio_at,
+        forms=[forms or (None, None)],
+        gain_limit_db=gain_limit_db,
+        phase_limit_deg=phase_limit_deg,
+    )[0]
+
+
+def _compare_forms_on_grid(ref, cand, f, forms, gain_limit_db, phase_limit_deg) -> ResponseError:
+    """:func:`compare_responses` with ``forms`` but no continuous responses: roots on the axis
+    are found (unbounded errors, the phase unwrapped across roots), the maxima and the agreement
+    limit are the grid's."""
+    unbounded, look = axis_roots(*forms, float(f[0]), float(f[-1]))
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = cand / ref
         gain_err = 20 * np.log10(np.abs(ratio))
     phase_err = phase_error_across(ratio, f, look)
-    look = [r.f_hz for r in look]
     abs_gain, abs_phase = _absolute_errors(gain_err, phase_err)
-    peak = grid_free_maxima(evaluate, f, gain_err, phase_err, unbounded, look)
-    if evaluate is None:
-        limit = _agreement_limits(f, abs_gain, abs_phase, gain_limit_db, phase_limit_deg)[0]
+    limit = _agreement_limits(f, abs_gain, abs_phase, gain_limit_db, phase_limit_deg)[0]
+    if unbounded:
+        peak = _unbounded_maxima(unbounded)
+        if limit is None or limit > unbounded[0].f_hz:
+            limit = unbounded[0].f_hz
     else:
-        limit = agreement_limit(
-            evaluate,
-            f,
-            phase_err,
-            abs_gain,
-            abs_phase,
-            gain_limit_db,
-            phase_limit_deg,
-            (peak["gain"][0], peak["phase"][0]),
-        )
-    if unbounded and (limit is None or limit > unbounded[0].f_hz):
-        limit = unbounded[0].f_hz
+        ig, ip = int(np.argmax(abs_gain)), int(np.argmax(abs_phase))
+        peak = {
+            "gain": (float(abs_gain[ig]), float(f[ig])),
+            "phase": (float(abs_phase[ip]), float(f[ip])),
+            "unbounded_note": "",
+        }
+    return _response_error(f, gain_err, phase_err, peak, limit, gain_limit_db, phase_limit_deg)
+
+
+def _response_error(f, gain_err, phase_err, peak, limit, gain_limit_db, phase_limit_deg) -> ResponseError:
     return ResponseError(
         f_hz=f,
         gain_error_db=gain_err,
@@ -199,6 +221,68 @@ def compare_responses(
         agreement_limit_hz=limit,
         unbounded_note=peak["unbounded_note"],
     )
+
+
+def compare_batch(
+    reference: np.ndarray,
+    candidates: np.ndarray,
+    f_hz: Sequence[float],
+    *,
+    ratio_at,
+    forms: Sequence[tuple[Controller | None, Controller | None]] | None = None,
+    gain_limit_db: float = 1.0,
+    phase_limit_deg: float = 5.0,
+) -> list[ResponseError]:
+    """:func:`compare_responses` of each row of ``candidates`` (2-D complex, rows × ``f_hz``)
+    against one ``reference`` (complex over ``f_hz``), free of the grid, every row's searches
+    done in the same rounds (so a survey of many forms costs a few numpy calls a round, not a few
+    per form). ``ratio_at(x, rows)`` is the continuous candidate/reference ratio: ``x`` a 2-D
+    array of frequencies (Hz), ``rows`` (one per row of ``x``) the candidate each row of ``x``
+    belongs to; same shape as ``x``. ``forms``: per candidate, (reference controller, candidate
+    controller), either may be None, for the roots on the axis (:func:`axis_roots`).
+
+    Each row's result is what it would be alone: the maxima by :func:`refine_maximum`'s rule and
+    the agreement limit by :func:`agreement_limit`'s, searched in groups that stop as they would
+    alone (:func:`convert.compare.refine.maximize_rows`)."""
+    f = np.asarray(f_hz, dtype=float)
+    ref = np.asarray(reference, dtype=complex)
+    cand = np.asarray(candidates, dtype=complex)
+    if ref.shape != f.shape or cand.ndim != 2 or cand.shape[1] != f.size:
+        raise ValueError("reference and f_hz must have the same shape, candidates one row per response over f_hz")
+    k = cand.shape[0]
+    forms = list(forms) if forms is not None else [(None, None)] * k
+    if len(forms) != k:
+        raise ValueError("forms must have one (reference, candidate) pair per candidate")
+    found_roots: dict = {}
+    roots = []
+    for pair in forms:  # the same pair of forms (a survey's 'alone' and 'seen' rows) is looked at once
+        key = (id(pair[0]), id(pair[1]))
+        if key not in found_roots:
+            found_roots[key] = axis_roots(*pair, float(f[0]), float(f[-1]))
+        roots.append(found_roots[key])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = cand / ref[None, :]
+        gain_err = 20 * np.log10(np.abs(ratio))
+    phase_err = np.stack([phase_error_across(ratio[i], f, roots[i][1]) for i in range(k)])
+    abs_gain, abs_phase = _absolute_errors(gain_err, phase_err)
+    errors_at = _error_functions(ratio_at, f, phase_err)
+    peaks = grid_free_maxima(errors_at, f, abs_gain, abs_phase, roots)
+    limits = agreement_limit(
+        errors_at,
+        f,
+        abs_gain,
+        abs_phase,
+        gain_limit_db,
+        phase_limit_deg,
+        [(p["gain"][0], p["phase"][0]) for p in peaks],
+    )
+    out = []
+    for i in range(k):
+        unbounded, limit = roots[i][0], limits[i]
+        if unbounded and (limit is None or limit > unbounded[0].f_hz):
+            limit = unbounded[0].f_hz
+        out.append(_response_error(f, gain_err[i], phase_err[i], peaks[i], limit, gain_limit_db, phase_limit_deg))
+    return out
 
 
 def compare_on_grid(
@@ -515,6 +599,35 @@ def _local_maxima(values: np.ndarray) -> np.ndarray:
     return np.flatnonzero(left & right)
 
 
+def _maximum_brackets(f: np.ndarray, values: np.ndarray, look_at_hz: Sequence[float] = (), most: int = 40):
+    """The grid's maximum of ``values`` over ``f`` (Hz) and the brackets (index pairs into ``f``)
+    :func:`refine_maximum` refines: around the ``most`` largest local maxima, then the grid
+    interval around each frequency in ``look_at_hz``. Returns ``(maximum, at_hz, brackets)``;
+    no brackets when the grid's maximum is not finite (nothing to refine) or ``f`` has one point."""
+    v = np.nan_to_num(np.asarray(values, dtype=float), nan=np.inf)
+    best_i = int(np.argmax(v))
+    best, at = float(v[best_i]), float(f[best_i])
+    none = np.zeros((0, 2), dtype=np.intp)
+    if f.size < 2 or not np.isfinite(best):
+        return best, at, none
+    idx = _local_maxima(v)
+    idx = idx[np.argsort(-v[idx])][:most]
+    brackets = [(max(i - 1, 0), min(i + 1, f.size - 1)) for i in idx]
+    for fl in look_at_hz:
+        j = int(np.searchsorted(f, fl))
+        brackets.append((max(j - 1, 0), min(j, f.size - 1)))
+    return best, at, np.array([b for b in brackets if b[1] > b[0]], dtype=np.intp).reshape(-1, 2)
+
+
+def _larger(best: float, at: float, found: np.ndarray, found_at: np.ndarray) -> tuple[float, float]:
+    """The grid's (maximum, at_hz) replaced by the largest refined one when that is larger."""
+    if found.size:
+        k = int(np.argmax(found))
+        if found[k] > best:
+            return float(found[k]), float(found_at[k])
+    return best, at
+
+
 def refine_maximum(
     value_at, f_hz: np.ndarray, values: np.ndarray, look_at_hz: Sequence[float] = (), most: int = 40
 ) -> tuple[float, float]:
@@ -527,25 +640,11 @@ def refine_maximum(
     before) or as closely as the rounding of the values allows, and the maximum returned is never
     below the grid's. Returns ``(maximum, at_hz)``."""
     f = np.asarray(f_hz, dtype=float)
-    v = np.nan_to_num(np.asarray(values, dtype=float), nan=np.inf)
-    best_i = int(np.argmax(v))
-    best, at = float(v[best_i]), float(f[best_i])
-    if f.size < 2 or not np.isfinite(best):
-        return best, at
-    idx = _local_maxima(v)
-    idx = idx[np.argsort(-v[idx])][:most]
-    brackets = [(max(i - 1, 0), min(i + 1, f.size - 1)) for i in idx]
-    for fl in look_at_hz:
-        j = int(np.searchsorted(f, fl))
-        brackets.append((max(j - 1, 0), min(j, f.size - 1)))
-    brackets = np.array([b for b in brackets if b[1] > b[0]], dtype=np.intp).reshape(-1, 2)
+    best, at, brackets = _maximum_brackets(f, values, look_at_hz, most)
     if brackets.size == 0:
         return best, at
     found, found_at = maximize_in_brackets(value_at, f[brackets[:, 0]], f[brackets[:, 1]], rel_tol=REFINE_REL / 2)
-    k = int(np.argmax(found))
-    if found[k] > best:
-        best, at = float(found[k]), float(found_at[k])
-    return best, at
+    return _larger(best, at, found, found_at)
 
 
 def _wrap_to(angle_rad: np.ndarray, near_rad: np.ndarray) -> np.ndarray:
@@ -576,73 +675,81 @@ def phase_error_across(ratio: np.ndarray, f_hz: np.ndarray, roots: Sequence[Axis
     return np.degrees(np.concatenate([[ang[0]], ang[0] + np.cumsum(step)]))
 
 
-def grid_free_maxima(
-    evaluate,
-    f_hz: np.ndarray,
-    gain_db: np.ndarray,
-    phase_deg: np.ndarray,
-    unbounded: Sequence[AxisRoot] = (),
-    look_at_hz: Sequence[float] = (),
-) -> dict:
-    """The one routine for max |gain error| and max |phase error| over a band, free of the grid.
+def _unbounded_maxima(unbounded: Sequence[AxisRoot]) -> dict:
+    """Both maxima +∞ at the first root on the axis, with the note that says why."""
+    note = (
+        "unbounded: "
+        + "; ".join(r.text() for r in unbounded)
+        + " (the ratio of the two forms goes to zero or infinity there, on any grid)"
+    )
+    first = unbounded[0]
+    return {"gain": (np.inf, first.f_hz), "phase": (np.inf, first.f_hz), "unbounded_note": note}
 
-    ``evaluate(f) -> (reference, candidate)`` gives the continuous complex responses; ``gain_db``
-    and ``phase_deg`` are the signed errors on the grid ``f_hz``. With a root on the axis inside
-    the band (``unbounded``) both maxima are +∞ at that root's frequency and ``unbounded_note``
-    says why; otherwise each maximum is refined by :func:`refine_maximum`.
-    Returns ``{"gain": (value, at_hz), "phase": (value, at_hz), "unbounded_note": str}``."""
+
+def grid_free_maxima(errors_at, f_hz: np.ndarray, abs_gain: np.ndarray, abs_phase: np.ndarray, roots) -> list[dict]:
+    """The one routine for max |gain error| and max |phase error| over a band, free of the grid,
+    for every row of a :func:`compare_batch` at once.
+
+    ``errors_at(x, rows) -> (|gain error| dB, |phase error| deg)`` (:func:`_error_functions`);
+    ``abs_gain``/``abs_phase`` the absolute errors on the grid ``f_hz`` (rows × points); ``roots``
+    per row, ``(unbounded, inside)`` of :func:`axis_roots`. With a root on the axis inside the band
+    (``unbounded``) both maxima are +∞ at that root's frequency and ``unbounded_note`` says why;
+    otherwise each maximum is refined by :func:`refine_maximum`'s rule, all rows' brackets in the
+    same rounds. Returns per row ``{"gain": (value, at_hz), "phase": (value, at_hz),
+    "unbounded_note": str}``."""
     f = np.asarray(f_hz, dtype=float)
-    if unbounded:
-        first = unbounded[0]
-        note = (
-            "unbounded: "
-            + "; ".join(r.text() for r in unbounded)
-            + " (the ratio of the two forms goes to zero or infinity there, on any grid)"
-        )
-        return {"gain": (np.inf, first.f_hz), "phase": (np.inf, first.f_hz), "unbounded_note": note}
-    g_abs, p_abs = _absolute_errors(gain_db, phase_deg)
-    if evaluate is None:
-        ig, ip = int(np.argmax(g_abs)), int(np.argmax(p_abs))
-        return {
-            "gain": (float(g_abs[ig]), float(f[ig])),
-            "phase": (float(p_abs[ip]), float(f[ip])),
-            "unbounded_note": "",
-        }
+    out: list[dict] = []
+    searches = []  # (row, kind, first bracket, bracket count)
+    lo, hi = [], []
+    for i, (unbounded, inside) in enumerate(roots):
+        if unbounded:
+            out.append(_unbounded_maxima(unbounded))
+            continue
+        look = [r.f_hz for r in inside]
+        peak = {"unbounded_note": ""}
+        for kind, values in (("gain", abs_gain[i]), ("phase", abs_phase[i])):
+            best, at, brackets = _maximum_brackets(f, values, look)
+            peak[kind] = (best, at)
+            if brackets.size:
+                searches.append((i, kind, len(lo), len(brackets)))
+                lo.extend(f[brackets[:, 0]])
+                hi.extend(f[brackets[:, 1]])
+        out.append(peak)
+    if not searches:
+        return out
+    group = np.concatenate([np.full(n, g) for g, (_, _, _, n) in enumerate(searches)])
+    row = np.array([s[0] for s in searches])[group]
+    phase = np.array([s[1] == "phase" for s in searches])[group]
 
-    gain_at, phase_at, _ = _error_functions(evaluate, f, phase_deg)
-    return {
-        "gain": refine_maximum(gain_at, f, g_abs, look_at_hz),
-        "phase": refine_maximum(phase_at, f, p_abs, look_at_hz),
-        "unbounded_note": "",
-    }
+    def values_at(x, rows):
+        g, p = errors_at(x, row[rows])
+        return np.where(phase[rows][:, None], p, g)
+
+    found, found_at = maximize_rows(values_at, lo, hi, rel_tol=REFINE_REL / 2, groups=group)
+    for i, kind, start, n in searches:
+        best, at = out[i][kind]
+        out[i][kind] = _larger(best, at, found[start : start + n], found_at[start : start + n])
+    return out
 
 
-def _error_functions(evaluate, f_hz: np.ndarray, phase_deg: np.ndarray):
-    """|gain error| (dB), |phase error| (deg) and both at once, as vectorized functions of
-    frequency (Hz) from ``evaluate(f) -> (reference, candidate)``; the phase error is continued
-    from the grid's unwrapped ``phase_deg`` (the nearest grid point's branch)."""
-
-    def ratio_at(x):
-        ref, cand = evaluate(np.asarray(x, dtype=float))
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return np.asarray(cand, complex) / np.asarray(ref, complex)
-
-    def gain_of(q):
-        with np.errstate(divide="ignore"):
-            return np.abs(20 * np.log10(np.abs(q)))
-
-    grid_phase = np.radians(np.nan_to_num(phase_deg, nan=0.0))
+def _error_functions(ratio_at, f_hz: np.ndarray, phase_deg: np.ndarray):
+    """``errors_at(x, rows) -> (|gain error| dB, |phase error| deg)``: vectorized functions of
+    frequency (``x`` in Hz, 2-D, one row of ``x`` per entry of ``rows``, the candidate it belongs
+    to) from ``ratio_at(x, rows)``, the continuous candidate/reference ratio; each row's phase
+    error is continued from its grid's unwrapped ``phase_deg`` (rows × points; the nearest grid
+    point's branch)."""
+    grid_phase = np.radians(np.nan_to_num(np.atleast_2d(phase_deg), nan=0.0))
     lf = np.log(f_hz)
 
-    def phase_of(x, q):
+    def errors_at(x, rows):
+        q = np.asarray(ratio_at(x, rows), dtype=complex)
         j = np.clip(np.searchsorted(lf, np.log(x)), 0, f_hz.size - 1)
-        return np.abs(np.degrees(_wrap_to(np.angle(q), grid_phase[j])))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            gain = np.abs(20 * np.log10(np.abs(q)))
+            phase = np.abs(np.degrees(_wrap_to(np.angle(q), grid_phase[np.asarray(rows)[:, None], j])))
+        return gain, phase
 
-    def both_at(x):
-        q = ratio_at(x)
-        return gain_of(q), phase_of(x, q)
-
-    return (lambda x: gain_of(ratio_at(x))), (lambda x: phase_of(x, ratio_at(x))), both_at
+    return errors_at
 
 
 #: the agreement limit is located to this relative width in frequency
@@ -656,66 +763,93 @@ EXCURSION_REL = 1e-4
 
 
 def agreement_limit(
-    evaluate,
+    errors_at,
     f_hz: np.ndarray,
-    phase_deg: np.ndarray,
     abs_gain: np.ndarray,
     abs_phase: np.ndarray,
     gain_limit_db: float,
     phase_limit_deg: float,
-    peaks: tuple[float, float] | None = None,
-) -> float | None:
-    """The first frequency (Hz) in the band where |gain error| exceeds ``gain_limit_db`` or
-    |phase error| exceeds ``phase_limit_deg``, free of the grid (None: within both over the band).
+    peaks: Sequence[tuple[float, float]] | None = None,
+) -> list[float | None]:
+    """Per row: the first frequency (Hz) in the band where |gain error| exceeds ``gain_limit_db``
+    or |phase error| exceeds ``phase_limit_deg``, free of the grid (None: within both over the band).
 
-    ``abs_gain``/``abs_phase`` are the absolute errors on the grid ``f_hz`` (``phase_deg`` the
-    signed unwrapped phase error there). The grid gives the first point beyond a limit; an earlier
-    excursion between grid points is looked for by refining every local maximum of the excess
-    before it (:func:`convert.compare.refine.maximize_in_brackets`, to :data:`EXCURSION_REL`);
-    the crossing is then bracketed by a point within the limits and one beyond and narrowed,
-    :data:`SPLIT` sub-intervals a round, keeping the first sub-interval that crosses, to
-    :data:`AGREEMENT_REL` relative. Returned: the bracket's upper end (a frequency where the
-    limit is exceeded). An error that cannot be evaluated counts as beyond. ``peaks``: the
-    band's refined (max |gain error|, max |phase error|) when known: within both limits, the
-    errors agree over the whole band without a further search."""
+    ``errors_at(x, rows)``: the absolute errors as continuous functions (:func:`_error_functions`);
+    ``abs_gain``/``abs_phase`` the absolute errors on the grid ``f_hz`` (rows × points). The grid
+    gives the first point beyond a limit; an earlier excursion between grid points is looked for
+    by refining every local maximum of the excess before it
+    (:func:`convert.compare.refine.maximize_rows`, to :data:`EXCURSION_REL`); the crossing is
+    then bracketed by a point within the limits and one beyond and narrowed, :data:`SPLIT`
+    sub-intervals a round, keeping the first sub-interval that crosses, to :data:`AGREEMENT_REL`
+    relative. Returned: the bracket's upper end (a frequency where the limit is exceeded). An
+    error that cannot be evaluated counts as beyond. ``peaks``: per row, the band's refined
+    (max |gain error|, max |phase error|) when known: within both limits, the errors agree over
+    the whole band without a further search. Every row's search runs in the same rounds."""
     f = np.asarray(f_hz, dtype=float)
+    abs_gain, abs_phase = np.atleast_2d(abs_gain), np.atleast_2d(abs_phase)
     gs, ps = max(gain_limit_db, 1e-12), max(phase_limit_deg, 1e-12)
     grid = np.maximum((abs_gain - gain_limit_db) / gs, (abs_phase - phase_limit_deg) / ps)
-    beyond = np.flatnonzero(grid > 0)
-    first = int(beyond[0]) if beyond.size else f.size
-    if first == 0:
-        return float(f[0])
-    if first == f.size and peaks is not None and peaks[0] <= gain_limit_db and peaks[1] <= phase_limit_deg:
-        return None
-    both_at = _error_functions(evaluate, f, phase_deg)[2]
 
-    def excess(x):
-        g, p = both_at(x)
+    def excess(x, rows):
+        g, p = errors_at(x, rows)
         with np.errstate(invalid="ignore"):
             e = np.maximum((g - gain_limit_db) / gs, (p - phase_limit_deg) / ps)
         return np.nan_to_num(e, nan=np.inf)
 
-    lo = hi = None
-    if first > 1:
-        idx = _local_maxima(grid[:first])
-        brackets = [(max(i - 1, 0), min(i + 1, first - 1)) for i in idx]
-        brackets = np.array([b for b in brackets if b[1] > b[0]], dtype=np.intp).reshape(-1, 2)
-        if brackets.size:
-            found, at = maximize_in_brackets(excess, f[brackets[:, 0]], f[brackets[:, 1]], rel_tol=EXCURSION_REL)
-            out = np.flatnonzero(found > 0)
-            if out.size:
-                k = out[np.argmin(at[out])]
-                lo, hi = float(f[brackets[k, 0]]), float(at[k])
-    if lo is None:
-        if first == f.size:
-            return None
-        lo, hi = float(f[first - 1]), float(f[first])
-    ulo, uhi = np.log(lo), np.log(hi)
+    limits: list[float | None] = [None] * grid.shape[0]
+    pending = []  # (row, first grid point beyond, first excursion bracket, bracket count)
+    lo, hi = [], []
+    for i, row in enumerate(grid):
+        beyond = np.flatnonzero(row > 0)
+        first = int(beyond[0]) if beyond.size else f.size
+        if first == 0:
+            limits[i] = float(f[0])
+            continue
+        if first == f.size and peaks is not None and peaks[i][0] <= gain_limit_db and peaks[i][1] <= phase_limit_deg:
+            continue
+        n = 0
+        if first > 1:
+            idx = _local_maxima(row[:first])
+            brackets = [(max(j - 1, 0), min(j + 1, first - 1)) for j in idx]
+            brackets = np.array([b for b in brackets if b[1] > b[0]], dtype=np.intp).reshape(-1, 2)
+            n = len(brackets)
+            if n:
+                lo.extend(f[brackets[:, 0]])
+                hi.extend(f[brackets[:, 1]])
+        pending.append((i, first, len(lo) - n, n))
+    if not pending:
+        return limits
+    found = at = np.zeros(0)
+    if lo:
+        group = np.concatenate([np.full(n, g) for g, (_, _, _, n) in enumerate(pending) if n])
+        owner = np.array([i for i, _, _, n in pending for _ in range(n)])
+        found, at = maximize_rows(lambda x, rows: excess(x, owner[rows]), lo, hi, rel_tol=EXCURSION_REL, groups=group)
+    search_rows, ulo, uhi = [], [], []
+    for i, first, start, n in pending:
+        bracket = None
+        out = np.flatnonzero(found[start : start + n] > 0) if n else np.zeros(0, dtype=np.intp)
+        if out.size:
+            k = start + out[np.argmin(at[start + out])]
+            bracket = (float(lo[k]), float(at[k]))
+        elif first < f.size:
+            bracket = (float(f[first - 1]), float(f[first]))
+        if bracket is not None:
+            search_rows.append(i)
+            ulo.append(np.log(bracket[0]))
+            uhi.append(np.log(bracket[1]))
+    if not search_rows:
+        return limits
+    rows, ulo, uhi = np.array(search_rows), np.array(ulo), np.array(uhi)
+    live = np.arange(rows.size)
     for _ in range(8):  # 512 sub-intervals a round: a grid interval below 1e-9 in three rounds
-        if uhi - ulo <= AGREEMENT_REL:
+        live = live[uhi[live] - ulo[live] > AGREEMENT_REL]
+        if live.size == 0:
             break
-        u = np.linspace(ulo, uhi, SPLIT + 1)
-        over = excess(np.exp(u[1:-1])) > 0
-        k = int(np.argmax(over)) if over.any() else SPLIT - 1
-        ulo, uhi = u[k], u[k + 1]
-    return float(np.exp(uhi))
+        u = np.linspace(ulo[live], uhi[live], SPLIT + 1, axis=1)
+        over = excess(np.exp(u[:, 1:-1]), rows[live]) > 0
+        k = np.where(over.any(axis=1), np.argmax(over, axis=1), SPLIT - 1)
+        r = np.arange(live.size)
+        ulo[live], uhi[live] = u[r, k], u[r, k + 1]
+    for n, i in enumerate(rows):
+        limits[int(i)] = float(np.exp(uhi[n]))
+    return limits

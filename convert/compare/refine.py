@@ -38,8 +38,27 @@ def maximize_in_brackets(value_at, lo_hz, hi_hz, *, rel_tol: float, points: int 
     is never below the value at either end of the bracket. A value that is not finite (NaN, ±∞)
     counts as +∞: an error that cannot be evaluated is never read as small.
 
-    Returns ``(values, at_hz)``, one per bracket.
+    Returns ``(values, at_hz)``, one per bracket. :func:`maximize_rows` with every bracket in one
+    group and ``value_at`` taking a 1-D array of frequencies.
     """
+
+    def values_at(f_hz, _rows):
+        return np.asarray(value_at(f_hz.reshape(-1)), dtype=float).reshape(f_hz.shape)
+
+    return maximize_rows(values_at, lo_hz, hi_hz, rel_tol=rel_tol, points=points)
+
+
+def maximize_rows(
+    values_at, lo_hz, hi_hz, *, rel_tol: float, points: int = 16, groups=None
+) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`maximize_in_brackets` for brackets that belong to different functions, all searched
+    in the same rounds: ``values_at(f_hz, rows)`` takes a 2-D array of frequencies (Hz), one row
+    per bracket still searched, and ``rows``, the indices of those brackets (into ``lo_hz``), and
+    returns the real values, same shape. ``groups`` (one integer per bracket; default: one group)
+    says which brackets stop together: a group stops when every one of its brackets is at most
+    ``rel_tol`` wide in ln f or every one has found +∞, so each group's result is exactly what a
+    separate :func:`maximize_in_brackets` call on its brackets alone returns.
+    Returns ``(values, at_hz)``, one per bracket."""
     lo = np.log(np.asarray(lo_hz, dtype=float)).reshape(-1)
     hi = np.log(np.asarray(hi_hz, dtype=float)).reshape(-1)
     m = lo.size
@@ -47,43 +66,74 @@ def maximize_in_brackets(value_at, lo_hz, hi_hz, *, rel_tol: float, points: int 
     best_u = 0.5 * (lo + hi)
     if m == 0:
         return best, np.exp(best_u)
+    group = np.zeros(m, dtype=np.intp) if groups is None else np.unique(np.asarray(groups), return_inverse=True)[1]
+    group = group.reshape(-1)
+    # the last round's best sample of each bracket, its neighbours and spacing: the parabola's
+    last_y = np.full((m, 3), np.nan)
+    last_u = np.zeros(m)
+    last_h = np.zeros(m)
+    inner = np.zeros(m, dtype=bool)
+    active = np.arange(m)
     t = np.linspace(0.0, 1.0, 4 * points + 2)  # the first round looks closer: structure inside the bracket
-    rows = np.arange(m)
     for _ in range(_MAX_ROUNDS):
-        u = lo[:, None] + (hi - lo)[:, None] * t[None, :]
-        y = _as_values(value_at, u)
+        a_lo, a_hi = lo[active], hi[active]
+        u = a_lo[:, None] + (a_hi - a_lo)[:, None] * t[None, :]
+        y = _row_values(values_at, u, active)
+        rows = np.arange(active.size)
         j = np.argmax(y, axis=1)
         yj = y[rows, j]
-        better = yj > best
-        best = np.where(better, yj, best)
-        best_u = np.where(better, u[rows, j], best_u)
-        if np.all((hi - lo) <= rel_tol) or np.all(np.isinf(best)):
+        better = yj > best[active]
+        best[active] = np.where(better, yj, best[active])
+        best_u[active] = np.where(better, u[rows, j], best_u[active])
+        # a group is done when all its brackets are narrow enough, or all have found +inf
+        g = group[active]
+        narrow = (a_hi - a_lo) <= rel_tol
+        infinite = np.isinf(best[active])
+        n_groups = int(group.max()) + 1
+        wide = np.bincount(g, weights=~narrow, minlength=n_groups) > 0
+        finite = np.bincount(g, weights=~infinite, minlength=n_groups) > 0
+        done = ~(wide & finite)[g]
+        if done.any():
+            d = rows[done]
+            jd = j[d]
+            inside = (jd > 0) & (jd < t.size - 1) & np.isfinite(yj[d])
+            k = active[d]
+            inner[k] = inside
+            jj = np.clip(jd, 1, t.size - 2)
+            last_y[k] = np.stack([y[d, jj - 1], y[d, jj], y[d, jj + 1]], axis=1)
+            last_u[k] = u[d, jj]
+            last_h[k] = u[d, jj + 1] - u[d, jj]
+        keep = rows[~done]
+        if keep.size == 0:
             break
-        lo, hi = u[rows, np.maximum(j - 1, 0)], u[rows, np.minimum(j + 1, t.size - 1)]
+        jk = j[keep]
+        lo[active[keep]] = u[keep, np.maximum(jk - 1, 0)]
+        hi[active[keep]] = u[keep, np.minimum(jk + 1, t.size - 1)]
+        active = active[keep]
         t = np.linspace(0.0, 1.0, points + 2)
     # the parabola through the best sample of the last round and its neighbours
-    inner = (j > 0) & (j < t.size - 1) & np.isfinite(yj)
     if inner.any():
-        r, jj = rows[inner], j[inner]
-        y0, y1, y2 = y[r, jj - 1], y[r, jj], y[r, jj + 1]
-        h = u[r, jj + 1] - u[r, jj]
+        r = np.flatnonzero(inner)
+        y0, y1, y2 = last_y[r, 0], last_y[r, 1], last_y[r, 2]
+        h = last_h[r]
         curv = y0 - 2 * y1 + y2
         with np.errstate(divide="ignore", invalid="ignore"):
             shift = 0.5 * h * (y0 - y2) / curv
         ok = (curv < 0) & np.isfinite(shift) & (np.abs(shift) < h) & (shift != 0)
         if ok.any():
-            uv = u[r[ok], jj[ok]] + shift[ok]
-            yv = _as_values(value_at, uv[:, None])[:, 0]
             kk = r[ok]
+            uv = last_u[kk] + shift[ok]
+            yv = _row_values(values_at, uv[:, None], kk)[:, 0]
             gain = yv > best[kk]
             best[kk[gain]] = yv[gain]
             best_u[kk[gain]] = uv[gain]
     return best, np.exp(best_u)
 
 
-def _as_values(value_at, u: np.ndarray) -> np.ndarray:
-    """``value_at`` at e^u (u of any shape), real, with every non-finite value read as +∞."""
-    y = np.asarray(value_at(np.exp(u).reshape(-1)), dtype=float).reshape(u.shape)
+def _row_values(values_at, u: np.ndarray, rows: np.ndarray) -> np.ndarray:
+    """``values_at`` at e^u (2-D, one row per bracket in ``rows``), real, with every non-finite
+    value read as +∞."""
+    y = np.asarray(values_at(np.exp(u), rows), dtype=float).reshape(u.shape)
     return np.where(np.isfinite(y), y, np.inf)
 
 

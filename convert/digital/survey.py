@@ -25,6 +25,7 @@ import numpy as np
 
 from convert.compare.frequency import (
     ResponseError,
+    compare_batch,
     comparison_grid,
     compare_responses,
     default_band_hz,
@@ -99,29 +100,63 @@ def _reason(row: MethodRow, others: int) -> str:
     return f"{head}; max method error {e.max_gain_error_db:.3g} dB, {e.max_phase_error_deg:.3g} deg"
 
 
-def _grid_free(
-    analog, digital, f, analog_f, digital_f, hold_f, t, delay_s, limits
-) -> tuple[ResponseError, ResponseError]:
-    """(method error, loop-seen error) of the sampled controller ``digital`` against ``analog``,
-    their maxima refined on the continuous responses (factored forms, ``via="zpk"``) and roots on
-    the axis looked for (:func:`convert.compare.frequency.compare_responses`): the same call, on the
-    same grid and responses, as the ``discretization`` row of
-    :func:`convert.compare.stages.digital_budget`, so the survey's method error is the report's.
-    ``analog_f``, ``digital_f``, ``hold_f``: the responses and the hold-and-delay factor on ``f``
-    (Hz); ``t``: sample period (s); ``delay_s``: computation delay (s)."""
+def _grid_free(analog, digitals, f, analog_f, hold_f, t, delay_s, limits) -> list[tuple[ResponseError, ResponseError]]:
+    """Per sampled controller in ``digitals``: (method error, loop-seen error) against ``analog``,
+    their maxima and agreement limits refined on the continuous responses (factored forms,
+    ``via="zpk"``) and roots on the axis looked for, all methods in the same rounds
+    (:func:`convert.compare.frequency.compare_batch`): each row is what
+    :func:`convert.compare.frequency.compare_responses` gives for it alone, the call the
+    ``discretization`` row of :func:`convert.compare.stages.digital_budget` makes, so the survey's
+    method error is the report's. ``analog_f``, ``hold_f``: the analog response and the
+    hold-and-delay factor on ``f`` (Hz); ``t``: sample period (s); ``delay_s``: computation delay (s).
+    Candidate rows: 0..m-1 the controllers alone, m..2m-1 as the loop sees them."""
+    m = len(digitals)
+    digital_f = np.array([d.frequency_response(f, via="zpk") for d in digitals])
+    # every method's factored form in one array (padded; a padded factor is skipped, not
+    # multiplied by one), multiplied in the order Controller.frequency_response uses
+    roots = [(d.zeros(), d.poles()) for d in digitals]
+    gains = np.array([d.gain for d in digitals] * 2)
+    zeros, zero_used = _padded([z for z, _ in roots] * 2)
+    poles, pole_used = _padded([p for _, p in roots] * 2)
+    seen_row = np.arange(2 * m) >= m
 
-    def alone(x):
-        return analog.frequency_response(x, via="zpk"), digital.frequency_response(x, via="zpk")
+    def ratio_at(x, rows):
+        ref = analog.frequency_response(x, via="zpk")
+        w = 2.0 * np.pi * x
+        z = np.exp(1j * w * t)
+        cand = np.empty(x.shape, dtype=complex)
+        cand[...] = gains[rows][:, None]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            for k in range(zeros.shape[1]):
+                cand = np.where(zero_used[rows, k][:, None], cand * (z - zeros[rows, k][:, None]), cand)
+            for k in range(poles.shape[1]):
+                cand = np.where(pole_used[rows, k][:, None], cand / (z - poles[rows, k][:, None]), cand)
+            seen = seen_row[rows]
+            if seen.any():
+                cand[seen] = cand[seen] * hold_and_delay_factor(x[seen], t, delay_s)
+            return cand / ref
 
-    def seen(x):
-        ref, cand = alone(x)
-        return ref, cand * hold_and_delay_factor(x, t, delay_s)
-
-    forms = (analog, digital)
-    return (
-        compare_responses(analog_f, digital_f, f, evaluate=alone, forms=forms, **limits),
-        compare_responses(analog_f, digital_f * hold_f, f, evaluate=seen, forms=forms, **limits),
+    errors = compare_batch(
+        analog_f,
+        np.concatenate([digital_f, digital_f * hold_f[None, :]]),
+        f,
+        ratio_at=ratio_at,
+        forms=[(analog, d) for d in digitals] * 2,
+        **limits,
     )
+    return [(errors[k], errors[m + k]) for k in range(m)]
+
+
+def _padded(root_lists) -> tuple[np.ndarray, np.ndarray]:
+    """Root lists of unequal length as one complex array (rows × longest) and a mask of the
+    entries that are roots."""
+    width = max((len(r) for r in root_lists), default=0)
+    values = np.zeros((len(root_lists), width), dtype=complex)
+    used = np.zeros((len(root_lists), width), dtype=bool)
+    for i, r in enumerate(root_lists):
+        values[i, : len(r)] = r
+        used[i, : len(r)] = True
+    return values, used
 
 
 @small_dense  # one BLAS-thread limit for the whole survey instead of one per method
@@ -174,12 +209,7 @@ def survey_methods(
         for m in methods
     ]
     limits = dict(gain_limit_db=gain_limit_db, phase_limit_deg=phase_limit_deg)
-    errors = []
-    for real in reals:
-        cd = real.controller
-        errors.append(
-            _grid_free(controller, cd, f, analog, cd.frequency_response(f, via="zpk"), hold, t, delay_s, limits)
-        )
+    errors = _grid_free(controller, [real.controller for real in reals], f, analog, hold, t, delay_s, limits)
     rows = [MethodRow(real, *errors[k]) for k, real in enumerate(reals)]
     candidates = [r for r in rows if not r.unstable]
     if candidates:
