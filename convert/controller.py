@@ -26,7 +26,7 @@ from collections.abc import Sequence
 import numpy as np
 
 from convert.errors import InputError
-from convert.polyroots import expand, Root, count_at, find_roots
+from convert.polyroots import expand, Root, count_at, deflate, find_roots
 from convert.expr import format_polynomial, parse_rational
 
 Domain = Literal["analog", "digital"]
@@ -242,7 +242,7 @@ class Controller:
             for point in self.special_points:
                 m = count_at(p, point, rough[other], rounding=self.is_digital)
                 for _ in range(m):
-                    p, _ = np.polydiv(p, [1.0, -point])
+                    p = deflate(p, point)
                 if m:
                     exact.append(Root(complex(point), m, 0.0))
             out.append(tuple(exact) + find_roots(p))

@@ -128,7 +128,19 @@ def _refine(p: np.ndarray, c: complex, m: int) -> tuple[complex, float]:
 
 def _groups(roots: np.ndarray, rel: float) -> list[list[int]]:
     """Single-linkage groups of roots within ``rel`` relative distance of each other."""
-    n = roots.size
+    distance, scale = _separation(roots)
+    return _linked(distance <= rel * scale)
+
+
+def _separation(roots: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Pairwise distances of ``roots`` and the scale each is relative to (the larger magnitude)."""
+    mag = np.abs(roots)
+    return np.abs(roots[:, None] - roots[None, :]), np.maximum(np.maximum(mag[:, None], mag[None, :]), 1e-300)
+
+
+def _linked(close: np.ndarray) -> list[list[int]]:
+    """The connected parts (index lists, ascending) of the graph whose edges are ``close``."""
+    n = close.shape[0]
     parent = list(range(n))
 
     def find(a):
@@ -137,8 +149,6 @@ def _groups(roots: np.ndarray, rel: float) -> list[list[int]]:
             a = parent[a]
         return a
 
-    mag = np.abs(roots)
-    close = np.abs(roots[:, None] - roots[None, :]) <= rel * np.maximum(np.maximum(mag[:, None], mag[None, :]), 1e-300)
     for i, j in zip(*np.nonzero(np.triu(close, 1))):
         parent[find(int(i))] = find(int(j))
     out: dict[int, list[int]] = {}
@@ -174,19 +184,27 @@ def _cluster(p: np.ndarray, roots: np.ndarray, idx: list[int], rel: float, out: 
         if np.isfinite(c) and _is_multiple(p, c, m):
             out.append(Root(c, m, err))
             return
-    for sub in _groups(roots[idx], rel / 4):
-        _cluster(p, roots, [idx[k] for k in sub], rel / 4, out, simple)
+    # the same group fails the same test at every distance that keeps it whole: split it at the
+    # first distance (a quarter at a time) that breaks it up
+    distance, scale = _separation(roots[idx])
+    while True:
+        rel = rel / 4
+        parts = _linked(distance <= rel * scale)
+        if len(parts) > 1 or rel == 0:
+            break
+    for sub in parts:
+        _cluster(p, roots, [idx[k] for k in sub], rel, out, simple)
 
 
 def find_roots(p_desc) -> tuple[Root, ...]:
     """Distinct roots of the real polynomial ``p_desc`` (descending powers) with multiplicity and
     accuracy; complex roots come in conjugate pairs. Sorted by magnitude, then angle."""
-    p = np.trim_zeros(np.asarray(p_desc, dtype=float), "f")
+    p = _trim_front(np.asarray(p_desc, dtype=float))
     if p.size <= 1:
         return ()
     # exact roots at 0 (trailing zero coefficients) are not the eigen solver's business
-    zeros_at_origin = p.size - np.trim_zeros(p, "b").size
-    p = np.trim_zeros(p, "b")
+    zeros_at_origin = p.size - _trim_back(p).size
+    p = _trim_back(p)
     out: list[Root] = [Root(0j, zeros_at_origin, 0.0)] if zeros_at_origin else []
     if p.size > 1:
         approx = np.roots(p).astype(complex)
@@ -239,28 +257,69 @@ def count_at(p_desc, point: float, others=(), *, rounding: bool = False) -> int:
     to the controller's own scales: ``(s+1e-13)/(s+1e-14)`` has a DC gain of 10, no integrator).
     With no other root to compare with, only the exact rule applies.
     """
-    p = np.trim_zeros(np.asarray(p_desc, dtype=float), "f")
+    p = _trim_front(np.asarray(p_desc, dtype=float))
     count = 0
     ulps = _ROUNDING_ULPS * _EPS if rounding else 0.0
-    while p.size > 1 and abs(np.polyval(p, point)) <= ulps * float(np.sum(np.abs(p))):
-        p, _ = np.polydiv(p, [1.0, -point])
+    while p.size > 1 and abs(_value_at(p, point)) <= ulps * float(np.sum(np.abs(p))):
+        p = deflate(p, point)
         count += 1
     other_d = np.abs(np.asarray(list(others), dtype=complex) - point)
     other_d = other_d[other_d > 0]
+    nearest_other = float(other_d.min()) if other_d.size else math.inf
     while p.size > 1:
-        dp = np.polyval(np.polyder(p), point)
-        val = np.polyval(p, point)
+        dp = _value_at(np.polyder(p), point)
+        val = _value_at(p, point)
         if dp == 0:
             break
         delta = abs(val / dp)  # Newton's distance from the point to the nearest (simple) root
+        # the smallest scale below is at most the nearest other root's distance: a root that is not
+        # 1e12 times closer than that is not at the point, without solving for the rest
+        if delta > AT_POINT_RATIO * nearest_other:
+            break
         rest = np.abs(np.roots(p).astype(complex) - point)
         rest = np.sort(rest)[1:]  # every root but the nearest
         scale = np.concatenate([rest[rest > 0], other_d])
         if scale.size == 0 or delta > AT_POINT_RATIO * float(scale.min()):
             break
-        p, _ = np.polydiv(p, [1.0, -point])
+        p = deflate(p, point)
         count += 1
     return count
+
+
+def _trim_front(p: np.ndarray) -> np.ndarray:
+    """``p`` without its leading zeros (``numpy.trim_zeros(p, "f")`` for a 1-D array)."""
+    nonzero = np.flatnonzero(p)
+    return p[nonzero[0] :] if nonzero.size else p[:0]
+
+
+def _trim_back(p: np.ndarray) -> np.ndarray:
+    """``p`` without its trailing zeros (``numpy.trim_zeros(p, "b")`` for a 1-D array)."""
+    nonzero = np.flatnonzero(p)
+    return p[: nonzero[-1] + 1] if nonzero.size else p[:0]
+
+
+def _value_at(p: np.ndarray, x: float) -> float:
+    """p(x) for a real point x by Horner's rule: ``numpy.polyval``'s arithmetic, in the same order,
+    on Python floats."""
+    y = 0.0
+    for c in p.tolist():
+        y = y * x + c
+    return y
+
+
+def deflate(p_desc: np.ndarray, point: float) -> np.ndarray:
+    """The quotient of ``p_desc`` (descending powers, real, at least two coefficients) divided by
+    (x − ``point``), the remainder dropped: synthetic division, q_0 = p_0, q_k = p_k + point·q_(k−1)
+    — the same arithmetic, rounding included, as the quotient of
+    ``numpy.polydiv(p_desc, [1, -point])`` (tests/test_numerics_roots.py), without its checks."""
+    p = np.asarray(p_desc, dtype=float)
+    q = np.empty(p.size - 1)
+    acc = float(p[0])
+    q[0] = acc
+    for k in range(1, p.size - 1):
+        acc = float(p[k]) + acc * point
+        q[k] = acc
+    return q
 
 
 def format_root(r: complex) -> str:

@@ -194,3 +194,23 @@ def test_value_that_underflows_is_refused(text):
     with pytest.raises(InputError, match="too small"):
         parse_value(text, "hz" if "Hz" in text else "number", field="x")
     assert parse_value("0", "number") == 0.0 and parse_value("2.3e-308", "number") == 2.3e-308
+
+
+def test_deflation_and_trimming_are_numpys_arithmetic():
+    """Reference: numpy.polydiv (its quotient by x − point) and numpy.trim_zeros, bit for bit, on
+    random coefficients (exact zeros at both ends included) and the points the controller divides
+    out (0, 1, −1) plus one that is not special."""
+    from convert.polyroots import _trim_back, _trim_front, _value_at, deflate
+
+    rng = np.random.default_rng(7)
+    for n in range(2, 12):
+        for _ in range(20):
+            p = rng.normal(size=n) * 10.0 ** rng.integers(-8, 8, size=n)
+            for point in (0.0, 1.0, -1.0, 0.37):
+                q, _ = np.polydiv(p, [1.0, -point])
+                np.testing.assert_array_equal(deflate(p, point), q)
+                assert _value_at(p, point) == np.polyval(p, point)
+            padded = np.concatenate([np.zeros(rng.integers(0, 3)), p, np.zeros(rng.integers(0, 3))])
+            np.testing.assert_array_equal(_trim_front(padded), np.trim_zeros(padded, "f"))
+            np.testing.assert_array_equal(_trim_back(padded), np.trim_zeros(padded, "b"))
+    assert _trim_front(np.zeros(3)).size == 0 and _trim_back(np.zeros(3)).size == 0
