@@ -66,51 +66,62 @@ def maximize_rows(
     best_u = 0.5 * (lo + hi)
     if m == 0:
         return best, np.exp(best_u)
-    group = np.zeros(m, dtype=np.intp) if groups is None else np.unique(np.asarray(groups), return_inverse=True)[1]
-    group = group.reshape(-1)
+    if groups is None:
+        group, n_groups = None, 1
+    else:
+        group = np.unique(np.asarray(groups), return_inverse=True)[1].reshape(-1)
+        n_groups = int(group.max()) + 1
+        if n_groups == 1:
+            group = None
     # the last round's best sample of each bracket, its neighbours and spacing: the parabola's
     last_y = np.full((m, 3), np.nan)
     last_u = np.zeros(m)
     last_h = np.zeros(m)
     inner = np.zeros(m, dtype=bool)
     active = np.arange(m)
+    # the brackets still searched, their ends and best so far (written back as they finish)
+    a_lo, a_hi, a_best, a_bu = lo, hi, best.copy(), best_u.copy()
     t = np.linspace(0.0, 1.0, 4 * points + 2)  # the first round looks closer: structure inside the bracket
+    t_later = np.linspace(0.0, 1.0, points + 2)
     for _ in range(_MAX_ROUNDS):
-        a_lo, a_hi = lo[active], hi[active]
         u = a_lo[:, None] + (a_hi - a_lo)[:, None] * t[None, :]
         y = _row_values(values_at, u, active)
         rows = np.arange(active.size)
         j = np.argmax(y, axis=1)
         yj = y[rows, j]
-        better = yj > best[active]
-        best[active] = np.where(better, yj, best[active])
-        best_u[active] = np.where(better, u[rows, j], best_u[active])
+        better = yj > a_best
+        a_best = np.where(better, yj, a_best)
+        a_bu = np.where(better, u[rows, j], a_bu)
         # a group is done when all its brackets are narrow enough, or all have found +inf
-        g = group[active]
         narrow = (a_hi - a_lo) <= rel_tol
-        infinite = np.isinf(best[active])
-        n_groups = int(group.max()) + 1
-        wide = np.bincount(g, weights=~narrow, minlength=n_groups) > 0
-        finite = np.bincount(g, weights=~infinite, minlength=n_groups) > 0
-        done = ~(wide & finite)[g]
+        infinite = np.isinf(a_best)
+        if group is None:
+            done = np.full(active.size, bool(narrow.all() or infinite.all()))
+        else:
+            g = group[active]
+            wide = np.bincount(g, weights=~narrow, minlength=n_groups) > 0
+            finite = np.bincount(g, weights=~infinite, minlength=n_groups) > 0
+            done = ~(wide & finite)[g]
         if done.any():
             d = rows[done]
             jd = j[d]
-            inside = (jd > 0) & (jd < t.size - 1) & np.isfinite(yj[d])
             k = active[d]
-            inner[k] = inside
+            best[k], best_u[k] = a_best[d], a_bu[d]
+            inner[k] = (jd > 0) & (jd < t.size - 1) & np.isfinite(yj[d])
             jj = np.clip(jd, 1, t.size - 2)
             last_y[k] = np.stack([y[d, jj - 1], y[d, jj], y[d, jj + 1]], axis=1)
             last_u[k] = u[d, jj]
             last_h[k] = u[d, jj + 1] - u[d, jj]
-        keep = rows[~done]
-        if keep.size == 0:
-            break
-        jk = j[keep]
-        lo[active[keep]] = u[keep, np.maximum(jk - 1, 0)]
-        hi[active[keep]] = u[keep, np.minimum(jk + 1, t.size - 1)]
-        active = active[keep]
-        t = np.linspace(0.0, 1.0, points + 2)
+            keep = rows[~done]
+            if keep.size == 0:
+                break
+            active, j, u = active[keep], j[keep], u[keep]
+            a_best, a_bu = a_best[keep], a_bu[keep]
+        rows = np.arange(active.size)
+        a_lo, a_hi = u[rows, np.maximum(j - 1, 0)], u[rows, np.minimum(j + 1, t.size - 1)]
+        t = t_later
+    else:  # rounds ran out (a bracket that never narrows): keep what was found
+        best[active], best_u[active] = a_best, a_bu
     # the parabola through the best sample of the last round and its neighbours
     if inner.any():
         r = np.flatnonzero(inner)
