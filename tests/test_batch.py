@@ -188,3 +188,26 @@ def test_unchecked_case_is_unchecked_not_fail(case_dir, tmp_path, run_cli):
     # an unchecked case alone (no failure, no unreadable case) still exits 1: never a pass
     (case_dir / FAILING).unlink()
     assert run_cli("batch", str(case_dir), "--out", str(tmp_path / "b"), "--workers", "1").code == 1
+
+
+def test_summary_names_a_failed_criterion_that_has_no_figure():
+    """An unstable closed loop fails without a value/limit pair: the summary's "closest to its
+    limit" column names it instead of staying empty (common practice: a summary row says why a
+    case failed)."""
+    from convert.report.batch import CaseOutcome, format_worst
+
+    unstable = CaseOutcome("a.toml", "a", "fail", worst_label="closed-loop stability")
+    assert format_worst(unstable) == "closed-loop stability: fails"
+    nothing = CaseOutcome("b.toml", "b", "unchecked")
+    assert format_worst(nothing) == ""
+    figure = CaseOutcome(
+        "c.toml",
+        "c",
+        "pass",
+        worst_label="max phase error",
+        worst_value=2.1,
+        worst_limit=5.0,
+        worst_unit="deg",
+        worst_ratio=0.42,
+    )
+    assert format_worst(figure) == "max phase error 2.1 / 5 deg (42 %)"

@@ -333,9 +333,10 @@ def summary_json(result: BatchResult) -> str:
 
 def format_worst(o: CaseOutcome) -> str:
     """``"max phase error 2.1 / 5 deg (42 %)"`` for the summary: the value, its limit and the
-    share of the limit used; empty when nothing was checked."""
+    share of the limit used; a failed criterion that has no figure (an unstable closed loop) by
+    its name; empty when nothing was checked."""
     if o.worst_ratio is None or o.worst_value is None:
-        return ""
+        return f"{o.worst_label}: fails" if o.status == "fail" and o.worst_label else ""
     share = "no limit left" if o.worst_ratio == float("inf") else f"{100 * o.worst_ratio:.0f} %"
     return f"{o.worst_label} {o.worst_value:.3g} / {o.worst_limit:g} {o.worst_unit} ({share})"
 
