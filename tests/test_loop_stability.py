@@ -238,6 +238,9 @@ def test_unstable_source_fails_with_the_message_on_top(tmp_path, run_cli, text, 
     assert md.index("Warning: The source loop is unstable") < md.index("**Verdict: FAIL**")
     row = next(line for line in md.splitlines() if line.startswith("| source | ") and "unstable loop" in line)
     assert "dB" not in row and "°" not in row  # no margins of the unstable loop
+    # the budget's margin columns say which loop was unstable, not that each row's effect made it so
+    budget_rows = [line for line in md.splitlines() if line.startswith("| Discretization method")]
+    assert budget_rows and all("source loop unstable" in line for line in budget_rows)
     import json
 
     data = json.loads((out / "results.json").read_text())
@@ -260,6 +263,12 @@ def test_unstable_target_loop_fails_though_error_criteria_pass(tmp_path):
     assert status["max_gain_error_db"] == "pass" and status["max_phase_error_deg"] == "pass"
     assert status["closed_loop_stable"] == "fail" and res.verdict.overall == "fail"
     assert res.alarms and "tustin @ 2 Hz is unstable" in res.alarms[0]
+    # the budget table leaves out the margin changes and says which loop was unstable: the total
+    # (every effect on), not each row's own effect
+    from convert.report.tables import all_tables
+
+    _, _, rows = next(t for t in all_tables(res) if t[0].startswith("Error budget"))
+    assert rows and all(row[3] == "total loop unstable" for row in rows if row[1] != "not applicable")
 
 
 @pytest.mark.parametrize("fs", [20.0, 50.0])

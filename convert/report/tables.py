@@ -164,11 +164,13 @@ def verdict_table(results) -> Table:
     )
 
 
-def budget_table(realization, loops_stable: bool = True) -> Table:
+def budget_table(realization, loops_stable: bool = True, unstable: str = "total loop unstable") -> Table:
     """The budget of one realization. Rows that cannot arise in this kind of target are left
     out (:func:`table_note` says which); rows that could arise but were not switched on stay.
     ``loops_stable`` False (the source's or this realization's loop is unstable): the margin
-    changes are left out, since margins of an unstable loop say nothing of robustness."""
+    changes are left out, since margins of an unstable loop say nothing of robustness, and each
+    row says which loop was unstable (``unstable``): not the row's own effect, which alone may
+    leave the loop stable."""
     rows = []
     for row in realization.budget:
         if not row.applicable:
@@ -185,7 +187,7 @@ def budget_table(realization, loops_stable: bool = True) -> Table:
                 _change(row.delta_sensitivity_peak_db, "dB", row.percentile),
             ]
             if loops_stable
-            else ["unstable loop", "—", "—"]
+            else [unstable, "—", "—"]
         )
         rows.append(
             [row.label + pct, fixed(row.max_gain_error_db, "dB"), fixed(row.max_phase_error_deg, "°"), *loop, row.note]
@@ -344,7 +346,14 @@ def firmware_notes(realization, assumptions: bool = True) -> list[str]:
 def all_tables(results) -> list[Table]:
     out = [verdict_table(results), realization_table(results)]
     src_ok = results.loop_is_stable("source") is not False
-    out += [budget_table(r, src_ok and results.loop_is_stable(r.name) is not False) for r in results.realizations]
+    out += [
+        budget_table(
+            r,
+            src_ok and results.loop_is_stable(r.name) is not False,
+            "total loop unstable" if src_ok else "source loop unstable",
+        )
+        for r in results.realizations
+    ]
     for t in (margins_table(results), rate_table(results)):
         if t is not None:
             out.append(t)
